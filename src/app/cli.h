@@ -1,0 +1,16 @@
+// The `aftershock` command dispatcher. Each subcommand is a function taking the
+// arguments after its name and returning the process exit code
+// (0 ok, 1 runtime failure, 2 bad usage/input).
+#ifndef AFTERSHOCK_APP_CLI_H_
+#define AFTERSHOCK_APP_CLI_H_
+
+namespace aftershock::app {
+
+int Main(int argc, char** argv);
+
+// Subcommands (one file each in src/app/).
+int FitCommand(int argc, char** argv);       // fit_command.cc
+
+}  // namespace aftershock::app
+
+#endif  // AFTERSHOCK_APP_CLI_H_
