@@ -1,0 +1,432 @@
+#include "aftershock/estimator.h"
+
+#include <nlopt.h>
+
+#include <Eigen/Dense>
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <limits>
+#include <numeric>
+
+#include "absl/strings/str_cat.h"
+#include "absl/strings/str_format.h"
+#include "estimation/likelihood_kernel.h"
+
+namespace aftershock {
+namespace {
+
+constexpr double kInfeasibleObjective = 1e10;
+
+// Everything the NLopt callbacks need. Works on the scaled data.
+struct Problem {
+  internal::LikelihoodKernel* kernel = nullptr;
+  std::vector<int> free_idx;    // indices of estimated params in the full vector
+  std::vector<double> full;     // full scaled parameter vector (fixed entries set)
+  std::vector<double> grad_full;
+  std::vector<int> persist_idx;      // full indices entering the persistence sum
+  std::vector<double> persist_coef;  // their coefficients (1, or 0.5 for gamma)
+  int evals = 0;
+};
+
+double Objective(unsigned n, const double* x, double* grad, void* data) {
+  auto* p = static_cast<Problem*>(data);
+  ++p->evals;
+  for (unsigned i = 0; i < n; ++i) p->full[p->free_idx[i]] = x[i];
+  const double ll = p->kernel->Evaluate(p->full.data(), grad ? p->grad_full.data() : nullptr,
+                                        nullptr);
+  const double scale = 1.0 / p->kernel->nobs();
+  if (!std::isfinite(ll)) {
+    if (grad) std::fill(grad, grad + n, 0.0);
+    return kInfeasibleObjective;
+  }
+  if (grad) {
+    for (unsigned i = 0; i < n; ++i) grad[i] = -p->grad_full[p->free_idx[i]] * scale;
+  }
+  return -ll * scale;
+}
+
+// persistence(x) - kOptimizerMaxPersistence <= 0.
+double PersistenceConstraint(unsigned n, const double* x, double* grad, void* data) {
+  auto* p = static_cast<Problem*>(data);
+  if (grad) std::fill(grad, grad + n, 0.0);
+  double s = -kOptimizerMaxPersistence;
+  for (size_t j = 0; j < p->persist_idx.size(); ++j) {
+    const int full_i = p->persist_idx[j];
+    for (unsigned i = 0; i < n; ++i) {
+      if (p->free_idx[i] == full_i) {
+        s += p->persist_coef[j] * x[i];
+        if (grad) grad[i] = p->persist_coef[j];
+      }
+    }
+  }
+  return s;
+}
+
+struct RunOutcome {
+  std::vector<double> x;
+  double objective = std::numeric_limits<double>::infinity();
+  nlopt_result code = NLOPT_FAILURE;
+};
+
+bool Succeeded(nlopt_result r) {
+  return r == NLOPT_SUCCESS || r == NLOPT_FTOL_REACHED || r == NLOPT_XTOL_REACHED ||
+         r == NLOPT_STOPVAL_REACHED;
+}
+
+const char* ResultName(nlopt_result r) {
+  switch (r) {
+    case NLOPT_SUCCESS: return "success";
+    case NLOPT_STOPVAL_REACHED: return "stop value reached";
+    case NLOPT_FTOL_REACHED: return "objective tolerance reached";
+    case NLOPT_XTOL_REACHED: return "parameter tolerance reached";
+    case NLOPT_MAXEVAL_REACHED: return "evaluation limit reached";
+    case NLOPT_MAXTIME_REACHED: return "time limit reached";
+    case NLOPT_ROUNDOFF_LIMITED: return "stopped by round-off";
+    case NLOPT_FORCED_STOP: return "forced stop";
+    case NLOPT_OUT_OF_MEMORY: return "out of memory";
+    case NLOPT_INVALID_ARGS: return "invalid arguments";
+    default: return "failure";
+  }
+}
+
+RunOutcome RunOptimizer(nlopt_algorithm algo, Problem* prob, const std::vector<double>& lb,
+                        const std::vector<double>& ub, std::vector<double> x0,
+                        const FitOptions& options) {
+  const unsigned n = static_cast<unsigned>(x0.size());
+  RunOutcome out;
+  nlopt_opt opt = nlopt_create(algo, n);
+  if (opt == nullptr) return out;
+  nlopt_set_lower_bounds(opt, lb.data());
+  nlopt_set_upper_bounds(opt, ub.data());
+  nlopt_set_min_objective(opt, Objective, prob);
+  if (!prob->persist_idx.empty()) {
+    nlopt_add_inequality_constraint(opt, PersistenceConstraint, prob, 1e-12);
+  }
+  nlopt_set_ftol_rel(opt, options.ftol_rel);
+  nlopt_set_xtol_rel(opt, options.xtol_rel);
+  nlopt_set_maxeval(opt, options.max_evaluations);
+  if (algo == NLOPT_LN_COBYLA) {
+    std::vector<double> step(n);
+    for (unsigned i = 0; i < n; ++i) step[i] = std::max(1e-4, 0.05 * std::fabs(x0[i]));
+    nlopt_set_initial_step(opt, step.data());
+  }
+  for (unsigned i = 0; i < n; ++i) x0[i] = std::clamp(x0[i], lb[i], ub[i]);
+  double f = 0;
+  out.code = nlopt_optimize(opt, x0.data(), &f);
+  nlopt_destroy(opt);
+  out.x = std::move(x0);
+  out.objective = f;
+  return out;
+}
+
+// Cold starting points on the unit-variance scale, one full vector each.
+std::vector<std::vector<double>> GridStarts(const ModelSpec& spec, double mean_y,
+                                            double ewma_lambda) {
+  // (total alpha-type weight, total beta weight) of each start.
+  struct Pair { double a, b; };
+  static const std::vector<Pair> kGarchPairs = {
+      {0.08, 0.90}, {0.10, 0.80}, {0.15, 0.70}, {0.20, 0.50}, {0.05, 0.94}};
+  static const std::vector<Pair> kArchPairs = {{0.3, 0}, {0.1, 0}, {0.6, 0}};
+  static const std::vector<Pair> kFlatPairs = {{0, 0}};
+  const bool garch_like =
+      spec.variance == VarianceKind::kGarch || spec.variance == VarianceKind::kGjr;
+  const std::vector<Pair>& pairs = garch_like ? kGarchPairs
+                                   : spec.variance == VarianceKind::kArch ? kArchPairs
+                                                                          : kFlatPairs;
+  std::vector<std::vector<double>> starts;
+  for (const auto& pr : pairs) {
+    std::vector<double> th(spec.NumParams(), 0.0);
+    if (spec.mean != MeanKind::kZero) th[0] = mean_y;
+    const int v0 = spec.VarianceOffset();
+    if (spec.variance == VarianceKind::kEwma) {
+      th[v0] = ewma_lambda;
+    } else {
+      th[v0] = std::max(1e-3, 1.0 - pr.a - pr.b);
+      const int na = spec.arch_order, no = spec.asym_order, nb = spec.garch_order;
+      // Weights decline with the lag so that higher lags start smaller.
+      double wsum = 0;
+      for (int i = 0; i < na; ++i) wsum += 1.0 / (i + 1);
+      for (int i = 0; i < na; ++i) {
+        th[v0 + 1 + i] = pr.a * (no > 0 ? 0.5 : 1.0) * (1.0 / (i + 1)) / wsum;
+      }
+      for (int i = 0; i < no; ++i) th[v0 + 1 + na + i] = pr.a / no;
+      for (int j = 0; j < nb; ++j) th[v0 + 1 + na + no + j] = pr.b / nb;
+    }
+    if (spec.innovations == Innovations::kStudentT) th[spec.DistOffset()] = 8.0;
+    starts.push_back(std::move(th));
+  }
+  return starts;
+}
+
+}  // namespace
+
+absl::Status ValidateReturns(absl::Span<const double> returns, int min_obs) {
+  for (size_t i = 0; i < returns.size(); ++i) {
+    if (!std::isfinite(returns[i])) {
+      return absl::InvalidArgumentError(
+          absl::StrCat("observation ", i + 1, " is not a finite number (", returns[i], ")"));
+    }
+  }
+  if (static_cast<int>(returns.size()) < min_obs) {
+    return absl::InvalidArgumentError(absl::StrCat("too few observations: ", returns.size(),
+                                                   " given, at least ", min_obs, " needed"));
+  }
+  const auto [lo, hi] = std::minmax_element(returns.begin(), returns.end());
+  if (*lo == *hi) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("the series is constant (all ", returns.size(), " values equal ", *lo,
+                     "): its variance cannot be modelled"));
+  }
+  return absl::OkStatus();
+}
+
+absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const double> returns,
+                                   const FitOptions& options) {
+  const auto t0 = std::chrono::steady_clock::now();
+  if (auto s = spec.Validate(); !s.ok()) return s;
+  const int K = spec.NumParams();
+  const int nm = spec.NumMeanParams();
+  const int v0 = spec.VarianceOffset();
+
+  // Which parameters are estimated.
+  std::vector<bool> fixed(K, false);
+  if (spec.variance == VarianceKind::kEwma) fixed[v0] = true;
+  const bool warm = options.start.has_value() && options.start->spec == spec &&
+                    static_cast<int>(options.start->values.size()) == K;
+  if (options.fix_mean) {
+    if (!warm) {
+      return absl::InvalidArgumentError("fix_mean needs a start with the same model spec");
+    }
+    for (int i = 0; i < nm; ++i) fixed[i] = true;
+  }
+  const int k_free = static_cast<int>(std::count(fixed.begin(), fixed.end(), false));
+  const int min_obs = std::max(kMinFitObservations, 10 * std::max(1, k_free)) +
+                      spec.ConditioningObs();
+  if (auto s = ValidateReturns(returns, min_obs); !s.ok()) return s;
+
+  // Scale to unit standard deviation.
+  const double n_all = static_cast<double>(returns.size());
+  const double mean = std::accumulate(returns.begin(), returns.end(), 0.0) / n_all;
+  double ss = 0;
+  for (double r : returns) ss += (r - mean) * (r - mean);
+  const double c = std::sqrt(ss / n_all);
+  std::vector<double> y(returns.begin(), returns.end());
+  for (double& v : y) v /= c;
+  // theta = D * theta_scaled.
+  std::vector<double> d(K, 1.0);
+  if (spec.mean != MeanKind::kZero) d[0] = c;
+  if (spec.variance != VarianceKind::kEwma) d[v0] = c * c;
+
+  internal::LikelihoodKernel kernel(spec, y, options.presample);
+  Problem prob;
+  prob.kernel = &kernel;
+  prob.full.assign(K, 0.0);
+  prob.grad_full.assign(K, 0.0);
+  for (int i = 0; i < K; ++i) {
+    if (!fixed[i]) prob.free_idx.push_back(i);
+  }
+  if (spec.variance == VarianceKind::kGarch || spec.variance == VarianceKind::kGjr ||
+      spec.variance == VarianceKind::kArch) {
+    const int na = spec.arch_order, no = spec.asym_order, nb = spec.garch_order;
+    for (int i = 0; i < na; ++i) { prob.persist_idx.push_back(v0 + 1 + i); prob.persist_coef.push_back(1.0); }
+    for (int i = 0; i < no; ++i) { prob.persist_idx.push_back(v0 + 1 + na + i); prob.persist_coef.push_back(0.5); }
+    for (int j = 0; j < nb; ++j) { prob.persist_idx.push_back(v0 + 1 + na + no + j); prob.persist_coef.push_back(1.0); }
+  }
+
+  // Bounds on the scaled problem, full-vector order.
+  std::vector<double> lb_full(K), ub_full(K);
+  const auto names = spec.ParamNames();
+  for (int i = 0; i < K; ++i) {
+    const std::string& nm_i = names[i];
+    if (nm_i == "mu") { lb_full[i] = -100; ub_full[i] = 100; }
+    else if (nm_i.rfind("ar", 0) == 0 || nm_i.rfind("ma", 0) == 0) { lb_full[i] = -0.9999; ub_full[i] = 0.9999; }
+    else if (nm_i == "omega") { lb_full[i] = 1e-8; ub_full[i] = 100; }
+    else if (nm_i == "lambda") { lb_full[i] = 0; ub_full[i] = 1; }
+    else if (nm_i == "nu") { lb_full[i] = kMinNu; ub_full[i] = kMaxNu; }
+    else { lb_full[i] = 0; ub_full[i] = 1; }  // alpha, gamma, beta
+  }
+  std::vector<double> lb, ub;
+  for (int i : prob.free_idx) { lb.push_back(lb_full[i]); ub.push_back(ub_full[i]); }
+
+  // Candidate starts: the warm start (scaled) first, then the grid by likelihood.
+  std::vector<std::vector<double>> grid = GridStarts(spec, mean / c, options.ewma_lambda);
+  std::vector<double> warm_scaled;
+  if (warm) {
+    warm_scaled = options.start->values;
+    for (int i = 0; i < K; ++i) warm_scaled[i] /= d[i];
+    if (spec.variance == VarianceKind::kEwma) warm_scaled[v0] = options.ewma_lambda;
+    for (auto& g : grid) {  // fixed entries come from the start
+      for (int i = 0; i < K; ++i) if (fixed[i]) g[i] = warm_scaled[i];
+    }
+  }
+  std::vector<std::pair<double, int>> ranked;
+  for (size_t s = 0; s < grid.size(); ++s) {
+    const double ll = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+    ranked.push_back({std::isfinite(ll) ? -ll : std::numeric_limits<double>::infinity(),
+                      static_cast<int>(s)});
+  }
+  std::sort(ranked.begin(), ranked.end());
+
+  struct Attempt { std::vector<double> theta; std::string label; };
+  std::vector<Attempt> attempts;
+  if (warm) attempts.push_back({warm_scaled, "warm"});
+  for (size_t j = 0; j < ranked.size(); ++j) {
+    attempts.push_back({grid[ranked[j].second], j == 0 && !warm ? "grid" : "fallback"});
+  }
+
+  auto to_free = [&](const std::vector<double>& full) {
+    std::vector<double> x;
+    for (int i : prob.free_idx) x.push_back(full[i]);
+    return x;
+  };
+  auto feasible_full = [&](const std::vector<double>& x) {
+    std::vector<double> full = prob.full;
+    for (size_t i = 0; i < x.size(); ++i) full[prob.free_idx[i]] = x[i];
+    return full;
+  };
+
+  RunOutcome best;
+  std::string best_label;
+  bool converged = false;
+  std::string message;
+  for (const auto& att : attempts) {
+    prob.full = att.theta;
+    if (k_free == 0) {
+      best.x = {};
+      best.objective = -kernel.Evaluate(prob.full.data(), nullptr, nullptr) / kernel.nobs();
+      best.code = NLOPT_SUCCESS;
+      best_label = att.label;
+      converged = std::isfinite(best.objective);
+      message = "nothing to estimate";
+      break;
+    }
+    RunOutcome run = RunOptimizer(NLOPT_LD_SLSQP, &prob, lb, ub, to_free(att.theta), options);
+    if (run.code == NLOPT_ROUNDOFF_LIMITED && std::isfinite(run.objective) &&
+        run.objective < kInfeasibleObjective) {
+      // SLSQP sometimes stops on round-off right at the optimum: confirm with a
+      // derivative-free polish from that point.
+      RunOutcome polish = RunOptimizer(NLOPT_LN_COBYLA, &prob, lb, ub, run.x, options);
+      if (Succeeded(polish.code) && polish.objective <= run.objective + 1e-12) run = polish;
+    }
+    const bool ok = Succeeded(run.code) && std::isfinite(run.objective) &&
+                    run.objective < kInfeasibleObjective;
+    if (!best.x.size() || run.objective < best.objective) {
+      best = run;
+      best_label = att.label;
+      message = ResultName(run.code);
+    }
+    if (ok) {
+      converged = true;
+      best = run;
+      best_label = att.label;
+      message = ResultName(run.code);
+      break;
+    }
+  }
+
+  // Map back to the data scale.
+  std::vector<double> theta_s = k_free > 0 ? feasible_full(best.x) : prob.full;
+  FitResult res;
+  res.params.spec = spec;
+  res.params.values.resize(K);
+  for (int i = 0; i < K; ++i) res.params.values[i] = theta_s[i] * d[i];
+  res.names = names;
+  res.fixed = fixed;
+  res.presample = options.presample;
+  res.start_used = best_label;
+  res.optimizer_message = message;
+  res.iterations = prob.evals;
+  res.num_estimated = k_free;
+
+  std::vector<double> scores(static_cast<size_t>(kernel.nobs()) * K);
+  std::vector<double> g0(K);
+  const double ll_s = kernel.Evaluate(theta_s.data(), g0.data(), scores.data());
+  res.nobs = kernel.nobs();
+  res.loglik = ll_s - res.nobs * std::log(c);
+  res.aic = -2.0 * res.loglik + 2.0 * k_free;
+  res.bic = -2.0 * res.loglik + k_free * std::log(static_cast<double>(res.nobs));
+  const absl::Status feasible = res.params.CheckConstraints();
+  res.converged = converged && std::isfinite(res.loglik) && feasible.ok();
+  if (!feasible.ok()) {
+    res.warnings.push_back(absl::StrCat("estimate violates a constraint: ", feasible.message()));
+  }
+
+  res.std_errors.assign(K, std::numeric_limits<double>::quiet_NaN());
+  res.robust_std_errors.assign(K, std::numeric_limits<double>::quiet_NaN());
+  if (options.std_errors && k_free > 0 && std::isfinite(ll_s)) {
+    // Hessian of the scaled log-likelihood by central differences of the
+    // analytic gradient, restricted to the estimated parameters.
+    Eigen::MatrixXd H(k_free, k_free);
+    std::vector<double> gp(K), gm(K), th(theta_s);
+    bool finite = true;
+    for (int a = 0; a < k_free; ++a) {
+      const int ia = prob.free_idx[a];
+      const double h = 1e-5 * std::max(std::fabs(theta_s[ia]), 1e-2);
+      th[ia] = theta_s[ia] + h;
+      const double lp = kernel.Evaluate(th.data(), gp.data(), nullptr);
+      th[ia] = theta_s[ia] - h;
+      const double lm = kernel.Evaluate(th.data(), gm.data(), nullptr);
+      th[ia] = theta_s[ia];
+      finite = finite && std::isfinite(lp) && std::isfinite(lm);
+      for (int b = 0; b < k_free; ++b) {
+        const int ib = prob.free_idx[b];
+        H(b, a) = (gp[ib] - gm[ib]) / (2.0 * h);
+      }
+    }
+    H = 0.5 * (H + H.transpose()).eval();
+    Eigen::MatrixXd J = Eigen::MatrixXd::Zero(k_free, k_free);
+    for (int t = 0; t < res.nobs; ++t) {
+      Eigen::VectorXd s(k_free);
+      for (int a = 0; a < k_free; ++a) s[a] = scores[static_cast<size_t>(t) * K + prob.free_idx[a]];
+      J.noalias() += s * s.transpose();
+    }
+    Eigen::LDLT<Eigen::MatrixXd> ldlt(-H);
+    if (finite && ldlt.info() == Eigen::Success && ldlt.isPositive() &&
+        (ldlt.vectorD().array() > 0).all()) {
+      const Eigen::MatrixXd inv = ldlt.solve(Eigen::MatrixXd::Identity(k_free, k_free));
+      const Eigen::MatrixXd robust = inv * J * inv;
+      for (int a = 0; a < k_free; ++a) {
+        const int ia = prob.free_idx[a];
+        if (inv(a, a) > 0) res.std_errors[ia] = std::sqrt(inv(a, a)) * d[ia];
+        if (robust(a, a) > 0) res.robust_std_errors[ia] = std::sqrt(robust(a, a)) * d[ia];
+      }
+    } else {
+      res.warnings.push_back(
+          "the Hessian is not negative definite at the estimate: standard errors unavailable");
+    }
+  }
+
+  // Warnings a quant wants to see.
+  const double pers = res.params.Persistence();
+  if (spec.variance != VarianceKind::kEwma && spec.variance != VarianceKind::kConstant &&
+      pers > 0.99) {
+    res.warnings.push_back(absl::StrFormat(
+        "persistence %.5f is close to 1: shocks to the variance decay slowly (half-life %.0f bars)",
+        pers, std::log(0.5) / std::log(pers)));
+  }
+  for (int i = 0; i < K; ++i) {
+    if (fixed[i]) continue;
+    const double x = theta_s[i];
+    if (names[i] == "nu" && (x < kMinNu + 0.05 || x > kMaxNu - 1)) {
+      res.warnings.push_back(absl::StrFormat("nu = %.3f is at its bound", x));
+    } else if ((names[i].rfind("alpha", 0) == 0 || names[i].rfind("gamma", 0) == 0 ||
+                names[i].rfind("beta", 0) == 0) && x < 1e-6) {
+      res.warnings.push_back(absl::StrCat(names[i], " is at its lower bound 0"));
+    }
+  }
+  if (!res.converged) {
+    res.warnings.push_back(absl::StrCat("the optimizer did not converge (", message, ")"));
+  }
+  if (options.keep_series) {
+    kernel.Evaluate(theta_s.data(), nullptr, nullptr);  // the Hessian moved the workspace
+    res.residuals = kernel.residuals();
+    res.sigma2 = kernel.sigma2();
+    for (double& e : res.residuals) e *= c;
+    for (double& v : res.sigma2) v *= c * c;
+  }
+  res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  return res;
+}
+
+}  // namespace aftershock

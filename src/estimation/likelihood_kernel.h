@@ -1,0 +1,59 @@
+// LikelihoodKernel: the reusable workspace behind EvaluateLikelihood and the
+// estimator. Construction sizes every buffer once; Evaluate() then allocates
+// nothing, so an optimizer can call it thousands of times cheaply.
+//
+// Thread-safety: not thread-safe (owns mutable workspaces); one per thread.
+#ifndef AFTERSHOCK_ESTIMATION_LIKELIHOOD_KERNEL_H_
+#define AFTERSHOCK_ESTIMATION_LIKELIHOOD_KERNEL_H_
+
+#include <vector>
+
+#include "aftershock/model_spec.h"
+
+namespace aftershock::internal {
+
+class LikelihoodKernel {
+ public:
+  // REQUIRES: spec.Validate().ok(), returns.size() > spec.ConditioningObs(), all
+  // returns finite. The kernel keeps a copy of the returns.
+  LikelihoodKernel(const ModelSpec& spec, std::vector<double> returns, Presample presample);
+
+  // Log-likelihood at theta (spec.NumParams() values). When grad != nullptr it
+  // receives the K-vector gradient; when scores != nullptr (requires grad) it
+  // receives nobs x K per-observation gradients, row-major. Returns -inf when a
+  // conditional variance is not positive and finite (grad is then zeroed).
+  double Evaluate(const double* theta, double* grad, double* scores);
+
+  int nobs() const { return n_; }
+  int num_params() const { return k_; }
+  const ModelSpec& spec() const { return spec_; }
+  const std::vector<double>& returns() const { return r_; }
+  // Series from the most recent Evaluate().
+  const std::vector<double>& residuals() const { return eps_; }
+  const std::vector<double>& sigma2() const { return sig2_; }
+  double presample_variance() const { return s2_; }
+
+ private:
+  void MeanPass(const double* theta, bool with_grad);
+  void Presample(bool with_grad);
+
+  const ModelSpec spec_;
+  const std::vector<double> r_;
+  const enum Presample presample_;
+  const int p_;   // conditioning observations (AR order)
+  const int n_;   // likelihood terms
+  const int k_;   // parameters
+  const int nm_;  // mean parameters
+
+  std::vector<double> eps_;    // n
+  std::vector<double> sig2_;   // n
+  std::vector<double> deps_;   // n x nm: d eps_t / d mean params
+  std::vector<double> dsig2_;  // n x k: d sigma2_t / d params
+  std::vector<double> ds2_;    // nm: d s2 / d mean params
+  std::vector<double> work_;   // k
+  double s2_ = 0;
+};
+
+}  // namespace aftershock::internal
+
+#endif  // AFTERSHOCK_ESTIMATION_LIKELIHOOD_KERNEL_H_
