@@ -260,19 +260,29 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       for (int i = 0; i < K; ++i) if (fixed[i]) g[i] = warm_scaled[i];
     }
   }
-  std::vector<std::pair<double, int>> ranked;
-  for (size_t s = 0; s < grid.size(); ++s) {
-    const double ll = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
-    ranked.push_back({std::isfinite(ll) ? -ll : std::numeric_limits<double>::infinity(),
-                      static_cast<int>(s)});
-  }
-  std::sort(ranked.begin(), ranked.end());
-
+  // The grid is ranked by likelihood only when it is needed (no warm start, or
+  // the warm start failed): a warm refit then costs no extra evaluations.
   struct Attempt { std::vector<double> theta; std::string label; };
+  auto grid_attempts = [&]() {
+    std::vector<std::pair<double, int>> ranked;
+    for (size_t s = 0; s < grid.size(); ++s) {
+      const double ll = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+      ++prob.evals;
+      ranked.push_back({std::isfinite(ll) ? -ll : std::numeric_limits<double>::infinity(),
+                        static_cast<int>(s)});
+    }
+    std::sort(ranked.begin(), ranked.end());
+    std::vector<Attempt> out;
+    for (size_t j = 0; j < ranked.size(); ++j) {
+      out.push_back({grid[ranked[j].second], j == 0 && !warm ? "grid" : "fallback"});
+    }
+    return out;
+  };
   std::vector<Attempt> attempts;
-  if (warm) attempts.push_back({warm_scaled, "warm"});
-  for (size_t j = 0; j < ranked.size(); ++j) {
-    attempts.push_back({grid[ranked[j].second], j == 0 && !warm ? "grid" : "fallback"});
+  if (warm) {
+    attempts.push_back({warm_scaled, "warm"});
+  } else {
+    attempts = grid_attempts();
   }
 
   auto to_free = [&](const std::vector<double>& full) {
@@ -290,7 +300,8 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   std::string best_label;
   bool converged = false;
   std::string message;
-  for (const auto& att : attempts) {
+  for (size_t a = 0; a < attempts.size(); ++a) {
+    const Attempt att = attempts[a];
     prob.full = att.theta;
     if (k_free == 0) {
       best.x = {};
@@ -323,6 +334,9 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       message = ResultName(run.code);
       break;
     }
+    if (warm && a == 0) {  // the warm start failed: fall back to the cold grid
+      for (auto& g : grid_attempts()) attempts.push_back(std::move(g));
+    }
   }
 
   // Map back to the data scale.
@@ -339,9 +353,12 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   res.iterations = prob.evals;
   res.num_estimated = k_free;
 
-  std::vector<double> scores(static_cast<size_t>(kernel.nobs()) * K);
-  std::vector<double> g0(K);
-  const double ll_s = kernel.Evaluate(theta_s.data(), g0.data(), scores.data());
+  std::vector<double> scores(options.std_errors ? static_cast<size_t>(kernel.nobs()) * K : 0);
+  const double ll_s = kernel.Evaluate(theta_s.data(), nullptr, nullptr);
+  if (options.std_errors) {
+    std::vector<double> g0(K);
+    kernel.Evaluate(theta_s.data(), g0.data(), scores.data());
+  }
   res.nobs = kernel.nobs();
   res.loglik = ll_s - res.nobs * std::log(c);
   res.aic = -2.0 * res.loglik + 2.0 * k_free;

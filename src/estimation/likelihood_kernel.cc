@@ -23,12 +23,20 @@ LikelihoodKernel::LikelihoodKernel(const ModelSpec& spec, std::vector<double> re
       n_(static_cast<int>(r_.size()) - spec.ConditioningObs()),
       k_(spec.NumParams()),
       nm_(spec.NumMeanParams()),
+      order_one_(spec.mean != MeanKind::kArma &&
+                 ((spec.variance == VarianceKind::kGarch && spec.arch_order == 1 &&
+                   spec.garch_order == 1) ||
+                  (spec.variance == VarianceKind::kGjr && spec.arch_order == 1 &&
+                   spec.asym_order == 1 && spec.garch_order == 1))),
       eps_(n_),
       sig2_(n_),
       deps_(static_cast<size_t>(n_) * nm_),
       dsig2_(static_cast<size_t>(n_) * k_),
       ds2_(nm_),
-      work_(k_) {}
+      work_(k_) {
+  // d eps_t / d mu = -1 for the constant mean, whatever the parameters.
+  if (spec_.mean == MeanKind::kConstant) std::fill(deps_.begin(), deps_.end(), -1.0);
+}
 
 void LikelihoodKernel::MeanPass(const double* theta, bool with_grad) {
   const double* r = r_.data() + p_;  // r[k] is the return of likelihood term k
@@ -39,8 +47,8 @@ void LikelihoodKernel::MeanPass(const double* theta, bool with_grad) {
     case MeanKind::kConstant: {
       const double mu = theta[0];
       for (int k = 0; k < n_; ++k) eps_[k] = r[k] - mu;
-      if (with_grad) std::fill(deps_.begin(), deps_.end(), -1.0);
-      return;
+      return;  // deps_ holds the constant -1 since construction
+
     }
     case MeanKind::kArma:
       break;
@@ -88,7 +96,140 @@ void LikelihoodKernel::Presample(bool with_grad) {
   for (int c = 0; c < nm_; ++c) ds2_[c] /= wsum;
 }
 
+double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, double* scores) {
+  const bool with_grad = grad != nullptr;
+  const bool has_mu = spec_.mean == MeanKind::kConstant;
+  const bool gjr = spec_.variance == VarianceKind::kGjr;
+  const bool student = spec_.innovations == Innovations::kStudentT;
+  const int v0 = spec_.VarianceOffset();
+  const double mu = has_mu ? theta[0] : 0.0;
+  const double omega = theta[v0], alpha = theta[v0 + 1];
+  const double gamma = gjr ? theta[v0 + 2] : 0.0;
+  const double beta = theta[v0 + (gjr ? 3 : 2)];
+  const double nu = student ? theta[spec_.DistOffset()] : 0.0;
+  const double* r = r_.data();
+  for (int k = 0; k < n_; ++k) eps_[k] = r[k] - mu;
+  Presample(has_mu && with_grad);
+  const double s2 = s2_;
+  const double ds2 = has_mu ? ds2_[0] : 0.0;  // d s2 / d mu
+
+  double const_term, dconst_dnu = 0;
+  if (student) {
+    const_term = std::lgamma(0.5 * (nu + 1.0)) - std::lgamma(0.5 * nu) -
+                 0.5 * (kLogPi + std::log(nu - 2.0));
+    if (with_grad) {
+      dconst_dnu = 0.5 * boost::math::digamma(0.5 * (nu + 1.0)) -
+                   0.5 * boost::math::digamma(0.5 * nu) - 0.5 / (nu - 2.0);
+    }
+  } else {
+    const_term = -0.5 * kLogTwoPi;
+  }
+  const double nu2 = nu - 2.0;
+
+  // Previous-term state: eps2, negative-part eps2, sigma2 and their d/dmu.
+  double e2p = s2, ne2p = 0.5 * s2, vp = s2;
+  double de2p = ds2, dne2p = 0.5 * ds2;
+  // d sigma2_{k-1} / d (mu, omega, alpha, gamma, beta).
+  double dv_mu = ds2, dv_om = 0, dv_al = 0, dv_ga = 0, dv_be = 0;
+  double g_mu = 0, g_om = 0, g_al = 0, g_ga = 0, g_be = 0, g_nu = 0;
+  double quad = 0;           // sum of e2/v (normal) 
+  double log_sum = 0;        // sum of log v, accumulated through products
+  double log_u_sum = 0;      // sum of log(1+u) (Student-t)
+  double prod_v = 1.0, prod_u = 1.0;
+  constexpr int kChunk = 8;  // on unit-scaled data 8 products stay far inside double range
+  int in_chunk = 0;
+  for (int k = 0; k < n_; ++k) {
+    double v = omega;
+    v += alpha * e2p;
+    if (gjr) v += gamma * ne2p;
+    v += beta * vp;
+    sig2_[k] = v;
+    if (!(v > 0.0) || !std::isfinite(v)) {
+      if (with_grad) std::fill(grad, grad + k_, 0.0);
+      return -std::numeric_limits<double>::infinity();
+    }
+    const double e = eps_[k];
+    const double e2 = e * e;
+    prod_v *= v;
+    double dl_de = 0, dl_dv = 0, dl_dnu = 0;
+    const double inv_v = 1.0 / v;
+    if (student) {
+      const double u = e2 * inv_v / nu2;
+      prod_u *= 1.0 + u;
+      if (with_grad) {
+        const double inv = 1.0 / (1.0 + u);
+        dl_de = -(nu + 1.0) * e * inv_v / nu2 * inv;
+        dl_dv = (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v;
+        dl_dnu = dconst_dnu - 0.5 * std::log1p(u) + 0.5 * (nu + 1.0) * u / nu2 * inv;
+      }
+    } else {
+      const double q = e2 * inv_v;
+      quad += q;
+      if (with_grad) {
+        dl_de = -e * inv_v;
+        dl_dv = 0.5 * (q - 1.0) * inv_v;
+      }
+    }
+    if (++in_chunk == kChunk) {
+      log_sum += std::log(prod_v);
+      prod_v = 1.0;
+      if (student) {
+        log_u_sum += std::log(prod_u);
+        prod_u = 1.0;
+      }
+      in_chunk = 0;
+    }
+    if (with_grad) {
+      // d sigma2_k from the recursion (k = 0 uses the presample derivatives).
+      const double nmu = alpha * de2p + (gjr ? gamma * dne2p : 0.0) + beta * dv_mu;
+      const double nom = 1.0 + beta * dv_om;
+      const double nal = e2p + beta * dv_al;
+      const double nga = ne2p + beta * dv_ga;
+      const double nbe = vp + beta * dv_be;
+      dv_mu = nmu; dv_om = nom; dv_al = nal; dv_ga = nga; dv_be = nbe;
+      const double s_mu = dl_dv * dv_mu - dl_de;
+      const double s_om = dl_dv * dv_om, s_al = dl_dv * dv_al, s_ga = dl_dv * dv_ga,
+                   s_be = dl_dv * dv_be;
+      g_mu += s_mu; g_om += s_om; g_al += s_al; g_ga += s_ga; g_be += s_be; g_nu += dl_dnu;
+      if (scores) {
+        double* row = scores + static_cast<size_t>(k) * k_;
+        int c = 0;
+        if (has_mu) row[c++] = s_mu;
+        row[c++] = s_om;
+        row[c++] = s_al;
+        if (gjr) row[c++] = s_ga;
+        row[c++] = s_be;
+        if (student) row[c++] = dl_dnu;
+      }
+      de2p = -2.0 * e;
+      dne2p = e < 0.0 ? -2.0 * e : 0.0;
+    }
+    e2p = e2;
+    ne2p = e < 0.0 ? e2 : 0.0;
+    vp = v;
+  }
+  log_sum += std::log(prod_v);
+  double ll;
+  if (student) {
+    log_u_sum += std::log(prod_u);
+    ll = n_ * const_term - 0.5 * log_sum - 0.5 * (nu + 1.0) * log_u_sum;
+  } else {
+    ll = n_ * const_term - 0.5 * (quad + log_sum);
+  }
+  if (with_grad) {
+    int c = 0;
+    if (has_mu) grad[c++] = g_mu;
+    grad[c++] = g_om;
+    grad[c++] = g_al;
+    if (gjr) grad[c++] = g_ga;
+    grad[c++] = g_be;
+    if (student) grad[c++] = g_nu;
+  }
+  return ll;
+}
+
 double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* scores) {
+  if (order_one_) return EvaluateOrderOne(theta, grad, scores);
   const bool with_grad = grad != nullptr;
   MeanPass(theta, with_grad);
   Presample(with_grad);

@@ -35,6 +35,10 @@ class LikelihoodKernel {
 
  private:
   void MeanPass(const double* theta, bool with_grad);
+  // Fast path for a zero/constant mean with GARCH(1,1) or GJR(1,1,1): scalar
+  // derivative recursions and a log of products every few terms instead of a
+  // log per term. Same recursion and summation order as the general path.
+  double EvaluateOrderOne(const double* theta, double* grad, double* scores);
   void Presample(bool with_grad);
 
   const ModelSpec spec_;
@@ -44,6 +48,7 @@ class LikelihoodKernel {
   const int n_;   // likelihood terms
   const int k_;   // parameters
   const int nm_;  // mean parameters
+  const bool order_one_;  // EvaluateOrderOne applies
 
   std::vector<double> eps_;    // n
   std::vector<double> sig2_;   // n
