@@ -75,8 +75,7 @@ std::vector<double> ForecastVariances(const ModelParams& params, const VarianceS
 
 // Sum of the first `horizon` forecasts (variance of the horizon-bar return when
 // the mean is known), by the exact recursion. REQUIRES: horizon >= 1.
-double SummedVarianceForecast(const ModelParams& params, const VarianceState& state,
-                              int horizon);
+double SummedVarianceForecast(const ModelParams& params, const VarianceState& state, int horizon);
 
 // Closed forms for (1,1)-type models, given persistence phi, the unconditional
 // variance sbar2 (ignored when phi >= 1) and s2 = sigma2_{T+1}. phi >= 1 gives the

@@ -103,9 +103,9 @@ class InnovationLaw {
 
   Innovations kind_;
   double nu_;
-  double log_norm_;     // LogNormalizerT(nu) or -1/2 log(2 pi)
-  double dlog_norm_;    // DLogNormalizerTDnu(nu) or 0
-  double scale_;        // sqrt((nu-2)/nu): z = scale_ * T; 1 for the normal
+  double log_norm_;   // LogNormalizerT(nu) or -1/2 log(2 pi)
+  double dlog_norm_;  // DLogNormalizerTDnu(nu) or 0
+  double scale_;      // sqrt((nu-2)/nu): z = scale_ * T; 1 for the normal
 };
 
 // ---- RiskQuantiles -------------------------------------------------------------

@@ -71,16 +71,14 @@ absl::StatusOr<VarianceState> StateFromHistory(const ModelParams& params,
                                                absl::Span<const double> eps,
                                                absl::Span<const double> sigma2) {
   if (eps.size() != sigma2.size()) {
-    return absl::InvalidArgumentError(absl::StrCat("residuals (", eps.size(),
-                                                   ") and variances (", sigma2.size(),
-                                                   ") differ in length"));
+    return absl::InvalidArgumentError(absl::StrCat("residuals (", eps.size(), ") and variances (",
+                                                   sigma2.size(), ") differ in length"));
   }
   const Lags lags = LagsOf(params.spec);
   const size_t need = static_cast<size_t>(std::max({lags.eps2, lags.neg, lags.sigma2}));
   if (eps.size() < need) {
     return absl::InvalidArgumentError(absl::StrCat("model ", params.spec.Label(), " needs ", need,
-                                                   " observations of history, got ",
-                                                   eps.size()));
+                                                   " observations of history, got ", eps.size()));
   }
   VarianceState st;
   const size_t T = eps.size();
@@ -149,8 +147,7 @@ std::vector<double> ForecastVariances(const ModelParams& params, const VarianceS
   return out;
 }
 
-double SummedVarianceForecast(const ModelParams& params, const VarianceState& state,
-                              int horizon) {
+double SummedVarianceForecast(const ModelParams& params, const VarianceState& state, int horizon) {
   const auto f = ForecastVariances(params, state, horizon);
   double s = 0.0;
   for (double v : f) s += v;
@@ -185,9 +182,8 @@ absl::StatusOr<HorizonTable> HorizonTable::Create(const ModelParams& params,
                                                   absl::Span<const int> horizons) {
   if (auto s = params.CheckConstraints(); !s.ok()) return s;
   if (horizons.empty() || horizons.size() > static_cast<size_t>(kMaxHorizons)) {
-    return absl::InvalidArgumentError(absl::StrCat("between 1 and ", kMaxHorizons,
-                                                   " forecast horizons are supported, got ",
-                                                   horizons.size()));
+    return absl::InvalidArgumentError(absl::StrCat(
+        "between 1 and ", kMaxHorizons, " forecast horizons are supported, got ", horizons.size()));
   }
   HorizonTable t;
   t.closed_ = HasClosedFormForecast(params.spec);
@@ -196,8 +192,7 @@ absl::StatusOr<HorizonTable> HorizonTable::Create(const ModelParams& params,
   const double sbar2 = ewma ? 0.0 : params.UnconditionalVariance();
   for (int h : horizons) {
     if (h < 1) {
-      return absl::InvalidArgumentError(
-          absl::StrCat("forecast horizon must be >= 1 bar, got ", h));
+      return absl::InvalidArgumentError(absl::StrCat("forecast horizon must be >= 1 bar, got ", h));
     }
     const int i = t.size_++;
     t.horizon_[i] = h;

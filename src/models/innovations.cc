@@ -1,11 +1,10 @@
 #include "aftershock/innovations.h"
 
-#include <cmath>
-#include <limits>
-
 #include <boost/math/distributions/normal.hpp>
 #include <boost/math/distributions/students_t.hpp>
 #include <boost/math/special_functions/digamma.hpp>
+#include <cmath>
+#include <limits>
 
 #include "absl/strings/str_cat.h"
 
@@ -154,9 +153,8 @@ double InnovationLaw::ExcessKurtosis() const {
 absl::StatusOr<RiskQuantiles> RiskQuantiles::Create(const InnovationLaw& law,
                                                     absl::Span<const double> levels) {
   if (levels.size() > static_cast<size_t>(kMaxRiskLevels)) {
-    return absl::InvalidArgumentError(absl::StrCat("at most ", kMaxRiskLevels,
-                                                   " risk levels are supported, got ",
-                                                   levels.size()));
+    return absl::InvalidArgumentError(absl::StrCat(
+        "at most ", kMaxRiskLevels, " risk levels are supported, got ", levels.size()));
   }
   RiskQuantiles r;
   for (double level : levels) {

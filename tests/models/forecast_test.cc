@@ -1,13 +1,12 @@
 #include "aftershock/forecast.h"
 
-#include <cmath>
-#include <string>
-#include <vector>
-
 #include <boost/random/mersenne_twister.hpp>
 #include <boost/random/normal_distribution.hpp>
 #include <boost/random/student_t_distribution.hpp>
 #include <catch2/catch.hpp>
+#include <cmath>
+#include <string>
+#include <vector>
 
 #include "aftershock/model_params.h"
 #include "aftershock/model_spec.h"
@@ -65,8 +64,8 @@ TEST_CASE("state from history applies the recursion once", "[forecast]") {
   const auto s3 = StateFor(a3);
   CHECK(s3.eps2[2] == Approx(0.5 * 0.5));
   CHECK(s3.next_variance == Approx(0.2 + 0.3 * 8.41 + 0.2 * 1.69 + 0.15 * 0.25));
-  auto short_hist = StateFromHistory(a3, std::vector<double>{1.0, 2.0},
-                                     std::vector<double>{1.0, 1.0});
+  auto short_hist =
+      StateFromHistory(a3, std::vector<double>{1.0, 2.0}, std::vector<double>{1.0, 1.0});
   REQUIRE_FALSE(short_hist.ok());
   CHECK(std::string(short_hist.status().message()) ==
         "model zero-mean-ARCH(3)-normal needs 3 observations of history, got 2");
@@ -185,9 +184,7 @@ void CheckAgainstMonteCarlo(const ModelParams& p, uint64_t seed) {
     future_sig.clear();
     for (int h = 1; h <= kH; ++h) {
       // Value of bar T+h-L for lag L (L >= 1): future if h-L >= 1 else history.
-      auto e_lag = [&](int L) {
-        return h - L >= 1 ? future_eps[h - L - 1] : eps[L - h];
-      };
+      auto e_lag = [&](int L) { return h - L >= 1 ? future_eps[h - L - 1] : eps[L - h]; };
       auto s_lag = [&](int L) { return h - L >= 1 ? future_sig[h - L - 1] : sig[L - h]; };
       double v = p.omega();
       for (int i = 1; i <= s.arch_order; ++i) v += p.alpha(i - 1) * e_lag(i) * e_lag(i);

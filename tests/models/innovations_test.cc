@@ -1,14 +1,13 @@
 #include "aftershock/innovations.h"
 
+#include <boost/math/quadrature/exp_sinh.hpp>
+#include <boost/math/quadrature/tanh_sinh.hpp>
+#include <catch2/catch.hpp>
 #include <cmath>
 #include <limits>
 #include <sstream>
 #include <string>
 #include <vector>
-
-#include <boost/math/quadrature/exp_sinh.hpp>
-#include <boost/math/quadrature/tanh_sinh.hpp>
-#include <catch2/catch.hpp>
 
 #include "support/test_support.h"
 
@@ -163,7 +162,8 @@ TEST_CASE("log density, cdf and quantile match scipy.stats (live)", "[innovation
   WARN("largest relative difference to scipy: " << worst);
 }
 
-TEST_CASE("expected shortfall: closed form vs quadrature and scipy (live)", "[innovations][scipy]") {
+TEST_CASE("expected shortfall: closed form vs quadrature and scipy (live)",
+          "[innovations][scipy]") {
   const auto laws = Laws();
   const std::vector<double> tails = {0.001, 0.01, 0.025, 0.05, 0.1};
   std::ostringstream in;
@@ -222,8 +222,7 @@ TEST_CASE("RiskQuantiles gives positive VaR and ES loss numbers", "[innovations]
   CHECK(std::string(bad.status().message()) == "risk level must be in (0.5, 1), e.g. 0.99; got 1");
   auto too_many = RiskQuantiles::Create(law, std::vector<double>(9, 0.99));
   REQUIRE_FALSE(too_many.ok());
-  CHECK(std::string(too_many.status().message()) ==
-        "at most 8 risk levels are supported, got 9");
+  CHECK(std::string(too_many.status().message()) == "at most 8 risk levels are supported, got 9");
 }
 
 TEST_CASE("invalid nu is a clear error", "[innovations]") {
@@ -233,8 +232,8 @@ TEST_CASE("invalid nu is a clear error", "[innovations]") {
   CHECK_FALSE(InnovationLaw::StudentT(std::nan("")).ok());
   auto spec = MakeModelSpec("zero", {}, "garch", {}, "t");
   REQUIRE(spec.ok());
-  auto p = ModelParams::FromNamed(*spec, {{"omega", 0.1}, {"alpha1", 0.1}, {"beta1", 0.8},
-                                          {"nu", 7.0}});
+  auto p =
+      ModelParams::FromNamed(*spec, {{"omega", 0.1}, {"alpha1", 0.1}, {"beta1", 0.8}, {"nu", 7.0}});
   REQUIRE(p.ok());
   auto law = InnovationLaw::FromParams(*p);
   REQUIRE(law.ok());
