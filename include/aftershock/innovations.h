@@ -86,6 +86,15 @@ class InnovationLaw {
   // d log f / d nu; 0 for the normal (it has no nu).
   double DLogDensityDnu(double z) const;
 
+  // Log-likelihood contribution of a residual eps with conditional variance
+  // sigma2 (eps = sqrt(sigma2) z): LogDensity(eps / sqrt(sigma2)) - log(sigma2) / 2,
+  // and its derivative with respect to sigma2,
+  //   -(1 + 2 z^2 DLogDensityDz2(z)) / (2 sigma2),
+  // the factor the estimator's chain rule multiplies by d sigma2 / d theta.
+  // REQUIRES: sigma2 > 0.
+  double LogLikelihood(double eps, double sigma2) const;
+  double DLogLikelihoodDSigma2(double eps, double sigma2) const;
+
   // Density, cdf P(Z <= z) and quantile. REQUIRES: 0 < p < 1 for Quantile (NaN otherwise).
   double Density(double z) const;
   double Cdf(double z) const;

@@ -117,6 +117,16 @@ double InnovationLaw::DLogDensityDnu(double z) const {
   return dlog_norm_ - 0.5 * std::log1p(z2 / nm2) + 0.5 * (nu_ + 1.0) * z2 / (nm2 * (nm2 + z2));
 }
 
+double InnovationLaw::LogLikelihood(double eps, double sigma2) const {
+  return LogDensity(eps / std::sqrt(sigma2)) - 0.5 * std::log(sigma2);
+}
+
+double InnovationLaw::DLogLikelihoodDSigma2(double eps, double sigma2) const {
+  const double z2 = eps * eps / sigma2;
+  const double z = std::sqrt(z2);  // DLogDensityDz2 depends on z^2 only
+  return -(1.0 + 2.0 * z2 * DLogDensityDz2(z)) / (2.0 * sigma2);
+}
+
 double InnovationLaw::Density(double z) const { return std::exp(LogDensity(z)); }
 
 double InnovationLaw::Cdf(double z) const {

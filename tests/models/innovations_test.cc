@@ -100,6 +100,25 @@ TEST_CASE("analytic derivatives match central finite differences", "[innovations
   CHECK(normal.DLogDensityDnu(1.3) == 0.0);
 }
 
+TEST_CASE("log-likelihood term and its sigma2 derivative", "[innovations]") {
+  // The normal term is the textbook -1/2 (log 2 pi + log sigma2 + eps^2 / sigma2).
+  const auto normal = InnovationLaw::Normal();
+  CHECK(normal.LogLikelihood(0.7, 2.0) ==
+        Approx(-0.5 * (std::log(2 * 3.14159265358979323846) + std::log(2.0) + 0.49 / 2.0)));
+  // d/dsigma2 against a central difference (step 1e-6 on sigma2 near 1).
+  for (const auto& law : Laws()) {
+    for (double eps : {-3.0, -0.2, 0.0, 1.1}) {
+      for (double s2 : {0.3, 1.0, 4.0}) {
+        const double h = 1e-6 * s2;
+        const double fd =
+            (law.LogLikelihood(eps, s2 + h) - law.LogLikelihood(eps, s2 - h)) / (2 * h);
+        INFO("nu = " << law.nu() << ", eps = " << eps << ", sigma2 = " << s2);
+        CHECK(std::abs(law.DLogLikelihoodDSigma2(eps, s2) - fd) < 1e-7 / s2);
+      }
+    }
+  }
+}
+
 TEST_CASE("E[d log f / d nu] is zero under the law (score identity)", "[innovations]") {
   // The expected score of a correctly specified likelihood is zero; this checks the
   // d/dnu formula as a whole against quadrature, independent of finite differences.
