@@ -105,6 +105,9 @@ inline constexpr int kMaxHorizons = 8;
 
 class HorizonTable {
  public:
+  // Empty (size() == 0, closed() false), for default-constructed per-symbol state.
+  HorizonTable() = default;
+
   // horizons: 1..kMaxHorizons entries, each >= 1 (in bars). InvalidArgument
   // otherwise, or when params fail CheckConstraints.
   static absl::StatusOr<HorizonTable> Create(const ModelParams& params,
@@ -127,8 +130,6 @@ class HorizonTable {
   }
 
  private:
-  HorizonTable() = default;
-
   bool closed_ = false;
   int size_ = 0;
   std::array<int, kMaxHorizons> horizon_{};

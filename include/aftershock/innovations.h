@@ -66,6 +66,8 @@ double DLogNormalizerTDnu(double nu);
 // Thread-safety: immutable after construction; safe to share and copy.
 class InnovationLaw {
  public:
+  // The standard normal law (so the type can be a default-constructed member).
+  InnovationLaw();
   // The standard normal law.
   static InnovationLaw Normal();
   // Standardized t; InvalidArgument unless 2 < nu <= kMaxNu and finite.
@@ -125,6 +127,9 @@ inline constexpr int kMaxRiskLevels = 8;
 
 class RiskQuantiles {
  public:
+  // Empty (size() == 0), for default-constructed per-symbol state.
+  RiskQuantiles() = default;
+
   // `levels` are confidence levels in (0.5, 1), e.g. {0.99, 0.975}; tail
   // probability a = 1 - level. InvalidArgument for more than kMaxRiskLevels
   // levels or a level outside (0.5, 1).
@@ -144,8 +149,6 @@ class RiskQuantiles {
   double ES(int i, double mu, double sigma) const { return sigma * es_[i] - mu; }
 
  private:
-  RiskQuantiles() = default;
-
   int size_ = 0;
   std::array<double, kMaxRiskLevels> level_{};
   std::array<double, kMaxRiskLevels> quantile_{};

@@ -78,6 +78,9 @@ InnovationLaw::InnovationLaw(Innovations kind, double nu) : kind_(kind), nu_(nu)
   }
 }
 
+InnovationLaw::InnovationLaw()
+    : InnovationLaw(Innovations::kNormal, std::numeric_limits<double>::infinity()) {}
+
 InnovationLaw InnovationLaw::Normal() {
   return InnovationLaw(Innovations::kNormal, std::numeric_limits<double>::infinity());
 }

@@ -78,6 +78,10 @@ TEST_CASE("free functions agree with the law object", "[innovations]") {
     CHECK(law.DLogDensityDz2(z) == Approx(DLogDensityTDz2(z, 6.5)).epsilon(1e-14));
   }
   CHECK(InnovationLaw::Normal().LogDensity(1.5) == Approx(LogDensityNormal(1.5)));
+  const InnovationLaw defaulted;
+  CHECK(defaulted.kind() == Innovations::kNormal);
+  CHECK(defaulted.Quantile(0.05) == InnovationLaw::Normal().Quantile(0.05));
+  CHECK(RiskQuantiles().size() == 0);
   CHECK(std::isnan(LogDensityT(0.0, 2.0)));
 }
 
