@@ -10,12 +10,10 @@
 #include <cstring>
 
 #include "absl/strings/string_view.h"
+#include "aftershock/limits.h"
 
 namespace aftershock {
 
-inline constexpr int kMaxSymbolLength = 32;  // bytes of [A-Za-z0-9._:-]
-inline constexpr int kMaxHorizons = 8;       // entries of var_h
-inline constexpr int kMaxRiskLevels = 4;     // entries of var_risk / es
 
 // A symbol stored inline (no heap). Invariant: size <= kMaxSymbolLength.
 struct Symbol {

@@ -31,6 +31,7 @@
 #include "absl/status/status.h"
 #include "absl/status/statusor.h"
 #include "absl/types/span.h"
+#include "aftershock/limits.h"
 #include "aftershock/model_params.h"
 #include "aftershock/model_spec.h"
 
@@ -101,7 +102,6 @@ double ShockHalfLife(double persistence);
 // orders) the forecast depends on the whole VarianceState, closed() is false and
 // the filter must call ForecastVariances / SummedVarianceForecast instead.
 // Thread-safety: immutable after Create; copyable fixed-size value.
-inline constexpr int kMaxHorizons = 8;
 
 class HorizonTable {
  public:

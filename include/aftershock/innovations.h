@@ -30,6 +30,7 @@
 
 #include "absl/status/statusor.h"
 #include "absl/types/span.h"
+#include "aftershock/limits.h"
 #include "aftershock/model_params.h"
 #include "aftershock/model_spec.h"
 
@@ -123,7 +124,6 @@ class InnovationLaw {
 // Precomputed VaR/ES multipliers of one law at a few confidence levels, so the
 // per-bar cost is two multiply-adds per level and no allocation.
 // Thread-safety: immutable after Create; safe to share and copy (fixed arrays).
-inline constexpr int kMaxRiskLevels = 8;
 
 class RiskQuantiles {
  public:

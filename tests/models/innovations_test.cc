@@ -243,9 +243,9 @@ TEST_CASE("RiskQuantiles gives positive VaR and ES loss numbers", "[innovations]
   auto bad = RiskQuantiles::Create(law, std::vector<double>{0.99, 1.0});
   REQUIRE_FALSE(bad.ok());
   CHECK(std::string(bad.status().message()) == "risk level must be in (0.5, 1), e.g. 0.99; got 1");
-  auto too_many = RiskQuantiles::Create(law, std::vector<double>(9, 0.99));
+  auto too_many = RiskQuantiles::Create(law, std::vector<double>(kMaxRiskLevels + 1, 0.99));
   REQUIRE_FALSE(too_many.ok());
-  CHECK(std::string(too_many.status().message()) == "at most 8 risk levels are supported, got 9");
+  CHECK(std::string(too_many.status().message()) == "at most 4 risk levels are supported, got 5");
 }
 
 TEST_CASE("invalid nu is a clear error", "[innovations]") {
