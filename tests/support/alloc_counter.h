@@ -1,0 +1,16 @@
+// Counts heap allocations made through the global operator new, so tests can
+// assert that a hot path allocates nothing. The replacement operators live in
+// alloc_counter.cc and are linked into every test executable; they only count.
+#ifndef AFTERSHOCK_TESTS_SUPPORT_ALLOC_COUNTER_H_
+#define AFTERSHOCK_TESTS_SUPPORT_ALLOC_COUNTER_H_
+
+#include <cstdint>
+
+namespace aftershock::testing {
+
+// Number of global operator new calls so far in this process (all threads).
+uint64_t AllocationCount();
+
+}  // namespace aftershock::testing
+
+#endif  // AFTERSHOCK_TESTS_SUPPORT_ALLOC_COUNTER_H_
