@@ -15,6 +15,7 @@ struct Command {
 // Keep in the order a user meets them; `aftershock --help` lists this table.
 constexpr Command kCommands[] = {
     {"fit", "estimate a volatility model on a return series and print the report", FitCommand},
+    {"demo", "run the embedded default end to end (no input needed)", DemoCommand},
 };
 
 void PrintUsage(FILE* out) {

@@ -10,6 +10,7 @@ int Main(int argc, char** argv);
 
 // Subcommands (one file each in src/app/).
 int FitCommand(int argc, char** argv);       // fit_command.cc
+int DemoCommand(int argc, char** argv);      // demo_command.cc
 
 }  // namespace aftershock::app
 
