@@ -1,0 +1,178 @@
+// EngineConfig: the engine's whole configuration, parsed from TOML and
+// validated (PRODUCT.md C10). Every key has a default; unknown keys, wrong
+// types and out-of-range values are errors naming the file, line, section and
+// key, e.g.
+//   config.toml:12: [bars] interval: expected a duration like "0s", "5s", "1m", got "abc"
+// config/default.toml lists every key with its default and meaning.
+//
+// Thread-safety: plain value type; parse once, then share read-only.
+#ifndef AFTERSHOCK_ENGINE_CONFIG_H_
+#define AFTERSHOCK_ENGINE_CONFIG_H_
+
+#include <cstdint>
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
+#include "aftershock/bar_builder.h"
+#include "aftershock/model_params.h"
+#include "aftershock/model_spec.h"
+#include "aftershock/wire.h"
+
+namespace aftershock {
+
+// [feed]: where ticks come from.
+struct FeedConfig {
+  // ZeroMQ endpoints the SUB socket connects to; default {"tcp://127.0.0.1:7301"}.
+  std::vector<std::string> endpoints = {"tcp://127.0.0.1:7301"};
+  WireEncoding encoding = WireEncoding::kJson;     // body encoding; default json
+  size_t max_message_bytes = kDefaultMaxMessageBytes;  // larger bodies are rejected; 65536
+  std::string curve_server_key;  // publisher's CURVE public key (Z85, 40 chars); "" = no CURVE
+};
+
+// [publish]: where updates go.
+struct PublishConfig {
+  std::string endpoint = "tcp://127.0.0.1:7302";  // PUB binds here
+  WireEncoding encoding = WireEncoding::kJson;     // update encoding; default json
+  int64_t high_water_mark = 100000;  // messages queued per subscriber before drops; 100000
+  std::string curve_secret_key;      // our CURVE secret key (Z85, 40 chars); "" = no CURVE
+};
+
+// [bars]: aggregation of ticks into bars.
+struct BarsConfig {
+  int64_t interval_ns = 0;  // bar length, ns; 0 = one bar per message; default "0s"
+  int64_t grace_ns = 200 * 1000 * 1000;  // idle bar closed this long after its end; "200ms"
+  int64_t max_lateness_ns = 5 * kNanosPerSecond;  // tolerated reordering; default "5s"
+  SessionWindow session;  // optional trading session; default: none (always open)
+
+  BarOptions ToBarOptions() const { return BarOptions{interval_ns, max_lateness_ns, session}; }
+};
+
+// [model] and [model.params]: the model every symbol starts with.
+struct ModelConfig {
+  ModelSpec spec;  // default constant mean, GARCH(1,1), Student-t innovations
+  Presample presample = Presample::kMeanSquare;  // presample rule; default "mean-square"
+  // Initial parameters from [model.params], validated against spec;
+  // has_params == false means start in EWMA warm-up until the first fit.
+  bool has_params = false;
+  ModelParams params;
+};
+
+// [warmup]: the EWMA used before a model has been fitted.
+struct WarmupConfig {
+  double ewma_lambda = 0.94;  // decay of the warm-up EWMA, in (0,1); default 0.94
+  int min_bars = 2;           // bars before z is published without the first-bar flag; 2
+};
+
+enum class ReturnUnits { kFraction, kPercent };
+absl::string_view ReturnUnitsName(ReturnUnits u);  // "fraction" | "percent"
+
+// [outputs]: what each update carries.
+struct OutputsConfig {
+  std::vector<int> horizons = {1, 5, 20};  // bars ahead for var_h; <= kMaxHorizons entries
+  std::vector<double> risk_levels = {0.99, 0.975};  // VaR/ES levels in (0.5,1); <= 4
+  double periods_per_year = 252;  // bars per year for annualization; default 252
+  ReturnUnits return_units = ReturnUnits::kFraction;  // units of the feed's returns
+  // Target annualized volatility for the sizing scale, in the same units as
+  // the annualized returns (0.10 = 10 % for fractions; 10 for per cent).
+  double target_vol_ann = 0.10;
+  double scale_cap = 3.0;  // upper bound of the sizing scale; default 3
+};
+
+// [limits]
+struct LimitsConfig {
+  int64_t max_symbols = 10000;  // new symbols beyond this are rejected (symbol_limit)
+};
+
+// [refit]: background re-estimation (PRODUCT.md C5).
+struct RefitConfig {
+  int64_t every_bars = 0;         // refit a symbol every N bars; 0 = off
+  double every_seconds = 0;       // and/or every T seconds of wall clock; 0 = off
+  int window = 2000;              // rolling window of returns, bars; default 2000
+  int min_bars = 250;             // bars needed before the first fit; default 250
+  int workers = 1;                // worker threads; default 1
+  int reidentify_every = 10;      // run the full identification every k-th refit; 0 = never
+  double max_persistence = 0.9995;  // gate: fits above this persistence are refused
+  int holdout_bars = 100;         // recent bars used to compare new vs current model
+  double holdout_margin = 0.05;   // nats per bar the new model may be worse by
+  int max_failures = 3;           // consecutive failed fits before the EWMA fallback
+  int apply_lag_bars = 1;         // a passed fit is swapped in this many bars later (replay)
+  double jitter_fraction = 0.1;   // spreads schedules: +-fraction of the period
+  int queue_capacity = 1024;      // pending refit jobs; beyond it a job is skipped
+  double diagnostics_level = 0.01;  // significance level of the diagnostic gate tests
+};
+
+// [alerts]: alert rule thresholds (PRODUCT.md C7).
+struct AlertsConfig {
+  double shock_z = 4.0;            // |z| at or above this raises a shock alert (warning)
+  double shock_critical_z = 6.0;   // |z| at or above this is critical; >= shock_z
+  int cooldown_bars = 20;          // bars before the same symbol/kind alerts again
+  double regime_enter = 2.0;       // fast/slow variance ratio that enters the high regime
+  double regime_exit = 1.3;        // ratio below which the regime is left; < regime_enter
+  double regime_fast_halflife = 10;   // bars, fast variance average
+  double regime_slow_halflife = 250;  // bars, slow variance average; > fast
+  double persistence_threshold = 0.995;  // near-integrated persistence alert
+  double stale_seconds = 60;       // no tick for this long: stale symbol alert
+  int64_t reject_burst = 100;      // rejected ticks per minute that raise a feed alert
+};
+
+// [http]: health and metrics endpoint.
+struct HttpConfig {
+  std::string endpoint = "127.0.0.1:7310";  // host:port to bind; loopback by default
+  bool enabled = true;
+};
+
+// [checkpoint]
+struct CheckpointConfig {
+  std::string path;          // checkpoint file; "" = no checkpoints
+  double every_seconds = 60;  // period; 0 = only at shutdown
+};
+
+enum class LogLevel { kDebug, kInfo, kWarn, kError };
+absl::string_view LogLevelName(LogLevel l);  // "debug" | "info" | "warn" | "error"
+
+// [log]
+struct LogConfig {
+  LogLevel level = LogLevel::kInfo;
+};
+
+struct EngineConfig {
+  EngineConfig();  // defaults as documented per field
+
+  FeedConfig feed;
+  PublishConfig publish;
+  BarsConfig bars;
+  ModelConfig model;
+  WarmupConfig warmup;
+  OutputsConfig outputs;
+  LimitsConfig limits;
+  RefitConfig refit;
+  AlertsConfig alerts;
+  HttpConfig http;
+  CheckpointConfig checkpoint;
+  LogConfig log;
+};
+
+// Parses and validates a TOML document. `source_name` prefixes messages
+// ("config.toml:12: ..."). Never throws.
+absl::StatusOr<EngineConfig> ParseEngineConfig(absl::string_view toml_text,
+                                               absl::string_view source_name);
+
+// Reads and parses a file; NotFound if it cannot be read.
+absl::StatusOr<EngineConfig> LoadEngineConfigFile(const std::string& path);
+
+// Writes the configuration as TOML with every key, such that
+// ParseEngineConfig(FormatEngineConfig(c)) yields the same configuration.
+std::string FormatEngineConfig(const EngineConfig& config);
+
+// Parses a duration: a non-negative integer followed by ns, us, ms, s, m or h
+// ("0s", "500ms", "5s", "1m", "1h"). Returns ns.
+absl::StatusOr<int64_t> ParseDuration(absl::string_view text);
+// Shortest exact form of a duration in the largest whole unit ("90s", "1m").
+std::string FormatDuration(int64_t ns);
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_ENGINE_CONFIG_H_

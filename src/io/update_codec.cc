@@ -1,0 +1,329 @@
+#include "aftershock/update_codec.h"
+
+#include <charconv>
+#include <cmath>
+#include <cstring>
+#include <exception>
+
+#include <nlohmann/json.hpp>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/wire.h"
+
+namespace aftershock {
+
+absl::string_view FlagName(int bit) {
+  static constexpr absl::string_view kNames[kNumUpdateFlags] = {
+      "warmup", "fallback", "stale", "seasonal", "gap", "first_bar"};
+  return bit >= 0 && bit < kNumUpdateFlags ? kNames[bit] : "unknown";
+}
+
+namespace {
+
+absl::Status CheckUpdate(const BarUpdate& u) {
+  if (u.symbol.size == 0 || u.symbol.size > kMaxSymbolLength) {
+    return absl::InvalidArgumentError("update: symbol length out of range");
+  }
+  if (u.n_horizons < 0 || u.n_horizons > kMaxHorizons || u.n_levels < 0 ||
+      u.n_levels > kMaxRiskLevels) {
+    return absl::InvalidArgumentError(absl::StrCat("update for ", u.symbol.view(),
+                                                   ": horizon or level count out of range"));
+  }
+  const struct {
+    const char* name;
+    double v;
+  } fields[] = {{"r", u.r},     {"mu", u.mu},   {"eps", u.eps},           {"var", u.var},
+                {"z", u.z},     {"var_next", u.var_next}, {"vol_ann", u.vol_ann},
+                {"scale", u.scale}};
+  for (const auto& f : fields) {
+    if (!std::isfinite(f.v)) {
+      return absl::InvalidArgumentError(
+          absl::StrCat("update for ", u.symbol.view(), ": field ", f.name, " is not finite"));
+    }
+  }
+  for (int i = 0; i < u.n_horizons; ++i) {
+    if (!std::isfinite(u.var_h[i])) {
+      return absl::InvalidArgumentError(
+          absl::StrCat("update for ", u.symbol.view(), ": field var_h[", i, "] is not finite"));
+    }
+  }
+  for (int i = 0; i < u.n_levels; ++i) {
+    if (!std::isfinite(u.levels[i]) || !std::isfinite(u.var_risk[i]) ||
+        !std::isfinite(u.es[i])) {
+      return absl::InvalidArgumentError(absl::StrCat(
+          "update for ", u.symbol.view(), ": level, var_risk or es [", i, "] is not finite"));
+    }
+  }
+  return absl::OkStatus();
+}
+
+void AppendDouble(std::string* out, double v) {
+  char buf[32];
+  const auto res = std::to_chars(buf, buf + sizeof(buf), v);
+  out->append(buf, static_cast<size_t>(res.ptr - buf));
+}
+
+template <typename T>
+void AppendInt(std::string* out, T v) {
+  char buf[24];
+  const auto res = std::to_chars(buf, buf + sizeof(buf), v);
+  out->append(buf, static_cast<size_t>(res.ptr - buf));
+}
+
+void Key(std::string* out, const char* k) {
+  out->push_back(',');
+  out->push_back('"');
+  out->append(k);
+  out->append("\":");
+}
+
+template <typename T>
+void AppendLe(std::string* out, T v) {
+  char buf[sizeof(T)];
+  std::memcpy(buf, &v, sizeof(T));
+  out->append(buf, sizeof(T));
+}
+
+// Bounded little-endian reader for the binary decoder.
+class Reader {
+ public:
+  explicit Reader(absl::string_view d) : p_(d.data()), end_(d.data() + d.size()) {}
+  template <typename T>
+  bool Read(T* v) {
+    if (static_cast<size_t>(end_ - p_) < sizeof(T)) return false;
+    std::memcpy(v, p_, sizeof(T));
+    p_ += sizeof(T);
+    return true;
+  }
+  bool ReadBytes(size_t n, const char** s) {
+    if (static_cast<size_t>(end_ - p_) < n) return false;
+    *s = p_;
+    p_ += n;
+    return true;
+  }
+  bool AtEnd() const { return p_ == end_; }
+
+ private:
+  const char* p_;
+  const char* end_;
+};
+
+}  // namespace
+
+absl::Status EncodeUpdateJson(const BarUpdate& u, std::string* out) {
+  out->clear();
+  if (absl::Status s = CheckUpdate(u); !s.ok()) return s;
+  out->append("{\"s\":\"");
+  out->append(u.symbol.data, u.symbol.size);
+  out->append("\",\"t\":");
+  AppendInt(out, u.t_ns);
+  Key(out, "r");
+  AppendDouble(out, u.r);
+  Key(out, "mu");
+  AppendDouble(out, u.mu);
+  Key(out, "eps");
+  AppendDouble(out, u.eps);
+  Key(out, "var");
+  AppendDouble(out, u.var);
+  Key(out, "z");
+  AppendDouble(out, u.z);
+  Key(out, "var_next");
+  AppendDouble(out, u.var_next);
+  Key(out, "vol_ann");
+  AppendDouble(out, u.vol_ann);
+  Key(out, "var_h");
+  out->push_back('{');
+  for (int i = 0; i < u.n_horizons; ++i) {
+    if (i > 0) out->push_back(',');
+    out->push_back('"');
+    AppendInt(out, u.horizons[i]);
+    out->append("\":");
+    AppendDouble(out, u.var_h[i]);
+  }
+  out->push_back('}');
+  for (int which = 0; which < 2; ++which) {
+    Key(out, which == 0 ? "var_risk" : "es");
+    out->push_back('{');
+    const double* values = which == 0 ? u.var_risk : u.es;
+    for (int i = 0; i < u.n_levels; ++i) {
+      if (i > 0) out->push_back(',');
+      out->push_back('"');
+      AppendDouble(out, u.levels[i]);
+      out->append("\":");
+      AppendDouble(out, values[i]);
+    }
+    out->push_back('}');
+  }
+  Key(out, "scale");
+  AppendDouble(out, u.scale);
+  Key(out, "ver");
+  AppendInt(out, u.ver);
+  Key(out, "flags");
+  out->push_back('[');
+  bool first = true;
+  for (int bit = 0; bit < kNumUpdateFlags; ++bit) {
+    if ((u.flags & (1u << bit)) == 0) continue;
+    if (!first) out->push_back(',');
+    first = false;
+    out->push_back('"');
+    out->append(FlagName(bit).data(), FlagName(bit).size());
+    out->push_back('"');
+  }
+  out->append("]}");
+  return absl::OkStatus();
+}
+
+absl::Status DecodeUpdateJson(absl::string_view text, BarUpdate* u) {
+  // ordered_json keeps the wire order of horizons and levels.
+  using json = nlohmann::ordered_json;
+  try {
+    const json j = json::parse(text.begin(), text.end());
+    if (!j.is_object()) return absl::InvalidArgumentError("update JSON: not an object");
+    static const char* const kKeys[] = {"s",       "t",       "r",     "mu",    "eps",
+                                        "var",     "z",       "var_next", "vol_ann", "var_h",
+                                        "var_risk", "es",     "scale", "ver",   "flags"};
+    for (auto it = j.begin(); it != j.end(); ++it) {
+      bool known = false;
+      for (const char* k : kKeys) known = known || it.key() == k;
+      if (!known) return absl::InvalidArgumentError(absl::StrCat("update JSON: unknown key '", it.key(), "'"));
+    }
+    for (const char* k : kKeys) {
+      if (!j.contains(k)) return absl::InvalidArgumentError(absl::StrCat("update JSON: missing key '", k, "'"));
+    }
+    BarUpdate v;
+    const std::string sym = j.at("s").get<std::string>();
+    if (!IsValidSymbol(sym)) return absl::InvalidArgumentError("update JSON: bad symbol");
+    v.symbol.assign(sym);
+    v.t_ns = j.at("t").get<int64_t>();
+    v.r = j.at("r").get<double>();
+    v.mu = j.at("mu").get<double>();
+    v.eps = j.at("eps").get<double>();
+    v.var = j.at("var").get<double>();
+    v.z = j.at("z").get<double>();
+    v.var_next = j.at("var_next").get<double>();
+    v.vol_ann = j.at("vol_ann").get<double>();
+    v.scale = j.at("scale").get<double>();
+    v.ver = j.at("ver").get<uint32_t>();
+    const json& vh = j.at("var_h");
+    if (!vh.is_object() || vh.size() > static_cast<size_t>(kMaxHorizons)) {
+      return absl::InvalidArgumentError("update JSON: var_h must be an object of <= 8 entries");
+    }
+    for (auto it = vh.begin(); it != vh.end(); ++it) {
+      int h = 0;
+      const std::string& key = it.key();
+      const auto res = std::from_chars(key.data(), key.data() + key.size(), h);
+      if (res.ec != std::errc() || res.ptr != key.data() + key.size()) {
+        return absl::InvalidArgumentError(absl::StrCat("update JSON: bad horizon key '", key, "'"));
+      }
+      const int pos = v.n_horizons++;
+      v.horizons[pos] = h;
+      v.var_h[pos] = it.value().get<double>();
+    }
+    const json& vr = j.at("var_risk");
+    const json& es = j.at("es");
+    if (!vr.is_object() || !es.is_object() || vr.size() != es.size() ||
+        vr.size() > static_cast<size_t>(kMaxRiskLevels)) {
+      return absl::InvalidArgumentError("update JSON: var_risk and es must be matching objects");
+    }
+    for (auto it = vr.begin(); it != vr.end(); ++it) {
+      const std::string& key = it.key();
+      double level = 0;
+      const auto res = std::from_chars(key.data(), key.data() + key.size(), level);
+      if (res.ec != std::errc() || res.ptr != key.data() + key.size() || !es.contains(key)) {
+        return absl::InvalidArgumentError(absl::StrCat("update JSON: bad level key '", key, "'"));
+      }
+      const int pos = v.n_levels++;
+      v.levels[pos] = level;
+      v.var_risk[pos] = it.value().get<double>();
+      v.es[pos] = es.at(key).get<double>();
+    }
+    const json& flags = j.at("flags");
+    if (!flags.is_array()) return absl::InvalidArgumentError("update JSON: flags must be an array");
+    for (const json& f : flags) {
+      const std::string name = f.get<std::string>();
+      int bit = 0;
+      while (bit < kNumUpdateFlags && FlagName(bit) != name) ++bit;
+      if (bit == kNumUpdateFlags) {
+        return absl::InvalidArgumentError(absl::StrCat("update JSON: unknown flag '", name, "'"));
+      }
+      v.flags |= 1u << bit;
+    }
+    *u = v;
+    return absl::OkStatus();
+  } catch (const std::exception& e) {
+    return absl::InvalidArgumentError(absl::StrCat("update JSON: ", e.what()));
+  }
+}
+
+absl::Status EncodeUpdateBinary(const BarUpdate& u, std::string* out) {
+  out->clear();
+  if (absl::Status s = CheckUpdate(u); !s.ok()) return s;
+  out->push_back(static_cast<char>(kUpdateMagic));
+  out->push_back(static_cast<char>(kUpdateWireVersion));
+  out->push_back(static_cast<char>(u.symbol.size));
+  out->append(u.symbol.data, u.symbol.size);
+  AppendLe<int64_t>(out, u.t_ns);
+  for (double d : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) AppendLe<double>(out, d);
+  out->push_back(static_cast<char>(u.n_horizons));
+  for (int i = 0; i < u.n_horizons; ++i) {
+    AppendLe<uint32_t>(out, static_cast<uint32_t>(u.horizons[i]));
+    AppendLe<double>(out, u.var_h[i]);
+  }
+  out->push_back(static_cast<char>(u.n_levels));
+  for (int i = 0; i < u.n_levels; ++i) {
+    AppendLe<double>(out, u.levels[i]);
+    AppendLe<double>(out, u.var_risk[i]);
+    AppendLe<double>(out, u.es[i]);
+  }
+  AppendLe<double>(out, u.scale);
+  AppendLe<uint32_t>(out, u.ver);
+  AppendLe<uint32_t>(out, u.flags);
+  return absl::OkStatus();
+}
+
+absl::Status DecodeUpdateBinary(absl::string_view data, BarUpdate* u) {
+  const auto bad = [](absl::string_view why) {
+    return absl::InvalidArgumentError(absl::StrCat("binary update: ", why));
+  };
+  Reader r(data);
+  uint8_t magic = 0, version = 0, len = 0;
+  if (!r.Read(&magic) || !r.Read(&version)) return bad("truncated header");
+  if (magic != kUpdateMagic) return bad("bad magic byte");
+  if (version != kUpdateWireVersion) {
+    return bad(absl::StrCat("unsupported version ", version));
+  }
+  BarUpdate v;
+  const char* sym = nullptr;
+  if (!r.Read(&len) || !r.ReadBytes(len, &sym)) return bad("truncated symbol");
+  if (!IsValidSymbol(absl::string_view(sym, len))) return bad("bad symbol");
+  v.symbol.assign(absl::string_view(sym, len));
+  if (!r.Read(&v.t_ns)) return bad("truncated");
+  for (double* d : {&v.r, &v.mu, &v.eps, &v.var, &v.z, &v.var_next, &v.vol_ann}) {
+    if (!r.Read(d)) return bad("truncated");
+  }
+  uint8_t n = 0;
+  if (!r.Read(&n)) return bad("truncated");
+  if (n > kMaxHorizons) return bad("too many horizons");
+  v.n_horizons = n;
+  for (int i = 0; i < n; ++i) {
+    uint32_t h = 0;
+    if (!r.Read(&h) || !r.Read(&v.var_h[i])) return bad("truncated");
+    if (h > 0x7fffffffu) return bad("horizon out of range");
+    v.horizons[i] = static_cast<int>(h);
+  }
+  if (!r.Read(&n)) return bad("truncated");
+  if (n > kMaxRiskLevels) return bad("too many risk levels");
+  v.n_levels = n;
+  for (int i = 0; i < n; ++i) {
+    if (!r.Read(&v.levels[i]) || !r.Read(&v.var_risk[i]) || !r.Read(&v.es[i])) {
+      return bad("truncated");
+    }
+  }
+  if (!r.Read(&v.scale) || !r.Read(&v.ver) || !r.Read(&v.flags)) return bad("truncated");
+  if (!r.AtEnd()) return bad("trailing bytes");
+  if (absl::Status s = CheckUpdate(v); !s.ok()) return s;
+  *u = v;
+  return absl::OkStatus();
+}
+
+}  // namespace aftershock

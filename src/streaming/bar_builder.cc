@@ -1,0 +1,173 @@
+#include "aftershock/bar_builder.h"
+
+#include <cmath>
+
+namespace aftershock {
+namespace {
+
+int64_t FloorDiv(int64_t a, int64_t b) {
+  int64_t q = a / b;
+  if ((a % b != 0) && ((a < 0) != (b < 0))) --q;
+  return q;
+}
+
+int64_t FloorMod(int64_t a, int64_t b) { return a - FloorDiv(a, b) * b; }
+
+int64_t OffsetNs(const SessionWindow& s) {
+  return static_cast<int64_t>(s.tz_offset_minutes) * kNanosPerMinute;
+}
+
+bool Wraps(const SessionWindow& s) { return s.end_minute <= s.start_minute; }
+
+// Session index (local day of the session start) and the session's start and
+// end in UTC ns. REQUIRES: session.enabled and InSession(session, t).
+void SessionOf(const SessionWindow& s, int64_t t_ns, int64_t* day, int64_t* start_utc,
+               int64_t* end_utc) {
+  const int64_t local = t_ns + OffsetNs(s);
+  const int64_t start_tod = s.start_minute * kNanosPerMinute;
+  const int64_t end_tod = s.end_minute * kNanosPerMinute;
+  int64_t d = FloorDiv(local, kNanosPerDay);
+  if (Wraps(s) && FloorMod(local, kNanosPerDay) < end_tod) --d;
+  const int64_t length = Wraps(s) ? end_tod + kNanosPerDay - start_tod : end_tod - start_tod;
+  *day = d;
+  *start_utc = d * kNanosPerDay + start_tod - OffsetNs(s);
+  *end_utc = *start_utc + length;
+}
+
+void OpenBar(BarState* st, const Tick& tick, const BarOptions& o) {
+  int64_t day = 0;
+  int64_t anchor = -OffsetNs(o.session);
+  int64_t session_end = INT64_MAX;
+  if (o.session.enabled) SessionOf(o.session, tick.t_ns, &day, &anchor, &session_end);
+  const int64_t start = anchor + FloorDiv(tick.t_ns - anchor, o.interval_ns) * o.interval_ns;
+  int64_t end = start + o.interval_ns;
+  if (end > session_end) end = session_end;
+  const bool gap = (st->any_bar || st->open) && day != st->session_day;
+  if (gap) st->has_prev_close = false;
+  st->open = true;
+  st->open_gap = gap;
+  st->session_day = day;
+  st->open_start_ns = start;
+  st->open_end_ns = end;
+  st->latest_t_ns = tick.t_ns;
+  st->n_ticks = 1;
+  st->open_price = tick.kind == Tick::kPrice ? tick.value : 0;
+  st->ret_sum = tick.kind == Tick::kReturn ? tick.value : 0;
+}
+
+ClosedBar CloseBar(BarState* st, bool by_clock) {
+  ClosedBar bar;
+  bar.t_end_ns = st->open_end_ns;
+  bar.n_ticks = st->n_ticks;
+  bar.closed_by_clock = by_clock;
+  if (st->kind == Tick::kPrice) {
+    bar.has_return = st->has_prev_close && !st->open_gap;
+    bar.ret = bar.has_return ? std::log(st->open_price / st->prev_close) : 0.0;
+    bar.last_price = st->open_price;
+    st->prev_close = st->open_price;
+    st->has_prev_close = true;
+  } else {
+    bar.has_return = true;
+    bar.ret = st->ret_sum;
+  }
+  if (st->open_gap) bar.flags |= kFlagGap;
+  if (!st->any_bar && !bar.has_return) bar.flags |= kFlagFirstBar;
+  st->any_bar = true;
+  st->closed_end_ns = st->open_end_ns;
+  st->open = false;
+  return bar;
+}
+
+FeedResult Reject(RejectReason r) {
+  FeedResult res;
+  res.status = TickStatus::kRejected;
+  res.reason = r;
+  return res;
+}
+
+}  // namespace
+
+bool InSession(const SessionWindow& s, int64_t t_ns) {
+  if (!s.enabled) return true;
+  const int64_t tod = FloorMod(t_ns + OffsetNs(s), kNanosPerDay);
+  const int64_t a = s.start_minute * kNanosPerMinute;
+  const int64_t b = s.end_minute * kNanosPerMinute;
+  return Wraps(s) ? (tod >= a || tod < b) : (tod >= a && tod < b);
+}
+
+FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {
+  if (st->has_tick && tick.kind != st->kind) return Reject(RejectReason::kKindMismatch);
+  if (tick.kind == Tick::kPrice && !(tick.value > 0)) {
+    return Reject(RejectReason::kNonPositivePrice);
+  }
+  if (!std::isfinite(tick.value)) return Reject(RejectReason::kNonFinite);
+  if (!InSession(o.session, tick.t_ns)) return Reject(RejectReason::kOutsideSession);
+  if (st->has_tick && tick.t_ns == st->last_t_ns && tick.value == st->last_value) {
+    FeedResult dup;
+    dup.status = TickStatus::kDuplicate;
+    dup.reason = RejectReason::kDuplicate;
+    return dup;
+  }
+
+  FeedResult res;
+  if (o.interval_ns == 0) {
+    if (st->any_bar && tick.t_ns < st->closed_end_ns) return Reject(RejectReason::kTooOld);
+    int64_t day = 0, s0 = 0, s1 = 0;
+    if (o.session.enabled) SessionOf(o.session, tick.t_ns, &day, &s0, &s1);
+    const bool gap = st->any_bar && day != st->session_day;
+    ClosedBar& bar = res.bar;
+    bar.t_end_ns = tick.t_ns;
+    bar.n_ticks = 1;
+    if (tick.kind == Tick::kPrice) {
+      bar.has_return = st->has_prev_close && !gap;
+      bar.ret = bar.has_return ? std::log(tick.value / st->prev_close) : 0.0;
+      bar.last_price = tick.value;
+      st->prev_close = tick.value;
+      st->has_prev_close = true;
+    } else {
+      bar.has_return = true;
+      bar.ret = tick.value;
+    }
+    if (gap) bar.flags |= kFlagGap;
+    if (!st->any_bar && !bar.has_return) bar.flags |= kFlagFirstBar;
+    st->any_bar = true;
+    st->closed_end_ns = tick.t_ns;
+    st->session_day = day;
+    res.closed = true;
+  } else if (st->open && tick.t_ns < st->open_end_ns) {
+    if (tick.t_ns < st->open_start_ns || tick.t_ns < st->latest_t_ns - o.max_lateness_ns) {
+      return Reject(RejectReason::kTooOld);
+    }
+    ++st->n_ticks;
+    if (tick.kind == Tick::kPrice) {
+      if (tick.t_ns >= st->latest_t_ns) st->open_price = tick.value;
+    } else {
+      st->ret_sum += tick.value;
+    }
+    if (tick.t_ns > st->latest_t_ns) st->latest_t_ns = tick.t_ns;
+  } else {
+    if (st->open) {
+      res.bar = CloseBar(st, /*by_clock=*/false);
+      res.closed = true;
+    } else if (st->any_bar && tick.t_ns < st->closed_end_ns) {
+      return Reject(RejectReason::kTooOld);
+    }
+    st->kind = tick.kind;  // OpenBar's gap logic does not depend on it
+    OpenBar(st, tick, o);
+  }
+  st->has_tick = true;
+  st->kind = tick.kind;
+  st->last_t_ns = tick.t_ns;
+  st->last_value = tick.value;
+  return res;
+}
+
+bool CloseIfDue(BarState* st, int64_t now_ns, int64_t grace_ns, const BarOptions& o,
+                ClosedBar* out) {
+  if (o.interval_ns == 0 || !st->open) return false;
+  if (now_ns < st->open_end_ns || now_ns - st->open_end_ns < grace_ns) return false;
+  *out = CloseBar(st, /*by_clock=*/true);
+  return true;
+}
+
+}  // namespace aftershock

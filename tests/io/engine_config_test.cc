@@ -1,0 +1,255 @@
+#include "aftershock/engine_config.h"
+
+#include <catch2/catch.hpp>
+
+#include <string>
+
+#include "support/test_support.h"
+
+namespace aftershock {
+namespace {
+
+std::string ErrorOf(const std::string& toml) {
+  auto c = ParseEngineConfig(toml, "config.toml");
+  if (c.ok()) return "ok";
+  return std::string(c.status().message());
+}
+
+TEST_CASE("an empty document gives the documented defaults", "[engine_config]") {
+  auto c = ParseEngineConfig("", "empty.toml");
+  REQUIRE(c.ok());
+  CHECK(c->feed.endpoints == std::vector<std::string>{"tcp://127.0.0.1:7301"});
+  CHECK(c->feed.encoding == WireEncoding::kJson);
+  CHECK(c->feed.max_message_bytes == 65536);
+  CHECK(c->feed.curve_server_key.empty());
+  CHECK(c->publish.endpoint == "tcp://127.0.0.1:7302");
+  CHECK(c->publish.high_water_mark == 100000);
+  CHECK(c->bars.interval_ns == 0);
+  CHECK(c->bars.grace_ns == 200000000);
+  CHECK(c->bars.max_lateness_ns == 5000000000);
+  CHECK_FALSE(c->bars.session.enabled);
+  CHECK(c->model.spec.Label() == MakeModelSpec("constant", {}, "garch", {1, 1}, "t")->Label());
+  CHECK(c->model.presample == Presample::kMeanSquare);
+  CHECK_FALSE(c->model.has_params);
+  CHECK(c->warmup.ewma_lambda == 0.94);
+  CHECK(c->warmup.min_bars == 2);
+  CHECK(c->outputs.horizons == std::vector<int>{1, 5, 20});
+  CHECK(c->outputs.risk_levels == std::vector<double>{0.99, 0.975});
+  CHECK(c->outputs.periods_per_year == 252);
+  CHECK(c->outputs.return_units == ReturnUnits::kFraction);
+  CHECK(c->outputs.target_vol_ann == 0.10);
+  CHECK(c->outputs.scale_cap == 3.0);
+  CHECK(c->limits.max_symbols == 10000);
+  CHECK(c->refit.every_bars == 0);
+  CHECK(c->refit.window == 2000);
+  CHECK(c->refit.min_bars == 250);
+  CHECK(c->refit.workers == 1);
+  CHECK(c->refit.reidentify_every == 10);
+  CHECK(c->refit.max_persistence == 0.9995);
+  CHECK(c->refit.holdout_bars == 100);
+  CHECK(c->refit.holdout_margin == 0.05);
+  CHECK(c->refit.max_failures == 3);
+  CHECK(c->refit.apply_lag_bars == 1);
+  CHECK(c->refit.jitter_fraction == 0.1);
+  CHECK(c->refit.queue_capacity == 1024);
+  CHECK(c->refit.diagnostics_level == 0.01);
+  CHECK(c->alerts.shock_z == 4.0);
+  CHECK(c->alerts.shock_critical_z == 6.0);
+  CHECK(c->alerts.cooldown_bars == 20);
+  CHECK(c->alerts.regime_enter == 2.0);
+  CHECK(c->alerts.regime_exit == 1.3);
+  CHECK(c->alerts.regime_fast_halflife == 10);
+  CHECK(c->alerts.regime_slow_halflife == 250);
+  CHECK(c->alerts.persistence_threshold == 0.995);
+  CHECK(c->alerts.stale_seconds == 60);
+  CHECK(c->alerts.reject_burst == 100);
+  CHECK(c->http.endpoint == "127.0.0.1:7310");
+  CHECK(c->http.enabled);
+  CHECK(c->checkpoint.path.empty());
+  CHECK(c->checkpoint.every_seconds == 60);
+  CHECK(c->log.level == LogLevel::kInfo);
+}
+
+TEST_CASE("both shipped configuration files parse", "[engine_config]") {
+  auto d = LoadEngineConfigFile(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
+  REQUIRE(d.ok());
+  // default.toml states the defaults: it must equal an empty document.
+  CHECK(FormatEngineConfig(*d) == FormatEngineConfig(*ParseEngineConfig("", "x")));
+  auto e =
+      LoadEngineConfigFile(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml");
+  INFO((e.ok() ? std::string() : std::string(e.status().message())));
+  REQUIRE(e.ok());
+  CHECK(e->bars.interval_ns == 60 * kNanosPerSecond);
+  CHECK(e->bars.session.enabled);
+  CHECK(e->bars.session.start_minute == 480);
+  CHECK(e->bars.session.end_minute == 990);
+  CHECK(e->bars.session.tz_offset_minutes == 60);
+  CHECK(e->model.spec.Label() == "ARMA(1,1)-GJR(1,1,1)-t");
+  REQUIRE(e->model.has_params);
+  CHECK(*e->model.params.Get("gamma1") == 0.05);
+  CHECK(e->outputs.return_units == ReturnUnits::kPercent);
+  CHECK(e->feed.encoding == WireEncoding::kBinary);
+  CHECK(e->feed.endpoints.size() == 2);
+  auto missing = LoadEngineConfigFile("/nonexistent/x.toml");
+  CHECK(std::string(missing.status().message()) ==
+        "/nonexistent/x.toml: cannot open configuration file");
+}
+
+TEST_CASE("a full configuration round-trips through FormatEngineConfig", "[engine_config]") {
+  auto e =
+      LoadEngineConfigFile(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml");
+  REQUIRE(e.ok());
+  EngineConfig c = *e;
+  c.feed.curve_server_key = std::string(40, 'a');
+  c.publish.curve_secret_key = "0123456789abcdefghijABCDEFGHIJ.-:+=^!/*?";
+  c.refit.holdout_margin = 1.0 / 3.0;  // needs all 17 digits
+  c.log.level = LogLevel::kWarn;
+  c.http.enabled = false;
+  const std::string text = FormatEngineConfig(c);
+  auto back = ParseEngineConfig(text, "formatted.toml");
+  INFO(text);
+  REQUIRE(back.ok());
+  CHECK(FormatEngineConfig(*back) == text);
+  CHECK(back->refit.holdout_margin == 1.0 / 3.0);
+  CHECK(back->publish.curve_secret_key == c.publish.curve_secret_key);
+  CHECK(back->model.params.values == c.model.params.values);
+  CHECK(back->bars.session.end_minute == 990);
+}
+
+TEST_CASE("durations", "[engine_config]") {
+  CHECK(*ParseDuration("0s") == 0);
+  CHECK(*ParseDuration("500ms") == 500000000);
+  CHECK(*ParseDuration("5s") == 5000000000);
+  CHECK(*ParseDuration("1m") == 60000000000);
+  CHECK(*ParseDuration("1h") == 3600000000000);
+  CHECK(*ParseDuration("250us") == 250000);
+  CHECK(*ParseDuration("7ns") == 7);
+  CHECK_FALSE(ParseDuration("1.5s").ok());
+  CHECK_FALSE(ParseDuration("-1s").ok());
+  CHECK_FALSE(ParseDuration("s").ok());
+  CHECK_FALSE(ParseDuration("99999999999999999999h").ok());
+  CHECK(FormatDuration(0) == "0s");
+  CHECK(FormatDuration(90 * kNanosPerSecond) == "90s");
+  CHECK(FormatDuration(3600 * kNanosPerSecond) == "1h");
+  CHECK(FormatDuration(200000000) == "200ms");
+}
+
+TEST_CASE("every error class names file, line, section and key", "[engine_config]") {
+  // TOML syntax error (from toml++), with the line.
+  CHECK(ErrorOf("[feed]\nencoding = \"json\n").find("config.toml:2: ") == 0);
+  // Unknown section, top-level key and key.
+  CHECK(ErrorOf("\n[fed]\n").find("config.toml:2: unknown section [fed]") == 0);
+  CHECK(ErrorOf("x = 1\n").find("config.toml:1: unknown top-level key 'x'") == 0);
+  CHECK(ErrorOf("feed = 1\n") == "config.toml:1: 'feed' must be a section [feed], got integer");
+  CHECK(ErrorOf("[bars]\ninterval = \"1m\"\nintervall = \"2m\"\n")
+            .find("config.toml:3: [bars] unknown key 'intervall' (known: interval, grace,") == 0);
+  // The example of the brief.
+  CHECK(ErrorOf("[bars]\n\n\ninterval = \"abc\"\n") ==
+        "config.toml:4: [bars] interval: expected a duration like \"0s\", \"5s\", \"1m\", got "
+        "\"abc\"");
+  CHECK(ErrorOf("[bars]\ngrace = 5\n") ==
+        "config.toml:2: [bars] grace: expected a duration like \"0s\", \"5s\", \"1m\", got 5");
+  // Type errors.
+  CHECK(ErrorOf("[feed]\nmax_message_bytes = \"big\"\n") ==
+        "config.toml:2: [feed] max_message_bytes: expected an integer, got string");
+  CHECK(ErrorOf("[http]\nenabled = 1\n") ==
+        "config.toml:2: [http] enabled: expected true or false, got integer");
+  CHECK(ErrorOf("[warmup]\newma_lambda = \"x\"\n") ==
+        "config.toml:2: [warmup] ewma_lambda: expected a number, got string");
+  CHECK(ErrorOf("[feed]\nendpoints = \"tcp://a:1\"\n") ==
+        "config.toml:2: [feed] endpoints: expected an array of strings, got string");
+  // Ranges.
+  CHECK(ErrorOf("[warmup]\newma_lambda = 1\n") ==
+        "config.toml:2: [warmup] ewma_lambda: must be in (0, 1), got 1");
+  CHECK(ErrorOf("[refit]\nworkers = 0\n") ==
+        "config.toml:2: [refit] workers: must be in 1..256, got 0");
+  CHECK(ErrorOf("[outputs]\nrisk_levels = [0.99, 0.4]\n") ==
+        "config.toml:2: [outputs] risk_levels: entries must be in (0.5, 1), got 0.4");
+  CHECK(ErrorOf("[outputs]\nhorizons = [1,2,3,4,5,6,7,8,9]\n") ==
+        "config.toml:2: [outputs] horizons: at most 8 entries, got 9");
+  CHECK(ErrorOf("[outputs]\nhorizons = [5, 1]\n") ==
+        "config.toml:2: [outputs] horizons: entries must be strictly increasing");
+  CHECK(ErrorOf("[outputs]\nreturn_units = \"bp\"\n") ==
+        "config.toml:2: [outputs] return_units: expected one of \"fraction\", \"percent\", got "
+        "\"bp\"");
+  CHECK(ErrorOf("[outputs]\ntarget_vol_ann = 0\n") ==
+        "config.toml:2: [outputs] target_vol_ann: must be in (0, inf), got 0");
+  // Endpoints and keys.
+  CHECK(ErrorOf("[publish]\nendpoint = \"127.0.0.1:7302\"\n") ==
+        "config.toml:2: [publish] endpoint: expected a ZeroMQ endpoint like "
+        "\"tcp://127.0.0.1:7301\", got \"127.0.0.1:7302\"");
+  CHECK(ErrorOf("[feed]\nendpoints = []\n") ==
+        "config.toml:2: [feed] endpoints: at least one endpoint is required");
+  CHECK(ErrorOf("[feed]\ncurve_server_key = \"abc\"\n") ==
+        "config.toml:2: [feed] curve_server_key: expected a 40-character Z85 CURVE key, got 3 "
+        "characters");
+  CHECK(ErrorOf("[http]\nendpoint = \"localhost\"\n") ==
+        "config.toml:2: [http] endpoint: expected host:port like \"127.0.0.1:7310\", got "
+        "\"localhost\"");
+  // Cross-field rules.
+  CHECK(ErrorOf("[refit]\nwindow = 100\n") ==
+        "config.toml:2: [refit] window: min_bars (250) must not exceed window (100)");
+  CHECK(ErrorOf("[alerts]\nregime_exit = 2.5\n") ==
+        "config.toml:2: [alerts] regime_exit: regime_exit (2.5) must be < regime_enter (2) for "
+        "hysteresis");
+  CHECK(ErrorOf("[alerts]\nshock_z = 7\n") ==
+        "config.toml:2: [alerts] shock_z: shock_critical_z (6) must be >= shock_z (7)");
+}
+
+TEST_CASE("session errors", "[engine_config]") {
+  CHECK(ErrorOf("[bars]\nsession = { start = \"8:00\", end = \"16:30\" }\n") ==
+        "config.toml:2: [bars.session] start: expected a local time \"HH:MM\" (00:00..23:59), "
+        "got \"8:00\"");
+  CHECK(ErrorOf("[bars]\nsession = { start = \"08:00\" }\n") ==
+        "config.toml:2: [bars.session] end: required when a session is given");
+  CHECK(ErrorOf("[bars]\nsession = { start = \"08:00\", end = \"08:00\" }\n") ==
+        "config.toml:2: [bars.session] end: the session must not be empty or a full day (start "
+        "== end)");
+  CHECK(ErrorOf("[bars]\nsession = { start = \"08:00\", end = \"24:00\", tz = 1 }\n")
+            .find("config.toml:2: [bars.session] unknown key 'tz'") == 0);
+  CHECK(ErrorOf("[bars]\nsession = \"08:00-16:30\"\n")
+            .find("config.toml:2: [bars] session: expected a table") == 0);
+  // Sub-table form, over midnight.
+  auto c = ParseEngineConfig(
+      "[bars]\ninterval = \"5m\"\n[bars.session]\nstart = \"22:00\"\nend = \"06:00\"\n"
+      "timezone_offset_minutes = -300\n",
+      "x");
+  REQUIRE(c.ok());
+  CHECK(c->bars.session.start_minute == 1320);
+  CHECK(c->bars.session.end_minute == 360);
+  CHECK(c->bars.session.tz_offset_minutes == -300);
+  CHECK(c->bars.ToBarOptions().interval_ns == 5 * kNanosPerMinute);
+}
+
+TEST_CASE("model and parameter errors name the key and line", "[engine_config]") {
+  CHECK(ErrorOf("[model]\nmean = \"arima\"\n") ==
+        "config.toml:2: [model] mean: unknown mean 'arima' (expected zero, constant or arma)");
+  CHECK(ErrorOf("[model]\nvariance = \"figarch\"\n").find(
+            "config.toml:2: [model] variance: unknown variance 'figarch'") == 0);
+  CHECK(ErrorOf("[model]\nmean = \"arma\"\nmean_order = [6, 0]\n")
+            .find("config.toml:3: [model] mean_order: ARMA orders must be in 0..5") == 0);
+  CHECK(ErrorOf("[model]\nmean_order = [1, 1]\n") ==
+        "config.toml:2: [model] mean_order: only used with mean = \"arma\"");
+  CHECK(ErrorOf("[model]\nvariance_order = [1]\n").find(
+            "config.toml:2: [model] variance_order: ") == 0);
+  const std::string head = "[model]\nvariance = \"garch\"\ninnovations = \"normal\"\n";
+  const std::string nu_error =
+      ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = 0.1\nbeta1 = 0.8\nnu = 5\n");
+  CHECK(nu_error.find("config.toml:9: [model.params] nu: not a parameter of ") == 0);
+  CHECK(nu_error.find("(expected mu, omega, alpha1, beta1)") != std::string::npos);
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = \"x\"\nbeta1 = 0.8\n") ==
+        "config.toml:7: [model.params] alpha1: expected a number, got string");
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nbeta1 = 0.8\n")
+            .find("config.toml:4: [model.params] ") == 0);
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = -0.1\nalpha1 = 0.1\nbeta1 = 0.8\n")
+            .find("config.toml:6: [model.params] omega: omega must be > 0") == 0);
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = 0.3\nbeta1 = 0.8\n")
+            .find("persistence must be < 1") != std::string::npos);
+  auto ok = ParseEngineConfig(head + "[model.params]\nmu = 0\nomega = 1\nalpha1 = 0.1\nbeta1 = 0.8\n", "x");
+  REQUIRE(ok.ok());
+  CHECK(ok->model.has_params);
+  CHECK(ok->model.params.values == std::vector<double>{0, 1, 0.1, 0.8});
+}
+
+}  // namespace
+}  // namespace aftershock
