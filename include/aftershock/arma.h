@@ -114,6 +114,7 @@ struct ArmaCandidate {
   double aic = 0.0;
   double bic = 0.0;
   bool converged = false;
+  int evaluations = 0;  // likelihood evaluations of this candidate's fit
 };
 
 struct ArmaSelection {

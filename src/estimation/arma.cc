@@ -6,6 +6,7 @@
 #include <exception>
 #include <limits>
 #include <map>
+#include <utility>
 
 #include <Eigen/Dense>
 #include <nlopt.hpp>
@@ -91,13 +92,72 @@ void ShrinkUntil(std::vector<double>* c, bool (*valid)(const std::vector<double>
   if (!valid(*c)) std::fill(c->begin(), c->end(), 0.0);
 }
 
-// Exact filter at sigma2 = 1. Fills sum of log F_t and of v_t^2 / F_t, and
-// optionally the errors and the ratios. REQUIRES: validated parameters.
+// Sums over the sample of log F_t and of v_t^2 / F_t (filter at sigma2 = 1).
 struct FilterSums {
   double sum_log_f = 0.0;
   double sum_sq = 0.0;
 };
 
+// The filter proper for state dimension R (a compile-time constant so the
+// small loops unroll). pm holds the stationary P_0 (row-major R x R).
+template <int R>
+bool FilterLoop(absl::Span<const double> y, double mu, const std::array<double, kMaxState>& phi,
+                const std::array<double, kMaxState>& rv, std::array<double, kMaxState * kMaxState> pm,
+                FilterSums* sums, std::vector<double>* resid, std::vector<double>* ratio) {
+  const int n = static_cast<int>(y.size());
+  double st[R] = {}, gain[R] = {}, tp0[R] = {}, m[R * R];
+  double sum_log_f = 0.0, sum_sq = 0.0;
+  int t = 0;
+  for (; t < n; ++t) {
+    const double v = y[t] - mu - st[0];
+    const double f = pm[0];
+    if (!(f > 0.0) || !std::isfinite(f)) return false;
+    sum_log_f += std::log(f);
+    sum_sq += v * v / f;
+    if (resid) (*resid)[t] = v;
+    if (ratio) (*ratio)[t] = f;
+    // M = T P; (T P)_{i.} = phi_i P_{0.} + P_{i+1,.}.
+    for (int i = 0; i < R; ++i) {
+      for (int j = 0; j < R; ++j) {
+        m[i * R + j] = phi[i] * pm[j] + (i + 1 < R ? pm[(i + 1) * R + j] : 0.0);
+      }
+    }
+    for (int i = 0; i < R; ++i) tp0[i] = m[i * R];  // T P Z'
+    const double s0 = st[0];
+    for (int i = 0; i < R; ++i) {
+      st[i] = phi[i] * s0 + (i + 1 < R ? st[i + 1] : 0.0) + tp0[i] / f * v;
+    }
+    // P_{t+1} = M T' + R R' - K K' f, with (M T')_{ij} = phi_j M_{i0} + M_{i,j+1}.
+    double excess = 0.0;
+    for (int i = 0; i < R; ++i) {
+      for (int j = 0; j < R; ++j) {
+        const double mt = phi[j] * m[i * R] + (j + 1 < R ? m[i * R + j + 1] : 0.0);
+        pm[i * R + j] = mt + rv[i] * rv[j] - tp0[i] * tp0[j] / f;
+      }
+      excess += pm[i * R + i] - rv[i] * rv[i];
+    }
+    if (excess < kSteadyTolerance) {
+      ++t;
+      break;
+    }
+  }
+  // Steady state: F = 1 and the gain is T R, so a_{t+1} = T a_t + T R v_t.
+  for (int i = 0; i < R; ++i) gain[i] = phi[i] + (i + 1 < R ? rv[i + 1] : 0.0);
+  for (; t < n; ++t) {
+    const double v = y[t] - mu - st[0];
+    sum_sq += v * v;
+    if (resid) (*resid)[t] = v;
+    if (ratio) (*ratio)[t] = 1.0;
+    const double s0 = st[0];
+    for (int i = 0; i < R; ++i) st[i] = phi[i] * s0 + (i + 1 < R ? st[i + 1] : 0.0) + gain[i] * v;
+  }
+  sums->sum_log_f = sum_log_f;
+  sums->sum_sq = sum_sq;
+  return std::isfinite(sum_sq) && std::isfinite(sum_log_f);
+}
+
+// Exact filter at sigma2 = 1 for validated parameters (stationary AR,
+// invertible MA). Fills the sums and optionally the errors and variance ratios.
 bool RunFilter(absl::Span<const double> y, double mu, const double* ar, int p, const double* ma,
                int q, FilterSums* sums, std::vector<double>* resid, std::vector<double>* ratio) {
   const int r = std::max(p, q + 1);
@@ -107,84 +167,40 @@ bool RunFilter(absl::Span<const double> y, double mu, const double* ar, int p, c
   for (int j = 0; j < q; ++j) rv[j + 1] = ma[j];
 
   // Stationary state covariance: (I - T (x) T) vec(P) = vec(R R').
-  using Mat = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic>;
-  Mat tm = Mat::Zero(r, r);
-  for (int i = 0; i < r; ++i) {
-    tm(i, 0) = phi[i];
-    if (i + 1 < r) tm(i, i + 1) = 1.0;
-  }
   std::array<double, kMaxState * kMaxState> pm{};
   if (r == 1) {
     pm[0] = 1.0 / (1.0 - phi[0] * phi[0]);
   } else {
+    using Mat = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, 0, kMaxState * kMaxState,
+                              kMaxState * kMaxState>;
+    using Vec = Eigen::Matrix<double, Eigen::Dynamic, 1, 0, kMaxState * kMaxState, 1>;
+    const auto tm = [&](int i, int k) {
+      return k == 0 ? phi[i] : (k == i + 1 ? 1.0 : 0.0);
+    };
     const int r2 = r * r;
     Mat a = Mat::Identity(r2, r2);
-    Eigen::VectorXd b(r2);
+    Vec b(r2);
     for (int i = 0; i < r; ++i) {
       for (int j = 0; j < r; ++j) {
         b(i * r + j) = rv[i] * rv[j];
         for (int k = 0; k < r; ++k) {
-          for (int l = 0; l < r; ++l) a(i * r + j, k * r + l) -= tm(i, k) * tm(j, l);
+          const double tik = tm(i, k);
+          if (tik == 0.0) continue;
+          for (int l = 0; l < r; ++l) a(i * r + j, k * r + l) -= tik * tm(j, l);
         }
       }
     }
-    Eigen::VectorXd sol = a.partialPivLu().solve(b);
+    Vec sol = a.partialPivLu().solve(b);
     for (int i = 0; i < r2; ++i) pm[i] = sol(i);
   }
-
-  const int n = static_cast<int>(y.size());
-  std::array<double, kMaxState> st{}, st_next{}, gain{}, tp0{};
-  std::array<double, kMaxState * kMaxState> m{};
-  bool steady = false;
-  double sum_log_f = 0.0, sum_sq = 0.0;
-  for (int t = 0; t < n; ++t) {
-    const double v = y[t] - mu - st[0];
-    if (steady) {
-      sum_sq += v * v;
-      if (resid) (*resid)[t] = v;
-      if (ratio) (*ratio)[t] = 1.0;
-      // a_{t+1} = T a_t + T R v_t.
-      for (int i = 0; i < r; ++i) {
-        st_next[i] = phi[i] * st[0] + (i + 1 < r ? st[i + 1] : 0.0) + gain[i] * v;
-      }
-      st = st_next;
-      continue;
-    }
-    const double f = pm[0];
-    if (!(f > 0.0) || !std::isfinite(f)) return false;
-    sum_log_f += std::log(f);
-    sum_sq += v * v / f;
-    if (resid) (*resid)[t] = v;
-    if (ratio) (*ratio)[t] = f;
-    // M = T P; (T P)_{i.} = phi_i P_{0.} + P_{i+1,.}.
-    for (int i = 0; i < r; ++i) {
-      for (int j = 0; j < r; ++j) {
-        m[i * r + j] = phi[i] * pm[j] + (i + 1 < r ? pm[(i + 1) * r + j] : 0.0);
-      }
-    }
-    for (int i = 0; i < r; ++i) tp0[i] = m[i * r + 0];  // T P Z'
-    for (int i = 0; i < r; ++i) {
-      gain[i] = tp0[i] / f;
-      st_next[i] = phi[i] * st[0] + (i + 1 < r ? st[i + 1] : 0.0) + gain[i] * v;
-    }
-    st = st_next;
-    // P_{t+1} = M T' + R R' - K K' f, with (M T')_{ij} = phi_j M_{i0} + M_{i,j+1}.
-    double excess = 0.0;
-    for (int i = 0; i < r; ++i) {
-      for (int j = 0; j < r; ++j) {
-        const double mt = phi[j] * m[i * r] + (j + 1 < r ? m[i * r + j + 1] : 0.0);
-        pm[i * r + j] = mt + rv[i] * rv[j] - tp0[i] * tp0[j] / f;
-      }
-      excess += pm[i * r + i] - rv[i] * rv[i];
-    }
-    if (excess < kSteadyTolerance) {
-      steady = true;
-      for (int i = 0; i < r; ++i) gain[i] = phi[i] + (i + 1 < r ? rv[i + 1] : 0.0);  // T R
-    }
+  switch (r) {
+    case 1: return FilterLoop<1>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 2: return FilterLoop<2>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 3: return FilterLoop<3>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 4: return FilterLoop<4>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 5: return FilterLoop<5>(y, mu, phi, rv, pm, sums, resid, ratio);
+    default: return FilterLoop<6>(y, mu, phi, rv, pm, sums, resid, ratio);
   }
-  sums->sum_log_f = sum_log_f;
-  sums->sum_sq = sum_sq;
-  return std::isfinite(sum_sq) && std::isfinite(sum_log_f);
 }
 
 absl::Status ValidateParams(const ArmaParams& params) {
@@ -210,21 +226,51 @@ absl::Status ValidateParams(const ArmaParams& params) {
 }
 
 // Long-autoregression residuals (first Hannan-Rissanen stage): entries before
-// index m are undefined (0).
+// index m are undefined (0). The regression on a constant and m lags is solved
+// by the normal equations (Cholesky of the centred cross-product, a blocked
+// matrix product): these residuals only seed the starting values, and this is
+// several times faster than the pivoted QR of OrdinaryLeastSquares, which
+// remains the fallback when the cross-product is not positive definite.
 absl::StatusOr<std::vector<double>> LongArResiduals(absl::Span<const double> y, int m) {
   const int n = static_cast<int>(y.size());
   const int rows = n - m;
-  std::vector<double> yy(rows), x(static_cast<size_t>(rows) * m);
+  double mean = 0.0;
+  for (double v : y) mean += v;
+  mean /= n;
+  Eigen::MatrixXd x(rows, m);
+  Eigen::VectorXd yy(rows);
   for (int t = 0; t < rows; ++t) {
-    yy[t] = y[t + m];
-    for (int j = 1; j <= m; ++j) x[static_cast<size_t>(t) * m + j - 1] = y[t + m - j];
+    yy(t) = y[t + m] - mean;
+    for (int j = 1; j <= m; ++j) x(t, j - 1) = y[t + m - j] - mean;
   }
-  absl::StatusOr<OlsResult> ols = OrdinaryLeastSquares(yy, x, m);
+  // Exact centring of every column makes the intercept drop out.
+  const Eigen::RowVectorXd xbar = x.colwise().mean();
+  x.rowwise() -= xbar;
+  const double ybar = yy.mean();
+  yy.array() -= ybar;
+  Eigen::MatrixXd xtx(m, m);
+  xtx.setZero();
+  xtx.selfadjointView<Eigen::Lower>().rankUpdate(x.transpose());
+  Eigen::LLT<Eigen::MatrixXd> llt(xtx.selfadjointView<Eigen::Lower>());
+  std::vector<double> e(n, 0.0);
+  if (llt.info() == Eigen::Success) {
+    const Eigen::VectorXd b = llt.solve(x.transpose() * yy);
+    if (b.allFinite()) {
+      const Eigen::VectorXd res = yy - x * b;
+      for (int t = 0; t < rows; ++t) e[t + m] = res(t);
+      return e;
+    }
+  }
+  std::vector<double> yv(rows), xv(static_cast<size_t>(rows) * m);
+  for (int t = 0; t < rows; ++t) {
+    yv[t] = y[t + m];
+    for (int j = 1; j <= m; ++j) xv[static_cast<size_t>(t) * m + j - 1] = y[t + m - j];
+  }
+  absl::StatusOr<OlsResult> ols = OrdinaryLeastSquares(yv, xv, m);
   if (!ols.ok()) {
     return absl::InvalidArgumentError(
         absl::StrCat("Hannan-Rissanen long autoregression failed: ", ols.status().message()));
   }
-  std::vector<double> e(n, 0.0);
   for (int t = 0; t < rows; ++t) e[t + m] = ols->residuals[t];
   return e;
 }
@@ -339,9 +385,27 @@ ArmaFit FinishFit(absl::Span<const double> y, const ArmaParams& params, const Ar
   return fit;
 }
 
+// Unconstrained coordinates of a valid parameter set (mu, ar, ma used).
+std::vector<double> Encode(const Problem& pr, const ArmaParams& a) {
+  std::vector<double> x(1 + pr.p + pr.q, 0.0);
+  x[0] = (a.mu - pr.mean) / pr.sd;
+  std::vector<double> partials;
+  ToPartials(a.ar, &partials);
+  for (int i = 0; i < pr.p; ++i) x[1 + i] = FromPartial(partials[i]);
+  ToPartials(Negated(a.ma), &partials);
+  for (int j = 0; j < pr.q; ++j) x[1 + pr.p + j] = FromPartial(partials[j]);
+  x[0] = std::clamp(x[0], -9.0, 9.0);
+  for (double& v : x) v = std::clamp(v, -0.9 * kMaxUnconstrained, 0.9 * kMaxUnconstrained);
+  return x;
+}
+
+// Fits ARMA(p,q) from the better (by likelihood) of the Hannan-Rissanen values
+// and the `warm` parameter sets, which are zero-padded to the orders (a smaller
+// model's optimum is a point of the larger model with the same likelihood).
 absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
                                     const ArmaFitOptions& options,
-                                    std::map<int, std::vector<double>>* long_cache) {
+                                    std::map<int, std::vector<double>>* long_cache,
+                                    const std::vector<ArmaParams>& warm = {}) {
   const int n = static_cast<int>(y.size());
   const int m = LongArOrder(n, p, q, options);
   const std::vector<double>* long_resid = nullptr;
@@ -373,13 +437,21 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
     pr.mean = mean;
     pr.sd = std::sqrt(var);
     const int dim = 1 + p + q;
-    std::vector<double> x(dim, 0.0);
-    std::vector<double> partials;
-    ToPartials(start->ar, &partials);
-    for (int i = 0; i < p; ++i) x[1 + i] = FromPartial(partials[i]);
-    ToPartials(Negated(start->ma), &partials);
-    for (int j = 0; j < q; ++j) x[1 + p + j] = FromPartial(partials[j]);
-    for (double& v : x) v = std::clamp(v, -0.9 * kMaxUnconstrained, 0.9 * kMaxUnconstrained);
+    std::vector<double> x = Encode(pr, *start);
+    double best = Objective(dim, x.data(), nullptr, &pr);
+    for (const ArmaParams& w : warm) {
+      if (w.p() > p || w.q() > q) continue;
+      ArmaParams padded = w;
+      padded.ar.resize(p, 0.0);
+      padded.ma.resize(q, 0.0);
+      if (!Stationary(padded.ar) || !Invertible(padded.ma)) continue;
+      std::vector<double> xw = Encode(pr, padded);
+      const double fw = Objective(dim, xw.data(), nullptr, &pr);
+      if (fw < best) {
+        best = fw;
+        x = std::move(xw);
+      }
+    }
     nlopt::opt opt(nlopt::LN_BOBYQA, dim);
     std::vector<double> lb(dim, -kMaxUnconstrained), ub(dim, kMaxUnconstrained);
     lb[0] = -10.0;  // mu within 10 sample standard deviations of the mean
@@ -538,6 +610,7 @@ absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int ma
   ArmaSelection out;
   out.criterion = criterion;
   std::map<int, std::vector<double>> cache;
+  std::map<std::pair<int, int>, ArmaParams> fitted;
   bool have = false, have_converged = false;
   double best_value = std::numeric_limits<double>::infinity();
   for (int p = 0; p <= max_p; ++p) {
@@ -548,7 +621,14 @@ absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int ma
       absl::StatusOr<ArmaFit> fit = absl::InvalidArgumentError("");
       c.status = CheckFitInput(y, p, q);
       if (c.status.ok()) {
-        fit = FitArmaImpl(y, p, q, options, &cache);
+        // Warm starts from the fitted neighbours (p-1,q) and (p,q-1).
+        std::vector<ArmaParams> warm;
+        for (const auto& [wp, wq] : {std::pair{p - 1, q}, std::pair{p, q - 1}}) {
+          if (wp < 0 || wq < 0) continue;
+          const auto it = fitted.find({wp, wq});
+          if (it != fitted.end()) warm.push_back(it->second);
+        }
+        fit = FitArmaImpl(y, p, q, options, &cache, warm);
         c.status = fit.status();
       }
       if (c.status.ok()) {
@@ -556,6 +636,8 @@ absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int ma
         c.aic = fit->aic;
         c.bic = fit->bic;
         c.converged = fit->converged;
+        c.evaluations = fit->evaluations;
+        fitted[{p, q}] = fit->params;
         const double value = criterion == InfoCriterion::kAic ? c.aic : c.bic;
         // A converged candidate always beats a non-converged one.
         const bool better = !have || (c.converged && !have_converged) ||
