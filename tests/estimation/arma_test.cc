@@ -7,6 +7,7 @@
 #include <cmath>
 #include <fstream>
 #include <nlohmann/json.hpp>
+#include <sstream>
 #include <string>
 #include <vector>
 
@@ -105,47 +106,72 @@ TEST_CASE("exact likelihood equals the direct Gaussian density", "[arma]") {
   CHECK(f->variance_ratio.back() == Approx(1.0).epsilon(1e-6));
 }
 
-// Fits ARMA(1,1) with statsmodels and compares log-likelihood, AIC and BIC at
-// the two maxima, and our exact log-likelihood at statsmodels' estimates.
-void CompareWithStatsmodels(const std::vector<double>& y, const std::string& label) {
+// Fits ARMA(p,q) with statsmodels and compares log-likelihood, AIC and BIC at
+// the two maxima, and our exact log-likelihood and prediction errors at
+// statsmodels' estimates.
+void CompareWithStatsmodels(const std::vector<double>& y, int p, int q, const std::string& label) {
   nlohmann::json in;
   in["y"] = y;
+  in["p"] = p;
+  in["q"] = q;
   testing::CommandResult r = testing::RunPython("statsmodels_ref.py", {"arma"}, in.dump());
   INFO(label << ": " << r.err);
   REQUIRE(r.exit_code == 0);
   nlohmann::json ref = nlohmann::json::parse(r.out);
-  REQUIRE(ref["param_names"] ==
-          nlohmann::json::array({"const", "ar.L1", "ma.L1", "sigma2"}));
+  nlohmann::json names = nlohmann::json::array({"const"});
+  for (int i = 1; i <= p; ++i) names.push_back("ar.L" + std::to_string(i));
+  for (int j = 1; j <= q; ++j) names.push_back("ma.L" + std::to_string(j));
+  names.push_back("sigma2");
+  REQUIRE(ref["param_names"] == names);
   const auto& sp = ref["params"];
-  const ArmaParams theirs = Params(sp[0], {sp[1].get<double>()}, {sp[2].get<double>()}, sp[3]);
+  ArmaParams theirs;
+  theirs.mu = sp[0];
+  for (int i = 0; i < p; ++i) theirs.ar.push_back(sp[1 + i]);
+  for (int j = 0; j < q; ++j) theirs.ma.push_back(sp[1 + p + j]);
+  theirs.sigma2 = sp[1 + p + q];
+  const double llf = ref["llf"];
 
-  // statsmodels.tsa.arima.model.ARIMA(y, order=(1,0,1), trend="c").fit().llf
+  // statsmodels.tsa.arima.model.ARIMA(y, order=(p,0,q), trend="c").fit().llf
   // evaluated by our filter at statsmodels' parameters (isolates the likelihood).
-  absl::StatusOr<double> ll_at_theirs = ArmaExactLogLikelihood(y, theirs);
-  REQUIRE(ll_at_theirs.ok());
-  CHECK(RelDiff(*ll_at_theirs, ref["llf"]) <= 1e-8);
+  absl::StatusOr<ArmaFilterOutput> at_theirs = ArmaFilter(y, theirs);
+  REQUIRE(at_theirs.ok());
+  CHECK(RelDiff(at_theirs->loglik, llf) <= 1e-8);
+  // ...and its .resid (one-step prediction errors) at the same parameters.
+  REQUIRE(ref["resid"].size() == y.size());
+  double worst_resid = 0.0;
+  for (size_t t = 0; t < y.size(); ++t) {
+    const double d = std::fabs(at_theirs->residuals[t] - ref["resid"][t].get<double>());
+    worst_resid = std::max(worst_resid, d);
+  }
+  CHECK(worst_resid <= 1e-8 * std::sqrt(theirs.sigma2));
 
-  absl::StatusOr<ArmaFit> fit = FitArma(y, 1, 1);
+  absl::StatusOr<ArmaFit> fit = FitArma(y, p, q);
   REQUIRE(fit.ok());
   CHECK(fit->converged);
   CHECK(fit->nobs == ref["nobs"].get<int>());
-  CHECK(RelDiff(fit->loglik, ref["llf"]) <= 1e-6);  // ARIMA(...).fit().llf
+  CHECK(RelDiff(fit->loglik, llf) <= 1e-6);         // ARIMA(...).fit().llf
   CHECK(RelDiff(fit->aic, ref["aic"]) <= 1e-6);     // ARIMA(...).fit().aic
   CHECK(RelDiff(fit->bic, ref["bic"]) <= 1e-6);     // ARIMA(...).fit().bic
   // Our optimum is at least as high as statsmodels' (up to optimizer noise).
-  CHECK(fit->loglik >= ref["llf"].get<double>() - 1e-6 * std::fabs(ref["llf"].get<double>()));
-  WARN(label << " (statsmodels " << ref["statsmodels"].get<std::string>() << "): ours mu="
-             << fit->params.mu << " ar=" << fit->params.ar[0] << " ma=" << fit->params.ma[0]
-             << " sigma2=" << fit->params.sigma2 << " loglik=" << fit->loglik
-             << " | statsmodels " << sp[0] << " " << sp[1] << " " << sp[2] << " " << sp[3]
-             << " llf=" << ref["llf"].get<double>() << " | our loglik at theirs "
-             << *ll_at_theirs << " (" << fit->evaluations << " evaluations)");
+  CHECK(fit->loglik >= llf - 1e-6 * std::fabs(llf));
+  std::ostringstream msg;
+  msg.precision(10);
+  msg << label << " ARMA(" << p << "," << q << ") vs statsmodels "
+      << ref["statsmodels"].get<std::string>() << ": loglik ours " << fit->loglik
+      << ", statsmodels " << llf << " (rel " << RelDiff(fit->loglik, llf)
+      << "); our loglik at their params rel diff " << RelDiff(at_theirs->loglik, llf)
+      << ", max |resid diff| " << worst_resid << "; ours mu=" << fit->params.mu;
+  for (double a : fit->params.ar) msg << " ar=" << a;
+  for (double m : fit->params.ma) msg << " ma=" << m;
+  msg << " sigma2=" << fit->params.sigma2 << " | theirs " << sp.dump() << " ("
+      << fit->evaluations << " evaluations)";
+  WARN(msg.str());
 }
 
 TEST_CASE("ARMA(1,1) with constant vs statsmodels ARIMA on simulated data", "[arma][statsmodels]") {
   // Simulated from mu=0.5, ar=0.6, ma=-0.3, sigma2=2 (seed 4242), n=1000.
-  CompareWithStatsmodels(SimulateArma(Params(0.5, {0.6}, {-0.3}, 2.0), 1000, 4242),
-                         "simulated ARMA(1,1)");
+  CompareWithStatsmodels(SimulateArma(Params(0.5, {0.6}, {-0.3}, 2.0), 1000, 4242), 1, 1,
+                         "simulated");
 }
 
 TEST_CASE("ARMA(1,1) with constant vs statsmodels ARIMA on DEM/GBP returns",
@@ -157,7 +183,16 @@ TEST_CASE("ARMA(1,1) with constant vs statsmodels ARIMA on DEM/GBP returns",
   }
   const std::vector<double> y = ReadColumn(*path);
   REQUIRE(y.size() == 1974);
-  CompareWithStatsmodels(y, "DEM/GBP");
+  CompareWithStatsmodels(y, 1, 1, "DEM/GBP");
+}
+
+TEST_CASE("ARMA(2,1) and ARMA(0,2) with constant vs statsmodels ARIMA", "[arma][statsmodels]") {
+  // Larger state dimensions of the filter (r = 2 and 3); simulated from stated
+  // parameters with fixed seeds.
+  CompareWithStatsmodels(SimulateArma(Params(0.0, {0.9, -0.4}, {0.5}, 1.0), 800, 99), 2, 1,
+                         "simulated");
+  CompareWithStatsmodels(SimulateArma(Params(2.0, {}, {0.6, 0.3}, 0.5), 800, 7), 0, 2,
+                         "simulated");
 }
 
 TEST_CASE("ARMA(1,1) parameters are recovered within 4 standard errors", "[arma][property]") {
@@ -216,14 +251,7 @@ TEST_CASE("order selection over the 0..2 x 0..2 grid", "[arma]") {
   absl::StatusOr<ArmaSelection> sel_aic = SelectArmaOrder(y, 2, 2, InfoCriterion::kAic);
   REQUIRE(sel_aic.ok());
   for (const ArmaCandidate& c : sel_aic->candidates) CHECK(sel_aic->best.aic <= c.aic);
-  evaluations = 0;
-  for (int p = 0; p <= 2; ++p) {
-    for (int q = 0; q <= 2; ++q) {
-      absl::StatusOr<ArmaFit> f = FitArma(y, p, q);
-      REQUIRE(f.ok());
-      evaluations += f->evaluations;
-    }
-  }
+  for (const ArmaCandidate& c : sel->candidates) evaluations += c.evaluations;
   const double ms = std::chrono::duration<double, std::milli>(t1 - t0).count();
   WARN("grid 0..2 x 0..2 on 2000 observations: " << ms << " ms, "
        << evaluations << " likelihood evaluations in total (timing is informational only)");

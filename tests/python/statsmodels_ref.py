@@ -14,8 +14,9 @@ MODE "stats": input {"x": [...], "lags": h, "model_df": d, "arch_lags": m,
 MODE "chi2": input {"cases": [[df, upper_tail_prob], ...]}; scipy.stats.chi2.ppf(1 - a, df)
   plus a set of distribution values (chi2.sf, f.sf, norm.cdf/ppf, t.cdf) at
   input "points".
-MODE "arma": input {"y": [...]}; statsmodels.tsa.arima.model.ARIMA(y,
-  order=(1,0,1), trend="c").fit(): params, llf, aic, bic, nobs.
+MODE "arma": input {"y": [...], "p": p, "q": q}; statsmodels.tsa.arima.model.ARIMA(y,
+  order=(p,0,q), trend="c").fit(): params, llf, aic, bic, nobs and the one-step
+  prediction errors (resid) at the fitted parameters.
 """
 import json
 import sys
@@ -92,15 +93,16 @@ def arma_mode(d):
     from statsmodels.tsa.arima.model import ARIMA
 
     y = np.asarray(d["y"], dtype=float)
-    res = ARIMA(y, order=(1, 0, 1), trend="c").fit()
+    res = ARIMA(y, order=(int(d["p"]), 0, int(d["q"])), trend="c").fit()
     out = versions()
-    # Parameter order of this model: const (the mean), ar.L1, ma.L1, sigma2.
+    # Parameter order: const (the mean), ar.L1.., ma.L1.., sigma2.
     out["params"] = [float(v) for v in res.params]
     out["param_names"] = list(res.param_names)
     out["llf"] = float(res.llf)
     out["aic"] = float(res.aic)
     out["bic"] = float(res.bic)
     out["nobs"] = int(res.nobs)
+    out["resid"] = np.asarray(res.resid, dtype=float).tolist()
     return out
 
 
