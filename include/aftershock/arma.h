@@ -52,8 +52,7 @@ struct ArmaFilterOutput {
 absl::StatusOr<ArmaFilterOutput> ArmaFilter(absl::Span<const double> y, const ArmaParams& params);
 
 // The exact log-likelihood only (same checks as ArmaFilter).
-absl::StatusOr<double> ArmaExactLogLikelihood(absl::Span<const double> y,
-                                              const ArmaParams& params);
+absl::StatusOr<double> ArmaExactLogLikelihood(absl::Span<const double> y, const ArmaParams& params);
 
 struct ArmaFitOptions {
   // Order of the long autoregression of the Hannan-Rissanen first stage;
@@ -70,15 +69,15 @@ struct ArmaFitOptions {
 
 struct ArmaFit {
   int nobs = 0;
-  ArmaParams params;               // maximum-likelihood estimates
-  ArmaParams start;                // Hannan-Rissanen starting values
-  double loglik = 0.0;             // exact log-likelihood at params
-  double aic = 0.0;                // -2 loglik + 2 (p + q + 2)
-  double bic = 0.0;                // -2 loglik + log(n) (p + q + 2)
-  std::vector<double> residuals;   // one-step prediction errors at params; n entries
-  bool converged = false;          // optimizer stopped on a tolerance, not on the budget
-  int evaluations = 0;             // likelihood evaluations used
-  std::string optimizer_message;   // how the optimizer stopped
+  ArmaParams params;              // maximum-likelihood estimates
+  ArmaParams start;               // Hannan-Rissanen starting values
+  double loglik = 0.0;            // exact log-likelihood at params
+  double aic = 0.0;               // -2 loglik + 2 (p + q + 2)
+  double bic = 0.0;               // -2 loglik + log(n) (p + q + 2)
+  std::vector<double> residuals;  // one-step prediction errors at params; n entries
+  bool converged = false;         // optimizer stopped on a tolerance, not on the budget
+  int evaluations = 0;            // likelihood evaluations used
+  std::string optimizer_message;  // how the optimizer stopped
 };
 
 // Hannan-Rissanen (1982) estimates: a long autoregression by least squares
@@ -119,7 +118,7 @@ struct ArmaCandidate {
 
 struct ArmaSelection {
   InfoCriterion criterion = InfoCriterion::kAic;
-  ArmaFit best;                          // the chosen model's full fit
+  ArmaFit best;                           // the chosen model's full fit
   std::vector<ArmaCandidate> candidates;  // every (p, q), p-major order
 };
 

@@ -25,10 +25,10 @@ namespace aftershock {
 // ---- Distribution functions (Boost.Math). Invalid arguments give NaN. -------
 
 double NormalCdf(double x);
-double NormalQuantile(double p);                 // REQUIRES: 0 < p < 1
-double StudentTCdf(double x, double df);         // REQUIRES: df > 0
-double ChiSquareSurvival(double x, double df);   // P(X > x); REQUIRES: df > 0
-double ChiSquareQuantile(double p, double df);   // x with P(X <= x) = p; REQUIRES: 0 < p < 1
+double NormalQuantile(double p);                     // REQUIRES: 0 < p < 1
+double StudentTCdf(double x, double df);             // REQUIRES: df > 0
+double ChiSquareSurvival(double x, double df);       // P(X > x); REQUIRES: df > 0
+double ChiSquareQuantile(double p, double df);       // x with P(X <= x) = p; REQUIRES: 0 < p < 1
 double FSurvival(double x, double df1, double df2);  // P(F > x)
 
 // ---- Input validation used by every diagnostic --------------------------------
@@ -46,8 +46,7 @@ absl::StatusOr<std::vector<double>> Autocorrelation(absl::Span<const double> x, 
 // Partial autocorrelations phi_00 = 1, phi_11, ..., phi_{max_lag,max_lag} by the
 // Durbin-Levinson recursion on the biased autocorrelations.
 // REQUIRES: 1 <= max_lag < n.
-absl::StatusOr<std::vector<double>> PartialAutocorrelation(absl::Span<const double> x,
-                                                           int max_lag);
+absl::StatusOr<std::vector<double>> PartialAutocorrelation(absl::Span<const double> x, int max_lag);
 
 // ---- Portmanteau tests -----------------------------------------------------------
 
@@ -61,13 +60,11 @@ struct PortmanteauResult {
 
 // Ljung-Box Q on x. model_dof is the number of fitted ARMA parameters (p + q)
 // when x are model residuals. REQUIRES: 1 <= lags < n, 0 <= model_dof < lags.
-absl::StatusOr<PortmanteauResult> LjungBox(absl::Span<const double> x, int lags,
-                                           int model_dof = 0);
+absl::StatusOr<PortmanteauResult> LjungBox(absl::Span<const double> x, int lags, int model_dof = 0);
 
 // McLeod-Li: Ljung-Box on x_t^2 (the squares are demeaned by the autocorrelation,
 // x itself is not). Same requirements as LjungBox.
-absl::StatusOr<PortmanteauResult> McLeodLi(absl::Span<const double> x, int lags,
-                                           int model_dof = 0);
+absl::StatusOr<PortmanteauResult> McLeodLi(absl::Span<const double> x, int lags, int model_dof = 0);
 
 // ---- Engle's ARCH-LM test ---------------------------------------------------------
 
@@ -110,10 +107,10 @@ struct SignBiasTerm {
 };
 
 struct SignBiasResult {
-  int nobs = 0;                // n - 1 regression rows
-  SignBiasTerm sign;           // S^-_{t-1}
-  SignBiasTerm negative_size;  // S^-_{t-1} z_{t-1}
-  SignBiasTerm positive_size;  // S^+_{t-1} z_{t-1}
+  int nobs = 0;                  // n - 1 regression rows
+  SignBiasTerm sign;             // S^-_{t-1}
+  SignBiasTerm negative_size;    // S^-_{t-1} z_{t-1}
+  SignBiasTerm positive_size;    // S^+_{t-1} z_{t-1}
   double joint_statistic = 0.0;  // nobs * R^2
   double joint_p_value = 0.0;    // chi-square(3) survival
 };

@@ -1,15 +1,14 @@
 #include "aftershock/arma.h"
 
+#include <Eigen/Dense>
 #include <algorithm>
 #include <array>
 #include <cmath>
 #include <exception>
 #include <limits>
 #include <map>
-#include <utility>
-
-#include <Eigen/Dense>
 #include <nlopt.hpp>
+#include <utility>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/least_squares.h"
@@ -29,8 +28,8 @@ constexpr double kSteadyTolerance = 1e-14;
 
 absl::Status CheckOrders(int p, int q) {
   if (p < 0 || q < 0 || p > kMaxArmaOrder || q > kMaxArmaOrder) {
-    return absl::InvalidArgumentError(absl::StrCat("ARMA orders must be in 0..", kMaxArmaOrder,
-                                                   " (got p=", p, ", q=", q, ")"));
+    return absl::InvalidArgumentError(
+        absl::StrCat("ARMA orders must be in 0..", kMaxArmaOrder, " (got p=", p, ", q=", q, ")"));
   }
   return absl::OkStatus();
 }
@@ -102,8 +101,9 @@ struct FilterSums {
 // small loops unroll). pm holds the stationary P_0 (row-major R x R).
 template <int R>
 bool FilterLoop(absl::Span<const double> y, double mu, const std::array<double, kMaxState>& phi,
-                const std::array<double, kMaxState>& rv, std::array<double, kMaxState * kMaxState> pm,
-                FilterSums* sums, std::vector<double>* resid, std::vector<double>* ratio) {
+                const std::array<double, kMaxState>& rv,
+                std::array<double, kMaxState * kMaxState> pm, FilterSums* sums,
+                std::vector<double>* resid, std::vector<double>* ratio) {
   const int n = static_cast<int>(y.size());
   double st[R] = {}, gain[R] = {}, tp0[R] = {}, m[R * R];
   double sum_log_f = 0.0, sum_sq = 0.0;
@@ -174,9 +174,7 @@ bool RunFilter(absl::Span<const double> y, double mu, const double* ar, int p, c
     using Mat = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, 0, kMaxState * kMaxState,
                               kMaxState * kMaxState>;
     using Vec = Eigen::Matrix<double, Eigen::Dynamic, 1, 0, kMaxState * kMaxState, 1>;
-    const auto tm = [&](int i, int k) {
-      return k == 0 ? phi[i] : (k == i + 1 ? 1.0 : 0.0);
-    };
+    const auto tm = [&](int i, int k) { return k == 0 ? phi[i] : (k == i + 1 ? 1.0 : 0.0); };
     const int r2 = r * r;
     Mat a = Mat::Identity(r2, r2);
     Vec b(r2);
@@ -194,12 +192,18 @@ bool RunFilter(absl::Span<const double> y, double mu, const double* ar, int p, c
     for (int i = 0; i < r2; ++i) pm[i] = sol(i);
   }
   switch (r) {
-    case 1: return FilterLoop<1>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 2: return FilterLoop<2>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 3: return FilterLoop<3>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 4: return FilterLoop<4>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 5: return FilterLoop<5>(y, mu, phi, rv, pm, sums, resid, ratio);
-    default: return FilterLoop<6>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 1:
+      return FilterLoop<1>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 2:
+      return FilterLoop<2>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 3:
+      return FilterLoop<3>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 4:
+      return FilterLoop<4>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 5:
+      return FilterLoop<5>(y, mu, phi, rv, pm, sums, resid, ratio);
+    default:
+      return FilterLoop<6>(y, mu, phi, rv, pm, sums, resid, ratio);
   }
 }
 
@@ -475,8 +479,8 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
       message = absl::StrCat("optimizer stopped: ", e.what());
       res = nlopt::ROUNDOFF_LIMITED;
     }
-    converged = res == nlopt::SUCCESS || res == nlopt::FTOL_REACHED ||
-                res == nlopt::XTOL_REACHED || res == nlopt::ROUNDOFF_LIMITED;
+    converged = res == nlopt::SUCCESS || res == nlopt::FTOL_REACHED || res == nlopt::XTOL_REACHED ||
+                res == nlopt::ROUNDOFF_LIMITED;
     evaluations = pr.evaluations;
     double ar[kMaxArmaOrder], ma[kMaxArmaOrder];
     Decode(pr, x.data(), &est.mu, ar, ma);
@@ -484,7 +488,8 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
     est.ma.assign(ma, ma + q);
     FilterSums sums;
     if (!RunFilter(y, est.mu, ar, p, ma, q, &sums, nullptr, nullptr)) {
-      return absl::InternalError(absl::StrCat("ARMA(", p, ",", q, ") likelihood failed at the optimum"));
+      return absl::InternalError(
+          absl::StrCat("ARMA(", p, ",", q, ") likelihood failed at the optimum"));
     }
     est.sigma2 = sums.sum_sq / n;
   }
@@ -579,8 +584,8 @@ absl::StatusOr<std::vector<double>> ArmaStandardErrors(absl::Span<const double> 
         th[j] += sj[c] * h[j];
         absl::StatusOr<double> f = eval(th);
         if (!f.ok()) {
-          return absl::FailedPreconditionError(absl::StrCat(
-              "numerical Hessian left the admissible region: ", f.status().message()));
+          return absl::FailedPreconditionError(
+              absl::StrCat("numerical Hessian left the admissible region: ", f.status().message()));
         }
         acc += si[c] * sj[c] * *f;
       }
@@ -602,9 +607,8 @@ absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int ma
                                               InfoCriterion criterion,
                                               const ArmaFitOptions& options) {
   if (max_p < 0 || max_q < 0 || max_p > kMaxArmaOrder || max_q > kMaxArmaOrder) {
-    return absl::InvalidArgumentError(absl::StrCat("maximum ARMA orders must be in 0..",
-                                                   kMaxArmaOrder, " (got ", max_p, ",", max_q,
-                                                   ")"));
+    return absl::InvalidArgumentError(absl::StrCat(
+        "maximum ARMA orders must be in 0..", kMaxArmaOrder, " (got ", max_p, ",", max_q, ")"));
   }
   if (absl::Status s = ValidateSeries(y, MinObs(0, 0), true); !s.ok()) return s;
   ArmaSelection out;

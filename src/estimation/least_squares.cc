@@ -1,8 +1,7 @@
 #include "aftershock/least_squares.h"
 
-#include <cmath>
-
 #include <Eigen/Dense>
+#include <cmath>
 
 #include "absl/status/status.h"
 #include "absl/strings/str_cat.h"
@@ -13,16 +12,14 @@ absl::StatusOr<OlsResult> OrdinaryLeastSquares(absl::Span<const double> y,
                                                absl::Span<const double> x, int num_cols,
                                                const OlsOptions& options) {
   if (num_cols < 0 || (num_cols == 0 && !options.add_intercept)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("regression needs at least one regressor (got ", num_cols,
-                     " columns and no intercept)"));
+    return absl::InvalidArgumentError(absl::StrCat("regression needs at least one regressor (got ",
+                                                   num_cols, " columns and no intercept)"));
   }
   const int n = static_cast<int>(y.size());
   const int m = num_cols;
   if (x.size() != static_cast<size_t>(n) * static_cast<size_t>(m)) {
-    return absl::InvalidArgumentError(absl::StrCat("design matrix has ", x.size(),
-                                                   " entries; expected ", n, " rows x ", m,
-                                                   " columns"));
+    return absl::InvalidArgumentError(absl::StrCat(
+        "design matrix has ", x.size(), " entries; expected ", n, " rows x ", m, " columns"));
   }
   const int k = m + (options.add_intercept ? 1 : 0);
   if (n < k + 1) {
@@ -37,8 +34,8 @@ absl::StatusOr<OlsResult> OrdinaryLeastSquares(absl::Span<const double> y,
   }
   for (size_t i = 0; i < x.size(); ++i) {
     if (!std::isfinite(x[i])) {
-      return absl::InvalidArgumentError(absl::StrCat("design matrix is not finite at row ",
-                                                     i / m, ", column ", i % m));
+      return absl::InvalidArgumentError(
+          absl::StrCat("design matrix is not finite at row ", i / m, ", column ", i % m));
     }
   }
 
@@ -124,9 +121,8 @@ absl::StatusOr<OlsResult> OrdinaryLeastSquares(absl::Span<const double> y,
   }
   out.t_statistics.resize(k);
   for (int j = 0; j < k; ++j) {
-    out.t_statistics[j] = out.std_errors[j] > 0.0
-                              ? out.coefficients[j] / out.std_errors[j]
-                              : std::copysign(HUGE_VAL, out.coefficients[j]);
+    out.t_statistics[j] = out.std_errors[j] > 0.0 ? out.coefficients[j] / out.std_errors[j]
+                                                  : std::copysign(HUGE_VAL, out.coefficients[j]);
   }
   return out;
 }

@@ -1,13 +1,12 @@
 #include "aftershock/stats.h"
 
-#include <cmath>
-#include <exception>
-#include <limits>
-
 #include <boost/math/distributions/chi_squared.hpp>
 #include <boost/math/distributions/fisher_f.hpp>
 #include <boost/math/distributions/normal.hpp>
 #include <boost/math/distributions/students_t.hpp>
+#include <cmath>
+#include <exception>
+#include <limits>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/least_squares.h"
@@ -76,8 +75,8 @@ absl::Status CheckPortmanteauArgs(int n, int lags, int model_dof) {
   if (absl::Status s = CheckLags(lags, n); !s.ok()) return s;
   if (model_dof < 0 || model_dof >= lags) {
     return absl::InvalidArgumentError(absl::StrCat("model_dof must be in 0..", lags - 1,
-                                                   " so that lags - model_dof > 0 (got ",
-                                                   model_dof, " with ", lags, " lags)"));
+                                                   " so that lags - model_dof > 0 (got ", model_dof,
+                                                   " with ", lags, " lags)"));
   }
   return absl::OkStatus();
 }
@@ -132,14 +131,12 @@ double FSurvival(double x, double df1, double df2) {
 absl::Status ValidateSeries(absl::Span<const double> x, int min_obs, bool require_variance,
                             const char* what) {
   if (static_cast<int>(x.size()) < min_obs) {
-    return absl::InvalidArgumentError(absl::StrCat(what, " has ", x.size(),
-                                                   " observations; at least ", min_obs,
-                                                   " are needed"));
+    return absl::InvalidArgumentError(
+        absl::StrCat(what, " has ", x.size(), " observations; at least ", min_obs, " are needed"));
   }
   for (size_t i = 0; i < x.size(); ++i) {
     if (!std::isfinite(x[i])) {
-      return absl::InvalidArgumentError(
-          absl::StrCat(what, " has a non-finite value at index ", i));
+      return absl::InvalidArgumentError(absl::StrCat(what, " has a non-finite value at index ", i));
     }
   }
   if (require_variance) {

@@ -1,5 +1,6 @@
 #include "aftershock/arma.h"
 
+#include <Eigen/Dense>
 #include <boost/random/mersenne_twister.hpp>
 #include <boost/random/normal_distribution.hpp>
 #include <catch2/catch.hpp>
@@ -10,8 +11,6 @@
 #include <sstream>
 #include <string>
 #include <vector>
-
-#include <Eigen/Dense>
 
 #include "support/test_support.h"
 
@@ -149,9 +148,9 @@ void CompareWithStatsmodels(const std::vector<double>& y, int p, int q, const st
   REQUIRE(fit.ok());
   CHECK(fit->converged);
   CHECK(fit->nobs == ref["nobs"].get<int>());
-  CHECK(RelDiff(fit->loglik, llf) <= 1e-6);         // ARIMA(...).fit().llf
-  CHECK(RelDiff(fit->aic, ref["aic"]) <= 1e-6);     // ARIMA(...).fit().aic
-  CHECK(RelDiff(fit->bic, ref["bic"]) <= 1e-6);     // ARIMA(...).fit().bic
+  CHECK(RelDiff(fit->loglik, llf) <= 1e-6);      // ARIMA(...).fit().llf
+  CHECK(RelDiff(fit->aic, ref["aic"]) <= 1e-6);  // ARIMA(...).fit().aic
+  CHECK(RelDiff(fit->bic, ref["bic"]) <= 1e-6);  // ARIMA(...).fit().bic
   // Our optimum is at least as high as statsmodels' (up to optimizer noise).
   CHECK(fit->loglik >= llf - 1e-6 * std::fabs(llf));
   std::ostringstream msg;
@@ -163,8 +162,8 @@ void CompareWithStatsmodels(const std::vector<double>& y, int p, int q, const st
       << ", max |resid diff| " << worst_resid << "; ours mu=" << fit->params.mu;
   for (double a : fit->params.ar) msg << " ar=" << a;
   for (double m : fit->params.ma) msg << " ma=" << m;
-  msg << " sigma2=" << fit->params.sigma2 << " | theirs " << sp.dump() << " ("
-      << fit->evaluations << " evaluations)";
+  msg << " sigma2=" << fit->params.sigma2 << " | theirs " << sp.dump() << " (" << fit->evaluations
+      << " evaluations)";
   WARN(msg.str());
 }
 
@@ -191,8 +190,7 @@ TEST_CASE("ARMA(2,1) and ARMA(0,2) with constant vs statsmodels ARIMA", "[arma][
   // parameters with fixed seeds.
   CompareWithStatsmodels(SimulateArma(Params(0.0, {0.9, -0.4}, {0.5}, 1.0), 800, 99), 2, 1,
                          "simulated");
-  CompareWithStatsmodels(SimulateArma(Params(2.0, {}, {0.6, 0.3}, 0.5), 800, 7), 0, 2,
-                         "simulated");
+  CompareWithStatsmodels(SimulateArma(Params(2.0, {}, {0.6, 0.3}, 0.5), 800, 7), 0, 2, "simulated");
 }
 
 TEST_CASE("ARMA(1,1) parameters are recovered within 4 standard errors", "[arma][property]") {
@@ -253,8 +251,9 @@ TEST_CASE("order selection over the 0..2 x 0..2 grid", "[arma]") {
   for (const ArmaCandidate& c : sel_aic->candidates) CHECK(sel_aic->best.aic <= c.aic);
   for (const ArmaCandidate& c : sel->candidates) evaluations += c.evaluations;
   const double ms = std::chrono::duration<double, std::milli>(t1 - t0).count();
-  WARN("grid 0..2 x 0..2 on 2000 observations: " << ms << " ms, "
-       << evaluations << " likelihood evaluations in total (timing is informational only)");
+  WARN("grid 0..2 x 0..2 on 2000 observations: "
+       << ms << " ms, " << evaluations
+       << " likelihood evaluations in total (timing is informational only)");
 }
 
 TEST_CASE("Hannan-Rissanen starting values are close to the truth", "[arma]") {
@@ -288,6 +287,32 @@ TEST_CASE("ARMA errors are clear", "[arma]") {
   CHECK(msg(ArmaExactLogLikelihood(y, Params(0.0, {}, {}, 0.0)).status()) ==
         "sigma2 must be positive and finite (got 0)");
   CHECK(msg(SelectArmaOrder(y, 3, 6).status()) == "maximum ARMA orders must be in 0..5 (got 3,6)");
+}
+
+TEST_CASE("an exhausted budget is reported, not an error; short series limit the grid", "[arma]") {
+  const std::vector<double> y = SimulateArma(Params(0.0, {0.5}, {0.4}, 1.0), 300, 11);
+  ArmaFitOptions tiny;
+  tiny.max_evaluations = 3;
+  absl::StatusOr<ArmaFit> fit = FitArma(y, 1, 1, tiny);
+  REQUIRE(fit.ok());
+  CHECK_FALSE(fit->converged);
+  CHECK(fit->evaluations <= 5);
+  absl::StatusOr<ArmaFit> full = FitArma(y, 1, 1);
+  REQUIRE(full.ok());
+  CHECK(full->converged);
+  CHECK(full->loglik >= fit->loglik);
+
+  // 26 observations: ARMA(0,0), (0,1) and (1,0) need 20 or 24, ARMA(1,1) needs 28.
+  const std::vector<double> shorty(y.begin(), y.begin() + 26);
+  absl::StatusOr<ArmaSelection> sel = SelectArmaOrder(shorty, 1, 1);
+  REQUIRE(sel.ok());
+  REQUIRE(sel->candidates.size() == 4);
+  CHECK(sel->candidates[0].status.ok());
+  CHECK(sel->candidates[1].status.ok());
+  CHECK(sel->candidates[2].status.ok());
+  CHECK(std::string(sel->candidates[3].status.message()) ==
+        "series has 26 observations; at least 28 are needed");
+  CHECK(sel->best.params.p() + sel->best.params.q() <= 1);
 }
 
 TEST_CASE("ARMA(0,0) is the sample mean and variance", "[arma]") {

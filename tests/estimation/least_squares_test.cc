@@ -41,13 +41,11 @@ constexpr double kLongley[16][7] = {
 
 // NIST StRD Longley certified values (NIST certified values, from memory;
 // cross-checked live against numpy below so that a mistyped digit fails).
-constexpr double kCertCoef[7] = {-3482258.63459582,     15.0618722713733,
-                                 -0.358191792925910e-01, -2.02022980381683,
-                                 -1.03322686717359,      -0.511041056535807e-01,
+constexpr double kCertCoef[7] = {-3482258.63459582, 15.0618722713733,  -0.358191792925910e-01,
+                                 -2.02022980381683, -1.03322686717359, -0.511041056535807e-01,
                                  1829.15146461355};
-constexpr double kCertSd[7] = {890420.383607373,      84.9149257747669,
-                               0.334910077722432e-01, 0.488399681651699,
-                               0.214274163161675,     0.226073200069370,
+constexpr double kCertSd[7] = {890420.383607373,  84.9149257747669,  0.334910077722432e-01,
+                               0.488399681651699, 0.214274163161675, 0.226073200069370,
                                455.478499142212};
 constexpr double kCertResidualSd = 304.854073561965;
 constexpr double kCertRSquared = 0.995479004577296;
@@ -149,7 +147,8 @@ TEST_CASE("rank deficiency and bad input are clear errors", "[ols]") {
   }
   absl::StatusOr<OlsResult> fit = OrdinaryLeastSquares(y, x, 3);
   REQUIRE_FALSE(fit.ok());
-  CHECK(std::string(fit.status().message()) == "design matrix is rank deficient: rank 3 of 4 columns");
+  CHECK(std::string(fit.status().message()) ==
+        "design matrix is rank deficient: rank 3 of 4 columns");
 
   std::vector<double> xc(10, 5.0);
   fit = OrdinaryLeastSquares(y, xc, 1);

@@ -61,10 +61,10 @@ struct TableEntry {
 // quoted in PRODUCT.md section 4; the others are (e-Handbook table, from memory)
 // and are cross-checked live against scipy.stats.chi2.ppf below.
 const TableEntry kChiSquareTable[] = {
-    {1, 0.10, 2.706},   {1, 0.05, 3.841},   {1, 0.01, 6.635},   {1, 0.001, 10.828},
-    {2, 0.05, 5.991},   {2, 0.01, 9.210},   {3, 0.05, 7.815},   {5, 0.05, 11.070},
-    {5, 0.01, 15.086},  {10, 0.10, 15.987}, {10, 0.05, 18.307}, {10, 0.025, 20.483},
-    {10, 0.01, 23.209}, {10, 0.001, 29.588}, {20, 0.05, 31.410}, {30, 0.05, 43.773},
+    {1, 0.10, 2.706},   {1, 0.05, 3.841},     {1, 0.01, 6.635},   {1, 0.001, 10.828},
+    {2, 0.05, 5.991},   {2, 0.01, 9.210},     {3, 0.05, 7.815},   {5, 0.05, 11.070},
+    {5, 0.01, 15.086},  {10, 0.10, 15.987},   {10, 0.05, 18.307}, {10, 0.025, 20.483},
+    {10, 0.01, 23.209}, {10, 0.001, 29.588},  {20, 0.05, 31.410}, {30, 0.05, 43.773},
     {30, 0.01, 50.892}, {100, 0.05, 124.342},
 };
 
@@ -120,8 +120,7 @@ TEST_CASE("chi-square quantiles match the e-Handbook critical-value table", "[di
     CHECK(std::fabs(ours - ref) <= 1e-10 * std::max(1.0, std::fabs(ref)));
   }
   for (size_t k = 0; k < pts["t_cdf"].size(); ++k) {  // scipy.stats.t.cdf
-    CHECK(RelDiff(StudentTCdf(pts["t_cdf"][k][0], pts["t_cdf"][k][1]), out["t_cdf"][k]) <=
-          1e-10);
+    CHECK(RelDiff(StudentTCdf(pts["t_cdf"][k][0], pts["t_cdf"][k][1]), out["t_cdf"][k]) <= 1e-10);
   }
 }
 
@@ -242,13 +241,13 @@ TEST_CASE("ACF, PACF, Ljung-Box, McLeod-Li, ARCH-LM, Jarque-Bera, sign bias vs s
   }
   CHECK(RelDiff(sb->joint_statistic, rsb["joint"]) <= 1e-6);
   CHECK(RelDiff(sb->joint_p_value, rsb["joint_p"]) <= 1e-6);
-  WARN("LB(10) Q=" << lb->statistic << " p=" << lb->p_value << "; LB(10, dof 2) Q="
-                   << lb_dof->statistic << "; LB(10, dof 2) on errors Q=" << lb_z->statistic
-                   << " p=" << lb_z->p_value << "; McLeod-Li Q=" << ml->statistic
-                   << " p=" << ml->p_value << "; ARCH-LM(5) LM=" << arch->lm_statistic
-                   << " p=" << arch->lm_p_value << " F=" << arch->f_statistic << "; JB="
-                   << jb->statistic << "; sign-bias joint=" << sb->joint_statistic
-                   << " p=" << sb->joint_p_value);
+  WARN("LB(10) Q=" << lb->statistic << " p=" << lb->p_value
+                   << "; LB(10, dof 2) Q=" << lb_dof->statistic
+                   << "; LB(10, dof 2) on errors Q=" << lb_z->statistic << " p=" << lb_z->p_value
+                   << "; McLeod-Li Q=" << ml->statistic << " p=" << ml->p_value
+                   << "; ARCH-LM(5) LM=" << arch->lm_statistic << " p=" << arch->lm_p_value
+                   << " F=" << arch->f_statistic << "; JB=" << jb->statistic
+                   << "; sign-bias joint=" << sb->joint_statistic << " p=" << sb->joint_p_value);
 }
 
 TEST_CASE("Jarque-Bera and Ljung-Box by hand on a tiny series", "[stats]") {
@@ -282,8 +281,10 @@ TEST_CASE("bad input is a clear error", "[stats]") {
         "max_lag must be in 1..49 for 50 observations (got 60)");
   CHECK(Message(LjungBox(x, 5, 5).status()) ==
         "model_dof must be in 0..4 so that lags - model_dof > 0 (got 5 with 5 lags)");
-  CHECK(Message(ArchLm(x, 30).status()) == "ARCH-LM lags must be in 1..24 for 50 observations (got 30)");
-  CHECK(Message(ArchLm(x, 0).status()) == "ARCH-LM lags must be in 1..24 for 50 observations (got 0)");
+  CHECK(Message(ArchLm(x, 30).status()) ==
+        "ARCH-LM lags must be in 1..24 for 50 observations (got 30)");
+  CHECK(Message(ArchLm(x, 0).status()) ==
+        "ARCH-LM lags must be in 1..24 for 50 observations (got 0)");
   CHECK(Message(ArchLm(x, 2, 48).status()) == "ddof must be in 0..47 (got 48)");
   std::vector<double> pm(40);
   for (int i = 0; i < 40; ++i) pm[i] = i % 2 ? 1.0 : -1.0;
