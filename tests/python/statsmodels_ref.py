@@ -14,9 +14,10 @@ MODE "stats": input {"x": [...], "lags": h, "model_df": d, "arch_lags": m,
 MODE "chi2": input {"cases": [[df, upper_tail_prob], ...]}; scipy.stats.chi2.ppf(1 - a, df)
   plus a set of distribution values (chi2.sf, f.sf, norm.cdf/ppf, t.cdf) at
   input "points".
-MODE "arma": input {"y": [...], "p": p, "q": q}; statsmodels.tsa.arima.model.ARIMA(y,
-  order=(p,0,q), trend="c").fit(): params, llf, aic, bic, nobs and the one-step
-  prediction errors (resid) at the fitted parameters.
+MODE "arma": input {"jobs": [{"y": [...], "p": p, "q": q}, ...]}; for each job
+  statsmodels.tsa.arima.model.ARIMA(y, order=(p,0,q), trend="c").fit(): params,
+  llf, aic, bic, nobs and the one-step prediction errors (resid) at the fitted
+  parameters; output {"results": [...]} in job order.
 """
 import json
 import sys
@@ -92,18 +93,21 @@ def chi2_mode(d):
 def arma_mode(d):
     from statsmodels.tsa.arima.model import ARIMA
 
-    y = np.asarray(d["y"], dtype=float)
-    res = ARIMA(y, order=(int(d["p"]), 0, int(d["q"])), trend="c").fit()
-    out = versions()
-    # Parameter order: const (the mean), ar.L1.., ma.L1.., sigma2.
-    out["params"] = [float(v) for v in res.params]
-    out["param_names"] = list(res.param_names)
-    out["llf"] = float(res.llf)
-    out["aic"] = float(res.aic)
-    out["bic"] = float(res.bic)
-    out["nobs"] = int(res.nobs)
-    out["resid"] = np.asarray(res.resid, dtype=float).tolist()
-    return out
+    results = []
+    for job in d["jobs"]:
+        y = np.asarray(job["y"], dtype=float)
+        res = ARIMA(y, order=(int(job["p"]), 0, int(job["q"])), trend="c").fit()
+        out = versions()
+        # Parameter order: const (the mean), ar.L1.., ma.L1.., sigma2.
+        out["params"] = [float(v) for v in res.params]
+        out["param_names"] = list(res.param_names)
+        out["llf"] = float(res.llf)
+        out["aic"] = float(res.aic)
+        out["bic"] = float(res.bic)
+        out["nobs"] = int(res.nobs)
+        out["resid"] = np.asarray(res.resid, dtype=float).tolist()
+        results.append(out)
+    return {"results": results}
 
 
 def main():
