@@ -473,11 +473,17 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
     try {
       res = opt.optimize(x, fval);
       message = absl::StrCat("nlopt result code ", static_cast<int>(res));
-    } catch (const std::exception& e) {
-      // NLopt reports round-off limited stops as exceptions; x then holds the
-      // best point found, which is still a valid parameter vector.
-      message = absl::StrCat("optimizer stopped: ", e.what());
+    } catch (const nlopt::roundoff_limited& e) {
+      // Round-off limited stops arrive as exceptions; x then holds the best
+      // point found, which is still a valid parameter vector, at the optimum
+      // to machine precision.
+      message = absl::StrCat("optimizer stopped (round-off limited): ", e.what());
       res = nlopt::ROUNDOFF_LIMITED;
+    } catch (const std::exception& e) {
+      // Any other failure: x holds the best point found (or the start); the fit
+      // is reported as not converged.
+      message = absl::StrCat("optimizer failed: ", e.what());
+      res = nlopt::FAILURE;
     }
     converged = res == nlopt::SUCCESS || res == nlopt::FTOL_REACHED || res == nlopt::XTOL_REACHED ||
                 res == nlopt::ROUNDOFF_LIMITED;

@@ -273,6 +273,7 @@ TEST_CASE("Hannan-Rissanen starting values are close to the truth", "[arma]") {
 TEST_CASE("ARMA errors are clear", "[arma]") {
   const std::vector<double> y = SimulateArma(Params(0.0, {0.5}, {}, 1.0), 200, 1);
   const auto msg = [](const absl::Status& s) { return std::string(s.message()); };
+  CHECK(absl::IsInvalidArgument(FitArma(y, 6, 0).status()));
   CHECK(msg(FitArma(y, 6, 0).status()) == "ARMA orders must be in 0..5 (got p=6, q=0)");
   CHECK(msg(FitArma(y, 0, -1).status()) == "ARMA orders must be in 0..5 (got p=0, q=-1)");
   CHECK(msg(FitArma(std::vector<double>(y.begin(), y.begin() + 25), 1, 1).status()) ==

@@ -266,6 +266,8 @@ TEST_CASE("Jarque-Bera and Ljung-Box by hand on a tiny series", "[stats]") {
 
 TEST_CASE("bad input is a clear error", "[stats]") {
   const std::vector<double> x = WhiteNoise(50, 7);
+  CHECK(absl::IsInvalidArgument(LjungBox(x, 0).status()));
+  CHECK(absl::IsInvalidArgument(JarqueBera(std::vector<double>(20, 1.5)).status()));
   CHECK(Message(LjungBox(std::vector<double>{1.0, 2.0}, 1).status()) ==
         "series has 2 observations; at least 3 are needed");
   std::vector<double> bad = x;
