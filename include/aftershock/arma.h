@@ -75,7 +75,7 @@ struct ArmaFit {
   double aic = 0.0;               // -2 loglik + 2 (p + q + 2)
   double bic = 0.0;               // -2 loglik + log(n) (p + q + 2)
   std::vector<double> residuals;  // one-step prediction errors at params; n entries
-  bool converged = false;         // optimizer stopped on a tolerance, not on the budget
+  bool converged = false;         // stopped on a tolerance or round-off limit, not the budget
   int evaluations = 0;            // likelihood evaluations used
   std::string optimizer_message;  // how the optimizer stopped
 };
@@ -124,7 +124,12 @@ struct ArmaSelection {
 
 // Fits every ARMA(p,q) with p <= max_p, q <= max_q and keeps the converged fit
 // with the smallest criterion (a fit that did not converge is still eligible
-// when no candidate converged). REQUIRES: 0 <= max_p, max_q <= 5. Errors when
+// when no candidate converged). The long autoregression is shared, and each
+// candidate also starts from its fitted neighbours (p-1,q) and (p,q-1), padded
+// with zeros, when they have a higher likelihood than the Hannan-Rissanen
+// values; so a larger model's log-likelihood is never below a nested
+// neighbour's (up to the tolerance). Candidates too large for the series carry
+// their error in ArmaCandidate::status. REQUIRES: 0 <= max_p, max_q <= 5. Errors when
 // no candidate could be fitted at all.
 absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int max_p, int max_q,
                                               InfoCriterion criterion = InfoCriterion::kAic,
