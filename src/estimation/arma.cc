@@ -1,0 +1,672 @@
+#include "aftershock/arma.h"
+
+#include <Eigen/Dense>
+#include <algorithm>
+#include <array>
+#include <cmath>
+#include <exception>
+#include <limits>
+#include <map>
+#include <nlopt.hpp>
+#include <utility>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/least_squares.h"
+#include "aftershock/model_spec.h"
+#include "aftershock/stats.h"
+
+namespace aftershock {
+namespace {
+
+constexpr int kMaxState = kMaxArmaOrder + 1;  // r = max(p, q + 1)
+constexpr double kLog2Pi = 1.8378770664093454836;
+// Bound of the unconstrained coordinates; u / sqrt(1 + u^2) at 200 is 0.99999.
+constexpr double kMaxUnconstrained = 200.0;
+// The filter switches to the steady-state gain once trace(P_t - R R') falls
+// below this (P_t - R R' is positive semi-definite, so every entry is bounded).
+constexpr double kSteadyTolerance = 1e-14;
+
+absl::Status CheckOrders(int p, int q) {
+  if (p < 0 || q < 0 || p > kMaxArmaOrder || q > kMaxArmaOrder) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("ARMA orders must be in 0..", kMaxArmaOrder, " (got p=", p, ", q=", q, ")"));
+  }
+  return absl::OkStatus();
+}
+
+int MinObs(int p, int q) { return 20 + 4 * (p + q); }
+
+// Partial autocorrelations of the polynomial 1 - sum a_i z^i by the reverse
+// Durbin-Levinson recursion; false when some |r_k| >= 1 (not stationary).
+bool ToPartials(const std::vector<double>& a, std::vector<double>* r) {
+  const int p = static_cast<int>(a.size());
+  std::vector<double> cur = a;
+  r->assign(p, 0.0);
+  for (int k = p; k >= 1; --k) {
+    const double rk = cur[k - 1];
+    if (!(std::fabs(rk) < 1.0)) return false;
+    (*r)[k - 1] = rk;
+    std::vector<double> next(k - 1);
+    const double d = 1.0 - rk * rk;
+    for (int j = 0; j < k - 1; ++j) next[j] = (cur[j] + rk * cur[k - 2 - j]) / d;
+    cur = std::move(next);
+  }
+  return true;
+}
+
+// Forward Durbin-Levinson: partials (|r| < 1) to stationary coefficients.
+void FromPartials(const double* r, int p, double* a) {
+  std::array<double, kMaxArmaOrder> prev{};
+  for (int k = 0; k < p; ++k) {
+    a[k] = r[k];
+    for (int j = 0; j < k; ++j) a[j] = prev[j] - r[k] * prev[k - 1 - j];
+    for (int j = 0; j <= k; ++j) prev[j] = a[j];
+  }
+}
+
+bool Stationary(const std::vector<double>& a) {
+  std::vector<double> r;
+  return ToPartials(a, &r);
+}
+
+std::vector<double> Negated(const std::vector<double>& v) {
+  std::vector<double> out(v.size());
+  for (size_t i = 0; i < v.size(); ++i) out[i] = -v[i];
+  return out;
+}
+
+// The MA polynomial 1 + sum m_j z^j is invertible iff the "AR" coefficients
+// -m are stationary.
+bool Invertible(const std::vector<double>& ma) { return Stationary(Negated(ma)); }
+
+// Multiplies coefficient j (1-based) by 0.9^j until the polynomial is valid.
+void ShrinkUntil(std::vector<double>* c, bool (*valid)(const std::vector<double>&)) {
+  for (int it = 0; it < 200 && !valid(*c); ++it) {
+    double f = 1.0;
+    for (double& v : *c) {
+      f *= 0.9;
+      v *= f;
+    }
+  }
+  if (!valid(*c)) std::fill(c->begin(), c->end(), 0.0);
+}
+
+// Sums over the sample of log F_t and of v_t^2 / F_t (filter at sigma2 = 1).
+struct FilterSums {
+  double sum_log_f = 0.0;
+  double sum_sq = 0.0;
+};
+
+// The filter proper for state dimension R (a compile-time constant so the
+// small loops unroll). pm holds the stationary P_0 (row-major R x R).
+template <int R>
+bool FilterLoop(absl::Span<const double> y, double mu, const std::array<double, kMaxState>& phi,
+                const std::array<double, kMaxState>& rv,
+                std::array<double, kMaxState * kMaxState> pm, FilterSums* sums,
+                std::vector<double>* resid, std::vector<double>* ratio) {
+  const int n = static_cast<int>(y.size());
+  double st[R] = {}, gain[R] = {}, tp0[R] = {}, m[R * R];
+  double sum_log_f = 0.0, sum_sq = 0.0;
+  int t = 0;
+  for (; t < n; ++t) {
+    const double v = y[t] - mu - st[0];
+    const double f = pm[0];
+    if (!(f > 0.0) || !std::isfinite(f)) return false;
+    sum_log_f += std::log(f);
+    sum_sq += v * v / f;
+    if (resid) (*resid)[t] = v;
+    if (ratio) (*ratio)[t] = f;
+    // M = T P; (T P)_{i.} = phi_i P_{0.} + P_{i+1,.}.
+    for (int i = 0; i < R; ++i) {
+      for (int j = 0; j < R; ++j) {
+        m[i * R + j] = phi[i] * pm[j] + (i + 1 < R ? pm[(i + 1) * R + j] : 0.0);
+      }
+    }
+    for (int i = 0; i < R; ++i) tp0[i] = m[i * R];  // T P Z'
+    const double s0 = st[0];
+    for (int i = 0; i < R; ++i) {
+      st[i] = phi[i] * s0 + (i + 1 < R ? st[i + 1] : 0.0) + tp0[i] / f * v;
+    }
+    // P_{t+1} = M T' + R R' - K K' f, with (M T')_{ij} = phi_j M_{i0} + M_{i,j+1}.
+    double excess = 0.0;
+    for (int i = 0; i < R; ++i) {
+      for (int j = 0; j < R; ++j) {
+        const double mt = phi[j] * m[i * R] + (j + 1 < R ? m[i * R + j + 1] : 0.0);
+        pm[i * R + j] = mt + rv[i] * rv[j] - tp0[i] * tp0[j] / f;
+      }
+      excess += pm[i * R + i] - rv[i] * rv[i];
+    }
+    if (excess < kSteadyTolerance) {
+      ++t;
+      break;
+    }
+  }
+  // Steady state: F = 1 and the gain is T R, so a_{t+1} = T a_t + T R v_t.
+  for (int i = 0; i < R; ++i) gain[i] = phi[i] + (i + 1 < R ? rv[i + 1] : 0.0);
+  for (; t < n; ++t) {
+    const double v = y[t] - mu - st[0];
+    sum_sq += v * v;
+    if (resid) (*resid)[t] = v;
+    if (ratio) (*ratio)[t] = 1.0;
+    const double s0 = st[0];
+    for (int i = 0; i < R; ++i) st[i] = phi[i] * s0 + (i + 1 < R ? st[i + 1] : 0.0) + gain[i] * v;
+  }
+  sums->sum_log_f = sum_log_f;
+  sums->sum_sq = sum_sq;
+  return std::isfinite(sum_sq) && std::isfinite(sum_log_f);
+}
+
+// Exact filter at sigma2 = 1 for validated parameters (stationary AR,
+// invertible MA). Fills the sums and optionally the errors and variance ratios.
+bool RunFilter(absl::Span<const double> y, double mu, const double* ar, int p, const double* ma,
+               int q, FilterSums* sums, std::vector<double>* resid, std::vector<double>* ratio) {
+  const int r = std::max(p, q + 1);
+  std::array<double, kMaxState> phi{}, rv{};
+  for (int i = 0; i < p; ++i) phi[i] = ar[i];
+  rv[0] = 1.0;
+  for (int j = 0; j < q; ++j) rv[j + 1] = ma[j];
+
+  // Stationary state covariance: (I - T (x) T) vec(P) = vec(R R').
+  std::array<double, kMaxState * kMaxState> pm{};
+  if (r == 1) {
+    pm[0] = 1.0 / (1.0 - phi[0] * phi[0]);
+  } else {
+    using Mat = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, 0, kMaxState * kMaxState,
+                              kMaxState * kMaxState>;
+    using Vec = Eigen::Matrix<double, Eigen::Dynamic, 1, 0, kMaxState * kMaxState, 1>;
+    const auto tm = [&](int i, int k) { return k == 0 ? phi[i] : (k == i + 1 ? 1.0 : 0.0); };
+    const int r2 = r * r;
+    Mat a = Mat::Identity(r2, r2);
+    Vec b(r2);
+    for (int i = 0; i < r; ++i) {
+      for (int j = 0; j < r; ++j) {
+        b(i * r + j) = rv[i] * rv[j];
+        for (int k = 0; k < r; ++k) {
+          const double tik = tm(i, k);
+          if (tik == 0.0) continue;
+          for (int l = 0; l < r; ++l) a(i * r + j, k * r + l) -= tik * tm(j, l);
+        }
+      }
+    }
+    Vec sol = a.partialPivLu().solve(b);
+    for (int i = 0; i < r2; ++i) pm[i] = sol(i);
+  }
+  switch (r) {
+    case 1:
+      return FilterLoop<1>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 2:
+      return FilterLoop<2>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 3:
+      return FilterLoop<3>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 4:
+      return FilterLoop<4>(y, mu, phi, rv, pm, sums, resid, ratio);
+    case 5:
+      return FilterLoop<5>(y, mu, phi, rv, pm, sums, resid, ratio);
+    default:
+      return FilterLoop<6>(y, mu, phi, rv, pm, sums, resid, ratio);
+  }
+}
+
+absl::Status ValidateParams(const ArmaParams& params) {
+  if (absl::Status s = CheckOrders(params.p(), params.q()); !s.ok()) return s;
+  if (!std::isfinite(params.mu)) return absl::InvalidArgumentError("mu is not finite");
+  for (double v : params.ar) {
+    if (!std::isfinite(v)) return absl::InvalidArgumentError("an AR coefficient is not finite");
+  }
+  for (double v : params.ma) {
+    if (!std::isfinite(v)) return absl::InvalidArgumentError("an MA coefficient is not finite");
+  }
+  if (!(params.sigma2 > 0.0) || !std::isfinite(params.sigma2)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("sigma2 must be positive and finite (got ", params.sigma2, ")"));
+  }
+  if (!Stationary(params.ar)) {
+    return absl::InvalidArgumentError("AR coefficients are not stationary");
+  }
+  if (!Invertible(params.ma)) {
+    return absl::InvalidArgumentError("MA coefficients are not invertible");
+  }
+  return absl::OkStatus();
+}
+
+// Long-autoregression residuals (first Hannan-Rissanen stage): entries before
+// index m are undefined (0). The regression on a constant and m lags is solved
+// by the normal equations (Cholesky of the centred cross-product, a blocked
+// matrix product): these residuals only seed the starting values, and this is
+// several times faster than the pivoted QR of OrdinaryLeastSquares, which
+// remains the fallback when the cross-product is not positive definite.
+absl::StatusOr<std::vector<double>> LongArResiduals(absl::Span<const double> y, int m) {
+  const int n = static_cast<int>(y.size());
+  const int rows = n - m;
+  double mean = 0.0;
+  for (double v : y) mean += v;
+  mean /= n;
+  Eigen::MatrixXd x(rows, m);
+  Eigen::VectorXd yy(rows);
+  for (int t = 0; t < rows; ++t) {
+    yy(t) = y[t + m] - mean;
+    for (int j = 1; j <= m; ++j) x(t, j - 1) = y[t + m - j] - mean;
+  }
+  // Exact centring of every column makes the intercept drop out.
+  const Eigen::RowVectorXd xbar = x.colwise().mean();
+  x.rowwise() -= xbar;
+  const double ybar = yy.mean();
+  yy.array() -= ybar;
+  Eigen::MatrixXd xtx(m, m);
+  xtx.setZero();
+  xtx.selfadjointView<Eigen::Lower>().rankUpdate(x.transpose());
+  Eigen::LLT<Eigen::MatrixXd> llt(xtx.selfadjointView<Eigen::Lower>());
+  std::vector<double> e(n, 0.0);
+  if (llt.info() == Eigen::Success) {
+    const Eigen::VectorXd b = llt.solve(x.transpose() * yy);
+    if (b.allFinite()) {
+      const Eigen::VectorXd res = yy - x * b;
+      for (int t = 0; t < rows; ++t) e[t + m] = res(t);
+      return e;
+    }
+  }
+  std::vector<double> yv(rows), xv(static_cast<size_t>(rows) * m);
+  for (int t = 0; t < rows; ++t) {
+    yv[t] = y[t + m];
+    for (int j = 1; j <= m; ++j) xv[static_cast<size_t>(t) * m + j - 1] = y[t + m - j];
+  }
+  absl::StatusOr<OlsResult> ols = OrdinaryLeastSquares(yv, xv, m);
+  if (!ols.ok()) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("Hannan-Rissanen long autoregression failed: ", ols.status().message()));
+  }
+  for (int t = 0; t < rows; ++t) e[t + m] = ols->residuals[t];
+  return e;
+}
+
+int LongArOrder(int n, int p, int q, const ArmaFitOptions& options) {
+  if (options.long_ar_order > 0) return options.long_ar_order;
+  return std::max(1, std::min(std::max(20, 2 * std::max(p, q)), n / 4));
+}
+
+absl::StatusOr<ArmaParams> HannanRissanenImpl(absl::Span<const double> y, int p, int q,
+                                              const std::vector<double>* long_resid, int m) {
+  const int n = static_cast<int>(y.size());
+  double mean = 0.0;
+  for (double v : y) mean += v;
+  mean /= n;
+  ArmaParams out;
+  out.mu = mean;
+  out.ar.assign(p, 0.0);
+  out.ma.assign(q, 0.0);
+  if (p + q == 0) {
+    double s = 0.0;
+    for (double v : y) s += (v - mean) * (v - mean);
+    out.sigma2 = s / n;
+    return out;
+  }
+  // q == 0: ordinary least squares on p lags; otherwise the residuals of the
+  // long autoregression enter as regressors from index m on.
+  const int start = q == 0 ? p : m + std::max(p, q);
+  const int rows = n - start;
+  const int k = p + q;
+  if (rows < k + 2) {
+    return absl::InvalidArgumentError(absl::StrCat("series too short for ARMA(", p, ",", q,
+                                                   ") starting values (", n, " observations)"));
+  }
+  std::vector<double> yy(rows), x(static_cast<size_t>(rows) * k);
+  for (int t = 0; t < rows; ++t) {
+    const int s = t + start;
+    yy[t] = y[s];
+    for (int i = 1; i <= p; ++i) x[static_cast<size_t>(t) * k + i - 1] = y[s - i];
+    for (int j = 1; j <= q; ++j) x[static_cast<size_t>(t) * k + p + j - 1] = (*long_resid)[s - j];
+  }
+  absl::StatusOr<OlsResult> ols = OrdinaryLeastSquares(yy, x, k);
+  if (!ols.ok()) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("Hannan-Rissanen regression failed: ", ols.status().message()));
+  }
+  for (int i = 0; i < p; ++i) out.ar[i] = ols->coefficients[1 + i];
+  for (int j = 0; j < q; ++j) out.ma[j] = ols->coefficients[1 + p + j];
+  ShrinkUntil(&out.ar, &Stationary);
+  ShrinkUntil(&out.ma, &Invertible);
+  out.sigma2 = ols->rss / rows;
+  return out;
+}
+
+absl::Status CheckFitInput(absl::Span<const double> y, int p, int q) {
+  if (absl::Status s = CheckOrders(p, q); !s.ok()) return s;
+  return ValidateSeries(y, MinObs(p, q), true);
+}
+
+// Unconstrained coordinates of the optimizer: [(mu - mean) / sd, u_ar, u_ma],
+// partial autocorrelation r = u / sqrt(1 + u^2).
+struct Problem {
+  absl::Span<const double> y;
+  int p = 0, q = 0;
+  double mean = 0.0, sd = 1.0;
+  int evaluations = 0;
+};
+
+double ToPartial(double u) { return u / std::sqrt(1.0 + u * u); }
+double FromPartial(double r) { return r / std::sqrt(1.0 - r * r); }
+
+void Decode(const Problem& pr, const double* x, double* mu, double* ar, double* ma) {
+  *mu = pr.mean + pr.sd * x[0];
+  std::array<double, kMaxArmaOrder> r{};
+  for (int i = 0; i < pr.p; ++i) r[i] = ToPartial(x[1 + i]);
+  FromPartials(r.data(), pr.p, ar);
+  for (int j = 0; j < pr.q; ++j) r[j] = ToPartial(x[1 + pr.p + j]);
+  FromPartials(r.data(), pr.q, ma);
+  for (int j = 0; j < pr.q; ++j) ma[j] = -ma[j];
+}
+
+// Concentrated log-likelihood (sigma2 = sum v^2/F / n) per observation.
+double ConcentratedLoglikPerObs(const FilterSums& s, int n) {
+  const double sigma2 = s.sum_sq / n;
+  return -0.5 * (kLog2Pi + std::log(sigma2) + 1.0) - 0.5 * s.sum_log_f / n;
+}
+
+double Objective(unsigned dim, const double* x, double* grad, void* data) {
+  auto* pr = static_cast<Problem*>(data);
+  ++pr->evaluations;
+  double mu, ar[kMaxArmaOrder], ma[kMaxArmaOrder];
+  Decode(*pr, x, &mu, ar, ma);
+  FilterSums sums;
+  if (!RunFilter(pr->y, mu, ar, pr->p, ma, pr->q, &sums, nullptr, nullptr) ||
+      !(sums.sum_sq > 0.0)) {
+    return 1e10;
+  }
+  return -ConcentratedLoglikPerObs(sums, static_cast<int>(pr->y.size()));
+}
+
+ArmaFit FinishFit(absl::Span<const double> y, const ArmaParams& params, const ArmaParams& start,
+                  const ArmaFilterOutput& f) {
+  ArmaFit fit;
+  fit.nobs = static_cast<int>(y.size());
+  fit.params = params;
+  fit.start = start;
+  fit.loglik = f.loglik;
+  const double k = params.p() + params.q() + 2.0;
+  fit.aic = -2.0 * f.loglik + 2.0 * k;
+  fit.bic = -2.0 * f.loglik + std::log(static_cast<double>(fit.nobs)) * k;
+  fit.residuals = f.residuals;
+  return fit;
+}
+
+// Unconstrained coordinates of a valid parameter set (mu, ar, ma used).
+std::vector<double> Encode(const Problem& pr, const ArmaParams& a) {
+  std::vector<double> x(1 + pr.p + pr.q, 0.0);
+  x[0] = (a.mu - pr.mean) / pr.sd;
+  std::vector<double> partials;
+  ToPartials(a.ar, &partials);
+  for (int i = 0; i < pr.p; ++i) x[1 + i] = FromPartial(partials[i]);
+  ToPartials(Negated(a.ma), &partials);
+  for (int j = 0; j < pr.q; ++j) x[1 + pr.p + j] = FromPartial(partials[j]);
+  x[0] = std::clamp(x[0], -9.0, 9.0);
+  for (double& v : x) v = std::clamp(v, -0.9 * kMaxUnconstrained, 0.9 * kMaxUnconstrained);
+  return x;
+}
+
+// Fits ARMA(p,q) from the better (by likelihood) of the Hannan-Rissanen values
+// and the `warm` parameter sets, which are zero-padded to the orders (a smaller
+// model's optimum is a point of the larger model with the same likelihood).
+absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
+                                    const ArmaFitOptions& options,
+                                    std::map<int, std::vector<double>>* long_cache,
+                                    const std::vector<ArmaParams>& warm = {}) {
+  const int n = static_cast<int>(y.size());
+  const int m = LongArOrder(n, p, q, options);
+  const std::vector<double>* long_resid = nullptr;
+  if (q > 0) {
+    auto it = long_cache->find(m);
+    if (it == long_cache->end()) {
+      absl::StatusOr<std::vector<double>> e = LongArResiduals(y, m);
+      if (!e.ok()) return e.status();
+      it = long_cache->emplace(m, *std::move(e)).first;
+    }
+    long_resid = &it->second;
+  }
+  absl::StatusOr<ArmaParams> start = HannanRissanenImpl(y, p, q, long_resid, m);
+  if (!start.ok()) return start.status();
+
+  double mean = start->mu, var = 0.0;
+  for (double v : y) var += (v - mean) * (v - mean);
+  var /= n;
+
+  ArmaParams est = *start;
+  bool converged = true;
+  int evaluations = 0;
+  std::string message = "closed form";
+  if (p + q > 0) {
+    Problem pr;
+    pr.y = y;
+    pr.p = p;
+    pr.q = q;
+    pr.mean = mean;
+    pr.sd = std::sqrt(var);
+    const int dim = 1 + p + q;
+    std::vector<double> x = Encode(pr, *start);
+    double best = Objective(dim, x.data(), nullptr, &pr);
+    for (const ArmaParams& w : warm) {
+      if (w.p() > p || w.q() > q) continue;
+      ArmaParams padded = w;
+      padded.ar.resize(p, 0.0);
+      padded.ma.resize(q, 0.0);
+      if (!Stationary(padded.ar) || !Invertible(padded.ma)) continue;
+      std::vector<double> xw = Encode(pr, padded);
+      const double fw = Objective(dim, xw.data(), nullptr, &pr);
+      if (fw < best) {
+        best = fw;
+        x = std::move(xw);
+      }
+    }
+    nlopt::opt opt(nlopt::LN_BOBYQA, dim);
+    std::vector<double> lb(dim, -kMaxUnconstrained), ub(dim, kMaxUnconstrained);
+    lb[0] = -10.0;  // mu within 10 sample standard deviations of the mean
+    ub[0] = 10.0;
+    opt.set_lower_bounds(lb);
+    opt.set_upper_bounds(ub);
+    opt.set_min_objective(&Objective, &pr);
+    opt.set_xtol_rel(options.xtol_rel);
+    opt.set_ftol_rel(options.ftol_rel);
+    opt.set_maxeval(options.max_evaluations);
+    std::vector<double> step(dim, 0.1);
+    opt.set_initial_step(step);
+    double fval = 0.0;
+    nlopt::result res = nlopt::FAILURE;
+    try {
+      res = opt.optimize(x, fval);
+      message = absl::StrCat("nlopt result code ", static_cast<int>(res));
+    } catch (const nlopt::roundoff_limited& e) {
+      // Round-off limited stops arrive as exceptions; x then holds the best
+      // point found, which is still a valid parameter vector, at the optimum
+      // to machine precision.
+      message = absl::StrCat("optimizer stopped (round-off limited): ", e.what());
+      res = nlopt::ROUNDOFF_LIMITED;
+    } catch (const std::exception& e) {
+      // Any other failure: x holds the best point found (or the start); the fit
+      // is reported as not converged.
+      message = absl::StrCat("optimizer failed: ", e.what());
+      res = nlopt::FAILURE;
+    }
+    converged = res == nlopt::SUCCESS || res == nlopt::FTOL_REACHED || res == nlopt::XTOL_REACHED ||
+                res == nlopt::ROUNDOFF_LIMITED;
+    evaluations = pr.evaluations;
+    double ar[kMaxArmaOrder], ma[kMaxArmaOrder];
+    Decode(pr, x.data(), &est.mu, ar, ma);
+    est.ar.assign(ar, ar + p);
+    est.ma.assign(ma, ma + q);
+    FilterSums sums;
+    if (!RunFilter(y, est.mu, ar, p, ma, q, &sums, nullptr, nullptr)) {
+      return absl::InternalError(
+          absl::StrCat("ARMA(", p, ",", q, ") likelihood failed at the optimum"));
+    }
+    est.sigma2 = sums.sum_sq / n;
+  }
+  absl::StatusOr<ArmaFilterOutput> f = ArmaFilter(y, est);
+  if (!f.ok()) return f.status();
+  ArmaFit fit = FinishFit(y, est, *start, *f);
+  fit.converged = converged;
+  fit.evaluations = evaluations;
+  fit.optimizer_message = message;
+  return fit;
+}
+
+}  // namespace
+
+absl::StatusOr<ArmaFilterOutput> ArmaFilter(absl::Span<const double> y, const ArmaParams& params) {
+  if (absl::Status s = ValidateParams(params); !s.ok()) return s;
+  if (absl::Status s = ValidateSeries(y, 2, false); !s.ok()) return s;
+  const int n = static_cast<int>(y.size());
+  ArmaFilterOutput out;
+  out.residuals.resize(n);
+  out.variance_ratio.resize(n);
+  FilterSums sums;
+  if (!RunFilter(y, params.mu, params.ar.data(), params.p(), params.ma.data(), params.q(), &sums,
+                 &out.residuals, &out.variance_ratio)) {
+    return absl::InvalidArgumentError("ARMA filter failed (state covariance not positive)");
+  }
+  out.loglik = -0.5 * (n * kLog2Pi + n * std::log(params.sigma2) + sums.sum_log_f +
+                       sums.sum_sq / params.sigma2);
+  return out;
+}
+
+absl::StatusOr<double> ArmaExactLogLikelihood(absl::Span<const double> y,
+                                              const ArmaParams& params) {
+  absl::StatusOr<ArmaFilterOutput> f = ArmaFilter(y, params);
+  if (!f.ok()) return f.status();
+  return f->loglik;
+}
+
+absl::StatusOr<ArmaParams> HannanRissanen(absl::Span<const double> y, int p, int q,
+                                          const ArmaFitOptions& options) {
+  if (absl::Status s = CheckFitInput(y, p, q); !s.ok()) return s;
+  const int m = LongArOrder(static_cast<int>(y.size()), p, q, options);
+  std::vector<double> e;
+  if (q > 0) {
+    absl::StatusOr<std::vector<double>> r = LongArResiduals(y, m);
+    if (!r.ok()) return r.status();
+    e = *std::move(r);
+  }
+  return HannanRissanenImpl(y, p, q, &e, m);
+}
+
+absl::StatusOr<ArmaFit> FitArma(absl::Span<const double> y, int p, int q,
+                                const ArmaFitOptions& options) {
+  if (absl::Status s = CheckFitInput(y, p, q); !s.ok()) return s;
+  std::map<int, std::vector<double>> cache;
+  return FitArmaImpl(y, p, q, options, &cache);
+}
+
+absl::StatusOr<std::vector<double>> ArmaStandardErrors(absl::Span<const double> y,
+                                                       const ArmaParams& params) {
+  if (absl::Status s = ValidateParams(params); !s.ok()) return s;
+  const int p = params.p(), q = params.q();
+  const int k = p + q + 2;
+  std::vector<double> theta;
+  theta.push_back(params.mu);
+  theta.insert(theta.end(), params.ar.begin(), params.ar.end());
+  theta.insert(theta.end(), params.ma.begin(), params.ma.end());
+  theta.push_back(params.sigma2);
+  const double sd = std::sqrt(params.sigma2);
+  std::vector<double> h(k);
+  h[0] = 1e-4 * sd;
+  for (int i = 1; i <= p + q; ++i) h[i] = 1e-4 * std::max(std::fabs(theta[i]), 0.1);
+  h[k - 1] = 1e-4 * params.sigma2;
+  auto eval = [&](const std::vector<double>& th) -> absl::StatusOr<double> {
+    ArmaParams a;
+    a.mu = th[0];
+    a.ar.assign(th.begin() + 1, th.begin() + 1 + p);
+    a.ma.assign(th.begin() + 1 + p, th.begin() + 1 + p + q);
+    a.sigma2 = th[k - 1];
+    return ArmaExactLogLikelihood(y, a);
+  };
+  Eigen::MatrixXd hess(k, k);
+  absl::StatusOr<double> f0 = eval(theta);
+  if (!f0.ok()) return f0.status();
+  for (int i = 0; i < k; ++i) {
+    for (int j = i; j < k; ++j) {
+      double acc = 0.0;
+      const int si[4] = {1, 1, -1, -1}, sj[4] = {1, -1, 1, -1};
+      for (int c = 0; c < 4; ++c) {
+        std::vector<double> th = theta;
+        th[i] += si[c] * h[i];
+        th[j] += sj[c] * h[j];
+        absl::StatusOr<double> f = eval(th);
+        if (!f.ok()) {
+          return absl::FailedPreconditionError(
+              absl::StrCat("numerical Hessian left the admissible region: ", f.status().message()));
+        }
+        acc += si[c] * sj[c] * *f;
+      }
+      hess(i, j) = hess(j, i) = acc / (4.0 * h[i] * h[j]);
+    }
+  }
+  Eigen::LLT<Eigen::MatrixXd> llt(-hess);
+  if (llt.info() != Eigen::Success) {
+    return absl::FailedPreconditionError(
+        "Hessian of the log-likelihood is not negative definite (not a maximum)");
+  }
+  Eigen::MatrixXd cov = llt.solve(Eigen::MatrixXd::Identity(k, k));
+  std::vector<double> se(k);
+  for (int i = 0; i < k; ++i) se[i] = std::sqrt(cov(i, i));
+  return se;
+}
+
+absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int max_p, int max_q,
+                                              InfoCriterion criterion,
+                                              const ArmaFitOptions& options) {
+  if (max_p < 0 || max_q < 0 || max_p > kMaxArmaOrder || max_q > kMaxArmaOrder) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "maximum ARMA orders must be in 0..", kMaxArmaOrder, " (got ", max_p, ",", max_q, ")"));
+  }
+  if (absl::Status s = ValidateSeries(y, MinObs(0, 0), true); !s.ok()) return s;
+  ArmaSelection out;
+  out.criterion = criterion;
+  std::map<int, std::vector<double>> cache;
+  std::map<std::pair<int, int>, ArmaParams> fitted;
+  bool have = false, have_converged = false;
+  double best_value = std::numeric_limits<double>::infinity();
+  for (int p = 0; p <= max_p; ++p) {
+    for (int q = 0; q <= max_q; ++q) {
+      ArmaCandidate c;
+      c.p = p;
+      c.q = q;
+      absl::StatusOr<ArmaFit> fit = absl::InvalidArgumentError("");
+      c.status = CheckFitInput(y, p, q);
+      if (c.status.ok()) {
+        // Warm starts from the fitted neighbours (p-1,q) and (p,q-1).
+        std::vector<ArmaParams> warm;
+        for (const auto& [wp, wq] : {std::pair{p - 1, q}, std::pair{p, q - 1}}) {
+          if (wp < 0 || wq < 0) continue;
+          const auto it = fitted.find({wp, wq});
+          if (it != fitted.end()) warm.push_back(it->second);
+        }
+        fit = FitArmaImpl(y, p, q, options, &cache, warm);
+        c.status = fit.status();
+      }
+      if (c.status.ok()) {
+        c.loglik = fit->loglik;
+        c.aic = fit->aic;
+        c.bic = fit->bic;
+        c.converged = fit->converged;
+        c.evaluations = fit->evaluations;
+        fitted[{p, q}] = fit->params;
+        const double value = criterion == InfoCriterion::kAic ? c.aic : c.bic;
+        // A converged candidate always beats a non-converged one.
+        const bool better = !have || (c.converged && !have_converged) ||
+                            (c.converged == have_converged && value < best_value);
+        if (better) {
+          out.best = *std::move(fit);
+          best_value = value;
+          have = true;
+          have_converged = c.converged;
+        }
+      }
+      out.candidates.push_back(std::move(c));
+    }
+  }
+  if (!have) {
+    return absl::InvalidArgumentError(absl::StrCat("no ARMA candidate could be fitted: ",
+                                                   out.candidates.front().status.message()));
+  }
+  return out;
+}
+
+}  // namespace aftershock
