@@ -3,10 +3,12 @@
 #include <string>
 
 #include "aftershock/estimator.h"
+#include "aftershock/identify.h"
 #include "aftershock/series_file.h"
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/fit_report.h"
+#include "app/identify_report.h"
 
 namespace aftershock::app {
 namespace {
@@ -14,6 +16,51 @@ namespace {
 int Fail(const absl::Status& s, int code) {
   std::fprintf(stderr, "aftershock fit: %s\n", std::string(s.message()).c_str());
   return code;
+}
+
+int RunIdentification(const ArgParser& args, const std::string& format) {
+  IdentifyOptions opt;
+  const std::string crit = args.Get("criterion");
+  if (crit != "aic" && crit != "bic") {
+    return Fail(absl::InvalidArgumentError("--criterion must be aic or bic, got '" + crit + "'"),
+                2);
+  }
+  opt.criterion = crit == "aic" ? InfoCriterion::kAic : InfoCriterion::kBic;
+  auto mo = args.GetIntList("max-mean-order");
+  if (!mo.ok()) return Fail(mo.status(), 2);
+  if (mo->size() != 2) {
+    return Fail(absl::InvalidArgumentError("--max-mean-order needs two numbers P,Q"), 2);
+  }
+  opt.max_ar = (*mo)[0];
+  opt.max_ma = (*mo)[1];
+  auto ma = args.GetInt("max-arch-order");
+  if (!ma.ok()) return Fail(ma.status(), 2);
+  opt.max_arch_order = static_cast<int>(*ma);
+  auto lags = args.GetInt("lags");
+  if (!lags.ok()) return Fail(lags.status(), 2);
+  opt.lags = static_cast<int>(*lags);
+  auto level = args.GetDouble("level");
+  if (!level.ok()) return Fail(level.status(), 2);
+  opt.level = *level;
+  auto presample = ParsePresample(args.Get("presample"));
+  if (!presample.ok()) return Fail(presample.status(), 2);
+  opt.presample = *presample;
+  auto series = ReadSeriesFile(args.Get("input"), args.Get("column"));
+  if (!series.ok()) return Fail(series.status(), 2);
+  auto rep = IdentifyModel(series->values, opt);
+  if (!rep.ok()) return Fail(rep.status(), 2);
+  if (format == "json") {
+    nlohmann::json j = IdentificationJson(*rep);
+    j["input"] = args.Get("input");
+    j["column"] = series->column;
+    j["caution"] = "statistical estimate, not advice";
+    std::fputs((j.dump(2) + "\n").c_str(), stdout);
+  } else {
+    std::string title = args.Get("input");
+    if (!series->column.empty()) title += " (column " + series->column + ")";
+    std::fputs(IdentificationText(*rep, title).c_str(), stdout);
+  }
+  return rep->final_fit.converged ? 0 : 1;
 }
 
 }  // namespace
@@ -30,14 +77,18 @@ int FitCommand(int argc, char** argv) {
       "Orders: ARMA P,Q; ARCH M; GARCH P,Q (P alpha terms, Q beta terms); GJR P,O,Q\n"
       "(O asymmetric gamma terms). Example:\n"
       "  aftershock fit --input returns.csv --mean constant --variance garch "
-      "--variance-order 1,1");
+      "--variance-order 1,1\n\n"
+      "With --mean auto --variance auto the identification pipeline runs instead: mean\n"
+      "order by the criterion, ARCH-effect tests, variance family and order by the\n"
+      "criterion (mean fixed), diagnostics, joint re-estimation; the report explains\n"
+      "each decision.");
   args.AddOption("input", "FILE", "return series (CSV with header, or one number a line)", "",
                  true);
   args.AddOption("column", "NAME", "CSV column to read (default: first numeric column)");
-  args.AddOption("mean", "KIND", "mean equation: zero | constant | arma", "constant");
+  args.AddOption("mean", "KIND", "mean equation: zero | constant | arma | auto", "constant");
   args.AddOption("mean-order", "P,Q", "ARMA orders (with --mean arma)", "1,1");
-  args.AddOption("variance", "KIND", "variance equation: constant | arch | garch | gjr | ewma",
-                 "garch");
+  args.AddOption("variance", "KIND",
+                 "variance equation: constant | arch | garch | gjr | ewma | auto", "garch");
   args.AddOption("variance-order", "ORDERS",
                  "ARCH: M; GARCH: P,Q; GJR: P,O,Q (defaults 1 / 1,1 / 1,1,1)");
   args.AddOption("innovations", "LAW", "innovation law: normal | t (standardized Student-t)",
@@ -49,6 +100,11 @@ int FitCommand(int argc, char** argv) {
   args.AddOption("ewma-lambda", "X", "decay of the EWMA variance (fixed, not estimated)",
                  "0.94");
   args.AddOption("format", "FMT", "output: text | json", "text");
+  args.AddOption("criterion", "IC", "auto: information criterion, aic | bic", "bic");
+  args.AddOption("max-mean-order", "P,Q", "auto: largest ARMA orders tried", "2,2");
+  args.AddOption("max-arch-order", "M", "auto: largest ARCH order tried", "5");
+  args.AddOption("lags", "L", "auto: lags of the Ljung-Box tests and the PACF", "10");
+  args.AddOption("level", "A", "auto: significance level of the tests", "0.05");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
     std::fputs(args.Help().c_str(), stdout);
@@ -58,6 +114,15 @@ int FitCommand(int argc, char** argv) {
   if (format != "text" && format != "json") {
     return Fail(absl::InvalidArgumentError("--format must be text or json, got '" + format + "'"),
                 2);
+  }
+  const bool auto_mean = args.Get("mean") == "auto", auto_var = args.Get("variance") == "auto";
+  if (auto_mean || auto_var) {
+    if (!(auto_mean && auto_var)) {
+      return Fail(absl::InvalidArgumentError(
+                      "automatic identification needs both --mean auto and --variance auto"),
+                  2);
+    }
+    return RunIdentification(args, format);
   }
   auto mean_order = args.GetIntList("mean-order");
   if (!mean_order.ok()) return Fail(mean_order.status(), 2);
