@@ -26,6 +26,9 @@
 //   * A tick equal in time and value to the previously accepted tick is an
 //     exact duplicate: dropped and reported as duplicate (only the last tick is
 //     remembered, so an older repeat inside the bar is counted as a tick).
+//   * A return tick that would make the open bar's sum non-finite is rejected
+//     as non_finite. Price returns are computed as log(p1) - log(p0), finite
+//     for every pair of positive finite prices.
 //   * A tick outside the session is rejected as outside_session; a tick whose
 //     kind differs from the symbol's first tick is rejected as kind_mismatch.
 //   * CloseIfDue closes the open bar once now >= bar end + grace. Such a bar is
