@@ -54,48 +54,48 @@ inline constexpr int64_t kNanosPerDay = 1440 * kNanosPerMinute;
 // A daily trading session in local time (UTC + tz_offset_minutes). When
 // end_minute <= start_minute the session runs over midnight.
 struct SessionWindow {
-  bool enabled = false;        // false: every tick is in session, bars never clip
-  int start_minute = 0;        // minutes after local midnight, 0..1439; default 0
-  int end_minute = 1440;       // minutes after local midnight, 1..1440; default 1440
-  int tz_offset_minutes = 0;   // local time = UTC + offset; -1440..1440; default 0
+  bool enabled = false;       // false: every tick is in session, bars never clip
+  int start_minute = 0;       // minutes after local midnight, 0..1439; default 0
+  int end_minute = 1440;      // minutes after local midnight, 1..1440; default 1440
+  int tz_offset_minutes = 0;  // local time = UTC + offset; -1440..1440; default 0
 };
 
 struct BarOptions {
-  int64_t interval_ns = 0;                       // bar length; 0 = one bar per tick
+  int64_t interval_ns = 0;                        // bar length; 0 = one bar per tick
   int64_t max_lateness_ns = 5 * kNanosPerSecond;  // tolerated reordering; default 5 s
-  SessionWindow session;                         // default: no session
+  SessionWindow session;                          // default: no session
 };
 
 // One closed bar.
 struct ClosedBar {
-  int64_t t_end_ns = 0;      // bar end (boundary, clipped to the session end)
-  double ret = 0;            // log return of the bar (0 when !has_return)
-  double last_price = 0;     // price bars: last price; return bars: 0
+  int64_t t_end_ns = 0;   // bar end (boundary, clipped to the session end)
+  double ret = 0;         // log return of the bar (0 when !has_return)
+  double last_price = 0;  // price bars: last price; return bars: 0
   bool has_return = false;
   bool closed_by_clock = false;  // closed by CloseIfDue rather than by a later tick
   int32_t n_ticks = 0;
-  uint32_t flags = 0;        // kFlagGap, kFlagFirstBar (UpdateFlag bits)
+  uint32_t flags = 0;  // kFlagGap, kFlagFirstBar (UpdateFlag bits)
 };
 
 // Per-symbol builder state: fixed size, trivially copyable (checkpointable).
 struct BarState {
-  int64_t open_start_ns = 0;     // start of the open bar
-  int64_t open_end_ns = 0;       // end of the open bar (clipped)
-  int64_t latest_t_ns = 0;       // latest tick time in the open bar
-  int64_t closed_end_ns = 0;     // end of the last closed bar (0 = none yet)
-  int64_t session_day = 0;       // session index of the open / last bar
-  int64_t last_t_ns = 0;         // time of the last accepted tick (duplicates)
-  double last_value = 0;         // value of the last accepted tick (duplicates)
-  double open_price = 0;         // price bars: price at latest_t_ns
-  double prev_close = 0;         // price bars: last price of the previous bar
-  double ret_sum = 0;            // return bars: sum of the open bar's returns
-  int32_t n_ticks = 0;           // ticks in the open bar
-  uint8_t kind = 0;              // Tick::Kind of the symbol (valid when has_tick)
-  bool has_tick = false;         // any tick accepted yet
-  bool open = false;             // a bar is open
-  bool has_prev_close = false;   // prev_close valid (and in the same session)
-  bool any_bar = false;          // a bar has been closed before
-  bool open_gap = false;         // the open bar is the first of a new session
+  int64_t open_start_ns = 0;    // start of the open bar
+  int64_t open_end_ns = 0;      // end of the open bar (clipped)
+  int64_t latest_t_ns = 0;      // latest tick time in the open bar
+  int64_t closed_end_ns = 0;    // end of the last closed bar (0 = none yet)
+  int64_t session_day = 0;      // session index of the open / last bar
+  int64_t last_t_ns = 0;        // time of the last accepted tick (duplicates)
+  double last_value = 0;        // value of the last accepted tick (duplicates)
+  double open_price = 0;        // price bars: price at latest_t_ns
+  double prev_close = 0;        // price bars: last price of the previous bar
+  double ret_sum = 0;           // return bars: sum of the open bar's returns
+  int32_t n_ticks = 0;          // ticks in the open bar
+  uint8_t kind = 0;             // Tick::Kind of the symbol (valid when has_tick)
+  bool has_tick = false;        // any tick accepted yet
+  bool open = false;            // a bar is open
+  bool has_prev_close = false;  // prev_close valid (and in the same session)
+  bool any_bar = false;         // a bar has been closed before
+  bool open_gap = false;        // the open bar is the first of a new session
 };
 
 enum class TickStatus : uint8_t { kAccepted, kDuplicate, kRejected };
@@ -103,7 +103,7 @@ enum class TickStatus : uint8_t { kAccepted, kDuplicate, kRejected };
 struct FeedResult {
   TickStatus status = TickStatus::kAccepted;
   RejectReason reason = RejectReason::kTooOld;  // meaningful when kRejected / kDuplicate
-  bool closed = false;                           // `bar` holds a bar closed by this tick
+  bool closed = false;                          // `bar` holds a bar closed by this tick
   ClosedBar bar;
 };
 

@@ -51,8 +51,8 @@ extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {
     aftershock::EncodeBatchBinary(absl::Span<const Tick>(out, r.n_ticks), &again);
     static Tick back[64];
     aftershock::RejectCounters c2;
-    const auto r2 = aftershock::DecodeTicks("*", again, aftershock::WireEncoding::kBinary,
-                                            1 << 20, absl::Span<Tick>(back, 64), &c2);
+    const auto r2 = aftershock::DecodeTicks("*", again, aftershock::WireEncoding::kBinary, 1 << 20,
+                                            absl::Span<Tick>(back, 64), &c2);
     FUZZ_CHECK(r2.n_ticks == r.n_ticks);
     aftershock::EncodeBatchJson(absl::Span<const Tick>(out, r.n_ticks), &again);
     static Tick json_back[64];

@@ -1,7 +1,6 @@
 #include "aftershock/wire.h"
 
 #include <catch2/catch.hpp>
-
 #include <cmath>
 #include <cstdlib>
 #include <cstring>
@@ -97,8 +96,13 @@ TEST_CASE("JSON single ticks decode exactly", "[wire]") {
 }
 
 TEST_CASE("JSON encoder round-trips every double exactly", "[wire]") {
-  const double values[] = {0.1, 1.0 / 3.0, 101.25, 5e-324, 1.7976931348623157e308,
-                           -2.2250738585072014e-308, 123456789.123456789};
+  const double values[] = {0.1,
+                           1.0 / 3.0,
+                           101.25,
+                           5e-324,
+                           1.7976931348623157e308,
+                           -2.2250738585072014e-308,
+                           123456789.123456789};
   Tick out[1];
   RejectCounters c;
   std::string body;
@@ -150,13 +154,12 @@ TEST_CASE("each JSON rejection class is named", "[wire]") {
 }
 
 TEST_CASE("JSON batch decodes good records and counts bad ones individually", "[wire]") {
-  const std::string body =
-      R"([{"s":"ALDER.X","t":1,"p":10},)"
-      R"({"s":"BIRCH.Y","t":2,"p":-1},)"
-      R"({"t":3,"p":1},)"
-      R"({"s":"CEDAR","t":4,"r":0.01,"zz":1},)"
-      R"({"s":"bad sym","t":5,"p":1},)"
-      R"({"s":"ELM","t":6,"r":-0.02,"v":7}])";
+  const std::string body = R"([{"s":"ALDER.X","t":1,"p":10},)"
+                           R"({"s":"BIRCH.Y","t":2,"p":-1},)"
+                           R"({"t":3,"p":1},)"
+                           R"({"s":"CEDAR","t":4,"r":0.01,"zz":1},)"
+                           R"({"s":"bad sym","t":5,"p":1},)"
+                           R"({"s":"ELM","t":6,"r":-0.02,"v":7}])";
   Tick out[8];
   RejectCounters c;
   const DecodeResult r = DecodeTicks("*", body, WireEncoding::kJson, kLimit, out, &c);
@@ -272,8 +275,9 @@ TEST_CASE("binary rejections: structure rejects the message, content the record"
   CHECK(reason_count(b, RejectReason::kBadSize, &n));
   // Capacity.
   RejectCounters c;
-  CHECK(DecodeTicks("*", good, WireEncoding::kBinary, kLimit, absl::Span<Tick>(out, 1), &c)
-            .n_ticks == 0);
+  CHECK(
+      DecodeTicks("*", good, WireEncoding::kBinary, kLimit, absl::Span<Tick>(out, 1), &c).n_ticks ==
+      0);
   CHECK(c.Get(RejectReason::kBatchTooLarge) == 1);
 }
 
@@ -303,8 +307,8 @@ TEST_CASE("decoding 10,000 messages does not allocate", "[wire][alloc]") {
   StartCounting();
   for (int i = 0; i < 5000; ++i) {
     good += DecodeTicks("ALDER.X", json_bodies[i], WireEncoding::kJson, kLimit, out, &c).n_ticks;
-    good += DecodeTicks("ALDER.X", binary_bodies[i], WireEncoding::kBinary, kLimit, out, &c)
-                .n_ticks;
+    good +=
+        DecodeTicks("ALDER.X", binary_bodies[i], WireEncoding::kBinary, kLimit, out, &c).n_ticks;
   }
   for (int i = 0; i < 10; ++i) {
     good += DecodeTicks("*", json_batch, WireEncoding::kJson, kLimit, out, &c).n_ticks;

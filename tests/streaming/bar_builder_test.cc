@@ -1,7 +1,6 @@
 #include "aftershock/bar_builder.h"
 
 #include <catch2/catch.hpp>
-
 #include <cmath>
 #include <type_traits>
 #include <vector>
@@ -178,7 +177,7 @@ TEST_CASE("sessions: outside ticks rejected, bars anchored and clipped, gaps fla
   o.session.enabled = true;
   o.session.start_minute = 8 * 60;
   o.session.end_minute = 16 * 60 + 30;
-  o.session.tz_offset_minutes = 60;  // local = UTC+1
+  o.session.tz_offset_minutes = 60;                // local = UTC+1
   const int64_t open_utc = kDay0 + 7 * 60 * kMin;  // 08:00 local = 07:00Z
   // 07:59 local is outside.
   CHECK(FeedTick(&st, Price(open_utc - kMin, 100), o).reason == RejectReason::kOutsideSession);
@@ -213,8 +212,7 @@ TEST_CASE("sessions: outside ticks rejected, bars anchored and clipped, gaps fla
   CHECK(bar.flags == 0);
 }
 
-TEST_CASE("sessions over midnight and per-message bars across a session gap",
-          "[bar_builder]") {
+TEST_CASE("sessions over midnight and per-message bars across a session gap", "[bar_builder]") {
   SessionWindow s;
   s.enabled = true;
   s.start_minute = 22 * 60;
