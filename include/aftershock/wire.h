@@ -75,9 +75,8 @@ struct Tick {
   Kind kind = kPrice;  // what `value` is
   double value = 0;    // price (> 0) for kPrice, log return for kReturn
   double size = 0;     // traded size; 0 when not given
-  double rv = std::numeric_limits<double>::quiet_NaN();  // realized variance of
-                                                         // the interval (tick files only); NaN when
-                                                         // not given
+  // Realized variance of the interval (tick files only); NaN when not given.
+  double rv = std::numeric_limits<double>::quiet_NaN();
 };
 
 enum class WireEncoding : uint8_t { kJson = 0, kBinary = 1 };
