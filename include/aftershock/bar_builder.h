@@ -26,6 +26,8 @@
 //   * A tick equal in time and value to the previously accepted tick is an
 //     exact duplicate: dropped and reported as duplicate (only the last tick is
 //     remembered, so an older repeat inside the bar is counted as a tick).
+//   * Tick times must lie in [0, kMaxBarTimeNs] (else bad_time), and
+//     BarOptions durations must be at most kMaxBarDurationNs (7 days).
 //   * A return tick that would make the open bar's sum non-finite is rejected
 //     as non_finite. Price returns are computed as log(p1) - log(p0), finite
 //     for every pair of positive finite prices.
@@ -50,6 +52,9 @@ namespace aftershock {
 inline constexpr int64_t kNanosPerSecond = 1000000000;
 inline constexpr int64_t kNanosPerMinute = 60 * kNanosPerSecond;
 inline constexpr int64_t kNanosPerDay = 1440 * kNanosPerMinute;
+// Latest tick time the builder accepts (2^62 ns, early 2116); later or
+// negative times are rejected as bad_time.
+inline constexpr int64_t kMaxBarTimeNs = int64_t{1} << 62;
 
 // A daily trading session in local time (UTC + tz_offset_minutes). When
 // end_minute <= start_minute the session runs over midnight.
@@ -59,6 +64,8 @@ struct SessionWindow {
   int end_minute = 1440;      // minutes after local midnight, 1..1440; default 1440
   int tz_offset_minutes = 0;  // local time = UTC + offset; -1440..1440; default 0
 };
+
+inline constexpr int64_t kMaxBarDurationNs = 7 * kNanosPerDay;
 
 struct BarOptions {
   int64_t interval_ns = 0;                        // bar length; 0 = one bar per tick

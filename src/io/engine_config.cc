@@ -422,7 +422,7 @@ absl::Status ParseBars(const std::string* source, const Section& s, BarsConfig* 
   AS_RETURN_IF_ERROR(s.Duration("interval", &c->interval_ns));
   AS_RETURN_IF_ERROR(s.Duration("grace", &c->grace_ns));
   AS_RETURN_IF_ERROR(s.Duration("max_lateness", &c->max_lateness_ns));
-  const int64_t kMaxDuration = 7 * kNanosPerDay;
+  const int64_t kMaxDuration = kMaxBarDurationNs;
   for (const char* key : {"interval", "grace", "max_lateness"}) {
     const int64_t v = std::string(key) == "interval" ? c->interval_ns
                       : std::string(key) == "grace"  ? c->grace_ns

@@ -100,6 +100,8 @@ bool InSession(const SessionWindow& s, int64_t t_ns) {
 }
 
 FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {
+  // Bounds keep every boundary computation below free of int64 overflow.
+  if (tick.t_ns < 0 || tick.t_ns > kMaxBarTimeNs) return Reject(RejectReason::kBadTime);
   if (st->has_tick && tick.kind != st->kind) return Reject(RejectReason::kKindMismatch);
   if (tick.kind == Tick::kPrice && !(tick.value > 0)) {
     return Reject(RejectReason::kNonPositivePrice);

@@ -255,6 +255,16 @@ TEST_CASE("extreme but valid inputs keep the return finite", "[bar_builder]") {
   CHECK(r.reason == RejectReason::kNonFinite);
 }
 
+TEST_CASE("times outside [0, 2^62] are bad_time", "[bar_builder]") {
+  BarState st;
+  BarOptions o;
+  o.interval_ns = kMin;
+  o.session.tz_offset_minutes = 1440;
+  CHECK(FeedTick(&st, Price(-1, 1), o).reason == RejectReason::kBadTime);
+  CHECK(FeedTick(&st, Price(kMaxBarTimeNs + 1, 1), o).reason == RejectReason::kBadTime);
+  CHECK(FeedTick(&st, Price(kMaxBarTimeNs, 1), o).status == TickStatus::kAccepted);
+}
+
 TEST_CASE("the builder state is small and fixed-size", "[bar_builder]") {
   CHECK(sizeof(BarState) <= 96);
   CHECK(std::is_trivially_copyable<BarState>::value);
