@@ -207,6 +207,30 @@ TEST_CASE("JSON batch decodes good records and counts bad ones individually", "[
   CHECK(c4.Total() == 0);
 }
 
+TEST_CASE("every truncation of a valid message is rejected whole", "[wire]") {
+  const std::vector<Tick> ticks = {MakeTick("ALDER.X", 12345, Tick::kPrice, 101.25, 3),
+                                   MakeTick("B", 7, Tick::kReturn, -0.125)};
+  std::string json, binary;
+  EncodeBatchJson(ticks, &json);
+  EncodeBatchBinary(ticks, &binary);
+  Tick out[4];
+  for (int which = 0; which < 2; ++which) {
+    const std::string& full = which == 0 ? json : binary;
+    const WireEncoding enc = which == 0 ? WireEncoding::kJson : WireEncoding::kBinary;
+    const RejectReason expected =
+        which == 0 ? RejectReason::kMalformedJson : RejectReason::kMalformedBinary;
+    int wrong = 0;
+    for (size_t n = 0; n < full.size(); ++n) {
+      RejectCounters c;
+      const DecodeResult r = DecodeTicks("*", full.substr(0, n), enc, kLimit, out, &c);
+      if (r.n_ticks != 0 || c.Get(expected) != 1 || c.Total() != 1) ++wrong;
+    }
+    CHECK(wrong == 0);
+    RejectCounters c;
+    CHECK(DecodeTicks("*", full, enc, kLimit, out, &c).n_ticks == 2);
+  }
+}
+
 TEST_CASE("binary ticks and batches round-trip exactly", "[wire]") {
   std::vector<Tick> ticks = {MakeTick("ALDER.X", 1772443800000000000, Tick::kPrice, 101.25, 3),
                              MakeTick("B", 7, Tick::kReturn, -1.0 / 3.0),
