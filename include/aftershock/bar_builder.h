@@ -26,6 +26,11 @@
 //   * A tick equal in time and value to the previously accepted tick is an
 //     exact duplicate: dropped and reported as duplicate (only the last tick is
 //     remembered, so an older repeat inside the bar is counted as a tick).
+//   * Tick times must lie in [0, kMaxBarTimeNs] (else bad_time), and
+//     BarOptions durations must be at most kMaxBarDurationNs (7 days).
+//   * A return tick that would make the open bar's sum non-finite is rejected
+//     as non_finite. Price returns are computed as log(p1) - log(p0), finite
+//     for every pair of positive finite prices.
 //   * A tick outside the session is rejected as outside_session; a tick whose
 //     kind differs from the symbol's first tick is rejected as kind_mismatch.
 //   * CloseIfDue closes the open bar once now >= bar end + grace. Such a bar is
@@ -47,52 +52,57 @@ namespace aftershock {
 inline constexpr int64_t kNanosPerSecond = 1000000000;
 inline constexpr int64_t kNanosPerMinute = 60 * kNanosPerSecond;
 inline constexpr int64_t kNanosPerDay = 1440 * kNanosPerMinute;
+// Latest tick time the builder accepts (2^62 ns, early 2116); later or
+// negative times are rejected as bad_time.
+inline constexpr int64_t kMaxBarTimeNs = int64_t{1} << 62;
 
 // A daily trading session in local time (UTC + tz_offset_minutes). When
 // end_minute <= start_minute the session runs over midnight.
 struct SessionWindow {
-  bool enabled = false;        // false: every tick is in session, bars never clip
-  int start_minute = 0;        // minutes after local midnight, 0..1439; default 0
-  int end_minute = 1440;       // minutes after local midnight, 1..1440; default 1440
-  int tz_offset_minutes = 0;   // local time = UTC + offset; -1440..1440; default 0
+  bool enabled = false;       // false: every tick is in session, bars never clip
+  int start_minute = 0;       // minutes after local midnight, 0..1439; default 0
+  int end_minute = 1440;      // minutes after local midnight, 1..1440; default 1440
+  int tz_offset_minutes = 0;  // local time = UTC + offset; -1440..1440; default 0
 };
 
+inline constexpr int64_t kMaxBarDurationNs = 7 * kNanosPerDay;
+
 struct BarOptions {
-  int64_t interval_ns = 0;                       // bar length; 0 = one bar per tick
+  int64_t interval_ns = 0;                        // bar length; 0 = one bar per tick
   int64_t max_lateness_ns = 5 * kNanosPerSecond;  // tolerated reordering; default 5 s
-  SessionWindow session;                         // default: no session
+  SessionWindow session;                          // default: no session
 };
 
 // One closed bar.
 struct ClosedBar {
-  int64_t t_end_ns = 0;      // bar end (boundary, clipped to the session end)
-  double ret = 0;            // log return of the bar (0 when !has_return)
-  double last_price = 0;     // price bars: last price; return bars: 0
+  int64_t t_end_ns = 0;   // bar end (boundary, clipped to the session end)
+  double ret = 0;         // log return of the bar (0 when !has_return)
+  double last_price = 0;  // price bars: last price; return bars: 0
   bool has_return = false;
   bool closed_by_clock = false;  // closed by CloseIfDue rather than by a later tick
   int32_t n_ticks = 0;
-  uint32_t flags = 0;        // kFlagGap, kFlagFirstBar (UpdateFlag bits)
+  uint32_t flags = 0;  // kFlagGap, kFlagFirstBar (UpdateFlag bits)
 };
 
 // Per-symbol builder state: fixed size, trivially copyable (checkpointable).
 struct BarState {
-  int64_t open_start_ns = 0;     // start of the open bar
-  int64_t open_end_ns = 0;       // end of the open bar (clipped)
-  int64_t latest_t_ns = 0;       // latest tick time in the open bar
-  int64_t closed_end_ns = 0;     // end of the last closed bar (0 = none yet)
-  int64_t session_day = 0;       // session index of the open / last bar
-  int64_t last_t_ns = 0;         // time of the last accepted tick (duplicates)
-  double last_value = 0;         // value of the last accepted tick (duplicates)
-  double open_price = 0;         // price bars: price at latest_t_ns
-  double prev_close = 0;         // price bars: last price of the previous bar
-  double ret_sum = 0;            // return bars: sum of the open bar's returns
-  int32_t n_ticks = 0;           // ticks in the open bar
-  uint8_t kind = 0;              // Tick::Kind of the symbol (valid when has_tick)
-  bool has_tick = false;         // any tick accepted yet
-  bool open = false;             // a bar is open
-  bool has_prev_close = false;   // prev_close valid (and in the same session)
-  bool any_bar = false;          // a bar has been closed before
-  bool open_gap = false;         // the open bar is the first of a new session
+  int64_t open_start_ns = 0;    // start of the open bar
+  int64_t open_end_ns = 0;      // end of the open bar (clipped)
+  int64_t latest_t_ns = 0;      // latest tick time in the open bar
+  int64_t closed_end_ns = 0;    // end of the last closed bar (0 = none yet)
+  int64_t session_day = 0;      // session index of the open / last bar
+  int64_t last_t_ns = 0;        // time of the last accepted tick (duplicates)
+  double last_value = 0;        // value of the last accepted tick (duplicates)
+  double open_price = 0;        // price bars: price at latest_t_ns
+  double prev_close = 0;        // price bars: last price of the previous bar
+  double ret_sum = 0;           // return bars: sum of the open bar's returns
+  int32_t n_ticks = 0;          // ticks in the open bar
+  uint8_t kind = 0;             // Tick::Kind of the symbol (valid when has_tick)
+  bool has_tick = false;        // any tick accepted yet
+  bool open = false;            // a bar is open
+  bool has_prev_close = false;  // prev_close valid (and in the same session)
+  bool any_bar = false;         // a bar has been closed before
+  bool open_gap = false;        // the open bar is the first of a new session
 };
 
 enum class TickStatus : uint8_t { kAccepted, kDuplicate, kRejected };
@@ -100,7 +110,7 @@ enum class TickStatus : uint8_t { kAccepted, kDuplicate, kRejected };
 struct FeedResult {
   TickStatus status = TickStatus::kAccepted;
   RejectReason reason = RejectReason::kTooOld;  // meaningful when kRejected / kDuplicate
-  bool closed = false;                           // `bar` holds a bar closed by this tick
+  bool closed = false;                          // `bar` holds a bar closed by this tick
   ClosedBar bar;
 };
 

@@ -27,7 +27,7 @@ namespace aftershock {
 struct FeedConfig {
   // ZeroMQ endpoints the SUB socket connects to; default {"tcp://127.0.0.1:7301"}.
   std::vector<std::string> endpoints = {"tcp://127.0.0.1:7301"};
-  WireEncoding encoding = WireEncoding::kJson;     // body encoding; default json
+  WireEncoding encoding = WireEncoding::kJson;         // body encoding; default json
   size_t max_message_bytes = kDefaultMaxMessageBytes;  // larger bodies are rejected; 65536
   std::string curve_server_key;  // publisher's CURVE public key (Z85, 40 chars); "" = no CURVE
 };
@@ -35,14 +35,14 @@ struct FeedConfig {
 // [publish]: where updates go.
 struct PublishConfig {
   std::string endpoint = "tcp://127.0.0.1:7302";  // PUB binds here
-  WireEncoding encoding = WireEncoding::kJson;     // update encoding; default json
+  WireEncoding encoding = WireEncoding::kJson;    // update encoding; default json
   int64_t high_water_mark = 100000;  // messages queued per subscriber before drops; 100000
   std::string curve_secret_key;      // our CURVE secret key (Z85, 40 chars); "" = no CURVE
 };
 
 // [bars]: aggregation of ticks into bars.
 struct BarsConfig {
-  int64_t interval_ns = 0;  // bar length, ns; 0 = one bar per message; default "0s"
+  int64_t interval_ns = 0;               // bar length, ns; 0 = one bar per message; default "0s"
   int64_t grace_ns = 200 * 1000 * 1000;  // idle bar closed this long after its end; "200ms"
   int64_t max_lateness_ns = 5 * kNanosPerSecond;  // tolerated reordering; default "5s"
   SessionWindow session;  // optional trading session; default: none (always open)
@@ -71,9 +71,9 @@ absl::string_view ReturnUnitsName(ReturnUnits u);  // "fraction" | "percent"
 
 // [outputs]: what each update carries.
 struct OutputsConfig {
-  std::vector<int> horizons = {1, 5, 20};  // bars ahead for var_h; <= kMaxHorizons entries
+  std::vector<int> horizons = {1, 5, 20};           // bars ahead for var_h; <= kMaxHorizons entries
   std::vector<double> risk_levels = {0.99, 0.975};  // VaR/ES levels in (0.5,1); <= 4
-  double periods_per_year = 252;  // bars per year for annualization; default 252
+  double periods_per_year = 252;                    // bars per year for annualization; default 252
   ReturnUnits return_units = ReturnUnits::kFraction;  // units of the feed's returns
   // Target annualized volatility for the sizing scale, in the same units as
   // the annualized returns (0.10 = 10 % for fractions; 10 for per cent).
@@ -88,34 +88,34 @@ struct LimitsConfig {
 
 // [refit]: background re-estimation (PRODUCT.md C5).
 struct RefitConfig {
-  int64_t every_bars = 0;         // refit a symbol every N bars; 0 = off
-  double every_seconds = 0;       // and/or every T seconds of wall clock; 0 = off
-  int window = 2000;              // rolling window of returns, bars; default 2000
-  int min_bars = 250;             // bars needed before the first fit; default 250
-  int workers = 1;                // worker threads; default 1
-  int reidentify_every = 10;      // run the full identification every k-th refit; 0 = never
+  int64_t every_bars = 0;           // refit a symbol every N bars; 0 = off
+  double every_seconds = 0;         // and/or every T seconds of wall clock; 0 = off
+  int window = 2000;                // rolling window of returns, bars; default 2000
+  int min_bars = 250;               // bars needed before the first fit; default 250
+  int workers = 1;                  // worker threads; default 1
+  int reidentify_every = 10;        // run the full identification every k-th refit; 0 = never
   double max_persistence = 0.9995;  // gate: fits above this persistence are refused
-  int holdout_bars = 100;         // recent bars used to compare new vs current model
-  double holdout_margin = 0.05;   // nats per bar the new model may be worse by
-  int max_failures = 3;           // consecutive failed fits before the EWMA fallback
-  int apply_lag_bars = 1;         // a passed fit is swapped in this many bars later (replay)
-  double jitter_fraction = 0.1;   // spreads schedules: +-fraction of the period
-  int queue_capacity = 1024;      // pending refit jobs; beyond it a job is skipped
+  int holdout_bars = 100;           // recent bars used to compare new vs current model
+  double holdout_margin = 0.05;     // nats per bar the new model may be worse by
+  int max_failures = 3;             // consecutive failed fits before the EWMA fallback
+  int apply_lag_bars = 1;           // a passed fit is swapped in this many bars later (replay)
+  double jitter_fraction = 0.1;     // spreads schedules: +-fraction of the period
+  int queue_capacity = 1024;        // pending refit jobs; beyond it a job is skipped
   double diagnostics_level = 0.01;  // significance level of the diagnostic gate tests
 };
 
 // [alerts]: alert rule thresholds (PRODUCT.md C7).
 struct AlertsConfig {
-  double shock_z = 4.0;            // |z| at or above this raises a shock alert (warning)
-  double shock_critical_z = 6.0;   // |z| at or above this is critical; >= shock_z
-  int cooldown_bars = 20;          // bars before the same symbol/kind alerts again
-  double regime_enter = 2.0;       // fast/slow variance ratio that enters the high regime
-  double regime_exit = 1.3;        // ratio below which the regime is left; < regime_enter
-  double regime_fast_halflife = 10;   // bars, fast variance average
-  double regime_slow_halflife = 250;  // bars, slow variance average; > fast
+  double shock_z = 4.0;                  // |z| at or above this raises a shock alert (warning)
+  double shock_critical_z = 6.0;         // |z| at or above this is critical; >= shock_z
+  int cooldown_bars = 20;                // bars before the same symbol/kind alerts again
+  double regime_enter = 2.0;             // fast/slow variance ratio that enters the high regime
+  double regime_exit = 1.3;              // ratio below which the regime is left; < regime_enter
+  double regime_fast_halflife = 10;      // bars, fast variance average
+  double regime_slow_halflife = 250;     // bars, slow variance average; > fast
   double persistence_threshold = 0.995;  // near-integrated persistence alert
-  double stale_seconds = 60;       // no tick for this long: stale symbol alert
-  int64_t reject_burst = 100;      // rejected ticks per minute that raise a feed alert
+  double stale_seconds = 60;             // no tick for this long: stale symbol alert
+  int64_t reject_burst = 100;            // rejected ticks per minute that raise a feed alert
 };
 
 // [http]: health and metrics endpoint.
@@ -126,7 +126,7 @@ struct HttpConfig {
 
 // [checkpoint]
 struct CheckpointConfig {
-  std::string path;          // checkpoint file; "" = no checkpoints
+  std::string path;           // checkpoint file; "" = no checkpoints
   double every_seconds = 60;  // period; 0 = only at shutdown
 };
 

@@ -67,7 +67,7 @@ class TickFileReader {
   int64_t good_lines() const { return good_lines_; }
   int64_t bad_lines() const { return bad_lines_; }
   const std::vector<std::string>& errors() const { return errors_; }  // first kMaxKeptErrors
-  Tick::Kind kind() const { return kind_; }  // from the header
+  Tick::Kind kind() const { return kind_; }                           // from the header
   bool has_rv() const { return rv_col_ >= 0; }
 
  private:

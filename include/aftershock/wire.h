@@ -75,8 +75,8 @@ struct Tick {
   Kind kind = kPrice;  // what `value` is
   double value = 0;    // price (> 0) for kPrice, log return for kReturn
   double size = 0;     // traded size; 0 when not given
-  double rv = std::numeric_limits<double>::quiet_NaN();  // realized variance of
-                       // the interval (tick files only); NaN when not given
+  // Realized variance of the interval (tick files only); NaN when not given.
+  double rv = std::numeric_limits<double>::quiet_NaN();
 };
 
 enum class WireEncoding : uint8_t { kJson = 0, kBinary = 1 };
@@ -84,22 +84,22 @@ absl::string_view WireEncodingName(WireEncoding e);  // "json" | "binary"
 
 // Why an input was dropped. Names (RejectReasonName) appear in metrics and logs.
 enum class RejectReason : uint8_t {
-  kMalformedJson = 0,   // "malformed_json": syntax error, repeated key, both p and r
-  kMalformedBinary,     // "malformed_binary": bad magic/version/structure/kind
-  kBadSymbol,           // "bad_symbol": empty, > 32 bytes, bad character, frame mismatch
-  kOversize,            // "oversize": body longer than the configured limit
-  kNonFinite,           // "non_finite": NaN/inf value or size, or a number overflowing
-  kNonPositivePrice,    // "non_positive_price": price <= 0
-  kMissingField,        // "missing_field": no t, no p/r, or no s in a batch record
-  kUnknownField,        // "unknown_field": a key outside the schema
-  kBatchTooLarge,       // "batch_too_large": more records than the caller's capacity
-  kBadTime,             // "bad_time": t negative, fractional or out of int64 range
-  kBadSize,             // "bad_size": size negative
-  kTooOld,              // "too_old": set by the bar builder
-  kOutsideSession,      // "outside_session": set by the bar builder
-  kDuplicate,           // "duplicate": exact repeat dropped by the bar builder
-  kKindMismatch,        // "kind_mismatch": price tick for a return symbol or vice versa
-  kSymbolLimit,         // "symbol_limit": set by the engine at the symbol cap
+  kMalformedJson = 0,  // "malformed_json": syntax error, repeated key, both p and r
+  kMalformedBinary,    // "malformed_binary": bad magic/version/structure/kind
+  kBadSymbol,          // "bad_symbol": empty, > 32 bytes, bad character, frame mismatch
+  kOversize,           // "oversize": body longer than the configured limit
+  kNonFinite,          // "non_finite": NaN/inf value or size, or a number overflowing
+  kNonPositivePrice,   // "non_positive_price": price <= 0
+  kMissingField,       // "missing_field": no t, no p/r, or no s in a batch record
+  kUnknownField,       // "unknown_field": a key outside the schema
+  kBatchTooLarge,      // "batch_too_large": more records than the caller's capacity
+  kBadTime,            // "bad_time": t negative, fractional or out of int64 range
+  kBadSize,            // "bad_size": size negative
+  kTooOld,             // "too_old": set by the bar builder
+  kOutsideSession,     // "outside_session": set by the bar builder
+  kDuplicate,          // "duplicate": exact repeat dropped by the bar builder
+  kKindMismatch,       // "kind_mismatch": price tick for a return symbol or vice versa
+  kSymbolLimit,        // "symbol_limit": set by the engine at the symbol cap
 };
 inline constexpr int kNumRejectReasons = 16;
 absl::string_view RejectReasonName(RejectReason r);
@@ -114,7 +114,7 @@ struct RejectCounters {
 
 inline constexpr uint8_t kTickMagic = 0xA7;
 inline constexpr uint8_t kTickWireVersion = 1;
-inline constexpr int kMaxBatchTicks = 8192;         // records per batch message
+inline constexpr int kMaxBatchTicks = 8192;  // records per batch message
 inline constexpr size_t kDefaultMaxMessageBytes = 65536;
 
 // True for 1..32 bytes of [A-Za-z0-9._:-] ("*" is not a symbol).
@@ -136,7 +136,7 @@ DecodeResult DecodeTicks(absl::string_view symbol_frame, absl::string_view body,
 
 // Encoders (clear *out first; they do not validate: callers pass good ticks,
 // tests pass bad ones on purpose). The symbol frame is tick.symbol or "*".
-void EncodeTickJson(const Tick& tick, std::string* out);           // body without "s"
+void EncodeTickJson(const Tick& tick, std::string* out);               // body without "s"
 void EncodeBatchJson(absl::Span<const Tick> ticks, std::string* out);  // array with "s"
 void EncodeTickBinary(const Tick& tick, std::string* out);
 // REQUIRES: ticks.size() <= 65535.

@@ -1,5 +1,7 @@
 #include "aftershock/engine_config.h"
 
+#include <toml++/toml.h>
+
 #include <charconv>
 #include <cmath>
 #include <cstdio>
@@ -7,8 +9,6 @@
 #include <initializer_list>
 #include <limits>
 #include <sstream>
-
-#include <toml++/toml.h>
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
@@ -209,12 +209,13 @@ class Section {
 
   absl::Status CheckRange(absl::string_view key, double v, double lo, double hi, bool lo_open,
                           bool hi_open, double* out) const {
-    const bool ok = std::isfinite(v) && (lo_open ? v > lo : v >= lo) && (hi_open ? v < hi : v <= hi);
+    const bool ok =
+        std::isfinite(v) && (lo_open ? v > lo : v >= lo) && (hi_open ? v < hi : v <= hi);
     if (!ok) {
       const std::string hi_text = std::isinf(hi) ? "inf" : FormatNumber(hi);
-      return KeyError(key, absl::StrCat("must be in ", lo_open ? "(" : "[", FormatNumber(lo), ", ",
-                                        hi_text, hi_open || std::isinf(hi) ? ")" : "]", ", got ",
-                                        FormatNumber(v)));
+      return KeyError(
+          key, absl::StrCat("must be in ", lo_open ? "(" : "[", FormatNumber(lo), ", ", hi_text,
+                            hi_open || std::isinf(hi) ? ")" : "]", ", got ", FormatNumber(v)));
     }
     *out = v;
     return absl::OkStatus();
@@ -226,8 +227,8 @@ class Section {
     if (!n->is_string()) {
       double v = 0;
       const std::string value = NumberOf(*n, &v) ? FormatNumber(v) : TypeName(*n);
-      return KeyError(key, absl::StrCat("expected a duration like \"0s\", \"5s\", \"1m\", got ",
-                                        value));
+      return KeyError(key,
+                      absl::StrCat("expected a duration like \"0s\", \"5s\", \"1m\", got ", value));
     }
     auto d = ParseDuration(n->as_string()->get());
     if (!d.ok()) return KeyError(key, d.status().message());
@@ -252,8 +253,8 @@ class Section {
     }
     std::vector<std::string> quoted;
     for (absl::string_view w : words) quoted.push_back(absl::StrCat("\"", w, "\""));
-    return KeyError(key, absl::StrCat("expected one of ", absl::StrJoin(quoted, ", "), ", got \"",
-                                      s, "\""));
+    return KeyError(
+        key, absl::StrCat("expected one of ", absl::StrJoin(quoted, ", "), ", got \"", s, "\""));
   }
 
   absl::Status IntArray(absl::string_view key, std::vector<int>* out, size_t max_size, int64_t lo,
@@ -338,10 +339,10 @@ class Section {
   int line_;
 };
 
-#define AS_RETURN_IF_ERROR(expr)              \
-  do {                                        \
-    const absl::Status status_ = (expr);      \
-    if (!status_.ok()) return status_;        \
+#define AS_RETURN_IF_ERROR(expr)         \
+  do {                                   \
+    const absl::Status status_ = (expr); \
+    if (!status_.ok()) return status_;   \
   } while (0)
 
 constexpr double kInf = std::numeric_limits<double>::infinity();
@@ -353,8 +354,8 @@ absl::Status CheckCurveKey(const Section& s, absl::string_view key, const std::s
   bool ok = v.size() == 40;
   for (char c : v) ok = ok && kZ85.find(c) != absl::string_view::npos;
   if (!ok) {
-    return s.KeyError(key, absl::StrCat("expected a 40-character Z85 CURVE key, got ", v.size(),
-                                        " characters"));
+    return s.KeyError(
+        key, absl::StrCat("expected a 40-character Z85 CURVE key, got ", v.size(), " characters"));
   }
   return absl::OkStatus();
 }
@@ -366,7 +367,8 @@ absl::Status CheckEndpoint(const Section& s, absl::string_view key, const std::s
     }
   }
   return s.KeyError(key, absl::StrCat("expected a ZeroMQ endpoint like \"tcp://127.0.0.1:7301\", "
-                                      "got \"", v, "\""));
+                                      "got \"",
+                                      v, "\""));
 }
 
 // "HH:MM" -> minutes; 24:00 allowed only when allow_24.
@@ -404,8 +406,7 @@ absl::Status ParseFeed(const Section& s, FeedConfig* c) {
 }
 
 absl::Status ParsePublish(const Section& s, PublishConfig* c) {
-  AS_RETURN_IF_ERROR(
-      s.CheckKeys({"endpoint", "encoding", "high_water_mark", "curve_secret_key"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"endpoint", "encoding", "high_water_mark", "curve_secret_key"}));
   AS_RETURN_IF_ERROR(s.String("endpoint", &c->endpoint));
   AS_RETURN_IF_ERROR(CheckEndpoint(s, "endpoint", c->endpoint));
   int enc = static_cast<int>(c->encoding);
@@ -421,7 +422,7 @@ absl::Status ParseBars(const std::string* source, const Section& s, BarsConfig* 
   AS_RETURN_IF_ERROR(s.Duration("interval", &c->interval_ns));
   AS_RETURN_IF_ERROR(s.Duration("grace", &c->grace_ns));
   AS_RETURN_IF_ERROR(s.Duration("max_lateness", &c->max_lateness_ns));
-  const int64_t kMaxDuration = 7 * kNanosPerDay;
+  const int64_t kMaxDuration = kMaxBarDurationNs;
   for (const char* key : {"interval", "grace", "max_lateness"}) {
     const int64_t v = std::string(key) == "interval" ? c->interval_ns
                       : std::string(key) == "grace"  ? c->grace_ns
@@ -430,7 +431,8 @@ absl::Status ParseBars(const std::string* source, const Section& s, BarsConfig* 
   }
   if (const toml::node* n = s.Node("session"); n != nullptr && !n->is_table()) {
     return s.KeyError("session", absl::StrCat("expected a table like { start = \"08:00\", end = "
-                                              "\"16:30\" }, got ", TypeName(*n)));
+                                              "\"16:30\" }, got ",
+                                              TypeName(*n)));
   }
   const Section ss = SubSection(source, s, "session", "bars.session");
   if (!ss.present()) return absl::OkStatus();
@@ -480,7 +482,8 @@ absl::Status ParseModel(const std::string* source, const Section& s, ModelConfig
     return s.KeyError("mean_order", "only used with mean = \"arma\"");
   }
   if (s.Has("variance_order") && (variance == "constant" || variance == "ewma")) {
-    return s.KeyError("variance_order", absl::StrCat("not used with variance = \"", variance, "\""));
+    return s.KeyError("variance_order",
+                      absl::StrCat("not used with variance = \"", variance, "\""));
   }
   auto spec = MakeModelSpec(mean, mean_order, variance, variance_order, innovations);
   if (!spec.ok()) {
@@ -494,8 +497,8 @@ absl::Status ParseModel(const std::string* source, const Section& s, ModelConfig
   c->presample = static_cast<Presample>(presample);
 
   if (const toml::node* n = s.Node("params"); n != nullptr && !n->is_table()) {
-    return s.KeyError("params", absl::StrCat("expected a table of name = number, got ",
-                                             TypeName(*n)));
+    return s.KeyError("params",
+                      absl::StrCat("expected a table of name = number, got ", TypeName(*n)));
   }
   const Section ps = SubSection(source, s, "params", "model.params");
   c->has_params = false;
@@ -572,8 +575,8 @@ absl::Status ParseRefit(const Section& s, RefitConfig* c) {
   AS_RETURN_IF_ERROR(s.Integer("min_bars", &c->min_bars, 10, 1000000));
   AS_RETURN_IF_ERROR(s.Integer("workers", &c->workers, 1, 256));
   AS_RETURN_IF_ERROR(s.Integer("reidentify_every", &c->reidentify_every, 0, 1000000));
-  AS_RETURN_IF_ERROR(s.Number("max_persistence", &c->max_persistence, 0, kMaxPersistence, true,
-                              false));
+  AS_RETURN_IF_ERROR(
+      s.Number("max_persistence", &c->max_persistence, 0, kMaxPersistence, true, false));
   AS_RETURN_IF_ERROR(s.Integer("holdout_bars", &c->holdout_bars, 0, 1000000));
   AS_RETURN_IF_ERROR(s.Number("holdout_margin", &c->holdout_margin, 0, kInf, false, true));
   AS_RETURN_IF_ERROR(s.Integer("max_failures", &c->max_failures, 1, 1000000));
@@ -582,9 +585,9 @@ absl::Status ParseRefit(const Section& s, RefitConfig* c) {
   AS_RETURN_IF_ERROR(s.Integer("queue_capacity", &c->queue_capacity, 1, 1 << 24));
   AS_RETURN_IF_ERROR(s.Number("diagnostics_level", &c->diagnostics_level, 0, 0.5, true, true));
   if (c->min_bars > c->window) {
-    return s.KeyError(s.Has("min_bars") ? "min_bars" : "window",
-                      absl::StrCat("min_bars (", c->min_bars, ") must not exceed window (",
-                                   c->window, ")"));
+    return s.KeyError(
+        s.Has("min_bars") ? "min_bars" : "window",
+        absl::StrCat("min_bars (", c->min_bars, ") must not exceed window (", c->window, ")"));
   }
   if (c->holdout_bars >= c->min_bars) {
     return s.KeyError(s.Has("holdout_bars") ? "holdout_bars" : "min_bars",
@@ -617,15 +620,15 @@ absl::Status ParseAlerts(const Section& s, AlertsConfig* c) {
                                    ") must be >= shock_z (", FormatNumber(c->shock_z), ")"));
   }
   if (c->regime_exit >= c->regime_enter) {
-    return s.KeyError(s.Has("regime_exit") ? "regime_exit" : "regime_enter",
-                      absl::StrCat("regime_exit (", FormatNumber(c->regime_exit),
-                                   ") must be < regime_enter (", FormatNumber(c->regime_enter),
-                                   ") for hysteresis"));
+    return s.KeyError(
+        s.Has("regime_exit") ? "regime_exit" : "regime_enter",
+        absl::StrCat("regime_exit (", FormatNumber(c->regime_exit), ") must be < regime_enter (",
+                     FormatNumber(c->regime_enter), ") for hysteresis"));
   }
   if (c->regime_slow_halflife <= c->regime_fast_halflife) {
-    return s.KeyError(s.Has("regime_slow_halflife") ? "regime_slow_halflife"
-                                                    : "regime_fast_halflife",
-                      "regime_slow_halflife must be greater than regime_fast_halflife");
+    return s.KeyError(
+        s.Has("regime_slow_halflife") ? "regime_slow_halflife" : "regime_fast_halflife",
+        "regime_slow_halflife must be greater than regime_fast_halflife");
   }
   return absl::OkStatus();
 }
@@ -665,9 +668,9 @@ absl::Status ParseLog(const Section& s, LogConfig* c) {
 }
 
 absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::string& source) {
-  static constexpr absl::string_view kSections[] = {"feed",    "publish", "bars",   "model",
-                                                    "warmup",  "outputs", "limits", "refit",
-                                                    "alerts",  "http",    "checkpoint", "log"};
+  static constexpr absl::string_view kSections[] = {"feed",   "publish", "bars",       "model",
+                                                    "warmup", "outputs", "limits",     "refit",
+                                                    "alerts", "http",    "checkpoint", "log"};
   for (auto&& [k, v] : doc) {
     bool known = false;
     for (absl::string_view name : kSections) known = known || Sv(k.str()) == name;
@@ -675,12 +678,11 @@ absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::st
     if (!known) {
       return absl::InvalidArgumentError(absl::StrCat(
           source, ":", line, ": unknown ", v.is_table() ? "section [" : "top-level key '",
-          std::string(k.str()), v.is_table() ? "]" : "'", " (sections: ",
-          absl::StrJoin(std::begin(kSections), std::end(kSections), ", "), ")"));
+          std::string(k.str()), v.is_table() ? "]" : "'",
+          " (sections: ", absl::StrJoin(std::begin(kSections), std::end(kSections), ", "), ")"));
     }
     if (!v.is_table()) {
-      return absl::InvalidArgumentError(absl::StrCat(source, ":", line, ": '",
-                                                     std::string(k.str()),
+      return absl::InvalidArgumentError(absl::StrCat(source, ":", line, ": '", std::string(k.str()),
                                                      "' must be a section [", std::string(k.str()),
                                                      "], got ", TypeName(v)));
     }
@@ -749,8 +751,8 @@ absl::StatusOr<EngineConfig> ParseEngineConfig(absl::string_view toml_text,
         toml::parse(std::string_view(toml_text.data(), toml_text.size()), source);
     return ParseDocument(doc, source);
   } catch (const toml::parse_error& e) {
-    return absl::InvalidArgumentError(absl::StrCat(source, ":", e.source().begin.line, ": ",
-                                                   std::string(e.description())));
+    return absl::InvalidArgumentError(
+        absl::StrCat(source, ":", e.source().begin.line, ": ", std::string(e.description())));
   } catch (const std::exception& e) {
     return absl::InvalidArgumentError(absl::StrCat(source, ": ", e.what()));
   }
@@ -832,12 +834,11 @@ std::string FormatEngineConfig(const EngineConfig& c) {
                   "\nscale_cap = ", num(c.outputs.scale_cap), "\n");
   absl::StrAppend(&o, "\n[limits]\nmax_symbols = ", c.limits.max_symbols, "\n");
   const RefitConfig& r = c.refit;
-  absl::StrAppend(&o, "\n[refit]\nevery_bars = ", r.every_bars,
-                  "\nevery_seconds = ", num(r.every_seconds), "\nwindow = ", r.window,
-                  "\nmin_bars = ", r.min_bars, "\nworkers = ", r.workers,
-                  "\nreidentify_every = ", r.reidentify_every,
-                  "\nmax_persistence = ", num(r.max_persistence),
-                  "\nholdout_bars = ", r.holdout_bars);
+  absl::StrAppend(
+      &o, "\n[refit]\nevery_bars = ", r.every_bars, "\nevery_seconds = ", num(r.every_seconds),
+      "\nwindow = ", r.window, "\nmin_bars = ", r.min_bars, "\nworkers = ", r.workers,
+      "\nreidentify_every = ", r.reidentify_every, "\nmax_persistence = ", num(r.max_persistence),
+      "\nholdout_bars = ", r.holdout_bars);
   absl::StrAppend(&o, "\nholdout_margin = ", num(r.holdout_margin),
                   "\nmax_failures = ", r.max_failures, "\napply_lag_bars = ", r.apply_lag_bars,
                   "\njitter_fraction = ", num(r.jitter_fraction),
@@ -851,8 +852,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
   absl::StrAppend(&o, "\nregime_fast_halflife = ", num(a.regime_fast_halflife),
                   "\nregime_slow_halflife = ", num(a.regime_slow_halflife),
                   "\npersistence_threshold = ", num(a.persistence_threshold),
-                  "\nstale_seconds = ", num(a.stale_seconds),
-                  "\nreject_burst = ", a.reject_burst, "\n");
+                  "\nstale_seconds = ", num(a.stale_seconds), "\nreject_burst = ", a.reject_burst,
+                  "\n");
   absl::StrAppend(&o, "\n[http]\nendpoint = ", Quote(c.http.endpoint),
                   "\nenabled = ", c.http.enabled ? "true" : "false", "\n");
   absl::StrAppend(&o, "\n[checkpoint]\npath = ", Quote(c.checkpoint.path),

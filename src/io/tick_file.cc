@@ -74,7 +74,8 @@ bool ParseIso(absl::string_view s, int64_t* ns) {
     return false;  // the zone must be explicit
   }
   if (pos != s.size()) return false;
-  const absl::Time t = absl::FromCivil(absl::CivilSecond(y, mo, d, h, mi, sec), absl::UTCTimeZone());
+  const absl::Time t =
+      absl::FromCivil(absl::CivilSecond(y, mo, d, h, mi, sec), absl::UTCTimeZone());
   const int64_t secs = absl::ToUnixSeconds(t) - int64_t{offset_minutes} * 60;
   // 2261-12-31T23:59:59 + 23:59 of offset still fits in int64 ns.
   if (secs < 0) return false;
@@ -89,9 +90,8 @@ int Split(absl::string_view line, absl::string_view* fields, int max) {
   size_t start = 0;
   while (true) {
     const size_t comma = line.find(',', start);
-    const absl::string_view f =
-        line.substr(start, comma == absl::string_view::npos ? absl::string_view::npos
-                                                             : comma - start);
+    const absl::string_view f = line.substr(
+        start, comma == absl::string_view::npos ? absl::string_view::npos : comma - start);
     if (n < max) fields[n] = absl::StripAsciiWhitespace(f);
     ++n;
     if (comma == absl::string_view::npos || n > max) break;
@@ -221,7 +221,8 @@ absl::Status TickFileReader::ParseLine(absl::string_view line, Tick* tick) const
         absl::StrCat(value_name, ": expected a finite number, got '", f[value_col_], "'"));
   }
   if (kind_ == Tick::kPrice && value <= 0) {
-    return absl::InvalidArgumentError(absl::StrCat("price: must be > 0, got '", f[value_col_], "'"));
+    return absl::InvalidArgumentError(
+        absl::StrCat("price: must be > 0, got '", f[value_col_], "'"));
   }
   double rv = std::numeric_limits<double>::quiet_NaN();
   if (rv_col_ >= 0 && !f[rv_col_].empty()) {
@@ -267,9 +268,9 @@ bool TickFileReader::Next(Tick* tick) {
   if (in_->bad()) {
     status_ = absl::DataLossError(absl::StrCat(name_, ": read error after line ", line_number_));
   } else if (good_lines_ == 0 && bad_lines_ > 0) {
-    status_ = absl::InvalidArgumentError(absl::StrCat(name_, ": no line could be read (",
-                                                      bad_lines_, " bad lines); first error: ",
-                                                      errors_.empty() ? "" : errors_[0]));
+    status_ = absl::InvalidArgumentError(
+        absl::StrCat(name_, ": no line could be read (", bad_lines_,
+                     " bad lines); first error: ", errors_.empty() ? "" : errors_[0]));
   }
   return false;
 }

@@ -4,7 +4,6 @@
 #include <cmath>
 #include <cstring>
 #include <exception>
-
 #include <nlohmann/json.hpp>
 
 #include "absl/strings/str_cat.h"
@@ -26,14 +25,19 @@ absl::Status CheckUpdate(const BarUpdate& u) {
   }
   if (u.n_horizons < 0 || u.n_horizons > kMaxHorizons || u.n_levels < 0 ||
       u.n_levels > kMaxRiskLevels) {
-    return absl::InvalidArgumentError(absl::StrCat("update for ", u.symbol.view(),
-                                                   ": horizon or level count out of range"));
+    return absl::InvalidArgumentError(
+        absl::StrCat("update for ", u.symbol.view(), ": horizon or level count out of range"));
   }
   const struct {
     const char* name;
     double v;
-  } fields[] = {{"r", u.r},     {"mu", u.mu},   {"eps", u.eps},           {"var", u.var},
-                {"z", u.z},     {"var_next", u.var_next}, {"vol_ann", u.vol_ann},
+  } fields[] = {{"r", u.r},
+                {"mu", u.mu},
+                {"eps", u.eps},
+                {"var", u.var},
+                {"z", u.z},
+                {"var_next", u.var_next},
+                {"vol_ann", u.vol_ann},
                 {"scale", u.scale}};
   for (const auto& f : fields) {
     if (!std::isfinite(f.v)) {
@@ -48,8 +52,7 @@ absl::Status CheckUpdate(const BarUpdate& u) {
     }
   }
   for (int i = 0; i < u.n_levels; ++i) {
-    if (!std::isfinite(u.levels[i]) || !std::isfinite(u.var_risk[i]) ||
-        !std::isfinite(u.es[i])) {
+    if (!std::isfinite(u.levels[i]) || !std::isfinite(u.var_risk[i]) || !std::isfinite(u.es[i])) {
       return absl::InvalidArgumentError(absl::StrCat(
           "update for ", u.symbol.view(), ": level, var_risk or es [", i, "] is not finite"));
     }
@@ -179,16 +182,19 @@ absl::Status DecodeUpdateJson(absl::string_view text, BarUpdate* u) {
   try {
     const json j = json::parse(text.begin(), text.end());
     if (!j.is_object()) return absl::InvalidArgumentError("update JSON: not an object");
-    static const char* const kKeys[] = {"s",       "t",       "r",     "mu",    "eps",
-                                        "var",     "z",       "var_next", "vol_ann", "var_h",
-                                        "var_risk", "es",     "scale", "ver",   "flags"};
+    static const char* const kKeys[] = {"s",        "t",  "r",        "mu",      "eps",
+                                        "var",      "z",  "var_next", "vol_ann", "var_h",
+                                        "var_risk", "es", "scale",    "ver",     "flags"};
     for (auto it = j.begin(); it != j.end(); ++it) {
       bool known = false;
       for (const char* k : kKeys) known = known || it.key() == k;
-      if (!known) return absl::InvalidArgumentError(absl::StrCat("update JSON: unknown key '", it.key(), "'"));
+      if (!known)
+        return absl::InvalidArgumentError(
+            absl::StrCat("update JSON: unknown key '", it.key(), "'"));
     }
     for (const char* k : kKeys) {
-      if (!j.contains(k)) return absl::InvalidArgumentError(absl::StrCat("update JSON: missing key '", k, "'"));
+      if (!j.contains(k))
+        return absl::InvalidArgumentError(absl::StrCat("update JSON: missing key '", k, "'"));
     }
     BarUpdate v;
     const std::string sym = j.at("s").get<std::string>();

@@ -1,8 +1,8 @@
 #include "aftershock/wire.h"
 
+#include <cctype>
 #include <charconv>
 #include <cmath>
-#include <cctype>
 #include <cstring>
 
 namespace aftershock {
@@ -11,8 +11,8 @@ namespace {
 constexpr int kMaxSkipDepth = 16;  // nesting allowed inside a skipped unknown value
 
 bool IsSymbolChar(char c) {
-  return (c >= 'A' && c <= 'Z') || (c >= 'a' && c <= 'z') || (c >= '0' && c <= '9') ||
-         c == '.' || c == '_' || c == ':' || c == '-';
+  return (c >= 'A' && c <= 'Z') || (c >= 'a' && c <= 'z') || (c >= '0' && c <= '9') || c == '.' ||
+         c == '_' || c == ':' || c == '-';
 }
 
 // ---- Strict JSON scanner for the fixed tick schema ---------------------------
@@ -184,8 +184,8 @@ bool ParseDouble(absl::string_view tok, double* out) {
   if (res.ec == std::errc::result_out_of_range) {
     // Overflow is non-finite; underflow to a subnormal/zero is a finite value.
     // from_chars leaves *out unmodified on range errors, so decide by exponent sign.
-    const bool neg_exp = tok.find("e-") != absl::string_view::npos ||
-                         tok.find("E-") != absl::string_view::npos;
+    const bool neg_exp =
+        tok.find("e-") != absl::string_view::npos || tok.find("E-") != absl::string_view::npos;
     if (neg_exp) {
       *out = 0.0;
       return true;
@@ -235,8 +235,7 @@ bool ParseTickObject(Scanner* sc, absl::string_view frame_symbol, Tick* tick,
         if (!sc->String(&sym, &sym_esc)) return false;
         if (have_s) mark(RejectReason::kMalformedJson);
         have_s = true;
-        if (sym_esc || !IsValidSymbol(sym) ||
-            (!frame_symbol.empty() && sym != frame_symbol)) {
+        if (sym_esc || !IsValidSymbol(sym) || (!frame_symbol.empty() && sym != frame_symbol)) {
           mark(RejectReason::kBadSymbol);
         } else {
           tick->symbol.assign(sym);
@@ -248,7 +247,12 @@ bool ParseTickObject(Scanner* sc, absl::string_view frame_symbol, Tick* tick,
         // Not a number: skip it (strings, null, ...) and reject the record.
         if (!sc->SkipValue(0)) return false;
         mark(k == 't' ? RejectReason::kBadTime : RejectReason::kNonFinite);
-        if (k == 't') have_t = true; else if (k == 'v') have_v = true; else have_value = true;
+        if (k == 't')
+          have_t = true;
+        else if (k == 'v')
+          have_v = true;
+        else
+          have_value = true;
         continue;
       }
       absl::string_view tok;
@@ -259,8 +263,8 @@ bool ParseTickObject(Scanner* sc, absl::string_view frame_symbol, Tick* tick,
         have_t = true;
         int64_t t = 0;
         const auto res = std::from_chars(tok.data(), tok.data() + tok.size(), t);
-        if (non_finite || !is_int || res.ec != std::errc() ||
-            res.ptr != tok.data() + tok.size() || t < 0) {
+        if (non_finite || !is_int || res.ec != std::errc() || res.ptr != tok.data() + tok.size() ||
+            t < 0) {
           mark(RejectReason::kBadTime);
         } else {
           tick->t_ns = t;
@@ -484,10 +488,10 @@ absl::string_view WireEncodingName(WireEncoding e) {
 
 absl::string_view RejectReasonName(RejectReason r) {
   static constexpr absl::string_view kNames[kNumRejectReasons] = {
-      "malformed_json", "malformed_binary", "bad_symbol",      "oversize",
-      "non_finite",     "non_positive_price", "missing_field", "unknown_field",
-      "batch_too_large", "bad_time",        "bad_size",        "too_old",
-      "outside_session", "duplicate",       "kind_mismatch",   "symbol_limit"};
+      "malformed_json",  "malformed_binary",   "bad_symbol",    "oversize",
+      "non_finite",      "non_positive_price", "missing_field", "unknown_field",
+      "batch_too_large", "bad_time",           "bad_size",      "too_old",
+      "outside_session", "duplicate",          "kind_mismatch", "symbol_limit"};
   const int i = static_cast<int>(r);
   return i >= 0 && i < kNumRejectReasons ? kNames[i] : "unknown";
 }

@@ -13,6 +13,10 @@ int64_t FloorDiv(int64_t a, int64_t b) {
 
 int64_t FloorMod(int64_t a, int64_t b) { return a - FloorDiv(a, b) * b; }
 
+// log(p1 / p0) as a difference of logs: finite for all positive finite
+// doubles, where the ratio itself can overflow (1e300 / 1e-300).
+double LogReturn(double p1, double p0) { return std::log(p1) - std::log(p0); }
+
 int64_t OffsetNs(const SessionWindow& s) {
   return static_cast<int64_t>(s.tz_offset_minutes) * kNanosPerMinute;
 }
@@ -62,7 +66,7 @@ ClosedBar CloseBar(BarState* st, bool by_clock) {
   bar.closed_by_clock = by_clock;
   if (st->kind == Tick::kPrice) {
     bar.has_return = st->has_prev_close && !st->open_gap;
-    bar.ret = bar.has_return ? std::log(st->open_price / st->prev_close) : 0.0;
+    bar.ret = bar.has_return ? LogReturn(st->open_price, st->prev_close) : 0.0;
     bar.last_price = st->open_price;
     st->prev_close = st->open_price;
     st->has_prev_close = true;
@@ -96,6 +100,8 @@ bool InSession(const SessionWindow& s, int64_t t_ns) {
 }
 
 FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {
+  // Bounds keep every boundary computation below free of int64 overflow.
+  if (tick.t_ns < 0 || tick.t_ns > kMaxBarTimeNs) return Reject(RejectReason::kBadTime);
   if (st->has_tick && tick.kind != st->kind) return Reject(RejectReason::kKindMismatch);
   if (tick.kind == Tick::kPrice && !(tick.value > 0)) {
     return Reject(RejectReason::kNonPositivePrice);
@@ -120,7 +126,7 @@ FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {
     bar.n_ticks = 1;
     if (tick.kind == Tick::kPrice) {
       bar.has_return = st->has_prev_close && !gap;
-      bar.ret = bar.has_return ? std::log(tick.value / st->prev_close) : 0.0;
+      bar.ret = bar.has_return ? LogReturn(tick.value, st->prev_close) : 0.0;
       bar.last_price = tick.value;
       st->prev_close = tick.value;
       st->has_prev_close = true;
@@ -137,6 +143,10 @@ FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {
   } else if (st->open && tick.t_ns < st->open_end_ns) {
     if (tick.t_ns < st->open_start_ns || tick.t_ns < st->latest_t_ns - o.max_lateness_ns) {
       return Reject(RejectReason::kTooOld);
+    }
+    // Two finite returns can sum to infinity; the bar's return must stay finite.
+    if (tick.kind == Tick::kReturn && !std::isfinite(st->ret_sum + tick.value)) {
+      return Reject(RejectReason::kNonFinite);
     }
     ++st->n_ticks;
     if (tick.kind == Tick::kPrice) {

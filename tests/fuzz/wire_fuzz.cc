@@ -51,8 +51,8 @@ extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {
     aftershock::EncodeBatchBinary(absl::Span<const Tick>(out, r.n_ticks), &again);
     static Tick back[64];
     aftershock::RejectCounters c2;
-    const auto r2 = aftershock::DecodeTicks("*", again, aftershock::WireEncoding::kBinary,
-                                            1 << 20, absl::Span<Tick>(back, 64), &c2);
+    const auto r2 = aftershock::DecodeTicks("*", again, aftershock::WireEncoding::kBinary, 1 << 20,
+                                            absl::Span<Tick>(back, 64), &c2);
     FUZZ_CHECK(r2.n_ticks == r.n_ticks);
     aftershock::EncodeBatchJson(absl::Span<const Tick>(out, r.n_ticks), &again);
     static Tick json_back[64];
@@ -71,10 +71,13 @@ extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {
   // The bar builder never yields a non-finite return from valid ticks.
   aftershock::BarState state;
   aftershock::BarOptions options;
-  options.interval_ns = (data[0] & 4) ? 1000 : 0;
+  // Mode bits 2..7 pick the bar options; the offset and interval come from
+  // the same byte so the corpus explores them without a longer header.
+  options.interval_ns = (data[0] & 4) ? int64_t{1000} << (data[0] >> 5) * 7 : 0;
   options.session.enabled = (data[0] & 8) != 0;
   options.session.start_minute = 60;
   options.session.end_minute = (data[0] & 16) ? 30 : 1000;
+  options.session.tz_offset_minutes = (data[0] & 32) ? 1440 : -1440;
   for (int i = 0; i < r.n_ticks; ++i) {
     const aftershock::FeedResult f = aftershock::FeedTick(&state, out[i], options);
     if (f.closed) FUZZ_CHECK(std::isfinite(f.bar.ret));

@@ -1,7 +1,6 @@
 #include "aftershock/engine_config.h"
 
 #include <catch2/catch.hpp>
-
 #include <string>
 
 #include "support/test_support.h"
@@ -224,14 +223,15 @@ TEST_CASE("session errors", "[engine_config]") {
 TEST_CASE("model and parameter errors name the key and line", "[engine_config]") {
   CHECK(ErrorOf("[model]\nmean = \"arima\"\n") ==
         "config.toml:2: [model] mean: unknown mean 'arima' (expected zero, constant or arma)");
-  CHECK(ErrorOf("[model]\nvariance = \"figarch\"\n").find(
-            "config.toml:2: [model] variance: unknown variance 'figarch'") == 0);
+  CHECK(ErrorOf("[model]\nvariance = \"figarch\"\n")
+            .find("config.toml:2: [model] variance: unknown variance 'figarch'") == 0);
   CHECK(ErrorOf("[model]\nmean = \"arma\"\nmean_order = [6, 0]\n")
             .find("config.toml:3: [model] mean_order: ARMA orders must be in 0..5") == 0);
   CHECK(ErrorOf("[model]\nmean_order = [1, 1]\n") ==
         "config.toml:2: [model] mean_order: only used with mean = \"arma\"");
-  CHECK(ErrorOf("[model]\nvariance_order = [1]\n").find(
-            "config.toml:2: [model] variance_order: ") == 0);
+  CHECK(
+      ErrorOf("[model]\nvariance_order = [1]\n").find("config.toml:2: [model] variance_order: ") ==
+      0);
   const std::string head = "[model]\nvariance = \"garch\"\ninnovations = \"normal\"\n";
   const std::string nu_error =
       ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = 0.1\nbeta1 = 0.8\nnu = 5\n");
@@ -245,7 +245,8 @@ TEST_CASE("model and parameter errors name the key and line", "[engine_config]")
             .find("config.toml:6: [model.params] omega: omega must be > 0") == 0);
   CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = 0.3\nbeta1 = 0.8\n")
             .find("persistence must be < 1") != std::string::npos);
-  auto ok = ParseEngineConfig(head + "[model.params]\nmu = 0\nomega = 1\nalpha1 = 0.1\nbeta1 = 0.8\n", "x");
+  auto ok = ParseEngineConfig(
+      head + "[model.params]\nmu = 0\nomega = 1\nalpha1 = 0.1\nbeta1 = 0.8\n", "x");
   REQUIRE(ok.ok());
   CHECK(ok->model.has_params);
   CHECK(ok->model.params.values == std::vector<double>{0, 1, 0.1, 0.8});

@@ -1,12 +1,10 @@
 #include "aftershock/update_codec.h"
 
 #include <catch2/catch.hpp>
-
 #include <cmath>
 #include <limits>
-#include <string>
-
 #include <nlohmann/json.hpp>
+#include <string>
 
 namespace aftershock {
 namespace {

@@ -1,7 +1,6 @@
 #include "aftershock/wire.h"
 
 #include <catch2/catch.hpp>
-
 #include <cmath>
 #include <cstdlib>
 #include <cstring>
@@ -39,6 +38,17 @@ void* operator new(std::size_t n) {
   throw std::bad_alloc();
 }
 void* operator new[](std::size_t n) { return operator new(n); }
+// The nothrow forms are replaced too, so every pointer freed by the
+// replacements below came from malloc (sanitizers check the pairing).
+void* operator new(std::size_t n, const std::nothrow_t&) noexcept {
+  if (g_counting) ++g_allocations;
+  return std::malloc(n == 0 ? 1 : n);
+}
+void* operator new[](std::size_t n, const std::nothrow_t& t) noexcept {
+  return operator new(n, t);
+}
+void operator delete(void* p, const std::nothrow_t&) noexcept { std::free(p); }
+void operator delete[](void* p, const std::nothrow_t&) noexcept { std::free(p); }
 void operator delete(void* p) noexcept { std::free(p); }
 void operator delete[](void* p) noexcept { std::free(p); }
 void operator delete(void* p, std::size_t) noexcept { std::free(p); }
@@ -97,8 +107,13 @@ TEST_CASE("JSON single ticks decode exactly", "[wire]") {
 }
 
 TEST_CASE("JSON encoder round-trips every double exactly", "[wire]") {
-  const double values[] = {0.1, 1.0 / 3.0, 101.25, 5e-324, 1.7976931348623157e308,
-                           -2.2250738585072014e-308, 123456789.123456789};
+  const double values[] = {0.1,
+                           1.0 / 3.0,
+                           101.25,
+                           5e-324,
+                           1.7976931348623157e308,
+                           -2.2250738585072014e-308,
+                           123456789.123456789};
   Tick out[1];
   RejectCounters c;
   std::string body;
@@ -150,13 +165,12 @@ TEST_CASE("each JSON rejection class is named", "[wire]") {
 }
 
 TEST_CASE("JSON batch decodes good records and counts bad ones individually", "[wire]") {
-  const std::string body =
-      R"([{"s":"ALDER.X","t":1,"p":10},)"
-      R"({"s":"BIRCH.Y","t":2,"p":-1},)"
-      R"({"t":3,"p":1},)"
-      R"({"s":"CEDAR","t":4,"r":0.01,"zz":1},)"
-      R"({"s":"bad sym","t":5,"p":1},)"
-      R"({"s":"ELM","t":6,"r":-0.02,"v":7}])";
+  const std::string body = R"([{"s":"ALDER.X","t":1,"p":10},)"
+                           R"({"s":"BIRCH.Y","t":2,"p":-1},)"
+                           R"({"t":3,"p":1},)"
+                           R"({"s":"CEDAR","t":4,"r":0.01,"zz":1},)"
+                           R"({"s":"bad sym","t":5,"p":1},)"
+                           R"({"s":"ELM","t":6,"r":-0.02,"v":7}])";
   Tick out[8];
   RejectCounters c;
   const DecodeResult r = DecodeTicks("*", body, WireEncoding::kJson, kLimit, out, &c);
@@ -191,6 +205,30 @@ TEST_CASE("JSON batch decodes good records and counts bad ones individually", "[
   RejectCounters c4;
   CHECK(DecodeTicks("*", " [ ] ", WireEncoding::kJson, kLimit, out, &c4).n_ticks == 0);
   CHECK(c4.Total() == 0);
+}
+
+TEST_CASE("every truncation of a valid message is rejected whole", "[wire]") {
+  const std::vector<Tick> ticks = {MakeTick("ALDER.X", 12345, Tick::kPrice, 101.25, 3),
+                                   MakeTick("B", 7, Tick::kReturn, -0.125)};
+  std::string json, binary;
+  EncodeBatchJson(ticks, &json);
+  EncodeBatchBinary(ticks, &binary);
+  Tick out[4];
+  for (int which = 0; which < 2; ++which) {
+    const std::string& full = which == 0 ? json : binary;
+    const WireEncoding enc = which == 0 ? WireEncoding::kJson : WireEncoding::kBinary;
+    const RejectReason expected =
+        which == 0 ? RejectReason::kMalformedJson : RejectReason::kMalformedBinary;
+    int wrong = 0;
+    for (size_t n = 0; n < full.size(); ++n) {
+      RejectCounters c;
+      const DecodeResult r = DecodeTicks("*", full.substr(0, n), enc, kLimit, out, &c);
+      if (r.n_ticks != 0 || c.Get(expected) != 1 || c.Total() != 1) ++wrong;
+    }
+    CHECK(wrong == 0);
+    RejectCounters c;
+    CHECK(DecodeTicks("*", full, enc, kLimit, out, &c).n_ticks == 2);
+  }
 }
 
 TEST_CASE("binary ticks and batches round-trip exactly", "[wire]") {
@@ -272,8 +310,9 @@ TEST_CASE("binary rejections: structure rejects the message, content the record"
   CHECK(reason_count(b, RejectReason::kBadSize, &n));
   // Capacity.
   RejectCounters c;
-  CHECK(DecodeTicks("*", good, WireEncoding::kBinary, kLimit, absl::Span<Tick>(out, 1), &c)
-            .n_ticks == 0);
+  CHECK(
+      DecodeTicks("*", good, WireEncoding::kBinary, kLimit, absl::Span<Tick>(out, 1), &c).n_ticks ==
+      0);
   CHECK(c.Get(RejectReason::kBatchTooLarge) == 1);
 }
 
@@ -303,8 +342,8 @@ TEST_CASE("decoding 10,000 messages does not allocate", "[wire][alloc]") {
   StartCounting();
   for (int i = 0; i < 5000; ++i) {
     good += DecodeTicks("ALDER.X", json_bodies[i], WireEncoding::kJson, kLimit, out, &c).n_ticks;
-    good += DecodeTicks("ALDER.X", binary_bodies[i], WireEncoding::kBinary, kLimit, out, &c)
-                .n_ticks;
+    good +=
+        DecodeTicks("ALDER.X", binary_bodies[i], WireEncoding::kBinary, kLimit, out, &c).n_ticks;
   }
   for (int i = 0; i < 10; ++i) {
     good += DecodeTicks("*", json_batch, WireEncoding::kJson, kLimit, out, &c).n_ticks;

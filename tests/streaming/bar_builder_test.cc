@@ -1,7 +1,6 @@
 #include "aftershock/bar_builder.h"
 
 #include <catch2/catch.hpp>
-
 #include <cmath>
 #include <type_traits>
 #include <vector>
@@ -43,7 +42,7 @@ TEST_CASE("interval 0: every price message is a bar", "[bar_builder]") {
   r = FeedTick(&st, Price(20, 101), o);
   REQUIRE(r.closed);
   CHECK(r.bar.has_return);
-  CHECK(r.bar.ret == std::log(101.0 / 100.0));
+  CHECK(r.bar.ret == (std::log(101.0) - std::log(100.0)));
   CHECK(r.bar.flags == 0);
   CHECK(r.bar.n_ticks == 1);
   // Exact duplicate of the last message: dropped.
@@ -54,7 +53,7 @@ TEST_CASE("interval 0: every price message is a bar", "[bar_builder]") {
   // Same time, new value: a new bar.
   r = FeedTick(&st, Price(20, 102), o);
   REQUIRE(r.closed);
-  CHECK(r.bar.ret == std::log(102.0 / 101.0));
+  CHECK(r.bar.ret == (std::log(102.0) - std::log(101.0)));
   // Older than the previous bar.
   r = FeedTick(&st, Price(19, 102), o);
   CHECK(r.status == TickStatus::kRejected);
@@ -111,7 +110,7 @@ TEST_CASE("time bars aligned to the epoch close on the next bar's tick", "[bar_b
   REQUIRE(r.closed);
   CHECK(r.bar.t_end_ns == t0 + 10 * kSec);
   CHECK(r.bar.has_return);
-  CHECK(r.bar.ret == std::log(103.0 / 102.0));
+  CHECK(r.bar.ret == (std::log(103.0) - std::log(102.0)));
   CHECK(st.open_start_ns == t0 + 20 * kSec);
 }
 
@@ -127,7 +126,7 @@ TEST_CASE("latest timestamp wins, ties go to the later arrival", "[bar_builder]"
   FeedTick(&st, Price(kDay0 + kMin + 3, 50), o);  // older: ignored for the last price
   ClosedBar bar;
   REQUIRE(CloseIfDue(&st, kDay0 + 2 * kMin, 0, o, &bar));
-  CHECK(bar.ret == std::log(40.0 / 10.0));
+  CHECK(bar.ret == (std::log(40.0) - std::log(10.0)));
   CHECK(bar.n_ticks == 4);
 }
 
@@ -167,7 +166,7 @@ TEST_CASE("the clock closes an idle bar after the grace period", "[bar_builder]"
   CHECK(r.status == TickStatus::kAccepted);
   REQUIRE(CloseIfDue(&st, kDay0 + 11 * kSec, grace, o, &bar));
   CHECK(bar.has_return);
-  CHECK(bar.ret == std::log(101.0 / 100.0));
+  CHECK(bar.ret == (std::log(101.0) - std::log(100.0)));
 }
 
 TEST_CASE("sessions: outside ticks rejected, bars anchored and clipped, gaps flagged",
@@ -178,7 +177,7 @@ TEST_CASE("sessions: outside ticks rejected, bars anchored and clipped, gaps fla
   o.session.enabled = true;
   o.session.start_minute = 8 * 60;
   o.session.end_minute = 16 * 60 + 30;
-  o.session.tz_offset_minutes = 60;  // local = UTC+1
+  o.session.tz_offset_minutes = 60;                // local = UTC+1
   const int64_t open_utc = kDay0 + 7 * 60 * kMin;  // 08:00 local = 07:00Z
   // 07:59 local is outside.
   CHECK(FeedTick(&st, Price(open_utc - kMin, 100), o).reason == RejectReason::kOutsideSession);
@@ -199,7 +198,7 @@ TEST_CASE("sessions: outside ticks rejected, bars anchored and clipped, gaps fla
   REQUIRE(r.closed);
   CHECK(r.bar.t_end_ns == close_utc);
   CHECK(r.bar.has_return);
-  CHECK(r.bar.ret == std::log(101.0 / 100.0));
+  CHECK(r.bar.ret == (std::log(101.0) - std::log(100.0)));
   ClosedBar bar;
   REQUIRE(CloseIfDue(&st, open_utc + kNanosPerDay + 8 * kMin, 0, o, &bar));
   CHECK_FALSE(bar.has_return);  // no overnight return
@@ -209,12 +208,11 @@ TEST_CASE("sessions: outside ticks rejected, bars anchored and clipped, gaps fla
   FeedTick(&st, Price(open_utc + kNanosPerDay + 9 * kMin, 121), o);
   REQUIRE(CloseIfDue(&st, open_utc + kNanosPerDay + 15 * kMin, 0, o, &bar));
   CHECK(bar.has_return);
-  CHECK(bar.ret == std::log(121.0 / 120.0));
+  CHECK(bar.ret == (std::log(121.0) - std::log(120.0)));
   CHECK(bar.flags == 0);
 }
 
-TEST_CASE("sessions over midnight and per-message bars across a session gap",
-          "[bar_builder]") {
+TEST_CASE("sessions over midnight and per-message bars across a session gap", "[bar_builder]") {
   SessionWindow s;
   s.enabled = true;
   s.start_minute = 22 * 60;
@@ -238,6 +236,33 @@ TEST_CASE("sessions over midnight and per-message bars across a session gap",
   REQUIRE(r.closed);
   CHECK_FALSE(r.bar.has_return);
   CHECK(r.bar.flags == kFlagGap);
+}
+
+TEST_CASE("extreme but valid inputs keep the return finite", "[bar_builder]") {
+  // Found by tests/fuzz/wire_fuzz: the ratio 1e308 / 5e-324 overflows to inf.
+  BarState st;
+  BarOptions o;
+  FeedTick(&st, Price(1, 5e-324), o);
+  FeedResult r = FeedTick(&st, Price(2, 1e308), o);
+  REQUIRE(r.closed);
+  CHECK(std::isfinite(r.bar.ret));
+  CHECK(r.bar.ret == Approx(std::log(1e308) - std::log(5e-324)));
+  BarState rs;
+  o.interval_ns = kSec;
+  CHECK(FeedTick(&rs, Return(1, 1e308), o).status == TickStatus::kAccepted);
+  r = FeedTick(&rs, Return(2, 1e308), o);
+  CHECK(r.status == TickStatus::kRejected);
+  CHECK(r.reason == RejectReason::kNonFinite);
+}
+
+TEST_CASE("times outside [0, 2^62] are bad_time", "[bar_builder]") {
+  BarState st;
+  BarOptions o;
+  o.interval_ns = kMin;
+  o.session.tz_offset_minutes = 1440;
+  CHECK(FeedTick(&st, Price(-1, 1), o).reason == RejectReason::kBadTime);
+  CHECK(FeedTick(&st, Price(kMaxBarTimeNs + 1, 1), o).reason == RejectReason::kBadTime);
+  CHECK(FeedTick(&st, Price(kMaxBarTimeNs, 1), o).status == TickStatus::kAccepted);
 }
 
 TEST_CASE("the builder state is small and fixed-size", "[bar_builder]") {
