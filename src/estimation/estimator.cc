@@ -11,6 +11,7 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
+#include "aftershock/likelihood.h"
 #include "estimation/likelihood_kernel.h"
 
 namespace aftershock {
@@ -181,6 +182,47 @@ absl::Status ValidateReturns(absl::Span<const double> returns, int min_obs) {
   return absl::OkStatus();
 }
 
+// Two-step estimation: with the mean held fixed the likelihood depends on the
+// data only through the residuals, so the variance part is fitted as a
+// zero-mean model of the residual series (same terms, same presample), which
+// is cheaper and takes the order-one fast path where it applies.
+absl::StatusOr<FitResult> FitWithFixedMean(const ModelSpec& spec, absl::Span<const double> returns,
+                                           const FitOptions& options,
+                                           std::chrono::steady_clock::time_point t0) {
+  const int nm = spec.NumMeanParams();
+  LikelihoodOptions lo;
+  lo.gradient = false;
+  lo.series = true;
+  lo.presample = options.presample;
+  ModelParams probe = *options.start;
+  // Residuals do not depend on the variance block; make it valid anyway.
+  auto eps = EvaluateLikelihood(probe, returns, lo);
+  if (!eps.ok()) return eps.status();
+  ModelSpec zero = spec;
+  zero.mean = MeanKind::kZero;
+  zero.ar_order = zero.ma_order = 0;
+  FitOptions sub = options;
+  sub.fix_mean = false;
+  sub.start = ModelParams{zero, std::vector<double>(options.start->values.begin() + nm,
+                                                    options.start->values.end())};
+  auto fit = FitModel(zero, eps->residuals, sub);
+  if (!fit.ok()) return fit.status();
+  FitResult res = *std::move(fit);
+  std::vector<double> values(options.start->values.begin(), options.start->values.begin() + nm);
+  values.insert(values.end(), res.params.values.begin(), res.params.values.end());
+  res.params = ModelParams{spec, std::move(values)};
+  res.names = spec.ParamNames();
+  std::vector<bool> fixed(nm, true);
+  fixed.insert(fixed.end(), res.fixed.begin(), res.fixed.end());
+  res.fixed = std::move(fixed);
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  res.std_errors.insert(res.std_errors.begin(), nm, nan);
+  res.robust_std_errors.insert(res.robust_std_errors.begin(), nm, nan);
+  if (options.keep_series) res.residuals = eps->residuals;
+  res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  return res;
+}
+
 absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const double> returns,
                                    const FitOptions& options) {
   const auto t0 = std::chrono::steady_clock::now();
@@ -204,6 +246,9 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   const int min_obs = std::max(kMinFitObservations, 10 * std::max(1, k_free)) +
                       spec.ConditioningObs();
   if (auto s = ValidateReturns(returns, min_obs); !s.ok()) return s;
+  if (options.fix_mean && spec.mean != MeanKind::kZero && k_free > 0) {
+    return FitWithFixedMean(spec, returns, options, t0);
+  }
 
   // Scale to unit standard deviation.
   const double n_all = static_cast<double>(returns.size());

@@ -201,6 +201,10 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
     fo.start = MeanStart(specs[i], sel->best.params);
     fo.fix_mean = true;
     fo.std_errors = false;
+    // Ranking needs the criterion to ~1e-6 nats, not 1e-11: looser tolerances
+    // here, full precision in the warm-started re-fit of the chosen model.
+    fo.ftol_rel = 1e-8;
+    fo.xtol_rel = 1e-6;
     VarianceCandidateResult c;
     c.spec = specs[i];
     auto fit = FitModel(specs[i], returns, fo);
