@@ -189,10 +189,10 @@ struct AlertCounters {
 // Per-symbol rule state, a plain fixed-size value the engine stores next to the
 // symbol's FilterState (zero-initialized by default construction).
 struct SymbolAlertState {
-  RegimeState regime;          // the detector's statistic and current regime
-  int64_t bars = 0;            // bars seen by OnBar (the cool-down clock)
+  RegimeState regime;  // the detector's statistic and current regime
+  int64_t bars = 0;    // bars seen by OnBar (the cool-down clock)
   // Shock cool-down: the last emitted shock.
-  int64_t shock_bar = -1;      // bar index of the last emitted shock; -1 none
+  int64_t shock_bar = -1;  // bar index of the last emitted shock; -1 none
   int64_t shock_t_ns = 0;
   Severity shock_severity = Severity::kInfo;
   // Regime: the last emitted regime alert and whether the current regime's
@@ -200,10 +200,10 @@ struct SymbolAlertState {
   int64_t regime_alert_bar = -1;
   bool regime_published = false;
   // Model lifecycle.
-  bool near_integrated = false;   // the current model's persistence is above threshold
-  bool gate_alerted = false;      // a gate_failed alert was emitted for this streak
-  int gate_failures = 0;          // length of the streak that was alerted
-  bool fallback = false;          // EWMA fallback engaged
+  bool near_integrated = false;  // the current model's persistence is above threshold
+  bool gate_alerted = false;     // a gate_failed alert was emitted for this streak
+  int gate_failures = 0;         // length of the streak that was alerted
+  bool fallback = false;         // EWMA fallback engaged
   // Feed: the last tick and the staleness reference (the later of the last tick
   // and the last out-of-session check), ns; 0 = no tick yet.
   int64_t last_tick_ns = 0;
@@ -258,8 +258,8 @@ class AlertEngine {
 
   // Timer-driven staleness check of one symbol at now_ns (injected clock).
   // Outside the session nothing fires and the staleness reference moves to now.
-  void CheckStale(const Symbol& symbol, int64_t now_ns, bool in_session,
-                  SymbolAlertState* state, AlertSink* sink);
+  void CheckStale(const Symbol& symbol, int64_t now_ns, bool in_session, SymbolAlertState* state,
+                  AlertSink* sink);
 
  private:
   static constexpr int kRejectBuckets = 60;
@@ -275,14 +275,14 @@ class AlertEngine {
   AlertCounters counters_;
   int64_t stale_ns_ = 0;
   int64_t cooldown_ns_ = 0;
-  int64_t bucket_ns_ = 0;               // reject_window_seconds / kRejectBuckets
-  int64_t reject_bucket_ = 0;           // index (now / bucket_ns_) of the newest bucket
+  int64_t bucket_ns_ = 0;      // reject_window_seconds / kRejectBuckets
+  int64_t reject_bucket_ = 0;  // index (now / bucket_ns_) of the newest bucket
   uint64_t reject_counts_[kRejectBuckets] = {};
-  uint64_t reject_window_ = 0;          // sum of reject_counts_
-  bool reject_over_ = false;            // the window count is at or above reject_burst
-  bool reject_alerted_ = false;         // a burst alert was emitted (at reject_alert_ns_)
+  uint64_t reject_window_ = 0;   // sum of reject_counts_
+  bool reject_over_ = false;     // the window count is at or above reject_burst
+  bool reject_alerted_ = false;  // a burst alert was emitted (at reject_alert_ns_)
   int64_t reject_alert_ns_ = 0;
-  Alert scratch_;                       // reused alert record (no allocation per event)
+  Alert scratch_;  // reused alert record (no allocation per event)
 };
 
 }  // namespace aftershock

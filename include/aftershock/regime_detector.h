@@ -69,10 +69,10 @@ enum class RegimeEvent : uint8_t { kNone, kEnterHigh, kClearHigh, kEnterLow, kCl
 
 // Per-symbol detector state; plain fixed-size value (32 bytes + flags).
 struct RegimeState {
-  double fast = 0;    // F, short-run average of squared residuals (variance units)
-  double slow = 0;    // S, long-run average of squared residuals (variance units)
-  double ratio = 1;   // R = F / S after the last update
-  int64_t bars = 0;   // bars absorbed since the state was started
+  double fast = 0;   // F, short-run average of squared residuals (variance units)
+  double slow = 0;   // S, long-run average of squared residuals (variance units)
+  double ratio = 1;  // R = F / S after the last update
+  int64_t bars = 0;  // bars absorbed since the state was started
   RegimeDirection direction = RegimeDirection::kNone;  // current regime
   bool in_regime() const { return direction != RegimeDirection::kNone; }
 };

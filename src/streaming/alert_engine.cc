@@ -25,7 +25,9 @@ __attribute__((format(printf, 2, 3))) void Format(Alert* a, const char* fmt, ...
 
 // Reason text: cut to a length that leaves room for the rest of the sentence.
 constexpr int kMaxReason = 120;
-int ReasonLen(absl::string_view r) { return static_cast<int>(std::min<size_t>(r.size(), kMaxReason)); }
+int ReasonLen(absl::string_view r) {
+  return static_cast<int>(std::min<size_t>(r.size(), kMaxReason));
+}
 
 void AppendJsonString(absl::string_view s, std::string* out) {
   static constexpr char kHex[] = "0123456789abcdef";
@@ -180,8 +182,8 @@ absl::StatusOr<std::unique_ptr<AlertEngine>> AlertEngine::Create(const AlertOpti
   }
   if (!finite(o.persistence_threshold) || !(o.persistence_threshold > 0) ||
       !(o.persistence_threshold < 1)) {
-    return absl::InvalidArgumentError(absl::StrCat(
-        "persistence_threshold must be in (0, 1), got ", o.persistence_threshold));
+    return absl::InvalidArgumentError(
+        absl::StrCat("persistence_threshold must be in (0, 1), got ", o.persistence_threshold));
   }
   if (o.refit_failures < 1) {
     return absl::InvalidArgumentError(

@@ -30,19 +30,18 @@ RegimeDetector::RegimeDetector(const RegimeOptions& options)
 absl::StatusOr<RegimeDetector> RegimeDetector::Create(const RegimeOptions& o) {
   auto finite_pos = [](double v) { return std::isfinite(v) && v > 0; };
   if (!finite_pos(o.enter) || !finite_pos(o.exit) || !(o.exit >= 1.0) || !(o.enter > o.exit)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("regime thresholds need 1 <= regime_exit < regime_enter, got regime_exit = ",
-                     o.exit, " and regime_enter = ", o.enter));
+    return absl::InvalidArgumentError(absl::StrCat(
+        "regime thresholds need 1 <= regime_exit < regime_enter, got regime_exit = ", o.exit,
+        " and regime_enter = ", o.enter));
   }
   if (!finite_pos(o.fast_halflife)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("regime_fast_halflife must be a positive number of bars, got ",
-                     o.fast_halflife));
+    return absl::InvalidArgumentError(absl::StrCat(
+        "regime_fast_halflife must be a positive number of bars, got ", o.fast_halflife));
   }
   if (!finite_pos(o.slow_halflife) || !(o.slow_halflife > o.fast_halflife)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("regime_slow_halflife (", o.slow_halflife,
-                     ") must be larger than regime_fast_halflife (", o.fast_halflife, ")"));
+    return absl::InvalidArgumentError(absl::StrCat("regime_slow_halflife (", o.slow_halflife,
+                                                   ") must be larger than regime_fast_halflife (",
+                                                   o.fast_halflife, ")"));
   }
   if (!std::isfinite(o.clip_z) || (o.clip_z != 0 && !(o.clip_z > 1))) {
     return absl::InvalidArgumentError(

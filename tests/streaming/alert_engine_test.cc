@@ -101,10 +101,11 @@ void CheckBinomial(uint64_t count, int64_t n, double p, const char* label) {
   const boost::math::binomial_distribution<double> b(static_cast<double>(n), p);
   const double lo = boost::math::quantile(b, 0.0005);
   const double hi = boost::math::quantile(boost::math::complement(b, 0.0005));
-  std::printf("%s: %llu shocks with |z| >= 3 in %lld bars, rate %.6f, expected %.6f "
-              "(99.9 %% exact binomial interval %.0f..%.0f)\n",
-              label, static_cast<unsigned long long>(count), static_cast<long long>(n),
-              static_cast<double>(count) / static_cast<double>(n), p, lo, hi);
+  std::printf(
+      "%s: %llu shocks with |z| >= 3 in %lld bars, rate %.6f, expected %.6f "
+      "(99.9 %% exact binomial interval %.0f..%.0f)\n",
+      label, static_cast<unsigned long long>(count), static_cast<long long>(n),
+      static_cast<double>(count) / static_cast<double>(n), p, lo, hi);
   INFO(label);
   CHECK(static_cast<double>(count) >= lo);
   CHECK(static_cast<double>(count) <= hi);
@@ -124,11 +125,11 @@ TEST_CASE("calibration: |z| >= 3 shocks occur at the tail probability of the law
   // Standardized t, nu = 5: z = T sqrt((nu-2)/nu), so
   // P(|z| >= 3) = 2 (1 - T_nu(3 sqrt(nu/(nu-2)))), T_nu from Boost.Math.
   const double nu = 5;
-  const double p_t = 2 * boost::math::cdf(boost::math::complement(
-                             boost::math::students_t_distribution<double>(nu),
-                             3.0 * std::sqrt(nu / (nu - 2))));
-  const ModelParams tgarch = Params(
-      "t", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", nu}});
+  const double p_t =
+      2 * boost::math::cdf(boost::math::complement(boost::math::students_t_distribution<double>(nu),
+                                                   3.0 * std::sqrt(nu / (nu - 2))));
+  const ModelParams tgarch =
+      Params("t", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", nu}});
   CheckBinomial(CountShocks(tgarch, kN, 2025), kN, p_t, "Student-t (nu = 5) GARCH(1,1)");
   // The two laws are far enough apart that the test can tell them apart.
   CHECK(p_t > 1.5 * p_normal);
@@ -236,8 +237,8 @@ TEST_CASE("first, stale and warm-up bars", "[alerts]") {
 
 // Feeds residuals that put the detector's ratio on each target in turn (the
 // cap is off in these engines, see regime_detector_test.cc for the algebra).
-void DriveRatio(AlertEngine* e, SymbolAlertState* st, AlertSink* sink, const char* sym,
-                int64_t* t, const std::vector<double>& targets) {
+void DriveRatio(AlertEngine* e, SymbolAlertState* st, AlertSink* sink, const char* sym, int64_t* t,
+                const std::vector<double>& targets) {
   const RegimeOptions& o = e->detector().options();
   const double lf = std::exp2(-1.0 / o.fast_halflife);
   const double ls = std::exp2(-1.0 / o.slow_halflife);
@@ -405,8 +406,7 @@ TEST_CASE("model alerts: gate failures, fallback, recovery", "[alerts]") {
     const std::string m = s2.alerts[0].message;
     CHECK(m.size() == s2.alerts[0].message_size);
     CHECK(m.size() < static_cast<size_t>(kMaxAlertMessage));
-    CHECK(m.find(std::string(120, 'x') + "); the current model stays in use") !=
-          std::string::npos);
+    CHECK(m.find(std::string(120, 'x') + "); the current model stays in use") != std::string::npos);
   }
 }
 

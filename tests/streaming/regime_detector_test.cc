@@ -144,11 +144,11 @@ TEST_CASE("hysteresis: a ratio bouncing around the enter threshold enters once",
     // Without the gap between enter and exit the same path flaps on every bounce.
     const auto entries = std::count(e2.begin(), e2.end(), enter);
     const auto clears = std::count(e2.begin(), e2.end(), clear);
-    std::printf("hysteresis (%s): with exit %.2f: %zu entries; with exit %.3f: %ld entries, "
-                "%ld clears\n",
-                high ? "high" : "low", o.exit,
-                static_cast<size_t>(std::count(e1.begin(), e1.end(), enter)), flappy.exit,
-                static_cast<long>(entries), static_cast<long>(clears));
+    std::printf(
+        "hysteresis (%s): with exit %.2f: %zu entries; with exit %.3f: %ld entries, "
+        "%ld clears\n",
+        high ? "high" : "low", o.exit, static_cast<size_t>(std::count(e1.begin(), e1.end(), enter)),
+        flappy.exit, static_cast<long>(entries), static_cast<long>(clears));
     CHECK(entries == 100);
     CHECK(clears == 100);
   }
@@ -175,14 +175,14 @@ constexpr int kNumSettings = 4;
 // variance changes by the factor and the conditional variance moves there at
 // the rate of the persistence.
 constexpr double kOmega = 0.1, kAlpha = 0.1, kBeta = 0.8;
-constexpr int64_t kJumpBar = 1000;   // 4 slow half-lives of quiet first
-constexpr int64_t kHorizon = 1000;   // bars after the jump searched for a detection
+constexpr int64_t kJumpBar = 1000;  // 4 slow half-lives of quiet first
+constexpr int64_t kHorizon = 1000;  // bars after the jump searched for a detection
 constexpr int kRuns = 200;
 
 struct DelayResult {
-  double median = 0;   // bars; +inf when half the runs or more missed
-  int detected = 0;    // runs with a detection within kHorizon
-  int preexisting = 0; // runs already in the matching regime at the jump (delay 0)
+  double median = 0;    // bars; +inf when half the runs or more missed
+  int detected = 0;     // runs with a detection within kHorizon
+  int preexisting = 0;  // runs already in the matching regime at the jump (delay 0)
 };
 
 double Median(std::vector<double> v) {
@@ -321,10 +321,11 @@ TEST_CASE("detection delay and false alarms on simulated GARCH data", "[regime][
                   quiet_iid[k].low_per_10k);
     table += row;
   }
-  std::printf("Median detection delay in bars after the jump (runs detected within %lld bars / "
-              "%d), then regime entries per 10,000 bars of 1,000,000-bar series without a "
-              "jump:\n%s",
-              static_cast<long long>(kHorizon), kRuns, table.c_str());
+  std::printf(
+      "Median detection delay in bars after the jump (runs detected within %lld bars / "
+      "%d), then regime entries per 10,000 bars of 1,000,000-bar series without a "
+      "jump:\n%s",
+      static_cast<long long>(kHorizon), kRuns, table.c_str());
   for (int k = 0; k < kNumSettings; ++k) {
     std::printf("  %s: runs already in the matching regime at the jump: x2 %d, x4 %d, x0.25 %d\n",
                 kSettings[k].name, delay[0][k].preexisting, delay[1][k].preexisting,
