@@ -186,8 +186,8 @@ struct AlertCounters {
   uint64_t TotalSuppressed() const;
 };
 
-// Per-symbol rule state, a plain fixed-size value the engine stores next to the
-// symbol's FilterState (zero-initialized by default construction).
+// Per-symbol rule state, a plain fixed-size value (at most 128 bytes) the engine
+// stores next to the symbol's FilterState; ready to use when default-constructed.
 struct SymbolAlertState {
   RegimeState regime;  // the detector's statistic and current regime
   int64_t bars = 0;    // bars seen by OnBar (the cool-down clock)
@@ -202,7 +202,7 @@ struct SymbolAlertState {
   // Model lifecycle.
   bool near_integrated = false;  // the current model's persistence is above threshold
   bool gate_alerted = false;     // a gate_failed alert was emitted for this streak
-  int gate_failures = 0;         // length of the streak that was alerted
+  int gate_failures = 0;         // length of the current failed-gate streak
   bool fallback = false;         // EWMA fallback engaged
   // Feed: the last tick and the staleness reference (the later of the last tick
   // and the last out-of-session check), ns; 0 = no tick yet.

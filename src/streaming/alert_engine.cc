@@ -11,6 +11,8 @@ namespace {
 
 constexpr double kNsPerSecond = 1e9;
 
+static_assert(sizeof(SymbolAlertState) <= 128, "per-symbol alert state must stay small (P5)");
+
 int SymLen(const Symbol& s) { return static_cast<int>(s.size); }
 
 // Formats into alert->message; never writes past the buffer, records the size.
