@@ -1,0 +1,290 @@
+// Alert rules engine (PRODUCT.md C7): turns per-bar updates, model lifecycle
+// events and feed events into Alert records with a severity, a per-symbol and
+// per-kind cool-down, deduplication, and counters for the metrics endpoint.
+//
+// Rules (thresholds are AlertOptions fields):
+//   shock        |z| >= shock_info_z / shock_z / shock_critical_z -> info / warn /
+//                critical (two-sided; value = z, threshold = the highest tier crossed).
+//   regime       the RegimeDetector (regime_detector.h) enters its high regime
+//                (warn) or low regime (info); value = the short/long variance ratio,
+//                threshold = regime_enter or 1 / regime_enter.
+//   regime_clear the regime ends (info); threshold = regime_exit or 1 / regime_exit.
+//   persistence  a model swapped in has persistence >= persistence_threshold (warn).
+//   model        refit failed the quality gate refit_failures times in a row (warn);
+//                a passing refit after such a streak (info); EWMA fallback engaged
+//                (critical) / cleared (info).
+//   feed         no tick for stale_seconds inside the session (warn), ticks resumed
+//                (info); reject_burst rejected ticks within reject_window_seconds (warn).
+//
+// Cool-down and deduplication, exactly:
+//   * Shock: after an emitted shock alert at bar b (time t), a shock at a later bar
+//     of equal or lower severity is suppressed while it is within cooldown_bars
+//     bars (bar index <= b + cooldown_bars) or within cooldown_seconds (t' - t <
+//     cooldown_seconds) of it; a strictly higher severity is always emitted and
+//     restarts the cool-down. cooldown_bars = cooldown_seconds = 0 emits every breach.
+//   * Regime: the hysteresis is the deduplication (one entry per regime). An entry
+//     less than cooldown_bars bars after the symbol's last emitted regime or
+//     regime_clear alert is suppressed, and then so is the clear that ends it.
+//   * Persistence, model and feed alerts fire on transitions into a condition;
+//     while the condition persists a repeated trigger (another near-integrated
+//     swap, another failed refit in the same streak, fallback engaged again, a
+//     second reject burst within reject_window_seconds of the last alert) is
+//     suppressed and counted. A stale symbol is reported once until a tick arrives.
+//   * Bars flagged first-bar or stale (closed by the clock without a tick) never
+//     alert and do not enter the regime averages; bars flagged warm-up update the
+//     regime averages, but their shock and regime alerts are withheld unless
+//     alert_during_warmup.
+//   Every alert a rule produced but did not send (cool-down, repeat, warm-up) is
+//   counted as suppressed under the kind and severity it would have had. Repeated
+//   stale checks of one stale episode are not alerts and are not counted.
+//
+// Thread-safety: not thread-safe. One AlertEngine is used from the ingest thread
+// only; its options are immutable after Create. SymbolAlertState is owned by the
+// caller (stored next to the symbol's FilterState) and passed in on every call.
+// Hot path: OnBar, OnTick, OnRejectedTick and CheckStale do not allocate, lock or
+// perform I/O beyond what the AlertSink does.
+#ifndef AFTERSHOCK_ALERTS_H_
+#define AFTERSHOCK_ALERTS_H_
+
+#include <cstdint>
+#include <memory>
+#include <string>
+
+#include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
+#include "aftershock/bar_update.h"
+#include "aftershock/regime_detector.h"
+
+namespace aftershock {
+
+enum class AlertKind : uint8_t { kShock, kRegime, kRegimeClear, kPersistence, kModel, kFeed };
+inline constexpr int kNumAlertKinds = 6;
+// "shock", "regime", "regime_clear", "persistence", "model", "feed".
+absl::string_view AlertKindName(AlertKind k);
+
+enum class Severity : uint8_t { kInfo, kWarn, kCritical };
+inline constexpr int kNumSeverities = 3;
+// "info", "warn", "critical".
+absl::string_view SeverityName(Severity s);
+
+// The specific rule behind an alert (finer than the kind; the JSON "rule" key).
+enum class AlertRule : uint8_t {
+  kShock,            // kind shock
+  kRegimeHigh,       // kind regime / regime_clear, high-volatility regime
+  kRegimeLow,        // kind regime / regime_clear, low-volatility regime
+  kNearIntegrated,   // kind persistence
+  kGateFailed,       // kind model: refit_failures failed gates in a row
+  kGateRecovered,    // kind model: a refit passed after an alerted streak
+  kFallbackEngaged,  // kind model
+  kFallbackCleared,  // kind model
+  kStale,            // kind feed: no tick in session for stale_seconds
+  kTicksResumed,     // kind feed: first tick after a stale alert
+  kRejectBurst,      // kind feed: many rejected ticks
+};
+// "shock", "regime_high", "regime_low", "near_integrated", "gate_failed",
+// "gate_recovered", "fallback_engaged", "fallback_cleared", "stale",
+// "ticks_resumed", "reject_burst".
+absl::string_view AlertRuleName(AlertRule r);
+
+// Symbol of feed-wide alerts (reject bursts): '_' is not allowed in instrument
+// symbols, so it never collides with one.
+inline constexpr absl::string_view kFeedSymbol = "_feed";
+
+// Capacity of Alert::message, terminating NUL included; longer text is cut.
+inline constexpr int kMaxAlertMessage = 256;
+
+// One alert. Fixed-size value type (no heap), safe to copy between threads.
+struct Alert {
+  Symbol symbol;
+  int64_t t_ns = 0;  // event time, ns since the Unix epoch (bar end, or the clock)
+  AlertKind kind = AlertKind::kShock;
+  AlertRule rule = AlertRule::kShock;
+  Severity severity = Severity::kInfo;
+  double value = 0;      // the measured quantity (z, ratio, persistence, count, seconds)
+  double threshold = 0;  // the threshold it was compared with (same units)
+  uint32_t ver = 0;      // model version the alert refers to (0 when none)
+  char message[kMaxAlertMessage] = {};  // one plain sentence, NUL-terminated
+  uint16_t message_size = 0;            // strlen(message)
+
+  absl::string_view message_view() const { return absl::string_view(message, message_size); }
+};
+
+// Appends the alert as one JSON object (no newline) to *out after clearing it,
+// so a reused string keeps its capacity. Keys: s, t (ns), kind, rule, severity,
+// value, threshold, ver, message. Non-finite numbers are written as null.
+void EncodeAlertJson(const Alert& alert, std::string* out);
+
+// Receiver of emitted alerts (the engine's publisher and JSONL writer; a vector
+// in tests). Called synchronously from the AlertEngine's thread; the Alert is
+// only valid during the call.
+class AlertSink {
+ public:
+  virtual ~AlertSink() = default;
+  virtual void Emit(const Alert& alert) = 0;
+};
+
+struct AlertOptions {
+  // |z| at or above this raises a warn shock alert. > 0. Default 4.
+  double shock_z = 4.0;
+  // |z| at or above this raises a critical shock alert. >= shock_z. Default 6.
+  double shock_critical_z = 6.0;
+  // |z| at or above this raises an info shock alert; 0 disables the tier,
+  // otherwise in (0, shock_z). Default 0 (off).
+  double shock_info_z = 0.0;
+  // Bars after an emitted shock alert during which equal or lower severities
+  // are suppressed; also the regime re-entry cool-down. >= 0. Default 20.
+  int cooldown_bars = 20;
+  // Seconds of the same shock cool-down measured on bar time; 0 = off. >= 0.
+  // Default 0.
+  double cooldown_seconds = 0.0;
+  // Short/long variance ratio that enters the high regime (1 / it: low).
+  // > regime_exit. Default 2.
+  double regime_enter = 2.0;
+  // Ratio below which the high regime ends (1 / it: the low regime ends).
+  // In [1, regime_enter). Default 1.3.
+  double regime_exit = 1.3;
+  // Half-life of the short-run variance average, bars. > 0. Default 10.
+  double regime_fast_halflife = 10.0;
+  // Half-life of the long-run variance average, bars. > regime_fast_halflife.
+  // Default 250.
+  double regime_slow_halflife = 250.0;
+  // Cap on one bar's squared residual in the regime averages, in units of the
+  // long-run standard deviation; 0 = no cap, else > 1. Default 4.
+  double regime_clip_z = 4.0;
+  // Bars the regime detector absorbs before it may enter a regime. >= 0. Default 50.
+  int64_t regime_warmup_bars = 50;
+  // Persistence of a swapped-in model at or above this is a warn alert. In (0, 1).
+  // Default 0.995.
+  double persistence_threshold = 0.995;
+  // Consecutive failed refit gates that raise a model warn alert. >= 1. Default 3.
+  int refit_failures = 3;
+  // Seconds without a tick inside the session after which a symbol is stale.
+  // > 0. Default 60.
+  double stale_seconds = 60.0;
+  // Rejected ticks within reject_window_seconds that raise a feed warn alert.
+  // >= 1. Default 100.
+  int64_t reject_burst = 100;
+  // Sliding window of the reject count, seconds; counted in 60 buckets, so the
+  // window edge is exact to 1/60 of it. > 0. Default 60.
+  double reject_window_seconds = 60.0;
+  // Whether bars flagged warm-up may raise shock and regime alerts. Default false.
+  bool alert_during_warmup = false;
+};
+
+// Emitted and suppressed alerts by kind and severity, for the metrics endpoint.
+struct AlertCounters {
+  uint64_t emitted[kNumAlertKinds][kNumSeverities] = {};
+  uint64_t suppressed[kNumAlertKinds][kNumSeverities] = {};
+
+  uint64_t Emitted(AlertKind k, Severity s) const {
+    return emitted[static_cast<int>(k)][static_cast<int>(s)];
+  }
+  uint64_t Suppressed(AlertKind k, Severity s) const {
+    return suppressed[static_cast<int>(k)][static_cast<int>(s)];
+  }
+  uint64_t TotalEmitted() const;
+  uint64_t TotalSuppressed() const;
+};
+
+// Per-symbol rule state, a plain fixed-size value (at most 128 bytes) the engine
+// stores next to the symbol's FilterState; ready to use when default-constructed.
+struct SymbolAlertState {
+  RegimeState regime;  // the detector's statistic and current regime
+  int64_t bars = 0;    // bars seen by OnBar (the cool-down clock)
+  // Shock cool-down: the last emitted shock.
+  int64_t shock_bar = -1;  // bar index of the last emitted shock; -1 none
+  int64_t shock_t_ns = 0;
+  Severity shock_severity = Severity::kInfo;
+  // Regime: the last emitted regime alert and whether the current regime's
+  // entry was published (its clear goes out only then).
+  int64_t regime_alert_bar = -1;
+  bool regime_published = false;
+  // Model lifecycle.
+  bool near_integrated = false;  // the current model's persistence is above threshold
+  bool gate_alerted = false;     // a gate_failed alert was emitted for this streak
+  int gate_failures = 0;         // length of the current failed-gate streak
+  bool fallback = false;         // EWMA fallback engaged
+  // Feed: the last tick and the staleness reference (the later of the last tick
+  // and the last out-of-session check), ns; 0 = no tick yet.
+  int64_t last_tick_ns = 0;
+  int64_t stale_ref_ns = 0;
+  bool stale_alerted = false;
+};
+
+// The outcome of one refit, as the scheduler reports it.
+struct RefitOutcome {
+  bool passed = false;           // the fit passed the quality gate and is swapped in
+  int consecutive_failures = 0;  // failed gates in a row including this one (0 if passed)
+  // Short reason of the failure ("diagnostics failed: Ljung-Box p = 0.002"),
+  // copied into the message (cut to fit). Empty when passed.
+  absl::string_view reason;
+};
+
+// The rules engine. Holds the options, the feed-wide reject window and the counters.
+class AlertEngine {
+ public:
+  // InvalidArgument naming the option when the options are out of range.
+  static absl::StatusOr<std::unique_ptr<AlertEngine>> Create(const AlertOptions& options);
+
+  const AlertOptions& options() const { return options_; }
+  const RegimeDetector& detector() const { return detector_; }
+  const AlertCounters& counters() const { return counters_; }
+
+  // After FilterStep: the shock and regime rules for one bar of bar.symbol.
+  // REQUIRES: state is this symbol's; sink non-null.
+  void OnBar(const BarUpdate& bar, SymbolAlertState* state, AlertSink* sink);
+
+  // A new model version was swapped in for `symbol` at t_ns (persistence rule).
+  // REQUIRES: an estimated model; the EWMA fallback (persistence 1 by
+  // construction) is reported through OnFallback instead.
+  void OnModelSwap(const Symbol& symbol, int64_t t_ns, uint32_t version, double persistence,
+                   SymbolAlertState* state, AlertSink* sink);
+
+  // The outcome of a refit of `symbol` (model rule: gate failures).
+  void OnRefitOutcome(const Symbol& symbol, int64_t t_ns, const RefitOutcome& outcome,
+                      SymbolAlertState* state, AlertSink* sink);
+
+  // The EWMA fallback was engaged (engaged = true) or cleared by model `version`.
+  // `reason` is copied into the engaged message (cut to fit).
+  void OnFallback(const Symbol& symbol, int64_t t_ns, bool engaged, uint32_t version,
+                  absl::string_view reason, SymbolAlertState* state, AlertSink* sink);
+
+  // A valid tick of `symbol` arrived at now_ns (feed clock). Ends a stale episode.
+  void OnTick(const Symbol& symbol, int64_t now_ns, SymbolAlertState* state, AlertSink* sink);
+
+  // A tick was rejected at now_ns (any symbol, any reason): reject-burst rule.
+  // REQUIRES: now_ns non-decreasing across calls.
+  void OnRejectedTick(int64_t now_ns, AlertSink* sink);
+
+  // Timer-driven staleness check of one symbol at now_ns (injected clock).
+  // Outside the session nothing fires and the staleness reference moves to now.
+  void CheckStale(const Symbol& symbol, int64_t now_ns, bool in_session, SymbolAlertState* state,
+                  AlertSink* sink);
+
+ private:
+  static constexpr int kRejectBuckets = 60;
+
+  AlertEngine(const AlertOptions& options, const RegimeDetector& detector);
+  void Count(AlertKind kind, Severity severity, bool emitted);
+  void Send(Alert* alert, AlertSink* sink);
+  void OnRegimeEvent(const BarUpdate& bar, RegimeEvent ev, SymbolAlertState* state,
+                     AlertSink* sink);
+
+  AlertOptions options_;
+  RegimeDetector detector_;
+  AlertCounters counters_;
+  int64_t stale_ns_ = 0;
+  int64_t cooldown_ns_ = 0;
+  int64_t bucket_ns_ = 0;      // reject_window_seconds / kRejectBuckets
+  int64_t reject_bucket_ = 0;  // index (now / bucket_ns_) of the newest bucket
+  uint64_t reject_counts_[kRejectBuckets] = {};
+  uint64_t reject_window_ = 0;   // sum of reject_counts_
+  bool reject_over_ = false;     // the window count is at or above reject_burst
+  bool reject_alerted_ = false;  // a burst alert was emitted (at reject_alert_ns_)
+  int64_t reject_alert_ns_ = 0;
+  Alert scratch_;  // reused alert record (no allocation per event)
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_ALERTS_H_

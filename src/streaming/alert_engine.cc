@@ -1,0 +1,551 @@
+#include <algorithm>
+#include <cmath>
+#include <cstdarg>
+#include <cstdio>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/alerts.h"
+
+namespace aftershock {
+namespace {
+
+constexpr double kNsPerSecond = 1e9;
+
+static_assert(sizeof(SymbolAlertState) <= 128, "per-symbol alert state must stay small (P5)");
+
+int SymLen(const Symbol& s) { return static_cast<int>(s.size); }
+
+// Formats into alert->message; never writes past the buffer, records the size.
+__attribute__((format(printf, 2, 3))) void Format(Alert* a, const char* fmt, ...) {
+  va_list args;
+  va_start(args, fmt);
+  const int n = std::vsnprintf(a->message, sizeof(a->message), fmt, args);
+  va_end(args);
+  const int cap = static_cast<int>(sizeof(a->message)) - 1;
+  a->message_size = static_cast<uint16_t>(n < 0 ? 0 : std::min(n, cap));
+}
+
+// Reason text: cut to a length that leaves room for the rest of the sentence.
+constexpr int kMaxReason = 120;
+int ReasonLen(absl::string_view r) {
+  return static_cast<int>(std::min<size_t>(r.size(), kMaxReason));
+}
+
+void AppendJsonString(absl::string_view s, std::string* out) {
+  static constexpr char kHex[] = "0123456789abcdef";
+  out->push_back('"');
+  for (char c : s) {
+    const unsigned char u = static_cast<unsigned char>(c);
+    if (c == '"' || c == '\\') {
+      out->push_back('\\');
+      out->push_back(c);
+    } else if (u < 0x20) {
+      const char esc[6] = {'\\', 'u', '0', '0', kHex[u >> 4], kHex[u & 15]};
+      out->append(esc, 6);
+    } else {
+      out->push_back(c);
+    }
+  }
+  out->push_back('"');
+}
+
+void AppendJsonNumber(double v, std::string* out) {
+  if (!std::isfinite(v)) {
+    out->append("null");
+    return;
+  }
+  char buf[32];
+  const int n = std::snprintf(buf, sizeof(buf), "%.10g", v);
+  out->append(buf, static_cast<size_t>(n));
+}
+
+}  // namespace
+
+absl::string_view AlertKindName(AlertKind k) {
+  switch (k) {
+    case AlertKind::kShock:
+      return "shock";
+    case AlertKind::kRegime:
+      return "regime";
+    case AlertKind::kRegimeClear:
+      return "regime_clear";
+    case AlertKind::kPersistence:
+      return "persistence";
+    case AlertKind::kModel:
+      return "model";
+    case AlertKind::kFeed:
+      return "feed";
+  }
+  return "unknown";
+}
+
+absl::string_view SeverityName(Severity s) {
+  switch (s) {
+    case Severity::kInfo:
+      return "info";
+    case Severity::kWarn:
+      return "warn";
+    case Severity::kCritical:
+      return "critical";
+  }
+  return "unknown";
+}
+
+absl::string_view AlertRuleName(AlertRule r) {
+  switch (r) {
+    case AlertRule::kShock:
+      return "shock";
+    case AlertRule::kRegimeHigh:
+      return "regime_high";
+    case AlertRule::kRegimeLow:
+      return "regime_low";
+    case AlertRule::kNearIntegrated:
+      return "near_integrated";
+    case AlertRule::kGateFailed:
+      return "gate_failed";
+    case AlertRule::kGateRecovered:
+      return "gate_recovered";
+    case AlertRule::kFallbackEngaged:
+      return "fallback_engaged";
+    case AlertRule::kFallbackCleared:
+      return "fallback_cleared";
+    case AlertRule::kStale:
+      return "stale";
+    case AlertRule::kTicksResumed:
+      return "ticks_resumed";
+    case AlertRule::kRejectBurst:
+      return "reject_burst";
+  }
+  return "unknown";
+}
+
+void EncodeAlertJson(const Alert& a, std::string* out) {
+  out->clear();
+  out->append("{\"s\":");
+  AppendJsonString(a.symbol.view(), out);
+  char buf[32];
+  const int n = std::snprintf(buf, sizeof(buf), "%lld", static_cast<long long>(a.t_ns));
+  out->append(",\"t\":");
+  out->append(buf, static_cast<size_t>(n));
+  out->append(",\"kind\":");
+  AppendJsonString(AlertKindName(a.kind), out);
+  out->append(",\"rule\":");
+  AppendJsonString(AlertRuleName(a.rule), out);
+  out->append(",\"severity\":");
+  AppendJsonString(SeverityName(a.severity), out);
+  out->append(",\"value\":");
+  AppendJsonNumber(a.value, out);
+  out->append(",\"threshold\":");
+  AppendJsonNumber(a.threshold, out);
+  const int m = std::snprintf(buf, sizeof(buf), "%u", static_cast<unsigned>(a.ver));
+  out->append(",\"ver\":");
+  out->append(buf, static_cast<size_t>(m));
+  out->append(",\"message\":");
+  AppendJsonString(a.message_view(), out);
+  out->push_back('}');
+}
+
+uint64_t AlertCounters::TotalEmitted() const {
+  uint64_t t = 0;
+  for (const auto& row : emitted)
+    for (uint64_t v : row) t += v;
+  return t;
+}
+
+uint64_t AlertCounters::TotalSuppressed() const {
+  uint64_t t = 0;
+  for (const auto& row : suppressed)
+    for (uint64_t v : row) t += v;
+  return t;
+}
+
+absl::StatusOr<std::unique_ptr<AlertEngine>> AlertEngine::Create(const AlertOptions& o) {
+  auto finite = [](double v) { return std::isfinite(v); };
+  if (!finite(o.shock_z) || !(o.shock_z > 0)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("shock_z must be a positive number, got ", o.shock_z));
+  }
+  if (!finite(o.shock_critical_z) || !(o.shock_critical_z >= o.shock_z)) {
+    return absl::InvalidArgumentError(absl::StrCat("shock_critical_z (", o.shock_critical_z,
+                                                   ") must be >= shock_z (", o.shock_z, ")"));
+  }
+  if (!finite(o.shock_info_z) || o.shock_info_z < 0 ||
+      (o.shock_info_z > 0 && !(o.shock_info_z < o.shock_z))) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "shock_info_z must be 0 (off) or in (0, shock_z = ", o.shock_z, "), got ", o.shock_info_z));
+  }
+  if (o.cooldown_bars < 0) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("cooldown_bars must be >= 0, got ", o.cooldown_bars));
+  }
+  if (!finite(o.cooldown_seconds) || o.cooldown_seconds < 0) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("cooldown_seconds must be >= 0, got ", o.cooldown_seconds));
+  }
+  if (!finite(o.persistence_threshold) || !(o.persistence_threshold > 0) ||
+      !(o.persistence_threshold < 1)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("persistence_threshold must be in (0, 1), got ", o.persistence_threshold));
+  }
+  if (o.refit_failures < 1) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("refit_failures must be >= 1, got ", o.refit_failures));
+  }
+  if (!finite(o.stale_seconds) || !(o.stale_seconds > 0)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("stale_seconds must be a positive number, got ", o.stale_seconds));
+  }
+  if (o.reject_burst < 1) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("reject_burst must be >= 1, got ", o.reject_burst));
+  }
+  // The bucket width must be at least 1 ns.
+  if (!finite(o.reject_window_seconds) ||
+      !(o.reject_window_seconds * kNsPerSecond >= kRejectBuckets) ||
+      o.reject_window_seconds > 1e9) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "reject_window_seconds must be in [6e-8, 1e9] seconds, got ", o.reject_window_seconds));
+  }
+  RegimeOptions ro;
+  ro.enter = o.regime_enter;
+  ro.exit = o.regime_exit;
+  ro.fast_halflife = o.regime_fast_halflife;
+  ro.slow_halflife = o.regime_slow_halflife;
+  ro.clip_z = o.regime_clip_z;
+  ro.warmup_bars = o.regime_warmup_bars;
+  auto det = RegimeDetector::Create(ro);
+  if (!det.ok()) return det.status();
+  return std::unique_ptr<AlertEngine>(new AlertEngine(o, *det));
+}
+
+AlertEngine::AlertEngine(const AlertOptions& options, const RegimeDetector& detector)
+    : options_(options),
+      detector_(detector),
+      stale_ns_(static_cast<int64_t>(std::llround(options.stale_seconds * kNsPerSecond))),
+      cooldown_ns_(static_cast<int64_t>(std::llround(options.cooldown_seconds * kNsPerSecond))),
+      bucket_ns_(std::max<int64_t>(
+          1, static_cast<int64_t>(options.reject_window_seconds * kNsPerSecond / kRejectBuckets))) {
+}
+
+void AlertEngine::Count(AlertKind kind, Severity severity, bool emitted) {
+  auto& table = emitted ? counters_.emitted : counters_.suppressed;
+  ++table[static_cast<int>(kind)][static_cast<int>(severity)];
+}
+
+void AlertEngine::Send(Alert* a, AlertSink* sink) {
+  Count(a->kind, a->severity, true);
+  sink->Emit(*a);
+}
+
+void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* sink) {
+  const int64_t idx = st->bars++;
+  if (bar.flags & (kFlagFirstBar | kFlagStale)) return;
+  const bool withheld = (bar.flags & kFlagWarmup) && !options_.alert_during_warmup;
+
+  const RegimeEvent ev = detector_.Update(bar.eps, bar.var, &st->regime);
+  if (ev != RegimeEvent::kNone) {
+    const bool high = ev == RegimeEvent::kEnterHigh || ev == RegimeEvent::kClearHigh;
+    const bool entry = ev == RegimeEvent::kEnterHigh || ev == RegimeEvent::kEnterLow;
+    const AlertKind kind = entry ? AlertKind::kRegime : AlertKind::kRegimeClear;
+    const Severity sev = entry && high ? Severity::kWarn : Severity::kInfo;
+    bool send;
+    if (entry) {
+      const bool cooling = st->regime_alert_bar >= 0 && options_.cooldown_bars > 0 &&
+                           idx - st->regime_alert_bar < options_.cooldown_bars;
+      send = !withheld && !cooling;
+      st->regime_published = send;
+    } else {
+      send = st->regime_published;
+      st->regime_published = false;
+    }
+    if (!send) {
+      Count(kind, sev, false);
+    } else {
+      Alert* a = &scratch_;
+      a->symbol = bar.symbol;
+      a->t_ns = bar.t_ns;
+      a->kind = kind;
+      a->rule = high ? AlertRule::kRegimeHigh : AlertRule::kRegimeLow;
+      a->severity = sev;
+      a->value = st->regime.ratio;
+      a->ver = bar.ver;
+      const char* name = bar.symbol.data;
+      const int len = SymLen(bar.symbol);
+      const double ratio = st->regime.ratio;
+      switch (ev) {
+        case RegimeEvent::kEnterHigh:
+          a->threshold = options_.regime_enter;
+          Format(a,
+                 "%.*s: volatility regime up, short-term variance is %.2f times its long-run "
+                 "average (enters at %g); expect wider ranges and review position sizes.",
+                 len, name, ratio, a->threshold);
+          break;
+        case RegimeEvent::kEnterLow:
+          a->threshold = detector_.enter_low();
+          Format(a,
+                 "%.*s: volatility regime down, short-term variance is %.2f times its long-run "
+                 "average (enters at %.3g); limits set on the old level may be loose, review "
+                 "them if it lasts.",
+                 len, name, ratio, a->threshold);
+          break;
+        case RegimeEvent::kClearHigh:
+          a->threshold = options_.regime_exit;
+          Format(a,
+                 "%.*s: high-volatility regime ended, short-term variance is %.2f times its "
+                 "long-run average (clears below %g); no action needed.",
+                 len, name, ratio, a->threshold);
+          break;
+        case RegimeEvent::kClearLow:
+          a->threshold = detector_.exit_low();
+          Format(a,
+                 "%.*s: low-volatility regime ended, short-term variance is %.2f times its "
+                 "long-run average (clears above %.3g); no action needed.",
+                 len, name, ratio, a->threshold);
+          break;
+        case RegimeEvent::kNone:
+          break;
+      }
+      st->regime_alert_bar = idx;
+      Send(a, sink);
+    }
+  }
+
+  // Shock rule.
+  const double az = std::fabs(bar.z);
+  if (!std::isfinite(az)) return;
+  Severity sev;
+  double thr;
+  if (az >= options_.shock_critical_z) {
+    sev = Severity::kCritical;
+    thr = options_.shock_critical_z;
+  } else if (az >= options_.shock_z) {
+    sev = Severity::kWarn;
+    thr = options_.shock_z;
+  } else if (options_.shock_info_z > 0 && az >= options_.shock_info_z) {
+    sev = Severity::kInfo;
+    thr = options_.shock_info_z;
+  } else {
+    return;
+  }
+  const bool cooling =
+      st->shock_bar >= 0 &&
+      ((options_.cooldown_bars > 0 && idx - st->shock_bar <= options_.cooldown_bars) ||
+       (cooldown_ns_ > 0 && bar.t_ns - st->shock_t_ns < cooldown_ns_));
+  if (withheld || (cooling && sev <= st->shock_severity)) {
+    Count(AlertKind::kShock, sev, false);
+    return;
+  }
+  Alert* a = &scratch_;
+  a->symbol = bar.symbol;
+  a->t_ns = bar.t_ns;
+  a->kind = AlertKind::kShock;
+  a->rule = AlertRule::kShock;
+  a->severity = sev;
+  a->value = bar.z;
+  a->threshold = thr;
+  a->ver = bar.ver;
+  Format(a,
+         "%.*s: return shock of %.1f standard deviations (%s at %g); check news and position "
+         "limits.",
+         SymLen(bar.symbol), bar.symbol.data, bar.z, SeverityName(sev).data(), thr);
+  st->shock_bar = idx;
+  st->shock_t_ns = bar.t_ns;
+  st->shock_severity = sev;
+  Send(a, sink);
+}
+
+void AlertEngine::OnModelSwap(const Symbol& symbol, int64_t t_ns, uint32_t version,
+                              double persistence, SymbolAlertState* st, AlertSink* sink) {
+  if (!std::isfinite(persistence)) return;
+  if (persistence < options_.persistence_threshold) {
+    st->near_integrated = false;
+    return;
+  }
+  if (st->near_integrated) {
+    Count(AlertKind::kPersistence, Severity::kWarn, false);
+    return;
+  }
+  st->near_integrated = true;
+  Alert* a = &scratch_;
+  a->symbol = symbol;
+  a->t_ns = t_ns;
+  a->kind = AlertKind::kPersistence;
+  a->rule = AlertRule::kNearIntegrated;
+  a->severity = Severity::kWarn;
+  a->value = persistence;
+  a->threshold = options_.persistence_threshold;
+  a->ver = version;
+  Format(a,
+         "%.*s: model version %u has persistence %.4f (warn at %g), so shocks fade very slowly; "
+         "treat long-horizon forecasts with caution.",
+         SymLen(symbol), symbol.data, static_cast<unsigned>(version), persistence,
+         options_.persistence_threshold);
+  Send(a, sink);
+}
+
+void AlertEngine::OnRefitOutcome(const Symbol& symbol, int64_t t_ns, const RefitOutcome& o,
+                                 SymbolAlertState* st, AlertSink* sink) {
+  Alert* a = &scratch_;
+  a->symbol = symbol;
+  a->t_ns = t_ns;
+  a->kind = AlertKind::kModel;
+  a->ver = 0;
+  a->threshold = options_.refit_failures;
+  if (o.passed) {
+    if (!st->gate_alerted) return;
+    a->rule = AlertRule::kGateRecovered;
+    a->severity = Severity::kInfo;
+    a->value = st->gate_failures;
+    Format(a, "%.*s: refit passed the quality gate again after %d failures; no action needed.",
+           SymLen(symbol), symbol.data, st->gate_failures);
+    st->gate_alerted = false;
+    st->gate_failures = 0;
+    Send(a, sink);
+    return;
+  }
+  st->gate_failures = o.consecutive_failures;
+  if (o.consecutive_failures < options_.refit_failures) return;
+  if (st->gate_alerted) {
+    Count(AlertKind::kModel, Severity::kWarn, false);
+    return;
+  }
+  st->gate_alerted = true;
+  a->rule = AlertRule::kGateFailed;
+  a->severity = Severity::kWarn;
+  a->value = o.consecutive_failures;
+  const absl::string_view reason = o.reason.empty() ? "no reason given" : o.reason;
+  Format(a,
+         "%.*s: refit failed the quality gate %d times in a row (last: %.*s); the current model "
+         "stays in use, review the fit report.",
+         SymLen(symbol), symbol.data, o.consecutive_failures, ReasonLen(reason), reason.data());
+  Send(a, sink);
+}
+
+void AlertEngine::OnFallback(const Symbol& symbol, int64_t t_ns, bool engaged, uint32_t version,
+                             absl::string_view reason, SymbolAlertState* st, AlertSink* sink) {
+  if (engaged == st->fallback) {
+    // Engaged again while engaged is a repeat; cleared while not engaged is a no-op.
+    if (engaged) Count(AlertKind::kModel, Severity::kCritical, false);
+    return;
+  }
+  st->fallback = engaged;
+  Alert* a = &scratch_;
+  a->symbol = symbol;
+  a->t_ns = t_ns;
+  a->kind = AlertKind::kModel;
+  a->ver = version;
+  a->value = engaged ? 1 : 0;
+  a->threshold = 1;
+  if (engaged) {
+    a->rule = AlertRule::kFallbackEngaged;
+    a->severity = Severity::kCritical;
+    const absl::string_view r = reason.empty() ? "no reason given" : reason;
+    Format(a,
+           "%.*s: EWMA fallback engaged (%.*s); forecasts are rough until a refit passes, reduce "
+           "reliance on them.",
+           SymLen(symbol), symbol.data, ReasonLen(r), r.data());
+  } else {
+    a->rule = AlertRule::kFallbackCleared;
+    a->severity = Severity::kInfo;
+    Format(a, "%.*s: EWMA fallback cleared, model version %u is in use again; no action needed.",
+           SymLen(symbol), symbol.data, static_cast<unsigned>(version));
+  }
+  Send(a, sink);
+}
+
+void AlertEngine::OnTick(const Symbol& symbol, int64_t now_ns, SymbolAlertState* st,
+                         AlertSink* sink) {
+  const int64_t prev = st->last_tick_ns;
+  st->last_tick_ns = now_ns;
+  st->stale_ref_ns = now_ns;
+  if (!st->stale_alerted) return;
+  st->stale_alerted = false;
+  Alert* a = &scratch_;
+  a->symbol = symbol;
+  a->t_ns = now_ns;
+  a->kind = AlertKind::kFeed;
+  a->rule = AlertRule::kTicksResumed;
+  a->severity = Severity::kInfo;
+  a->value = static_cast<double>(now_ns - prev) / kNsPerSecond;
+  a->threshold = options_.stale_seconds;
+  a->ver = 0;
+  Format(a, "%.*s: ticks resumed after %.0f s without data; no action needed.", SymLen(symbol),
+         symbol.data, a->value);
+  Send(a, sink);
+}
+
+void AlertEngine::CheckStale(const Symbol& symbol, int64_t now_ns, bool in_session,
+                             SymbolAlertState* st, AlertSink* sink) {
+  if (st->last_tick_ns == 0) return;
+  if (!in_session) {
+    st->stale_ref_ns = std::max(st->stale_ref_ns, now_ns);
+    return;
+  }
+  if (st->stale_alerted || now_ns - st->stale_ref_ns < stale_ns_) return;
+  st->stale_alerted = true;
+  Alert* a = &scratch_;
+  a->symbol = symbol;
+  a->t_ns = now_ns;
+  a->kind = AlertKind::kFeed;
+  a->rule = AlertRule::kStale;
+  a->severity = Severity::kWarn;
+  a->value = static_cast<double>(now_ns - st->stale_ref_ns) / kNsPerSecond;
+  a->threshold = options_.stale_seconds;
+  a->ver = 0;
+  Format(a,
+         "%.*s: no tick for %.0f s inside the session (stale after %g s); check the feed for "
+         "this symbol.",
+         SymLen(symbol), symbol.data, a->value, options_.stale_seconds);
+  Send(a, sink);
+}
+
+void AlertEngine::OnRejectedTick(int64_t now_ns, AlertSink* sink) {
+  const int64_t b = now_ns / bucket_ns_;
+  if (b > reject_bucket_) {
+    const int64_t steps = b - reject_bucket_;
+    if (steps >= kRejectBuckets) {
+      std::fill(std::begin(reject_counts_), std::end(reject_counts_), 0);
+      reject_window_ = 0;
+    } else {
+      for (int64_t i = 1; i <= steps; ++i) {
+        uint64_t& slot = reject_counts_[(reject_bucket_ + i) % kRejectBuckets];
+        reject_window_ -= slot;
+        slot = 0;
+      }
+    }
+    reject_bucket_ = b;
+  }
+  // A late timestamp (b < reject_bucket_) is counted in the newest bucket.
+  ++reject_counts_[reject_bucket_ % kRejectBuckets];
+  ++reject_window_;
+  if (reject_window_ < static_cast<uint64_t>(options_.reject_burst)) {
+    reject_over_ = false;
+    return;
+  }
+  if (reject_over_) return;  // the same burst
+  reject_over_ = true;
+  const int64_t window_ns = bucket_ns_ * kRejectBuckets;
+  if (reject_alerted_ && now_ns - reject_alert_ns_ < window_ns) {
+    Count(AlertKind::kFeed, Severity::kWarn, false);
+    return;
+  }
+  reject_alerted_ = true;
+  reject_alert_ns_ = now_ns;
+  Alert* a = &scratch_;
+  a->symbol.assign(kFeedSymbol);
+  a->t_ns = now_ns;
+  a->kind = AlertKind::kFeed;
+  a->rule = AlertRule::kRejectBurst;
+  a->severity = Severity::kWarn;
+  a->value = static_cast<double>(reject_window_);
+  a->threshold = static_cast<double>(options_.reject_burst);
+  a->ver = 0;
+  Format(a,
+         "feed: %llu rejected ticks within %g s (warn at %lld); check the publisher's message "
+         "format and the rejection counters by reason.",
+         static_cast<unsigned long long>(reject_window_), options_.reject_window_seconds,
+         static_cast<long long>(options_.reject_burst));
+  Send(a, sink);
+}
+
+}  // namespace aftershock

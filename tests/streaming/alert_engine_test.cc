@@ -1,0 +1,617 @@
+#include <boost/math/distributions/binomial.hpp>
+#include <boost/math/distributions/normal.hpp>
+#include <boost/math/distributions/students_t.hpp>
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <cstdio>
+#include <string>
+#include <vector>
+
+#include "aftershock/alerts.h"
+#include "aftershock/online_filter.h"
+#include "aftershock/simulate.h"
+#include "support/alloc_counter.h"
+
+namespace aftershock {
+namespace {
+
+constexpr int64_t kSec = 1000000000;
+
+class VectorSink : public AlertSink {
+ public:
+  void Emit(const Alert& a) override { alerts.push_back(a); }
+  std::vector<Alert> alerts;
+};
+
+// Counts without storing (allocation-free).
+class CountingSink : public AlertSink {
+ public:
+  void Emit(const Alert& a) override {
+    ++n;
+    last_size = a.message_size;
+  }
+  uint64_t n = 0;
+  int last_size = 0;
+};
+
+Symbol Sym(const char* s) {
+  Symbol y;
+  y.assign(s);
+  return y;
+}
+
+std::unique_ptr<AlertEngine> Engine(const AlertOptions& o) {
+  auto e = AlertEngine::Create(o);
+  REQUIRE(e.ok());
+  return std::move(*e);
+}
+
+BarUpdate Bar(const char* sym, int64_t t_ns, double z, uint32_t flags = 0) {
+  BarUpdate u;
+  u.symbol.assign(sym);
+  u.t_ns = t_ns;
+  u.eps = z;
+  u.var = 1.0;
+  u.z = z;
+  u.ver = 3;
+  u.flags = flags;
+  return u;
+}
+
+ModelParams Params(const char* law, std::vector<std::pair<std::string, double>> named) {
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, law);
+  REQUIRE(spec.ok());
+  auto p = ModelParams::FromNamed(*spec, named);
+  REQUIRE(p.ok());
+  return *p;
+}
+
+// Shock alerts with |z| >= 3 on n bars simulated from and filtered with `truth`.
+uint64_t CountShocks(const ModelParams& truth, int64_t n, uint64_t seed) {
+  SimulationOptions so;
+  so.n = n;
+  so.seed = seed;
+  auto sim = Simulate(truth, so);
+  REQUIRE(sim.ok());
+  auto fm = FilterModel::Create(truth, OutputOptions{}, 1);
+  REQUIRE(fm.ok());
+  FilterState fs;
+  InitFilterState(*fm, 0, &fs);  // the unconditional variance
+  AlertOptions o;
+  o.shock_z = 3;
+  o.shock_critical_z = 1e9;  // one tier: every breach is a warn
+  o.cooldown_bars = 0;
+  auto engine = Engine(o);
+  CountingSink sink;
+  SymbolAlertState st;
+  BarUpdate u;
+  u.symbol.assign("SIM.A");
+  for (int64_t t = 0; t < n; ++t) {
+    u.flags = 0;
+    u.t_ns = t;
+    FilterStep(*fm, &fs, sim->returns[t], &u);
+    engine->OnBar(u, &st, &sink);
+  }
+  CHECK(engine->counters().TotalSuppressed() == 0);
+  return engine->counters().Emitted(AlertKind::kShock, Severity::kWarn);
+}
+
+// Exact binomial quantiles (Boost.Math, integer_round_outwards) bounding 99.9 %.
+void CheckBinomial(uint64_t count, int64_t n, double p, const char* label) {
+  const boost::math::binomial_distribution<double> b(static_cast<double>(n), p);
+  const double lo = boost::math::quantile(b, 0.0005);
+  const double hi = boost::math::quantile(boost::math::complement(b, 0.0005));
+  std::printf(
+      "%s: %llu shocks with |z| >= 3 in %lld bars, rate %.6f, expected %.6f "
+      "(99.9 %% exact binomial interval %.0f..%.0f)\n",
+      label, static_cast<unsigned long long>(count), static_cast<long long>(n),
+      static_cast<double>(count) / static_cast<double>(n), p, lo, hi);
+  INFO(label);
+  CHECK(static_cast<double>(count) >= lo);
+  CHECK(static_cast<double>(count) <= hi);
+}
+
+TEST_CASE("calibration: |z| >= 3 shocks occur at the tail probability of the law", "[alerts]") {
+  constexpr int64_t kN = 1000000;
+  // Normal: p = 2 (1 - Phi(3)), Phi from Boost.Math; 1 - Phi(3) = 0.0013499 in
+  // standard normal tables (from memory).
+  const double p_normal = 2 * boost::math::cdf(boost::math::complement(
+                                  boost::math::normal_distribution<double>(), 3.0));
+  CHECK(p_normal == Approx(2 * 0.0013499).epsilon(1e-4));
+  const ModelParams gauss =
+      Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
+  CheckBinomial(CountShocks(gauss, kN, 2024), kN, p_normal, "Gaussian GARCH(1,1)");
+
+  // Standardized t, nu = 5: z = T sqrt((nu-2)/nu), so
+  // P(|z| >= 3) = 2 (1 - T_nu(3 sqrt(nu/(nu-2)))), T_nu from Boost.Math.
+  const double nu = 5;
+  const double p_t =
+      2 * boost::math::cdf(boost::math::complement(boost::math::students_t_distribution<double>(nu),
+                                                   3.0 * std::sqrt(nu / (nu - 2))));
+  const ModelParams tgarch =
+      Params("t", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", nu}});
+  CheckBinomial(CountShocks(tgarch, kN, 2025), kN, p_t, "Student-t (nu = 5) GARCH(1,1)");
+  // The two laws are far enough apart that the test can tell them apart.
+  CHECK(p_t > 1.5 * p_normal);
+}
+
+TEST_CASE("shock tiers, cool-down, suppression and escalation", "[alerts]") {
+  AlertOptions o;
+  o.shock_info_z = 3;
+  o.shock_z = 4;
+  o.shock_critical_z = 6;
+  o.cooldown_bars = 5;
+  o.regime_warmup_bars = 1000;  // keep the regime rule out of this sequence
+  auto e = Engine(o);
+  VectorSink sink;
+  SymbolAlertState st;
+  // bar:            0    1    2    3     4    5    6    7    8    9    10   11
+  const double z[] = {0.5, 4.5, 4.2, 3.5, -6.5, 5.0, 0.1, 0.2, 0.3, 4.1, 4.1, 3.2};
+  for (int i = 0; i < 12; ++i) e->OnBar(Bar("ALPHA.X", i * kSec, z[i]), &st, &sink);
+  // bar 1 warn goes out; 2 (warn) and 3 (info) are inside its cool-down; bar 4
+  // escalates to critical and restarts the cool-down; 5 (warn) and 9 (4 + 5)
+  // are suppressed; 10 is past it; 11 (info) is inside the cool-down of 10.
+  REQUIRE(sink.alerts.size() == 3);
+  CHECK(sink.alerts[0].t_ns == 1 * kSec);
+  CHECK(sink.alerts[0].severity == Severity::kWarn);
+  CHECK(sink.alerts[0].threshold == 4);
+  CHECK(sink.alerts[1].t_ns == 4 * kSec);
+  CHECK(sink.alerts[1].severity == Severity::kCritical);
+  CHECK(sink.alerts[1].value == -6.5);
+  CHECK(sink.alerts[1].threshold == 6);
+  CHECK(sink.alerts[2].t_ns == 10 * kSec);
+  CHECK(sink.alerts[2].severity == Severity::kWarn);
+  const AlertCounters& c = e->counters();
+  CHECK(c.Emitted(AlertKind::kShock, Severity::kWarn) == 2);
+  CHECK(c.Emitted(AlertKind::kShock, Severity::kCritical) == 1);
+  CHECK(c.Suppressed(AlertKind::kShock, Severity::kWarn) == 3);
+  CHECK(c.Suppressed(AlertKind::kShock, Severity::kInfo) == 2);
+  CHECK(c.TotalEmitted() == 3);
+  CHECK(c.TotalSuppressed() == 5);
+  CHECK(std::string(sink.alerts[1].message) ==
+        "ALPHA.X: return shock of -6.5 standard deviations (critical at 6); check news and "
+        "position limits.");
+
+  SECTION("an info tier alert goes out when nothing is cooling") {
+    SymbolAlertState other;
+    VectorSink s2;
+    e->OnBar(Bar("BETA.Y", 0, -3.3), &other, &s2);
+    REQUIRE(s2.alerts.size() == 1);
+    CHECK(s2.alerts[0].severity == Severity::kInfo);
+    CHECK(std::string(s2.alerts[0].message) ==
+          "BETA.Y: return shock of -3.3 standard deviations (info at 3); check news and "
+          "position limits.");
+  }
+}
+
+TEST_CASE("cool-down in seconds and no cool-down", "[alerts]") {
+  AlertOptions o;
+  o.cooldown_bars = 0;
+  o.cooldown_seconds = 30;
+  o.regime_warmup_bars = 1000;
+  auto e = Engine(o);
+  VectorSink sink;
+  SymbolAlertState st;
+  const int64_t t[] = {0, 10, 29, 30, 31};
+  for (int64_t s : t) e->OnBar(Bar("ALPHA.X", s * kSec, 4.5), &st, &sink);
+  // 10 s and 29 s are inside 30 s of the alert at 0; 30 s is not; 31 s is
+  // inside 30 s of the one at 30.
+  REQUIRE(sink.alerts.size() == 2);
+  CHECK(sink.alerts[0].t_ns == 0);
+  CHECK(sink.alerts[1].t_ns == 30 * kSec);
+  CHECK(e->counters().Suppressed(AlertKind::kShock, Severity::kWarn) == 3);
+
+  AlertOptions none;
+  none.cooldown_bars = 0;
+  none.regime_warmup_bars = 1000;
+  auto f = Engine(none);
+  VectorSink s2;
+  SymbolAlertState st2;
+  for (int i = 0; i < 5; ++i) f->OnBar(Bar("ALPHA.X", i, 4.5), &st2, &s2);
+  CHECK(s2.alerts.size() == 5);
+  CHECK(f->counters().TotalSuppressed() == 0);
+}
+
+TEST_CASE("first, stale and warm-up bars", "[alerts]") {
+  AlertOptions o;
+  o.regime_warmup_bars = 1000;
+  auto e = Engine(o);
+  VectorSink sink;
+  SymbolAlertState st;
+  e->OnBar(Bar("ALPHA.X", 1, 9.0, kFlagFirstBar), &st, &sink);
+  e->OnBar(Bar("ALPHA.X", 2, 9.0, kFlagStale), &st, &sink);
+  CHECK(sink.alerts.empty());
+  CHECK(e->counters().TotalSuppressed() == 0);
+  CHECK(st.regime.bars == 0);  // neither entered the regime averages
+  e->OnBar(Bar("ALPHA.X", 3, 9.0, kFlagWarmup), &st, &sink);
+  CHECK(sink.alerts.empty());
+  CHECK(e->counters().Suppressed(AlertKind::kShock, Severity::kCritical) == 1);
+  CHECK(st.regime.bars == 1);
+
+  o.alert_during_warmup = true;
+  auto f = Engine(o);
+  SymbolAlertState st2;
+  f->OnBar(Bar("ALPHA.X", 3, 9.0, kFlagWarmup), &st2, &sink);
+  CHECK(sink.alerts.size() == 1);
+}
+
+// Feeds residuals that put the detector's ratio on each target in turn (the
+// cap is off in these engines, see regime_detector_test.cc for the algebra).
+void DriveRatio(AlertEngine* e, SymbolAlertState* st, AlertSink* sink, const char* sym, int64_t* t,
+                const std::vector<double>& targets) {
+  const RegimeOptions& o = e->detector().options();
+  const double lf = std::exp2(-1.0 / o.fast_halflife);
+  const double ls = std::exp2(-1.0 / o.slow_halflife);
+  for (double target : targets) {
+    double eps = 1.0;
+    if (st->regime.bars > 0) {
+      const RegimeState& s = st->regime;
+      const double x = (target * ls * s.slow - lf * s.fast) / ((1 - lf) - target * (1 - ls));
+      REQUIRE(x >= 0);
+      eps = std::sqrt(x);
+    }
+    BarUpdate u = Bar(sym, (*t)++ * kSec, 0.0);
+    u.eps = eps;  // z = 0 keeps the shock rule out
+    e->OnBar(u, st, sink);
+  }
+}
+
+std::vector<double> Ramp(double from, double to, int n) {
+  std::vector<double> v;
+  for (int i = 1; i <= n; ++i) v.push_back(from + (to - from) * i / n);
+  return v;
+}
+
+TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[alerts]") {
+  AlertOptions o;
+  o.regime_clip_z = 0;
+  o.regime_warmup_bars = 10;
+  o.cooldown_bars = 40;
+  auto e = Engine(o);
+  VectorSink sink;
+  SymbolAlertState st;
+  int64_t t = 0;
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, std::vector<double>(20, 1.0));
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(1.0, 2.3, 10));
+  REQUIRE(sink.alerts.size() == 1);
+  CHECK(st.regime.in_regime());
+  CHECK(st.regime.direction == RegimeDirection::kHigh);
+  const Alert& in = sink.alerts[0];
+  CHECK(in.kind == AlertKind::kRegime);
+  CHECK(in.rule == AlertRule::kRegimeHigh);
+  CHECK(in.severity == Severity::kWarn);
+  CHECK(in.threshold == 2);
+  CHECK(std::string(in.message) ==
+        "ALPHA.X: volatility regime up, short-term variance is 2.04 times its long-run average "
+        "(enters at 2); expect wider ranges and review position sizes.");
+  // Down below the exit threshold: the clear.
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(2.3, 1.25, 20));
+  REQUIRE(sink.alerts.size() == 2);
+  CHECK(sink.alerts[1].kind == AlertKind::kRegimeClear);
+  CHECK(sink.alerts[1].severity == Severity::kInfo);
+  CHECK(sink.alerts[1].threshold == 1.3);
+  CHECK(std::string(sink.alerts[1].message) ==
+        "ALPHA.X: high-volatility regime ended, short-term variance is 1.25 times its long-run "
+        "average (clears below 1.3); no action needed.");
+  // A re-entry within 40 bars of the clear is suppressed, and so is its clear.
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(1.25, 2.1, 8));
+  CHECK(st.regime.in_regime());
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(2.1, 1.0, 25));
+  CHECK_FALSE(st.regime.in_regime());
+  CHECK(sink.alerts.size() == 2);
+  CHECK(e->counters().Suppressed(AlertKind::kRegime, Severity::kWarn) == 1);
+  CHECK(e->counters().Suppressed(AlertKind::kRegimeClear, Severity::kInfo) == 1);
+  // Low regime after the cool-down: entry is info, its threshold 1 / enter.
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, std::vector<double>(40, 1.0));
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(1.0, 0.45, 25));
+  REQUIRE(sink.alerts.size() == 3);
+  CHECK(sink.alerts[2].rule == AlertRule::kRegimeLow);
+  CHECK(sink.alerts[2].severity == Severity::kInfo);
+  CHECK(sink.alerts[2].threshold == 0.5);
+  CHECK(std::string(sink.alerts[2].message) ==
+        "ALPHA.X: volatility regime down, short-term variance is 0.49 times its long-run "
+        "average (enters at 0.5); limits set on the old level may be loose, review them if it "
+        "lasts.");
+  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(0.45, 0.9, 25));
+  REQUIRE(sink.alerts.size() == 4);
+  CHECK(std::string(sink.alerts[3].message) ==
+        "ALPHA.X: low-volatility regime ended, short-term variance is 0.77 times its long-run "
+        "average (clears above 0.769); no action needed.");
+}
+
+TEST_CASE("persistence alert on a near-integrated swap, once per episode", "[alerts]") {
+  auto e = Engine(AlertOptions{});
+  VectorSink sink;
+  SymbolAlertState st;
+  const Symbol s = Sym("ALPHA.X");
+  e->OnModelSwap(s, 100, 7, 0.999, &st, &sink);
+  e->OnModelSwap(s, 200, 8, 0.9995, &st, &sink);  // still near-integrated: repeat
+  e->OnModelSwap(s, 300, 9, 0.98, &st, &sink);    // condition ends
+  e->OnModelSwap(s, 400, 10, 0.999, &st, &sink);  // a new episode
+  REQUIRE(sink.alerts.size() == 2);
+  CHECK(sink.alerts[0].kind == AlertKind::kPersistence);
+  CHECK(sink.alerts[0].severity == Severity::kWarn);
+  CHECK(sink.alerts[0].ver == 7);
+  CHECK(sink.alerts[0].value == 0.999);
+  CHECK(sink.alerts[0].threshold == 0.995);
+  CHECK(std::string(sink.alerts[0].message) ==
+        "ALPHA.X: model version 7 has persistence 0.9990 (warn at 0.995), so shocks fade very "
+        "slowly; treat long-horizon forecasts with caution.");
+  CHECK(sink.alerts[1].ver == 10);
+  CHECK(e->counters().Suppressed(AlertKind::kPersistence, Severity::kWarn) == 1);
+}
+
+TEST_CASE("model alerts: gate failures, fallback, recovery", "[alerts]") {
+  AlertOptions o;
+  o.refit_failures = 3;
+  auto e = Engine(o);
+  VectorSink sink;
+  SymbolAlertState st;
+  const Symbol s = Sym("ALPHA.X");
+  RefitOutcome fail;
+  fail.reason = "diagnostics failed: Ljung-Box p = 0.002";
+  for (int i = 1; i <= 4; ++i) {
+    fail.consecutive_failures = i;
+    e->OnRefitOutcome(s, i * kSec, fail, &st, &sink);
+  }
+  e->OnFallback(s, 5 * kSec, true, 0, "3 failed refits and the model's variance exploded", &st,
+                &sink);
+  e->OnFallback(s, 6 * kSec, true, 0, "again", &st, &sink);  // repeat while engaged
+  RefitOutcome ok;
+  ok.passed = true;
+  e->OnRefitOutcome(s, 7 * kSec, ok, &st, &sink);
+  e->OnFallback(s, 7 * kSec, false, 9, "", &st, &sink);
+  e->OnFallback(s, 8 * kSec, false, 9, "", &st, &sink);  // not engaged: nothing
+  e->OnRefitOutcome(s, 9 * kSec, ok, &st, &sink);        // no streak: nothing
+
+  REQUIRE(sink.alerts.size() == 4);
+  CHECK(sink.alerts[0].rule == AlertRule::kGateFailed);
+  CHECK(sink.alerts[0].severity == Severity::kWarn);
+  CHECK(sink.alerts[0].t_ns == 3 * kSec);
+  CHECK(sink.alerts[0].value == 3);
+  CHECK(std::string(sink.alerts[0].message) ==
+        "ALPHA.X: refit failed the quality gate 3 times in a row (last: diagnostics failed: "
+        "Ljung-Box p = 0.002); the current model stays in use, review the fit report.");
+  CHECK(sink.alerts[1].rule == AlertRule::kFallbackEngaged);
+  CHECK(sink.alerts[1].severity == Severity::kCritical);
+  CHECK(std::string(sink.alerts[1].message) ==
+        "ALPHA.X: EWMA fallback engaged (3 failed refits and the model's variance exploded); "
+        "forecasts are rough until a refit passes, reduce reliance on them.");
+  CHECK(sink.alerts[2].rule == AlertRule::kGateRecovered);
+  CHECK(sink.alerts[2].severity == Severity::kInfo);
+  CHECK(std::string(sink.alerts[2].message) ==
+        "ALPHA.X: refit passed the quality gate again after 4 failures; no action needed.");
+  CHECK(sink.alerts[3].rule == AlertRule::kFallbackCleared);
+  CHECK(sink.alerts[3].severity == Severity::kInfo);
+  CHECK(sink.alerts[3].ver == 9);
+  CHECK(std::string(sink.alerts[3].message) ==
+        "ALPHA.X: EWMA fallback cleared, model version 9 is in use again; no action needed.");
+  const AlertCounters& c = e->counters();
+  CHECK(c.Emitted(AlertKind::kModel, Severity::kWarn) == 1);
+  CHECK(c.Emitted(AlertKind::kModel, Severity::kCritical) == 1);
+  CHECK(c.Emitted(AlertKind::kModel, Severity::kInfo) == 2);
+  CHECK(c.Suppressed(AlertKind::kModel, Severity::kWarn) == 1);      // 4th failure
+  CHECK(c.Suppressed(AlertKind::kModel, Severity::kCritical) == 1);  // engaged again
+  CHECK(c.TotalSuppressed() == 2);
+
+  SECTION("a long reason is cut, the sentence stays whole") {
+    RefitOutcome longr;
+    longr.consecutive_failures = 3;
+    const std::string reason(400, 'x');
+    longr.reason = reason;
+    SymbolAlertState st2;
+    VectorSink s2;
+    e->OnRefitOutcome(s, 1, longr, &st2, &s2);
+    REQUIRE(s2.alerts.size() == 1);
+    const std::string m = s2.alerts[0].message;
+    CHECK(m.size() == s2.alerts[0].message_size);
+    CHECK(m.size() < static_cast<size_t>(kMaxAlertMessage));
+    CHECK(m.find(std::string(120, 'x') + "); the current model stays in use") != std::string::npos);
+  }
+}
+
+TEST_CASE("feed: stale symbol with a fake clock", "[alerts]") {
+  AlertOptions o;
+  o.stale_seconds = 60;
+  auto e = Engine(o);
+  VectorSink sink;
+  SymbolAlertState st;
+  const Symbol s = Sym("ALPHA.X");
+  const int64_t t0 = 1700000000 * kSec;
+  e->CheckStale(s, t0, true, &st, &sink);  // never ticked: nothing to measure from
+  CHECK(sink.alerts.empty());
+  e->OnTick(s, t0, &st, &sink);
+  e->CheckStale(s, t0 + 59 * kSec, true, &st, &sink);
+  CHECK(sink.alerts.empty());
+  e->CheckStale(s, t0 + 61 * kSec, true, &st, &sink);
+  REQUIRE(sink.alerts.size() == 1);
+  CHECK(sink.alerts[0].kind == AlertKind::kFeed);
+  CHECK(sink.alerts[0].rule == AlertRule::kStale);
+  CHECK(sink.alerts[0].severity == Severity::kWarn);
+  CHECK(sink.alerts[0].value == 61);
+  CHECK(std::string(sink.alerts[0].message) ==
+        "ALPHA.X: no tick for 61 s inside the session (stale after 60 s); check the feed for "
+        "this symbol.");
+  // No repeats until a tick arrives.
+  for (int k = 62; k < 300; k += 7) e->CheckStale(s, t0 + k * kSec, true, &st, &sink);
+  CHECK(sink.alerts.size() == 1);
+  e->OnTick(s, t0 + 300 * kSec, &st, &sink);
+  REQUIRE(sink.alerts.size() == 2);
+  CHECK(sink.alerts[1].rule == AlertRule::kTicksResumed);
+  CHECK(sink.alerts[1].severity == Severity::kInfo);
+  CHECK(std::string(sink.alerts[1].message) ==
+        "ALPHA.X: ticks resumed after 300 s without data; no action needed.");
+  // Re-armed: a new silence is reported again.
+  e->CheckStale(s, t0 + 361 * kSec, true, &st, &sink);
+  CHECK(sink.alerts.size() == 3);
+
+  SECTION("outside the session nothing fires and the clock restarts at the open") {
+    SymbolAlertState q;
+    VectorSink s2;
+    e->OnTick(s, t0, &q, &s2);
+    e->CheckStale(s, t0 + 3600 * kSec, false, &q, &s2);  // closed: overnight silence
+    e->CheckStale(s, t0 + 3630 * kSec, true, &q, &s2);   // 30 s after the last closed check
+    CHECK(s2.alerts.empty());
+    e->CheckStale(s, t0 + 3660 * kSec, true, &q, &s2);
+    CHECK(s2.alerts.size() == 1);
+  }
+}
+
+TEST_CASE("feed: burst of rejected ticks", "[alerts]") {
+  AlertOptions o;
+  o.reject_burst = 3;
+  o.reject_window_seconds = 6;  // 60 buckets of 0.1 s
+  auto e = Engine(o);
+  VectorSink sink;
+  const int64_t t0 = 1700000000 * kSec;
+  auto at = [&](double s) { e->OnRejectedTick(t0 + static_cast<int64_t>(s * kSec), &sink); };
+  at(0.0);
+  at(0.05);
+  CHECK(sink.alerts.empty());
+  at(5.0);  // the third within 6 s: a burst
+  REQUIRE(sink.alerts.size() == 1);
+  CHECK(sink.alerts[0].symbol.view() == kFeedSymbol);
+  CHECK(sink.alerts[0].kind == AlertKind::kFeed);
+  CHECK(sink.alerts[0].rule == AlertRule::kRejectBurst);
+  CHECK(sink.alerts[0].severity == Severity::kWarn);
+  CHECK(sink.alerts[0].value == 3);
+  CHECK(std::string(sink.alerts[0].message) ==
+        "feed: 3 rejected ticks within 6 s (warn at 3); check the publisher's message format "
+        "and the rejection counters by reason.");
+  // At 6.05 s the two rejects of the first 0.1 s bucket have left the window:
+  // 5.0 and 6.05 remain, below the burst size.
+  at(6.05);
+  // 6.1 s makes three again: a new crossing only 1.1 s after the alert, suppressed.
+  at(6.1);
+  CHECK(sink.alerts.size() == 1);
+  CHECK(e->counters().Suppressed(AlertKind::kFeed, Severity::kWarn) == 1);
+  // More rejects during the same burst are neither alerts nor suppressions.
+  at(6.2);
+  at(6.3);
+  CHECK(sink.alerts.size() == 1);
+  CHECK(e->counters().Suppressed(AlertKind::kFeed, Severity::kWarn) == 1);
+  // After a quiet spell a new burst (20.0, 20.1, 20.2) is reported again.
+  at(20.0);
+  at(20.1);
+  CHECK(sink.alerts.size() == 1);
+  at(20.2);
+  REQUIRE(sink.alerts.size() == 2);
+  CHECK(sink.alerts[1].t_ns == t0 + static_cast<int64_t>(20.2 * kSec));
+  CHECK(e->counters().Emitted(AlertKind::kFeed, Severity::kWarn) == 2);
+}
+
+TEST_CASE("JSON encoding", "[alerts]") {
+  Alert a;
+  a.symbol.assign("ALPHA.X");
+  a.t_ns = 1700000000123456789;
+  a.kind = AlertKind::kShock;
+  a.rule = AlertRule::kShock;
+  a.severity = Severity::kWarn;
+  a.value = -5.25;
+  a.threshold = 4;
+  a.ver = 3;
+  std::snprintf(a.message, sizeof(a.message), "say \"hi\"\\\n");
+  a.message_size = 10;
+  std::string out = "old content";
+  EncodeAlertJson(a, &out);
+  CHECK(out ==
+        "{\"s\":\"ALPHA.X\",\"t\":1700000000123456789,\"kind\":\"shock\",\"rule\":\"shock\","
+        "\"severity\":\"warn\",\"value\":-5.25,\"threshold\":4,\"ver\":3,"
+        "\"message\":\"say \\\"hi\\\"\\\\\\u000a\"}");
+  a.value = std::nan("");
+  EncodeAlertJson(a, &out);
+  CHECK(out.find("\"value\":null") != std::string::npos);
+  // Names.
+  CHECK(AlertKindName(AlertKind::kRegimeClear) == "regime_clear");
+  CHECK(AlertKindName(AlertKind::kPersistence) == "persistence");
+  CHECK(SeverityName(Severity::kCritical) == "critical");
+  CHECK(AlertRuleName(AlertRule::kFallbackEngaged) == "fallback_engaged");
+  CHECK(RegimeDirectionName(RegimeDirection::kLow) == "low");
+}
+
+TEST_CASE("OnBar and the JSON encoder allocate nothing", "[alerts]") {
+  const ModelParams p =
+      Params("t", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}, {"nu", 5}});
+  SimulationOptions so;
+  so.n = 200000;
+  so.seed = 9;
+  so.regime_changes = {{50000, 4.0}, {100000, 0.25}, {150000, 1.0}};
+  auto sim = Simulate(p, so);
+  REQUIRE(sim.ok());
+  auto fm = FilterModel::Create(p, OutputOptions{}, 1);
+  REQUIRE(fm.ok());
+  FilterState fs;
+  InitFilterState(*fm, 0, &fs);
+  AlertOptions o;
+  o.shock_info_z = 3;
+  o.cooldown_bars = 2;
+  auto e = Engine(o);
+  CountingSink sink;
+  SymbolAlertState st;
+  std::string json;
+  json.reserve(1024);
+  BarUpdate u;
+  u.symbol.assign("ALPHA.X");
+  Alert a;
+  const uint64_t before = testing::AllocationCount();
+  for (int64_t t = 0; t < so.n; ++t) {
+    u.flags = 0;
+    u.t_ns = t;
+    FilterStep(*fm, &fs, sim->returns[t], &u);
+    e->OnBar(u, &st, &sink);
+    if (t % 1000 == 0) EncodeAlertJson(a, &json);
+  }
+  e->OnTick(u.symbol, 1, &st, &sink);
+  e->CheckStale(u.symbol, 100 * kSec, true, &st, &sink);
+  e->OnRejectedTick(5, &sink);
+  const uint64_t after = testing::AllocationCount();
+  CHECK(after == before);
+  // The run exercised the rules it claims to: shocks of all tiers, regimes both ways.
+  const AlertCounters& c = e->counters();
+  CHECK(c.Emitted(AlertKind::kShock, Severity::kInfo) > 0);
+  CHECK(c.Emitted(AlertKind::kShock, Severity::kCritical) > 0);
+  CHECK(c.Emitted(AlertKind::kRegime, Severity::kWarn) > 0);
+  CHECK(c.Emitted(AlertKind::kRegime, Severity::kInfo) > 0);
+  CHECK(c.Emitted(AlertKind::kRegimeClear, Severity::kInfo) > 0);
+  CHECK(c.Emitted(AlertKind::kFeed, Severity::kWarn) == 1);
+  CHECK(sink.n == c.TotalEmitted());
+}
+
+TEST_CASE("bad alert options are clear errors", "[alerts]") {
+  AlertOptions o;
+  o.shock_critical_z = 3;
+  auto a = AlertEngine::Create(o);
+  REQUIRE_FALSE(a.ok());
+  CHECK(std::string(a.status().message()) == "shock_critical_z (3) must be >= shock_z (4)");
+  o = AlertOptions{};
+  o.shock_info_z = 5;
+  auto b = AlertEngine::Create(o);
+  REQUIRE_FALSE(b.ok());
+  CHECK(std::string(b.status().message()) ==
+        "shock_info_z must be 0 (off) or in (0, shock_z = 4), got 5");
+  o = AlertOptions{};
+  o.persistence_threshold = 1;
+  auto c = AlertEngine::Create(o);
+  REQUIRE_FALSE(c.ok());
+  CHECK(std::string(c.status().message()) == "persistence_threshold must be in (0, 1), got 1");
+  o = AlertOptions{};
+  o.regime_exit = 0.9;
+  auto d = AlertEngine::Create(o);
+  REQUIRE_FALSE(d.ok());
+  CHECK(std::string(d.status().message()) ==
+        "regime thresholds need 1 <= regime_exit < regime_enter, got regime_exit = 0.9 and "
+        "regime_enter = 2");
+  o = AlertOptions{};
+  o.reject_burst = 0;
+  auto f = AlertEngine::Create(o);
+  REQUIRE_FALSE(f.ok());
+  CHECK(std::string(f.status().message()) == "reject_burst must be >= 1, got 0");
+  o = AlertOptions{};
+  o.stale_seconds = 0;
+  auto g = AlertEngine::Create(o);
+  REQUIRE_FALSE(g.ok());
+  CHECK(std::string(g.status().message()) == "stale_seconds must be a positive number, got 0");
+}
+
+}  // namespace
+}  // namespace aftershock
