@@ -40,15 +40,15 @@ namespace aftershock {
 // An instrument described in desk terms; InstrumentModel turns it into per-bar
 // model parameters. Plain value type.
 struct InstrumentProfile {
-  std::string symbol;            // 1..32 bytes of [A-Za-z0-9._:-]
-  std::string description;       // one line for listings; may be empty
-  double start_price = 100.0;    // close before bar 0; > 0
-  double vol_ann = 0.20;         // annualized unconditional volatility (fraction); > 0
-  double drift_ann = 0.0;        // annualized log drift (fraction); the constant mean
-  double persistence = 0.97;     // alpha + gamma/2 + beta; in [0, 1)
-  double alpha = 0.05;           // ARCH loading (GARCH and GJR); >= 0
-  double gamma = 0.0;            // asymmetry loading (GJR only); >= 0
-  double nu = 6.0;               // Student-t degrees of freedom; > 2
+  std::string symbol;          // 1..32 bytes of [A-Za-z0-9._:-]
+  std::string description;     // one line for listings; may be empty
+  double start_price = 100.0;  // close before bar 0; > 0
+  double vol_ann = 0.20;       // annualized unconditional volatility (fraction); > 0
+  double drift_ann = 0.0;      // annualized log drift (fraction); the constant mean
+  double persistence = 0.97;   // alpha + gamma/2 + beta; in [0, 1)
+  double alpha = 0.05;         // ARCH loading (GARCH and GJR); >= 0
+  double gamma = 0.0;          // asymmetry loading (GJR only); >= 0
+  double nu = 6.0;             // Student-t degrees of freedom; > 2
   VarianceKind family = VarianceKind::kGarch;  // kGarch, kGjr or kConstant
 };
 
@@ -74,8 +74,8 @@ absl::StatusOr<std::vector<InstrumentProfile>> DefaultInstruments(int n);
 // omega = unconditional variance * (1 - persistence) (constant: the variance).
 // InvalidArgument naming the field when the profile is inconsistent (e.g. a
 // negative beta) or the family is not one of the three.
-absl::StatusOr<ModelParams> InstrumentModel(const InstrumentProfile& profile,
-                                            VarianceKind family, double periods_per_year);
+absl::StatusOr<ModelParams> InstrumentModel(const InstrumentProfile& profile, VarianceKind family,
+                                            double periods_per_year);
 
 // Bars per year used to annualize a bar interval: 252 trading days of 6.5 hours,
 // i.e. 252 * 23400 s / interval, but never below 252 (daily or longer bars).
@@ -88,18 +88,18 @@ uint64_t InstrumentSeed(uint64_t master_seed, absl::string_view symbol);
 
 // One simulated instrument.
 struct MarketInstrument {
-  std::string symbol;                              // valid wire symbol
-  double start_price = 100.0;                      // > 0
-  ModelParams params;                              // per-bar model; passes CheckConstraints
-  std::vector<VarianceRegimeChange> regimes;       // bars strictly increasing, < bars
+  std::string symbol;                         // valid wire symbol
+  double start_price = 100.0;                 // > 0
+  ModelParams params;                         // per-bar model; passes CheckConstraints
+  std::vector<VarianceRegimeChange> regimes;  // bars strictly increasing, < bars
 };
 
 struct MarketSimOptions {
-  int64_t bars = 390;           // bars per instrument; >= 1; default 390 (one 6.5 h session of 1m)
-  uint64_t seed = 1;            // master seed; default 1
-  int64_t start_ns = 0;         // time of bar 0, ns since the Unix epoch; >= 0
+  int64_t bars = 390;    // bars per instrument; >= 1; default 390 (one 6.5 h session of 1m)
+  uint64_t seed = 1;     // master seed; default 1
+  int64_t start_ns = 0;  // time of bar 0, ns since the Unix epoch; >= 0
   int64_t interval_ns = 60000000000;  // bar spacing, ns; > 0; default 1 minute
-  int64_t burn_in = 500;        // bars simulated and discarded per instrument; default 500
+  int64_t burn_in = 500;              // bars simulated and discarded per instrument; default 500
 };
 
 // Streaming generator of the market's ticks. Cost per tick: one shock draw and
@@ -109,8 +109,8 @@ class MarketSim {
   // InvalidArgument (naming the instrument) on an empty list, a bad or repeated
   // symbol, a bad start price, parameters failing CheckConstraints or a bad
   // regime list; or on inconsistent options.
-  static absl::StatusOr<std::unique_ptr<MarketSim>> Create(std::vector<MarketInstrument> instruments,
-                                                           const MarketSimOptions& options);
+  static absl::StatusOr<std::unique_ptr<MarketSim>> Create(
+      std::vector<MarketInstrument> instruments, const MarketSimOptions& options);
   ~MarketSim();
   MarketSim(const MarketSim&) = delete;
   MarketSim& operator=(const MarketSim&) = delete;
@@ -120,7 +120,7 @@ class MarketSim {
   // tick->rv is NaN.
   bool Next(Tick::Kind field, Tick* tick);
 
-  int64_t total_ticks() const;     // bars * number of instruments
+  int64_t total_ticks() const;  // bars * number of instruments
   int64_t ticks_emitted() const;
   const std::vector<MarketInstrument>& instruments() const;
   const MarketSimOptions& options() const;

@@ -1,6 +1,8 @@
 // `aftershock simulate`: a synthetic market of invented instruments (PRODUCT.md
 // C12), written to a tick CSV for replay or published on a ZeroMQ socket at a
 // given rate for the live engine.
+#include <toml++/toml.h>
+
 #include <charconv>
 #include <chrono>
 #include <cmath>
@@ -24,7 +26,6 @@
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/stop_signal.h"
-#include <toml++/toml.h>
 
 namespace aftershock::app {
 namespace {
@@ -61,8 +62,8 @@ absl::Status ParseRegimeList(absl::string_view text, std::vector<RegimeItem>* ou
           "'"));
     }
     if (bar < 0 || !(std::isfinite(mult) && mult > 0)) {
-      return absl::InvalidArgumentError(absl::StrCat(
-          "--regime: BAR must be >= 0 and MULT a number > 0, got '", part, "'"));
+      return absl::InvalidArgumentError(
+          absl::StrCat("--regime: BAR must be >= 0 and MULT a number > 0, got '", part, "'"));
     }
     item.change = {bar, mult};
     out->push_back(std::move(item));
@@ -78,16 +79,16 @@ absl::Status LoadUniverseFile(const std::string& path, std::vector<InstrumentPro
     doc = toml::parse_file(path);
   } catch (const toml::parse_error& e) {
     const auto& src = e.source();
-    return absl::InvalidArgumentError(absl::StrCat(path, ":", src.begin.line, ": ",
-                                                   std::string(e.description())));
+    return absl::InvalidArgumentError(
+        absl::StrCat(path, ":", src.begin.line, ": ", std::string(e.description())));
   } catch (const std::exception& e) {
     return absl::InvalidArgumentError(absl::StrCat(path, ": ", e.what()));
   }
   for (auto&& [key, node] : doc) {
     if (key.str() != "instrument") {
-      return absl::InvalidArgumentError(absl::StrCat(
-          path, ":", key.source().begin.line, ": unknown key '", std::string(key.str()),
-          "' (the file holds [[instrument]] tables)"));
+      return absl::InvalidArgumentError(absl::StrCat(path, ":", key.source().begin.line,
+                                                     ": unknown key '", std::string(key.str()),
+                                                     "' (the file holds [[instrument]] tables)"));
     }
   }
   const toml::array* list = doc["instrument"].as_array();
@@ -102,8 +103,9 @@ absl::Status LoadUniverseFile(const std::string& path, std::vector<InstrumentPro
     };
     if (t == nullptr) return absl::InvalidArgumentError(where("must be a table"));
     InstrumentProfile p;
-    for (auto&& [key, value] : *t) {
+    for (auto&& [key, entry] : *t) {
       const std::string k(key.str());
+      const toml::node& value = entry;  // lambdas cannot capture structured bindings (C++17)
       auto number = [&](double* dst) -> absl::Status {
         if (auto v = value.value<double>(); v.has_value()) {
           *dst = *v;
@@ -118,11 +120,16 @@ absl::Status LoadUniverseFile(const std::string& path, std::vector<InstrumentPro
         if (k == "symbol") p.symbol = *v;
         if (k == "description") p.description = *v;
         if (k == "model") {
-          if (*v == "garch") p.family = VarianceKind::kGarch;
-          else if (*v == "gjr") p.family = VarianceKind::kGjr;
-          else if (*v == "constant") p.family = VarianceKind::kConstant;
-          else return absl::InvalidArgumentError(
-              where("model: expected \"garch\", \"gjr\" or \"constant\", got \"" + *v + "\""));
+          if (*v == "garch") {
+            p.family = VarianceKind::kGarch;
+          } else if (*v == "gjr") {
+            p.family = VarianceKind::kGjr;
+          } else if (*v == "constant") {
+            p.family = VarianceKind::kConstant;
+          } else {
+            return absl::InvalidArgumentError(
+                where("model: expected \"garch\", \"gjr\" or \"constant\", got \"" + *v + "\""));
+          }
         }
       } else if (k == "price") {
         s = number(&p.start_price);
@@ -254,7 +261,7 @@ int WriteCsv(MarketSim& sim, const std::string& path, Tick::Kind field, bool iso
 
 struct PublishOptions {
   std::string endpoint;
-  double rate = 1000;       // ticks per second; 0 = unpaced
+  double rate = 1000;  // ticks per second; 0 = unpaced
   WireEncoding encoding = WireEncoding::kJson;
   int batch = 1;
   int64_t wait_subscribers_ms = 0;
@@ -268,8 +275,8 @@ bool SleepUntil(Clock::time_point deadline) {
   while (!StopRequested()) {
     const auto now = Clock::now();
     if (now >= deadline) return true;
-    std::this_thread::sleep_for(std::min<Clock::duration>(deadline - now,
-                                                          std::chrono::milliseconds(100)));
+    std::this_thread::sleep_for(
+        std::min<Clock::duration>(deadline - now, std::chrono::milliseconds(100)));
   }
   return false;
 }
@@ -299,8 +306,8 @@ int Publish(MarketSim& sim, Tick::Kind field, const PublishOptions& o) {
     bool got = false;
     while (!got && !StopRequested() && Clock::now() < deadline) {
       zmq::pollitem_t item{sock.handle(), 0, ZMQ_POLLIN, 0};
-      const auto left = std::chrono::duration_cast<std::chrono::milliseconds>(deadline -
-                                                                               Clock::now());
+      const auto left =
+          std::chrono::duration_cast<std::chrono::milliseconds>(deadline - Clock::now());
       try {
         zmq::poll(&item, 1, std::chrono::milliseconds(std::min<int64_t>(100, left.count() + 1)));
       } catch (const zmq::error_t&) {
@@ -315,8 +322,7 @@ int Publish(MarketSim& sim, Tick::Kind field, const PublishOptions& o) {
       }
     }
     if (!got && !StopRequested()) {
-      std::fprintf(stderr,
-                   "aftershock simulate: no subscriber within %lld ms; publishing anyway\n",
+      std::fprintf(stderr, "aftershock simulate: no subscriber within %lld ms; publishing anyway\n",
                    static_cast<long long>(o.wait_subscribers_ms));
     }
   }
@@ -370,9 +376,8 @@ int Publish(MarketSim& sim, Tick::Kind field, const PublishOptions& o) {
   std::fprintf(stderr,
                "aftershock simulate: %s %lld ticks in %lld messages (%zu symbols) to %s in "
                "%.2f s (%.0f ticks/s)%s\n",
-               stopped ? "interrupted; published" : "published",
-               static_cast<long long>(sent_ticks), static_cast<long long>(messages),
-               sim.instruments().size(), bound.c_str(), secs,
+               stopped ? "interrupted; published" : "published", static_cast<long long>(sent_ticks),
+               static_cast<long long>(messages), sim.instruments().size(), bound.c_str(), secs,
                secs > 0 ? static_cast<double>(sent_ticks) / secs : 0.0,
                dropped > 0 ? absl::StrCat(", ", dropped, " interrupted sends").c_str() : "");
   sock.close();  // waits up to the linger time for queued messages
@@ -391,9 +396,10 @@ void PrintUniverse(const std::vector<MarketInstrument>& insts,
                 std::sqrt(m.UnconditionalVariance() * ppy), m.Persistence(), m.nu(),
                 profiles[i].description.c_str());
   }
-  std::printf("\nper-bar parameters use %.0f bars per year; outputs of models fitted to this\n"
-              "data are statistical estimates, not advice\n",
-              ppy);
+  std::printf(
+      "\nper-bar parameters use %.0f bars per year; outputs of models fitted to this\n"
+      "data are statistical estimates, not advice\n",
+      ppy);
 }
 
 }  // namespace
@@ -436,8 +442,10 @@ int SimulateCommand(int argc, char** argv) {
       "Examples:\n"
       "  aftershock simulate --output ticks.csv --bars 390 --regime 200:4\n"
       "  aftershock simulate --publish tcp://127.0.0.1:7301 --rate 200 --bars 100000");
-  args.AddOption("symbols", "N", "number of instruments from the built-in universe (beyond 12, "
-                 "numbered variants)", "12");
+  args.AddOption("symbols", "N",
+                 "number of instruments from the built-in universe (beyond 12, "
+                 "numbered variants)",
+                 "12");
   args.AddOption("universe", "FILE", "TOML file of instruments (replaces the built-in universe)");
   args.AddOption("model", "KIND",
                  "variance family for every instrument: mixed (each its own) | garch | gjr | "
@@ -453,20 +461,20 @@ int SimulateCommand(int argc, char** argv) {
                  "bars per year that convert the annualized volatilities (auto: 252 days of "
                  "6.5 h, i.e. 98280 for 1m bars, at least 252)",
                  "auto");
-  args.AddOption("regime", "SPEC", "variance regime change(s) [SYMBOL@]BAR:MULT[,...]; "
+  args.AddOption("regime", "SPEC",
+                 "variance regime change(s) [SYMBOL@]BAR:MULT[,...]; "
                  "repeatable");
   args.AddOption("output", "FILE", "write a tick CSV (symbol,time,price|return); '-' = stdout");
   args.AddOption("field", "KIND", "CSV/feed value: price | return (log return)", "price");
   args.AddOption("time-format", "FMT", "CSV time column: iso | ns", "iso");
-  args.AddOption("publish", "ENDPOINT", "bind a ZeroMQ PUB socket here and publish the ticks "
+  args.AddOption("publish", "ENDPOINT",
+                 "bind a ZeroMQ PUB socket here and publish the ticks "
                  "(e.g. tcp://127.0.0.1:7301)");
-  args.AddOption("rate", "TICKS_PER_S", "publishing rate in ticks per second; 0 = unpaced",
-                 "1000");
+  args.AddOption("rate", "TICKS_PER_S", "publishing rate in ticks per second; 0 = unpaced", "1000");
   args.AddOption("encoding", "ENC", "wire encoding: json | binary", "json");
   args.AddOption("batch", "N", "ticks per message; > 1 sends batches with topic '*'", "1");
   args.AddOption("wait-subscribers", "MS",
-                 "wait up to MS ms for the first subscriber before publishing (0 = no wait)",
-                 "0");
+                 "wait up to MS ms for the first subscriber before publishing (0 = no wait)", "0");
   args.AddOption("linger", "MS", "time allowed at exit to deliver queued messages", "2000");
   args.AddOption("high-water-mark", "N", "messages queued per subscriber before ZeroMQ drops",
                  "100000");
@@ -486,8 +494,8 @@ int SimulateCommand(int argc, char** argv) {
   auto burn_in = args.GetInt("burn-in");
   if (!burn_in.ok()) return Fail(burn_in.status(), 2);
   auto start = ParseTickTime(args.Get("start"));
-  if (!start.ok()) return Fail(absl::InvalidArgumentError(absl::StrCat(
-                                   "--start: ", start.status().message())), 2);
+  if (!start.ok())
+    return Fail(absl::InvalidArgumentError(absl::StrCat("--start: ", start.status().message())), 2);
   auto interval = ParseDuration(args.Get("interval"));
   if (!interval.ok() || *interval <= 0) {
     return Fail(absl::InvalidArgumentError(absl::StrCat(
@@ -499,16 +507,14 @@ int SimulateCommand(int argc, char** argv) {
   if (args.Get("periods-per-year") != "auto") {
     auto v = args.GetDouble("periods-per-year");
     if (!v.ok() || !(*v > 0)) {
-      return Fail(absl::InvalidArgumentError("--periods-per-year must be auto or a number > 0"),
-                  2);
+      return Fail(absl::InvalidArgumentError("--periods-per-year must be auto or a number > 0"), 2);
     }
     ppy = *v;
   }
   const std::string field_name = args.Get("field");
   if (field_name != "price" && field_name != "return") {
-    return Fail(absl::InvalidArgumentError("--field must be price or return, got '" +
-                                           field_name + "'"),
-                2);
+    return Fail(
+        absl::InvalidArgumentError("--field must be price or return, got '" + field_name + "'"), 2);
   }
   const Tick::Kind field = field_name == "price" ? Tick::kPrice : Tick::kReturn;
   const std::string time_format = args.Get("time-format");
@@ -517,8 +523,8 @@ int SimulateCommand(int argc, char** argv) {
   }
   const std::string model = args.Get("model");
   if (model != "mixed" && model != "garch" && model != "gjr" && model != "constant") {
-    return Fail(absl::InvalidArgumentError(
-                    "--model must be mixed, garch, gjr or constant, got '" + model + "'"),
+    return Fail(absl::InvalidArgumentError("--model must be mixed, garch, gjr or constant, got '" +
+                                           model + "'"),
                 2);
   }
 
@@ -536,8 +542,8 @@ int SimulateCommand(int argc, char** argv) {
     auto n = args.GetInt("symbols");
     if (!n.ok()) return Fail(n.status(), 2);
     auto p = DefaultInstruments(static_cast<int>(std::min<long long>(*n, 1LL << 30)));
-    if (!p.ok()) return Fail(absl::InvalidArgumentError(absl::StrCat("--symbols: ",
-                                                                     p.status().message())), 2);
+    if (!p.ok())
+      return Fail(absl::InvalidArgumentError(absl::StrCat("--symbols: ", p.status().message())), 2);
     profiles = std::move(*p);
   }
   for (const auto& spec : args.GetAll("regime")) {
@@ -571,10 +577,9 @@ int SimulateCommand(int argc, char** argv) {
     }
   }
   for (auto& inst : insts) {
-    std::stable_sort(inst.regimes.begin(), inst.regimes.end(),
-                     [](const VarianceRegimeChange& a, const VarianceRegimeChange& b) {
-                       return a.bar < b.bar;
-                     });
+    std::stable_sort(
+        inst.regimes.begin(), inst.regimes.end(),
+        [](const VarianceRegimeChange& a, const VarianceRegimeChange& b) { return a.bar < b.bar; });
   }
   if (args.Flag("list")) {
     PrintUniverse(insts, profiles, ppy);
@@ -592,15 +597,13 @@ int SimulateCommand(int argc, char** argv) {
     po.endpoint = args.Get("publish");
     auto rate = args.GetDouble("rate");
     if (!rate.ok() || *rate < 0) {
-      return Fail(absl::InvalidArgumentError("--rate must be a number >= 0 (ticks per second)"),
-                  2);
+      return Fail(absl::InvalidArgumentError("--rate must be a number >= 0 (ticks per second)"), 2);
     }
     po.rate = *rate;
     const std::string enc = args.Get("encoding");
     if (enc != "json" && enc != "binary") {
-      return Fail(absl::InvalidArgumentError("--encoding must be json or binary, got '" + enc +
-                                             "'"),
-                  2);
+      return Fail(
+          absl::InvalidArgumentError("--encoding must be json or binary, got '" + enc + "'"), 2);
     }
     po.encoding = enc == "json" ? WireEncoding::kJson : WireEncoding::kBinary;
     auto batch = args.GetInt("batch");
@@ -613,12 +616,12 @@ int SimulateCommand(int argc, char** argv) {
     auto wait = args.GetInt("wait-subscribers");
     auto linger = args.GetInt("linger");
     auto hwm = args.GetInt("high-water-mark");
-    if (!wait.ok() || *wait < 0 || !linger.ok() || *linger < 0 || *linger > 3600000 ||
-        !hwm.ok() || *hwm < 1 || *hwm > 100000000) {
-      return Fail(absl::InvalidArgumentError(
-                      "--wait-subscribers and --linger need milliseconds >= 0, "
-                      "--high-water-mark an integer in 1..100000000"),
-                  2);
+    if (!wait.ok() || *wait < 0 || !linger.ok() || *linger < 0 || *linger > 3600000 || !hwm.ok() ||
+        *hwm < 1 || *hwm > 100000000) {
+      return Fail(
+          absl::InvalidArgumentError("--wait-subscribers and --linger need milliseconds >= 0, "
+                                     "--high-water-mark an integer in 1..100000000"),
+          2);
     }
     po.wait_subscribers_ms = *wait;
     po.linger_ms = static_cast<int>(*linger);

@@ -59,8 +59,7 @@ int WatchCommand(int argc, char** argv) {
   args.AddFlag("once", "print one table after --count updates (or --timeout) and exit");
   args.AddOption("count", "N", "with --once: updates to collect", "1");
   args.AddOption("timeout", "SECONDS", "with --once: give up waiting after this long", "10");
-  args.AddOption("mode", "MODE", "auto (table on a terminal, else lines) | table | lines",
-                 "auto");
+  args.AddOption("mode", "MODE", "auto (table on a terminal, else lines) | table | lines", "auto");
   args.AddOption("refresh-ms", "MS", "minimum time between table redraws (>= 100)", "100");
   args.AddOption("z-alert", "K", "mark updates with |z| >= K", "3");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
@@ -73,8 +72,8 @@ int WatchCommand(int argc, char** argv) {
   auto count = args.GetInt("count");
   auto refresh = args.GetInt("refresh-ms");
   auto z_alert = args.GetDouble("z-alert");
-  if (!duration.ok() || *duration < 0) return Fail(absl::InvalidArgumentError(
-                                                       "--duration must be seconds >= 0"), 2);
+  if (!duration.ok() || *duration < 0)
+    return Fail(absl::InvalidArgumentError("--duration must be seconds >= 0"), 2);
   if (!timeout.ok() || !(*timeout > 0)) {
     return Fail(absl::InvalidArgumentError("--timeout must be seconds > 0"), 2);
   }
@@ -120,14 +119,15 @@ int WatchCommand(int argc, char** argv) {
   ScopedStopHandler stop_handler;
   const auto start = Clock::now();
   const double limit_s = once ? *timeout : *duration;
-  const auto deadline = start + std::chrono::duration_cast<Clock::duration>(
-                                    std::chrono::duration<double>(limit_s));
+  const auto deadline =
+      start + std::chrono::duration_cast<Clock::duration>(std::chrono::duration<double>(limit_s));
   const auto refresh_every = std::chrono::milliseconds(*refresh);
   auto next_draw = start;
   bool dirty = table_mode && !once;
   uint64_t bad = 0;
   BarUpdate u;
-  if (table_mode && !once) Write("\x1b[2J");  // clear once; redraws then go home + overwrite
+  // Clear once and hide the cursor; redraws then go home and overwrite in place.
+  if (table_mode && !once) Write("\x1b[2J\x1b[?25l");
   while (!StopRequested()) {
     const auto now = Clock::now();
     if (limit_s > 0 && now >= deadline) break;
@@ -199,7 +199,7 @@ int WatchCommand(int argc, char** argv) {
     }
     Write(table.Render(false));
   } else if (table_mode) {
-    Write(table.Render(true));
+    Write(table.Render(true) + "\x1b[?25h");  // final state, cursor shown again
   }
   std::fprintf(stderr, "aftershock watch: %llu updates, %zu symbols, %llu undecodable messages\n",
                static_cast<unsigned long long>(table.updates()), table.size(),

@@ -56,10 +56,10 @@ bool WatchTable::Apply(const BarUpdate& u) {
 }
 
 std::string WatchTable::FormatLine(const BarUpdate& u) const {
-  std::string out = absl::StrFormat(
-      "%s %s r=%.6f z=%.2f vol_ann=%.4f vol_next=%.6f scale=%.3f ver=%u flags=%s",
-      FormatUtc(u.t_ns), u.symbol.view(), u.r, u.z, u.vol_ann, SafeSqrt(u.var_next), u.scale,
-      u.ver, FlagList(u.flags));
+  std::string out =
+      absl::StrFormat("%s %s r=%.6f z=%.2f vol_ann=%.4f vol_next=%.6f scale=%.3f ver=%u flags=%s",
+                      FormatUtc(u.t_ns), u.symbol.view(), u.r, u.z, u.vol_ann, SafeSqrt(u.var_next),
+                      u.scale, u.ver, FlagList(u.flags));
   if (std::fabs(u.z) >= options_.z_alert) out += " !";
   return out;
 }
@@ -67,11 +67,11 @@ std::string WatchTable::FormatLine(const BarUpdate& u) const {
 std::string WatchTable::Render(bool ansi) const {
   const std::string eol = ansi ? absl::StrCat(kClearEol, "\n") : "\n";
   std::string out = ansi ? kHome : "";
-  absl::StrAppend(&out,
-                  absl::StrFormat("%-14s %-20s %10s %7s %1s %8s %10s %6s %4s %s", "symbol",
-                                  "bar time (UTC)", "return", "z", "", "vol_ann", "vol_next",
-                                  "scale", "ver", "flags"),
-                  eol);
+  absl::StrAppend(
+      &out,
+      absl::StrFormat("%-14s %-20s %10s %7s %1s %8s %10s %6s %4s %s", "symbol", "bar time (UTC)",
+                      "return", "z", "", "vol_ann", "vol_next", "scale", "ver", "flags"),
+      eol);
   for (const auto& [sym, row] : rows_) {
     const bool mark = std::fabs(row.z) >= options_.z_alert;
     std::string z = absl::StrFormat("%7.2f", row.z);
@@ -82,8 +82,9 @@ std::string WatchTable::Render(bool ansi) const {
                                     row.vol_next, row.scale, row.ver, FlagList(row.flags)),
                     eol);
   }
-  absl::StrAppend(&out, absl::StrFormat("%d symbols, %d updates; marked: |z| >= %g", rows_.size(),
-                                        updates_, options_.z_alert),
+  absl::StrAppend(&out,
+                  absl::StrFormat("%d symbols, %d updates; marked: |z| >= %g", rows_.size(),
+                                  updates_, options_.z_alert),
                   eol);
   if (ansi) absl::StrAppend(&out, kClearBelow);
   return out;

@@ -126,9 +126,9 @@ absl::StatusOr<ModelParams> InstrumentModel(const InstrumentProfile& p, Variance
     if (gjr && !(p.gamma >= 0)) return InstrumentError(p.symbol, "gamma must be >= 0");
     const double beta = p.persistence - p.alpha - (gjr ? 0.5 * p.gamma : 0.0);
     if (beta < 0) {
-      return InstrumentError(
-          p.symbol, absl::StrCat("alpha", gjr ? " + gamma/2" : "",
-                                 " exceeds the persistence (beta would be ", beta, ")"));
+      return InstrumentError(p.symbol,
+                             absl::StrCat("alpha", gjr ? " + gamma/2" : "",
+                                          " exceeds the persistence (beta would be ", beta, ")"));
     }
     variance = gjr ? "gjr" : "garch";
     named.push_back({"omega", uvar * (1.0 - p.persistence)});
@@ -261,7 +261,8 @@ MarketSim::~MarketSim() = default;
 absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
     std::vector<MarketInstrument> instruments, const MarketSimOptions& o) {
   if (instruments.empty()) return absl::InvalidArgumentError("the market has no instruments");
-  if (o.bars < 1) return absl::InvalidArgumentError(absl::StrCat("bars must be >= 1, got ", o.bars));
+  if (o.bars < 1)
+    return absl::InvalidArgumentError(absl::StrCat("bars must be >= 1, got ", o.bars));
   if (o.burn_in < 0) {
     return absl::InvalidArgumentError(absl::StrCat("burn_in must be >= 0, got ", o.burn_in));
   }
@@ -276,8 +277,8 @@ absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
   std::set<std::string> seen;
   for (const auto& inst : instruments) {
     if (!IsValidSymbol(inst.symbol)) {
-      return absl::InvalidArgumentError(absl::StrCat(
-          "bad symbol '", inst.symbol, "' (1..32 characters of A-Z a-z 0-9 . _ : -)"));
+      return absl::InvalidArgumentError(
+          absl::StrCat("bad symbol '", inst.symbol, "' (1..32 characters of A-Z a-z 0-9 . _ : -)"));
     }
     if (!seen.insert(inst.symbol).second) {
       return absl::InvalidArgumentError(absl::StrCat("symbol ", inst.symbol, " appears twice"));
@@ -294,15 +295,15 @@ absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
     int64_t prev = -1;
     for (const auto& c : inst.regimes) {
       if (c.bar < 0 || c.bar >= o.bars) {
-        return InstrumentError(inst.symbol, absl::StrCat("regime bar must be in [0, ", o.bars,
-                                                         "), got ", c.bar));
+        return InstrumentError(
+            inst.symbol, absl::StrCat("regime bar must be in [0, ", o.bars, "), got ", c.bar));
       }
       if (c.bar <= prev) {
         return InstrumentError(inst.symbol, "regime bars must be strictly increasing");
       }
       if (!(std::isfinite(c.multiplier) && c.multiplier > 0)) {
-        return InstrumentError(inst.symbol, absl::StrCat("regime multiplier must be > 0, got ",
-                                                         c.multiplier));
+        return InstrumentError(inst.symbol,
+                               absl::StrCat("regime multiplier must be > 0, got ", c.multiplier));
       }
       prev = c.bar;
     }
@@ -342,9 +343,7 @@ int64_t MarketSim::total_ticks() const {
   return impl_->options.bars * static_cast<int64_t>(impl_->instruments.size());
 }
 int64_t MarketSim::ticks_emitted() const { return impl_->emitted; }
-const std::vector<MarketInstrument>& MarketSim::instruments() const {
-  return impl_->instruments;
-}
+const std::vector<MarketInstrument>& MarketSim::instruments() const { return impl_->instruments; }
 const MarketSimOptions& MarketSim::options() const { return impl_->options; }
 
 }  // namespace aftershock

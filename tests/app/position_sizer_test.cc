@@ -37,11 +37,10 @@ TEST_CASE("position_sizer turns scales into lots for the example book") {
 
   testing::CommandResult r;
   std::thread consumer([&] {
-    r = testing::RunCommand({AFTERSHOCK_PYTHON,
-                             std::string(AFTERSHOCK_SOURCE_DIR) +
-                                 "/tools/examples/position_sizer.py",
-                             "--endpoint", ep, "--count", "4", "--capital", "1000000",
-                             "--timeout", "20"});
+    r = testing::RunCommand(
+        {AFTERSHOCK_PYTHON,
+         std::string(AFTERSHOCK_SOURCE_DIR) + "/tools/examples/position_sizer.py", "--endpoint", ep,
+         "--count", "4", "--capital", "1000000", "--timeout", "20"});
   });
   zmq::message_t sub;
   REQUIRE(pub.recv(sub));  // the subscriber is connected: no slow-joiner loss

@@ -65,8 +65,8 @@ TEST_CASE("simulate writes a tick CSV that the replay reader parses") {
     CHECK(ticks[i].t_ns == t0 + static_cast<int64_t>(i / 3) * 60 * 1000000000LL);
     ++per_symbol[std::string(ticks[i].symbol.view())];
   }
-  CHECK(per_symbol == std::map<std::string, int>{
-                          {"BRANDR.NRG", 5}, {"SKJOLD.GAS", 5}, {"VARDE.PWR", 5}});
+  CHECK(per_symbol ==
+        std::map<std::string, int>{{"BRANDR.NRG", 5}, {"SKJOLD.GAS", 5}, {"VARDE.PWR", 5}});
   // The ISO time is written as given.
   const std::string text = testing::ReadFileOrDie(path);
   CHECK(text.rfind("symbol,time,price\nBRANDR.NRG,2026-03-02T09:30:00Z,", 0) == 0);
@@ -75,9 +75,9 @@ TEST_CASE("simulate writes a tick CSV that the replay reader parses") {
 TEST_CASE("simulate return CSV equals the library generator exactly") {
   const std::string dir = ScratchDir("simulate_returns");
   const std::string path = dir + "/r.csv";
-  auto r = RunCli({"simulate", "--symbols", "2", "--bars", "30", "--seed", "5", "--field",
-                   "return", "--time-format", "ns", "--interval", "5s", "--start", "0",
-                   "--output", path, "--quiet"});
+  auto r = RunCli({"simulate", "--symbols", "2", "--bars", "30", "--seed", "5", "--field", "return",
+                   "--time-format", "ns", "--interval", "5s", "--start", "0", "--output", path,
+                   "--quiet"});
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   auto ticks = ReadTicks(path);
@@ -86,7 +86,8 @@ TEST_CASE("simulate return CSV equals the library generator exactly") {
   auto profiles = DefaultInstruments(2);
   std::vector<MarketInstrument> insts;
   for (const auto& p : *profiles) {
-    insts.push_back({p.symbol, p.start_price,
+    insts.push_back({p.symbol,
+                     p.start_price,
                      *InstrumentModel(p, p.family, PeriodsPerYearForInterval(5000000000LL)),
                      {}});
   }
@@ -197,8 +198,8 @@ TEST_CASE("simulate reports bad usage with a clear message") {
   CHECK(late.err.find("regime bar must be in [0, 10), got 10") != std::string::npos);
   auto help = RunCli({"simulate", "--help"});
   CHECK(help.exit_code == 0);
-  for (const char* opt : {"--symbols", "--universe", "--model", "--regime", "--publish",
-                          "--rate", "--encoding", "--batch", "--wait-subscribers", "--field"}) {
+  for (const char* opt : {"--symbols", "--universe", "--model", "--regime", "--publish", "--rate",
+                          "--encoding", "--batch", "--wait-subscribers", "--field"}) {
     CHECK(help.out.find(opt) != std::string::npos);
   }
 }
@@ -214,8 +215,10 @@ void CheckPublished(const std::vector<std::string>& extra, int expect_messages) 
   sub.set(zmq::sockopt::rcvtimeo, 10000);
   sub.connect(ep);
 
-  std::vector<std::string> args = {"simulate", "--symbols", "3", "--bars", "4", "--seed", "21",
-                                   "--publish", ep, "--rate", "0", "--wait-subscribers", "10000"};
+  std::vector<std::string> args = {"simulate", "--symbols", "3",  "--bars",
+                                   "4",        "--seed",    "21", "--publish",
+                                   ep,         "--rate",    "0",  "--wait-subscribers",
+                                   "10000"};
   args.insert(args.end(), extra.begin(), extra.end());
   testing::CommandResult pub;
   std::thread runner([&] { pub = RunCli(args); });
@@ -268,8 +271,8 @@ TEST_CASE("simulate --publish: binary batches with topic *") {
 
 TEST_CASE("simulate --publish paces by the clock and stops cleanly on SIGINT") {
   // 40 ticks at 200 ticks/s: the last one is due 39 / 200 = 0.195 s after the first.
-  auto paced = RunCli({"simulate", "--symbols", "2", "--bars", "20", "--publish",
-                       FreeEndpoint(), "--rate", "200", "--linger", "0"});
+  auto paced = RunCli({"simulate", "--symbols", "2", "--bars", "20", "--publish", FreeEndpoint(),
+                       "--rate", "200", "--linger", "0"});
   REQUIRE(paced.exit_code == 0);
   REQUIRE(paced.err.find("published 40 ticks in 40 messages") != std::string::npos);
   const auto secs_at = paced.err.find("to tcp://");

@@ -67,8 +67,8 @@ TEST_CASE("watch --once prints the table of the first N updates (JSON and binary
   TestPublisher pub;
   testing::CommandResult r;
   std::thread watcher([&] {
-    r = testing::RunCli({"watch", "--endpoint", pub.endpoint(), "--once", "--count", "3",
-                         "--timeout", "10"});
+    r = testing::RunCli(
+        {"watch", "--endpoint", pub.endpoint(), "--once", "--count", "3", "--timeout", "10"});
   });
   REQUIRE(pub.WaitSubscriptions(1));
   const auto a = Make("SKJOLD.GAS", k0931, 0.004, 3.2, 0.5, 1);

@@ -11,8 +11,8 @@
 namespace aftershock::app {
 namespace {
 
-BarUpdate Make(const char* sym, int64_t t_ns, double r, double z, double vol_ann,
-               double var_next, double scale, uint32_t ver, uint32_t flags) {
+BarUpdate Make(const char* sym, int64_t t_ns, double r, double z, double vol_ann, double var_next,
+               double scale, uint32_t ver, uint32_t flags) {
   BarUpdate u;
   u.symbol.assign(sym);
   u.t_ns = t_ns;
@@ -47,8 +47,8 @@ TEST_CASE("plain line per update") {
 
 TEST_CASE("table rendering, sorted by symbol, latest values win") {
   WatchTable table;
-  REQUIRE(table.Apply(Make("SKJOLD.GAS", k0931, 0.0123, 3.5, 0.61, 4e-6, 0.164, 0,
-                           kFlagWarmup | kFlagGap)));
+  REQUIRE(table.Apply(
+      Make("SKJOLD.GAS", k0931, 0.0123, 3.5, 0.61, 4e-6, 0.164, 0, kFlagWarmup | kFlagGap)));
   REQUIRE(table.Apply(Make("BRANDR.NRG", k0931 - 60000000000, 0.002, 1.0, 0.2, 1e-6, 0.5, 1, 0)));
   REQUIRE(table.Apply(
       Make("BRANDR.NRG", k0931, -0.000412, -0.54, 0.3012, 0.000961 * 0.000961, 0.332, 2, 0)));
@@ -73,11 +73,11 @@ TEST_CASE("ANSI rendering refreshes in place and highlights large shocks") {
   table.Apply(Make("SKJOLD.GAS", k0931, 0.0123, -3.5, 0.61, 4e-6, 0.164, 0, 0));
   table.Apply(Make("BRANDR.NRG", k0931, 0.001, 1.2, 0.3, 1e-6, 0.3, 0, 0));
   const std::string s = table.Render(true);
-  CHECK(s.rfind("\x1b[H", 0) == 0);                           // cursor home first
+  CHECK(s.rfind("\x1b[H", 0) == 0);  // cursor home first
   CHECK(s.size() > 3);
-  CHECK(s.substr(s.size() - 3) == "\x1b[J");                  // clear what is below
+  CHECK(s.substr(s.size() - 3) == "\x1b[J");                      // clear what is below
   CHECK(s.find("\x1b[7m  -3.50\x1b[0m !") != std::string::npos);  // reverse video, marked
-  CHECK(s.find("\x1b[7m   1.20") == std::string::npos);      // |z| < 3 not highlighted
+  CHECK(s.find("\x1b[7m   1.20") == std::string::npos);           // |z| < 3 not highlighted
   CHECK(s.find("warmup") == std::string::npos);
   // Every line ends by erasing the rest of the old line.
   size_t lines = 0;

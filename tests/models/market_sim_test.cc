@@ -47,9 +47,13 @@ TEST_CASE("streaming returns equal the batch simulator bit for bit") {
   // An ARMA(1,1) mean exercises the full mean recursion as well.
   auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "t");
   REQUIRE(spec.ok());
-  auto arma = ModelParams::FromNamed(*spec, {{"mu", 1e-5}, {"ar1", 0.2}, {"ma1", -0.1},
-                                             {"omega", 2e-7}, {"alpha1", 0.08},
-                                             {"beta1", 0.9}, {"nu", 6.0}});
+  auto arma = ModelParams::FromNamed(*spec, {{"mu", 1e-5},
+                                             {"ar1", 0.2},
+                                             {"ma1", -0.1},
+                                             {"omega", 2e-7},
+                                             {"alpha1", 0.08},
+                                             {"beta1", 0.9},
+                                             {"nu", 6.0}});
   REQUIRE(arma.ok());
   insts.push_back({"ARMA.TEST", 50.0, *arma, {{5, 2.0}}});
   MarketSimOptions o;
@@ -91,8 +95,7 @@ TEST_CASE("prices cumulate the log returns and times step by the interval") {
     REQUIRE(prices[sym].size() == 200);
     for (size_t i = 0; i < 200; ++i) {
       cum += returns[sym][i].value;
-      CHECK(prices[sym][i].value ==
-            Approx(universe[k].start_price * std::exp(cum)).epsilon(1e-12));
+      CHECK(prices[sym][i].value == Approx(universe[k].start_price * std::exp(cum)).epsilon(1e-12));
       CHECK(prices[sym][i].t_ns == o.start_ns + static_cast<int64_t>(i) * o.interval_ns);
       CHECK(returns[sym][i].t_ns == prices[sym][i].t_ns);
     }
@@ -198,8 +201,9 @@ TEST_CASE("InstrumentModel maps desk terms to per-bar parameters") {
   p.alpha = 0.99;
   auto bad = InstrumentModel(p, VarianceKind::kGarch, ppy);
   REQUIRE_FALSE(bad.ok());
-  CHECK(std::string(bad.status().message()).find("instrument TEST.X: alpha exceeds the "
-                                                  "persistence") != std::string::npos);
+  CHECK(std::string(bad.status().message())
+            .find("instrument TEST.X: alpha exceeds the "
+                  "persistence") != std::string::npos);
   p.alpha = 0.05;
   p.nu = 2;
   bad = InstrumentModel(p, VarianceKind::kGarch, ppy);
@@ -222,8 +226,7 @@ TEST_CASE("default universe and numbered variants") {
   CHECK((*many)[12].vol_ann != u[0].vol_ann);
   auto none = DefaultInstruments(0);
   REQUIRE_FALSE(none.ok());
-  CHECK(std::string(none.status().message()) ==
-        "number of instruments must be in 1..10000, got 0");
+  CHECK(std::string(none.status().message()) == "number of instruments must be in 1..10000, got 0");
   CHECK(PeriodsPerYearForInterval(60000000000LL) == Approx(98280));
   CHECK(PeriodsPerYearForInterval(86400000000000LL) == Approx(252));
 }
