@@ -415,7 +415,9 @@ int SimulateCommand(int argc, char** argv) {
       "shock loadings (`--list` shows them). Prices are the start price times the exponential\n"
       "of the cumulated log returns; bar i is stamped start + i * interval, one tick per\n"
       "instrument per bar. The same --seed gives the same data; an instrument's path depends\n"
-      "only on the seed and its symbol.\n\n"
+      "only on the seed and its symbol. Returns are fractions (0.001 = 0.1 %); give the\n"
+      "engine the bars per year that --list prints (periods_per_year) so annualized\n"
+      "figures match.\n\n"
       "Regimes: --regime [SYMBOL@]BAR:MULT multiplies the unconditional variance (omega) by\n"
       "MULT from output bar BAR on (0-based; relative to the base level, not cumulative).\n"
       "Without SYMBOL@ it applies to every instrument. Repeat the option or give a comma list:\n"
@@ -449,7 +451,8 @@ int SimulateCommand(int argc, char** argv) {
   args.AddOption("universe", "FILE", "TOML file of instruments (replaces the built-in universe)");
   args.AddOption("model", "KIND",
                  "variance family for every instrument: mixed (each its own) | garch | gjr | "
-                 "constant (no clustering)",
+                 "constant (no clustering); gjr on a symmetric profile keeps the persistence "
+                 "with alpha/2 and gamma = alpha",
                  "mixed");
   args.AddOption("bars", "N", "bars per instrument", "390");
   args.AddOption("seed", "N", "master random seed", "1");
