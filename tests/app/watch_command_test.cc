@@ -3,6 +3,7 @@
 // [body], JSON or binary from aftershock/update_codec.h) and the command's
 // output must be exactly what the table model renders for them.
 #include <catch2/catch.hpp>
+#include <chrono>
 #include <string>
 #include <thread>
 #include <zmq.hpp>
@@ -109,6 +110,44 @@ TEST_CASE("watch prints one line per update when not on a terminal, with a symbo
   app::WatchTable fmt;
   CHECK(r.out == fmt.FormatLine(a) + "\n" + fmt.FormatLine(c) + "\n");
   CHECK(r.out.find(" !\n") != std::string::npos);  // z = 4.1 is marked
+}
+
+TEST_CASE("watch --mode table redraws in place at most ten times a second") {
+  TestPublisher pub;
+  testing::CommandResult r;
+  std::thread watcher([&] {
+    r = testing::RunCli(
+        {"watch", "--endpoint", pub.endpoint(), "--duration", "1.5", "--mode", "table"});
+  });
+  REQUIRE(pub.WaitSubscriptions(1));
+  // 200 updates in a burst, then more spread over about a second.
+  for (int i = 0; i < 200; ++i) pub.Send(Make("BRANDR.NRG", k0931 + i, 0.001, 0.5, 0.4, 1), false);
+  for (int i = 0; i < 20; ++i) {
+    pub.Send(Make("SKJOLD.GAS", k0931 + i, 0.001, -3.5, 0.4, 1), true);
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  }
+  watcher.join();
+  REQUIRE(r.exit_code == 0);
+  size_t homes = 0;
+  for (size_t at = r.out.find("\x1b[H"); at != std::string::npos;
+       at = r.out.find("\x1b[H", at + 1)) {
+    ++homes;
+  }
+  // 1.5 s at <= 10 redraws a second, plus the final redraw (ECMA-48 CSI H = cursor home).
+  CHECK(homes >= 2);
+  CHECK(homes <= 17);
+  CHECK(r.out.rfind("\x1b[2J\x1b[?25l", 0) == 0);  // clear screen, hide cursor
+  CHECK(r.out.find("\x1b[7m  -3.50\x1b[0m !") != std::string::npos);
+  CHECK(r.out.substr(r.out.size() - 6) == "\x1b[?25h");  // cursor shown again at exit
+  CHECK(r.err.find("220 updates, 2 symbols") != std::string::npos);
+}
+
+TEST_CASE("watch exits cleanly on SIGINT") {
+  TestPublisher pub;
+  auto r = testing::RunCommand({"/usr/bin/timeout", "--preserve-status", "-s", "INT", "0.5",
+                                AFTERSHOCK_CLI, "watch", "--endpoint", pub.endpoint()});
+  CHECK(r.exit_code == 0);
+  CHECK(r.err == "aftershock watch: 0 updates, 0 symbols, 0 undecodable messages\n");
 }
 
 TEST_CASE("watch --once without updates times out with a message") {
