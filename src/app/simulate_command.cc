@@ -544,9 +544,13 @@ int SimulateCommand(int argc, char** argv) {
   } else {
     auto n = args.GetInt("symbols");
     if (!n.ok()) return Fail(n.status(), 2);
-    auto p = DefaultInstruments(static_cast<int>(std::min<long long>(*n, 1LL << 30)));
-    if (!p.ok())
-      return Fail(absl::InvalidArgumentError(absl::StrCat("--symbols: ", p.status().message())), 2);
+    if (*n < 1 || *n > kMaxMarketInstruments) {
+      return Fail(absl::InvalidArgumentError(absl::StrCat("--symbols must be in 1..",
+                                                          kMaxMarketInstruments, ", got ", *n)),
+                  2);
+    }
+    auto p = DefaultInstruments(static_cast<int>(*n));
+    if (!p.ok()) return Fail(p.status(), 2);
     profiles = std::move(*p);
   }
   for (const auto& spec : args.GetAll("regime")) {

@@ -196,6 +196,9 @@ TEST_CASE("simulate reports bad usage with a clear message") {
   auto late = RunCli({"simulate", "--output", "-", "--bars", "10", "--regime", "10:2"});
   CHECK(late.exit_code == 2);
   CHECK(late.err.find("regime bar must be in [0, 10), got 10") != std::string::npos);
+  auto many = RunCli({"simulate", "--output", "-", "--symbols", "99999999999"});
+  CHECK(many.exit_code == 2);
+  CHECK(many.err == "aftershock simulate: --symbols must be in 1..10000, got 99999999999\n");
   auto help = RunCli({"simulate", "--help"});
   CHECK(help.exit_code == 0);
   for (const char* opt : {"--symbols", "--universe", "--model", "--regime", "--publish", "--rate",
