@@ -44,7 +44,7 @@ int WatchCommand(int argc, char** argv) {
       "next-bar volatility sqrt(var_next), sizing scale, model version and flags. JSON and\n"
       "binary bodies are recognized automatically.\n\n"
       "On a terminal the table is redrawn in place (at most every --refresh-ms, rows sorted\n"
-      "by symbol; |z| >= --z-alert is shown in reverse video and marked '!'). When standard\n"
+      "by symbol; |z| >= --z-alert is shown inverted (SGR 7) and marked '!'). When standard\n"
       "output is not a terminal (a pipe or file), or with --mode lines, it prints one line\n"
       "per update instead:\n"
       "  2026-03-02T09:31:00Z BRANDR.NRG r=-0.000412 z=-0.54 vol_ann=0.3012 "

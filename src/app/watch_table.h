@@ -25,7 +25,7 @@ namespace aftershock::app {
 struct WatchTableOptions {
   // Only these symbols are kept (exact match); empty = every symbol. Default empty.
   std::vector<std::string> symbols;
-  // |z| at or above this is marked ('!' column; reverse video with ANSI). Default 3.
+  // |z| at or above this is marked ('!' column; inverted, SGR 7, with ANSI). Default 3.
   double z_alert = 3.0;
 };
 
@@ -51,7 +51,7 @@ class WatchTable {
 
   // The table, rows sorted by symbol. With ansi: starts with cursor-home,
   // clears each line's tail and everything below, and shows marked z cells in
-  // reverse video, so rewriting it refreshes the screen in place.
+  // inverted (SGR 7), so rewriting it refreshes the screen in place.
   std::string Render(bool ansi) const;
 
   // One plain line for an update (no newline), e.g.

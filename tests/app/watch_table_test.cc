@@ -2,7 +2,7 @@
 // text of the plain line and table forms for a known set of updates (the
 // formats documented in watch_table.h and `aftershock watch --help`), the ANSI
 // form's control sequences (ECMA-48: CSI H cursor home, CSI K erase to end of
-// line, CSI J erase below, CSI 7 m reverse video), sorting and filtering.
+// line, CSI J erase below, CSI 7 m inverse), sorting and filtering.
 #include "app/watch_table.h"
 
 #include <catch2/catch.hpp>
@@ -76,7 +76,7 @@ TEST_CASE("ANSI rendering refreshes in place and highlights large shocks") {
   CHECK(s.rfind("\x1b[H", 0) == 0);  // cursor home first
   CHECK(s.size() > 3);
   CHECK(s.substr(s.size() - 3) == "\x1b[J");                      // clear what is below
-  CHECK(s.find("\x1b[7m  -3.50\x1b[0m !") != std::string::npos);  // reverse video, marked
+  CHECK(s.find("\x1b[7m  -3.50\x1b[0m !") != std::string::npos);  // inverted, marked
   CHECK(s.find("\x1b[7m   1.20") == std::string::npos);           // |z| < 3 not highlighted
   CHECK(s.find("warmup") == std::string::npos);
   // Every line ends by erasing the rest of the old line.
