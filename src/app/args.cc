@@ -65,6 +65,7 @@ absl::Status ArgParser::Parse(int argc, char** argv, int first) {
       value = argv[++i];
     }
     values_[name] = value;
+    all_values_[name].push_back(value);
   }
   for (const auto& name : order_) {
     const Spec& s = specs_.at(name);
@@ -106,6 +107,11 @@ std::string ArgParser::Get(const std::string& name) const {
 }
 
 bool ArgParser::Flag(const std::string& name) const { return values_.count(name) > 0; }
+
+std::vector<std::string> ArgParser::GetAll(const std::string& name) const {
+  if (auto it = all_values_.find(name); it != all_values_.end()) return it->second;
+  return {};
+}
 
 absl::StatusOr<double> ArgParser::GetDouble(const std::string& name) const {
   const std::string v = Get(name);

@@ -38,6 +38,9 @@ class ArgParser {
   bool Has(const std::string& name) const;  // given on the command line (or a flag set)
   std::string Get(const std::string& name) const;  // value or default
   bool Flag(const std::string& name) const;
+  // Every value given for a repeatable option, in command-line order (Get
+  // returns the last one); empty when the option was not given.
+  std::vector<std::string> GetAll(const std::string& name) const;
 
   absl::StatusOr<double> GetDouble(const std::string& name) const;
   absl::StatusOr<long long> GetInt(const std::string& name) const;
@@ -56,6 +59,7 @@ class ArgParser {
   std::vector<std::string> order_;
   std::map<std::string, Spec> specs_;
   std::map<std::string, std::string> values_;
+  std::map<std::string, std::vector<std::string>> all_values_;
   bool help_ = false;
 };
 

@@ -16,6 +16,9 @@ struct Command {
 constexpr Command kCommands[] = {
     {"fit", "estimate a volatility model on a return series and print the report", FitCommand},
     {"demo", "run the embedded default end to end (no input needed)", DemoCommand},
+    {"simulate", "synthetic market of invented instruments to a tick CSV or a ZeroMQ feed",
+     SimulateCommand},
+    {"watch", "live terminal table of the engine's update stream", WatchCommand},
 };
 
 void PrintUsage(FILE* out) {

@@ -11,6 +11,8 @@ int Main(int argc, char** argv);
 // Subcommands (one file each in src/app/).
 int FitCommand(int argc, char** argv);       // fit_command.cc
 int DemoCommand(int argc, char** argv);      // demo_command.cc
+int SimulateCommand(int argc, char** argv);  // simulate_command.cc
+int WatchCommand(int argc, char** argv);     // watch_command.cc
 
 }  // namespace aftershock::app
 
