@@ -284,8 +284,8 @@ TEST_CASE("simulate --publish paces by the clock and stops cleanly on SIGINT") {
   const double secs = std::stod(paced.err.substr(in_at + 4));
   CHECK(secs >= 0.19);
 
-  // SIGINT after 1 s of a long run: clean stop, final count line, exit code 130.
-  auto stopped = testing::RunCommand({"/usr/bin/timeout", "--preserve-status", "-s", "INT", "1",
+  // SIGINT after 2 s (a slow start still has its handler by then) of a long run: clean stop, final count line, exit code 130.
+  auto stopped = testing::RunCommand({"/usr/bin/timeout", "--preserve-status", "-s", "INT", "2",
                                       AFTERSHOCK_CLI, "simulate", "--bars", "100000", "--publish",
                                       FreeEndpoint(), "--rate", "100", "--linger", "0"});
   INFO(stopped.err);
