@@ -73,7 +73,7 @@ class EstimatorRefitter : public Refitter {
  public:
   // InvalidArgument when a spec does not validate.
   static absl::StatusOr<std::unique_ptr<EstimatorRefitter>> Create(
-      EstimatorRefitterOptions options = DefaultOptions());
+      const EstimatorRefitterOptions& options = DefaultOptions());
   static EstimatorRefitterOptions DefaultOptions();
 
   // Without reidentify: FitModel on the current spec (initial_spec if none),
@@ -83,7 +83,7 @@ class EstimatorRefitter : public Refitter {
   absl::StatusOr<RefitCandidate> Fit(const RefitRequest& request) override;
 
  private:
-  explicit EstimatorRefitter(EstimatorRefitterOptions options) : options_(std::move(options)) {}
+  explicit EstimatorRefitter(const EstimatorRefitterOptions& options) : options_(options) {}
   const EstimatorRefitterOptions options_;
 };
 

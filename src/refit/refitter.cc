@@ -24,7 +24,7 @@ EstimatorRefitterOptions EstimatorRefitter::DefaultOptions() {
 }
 
 absl::StatusOr<std::unique_ptr<EstimatorRefitter>> EstimatorRefitter::Create(
-    EstimatorRefitterOptions options) {
+    const EstimatorRefitterOptions& options) {
   if (auto s = options.initial_spec.Validate(); !s.ok()) {
     return absl::InvalidArgumentError(absl::StrCat("initial_spec: ", s.message()));
   }
@@ -33,7 +33,7 @@ absl::StatusOr<std::unique_ptr<EstimatorRefitter>> EstimatorRefitter::Create(
       return absl::InvalidArgumentError(absl::StrCat("candidate ", c.Label(), ": ", s.message()));
     }
   }
-  return std::unique_ptr<EstimatorRefitter>(new EstimatorRefitter(std::move(options)));
+  return std::unique_ptr<EstimatorRefitter>(new EstimatorRefitter(options));
 }
 
 absl::StatusOr<RefitCandidate> EstimatorRefitter::Fit(const RefitRequest& req) {
