@@ -22,8 +22,8 @@ namespace {
 
 ModelParams Truth() {
   ModelSpec spec;
-  auto p = ModelParams::FromNamed(spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.08},
-                                         {"beta1", 0.9}});
+  auto p = ModelParams::FromNamed(
+      spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
   return *p;
 }
 

@@ -21,10 +21,10 @@ namespace aftershock {
 // warm-up and as the fallback; estimated versions count 1, 2, ... per symbol.
 struct ModelVersion {
   uint32_t version = 0;
-  FilterModel model;                 // compiled with `version`
-  std::vector<double> std_errors;    // Hessian-based, params order (empty for EWMA)
-  double loglik = 0;                 // of the fit on its window
-  int64_t fitted_bar = 0;            // returns seen when the fit was scheduled
+  FilterModel model;               // compiled with `version`
+  std::vector<double> std_errors;  // Hessian-based, params order (empty for EWMA)
+  double loglik = 0;               // of the fit on its window
+  int64_t fitted_bar = 0;          // returns seen when the fit was scheduled
 };
 
 using ModelVersionPtr = std::shared_ptr<const ModelVersion>;

@@ -88,18 +88,18 @@ double ScoreHoldout(const FilterModel& model, absl::Span<const double> window, i
 // Counters of the coordinator (monotone except the gauges in_flight, queued,
 // running).
 struct RefitStats {
-  uint64_t due = 0;            // due points reached
-  uint64_t submitted = 0;      // jobs queued
-  uint64_t coalesced = 0;      // due points merged into a pending job
-  uint64_t dropped = 0;        // due points with no free job slot
-  uint64_t swapped = 0;        // versions swapped in
-  uint64_t rejected = 0;       // jobs that failed the gate or whose refitter failed
-  uint64_t refit_errors = 0;   // of which the refitter returned an error
-  uint64_t fallbacks = 0;      // times the EWMA fallback was engaged
-  uint64_t replay_waits = 0;   // replay applications that had to wait for the worker
-  int in_flight = 0;           // jobs holding a slot (queued, running or awaiting apply)
-  int queued = 0;              // jobs not yet picked up by a worker
-  int running = 0;             // jobs a worker is running
+  uint64_t due = 0;           // due points reached
+  uint64_t submitted = 0;     // jobs queued
+  uint64_t coalesced = 0;     // due points merged into a pending job
+  uint64_t dropped = 0;       // due points with no free job slot
+  uint64_t swapped = 0;       // versions swapped in
+  uint64_t rejected = 0;      // jobs that failed the gate or whose refitter failed
+  uint64_t refit_errors = 0;  // of which the refitter returned an error
+  uint64_t fallbacks = 0;     // times the EWMA fallback was engaged
+  uint64_t replay_waits = 0;  // replay applications that had to wait for the worker
+  int in_flight = 0;          // jobs holding a slot (queued, running or awaiting apply)
+  int queued = 0;             // jobs not yet picked up by a worker
+  int running = 0;            // jobs a worker is running
 };
 
 // What OnBar did.
@@ -165,7 +165,7 @@ class RefitCoordinator {
     int32_t pending = -1;            // job slot in flight, or -1
     int failures = 0;                // consecutive failed jobs
     bool fallback = false;
-    int64_t fits = 0;                // jobs submitted
+    int64_t fits = 0;  // jobs submitted
   };
   struct JobSlot;
 
@@ -193,8 +193,8 @@ class RefitCoordinator {
 
   // ---- counters: written by the ingest thread, read anywhere (relaxed) ----
   struct Counters {
-    std::atomic<uint64_t> due{0}, submitted{0}, coalesced{0}, dropped{0}, swapped{0},
-        rejected{0}, refit_errors{0}, fallbacks{0}, replay_waits{0};
+    std::atomic<uint64_t> due{0}, submitted{0}, coalesced{0}, dropped{0}, swapped{0}, rejected{0},
+        refit_errors{0}, fallbacks{0}, replay_waits{0};
     std::atomic<int> in_flight{0};
   };
   Counters counters_;

@@ -23,14 +23,14 @@
 namespace aftershock {
 
 struct RefitRequest {
-  uint32_t symbol_id = 0;                 // dense id of the coordinator
-  absl::Span<const double> returns;       // the window copy, oldest first; valid during Fit
-  const ModelParams* current = nullptr;   // the symbol's latest estimated model (also while
-                                          // the EWMA fallback is in force); null before the first
-  bool reidentify = false;                // choose the spec again, not just re-estimate
-  uint64_t seed = 0;                      // for randomized refitters; stable per symbol and fit
-  int64_t fit_index = 0;                  // 0 for the symbol's first refit, then 1, 2, ...
-  int64_t bar = 0;                        // returns seen by the symbol when it was scheduled
+  uint32_t symbol_id = 0;                // dense id of the coordinator
+  absl::Span<const double> returns;      // the window copy, oldest first; valid during Fit
+  const ModelParams* current = nullptr;  // the symbol's latest estimated model (also while
+                                         // the EWMA fallback is in force); null before the first
+  bool reidentify = false;               // choose the spec again, not just re-estimate
+  uint64_t seed = 0;                     // for randomized refitters; stable per symbol and fit
+  int64_t fit_index = 0;                 // 0 for the symbol's first refit, then 1, 2, ...
+  int64_t bar = 0;                       // returns seen by the symbol when it was scheduled
 };
 
 // Residual diagnostics a candidate may carry (each optional: the gate skips
@@ -42,9 +42,9 @@ struct RefitDiagnostics {
 };
 
 struct RefitCandidate {
-  FitResult fit;                 // fit.params.spec is the candidate's spec
+  FitResult fit;  // fit.params.spec is the candidate's spec
   RefitDiagnostics diagnostics;
-  std::string note;              // e.g. "reidentified: GJR(1,1,1)-t by BIC"
+  std::string note;  // e.g. "reidentified: GJR(1,1,1)-t by BIC"
 };
 
 class Refitter {

@@ -30,8 +30,8 @@ class RollingWindow {
   }
 
   int capacity() const { return capacity_; }
-  int size() const { return size_; }       // returns held, <= capacity
-  int64_t total() const { return total_; } // returns pushed since creation
+  int size() const { return size_; }        // returns held, <= capacity
+  int64_t total() const { return total_; }  // returns pushed since creation
 
   // i-th held return, oldest first. REQUIRES: 0 <= i < size().
   double at(int i) const {
@@ -52,7 +52,7 @@ class RollingWindow {
  private:
   std::vector<double> buf_;
   int capacity_ = 0;
-  int head_ = 0;   // next write position
+  int head_ = 0;  // next write position
   int size_ = 0;
   int64_t total_ = 0;
 };

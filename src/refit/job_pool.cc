@@ -49,17 +49,21 @@ void JobPool::WorkerLoop() {
       slot = lane.ring[lane.head];
       lane.head = (lane.head + 1) % lane.ring.size();
       --lane.size;
-      queued_.fetch_sub(1, std::memory_order_relaxed);
+      // running_ first, then queued_ (release): a reader that sees the queued
+      // count drop (acquire) sees this job counted as running.
       running_.fetch_add(1, std::memory_order_relaxed);
+      queued_.fetch_sub(1, std::memory_order_release);
     }
     work_(slot);
-    running_.fetch_sub(1, std::memory_order_relaxed);
     {
       // The release store publishes the slot's results; holding done_mu_ makes
       // the store and the notify atomic with respect to a waiter's check.
       MutexLock l(&done_mu_);
       done_[slot].store(true, std::memory_order_release);
     }
+    // After the done store, with release: a reader that sees running() drop
+    // (acquire) also sees the done flag of the job that just finished.
+    running_.fetch_sub(1, std::memory_order_release);
     done_cv_.notify_all();
   }
 }

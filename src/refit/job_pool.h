@@ -55,10 +55,13 @@ class JobPool {
   void WaitDone(uint32_t slot) ABSL_LOCKS_EXCLUDED(done_mu_);
   void Recycle(uint32_t slot) { done_[slot].store(false, std::memory_order_relaxed); }
 
-  // Jobs submitted and not yet picked up by a worker (for metrics; relaxed).
-  int queued() const { return queued_.load(std::memory_order_relaxed); }
-  // Jobs a worker is running now (for metrics; relaxed).
-  int running() const { return running_.load(std::memory_order_relaxed); }
+  // Jobs submitted and not yet picked up by a worker. Read queued() before
+  // running(): the pair then never misses a job in between (see WorkerLoop).
+  int queued() const { return queued_.load(std::memory_order_acquire); }
+  // Jobs a worker is running now. Decremented (release) after the job's done
+  // store, read with acquire: once queued() + running() reads 0, every job
+  // submitted before is IsDone().
+  int running() const { return running_.load(std::memory_order_acquire); }
 
  private:
   // Fixed-capacity FIFO of slot indices; storage allocated at construction.
@@ -74,7 +77,7 @@ class JobPool {
 
   // ---- guarded by mu_ ----
   Mutex mu_;
-  std::condition_variable work_cv_;  // signalled on Submit and on stop
+  std::condition_variable work_cv_;     // signalled on Submit and on stop
   Lane lanes_[2] ABSL_GUARDED_BY(mu_);  // [0] priority, [1] normal
   bool stop_ ABSL_GUARDED_BY(mu_) = false;
 
@@ -82,9 +85,9 @@ class JobPool {
   Mutex done_mu_;                    // held only to store a done flag / to wait
   std::condition_variable done_cv_;  // signalled after each done store
 
-  // ---- metrics (relaxed: counters only, they order nothing) ----
-  std::atomic<int> queued_{0};
-  std::atomic<int> running_{0};
+  // ---- metrics ----
+  std::atomic<int> queued_{0};   // see queued()
+  std::atomic<int> running_{0};  // see running()
 
   // Last: the threads start after every member above exists, and are joined
   // (in the destructor) before any is destroyed.

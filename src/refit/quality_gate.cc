@@ -42,8 +42,8 @@ GateOutcome EvaluateQualityGate(const GateInput& in, const RefitOptions& o) {
     }
     const double phi = p.Persistence();
     if (!(phi < o.max_persistence)) {
-      why.push_back(absl::StrFormat("persistence %.6g >= max_persistence %.6g", phi,
-                                    o.max_persistence));
+      why.push_back(
+          absl::StrFormat("persistence %.6g >= max_persistence %.6g", phi, o.max_persistence));
     }
   }
   if (o.diagnostics_level > 0) {

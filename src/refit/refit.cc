@@ -17,20 +17,20 @@ namespace aftershock {
 struct RefitCoordinator::JobSlot {
   // ---- input ----
   uint32_t symbol_id = 0;
-  std::string symbol;            // capacity reserved for kMaxSymbolLength
-  std::vector<double> returns;   // capacity reserved for `window` doubles
-  ModelVersionPtr in_force;      // scored on the holdout
-  ModelVersionPtr estimated;     // warm start (may be null)
+  std::string symbol;           // capacity reserved for kMaxSymbolLength
+  std::vector<double> returns;  // capacity reserved for `window` doubles
+  ModelVersionPtr in_force;     // scored on the holdout
+  ModelVersionPtr estimated;    // warm start (may be null)
   bool reidentify = false;
   uint64_t seed = 0;
   int64_t fit_index = 0;
-  int64_t bar = 0;               // returns seen when scheduled
-  uint32_t version = 0;          // number the candidate gets if it passes
+  int64_t bar = 0;       // returns seen when scheduled
+  uint32_t version = 0;  // number the candidate gets if it passes
   // ---- output ----
   bool passed = false;
   bool refit_error = false;
-  ModelVersionPtr candidate;     // set when passed
-  FilterState tail_state;        // candidate's state at the end of `returns`
+  ModelVersionPtr candidate;  // set when passed
+  FilterState tail_state;     // candidate's state at the end of `returns`
   RefitRecord record;
 };
 
@@ -74,8 +74,7 @@ double ScoreHoldout(const FilterModel& model, absl::Span<const double> w, int ho
 }
 
 absl::StatusOr<std::unique_ptr<RefitCoordinator>> RefitCoordinator::Create(
-    const RefitOptions& options, const OutputOptions& outputs,
-    std::unique_ptr<Refitter> refitter) {
+    const RefitOptions& options, const OutputOptions& outputs, std::unique_ptr<Refitter> refitter) {
   if (auto s = options.Validate(); !s.ok()) return s;
   if (!refitter) return absl::InvalidArgumentError("a refitter is required");
   auto ewma = FilterModel::Ewma(options.ewma_lambda, outputs, 0);
@@ -190,8 +189,8 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
   j.estimated = sym->last_estimated;
   j.fit_index = sym->fits++;
   j.reidentify = options_.reidentify_every > 0 && j.fit_index % options_.reidentify_every == 0;
-  j.seed = StableSymbolHash(sym->name) ^ (static_cast<uint64_t>(j.fit_index) *
-                                          0x9E3779B97F4A7C15ull);
+  j.seed =
+      StableSymbolHash(sym->name) ^ (static_cast<uint64_t>(j.fit_index) * 0x9E3779B97F4A7C15ull);
   j.bar = sym->window.total();
   j.version = sym->last_version + 1;
   sym->pending = static_cast<int32_t>(slot);

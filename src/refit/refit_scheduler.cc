@@ -38,8 +38,8 @@ bool RefitScheduler::OnBar(ScheduleState* s, int64_t bars, int64_t t_ns) const {
     s->next_due_bar = bars + s->phase_bars;
     s->next_due_ns = t_ns + s->phase_ns;
   }
-  const bool due = (every_bars_ > 0 && bars >= s->next_due_bar) ||
-                   (every_ns_ > 0 && t_ns >= s->next_due_ns);
+  const bool due =
+      (every_bars_ > 0 && bars >= s->next_due_bar) || (every_ns_ > 0 && t_ns >= s->next_due_ns);
   if (!due) return false;
   s->next_due_bar = bars + every_bars_;
   s->next_due_ns = t_ns + every_ns_;

@@ -66,8 +66,7 @@ absl::StatusOr<RefitCandidate> EstimatorRefitter::Fit(const RefitRequest& req) {
     }
     const bool better =
         !best || (fit->converged && !best->converged) ||
-        (fit->converged == best->converged && std::isfinite(fit->bic) &&
-         !(fit->bic >= best->bic));
+        (fit->converged == best->converged && std::isfinite(fit->bic) && !(fit->bic >= best->bic));
     if (better) best = std::move(*fit);
   }
   if (!best) return last_error;

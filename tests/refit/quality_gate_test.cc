@@ -8,8 +8,8 @@ namespace {
 
 ModelParams Good() {
   ModelSpec spec;  // constant mean, GARCH(1,1), normal
-  auto p = ModelParams::FromNamed(spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.08},
-                                         {"beta1", 0.9}});
+  auto p = ModelParams::FromNamed(
+      spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
   REQUIRE(p.ok());
   return *p;
 }
@@ -86,7 +86,7 @@ TEST_CASE("gate rule: diagnostics at diagnostics_level", "[gate]") {
   GateOutcome g = EvaluateQualityGate(in, o);
   CHECK(g.reasons == Reasons{"diagnostics: Ljung-Box on z^2 p-value 0.004 < 0.01",
                              "diagnostics: ARCH-LM p-value 0.0099 < 0.01"});
-  in.diagnostics.arch_lm_p = 0.01;  // at the level: passes
+  in.diagnostics.arch_lm_p = 0.01;        // at the level: passes
   in.diagnostics.ljung_box_sq_p.reset();  // absent: skipped
   g = EvaluateQualityGate(in, o);
   CHECK(g.passed);
@@ -98,7 +98,7 @@ TEST_CASE("gate rule: diagnostics at diagnostics_level", "[gate]") {
 TEST_CASE("gate rule: holdout margin in nats per bar", "[gate]") {
   const ModelParams p = Good();
   GateInput in = Input(&p);
-  RefitOptions o;  // margin 0.05
+  RefitOptions o;                                  // margin 0.05
   in.holdout = HoldoutScore{100, -106.0, -100.0};  // 0.06 nats/bar worse
   GateOutcome g = EvaluateQualityGate(in, o);
   CHECK(g.reasons ==

@@ -20,8 +20,8 @@ namespace {
 
 ModelParams Garch(double mu, double omega, double alpha, double beta) {
   ModelSpec spec;  // constant mean, GARCH(1,1), normal
-  auto p = ModelParams::FromNamed(spec, {{"mu", mu}, {"omega", omega}, {"alpha1", alpha},
-                                         {"beta1", beta}});
+  auto p = ModelParams::FromNamed(
+      spec, {{"mu", mu}, {"omega", omega}, {"alpha1", alpha}, {"beta1", beta}});
   REQUIRE(p.ok());
   return *p;
 }
@@ -217,7 +217,8 @@ TEST_CASE("a doubled volatility regime is followed by new versions and lower QLI
   REQUIRE(!d.records.empty());
   const RefitRecord& r1 = d.records[0];
   REQUIRE(r1.version == 1);
-  auto p1 = ModelParams::FromNamed(ModelSpec{}, {{"mu", r1.values[0]}, {"omega", r1.values[1]},
+  auto p1 = ModelParams::FromNamed(ModelSpec{}, {{"mu", r1.values[0]},
+                                                 {"omega", r1.values[1]},
                                                  {"alpha1", r1.values[2]},
                                                  {"beta1", r1.values[3]}});
   REQUIRE(p1.ok());
@@ -290,9 +291,9 @@ TEST_CASE("faulty fits are never swapped in; repeated failures engage the fallba
   o.jitter_fraction = 0;
   o.max_failures = 3;
   o.mode = RefitMode::kReplay;
-  Driver d(o, std::make_unique<ScriptedRefitter>(std::vector<std::string>{
-                  "good", "error", "nan", "negative", "good", "persistent", "diag",
-                  "unconverged"}));
+  Driver d(o,
+           std::make_unique<ScriptedRefitter>(std::vector<std::string>{
+               "good", "error", "nan", "negative", "good", "persistent", "diag", "unconverged"}));
   d.Add("ORBWEAVER", 1.0);
   for (int t = 0; t < 1100; ++t) d.Bar(0, t * kBarNs, r[t]);
   REQUIRE(d.records.size() == 8);
@@ -330,8 +331,7 @@ TEST_CASE("faulty fits are never swapped in; repeated failures engage the fallba
   CHECK(d.updates[0][fb_to].ver == 2);
   CHECK(d.updates[0][fb_to].flags == 0);
   // Persistence above max_persistence, failing diagnostics, no convergence.
-  CHECK(rec[5].reasons ==
-        std::vector<std::string>{"persistence 0.9997 >= max_persistence 0.9995"});
+  CHECK(rec[5].reasons == std::vector<std::string>{"persistence 0.9997 >= max_persistence 0.9995"});
   CHECK(rec[6].reasons ==
         std::vector<std::string>{"diagnostics: Ljung-Box on z^2 p-value 0.001 < 0.01"});
   CHECK(rec[7].reasons == std::vector<std::string>{"fit did not converge"});
@@ -531,7 +531,8 @@ TEST_CASE("coordinator errors are clear", "[refit]") {
   o.holdout_bars = 300;
   auto a = RefitCoordinator::Create(o, OutputOptions{}, DefaultRefitter());
   REQUIRE_FALSE(a.ok());
-  CHECK(std::string(a.status().message()) == "[refit] holdout_bars must be >= 0 and below min_bars");
+  CHECK(std::string(a.status().message()) ==
+        "[refit] holdout_bars must be >= 0 and below min_bars");
   auto b = RefitCoordinator::Create(RefitOptions{}, OutputOptions{}, nullptr);
   REQUIRE_FALSE(b.ok());
   CHECK(std::string(b.status().message()) == "a refitter is required");

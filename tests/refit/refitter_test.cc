@@ -10,8 +10,12 @@ namespace {
 ModelParams Gjr() {
   auto spec = MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "t");
   REQUIRE(spec.ok());
-  auto p = ModelParams::FromNamed(*spec, {{"mu", 0.02}, {"omega", 0.03}, {"alpha1", 0.03},
-                                          {"gamma1", 0.12}, {"beta1", 0.88}, {"nu", 6}});
+  auto p = ModelParams::FromNamed(*spec, {{"mu", 0.02},
+                                          {"omega", 0.03},
+                                          {"alpha1", 0.03},
+                                          {"gamma1", 0.12},
+                                          {"beta1", 0.88},
+                                          {"nu", 6}});
   REQUIRE(p.ok());
   return *p;
 }
