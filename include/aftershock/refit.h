@@ -163,6 +163,8 @@ class RefitCoordinator {
     ModelVersionPtr last_estimated;  // warm start and spec of the next refit; may be null
     uint32_t last_version = 0;       // highest version number issued
     int32_t pending = -1;            // job slot in flight, or -1
+    int64_t apply_bar = 0;           // bars at which the pending job may apply (kept here
+                                     // so quiet bars touch only this symbol's memory)
     int failures = 0;                // consecutive failed jobs
     bool fallback = false;
     int64_t fits = 0;  // jobs submitted

@@ -3,8 +3,7 @@
 namespace aftershock::refit_internal {
 
 JobPool::JobPool(int workers, int capacity, Work work)
-    : work_(std::move(work)), done_(new std::atomic<bool>[static_cast<size_t>(capacity)]) {
-  for (int i = 0; i < capacity; ++i) done_[i].store(false, std::memory_order_relaxed);
+    : work_(std::move(work)), done_(new DoneFlag[static_cast<size_t>(capacity)]) {
   {
     MutexLock l(&mu_);
     for (Lane& lane : lanes_) lane.ring.assign(static_cast<size_t>(capacity), 0);
@@ -35,7 +34,7 @@ void JobPool::Submit(uint32_t slot, bool priority) {
 
 void JobPool::WaitDone(uint32_t slot) {
   MutexLock l(&done_mu_);
-  while (!done_[slot].load(std::memory_order_acquire)) done_mu_.Wait(&done_cv_);
+  while (!done_[slot].v.load(std::memory_order_acquire)) done_mu_.Wait(&done_cv_);
 }
 
 void JobPool::WorkerLoop() {
@@ -59,7 +58,7 @@ void JobPool::WorkerLoop() {
       // The release store publishes the slot's results; holding done_mu_ makes
       // the store and the notify atomic with respect to a waiter's check.
       MutexLock l(&done_mu_);
-      done_[slot].store(true, std::memory_order_release);
+      done_[slot].v.store(true, std::memory_order_release);
     }
     // After the done store, with release: a reader that sees running() drop
     // (acquire) also sees the done flag of the job that just finished.

@@ -50,10 +50,10 @@ class JobPool {
 
   // REQUIRES: slot not in flight; at most `capacity` slots in flight.
   void Submit(uint32_t slot, bool priority) ABSL_LOCKS_EXCLUDED(mu_);
-  bool IsDone(uint32_t slot) const { return done_[slot].load(std::memory_order_acquire); }
+  bool IsDone(uint32_t slot) const { return done_[slot].v.load(std::memory_order_acquire); }
   // Blocks until IsDone(slot) (replay mode only).
   void WaitDone(uint32_t slot) ABSL_LOCKS_EXCLUDED(done_mu_);
-  void Recycle(uint32_t slot) { done_[slot].store(false, std::memory_order_relaxed); }
+  void Recycle(uint32_t slot) { done_[slot].v.store(false, std::memory_order_relaxed); }
 
   // Jobs submitted and not yet picked up by a worker. Read queued() before
   // running(): the pair then never misses a job in between (see WorkerLoop).
@@ -70,10 +70,15 @@ class JobPool {
     size_t head = 0, size = 0;
   };
   void WorkerLoop() ABSL_LOCKS_EXCLUDED(mu_);
+  // One cache line per flag: a worker's store must not invalidate the line the
+  // ingest thread polls for other symbols' jobs.
+  struct alignas(64) DoneFlag {
+    std::atomic<bool> v{false};
+  };
 
   // ---- constant after construction ----
   const Work work_;
-  const std::unique_ptr<std::atomic<bool>[]> done_;  // one per slot, see protocol
+  const std::unique_ptr<DoneFlag[]> done_;  // one per slot, see protocol
 
   // ---- guarded by mu_ ----
   Mutex mu_;

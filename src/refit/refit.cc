@@ -150,7 +150,7 @@ RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, Filt
   const int64_t bars = sym.window.total();
   if (sym.pending >= 0) {
     const uint32_t slot = static_cast<uint32_t>(sym.pending);
-    if (bars >= jobs_[slot]->bar + options_.apply_lag_bars) {
+    if (bars >= sym.apply_bar) {
       bool done = pool_->IsDone(slot);
       if (!done && options_.mode == RefitMode::kReplay) {
         counters_.replay_waits.fetch_add(1, std::memory_order_relaxed);
@@ -194,6 +194,7 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
   j.bar = sym->window.total();
   j.version = sym->last_version + 1;
   sym->pending = static_cast<int32_t>(slot);
+  sym->apply_bar = j.bar + options_.apply_lag_bars;
   const bool priority = !sym->last_estimated || sym->failures > 0 || sym->fallback;
   counters_.submitted.fetch_add(1, std::memory_order_relaxed);
   counters_.in_flight.fetch_add(1, std::memory_order_relaxed);
