@@ -34,9 +34,12 @@ std::vector<double> Sim(int n, uint64_t seed) {
   return Simulate(Truth(), o)->returns;
 }
 
+// Arg: 1 = with standard errors (the refitter's default), 0 = estimates only.
 void BM_WarmRefit(benchmark::State& state) {
   const auto r = Sim(2000, 1);
-  auto rf = *EstimatorRefitter::Create();
+  EstimatorRefitterOptions ro = EstimatorRefitter::DefaultOptions();
+  ro.fit.std_errors = state.range(0) != 0;
+  auto rf = *EstimatorRefitter::Create(ro);
   // Warm start: the fit of the window 100 bars earlier.
   const auto earlier = Sim(2100, 1);
   auto prev = FitModel(ModelSpec{}, absl::MakeConstSpan(earlier).first(2000));
@@ -53,7 +56,7 @@ void BM_WarmRefit(benchmark::State& state) {
       benchmark::Counter(static_cast<double>(state.iterations()), benchmark::Counter::kIsRate);
   state.counters["failed"] = failed;
 }
-BENCHMARK(BM_WarmRefit)->Unit(benchmark::kMicrosecond);
+BENCHMARK(BM_WarmRefit)->Arg(1)->Arg(0)->Unit(benchmark::kMicrosecond);
 
 struct Universe {
   std::unique_ptr<RefitCoordinator> coord;
@@ -146,18 +149,22 @@ void BM_IngestLatency(benchmark::State& state) {
   std::vector<double> quiet, storm;
   quiet.reserve(2'000'000);
   storm.reserve(2'000'000);
-  double storm_bars = 0, storm_seconds = 0;
+  double storm_bars = 0, storm_seconds = 0, busy_bars = 0;
+  uint64_t storm_applied = 0;
   for (auto _ : state) {
     for (int b = 0; b < 300; ++b) u.Bar(nullptr);  // first storm: warm models in
     u.Drain();
     while (u.bar < 2599) u.Bar(u.bar >= 1000 ? &quiet : nullptr);  // quiet, full windows
     // Storm: bar 2600 submits every symbol; measure until the pool has drained.
+    const uint64_t applied0 = u.coord->stats().swapped + u.coord->stats().rejected;
     const auto t0 = std::chrono::steady_clock::now();
     do {
       u.Bar(&storm);
       ++storm_bars;
+      busy_bars += u.coord->stats().running == workers;
     } while (u.coord->stats().in_flight > 0 && u.bar < 4000);
     storm_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    storm_applied = u.coord->stats().swapped + u.coord->stats().rejected - applied0;
   }
   const double q50 = Quantile(quiet, 0.5), q99 = Quantile(quiet, 0.99);
   const double s50 = Quantile(storm, 0.5), s99 = Quantile(storm, 0.99);
@@ -168,10 +175,13 @@ void BM_IngestLatency(benchmark::State& state) {
   state.counters["p99_ratio"] = s99 / q99;
   state.counters["storm_calls"] = static_cast<double>(storm.size());
   state.counters["storm_max_ns"] = *std::max_element(storm.begin(), storm.end());
+  const double q999 = Quantile(quiet, 0.999), s999 = Quantile(storm, 0.999);
   std::printf(
-      "ingest OnBar latency, %d workers, %d symbols: quiet p50 %.0f ns p99 %.0f ns; storm p50 "
-      "%.0f ns p99 %.0f ns over %zu calls (%.0f bars, %.2f s); p99 ratio storm/quiet %.2f\n",
-      workers, kSymbols, q50, q99, s50, s99, storm.size(), storm_bars, storm_seconds, s99 / q99);
+      "ingest OnBar latency, %d workers, %d symbols (timer included): quiet p50 %.0f p99 %.0f "
+      "p99.9 %.0f ns; storm p50 %.0f p99 %.0f p99.9 %.0f ns over %zu calls (%.0f bars, %.2f s, "
+      "all workers busy in %.0f bars, %llu jobs applied); p99 ratio storm/quiet %.2f\n",
+      workers, kSymbols, q50, q99, q999, s50, s99, s999, storm.size(), storm_bars, storm_seconds,
+      busy_bars, static_cast<unsigned long long>(storm_applied), s99 / q99);
 }
 BENCHMARK(BM_IngestLatency)->Arg(1)->Arg(2)->Iterations(1)->Unit(benchmark::kMillisecond);
 

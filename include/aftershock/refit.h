@@ -23,7 +23,9 @@
 // mode), or exactly at bar n + apply_lag_bars, waiting for it there if needed
 // (replay mode; the only place the ingest thread ever waits). The gate, the
 // holdout scores, the compiled FilterModel and the re-run variance state are
-// all computed by the worker, so applying costs the ingest thread a pointer
+// all computed by the worker (the holdout compares the candidate with the
+// model in force when the job was scheduled, the EWMA included during warm-up
+// and fallback), so applying costs the ingest thread a pointer
 // swap, a state copy and apply_lag_bars AdvanceState calls.
 //
 // Variance state after a swap: the worker starts a FilterState at the new
