@@ -59,7 +59,8 @@ struct RefitOptions {
   // Refit jobs in flight at once (queued, running or completed but not yet
   // applied). A due refit finding no free slot is dropped, counted, and retried
   // at the next due point. Default 256. Cost: 8 * window bytes per slot,
-  // preallocated (4 MB for 256 slots of 2000 bars).
+  // preallocated (4 MB for 256 slots of 2000 bars). A slot is freed when its
+  // job is applied, so in replay mode drops depend on the bar sequence only.
   int queue_capacity = 256;
   // The gate rejects a candidate whose diagnostics p-values (when it carries
   // them) are below this level. 0 disables the rule. Default 0.01.

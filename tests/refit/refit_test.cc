@@ -189,6 +189,29 @@ TEST_CASE("after a swap the variance state is the new model's tail re-run", "[re
   CHECK(u.ver == 1);
 }
 
+TEST_CASE("the holdout score is the filtered log-likelihood of the last bars", "[refit]") {
+  const ModelParams p = Garch(0.01, 0.05, 0.08, 0.9);
+  const auto r = Sim(p, 900, 12);
+  auto fm = FilterModel::Create(p, OutputOptions{}, 1);
+  REQUIRE(fm.ok());
+  // Warm-up: the kSwapTailBars returns before the holdout, from the
+  // unconditional variance; then the Gaussian log-likelihood of each holdout bar,
+  // log phi(z) - log(var) / 2, from the filter's own outputs.
+  const int h = 100;
+  const auto tail = absl::MakeConstSpan(r).subspan(900 - h - kSwapTailBars);
+  const auto ups = FilterSeries(*fm, 0, tail);
+  double expect = 0;
+  for (size_t i = ups.size() - h; i < ups.size(); ++i) {
+    expect += -0.5 * std::log(2 * 3.14159265358979323846) - 0.5 * ups[i].z * ups[i].z -
+              0.5 * std::log(ups[i].var);
+  }
+  CHECK(ScoreHoldout(*fm, r, h) == Approx(expect).epsilon(1e-12));
+  // A model with the variance level off by 4x scores clearly worse.
+  auto off = FilterModel::Create(Garch(0.01, 0.2, 0.08, 0.9), OutputOptions{}, 1);
+  REQUIRE(off.ok());
+  CHECK(ScoreHoldout(*off, r, h) < ScoreHoldout(*fm, r, h) - 0.05 * h);
+}
+
 TEST_CASE("a doubled volatility regime is followed by new versions and lower QLIKE", "[refit]") {
   // Volatility doubles (variance x4) at bar 1500 of 3000.
   const ModelParams truth = Garch(0.0, 0.05, 0.05, 0.90);
