@@ -452,6 +452,80 @@ TEST_CASE("full queue drops and counts; a pending job coalesces later due points
   CHECK(s.submitted == 4);
 }
 
+// Records the order in which jobs reach the refitter; holds them while `hold`.
+class OrderRefitter : public Refitter {
+ public:
+  absl::StatusOr<RefitCandidate> Fit(const RefitRequest& req) override {
+    {
+      std::unique_lock<std::mutex> l(mu_);
+      order_.push_back(req.symbol_id);
+      cv_.notify_all();
+      cv_.wait(l, [this] { return !hold_; });
+    }
+    return inner_->Fit(req);
+  }
+  void Hold(bool h) {
+    std::lock_guard<std::mutex> l(mu_);
+    hold_ = h;
+    cv_.notify_all();
+  }
+  void WaitCalls(size_t n) {
+    std::unique_lock<std::mutex> l(mu_);
+    cv_.wait(l, [&] { return order_.size() >= n; });
+  }
+  std::vector<uint32_t> order() {
+    std::lock_guard<std::mutex> l(mu_);
+    return order_;
+  }
+
+ private:
+  std::mutex mu_;
+  std::condition_variable cv_;
+  bool hold_ = false;
+  std::vector<uint32_t> order_;
+  std::unique_ptr<Refitter> inner_ = DefaultRefitter();
+};
+
+TEST_CASE("symbols without a model are served before routine refits", "[refit]") {
+  const ModelParams p = Garch(0.0, 0.05, 0.08, 0.9);
+  RefitOptions o;
+  o.window = 500;
+  o.min_bars = 300;
+  o.every_bars = 50;
+  o.jitter_fraction = 0;
+  o.workers = 1;
+  o.mode = RefitMode::kLive;
+  auto rf = std::make_unique<OrderRefitter>();
+  OrderRefitter* ord = rf.get();
+  Driver d(o, std::move(rf));
+  const auto ra = Sim(p, 400, 71), rx = Sim(p, 400, 72), rb = Sim(p, 400, 73);
+  d.Add("ALDER", 1.0);  // id 0: first fit at global bar 299, routine refit at 349
+  auto step = [&](int t) {
+    d.Bar(0, t * kBarNs, ra[t]);
+    if (t >= 47) d.Bar(1, t * kBarNs, rx[t - 47]);  // own bar 300 at global 346
+    if (t >= 51) d.Bar(2, t * kBarNs, rb[t - 51]);  // own bar 300 at global 350
+  };
+  for (int t = 0; t < 300; ++t) {
+    if (t == 47) d.Add("XYLEM", 1.0);    // id 1
+    if (t == 51) d.Add("BRACKEN", 1.0);  // id 2
+    step(t);
+  }
+  ord->WaitCalls(1);
+  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  ord->Hold(true);
+  for (int t = 300; t < 346; ++t) step(t);
+  REQUIRE(d.coord->current(d.ids[0])->version == 1);  // ALDER has a model now
+  step(346);                                          // XYLEM's first fit occupies the worker
+  ord->WaitCalls(2);
+  // Bar 349: ALDER's routine refit joins the normal lane; bar 350: BRACKEN's
+  // first fit (no model) joins the priority lane, behind it in time.
+  for (int t = 347; t <= 350; ++t) step(t);
+  CHECK(d.coord->stats().queued == 2);
+  ord->Hold(false);
+  ord->WaitCalls(4);
+  CHECK(ord->order() == std::vector<uint32_t>{0, 1, 2, 0});
+}
+
 TEST_CASE("no fit before min_bars; late symbols start their own schedule", "[refit]") {
   const ModelParams p = Garch(0.0, 0.05, 0.08, 0.9);
   const auto a = Sim(p, 900, 51), b = Sim(p, 900, 52);
