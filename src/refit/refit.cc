@@ -247,7 +247,8 @@ void RefitCoordinator::Process(uint32_t slot) {
   gi.converged = fit.converged;
   gi.diagnostics = cand->diagnostics;
   // Compile only what passes the constraint check (FilterModel::Create checks it).
-  absl::StatusOr<FilterModel> fm = absl::FailedPreconditionError("not compiled");
+  absl::StatusOr<FilterModel> fm =
+      absl::FailedPreconditionError("candidate parameters are not finite or break the constraints");
   bool finite = p.values.size() == static_cast<size_t>(p.spec.NumParams());
   for (double v : p.values) finite = finite && std::isfinite(v);
   if (finite && p.CheckConstraints().ok()) fm = FilterModel::Create(p, outputs_, j.version);
