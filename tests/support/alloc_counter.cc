@@ -4,13 +4,32 @@
 #include <cstdlib>
 #include <new>
 
+// ThreadSanitizer's runtime defines the global operator new itself (clang links
+// it statically), so under TSan the counter is off and the operators below are
+// not defined; the allocation checks run in the ordinary builds.
+#if defined(__has_feature)
+#if __has_feature(thread_sanitizer)
+#define AFTERSHOCK_ALLOC_COUNTER_OFF 1
+#endif
+#endif
+#if defined(__SANITIZE_THREAD__)
+#define AFTERSHOCK_ALLOC_COUNTER_OFF 1
+#endif
+
 namespace {
 std::atomic<uint64_t> g_allocations{0};
 }  // namespace
 
 namespace aftershock::testing {
 uint64_t AllocationCount() { return g_allocations.load(std::memory_order_relaxed); }
+#ifdef AFTERSHOCK_ALLOC_COUNTER_OFF
+bool AllocationCountingEnabled() { return false; }
+#else
+bool AllocationCountingEnabled() { return true; }
+#endif
 }  // namespace aftershock::testing
+
+#ifndef AFTERSHOCK_ALLOC_COUNTER_OFF
 
 void* operator new(std::size_t n) {
   g_allocations.fetch_add(1, std::memory_order_relaxed);
@@ -36,3 +55,4 @@ void operator delete(void* p) noexcept { std::free(p); }
 void operator delete[](void* p) noexcept { std::free(p); }
 void operator delete(void* p, std::size_t) noexcept { std::free(p); }
 void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+#endif  // AFTERSHOCK_ALLOC_COUNTER_OFF

@@ -11,6 +11,10 @@ namespace aftershock::testing {
 // Number of global operator new calls so far in this process (all threads).
 uint64_t AllocationCount();
 
+// False in ThreadSanitizer builds, whose runtime owns operator new: there the
+// count stays 0 and allocation checks should be skipped.
+bool AllocationCountingEnabled();
+
 }  // namespace aftershock::testing
 
 #endif  // AFTERSHOCK_TESTS_SUPPORT_ALLOC_COUNTER_H_

@@ -1,0 +1,69 @@
+// Versioned, immutable model sets of the hot swap and the refit record each
+// completed refit yields (PRODUCT.md C5/C6): the payload of an `m.<symbol>`
+// message, with its JSON encoder.
+//
+// Thread-safety: a ModelVersion is immutable once published and is shared by
+// std::shared_ptr<const ModelVersion> between a worker (which builds it) and the
+// ingest thread (which swaps it in); RefitRecord is a plain value.
+#ifndef AFTERSHOCK_MODEL_REGISTRY_H_
+#define AFTERSHOCK_MODEL_REGISTRY_H_
+
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "aftershock/online_filter.h"
+
+namespace aftershock {
+
+// One numbered parameter set of a symbol. Version 0 is the EWMA model used in
+// warm-up and as the fallback; estimated versions count 1, 2, ... per symbol.
+struct ModelVersion {
+  uint32_t version = 0;
+  FilterModel model;               // compiled with `version`
+  std::vector<double> std_errors;  // Hessian-based, params order (empty for EWMA)
+  double loglik = 0;               // of the fit on its window
+  int64_t fitted_bar = 0;          // returns seen when the fit was scheduled
+};
+
+using ModelVersionPtr = std::shared_ptr<const ModelVersion>;
+
+// What happened to one refit job when it reached the stream.
+enum class RefitOutcome {
+  kSwapped,   // passed the gate: the new version is in force
+  kRejected,  // failed the gate (or the refitter failed): the model in force stays
+  kFallback,  // failed, and this failure engaged the EWMA fallback
+};
+const char* RefitOutcomeName(RefitOutcome o);  // "swapped" | "rejected" | "fallback"
+
+struct RefitRecord {
+  std::string symbol;
+  RefitOutcome outcome = RefitOutcome::kRejected;
+  uint32_t version = 0;            // version in force after this record
+  int64_t scheduled_bar = 0;       // returns seen when scheduled
+  int64_t applied_bar = 0;         // returns seen when applied
+  int64_t t_ns = 0;                // bar end of the applied bar
+  std::string spec;                // candidate's spec label (empty if the refitter failed)
+  std::vector<std::string> names;  // parameter names, params order
+  std::vector<double> values;
+  std::vector<double> std_errors;
+  std::vector<double> robust_std_errors;
+  double loglik = 0;
+  double bic = 0;
+  int nobs = 0;
+  bool converged = false;
+  std::vector<std::string> reasons;  // gate reasons (empty when swapped)
+  std::string note;                  // the refitter's note
+  double fit_seconds = 0;            // wall time of the refitter call
+  int consecutive_failures = 0;      // after this record
+  bool fallback = false;             // fallback in force after this record
+};
+
+// The record as one JSON object (not a per-bar path; allocates). Non-finite
+// numbers are written as null, never as NaN/Infinity.
+std::string EncodeRefitRecordJson(const RefitRecord& record);
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_MODEL_REGISTRY_H_

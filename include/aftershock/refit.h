@@ -1,0 +1,212 @@
+// RefitCoordinator: background re-estimation and hot swap for the
+// single-threaded ingest loop (PRODUCT.md C5).
+//
+// Per closed bar of a symbol the ingest thread runs its FilterStep with
+// model(id), then calls OnBar(id, t_ns, r, &state), which
+//   1. pushes r into the symbol's rolling window (no allocation);
+//   2. applies the symbol's refit job when it has reached the stream (see
+//      "Hand-off"): on a pass the new version is swapped in and *state is
+//      re-run under it; on a failure the model in force stays, the failure is
+//      counted, and max_failures in a row engage the EWMA fallback;
+//   3. asks the scheduler whether a refit is due and, if so, copies the window
+//      into a free preallocated job slot and queues it (at most one job per
+//      symbol; a due point meeting a pending job is coalesced into it; no free
+//      slot: dropped, counted, retried at the next due point).
+// The next bar then uses the (possibly new) model(id).
+//
+// Hand-off (see src/refit/job_pool.h for the memory orders): the ingest thread
+// and the workers exchange job-slot indices; a worker publishes its result with
+// a release store of the slot's done flag, and the ingest thread checks that
+// flag with an acquire load (wait-free) when the symbol's bar closes, which is
+// the bar boundary at which a version may change. A job scheduled at bar n is
+// applied at the first bar >= n + apply_lag_bars at which it is done (live
+// mode), or exactly at bar n + apply_lag_bars, waiting for it there if needed
+// (replay mode; the only place the ingest thread ever waits). The gate, the
+// holdout scores, the compiled FilterModel and the re-run variance state are
+// all computed by the worker (the holdout compares the candidate with the
+// model in force when the job was scheduled, the EWMA included during warm-up
+// and fallback), so applying costs the ingest thread a pointer
+// swap, a state copy and apply_lag_bars AdvanceState calls.
+//
+// Variance state after a swap: the worker starts a FilterState at the new
+// model's unconditional variance and runs AdvanceState over the last
+// min(window, kSwapTailBars) returns of the job's window; the ingest thread then
+// advances it over the returns that arrived since the job was scheduled. 500
+// bars: the starting value's weight in sigma2 decays like beta^k (at most
+// persistence^k), below 1e-22 at k = 500 for beta = 0.9 and below 1e-2 for beta
+// = 0.99, so the state is the model's own conditional variance given the recent
+// past, independent of the presample rule, at a cost bounded independently of
+// `window`. The same tail warms the holdout scores.
+//
+// Versions: immutable ModelVersion objects shared by std::shared_ptr<const>;
+// version 0 is the EWMA warm-up/fallback model (shared by all symbols);
+// estimated versions count 1, 2, ... per symbol. Only the ingest thread reads
+// or replaces a symbol's current pointer; a replaced version is released there
+// (or on a worker still holding its job's copy) by shared_ptr.
+//
+// Allocation: none per bar. Per applied refit the ingest thread moves the
+// worker-built record into last_record() and may free the replaced version;
+// workers allocate freely (fits, records).
+//
+// Thread-safety: every method except stats() is for the ingest thread only;
+// stats() may be called from any thread (relaxed counters). The Refitter is
+// called from the worker threads.
+#ifndef AFTERSHOCK_REFIT_H_
+#define AFTERSHOCK_REFIT_H_
+
+#include <atomic>
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "absl/container/flat_hash_map.h"
+#include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
+#include "absl/types/span.h"
+#include "aftershock/model_registry.h"
+#include "aftershock/online_filter.h"
+#include "aftershock/quality_gate.h"
+#include "aftershock/refit_options.h"
+#include "aftershock/refit_scheduler.h"
+#include "aftershock/refitter.h"
+#include "aftershock/rolling_window.h"
+
+namespace aftershock {
+
+namespace refit_internal {
+class JobPool;
+}
+
+// Returns over which a swapped-in model's variance state is re-run.
+inline constexpr int kSwapTailBars = 500;
+
+// Log-likelihood of `model` on the last `holdout` returns of `window`, its state
+// warmed over up to kSwapTailBars returns before them (from the unconditional
+// variance; EWMA from the mean square of the warm-up returns).
+// REQUIRES: 0 < holdout < window.size().
+double ScoreHoldout(const FilterModel& model, absl::Span<const double> window, int holdout);
+
+// Counters of the coordinator (monotone except the gauges in_flight, queued,
+// running).
+struct RefitStats {
+  uint64_t due = 0;           // due points reached
+  uint64_t submitted = 0;     // jobs queued
+  uint64_t coalesced = 0;     // due points merged into a pending job
+  uint64_t dropped = 0;       // due points with no free job slot
+  uint64_t swapped = 0;       // versions swapped in
+  uint64_t rejected = 0;      // jobs that failed the gate or whose refitter failed
+  uint64_t refit_errors = 0;  // of which the refitter returned an error
+  uint64_t fallbacks = 0;     // times the EWMA fallback was engaged
+  uint64_t replay_waits = 0;  // replay applications that had to wait for the worker
+  int in_flight = 0;          // jobs holding a slot (queued, running or awaiting apply)
+  int queued = 0;             // jobs not yet picked up by a worker
+  int running = 0;            // jobs a worker is running
+};
+
+// What OnBar did.
+struct RefitBarResult {
+  bool applied = false;    // a job reached the stream: last_record() is new
+  bool swapped = false;    // ... and its version is now in force
+  bool scheduled = false;  // a new job was queued at this bar
+};
+
+class RefitCoordinator {
+ public:
+  // InvalidArgument for bad options (Validate's message), bad output options
+  // or a null refitter. Starts options.workers threads and preallocates
+  // queue_capacity job slots of `window` doubles each.
+  static absl::StatusOr<std::unique_ptr<RefitCoordinator>> Create(
+      const RefitOptions& options, const OutputOptions& outputs,
+      std::unique_ptr<Refitter> refitter);
+  // Stops the workers after their current job; pending jobs are discarded.
+  ~RefitCoordinator();
+  RefitCoordinator(const RefitCoordinator&) = delete;
+  RefitCoordinator& operator=(const RefitCoordinator&) = delete;
+
+  // Registers a symbol (allocates its window; not a per-bar call). Returns its
+  // dense id (0, 1, ...). InvalidArgument for an empty or over-long symbol,
+  // AlreadyExists for a registered one.
+  absl::StatusOr<uint32_t> AddSymbol(absl::string_view symbol);
+  // Id of a registered symbol, or -1.
+  int64_t Find(absl::string_view symbol) const;
+  size_t num_symbols() const { return symbols_.size(); }
+
+  // The model in force for symbol `id`. REQUIRES: id registered.
+  const FilterModel& model(uint32_t id) const { return symbols_[id].current->model; }
+  const ModelVersionPtr& current(uint32_t id) const { return symbols_[id].current; }
+  // kFlagWarmup before the first swap, kFlagFallback while the fallback is in
+  // force, else 0 (OR it into the BarUpdate's flags).
+  uint32_t flags(uint32_t id) const;
+  int consecutive_failures(uint32_t id) const { return symbols_[id].failures; }
+  const RollingWindow& window(uint32_t id) const { return symbols_[id].window; }
+
+  // Per closed bar, after the FilterStep of this bar with model(id) on *state.
+  // May replace *state (on a swap or when the fallback engages).
+  // REQUIRES: id registered; r finite; *state belongs to this symbol.
+  RefitBarResult OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state);
+
+  // The record of the latest applied job (valid until the next OnBar that
+  // applies one).
+  const RefitRecord& last_record() const { return last_record_; }
+
+  RefitStats stats() const;
+
+  // Bytes held per symbol: its bookkeeping, its window and one estimated
+  // ModelVersion (the shared EWMA version and the job slots are not per symbol).
+  size_t MemoryBytesPerSymbol() const;
+
+ private:
+  struct SymbolSlot {
+    std::string name;
+    RollingWindow window;
+    ScheduleState schedule;
+    ModelVersionPtr current;         // in force (the shared EWMA when none/fallback)
+    ModelVersionPtr last_estimated;  // warm start and spec of the next refit; may be null
+    uint32_t last_version = 0;       // highest version number issued
+    int32_t pending = -1;            // job slot in flight, or -1
+    int64_t apply_bar = 0;           // bars at which the pending job may apply (kept here
+                                     // so quiet bars touch only this symbol's memory)
+    int failures = 0;                // consecutive failed jobs
+    bool fallback = false;
+    int64_t fits = 0;  // jobs submitted
+  };
+  struct JobSlot;
+
+  RefitCoordinator(const RefitOptions& options, const OutputOptions& outputs,
+                   std::unique_ptr<Refitter> refitter, ModelVersionPtr ewma);
+  void Process(uint32_t slot);  // worker side
+  void Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state);
+  void Submit(uint32_t id, SymbolSlot* sym);
+
+  // ---- constant after construction ----
+  const RefitOptions options_;
+  const OutputOptions outputs_;
+  const RefitScheduler scheduler_;
+  const std::unique_ptr<Refitter> refitter_;  // called from workers only
+  const ModelVersionPtr ewma_;                // version 0, shared
+
+  // ---- ingest thread only ----
+  std::vector<SymbolSlot> symbols_;
+  absl::flat_hash_map<std::string, uint32_t> index_;
+  std::vector<uint32_t> free_slots_;  // free job slots (capacity preallocated)
+  RefitRecord last_record_;
+  // Job slots: owned by the ingest thread or by one worker at a time, following
+  // the protocol of job_pool.h (never both).
+  std::vector<std::unique_ptr<JobSlot>> jobs_;
+
+  // ---- counters: written by the ingest thread, read anywhere (relaxed) ----
+  struct Counters {
+    std::atomic<uint64_t> due{0}, submitted{0}, coalesced{0}, dropped{0}, swapped{0}, rejected{0},
+        refit_errors{0}, fallbacks{0}, replay_waits{0};
+    std::atomic<int> in_flight{0};
+  };
+  Counters counters_;
+
+  // Last: destroyed first, so the workers stop before the slots go away.
+  std::unique_ptr<refit_internal::JobPool> pool_;
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_REFIT_H_

@@ -1,0 +1,372 @@
+#include "aftershock/refit.h"
+
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+#include <limits>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/bar_update.h"
+#include "aftershock/innovations.h"
+#include "refit/job_pool.h"
+
+namespace aftershock {
+
+// One preallocated job. Input fields are written by the ingest thread before
+// Submit; output fields by the worker before its done flag (job_pool.h).
+struct RefitCoordinator::JobSlot {
+  // ---- input ----
+  uint32_t symbol_id = 0;
+  std::string symbol;           // capacity reserved for kMaxSymbolLength
+  std::vector<double> returns;  // capacity reserved for `window` doubles
+  ModelVersionPtr in_force;     // scored on the holdout
+  ModelVersionPtr estimated;    // warm start (may be null)
+  bool reidentify = false;
+  uint64_t seed = 0;
+  int64_t fit_index = 0;
+  int64_t bar = 0;       // returns seen when scheduled
+  uint32_t version = 0;  // number the candidate gets if it passes
+  // ---- output ----
+  bool passed = false;
+  bool refit_error = false;
+  ModelVersionPtr candidate;  // set when passed
+  FilterState tail_state;     // candidate's state at the end of `returns`
+  RefitRecord record;
+};
+
+namespace {
+
+double MeanSquare(absl::Span<const double> x) {
+  if (x.empty()) return 0;
+  double s = 0;
+  for (double v : x) s += v * v;
+  return s / static_cast<double>(x.size());
+}
+
+// State of `model` at the end of `w`, started over its last `tail` returns.
+void RunTail(const FilterModel& model, absl::Span<const double> w, int tail, FilterState* st) {
+  const size_t n = w.size();
+  const size_t start = n - std::min(n, static_cast<size_t>(tail));
+  double v0 = 0;  // the unconditional variance
+  if (model.is_ewma()) v0 = MeanSquare(w.subspan(start, std::min<size_t>(100, n - start)));
+  if (model.is_ewma() && !(v0 > 0)) v0 = 1e-12;
+  InitFilterState(model, v0, st);
+  for (size_t i = start; i < n; ++i) AdvanceState(model, st, w[i]);
+}
+
+}  // namespace
+
+double ScoreHoldout(const FilterModel& model, absl::Span<const double> w, int holdout) {
+  const size_t n = w.size();
+  const size_t h = static_cast<size_t>(holdout);
+  FilterState st;
+  RunTail(model, w.first(n - h), kSwapTailBars, &st);
+  auto law = InnovationLaw::FromParams(model.params());
+  if (!law.ok()) return -std::numeric_limits<double>::infinity();
+  double ll = 0;
+  for (size_t i = n - h; i < n; ++i) {
+    const double var = st.var.next_variance;
+    const double eps = w[i] - st.mu_next;
+    ll += var > 0 ? law->LogLikelihood(eps, var) : -std::numeric_limits<double>::infinity();
+    AdvanceState(model, &st, w[i]);
+  }
+  return ll;
+}
+
+absl::StatusOr<std::unique_ptr<RefitCoordinator>> RefitCoordinator::Create(
+    const RefitOptions& options, const OutputOptions& outputs, std::unique_ptr<Refitter> refitter) {
+  if (auto s = options.Validate(); !s.ok()) return s;
+  if (!refitter) return absl::InvalidArgumentError("a refitter is required");
+  auto ewma = FilterModel::Ewma(options.ewma_lambda, outputs, 0);
+  if (!ewma.ok()) return ewma.status();
+  auto v = std::make_shared<ModelVersion>();
+  v->version = 0;
+  v->model = *std::move(ewma);
+  return std::unique_ptr<RefitCoordinator>(
+      new RefitCoordinator(options, outputs, std::move(refitter), std::move(v)));
+}
+
+RefitCoordinator::RefitCoordinator(const RefitOptions& options, const OutputOptions& outputs,
+                                   std::unique_ptr<Refitter> refitter, ModelVersionPtr ewma)
+    : options_(options),
+      outputs_(outputs),
+      scheduler_(options),
+      refitter_(std::move(refitter)),
+      ewma_(std::move(ewma)) {
+  const int cap = options_.queue_capacity;
+  jobs_.reserve(static_cast<size_t>(cap));
+  free_slots_.reserve(static_cast<size_t>(cap));
+  for (int i = 0; i < cap; ++i) {
+    auto j = std::make_unique<JobSlot>();
+    j->returns.reserve(static_cast<size_t>(options_.window));
+    j->symbol.reserve(kMaxSymbolLength);
+    jobs_.push_back(std::move(j));
+  }
+  // Slot 0 is handed out first.
+  for (int i = cap - 1; i >= 0; --i) free_slots_.push_back(static_cast<uint32_t>(i));
+  pool_ = std::make_unique<refit_internal::JobPool>(options_.workers, cap,
+                                                    [this](uint32_t s) { Process(s); });
+}
+
+RefitCoordinator::~RefitCoordinator() { pool_.reset(); }
+
+absl::StatusOr<uint32_t> RefitCoordinator::AddSymbol(absl::string_view symbol) {
+  if (symbol.empty() || symbol.size() > static_cast<size_t>(kMaxSymbolLength)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("symbol must have 1..", kMaxSymbolLength, " bytes, got ", symbol.size()));
+  }
+  if (index_.contains(symbol)) {
+    return absl::AlreadyExistsError(absl::StrCat("symbol ", symbol, " is already registered"));
+  }
+  auto w = RollingWindow::Create(options_.window);
+  if (!w.ok()) return w.status();
+  SymbolSlot s;
+  s.name = std::string(symbol);
+  s.window = *std::move(w);
+  scheduler_.InitSymbol(symbol, &s.schedule);
+  s.current = ewma_;
+  const uint32_t id = static_cast<uint32_t>(symbols_.size());
+  symbols_.push_back(std::move(s));
+  index_.emplace(std::string(symbol), id);
+  return id;
+}
+
+int64_t RefitCoordinator::Find(absl::string_view symbol) const {
+  auto it = index_.find(symbol);
+  return it == index_.end() ? -1 : static_cast<int64_t>(it->second);
+}
+
+uint32_t RefitCoordinator::flags(uint32_t id) const {
+  const SymbolSlot& s = symbols_[id];
+  if (s.fallback) return kFlagFallback;
+  if (s.current->version == 0) return kFlagWarmup;
+  return 0;
+}
+
+RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state) {
+  RefitBarResult res;
+  SymbolSlot& sym = symbols_[id];
+  sym.window.Push(r);
+  const int64_t bars = sym.window.total();
+  if (sym.pending >= 0) {
+    const uint32_t slot = static_cast<uint32_t>(sym.pending);
+    if (bars >= sym.apply_bar) {
+      bool done = pool_->IsDone(slot);
+      if (!done && options_.mode == RefitMode::kReplay) {
+        counters_.replay_waits.fetch_add(1, std::memory_order_relaxed);
+        pool_->WaitDone(slot);
+        done = true;
+      }
+      if (done) {
+        Apply(&sym, slot, t_ns, state);
+        res.applied = true;
+        res.swapped = last_record_.outcome == RefitOutcome::kSwapped;
+      }
+    }
+  }
+  if (scheduler_.OnBar(&sym.schedule, bars, t_ns)) {
+    counters_.due.fetch_add(1, std::memory_order_relaxed);
+    if (sym.pending >= 0) {
+      counters_.coalesced.fetch_add(1, std::memory_order_relaxed);
+    } else if (free_slots_.empty()) {
+      counters_.dropped.fetch_add(1, std::memory_order_relaxed);
+    } else {
+      Submit(id, &sym);
+      res.scheduled = true;
+    }
+  }
+  return res;
+}
+
+void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
+  const uint32_t slot = free_slots_.back();
+  free_slots_.pop_back();
+  JobSlot& j = *jobs_[slot];
+  j.symbol_id = id;
+  j.symbol.assign(sym->name);
+  sym->window.CopyTo(&j.returns);  // capacity reserved: no allocation
+  j.in_force = sym->current;
+  j.estimated = sym->last_estimated;
+  j.fit_index = sym->fits++;
+  j.reidentify = options_.reidentify_every > 0 && j.fit_index % options_.reidentify_every == 0;
+  j.seed =
+      StableSymbolHash(sym->name) ^ (static_cast<uint64_t>(j.fit_index) * 0x9E3779B97F4A7C15ull);
+  j.bar = sym->window.total();
+  j.version = sym->last_version + 1;
+  sym->pending = static_cast<int32_t>(slot);
+  sym->apply_bar = j.bar + options_.apply_lag_bars;
+  const bool priority = !sym->last_estimated || sym->failures > 0 || sym->fallback;
+  counters_.submitted.fetch_add(1, std::memory_order_relaxed);
+  counters_.in_flight.fetch_add(1, std::memory_order_relaxed);
+  pool_->Submit(slot, priority);
+}
+
+void RefitCoordinator::Process(uint32_t slot) {
+  JobSlot& j = *jobs_[slot];
+  const auto t0 = std::chrono::steady_clock::now();
+  RefitRequest req;
+  req.symbol_id = j.symbol_id;
+  req.returns = j.returns;
+  req.current = j.estimated ? &j.estimated->model.params() : nullptr;
+  req.reidentify = j.reidentify;
+  req.seed = j.seed;
+  req.fit_index = j.fit_index;
+  req.bar = j.bar;
+  absl::StatusOr<RefitCandidate> cand = refitter_->Fit(req);
+  const double seconds =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+
+  RefitRecord rec;
+  rec.symbol = j.symbol;
+  rec.scheduled_bar = j.bar;
+  rec.fit_seconds = seconds;
+  j.passed = false;
+  j.refit_error = false;
+  j.candidate.reset();
+  if (!cand.ok()) {
+    j.refit_error = true;
+    rec.reasons.push_back(absl::StrCat("refit error: ", cand.status().message()));
+    j.record = std::move(rec);
+    return;
+  }
+  const FitResult& fit = cand->fit;
+  const ModelParams& p = fit.params;
+  rec.spec = p.spec.Label();
+  rec.names = p.spec.ParamNames();
+  rec.values = p.values;
+  rec.std_errors = fit.std_errors;
+  rec.robust_std_errors = fit.robust_std_errors;
+  rec.loglik = fit.loglik;
+  rec.bic = fit.bic;
+  rec.nobs = fit.nobs;
+  rec.converged = fit.converged;
+  rec.note = cand->note;
+
+  GateInput gi;
+  gi.params = &p;
+  gi.converged = fit.converged;
+  gi.diagnostics = cand->diagnostics;
+  // Compile only what passes the constraint check (FilterModel::Create checks it).
+  absl::StatusOr<FilterModel> fm =
+      absl::FailedPreconditionError("candidate parameters are not finite or break the constraints");
+  bool finite = p.values.size() == static_cast<size_t>(p.spec.NumParams());
+  for (double v : p.values) finite = finite && std::isfinite(v);
+  if (finite && p.CheckConstraints().ok()) fm = FilterModel::Create(p, outputs_, j.version);
+  const int hb = options_.holdout_bars;
+  if (fm.ok() && hb > 0 && static_cast<int>(j.returns.size()) > hb) {
+    HoldoutScore hs;
+    hs.bars = hb;
+    hs.candidate_loglik = ScoreHoldout(*fm, j.returns, hb);
+    hs.current_loglik = ScoreHoldout(j.in_force->model, j.returns, hb);
+    gi.holdout = hs;
+  }
+  GateOutcome gate = EvaluateQualityGate(gi, options_);
+  if (gate.passed && !fm.ok()) {
+    gate.passed = false;
+    gate.reasons.push_back(absl::StrCat("filter: ", fm.status().message()));
+  }
+  rec.reasons = std::move(gate.reasons);
+  if (gate.passed) {
+    auto v = std::make_shared<ModelVersion>();
+    v->version = j.version;
+    v->model = *std::move(fm);
+    v->std_errors = fit.std_errors;
+    v->loglik = fit.loglik;
+    v->fitted_bar = j.bar;
+    RunTail(v->model, j.returns, kSwapTailBars, &j.tail_state);
+    j.candidate = std::move(v);
+    j.passed = true;
+  }
+  j.record = std::move(rec);
+}
+
+void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state) {
+  JobSlot& j = *jobs_[slot];
+  const int64_t bars = sym->window.total();
+  if (j.passed) {
+    sym->current = std::move(j.candidate);
+    sym->last_estimated = sym->current;
+    sym->last_version = sym->current->version;
+    sym->failures = 0;
+    sym->fallback = false;
+    const FilterModel& m = sym->current->model;
+    // The worker's state ends at the job's window; catch up on the returns
+    // that arrived since (normally apply_lag_bars of them).
+    const int64_t since = bars - j.bar;
+    if (since <= sym->window.size() && since <= kSwapTailBars) {
+      *state = j.tail_state;
+      for (int64_t i = since - 1; i >= 0; --i) {
+        AdvanceState(m, state, sym->window.back(static_cast<int>(i)));
+      }
+    } else {
+      // A very late job (live mode): re-run over the current window's tail.
+      const int n = sym->window.size();
+      const int tail = std::min(n, kSwapTailBars);
+      InitFilterState(m, 0, state);
+      for (int i = tail - 1; i >= 0; --i) AdvanceState(m, state, sym->window.back(i));
+    }
+    j.record.outcome = RefitOutcome::kSwapped;
+    counters_.swapped.fetch_add(1, std::memory_order_relaxed);
+  } else {
+    ++sym->failures;
+    counters_.rejected.fetch_add(1, std::memory_order_relaxed);
+    if (j.refit_error) counters_.refit_errors.fetch_add(1, std::memory_order_relaxed);
+    j.record.outcome = RefitOutcome::kRejected;
+    if (sym->failures >= options_.max_failures && !sym->fallback) {
+      sym->fallback = true;
+      sym->current = ewma_;
+      // Continue from the variance in force, so the stream does not jump.
+      double v = state->var.next_variance;
+      if (!(v > 0) || !std::isfinite(v)) {
+        double ss = 0;
+        for (int i = 0; i < sym->window.size(); ++i) ss += sym->window.at(i) * sym->window.at(i);
+        v = std::max(1e-12, ss / std::max(1, sym->window.size()));
+      }
+      InitFilterState(ewma_->model, v, state);
+      j.record.outcome = RefitOutcome::kFallback;
+      counters_.fallbacks.fetch_add(1, std::memory_order_relaxed);
+    }
+  }
+  j.record.version = sym->current->version;
+  j.record.applied_bar = bars;
+  j.record.t_ns = t_ns;
+  j.record.consecutive_failures = sym->failures;
+  j.record.fallback = sym->fallback;
+  last_record_ = std::move(j.record);
+  j.in_force.reset();
+  j.estimated.reset();
+  j.candidate.reset();
+  pool_->Recycle(slot);
+  free_slots_.push_back(slot);
+  sym->pending = -1;
+  counters_.in_flight.fetch_sub(1, std::memory_order_relaxed);
+}
+
+RefitStats RefitCoordinator::stats() const {
+  RefitStats s;
+  s.due = counters_.due.load(std::memory_order_relaxed);
+  s.submitted = counters_.submitted.load(std::memory_order_relaxed);
+  s.coalesced = counters_.coalesced.load(std::memory_order_relaxed);
+  s.dropped = counters_.dropped.load(std::memory_order_relaxed);
+  s.swapped = counters_.swapped.load(std::memory_order_relaxed);
+  s.rejected = counters_.rejected.load(std::memory_order_relaxed);
+  s.refit_errors = counters_.refit_errors.load(std::memory_order_relaxed);
+  s.fallbacks = counters_.fallbacks.load(std::memory_order_relaxed);
+  s.replay_waits = counters_.replay_waits.load(std::memory_order_relaxed);
+  s.in_flight = counters_.in_flight.load(std::memory_order_relaxed);
+  s.queued = pool_->queued();
+  s.running = pool_->running();
+  return s;
+}
+
+size_t RefitCoordinator::MemoryBytesPerSymbol() const {
+  // An estimated version: the struct, its parameter vector and std errors
+  // (at most 2 * 32 doubles for the largest spec in practice), and the
+  // shared_ptr control block.
+  const size_t version = sizeof(ModelVersion) + 2 * 32 * sizeof(double) + 32;
+  return sizeof(SymbolSlot) + static_cast<size_t>(options_.window) * sizeof(double) + version +
+         // hash-map entry: key string, id and control byte
+         sizeof(std::string) + sizeof(uint32_t) + 1 + kMaxSymbolLength;
+}
+
+}  // namespace aftershock
