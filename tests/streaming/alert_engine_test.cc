@@ -565,7 +565,11 @@ TEST_CASE("OnBar and the JSON encoder allocate nothing", "[alerts]") {
   e->CheckStale(u.symbol, 100 * kSec, true, &st, &sink);
   e->OnRejectedTick(5, &sink);
   const uint64_t after = testing::AllocationCount();
-  CHECK(after == before);
+  if (testing::AllocationCountingEnabled()) {
+    CHECK(after == before);
+  } else {
+    WARN("allocation counting is off in this (thread-sanitizer) build; checked in the others");
+  }
   // The run exercised the rules it claims to: shocks of all tiers, regimes both ways.
   const AlertCounters& c = e->counters();
   CHECK(c.Emitted(AlertKind::kShock, Severity::kInfo) > 0);
