@@ -264,6 +264,11 @@ absl::StatusOr<ForecastLoss> EvaluateVarianceForecasts(absl::Span<const double> 
                                                        absl::Span<const double> h,
                                                        const std::string& target);
 
+// Indices of the bars that enter the statistics, in order (the exclusion rules
+// at the top of this file). REQUIRES: the per-bar vectors of `history` have
+// equal lengths (EvaluateSymbol checks this; call it first).
+std::vector<int64_t> UsableBars(const SymbolHistory& history, const EvaluationOptions& options);
+
 // Full evaluation of one symbol. InvalidArgument (naming the symbol and the
 // field) when the per-bar vectors have different lengths, the history is
 // empty, timestamps decrease, a risk level is outside (0.5, 1), or fewer than 3

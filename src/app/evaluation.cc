@@ -289,6 +289,22 @@ absl::Status AppendBarUpdate(const BarUpdate& u, double rv, SymbolHistory* h) {
   return absl::OkStatus();
 }
 
+std::vector<int64_t> UsableBars(const SymbolHistory& hist, const EvaluationOptions& options) {
+  std::vector<int64_t> used;
+  used.reserve(hist.t_ns.size());
+  for (size_t i = 0; i < hist.t_ns.size(); ++i) {
+    const uint32_t f = hist.flags[i];
+    if (f & kFlagFirstBar) continue;
+    if (options.exclude_warmup && (f & kFlagWarmup)) continue;
+    if (!IsFinite(hist.r[i]) || !IsFinite(hist.mu[i]) || !IsFinite(hist.z[i]) ||
+        !(IsFinite(hist.var[i]) && hist.var[i] > 0.0)) {
+      continue;
+    }
+    used.push_back(static_cast<int64_t>(i));
+  }
+  return used;
+}
+
 absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
                                                 const EvaluationOptions& options) {
   const std::string who = absl::StrCat("evaluation of '", hist.symbol, "': ");
@@ -337,21 +353,12 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
   ev.bars = static_cast<int64_t>(n);
   ev.last_var_next = hist.var_next.back();
 
-  // Bars that enter the statistics.
-  std::vector<size_t> used;
-  used.reserve(n);
   for (size_t i = 0; i < n; ++i) {
-    const uint32_t f = hist.flags[i];
-    if (f & kFlagWarmup) ++ev.warmup_bars;
-    if (f & kFlagFallback) ++ev.fallback_bars;
-    if (f & kFlagFirstBar) continue;
-    if (options.exclude_warmup && (f & kFlagWarmup)) continue;
-    if (!IsFinite(hist.r[i]) || !IsFinite(hist.mu[i]) || !IsFinite(hist.z[i]) ||
-        !(IsFinite(hist.var[i]) && hist.var[i] > 0.0)) {
-      continue;
-    }
-    used.push_back(i);
+    if (hist.flags[i] & kFlagWarmup) ++ev.warmup_bars;
+    if (hist.flags[i] & kFlagFallback) ++ev.fallback_bars;
   }
+  std::vector<size_t> used;
+  for (int64_t i : UsableBars(hist, options)) used.push_back(static_cast<size_t>(i));
   ev.evaluated = static_cast<int64_t>(used.size());
   if (used.size() < 3) {
     return absl::InvalidArgumentError(absl::StrCat(
@@ -492,10 +499,13 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
     }
   }
   if (ev.fallback_bars > 0) {
-    ev.warnings.push_back(absl::StrCat(ev.fallback_bars, " bars on the EWMA fallback"));
+    ev.warnings.push_back(absl::StrCat(ev.fallback_bars, ev.fallback_bars == 1 ? " bar" : " bars",
+                                       " on the EWMA fallback"));
   }
   if (ev.swaps.rejected > 0) {
-    ev.warnings.push_back(absl::StrCat(ev.swaps.rejected, " refits rejected by the gate"));
+    ev.warnings.push_back(absl::StrCat(ev.swaps.rejected,
+                                       ev.swaps.rejected == 1 ? " refit" : " refits",
+                                       " rejected by the gate"));
   }
   return ev;
 }
