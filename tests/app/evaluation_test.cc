@@ -366,6 +366,30 @@ TEST_CASE("the VaR backtest uses the forecast published one bar earlier", "[eval
   CHECK(ev->vs_r2.mse > 0);
 }
 
+TEST_CASE("forecasts are also judged against realized variance when present", "[evaluation]") {
+  const auto p = Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08},
+                                   {"beta1", 0.9}});
+  SymbolHistory h = Replay(p, 2000, 5);
+  // A realized variance equal to the forecast on every other bar, absent on
+  // the rest: the rv losses use the 1000 present bars and are exactly those of
+  // a perfect forecast (normalized QLIKE 0, MSE 0, MZ a = 0, b = 1, R^2 = 1).
+  h.rv.assign(h.t_ns.size(), std::nan(""));
+  for (size_t i = 0; i < h.rv.size(); i += 2) h.rv[i] = h.var[i];
+  auto ev = EvaluateSymbol(h, EvaluationOptions{});
+  REQUIRE(ev.ok());
+  REQUIRE(ev->vs_rv.has_value());
+  const ForecastLoss& f = *ev->vs_rv;
+  CHECK(f.target == "rv");
+  CHECK(f.n == 1000);
+  CHECK(std::fabs(f.qlike_normalized) < 1e-12);
+  CHECK(f.mse < 1e-24);
+  CHECK(f.mz.slope == Approx(1.0).epsilon(1e-9));
+  CHECK(std::fabs(f.mz.intercept) < 1e-9);
+  CHECK(f.mz.r_squared == Approx(1.0).epsilon(1e-9));
+  CHECK(ev->vs_r2.n == 2000);
+  CHECK(ev->vs_r2.qlike_normalized > 0.1);  // r^2 is a noisy proxy
+}
+
 TEST_CASE("symbol evaluation: exclusions, alerts, swaps and errors", "[evaluation]") {
   SymbolHistory h;
   h.symbol = "ALPHA";

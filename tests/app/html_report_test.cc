@@ -95,6 +95,19 @@ TEST_CASE("drawn series are downsampled, statistics are not", "[report]") {
   CHECK(Contains(*page, "data-v=\"20000\""));
 }
 
+TEST_CASE("a long replay gives a page whose size does not grow with the bars", "[report]") {
+  // 3 x 100,000 bars: every drawn series is capped at max_points, the QQ plot
+  // at 600 points and the exception markers at 4,000 per symbol, so the page
+  // stays a few hundred kB (the returns alone would be several MB).
+  auto page = RenderHtmlReport(FixtureReport(100000));
+  REQUIRE(page.ok());
+  WARN("report of 3 x 100,000 bars: " << page->size() << " bytes");
+  CHECK(page->size() < 1500 * 1024);
+  auto small = RenderHtmlReport(FixtureReport(10000));
+  REQUIRE(small.ok());
+  CHECK(page->size() < 2 * small->size());
+}
+
 TEST_CASE("bad report input is refused with a clear message", "[report]") {
   ReportInput empty;
   auto e = RenderHtmlReport(empty);

@@ -88,18 +88,42 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
   // The console hook must not have seen anything either (the messages land in
   // the status element's text).
   CHECK(tag.find("console.error") == std::string::npos);
+  // Independently of the page's hooks, Chromium logs every console message
+  // (any level, uncaught exceptions included) to stderr as "...:CONSOLE...";
+  // the report writes none.
+  std::vector<std::string> console_lines;
+  for (size_t p = dom.err.find(":CONSOLE"); p != std::string::npos;
+       p = dom.err.find(":CONSOLE", p + 1)) {
+    const size_t b = dom.err.rfind('\n', p);
+    const size_t e = dom.err.find('\n', p);
+    console_lines.push_back(dom.err.substr(b == std::string::npos ? 0 : b + 1, e - b));
+  }
+  for (const auto& l : console_lines) UNSCOPED_INFO(l);
+  CHECK(console_lines.empty());
 
-  // Sorting: a copy of the page with one injected click on the QLIKE header
-  // (the overview's seventh column) must list the symbols by ascending QLIKE.
+  // A copy of the page with two injected scripts: a click on the QLIKE header
+  // (the overview's seventh column), after which the symbols must be listed by
+  // ascending QLIKE, and a deliberate error, which the page's hooks must count
+  // (so data-errors = 0 above is a check that can fail).
   {
     std::string html = testing::ReadFileOrDie(page);
     const size_t end = html.rfind("</body>");
     REQUIRE(end != std::string::npos);
-    html.insert(end, "<script>document.querySelectorAll('#overview th')[6].click();</script>");
+    html.insert(end,
+                "<script>document.querySelectorAll('#overview th')[6].click();</script>"
+                "<script>deliberatelyMissingFunction();</script>");
     const std::string sorted_page = testing::WriteFile(dir + "/sorted.html", html);
     const CommandResult sorted =
         Chromium(dir, "profile-sort", {"--dump-dom"}, "file://" + sorted_page);
     REQUIRE(sorted.exit_code == 0);
+    const size_t st = sorted.out.find("id=\"report-status\"");
+    REQUIRE(st != std::string::npos);
+    const size_t st_open = sorted.out.rfind('<', st);
+    const std::string status =
+        sorted.out.substr(st_open, sorted.out.find("</div>", st) - st_open);
+    INFO("status element: " << status);
+    CHECK(Attr(status, "data-errors") == "1");
+    CHECK(status.find("deliberatelyMissingFunction") != std::string::npos);
     std::vector<std::pair<double, std::string>> by_qlike;
     for (size_t i = 0; i < in.symbols.size(); ++i) {
       auto ev = EvaluateSymbol(in.symbols[i], in.options.evaluation);
