@@ -38,15 +38,15 @@ namespace aftershock {
 
 // One refit outcome: the fit offered to the quality gate and what the gate said.
 struct ModelSwapRecord {
-  int64_t t_ns = 0;                     // bar end at which the swap (or rejection) happened
-  uint32_t version = 0;                 // version number given to the parameters (if accepted)
-  std::string model;                    // model label, e.g. "constant/garch(1,1)/t"
-  std::vector<std::string> param_names; // in ModelSpec::ParamNames() order
-  std::vector<double> values;           // same length as param_names
-  std::vector<double> std_errors;       // same length, or empty; NaN where unknown
-  double loglik = 0;                    // log-likelihood of the fit on its window
-  bool accepted = false;                // true when the gate passed and the swap happened
-  std::string gate_reason;              // why the gate failed (empty when accepted)
+  int64_t t_ns = 0;                      // bar end at which the swap (or rejection) happened
+  uint32_t version = 0;                  // version number given to the parameters (if accepted)
+  std::string model;                     // model label, e.g. "constant/garch(1,1)/t"
+  std::vector<std::string> param_names;  // in ModelSpec::ParamNames() order
+  std::vector<double> values;            // same length as param_names
+  std::vector<double> std_errors;        // same length, or empty; NaN where unknown
+  double loglik = 0;                     // log-likelihood of the fit on its window
+  bool accepted = false;                 // true when the gate passed and the swap happened
+  std::string gate_reason;               // why the gate failed (empty when accepted)
 };
 
 // One published alert.
@@ -61,20 +61,20 @@ struct AlertRecord {
 // A volatility regime flagged by the alert rules, [start_ns, end_ns].
 struct RegimePeriod {
   int64_t start_ns = 0;
-  int64_t end_ns = 0;   // end of the last bar inside the regime (>= start_ns)
-  int direction = 1;    // +1: high-volatility regime, -1: low-volatility regime
+  int64_t end_ns = 0;  // end of the last bar inside the regime (>= start_ns)
+  int direction = 1;   // +1: high-volatility regime, -1: low-volatility regime
 };
 
 // Everything a replay collected for one symbol. Per-bar vectors all have the
 // length of t_ns (rv may be empty). Ownership: plain value type.
 struct SymbolHistory {
   std::string symbol;
-  std::vector<int64_t> t_ns;    // bar ends, ns since the Unix epoch, nondecreasing
-  std::vector<double> r;        // bar return
-  std::vector<double> mu;       // mean forecast for the bar (made at t-1)
-  std::vector<double> var;      // variance used to standardize the bar (made at t-1)
-  std::vector<double> z;        // standardized shock
-  std::vector<double> var_next; // variance forecast for the next bar
+  std::vector<int64_t> t_ns;     // bar ends, ns since the Unix epoch, nondecreasing
+  std::vector<double> r;         // bar return
+  std::vector<double> mu;        // mean forecast for the bar (made at t-1)
+  std::vector<double> var;       // variance used to standardize the bar (made at t-1)
+  std::vector<double> z;         // standardized shock
+  std::vector<double> var_next;  // variance forecast for the next bar
   // Realized variance of each bar (same units as r^2), NaN where absent; empty
   // when the feed has none.
   std::vector<double> rv;
@@ -175,8 +175,8 @@ const char* ZoneName(TrafficLightZone zone);
 
 struct TrafficLight {
   TrafficLightZone zone = TrafficLightZone::kNotApplicable;  // of the last window
-  int64_t window = 0;              // bars in the last window (<= the option's window)
-  int64_t window_exceptions = 0;   // exceptions in the last window
+  int64_t window = 0;             // bars in the last window (<= the option's window)
+  int64_t window_exceptions = 0;  // exceptions in the last window
   // Over all full rolling windows (one per end bar): how many, and the share
   // of windows in each zone (0 when there is no full window).
   int64_t n_windows = 0;
@@ -203,7 +203,7 @@ struct AlertCount {
 };
 
 struct SwapSummary {
-  int64_t attempts = 0;   // records in SymbolHistory::swaps
+  int64_t attempts = 0;  // records in SymbolHistory::swaps
   int64_t accepted = 0;
   int64_t rejected = 0;
   uint32_t last_version = 0;  // highest accepted version (0 when none)
@@ -226,13 +226,13 @@ struct SymbolEvaluation {
   // Against the squared return about its forecast mean, (r - mu)^2 (r^2 for a
   // zero mean), target "r2".
   ForecastLoss vs_r2;
-  std::optional<ForecastLoss> vs_rv;   // against realized variance (bars with rv), "rv"
-  std::vector<LevelBacktest> levels;   // one per SymbolHistory::risk_levels entry
+  std::optional<ForecastLoss> vs_rv;  // against realized variance (bars with rv), "rv"
+  std::vector<LevelBacktest> levels;  // one per SymbolHistory::risk_levels entry
   ShockMoments z;
-  std::vector<AlertCount> alerts;      // sorted by kind, then severity
+  std::vector<AlertCount> alerts;  // sorted by kind, then severity
   int64_t alerts_total = 0;
   SwapSummary swaps;
-  double last_var_next = 0;            // var_next of the last bar (NaN if none)
+  double last_var_next = 0;  // var_next of the last bar (NaN if none)
   // Plain-language findings (a red zone, a rejected test, fallback bars ...).
   std::vector<std::string> warnings;
 };

@@ -1,12 +1,11 @@
 #include "aftershock/evaluation.h"
 
 #include <algorithm>
+#include <boost/math/distributions/chi_squared.hpp>
 #include <cmath>
 #include <limits>
 #include <map>
 #include <utility>
-
-#include <boost/math/distributions/chi_squared.hpp>
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
@@ -20,9 +19,7 @@ constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 double XLogY(double k, double q) { return k == 0.0 ? 0.0 : k * std::log(q); }
 
 // Bernoulli log-likelihood of k successes in m trials at probability q.
-double BernoulliLogLik(double k, double m, double q) {
-  return XLogY(m - k, 1.0 - q) + XLogY(k, q);
-}
+double BernoulliLogLik(double k, double m, double q) { return XLogY(m - k, 1.0 - q) + XLogY(k, q); }
 
 bool IsFinite(double v) { return std::isfinite(v); }
 
@@ -30,10 +27,14 @@ bool IsFinite(double v) { return std::isfinite(v); }
 
 const char* ZoneName(TrafficLightZone zone) {
   switch (zone) {
-    case TrafficLightZone::kGreen: return "green";
-    case TrafficLightZone::kYellow: return "yellow";
-    case TrafficLightZone::kRed: return "red";
-    case TrafficLightZone::kNotApplicable: break;
+    case TrafficLightZone::kGreen:
+      return "green";
+    case TrafficLightZone::kYellow:
+      return "yellow";
+    case TrafficLightZone::kRed:
+      return "red";
+    case TrafficLightZone::kNotApplicable:
+      break;
   }
   return "n/a";
 }
@@ -64,8 +65,8 @@ absl::StatusOr<ExceptionTests> TestExceptions(absl::Span<const uint8_t> exceptio
   for (size_t i = 0; i < exceptions.size(); ++i) {
     const uint8_t e = exceptions[i];
     if (e > 1) {
-      return absl::InvalidArgumentError(absl::StrCat(
-          "exception backtest: entry ", i, " is ", static_cast<int>(e), ", expected 0 or 1"));
+      return absl::InvalidArgumentError(absl::StrCat("exception backtest: entry ", i, " is ",
+                                                     static_cast<int>(e), ", expected 0 or 1"));
     }
     t.exceptions += e;
     if (i > 0) {
@@ -80,8 +81,8 @@ absl::StatusOr<ExceptionTests> TestExceptions(absl::Span<const uint8_t> exceptio
   const double x = static_cast<double>(t.exceptions);
   t.rate = x / n;
   // Kupiec POF: restricted (p) against unrestricted (x/n) Bernoulli likelihood.
-  t.lr_pof = std::max(0.0, -2.0 * BernoulliLogLik(x, n, tail_prob) +
-                               2.0 * BernoulliLogLik(x, n, t.rate));
+  t.lr_pof =
+      std::max(0.0, -2.0 * BernoulliLogLik(x, n, tail_prob) + 2.0 * BernoulliLogLik(x, n, t.rate));
   t.p_pof = ChiSquaredSurvival(t.lr_pof, 1.0);
 
   // Christoffersen independence on the n-1 transitions.
@@ -114,8 +115,8 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exce
     return absl::InvalidArgumentError("traffic light: the exception sequence is empty");
   }
   if (options.traffic_light_window < 1) {
-    return absl::InvalidArgumentError(absl::StrCat("traffic light: window ",
-                                                   options.traffic_light_window, " is < 1"));
+    return absl::InvalidArgumentError(
+        absl::StrCat("traffic light: window ", options.traffic_light_window, " is < 1"));
   }
   const int64_t n = static_cast<int64_t>(exceptions.size());
   const int64_t w = options.traffic_light_window;
@@ -130,9 +131,15 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exce
     if (i >= w) in_window -= exceptions[i - w];
     if (i + 1 < w) continue;
     switch (ZoneOf(in_window, options)) {
-      case TrafficLightZone::kGreen: ++green; break;
-      case TrafficLightZone::kYellow: ++yellow; break;
-      default: ++red; break;
+      case TrafficLightZone::kGreen:
+        ++green;
+        break;
+      case TrafficLightZone::kYellow:
+        ++yellow;
+        break;
+      default:
+        ++red;
+        break;
     }
   }
   tl.n_windows = n - w + 1;
@@ -146,8 +153,8 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exce
 absl::StatusOr<MincerZarnowitz> MincerZarnowitzRegression(absl::Span<const double> y,
                                                           absl::Span<const double> h) {
   if (y.size() != h.size()) {
-    return absl::InvalidArgumentError(absl::StrCat("Mincer-Zarnowitz: ", y.size(),
-                                                   " targets but ", h.size(), " forecasts"));
+    return absl::InvalidArgumentError(
+        absl::StrCat("Mincer-Zarnowitz: ", y.size(), " targets but ", h.size(), " forecasts"));
   }
   if (y.size() < 3) {
     return absl::InvalidArgumentError(
@@ -212,13 +219,12 @@ absl::StatusOr<ForecastLoss> EvaluateVarianceForecasts(absl::Span<const double> 
                                                        absl::Span<const double> h,
                                                        const std::string& target) {
   if (y.size() != h.size()) {
-    return absl::InvalidArgumentError(absl::StrCat("forecast evaluation (", target, "): ",
-                                                   y.size(), " targets but ", h.size(),
-                                                   " forecasts"));
+    return absl::InvalidArgumentError(absl::StrCat("forecast evaluation (", target, "): ", y.size(),
+                                                   " targets but ", h.size(), " forecasts"));
   }
   if (y.size() < 3) {
-    return absl::InvalidArgumentError(absl::StrCat("forecast evaluation (", target,
-                                                   "): needs at least 3 bars, got ", y.size()));
+    return absl::InvalidArgumentError(
+        absl::StrCat("forecast evaluation (", target, "): needs at least 3 bars, got ", y.size()));
   }
   ForecastLoss f;
   f.target = target;
@@ -328,9 +334,9 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
   }
   const size_t nl = hist.risk_levels.size();
   if (hist.var_risk_next.size() != nl || hist.es_next.size() != nl) {
-    return absl::InvalidArgumentError(absl::StrCat(
-        who, nl, " risk levels but ", hist.var_risk_next.size(), " VaR columns and ",
-        hist.es_next.size(), " ES columns"));
+    return absl::InvalidArgumentError(absl::StrCat(who, nl, " risk levels but ",
+                                                   hist.var_risk_next.size(), " VaR columns and ",
+                                                   hist.es_next.size(), " ES columns"));
   }
   for (size_t k = 0; k < nl; ++k) {
     const double lv = hist.risk_levels[k];
@@ -343,8 +349,7 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
   }
   for (size_t i = 1; i < n; ++i) {
     if (hist.t_ns[i] < hist.t_ns[i - 1]) {
-      return absl::InvalidArgumentError(
-          absl::StrCat(who, "timestamps decrease at bar ", i));
+      return absl::InvalidArgumentError(absl::StrCat(who, "timestamps decrease at bar ", i));
     }
   }
 
@@ -361,9 +366,9 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
   for (int64_t i : UsableBars(hist, options)) used.push_back(static_cast<size_t>(i));
   ev.evaluated = static_cast<int64_t>(used.size());
   if (used.size() < 3) {
-    return absl::InvalidArgumentError(absl::StrCat(
-        who, "only ", used.size(), " of ", n, " bars are usable (warm-up or invalid bars are "
-        "left out); at least 3 are needed"));
+    return absl::InvalidArgumentError(absl::StrCat(who, "only ", used.size(), " of ", n,
+                                                   " bars are usable (warm-up or invalid bars are "
+                                                   "left out); at least 3 are needed"));
   }
 
   // Forecast losses.
@@ -490,12 +495,12 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
                                          " bars)"));
     }
     if (lb.tests.p_pof < options.warn_p_value) {
-      ev.warnings.push_back(absl::StrFormat("coverage rejected at %s (Kupiec p = %.3g)", lv,
-                                            lb.tests.p_pof));
+      ev.warnings.push_back(
+          absl::StrFormat("coverage rejected at %s (Kupiec p = %.3g)", lv, lb.tests.p_pof));
     }
     if (lb.tests.p_ind < options.warn_p_value) {
-      ev.warnings.push_back(absl::StrFormat(
-          "exceptions cluster at %s (Christoffersen p = %.3g)", lv, lb.tests.p_ind));
+      ev.warnings.push_back(absl::StrFormat("exceptions cluster at %s (Christoffersen p = %.3g)",
+                                            lv, lb.tests.p_ind));
     }
   }
   if (ev.fallback_bars > 0) {
@@ -503,9 +508,8 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
                                        " on the EWMA fallback"));
   }
   if (ev.swaps.rejected > 0) {
-    ev.warnings.push_back(absl::StrCat(ev.swaps.rejected,
-                                       ev.swaps.rejected == 1 ? " refit" : " refits",
-                                       " rejected by the gate"));
+    ev.warnings.push_back(absl::StrCat(
+        ev.swaps.rejected, ev.swaps.rejected == 1 ? " refit" : " refits", " rejected by the gate"));
   }
   return ev;
 }

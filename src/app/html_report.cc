@@ -6,9 +6,8 @@
 #include <fstream>
 #include <limits>
 #include <map>
-#include <utility>
-
 #include <nlohmann/json.hpp>
+#include <utility>
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
@@ -48,10 +47,17 @@ std::string EmbedJson(const json& j) {
   out.reserve(raw.size() + raw.size() / 16);
   for (char c : raw) {
     switch (c) {
-      case '<': out += "\\u003c"; break;
-      case '>': out += "\\u003e"; break;
-      case '&': out += "\\u0026"; break;
-      default: out += c;
+      case '<':
+        out += "\\u003c";
+        break;
+      case '>':
+        out += "\\u003e";
+        break;
+      case '&':
+        out += "\\u0026";
+        break;
+      default:
+        out += c;
     }
   }
   return out;
@@ -154,10 +160,12 @@ json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportO
       }
     }
   }
-  d["returns"] = {{"x", xs}, {"lo", lo}, {"hi", hi}, {"bu", bu}, {"bl", bl},
-                  {"nv", lv >= 0 ? nv : json(nullptr)}, {"exc", exc}, {"n_exc", n_exc}};
+  d["returns"] = {{"x", xs},    {"lo", lo},      {"hi", hi},
+                  {"bu", bu},   {"bl", bl},      {"nv", lv >= 0 ? nv : json(nullptr)},
+                  {"exc", exc}, {"n_exc", n_exc}};
   json regimes = json::array();
-  for (const auto& g : h.regimes) regimes.push_back({x_at(g.start_ns), x_at(g.end_ns), g.direction});
+  for (const auto& g : h.regimes)
+    regimes.push_back({x_at(g.start_ns), x_at(g.end_ns), g.direction});
   json swaps = json::array();
   for (const auto& s : h.swaps) swaps.push_back({x_at(s.t_ns), s.version, s.accepted});
   d["vol"] = {{"x", xs}, {"lo", vlo}, {"hi", vhi}, {"regimes", regimes}, {"swaps", swaps}};
@@ -206,8 +214,8 @@ json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportO
     const double x = -half + 2 * half * k / 240.0;
     curve.push_back({x, Num(h.law.Density(x))});
   }
-  d["hist"] = {{"lo", -half}, {"width", width}, {"density", dens}, {"curve", curve},
-               {"outside", outside}, {"n", m}};
+  d["hist"] = {{"lo", -half},    {"width", width},     {"density", dens},
+               {"curve", curve}, {"outside", outside}, {"n", m}};
   *charts += 2;
 
   // (e) parameter history across accepted refits.
@@ -239,17 +247,21 @@ std::string UtcTime(int64_t t_ns) {
 }
 
 std::string ZoneChip(TrafficLightZone zone) {
-  return absl::StrCat("<span class=\"chip zone-", ZoneName(zone) == std::string("n/a") ? "na"
-                                                                                       : ZoneName(zone),
-                      "\">", ZoneName(zone), "</span>");
+  return absl::StrCat("<span class=\"chip zone-",
+                      ZoneName(zone) == std::string("n/a") ? "na" : ZoneName(zone), "\">",
+                      ZoneName(zone), "</span>");
 }
 
 int ZoneRank(TrafficLightZone z) {
   switch (z) {
-    case TrafficLightZone::kGreen: return 0;
-    case TrafficLightZone::kYellow: return 1;
-    case TrafficLightZone::kRed: return 2;
-    default: return -1;
+    case TrafficLightZone::kGreen:
+      return 0;
+    case TrafficLightZone::kYellow:
+      return 1;
+    case TrafficLightZone::kRed:
+      return 2;
+    default:
+      return -1;
   }
 }
 
@@ -259,9 +271,7 @@ std::string Td(const std::string& text, const std::string& key = "", bool num = 
                       text, "</td>");
 }
 
-std::string LrCell(double lr, double p) {
-  return absl::StrCat(Fmt(lr), " (", FmtP(p), ")");
-}
+std::string LrCell(double lr, double p) { return absl::StrCat(Fmt(lr), " (", FmtP(p), ")"); }
 
 std::string BacktestTable(const SymbolEvaluation& ev) {
   std::string s =
@@ -274,23 +284,22 @@ std::string BacktestTable(const SymbolEvaluation& ev) {
   for (const auto& lb : ev.levels) {
     const auto& t = lb.tests;
     const auto& tl = lb.traffic_light;
-    std::string windows = tl.n_windows > 0
-                              ? absl::StrFormat("%.1f / %.1f / %.1f %% of %d",
-                                                100 * tl.share_green, 100 * tl.share_yellow,
-                                                100 * tl.share_red, tl.n_windows)
-                              : "\xE2\x80\x93";
+    std::string windows =
+        tl.n_windows > 0 ? absl::StrFormat("%.1f / %.1f / %.1f %% of %d", 100 * tl.share_green,
+                                           100 * tl.share_yellow, 100 * tl.share_red, tl.n_windows)
+                         : "\xE2\x80\x93";
     std::string zone =
         tl.zone == TrafficLightZone::kNotApplicable
             ? ZoneChip(tl.zone)
             : absl::StrCat(ZoneChip(tl.zone), " ", tl.window_exceptions, " in ", tl.window);
-    absl::StrAppend(
-        &s, "<tr>", Td(LevelLabel(lb.level)), Td(absl::StrCat(t.n)),
-        Td(absl::StrCat(t.exceptions, " (", Fmt(t.tail_prob * static_cast<double>(t.n), "%.1f"),
-                        ")")),
-        Td(Fmt(t.rate, "%.4f")), Td(LrCell(t.lr_pof, t.p_pof)),
-        Td(absl::StrCat(t.n00, " / ", t.n01, " / ", t.n10, " / ", t.n11)),
-        Td(LrCell(t.lr_ind, t.p_ind)), Td(LrCell(t.lr_cc, t.p_cc)), Td(zone, "", false),
-        Td(windows), Td(absl::StrCat(Fmt(lb.es_ratio, "%.3f"), " (", lb.es_n, ")")), "</tr>");
+    absl::StrAppend(&s, "<tr>", Td(LevelLabel(lb.level)), Td(absl::StrCat(t.n)),
+                    Td(absl::StrCat(t.exceptions, " (",
+                                    Fmt(t.tail_prob * static_cast<double>(t.n), "%.1f"), ")")),
+                    Td(Fmt(t.rate, "%.4f")), Td(LrCell(t.lr_pof, t.p_pof)),
+                    Td(absl::StrCat(t.n00, " / ", t.n01, " / ", t.n10, " / ", t.n11)),
+                    Td(LrCell(t.lr_ind, t.p_ind)), Td(LrCell(t.lr_cc, t.p_cc)), Td(zone, "", false),
+                    Td(windows), Td(absl::StrCat(Fmt(lb.es_ratio, "%.3f"), " (", lb.es_n, ")")),
+                    "</tr>");
   }
   s += "</tbody></table>";
   return s;
@@ -325,9 +334,8 @@ std::string ForecastTable(const SymbolEvaluation& ev) {
                   "<table class=\"grid\"><caption>Standardized shocks z</caption><thead><tr>"
                   "<th>bars</th><th>mean</th><th>variance</th><th>skewness</th>"
                   "<th>excess kurtosis</th><th>max |z|</th></tr></thead><tbody><tr>",
-                  Td(absl::StrCat(z.n)), Td(Fmt(z.mean)), Td(Fmt(z.variance)),
-                  Td(Fmt(z.skewness)), Td(Fmt(z.excess_kurtosis)), Td(Fmt(z.max_abs)),
-                  "</tr></tbody></table>");
+                  Td(absl::StrCat(z.n)), Td(Fmt(z.mean)), Td(Fmt(z.variance)), Td(Fmt(z.skewness)),
+                  Td(Fmt(z.excess_kurtosis)), Td(Fmt(z.max_abs)), "</tr></tbody></table>");
   return s;
 }
 
@@ -346,8 +354,8 @@ std::string AlertTable(const SymbolEvaluation& ev) {
 
 std::string SwapTable(const SymbolHistory& h, const SymbolEvaluation& ev) {
   std::string s = absl::StrCat(
-      "<table class=\"grid\"><caption>Refits: ", ev.swaps.attempts, " offered, ",
-      ev.swaps.accepted, " swapped in, ", ev.swaps.rejected,
+      "<table class=\"grid\"><caption>Refits: ", ev.swaps.attempts, " offered, ", ev.swaps.accepted,
+      " swapped in, ", ev.swaps.rejected,
       " rejected by the gate</caption><thead><tr><th>bar end (UTC)</th><th>version</th>"
       "<th>model</th><th>estimates (s.e.)</th><th>log-likelihood</th><th>gate</th></tr>"
       "</thead><tbody>");
@@ -361,10 +369,10 @@ std::string SwapTable(const SymbolHistory& h, const SymbolEvaluation& ev) {
       }
       est.push_back(e);
     }
-    const std::string gate =
-        w.accepted ? "<span class=\"chip gate-pass\">passed</span>"
-                   : absl::StrCat("<span class=\"chip gate-fail\">failed</span> ",
-                                  HtmlEscape(w.gate_reason));
+    const std::string gate = w.accepted
+                                 ? "<span class=\"chip gate-pass\">passed</span>"
+                                 : absl::StrCat("<span class=\"chip gate-fail\">failed</span> ",
+                                                HtmlEscape(w.gate_reason));
     absl::StrAppend(&s, "<tr>", Td(UtcTime(w.t_ns)),
                     Td(w.accepted ? absl::StrCat(w.version) : "\xE2\x80\x93"),
                     Td(HtmlEscape(w.model), "", false), Td(absl::StrJoin(est, ", "), "", false),
@@ -381,12 +389,23 @@ std::string HtmlEscape(const std::string& text) {
   out.reserve(text.size());
   for (char c : text) {
     switch (c) {
-      case '&': out += "&amp;"; break;
-      case '<': out += "&lt;"; break;
-      case '>': out += "&gt;"; break;
-      case '"': out += "&quot;"; break;
-      case '\'': out += "&#39;"; break;
-      default: out += c;
+      case '&':
+        out += "&amp;";
+        break;
+      case '<':
+        out += "&lt;";
+        break;
+      case '>':
+        out += "&gt;";
+        break;
+      case '"':
+        out += "&quot;";
+        break;
+      case '\'':
+        out += "&#39;";
+        break;
+      default:
+        out += c;
     }
   }
   return out;
@@ -407,10 +426,9 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
   if (!(opt.band_sigmas > 0) || !std::isfinite(opt.band_sigmas)) {
     return absl::InvalidArgumentError("report: band_sigmas must be finite and > 0");
   }
-  const std::string vol_unit = opt.periods_per_year > 0
-                                   ? absl::StrFormat("annualized, %g bars/year",
-                                                     opt.periods_per_year)
-                                   : std::string("per bar");
+  const std::string vol_unit =
+      opt.periods_per_year > 0 ? absl::StrFormat("annualized, %g bars/year", opt.periods_per_year)
+                               : std::string("per bar");
 
   int charts = 0;
   int64_t total_bars = 0;
@@ -423,14 +441,13 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     const std::string anchor = absl::StrCat("sym-", si);
     auto ev = EvaluateSymbol(h, opt.evaluation);
     if (!ev.ok()) {
-      absl::StrAppend(&overview, "<tr>", Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"),
-                                            h.symbol, false),
-                      Td(absl::StrCat(h.t_ns.size()), std::to_string(h.t_ns.size())),
-                      "<td colspan=\"6\"></td>",
-                      Td(absl::StrCat("evaluation failed: ",
-                                      HtmlEscape(std::string(ev.status().message()))),
-                         "9", false),
-                      "</tr>");
+      absl::StrAppend(
+          &overview, "<tr>",
+          Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
+          Td(absl::StrCat(h.t_ns.size()), std::to_string(h.t_ns.size())), "<td colspan=\"6\"></td>",
+          Td(absl::StrCat("evaluation failed: ", HtmlEscape(std::string(ev.status().message()))),
+             "9", false),
+          "</tr>");
       absl::StrAppend(&sections, "<section class=\"symbol\" id=\"", anchor, "\"><h2>", sym,
                       "</h2><p class=\"failed\">Evaluation failed: ",
                       HtmlEscape(std::string(ev.status().message())), "</p></section>");
@@ -439,37 +456,34 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     }
     const int lv = LevelIndex(h, opt.var_level);
     const LevelBacktest* b = lv >= 0 ? &ev->levels[lv] : nullptr;
-    const double last_vol =
-        std::sqrt(ev->last_var_next) *
-        (opt.periods_per_year > 0 ? std::sqrt(opt.periods_per_year) : 1.0);
-    const TrafficLightZone zone =
-        b ? b->traffic_light.zone : TrafficLightZone::kNotApplicable;
-    std::string warn_text = ev->warnings.empty()
-                                ? std::string("none")
-                                : HtmlEscape(absl::StrJoin(ev->warnings, "; "));
-    absl::StrAppend(
-        &overview, "<tr>",
-        Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
-        Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
-        Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
-           b ? absl::StrCat(b->tests.exceptions) : ""),
-        Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
-        Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
-        Td(ZoneChip(zone), absl::StrCat(ZoneRank(zone)), false),
-        Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
-        Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
-        Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
+    const double last_vol = std::sqrt(ev->last_var_next) *
+                            (opt.periods_per_year > 0 ? std::sqrt(opt.periods_per_year) : 1.0);
+    const TrafficLightZone zone = b ? b->traffic_light.zone : TrafficLightZone::kNotApplicable;
+    std::string warn_text =
+        ev->warnings.empty() ? std::string("none") : HtmlEscape(absl::StrJoin(ev->warnings, "; "));
+    absl::StrAppend(&overview, "<tr>",
+                    Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
+                    Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
+                    Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
+                       b ? absl::StrCat(b->tests.exceptions) : ""),
+                    Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
+                    Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
+                    Td(ZoneChip(zone), absl::StrCat(ZoneRank(zone)), false),
+                    Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
+                    Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
+                    Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
 
     const int before = charts;
     json d = ChartData(h, *ev, opt, &charts);
     d["symbol"] = h.symbol;
     data.push_back(d);
-    absl::StrAppend(
-        &sections, "<section class=\"symbol\" id=\"", anchor, "\"><h2>", sym, "</h2>",
-        "<p class=\"meta\">", ev->bars, " bars, ", ev->evaluated, " evaluated (",
-        ev->warmup_bars, " warm-up, ", ev->fallback_bars, " on fallback); innovation law of "
-        "the latest model: ", HtmlEscape(LawLabel(h.law)), "; last model version ",
-        h.ver.empty() ? 0u : h.ver.back(), ".</p>");
+    absl::StrAppend(&sections, "<section class=\"symbol\" id=\"", anchor, "\"><h2>", sym, "</h2>",
+                    "<p class=\"meta\">", ev->bars, " bars, ", ev->evaluated, " evaluated (",
+                    ev->warmup_bars, " warm-up, ", ev->fallback_bars,
+                    " on fallback); innovation law of "
+                    "the latest model: ",
+                    HtmlEscape(LawLabel(h.law)), "; last model version ",
+                    h.ver.empty() ? 0u : h.ver.back(), ".</p>");
     if (!ev->warnings.empty()) {
       sections += "<ul class=\"warnings\">";
       for (const auto& w : ev->warnings) absl::StrAppend(&sections, "<li>", HtmlEscape(w), "</li>");
@@ -512,9 +526,9 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
   absl::StrAppend(
       &page, "</header><main><section class=\"overview\"><h2>Overview</h2>",
       "<p class=\"hint\">Click a column header to sort. Exceptions, Kupiec and Christoffersen "
-      "at ", LevelLabel(opt.var_level), "; zone over the last ",
-      opt.evaluation.traffic_light_window, " evaluated bars at ",
-      LevelLabel(opt.evaluation.traffic_light_level), " (green 0&ndash;",
+      "at ",
+      LevelLabel(opt.var_level), "; zone over the last ", opt.evaluation.traffic_light_window,
+      " evaluated bars at ", LevelLabel(opt.evaluation.traffic_light_level), " (green 0&ndash;",
       opt.evaluation.yellow_from - 1, ", yellow ", opt.evaluation.yellow_from, "&ndash;",
       opt.evaluation.red_from - 1, ", red ", opt.evaluation.red_from, "+ exceptions).</p>",
       "<table class=\"grid sortable\" id=\"overview\"><thead><tr>",
@@ -526,14 +540,17 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
       "<th data-type=\"num\">warnings</th></tr></thead><tbody>", overview,
       "</tbody></table></section>", sections, "</main>");
   absl::StrAppend(
-      &page, "<footer><p><strong>Caution.</strong> Everything in this report is a statistical "
+      &page,
+      "<footer><p><strong>Caution.</strong> Everything in this report is a statistical "
       "estimate, not advice. Volatility models fail in crises, exactly when they matter most; "
       "their parameters are estimated with error, and a backtest that passes on history does "
       "not guarantee future coverage. Any use of these numbers for trading decisions or risk "
       "limits must follow the firm's own model-risk policy and the applicable regulation.</p>"
       "</footer>");
-  absl::StrAppend(&page, "<div id=\"report-status\" hidden data-errors=\"0\" "
-                  "data-charts-rendered=\"0\" data-charts-expected=\"", charts, "\"></div>");
+  absl::StrAppend(&page,
+                  "<div id=\"report-status\" hidden data-errors=\"0\" "
+                  "data-charts-rendered=\"0\" data-charts-expected=\"",
+                  charts, "\"></div>");
   absl::StrAppend(&page, "<script type=\"application/json\" id=\"report-data\">",
                   EmbedJson({{"meta", meta}, {"symbols", data}}), "</script><script>",
                   kReportScript, "</script></body></html>\n");

@@ -1,10 +1,9 @@
 #include "aftershock/evaluation.h"
 
+#include <boost/math/distributions/binomial.hpp>
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <nlohmann/json.hpp>
-
-#include <boost/math/distributions/binomial.hpp>
 
 #include "aftershock/online_filter.h"
 #include "aftershock/simulate.h"
@@ -60,11 +59,13 @@ TEST_CASE("Kupiec and Christoffersen match a live scipy computation", "[evaluati
       {"clustered", Seq(500, {100, 101, 102, 103, 104, 300, 301}), 0.01},
       {"spread out", Seq(500, {10, 90, 170, 250, 330, 410, 490}), 0.01},
       {"one exception at the end (empty row 1)", Seq(300, {299}), 0.01},
-      {"alternating (n00 = n11 = 0)", [] {
+      {"alternating (n00 = n11 = 0)",
+       [] {
          std::vector<uint8_t> s(60);
          for (int i = 0; i < 60; ++i) s[i] = i % 2;
          return s;
-       }(), 0.025},
+       }(),
+       0.025},
       {"pseudo-random 2.5 %", Pseudo(2000, 0.03, 7), 0.025},
       {"pseudo-random 1 %", Pseudo(5000, 0.012, 11), 0.01},
   };
@@ -125,8 +126,7 @@ TEST_CASE("exception tests reject bad input with a clear message", "[evaluation]
   std::vector<uint8_t> bad = {0, 2, 0};
   auto b = TestExceptions(bad, 0.01);
   REQUIRE_FALSE(b.ok());
-  CHECK(std::string(b.status().message()) ==
-        "exception backtest: entry 1 is 2, expected 0 or 1");
+  CHECK(std::string(b.status().message()) == "exception backtest: entry 1 is 2, expected 0 or 1");
   auto p = TestExceptions(Seq(10, {}), 1.5);
   REQUIRE_FALSE(p.ok());
   CHECK(std::string(p.status().message()).find("not in (0, 1)") != std::string::npos);
@@ -201,8 +201,7 @@ TEST_CASE("QLIKE, MSE and Mincer-Zarnowitz on a hand-computed example", "[evalua
 }
 
 TEST_CASE("Mincer-Zarnowitz matches statsmodels OLS (classic and HC0)", "[evaluation]") {
-  const auto p = Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08},
-                                   {"beta1", 0.9}});
+  const auto p = Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
   SimulationOptions so;
   so.n = 400;
   so.seed = 3;
@@ -261,8 +260,7 @@ TEST_CASE("true-model replay: coverage, zones and MZ are as a correct model pred
       {"gaussian garch(1,1)",
        Params("normal", {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}})},
       {"t garch(1,1), nu = 6",
-       Params("t", {{"mu", 0.0}, {"omega", 0.02}, {"alpha1", 0.06}, {"beta1", 0.92},
-                    {"nu", 6.0}})},
+       Params("t", {{"mu", 0.0}, {"omega", 0.02}, {"alpha1", 0.06}, {"beta1", 0.92}, {"nu", 6.0}})},
   };
   // Under the true model P(r_t < -VaR_t | past) = p for every bar, so the
   // exception indicators are iid Bernoulli(p) (Christoffersen 1998): the count
@@ -300,13 +298,13 @@ TEST_CASE("true-model replay: coverage, zones and MZ are as a correct model pred
     CHECK(b99.level == 0.99);
     CHECK(b99.tests.n == n - 1);  // bar 0 has no lagged VaR
     const double x = static_cast<double>(b99.tests.exceptions);
-    WARN(name << ": 99 % exceptions " << b99.tests.exceptions << " of " << b99.tests.n
-              << " (rate " << b99.tests.rate << "), 99.9 % interval [" << lo << ", " << hi
-              << "]; green share " << b99.traffic_light.share_green << " (P(X<=4) = " << p_green
-              << ", margin " << margin << "), yellow " << b99.traffic_light.share_yellow
-              << ", red " << b99.traffic_light.share_red << "; Kupiec p " << b99.tests.p_pof
-              << ", Christoffersen p " << b99.tests.p_ind << "; ES ratio " << b99.es_ratio
-              << " (" << b99.es_n << "); MZ a = " << ev->vs_r2.mz.intercept << " ("
+    WARN(name << ": 99 % exceptions " << b99.tests.exceptions << " of " << b99.tests.n << " (rate "
+              << b99.tests.rate << "), 99.9 % interval [" << lo << ", " << hi << "]; green share "
+              << b99.traffic_light.share_green << " (P(X<=4) = " << p_green << ", margin " << margin
+              << "), yellow " << b99.traffic_light.share_yellow << ", red "
+              << b99.traffic_light.share_red << "; Kupiec p " << b99.tests.p_pof
+              << ", Christoffersen p " << b99.tests.p_ind << "; ES ratio " << b99.es_ratio << " ("
+              << b99.es_n << "); MZ a = " << ev->vs_r2.mz.intercept << " ("
               << ev->vs_r2.mz.intercept_se_robust << "), b = " << ev->vs_r2.mz.slope << " ("
               << ev->vs_r2.mz.slope_se_robust << ")");
     CHECK(x >= lo);
@@ -367,8 +365,7 @@ TEST_CASE("the VaR backtest uses the forecast published one bar earlier", "[eval
 }
 
 TEST_CASE("forecasts are also judged against realized variance when present", "[evaluation]") {
-  const auto p = Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08},
-                                   {"beta1", 0.9}});
+  const auto p = Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
   SymbolHistory h = Replay(p, 2000, 5);
   // A realized variance equal to the forecast on every other bar, absent on
   // the rest: the rv losses use the 1000 present bars and are exactly those of
@@ -445,7 +442,8 @@ TEST_CASE("symbol evaluation: exclusions, alerts, swaps and errors", "[evaluatio
   back.t_ns[4] = 0;
   auto e2 = EvaluateSymbol(back, EvaluationOptions{});
   REQUIRE_FALSE(e2.ok());
-  CHECK(std::string(e2.status().message()) == "evaluation of 'ALPHA': timestamps decrease at bar 4");
+  CHECK(std::string(e2.status().message()) ==
+        "evaluation of 'ALPHA': timestamps decrease at bar 4");
   auto e3 = EvaluateSymbol(SymbolHistory{}, EvaluationOptions{});
   REQUIRE_FALSE(e3.ok());
   CHECK(std::string(e3.status().message()).find("no bars") != std::string::npos);

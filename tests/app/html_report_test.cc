@@ -1,7 +1,7 @@
 #include "aftershock/html_report.h"
 
-#include <catch2/catch.hpp>
 #include <algorithm>
+#include <catch2/catch.hpp>
 #include <regex>
 
 #include "app/report_fixture.h"
@@ -34,7 +34,8 @@ TEST_CASE("the report is one self-contained page", "[report]") {
   // it must be the only URL in the page.
   std::string no_ns = html;
   const std::string ns = "'http://www.w3.org/2000/svg'";
-  for (size_t p = no_ns.find(ns); p != std::string::npos; p = no_ns.find(ns)) no_ns.erase(p, ns.size());
+  for (size_t p = no_ns.find(ns); p != std::string::npos; p = no_ns.find(ns))
+    no_ns.erase(p, ns.size());
   CHECK(no_ns.size() == html.size() - ns.size());  // exactly one occurrence
   CHECK_FALSE(Contains(no_ns, "http://"));
   CHECK_FALSE(Contains(no_ns, "https://"));
@@ -43,8 +44,8 @@ TEST_CASE("the report is one self-contained page", "[report]") {
   CHECK_FALSE(Contains(html, "XMLHttpRequest"));
   CHECK_FALSE(Contains(html, "@import"));
   const std::regex href("href=\"([^\"]*)\"");
-  for (auto it = std::sregex_iterator(html.begin(), html.end(), href);
-       it != std::sregex_iterator(); ++it) {
+  for (auto it = std::sregex_iterator(html.begin(), html.end(), href); it != std::sregex_iterator();
+       ++it) {
     INFO((*it)[1].str());
     CHECK((*it)[1].str().rfind("#", 0) == 0);
   }
@@ -75,8 +76,9 @@ TEST_CASE("a symbol that cannot be evaluated is listed with its error", "[report
   in.symbols[1].z.pop_back();
   auto page = RenderHtmlReport(in);
   REQUIRE(page.ok());
-  CHECK(Contains(*page, "Evaluation failed: evaluation of &#39;OSPREY&lt;&amp;&gt;&quot;&#39;&#39;: "
-                        "field &#39;z&#39; has 999 entries, t_ns has 1000"));
+  CHECK(Contains(*page,
+                 "Evaluation failed: evaluation of &#39;OSPREY&lt;&amp;&gt;&quot;&#39;&#39;: "
+                 "field &#39;z&#39; has 999 entries, t_ns has 1000"));
   CHECK(Contains(*page, "data-charts-expected=\"10\""));
 }
 

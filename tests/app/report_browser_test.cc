@@ -1,12 +1,13 @@
 // Loads a generated report in headless Chromium (Debian package `chromium`)
 // and checks that the page's own script drew every chart without an error.
 // Skipped, with a message, when /usr/bin/chromium is absent.
-#include <catch2/catch.hpp>
+#include <unistd.h>
+
 #include <algorithm>
+#include <catch2/catch.hpp>
 #include <filesystem>
 #include <regex>
 #include <string>
-#include <unistd.h>
 
 #include "aftershock/html_report.h"
 #include "app/report_fixture.h"
@@ -25,14 +26,25 @@ constexpr char kTimeout[] = "/usr/bin/timeout";
 // One headless run with a fresh profile; a hung browser is killed after 90 s.
 CommandResult Chromium(const std::string& scratch, const std::string& profile,
                        std::vector<std::string> extra, const std::string& url) {
-  std::vector<std::string> argv = {kTimeout, "-k", "5", "90", kChromium,
-                                   "--headless", "--no-sandbox", "--disable-gpu",
-                                   "--disable-dev-shm-usage", "--disable-quic",
-                                   "--no-first-run", "--disable-background-networking",
-                                   "--disable-component-update", "--disable-sync",
-                                   "--disable-extensions", "--hide-scrollbars",
+  std::vector<std::string> argv = {kTimeout,
+                                   "-k",
+                                   "5",
+                                   "90",
+                                   kChromium,
+                                   "--headless",
+                                   "--no-sandbox",
+                                   "--disable-gpu",
+                                   "--disable-dev-shm-usage",
+                                   "--disable-quic",
+                                   "--no-first-run",
+                                   "--disable-background-networking",
+                                   "--disable-component-update",
+                                   "--disable-sync",
+                                   "--disable-extensions",
+                                   "--hide-scrollbars",
                                    "--user-data-dir=" + scratch + "/" + profile,
-                                   "--enable-logging=stderr", "--v=0",
+                                   "--enable-logging=stderr",
+                                   "--v=0",
                                    "--virtual-time-budget=5000"};
   for (auto& e : extra) argv.push_back(std::move(e));
   argv.push_back(url);
@@ -47,8 +59,9 @@ std::string Attr(const std::string& tag, const std::string& name) {
 
 TEST_CASE("the report renders in headless Chromium without errors", "[report][browser]") {
   if (access(kChromium, X_OK) != 0) {
-    WARN("SKIPPED: " << kChromium << " not found; install the Debian package 'chromium' "
-                     "(tools/dev lists it among the optional installs) to run this check");
+    WARN("SKIPPED: " << kChromium
+                     << " not found; install the Debian package 'chromium' "
+                        "(tools/dev lists it among the optional installs) to run this check");
     return;
   }
   const std::string dir = testing::ScratchDir("report_browser");
@@ -67,7 +80,8 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
   }
 
   const CommandResult dom = Chromium(dir, "profile-dom", {"--dump-dom"}, url);
-  INFO("chromium stderr (tail): " << dom.err.substr(dom.err.size() > 3000 ? dom.err.size() - 3000 : 0));
+  INFO("chromium stderr (tail): " << dom.err.substr(dom.err.size() > 3000 ? dom.err.size() - 3000
+                                                                          : 0));
   REQUIRE(dom.exit_code == 0);
   const size_t at = dom.out.find("id=\"report-status\"");
   REQUIRE(at != std::string::npos);
@@ -119,8 +133,7 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
     const size_t st = sorted.out.find("id=\"report-status\"");
     REQUIRE(st != std::string::npos);
     const size_t st_open = sorted.out.rfind('<', st);
-    const std::string status =
-        sorted.out.substr(st_open, sorted.out.find("</div>", st) - st_open);
+    const std::string status = sorted.out.substr(st_open, sorted.out.find("</div>", st) - st_open);
     INFO("status element: " << status);
     CHECK(Attr(status, "data-errors") == "1");
     CHECK(status.find("deliberatelyMissingFunction") != std::string::npos);
@@ -152,7 +165,8 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
   const std::string png = dir + "/report.png";
   const CommandResult shot =
       Chromium(dir, "profile-shot", {"--window-size=1400,3000", "--screenshot=" + png}, url);
-  INFO("chromium stderr (tail): " << shot.err.substr(shot.err.size() > 3000 ? shot.err.size() - 3000 : 0));
+  INFO("chromium stderr (tail): " << shot.err.substr(shot.err.size() > 3000 ? shot.err.size() - 3000
+                                                                            : 0));
   REQUIRE(shot.exit_code == 0);
   REQUIRE(fs::exists(png));
   const auto size = fs::file_size(png);

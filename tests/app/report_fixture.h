@@ -57,9 +57,9 @@ inline SymbolHistory FixtureSymbol(const std::string& name, const ModelParams& p
     }
     REQUIRE(AppendBarUpdate(u, std::nan(""), &h).ok());
     if (std::fabs(u.z) >= 4.0) {
-      h.alerts.push_back({u.t_ns, "shock", std::fabs(u.z) >= 5.0 ? "critical" : "warning",
-                          std::fabs(u.z), "|z| = " + std::to_string(std::fabs(u.z)) +
-                                              " <b>breach</b> & \"quoted\""});
+      h.alerts.push_back(
+          {u.t_ns, "shock", std::fabs(u.z) >= 5.0 ? "critical" : "warning", std::fabs(u.z),
+           "|z| = " + std::to_string(std::fabs(u.z)) + " <b>breach</b> & \"quoted\""});
     }
   }
   const auto names = p.spec.ParamNames();
@@ -80,8 +80,8 @@ inline SymbolHistory FixtureSymbol(const std::string& name, const ModelParams& p
     h.swaps.push_back(s);
   }
   h.regimes.push_back({h.t_ns[n * 40 / 100 + 20], h.t_ns[n * 55 / 100 + 60], +1});
-  h.alerts.push_back({h.t_ns[n * 40 / 100 + 20], "regime", "warning", 2.1,
-                      "short/long variance ratio 2.1"});
+  h.alerts.push_back(
+      {h.t_ns[n * 40 / 100 + 20], "regime", "warning", 2.1, "short/long variance ratio 2.1"});
   return h;
 }
 
@@ -102,16 +102,19 @@ inline ReportInput FixtureReport(int64_t n) {
       n, 11, 0));
   in.symbols.push_back(FixtureSymbol(
       "OSPREY<&>\"'",
-      FixtureParams("garch", {1, 1}, "t",
-                    {{"mu", 0.001}, {"omega", 1e-3}, {"alpha1", 0.08}, {"beta1", 0.9},
-                     {"nu", 6.0}}),
+      FixtureParams(
+          "garch", {1, 1}, "t",
+          {{"mu", 0.001}, {"omega", 1e-3}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", 6.0}}),
       n, 12, 120));
-  in.symbols.push_back(FixtureSymbol(
-      "HARRIER-9",
-      FixtureParams("gjr", {1, 1, 1}, "t",
-                    {{"mu", 0.0}, {"omega", 1.5e-3}, {"alpha1", 0.03}, {"gamma1", 0.08},
-                     {"beta1", 0.91}, {"nu", 8.0}}),
-      n, 13, 0));
+  in.symbols.push_back(FixtureSymbol("HARRIER-9",
+                                     FixtureParams("gjr", {1, 1, 1}, "t",
+                                                   {{"mu", 0.0},
+                                                    {"omega", 1.5e-3},
+                                                    {"alpha1", 0.03},
+                                                    {"gamma1", 0.08},
+                                                    {"beta1", 0.91},
+                                                    {"nu", 8.0}}),
+                                     n, 13, 0));
   return in;
 }
 
