@@ -40,7 +40,7 @@ namespace aftershock {
 struct ModelSwapRecord {
   int64_t t_ns = 0;                      // bar end at which the swap (or rejection) happened
   uint32_t version = 0;                  // version number given to the parameters (if accepted)
-  std::string model;                     // model label, e.g. "constant/garch(1,1)/t"
+  std::string model;                     // ModelSpec::Label(), e.g. "constant-mean-GARCH(1,1)-t"
   std::vector<std::string> param_names;  // in ModelSpec::ParamNames() order
   std::vector<double> values;            // same length as param_names
   std::vector<double> std_errors;        // same length, or empty; NaN where unknown
