@@ -1,0 +1,285 @@
+// Replay evaluation (PRODUCT.md C8): forecast losses, Mincer-Zarnowitz
+// regressions, VaR exception backtests (Kupiec, Christoffersen, Basel traffic
+// light), an ES ratio check, and alert/refit statistics over the per-symbol
+// history a replay collects.
+//
+// Alignment convention (read this before filling a SymbolHistory):
+//   * var[t] and mu[t] are BarUpdate::var / BarUpdate::mu of bar t: they were
+//     made at bar t-1 for bar t, so they are compared with r[t] as they are.
+//   * var_risk_next[k][t] and es_next[k][t] are BarUpdate::var_risk[k] /
+//     es[k] of bar t, which refer to the NEXT bar t+1. The evaluator lags them
+//     itself: the VaR tested against r[t] is var_risk_next[k][t-1]. Bar 0 has no
+//     VaR forecast and never enters a VaR backtest. Do not pre-shift them.
+//   AppendBarUpdate() fills a history straight from BarUpdate records.
+//
+// Bars whose flags carry kFlagFirstBar (no return), or kFlagWarmup when
+// EvaluationOptions::exclude_warmup is set, or whose inputs are not finite
+// (var <= 0, NaN return) are left out of every statistic. The remaining bars
+// are treated as one consecutive sequence (Christoffersen transitions, rolling
+// windows).
+//
+// All functions are pure and thread-safe; errors come back as Status values.
+#ifndef AFTERSHOCK_EVALUATION_H_
+#define AFTERSHOCK_EVALUATION_H_
+
+#include <cstdint>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include "absl/status/statusor.h"
+#include "absl/types/span.h"
+#include "aftershock/bar_update.h"
+#include "aftershock/innovations.h"
+
+namespace aftershock {
+
+// ---- Input records ---------------------------------------------------------
+
+// One refit outcome: the fit offered to the quality gate and what the gate said.
+struct ModelSwapRecord {
+  int64_t t_ns = 0;                      // bar end at which the swap (or rejection) happened
+  uint32_t version = 0;                  // version number given to the parameters (if accepted)
+  std::string model;                     // ModelSpec::Label(), e.g. "constant-mean-GARCH(1,1)-t"
+  std::vector<std::string> param_names;  // in ModelSpec::ParamNames() order
+  std::vector<double> values;            // same length as param_names
+  std::vector<double> std_errors;        // same length, or empty; NaN where unknown
+  double loglik = 0;                     // log-likelihood of the fit on its window
+  bool accepted = false;                 // true when the gate passed and the swap happened
+  std::string gate_reason;               // why the gate failed (empty when accepted)
+};
+
+// One published alert.
+struct AlertRecord {
+  int64_t t_ns = 0;      // bar end of the triggering bar
+  std::string kind;      // e.g. "shock", "regime", "persistence", "model", "feed"
+  std::string severity;  // e.g. "info", "warning", "critical"
+  double value = 0;      // the number that crossed its bound (|z|, variance ratio, ...)
+  std::string message;   // human-readable text (free text: escaped by the report)
+};
+
+// A volatility regime flagged by the alert rules, [start_ns, end_ns].
+struct RegimePeriod {
+  int64_t start_ns = 0;
+  int64_t end_ns = 0;  // end of the last bar inside the regime (>= start_ns)
+  int direction = 1;   // +1: high-volatility regime, -1: low-volatility regime
+};
+
+// Everything a replay collected for one symbol. Per-bar vectors all have the
+// length of t_ns (rv may be empty). Ownership: plain value type.
+struct SymbolHistory {
+  std::string symbol;
+  std::vector<int64_t> t_ns;     // bar ends, ns since the Unix epoch, nondecreasing
+  std::vector<double> r;         // bar return
+  std::vector<double> mu;        // mean forecast for the bar (made at t-1)
+  std::vector<double> var;       // variance used to standardize the bar (made at t-1)
+  std::vector<double> z;         // standardized shock
+  std::vector<double> var_next;  // variance forecast for the next bar
+  // Realized variance of each bar (same units as r^2), NaN where absent; empty
+  // when the feed has none.
+  std::vector<double> rv;
+  // Confidence levels of the VaR/ES columns, e.g. {0.99, 0.975}.
+  std::vector<double> risk_levels;
+  // [level][bar]: BarUpdate::var_risk / es of bar t, i.e. the forecasts FOR BAR
+  // t+1 (positive losses). The evaluator lags them by one bar (see top).
+  std::vector<std::vector<double>> var_risk_next;
+  std::vector<std::vector<double>> es_next;
+  std::vector<uint32_t> ver;    // model version used for the bar
+  std::vector<uint32_t> flags;  // UpdateFlag bits
+  // Innovation law of the latest model (QQ-plot and density reference).
+  InnovationLaw law;
+  std::vector<ModelSwapRecord> swaps;  // in time order
+  std::vector<AlertRecord> alerts;     // in time order
+  std::vector<RegimePeriod> regimes;   // in time order
+};
+
+// Appends one BarUpdate to *history (its risk levels must match the history's;
+// the first call sets them). `rv` is the bar's realized variance, or NaN.
+// InvalidArgument when the levels differ from the earlier bars'.
+absl::Status AppendBarUpdate(const BarUpdate& update, double rv, SymbolHistory* history);
+
+// ---- Options -----------------------------------------------------------------
+
+struct EvaluationOptions {
+  // Leave out bars flagged kFlagWarmup (EWMA before the first fitted model).
+  // Default true: warm-up numbers are not the model under test.
+  bool exclude_warmup = true;
+  // Confidence level whose exceptions get the Basel traffic light. Default 0.99.
+  double traffic_light_level = 0.99;
+  // Window of the traffic light, in evaluated bars. Default 250 (Basel 1996).
+  int traffic_light_window = 250;
+  // Exceptions in the window from which the zone is yellow / red. Defaults 5 and
+  // 10 (Basel Committee 1996: green 0-4, yellow 5-9, red 10+ at 250 days, 99 %).
+  int yellow_from = 5;
+  int red_from = 10;
+  // Significance level below which a test p-value becomes a warning. Default 0.05.
+  double warn_p_value = 0.05;
+};
+
+// ---- Results -----------------------------------------------------------------
+
+// Mincer-Zarnowitz regression y = a + b h + u (ordinary least squares).
+struct MincerZarnowitz {
+  int64_t n = 0;
+  double intercept = 0, slope = 0;
+  // Classical OLS standard errors (homoskedastic u).
+  double intercept_se = 0, slope_se = 0;
+  // White (HC0) heteroskedasticity-robust standard errors. Under a correct
+  // variance forecast u_t = y_t - h_t is a martingale difference whose variance
+  // grows with h_t, so these are the ones to judge a = 0, b = 1 with.
+  double intercept_se_robust = 0, slope_se_robust = 0;
+  double r_squared = 0;
+};
+
+// Losses of variance forecasts h against a proxy y (r^2 or realized variance).
+struct ForecastLoss {
+  std::string target;  // "r2" or "rv"
+  int64_t n = 0;       // bars used
+  // QLIKE in the form L = log h + y / h (defined for y = 0 too), mean over bars.
+  // It differs from Patton's (2011) normalized form y/h - log(y/h) - 1 by
+  // log y + 1 per bar, which does not depend on the forecast, so rankings agree.
+  double qlike = 0;
+  // Patton's normalized form y/h - log(y/h) - 1 (>= 0, 0 when h = y), mean over
+  // the bars with y > 0 only (the form is undefined at y = 0); n_normalized counts them.
+  double qlike_normalized = 0;
+  int64_t n_normalized = 0;
+  double mse = 0;  // mean of (y - h)^2
+  // The regression of y on h; mz.n == 0 and NaN fields when h has no spread.
+  MincerZarnowitz mz;
+};
+
+// Kupiec and Christoffersen statistics of one exception sequence.
+struct ExceptionTests {
+  int64_t n = 0;           // bars
+  int64_t exceptions = 0;  // x
+  double rate = 0;         // x / n
+  double tail_prob = 0;    // p = 1 - level, the expected rate
+  // Kupiec (1995) proportion of failures:
+  //   LR = -2 ln[(1-p)^(n-x) p^x] + 2 ln[(1-x/n)^(n-x) (x/n)^x], chi2(1).
+  double lr_pof = 0, p_pof = 1;
+  // Christoffersen (1998) first-order Markov transition counts over the n-1
+  // consecutive pairs (n_ij: state i followed by state j, 1 = exception).
+  int64_t n00 = 0, n01 = 0, n10 = 0, n11 = 0;
+  // Independence LR = -2 ln L(pi) + 2 ln L(pi01, pi11), chi2(1), with
+  // pi01 = n01/(n00+n01), pi11 = n11/(n10+n11), pi = (n01+n11)/(n-1).
+  double lr_ind = 0, p_ind = 1;
+  // Conditional coverage LR = lr_pof + lr_ind, chi2(2).
+  double lr_cc = 0, p_cc = 1;
+};
+// Every 0 * log 0 is taken as 0, so x = 0, x = n and empty transition rows are
+// well defined (the affected likelihood factors are 1).
+
+enum class TrafficLightZone { kGreen, kYellow, kRed, kNotApplicable };
+// "green", "yellow", "red", "n/a".
+const char* ZoneName(TrafficLightZone zone);
+
+struct TrafficLight {
+  TrafficLightZone zone = TrafficLightZone::kNotApplicable;  // of the last window
+  int64_t window = 0;             // bars in the last window (<= the option's window)
+  int64_t window_exceptions = 0;  // exceptions in the last window
+  // Over all full rolling windows (one per end bar): how many, and the share
+  // of windows in each zone (0 when there is no full window).
+  int64_t n_windows = 0;
+  double share_green = 0, share_yellow = 0, share_red = 0;
+};
+
+// Backtest of one confidence level.
+struct LevelBacktest {
+  double level = 0;
+  ExceptionTests tests;
+  // Only for EvaluationOptions::traffic_light_level; kNotApplicable otherwise,
+  // and also when fewer bars than the window were evaluated.
+  TrafficLight traffic_light;
+  // Mean of loss / ES over the exception bars (loss = -r > VaR); about 1 when
+  // the ES forecasts are right. NaN when there is no exception with ES > 0.
+  double es_ratio = 0;
+  int64_t es_n = 0;  // exception bars used in es_ratio
+};
+
+struct AlertCount {
+  std::string kind;
+  std::string severity;
+  int64_t count = 0;
+};
+
+struct SwapSummary {
+  int64_t attempts = 0;  // records in SymbolHistory::swaps
+  int64_t accepted = 0;
+  int64_t rejected = 0;
+  uint32_t last_version = 0;  // highest accepted version (0 when none)
+  // Rejections by gate_reason (reason, count), sorted by reason.
+  std::vector<std::pair<std::string, int64_t>> reject_reasons;
+};
+
+// Sample moments of z over the evaluated bars.
+struct ShockMoments {
+  int64_t n = 0;
+  double mean = 0, variance = 0, skewness = 0, excess_kurtosis = 0;
+  double max_abs = 0;
+};
+
+struct SymbolEvaluation {
+  std::string symbol;
+  int64_t bars = 0;       // all bars in the history
+  int64_t evaluated = 0;  // bars that passed the exclusion rules
+  int64_t warmup_bars = 0, fallback_bars = 0;
+  // Against the squared return about its forecast mean, (r - mu)^2 (r^2 for a
+  // zero mean), target "r2".
+  ForecastLoss vs_r2;
+  std::optional<ForecastLoss> vs_rv;  // against realized variance (bars with rv), "rv"
+  std::vector<LevelBacktest> levels;  // one per SymbolHistory::risk_levels entry
+  ShockMoments z;
+  std::vector<AlertCount> alerts;  // sorted by kind, then severity
+  int64_t alerts_total = 0;
+  SwapSummary swaps;
+  double last_var_next = 0;  // var_next of the last bar (NaN if none)
+  // Plain-language findings (a red zone, a rejected test, fallback bars ...).
+  std::vector<std::string> warnings;
+};
+
+// ---- Functions ---------------------------------------------------------------
+
+// Kupiec/Christoffersen on exceptions[t] in {0, 1}. InvalidArgument when empty,
+// when an entry is not 0/1, or tail_prob is not in (0, 1).
+absl::StatusOr<ExceptionTests> TestExceptions(absl::Span<const uint8_t> exceptions,
+                                              double tail_prob);
+
+// Zone of `exceptions` in one window under the options' thresholds.
+TrafficLightZone ZoneOf(int64_t exceptions, const EvaluationOptions& options);
+
+// Last-window zone and rolling-window shares of an exception sequence.
+// InvalidArgument on an empty sequence or a window < 1.
+absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exceptions,
+                                                  const EvaluationOptions& options);
+
+// OLS of y on h with both standard errors. InvalidArgument when the lengths
+// differ, n < 3, a value is not finite, or h has no spread.
+absl::StatusOr<MincerZarnowitz> MincerZarnowitzRegression(absl::Span<const double> y,
+                                                          absl::Span<const double> h);
+
+// QLIKE, MSE and Mincer-Zarnowitz of forecasts h against proxy y (y >= 0,
+// h > 0, finite). InvalidArgument on mismatched lengths, fewer than 3 bars or
+// a value out of range.
+absl::StatusOr<ForecastLoss> EvaluateVarianceForecasts(absl::Span<const double> y,
+                                                       absl::Span<const double> h,
+                                                       const std::string& target);
+
+// Indices of the bars that enter the statistics, in order (the exclusion rules
+// at the top of this file). REQUIRES: the per-bar vectors of `history` have
+// equal lengths (EvaluateSymbol checks this; call it first).
+std::vector<int64_t> UsableBars(const SymbolHistory& history, const EvaluationOptions& options);
+
+// Full evaluation of one symbol. InvalidArgument (naming the symbol and the
+// field) when the per-bar vectors have different lengths, the history is
+// empty, timestamps decrease, a risk level is outside (0.5, 1), or fewer than 3
+// bars survive the exclusion rules.
+absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& history,
+                                                const EvaluationOptions& options);
+
+// chi-square upper tail P(X > x) with `dof` degrees of freedom (Boost.Math);
+// 1 for x <= 0.
+double ChiSquaredSurvival(double x, double dof);
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_EVALUATION_H_

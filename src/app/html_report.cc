@@ -1,0 +1,578 @@
+#include "aftershock/html_report.h"
+
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <fstream>
+#include <limits>
+#include <map>
+#include <nlohmann/json.hpp>
+#include <utility>
+
+#include "absl/strings/str_cat.h"
+#include "absl/strings/str_format.h"
+#include "absl/strings/str_join.h"
+#include "absl/time/time.h"
+#include "app/html_report_assets.h"
+
+namespace aftershock {
+namespace {
+
+using nlohmann::json;
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+constexpr size_t kMaxExceptionMarks = 4000;  // markers drawn per chart
+constexpr size_t kQqTail = 100;              // ranks kept at each end of the QQ plot
+constexpr size_t kQqBody = 400;              // evenly spaced ranks in between
+
+json Num(double v) { return std::isfinite(v) ? json(v) : json(nullptr); }
+
+// A table cell number: printf `fmt` (one double conversion) or an en dash
+// when not finite.
+std::string Fmt(double v, const char* fmt = "%.4g") {
+  if (!std::isfinite(v)) return "\xE2\x80\x93";
+  char buf[64];
+  std::snprintf(buf, sizeof(buf), fmt, v);
+  return buf;
+}
+std::string FmtP(double p) { return Fmt(p, "%.3g"); }
+std::string SortKey(double v) { return std::isfinite(v) ? absl::StrFormat("%.17g", v) : ""; }
+
+// JSON safe inside <script>: no "<", ">" or "&" survive (all are legal as
+// \u escapes inside JSON strings and never appear outside them), and invalid
+// UTF-8 in the input is replaced rather than thrown on.
+std::string EmbedJson(const json& j) {
+  const std::string raw = j.dump(-1, ' ', true, json::error_handler_t::replace);
+  std::string out;
+  out.reserve(raw.size() + raw.size() / 16);
+  for (char c : raw) {
+    switch (c) {
+      case '<':
+        out += "\\u003c";
+        break;
+      case '>':
+        out += "\\u003e";
+        break;
+      case '&':
+        out += "\\u0026";
+        break;
+      default:
+        out += c;
+    }
+  }
+  return out;
+}
+
+// [begin, end) index ranges splitting n bars into at most max_buckets buckets.
+std::vector<std::pair<size_t, size_t>> Buckets(size_t n, size_t max_buckets) {
+  std::vector<std::pair<size_t, size_t>> b;
+  const size_t k = std::max<size_t>(1, std::min(n, max_buckets));
+  b.reserve(k);
+  for (size_t j = 0; j < k; ++j) b.emplace_back(j * n / k, (j + 1) * n / k);
+  return b;
+}
+
+struct MinMax {
+  double lo = kNaN, hi = kNaN;
+  void Add(double v) {
+    if (!std::isfinite(v)) return;
+    if (!(lo <= v)) lo = v;
+    if (!(hi >= v)) hi = v;
+  }
+};
+
+int LevelIndex(const SymbolHistory& h, double level) {
+  for (size_t k = 0; k < h.risk_levels.size(); ++k) {
+    if (std::fabs(h.risk_levels[k] - level) < 1e-9) return static_cast<int>(k);
+  }
+  return -1;
+}
+
+std::string LawLabel(const InnovationLaw& law) {
+  if (law.kind() == Innovations::kStudentT) {
+    return absl::StrFormat("standardized t, \xCE\xBD = %.2f", law.nu());
+  }
+  return "standard normal";
+}
+
+std::string LevelLabel(double level) { return absl::StrFormat("%.4g %%", 100.0 * level); }
+
+// Everything the page script draws for one symbol.
+json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportOptions& opt,
+               int* charts) {
+  const size_t n = h.t_ns.size();
+  bool time_axis = n > 1;
+  for (size_t i = 1; i < n && time_axis; ++i) time_axis = h.t_ns[i] > h.t_ns[i - 1];
+  auto x_of = [&](size_t i) { return time_axis ? h.t_ns[i] / 1e6 : static_cast<double>(i); };
+  // x of an event time: the time itself, or the first bar at or after it.
+  auto x_at = [&](int64_t t) {
+    if (time_axis) return t / 1e6;
+    const size_t i = std::lower_bound(h.t_ns.begin(), h.t_ns.end(), t) - h.t_ns.begin();
+    return static_cast<double>(std::min(i, n - 1));
+  };
+  const std::vector<int64_t> used = UsableBars(h, opt.evaluation);
+  const int lv = LevelIndex(h, opt.var_level);
+  const double ppy = opt.periods_per_year;
+  const double vol_scale = ppy > 0 ? std::sqrt(ppy) : 1.0;
+
+  json d;
+  d["time_axis"] = time_axis;
+  d["law"] = LawLabel(h.law);
+  d["var_level"] = LevelLabel(opt.var_level);
+  d["band_sigmas"] = opt.band_sigmas;
+  d["annualized"] = ppy > 0;
+  d["ppy"] = ppy;
+
+  // (a) returns, bands and exceptions; (b) volatility.
+  const auto buckets = Buckets(n, static_cast<size_t>(opt.max_points / 2));
+  json xs = json::array(), lo = json::array(), hi = json::array(), bu = json::array(),
+       bl = json::array(), nv = json::array(), vlo = json::array(), vhi = json::array();
+  for (const auto& [b, e] : buckets) {
+    MinMax r, up, dn, var, vol;
+    for (size_t i = b; i < e; ++i) {
+      r.Add(h.r[i]);
+      if (h.var[i] > 0) {
+        const double sd = std::sqrt(h.var[i]);
+        up.Add(h.mu[i] + opt.band_sigmas * sd);
+        dn.Add(h.mu[i] - opt.band_sigmas * sd);
+        vol.Add(sd * vol_scale);
+      }
+      if (lv >= 0 && i > 0) var.Add(-h.var_risk_next[lv][i - 1]);
+    }
+    xs.push_back(x_of(b));
+    lo.push_back(Num(r.lo));
+    hi.push_back(Num(r.hi));
+    bu.push_back(Num(up.hi));
+    bl.push_back(Num(dn.lo));
+    nv.push_back(Num(var.lo));
+    vlo.push_back(Num(vol.lo));
+    vhi.push_back(Num(vol.hi));
+  }
+  json exc = json::array();
+  int64_t n_exc = 0;
+  if (lv >= 0) {
+    for (int64_t i : used) {
+      if (i == 0) continue;
+      const double v = h.var_risk_next[lv][i - 1];
+      if (std::isfinite(v) && -h.r[i] > v) {
+        ++n_exc;
+        if (exc.size() < kMaxExceptionMarks) exc.push_back({x_of(i), h.r[i]});
+      }
+    }
+  }
+  d["returns"] = {{"x", xs},    {"lo", lo},      {"hi", hi},
+                  {"bu", bu},   {"bl", bl},      {"nv", lv >= 0 ? nv : json(nullptr)},
+                  {"exc", exc}, {"n_exc", n_exc}};
+  json regimes = json::array();
+  for (const auto& g : h.regimes)
+    regimes.push_back({x_at(g.start_ns), x_at(g.end_ns), g.direction});
+  json swaps = json::array();
+  for (const auto& s : h.swaps) swaps.push_back({x_at(s.t_ns), s.version, s.accepted});
+  d["vol"] = {{"x", xs}, {"lo", vlo}, {"hi", vhi}, {"regimes", regimes}, {"swaps", swaps}};
+  *charts += 2;
+
+  // (c) QQ plot and (d) histogram of z.
+  std::vector<double> z;
+  z.reserve(used.size());
+  for (int64_t i : used) z.push_back(h.z[i]);
+  std::sort(z.begin(), z.end());
+  const size_t m = z.size();
+  json qq = json::array();
+  auto add_rank = [&](size_t k) {
+    const double p = (static_cast<double>(k) + 0.5) / static_cast<double>(m);
+    const double q = h.law.Quantile(p);
+    if (std::isfinite(q)) qq.push_back({q, z[k]});
+  };
+  if (m <= 2 * kQqTail + kQqBody) {
+    for (size_t k = 0; k < m; ++k) add_rank(k);
+  } else {
+    for (size_t k = 0; k < kQqTail; ++k) add_rank(k);
+    for (size_t j = 0; j < kQqBody; ++j) {
+      add_rank(kQqTail + j * (m - 2 * kQqTail) / kQqBody);
+    }
+    for (size_t k = m - kQqTail; k < m; ++k) add_rank(k);
+  }
+  d["qq"] = qq;
+  const double half = std::max(4.0, std::min(8.0, std::ceil(ev.z.max_abs)));
+  const int nbins = static_cast<int>(std::lround(half * 2 / 0.25));
+  const double width = 2 * half / nbins;
+  std::vector<int64_t> counts(nbins, 0);
+  int64_t outside = 0;
+  for (double v : z) {
+    const int b = static_cast<int>(std::floor((v + half) / width));
+    if (b >= 0 && b < nbins) {
+      ++counts[b];
+    } else {
+      ++outside;
+    }
+  }
+  json dens = json::array(), curve = json::array();
+  for (int b = 0; b < nbins; ++b) {
+    dens.push_back(m > 0 ? counts[b] / (static_cast<double>(m) * width) : 0.0);
+  }
+  for (int k = 0; k <= 240; ++k) {
+    const double x = -half + 2 * half * k / 240.0;
+    curve.push_back({x, Num(h.law.Density(x))});
+  }
+  d["hist"] = {{"lo", -half},    {"width", width},     {"density", dens},
+               {"curve", curve}, {"outside", outside}, {"n", m}};
+  *charts += 2;
+
+  // (e) parameter history across accepted refits.
+  std::vector<std::string> names;
+  std::map<std::string, json> series;
+  for (const auto& s : h.swaps) {
+    if (!s.accepted) continue;
+    for (size_t k = 0; k < s.param_names.size() && k < s.values.size(); ++k) {
+      const std::string& nm = s.param_names[k];
+      if (!series.count(nm)) {
+        names.push_back(nm);
+        series[nm] = json::array();
+      }
+      const double se = k < s.std_errors.size() ? s.std_errors[k] : kNaN;
+      series[nm].push_back({x_at(s.t_ns), Num(s.values[k]), Num(se)});
+    }
+  }
+  json params = json::array();
+  for (const auto& nm : names) params.push_back({{"name", nm}, {"points", series[nm]}});
+  const bool params_chart = ev.swaps.accepted >= 2 && !names.empty();
+  d["params"] = params_chart ? params : json(nullptr);
+  if (params_chart) *charts += 1;
+  return d;
+}
+
+// "YYYY-MM-DD HH:MM:SS" in UTC.
+std::string UtcTime(int64_t t_ns) {
+  return absl::FormatTime("%Y-%m-%d %H:%M:%S", absl::FromUnixNanos(t_ns), absl::UTCTimeZone());
+}
+
+std::string ZoneChip(TrafficLightZone zone) {
+  return absl::StrCat("<span class=\"chip zone-",
+                      ZoneName(zone) == std::string("n/a") ? "na" : ZoneName(zone), "\">",
+                      ZoneName(zone), "</span>");
+}
+
+int ZoneRank(TrafficLightZone z) {
+  switch (z) {
+    case TrafficLightZone::kGreen:
+      return 0;
+    case TrafficLightZone::kYellow:
+      return 1;
+    case TrafficLightZone::kRed:
+      return 2;
+    default:
+      return -1;
+  }
+}
+
+std::string Td(const std::string& text, const std::string& key = "", bool num = true) {
+  return absl::StrCat("<td", num ? " class=\"num\"" : "",
+                      key.empty() ? "" : absl::StrCat(" data-v=\"", HtmlEscape(key), "\""), ">",
+                      text, "</td>");
+}
+
+std::string LrCell(double lr, double p) { return absl::StrCat(Fmt(lr), " (", FmtP(p), ")"); }
+
+std::string BacktestTable(const SymbolEvaluation& ev) {
+  std::string s =
+      "<table class=\"grid\"><caption>VaR backtests (forecast made at the previous bar; "
+      "exception when the loss &minus;r exceeds it)</caption><thead><tr><th>level</th>"
+      "<th>bars</th><th>exceptions (expected)</th><th>rate</th><th>Kupiec LR (p)</th>"
+      "<th>n00 / n01 / n10 / n11</th><th>Christoffersen LR (p)</th>"
+      "<th>cond. coverage LR (p)</th><th>zone, last window</th>"
+      "<th>rolling windows green / yellow / red</th><th>ES ratio (n)</th></tr></thead><tbody>";
+  for (const auto& lb : ev.levels) {
+    const auto& t = lb.tests;
+    const auto& tl = lb.traffic_light;
+    std::string windows =
+        tl.n_windows > 0 ? absl::StrFormat("%.1f / %.1f / %.1f %% of %d", 100 * tl.share_green,
+                                           100 * tl.share_yellow, 100 * tl.share_red, tl.n_windows)
+                         : "\xE2\x80\x93";
+    std::string zone =
+        tl.zone == TrafficLightZone::kNotApplicable
+            ? ZoneChip(tl.zone)
+            : absl::StrCat(ZoneChip(tl.zone), " ", tl.window_exceptions, " in ", tl.window);
+    absl::StrAppend(&s, "<tr>", Td(LevelLabel(lb.level)), Td(absl::StrCat(t.n)),
+                    Td(absl::StrCat(t.exceptions, " (",
+                                    Fmt(t.tail_prob * static_cast<double>(t.n), "%.1f"), ")")),
+                    Td(Fmt(t.rate, "%.4f")), Td(LrCell(t.lr_pof, t.p_pof)),
+                    Td(absl::StrCat(t.n00, " / ", t.n01, " / ", t.n10, " / ", t.n11)),
+                    Td(LrCell(t.lr_ind, t.p_ind)), Td(LrCell(t.lr_cc, t.p_cc)), Td(zone, "", false),
+                    Td(windows), Td(absl::StrCat(Fmt(lb.es_ratio, "%.3f"), " (", lb.es_n, ")")),
+                    "</tr>");
+  }
+  s += "</tbody></table>";
+  return s;
+}
+
+std::string ForecastRow(const ForecastLoss& f) {
+  const auto& mz = f.mz;
+  return absl::StrCat(
+      "<tr>", Td(f.target == "rv" ? "realized variance" : "(r &minus; &mu;)&sup2;", "", false),
+      Td(absl::StrCat(f.n)), Td(Fmt(f.qlike, "%.6g")),
+      Td(absl::StrCat(Fmt(f.qlike_normalized, "%.5g"), " (", f.n_normalized, ")")),
+      Td(Fmt(f.mse, "%.5g")),
+      Td(absl::StrCat(Fmt(mz.intercept, "%.4g"), " (", Fmt(mz.intercept_se, "%.2g"), "; ",
+                      Fmt(mz.intercept_se_robust, "%.2g"), ")")),
+      Td(absl::StrCat(Fmt(mz.slope, "%.4g"), " (", Fmt(mz.slope_se, "%.2g"), "; ",
+                      Fmt(mz.slope_se_robust, "%.2g"), ")")),
+      Td(Fmt(mz.r_squared, "%.4f")), "</tr>");
+}
+
+std::string ForecastTable(const SymbolEvaluation& ev) {
+  std::string s =
+      "<table class=\"grid\"><caption>Variance forecast evaluation (forecast h = variance "
+      "used for the bar, made at the previous bar)</caption><thead><tr><th>target y</th>"
+      "<th>bars</th><th>QLIKE: mean log h + y/h</th><th>QLIKE: mean y/h &minus; log(y/h) "
+      "&minus; 1 (bars with y &gt; 0)</th><th>MSE</th><th>MZ intercept (s.e.; robust s.e.)"
+      "</th><th>MZ slope (s.e.; robust s.e.)</th><th>MZ R&sup2;</th></tr></thead><tbody>";
+  s += ForecastRow(ev.vs_r2);
+  if (ev.vs_rv) s += ForecastRow(*ev.vs_rv);
+  s += "</tbody></table>";
+  const auto& z = ev.z;
+  absl::StrAppend(&s,
+                  "<table class=\"grid\"><caption>Standardized shocks z</caption><thead><tr>"
+                  "<th>bars</th><th>mean</th><th>variance</th><th>skewness</th>"
+                  "<th>excess kurtosis</th><th>max |z|</th></tr></thead><tbody><tr>",
+                  Td(absl::StrCat(z.n)), Td(Fmt(z.mean)), Td(Fmt(z.variance)), Td(Fmt(z.skewness)),
+                  Td(Fmt(z.excess_kurtosis)), Td(Fmt(z.max_abs)), "</tr></tbody></table>");
+  return s;
+}
+
+std::string AlertTable(const SymbolEvaluation& ev) {
+  std::string s = "<table class=\"grid\"><caption>Alerts (" + std::to_string(ev.alerts_total) +
+                  " in total)</caption><thead><tr><th>kind</th><th>severity</th><th>count</th>"
+                  "</tr></thead><tbody>";
+  if (ev.alerts.empty()) s += "<tr><td colspan=\"3\">no alerts</td></tr>";
+  for (const auto& a : ev.alerts) {
+    absl::StrAppend(&s, "<tr>", Td(HtmlEscape(a.kind), "", false),
+                    Td(HtmlEscape(a.severity), "", false), Td(absl::StrCat(a.count)), "</tr>");
+  }
+  s += "</tbody></table>";
+  return s;
+}
+
+std::string SwapTable(const SymbolHistory& h, const SymbolEvaluation& ev) {
+  std::string s = absl::StrCat(
+      "<table class=\"grid\"><caption>Refits: ", ev.swaps.attempts, " offered, ", ev.swaps.accepted,
+      " swapped in, ", ev.swaps.rejected,
+      " rejected by the gate</caption><thead><tr><th>bar end (UTC)</th><th>version</th>"
+      "<th>model</th><th>estimates (s.e.)</th><th>log-likelihood</th><th>gate</th></tr>"
+      "</thead><tbody>");
+  if (h.swaps.empty()) s += "<tr><td colspan=\"6\">no refits</td></tr>";
+  for (const auto& w : h.swaps) {
+    std::vector<std::string> est;
+    for (size_t k = 0; k < w.param_names.size() && k < w.values.size(); ++k) {
+      std::string e = absl::StrCat(HtmlEscape(w.param_names[k]), " = ", Fmt(w.values[k], "%.5g"));
+      if (k < w.std_errors.size() && std::isfinite(w.std_errors[k])) {
+        absl::StrAppend(&e, " (", Fmt(w.std_errors[k], "%.2g"), ")");
+      }
+      est.push_back(e);
+    }
+    const std::string gate = w.accepted
+                                 ? "<span class=\"chip gate-pass\">passed</span>"
+                                 : absl::StrCat("<span class=\"chip gate-fail\">failed</span> ",
+                                                HtmlEscape(w.gate_reason));
+    absl::StrAppend(&s, "<tr>", Td(UtcTime(w.t_ns)),
+                    Td(w.accepted ? absl::StrCat(w.version) : "\xE2\x80\x93"),
+                    Td(HtmlEscape(w.model), "", false), Td(absl::StrJoin(est, ", "), "", false),
+                    Td(Fmt(w.loglik, "%.6g")), Td(gate, "", false), "</tr>");
+  }
+  s += "</tbody></table>";
+  return s;
+}
+
+}  // namespace
+
+std::string HtmlEscape(const std::string& text) {
+  std::string out;
+  out.reserve(text.size());
+  for (char c : text) {
+    switch (c) {
+      case '&':
+        out += "&amp;";
+        break;
+      case '<':
+        out += "&lt;";
+        break;
+      case '>':
+        out += "&gt;";
+        break;
+      case '"':
+        out += "&quot;";
+        break;
+      case '\'':
+        out += "&#39;";
+        break;
+      default:
+        out += c;
+    }
+  }
+  return out;
+}
+
+absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
+  if (in.symbols.empty()) {
+    return absl::InvalidArgumentError("report: no symbols to report on");
+  }
+  const ReportOptions& opt = in.options;
+  if (opt.max_points < 100) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("report: max_points is ", opt.max_points, ", expected >= 100"));
+  }
+  if (!(opt.periods_per_year >= 0) || !std::isfinite(opt.periods_per_year)) {
+    return absl::InvalidArgumentError("report: periods_per_year must be finite and >= 0");
+  }
+  if (!(opt.band_sigmas > 0) || !std::isfinite(opt.band_sigmas)) {
+    return absl::InvalidArgumentError("report: band_sigmas must be finite and > 0");
+  }
+  const std::string vol_unit =
+      opt.periods_per_year > 0 ? absl::StrFormat("annualized, %g bars/year", opt.periods_per_year)
+                               : std::string("per bar");
+
+  int charts = 0;
+  int64_t total_bars = 0;
+  json data = json::array();
+  std::string overview, sections;
+  for (size_t si = 0; si < in.symbols.size(); ++si) {
+    const SymbolHistory& h = in.symbols[si];
+    total_bars += static_cast<int64_t>(h.t_ns.size());
+    const std::string sym = HtmlEscape(h.symbol);
+    const std::string anchor = absl::StrCat("sym-", si);
+    auto ev = EvaluateSymbol(h, opt.evaluation);
+    if (!ev.ok()) {
+      absl::StrAppend(
+          &overview, "<tr>",
+          Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
+          Td(absl::StrCat(h.t_ns.size()), std::to_string(h.t_ns.size())), "<td colspan=\"6\"></td>",
+          Td(absl::StrCat("evaluation failed: ", HtmlEscape(std::string(ev.status().message()))),
+             "9", false),
+          "</tr>");
+      absl::StrAppend(&sections, "<section class=\"symbol\" id=\"", anchor, "\"><h2>", sym,
+                      "</h2><p class=\"failed\">Evaluation failed: ",
+                      HtmlEscape(std::string(ev.status().message())), "</p></section>");
+      data.push_back(nullptr);
+      continue;
+    }
+    const int lv = LevelIndex(h, opt.var_level);
+    const LevelBacktest* b = lv >= 0 ? &ev->levels[lv] : nullptr;
+    const double last_vol = std::sqrt(ev->last_var_next) *
+                            (opt.periods_per_year > 0 ? std::sqrt(opt.periods_per_year) : 1.0);
+    const TrafficLightZone zone = b ? b->traffic_light.zone : TrafficLightZone::kNotApplicable;
+    std::string warn_text =
+        ev->warnings.empty() ? std::string("none") : HtmlEscape(absl::StrJoin(ev->warnings, "; "));
+    absl::StrAppend(&overview, "<tr>",
+                    Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
+                    Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
+                    Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
+                       b ? absl::StrCat(b->tests.exceptions) : ""),
+                    Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
+                    Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
+                    Td(ZoneChip(zone), absl::StrCat(ZoneRank(zone)), false),
+                    Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
+                    Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
+                    Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
+
+    const int before = charts;
+    json d = ChartData(h, *ev, opt, &charts);
+    d["symbol"] = h.symbol;
+    data.push_back(d);
+    absl::StrAppend(&sections, "<section class=\"symbol\" id=\"", anchor, "\"><h2>", sym, "</h2>",
+                    "<p class=\"meta\">", ev->bars, " bars, ", ev->evaluated, " evaluated (",
+                    ev->warmup_bars, " warm-up, ", ev->fallback_bars,
+                    " on fallback); innovation law of "
+                    "the latest model: ",
+                    HtmlEscape(LawLabel(h.law)), "; last model version ",
+                    h.ver.empty() ? 0u : h.ver.back(), ".</p>");
+    if (!ev->warnings.empty()) {
+      sections += "<ul class=\"warnings\">";
+      for (const auto& w : ev->warnings) absl::StrAppend(&sections, "<li>", HtmlEscape(w), "</li>");
+      sections += "</ul>";
+    }
+    absl::StrAppend(&sections, "<div class=\"charts\" data-symbol-index=\"", si,
+                    "\" data-charts=\"", charts - before, "\"></div>");
+    absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), ForecastTable(*ev),
+                    "<div class=\"pair\">", AlertTable(*ev), "</div>", SwapTable(h, *ev),
+                    "</div></section>");
+  }
+
+  json meta = {{"vol_unit", vol_unit}};
+  std::string page;
+  page.reserve(1 << 16);
+  absl::StrAppend(&page, "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">",
+                  "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
+                  "<title>", HtmlEscape(in.run.title), "</title>", "<style>", kReportCss,
+                  "</style><script>", kReportErrorHooks, "</script></head><body>");
+  absl::StrAppend(&page, "<header><h1>", HtmlEscape(in.run.title), "</h1><dl class=\"run\">");
+  auto run_item = [&](const char* k, const std::string& v) {
+    if (!v.empty()) {
+      absl::StrAppend(&page, "<div><dt>", k, "</dt><dd>", HtmlEscape(v), "</dd></div>");
+    }
+  };
+  run_item("input", in.run.input_file);
+  run_item("symbols", std::to_string(in.symbols.size()));
+  run_item("bars", std::to_string(total_bars));
+  if (in.run.replay_speed > 0) {
+    run_item("replay speed", absl::StrFormat("%.4g bars/s", in.run.replay_speed));
+  }
+  run_item("volatility", vol_unit);
+  run_item("generated", in.run.generated_at);
+  run_item("engine", in.run.engine_version);
+  page += "</dl>";
+  if (!in.run.config_summary.empty()) {
+    absl::StrAppend(&page, "<details class=\"config\"><summary>configuration</summary><pre>",
+                    HtmlEscape(in.run.config_summary), "</pre></details>");
+  }
+  absl::StrAppend(
+      &page, "</header><main><section class=\"overview\"><h2>Overview</h2>",
+      "<p class=\"hint\">Click a column header to sort. Exceptions, Kupiec and Christoffersen "
+      "at ",
+      LevelLabel(opt.var_level), "; zone over the last ", opt.evaluation.traffic_light_window,
+      " evaluated bars at ", LevelLabel(opt.evaluation.traffic_light_level), " (green 0&ndash;",
+      opt.evaluation.yellow_from - 1, ", yellow ", opt.evaluation.yellow_from, "&ndash;",
+      opt.evaluation.red_from - 1, ", red ", opt.evaluation.red_from, "+ exceptions).</p>",
+      "<table class=\"grid sortable\" id=\"overview\"><thead><tr>",
+      "<th data-type=\"text\">symbol</th><th data-type=\"num\">bars</th>",
+      "<th data-type=\"num\">exceptions @", LevelLabel(opt.var_level), "</th>",
+      "<th data-type=\"num\">Kupiec p</th><th data-type=\"num\">Christoffersen p</th>",
+      "<th data-type=\"num\">zone</th><th data-type=\"num\">QLIKE</th>",
+      "<th data-type=\"num\">last vol (", vol_unit, ")</th>",
+      "<th data-type=\"num\">warnings</th></tr></thead><tbody>", overview,
+      "</tbody></table></section>", sections, "</main>");
+  absl::StrAppend(
+      &page,
+      "<footer><p><strong>Caution.</strong> Everything in this report is a statistical "
+      "estimate, not advice. Volatility models fail in crises, exactly when they matter most; "
+      "their parameters are estimated with error, and a backtest that passes on history does "
+      "not guarantee future coverage. Any use of these numbers for trading decisions or risk "
+      "limits must follow the firm's own model-risk policy and the applicable regulation.</p>"
+      "</footer>");
+  absl::StrAppend(&page,
+                  "<div id=\"report-status\" hidden data-errors=\"0\" "
+                  "data-charts-rendered=\"0\" data-charts-expected=\"",
+                  charts, "\"></div>");
+  absl::StrAppend(&page, "<script type=\"application/json\" id=\"report-data\">",
+                  EmbedJson({{"meta", meta}, {"symbols", data}}), "</script><script>",
+                  kReportScript, "</script></body></html>\n");
+  return page;
+}
+
+absl::Status WriteHtmlReport(const ReportInput& input, const std::string& path) {
+  auto page = RenderHtmlReport(input);
+  if (!page.ok()) return page.status();
+  const std::string tmp = path + ".tmp";
+  {
+    std::ofstream f(tmp, std::ios::binary | std::ios::trunc);
+    if (!f) return absl::InternalError(absl::StrCat("report: cannot open '", tmp, "' to write"));
+    f.write(page->data(), static_cast<std::streamsize>(page->size()));
+    f.flush();
+    if (!f) return absl::InternalError(absl::StrCat("report: writing '", tmp, "' failed"));
+  }
+  if (std::rename(tmp.c_str(), path.c_str()) != 0) {
+    std::remove(tmp.c_str());
+    return absl::InternalError(absl::StrCat("report: cannot rename '", tmp, "' to '", path, "'"));
+  }
+  return absl::OkStatus();
+}
+
+}  // namespace aftershock

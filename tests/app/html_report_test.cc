@@ -1,0 +1,129 @@
+#include "aftershock/html_report.h"
+
+#include <algorithm>
+#include <catch2/catch.hpp>
+#include <regex>
+
+#include "app/report_fixture.h"
+#include "support/test_support.h"
+
+namespace aftershock {
+namespace {
+
+using testing::FixtureReport;
+
+bool Contains(const std::string& s, const std::string& what) {
+  return s.find(what) != std::string::npos;
+}
+
+TEST_CASE("HtmlEscape escapes the five metacharacters", "[report]") {
+  CHECK(HtmlEscape("a<b>&\"c'") == "a&lt;b&gt;&amp;&quot;c&#39;");
+  CHECK(HtmlEscape("plain") == "plain");
+}
+
+TEST_CASE("the report is one self-contained page", "[report]") {
+  const ReportInput in = FixtureReport(3000);
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  const std::string& html = *page;
+  CHECK(html.rfind("<!DOCTYPE html>", 0) == 0);
+  // No external resource of any kind: no src/href to another document (only
+  // in-page anchors), no url() outside the in-page clip paths, no fetch.
+  CHECK_FALSE(Contains(html, "src="));
+  // The SVG namespace URI is a name passed to createElementNS, never loaded;
+  // it must be the only URL in the page.
+  std::string no_ns = html;
+  const std::string ns = "'http://www.w3.org/2000/svg'";
+  for (size_t p = no_ns.find(ns); p != std::string::npos; p = no_ns.find(ns))
+    no_ns.erase(p, ns.size());
+  CHECK(no_ns.size() == html.size() - ns.size());  // exactly one occurrence
+  CHECK_FALSE(Contains(no_ns, "http://"));
+  CHECK_FALSE(Contains(no_ns, "https://"));
+  CHECK_FALSE(Contains(no_ns, "www."));
+  CHECK_FALSE(Contains(html, "fetch("));
+  CHECK_FALSE(Contains(html, "XMLHttpRequest"));
+  CHECK_FALSE(Contains(html, "@import"));
+  const std::regex href("href=\"([^\"]*)\"");
+  for (auto it = std::sregex_iterator(html.begin(), html.end(), href); it != std::sregex_iterator();
+       ++it) {
+    INFO((*it)[1].str());
+    CHECK((*it)[1].str().rfind("#", 0) == 0);
+  }
+  // Header, overview, sections and the caution.
+  CHECK(Contains(html, "<h1>Replay evaluation: harbour desk scenario</h1>"));
+  CHECK(Contains(html, "replays/harbour_&lt;week&gt;.bin"));
+  CHECK(Contains(html, "5.2e+06 bars/s"));
+  CHECK(Contains(html, "id=\"overview\""));
+  CHECK(Contains(html, "not advice"));
+  CHECK(Contains(html, "model-risk policy"));
+  CHECK(Contains(html, "data-charts-expected=\"15\""));  // 3 x (4 + parameter history)
+  // Strings from the input are escaped in HTML ...
+  CHECK(Contains(html, "<h2>OSPREY&lt;&amp;&gt;&quot;&#39;</h2>"));
+  CHECK_FALSE(Contains(html, "OSPREY<&>"));
+  CHECK(Contains(html, "Ljung-Box on z^2 failed &lt;p=0.001&gt;"));
+  CHECK_FALSE(Contains(html, "<b>breach</b>"));
+  // ... and in the embedded JSON, where no '<' may appear inside the data block.
+  const size_t a = html.find("<script type=\"application/json\" id=\"report-data\">");
+  REQUIRE(a != std::string::npos);
+  const size_t b = html.find("</script>", a);
+  const std::string block = html.substr(a + 50, b - a - 50);
+  CHECK(block.find('<') == std::string::npos);
+  CHECK(Contains(block, "OSPREY\\u003c\\u0026\\u003e\\\"'"));
+}
+
+TEST_CASE("a symbol that cannot be evaluated is listed with its error", "[report]") {
+  ReportInput in = FixtureReport(1000);
+  in.symbols[1].z.pop_back();
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  CHECK(Contains(*page,
+                 "Evaluation failed: evaluation of &#39;OSPREY&lt;&amp;&gt;&quot;&#39;&#39;: "
+                 "field &#39;z&#39; has 999 entries, t_ns has 1000"));
+  CHECK(Contains(*page, "data-charts-expected=\"10\""));
+}
+
+TEST_CASE("drawn series are downsampled, statistics are not", "[report]") {
+  ReportInput in = FixtureReport(20000);
+  in.options.max_points = 400;
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  // 200 buckets of min/max: the x array of the returns has 200 entries.
+  const size_t a = page->find("\"returns\":{\"bl\":[");
+  REQUIRE(a != std::string::npos);
+  const size_t b = page->find(']', a);
+  const std::string bl = page->substr(a, b - a);
+  CHECK(std::count(bl.begin(), bl.end(), ',') == 199);
+  // The overview still counts every bar.
+  CHECK(Contains(*page, "data-v=\"20000\""));
+}
+
+TEST_CASE("a long replay gives a page whose size does not grow with the bars", "[report]") {
+  // 3 x 100,000 bars: every drawn series is capped at max_points, the QQ plot
+  // at 600 points and the exception markers at 4,000 per symbol, so the page
+  // stays a few hundred kB (the returns alone would be several MB).
+  auto page = RenderHtmlReport(FixtureReport(100000));
+  REQUIRE(page.ok());
+  WARN("report of 3 x 100,000 bars: " << page->size() << " bytes");
+  CHECK(page->size() < 1500 * 1024);
+  auto small = RenderHtmlReport(FixtureReport(10000));
+  REQUIRE(small.ok());
+  CHECK(page->size() < 2 * small->size());
+}
+
+TEST_CASE("bad report input is refused with a clear message", "[report]") {
+  ReportInput empty;
+  auto e = RenderHtmlReport(empty);
+  REQUIRE_FALSE(e.ok());
+  CHECK(std::string(e.status().message()) == "report: no symbols to report on");
+  ReportInput in = FixtureReport(500);
+  in.options.max_points = 10;
+  auto m = RenderHtmlReport(in);
+  REQUIRE_FALSE(m.ok());
+  CHECK(std::string(m.status().message()) == "report: max_points is 10, expected >= 100");
+  auto w = WriteHtmlReport(FixtureReport(500), "/nonexistent-dir/report.html");
+  REQUIRE_FALSE(w.ok());
+  CHECK(Contains(std::string(w.message()), "/nonexistent-dir/report.html.tmp"));
+}
+
+}  // namespace
+}  // namespace aftershock
