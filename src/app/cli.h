@@ -11,6 +11,8 @@ int Main(int argc, char** argv);
 // Subcommands (one file each in src/app/).
 int FitCommand(int argc, char** argv);       // fit_command.cc
 int DemoCommand(int argc, char** argv);      // demo_command.cc
+int RunCommand(int argc, char** argv);       // run_command.cc
+int ReplayCommand(int argc, char** argv);    // replay_command.cc
 
 }  // namespace aftershock::app
 
