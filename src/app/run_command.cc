@@ -55,8 +55,14 @@ int RunCommand(int argc, char** argv) {
   }
   auto engine = Engine::CreateFromConfig(*config);
   if (!engine.ok()) return Fail(engine.status(), 2);
-  std::fprintf(stderr, "aftershock run: %s; bound %s\n", plan.c_str(),
-               (*engine)->BoundEndpoint().c_str());
+  // Printed from inside the loop, so a reader of this line knows that the
+  // signal handlers are installed and ingest is live.
+  Engine* e = engine->get();
+  e->Post([e, plan] {
+    std::fprintf(stderr, "aftershock run: running: %s; bound %s\n", plan.c_str(),
+                 e->BoundEndpoint().c_str());
+    std::fflush(stderr);
+  });
   absl::Status st = (*engine)->Run();
   const EngineCounters& c = (*engine)->core()->counters();
   std::fprintf(stderr,
