@@ -157,14 +157,24 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
   u.symbol = slot.symbol;
   u.t_ns = bar.t_end_ns;
   u.flags = flags | slot.status_flags;
-  // Kept so that a step producing a non-finite value (an absurd return) does
-  // not poison the symbol: the bar is dropped and the state restored.
-  const FilterState before = slot.filter;
+  // A step producing a non-finite value must not poison the symbol: the bar is
+  // dropped (non_finite_output) and the state restored. Only an absurd return
+  // (|r| >= 1e100) can overflow a recursion with persistence < 1, so only then
+  // is the state copied first; otherwise the symbol restarts its filter.
+  const bool absurd = !(std::fabs(r) < 1e100);
+  FilterState before;
+  if (absurd) before = slot.filter;
   FilterStep(model, &slot.filter, r, &u);
   if (!std::isfinite(slot.filter.var.next_variance) || !std::isfinite(slot.filter.mu_next) ||
       !std::isfinite(u.z)) {
-    slot.filter = before;
     ++counters_.non_finite_output;
+    if (absurd) {
+      slot.filter = before;
+    } else if (model.is_ewma()) {
+      slot.filter_ready = false;
+    } else {
+      InitFilterState(model, 0.0, &slot.filter);
+    }
     return;
   }
   ++slot.filtered;
