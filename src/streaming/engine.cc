@@ -91,6 +91,7 @@ absl::Status Engine::Run() {
   // Readiness: drain up to `round` messages; if the round was full or
   // ZMQ_EVENTS still reports input, continue via post() (timers and signals
   // get their turn in between), else wait for the next edge.
+  const int fd = source_->ReadinessFd();
   std::function<void()> arm;
   std::function<void()> drain = [&] {
     if (L.stop_requested.load()) return;
@@ -100,7 +101,7 @@ absl::Status Engine::Run() {
       L.io.stop();
       return;
     }
-    if (n >= round || source_->MaybePending()) {
+    if (n >= round || fd < 0 || source_->MaybePending()) {
       asio::post(L.io, drain);
     } else {
       arm();
@@ -113,7 +114,6 @@ absl::Status Engine::Run() {
                             });
   };
 
-  const int fd = source_->ReadinessFd();
   if (fd >= 0) {
     if (!L.readiness) L.readiness = std::make_unique<asio::posix::stream_descriptor>(L.io, fd);
     // Input may already be queued (the edge may have passed before we waited).

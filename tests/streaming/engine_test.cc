@@ -10,6 +10,8 @@
 #include <thread>
 #include <zmq.hpp>
 
+#include "absl/strings/str_cat.h"
+#include "aftershock/tick_file.h"
 #include "aftershock/update_codec.h"
 #include "aftershock/wire.h"
 #include "aftershock/zmq_transport.h"
@@ -254,6 +256,31 @@ TEST_CASE("a subscriber that never reads does not block ingest; drops are counte
   CHECK(c.drops > 0);
   CHECK(c.updates_out + c.drops == c.bars);
   CHECK(secs < 20);
+}
+
+TEST_CASE("a finite source: Run() returns at its end after closing open bars", "[engine]") {
+  EngineConfig config = testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                                  "[bars]\ninterval = \"1s\"\n");
+  std::string csv = "symbol,time,return\n";
+  for (int i = 0; i < 50; ++i) {
+    csv += absl::StrCat("MAPLE.F,", kT0 + int64_t{i} * 250000000, ",0.001\n");
+  }
+  auto reader = TickFileReader::FromString(csv, "t.csv");
+  REQUIRE(reader.ok());
+  auto sink = std::make_unique<testing::CollectingSink>();
+  testing::CollectingSink* raw = sink.get();
+  ManualClock clock(kT0);
+  auto engine = Engine::Create(config, std::make_unique<TickFileSource>(*std::move(reader)),
+                               std::move(sink), &clock);
+  REQUIRE(engine.ok());
+  REQUIRE((*engine)->Run().ok());
+  // 50 ticks, 4 per 1 s bar: 13 bars (the last one closed at the end of input).
+  CHECK(raw->messages.size() == 13);
+  CHECK((*engine)->core()->counters().bars == 13);
+  BarUpdate last;
+  REQUIRE(DecodeUpdateJson(raw->messages.back().body, &last).ok());
+  CHECK(RelDiff(last.r, 0.002) < 1e-12);
+  CHECK((last.flags & kFlagStale) == 0);
 }
 
 }  // namespace
