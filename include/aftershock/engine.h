@@ -9,7 +9,9 @@
 //   * a steady_timer ticking every `clock_tick` for the clock close of idle
 //     bars ([bars] grace) and the observers' OnClock (stale-feed checks);
 //   * SIGINT/SIGTERM (optional): the handler runs between rounds, so the
-//     current batch is finished; then the sink is flushed and Run() returns OK.
+//     current batch is finished; then the sink is flushed and Run() returns OK;
+//   * the HTTP health/metrics endpoint (optional, Boost.Beast), whose handlers
+//     read the counters on this same thread.
 // Why an event-driven wait and not a busy poll loop: the engine shares cores
 // with refit workers, and an idle feed must cost no CPU; an epoll wake-up is a
 // few microseconds, inside the latency target (P4). A round limit keeps timers
@@ -46,7 +48,13 @@ struct EngineOptions {
   int max_messages_per_round = 4096;
   // Handle SIGINT and SIGTERM (stop gracefully). Off for engines inside tests.
   bool handle_signals = false;
+  // Serve GET /health and GET /metrics (Prometheus text) at [http] endpoint
+  // on the engine's loop when [http] enabled. Off by default here;
+  // CreateFromConfig turns it on.
+  bool serve_http = false;
 };
+
+class MetricsHttpServer;
 
 class Engine {
  public:
@@ -78,6 +86,8 @@ class Engine {
   std::string BoundEndpoint() const { return sink_->BoundEndpoint(); }
   // True once Run() has entered its loop (tests wait on it).
   bool running() const;
+  // The bound HTTP endpoint ("127.0.0.1:7310"), "" when not serving.
+  std::string HttpEndpoint() const;
 
   struct Loop;
 
@@ -90,6 +100,7 @@ class Engine {
   std::unique_ptr<UpdateSink> sink_;
   std::unique_ptr<IngestCore> core_;
   std::unique_ptr<Loop> loop_;
+  std::unique_ptr<MetricsHttpServer> http_;  // after loop_: destroyed before it
   std::shared_ptr<void> transport_;  // keeps the ZeroMQ context of CreateFromConfig alive
 };
 

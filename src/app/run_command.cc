@@ -59,8 +59,9 @@ int RunCommand(int argc, char** argv) {
   // signal handlers are installed and ingest is live.
   Engine* e = engine->get();
   e->Post([e, plan] {
-    std::fprintf(stderr, "aftershock run: running: %s; bound %s\n", plan.c_str(),
-                 e->BoundEndpoint().c_str());
+    const std::string http = e->HttpEndpoint();
+    std::fprintf(stderr, "aftershock run: running: %s; bound %s; http %s\n", plan.c_str(),
+                 e->BoundEndpoint().c_str(), http.empty() ? "off" : http.c_str());
     std::fflush(stderr);
   });
   absl::Status st = (*engine)->Run();

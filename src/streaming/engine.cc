@@ -14,7 +14,9 @@
 #include <boost/asio/signal_set.hpp>
 #include <boost/asio/steady_timer.hpp>
 
+#include "aftershock/engine_metrics.h"
 #include "aftershock/zmq_transport.h"
+#include "streaming/metrics_http.h"
 
 namespace aftershock {
 
@@ -52,6 +54,14 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::Create(const EngineConfig& confi
   e->sink_ = std::move(sink);
   e->core_ = *std::move(core);
   e->loop_ = std::make_unique<Loop>();
+  if (options.serve_http && config.http.enabled) {
+    IngestCore* core_ptr = e->core_.get();
+    auto http = MetricsHttpServer::Start(
+        &e->loop_->io, config.http.endpoint, [core_ptr] { return FormatHealthJson(*core_ptr); },
+        [core_ptr] { return FormatPrometheusMetrics(*core_ptr); });
+    if (!http.ok()) return http.status();
+    e->http_ = *std::move(http);
+  }
   return e;
 }
 
@@ -64,6 +74,7 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::CreateFromConfig(const EngineCon
   if (!sink.ok()) return sink.status();
   EngineOptions options;
   options.handle_signals = true;
+  options.serve_http = true;
   auto engine = Create(config, *std::move(source), *std::move(sink), SystemClock(), options);
   if (!engine.ok()) return engine.status();
   (*engine)->transport_ = std::shared_ptr<ZmqTransport>(std::move(*transport));
@@ -71,10 +82,13 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::CreateFromConfig(const EngineCon
 }
 
 Engine::~Engine() {
+  http_.reset();
   if (loop_ && loop_->readiness) loop_->readiness->release();  // the fd belongs to ZeroMQ
 }
 
 bool Engine::running() const { return loop_->running.load(); }
+
+std::string Engine::HttpEndpoint() const { return http_ ? http_->endpoint() : ""; }
 
 void Engine::Stop() {
   loop_->stop_requested.store(true);
@@ -153,6 +167,7 @@ absl::Status Engine::Run() {
   if (L.readiness) L.readiness->cancel();
   L.timer->cancel();
   if (L.signals) L.signals->cancel();
+  if (http_) http_->Close();
   L.io.restart();
   L.io.poll();
   L.signals.reset();

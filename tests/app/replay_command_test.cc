@@ -1,5 +1,8 @@
 // `aftershock replay` and `aftershock run` command behaviour (the built binary).
+#include <arpa/inet.h>
+#include <netinet/in.h>
 #include <signal.h>
+#include <sys/socket.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
@@ -151,11 +154,53 @@ TEST_CASE("replay and run: clear errors, exit 2", "[app][replay]") {
   CHECK(r.out.find("--check") != std::string::npos);
 }
 
-TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0", "[app][run]") {
+int FreePort() {
+  const int fd = socket(AF_INET, SOCK_STREAM, 0);
+  sockaddr_in a{};
+  a.sin_family = AF_INET;
+  a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+  a.sin_port = 0;
+  socklen_t len = sizeof(a);
+  if (bind(fd, reinterpret_cast<sockaddr*>(&a), sizeof(a)) != 0 ||
+      getsockname(fd, reinterpret_cast<sockaddr*>(&a), &len) != 0) {
+    close(fd);
+    return -1;
+  }
+  close(fd);
+  return ntohs(a.sin_port);
+}
+
+// A minimal HTTP/1.1 GET over loopback; returns the whole response.
+std::string HttpGet(int port, const std::string& path) {
+  const int fd = socket(AF_INET, SOCK_STREAM, 0);
+  sockaddr_in a{};
+  a.sin_family = AF_INET;
+  a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+  a.sin_port = htons(static_cast<uint16_t>(port));
+  if (connect(fd, reinterpret_cast<sockaddr*>(&a), sizeof(a)) != 0) {
+    close(fd);
+    return "";
+  }
+  const std::string req = "GET " + path + " HTTP/1.1\r\nHost: 127.0.0.1\r\n\r\n";
+  (void)!write(fd, req.data(), req.size());
+  std::string out;
+  char buf[4096];
+  ssize_t n;
+  while ((n = read(fd, buf, sizeof(buf))) > 0) out.append(buf, static_cast<size_t>(n));
+  close(fd);
+  return out;
+}
+
+TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0; health and metrics",
+          "[app][run]") {
   const std::string dir = testing::ScratchDir("run_sigterm");
+  const int http_port = FreePort();
+  REQUIRE(http_port > 0);
   const std::string cfg = testing::WriteFile(
       dir + "/c.toml",
-      "[feed]\nendpoints = [\"tcp://127.0.0.1:1\"]\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n");
+      absl::StrCat("[feed]\nendpoints = [\"tcp://127.0.0.1:1\"]\n[publish]\nendpoint = "
+                   "\"tcp://127.0.0.1:*\"\n[http]\nendpoint = \"127.0.0.1:",
+                   http_port, "\"\n"));
   const std::string err_path = dir + "/err.txt";
   const pid_t pid = fork();
   REQUIRE(pid >= 0);
@@ -177,6 +222,19 @@ TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0", "[app][run]") {
     err = ss.str();
   }
   REQUIRE(err.find("running:") != std::string::npos);
+  CHECK(err.find(absl::StrCat("http 127.0.0.1:", http_port)) != std::string::npos);
+  // Prometheus text exposition format 0.0.4: HELP/TYPE lines, labelled counters.
+  const std::string metrics = HttpGet(http_port, "/metrics");
+  CHECK(metrics.rfind("HTTP/1.1 200 OK", 0) == 0);
+  CHECK(metrics.find("text/plain; version=0.0.4") != std::string::npos);
+  CHECK(metrics.find("# TYPE aftershock_updates_out_total counter\naftershock_updates_out_total 0\n") !=
+        std::string::npos);
+  CHECK(metrics.find("aftershock_rejects_total{reason=\"symbol_limit\"} 0\n") !=
+        std::string::npos);
+  const std::string health = HttpGet(http_port, "/health");
+  CHECK(health.rfind("HTTP/1.1 200 OK", 0) == 0);
+  CHECK(health.find("{\"status\":\"ok\",\"symbols\":0") != std::string::npos);
+  CHECK(HttpGet(http_port, "/other").rfind("HTTP/1.1 404", 0) == 0);
   kill(pid, SIGTERM);
   int status = 0;
   pid_t w = 0;
