@@ -104,13 +104,13 @@ class BarObserver {
  public:
   virtual ~BarObserver() = default;
   // A symbol got its index (first accepted message); create extra state here.
-  virtual void OnNewSymbol(IngestCore* core, int index, absl::string_view symbol) {}
+  virtual void OnNewSymbol(IngestCore* /*core*/, int /*index*/, absl::string_view /*symbol*/) {}
   // After the update for a bar is computed, before it is published. `bar` is
   // the closed bar (return in the filter's units is update->r). May OR flags
   // into update->flags; must not change the numbers.
   virtual void OnBar(IngestCore* core, int index, const ClosedBar& bar, BarUpdate* update) = 0;
   // On every clock tick, after idle bars were closed.
-  virtual void OnClock(IngestCore* core, int64_t now_ns) {}
+  virtual void OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {}
 };
 
 // A model replacement for one symbol (IngestCore::SwapModel).
