@@ -24,7 +24,9 @@
 //     flag `first_bar` (their z rests on no history; consumers ignore it).
 //   * An update that fails to encode (a non-finite value) is never published;
 //     it is counted as non_finite_output.
-//   * New symbols beyond [limits] max_symbols are rejected as symbol_limit.
+//   * New symbols beyond [limits] max_symbols are rejected as symbol_limit. A
+//     symbol gets its slot with its first decoded tick, even if the bar
+//     builder then rejects that tick.
 //
 // Integration points (all called on the ingest thread, the only thread that
 // may touch the core; none may block):
@@ -122,7 +124,9 @@ struct ModelSwap {
   };
   std::shared_ptr<const FilterModel> model;  // REQUIRED, created (Create/Ewma)
   Start start = Start::kRerun;
-  double initial_variance = 0;  // <= 0: the model's unconditional variance
+  // Starting variance for kRestart/kRerun; <= 0: the model's unconditional
+  // variance (an EWMA model has none: then it must be > 0).
+  double initial_variance = 0;
   // Returns to re-run (kRerun); only read during the call.
   absl::Span<const double> rerun_returns;
   // Status flags the symbol's updates carry from now on: kFlagWarmup and/or
@@ -160,12 +164,17 @@ class IngestCore : public TickConsumer {
   // REQUIRES: 0 <= index < num_symbols(); swap.model created. InvalidArgument
   // otherwise (the symbol keeps its model).
   absl::Status SwapModel(int index, const ModelSwap& swap);
+  // Observer state of a symbol (nullptr until set). Slots are assigned by
+  // convention between observers (e.g. 0 alerts, 1 refit window).
+  // REQUIRES: 0 <= index < num_symbols(), 0 <= slot < kMaxSymbolExtras.
   SymbolExtra* extra(int index, int slot) const { return slots_[index].extra[slot].get(); }
-  // REQUIRES: 0 <= slot < kMaxSymbolExtras.
+  // Takes ownership. REQUIRES: as extra().
   void set_extra(int index, int slot, std::unique_ptr<SymbolExtra> state) {
     slots_[index].extra[slot] = std::move(state);
   }
-  // Sends body on "<kind>.<symbol>"; false (and counted) when dropped.
+  // Sends body on "<kind>.<symbol>" (kAlert "a.", kModel "m."); counted in
+  // extra_out, or extra_drops when the sink refused it (then false).
+  // REQUIRES: 0 <= index < num_symbols().
   bool PublishSymbolMessage(TopicKind kind, int index, absl::string_view body);
 
   // ---- Inspection ----
