@@ -10,11 +10,12 @@
 //   * replay speed: the ingest core alone on pre-parsed ticks, output encoded
 //     and handed to a discarding sink, one core; and the full CSV path.
 // Binary encoding carries the targets; JSON is reported beside it.
-// Usage: engine_bench [--quick] [--replay-only]
+// Usage: engine_bench [--quick] [--replay-only] [--latency-only]
 #include <sys/prctl.h>
 #include <time.h>
 
 #include <algorithm>
+#include <charconv>
 #include <atomic>
 #include <chrono>
 #include <cstdio>
@@ -266,7 +267,6 @@ struct Rig {
     std::atomic<bool> done{false};
     std::thread consumer([&] {
       zmq::message_t a, b;
-      BarUpdate u;
       while (!done.load()) {
         zmq::pollitem_t it{sub.handle(), 0, ZMQ_POLLIN, 0};
         if (zmq::poll(&it, 1, std::chrono::milliseconds(50)) <= 0) continue;
@@ -282,9 +282,18 @@ struct Rig {
             if (DecodeTicks(topic, body, enc, 1 << 20, absl::MakeSpan(tk, 1), &rc).n_ticks == 1) {
               t = tk[0].t_ns;
             }
-          } else if (enc == WireEncoding::kBinary ? DecodeUpdateBinary(body, &u).ok()
-                                                  : DecodeUpdateJson(body, &u).ok()) {
-            t = u.t_ns;
+          } else if (enc == WireEncoding::kBinary) {
+            // t sits right after the symbol (update_codec.h layout).
+            if (body.size() > 11 && body.size() >= 11u + static_cast<uint8_t>(body[2])) {
+              std::memcpy(&t, body.data() + 3 + static_cast<uint8_t>(body[2]), 8);
+            }
+          } else {
+            // Only "t" is needed: a full JSON decode in the consumer would make
+            // the consumer, not the engine, the bottleneck being measured.
+            const size_t k = body.find("\"t\":");
+            if (k != absl::string_view::npos) {
+              std::from_chars(body.data() + k + 4, body.data() + body.size(), t);
+            }
           }
           if (t > 0) lat.push_back(now - t);
         }
@@ -378,10 +387,11 @@ Rate ReplayCsvRate(int n) {
 
 int main(int argc, char** argv) {
   using namespace aftershock;
-  bool quick = false, replay_only = false;
+  bool quick = false, replay_only = false, latency_only = false;
   for (int i = 1; i < argc; ++i) {
     if (std::strcmp(argv[i], "--quick") == 0) quick = true;
     if (std::strcmp(argv[i], "--replay-only") == 0) replay_only = true;
+    if (std::strcmp(argv[i], "--latency-only") == 0) latency_only = true;
   }
   const int n_single = quick ? 200000 : 1000000;
   const int n_batch_ticks = quick ? 500000 : 3000000;
@@ -399,7 +409,7 @@ int main(int argc, char** argv) {
     const char* en = enc == WireEncoding::kBinary ? "binary" : "json";
     const auto single = SingleMessages(n_single, enc);
     double raw_rate = 0;
-    {
+    if (!latency_only) {
       Rig rig(false, enc);
       uint64_t got = 0;
       const double s = rig.Throughput(single, single.size(), &got);
@@ -408,7 +418,7 @@ int main(int argc, char** argv) {
                   absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(),
                   raw_rate, "", "", "", got < single.size() ? "  (incomplete)" : "");
     }
-    {
+    if (!latency_only) {
       Rig rig(true, enc);
       uint64_t got = 0;
       const double s = rig.Throughput(single, single.size(), &got);
@@ -416,7 +426,7 @@ int main(int argc, char** argv) {
                   absl::StrCat("engine, 1 tick/msg (", en, ")").c_str(), got / s, "", "", "",
                   100.0 * (got / s) / raw_rate, got < single.size() ? "  (incomplete)" : "");
     }
-    {
+    if (!latency_only) {
       const auto batches = BatchMessages(n_batch_ticks, batch, enc);
       Rig rig(true, enc);
       uint64_t got = 0;
