@@ -15,6 +15,9 @@ struct Command {
 // Keep in the order a user meets them; `aftershock --help` lists this table.
 constexpr Command kCommands[] = {
     {"fit", "estimate a volatility model on a return series and print the report", FitCommand},
+    {"run", "run the streaming engine (ZeroMQ ticks in, per-bar updates out)", RunCommand},
+    {"replay", "replay a tick file through the engine, deterministically, to JSON Lines",
+     ReplayCommand},
     {"demo", "run the embedded default end to end (no input needed)", DemoCommand},
     {"simulate", "synthetic market of invented instruments to a tick CSV or a ZeroMQ feed",
      SimulateCommand},

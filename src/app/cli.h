@@ -13,6 +13,8 @@ int FitCommand(int argc, char** argv);       // fit_command.cc
 int DemoCommand(int argc, char** argv);      // demo_command.cc
 int SimulateCommand(int argc, char** argv);  // simulate_command.cc
 int WatchCommand(int argc, char** argv);     // watch_command.cc
+int RunCommand(int argc, char** argv);       // run_command.cc
+int ReplayCommand(int argc, char** argv);    // replay_command.cc
 
 }  // namespace aftershock::app
 

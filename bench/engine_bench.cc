@@ -1,0 +1,462 @@
+// End-to-end engine benchmark (PRODUCT.md P3, P4, P6), one run, one table:
+//   * raw ZeroMQ pass-through: feed PUB -> forwarder (SUB->PUB, no processing)
+//     -> consumer SUB, the same single-tick messages the engine gets;
+//   * engine throughput: feed PUB -> Engine (SUB, ingest core, PUB) -> consumer
+//     SUB, one tick per message and batched frames (updates are always one
+//     message each);
+//   * tick-in -> update-out latency at a fixed offered rate (default 100k
+//     ticks/s): the tick's t is CLOCK_REALTIME at send, the consumer subtracts
+//     it from CLOCK_REALTIME at receipt (both hops of loopback TCP included);
+//   * replay speed: the ingest core alone on pre-parsed ticks, output encoded
+//     and handed to a discarding sink, one core; and the full CSV path.
+// Binary encoding carries the targets; JSON is reported beside it.
+// Usage: engine_bench [--quick] [--replay-only] [--latency-only]
+#include <sys/prctl.h>
+#include <time.h>
+
+#include <algorithm>
+#include <charconv>
+#include <atomic>
+#include <chrono>
+#include <cstdio>
+#include <cstring>
+#include <string>
+#include <thread>
+#include <vector>
+#include <zmq.hpp>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/engine.h"
+#include "aftershock/ingest_core.h"
+#include "aftershock/tick_file.h"
+#include "aftershock/update_codec.h"
+#include "aftershock/wire.h"
+#include "aftershock/zmq_transport.h"
+
+namespace aftershock {
+namespace {
+
+constexpr int64_t kT0 = 1772443800000000000;
+constexpr int kSymbols = 100;
+
+int64_t RealNs() {
+  timespec ts;
+  clock_gettime(CLOCK_REALTIME, &ts);
+  return int64_t{ts.tv_sec} * 1000000000 + ts.tv_nsec;
+}
+double Secs(std::chrono::steady_clock::time_point a, std::chrono::steady_clock::time_point b) {
+  return std::chrono::duration<double>(b - a).count();
+}
+
+std::string Sym(int i) {
+  char b[16];
+  std::snprintf(b, sizeof(b), "SYM%03d.B", i);
+  return b;
+}
+
+EngineConfig BenchConfig(WireEncoding enc) {
+  EngineConfig c;
+  c.feed.encoding = enc;
+  c.feed.max_message_bytes = 16 << 20;
+  c.publish.encoding = enc;
+  c.publish.high_water_mark = 1 << 30;  // no drops: throughput, not shedding, is measured
+  c.publish.endpoint = "tcp://127.0.0.1:*";
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "t");
+  auto p = ModelParams::FromNamed(
+      *spec, {{"mu", 0.0002}, {"omega", 2e-6}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", 7}});
+  c.model.spec = *spec;
+  c.model.has_params = true;
+  c.model.params = *p;
+  c.http.enabled = false;
+  return c;
+}
+
+Tick MakeTick(int sym, int64_t t, double r) {
+  Tick k;
+  k.symbol.assign(Sym(sym));
+  k.t_ns = t;
+  k.kind = Tick::kReturn;
+  k.value = r;
+  return k;
+}
+
+double Ret(uint64_t i) {  // cheap deterministic pseudo-return
+  uint64_t x = i * 0x9E3779B97F4A7C15ull;
+  x ^= x >> 29;
+  return (static_cast<double>(x % 20001) - 10000.0) * 1e-6;
+}
+
+struct Msg {
+  std::string topic, body;
+};
+
+// Single-tick messages, symbols round-robin, strictly increasing t per symbol.
+std::vector<Msg> SingleMessages(int n, WireEncoding enc) {
+  std::vector<Msg> out(n);
+  for (int i = 0; i < n; ++i) {
+    Tick t = MakeTick(i % kSymbols, kT0 + i, Ret(i));
+    out[i].topic = std::string(t.symbol.view());
+    if (enc == WireEncoding::kBinary) EncodeTickBinary(t, &out[i].body);
+    else EncodeTickJson(t, &out[i].body);
+  }
+  return out;
+}
+
+std::vector<Msg> BatchMessages(int n_ticks, int batch, WireEncoding enc) {
+  std::vector<Msg> out;
+  std::vector<Tick> ticks;
+  for (int i = 0; i < n_ticks; ++i) {
+    ticks.push_back(MakeTick(i % kSymbols, kT0 + i, Ret(i)));
+    if (static_cast<int>(ticks.size()) == batch || i + 1 == n_ticks) {
+      Msg m;
+      m.topic = "*";
+      if (enc == WireEncoding::kBinary) EncodeBatchBinary(ticks, &m.body);
+      else EncodeBatchJson(ticks, &m.body);
+      out.push_back(std::move(m));
+      ticks.clear();
+    }
+  }
+  return out;
+}
+
+void Send(zmq::socket_t& s, const Msg& m) {
+  s.send(zmq::buffer(m.topic), zmq::send_flags::sndmore);
+  s.send(zmq::buffer(m.body), zmq::send_flags::none);
+}
+
+// Something between the feed PUB and the consumer SUB.
+struct Middle {
+  virtual ~Middle() = default;
+  virtual std::string OutEndpoint() = 0;
+  virtual void Stop() = 0;
+};
+
+struct Forwarder : Middle {
+  Forwarder(zmq::context_t& ctx, const std::string& feed) : in(ctx, zmq::socket_type::sub),
+                                                            out(ctx, zmq::socket_type::pub) {
+    in.set(zmq::sockopt::rcvhwm, 0);
+    in.set(zmq::sockopt::subscribe, "");
+    in.connect(feed);
+    out.set(zmq::sockopt::sndhwm, 0);
+    out.bind("tcp://127.0.0.1:*");
+    endpoint = out.get(zmq::sockopt::last_endpoint);
+    th = std::thread([this] {
+      zmq::message_t a, b;
+      while (!stop.load(std::memory_order_relaxed)) {
+        zmq::pollitem_t it{in.handle(), 0, ZMQ_POLLIN, 0};
+        if (zmq::poll(&it, 1, std::chrono::milliseconds(20)) <= 0) continue;
+        while (in.recv(a, zmq::recv_flags::dontwait)) {
+          if (!in.recv(b)) break;
+          out.send(a, zmq::send_flags::sndmore);
+          out.send(b, zmq::send_flags::none);
+        }
+      }
+    });
+  }
+  ~Forwarder() override { Stop(); }
+  std::string OutEndpoint() override { return endpoint; }
+  void Stop() override {
+    stop = true;
+    if (th.joinable()) th.join();
+  }
+  zmq::socket_t in, out;
+  std::string endpoint;
+  std::atomic<bool> stop{false};
+  std::thread th;
+};
+
+struct EngineMiddle : Middle {
+  EngineMiddle(const std::string& feed, WireEncoding enc) {
+    EngineConfig c = BenchConfig(enc);
+    c.feed.endpoints = {feed};
+    transport = *ZmqTransport::Create(1);
+    ZmqSubscriberOptions so;
+    so.receive_hwm = 0;
+    auto src = transport->Subscribe(c.feed, so);
+    auto sink = transport->Publish(c.publish);
+    if (!src.ok() || !sink.ok()) {
+      std::fprintf(stderr, "engine sockets failed\n");
+      std::exit(1);
+    }
+    engine = *Engine::Create(c, *std::move(src), *std::move(sink), SystemClock());
+    th = std::thread([this] { (void)engine->Run(); });
+  }
+  ~EngineMiddle() override { Stop(); }
+  std::string OutEndpoint() override { return engine->BoundEndpoint(); }
+  void Stop() override {
+    if (th.joinable()) {
+      engine->Stop();
+      th.join();
+    }
+  }
+  std::unique_ptr<ZmqTransport> transport;
+  std::unique_ptr<Engine> engine;
+  std::thread th;
+};
+
+struct Rig {
+  zmq::context_t ctx{1};
+  zmq::socket_t feed{ctx, zmq::socket_type::pub};
+  zmq::socket_t sub{ctx, zmq::socket_type::sub};
+  std::string feed_ep;
+  std::unique_ptr<Middle> mid;
+
+  Rig(bool engine, WireEncoding enc) {
+    feed.set(zmq::sockopt::sndhwm, 0);
+    feed.bind("tcp://127.0.0.1:*");
+    feed_ep = feed.get(zmq::sockopt::last_endpoint);
+    if (engine) mid = std::make_unique<EngineMiddle>(feed_ep, enc);
+    else mid = std::make_unique<Forwarder>(ctx, feed_ep);
+    sub.set(zmq::sockopt::rcvhwm, 0);
+    sub.set(zmq::sockopt::subscribe, "");
+    sub.connect(mid->OutEndpoint());
+    // Slow joiner: probes until one comes through.
+    Tick p = MakeTick(999, 0, 0.001);
+    p.symbol.assign("PROBE");
+    Msg m;
+    m.topic = "PROBE";
+    for (int i = 0;; ++i) {
+      p.t_ns = kT0 - 1000000000 + i;
+      if (enc == WireEncoding::kBinary) EncodeTickBinary(p, &m.body);
+      else EncodeTickJson(p, &m.body);
+      Send(feed, m);
+      zmq::pollitem_t it{sub.handle(), 0, ZMQ_POLLIN, 0};
+      if (zmq::poll(&it, 1, std::chrono::milliseconds(5)) > 0) break;
+      if (i > 4000) {
+        std::fprintf(stderr, "subscription never became live\n");
+        std::exit(1);
+      }
+    }
+    // Drain whatever probes are still under way.
+    std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    zmq::message_t a;
+    while (sub.recv(a, zmq::recv_flags::dontwait)) {
+    }
+  }
+  ~Rig() { mid->Stop(); }
+
+  // Sends all messages as fast as possible; returns seconds until `expect`
+  // messages (single frames pairs) arrived at the consumer, or -1 on timeout.
+  double Throughput(const std::vector<Msg>& msgs, uint64_t expect, uint64_t* received) {
+    const auto start = std::chrono::steady_clock::now();
+    std::thread producer([&] {
+      for (const Msg& m : msgs) Send(feed, m);
+    });
+    uint64_t got = 0;
+    zmq::message_t a, b;
+    auto last = start;
+    while (got < expect) {
+      zmq::pollitem_t it{sub.handle(), 0, ZMQ_POLLIN, 0};
+      if (zmq::poll(&it, 1, std::chrono::milliseconds(2000)) <= 0) break;  // stalled
+      while (sub.recv(a, zmq::recv_flags::dontwait)) {
+        (void)sub.recv(b);
+        ++got;
+      }
+      last = std::chrono::steady_clock::now();
+    }
+    producer.join();
+    *received = got;
+    return Secs(start, last);
+  }
+
+  // Offers `rate` ticks/s for `seconds`; returns sorted latencies (ns).
+  std::vector<int64_t> Latency(double rate, double seconds, WireEncoding enc, bool engine) {
+    const int n = static_cast<int>(rate * seconds);
+    std::vector<int64_t> lat;
+    lat.reserve(n);
+    std::atomic<bool> done{false};
+    std::thread consumer([&] {
+      zmq::message_t a, b;
+      while (!done.load()) {
+        zmq::pollitem_t it{sub.handle(), 0, ZMQ_POLLIN, 0};
+        if (zmq::poll(&it, 1, std::chrono::milliseconds(50)) <= 0) continue;
+        while (sub.recv(a, zmq::recv_flags::dontwait)) {
+          (void)sub.recv(b);
+          const int64_t now = RealNs();
+          int64_t t = 0;
+          absl::string_view body(static_cast<const char*>(b.data()), b.size());
+          if (!engine) {  // forwarded ticks: decode the tick
+            Tick tk[1];
+            RejectCounters rc;
+            absl::string_view topic(static_cast<const char*>(a.data()), a.size());
+            if (DecodeTicks(topic, body, enc, 1 << 20, absl::MakeSpan(tk, 1), &rc).n_ticks == 1) {
+              t = tk[0].t_ns;
+            }
+          } else if (enc == WireEncoding::kBinary) {
+            // t sits right after the symbol (update_codec.h layout).
+            if (body.size() > 11 && body.size() >= 11u + static_cast<uint8_t>(body[2])) {
+              std::memcpy(&t, body.data() + 3 + static_cast<uint8_t>(body[2]), 8);
+            }
+          } else {
+            // Only "t" is needed: a full JSON decode in the consumer would make
+            // the consumer, not the engine, the bottleneck being measured.
+            const size_t k = body.find("\"t\":");
+            if (k != absl::string_view::npos) {
+              std::from_chars(body.data() + k + 4, body.data() + body.size(), t);
+            }
+          }
+          if (t > 0) lat.push_back(now - t);
+        }
+      }
+    });
+    Msg m;
+    const auto start = std::chrono::steady_clock::now();
+    const double period_ns = 1e9 / rate;
+    // Paced by sleeping to each tick's due time (timer slack 1 us) rather than
+    // spinning: on a small machine a spinning producer would steal the core
+    // the engine needs. A late wake-up sends the overdue ticks back to back.
+    prctl(PR_SET_TIMERSLACK, 1000UL, 0, 0, 0);
+    for (int i = 0; i < n; ++i) {
+      const auto due = start + std::chrono::nanoseconds(static_cast<int64_t>(i * period_ns));
+      if (std::chrono::steady_clock::now() < due) std::this_thread::sleep_until(due);
+      Tick t = MakeTick(i % kSymbols, RealNs(), Ret(i));
+      m.topic.assign(t.symbol.view().data(), t.symbol.size);
+      if (enc == WireEncoding::kBinary) EncodeTickBinary(t, &m.body);
+      else EncodeTickJson(t, &m.body);
+      Send(feed, m);
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(300));
+    done = true;
+    consumer.join();
+    // Skip the first 5 % (connection warm-up).
+    if (lat.size() > 20) lat.erase(lat.begin(), lat.begin() + lat.size() / 20);
+    std::sort(lat.begin(), lat.end());
+    return lat;
+  }
+};
+
+double CpuNow() {
+  timespec ts;
+  clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts);
+  return ts.tv_sec + ts.tv_nsec * 1e-9;
+}
+
+double Pct(const std::vector<int64_t>& v, double q) {
+  if (v.empty()) return -1;
+  return v[std::min(v.size() - 1, static_cast<size_t>(q * v.size()))] / 1000.0;
+}
+
+// Rates per wall second and per second of this thread's CPU time (the
+// machine may be shared; CPU time is what "one core" means).
+struct Rate {
+  double wall = 0, cpu = 0;
+};
+
+Rate ReplayCoreRate(WireEncoding enc, int n, uint64_t* bars) {
+  EngineConfig c = BenchConfig(enc);
+  NullSink sink;
+  ManualClock clock;
+  auto core = *IngestCore::Create(c, &sink, &clock);
+  std::vector<Tick> ticks(n);
+  for (int i = 0; i < n; ++i) ticks[i] = MakeTick(i % kSymbols, kT0 + i, Ret(i));
+  for (int i = 0; i < 1000; ++i) core->OnTick(ticks[i]);
+  const double c0 = CpuNow();
+  const auto a = std::chrono::steady_clock::now();
+  for (int i = 1000; i < n; ++i) core->OnTick(ticks[i]);
+  const auto b = std::chrono::steady_clock::now();
+  const double c1 = CpuNow();
+  *bars = core->counters().bars;
+  return {(n - 1000) / Secs(a, b), (n - 1000) / (c1 - c0)};
+}
+
+Rate ReplayCsvRate(int n) {
+  std::string csv = "symbol,time,return\n";
+  csv.reserve(static_cast<size_t>(n) * 40);
+  char buf[64];
+  for (int i = 0; i < n; ++i) {
+    std::snprintf(buf, sizeof(buf), "%s,%lld,%.6f\n", Sym(i % kSymbols).c_str(),
+                  static_cast<long long>(kT0 + i), Ret(i));
+    csv += buf;
+  }
+  auto reader = *TickFileReader::FromString(std::move(csv), "bench.csv");
+  EngineConfig c = BenchConfig(WireEncoding::kJson);
+  NullSink sink;
+  ManualClock clock;
+  auto core = *IngestCore::Create(c, &sink, &clock);
+  Tick t;
+  const double c0 = CpuNow();
+  const auto a = std::chrono::steady_clock::now();
+  while (reader->Next(&t)) core->OnTick(t);
+  const auto b = std::chrono::steady_clock::now();
+  const double c1 = CpuNow();
+  return {core->counters().bars / Secs(a, b), core->counters().bars / (c1 - c0)};
+}
+
+}  // namespace
+}  // namespace aftershock
+
+int main(int argc, char** argv) {
+  using namespace aftershock;
+  bool quick = false, replay_only = false, latency_only = false;
+  for (int i = 1; i < argc; ++i) {
+    if (std::strcmp(argv[i], "--quick") == 0) quick = true;
+    if (std::strcmp(argv[i], "--replay-only") == 0) replay_only = true;
+    if (std::strcmp(argv[i], "--latency-only") == 0) latency_only = true;
+  }
+  const int n_single = quick ? 200000 : 1000000;
+  const int n_batch_ticks = quick ? 500000 : 3000000;
+  const int batch = 256;
+  const double lat_seconds = quick ? 1.0 : 3.0;
+  const double rate = 100000;
+  std::printf("aftershock engine benchmark (%s); %d symbols, GARCH(1,1)-t with all outputs\n",
+              quick ? "quick" : "full", kSymbols);
+  std::printf("machine: %u hardware threads (shared with other work; numbers are noisy)\n\n",
+              std::thread::hardware_concurrency());
+  std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us", "p99.9 us");
+
+  for (WireEncoding enc : {WireEncoding::kBinary, WireEncoding::kJson}) {
+    if (replay_only) break;
+    const char* en = enc == WireEncoding::kBinary ? "binary" : "json";
+    const auto single = SingleMessages(n_single, enc);
+    double raw_rate = 0;
+    if (!latency_only) {
+      Rig rig(false, enc);
+      uint64_t got = 0;
+      const double s = rig.Throughput(single, single.size(), &got);
+      raw_rate = got / s;
+      std::printf("%-44s %11.0f/s %10s %10s %10s%s\n",
+                  absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(),
+                  raw_rate, "", "", "", got < single.size() ? "  (incomplete)" : "");
+    }
+    if (!latency_only) {
+      Rig rig(true, enc);
+      uint64_t got = 0;
+      const double s = rig.Throughput(single, single.size(), &got);
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw%s\n",
+                  absl::StrCat("engine, 1 tick/msg (", en, ")").c_str(), got / s, "", "", "",
+                  100.0 * (got / s) / raw_rate, got < single.size() ? "  (incomplete)" : "");
+    }
+    if (!latency_only) {
+      const auto batches = BatchMessages(n_batch_ticks, batch, enc);
+      Rig rig(true, enc);
+      uint64_t got = 0;
+      const double s = rig.Throughput(batches, n_batch_ticks, &got);
+      std::printf("%-44s %11.0f/s %10s %10s %10s%s\n",
+                  absl::StrCat("engine, batches of ", batch, " (", en, ") ticks").c_str(),
+                  got / s, "", "", "", got < static_cast<uint64_t>(n_batch_ticks) ? "  (incomplete)" : "");
+    }
+    for (bool engine : {false, true}) {
+      Rig rig(engine, enc);
+      const auto lat = rig.Latency(rate, lat_seconds, enc, engine);
+      std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples)\n",
+                  absl::StrCat(engine ? "engine latency tick->update" : "raw latency tick->tick",
+                               " (", en, ")").c_str(),
+                  rate, Pct(lat, 0.5), Pct(lat, 0.99), Pct(lat, 0.999), lat.size());
+    }
+  }
+  {
+    uint64_t bars = 0;
+    const int n = quick ? 1000000 : 5000000;
+    auto row = [](const char* name, Rate r) {
+      std::printf("%-44s %11.0f/s %10s %10s %10s  (%.0f bars per CPU-second)\n", name, r.wall, "",
+                  "", "", r.cpu);
+    };
+    row("replay core, pre-parsed ticks, binary encode", ReplayCoreRate(WireEncoding::kBinary, n, &bars));
+    row("replay core, pre-parsed ticks, JSON encode", ReplayCoreRate(WireEncoding::kJson, n, &bars));
+    row("replay CSV parse + core + JSON encode", ReplayCsvRate(quick ? 500000 : 2000000));
+  }
+  std::printf("\ntargets: engine >= 80 %% of raw (binary, 1 tick/msg); batched >= 5,000,000 "
+              "ticks/s;\n         latency p50 <= 15 us, p99 <= 60 us at 100k ticks/s; replay "
+              ">= 5,000,000 bars/s\n");
+  return 0;
+}

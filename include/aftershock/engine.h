@@ -1,0 +1,109 @@
+// Engine: the live streaming engine (PRODUCT.md C4, C6, C10). An IngestCore
+// (ingest_core.h) driven by a Boost.Asio event loop on ONE ingest thread that
+// owns all per-symbol state:
+//   * the source's readiness descriptor (ZMQ_FD of the SUB socket) waited on
+//     with an asio::posix::stream_descriptor; on readiness the loop drains the
+//     socket in rounds of `max_messages_per_round` messages, re-checking
+//     ZMQ_EVENTS before it waits again (ZMQ_FD is edge-triggered, so waiting
+//     while a message is queued would stall);
+//   * a steady_timer ticking every `clock_tick` for the clock close of idle
+//     bars ([bars] grace) and the observers' OnClock (stale-feed checks);
+//   * SIGINT/SIGTERM (optional): the handler runs between rounds, so the
+//     current batch is finished; then the sink is flushed and Run() returns OK;
+//   * the HTTP health/metrics endpoint (optional, Boost.Beast), whose handlers
+//     read the counters on this same thread.
+// Why an event-driven wait and not a busy poll loop: the engine shares cores
+// with refit workers, and an idle feed must cost no CPU; an epoll wake-up is a
+// few microseconds, inside the latency target (P4). A round limit keeps timers
+// and signals served under a saturating feed.
+//
+// Integration: add BarObservers to core() before Run(); use Post() from other
+// threads to run code on the ingest thread (e.g. to drain refit results; the
+// closure may call core()->SwapModel, which is then at a bar boundary).
+//
+// Thread-safety: Run() on one thread; Stop() and Post() from any thread;
+// everything else on the ingest thread (or before Run / after it returns).
+#ifndef AFTERSHOCK_ENGINE_H_
+#define AFTERSHOCK_ENGINE_H_
+
+#include <cstdint>
+#include <functional>
+#include <memory>
+
+#include "absl/status/status.h"
+#include "absl/status/statusor.h"
+#include "aftershock/clock.h"
+#include "aftershock/engine_config.h"
+#include "aftershock/ingest_core.h"
+#include "aftershock/tick_source.h"
+#include "aftershock/update_sink.h"
+
+namespace aftershock {
+
+struct EngineOptions {
+  // Period of the clock tick (bar closes, observers' OnClock), ns. 0 = derived:
+  // grace / 2 clamped to [1 ms, 100 ms] with time bars, 100 ms otherwise.
+  int64_t clock_tick_ns = 0;
+  // Messages handled per readiness round before timers and signals get a turn.
+  int max_messages_per_round = 4096;
+  // Handle SIGINT and SIGTERM (stop gracefully). Off for engines inside tests.
+  bool handle_signals = false;
+  // Serve GET /health and GET /metrics (Prometheus text) at [http] endpoint
+  // on the engine's loop when [http] enabled. Off by default here;
+  // CreateFromConfig turns it on.
+  bool serve_http = false;
+};
+
+class MetricsHttpServer;
+
+class Engine {
+ public:
+  // Takes ownership of source and sink; `clock` must outlive the engine
+  // (SystemClock() for live use). InvalidArgument for a bad model/outputs config.
+  // REQUIRES: source, sink, clock non-null.
+  static absl::StatusOr<std::unique_ptr<Engine>> Create(const EngineConfig& config,
+                                                        std::unique_ptr<TickSource> source,
+                                                        std::unique_ptr<UpdateSink> sink,
+                                                        Clock* clock,
+                                                        const EngineOptions& options = {});
+  // Live engine from the config alone: ZeroMQ SUB/PUB per [feed]/[publish],
+  // the system clock, signal handling on.
+  static absl::StatusOr<std::unique_ptr<Engine>> CreateFromConfig(const EngineConfig& config);
+  ~Engine();
+
+  // Runs the event loop until Stop(), a signal, or the end of a finite source
+  // (then open time bars are closed). Call it once.
+  // Flushes the sink before returning. Returns the sink's flush error or the
+  // source's error, else OK.
+  absl::Status Run();
+  // Asks Run() to return after the current round. Thread-safe; idempotent.
+  void Stop();
+  // Runs fn on the ingest thread as soon as the current round ends. Thread-safe.
+  void Post(std::function<void()> fn);
+
+  IngestCore* core() { return core_.get(); }
+  UpdateSink* sink() { return sink_.get(); }
+  std::string BoundEndpoint() const { return sink_->BoundEndpoint(); }
+  // True once Run() has entered its loop (tests wait on it).
+  bool running() const;
+  // The bound HTTP endpoint ("127.0.0.1:7310"), "" when not serving.
+  std::string HttpEndpoint() const;
+
+  struct Loop;
+
+ private:
+  Engine() = default;
+  EngineConfig config_;
+  EngineOptions options_;
+  Clock* clock_ = nullptr;
+  std::unique_ptr<TickSource> source_;
+  std::unique_ptr<UpdateSink> sink_;
+  std::unique_ptr<IngestCore> core_;
+  std::unique_ptr<Loop> loop_;
+  std::unique_ptr<MetricsHttpServer> http_;  // after loop_: destroyed before it
+  std::shared_ptr<void> transport_;  // keeps the ZeroMQ context of CreateFromConfig alive
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_ENGINE_H_

@@ -1,0 +1,243 @@
+// IngestCore: the engine's single-threaded heart (PRODUCT.md §3):
+//   message -> decode/validate -> bar builder -> FilterStep -> outputs
+//   -> bar observers -> encode -> UpdateSink.
+// It owns every per-symbol state and has no sockets, timers or threads, so it
+// is tested and replayed directly; Engine (engine.h) wraps it in an event loop.
+//
+// Bars and updates:
+//   * [bars] interval "0s": every accepted tick is a bar; else time bars
+//     (bar_builder.h). Idle bars are closed by OnClock(now) once their end plus
+//     [bars] grace has passed; such updates carry the `stale` flag.
+//   * A bar without a return (a price symbol's first bar, the first bar of a
+//     session) publishes NOTHING; its flags (gap) are carried into the symbol's
+//     next update.
+//   * Price bars give log returns as fractions; with [outputs] return_units =
+//     "percent" they are multiplied by 100 (return ticks are used as given).
+//   * With [model.params]: every symbol starts on FilterModel::Create(params),
+//     version 1, at the model's unconditional variance.
+//     Without: every symbol starts on the warm-up FilterModel::Ewma([warmup]
+//     ewma_lambda), version 0, flag `warmup` on each update. The first bar
+//     whose return is non-zero starts the variance at that return squared
+//     (InitFilterState(ewma, r*r)) and is filtered from there; bars before it
+//     (zero returns) publish nothing.
+//   * The first ([warmup] min_bars - 1) filtered bars of a symbol carry the
+//     flag `first_bar` (their z rests on no history; consumers ignore it).
+//   * An update that fails to encode (a non-finite value) is never published;
+//     it is counted as non_finite_output.
+//   * New symbols beyond [limits] max_symbols are rejected as symbol_limit. A
+//     symbol gets its slot with its first decoded tick, even if the bar
+//     builder then rejects that tick.
+//
+// Integration points (all called on the ingest thread, the only thread that
+// may touch the core; none may block):
+//   * BarObserver::OnNewSymbol / OnBar / OnClock: per-bar hook called after
+//     each update is computed and before it is published, with the symbol's
+//     index (stable for the core's lifetime); it may change update->flags.
+//     Observers run in the order they were added.
+//   * SwapModel(index, ModelSwap): replaces a symbol's model between bars
+//     (call it from OnBar, OnClock or any other ingest-thread code: the core
+//     is always at a bar boundary then), optionally re-running the state over
+//     recent returns.
+//   * extra(index, slot) / set_extra(): kMaxSymbolExtras owned per-symbol
+//     slots of observer state (e.g. alert state, rolling window).
+//   * PublishSymbolMessage(kAlert|kModel, index, body): extra outbound
+//     messages on topics "a.<symbol>" / "m.<symbol>", counted separately.
+//   * OnClock(now): the clock tick (bar closes, then observers' OnClock, e.g.
+//     stale-feed checks using last_arrival_ns()).
+//
+// Hot path: after a symbol's first message nothing allocates (buffers are
+// reused; the symbol map and slot vector are reserved up front).
+//
+// Thread-safety: not thread-safe; one thread owns the core.
+#ifndef AFTERSHOCK_INGEST_CORE_H_
+#define AFTERSHOCK_INGEST_CORE_H_
+
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "absl/container/flat_hash_map.h"
+#include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
+#include "absl/types/span.h"
+#include "aftershock/bar_builder.h"
+#include "aftershock/bar_update.h"
+#include "aftershock/clock.h"
+#include "aftershock/engine_config.h"
+#include "aftershock/online_filter.h"
+#include "aftershock/tick_source.h"
+#include "aftershock/update_sink.h"
+#include "aftershock/wire.h"
+
+namespace aftershock {
+
+class IngestCore;
+
+// Engine-wide counters. Plain value, owned by the ingest thread; read it there
+// (or after the engine stopped), e.g. from a handler on the engine's loop.
+struct EngineCounters {
+  uint64_t messages_in = 0;        // inbound messages (any outcome)
+  uint64_t ticks_in = 0;           // ticks decoded (good ones, before the bar builder)
+  uint64_t ticks_accepted = 0;     // ticks the bar builder accepted
+  uint64_t bars = 0;               // bars closed (with or without a return)
+  uint64_t bars_clock_closed = 0;  // of which closed by the clock
+  uint64_t updates_out = 0;        // updates handed to the sink successfully
+  uint64_t drops = 0;              // updates the sink refused (subscriber queue full)
+  uint64_t non_finite_output = 0;  // updates not published: a non-finite value
+  uint64_t extra_out = 0;          // a./m. messages sent
+  uint64_t extra_drops = 0;        // a./m. messages the sink refused
+  uint64_t model_swaps = 0;        // SwapModel calls applied
+  uint64_t symbols = 0;            // symbols known
+  RejectCounters rejects;          // inbound rejections by reason (wire.h)
+  uint64_t RejectTotal() const { return rejects.Total(); }
+};
+
+// Observer-owned per-symbol state kept in the core's slot (see extra()).
+class SymbolExtra {
+ public:
+  virtual ~SymbolExtra() = default;
+};
+inline constexpr int kMaxSymbolExtras = 4;
+
+// Per-bar hook. Implementations belong to one core and are called on its
+// thread. They may call the core's SwapModel / PublishSymbolMessage / extra().
+class BarObserver {
+ public:
+  virtual ~BarObserver() = default;
+  // A symbol got its index (first accepted message); create extra state here.
+  virtual void OnNewSymbol(IngestCore* /*core*/, int /*index*/, absl::string_view /*symbol*/) {}
+  // After the update for a bar is computed, before it is published. `bar` is
+  // the closed bar (return in the filter's units is update->r). May OR flags
+  // into update->flags; must not change the numbers.
+  virtual void OnBar(IngestCore* core, int index, const ClosedBar& bar, BarUpdate* update) = 0;
+  // On every clock tick, after idle bars were closed.
+  virtual void OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {}
+};
+
+// A model replacement for one symbol (IngestCore::SwapModel).
+struct ModelSwap {
+  enum class Start : uint8_t {
+    kKeepState,  // continue from the symbol's current lags and next variance
+    kRestart,    // InitFilterState(model, initial_variance)
+    kRerun,      // kRestart, then AdvanceState over `rerun_returns` (oldest first)
+  };
+  std::shared_ptr<const FilterModel> model;  // REQUIRED, created (Create/Ewma)
+  Start start = Start::kRerun;
+  // Starting variance for kRestart/kRerun; <= 0: the model's unconditional
+  // variance (an EWMA model has none: then it must be > 0).
+  double initial_variance = 0;
+  // Returns to re-run (kRerun); only read during the call.
+  absl::Span<const double> rerun_returns;
+  // Status flags the symbol's updates carry from now on: kFlagWarmup and/or
+  // kFlagFallback (others are ignored).
+  uint32_t status_flags = 0;
+};
+
+class IngestCore : public TickConsumer {
+ public:
+  enum class TopicKind : char { kUpdate = 'u', kAlert = 'a', kModel = 'm' };
+
+  // Validates what the core uses from the config (filter model and output
+  // options). `sink` and `clock` must outlive the core.
+  // REQUIRES: sink != nullptr, clock != nullptr.
+  static absl::StatusOr<std::unique_ptr<IngestCore>> Create(const EngineConfig& config,
+                                                            UpdateSink* sink, Clock* clock);
+
+  // Adds a per-bar hook (not owned; must outlive the core). Add before input.
+  void AddObserver(BarObserver* observer) { observers_.push_back(observer); }
+
+  // TickConsumer: the input paths.
+  void OnMessage(absl::string_view topic, absl::string_view body) override;
+  void OnMalformedMessage() override;
+  void OnTick(const Tick& tick) override;
+
+  // Clock tick: closes every open bar whose end + grace <= now_ns, then calls
+  // the observers' OnClock. Replay calls it with event time.
+  void OnClock(int64_t now_ns);
+  // Closes every open bar regardless of time (end of a replay).
+  void CloseAllOpenBars();
+  // Flushes the sink.
+  absl::Status Flush() { return sink_->Flush(); }
+
+  // ---- Integration points (ingest thread only) ----
+  // REQUIRES: 0 <= index < num_symbols(); swap.model created. InvalidArgument
+  // otherwise (the symbol keeps its model).
+  absl::Status SwapModel(int index, const ModelSwap& swap);
+  // Observer state of a symbol (nullptr until set). Slots are assigned by
+  // convention between observers (e.g. 0 alerts, 1 refit window).
+  // REQUIRES: 0 <= index < num_symbols(), 0 <= slot < kMaxSymbolExtras.
+  SymbolExtra* extra(int index, int slot) const { return slots_[index].extra[slot].get(); }
+  // Takes ownership. REQUIRES: as extra().
+  void set_extra(int index, int slot, std::unique_ptr<SymbolExtra> state) {
+    slots_[index].extra[slot] = std::move(state);
+  }
+  // Sends body on "<kind>.<symbol>" (kAlert "a.", kModel "m."); counted in
+  // extra_out, or extra_drops when the sink refused it (then false).
+  // REQUIRES: 0 <= index < num_symbols().
+  bool PublishSymbolMessage(TopicKind kind, int index, absl::string_view body);
+
+  // ---- Inspection ----
+  const EngineCounters& counters() const { return counters_; }
+  int num_symbols() const { return static_cast<int>(slots_.size()); }
+  int FindSymbol(absl::string_view symbol) const;  // index or -1
+  absl::string_view symbol(int index) const { return slots_[index].symbol.view(); }
+  const FilterModel& model(int index) const { return *slots_[index].model; }
+  const FilterState& filter_state(int index) const { return slots_[index].filter; }
+  uint32_t status_flags(int index) const { return slots_[index].status_flags; }
+  uint64_t symbol_bars(int index) const { return slots_[index].bars; }        // bars closed
+  uint64_t symbol_updates(int index) const { return slots_[index].updates; }  // published
+  uint64_t symbol_ticks(int index) const { return slots_[index].ticks; }      // accepted
+  int64_t last_tick_ns(int index) const { return slots_[index].last_tick_ns; }  // event time
+  // Wall clock (Clock::NowNs) of the last message carrying this symbol.
+  int64_t last_arrival_ns(int index) const { return slots_[index].last_arrival_ns; }
+  const EngineConfig& config() const { return config_; }
+  int64_t last_clock_ns() const { return last_clock_ns_; }
+
+ private:
+  struct Slot {
+    Symbol symbol;
+    BarState bars_state;
+    FilterState filter;
+    std::shared_ptr<const FilterModel> model;
+    uint32_t status_flags = 0;    // kFlagWarmup / kFlagFallback
+    uint32_t pending_flags = 0;   // flags of unpublished bars, carried forward
+    bool filter_ready = false;    // filter state initialized
+    uint64_t bars = 0;
+    uint64_t filtered = 0;
+    uint64_t updates = 0;
+    uint64_t ticks = 0;
+    int64_t last_tick_ns = 0;
+    int64_t last_arrival_ns = 0;
+    std::unique_ptr<SymbolExtra> extra[kMaxSymbolExtras];
+  };
+
+  IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* clock,
+             std::shared_ptr<const FilterModel> initial_model);
+  int IndexFor(absl::string_view symbol);  // -1 at the symbol limit (counted)
+  void HandleTick(const Tick& tick, int64_t arrival_ns);
+  void HandleBar(int index, const ClosedBar& bar);
+  bool SendOn(TopicKind kind, absl::string_view symbol, absl::string_view body);
+
+  EngineConfig config_;
+  BarOptions bar_options_;
+  UpdateSink* sink_;
+  Clock* clock_;
+  std::shared_ptr<const FilterModel> initial_model_;
+  uint32_t initial_flags_ = 0;
+  double price_return_scale_ = 1.0;
+  bool encode_binary_ = false;
+  std::vector<BarObserver*> observers_;
+  absl::flat_hash_map<std::string, int> index_;
+  std::vector<Slot> slots_;
+  std::vector<Tick> ticks_;  // decode buffer, kMaxBatchTicks
+  BarUpdate update_;
+  std::string body_;
+  std::string topic_;
+  EngineCounters counters_;
+  int64_t last_clock_ns_ = 0;
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_INGEST_CORE_H_

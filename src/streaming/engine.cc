@@ -1,0 +1,182 @@
+#include "aftershock/engine.h"
+
+#include <unistd.h>
+
+#include <algorithm>
+#include <atomic>
+#include <chrono>
+#include <csignal>
+#include <utility>
+
+#include <boost/asio/io_context.hpp>
+#include <boost/asio/post.hpp>
+#include <boost/asio/posix/stream_descriptor.hpp>
+#include <boost/asio/signal_set.hpp>
+#include <boost/asio/steady_timer.hpp>
+
+#include "aftershock/engine_metrics.h"
+#include "aftershock/zmq_transport.h"
+#include "streaming/metrics_http.h"
+
+namespace aftershock {
+
+namespace asio = boost::asio;
+
+struct Engine::Loop {
+  asio::io_context io{1};
+  std::unique_ptr<asio::posix::stream_descriptor> readiness;
+  std::unique_ptr<asio::steady_timer> timer;
+  std::unique_ptr<asio::signal_set> signals;
+  std::atomic<bool> running{false};
+  std::atomic<bool> stop_requested{false};
+  bool source_ended = false;
+};
+
+absl::StatusOr<std::unique_ptr<Engine>> Engine::Create(const EngineConfig& config,
+                                                       std::unique_ptr<TickSource> source,
+                                                       std::unique_ptr<UpdateSink> sink,
+                                                       Clock* clock,
+                                                       const EngineOptions& options) {
+  auto core = IngestCore::Create(config, sink.get(), clock);
+  if (!core.ok()) return core.status();
+  std::unique_ptr<Engine> e(new Engine());
+  e->config_ = config;
+  e->options_ = options;
+  if (e->options_.max_messages_per_round < 1) e->options_.max_messages_per_round = 1;
+  if (e->options_.clock_tick_ns <= 0) {
+    constexpr int64_t kMs = 1000000;
+    e->options_.clock_tick_ns =
+        config.bars.interval_ns > 0 ? std::clamp<int64_t>(config.bars.grace_ns / 2, kMs, 100 * kMs)
+                                    : 100 * kMs;
+  }
+  e->clock_ = clock;
+  e->source_ = std::move(source);
+  e->sink_ = std::move(sink);
+  e->core_ = *std::move(core);
+  e->loop_ = std::make_unique<Loop>();
+  if (options.serve_http && config.http.enabled) {
+    IngestCore* core_ptr = e->core_.get();
+    auto http = MetricsHttpServer::Start(
+        &e->loop_->io, config.http.endpoint, [core_ptr] { return FormatHealthJson(*core_ptr); },
+        [core_ptr] { return FormatPrometheusMetrics(*core_ptr); });
+    if (!http.ok()) return http.status();
+    e->http_ = *std::move(http);
+  }
+  return e;
+}
+
+absl::StatusOr<std::unique_ptr<Engine>> Engine::CreateFromConfig(const EngineConfig& config) {
+  auto transport = ZmqTransport::Create(1);
+  if (!transport.ok()) return transport.status();
+  auto source = (*transport)->Subscribe(config.feed);
+  if (!source.ok()) return source.status();
+  auto sink = (*transport)->Publish(config.publish);
+  if (!sink.ok()) return sink.status();
+  EngineOptions options;
+  options.handle_signals = true;
+  options.serve_http = true;
+  auto engine = Create(config, *std::move(source), *std::move(sink), SystemClock(), options);
+  if (!engine.ok()) return engine.status();
+  (*engine)->transport_ = std::shared_ptr<ZmqTransport>(std::move(*transport));
+  return engine;
+}
+
+Engine::~Engine() {
+  http_.reset();
+  if (loop_ && loop_->readiness) loop_->readiness->release();  // the fd belongs to ZeroMQ
+}
+
+bool Engine::running() const { return loop_->running.load(); }
+
+std::string Engine::HttpEndpoint() const { return http_ ? http_->endpoint() : ""; }
+
+void Engine::Stop() {
+  loop_->stop_requested.store(true);
+  asio::post(loop_->io, [this] { loop_->io.stop(); });
+}
+
+void Engine::Post(std::function<void()> fn) { asio::post(loop_->io, std::move(fn)); }
+
+absl::Status Engine::Run() {
+  Loop& L = *loop_;
+  L.io.restart();
+  const int round = options_.max_messages_per_round;
+
+  // Readiness: drain up to `round` messages; if the round was full or
+  // ZMQ_EVENTS still reports input, continue via post() (timers and signals
+  // get their turn in between), else wait for the next edge.
+  const int fd = source_->ReadinessFd();
+  std::function<void()> arm;
+  std::function<void()> drain = [&] {
+    if (L.stop_requested.load()) return;
+    const int n = source_->Pump(core_.get(), round);
+    if (n == TickSource::kEndOfInput) {
+      L.source_ended = true;
+      L.io.stop();
+      return;
+    }
+    if (n >= round || fd < 0 || source_->MaybePending()) {
+      asio::post(L.io, drain);
+    } else {
+      arm();
+    }
+  };
+  arm = [&] {
+    L.readiness->async_wait(asio::posix::descriptor_base::wait_read,
+                            [&](const boost::system::error_code& ec) {
+                              if (!ec) drain();
+                            });
+  };
+
+  if (fd >= 0) {
+    if (!L.readiness) L.readiness = std::make_unique<asio::posix::stream_descriptor>(L.io, fd);
+    // Input may already be queued (the edge may have passed before we waited).
+    asio::post(L.io, drain);
+  } else {
+    asio::post(L.io, drain);  // always-ready source: drain() re-posts itself
+  }
+
+  L.timer = std::make_unique<asio::steady_timer>(L.io);
+  const auto period = std::chrono::nanoseconds(options_.clock_tick_ns);
+  std::function<void()> schedule = [&] {
+    L.timer->expires_after(period);
+    L.timer->async_wait([&](const boost::system::error_code& ec) {
+      if (ec) return;
+      core_->OnClock(clock_->NowNs());
+      schedule();
+    });
+  };
+  schedule();
+
+  if (options_.handle_signals) {
+    L.signals = std::make_unique<asio::signal_set>(L.io, SIGINT, SIGTERM);
+    L.signals->async_wait([&](const boost::system::error_code& ec, int) {
+      if (!ec) {
+        L.stop_requested.store(true);
+        L.io.stop();
+      }
+    });
+  }
+
+  L.running.store(true);
+  if (!L.stop_requested.load()) L.io.run();
+  L.running.store(false);
+  L.stop_requested.store(true);  // Run() runs once; pending drains become no-ops
+
+  // Leave no handler referring to this frame's closures.
+  if (L.readiness) L.readiness->cancel();
+  L.timer->cancel();
+  if (L.signals) L.signals->cancel();
+  if (http_) http_->Close();
+  L.io.restart();
+  L.io.poll();
+  L.signals.reset();
+  L.timer.reset();
+
+  if (L.source_ended) core_->CloseAllOpenBars();
+  absl::Status flushed = sink_->Flush();
+  if (!flushed.ok()) return flushed;
+  return source_->status();
+}
+
+}  // namespace aftershock

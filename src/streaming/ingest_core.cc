@@ -1,0 +1,281 @@
+#include "aftershock/ingest_core.h"
+
+#include <algorithm>
+#include <cmath>
+#include <utility>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/update_codec.h"
+
+namespace aftershock {
+namespace {
+
+// Slots reserved up front: max_symbols, capped so that a huge limit does not
+// commit gigabytes before a single symbol arrives (beyond it the vector grows,
+// which only happens when a new symbol arrives, never per tick).
+constexpr int64_t kMaxReservedSlots = 1 << 20;
+
+OutputOptions ToOutputOptions(const OutputsConfig& o) {
+  OutputOptions out;
+  out.horizons = o.horizons;
+  out.risk_levels = o.risk_levels;
+  out.periods_per_year = o.periods_per_year;
+  out.target_vol_ann = o.target_vol_ann;
+  out.scale_cap = o.scale_cap;
+  return out;
+}
+
+}  // namespace
+
+absl::StatusOr<std::unique_ptr<IngestCore>> IngestCore::Create(const EngineConfig& config,
+                                                               UpdateSink* sink, Clock* clock) {
+  const OutputOptions outputs = ToOutputOptions(config.outputs);
+  absl::StatusOr<FilterModel> model =
+      config.model.has_params ? FilterModel::Create(config.model.params, outputs, 1)
+                              : FilterModel::Ewma(config.warmup.ewma_lambda, outputs, 0);
+  if (!model.ok()) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("cannot build the starting model: ", model.status().message()));
+  }
+  auto shared = std::make_shared<const FilterModel>(*std::move(model));
+  return std::unique_ptr<IngestCore>(new IngestCore(config, sink, clock, std::move(shared)));
+}
+
+IngestCore::IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* clock,
+                       std::shared_ptr<const FilterModel> initial_model)
+    : config_(config),
+      bar_options_(config.bars.ToBarOptions()),
+      sink_(sink),
+      clock_(clock),
+      initial_model_(std::move(initial_model)) {
+  initial_flags_ = config.model.has_params ? 0u : static_cast<uint32_t>(kFlagWarmup);
+  price_return_scale_ = config.outputs.return_units == ReturnUnits::kPercent ? 100.0 : 1.0;
+  encode_binary_ = config.publish.encoding == WireEncoding::kBinary;
+  const int64_t reserve = std::min<int64_t>(config.limits.max_symbols, kMaxReservedSlots);
+  slots_.reserve(static_cast<size_t>(reserve));
+  index_.reserve(static_cast<size_t>(reserve));
+  ticks_.resize(kMaxBatchTicks);
+  body_.reserve(4096);
+  topic_.reserve(2 + kMaxSymbolLength);
+}
+
+int IngestCore::FindSymbol(absl::string_view symbol) const {
+  auto it = index_.find(symbol);
+  return it == index_.end() ? -1 : it->second;
+}
+
+int IngestCore::IndexFor(absl::string_view symbol) {
+  auto it = index_.find(symbol);
+  if (it != index_.end()) return it->second;
+  if (static_cast<int64_t>(slots_.size()) >= config_.limits.max_symbols) {
+    counters_.rejects.Add(RejectReason::kSymbolLimit);
+    return -1;
+  }
+  const int index = static_cast<int>(slots_.size());
+  slots_.emplace_back();
+  Slot& slot = slots_.back();
+  slot.symbol.assign(symbol);
+  slot.model = initial_model_;
+  slot.status_flags = initial_flags_;
+  if (!initial_model_->is_ewma()) {
+    InitFilterState(*initial_model_, 0.0, &slot.filter);
+    slot.filter_ready = true;
+  }
+  index_.emplace(std::string(symbol), index);
+  counters_.symbols = slots_.size();
+  for (BarObserver* o : observers_) o->OnNewSymbol(this, index, symbol);
+  return index;
+}
+
+void IngestCore::OnMessage(absl::string_view topic, absl::string_view body) {
+  ++counters_.messages_in;
+  const DecodeResult r =
+      DecodeTicks(topic, body, config_.feed.encoding, config_.feed.max_message_bytes,
+                  absl::MakeSpan(ticks_), &counters_.rejects);
+  if (r.n_ticks == 0) return;
+  const int64_t arrival = clock_->NowNs();
+  counters_.ticks_in += r.n_ticks;
+  for (int i = 0; i < r.n_ticks; ++i) HandleTick(ticks_[i], arrival);
+}
+
+void IngestCore::OnMalformedMessage() {
+  ++counters_.messages_in;
+  counters_.rejects.Add(config_.feed.encoding == WireEncoding::kBinary
+                            ? RejectReason::kMalformedBinary
+                            : RejectReason::kMalformedJson);
+}
+
+void IngestCore::OnTick(const Tick& tick) {
+  ++counters_.messages_in;
+  ++counters_.ticks_in;
+  // Files carry event time only; the "arrival" of a replayed tick is its time.
+  HandleTick(tick, tick.t_ns);
+}
+
+void IngestCore::HandleTick(const Tick& tick, int64_t arrival_ns) {
+  const int index = IndexFor(tick.symbol.view());
+  if (index < 0) return;
+  Slot& slot = slots_[index];
+  slot.last_arrival_ns = arrival_ns;
+  const FeedResult fr = FeedTick(&slot.bars_state, tick, bar_options_);
+  if (fr.status != TickStatus::kAccepted) {
+    counters_.rejects.Add(fr.reason);
+    return;
+  }
+  ++counters_.ticks_accepted;
+  ++slot.ticks;
+  slot.last_tick_ns = tick.t_ns;
+  if (fr.closed) HandleBar(index, fr.bar);
+  // interval 0: the tick itself is the bar and is closed right away by FeedTick.
+}
+
+void IngestCore::HandleBar(int index, const ClosedBar& bar) {
+  Slot& slot = slots_[index];
+  ++counters_.bars;
+  ++slot.bars;
+  if (bar.closed_by_clock) ++counters_.bars_clock_closed;
+  uint32_t flags = bar.flags | slot.pending_flags | (bar.closed_by_clock ? kFlagStale : 0u);
+  flags &= ~static_cast<uint32_t>(kFlagFirstBar);  // the engine decides first_bar itself
+  if (!bar.has_return) {
+    slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
+    return;
+  }
+  double r = bar.ret;
+  if (bar.last_price > 0) r *= price_return_scale_;
+  const FilterModel& model = *slot.model;
+  if (!slot.filter_ready) {
+    // EWMA warm-up: the first non-zero return starts the variance at r^2.
+    if (!(r != 0.0) || !std::isfinite(r * r) || r * r <= 0.0) {
+      slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
+      return;
+    }
+    InitFilterState(model, r * r, &slot.filter);
+    slot.filter_ready = true;
+  }
+  slot.pending_flags = 0;
+  BarUpdate& u = update_;
+  u.symbol = slot.symbol;
+  u.t_ns = bar.t_end_ns;
+  u.flags = flags | slot.status_flags;
+  // A step producing a non-finite value must not poison the symbol: the bar is
+  // dropped (non_finite_output) and the state restored. Only an absurd return
+  // (|r| >= 1e100) can overflow a recursion with persistence < 1, so only then
+  // is the state copied first; otherwise the symbol restarts its filter.
+  const bool absurd = !(std::fabs(r) < 1e100);
+  FilterState before;
+  if (absurd) before = slot.filter;
+  FilterStep(model, &slot.filter, r, &u);
+  if (!std::isfinite(slot.filter.var.next_variance) || !std::isfinite(slot.filter.mu_next) ||
+      !std::isfinite(u.z)) {
+    ++counters_.non_finite_output;
+    if (absurd) {
+      slot.filter = before;
+    } else if (model.is_ewma()) {
+      slot.filter_ready = false;
+    } else {
+      InitFilterState(model, 0.0, &slot.filter);
+    }
+    return;
+  }
+  ++slot.filtered;
+  if (slot.filtered < static_cast<uint64_t>(config_.warmup.min_bars)) u.flags |= kFlagFirstBar;
+  for (BarObserver* o : observers_) o->OnBar(this, index, bar, &u);
+
+  const absl::Status s =
+      encode_binary_ ? EncodeUpdateBinary(u, &body_) : EncodeUpdateJson(u, &body_);
+  if (!s.ok()) {
+    ++counters_.non_finite_output;
+    return;
+  }
+  if (SendOn(TopicKind::kUpdate, slot.symbol.view(), body_)) {
+    ++counters_.updates_out;
+    ++slot.updates;
+  } else {
+    ++counters_.drops;
+  }
+}
+
+bool IngestCore::SendOn(TopicKind kind, absl::string_view symbol, absl::string_view body) {
+  topic_.clear();
+  topic_.push_back(static_cast<char>(kind));
+  topic_.push_back('.');
+  topic_.append(symbol.data(), symbol.size());
+  return sink_->Send(topic_, body);
+}
+
+bool IngestCore::PublishSymbolMessage(TopicKind kind, int index, absl::string_view body) {
+  const bool ok = SendOn(kind, slots_[index].symbol.view(), body);
+  if (ok) {
+    ++counters_.extra_out;
+  } else {
+    ++counters_.extra_drops;
+  }
+  return ok;
+}
+
+void IngestCore::OnClock(int64_t now_ns) {
+  last_clock_ns_ = now_ns;
+  if (bar_options_.interval_ns > 0) {
+    ClosedBar bar;
+    for (int i = 0; i < num_symbols(); ++i) {
+      if (!slots_[i].bars_state.open) continue;
+      if (CloseIfDue(&slots_[i].bars_state, now_ns, config_.bars.grace_ns, bar_options_, &bar)) {
+        HandleBar(i, bar);
+      }
+    }
+  }
+  for (BarObserver* o : observers_) o->OnClock(this, now_ns);
+}
+
+void IngestCore::CloseAllOpenBars() {
+  if (bar_options_.interval_ns <= 0) return;
+  ClosedBar bar;
+  for (int i = 0; i < num_symbols(); ++i) {
+    BarState& st = slots_[i].bars_state;
+    if (!st.open) continue;
+    // A time far enough past the bar end closes it whatever the grace.
+    if (CloseIfDue(&st, st.open_end_ns + config_.bars.grace_ns, config_.bars.grace_ns,
+                   bar_options_, &bar)) {
+      bar.closed_by_clock = false;  // the input ended; the bar is complete, not stale
+      HandleBar(i, bar);
+    }
+  }
+}
+
+absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
+  if (index < 0 || index >= num_symbols()) {
+    return absl::InvalidArgumentError(absl::StrCat("SwapModel: no symbol with index ", index));
+  }
+  if (swap.model == nullptr) return absl::InvalidArgumentError("SwapModel: model is null");
+  if (swap.model->is_ewma() && swap.start != ModelSwap::Start::kKeepState &&
+      !(swap.initial_variance > 0)) {
+    return absl::InvalidArgumentError(
+        "SwapModel: an EWMA model needs a positive initial_variance unless the state is kept");
+  }
+  Slot& slot = slots_[index];
+  switch (swap.start) {
+    case ModelSwap::Start::kKeepState:
+      if (!slot.filter_ready) {
+        if (swap.model->is_ewma()) {
+          return absl::FailedPreconditionError(
+              "SwapModel: kKeepState on a symbol without a filter state needs a non-EWMA model");
+        }
+        InitFilterState(*swap.model, swap.initial_variance, &slot.filter);
+      }
+      break;
+    case ModelSwap::Start::kRestart:
+    case ModelSwap::Start::kRerun:
+      InitFilterState(*swap.model, swap.initial_variance, &slot.filter);
+      if (swap.start == ModelSwap::Start::kRerun) {
+        for (double r : swap.rerun_returns) AdvanceState(*swap.model, &slot.filter, r);
+      }
+      break;
+  }
+  slot.filter_ready = true;
+  slot.model = swap.model;
+  slot.status_flags = swap.status_flags & (kFlagWarmup | kFlagFallback);
+  ++counters_.model_swaps;
+  return absl::OkStatus();
+}
+
+}  // namespace aftershock

@@ -1,0 +1,302 @@
+// End to end over TCP loopback: a test PUB feed -> `Engine` (ZeroMQ SUB, ingest
+// core, ZeroMQ PUB) -> a test SUB. Every port is ephemeral.
+#include "aftershock/engine.h"
+
+#include <catch2/catch.hpp>
+#include <chrono>
+#include <future>
+#include <map>
+#include <nlohmann/json.hpp>
+#include <thread>
+#include <zmq.hpp>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/tick_file.h"
+#include "aftershock/update_codec.h"
+#include "aftershock/wire.h"
+#include "aftershock/zmq_transport.h"
+#include "streaming/engine_test_util.h"
+#include "support/test_support.h"
+
+// Under ThreadSanitizer: libzmq is not instrumented, so the hand-over of message
+// buffers between its I/O threads and ours (lock-free pipes) is invisible to
+// the tool and reported as races inside or right next to libzmq. Those are
+// suppressed; races in our own code between our own threads are still caught.
+#if defined(__has_feature)
+#if __has_feature(thread_sanitizer)
+#define AFTERSHOCK_TEST_TSAN 1
+#endif
+#endif
+#if defined(__SANITIZE_THREAD__) || defined(AFTERSHOCK_TEST_TSAN)
+extern "C" const char* __tsan_default_suppressions() {
+  return "called_from_lib:libzmq.so.5\nrace:libzmq.so.5\n";
+}
+#endif
+
+namespace aftershock {
+namespace {
+
+using testing::RelDiff;
+using Ms = std::chrono::milliseconds;
+constexpr int64_t kT0 = 1772443800000000000;
+constexpr int64_t kSec = 1000000000;
+
+std::string LastEndpoint(zmq::socket_t& s) { return s.get(zmq::sockopt::last_endpoint); }
+
+Tick ReturnTick(const std::string& sym, int64_t t, double r) {
+  Tick k;
+  k.symbol.assign(sym);
+  k.t_ns = t;
+  k.kind = Tick::kReturn;
+  k.value = r;
+  return k;
+}
+
+// Counters read on the ingest thread (the documented way from another thread).
+EngineCounters Snapshot(Engine* e) {
+  std::promise<EngineCounters> p;
+  auto f = p.get_future();
+  e->Post([&] { p.set_value(e->core()->counters()); });
+  return f.get();
+}
+
+// The test's side of the wire: a PUB feed, the engine on its own thread, a SUB.
+struct Harness {
+  explicit Harness(EngineConfig config, int sub_rcvhwm = 0) : config_(std::move(config)) {
+    feed.set(zmq::sockopt::sndhwm, 0);
+    feed.bind("tcp://127.0.0.1:*");
+    config_.feed.endpoints = {LastEndpoint(feed)};
+    config_.publish.endpoint = "tcp://127.0.0.1:*";
+    auto transport = ZmqTransport::Create(1);
+    REQUIRE(transport.ok());
+    transport_ = *std::move(transport);
+    auto source = transport_->Subscribe(config_.feed);
+    REQUIRE(source.ok());
+    auto sink = transport_->Publish(config_.publish);
+    REQUIRE(sink.ok());
+    auto engine = Engine::Create(config_, *std::move(source), *std::move(sink), SystemClock());
+    INFO(engine.status().ToString());
+    REQUIRE(engine.ok());
+    engine_ = *std::move(engine);
+    thread_ = std::thread([this] { run_status_ = engine_->Run(); });
+    sub.set(zmq::sockopt::rcvhwm, sub_rcvhwm);
+    sub.set(zmq::sockopt::subscribe, "u.");
+    sub.connect(engine_->BoundEndpoint());
+  }
+  ~Harness() { Stop(); }
+  void Stop() {
+    if (thread_.joinable()) {
+      engine_->Stop();
+      thread_.join();
+    }
+  }
+
+  void SendTick(const Tick& t) {
+    std::string body;
+    if (config_.feed.encoding == WireEncoding::kJson) {
+      EncodeTickJson(t, &body);
+    } else {
+      EncodeTickBinary(t, &body);
+    }
+    feed.send(zmq::buffer(t.symbol.view().data(), t.symbol.size), zmq::send_flags::sndmore);
+    feed.send(zmq::buffer(body), zmq::send_flags::none);
+  }
+
+  // Slow-joiner handling: probe ticks until one comes back through the whole
+  // chain (feed -> engine -> subscriber); both subscriptions are then live.
+  int WaitUntilLive() {
+    int probes = 0;
+    const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(10);
+    while (std::chrono::steady_clock::now() < deadline) {
+      SendTick(ReturnTick("PROBE", kT0 + probes, 0.001));
+      ++probes;
+      zmq::pollitem_t item{sub.handle(), 0, ZMQ_POLLIN, 0};
+      if (zmq::poll(&item, 1, Ms(5)) > 0) {
+        zmq::message_t topic, body;
+        REQUIRE(sub.recv(topic).has_value());
+        REQUIRE(sub.recv(body).has_value());
+        REQUIRE(topic.to_string() == "u.PROBE");
+        return probes;
+      }
+    }
+    FAIL("the subscription never became live");
+    return probes;
+  }
+
+  // Receives until `want` non-probe updates arrived or the timeout passed.
+  std::map<std::string, std::vector<std::string>> Receive(size_t want, int timeout_ms = 15000) {
+    std::map<std::string, std::vector<std::string>> by_topic;
+    size_t got = 0;
+    const auto deadline = std::chrono::steady_clock::now() + Ms(timeout_ms);
+    while (got < want && std::chrono::steady_clock::now() < deadline) {
+      zmq::pollitem_t item{sub.handle(), 0, ZMQ_POLLIN, 0};
+      if (zmq::poll(&item, 1, Ms(50)) <= 0) continue;
+      zmq::message_t topic, body;
+      REQUIRE(sub.recv(topic).has_value());
+      REQUIRE(topic.more());
+      REQUIRE(sub.recv(body).has_value());
+      REQUIRE(!body.more());
+      const std::string t = topic.to_string();
+      if (t == "u.PROBE") continue;
+      by_topic[t].push_back(body.to_string());
+      ++got;
+    }
+    return by_topic;
+  }
+
+  EngineConfig config_;
+  zmq::context_t ctx;
+  zmq::socket_t feed{ctx, zmq::socket_type::pub};
+  zmq::socket_t sub{ctx, zmq::socket_type::sub};
+  std::unique_ptr<ZmqTransport> transport_;
+  std::unique_ptr<Engine> engine_;
+  std::thread thread_;
+  absl::Status run_status_;
+};
+
+// Reference: the offline FilterSeries (online_filter.h) of the same model,
+// parameters and starting state (unconditional variance), relative 1e-12.
+TEST_CASE("end to end over TCP loopback equals the offline filter", "[engine][e2e]") {
+  const bool binary = GENERATE(false, true);
+  INFO((binary ? "binary" : "json"));
+  std::string toml = testing::kFixedModelToml;
+  if (binary) toml += "[feed]\nencoding = \"binary\"\n[publish]\nencoding = \"binary\"\n";
+  Harness h(testing::ParseConfigOrDie(toml));
+  h.WaitUntilLive();
+  // Probes lost to the slow joiner never reach the engine: count from here.
+  const EngineCounters base = Snapshot(h.engine_.get());
+
+  const std::vector<std::string> syms = {"ALDER.X", "BIRCH.Y", "CEDAR.Z", "DOGWOOD.W"};
+  const int n = 400;
+  std::vector<std::vector<double>> rets;
+  for (size_t s = 0; s < syms.size(); ++s) rets.push_back(testing::TestReturns(n, 100 + s));
+  for (int i = 0; i < n; ++i) {
+    if (binary && i % 2 == 1) {
+      // Odd bars of every symbol as one batch frame on topic "*".
+      std::vector<Tick> batch;
+      for (size_t s = 0; s < syms.size(); ++s) batch.push_back(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
+      std::string body;
+      EncodeBatchBinary(batch, &body);
+      h.feed.send(zmq::str_buffer("*"), zmq::send_flags::sndmore);
+      h.feed.send(zmq::buffer(body), zmq::send_flags::none);
+      continue;
+    }
+    for (size_t s = 0; s < syms.size(); ++s) h.SendTick(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
+  }
+  auto got = h.Receive(syms.size() * n);
+
+  auto model = FilterModel::Create(h.config_.model.params, testing::OutputsOf(h.config_), 1);
+  REQUIRE(model.ok());
+  const std::vector<std::string> keys = {"s",      "t",        "r",     "mu",  "eps",
+                                         "var",    "z",        "var_next", "vol_ann", "var_h",
+                                         "var_risk", "es",     "scale", "ver", "flags"};
+  for (size_t s = 0; s < syms.size(); ++s) {
+    const auto& bodies = got["u." + syms[s]];
+    REQUIRE(bodies.size() == static_cast<size_t>(n));
+    const auto ref = FilterSeries(*model, 0.0, rets[s]);
+    for (int i = 0; i < n; ++i) {
+      BarUpdate u;
+      if (binary) {
+        REQUIRE(DecodeUpdateBinary(bodies[i], &u).ok());
+      } else {
+        REQUIRE(DecodeUpdateJson(bodies[i], &u).ok());
+        const auto j = nlohmann::json::parse(bodies[i]);
+        REQUIRE(j.size() == keys.size());
+        for (const auto& k : keys) REQUIRE(j.contains(k));
+        CHECK(j["s"] == syms[s]);
+      }
+      CHECK(u.symbol.view() == syms[s]);
+      CHECK(u.t_ns == kT0 + i * kSec);
+      CHECK(RelDiff(u.var, ref[i].var) < 1e-12);
+      CHECK(RelDiff(u.z, ref[i].z) < 1e-12);
+      CHECK(RelDiff(u.var_next, ref[i].var_next) < 1e-12);
+    }
+  }
+  const EngineCounters c = Snapshot(h.engine_.get());
+  CHECK(c.updates_out - base.updates_out == static_cast<uint64_t>(syms.size() * n));
+  CHECK(c.ticks_in - base.ticks_in == static_cast<uint64_t>(syms.size() * n));
+  CHECK(c.drops == 0);
+  CHECK(c.RejectTotal() == 0);
+  h.Stop();
+  CHECK(h.run_status_.ok());
+}
+
+TEST_CASE("bad input over the wire is counted and the engine keeps publishing", "[engine][e2e]") {
+  Harness h(testing::ParseConfigOrDie(testing::kFixedModelToml));
+  h.WaitUntilLive();
+  const EngineCounters base = Snapshot(h.engine_.get());
+  // one-frame message, three-frame message, malformed JSON, a NaN, a bad symbol
+  h.feed.send(zmq::str_buffer("ALONE"), zmq::send_flags::none);
+  h.feed.send(zmq::str_buffer("GOOD.A"), zmq::send_flags::sndmore);
+  h.feed.send(zmq::str_buffer("{}"), zmq::send_flags::sndmore);
+  h.feed.send(zmq::str_buffer("{}"), zmq::send_flags::none);
+  h.feed.send(zmq::str_buffer("GOOD.A"), zmq::send_flags::sndmore);
+  h.feed.send(zmq::str_buffer("{\"t\":"), zmq::send_flags::none);
+  h.feed.send(zmq::str_buffer("GOOD.A"), zmq::send_flags::sndmore);
+  h.feed.send(zmq::str_buffer("{\"t\":5,\"r\":Infinity}"), zmq::send_flags::none);
+  h.feed.send(zmq::str_buffer("NO GOOD"), zmq::send_flags::sndmore);
+  h.feed.send(zmq::str_buffer("{\"t\":5,\"r\":0.1}"), zmq::send_flags::none);
+  for (int i = 0; i < 20; ++i) h.SendTick(ReturnTick("GOOD.A", kT0 + i * kSec, 0.001 * (i % 3 - 1)));
+  auto got = h.Receive(20);
+  CHECK(got["u.GOOD.A"].size() == 20);
+  const EngineCounters c = Snapshot(h.engine_.get());
+  CHECK(c.rejects.Get(RejectReason::kMalformedJson) == 3);  // 1-frame, 3-frame, syntax
+  CHECK(c.rejects.Get(RejectReason::kNonFinite) == 1);
+  CHECK(c.rejects.Get(RejectReason::kBadSymbol) == 1);
+  CHECK(c.updates_out - base.updates_out == 20);
+}
+
+TEST_CASE("a subscriber that never reads does not block ingest; drops are counted",
+          "[engine][e2e]") {
+  EngineConfig config = testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                                  "[publish]\nhigh_water_mark = 10\n");
+  Harness h(config, /*sub_rcvhwm=*/10);
+  h.WaitUntilLive();
+  const EngineCounters base = Snapshot(h.engine_.get());
+  // From here on the subscriber never reads.
+  const int n = 100000;
+  const auto start = std::chrono::steady_clock::now();
+  for (int i = 0; i < n; ++i) h.SendTick(ReturnTick("LARCH.S", kT0 + i, 0.001 * ((i % 5) - 2) + 1e-4));
+  EngineCounters c;
+  const auto deadline = start + std::chrono::seconds(20);
+  do {
+    std::this_thread::sleep_for(Ms(20));
+    c = Snapshot(h.engine_.get());
+  } while (c.ticks_in - base.ticks_in < static_cast<uint64_t>(n) &&
+           std::chrono::steady_clock::now() < deadline);
+  const double secs =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  INFO("seconds " << secs << " updates_out " << c.updates_out << " drops " << c.drops);
+  CHECK(c.ticks_in - base.ticks_in == static_cast<uint64_t>(n));
+  CHECK(c.drops > 0);
+  CHECK(c.updates_out + c.drops == c.bars);
+  CHECK(secs < 20);
+}
+
+TEST_CASE("a finite source: Run() returns at its end after closing open bars", "[engine]") {
+  EngineConfig config = testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                                  "[bars]\ninterval = \"1s\"\n");
+  std::string csv = "symbol,time,return\n";
+  for (int i = 0; i < 50; ++i) {
+    csv += absl::StrCat("MAPLE.F,", kT0 + int64_t{i} * 250000000, ",0.001\n");
+  }
+  auto reader = TickFileReader::FromString(csv, "t.csv");
+  REQUIRE(reader.ok());
+  auto sink = std::make_unique<testing::CollectingSink>();
+  testing::CollectingSink* raw = sink.get();
+  ManualClock clock(kT0);
+  auto engine = Engine::Create(config, std::make_unique<TickFileSource>(*std::move(reader)),
+                               std::move(sink), &clock);
+  REQUIRE(engine.ok());
+  REQUIRE((*engine)->Run().ok());
+  // 50 ticks, 4 per 1 s bar: 13 bars (the last one closed at the end of input).
+  CHECK(raw->messages.size() == 13);
+  CHECK((*engine)->core()->counters().bars == 13);
+  BarUpdate last;
+  REQUIRE(DecodeUpdateJson(raw->messages.back().body, &last).ok());
+  CHECK(RelDiff(last.r, 0.002) < 1e-12);
+  CHECK((last.flags & kFlagStale) == 0);
+}
+
+}  // namespace
+}  // namespace aftershock

@@ -1,0 +1,391 @@
+#include "aftershock/ingest_core.h"
+
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <string>
+#include <vector>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/update_codec.h"
+#include "aftershock/wire.h"
+#include "streaming/engine_test_util.h"
+#include "support/alloc_counter.h"
+#include "support/test_support.h"
+
+namespace aftershock {
+namespace {
+
+using testing::CollectingSink;
+using testing::ParseConfigOrDie;
+using testing::RelDiff;
+
+constexpr int64_t kT0 = 1772443800000000000;  // 2026-03-02T09:30:00Z
+constexpr int64_t kSec = 1000000000;
+
+Tick ReturnTick(const std::string& sym, int64_t t, double r) {
+  Tick k;
+  k.symbol.assign(sym);
+  k.t_ns = t;
+  k.kind = Tick::kReturn;
+  k.value = r;
+  return k;
+}
+
+Tick PriceTick(const std::string& sym, int64_t t, double p) {
+  Tick k = ReturnTick(sym, t, p);
+  k.kind = Tick::kPrice;
+  return k;
+}
+
+void SendJson(IngestCore* core, const Tick& t) {
+  std::string body;
+  EncodeTickJson(t, &body);
+  core->OnMessage(t.symbol.view(), body);
+}
+
+std::vector<BarUpdate> Decoded(const CollectingSink& sink, const std::string& topic) {
+  std::vector<BarUpdate> out;
+  for (const auto& m : sink.messages) {
+    if (m.topic != topic) continue;
+    BarUpdate u;
+    auto s = DecodeUpdateJson(m.body, &u);
+    INFO(m.body);
+    REQUIRE(s.ok());
+    out.push_back(u);
+  }
+  return out;
+}
+
+struct Fixture {
+  explicit Fixture(const std::string& toml) : config(ParseConfigOrDie(toml)) {
+    auto c = IngestCore::Create(config, &sink, &clock);
+    INFO(c.status().ToString());
+    REQUIRE(c.ok());
+    core = *std::move(c);
+  }
+  EngineConfig config;
+  CollectingSink sink;
+  ManualClock clock{kT0};
+  std::unique_ptr<IngestCore> core;
+};
+
+// Reference: the offline FilterSeries of online_filter.h (itself checked bit
+// for bit against the likelihood recursion in tests/models/online_filter_test.cc)
+// with the same model, parameters and starting state.
+TEST_CASE("fixed-parameter stream equals the offline filter per symbol", "[core]") {
+  Fixture f(testing::kFixedModelToml);
+  const std::vector<std::string> syms = {"ALDER.X", "BIRCH.Y", "CEDAR.Z"};
+  std::vector<std::vector<double>> rets;
+  for (size_t s = 0; s < syms.size(); ++s) rets.push_back(testing::TestReturns(300, 11 + s));
+  for (int i = 0; i < 300; ++i) {
+    for (size_t s = 0; s < syms.size(); ++s) {
+      SendJson(f.core.get(), ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
+    }
+  }
+  auto model = FilterModel::Create(f.config.model.params, testing::OutputsOf(f.config), 1);
+  REQUIRE(model.ok());
+  for (size_t s = 0; s < syms.size(); ++s) {
+    const auto ref = FilterSeries(*model, 0.0, rets[s]);
+    const auto got = Decoded(f.sink, "u." + syms[s]);
+    REQUIRE(got.size() == ref.size());
+    for (size_t i = 0; i < ref.size(); ++i) {
+      CHECK(RelDiff(got[i].var, ref[i].var) < 1e-12);
+      CHECK(RelDiff(got[i].z, ref[i].z) < 1e-12);
+      CHECK(RelDiff(got[i].var_next, ref[i].var_next) < 1e-12);
+      CHECK(got[i].t_ns == kT0 + static_cast<int64_t>(i) * kSec);
+      CHECK(got[i].ver == 1);
+      // [warmup] min_bars = 2: only the first filtered bar carries first_bar.
+      CHECK(got[i].flags == (i == 0 ? kFlagFirstBar : 0u));
+    }
+  }
+  CHECK(f.core->counters().updates_out == 900);
+  CHECK(f.core->counters().bars == 900);
+  CHECK(f.core->counters().RejectTotal() == 0);
+  CHECK(f.core->symbol_updates(f.core->FindSymbol("BIRCH.Y")) == 300);
+}
+
+TEST_CASE("without params: EWMA warm-up from the first non-zero return squared", "[core]") {
+  Fixture f("[warmup]\newma_lambda = 0.97\n");
+  std::vector<double> r = {0.0, 0.004, -0.002, 0.01, 0.0005};
+  for (size_t i = 0; i < r.size(); ++i) {
+    SendJson(f.core.get(), ReturnTick("DELTA.Q", kT0 + i * kSec, r[i]));
+  }
+  // The zero return cannot start a variance: nothing is published for it.
+  auto got = Decoded(f.sink, "u.DELTA.Q");
+  REQUIRE(got.size() == 4);
+  auto ewma = FilterModel::Ewma(0.97, testing::OutputsOf(f.config), 0);
+  REQUIRE(ewma.ok());
+  const std::vector<double> tail(r.begin() + 1, r.end());
+  const auto ref = FilterSeries(*ewma, 0.004 * 0.004, tail);
+  for (size_t i = 0; i < ref.size(); ++i) {
+    CHECK(got[i].ver == 0);
+    CHECK((got[i].flags & kFlagWarmup) != 0);
+    CHECK(RelDiff(got[i].var, ref[i].var) < 1e-12);
+    CHECK(RelDiff(got[i].var_next, ref[i].var_next) < 1e-12);
+  }
+  CHECK(got[0].var == 0.004 * 0.004);
+  CHECK((got[0].flags & kFlagFirstBar) != 0);
+  CHECK((got[1].flags & kFlagFirstBar) == 0);
+}
+
+TEST_CASE("price ticks: first bar publishes nothing, then log returns", "[core]") {
+  Fixture f(testing::kFixedModelToml);
+  f.core->OnTick(PriceTick("ELM.P", kT0, 100.0));
+  CHECK(f.sink.messages.empty());
+  f.core->OnTick(PriceTick("ELM.P", kT0 + kSec, 101.0));
+  f.core->OnTick(PriceTick("ELM.P", kT0 + 2 * kSec, 100.5));
+  auto got = Decoded(f.sink, "u.ELM.P");
+  REQUIRE(got.size() == 2);
+  CHECK(got[0].r == std::log(101.0 / 100.0));
+  CHECK(got[1].r == std::log(100.5 / 101.0));
+  CHECK(f.core->counters().bars == 3);
+}
+
+TEST_CASE("percent units scale price-derived returns by 100", "[core]") {
+  Fixture f(std::string(testing::kFixedModelToml) + "[outputs]\nreturn_units = \"percent\"\n" +
+            "target_vol_ann = 10\n");
+  f.core->OnTick(PriceTick("ELM.P", kT0, 100.0));
+  f.core->OnTick(PriceTick("ELM.P", kT0 + kSec, 101.0));
+  auto got = Decoded(f.sink, "u.ELM.P");
+  REQUIRE(got.size() == 1);
+  CHECK(RelDiff(got[0].r, 100.0 * std::log(1.01)) < 1e-15);
+}
+
+TEST_CASE("time bars: ticks aggregate, the clock closes idle bars as stale", "[core]") {
+  Fixture f(std::string(testing::kFixedModelToml) +
+            "[bars]\ninterval = \"1s\"\ngrace = \"200ms\"\n");
+  const std::string s = "FIR.T";
+  f.core->OnTick(ReturnTick(s, kT0 + 100, 0.001));
+  f.core->OnTick(ReturnTick(s, kT0 + 500000000, 0.002));
+  CHECK(f.sink.messages.empty());
+  // A tick in the next bar closes the first one (sum of returns).
+  f.core->OnTick(ReturnTick(s, kT0 + kSec + 10, -0.0005));
+  auto got = Decoded(f.sink, "u." + s);
+  REQUIRE(got.size() == 1);
+  CHECK(RelDiff(got[0].r, 0.003) < 1e-15);
+  CHECK(got[0].t_ns == kT0 + kSec);
+  CHECK((got[0].flags & kFlagStale) == 0);
+  // Not yet due: end (t0 + 2 s) + grace (200 ms).
+  f.core->OnClock(kT0 + 2 * kSec + 100000000);
+  CHECK(Decoded(f.sink, "u." + s).size() == 1);
+  f.core->OnClock(kT0 + 2 * kSec + 200000000);
+  got = Decoded(f.sink, "u." + s);
+  REQUIRE(got.size() == 2);
+  CHECK(got[1].r == -0.0005);
+  CHECK((got[1].flags & kFlagStale) != 0);
+  CHECK(f.core->counters().bars_clock_closed == 1);
+}
+
+TEST_CASE("bad-input corpus: every class counted by reason, never fatal, no NaN", "[core]") {
+  const std::string toml = std::string(testing::kFixedModelToml) +
+                           "[limits]\nmax_symbols = 3\n"
+                           "[bars]\nsession = { start = \"08:00\", end = \"16:30\", "
+                           "timezone_offset_minutes = 0 }\n";
+  Fixture f(toml);
+  Fixture fb(toml + "[feed]\nencoding = \"binary\"\nmax_message_bytes = 1048576\n");
+  IngestCore* c = f.core.get();
+  const std::string s = "GOOD.A";
+  int64_t t = kT0;
+  SendJson(c, ReturnTick(s, t += kSec, 0.001));
+  // malformed_json
+  c->OnMessage(s, "{\"t\":1,\"r\":");
+  // malformed_binary (binary feed): bad version byte
+  fb.core->OnMessage(s, std::string("\xA7\x02\x00\x00", 4));
+  // bad_symbol: a space in the symbol frame
+  c->OnMessage("BAD SYM", absl::StrCat("{\"t\":", t + 1, ",\"r\":0.001}"));
+  // oversize: a body beyond max_message_bytes (65536)
+  c->OnMessage(s, std::string(70000, ' '));
+  // non_finite: a NaN token
+  c->OnMessage(s, absl::StrCat("{\"t\":", t + 2, ",\"r\":NaN}"));
+  // non_positive_price (its own symbol, a price symbol)
+  c->OnMessage("PRICE.B", absl::StrCat("{\"t\":", t + 3, ",\"p\":-5}"));
+  // missing_field: no value
+  c->OnMessage(s, absl::StrCat("{\"t\":", t + 4, "}"));
+  // batch_too_large: kMaxBatchTicks + 1 binary records on the binary feed
+  {
+    std::vector<Tick> many(kMaxBatchTicks + 1, ReturnTick("GOOD.A", t + 5, 0.001));
+    std::string body;
+    EncodeBatchBinary(many, &body);
+    fb.core->OnMessage("*", body);
+  }
+  // too_old: earlier than the symbol's last tick
+  SendJson(c, ReturnTick(s, t - 10 * kSec, 0.001));
+  // outside_session: 20:00 UTC
+  SendJson(c, ReturnTick(s, kT0 + 10 * 3600 * kSec + 30 * 60 * kSec, 0.001));
+  // symbol_limit: GOOD.A is 1; two more fit, the fourth does not
+  SendJson(c, ReturnTick("SYM.2", t, 0.001));
+  SendJson(c, ReturnTick("SYM.3", t, 0.001));
+  SendJson(c, ReturnTick("SYM.4", t, 0.001));
+  // A one-frame message.
+  c->OnMalformedMessage();
+
+  const RejectCounters& rj = c->counters().rejects;
+  CHECK(rj.Get(RejectReason::kMalformedJson) == 2);
+  CHECK(rj.Get(RejectReason::kBadSymbol) == 1);
+  CHECK(rj.Get(RejectReason::kOversize) == 1);
+  CHECK(rj.Get(RejectReason::kNonFinite) == 1);
+  CHECK(rj.Get(RejectReason::kNonPositivePrice) == 1);
+  CHECK(rj.Get(RejectReason::kMissingField) == 1);
+  CHECK(rj.Get(RejectReason::kTooOld) == 1);
+  CHECK(rj.Get(RejectReason::kOutsideSession) == 1);
+  CHECK(rj.Get(RejectReason::kSymbolLimit) == 1);
+  const RejectCounters& rb = fb.core->counters().rejects;
+  CHECK(rb.Get(RejectReason::kMalformedBinary) == 1);
+  CHECK(rb.Get(RejectReason::kBatchTooLarge) == 1);
+
+  // Later good ticks still produce updates.
+  const size_t before = Decoded(f.sink, "u." + s).size();
+  for (int i = 0; i < 5; ++i) SendJson(c, ReturnTick(s, t += kSec, 0.002 * (i % 2 ? 1 : -1)));
+  CHECK(Decoded(f.sink, "u." + s).size() == before + 5);
+
+  // An absurd (finite) return would make the variance overflow: that update is
+  // dropped as non_finite_output and the state is kept, so the next is fine.
+  SendJson(c, ReturnTick(s, t += kSec, 1e200));
+  CHECK(c->counters().non_finite_output == 1);
+  SendJson(c, ReturnTick(s, t += kSec, 0.001));
+  CHECK(Decoded(f.sink, "u." + s).size() == before + 6);
+  for (const auto& m : f.sink.messages) {
+    CHECK(m.body.find("nan") == std::string::npos);
+    CHECK(m.body.find("inf") == std::string::npos);
+    BarUpdate u;
+    REQUIRE(DecodeUpdateJson(m.body, &u).ok());
+    CHECK(std::isfinite(u.var));
+    CHECK(std::isfinite(u.z));
+    CHECK(std::isfinite(u.var_next));
+  }
+}
+
+class FlaggingObserver : public BarObserver {
+ public:
+  struct Count : SymbolExtra {
+    int bars = 0;
+  };
+  void OnNewSymbol(IngestCore* core, int index, absl::string_view symbol) override {
+    core->set_extra(index, 1, std::make_unique<Count>());
+    new_symbols.push_back(std::string(symbol));
+  }
+  void OnBar(IngestCore* core, int index, const ClosedBar& bar, BarUpdate* u) override {
+    auto* c = static_cast<Count*>(core->extra(index, 1));
+    ++c->bars;
+    if (std::fabs(u->z) > 1.5) {
+      u->flags |= kFlagFallback;  // any bit: proves flags reach the wire
+      core->PublishSymbolMessage(IngestCore::TopicKind::kAlert, index, "{\"kind\":\"shock\"}");
+    }
+    last_index = index;
+  }
+  void OnClock(IngestCore* core, int64_t now_ns) override {
+    ++clocks;
+    if (core->num_symbols() > 0) {
+      core->PublishSymbolMessage(IngestCore::TopicKind::kModel, 0, "{\"event\":\"tick\"}");
+    }
+  }
+  std::vector<std::string> new_symbols;
+  int last_index = -1;
+  int clocks = 0;
+};
+
+TEST_CASE("observers see each bar before publishing; extra topics; extra state", "[core]") {
+  Fixture f(testing::kFixedModelToml);
+  FlaggingObserver obs;
+  f.core->AddObserver(&obs);
+  const auto r = testing::TestReturns(200, 5);
+  for (int i = 0; i < 200; ++i) SendJson(f.core.get(), ReturnTick("HAZEL.Q", kT0 + i * kSec, r[i]));
+  f.core->OnClock(kT0 + 300 * kSec);
+  REQUIRE(obs.new_symbols == std::vector<std::string>{"HAZEL.Q"});
+  CHECK(static_cast<FlaggingObserver::Count*>(f.core->extra(0, 1))->bars == 200);
+  CHECK(obs.clocks == 1);
+  int alerts = 0, flagged = 0, models = 0;
+  for (const auto& m : f.sink.messages) {
+    if (m.topic == "a.HAZEL.Q") ++alerts;
+    if (m.topic == "m.HAZEL.Q") ++models;
+    if (m.topic == "u.HAZEL.Q") {
+      BarUpdate u;
+      REQUIRE(DecodeUpdateJson(m.body, &u).ok());
+      const bool big = std::fabs(u.z) > 1.5;
+      CHECK(((u.flags & kFlagFallback) != 0) == big);
+      flagged += big;
+    }
+  }
+  CHECK(alerts == flagged);
+  CHECK(alerts > 0);
+  CHECK(models == 1);
+  CHECK(f.core->counters().extra_out == static_cast<uint64_t>(alerts + models));
+}
+
+TEST_CASE("SwapModel at a bar boundary, with a re-run over recent returns", "[core]") {
+  Fixture f(testing::kFixedModelToml);
+  const auto r = testing::TestReturns(120, 9);
+  for (int i = 0; i < 100; ++i) SendJson(f.core.get(), ReturnTick("IVY.R", kT0 + i * kSec, r[i]));
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  REQUIRE(spec.ok());
+  auto p2 = ModelParams::FromNamed(
+      *spec, {{"mu", 0.0001}, {"omega", 4e-6}, {"alpha1", 0.1}, {"beta1", 0.85}});
+  REQUIRE(p2.ok());
+  auto m2 = FilterModel::Create(*p2, testing::OutputsOf(f.config), 2);
+  REQUIRE(m2.ok());
+  auto shared = std::make_shared<const FilterModel>(*m2);
+  ModelSwap swap;
+  swap.model = shared;
+  swap.start = ModelSwap::Start::kRerun;
+  swap.rerun_returns = absl::MakeConstSpan(r.data() + 50, 50);  // bars 50..99
+  REQUIRE(f.core->SwapModel(0, swap).ok());
+  for (int i = 100; i < 120; ++i) SendJson(f.core.get(), ReturnTick("IVY.R", kT0 + i * kSec, r[i]));
+  // Reference: the new model started at its unconditional variance, run over
+  // bars 50..119; the last 20 outputs are the stream's.
+  const std::vector<double> window(r.begin() + 50, r.end());
+  const auto ref = FilterSeries(*m2, 0.0, window);
+  const auto got = Decoded(f.sink, "u.IVY.R");
+  REQUIRE(got.size() == 120);
+  for (int i = 100; i < 120; ++i) {
+    CHECK(got[i].ver == 2);
+    CHECK(RelDiff(got[i].var, ref[i - 50].var) < 1e-12);
+    CHECK(RelDiff(got[i].var_next, ref[i - 50].var_next) < 1e-12);
+  }
+  CHECK(f.core->counters().model_swaps == 1);
+  // Errors are values.
+  ModelSwap bad;
+  CHECK(f.core->SwapModel(0, bad).message() == "SwapModel: model is null");
+  CHECK(f.core->SwapModel(7, swap).message() == "SwapModel: no symbol with index 7");
+}
+
+TEST_CASE("a refusing sink: updates counted as drops", "[core]") {
+  Fixture f(testing::kFixedModelToml);
+  f.sink.refuse = true;
+  for (int i = 0; i < 10; ++i) SendJson(f.core.get(), ReturnTick("JUNI.P", kT0 + i * kSec, 0.001));
+  CHECK(f.core->counters().drops == 10);
+  CHECK(f.core->counters().updates_out == 0);
+}
+
+TEST_CASE("steady-state hot path allocates nothing (10,000 ticks)", "[core][alloc]") {
+  for (const char* enc : {"json", "binary"}) {
+    INFO(enc);
+    EngineConfig config = ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                           "[publish]\nencoding = \"" + enc + "\"\n" +
+                                           "[bars]\ninterval = \"1s\"\n");
+    NullSink sink;
+    ManualClock clock(kT0);
+    auto core = IngestCore::Create(config, &sink, &clock);
+    REQUIRE(core.ok());
+    const std::vector<std::string> syms = {"KAPOK.A", "KAPOK.B", "KAPOK.C", "KAPOK.D"};
+    const auto r = testing::TestReturns(12000, 3);
+    // Pre-encode every message (encoding is the test's cost, not the engine's).
+    std::vector<std::string> bodies(r.size());
+    std::vector<std::string> batch_bodies;
+    for (size_t i = 0; i < r.size(); ++i) {
+      EncodeTickJson(ReturnTick(syms[i % 4], kT0 + static_cast<int64_t>(i) * 300000000, r[i]),
+                     &bodies[i]);
+    }
+    for (size_t i = 0; i < 2000; ++i) (*core)->OnMessage(syms[i % 4], bodies[i]);
+    const uint64_t bars_before = (*core)->counters().bars;
+    const uint64_t a0 = testing::AllocationCount();
+    for (size_t i = 2000; i < 12000; ++i) (*core)->OnMessage(syms[i % 4], bodies[i]);
+    (*core)->OnClock(kT0 + 12000LL * 300000000);
+    const uint64_t a1 = testing::AllocationCount();
+    CHECK(a1 - a0 == 0);
+    CHECK((*core)->counters().bars - bars_before > 2000);
+    CHECK((*core)->counters().updates_out > 2000);
+  }
+}
+
+}  // namespace
+}  // namespace aftershock
