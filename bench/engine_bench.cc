@@ -3,7 +3,7 @@
 //     -> consumer SUB, the same single-tick messages the engine gets;
 //   * engine throughput: feed PUB -> Engine (SUB, ingest core, PUB) -> consumer
 //     SUB, one tick per message and batched frames (updates are always one
-//     message each);
+//     message each), and its ingest alone (updates encoded, then discarded);
 //   * tick-in -> update-out latency at a fixed offered rate (default 100k
 //     ticks/s): the tick's t is CLOCK_REALTIME at send, the consumer subtracts
 //     it from CLOCK_REALTIME at receipt (both hops of loopback TCP included);
@@ -20,6 +20,7 @@
 #include <chrono>
 #include <cstdio>
 #include <cstring>
+#include <future>
 #include <string>
 #include <thread>
 #include <vector>
@@ -131,9 +132,11 @@ struct Middle {
   virtual void Stop() = 0;
 };
 
+// Its own context (one I/O thread), as the engine has: the same thread
+// topology, so the comparison isolates the engine's processing.
 struct Forwarder : Middle {
-  Forwarder(zmq::context_t& ctx, const std::string& feed) : in(ctx, zmq::socket_type::sub),
-                                                            out(ctx, zmq::socket_type::pub) {
+  explicit Forwarder(const std::string& feed)
+      : ctx(1), in(ctx, zmq::socket_type::sub), out(ctx, zmq::socket_type::pub) {
     in.set(zmq::sockopt::rcvhwm, 0);
     in.set(zmq::sockopt::subscribe, "");
     in.connect(feed);
@@ -159,6 +162,7 @@ struct Forwarder : Middle {
     stop = true;
     if (th.joinable()) th.join();
   }
+  zmq::context_t ctx;
   zmq::socket_t in, out;
   std::string endpoint;
   std::atomic<bool> stop{false};
@@ -206,7 +210,7 @@ struct Rig {
     feed.bind("tcp://127.0.0.1:*");
     feed_ep = feed.get(zmq::sockopt::last_endpoint);
     if (engine) mid = std::make_unique<EngineMiddle>(feed_ep, enc);
-    else mid = std::make_unique<Forwarder>(ctx, feed_ep);
+    else mid = std::make_unique<Forwarder>(feed_ep);
     sub.set(zmq::sockopt::rcvhwm, 0);
     sub.set(zmq::sockopt::subscribe, "");
     sub.connect(mid->OutEndpoint());
@@ -325,6 +329,64 @@ struct Rig {
   }
 };
 
+// Feed PUB -> Engine with a discarding sink (no outbound sockets): how fast the
+// engine ingests, decodes, filters and encodes, apart from the output fan-out.
+double IngestOnlyRate(const std::vector<Msg>& msgs, uint64_t ticks, WireEncoding enc,
+                      uint64_t* processed) {
+  zmq::context_t ctx(1);
+  zmq::socket_t feed(ctx, zmq::socket_type::pub);
+  feed.set(zmq::sockopt::sndhwm, 0);
+  feed.bind("tcp://127.0.0.1:*");
+  EngineConfig c = BenchConfig(enc);
+  c.feed.endpoints = {feed.get(zmq::sockopt::last_endpoint)};
+  auto transport = *ZmqTransport::Create(1);
+  ZmqSubscriberOptions so;
+  so.receive_hwm = 0;
+  auto src = transport->Subscribe(c.feed, so);
+  if (!src.ok()) std::exit(1);
+  auto engine = *Engine::Create(c, *std::move(src), std::make_unique<NullSink>(), SystemClock());
+  std::thread th([&] { (void)engine->Run(); });
+  auto ticks_in = [&] {
+    std::promise<uint64_t> p;
+    auto f = p.get_future();
+    engine->Post([&] { p.set_value(engine->core()->counters().ticks_in); });
+    return f.get();
+  };
+  // Slow joiner: probes until the engine has seen one.
+  Tick probe = MakeTick(0, 0, 0.001);
+  probe.symbol.assign("PROBE");
+  Msg m;
+  m.topic = "PROBE";
+  for (int i = 0; ticks_in() == 0; ++i) {
+    probe.t_ns = kT0 - 1000000000 + i;
+    if (enc == WireEncoding::kBinary) EncodeTickBinary(probe, &m.body);
+    else EncodeTickJson(probe, &m.body);
+    Send(feed, m);
+    std::this_thread::sleep_for(std::chrono::milliseconds(2));
+  }
+  std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  const uint64_t base = ticks_in();
+  const auto start = std::chrono::steady_clock::now();
+  for (const Msg& msg : msgs) Send(feed, msg);
+  uint64_t got = 0;
+  auto last = start;
+  uint64_t prev = 0;
+  while ((got = ticks_in() - base) < ticks) {
+    std::this_thread::sleep_for(std::chrono::microseconds(200));
+    if (got != prev) {
+      prev = got;
+      last = std::chrono::steady_clock::now();
+    } else if (std::chrono::steady_clock::now() - last > std::chrono::seconds(2)) {
+      break;  // stalled
+    }
+  }
+  const auto end = std::chrono::steady_clock::now();
+  engine->Stop();
+  th.join();
+  *processed = got;
+  return got / Secs(start, end);
+}
+
 double CpuNow() {
   timespec ts;
   clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts);
@@ -434,6 +496,18 @@ int main(int argc, char** argv) {
       std::printf("%-44s %11.0f/s %10s %10s %10s%s\n",
                   absl::StrCat("engine, batches of ", batch, " (", en, ") ticks").c_str(),
                   got / s, "", "", "", got < static_cast<uint64_t>(n_batch_ticks) ? "  (incomplete)" : "");
+    }
+    if (!latency_only) {
+      uint64_t got = 0;
+      const double r1 = IngestOnlyRate(single, single.size(), enc, &got);
+      std::printf("%-44s %11.0f/s%s\n",
+                  absl::StrCat("engine ingest only, 1 tick/msg (", en, ")").c_str(), r1,
+                  got < single.size() ? "  (incomplete)" : "");
+      const auto batches = BatchMessages(n_batch_ticks, batch, enc);
+      const double r2 = IngestOnlyRate(batches, n_batch_ticks, enc, &got);
+      std::printf("%-44s %11.0f/s%s\n",
+                  absl::StrCat("engine ingest only, batches of ", batch, " (", en, ")").c_str(),
+                  r2, got < static_cast<uint64_t>(n_batch_ticks) ? "  (incomplete)" : "");
     }
     for (bool engine : {false, true}) {
       Rig rig(engine, enc);
