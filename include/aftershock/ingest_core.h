@@ -185,9 +185,9 @@ class IngestCore : public TickConsumer {
   const FilterModel& model(int index) const { return *slots_[index].model; }
   const FilterState& filter_state(int index) const { return slots_[index].filter; }
   uint32_t status_flags(int index) const { return slots_[index].status_flags; }
-  uint64_t symbol_bars(int index) const { return slots_[index].bars; }        // bars closed
-  uint64_t symbol_updates(int index) const { return slots_[index].updates; }  // published
-  uint64_t symbol_ticks(int index) const { return slots_[index].ticks; }      // accepted
+  uint64_t symbol_bars(int index) const { return slots_[index].bars; }          // bars closed
+  uint64_t symbol_updates(int index) const { return slots_[index].updates; }    // published
+  uint64_t symbol_ticks(int index) const { return slots_[index].ticks; }        // accepted
   int64_t last_tick_ns(int index) const { return slots_[index].last_tick_ns; }  // event time
   // Wall clock (Clock::NowNs) of the last message carrying this symbol.
   int64_t last_arrival_ns(int index) const { return slots_[index].last_arrival_ns; }
@@ -200,9 +200,9 @@ class IngestCore : public TickConsumer {
     BarState bars_state;
     FilterState filter;
     std::shared_ptr<const FilterModel> model;
-    uint32_t status_flags = 0;    // kFlagWarmup / kFlagFallback
-    uint32_t pending_flags = 0;   // flags of unpublished bars, carried forward
-    bool filter_ready = false;    // filter state initialized
+    uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback
+    uint32_t pending_flags = 0;  // flags of unpublished bars, carried forward
+    bool filter_ready = false;   // filter state initialized
     uint64_t bars = 0;
     uint64_t filtered = 0;
     uint64_t updates = 0;

@@ -14,8 +14,7 @@ std::string RejectSummary(const EngineCounters& c) {
                     RejectReasonName(static_cast<RejectReason>(i)), " ", n);
   }
   if (c.non_finite_output > 0) {
-    absl::StrAppend(&detail, detail.empty() ? "" : ", ", "non_finite_output ",
-                    c.non_finite_output);
+    absl::StrAppend(&detail, detail.empty() ? "" : ", ", "non_finite_output ", c.non_finite_output);
   }
   if (!detail.empty()) absl::StrAppend(&out, " (", detail, ")");
   return out;

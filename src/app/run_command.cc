@@ -41,14 +41,14 @@ int RunCommand(int argc, char** argv) {
   auto config = LoadEngineConfigFile(args.Get("config"));
   if (!config.ok()) return Fail(config.status(), 2);
   const std::string model =
-      config->model.has_params ? "fixed [model.params], version 1"
-                               : absl::StrCat("EWMA warm-up (lambda ", config->warmup.ewma_lambda,
-                                              "), version 0");
-  const std::string plan = absl::StrCat(
-      "feed ", absl::StrJoin(config->feed.endpoints, ","), " (",
-      WireEncodingName(config->feed.encoding), ") -> bars ",
-      FormatDuration(config->bars.interval_ns), " -> ", model, " -> publish ",
-      config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")");
+      config->model.has_params
+          ? "fixed [model.params], version 1"
+          : absl::StrCat("EWMA warm-up (lambda ", config->warmup.ewma_lambda, "), version 0");
+  const std::string plan =
+      absl::StrCat("feed ", absl::StrJoin(config->feed.endpoints, ","), " (",
+                   WireEncodingName(config->feed.encoding), ") -> bars ",
+                   FormatDuration(config->bars.interval_ns), " -> ", model, " -> publish ",
+                   config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")");
   if (args.Flag("check")) {
     std::printf("%s: configuration OK\n%s\n", args.Get("config").c_str(), plan.c_str());
     return 0;
@@ -70,8 +70,7 @@ int RunCommand(int argc, char** argv) {
                "aftershock run: stopped; %llu messages, %llu ticks, %llu bars, %llu updates, "
                "%llu drops, %s, %llu symbols\n",
                static_cast<unsigned long long>(c.messages_in),
-               static_cast<unsigned long long>(c.ticks_in),
-               static_cast<unsigned long long>(c.bars),
+               static_cast<unsigned long long>(c.ticks_in), static_cast<unsigned long long>(c.bars),
                static_cast<unsigned long long>(c.updates_out),
                static_cast<unsigned long long>(c.drops), RejectSummary(c).c_str(),
                static_cast<unsigned long long>(c.symbols));

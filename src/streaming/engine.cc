@@ -4,15 +4,14 @@
 
 #include <algorithm>
 #include <atomic>
+#include <boost/asio/io_context.hpp>
+#include <boost/asio/posix/stream_descriptor.hpp>
+#include <boost/asio/post.hpp>
+#include <boost/asio/signal_set.hpp>
+#include <boost/asio/steady_timer.hpp>
 #include <chrono>
 #include <csignal>
 #include <utility>
-
-#include <boost/asio/io_context.hpp>
-#include <boost/asio/post.hpp>
-#include <boost/asio/posix/stream_descriptor.hpp>
-#include <boost/asio/signal_set.hpp>
-#include <boost/asio/steady_timer.hpp>
 
 #include "aftershock/engine_metrics.h"
 #include "aftershock/zmq_transport.h"
@@ -35,8 +34,7 @@ struct Engine::Loop {
 absl::StatusOr<std::unique_ptr<Engine>> Engine::Create(const EngineConfig& config,
                                                        std::unique_ptr<TickSource> source,
                                                        std::unique_ptr<UpdateSink> sink,
-                                                       Clock* clock,
-                                                       const EngineOptions& options) {
+                                                       Clock* clock, const EngineOptions& options) {
   auto core = IngestCore::Create(config, sink.get(), clock);
   if (!core.ok()) return core.status();
   std::unique_ptr<Engine> e(new Engine());
@@ -45,8 +43,8 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::Create(const EngineConfig& confi
   if (e->options_.max_messages_per_round < 1) e->options_.max_messages_per_round = 1;
   if (e->options_.clock_tick_ns <= 0) {
     constexpr int64_t kMs = 1000000;
-    e->options_.clock_tick_ns =
-        config.bars.interval_ns > 0 ? std::clamp<int64_t>(config.bars.grace_ns / 2, kMs, 100 * kMs)
+    e->options_.clock_tick_ns = config.bars.interval_ns > 0
+                                    ? std::clamp<int64_t>(config.bars.grace_ns / 2, kMs, 100 * kMs)
                                     : 100 * kMs;
   }
   e->clock_ = clock;

@@ -5,10 +5,10 @@
 namespace aftershock {
 namespace {
 
-void Metric(std::string* o, absl::string_view name, absl::string_view type,
-            absl::string_view help, uint64_t value) {
-  absl::StrAppend(o, "# HELP aftershock_", name, " ", help, "\n# TYPE aftershock_", name, " ",
-                  type, "\naftershock_", name, " ", value, "\n");
+void Metric(std::string* o, absl::string_view name, absl::string_view type, absl::string_view help,
+            uint64_t value) {
+  absl::StrAppend(o, "# HELP aftershock_", name, " ", help, "\n# TYPE aftershock_", name, " ", type,
+                  "\naftershock_", name, " ", value, "\n");
 }
 
 }  // namespace
@@ -48,8 +48,8 @@ std::string FormatPrometheusMetrics(const IngestCore& core) {
       const uint64_t v = kind[0] == 't'   ? core.symbol_ticks(i)
                          : kind[0] == 'b' ? core.symbol_bars(i)
                                           : core.symbol_updates(i);
-      absl::StrAppend(&o, "aftershock_symbol_", kind, "_total{symbol=\"", core.symbol(i), "\"} ",
-                      v, "\n");
+      absl::StrAppend(&o, "aftershock_symbol_", kind, "_total{symbol=\"", core.symbol(i), "\"} ", v,
+                      "\n");
     }
   }
   return o;

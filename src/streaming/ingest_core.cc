@@ -234,8 +234,8 @@ void IngestCore::CloseAllOpenBars() {
     BarState& st = slots_[i].bars_state;
     if (!st.open) continue;
     // A time far enough past the bar end closes it whatever the grace.
-    if (CloseIfDue(&st, st.open_end_ns + config_.bars.grace_ns, config_.bars.grace_ns,
-                   bar_options_, &bar)) {
+    if (CloseIfDue(&st, st.open_end_ns + config_.bars.grace_ns, config_.bars.grace_ns, bar_options_,
+                   &bar)) {
       bar.closed_by_clock = false;  // the input ended; the bar is complete, not stale
       HandleBar(i, bar);
     }

@@ -7,11 +7,10 @@
 #ifndef AFTERSHOCK_STREAMING_METRICS_HTTP_H_
 #define AFTERSHOCK_STREAMING_METRICS_HTTP_H_
 
+#include <boost/asio/io_context.hpp>
 #include <functional>
 #include <memory>
 #include <string>
-
-#include <boost/asio/io_context.hpp>
 
 #include "absl/status/statusor.h"
 
@@ -23,8 +22,8 @@ class MetricsHttpServer {
   // Binds host:port ("127.0.0.1:7310"; port 0 picks a free one) and starts
   // accepting. Error naming the endpoint when it cannot bind.
   static absl::StatusOr<std::unique_ptr<MetricsHttpServer>> Start(boost::asio::io_context* io,
-                                                                   const std::string& endpoint,
-                                                                   Render health, Render metrics);
+                                                                  const std::string& endpoint,
+                                                                  Render health, Render metrics);
   ~MetricsHttpServer();
   std::string endpoint() const;  // "127.0.0.1:40123"
   void Close();

@@ -50,7 +50,8 @@ TEST_CASE("replay: one update line per CSV row, equal to the offline filter", "[
   std::vector<std::vector<double>> rets;
   const std::string input = testing::WriteFile(dir + "/ticks.csv", ReturnCsv(syms, 500, &rets));
   const std::string cfg = testing::WriteFile(dir + "/c.toml", testing::kFixedModelToml);
-  const auto r = RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/u.jsonl"});
+  const auto r =
+      RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/u.jsonl"});
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   // The summary line: bars, rejects, seconds and bars/s.
@@ -76,8 +77,7 @@ TEST_CASE("replay: one update line per CSV row, equal to the offline filter", "[
   CHECK(k == 500);
 }
 
-TEST_CASE("replay output is byte-identical on repeated runs (time bars, prices)",
-          "[app][replay]") {
+TEST_CASE("replay output is byte-identical on repeated runs (time bars, prices)", "[app][replay]") {
   const std::string dir = testing::ScratchDir("replay_repeat");
   // Irregular price ticks for three symbols, 1 s bars: exercises aggregation,
   // clock closes by event time and the warm-up EWMA (no [model.params]).
@@ -98,8 +98,10 @@ TEST_CASE("replay output is byte-identical on repeated runs (time bars, prices)"
   }
   const std::string input = testing::WriteFile(dir + "/ticks.csv", csv);
   const std::string cfg = testing::WriteFile(dir + "/c.toml", "[bars]\ninterval = \"1s\"\n");
-  const auto a = RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/a.jsonl"});
-  const auto b = RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/b.jsonl"});
+  const auto a =
+      RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/a.jsonl"});
+  const auto b =
+      RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/b.jsonl"});
   INFO(a.err << b.err);
   REQUIRE(a.exit_code == 0);
   REQUIRE(b.exit_code == 0);
@@ -131,8 +133,8 @@ TEST_CASE("replay and run: clear errors, exit 2", "[app][replay]") {
   r = RunCli({"replay", "--config", bad, "--input", input, "--output", dir + "/o.jsonl"});
   CHECK(r.exit_code == 2);
   CHECK(r.err.find("bad.toml:2: [bars] interval") != std::string::npos);
-  r = RunCli({"replay", "--config", good, "--input", dir + "/none.csv", "--output",
-              dir + "/o.jsonl"});
+  r = RunCli(
+      {"replay", "--config", good, "--input", dir + "/none.csv", "--output", dir + "/o.jsonl"});
   CHECK(r.exit_code == 2);
   CHECK(r.err.find("none.csv") != std::string::npos);
   const std::string junk = testing::WriteFile(dir + "/junk.csv", "symbol,time,return\nx\ny\n");
@@ -191,8 +193,7 @@ std::string HttpGet(int port, const std::string& path) {
   return out;
 }
 
-TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0; health and metrics",
-          "[app][run]") {
+TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0; health and metrics", "[app][run]") {
   const std::string dir = testing::ScratchDir("run_sigterm");
   const int http_port = FreePort();
   REQUIRE(http_port > 0);
@@ -213,8 +214,7 @@ TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0; health and metrics"
   // Wait for the line printed from inside the event loop (handlers installed).
   const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(10);
   std::string err;
-  while (err.find("running:") == std::string::npos &&
-         std::chrono::steady_clock::now() < deadline) {
+  while (err.find("running:") == std::string::npos && std::chrono::steady_clock::now() < deadline) {
     std::this_thread::sleep_for(std::chrono::milliseconds(10));
     std::ifstream in(err_path);
     std::stringstream ss;
@@ -227,10 +227,10 @@ TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0; health and metrics"
   const std::string metrics = HttpGet(http_port, "/metrics");
   CHECK(metrics.rfind("HTTP/1.1 200 OK", 0) == 0);
   CHECK(metrics.find("text/plain; version=0.0.4") != std::string::npos);
-  CHECK(metrics.find("# TYPE aftershock_updates_out_total counter\naftershock_updates_out_total 0\n") !=
+  CHECK(metrics.find(
+            "# TYPE aftershock_updates_out_total counter\naftershock_updates_out_total 0\n") !=
         std::string::npos);
-  CHECK(metrics.find("aftershock_rejects_total{reason=\"symbol_limit\"} 0\n") !=
-        std::string::npos);
+  CHECK(metrics.find("aftershock_rejects_total{reason=\"symbol_limit\"} 0\n") != std::string::npos);
   const std::string health = HttpGet(http_port, "/health");
   CHECK(health.rfind("HTTP/1.1 200 OK", 0) == 0);
   CHECK(health.find("{\"status\":\"ok\",\"symbols\":0") != std::string::npos);

@@ -10,8 +10,7 @@ namespace {
 
 // Format reference: Prometheus text exposition format 0.0.4 (HELP/TYPE lines,
 // `name{label="value"} number`).
-TEST_CASE("metrics text carries every counter, rejects by reason, per-symbol counts",
-          "[metrics]") {
+TEST_CASE("metrics text carries every counter, rejects by reason, per-symbol counts", "[metrics]") {
   EngineConfig config = testing::ParseConfigOrDie(testing::kFixedModelToml);
   testing::CollectingSink sink;
   ManualClock clock;
@@ -38,7 +37,8 @@ TEST_CASE("metrics text carries every counter, rejects by reason, per-symbol cou
   CHECK(m.find("aftershock_rejects_total{reason=\"non_finite_output\"} 0\n") != std::string::npos);
   CHECK(m.find("aftershock_symbol_updates_total{symbol=\"NUTMEG.J\"} 3\n") != std::string::npos);
   CHECK(m.find("aftershock_symbol_ticks_total{symbol=\"NUTMEG.J\"} 3\n") != std::string::npos);
-  CHECK(FormatHealthJson(**core) == "{\"status\":\"ok\",\"symbols\":1,\"updates\":3,\"rejects\":1}\n");
+  CHECK(FormatHealthJson(**core) ==
+        "{\"status\":\"ok\",\"symbols\":1,\"updates\":3,\"rejects\":1}\n");
 }
 
 }  // namespace

@@ -174,22 +174,24 @@ TEST_CASE("end to end over TCP loopback equals the offline filter", "[engine][e2
     if (binary && i % 2 == 1) {
       // Odd bars of every symbol as one batch frame on topic "*".
       std::vector<Tick> batch;
-      for (size_t s = 0; s < syms.size(); ++s) batch.push_back(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
+      for (size_t s = 0; s < syms.size(); ++s)
+        batch.push_back(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
       std::string body;
       EncodeBatchBinary(batch, &body);
       h.feed.send(zmq::str_buffer("*"), zmq::send_flags::sndmore);
       h.feed.send(zmq::buffer(body), zmq::send_flags::none);
       continue;
     }
-    for (size_t s = 0; s < syms.size(); ++s) h.SendTick(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
+    for (size_t s = 0; s < syms.size(); ++s)
+      h.SendTick(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
   }
   auto got = h.Receive(syms.size() * n);
 
   auto model = FilterModel::Create(h.config_.model.params, testing::OutputsOf(h.config_), 1);
   REQUIRE(model.ok());
-  const std::vector<std::string> keys = {"s",      "t",        "r",     "mu",  "eps",
-                                         "var",    "z",        "var_next", "vol_ann", "var_h",
-                                         "var_risk", "es",     "scale", "ver", "flags"};
+  const std::vector<std::string> keys = {"s",        "t",  "r",        "mu",      "eps",
+                                         "var",      "z",  "var_next", "vol_ann", "var_h",
+                                         "var_risk", "es", "scale",    "ver",     "flags"};
   for (size_t s = 0; s < syms.size(); ++s) {
     const auto& bodies = got["u." + syms[s]];
     REQUIRE(bodies.size() == static_cast<size_t>(n));
@@ -236,7 +238,8 @@ TEST_CASE("bad input over the wire is counted and the engine keeps publishing", 
   h.feed.send(zmq::str_buffer("{\"t\":5,\"r\":Infinity}"), zmq::send_flags::none);
   h.feed.send(zmq::str_buffer("NO GOOD"), zmq::send_flags::sndmore);
   h.feed.send(zmq::str_buffer("{\"t\":5,\"r\":0.1}"), zmq::send_flags::none);
-  for (int i = 0; i < 20; ++i) h.SendTick(ReturnTick("GOOD.A", kT0 + i * kSec, 0.001 * (i % 3 - 1)));
+  for (int i = 0; i < 20; ++i)
+    h.SendTick(ReturnTick("GOOD.A", kT0 + i * kSec, 0.001 * (i % 3 - 1)));
   auto got = h.Receive(20);
   CHECK(got["u.GOOD.A"].size() == 20);
   const EngineCounters c = Snapshot(h.engine_.get());
@@ -256,7 +259,8 @@ TEST_CASE("a subscriber that never reads does not block ingest; drops are counte
   // From here on the subscriber never reads.
   const int n = 100000;
   const auto start = std::chrono::steady_clock::now();
-  for (int i = 0; i < n; ++i) h.SendTick(ReturnTick("LARCH.S", kT0 + i, 0.001 * ((i % 5) - 2) + 1e-4));
+  for (int i = 0; i < n; ++i)
+    h.SendTick(ReturnTick("LARCH.S", kT0 + i, 0.001 * ((i % 5) - 2) + 1e-4));
   EngineCounters c;
   const auto deadline = start + std::chrono::seconds(20);
   do {

@@ -359,9 +359,9 @@ TEST_CASE("a refusing sink: updates counted as drops", "[core]") {
 TEST_CASE("steady-state hot path allocates nothing (10,000 ticks)", "[core][alloc]") {
   for (const char* enc : {"json", "binary"}) {
     INFO(enc);
-    EngineConfig config = ParseConfigOrDie(std::string(testing::kFixedModelToml) +
-                                           "[publish]\nencoding = \"" + enc + "\"\n" +
-                                           "[bars]\ninterval = \"1s\"\n");
+    EngineConfig config =
+        ParseConfigOrDie(std::string(testing::kFixedModelToml) + "[publish]\nencoding = \"" + enc +
+                         "\"\n" + "[bars]\ninterval = \"1s\"\n");
     NullSink sink;
     ManualClock clock(kT0);
     auto core = IngestCore::Create(config, &sink, &clock);
