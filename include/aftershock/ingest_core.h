@@ -121,6 +121,7 @@ struct ModelSwap {
     kKeepState,  // continue from the symbol's current lags and next variance
     kRestart,    // InitFilterState(model, initial_variance)
     kRerun,      // kRestart, then AdvanceState over `rerun_returns` (oldest first)
+    kState,      // take `state` as given (e.g. re-run by a refit worker)
   };
   std::shared_ptr<const FilterModel> model;  // REQUIRED, created (Create/Ewma)
   Start start = Start::kRerun;
@@ -129,6 +130,8 @@ struct ModelSwap {
   double initial_variance = 0;
   // Returns to re-run (kRerun); only read during the call.
   absl::Span<const double> rerun_returns;
+  // The state to continue from (kState; REQUIRED then); copied during the call.
+  const FilterState* state = nullptr;
   // Status flags the symbol's updates carry from now on: kFlagWarmup and/or
   // kFlagFallback (others are ignored).
   uint32_t status_flags = 0;
@@ -176,6 +179,9 @@ class IngestCore : public TickConsumer {
   // extra_out, or extra_drops when the sink refused it (then false).
   // REQUIRES: 0 <= index < num_symbols().
   bool PublishSymbolMessage(TopicKind kind, int index, absl::string_view body);
+  // Sends body on "<kind>.<name>" for a name that is not a symbol (feed-wide
+  // alerts use "a._feed"); counted like PublishSymbolMessage.
+  bool PublishNamedMessage(TopicKind kind, absl::string_view name, absl::string_view body);
 
   // ---- Inspection ----
   const EngineCounters& counters() const { return counters_; }

@@ -204,7 +204,12 @@ bool IngestCore::SendOn(TopicKind kind, absl::string_view symbol, absl::string_v
 }
 
 bool IngestCore::PublishSymbolMessage(TopicKind kind, int index, absl::string_view body) {
-  const bool ok = SendOn(kind, slots_[index].symbol.view(), body);
+  return PublishNamedMessage(kind, slots_[index].symbol.view(), body);
+}
+
+bool IngestCore::PublishNamedMessage(TopicKind kind, absl::string_view name,
+                                     absl::string_view body) {
+  const bool ok = SendOn(kind, name, body);
   if (ok) {
     ++counters_.extra_out;
   } else {
@@ -247,8 +252,11 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
     return absl::InvalidArgumentError(absl::StrCat("SwapModel: no symbol with index ", index));
   }
   if (swap.model == nullptr) return absl::InvalidArgumentError("SwapModel: model is null");
+  if (swap.start == ModelSwap::Start::kState && swap.state == nullptr) {
+    return absl::InvalidArgumentError("SwapModel: kState needs a state");
+  }
   if (swap.model->is_ewma() && swap.start != ModelSwap::Start::kKeepState &&
-      !(swap.initial_variance > 0)) {
+      swap.start != ModelSwap::Start::kState && !(swap.initial_variance > 0)) {
     return absl::InvalidArgumentError(
         "SwapModel: an EWMA model needs a positive initial_variance unless the state is kept");
   }
@@ -269,6 +277,9 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
       if (swap.start == ModelSwap::Start::kRerun) {
         for (double r : swap.rerun_returns) AdvanceState(*swap.model, &slot.filter, r);
       }
+      break;
+    case ModelSwap::Start::kState:
+      slot.filter = *swap.state;
       break;
   }
   slot.filter_ready = true;

@@ -1,0 +1,86 @@
+// EngineServices: the background re-estimation (refit.h) and the alert rules
+// (alerts.h) attached to an IngestCore as one BarObserver, configured from the
+// [refit] and [alerts] sections. `aftershock run`, `replay` and `demo` attach it
+// the same way, so the live engine and a replay behave identically.
+//
+// Per bar of a symbol (ingest thread, after its update is computed):
+//   1. the alert rules see the update (shock, regime) and emit on "a.<symbol>",
+//      to the optional alerts file (JSON Lines) and to the listener;
+//   2. the refit coordinator takes the return (window, schedule, hand-off);
+//      when a job reaches the stream its record goes out on "m.<symbol>" and
+//      to the listener, the model/persistence/fallback alerts fire, and a new
+//      version (or the EWMA fallback) is swapped into the core with the
+//      coordinator's re-run variance state, so the next bar uses it.
+// Per clock tick: stale-symbol checks (inside the session) and the burst of
+// rejected ticks.
+//
+// Refits are enabled when [refit] every_bars or every_seconds is non-zero. In
+// replay mode a refit scheduled at bar n is applied exactly at n +
+// apply_lag_bars, so outputs do not depend on thread timing or worker counts.
+// Candidates come from PipelineRefitter: the identification pipeline on the
+// first fit, every reidentify_every refits and after a failed gate; a
+// warm-started re-estimation of the current model otherwise.
+//
+// Thread-safety: everything on the ingest thread, except that the refit
+// workers run in the background (see refit.h).
+#ifndef AFTERSHOCK_ENGINE_SERVICES_H_
+#define AFTERSHOCK_ENGINE_SERVICES_H_
+
+#include <memory>
+#include <string>
+
+#include "absl/status/status.h"
+#include "absl/status/statusor.h"
+#include "aftershock/alerts.h"
+#include "aftershock/engine_config.h"
+#include "aftershock/ingest_core.h"
+#include "aftershock/model_registry.h"
+#include "aftershock/refit.h"
+
+namespace aftershock {
+
+// Receives what the services publish (replay reports, the demo's summary).
+// Called on the ingest thread.
+class ServiceListener {
+ public:
+  virtual ~ServiceListener() = default;
+  // `index` is the core's symbol index, or -1 for feed-wide alerts.
+  virtual void OnAlert(int index, const Alert& alert) {}
+  virtual void OnRefitRecord(int index, const RefitRecord& record) {}
+};
+
+struct ServiceOptions {
+  // Live: a finished refit is applied at the first bar boundary after
+  // apply_lag_bars. Replay: exactly at apply_lag_bars (waits if needed).
+  RefitMode mode = RefitMode::kLive;
+  // Alerts also go to this JSON Lines file ("" = none). Truncated at start.
+  std::string alerts_path;
+  // Optional observer of alerts and refit records (not owned).
+  ServiceListener* listener = nullptr;
+  // Overrides [refit] workers when > 0.
+  int workers = 0;
+};
+
+class EngineServices {
+ public:
+  // Builds the alert engine and (when enabled) the refit coordinator and adds
+  // the observer to `core`. InvalidArgument for option values the components
+  // refuse (with the config key in the message); NotFound if the alerts file
+  // cannot be created. REQUIRES: core outlives the services; no input fed yet.
+  static absl::StatusOr<std::unique_ptr<EngineServices>> Attach(IngestCore* core,
+                                                                const EngineConfig& config,
+                                                                const ServiceOptions& options);
+  virtual ~EngineServices() = default;
+
+  virtual bool refit_enabled() const = 0;
+  // Refit counters (zero when disabled). Any thread.
+  virtual RefitStats refit_stats() const = 0;
+  // Alert counters by kind and severity. Ingest thread.
+  virtual const AlertCounters& alert_counters() const = 0;
+  // Flushes the alerts file. Ingest thread (or after the engine stopped).
+  virtual absl::Status Flush() = 0;
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_ENGINE_SERVICES_H_
