@@ -212,7 +212,7 @@ struct SymbolAlertState {
 };
 
 // The outcome of one refit, as the scheduler reports it.
-struct RefitOutcome {
+struct GateEvent {
   bool passed = false;           // the fit passed the quality gate and is swapped in
   int consecutive_failures = 0;  // failed gates in a row including this one (0 if passed)
   // Short reason of the failure ("diagnostics failed: Ljung-Box p = 0.002"),
@@ -241,7 +241,7 @@ class AlertEngine {
                    SymbolAlertState* state, AlertSink* sink);
 
   // The outcome of a refit of `symbol` (model rule: gate failures).
-  void OnRefitOutcome(const Symbol& symbol, int64_t t_ns, const RefitOutcome& outcome,
+  void OnRefitOutcome(const Symbol& symbol, int64_t t_ns, const GateEvent& outcome,
                       SymbolAlertState* state, AlertSink* sink);
 
   // The EWMA fallback was engaged (engaged = true) or cleared by model `version`.

@@ -50,6 +50,10 @@ struct IdentifyOptions {
   bool try_student_t = true;
   // Presample rule of the variance recursion. Default mean-square.
   Presample presample = Presample::kMeanSquare;
+  // Variance candidates whose fitted persistence is at or above this are not
+  // eligible in step 3 (the refit gate would refuse them); they stay in the
+  // report with the reason. 1 = no restriction. Default 1.
+  double max_persistence = 1.0;
 };
 
 struct TestOutcome {
@@ -64,7 +68,8 @@ struct TestOutcome {
 struct VarianceCandidateResult {
   ModelSpec spec;
   bool ok = false;         // the fit ran and converged
-  std::string error;       // why not, when !ok
+  bool eligible = false;   // ok and persistence below options.max_persistence
+  std::string error;       // why not ok or not eligible
   double loglik = 0, aic = 0, bic = 0;
   int num_params = 0;      // estimated variance/law parameters (mean fixed)
   double criterion = 0;    // the chosen criterion's value

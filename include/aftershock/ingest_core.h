@@ -100,6 +100,14 @@ class SymbolExtra {
 };
 inline constexpr int kMaxSymbolExtras = 4;
 
+// More metrics for the HTTP endpoint (e.g. alert and refit counters), appended
+// in Prometheus text format after the core's own. Called on the ingest thread.
+class MetricsSource {
+ public:
+  virtual ~MetricsSource() = default;
+  virtual void AppendPrometheus(std::string* out) const = 0;
+};
+
 // Per-bar hook. Implementations belong to one core and are called on its
 // thread. They may call the core's SwapModel / PublishSymbolMessage / extra().
 class BarObserver {
@@ -149,6 +157,9 @@ class IngestCore : public TickConsumer {
 
   // Adds a per-bar hook (not owned; must outlive the core). Add before input.
   void AddObserver(BarObserver* observer) { observers_.push_back(observer); }
+  // Adds a metrics source (not owned; must outlive the core).
+  void AddMetricsSource(const MetricsSource* source) { metrics_sources_.push_back(source); }
+  const std::vector<const MetricsSource*>& metrics_sources() const { return metrics_sources_; }
 
   // TickConsumer: the input paths.
   void OnMessage(absl::string_view topic, absl::string_view body) override;
@@ -234,6 +245,7 @@ class IngestCore : public TickConsumer {
   double price_return_scale_ = 1.0;
   bool encode_binary_ = false;
   std::vector<BarObserver*> observers_;
+  std::vector<const MetricsSource*> metrics_sources_;
   absl::flat_hash_map<std::string, int> index_;
   std::vector<Slot> slots_;
   std::vector<Tick> ticks_;  // decode buffer, kMaxBatchTicks

@@ -20,4 +20,19 @@ std::string RejectSummary(const EngineCounters& c) {
   return out;
 }
 
+std::string ServicesSummary(const EngineServices& services) {
+  std::string out;
+  if (services.refit_enabled()) {
+    const RefitStats r = services.refit_stats();
+    out = absl::StrCat("refits: ", r.submitted, " run, ", r.swapped, " swapped, ", r.rejected,
+                       " rejected, ", r.fallbacks, " fallbacks");
+  } else {
+    out = "refits off";
+  }
+  const AlertCounters& a = services.alert_counters();
+  absl::StrAppend(&out, "; alerts: ", a.TotalEmitted(), " emitted, ", a.TotalSuppressed(),
+                  " suppressed");
+  return out;
+}
+
 }  // namespace aftershock::app

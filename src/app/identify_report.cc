@@ -59,6 +59,7 @@ nlohmann::json IdentificationJson(const IdentificationReport& rep) {
   for (const auto& c : rep.variance_candidates) {
     var.push_back({{"model", ModelSpecJson(c.spec)},
                    {"ok", c.ok},
+                   {"eligible", c.eligible},
                    {"loglik", c.ok ? JsonNumber(c.loglik) : nlohmann::json()},
                    {"aic", c.ok ? JsonNumber(c.aic) : nlohmann::json()},
                    {"bic", c.ok ? JsonNumber(c.bic) : nlohmann::json()},
@@ -113,8 +114,9 @@ std::string IdentificationText(const IdentificationReport& rep, const std::strin
       continue;
     }
     const bool chosen = c.spec == rep.two_step.params.spec;
-    absl::StrAppend(&out, absl::StrFormat("    %-32s%s %14.4f %12.4f %12.4f\n", c.spec.Label(),
-                                          chosen ? " *" : "  ", c.loglik, c.aic, c.bic));
+    absl::StrAppend(&out, absl::StrFormat("    %-32s%s %14.4f %12.4f %12.4f%s\n", c.spec.Label(),
+                                          chosen ? " *" : "  ", c.loglik, c.aic, c.bic,
+                                          c.eligible ? "" : "  (" + c.error + ")"));
   }
   absl::StrAppend(&out, "    -> ", rep.variance_decision, "\n\n4. Diagnostics of the two-step model\n");
   AppendTests(&out, rep.diagnostics_two_step);

@@ -8,13 +8,17 @@
 #include <string>
 
 #include "absl/strings/str_format.h"
+#include "absl/time/clock.h"
+#include "absl/time/time.h"
 #include "aftershock/engine_config.h"
+#include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/update_sink.h"
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/engine_report.h"
+#include "app/replay_recorder.h"
 
 namespace aftershock::app {
 namespace {
@@ -35,11 +39,24 @@ int ReplayCommand(int argc, char** argv) {
       "event time, so idle time bars close exactly as they would live. With [bars]\n"
       "interval \"0s\" each CSV row is a bar. Open bars are closed at the end of the input.\n"
       "[publish] encoding is ignored (the output is always JSON).\n\n"
+      "Refits ([refit] every_bars / every_seconds) and alerts ([alerts]) run exactly as in\n"
+      "`aftershock run`; a refit scheduled at bar n is applied at bar n + apply_lag_bars\n"
+      "whatever the worker timing, so the output is byte-identical across runs and worker\n"
+      "counts. Model records (the m.<symbol> messages) go to --models and alerts (the\n"
+      "a.<symbol> messages) to --alerts, one JSON object a line.\n\n"
+      "--report writes a self-contained HTML evaluation (forecast losses, VaR backtests,\n"
+      "alerts, parameter history, charts); --summary-json the same statistics as JSON.\n\n"
       "Example:\n  aftershock replay --config config/default.toml --input ticks.csv "
-      "--output updates.jsonl");
+      "--output updates.jsonl --report report.html");
   args.AddOption("config", "FILE", "engine configuration (TOML)", "", true);
   args.AddOption("input", "FILE", "tick CSV to replay", "", true);
   args.AddOption("output", "FILE", "JSON Lines output ('-' = standard output)", "", true);
+  args.AddOption("alerts", "FILE", "write alerts as JSON Lines");
+  args.AddOption("models", "FILE", "write model records (refit outcomes, swaps) as JSON Lines");
+  args.AddOption("report", "FILE", "write the HTML evaluation report");
+  args.AddOption("summary-json", "FILE", "write the evaluation statistics as JSON");
+  args.AddOption("title", "TEXT", "report title", "Replay evaluation");
+  args.AddOption("workers", "N", "refit worker threads (overrides [refit] workers)");
   args.AddFlag("quiet", "no progress and no summary on standard error");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
@@ -56,6 +73,25 @@ int ReplayCommand(int argc, char** argv) {
   ManualClock clock;
   auto core = IngestCore::Create(*config, sink->get(), &clock);
   if (!core.ok()) return Fail(core.status(), 2);
+  const bool evaluate = args.Has("report") || args.Has("summary-json");
+  ReplayRecorder recorder(*config, evaluate);
+  if (evaluate) (*core)->AddObserver(&recorder);
+  if (args.Has("models")) {
+    if (auto s = recorder.OpenModelsFile(args.Get("models")); !s.ok()) return Fail(s, 2);
+  }
+  ServiceOptions so;
+  so.mode = RefitMode::kReplay;
+  so.alerts_path = args.Get("alerts");
+  so.listener = &recorder;
+  if (args.Has("workers")) {
+    auto w = args.GetInt("workers");
+    if (!w.ok() || *w < 1 || *w > 64) {
+      return Fail(absl::InvalidArgumentError("--workers must be an integer in 1..64"), 2);
+    }
+    so.workers = static_cast<int>(*w);
+  }
+  auto services = EngineServices::Attach(core->get(), *config, so);
+  if (!services.ok()) return Fail(services.status(), 2);
 
   const bool quiet = args.Flag("quiet");
   const bool progress = !quiet && isatty(STDERR_FILENO);
@@ -94,8 +130,40 @@ int ReplayCommand(int argc, char** argv) {
   if (!read_status.ok()) return Fail(read_status, 2);
   (*core)->CloseAllOpenBars();
   if (absl::Status s = (*core)->Flush(); !s.ok()) return Fail(s, 1);
+  if (absl::Status s = (*services)->Flush(); !s.ok()) return Fail(s, 1);
+  if (absl::Status s = recorder.CloseModelsFile(); !s.ok()) return Fail(s, 1);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  if (evaluate) {
+    recorder.Finish(**core);
+    if (args.Has("summary-json")) {
+      nlohmann::json j = recorder.SummaryJson(EvaluationOptions{});
+      j["input"] = args.Get("input");
+      j["bars"] = (*core)->counters().bars;
+      j["seconds"] = seconds;
+      FILE* f = std::fopen(args.Get("summary-json").c_str(), "w");
+      if (f == nullptr) {
+        return Fail(absl::NotFoundError("cannot create '" + args.Get("summary-json") + "'"), 1);
+      }
+      const std::string text = j.dump(2) + "\n";
+      const bool ok = std::fwrite(text.data(), 1, text.size(), f) == text.size();
+      if (std::fclose(f) != 0 || !ok) {
+        return Fail(absl::InternalError("cannot write '" + args.Get("summary-json") + "'"), 1);
+      }
+    }
+    if (args.Has("report")) {
+      ReportRunInfo run;
+      run.title = args.Get("title");
+      run.input_file = args.Get("input");
+      run.config_summary = FormatEngineConfig(*config);
+      run.generated_at = absl::FormatTime("%Y-%m-%d %H:%M UTC", absl::Now(), absl::UTCTimeZone());
+      run.engine_version = "aftershock 0.1.0";
+      run.replay_speed = (*core)->counters().bars / std::max(seconds, 1e-9);
+      if (absl::Status s = recorder.WriteReport(args.Get("report"), run); !s.ok()) {
+        return Fail(s, 1);
+      }
+    }
+  }
   if (!quiet) {
     const EngineCounters& c = (*core)->counters();
     std::string bad;
@@ -105,12 +173,13 @@ int ReplayCommand(int argc, char** argv) {
     }
     std::fprintf(stderr,
                  "replay: %llu ticks, %llu bars, %llu updates, %s, %llu symbols, %.3f s, "
-                 "%.0f bars/s%s\n",
+                 "%.0f bars/s%s; %s\n",
                  static_cast<unsigned long long>(c.ticks_in),
                  static_cast<unsigned long long>(c.bars),
                  static_cast<unsigned long long>(c.updates_out), RejectSummary(c).c_str(),
                  static_cast<unsigned long long>(c.symbols), seconds,
-                 c.bars / std::max(seconds, 1e-9), bad.c_str());
+                 c.bars / std::max(seconds, 1e-9), bad.c_str(),
+                 ServicesSummary(**services).c_str());
   }
   return 0;
 }

@@ -218,12 +218,30 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
       c.bic = fit->bic;
       c.num_params = fit->num_estimated;
       c.criterion = Criterion(options.criterion, c.aic, c.bic);
+      const double pers = fit->params.Persistence();
+      c.eligible = c.ok && pers < options.max_persistence;
+      if (c.ok && !c.eligible) {
+        c.error = absl::StrFormat("persistence %.5f is not below the admissible %.5g", pers,
+                                  options.max_persistence);
+      }
       fits[i] = *std::move(fit);
-      if (c.ok && (best < 0 || c.criterion < rep.variance_candidates[best].criterion)) {
+    }
+    rep.variance_candidates.push_back(std::move(c));
+  }
+  // The best eligible candidate; if none is eligible, the best converged one.
+  for (int pass = 0; pass < 2 && best < 0; ++pass) {
+    for (size_t i = 0; i < rep.variance_candidates.size(); ++i) {
+      const auto& c = rep.variance_candidates[i];
+      if (!(pass == 0 ? c.eligible : c.ok)) continue;
+      if (best < 0 || c.criterion < rep.variance_candidates[best].criterion) {
         best = static_cast<int>(i);
       }
     }
-    rep.variance_candidates.push_back(std::move(c));
+    if (pass == 0 && best < 0 && !rep.variance_candidates.empty()) {
+      rep.warnings.push_back(
+          "no variance candidate has an admissible persistence; the best by the criterion is "
+          "kept");
+    }
   }
   if (best < 0) {
     return absl::FailedPreconditionError(

@@ -188,7 +188,10 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
   j.in_force = sym->current;
   j.estimated = sym->last_estimated;
   j.fit_index = sym->fits++;
-  j.reidentify = options_.reidentify_every > 0 && j.fit_index % options_.reidentify_every == 0;
+  // The full identification runs on the first fit, every reidentify_every
+  // refits, and after a failed gate (the current specification was refused).
+  j.reidentify = !sym->last_estimated || sym->failures > 0 ||
+                 (options_.reidentify_every > 0 && j.fit_index % options_.reidentify_every == 0);
   j.seed =
       StableSymbolHash(sym->name) ^ (static_cast<uint64_t>(j.fit_index) * 0x9E3779B97F4A7C15ull);
   j.bar = sym->window.total();

@@ -383,7 +383,7 @@ void AlertEngine::OnModelSwap(const Symbol& symbol, int64_t t_ns, uint32_t versi
   Send(a, sink);
 }
 
-void AlertEngine::OnRefitOutcome(const Symbol& symbol, int64_t t_ns, const RefitOutcome& o,
+void AlertEngine::OnRefitOutcome(const Symbol& symbol, int64_t t_ns, const GateEvent& o,
                                  SymbolAlertState* st, AlertSink* sink) {
   Alert* a = &scratch_;
   a->symbol = symbol;

@@ -52,6 +52,7 @@ std::string FormatPrometheusMetrics(const IngestCore& core) {
                       "\n");
     }
   }
+  for (const MetricsSource* src : core.metrics_sources()) src->AppendPrometheus(&o);
   return o;
 }
 

@@ -348,7 +348,7 @@ TEST_CASE("model alerts: gate failures, fallback, recovery", "[alerts]") {
   VectorSink sink;
   SymbolAlertState st;
   const Symbol s = Sym("ALPHA.X");
-  RefitOutcome fail;
+  GateEvent fail;
   fail.reason = "diagnostics failed: Ljung-Box p = 0.002";
   for (int i = 1; i <= 4; ++i) {
     fail.consecutive_failures = i;
@@ -357,7 +357,7 @@ TEST_CASE("model alerts: gate failures, fallback, recovery", "[alerts]") {
   e->OnFallback(s, 5 * kSec, true, 0, "3 failed refits and the model's variance exploded", &st,
                 &sink);
   e->OnFallback(s, 6 * kSec, true, 0, "again", &st, &sink);  // repeat while engaged
-  RefitOutcome ok;
+  GateEvent ok;
   ok.passed = true;
   e->OnRefitOutcome(s, 7 * kSec, ok, &st, &sink);
   e->OnFallback(s, 7 * kSec, false, 9, "", &st, &sink);
@@ -395,7 +395,7 @@ TEST_CASE("model alerts: gate failures, fallback, recovery", "[alerts]") {
   CHECK(c.TotalSuppressed() == 2);
 
   SECTION("a long reason is cut, the sentence stays whole") {
-    RefitOutcome longr;
+    GateEvent longr;
     longr.consecutive_failures = 3;
     const std::string reason(400, 'x');
     longr.reason = reason;

@@ -1,0 +1,193 @@
+#include "app/replay_recorder.h"
+
+#include <cmath>
+#include <limits>
+
+#include "app/fit_report.h"
+
+namespace aftershock::app {
+
+ReplayRecorder::~ReplayRecorder() {
+  if (models_ != nullptr) std::fclose(models_);
+}
+
+absl::Status ReplayRecorder::OpenModelsFile(const std::string& path) {
+  models_ = std::fopen(path.c_str(), "w");
+  if (models_ == nullptr) return absl::NotFoundError("cannot create '" + path + "'");
+  models_path_ = path;
+  return absl::OkStatus();
+}
+
+absl::Status ReplayRecorder::CloseModelsFile() {
+  if (models_ == nullptr) return absl::OkStatus();
+  const int rc = std::fclose(models_);
+  models_ = nullptr;
+  if (rc != 0) return absl::InternalError("cannot write '" + models_path_ + "'");
+  return absl::OkStatus();
+}
+
+void ReplayRecorder::OnNewSymbol(IngestCore* core, int index, absl::string_view symbol) {
+  if (static_cast<int>(histories_.size()) <= index) {
+    histories_.resize(index + 1);
+    regime_start_.resize(index + 1, -1);
+    regime_dir_.resize(index + 1, 0);
+  }
+  histories_[index].symbol = std::string(symbol);
+}
+
+void ReplayRecorder::OnBar(IngestCore* core, int index, const ClosedBar& bar,
+                           BarUpdate* update) {
+  // No realized-variance column reaches the bar builder: rv stays absent.
+  (void)AppendBarUpdate(*update, std::numeric_limits<double>::quiet_NaN(), &histories_[index]);
+}
+
+void ReplayRecorder::OnAlert(int index, const Alert& alert) {
+  if (index < 0 || !collect_) return;  // feed-wide alerts have no symbol page
+  SymbolHistory& h = histories_[index];
+  AlertRecord rec;
+  rec.t_ns = alert.t_ns;
+  rec.kind = std::string(AlertKindName(alert.kind));
+  rec.severity = std::string(SeverityName(alert.severity));
+  rec.value = alert.value;
+  rec.message = std::string(alert.message_view());
+  h.alerts.push_back(std::move(rec));
+  const int dir = alert.rule == AlertRule::kRegimeLow ? -1 : 1;
+  if (alert.kind == AlertKind::kRegime) {
+    regime_start_[index] = alert.t_ns;
+    regime_dir_[index] = dir;
+  } else if (alert.kind == AlertKind::kRegimeClear && regime_start_[index] >= 0) {
+    h.regimes.push_back(RegimePeriod{regime_start_[index], alert.t_ns, regime_dir_[index]});
+    regime_start_[index] = -1;
+  }
+}
+
+void ReplayRecorder::OnRefitRecord(int index, const RefitRecord& r) {
+  if (models_ != nullptr) {
+    const std::string line = EncodeRefitRecordJson(r);
+    std::fwrite(line.data(), 1, line.size(), models_);
+    std::fputc('\n', models_);
+  }
+  if (!collect_) return;
+  ModelSwapRecord rec;
+  rec.t_ns = r.t_ns;
+  rec.version = r.version;
+  rec.model = r.spec;
+  rec.param_names = r.names;
+  rec.values = r.values;
+  rec.std_errors = r.std_errors;
+  rec.loglik = r.loglik;
+  rec.accepted = r.outcome == RefitOutcome::kSwapped;
+  for (size_t i = 0; i < r.reasons.size(); ++i) {
+    rec.gate_reason += (i ? "; " : "") + r.reasons[i];
+  }
+  if (!rec.accepted && rec.gate_reason.empty()) rec.gate_reason = r.note;
+  histories_[index].swaps.push_back(std::move(rec));
+}
+
+void ReplayRecorder::Finish(const IngestCore& core) {
+  for (size_t i = 0; i < histories_.size(); ++i) {
+    SymbolHistory& h = histories_[i];
+    if (regime_start_[i] >= 0 && !h.t_ns.empty()) {
+      h.regimes.push_back(RegimePeriod{regime_start_[i], h.t_ns.back(), regime_dir_[i]});
+      regime_start_[i] = -1;
+    }
+    auto law = InnovationLaw::FromParams(core.model(static_cast<int>(i)).params());
+    if (law.ok()) h.law = *law;
+  }
+}
+
+namespace {
+
+nlohmann::json LossJson(const ForecastLoss& l) {
+  return {{"target", l.target},
+          {"n", l.n},
+          {"qlike", JsonNumber(l.qlike)},
+          {"qlike_normalized", JsonNumber(l.qlike_normalized)},
+          {"mse", JsonNumber(l.mse)},
+          {"mincer_zarnowitz",
+           {{"intercept", JsonNumber(l.mz.intercept)},
+            {"slope", JsonNumber(l.mz.slope)},
+            {"r_squared", JsonNumber(l.mz.r_squared)},
+            {"intercept_se_robust", JsonNumber(l.mz.intercept_se_robust)},
+            {"slope_se_robust", JsonNumber(l.mz.slope_se_robust)}}}};
+}
+
+}  // namespace
+
+nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) const {
+  nlohmann::json out;
+  nlohmann::json symbols = nlohmann::json::array();
+  for (const SymbolHistory& h : histories_) {
+    auto ev = EvaluateSymbol(h, options);
+    if (!ev.ok()) {
+      symbols.push_back({{"symbol", h.symbol}, {"error", std::string(ev.status().message())}});
+      continue;
+    }
+    nlohmann::json levels = nlohmann::json::array();
+    for (const LevelBacktest& b : ev->levels) {
+      const ExceptionTests& t = b.tests;
+      levels.push_back({{"level", b.level},
+                        {"bars", t.n},
+                        {"exceptions", t.exceptions},
+                        {"rate", JsonNumber(t.rate)},
+                        {"kupiec_lr", JsonNumber(t.lr_pof)},
+                        {"kupiec_p", JsonNumber(t.p_pof)},
+                        {"christoffersen_lr", JsonNumber(t.lr_ind)},
+                        {"christoffersen_p", JsonNumber(t.p_ind)},
+                        {"conditional_coverage_lr", JsonNumber(t.lr_cc)},
+                        {"conditional_coverage_p", JsonNumber(t.p_cc)},
+                        {"zone", ZoneName(b.traffic_light.zone)},
+                        {"zone_window_exceptions", b.traffic_light.window_exceptions},
+                        {"share_green", JsonNumber(b.traffic_light.share_green)},
+                        {"share_yellow", JsonNumber(b.traffic_light.share_yellow)},
+                        {"share_red", JsonNumber(b.traffic_light.share_red)},
+                        {"es_ratio", JsonNumber(b.es_ratio)},
+                        {"es_n", b.es_n}});
+    }
+    nlohmann::json alerts = nlohmann::json::array();
+    for (const AlertCount& a : ev->alerts) {
+      alerts.push_back({{"kind", a.kind}, {"severity", a.severity}, {"count", a.count}});
+    }
+    nlohmann::json s = {{"symbol", ev->symbol},
+                        {"bars", ev->bars},
+                        {"evaluated", ev->evaluated},
+                        {"warmup_bars", ev->warmup_bars},
+                        {"fallback_bars", ev->fallback_bars},
+                        {"vs_r2", LossJson(ev->vs_r2)},
+                        {"var_backtests", levels},
+                        {"z", {{"mean", JsonNumber(ev->z.mean)},
+                               {"variance", JsonNumber(ev->z.variance)},
+                               {"skewness", JsonNumber(ev->z.skewness)},
+                               {"excess_kurtosis", JsonNumber(ev->z.excess_kurtosis)},
+                               {"max_abs", JsonNumber(ev->z.max_abs)}}},
+                        {"alerts", alerts},
+                        {"alerts_total", ev->alerts_total},
+                        {"refits", {{"records", ev->swaps.attempts},
+                                    {"swapped", ev->swaps.accepted},
+                                    {"rejected", ev->swaps.rejected},
+                                    {"last_version", ev->swaps.last_version}}},
+                        {"warnings", ev->warnings}};
+    if (ev->vs_rv) s["vs_rv"] = LossJson(*ev->vs_rv);
+    symbols.push_back(std::move(s));
+  }
+  out["symbols"] = std::move(symbols);
+  out["caution"] =
+      "Statistical estimates, not advice; follow your model-risk policy and applicable "
+      "regulation.";
+  return out;
+}
+
+absl::Status ReplayRecorder::WriteReport(const std::string& path, const ReportRunInfo& run) const {
+  ReportInput in;
+  in.run = run;
+  in.symbols = histories_;
+  in.options.periods_per_year = config_.outputs.periods_per_year;
+  if (!config_.outputs.risk_levels.empty()) {
+    bool has99 = false;
+    for (double l : config_.outputs.risk_levels) has99 = has99 || std::fabs(l - 0.99) < 1e-12;
+    in.options.var_level = has99 ? 0.99 : config_.outputs.risk_levels.front();
+  }
+  return WriteHtmlReport(in, path);
+}
+
+}  // namespace aftershock::app

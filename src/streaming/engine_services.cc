@@ -1,0 +1,277 @@
+#include "aftershock/engine_services.h"
+
+#include <cstdio>
+#include <vector>
+
+#include "absl/strings/str_cat.h"
+#include "absl/strings/str_join.h"
+#include "aftershock/pipeline_refitter.h"
+
+namespace aftershock {
+namespace {
+
+AlertOptions ToAlertOptions(const AlertsConfig& c) {
+  AlertOptions o;
+  o.shock_z = c.shock_z;
+  o.shock_critical_z = c.shock_critical_z;
+  o.cooldown_bars = c.cooldown_bars;
+  o.regime_enter = c.regime_enter;
+  o.regime_exit = c.regime_exit;
+  o.regime_fast_halflife = c.regime_fast_halflife;
+  o.regime_slow_halflife = c.regime_slow_halflife;
+  o.persistence_threshold = c.persistence_threshold;
+  o.stale_seconds = c.stale_seconds;
+  o.reject_burst = c.reject_burst;
+  return o;
+}
+
+RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so) {
+  const RefitConfig& c = config.refit;
+  RefitOptions o;
+  o.every_bars = c.every_bars;
+  o.every_seconds = c.every_seconds;
+  o.window = c.window;
+  o.min_bars = c.min_bars;
+  o.workers = so.workers > 0 ? so.workers : c.workers;
+  o.reidentify_every = c.reidentify_every;
+  o.max_persistence = c.max_persistence;
+  o.holdout_bars = c.holdout_bars;
+  o.holdout_margin = c.holdout_margin;
+  o.max_failures = c.max_failures;
+  o.apply_lag_bars = c.apply_lag_bars;
+  o.jitter_fraction = c.jitter_fraction;
+  o.queue_capacity = c.queue_capacity;
+  o.diagnostics_level = c.diagnostics_level;
+  o.ewma_lambda = config.warmup.ewma_lambda;
+  o.mode = so.mode;
+  return o;
+}
+
+OutputOptions ToOutputOptions(const OutputsConfig& c) {
+  OutputOptions o;
+  o.horizons = c.horizons;
+  o.risk_levels = c.risk_levels;
+  o.periods_per_year = c.periods_per_year;
+  o.target_vol_ann = c.target_vol_ann;
+  o.scale_cap = c.scale_cap;
+  return o;
+}
+
+class Services;
+
+// Publishes alerts on a.<symbol>, to the alerts file and to the listener.
+class PublishingSink : public AlertSink {
+ public:
+  explicit PublishingSink(Services* s) : services_(s) {}
+  void Emit(const Alert& alert) override;
+  int index = -1;  // symbol index of the alert being emitted (-1 feed-wide)
+
+ private:
+  Services* services_;
+};
+
+class Services : public EngineServices, public BarObserver, public MetricsSource {
+ public:
+  Services(IngestCore* core, const EngineConfig& config, const ServiceOptions& options)
+      : core_(core), config_(config), options_(options), sink_(this) {}
+  ~Services() override {
+    if (alerts_file_ != nullptr) std::fclose(alerts_file_);
+  }
+
+  absl::Status Init() {
+    auto alerts = AlertEngine::Create(ToAlertOptions(config_.alerts));
+    if (!alerts.ok()) {
+      return absl::InvalidArgumentError(absl::StrCat("[alerts] ", alerts.status().message()));
+    }
+    alerts_ = *std::move(alerts);
+    if (config_.refit.every_bars > 0 || config_.refit.every_seconds > 0) {
+      PipelineRefitterOptions ro;
+      ro.identify.presample = config_.model.presample;
+      // Candidates the gate would refuse for their persistence are not chosen.
+      ro.identify.max_persistence = config_.refit.max_persistence;
+      ro.fit.presample = config_.model.presample;
+      auto coord = RefitCoordinator::Create(ToRefitOptions(config_, options_),
+                                            ToOutputOptions(config_.outputs),
+                                            PipelineRefitter::Create(ro));
+      if (!coord.ok()) {
+        return absl::InvalidArgumentError(absl::StrCat("[refit] ", coord.status().message()));
+      }
+      refit_ = *std::move(coord);
+    }
+    if (!options_.alerts_path.empty()) {
+      alerts_file_ = std::fopen(options_.alerts_path.c_str(), "w");
+      if (alerts_file_ == nullptr) {
+        return absl::NotFoundError(
+            absl::StrCat("cannot create the alerts file '", options_.alerts_path, "'"));
+      }
+    }
+    json_.reserve(1024);
+    return absl::OkStatus();
+  }
+
+  // ---- EngineServices ----
+  bool refit_enabled() const override { return refit_ != nullptr; }
+  RefitStats refit_stats() const override { return refit_ ? refit_->stats() : RefitStats{}; }
+  const AlertCounters& alert_counters() const override { return alerts_->counters(); }
+  absl::Status Flush() override {
+    if (alerts_file_ != nullptr && std::fflush(alerts_file_) != 0) {
+      return absl::InternalError(absl::StrCat("cannot write the alerts file '",
+                                              options_.alerts_path, "'"));
+    }
+    return absl::OkStatus();
+  }
+
+  // ---- MetricsSource ----
+  void AppendPrometheus(std::string* o) const override {
+    const AlertCounters& c = alerts_->counters();
+    for (int pass = 0; pass < 2; ++pass) {
+      const char* name = pass == 0 ? "alerts_total" : "alerts_suppressed_total";
+      absl::StrAppend(o, "# HELP aftershock_", name,
+                      pass == 0 ? " Alerts emitted" : " Alerts suppressed (cool-down, repeats)",
+                      ", by kind and severity.\n# TYPE aftershock_", name, " counter\n");
+      for (int k = 0; k < kNumAlertKinds; ++k) {
+        for (int v = 0; v < kNumSeverities; ++v) {
+          absl::StrAppend(o, "aftershock_", name, "{kind=\"",
+                          AlertKindName(static_cast<AlertKind>(k)), "\",severity=\"",
+                          SeverityName(static_cast<Severity>(v)), "\"} ",
+                          pass == 0 ? c.emitted[k][v] : c.suppressed[k][v], "\n");
+        }
+      }
+    }
+    if (!refit_) return;
+    const RefitStats r = refit_->stats();
+    const std::pair<const char*, uint64_t> counters[] = {
+        {"due", r.due},           {"submitted", r.submitted}, {"coalesced", r.coalesced},
+        {"dropped", r.dropped},   {"swapped", r.swapped},     {"rejected", r.rejected},
+        {"errors", r.refit_errors}, {"fallbacks", r.fallbacks}};
+    absl::StrAppend(o, "# HELP aftershock_refits_total Refit jobs by outcome.\n",
+                    "# TYPE aftershock_refits_total counter\n");
+    for (const auto& [what, v] : counters) {
+      absl::StrAppend(o, "aftershock_refits_total{outcome=\"", what, "\"} ", v, "\n");
+    }
+    absl::StrAppend(o, "# HELP aftershock_refit_queue_depth Refit jobs waiting for a worker.\n",
+                    "# TYPE aftershock_refit_queue_depth gauge\naftershock_refit_queue_depth ",
+                    r.queued, "\n# HELP aftershock_refit_running Refit jobs being fitted.\n",
+                    "# TYPE aftershock_refit_running gauge\naftershock_refit_running ", r.running,
+                    "\n");
+  }
+
+  // ---- BarObserver ----
+  void OnNewSymbol(IngestCore* core, int index, absl::string_view symbol) override {
+    if (static_cast<int>(symbols_.size()) <= index) symbols_.resize(index + 1);
+    PerSymbol& p = symbols_[index];
+    p.symbol.assign(symbol);
+    if (refit_) {
+      auto id = refit_->AddSymbol(symbol);
+      p.refit_id = id.ok() ? static_cast<int64_t>(*id) : -1;
+    }
+  }
+
+  void OnBar(IngestCore* core, int index, const ClosedBar& bar, BarUpdate* update) override {
+    PerSymbol& p = symbols_[index];
+    sink_.index = index;
+    alerts_->OnTick(p.symbol, core->last_arrival_ns(index), &p.alerts, &sink_);
+    alerts_->OnBar(*update, &p.alerts, &sink_);
+    if (!refit_ || p.refit_id < 0) return;
+    const uint32_t id = static_cast<uint32_t>(p.refit_id);
+    const ModelVersionPtr before = refit_->current(id);
+    FilterState state = core->filter_state(index);
+    const RefitBarResult res = refit_->OnBar(id, update->t_ns, update->r, &state);
+    if (!res.applied) return;
+    const RefitRecord& rec = refit_->last_record();
+    json_ = EncodeRefitRecordJson(rec);
+    core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
+    if (options_.listener != nullptr) options_.listener->OnRefitRecord(index, rec);
+    const ModelVersionPtr& now = refit_->current(id);
+    if (now != before) {
+      ModelSwap swap;
+      swap.model = std::shared_ptr<const FilterModel>(now, &now->model);
+      swap.start = ModelSwap::Start::kState;
+      swap.state = &state;
+      swap.status_flags = refit_->flags(id);
+      // Cannot fail: the model is created and the state given; counted if it did.
+      if (!core->SwapModel(index, swap).ok()) ++swap_errors_;
+    }
+    // Model-health and persistence alerts.
+    reason_ = absl::StrJoin(rec.reasons, "; ");
+    GateEvent ev;
+    ev.passed = rec.outcome == RefitOutcome::kSwapped;
+    ev.consecutive_failures = rec.consecutive_failures;
+    ev.reason = reason_;
+    alerts_->OnRefitOutcome(p.symbol, update->t_ns, ev, &p.alerts, &sink_);
+    if (rec.fallback != p.fallback) {
+      alerts_->OnFallback(p.symbol, update->t_ns, rec.fallback, rec.version, reason_, &p.alerts,
+                          &sink_);
+      p.fallback = rec.fallback;
+    }
+    if (rec.outcome == RefitOutcome::kSwapped && now != before) {
+      alerts_->OnModelSwap(p.symbol, update->t_ns, rec.version,
+                           now->model.params().Persistence(), &p.alerts, &sink_);
+    }
+  }
+
+  void OnClock(IngestCore* core, int64_t now_ns) override {
+    const bool in_session = InSession(config_.bars.session, now_ns);
+    for (size_t i = 0; i < symbols_.size(); ++i) {
+      sink_.index = static_cast<int>(i);
+      alerts_->CheckStale(symbols_[i].symbol, now_ns, in_session, &symbols_[i].alerts, &sink_);
+    }
+    // Rejected ticks since the last tick of the clock feed the burst rule.
+    const uint64_t total = core->counters().RejectTotal();
+    uint64_t fresh = total - rejects_seen_;
+    rejects_seen_ = total;
+    const uint64_t cap = static_cast<uint64_t>(config_.alerts.reject_burst) + 1;
+    if (fresh > cap) fresh = cap;  // the rule only needs to see the burst cross
+    sink_.index = -1;
+    for (uint64_t k = 0; k < fresh; ++k) alerts_->OnRejectedTick(now_ns, &sink_);
+  }
+
+  void Publish(int index, const Alert& alert) {
+    EncodeAlertJson(alert, &alert_json_);
+    if (index >= 0) {
+      core_->PublishSymbolMessage(IngestCore::TopicKind::kAlert, index, alert_json_);
+    } else {
+      core_->PublishNamedMessage(IngestCore::TopicKind::kAlert, alert.symbol.view(), alert_json_);
+    }
+    if (alerts_file_ != nullptr) {
+      std::fwrite(alert_json_.data(), 1, alert_json_.size(), alerts_file_);
+      std::fputc('\n', alerts_file_);
+    }
+    if (options_.listener != nullptr) options_.listener->OnAlert(index, alert);
+  }
+
+ private:
+  struct PerSymbol {
+    Symbol symbol;
+    SymbolAlertState alerts;
+    int64_t refit_id = -1;
+    bool fallback = false;
+  };
+
+  IngestCore* const core_;
+  const EngineConfig config_;
+  const ServiceOptions options_;
+  std::unique_ptr<AlertEngine> alerts_;
+  std::unique_ptr<RefitCoordinator> refit_;
+  PublishingSink sink_;
+  std::FILE* alerts_file_ = nullptr;
+  std::vector<PerSymbol> symbols_;  // by core index
+  uint64_t rejects_seen_ = 0;
+  uint64_t swap_errors_ = 0;
+  std::string json_, alert_json_, reason_;
+};
+
+void PublishingSink::Emit(const Alert& alert) { services_->Publish(index, alert); }
+
+}  // namespace
+
+absl::StatusOr<std::unique_ptr<EngineServices>> EngineServices::Attach(
+    IngestCore* core, const EngineConfig& config, const ServiceOptions& options) {
+  auto s = std::make_unique<Services>(core, config, options);
+  if (auto st = s->Init(); !st.ok()) return st;
+  core->AddObserver(s.get());
+  core->AddMetricsSource(s.get());
+  return std::unique_ptr<EngineServices>(std::move(s));
+}
+
+}  // namespace aftershock
