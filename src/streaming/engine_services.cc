@@ -178,7 +178,15 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     FilterState state = core->filter_state(index);
     const RefitBarResult res = refit_->OnBar(id, update->t_ns, update->r, &state);
     if (!res.applied) return;
-    const RefitRecord& rec = refit_->last_record();
+    const RefitRecord* rec_ptr = &refit_->last_record();
+    if (options_.mode == RefitMode::kReplay) {
+      // Wall time is the one field a replay cannot reproduce: 0 keeps the
+      // model records byte-identical across runs (refits are rare; a copy).
+      replay_record_ = *rec_ptr;
+      replay_record_.fit_seconds = 0;
+      rec_ptr = &replay_record_;
+    }
+    const RefitRecord& rec = *rec_ptr;
     json_ = EncodeRefitRecordJson(rec);
     core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
     if (options_.listener != nullptr) options_.listener->OnRefitRecord(index, rec);
@@ -258,6 +266,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   std::vector<PerSymbol> symbols_;  // by core index
   uint64_t rejects_seen_ = 0;
   uint64_t swap_errors_ = 0;
+  RefitRecord replay_record_;
   std::string json_, alert_json_, reason_;
 };
 
