@@ -47,15 +47,6 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   return o;
 }
 
-OutputOptions ToOutputOptions(const OutputsConfig& c) {
-  OutputOptions o;
-  o.horizons = c.horizons;
-  o.risk_levels = c.risk_levels;
-  o.periods_per_year = c.periods_per_year;
-  o.target_vol_ann = c.target_vol_ann;
-  o.scale_cap = c.scale_cap;
-  return o;
-}
 
 class Services;
 
@@ -91,7 +82,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       ro.identify.max_persistence = config_.refit.max_persistence;
       ro.fit.presample = config_.model.presample;
       auto coord = RefitCoordinator::Create(ToRefitOptions(config_, options_),
-                                            ToOutputOptions(config_.outputs),
+                                            config_.outputs.ToOutputOptions(),
                                             PipelineRefitter::Create(ro));
       if (!coord.ok()) {
         return absl::InvalidArgumentError(absl::StrCat("[refit] ", coord.status().message()));
