@@ -130,6 +130,17 @@ struct AlertsConfig {
   int64_t reject_burst = 100;            // rejected ticks per minute that raise a feed alert
 };
 
+// [alerts.groups.<name>]: other alert thresholds for a group of symbols. A
+// symbol uses the first group (in file order) whose `symbols` list matches it
+// (an exact symbol, or a prefix ending in '*'); other symbols use [alerts].
+struct AlertGroupConfig {
+  std::string name;                  // the table name
+  std::vector<std::string> symbols;  // exact symbols or "PREFIX*"; at least one
+  AlertsConfig alerts;               // [alerts] with this group's keys applied over it
+  // True when `symbol` matches one of the patterns.
+  bool Matches(absl::string_view symbol) const;
+};
+
 // [http]: health and metrics endpoint.
 struct HttpConfig {
   std::string endpoint = "127.0.0.1:7310";  // host:port to bind; loopback by default
@@ -162,6 +173,7 @@ struct EngineConfig {
   LimitsConfig limits;
   RefitConfig refit;
   AlertsConfig alerts;
+  std::vector<AlertGroupConfig> alert_groups;  // [alerts.groups.*], file order
   HttpConfig http;
   CheckpointConfig checkpoint;
   LogConfig log;

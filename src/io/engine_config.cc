@@ -10,6 +10,7 @@
 #include <limits>
 #include <sstream>
 
+#include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
 
@@ -597,10 +598,8 @@ absl::Status ParseRefit(const Section& s, RefitConfig* c) {
   return absl::OkStatus();
 }
 
-absl::Status ParseAlerts(const Section& s, AlertsConfig* c) {
-  AS_RETURN_IF_ERROR(s.CheckKeys({"shock_z", "shock_critical_z", "cooldown_bars", "regime_enter",
-                                  "regime_exit", "regime_fast_halflife", "regime_slow_halflife",
-                                  "persistence_threshold", "stale_seconds", "reject_burst"}));
+// The values of [alerts] (and of a group, over a copy of [alerts]).
+absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
   AS_RETURN_IF_ERROR(s.Number("shock_z", &c->shock_z, 0, kInf, true, true));
   AS_RETURN_IF_ERROR(s.Number("shock_critical_z", &c->shock_critical_z, 0, kInf, true, true));
   AS_RETURN_IF_ERROR(s.Integer("cooldown_bars", &c->cooldown_bars, 0, 1000000));
@@ -629,6 +628,52 @@ absl::Status ParseAlerts(const Section& s, AlertsConfig* c) {
     return s.KeyError(
         s.Has("regime_slow_halflife") ? "regime_slow_halflife" : "regime_fast_halflife",
         "regime_slow_halflife must be greater than regime_fast_halflife");
+  }
+  return absl::OkStatus();
+}
+
+bool ValidSymbolPattern(absl::string_view p) {
+  if (!p.empty() && p.back() == '*') p.remove_suffix(1);
+  return IsValidSymbol(p);
+}
+
+absl::Status ParseAlerts(const std::string* source, const Section& s, AlertsConfig* c,
+                         std::vector<AlertGroupConfig>* groups) {
+  AS_RETURN_IF_ERROR(s.CheckKeys({"shock_z", "shock_critical_z", "cooldown_bars", "regime_enter",
+                                  "regime_exit", "regime_fast_halflife", "regime_slow_halflife",
+                                  "persistence_threshold", "stale_seconds", "reject_burst",
+                                  "groups"}));
+  AS_RETURN_IF_ERROR(ParseAlertValues(s, c));
+  const toml::node* g = s.Node("groups");
+  if (g == nullptr) return absl::OkStatus();
+  if (!g->is_table()) {
+    return s.KeyError("groups", "expected tables [alerts.groups.<name>] with symbols = [...]");
+  }
+  const Section gs = SubSection(source, s, "groups", "alerts.groups");
+  for (auto&& [key, node] : *g->as_table()) {
+    const std::string name(key.str());
+    if (!node.is_table()) {
+      return gs.KeyError(name, "expected a table with symbols = [...] and alert keys");
+    }
+    const Section one = SubSection(source, gs, name, "alerts.groups." + name);
+    AS_RETURN_IF_ERROR(one.CheckKeys({"symbols", "shock_z", "shock_critical_z", "cooldown_bars",
+                                      "regime_enter", "regime_exit", "regime_fast_halflife",
+                                      "regime_slow_halflife", "persistence_threshold",
+                                      "stale_seconds", "reject_burst"}));
+    AlertGroupConfig group;
+    group.name = name;
+    group.alerts = *c;
+    if (!one.Has("symbols")) return one.KeyError("symbols", "required: the symbols of the group");
+    AS_RETURN_IF_ERROR(one.StringArray("symbols", &group.symbols));
+    if (group.symbols.empty()) return one.KeyError("symbols", "at least one symbol or prefix*");
+    for (const std::string& p : group.symbols) {
+      if (!ValidSymbolPattern(p)) {
+        return one.KeyError("symbols", absl::StrCat("'", p,
+                                                    "' is not a symbol or a prefix ending in *"));
+      }
+    }
+    AS_RETURN_IF_ERROR(ParseAlertValues(one, &group.alerts));
+    groups->push_back(std::move(group));
   }
   return absl::OkStatus();
 }
@@ -709,7 +754,7 @@ absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::st
     AS_RETURN_IF_ERROR(s.Integer("max_symbols", &c.limits.max_symbols, 1, 100000000));
   }
   AS_RETURN_IF_ERROR(ParseRefit(section("refit"), &c.refit));
-  AS_RETURN_IF_ERROR(ParseAlerts(section("alerts"), &c.alerts));
+  AS_RETURN_IF_ERROR(ParseAlerts(&source, section("alerts"), &c.alerts, &c.alert_groups));
   AS_RETURN_IF_ERROR(ParseHttp(section("http"), &c.http));
   AS_RETURN_IF_ERROR(ParseCheckpoint(section("checkpoint"), &c.checkpoint));
   AS_RETURN_IF_ERROR(ParseLog(section("log"), &c.log));
@@ -742,6 +787,17 @@ std::string Clock(int minutes) {
 }
 
 }  // namespace
+
+bool AlertGroupConfig::Matches(absl::string_view symbol) const {
+  for (const std::string& p : symbols) {
+    if (!p.empty() && p.back() == '*') {
+      if (absl::StartsWith(symbol, absl::string_view(p).substr(0, p.size() - 1))) return true;
+    } else if (symbol == p) {
+      return true;
+    }
+  }
+  return false;
+}
 
 absl::StatusOr<EngineConfig> ParseEngineConfig(absl::string_view toml_text,
                                                absl::string_view source_name) {
@@ -844,16 +900,27 @@ std::string FormatEngineConfig(const EngineConfig& c) {
                   "\njitter_fraction = ", num(r.jitter_fraction),
                   "\nqueue_capacity = ", r.queue_capacity,
                   "\ndiagnostics_level = ", num(r.diagnostics_level), "\n");
-  const AlertsConfig& a = c.alerts;
-  absl::StrAppend(&o, "\n[alerts]\nshock_z = ", num(a.shock_z),
-                  "\nshock_critical_z = ", num(a.shock_critical_z),
-                  "\ncooldown_bars = ", a.cooldown_bars, "\nregime_enter = ", num(a.regime_enter),
-                  "\nregime_exit = ", num(a.regime_exit));
-  absl::StrAppend(&o, "\nregime_fast_halflife = ", num(a.regime_fast_halflife),
-                  "\nregime_slow_halflife = ", num(a.regime_slow_halflife),
-                  "\npersistence_threshold = ", num(a.persistence_threshold),
-                  "\nstale_seconds = ", num(a.stale_seconds), "\nreject_burst = ", a.reject_burst,
-                  "\n");
+  auto alert_keys = [&](const AlertsConfig& a) {
+    absl::StrAppend(&o, "shock_z = ", num(a.shock_z),
+                    "\nshock_critical_z = ", num(a.shock_critical_z),
+                    "\ncooldown_bars = ", a.cooldown_bars, "\nregime_enter = ", num(a.regime_enter),
+                    "\nregime_exit = ", num(a.regime_exit));
+    absl::StrAppend(&o, "\nregime_fast_halflife = ", num(a.regime_fast_halflife),
+                    "\nregime_slow_halflife = ", num(a.regime_slow_halflife),
+                    "\npersistence_threshold = ", num(a.persistence_threshold),
+                    "\nstale_seconds = ", num(a.stale_seconds),
+                    "\nreject_burst = ", a.reject_burst, "\n");
+  };
+  absl::StrAppend(&o, "\n[alerts]\n");
+  alert_keys(c.alerts);
+  for (const AlertGroupConfig& g : c.alert_groups) {
+    absl::StrAppend(&o, "\n[alerts.groups.", Quote(g.name), "]\nsymbols = [");
+    for (size_t i = 0; i < g.symbols.size(); ++i) {
+      absl::StrAppend(&o, i ? ", " : "", Quote(g.symbols[i]));
+    }
+    absl::StrAppend(&o, "]\n");
+    alert_keys(g.alerts);
+  }
   absl::StrAppend(&o, "\n[http]\nendpoint = ", Quote(c.http.endpoint),
                   "\nenabled = ", c.http.enabled ? "true" : "false", "\n");
   absl::StrAppend(&o, "\n[checkpoint]\npath = ", Quote(c.checkpoint.path),

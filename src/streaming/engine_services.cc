@@ -75,6 +75,14 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       return absl::InvalidArgumentError(absl::StrCat("[alerts] ", alerts.status().message()));
     }
     alerts_ = *std::move(alerts);
+    for (const AlertGroupConfig& g : config_.alert_groups) {
+      auto e = AlertEngine::Create(ToAlertOptions(g.alerts));
+      if (!e.ok()) {
+        return absl::InvalidArgumentError(
+            absl::StrCat("[alerts.groups.", g.name, "] ", e.status().message()));
+      }
+      group_alerts_.push_back(*std::move(e));
+    }
     if (config_.refit.every_bars > 0 || config_.refit.every_seconds > 0) {
       PipelineRefitterOptions ro;
       ro.identify.presample = config_.model.presample;
@@ -103,7 +111,19 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   // ---- EngineServices ----
   bool refit_enabled() const override { return refit_ != nullptr; }
   RefitStats refit_stats() const override { return refit_ ? refit_->stats() : RefitStats{}; }
-  const AlertCounters& alert_counters() const override { return alerts_->counters(); }
+  const AlertCounters& alert_counters() const override {
+    combined_ = alerts_->counters();
+    for (const auto& g : group_alerts_) {
+      const AlertCounters& c = g->counters();
+      for (int k = 0; k < kNumAlertKinds; ++k) {
+        for (int v = 0; v < kNumSeverities; ++v) {
+          combined_.emitted[k][v] += c.emitted[k][v];
+          combined_.suppressed[k][v] += c.suppressed[k][v];
+        }
+      }
+    }
+    return combined_;
+  }
   absl::Status Flush() override {
     if (alerts_file_ != nullptr && std::fflush(alerts_file_) != 0) {
       return absl::InternalError(absl::StrCat("cannot write the alerts file '",
@@ -114,7 +134,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
 
   // ---- MetricsSource ----
   void AppendPrometheus(std::string* o) const override {
-    const AlertCounters& c = alerts_->counters();
+    const AlertCounters& c = alert_counters();
     for (int pass = 0; pass < 2; ++pass) {
       const char* name = pass == 0 ? "alerts_total" : "alerts_suppressed_total";
       absl::StrAppend(o, "# HELP aftershock_", name,
@@ -152,6 +172,13 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     if (static_cast<int>(symbols_.size()) <= index) symbols_.resize(index + 1);
     PerSymbol& p = symbols_[index];
     p.symbol.assign(symbol);
+    p.alerts_engine = alerts_.get();
+    for (size_t g = 0; g < config_.alert_groups.size(); ++g) {
+      if (config_.alert_groups[g].Matches(symbol)) {
+        p.alerts_engine = group_alerts_[g].get();
+        break;
+      }
+    }
     if (refit_) {
       auto id = refit_->AddSymbol(symbol);
       p.refit_id = id.ok() ? static_cast<int64_t>(*id) : -1;
@@ -161,8 +188,9 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   void OnBar(IngestCore* core, int index, const ClosedBar& bar, BarUpdate* update) override {
     PerSymbol& p = symbols_[index];
     sink_.index = index;
-    alerts_->OnTick(p.symbol, core->last_arrival_ns(index), &p.alerts, &sink_);
-    alerts_->OnBar(*update, &p.alerts, &sink_);
+    AlertEngine* alerts = p.alerts_engine;
+    alerts->OnTick(p.symbol, core->last_arrival_ns(index), &p.alerts, &sink_);
+    alerts->OnBar(*update, &p.alerts, &sink_);
     if (!refit_ || p.refit_id < 0) return;
     const uint32_t id = static_cast<uint32_t>(p.refit_id);
     const ModelVersionPtr before = refit_->current(id);
@@ -197,14 +225,14 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     ev.passed = rec.outcome == RefitOutcome::kSwapped;
     ev.consecutive_failures = rec.consecutive_failures;
     ev.reason = reason_;
-    alerts_->OnRefitOutcome(p.symbol, update->t_ns, ev, &p.alerts, &sink_);
+    alerts->OnRefitOutcome(p.symbol, update->t_ns, ev, &p.alerts, &sink_);
     if (rec.fallback != p.fallback) {
-      alerts_->OnFallback(p.symbol, update->t_ns, rec.fallback, rec.version, reason_, &p.alerts,
+      alerts->OnFallback(p.symbol, update->t_ns, rec.fallback, rec.version, reason_, &p.alerts,
                           &sink_);
       p.fallback = rec.fallback;
     }
     if (rec.outcome == RefitOutcome::kSwapped && now != before) {
-      alerts_->OnModelSwap(p.symbol, update->t_ns, rec.version,
+      alerts->OnModelSwap(p.symbol, update->t_ns, rec.version,
                            now->model.params().Persistence(), &p.alerts, &sink_);
     }
   }
@@ -213,7 +241,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     const bool in_session = InSession(config_.bars.session, now_ns);
     for (size_t i = 0; i < symbols_.size(); ++i) {
       sink_.index = static_cast<int>(i);
-      alerts_->CheckStale(symbols_[i].symbol, now_ns, in_session, &symbols_[i].alerts, &sink_);
+      symbols_[i].alerts_engine->CheckStale(symbols_[i].symbol, now_ns, in_session,
+                                            &symbols_[i].alerts, &sink_);
     }
     // Rejected ticks since the last tick of the clock feed the burst rule.
     const uint64_t total = core->counters().RejectTotal();
@@ -243,6 +272,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   struct PerSymbol {
     Symbol symbol;
     SymbolAlertState alerts;
+    AlertEngine* alerts_engine = nullptr;  // [alerts] or the symbol's group
     int64_t refit_id = -1;
     bool fallback = false;
   };
@@ -250,7 +280,9 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   IngestCore* const core_;
   const EngineConfig config_;
   const ServiceOptions options_;
-  std::unique_ptr<AlertEngine> alerts_;
+  std::unique_ptr<AlertEngine> alerts_;  // [alerts]; also the feed-wide rules
+  std::vector<std::unique_ptr<AlertEngine>> group_alerts_;  // per [alerts.groups.*]
+  mutable AlertCounters combined_;
   std::unique_ptr<RefitCoordinator> refit_;
   PublishingSink sink_;
   std::FILE* alerts_file_ = nullptr;

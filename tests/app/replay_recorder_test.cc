@@ -5,6 +5,7 @@
 
 #include <catch2/catch.hpp>
 #include <fstream>
+#include <map>
 #include <nlohmann/json.hpp>
 #include <sstream>
 
@@ -85,6 +86,57 @@ TEST_CASE("replay with refits and alerts is byte-identical across runs and worke
       CHECK(j.contains(k));
     }
   }
+}
+
+// Shock alerts per symbol in an alerts file.
+std::map<std::string, int> ShockCounts(const std::string& alerts) {
+  std::map<std::string, int> out;
+  std::istringstream lines(alerts);
+  std::string line;
+  while (std::getline(lines, line)) {
+    const auto j = nlohmann::json::parse(line);
+    if (j.at("kind") == "shock") ++out[j.at("s").get<std::string>()];
+  }
+  return out;
+}
+
+TEST_CASE("an alert group's thresholds apply to its symbols only", "[replay][alerts]") {
+  const std::string dir = testing::ScratchDir("replay_recorder_groups");
+  const std::string ticks = dir + "/ticks.csv";
+  auto sim = testing::RunCli({"simulate", "--output", ticks, "--field", "return", "--bars",
+                              "3000", "--symbols", "3", "--seed", "9", "--quiet"});
+  REQUIRE(sim.exit_code == 0);
+  const std::string base = R"([bars]
+interval = "0s"
+[model]
+mean = "zero"
+variance = "ewma"
+innovations = "normal"
+[model.params]
+lambda = 0.94
+[alerts]
+shock_z = 4
+cooldown_bars = 0
+[http]
+enabled = false
+)";
+  const std::string plain = testing::WriteFile(dir + "/plain.toml", base);
+  const std::string grouped = testing::WriteFile(
+      dir + "/grouped.toml",
+      base + "[alerts.groups.energy]\nsymbols = [\"BRANDR*\"]\nshock_z = 2.5\n");
+  auto a = testing::RunCli({"replay", "--config", plain, "--input", ticks, "--output",
+                            dir + "/u1.jsonl", "--alerts", dir + "/a1.jsonl", "--quiet"});
+  auto b = testing::RunCli({"replay", "--config", grouped, "--input", ticks, "--output",
+                            dir + "/u2.jsonl", "--alerts", dir + "/a2.jsonl", "--quiet"});
+  INFO(a.err << b.err);
+  REQUIRE(a.exit_code == 0);
+  REQUIRE(b.exit_code == 0);
+  auto before = ShockCounts(Read(dir + "/a1.jsonl"));
+  auto after = ShockCounts(Read(dir + "/a2.jsonl"));
+  INFO("BRANDR.NRG shocks: " << before["BRANDR.NRG"] << " -> " << after["BRANDR.NRG"]);
+  CHECK(after["BRANDR.NRG"] > before["BRANDR.NRG"]);  // |z| >= 2.5 is far more frequent
+  CHECK(after["SKJOLD.GAS"] == before["SKJOLD.GAS"]);
+  CHECK(after["VARDE.PWR"] == before["VARDE.PWR"]);
 }
 
 // Data: Bollerslev & Ghysels (1996) DEM/GBP daily returns, one bar per row.

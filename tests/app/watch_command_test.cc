@@ -145,8 +145,8 @@ TEST_CASE("watch --mode table redraws in place at most ten times a second") {
 
 TEST_CASE("watch exits cleanly on SIGINT") {
   TestPublisher pub;
-  // 2 s so that even a slow start has installed the handler before the signal.
-  auto r = testing::RunCommand({"/usr/bin/timeout", "--preserve-status", "-s", "INT", "2",
+  // 5 s so that even a slow start on a loaded machine has installed the handler.
+  auto r = testing::RunCommand({"/usr/bin/timeout", "--preserve-status", "-s", "INT", "5",
                                 AFTERSHOCK_CLI, "watch", "--endpoint", pub.endpoint()});
   CHECK(r.exit_code == 0);
   CHECK(r.err == "aftershock watch: 0 updates, 0 symbols, 0 undecodable messages\n");

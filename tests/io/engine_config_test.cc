@@ -254,3 +254,63 @@ TEST_CASE("model and parameter errors name the key and line", "[engine_config]")
 
 }  // namespace
 }  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+TEST_CASE("alert groups override [alerts] for matching symbols", "[config][alerts]") {
+  auto c = ParseEngineConfig(R"([alerts]
+shock_z = 4.5
+cooldown_bars = 10
+[alerts.groups.energy]
+symbols = ["BRANDR*", "SKJOLD.GAS"]
+shock_z = 3.5
+[alerts.groups.fx]
+symbols = ["HALVARD.FX"]
+regime_enter = 3
+regime_exit = 1.5
+)",
+                             "groups.toml");
+  INFO(c.status().message());
+  REQUIRE(c.ok());
+  REQUIRE(c->alert_groups.size() == 2);
+  const AlertGroupConfig& e = c->alert_groups[0];
+  CHECK(e.name == "energy");
+  CHECK(e.alerts.shock_z == 3.5);
+  CHECK(e.alerts.cooldown_bars == 10);  // inherited from [alerts]
+  CHECK(e.Matches("BRANDR.NRG"));
+  CHECK(e.Matches("BRANDR2.NRG"));
+  CHECK(e.Matches("SKJOLD.GAS"));
+  CHECK_FALSE(e.Matches("SKJOLD.GAS2"));
+  CHECK_FALSE(e.Matches("VARDE.PWR"));
+  CHECK(c->alert_groups[1].alerts.regime_enter == 3);
+  CHECK(c->alert_groups[1].alerts.shock_z == 4.5);
+  // The groups survive formatting.
+  auto again = ParseEngineConfig(FormatEngineConfig(*c), "formatted.toml");
+  REQUIRE(again.ok());
+  REQUIRE(again->alert_groups.size() == 2);
+  CHECK(again->alert_groups[0].symbols == e.symbols);
+  CHECK(again->alert_groups[0].alerts.shock_z == 3.5);
+}
+
+TEST_CASE("alert group errors name the group, key and line", "[config][alerts]") {
+  auto missing = ParseEngineConfig("[alerts.groups.g]\nshock_z = 3\n", "g.toml");
+  REQUIRE_FALSE(missing.ok());
+  CHECK(std::string(missing.status().message()) ==
+        "g.toml:1: [alerts.groups.g] symbols: required: the symbols of the group");
+  auto bad = ParseEngineConfig("[alerts.groups.g]\nsymbols = [\"A B\"]\n", "g.toml");
+  REQUIRE_FALSE(bad.ok());
+  CHECK(std::string(bad.status().message()) ==
+        "g.toml:2: [alerts.groups.g] symbols: 'A B' is not a symbol or a prefix ending in *");
+  auto unknown = ParseEngineConfig("[alerts.groups.g]\nsymbols = [\"A\"]\nshock = 3\n", "g.toml");
+  REQUIRE_FALSE(unknown.ok());
+  CHECK(std::string(unknown.status().message()).rfind(
+            "g.toml:3: [alerts.groups.g] unknown key 'shock'", 0) == 0);
+  auto hysteresis = ParseEngineConfig(
+      "[alerts.groups.g]\nsymbols = [\"A\"]\nregime_exit = 2.5\n", "g.toml");
+  REQUIRE_FALSE(hysteresis.ok());
+  CHECK(std::string(hysteresis.status().message()).find("for hysteresis") != std::string::npos);
+}
+
+}  // namespace
+}  // namespace aftershock
