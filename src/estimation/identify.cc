@@ -44,7 +44,7 @@ ModelSpec WithVariance(int p, int q, VarianceKind v, int na, int no, int nb, Inn
 
 // Start vector for `spec` whose mean block is the step-1 estimate (converted
 // from the ARMA module's mean form to the intercept form of likelihood.h) and
-// whose other entries are placeholders the estimator replaces (only the mean
+// whose other entries are provisional values the estimator replaces (only the mean
 // block of a fix_mean start is used as given).
 ModelParams MeanStart(const ModelSpec& spec, const ArmaParams& arma) {
   ModelParams p{spec, std::vector<double>(spec.NumParams(), 0.0)};
@@ -54,7 +54,7 @@ ModelParams MeanStart(const ModelSpec& spec, const ArmaParams& arma) {
   for (int i = 0; i < spec.ar_order; ++i) p.values[1 + i] = arma.ar[i];
   for (int i = 0; i < spec.ma_order; ++i) p.values[1 + spec.ar_order + i] = arma.ma[i];
   const int v0 = spec.VarianceOffset();
-  // Placeholders inside the constraints (the grid supplies real starts).
+  // Provisional values inside the constraints (the grid supplies the starts).
   p.values[v0] = arma.sigma2 * 0.1;
   for (int i = v0 + 1; i < spec.DistOffset(); ++i) p.values[i] = 0.05;
   if (spec.innovations == Innovations::kStudentT) p.values[spec.DistOffset()] = 8.0;
