@@ -67,6 +67,9 @@ struct RefitOptions {
   double diagnostics_level = 0.01;
   // EWMA decay of the fallback model. Default 0.94.
   double ewma_lambda = 0.94;
+  // Version number of a symbol's first estimated model (later ones count up).
+  // 2 when version 1 is a configured starting model. >= 1. Default 1.
+  uint32_t first_version = 1;
   // Live or replay hand-off (see RefitMode). Default kLive.
   RefitMode mode = RefitMode::kLive;
 

@@ -126,6 +126,7 @@ absl::StatusOr<uint32_t> RefitCoordinator::AddSymbol(absl::string_view symbol) {
   scheduler_.InitSymbol(symbol, &s.schedule);
   s.current = ewma_;
   const uint32_t id = static_cast<uint32_t>(symbols_.size());
+  s.last_version = options_.first_version > 0 ? options_.first_version - 1 : 0;
   symbols_.push_back(std::move(s));
   index_.emplace(std::string(symbol), id);
   return id;

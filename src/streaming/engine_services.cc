@@ -43,6 +43,8 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   o.queue_capacity = c.queue_capacity;
   o.diagnostics_level = c.diagnostics_level;
   o.ewma_lambda = config.warmup.ewma_lambda;
+  // Version 1 is the configured [model.params] when there is one.
+  o.first_version = config.model.has_params ? 2 : 1;
   o.mode = so.mode;
   return o;
 }
