@@ -103,18 +103,19 @@ int FitOnlyDemo(long long bars, long long seed) {
   if (!sim.ok()) return Fail(sim.status(), 1);
   auto fit = FitModel(*spec, sim->returns);
   if (!fit.ok()) return Fail(fit.status(), 1);
-  std::printf("Simulated %lld daily returns (per cent) of the invented instrument KESTREL.NRG\n"
-              "from %s with known parameters, then estimated them back.\n\n",
-              bars, spec->Label().c_str());
+  std::printf(
+      "Simulated %lld daily returns (per cent) of the invented instrument KESTREL.NRG\n"
+      "from %s with known parameters, then estimated them back.\n\n",
+      bars, spec->Label().c_str());
   std::fputs(FitResultText(*fit, "simulated KESTREL.NRG").c_str(), stdout);
   std::printf("\n  %-10s %12s %12s %10s\n", "parameter", "truth", "estimate", "z-score");
   for (size_t i = 0; i < fit->names.size(); ++i) {
     const double se = fit->std_errors[i];
-    std::printf("  %-10s %12.6g %12.6g %10s\n", fit->names[i].c_str(), truth->values[i],
-                fit->params.values[i],
-                se > 0 ? absl::StrFormat("%.2f", (fit->params.values[i] - truth->values[i]) / se)
-                             .c_str()
-                       : "n/a");
+    std::printf(
+        "  %-10s %12.6g %12.6g %10s\n", fit->names[i].c_str(), truth->values[i],
+        fit->params.values[i],
+        se > 0 ? absl::StrFormat("%.2f", (fit->params.values[i] - truth->values[i]) / se).c_str()
+               : "n/a");
   }
   return fit->converged ? 0 : 1;
 }
@@ -228,8 +229,8 @@ struct SimProgress {
   std::atomic<int64_t> bars{0};        // bars fully published
   std::atomic<int64_t> send_fails{0};  // ticks the socket refused (queue full)
   std::atomic<bool> subscribed{false};
-  std::atomic<bool> finished{false};   // thread done (all bars, stop, or error)
-  std::string error;                   // set before `finished` when the thread failed
+  std::atomic<bool> finished{false};  // thread done (all bars, stop, or error)
+  std::string error;                  // set before `finished` when the thread failed
 };
 
 // The simulator thread: waits for the engine's subscription on the XPUB
@@ -256,11 +257,11 @@ void SimulatorLoop(MarketSim* sim, zmq::socket_t* sock, double bars_per_second,
     int64_t bar = 0;
     bool more = true;
     while (more && !stop->load()) {
-      const auto due = t0 + std::chrono::nanoseconds(std::llround(
-                                static_cast<double>(bar) * 1e9 / bars_per_second));
+      const auto due = t0 + std::chrono::nanoseconds(
+                                std::llround(static_cast<double>(bar) * 1e9 / bars_per_second));
       while (!stop->load() && SteadyClock::now() < due) {
-        std::this_thread::sleep_for(
-            std::min<SteadyClock::duration>(due - SteadyClock::now(), std::chrono::milliseconds(50)));
+        std::this_thread::sleep_for(std::min<SteadyClock::duration>(due - SteadyClock::now(),
+                                                                    std::chrono::milliseconds(50)));
       }
       if (stop->load()) break;
       for (size_t i = 0; i < per_bar; ++i) {
@@ -343,7 +344,8 @@ std::string AlertList(const uint64_t (&alerts)[kNumAlertKinds]) {
 // and model events (m.*) are counted and kept as short lines.
 class LiveView {
  public:
-  LiveView(bool table_mode, std::string title) : table_mode_(table_mode), title_(std::move(title)) {}
+  LiveView(bool table_mode, std::string title)
+      : table_mode_(table_mode), title_(std::move(title)) {}
 
   // Handles one [topic][body] message.
   void OnMessage(absl::string_view topic, absl::string_view body) {
@@ -479,7 +481,8 @@ struct LiveOptions {
 
 int LiveDemo(const LiveOptions& o) {
   // ---- Configuration and scenario ----
-  auto config = ParseEngineConfig(DemoConfigToml(o.refit_every, o.min_bars), "embedded demo config");
+  auto config =
+      ParseEngineConfig(DemoConfigToml(o.refit_every, o.min_bars), "embedded demo config");
   if (!config.ok()) return Fail(config.status(), 2);
   const double ppy = config->outputs.periods_per_year;
   auto profiles = DefaultInstruments(o.symbols);
@@ -563,8 +566,9 @@ int LiveDemo(const LiveOptions& o) {
       "at %g bars/s each",
       n, o.rate);
   const std::string plan = absl::StrCat(
-      title, " (", static_cast<double>(n) * o.rate, " ticks/s)\n  scenario: ",
-      absl::StrJoin(scenario, "; "), "\n  engine: ", config->model.spec.Label(),
+      title, " (", static_cast<double>(n) * o.rate,
+      " ticks/s)\n  scenario: ", absl::StrJoin(scenario, "; "),
+      "\n  engine: ", config->model.spec.Label(),
       ", EWMA warm-up until a refit passes the gate (every ", o.refit_every,
       " bars on a window of ", kWindowBars, ", the first after ", o.min_bars,
       " bars)\n  wiring: simulator ", feed_endpoint, " -> engine -> updates ", updates_endpoint,
@@ -656,23 +660,22 @@ int LiveDemo(const LiveOptions& o) {
   // ---- Summary (the engine thread has ended: the core is ours to read) ----
   const IngestCore& core = *e->core();
   const EngineCounters& c = core.counters();
-  std::string out = absl::StrFormat(
-      "\nSummary after %.1f s%s: %d instruments, %g bars/s each\n", elapsed,
-      interrupted ? " (interrupted)" : "", n, o.rate);
-  absl::StrAppend(&out, absl::StrFormat("%-14s %6s %7s %4s  %-38s %8s %7s  %s\n", "symbol", "bars",
-                                        "updates", "ver", "current model", "vol_ann", "refits",
-                                        "alerts"));
+  std::string out = absl::StrFormat("\nSummary after %.1f s%s: %d instruments, %g bars/s each\n",
+                                    elapsed, interrupted ? " (interrupted)" : "", n, o.rate);
+  absl::StrAppend(
+      &out, absl::StrFormat("%-14s %6s %7s %4s  %-38s %8s %7s  %s\n", "symbol", "bars", "updates",
+                            "ver", "current model", "vol_ann", "refits", "alerts"));
   for (int i = 0; i < core.num_symbols(); ++i) {
     const FilterModel& m = core.model(i);
     const uint32_t flags = core.status_flags(i);
     std::string label = m.params().spec.Label();
     if (m.is_ewma()) label = (flags & kFlagFallback) ? "EWMA fallback" : "EWMA warm-up";
     const DemoListener::Counts& lc = listener.Get(i);
-    absl::StrAppend(
-        &out, absl::StrFormat("%-14s %6d %7d %4d  %-38s %8.4f %3d/%-3d  %s\n", core.symbol(i),
-                              core.symbol_bars(i), core.symbol_updates(i), m.version(), label,
-                              core.filter_state(i).sd_next * std::sqrt(ppy), lc.swapped,
-                              lc.rejected, AlertList(lc.alerts)));
+    absl::StrAppend(&out,
+                    absl::StrFormat("%-14s %6d %7d %4d  %-38s %8.4f %3d/%-3d  %s\n", core.symbol(i),
+                                    core.symbol_bars(i), core.symbol_updates(i), m.version(), label,
+                                    core.filter_state(i).sd_next * std::sqrt(ppy), lc.swapped,
+                                    lc.rejected, AlertList(lc.alerts)));
   }
   uint64_t by_kind[kNumAlertKinds] = {};
   uint64_t alerts_total = 0;
@@ -783,8 +786,8 @@ int DemoCommand(int argc, char** argv) {
   o.refit_every = static_cast<int>(*every);
   auto min_bars = args.GetInt("min-bars");
   if (!min_bars.ok() || *min_bars <= kHoldoutBars || *min_bars > kWindowBars) {
-    return Usage(absl::StrCat("--min-bars must be an integer in ", kHoldoutBars + 1, "..",
-                              kWindowBars));
+    return Usage(
+        absl::StrCat("--min-bars must be an integer in ", kHoldoutBars + 1, "..", kWindowBars));
   }
   o.min_bars = static_cast<int>(*min_bars);
   if (args.Flag("print-config")) {
