@@ -18,6 +18,7 @@
 #include "absl/strings/string_view.h"
 #include "aftershock/bar_builder.h"
 #include "aftershock/model_params.h"
+#include "aftershock/online_filter.h"
 #include "aftershock/model_spec.h"
 #include "aftershock/wire.h"
 
@@ -79,6 +80,17 @@ struct OutputsConfig {
   // the annualized returns (0.10 = 10 % for fractions; 10 for per cent).
   double target_vol_ann = 0.10;
   double scale_cap = 3.0;  // upper bound of the sizing scale; default 3
+
+  // The filter's view of these settings.
+  OutputOptions ToOutputOptions() const {
+    OutputOptions o;
+    o.horizons = horizons;
+    o.risk_levels = risk_levels;
+    o.periods_per_year = periods_per_year;
+    o.target_vol_ann = target_vol_ann;
+    o.scale_cap = scale_cap;
+    return o;
+  }
 };
 
 // [limits]

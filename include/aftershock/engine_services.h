@@ -16,7 +16,8 @@
 //
 // Refits are enabled when [refit] every_bars or every_seconds is non-zero. In
 // replay mode a refit scheduled at bar n is applied exactly at n +
-// apply_lag_bars, so outputs do not depend on thread timing or worker counts.
+// apply_lag_bars, so outputs do not depend on thread timing or worker counts
+// (the records' fit_seconds, a wall time, is written as 0 in replay).
 // Candidates come from PipelineRefitter: the identification pipeline on the
 // first fit, every reidentify_every refits and after a failed gate; a
 // warm-started re-estimation of the current model otherwise.

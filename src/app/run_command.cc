@@ -6,6 +6,7 @@
 #include "absl/strings/str_join.h"
 #include "aftershock/engine.h"
 #include "aftershock/engine_config.h"
+#include "aftershock/engine_services.h"
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/engine_report.h"
@@ -33,6 +34,7 @@ int RunCommand(int argc, char** argv) {
   args.AddOption("config", "FILE", "engine configuration (TOML; see config/default.toml)", "",
                  true);
   args.AddFlag("check", "validate the configuration, print a summary and exit (0 ok, 2 bad)");
+  args.AddOption("alerts", "FILE", "also write alerts as JSON Lines (they are published on a.*)");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
     std::fputs(args.Help().c_str(), stdout);
@@ -48,13 +50,23 @@ int RunCommand(int argc, char** argv) {
       absl::StrCat("feed ", absl::StrJoin(config->feed.endpoints, ","), " (",
                    WireEncodingName(config->feed.encoding), ") -> bars ",
                    FormatDuration(config->bars.interval_ns), " -> ", model, " -> publish ",
-                   config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")");
+                   config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")",
+                   config->refit.every_bars > 0 || config->refit.every_seconds > 0
+                       ? absl::StrCat("; refits every ", config->refit.every_bars, " bars / ",
+                                      config->refit.every_seconds, " s on ",
+                                      config->refit.workers, " worker(s)")
+                       : "; refits off");
   if (args.Flag("check")) {
     std::printf("%s: configuration OK\n%s\n", args.Get("config").c_str(), plan.c_str());
     return 0;
   }
   auto engine = Engine::CreateFromConfig(*config);
   if (!engine.ok()) return Fail(engine.status(), 2);
+  ServiceOptions so;
+  so.mode = RefitMode::kLive;
+  so.alerts_path = args.Get("alerts");
+  auto services = EngineServices::Attach((*engine)->core(), *config, so);
+  if (!services.ok()) return Fail(services.status(), 2);
   // Printed from inside the loop, so a reader of this line knows that the
   // signal handlers are installed and ingest is live.
   Engine* e = engine->get();
@@ -65,15 +77,16 @@ int RunCommand(int argc, char** argv) {
     std::fflush(stderr);
   });
   absl::Status st = (*engine)->Run();
+  if (absl::Status fs = (*services)->Flush(); st.ok() && !fs.ok()) st = fs;
   const EngineCounters& c = (*engine)->core()->counters();
   std::fprintf(stderr,
                "aftershock run: stopped; %llu messages, %llu ticks, %llu bars, %llu updates, "
-               "%llu drops, %s, %llu symbols\n",
+               "%llu drops, %s, %llu symbols; %s\n",
                static_cast<unsigned long long>(c.messages_in),
                static_cast<unsigned long long>(c.ticks_in), static_cast<unsigned long long>(c.bars),
                static_cast<unsigned long long>(c.updates_out),
                static_cast<unsigned long long>(c.drops), RejectSummary(c).c_str(),
-               static_cast<unsigned long long>(c.symbols));
+               static_cast<unsigned long long>(c.symbols), ServicesSummary(**services).c_str());
   if (!st.ok()) return Fail(st, 1);
   return 0;
 }

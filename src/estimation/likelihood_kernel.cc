@@ -4,13 +4,12 @@
 #include <cmath>
 #include <limits>
 
-#include <boost/math/special_functions/digamma.hpp>
+#include "aftershock/innovations.h"
 
 namespace aftershock::internal {
 namespace {
 
 constexpr double kLogTwoPi = 1.8378770664093454836;
-constexpr double kLogPi = 1.1447298858494001741;
 
 }  // namespace
 
@@ -113,17 +112,10 @@ double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, dou
   const double s2 = s2_;
   const double ds2 = has_mu ? ds2_[0] : 0.0;  // d s2 / d mu
 
-  double const_term, dconst_dnu = 0;
-  if (student) {
-    const_term = std::lgamma(0.5 * (nu + 1.0)) - std::lgamma(0.5 * nu) -
-                 0.5 * (kLogPi + std::log(nu - 2.0));
-    if (with_grad) {
-      dconst_dnu = 0.5 * boost::math::digamma(0.5 * (nu + 1.0)) -
-                   0.5 * boost::math::digamma(0.5 * nu) - 0.5 / (nu - 2.0);
-    }
-  } else {
-    const_term = -0.5 * kLogTwoPi;
-  }
+  // Density constants (innovations.h; NaN for an invalid nu, which makes the
+  // log-likelihood NaN and the point infeasible for the optimizer).
+  const double const_term = student ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
+  const double dconst_dnu = student && with_grad ? DLogNormalizerTDnu(nu) : 0.0;
   const double nu2 = nu - 2.0;
 
   // Previous-term state: eps2, negative-part eps2, sigma2 and their d/dmu.
@@ -241,17 +233,10 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
   const double nu = student ? theta[spec_.DistOffset()] : 0.0;
 
   // Density constants.
-  double const_term, dconst_dnu = 0;
-  if (student) {
-    const_term = std::lgamma(0.5 * (nu + 1.0)) - std::lgamma(0.5 * nu) -
-                 0.5 * (kLogPi + std::log(nu - 2.0));
-    if (with_grad) {
-      dconst_dnu = 0.5 * boost::math::digamma(0.5 * (nu + 1.0)) -
-                   0.5 * boost::math::digamma(0.5 * nu) - 0.5 / (nu - 2.0);
-    }
-  } else {
-    const_term = -0.5 * kLogTwoPi;
-  }
+  // Density constants (innovations.h; NaN for an invalid nu, which makes the
+  // log-likelihood NaN and the point infeasible for the optimizer).
+  const double const_term = student ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
+  const double dconst_dnu = student && with_grad ? DLogNormalizerTDnu(nu) : 0.0;
 
   if (with_grad) std::fill(grad, grad + k_, 0.0);
   const double omega = vk == VarianceKind::kEwma ? 0.0 : theta[v0];

@@ -3,6 +3,7 @@
 #include <boost/math/distributions/normal.hpp>
 #include <boost/math/distributions/students_t.hpp>
 #include <boost/math/special_functions/digamma.hpp>
+#include <boost/math/special_functions/gamma.hpp>
 #include <cmath>
 #include <limits>
 
@@ -37,7 +38,10 @@ double LogDensityNormal(double z) { return -kHalfLog2Pi - 0.5 * z * z; }
 
 double LogNormalizerT(double nu) {
   if (!ValidNu(nu)) return kNaN;
-  return std::lgamma(0.5 * (nu + 1.0)) - std::lgamma(0.5 * nu) - 0.5 * std::log(kPi * (nu - 2.0));
+  // Boost's lgamma, not std::lgamma: the latter writes the global signgam,
+  // a data race when refit workers evaluate likelihoods concurrently.
+  return boost::math::lgamma(0.5 * (nu + 1.0), NoThrowPolicy()) -
+         boost::math::lgamma(0.5 * nu, NoThrowPolicy()) - 0.5 * std::log(kPi * (nu - 2.0));
 }
 
 double DLogNormalizerTDnu(double nu) {

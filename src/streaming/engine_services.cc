@@ -47,15 +47,6 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   return o;
 }
 
-OutputOptions ToOutputOptions(const OutputsConfig& c) {
-  OutputOptions o;
-  o.horizons = c.horizons;
-  o.risk_levels = c.risk_levels;
-  o.periods_per_year = c.periods_per_year;
-  o.target_vol_ann = c.target_vol_ann;
-  o.scale_cap = c.scale_cap;
-  return o;
-}
 
 class Services;
 
@@ -91,7 +82,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       ro.identify.max_persistence = config_.refit.max_persistence;
       ro.fit.presample = config_.model.presample;
       auto coord = RefitCoordinator::Create(ToRefitOptions(config_, options_),
-                                            ToOutputOptions(config_.outputs),
+                                            config_.outputs.ToOutputOptions(),
                                             PipelineRefitter::Create(ro));
       if (!coord.ok()) {
         return absl::InvalidArgumentError(absl::StrCat("[refit] ", coord.status().message()));
@@ -178,7 +169,15 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     FilterState state = core->filter_state(index);
     const RefitBarResult res = refit_->OnBar(id, update->t_ns, update->r, &state);
     if (!res.applied) return;
-    const RefitRecord& rec = refit_->last_record();
+    const RefitRecord* rec_ptr = &refit_->last_record();
+    if (options_.mode == RefitMode::kReplay) {
+      // Wall time is the one field a replay cannot reproduce: 0 keeps the
+      // model records byte-identical across runs (refits are rare; a copy).
+      replay_record_ = *rec_ptr;
+      replay_record_.fit_seconds = 0;
+      rec_ptr = &replay_record_;
+    }
+    const RefitRecord& rec = *rec_ptr;
     json_ = EncodeRefitRecordJson(rec);
     core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
     if (options_.listener != nullptr) options_.listener->OnRefitRecord(index, rec);
@@ -258,6 +257,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   std::vector<PerSymbol> symbols_;  // by core index
   uint64_t rejects_seen_ = 0;
   uint64_t swap_errors_ = 0;
+  RefitRecord replay_record_;
   std::string json_, alert_json_, reason_;
 };
 

@@ -15,21 +15,12 @@ namespace {
 // which only happens when a new symbol arrives, never per tick).
 constexpr int64_t kMaxReservedSlots = 1 << 20;
 
-OutputOptions ToOutputOptions(const OutputsConfig& o) {
-  OutputOptions out;
-  out.horizons = o.horizons;
-  out.risk_levels = o.risk_levels;
-  out.periods_per_year = o.periods_per_year;
-  out.target_vol_ann = o.target_vol_ann;
-  out.scale_cap = o.scale_cap;
-  return out;
-}
 
 }  // namespace
 
 absl::StatusOr<std::unique_ptr<IngestCore>> IngestCore::Create(const EngineConfig& config,
                                                                UpdateSink* sink, Clock* clock) {
-  const OutputOptions outputs = ToOutputOptions(config.outputs);
+  const OutputOptions outputs = config.outputs.ToOutputOptions();
   absl::StatusOr<FilterModel> model =
       config.model.has_params ? FilterModel::Create(config.model.params, outputs, 1)
                               : FilterModel::Ewma(config.warmup.ewma_lambda, outputs, 0);
