@@ -60,6 +60,11 @@ int RunCommand(int argc, char** argv) {
     std::printf("%s: configuration OK\n%s\n", args.Get("config").c_str(), plan.c_str());
     return 0;
   }
+  if (!config->checkpoint.path.empty()) {
+    std::fprintf(stderr,
+                 "aftershock run: warning: [checkpoint] path is set, but this version writes no "
+                 "checkpoints; the engine starts cold on every start\n");
+  }
   auto engine = Engine::CreateFromConfig(*config);
   if (!engine.ok()) return Fail(engine.status(), 2);
   ServiceOptions so;
