@@ -129,7 +129,6 @@ struct ModelSwap {
     kKeepState,  // continue from the symbol's current lags and next variance
     kRestart,    // InitFilterState(model, initial_variance)
     kRerun,      // kRestart, then AdvanceState over `rerun_returns` (oldest first)
-    kState,      // take `state` as given (e.g. re-run by a refit worker)
   };
   std::shared_ptr<const FilterModel> model;  // REQUIRED, created (Create/Ewma)
   Start start = Start::kRerun;
@@ -138,8 +137,6 @@ struct ModelSwap {
   double initial_variance = 0;
   // Returns to re-run (kRerun); only read during the call.
   absl::Span<const double> rerun_returns;
-  // The state to continue from (kState; REQUIRED then); copied during the call.
-  const FilterState* state = nullptr;
   // Status flags the symbol's updates carry from now on: kFlagWarmup and/or
   // kFlagFallback (others are ignored).
   uint32_t status_flags = 0;
@@ -201,6 +198,10 @@ class IngestCore : public TickConsumer {
   absl::string_view symbol(int index) const { return slots_[index].symbol.view(); }
   const FilterModel& model(int index) const { return *slots_[index].model; }
   const FilterState& filter_state(int index) const { return slots_[index].filter; }
+  // For an observer that advances or replaces the state itself (the refit
+  // coordinator re-runs it on a swap), then swaps the model with kKeepState.
+  // Ingest thread, between bars only (OnBar/OnClock).
+  FilterState* mutable_filter_state(int index) { return &slots_[index].filter; }
   uint32_t status_flags(int index) const { return slots_[index].status_flags; }
   uint64_t symbol_bars(int index) const { return slots_[index].bars; }          // bars closed
   uint64_t symbol_updates(int index) const { return slots_[index].updates; }    // published

@@ -195,9 +195,11 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     alerts->OnBar(*update, &p.alerts, &sink_);
     if (!refit_ || p.refit_id < 0) return;
     const uint32_t id = static_cast<uint32_t>(p.refit_id);
-    const ModelVersionPtr before = refit_->current(id);
-    FilterState state = core->filter_state(index);
-    const RefitBarResult res = refit_->OnBar(id, update->t_ns, update->r, &state);
+    // A raw pointer: copying the shared_ptr would cost two atomic operations a bar.
+    const ModelVersion* before = refit_->current(id).get();
+    // The coordinator re-runs the core's state in place when it swaps.
+    const RefitBarResult res =
+        refit_->OnBar(id, update->t_ns, update->r, core->mutable_filter_state(index));
     if (!res.applied) return;
     const RefitRecord* rec_ptr = &refit_->last_record();
     if (options_.mode == RefitMode::kReplay) {
@@ -212,11 +214,10 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
     if (options_.listener != nullptr) options_.listener->OnRefitRecord(index, rec);
     const ModelVersionPtr& now = refit_->current(id);
-    if (now != before) {
+    if (now.get() != before) {
       ModelSwap swap;
       swap.model = std::shared_ptr<const FilterModel>(now, &now->model);
-      swap.start = ModelSwap::Start::kState;
-      swap.state = &state;
+      swap.start = ModelSwap::Start::kKeepState;  // already re-run by the coordinator
       swap.status_flags = refit_->flags(id);
       // Cannot fail: the model is created and the state given; counted if it did.
       if (!core->SwapModel(index, swap).ok()) ++swap_errors_;
@@ -233,7 +234,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
                           &sink_);
       p.fallback = rec.fallback;
     }
-    if (rec.outcome == RefitOutcome::kSwapped && now != before) {
+    if (rec.outcome == RefitOutcome::kSwapped && now.get() != before) {
       alerts->OnModelSwap(p.symbol, update->t_ns, rec.version,
                            now->model.params().Persistence(), &p.alerts, &sink_);
     }

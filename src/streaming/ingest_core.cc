@@ -243,11 +243,8 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
     return absl::InvalidArgumentError(absl::StrCat("SwapModel: no symbol with index ", index));
   }
   if (swap.model == nullptr) return absl::InvalidArgumentError("SwapModel: model is null");
-  if (swap.start == ModelSwap::Start::kState && swap.state == nullptr) {
-    return absl::InvalidArgumentError("SwapModel: kState needs a state");
-  }
   if (swap.model->is_ewma() && swap.start != ModelSwap::Start::kKeepState &&
-      swap.start != ModelSwap::Start::kState && !(swap.initial_variance > 0)) {
+      !(swap.initial_variance > 0)) {
     return absl::InvalidArgumentError(
         "SwapModel: an EWMA model needs a positive initial_variance unless the state is kept");
   }
@@ -268,9 +265,6 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
       if (swap.start == ModelSwap::Start::kRerun) {
         for (double r : swap.rerun_returns) AdvanceState(*swap.model, &slot.filter, r);
       }
-      break;
-    case ModelSwap::Start::kState:
-      slot.filter = *swap.state;
       break;
   }
   slot.filter_ready = true;
