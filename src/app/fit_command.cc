@@ -18,6 +18,23 @@ int Fail(const absl::Status& s, int code) {
   return code;
 }
 
+// Prints a report: JSON (with the input named and the caution) or text titled
+// by the input file and column.
+template <typename TextFn>
+void Print(const std::string& format, const ArgParser& args, const Series& series,
+           nlohmann::json j, TextFn text) {
+  if (format == "json") {
+    j["input"] = args.Get("input");
+    j["column"] = series.column;
+    j["caution"] = "statistical estimate, not advice";
+    std::fputs((j.dump(2) + "\n").c_str(), stdout);
+    return;
+  }
+  std::string title = args.Get("input");
+  if (!series.column.empty()) title += " (column " + series.column + ")";
+  std::fputs(text(title).c_str(), stdout);
+}
+
 int RunIdentification(const ArgParser& args, const std::string& format) {
   IdentifyOptions opt;
   const std::string crit = args.Get("criterion");
@@ -49,17 +66,9 @@ int RunIdentification(const ArgParser& args, const std::string& format) {
   if (!series.ok()) return Fail(series.status(), 2);
   auto rep = IdentifyModel(series->values, opt);
   if (!rep.ok()) return Fail(rep.status(), 2);
-  if (format == "json") {
-    nlohmann::json j = IdentificationJson(*rep);
-    j["input"] = args.Get("input");
-    j["column"] = series->column;
-    j["caution"] = "statistical estimate, not advice";
-    std::fputs((j.dump(2) + "\n").c_str(), stdout);
-  } else {
-    std::string title = args.Get("input");
-    if (!series->column.empty()) title += " (column " + series->column + ")";
-    std::fputs(IdentificationText(*rep, title).c_str(), stdout);
-  }
+  Print(format, args, *series, IdentificationJson(*rep), [&](const std::string& title) {
+    return IdentificationText(*rep, title);
+  });
   return rep->final_fit.converged ? 0 : 1;
 }
 
@@ -148,17 +157,8 @@ int FitCommand(int argc, char** argv) {
   auto fit = FitModel(*spec, series->values, options);
   if (!fit.ok()) return Fail(fit.status(), 2);
 
-  if (format == "json") {
-    nlohmann::json j = FitResultJson(*fit);
-    j["input"] = args.Get("input");
-    j["column"] = series->column;
-    j["caution"] = "statistical estimate, not advice";
-    std::fputs((j.dump(2) + "\n").c_str(), stdout);
-  } else {
-    std::string title = args.Get("input");
-    if (!series->column.empty()) title += " (column " + series->column + ")";
-    std::fputs(FitResultText(*fit, title).c_str(), stdout);
-  }
+  Print(format, args, *series, FitResultJson(*fit),
+        [&](const std::string& title) { return FitResultText(*fit, title); });
   return fit->converged ? 0 : 1;
 }
 

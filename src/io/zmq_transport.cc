@@ -121,17 +121,24 @@ absl::StatusOr<std::unique_ptr<ZmqTransport>> ZmqTransport::Create(int io_thread
   return std::unique_ptr<ZmqTransport>(new ZmqTransport(std::move(impl)));
 }
 
+namespace {
+
+// Closes a socket that failed its set-up (no linger) and returns the error.
+absl::Status CloseWithError(void* socket, absl::string_view what) {
+  absl::Status st = ZmqError(what);
+  int linger = 0;
+  zmq_setsockopt(socket, ZMQ_LINGER, &linger, sizeof(linger));
+  zmq_close(socket);
+  return st;
+}
+
+}  // namespace
+
 absl::StatusOr<std::unique_ptr<TickSource>> ZmqTransport::Subscribe(
     const FeedConfig& feed, const ZmqSubscriberOptions& options) {
   void* s = zmq_socket(impl_->ctx, ZMQ_SUB);
   if (s == nullptr) return ZmqError("cannot create the SUB socket");
-  auto fail = [s](absl::string_view what) {
-    absl::Status st = ZmqError(what);
-    int linger = 0;
-    zmq_setsockopt(s, ZMQ_LINGER, &linger, sizeof(linger));
-    zmq_close(s);
-    return st;
-  };
+  auto fail = [s](absl::string_view what) { return CloseWithError(s, what); };
   int hwm = static_cast<int>(options.receive_hwm);
   if (zmq_setsockopt(s, ZMQ_RCVHWM, &hwm, sizeof(hwm)) != 0) return fail("[feed] ZMQ_RCVHWM");
   if (!feed.curve_server_key.empty()) {
@@ -156,13 +163,7 @@ absl::StatusOr<std::unique_ptr<UpdateSink>> ZmqTransport::Publish(
     const PublishConfig& publish, const ZmqPublisherOptions& options) {
   void* s = zmq_socket(impl_->ctx, ZMQ_PUB);
   if (s == nullptr) return ZmqError("cannot create the PUB socket");
-  auto fail = [s](absl::string_view what) {
-    absl::Status st = ZmqError(what);
-    int linger = 0;
-    zmq_setsockopt(s, ZMQ_LINGER, &linger, sizeof(linger));
-    zmq_close(s);
-    return st;
-  };
+  auto fail = [s](absl::string_view what) { return CloseWithError(s, what); };
   int hwm = static_cast<int>(publish.high_water_mark);
   if (zmq_setsockopt(s, ZMQ_SNDHWM, &hwm, sizeof(hwm)) != 0) return fail("[publish] ZMQ_SNDHWM");
   int one = 1;

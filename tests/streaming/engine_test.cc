@@ -102,6 +102,19 @@ struct Harness {
     feed.send(zmq::buffer(body), zmq::send_flags::none);
   }
 
+  // Counters once the probes still in flight after WaitUntilLive() have arrived
+  // (two snapshots 20 ms apart agree), so later deltas count only the test's ticks.
+  EngineCounters Settled() {
+    EngineCounters a = Snapshot(engine_.get());
+    for (int i = 0; i < 500; ++i) {
+      std::this_thread::sleep_for(std::chrono::milliseconds(20));
+      const EngineCounters b = Snapshot(engine_.get());
+      if (b.ticks_in == a.ticks_in && b.updates_out == a.updates_out) return b;
+      a = b;
+    }
+    return a;
+  }
+
   // Slow-joiner handling: probe ticks until one comes back through the whole
   // chain (feed -> engine -> subscriber); both subscriptions are then live.
   int WaitUntilLive() {
@@ -164,7 +177,7 @@ TEST_CASE("end to end over TCP loopback equals the offline filter", "[engine][e2
   Harness h(testing::ParseConfigOrDie(toml));
   h.WaitUntilLive();
   // Probes lost to the slow joiner never reach the engine: count from here.
-  const EngineCounters base = Snapshot(h.engine_.get());
+  const EngineCounters base = h.Settled();
 
   const std::vector<std::string> syms = {"ALDER.X", "BIRCH.Y", "CEDAR.Z", "DOGWOOD.W"};
   const int n = 400;
@@ -226,7 +239,7 @@ TEST_CASE("end to end over TCP loopback equals the offline filter", "[engine][e2
 TEST_CASE("bad input over the wire is counted and the engine keeps publishing", "[engine][e2e]") {
   Harness h(testing::ParseConfigOrDie(testing::kFixedModelToml));
   h.WaitUntilLive();
-  const EngineCounters base = Snapshot(h.engine_.get());
+  const EngineCounters base = h.Settled();
   // one-frame message, three-frame message, malformed JSON, a NaN, a bad symbol
   h.feed.send(zmq::str_buffer("ALONE"), zmq::send_flags::none);
   h.feed.send(zmq::str_buffer("GOOD.A"), zmq::send_flags::sndmore);
@@ -255,7 +268,7 @@ TEST_CASE("a subscriber that never reads does not block ingest; drops are counte
                                                   "[publish]\nhigh_water_mark = 10\n");
   Harness h(config, /*sub_rcvhwm=*/10);
   h.WaitUntilLive();
-  const EngineCounters base = Snapshot(h.engine_.get());
+  const EngineCounters base = h.Settled();
   // From here on the subscriber never reads.
   const int n = 100000;
   const auto start = std::chrono::steady_clock::now();
