@@ -43,9 +43,8 @@ ModelSpec WithVariance(int p, int q, VarianceKind v, int na, int no, int nb, Inn
 }
 
 // Start vector for `spec` whose mean block is the step-1 estimate (converted
-// from the ARMA module's mean form to the intercept form of likelihood.h) and
-// whose other entries are provisional values the estimator replaces (only the mean
-// block of a fix_mean start is used as given).
+// from the ARMA module's mean form to the intercept form of likelihood.h; held
+// fixed in the two-step fit) and whose variance block is a typical start.
 ModelParams MeanStart(const ModelSpec& spec, const ArmaParams& arma) {
   ModelParams p{spec, std::vector<double>(spec.NumParams(), 0.0)};
   double ar_sum = 0;
@@ -54,9 +53,19 @@ ModelParams MeanStart(const ModelSpec& spec, const ArmaParams& arma) {
   for (int i = 0; i < spec.ar_order; ++i) p.values[1 + i] = arma.ar[i];
   for (int i = 0; i < spec.ma_order; ++i) p.values[1 + spec.ar_order + i] = arma.ma[i];
   const int v0 = spec.VarianceOffset();
-  // Provisional values inside the constraints (the grid supplies the starts).
-  p.values[v0] = arma.sigma2 * 0.1;
-  for (int i = v0 + 1; i < spec.DistOffset(); ++i) p.values[i] = 0.05;
+  // Typical values inside the constraints, the first start of the fit (the
+  // estimator falls back to its grid of cold starts if a fit from here fails):
+  // persistence 0.98 with GARCH terms, 0.3 for a pure ARCH.
+  const int na = spec.arch_order, no = spec.asym_order, nb = spec.garch_order;
+  if (spec.variance == VarianceKind::kConstant) {
+    p.values[v0] = arma.sigma2;
+  } else {
+    const double a_total = nb > 0 ? 0.08 : 0.3, b_total = nb > 0 ? 0.9 : 0.0;
+    p.values[v0] = arma.sigma2 * (1.0 - a_total - b_total);
+    for (int i = 0; i < na; ++i) p.values[v0 + 1 + i] = (no > 0 ? 0.5 : 1.0) * a_total / na;
+    for (int i = 0; i < no; ++i) p.values[v0 + 1 + na + i] = a_total / no;
+    for (int j = 0; j < nb; ++j) p.values[v0 + 1 + na + no + j] = b_total / nb;
+  }
   if (spec.innovations == Innovations::kStudentT) p.values[spec.DistOffset()] = 8.0;
   return p;
 }
@@ -195,10 +204,19 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
   }
   int best = -1;
   std::vector<FitResult> fits(specs.size());
+  const size_t per_law = specs.size() / laws.size();  // specs are law-major
   for (size_t i = 0; i < specs.size(); ++i) {
     FitOptions fo;
     fo.presample = options.presample;
     fo.start = MeanStart(specs[i], sel->best.params);
+    // A Student-t candidate starts from the normal fit of the same variance
+    // equation (nu = 8): the variance parameters rarely move far.
+    if (specs[i].innovations == Innovations::kStudentT && i >= per_law &&
+        rep.variance_candidates[i - per_law].ok) {
+      const std::vector<double>& v = fits[i - per_law].params.values;
+      std::copy(v.begin(), v.end(), fo.start->values.begin());
+      fo.start->values.back() = 8.0;
+    }
     fo.fix_mean = true;
     fo.std_errors = false;
     // Ranking needs the criterion to ~1e-6 nats, not 1e-11: looser tolerances
