@@ -1,6 +1,7 @@
 #include "app/args.h"
 
 #include <cerrno>
+#include <cstdio>
 #include <cmath>
 #include <cstdlib>
 
@@ -10,6 +11,12 @@
 #include "absl/strings/strip.h"
 
 namespace aftershock::app {
+
+int ReportFailure(absl::string_view command, const absl::Status& status, int code) {
+  std::fprintf(stderr, "aftershock %s: %s\n", std::string(command).c_str(),
+               std::string(status.message()).c_str());
+  return code;
+}
 
 ArgParser::ArgParser(std::string command, std::string summary)
     : command_(std::move(command)), summary_(std::move(summary)) {}

@@ -12,8 +12,13 @@
 
 #include "absl/status/status.h"
 #include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
 
 namespace aftershock::app {
+
+// Prints "aftershock <command>: <message>" on standard error and returns code
+// (the exit code of the subcommand).
+int ReportFailure(absl::string_view command, const absl::Status& status, int code);
 
 class ArgParser {
  public:

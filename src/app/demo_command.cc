@@ -74,10 +74,7 @@ constexpr auto kSubscribeWait = std::chrono::seconds(5);
 // Alert and model-event lines kept under the live table.
 constexpr size_t kEventLines = 8;
 
-int Fail(const absl::Status& s, int code) {
-  std::fprintf(stderr, "aftershock demo: %s\n", std::string(s.message()).c_str());
-  return code;
-}
+int Fail(const absl::Status& s, int code) { return ReportFailure("demo", s, code); }
 
 int Usage(const std::string& message) { return Fail(absl::InvalidArgumentError(message), 2); }
 

@@ -13,10 +13,7 @@
 namespace aftershock::app {
 namespace {
 
-int Fail(const absl::Status& s, int code) {
-  std::fprintf(stderr, "aftershock fit: %s\n", std::string(s.message()).c_str());
-  return code;
-}
+int Fail(const absl::Status& s, int code) { return ReportFailure("fit", s, code); }
 
 // Prints a report: JSON (with the input named and the caution) or text titled
 // by the input file and column.

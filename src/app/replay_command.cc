@@ -23,10 +23,7 @@
 namespace aftershock::app {
 namespace {
 
-int Fail(const absl::Status& s, int code) {
-  std::fprintf(stderr, "aftershock replay: %s\n", std::string(s.message()).c_str());
-  return code;
-}
+int Fail(const absl::Status& s, int code) { return ReportFailure("replay", s, code); }
 
 }  // namespace
 

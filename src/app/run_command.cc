@@ -14,10 +14,7 @@
 namespace aftershock::app {
 namespace {
 
-int Fail(const absl::Status& s, int code) {
-  std::fprintf(stderr, "aftershock run: %s\n", std::string(s.message()).c_str());
-  return code;
-}
+int Fail(const absl::Status& s, int code) { return ReportFailure("run", s, code); }
 
 }  // namespace
 

@@ -32,10 +32,7 @@ namespace {
 
 using Clock = std::chrono::steady_clock;
 
-int Fail(const absl::Status& s, int code) {
-  std::fprintf(stderr, "aftershock simulate: %s\n", std::string(s.message()).c_str());
-  return code;
-}
+int Fail(const absl::Status& s, int code) { return ReportFailure("simulate", s, code); }
 
 // One --regime item: [SYMBOL@]BAR:MULT; an empty symbol means every instrument.
 struct RegimeItem {

@@ -11,6 +11,26 @@ namespace {
 
 constexpr double kLogTwoPi = 1.8378770664093454836;
 
+// Partial derivatives of one likelihood term log f(e / sqrt(v)) - log(v) / 2 in
+// eps, sigma2 and (Student-t) nu; shared by the fast and the general path.
+struct TermDerivatives {
+  double de, dv, dnu;
+};
+
+// Standardized t: u = e^2 / (v (nu - 2)), l1u = log1p(u), inv_v = 1 / v.
+inline TermDerivatives StudentTerm(double e, double inv_v, double u, double l1u, double nu,
+                                   double dconst_dnu) {
+  const double inv = 1.0 / (1.0 + u);
+  return {-(nu + 1.0) * e * inv_v / (nu - 2.0) * inv,
+          (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v,
+          dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u / (nu - 2.0) * inv};
+}
+
+// Normal: q = e^2 / v.
+inline TermDerivatives NormalTerm(double e, double inv_v, double q) {
+  return {-e * inv_v, 0.5 * (q - 1.0) * inv_v, 0.0};
+}
+
 }  // namespace
 
 LikelihoodKernel::LikelihoodKernel(const ModelSpec& spec, std::vector<double> returns,
@@ -149,17 +169,18 @@ double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, dou
       const double u = e2 * inv_v / nu2;
       prod_u *= 1.0 + u;
       if (with_grad) {
-        const double inv = 1.0 / (1.0 + u);
-        dl_de = -(nu + 1.0) * e * inv_v / nu2 * inv;
-        dl_dv = (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v;
-        dl_dnu = dconst_dnu - 0.5 * std::log1p(u) + 0.5 * (nu + 1.0) * u / nu2 * inv;
+        const TermDerivatives t = StudentTerm(e, inv_v, u, std::log1p(u), nu, dconst_dnu);
+        dl_de = t.de;
+        dl_dv = t.dv;
+        dl_dnu = t.dnu;
       }
     } else {
       const double q = e2 * inv_v;
       quad += q;
       if (with_grad) {
-        dl_de = -e * inv_v;
-        dl_dv = 0.5 * (q - 1.0) * inv_v;
+        const TermDerivatives t = NormalTerm(e, inv_v, q);
+        dl_de = t.de;
+        dl_dv = t.dv;
       }
     }
     if (++in_chunk == kChunk) {
@@ -336,22 +357,22 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
     // ---- log density and its partial derivatives in eps, sigma2 and nu ----
     const double e = eps_[k];
     const double e2 = e * e;
-    double dl_de, dl_dv;
+    const double inv_v = 1.0 / v;
+    TermDerivatives t;
     if (student) {
-      const double u = e2 / (v * (nu - 2.0));
+      const double u = e2 * inv_v / (nu - 2.0);
       const double l1u = std::log1p(u);
       ll += const_term - 0.5 * std::log(v) - 0.5 * (nu + 1.0) * l1u;
       if (!with_grad) continue;
-      dl_de = -(nu + 1.0) * e / (v * (nu - 2.0) * (1.0 + u));
-      dl_dv = -0.5 / v + 0.5 * (nu + 1.0) * u / (v * (1.0 + u));
-      const double dl_dnu = dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u / ((nu - 2.0) * (1.0 + u));
-      work_[spec_.DistOffset()] = dl_dnu;
+      t = StudentTerm(e, inv_v, u, l1u, nu, dconst_dnu);
+      work_[spec_.DistOffset()] = t.dnu;
     } else {
-      ll += const_term - 0.5 * (e2 / v + std::log(v));
+      const double q = e2 * inv_v;
+      ll += const_term - 0.5 * (q + std::log(v));
       if (!with_grad) continue;
-      dl_de = -e / v;
-      dl_dv = 0.5 * (e2 / v - 1.0) / v;
+      t = NormalTerm(e, inv_v, q);
     }
+    const double dl_de = t.de, dl_dv = t.dv;
     const int kv = student ? k_ - 1 : k_;
     for (int c = 0; c < kv; ++c) work_[c] = dl_dv * g[c];
     const double* d = &deps_[static_cast<size_t>(k) * nm_];

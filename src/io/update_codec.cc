@@ -80,6 +80,12 @@ void Key(std::string* out, const char* k) {
   out->append("\":");
 }
 
+// ,"k":v
+void Field(std::string* out, const char* k, double v) {
+  Key(out, k);
+  AppendDouble(out, v);
+}
+
 template <typename T>
 void AppendLe(std::string* out, T v) {
   char buf[sizeof(T)];
@@ -120,20 +126,13 @@ absl::Status EncodeUpdateJson(const BarUpdate& u, std::string* out) {
   out->append(u.symbol.data, u.symbol.size);
   out->append("\",\"t\":");
   AppendInt(out, u.t_ns);
-  Key(out, "r");
-  AppendDouble(out, u.r);
-  Key(out, "mu");
-  AppendDouble(out, u.mu);
-  Key(out, "eps");
-  AppendDouble(out, u.eps);
-  Key(out, "var");
-  AppendDouble(out, u.var);
-  Key(out, "z");
-  AppendDouble(out, u.z);
-  Key(out, "var_next");
-  AppendDouble(out, u.var_next);
-  Key(out, "vol_ann");
-  AppendDouble(out, u.vol_ann);
+  Field(out, "r", u.r);
+  Field(out, "mu", u.mu);
+  Field(out, "eps", u.eps);
+  Field(out, "var", u.var);
+  Field(out, "z", u.z);
+  Field(out, "var_next", u.var_next);
+  Field(out, "vol_ann", u.vol_ann);
   Key(out, "var_h");
   out->push_back('{');
   for (int i = 0; i < u.n_horizons; ++i) {
@@ -157,8 +156,7 @@ absl::Status EncodeUpdateJson(const BarUpdate& u, std::string* out) {
     }
     out->push_back('}');
   }
-  Key(out, "scale");
-  AppendDouble(out, u.scale);
+  Field(out, "scale", u.scale);
   Key(out, "ver");
   AppendInt(out, u.ver);
   Key(out, "flags");

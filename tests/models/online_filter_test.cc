@@ -6,6 +6,7 @@
 #include "aftershock/forecast.h"
 #include "aftershock/likelihood.h"
 #include "aftershock/simulate.h"
+#include "support/test_support.h"
 #include "support/alloc_counter.h"
 
 namespace aftershock {
@@ -21,12 +22,7 @@ ModelParams Params(const char* mean, std::vector<int> mo, const char* var, std::
 }
 
 std::vector<double> Sim(const ModelParams& p, int n, uint64_t seed) {
-  SimulationOptions o;
-  o.n = n;
-  o.seed = seed;
-  auto s = Simulate(p, o);
-  REQUIRE(s.ok());
-  return s->returns;
+  return testing::SimulatedReturns(p, n, seed);
 }
 
 TEST_CASE("filtered variances equal the likelihood recursion exactly", "[filter]") {

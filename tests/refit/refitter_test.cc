@@ -3,6 +3,7 @@
 #include <catch2/catch.hpp>
 
 #include "aftershock/simulate.h"
+#include "support/test_support.h"
 
 namespace aftershock {
 namespace {
@@ -21,12 +22,7 @@ ModelParams Gjr() {
 }
 
 std::vector<double> Sim(const ModelParams& p, int n, uint64_t seed) {
-  SimulationOptions o;
-  o.n = n;
-  o.seed = seed;
-  auto s = Simulate(p, o);
-  REQUIRE(s.ok());
-  return s->returns;
+  return testing::SimulatedReturns(p, n, seed);
 }
 
 TEST_CASE("without a model the refitter fits the initial spec cold", "[refitter]") {

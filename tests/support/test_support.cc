@@ -1,5 +1,7 @@
 #include "support/test_support.h"
 
+#include "aftershock/simulate.h"
+
 #include <fcntl.h>
 #include <poll.h>
 #include <signal.h>
@@ -146,6 +148,15 @@ std::string ReadFileOrDie(const std::string& path) {
   std::stringstream ss;
   ss << f.rdbuf();
   return ss.str();
+}
+
+std::vector<double> SimulatedReturns(const ModelParams& params, int n, uint64_t seed) {
+  SimulationOptions o;
+  o.n = n;
+  o.seed = seed;
+  auto s = Simulate(params, o);
+  if (!s.ok()) throw std::runtime_error("simulation refused: " + std::string(s.status().message()));
+  return s->returns;
 }
 
 double RelDiff(double a, double b) {

@@ -8,6 +8,8 @@
 #include <string>
 #include <vector>
 
+#include "aftershock/model_params.h"
+
 namespace aftershock::testing {
 
 // Path of a file from the shared reference-data folder: $AFTERSHOCK_REFERENCE_DATA
@@ -43,6 +45,10 @@ std::string ScratchDir(const std::string& name);
 // Writes `content` to `path`, returning path.
 std::string WriteFile(const std::string& path, const std::string& content);
 std::string ReadFileOrDie(const std::string& path);
+
+// Returns simulated from `params` (simulate.h, default burn-in) with a fixed
+// seed; fails the running test if the simulation is refused.
+std::vector<double> SimulatedReturns(const ModelParams& params, int n, uint64_t seed);
 
 // Relative difference |a-b| / max(|b|, tiny).
 double RelDiff(double a, double b);
