@@ -54,6 +54,7 @@ svg text { font-family:"DejaVu Sans", Helvetica, Arial, sans-serif; fill:var(--i
 svg .tick { font-size:11px; fill:#4b4a45; }
 svg .grid { stroke:#ebe7dc; stroke-width:1; }
 svg .axis { stroke:#8c877a; stroke-width:1; }
+svg .closed { stroke:#8c877a; stroke-width:1; stroke-dasharray:1 3; }
 svg .title { font-size:14px; font-weight:700; }
 svg .label { font-size:12px; fill:#3b3a36; }
 svg .legend { font-size:12px; }
@@ -163,6 +164,50 @@ const char kReportScript[] = R"JS(
     return [lo, hi];
   }
   function pad(e, f) { var d = (e[1] - e[0]) * f; return [e[0] - d, e[1] + d]; }
+  // Closed hours (nights, weekends, holidays) take no width on a time axis: a
+  // gap between consecutive samples longer than four times their median
+  // spacing (and than ten minutes) is drawn one median spacing wide and marked.
+  // Returns null when the samples have no such gap.
+  function timeWarp(xs) {
+    if (!xs || xs.length < 3) return null;
+    var d = [];
+    for (var i = 1; i < xs.length; ++i) d.push(xs[i] - xs[i - 1]);
+    var med = d.slice().sort(function (a, b) { return a - b; })[Math.floor(d.length / 2)];
+    if (!(med > 0)) return null;
+    var cuts = [];
+    for (var j = 1; j < xs.length; ++j) {
+      var g = xs[j] - xs[j - 1];
+      if (g > 4 * med && g > 10 * MIN) cuts.push([xs[j - 1], xs[j]]);
+    }
+    if (!cuts.length) return null;
+    // Real time -> compressed time: each cut shrinks to `med`, linearly inside.
+    function fwd(v) {
+      var u = v;
+      for (var k = 0; k < cuts.length; ++k) {
+        var a = cuts[k][0], b = cuts[k][1];
+        if (v >= b) u -= (b - a) - med;
+        else if (v > a) u -= (v - a) * (1 - med / (b - a));
+      }
+      return u;
+    }
+    return { fwd: fwd, cuts: cuts };
+  }
+  // Ticks of a warped axis: one step for the compressed span, placed inside
+  // each open stretch, thinned to at least minGap of compressed time apart.
+  function warpedTicks(lo, hi, w, n) {
+    var U = w.fwd(hi) - w.fwd(lo), step = TIME_STEPS[TIME_STEPS.length - 1];
+    for (var i = 0; i < TIME_STEPS.length; ++i) if (U / TIME_STEPS[i] <= n) { step = TIME_STEPS[i]; break; }
+    var stretches = [], a = lo;
+    w.cuts.forEach(function (c) { if (c[0] >= lo && c[1] <= hi) { stretches.push([a, c[0]]); a = c[1]; } });
+    stretches.push([a, hi]);
+    var out = [], last = -Infinity, minGap = 0.6 * U / n;
+    stretches.forEach(function (s) {
+      for (var v = Math.ceil(s[0] / step) * step; v <= s[1]; v += step) {
+        if (w.fwd(v) - last >= minGap) { out.push(v); last = w.fwd(v); }
+      }
+    });
+    return { ticks: out, step: step, span: hi - lo };
+  }
 
   // One framed plot: grid, ticks, axis labels, title and a legend row.
   function frame(parent, o) {
@@ -170,12 +215,17 @@ const char kReportScript[] = R"JS(
     var svg = el('svg', { viewBox: '0 0 ' + W + ' ' + H, role: 'img' }, parent);
     el('title', {}, svg).textContent = o.title;
     var pw = W - m.l - m.r, ph = H - m.t - m.b;
-    var sx = function (v) { return m.l + (v - o.x[0]) / (o.x[1] - o.x[0]) * pw; };
+    var warp = o.xtime ? timeWarp(o.xs) : null;
+    var sx = warp ? (function (u0, u1) {
+      return function (v) { return m.l + (warp.fwd(v) - u0) / (u1 - u0) * pw; };
+    })(warp.fwd(o.x[0]), warp.fwd(o.x[1]))
+      : function (v) { return m.l + (v - o.x[0]) / (o.x[1] - o.x[0]) * pw; };
     var sy = function (v) { return m.t + ph - (v - o.y[0]) / (o.y[1] - o.y[0]) * ph; };
     txt(svg, m.l, 18, o.title, 'title');
     var xt;
     if (o.xtime) {
-      var tt = timeTicks(o.x[0], o.x[1], Math.max(3, Math.floor(pw / 110)));
+      var nt = Math.max(3, Math.floor(pw / 110));
+      var tt = warp ? warpedTicks(o.x[0], o.x[1], warp, nt) : timeTicks(o.x[0], o.x[1], nt);
       xt = tt.ticks.map(function (v) { return [v, timeLabel(v, tt.step, tt.span)]; });
     } else {
       xt = niceTicks(o.x[0], o.x[1], Math.max(3, Math.floor(pw / 90))).map(function (v) { return [v, fmt(v)]; });
@@ -190,8 +240,14 @@ const char kReportScript[] = R"JS(
       el('line', { x1: m.l, x2: m.l + pw, y1: Y, y2: Y, 'class': 'grid' }, svg);
       txt(svg, m.l - 6, Y + 4, fmt(v), 'tick', { 'text-anchor': 'end' });
     });
+    if (warp) {
+      warp.cuts.forEach(function (c) {
+        var X = (sx(c[0]) + sx(c[1])) / 2;
+        el('line', { x1: X, x2: X, y1: m.t, y2: m.t + ph, 'class': 'closed' }, svg);
+      });
+    }
     el('rect', { x: m.l, y: m.t, width: pw, height: ph, fill: 'none', 'class': 'axis' }, svg);
-    txt(svg, m.l + pw / 2, H - 10, o.xlabel, 'label', { 'text-anchor': 'middle' });
+    txt(svg, m.l + pw / 2, H - 10, warp ? o.xlabel + '; closed hours left out (dotted lines)' : o.xlabel, 'label', { 'text-anchor': 'middle' });
     txt(svg, 0, 0, o.ylabel, 'label', { 'text-anchor': 'middle',
       transform: 'translate(16,' + (m.t + ph / 2) + ') rotate(-90)' });
     if (o.legend) {
@@ -268,7 +324,7 @@ const char kReportScript[] = R"JS(
     legend.push({ label: 'exception (' + R.n_exc + ')', color: COLORS.vr, type: 'dot' });
     var f = frame(fig, { w: 1300, h: 330, title: s.symbol + ': returns with bands and VaR exceptions',
       xlabel: s.time_axis ? 'bar end time (UTC)' : 'bar index', ylabel: 'return per bar (feed units)',
-      xtime: s.time_axis, x: xRange(R.x), y: pad(extent([R.lo, R.hi, R.bu, R.bl, R.nv]), 0.04),
+      xtime: s.time_axis, xs: R.x, x: xRange(R.x), y: pad(extent([R.lo, R.hi, R.bu, R.bl, R.nv]), 0.04),
       legend: legend, clip: 'clip-r' + idx });
     el('path', { d: bandPath(R.x, R.bu, R.bl, f.sx, f.sy), fill: COLORS.bandFill, stroke: COLORS.band, 'stroke-width': 0.6 }, f.plot);
     el('path', { d: rangePath(R.x, R.lo, R.hi, f.sx, f.sy), fill: 'none', stroke: COLORS.ret, 'stroke-width': 1 }, f.plot);
@@ -288,7 +344,7 @@ const char kReportScript[] = R"JS(
       { label: 'rejected refit', color: COLORS.reject, dash: '2 3' }];
     var f = frame(fig, { w: 1300, h: 300, title: s.symbol + ': conditional volatility, regimes and model swaps',
       xlabel: s.time_axis ? 'bar end time (UTC)' : 'bar index', ylabel: 'volatility (' + unit + ')',
-      xtime: s.time_axis, x: xRange(V.x), y: pad(extent([V.lo, V.hi]).map(function (v, i) { return i === 0 ? Math.min(0, v) : v; }), 0.04),
+      xtime: s.time_axis, xs: V.x, x: xRange(V.x), y: pad(extent([V.lo, V.hi]).map(function (v, i) { return i === 0 ? Math.min(0, v) : v; }), 0.04),
       legend: legend, clip: 'clip-v' + idx });
     V.regimes.forEach(function (g) {
       var x0 = f.sx(g[0]), x1 = f.sx(g[1]);
