@@ -4,20 +4,27 @@
 //   symbol,time,price            price ticks
 //   symbol,time,return           log-return ticks
 //   symbol,time,return,rv        with the interval's realized variance
+//   symbol,time,bid,ask          quotes: the price is the mid, (bid + ask) / 2
 // Columns may appear in any order; `symbol`, `time` and exactly one of
-// `price` / `return` are required; `rv` and `size` are optional (an empty rv
-// field means "not given"). Fields are plain (no quoting; symbols cannot hold
-// commas). Blank lines and lines starting with '#' are skipped; CRLF is accepted.
-// time: integer ns since the Unix epoch, or ISO-8601 with date and time,
-//   "2026-03-02T09:30:00Z", optional fraction up to 9 digits
-//   ("09:30:00.123456789Z"), and "Z" or a "+hh:mm" / "-hh:mm" offset.
+// `price` / `return` / the pair `bid` and `ask` are required; `rv` and `size`
+// are optional (an empty rv field means "not given"). Other columns are
+// ignored (ignored_columns() lists them), and TickFileOptions::column_names
+// maps a file's own header names onto ours (e.g. time from "ts"). Fields are
+// plain (no quoting; symbols cannot hold commas). Blank lines and lines
+// starting with '#' are skipped; CRLF is accepted.
+// time: ISO-8601 with date and time, "2026-03-02T09:30:00Z" or with a space
+//   "2026-03-02 09:30:00Z", optional fraction up to 9 digits
+//   ("09:30:00.123456789Z"), and "Z" or a "+hh:mm" / "-hh:mm" offset; or a
+//   number since the Unix epoch in the unit of TickFileOptions::time_unit.
+//   With the default (auto) the unit is read off the magnitude of the file's
+//   first numeric time: a time between 1971-01-01 and 2200-01-01 is in
+//   exactly one of s, ms, us and ns (the ranges are three decades apart), and
+//   every later numeric time must be plausible in the same unit. A number that
+//   is plausible in no unit (e.g. 5, or a date in 1970) is a bad line asking
+//   for an explicit unit; with an explicit unit any time >= 0 is taken as given.
+//   Seconds, milliseconds and microseconds may carry a decimal fraction.
 //
-// Errors carry the file name and line: "ticks.csv:17: time: cannot parse
-// '2026-13-40'". By default a bad line is counted, its message kept (the first
-// kMaxKeptErrors), and reading continues; with stop_at_first_error the first
-// bad line ends the read with that error. A file in which no line parses (but
-// some were present) is an error either way.
-//
+// A quote line with ask < bid, or a non-positive side, is a bad line.
 // Thread-safety: a reader is used by one thread at a time.
 #ifndef AFTERSHOCK_TICK_FILE_H_
 #define AFTERSHOCK_TICK_FILE_H_
@@ -26,6 +33,7 @@
 #include <istream>
 #include <memory>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include "absl/status/status.h"
@@ -35,14 +43,39 @@
 
 namespace aftershock {
 
+// Unit of numeric tick times.
+enum class TimeUnit : uint8_t { kAuto, kSeconds, kMillis, kMicros, kNanos };
+// "auto", "s", "ms", "us", "ns".
+absl::string_view TimeUnitName(TimeUnit unit);
+// Parses one of the names above; InvalidArgument listing them otherwise.
+absl::StatusOr<TimeUnit> ParseTimeUnit(absl::string_view name);
+
 struct TickFileOptions {
   bool stop_at_first_error = false;  // true: the first bad line is fatal; default false
   size_t max_line_bytes = 4096;      // longer lines are bad lines; default 4096
+  TimeUnit time_unit = TimeUnit::kAuto;  // unit of numeric times; default auto (see above)
+  // (our column, the file's header name) pairs: the file's column stands for
+  // ours, e.g. {"time", "ts"}, {"price", "last"}. Our names: symbol, time,
+  // price, return, bid, ask, rv, size. Default: none (headers use our names).
+  std::vector<std::pair<std::string, std::string>> column_names;
 };
+
+// Parses "ours=theirs,ours=theirs" (the --columns option) into
+// TickFileOptions::column_names; InvalidArgument naming the bad part.
+absl::StatusOr<std::vector<std::pair<std::string, std::string>>> ParseColumnNames(
+    absl::string_view text);
+
+// A numeric time since the epoch in `unit` (not kAuto) as ns, or
+// InvalidArgument (negative, overflow, a fraction with unit ns).
+absl::StatusOr<int64_t> NumericTimeToNs(absl::string_view text, TimeUnit unit);
+// The unit in which a numeric time is a plausible date (1971-01-01 ..
+// 2200-01-01), or InvalidArgument when it is plausible in none.
+absl::StatusOr<TimeUnit> DetectTimeUnit(absl::string_view text);
 
 inline constexpr int kMaxKeptErrors = 20;
 
-// Parses a time field as described above; returns ns since the Unix epoch.
+// Parses an ISO-8601 time as described above, or an integer taken as ns;
+// returns ns since the Unix epoch.
 absl::StatusOr<int64_t> ParseTickTime(absl::string_view text);
 
 class TickFileReader {
@@ -69,13 +102,19 @@ class TickFileReader {
   const std::vector<std::string>& errors() const { return errors_; }  // first kMaxKeptErrors
   Tick::Kind kind() const { return kind_; }                           // from the header
   bool has_rv() const { return rv_col_ >= 0; }
+  // Header names of the columns the reader ignores, in file order.
+  const std::vector<std::string>& ignored_columns() const { return ignored_columns_; }
+  // The unit of the numeric times (kAuto until the first numeric time of an
+  // auto-detecting reader was read; ISO times do not set it).
+  TimeUnit time_unit() const { return time_unit_; }
 
  private:
   TickFileReader(std::unique_ptr<std::istream> in, std::string name,
                  const TickFileOptions& options);
   absl::Status ReadHeader();
   // Parses one data line; on error returns the message without the prefix.
-  absl::Status ParseLine(absl::string_view line, Tick* tick) const;
+  absl::Status ParseLine(absl::string_view line, Tick* tick);
+  absl::StatusOr<int64_t> ParseTime(absl::string_view field);
   bool ReadLine(std::string* line);
 
   std::unique_ptr<std::istream> in_;
@@ -94,6 +133,10 @@ class TickFileReader {
   int value_col_ = -1;
   int rv_col_ = -1;
   int size_col_ = -1;
+  int bid_col_ = -1;
+  int ask_col_ = -1;
+  std::vector<std::string> ignored_columns_;
+  TimeUnit time_unit_ = TimeUnit::kAuto;
   bool done_ = false;
 };
 

@@ -41,6 +41,11 @@ struct ZmqPublisherOptions {
   int linger_ms = 1000;
 };
 
+// OK when `endpoint` names a ZeroMQ transport (tcp://, ipc://, inproc://);
+// otherwise InvalidArgument with a suggestion, e.g. for "localhost:7302":
+// "endpoint 'localhost:7302' names no transport; did you mean 'tcp://localhost:7302'?".
+absl::Status CheckEndpoint(absl::string_view endpoint);
+
 class ZmqTransport {
  public:
   // One ZeroMQ context with `io_threads` I/O threads. Default 1.

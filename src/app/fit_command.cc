@@ -1,7 +1,11 @@
 // `aftershock fit`: estimate a volatility model on one return series.
+#include <cmath>
 #include <cstdio>
 #include <string>
 
+#include "absl/strings/str_cat.h"
+#include "aftershock/engine_config.h"
+#include "aftershock/tick_file.h"
 #include "aftershock/estimator.h"
 #include "aftershock/identify.h"
 #include "aftershock/series_file.h"
@@ -32,6 +36,64 @@ void Print(const std::string& format, const ArgParser& args, const Series& serie
   std::fputs(text(title).c_str(), stdout);
 }
 
+// The series to fit: a column of a series file, or one instrument's bar
+// returns from a tick file (the replay's bar builder). Prices are turned into
+// log returns only when asked (--from-prices) or read from ticks.
+absl::StatusOr<Series> LoadSeries(const ArgParser& args) {
+  const std::string input = args.Get("input");
+  auto text = ReadTextFile(input);
+  if (!text.ok()) return text.status();
+  const std::string name = input == "-" ? "stdin" : input;
+  auto scale = args.GetDouble("scale");
+  if (!scale.ok()) return scale.status();
+  if (!(*scale > 0) || !std::isfinite(*scale)) {
+    return absl::InvalidArgumentError("--scale must be a number > 0");
+  }
+  auto columns = ParseColumnNames(args.Get("columns"));
+  if (!columns.ok()) {
+    return absl::InvalidArgumentError(absl::StrCat("--", columns.status().message()));
+  }
+  if (LooksLikeTickFile(*text, *columns)) {
+    TickSeriesOptions o;
+    o.symbol = args.Get("symbol");
+    auto interval = ParseDuration(args.Get("interval"));
+    if (!interval.ok()) {
+      return absl::InvalidArgumentError(absl::StrCat("--interval: ", interval.status().message()));
+    }
+    o.interval_ns = *interval;
+    o.scale = *scale;
+    auto unit = ParseTimeUnit(args.Get("time-unit"));
+    if (!unit.ok()) return absl::InvalidArgumentError(absl::StrCat("--", unit.status().message()));
+    o.file.time_unit = *unit;
+    o.file.column_names = *columns;
+    if (args.Has("column")) {
+      return absl::InvalidArgumentError(
+          absl::StrCat(name, " is a tick file: --column does not apply (use --symbol)"));
+    }
+    return ReturnsFromTicks(*std::move(text), name, o);
+  }
+  if (args.Has("symbol")) {
+    return absl::InvalidArgumentError(
+        absl::StrCat(name, " has no symbol column, so --symbol cannot select an instrument"));
+  }
+  auto series = ParseSeries(*text, name, args.Get("column"));
+  if (!series.ok()) return series.status();
+  if (args.Has("from-prices")) {
+    auto r = LogReturnsOfPrices(series->values, *scale);
+    if (!r.ok()) return absl::InvalidArgumentError(absl::StrCat(name, ": ", r.status().message()));
+    series->values = *std::move(r);
+    series->column += series->column.empty() ? "log returns" : " (log returns)";
+  } else {
+    if (series->column == "price" || series->column == "close") {
+      return absl::InvalidArgumentError(absl::StrCat(
+          name, ": column '", series->column,
+          "' holds prices; give --from-prices to fit their log returns"));
+    }
+    for (double& v : series->values) v *= *scale;
+  }
+  return series;
+}
+
 int RunIdentification(const ArgParser& args, const std::string& format) {
   IdentifyOptions opt;
   const std::string crit = args.Get("criterion");
@@ -59,7 +121,7 @@ int RunIdentification(const ArgParser& args, const std::string& format) {
   auto presample = ParsePresample(args.Get("presample"));
   if (!presample.ok()) return Fail(presample.status(), 2);
   opt.presample = *presample;
-  auto series = ReadSeriesFile(args.Get("input"), args.Get("column"));
+  auto series = LoadSeries(args);
   if (!series.ok()) return Fail(series.status(), 2);
   auto rep = IdentifyModel(series->values, opt);
   if (!rep.ok()) return Fail(rep.status(), 2);
@@ -79,7 +141,11 @@ int FitCommand(int argc, char** argv) {
       "standard errors, log-likelihood, AIC and BIC.\n\n"
       "Input: a CSV file with a header row (the first numeric column unless --column is\n"
       "given) or one number a line; '-' reads standard input. Returns are used as given\n"
-      "(per cent or fractions); the estimates are in the same units.\n\n"
+      "(per cent or fractions; --scale 100 turns fractions into per cent); the estimates\n"
+      "are in the same units. A column of prices needs --from-prices (log returns).\n"
+      "A tick file (a header with a symbol column, as replay reads) needs --symbol: that\n"
+      "instrument's ticks go through replay's bar builder (--interval) and its bar\n"
+      "returns are fitted.\n\n"
       "Orders: ARMA P,Q; ARCH M; GARCH P,Q (P alpha terms, Q beta terms); GJR P,O,Q\n"
       "(O asymmetric gamma terms). Example:\n"
       "  aftershock fit --input returns.csv --mean constant --variance garch "
@@ -91,6 +157,14 @@ int FitCommand(int argc, char** argv) {
   args.AddOption("input", "FILE", "return series (CSV with header, or one number a line)", "",
                  true);
   args.AddOption("column", "NAME", "CSV column to read (default: first numeric column)");
+  args.AddFlag("from-prices", "the column holds prices: fit their log returns");
+  args.AddOption("scale", "X", "multiply the returns by X (100: fractions to per cent)", "1");
+  args.AddOption("symbol", "NAME", "tick file: the instrument to fit");
+  args.AddOption("interval", "DURATION", "tick file: bar length (0s = one bar per tick)", "0s");
+  args.AddOption("time-unit", "UNIT",
+                 "tick file: unit of numeric times, auto | s | ms | us | ns", "auto");
+  args.AddOption("columns", "OURS=THEIRS,...",
+                 "tick file: the file's names for our columns, e.g. time=ts,price=last");
   args.AddOption("mean", "KIND", "mean equation: zero | constant | arma | auto", "constant");
   args.AddOption("mean-order", "P,Q", "ARMA orders (with --mean arma)", "1,1");
   args.AddOption("variance", "KIND",
@@ -149,7 +223,7 @@ int FitCommand(int argc, char** argv) {
   }
   options.ewma_lambda = *lambda;
 
-  auto series = ReadSeriesFile(args.Get("input"), args.Get("column"));
+  auto series = LoadSeries(args);
   if (!series.ok()) return Fail(series.status(), 2);
   auto fit = FitModel(*spec, series->values, options);
   if (!fit.ok()) return Fail(fit.status(), 2);

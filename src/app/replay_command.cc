@@ -7,7 +7,9 @@
 #include <cstdio>
 #include <string>
 
+#include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
+#include "absl/strings/str_join.h"
 #include "absl/time/clock.h"
 #include "absl/time/time.h"
 #include "aftershock/engine_config.h"
@@ -54,6 +56,11 @@ int ReplayCommand(int argc, char** argv) {
   args.AddOption("summary-json", "FILE", "write the evaluation statistics as JSON");
   args.AddOption("title", "TEXT", "report title", "Replay evaluation");
   args.AddOption("workers", "N", "refit worker threads (overrides [refit] workers)");
+  args.AddOption("time-unit", "UNIT",
+                 "unit of numeric times: auto (from their magnitude), s, ms, us or ns", "auto");
+  args.AddOption("columns", "OURS=THEIRS,...",
+                 "the file's names for our columns, e.g. time=ts,price=last "
+                 "(ours: symbol, time, price, return, bid, ask, rv, size)");
   args.AddFlag("quiet", "no progress and no summary on standard error");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
@@ -63,8 +70,24 @@ int ReplayCommand(int argc, char** argv) {
   auto config = LoadEngineConfigFile(args.Get("config"));
   if (!config.ok()) return Fail(config.status(), 2);
   config->publish.encoding = WireEncoding::kJson;
-  auto reader = TickFileReader::Open(args.Get("input"));
+  TickFileOptions tick_options;
+  auto unit = ParseTimeUnit(args.Get("time-unit"));
+  if (!unit.ok()) {
+    return Fail(absl::InvalidArgumentError(absl::StrCat("--", unit.status().message())), 2);
+  }
+  tick_options.time_unit = *unit;
+  auto columns = ParseColumnNames(args.Get("columns"));
+  if (!columns.ok()) {
+    return Fail(absl::InvalidArgumentError(absl::StrCat("--", columns.status().message())), 2);
+  }
+  tick_options.column_names = *std::move(columns);
+  auto reader = TickFileReader::Open(args.Get("input"), tick_options);
   if (!reader.ok()) return Fail(reader.status(), 2);
+  if (!(*reader)->ignored_columns().empty() && !args.Has("quiet")) {
+    std::fprintf(stderr, "note: ignoring the columns %s of %s\n",
+                 absl::StrJoin((*reader)->ignored_columns(), ", ").c_str(),
+                 args.Get("input").c_str());
+  }
   auto sink = JsonLinesSink::Open(args.Get("output"));
   if (!sink.ok()) return Fail(sink.status(), 2);
   ManualClock clock;

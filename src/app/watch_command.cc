@@ -13,6 +13,7 @@
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_split.h"
 #include "aftershock/update_codec.h"
+#include "aftershock/zmq_transport.h"
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/stop_signal.h"
@@ -102,6 +103,9 @@ int WatchCommand(int argc, char** argv) {
 
   zmq::context_t ctx(1);
   zmq::socket_t sock(ctx, zmq::socket_type::sub);
+  if (absl::Status c = CheckEndpoint(args.Get("endpoint")); !c.ok()) {
+    return Fail(absl::InvalidArgumentError(absl::StrCat("--endpoint: ", c.message())), 2);
+  }
   try {
     sock.set(zmq::sockopt::linger, 0);
     if (wo.symbols.empty()) {

@@ -1,10 +1,13 @@
 #include "aftershock/tick_file.h"
 
+#include <cerrno>
 #include <charconv>
+#include <system_error>
 #include <cmath>
 #include <fstream>
 #include <limits>
 #include <sstream>
+#include <tuple>
 
 #include "absl/strings/ascii.h"
 #include "absl/strings/str_cat.h"
@@ -13,6 +16,9 @@
 
 namespace aftershock {
 namespace {
+
+// Latest tick time a file may carry (2^62 ns, early 2116, as the bar builder).
+constexpr int64_t kMaxBarTimeNsForFile = int64_t{1} << 62;
 
 bool Digits(absl::string_view s, size_t pos, size_t n, int* out) {
   if (pos + n > s.size()) return false;
@@ -100,14 +106,156 @@ int Split(absl::string_view line, absl::string_view* fields, int max) {
   return n;
 }
 
-constexpr int kMaxColumns = 5;
+constexpr int kMaxColumns = 64;
 
 bool ParseNumber(absl::string_view f, double* v) {
   const auto res = std::from_chars(f.data(), f.data() + f.size(), *v);
   return !f.empty() && res.ec == std::errc() && res.ptr == f.data() + f.size();
 }
 
+// Plausible dates for auto-detection, in seconds since the epoch:
+// 1971-01-01T00:00:00Z and 2200-01-01T00:00:00Z (Python:
+// datetime(1971,1,1,tzinfo=timezone.utc).timestamp() = 31536000 and
+// datetime(2200,1,1,tzinfo=timezone.utc).timestamp() = 7258118400).
+constexpr double kPlausibleFromS = 31536000.0;
+constexpr double kPlausibleToS = 7258118400.0;
+
+double UnitPerSecond(TimeUnit u) {
+  switch (u) {
+    case TimeUnit::kSeconds: return 1.0;
+    case TimeUnit::kMillis: return 1e3;
+    case TimeUnit::kMicros: return 1e6;
+    case TimeUnit::kNanos:
+    case TimeUnit::kAuto: break;
+  }
+  return 1e9;
+}
+
+int64_t NanosPerUnit(TimeUnit u) {
+  switch (u) {
+    case TimeUnit::kSeconds: return 1000000000;
+    case TimeUnit::kMillis: return 1000000;
+    case TimeUnit::kMicros: return 1000;
+    case TimeUnit::kNanos:
+    case TimeUnit::kAuto: break;
+  }
+  return 1;
+}
+
+bool IsNumericTime(absl::string_view t) {
+  return !t.empty() && t.find_first_not_of("0123456789.") == absl::string_view::npos &&
+         t[0] != '.';
+}
+
+// Our column names and where the reader keeps their index.
+constexpr const char* kOurColumns[] = {"symbol", "time", "price", "return",
+                                       "bid",    "ask",  "rv",    "size"};
+
 }  // namespace
+
+absl::string_view TimeUnitName(TimeUnit unit) {
+  switch (unit) {
+    case TimeUnit::kAuto: return "auto";
+    case TimeUnit::kSeconds: return "s";
+    case TimeUnit::kMillis: return "ms";
+    case TimeUnit::kMicros: return "us";
+    case TimeUnit::kNanos: return "ns";
+  }
+  return "?";
+}
+
+absl::StatusOr<TimeUnit> ParseTimeUnit(absl::string_view name) {
+  for (TimeUnit u : {TimeUnit::kAuto, TimeUnit::kSeconds, TimeUnit::kMillis, TimeUnit::kMicros,
+                     TimeUnit::kNanos}) {
+    if (name == TimeUnitName(u)) return u;
+  }
+  return absl::InvalidArgumentError(
+      absl::StrCat("time unit must be auto, s, ms, us or ns, got '", name, "'"));
+}
+
+absl::StatusOr<std::vector<std::pair<std::string, std::string>>> ParseColumnNames(
+    absl::string_view text) {
+  std::vector<std::pair<std::string, std::string>> out;
+  if (absl::StripAsciiWhitespace(text).empty()) return out;
+  size_t start = 0;
+  while (start <= text.size()) {
+    const size_t comma = text.find(',', start);
+    const absl::string_view part = absl::StripAsciiWhitespace(text.substr(
+        start, comma == absl::string_view::npos ? absl::string_view::npos : comma - start));
+    const size_t eq = part.find('=');
+    const absl::string_view ours =
+        eq == absl::string_view::npos ? part : absl::StripAsciiWhitespace(part.substr(0, eq));
+    const absl::string_view theirs =
+        eq == absl::string_view::npos ? absl::string_view()
+                                      : absl::StripAsciiWhitespace(part.substr(eq + 1));
+    bool known = false;
+    for (const char* c : kOurColumns) known = known || ours == c;
+    if (eq == absl::string_view::npos || theirs.empty() || !known) {
+      return absl::InvalidArgumentError(absl::StrCat(
+          "columns: expected OURS=THEIRS pairs such as time=ts,price=last with OURS one of "
+          "symbol, time, price, return, bid, ask, rv, size; got '",
+          part, "'"));
+    }
+    for (const auto& [o, t] : out) {
+      if (o == ours) {
+        return absl::InvalidArgumentError(absl::StrCat("columns: '", ours, "' mapped twice"));
+      }
+    }
+    out.emplace_back(std::string(ours), std::string(theirs));
+    if (comma == absl::string_view::npos) break;
+    start = comma + 1;
+  }
+  return out;
+}
+
+absl::StatusOr<int64_t> NumericTimeToNs(absl::string_view text, TimeUnit unit) {
+  const auto bad = [&](absl::string_view why) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("cannot parse '", text, "' as ", TimeUnitName(unit), " since the epoch",
+                     why.empty() ? "" : " (", why, why.empty() ? "" : ")"));
+  };
+  if (!IsNumericTime(text)) return bad("");
+  const size_t dot = text.find('.');
+  const absl::string_view whole = text.substr(0, dot);
+  const absl::string_view frac =
+      dot == absl::string_view::npos ? absl::string_view() : text.substr(dot + 1);
+  if (frac.find('.') != absl::string_view::npos) return bad("");
+  if (dot != absl::string_view::npos && unit == TimeUnit::kNanos) {
+    return bad("nanoseconds have no fraction");
+  }
+  int64_t w = 0;
+  const auto res = std::from_chars(whole.data(), whole.data() + whole.size(), w);
+  if (res.ec != std::errc() || res.ptr != whole.data() + whole.size()) return bad("out of range");
+  const int64_t per = NanosPerUnit(unit);
+  if (w > kMaxBarTimeNsForFile / per) return bad("out of range");
+  // The fraction, to ns, truncated beyond the ns digit.
+  int64_t f_ns = 0;
+  int64_t scale = per;
+  for (char c : frac) {
+    scale /= 10;
+    f_ns += (c - '0') * scale;
+    if (scale == 0) break;
+  }
+  return w * per + f_ns;
+}
+
+absl::StatusOr<TimeUnit> DetectTimeUnit(absl::string_view text) {
+  if (IsNumericTime(text)) {
+    double v = 0;
+    const auto res = std::from_chars(text.data(), text.data() + text.size(), v);
+    if (res.ec == std::errc()) {
+      for (TimeUnit u : {TimeUnit::kSeconds, TimeUnit::kMillis, TimeUnit::kMicros,
+                         TimeUnit::kNanos}) {
+        const double k = UnitPerSecond(u);
+        if (v >= kPlausibleFromS * k && v < kPlausibleToS * k) return u;
+      }
+    }
+  }
+  return absl::InvalidArgumentError(
+      absl::StrCat("'", text,
+                   "' is not a date between 1971 and 2200 in s, ms, us or ns since the epoch; "
+                   "give the unit (--time-unit) if the times are right"));
+}
 
 absl::StatusOr<int64_t> ParseTickTime(absl::string_view text) {
   int64_t ns = 0;
@@ -129,7 +277,10 @@ TickFileReader::TickFileReader(std::unique_ptr<std::istream> in, std::string nam
 absl::StatusOr<std::unique_ptr<TickFileReader>> TickFileReader::Open(
     const std::string& path, const TickFileOptions& options) {
   auto in = std::make_unique<std::ifstream>(path, std::ios::binary);
-  if (!*in) return absl::NotFoundError(absl::StrCat(path, ": cannot open tick file"));
+  if (!*in) {
+    return absl::NotFoundError(absl::StrCat("cannot open the tick file '", path, "': ",
+                                            std::error_code(errno, std::generic_category()).message()));
+  }
   std::unique_ptr<TickFileReader> r(new TickFileReader(std::move(in), path, options));
   if (absl::Status s = r->ReadHeader(); !s.ok()) return s;
   return r;
@@ -165,10 +316,20 @@ absl::Status TickFileReader::ReadHeader() {
   absl::string_view fields[kMaxColumns];
   const int n = Split(line_, fields, kMaxColumns);
   if (n > kMaxColumns) return err(absl::StrCat("at most ", kMaxColumns, " columns"));
+  // A file's own name for one of our columns (TickFileOptions::column_names).
+  const auto ours_for = [&](absl::string_view f) -> absl::string_view {
+    for (const auto& [ours, theirs] : options_.column_names) {
+      if (theirs == f) return ours;
+    }
+    for (const auto& [ours, theirs] : options_.column_names) {
+      if (ours == f) return absl::string_view();  // our name, mapped elsewhere: not ours here
+    }
+    return f;
+  };
   bool has_price = false;
   for (int i = 0; i < n; ++i) {
     int* col = nullptr;
-    const absl::string_view f = fields[i];
+    const absl::string_view f = ours_for(fields[i]);
     if (f == "symbol") {
       col = &symbol_col_;
     } else if (f == "time") {
@@ -177,26 +338,58 @@ absl::Status TickFileReader::ReadHeader() {
       if (value_col_ >= 0) return err("needs exactly one of the columns price or return");
       has_price = f == "price";
       col = &value_col_;
+    } else if (f == "bid") {
+      col = &bid_col_;
+    } else if (f == "ask") {
+      col = &ask_col_;
     } else if (f == "rv") {
       col = &rv_col_;
     } else if (f == "size") {
       col = &size_col_;
     } else {
-      return err(absl::StrCat("unknown column '", f,
-                              "' (expected symbol, time, price or return, rv, size)"));
+      ignored_columns_.emplace_back(fields[i]);
+      continue;
     }
     if (*col >= 0) return err(absl::StrCat("column '", f, "' given twice"));
     *col = i;
   }
+  for (const auto& [ours, theirs] : options_.column_names) {
+    bool found = false;
+    for (int i = 0; i < n; ++i) found = found || fields[i] == theirs;
+    if (!found) return err(absl::StrCat("no column '", theirs, "' (mapped to ", ours, ")"));
+  }
   if (symbol_col_ < 0) return err("needs a symbol column");
   if (time_col_ < 0) return err("needs a time column");
-  if (value_col_ < 0) return err("needs exactly one of the columns price or return");
+  if ((bid_col_ >= 0) != (ask_col_ >= 0)) return err("bid and ask come together");
+  if (value_col_ >= 0 && bid_col_ >= 0) {
+    return err("needs exactly one of the columns price or return, or the pair bid and ask");
+  }
+  if (value_col_ < 0 && bid_col_ < 0) {
+    return err("needs exactly one of the columns price or return, or the pair bid and ask");
+  }
+  if (bid_col_ >= 0) has_price = true;
+  time_unit_ = options_.time_unit;
   kind_ = has_price ? Tick::kPrice : Tick::kReturn;
   n_cols_ = n;
   return absl::OkStatus();
 }
 
-absl::Status TickFileReader::ParseLine(absl::string_view line, Tick* tick) const {
+absl::StatusOr<int64_t> TickFileReader::ParseTime(absl::string_view field) {
+  if (!IsNumericTime(field)) return ParseTickTime(field);  // ISO (or an error)
+  if (options_.time_unit != TimeUnit::kAuto) return NumericTimeToNs(field, options_.time_unit);
+  auto unit = DetectTimeUnit(field);
+  if (!unit.ok()) return unit.status();
+  if (time_unit_ == TimeUnit::kAuto) {
+    time_unit_ = *unit;
+  } else if (*unit != time_unit_) {
+    return absl::InvalidArgumentError(absl::StrCat("'", field, "' reads as ", TimeUnitName(*unit),
+                                                   " but the file's times are in ",
+                                                   TimeUnitName(time_unit_)));
+  }
+  return NumericTimeToNs(field, time_unit_);
+}
+
+absl::Status TickFileReader::ParseLine(absl::string_view line, Tick* tick) {
   if (line.size() > options_.max_line_bytes) {
     return absl::InvalidArgumentError(
         absl::StrCat("line longer than ", options_.max_line_bytes, " bytes"));
@@ -212,17 +405,33 @@ absl::Status TickFileReader::ParseLine(absl::string_view line, Tick* tick) const
     return absl::InvalidArgumentError(
         absl::StrCat("symbol: '", sym, "' is not 1-32 characters of A-Z a-z 0-9 . _ : -"));
   }
-  auto t = ParseTickTime(f[time_col_]);
+  auto t = ParseTime(f[time_col_]);
   if (!t.ok()) return absl::InvalidArgumentError(absl::StrCat("time: ", t.status().message()));
-  const char* value_name = kind_ == Tick::kPrice ? "price" : "return";
   double value = 0;
-  if (!ParseNumber(f[value_col_], &value) || !std::isfinite(value)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat(value_name, ": expected a finite number, got '", f[value_col_], "'"));
-  }
-  if (kind_ == Tick::kPrice && value <= 0) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("price: must be > 0, got '", f[value_col_], "'"));
+  if (bid_col_ >= 0) {
+    double bid = 0, ask = 0;
+    for (const auto& [name, col, out] : {std::tuple<const char*, int, double*>{"bid", bid_col_, &bid},
+                                         {"ask", ask_col_, &ask}}) {
+      if (!ParseNumber(f[col], out) || !std::isfinite(*out) || *out <= 0) {
+        return absl::InvalidArgumentError(
+            absl::StrCat(name, ": expected a finite number > 0, got '", f[col], "'"));
+      }
+    }
+    if (ask < bid) {
+      return absl::InvalidArgumentError(
+          absl::StrCat("crossed quote: ask ", f[ask_col_], " below bid ", f[bid_col_]));
+    }
+    value = 0.5 * bid + 0.5 * ask;  // no overflow for any pair of finite doubles
+  } else {
+    const char* value_name = kind_ == Tick::kPrice ? "price" : "return";
+    if (!ParseNumber(f[value_col_], &value) || !std::isfinite(value)) {
+      return absl::InvalidArgumentError(
+          absl::StrCat(value_name, ": expected a finite number, got '", f[value_col_], "'"));
+    }
+    if (kind_ == Tick::kPrice && value <= 0) {
+      return absl::InvalidArgumentError(
+          absl::StrCat("price: must be > 0, got '", f[value_col_], "'"));
+    }
   }
   double rv = std::numeric_limits<double>::quiet_NaN();
   if (rv_col_ >= 0 && !f[rv_col_].empty()) {

@@ -6,6 +6,7 @@
 #include <cstring>
 #include <utility>
 
+#include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
 
 namespace aftershock {
@@ -110,6 +111,21 @@ class ZmqPublisherSink : public UpdateSink {
 
 }  // namespace
 
+absl::Status CheckEndpoint(absl::string_view endpoint) {
+  for (absl::string_view scheme : {"tcp://", "ipc://", "inproc://"}) {
+    if (absl::StartsWith(endpoint, scheme)) {
+      if (endpoint.size() > scheme.size()) return absl::OkStatus();
+      return absl::InvalidArgumentError(absl::StrCat("endpoint '", endpoint, "' has no address"));
+    }
+  }
+  if (endpoint.find("://") != absl::string_view::npos) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "endpoint '", endpoint, "' uses a transport other than tcp://, ipc:// or inproc://"));
+  }
+  return absl::InvalidArgumentError(absl::StrCat(
+      "endpoint '", endpoint, "' names no transport; did you mean 'tcp://", endpoint, "'?"));
+}
+
 ZmqTransport::ZmqTransport(std::shared_ptr<Impl> impl) : impl_(std::move(impl)) {}
 ZmqTransport::~ZmqTransport() = default;
 
@@ -152,6 +168,10 @@ absl::StatusOr<std::unique_ptr<TickSource>> ZmqTransport::Subscribe(
   }
   if (zmq_setsockopt(s, ZMQ_SUBSCRIBE, "", 0) != 0) return fail("[feed] subscribe");
   for (const std::string& ep : feed.endpoints) {
+    if (absl::Status c = CheckEndpoint(ep); !c.ok()) {
+      zmq_close(s);
+      return absl::InvalidArgumentError(absl::StrCat("[feed] ", c.message()));
+    }
     if (zmq_connect(s, ep.c_str()) != 0) {
       return fail(absl::StrCat("[feed] cannot connect to '", ep, "'"));
     }
@@ -161,6 +181,9 @@ absl::StatusOr<std::unique_ptr<TickSource>> ZmqTransport::Subscribe(
 
 absl::StatusOr<std::unique_ptr<UpdateSink>> ZmqTransport::Publish(
     const PublishConfig& publish, const ZmqPublisherOptions& options) {
+  if (absl::Status c = CheckEndpoint(publish.endpoint); !c.ok()) {
+    return absl::InvalidArgumentError(absl::StrCat("[publish] ", c.message()));
+  }
   void* s = zmq_socket(impl_->ctx, ZMQ_PUB);
   if (s == nullptr) return ZmqError("cannot create the PUB socket");
   auto fail = [s](absl::string_view what) { return CloseWithError(s, what); };

@@ -160,6 +160,11 @@ TEST_CASE("watch --once without updates times out with a message") {
   auto bad = testing::RunCli({"watch", "--refresh-ms", "10"});
   CHECK(bad.exit_code == 2);
   CHECK(bad.err == "aftershock watch: --refresh-ms must be an integer >= 100\n");
+  auto no_scheme = testing::RunCli({"watch", "--endpoint", "localhost:7302", "--once"});
+  CHECK(no_scheme.exit_code == 2);
+  CHECK(no_scheme.err ==
+        "aftershock watch: --endpoint: endpoint 'localhost:7302' names no transport; did you "
+        "mean 'tcp://localhost:7302'?\n");
 }
 
 }  // namespace

@@ -10,6 +10,14 @@
 namespace aftershock {
 namespace {
 
+// Synthetic files below count time in small numbers of ns, which auto
+// detection rightly refuses as dates: they say their unit.
+TickFileOptions NanosOptions() {
+  TickFileOptions o;
+  o.time_unit = TimeUnit::kNanos;
+  return o;
+}
+
 std::vector<Tick> ReadAll(TickFileReader* r) {
   std::vector<Tick> out;
   Tick t;
@@ -68,7 +76,7 @@ TEST_CASE("return files with rv, columns in any order", "[tick_file]") {
       "time,rv,return,symbol\n"
       "0,0.0001,-0.0025,C1\n"
       "1,,0.5,C1\n",
-      "r.csv");
+      "r.csv", NanosOptions());
   REQUIRE(r.ok());
   CHECK((*r)->kind() == Tick::kReturn);
   CHECK((*r)->has_rv());
@@ -91,7 +99,7 @@ TEST_CASE("bad lines are counted with line numbers, or stop the read", "[tick_fi
       "A,6\n"                // 7
       "A,7,10,9\n"           // 8
       "A,8,11\n";            // 9
-  auto r = TickFileReader::FromString(content, "ticks.csv");
+  auto r = TickFileReader::FromString(content, "ticks.csv", NanosOptions());
   REQUIRE(r.ok());
   const auto ticks = ReadAll(r->get());
   CHECK((*r)->status().ok());
@@ -106,7 +114,7 @@ TEST_CASE("bad lines are counted with line numbers, or stop the read", "[tick_fi
       "ticks.csv:8: expected 3 fields, got more"};
   CHECK((*r)->errors() == expected);
 
-  TickFileOptions stop;
+  TickFileOptions stop = NanosOptions();
   stop.stop_at_first_error = true;
   auto s = TickFileReader::FromString(content, "ticks.csv", stop);
   REQUIRE(s.ok());
@@ -135,13 +143,20 @@ TEST_CASE("header errors", "[tick_file]") {
   };
   CHECK(msg("") == "h.csv: empty file (expected a header like symbol,time,price)");
   CHECK(msg("symbol,time,px\n") ==
-        "h.csv:1: header: unknown column 'px' (expected symbol, time, price or return, rv, size)");
+        "h.csv:1: header: needs exactly one of the columns price or return, or the pair bid and "
+        "ask");
   CHECK(msg("symbol,time,price,return\n") ==
         "h.csv:1: header: needs exactly one of the columns price or return");
+  CHECK(msg("symbol,time,bid\n") == "h.csv:1: header: bid and ask come together");
+  CHECK(msg("symbol,time,price,bid,ask\n") ==
+        "h.csv:1: header: needs exactly one of the columns price or return, or the pair bid and "
+        "ask");
   CHECK(msg("symbol,price\n") == "h.csv:1: header: needs a time column");
   CHECK(msg("time,time,price\n") == "h.csv:1: header: column 'time' given twice");
   auto missing = TickFileReader::Open("/nonexistent/ticks.csv");
-  CHECK(std::string(missing.status().message()) == "/nonexistent/ticks.csv: cannot open tick file");
+  // The OS reason is part of the message.
+  CHECK(std::string(missing.status().message()) ==
+        "cannot open the tick file '/nonexistent/ticks.csv': No such file or directory");
 }
 
 TEST_CASE("reads a file from disk line by line", "[tick_file]") {
@@ -151,7 +166,7 @@ TEST_CASE("reads a file from disk line by line", "[tick_file]") {
     content += "ALDER.X," + std::to_string(1000 + i) + "," + std::to_string(100 + i) + ",2\n";
   }
   const std::string path = testing::WriteFile(dir + "/ticks.csv", content);
-  auto r = TickFileReader::Open(path);
+  auto r = TickFileReader::Open(path, NanosOptions());
   REQUIRE(r.ok());
   const auto ticks = ReadAll(r->get());
   REQUIRE(ticks.size() == 1000);
@@ -159,6 +174,97 @@ TEST_CASE("reads a file from disk line by line", "[tick_file]") {
   CHECK(ticks[999].value == 1099);
   CHECK(ticks[999].size == 2);
   CHECK((*r)->line_number() == 1001);
+}
+
+TEST_CASE("numeric times: the unit is read off the magnitude, implausible dates are refused",
+          "[tick_file]") {
+  // 2026-03-02T09:30:00Z = 1772443800 s (Python datetime ... .timestamp(), as above).
+  const int64_t ns = 1772443800LL * 1000000000;
+  for (const auto& [text, unit] :
+       std::vector<std::pair<std::string, TimeUnit>>{{"1772443800", TimeUnit::kSeconds},
+                                                     {"1772443800000", TimeUnit::kMillis},
+                                                     {"1772443800000000", TimeUnit::kMicros},
+                                                     {"1772443800000000000", TimeUnit::kNanos}}) {
+    INFO(text);
+    auto u = DetectTimeUnit(text);
+    REQUIRE(u.ok());
+    CHECK(*u == unit);
+    CHECK(*NumericTimeToNs(text, unit) == ns);
+  }
+  CHECK(*NumericTimeToNs("1772443800.25", TimeUnit::kSeconds) == ns + 250000000);
+  CHECK(*NumericTimeToNs("1772443800000.5", TimeUnit::kMillis) == ns + 500000);
+  CHECK(*NumericTimeToNs("1772443800.1234567891", TimeUnit::kSeconds) == ns + 123456789);
+  CHECK_FALSE(NumericTimeToNs("1.5", TimeUnit::kNanos).ok());
+  CHECK_FALSE(NumericTimeToNs("99999999999999999", TimeUnit::kSeconds).ok());
+  // Plausible in no unit: 5 (1970 in every unit) and a 10^19-scale number.
+  for (const char* bad : {"5", "20000000", "99999999999999999999"}) {
+    auto u = DetectTimeUnit(bad);
+    INFO(bad);
+    REQUIRE_FALSE(u.ok());
+    CHECK(std::string(u.status().message()).find("give the unit (--time-unit)") !=
+          std::string::npos);
+  }
+}
+
+TEST_CASE("millisecond ticks are read as milliseconds, not as 1970 nanoseconds",
+          "[tick_file]") {
+  // 600 ticks over 10 minutes in epoch milliseconds: once misread as ns they
+  // all fell into one bar of 1970.
+  std::string csv = "symbol,time,price\n";
+  for (int i = 0; i < 600; ++i) {
+    csv += "ALDER.X," + std::to_string(1772443800000LL + i * 1000LL) + ",100.5\n";
+  }
+  auto r = TickFileReader::FromString(csv, "ms.csv");
+  REQUIRE(r.ok());
+  const auto ticks = ReadAll(r->get());
+  REQUIRE(ticks.size() == 600);
+  CHECK((*r)->time_unit() == TimeUnit::kMillis);
+  CHECK(ticks.front().t_ns == 1772443800LL * 1000000000);
+  CHECK(ticks.back().t_ns - ticks.front().t_ns == 599LL * 1000000000);
+  // A line in another unit than the file's is a bad line naming both.
+  auto mixed = TickFileReader::FromString(
+      "symbol,time,price\nA,1772443800000,1\nA,1772443801,1\nA,5,1\n", "mixed.csv");
+  REQUIRE(mixed.ok());
+  CHECK(ReadAll(mixed->get()).size() == 1);
+  REQUIRE((*mixed)->errors().size() == 2);
+  CHECK((*mixed)->errors()[0] ==
+        "mixed.csv:3: time: '1772443801' reads as s but the file's times are in ms");
+  CHECK((*mixed)->errors()[1].find("mixed.csv:4: time: '5' is not a date between 1971 and 2200") ==
+        0);
+}
+
+TEST_CASE("extra columns are ignored, others mapped, quotes give the mid", "[tick_file]") {
+  TickFileOptions o;
+  o.column_names = *ParseColumnNames("symbol=ric, time=ts");
+  auto r = TickFileReader::FromString(
+      "venue,ric,ts,bid,ask,flags\n"
+      "XLQ,ALDER.X,2026-03-02 09:30:00Z,99.5,100.5,A\n"
+      "XLQ,ALDER.X,2026-03-02 09:30:01Z,100.5,99.5,A\n"
+      "XLQ,ALDER.X,2026-03-02 09:30:02Z,0,99.5,A\n",
+      "quotes.csv", o);
+  REQUIRE(r.ok());
+  CHECK((*r)->kind() == Tick::kPrice);
+  CHECK((*r)->ignored_columns() == std::vector<std::string>{"venue", "flags"});
+  const auto ticks = ReadAll(r->get());
+  REQUIRE(ticks.size() == 1);
+  CHECK(ticks[0].value == 100.0);
+  CHECK(ticks[0].t_ns == 1772443800LL * 1000000000);
+  REQUIRE((*r)->errors().size() == 2);
+  CHECK((*r)->errors()[0] == "quotes.csv:3: crossed quote: ask 99.5 below bid 100.5");
+  CHECK((*r)->errors()[1] == "quotes.csv:4: bid: expected a finite number > 0, got '0'");
+  // A mapping to a column the file does not have, and bad mapping text.
+  TickFileOptions m;
+  m.column_names = *ParseColumnNames("price=last");
+  auto missing = TickFileReader::FromString("symbol,time,price\n", "m.csv", m);
+  REQUIRE_FALSE(missing.ok());
+  CHECK(std::string(missing.status().message()) ==
+        "m.csv:1: header: no column 'last' (mapped to price)");
+  CHECK_FALSE(ParseColumnNames("price").ok());
+  CHECK_FALSE(ParseColumnNames("colour=red").ok());
+  CHECK_FALSE(ParseColumnNames("price=a,price=b").ok());
+  CHECK(ParseColumnNames("").ok());
+  CHECK(*ParseTimeUnit("ms") == TimeUnit::kMillis);
+  CHECK_FALSE(ParseTimeUnit("minutes").ok());
 }
 
 }  // namespace
