@@ -65,7 +65,14 @@ struct ModelConfig {
 struct WarmupConfig {
   double ewma_lambda = 0.94;  // decay of the warm-up EWMA, in (0,1); default 0.94
   int min_bars = 2;           // bars before z is published without the first-bar flag; 2
+  // Returns of a symbol collected before its warm-up EWMA starts, at the
+  // robust variance (1.4826 * median |r|)^2 of those returns; they publish
+  // nothing. 1 = start at the square of the first non-zero return. 1..kMax;
+  // default 10.
+  int start_bars = 10;
 };
+// Largest [warmup] start_bars (the per-symbol buffer is this many doubles at most).
+inline constexpr int kMaxWarmupStartBars = 64;
 
 enum class ReturnUnits { kFraction, kPercent };
 absl::string_view ReturnUnitsName(ReturnUnits u);  // "fraction" | "percent"

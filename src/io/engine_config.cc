@@ -535,8 +535,9 @@ absl::Status ParseModel(const std::string* source, const Section& s, ModelConfig
 }
 
 absl::Status ParseWarmup(const Section& s, WarmupConfig* c) {
-  AS_RETURN_IF_ERROR(s.CheckKeys({"ewma_lambda", "min_bars"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"ewma_lambda", "min_bars", "start_bars"}));
   AS_RETURN_IF_ERROR(s.Number("ewma_lambda", &c->ewma_lambda, 0, 1, true, true));
+  AS_RETURN_IF_ERROR(s.Integer("start_bars", &c->start_bars, 1, kMaxWarmupStartBars));
   return s.Integer("min_bars", &c->min_bars, 1, 100000);
 }
 
@@ -878,7 +879,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
     }
   }
   absl::StrAppend(&o, "\n[warmup]\newma_lambda = ", num(c.warmup.ewma_lambda),
-                  "\nmin_bars = ", c.warmup.min_bars, "\n");
+                  "\nmin_bars = ", c.warmup.min_bars, "\nstart_bars = ", c.warmup.start_bars,
+                  "\n");
   absl::StrAppend(&o, "\n[outputs]\nhorizons = [", absl::StrJoin(c.outputs.horizons, ", "),
                   "]\nrisk_levels = [");
   for (size_t i = 0; i < c.outputs.risk_levels.size(); ++i) {
