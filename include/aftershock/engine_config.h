@@ -121,6 +121,10 @@ struct RefitConfig {
   double jitter_fraction = 0.1;     // spreads schedules: +-fraction of the period
   int queue_capacity = 1024;        // pending refit jobs; beyond it a job is skipped
   double diagnostics_level = 0.01;  // significance level of the diagnostic gate tests
+  // A symbol without a passed fit of its own takes its group's latest passed
+  // model (dynamics only, at its own variance level), flagged `pooled`, until
+  // its own fit passes. Group: its [alerts.groups.*] group, else all symbols.
+  bool group_models = true;
 };
 
 // [alerts]: alert rule thresholds (PRODUCT.md C7).

@@ -143,8 +143,8 @@ struct ModelSwap {
   double initial_variance = 0;
   // Returns to re-run (kRerun); only read during the call.
   absl::Span<const double> rerun_returns;
-  // Status flags the symbol's updates carry from now on: kFlagWarmup and/or
-  // kFlagFallback (others are ignored).
+  // Status flags the symbol's updates carry from now on: kFlagWarmup,
+  // kFlagFallback and/or kFlagPooled (others are ignored).
   uint32_t status_flags = 0;
 };
 
@@ -224,7 +224,7 @@ class IngestCore : public TickConsumer {
     BarState bars_state;
     FilterState filter;
     std::shared_ptr<const FilterModel> model;
-    uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback
+    uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback / kFlagPooled
     uint32_t pending_flags = 0;  // flags of unpublished bars, carried forward
     bool filter_ready = false;   // filter state initialized
     // Warm-up start: the first returns, [warmup] start_bars of them (null when

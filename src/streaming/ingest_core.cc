@@ -317,7 +317,7 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
   slot.filter_ready = true;
   slot.num_start_returns = 0;
   slot.model = swap.model;
-  slot.status_flags = swap.status_flags & (kFlagWarmup | kFlagFallback);
+  slot.status_flags = swap.status_flags & (kFlagWarmup | kFlagFallback | kFlagPooled);
   ++counters_.model_swaps;
   return absl::OkStatus();
 }
