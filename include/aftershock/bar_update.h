@@ -37,8 +37,9 @@ enum UpdateFlag : uint32_t {
   kFlagSeasonal = 1u << 3,   // the return was deseasonalized before filtering
   kFlagGap = 1u << 4,        // a session boundary or gap preceded this bar
   kFlagFirstBar = 1u << 5,   // first bar of the symbol: no return, no z
+  kFlagPooled = 1u << 6,     // the symbol's group model stands in for its own (refit.h)
 };
-inline constexpr int kNumUpdateFlags = 6;
+inline constexpr int kNumUpdateFlags = 7;
 absl::string_view FlagName(int bit);  // "warmup", "fallback", "stale", ...
 
 struct BarUpdate {

@@ -65,7 +65,14 @@ struct ModelConfig {
 struct WarmupConfig {
   double ewma_lambda = 0.94;  // decay of the warm-up EWMA, in (0,1); default 0.94
   int min_bars = 2;           // bars before z is published without the first-bar flag; 2
+  // Returns of a symbol collected before its warm-up EWMA starts, at the
+  // robust variance (1.4826 * median |r|)^2 of those returns; they publish
+  // nothing. 1 = start at the square of the first non-zero return. 1..kMax;
+  // default 10.
+  int start_bars = 10;
 };
+// Largest [warmup] start_bars (the per-symbol buffer is this many doubles at most).
+inline constexpr int kMaxWarmupStartBars = 64;
 
 enum class ReturnUnits { kFraction, kPercent };
 absl::string_view ReturnUnitsName(ReturnUnits u);  // "fraction" | "percent"
@@ -114,6 +121,10 @@ struct RefitConfig {
   double jitter_fraction = 0.1;     // spreads schedules: +-fraction of the period
   int queue_capacity = 1024;        // pending refit jobs; beyond it a job is skipped
   double diagnostics_level = 0.01;  // significance level of the diagnostic gate tests
+  // A symbol without a passed fit of its own takes its group's latest passed
+  // model (dynamics only, at its own variance level), flagged `pooled`, until
+  // its own fit passes. Group: its [alerts.groups.*] group, else all symbols.
+  bool group_models = true;
 };
 
 // [alerts]: alert rule thresholds (PRODUCT.md C7).

@@ -16,10 +16,16 @@
 //   * With [model.params]: every symbol starts on FilterModel::Create(params),
 //     version 1, at the model's unconditional variance.
 //     Without: every symbol starts on the warm-up FilterModel::Ewma([warmup]
-//     ewma_lambda), version 0, flag `warmup` on each update. The first bar
-//     whose return is non-zero starts the variance at that return squared
-//     (InitFilterState(ewma, r*r)) and is filtered from there; bars before it
-//     (zero returns) publish nothing.
+//     ewma_lambda), version 0, flag `warmup` on each update. Its variance
+//     starts from the symbol's first [warmup] start_bars (m) returns: at
+//     (1.4826 * median |r|)^2 over them (their mean square when half or more
+//     are 0; all 0: collect m more), then AdvanceState over the m returns.
+//     Those m bars publish nothing and reach no observer (their flags carry
+//     to the first update); the next bar is the first update, its z measured
+//     against m bars of history, so one tiny or huge early return cannot make
+//     it extreme. m = 1 keeps the plain rule: the first non-zero return starts
+//     the variance at r^2 and is filtered from there (zero returns before it
+//     publish nothing). A swapped-in model ends the collection.
 //   * The first ([warmup] min_bars - 1) filtered bars of a symbol carry the
 //     flag `first_bar` (their z rests on no history; consumers ignore it).
 //   * An update that fails to encode (a non-finite value) is never published;
@@ -137,8 +143,8 @@ struct ModelSwap {
   double initial_variance = 0;
   // Returns to re-run (kRerun); only read during the call.
   absl::Span<const double> rerun_returns;
-  // Status flags the symbol's updates carry from now on: kFlagWarmup and/or
-  // kFlagFallback (others are ignored).
+  // Status flags the symbol's updates carry from now on: kFlagWarmup,
+  // kFlagFallback and/or kFlagPooled (others are ignored).
   uint32_t status_flags = 0;
 };
 
@@ -218,9 +224,13 @@ class IngestCore : public TickConsumer {
     BarState bars_state;
     FilterState filter;
     std::shared_ptr<const FilterModel> model;
-    uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback
+    uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback / kFlagPooled
     uint32_t pending_flags = 0;  // flags of unpublished bars, carried forward
     bool filter_ready = false;   // filter state initialized
+    // Warm-up start: the first returns, [warmup] start_bars of them (null when
+    // start_bars is 1; allocated with the slot), and how many are held.
+    std::unique_ptr<double[]> start_returns;
+    int num_start_returns = 0;
     uint64_t bars = 0;
     uint64_t filtered = 0;
     uint64_t updates = 0;
@@ -255,6 +265,7 @@ class IngestCore : public TickConsumer {
   std::string topic_;
   EngineCounters counters_;
   int64_t last_clock_ns_ = 0;
+  double start_scratch_[kMaxWarmupStartBars];  // median of the warm-up start returns
 };
 
 }  // namespace aftershock

@@ -34,8 +34,10 @@ enum class RefitOutcome {
   kSwapped,   // passed the gate: the new version is in force
   kRejected,  // failed the gate (or the refitter failed): the model in force stays
   kFallback,  // failed, and this failure engaged the EWMA fallback
+  kPooled,    // no job: the symbol's group model was adopted (refit.h, group models)
 };
-const char* RefitOutcomeName(RefitOutcome o);  // "swapped" | "rejected" | "fallback"
+// "swapped" | "rejected" | "fallback" | "pooled"
+const char* RefitOutcomeName(RefitOutcome o);
 
 struct RefitRecord {
   std::string symbol;

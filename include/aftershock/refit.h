@@ -38,6 +38,21 @@
 // past, independent of the presample rule, at a cost bounded independently of
 // `window`. The same tail warms the holdout scores.
 //
+// Group models (options.group_models): a symbol that has no passed fit of its
+// own (too few bars for min_bars, e.g. an idle name) and is not in fallback
+// takes the latest passed model of its group (AddSymbol's `group`): the same
+// variance equation and law (alpha, beta, gamma, nu), zero mean, and omega
+// re-levelled so that the unconditional variance is the symbol's own (the
+// variance of its window once it holds kPooledLevelBars returns, else its
+// current next variance). The state is re-run over the window's tail; updates
+// carry kFlagPooled; the version is the symbol's next number; OnBar reports it
+// with `pooled` and a record of outcome kPooled. A newer group model replaces
+// it after every_bars more bars of the symbol (min_bars when every_bars is 0);
+// the symbol's own first passed fit replaces it for good. Adoption happens at
+// the symbol's own bars and reads only what earlier bars applied, so a replay
+// stays deterministic. It allocates (one ModelVersion and its record), once
+// per adoption, never on a quiet bar.
+//
 // Versions: immutable ModelVersion objects shared by std::shared_ptr<const>;
 // version 0 is the EWMA warm-up/fallback model (shared by all symbols);
 // estimated versions count 1, 2, ... per symbol. Only the ingest thread reads
@@ -80,6 +95,13 @@ class JobPool;
 
 // Returns over which a swapped-in model's variance state is re-run.
 inline constexpr int kSwapTailBars = 500;
+// Returns a symbol's window needs before a group model takes its level from them.
+inline constexpr int kPooledLevelBars = 20;
+
+// The group model for one symbol: `donor`'s variance equation and law with a
+// zero mean, omega set so that the unconditional variance is `level` (> 0).
+// InvalidArgument for an EWMA donor or a non-positive level.
+absl::StatusOr<ModelParams> PooledParams(const ModelParams& donor, double level);
 
 // Log-likelihood of `model` on the last `holdout` returns of `window`, its state
 // warmed over up to kSwapTailBars returns before them (from the unconditional
@@ -99,6 +121,7 @@ struct RefitStats {
   uint64_t refit_errors = 0;  // of which the refitter returned an error
   uint64_t fallbacks = 0;     // times the EWMA fallback was engaged
   uint64_t replay_waits = 0;  // replay applications that had to wait for the worker
+  uint64_t pooled = 0;        // group models adopted
   int in_flight = 0;          // jobs holding a slot (queued, running or awaiting apply)
   int queued = 0;             // jobs not yet picked up by a worker
   int running = 0;            // jobs a worker is running
@@ -109,6 +132,7 @@ struct RefitBarResult {
   bool applied = false;    // a job reached the stream: last_record() is new
   bool swapped = false;    // ... and its version is now in force
   bool scheduled = false;  // a new job was queued at this bar
+  bool pooled = false;     // the group model was adopted: last_record() is new (kPooled)
 };
 
 class RefitCoordinator {
@@ -124,10 +148,13 @@ class RefitCoordinator {
   RefitCoordinator(const RefitCoordinator&) = delete;
   RefitCoordinator& operator=(const RefitCoordinator&) = delete;
 
-  // Registers a symbol (allocates its window; not a per-bar call). Returns its
-  // dense id (0, 1, ...). InvalidArgument for an empty or over-long symbol,
-  // AlreadyExists for a registered one.
-  absl::StatusOr<uint32_t> AddSymbol(absl::string_view symbol);
+  // Registers a symbol (allocates its window; not a per-bar call) in `group`
+  // (any small number; symbols with the same number share group models; 0 for
+  // "all symbols"). Returns its dense id (0, 1, ...). InvalidArgument for an
+  // empty or over-long symbol or a group >= kMaxRefitGroups, AlreadyExists for
+  // a registered one.
+  static constexpr uint32_t kMaxRefitGroups = 4096;
+  absl::StatusOr<uint32_t> AddSymbol(absl::string_view symbol, uint32_t group = 0);
   // Id of a registered symbol, or -1.
   int64_t Find(absl::string_view symbol) const;
   size_t num_symbols() const { return symbols_.size(); }
@@ -136,7 +163,8 @@ class RefitCoordinator {
   const FilterModel& model(uint32_t id) const { return symbols_[id].current->model; }
   const ModelVersionPtr& current(uint32_t id) const { return symbols_[id].current; }
   // kFlagWarmup before the first swap, kFlagFallback while the fallback is in
-  // force, else 0 (OR it into the BarUpdate's flags).
+  // force, kFlagPooled while a group model stands in, else 0 (OR it into the
+  // BarUpdate's flags).
   uint32_t flags(uint32_t id) const;
   int consecutive_failures(uint32_t id) const { return symbols_[id].failures; }
   const RollingWindow& window(uint32_t id) const { return symbols_[id].window; }
@@ -170,6 +198,16 @@ class RefitCoordinator {
     int failures = 0;                // consecutive failed jobs
     bool fallback = false;
     int64_t fits = 0;  // jobs submitted
+    uint32_t group = 0;
+    bool pooled = false;      // current is a group model
+    uint64_t pooled_seq = 0;  // the group's sequence number adopted (0: none)
+    int64_t pooled_bar = 0;   // bars at that adoption
+  };
+  // The latest passed model of a group (ingest thread only).
+  struct GroupState {
+    ModelVersionPtr latest;  // null until a member's fit passes
+    std::string donor;       // its symbol
+    uint64_t seq = 0;        // passes so far
   };
   struct JobSlot;
 
@@ -178,6 +216,8 @@ class RefitCoordinator {
   void Process(uint32_t slot);  // worker side
   void Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state);
   void Submit(uint32_t id, SymbolSlot* sym);
+  // Adopts the group model when due (see "Group models"); true if it did.
+  bool MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, FilterState* state);
 
   // ---- constant after construction ----
   const RefitOptions options_;
@@ -188,6 +228,7 @@ class RefitCoordinator {
 
   // ---- ingest thread only ----
   std::vector<SymbolSlot> symbols_;
+  std::vector<GroupState> groups_;  // indexed by AddSymbol's group
   absl::flat_hash_map<std::string, uint32_t> index_;
   std::vector<uint32_t> free_slots_;  // free job slots (capacity preallocated)
   RefitRecord last_record_;
@@ -198,7 +239,7 @@ class RefitCoordinator {
   // ---- counters: written by the ingest thread, read anywhere (relaxed) ----
   struct Counters {
     std::atomic<uint64_t> due{0}, submitted{0}, coalesced{0}, dropped{0}, swapped{0}, rejected{0},
-        refit_errors{0}, fallbacks{0}, replay_waits{0};
+        refit_errors{0}, fallbacks{0}, replay_waits{0}, pooled{0};
     std::atomic<int> in_flight{0};
   };
   Counters counters_;

@@ -72,6 +72,10 @@ struct RefitOptions {
   uint32_t first_version = 1;
   // Live or replay hand-off (see RefitMode). Default kLive.
   RefitMode mode = RefitMode::kLive;
+  // Group models: a symbol without a passed fit of its own takes the latest
+  // passed model of its group (RefitCoordinator::AddSymbol), re-levelled to
+  // its own variance, until its own fit passes (see refit.h). Default true.
+  bool group_models = true;
 
   // OK when every field is in range; InvalidArgument naming the field otherwise.
   absl::Status Validate() const;

@@ -302,7 +302,7 @@ class DemoListener : public ServiceListener {
     Counts& c = At(index);
     if (record.outcome == RefitOutcome::kSwapped) {
       ++c.swapped;
-    } else {
+    } else if (record.outcome != RefitOutcome::kPooled) {
       ++c.rejected;
     }
   }

@@ -76,7 +76,8 @@ void ReplayRecorder::OnRefitRecord(int index, const RefitRecord& r) {
   rec.values = r.values;
   rec.std_errors = r.std_errors;
   rec.loglik = r.loglik;
-  rec.accepted = r.outcome == RefitOutcome::kSwapped;
+  // A group model (kPooled) is in force too; its note says where it came from.
+  rec.accepted = r.outcome == RefitOutcome::kSwapped || r.outcome == RefitOutcome::kPooled;
   for (size_t i = 0; i < r.reasons.size(); ++i) {
     rec.gate_reason += (i ? "; " : "") + r.reasons[i];
   }

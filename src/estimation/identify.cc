@@ -178,15 +178,19 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
                                    rep.arch_tests[0].p_value, options.level)
       : rep.arch_tests.empty()
           ? "no ARCH-LM test possible: constant variance assumed"
-          : absl::StrFormat("no ARCH effect found: ARCH-LM p = %.3g >= %.3g; a constant-variance "
-                            "model is used",
-                            rep.arch_tests[0].p_value, options.level);
+          : absl::StrFormat("no ARCH effect found: ARCH-LM p = %.3g >= %.3g; %s",
+                            rep.arch_tests[0].p_value, options.level,
+                            options.weak_evidence_aic
+                                ? "constant variance and GARCH(1,1) are compared by AIC"
+                                : "a constant-variance model is used");
 
   // ---- Steps 3-4: variance family by the criterion, mean fixed -------------
   const int p = rep.ar_order, q = rep.ma_order;
   std::vector<ModelSpec> specs;
   std::vector<Innovations> laws = {Innovations::kNormal};
   if (options.try_student_t) laws.push_back(Innovations::kStudentT);
+  // Weak evidence (no ARCH effect found): constant variance against GARCH(1,1), by AIC.
+  const bool weak = !rep.arch_effect && options.weak_evidence_aic;
   if (rep.arch_effect) {
     for (Innovations law : laws) {
       for (int m = 1; m <= options.max_arch_order; ++m) {
@@ -200,6 +204,7 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
   } else {
     for (Innovations law : laws) {
       specs.push_back(WithVariance(p, q, VarianceKind::kConstant, 0, 0, 0, law));
+      if (weak) specs.push_back(WithVariance(p, q, VarianceKind::kGarch, 1, 0, 1, law));
     }
   }
   int best = -1;
@@ -251,7 +256,8 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
     for (size_t i = 0; i < rep.variance_candidates.size(); ++i) {
       const auto& c = rep.variance_candidates[i];
       if (!(pass == 0 ? c.eligible : c.ok)) continue;
-      if (best < 0 || c.criterion < rep.variance_candidates[best].criterion) {
+      const auto& b = rep.variance_candidates[best < 0 ? 0 : best];
+      if (best < 0 || (weak ? c.aic < b.aic : c.criterion < b.criterion)) {
         best = static_cast<int>(i);
       }
     }
@@ -271,6 +277,10 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
           ? absl::StrFormat("%s has the lowest %s (%.3f) among %d candidates", chosen.Label(),
                             crit, rep.variance_candidates[best].criterion,
                             static_cast<int>(specs.size()))
+      : weak
+          ? absl::StrFormat("no ARCH effect found; weak-evidence rule: %s has the lowest AIC "
+                            "(%.3f) among constant variance and GARCH(1,1)",
+                            chosen.Label(), rep.variance_candidates[best].aic)
           : absl::StrFormat("no ARCH effect: %s chosen by %s", chosen.Label(), crit);
   // Re-fit the chosen two-step model with standard errors.
   {

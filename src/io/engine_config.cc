@@ -535,8 +535,9 @@ absl::Status ParseModel(const std::string* source, const Section& s, ModelConfig
 }
 
 absl::Status ParseWarmup(const Section& s, WarmupConfig* c) {
-  AS_RETURN_IF_ERROR(s.CheckKeys({"ewma_lambda", "min_bars"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"ewma_lambda", "min_bars", "start_bars"}));
   AS_RETURN_IF_ERROR(s.Number("ewma_lambda", &c->ewma_lambda, 0, 1, true, true));
+  AS_RETURN_IF_ERROR(s.Integer("start_bars", &c->start_bars, 1, kMaxWarmupStartBars));
   return s.Integer("min_bars", &c->min_bars, 1, 100000);
 }
 
@@ -569,7 +570,9 @@ absl::Status ParseRefit(const Section& s, RefitConfig* c) {
   AS_RETURN_IF_ERROR(s.CheckKeys({"every_bars", "every_seconds", "window", "min_bars", "workers",
                                   "reidentify_every", "max_persistence", "holdout_bars",
                                   "holdout_margin", "max_failures", "apply_lag_bars",
-                                  "jitter_fraction", "queue_capacity", "diagnostics_level"}));
+                                  "jitter_fraction", "queue_capacity", "diagnostics_level",
+                                  "group_models"}));
+  AS_RETURN_IF_ERROR(s.Bool("group_models", &c->group_models));
   AS_RETURN_IF_ERROR(s.Integer("every_bars", &c->every_bars, 0, int64_t{1} << 40));
   AS_RETURN_IF_ERROR(s.Number("every_seconds", &c->every_seconds, 0, 1e9, false, false));
   AS_RETURN_IF_ERROR(s.Integer("window", &c->window, 10, 1000000));
@@ -878,7 +881,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
     }
   }
   absl::StrAppend(&o, "\n[warmup]\newma_lambda = ", num(c.warmup.ewma_lambda),
-                  "\nmin_bars = ", c.warmup.min_bars, "\n");
+                  "\nmin_bars = ", c.warmup.min_bars, "\nstart_bars = ", c.warmup.start_bars,
+                  "\n");
   absl::StrAppend(&o, "\n[outputs]\nhorizons = [", absl::StrJoin(c.outputs.horizons, ", "),
                   "]\nrisk_levels = [");
   for (size_t i = 0; i < c.outputs.risk_levels.size(); ++i) {
@@ -899,7 +903,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
                   "\nmax_failures = ", r.max_failures, "\napply_lag_bars = ", r.apply_lag_bars,
                   "\njitter_fraction = ", num(r.jitter_fraction),
                   "\nqueue_capacity = ", r.queue_capacity,
-                  "\ndiagnostics_level = ", num(r.diagnostics_level), "\n");
+                  "\ndiagnostics_level = ", num(r.diagnostics_level),
+                  "\ngroup_models = ", r.group_models ? "true" : "false", "\n");
   auto alert_keys = [&](const AlertsConfig& a) {
     absl::StrAppend(&o, "shock_z = ", num(a.shock_z),
                     "\nshock_critical_z = ", num(a.shock_critical_z),

@@ -13,7 +13,7 @@ namespace aftershock {
 
 absl::string_view FlagName(int bit) {
   static constexpr absl::string_view kNames[kNumUpdateFlags] = {
-      "warmup", "fallback", "stale", "seasonal", "gap", "first_bar"};
+      "warmup", "fallback", "stale", "seasonal", "gap", "first_bar", "pooled"};
   return bit >= 0 && bit < kNumUpdateFlags ? kNames[bit] : "unknown";
 }
 

@@ -18,6 +18,8 @@ const char* RefitOutcomeName(RefitOutcome o) {
       return "rejected";
     case RefitOutcome::kFallback:
       return "fallback";
+    case RefitOutcome::kPooled:
+      return "pooled";
   }
   return "rejected";
 }

@@ -56,6 +56,30 @@ void RunTail(const FilterModel& model, absl::Span<const double> w, int tail, Fil
 
 }  // namespace
 
+absl::StatusOr<ModelParams> PooledParams(const ModelParams& donor, double level) {
+  const ModelSpec& d = donor.spec;
+  if (d.variance == VarianceKind::kEwma) {
+    return absl::InvalidArgumentError("an EWMA model cannot be a group model");
+  }
+  if (!(level > 0) || !std::isfinite(level)) {
+    return absl::InvalidArgumentError(absl::StrCat("group model level must be > 0, got ", level));
+  }
+  if (donor.values.size() != static_cast<size_t>(d.NumParams())) {
+    return absl::InvalidArgumentError("group model donor has the wrong number of parameters");
+  }
+  ModelSpec s = d;
+  s.mean = MeanKind::kZero;
+  s.ar_order = 0;
+  s.ma_order = 0;
+  ModelParams out{s, std::vector<double>(donor.values.begin() + d.VarianceOffset(),
+                                         donor.values.end())};
+  // values[0] is omega in every variance family but EWMA: set the level.
+  out.values[0] = d.variance == VarianceKind::kConstant ? level
+                                                        : level * (1.0 - donor.Persistence());
+  if (auto st = out.CheckConstraints(); !st.ok()) return st;
+  return out;
+}
+
 double ScoreHoldout(const FilterModel& model, absl::Span<const double> w, int holdout) {
   const size_t n = w.size();
   const size_t h = static_cast<size_t>(holdout);
@@ -110,7 +134,11 @@ RefitCoordinator::RefitCoordinator(const RefitOptions& options, const OutputOpti
 
 RefitCoordinator::~RefitCoordinator() { pool_.reset(); }
 
-absl::StatusOr<uint32_t> RefitCoordinator::AddSymbol(absl::string_view symbol) {
+absl::StatusOr<uint32_t> RefitCoordinator::AddSymbol(absl::string_view symbol, uint32_t group) {
+  if (group >= kMaxRefitGroups) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("group must be below ", kMaxRefitGroups, ", got ", group));
+  }
   if (symbol.empty() || symbol.size() > static_cast<size_t>(kMaxSymbolLength)) {
     return absl::InvalidArgumentError(
         absl::StrCat("symbol must have 1..", kMaxSymbolLength, " bytes, got ", symbol.size()));
@@ -125,6 +153,8 @@ absl::StatusOr<uint32_t> RefitCoordinator::AddSymbol(absl::string_view symbol) {
   s.window = *std::move(w);
   scheduler_.InitSymbol(symbol, &s.schedule);
   s.current = ewma_;
+  s.group = group;
+  if (groups_.size() <= group) groups_.resize(group + 1);
   const uint32_t id = static_cast<uint32_t>(symbols_.size());
   s.last_version = options_.first_version > 0 ? options_.first_version - 1 : 0;
   symbols_.push_back(std::move(s));
@@ -141,6 +171,7 @@ uint32_t RefitCoordinator::flags(uint32_t id) const {
   const SymbolSlot& s = symbols_[id];
   if (s.fallback) return kFlagFallback;
   if (s.current->version == 0) return kFlagWarmup;
+  if (s.pooled) return kFlagPooled;
   return 0;
 }
 
@@ -165,6 +196,9 @@ RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, Filt
       }
     }
   }
+  if (!res.applied && options_.group_models && !sym.last_estimated && !sym.fallback) {
+    res.pooled = MaybeAdoptGroupModel(&sym, t_ns, state);
+  }
   if (scheduler_.OnBar(&sym.schedule, bars, t_ns)) {
     counters_.due.fetch_add(1, std::memory_order_relaxed);
     if (sym.pending >= 0) {
@@ -177,6 +211,61 @@ RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, Filt
     }
   }
   return res;
+}
+
+bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, FilterState* state) {
+  const GroupState& g = groups_[sym->group];
+  if (g.seq == 0 || g.seq == sym->pooled_seq) return false;
+  const int64_t bars = sym->window.total();
+  const int64_t refresh = options_.every_bars > 0 ? options_.every_bars : options_.min_bars;
+  if (sym->pooled_seq != 0 && bars - sym->pooled_bar < refresh) return false;
+  // The symbol's own level: its window's variance, or its current forecast.
+  const int n = sym->window.size();
+  double level = state->var.next_variance;
+  if (n >= kPooledLevelBars) {
+    double s = 0, ss = 0;
+    for (int i = 0; i < n; ++i) s += sym->window.at(i);
+    const double mean = s / n;
+    for (int i = 0; i < n; ++i) ss += (sym->window.at(i) - mean) * (sym->window.at(i) - mean);
+    level = ss / (n - 1);
+  }
+  absl::StatusOr<ModelParams> p = PooledParams(g.latest->model.params(), level);
+  if (!p.ok()) return false;
+  const uint32_t version = sym->last_version + 1;
+  absl::StatusOr<FilterModel> fm = FilterModel::Create(*p, outputs_, version);
+  if (!fm.ok()) return false;
+  auto v = std::make_shared<ModelVersion>();
+  v->version = version;
+  v->model = *std::move(fm);
+  v->fitted_bar = bars;
+  sym->current = std::move(v);
+  sym->last_version = version;
+  sym->pooled = true;
+  sym->pooled_seq = g.seq;
+  sym->pooled_bar = bars;
+  const FilterModel& m = sym->current->model;
+  const int tail = std::min(n, kSwapTailBars);
+  InitFilterState(m, 0, state);
+  for (int i = tail - 1; i >= 0; --i) AdvanceState(m, state, sym->window.back(i));
+
+  RefitRecord rec;
+  rec.symbol = sym->name;
+  rec.outcome = RefitOutcome::kPooled;
+  rec.version = version;
+  rec.scheduled_bar = bars;
+  rec.applied_bar = bars;
+  rec.t_ns = t_ns;
+  rec.spec = p->spec.Label();
+  rec.names = p->spec.ParamNames();
+  rec.values = p->values;
+  rec.converged = true;
+  rec.note = absl::StrCat("group model: the dynamics of ", g.donor, " version ",
+                          g.latest->version, " at this symbol's variance ", level, " (",
+                          n >= kPooledLevelBars ? "its window" : "its current forecast", ")");
+  rec.consecutive_failures = sym->failures;
+  last_record_ = std::move(rec);
+  counters_.pooled.fetch_add(1, std::memory_order_relaxed);
+  return true;
 }
 
 void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
@@ -293,6 +382,11 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
     sym->last_version = sym->current->version;
     sym->failures = 0;
     sym->fallback = false;
+    sym->pooled = false;
+    GroupState& g = groups_[sym->group];
+    g.latest = sym->current;
+    g.donor = sym->name;
+    ++g.seq;
     const FilterModel& m = sym->current->model;
     // The worker's state ends at the job's window; catch up on the returns
     // that arrived since (normally apply_lag_bars of them).
@@ -318,6 +412,7 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
     j.record.outcome = RefitOutcome::kRejected;
     if (sym->failures >= options_.max_failures && !sym->fallback) {
       sym->fallback = true;
+      sym->pooled = false;
       sym->current = ewma_;
       // Continue from the variance in force, so the stream does not jump.
       double v = state->var.next_variance;
@@ -357,6 +452,7 @@ RefitStats RefitCoordinator::stats() const {
   s.refit_errors = counters_.refit_errors.load(std::memory_order_relaxed);
   s.fallbacks = counters_.fallbacks.load(std::memory_order_relaxed);
   s.replay_waits = counters_.replay_waits.load(std::memory_order_relaxed);
+  s.pooled = counters_.pooled.load(std::memory_order_relaxed);
   s.in_flight = counters_.in_flight.load(std::memory_order_relaxed);
   s.queued = pool_->queued();
   s.running = pool_->running();

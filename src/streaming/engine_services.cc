@@ -46,6 +46,7 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   // Version 1 is the configured [model.params] when there is one.
   o.first_version = config.model.has_params ? 2 : 1;
   o.mode = so.mode;
+  o.group_models = c.group_models;
   return o;
 }
 
@@ -156,7 +157,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     const std::pair<const char*, uint64_t> counters[] = {
         {"due", r.due},           {"submitted", r.submitted}, {"coalesced", r.coalesced},
         {"dropped", r.dropped},   {"swapped", r.swapped},     {"rejected", r.rejected},
-        {"errors", r.refit_errors}, {"fallbacks", r.fallbacks}};
+        {"errors", r.refit_errors}, {"fallbacks", r.fallbacks}, {"pooled", r.pooled}};
     absl::StrAppend(o, "# HELP aftershock_refits_total Refit jobs by outcome.\n",
                     "# TYPE aftershock_refits_total counter\n");
     for (const auto& [what, v] : counters) {
@@ -175,14 +176,16 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     PerSymbol& p = symbols_[index];
     p.symbol.assign(symbol);
     p.alerts_engine = alerts_.get();
+    uint32_t group = 0;  // group models: the [alerts.groups.*] group, else all symbols
     for (size_t g = 0; g < config_.alert_groups.size(); ++g) {
       if (config_.alert_groups[g].Matches(symbol)) {
         p.alerts_engine = group_alerts_[g].get();
+        group = static_cast<uint32_t>(g + 1);
         break;
       }
     }
     if (refit_) {
-      auto id = refit_->AddSymbol(symbol);
+      auto id = refit_->AddSymbol(symbol, group);
       p.refit_id = id.ok() ? static_cast<int64_t>(*id) : -1;
     }
   }
@@ -200,7 +203,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     // The coordinator re-runs the core's state in place when it swaps.
     const RefitBarResult res =
         refit_->OnBar(id, update->t_ns, update->r, core->mutable_filter_state(index));
-    if (!res.applied) return;
+    if (!res.applied && !res.pooled) return;
     const RefitRecord* rec_ptr = &refit_->last_record();
     if (options_.mode == RefitMode::kReplay) {
       // Wall time is the one field a replay cannot reproduce: 0 keeps the
@@ -222,6 +225,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       // Cannot fail: the model is created and the state given; counted if it did.
       if (!core->SwapModel(index, swap).ok()) ++swap_errors_;
     }
+    if (res.pooled) return;  // a group model stands in: no gate event
     // Model-health and persistence alerts.
     reason_ = absl::StrJoin(rec.reasons, "; ");
     GateEvent ev;

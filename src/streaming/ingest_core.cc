@@ -15,6 +15,31 @@ namespace {
 // which only happens when a new symbol arrives, never per tick).
 constexpr int64_t kMaxReservedSlots = 1 << 20;
 
+// Normal-consistency factor of the median absolute value: for r ~ N(0, s^2),
+// median |r| = 0.67449 s, and 1 / 0.67449 = 1.4826 (e.g. Huber, Robust
+// Statistics, 1981, on the MAD).
+constexpr double kMadToSigma = 1.4826;
+
+// Starting variance of the warm-up EWMA from the first returns x (zero-centred:
+// returns have a negligible mean at bar frequency): (1.4826 * median |x|)^2,
+// which a few huge or tiny returns cannot move; when half or more of x are 0
+// (an idle name) the mean square instead. 0 when every x is 0. Reorders
+// `scratch` (size >= x.size()); no allocation.
+double RobustStartVariance(absl::Span<const double> x, double* scratch) {
+  const size_t n = x.size();
+  double ss = 0;
+  for (size_t i = 0; i < n; ++i) {
+    scratch[i] = std::fabs(x[i]);
+    ss += x[i] * x[i];
+  }
+  // Median: the mean of the two middle order statistics for even n.
+  const size_t mid = n / 2;
+  std::nth_element(scratch, scratch + mid, scratch + n);
+  double med = scratch[mid];
+  if (n % 2 == 0) med = 0.5 * (med + *std::max_element(scratch, scratch + mid));
+  const double s = kMadToSigma * med;
+  return s > 0 ? s * s : ss / static_cast<double>(n);
+}
 
 }  // namespace
 
@@ -68,6 +93,9 @@ int IngestCore::IndexFor(absl::string_view symbol) {
   slot.symbol.assign(symbol);
   slot.model = initial_model_;
   slot.status_flags = initial_flags_;
+  if (config_.warmup.start_bars > 1) {
+    slot.start_returns = std::make_unique<double[]>(static_cast<size_t>(config_.warmup.start_bars));
+  }
   if (!initial_model_->is_ewma()) {
     InitFilterState(*initial_model_, 0.0, &slot.filter);
     slot.filter_ready = true;
@@ -135,12 +163,31 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
   if (bar.last_price > 0) r *= price_return_scale_;
   const FilterModel& model = *slot.model;
   if (!slot.filter_ready) {
-    // EWMA warm-up: the first non-zero return starts the variance at r^2.
-    if (!(r != 0.0) || !std::isfinite(r * r) || r * r <= 0.0) {
+    // EWMA warm-up start ([warmup] start_bars = m): collect m finite returns,
+    // start the variance at their robust scale and run them through; they
+    // publish nothing (their flags carry to the first update). m = 1: the first
+    // non-zero return starts the variance at r^2.
+    const int m = config_.warmup.start_bars;
+    const bool usable = m > 1 ? std::isfinite(r * r) : (r != 0.0 && std::isfinite(r * r));
+    if (!usable) {
       slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
       return;
     }
-    InitFilterState(model, r * r, &slot.filter);
+    if (m == 1) {
+      InitFilterState(model, r * r, &slot.filter);
+    } else {
+      slot.start_returns[slot.num_start_returns++] = r;
+      slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
+      if (slot.num_start_returns < m) return;
+      const absl::Span<const double> first(slot.start_returns.get(), static_cast<size_t>(m));
+      const double v0 = RobustStartVariance(first, start_scratch_);
+      slot.num_start_returns = 0;
+      if (!(v0 > 0) || !std::isfinite(v0)) return;  // all zero: collect afresh
+      InitFilterState(model, v0, &slot.filter);
+      for (double x : first) AdvanceState(model, &slot.filter, x);
+      slot.filter_ready = true;
+      return;  // the bar's return is in the state; the next bar publishes
+    }
     slot.filter_ready = true;
   }
   slot.pending_flags = 0;
@@ -268,8 +315,9 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
       break;
   }
   slot.filter_ready = true;
+  slot.num_start_returns = 0;
   slot.model = swap.model;
-  slot.status_flags = swap.status_flags & (kFlagWarmup | kFlagFallback);
+  slot.status_flags = swap.status_flags & (kFlagWarmup | kFlagFallback | kFlagPooled);
   ++counters_.model_swaps;
   return absl::OkStatus();
 }

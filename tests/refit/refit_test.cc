@@ -57,8 +57,8 @@ struct Driver {
     REQUIRE(c.ok());
     coord = std::move(*c);
   }
-  uint32_t Add(const std::string& name, double v0) {
-    auto id = coord->AddSymbol(name);
+  uint32_t Add(const std::string& name, double v0, uint32_t group = 0) {
+    auto id = coord->AddSymbol(name, group);
     REQUIRE(id.ok());
     ids.push_back(*id);
     states.emplace_back();
@@ -78,7 +78,7 @@ struct Driver {
     bytes.append(reinterpret_cast<const char*>(&u.flags), sizeof(u.flags));
     updates[k].push_back(u);
     const RefitBarResult res = coord->OnBar(id, t_ns, r, &states[k]);
-    if (res.applied) records.push_back(coord->last_record());
+    if (res.applied || res.pooled) records.push_back(coord->last_record());
     return res;
   }
 };
@@ -408,6 +408,7 @@ TEST_CASE("full queue drops and counts; a pending job coalesces later due points
   o.queue_capacity = 2;
   o.workers = 1;
   o.mode = RefitMode::kLive;
+  o.group_models = false;  // only jobs make records here
   auto gated = std::make_unique<GatedRefitter>();
   GatedRefitter* gate = gated.get();
   Driver d(o, std::move(gated));
@@ -535,6 +536,7 @@ TEST_CASE("no fit before min_bars; late symbols start their own schedule", "[ref
   o.every_bars = 100;
   o.jitter_fraction = 0;
   o.mode = RefitMode::kReplay;
+  o.group_models = false;  // own fits only (group models: the tests above)
   Driver d(o, DefaultRefitter());
   d.Add("VELLUM", 1.0);
   for (int t = 0; t < 299; ++t) d.Bar(0, t * kBarNs, a[t]);
@@ -564,6 +566,126 @@ TEST_CASE("no fit before min_bars; late symbols start their own schedule", "[ref
   CHECK(d.records.back().symbol == "LATECOMER");
   CHECK(d.coord->Find("LATECOMER") == 1);
   CHECK(d.coord->Find("NOBODY") == -1);
+}
+
+TEST_CASE("a group model keeps the donor's dynamics at the symbol's own level", "[refit]") {
+  ModelSpec spec;
+  spec.mean = MeanKind::kArma;
+  spec.ar_order = 1;
+  spec.variance = VarianceKind::kGjr;
+  spec.asym_order = 1;
+  spec.innovations = Innovations::kStudentT;
+  auto donor = ModelParams::FromNamed(spec, {{"mu", 0.01},
+                                             {"ar1", 0.1},
+                                             {"omega", 0.02},
+                                             {"alpha1", 0.05},
+                                             {"gamma1", 0.06},
+                                             {"beta1", 0.9},
+                                             {"nu", 6.5}});
+  REQUIRE(donor.ok());
+  auto p = PooledParams(*donor, 4.0);
+  REQUIRE(p.ok());
+  CHECK(p->spec.mean == MeanKind::kZero);
+  CHECK(p->spec.variance == VarianceKind::kGjr);
+  CHECK(p->spec.innovations == Innovations::kStudentT);
+  REQUIRE(p->values.size() == 5);
+  CHECK(p->values[1] == 0.05);
+  CHECK(p->values[2] == 0.06);
+  CHECK(p->values[3] == 0.9);
+  CHECK(p->values[4] == 6.5);
+  CHECK(p->Persistence() == donor->Persistence());
+  CHECK(std::fabs(p->UnconditionalVariance() - 4.0) < 1e-12);
+  CHECK_FALSE(PooledParams(*donor, 0.0).ok());
+  auto ewma = FilterModel::Ewma(0.94, OutputOptions{}, 0);
+  REQUIRE(ewma.ok());
+  CHECK_FALSE(PooledParams(ewma->params(), 1.0).ok());
+}
+
+// One group of an active name and an idle one (a tick every 10th bar, three
+// times the volatility), and an idle name alone in its own group.
+std::string RunGroups(int workers, std::vector<RefitRecord>* records,
+                      std::vector<std::vector<BarUpdate>>* updates, bool group_models = true) {
+  const auto active = Sim(Garch(0.0, 0.05, 0.08, 0.9), 1300, 71);
+  const auto idle = Sim(Garch(0.0, 0.45, 0.08, 0.9), 600, 72);
+  const auto alone = Sim(Garch(0.0, 0.05, 0.08, 0.9), 200, 73);
+  RefitOptions o;
+  o.window = 500;
+  o.min_bars = 300;
+  o.every_bars = 100;
+  o.jitter_fraction = 0;
+  o.workers = workers;
+  o.mode = RefitMode::kReplay;
+  o.group_models = group_models;
+  Driver d(o, DefaultRefitter());
+  d.Add("ALDER", 0.5, 1);
+  d.Add("BRACKEN", 4.5, 1);
+  d.Add("CALLUNA", 0.5, 2);
+  int bi = 0, ci = 0;
+  for (int t = 0; t < 1300; ++t) {
+    d.Bar(0, t * kBarNs, active[t]);
+    // BRACKEN: idle for the first 900 bars, then every bar.
+    if (t % 10 == 0 || t >= 900) d.Bar(1, t * kBarNs, idle[bi++]);
+    if (t % 10 == 5) d.Bar(2, t * kBarNs, alone[ci++]);
+  }
+  if (records) *records = d.records;
+  if (updates) *updates = d.updates;
+  return d.bytes;
+}
+
+TEST_CASE("an idle name runs on its group's model until its own fit passes", "[refit]") {
+  std::vector<RefitRecord> records;
+  std::vector<std::vector<BarUpdate>> u;
+  const std::string ref = RunGroups(1, &records, &u);
+  // ALDER's first fit is scheduled at its bar 300 and applied at 301.
+  int first_pooled = -1, own = -1;
+  for (size_t i = 0; i < records.size(); ++i) {
+    const RefitRecord& r = records[i];
+    if (r.symbol == "BRACKEN" && r.outcome == RefitOutcome::kPooled && first_pooled < 0) {
+      first_pooled = static_cast<int>(i);
+    }
+    if (r.symbol == "BRACKEN" && r.outcome == RefitOutcome::kSwapped && own < 0) {
+      own = static_cast<int>(i);
+    }
+    CHECK(r.symbol != "CALLUNA");  // its group has no passed model
+  }
+  REQUIRE(first_pooled >= 0);
+  REQUIRE(own > first_pooled);
+  const RefitRecord& pooled = records[first_pooled];
+  INFO(pooled.note);
+  CHECK(pooled.version == 1);
+  CHECK(pooled.note.find("ALDER version 1") != std::string::npos);
+  CHECK(pooled.names.front() == "omega");  // zero mean
+  // BRACKEN's bars: 31 idle ones until ALDER's bar 301; the adoption happens
+  // at its bar 31 (ALDER's bar 310), so its 32nd update is the first pooled one.
+  const auto& b = u[1];
+  CHECK(pooled.applied_bar == 31);
+  CHECK((b[30].flags & kFlagWarmup) != 0);
+  CHECK(b[31].flags == kFlagPooled);
+  CHECK(b[31].ver == 1);
+  // At its own level: z^2 averages near 1 over the pooled bars although the
+  // donor's variance is a ninth of BRACKEN's (without re-levelling: ~9).
+  double z2 = 0;
+  int n = 0;
+  for (size_t i = 31; i < b.size() && (b[i].flags & kFlagPooled); ++i, ++n) z2 += b[i].z * b[i].z;
+  REQUIRE(n >= 100);
+  CHECK(z2 / n > 0.6);
+  CHECK(z2 / n < 1.6);
+  // Its own fit then replaces the group model for good.
+  CHECK(records[own].version >= 2);
+  for (size_t i = own + 1; i < records.size(); ++i) {
+    CHECK_FALSE((records[i].symbol == "BRACKEN" && records[i].outcome == RefitOutcome::kPooled));
+  }
+  CHECK(b.back().flags == 0);
+  // The lone idle name never leaves the warm-up EWMA.
+  for (const auto& x : u[2]) CHECK(x.ver == 0);
+  // Deterministic in replay, whatever the worker count.
+  CHECK(RunGroups(1, nullptr, nullptr) == ref);
+  CHECK(RunGroups(2, nullptr, nullptr) == ref);
+  // Off: BRACKEN stays on the EWMA until its own fit.
+  std::vector<std::vector<BarUpdate>> off;
+  RunGroups(1, nullptr, &off, false);
+  CHECK(off[1][31].ver == 0);
+  CHECK((off[1][31].flags & kFlagWarmup) != 0);
 }
 
 TEST_CASE("the ingest side allocates nothing per bar, storm included", "[refit]") {

@@ -1,5 +1,6 @@
 #include "aftershock/ingest_core.h"
 
+#include <algorithm>
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <string>
@@ -104,8 +105,8 @@ TEST_CASE("fixed-parameter stream equals the offline filter per symbol", "[core]
   CHECK(f.core->symbol_updates(f.core->FindSymbol("BIRCH.Y")) == 300);
 }
 
-TEST_CASE("without params: EWMA warm-up from the first non-zero return squared", "[core]") {
-  Fixture f("[warmup]\newma_lambda = 0.97\n");
+TEST_CASE("start_bars = 1: EWMA warm-up from the first non-zero return squared", "[core]") {
+  Fixture f("[warmup]\newma_lambda = 0.97\nstart_bars = 1\n");
   std::vector<double> r = {0.0, 0.004, -0.002, 0.01, 0.0005};
   for (size_t i = 0; i < r.size(); ++i) {
     SendJson(f.core.get(), ReturnTick("DELTA.Q", kT0 + i * kSec, r[i]));
@@ -126,6 +127,85 @@ TEST_CASE("without params: EWMA warm-up from the first non-zero return squared",
   CHECK(got[0].var == 0.004 * 0.004);
   CHECK((got[0].flags & kFlagFirstBar) != 0);
   CHECK((got[1].flags & kFlagFirstBar) == 0);
+}
+
+// One-minute bars of price ticks (three ticks a bar) whose first return is
+// `first` and whose later returns are TestReturns(.., sd 0.001).
+std::vector<BarUpdate> WarmupOnMinuteBars(const std::string& warmup_toml, double first,
+                                          std::vector<double>* returns) {
+  Fixture f("[bars]\ninterval = \"1m\"\n" + warmup_toml);
+  const int64_t kMin = 60 * kSec;
+  *returns = testing::TestReturns(40, 7, 0.001);
+  (*returns)[0] = first;
+  double logp = std::log(50.0);
+  f.core->OnTick(PriceTick("OAK.W", kT0 + 5 * kSec, 50.0));  // bar 0: no return
+  for (size_t i = 0; i < returns->size(); ++i) {
+    const int64_t bar = kT0 + static_cast<int64_t>(i + 1) * kMin;
+    const double close = logp + (*returns)[i];
+    // Two ticks inside the bar, then its close.
+    f.core->OnTick(PriceTick("OAK.W", bar + 2 * kSec, std::exp(logp + 0.3 * (*returns)[i])));
+    f.core->OnTick(PriceTick("OAK.W", bar + 20 * kSec, std::exp(logp - 0.2 * (*returns)[i])));
+    f.core->OnTick(PriceTick("OAK.W", bar + 50 * kSec, std::exp(close)));
+    logp = close;
+  }
+  f.core->CloseAllOpenBars();
+  // The core's bar returns are differences of log closes: `returns` up to rounding.
+  return Decoded(f.sink, "u.OAK.W");
+}
+
+TEST_CASE("warm-up starts at a robust scale: a tiny or huge first return stays harmless",
+          "[core]") {
+  for (double first : {1e-7, 0.03}) {
+    INFO("first return " << first);
+    std::vector<double> r;
+    // Default [warmup]: start_bars = 10, lambda 0.94.
+    const auto got = WarmupOnMinuteBars("", first, &r);
+    // 40 returns, the first 10 only start the variance.
+    REQUIRE(got.size() == 30);
+    for (int i = 0; i < 2; ++i) {
+      INFO("update " << i);
+      CHECK(std::fabs(got[i].z) < 4.0);
+      CHECK(got[i].ver == 0);
+      CHECK((got[i].flags & kFlagWarmup) != 0);
+      CHECK(std::fabs(got[i].r - r[10 + i]) < 1e-12);
+    }
+    // Reference, computed here from the definition: v0 = (1.4826 * median |r|)^2
+    // over the first 10 returns (even count: mean of the 5th and 6th smallest),
+    // then the EWMA over all returns.
+    std::vector<double> a;
+    for (int i = 0; i < 10; ++i) a.push_back(std::fabs(r[i]));
+    std::sort(a.begin(), a.end());
+    const double s0 = 1.4826 * 0.5 * (a[4] + a[5]);
+    auto ewma = FilterModel::Ewma(0.94, OutputOptions{}, 0);
+    REQUIRE(ewma.ok());
+    const auto ref = FilterSeries(*ewma, s0 * s0, r);
+    for (size_t i = 0; i < got.size(); ++i) {
+      CHECK(RelDiff(got[i].var, ref[10 + i].var) < 1e-9);
+    }
+  }
+  // The plain start (start_bars = 1) on the tiny first return: the second
+  // update's z is absurd, which is what the robust start prevents.
+  std::vector<double> r;
+  const auto plain = WarmupOnMinuteBars("[warmup]\nstart_bars = 1\n", 1e-7, &r);
+  REQUIRE(plain.size() == 40);
+  CHECK(std::fabs(plain[1].z) > 20.0);
+}
+
+TEST_CASE("warm-up start: all-zero returns collect afresh; flags carry to the first update",
+          "[core]") {
+  Fixture f("[warmup]\nstart_bars = 4\n");
+  const std::vector<double> r = {0, 0, 0, 0, 0.001, -0.002, 0.0015, 0.0005, 0.001};
+  for (size_t i = 0; i < r.size(); ++i) {
+    f.core->OnTick(ReturnTick("IDLE.Z", kT0 + static_cast<int64_t>(i) * kSec, r[i]));
+  }
+  const auto got = Decoded(f.sink, "u.IDLE.Z");
+  // Four zeros start nothing; the next four start the variance; one update.
+  REQUIRE(got.size() == 1);
+  const double v0 = std::pow(1.4826 * 0.5 * (0.001 + 0.0015), 2);
+  auto ewma = FilterModel::Ewma(0.94, OutputOptions{}, 0);
+  REQUIRE(ewma.ok());
+  const auto ref = FilterSeries(*ewma, v0, std::vector<double>(r.begin() + 4, r.end()));
+  CHECK(RelDiff(got[0].var, ref[4].var) < 1e-12);
 }
 
 TEST_CASE("price ticks: first bar publishes nothing, then log returns", "[core]") {
