@@ -94,7 +94,7 @@ std::vector<std::string> ConfigWarnings(const EngineConfig& c, const RunFacts& f
       out.push_back(absl::StrFormat(
           "[refit] min_bars = %d is longer than one session (%d bars of %s): no model before "
           "session %d",
-          c.refit.min_bars, k, FormatDuration(interval), (c.refit.min_bars + k - 1) / k));
+          c.refit.min_bars, k, FormatDuration(interval), c.refit.min_bars / k + 1));
     }
     if (c.warmup.min_bars > k) {
       out.push_back(absl::StrFormat("[warmup] min_bars = %d is longer than one session (%d bars)",

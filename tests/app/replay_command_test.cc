@@ -22,6 +22,7 @@
 namespace aftershock {
 namespace {
 
+using testing::HttpGet;
 using testing::RunCli;
 constexpr int64_t kT0 = 1772443800000000000;
 
@@ -170,27 +171,6 @@ int FreePort() {
   }
   close(fd);
   return ntohs(a.sin_port);
-}
-
-// A minimal HTTP/1.1 GET over loopback; returns the whole response.
-std::string HttpGet(int port, const std::string& path) {
-  const int fd = socket(AF_INET, SOCK_STREAM, 0);
-  sockaddr_in a{};
-  a.sin_family = AF_INET;
-  a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
-  a.sin_port = htons(static_cast<uint16_t>(port));
-  if (connect(fd, reinterpret_cast<sockaddr*>(&a), sizeof(a)) != 0) {
-    close(fd);
-    return "";
-  }
-  const std::string req = "GET " + path + " HTTP/1.1\r\nHost: 127.0.0.1\r\n\r\n";
-  (void)!write(fd, req.data(), req.size());
-  std::string out;
-  char buf[4096];
-  ssize_t n;
-  while ((n = read(fd, buf, sizeof(buf))) > 0) out.append(buf, static_cast<size_t>(n));
-  close(fd);
-  return out;
 }
 
 TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0; health and metrics", "[app][run]") {
