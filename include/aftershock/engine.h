@@ -11,7 +11,9 @@
 //   * SIGINT/SIGTERM (optional): the handler runs between rounds, so the
 //     current batch is finished; then the sink is flushed and Run() returns OK;
 //   * the HTTP health/metrics endpoint (optional, Boost.Beast), whose handlers
-//     read the counters on this same thread.
+//     read the counters on this same thread; the clock tick also samples the
+//     counters into a RejectWindow, so /health turns "degraded" (HTTP 503)
+//     when most inputs of the last minute were rejected.
 // Why an event-driven wait and not a busy poll loop: the engine shares cores
 // with refit workers, and an idle feed must cost no CPU; an epoll wake-up is a
 // few microseconds, inside the latency target (P4). A round limit keeps timers
@@ -34,6 +36,7 @@
 #include "absl/status/statusor.h"
 #include "aftershock/clock.h"
 #include "aftershock/engine_config.h"
+#include "aftershock/engine_metrics.h"
 #include "aftershock/ingest_core.h"
 #include "aftershock/tick_source.h"
 #include "aftershock/update_sink.h"
@@ -88,6 +91,8 @@ class Engine {
   bool running() const;
   // The bound HTTP endpoint ("127.0.0.1:7310"), "" when not serving.
   std::string HttpEndpoint() const;
+  // What GET /health answers now (ingest thread, or before Run / after it returns).
+  HealthStatus Health() const;
 
   struct Loop;
 
@@ -100,6 +105,7 @@ class Engine {
   std::unique_ptr<UpdateSink> sink_;
   std::unique_ptr<IngestCore> core_;
   std::unique_ptr<Loop> loop_;
+  std::unique_ptr<RejectWindow> reject_window_;  // ingest thread; before http_ (outlives it)
   std::unique_ptr<MetricsHttpServer> http_;  // after loop_: destroyed before it
   std::shared_ptr<void> transport_;          // keeps the ZeroMQ context of CreateFromConfig alive
 };

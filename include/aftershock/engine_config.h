@@ -51,6 +51,18 @@ struct BarsConfig {
   BarOptions ToBarOptions() const { return BarOptions{interval_ns, max_lateness_ns, session}; }
 };
 
+// Length of one trading session, ns (24 h when the session is disabled; a
+// session over midnight counts end + 24 h - start).
+int64_t SessionLengthNs(const SessionWindow& session);
+// Bars in one session: ceil(SessionLengthNs / interval_ns) (a last, shorter
+// bar clipped at the close counts). REQUIRES: interval_ns > 0.
+int64_t BarsPerSession(const SessionWindow& session, int64_t interval_ns);
+// periods_per_year = "auto": 252 trading days times the bars of one day,
+// i.e. 252 * BarsPerSession(session, interval) (a day of 24 h without a
+// session); interval 0 (one bar per tick) gives 252, each bar taken as a day.
+// 1m bars: 128520 for an 08:00-16:30 session, 98280 for 6.5 h, 362880 for 24 h.
+double AutoPeriodsPerYear(const BarsConfig& bars);
+
 // [model] and [model.params]: the model every symbol starts with.
 struct ModelConfig {
   ModelSpec spec;  // default constant mean, GARCH(1,1), Student-t innovations
@@ -81,7 +93,12 @@ absl::string_view ReturnUnitsName(ReturnUnits u);  // "fraction" | "percent"
 struct OutputsConfig {
   std::vector<int> horizons = {1, 5, 20};           // bars ahead for var_h; <= kMaxHorizons entries
   std::vector<double> risk_levels = {0.99, 0.975};  // VaR/ES levels in (0.5,1); <= 4
-  double periods_per_year = 252;                    // bars per year for annualization; default 252
+  // Bars per year for annualization, > 0. Always the value in use: with
+  // periods_per_year_auto it is AutoPeriodsPerYear([bars]), set by
+  // ParseEngineConfig (code that builds a config by hand and changes [bars]
+  // calls ResolveAutoSettings). Default auto (252 for the default "0s" bars).
+  double periods_per_year = 252;
+  bool periods_per_year_auto = true;  // "auto" in the file (the default); false: a number
   ReturnUnits return_units = ReturnUnits::kFraction;  // units of the feed's returns
   // Target annualized volatility for the sizing scale, in the same units as
   // the annualized returns (0.10 = 10 % for fractions; 10 for per cent).
@@ -107,10 +124,15 @@ struct LimitsConfig {
 
 // [refit]: background re-estimation (PRODUCT.md C5).
 struct RefitConfig {
-  int64_t every_bars = 0;           // refit a symbol every N bars; 0 = off
+  // Refit a symbol every N bars; 0 = off. Default 100: about a quarter of a
+  // 6.5 h session of 1-minute bars, so models follow the day at a few ms each.
+  int64_t every_bars = 100;
   double every_seconds = 0;         // and/or every T seconds of wall clock; 0 = off
   int window = 2000;                // rolling window of returns, bars; default 2000
-  int min_bars = 250;               // bars needed before the first fit; default 250
+  // Bars needed before the first fit (<= window, > holdout_bars). Default 200:
+  // 40 bars per parameter of a GARCH(1,1)-t, and a first model within the
+  // first session of 1-minute bars (390-510 bars a day).
+  int min_bars = 200;
   int workers = 1;                  // worker threads; default 1
   int reidentify_every = 10;        // run the full identification every k-th refit; 0 = never
   double max_persistence = 0.9995;  // gate: fits above this persistence are refused
@@ -194,6 +216,10 @@ struct EngineConfig {
 // ("config.toml:12: ..."). Never throws.
 absl::StatusOr<EngineConfig> ParseEngineConfig(absl::string_view toml_text,
                                                absl::string_view source_name);
+
+// Re-derives the "auto" settings (periods_per_year) from the rest of the
+// configuration; ParseEngineConfig calls it. REQUIRES: config != nullptr.
+void ResolveAutoSettings(EngineConfig* config);
 
 // Reads and parses a file; NotFound if it cannot be read.
 absl::StatusOr<EngineConfig> LoadEngineConfigFile(const std::string& path);

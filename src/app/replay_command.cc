@@ -12,6 +12,7 @@
 #include "absl/strings/str_join.h"
 #include "absl/time/clock.h"
 #include "absl/time/time.h"
+#include "aftershock/config_check.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
@@ -43,6 +44,10 @@ int ReplayCommand(int argc, char** argv) {
       "whatever the worker timing, so the output is byte-identical across runs and worker\n"
       "counts. Model records (the m.<symbol> messages) go to --models and alerts (the\n"
       "a.<symbol> messages) to --alerts, one JSON object a line.\n\n"
+      "The run ends with warnings (on standard error, also with --quiet) about settings that\n"
+      "contradict each other or the input: annualization against the bar interval, min_bars\n"
+      "longer than the input or a session, refits off, a feed encoding no producer uses,\n"
+      "most ticks rejected, no symbol with a fitted model (see `aftershock run --check`).\n\n"
       "--report writes a self-contained HTML evaluation (forecast losses, VaR backtests,\n"
       "alerts, parameter history, charts); --summary-json the same statistics as JSON.\n\n"
       "Example:\n  aftershock replay --config config/default.toml --input ticks.csv "
@@ -122,7 +127,10 @@ int ReplayCommand(int argc, char** argv) {
   int64_t next_sweep = -1;
   Tick tick;
   uint64_t n = 0;
+  int64_t first_tick_ns = -1, last_tick_ns = 0;
   while ((*reader)->Next(&tick)) {
+    if (first_tick_ns < 0) first_tick_ns = tick.t_ns;
+    last_tick_ns = std::max(last_tick_ns, tick.t_ns);
     if (interval > 0) {
       // Event-time clock: sweep idle bars at the cadence the live engine would.
       if (next_sweep < 0) next_sweep = tick.t_ns + sweep;
@@ -184,6 +192,24 @@ int ReplayCommand(int argc, char** argv) {
       }
     }
   }
+  std::vector<std::string> warnings;
+  {
+    const IngestCore& core_ref = **core;
+    RunFacts facts;
+    facts.present = true;
+    facts.from_file = true;
+    facts.ticks_accepted = core_ref.counters().ticks_accepted;
+    facts.rejects = core_ref.counters().rejects;
+    facts.symbols = static_cast<uint64_t>(core_ref.num_symbols());
+    for (int i = 0; i < core_ref.num_symbols(); ++i) {
+      facts.max_symbol_bars = std::max(facts.max_symbol_bars, core_ref.symbol_bars(i));
+      const FilterModel& m = core_ref.model(i);
+      if (!m.is_ewma() && m.version() >= 1) ++facts.symbols_fitted;
+    }
+    facts.first_tick_ns = std::max<int64_t>(first_tick_ns, 0);
+    facts.last_tick_ns = last_tick_ns;
+    warnings = ConfigWarnings(*config, facts);
+  }
   if (!quiet) {
     const EngineCounters& c = (*core)->counters();
     std::string bad;
@@ -201,6 +227,8 @@ int ReplayCommand(int argc, char** argv) {
                  c.bars / std::max(seconds, 1e-9), bad.c_str(),
                  ServicesSummary(**services).c_str());
   }
+  // Printed even with --quiet: a run that cannot have done its job must say so.
+  for (const std::string& w : warnings) std::fprintf(stderr, "replay: warning: %s\n", w.c_str());
   return 0;
 }
 

@@ -4,6 +4,7 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
+#include "aftershock/config_check.h"
 #include "aftershock/engine.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
@@ -30,7 +31,9 @@ int RunCommand(int argc, char** argv) {
       "Example:\n  aftershock run --config config/default.toml");
   args.AddOption("config", "FILE", "engine configuration (TOML; see config/default.toml)", "",
                  true);
-  args.AddFlag("check", "validate the configuration, print a summary and exit (0 ok, 2 bad)");
+  args.AddFlag("check",
+               "validate the configuration, print a summary and warnings about settings that "
+               "contradict each other, then exit (0 ok, 2 bad)");
   args.AddOption("alerts", "FILE", "also write alerts as JSON Lines (they are published on a.*)");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
@@ -46,16 +49,24 @@ int RunCommand(int argc, char** argv) {
   const std::string plan =
       absl::StrCat("feed ", absl::StrJoin(config->feed.endpoints, ","), " (",
                    WireEncodingName(config->feed.encoding), ") -> bars ",
-                   FormatDuration(config->bars.interval_ns), " -> ", model, " -> publish ",
+                   FormatDuration(config->bars.interval_ns), " (",
+                   config->outputs.periods_per_year, " a year",
+                   config->outputs.periods_per_year_auto ? ", auto" : "", ") -> ", model,
+                   " -> publish ",
                    config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")",
                    config->refit.every_bars > 0 || config->refit.every_seconds > 0
                        ? absl::StrCat("; refits every ", config->refit.every_bars, " bars / ",
                                       config->refit.every_seconds, " s on ",
                                       config->refit.workers, " worker(s)")
                        : "; refits off");
+  const std::vector<std::string> warnings = ConfigWarnings(*config);
   if (args.Flag("check")) {
     std::printf("%s: configuration OK\n%s\n", args.Get("config").c_str(), plan.c_str());
+    for (const std::string& w : warnings) std::printf("warning: %s\n", w.c_str());
     return 0;
+  }
+  for (const std::string& w : warnings) {
+    std::fprintf(stderr, "aftershock run: warning: %s\n", w.c_str());
   }
   if (!config->checkpoint.path.empty()) {
     std::fprintf(stderr,

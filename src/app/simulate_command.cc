@@ -176,6 +176,34 @@ absl::Status LoadUniverseFile(const std::string& path, std::vector<InstrumentPro
   return absl::OkStatus();
 }
 
+// "HH:MM-HH:MM" (local time; end may be 24:00) -> session window.
+absl::Status ParseSessionOption(absl::string_view text, SessionWindow* w) {
+  auto clock = [](absl::string_view t, bool is_end, int* minutes) {
+    if (t.size() != 5 || t[2] != ':') return false;
+    for (int i : {0, 1, 3, 4}) {
+      if (t[i] < '0' || t[i] > '9') return false;
+    }
+    const int h = (t[0] - '0') * 10 + (t[1] - '0');
+    const int m = (t[3] - '0') * 10 + (t[4] - '0');
+    if (m > 59 || h > 24 || (h == 24 && (m != 0 || !is_end))) return false;
+    *minutes = h * 60 + m;
+    return true;
+  };
+  const auto dash = text.find('-');
+  int a = 0, b = 0;
+  if (dash == absl::string_view::npos || !clock(text.substr(0, dash), false, &a) ||
+      !clock(text.substr(dash + 1), true, &b) || b == 0 || a == b % 1440) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "--session: expected local times HH:MM-HH:MM such as 08:00-16:30 (start != end; end may "
+        "be 24:00), got '",
+        text, "'"));
+  }
+  w->enabled = true;
+  w->start_minute = a;
+  w->end_minute = b;
+  return absl::OkStatus();
+}
+
 void AppendDouble(double v, std::string* out) {
   char buf[32];
   auto res = std::to_chars(buf, buf + sizeof buf, v);
@@ -414,7 +442,31 @@ int SimulateCommand(int argc, char** argv) {
       "instrument per bar. The same --seed gives the same data; an instrument's path depends\n"
       "only on the seed and its symbol. Returns are fractions (0.001 = 0.1 %); give the\n"
       "engine the bars per year that --list prints (periods_per_year) so annualized\n"
-      "figures match.\n\n"
+      "figures match (the engine's periods_per_year = \"auto\" gives the same number when\n"
+      "its [bars] interval and session are those given here).\n\n"
+      "Sessions: --session 08:00-16:30 --utc-offset 60 produces ticks only inside that\n"
+      "local-time session (the engine's [bars] session = { start = \"08:00\", end = \"16:30\",\n"
+      "timezone_offset_minutes = 60 }). A session has ceil(length / interval) bars (the last\n"
+      "one ends at the close); after it the bar clock jumps to the next session's open, over\n"
+      "the night and over weekends (no session opens on a local Saturday or Sunday unless\n"
+      "--every-day). Bar 0 is the first bar at or after --start; without --start the run\n"
+      "begins at the open of Monday 2026-03-02 (local). --sessions N simulates N whole\n"
+      "sessions (N * bars per session bars) instead of --bars. The first return of every\n"
+      "session but the first carries an overnight move: a normal draw with the variance of\n"
+      "--overnight-variance bars at the conditional variance (a price feed's bar builder\n"
+      "skips that return; a return feed carries it in its first tick of the session).\n"
+      "With a session, --periods-per-year auto is 252 * bars per session.\n\n"
+      "Intraday profile: --intraday-shape u multiplies each bar's return by s(k), k the bar\n"
+      "of the session (0..K-1), with x = (2k + 1) / K - 1 and\n"
+      "  s(k)^2 = (1 + A x^2) / (1 + A (K^2 - 1) / (3 K^2)),  A = --intraday-amplitude,\n"
+      "so the session mean of s^2 is 1 (the day's variance is unchanged), and the open and\n"
+      "close bars have about 1 + A times the variance of the midday bars. The GARCH\n"
+      "recursion runs on the unscaled returns. flat (the default) is s = 1.\n\n"
+      "Ticks per bar: --ticks-per-bar N > 1 gives each instrument N ticks at uniformly\n"
+      "random times inside each bar (prices on a Brownian bridge of the bar's variance); the\n"
+      "bar's last tick carries its close, so a [bars] interval equal to --interval recovers\n"
+      "the simulated returns exactly. Ticks are written in time order. With N = 1 (default)\n"
+      "the tick is stamped at the bar start.\n\n"
       "Regimes: --regime [SYMBOL@]BAR:MULT multiplies the unconditional variance (omega) by\n"
       "MULT from output bar BAR on (0-based; relative to the base level, not cumulative).\n"
       "Without SYMBOL@ it applies to every instrument. Repeat the option or give a comma list:\n"
@@ -440,7 +492,9 @@ int SimulateCommand(int argc, char** argv) {
       "cleanly with the final count (exit code 130).\n\n"
       "Examples:\n"
       "  aftershock simulate --output ticks.csv --bars 390 --regime 200:4\n"
-      "  aftershock simulate --publish tcp://127.0.0.1:7301 --rate 200 --bars 100000");
+      "  aftershock simulate --publish tcp://127.0.0.1:7301 --rate 200 --bars 100000\n"
+      "  aftershock simulate --output day.csv --session 08:00-16:30 --utc-offset 60 \\\n"
+      "      --sessions 6 --intraday-shape u --ticks-per-bar 4");
   args.AddOption("symbols", "N",
                  "number of instruments from the built-in universe (beyond 12, "
                  "numbered variants)",
@@ -459,8 +513,27 @@ int SimulateCommand(int argc, char** argv) {
   args.AddOption("interval", "DURATION", "bar spacing: integer and unit ns|us|ms|s|m|h", "1m");
   args.AddOption("periods-per-year", "X",
                  "bars per year that convert the annualized volatilities (auto: 252 days of "
-                 "6.5 h, i.e. 98280 for 1m bars, at least 252)",
+                 "6.5 h, i.e. 98280 for 1m bars, at least 252; with --session 252 * bars per "
+                 "session)",
                  "auto");
+  args.AddOption("session", "HH:MM-HH:MM",
+                 "trading session in local time; ticks only inside, the clock jumps over "
+                 "nights and weekends");
+  args.AddOption("utc-offset", "MINUTES", "local time of --session = UTC + MINUTES", "0");
+  args.AddFlag("every-day", "with --session: sessions on Saturdays and Sundays too");
+  args.AddOption("sessions", "N", "with --session: simulate N whole sessions (replaces --bars)");
+  args.AddOption("overnight-variance", "BARS",
+                 "with --session: variance of the overnight move, in bars of the conditional "
+                 "variance; 0 = none",
+                 "100");
+  args.AddOption("intraday-shape", "SHAPE",
+                 "intraday volatility profile over the session: flat | u (needs --session)", "flat");
+  args.AddOption("intraday-amplitude", "A",
+                 "amplitude of the u shape: open/close variance about 1 + A times midday's", "2");
+  args.AddOption("ticks-per-bar", "N",
+                 "ticks per instrument and bar, at random times inside the bar (1 = one tick at "
+                 "the bar start)",
+                 "1");
   args.AddOption("regime", "SPEC",
                  "variance regime change(s) [SYMBOL@]BAR:MULT[,...]; "
                  "repeatable");
@@ -503,7 +576,65 @@ int SimulateCommand(int argc, char** argv) {
                     args.Get("interval"), "'")),
                 2);
   }
-  double ppy = PeriodsPerYearForInterval(*interval);
+  SessionWindow session;
+  if (args.Has("session")) {
+    if (auto s = ParseSessionOption(args.Get("session"), &session); !s.ok()) return Fail(s, 2);
+    auto offset = args.GetInt("utc-offset");
+    if (!offset.ok() || *offset < -1440 || *offset > 1440) {
+      return Fail(absl::InvalidArgumentError("--utc-offset must be minutes in -1440..1440"), 2);
+    }
+    session.tz_offset_minutes = static_cast<int>(*offset);
+    if (*interval > kNanosPerDay) {
+      return Fail(absl::InvalidArgumentError("--interval must be at most 24h with --session"), 2);
+    }
+  } else {
+    for (const char* name : {"utc-offset", "sessions", "every-day", "overnight-variance"}) {
+      if (args.Has(name)) {
+        return Fail(absl::InvalidArgumentError(absl::StrCat("--", name, " needs --session")), 2);
+      }
+    }
+  }
+  const int64_t session_bars = session.enabled ? BarsPerSession(session, *interval) : 0;
+  if (args.Has("sessions")) {
+    if (args.Has("bars")) {
+      return Fail(absl::InvalidArgumentError("--sessions and --bars exclude each other"), 2);
+    }
+    auto n = args.GetInt("sessions");
+    if (!n.ok() || *n < 1 || *n > 100000) {
+      return Fail(absl::InvalidArgumentError("--sessions must be an integer in 1..100000"), 2);
+    }
+    *bars = *n * session_bars;
+  }
+  auto overnight = args.GetDouble("overnight-variance");
+  if (!overnight.ok() || !(*overnight >= 0) || !std::isfinite(*overnight)) {
+    return Fail(absl::InvalidArgumentError("--overnight-variance must be a number >= 0 (bars)"),
+                2);
+  }
+  const std::string shape = args.Get("intraday-shape");
+  if (shape != "flat" && shape != "u") {
+    return Fail(
+        absl::InvalidArgumentError("--intraday-shape must be flat or u, got '" + shape + "'"), 2);
+  }
+  auto amplitude = args.GetDouble("intraday-amplitude");
+  if (!amplitude.ok() || !(*amplitude >= 0) || !std::isfinite(*amplitude)) {
+    return Fail(absl::InvalidArgumentError("--intraday-amplitude must be a number >= 0"), 2);
+  }
+  if (shape == "u" && !session.enabled) {
+    return Fail(absl::InvalidArgumentError("--intraday-shape u needs --session"), 2);
+  }
+  auto ticks_per_bar = args.GetInt("ticks-per-bar");
+  if (!ticks_per_bar.ok() || *ticks_per_bar < 1 || *ticks_per_bar > kMaxTicksPerBar) {
+    return Fail(absl::InvalidArgumentError(
+                    absl::StrCat("--ticks-per-bar must be an integer in 1..", kMaxTicksPerBar)),
+                2);
+  }
+  if (session.enabled && !args.Has("start")) {
+    // Local midnight of Monday 2026-03-02: the run opens with that day's session.
+    *start = 1772409600LL * kNanosPerSecond -
+             static_cast<int64_t>(session.tz_offset_minutes) * kNanosPerMinute;
+  }
+  double ppy = session.enabled ? 252.0 * static_cast<double>(session_bars)
+                               : PeriodsPerYearForInterval(*interval);
   if (args.Get("periods-per-year") != "auto") {
     auto v = args.GetDouble("periods-per-year");
     if (!v.ok() || !(*v > 0)) {
@@ -639,6 +770,11 @@ int SimulateCommand(int argc, char** argv) {
   so.burn_in = *burn_in;
   so.start_ns = *start;
   so.interval_ns = *interval;
+  so.session = session;
+  so.skip_weekends = !args.Flag("every-day");
+  so.overnight_bars = session.enabled ? *overnight : 0.0;
+  so.intraday_amplitude = shape == "u" ? *amplitude : 0.0;
+  so.ticks_per_bar = static_cast<int>(*ticks_per_bar);
   auto sim = MarketSim::Create(std::move(insts), so);
   if (!sim.ok()) return Fail(sim.status(), 2);
 

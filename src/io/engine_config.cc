@@ -42,6 +42,29 @@ EngineConfig::EngineConfig() {
   model.spec.innovations = Innovations::kStudentT;
 }
 
+int64_t SessionLengthNs(const SessionWindow& s) {
+  if (!s.enabled) return kNanosPerDay;
+  const int64_t minutes = s.end_minute > s.start_minute ? s.end_minute - s.start_minute
+                                                        : s.end_minute + 1440 - s.start_minute;
+  return minutes * kNanosPerMinute;
+}
+
+int64_t BarsPerSession(const SessionWindow& s, int64_t interval_ns) {
+  const int64_t length = SessionLengthNs(s);
+  return (length + interval_ns - 1) / interval_ns;
+}
+
+double AutoPeriodsPerYear(const BarsConfig& bars) {
+  if (bars.interval_ns <= 0) return 252.0;
+  return 252.0 * static_cast<double>(BarsPerSession(bars.session, bars.interval_ns));
+}
+
+void ResolveAutoSettings(EngineConfig* c) {
+  if (c->outputs.periods_per_year_auto) {
+    c->outputs.periods_per_year = AutoPeriodsPerYear(c->bars);
+  }
+}
+
 absl::StatusOr<int64_t> ParseDuration(absl::string_view text) {
   size_t i = 0;
   while (i < text.size() && text[i] >= '0' && text[i] <= '9') ++i;
@@ -558,7 +581,17 @@ absl::Status ParseOutputs(const Section& s, OutputsConfig* c) {
       }
     }
   }
-  AS_RETURN_IF_ERROR(s.Number("periods_per_year", &c->periods_per_year, 0, 1e9, true, false));
+  if (const toml::node* n = s.Node("periods_per_year"); n != nullptr && n->is_string()) {
+    if (n->as_string()->get() != "auto") {
+      return s.KeyError("periods_per_year",
+                        absl::StrCat("expected \"auto\" or a number > 0, got \"",
+                                     n->as_string()->get(), "\""));
+    }
+    c->periods_per_year_auto = true;
+  } else if (n != nullptr) {
+    AS_RETURN_IF_ERROR(s.Number("periods_per_year", &c->periods_per_year, 0, 1e9, true, false));
+    c->periods_per_year_auto = false;
+  }
   int units = static_cast<int>(c->return_units);
   AS_RETURN_IF_ERROR(s.Word("return_units", {"fraction", "percent"}, &units));
   c->return_units = static_cast<ReturnUnits>(units);
@@ -761,6 +794,7 @@ absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::st
   AS_RETURN_IF_ERROR(ParseHttp(section("http"), &c.http));
   AS_RETURN_IF_ERROR(ParseCheckpoint(section("checkpoint"), &c.checkpoint));
   AS_RETURN_IF_ERROR(ParseLog(section("log"), &c.log));
+  ResolveAutoSettings(&c);
   return c;
 }
 
@@ -888,7 +922,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
   for (size_t i = 0; i < c.outputs.risk_levels.size(); ++i) {
     absl::StrAppend(&o, i ? ", " : "", num(c.outputs.risk_levels[i]));
   }
-  absl::StrAppend(&o, "]\nperiods_per_year = ", num(c.outputs.periods_per_year),
+  absl::StrAppend(&o, "]\nperiods_per_year = ",
+                  c.outputs.periods_per_year_auto ? "\"auto\"" : num(c.outputs.periods_per_year),
                   "\nreturn_units = ", Quote(ReturnUnitsName(c.outputs.return_units)),
                   "\ntarget_vol_ann = ", num(c.outputs.target_vol_ann),
                   "\nscale_cap = ", num(c.outputs.scale_cap), "\n");

@@ -5,11 +5,13 @@
 #include <boost/random/mersenne_twister.hpp>
 #include <boost/random/normal_distribution.hpp>
 #include <boost/random/student_t_distribution.hpp>
+#include <boost/random/uniform_01.hpp>
 #include <cmath>
 #include <limits>
 #include <set>
 
 #include "absl/strings/str_cat.h"
+#include "aftershock/engine_config.h"
 #include "aftershock/forecast.h"
 
 namespace aftershock {
@@ -174,10 +176,10 @@ class InstrumentStream {
         active_(inst.params),
         regimes_(inst.regimes),
         rng_(seed),
+        aux_(SplitMix64(seed ^ 0x5EA5010A11D0C0DEull)),
         is_t_(inst.params.spec.innovations == Innovations::kStudentT),
         student_(is_t_ ? inst.params.nu() : 5.0),
-        t_scale_(is_t_ ? std::sqrt((inst.params.nu() - 2.0) / inst.params.nu()) : 1.0),
-        log_price_(std::log(inst.start_price)) {
+        t_scale_(is_t_ ? std::sqrt((inst.params.nu() - 2.0) / inst.params.nu()) : 1.0) {
     const ModelSpec& spec = params_.spec;
     v0_ = params_.UnconditionalVariance();
     mu_ = spec.mean == MeanKind::kZero ? 0.0 : params_.mu();
@@ -220,11 +222,14 @@ class InstrumentStream {
     st_.eps2[0] = e * e;
     st_.neg_eps2[0] = e < 0.0 ? e * e : 0.0;
     st_.sigma2[0] = sigma2;
-    if (bar >= 0) log_price_ += r;
+    last_sigma2_ = sigma2;
     return r;
   }
 
-  double price() const { return std::exp(log_price_); }
+  // Conditional variance of the last Step's bar.
+  double last_sigma2() const { return last_sigma2_; }
+  // Second random stream: overnight moves, tick times, bridge points.
+  boost::random::mt19937_64& aux() { return aux_; }
 
  private:
   ModelParams params_;
@@ -232,11 +237,12 @@ class InstrumentStream {
   std::vector<VarianceRegimeChange> regimes_;
   size_t next_change_ = 0;
   boost::random::mt19937_64 rng_;
+  boost::random::mt19937_64 aux_;
   bool is_t_;
   boost::random::normal_distribution<double> normal_{0.0, 1.0};
   boost::random::student_t_distribution<double> student_;
   double t_scale_;
-  double log_price_;
+  double last_sigma2_ = 0;
   double v0_ = 0;
   double mu_ = 0;
   int64_t t_ = 0;
@@ -246,17 +252,134 @@ class InstrumentStream {
 
 }  // namespace
 
+// One tick of the bar being emitted.
+struct PendingTick {
+  int64_t t_ns;
+  int32_t inst;
+  double price;
+  double ret;  // log-price increment since the instrument's previous tick
+};
+
 struct MarketSim::Impl {
   std::vector<MarketInstrument> instruments;
   MarketSimOptions options;
   std::vector<InstrumentStream> streams;
-  int64_t bar = 0;
-  size_t next = 0;  // instrument index within the bar
+  std::vector<double> log_price;  // per instrument, at its last tick
+  int64_t bar = 0;                // next bar to generate
   int64_t emitted = 0;
+  // Session clock (session.enabled): open of the current session (UTC ns),
+  // its local day, the bar of the session the next bar has, bars per session.
+  int64_t session_open_ns = 0;
+  int64_t session_day = 0;
+  int64_t session_k = 0;
+  int64_t session_bars = 0;
+  int64_t session_length_ns = 0;
+  std::vector<double> profile;  // s(k) per bar of the session (empty: flat)
+  // The bar being emitted.
+  std::vector<PendingTick> pending;
+  size_t pending_next = 0;
+  std::vector<double> uniforms;  // scratch, ticks_per_bar
+
+  int64_t OpenOf(int64_t day) const {
+    return day * kNanosPerDay + options.session.start_minute * kNanosPerMinute -
+           static_cast<int64_t>(options.session.tz_offset_minutes) * kNanosPerMinute;
+  }
+  bool Trades(int64_t day) const {
+    // 1970-01-01 (day 0) was a Thursday: (day + 4) mod 7 is 0 on Sundays.
+    const int64_t dow = ((day + 4) % 7 + 7) % 7;
+    return !options.skip_weekends || (dow != 0 && dow != 6);
+  }
+  void FillBar();
 };
+
+void MarketSim::Impl::FillBar() {
+  const MarketSimOptions& o = options;
+  const bool session = o.session.enabled;
+  int64_t bar_start = 0;
+  int64_t bar_length = o.interval_ns;
+  bool new_session = false;
+  double scale = 1.0;
+  if (session) {
+    if (session_k == session_bars) {  // the clock jumps to the next session's open
+      do {
+        ++session_day;
+      } while (!Trades(session_day));
+      session_open_ns = OpenOf(session_day);
+      session_k = 0;
+    }
+    new_session = session_k == 0 && bar > 0;
+    bar_start = session_open_ns + session_k * o.interval_ns;
+    bar_length = std::min(o.interval_ns, session_open_ns + session_length_ns - bar_start);
+    if (!profile.empty()) scale = profile[static_cast<size_t>(session_k)];
+    ++session_k;
+  } else {
+    bar_start = o.start_ns + bar * o.interval_ns;
+  }
+  pending.clear();
+  pending_next = 0;
+  const int n = o.ticks_per_bar;
+  boost::random::normal_distribution<double> normal(0.0, 1.0);
+  boost::random::uniform_01<double> uniform;
+  for (size_t j = 0; j < streams.size(); ++j) {
+    InstrumentStream& s = streams[j];
+    const double y = s.Step(bar);
+    const double r = scale * y;
+    double overnight = 0.0;
+    if (new_session && o.overnight_bars > 0) {
+      overnight = std::sqrt(o.overnight_bars * s.last_sigma2()) * normal(s.aux());
+    }
+    const double base = log_price[j] + overnight;
+    if (n == 1) {
+      log_price[j] += overnight + r;
+      pending.push_back({bar_start, static_cast<int32_t>(j), std::exp(log_price[j]), overnight + r});
+      continue;
+    }
+    for (double& u : uniforms) u = uniform(s.aux());
+    std::sort(uniforms.begin(), uniforms.end());
+    const double last_u = uniforms.back();
+    // Brownian bridge from 0 (the previous close plus the overnight move) to
+    // r at the last tick, over bridge time tau = u / u_last in [0, 1].
+    const double var = scale * scale * s.last_sigma2();
+    double x = 0.0, tau = 0.0, prev_x = 0.0;
+    for (int m = 0; m < n; ++m) {
+      const double u = uniforms[static_cast<size_t>(m)];
+      if (m == n - 1) {
+        x = r;
+      } else {
+        const double next_tau =
+            last_u > 0 ? u / last_u : static_cast<double>(m + 1) / static_cast<double>(n);
+        const double dt = next_tau - tau;
+        const double rest = 1.0 - tau;
+        const double mean = x + (r - x) * dt / rest;
+        const double v = std::max(0.0, var * dt * (1.0 - next_tau) / rest);
+        x = mean + std::sqrt(v) * normal(s.aux());
+        tau = next_tau;
+      }
+      const int64_t t =
+          bar_start + std::min<int64_t>(bar_length - 1, static_cast<int64_t>(
+                                                            u * static_cast<double>(bar_length)));
+      pending.push_back({t, static_cast<int32_t>(j), std::exp(base + x),
+                         (m == 0 ? overnight : 0.0) + (x - prev_x)});
+      prev_x = x;
+    }
+    log_price[j] = base + r;
+  }
+  if (n > 1) {
+    std::stable_sort(pending.begin(), pending.end(),
+                     [](const PendingTick& a, const PendingTick& b) { return a.t_ns < b.t_ns; });
+  }
+  ++bar;
+}
 
 MarketSim::MarketSim(std::unique_ptr<Impl> impl) : impl_(std::move(impl)) {}
 MarketSim::~MarketSim() = default;
+
+double IntradayMultiplier(int64_t k, int64_t bars_per_session, double amplitude) {
+  const double kk = static_cast<double>(bars_per_session);
+  const double x = (2.0 * static_cast<double>(k) + 1.0) / kk - 1.0;
+  const double mean = 1.0 + amplitude * (kk * kk - 1.0) / (3.0 * kk * kk);
+  return std::sqrt((1.0 + amplitude * x * x) / mean);
+}
 
 absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
     std::vector<MarketInstrument> instruments, const MarketSimOptions& o) {
@@ -270,9 +393,42 @@ absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
     return absl::InvalidArgumentError(
         absl::StrCat("bar interval must be > 0 ns, got ", o.interval_ns));
   }
-  if (o.start_ns < 0 ||
-      o.bars - 1 > (std::numeric_limits<int64_t>::max() - o.start_ns) / o.interval_ns) {
-    return absl::InvalidArgumentError("start time + bars * interval overflows the ns clock");
+  if (o.ticks_per_bar < 1 || o.ticks_per_bar > kMaxTicksPerBar) {
+    return absl::InvalidArgumentError(absl::StrCat("ticks per bar must be in 1..", kMaxTicksPerBar,
+                                                   ", got ", o.ticks_per_bar));
+  }
+  if (!(std::isfinite(o.intraday_amplitude) && o.intraday_amplitude >= 0)) {
+    return absl::InvalidArgumentError("intraday amplitude must be a number >= 0");
+  }
+  if (!(std::isfinite(o.overnight_bars) && o.overnight_bars >= 0)) {
+    return absl::InvalidArgumentError("overnight variance (bars) must be a number >= 0");
+  }
+  if (o.intraday_amplitude > 0 && !o.session.enabled) {
+    return absl::InvalidArgumentError("an intraday profile needs a session");
+  }
+  if (o.start_ns < 0 || o.start_ns > kMaxBarTimeNs) {
+    return absl::InvalidArgumentError("start time must be in [0, 2^62] ns");
+  }
+  if (!o.session.enabled) {
+    if (o.bars - 1 > (kMaxBarTimeNs - o.start_ns) / o.interval_ns) {
+      return absl::InvalidArgumentError("start time + bars * interval overflows the ns clock");
+    }
+  } else {
+    const SessionWindow& w = o.session;
+    if (w.start_minute < 0 || w.start_minute > 1439 || w.end_minute < 1 || w.end_minute > 1440 ||
+        w.start_minute == w.end_minute % 1440 || w.tz_offset_minutes < -1440 ||
+        w.tz_offset_minutes > 1440) {
+      return absl::InvalidArgumentError("bad session (start 00:00..23:59, end 00:01..24:00, "
+                                        "start != end, UTC offset within a day)");
+    }
+    if (o.interval_ns > kNanosPerDay) {
+      return absl::InvalidArgumentError("with a session the bar interval must be at most 1 day");
+    }
+    // Calendar days needed, with room for weekends and the partial first day.
+    const int64_t sessions = o.bars / BarsPerSession(w, o.interval_ns) + 2;
+    if (sessions > (kMaxBarTimeNs - o.start_ns) / kNanosPerDay / 2) {
+      return absl::InvalidArgumentError("start time + bars overflows the ns clock");
+    }
   }
   std::set<std::string> seen;
   for (const auto& inst : instruments) {
@@ -315,32 +471,63 @@ absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
     impl->streams.emplace_back(inst, InstrumentSeed(o.seed, inst.symbol));
     // Burn-in: bars before output bar 0 are drawn and discarded.
     for (int64_t b = -o.burn_in; b < 0; ++b) impl->streams.back().Step(b);
+    impl->log_price.push_back(std::log(inst.start_price));
   }
+  if (o.session.enabled) {
+    Impl& m = *impl;
+    m.session_bars = BarsPerSession(o.session, o.interval_ns);
+    m.session_length_ns = SessionLengthNs(o.session);
+    // The first trading session whose last bar starts at or after start_ns
+    // (it may have opened the local day before, over midnight).
+    const int64_t local = o.start_ns + static_cast<int64_t>(o.session.tz_offset_minutes) *
+                                           kNanosPerMinute;
+    int64_t day = local / kNanosPerDay - 1;
+    for (;; ++day) {
+      if (!m.Trades(day)) continue;
+      const int64_t open = m.OpenOf(day);
+      if (open + (m.session_bars - 1) * o.interval_ns >= o.start_ns) {
+        m.session_day = day;
+        m.session_open_ns = open;
+        m.session_k =
+            open >= o.start_ns ? 0 : (o.start_ns - open + o.interval_ns - 1) / o.interval_ns;
+        break;
+      }
+    }
+    if (m.session_open_ns < 0) {
+      return absl::InvalidArgumentError("the first session opens before the Unix epoch");
+    }
+    if (o.intraday_amplitude > 0) {
+      for (int64_t k = 0; k < m.session_bars; ++k) {
+        m.profile.push_back(IntradayMultiplier(k, m.session_bars, o.intraday_amplitude));
+      }
+    }
+  }
+  impl->uniforms.resize(static_cast<size_t>(o.ticks_per_bar));
+  impl->pending.reserve(instruments.size() * static_cast<size_t>(o.ticks_per_bar));
   impl->instruments = std::move(instruments);
   return std::unique_ptr<MarketSim>(new MarketSim(std::move(impl)));
 }
 
 bool MarketSim::Next(Tick::Kind field, Tick* tick) {
   Impl& m = *impl_;
-  if (m.bar >= m.options.bars) return false;
-  InstrumentStream& s = m.streams[m.next];
-  const double r = s.Step(m.bar);
-  tick->symbol.assign(m.instruments[m.next].symbol);
-  tick->t_ns = m.options.start_ns + m.bar * m.options.interval_ns;
+  if (m.pending_next == m.pending.size()) {
+    if (m.bar >= m.options.bars) return false;
+    m.FillBar();
+  }
+  const PendingTick& p = m.pending[m.pending_next++];
+  tick->symbol.assign(m.instruments[static_cast<size_t>(p.inst)].symbol);
+  tick->t_ns = p.t_ns;
   tick->kind = field;
-  tick->value = field == Tick::kPrice ? s.price() : r;
+  tick->value = field == Tick::kPrice ? p.price : p.ret;
   tick->size = 0;
   tick->rv = std::numeric_limits<double>::quiet_NaN();
   ++m.emitted;
-  if (++m.next == m.streams.size()) {
-    m.next = 0;
-    ++m.bar;
-  }
   return true;
 }
 
 int64_t MarketSim::total_ticks() const {
-  return impl_->options.bars * static_cast<int64_t>(impl_->instruments.size());
+  return impl_->options.bars * static_cast<int64_t>(impl_->instruments.size()) *
+         impl_->options.ticks_per_bar;
 }
 int64_t MarketSim::ticks_emitted() const { return impl_->emitted; }
 const std::vector<MarketInstrument>& MarketSim::instruments() const { return impl_->instruments; }

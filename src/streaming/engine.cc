@@ -52,10 +52,15 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::Create(const EngineConfig& confi
   e->sink_ = std::move(sink);
   e->core_ = *std::move(core);
   e->loop_ = std::make_unique<Loop>();
+  // The window starts empty-handed: its first sample is the zero counters now.
+  e->reject_window_ = std::make_unique<RejectWindow>();
+  e->reject_window_->Sample(e->core_->counters(), clock->NowNs());
   if (options.serve_http && config.http.enabled) {
     IngestCore* core_ptr = e->core_.get();
+    RejectWindow* window = e->reject_window_.get();
     auto http = MetricsHttpServer::Start(
-        &e->loop_->io, config.http.endpoint, [core_ptr] { return FormatHealthJson(*core_ptr); },
+        &e->loop_->io, config.http.endpoint,
+        [core_ptr, window, clock] { return CheckHealth(*core_ptr, *window, clock->NowNs()); },
         [core_ptr] { return FormatPrometheusMetrics(*core_ptr); });
     if (!http.ok()) return http.status();
     e->http_ = *std::move(http);
@@ -85,6 +90,10 @@ Engine::~Engine() {
 }
 
 bool Engine::running() const { return loop_->running.load(); }
+
+HealthStatus Engine::Health() const {
+  return CheckHealth(*core_, *reject_window_, clock_->NowNs());
+}
 
 std::string Engine::HttpEndpoint() const { return http_ ? http_->endpoint() : ""; }
 
@@ -140,7 +149,9 @@ absl::Status Engine::Run() {
     L.timer->expires_after(period);
     L.timer->async_wait([&](const boost::system::error_code& ec) {
       if (ec) return;
-      core_->OnClock(clock_->NowNs());
+      const int64_t now = clock_->NowNs();
+      core_->OnClock(now);
+      reject_window_->Sample(core_->counters(), now);
       schedule();
     });
   };

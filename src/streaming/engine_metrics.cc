@@ -56,10 +56,70 @@ std::string FormatPrometheusMetrics(const IngestCore& core) {
   return o;
 }
 
-std::string FormatHealthJson(const IngestCore& core) {
+void RejectWindow::Sample(const EngineCounters& c, int64_t now_ns) {
+  if (count_ > 0) {
+    const Point& last = ring_[(next_ + kSlots - 1) % kSlots];
+    if (now_ns < last.t_ns + kNanosPerSecond) return;
+  }
+  Point& p = ring_[next_];
+  p.t_ns = now_ns;
+  p.accepted = c.ticks_accepted;
+  p.rejects = c.rejects;
+  next_ = (next_ + 1) % kSlots;
+  if (count_ < kSlots) ++count_;
+}
+
+void RejectWindow::Recent(const EngineCounters& c, int64_t now_ns, uint64_t* inputs,
+                          RejectCounters* rejects) const {
+  // The oldest sample inside the window; none: every input since start.
+  const Point* base = nullptr;
+  for (int i = count_; i >= 1; --i) {
+    const Point& p = ring_[(next_ + kSlots - i) % kSlots];
+    if (p.t_ns >= now_ns - kWindowNs) {
+      base = &p;
+      break;
+    }
+  }
+  if (base == nullptr && count_ > 0) base = &ring_[(next_ + kSlots - 1) % kSlots];
+  *rejects = c.rejects;
+  uint64_t accepted = c.ticks_accepted;
+  if (base != nullptr) {
+    accepted -= base->accepted;
+    for (int i = 0; i < kNumRejectReasons; ++i) rejects->by_reason[i] -= base->rejects.by_reason[i];
+  }
+  *inputs = accepted + rejects->Total();
+}
+
+HealthStatus CheckHealth(const IngestCore& core, const RejectWindow& window, int64_t now_ns) {
   const EngineCounters& c = core.counters();
-  return absl::StrCat("{\"status\":\"ok\",\"symbols\":", c.symbols, ",\"updates\":", c.updates_out,
-                      ",\"rejects\":", c.RejectTotal(), "}\n");
+  uint64_t inputs = 0;
+  RejectCounters recent;
+  window.Recent(c, now_ns, &inputs, &recent);
+  const uint64_t rejected = recent.Total();
+  HealthStatus h;
+  h.degraded = inputs >= kDegradedMinInputs &&
+               static_cast<double>(rejected) > kDegradedRejectShare * static_cast<double>(inputs);
+  if (h.degraded) {
+    int top = 0;
+    for (int i = 1; i < kNumRejectReasons; ++i) {
+      if (recent.by_reason[i] > recent.by_reason[top]) top = i;
+    }
+    h.reason = absl::StrCat(
+        static_cast<int>(100.0 * static_cast<double>(rejected) / static_cast<double>(inputs)),
+        "% of inputs rejected in the last minute (", rejected, " of ", inputs, "; most ",
+        RejectReasonName(static_cast<RejectReason>(top)), " ", recent.by_reason[top], ")");
+  }
+  h.json = absl::StrCat("{\"status\":\"", h.degraded ? "degraded" : "ok", "\",\"symbols\":", c.symbols,
+                        ",\"updates\":", c.updates_out, ",\"rejects\":", c.RejectTotal(),
+                        ",\"recent_inputs\":", inputs, ",\"recent_rejects\":", rejected);
+  // The reason holds only digits, letters, '%', '(', ')', ';', '_' and spaces: no escaping.
+  if (h.degraded) absl::StrAppend(&h.json, ",\"reason\":\"", h.reason, "\"");
+  absl::StrAppend(&h.json, "}\n");
+  return h;
+}
+
+std::string FormatHealthJson(const IngestCore& core) {
+  return CheckHealth(core, RejectWindow(), 0).json;
 }
 
 }  // namespace aftershock

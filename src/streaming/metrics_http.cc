@@ -17,7 +17,8 @@ using tcp = boost::asio::ip::tcp;
 struct MetricsHttpServer::Impl : std::enable_shared_from_this<MetricsHttpServer::Impl> {
   explicit Impl(asio::io_context* io) : acceptor(*io) {}
   tcp::acceptor acceptor;
-  Render health, metrics;
+  HealthRender health;
+  Render metrics;
   bool closed = false;
 
   void Accept() {
@@ -44,9 +45,11 @@ struct MetricsHttpServer::Impl : std::enable_shared_from_this<MetricsHttpServer:
                          res->set(http::field::allow, "GET");
                          res->body() = "only GET\n";
                        } else if (target == "/health") {
-                         res->result(http::status::ok);
+                         HealthStatus h = self->health();
+                         res->result(h.degraded ? http::status::service_unavailable
+                                                : http::status::ok);
                          res->set(http::field::content_type, "application/json");
-                         res->body() = self->health();
+                         res->body() = std::move(h.json);
                        } else if (target == "/metrics") {
                          res->result(http::status::ok);
                          res->set(http::field::content_type, "text/plain; version=0.0.4");
@@ -66,7 +69,7 @@ struct MetricsHttpServer::Impl : std::enable_shared_from_this<MetricsHttpServer:
 };
 
 absl::StatusOr<std::unique_ptr<MetricsHttpServer>> MetricsHttpServer::Start(
-    asio::io_context* io, const std::string& endpoint, Render health, Render metrics) {
+    asio::io_context* io, const std::string& endpoint, HealthRender health, Render metrics) {
   const size_t colon = endpoint.rfind(':');
   int port = -1;
   if (colon != std::string::npos) {

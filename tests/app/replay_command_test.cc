@@ -8,6 +8,7 @@
 
 #include <catch2/catch.hpp>
 #include <chrono>
+#include <map>
 #include <fstream>
 #include <nlohmann/json.hpp>
 #include <sstream>
@@ -15,6 +16,7 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_split.h"
+#include "aftershock/tick_file.h"
 #include "aftershock/update_codec.h"
 #include "streaming/engine_test_util.h"
 #include "support/test_support.h"
@@ -22,6 +24,7 @@
 namespace aftershock {
 namespace {
 
+using testing::HttpGet;
 using testing::RunCli;
 constexpr int64_t kT0 = 1772443800000000000;
 
@@ -120,6 +123,118 @@ TEST_CASE("replay output is byte-identical on repeated runs (time bars, prices)"
   CHECK(stale > 0);
 }
 
+// The shipped intraday example and the simulator agree out of the box: same
+// session, same encoding, a first model inside the first session.
+TEST_CASE("simulate output replays with config/example-intraday.toml: no rejects, models, alerts",
+          "[app][replay]") {
+  const std::string dir = testing::ScratchDir("replay_example_intraday");
+  // Two sessions of 510 one-minute bars; SKJOLD.GAS's variance x9 from bar
+  // 700 (2026-03-03 11:10 local, 10:10Z).
+  const auto sim = RunCli({"simulate", "--session", "08:00-16:30", "--utc-offset", "60",
+                           "--sessions", "2", "--intraday-shape", "u", "--regime",
+                           "SKJOLD.GAS@700:9", "--output", dir + "/ticks.csv", "--quiet"});
+  INFO(sim.err);
+  REQUIRE(sim.exit_code == 0);
+  const auto r = RunCli(
+      {"replay", "--config", std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml",
+       "--input", dir + "/ticks.csv", "--output", dir + "/u.jsonl", "--alerts",
+       dir + "/a.jsonl", "--models", dir + "/m.jsonl"});
+  INFO(r.err);
+  REQUIRE(r.exit_code == 0);
+  CHECK(r.err.find("replay: 12240 ticks, 12240 bars, ") != std::string::npos);
+  CHECK(r.err.find(", 0 rejects, 12 symbols") != std::string::npos);
+  CHECK(r.err.find("warning") == std::string::npos);  // nothing contradicts
+  // The last update of each symbol: version 1 is the configured starting
+  // model, so version >= 2 means a refit was swapped in.
+  std::map<std::string, uint32_t> last_version;
+  for (const std::string& line : Lines(testing::ReadFileOrDie(dir + "/u.jsonl"))) {
+    const auto j = nlohmann::json::parse(line);
+    last_version[j["s"].get<std::string>()] = j["ver"].get<uint32_t>();
+  }
+  REQUIRE(last_version.size() == 12);
+  int refitted = 0;
+  for (const auto& [sym, ver] : last_version) refitted += ver >= 2 ? 1 : 0;
+  CHECK(refitted >= 10);
+  // Alerts work: shocks, and the variance jump is seen within 60 bars.
+  const int64_t jump = *ParseTickTime("2026-03-03T10:10:00Z");
+  int shocks = 0;
+  int64_t first_high = -1;
+  for (const std::string& line : Lines(testing::ReadFileOrDie(dir + "/a.jsonl"))) {
+    const auto j = nlohmann::json::parse(line);
+    if (j["kind"] == "shock") ++shocks;
+    if (j["s"] == "SKJOLD.GAS" && j["kind"] == "regime" && j["rule"] == "regime_high" &&
+        j["t"].get<int64_t>() >= jump && first_high < 0) {
+      first_high = j["t"].get<int64_t>();
+    }
+  }
+  CHECK(shocks >= 1);
+  REQUIRE(first_high >= 0);
+  CHECK(first_high - jump <= 60 * 60 * kNanosPerSecond);
+}
+
+TEST_CASE("replay ends with warnings when the settings contradict the input", "[app][replay]") {
+  const std::string dir = testing::ScratchDir("replay_warnings");
+  // One session of simulated 1m prices against the old intraday example: a
+  // binary feed, an annualization for another session, min_bars of two days,
+  // and a session an hour off the data (UTC+2 instead of UTC+1).
+  const auto sim = RunCli({"simulate", "--symbols", "3", "--session", "08:00-16:30",
+                           "--utc-offset", "60", "--sessions", "1", "--output",
+                           dir + "/ticks.csv", "--quiet"});
+  REQUIRE(sim.exit_code == 0);
+  const std::string cfg = testing::WriteFile(
+      dir + "/c.toml",
+      "[feed]\nencoding = \"binary\"\n[bars]\ninterval = \"1m\"\nsession = { start = \"08:00\", "
+      "end = \"16:30\", timezone_offset_minutes = 120 }\n[outputs]\nperiods_per_year = 252\n"
+      "[refit]\nmin_bars = 1020\n");
+  const auto r = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv", "--output",
+                         dir + "/u.jsonl", "--quiet"});
+  INFO(r.err);
+  REQUIRE(r.exit_code == 0);
+  CHECK(r.err.find("replay: warning: [outputs] periods_per_year = 252, but [bars] interval "
+                   "\"1m\" with a 08:00-16:30 session gives 128520 bars a year") !=
+        std::string::npos);
+  CHECK(r.err.find("replay: warning: [refit] min_bars = 1020 is longer than one session (510 "
+                   "bars of 1m)") != std::string::npos);
+  CHECK(r.err.find("replay: warning: [refit] min_bars = 1020, but no symbol had more than 450 "
+                   "bars in this input") != std::string::npos);
+  CHECK(r.err.find("replay: warning: [feed] encoding = \"binary\": replay reads the tick file") !=
+        std::string::npos);
+  CHECK(r.err.find("replay: warning: no symbol got a fitted model (all 3 ended on version 0") !=
+        std::string::npos);
+  // 60 of 510 bars of each symbol fall outside the shifted session: not most.
+  CHECK(r.err.find("most inputs were rejected") == std::string::npos);
+  // Shifted by the whole session: every tick is outside, and the replay says so.
+  const std::string off = testing::WriteFile(
+      dir + "/off.toml",
+      "[bars]\ninterval = \"1m\"\nsession = { start = \"20:00\", end = \"23:00\" }\n");
+  const auto all = RunCli({"replay", "--config", off, "--input", dir + "/ticks.csv", "--output",
+                           dir + "/u2.jsonl", "--quiet"});
+  INFO(all.err);
+  CHECK(all.err.find("replay: warning: most inputs were rejected: 1530 of 1530 (100%; "
+                     "outside_session 1530): check [bars] session and timezone_offset_minutes") !=
+        std::string::npos);
+}
+
+TEST_CASE("run --check prints warnings for contradicting settings", "[app][run]") {
+  const std::string dir = testing::ScratchDir("run_check_warnings");
+  const std::string cfg = testing::WriteFile(
+      dir + "/c.toml",
+      "[bars]\ninterval = \"1m\"\n[outputs]\nperiods_per_year = 252\n[refit]\nevery_bars = 0\n");
+  const auto r = RunCli({"run", "--config", cfg, "--check"});
+  INFO(r.out << r.err);
+  CHECK(r.exit_code == 0);
+  CHECK(r.out.find("configuration OK") != std::string::npos);
+  CHECK(r.out.find("warning: [outputs] periods_per_year = 252, but [bars] interval \"1m\" gives "
+                   "362880 bars a year") != std::string::npos);
+  CHECK(r.out.find("warning: refits are off") != std::string::npos);
+  const auto clean = RunCli(
+      {"run", "--config", std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml",
+       "--check"});
+  CHECK(clean.exit_code == 0);
+  CHECK(clean.out.find("(128520 a year, auto)") != std::string::npos);
+  CHECK(clean.out.find("warning") == std::string::npos);
+}
+
 TEST_CASE("replay and run: clear errors, exit 2", "[app][replay]") {
   const std::string dir = testing::ScratchDir("replay_errors");
   const std::string good = testing::WriteFile(dir + "/good.toml", "[bars]\ninterval = \"0s\"\n");
@@ -170,27 +285,6 @@ int FreePort() {
   }
   close(fd);
   return ntohs(a.sin_port);
-}
-
-// A minimal HTTP/1.1 GET over loopback; returns the whole response.
-std::string HttpGet(int port, const std::string& path) {
-  const int fd = socket(AF_INET, SOCK_STREAM, 0);
-  sockaddr_in a{};
-  a.sin_family = AF_INET;
-  a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
-  a.sin_port = htons(static_cast<uint16_t>(port));
-  if (connect(fd, reinterpret_cast<sockaddr*>(&a), sizeof(a)) != 0) {
-    close(fd);
-    return "";
-  }
-  const std::string req = "GET " + path + " HTTP/1.1\r\nHost: 127.0.0.1\r\n\r\n";
-  (void)!write(fd, req.data(), req.size());
-  std::string out;
-  char buf[4096];
-  ssize_t n;
-  while ((n = read(fd, buf, sizeof(buf))) > 0) out.append(buf, static_cast<size_t>(n));
-  close(fd);
-  return out;
 }
 
 TEST_CASE("SIGTERM on `aftershock run`: flushes and exits 0; health and metrics", "[app][run]") {

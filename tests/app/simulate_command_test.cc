@@ -13,6 +13,7 @@
 #include <thread>
 #include <zmq.hpp>
 
+#include "aftershock/bar_builder.h"
 #include "aftershock/market_sim.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/wire.h"
@@ -199,12 +200,59 @@ TEST_CASE("simulate reports bad usage with a clear message") {
   auto many = RunCli({"simulate", "--output", "-", "--symbols", "99999999999"});
   CHECK(many.exit_code == 2);
   CHECK(many.err == "aftershock simulate: --symbols must be in 1..10000, got 99999999999\n");
+  auto shape = RunCli({"simulate", "--output", "-", "--intraday-shape", "u"});
+  CHECK(shape.exit_code == 2);
+  CHECK(shape.err == "aftershock simulate: --intraday-shape u needs --session\n");
+  auto session = RunCli({"simulate", "--output", "-", "--session", "16:30-08:00x"});
+  CHECK(session.exit_code == 2);
+  CHECK(session.err.find("--session: expected local times HH:MM-HH:MM") != std::string::npos);
+  auto sessions = RunCli({"simulate", "--output", "-", "--sessions", "2"});
+  CHECK(sessions.err == "aftershock simulate: --sessions needs --session\n");
+  auto tpb = RunCli({"simulate", "--output", "-", "--ticks-per-bar", "0"});
+  CHECK(tpb.err == "aftershock simulate: --ticks-per-bar must be an integer in 1..1000\n");
   auto help = RunCli({"simulate", "--help"});
   CHECK(help.exit_code == 0);
   for (const char* opt : {"--symbols", "--universe", "--model", "--regime", "--publish", "--rate",
-                          "--encoding", "--batch", "--wait-subscribers", "--field"}) {
+                          "--encoding", "--batch", "--wait-subscribers", "--field", "--session",
+                          "--utc-offset", "--sessions", "--every-day", "--overnight-variance",
+                          "--intraday-shape", "--intraday-amplitude", "--ticks-per-bar"}) {
     CHECK(help.out.find(opt) != std::string::npos);
   }
+}
+
+TEST_CASE("simulate --session: whole sessions in local time, U shape, several ticks a bar") {
+  const std::string dir = ScratchDir("simulate_session");
+  const std::string path = dir + "/s.csv";
+  auto r = RunCli({"simulate", "--symbols", "2", "--session", "08:00-16:30", "--utc-offset", "60",
+                   "--sessions", "3", "--intraday-shape", "u", "--ticks-per-bar", "3", "--output",
+                   path, "--quiet"});
+  INFO(r.err);
+  REQUIRE(r.exit_code == 0);
+  // 510 one-minute bars a session, 3 sessions, 2 symbols, 3 ticks a bar.
+  CHECK(r.err.find("wrote 9180 ticks (2 symbols)") != std::string::npos);
+  auto ticks = ReadTicks(path);
+  REQUIRE(ticks.size() == 9180);
+  SessionWindow w;
+  w.enabled = true;
+  w.start_minute = 480;
+  w.end_minute = 990;
+  w.tz_offset_minutes = 60;
+  // Monday 2026-03-02 08:00 local (07:00Z) is the first session's open
+  // (calendar checked with Python's datetime).
+  const int64_t open = *ParseTickTime("2026-03-02T07:00:00Z");
+  std::set<int64_t> days;
+  for (size_t i = 0; i < ticks.size(); ++i) {
+    CHECK(InSession(w, ticks[i].t_ns));
+    CHECK(ticks[i].t_ns >= open);
+    if (i > 0) CHECK(ticks[i].t_ns >= ticks[i - 1].t_ns);
+    days.insert((ticks[i].t_ns - open) / (24 * 3600 * 1000000000LL));
+  }
+  CHECK(days == std::set<int64_t>{0, 1, 2});
+  // The first bar's ticks lie inside [07:00, 07:01)Z.
+  CHECK(ticks[0].t_ns < open + 60 * 1000000000LL);
+  // --list prints the bars per year used for the session: 252 * 510.
+  auto list = RunCli({"simulate", "--session", "08:00-16:30", "--list"});
+  CHECK(list.out.find("per-bar parameters use 128520 bars per year") != std::string::npos);
 }
 
 // Receives ticks on a SUB socket (connected BEFORE the publisher starts: the

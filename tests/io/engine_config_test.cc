@@ -34,14 +34,16 @@ TEST_CASE("an empty document gives the documented defaults", "[engine_config]") 
   CHECK(c->warmup.min_bars == 2);
   CHECK(c->outputs.horizons == std::vector<int>{1, 5, 20});
   CHECK(c->outputs.risk_levels == std::vector<double>{0.99, 0.975});
-  CHECK(c->outputs.periods_per_year == 252);
+  CHECK(c->outputs.periods_per_year_auto);
+  CHECK(c->outputs.periods_per_year == 252);  // auto with "0s" bars
   CHECK(c->outputs.return_units == ReturnUnits::kFraction);
   CHECK(c->outputs.target_vol_ann == 0.10);
   CHECK(c->outputs.scale_cap == 3.0);
   CHECK(c->limits.max_symbols == 10000);
-  CHECK(c->refit.every_bars == 0);
+  CHECK(c->refit.every_bars == 100);
+  CHECK(c->refit.every_seconds == 0);
   CHECK(c->refit.window == 2000);
-  CHECK(c->refit.min_bars == 250);
+  CHECK(c->refit.min_bars == 200);
   CHECK(c->refit.workers == 1);
   CHECK(c->refit.reidentify_every == 10);
   CHECK(c->refit.max_persistence == 0.9995);
@@ -87,8 +89,12 @@ TEST_CASE("both shipped configuration files parse", "[engine_config]") {
   REQUIRE(e->model.has_params);
   CHECK(*e->model.params.Get("gamma1") == 0.05);
   CHECK(e->outputs.return_units == ReturnUnits::kPercent);
-  CHECK(e->feed.encoding == WireEncoding::kBinary);
-  CHECK(e->feed.endpoints.size() == 2);
+  // What `aftershock simulate --publish` sends by default.
+  CHECK(e->feed.encoding == WireEncoding::kJson);
+  CHECK(e->feed.endpoints.size() == 1);
+  CHECK(e->outputs.periods_per_year_auto);
+  CHECK(e->outputs.periods_per_year == 252 * 510);
+  CHECK(e->refit.min_bars <= 510);  // the first model inside the first session
   auto missing = LoadEngineConfigFile("/nonexistent/x.toml");
   CHECK(std::string(missing.status().message()) ==
         "/nonexistent/x.toml: cannot open configuration file");
@@ -113,6 +119,50 @@ TEST_CASE("a full configuration round-trips through FormatEngineConfig", "[engin
   CHECK(back->publish.curve_secret_key == c.publish.curve_secret_key);
   CHECK(back->model.params.values == c.model.params.values);
   CHECK(back->bars.session.end_minute == 990);
+}
+
+TEST_CASE("periods_per_year: auto from the bar interval and session, or a number",
+          "[engine_config]") {
+  // 252 trading days times the bars of a day (the session, or 24 h).
+  auto ppy = [](const std::string& toml) {
+    auto c = ParseEngineConfig(toml, "p.toml");
+    INFO(toml << (c.ok() ? "" : std::string(c.status().message())));
+    REQUIRE(c.ok());
+    return c->outputs.periods_per_year;
+  };
+  CHECK(ppy("") == 252);
+  CHECK(ppy("[outputs]\nperiods_per_year = \"auto\"\n") == 252);
+  CHECK(ppy("[bars]\ninterval = \"1m\"\n") == 252 * 1440);
+  CHECK(ppy("[bars]\ninterval = \"5m\"\n") == 252 * 288);
+  CHECK(ppy("[bars]\ninterval = \"1m\"\nsession = { start = \"09:30\", end = \"16:00\" }\n") ==
+        98280);
+  CHECK(ppy("[bars]\ninterval = \"1m\"\nsession = { start = \"08:00\", end = \"16:30\" }\n") ==
+        128520);
+  // 7 h at 1h bars: 7 bars; 6.5 h at 1h bars: 7 bars (the last is 30 minutes).
+  CHECK(ppy("[bars]\ninterval = \"1h\"\nsession = { start = \"09:30\", end = \"16:00\" }\n") ==
+        252 * 7);
+  // Over midnight: 22:00-06:00 is 8 h.
+  CHECK(ppy("[bars]\ninterval = \"1m\"\nsession = { start = \"22:00\", end = \"06:00\" }\n") ==
+        252 * 480);
+  CHECK(ppy("[bars]\ninterval = \"1m\"\n[outputs]\nperiods_per_year = 252\n") == 252);
+  auto bad = ParseEngineConfig("[outputs]\nperiods_per_year = \"daily\"\n", "p.toml");
+  REQUIRE_FALSE(bad.ok());
+  CHECK(std::string(bad.status().message()) ==
+        "p.toml:2: [outputs] periods_per_year: expected \"auto\" or a number > 0, got \"daily\"");
+  // The round trip keeps "auto" (not the derived number) and a number.
+  auto a = ParseEngineConfig("[bars]\ninterval = \"1m\"\n", "p.toml");
+  REQUIRE(a.ok());
+  CHECK(FormatEngineConfig(*a).find("periods_per_year = \"auto\"\n") != std::string::npos);
+  EngineConfig by_hand;
+  by_hand.bars.interval_ns = 60 * kNanosPerSecond;
+  ResolveAutoSettings(&by_hand);
+  CHECK(by_hand.outputs.periods_per_year == 252 * 1440);
+  by_hand.outputs.periods_per_year_auto = false;
+  by_hand.outputs.periods_per_year = 1000;
+  auto back = ParseEngineConfig(FormatEngineConfig(by_hand), "p.toml");
+  REQUIRE(back.ok());
+  CHECK_FALSE(back->outputs.periods_per_year_auto);
+  CHECK(back->outputs.periods_per_year == 1000);
 }
 
 TEST_CASE("durations", "[engine_config]") {
@@ -187,7 +237,7 @@ TEST_CASE("every error class names file, line, section and key", "[engine_config
         "\"localhost\"");
   // Cross-field rules.
   CHECK(ErrorOf("[refit]\nwindow = 100\n") ==
-        "config.toml:2: [refit] window: min_bars (250) must not exceed window (100)");
+        "config.toml:2: [refit] window: min_bars (200) must not exceed window (100)");
   CHECK(ErrorOf("[alerts]\nregime_exit = 2.5\n") ==
         "config.toml:2: [alerts] regime_exit: regime_exit (2.5) must be < regime_enter (2) for "
         "hysteresis");

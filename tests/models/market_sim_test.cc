@@ -12,6 +12,8 @@
 #include <map>
 #include <numeric>
 
+#include "aftershock/bar_builder.h"
+#include "aftershock/engine_config.h"
 #include "aftershock/simulate.h"
 
 namespace aftershock {
@@ -250,6 +252,223 @@ TEST_CASE("Create rejects bad universes with a clear message") {
   MarketSimOptions zero;
   zero.interval_ns = 0;
   CHECK(msg(Instruments(1), zero) == "bar interval must be > 0 ns, got 0");
+}
+
+// ---- Sessions, intraday profile, ticks per bar -----------------------------
+// Sources: the definitions in market_sim.h; calendar facts checked with
+// Python's datetime (2026-03-02 and 2026-03-09 are Mondays, 2026-03-06 a
+// Friday); the bar builder (bar_builder.h) as the consumer of the ticks.
+
+SessionWindow Session0800To1630Utc1() {
+  SessionWindow w;
+  w.enabled = true;
+  w.start_minute = 8 * 60;
+  w.end_minute = 16 * 60 + 30;
+  w.tz_offset_minutes = 60;
+  return w;
+}
+
+constexpr int64_t kMinute = 60000000000LL;
+constexpr int64_t kMonday0700Z = 1772434800LL * 1000000000LL;   // 2026-03-02T07:00:00Z
+constexpr int64_t kFriday1500Z = 1772809200LL * 1000000000LL;   // 2026-03-06T15:00:00Z
+constexpr int64_t kMonday2_0700Z = 1773039600LL * 1000000000LL;  // 2026-03-09T07:00:00Z
+
+TEST_CASE("a session: ticks only inside, the clock jumps over nights and the weekend") {
+  MarketSimOptions o;
+  o.session = Session0800To1630Utc1();
+  o.start_ns = kFriday1500Z;  // Friday 16:00 local: 30 bars left that day
+  o.bars = 30 + 510 + 5;
+  o.overnight_bars = 0;
+  REQUIRE(BarsPerSession(o.session, o.interval_ns) == 510);
+  auto ticks = Run(Instruments(1), o, Tick::kReturn)["BRANDR.NRG"];
+  REQUIRE(ticks.size() == 545);
+  CHECK(ticks[0].t_ns == kFriday1500Z);
+  CHECK(ticks[29].t_ns == kFriday1500Z + 29 * kMinute);  // 16:29 local, the last bar
+  CHECK(ticks[30].t_ns == kMonday2_0700Z);                // Monday's open
+  CHECK(ticks[30 + 509].t_ns == kMonday2_0700Z + 509 * kMinute);
+  CHECK(ticks[30 + 510].t_ns == kMonday2_0700Z + kNanosPerDay);  // Tuesday's open
+  for (const Tick& t : ticks) CHECK(InSession(o.session, t.t_ns));
+  // Without a profile or overnight move the returns are the batch simulator's.
+  SimulationOptions so;
+  so.n = o.bars;
+  so.seed = InstrumentSeed(o.seed, "BRANDR.NRG");
+  so.burn_in = o.burn_in;
+  auto want = Simulate(Instruments(1)[0].params, so);
+  REQUIRE(want.ok());
+  for (size_t i = 0; i < ticks.size(); ++i) CHECK(ticks[i].value == want->returns[i]);
+  // Every day: the session after Friday's is Saturday's.
+  o.skip_weekends = false;
+  auto every = Run(Instruments(1), o, Tick::kReturn)["BRANDR.NRG"];
+  CHECK(every[30].t_ns == kFriday1500Z - 8 * 60 * kMinute + kNanosPerDay);
+  // A start before the open begins at the open.
+  o.start_ns = kMonday0700Z - 3 * 60 * kMinute;
+  o.bars = 2;
+  CHECK(Run(Instruments(1), o, Tick::kPrice)["BRANDR.NRG"][0].t_ns == kMonday0700Z);
+}
+
+TEST_CASE("the first return of each session carries the overnight move") {
+  MarketSimOptions o;
+  o.session = Session0800To1630Utc1();
+  o.start_ns = kMonday0700Z;
+  o.bars = 510 * 3;
+  o.seed = 5;
+  auto flat = Run(Instruments(2), o, Tick::kReturn);
+  o.overnight_bars = 100;
+  auto night = Run(Instruments(2), o, Tick::kReturn);
+  for (const auto& [sym, ticks] : night) {
+    const auto& base = flat[sym];
+    for (size_t i = 0; i < ticks.size(); ++i) {
+      INFO(sym << " bar " << i);
+      if (i % 510 == 0 && i > 0) {
+        // The move is sqrt(100 h) * z: far larger than a bar's return as a rule.
+        CHECK(ticks[i].value != base[i].value);
+      } else {
+        CHECK(ticks[i].value == base[i].value);  // other bars are untouched
+      }
+    }
+  }
+}
+
+TEST_CASE("IntradayMultiplier: session mean of s^2 is 1, U-shaped, symmetric") {
+  // Source: the closed form in market_sim.h; the mean of x_k^2 over the bar
+  // midpoints is (K^2 - 1) / (3 K^2), so the mean of s^2 is exactly 1.
+  for (int64_t k_bars : {1, 2, 7, 390, 510}) {
+    for (double a : {0.0, 0.5, 2.0, 5.0}) {
+      double sum = 0;
+      for (int64_t k = 0; k < k_bars; ++k) {
+        const double s = IntradayMultiplier(k, k_bars, a);
+        sum += s * s;
+        CHECK(s == Approx(IntradayMultiplier(k_bars - 1 - k, k_bars, a)).epsilon(1e-14));
+      }
+      CHECK(sum / static_cast<double>(k_bars) == Approx(1.0).epsilon(1e-12));
+    }
+  }
+  const double open = IntradayMultiplier(0, 510, 2.0);
+  const double mid = IntradayMultiplier(255, 510, 2.0);
+  CHECK(open * open / (mid * mid) == Approx(3.0).epsilon(0.01));  // about 1 + a
+  CHECK(IntradayMultiplier(100, 510, 0.0) == 1.0);
+}
+
+TEST_CASE("the U-shaped profile scales each bar's return by s(k)") {
+  MarketSimOptions o;
+  o.session = Session0800To1630Utc1();
+  o.start_ns = kMonday0700Z;
+  o.bars = 510 * 20;
+  o.seed = 3;
+  auto flat = Run(Instruments(3), o, Tick::kReturn);
+  o.intraday_amplitude = 2.0;
+  auto shaped = Run(Instruments(3), o, Tick::kReturn);
+  double open_sq = 0, mid_sq = 0;
+  int64_t n_open = 0, n_mid = 0;
+  for (const auto& [sym, ticks] : shaped) {
+    for (size_t i = 0; i < ticks.size(); ++i) {
+      const int64_t k = static_cast<int64_t>(i % 510);
+      CHECK(ticks[i].value ==
+            Approx(IntradayMultiplier(k, 510, 2.0) * flat[sym][i].value).epsilon(1e-12));
+      if (k < 30 || k >= 480) {
+        open_sq += ticks[i].value * ticks[i].value;
+        ++n_open;
+      } else if (k >= 225 && k < 285) {
+        mid_sq += ticks[i].value * ticks[i].value;
+        ++n_mid;
+      }
+    }
+  }
+  // Expected ratio of the profile's mean s^2 over those bars: about 2.7;
+  // 20 sessions of 3 names is noisy but far from flat (1).
+  const double ratio = (open_sq / n_open) / (mid_sq / n_mid);
+  CHECK(ratio > 1.8);
+  CHECK(ratio < 4.0);
+}
+
+TEST_CASE("several ticks per bar: time order, inside the bar, a bar builder recovers r") {
+  MarketSimOptions o;
+  o.session = Session0800To1630Utc1();
+  o.start_ns = kMonday0700Z;
+  o.bars = 510 * 2;
+  o.seed = 9;
+  o.intraday_amplitude = 1.5;
+  o.overnight_bars = 50;
+  auto one = Run(Instruments(3), o, Tick::kReturn);
+  o.ticks_per_bar = 5;
+  auto sim = MarketSim::Create(Instruments(3), o);
+  REQUIRE(sim.ok());
+  CHECK((*sim)->total_ticks() == 510 * 2 * 3 * 5);
+  BarOptions bo{o.interval_ns, 5 * kNanosPerSecond, o.session};
+  std::map<std::string, BarState> states;
+  std::map<std::string, std::vector<ClosedBar>> bars;
+  std::map<std::string, std::vector<double>> sums;  // return ticks per bar
+  Tick t;
+  int64_t prev_t = 0;
+  int64_t n = 0;
+  auto sim_r = MarketSim::Create(Instruments(3), o);
+  REQUIRE(sim_r.ok());
+  Tick tr;
+  while ((*sim)->Next(Tick::kPrice, &t)) {
+    REQUIRE((*sim_r)->Next(Tick::kReturn, &tr));
+    ++n;
+    CHECK(t.t_ns >= prev_t);  // time order across instruments
+    prev_t = t.t_ns;
+    CHECK(InSession(o.session, t.t_ns));
+    const std::string sym(t.symbol.view());
+    const FeedResult fr = FeedTick(&states[sym], t, bo);
+    REQUIRE(fr.status == TickStatus::kAccepted);
+    if (fr.closed) bars[sym].push_back(fr.bar);
+    const int64_t bar = (t.t_ns - kMonday0700Z) % kNanosPerDay / o.interval_ns +
+                        ((t.t_ns - kMonday0700Z) / kNanosPerDay) * 510;
+    auto& v = sums[sym];
+    if (static_cast<int64_t>(v.size()) <= bar) v.resize(static_cast<size_t>(bar) + 1, 0.0);
+    v[static_cast<size_t>(bar)] += tr.value;
+  }
+  CHECK(n == 510 * 2 * 3 * 5);
+  for (auto& [sym, st] : states) {
+    ClosedBar last;
+    if (CloseIfDue(&st, INT64_MAX / 2, 0, bo, &last)) bars[sym].push_back(last);
+    const auto& want = one[sym];
+    REQUIRE(bars[sym].size() == 1020);
+    for (size_t i = 1; i < 1020; ++i) {
+      INFO(sym << " bar " << i);
+      CHECK(bars[sym][i].n_ticks == 5);
+      if (i == 510) {
+        CHECK_FALSE(bars[sym][i].has_return);  // first bar of a session: no overnight return
+        continue;
+      }
+      REQUIRE(bars[sym][i].has_return);
+      CHECK(bars[sym][i].ret == Approx(want[i].value).margin(1e-12));
+      // Return ticks: the increments of a bar sum to its return.
+      CHECK(sums[sym][i] == Approx(want[i].value).margin(1e-12));
+    }
+  }
+}
+
+TEST_CASE("session options are deterministic by seed and validated") {
+  MarketSimOptions o;
+  o.session = Session0800To1630Utc1();
+  o.start_ns = kMonday0700Z;
+  o.bars = 600;
+  o.intraday_amplitude = 2;
+  o.overnight_bars = 100;
+  o.ticks_per_bar = 3;
+  auto a = Run(Instruments(4), o, Tick::kPrice);
+  auto b = Run(Instruments(4), o, Tick::kPrice);
+  for (const auto& [sym, ticks] : a) {
+    REQUIRE(ticks.size() == b[sym].size());
+    for (size_t i = 0; i < ticks.size(); ++i) {
+      CHECK(ticks[i].t_ns == b[sym][i].t_ns);
+      CHECK(ticks[i].value == b[sym][i].value);
+    }
+  }
+  auto msg = [](MarketSimOptions x) {
+    auto s = MarketSim::Create(Instruments(1), x);
+    REQUIRE_FALSE(s.ok());
+    return std::string(s.status().message());
+  };
+  MarketSimOptions no_session;
+  no_session.intraday_amplitude = 1;
+  CHECK(msg(no_session) == "an intraday profile needs a session");
+  MarketSimOptions many = o;
+  many.ticks_per_bar = 0;
+  CHECK(msg(many) == "ticks per bar must be in 1..1000, got 0");
 }
 
 }  // namespace

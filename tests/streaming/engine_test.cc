@@ -315,5 +315,71 @@ TEST_CASE("a finite source: Run() returns at its end after closing open bars", "
   CHECK((last.flags & kFlagStale) == 0);
 }
 
+// A source that hands over a fixed list of message bodies, then idles.
+class ScriptedSource : public TickSource {
+ public:
+  explicit ScriptedSource(std::vector<std::string> bodies) : bodies_(std::move(bodies)) {}
+  int Pump(TickConsumer* consumer, int max_messages) override {
+    int n = 0;
+    while (n < max_messages && next_ < bodies_.size()) {
+      consumer->OnMessage("LARCH.K", bodies_[next_++]);
+      ++n;
+    }
+    if (n == 0) std::this_thread::sleep_for(Ms(1));  // idle: the loop re-posts us
+    return n;
+  }
+
+ private:
+  std::vector<std::string> bodies_;
+  size_t next_ = 0;
+};
+
+TEST_CASE("GET /health answers 503 degraded when most inputs are rejected", "[engine][http]") {
+  // A producer of JSON ticks against a feed configured for binary frames.
+  EngineConfig config = testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                                  "[feed]\nencoding = \"binary\"\n");
+  config.http.endpoint = "127.0.0.1:0";  // any free port (the file format wants 1..65535)
+  auto run_with = [&](bool producer_binary) {
+    std::vector<std::string> bodies;
+    for (int i = 0; i < 50; ++i) {
+      std::string body;
+      const Tick t = ReturnTick("LARCH.K", kT0 + i * kSec, 0.001);
+      producer_binary ? EncodeTickBinary(t, &body) : EncodeTickJson(t, &body);
+      bodies.push_back(body);
+    }
+    EngineOptions o;
+    o.serve_http = true;
+    ManualClock clock(kT0);
+    auto engine = Engine::Create(config, std::make_unique<ScriptedSource>(bodies),
+                                 std::make_unique<testing::CollectingSink>(), &clock, o);
+    REQUIRE(engine.ok());
+    Engine* e = engine->get();
+    std::thread runner([e] { (void)e->Run(); });
+    const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(10);
+    while (std::chrono::steady_clock::now() < deadline &&
+           Snapshot(e).messages_in < bodies.size()) {
+      std::this_thread::sleep_for(Ms(5));
+    }
+    const std::string endpoint = e->HttpEndpoint();
+    const int port = std::stoi(endpoint.substr(endpoint.rfind(':') + 1));
+    const std::string response = testing::HttpGet(port, "/health");
+    e->Stop();
+    runner.join();
+    return response;
+  };
+  const std::string bad = run_with(false);
+  INFO(bad);
+  CHECK(bad.rfind("HTTP/1.1 503 Service Unavailable", 0) == 0);
+  CHECK(bad.find("{\"status\":\"degraded\",\"symbols\":0,\"updates\":0,\"rejects\":50,"
+                 "\"recent_inputs\":50,\"recent_rejects\":50,\"reason\":\"100% of inputs "
+                 "rejected in the last minute (50 of 50; most malformed_binary 50)\"}") !=
+        std::string::npos);
+  const std::string good = run_with(true);
+  INFO(good);
+  CHECK(good.rfind("HTTP/1.1 200 OK", 0) == 0);
+  CHECK(good.find("{\"status\":\"ok\",\"symbols\":1,\"updates\":50,\"rejects\":0,"
+                  "\"recent_inputs\":50,\"recent_rejects\":0}") != std::string::npos);
+}
+
 }  // namespace
 }  // namespace aftershock

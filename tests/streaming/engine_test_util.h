@@ -14,7 +14,8 @@
 
 namespace aftershock::testing {
 
-// A GARCH(1,1)-normal model for fractional returns, fixed parameters.
+// A GARCH(1,1)-normal model for fractional returns, fixed parameters (refits off, so
+// it stays fixed).
 inline constexpr const char* kFixedModelToml = R"(
 [model]
 mean = "constant"
@@ -26,6 +27,8 @@ mu = 0.0002
 omega = 2e-6
 alpha1 = 0.08
 beta1 = 0.9
+[refit]
+every_bars = 0
 )";
 
 inline EngineConfig ParseConfigOrDie(const std::string& toml) {

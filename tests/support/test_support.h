@@ -50,6 +50,10 @@ std::string ReadFileOrDie(const std::string& path);
 // seed; fails the running test if the simulation is refused.
 std::vector<double> SimulatedReturns(const ModelParams& params, int n, uint64_t seed);
 
+// A minimal HTTP/1.1 GET to 127.0.0.1:port; the whole response (status line,
+// headers, body), or "" when the connection fails.
+std::string HttpGet(int port, const std::string& path);
+
 // Relative difference |a-b| / max(|b|, tiny).
 double RelDiff(double a, double b);
 
