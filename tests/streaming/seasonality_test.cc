@@ -30,11 +30,9 @@ constexpr int kHalfHours = kBars / 30;  // 17
 // The deseasonalized returns: GARCH(1,1)-normal, per-minute variance 2.5e-7.
 constexpr double kOmega = 5e-9, kAlpha = 0.05, kBeta = 0.93;
 
-std::string ConfigToml(const std::string& seasonality) {
-  return absl::StrCat(R"(
-[bars]
-interval = "1m"
-session = { start = "09:00", end = "17:30" }
+// The fixed true model (no refits) unless `refit` gives a [refit] section.
+std::string ConfigToml(const std::string& seasonality, const std::string& refit = "") {
+  const char* fixed = R"(
 [model]
 mean = "zero"
 variance = "garch"
@@ -44,13 +42,17 @@ innovations = "normal"
 omega = 5e-9
 alpha1 = 0.05
 beta1 = 0.93
-[outputs]
-periods_per_year = 128520
 [refit]
 window = 10200
-[seasonality]
+)";
+  return absl::StrCat(R"(
+[bars]
+interval = "1m"
+session = { start = "09:00", end = "17:30" }
+[outputs]
+periods_per_year = 128520
 )",
-                      seasonality);
+                      refit.empty() ? fixed : refit, "[seasonality]\n", seasonality);
 }
 
 // s(k)^2 proportional to 1 + 3 (2k/K - 1)^2 (open and close 4 times midday),
@@ -76,14 +78,16 @@ struct Run {
 // One price tick per minute (at :30) per symbol; the price follows
 // exp(sum of s(k) x). With `overnight` > 0 the first bar of a session moves by
 // an opening return of variance overnight * h (the night).
-Run Replay(const std::string& seasonality, double overnight = 0) {
-  const EngineConfig config = ParseConfigOrDie(ConfigToml(seasonality));
+Run Replay(const std::string& seasonality, double overnight = 0, const std::string& refit = "",
+           int workers = 1) {
+  const EngineConfig config = ParseConfigOrDie(ConfigToml(seasonality, refit));
   CollectingSink sink;
   ManualClock clock{kDay0};
   auto core = IngestCore::Create(config, &sink, &clock);
   REQUIRE(core.ok());
   ServiceOptions so;
   so.mode = RefitMode::kReplay;
+  so.workers = workers;
   auto services = EngineServices::Attach(core->get(), config, so);
   REQUIRE(services.ok());
   const std::vector<double> s2 = TrueFactors();
@@ -282,6 +286,56 @@ TEST_CASE("scaled opening returns: the night gets its own multiplier", "[seasona
   // ~100 opening z^2: standard error sqrt(2 / 100) = 0.14.
   CHECK(z2 / n > 0.6);
   CHECK(z2 / n < 1.5);
+}
+
+// With refits each job re-estimates the profile from its window, fits the
+// model (identification on the first fit) on the deseasonalized returns and
+// swaps the two together; replay applies them at fixed bars, so the outputs do
+// not depend on the number of workers.
+TEST_CASE("refits fit deseasonalized returns and swap the profile with the model",
+          "[seasonality]") {
+  const std::string refit = R"(
+[refit]
+every_bars = 2550
+window = 5100
+)";
+  const Run run = Replay("", 0, refit, /*workers=*/1);
+  int with_profile = 0;
+  for (int s = 0; s < kSymbols; ++s) with_profile += run.profiles[s].empty() ? 0 : 1;
+  CHECK(with_profile == kSymbols);
+  // Updates under an estimated model that came with a profile (version >= 2:
+  // the first fit, at bar 250, has no complete session yet).
+  Calibration c;
+  int n = 0;
+  for (const auto& us : run.updates) {
+    for (const BarUpdate& u : us) {
+      if (u.ver < 2 || !(u.flags & kFlagSeasonal)) continue;
+      const int hh = BarOf(u) / 30;
+      c.z2[hh] += u.z * u.z;
+      ++c.n[hh];
+      ++n;
+    }
+  }
+  CHECK(n > 10 * kSymbols * kBars);
+  for (int i = 0; i < kHalfHours; ++i) {
+    const double m = c.z2[i] / std::max(1, c.n[i]);
+    INFO("half hour " << i << " mean z^2 " << m << " n " << c.n[i]);
+    CHECK(m > 0.85);
+    CHECK(m < 1.15);
+  }
+  const Run again = Replay("", 0, refit, /*workers=*/2);
+  REQUIRE(again.updates.size() == run.updates.size());
+  for (int s = 0; s < kSymbols; ++s) {
+    REQUIRE(again.updates[s].size() == run.updates[s].size());
+    bool same = true;
+    for (size_t i = 0; i < run.updates[s].size(); ++i) {
+      same = same && again.updates[s][i].z == run.updates[s][i].z &&
+             again.updates[s][i].var_h[2] == run.updates[s][i].var_h[2] &&
+             again.updates[s][i].ver == run.updates[s][i].ver;
+    }
+    CHECK(same);
+    CHECK(again.profiles[s] == run.profiles[s]);
+  }
 }
 
 TEST_CASE("seasonality configuration", "[seasonality]") {
