@@ -71,6 +71,9 @@ struct BarOptions {
   int64_t interval_ns = 0;                        // bar length; 0 = one bar per tick
   int64_t max_lateness_ns = 5 * kNanosPerSecond;  // tolerated reordering; default 5 s
   SessionWindow session;                          // default: no session
+  // Price bars: the first bar of a session gets the return over the night
+  // (from the previous session's last price) instead of none. Default false.
+  bool overnight_return = false;
 };
 
 // One closed bar.
@@ -81,6 +84,7 @@ struct ClosedBar {
   bool has_return = false;
   bool closed_by_clock = false;  // closed by CloseIfDue rather than by a later tick
   int32_t n_ticks = 0;
+  int32_t session_bar = -1;  // bar-of-session index k (see above); -1 for interval 0
   uint32_t flags = 0;  // kFlagGap, kFlagFirstBar (UpdateFlag bits)
 };
 
@@ -97,6 +101,7 @@ struct BarState {
   double prev_close = 0;        // price bars: last price of the previous bar
   double ret_sum = 0;           // return bars: sum of the open bar's returns
   int32_t n_ticks = 0;          // ticks in the open bar
+  int32_t open_index = 0;       // bar-of-session index of the open bar
   uint8_t kind = 0;             // Tick::Kind of the symbol (valid when has_tick)
   bool has_tick = false;        // any tick accepted yet
   bool open = false;            // a bar is open

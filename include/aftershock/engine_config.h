@@ -18,8 +18,9 @@
 #include "absl/strings/string_view.h"
 #include "aftershock/bar_builder.h"
 #include "aftershock/model_params.h"
-#include "aftershock/online_filter.h"
 #include "aftershock/model_spec.h"
+#include "aftershock/online_filter.h"
+#include "aftershock/seasonal_profile.h"
 #include "aftershock/wire.h"
 
 namespace aftershock {
@@ -49,6 +50,8 @@ struct BarsConfig {
   SessionWindow session;  // optional trading session; default: none (always open)
 
   BarOptions ToBarOptions() const { return BarOptions{interval_ns, max_lateness_ns, session}; }
+  // Bar options of the engine: ToBarOptions plus the opening return of
+  // [seasonality] (EngineConfig::ToBarOptions).
 };
 
 // Length of one trading session, ns (24 h when the session is disabled; a
@@ -149,6 +152,45 @@ struct RefitConfig {
   bool group_models = true;
 };
 
+// [seasonality]: intraday time-of-day volatility profile (PRODUCT.md C9;
+// seasonal_profile.h for the method).
+enum class SeasonalSwitch { kAuto, kOn, kOff };
+enum class OpeningReturn { kSkip, kScaled };
+absl::string_view OpeningReturnName(OpeningReturn o);  // "skip" | "scaled"
+
+struct SeasonalityConfig {
+  // "auto" (default): on when [bars] has a session and interval > 0; true: on
+  // (needs interval > 0; without a session the profile spans the local day);
+  // false: off.
+  SeasonalSwitch enabled = SeasonalSwitch::kAuto;
+  SeasonalMethod method = SeasonalMethod::kLocalLinear;  // "local-linear" | "fourier"
+  // Sessions of a symbol's own history before its own profile is used; 3.
+  int min_sessions = 3;
+  // local-linear: kernel bandwidth in bars; fourier: the order; 0 = automatic
+  // (K/40 bars, at least 1.5; order 4). Default 0.
+  double smoothing = 0;
+  // Weight, in sessions, of the pooled profile a symbol's own one is shrunk
+  // toward; 0 = no pooling. Default 5.
+  double prior_sessions = 5;
+  // The first return of a session, which spans the night: "skip" (default; the
+  // first bar of a session has no return) or "scaled" (log(first close /
+  // previous session's last close), filtered divided by the square root of its
+  // own estimated variance multiplier; skipped until one is estimated).
+  // "scaled" needs seasonality on.
+  OpeningReturn opening_return = OpeningReturn::kSkip;
+
+  // Whether seasonality is on for these bars.
+  bool Active(const BarsConfig& bars) const {
+    if (enabled == SeasonalSwitch::kOff || bars.interval_ns <= 0) return false;
+    return enabled == SeasonalSwitch::kOn || bars.session.enabled;
+  }
+  // Bars per session K for these bars (the local day without a session).
+  // REQUIRES: bars.interval_ns > 0.
+  static int64_t BarsPerSession(const BarsConfig& bars);
+  // The estimator's options. REQUIRES: Active(bars).
+  SeasonalOptions ToOptions(const BarsConfig& bars, int max_horizon) const;
+};
+
 // [alerts]: alert rule thresholds (PRODUCT.md C7).
 struct AlertsConfig {
   double shock_z = 4.0;                  // |z| at or above this raises a shock alert (warning)
@@ -205,11 +247,17 @@ struct EngineConfig {
   OutputsConfig outputs;
   LimitsConfig limits;
   RefitConfig refit;
+  SeasonalityConfig seasonality;
   AlertsConfig alerts;
   std::vector<AlertGroupConfig> alert_groups;  // [alerts.groups.*], file order
   HttpConfig http;
   CheckpointConfig checkpoint;
   LogConfig log;
+
+  // [bars] with [seasonality] opening_return applied.
+  BarOptions ToBarOptions() const;
+  // Seasonality on (SeasonalityConfig::Active).
+  bool SeasonalityActive() const { return seasonality.Active(bars); }
 };
 
 // Parses and validates a TOML document. `source_name` prefixes messages

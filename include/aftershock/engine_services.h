@@ -11,6 +11,15 @@
 //      to the listener, the model/persistence/fallback alerts fire, and a new
 //      version (or the EWMA fallback) is swapped into the core with the
 //      coordinator's re-run variance state, so the next bar uses it.
+// Seasonality ([seasonality] on, seasonal_profile.h): each return enters the
+// window with its bar-of-session tag (IngestCore::SeasonalTagOf). With refits
+// the coordinator re-estimates the profile with each job and the swap carries
+// it (the EWMA fallback keeps the profile in force). Without refits a tagged
+// window of [refit] window bars is kept per symbol and the profile is
+// re-estimated from it at the first return of each session (complete sessions
+// only), shrunk toward the pool of the symbols' estimates, and set on the core
+// for the next bar. Opening returns the core skipped (OnSkippedReturn) enter
+// the window too.
 // Per clock tick: stale-symbol checks (inside the session) and the burst of
 // rejected ticks.
 //

@@ -86,6 +86,12 @@ struct SymbolHistory {
   std::vector<std::vector<double>> es_next;
   std::vector<uint32_t> ver;    // model version used for the bar
   std::vector<uint32_t> flags;  // UpdateFlag bits
+  // Bar-of-session index of each bar (ClosedBar::session_bar; -1 for none);
+  // empty when not recorded. The report's time-of-day table uses it.
+  std::vector<int32_t> session_bar;
+  // The intraday profile s(k)^2 in force at the end (seasonal_profile.h);
+  // empty when the symbol had none.
+  std::vector<double> seasonal_factors;
   // Innovation law of the latest model (QQ-plot and density reference).
   InnovationLaw law;
   std::vector<ModelSwapRecord> swaps;  // in time order

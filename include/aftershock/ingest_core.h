@@ -28,6 +28,16 @@
 //     publish nothing). A swapped-in model ends the collection.
 //   * The first ([warmup] min_bars - 1) filtered bars of a symbol carry the
 //     flag `first_bar` (their z rests on no history; consumers ignore it).
+//   * Intraday seasonality ([seasonality], seasonal_profile.h): while a symbol
+//     has a profile (SetSeasonalProfile, or ModelSwap::profile), the filter runs
+//     on r / s(k), k = the bar's session_bar, and the update is put back in
+//     return units by SeasonalizeUpdate (var = s(k)^2 h, var_next, var_h, VaR,
+//     ES, scale and vol_ann from the factors of the bars ahead), flag
+//     `seasonal`. Without a profile the raw return is filtered, no flag. With
+//     opening_return = "scaled" the first return of a session (flag gap) is
+//     divided by the square root of the profile's overnight multiplier; with no
+//     such multiplier yet it publishes nothing (observers see it through
+//     OnSkippedReturn, so it enters the history the multiplier is estimated from).
 //   * An update that fails to encode (a non-finite value) is never published;
 //     it is counted as non_finite_output.
 //   * New symbols beyond [limits] max_symbols are rejected as symbol_limit. A
@@ -72,6 +82,7 @@
 #include "aftershock/clock.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/online_filter.h"
+#include "aftershock/seasonal_profile.h"
 #include "aftershock/tick_source.h"
 #include "aftershock/update_sink.h"
 #include "aftershock/wire.h"
@@ -125,6 +136,10 @@ class BarObserver {
   // the closed bar (return in the filter's units is update->r). May OR flags
   // into update->flags; must not change the numbers.
   virtual void OnBar(IngestCore* core, int index, const ClosedBar& bar, BarUpdate* update) = 0;
+  // A bar whose return the filter did not consume (an opening return without
+  // an estimated overnight multiplier, see above); r in the filter's units.
+  virtual void OnSkippedReturn(IngestCore* /*core*/, int /*index*/, const ClosedBar& /*bar*/,
+                               double /*r*/) {}
   // On every clock tick, after idle bars were closed.
   virtual void OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {}
 };
@@ -146,6 +161,10 @@ struct ModelSwap {
   // Status flags the symbol's updates carry from now on: kFlagWarmup,
   // kFlagFallback and/or kFlagPooled (others are ignored).
   uint32_t status_flags = 0;
+  // When set, the symbol's seasonal profile becomes `profile` (null = none),
+  // so a model fitted on deseasonalized returns arrives with its profile.
+  bool replace_profile = false;
+  std::shared_ptr<const SeasonalProfile> profile;
 };
 
 class IngestCore : public TickConsumer {
@@ -181,6 +200,19 @@ class IngestCore : public TickConsumer {
   // REQUIRES: 0 <= index < num_symbols(); swap.model created. InvalidArgument
   // otherwise (the symbol keeps its model).
   absl::Status SwapModel(int index, const ModelSwap& swap);
+  // Replaces the symbol's seasonal profile (null = none) from the next bar on;
+  // the filter state is kept (profiles are normalized to mean s^2 = 1, so the
+  // deseasonalized variance level stays comparable). Ignored (OK) while
+  // seasonality is off. REQUIRES: 0 <= index < num_symbols(); the profile's
+  // buckets equal the bars per session and max_ahead covers the largest
+  // horizon (InvalidArgument otherwise).
+  absl::Status SetSeasonalProfile(int index, std::shared_ptr<const SeasonalProfile> profile);
+  // The tag (seasonal_profile.h) of a closed bar with a return: its
+  // session_bar, the session-start mark from `update_flags` (kFlagGap) and the
+  // overnight mark for an opening return.
+  int32_t SeasonalTagOf(const ClosedBar& bar, uint32_t update_flags) const;
+  bool seasonality_active() const { return seasonal_; }
+  const SeasonalOptions& seasonal_options() const { return seasonal_options_; }
   // Observer state of a symbol (nullptr until set). Slots are assigned by
   // convention between observers (e.g. 0 alerts, 1 refit window).
   // REQUIRES: 0 <= index < num_symbols(), 0 <= slot < kMaxSymbolExtras.
@@ -203,6 +235,7 @@ class IngestCore : public TickConsumer {
   int FindSymbol(absl::string_view symbol) const;  // index or -1
   absl::string_view symbol(int index) const { return slots_[index].symbol.view(); }
   const FilterModel& model(int index) const { return *slots_[index].model; }
+  const SeasonalProfile* seasonal_profile(int index) const { return slots_[index].profile.get(); }
   const FilterState& filter_state(int index) const { return slots_[index].filter; }
   // For an observer that advances or replaces the state itself (the refit
   // coordinator re-runs it on a swap), then swaps the model with kKeepState.
@@ -224,6 +257,7 @@ class IngestCore : public TickConsumer {
     BarState bars_state;
     FilterState filter;
     std::shared_ptr<const FilterModel> model;
+    std::shared_ptr<const SeasonalProfile> profile;  // null: no seasonal adjustment
     uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback / kFlagPooled
     uint32_t pending_flags = 0;  // flags of unpublished bars, carried forward
     bool filter_ready = false;   // filter state initialized
@@ -255,6 +289,9 @@ class IngestCore : public TickConsumer {
   uint32_t initial_flags_ = 0;
   double price_return_scale_ = 1.0;
   bool encode_binary_ = false;
+  bool seasonal_ = false;        // [seasonality] active
+  bool opening_scaled_ = false;  // opening_return = "scaled"
+  SeasonalOptions seasonal_options_;
   std::vector<BarObserver*> observers_;
   std::vector<const MetricsSource*> metrics_sources_;
   absl::flat_hash_map<std::string, int> index_;

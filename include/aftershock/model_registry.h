@@ -14,6 +14,7 @@
 #include <vector>
 
 #include "aftershock/online_filter.h"
+#include "aftershock/seasonal_profile.h"
 
 namespace aftershock {
 
@@ -25,6 +26,9 @@ struct ModelVersion {
   std::vector<double> std_errors;  // Hessian-based, params order (empty for EWMA)
   double loglik = 0;               // of the fit on its window
   int64_t fitted_bar = 0;          // returns seen when the fit was scheduled
+  // The intraday profile the model was fitted with (its returns were r / s(k));
+  // null: raw returns. Swapped in together with the model.
+  std::shared_ptr<const SeasonalProfile> profile;
 };
 
 using ModelVersionPtr = std::shared_ptr<const ModelVersion>;

@@ -74,6 +74,8 @@ class FilterModel {
   friend void FilterStep(const FilterModel&, FilterState*, double, BarUpdate*);
   friend void InitFilterState(const FilterModel&, double, FilterState*);
   friend void AdvanceState(const FilterModel&, FilterState*, double);
+  friend void SeasonalizeUpdate(const FilterModel&, const FilterState&, double, double,
+                                const double*, BarUpdate*);
 
   // Consumes r: shifts the lags, advances the variance and mean recursions and
   // returns eps. Leaves sd_next stale (callers set it).
@@ -95,6 +97,8 @@ class FilterModel {
   double scale_num_ = 0;      // target_vol_ann / sqrt(periods_per_year)
   double scale_cap_ = 0;
   int max_horizon_ = 0;       // largest horizon (bars)
+  double phi_ = 1;            // persistence (closed forms; >= 1: flat forecast)
+  double sbar2_ = 0;          // unconditional variance (closed forms, phi < 1)
   HorizonTable horizons_;
   RiskQuantiles risk_;
 };
@@ -125,6 +129,18 @@ void FilterStep(const FilterModel& model, FilterState* state, double r, BarUpdat
 // Advances *state by one bar without producing outputs (for re-running a window
 // tail after a parameter swap).
 void AdvanceState(const FilterModel& model, FilterState* state, double r);
+
+// Intraday seasonality (seasonal_profile.h): FilterStep ran on the
+// deseasonalized return x = r / s(k) and wrote *out in x units; this puts the
+// outputs back in return units: r = the raw return, mu and eps times s(k),
+// var = s(k)^2 h (z unchanged, = eps / sqrt(var)), var_next = s(k+1)^2 h_next,
+// var_h = sum_{j=1..H} s(k+j)^2 E h_{T+j} (the h-step forecasts weighted by the
+// factors of the bars ahead), VaR/ES/vol_ann/scale from s(k+1)^2 h_next.
+// s2_now = s(k)^2; s2_ahead[j - 1] = s(k+j)^2 for j = 1..largest horizon
+// (SeasonalProfile::ahead). *state is the state after the step. Hot path: no
+// allocation; cost one multiply-add per bar of the largest horizon.
+void SeasonalizeUpdate(const FilterModel& model, const FilterState& state, double r, double s2_now,
+                       const double* s2_ahead, BarUpdate* out);
 
 // Offline run: InitFilterState(model, initial_variance) then FilterStep over
 // `returns`. Used by tests and replay tooling as the reference of the stream.

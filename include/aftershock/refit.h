@@ -52,6 +52,17 @@
 // the symbol's own bars and reads only what earlier bars applied, so a replay
 // stays deterministic. It allocates (one ModelVersion and its record), once
 // per adoption, never on a quiet bar.
+// Seasonality (options.seasonal): the window keeps each return's
+// bar-of-session tag (seasonal_profile.h). The worker re-estimates the
+// symbol's profile from the job's window (shrunk toward the coordinator's pool
+// of the symbols' own estimates, snapshot taken at submission), fits the model
+// on the returns the filter would consume under it (SeasonalInput: r / s(k)),
+// scores the holdout in raw-return units (the log-likelihood of r / s minus
+// sum log s, so candidate and model in force are compared on the same data
+// whatever their profiles) and runs the swap tail on the same series. The
+// profile travels in the ModelVersion and is swapped with it; the catch-up
+// over the returns since the job applies SeasonalInput with it too. Each
+// applied job's own estimate is added to the pool (ingest thread).
 //
 // Versions: immutable ModelVersion objects shared by std::shared_ptr<const>;
 // version 0 is the EWMA warm-up/fallback model (shared by all symbols);
@@ -172,7 +183,13 @@ class RefitCoordinator {
   // Per closed bar, after the FilterStep of this bar with model(id) on *state.
   // May replace *state (on a swap or when the fallback engages).
   // REQUIRES: id registered; r finite; *state belongs to this symbol.
-  RefitBarResult OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state);
+  // tag: the return's bar-of-session tag (read only with options.seasonal).
+  RefitBarResult OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state, int32_t tag = 0);
+  // A return the filter skipped (an opening return without an overnight
+  // multiplier, IngestCore::OnSkippedReturn): kept in the window (tagged) so
+  // the next profile can estimate the multiplier. No scheduling.
+  // REQUIRES: id registered.
+  void RecordSkipped(uint32_t id, double r, int32_t tag);
 
   // The record of the latest applied job (valid until the next OnBar that
   // applies one).
@@ -227,6 +244,7 @@ class RefitCoordinator {
   const ModelVersionPtr ewma_;                // version 0, shared
 
   // ---- ingest thread only ----
+  SeasonalPool seasonal_pool_;  // pooled prior of the profiles (options.seasonal)
   std::vector<SymbolSlot> symbols_;
   std::vector<GroupState> groups_;  // indexed by AddSymbol's group
   absl::flat_hash_map<std::string, uint32_t> index_;

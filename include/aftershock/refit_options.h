@@ -6,6 +6,7 @@
 #define AFTERSHOCK_REFIT_OPTIONS_H_
 
 #include "absl/status/status.h"
+#include "aftershock/seasonal_profile.h"
 
 namespace aftershock {
 
@@ -76,6 +77,12 @@ struct RefitOptions {
   // passed model of its group (RefitCoordinator::AddSymbol), re-levelled to
   // its own variance, until its own fit passes (see refit.h). Default true.
   bool group_models = true;
+  // Intraday seasonality: windows keep bar-of-session tags, each job
+  // re-estimates the symbol's profile (shrunk toward the pool of the other
+  // symbols' estimates), fits the model on the deseasonalized returns and the
+  // two are swapped together. Default false.
+  bool seasonal = false;
+  SeasonalOptions seasonal_options;  // REQUIRED valid when seasonal
 
   // OK when every field is in range; InvalidArgument naming the field otherwise.
   absl::Status Validate() const;

@@ -1,6 +1,7 @@
 // RollingWindow: fixed-capacity ring buffer of a symbol's most recent
-// closed-bar returns (PRODUCT.md C5). All storage is allocated by Create; Push
-// never allocates.
+// closed-bar returns (PRODUCT.md C5), optionally each with an int32 tag (the
+// bar-of-session tag of seasonal_profile.h). All storage is allocated by
+// Create; Push never allocates.
 //
 // Thread-safety: not thread-safe; owned by the ingest thread. Copies taken with
 // CopyTo are independent of the window.
@@ -18,11 +19,14 @@ class RollingWindow {
  public:
   RollingWindow() = default;  // capacity 0: REQUIRES Create before use
 
-  // InvalidArgument unless capacity >= 1. Cost: capacity doubles.
-  static absl::StatusOr<RollingWindow> Create(int capacity);
+  // InvalidArgument unless capacity >= 1. Cost: capacity doubles (and
+  // capacity int32 tags when with_tags).
+  static absl::StatusOr<RollingWindow> Create(int capacity, bool with_tags = false);
 
-  // Appends r, overwriting the oldest return once full. No allocation.
-  void Push(double r) {
+  // Appends r (and its tag, kept only when the window has tags), overwriting
+  // the oldest return once full. No allocation.
+  void Push(double r, int32_t tag = 0) {
+    if (!tags_.empty()) tags_[head_] = tag;
     buf_[head_] = r;
     head_ = head_ + 1 == capacity_ ? 0 : head_ + 1;
     if (size_ < capacity_) ++size_;
@@ -41,16 +45,29 @@ class RollingWindow {
   }
   // i-th most recent return (0 = latest). REQUIRES: 0 <= i < size().
   double back(int i) const { return at(size_ - 1 - i); }
+  bool has_tags() const { return !tags_.empty(); }
+  // Tags, indexed like at() / back(). REQUIRES: has_tags(), index in range.
+  int32_t tag_at(int i) const {
+    int k = head_ - size_ + i;
+    if (k < 0) k += capacity_;
+    return tags_[k];
+  }
+  int32_t tag_back(int i) const { return tag_at(size_ - 1 - i); }
+  // Replaces *out with the held tags, oldest first (empty without tags).
+  void CopyTagsTo(std::vector<int32_t>* out) const;
 
   // Replaces *out with the held returns, oldest first. No allocation when
   // out->capacity() >= size().
   void CopyTo(std::vector<double>* out) const;
 
   // Bytes owned by the window (its buffer).
-  size_t MemoryBytes() const { return buf_.capacity() * sizeof(double); }
+  size_t MemoryBytes() const {
+    return buf_.capacity() * sizeof(double) + tags_.capacity() * sizeof(int32_t);
+  }
 
  private:
   std::vector<double> buf_;
+  std::vector<int32_t> tags_;  // empty, or capacity entries parallel to buf_
   int capacity_ = 0;
   int head_ = 0;  // next write position
   int size_ = 0;

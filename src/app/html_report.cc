@@ -13,6 +13,7 @@
 #include "absl/strings/str_format.h"
 #include "absl/strings/str_join.h"
 #include "absl/time/time.h"
+#include "aftershock/bar_update.h"
 #include "app/html_report_assets.h"
 
 namespace aftershock {
@@ -382,6 +383,81 @@ std::string SwapTable(const SymbolHistory& h, const SymbolEvaluation& ev) {
   return s;
 }
 
+// Intraday view: the bars of the session in up to 12 equal segments, with the
+// symbol's final time-of-day profile (mean s^2 of the segment, drawn as a bar),
+// mean z^2 and the VaR exceptions at var_level against their expected count
+// (forecast made at the previous bar of the same session). Empty when the
+// history has no bar-of-session indices.
+std::string TimeOfDayTable(const SymbolHistory& h, const ReportOptions& opt) {
+  const size_t n = h.t_ns.size();
+  if (h.session_bar.size() != n || n == 0) return "";
+  int K = static_cast<int>(h.seasonal_factors.size());
+  for (int32_t k : h.session_bar) K = std::max(K, k + 1);
+  if (K < 2) return "";
+  const int segs = std::min(K, 12);
+  auto seg_of = [&](int k) { return static_cast<int>(static_cast<int64_t>(k) * segs / K); };
+  const int lv = LevelIndex(h, opt.var_level);
+  std::vector<double> z2(segs, 0.0), s2(segs, 0.0);
+  std::vector<int64_t> nz(segs, 0), nexc(segs, 0), nelig(segs, 0), ns2(segs, 0);
+  for (size_t i = 0; i < n; ++i) {
+    const int k = h.session_bar[i];
+    if (k < 0 || k >= K) continue;
+    if (opt.evaluation.exclude_warmup && (h.flags[i] & kFlagWarmup)) continue;
+    const int g = seg_of(k);
+    if (std::isfinite(h.z[i])) {
+      z2[g] += h.z[i] * h.z[i];
+      ++nz[g];
+    }
+    if (lv >= 0 && i > 0 && !(h.flags[i] & kFlagGap)) {
+      const double v = h.var_risk_next[lv][i - 1];
+      if (std::isfinite(v)) {
+        ++nelig[g];
+        if (h.r[i] < -v) ++nexc[g];
+      }
+    }
+  }
+  for (int k = 0; k < static_cast<int>(h.seasonal_factors.size()); ++k) {
+    s2[seg_of(k)] += h.seasonal_factors[k];
+    ++ns2[seg_of(k)];
+  }
+  double s2_max = 0;
+  for (int g = 0; g < segs; ++g) {
+    if (ns2[g] > 0) s2[g] /= static_cast<double>(ns2[g]);
+    s2_max = std::max(s2_max, s2[g]);
+  }
+  const bool profile = !h.seasonal_factors.empty();
+  std::string s = absl::StrCat(
+      "<table class=\"grid\"><caption>By time of day (", K, " bars a session in ", segs,
+      " segments; ",
+      profile ? "profile s&sup2; in force at the end" : "no intraday profile (seasonality off)",
+      ")</caption><thead><tr><th>bars of the session</th><th>profile s&sup2;</th>"
+      "<th>bars</th><th>mean z&sup2;</th><th>exceptions @",
+      LevelLabel(opt.var_level), " (expected)</th></tr></thead><tbody>");
+  for (int g = 0; g < segs; ++g) {
+    const int first = static_cast<int>((static_cast<int64_t>(g) * K + segs - 1) / segs);
+    const int last = static_cast<int>((static_cast<int64_t>(g + 1) * K + segs - 1) / segs) - 1;
+    std::string bar_cell = "&ndash;";
+    if (profile && ns2[g] > 0) {
+      const double width = s2_max > 0 ? 100.0 * s2[g] / s2_max : 0;
+      bar_cell =
+          absl::StrCat("<span class=\"tod-bar\" style=\"display:inline-block;height:0.7em;width:",
+                       Fmt(0.6 * width, "%.1f"), "px;background:#6a8caf;margin-right:4px\"></span>",
+                       Fmt(s2[g], "%.3g"));
+    }
+    absl::StrAppend(
+        &s, "<tr>", Td(absl::StrCat(first, "&ndash;", last), "", false), Td(bar_cell, "", false),
+        Td(absl::StrCat(nz[g])),
+        Td(nz[g] > 0 ? Fmt(z2[g] / static_cast<double>(nz[g]), "%.3f") : "&ndash;"),
+        Td(lv >= 0
+               ? absl::StrCat(nexc[g], " (",
+                              Fmt((1 - opt.var_level) * static_cast<double>(nelig[g]), "%.1f"), ")")
+               : "&ndash;"),
+        "</tr>");
+  }
+  s += "</tbody></table>";
+  return s;
+}
+
 }  // namespace
 
 std::string HtmlEscape(const std::string& text) {
@@ -491,9 +567,9 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     }
     absl::StrAppend(&sections, "<div class=\"charts\" data-symbol-index=\"", si,
                     "\" data-charts=\"", charts - before, "\"></div>");
-    absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), ForecastTable(*ev),
-                    "<div class=\"pair\">", AlertTable(*ev), "</div>", SwapTable(h, *ev),
-                    "</div></section>");
+    absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), TimeOfDayTable(h, opt),
+                    ForecastTable(*ev), "<div class=\"pair\">", AlertTable(*ev), "</div>",
+                    SwapTable(h, *ev), "</div></section>");
   }
 
   json meta = {{"vol_unit", vol_unit}};

@@ -38,7 +38,10 @@ void ReplayRecorder::OnNewSymbol(IngestCore* core, int index, absl::string_view 
 void ReplayRecorder::OnBar(IngestCore* core, int index, const ClosedBar& bar,
                            BarUpdate* update) {
   // No realized-variance column reaches the bar builder: rv stays absent.
-  (void)AppendBarUpdate(*update, std::numeric_limits<double>::quiet_NaN(), &histories_[index]);
+  SymbolHistory& h = histories_[index];
+  if (AppendBarUpdate(*update, std::numeric_limits<double>::quiet_NaN(), &h).ok()) {
+    h.session_bar.push_back(bar.session_bar);
+  }
 }
 
 void ReplayRecorder::OnAlert(int index, const Alert& alert) {
@@ -94,6 +97,8 @@ void ReplayRecorder::Finish(const IngestCore& core) {
     }
     auto law = InnovationLaw::FromParams(core.model(static_cast<int>(i)).params());
     if (law.ok()) h.law = *law;
+    const SeasonalProfile* prof = core.seasonal_profile(static_cast<int>(i));
+    h.seasonal_factors = prof != nullptr ? prof->factors() : std::vector<double>{};
   }
 }
 

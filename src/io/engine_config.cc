@@ -34,6 +34,38 @@ absl::string_view LogLevelName(LogLevel l) {
   return "info";
 }
 
+absl::string_view OpeningReturnName(OpeningReturn o) {
+  return o == OpeningReturn::kScaled ? "scaled" : "skip";
+}
+
+int64_t SeasonalityConfig::BarsPerSession(const BarsConfig& bars) {
+  const SessionWindow& w = bars.session;
+  int64_t length = kNanosPerDay;
+  if (w.enabled) {
+    const int minutes = w.end_minute > w.start_minute ? w.end_minute - w.start_minute
+                                                      : w.end_minute + 1440 - w.start_minute;
+    length = minutes * kNanosPerMinute;
+  }
+  return (length + bars.interval_ns - 1) / bars.interval_ns;
+}
+
+SeasonalOptions SeasonalityConfig::ToOptions(const BarsConfig& bars, int max_horizon) const {
+  SeasonalOptions o;
+  o.buckets = static_cast<int>(std::min<int64_t>(BarsPerSession(bars), kMaxSeasonalBuckets + 1));
+  o.method = method;
+  o.smoothing = smoothing;
+  o.min_sessions = min_sessions;
+  o.prior_sessions = prior_sessions;
+  o.max_ahead = std::max(1, max_horizon);
+  return o;
+}
+
+BarOptions EngineConfig::ToBarOptions() const {
+  BarOptions o = bars.ToBarOptions();
+  o.overnight_return = SeasonalityActive() && seasonality.opening_return == OpeningReturn::kScaled;
+  return o;
+}
+
 EngineConfig::EngineConfig() {
   model.spec.mean = MeanKind::kConstant;
   model.spec.variance = VarianceKind::kGarch;
@@ -634,6 +666,58 @@ absl::Status ParseRefit(const Section& s, RefitConfig* c) {
   return absl::OkStatus();
 }
 
+absl::Status ParseSeasonality(const Section& s, const BarsConfig& bars, const OutputsConfig& out,
+                              SeasonalityConfig* c) {
+  AS_RETURN_IF_ERROR(s.CheckKeys(
+      {"enabled", "method", "min_sessions", "smoothing", "prior_sessions", "opening_return"}));
+  if (const toml::node* n = s.Node("enabled"); n != nullptr) {
+    if (n->is_boolean()) {
+      c->enabled = n->as_boolean()->get() ? SeasonalSwitch::kOn : SeasonalSwitch::kOff;
+    } else if (n->is_string() && n->as_string()->get() == "auto") {
+      c->enabled = SeasonalSwitch::kAuto;
+    } else {
+      return s.KeyError("enabled", absl::StrCat("expected \"auto\", true or false, got ",
+                                                n->is_string() ? "\"" + n->as_string()->get() + "\""
+                                                               : TypeName(*n)));
+    }
+  }
+  int method = static_cast<int>(c->method);
+  AS_RETURN_IF_ERROR(s.Word("method", {"local-linear", "fourier"}, &method));
+  c->method = static_cast<SeasonalMethod>(method);
+  AS_RETURN_IF_ERROR(s.Integer("min_sessions", &c->min_sessions, 1, 10000));
+  AS_RETURN_IF_ERROR(s.Number("smoothing", &c->smoothing, 0, 10000, false, false));
+  AS_RETURN_IF_ERROR(s.Number("prior_sessions", &c->prior_sessions, 0, 1e6, false, false));
+  int opening = static_cast<int>(c->opening_return);
+  AS_RETURN_IF_ERROR(s.Word("opening_return", {"skip", "scaled"}, &opening));
+  c->opening_return = static_cast<OpeningReturn>(opening);
+  if (c->enabled == SeasonalSwitch::kOn && bars.interval_ns <= 0) {
+    return s.KeyError("enabled", "needs time bars ([bars] interval > 0)");
+  }
+  if (c->opening_return == OpeningReturn::kScaled && !c->Active(bars)) {
+    return s.KeyError("opening_return",
+                      "\"scaled\" needs seasonality on (a [bars] session and interval > 0)");
+  }
+  if (c->Active(bars)) {
+    const int64_t k = SeasonalityConfig::BarsPerSession(bars);
+    if (k < 2 || k > kMaxSeasonalBuckets) {
+      if (c->enabled == SeasonalSwitch::kAuto) {
+        c->enabled = SeasonalSwitch::kOff;  // no usable grid for a profile: stays off
+      } else {
+        return s.KeyError("enabled",
+                          absl::StrCat("a session of ", k, " bars: seasonality needs 2..",
+                                       kMaxSeasonalBuckets, " bars per session"));
+      }
+    }
+  }
+  if (c->Active(bars)) {
+    const int hmax = out.horizons.empty() ? 1 : out.horizons.back();
+    if (auto st = ValidateSeasonalOptions(c->ToOptions(bars, hmax)); !st.ok()) {
+      return s.KeyError("smoothing", st.message());
+    }
+  }
+  return absl::OkStatus();
+}
+
 // The values of [alerts] (and of a group, over a copy of [alerts]).
 absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
   AS_RETURN_IF_ERROR(s.Number("shock_z", &c->shock_z, 0, kInf, true, true));
@@ -749,9 +833,9 @@ absl::Status ParseLog(const Section& s, LogConfig* c) {
 }
 
 absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::string& source) {
-  static constexpr absl::string_view kSections[] = {"feed",   "publish", "bars",       "model",
-                                                    "warmup", "outputs", "limits",     "refit",
-                                                    "alerts", "http",    "checkpoint", "log"};
+  static constexpr absl::string_view kSections[] = {
+      "feed",  "publish",     "bars",   "model", "warmup",     "outputs", "limits",
+      "refit", "seasonality", "alerts", "http",  "checkpoint", "log"};
   for (auto&& [k, v] : doc) {
     bool known = false;
     for (absl::string_view name : kSections) known = known || Sv(k.str()) == name;
@@ -790,6 +874,7 @@ absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::st
     AS_RETURN_IF_ERROR(s.Integer("max_symbols", &c.limits.max_symbols, 1, 100000000));
   }
   AS_RETURN_IF_ERROR(ParseRefit(section("refit"), &c.refit));
+  AS_RETURN_IF_ERROR(ParseSeasonality(section("seasonality"), c.bars, c.outputs, &c.seasonality));
   AS_RETURN_IF_ERROR(ParseAlerts(&source, section("alerts"), &c.alerts, &c.alert_groups));
   AS_RETURN_IF_ERROR(ParseHttp(section("http"), &c.http));
   AS_RETURN_IF_ERROR(ParseCheckpoint(section("checkpoint"), &c.checkpoint));
@@ -940,6 +1025,14 @@ std::string FormatEngineConfig(const EngineConfig& c) {
                   "\nqueue_capacity = ", r.queue_capacity,
                   "\ndiagnostics_level = ", num(r.diagnostics_level),
                   "\ngroup_models = ", r.group_models ? "true" : "false", "\n");
+  const SeasonalityConfig& sc = c.seasonality;
+  absl::StrAppend(
+      &o, "\n[seasonality]\nenabled = ",
+      sc.enabled == SeasonalSwitch::kAuto ? "\"auto\""
+                                          : (sc.enabled == SeasonalSwitch::kOn ? "true" : "false"),
+      "\nmethod = ", Quote(SeasonalMethodName(sc.method)), "\nmin_sessions = ", sc.min_sessions,
+      "\nsmoothing = ", num(sc.smoothing), "\nprior_sessions = ", num(sc.prior_sessions),
+      "\nopening_return = ", Quote(OpeningReturnName(sc.opening_return)), "\n");
   auto alert_keys = [&](const AlertsConfig& a) {
     absl::StrAppend(&o, "shock_z = ", num(a.shock_z),
                     "\nshock_critical_z = ", num(a.shock_critical_z),

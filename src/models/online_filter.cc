@@ -74,6 +74,12 @@ absl::StatusOr<FilterModel> FilterModel::Create(const ModelParams& params,
     }
   }
   m.max_horizon_ = outputs.horizons.empty() ? 0 : outputs.horizons.back();
+  if (spec.variance == VarianceKind::kEwma) {
+    m.phi_ = 1;
+  } else {
+    m.phi_ = params.Persistence();
+    m.sbar2_ = m.phi_ < 1 ? params.UnconditionalVariance() : 0.0;
+  }
   auto law = InnovationLaw::FromParams(params);
   if (!law.ok()) return law.status();
   auto risk = RiskQuantiles::Create(*law, outputs.risk_levels);
@@ -227,6 +233,50 @@ void FilterStep(const FilterModel& m, FilterState* state, double r, BarUpdate* o
   }
   out->scale = std::min(m.scale_cap_, m.scale_num_ / sd_next);
   out->ver = m.version_;
+}
+
+void SeasonalizeUpdate(const FilterModel& m, const FilterState& state, double r, double s2_now,
+                       const double* s2_ahead, BarUpdate* out) {
+  const double s_now = std::sqrt(s2_now);
+  out->r = r;
+  out->mu *= s_now;
+  out->eps *= s_now;
+  out->var *= s2_now;
+  const double h_next = state.var.next_variance;
+  const double f_next = s2_ahead[0];
+  const double v_next = f_next * h_next;
+  const double sd_next = std::sqrt(v_next);
+  out->var_next = v_next;
+  out->vol_ann = sd_next * m.sqrt_ppy_;
+  const int nh = m.horizons_.size();
+  if (nh > 0) {
+    const int hmax = m.max_horizon_;
+    double path[kMaxHorizonBars];
+    if (m.horizons_.closed()) {
+      // E h_{T+j} = sbar2 + phi^(j-1) (h_next - sbar2); flat when phi >= 1.
+      const bool flat = !(m.phi_ < 1);
+      double p = 1;
+      for (int j = 0; j < hmax; ++j) {
+        path[j] = flat ? h_next : m.sbar2_ + p * (h_next - m.sbar2_);
+        p *= m.phi_;
+      }
+    } else {
+      ForecastVariances(m.params_, state.var, absl::Span<double>(path, hmax));
+    }
+    double cum = 0;
+    int next = 0;
+    for (int h = 1; h <= hmax && next < nh; ++h) {
+      cum += s2_ahead[h - 1] * path[h - 1];
+      while (next < nh && m.horizons_.horizon(next) == h) out->var_h[next++] = cum;
+    }
+  }
+  const double s_next = std::sqrt(f_next);
+  const double mu_next = state.mu_next * s_next;
+  for (int i = 0; i < m.risk_.size(); ++i) {
+    out->var_risk[i] = m.risk_.VaR(i, mu_next, sd_next);
+    out->es[i] = m.risk_.ES(i, mu_next, sd_next);
+  }
+  out->scale = std::min(m.scale_cap_, m.scale_num_ / sd_next);
 }
 
 std::vector<BarUpdate> FilterSeries(const FilterModel& model, double initial_variance,

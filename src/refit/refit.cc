@@ -19,6 +19,8 @@ struct RefitCoordinator::JobSlot {
   uint32_t symbol_id = 0;
   std::string symbol;           // capacity reserved for kMaxSymbolLength
   std::vector<double> returns;  // capacity reserved for `window` doubles
+  std::vector<int32_t> tags;    // seasonal: the returns' tags (capacity reserved)
+  SeasonalProfilePtr prior;     // seasonal: the pool's snapshot (may be null)
   ModelVersionPtr in_force;     // scored on the holdout
   ModelVersionPtr estimated;    // warm start (may be null)
   bool reidentify = false;
@@ -30,6 +32,7 @@ struct RefitCoordinator::JobSlot {
   bool passed = false;
   bool refit_error = false;
   ModelVersionPtr candidate;  // set when passed
+  SeasonalEstimate estimate;  // seasonal: the profile estimated from `returns`
   FilterState tail_state;     // candidate's state at the end of `returns`
   RefitRecord record;
 };
@@ -52,6 +55,29 @@ void RunTail(const FilterModel& model, absl::Span<const double> w, int tail, Fil
   if (model.is_ewma() && !(v0 > 0)) v0 = 1e-12;
   InitFilterState(model, v0, st);
   for (size_t i = start; i < n; ++i) AdvanceState(model, st, w[i]);
+}
+
+// The series the filter consumes under `profile` (SeasonalInput) and the
+// log s of each of its entries.
+void SeasonalSeries(const SeasonalProfile* profile, absl::Span<const double> r,
+                    absl::Span<const int32_t> tags, std::vector<double>* x,
+                    std::vector<double>* log_s) {
+  x->clear();
+  log_s->clear();
+  for (size_t i = 0; i < r.size(); ++i) {
+    double v;
+    if (!SeasonalInput(profile, r[i], tags[i], &v)) continue;
+    x->push_back(v);
+    log_s->push_back(SeasonalLogScale(profile, tags[i]));
+  }
+}
+
+double TailSum(const std::vector<double>& v, int n) {
+  double s = 0;
+  for (size_t i = v.size() - std::min(v.size(), static_cast<size_t>(n)); i < v.size(); ++i) {
+    s += v[i];
+  }
+  return s;
 }
 
 }  // namespace
@@ -116,13 +142,15 @@ RefitCoordinator::RefitCoordinator(const RefitOptions& options, const OutputOpti
       outputs_(outputs),
       scheduler_(options),
       refitter_(std::move(refitter)),
-      ewma_(std::move(ewma)) {
+      ewma_(std::move(ewma)),
+      seasonal_pool_(options.seasonal_options) {
   const int cap = options_.queue_capacity;
   jobs_.reserve(static_cast<size_t>(cap));
   free_slots_.reserve(static_cast<size_t>(cap));
   for (int i = 0; i < cap; ++i) {
     auto j = std::make_unique<JobSlot>();
     j->returns.reserve(static_cast<size_t>(options_.window));
+    if (options_.seasonal) j->tags.reserve(static_cast<size_t>(options_.window));
     j->symbol.reserve(kMaxSymbolLength);
     jobs_.push_back(std::move(j));
   }
@@ -146,7 +174,7 @@ absl::StatusOr<uint32_t> RefitCoordinator::AddSymbol(absl::string_view symbol, u
   if (index_.contains(symbol)) {
     return absl::AlreadyExistsError(absl::StrCat("symbol ", symbol, " is already registered"));
   }
-  auto w = RollingWindow::Create(options_.window);
+  auto w = RollingWindow::Create(options_.window, options_.seasonal);
   if (!w.ok()) return w.status();
   SymbolSlot s;
   s.name = std::string(symbol);
@@ -175,10 +203,15 @@ uint32_t RefitCoordinator::flags(uint32_t id) const {
   return 0;
 }
 
-RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state) {
+void RefitCoordinator::RecordSkipped(uint32_t id, double r, int32_t tag) {
+  symbols_[id].window.Push(r, tag);
+}
+
+RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state,
+                                       int32_t tag) {
   RefitBarResult res;
   SymbolSlot& sym = symbols_[id];
-  sym.window.Push(r);
+  sym.window.Push(r, tag);
   const int64_t bars = sym.window.total();
   if (sym.pending >= 0) {
     const uint32_t slot = static_cast<uint32_t>(sym.pending);
@@ -275,6 +308,11 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
   j.symbol_id = id;
   j.symbol.assign(sym->name);
   sym->window.CopyTo(&j.returns);  // capacity reserved: no allocation
+  if (options_.seasonal) {
+    sym->window.CopyTagsTo(&j.tags);
+    // Rebuilt (allocating) only when a job was applied since the last snapshot.
+    j.prior = options_.seasonal_options.prior_sessions > 0 ? seasonal_pool_.Snapshot() : nullptr;
+  }
   j.in_force = sym->current;
   j.estimated = sym->last_estimated;
   j.fit_index = sym->fits++;
@@ -297,9 +335,24 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
 void RefitCoordinator::Process(uint32_t slot) {
   JobSlot& j = *jobs_[slot];
   const auto t0 = std::chrono::steady_clock::now();
+  // Seasonality: estimate the profile, then fit on what the filter consumes.
+  std::vector<double> x, log_s, x_old, log_s_old;
+  SeasonalProfilePtr profile;
+  absl::Span<const double> series = j.returns;
+  j.estimate = SeasonalEstimate{};
+  if (options_.seasonal) {
+    auto est = EstimateSeasonalProfile(j.returns, j.tags, options_.seasonal_options, j.prior.get());
+    if (est.ok()) {
+      j.estimate = *std::move(est);
+      profile = j.estimate.profile;
+    }
+    SeasonalSeries(profile.get(), j.returns, j.tags, &x, &log_s);
+    SeasonalSeries(j.in_force->profile.get(), j.returns, j.tags, &x_old, &log_s_old);
+    series = x;
+  }
   RefitRequest req;
   req.symbol_id = j.symbol_id;
-  req.returns = j.returns;
+  req.returns = series;
   req.current = j.estimated ? &j.estimated->model.params() : nullptr;
   req.reidentify = j.reidentify;
   req.seed = j.seed;
@@ -346,11 +399,18 @@ void RefitCoordinator::Process(uint32_t slot) {
   for (double v : p.values) finite = finite && std::isfinite(v);
   if (finite && p.CheckConstraints().ok()) fm = FilterModel::Create(p, outputs_, j.version);
   const int hb = options_.holdout_bars;
-  if (fm.ok() && hb > 0 && static_cast<int>(j.returns.size()) > hb) {
+  if (fm.ok() && hb > 0 && static_cast<int>(series.size()) > hb &&
+      (!options_.seasonal || static_cast<int>(x_old.size()) > hb)) {
     HoldoutScore hs;
     hs.bars = hb;
-    hs.candidate_loglik = ScoreHoldout(*fm, j.returns, hb);
-    hs.current_loglik = ScoreHoldout(j.in_force->model, j.returns, hb);
+    if (options_.seasonal) {
+      // Raw-return units: density of r = s x is f(x) / s.
+      hs.candidate_loglik = ScoreHoldout(*fm, x, hb) - TailSum(log_s, hb);
+      hs.current_loglik = ScoreHoldout(j.in_force->model, x_old, hb) - TailSum(log_s_old, hb);
+    } else {
+      hs.candidate_loglik = ScoreHoldout(*fm, j.returns, hb);
+      hs.current_loglik = ScoreHoldout(j.in_force->model, j.returns, hb);
+    }
     gi.holdout = hs;
   }
   GateOutcome gate = EvaluateQualityGate(gi, options_);
@@ -366,7 +426,8 @@ void RefitCoordinator::Process(uint32_t slot) {
     v->std_errors = fit.std_errors;
     v->loglik = fit.loglik;
     v->fitted_bar = j.bar;
-    RunTail(v->model, j.returns, kSwapTailBars, &j.tail_state);
+    v->profile = profile;
+    RunTail(v->model, series, kSwapTailBars, &j.tail_state);
     j.candidate = std::move(v);
     j.passed = true;
   }
@@ -376,6 +437,7 @@ void RefitCoordinator::Process(uint32_t slot) {
 void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state) {
   JobSlot& j = *jobs_[slot];
   const int64_t bars = sym->window.total();
+  if (options_.seasonal) seasonal_pool_.Add(j.estimate);
   if (j.passed) {
     sym->current = std::move(j.candidate);
     sym->last_estimated = sym->current;
@@ -388,20 +450,25 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
     g.donor = sym->name;
     ++g.seq;
     const FilterModel& m = sym->current->model;
+    const SeasonalProfile* prof = sym->current->profile.get();
+    // One window entry as the filter consumes it under the new version.
+    auto advance = [&](int back) {
+      double x = sym->window.back(back);
+      if (options_.seasonal && !SeasonalInput(prof, x, sym->window.tag_back(back), &x)) return;
+      AdvanceState(m, state, x);
+    };
     // The worker's state ends at the job's window; catch up on the returns
     // that arrived since (normally apply_lag_bars of them).
     const int64_t since = bars - j.bar;
     if (since <= sym->window.size() && since <= kSwapTailBars) {
       *state = j.tail_state;
-      for (int64_t i = since - 1; i >= 0; --i) {
-        AdvanceState(m, state, sym->window.back(static_cast<int>(i)));
-      }
+      for (int64_t i = since - 1; i >= 0; --i) advance(static_cast<int>(i));
     } else {
       // A very late job (live mode): re-run over the current window's tail.
       const int n = sym->window.size();
       const int tail = std::min(n, kSwapTailBars);
       InitFilterState(m, 0, state);
-      for (int i = tail - 1; i >= 0; --i) AdvanceState(m, state, sym->window.back(i));
+      for (int i = tail - 1; i >= 0; --i) advance(i);
     }
     j.record.outcome = RefitOutcome::kSwapped;
     counters_.swapped.fetch_add(1, std::memory_order_relaxed);
@@ -435,6 +502,7 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   j.in_force.reset();
   j.estimated.reset();
   j.candidate.reset();
+  j.prior.reset();
   pool_->Recycle(slot);
   free_slots_.push_back(slot);
   sym->pending = -1;
@@ -464,7 +532,17 @@ size_t RefitCoordinator::MemoryBytesPerSymbol() const {
   // (at most 2 * 32 doubles for the largest spec in practice), and the
   // shared_ptr control block.
   const size_t version = sizeof(ModelVersion) + 2 * 32 * sizeof(double) + 32;
+  // Seasonal: the window's tags and one profile (about 3 doubles a bucket plus
+  // the look-ahead).
+  const size_t seasonal = options_.seasonal
+                              ? static_cast<size_t>(options_.window) * sizeof(int32_t) +
+                                    sizeof(SeasonalProfile) +
+                                    static_cast<size_t>(3 * options_.seasonal_options.buckets +
+                                                        options_.seasonal_options.max_ahead + 1) *
+                                        sizeof(double)
+                              : 0;
   return sizeof(SymbolSlot) + static_cast<size_t>(options_.window) * sizeof(double) + version +
+         seasonal +
          // hash-map entry: key string, id and control byte
          sizeof(std::string) + sizeof(uint32_t) + 1 + kMaxSymbolLength;
 }

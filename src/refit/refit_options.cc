@@ -15,6 +15,11 @@ absl::Status Bad(absl::string_view field, absl::string_view rule) {
 
 absl::Status RefitOptions::Validate() const {
   if (every_bars < 0) return Bad("every_bars", "must be >= 0");
+  if (seasonal) {
+    if (auto s = ValidateSeasonalOptions(seasonal_options); !s.ok()) {
+      return absl::InvalidArgumentError(absl::StrCat("[seasonality] ", s.message()));
+    }
+  }
   if (!(every_seconds >= 0) || !std::isfinite(every_seconds)) {
     return Bad("every_seconds", "must be a finite number >= 0");
   }

@@ -47,7 +47,10 @@ void OpenBar(BarState* st, const Tick& tick, const BarOptions& o) {
   int64_t end = start + o.interval_ns;
   if (end > session_end) end = session_end;
   const bool gap = (st->any_bar || st->open) && day != st->session_day;
-  if (gap) st->has_prev_close = false;
+  if (gap && !o.overnight_return) st->has_prev_close = false;
+  st->open_index = static_cast<int32_t>(
+      (o.session.enabled ? start - anchor : FloorMod(start - anchor, kNanosPerDay)) /
+      o.interval_ns);
   st->open = true;
   st->open_gap = gap;
   st->session_day = day;
@@ -59,13 +62,14 @@ void OpenBar(BarState* st, const Tick& tick, const BarOptions& o) {
   st->ret_sum = tick.kind == Tick::kReturn ? tick.value : 0;
 }
 
-ClosedBar CloseBar(BarState* st, bool by_clock) {
+ClosedBar CloseBar(BarState* st, bool by_clock, bool overnight) {
   ClosedBar bar;
   bar.t_end_ns = st->open_end_ns;
   bar.n_ticks = st->n_ticks;
   bar.closed_by_clock = by_clock;
+  bar.session_bar = st->open_index;
   if (st->kind == Tick::kPrice) {
-    bar.has_return = st->has_prev_close && !st->open_gap;
+    bar.has_return = st->has_prev_close && (!st->open_gap || overnight);
     bar.ret = bar.has_return ? LogReturn(st->open_price, st->prev_close) : 0.0;
     bar.last_price = st->open_price;
     st->prev_close = st->open_price;
@@ -125,7 +129,7 @@ FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {
     bar.t_end_ns = tick.t_ns;
     bar.n_ticks = 1;
     if (tick.kind == Tick::kPrice) {
-      bar.has_return = st->has_prev_close && !gap;
+      bar.has_return = st->has_prev_close && (!gap || o.overnight_return);
       bar.ret = bar.has_return ? LogReturn(tick.value, st->prev_close) : 0.0;
       bar.last_price = tick.value;
       st->prev_close = tick.value;
@@ -157,7 +161,7 @@ FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {
     if (tick.t_ns > st->latest_t_ns) st->latest_t_ns = tick.t_ns;
   } else {
     if (st->open) {
-      res.bar = CloseBar(st, /*by_clock=*/false);
+      res.bar = CloseBar(st, /*by_clock=*/false, o.overnight_return);
       res.closed = true;
     } else if (st->any_bar && tick.t_ns < st->closed_end_ns) {
       return Reject(RejectReason::kTooOld);
@@ -176,7 +180,7 @@ bool CloseIfDue(BarState* st, int64_t now_ns, int64_t grace_ns, const BarOptions
                 ClosedBar* out) {
   if (o.interval_ns == 0 || !st->open) return false;
   if (now_ns < st->open_end_ns || now_ns - st->open_end_ns < grace_ns) return false;
-  *out = CloseBar(st, /*by_clock=*/true);
+  *out = CloseBar(st, /*by_clock=*/true, o.overnight_return);
   return true;
 }
 

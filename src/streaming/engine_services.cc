@@ -47,6 +47,11 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   o.first_version = config.model.has_params ? 2 : 1;
   o.mode = so.mode;
   o.group_models = c.group_models;
+  if (config.SeasonalityActive()) {
+    o.seasonal = true;
+    const std::vector<int>& hz = config.outputs.horizons;
+    o.seasonal_options = config.seasonality.ToOptions(config.bars, hz.empty() ? 1 : hz.back());
+  }
   return o;
 }
 
@@ -100,6 +105,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       }
       refit_ = *std::move(coord);
     }
+    seasonal_ = core_->seasonality_active();
+    if (seasonal_ && !refit_) pool_ = std::make_unique<SeasonalPool>(core_->seasonal_options());
     if (!options_.alerts_path.empty()) {
       alerts_file_ = std::fopen(options_.alerts_path.c_str(), "w");
       if (alerts_file_ == nullptr) {
@@ -187,6 +194,44 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     if (refit_) {
       auto id = refit_->AddSymbol(symbol, group);
       p.refit_id = id.ok() ? static_cast<int64_t>(*id) : -1;
+    } else if (seasonal_) {
+      auto w = RollingWindow::Create(config_.refit.window, /*with_tags=*/true);
+      if (w.ok()) p.seasonal_window = *std::move(w);
+    }
+  }
+
+  // ---- Seasonality without refits: the profile is re-estimated from the
+  // symbol's own tagged window at each session start (the first return of a
+  // new session, before it is recorded), i.e. from complete sessions, off the
+  // per-bar path; it applies from the next bar on.
+  void RecordSeasonal(IngestCore* core, int index, double r, int32_t tag) {
+    PerSymbol& p = symbols_[index];
+    RollingWindow& w = p.seasonal_window;
+    if (w.capacity() == 0) return;
+    const bool after_opening = w.size() > 0 && (w.tag_back(0) & kSeasonalTagOvernight);
+    if ((tag & kSeasonalTagSessionStart) && w.size() > 0 && !after_opening) {
+      w.CopyTo(&seasonal_r_);
+      w.CopyTagsTo(&seasonal_tags_);
+      const SeasonalOptions& so = core->seasonal_options();
+      SeasonalProfilePtr prior = so.prior_sessions > 0 ? pool_->Snapshot() : nullptr;
+      auto est = EstimateSeasonalProfile(seasonal_r_, seasonal_tags_, so, prior.get());
+      if (est.ok()) {
+        pool_->Add(*est);
+        if (est->profile != nullptr) {
+          if (!core->SetSeasonalProfile(index, est->profile).ok()) ++swap_errors_;
+        }
+      }
+    }
+    w.Push(r, tag);
+  }
+
+  void OnSkippedReturn(IngestCore* core, int index, const ClosedBar& bar, double r) override {
+    const int32_t tag = core->SeasonalTagOf(bar, bar.flags);
+    PerSymbol& p = symbols_[index];
+    if (refit_ && p.refit_id >= 0) {
+      refit_->RecordSkipped(static_cast<uint32_t>(p.refit_id), r, tag);
+    } else if (seasonal_) {
+      RecordSeasonal(core, index, r, tag);
     }
   }
 
@@ -196,13 +241,15 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     AlertEngine* alerts = p.alerts_engine;
     alerts->OnTick(p.symbol, core->last_arrival_ns(index), &p.alerts, &sink_);
     alerts->OnBar(*update, &p.alerts, &sink_);
+    const int32_t tag = seasonal_ ? core->SeasonalTagOf(bar, update->flags) : 0;
+    if (seasonal_ && !refit_) RecordSeasonal(core, index, update->r, tag);
     if (!refit_ || p.refit_id < 0) return;
     const uint32_t id = static_cast<uint32_t>(p.refit_id);
     // A raw pointer: copying the shared_ptr would cost two atomic operations a bar.
     const ModelVersion* before = refit_->current(id).get();
     // The coordinator re-runs the core's state in place when it swaps.
     const RefitBarResult res =
-        refit_->OnBar(id, update->t_ns, update->r, core->mutable_filter_state(index));
+        refit_->OnBar(id, update->t_ns, update->r, core->mutable_filter_state(index), tag);
     if (!res.applied && !res.pooled) return;
     const RefitRecord* rec_ptr = &refit_->last_record();
     if (options_.mode == RefitMode::kReplay) {
@@ -222,6 +269,10 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       swap.model = std::shared_ptr<const FilterModel>(now, &now->model);
       swap.start = ModelSwap::Start::kKeepState;  // already re-run by the coordinator
       swap.status_flags = refit_->flags(id);
+      // The profile the model was fitted with comes along; the EWMA fallback
+      // (version 0) keeps the profile in force.
+      swap.replace_profile = seasonal_ && now->version != 0;
+      swap.profile = now->profile;
       // Cannot fail: the model is created and the state given; counted if it did.
       if (!core->SwapModel(index, swap).ok()) ++swap_errors_;
     }
@@ -282,6 +333,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     AlertEngine* alerts_engine = nullptr;  // [alerts] or the symbol's group
     int64_t refit_id = -1;
     bool fallback = false;
+    RollingWindow seasonal_window;  // seasonality without refits: tagged returns
   };
 
   IngestCore* const core_;
@@ -296,6 +348,10 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   std::vector<PerSymbol> symbols_;  // by core index
   uint64_t rejects_seen_ = 0;
   uint64_t swap_errors_ = 0;
+  bool seasonal_ = false;
+  std::unique_ptr<SeasonalPool> pool_;  // seasonality without refits
+  std::vector<double> seasonal_r_;      // estimation buffers (session starts only)
+  std::vector<int32_t> seasonal_tags_;
   RefitRecord replay_record_;
   std::string json_, alert_json_, reason_;
 };

@@ -60,13 +60,19 @@ absl::StatusOr<std::unique_ptr<IngestCore>> IngestCore::Create(const EngineConfi
 IngestCore::IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* clock,
                        std::shared_ptr<const FilterModel> initial_model)
     : config_(config),
-      bar_options_(config.bars.ToBarOptions()),
+      bar_options_(config.ToBarOptions()),
       sink_(sink),
       clock_(clock),
       initial_model_(std::move(initial_model)) {
   initial_flags_ = config.model.has_params ? 0u : static_cast<uint32_t>(kFlagWarmup);
   price_return_scale_ = config.outputs.return_units == ReturnUnits::kPercent ? 100.0 : 1.0;
   encode_binary_ = config.publish.encoding == WireEncoding::kBinary;
+  seasonal_ = config.SeasonalityActive();
+  opening_scaled_ = seasonal_ && config.seasonality.opening_return == OpeningReturn::kScaled;
+  if (seasonal_) {
+    const std::vector<int>& hz = config.outputs.horizons;
+    seasonal_options_ = config.seasonality.ToOptions(config.bars, hz.empty() ? 1 : hz.back());
+  }
   const int64_t reserve = std::min<int64_t>(config.limits.max_symbols, kMaxReservedSlots);
   slots_.reserve(static_cast<size_t>(reserve));
   index_.reserve(static_cast<size_t>(reserve));
@@ -162,6 +168,20 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
   double r = bar.ret;
   if (bar.last_price > 0) r *= price_return_scale_;
   const FilterModel& model = *slot.model;
+  // ---- Intraday seasonality: the filter sees x = r / s(k) ----
+  const double r_raw = r;
+  const SeasonalProfile* prof = seasonal_ ? slot.profile.get() : nullptr;
+  const int32_t tag = seasonal_ ? SeasonalTagOf(bar, flags) : 0;
+  if (seasonal_ && !SeasonalInput(prof, r_raw, tag, &r)) {
+    // An opening return without an overnight multiplier: not filtered.
+    slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
+    for (BarObserver* o : observers_) o->OnSkippedReturn(this, index, bar, r_raw);
+    return;
+  }
+  const int k_bar = bar.session_bar;
+  const bool adjust =
+      prof != nullptr && ((tag & kSeasonalTagOvernight) || (k_bar >= 0 && k_bar < prof->buckets()));
+  // ---- end seasonality ----
   if (!slot.filter_ready) {
     // EWMA warm-up start ([warmup] start_bars = m): collect m finite returns,
     // start the variance at their robust scale and run them through; they
@@ -214,6 +234,14 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
       InitFilterState(model, 0.0, &slot.filter);
     }
     return;
+  }
+  if (adjust) {
+    // Back to return units with the factors of this bar and the bars ahead.
+    const int kk = std::min(std::max(k_bar, 0), prof->buckets() - 1);
+    const double s2_now =
+        (tag & kSeasonalTagOvernight) ? prof->overnight_factor() : prof->factor(kk);
+    SeasonalizeUpdate(model, slot.filter, r_raw, s2_now, prof->ahead(kk), &u);
+    u.flags |= kFlagSeasonal;
   }
   ++slot.filtered;
   if (slot.filtered < static_cast<uint64_t>(config_.warmup.min_bars)) u.flags |= kFlagFirstBar;
@@ -285,6 +313,30 @@ void IngestCore::CloseAllOpenBars() {
   }
 }
 
+int32_t IngestCore::SeasonalTagOf(const ClosedBar& bar, uint32_t update_flags) const {
+  const bool start = (update_flags & kFlagGap) != 0;
+  const bool overnight = opening_scaled_ && (bar.flags & kFlagGap) && bar.last_price > 0;
+  const int k = std::min(std::max(bar.session_bar, 0), kSeasonalTagBucketMask);
+  return SeasonalTag(k, start, overnight);
+}
+
+absl::Status IngestCore::SetSeasonalProfile(int index, std::shared_ptr<const SeasonalProfile> p) {
+  if (index < 0 || index >= num_symbols()) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("SetSeasonalProfile: no symbol with index ", index));
+  }
+  if (!seasonal_) return absl::OkStatus();
+  if (p != nullptr &&
+      (p->buckets() != seasonal_options_.buckets || p->max_ahead() < seasonal_options_.max_ahead)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("SetSeasonalProfile: the profile has ", p->buckets(), " buckets and ",
+                     p->max_ahead(), " bars ahead; the session needs ", seasonal_options_.buckets,
+                     " and ", seasonal_options_.max_ahead));
+  }
+  slots_[index].profile = std::move(p);
+  return absl::OkStatus();
+}
+
 absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
   if (index < 0 || index >= num_symbols()) {
     return absl::InvalidArgumentError(absl::StrCat("SwapModel: no symbol with index ", index));
@@ -294,6 +346,11 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
       !(swap.initial_variance > 0)) {
     return absl::InvalidArgumentError(
         "SwapModel: an EWMA model needs a positive initial_variance unless the state is kept");
+  }
+  const SeasonalProfile* p = swap.profile.get();
+  if (swap.replace_profile && seasonal_ && p != nullptr &&
+      (p->buckets() != seasonal_options_.buckets || p->max_ahead() < seasonal_options_.max_ahead)) {
+    return absl::InvalidArgumentError("SwapModel: the profile does not fit the session");
   }
   Slot& slot = slots_[index];
   switch (swap.start) {
@@ -314,6 +371,7 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
       }
       break;
   }
+  if (swap.replace_profile) slot.profile = seasonal_ ? swap.profile : nullptr;
   slot.filter_ready = true;
   slot.num_start_returns = 0;
   slot.model = swap.model;

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <catch2/catch.hpp>
+#include <cstdio>
 #include <regex>
 
 #include "app/report_fixture.h"
@@ -123,6 +124,46 @@ TEST_CASE("bad report input is refused with a clear message", "[report]") {
   auto w = WriteHtmlReport(FixtureReport(500), "/nonexistent-dir/report.html");
   REQUIRE_FALSE(w.ok());
   CHECK(Contains(std::string(w.message()), "/nonexistent-dir/report.html.tmp"));
+}
+
+TEST_CASE("the time-of-day table shows the profile and exceptions by segment", "[report]") {
+  ReportInput in = FixtureReport(1200);
+  SymbolHistory& h = in.symbols[0];
+  const int K = 390;
+  for (size_t i = 0; i < h.t_ns.size(); ++i) {
+    h.session_bar.push_back(static_cast<int32_t>(i % K));
+    if (i % K == 0 && i > 0) h.flags[i] |= kFlagGap;
+  }
+  h.seasonal_factors.assign(K, 0.8);
+  for (int k = 0; k < 33; ++k) h.seasonal_factors[k] = 2.0;  // the first segment: bars 0-32
+  // Independent count for the first segment (bars 0..32 of each session):
+  // r below minus the previous bar's 99 % VaR, previous bar in the same session.
+  int exc = 0, eligible = 0;
+  for (size_t i = 1; i < h.t_ns.size(); ++i) {
+    if (h.session_bar[i] > 32 || (h.flags[i] & kFlagGap)) continue;
+    ++eligible;
+    if (h.r[i] < -h.var_risk_next[0][i - 1]) ++exc;
+  }
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  CHECK(Contains(*page, "By time of day (390 bars a session in 12 segments"));
+  // Only the symbol with bar-of-session indices gets the table.
+  size_t n_tables = 0;
+  for (size_t at = page->find("By time of day"); at != std::string::npos;
+       at = page->find("By time of day", at + 1)) {
+    ++n_tables;
+  }
+  CHECK(n_tables == 1);
+  char want[64];
+  std::snprintf(want, sizeof(want), "<td class=\"num\">%d (%.1f)</td>", exc,
+                (1.0 - 0.99) * eligible);
+  INFO(want);
+  const size_t row = page->find("<td>0&ndash;32</td>");
+  REQUIRE(row != std::string::npos);
+  INFO(page->substr(row, page->find("</tr>", row) - row));
+  CHECK(page->find(want, row) < page->find("</tr>", row));
+  CHECK(page->find("</span>2</td>", row) < page->find("</tr>", row));  // mean s^2 of bars 0-32
+  CHECK(Contains(page->substr(row, page->find("</tr>", row) - row), "width:60.0px"));
 }
 
 }  // namespace

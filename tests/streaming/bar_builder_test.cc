@@ -270,5 +270,43 @@ TEST_CASE("the builder state is small and fixed-size", "[bar_builder]") {
   CHECK(std::is_trivially_copyable<BarState>::value);
 }
 
+
+TEST_CASE("bar-of-session index and the opening return", "[bar_builder]") {
+  BarOptions o;
+  o.interval_ns = kMin;
+  o.session = SessionWindow{true, 9 * 60, 10 * 60, 0};  // 09:00-10:00 UTC
+  for (bool overnight : {false, true}) {
+    o.overnight_return = overnight;
+    BarState st;
+    const int64_t open = kDay0 + 9 * 60 * kMin;
+    std::vector<ClosedBar> bars;
+    for (int64_t t : {open + 30 * kSec, open + 5 * kMin + 30 * kSec, open + 59 * kMin + 10 * kSec,
+                      open + kNanosPerDay + 2 * kMin + 30 * kSec,
+                      open + kNanosPerDay + 3 * kMin + 30 * kSec}) {
+      const FeedResult r = FeedTick(&st, Price(t, 100.0 + static_cast<double>(bars.size())), o);
+      if (r.closed) bars.push_back(r.bar);
+    }
+    ClosedBar last;
+    REQUIRE(CloseIfDue(&st, open + kNanosPerDay + 10 * kMin, 0, o, &last));
+    bars.push_back(last);
+    REQUIRE(bars.size() == 5);
+    CHECK(bars[0].session_bar == 0);
+    CHECK(bars[1].session_bar == 5);
+    CHECK(bars[2].session_bar == 59);
+    CHECK(bars[3].session_bar == 2);  // next day: index from that session's start
+    CHECK(bars[4].session_bar == 3);
+    CHECK(bars[3].flags == kFlagGap);
+    // The first bar of the next session: no return when skipped; with the
+    // opening return, log(its close / the previous session's last close).
+    CHECK(bars[3].has_return == overnight);
+    if (overnight) CHECK(bars[3].ret == Approx(std::log(102.0 / 101.0)));
+    CHECK(bars[4].has_return);
+    CHECK_FALSE(bars[0].has_return);  // the symbol's first bar never has one
+  }
+  BarOptions zero;
+  BarState st;
+  CHECK(FeedTick(&st, Price(kDay0, 100), zero).bar.session_bar == -1);
+}
+
 }  // namespace
 }  // namespace aftershock

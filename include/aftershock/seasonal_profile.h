@@ -1,0 +1,215 @@
+// Intraday seasonality (PRODUCT.md C9): a per-symbol time-of-day volatility
+// profile s(k) over the bars of the trading session, k = 0..K-1 the bar's
+// index in its session (bar_builder.h), and its estimator.
+//
+// Model (Andersen & Bollerslev 1997, "Intraday periodicity and volatility
+// persistence in financial markets", J. Empirical Finance 4, 115-158): an
+// intraday return is r_{d,k} = sigma_d * s(k) * x_{d,k}, where sigma_d is the
+// level of session d, s(k) the deterministic time-of-day factor and x the
+// deseasonalized return that the GARCH filter models. The engine filters
+// x = r / s(k) and re-seasonalizes its forecasts with s(k)^2.
+//
+// Estimator (EstimateSeasonalProfile), our design after the cited paper's
+// two-step idea (normalize by the session level, then fit a smooth function of
+// the time of day):
+//   1. Split the sample into sessions (a new session starts where a tag has
+//      kSeasonalTagSessionStart or k does not increase).
+//   2. Alternate three times between
+//        L_d  = mean over session d of w(|r|) / m(k)        (session level)
+//        m0(k) = mean over sessions of w(|r_{d,k}|) / L_d    (raw bucket profile)
+//        m = Smooth(m0), weighted by the bucket counts,
+//      starting from m = 1. w() winsorizes |r| at kSeasonalWinsor * L_d * m(k)
+//      (from the second pass on), so a dirty tick moves one bucket by a
+//      bounded amount. Absolute returns (not squares) keep the sample mean
+//      robust to fat tails; E|r_{d,k}| = sigma_d s(k) E|x| makes m proportional
+//      to s.
+//   3. Smooth: "local-linear" = a local linear regression across neighbouring
+//      buckets with a Gaussian kernel of `smoothing` bars (a local linear fit
+//      has no first-order bias at the session edges, where the open and close
+//      peak); "fourier" = the flexible Fourier form of the paper, least squares
+//      on c0 + c1 x + c2 x^2 + sum_{p<=P} (a_p cos 2 pi p x + b_p sin 2 pi p x),
+//      x = (k + 0.5) / K, P = `smoothing`, weighted by the bucket counts.
+//   4. s(k)^2 = m(k)^2, floored at kSeasonalFloor^2 and normalized so that the
+//      mean of s(k)^2 over the buckets that hold returns is 1 (so the
+//      deseasonalized returns keep the raw returns' average variance).
+//   5. The first return of a session that spans the night (tag bit
+//      kSeasonalTagOvernight, [seasonality] opening_return = "scaled") is not
+//      an intraday bucket: its variance multiplier is estimated the same way
+//      (mean of w(|r|)/L_d, squared, relative to the same normalization) but
+//      never smoothed with its neighbours.
+//   6. Shrinkage: with n sessions in the sample and a prior profile p (pooled
+//      over other symbols), s^2 = (n s_own^2 + n0 p^2) / (n + n0), n0 =
+//      prior_sessions, renormalized. Fewer than min_sessions sessions: the own
+//      estimate is not used (the prior alone when there is one, else no profile).
+//
+// Thread-safety: SeasonalProfile is immutable after Create and may be shared
+// across threads (std::shared_ptr<const SeasonalProfile>); the functions are
+// pure; SeasonalPool is a plain value owned by one thread.
+#ifndef AFTERSHOCK_SEASONAL_PROFILE_H_
+#define AFTERSHOCK_SEASONAL_PROFILE_H_
+
+#include <cmath>
+#include <cstdint>
+#include <memory>
+#include <vector>
+
+#include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
+#include "absl/types/span.h"
+
+namespace aftershock {
+
+// Most bars per session a profile supports (e.g. 1-minute bars over 24 h are
+// 1440, 5-second bars over 5.7 h are 4096). Memory: about 3 doubles a bucket.
+inline constexpr int kMaxSeasonalBuckets = 4096;
+// Winsorization of |r| at this multiple of its fitted mean (step 2 above).
+inline constexpr double kSeasonalWinsor = 5.0;
+// Smallest s(k) a profile holds (relative to the normalized level 1), so a
+// bucket of near-zero returns cannot divide a later return by ~0.
+inline constexpr double kSeasonalFloor = 0.1;
+
+// An observation tag: the bar-of-session index k in the low bits, plus flags.
+inline constexpr int32_t kSeasonalTagBucketMask = (1 << 24) - 1;
+inline constexpr int32_t kSeasonalTagSessionStart = 1 << 24;  // first return of a session
+inline constexpr int32_t kSeasonalTagOvernight = 1 << 25;     // the return spans the night
+// Tag of an observation. REQUIRES: 0 <= k <= kSeasonalTagBucketMask.
+inline int32_t SeasonalTag(int k, bool session_start, bool overnight) {
+  return k | (session_start ? kSeasonalTagSessionStart : 0) |
+         (overnight ? kSeasonalTagOvernight : 0);
+}
+inline int SeasonalTagBucket(int32_t tag) { return tag & kSeasonalTagBucketMask; }
+
+enum class SeasonalMethod : uint8_t { kLocalLinear, kFourier };
+absl::string_view SeasonalMethodName(SeasonalMethod m);  // "local-linear" | "fourier"
+
+struct SeasonalOptions {
+  // Bars per session K (REQUIRED: 2..kMaxSeasonalBuckets).
+  int buckets = 0;
+  // Smoother of the bucket profile; default local-linear.
+  SeasonalMethod method = SeasonalMethod::kLocalLinear;
+  // local-linear: Gaussian kernel bandwidth in bars (> 0; 0 = auto, K / 40 but
+  // at least 1.5). fourier: the order P (integer 1..K/4; 0 = auto, 4).
+  double smoothing = 0;
+  // Sessions of the symbol's own history needed before its own estimate is
+  // used; default 3.
+  int min_sessions = 3;
+  // Weight of the prior (pooled) profile, in sessions; default 5.
+  double prior_sessions = 5;
+  // Bars ahead the profile must serve (ahead(), at most the largest forecast
+  // horizon); default 512 (kMaxHorizonBars).
+  int max_ahead = 512;
+};
+
+// Checks the options. InvalidArgument naming the field otherwise.
+absl::Status ValidateSeasonalOptions(const SeasonalOptions& options);
+
+// A compiled profile: s(k)^2 and 1/s(k) per bucket, the overnight multiplier
+// (when estimated) and the cyclic look-ahead used by horizon sums. Immutable.
+class SeasonalProfile {
+ public:
+  // factors: s(k)^2 for k = 0..K-1 (K = factors.size() in 2..kMaxSeasonalBuckets),
+  // each finite and > 0; overnight_factor: the overnight return's variance
+  // multiplier, or 0 for none; sessions: history it rests on (information);
+  // max_ahead >= 1. InvalidArgument otherwise.
+  static absl::StatusOr<SeasonalProfile> Create(std::vector<double> factors,
+                                                double overnight_factor, int sessions,
+                                                int max_ahead);
+
+  int buckets() const { return static_cast<int>(factor_.size()); }
+  int sessions() const { return sessions_; }
+  // s(k)^2, 1/s(k). REQUIRES: 0 <= k < buckets().
+  double factor(int k) const { return factor_[k]; }
+  double inv_scale(int k) const { return inv_scale_[k]; }
+  bool has_overnight() const { return overnight_ > 0; }
+  double overnight_factor() const { return overnight_; }  // 0 when none
+  // s^2 of the bars after bar k in session order: ahead(k)[j - 1] is the j-th
+  // bar after k, for j = 1..max_ahead. Past the session's last bar the
+  // sequence wraps to the next session's bar 0, whose factor is the overnight
+  // multiplier when the profile has one (its return spans the night), else s(0)^2.
+  // REQUIRES: 0 <= k < buckets().
+  const double* ahead(int k) const { return ahead_.data() + k + 1; }
+  int max_ahead() const { return max_ahead_; }
+  const std::vector<double>& factors() const { return factor_; }
+
+ private:
+  std::vector<double> factor_;
+  std::vector<double> inv_scale_;
+  std::vector<double> ahead_;  // factor of position p, p mod K (overnight at 0), K + max_ahead + 1
+  double overnight_ = 0;
+  int sessions_ = 0;
+  int max_ahead_ = 0;
+};
+
+using SeasonalProfilePtr = std::shared_ptr<const SeasonalProfile>;
+
+// Result of an estimation.
+struct SeasonalEstimate {
+  int sessions = 0;         // sessions in the sample
+  std::vector<int> counts;  // intraday returns per bucket (K entries)
+  int overnight_count = 0;  // overnight returns
+  // The symbol's own normalized s(k)^2 before shrinkage (K entries; empty when
+  // the sample has no intraday return) and its overnight multiplier (0: none).
+  std::vector<double> own;
+  double own_overnight = 0;
+  // The profile to use: own estimate shrunk toward the prior; null when
+  // sessions < min_sessions and there is no prior.
+  SeasonalProfilePtr profile;
+};
+
+// Estimates a profile from returns and their tags (same length; oldest
+// first). Tags with a bucket >= options.buckets are ignored. prior may be
+// null. InvalidArgument for bad options or mismatched lengths.
+absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double> returns,
+                                                         absl::Span<const int32_t> tags,
+                                                         const SeasonalOptions& options,
+                                                         const SeasonalProfile* prior);
+
+// What the filter consumes for one tagged raw return under `profile` (may be
+// null): the deseasonalized return r / s(k) (the overnight multiplier for an
+// overnight tag), r itself without a profile. False when the filter does not
+// consume it: an overnight return without an estimated multiplier.
+// The one definition used by the ingest core, the refit worker and the swap
+// re-run, so the three agree.
+inline bool SeasonalInput(const SeasonalProfile* profile, double r, int32_t tag, double* x) {
+  if (tag & kSeasonalTagOvernight) {
+    if (profile == nullptr || !profile->has_overnight()) return false;
+    *x = r / std::sqrt(profile->overnight_factor());
+    return true;
+  }
+  const int k = SeasonalTagBucket(tag);
+  *x = profile != nullptr && k < profile->buckets() ? r * profile->inv_scale(k) : r;
+  return true;
+}
+
+// Log of s for a tagged return (0 without a profile): the Jacobian term that
+// turns a log-likelihood of deseasonalized returns into one of raw returns.
+double SeasonalLogScale(const SeasonalProfile* profile, int32_t tag);
+
+// A pooled profile: an exponentially weighted average (decay kPoolDecay per
+// contribution, weights = the contributions' sessions) of symbols' own
+// estimates, the prior toward which a short history is shrunk. Deterministic
+// given the order of contributions. Owned by one thread.
+class SeasonalPool {
+ public:
+  static constexpr double kPoolDecay = 0.99;
+  // REQUIRES: options valid.
+  explicit SeasonalPool(const SeasonalOptions& options);
+  // Adds an estimate's own profile (ignored when it has none or fewer than
+  // min_sessions sessions). Marks the snapshot stale.
+  void Add(const SeasonalEstimate& estimate);
+  // The pooled profile (null before any contribution); rebuilt (allocating)
+  // only after an Add.
+  SeasonalProfilePtr Snapshot();
+
+ private:
+  SeasonalOptions options_;
+  std::vector<double> sum_;  // decayed weighted sums of s^2 per bucket
+  double weight_ = 0;
+  double overnight_sum_ = 0, overnight_weight_ = 0;
+  SeasonalProfilePtr snapshot_;
+  bool stale_ = false;
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_SEASONAL_PROFILE_H_

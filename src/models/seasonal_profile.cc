@@ -1,0 +1,388 @@
+#include "aftershock/seasonal_profile.h"
+
+#include <algorithm>
+#include <cmath>
+#include <utility>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/least_squares.h"
+
+namespace aftershock {
+namespace {
+
+constexpr double kPi = 3.14159265358979323846;
+constexpr int kPasses = 3;  // level / profile alternations (step 2)
+
+double Bandwidth(const SeasonalOptions& o) {
+  if (o.smoothing > 0) return o.smoothing;
+  return std::max(1.5, o.buckets / 40.0);
+}
+
+int FourierOrder(const SeasonalOptions& o) {
+  if (o.smoothing > 0) return static_cast<int>(o.smoothing);
+  return std::max(1, std::min(4, o.buckets / 4));
+}
+
+// Local linear regression of y on the bucket index with Gaussian kernel
+// weights times counts. Buckets with no data within 4 bandwidths take the
+// nearest estimate.
+std::vector<double> SmoothLocalLinear(const std::vector<double>& y, const std::vector<int>& cnt,
+                                      double h) {
+  const int n = static_cast<int>(y.size());
+  const int reach = static_cast<int>(std::ceil(4 * h));
+  std::vector<double> out(n, 0.0);
+  std::vector<bool> have(n, false);
+  for (int k = 0; k < n; ++k) {
+    double s0 = 0, s1 = 0, s2 = 0, t0 = 0, t1 = 0;
+    for (int j = std::max(0, k - reach); j <= std::min(n - 1, k + reach); ++j) {
+      if (cnt[j] == 0) continue;
+      const double d = j - k;
+      const double w = std::exp(-0.5 * (d / h) * (d / h)) * cnt[j];
+      s0 += w;
+      s1 += w * d;
+      s2 += w * d * d;
+      t0 += w * y[j];
+      t1 += w * d * y[j];
+    }
+    if (!(s0 > 0)) continue;
+    const double det = s0 * s2 - s1 * s1;
+    out[k] = det > 1e-9 * s0 * s0 ? (s2 * t0 - s1 * t1) / det : t0 / s0;
+    have[k] = true;
+  }
+  // Fill holes from the nearest estimated bucket (left first).
+  for (int k = 0; k < n; ++k) {
+    if (have[k]) continue;
+    for (int d = 1; d < n; ++d) {
+      if (k - d >= 0 && have[k - d]) {
+        out[k] = out[k - d];
+        break;
+      }
+      if (k + d < n && have[k + d]) {
+        out[k] = out[k + d];
+        break;
+      }
+    }
+  }
+  return out;
+}
+
+// Flexible Fourier form (Andersen & Bollerslev 1997, eq. (8) without the
+// dummies): weighted least squares of y on 1, x, x^2 and P harmonics.
+std::vector<double> SmoothFourier(const std::vector<double>& y, const std::vector<int>& cnt,
+                                  int order) {
+  const int n = static_cast<int>(y.size());
+  const int cols = 3 + 2 * order;
+  auto row = [&](int k, double* out) {
+    const double x = (k + 0.5) / n;
+    out[0] = 1;
+    out[1] = x;
+    out[2] = x * x;
+    for (int p = 1; p <= order; ++p) {
+      out[1 + 2 * p] = std::cos(2 * kPi * p * x);
+      out[2 + 2 * p] = std::sin(2 * kPi * p * x);
+    }
+  };
+  std::vector<double> yy, xx;
+  std::vector<double> r(cols);
+  for (int k = 0; k < n; ++k) {
+    if (cnt[k] == 0) continue;
+    const double sw = std::sqrt(static_cast<double>(cnt[k]));
+    row(k, r.data());
+    yy.push_back(sw * y[k]);
+    for (double v : r) xx.push_back(sw * v);
+  }
+  OlsOptions oo;
+  oo.add_intercept = false;
+  auto fit = OrdinaryLeastSquares(yy, xx, cols, oo);
+  std::vector<double> out(n);
+  if (!fit.ok()) {
+    // Too few buckets for the form: the count-weighted mean.
+    double s = 0, w = 0;
+    for (int k = 0; k < n; ++k) {
+      s += cnt[k] * y[k];
+      w += cnt[k];
+    }
+    std::fill(out.begin(), out.end(), w > 0 ? s / w : 1.0);
+    return out;
+  }
+  for (int k = 0; k < n; ++k) {
+    row(k, r.data());
+    double v = 0;
+    for (int c = 0; c < cols; ++c) v += fit->coefficients[c] * r[c];
+    out[k] = v;
+  }
+  return out;
+}
+
+// Floors s at kSeasonalFloor and scales s^2 to mean 1 over the buckets with
+// counts (all buckets when none has). Returns the normalizing divisor of s^2.
+double Normalize(std::vector<double>* s2, const std::vector<int>* cnt) {
+  const double floor2 = kSeasonalFloor * kSeasonalFloor;
+  double total = 1;
+  for (int pass = 0; pass < 2; ++pass) {
+    double sum = 0;
+    int n = 0;
+    for (size_t k = 0; k < s2->size(); ++k) {
+      double& v = (*s2)[k];
+      if (!(v >= floor2) || !std::isfinite(v)) v = floor2;
+      if (cnt == nullptr || (*cnt)[k] > 0) {
+        sum += v;
+        ++n;
+      }
+    }
+    if (n == 0) {
+      for (double v : *s2) sum += v;
+      n = static_cast<int>(s2->size());
+    }
+    const double mean = sum / n;
+    for (double& v : *s2) v /= mean;
+    total *= mean;
+  }
+  return total;
+}
+
+}  // namespace
+
+absl::string_view SeasonalMethodName(SeasonalMethod m) {
+  return m == SeasonalMethod::kFourier ? "fourier" : "local-linear";
+}
+
+absl::Status ValidateSeasonalOptions(const SeasonalOptions& o) {
+  if (o.buckets < 2 || o.buckets > kMaxSeasonalBuckets) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("bars per session must be in 2..", kMaxSeasonalBuckets, ", got ", o.buckets));
+  }
+  if (!(o.smoothing >= 0) || !std::isfinite(o.smoothing)) {
+    return absl::InvalidArgumentError("smoothing must be a finite number >= 0");
+  }
+  if (o.method == SeasonalMethod::kFourier && o.smoothing > 0 &&
+      (o.smoothing != std::floor(o.smoothing) || o.smoothing > o.buckets / 4)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("smoothing (the Fourier order) must be a whole number in 1..", o.buckets / 4,
+                     " for ", o.buckets, " bars per session, got ", o.smoothing));
+  }
+  if (o.min_sessions < 1) return absl::InvalidArgumentError("min_sessions must be >= 1");
+  if (!(o.prior_sessions >= 0) || !std::isfinite(o.prior_sessions)) {
+    return absl::InvalidArgumentError("prior_sessions must be a finite number >= 0");
+  }
+  if (o.max_ahead < 1 || o.max_ahead > 100000) {
+    return absl::InvalidArgumentError("max_ahead must be in 1..100000");
+  }
+  return absl::OkStatus();
+}
+
+absl::StatusOr<SeasonalProfile> SeasonalProfile::Create(std::vector<double> factors,
+                                                        double overnight_factor, int sessions,
+                                                        int max_ahead) {
+  const int k = static_cast<int>(factors.size());
+  if (k < 2 || k > kMaxSeasonalBuckets) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("a profile needs 2..", kMaxSeasonalBuckets, " buckets, got ", k));
+  }
+  for (double v : factors) {
+    if (!(v > 0) || !std::isfinite(v)) {
+      return absl::InvalidArgumentError("profile factors must be finite and > 0");
+    }
+  }
+  if (!(overnight_factor >= 0) || !std::isfinite(overnight_factor)) {
+    return absl::InvalidArgumentError("the overnight factor must be finite and >= 0");
+  }
+  if (max_ahead < 1) return absl::InvalidArgumentError("max_ahead must be >= 1");
+  SeasonalProfile p;
+  p.factor_ = std::move(factors);
+  p.inv_scale_.resize(k);
+  for (int i = 0; i < k; ++i) p.inv_scale_[i] = 1.0 / std::sqrt(p.factor_[i]);
+  p.overnight_ = overnight_factor;
+  p.sessions_ = sessions;
+  p.max_ahead_ = max_ahead;
+  p.ahead_.resize(static_cast<size_t>(k + max_ahead + 1));
+  for (size_t i = 0; i < p.ahead_.size(); ++i) {
+    const int q = static_cast<int>(i % static_cast<size_t>(k));
+    p.ahead_[i] = q == 0 && p.overnight_ > 0 ? p.overnight_ : p.factor_[q];
+  }
+  return p;
+}
+
+absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double> returns,
+                                                         absl::Span<const int32_t> tags,
+                                                         const SeasonalOptions& o,
+                                                         const SeasonalProfile* prior) {
+  if (auto s = ValidateSeasonalOptions(o); !s.ok()) return s;
+  if (returns.size() != tags.size()) {
+    return absl::InvalidArgumentError("returns and tags must have the same length");
+  }
+  const int K = o.buckets;
+  const size_t n = returns.size();
+  // 1. Sessions.
+  std::vector<int> session(n, 0);
+  int d = -1;
+  int prev_k = -1;
+  bool prev_overnight = false;
+  for (size_t i = 0; i < n; ++i) {
+    const int k = SeasonalTagBucket(tags[i]);
+    // An opening (overnight) return starts its session; the intraday bar after
+    // it may carry the session-start mark too without starting another one.
+    const bool start = (tags[i] & kSeasonalTagSessionStart) && !prev_overnight;
+    if (i == 0 || start || k <= prev_k) ++d;
+    session[i] = d;
+    prev_k = k;
+    prev_overnight = (tags[i] & kSeasonalTagOvernight) != 0;
+  }
+  const int num_sessions = d + 1;
+  auto usable = [&](size_t i) {
+    return SeasonalTagBucket(tags[i]) < K && std::isfinite(returns[i]);
+  };
+
+  SeasonalEstimate est;
+  est.counts.assign(K, 0);
+  std::vector<double> m(K, 1.0), level(num_sessions, 0.0), prev_level(num_sessions, 0.0);
+  double m_on = 1.0;
+  std::vector<double> sum(K);
+  std::vector<int> cnt(K);
+  std::vector<double> lsum(num_sessions);
+  std::vector<int> lcnt(num_sessions);
+  double on_sum = 0;
+  int on_cnt = 0;
+  bool any = false;
+  for (int pass = 0; pass < kPasses; ++pass) {
+    // Winsorized |r| (no cap in the first pass: nothing fitted yet).
+    auto w = [&](size_t i, double fitted) {
+      const double a = std::fabs(returns[i]);
+      return pass == 0 ? a : std::min(a, kSeasonalWinsor * fitted);
+    };
+    // Session levels.
+    std::fill(lsum.begin(), lsum.end(), 0.0);
+    std::fill(lcnt.begin(), lcnt.end(), 0);
+    for (size_t i = 0; i < n; ++i) {
+      if (!usable(i) || (tags[i] & kSeasonalTagOvernight)) continue;
+      const int k = SeasonalTagBucket(tags[i]);
+      lsum[session[i]] += w(i, prev_level[session[i]] * m[k]) / m[k];
+      ++lcnt[session[i]];
+    }
+    for (int s = 0; s < num_sessions; ++s) level[s] = lcnt[s] > 0 ? lsum[s] / lcnt[s] : 0.0;
+    // Raw bucket profile.
+    std::fill(sum.begin(), sum.end(), 0.0);
+    std::fill(cnt.begin(), cnt.end(), 0);
+    on_sum = 0;
+    on_cnt = 0;
+    for (size_t i = 0; i < n; ++i) {
+      if (!usable(i)) continue;
+      const double l = level[session[i]];
+      if (!(l > 0)) continue;
+      if (tags[i] & kSeasonalTagOvernight) {
+        on_sum += w(i, prev_level[session[i]] * m_on) / l;
+        ++on_cnt;
+      } else {
+        const int k = SeasonalTagBucket(tags[i]);
+        sum[k] += w(i, prev_level[session[i]] * m[k]) / l;
+        ++cnt[k];
+      }
+    }
+    any = false;
+    std::vector<double> raw(K, 0.0);
+    for (int k = 0; k < K; ++k) {
+      if (cnt[k] > 0) {
+        raw[k] = sum[k] / cnt[k];
+        any = true;
+      }
+    }
+    if (!any) break;
+    std::vector<double> sm = o.method == SeasonalMethod::kFourier
+                                 ? SmoothFourier(raw, cnt, FourierOrder(o))
+                                 : SmoothLocalLinear(raw, cnt, Bandwidth(o));
+    for (int k = 0; k < K; ++k) sm[k] = sm[k] > 0 ? sm[k] * sm[k] : 0.0;  // s^2, floored below
+    const double div = Normalize(&sm, &cnt);
+    for (int k = 0; k < K; ++k) m[k] = std::sqrt(sm[k]);
+    m_on = on_cnt > 0 ? (on_sum / on_cnt) / std::sqrt(div) : 1.0;
+    if (!(m_on > 0)) m_on = kSeasonalFloor;
+    // Levels are in the units of the normalized m.
+    for (int s = 0; s < num_sessions; ++s) prev_level[s] = level[s] * std::sqrt(div);
+  }
+  int sessions_used = 0;
+  {
+    std::vector<bool> seen(num_sessions, false);
+    for (size_t i = 0; i < n; ++i) {
+      if (usable(i) && !(tags[i] & kSeasonalTagOvernight) && !seen[session[i]]) {
+        seen[session[i]] = true;
+        ++sessions_used;
+      }
+    }
+  }
+  est.sessions = sessions_used;
+  est.counts = cnt;
+  est.overnight_count = on_cnt;
+  if (any) {
+    est.own.resize(K);
+    for (int k = 0; k < K; ++k) est.own[k] = m[k] * m[k];
+    if (on_cnt > 0) est.own_overnight = m_on * m_on;
+  }
+
+  const bool prior_ok = prior != nullptr && prior->buckets() == K;
+  const bool own_ok = any && est.sessions >= o.min_sessions;
+  std::vector<double> f;
+  double on = 0;
+  if (own_ok) {
+    const double wn = est.sessions;
+    const double w0 = prior_ok ? o.prior_sessions : 0.0;
+    f.resize(K);
+    for (int k = 0; k < K; ++k) {
+      f[k] = (wn * est.own[k] + (prior_ok ? w0 * prior->factor(k) : 0.0)) / (wn + w0);
+    }
+    if (est.own_overnight > 0 && prior_ok && prior->has_overnight()) {
+      on = (wn * est.own_overnight + w0 * prior->overnight_factor()) / (wn + w0);
+    } else if (est.own_overnight > 0) {
+      on = est.own_overnight;
+    } else if (prior_ok) {
+      on = prior->overnight_factor();
+    }
+    const double div = Normalize(&f, &est.counts);
+    on /= div;
+  } else if (prior_ok) {
+    f = prior->factors();
+    on = prior->overnight_factor();
+  } else {
+    return est;
+  }
+  auto prof = SeasonalProfile::Create(std::move(f), on, est.sessions, o.max_ahead);
+  if (!prof.ok()) return prof.status();
+  est.profile = std::make_shared<const SeasonalProfile>(*std::move(prof));
+  return est;
+}
+
+double SeasonalLogScale(const SeasonalProfile* p, int32_t tag) {
+  if (p == nullptr) return 0;
+  if (tag & kSeasonalTagOvernight) {
+    return p->has_overnight() ? 0.5 * std::log(p->overnight_factor()) : 0;
+  }
+  const int k = SeasonalTagBucket(tag);
+  return k < p->buckets() ? 0.5 * std::log(p->factor(k)) : 0;
+}
+
+SeasonalPool::SeasonalPool(const SeasonalOptions& options)
+    : options_(options), sum_(static_cast<size_t>(std::max(0, options.buckets)), 0.0) {}
+
+void SeasonalPool::Add(const SeasonalEstimate& e) {
+  if (e.own.size() != sum_.size() || e.sessions < options_.min_sessions) return;
+  const double w = e.sessions;
+  for (size_t k = 0; k < sum_.size(); ++k) sum_[k] = kPoolDecay * sum_[k] + w * e.own[k];
+  weight_ = kPoolDecay * weight_ + w;
+  if (e.own_overnight > 0) {
+    overnight_sum_ = kPoolDecay * overnight_sum_ + w * e.own_overnight;
+    overnight_weight_ = kPoolDecay * overnight_weight_ + w;
+  }
+  stale_ = true;
+}
+
+SeasonalProfilePtr SeasonalPool::Snapshot() {
+  if (!stale_) return snapshot_;
+  stale_ = false;
+  std::vector<double> f(sum_.size());
+  for (size_t k = 0; k < f.size(); ++k) f[k] = sum_[k] / weight_;
+  const double div = Normalize(&f, nullptr);
+  const double on = overnight_weight_ > 0 ? overnight_sum_ / overnight_weight_ / div : 0.0;
+  auto p = SeasonalProfile::Create(std::move(f), on, 0, options_.max_ahead);
+  snapshot_ = p.ok() ? std::make_shared<const SeasonalProfile>(*std::move(p)) : nullptr;
+  return snapshot_;
+}
+
+}  // namespace aftershock
