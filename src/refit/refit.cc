@@ -252,15 +252,31 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
   const int64_t bars = sym->window.total();
   const int64_t refresh = options_.every_bars > 0 ? options_.every_bars : options_.min_bars;
   if (sym->pooled_seq != 0 && bars - sym->pooled_bar < refresh) return false;
+  // With seasonality the donor's profile comes along (the symbol has none of
+  // its own yet), and the level and the re-run use the returns as the filter
+  // consumes them under it (SeasonalInput).
+  const SeasonalProfilePtr& profile = g.latest->profile;
+  const auto input = [&](int i, double* x) {
+    *x = sym->window.at(i);
+    return !options_.seasonal || SeasonalInput(profile.get(), *x, sym->window.tag_at(i), x);
+  };
   // The symbol's own level: its window's variance, or its current forecast.
   const int n = sym->window.size();
   double level = state->var.next_variance;
   if (n >= kPooledLevelBars) {
-    double s = 0, ss = 0;
-    for (int i = 0; i < n; ++i) s += sym->window.at(i);
-    const double mean = s / n;
-    for (int i = 0; i < n; ++i) ss += (sym->window.at(i) - mean) * (sym->window.at(i) - mean);
-    level = ss / (n - 1);
+    double s = 0, ss = 0, x = 0;
+    int m = 0;
+    for (int i = 0; i < n; ++i) {
+      if (input(i, &x)) {
+        s += x;
+        ++m;
+      }
+    }
+    const double mean = m > 0 ? s / m : 0.0;
+    for (int i = 0; i < n; ++i) {
+      if (input(i, &x)) ss += (x - mean) * (x - mean);
+    }
+    if (m > 1 && ss > 0) level = ss / (m - 1);
   }
   absl::StatusOr<ModelParams> p = PooledParams(g.latest->model.params(), level);
   if (!p.ok()) return false;
@@ -271,6 +287,7 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
   v->version = version;
   v->model = *std::move(fm);
   v->fitted_bar = bars;
+  v->profile = profile;
   sym->current = std::move(v);
   sym->last_version = version;
   sym->pooled = true;
@@ -279,7 +296,10 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
   const FilterModel& m = sym->current->model;
   const int tail = std::min(n, kSwapTailBars);
   InitFilterState(m, 0, state);
-  for (int i = tail - 1; i >= 0; --i) AdvanceState(m, state, sym->window.back(i));
+  for (int i = n - tail; i < n; ++i) {
+    double x = 0;
+    if (input(i, &x)) AdvanceState(m, state, x);
+  }
 
   RefitRecord rec;
   rec.symbol = sym->name;
