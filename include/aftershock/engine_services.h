@@ -11,8 +11,12 @@
 //      to the listener, the model/persistence/fallback alerts fire, and a new
 //      version (or the EWMA fallback) is swapped into the core with the
 //      coordinator's re-run variance state, so the next bar uses it.
-// Per clock tick: stale-symbol checks (inside the session) and the burst of
-// rejected ticks.
+// Per clock tick: stale-symbol checks (alerts.h, "Stale feed"), reading each
+// symbol's latest arrival and tick count from the core; with a session the
+// silence counts from the later of the session's open and the feed's first
+// tick in it (any symbol), so closed hours and sessions in which nothing
+// ticked (weekends, holidays) are never silence; then the burst of rejected
+// ticks.
 //
 // Refits are enabled when [refit] every_bars or every_seconds is non-zero. In
 // replay mode a refit scheduled at bar n is applied exactly at n +
