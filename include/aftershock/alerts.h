@@ -13,8 +13,10 @@
 //   model        refit failed the quality gate refit_failures times in a row (warn);
 //                a passing refit after such a streak (info); EWMA fallback engaged
 //                (critical) / cleared (info).
-//   feed         no tick for stale_seconds inside the session (warn), ticks resumed
-//                (info); reject_burst rejected ticks within reject_window_seconds (warn).
+//   feed         stale: a symbol's silence inside the session reached its
+//                threshold (warn); ticks_resumed: data arrived after a stale
+//                alert (info); reject_burst rejected ticks within
+//                reject_window_seconds (warn). See "Stale feed" below.
 //
 // Cool-down and deduplication, exactly:
 //   * Shock: after an emitted shock alert at bar b (time t), a shock at a later bar
@@ -30,23 +32,46 @@
 //     swap, another failed refit in the same streak, fallback engaged again, a
 //     second reject burst within reject_window_seconds of the last alert) is
 //     suppressed and counted. A stale symbol is reported once until a tick arrives.
-//   * Bars flagged first-bar or stale (closed by the clock without a tick) never
-//     alert and do not enter the regime averages; bars flagged warm-up update the
-//     regime averages, but their shock and regime alerts are withheld unless
-//     alert_during_warmup.
+//   * Bars flagged first-bar never alert and do not enter the regime averages.
+//     Bars flagged stale (their return spans whole silent bar intervals,
+//     bar_update.h) and bars closed by the clock are ordinary bars here. Bars
+//     flagged warm-up update the regime averages, but their shock and regime
+//     alerts are withheld unless alert_during_warmup.
 //   Every alert a rule produced but did not send (cool-down, repeat, warm-up) is
 //   counted as suppressed under the kind and severity it would have had. Repeated
 //   stale checks of one stale episode are not alerts and are not counted.
 //
+// Stale feed (CheckStale, driven by the clock; it reads the symbol's latest tick
+// arrival and tick count from FeedCheck, so it does not depend on bar closes):
+//   * silence = now - max(latest tick, FeedCheck::count_from_ns): time before
+//     the count_from instant (the session open, or later) never counts, so
+//     nights, weekends and holidays between sessions are not silence.
+//   * threshold = max(stale_seconds, stale_gap_multiple x typical gap), where
+//     the typical gap is the symbol's mean in-session gap between ticks,
+//     learned from the ticks seen at each check: k new ticks over the elapsed
+//     in-session time are k gaps of their mean. It is the plain mean of all
+//     gaps while that weighs new gaps more (the first ~72), then an
+//     exponentially weighted mean (half-life kTickGapHalflifeTicks ticks). A
+//     silence that raised a stale alert is left out once a gap has been
+//     learned (an outage is not the normal rate); before that it is the first
+//     sample, so a name sparser than stale_seconds raises at most one stale
+//     alert before its rate is known.
+//   * Outside the session nothing fires and nothing is learned. A symbol that
+//     never ticked is never stale (there is no rate or reference to judge by).
+//   * One stale alert per episode (value = the silence at the check, s); the
+//     first check that sees new data ends it with ticks_resumed (value = the
+//     silence up to the latest tick seen, exact to one clock period).
+//
 // Thread-safety: not thread-safe. One AlertEngine is used from the ingest thread
 // only; its options are immutable after Create. SymbolAlertState is owned by the
 // caller (stored next to the symbol's FilterState) and passed in on every call.
-// Hot path: OnBar, OnTick, OnRejectedTick and CheckStale do not allocate, lock or
+// Hot path: OnBar, OnRejectedTick and CheckStale do not allocate, lock or
 // perform I/O beyond what the AlertSink does.
 #ifndef AFTERSHOCK_ALERTS_H_
 #define AFTERSHOCK_ALERTS_H_
 
 #include <cstdint>
+#include <limits>
 #include <memory>
 #include <string>
 
@@ -77,8 +102,8 @@ enum class AlertRule : uint8_t {
   kGateRecovered,    // kind model: a refit passed after an alerted streak
   kFallbackEngaged,  // kind model
   kFallbackCleared,  // kind model
-  kStale,            // kind feed: no tick in session for stale_seconds
-  kTicksResumed,     // kind feed: first tick after a stale alert
+  kStale,            // kind feed: in-session silence reached the stale threshold
+  kTicksResumed,     // kind feed: data arrived after a stale alert
   kRejectBurst,      // kind feed: many rejected ticks
 };
 // "shock", "regime_high", "regime_low", "near_integrated", "gate_failed",
@@ -134,8 +159,8 @@ struct AlertOptions {
   // Bars after an emitted shock alert during which equal or lower severities
   // are suppressed; also the regime re-entry cool-down. >= 0. Default 20.
   int cooldown_bars = 20;
-  // Seconds of the same shock cool-down measured on bar time; 0 = off. >= 0.
-  // Default 0.
+  // Seconds of the same shock cool-down measured on bar time; 0 = off.
+  // In [0, 1e9]. Default 0.
   double cooldown_seconds = 0.0;
   // Short/long variance ratio that enters the high regime (1 / it: low).
   // > regime_exit. Default 2.
@@ -158,9 +183,14 @@ struct AlertOptions {
   double persistence_threshold = 0.995;
   // Consecutive failed refit gates that raise a model warn alert. >= 1. Default 3.
   int refit_failures = 3;
-  // Seconds without a tick inside the session after which a symbol is stale.
-  // > 0. Default 60.
+  // Seconds without a tick inside the session after which a symbol is stale,
+  // at least (the floor of the threshold). > 0. Default 60.
   double stale_seconds = 60.0;
+  // A symbol is stale only once its silence also reaches this multiple of its
+  // typical in-session gap between ticks (learned per symbol), so a sparse
+  // name is judged by its own rate. 0 = fixed stale_seconds. In [0, 1e6].
+  // Default 10.
+  double stale_gap_multiple = 10.0;
   // Rejected ticks within reject_window_seconds that raise a feed warn alert.
   // >= 1. Default 100.
   int64_t reject_burst = 100;
@@ -186,6 +216,23 @@ struct AlertCounters {
   uint64_t TotalSuppressed() const;
 };
 
+// Half-life, in ticks, of the typical-gap average of the stale rule: long enough
+// that one long gap barely moves it, short enough to follow a name whose
+// activity changes over days.
+inline constexpr double kTickGapHalflifeTicks = 50;
+
+// What the clock knows about one symbol's feed at a stale check.
+struct FeedCheck {
+  int64_t now_ns = 0;      // the clock, ns since the epoch (the base of last_tick_ns)
+  bool in_session = true;  // now_ns lies inside the trading session
+  // Silence is counted from no earlier than this instant: the current
+  // session's open or later (the engine uses the later of the open and the
+  // feed's first tick in the session). Lowest value: every second counts.
+  int64_t count_from_ns = std::numeric_limits<int64_t>::min();
+  int64_t last_tick_ns = 0;  // arrival (clock ns) of the symbol's latest tick; 0 = none
+  uint64_t ticks = 0;        // the symbol's ticks so far (non-decreasing): its rate
+};
+
 // Per-symbol rule state, a plain fixed-size value (at most 128 bytes) the engine
 // stores next to the symbol's FilterState; ready to use when default-constructed.
 struct SymbolAlertState {
@@ -194,21 +241,23 @@ struct SymbolAlertState {
   // Shock cool-down: the last emitted shock.
   int64_t shock_bar = -1;  // bar index of the last emitted shock; -1 none
   int64_t shock_t_ns = 0;
-  Severity shock_severity = Severity::kInfo;
-  // Regime: the last emitted regime alert and whether the current regime's
-  // entry was published (its clear goes out only then).
+  // Regime: the last emitted regime alert.
   int64_t regime_alert_bar = -1;
+  // Feed (CheckStale): what the previous check saw, the learned rate and the
+  // current stale episode.
+  int64_t last_tick_ns = 0;    // latest tick arrival seen, clock ns; 0 = none yet
+  uint64_t ticks_seen = 0;     // the symbol's tick count at that check
+  double tick_gap_s = 0;       // typical in-session gap between ticks, s
+  int64_t stale_since_ns = 0;  // start of the silence of the current stale alert
+  uint32_t gap_samples = 0;    // gaps learned into tick_gap_s (saturates); 0 = none
+  int gate_failures = 0;       // model: length of the current failed-gate streak
+  Severity shock_severity = Severity::kInfo;
+  // Whether the current regime's entry was published (its clear goes out only then).
   bool regime_published = false;
-  // Model lifecycle.
   bool near_integrated = false;  // the current model's persistence is above threshold
   bool gate_alerted = false;     // a gate_failed alert was emitted for this streak
-  int gate_failures = 0;         // length of the current failed-gate streak
   bool fallback = false;         // EWMA fallback engaged
-  // Feed: the last tick and the staleness reference (the later of the last tick
-  // and the last out-of-session check), ns; 0 = no tick yet.
-  int64_t last_tick_ns = 0;
-  int64_t stale_ref_ns = 0;
-  bool stale_alerted = false;
+  bool stale_alerted = false;    // a stale alert was emitted and no data arrived since
 };
 
 // The outcome of one refit, as the scheduler reports it.
@@ -249,17 +298,19 @@ class AlertEngine {
   void OnFallback(const Symbol& symbol, int64_t t_ns, bool engaged, uint32_t version,
                   absl::string_view reason, SymbolAlertState* state, AlertSink* sink);
 
-  // A valid tick of `symbol` arrived at now_ns (feed clock). Ends a stale episode.
-  void OnTick(const Symbol& symbol, int64_t now_ns, SymbolAlertState* state, AlertSink* sink);
-
   // A tick was rejected at now_ns (any symbol, any reason): reject-burst rule.
   // REQUIRES: now_ns non-decreasing across calls.
   void OnRejectedTick(int64_t now_ns, AlertSink* sink);
 
-  // Timer-driven staleness check of one symbol at now_ns (injected clock).
-  // Outside the session nothing fires and the staleness reference moves to now.
-  void CheckStale(const Symbol& symbol, int64_t now_ns, bool in_session, SymbolAlertState* state,
+  // Clock-driven feed check of one symbol (the stale rule above): learns the
+  // tick rate from the ticks seen since the previous check, ends a stale
+  // episode when data arrived (ticks_resumed), raises stale when the
+  // in-session silence reached the threshold.
+  // REQUIRES: checks of one symbol in non-decreasing now_ns.
+  void CheckStale(const Symbol& symbol, const FeedCheck& feed, SymbolAlertState* state,
                   AlertSink* sink);
+  // The stale threshold of a symbol in its current state, seconds.
+  double StaleThresholdSeconds(const SymbolAlertState& state) const;
 
  private:
   static constexpr int kRejectBuckets = 60;
@@ -273,7 +324,6 @@ class AlertEngine {
   AlertOptions options_;
   RegimeDetector detector_;
   AlertCounters counters_;
-  int64_t stale_ns_ = 0;
   int64_t cooldown_ns_ = 0;
   int64_t bucket_ns_ = 0;      // reject_window_seconds / kRejectBuckets
   int64_t reject_bucket_ = 0;  // index (now / bucket_ns_) of the newest bucket

@@ -34,9 +34,15 @@
 //   * A tick outside the session is rejected as outside_session; a tick whose
 //     kind differs from the symbol's first tick is rejected as kind_mismatch.
 //   * CloseIfDue closes the open bar once now >= bar end + grace. Such a bar is
-//     a normal bar (closed_by_clock is set for information; the stale flag is
-//     not set by the builder). An interval in which no tick arrived produces
-//     no bar at all; the next bar's return spans the silence.
+//     a normal bar: closed_by_clock is set for information only. A bar that
+//     had ticks is never stale for being closed by the clock.
+//   * An interval in which no tick arrived produces no bar at all; the next
+//     bar's return spans the silence. Such a bar carries kFlagStale: the bar
+//     before it in the same session ended earlier than this bar's start, so
+//     its return spans at least one whole bar interval without a tick of the
+//     symbol (informational; the alert rules treat it as any other bar). The
+//     first bar of a session (kFlagGap) and per-tick bars (interval 0) never
+//     carry it.
 //
 // Thread-safety: BarState is a plain value; one thread owns each state.
 #ifndef AFTERSHOCK_BAR_BUILDER_H_
@@ -85,7 +91,7 @@ struct ClosedBar {
   bool closed_by_clock = false;  // closed by CloseIfDue rather than by a later tick
   int32_t n_ticks = 0;
   int32_t session_bar = -1;  // bar-of-session index k (see above); -1 for interval 0
-  uint32_t flags = 0;  // kFlagGap, kFlagFirstBar (UpdateFlag bits)
+  uint32_t flags = 0;  // kFlagGap, kFlagFirstBar, kFlagStale (UpdateFlag bits)
 };
 
 // Per-symbol builder state: fixed size, trivially copyable (checkpointable).
@@ -130,6 +136,10 @@ bool CloseIfDue(BarState* state, int64_t now_ns, int64_t grace_ns, const BarOpti
 
 // True when t_ns lies inside the session (always true when disabled).
 bool InSession(const SessionWindow& session, int64_t t_ns);
+
+// Start (UTC ns) of the session that contains t_ns; INT64_MIN when sessions
+// are disabled (one endless session). REQUIRES: InSession(session, t_ns).
+int64_t SessionOpenNs(const SessionWindow& session, int64_t t_ns);
 
 }  // namespace aftershock
 

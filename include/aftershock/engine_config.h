@@ -16,6 +16,7 @@
 
 #include "absl/status/statusor.h"
 #include "absl/strings/string_view.h"
+#include "aftershock/alerts.h"
 #include "aftershock/bar_builder.h"
 #include "aftershock/model_params.h"
 #include "aftershock/model_spec.h"
@@ -191,18 +192,52 @@ struct SeasonalityConfig {
   SeasonalOptions ToOptions(const BarsConfig& bars, int max_horizon) const;
 };
 
-// [alerts]: alert rule thresholds (PRODUCT.md C7).
+// [alerts]: alert rule thresholds (PRODUCT.md C7), one key per AlertOptions
+// field (alerts.h has each field's meaning, unit and range; the defaults here
+// equal AlertOptions' own, which a test checks).
 struct AlertsConfig {
-  double shock_z = 4.0;                  // |z| at or above this raises a shock alert (warning)
+  double shock_z = 4.0;                  // |z| at or above this raises a warn shock alert
   double shock_critical_z = 6.0;         // |z| at or above this is critical; >= shock_z
-  int cooldown_bars = 20;                // bars before the same symbol/kind alerts again
+  double shock_info_z = 0.0;             // info tier; 0 = off, else in (0, shock_z)
+  int cooldown_bars = 20;                // bars of shock cool-down and regime re-entry cool-down
+  double cooldown_seconds = 0.0;         // seconds of shock cool-down on bar time; 0 = off
   double regime_enter = 2.0;             // fast/slow variance ratio that enters the high regime
-  double regime_exit = 1.3;              // ratio below which the regime is left; < regime_enter
+  double regime_exit = 1.3;              // ratio below which the regime is left; [1, enter)
   double regime_fast_halflife = 10;      // bars, fast variance average
   double regime_slow_halflife = 250;     // bars, slow variance average; > fast
+  double regime_clip_z = 4.0;            // cap of one bar in the regime averages; 0 = none, > 1
+  int64_t regime_warmup_bars = 50;       // bars before the detector may enter a regime
   double persistence_threshold = 0.995;  // near-integrated persistence alert
-  double stale_seconds = 60;             // no tick for this long: stale symbol alert
-  int64_t reject_burst = 100;            // rejected ticks per minute that raise a feed alert
+  int refit_failures = 3;                // failed gates in a row that raise a model alert
+  double stale_seconds = 60;             // floor of the stale threshold, seconds in session
+  double stale_gap_multiple = 10;        // stale also needs this x the typical gap; 0 = off
+  int64_t reject_burst = 100;            // rejected ticks within the window: feed alert
+  double reject_window_seconds = 60;     // sliding window of the reject count, seconds
+  bool alert_during_warmup = false;      // warm-up bars may raise shock and regime alerts
+
+  // The rules engine's view of these settings.
+  AlertOptions ToAlertOptions() const {
+    AlertOptions o;
+    o.shock_z = shock_z;
+    o.shock_critical_z = shock_critical_z;
+    o.shock_info_z = shock_info_z;
+    o.cooldown_bars = cooldown_bars;
+    o.cooldown_seconds = cooldown_seconds;
+    o.regime_enter = regime_enter;
+    o.regime_exit = regime_exit;
+    o.regime_fast_halflife = regime_fast_halflife;
+    o.regime_slow_halflife = regime_slow_halflife;
+    o.regime_clip_z = regime_clip_z;
+    o.regime_warmup_bars = regime_warmup_bars;
+    o.persistence_threshold = persistence_threshold;
+    o.refit_failures = refit_failures;
+    o.stale_seconds = stale_seconds;
+    o.stale_gap_multiple = stale_gap_multiple;
+    o.reject_burst = reject_burst;
+    o.reject_window_seconds = reject_window_seconds;
+    o.alert_during_warmup = alert_during_warmup;
+    return o;
+  }
 };
 
 // [alerts.groups.<name>]: other alert thresholds for a group of symbols. A

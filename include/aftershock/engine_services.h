@@ -20,8 +20,12 @@
 // only), shrunk toward the pool of the symbols' estimates, and set on the core
 // for the next bar. Opening returns the core skipped (OnSkippedReturn) enter
 // the window too.
-// Per clock tick: stale-symbol checks (inside the session) and the burst of
-// rejected ticks.
+// Per clock tick: stale-symbol checks (alerts.h, "Stale feed"), reading each
+// symbol's latest arrival and tick count from the core; with a session the
+// silence counts from the later of the session's open and the feed's first
+// tick in it (any symbol), so closed hours and sessions in which nothing
+// ticked (weekends, holidays) are never silence; then the burst of rejected
+// ticks.
 //
 // Refits are enabled when [refit] every_bars or every_seconds is non-zero. In
 // replay mode a refit scheduled at bar n is applied exactly at n +

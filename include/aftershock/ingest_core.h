@@ -6,8 +6,12 @@
 //
 // Bars and updates:
 //   * [bars] interval "0s": every accepted tick is a bar; else time bars
-//     (bar_builder.h). Idle bars are closed by OnClock(now) once their end plus
-//     [bars] grace has passed; such updates carry the `stale` flag.
+//     (bar_builder.h). Open bars are closed by OnClock(now) once their end plus
+//     [bars] grace has passed (counted in bars_clock_closed); such a bar had
+//     ticks and is a normal bar. An update carries `stale` only when its
+//     return spans at least one whole bar interval of the same session
+//     without a tick of the symbol (the builder's kFlagStale); it is
+//     informational and every alert rule treats the bar like any other.
 //   * A bar without a return (a price symbol's first bar, the first bar of a
 //     session) publishes NOTHING; its flags (gap) are carried into the symbol's
 //     next update.
@@ -59,7 +63,7 @@
 //   * PublishSymbolMessage(kAlert|kModel, index, body): extra outbound
 //     messages on topics "a.<symbol>" / "m.<symbol>", counted separately.
 //   * OnClock(now): the clock tick (bar closes, then observers' OnClock, e.g.
-//     stale-feed checks using last_arrival_ns()).
+//     stale-feed checks reading last_arrival_ns() and symbol_ticks()).
 //
 // Hot path: after a symbol's first message nothing allocates (buffers are
 // reused; the symbol map and slot vector are reserved up front).
@@ -98,7 +102,7 @@ struct EngineCounters {
   uint64_t ticks_in = 0;           // ticks decoded (good ones, before the bar builder)
   uint64_t ticks_accepted = 0;     // ticks the bar builder accepted
   uint64_t bars = 0;               // bars closed (with or without a return)
-  uint64_t bars_clock_closed = 0;  // of which closed by the clock
+  uint64_t bars_clock_closed = 0;  // of which closed by the clock (informational)
   uint64_t updates_out = 0;        // updates handed to the sink successfully
   uint64_t drops = 0;              // updates the sink refused (subscriber queue full)
   uint64_t non_finite_output = 0;  // updates not published: a non-finite value

@@ -7,12 +7,14 @@
 #include <cstdio>
 #include <fstream>
 #include <initializer_list>
+#include <iterator>
 #include <limits>
 #include <sstream>
 
 #include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
+#include "absl/types/span.h"
 
 namespace aftershock {
 
@@ -205,8 +207,15 @@ class Section {
   absl::Status KeyError(absl::string_view key, absl::string_view msg) const {
     return Error(LineOf(key), key, msg);
   }
+  // An error about the section as a whole, at its header line.
+  absl::Status SectionError(absl::string_view msg) const {
+    return absl::InvalidArgumentError(absl::StrCat(*source_, ":", line_, ": [", name_, "] ", msg));
+  }
 
   absl::Status CheckKeys(std::initializer_list<absl::string_view> known) const {
+    return CheckKeys(absl::MakeConstSpan(known.begin(), known.size()));
+  }
+  absl::Status CheckKeys(absl::Span<const absl::string_view> known) const {
     if (table_ == nullptr) return absl::OkStatus();
     for (auto&& [k, v] : *table_) {
       bool ok = false;
@@ -718,25 +727,52 @@ absl::Status ParseSeasonality(const Section& s, const BarsConfig& bars, const Ou
   return absl::OkStatus();
 }
 
+// The keys of [alerts] and of each [alerts.groups.<name>] (besides `symbols`).
+constexpr absl::string_view kAlertKeys[] = {
+    "shock_z",          "shock_critical_z",     "shock_info_z",
+    "cooldown_bars",    "cooldown_seconds",     "regime_enter",
+    "regime_exit",      "regime_fast_halflife", "regime_slow_halflife",
+    "regime_clip_z",    "regime_warmup_bars",   "persistence_threshold",
+    "refit_failures",   "stale_seconds",        "stale_gap_multiple",
+    "reject_burst",     "reject_window_seconds", "alert_during_warmup"};
+
 // The values of [alerts] (and of a group, over a copy of [alerts]).
 absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
   AS_RETURN_IF_ERROR(s.Number("shock_z", &c->shock_z, 0, kInf, true, true));
   AS_RETURN_IF_ERROR(s.Number("shock_critical_z", &c->shock_critical_z, 0, kInf, true, true));
+  AS_RETURN_IF_ERROR(s.Number("shock_info_z", &c->shock_info_z, 0, kInf, false, true));
   AS_RETURN_IF_ERROR(s.Integer("cooldown_bars", &c->cooldown_bars, 0, 1000000));
-  AS_RETURN_IF_ERROR(s.Number("regime_enter", &c->regime_enter, 0, kInf, true, true));
-  AS_RETURN_IF_ERROR(s.Number("regime_exit", &c->regime_exit, 0, kInf, true, true));
+  AS_RETURN_IF_ERROR(s.Number("cooldown_seconds", &c->cooldown_seconds, 0, 1e9, false, false));
+  AS_RETURN_IF_ERROR(s.Number("regime_enter", &c->regime_enter, 1, kInf, true, true));
+  AS_RETURN_IF_ERROR(s.Number("regime_exit", &c->regime_exit, 1, kInf, false, true));
   AS_RETURN_IF_ERROR(
       s.Number("regime_fast_halflife", &c->regime_fast_halflife, 0, kInf, true, true));
   AS_RETURN_IF_ERROR(
       s.Number("regime_slow_halflife", &c->regime_slow_halflife, 0, kInf, true, true));
+  AS_RETURN_IF_ERROR(s.Number("regime_clip_z", &c->regime_clip_z, 0, kInf, false, true));
+  AS_RETURN_IF_ERROR(
+      s.Integer("regime_warmup_bars", &c->regime_warmup_bars, 0, int64_t{1} << 40));
   AS_RETURN_IF_ERROR(
       s.Number("persistence_threshold", &c->persistence_threshold, 0, 1, true, true));
+  AS_RETURN_IF_ERROR(s.Integer("refit_failures", &c->refit_failures, 1, 1000000));
   AS_RETURN_IF_ERROR(s.Number("stale_seconds", &c->stale_seconds, 0, kInf, true, true));
+  AS_RETURN_IF_ERROR(
+      s.Number("stale_gap_multiple", &c->stale_gap_multiple, 0, 1e6, false, false));
   AS_RETURN_IF_ERROR(s.Integer("reject_burst", &c->reject_burst, 1, int64_t{1} << 40));
+  // The window is counted in 60 buckets of at least 1 ns each.
+  AS_RETURN_IF_ERROR(
+      s.Number("reject_window_seconds", &c->reject_window_seconds, 6e-8, 1e9, false, false));
+  AS_RETURN_IF_ERROR(s.Bool("alert_during_warmup", &c->alert_during_warmup));
   if (c->shock_critical_z < c->shock_z) {
     return s.KeyError(s.Has("shock_critical_z") ? "shock_critical_z" : "shock_z",
                       absl::StrCat("shock_critical_z (", FormatNumber(c->shock_critical_z),
                                    ") must be >= shock_z (", FormatNumber(c->shock_z), ")"));
+  }
+  if (c->shock_info_z != 0 && !(c->shock_info_z < c->shock_z)) {
+    return s.KeyError(s.Has("shock_info_z") ? "shock_info_z" : "shock_z",
+                      absl::StrCat("shock_info_z (", FormatNumber(c->shock_info_z),
+                                   ") must be 0 (off) or below shock_z (",
+                                   FormatNumber(c->shock_z), ")"));
   }
   if (c->regime_exit >= c->regime_enter) {
     return s.KeyError(
@@ -749,6 +785,14 @@ absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
         s.Has("regime_slow_halflife") ? "regime_slow_halflife" : "regime_fast_halflife",
         "regime_slow_halflife must be greater than regime_fast_halflife");
   }
+  if (c->regime_clip_z != 0 && !(c->regime_clip_z > 1)) {
+    return s.KeyError("regime_clip_z",
+                      absl::StrCat("must be 0 (no cap) or larger than 1, got ",
+                                   FormatNumber(c->regime_clip_z)));
+  }
+  // Backstop: the rules engine accepts everything the checks above accept.
+  auto engine = AlertEngine::Create(c->ToAlertOptions());
+  if (!engine.ok()) return s.SectionError(engine.status().message());
   return absl::OkStatus();
 }
 
@@ -759,10 +803,9 @@ bool ValidSymbolPattern(absl::string_view p) {
 
 absl::Status ParseAlerts(const std::string* source, const Section& s, AlertsConfig* c,
                          std::vector<AlertGroupConfig>* groups) {
-  AS_RETURN_IF_ERROR(s.CheckKeys({"shock_z", "shock_critical_z", "cooldown_bars", "regime_enter",
-                                  "regime_exit", "regime_fast_halflife", "regime_slow_halflife",
-                                  "persistence_threshold", "stale_seconds", "reject_burst",
-                                  "groups"}));
+  std::vector<absl::string_view> keys(std::begin(kAlertKeys), std::end(kAlertKeys));
+  keys.push_back("groups");
+  AS_RETURN_IF_ERROR(s.CheckKeys(keys));
   AS_RETURN_IF_ERROR(ParseAlertValues(s, c));
   const toml::node* g = s.Node("groups");
   if (g == nullptr) return absl::OkStatus();
@@ -776,10 +819,19 @@ absl::Status ParseAlerts(const std::string* source, const Section& s, AlertsConf
       return gs.KeyError(name, "expected a table with symbols = [...] and alert keys");
     }
     const Section one = SubSection(source, gs, name, "alerts.groups." + name);
-    AS_RETURN_IF_ERROR(one.CheckKeys({"symbols", "shock_z", "shock_critical_z", "cooldown_bars",
-                                      "regime_enter", "regime_exit", "regime_fast_halflife",
-                                      "regime_slow_halflife", "persistence_threshold",
-                                      "stale_seconds", "reject_burst"}));
+    // The reject-burst rule counts rejected ticks of the whole feed (a rejected
+    // tick may have no valid symbol), so its keys have no per-group meaning.
+    for (absl::string_view feed_wide : {"reject_burst", "reject_window_seconds"}) {
+      if (one.Has(feed_wide)) {
+        return one.KeyError(feed_wide, "the reject-burst rule is feed-wide: set it in [alerts]");
+      }
+    }
+    std::vector<absl::string_view> group_keys;
+    for (absl::string_view k : kAlertKeys) {
+      if (k != "reject_burst" && k != "reject_window_seconds") group_keys.push_back(k);
+    }
+    group_keys.push_back("symbols");
+    AS_RETURN_IF_ERROR(one.CheckKeys(group_keys));
     AlertGroupConfig group;
     group.name = name;
     group.alerts = *c;
@@ -1033,26 +1085,37 @@ std::string FormatEngineConfig(const EngineConfig& c) {
       "\nmethod = ", Quote(SeasonalMethodName(sc.method)), "\nmin_sessions = ", sc.min_sessions,
       "\nsmoothing = ", num(sc.smoothing), "\nprior_sessions = ", num(sc.prior_sessions),
       "\nopening_return = ", Quote(OpeningReturnName(sc.opening_return)), "\n");
-  auto alert_keys = [&](const AlertsConfig& a) {
+  auto alert_keys = [&](const AlertsConfig& a, bool feed_wide) {
     absl::StrAppend(&o, "shock_z = ", num(a.shock_z),
                     "\nshock_critical_z = ", num(a.shock_critical_z),
-                    "\ncooldown_bars = ", a.cooldown_bars, "\nregime_enter = ", num(a.regime_enter),
-                    "\nregime_exit = ", num(a.regime_exit));
-    absl::StrAppend(&o, "\nregime_fast_halflife = ", num(a.regime_fast_halflife),
+                    "\nshock_info_z = ", num(a.shock_info_z),
+                    "\ncooldown_bars = ", a.cooldown_bars,
+                    "\ncooldown_seconds = ", num(a.cooldown_seconds));
+    absl::StrAppend(&o, "\nregime_enter = ", num(a.regime_enter),
+                    "\nregime_exit = ", num(a.regime_exit),
+                    "\nregime_fast_halflife = ", num(a.regime_fast_halflife),
                     "\nregime_slow_halflife = ", num(a.regime_slow_halflife),
+                    "\nregime_clip_z = ", num(a.regime_clip_z));
+    absl::StrAppend(&o, "\nregime_warmup_bars = ", a.regime_warmup_bars,
                     "\npersistence_threshold = ", num(a.persistence_threshold),
+                    "\nrefit_failures = ", a.refit_failures,
                     "\nstale_seconds = ", num(a.stale_seconds),
-                    "\nreject_burst = ", a.reject_burst, "\n");
+                    "\nstale_gap_multiple = ", num(a.stale_gap_multiple));
+    absl::StrAppend(&o, "\nalert_during_warmup = ", a.alert_during_warmup ? "true" : "false", "\n");
+    if (feed_wide) {
+      absl::StrAppend(&o, "reject_burst = ", a.reject_burst,
+                      "\nreject_window_seconds = ", num(a.reject_window_seconds), "\n");
+    }
   };
   absl::StrAppend(&o, "\n[alerts]\n");
-  alert_keys(c.alerts);
+  alert_keys(c.alerts, true);
   for (const AlertGroupConfig& g : c.alert_groups) {
     absl::StrAppend(&o, "\n[alerts.groups.", Quote(g.name), "]\nsymbols = [");
     for (size_t i = 0; i < g.symbols.size(); ++i) {
       absl::StrAppend(&o, i ? ", " : "", Quote(g.symbols[i]));
     }
     absl::StrAppend(&o, "]\n");
-    alert_keys(g.alerts);
+    alert_keys(g.alerts, false);
   }
   absl::StrAppend(&o, "\n[http]\nendpoint = ", Quote(c.http.endpoint),
                   "\nenabled = ", c.http.enabled ? "true" : "false", "\n");

@@ -2,6 +2,7 @@
 #include <cmath>
 #include <cstdarg>
 #include <cstdio>
+#include <limits>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/alerts.h"
@@ -178,9 +179,9 @@ absl::StatusOr<std::unique_ptr<AlertEngine>> AlertEngine::Create(const AlertOpti
     return absl::InvalidArgumentError(
         absl::StrCat("cooldown_bars must be >= 0, got ", o.cooldown_bars));
   }
-  if (!finite(o.cooldown_seconds) || o.cooldown_seconds < 0) {
+  if (!finite(o.cooldown_seconds) || o.cooldown_seconds < 0 || o.cooldown_seconds > 1e9) {
     return absl::InvalidArgumentError(
-        absl::StrCat("cooldown_seconds must be >= 0, got ", o.cooldown_seconds));
+        absl::StrCat("cooldown_seconds must be in [0, 1e9], got ", o.cooldown_seconds));
   }
   if (!finite(o.persistence_threshold) || !(o.persistence_threshold > 0) ||
       !(o.persistence_threshold < 1)) {
@@ -194,6 +195,10 @@ absl::StatusOr<std::unique_ptr<AlertEngine>> AlertEngine::Create(const AlertOpti
   if (!finite(o.stale_seconds) || !(o.stale_seconds > 0)) {
     return absl::InvalidArgumentError(
         absl::StrCat("stale_seconds must be a positive number, got ", o.stale_seconds));
+  }
+  if (!finite(o.stale_gap_multiple) || o.stale_gap_multiple < 0 || o.stale_gap_multiple > 1e6) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "stale_gap_multiple must be in [0, 1e6] (0 = off), got ", o.stale_gap_multiple));
   }
   if (o.reject_burst < 1) {
     return absl::InvalidArgumentError(
@@ -221,7 +226,6 @@ absl::StatusOr<std::unique_ptr<AlertEngine>> AlertEngine::Create(const AlertOpti
 AlertEngine::AlertEngine(const AlertOptions& options, const RegimeDetector& detector)
     : options_(options),
       detector_(detector),
-      stale_ns_(static_cast<int64_t>(std::llround(options.stale_seconds * kNsPerSecond))),
       cooldown_ns_(static_cast<int64_t>(std::llround(options.cooldown_seconds * kNsPerSecond))),
       bucket_ns_(std::max<int64_t>(
           1, static_cast<int64_t>(options.reject_window_seconds * kNsPerSecond / kRejectBuckets))) {
@@ -239,7 +243,8 @@ void AlertEngine::Send(Alert* a, AlertSink* sink) {
 
 void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* sink) {
   const int64_t idx = st->bars++;
-  if (bar.flags & (kFlagFirstBar | kFlagStale)) return;
+  // Stale bars (silent intervals before them) and clock-closed bars are ordinary.
+  if (bar.flags & kFlagFirstBar) return;
   const bool withheld = (bar.flags & kFlagWarmup) && !options_.alert_during_warmup;
 
   const RegimeEvent ev = detector_.Update(bar.eps, bar.var, &st->regime);
@@ -453,49 +458,87 @@ void AlertEngine::OnFallback(const Symbol& symbol, int64_t t_ns, bool engaged, u
   Send(a, sink);
 }
 
-void AlertEngine::OnTick(const Symbol& symbol, int64_t now_ns, SymbolAlertState* st,
-                         AlertSink* sink) {
-  const int64_t prev = st->last_tick_ns;
-  st->last_tick_ns = now_ns;
-  st->stale_ref_ns = now_ns;
-  if (!st->stale_alerted) return;
-  st->stale_alerted = false;
-  Alert* a = &scratch_;
-  a->symbol = symbol;
-  a->t_ns = now_ns;
-  a->kind = AlertKind::kFeed;
-  a->rule = AlertRule::kTicksResumed;
-  a->severity = Severity::kInfo;
-  a->value = static_cast<double>(now_ns - prev) / kNsPerSecond;
-  a->threshold = options_.stale_seconds;
-  a->ver = 0;
-  Format(a, "%.*s: ticks resumed after %.0f s without data; no action needed.", SymLen(symbol),
-         symbol.data, a->value);
-  Send(a, sink);
+double AlertEngine::StaleThresholdSeconds(const SymbolAlertState& st) const {
+  return std::max(options_.stale_seconds, options_.stale_gap_multiple * st.tick_gap_s);
 }
 
-void AlertEngine::CheckStale(const Symbol& symbol, int64_t now_ns, bool in_session,
-                             SymbolAlertState* st, AlertSink* sink) {
-  if (st->last_tick_ns == 0) return;
-  if (!in_session) {
-    st->stale_ref_ns = std::max(st->stale_ref_ns, now_ns);
-    return;
+void AlertEngine::CheckStale(const Symbol& symbol, const FeedCheck& f, SymbolAlertState* st,
+                             AlertSink* sink) {
+  if (f.last_tick_ns != 0 && f.last_tick_ns != st->last_tick_ns) {
+    // Data arrived since the previous check: learn the rate, end an episode.
+    const int64_t prev = st->last_tick_ns;
+    const uint64_t k = f.ticks > st->ticks_seen ? f.ticks - st->ticks_seen : 1;
+    // The in-session span the k new gaps cover; unknown for the first tick
+    // ever when all time counts (no session start to measure from).
+    const int64_t from = std::max(prev, f.count_from_ns);
+    const bool measurable = f.in_session && (prev != 0 || f.count_from_ns != std::numeric_limits<int64_t>::min()) &&
+                            f.last_tick_ns > from && options_.stale_gap_multiple > 0;
+    if (measurable && (!st->stale_alerted || st->gap_samples == 0)) {
+      const double kd = static_cast<double>(k);
+      const double mean_gap = static_cast<double>(f.last_tick_ns - from) / kNsPerSecond / kd;
+      // k gaps of the batch mean: the plain mean of all gaps so far while it
+      // weighs the new ones more, then exponential weights (half-life in ticks).
+      const double w = std::max(kd / (static_cast<double>(st->gap_samples) + kd),
+                                1.0 - std::exp2(-kd / kTickGapHalflifeTicks));
+      st->tick_gap_s += w * (mean_gap - st->tick_gap_s);
+      const uint64_t n = st->gap_samples + k;
+      st->gap_samples = static_cast<uint32_t>(std::min<uint64_t>(n, UINT32_MAX));
+    }
+    st->last_tick_ns = f.last_tick_ns;
+    st->ticks_seen = f.ticks;
+    if (st->stale_alerted) {
+      st->stale_alerted = false;
+      Alert* a = &scratch_;
+      a->symbol = symbol;
+      a->t_ns = f.now_ns;
+      a->kind = AlertKind::kFeed;
+      a->rule = AlertRule::kTicksResumed;
+      a->severity = Severity::kInfo;
+      a->value = static_cast<double>(std::max<int64_t>(0, f.last_tick_ns - st->stale_since_ns)) /
+                 kNsPerSecond;
+      a->threshold = StaleThresholdSeconds(*st);
+      a->ver = 0;
+      if (f.count_from_ns > st->stale_since_ns) {
+        // The silence went on past the end of its session.
+        Format(a,
+               "%.*s: ticks resumed; silent since an earlier session (%.0f s ago, closed hours "
+               "included); no action needed.",
+               SymLen(symbol), symbol.data, a->value);
+      } else {
+        Format(a, "%.*s: ticks resumed after %.0f s without data; no action needed.",
+               SymLen(symbol), symbol.data, a->value);
+      }
+      Send(a, sink);
+    }
   }
-  if (st->stale_alerted || now_ns - st->stale_ref_ns < stale_ns_) return;
+  if (st->last_tick_ns == 0 || !f.in_session || st->stale_alerted) return;
+  const int64_t since = std::max(st->last_tick_ns, f.count_from_ns);
+  const double silence = static_cast<double>(f.now_ns - since) / kNsPerSecond;
+  const double threshold = StaleThresholdSeconds(*st);
+  if (!(silence >= threshold)) return;
   st->stale_alerted = true;
+  st->stale_since_ns = since;
   Alert* a = &scratch_;
   a->symbol = symbol;
-  a->t_ns = now_ns;
+  a->t_ns = f.now_ns;
   a->kind = AlertKind::kFeed;
   a->rule = AlertRule::kStale;
   a->severity = Severity::kWarn;
-  a->value = static_cast<double>(now_ns - st->stale_ref_ns) / kNsPerSecond;
-  a->threshold = options_.stale_seconds;
+  a->value = silence;
+  a->threshold = threshold;
   a->ver = 0;
-  Format(a,
-         "%.*s: no tick for %.0f s inside the session (stale after %g s); check the feed for "
-         "this symbol.",
-         SymLen(symbol), symbol.data, a->value, options_.stale_seconds);
+  if (threshold > options_.stale_seconds) {
+    Format(a,
+           "%.*s: no tick for %.0f s inside the session (stale after %.0f s, %g times its "
+           "typical gap of %.1f s); check the feed for this symbol.",
+           SymLen(symbol), symbol.data, silence, threshold, options_.stale_gap_multiple,
+           st->tick_gap_s);
+  } else {
+    Format(a,
+           "%.*s: no tick for %.0f s inside the session (stale after %g s); check the feed for "
+           "this symbol.",
+           SymLen(symbol), symbol.data, silence, options_.stale_seconds);
+  }
   Send(a, sink);
 }
 

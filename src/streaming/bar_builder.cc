@@ -1,6 +1,7 @@
 #include "aftershock/bar_builder.h"
 
 #include <cmath>
+#include <cstdint>
 
 namespace aftershock {
 namespace {
@@ -80,6 +81,10 @@ ClosedBar CloseBar(BarState* st, bool by_clock, bool overnight) {
   }
   if (st->open_gap) bar.flags |= kFlagGap;
   if (!st->any_bar && !bar.has_return) bar.flags |= kFlagFirstBar;
+  // Whole intervals of this session passed without a tick since the last bar.
+  if (st->any_bar && !st->open_gap && st->closed_end_ns < st->open_start_ns) {
+    bar.flags |= kFlagStale;
+  }
   st->any_bar = true;
   st->closed_end_ns = st->open_end_ns;
   st->open = false;
@@ -101,6 +106,13 @@ bool InSession(const SessionWindow& s, int64_t t_ns) {
   const int64_t a = s.start_minute * kNanosPerMinute;
   const int64_t b = s.end_minute * kNanosPerMinute;
   return Wraps(s) ? (tod >= a || tod < b) : (tod >= a && tod < b);
+}
+
+int64_t SessionOpenNs(const SessionWindow& s, int64_t t_ns) {
+  if (!s.enabled) return INT64_MIN;
+  int64_t day = 0, start = 0, end = 0;
+  SessionOf(s, t_ns, &day, &start, &end);
+  return start;
 }
 
 FeedResult FeedTick(BarState* st, const Tick& tick, const BarOptions& o) {

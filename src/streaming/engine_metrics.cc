@@ -22,7 +22,8 @@ std::string FormatPrometheusMetrics(const IngestCore& core) {
   Metric(&o, "ticks_accepted_total", "counter", "Ticks accepted by the bar builder.",
          c.ticks_accepted);
   Metric(&o, "bars_total", "counter", "Bars closed.", c.bars);
-  Metric(&o, "bars_clock_closed_total", "counter", "Bars closed by the clock (stale).",
+  Metric(&o, "bars_clock_closed_total", "counter",
+         "Bars closed by the clock after their end plus grace (informational; normal bars).",
          c.bars_clock_closed);
   Metric(&o, "updates_out_total", "counter", "Updates handed to the publisher.", c.updates_out);
   Metric(&o, "drops_total", "counter", "Updates dropped at a full subscriber queue.", c.drops);

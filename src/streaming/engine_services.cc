@@ -1,6 +1,8 @@
 #include "aftershock/engine_services.h"
 
+#include <algorithm>
 #include <cstdio>
+#include <limits>
 #include <vector>
 
 #include "absl/strings/str_cat.h"
@@ -9,21 +11,6 @@
 
 namespace aftershock {
 namespace {
-
-AlertOptions ToAlertOptions(const AlertsConfig& c) {
-  AlertOptions o;
-  o.shock_z = c.shock_z;
-  o.shock_critical_z = c.shock_critical_z;
-  o.cooldown_bars = c.cooldown_bars;
-  o.regime_enter = c.regime_enter;
-  o.regime_exit = c.regime_exit;
-  o.regime_fast_halflife = c.regime_fast_halflife;
-  o.regime_slow_halflife = c.regime_slow_halflife;
-  o.persistence_threshold = c.persistence_threshold;
-  o.stale_seconds = c.stale_seconds;
-  o.reject_burst = c.reject_burst;
-  return o;
-}
 
 RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so) {
   const RefitConfig& c = config.refit;
@@ -78,13 +65,13 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   }
 
   absl::Status Init() {
-    auto alerts = AlertEngine::Create(ToAlertOptions(config_.alerts));
+    auto alerts = AlertEngine::Create(config_.alerts.ToAlertOptions());
     if (!alerts.ok()) {
       return absl::InvalidArgumentError(absl::StrCat("[alerts] ", alerts.status().message()));
     }
     alerts_ = *std::move(alerts);
     for (const AlertGroupConfig& g : config_.alert_groups) {
-      auto e = AlertEngine::Create(ToAlertOptions(g.alerts));
+      auto e = AlertEngine::Create(g.alerts.ToAlertOptions());
       if (!e.ok()) {
         return absl::InvalidArgumentError(
             absl::StrCat("[alerts.groups.", g.name, "] ", e.status().message()));
@@ -239,7 +226,6 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     PerSymbol& p = symbols_[index];
     sink_.index = index;
     AlertEngine* alerts = p.alerts_engine;
-    alerts->OnTick(p.symbol, core->last_arrival_ns(index), &p.alerts, &sink_);
     alerts->OnBar(*update, &p.alerts, &sink_);
     const int32_t tag = seasonal_ ? core->SeasonalTagOf(bar, update->flags) : 0;
     if (seasonal_ && !refit_) RecordSeasonal(core, index, update->r, tag);
@@ -296,11 +282,17 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   }
 
   void OnClock(IngestCore* core, int64_t now_ns) override {
-    const bool in_session = InSession(config_.bars.session, now_ns);
+    FeedCheck feed;
+    feed.now_ns = now_ns;
+    feed.in_session = InSession(config_.bars.session, now_ns);
+    feed.count_from_ns = StaleCountFrom(core, now_ns, feed.in_session);
     for (size_t i = 0; i < symbols_.size(); ++i) {
-      sink_.index = static_cast<int>(i);
-      symbols_[i].alerts_engine->CheckStale(symbols_[i].symbol, now_ns, in_session,
-                                            &symbols_[i].alerts, &sink_);
+      const int index = static_cast<int>(i);
+      sink_.index = index;
+      feed.last_tick_ns = core->last_arrival_ns(index);
+      feed.ticks = core->symbol_ticks(index);
+      symbols_[i].alerts_engine->CheckStale(symbols_[i].symbol, feed, &symbols_[i].alerts,
+                                            &sink_);
     }
     // Rejected ticks since the last tick of the clock feed the burst rule.
     const uint64_t total = core->counters().RejectTotal();
@@ -310,6 +302,30 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     if (fresh > cap) fresh = cap;  // the rule only needs to see the burst cross
     sink_.index = -1;
     for (uint64_t k = 0; k < fresh; ++k) alerts_->OnRejectedTick(now_ns, &sink_);
+  }
+
+  // Start of the stale rule's silence count (FeedCheck::count_from_ns). With a
+  // session: the later of the session's open and the feed's first tick in it
+  // (any symbol), so a session with no tick at all (a weekend, a holiday)
+  // counts no silence; outside the session nothing counts (now). Without a
+  // session every second counts. The feed's first tick is taken as the
+  // earliest latest-arrival of the symbols at the first check that sees one,
+  // exact to one clock period.
+  int64_t StaleCountFrom(const IngestCore* core, int64_t now_ns, bool in_session) {
+    if (!config_.bars.session.enabled) return std::numeric_limits<int64_t>::min();
+    if (!in_session) return now_ns;
+    const int64_t open = SessionOpenNs(config_.bars.session, now_ns);
+    if (open != session_open_ns_) {
+      session_open_ns_ = open;
+      feed_first_ns_ = -1;
+    }
+    if (feed_first_ns_ < 0) {
+      for (int i = 0; i < core->num_symbols(); ++i) {
+        const int64_t t = core->last_arrival_ns(i);
+        if (t >= open && (feed_first_ns_ < 0 || t < feed_first_ns_)) feed_first_ns_ = t;
+      }
+    }
+    return feed_first_ns_ < 0 ? now_ns : std::max(open, feed_first_ns_);
   }
 
   void Publish(int index, const Alert& alert) {
@@ -347,6 +363,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   std::FILE* alerts_file_ = nullptr;
   std::vector<PerSymbol> symbols_;  // by core index
   uint64_t rejects_seen_ = 0;
+  int64_t session_open_ns_ = std::numeric_limits<int64_t>::min();  // of the last check
+  int64_t feed_first_ns_ = -1;  // first tick of any symbol in that session; -1 none yet
   uint64_t swap_errors_ = 0;
   bool seasonal_ = false;
   std::unique_ptr<SeasonalPool> pool_;  // seasonality without refits

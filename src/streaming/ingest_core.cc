@@ -159,7 +159,9 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
   ++counters_.bars;
   ++slot.bars;
   if (bar.closed_by_clock) ++counters_.bars_clock_closed;
-  uint32_t flags = bar.flags | slot.pending_flags | (bar.closed_by_clock ? kFlagStale : 0u);
+  // kFlagStale comes from the builder (whole silent intervals before the bar);
+  // a bar closed by the clock is a normal bar and only counted.
+  uint32_t flags = bar.flags | slot.pending_flags;
   flags &= ~static_cast<uint32_t>(kFlagFirstBar);  // the engine decides first_bar itself
   if (!bar.has_return) {
     slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
@@ -307,7 +309,7 @@ void IngestCore::CloseAllOpenBars() {
     // A time far enough past the bar end closes it whatever the grace.
     if (CloseIfDue(&st, st.open_end_ns + config_.bars.grace_ns, config_.bars.grace_ns, bar_options_,
                    &bar)) {
-      bar.closed_by_clock = false;  // the input ended; the bar is complete, not stale
+      bar.closed_by_clock = false;  // the input ended: not counted as closed by the clock
       HandleBar(i, bar);
     }
   }

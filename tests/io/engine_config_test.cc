@@ -1,7 +1,12 @@
 #include "aftershock/engine_config.h"
 
+#include <algorithm>
 #include <catch2/catch.hpp>
+#include <set>
+#include <sstream>
 #include <string>
+#include <utility>
+#include <vector>
 
 #include "support/test_support.h"
 
@@ -360,6 +365,256 @@ TEST_CASE("alert group errors name the group, key and line", "[config][alerts]")
       "[alerts.groups.g]\nsymbols = [\"A\"]\nregime_exit = 2.5\n", "g.toml");
   REQUIRE_FALSE(hysteresis.ok());
   CHECK(std::string(hysteresis.status().message()).find("for hysteresis") != std::string::npos);
+}
+
+}  // namespace
+}  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+// The `key = value` lines of one [section] of a TOML text (comments skipped),
+// in order: {key, line}.
+std::vector<std::pair<std::string, std::string>> SectionLines(const std::string& text,
+                                                              const std::string& section) {
+  std::vector<std::pair<std::string, std::string>> out;
+  std::istringstream in(text);
+  std::string line;
+  bool inside = false;
+  while (std::getline(in, line)) {
+    if (!line.empty() && line[0] == '[') {
+      inside = line == "[" + section + "]";
+      continue;
+    }
+    const size_t eq = line.find(" = ");
+    if (!inside || line.empty() || line[0] == '#' || eq == std::string::npos) continue;
+    out.emplace_back(line.substr(0, eq), line);
+  }
+  return out;
+}
+
+// The keys the parser knows in a section, from its unknown-key message
+// ("... unknown key 'x' (known: a, b, c)").
+std::vector<std::string> ParserKeys(const std::string& header) {
+  const std::string err = ErrorOf(header + "\nnot_a_key_of_any_section = 1\n");
+  const size_t at = err.find("(known: ");
+  REQUIRE(at != std::string::npos);
+  std::vector<std::string> keys;
+  std::string list = err.substr(at + 8, err.size() - at - 9);
+  std::istringstream in(list);
+  std::string k;
+  while (std::getline(in, k, ',')) {
+    if (!k.empty() && k[0] == ' ') k.erase(0, 1);
+    keys.push_back(k);
+  }
+  return keys;
+}
+
+// Backticked lower-case names (`shock_z`) in text.
+std::set<std::string> BacktickedNames(const std::string& text) {
+  std::set<std::string> names;
+  for (size_t i = text.find('`'); i != std::string::npos; i = text.find('`', i + 1)) {
+    const size_t j = text.find('`', i + 1);
+    if (j == std::string::npos) break;
+    const std::string t = text.substr(i + 1, j - i - 1);
+    bool name = !t.empty() && t[0] >= 'a' && t[0] <= 'z';
+    for (char ch : t) name = name && ((ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') || ch == '_');
+    if (name) names.insert(t);
+    i = j;
+  }
+  return names;
+}
+
+TEST_CASE("every [alerts] key: parsed, in default.toml, in the README, formatted", "[config][alerts]") {
+  std::vector<std::string> parser = ParserKeys("[alerts]");
+  // `groups` introduces the group tables; it is no threshold.
+  parser.erase(std::remove(parser.begin(), parser.end(), "groups"), parser.end());
+  CHECK(parser.size() == 18);
+  const std::set<std::string> known(parser.begin(), parser.end());
+
+  // config/default.toml lists every key the parser knows, and nothing else, and
+  // each of its lines parses on its own in [alerts] and in a group (the two
+  // feed-wide reject keys are refused in a group with a hint).
+  const std::string dflt =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
+  std::set<std::string> in_default;
+  for (const auto& [key, line] : SectionLines(dflt, "alerts")) {
+    INFO(line);
+    in_default.insert(key);
+    CHECK(ErrorOf("[alerts]\n" + line + "\n") == "ok");
+    const std::string group = ErrorOf("[alerts.groups.g]\nsymbols = [\"A*\"]\n" + line + "\n");
+    if (key == "reject_burst" || key == "reject_window_seconds") {
+      CHECK(group == "config.toml:3: [alerts.groups.g] " + key +
+                         ": the reject-burst rule is feed-wide: set it in [alerts]");
+    } else {
+      CHECK(group == "ok");
+    }
+  }
+  CHECK(in_default == known);
+
+  // FormatEngineConfig writes every key.
+  std::set<std::string> formatted;
+  for (const auto& kv : SectionLines(FormatEngineConfig(EngineConfig()), "alerts")) {
+    formatted.insert(kv.first);
+  }
+  CHECK(formatted == known);
+
+  // The README: every backticked name in its Alerts chapter and every
+  // "`[alerts] name`" anywhere is an [alerts] key the parser knows, unless it
+  // is a word of another vocabulary (kinds, rules, severities, flags, the
+  // alert JSON keys, test names); and every key is documented there.
+  const std::string readme =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/README.md");
+  const size_t begin = readme.find("\n## Alerts\n");
+  REQUIRE(begin != std::string::npos);
+  const size_t end = readme.find("\n## ", begin + 1);
+  std::set<std::string> named = BacktickedNames(readme.substr(begin, end - begin));
+  for (size_t i = readme.find("`[alerts] "); i != std::string::npos;
+       i = readme.find("`[alerts] ", i + 1)) {
+    const size_t j = readme.find('`', i + 1);
+    REQUIRE(j != std::string::npos);
+    named.insert(readme.substr(i + 10, j - i - 10));
+  }
+  std::set<std::string> other = {"s", "t", "kind", "rule", "severity", "value", "threshold",
+                                 "ver", "message"};
+  for (int k = 0; k < kNumAlertKinds; ++k) {
+    other.insert(std::string(AlertKindName(static_cast<AlertKind>(k))));
+  }
+  for (int r = 0; r <= static_cast<int>(AlertRule::kRejectBurst); ++r) {
+    other.insert(std::string(AlertRuleName(static_cast<AlertRule>(r))));
+  }
+  for (int v = 0; v < kNumSeverities; ++v) {
+    other.insert(std::string(SeverityName(static_cast<Severity>(v))));
+  }
+  for (int b = 0; b < kNumUpdateFlags; ++b) other.insert(std::string(FlagName(b)));
+  int keys_named = 0;
+  for (const std::string& name : named) {
+    const bool is_test = name.size() > 5 && name.compare(name.size() - 5, 5, "_test") == 0;
+    if (known.count(name)) {
+      ++keys_named;
+      continue;
+    }
+    INFO("README names `" << name << "`: neither an [alerts] key nor another known word");
+    CHECK((other.count(name) > 0 || is_test));
+  }
+  CHECK(keys_named == static_cast<int>(known.size()));
+  for (const std::string& k : known) {
+    INFO(k);
+    CHECK(named.count(k) == 1);
+  }
+}
+
+TEST_CASE("[alerts] defaults equal AlertOptions' and every key reaches its option",
+          "[config][alerts]") {
+  const AlertOptions d;
+  const AlertOptions c = AlertsConfig().ToAlertOptions();
+  CHECK(c.shock_z == d.shock_z);
+  CHECK(c.shock_critical_z == d.shock_critical_z);
+  CHECK(c.shock_info_z == d.shock_info_z);
+  CHECK(c.cooldown_bars == d.cooldown_bars);
+  CHECK(c.cooldown_seconds == d.cooldown_seconds);
+  CHECK(c.regime_enter == d.regime_enter);
+  CHECK(c.regime_exit == d.regime_exit);
+  CHECK(c.regime_fast_halflife == d.regime_fast_halflife);
+  CHECK(c.regime_slow_halflife == d.regime_slow_halflife);
+  CHECK(c.regime_clip_z == d.regime_clip_z);
+  CHECK(c.regime_warmup_bars == d.regime_warmup_bars);
+  CHECK(c.persistence_threshold == d.persistence_threshold);
+  CHECK(c.refit_failures == d.refit_failures);
+  CHECK(c.stale_seconds == d.stale_seconds);
+  CHECK(c.stale_gap_multiple == d.stale_gap_multiple);
+  CHECK(c.reject_burst == d.reject_burst);
+  CHECK(c.reject_window_seconds == d.reject_window_seconds);
+  CHECK(c.alert_during_warmup == d.alert_during_warmup);
+
+  auto p = ParseEngineConfig(R"([alerts]
+shock_z = 4.2
+shock_critical_z = 6.5
+shock_info_z = 3.1
+cooldown_bars = 7
+cooldown_seconds = 90
+regime_enter = 2.4
+regime_exit = 1.2
+regime_fast_halflife = 12
+regime_slow_halflife = 300
+regime_clip_z = 5
+regime_warmup_bars = 40
+persistence_threshold = 0.99
+refit_failures = 2
+stale_seconds = 45
+stale_gap_multiple = 8
+reject_burst = 50
+reject_window_seconds = 30
+alert_during_warmup = true
+[alerts.groups.g]
+symbols = ["G*"]
+shock_info_z = 2.5
+cooldown_seconds = 10
+regime_clip_z = 0
+regime_warmup_bars = 5
+refit_failures = 4
+stale_gap_multiple = 0
+alert_during_warmup = false
+)",
+                             "all.toml");
+  INFO(p.status().message());
+  REQUIRE(p.ok());
+  const AlertOptions o = p->alerts.ToAlertOptions();
+  CHECK(o.shock_z == 4.2);
+  CHECK(o.shock_critical_z == 6.5);
+  CHECK(o.shock_info_z == 3.1);
+  CHECK(o.cooldown_bars == 7);
+  CHECK(o.cooldown_seconds == 90);
+  CHECK(o.regime_enter == 2.4);
+  CHECK(o.regime_exit == 1.2);
+  CHECK(o.regime_fast_halflife == 12);
+  CHECK(o.regime_slow_halflife == 300);
+  CHECK(o.regime_clip_z == 5);
+  CHECK(o.regime_warmup_bars == 40);
+  CHECK(o.persistence_threshold == 0.99);
+  CHECK(o.refit_failures == 2);
+  CHECK(o.stale_seconds == 45);
+  CHECK(o.stale_gap_multiple == 8);
+  CHECK(o.reject_burst == 50);
+  CHECK(o.reject_window_seconds == 30);
+  CHECK(o.alert_during_warmup);
+  REQUIRE(p->alert_groups.size() == 1);
+  const AlertOptions g = p->alert_groups[0].alerts.ToAlertOptions();
+  CHECK(g.shock_info_z == 2.5);
+  CHECK(g.cooldown_seconds == 10);
+  CHECK(g.regime_clip_z == 0);
+  CHECK(g.regime_warmup_bars == 5);
+  CHECK(g.refit_failures == 4);
+  CHECK(g.stale_gap_multiple == 0);
+  CHECK_FALSE(g.alert_during_warmup);
+  CHECK(g.shock_z == 4.2);  // inherited
+  CHECK(g.reject_window_seconds == 30);
+  // Formatting keeps every value.
+  auto again = ParseEngineConfig(FormatEngineConfig(*p), "again.toml");
+  REQUIRE(again.ok());
+  CHECK(FormatEngineConfig(*again) == FormatEngineConfig(*p));
+}
+
+TEST_CASE("[alerts] range errors name the key", "[config][alerts]") {
+  CHECK(ErrorOf("[alerts]\nshock_info_z = 4\n") ==
+        "config.toml:2: [alerts] shock_info_z: shock_info_z (4) must be 0 (off) or below shock_z "
+        "(4)");
+  CHECK(ErrorOf("[alerts]\nregime_clip_z = 0.5\n") ==
+        "config.toml:2: [alerts] regime_clip_z: must be 0 (no cap) or larger than 1, got 0.5");
+  CHECK(ErrorOf("[alerts]\nregime_exit = 0.9\n") ==
+        "config.toml:2: [alerts] regime_exit: must be in [1, inf), got 0.9");
+  CHECK(ErrorOf("[alerts]\nrefit_failures = 0\n") ==
+        "config.toml:2: [alerts] refit_failures: must be in 1..1000000, got 0");
+  CHECK(ErrorOf("[alerts]\nregime_warmup_bars = -1\n").find("[alerts] regime_warmup_bars: must "
+                                                             "be in 0..") != std::string::npos);
+  CHECK(ErrorOf("[alerts]\ncooldown_seconds = -1\n") ==
+        "config.toml:2: [alerts] cooldown_seconds: must be in [0, 1e+09], got -1");
+  CHECK(ErrorOf("[alerts]\nstale_gap_multiple = -2\n") ==
+        "config.toml:2: [alerts] stale_gap_multiple: must be in [0, 1e+06], got -2");
+  CHECK(ErrorOf("[alerts]\nreject_window_seconds = 0\n").find(
+            "[alerts] reject_window_seconds: must be in [") != std::string::npos);
+  CHECK(ErrorOf("[alerts]\nalert_during_warmup = 1\n") ==
+        "config.toml:2: [alerts] alert_during_warmup: expected true or false, got integer");
 }
 
 }  // namespace

@@ -4,6 +4,7 @@
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <cstdio>
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -212,21 +213,26 @@ TEST_CASE("cool-down in seconds and no cool-down", "[alerts]") {
   CHECK(f->counters().TotalSuppressed() == 0);
 }
 
-TEST_CASE("first, stale and warm-up bars", "[alerts]") {
+TEST_CASE("first-bar, stale and warm-up bars", "[alerts]") {
   AlertOptions o;
   o.regime_warmup_bars = 1000;
   auto e = Engine(o);
   VectorSink sink;
   SymbolAlertState st;
   e->OnBar(Bar("ALPHA.X", 1, 9.0, kFlagFirstBar), &st, &sink);
-  e->OnBar(Bar("ALPHA.X", 2, 9.0, kFlagStale), &st, &sink);
   CHECK(sink.alerts.empty());
   CHECK(e->counters().TotalSuppressed() == 0);
-  CHECK(st.regime.bars == 0);  // neither entered the regime averages
+  CHECK(st.regime.bars == 0);  // did not enter the regime averages
+  // A stale bar (its return spans silent intervals) is an ordinary bar.
+  e->OnBar(Bar("ALPHA.X", 2, 9.0, kFlagStale), &st, &sink);
+  REQUIRE(sink.alerts.size() == 1);
+  CHECK(sink.alerts[0].severity == Severity::kCritical);
+  CHECK(st.regime.bars == 1);
+  sink.alerts.clear();
   e->OnBar(Bar("ALPHA.X", 3, 9.0, kFlagWarmup), &st, &sink);
   CHECK(sink.alerts.empty());
   CHECK(e->counters().Suppressed(AlertKind::kShock, Severity::kCritical) == 1);
-  CHECK(st.regime.bars == 1);
+  CHECK(st.regime.bars == 2);
 
   o.alert_during_warmup = true;
   auto f = Engine(o);
@@ -410,50 +416,193 @@ TEST_CASE("model alerts: gate failures, fallback, recovery", "[alerts]") {
   }
 }
 
-TEST_CASE("feed: stale symbol with a fake clock", "[alerts]") {
+// A stale check of `st` at now (seconds after t0): the symbol's latest tick at
+// `last` (seconds after t0; < 0 = none yet), `ticks` ticks so far.
+struct FeedClock {
+  int64_t t0 = 1700000000 * kSec;
+  int64_t count_from = std::numeric_limits<int64_t>::min();
+  bool in_session = true;
+  FeedCheck At(double now_s, double last_s, uint64_t ticks) const {
+    FeedCheck f;
+    f.now_ns = t0 + static_cast<int64_t>(now_s * kSec);
+    f.in_session = in_session;
+    f.count_from_ns = count_from;
+    f.last_tick_ns = last_s < 0 ? 0 : t0 + static_cast<int64_t>(last_s * kSec);
+    f.ticks = ticks;
+    return f;
+  }
+};
+
+TEST_CASE("feed: stale symbol with a fake clock, fixed threshold", "[alerts]") {
   AlertOptions o;
   o.stale_seconds = 60;
+  o.stale_gap_multiple = 0;  // the fixed threshold alone
   auto e = Engine(o);
   VectorSink sink;
   SymbolAlertState st;
   const Symbol s = Sym("ALPHA.X");
-  const int64_t t0 = 1700000000 * kSec;
-  e->CheckStale(s, t0, true, &st, &sink);  // never ticked: nothing to measure from
+  FeedClock c;
+  e->CheckStale(s, c.At(0, -1, 0), &st, &sink);  // never ticked: nothing to measure from
+  e->CheckStale(s, c.At(1000, -1, 0), &st, &sink);
   CHECK(sink.alerts.empty());
-  e->OnTick(s, t0, &st, &sink);
-  e->CheckStale(s, t0 + 59 * kSec, true, &st, &sink);
+  e->CheckStale(s, c.At(0, 0, 1), &st, &sink);
+  e->CheckStale(s, c.At(59, 0, 1), &st, &sink);
   CHECK(sink.alerts.empty());
-  e->CheckStale(s, t0 + 61 * kSec, true, &st, &sink);
+  e->CheckStale(s, c.At(61, 0, 1), &st, &sink);
   REQUIRE(sink.alerts.size() == 1);
   CHECK(sink.alerts[0].kind == AlertKind::kFeed);
   CHECK(sink.alerts[0].rule == AlertRule::kStale);
   CHECK(sink.alerts[0].severity == Severity::kWarn);
   CHECK(sink.alerts[0].value == 61);
+  CHECK(sink.alerts[0].threshold == 60);
   CHECK(std::string(sink.alerts[0].message) ==
         "ALPHA.X: no tick for 61 s inside the session (stale after 60 s); check the feed for "
         "this symbol.");
-  // No repeats until a tick arrives.
-  for (int k = 62; k < 300; k += 7) e->CheckStale(s, t0 + k * kSec, true, &st, &sink);
+  // No repeats until data arrives.
+  for (int k = 62; k < 300; k += 7) e->CheckStale(s, c.At(k, 0, 1), &st, &sink);
   CHECK(sink.alerts.size() == 1);
-  e->OnTick(s, t0 + 300 * kSec, &st, &sink);
+  // The check at 300.5 s sees the tick that arrived at 300 s.
+  e->CheckStale(s, c.At(300.5, 300, 2), &st, &sink);
   REQUIRE(sink.alerts.size() == 2);
   CHECK(sink.alerts[1].rule == AlertRule::kTicksResumed);
   CHECK(sink.alerts[1].severity == Severity::kInfo);
+  CHECK(sink.alerts[1].value == 300);
   CHECK(std::string(sink.alerts[1].message) ==
         "ALPHA.X: ticks resumed after 300 s without data; no action needed.");
-  // Re-armed: a new silence is reported again.
-  e->CheckStale(s, t0 + 361 * kSec, true, &st, &sink);
-  CHECK(sink.alerts.size() == 3);
+  CHECK(st.tick_gap_s == 0);  // learning is off
+  // Re-armed: a new silence is reported again, with its own length.
+  e->CheckStale(s, c.At(359, 300, 2), &st, &sink);
+  CHECK(sink.alerts.size() == 2);
+  e->CheckStale(s, c.At(365, 300, 2), &st, &sink);
+  REQUIRE(sink.alerts.size() == 3);
+  CHECK(sink.alerts[2].value == 65);
 
-  SECTION("outside the session nothing fires and the clock restarts at the open") {
+  SECTION("outside the session nothing fires; silence counts from the session's start") {
     SymbolAlertState q;
     VectorSink s2;
-    e->OnTick(s, t0, &q, &s2);
-    e->CheckStale(s, t0 + 3600 * kSec, false, &q, &s2);  // closed: overnight silence
-    e->CheckStale(s, t0 + 3630 * kSec, true, &q, &s2);   // 30 s after the last closed check
+    FeedClock night = c;
+    night.in_session = false;
+    e->CheckStale(s, night.At(0, 0, 1), &q, &s2);
+    e->CheckStale(s, night.At(3600, 0, 1), &q, &s2);  // closed: overnight silence
     CHECK(s2.alerts.empty());
-    e->CheckStale(s, t0 + 3660 * kSec, true, &q, &s2);
-    CHECK(s2.alerts.size() == 1);
+    FeedClock day = c;
+    day.count_from = c.t0 + 7200 * kSec;  // the session (and the feed) started at 7200 s
+    e->CheckStale(s, day.At(7230, 0, 1), &q, &s2);
+    e->CheckStale(s, day.At(7259, 0, 1), &q, &s2);
+    CHECK(s2.alerts.empty());
+    e->CheckStale(s, day.At(7261, 0, 1), &q, &s2);
+    REQUIRE(s2.alerts.size() == 1);
+    CHECK(s2.alerts[0].value == 61);  // not the night
+    // Resumed in the next session: the message says the silence began earlier.
+    FeedClock next = c;
+    next.count_from = c.t0 + 93600 * kSec;
+    e->CheckStale(s, next.At(93610, 93605, 2), &q, &s2);
+    REQUIRE(s2.alerts.size() == 2);
+    CHECK(s2.alerts[1].rule == AlertRule::kTicksResumed);
+    CHECK(s2.alerts[1].value == 93605 - 7200);
+    CHECK(std::string(s2.alerts[1].message) ==
+          "ALPHA.X: ticks resumed; silent since an earlier session (86405 s ago, closed hours "
+          "included); no action needed.");
+  }
+}
+
+TEST_CASE("feed: the stale threshold follows each name's own tick rate", "[alerts]") {
+  AlertOptions o;
+  o.stale_seconds = 60;
+  o.stale_gap_multiple = 10;
+  auto e = Engine(o);
+  const Symbol s = Sym("BIRCH.Y");
+  FeedClock c;
+
+  SECTION("a name ticking every 30 s learns a 300 s threshold") {
+    VectorSink sink;
+    SymbolAlertState st;
+    uint64_t n = 0;
+    // One check a second, a tick every 30 s for an hour.
+    double last = -1;
+    for (int t = 0; t <= 3600; ++t) {
+      if (t % 30 == 0) {
+        last = t;
+        ++n;
+      }
+      e->CheckStale(s, c.At(t, last, n), &st, &sink);
+    }
+    CHECK(sink.alerts.empty());
+    CHECK(st.tick_gap_s == Approx(30).epsilon(1e-12));
+    CHECK(e->StaleThresholdSeconds(st) == Approx(300));
+    // A 250 s silence is normal for it; 301 s is not.
+    e->CheckStale(s, c.At(3600 + 250, 3600, n), &st, &sink);
+    CHECK(sink.alerts.empty());
+    e->CheckStale(s, c.At(3600 + 301, 3600, n), &st, &sink);
+    REQUIRE(sink.alerts.size() == 1);
+    CHECK(sink.alerts[0].value == 301);
+    CHECK(sink.alerts[0].threshold == Approx(300));
+    CHECK(std::string(sink.alerts[0].message) ==
+          "BIRCH.Y: no tick for 301 s inside the session (stale after 300 s, 10 times its "
+          "typical gap of 30.0 s); check the feed for this symbol.");
+    // The outage is not learned as the normal rate.
+    e->CheckStale(s, c.At(4600, 4600, n + 1), &st, &sink);
+    CHECK(sink.alerts.size() == 2);
+    CHECK(st.tick_gap_s == Approx(30).epsilon(1e-12));
+  }
+
+  SECTION("a name sparser than stale_seconds raises at most one alert, then learns") {
+    VectorSink sink;
+    SymbolAlertState st;
+    uint64_t n = 0;
+    double last = -1;
+    for (int t = 0; t <= 6 * 3600; t += 5) {  // a check every 5 s, a tick every 5 minutes
+      if (t % 300 == 0) {
+        last = t;
+        ++n;
+      }
+      e->CheckStale(s, c.At(t, last, n), &st, &sink);
+    }
+    // Before any gap is known the floor applies once: stale at 60 s, resumed at 300 s.
+    REQUIRE(sink.alerts.size() == 2);
+    CHECK(sink.alerts[0].rule == AlertRule::kStale);
+    CHECK(sink.alerts[1].rule == AlertRule::kTicksResumed);
+    CHECK(st.tick_gap_s == Approx(300).epsilon(1e-12));
+
+    // The same name with the learning off: an alert pair every five minutes.
+    AlertOptions fixed = o;
+    fixed.stale_gap_multiple = 0;
+    auto f = Engine(fixed);
+    VectorSink storm;
+    SymbolAlertState q;
+    n = 0;
+    last = -1;
+    for (int t = 0; t <= 6 * 3600; t += 5) {
+      if (t % 300 == 0) {
+        last = t;
+        ++n;
+      }
+      f->CheckStale(s, c.At(t, last, n), &q, &storm);
+    }
+    CHECK(storm.alerts.size() == 2 * 72);
+  }
+
+  SECTION("several ticks between two checks are several gaps") {
+    VectorSink sink;
+    SymbolAlertState st;
+    e->CheckStale(s, c.At(0, 0, 1), &st, &sink);
+    // Ten ticks in the next 20 s: ten gaps of 2 s on average.
+    e->CheckStale(s, c.At(20, 20, 11), &st, &sink);
+    CHECK(st.tick_gap_s == 2);
+    // Ten more over 40 s: the plain mean of the 20 gaps while it weighs more.
+    e->CheckStale(s, c.At(60, 60, 21), &st, &sink);
+    CHECK(st.tick_gap_s == 3);
+    CHECK(st.gap_samples == 20);
+    // 50 gaps of 1 s: still the plain mean (weight 50/70 > 1 - 2^(-50/50)).
+    e->CheckStale(s, c.At(110, 110, 71), &st, &sink);
+    CHECK(st.tick_gap_s == Approx((20 * 3.0 + 50 * 1.0) / 70).epsilon(1e-12));
+    CHECK(st.gap_samples == 70);
+    // 100 gaps of 3 s: exponential weights now (1 - 2^(-100/50) = 3/4 > 100/170).
+    const double before = st.tick_gap_s;
+    e->CheckStale(s, c.At(410, 410, 171), &st, &sink);
+    CHECK(st.tick_gap_s == Approx(before + 0.75 * (3 - before)).epsilon(1e-12));
+    CHECK(st.gap_samples == 170);
+    CHECK(sink.alerts.empty());
   }
 }
 
@@ -561,8 +710,13 @@ TEST_CASE("OnBar and the JSON encoder allocate nothing", "[alerts]") {
     e->OnBar(u, &st, &sink);
     if (t % 1000 == 0) EncodeAlertJson(a, &json);
   }
-  e->OnTick(u.symbol, 1, &st, &sink);
-  e->CheckStale(u.symbol, 100 * kSec, true, &st, &sink);
+  FeedCheck feed;
+  feed.now_ns = 1;
+  feed.last_tick_ns = 1;
+  feed.ticks = 1;
+  e->CheckStale(u.symbol, feed, &st, &sink);
+  feed.now_ns = 100 * kSec;
+  e->CheckStale(u.symbol, feed, &st, &sink);
   e->OnRejectedTick(5, &sink);
   const uint64_t after = testing::AllocationCount();
   if (testing::AllocationCountingEnabled()) {
@@ -615,6 +769,12 @@ TEST_CASE("bad alert options are clear errors", "[alerts]") {
   auto g = AlertEngine::Create(o);
   REQUIRE_FALSE(g.ok());
   CHECK(std::string(g.status().message()) == "stale_seconds must be a positive number, got 0");
+  o = AlertOptions{};
+  o.stale_gap_multiple = -1;
+  auto h = AlertEngine::Create(o);
+  REQUIRE_FALSE(h.ok());
+  CHECK(std::string(h.status().message()) ==
+        "stale_gap_multiple must be in [0, 1e6] (0 = off), got -1");
 }
 
 }  // namespace

@@ -212,6 +212,78 @@ TEST_CASE("sessions: outside ticks rejected, bars anchored and clipped, gaps fla
   CHECK(bar.flags == 0);
 }
 
+TEST_CASE("stale: a bar after whole silent intervals of its session, never for the clock",
+          "[bar_builder]") {
+  BarState st;
+  BarOptions o;
+  o.interval_ns = kMin;
+  o.session.enabled = true;
+  o.session.start_minute = 8 * 60;
+  o.session.end_minute = 16 * 60 + 30;
+  o.session.tz_offset_minutes = 60;
+  const int64_t open = kDay0 + 7 * 60 * kMin;  // 08:00 local
+  ClosedBar bar;
+  // Bars 08:00 and 08:01 have ticks and are closed by the clock: not stale.
+  FeedTick(&st, Price(open + 10 * kSec, 100), o);
+  REQUIRE(CloseIfDue(&st, open + kMin, 0, o, &bar));
+  CHECK(bar.closed_by_clock);
+  CHECK(bar.flags == kFlagFirstBar);
+  FeedTick(&st, Price(open + kMin + 5 * kSec, 101), o);
+  REQUIRE(CloseIfDue(&st, open + 2 * kMin, 0, o, &bar));
+  CHECK(bar.closed_by_clock);
+  CHECK(bar.has_return);
+  CHECK(bar.flags == 0);
+  // No tick in 08:02..08:04: no bars; the 08:05 bar's return spans them.
+  FeedTick(&st, Price(open + 5 * kMin + 1 * kSec, 102), o);
+  REQUIRE(CloseIfDue(&st, open + 6 * kMin, 0, o, &bar));
+  CHECK(bar.has_return);
+  CHECK(bar.ret == (std::log(102.0) - std::log(101.0)));
+  CHECK(bar.flags == kFlagStale);
+  // The next consecutive bar, closed by its successor's tick, is not stale.
+  FeedTick(&st, Price(open + 6 * kMin + 1 * kSec, 103), o);
+  FeedResult r = FeedTick(&st, Price(open + 7 * kMin + 1 * kSec, 104), o);
+  REQUIRE(r.closed);
+  CHECK_FALSE(r.bar.closed_by_clock);
+  CHECK(r.bar.flags == 0);
+  // A bar closed by a tick after a silent interval is stale all the same.
+  r = FeedTick(&st, Price(open + 9 * kMin, 105), o);
+  REQUIRE(r.closed);  // closes 08:07
+  CHECK(r.bar.flags == 0);
+  r = FeedTick(&st, Price(open + 10 * kMin, 106), o);
+  REQUIRE(r.closed);  // closes 08:09, one silent minute (08:08) before it
+  CHECK(r.bar.flags == kFlagStale);
+  // The first bar of the next session spans the night: gap, not stale.
+  r = FeedTick(&st, Price(open + kNanosPerDay + 30 * kMin, 107), o);
+  REQUIRE(r.closed);
+  REQUIRE(CloseIfDue(&st, open + kNanosPerDay + 31 * kMin, 0, o, &bar));
+  CHECK(bar.flags == kFlagGap);
+  // Per-tick bars never carry it, however long the silence.
+  BarState t0;
+  BarOptions per_tick;
+  FeedTick(&t0, Price(kDay0, 100), per_tick);
+  r = FeedTick(&t0, Price(kDay0 + 3600 * kSec, 101), per_tick);
+  REQUIRE(r.closed);
+  CHECK(r.bar.flags == 0);
+}
+
+TEST_CASE("SessionOpenNs: the start of the session containing a time", "[bar_builder]") {
+  SessionWindow s;
+  CHECK(SessionOpenNs(s, kDay0 + 5 * kMin) == INT64_MIN);  // no session
+  s.enabled = true;
+  s.start_minute = 8 * 60;
+  s.end_minute = 16 * 60 + 30;
+  s.tz_offset_minutes = 60;
+  CHECK(SessionOpenNs(s, kDay0 + 7 * 60 * kMin) == kDay0 + 7 * 60 * kMin);
+  CHECK(SessionOpenNs(s, kDay0 + 15 * 60 * kMin) == kDay0 + 7 * 60 * kMin);
+  // Over midnight: 01:00 belongs to the session opened at 22:00 the day before.
+  SessionWindow night;
+  night.enabled = true;
+  night.start_minute = 22 * 60;
+  night.end_minute = 6 * 60;
+  CHECK(SessionOpenNs(night, kDay0 + 25 * 60 * kMin) == kDay0 + 22 * 60 * kMin);
+  CHECK(SessionOpenNs(night, kDay0 + 23 * 60 * kMin) == kDay0 + 22 * 60 * kMin);
+}
+
 TEST_CASE("sessions over midnight and per-message bars across a session gap", "[bar_builder]") {
   SessionWindow s;
   s.enabled = true;

@@ -232,7 +232,8 @@ TEST_CASE("percent units scale price-derived returns by 100", "[core]") {
   CHECK(got[0].r == 100.0 * (std::log(101.0) - std::log(100.0)));
 }
 
-TEST_CASE("time bars: ticks aggregate, the clock closes idle bars as stale", "[core]") {
+TEST_CASE("time bars: ticks aggregate; the clock closes bars; stale marks silent intervals",
+          "[core]") {
   Fixture f(std::string(testing::kFixedModelToml) +
             "[bars]\ninterval = \"1s\"\ngrace = \"200ms\"\n");
   const std::string s = "FIR.T";
@@ -253,8 +254,17 @@ TEST_CASE("time bars: ticks aggregate, the clock closes idle bars as stale", "[c
   got = Decoded(f.sink, "u." + s);
   REQUIRE(got.size() == 2);
   CHECK(got[1].r == -0.0005);
-  CHECK((got[1].flags & kFlagStale) != 0);
+  // Closed by the clock, but it had a tick and follows the previous bar: normal.
+  CHECK((got[1].flags & kFlagStale) == 0);
   CHECK(f.core->counters().bars_clock_closed == 1);
+  // No tick in [t0 + 2 s, t0 + 4 s): the next bar's return spans that silence.
+  f.core->OnTick(ReturnTick(s, kT0 + 4 * kSec + 10, 0.004));
+  f.core->OnClock(kT0 + 5 * kSec + 200000000);
+  got = Decoded(f.sink, "u." + s);
+  REQUIRE(got.size() == 3);
+  CHECK(got[2].t_ns == kT0 + 5 * kSec);
+  CHECK((got[2].flags & kFlagStale) != 0);
+  CHECK(f.core->counters().bars_clock_closed == 2);
 }
 
 TEST_CASE("bad-input corpus: every class counted by reason, never fatal, no NaN", "[core]") {
