@@ -150,6 +150,7 @@ struct RefitConfig {
   // A symbol without a passed fit of its own takes its group's latest passed
   // model (dynamics only, at its own variance level), flagged `pooled`, until
   // its own fit passes. Group: its [alerts.groups.*] group, else all symbols.
+  // Not used with [model.params]. Default true.
   bool group_models = true;
 };
 

@@ -97,11 +97,11 @@ absl::StatusOr<ModelParams> PooledParams(const ModelParams& donor, double level)
   s.mean = MeanKind::kZero;
   s.ar_order = 0;
   s.ma_order = 0;
-  ModelParams out{s, std::vector<double>(donor.values.begin() + d.VarianceOffset(),
-                                         donor.values.end())};
+  ModelParams out{
+      s, std::vector<double>(donor.values.begin() + d.VarianceOffset(), donor.values.end())};
   // values[0] is omega in every variance family but EWMA: set the level.
-  out.values[0] = d.variance == VarianceKind::kConstant ? level
-                                                        : level * (1.0 - donor.Persistence());
+  out.values[0] =
+      d.variance == VarianceKind::kConstant ? level : level * (1.0 - donor.Persistence());
   if (auto st = out.CheckConstraints(); !st.ok()) return st;
   return out;
 }
@@ -312,8 +312,8 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
   rec.names = p->spec.ParamNames();
   rec.values = p->values;
   rec.converged = true;
-  rec.note = absl::StrCat("group model: the dynamics of ", g.donor, " version ",
-                          g.latest->version, " at this symbol's variance ", level, " (",
+  rec.note = absl::StrCat("group model: the dynamics of ", g.donor, " version ", g.latest->version,
+                          " at this symbol's variance ", level, " (",
                           n >= kPooledLevelBars ? "its window" : "its current forecast", ")");
   rec.consecutive_failures = sym->failures;
   last_record_ = std::move(rec);

@@ -33,7 +33,8 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   // Version 1 is the configured [model.params] when there is one.
   o.first_version = config.model.has_params ? 2 : 1;
   o.mode = so.mode;
-  o.group_models = c.group_models;
+  // With [model.params] a symbol without its own fit keeps the configured model.
+  o.group_models = c.group_models && !config.model.has_params;
   if (config.SeasonalityActive()) {
     o.seasonal = true;
     const std::vector<int>& hz = config.outputs.horizons;

@@ -6,11 +6,13 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <catch2/catch.hpp>
 #include <chrono>
 #include <map>
 #include <fstream>
 #include <nlohmann/json.hpp>
+#include <random>
 #include <sstream>
 #include <thread>
 
@@ -233,6 +235,94 @@ TEST_CASE("run --check prints warnings for contradicting settings", "[app][run]"
   CHECK(clean.exit_code == 0);
   CHECK(clean.out.find("(128520 a year, auto)") != std::string::npos);
   CHECK(clean.out.find("warning") == std::string::npos);
+
+TEST_CASE("replay: an idle name runs on its group's model (1m bars of prices, sessions)",
+          "[app][replay]") {
+  const std::string dir = testing::ScratchDir("replay_group_models");
+  // Three sessions 09:30-16:00 UTC. IRON.A and IRON.B tick every 5..35 s,
+  // IRON.Z (same group) and LONE.Q (no group, so its group has no busy name)
+  // only every 10..20 minutes.
+  struct Row {
+    int64_t t;
+    int sym;
+  };
+  const char* names[] = {"IRON.A", "IRON.B", "IRON.Z", "LONE.Q"};
+  std::mt19937_64 rng(11);
+  std::vector<Row> rows;
+  for (int day = 0; day < 3; ++day) {
+    const int64_t open = kT0 + int64_t{day} * 86400 * 1000000000;
+    const int64_t close = open + int64_t{390} * 60 * 1000000000;
+    for (int s = 0; s < 4; ++s) {
+      const bool busy = s < 2;
+      std::uniform_int_distribution<int> gap_s(busy ? 5 : 600, busy ? 35 : 1200);
+      for (int64_t t = open + int64_t{gap_s(rng)} * 1000000000; t < close;
+           t += int64_t{gap_s(rng)} * 1000000000) {
+        rows.push_back({t, s});
+      }
+    }
+  }
+  std::stable_sort(rows.begin(), rows.end(), [](const Row& a, const Row& b) { return a.t < b.t; });
+  std::normal_distribution<double> step(0, 0.0008);
+  double price[4] = {100, 80, 60, 40};
+  std::string csv = "symbol,time,price\n";
+  for (const Row& r : rows) {
+    price[r.sym] *= std::exp((r.sym >= 2 ? 3.0 : 1.0) * step(rng));
+    char buf[64];
+    std::snprintf(buf, sizeof(buf), "%.10f", price[r.sym]);
+    absl::StrAppend(&csv, names[r.sym], ",", r.t, ",", buf, "\n");
+  }
+  const std::string input = testing::WriteFile(dir + "/ticks.csv", csv);
+  const std::string cfg = testing::WriteFile(
+      dir + "/c.toml",
+      "[bars]\ninterval = \"1m\"\n"
+      "session = { start = \"09:30\", end = \"16:00\", timezone_offset_minutes = 0 }\n"
+      "[refit]\nevery_bars = 100\nwindow = 600\nmin_bars = 200\nholdout_bars = 50\n"
+      "[alerts.groups.metals]\nsymbols = [\"IRON*\"]\n");
+  auto run = [&](const std::string& tag) {
+    return RunCli({"replay", "--config", cfg, "--input", input, "--output",
+                   dir + "/u" + tag + ".jsonl", "--models", dir + "/m" + tag + ".jsonl"});
+  };
+  const auto a = run("a");
+  const auto b = run("b");
+  INFO(a.err << b.err);
+  REQUIRE(a.exit_code == 0);
+  REQUIRE(b.exit_code == 0);
+  const std::string ua = testing::ReadFileOrDie(dir + "/ua.jsonl");
+  const std::string ma = testing::ReadFileOrDie(dir + "/ma.jsonl");
+  CHECK(ua == testing::ReadFileOrDie(dir + "/ub.jsonl"));
+  CHECK(ma == testing::ReadFileOrDie(dir + "/mb.jsonl"));
+  // The idle metal adopts its group's model; the lone idle name has none to take.
+  int pooled_records = 0;
+  for (const auto& line : Lines(ma)) {
+    const auto j = nlohmann::json::parse(line);
+    INFO(line);
+    if (j.at("outcome") == "pooled") {
+      CHECK(j.at("symbol") == "IRON.Z");
+      ++pooled_records;
+    }
+  }
+  CHECK(pooled_records >= 1);
+  int z_updates = 0, z_pooled = 0, lone_updates = 0;
+  for (const auto& line : Lines(ua)) {
+    BarUpdate u;
+    REQUIRE(DecodeUpdateJson(line, &u).ok());
+    if (u.symbol.view() == "IRON.Z") {
+      ++z_updates;
+      if (u.flags & kFlagPooled) {
+        ++z_pooled;
+        CHECK(u.ver >= 1);
+        CHECK((u.flags & kFlagWarmup) == 0);
+      }
+    } else if (u.symbol.view() == "LONE.Q") {
+      ++lone_updates;
+      CHECK((u.flags & kFlagWarmup) != 0);
+      CHECK((u.flags & kFlagPooled) == 0);
+    }
+  }
+  // IRON.Z never has min_bars of its own (about 26 bars a session).
+  CHECK(z_updates < 200);
+  CHECK(z_pooled >= 20);
+  CHECK(lone_updates > 20);
 }
 
 TEST_CASE("replay and run: clear errors, exit 2", "[app][replay]") {

@@ -58,7 +58,7 @@ BOOK = {
     "ASKE.CRB": (0.04, 10_000),
 }
 
-FLAG_NAMES = ["warmup", "fallback", "stale", "seasonal", "gap", "first_bar"]
+FLAG_NAMES = ["warmup", "fallback", "stale", "seasonal", "gap", "first_bar", "pooled"]
 UPDATE_MAGIC = 0xA8
 
 
