@@ -100,7 +100,9 @@ TEST_CASE("replay output is byte-identical on repeated runs (time bars, prices)"
                     "\n");
   }
   const std::string input = testing::WriteFile(dir + "/ticks.csv", csv);
-  const std::string cfg = testing::WriteFile(dir + "/c.toml", "[bars]\ninterval = \"1s\"\n");
+  // Refits off (the old default): every update stays on the warm-up EWMA.
+  const std::string cfg = testing::WriteFile(
+      dir + "/c.toml", "[bars]\ninterval = \"1s\"\n[refit]\nevery_bars = 0\n");
   const auto a =
       RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/a.jsonl"});
   const auto b =
