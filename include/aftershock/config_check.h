@@ -8,6 +8,9 @@
 //     away from AutoPeriodsPerYear([bars]) (time bars only); with "0s" bars
 //     and run facts, ticks of a symbol spaced less than an hour apart while
 //     periods_per_year < 252 * 24 (each tick annualized as a day or more);
+//     with time bars, no session and "auto", an input spanning more than two
+//     days whose busiest symbol fills less than half of the span's bars
+//     (nights and weekends counted as trading time);
 //   * refits off ([refit] every_bars = 0 and every_seconds = 0);
 //   * [refit] min_bars (with refits on) or [warmup] min_bars longer than one
 //     session (BarsPerSession), or, with run facts, than the most bars any

@@ -77,6 +77,21 @@ std::vector<std::string> ConfigWarnings(const EngineConfig& c, const RunFacts& f
     }
   }
 
+  if (interval > 0 && !c.bars.session.enabled && c.outputs.periods_per_year_auto && f.present &&
+      f.max_symbol_bars > 0 && f.last_tick_ns - f.first_tick_ns > 2 * kNanosPerDay) {
+    const double possible = static_cast<double>(f.last_tick_ns - f.first_tick_ns) /
+                            static_cast<double>(interval);
+    const double used = static_cast<double>(f.max_symbol_bars) / possible;
+    if (used < 0.5) {
+      out.push_back(absl::StrFormat(
+          "the input spans %.1f days but fills only %.0f%% of its %s bars (nights, weekends?), and "
+          "without a [bars] session periods_per_year \"auto\" = %g counts 24-hour days: set "
+          "[bars] session",
+          static_cast<double>(f.last_tick_ns - f.first_tick_ns) / static_cast<double>(kNanosPerDay),
+          100.0 * used, FormatDuration(interval), auto_ppy));
+    }
+  }
+
   // ---- Refits.
   if (!refits_on) {
     out.push_back(
