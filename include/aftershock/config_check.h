@@ -36,14 +36,14 @@ namespace aftershock {
 
 // What a finished run saw (all zero when unknown).
 struct RunFacts {
-  bool present = false;            // false: check the configuration alone
-  bool from_file = false;          // a tick file was replayed ([feed] encoding unused)
-  uint64_t ticks_accepted = 0;     // ticks the bar builder accepted
-  RejectCounters rejects;          // inputs rejected, by reason
-  uint64_t symbols = 0;            // symbols seen
-  uint64_t max_symbol_bars = 0;    // most bars closed by any one symbol
-  uint64_t symbols_fitted = 0;     // symbols whose model at the end is fitted (version >= 1)
-  int64_t first_tick_ns = 0;       // event time of the first and last accepted input
+  bool present = false;          // false: check the configuration alone
+  bool from_file = false;        // a tick file was replayed ([feed] encoding unused)
+  uint64_t ticks_accepted = 0;   // ticks the bar builder accepted
+  RejectCounters rejects;        // inputs rejected, by reason
+  uint64_t symbols = 0;          // symbols seen
+  uint64_t max_symbol_bars = 0;  // most bars closed by any one symbol
+  uint64_t symbols_fitted = 0;   // symbols whose model at the end is fitted (version >= 1)
+  int64_t first_tick_ns = 0;     // event time of the first and last accepted input
   int64_t last_tick_ns = 0;
 };
 

@@ -41,7 +41,8 @@ TEST_CASE("the defaults and the shipped examples raise no warning", "[config_che
 }
 
 TEST_CASE("annualization against the bar interval", "[config_check]") {
-  const auto ws = ConfigWarnings(Parse(std::string(kSession) + "[outputs]\nperiods_per_year = 252\n"));
+  const auto ws =
+      ConfigWarnings(Parse(std::string(kSession) + "[outputs]\nperiods_per_year = 252\n"));
   REQUIRE(ws.size() == 1);
   // sqrt(128520 / 252) = 22.58
   CHECK(ws[0] ==
@@ -115,8 +116,7 @@ TEST_CASE("refits off, min_bars beyond a session, a binary feed", "[config_check
             "replay reads the tick file and ignores it") != std::string::npos);
 }
 
-TEST_CASE("facts of a run: most inputs rejected, no fitted model, too few bars",
-          "[config_check]") {
+TEST_CASE("facts of a run: most inputs rejected, no fitted model, too few bars", "[config_check]") {
   RunFacts f;
   f.present = true;
   f.ticks_accepted = 30;
@@ -129,8 +129,9 @@ TEST_CASE("facts of a run: most inputs rejected, no fitted model, too few bars",
   INFO(absl::StrJoin(ws, "\n"));
   CHECK(Has(ws, "[refit] min_bars = 200, but no symbol had more than 3 bars in this input"));
   CHECK(Has(ws, "[warmup] min_bars = 2, but no symbol had more than 3 bars") == false);
-  CHECK(Has(ws, "most inputs were rejected: 970 of 1000 (97%; outside_session 960, too_old 10): "
-                "check [bars] session and timezone_offset_minutes against the ticks' times"));
+  CHECK(Has(ws,
+            "most inputs were rejected: 970 of 1000 (97%; outside_session 960, too_old 10): "
+            "check [bars] session and timezone_offset_minutes against the ticks' times"));
   CHECK(Has(ws, "no symbol got a fitted model (all 12 ended on version 0 or the EWMA fallback)"));
   // A healthy run: nothing.
   RunFacts ok = f;
