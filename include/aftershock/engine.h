@@ -106,8 +106,8 @@ class Engine {
   std::unique_ptr<IngestCore> core_;
   std::unique_ptr<Loop> loop_;
   std::unique_ptr<RejectWindow> reject_window_;  // ingest thread; before http_ (outlives it)
-  std::unique_ptr<MetricsHttpServer> http_;  // after loop_: destroyed before it
-  std::shared_ptr<void> transport_;          // keeps the ZeroMQ context of CreateFromConfig alive
+  std::unique_ptr<MetricsHttpServer> http_;      // after loop_: destroyed before it
+  std::shared_ptr<void> transport_;  // keeps the ZeroMQ context of CreateFromConfig alive
 };
 
 }  // namespace aftershock

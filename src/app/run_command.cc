@@ -46,19 +46,16 @@ int RunCommand(int argc, char** argv) {
       config->model.has_params
           ? "fixed [model.params], version 1"
           : absl::StrCat("EWMA warm-up (lambda ", config->warmup.ewma_lambda, "), version 0");
-  const std::string plan =
-      absl::StrCat("feed ", absl::StrJoin(config->feed.endpoints, ","), " (",
-                   WireEncodingName(config->feed.encoding), ") -> bars ",
-                   FormatDuration(config->bars.interval_ns), " (",
-                   config->outputs.periods_per_year, " a year",
-                   config->outputs.periods_per_year_auto ? ", auto" : "", ") -> ", model,
-                   " -> publish ",
-                   config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")",
-                   config->refit.every_bars > 0 || config->refit.every_seconds > 0
-                       ? absl::StrCat("; refits every ", config->refit.every_bars, " bars / ",
-                                      config->refit.every_seconds, " s on ",
-                                      config->refit.workers, " worker(s)")
-                       : "; refits off");
+  const std::string plan = absl::StrCat(
+      "feed ", absl::StrJoin(config->feed.endpoints, ","), " (",
+      WireEncodingName(config->feed.encoding), ") -> bars ",
+      FormatDuration(config->bars.interval_ns), " (", config->outputs.periods_per_year, " a year",
+      config->outputs.periods_per_year_auto ? ", auto" : "", ") -> ", model, " -> publish ",
+      config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")",
+      config->refit.every_bars > 0 || config->refit.every_seconds > 0
+          ? absl::StrCat("; refits every ", config->refit.every_bars, " bars / ",
+                         config->refit.every_seconds, " s on ", config->refit.workers, " worker(s)")
+          : "; refits off");
   const std::vector<std::string> warnings = ConfigWarnings(*config);
   if (args.Flag("check")) {
     std::printf("%s: configuration OK\n%s\n", args.Get("config").c_str(), plan.c_str());

@@ -527,7 +527,8 @@ int SimulateCommand(int argc, char** argv) {
                  "variance; 0 = none",
                  "100");
   args.AddOption("intraday-shape", "SHAPE",
-                 "intraday volatility profile over the session: flat | u (needs --session)", "flat");
+                 "intraday volatility profile over the session: flat | u (needs --session)",
+                 "flat");
   args.AddOption("intraday-amplitude", "A",
                  "amplitude of the u shape: open/close variance about 1 + A times midday's", "2");
   args.AddOption("ticks-per-bar", "N",
@@ -607,8 +608,7 @@ int SimulateCommand(int argc, char** argv) {
   }
   auto overnight = args.GetDouble("overnight-variance");
   if (!overnight.ok() || !(*overnight >= 0) || !std::isfinite(*overnight)) {
-    return Fail(absl::InvalidArgumentError("--overnight-variance must be a number >= 0 (bars)"),
-                2);
+    return Fail(absl::InvalidArgumentError("--overnight-variance must be a number >= 0 (bars)"), 2);
   }
   const std::string shape = args.Get("intraday-shape");
   if (shape != "flat" && shape != "u") {

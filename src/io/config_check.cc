@@ -60,12 +60,13 @@ std::vector<std::string> ConfigWarnings(const EngineConfig& c, const RunFacts& f
     out.push_back(absl::StrFormat(
         "[outputs] periods_per_year = %g, but %s gives %g bars a year (252 days; \"auto\"): "
         "vol_ann and the sizing scale are off by a factor %.3g",
-        ppy, BarsText(c.bars), auto_ppy, std::sqrt(std::max(ppy, auto_ppy) /
-                                                   std::min(ppy, auto_ppy))));
+        ppy, BarsText(c.bars), auto_ppy,
+        std::sqrt(std::max(ppy, auto_ppy) / std::min(ppy, auto_ppy))));
   }
   if (interval == 0 && f.present && f.ticks_accepted > 0 && f.symbols > 0 &&
       f.last_tick_ns > f.first_tick_ns) {
-    const double per_symbol = static_cast<double>(f.ticks_accepted) / static_cast<double>(f.symbols);
+    const double per_symbol =
+        static_cast<double>(f.ticks_accepted) / static_cast<double>(f.symbols);
     const double spacing_s =
         static_cast<double>(f.last_tick_ns - f.first_tick_ns) * 1e-9 / std::max(1.0, per_symbol);
     if (spacing_s < 3600 && ppy < 252.0 * 24) {
@@ -74,6 +75,21 @@ std::vector<std::string> ConfigWarnings(const EngineConfig& c, const RunFacts& f
           "%.3g s, but periods_per_year = %g annualizes each bar as %s: set [bars] interval "
           "(e.g. \"1m\") or periods_per_year",
           spacing_s, ppy, ppy <= 252 ? "a day" : "a fraction of a day"));
+    }
+  }
+
+  if (interval > 0 && !c.bars.session.enabled && c.outputs.periods_per_year_auto && f.present &&
+      f.max_symbol_bars > 0 && f.last_tick_ns - f.first_tick_ns > 2 * kNanosPerDay) {
+    const double possible =
+        static_cast<double>(f.last_tick_ns - f.first_tick_ns) / static_cast<double>(interval);
+    const double used = static_cast<double>(f.max_symbol_bars) / possible;
+    if (used < 0.5) {
+      out.push_back(absl::StrFormat(
+          "the input spans %.1f days but fills only %.0f%% of its %s bars (nights, weekends?), and "
+          "without a [bars] session periods_per_year \"auto\" = %g counts 24-hour days: set "
+          "[bars] session",
+          static_cast<double>(f.last_tick_ns - f.first_tick_ns) / static_cast<double>(kNanosPerDay),
+          100.0 * used, FormatDuration(interval), auto_ppy));
     }
   }
 
@@ -139,13 +155,14 @@ std::vector<std::string> ConfigWarnings(const EngineConfig& c, const RunFacts& f
       std::sort(by.rbegin(), by.rend());
       std::string reasons;
       for (size_t i = 0; i < by.size() && i < 3; ++i) {
-        absl::StrAppend(&reasons, i ? ", " : "", RejectReasonName(static_cast<RejectReason>(by[i].second)),
-                        " ", by[i].first);
+        absl::StrAppend(&reasons, i ? ", " : "",
+                        RejectReasonName(static_cast<RejectReason>(by[i].second)), " ",
+                        by[i].first);
       }
-      out.push_back(absl::StrFormat(
-          "most inputs were rejected: %d of %d (%.0f%%; %s): %s", rejected, inputs,
-          100.0 * static_cast<double>(rejected) / static_cast<double>(inputs), reasons,
-          RejectHint(static_cast<RejectReason>(by.front().second), c)));
+      out.push_back(
+          absl::StrFormat("most inputs were rejected: %d of %d (%.0f%%; %s): %s", rejected, inputs,
+                          100.0 * static_cast<double>(rejected) / static_cast<double>(inputs),
+                          reasons, RejectHint(static_cast<RejectReason>(by.front().second), c)));
     }
     if (f.symbols > 0 && f.symbols_fitted == 0) {
       out.push_back(absl::StrFormat(

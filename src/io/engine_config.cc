@@ -624,9 +624,9 @@ absl::Status ParseOutputs(const Section& s, OutputsConfig* c) {
   }
   if (const toml::node* n = s.Node("periods_per_year"); n != nullptr && n->is_string()) {
     if (n->as_string()->get() != "auto") {
-      return s.KeyError("periods_per_year",
-                        absl::StrCat("expected \"auto\" or a number > 0, got \"",
-                                     n->as_string()->get(), "\""));
+      return s.KeyError(
+          "periods_per_year",
+          absl::StrCat("expected \"auto\" or a number > 0, got \"", n->as_string()->get(), "\""));
     }
     c->periods_per_year_auto = true;
   } else if (n != nullptr) {

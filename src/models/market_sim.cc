@@ -331,7 +331,8 @@ void MarketSim::Impl::FillBar() {
     const double base = log_price[j] + overnight;
     if (n == 1) {
       log_price[j] += overnight + r;
-      pending.push_back({bar_start, static_cast<int32_t>(j), std::exp(log_price[j]), overnight + r});
+      pending.push_back(
+          {bar_start, static_cast<int32_t>(j), std::exp(log_price[j]), overnight + r});
       continue;
     }
     for (double& u : uniforms) u = uniform(s.aux());
@@ -356,8 +357,8 @@ void MarketSim::Impl::FillBar() {
         tau = next_tau;
       }
       const int64_t t =
-          bar_start + std::min<int64_t>(bar_length - 1, static_cast<int64_t>(
-                                                            u * static_cast<double>(bar_length)));
+          bar_start + std::min<int64_t>(bar_length - 1,
+                                        static_cast<int64_t>(u * static_cast<double>(bar_length)));
       pending.push_back({t, static_cast<int32_t>(j), std::exp(base + x),
                          (m == 0 ? overnight : 0.0) + (x - prev_x)});
       prev_x = x;
@@ -394,8 +395,8 @@ absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
         absl::StrCat("bar interval must be > 0 ns, got ", o.interval_ns));
   }
   if (o.ticks_per_bar < 1 || o.ticks_per_bar > kMaxTicksPerBar) {
-    return absl::InvalidArgumentError(absl::StrCat("ticks per bar must be in 1..", kMaxTicksPerBar,
-                                                   ", got ", o.ticks_per_bar));
+    return absl::InvalidArgumentError(
+        absl::StrCat("ticks per bar must be in 1..", kMaxTicksPerBar, ", got ", o.ticks_per_bar));
   }
   if (!(std::isfinite(o.intraday_amplitude) && o.intraday_amplitude >= 0)) {
     return absl::InvalidArgumentError("intraday amplitude must be a number >= 0");
@@ -418,8 +419,9 @@ absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
     if (w.start_minute < 0 || w.start_minute > 1439 || w.end_minute < 1 || w.end_minute > 1440 ||
         w.start_minute == w.end_minute % 1440 || w.tz_offset_minutes < -1440 ||
         w.tz_offset_minutes > 1440) {
-      return absl::InvalidArgumentError("bad session (start 00:00..23:59, end 00:01..24:00, "
-                                        "start != end, UTC offset within a day)");
+      return absl::InvalidArgumentError(
+          "bad session (start 00:00..23:59, end 00:01..24:00, "
+          "start != end, UTC offset within a day)");
     }
     if (o.interval_ns > kNanosPerDay) {
       return absl::InvalidArgumentError("with a session the bar interval must be at most 1 day");
@@ -479,8 +481,8 @@ absl::StatusOr<std::unique_ptr<MarketSim>> MarketSim::Create(
     m.session_length_ns = SessionLengthNs(o.session);
     // The first trading session whose last bar starts at or after start_ns
     // (it may have opened the local day before, over midnight).
-    const int64_t local = o.start_ns + static_cast<int64_t>(o.session.tz_offset_minutes) *
-                                           kNanosPerMinute;
+    const int64_t local =
+        o.start_ns + static_cast<int64_t>(o.session.tz_offset_minutes) * kNanosPerMinute;
     int64_t day = local / kNanosPerDay - 1;
     for (;; ++day) {
       if (!m.Trades(day)) continue;

@@ -110,9 +110,10 @@ HealthStatus CheckHealth(const IngestCore& core, const RejectWindow& window, int
         "% of inputs rejected in the last minute (", rejected, " of ", inputs, "; most ",
         RejectReasonName(static_cast<RejectReason>(top)), " ", recent.by_reason[top], ")");
   }
-  h.json = absl::StrCat("{\"status\":\"", h.degraded ? "degraded" : "ok", "\",\"symbols\":", c.symbols,
-                        ",\"updates\":", c.updates_out, ",\"rejects\":", c.RejectTotal(),
-                        ",\"recent_inputs\":", inputs, ",\"recent_rejects\":", rejected);
+  h.json =
+      absl::StrCat("{\"status\":\"", h.degraded ? "degraded" : "ok", "\",\"symbols\":", c.symbols,
+                   ",\"updates\":", c.updates_out, ",\"rejects\":", c.RejectTotal(),
+                   ",\"recent_inputs\":", inputs, ",\"recent_rejects\":", rejected);
   // The reason holds only digits, letters, '%', '(', ')', ';', '_' and spaces: no escaping.
   if (h.degraded) absl::StrAppend(&h.json, ",\"reason\":\"", h.reason, "\"");
   absl::StrAppend(&h.json, "}\n");

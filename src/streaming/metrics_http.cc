@@ -33,38 +33,37 @@ struct MetricsHttpServer::Impl : std::enable_shared_from_this<MetricsHttpServer:
   static void Serve(std::shared_ptr<Impl> self, std::shared_ptr<tcp::socket> socket) {
     auto buffer = std::make_shared<beast::flat_buffer>(8192);
     auto req = std::make_shared<http::request<http::string_body>>();
-    http::async_read(*socket, *buffer, *req,
-                     [self, socket, buffer, req](const boost::system::error_code& ec, size_t) {
-                       if (ec) return;
-                       auto res = std::make_shared<http::response<http::string_body>>();
-                       res->version(req->version());
-                       res->keep_alive(false);
-                       const auto target = req->target();
-                       if (req->method() != http::verb::get) {
-                         res->result(http::status::method_not_allowed);
-                         res->set(http::field::allow, "GET");
-                         res->body() = "only GET\n";
-                       } else if (target == "/health") {
-                         HealthStatus h = self->health();
-                         res->result(h.degraded ? http::status::service_unavailable
-                                                : http::status::ok);
-                         res->set(http::field::content_type, "application/json");
-                         res->body() = std::move(h.json);
-                       } else if (target == "/metrics") {
-                         res->result(http::status::ok);
-                         res->set(http::field::content_type, "text/plain; version=0.0.4");
-                         res->body() = self->metrics();
-                       } else {
-                         res->result(http::status::not_found);
-                         res->body() = "paths: /health /metrics\n";
-                       }
-                       res->prepare_payload();
-                       http::async_write(*socket, *res,
-                                         [socket, res](const boost::system::error_code&, size_t) {
-                                           boost::system::error_code ignored;
-                                           socket->shutdown(tcp::socket::shutdown_send, ignored);
-                                         });
-                     });
+    http::async_read(
+        *socket, *buffer, *req,
+        [self, socket, buffer, req](const boost::system::error_code& ec, size_t) {
+          if (ec) return;
+          auto res = std::make_shared<http::response<http::string_body>>();
+          res->version(req->version());
+          res->keep_alive(false);
+          const auto target = req->target();
+          if (req->method() != http::verb::get) {
+            res->result(http::status::method_not_allowed);
+            res->set(http::field::allow, "GET");
+            res->body() = "only GET\n";
+          } else if (target == "/health") {
+            HealthStatus h = self->health();
+            res->result(h.degraded ? http::status::service_unavailable : http::status::ok);
+            res->set(http::field::content_type, "application/json");
+            res->body() = std::move(h.json);
+          } else if (target == "/metrics") {
+            res->result(http::status::ok);
+            res->set(http::field::content_type, "text/plain; version=0.0.4");
+            res->body() = self->metrics();
+          } else {
+            res->result(http::status::not_found);
+            res->body() = "paths: /health /metrics\n";
+          }
+          res->prepare_payload();
+          http::async_write(*socket, *res, [socket, res](const boost::system::error_code&, size_t) {
+            boost::system::error_code ignored;
+            socket->shutdown(tcp::socket::shutdown_send, ignored);
+          });
+        });
   }
 };
 

@@ -9,8 +9,8 @@
 #include <algorithm>
 #include <catch2/catch.hpp>
 #include <chrono>
-#include <map>
 #include <fstream>
+#include <map>
 #include <nlohmann/json.hpp>
 #include <random>
 #include <sstream>
@@ -102,7 +102,9 @@ TEST_CASE("replay output is byte-identical on repeated runs (time bars, prices)"
                     "\n");
   }
   const std::string input = testing::WriteFile(dir + "/ticks.csv", csv);
-  const std::string cfg = testing::WriteFile(dir + "/c.toml", "[bars]\ninterval = \"1s\"\n");
+  // Refits off (the old default): every update stays on the warm-up EWMA.
+  const std::string cfg =
+      testing::WriteFile(dir + "/c.toml", "[bars]\ninterval = \"1s\"\n[refit]\nevery_bars = 0\n");
   const auto a =
       RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/a.jsonl"});
   const auto b =
@@ -137,10 +139,10 @@ TEST_CASE("simulate output replays with config/example-intraday.toml: no rejects
                            "SKJOLD.GAS@700:9", "--output", dir + "/ticks.csv", "--quiet"});
   INFO(sim.err);
   REQUIRE(sim.exit_code == 0);
-  const auto r = RunCli(
-      {"replay", "--config", std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml",
-       "--input", dir + "/ticks.csv", "--output", dir + "/u.jsonl", "--alerts",
-       dir + "/a.jsonl", "--models", dir + "/m.jsonl"});
+  const auto r = RunCli({"replay", "--config",
+                         std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml",
+                         "--input", dir + "/ticks.csv", "--output", dir + "/u.jsonl", "--alerts",
+                         dir + "/a.jsonl", "--models", dir + "/m.jsonl"});
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   CHECK(r.err.find("replay: 12240 ticks, 12240 bars, ") != std::string::npos);
@@ -179,9 +181,8 @@ TEST_CASE("replay ends with warnings when the settings contradict the input", "[
   // One session of simulated 1m prices against the old intraday example: a
   // binary feed, an annualization for another session, min_bars of two days,
   // and a session an hour off the data (UTC+2 instead of UTC+1).
-  const auto sim = RunCli({"simulate", "--symbols", "3", "--session", "08:00-16:30",
-                           "--utc-offset", "60", "--sessions", "1", "--output",
-                           dir + "/ticks.csv", "--quiet"});
+  const auto sim = RunCli({"simulate", "--symbols", "3", "--session", "08:00-16:30", "--utc-offset",
+                           "60", "--sessions", "1", "--output", dir + "/ticks.csv", "--quiet"});
   REQUIRE(sim.exit_code == 0);
   const std::string cfg = testing::WriteFile(
       dir + "/c.toml",
@@ -229,9 +230,9 @@ TEST_CASE("run --check prints warnings for contradicting settings", "[app][run]"
   CHECK(r.out.find("warning: [outputs] periods_per_year = 252, but [bars] interval \"1m\" gives "
                    "362880 bars a year") != std::string::npos);
   CHECK(r.out.find("warning: refits are off") != std::string::npos);
-  const auto clean = RunCli(
-      {"run", "--config", std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml",
-       "--check"});
+  const auto clean =
+      RunCli({"run", "--config",
+              std::string(AFTERSHOCK_SOURCE_DIR) + "/config/example-intraday.toml", "--check"});
   CHECK(clean.exit_code == 0);
   CHECK(clean.out.find("(128520 a year, auto)") != std::string::npos);
   CHECK(clean.out.find("warning") == std::string::npos);

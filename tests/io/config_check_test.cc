@@ -41,7 +41,8 @@ TEST_CASE("the defaults and the shipped examples raise no warning", "[config_che
 }
 
 TEST_CASE("annualization against the bar interval", "[config_check]") {
-  const auto ws = ConfigWarnings(Parse(std::string(kSession) + "[outputs]\nperiods_per_year = 252\n"));
+  const auto ws =
+      ConfigWarnings(Parse(std::string(kSession) + "[outputs]\nperiods_per_year = 252\n"));
   REQUIRE(ws.size() == 1);
   // sqrt(128520 / 252) = 22.58
   CHECK(ws[0] ==
@@ -70,6 +71,29 @@ TEST_CASE("annualization against the bar interval", "[config_check]") {
                           "annualizes each bar as a day") != std::string::npos);
 }
 
+TEST_CASE("time bars without a session on an input with nights", "[config_check]") {
+  // Six 6.5 h sessions of 1m bars over Monday..Monday: 2340 bars in 7.27 days.
+  RunFacts f;
+  f.present = true;
+  f.from_file = true;
+  f.ticks_accepted = 12 * 2340;
+  f.symbols = 12;
+  f.max_symbol_bars = 2340;
+  f.symbols_fitted = 12;
+  f.first_tick_ns = 0;
+  f.last_tick_ns = 7 * kNanosPerDay + 390 * 60 * kNanosPerSecond;
+  const auto ws = ConfigWarnings(Parse("[bars]\ninterval = \"1m\"\n"), f);
+  INFO(absl::StrJoin(ws, "\n"));
+  REQUIRE(ws.size() == 1);
+  // 2340 of 10470 possible bars = 22 %.
+  CHECK(ws[0] ==
+        "the input spans 7.3 days but fills only 22% of its 1m bars (nights, weekends?), and "
+        "without a [bars] session periods_per_year \"auto\" = 362880 counts 24-hour days: set "
+        "[bars] session");
+  // With the session, nothing.
+  CHECK(ConfigWarnings(Parse(kSession), f).empty());
+}
+
 TEST_CASE("refits off, min_bars beyond a session, a binary feed", "[config_check]") {
   auto off = ConfigWarnings(Parse("[refit]\nevery_bars = 0\n"));
   REQUIRE(off.size() == 1);
@@ -92,8 +116,7 @@ TEST_CASE("refits off, min_bars beyond a session, a binary feed", "[config_check
             "replay reads the tick file and ignores it") != std::string::npos);
 }
 
-TEST_CASE("facts of a run: most inputs rejected, no fitted model, too few bars",
-          "[config_check]") {
+TEST_CASE("facts of a run: most inputs rejected, no fitted model, too few bars", "[config_check]") {
   RunFacts f;
   f.present = true;
   f.ticks_accepted = 30;
@@ -106,8 +129,9 @@ TEST_CASE("facts of a run: most inputs rejected, no fitted model, too few bars",
   INFO(absl::StrJoin(ws, "\n"));
   CHECK(Has(ws, "[refit] min_bars = 200, but no symbol had more than 3 bars in this input"));
   CHECK(Has(ws, "[warmup] min_bars = 2, but no symbol had more than 3 bars") == false);
-  CHECK(Has(ws, "most inputs were rejected: 970 of 1000 (97%; outside_session 960, too_old 10): "
-                "check [bars] session and timezone_offset_minutes against the ticks' times"));
+  CHECK(Has(ws,
+            "most inputs were rejected: 970 of 1000 (97%; outside_session 960, too_old 10): "
+            "check [bars] session and timezone_offset_minutes against the ticks' times"));
   CHECK(Has(ws, "no symbol got a fitted model (all 12 ended on version 0 or the EWMA fallback)"));
   // A healthy run: nothing.
   RunFacts ok = f;

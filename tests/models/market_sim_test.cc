@@ -269,8 +269,8 @@ SessionWindow Session0800To1630Utc1() {
 }
 
 constexpr int64_t kMinute = 60000000000LL;
-constexpr int64_t kMonday0700Z = 1772434800LL * 1000000000LL;   // 2026-03-02T07:00:00Z
-constexpr int64_t kFriday1500Z = 1772809200LL * 1000000000LL;   // 2026-03-06T15:00:00Z
+constexpr int64_t kMonday0700Z = 1772434800LL * 1000000000LL;    // 2026-03-02T07:00:00Z
+constexpr int64_t kFriday1500Z = 1772809200LL * 1000000000LL;    // 2026-03-06T15:00:00Z
 constexpr int64_t kMonday2_0700Z = 1773039600LL * 1000000000LL;  // 2026-03-09T07:00:00Z
 
 TEST_CASE("a session: ticks only inside, the clock jumps over nights and the weekend") {
@@ -284,7 +284,7 @@ TEST_CASE("a session: ticks only inside, the clock jumps over nights and the wee
   REQUIRE(ticks.size() == 545);
   CHECK(ticks[0].t_ns == kFriday1500Z);
   CHECK(ticks[29].t_ns == kFriday1500Z + 29 * kMinute);  // 16:29 local, the last bar
-  CHECK(ticks[30].t_ns == kMonday2_0700Z);                // Monday's open
+  CHECK(ticks[30].t_ns == kMonday2_0700Z);               // Monday's open
   CHECK(ticks[30 + 509].t_ns == kMonday2_0700Z + 509 * kMinute);
   CHECK(ticks[30 + 510].t_ns == kMonday2_0700Z + kNanosPerDay);  // Tuesday's open
   for (const Tick& t : ticks) CHECK(InSession(o.session, t.t_ns));

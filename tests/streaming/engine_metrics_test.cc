@@ -44,8 +44,8 @@ TEST_CASE("metrics text carries every counter, rejects by reason, per-symbol cou
 
 TEST_CASE("health turns degraded when most inputs of the last minute are rejected", "[metrics]") {
   // The producer sends JSON to a feed configured for binary frames.
-  EngineConfig config = testing::ParseConfigOrDie(
-      std::string(testing::kFixedModelToml) + "[feed]\nencoding = \"binary\"\n");
+  EngineConfig config = testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                                  "[feed]\nencoding = \"binary\"\n");
   testing::CollectingSink sink;
   ManualClock clock;
   auto core = IngestCore::Create(config, &sink, &clock);
@@ -71,7 +71,8 @@ TEST_CASE("health turns degraded when most inputs of the last minute are rejecte
   }
   HealthStatus h = CheckHealth(**core, window, 30 * kS);
   CHECK(h.degraded);
-  CHECK(h.reason == "97% of inputs rejected in the last minute (97 of 100; most malformed_binary 97)");
+  CHECK(h.reason ==
+        "97% of inputs rejected in the last minute (97 of 100; most malformed_binary 97)");
   CHECK(h.json ==
         "{\"status\":\"degraded\",\"symbols\":1,\"updates\":3,\"rejects\":97,"
         "\"recent_inputs\":100,\"recent_rejects\":97,\"reason\":\"97% of inputs rejected in the "

@@ -356,8 +356,7 @@ TEST_CASE("GET /health answers 503 degraded when most inputs are rejected", "[en
     Engine* e = engine->get();
     std::thread runner([e] { (void)e->Run(); });
     const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(10);
-    while (std::chrono::steady_clock::now() < deadline &&
-           Snapshot(e).messages_in < bodies.size()) {
+    while (std::chrono::steady_clock::now() < deadline && Snapshot(e).messages_in < bodies.size()) {
       std::this_thread::sleep_for(Ms(5));
     }
     const std::string endpoint = e->HttpEndpoint();
