@@ -31,16 +31,16 @@ struct Symbol {
 
 // Bit flags carried by an update; names on the wire are given by FlagName().
 enum UpdateFlag : uint32_t {
-  kFlagWarmup = 1u << 0,     // no estimated model yet: EWMA warm-up variance
-  kFlagFallback = 1u << 1,   // the model failed its gate repeatedly: EWMA fallback
+  kFlagWarmup = 1u << 0,    // no estimated model yet: EWMA warm-up variance
+  kFlagFallback = 1u << 1,  // the model failed its gate repeatedly: EWMA fallback
   // The bar's return spans at least one whole bar interval of the same session
   // in which the symbol had no tick (the previous bar of the session ended
   // before this bar's start). Informational: never set for being closed by the
   // clock, never on per-tick bars or a session's first bar; alerts still fire.
   kFlagStale = 1u << 2,
-  kFlagSeasonal = 1u << 3,   // the return was deseasonalized before filtering
-  kFlagGap = 1u << 4,        // a session boundary or gap preceded this bar
-  kFlagFirstBar = 1u << 5,   // first bar of the symbol: no return, no z
+  kFlagSeasonal = 1u << 3,  // the return was deseasonalized before filtering
+  kFlagGap = 1u << 4,       // a session boundary or gap preceded this bar
+  kFlagFirstBar = 1u << 5,  // first bar of the symbol: no return, no z
 };
 inline constexpr int kNumUpdateFlags = 6;
 absl::string_view FlagName(int bit);  // "warmup", "fallback", "stale", ...

@@ -19,8 +19,8 @@
 #include "aftershock/alerts.h"
 #include "aftershock/bar_builder.h"
 #include "aftershock/model_params.h"
-#include "aftershock/online_filter.h"
 #include "aftershock/model_spec.h"
+#include "aftershock/online_filter.h"
 #include "aftershock/wire.h"
 
 namespace aftershock {

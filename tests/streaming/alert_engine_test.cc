@@ -611,8 +611,7 @@ TEST_CASE("feed: the stale threshold follows each name's own tick rate", "[alert
 // exponential law exceeds k times its mean with probability e^-k (a standard
 // property of the law); the learned mean wanders a little, so the rate is
 // checked within a factor of two of e^-k.
-TEST_CASE("feed: false stale alerts on exponential gaps occur at about e^-k per gap",
-          "[alerts]") {
+TEST_CASE("feed: false stale alerts on exponential gaps occur at about e^-k per gap", "[alerts]") {
   constexpr int64_t kGaps = 1000000;
   for (double k : {10.0, 12.0, 15.0}) {
     AlertOptions o;
@@ -645,10 +644,11 @@ TEST_CASE("feed: false stale alerts on exponential gaps occur at about e^-k per 
     }
     const uint64_t stale = e->counters().Emitted(AlertKind::kFeed, Severity::kWarn);
     const double rate = static_cast<double>(stale) / kGaps;
-    std::printf("stale_gap_multiple %g: %llu false stale alerts in %lld exponential gaps, "
-                "%.2g per gap (e^-k = %.2g); learned mean gap %.2f s (true 30)\n",
-                k, static_cast<unsigned long long>(stale), static_cast<long long>(kGaps), rate,
-                std::exp(-k), st.tick_gap_s);
+    std::printf(
+        "stale_gap_multiple %g: %llu false stale alerts in %lld exponential gaps, "
+        "%.2g per gap (e^-k = %.2g); learned mean gap %.2f s (true 30)\n",
+        k, static_cast<unsigned long long>(stale), static_cast<long long>(kGaps), rate,
+        std::exp(-k), st.tick_gap_s);
     CHECK(e->counters().Emitted(AlertKind::kFeed, Severity::kInfo) == stale);  // each resumed
     if (k == 10) {
       CHECK(rate > 0.5 * std::exp(-k));
