@@ -31,8 +31,8 @@ struct Symbol {
 
 // Bit flags carried by an update; names on the wire are given by FlagName().
 enum UpdateFlag : uint32_t {
-  kFlagWarmup = 1u << 0,     // no estimated model yet: EWMA warm-up variance
-  kFlagFallback = 1u << 1,   // the model failed its gate repeatedly: EWMA fallback
+  kFlagWarmup = 1u << 0,    // no estimated model yet: EWMA warm-up variance
+  kFlagFallback = 1u << 1,  // the model failed its gate repeatedly: EWMA fallback
   // The bar's return spans at least one whole bar interval of the same session
   // in which the symbol had no tick (the previous bar of the session ended
   // before this bar's start). Informational: never set for being closed by the

@@ -729,12 +729,12 @@ absl::Status ParseSeasonality(const Section& s, const BarsConfig& bars, const Ou
 
 // The keys of [alerts] and of each [alerts.groups.<name>] (besides `symbols`).
 constexpr absl::string_view kAlertKeys[] = {
-    "shock_z",          "shock_critical_z",     "shock_info_z",
-    "cooldown_bars",    "cooldown_seconds",     "regime_enter",
-    "regime_exit",      "regime_fast_halflife", "regime_slow_halflife",
-    "regime_clip_z",    "regime_warmup_bars",   "persistence_threshold",
-    "refit_failures",   "stale_seconds",        "stale_gap_multiple",
-    "reject_burst",     "reject_window_seconds", "alert_during_warmup"};
+    "shock_z",        "shock_critical_z",      "shock_info_z",
+    "cooldown_bars",  "cooldown_seconds",      "regime_enter",
+    "regime_exit",    "regime_fast_halflife",  "regime_slow_halflife",
+    "regime_clip_z",  "regime_warmup_bars",    "persistence_threshold",
+    "refit_failures", "stale_seconds",         "stale_gap_multiple",
+    "reject_burst",   "reject_window_seconds", "alert_during_warmup"};
 
 // The values of [alerts] (and of a group, over a copy of [alerts]).
 absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
@@ -750,14 +750,12 @@ absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
   AS_RETURN_IF_ERROR(
       s.Number("regime_slow_halflife", &c->regime_slow_halflife, 0, kInf, true, true));
   AS_RETURN_IF_ERROR(s.Number("regime_clip_z", &c->regime_clip_z, 0, kInf, false, true));
-  AS_RETURN_IF_ERROR(
-      s.Integer("regime_warmup_bars", &c->regime_warmup_bars, 0, int64_t{1} << 40));
+  AS_RETURN_IF_ERROR(s.Integer("regime_warmup_bars", &c->regime_warmup_bars, 0, int64_t{1} << 40));
   AS_RETURN_IF_ERROR(
       s.Number("persistence_threshold", &c->persistence_threshold, 0, 1, true, true));
   AS_RETURN_IF_ERROR(s.Integer("refit_failures", &c->refit_failures, 1, 1000000));
   AS_RETURN_IF_ERROR(s.Number("stale_seconds", &c->stale_seconds, 0, kInf, true, true));
-  AS_RETURN_IF_ERROR(
-      s.Number("stale_gap_multiple", &c->stale_gap_multiple, 0, 1e6, false, false));
+  AS_RETURN_IF_ERROR(s.Number("stale_gap_multiple", &c->stale_gap_multiple, 0, 1e6, false, false));
   AS_RETURN_IF_ERROR(s.Integer("reject_burst", &c->reject_burst, 1, int64_t{1} << 40));
   // The window is counted in 60 buckets of at least 1 ns each.
   AS_RETURN_IF_ERROR(
@@ -769,10 +767,10 @@ absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
                                    ") must be >= shock_z (", FormatNumber(c->shock_z), ")"));
   }
   if (c->shock_info_z != 0 && !(c->shock_info_z < c->shock_z)) {
-    return s.KeyError(s.Has("shock_info_z") ? "shock_info_z" : "shock_z",
-                      absl::StrCat("shock_info_z (", FormatNumber(c->shock_info_z),
-                                   ") must be 0 (off) or below shock_z (",
-                                   FormatNumber(c->shock_z), ")"));
+    return s.KeyError(
+        s.Has("shock_info_z") ? "shock_info_z" : "shock_z",
+        absl::StrCat("shock_info_z (", FormatNumber(c->shock_info_z),
+                     ") must be 0 (off) or below shock_z (", FormatNumber(c->shock_z), ")"));
   }
   if (c->regime_exit >= c->regime_enter) {
     return s.KeyError(
@@ -786,9 +784,8 @@ absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
         "regime_slow_halflife must be greater than regime_fast_halflife");
   }
   if (c->regime_clip_z != 0 && !(c->regime_clip_z > 1)) {
-    return s.KeyError("regime_clip_z",
-                      absl::StrCat("must be 0 (no cap) or larger than 1, got ",
-                                   FormatNumber(c->regime_clip_z)));
+    return s.KeyError("regime_clip_z", absl::StrCat("must be 0 (no cap) or larger than 1, got ",
+                                                    FormatNumber(c->regime_clip_z)));
   }
   // Backstop: the rules engine accepts everything the checks above accept.
   auto engine = AlertEngine::Create(c->ToAlertOptions());
@@ -1088,8 +1085,7 @@ std::string FormatEngineConfig(const EngineConfig& c) {
   auto alert_keys = [&](const AlertsConfig& a, bool feed_wide) {
     absl::StrAppend(&o, "shock_z = ", num(a.shock_z),
                     "\nshock_critical_z = ", num(a.shock_critical_z),
-                    "\nshock_info_z = ", num(a.shock_info_z),
-                    "\ncooldown_bars = ", a.cooldown_bars,
+                    "\nshock_info_z = ", num(a.shock_info_z), "\ncooldown_bars = ", a.cooldown_bars,
                     "\ncooldown_seconds = ", num(a.cooldown_seconds));
     absl::StrAppend(&o, "\nregime_enter = ", num(a.regime_enter),
                     "\nregime_exit = ", num(a.regime_exit),

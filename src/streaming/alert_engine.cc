@@ -471,7 +471,8 @@ void AlertEngine::CheckStale(const Symbol& symbol, const FeedCheck& f, SymbolAle
     // The in-session span the k new gaps cover; unknown for the first tick
     // ever when all time counts (no session start to measure from).
     const int64_t from = std::max(prev, f.count_from_ns);
-    const bool measurable = f.in_session && (prev != 0 || f.count_from_ns != std::numeric_limits<int64_t>::min()) &&
+    const bool measurable = f.in_session &&
+                            (prev != 0 || f.count_from_ns != std::numeric_limits<int64_t>::min()) &&
                             f.last_tick_ns > from && options_.stale_gap_multiple > 0;
     if (measurable && (!st->stale_alerted || st->gap_samples == 0)) {
       const double kd = static_cast<double>(k);

@@ -292,8 +292,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       sink_.index = index;
       feed.last_tick_ns = core->last_arrival_ns(index);
       feed.ticks = core->symbol_ticks(index);
-      symbols_[i].alerts_engine->CheckStale(symbols_[i].symbol, feed, &symbols_[i].alerts,
-                                            &sink_);
+      symbols_[i].alerts_engine->CheckStale(symbols_[i].symbol, feed, &symbols_[i].alerts, &sink_);
     }
     // Rejected ticks since the last tick of the clock feed the burst rule.
     const uint64_t total = core->counters().RejectTotal();

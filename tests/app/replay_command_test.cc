@@ -115,7 +115,8 @@ TEST_CASE("replay output is byte-identical on repeated runs (time bars, prices)"
   const std::string ta = testing::ReadFileOrDie(dir + "/a.jsonl");
   CHECK(ta.size() > 10000);
   CHECK(ta == testing::ReadFileOrDie(dir + "/b.jsonl"));
-  // Warm-up flags on every update; some bars closed by the event-time clock.
+  // Warm-up flags on every update; bars after one-second intervals in which
+  // their symbol had no tick are flagged stale.
   const auto lines = Lines(ta);
   int stale = 0;
   for (const auto& line : lines) {

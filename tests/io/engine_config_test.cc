@@ -418,14 +418,16 @@ std::set<std::string> BacktickedNames(const std::string& text) {
     if (j == std::string::npos) break;
     const std::string t = text.substr(i + 1, j - i - 1);
     bool name = !t.empty() && t[0] >= 'a' && t[0] <= 'z';
-    for (char ch : t) name = name && ((ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') || ch == '_');
+    for (char ch : t)
+      name = name && ((ch >= 'a' && ch <= 'z') || (ch >= '0' && ch <= '9') || ch == '_');
     if (name) names.insert(t);
     i = j;
   }
   return names;
 }
 
-TEST_CASE("every [alerts] key: parsed, in default.toml, in the README, formatted", "[config][alerts]") {
+TEST_CASE("every [alerts] key: parsed, in default.toml, in the README, formatted",
+          "[config][alerts]") {
   std::vector<std::string> parser = ParserKeys("[alerts]");
   // `groups` introduces the group tables; it is no threshold.
   parser.erase(std::remove(parser.begin(), parser.end(), "groups"), parser.end());
@@ -475,8 +477,8 @@ TEST_CASE("every [alerts] key: parsed, in default.toml, in the README, formatted
     REQUIRE(j != std::string::npos);
     named.insert(readme.substr(i + 10, j - i - 10));
   }
-  std::set<std::string> other = {"s", "t", "kind", "rule", "severity", "value", "threshold",
-                                 "ver", "message"};
+  std::set<std::string> other = {"s",     "t",         "kind", "rule",   "severity",
+                                 "value", "threshold", "ver",  "message"};
   for (int k = 0; k < kNumAlertKinds; ++k) {
     other.insert(std::string(AlertKindName(static_cast<AlertKind>(k))));
   }
@@ -605,14 +607,15 @@ TEST_CASE("[alerts] range errors name the key", "[config][alerts]") {
         "config.toml:2: [alerts] regime_exit: must be in [1, inf), got 0.9");
   CHECK(ErrorOf("[alerts]\nrefit_failures = 0\n") ==
         "config.toml:2: [alerts] refit_failures: must be in 1..1000000, got 0");
-  CHECK(ErrorOf("[alerts]\nregime_warmup_bars = -1\n").find("[alerts] regime_warmup_bars: must "
-                                                             "be in 0..") != std::string::npos);
+  CHECK(ErrorOf("[alerts]\nregime_warmup_bars = -1\n")
+            .find("[alerts] regime_warmup_bars: must "
+                  "be in 0..") != std::string::npos);
   CHECK(ErrorOf("[alerts]\ncooldown_seconds = -1\n") ==
         "config.toml:2: [alerts] cooldown_seconds: must be in [0, 1e+09], got -1");
   CHECK(ErrorOf("[alerts]\nstale_gap_multiple = -2\n") ==
         "config.toml:2: [alerts] stale_gap_multiple: must be in [0, 1e+06], got -2");
-  CHECK(ErrorOf("[alerts]\nreject_window_seconds = 0\n").find(
-            "[alerts] reject_window_seconds: must be in [") != std::string::npos);
+  CHECK(ErrorOf("[alerts]\nreject_window_seconds = 0\n")
+            .find("[alerts] reject_window_seconds: must be in [") != std::string::npos);
   CHECK(ErrorOf("[alerts]\nalert_during_warmup = 1\n") ==
         "config.toml:2: [alerts] alert_during_warmup: expected true or false, got integer");
 }

@@ -5,6 +5,7 @@
 #include <cmath>
 #include <cstdio>
 #include <limits>
+#include <random>
 #include <string>
 #include <vector>
 
@@ -603,6 +604,58 @@ TEST_CASE("feed: the stale threshold follows each name's own tick rate", "[alert
     CHECK(st.tick_gap_s == Approx(before + 0.75 * (3 - before)).epsilon(1e-12));
     CHECK(st.gap_samples == 170);
     CHECK(sink.alerts.empty());
+  }
+}
+
+// The false-alarm rate of the learned threshold on random arrivals: a gap of an
+// exponential law exceeds k times its mean with probability e^-k (a standard
+// property of the law); the learned mean wanders a little, so the rate is
+// checked within a factor of two of e^-k.
+TEST_CASE("feed: false stale alerts on exponential gaps occur at about e^-k per gap", "[alerts]") {
+  constexpr int64_t kGaps = 1000000;
+  for (double k : {10.0, 12.0, 15.0}) {
+    AlertOptions o;
+    o.stale_seconds = 1;  // the learned part decides
+    o.stale_gap_multiple = k;
+    auto e = Engine(o);
+    CountingSink sink;
+    SymbolAlertState st;
+    const Symbol s = Sym("ELM.Z");
+    std::mt19937_64 rng(17);
+    std::exponential_distribution<double> gap(1.0 / 30.0);
+    int64_t t = 1000 * kSec;
+    uint64_t n = 1;
+    FeedCheck f;
+    f.now_ns = f.last_tick_ns = t;
+    f.ticks = n;
+    e->CheckStale(s, f, &st, &sink);
+    for (int64_t i = 0; i < kGaps; ++i) {
+      const int64_t next = t + static_cast<int64_t>(gap(rng) * kSec) + 1;
+      // A check at the moment the threshold is reached, if the gap lasts that long.
+      const int64_t due = t + static_cast<int64_t>(std::ceil(e->StaleThresholdSeconds(st) * kSec));
+      if (due < next) {
+        f.now_ns = due;
+        e->CheckStale(s, f, &st, &sink);
+      }
+      t = next;
+      f.now_ns = f.last_tick_ns = t;
+      f.ticks = ++n;
+      e->CheckStale(s, f, &st, &sink);
+    }
+    const uint64_t stale = e->counters().Emitted(AlertKind::kFeed, Severity::kWarn);
+    const double rate = static_cast<double>(stale) / kGaps;
+    std::printf(
+        "stale_gap_multiple %g: %llu false stale alerts in %lld exponential gaps, "
+        "%.2g per gap (e^-k = %.2g); learned mean gap %.2f s (true 30)\n",
+        k, static_cast<unsigned long long>(stale), static_cast<long long>(kGaps), rate,
+        std::exp(-k), st.tick_gap_s);
+    CHECK(e->counters().Emitted(AlertKind::kFeed, Severity::kInfo) == stale);  // each resumed
+    if (k == 10) {
+      CHECK(rate > 0.5 * std::exp(-k));
+      CHECK(rate < 2.0 * std::exp(-k));
+    } else {
+      CHECK(rate < 3.0 * std::exp(-k) + 5.0 / kGaps);
+    }
   }
 }
 

@@ -58,8 +58,8 @@ Tick Price(const std::string& sym, int64_t t, double p) {
 // Appends a price path of `sym` for trading days [first, last]: one tick at
 // each time from `times(day)`, each moving the log price by N(0, sd_of(t)).
 template <typename Times, typename Sd>
-void AddPath(std::vector<Tick>* ticks, const std::string& sym, int first, int last,
-             uint64_t seed, Times times, Sd sd_of) {
+void AddPath(std::vector<Tick>* ticks, const std::string& sym, int first, int last, uint64_t seed,
+             Times times, Sd sd_of) {
   std::mt19937_64 rng(seed);
   std::normal_distribution<double> n01(0, 1);
   double logp = std::log(100.0);
@@ -145,8 +145,9 @@ struct Run {
 
 // A busy name that keeps the event-time clock moving (a tick every 2 s).
 void AddClockName(std::vector<Tick>* ticks, int first, int last) {
-  AddPath(ticks, "CLOCK.P", first, last, 1, [](int d) { return Every(d, 2 * kSec, 0); },
-          [](int64_t) { return 0.01 / std::sqrt(30.0); });
+  AddPath(
+      ticks, "CLOCK.P", first, last, 1, [](int d) { return Every(d, 2 * kSec, 0); },
+      [](int64_t) { return 0.01 / std::sqrt(30.0); });
 }
 
 TEST_CASE("a large return on a clock-closed one-minute bar raises a shock alert",
@@ -156,8 +157,9 @@ TEST_CASE("a large return on a clock-closed one-minute bar raises a shock alert"
   // A tick every 10 s, 1 % per bar, for three sessions; at 11:00:15 local on
   // day 1 one tick jumps 8 %.
   const int64_t jump_at = Open(1) + 3 * 60 * kMin + 15 * kSec;
-  AddPath(&ticks, "ALDER.P", 0, 2, 11, [](int d) { return Every(d, 10 * kSec, 5 * kSec); },
-          [](int64_t) { return 0.01 / std::sqrt(6.0); });
+  AddPath(
+      &ticks, "ALDER.P", 0, 2, 11, [](int d) { return Every(d, 10 * kSec, 5 * kSec); },
+      [](int64_t) { return 0.01 / std::sqrt(6.0); });
   for (Tick& t : ticks) {
     if (t.t_ns >= jump_at) t.value *= std::exp(0.08);
   }
@@ -181,8 +183,9 @@ TEST_CASE("a regime alert fires when a name's variance triples (time bars, sessi
   std::vector<Tick> ticks;
   // 1 % per bar for two sessions, then sqrt(3) % from the third session on.
   const int64_t change = Open(2);
-  AddPath(&ticks, "BIRCH.P", 0, 4, 21, [](int d) { return Every(d, 10 * kSec, 3 * kSec); },
-          [change](int64_t t) { return (t < change ? 0.01 : 0.01 * std::sqrt(3.0)) / std::sqrt(6.0); });
+  AddPath(
+      &ticks, "BIRCH.P", 0, 4, 21, [](int d) { return Every(d, 10 * kSec, 3 * kSec); },
+      [change](int64_t t) { return (t < change ? 0.01 : 0.01 * std::sqrt(3.0)) / std::sqrt(6.0); });
   run.Feed(ticks);
   const auto high = run.rec.Of("BIRCH.P", AlertRule::kRegimeHigh);
   REQUIRE_FALSE(high.empty());
@@ -202,38 +205,41 @@ std::vector<Tick> StaleUniverse() {
   // Each name moves 1 % per bar (the model's unconditional level).
   const auto two_a_minute = [](int64_t) { return 0.01 / std::sqrt(2.0); };
   // Every 30 s exactly (the case of the report).
-  AddPath(&ticks, "TERN.P", 0, 4, 2, [](int d) { return Every(d, 30 * kSec, 7 * kSec); },
-          two_a_minute);
+  AddPath(
+      &ticks, "TERN.P", 0, 4, 2, [](int d) { return Every(d, 30 * kSec, 7 * kSec); }, two_a_minute);
   // Random (exponential) gaps with a mean of 30 s: gaps above 60 s are common.
-  AddPath(&ticks, "WREN.P", 0, 4, 3,
-          [](int d) {
-            std::mt19937_64 rng(100 + d);
-            std::exponential_distribution<double> gap(1.0 / 30.0);
-            std::vector<int64_t> v;
-            for (double s = gap(rng); s < 510 * 60; s += gap(rng)) {
-              v.push_back(Open(d) + static_cast<int64_t>(s * kSec));
-            }
-            return v;
-          },
-          two_a_minute);
+  AddPath(
+      &ticks, "WREN.P", 0, 4, 3,
+      [](int d) {
+        std::mt19937_64 rng(100 + d);
+        std::exponential_distribution<double> gap(1.0 / 30.0);
+        std::vector<int64_t> v;
+        for (double s = gap(rng); s < 510 * 60; s += gap(rng)) {
+          v.push_back(Open(d) + static_cast<int64_t>(s * kSec));
+        }
+        return v;
+      },
+      two_a_minute);
   // Every 10 s, silent from 10:00 to 10:10 local on Tuesday.
-  AddPath(&ticks, "CEDAR.P", 0, 4, 4,
-          [](int d) {
-            std::vector<int64_t> v;
-            for (int64_t t : Every(d, 10 * kSec, 1 * kSec)) {
-              const int64_t since_open = t - Open(d);
-              if (d == 1 && since_open >= 120 * kMin && since_open < 130 * kMin) continue;
-              v.push_back(t);
-            }
-            return v;
-          },
-          [](int64_t) { return 0.01 / std::sqrt(6.0); });
+  AddPath(
+      &ticks, "CEDAR.P", 0, 4, 4,
+      [](int d) {
+        std::vector<int64_t> v;
+        for (int64_t t : Every(d, 10 * kSec, 1 * kSec)) {
+          const int64_t since_open = t - Open(d);
+          if (d == 1 && since_open >= 120 * kMin && since_open < 130 * kMin) continue;
+          v.push_back(t);
+        }
+        return v;
+      },
+      [](int64_t) { return 0.01 / std::sqrt(6.0); });
   return ticks;
 }
 
-TEST_CASE("stale feed on time bars over sessions: no storm, no alert at the open, one real "
-          "silence alerted once",
-          "[services][alerts]") {
+TEST_CASE(
+    "stale feed on time bars over sessions: no storm, no alert at the open, one real "
+    "silence alerted once",
+    "[services][alerts]") {
   Run run(Config());  // stale_seconds = 60, stale_gap_multiple = 10 (defaults)
   const std::vector<Tick> ticks = StaleUniverse();
   run.Feed(ticks);
@@ -271,8 +277,9 @@ TEST_CASE("stale feed on time bars over sessions: no storm, no alert at the open
   CHECK(resumed[0].t_ns >= first_after);
   CHECK(resumed[0].t_ns - first_after <= 2 * kSec);
   CHECK(run.rec.FeedAlerts("WREN.P") == 2);  // no other feed alert: the two above
-  CHECK(std::string(resumed[0].message) == "CEDAR.P: ticks resumed after 610 s without data; "
-                                           "no action needed.");
+  CHECK(std::string(resumed[0].message) ==
+        "CEDAR.P: ticks resumed after 610 s without data; "
+        "no action needed.");
 
   // The weekend: the live clock runs through Saturday's session hours with no
   // tick anywhere; nothing is stale.
@@ -286,10 +293,12 @@ TEST_CASE("stale feed on time bars over sessions: no storm, no alert at the open
   // threshold, the weekend and the night not counted.
   std::vector<Tick> monday;
   AddClockName(&monday, 7, 7);
-  AddPath(&monday, "TERN.P", 7, 7, 5, [](int d) { return Every(d, 30 * kSec, 20 * kSec); },
-          [](int64_t) { return 0.01 / std::sqrt(2.0); });
-  AddPath(&monday, "CEDAR.P", 7, 7, 6, [](int d) { return Every(d, 10 * kSec, 4 * kSec); },
-          [](int64_t) { return 0.01 / std::sqrt(6.0); });
+  AddPath(
+      &monday, "TERN.P", 7, 7, 5, [](int d) { return Every(d, 30 * kSec, 20 * kSec); },
+      [](int64_t) { return 0.01 / std::sqrt(2.0); });
+  AddPath(
+      &monday, "CEDAR.P", 7, 7, 6, [](int d) { return Every(d, 10 * kSec, 4 * kSec); },
+      [](int64_t) { return 0.01 / std::sqrt(6.0); });
   run.Feed(monday);
   REQUIRE(run.rec.FeedAlerts() == before_weekend + 1);
   Alert silent;
@@ -318,7 +327,7 @@ TEST_CASE("without the learned rate the random-gap name would be a stale storm",
   for (const Alert& a : wren) {
     const int64_t into_session = (a.t_ns - kOpenUtc) % kNanosPerDay;
     CHECK(into_session >= 60 * kSec);  // the floor, counted from the open
-    CHECK(a.value < 600);  // measured from the last tick, never across a night
+    CHECK(a.value < 600);              // measured from the last tick, never across a night
   }
 }
 
