@@ -397,12 +397,17 @@ std::string TimeOfDayTable(const SymbolHistory& h, const ReportOptions& opt) {
   const int segs = std::min(K, 12);
   auto seg_of = [&](int k) { return static_cast<int>(static_cast<int64_t>(k) * segs / K); };
   const int lv = LevelIndex(h, opt.var_level);
+  // Once the filter was deseasonalized, only those bars: the table then shows
+  // how well the profile in force calibrates each time of day.
+  bool seasonal_only = false;
+  for (uint32_t f : h.flags) seasonal_only = seasonal_only || (f & kFlagSeasonal);
   std::vector<double> z2(segs, 0.0), s2(segs, 0.0);
   std::vector<int64_t> nz(segs, 0), nexc(segs, 0), nelig(segs, 0), ns2(segs, 0);
   for (size_t i = 0; i < n; ++i) {
     const int k = h.session_bar[i];
     if (k < 0 || k >= K) continue;
     if (opt.evaluation.exclude_warmup && (h.flags[i] & kFlagWarmup)) continue;
+    if (seasonal_only && !(h.flags[i] & kFlagSeasonal)) continue;
     const int g = seg_of(k);
     if (std::isfinite(h.z[i])) {
       z2[g] += h.z[i] * h.z[i];
@@ -428,8 +433,8 @@ std::string TimeOfDayTable(const SymbolHistory& h, const ReportOptions& opt) {
   const bool profile = !h.seasonal_factors.empty();
   std::string s = absl::StrCat(
       "<table class=\"grid\"><caption>By time of day (", K, " bars a session in ", segs,
-      " segments; ",
-      profile ? "profile s&sup2; in force at the end" : "no intraday profile (seasonality off)",
+      " segments; ", profile ? "profile s&sup2; in force at the end" : "no intraday profile",
+      seasonal_only ? "; statistics over the deseasonalized bars" : "",
       ")</caption><thead><tr><th>bars of the session</th><th>profile s&sup2;</th>"
       "<th>bars</th><th>mean z&sup2;</th><th>exceptions @",
       LevelLabel(opt.var_level), " (expected)</th></tr></thead><tbody>");
