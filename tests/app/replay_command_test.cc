@@ -237,6 +237,7 @@ TEST_CASE("run --check prints warnings for contradicting settings", "[app][run]"
   CHECK(clean.exit_code == 0);
   CHECK(clean.out.find("(128520 a year, auto)") != std::string::npos);
   CHECK(clean.out.find("warning") == std::string::npos);
+}
 
 TEST_CASE("replay: an idle name runs on its group's model (1m bars of prices, sessions)",
           "[app][replay]") {

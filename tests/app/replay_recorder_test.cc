@@ -163,6 +163,9 @@ interval = "0s"
 mean = "constant"
 variance = "garch"
 innovations = "normal"
+[warmup]
+# The figures below (and in README.md) start the warm-up at the first return.
+start_bars = 1
 [outputs]
 periods_per_year = 252
 return_units = "percent"

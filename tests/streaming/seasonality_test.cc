@@ -238,14 +238,16 @@ TEST_CASE("without seasonality the same sessions are miscalibrated", "[seasonali
   INFO("first half hour " << c.z2[0] << ", midday " << c.z2[kHalfHours / 2] << ", last "
                           << c.z2[kHalfHours - 1] << ", chi-square " << c.chi2);
   // The open and close are loud, midday quiet: a GARCH on raw returns lags the
-  // time-of-day swings (measured: mean z^2 from 0.76 at midday to 1.25 in the
-  // last half hour, chi-square 141).
+  // time-of-day swings (measured: mean z^2 from 0.88 at midday to 1.19 in the
+  // last half hour, chi-square 103, with the robust warm-up start and group
+  // models; 0.76 to 1.25 and 141 before them). The seasonal test's criterion
+  // (every half hour in [0.85, 1.15], chi-square below its 1 % point) fails.
   double lo = 1e9, hi = 0;
   for (double v : c.z2) {
     lo = std::min(lo, v);
     hi = std::max(hi, v);
   }
-  CHECK(lo < 0.85);
+  CHECK((lo < 0.85 || hi > 1.15));
   CHECK(hi > 1.15);
   CHECK(c.chi2 > Chi2Critical());
 }
