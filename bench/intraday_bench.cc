@@ -113,6 +113,7 @@ struct Tally {
   int64_t var_bars[kHalfHours] = {};
   int64_t shocks[kHalfHours] = {};
   int64_t false_regimes = 0;
+  int64_t false_high = 0;  // of which high-volatility entries
   int64_t instrument_sessions = 0;
   double qlike = 0;
   int64_t qlike_n = 0;
@@ -175,6 +176,7 @@ class Probe : public BarObserver, public ServiceListener {
       t.detected_bar = sim_bar;
     } else if (session >= sc_.settle) {
       ++tally_.false_regimes;
+      if (a.rule == AlertRule::kRegimeHigh) ++tally_.false_high;
     }
   }
 
@@ -339,7 +341,7 @@ void PrintSummary(const std::vector<Result>& results) {
   std::printf(
       "| variant | z^2 range over half hours | 99 %% exceptions | chi-square (df), p | shocks in "
       "first/last half hour | jumps detected <= 60 bars | median delay | false regime "
-      "entries per instrument-session | conditional-variance models | mean QLIKE | seconds |\n");
+      "entries per instrument-session (high) | conditional-variance models | mean QLIKE | seconds |\n");
   std::printf("|---|---|---|---|---|---|---|---|---|---|---|\n");
   for (const auto& r : results) {
     const Tally& t = r.tally;
@@ -372,18 +374,21 @@ void PrintSummary(const std::vector<Result>& results) {
         delays.empty() ? "-" : absl::StrCat(delays[delays.size() / 2]);
     std::printf(
         "| %s | %.2f - %.2f | %lld of %lld (%.2f %%) | %.1f (%d), p = %.3g | %lld + %lld of "
-        "%lld | %d of %d | %s | %.3f | %d of %d | %.4f | %.1f |\n",
+        "%lld | %d of %d | %s | %.3f (%.3f) | %d of %d | %.4f | %.1f |\n",
         r.name.c_str(), lo, hi, static_cast<long long>(exc), static_cast<long long>(vb),
         vb ? 100.0 * exc / vb : 0.0, x2, df, p, static_cast<long long>(t.shocks[0]),
         static_cast<long long>(t.shocks[kHalfHours - 1]), static_cast<long long>(shocks),
         detected, jumps, median.c_str(),
         t.instrument_sessions ? static_cast<double>(t.false_regimes) / t.instrument_sessions : 0.0,
+        t.instrument_sessions ? static_cast<double>(t.false_high) / t.instrument_sessions : 0.0,
         r.conditional_models, r.instruments, t.qlike_n ? t.qlike / t.qlike_n : 0.0, r.seconds);
   }
 }
 
 int Main(int argc, char** argv) {
   Scenario sc;
+  std::vector<std::string> tries;  // "label|table.key=value|..."
+  bool only_tries = false;
   for (int i = 1; i < argc; ++i) {
     const std::string a = argv[i];
     auto next = [&](int* out) {
@@ -400,10 +405,16 @@ int Main(int argc, char** argv) {
       sc.seed = static_cast<uint64_t>(v);
     } else if (a == "--quick") {
       sc.instruments = 20;
+    } else if (a == "--try" && i + 1 < argc) {
+      tries.emplace_back(argv[++i]);
+    } else if (a == "--only-tries") {
+      only_tries = true;
     } else {
       std::fprintf(stderr,
                    "usage: intraday_bench [--instruments 5..1000] [--sessions 7..100] [--seed K] "
-                   "[--quick]\n");
+                   "[--quick] [--try 'LABEL|TABLE.KEY=VALUE|...']... [--only-tries]\n"
+                   "  --try adds a variant: the defaults with the given keys replaced, e.g.\n"
+                   "  --try 'slow regime|alerts.regime_fast_halflife=30|alerts.regime_enter=2.5'\n");
       return a == "--help" ? 0 : 2;
     }
   }
@@ -429,6 +440,28 @@ int Main(int argc, char** argv) {
   variants.push_back({"regime fast 20, enter 1.7",
                       SetKey(SetKey(base, "alerts", "regime_fast_halflife", "20"), "alerts",
                              "regime_enter", "1.7")});
+  if (only_tries) variants.clear();
+  for (const std::string& t : tries) {
+    std::vector<std::string> parts;
+    std::stringstream ss(t);
+    std::string part;
+    while (std::getline(ss, part, '|')) parts.push_back(part);
+    if (parts.size() < 2) {
+      std::fprintf(stderr, "--try: expected LABEL|TABLE.KEY=VALUE..., got '%s'\n", t.c_str());
+      return 2;
+    }
+    std::string toml = base;
+    for (size_t j = 1; j < parts.size(); ++j) {
+      const size_t dot = parts[j].find('.'), eq = parts[j].find('=');
+      if (dot == std::string::npos || eq == std::string::npos || eq < dot) {
+        std::fprintf(stderr, "--try: expected TABLE.KEY=VALUE, got '%s'\n", parts[j].c_str());
+        return 2;
+      }
+      toml = SetKey(toml, parts[j].substr(0, dot), parts[j].substr(dot + 1, eq - dot - 1),
+                    parts[j].substr(eq + 1));
+    }
+    variants.push_back({parts[0], toml});
+  }
   std::printf(
       "## Intraday calibration: %d instruments x %d sessions of 510 one-minute bars, %d price "
       "ticks per bar,\nU-shape amplitude %.1f, overnight move of %.0f bars, variance x%.1f for "

@@ -7,7 +7,8 @@
 //                critical (two-sided; value = z, threshold = the highest tier crossed).
 //   regime       the RegimeDetector (regime_detector.h) enters its high regime
 //                (warn) or low regime (info); value = the short/long variance ratio,
-//                threshold = regime_enter or 1 / regime_enter.
+//                threshold = regime_enter or 1 / regime_enter. With intraday
+//                seasonality the detector reads deseasonalized residuals (OnBar).
 //   regime_clear the regime ends (info); threshold = regime_exit or 1 / regime_exit.
 //   persistence  a model swapped in has persistence >= persistence_threshold (warn).
 //   model        refit failed the quality gate refit_failures times in a row (warn);
@@ -281,7 +282,14 @@ class AlertEngine {
 
   // After FilterStep: the shock and regime rules for one bar of bar.symbol.
   // REQUIRES: state is this symbol's; sink non-null.
-  void OnBar(const BarUpdate& bar, SymbolAlertState* state, AlertSink* sink);
+  // `deseasonalize` is the bar's 1 / s(k) when its update is seasonal
+  // (SeasonalInvScale, seasonal_profile.h), else 1: the regime detector reads
+  // eps * deseasonalize against var * deseasonalize^2, the residual and variance
+  // the filter itself works with, so the time-of-day shape of raw residuals
+  // (loud open and close, quiet midday) is not read as a regime. REQUIRES:
+  // deseasonalize > 0 and finite.
+  void OnBar(const BarUpdate& bar, SymbolAlertState* state, AlertSink* sink,
+             double deseasonalize = 1.0);
 
   // A new model version was swapped in for `symbol` at t_ns (persistence rule).
   // REQUIRES: an estimated model; the EWMA fallback (persistence 1 by

@@ -241,13 +241,15 @@ void AlertEngine::Send(Alert* a, AlertSink* sink) {
   sink->Emit(*a);
 }
 
-void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* sink) {
+void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* sink,
+                        double deseasonalize) {
   const int64_t idx = st->bars++;
   // Stale bars (silent intervals before them) and clock-closed bars are ordinary.
   if (bar.flags & kFlagFirstBar) return;
   const bool withheld = (bar.flags & kFlagWarmup) && !options_.alert_during_warmup;
 
-  const RegimeEvent ev = detector_.Update(bar.eps, bar.var, &st->regime);
+  const RegimeEvent ev = detector_.Update(bar.eps * deseasonalize,
+                                          bar.var * (deseasonalize * deseasonalize), &st->regime);
   if (ev != RegimeEvent::kNone) {
     const bool high = ev == RegimeEvent::kEnterHigh || ev == RegimeEvent::kClearHigh;
     const bool entry = ev == RegimeEvent::kEnterHigh || ev == RegimeEvent::kEnterLow;

@@ -326,6 +326,33 @@ TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[aler
         "average (clears above 0.769); no action needed.");
 }
 
+TEST_CASE("regime: seasonal bars are read in deseasonalized units", "[alerts]") {
+  // A steady deseasonalized variance of 1 under a time-of-day shape whose
+  // variance is 4 times midday's for the first 60 bars of each 510-bar session:
+  // read raw, every open looks like a high regime; read with 1 / s(k), none.
+  AlertOptions o;
+  o.regime_clip_z = 0;
+  o.regime_warmup_bars = 10;
+  o.cooldown_bars = 0;
+  auto e = Engine(o);
+  VectorSink raw_sink, adj_sink;
+  SymbolAlertState raw, adj;
+  for (int i = 0; i < 5 * 510; ++i) {
+    const int k = i % 510;
+    const double s2 = k < 60 ? 4.0 : 0.5;  // s(k)^2
+    BarUpdate u = Bar("ALPHA.X", i, 1.0, kFlagSeasonal);
+    u.var = s2;             // published seasonal variance s^2 h, h = 1
+    u.eps = std::sqrt(s2);  // |z| = 1 on every bar
+    e->OnBar(u, &raw, &raw_sink);
+    e->OnBar(u, &adj, &adj_sink, 1.0 / std::sqrt(s2));
+  }
+  int raw_regimes = 0;
+  for (const Alert& a : raw_sink.alerts) raw_regimes += a.kind == AlertKind::kRegime ? 1 : 0;
+  CHECK(raw_regimes >= 4);
+  CHECK(adj_sink.alerts.empty());
+  CHECK(adj.regime.ratio == Approx(1.0).epsilon(1e-9));
+}
+
 TEST_CASE("persistence alert on a near-integrated swap, once per episode", "[alerts]") {
   auto e = Engine(AlertOptions{});
   VectorSink sink;
