@@ -370,6 +370,12 @@ void PrintSummary(const std::vector<Result>& results) {
       }
     }
     std::sort(delays.begin(), delays.end());
+    std::string all;
+    for (const auto& s : r.tracks) {
+      if (s.jump) absl::StrAppend(&all, s.detected_bar < 0 ? -1 : s.detected_bar - s.jump_bar, " ");
+    }
+    std::fprintf(stderr, "%s: delays from each jump to its first high-regime alert (-1 none): %s\n",
+                 r.name.c_str(), all.c_str());
     const std::string median =
         delays.empty() ? "-" : absl::StrCat(delays[delays.size() / 2]);
     std::printf(
