@@ -85,6 +85,13 @@ class StateReader {
 
  private:
   bool Take(void* dst, size_t n, absl::string_view what);
+  // One fixed-size value (zero after an error).
+  template <typename T>
+  T Scalar(absl::string_view what) {
+    T v;
+    Take(&v, sizeof v, what);
+    return v;
+  }
 
   absl::string_view in_;
   size_t pos_ = 0;

@@ -29,11 +29,7 @@ bool StateReader::Take(void* dst, size_t n, absl::string_view what) {
   return true;
 }
 
-uint8_t StateReader::U8(absl::string_view what) {
-  uint8_t v;
-  Take(&v, 1, what);
-  return v;
-}
+uint8_t StateReader::U8(absl::string_view what) { return Scalar<uint8_t>(what); }
 
 bool StateReader::Bool(absl::string_view what) {
   const uint8_t v = U8(what);
@@ -41,35 +37,11 @@ bool StateReader::Bool(absl::string_view what) {
   return v == 1;
 }
 
-uint32_t StateReader::U32(absl::string_view what) {
-  uint32_t v;
-  Take(&v, sizeof v, what);
-  return v;
-}
-
-uint64_t StateReader::U64(absl::string_view what) {
-  uint64_t v;
-  Take(&v, sizeof v, what);
-  return v;
-}
-
-int32_t StateReader::I32(absl::string_view what) {
-  int32_t v;
-  Take(&v, sizeof v, what);
-  return v;
-}
-
-int64_t StateReader::I64(absl::string_view what) {
-  int64_t v;
-  Take(&v, sizeof v, what);
-  return v;
-}
-
-double StateReader::F64(absl::string_view what) {
-  double v;
-  Take(&v, sizeof v, what);
-  return v;
-}
+uint32_t StateReader::U32(absl::string_view what) { return Scalar<uint32_t>(what); }
+uint64_t StateReader::U64(absl::string_view what) { return Scalar<uint64_t>(what); }
+int32_t StateReader::I32(absl::string_view what) { return Scalar<int32_t>(what); }
+int64_t StateReader::I64(absl::string_view what) { return Scalar<int64_t>(what); }
+double StateReader::F64(absl::string_view what) { return Scalar<double>(what); }
 
 absl::string_view StateReader::Bytes(absl::string_view what, size_t max_size) {
   const uint32_t n = U32(what);
