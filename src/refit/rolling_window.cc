@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <type_traits>
 
 #include "absl/strings/str_cat.h"
 
@@ -42,10 +43,18 @@ void RollingWindow::SaveState(StateWriter* w) const {
   w->U64(static_cast<uint64_t>(size_));
   w->I64(total_);
   w->Bool(has_tags());
-  for (int i = 0; i < size_; ++i) w->F64(at(i));
-  if (has_tags()) {
-    for (int i = 0; i < size_; ++i) w->I32(tag_at(i));
-  }
+  // Oldest first, as two contiguous runs [start, capacity) and [0, head): the
+  // host is little-endian (state_codec.h), so the raw bytes are the encoding.
+  int start = head_ - size_;
+  if (start < 0) start += capacity_;
+  const int first = std::min(size_, capacity_ - start);
+  auto runs = [&](const auto* data) {
+    using T = std::remove_const_t<std::remove_pointer_t<decltype(data)>>;
+    w->Append(absl::string_view(reinterpret_cast<const char*>(data + start), first * sizeof(T)));
+    w->Append(absl::string_view(reinterpret_cast<const char*>(data), (size_ - first) * sizeof(T)));
+  };
+  runs(buf_.data());
+  if (has_tags()) runs(tags_.data());
 }
 
 void RollingWindow::RestoreState(StateReader* r, absl::string_view what) {
