@@ -80,6 +80,7 @@
 #include "absl/strings/string_view.h"
 #include "aftershock/bar_update.h"
 #include "aftershock/regime_detector.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -262,6 +263,12 @@ struct SymbolAlertState {
 };
 
 // The outcome of one refit, as the scheduler reports it.
+// Checkpoint encoding of a symbol's alert state (every field, exact bits).
+void SaveSymbolAlertState(const SymbolAlertState& state, StateWriter* w);
+// Reads what SaveSymbolAlertState wrote; non-finite or negative statistics
+// and unknown enum values set the reader's error naming `what`.
+SymbolAlertState RestoreSymbolAlertState(StateReader* r, absl::string_view what);
+
 struct GateEvent {
   bool passed = false;           // the fit passed the quality gate and is swapped in
   int consecutive_failures = 0;  // failed gates in a row including this one (0 if passed)
@@ -319,6 +326,15 @@ class AlertEngine {
                   AlertSink* sink);
   // The stale threshold of a symbol in its current state, seconds.
   double StaleThresholdSeconds(const SymbolAlertState& state) const;
+
+  // Checkpoint encoding of the engine's own state: its counters and the
+  // feed-wide reject window (buckets, burst and alert marks).
+  void SaveState(StateWriter* w) const;
+  // Restores what SaveState wrote (REQUIRES: a fresh engine). The counters
+  // always; the reject window only when reject_window_seconds is unchanged
+  // (its buckets would mean other times), else the window starts empty.
+  // Malformed input sets the reader's error; discard the engine then.
+  void RestoreState(StateReader* r);
 
  private:
   static constexpr int kRejectBuckets = 60;

@@ -51,6 +51,7 @@
 #include <cstdint>
 
 #include "aftershock/bar_update.h"
+#include "aftershock/state_codec.h"
 #include "aftershock/wire.h"
 
 namespace aftershock {
@@ -115,6 +116,13 @@ struct BarState {
   bool any_bar = false;         // a bar has been closed before
   bool open_gap = false;        // the open bar is the first of a new session
 };
+
+// Checkpoint encoding of a symbol's bar state (every field, exact bits), so
+// an open bar continues where it was.
+void SaveBarState(const BarState& state, StateWriter* w);
+// Reads what SaveBarState wrote; an unknown tick kind, a negative tick count
+// or non-finite values set the reader's error naming `what`.
+BarState RestoreBarState(StateReader* r, absl::string_view what);
 
 enum class TickStatus : uint8_t { kAccepted, kDuplicate, kRejected };
 

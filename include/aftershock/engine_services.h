@@ -50,6 +50,7 @@
 #include "aftershock/ingest_core.h"
 #include "aftershock/model_registry.h"
 #include "aftershock/refit.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -93,6 +94,24 @@ class EngineServices {
   virtual const AlertCounters& alert_counters() const = 0;
   // Flushes the alerts file. Ingest thread (or after the engine stopped).
   virtual absl::Status Flush() = 0;
+
+  // ---- Checkpoints (engine_checkpoint.h) ----
+  // Appends the services' state: per symbol (core index order) its alert
+  // state (regime detector, cool-downs, stale-feed rule), fallback flag and,
+  // with seasonality but no refits, its tagged window; the seasonal pool; the
+  // alert engines' own state (counters, the feed-wide reject window); the
+  // rejected-tick mark and the stale rule's session / first-tick marks; and
+  // the refit coordinator's state (RefitCoordinator::SaveState) when refits
+  // are on. Ingest thread, between bars.
+  virtual void SaveState(StateWriter* w) const = 0;
+  // Restores what SaveState wrote. REQUIRES: fresh services attached to a
+  // core whose state was just restored (IngestCore::RestoreState, which
+  // registers the symbols here in order), nothing fed yet. Validates
+  // everything before committing (on error nothing here changed; discard the
+  // core and the services); then points the core's model of every symbol on
+  // a fitted version at the coordinator's version object
+  // (IngestCore::ShareModel). A refit on/off mismatch is FailedPrecondition.
+  virtual absl::Status RestoreState(absl::string_view payload) = 0;
 };
 
 }  // namespace aftershock

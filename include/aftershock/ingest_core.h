@@ -87,6 +87,7 @@
 #include "aftershock/engine_config.h"
 #include "aftershock/online_filter.h"
 #include "aftershock/seasonal_profile.h"
+#include "aftershock/state_codec.h"
 #include "aftershock/tick_source.h"
 #include "aftershock/update_sink.h"
 #include "aftershock/wire.h"
@@ -232,6 +233,31 @@ class IngestCore : public TickConsumer {
   // Sends body on "<kind>.<name>" for a name that is not a symbol (feed-wide
   // alerts use "a._feed"); counted like PublishSymbolMessage.
   bool PublishNamedMessage(TopicKind kind, absl::string_view name, absl::string_view body);
+
+  // ---- Checkpoints (engine_checkpoint.h) ----
+  // Appends the core's whole state: counters, last clock and per symbol (in
+  // index order) its name, bar builder state (open bar included), filter
+  // state, the model in force (parameters and version; the output options
+  // come from the configuration), seasonal profile, status and carried flags,
+  // warm-up start buffer and counters. Observer extras are not included (their
+  // owners save them). Ingest thread, between bars.
+  void SaveState(StateWriter* w) const;
+  // Restores what SaveState wrote. REQUIRES: a freshly created core with no
+  // symbols, built from a configuration with the same state-relevant settings
+  // (the checkpoint's fingerprint checks that), observers already added. Every
+  // value is validated (counts against [limits] and [warmup], finite filter
+  // state, parameters passing CheckConstraints, profiles of the session's
+  // bucket count) BEFORE anything is committed: on error the core is
+  // unchanged and the DataLoss/FailedPrecondition status names the symbol
+  // and field. On success each symbol gets its saved index in order and the
+  // observers' OnNewSymbol is called for each, as for a new symbol.
+  absl::Status RestoreState(absl::string_view payload);
+  // Makes a symbol's model pointer `model` (e.g. the refit coordinator's
+  // version object) after a restore, so the core and its owner share one
+  // object. REQUIRES: 0 <= index < num_symbols(); *model has the same version
+  // and bit-identical parameters as the symbol's model (InvalidArgument
+  // otherwise, the model unchanged).
+  absl::Status ShareModel(int index, std::shared_ptr<const FilterModel> model);
 
   // ---- Inspection ----
   const EngineCounters& counters() const { return counters_; }

@@ -13,6 +13,7 @@
 #include "absl/status/statusor.h"
 #include "absl/strings/string_view.h"
 #include "aftershock/model_spec.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -59,6 +60,14 @@ struct ModelParams {
   static absl::StatusOr<ModelParams> FromNamed(
       const ModelSpec& spec, const std::vector<std::pair<std::string, double>>& named);
 };
+
+// Checkpoint encoding (state_codec.h) of a parameter set: the spec's kinds and
+// orders, then the values' exact bit patterns.
+void SaveModelParams(const ModelParams& params, StateWriter* w);
+// Reads what SaveModelParams wrote. A spec that fails ModelSpec::Validate or
+// values that fail CheckConstraints set the reader's error (DataLoss naming
+// `what`); the result is then meaningless. Check r->ok() after the record.
+ModelParams RestoreModelParams(StateReader* r, absl::string_view what);
 
 }  // namespace aftershock
 

@@ -26,6 +26,7 @@
 #include "aftershock/forecast.h"
 #include "aftershock/innovations.h"
 #include "aftershock/model_params.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -112,6 +113,12 @@ struct FilterState {
   double mu_next = 0;                   // mean forecast for the next bar
   int64_t bars = 0;                     // bars filtered since InitFilterState
 };
+
+// Checkpoint encoding of a filter state (every lag, exact bits).
+void SaveFilterState(const FilterState& state, StateWriter* w);
+// Reads what SaveFilterState wrote; non-finite values or a negative variance
+// set the reader's error naming `what`.
+FilterState RestoreFilterState(StateReader* r, absl::string_view what);
 
 // Starts a state at `variance` (the unconditional variance when given <= 0 and
 // the model has one): every variance and squared-residual lag equals it (the

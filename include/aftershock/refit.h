@@ -97,6 +97,7 @@
 #include "aftershock/refit_scheduler.h"
 #include "aftershock/refitter.h"
 #include "aftershock/rolling_window.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -196,6 +197,31 @@ class RefitCoordinator {
   const RefitRecord& last_record() const { return last_record_; }
 
   RefitStats stats() const;
+
+  // ---- Checkpoints (engine_checkpoint.h) ----
+  // Appends the coordinator's whole state: its counters; every model version
+  // it references (current, last estimated, group donors, pending jobs'
+  // inputs), each once (parameters, version, std errors, log-likelihood,
+  // fitted bar, profile); the seasonal pool; per group the latest donor
+  // version, donor and sequence; per symbol (in id order) the rolling window
+  // and tags, schedule phase, current / last estimated versions, version
+  // counter, failures, fallback, fits, group-model state, and a PENDING job's
+  // inputs (window and tags copy, pool snapshot, version in force and warm
+  // start, reidentify decision, seed, fit index, scheduled and apply bars,
+  // version number). Ingest thread; the workers may be running (only inputs
+  // they do not write are read).
+  void SaveState(StateWriter* w) const;
+  // Restores what SaveState wrote and re-submits the pending jobs with their
+  // saved inputs, so each produces the same result as the saved one would
+  // have (replay applies it at the same bar). REQUIRES: a fresh coordinator
+  // with the same options, the same symbols added in the same order and
+  // groups (AddSymbol), and no bar seen yet. Everything is validated (counts
+  // against the window and queue capacity, parameters passing
+  // CheckConstraints, finite values, profiles of the session's bucket count,
+  // version references) before anything is committed: on error nothing
+  // changed and the DataLoss / FailedPrecondition status names the symbol and
+  // field.
+  absl::Status RestoreState(absl::string_view payload);
 
   // Bytes held per symbol: its bookkeeping, its window and one estimated
   // ModelVersion (the shared EWMA version and the job slots are not per symbol).

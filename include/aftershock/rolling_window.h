@@ -12,6 +12,8 @@
 #include <vector>
 
 #include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -61,6 +63,15 @@ class RollingWindow {
   void CopyTo(std::vector<double>* out) const;
 
   // Bytes owned by the window (its buffer).
+  // Checkpoint encoding: size, total, then the held returns (and tags) oldest
+  // first.
+  void SaveState(StateWriter* w) const;
+  // Restores what SaveState wrote into a window created with the same capacity
+  // and tag setting (REQUIRES: Create'd, nothing pushed). More values than the
+  // capacity, a total below the size, non-finite returns or a tag setting
+  // that differs set the reader's error naming `what`.
+  void RestoreState(StateReader* r, absl::string_view what);
+
   size_t MemoryBytes() const {
     return buf_.capacity() * sizeof(double) + tags_.capacity() * sizeof(int32_t);
   }

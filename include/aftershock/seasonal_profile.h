@@ -56,6 +56,7 @@
 #include "absl/status/statusor.h"
 #include "absl/strings/string_view.h"
 #include "absl/types/span.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -199,6 +200,16 @@ inline double SeasonalInvScale(const SeasonalProfile* profile, int32_t tag) {
 // turns a log-likelihood of deseasonalized returns into one of raw returns.
 double SeasonalLogScale(const SeasonalProfile* profile, int32_t tag);
 
+// Checkpoint encoding of a profile (null allowed): its factors, overnight
+// multiplier and sessions; the derived tables are rebuilt by Create.
+void SaveSeasonalProfile(const SeasonalProfile* profile, StateWriter* w);
+// Reads what SaveSeasonalProfile wrote and rebuilds it with Create for
+// `options` (buckets must equal options.buckets; max_ahead from options).
+// Anything invalid sets the reader's error naming `what`; the result is then
+// null. Check r->ok() after the record.
+SeasonalProfilePtr RestoreSeasonalProfile(StateReader* r, const SeasonalOptions& options,
+                                          absl::string_view what);
+
 // A pooled profile: an exponentially weighted average (decay kPoolDecay per
 // contribution, weights = the contributions' sessions) of symbols' own
 // estimates, the prior toward which a short history is shrunk. Deterministic
@@ -214,6 +225,14 @@ class SeasonalPool {
   // The pooled profile (null before any contribution); rebuilt (allocating)
   // only after an Add.
   SeasonalProfilePtr Snapshot();
+
+  // Checkpoint encoding of the pool (its decayed sums; the snapshot is rebuilt
+  // from them, bit for bit, on the next Snapshot()).
+  void SaveState(StateWriter* w) const;
+  // Restores what SaveState wrote. REQUIRES: a fresh pool with the same
+  // options (the bucket count is checked). A mismatch or non-finite sum sets
+  // the reader's error naming the field; the pool is then unusable (discard it).
+  void RestoreState(StateReader* r);
 
  private:
   SeasonalOptions options_;

@@ -12,7 +12,9 @@
 #include "absl/strings/str_join.h"
 #include "absl/time/clock.h"
 #include "absl/time/time.h"
+#include "aftershock/checkpoint_file.h"
 #include "aftershock/config_check.h"
+#include "aftershock/engine_checkpoint.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
@@ -28,6 +30,11 @@ namespace {
 
 int Fail(const absl::Status& s, int code) { return ReportFailure("replay", s, code); }
 
+// The replay driver's own state in a checkpoint: the event-time clock sweep
+// (when the next OnClock is due), so a resumed replay ticks the clock exactly
+// where the whole replay would have.
+constexpr uint32_t kDriverSectionTag = SectionTag("DRIV");
+
 }  // namespace
 
 int ReplayCommand(int argc, char** argv) {
@@ -39,6 +46,10 @@ int ReplayCommand(int argc, char** argv) {
       "event time, so idle time bars close exactly as they would live. With [bars]\n"
       "interval \"0s\" each CSV row is a bar. Open bars are closed at the end of the input.\n"
       "[publish] encoding is ignored (the output is always JSON).\n\n"
+      "--checkpoint FILE writes the engine's whole state at the end of the input (open bars\n"
+      "stay open: the end-of-input close is skipped) and --resume FILE starts from such a\n"
+      "file, so replaying a file in parts gives the same output as replaying it whole. A\n"
+      "checkpoint written under other state-relevant settings is refused (exit 2).\n\n"
       "Refits ([refit] every_bars / every_seconds) and alerts ([alerts]) run exactly as in\n"
       "`aftershock run`; a refit scheduled at bar n is applied at bar n + apply_lag_bars\n"
       "whatever the worker timing, so the output is byte-identical across runs and worker\n"
@@ -66,6 +77,9 @@ int ReplayCommand(int argc, char** argv) {
   args.AddOption("columns", "OURS=THEIRS,...",
                  "the file's names for our columns, e.g. time=ts,price=last "
                  "(ours: symbol, time, price, return, bid, ask, rv, size)");
+  args.AddOption("checkpoint", "FILE",
+                 "write the state at the end of the input (open bars are not closed)");
+  args.AddOption("resume", "FILE", "start from the state in a checkpoint written by --checkpoint");
   args.AddFlag("quiet", "no progress and no summary on standard error");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
@@ -117,6 +131,30 @@ int ReplayCommand(int argc, char** argv) {
   }
   auto services = EngineServices::Attach(core->get(), *config, so);
   if (!services.ok()) return Fail(services.status(), 2);
+  int64_t next_sweep = -1;
+  if (args.Has("resume")) {
+    const std::string path = args.Get("resume");
+    auto fail = [&](const absl::Status& st) {
+      return Fail(absl::Status(st.code(), absl::StrCat("cannot resume from '", path, "': ",
+                                                       st.message())),
+                  2);
+    };
+    absl::StatusOr<Checkpoint> cp = ReadCheckpointFile(path);
+    if (!cp.ok()) return fail(cp.status());
+    if (absl::Status st = RestoreEngineState(*cp, *config, core->get(), services->get());
+        !st.ok()) {
+      return fail(st);
+    }
+    absl::StatusOr<absl::string_view> driver = cp->Find(kDriverSectionTag);
+    if (!driver.ok()) return fail(driver.status());
+    StateReader r(*driver);
+    next_sweep = r.I64("replay clock sweep");
+    if (absl::Status st = r.Finish("replay driver state"); !st.ok()) return fail(st);
+    if (!args.Flag("quiet")) {
+      std::fprintf(stderr, "replay: resumed %d symbols from %s (%d refit jobs re-submitted)\n",
+                   (*core)->num_symbols(), path.c_str(), (*services)->refit_stats().in_flight);
+    }
+  }
 
   const bool quiet = args.Flag("quiet");
   const bool progress = !quiet && isatty(STDERR_FILENO);
@@ -124,7 +162,6 @@ int ReplayCommand(int argc, char** argv) {
   auto last_progress = start;
   const int64_t interval = config->bars.interval_ns;
   const int64_t sweep = std::clamp<int64_t>(config->bars.grace_ns / 2, 1000000, 100000000);
-  int64_t next_sweep = -1;
   Tick tick;
   uint64_t n = 0;
   int64_t first_tick_ns = -1, last_tick_ns = 0;
@@ -156,7 +193,22 @@ int ReplayCommand(int argc, char** argv) {
   if (progress) std::fputs("\r\033[K", stderr);
   const absl::Status read_status = (*reader)->status();
   if (!read_status.ok()) return Fail(read_status, 2);
-  (*core)->CloseAllOpenBars();
+  if (args.Has("checkpoint")) {
+    // The state at the end of the input, open bars included (not closed: a
+    // resumed replay continues them).
+    EngineSnapshot snap = CaptureEngineState(**core, services->get(),
+                                             absl::ToUnixNanos(absl::Now()));
+    StateWriter w;
+    w.I64(next_sweep);
+    snap.extra.emplace_back(kDriverSectionTag, w.Release());
+    absl::StatusOr<std::string> bytes = SerializeEngineSnapshot(snap, *config);
+    if (!bytes.ok()) return Fail(bytes.status(), 1);
+    if (absl::Status s = WriteFileAtomically(args.Get("checkpoint"), *bytes); !s.ok()) {
+      return Fail(s, 1);
+    }
+  } else {
+    (*core)->CloseAllOpenBars();
+  }
   if (absl::Status s = (*core)->Flush(); !s.ok()) return Fail(s, 1);
   if (absl::Status s = (*services)->Flush(); !s.ok()) return Fail(s, 1);
   if (absl::Status s = recorder.CloseModelsFile(); !s.ok()) return Fail(s, 1);

@@ -1,10 +1,14 @@
 // `aftershock run`: the live engine (ZeroMQ in, ZeroMQ out) until SIGINT/SIGTERM.
 #include <cstdio>
+#include <memory>
 #include <string>
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
+#include "aftershock/checkpoint_file.h"
+#include "aftershock/checkpointer.h"
 #include "aftershock/config_check.h"
+#include "aftershock/engine_checkpoint.h"
 #include "aftershock/engine.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
@@ -27,6 +31,10 @@ int RunCommand(int argc, char** argv) {
       "and symbol on topic u.<symbol> at the [publish] endpoint (see the README for the\n"
       "wire format). Bad input is counted by reason and dropped, never fatal.\n"
       "SIGINT or SIGTERM finishes the current batch, flushes and exits 0.\n"
+      "With [checkpoint] path the state of every symbol is written there every\n"
+      "[checkpoint] every_seconds (in the background) and at shutdown, and restored on\n"
+      "start when the file exists; --fresh starts without it. A file that cannot be used\n"
+      "(corrupt, truncated, other format or configuration) is an error (exit 2).\n"
       "Outputs are statistical estimates, not advice.\n\n"
       "Example:\n  aftershock run --config config/default.toml");
   args.AddOption("config", "FILE", "engine configuration (TOML; see config/default.toml)", "",
@@ -35,6 +43,8 @@ int RunCommand(int argc, char** argv) {
                "validate the configuration, print a summary and warnings about settings that "
                "contradict each other, then exit (0 ok, 2 bad)");
   args.AddOption("alerts", "FILE", "also write alerts as JSON Lines (they are published on a.*)");
+  args.AddFlag("fresh", "ignore an existing [checkpoint] file: start every symbol afresh "
+                        "(the file is overwritten by the next checkpoint)");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
     std::fputs(args.Help().c_str(), stdout);
@@ -65,11 +75,6 @@ int RunCommand(int argc, char** argv) {
   for (const std::string& w : warnings) {
     std::fprintf(stderr, "aftershock run: warning: %s\n", w.c_str());
   }
-  if (!config->checkpoint.path.empty()) {
-    std::fprintf(stderr,
-                 "aftershock run: warning: [checkpoint] path is set, but this version writes no "
-                 "checkpoints; the engine starts cold on every start\n");
-  }
   auto engine = Engine::CreateFromConfig(*config);
   if (!engine.ok()) return Fail(engine.status(), 2);
   ServiceOptions so;
@@ -77,6 +82,59 @@ int RunCommand(int argc, char** argv) {
   so.alerts_path = args.Get("alerts");
   auto services = EngineServices::Attach((*engine)->core(), *config, so);
   if (!services.ok()) return Fail(services.status(), 2);
+  std::unique_ptr<Checkpointer> checkpointer;
+  const std::string& cp_path = config->checkpoint.path;
+  if (!cp_path.empty()) {
+    if (!args.Flag("fresh")) {
+      absl::StatusOr<Checkpoint> cp = ReadCheckpointFile(cp_path);
+      if (cp.ok()) {
+        if (absl::Status s =
+                RestoreEngineState(*cp, *config, (*engine)->core(), services->get());
+            !s.ok()) {
+          return Fail(absl::Status(s.code(), absl::StrCat("cannot restore from '", cp_path, "': ",
+                                                          s.message(),
+                                                          " (--fresh starts without it)")),
+                      2);
+        }
+        const IngestCore& core = *(*engine)->core();
+        int fitted = 0, warmup = 0, other = 0;
+        for (int i = 0; i < core.num_symbols(); ++i) {
+          const uint32_t f = core.status_flags(i);
+          if (f & kFlagWarmup) {
+            ++warmup;
+          } else if (f & (kFlagFallback | kFlagPooled)) {
+            ++other;
+          } else {
+            ++fitted;
+          }
+        }
+        const double age =
+            static_cast<double>(SystemClock()->NowNs() - cp->header().created_ns) / 1e9;
+        std::fprintf(stderr,
+                     "aftershock run: restored %d symbols from %s, written %.0f s ago: %d on "
+                     "fitted models, %d on the warm-up, %d on the fallback or a group model; "
+                     "%d refit jobs re-submitted\n",
+                     core.num_symbols(), cp_path.c_str(), age, fitted, warmup, other,
+                     (*services)->refit_stats().in_flight);
+      } else if (absl::IsNotFound(cp.status())) {
+        std::fprintf(stderr, "aftershock run: no checkpoint at %s yet; starting fresh\n",
+                     cp_path.c_str());
+      } else {
+        return Fail(absl::Status(cp.status().code(),
+                                 absl::StrCat(cp.status().message(),
+                                              " (--fresh starts without it)")),
+                    2);
+      }
+    }
+    CheckpointerOptions co;
+    co.path = cp_path;
+    co.every_seconds = config->checkpoint.every_seconds;
+    auto c = Checkpointer::Create(co, *config, (*engine)->core(), services->get(), SystemClock());
+    if (!c.ok()) return Fail(c.status(), 2);
+    checkpointer = *std::move(c);
+    (*engine)->core()->AddObserver(checkpointer.get());
+    (*engine)->core()->AddMetricsSource(checkpointer.get());
+  }
   // Printed from inside the loop, so a reader of this line knows that the
   // signal handlers are installed and ingest is live.
   Engine* e = engine->get();
@@ -88,6 +146,22 @@ int RunCommand(int argc, char** argv) {
   });
   absl::Status st = (*engine)->Run();
   if (absl::Status fs = (*services)->Flush(); st.ok() && !fs.ok()) st = fs;
+  if (checkpointer != nullptr) {
+    // The state at shutdown (after the write in flight, if any).
+    const absl::Status cs = checkpointer->WriteNow();
+    const CheckpointStats cst = checkpointer->stats();
+    if (cs.ok()) {
+      std::fprintf(stderr,
+                   "aftershock run: checkpoint %s written (%llu bytes, %.3f s); %llu written, "
+                   "%llu failed, %llu skipped\n",
+                   cp_path.c_str(), static_cast<unsigned long long>(cst.last_bytes),
+                   cst.last_write_seconds, static_cast<unsigned long long>(cst.writes),
+                   static_cast<unsigned long long>(cst.failures),
+                   static_cast<unsigned long long>(cst.skipped));
+    } else if (st.ok()) {
+      st = cs;
+    }
+  }
   const EngineCounters& c = (*engine)->core()->counters();
   std::fprintf(stderr,
                "aftershock run: stopped; %llu messages, %llu ticks, %llu bars, %llu updates, "

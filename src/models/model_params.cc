@@ -125,3 +125,56 @@ absl::StatusOr<ModelParams> ModelParams::FromNamed(
 }
 
 }  // namespace aftershock
+
+namespace aftershock {
+
+void SaveModelParams(const ModelParams& params, StateWriter* w) {
+  const ModelSpec& s = params.spec;
+  w->U8(static_cast<uint8_t>(s.mean));
+  w->U8(static_cast<uint8_t>(s.ar_order));
+  w->U8(static_cast<uint8_t>(s.ma_order));
+  w->U8(static_cast<uint8_t>(s.variance));
+  w->U8(static_cast<uint8_t>(s.arch_order));
+  w->U8(static_cast<uint8_t>(s.asym_order));
+  w->U8(static_cast<uint8_t>(s.garch_order));
+  w->U8(static_cast<uint8_t>(s.innovations));
+  w->U64(params.values.size());
+  for (double v : params.values) w->F64(v);
+}
+
+ModelParams RestoreModelParams(StateReader* r, absl::string_view what) {
+  ModelParams p;
+  const std::string field = absl::StrCat(what, " spec");
+  const uint8_t mean = r->U8(field);
+  p.spec.ar_order = r->U8(field);
+  p.spec.ma_order = r->U8(field);
+  const uint8_t variance = r->U8(field);
+  p.spec.arch_order = r->U8(field);
+  p.spec.asym_order = r->U8(field);
+  p.spec.garch_order = r->U8(field);
+  const uint8_t innovations = r->U8(field);
+  // The longest parameter vector: mean, AR, MA, omega, ARCH, GJR, GARCH, nu.
+  constexpr uint64_t kMaxParams = 3 + 2 * kMaxArmaOrder + kMaxArchOrder + 2 * kMaxGarchOrder;
+  const uint64_t n = r->Count(absl::StrCat(what, " parameter count"), kMaxParams);
+  if (!r->ok()) return p;
+  if (mean > static_cast<uint8_t>(MeanKind::kArma) ||
+      variance > static_cast<uint8_t>(VarianceKind::kEwma) ||
+      innovations > static_cast<uint8_t>(Innovations::kStudentT)) {
+    r->Fail(field, "unknown mean, variance or innovation kind");
+    return p;
+  }
+  p.spec.mean = static_cast<MeanKind>(mean);
+  p.spec.variance = static_cast<VarianceKind>(variance);
+  p.spec.innovations = static_cast<Innovations>(innovations);
+  p.values.resize(n);
+  for (uint64_t i = 0; i < n; ++i) p.values[i] = r->F64(absl::StrCat(what, " parameters"));
+  if (!r->ok()) return p;
+  if (absl::Status s = p.spec.Validate(); !s.ok()) {
+    r->Fail(field, s.message());
+  } else if (absl::Status c = p.CheckConstraints(); !c.ok()) {
+    r->Fail(absl::StrCat(what, " parameters"), c.message());
+  }
+  return p;
+}
+
+}  // namespace aftershock

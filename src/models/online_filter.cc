@@ -289,3 +289,45 @@ std::vector<BarUpdate> FilterSeries(const FilterModel& model, double initial_var
 }
 
 }  // namespace aftershock
+
+namespace aftershock {
+
+void SaveFilterState(const FilterState& s, StateWriter* w) {
+  for (double v : s.r_hist) w->F64(v);
+  for (double v : s.eps_hist) w->F64(v);
+  w->F64(s.var.next_variance);
+  for (double v : s.var.eps2) w->F64(v);
+  for (double v : s.var.neg_eps2) w->F64(v);
+  for (double v : s.var.sigma2) w->F64(v);
+  w->F64(s.sd_next);
+  w->F64(s.mu_next);
+  w->I64(s.bars);
+}
+
+FilterState RestoreFilterState(StateReader* r, absl::string_view what) {
+  FilterState s;
+  const std::string f = absl::StrCat(what, " filter state");
+  bool finite = true;
+  auto read = [&](double* v) {
+    *v = r->F64(f);
+    finite = finite && std::isfinite(*v);
+  };
+  for (double& v : s.r_hist) read(&v);
+  for (double& v : s.eps_hist) read(&v);
+  read(&s.var.next_variance);
+  for (double& v : s.var.eps2) read(&v);
+  for (double& v : s.var.neg_eps2) read(&v);
+  for (double& v : s.var.sigma2) read(&v);
+  read(&s.sd_next);
+  read(&s.mu_next);
+  s.bars = r->I64(f);
+  if (!r->ok()) return s;
+  if (!finite) {
+    r->Fail(f, "a non-finite value");
+  } else if (s.var.next_variance < 0 || s.sd_next < 0 || s.bars < 0) {
+    r->Fail(f, "a negative variance or count");
+  }
+  return s;
+}
+
+}  // namespace aftershock

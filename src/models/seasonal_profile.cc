@@ -386,3 +386,71 @@ SeasonalProfilePtr SeasonalPool::Snapshot() {
 }
 
 }  // namespace aftershock
+
+namespace aftershock {
+
+void SeasonalPool::SaveState(StateWriter* w) const {
+  w->U64(sum_.size());
+  for (double v : sum_) w->F64(v);
+  w->F64(weight_);
+  w->F64(overnight_sum_);
+  w->F64(overnight_weight_);
+}
+
+void SeasonalPool::RestoreState(StateReader* r) {
+  const uint64_t n = r->Count("seasonal pool buckets", kMaxSeasonalBuckets);
+  if (!r->ok()) return;
+  if (n != sum_.size()) {
+    r->Fail("seasonal pool buckets",
+            absl::StrCat("the checkpoint has ", n, ", the session has ", sum_.size()));
+    return;
+  }
+  for (double& v : sum_) v = r->F64("seasonal pool sums");
+  weight_ = r->F64("seasonal pool weight");
+  overnight_sum_ = r->F64("seasonal pool overnight sum");
+  overnight_weight_ = r->F64("seasonal pool overnight weight");
+  if (!r->ok()) return;
+  bool finite = std::isfinite(weight_) && weight_ >= 0 && std::isfinite(overnight_sum_) &&
+                std::isfinite(overnight_weight_) && overnight_weight_ >= 0;
+  for (double v : sum_) finite = finite && std::isfinite(v);
+  if (!finite) {
+    r->Fail("seasonal pool", "non-finite or negative sums");
+    return;
+  }
+  snapshot_ = nullptr;
+  stale_ = weight_ > 0;
+}
+
+void SaveSeasonalProfile(const SeasonalProfile* p, StateWriter* w) {
+  w->Bool(p != nullptr);
+  if (p == nullptr) return;
+  w->U64(static_cast<uint64_t>(p->buckets()));
+  for (double v : p->factors()) w->F64(v);
+  w->F64(p->overnight_factor());
+  w->I32(p->sessions());
+}
+
+SeasonalProfilePtr RestoreSeasonalProfile(StateReader* r, const SeasonalOptions& options,
+                                          absl::string_view what) {
+  if (!r->Bool(what)) return nullptr;
+  const std::string field = absl::StrCat(what, " buckets");
+  const uint64_t n = r->Count(field, kMaxSeasonalBuckets);
+  if (!r->ok()) return nullptr;
+  if (n != static_cast<uint64_t>(options.buckets)) {
+    r->Fail(field, absl::StrCat("the checkpoint has ", n, ", the session has ", options.buckets));
+    return nullptr;
+  }
+  std::vector<double> f(n);
+  for (double& v : f) v = r->F64(what);
+  const double overnight = r->F64(what);
+  const int32_t sessions = r->I32(what);
+  if (!r->ok()) return nullptr;
+  auto p = SeasonalProfile::Create(std::move(f), overnight, sessions, options.max_ahead);
+  if (!p.ok()) {
+    r->Fail(what, p.status().message());
+    return nullptr;
+  }
+  return std::make_shared<const SeasonalProfile>(*std::move(p));
+}
+
+}  // namespace aftershock

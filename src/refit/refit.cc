@@ -568,3 +568,304 @@ size_t RefitCoordinator::MemoryBytesPerSymbol() const {
 }
 
 }  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+constexpr uint32_t kNullVersion = 0xFFFFFFFFu;  // reference to no version
+constexpr uint32_t kEwmaVersionRef = 0;        // reference to the shared EWMA (version 0)
+constexpr uint64_t kMaxSavedVersions = uint64_t{1} << 26;
+
+}  // namespace
+
+void RefitCoordinator::SaveState(StateWriter* w) const {
+  const Counters& c = counters_;
+  for (const std::atomic<uint64_t>* v : {&c.due, &c.submitted, &c.coalesced, &c.dropped,
+                                         &c.swapped, &c.rejected, &c.refit_errors, &c.fallbacks,
+                                         &c.replay_waits, &c.pooled}) {
+    w->U64(v->load(std::memory_order_relaxed));
+  }
+  // The version table: each referenced version once; reference 0 is the
+  // shared EWMA, 1.. the table's entries, kNullVersion none.
+  std::vector<const ModelVersion*> table;
+  absl::flat_hash_map<const ModelVersion*, uint32_t> ref;
+  auto add = [&](const ModelVersionPtr& v) {
+    if (v == nullptr || v == ewma_ || ref.contains(v.get())) return;
+    table.push_back(v.get());
+    ref.emplace(v.get(), static_cast<uint32_t>(table.size()));
+  };
+  for (const SymbolSlot& s : symbols_) {
+    add(s.current);
+    add(s.last_estimated);
+    if (s.pending >= 0) {
+      add(jobs_[s.pending]->in_force);
+      add(jobs_[s.pending]->estimated);
+    }
+  }
+  for (const GroupState& g : groups_) add(g.latest);
+  auto ref_of = [&](const ModelVersionPtr& v) {
+    if (v == nullptr) return kNullVersion;
+    if (v == ewma_) return kEwmaVersionRef;
+    return ref.at(v.get());
+  };
+  w->U64(table.size());
+  for (const ModelVersion* v : table) {
+    w->U32(v->version);
+    SaveModelParams(v->model.params(), w);
+    w->U64(v->std_errors.size());
+    for (double e : v->std_errors) w->F64(e);
+    w->F64(v->loglik);
+    w->I64(v->fitted_bar);
+    if (options_.seasonal) SaveSeasonalProfile(v->profile.get(), w);
+  }
+  if (options_.seasonal) seasonal_pool_.SaveState(w);
+  w->U64(groups_.size());
+  for (const GroupState& g : groups_) {
+    w->U32(ref_of(g.latest));
+    w->Bytes(g.donor);
+    w->U64(g.seq);
+  }
+  w->U64(symbols_.size());
+  for (const SymbolSlot& s : symbols_) {
+    w->Bytes(s.name);
+    w->U32(s.group);
+    s.window.SaveState(w);
+    w->I64(s.schedule.next_due_bar);
+    w->I64(s.schedule.next_due_ns);
+    w->I64(s.schedule.phase_ns);
+    w->I32(s.schedule.phase_bars);
+    w->Bool(s.schedule.armed);
+    w->U32(ref_of(s.current));
+    w->U32(ref_of(s.last_estimated));
+    w->U32(s.last_version);
+    w->I32(s.failures);
+    w->Bool(s.fallback);
+    w->I64(s.fits);
+    w->Bool(s.pooled);
+    w->U64(s.pooled_seq);
+    w->I64(s.pooled_bar);
+    w->Bool(s.pending >= 0);
+    if (s.pending < 0) continue;
+    // Inputs only: the worker does not write them while the job runs.
+    const JobSlot& j = *jobs_[s.pending];
+    w->I64(s.apply_bar);
+    w->U64(j.returns.size());
+    for (double r : j.returns) w->F64(r);
+    if (options_.seasonal) {
+      w->U64(j.tags.size());
+      for (int32_t t : j.tags) w->I32(t);
+      SaveSeasonalProfile(j.prior.get(), w);
+    }
+    w->U32(ref_of(j.in_force));
+    w->U32(ref_of(j.estimated));
+    w->Bool(j.reidentify);
+    w->U64(j.seed);
+    w->I64(j.fit_index);
+    w->I64(j.bar);
+    w->U32(j.version);
+  }
+}
+
+absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
+  for (const SymbolSlot& s : symbols_) {
+    if (s.window.total() != 0 || s.pending >= 0) {
+      return absl::FailedPreconditionError("refit RestoreState needs a coordinator without bars");
+    }
+  }
+  StateReader r(payload);
+  uint64_t counters[10];
+  for (uint64_t& v : counters) v = r.U64("refit counters");
+  const uint64_t nv = r.Count("refit version count", kMaxSavedVersions);
+  if (!r.ok()) return r.status();
+  std::vector<ModelVersionPtr> table;
+  table.reserve(nv + 1);
+  table.push_back(ewma_);
+  for (uint64_t i = 0; i < nv && r.ok(); ++i) {
+    const std::string what = absl::StrCat("refit version entry ", i);
+    auto v = std::make_shared<ModelVersion>();
+    v->version = r.U32(what);
+    const ModelParams p = RestoreModelParams(&r, what);
+    const uint64_t ne = r.Count(what + " std errors", static_cast<uint64_t>(p.values.size()));
+    v->std_errors.resize(ne);
+    for (double& e : v->std_errors) e = r.F64(what + " std errors");
+    v->loglik = r.F64(what + " loglik");
+    v->fitted_bar = r.I64(what + " fitted bar");
+    if (options_.seasonal) {
+      v->profile = RestoreSeasonalProfile(&r, options_.seasonal_options, what + " profile");
+    }
+    if (!r.ok()) break;
+    absl::StatusOr<FilterModel> fm = FilterModel::Create(p, outputs_, v->version);
+    if (!fm.ok()) {
+      r.Fail(what, fm.status().message());
+      break;
+    }
+    v->model = *std::move(fm);
+    table.push_back(std::move(v));
+  }
+  auto deref = [&](absl::string_view what) -> ModelVersionPtr {
+    const uint32_t k = r.U32(what);
+    if (!r.ok() || k == kNullVersion) return nullptr;
+    if (k >= table.size()) {
+      r.Fail(what, absl::StrCat("version reference ", k, " beyond the ", table.size(), " saved"));
+      return nullptr;
+    }
+    return table[k];
+  };
+  SeasonalPool pool(options_.seasonal_options);
+  if (options_.seasonal && r.ok()) pool.RestoreState(&r);
+  const uint64_t ng = r.Count("refit group count", kMaxRefitGroups);
+  std::vector<GroupState> groups(r.ok() ? ng : 0);
+  for (uint64_t g = 0; g < groups.size() && r.ok(); ++g) {
+    const std::string what = absl::StrCat("refit group ", g);
+    groups[g].latest = deref(what + " latest version");
+    groups[g].donor = std::string(r.Bytes(what + " donor", kMaxSymbolLength));
+    groups[g].seq = r.U64(what + " sequence");
+    if (r.ok() && (groups[g].latest == nullptr) != (groups[g].seq == 0)) {
+      r.Fail(what, "a sequence without a version (or the reverse)");
+    }
+  }
+  const uint64_t ns = r.Count("refit symbol count", symbols_.size());
+  if (r.ok() && ns != symbols_.size()) {
+    r.Fail("refit symbol count",
+           absl::StrCat(ns, " saved, ", symbols_.size(), " symbols restored in the core"));
+  }
+  struct Pending {
+    uint32_t id = 0;
+    int64_t apply_bar = 0;
+    std::vector<double> returns;
+    std::vector<int32_t> tags;
+    SeasonalProfilePtr prior;
+    ModelVersionPtr in_force, estimated;
+    bool reidentify = false;
+    uint64_t seed = 0;
+    int64_t fit_index = 0, bar = 0;
+    uint32_t version = 0;
+  };
+  std::vector<SymbolSlot> slots(r.ok() ? ns : 0);
+  std::vector<Pending> pending;
+  for (uint32_t id = 0; id < slots.size() && r.ok(); ++id) {
+    const SymbolSlot& live = symbols_[id];
+    SymbolSlot& s = slots[id];
+    const absl::string_view name = r.Bytes("refit symbol name", kMaxSymbolLength);
+    const uint32_t group = r.U32("refit symbol group");
+    if (!r.ok()) break;
+    const std::string what = absl::StrCat("refit symbol ", name);
+    if (name != live.name) {
+      r.Fail(what, absl::StrCat("saved in position ", id, " where the core has ", live.name));
+      break;
+    }
+    if (group != live.group || group >= groups.size()) {
+      r.Fail(what + " group",
+             absl::StrCat("saved in group ", group, ", now in group ", live.group,
+                          ": [alerts.groups] membership changed and group models depend on it"));
+      break;
+    }
+    s.name = live.name;
+    s.group = group;
+    auto window = RollingWindow::Create(options_.window, options_.seasonal);
+    if (!window.ok()) return window.status();
+    s.window = *std::move(window);
+    s.window.RestoreState(&r, what);
+    s.schedule.next_due_bar = r.I64(what + " schedule");
+    s.schedule.next_due_ns = r.I64(what + " schedule");
+    s.schedule.phase_ns = r.I64(what + " schedule");
+    s.schedule.phase_bars = r.I32(what + " schedule");
+    s.schedule.armed = r.Bool(what + " schedule");
+    s.current = deref(what + " current version");
+    s.last_estimated = deref(what + " last estimated version");
+    s.last_version = r.U32(what + " last version");
+    s.failures = r.I32(what + " failures");
+    s.fallback = r.Bool(what + " fallback");
+    s.fits = r.I64(what + " fits");
+    s.pooled = r.Bool(what + " pooled");
+    s.pooled_seq = r.U64(what + " pooled sequence");
+    s.pooled_bar = r.I64(what + " pooled bar");
+    const bool has_job = r.Bool(what + " pending job");
+    if (!r.ok()) break;
+    if (s.current == nullptr || s.failures < 0 || s.fits < 0) {
+      r.Fail(what, "no current version, or a negative failure or fit count");
+      break;
+    }
+    if (!has_job) continue;
+    if (pending.size() >= jobs_.size()) {
+      r.Fail(what + " pending job", "more pending jobs than [refit] queue_capacity");
+      break;
+    }
+    Pending j;
+    j.id = id;
+    j.apply_bar = r.I64(what + " apply bar");
+    const uint64_t nr = r.Count(what + " job window", static_cast<uint64_t>(options_.window));
+    j.returns.resize(r.ok() ? nr : 0);
+    for (double& x : j.returns) {
+      x = r.F64(what + " job window");
+      if (r.ok() && !std::isfinite(x)) r.Fail(what + " job window", "a non-finite return");
+    }
+    if (options_.seasonal) {
+      const uint64_t nt = r.Count(what + " job tags", static_cast<uint64_t>(options_.window));
+      if (r.ok() && nt != nr) r.Fail(what + " job tags", "not one tag per return");
+      j.tags.resize(r.ok() ? nt : 0);
+      for (int32_t& t : j.tags) t = r.I32(what + " job tags");
+      if (r.ok()) {
+        j.prior = RestoreSeasonalProfile(&r, options_.seasonal_options, what + " job prior");
+      }
+    }
+    j.in_force = deref(what + " job version in force");
+    j.estimated = deref(what + " job warm start");
+    j.reidentify = r.Bool(what + " job");
+    j.seed = r.U64(what + " job");
+    j.fit_index = r.I64(what + " job");
+    j.bar = r.I64(what + " job");
+    j.version = r.U32(what + " job");
+    if (r.ok() && j.in_force == nullptr) r.Fail(what + " job", "no version in force");
+    if (r.ok() && (j.bar > s.window.total() || j.apply_bar < j.bar)) {
+      r.Fail(what + " job", "scheduled after the window's end or applied before it was scheduled");
+    }
+    if (!r.ok()) break;
+    pending.push_back(std::move(j));
+  }
+  if (absl::Status st = r.Finish("refit state"); !st.ok()) return st;
+  for (const SymbolSlot& s : slots) {
+    if (s.group >= groups.size()) {
+      return absl::DataLossError(absl::StrCat("refit symbol ", s.name, ": no saved group ",
+                                              s.group));
+    }
+  }
+
+  // Commit: nothing below can fail.
+  std::atomic<uint64_t>* dst[] = {&counters_.due,      &counters_.submitted, &counters_.coalesced,
+                                  &counters_.dropped,  &counters_.swapped,   &counters_.rejected,
+                                  &counters_.refit_errors, &counters_.fallbacks,
+                                  &counters_.replay_waits, &counters_.pooled};
+  for (int i = 0; i < 10; ++i) dst[i]->store(counters[i], std::memory_order_relaxed);
+  if (options_.seasonal) seasonal_pool_ = std::move(pool);
+  groups_ = std::move(groups);
+  for (uint32_t id = 0; id < slots.size(); ++id) symbols_[id] = std::move(slots[id]);
+  for (Pending& p : pending) {
+    SymbolSlot& sym = symbols_[p.id];
+    const uint32_t slot = free_slots_.back();
+    free_slots_.pop_back();
+    JobSlot& j = *jobs_[slot];
+    j.symbol_id = p.id;
+    j.symbol.assign(sym.name);
+    // assign keeps the capacity reserved at construction.
+    j.returns.assign(p.returns.begin(), p.returns.end());
+    j.tags.assign(p.tags.begin(), p.tags.end());
+    j.prior = std::move(p.prior);
+    j.in_force = std::move(p.in_force);
+    j.estimated = std::move(p.estimated);
+    j.reidentify = p.reidentify;
+    j.seed = p.seed;
+    j.fit_index = p.fit_index;
+    j.bar = p.bar;
+    j.version = p.version;
+    sym.pending = static_cast<int32_t>(slot);
+    sym.apply_bar = p.apply_bar;
+    // As in Submit (none of these changes while a job is pending).
+    const bool priority = !sym.last_estimated || sym.failures > 0 || sym.fallback;
+    counters_.in_flight.fetch_add(1, std::memory_order_relaxed);
+    pool_->Submit(slot, priority);
+  }
+  return absl::OkStatus();
+}
+
+}  // namespace aftershock

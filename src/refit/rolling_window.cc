@@ -1,6 +1,8 @@
 #include "aftershock/rolling_window.h"
 
 #include <algorithm>
+#include <cmath>
+#include <type_traits>
 
 #include "absl/strings/str_cat.h"
 
@@ -31,6 +33,56 @@ void RollingWindow::CopyTo(std::vector<double>* out) const {
   const int first = std::min(size_, capacity_ - start);
   std::copy(buf_.begin() + start, buf_.begin() + start + first, out->begin());
   std::copy(buf_.begin(), buf_.begin() + (size_ - first), out->begin() + first);
+}
+
+}  // namespace aftershock
+
+namespace aftershock {
+
+void RollingWindow::SaveState(StateWriter* w) const {
+  w->U64(static_cast<uint64_t>(size_));
+  w->I64(total_);
+  w->Bool(has_tags());
+  // Oldest first, as two contiguous runs [start, capacity) and [0, head): the
+  // host is little-endian (state_codec.h), so the raw bytes are the encoding.
+  int start = head_ - size_;
+  if (start < 0) start += capacity_;
+  const int first = std::min(size_, capacity_ - start);
+  auto runs = [&](const auto* data) {
+    using T = std::remove_const_t<std::remove_pointer_t<decltype(data)>>;
+    w->Append(absl::string_view(reinterpret_cast<const char*>(data + start), first * sizeof(T)));
+    w->Append(absl::string_view(reinterpret_cast<const char*>(data), (size_ - first) * sizeof(T)));
+  };
+  runs(buf_.data());
+  if (has_tags()) runs(tags_.data());
+}
+
+void RollingWindow::RestoreState(StateReader* r, absl::string_view what) {
+  const std::string field = absl::StrCat(what, " window");
+  const uint64_t n = r->Count(field, static_cast<uint64_t>(capacity_));
+  const int64_t total = r->I64(field);
+  const bool tags = r->Bool(field);
+  if (!r->ok()) return;
+  if (total < static_cast<int64_t>(n)) {
+    r->Fail(field, absl::StrCat("total ", total, " below its size ", n));
+    return;
+  }
+  if (tags != has_tags()) {
+    r->Fail(field, tags ? "has tags the configuration does not keep"
+                        : "has no tags; the configuration keeps them");
+    return;
+  }
+  for (uint64_t i = 0; i < n; ++i) {
+    buf_[i] = r->F64(field);
+    if (r->ok() && !std::isfinite(buf_[i])) {
+      r->Fail(field, "a non-finite return");
+      return;
+    }
+  }
+  for (uint64_t i = 0; tags && i < n; ++i) tags_[i] = r->I32(field);
+  size_ = static_cast<int>(n);
+  head_ = size_ == capacity_ ? 0 : size_;
+  total_ = total;
 }
 
 }  // namespace aftershock

@@ -595,3 +595,119 @@ void AlertEngine::OnRejectedTick(int64_t now_ns, AlertSink* sink) {
 }
 
 }  // namespace aftershock
+
+namespace aftershock {
+
+void SaveSymbolAlertState(const SymbolAlertState& s, StateWriter* w) {
+  w->F64(s.regime.fast);
+  w->F64(s.regime.slow);
+  w->F64(s.regime.ratio);
+  w->I64(s.regime.bars);
+  w->U8(static_cast<uint8_t>(static_cast<int8_t>(s.regime.direction)));
+  w->I64(s.bars);
+  w->I64(s.shock_bar);
+  w->I64(s.shock_t_ns);
+  w->I64(s.regime_alert_bar);
+  w->I64(s.last_tick_ns);
+  w->U64(s.ticks_seen);
+  w->F64(s.tick_gap_s);
+  w->I64(s.stale_since_ns);
+  w->U32(s.gap_samples);
+  w->I32(s.gate_failures);
+  w->U8(static_cast<uint8_t>(s.shock_severity));
+  w->Bool(s.regime_published);
+  w->Bool(s.near_integrated);
+  w->Bool(s.gate_alerted);
+  w->Bool(s.fallback);
+  w->Bool(s.stale_alerted);
+}
+
+SymbolAlertState RestoreSymbolAlertState(StateReader* r, absl::string_view what) {
+  SymbolAlertState s;
+  const std::string f = absl::StrCat(what, " alert state");
+  s.regime.fast = r->F64(f);
+  s.regime.slow = r->F64(f);
+  s.regime.ratio = r->F64(f);
+  s.regime.bars = r->I64(f);
+  const int8_t dir = static_cast<int8_t>(r->U8(f));
+  s.bars = r->I64(f);
+  s.shock_bar = r->I64(f);
+  s.shock_t_ns = r->I64(f);
+  s.regime_alert_bar = r->I64(f);
+  s.last_tick_ns = r->I64(f);
+  s.ticks_seen = r->U64(f);
+  s.tick_gap_s = r->F64(f);
+  s.stale_since_ns = r->I64(f);
+  s.gap_samples = r->U32(f);
+  s.gate_failures = r->I32(f);
+  const uint8_t sev = r->U8(f);
+  s.regime_published = r->Bool(f);
+  s.near_integrated = r->Bool(f);
+  s.gate_alerted = r->Bool(f);
+  s.fallback = r->Bool(f);
+  s.stale_alerted = r->Bool(f);
+  if (!r->ok()) return s;
+  if (dir < -1 || dir > 1 || sev >= kNumSeverities) {
+    r->Fail(f, "unknown regime direction or severity");
+  } else if (!(s.regime.fast >= 0) || !std::isfinite(s.regime.fast) || !(s.regime.slow >= 0) ||
+             !std::isfinite(s.regime.slow) || !std::isfinite(s.regime.ratio) ||
+             !(s.tick_gap_s >= 0) || !std::isfinite(s.tick_gap_s) || s.gate_failures < 0) {
+    r->Fail(f, "a non-finite or negative statistic");
+  }
+  s.regime.direction = static_cast<RegimeDirection>(dir);
+  s.shock_severity = static_cast<Severity>(sev);
+  return s;
+}
+
+void AlertEngine::SaveState(StateWriter* w) const {
+  for (int k = 0; k < kNumAlertKinds; ++k) {
+    for (int v = 0; v < kNumSeverities; ++v) {
+      w->U64(counters_.emitted[k][v]);
+      w->U64(counters_.suppressed[k][v]);
+    }
+  }
+  w->I64(bucket_ns_);
+  w->I64(reject_bucket_);
+  for (uint64_t c : reject_counts_) w->U64(c);
+  w->U64(reject_window_);
+  w->Bool(reject_over_);
+  w->Bool(reject_alerted_);
+  w->I64(reject_alert_ns_);
+}
+
+void AlertEngine::RestoreState(StateReader* r) {
+  AlertCounters c;
+  for (int k = 0; k < kNumAlertKinds; ++k) {
+    for (int v = 0; v < kNumSeverities; ++v) {
+      c.emitted[k][v] = r->U64("alert counters");
+      c.suppressed[k][v] = r->U64("alert counters");
+    }
+  }
+  const int64_t bucket_ns = r->I64("reject window bucket");
+  const int64_t bucket = r->I64("reject window bucket");
+  uint64_t counts[kRejectBuckets];
+  uint64_t sum = 0;
+  for (uint64_t& n : counts) {
+    n = r->U64("reject window counts");
+    sum += n;
+  }
+  const uint64_t window = r->U64("reject window count");
+  const bool over = r->Bool("reject window state");
+  const bool alerted = r->Bool("reject window state");
+  const int64_t alert_ns = r->I64("reject window state");
+  if (!r->ok()) return;
+  if (sum != window) {
+    r->Fail("reject window count", "differs from the sum of its buckets");
+    return;
+  }
+  counters_ = c;
+  if (bucket_ns != bucket_ns_) return;  // another window length: start empty
+  reject_bucket_ = bucket;
+  std::copy(counts, counts + kRejectBuckets, reject_counts_);
+  reject_window_ = window;
+  reject_over_ = over;
+  reject_alerted_ = alerted;
+  reject_alert_ns_ = alert_ns;
+}
+
+}  // namespace aftershock

@@ -3,6 +3,8 @@
 #include <cmath>
 #include <cstdint>
 
+#include "absl/strings/str_cat.h"
+
 namespace aftershock {
 namespace {
 
@@ -194,6 +196,62 @@ bool CloseIfDue(BarState* st, int64_t now_ns, int64_t grace_ns, const BarOptions
   if (now_ns < st->open_end_ns || now_ns - st->open_end_ns < grace_ns) return false;
   *out = CloseBar(st, /*by_clock=*/true, o.overnight_return);
   return true;
+}
+
+}  // namespace aftershock
+
+namespace aftershock {
+
+void SaveBarState(const BarState& s, StateWriter* w) {
+  w->I64(s.open_start_ns);
+  w->I64(s.open_end_ns);
+  w->I64(s.latest_t_ns);
+  w->I64(s.closed_end_ns);
+  w->I64(s.session_day);
+  w->I64(s.last_t_ns);
+  w->F64(s.last_value);
+  w->F64(s.open_price);
+  w->F64(s.prev_close);
+  w->F64(s.ret_sum);
+  w->I32(s.n_ticks);
+  w->I32(s.open_index);
+  w->U8(s.kind);
+  w->Bool(s.has_tick);
+  w->Bool(s.open);
+  w->Bool(s.has_prev_close);
+  w->Bool(s.any_bar);
+  w->Bool(s.open_gap);
+}
+
+BarState RestoreBarState(StateReader* r, absl::string_view what) {
+  BarState s;
+  const std::string f = absl::StrCat(what, " bar state");
+  s.open_start_ns = r->I64(f);
+  s.open_end_ns = r->I64(f);
+  s.latest_t_ns = r->I64(f);
+  s.closed_end_ns = r->I64(f);
+  s.session_day = r->I64(f);
+  s.last_t_ns = r->I64(f);
+  s.last_value = r->F64(f);
+  s.open_price = r->F64(f);
+  s.prev_close = r->F64(f);
+  s.ret_sum = r->F64(f);
+  s.n_ticks = r->I32(f);
+  s.open_index = r->I32(f);
+  s.kind = r->U8(f);
+  s.has_tick = r->Bool(f);
+  s.open = r->Bool(f);
+  s.has_prev_close = r->Bool(f);
+  s.any_bar = r->Bool(f);
+  s.open_gap = r->Bool(f);
+  if (!r->ok()) return s;
+  if (s.kind > Tick::kReturn || s.n_ticks < 0 || s.open_index < 0) {
+    r->Fail(f, "unknown tick kind or a negative count");
+  } else if (!std::isfinite(s.last_value) || !std::isfinite(s.open_price) ||
+             !std::isfinite(s.prev_close) || !std::isfinite(s.ret_sum)) {
+    r->Fail(f, "a non-finite value");
+  }
+  return s;
 }
 
 }  // namespace aftershock

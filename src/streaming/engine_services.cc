@@ -130,6 +130,151 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     return absl::OkStatus();
   }
 
+  // ---- Checkpoints ----
+  void SaveState(StateWriter* w) const override {
+    w->Bool(refit_ != nullptr);
+    w->Bool(seasonal_);
+    w->U64(rejects_seen_);
+    w->I64(session_open_ns_);
+    w->I64(feed_first_ns_);
+    w->U64(swap_errors_);
+    alerts_->SaveState(w);
+    w->U64(group_alerts_.size());
+    for (const auto& g : group_alerts_) g->SaveState(w);
+    w->U64(symbols_.size());
+    for (const PerSymbol& p : symbols_) {
+      w->Bytes(p.symbol.view());
+      SaveSymbolAlertState(p.alerts, w);
+      w->Bool(p.fallback);
+      if (seasonal_ && !refit_) p.seasonal_window.SaveState(w);
+    }
+    if (pool_ != nullptr) pool_->SaveState(w);
+    if (refit_ != nullptr) {
+      StateWriter rw;
+      refit_->SaveState(&rw);
+      w->U64(rw.size());
+      w->Append(rw.data());
+    }
+  }
+
+  absl::Status RestoreState(absl::string_view payload) override {
+    StateReader r(payload);
+    const bool had_refit = r.Bool("services refit switch");
+    const bool had_seasonal = r.Bool("services seasonality switch");
+    if (!r.ok()) return r.status();
+    if (had_refit != (refit_ != nullptr) || had_seasonal != seasonal_) {
+      return absl::FailedPreconditionError(absl::StrCat(
+          "the checkpoint was written with refits ", had_refit ? "on" : "off",
+          " and seasonality ", had_seasonal ? "on" : "off", "; the configuration has refits ",
+          refit_ ? "on" : "off", " and seasonality ", seasonal_ ? "on" : "off"));
+    }
+    const uint64_t rejects_seen = r.U64("services rejects seen");
+    const int64_t session_open = r.I64("services stale-rule session");
+    const int64_t feed_first = r.I64("services stale-rule first tick");
+    const uint64_t swap_errors = r.U64("services swap errors");
+    // Alert engines: restored into fresh ones, swapped in at the commit.
+    auto main_engine = AlertEngine::Create(config_.alerts.ToAlertOptions());
+    if (!main_engine.ok()) return main_engine.status();
+    (*main_engine)->RestoreState(&r);
+    const uint64_t ng = r.Count("services alert groups", 1u << 16);
+    std::vector<std::unique_ptr<AlertEngine>> groups;
+    for (uint64_t g = 0; g < ng && r.ok(); ++g) {
+      // A changed group list keeps the groups' counters only where it matches.
+      auto e = AlertEngine::Create(g < group_alerts_.size()
+                                       ? config_.alert_groups[g].alerts.ToAlertOptions()
+                                       : AlertOptions{});
+      if (!e.ok()) return e.status();
+      (*e)->RestoreState(&r);
+      groups.push_back(*std::move(e));
+    }
+    const uint64_t n = r.Count("services symbol count", symbols_.size());
+    if (r.ok() && n != symbols_.size()) {
+      r.Fail("services symbol count",
+             absl::StrCat(n, " saved, ", symbols_.size(), " symbols restored in the core"));
+    }
+    struct Saved {
+      SymbolAlertState alerts;
+      bool fallback = false;
+      RollingWindow window;
+    };
+    std::vector<Saved> saved(r.ok() ? n : 0);
+    for (size_t i = 0; i < saved.size() && r.ok(); ++i) {
+      const absl::string_view name = r.Bytes("services symbol name", kMaxSymbolLength);
+      if (r.ok() && name != symbols_[i].symbol.view()) {
+        r.Fail(absl::StrCat("services symbol ", i),
+               absl::StrCat("'", name, "' where the core has '", symbols_[i].symbol.view(), "'"));
+      }
+      if (!r.ok()) break;
+      const std::string what = absl::StrCat("symbol ", name);
+      saved[i].alerts = RestoreSymbolAlertState(&r, what);
+      saved[i].fallback = r.Bool(what + " fallback");
+      if (seasonal_ && !refit_) {
+        auto w = RollingWindow::Create(config_.refit.window, /*with_tags=*/true);
+        if (!w.ok()) return w.status();
+        saved[i].window = *std::move(w);
+        saved[i].window.RestoreState(&r, what + " seasonal");
+      }
+    }
+    std::unique_ptr<SeasonalPool> pool;
+    if (pool_ != nullptr && r.ok()) {
+      pool = std::make_unique<SeasonalPool>(core_->seasonal_options());
+      pool->RestoreState(&r);
+    }
+    absl::string_view refit_payload;
+    if (refit_ != nullptr && r.ok()) {
+      const uint64_t len = r.Count("refit state length", r.remaining());
+      if (r.ok()) refit_payload = payload.substr(r.offset(), len);
+      for (uint64_t k = 0; k < len && r.ok(); ++k) r.U8("refit state");  // skip it
+    }
+    if (absl::Status s = r.Finish("services state"); !s.ok()) return s;
+    // The coordinator validates and commits on its own (all or nothing).
+    if (refit_ != nullptr) {
+      if (absl::Status s = refit_->RestoreState(refit_payload); !s.ok()) return s;
+    }
+    // Commit.
+    rejects_seen_ = rejects_seen;
+    session_open_ns_ = session_open;
+    feed_first_ns_ = feed_first;
+    swap_errors_ = swap_errors;
+    // The main engine keeps its place (symbols point at it): copy the state.
+    {
+      StateWriter tmp;
+      (*main_engine)->SaveState(&tmp);
+      StateReader back(tmp.data());
+      alerts_->RestoreState(&back);
+    }
+    if (groups.size() == group_alerts_.size()) {
+      for (size_t g = 0; g < groups.size(); ++g) {
+        StateWriter tmp;
+        groups[g]->SaveState(&tmp);
+        StateReader back(tmp.data());
+        group_alerts_[g]->RestoreState(&back);
+      }
+    }
+    for (size_t i = 0; i < saved.size(); ++i) {
+      symbols_[i].alerts = saved[i].alerts;
+      symbols_[i].fallback = saved[i].fallback;
+      if (seasonal_ && !refit_) symbols_[i].seasonal_window = std::move(saved[i].window);
+    }
+    if (pool != nullptr) pool_ = std::move(pool);
+    // The core and the coordinator share the version object in force.
+    if (refit_ != nullptr) {
+      for (size_t i = 0; i < symbols_.size(); ++i) {
+        if (symbols_[i].refit_id < 0) continue;
+        const ModelVersionPtr& now = refit_->current(static_cast<uint32_t>(symbols_[i].refit_id));
+        const int index = static_cast<int>(i);
+        if (core_->model(index).version() != now->version) continue;  // e.g. [model.params] v1
+        if (absl::Status s = core_->ShareModel(
+                index, std::shared_ptr<const FilterModel>(now, &now->model));
+            !s.ok()) {
+          return absl::DataLossError(absl::StrCat(
+              "the core's and the refit coordinator's states disagree: ", s.message()));
+        }
+      }
+    }
+    return absl::OkStatus();
+  }
+
   // ---- MetricsSource ----
   void AppendPrometheus(std::string* o) const override {
     const AlertCounters& c = alert_counters();

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstring>
 #include <utility>
 
 #include "absl/strings/str_cat.h"
@@ -379,6 +380,155 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
   slot.model = swap.model;
   slot.status_flags = swap.status_flags & (kFlagWarmup | kFlagFallback | kFlagPooled);
   ++counters_.model_swaps;
+  return absl::OkStatus();
+}
+
+}  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+bool SameModel(const FilterModel& a, const FilterModel& b) {
+  if (a.version() != b.version() || a.params().spec != b.params().spec) return false;
+  const std::vector<double>& x = a.params().values;
+  const std::vector<double>& y = b.params().values;
+  return x.size() == y.size() &&
+         (x.empty() || std::memcmp(x.data(), y.data(), x.size() * sizeof(double)) == 0);
+}
+
+}  // namespace
+
+void IngestCore::SaveState(StateWriter* w) const {
+  const EngineCounters& c = counters_;
+  for (uint64_t v : {c.messages_in, c.ticks_in, c.ticks_accepted, c.bars, c.bars_clock_closed,
+                     c.updates_out, c.drops, c.non_finite_output, c.extra_out, c.extra_drops,
+                     c.model_swaps}) {
+    w->U64(v);
+  }
+  for (uint64_t v : c.rejects.by_reason) w->U64(v);
+  w->I64(last_clock_ns_);
+  w->U64(slots_.size());
+  for (const Slot& s : slots_) {
+    w->Bytes(s.symbol.view());
+    SaveBarState(s.bars_state, w);
+    SaveFilterState(s.filter, w);
+    w->U32(s.model->version());
+    SaveModelParams(s.model->params(), w);
+    if (seasonal_) SaveSeasonalProfile(s.profile.get(), w);
+    w->U32(s.status_flags);
+    w->U32(s.pending_flags);
+    w->Bool(s.filter_ready);
+    w->U64(static_cast<uint64_t>(s.num_start_returns));
+    for (int i = 0; i < s.num_start_returns; ++i) w->F64(s.start_returns[i]);
+    w->U64(s.bars);
+    w->U64(s.filtered);
+    w->U64(s.updates);
+    w->U64(s.ticks);
+    w->I64(s.last_tick_ns);
+    w->I64(s.last_arrival_ns);
+  }
+}
+
+absl::Status IngestCore::RestoreState(absl::string_view payload) {
+  if (!slots_.empty()) {
+    return absl::FailedPreconditionError("RestoreState needs a core without symbols");
+  }
+  StateReader r(payload);
+  EngineCounters c;
+  for (uint64_t* v : {&c.messages_in, &c.ticks_in, &c.ticks_accepted, &c.bars,
+                      &c.bars_clock_closed, &c.updates_out, &c.drops, &c.non_finite_output,
+                      &c.extra_out, &c.extra_drops, &c.model_swaps}) {
+    *v = r.U64("core counters");
+  }
+  for (uint64_t& v : c.rejects.by_reason) v = r.U64("core reject counters");
+  const int64_t last_clock = r.I64("core last clock");
+  const uint64_t n = r.Count("core symbol count", static_cast<uint64_t>(config_.limits.max_symbols));
+  if (!r.ok()) return r.status();
+  const OutputOptions outputs = config_.outputs.ToOutputOptions();
+  const int m = config_.warmup.start_bars;
+  std::vector<Slot> slots;
+  slots.reserve(n);
+  absl::flat_hash_map<std::string, int> index;
+  for (uint64_t k = 0; k < n && r.ok(); ++k) {
+    const absl::string_view name = r.Bytes("core symbol name", kMaxSymbolLength);
+    if (!r.ok()) break;
+    if (!IsValidSymbol(name) || index.contains(name)) {
+      r.Fail(absl::StrCat("core symbol ", k), absl::StrCat("invalid or repeated name '", name, "'"));
+      break;
+    }
+    const std::string what = absl::StrCat("symbol ", name);
+    Slot s;
+    s.symbol.assign(name);
+    s.bars_state = RestoreBarState(&r, what);
+    s.filter = RestoreFilterState(&r, what);
+    const uint32_t version = r.U32(absl::StrCat(what, " model version"));
+    const ModelParams params = RestoreModelParams(&r, absl::StrCat(what, " model"));
+    if (!r.ok()) break;
+    absl::StatusOr<FilterModel> model = FilterModel::Create(params, outputs, version);
+    if (!model.ok()) {
+      r.Fail(absl::StrCat(what, " model"), model.status().message());
+      break;
+    }
+    // The shared starting model where it is the same one (most symbols).
+    s.model = SameModel(*model, *initial_model_)
+                  ? initial_model_
+                  : std::make_shared<const FilterModel>(*std::move(model));
+    if (seasonal_) s.profile = RestoreSeasonalProfile(&r, seasonal_options_, what + " profile");
+    s.status_flags = r.U32(what + " status flags");
+    s.pending_flags = r.U32(what + " carried flags");
+    s.filter_ready = r.Bool(what + " filter ready");
+    const uint64_t held = r.Count(what + " warm-up start returns", static_cast<uint64_t>(m - 1));
+    if (!r.ok()) break;
+    if (s.status_flags & ~static_cast<uint32_t>(kFlagWarmup | kFlagFallback | kFlagPooled)) {
+      r.Fail(what + " status flags", "unknown flags");
+      break;
+    }
+    if (s.filter_ready && !(s.filter.var.next_variance > 0)) {
+      r.Fail(what + " filter state", "a ready filter needs a positive next variance");
+      break;
+    }
+    if (m > 1) s.start_returns = std::make_unique<double[]>(static_cast<size_t>(m));
+    s.num_start_returns = static_cast<int>(held);
+    for (uint64_t i = 0; i < held; ++i) {
+      s.start_returns[i] = r.F64(what + " warm-up start returns");
+      if (r.ok() && !std::isfinite(s.start_returns[i])) {
+        r.Fail(what + " warm-up start returns", "a non-finite return");
+      }
+    }
+    s.bars = r.U64(what + " counters");
+    s.filtered = r.U64(what + " counters");
+    s.updates = r.U64(what + " counters");
+    s.ticks = r.U64(what + " counters");
+    s.last_tick_ns = r.I64(what + " last tick");
+    s.last_arrival_ns = r.I64(what + " last arrival");
+    if (!r.ok()) break;
+    index.emplace(std::string(name), static_cast<int>(k));
+    slots.push_back(std::move(s));
+  }
+  if (absl::Status s = r.Finish("core state"); !s.ok()) return s;
+  // Commit: nothing below can fail.
+  for (Slot& s : slots) slots_.push_back(std::move(s));
+  index_ = std::move(index);
+  counters_ = c;
+  counters_.symbols = slots_.size();
+  last_clock_ns_ = last_clock;
+  for (int i = 0; i < num_symbols(); ++i) {
+    for (BarObserver* o : observers_) o->OnNewSymbol(this, i, slots_[i].symbol.view());
+  }
+  return absl::OkStatus();
+}
+
+absl::Status IngestCore::ShareModel(int index, std::shared_ptr<const FilterModel> model) {
+  if (index < 0 || index >= num_symbols() || model == nullptr) {
+    return absl::InvalidArgumentError(absl::StrCat("ShareModel: no symbol ", index, " or no model"));
+  }
+  if (!SameModel(*slots_[index].model, *model)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("ShareModel: symbol ", symbol(index), " runs version ",
+                     slots_[index].model->version(), ", not the given version ", model->version(),
+                     " with the same parameters"));
+  }
+  slots_[index].model = std::move(model);
   return absl::OkStatus();
 }
 

@@ -1,0 +1,118 @@
+// Checkpointer: periodic crash-consistent checkpoints of a live engine
+// (PRODUCT.md C10, §6; engine_checkpoint.h for what a checkpoint holds).
+//
+// On the ingest thread, at a clock tick (BarObserver::OnClock: between
+// batches, at a bar boundary), when `every_seconds` of wall clock have passed
+// since the last snapshot, the engine's state is captured
+// (CaptureEngineState: an encoding of the state into memory, the only part
+// that costs the ingest thread anything) and handed to a background writer
+// thread, which builds the file (checksums) and writes it crash-consistently
+// (WriteFileAtomically). One write at a time: a snapshot due while a write is
+// in flight is skipped and counted. WriteNow() (shutdown) waits for the write
+// in flight, then captures and writes synchronously.
+//
+// Metrics (MetricsSource): aftershock_checkpoint_writes_total,
+// _failures_total, _skipped_total, _last_size_bytes, _last_write_seconds and
+// _age_seconds (since the last successful write's snapshot; -1 before one).
+//
+// Thread-safety: OnClock, WriteNow and AppendPrometheus on the ingest thread
+// (or after the engine stopped); stats() from any thread. The core and the
+// services must outlive the checkpointer; the destructor waits for the write
+// in flight and joins the writer.
+#ifndef AFTERSHOCK_CHECKPOINTER_H_
+#define AFTERSHOCK_CHECKPOINTER_H_
+
+#include <atomic>
+#include <condition_variable>
+#include <cstdint>
+#include <memory>
+#include <mutex>
+#include <optional>
+#include <string>
+#include <thread>
+
+#include "absl/status/status.h"
+#include "absl/status/statusor.h"
+#include "aftershock/clock.h"
+#include "aftershock/engine_checkpoint.h"
+#include "aftershock/engine_config.h"
+#include "aftershock/engine_services.h"
+#include "aftershock/ingest_core.h"
+
+namespace aftershock {
+
+struct CheckpointerOptions {
+  // The checkpoint file (REQUIRED, non-empty); "<path>.tmp" is the temporary.
+  std::string path;
+  // Wall-clock seconds between snapshots; 0 = only WriteNow(). Default 60.
+  double every_seconds = 60;
+};
+
+// Counters of the checkpoints written. Plain value.
+struct CheckpointStats {
+  uint64_t writes = 0;              // files written successfully
+  uint64_t failures = 0;            // writes that failed (the old file stays)
+  uint64_t skipped = 0;             // snapshots due while a write was in flight
+  uint64_t last_bytes = 0;          // size of the last file written
+  double last_write_seconds = 0;    // serialize + write time of the last file
+  int64_t last_snapshot_ns = 0;     // clock time of the last written snapshot; 0 none
+};
+
+class Checkpointer : public BarObserver, public MetricsSource {
+ public:
+  // Starts the writer thread. InvalidArgument for an empty path or a negative
+  // or non-finite period. REQUIRES: core, clock non-null; services may be null.
+  static absl::StatusOr<std::unique_ptr<Checkpointer>> Create(const CheckpointerOptions& options,
+                                                              const EngineConfig& config,
+                                                              const IngestCore* core,
+                                                              const EngineServices* services,
+                                                              Clock* clock);
+  ~Checkpointer() override;
+  Checkpointer(const Checkpointer&) = delete;
+  Checkpointer& operator=(const Checkpointer&) = delete;
+
+  // BarObserver.
+  void OnBar(IngestCore*, int, const ClosedBar&, BarUpdate*) override {}
+  void OnClock(IngestCore* core, int64_t now_ns) override;
+
+  // Waits for the write in flight, then snapshots and writes now (shutdown).
+  // The write's error, if any.
+  absl::Status WriteNow();
+
+  CheckpointStats stats() const;
+  // The error of the last failed write ("" none).
+  std::string last_error() const;
+
+  // MetricsSource.
+  void AppendPrometheus(std::string* out) const override;
+
+ private:
+  Checkpointer(const CheckpointerOptions& options, const EngineConfig& config,
+               const IngestCore* core, const EngineServices* services, Clock* clock);
+  void WriterLoop();
+  absl::Status Write(const EngineSnapshot& snapshot);  // any thread; updates the stats
+
+  // ---- constant after construction ----
+  const CheckpointerOptions options_;
+  const EngineConfig config_;
+  const IngestCore* const core_;
+  const EngineServices* const services_;
+  Clock* const clock_;
+  const int64_t period_ns_;
+  // ---- ingest thread ----
+  int64_t next_due_ns_ = 0;
+  // ---- guarded by mu_ ----
+  mutable std::mutex mu_;
+  std::condition_variable cv_;
+  std::optional<EngineSnapshot> queued_;  // handed to the writer
+  bool busy_ = false;                     // a snapshot is queued or being written
+  bool stop_ = false;
+  CheckpointStats stats_;
+  std::string last_error_;
+  // ---- the writer ----
+  std::thread writer_;
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_CHECKPOINTER_H_

@@ -1,0 +1,99 @@
+// Engine checkpoints: the whole per-symbol state of an IngestCore and its
+// EngineServices (refit coordinator included) in one checkpoint file
+// (checkpoint_file.h), and the configuration check of a restore (PRODUCT.md
+// C10, §6).
+//
+// Sections:
+//   "CONF"  the canonical text of each state-relevant configuration section
+//           (StateRelevantConfig), so a refused restore names what changed
+//   "CORE"  IngestCore::SaveState
+//   "SERV"  EngineServices::SaveState (absent when no services are attached)
+//   others  the caller's (e.g. the replay driver's clock sweep, "DRIV")
+// The header's configuration fingerprint is Fingerprint64 of the "CONF"
+// payload.
+//
+// What enters the fingerprint: every setting that changes what the saved
+// state means or how it is laid out ([bars]; [model] spec, presample and
+// params; [warmup]; [outputs] horizons, risk levels and return units;
+// [refit] on/off, schedule, window, min_bars, apply lag, jitter and group
+// models; [seasonality] as resolved for the bars). Everything else (alert
+// thresholds, [refit] gate thresholds, reidentify_every, workers, queue
+// capacity, [outputs] annualization and sizing, endpoints, limits) may change
+// between the save and the restore: the state stays usable and the new values
+// apply from the next bar.
+//
+// Writing is split so that a live engine never waits for the disk:
+// CaptureEngineState (ingest thread, between batches: encodes the state) and
+// SerializeEngineSnapshot + WriteFileAtomically (any thread).
+//
+// Thread-safety: CaptureEngineState and RestoreEngineState on the core's
+// thread; the others are pure functions of their arguments.
+#ifndef AFTERSHOCK_ENGINE_CHECKPOINT_H_
+#define AFTERSHOCK_ENGINE_CHECKPOINT_H_
+
+#include <cstdint>
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "absl/status/status.h"
+#include "absl/status/statusor.h"
+#include "aftershock/checkpoint_file.h"
+#include "aftershock/engine_config.h"
+#include "aftershock/engine_services.h"
+#include "aftershock/ingest_core.h"
+
+namespace aftershock {
+
+inline constexpr uint32_t kConfigSectionTag = SectionTag("CONF");
+inline constexpr uint32_t kCoreSectionTag = SectionTag("CORE");
+inline constexpr uint32_t kServicesSectionTag = SectionTag("SERV");
+// The engine version written into checkpoints (at most 15 bytes).
+inline constexpr char kCheckpointEngineVersion[] = "aftershock 0.1";
+
+// One state-relevant configuration section: its name (e.g. "[bars]") and a
+// canonical text (one "key = value" line per setting, numbers with 17
+// significant digits), equal for configurations that mean the same state.
+struct ConfigStateSection {
+  std::string name;
+  std::string text;
+};
+std::vector<ConfigStateSection> StateRelevantConfig(const EngineConfig& config);
+// Fingerprint64 of the encoded StateRelevantConfig (the "CONF" payload).
+uint64_t ConfigFingerprint(const EngineConfig& config);
+
+// The engine's state encoded on the ingest thread, ready to be serialized
+// anywhere. Plain value.
+struct EngineSnapshot {
+  std::string core;      // IngestCore::SaveState
+  std::string services;  // EngineServices::SaveState; empty when none attached
+  bool has_services = false;
+  uint64_t symbols = 0;
+  int64_t created_ns = 0;  // wall clock at the capture, ns since the epoch
+  std::vector<std::pair<uint32_t, std::string>> extra;  // the caller's sections
+};
+
+// Encodes the state of `core` and `services` (may be null). Ingest thread,
+// between bars.
+EngineSnapshot CaptureEngineState(const IngestCore& core, const EngineServices* services,
+                                  int64_t created_ns);
+// The checkpoint file's bytes for a snapshot under `config`.
+absl::StatusOr<std::string> SerializeEngineSnapshot(const EngineSnapshot& snapshot,
+                                                    const EngineConfig& config);
+
+// OK when the checkpoint was written under a configuration with the same
+// state-relevant settings; FailedPrecondition naming each section that
+// differs (and its first differing line) otherwise.
+absl::Status CheckCheckpointConfig(const Checkpoint& checkpoint, const EngineConfig& config);
+
+// Restores a checkpoint into a fresh core (no symbols) and fresh services
+// attached to it (may be null when the checkpoint has none): the
+// configuration check, then IngestCore::RestoreState, then
+// EngineServices::RestoreState. On error the core and services are in an
+// unspecified state: discard both (never a partial restore in use).
+absl::Status RestoreEngineState(const Checkpoint& checkpoint, const EngineConfig& config,
+                                IngestCore* core, EngineServices* services);
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_ENGINE_CHECKPOINT_H_

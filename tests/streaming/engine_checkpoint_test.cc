@@ -1,0 +1,290 @@
+// Engine checkpoints (engine_checkpoint.h): a restored core + services
+// continue bit for bit as the saved ones, pending refit jobs included; bad
+// input is refused with a status naming the field, never a partial restore;
+// the configuration check names the section that changed.
+#include "aftershock/engine_checkpoint.h"
+
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <memory>
+#include <random>
+#include <string>
+#include <vector>
+
+#include "absl/strings/str_cat.h"
+#include "aftershock/clock.h"
+#include "streaming/engine_test_util.h"
+
+namespace aftershock {
+namespace {
+
+using testing::CollectingSink;
+using testing::ParseConfigOrDie;
+
+constexpr int64_t kDay0 = 1772409600000000000;  // 2026-03-02 00:00Z
+
+constexpr const char* kToml = R"(
+[bars]
+interval = "1m"
+session = { start = "08:00", end = "09:30" }
+[warmup]
+start_bars = 8
+[refit]
+every_bars = 30
+window = 200
+min_bars = 50
+reidentify_every = 0
+holdout_bars = 20
+apply_lag_bars = 12
+[seasonality]
+enabled = true
+min_sessions = 2
+[alerts]
+shock_z = 2.5
+)";
+
+// Price ticks of two symbols, two ticks a minute each, 08:00-09:30Z on three
+// days.
+std::vector<Tick> Ticks() {
+  std::mt19937_64 rng(7);
+  std::normal_distribution<double> norm(0.0, 1.0);
+  std::vector<Tick> out;
+  double price[2] = {80, 30};
+  for (int day = 0; day < 3; ++day) {
+    for (int m = 0; m < 90; ++m) {
+      for (int sec : {10, 40}) {
+        for (int s = 0; s < 2; ++s) {
+          Tick t;
+          t.symbol.assign(s == 0 ? "GANNET.A" : "PUFFIN.B");
+          t.t_ns = kDay0 + day * kNanosPerDay + (8 * 60 + m) * 60 * kNanosPerSecond +
+                   sec * kNanosPerSecond;
+          t.kind = Tick::kPrice;
+          price[s] *= std::exp(0.0008 * (1.0 + (m < 10 || m > 80)) * norm(rng));
+          t.value = price[s];
+          out.push_back(t);
+        }
+      }
+    }
+  }
+  return out;
+}
+
+// A core with services in replay mode, fed like `aftershock replay` (a clock
+// sweep every 100 ms of event time).
+struct Engine {
+  CollectingSink sink;
+  ManualClock clock;
+  std::unique_ptr<IngestCore> core;
+  std::unique_ptr<EngineServices> services;
+  int64_t next_sweep = -1;
+
+  explicit Engine(const EngineConfig& config, int workers = 1) {
+    auto c = IngestCore::Create(config, &sink, &clock);
+    REQUIRE(c.ok());
+    core = *std::move(c);
+    ServiceOptions so;
+    so.mode = RefitMode::kReplay;
+    so.workers = workers;
+    auto s = EngineServices::Attach(core.get(), config, so);
+    REQUIRE(s.ok());
+    services = *std::move(s);
+  }
+  void Feed(const Tick& t) {
+    if (next_sweep < 0) next_sweep = t.t_ns + 100000000;
+    if (t.t_ns >= next_sweep) {
+      clock.Set(t.t_ns);
+      core->OnClock(t.t_ns);
+      next_sweep = t.t_ns + 100000000;
+    }
+    core->OnTick(t);
+  }
+};
+
+std::string Bytes(const Engine& e) {
+  absl::StatusOr<std::string> b = SerializeEngineSnapshot(
+      CaptureEngineState(*e.core, e.services.get(), 1), e.core->config());
+  REQUIRE(b.ok());
+  return *b;
+}
+
+TEST_CASE("a restored engine continues bit for bit, refit jobs in flight included",
+          "[streaming][checkpoint]") {
+  const EngineConfig config = ParseConfigOrDie(kToml);
+  const std::vector<Tick> ticks = Ticks();
+  int with_jobs = 0;
+  for (size_t split : {size_t{301}, size_t{500}, size_t{733}, size_t{1001}}) {
+    INFO("split " << split);
+    Engine a(config);
+    for (size_t i = 0; i < split; ++i) a.Feed(ticks[i]);
+    if (a.services->refit_stats().in_flight > 0) ++with_jobs;
+    absl::StatusOr<Checkpoint> cp = ParseCheckpoint(Bytes(a));
+    REQUIRE(cp.ok());
+    CHECK(cp->header().symbol_count == 2);
+    Engine b(config, /*workers=*/2);
+    const absl::Status restored = RestoreEngineState(*cp, config, b.core.get(), b.services.get());
+    INFO(restored.ToString());
+    REQUIRE(restored.ok());
+    b.next_sweep = a.next_sweep;
+    CHECK(b.services->refit_stats().in_flight == a.services->refit_stats().in_flight);
+    // A second save of the restored engine is the same file.
+    CHECK(Bytes(b) == Bytes(a));
+    const size_t before = a.sink.messages.size();
+    for (size_t i = split; i < ticks.size(); ++i) {
+      a.Feed(ticks[i]);
+      b.Feed(ticks[i]);
+    }
+    a.core->CloseAllOpenBars();
+    b.core->CloseAllOpenBars();
+    REQUIRE(a.sink.messages.size() - before == b.sink.messages.size());
+    int models = 0;
+    for (size_t k = 0; k < b.sink.messages.size(); ++k) {
+      const auto& x = a.sink.messages[before + k];
+      const auto& y = b.sink.messages[k];
+      REQUIRE(x.topic == y.topic);
+      REQUIRE(x.body == y.body);
+      models += y.topic[0] == 'm';
+    }
+    CHECK(models > 0);
+    CHECK(a.core->counters().updates_out == b.core->counters().updates_out);
+    CHECK(a.services->refit_stats().swapped == b.services->refit_stats().swapped);
+  }
+  CHECK(with_jobs >= 1);
+}
+
+TEST_CASE("every truncation of the state is refused and leaves no symbol behind",
+          "[streaming][checkpoint]") {
+  const EngineConfig config = ParseConfigOrDie(kToml);
+  const std::vector<Tick> ticks = Ticks();
+  Engine a(config);
+  for (size_t i = 0; i < 700; ++i) a.Feed(ticks[i]);
+  const EngineSnapshot snap = CaptureEngineState(*a.core, a.services.get(), 1);
+  for (size_t n = 0; n < snap.core.size(); n += 13) {
+    Engine b(config);
+    const absl::Status s = b.core->RestoreState(absl::string_view(snap.core).substr(0, n));
+    REQUIRE(!s.ok());
+    REQUIRE(b.core->num_symbols() == 0);
+  }
+  Engine b(config);
+  const absl::Status restored = b.core->RestoreState(snap.core);
+  INFO(restored.ToString());
+  REQUIRE(restored.ok());
+  CHECK(!b.core->RestoreState(snap.core).ok());  // not into a core with symbols
+  for (size_t n = 0; n < snap.services.size(); n += 29) {
+    Engine c(config);
+    REQUIRE(c.core->RestoreState(snap.core).ok());
+    REQUIRE(!c.services->RestoreState(absl::string_view(snap.services).substr(0, n)).ok());
+  }
+}
+
+TEST_CASE("flipped bits in the state: refused or restored, never a crash", "[streaming][checkpoint]") {
+  const EngineConfig config = ParseConfigOrDie(kToml);
+  const std::vector<Tick> ticks = Ticks();
+  Engine a(config);
+  for (size_t i = 0; i < 733; ++i) a.Feed(ticks[i]);
+  const EngineSnapshot snap = CaptureEngineState(*a.core, a.services.get(), 1);
+  std::mt19937_64 rng(99);
+  int refused = 0, restored = 0;
+  for (int trial = 0; trial < 300; ++trial) {
+    const bool core_part = trial % 2 == 0;
+    std::string core = snap.core, services = snap.services;
+    std::string& target = core_part ? core : services;
+    const size_t pos = rng() % target.size();
+    target[pos] = static_cast<char>(target[pos] ^ (1 << (rng() % 8)));
+    Engine b(config);
+    absl::Status s = b.core->RestoreState(core);
+    if (s.ok()) s = b.services->RestoreState(services);
+    if (!s.ok()) {
+      ++refused;
+      continue;
+    }
+    // Whatever passed validation must run (the checksums catch real damage).
+    ++restored;
+    for (size_t i = 733; i < 800; ++i) b.Feed(ticks[i]);
+    b.core->CloseAllOpenBars();
+  }
+  CHECK(refused > 0);
+  CHECK(restored > 0);
+}
+
+TEST_CASE("restored values are validated, the error names the symbol and field",
+          "[streaming][checkpoint]") {
+  SECTION("parameters breaking the constraints") {
+    ModelParams p;
+    p.spec = ModelSpec{};  // constant mean, GARCH(1,1), normal
+    p.values = {0.0, 1e-6, 0.5, 0.6};  // persistence 1.1
+    StateWriter w;
+    SaveModelParams(p, &w);
+    StateReader r(w.data());
+    RestoreModelParams(&r, "symbol KESTREL.C model");
+    REQUIRE(!r.ok());
+    CHECK(r.status().code() == absl::StatusCode::kDataLoss);
+    CHECK(std::string(r.status().message()).find("symbol KESTREL.C model parameters") !=
+          std::string::npos);
+  }
+  SECTION("a non-finite filter state") {
+    FilterState st;
+    st.var.next_variance = std::nan("");
+    StateWriter w;
+    SaveFilterState(st, &w);
+    StateReader r(w.data());
+    RestoreFilterState(&r, "symbol KESTREL.C");
+    REQUIRE(!r.ok());
+    CHECK(std::string(r.status().message()).find("symbol KESTREL.C filter state") !=
+          std::string::npos);
+  }
+  SECTION("a profile of another session length") {
+    auto prof = SeasonalProfile::Create(std::vector<double>(90, 1.0), 0, 3, 20);
+    REQUIRE(prof.ok());
+    StateWriter w;
+    SaveSeasonalProfile(&*prof, &w);
+    SeasonalOptions o;
+    o.buckets = 120;
+    o.max_ahead = 20;
+    StateReader r(w.data());
+    CHECK(RestoreSeasonalProfile(&r, o, "symbol KESTREL.C profile") == nullptr);
+    REQUIRE(!r.ok());
+    CHECK(std::string(r.status().message()).find("the checkpoint has 90, the session has 120") !=
+          std::string::npos);
+  }
+}
+
+TEST_CASE("the configuration check: what changes the state refuses, thresholds do not",
+          "[streaming][checkpoint]") {
+  const EngineConfig config = ParseConfigOrDie(kToml);
+  Engine a(config);
+  const std::vector<Tick> ticks = Ticks();
+  for (size_t i = 0; i < 400; ++i) a.Feed(ticks[i]);
+  absl::StatusOr<Checkpoint> cp = ParseCheckpoint(Bytes(a));
+  REQUIRE(cp.ok());
+  CHECK(cp->header().config_fingerprint == ConfigFingerprint(config));
+
+  EngineConfig thresholds = config;
+  thresholds.alerts.shock_z = 5;
+  thresholds.refit.holdout_margin = 0.5;
+  thresholds.refit.workers = 3;
+  CHECK(ConfigFingerprint(thresholds) == ConfigFingerprint(config));
+  Engine b(thresholds);
+  const absl::Status restored = RestoreEngineState(*cp, thresholds, b.core.get(), b.services.get());
+  INFO(restored.ToString());
+  CHECK(restored.ok());
+
+  EngineConfig horizons = config;
+  horizons.outputs.horizons = {1, 10};
+  const absl::Status s = CheckCheckpointConfig(*cp, horizons);
+  INFO(s.ToString());
+  CHECK(s.code() == absl::StatusCode::kFailedPrecondition);
+  CHECK(std::string(s.message()).find("[outputs] (was 'horizons = 1,5,20', now 'horizons = 1,10')") !=
+        std::string::npos);
+
+  EngineConfig window = config;
+  window.refit.window = 300;
+  const absl::Status w = CheckCheckpointConfig(*cp, window);
+  CHECK(std::string(w.message()).find("[refit] (was 'window = 200', now 'window = 300')") !=
+        std::string::npos);
+  Engine c(window);
+  CHECK(!RestoreEngineState(*cp, window, c.core.get(), c.services.get()).ok());
+  CHECK(c.core->num_symbols() == 0);
+}
+
+}  // namespace
+}  // namespace aftershock
