@@ -42,6 +42,7 @@
 
 #include <memory>
 #include <string>
+#include <vector>
 
 #include "absl/status/status.h"
 #include "absl/status/statusor.h"
@@ -49,6 +50,7 @@
 #include "aftershock/engine_config.h"
 #include "aftershock/ingest_core.h"
 #include "aftershock/model_registry.h"
+#include "aftershock/model_store.h"
 #include "aftershock/refit.h"
 #include "aftershock/state_codec.h"
 
@@ -74,6 +76,13 @@ struct ServiceOptions {
   ServiceListener* listener = nullptr;
   // Overrides [refit] workers when > 0.
   int workers = 0;
+  // Stored models (model_store.h; --initial-models): each listed symbol starts
+  // on its model, at the model's unconditional variance, with its version and
+  // no warm-up flag, instead of the EWMA warm-up (or [model.params], which
+  // keeps applying to the symbols not listed); with refits on it is seeded
+  // into the coordinator (RefitCoordinator::Seed). Leave empty when the state
+  // is restored from a checkpoint (a restore wins). Default: none.
+  std::vector<StoredModel> initial_models;
 };
 
 class EngineServices {
@@ -92,6 +101,10 @@ class EngineServices {
   virtual RefitStats refit_stats() const = 0;
   // Alert counters by kind and severity. Ingest thread.
   virtual const AlertCounters& alert_counters() const = 0;
+  // The refit coordinator's version in force for the core's symbol `index`
+  // (fit details: std errors, log-likelihood, fitted bar), or null when refits
+  // are off or the index is unknown. Ingest thread.
+  virtual ModelVersionPtr model_version(int index) const = 0;
   // Flushes the alerts file. Ingest thread (or after the engine stopped).
   virtual absl::Status Flush() = 0;
 

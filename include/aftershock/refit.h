@@ -192,6 +192,19 @@ class RefitCoordinator {
   // REQUIRES: id registered.
   void RecordSkipped(uint32_t id, double r, int32_t tag);
 
+  // Starts symbol `id` on a stored model (model_store.h, --initial-models)
+  // instead of the EWMA warm-up: `version` becomes the version in force (flags
+  // 0) and the warm start and specification of the next refit; it counts as
+  // the symbol's first fit (the next refit is a warm-started re-estimation; a
+  // re-identification comes every reidentify_every refits from it, or after a
+  // failed gate), and later versions number after version->version. The schedule is unchanged (the first refit
+  // is still due at min_bars). The caller swaps the same model into the core
+  // (IngestCore::SwapModel). Not a per-bar call; deterministic.
+  // REQUIRES: id registered, no return seen for it, no job pending;
+  // version->version >= 1 and an estimated (non-EWMA) model. InvalidArgument
+  // or FailedPrecondition otherwise (nothing changed).
+  absl::Status Seed(uint32_t id, ModelVersionPtr version);
+
   // The record of the latest applied job (valid until the next OnBar that
   // applies one).
   const RefitRecord& last_record() const { return last_record_; }

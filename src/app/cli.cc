@@ -18,6 +18,8 @@ constexpr Command kCommands[] = {
     {"run", "run the streaming engine (ZeroMQ ticks in, per-bar updates out)", RunCommand},
     {"replay", "replay a tick file through the engine, deterministically, to JSON Lines",
      ReplayCommand},
+    {"models", "list, show or export the fitted models of a checkpoint or a model file",
+     ModelsCommand},
     {"demo", "run the embedded default end to end (no input needed)", DemoCommand},
     {"simulate", "synthetic market of invented instruments to a tick CSV or a ZeroMQ feed",
      SimulateCommand},

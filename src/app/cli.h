@@ -15,6 +15,7 @@ int SimulateCommand(int argc, char** argv);  // simulate_command.cc
 int WatchCommand(int argc, char** argv);     // watch_command.cc
 int RunCommand(int argc, char** argv);       // run_command.cc
 int ReplayCommand(int argc, char** argv);    // replay_command.cc
+int ModelsCommand(int argc, char** argv);    // models_command.cc
 
 }  // namespace aftershock::app
 

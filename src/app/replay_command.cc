@@ -18,6 +18,7 @@
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
+#include "aftershock/model_store.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/update_sink.h"
 #include "app/args.h"
@@ -59,6 +60,11 @@ int ReplayCommand(int argc, char** argv) {
       "contradict each other or the input: annualization against the bar interval, min_bars\n"
       "longer than the input or a session, refits off, a feed encoding no producer uses,\n"
       "most ticks rejected, no symbol with a fitted model (see `aftershock run --check`).\n\n"
+      "--initial-models FILE starts each symbol listed in a model file (e.g. yesterday's\n"
+      "--models output, or `aftershock models export`) on its last swapped model, with its\n"
+      "version, instead of the EWMA warm-up; refits continue from it. Other symbols start as\n"
+      "usual ([model.params] or the warm-up). With --resume the checkpoint wins and the file\n"
+      "is not read.\n\n"
       "--report writes a self-contained HTML evaluation (forecast losses, VaR backtests,\n"
       "alerts, parameter history, charts); --summary-json the same statistics as JSON.\n\n"
       "Example:\n  aftershock replay --config config/default.toml --input ticks.csv "
@@ -80,6 +86,9 @@ int ReplayCommand(int argc, char** argv) {
   args.AddOption("checkpoint", "FILE",
                  "write the state at the end of the input (open bars are not closed)");
   args.AddOption("resume", "FILE", "start from the state in a checkpoint written by --checkpoint");
+  args.AddOption("initial-models", "FILE",
+                 "start the symbols of a model file (as --models writes it; the last swapped "
+                 "record of each symbol) on their models instead of the warm-up");
   args.AddFlag("quiet", "no progress and no summary on standard error");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
   if (args.HelpRequested()) {
@@ -128,6 +137,23 @@ int ReplayCommand(int argc, char** argv) {
       return Fail(absl::InvalidArgumentError("--workers must be an integer in 1..64"), 2);
     }
     so.workers = static_cast<int>(*w);
+  }
+  if (args.Has("initial-models")) {
+    if (args.Has("resume")) {
+      if (!args.Flag("quiet")) {
+        std::fprintf(stderr, "replay: note: --resume restores every symbol's model; "
+                             "--initial-models is not used\n");
+      }
+    } else {
+      const std::string path = args.Get("initial-models");
+      auto models = ReadModelRecordsFile(path);
+      if (!models.ok()) return Fail(models.status(), 2);
+      if (absl::Status s = CheckStoredModels(*models, config->outputs.ToOutputOptions(), path);
+          !s.ok()) {
+        return Fail(s, 2);
+      }
+      so.initial_models = *std::move(models);
+    }
   }
   auto services = EngineServices::Attach(core->get(), *config, so);
   if (!services.ok()) return Fail(services.status(), 2);

@@ -12,6 +12,7 @@
 #include "aftershock/engine.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
+#include "aftershock/model_store.h"
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/engine_report.h"
@@ -35,6 +36,8 @@ int RunCommand(int argc, char** argv) {
       "[checkpoint] every_seconds (in the background) and at shutdown, and restored on\n"
       "start when the file exists; --fresh starts without it. A file that cannot be used\n"
       "(corrupt, truncated, other format or configuration) is an error (exit 2).\n"
+      "--initial-models FILE starts each symbol listed in a model file on its last swapped\n"
+      "model and version instead of the EWMA warm-up (a restored checkpoint wins).\n"
       "Outputs are statistical estimates, not advice.\n\n"
       "Example:\n  aftershock run --config config/default.toml");
   args.AddOption("config", "FILE", "engine configuration (TOML; see config/default.toml)", "",
@@ -43,6 +46,9 @@ int RunCommand(int argc, char** argv) {
                "validate the configuration, print a summary and warnings about settings that "
                "contradict each other, then exit (0 ok, 2 bad)");
   args.AddOption("alerts", "FILE", "also write alerts as JSON Lines (they are published on a.*)");
+  args.AddOption("initial-models", "FILE",
+                 "start the symbols of a model file (as `replay --models` writes it) on their "
+                 "models instead of the warm-up; not used when a checkpoint is restored");
   args.AddFlag("fresh", "ignore an existing [checkpoint] file: start every symbol afresh "
                         "(the file is overwritten by the next checkpoint)");
   if (auto s = args.Parse(argc, argv); !s.ok()) return Fail(s, 2);
@@ -80,13 +86,32 @@ int RunCommand(int argc, char** argv) {
   ServiceOptions so;
   so.mode = RefitMode::kLive;
   so.alerts_path = args.Get("alerts");
+  const std::string& cp_path = config->checkpoint.path;
+  // Read before the services are attached: a restore wins over --initial-models.
+  absl::StatusOr<Checkpoint> cp = absl::NotFoundError("no checkpoint");
+  if (!cp_path.empty() && !args.Flag("fresh")) cp = ReadCheckpointFile(cp_path);
+  if (args.Has("initial-models")) {
+    if (cp.ok()) {
+      std::fprintf(stderr, "aftershock run: note: the checkpoint %s restores every symbol's "
+                           "model; --initial-models is not used\n", cp_path.c_str());
+    } else {
+      const std::string path = args.Get("initial-models");
+      auto models = ReadModelRecordsFile(path);
+      if (!models.ok()) return Fail(models.status(), 2);
+      if (absl::Status s = CheckStoredModels(*models, config->outputs.ToOutputOptions(), path);
+          !s.ok()) {
+        return Fail(s, 2);
+      }
+      std::fprintf(stderr, "aftershock run: %zu symbols start on the models of %s\n",
+                   models->size(), path.c_str());
+      so.initial_models = *std::move(models);
+    }
+  }
   auto services = EngineServices::Attach((*engine)->core(), *config, so);
   if (!services.ok()) return Fail(services.status(), 2);
   std::unique_ptr<Checkpointer> checkpointer;
-  const std::string& cp_path = config->checkpoint.path;
   if (!cp_path.empty()) {
     if (!args.Flag("fresh")) {
-      absl::StatusOr<Checkpoint> cp = ReadCheckpointFile(cp_path);
       if (cp.ok()) {
         if (absl::Status s =
                 RestoreEngineState(*cp, *config, (*engine)->core(), services->get());

@@ -203,6 +203,27 @@ uint32_t RefitCoordinator::flags(uint32_t id) const {
   return 0;
 }
 
+absl::Status RefitCoordinator::Seed(uint32_t id, ModelVersionPtr version) {
+  if (id >= symbols_.size()) {
+    return absl::InvalidArgumentError(absl::StrCat("Seed: no symbol with id ", id));
+  }
+  if (version == nullptr || version->version < 1 || version->model.is_ewma()) {
+    return absl::InvalidArgumentError("Seed: needs an estimated model with a version >= 1");
+  }
+  SymbolSlot& s = symbols_[id];
+  if (s.window.total() != 0 || s.pending >= 0 || s.fits != 0) {
+    return absl::FailedPreconditionError(
+        absl::StrCat("Seed: symbol ", s.name, " has already seen returns"));
+  }
+  s.current = version;
+  s.last_estimated = std::move(version);
+  s.last_version = s.current->version;
+  // The stored model counts as the symbol's first fit: the next refit is a
+  // warm-started re-estimation, not the identification of a first fit.
+  s.fits = 1;
+  return absl::OkStatus();
+}
+
 void RefitCoordinator::RecordSkipped(uint32_t id, double r, int32_t tag) {
   symbols_[id].window.Push(r, tag);
 }

@@ -7,6 +7,7 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
+#include "absl/container/flat_hash_map.h"
 #include "aftershock/pipeline_refitter.h"
 
 namespace aftershock {
@@ -103,12 +104,37 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       }
     }
     json_.reserve(1024);
+    // Stored models (--initial-models): compiled once here, so a record the
+    // filter refuses is an error before any input, naming the symbol.
+    const OutputOptions outputs = config_.outputs.ToOutputOptions();
+    for (const StoredModel& m : options_.initial_models) {
+      auto model = FilterModel::Create(m.params, outputs, m.version);
+      if (!model.ok()) {
+        return absl::InvalidArgumentError(absl::StrCat("initial model of symbol ", m.symbol,
+                                                       m.line > 0 ? absl::StrCat(" (line ", m.line, ")") : "",
+                                                       ": ", model.status().message()));
+      }
+      auto v = std::make_shared<ModelVersion>();
+      v->version = m.version;
+      v->model = *std::move(model);
+      v->std_errors = m.std_errors;
+      v->loglik = m.loglik;
+      v->fitted_bar = std::max<int64_t>(m.scheduled_bar, 0);
+      initial_[m.symbol] = std::move(v);
+    }
     return absl::OkStatus();
   }
 
   // ---- EngineServices ----
   bool refit_enabled() const override { return refit_ != nullptr; }
   RefitStats refit_stats() const override { return refit_ ? refit_->stats() : RefitStats{}; }
+  ModelVersionPtr model_version(int index) const override {
+    if (!refit_ || index < 0 || index >= static_cast<int>(symbols_.size()) ||
+        symbols_[index].refit_id < 0) {
+      return nullptr;
+    }
+    return refit_->current(static_cast<uint32_t>(symbols_[index].refit_id));
+  }
   const AlertCounters& alert_counters() const override {
     combined_ = alerts_->counters();
     for (const auto& g : group_alerts_) {
@@ -331,6 +357,22 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       auto w = RollingWindow::Create(config_.refit.window, /*with_tags=*/true);
       if (w.ok()) p.seasonal_window = *std::move(w);
     }
+    // A stored model starts the symbol instead of the warm-up (never during a
+    // restore: the command passes no initial models then).
+    if (initial_.empty()) return;
+    auto it = initial_.find(symbol);
+    if (it == initial_.end()) return;
+    const ModelVersionPtr& v = it->second;
+    if (refit_ && p.refit_id >= 0 &&
+        !refit_->Seed(static_cast<uint32_t>(p.refit_id), v).ok()) {
+      ++swap_errors_;
+      return;
+    }
+    ModelSwap swap;
+    swap.model = std::shared_ptr<const FilterModel>(v, &v->model);
+    swap.start = ModelSwap::Start::kRestart;  // at the model's unconditional variance
+    swap.status_flags = 0;
+    if (!core->SwapModel(index, swap).ok()) ++swap_errors_;
   }
 
   // ---- Seasonality without refits: the profile is re-estimated from the
@@ -516,6 +558,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   int64_t session_open_ns_ = std::numeric_limits<int64_t>::min();  // of the last check
   int64_t feed_first_ns_ = -1;  // first tick of any symbol in that session; -1 none yet
   uint64_t swap_errors_ = 0;
+  // Stored models by symbol (ServiceOptions::initial_models), compiled.
+  absl::flat_hash_map<std::string, ModelVersionPtr> initial_;
   bool seasonal_ = false;
   std::unique_ptr<SeasonalPool> pool_;  // seasonality without refits
   std::vector<double> seasonal_r_;      // estimation buffers (session starts only)
