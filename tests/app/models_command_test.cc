@@ -331,5 +331,30 @@ TEST_CASE("model store errors exit 2 with the file, line and problem", "[app][mo
   }
 }
 
+TEST_CASE("run --initial-models: a bad file is exit 2, a good one seeds the symbols",
+          "[app][models][run]") {
+  const Fixture& f = Day();
+  REQUIRE(f.last.size() == 3);
+  // No input arrives: the run only gets as far as reading the file.
+  const std::string cfg = WriteFile(
+      f.dir + "/run.toml",
+      "[feed]\nendpoints = [\"tcp://127.0.0.1:1\"]\n[publish]\nendpoint = "
+      "\"tcp://127.0.0.1:*\"\n[http]\nenabled = false\n");
+  nlohmann::json j = f.last.at("WREN.C");
+  j["spec"] = "constant-mean-GARCH(1,x)-normal";
+  const std::string bad = WriteFile(f.dir + "/bad_run.jsonl", j.dump() + "\n");
+  const auto r = RunCli({"run", "--config", cfg, "--initial-models", bad});
+  CHECK(r.exit_code == 2);
+  CHECK(r.err.find(bad + ":1: symbol WREN.C: 'constant-mean-GARCH(1,x)-normal' is not a model "
+                         "label") != std::string::npos);
+  // A good file: the run starts (stopped by SIGTERM from timeout(1) after 2 s).
+  const auto ok = testing::RunCommand(
+      {"/usr/bin/timeout", "-s", "TERM", "2", AFTERSHOCK_CLI, "run", "--config", cfg,
+       "--initial-models", f.models});
+  INFO(ok.err);
+  CHECK(ok.err.find("aftershock run: 3 symbols start on the models of " + f.models) !=
+        std::string::npos);
+}
+
 }  // namespace
 }  // namespace aftershock
