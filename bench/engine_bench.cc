@@ -547,13 +547,27 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
     if (got < expect) std::printf("  (pre-fill incomplete: %llu of %llu updates)\n",
                                   static_cast<unsigned long long>(got),
                                   static_cast<unsigned long long>(expect));
+    // Drain the pre-fill's output (alerts count as messages above, so updates
+    // may still be under way): 500 ms without a message.
+    {
+      zmq::message_t m;
+      auto quiet = std::chrono::steady_clock::now();
+      while (std::chrono::steady_clock::now() - quiet < std::chrono::milliseconds(500)) {
+        zmq::pollitem_t it{rig.sub.handle(), 0, ZMQ_POLLIN, 0};
+        if (zmq::poll(&it, 1, std::chrono::milliseconds(50)) <= 0) continue;
+        while (rig.sub.recv(m, zmq::recv_flags::dontwait)) {
+        }
+        quiet = std::chrono::steady_clock::now();
+      }
+    }
     const auto lat = rig.Latency(rate, seconds, enc, true, symbols);
     auto* mid = static_cast<EngineMiddle*>(rig.mid.get());
     std::string extra = "no checkpoints";
     if (mid->checkpointer != nullptr) {
       const CheckpointStats st = mid->checkpointer->stats();
       extra = absl::StrCat("checkpoints every ", every_seconds, " s: ", st.writes, " written, ",
-                           st.skipped, " skipped, ", st.last_bytes, " bytes, write ",
+                           st.skipped, " skipped, ", st.last_bytes, " bytes, capture ",
+                           st.last_capture_seconds * 1e3, " ms, write ",
                            st.last_write_seconds * 1e3, " ms");
     }
     std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; %s)\n",

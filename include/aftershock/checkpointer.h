@@ -13,7 +13,8 @@
 //
 // Metrics (MetricsSource): aftershock_checkpoint_writes_total,
 // _failures_total, _skipped_total, _last_size_bytes, _last_write_seconds and
-// _age_seconds (since the last successful write's snapshot; -1 before one).
+// _age_seconds (since the last successful write's snapshot; -1 before one),
+// _last_capture_seconds (the pause the last snapshot cost the ingest thread).
 // /health (MetricsSource::AppendHealthJson) adds
 //   "restored":{"symbols":N,"age_seconds":X,"file":"..."} (null: a fresh start)
 //   "checkpoint":{"file":"...","writes":N,"failures":N,"age_seconds":X}
@@ -68,6 +69,7 @@ struct CheckpointStats {
   uint64_t skipped = 0;             // snapshots due while a write was in flight
   uint64_t last_bytes = 0;          // size of the last file written
   double last_write_seconds = 0;    // serialize + write time of the last file
+  double last_capture_seconds = 0;  // ingest-thread capture time of the last snapshot
   int64_t last_snapshot_ns = 0;     // clock time of the last written snapshot; 0 none
 };
 

@@ -79,10 +79,14 @@ void Checkpointer::OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {
   }
   // The capture is the only cost on the ingest thread: it encodes the state
   // into memory; the checksums and the disk are the writer's.
+  const auto t0 = std::chrono::steady_clock::now();
   EngineSnapshot snap = CaptureEngineState(*core_, services_, now);
+  const double capture =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   {
     std::lock_guard<std::mutex> lock(mu_);
     queued_ = std::move(snap);
+    stats_.last_capture_seconds = capture;
   }
   cv_.notify_all();
 }
@@ -170,6 +174,10 @@ void Checkpointer::AppendPrometheus(std::string* o) const {
       "checkpoint.\n# TYPE aftershock_checkpoint_last_write_seconds gauge\n"
       "aftershock_checkpoint_last_write_seconds ",
       s.last_write_seconds,
+      "\n# HELP aftershock_checkpoint_last_capture_seconds Ingest-thread time of the last "
+      "snapshot.\n# TYPE aftershock_checkpoint_last_capture_seconds gauge\n"
+      "aftershock_checkpoint_last_capture_seconds ",
+      s.last_capture_seconds,
       "\n# HELP aftershock_checkpoint_age_seconds Age of the state in the last checkpoint "
       "written (-1: none yet).\n# TYPE aftershock_checkpoint_age_seconds gauge\n"
       "aftershock_checkpoint_age_seconds ",
