@@ -224,8 +224,7 @@ struct EngineMiddle : Middle {
       CheckpointerOptions co;
       co.path = x.checkpoint_path;
       co.every_seconds = x.every_seconds;
-      checkpointer =
-          *Checkpointer::Create(co, c, engine->core(), services.get(), SystemClock());
+      checkpointer = *Checkpointer::Create(co, c, engine->core(), services.get(), SystemClock());
       engine->core()->AddObserver(checkpointer.get());
     }
     th = std::thread([this] { (void)engine->Run(); });
@@ -240,7 +239,7 @@ struct EngineMiddle : Middle {
   }
   std::unique_ptr<ZmqTransport> transport;
   std::unique_ptr<Engine> engine;
-  std::unique_ptr<EngineServices> services;     // after engine: destroyed first
+  std::unique_ptr<EngineServices> services;    // after engine: destroyed first
   std::unique_ptr<Checkpointer> checkpointer;  // after services: destroyed first
   std::thread th;
 };
@@ -544,9 +543,9 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
     uint64_t got = 0;
     const uint64_t expect = static_cast<uint64_t>(symbols) * (per_symbol - 10);
     rig.Throughput(fill, expect, &got);
-    if (got < expect) std::printf("  (pre-fill incomplete: %llu of %llu updates)\n",
-                                  static_cast<unsigned long long>(got),
-                                  static_cast<unsigned long long>(expect));
+    if (got < expect)
+      std::printf("  (pre-fill incomplete: %llu of %llu updates)\n",
+                  static_cast<unsigned long long>(got), static_cast<unsigned long long>(expect));
     // Drain the pre-fill's output (alerts count as messages above, so updates
     // may still be under way): 500 ms without a message.
     {

@@ -22,8 +22,9 @@
 // written (null before the first) and restored.age_seconds the age of the
 // restored file's state when it was read.
 //
-// Thread-safety: OnClock, WriteNow and AppendPrometheus on the ingest thread
-// (or after the engine stopped); stats() from any thread. The core and the
+// Thread-safety: OnClock, WriteNow, SetRestored, AppendPrometheus and
+// AppendHealthJson on the ingest thread (or before the engine runs / after it
+// stopped); stats() from any thread. The core and the
 // services must outlive the checkpointer; the destructor waits for the write
 // in flight and joins the writer.
 #ifndef AFTERSHOCK_CHECKPOINTER_H_

@@ -56,7 +56,7 @@
 namespace aftershock {
 namespace {
 
-using Clock_ = std::chrono::steady_clock;
+using SteadyClock = std::chrono::steady_clock;
 
 // Kills; the whole test takes about 30 s on the 2-core machine.
 constexpr int kKills = 20;
@@ -115,8 +115,8 @@ struct Seen {
 struct Saved {
   uint64_t updates = 0;  // updates published up to the snapshot
   uint32_t version = 0;
-  bool fitted = false;   // own or group model in force (no warmup, no fallback)
-  bool pooled = false;   // the group model stands in
+  bool fitted = false;  // own or group model in force (no warmup, no fallback)
+  bool pooled = false;  // the group model stands in
 };
 
 // The feed: an XPUB bound on loopback, sending a batch of one price tick per
@@ -158,7 +158,7 @@ class Feed {
   void Loop() {
     std::mt19937_64 rng(5);
     std::normal_distribution<double> noise(0.0, 0.002);
-    auto next = Clock_::now();
+    auto next = SteadyClock::now();
     while (!stop_.load()) {
       zmq::message_t m;
       while (sock_.recv(m, zmq::recv_flags::dontwait)) {
@@ -166,7 +166,7 @@ class Feed {
       }
       if (paused_.load()) {
         std::this_thread::sleep_for(std::chrono::milliseconds(1));
-        next = Clock_::now();
+        next = SteadyClock::now();
         continue;
       }
       std::this_thread::sleep_until(next);
@@ -214,14 +214,12 @@ class Feed {
 // run they belong to (set by the test between runs, when no engine runs).
 class Listener {
  public:
-  Listener(zmq::context_t* ctx, const std::string& endpoint)
-      : sock_(*ctx, zmq::socket_type::sub) {
+  Listener(zmq::context_t* ctx, const std::string& endpoint) : sock_(*ctx, zmq::socket_type::sub) {
     sock_.set(zmq::sockopt::linger, 0);
     sock_.set(zmq::sockopt::reconnect_ivl, 10);
     sock_.set(zmq::sockopt::rcvtimeo, 20);
     sock_.set(zmq::sockopt::subscribe, "");
-    zmq_socket_monitor(sock_.handle(), "inproc://kill-test-monitor",
-                       ZMQ_EVENT_HANDSHAKE_SUCCEEDED);
+    zmq_socket_monitor(sock_.handle(), "inproc://kill-test-monitor", ZMQ_EVENT_HANDSHAKE_SUCCEEDED);
     monitor_ = zmq::socket_t(*ctx, zmq::socket_type::pair);
     monitor_.set(zmq::sockopt::rcvtimeo, 0);
     monitor_.connect("inproc://kill-test-monitor");
@@ -236,8 +234,8 @@ class Listener {
   int handshakes() const { return handshakes_.load(); }
   // Wall time since the last message (for draining after a kill).
   double quiet_seconds() const {
-    return std::chrono::duration<double>(Clock_::now() - Clock_::time_point(Clock_::duration(
-                                                             last_ns_.load())))
+    return std::chrono::duration<double>(
+               SteadyClock::now() - SteadyClock::time_point(SteadyClock::duration(last_ns_.load())))
         .count();
   }
   struct Message {
@@ -253,7 +251,7 @@ class Listener {
 
  private:
   void Loop() {
-    last_ns_.store(Clock_::now().time_since_epoch().count());
+    last_ns_.store(SteadyClock::now().time_since_epoch().count());
     while (!stop_.load()) {
       zmq::message_t ev;
       while (monitor_.recv(ev, zmq::recv_flags::dontwait)) {
@@ -265,7 +263,7 @@ class Listener {
       }
       std::vector<zmq::message_t> parts;
       if (!zmq::recv_multipart(sock_, std::back_inserter(parts))) continue;
-      last_ns_.store(Clock_::now().time_since_epoch().count());
+      last_ns_.store(SteadyClock::now().time_since_epoch().count());
       if (parts.size() != 2) continue;
       std::lock_guard<std::mutex> lock(mu_);
       messages_.push_back({run_.load(), parts[0].to_string(), parts[1].to_string()});
@@ -313,9 +311,9 @@ std::map<std::string, Saved> Inspect(const Checkpoint& cp, const EngineConfig& c
 // Waits (up to 20 s) for `pred`, sleeping 5 ms between tries.
 template <typename Pred>
 bool WaitFor(Pred pred) {
-  const auto deadline = Clock_::now() + std::chrono::seconds(20);
+  const auto deadline = SteadyClock::now() + std::chrono::seconds(20);
   while (!pred()) {
-    if (Clock_::now() > deadline) return false;
+    if (SteadyClock::now() > deadline) return false;
     std::this_thread::sleep_for(std::chrono::milliseconds(5));
   }
   return true;

@@ -79,8 +79,8 @@ int Main(int argc, char** argv) {
           for (size_t c = 0; c < captures.size(); ++c) {
             if (n != captures[c]) continue;
             const EngineSnapshot snap = CaptureEngineState(**core, services->get(), 1);
-            const std::string raw = fuzz::RawStateInput(static_cast<uint32_t>(snap.symbols),
-                                                        snap.core, snap.services);
+            const std::string raw =
+                fuzz::RawStateInput(static_cast<uint32_t>(snap.symbols), snap.core, snap.services);
             if (!WriteBytes(absl::StrCat(dir, "/raw_", n, ".bin"), raw)) return 1;
             ++written;
             if (c % 2 == 1) {  // some as whole files

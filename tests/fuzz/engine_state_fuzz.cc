@@ -86,8 +86,8 @@ extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {
     return 0;
   }
   Fresh a;
-  const absl::Status s = aftershock::RestoreEngineState(*cp, Config(), a.core.get(),
-                                                        a.services.get());
+  const absl::Status s =
+      aftershock::RestoreEngineState(*cp, Config(), a.core.get(), a.services.get());
   if (!s.ok()) {
     FUZZ_CHECK(!s.message().empty());
     return 0;
@@ -102,8 +102,8 @@ extern "C" int LLVMFuzzerTestOneInput(const uint8_t* data, size_t size) {
   FUZZ_CHECK(again.ok());
   {
     Fresh b;
-    FUZZ_CHECK(aftershock::RestoreEngineState(*again, Config(), b.core.get(), b.services.get())
-                   .ok());
+    FUZZ_CHECK(
+        aftershock::RestoreEngineState(*again, Config(), b.core.get(), b.services.get()).ok());
     auto bytes_b = aftershock::SerializeEngineSnapshot(
         aftershock::CaptureEngineState(*b.core, b.services.get(), 1), Config());
     FUZZ_CHECK(bytes_b.ok() && *bytes_b == *bytes);

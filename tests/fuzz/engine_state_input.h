@@ -52,7 +52,8 @@ inline void PutU32(uint32_t v, std::string* out) {
 
 inline uint32_t GetU32(absl::string_view in) {
   uint32_t v = 0;
-  for (int i = 0; i < 4; ++i) v |= static_cast<uint32_t>(static_cast<unsigned char>(in[i])) << (8 * i);
+  for (int i = 0; i < 4; ++i)
+    v |= static_cast<uint32_t>(static_cast<unsigned char>(in[i])) << (8 * i);
   return v;
 }
 
