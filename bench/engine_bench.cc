@@ -10,7 +10,9 @@
 //   * replay speed: the ingest core alone on pre-parsed ticks, output encoded
 //     and handed to a discarding sink, one core; and the full CSV path.
 // Binary encoding carries the targets; JSON is reported beside it.
-// Usage: engine_bench [--quick] [--replay-only] [--latency-only]
+//   * (--checkpoint-latency, alone) tick->update latency for 10,000 symbols
+//     with refit services, with and without checkpoints every second.
+// Usage: engine_bench [--quick] [--replay-only] [--latency-only] | --checkpoint-latency
 #include <sys/prctl.h>
 #include <time.h>
 
@@ -20,6 +22,7 @@
 #include <chrono>
 #include <cstdio>
 #include <cstring>
+#include <filesystem>
 #include <future>
 #include <string>
 #include <thread>
@@ -27,7 +30,9 @@
 #include <zmq.hpp>
 
 #include "absl/strings/str_cat.h"
+#include "aftershock/checkpointer.h"
 #include "aftershock/engine.h"
+#include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/update_codec.h"
@@ -173,9 +178,32 @@ struct Forwarder : Middle {
   std::thread th;
 };
 
+// The live engine's extras for the checkpoint scenario: refit services (their
+// rolling windows are most of a checkpoint) and, with a path, the
+// checkpointer, attached as `aftershock run` attaches them.
+struct LiveExtras {
+  bool services = false;
+  std::string checkpoint_path;  // "" = no checkpoints
+  double every_seconds = 1;
+  int64_t max_symbols = 10000;
+};
+
+EngineConfig LiveConfig(const EngineConfig& base, const LiveExtras& x) {
+  EngineConfig c = base;
+  c.limits.max_symbols = x.max_symbols;
+  if (x.services) {
+    // Refits on (windows and schedules held and checkpointed) but never due
+    // during the run, so fits do not compete for the CPU being measured.
+    c.refit.every_bars = 1000000000;
+    c.refit.window = 200;
+    c.refit.min_bars = 150;
+  }
+  return c;
+}
+
 struct EngineMiddle : Middle {
-  EngineMiddle(const std::string& feed, WireEncoding enc) {
-    EngineConfig c = BenchConfig(enc);
+  EngineMiddle(const std::string& feed, WireEncoding enc, const LiveExtras& x = {}) {
+    EngineConfig c = LiveConfig(BenchConfig(enc), x);
     c.feed.endpoints = {feed};
     transport = *ZmqTransport::Create(1);
     ZmqSubscriberOptions so;
@@ -187,6 +215,18 @@ struct EngineMiddle : Middle {
       std::exit(1);
     }
     engine = *Engine::Create(c, *std::move(src), *std::move(sink), SystemClock());
+    if (x.services) {
+      ServiceOptions so;
+      so.mode = RefitMode::kLive;
+      services = *EngineServices::Attach(engine->core(), c, so);
+    }
+    if (!x.checkpoint_path.empty()) {
+      CheckpointerOptions co;
+      co.path = x.checkpoint_path;
+      co.every_seconds = x.every_seconds;
+      checkpointer = *Checkpointer::Create(co, c, engine->core(), services.get(), SystemClock());
+      engine->core()->AddObserver(checkpointer.get());
+    }
     th = std::thread([this] { (void)engine->Run(); });
   }
   ~EngineMiddle() override { Stop(); }
@@ -199,6 +239,8 @@ struct EngineMiddle : Middle {
   }
   std::unique_ptr<ZmqTransport> transport;
   std::unique_ptr<Engine> engine;
+  std::unique_ptr<EngineServices> services;    // after engine: destroyed first
+  std::unique_ptr<Checkpointer> checkpointer;  // after services: destroyed first
   std::thread th;
 };
 
@@ -209,12 +251,12 @@ struct Rig {
   std::string feed_ep;
   std::unique_ptr<Middle> mid;
 
-  Rig(bool engine, WireEncoding enc) {
+  Rig(bool engine, WireEncoding enc, const LiveExtras& extras = {}) {
     feed.set(zmq::sockopt::sndhwm, 0);
     feed.bind("tcp://127.0.0.1:*");
     feed_ep = feed.get(zmq::sockopt::last_endpoint);
     if (engine)
-      mid = std::make_unique<EngineMiddle>(feed_ep, enc);
+      mid = std::make_unique<EngineMiddle>(feed_ep, enc, extras);
     else
       mid = std::make_unique<Forwarder>(feed_ep);
     sub.set(zmq::sockopt::rcvhwm, 0);
@@ -272,7 +314,8 @@ struct Rig {
   }
 
   // Offers `rate` ticks/s for `seconds`; returns sorted latencies (ns).
-  std::vector<int64_t> Latency(double rate, double seconds, WireEncoding enc, bool engine) {
+  std::vector<int64_t> Latency(double rate, double seconds, WireEncoding enc, bool engine,
+                               int symbols = kSymbols) {
     const int n = static_cast<int>(rate * seconds);
     std::vector<int64_t> lat;
     lat.reserve(n);
@@ -321,7 +364,7 @@ struct Rig {
     for (int i = 0; i < n; ++i) {
       const auto due = start + std::chrono::nanoseconds(static_cast<int64_t>(i * period_ns));
       if (std::chrono::steady_clock::now() < due) std::this_thread::sleep_until(due);
-      Tick t = MakeTick(i % kSymbols, RealNs(), Ret(i));
+      Tick t = MakeTick(i % symbols, RealNs(), Ret(i));
       m.topic.assign(t.symbol.view().data(), t.symbol.size);
       if (enc == WireEncoding::kBinary)
         EncodeTickBinary(t, &m.body);
@@ -456,6 +499,88 @@ Rate ReplayCsvRate(int n) {
   return {core->counters().bars / Secs(a, b), core->counters().bars / (c1 - c0)};
 }
 
+// Ingest latency with and without periodic checkpoints (issue: p99 with
+// checkpoints every second for 10,000 symbols <= 1.5x without). The engine
+// runs with refit services (windows of 100 returns per symbol after a
+// pre-fill); the checkpointer captures on the ingest thread every
+// `every_seconds` and writes in the background. Prints both rows and the
+// p99 ratio.
+void CheckpointLatency(int symbols, double rate, double seconds, double every_seconds) {
+  const WireEncoding enc = WireEncoding::kBinary;
+  const std::string path =
+      (std::filesystem::temp_directory_path() / "aftershock_engine_bench.ckpt").string();
+  std::vector<int64_t> p99(2);
+  for (int with : {0, 1}) {
+    LiveExtras x;
+    x.services = true;
+    x.max_symbols = symbols + 1;  // the rig's probe symbol too
+    if (with) x.checkpoint_path = path;
+    x.every_seconds = every_seconds;
+    Rig rig(true, enc, x);
+    // Pre-fill: 100 returns per symbol in batches (the warm-up's first 10 per
+    // symbol publish nothing).
+    const int per_symbol = 100;
+    std::vector<Msg> fill;
+    std::vector<Tick> ticks;
+    for (int k = 0; k < per_symbol; ++k) {
+      for (int i = 0; i < symbols; ++i) {
+        ticks.push_back(MakeTick(i, kT0 + k, Ret(static_cast<uint64_t>(k) * symbols + i)));
+        if (ticks.size() == 256) {
+          Msg m;
+          m.topic = "*";
+          EncodeBatchBinary(ticks, &m.body);
+          fill.push_back(std::move(m));
+          ticks.clear();
+        }
+      }
+    }
+    if (!ticks.empty()) {
+      Msg m;
+      m.topic = "*";
+      EncodeBatchBinary(ticks, &m.body);
+      fill.push_back(std::move(m));
+    }
+    uint64_t got = 0;
+    const uint64_t expect = static_cast<uint64_t>(symbols) * (per_symbol - 10);
+    rig.Throughput(fill, expect, &got);
+    if (got < expect)
+      std::printf("  (pre-fill incomplete: %llu of %llu updates)\n",
+                  static_cast<unsigned long long>(got), static_cast<unsigned long long>(expect));
+    // Drain the pre-fill's output (alerts count as messages above, so updates
+    // may still be under way): 500 ms without a message.
+    {
+      zmq::message_t m;
+      auto quiet = std::chrono::steady_clock::now();
+      while (std::chrono::steady_clock::now() - quiet < std::chrono::milliseconds(500)) {
+        zmq::pollitem_t it{rig.sub.handle(), 0, ZMQ_POLLIN, 0};
+        if (zmq::poll(&it, 1, std::chrono::milliseconds(50)) <= 0) continue;
+        while (rig.sub.recv(m, zmq::recv_flags::dontwait)) {
+        }
+        quiet = std::chrono::steady_clock::now();
+      }
+    }
+    const auto lat = rig.Latency(rate, seconds, enc, true, symbols);
+    auto* mid = static_cast<EngineMiddle*>(rig.mid.get());
+    std::string extra = "no checkpoints";
+    if (mid->checkpointer != nullptr) {
+      const CheckpointStats st = mid->checkpointer->stats();
+      extra = absl::StrCat("checkpoints every ", every_seconds, " s: ", st.writes, " written, ",
+                           st.skipped, " skipped, ", st.last_bytes, " bytes, capture ",
+                           st.last_capture_seconds * 1e3, " ms, write ",
+                           st.last_write_seconds * 1e3, " ms");
+    }
+    std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; %s)\n",
+                absl::StrCat("engine latency, ", symbols, " symbols, ",
+                             with ? "checkpoints" : "no checkpoints")
+                    .c_str(),
+                rate, Pct(lat, 0.5), Pct(lat, 0.99), Pct(lat, 0.999), lat.size(), extra.c_str());
+    p99[with] = lat.empty() ? -1 : lat[std::min(lat.size() - 1, lat.size() * 99 / 100)];
+  }
+  std::remove(path.c_str());
+  std::printf("p99 with / without checkpoints: %.2f (target <= 1.5)\n",
+              p99[0] > 0 ? static_cast<double>(p99[1]) / static_cast<double>(p99[0]) : -1.0);
+}
+
 }  // namespace
 }  // namespace aftershock
 
@@ -463,6 +588,14 @@ int main(int argc, char** argv) {
   using namespace aftershock;
   bool quick = false, replay_only = false, latency_only = false;
   for (int i = 1; i < argc; ++i) {
+    if (std::strcmp(argv[i], "--checkpoint-latency") == 0) {
+      // Only the checkpoint scenario: 10,000 symbols, 50k ticks/s for 6 s
+      // (6 checkpoints), with and without.
+      std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us",
+                  "p99.9 us");
+      CheckpointLatency(10000, 50000, 6.0, 1.0);
+      return 0;
+    }
     if (std::strcmp(argv[i], "--quick") == 0) quick = true;
     if (std::strcmp(argv[i], "--replay-only") == 0) replay_only = true;
     if (std::strcmp(argv[i], "--latency-only") == 0) latency_only = true;

@@ -13,10 +13,18 @@
 //
 // Metrics (MetricsSource): aftershock_checkpoint_writes_total,
 // _failures_total, _skipped_total, _last_size_bytes, _last_write_seconds and
-// _age_seconds (since the last successful write's snapshot; -1 before one).
+// _age_seconds (since the last successful write's snapshot; -1 before one),
+// _last_capture_seconds (the pause the last snapshot cost the ingest thread).
+// /health (MetricsSource::AppendHealthJson) adds
+//   "restored":{"symbols":N,"age_seconds":X,"file":"..."} (null: a fresh start)
+//   "checkpoint":{"file":"...","writes":N,"failures":N,"age_seconds":X}
+// where checkpoint.age_seconds is the age of the state in the last file
+// written (null before the first) and restored.age_seconds the age of the
+// restored file's state when it was read.
 //
-// Thread-safety: OnClock, WriteNow and AppendPrometheus on the ingest thread
-// (or after the engine stopped); stats() from any thread. The core and the
+// Thread-safety: OnClock, WriteNow, SetRestored, AppendPrometheus and
+// AppendHealthJson on the ingest thread (or before the engine runs / after it
+// stopped); stats() from any thread. The core and the
 // services must outlive the checkpointer; the destructor waits for the write
 // in flight and joins the writer.
 #ifndef AFTERSHOCK_CHECKPOINTER_H_
@@ -48,6 +56,13 @@ struct CheckpointerOptions {
   double every_seconds = 60;
 };
 
+// What the engine restored from at start (for /health). Plain value.
+struct CheckpointRestore {
+  int symbols = 0;         // symbols restored
+  double age_seconds = 0;  // age of the file's state when it was read, s
+  std::string file;        // the file read
+};
+
 // Counters of the checkpoints written. Plain value.
 struct CheckpointStats {
   uint64_t writes = 0;              // files written successfully
@@ -55,6 +70,7 @@ struct CheckpointStats {
   uint64_t skipped = 0;             // snapshots due while a write was in flight
   uint64_t last_bytes = 0;          // size of the last file written
   double last_write_seconds = 0;    // serialize + write time of the last file
+  double last_capture_seconds = 0;  // ingest-thread capture time of the last snapshot
   int64_t last_snapshot_ns = 0;     // clock time of the last written snapshot; 0 none
 };
 
@@ -79,12 +95,18 @@ class Checkpointer : public BarObserver, public MetricsSource {
   // The write's error, if any.
   absl::Status WriteNow();
 
+  // Records the restore this engine started from, shown by /health (without
+  // it /health says "restored":null). Before the engine runs, or on the
+  // ingest thread.
+  void SetRestored(const CheckpointRestore& restored) { restored_ = restored; }
+
   CheckpointStats stats() const;
   // The error of the last failed write ("" none).
   std::string last_error() const;
 
   // MetricsSource.
   void AppendPrometheus(std::string* out) const override;
+  void AppendHealthJson(std::string* out) const override;
 
  private:
   Checkpointer(const CheckpointerOptions& options, const EngineConfig& config,
@@ -101,6 +123,7 @@ class Checkpointer : public BarObserver, public MetricsSource {
   const int64_t period_ns_;
   // ---- ingest thread ----
   int64_t next_due_ns_ = 0;
+  std::optional<CheckpointRestore> restored_;
   // ---- guarded by mu_ ----
   mutable std::mutex mu_;
   std::condition_variable cv_;

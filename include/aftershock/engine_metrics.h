@@ -54,7 +54,8 @@ struct HealthStatus {
   bool degraded = false;
   std::string reason;  // "" when ok; e.g. "97% of inputs rejected in the last minute (...)"
   // {"status":"ok"|"degraded","symbols":N,"updates":N,"rejects":N,
-  //  "recent_inputs":N,"recent_rejects":N[,"reason":"..."]} and a newline;
+  //  "recent_inputs":N,"recent_rejects":N[,"reason":"..."]
+  //  [, the members of each MetricsSource::AppendHealthJson]} and a newline;
   // rejects counts since start, recent_* the last minute.
   std::string json;
 };

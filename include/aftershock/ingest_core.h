@@ -128,6 +128,10 @@ class MetricsSource {
  public:
   virtual ~MetricsSource() = default;
   virtual void AppendPrometheus(std::string* out) const = 0;
+  // More members of the /health JSON object, each written as `,"key":value`
+  // (the leading comma included), appended after the core's own members. The
+  // default adds none.
+  virtual void AppendHealthJson(std::string* /*out*/) const {}
 };
 
 // Per-bar hook. Implementations belong to one core and are called on its

@@ -1,6 +1,7 @@
 // `aftershock run`: the live engine (ZeroMQ in, ZeroMQ out) until SIGINT/SIGTERM.
 #include <cstdio>
 #include <memory>
+#include <optional>
 #include <string>
 
 #include "absl/strings/str_cat.h"
@@ -111,6 +112,7 @@ int RunCommand(int argc, char** argv) {
   if (!services.ok()) return Fail(services.status(), 2);
   std::unique_ptr<Checkpointer> checkpointer;
   if (!cp_path.empty()) {
+    std::optional<CheckpointRestore> restored;
     if (!args.Flag("fresh")) {
       if (cp.ok()) {
         if (absl::Status s =
@@ -141,6 +143,7 @@ int RunCommand(int argc, char** argv) {
                      "%d refit jobs re-submitted\n",
                      core.num_symbols(), cp_path.c_str(), age, fitted, warmup, other,
                      (*services)->refit_stats().in_flight);
+        restored = CheckpointRestore{core.num_symbols(), age, cp_path};
       } else if (absl::IsNotFound(cp.status())) {
         std::fprintf(stderr, "aftershock run: no checkpoint at %s yet; starting fresh\n",
                      cp_path.c_str());
@@ -157,6 +160,7 @@ int RunCommand(int argc, char** argv) {
     auto c = Checkpointer::Create(co, *config, (*engine)->core(), services->get(), SystemClock());
     if (!c.ok()) return Fail(c.status(), 2);
     checkpointer = *std::move(c);
+    if (restored.has_value()) checkpointer->SetRestored(*restored);
     (*engine)->core()->AddObserver(checkpointer.get());
     (*engine)->core()->AddMetricsSource(checkpointer.get());
   }

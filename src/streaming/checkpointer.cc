@@ -8,6 +8,28 @@
 #include "aftershock/checkpoint_file.h"
 
 namespace aftershock {
+namespace {
+
+// `text` as a JSON string literal (quotes, backslashes and control bytes escaped).
+std::string JsonString(absl::string_view text) {
+  std::string out = "\"";
+  for (const char c : text) {
+    const auto u = static_cast<unsigned char>(c);
+    if (c == '"' || c == '\\') {
+      out.push_back('\\');
+      out.push_back(c);
+    } else if (u < 0x20) {
+      static constexpr char kHex[] = "0123456789abcdef";
+      absl::StrAppend(&out, "\\u00", std::string(1, kHex[u >> 4]), std::string(1, kHex[u & 15]));
+    } else {
+      out.push_back(c);
+    }
+  }
+  out.push_back('"');
+  return out;
+}
+
+}  // namespace
 
 absl::StatusOr<std::unique_ptr<Checkpointer>> Checkpointer::Create(
     const CheckpointerOptions& options, const EngineConfig& config, const IngestCore* core,
@@ -57,10 +79,14 @@ void Checkpointer::OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {
   }
   // The capture is the only cost on the ingest thread: it encodes the state
   // into memory; the checksums and the disk are the writer's.
+  const auto t0 = std::chrono::steady_clock::now();
   EngineSnapshot snap = CaptureEngineState(*core_, services_, now);
+  const double capture =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   {
     std::lock_guard<std::mutex> lock(mu_);
     queued_ = std::move(snap);
+    stats_.last_capture_seconds = capture;
   }
   cv_.notify_all();
 }
@@ -148,10 +174,32 @@ void Checkpointer::AppendPrometheus(std::string* o) const {
       "checkpoint.\n# TYPE aftershock_checkpoint_last_write_seconds gauge\n"
       "aftershock_checkpoint_last_write_seconds ",
       s.last_write_seconds,
+      "\n# HELP aftershock_checkpoint_last_capture_seconds Ingest-thread time of the last "
+      "snapshot.\n# TYPE aftershock_checkpoint_last_capture_seconds gauge\n"
+      "aftershock_checkpoint_last_capture_seconds ",
+      s.last_capture_seconds,
       "\n# HELP aftershock_checkpoint_age_seconds Age of the state in the last checkpoint "
       "written (-1: none yet).\n# TYPE aftershock_checkpoint_age_seconds gauge\n"
       "aftershock_checkpoint_age_seconds ",
       age, "\n");
+}
+
+void Checkpointer::AppendHealthJson(std::string* o) const {
+  if (restored_.has_value()) {
+    absl::StrAppend(o, ",\"restored\":{\"symbols\":", restored_->symbols,
+                    ",\"age_seconds\":", restored_->age_seconds,
+                    ",\"file\":", JsonString(restored_->file), "}");
+  } else {
+    absl::StrAppend(o, ",\"restored\":null");
+  }
+  const CheckpointStats s = stats();
+  absl::StrAppend(o, ",\"checkpoint\":{\"file\":", JsonString(options_.path),
+                  ",\"writes\":", s.writes, ",\"failures\":", s.failures, ",\"age_seconds\":");
+  if (s.last_snapshot_ns > 0) {
+    absl::StrAppend(o, static_cast<double>(clock_->NowNs() - s.last_snapshot_ns) / 1e9, "}");
+  } else {
+    absl::StrAppend(o, "null}");
+  }
 }
 
 }  // namespace aftershock

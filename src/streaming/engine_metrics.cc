@@ -116,6 +116,7 @@ HealthStatus CheckHealth(const IngestCore& core, const RejectWindow& window, int
                    ",\"recent_inputs\":", inputs, ",\"recent_rejects\":", rejected);
   // The reason holds only digits, letters, '%', '(', ')', ';', '_' and spaces: no escaping.
   if (h.degraded) absl::StrAppend(&h.json, ",\"reason\":\"", h.reason, "\"");
+  for (const MetricsSource* src : core.metrics_sources()) src->AppendHealthJson(&h.json);
   absl::StrAppend(&h.json, "}\n");
   return h;
 }

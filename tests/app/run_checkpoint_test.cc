@@ -1,5 +1,6 @@
 // `aftershock run` with [checkpoint]: written at shutdown, restored on start,
-// counted in /metrics; an unusable file is exit 2 unless --fresh.
+// counted in /metrics, shown by /health; an unusable file is exit 2 unless
+// --fresh.
 #include <arpa/inet.h>
 #include <netinet/in.h>
 #include <signal.h>
@@ -15,6 +16,7 @@
 #include <thread>
 
 #include "absl/strings/str_cat.h"
+#include "nlohmann/json.hpp"
 #include "support/test_support.h"
 
 namespace aftershock {
@@ -37,6 +39,13 @@ int FreePort() {
   return ntohs(a.sin_port);
 }
 
+// The JSON body of an HTTP response ({} when there is none).
+nlohmann::json HealthBody(const std::string& response) {
+  const size_t body = response.find("\r\n\r\n");
+  if (body == std::string::npos) return nlohmann::json::object();
+  return nlohmann::json::parse(response.substr(body + 4), nullptr, /*allow_exceptions=*/false);
+}
+
 std::string Slurp(const std::string& path) {
   std::ifstream in(path);
   std::stringstream ss;
@@ -44,10 +53,12 @@ std::string Slurp(const std::string& path) {
   return ss.str();
 }
 
-// Starts `aftershock run`, waits for it to run, reads /metrics, stops it with
-// SIGTERM; returns its standard error and exit code.
+// Starts `aftershock run`, waits for it to run, reads /metrics and /health
+// (each when non-null), stops it with SIGTERM; returns its standard error and
+// exit code.
 std::pair<std::string, int> RunUntilTerm(const std::string& cfg, const std::string& err_path,
-                                         int http_port, bool fresh, std::string* metrics) {
+                                         int http_port, bool fresh, std::string* metrics,
+                                         std::string* health = nullptr) {
   const pid_t pid = fork();
   REQUIRE(pid >= 0);
   if (pid == 0) {
@@ -72,6 +83,9 @@ std::pair<std::string, int> RunUntilTerm(const std::string& cfg, const std::stri
   if (w != pid) {
     if (err.find("running:") != std::string::npos && metrics != nullptr) {
       *metrics = testing::HttpGet(http_port, "/metrics");
+    }
+    if (err.find("running:") != std::string::npos && health != nullptr) {
+      *health = testing::HttpGet(http_port, "/health");
     }
     kill(pid, SIGTERM);
     while ((w = waitpid(pid, &status, WNOHANG)) == 0 &&
@@ -98,20 +112,37 @@ TEST_CASE("run writes a checkpoint at shutdown, restores it on start, refuses a 
       absl::StrCat("[feed]\nendpoints = [\"tcp://127.0.0.1:1\"]\n[publish]\nendpoint = "
                    "\"tcp://127.0.0.1:*\"\n[http]\nendpoint = \"127.0.0.1:",
                    http_port, "\"\n[checkpoint]\npath = \"", state, "\"\nevery_seconds = 1\n"));
-  std::string metrics;
-  auto [err1, code1] = RunUntilTerm(cfg, dir + "/err1.txt", http_port, false, &metrics);
+  std::string metrics, health1;
+  auto [err1, code1] = RunUntilTerm(cfg, dir + "/err1.txt", http_port, false, &metrics, &health1);
   INFO(err1);
   CHECK(code1 == 0);
   CHECK(err1.find("no checkpoint at " + state + " yet; starting fresh") != std::string::npos);
   CHECK(err1.find("aftershock run: checkpoint " + state + " written (") != std::string::npos);
   CHECK(metrics.find("# TYPE aftershock_checkpoint_writes_total counter") != std::string::npos);
   CHECK(metrics.find("aftershock_checkpoint_failures_total 0\n") != std::string::npos);
+  // /health: a fresh start restored nothing.
+  INFO(health1);
+  const nlohmann::json h1 = HealthBody(health1);
+  CHECK(h1.at("restored").is_null());
+  CHECK(h1.at("checkpoint").at("file") == state);
+  CHECK(h1.at("checkpoint").at("failures") == 0);
 
-  auto [err2, code2] = RunUntilTerm(cfg, dir + "/err2.txt", http_port, false, nullptr);
+  std::string health2;
+  auto [err2, code2] = RunUntilTerm(cfg, dir + "/err2.txt", http_port, false, nullptr, &health2);
   INFO(err2);
   CHECK(code2 == 0);
   CHECK(err2.find("aftershock run: restored 0 symbols from " + state + ", written ") !=
         std::string::npos);
+  // /health names the restore: the file, its symbols and the age of its state
+  // (written at the first run's shutdown, so >= 0 and well under the test's
+  // 20 s deadline).
+  INFO(health2);
+  const nlohmann::json h2 = HealthBody(health2);
+  REQUIRE(h2.at("restored").is_object());
+  CHECK(h2.at("restored").at("symbols") == 0);
+  CHECK(h2.at("restored").at("file") == state);
+  CHECK(h2.at("restored").at("age_seconds").get<double>() >= 0.0);
+  CHECK(h2.at("restored").at("age_seconds").get<double>() < 60.0);
 
   // A corrupt file: exit 2 naming the problem, unless --fresh.
   std::string bytes = testing::ReadFileOrDie(state);

@@ -9,6 +9,7 @@
 #include <string>
 #include <thread>
 
+#include "absl/strings/str_cat.h"
 #include "aftershock/checkpoint_file.h"
 #include "streaming/engine_test_util.h"
 #include "support/test_support.h"
@@ -102,6 +103,21 @@ TEST_CASE("periodic checkpoints are written in the background and restore", "[st
   CHECK(metrics.find("aftershock_checkpoint_last_size_bytes " + std::to_string(s.last_bytes)) !=
         std::string::npos);
   CHECK(metrics.find("aftershock_checkpoint_age_seconds 0\n") != std::string::npos);
+  // The periodic snapshots were captured on the ingest thread and timed.
+  CHECK(s.last_capture_seconds > 0);
+  CHECK(metrics.find("# TYPE aftershock_checkpoint_last_capture_seconds gauge\n") !=
+        std::string::npos);
+  // /health members: no restore recorded yet, then the one recorded.
+  std::string health;
+  (*cp)->AppendHealthJson(&health);
+  CHECK(health == absl::StrCat(",\"restored\":null,\"checkpoint\":{\"file\":\"", o.path,
+                               "\",\"writes\":", s.writes, ",\"failures\":0,\"age_seconds\":0}"));
+  (*cp)->SetRestored({2, 1.5, "old \"state\".ckpt"});
+  health.clear();
+  (*cp)->AppendHealthJson(&health);
+  CHECK(health.rfind(",\"restored\":{\"symbols\":2,\"age_seconds\":1.5,\"file\":"
+                     "\"old \\\"state\\\".ckpt\"},\"checkpoint\":{",
+                     0) == 0);
   // The final file holds the engine as it is now.
   auto file = ReadCheckpointFile(o.path);
   REQUIRE(file.ok());
