@@ -74,6 +74,11 @@ RefitRecord ToRefitRecord(const StoredModel& model);
 absl::Status CheckStoredModels(const std::vector<StoredModel>& models,
                                const OutputOptions& outputs, absl::string_view name);
 
+// ReadModelRecordsFile then CheckStoredModels: the models `--initial-models
+// path` starts from, or the first error (file:line: symbol: problem).
+absl::StatusOr<std::vector<StoredModel>> LoadInitialModels(const std::string& path,
+                                                           const OutputOptions& outputs);
+
 // Half-life in bars of a variance shock: ln(1/2) / ln(persistence), lambda for
 // EWMA; +inf for persistence >= 1, 0 for persistence <= 0.
 double VarianceHalfLifeBars(const ModelParams& params);

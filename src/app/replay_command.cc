@@ -146,12 +146,8 @@ int ReplayCommand(int argc, char** argv) {
       }
     } else {
       const std::string path = args.Get("initial-models");
-      auto models = ReadModelRecordsFile(path);
+      auto models = LoadInitialModels(path, config->outputs.ToOutputOptions());
       if (!models.ok()) return Fail(models.status(), 2);
-      if (absl::Status s = CheckStoredModels(*models, config->outputs.ToOutputOptions(), path);
-          !s.ok()) {
-        return Fail(s, 2);
-      }
       so.initial_models = *std::move(models);
     }
   }

@@ -97,12 +97,8 @@ int RunCommand(int argc, char** argv) {
                            "model; --initial-models is not used\n", cp_path.c_str());
     } else {
       const std::string path = args.Get("initial-models");
-      auto models = ReadModelRecordsFile(path);
+      auto models = LoadInitialModels(path, config->outputs.ToOutputOptions());
       if (!models.ok()) return Fail(models.status(), 2);
-      if (absl::Status s = CheckStoredModels(*models, config->outputs.ToOutputOptions(), path);
-          !s.ok()) {
-        return Fail(s, 2);
-      }
       std::fprintf(stderr, "aftershock run: %zu symbols start on the models of %s\n",
                    models->size(), path.c_str());
       so.initial_models = *std::move(models);

@@ -236,4 +236,12 @@ double VarianceHalfLifeBars(const ModelParams& params) {
   return std::log(0.5) / std::log(p);
 }
 
+absl::StatusOr<std::vector<StoredModel>> LoadInitialModels(const std::string& path,
+                                                           const OutputOptions& outputs) {
+  auto models = ReadModelRecordsFile(path);
+  if (!models.ok()) return models.status();
+  if (absl::Status s = CheckStoredModels(*models, outputs, path); !s.ok()) return s;
+  return models;
+}
+
 }  // namespace aftershock
