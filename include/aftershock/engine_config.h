@@ -315,6 +315,9 @@ std::string FormatEngineConfig(const EngineConfig& config);
 // Parses a duration: a non-negative integer followed by ns, us, ms, s, m or h
 // ("0s", "500ms", "5s", "1m", "1h"). Returns ns.
 absl::StatusOr<int64_t> ParseDuration(absl::string_view text);
+// Parses a local clock time "HH:MM" into minutes after midnight; "24:00" only
+// when allow_24 (a session end). False when malformed or out of range.
+bool ParseClockMinutes(absl::string_view text, bool allow_24, int* minutes);
 // Shortest exact form of a duration in the largest whole unit ("90s", "1m").
 std::string FormatDuration(int64_t ns);
 

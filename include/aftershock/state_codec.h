@@ -68,6 +68,8 @@ class StateReader {
   int32_t I32(absl::string_view what);
   int64_t I64(absl::string_view what);
   double F64(absl::string_view what);
+  // F64 that must be finite (else a DataLoss "what: a non-finite value").
+  double FiniteF64(absl::string_view what);
   // A length-prefixed byte string of at most max_size bytes; a view into the input.
   absl::string_view Bytes(absl::string_view what, size_t max_size);
   // A count that must lie in [0, max] (a guard before sizing containers).

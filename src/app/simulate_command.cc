@@ -178,17 +178,7 @@ absl::Status LoadUniverseFile(const std::string& path, std::vector<InstrumentPro
 
 // "HH:MM-HH:MM" (local time; end may be 24:00) -> session window.
 absl::Status ParseSessionOption(absl::string_view text, SessionWindow* w) {
-  auto clock = [](absl::string_view t, bool is_end, int* minutes) {
-    if (t.size() != 5 || t[2] != ':') return false;
-    for (int i : {0, 1, 3, 4}) {
-      if (t[i] < '0' || t[i] > '9') return false;
-    }
-    const int h = (t[0] - '0') * 10 + (t[1] - '0');
-    const int m = (t[3] - '0') * 10 + (t[4] - '0');
-    if (m > 59 || h > 24 || (h == 24 && (m != 0 || !is_end))) return false;
-    *minutes = h * 60 + m;
-    return true;
-  };
+  const auto clock = ParseClockMinutes;  // the same clock times as [bars] session
   const auto dash = text.find('-');
   int a = 0, b = 0;
   if (dash == absl::string_view::npos || !clock(text.substr(0, dash), false, &a) ||

@@ -99,6 +99,18 @@ void ResolveAutoSettings(EngineConfig* c) {
   }
 }
 
+bool ParseClockMinutes(absl::string_view s, bool allow_24, int* minutes) {
+  if (s.size() != 5 || s[2] != ':') return false;
+  for (int i : {0, 1, 3, 4}) {
+    if (s[i] < '0' || s[i] > '9') return false;
+  }
+  const int h = (s[0] - '0') * 10 + (s[1] - '0');
+  const int m = (s[3] - '0') * 10 + (s[4] - '0');
+  if (m > 59 || h > 24 || (h == 24 && (m != 0 || !allow_24))) return false;
+  *minutes = h * 60 + m;
+  return true;
+}
+
 absl::StatusOr<int64_t> ParseDuration(absl::string_view text) {
   size_t i = 0;
   while (i < text.size() && text[i] >= '0' && text[i] <= '9') ++i;
@@ -436,18 +448,6 @@ absl::Status CheckEndpoint(const Section& s, absl::string_view key, const std::s
                                       v, "\""));
 }
 
-// "HH:MM" -> minutes; 24:00 allowed only when allow_24.
-bool ParseClock(const std::string& s, bool allow_24, int* minutes) {
-  if (s.size() != 5 || s[2] != ':') return false;
-  for (int i : {0, 1, 3, 4}) {
-    if (s[i] < '0' || s[i] > '9') return false;
-  }
-  const int h = (s[0] - '0') * 10 + (s[1] - '0');
-  const int m = (s[3] - '0') * 10 + (s[4] - '0');
-  if (m > 59 || h > 24 || (h == 24 && (m != 0 || !allow_24))) return false;
-  *minutes = h * 60 + m;
-  return true;
-}
 
 Section SubSection(const std::string* source, const Section& parent, absl::string_view key,
                    const std::string& name) {
@@ -510,7 +510,7 @@ absl::Status ParseBars(const std::string* source, const Section& s, BarsConfig* 
     AS_RETURN_IF_ERROR(ss.String(key, &text));
     const bool is_end = std::string(key) == "end";
     int minutes = 0;
-    if (!ParseClock(text, is_end, &minutes)) {
+    if (!ParseClockMinutes(text, is_end, &minutes)) {
       return ss.KeyError(key, absl::StrCat("expected a local time \"HH:MM\" (00:00..",
                                            is_end ? "24:00" : "23:59", "), got \"", text, "\""));
     }

@@ -1,5 +1,7 @@
 #include "aftershock/state_codec.h"
 
+#include <cmath>
+
 #include "absl/strings/str_cat.h"
 
 namespace aftershock {
@@ -41,6 +43,12 @@ uint32_t StateReader::U32(absl::string_view what) { return Scalar<uint32_t>(what
 uint64_t StateReader::U64(absl::string_view what) { return Scalar<uint64_t>(what); }
 int32_t StateReader::I32(absl::string_view what) { return Scalar<int32_t>(what); }
 int64_t StateReader::I64(absl::string_view what) { return Scalar<int64_t>(what); }
+double StateReader::FiniteF64(absl::string_view what) {
+  const double v = F64(what);
+  if (ok() && !std::isfinite(v)) Fail(what, "a non-finite value");
+  return v;
+}
+
 double StateReader::F64(absl::string_view what) { return Scalar<double>(what); }
 
 absl::string_view StateReader::Bytes(absl::string_view what, size_t max_size) {

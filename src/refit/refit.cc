@@ -817,10 +817,7 @@ absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
     j.apply_bar = r.I64(what + " apply bar");
     const uint64_t nr = r.Count(what + " job window", static_cast<uint64_t>(options_.window));
     j.returns.resize(r.ok() ? nr : 0);
-    for (double& x : j.returns) {
-      x = r.F64(what + " job window");
-      if (r.ok() && !std::isfinite(x)) r.Fail(what + " job window", "a non-finite return");
-    }
+    for (double& x : j.returns) x = r.FiniteF64(what + " job window");
     if (options_.seasonal) {
       const uint64_t nt = r.Count(what + " job tags", static_cast<uint64_t>(options_.window));
       if (r.ok() && nt != nr) r.Fail(what + " job tags", "not one tag per return");

@@ -73,11 +73,8 @@ void RollingWindow::RestoreState(StateReader* r, absl::string_view what) {
     return;
   }
   for (uint64_t i = 0; i < n; ++i) {
-    buf_[i] = r->F64(field);
-    if (r->ok() && !std::isfinite(buf_[i])) {
-      r->Fail(field, "a non-finite return");
-      return;
-    }
+    buf_[i] = r->FiniteF64(field);
+    if (!r->ok()) return;
   }
   for (uint64_t i = 0; tags && i < n; ++i) tags_[i] = r->I32(field);
   size_ = static_cast<int>(n);

@@ -490,10 +490,7 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
     if (m > 1) s.start_returns = std::make_unique<double[]>(static_cast<size_t>(m));
     s.num_start_returns = static_cast<int>(held);
     for (uint64_t i = 0; i < held; ++i) {
-      s.start_returns[i] = r.F64(what + " warm-up start returns");
-      if (r.ok() && !std::isfinite(s.start_returns[i])) {
-        r.Fail(what + " warm-up start returns", "a non-finite return");
-      }
+      s.start_returns[i] = r.FiniteF64(what + " warm-up start returns");
     }
     s.bars = r.U64(what + " counters");
     s.filtered = r.U64(what + " counters");
