@@ -308,6 +308,16 @@ std::map<std::string, Saved> Inspect(const Checkpoint& cp, const EngineConfig& c
   return out;
 }
 
+// aftershock_checkpoint_writes_total of the engine serving /metrics on
+// `http_port` (-1 when unreadable).
+int CheckpointWrites(int http_port) {
+  const std::string m = testing::HttpGet(http_port, "/metrics");
+  const std::string key = "\naftershock_checkpoint_writes_total ";
+  const size_t at = m.find(key);
+  if (at == std::string::npos) return -1;
+  return std::atoi(m.c_str() + at + key.size());
+}
+
 // Waits (up to 20 s) for `pred`, sleeping 5 ms between tries.
 template <typename Pred>
 bool WaitFor(Pred pred) {
@@ -363,7 +373,7 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
   std::map<std::string, uint64_t> next_seq;  // of the run being collected
   std::map<std::string, Saved> saved;        // the checkpoint the next run restores
   std::map<std::string, Seen> last_before_kill;
-  int messages = 0, updates = 0, bad_json = 0, non_finite = 0;
+  int messages = 0, updates = 0, bad_json = 0, non_finite = 0, slow_runs = 0;
   int restarts_with_state = 0, restarts_on_fitted = 0, fitted_resumed = 0, exact_var = 0;
   double worst_ratio = 1.0;
 
@@ -481,6 +491,16 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
     std::this_thread::sleep_for(std::chrono::milliseconds(100));
     feed.set_paused(false);
     std::this_thread::sleep_for(std::chrono::milliseconds(last ? 1000 : run_ms(rng)));
+    // Progress needs a checkpoint written while fed: on a disk whose fsync is
+    // slow (CI), the 0.5 s cadence can lag the run, and a run killed before its
+    // second write would resume where it started and the universe would never
+    // reach min_bars. Wait for two writes of this process (the first may hold
+    // the state from before feeding), then kill at once: the kill still lands
+    // at an arbitrary point of the next snapshot or write.
+    if (!last) {
+      const bool wrote = WaitFor([&] { return CheckpointWrites(http_port) >= 2; });
+      slow_runs += !wrote;
+    }
     kill(pid, last ? SIGTERM : SIGKILL);
     waitpid(pid, &status, 0);
     feed.set_paused(true);
@@ -513,11 +533,13 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
   INFO(messages << " messages, " << updates << " updates, " << restarts_with_state
                 << " restarts with state, " << restarts_on_fitted << " on fitted models, "
                 << fitted_resumed << " fitted symbols resumed, " << exact_var
-                << " exact variance continuations, worst var ratio " << worst_ratio);
+                << " exact variance continuations, worst var ratio " << worst_ratio << ", "
+                << slow_runs << " runs without two checkpoint writes in 20 s");
   WARN(messages << " messages, " << updates << " updates, " << restarts_with_state
                 << " restarts with state, " << restarts_on_fitted << " on fitted models, "
                 << fitted_resumed << " fitted symbols resumed, " << exact_var
-                << " exact variance continuations, worst var ratio " << worst_ratio);
+                << " exact variance continuations, worst var ratio " << worst_ratio << ", "
+                << slow_runs << " runs without two checkpoint writes in 20 s");
   CHECK(bad_json == 0);
   CHECK(non_finite == 0);
   // Not vacuous: most restarts had state, many on fitted models, and the
