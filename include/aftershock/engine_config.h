@@ -26,8 +26,16 @@
 
 namespace aftershock {
 
+// Where [feed] takes ticks from.
+enum class FeedSource : uint8_t {
+  kZmq = 0,   // "zmq": SUB socket connected to [feed] endpoints (one box)
+  kNats = 1,  // "nats": the JetStream stream of [nats], the partitions this instance leases
+};
+absl::string_view FeedSourceName(FeedSource s);  // "zmq" | "nats"
+
 // [feed]: where ticks come from.
 struct FeedConfig {
+  FeedSource source = FeedSource::kZmq;  // default "zmq"
   // ZeroMQ endpoints the SUB socket connects to; default {"tcp://127.0.0.1:7301"}.
   std::vector<std::string> endpoints = {"tcp://127.0.0.1:7301"};
   WireEncoding encoding = WireEncoding::kJson;         // body encoding; default json
@@ -41,6 +49,36 @@ struct PublishConfig {
   WireEncoding encoding = WireEncoding::kJson;    // update encoding; default json
   int64_t high_water_mark = 100000;  // messages queued per subscriber before drops; 100000
   std::string curve_secret_key;      // our CURVE secret key (Z85, 40 chars); "" = no CURVE
+};
+
+// [nats]: scale-out on NATS JetStream (README "Scale-out"; config/nats-server.conf
+// is the matching server configuration). Used by [feed] source = "nats",
+// `aftershock simulate --nats` and `aftershock cluster`.
+struct NatsConfig {
+  // Server URLs the client connects to (any of them; it reconnects to the
+  // others); default {"nats://127.0.0.1:4222"}.
+  std::vector<std::string> servers = {"nats://127.0.0.1:4222"};
+  // JetStream stream holding the ticks ([A-Za-z0-9_-]); created on first use
+  // with subjects "<partition_subject>.>"; default "TICKS".
+  std::string stream = "TICKS";
+  // Producers publish a tick to "<subject>.<symbol token>" (subject_token.h);
+  // default "ticks".
+  std::string subject = "ticks";
+  // The server's partition() mapping rewrites that to
+  // "<partition_subject>.<partition>.<symbol token>"; default "ticks-p".
+  std::string partition_subject = "ticks-p";
+  // Number of partitions; must equal the first argument of partition() in the
+  // server configuration. 1..1024; default 12.
+  int partitions = 12;
+  // A lease not renewed for this long expires and its partition may be taken
+  // over, seconds; renewed every third of it. 1..3600; default 10.
+  double lease_seconds = 10;
+  // This engine's name in the lease bucket ([A-Za-z0-9_-], <= 64 bytes);
+  // "" (default) = "<hostname>-<pid>".
+  std::string instance;
+  // Key-value bucket of the leases ([A-Za-z0-9_-]); created on first use with
+  // a TTL of lease_seconds; default "aftershock_leases".
+  std::string lease_bucket = "aftershock_leases";
 };
 
 // [bars]: aggregation of ticks into bars.
@@ -276,6 +314,7 @@ struct EngineConfig {
   EngineConfig();  // defaults as documented per field
 
   FeedConfig feed;
+  NatsConfig nats;
   PublishConfig publish;
   BarsConfig bars;
   ModelConfig model;

@@ -22,6 +22,10 @@ absl::string_view ReturnUnitsName(ReturnUnits u) {
   return u == ReturnUnits::kPercent ? "percent" : "fraction";
 }
 
+absl::string_view FeedSourceName(FeedSource s) {
+  return s == FeedSource::kNats ? "nats" : "zmq";
+}
+
 absl::string_view LogLevelName(LogLevel l) {
   switch (l) {
     case LogLevel::kDebug:
@@ -458,7 +462,10 @@ Section SubSection(const std::string* source, const Section& parent, absl::strin
 
 absl::Status ParseFeed(const Section& s, FeedConfig* c) {
   AS_RETURN_IF_ERROR(
-      s.CheckKeys({"endpoints", "encoding", "max_message_bytes", "curve_server_key"}));
+      s.CheckKeys({"source", "endpoints", "encoding", "max_message_bytes", "curve_server_key"}));
+  int source = static_cast<int>(c->source);
+  AS_RETURN_IF_ERROR(s.Word("source", {"zmq", "nats"}, &source));
+  c->source = static_cast<FeedSource>(source);
   AS_RETURN_IF_ERROR(s.StringArray("endpoints", &c->endpoints));
   if (c->endpoints.empty()) return s.KeyError("endpoints", "at least one endpoint is required");
   for (const std::string& e : c->endpoints) AS_RETURN_IF_ERROR(CheckEndpoint(s, "endpoints", e));
@@ -468,6 +475,74 @@ absl::Status ParseFeed(const Section& s, FeedConfig* c) {
   AS_RETURN_IF_ERROR(s.Integer("max_message_bytes", &c->max_message_bytes, 64, 16 << 20));
   AS_RETURN_IF_ERROR(s.String("curve_server_key", &c->curve_server_key));
   return CheckCurveKey(s, "curve_server_key", c->curve_server_key);
+}
+
+// True for 1..max bytes of [A-Za-z0-9_-] (names of streams, buckets, instances).
+bool IsNatsName(absl::string_view v, size_t max) {
+  if (v.empty() || v.size() > max) return false;
+  for (char ch : v) {
+    const bool ok = (ch >= 'A' && ch <= 'Z') || (ch >= 'a' && ch <= 'z') ||
+                    (ch >= '0' && ch <= '9') || ch == '_' || ch == '-';
+    if (!ok) return false;
+  }
+  return true;
+}
+
+// True for dot-separated NATS subject tokens without wildcards or white space.
+bool IsPlainSubject(absl::string_view v) {
+  if (v.empty() || v.front() == '.' || v.back() == '.') return false;
+  for (size_t i = 0; i < v.size(); ++i) {
+    const unsigned char c = static_cast<unsigned char>(v[i]);
+    if (c <= ' ' || c == '*' || c == '>' || c == 0x7f) return false;
+    if (c == '.' && v[i + 1] == '.') return false;
+  }
+  return true;
+}
+
+absl::Status ParseNats(const Section& s, NatsConfig* c) {
+  AS_RETURN_IF_ERROR(s.CheckKeys({"servers", "stream", "subject", "partition_subject",
+                                  "partitions", "lease_seconds", "instance", "lease_bucket"}));
+  AS_RETURN_IF_ERROR(s.StringArray("servers", &c->servers));
+  if (c->servers.empty()) return s.KeyError("servers", "at least one server URL is required");
+  for (const std::string& url : c->servers) {
+    if (!absl::StartsWith(url, "nats://") && !absl::StartsWith(url, "tls://")) {
+      return s.KeyError("servers", absl::StrCat("expected a URL like \"nats://127.0.0.1:4222\", got \"",
+                                                url, "\""));
+    }
+  }
+  AS_RETURN_IF_ERROR(s.String("stream", &c->stream));
+  AS_RETURN_IF_ERROR(s.String("subject", &c->subject));
+  AS_RETURN_IF_ERROR(s.String("partition_subject", &c->partition_subject));
+  AS_RETURN_IF_ERROR(s.Integer("partitions", &c->partitions, 1, 1024));
+  AS_RETURN_IF_ERROR(s.Number("lease_seconds", &c->lease_seconds, 1, 3600, false, false));
+  AS_RETURN_IF_ERROR(s.String("instance", &c->instance));
+  AS_RETURN_IF_ERROR(s.String("lease_bucket", &c->lease_bucket));
+  for (const auto& [key, value] : {std::pair<const char*, const std::string*>{"stream", &c->stream},
+                                   {"lease_bucket", &c->lease_bucket}}) {
+    if (!IsNatsName(*value, 64)) {
+      return s.KeyError(key, absl::StrCat("expected 1..64 characters of [A-Za-z0-9_-], got \"",
+                                          *value, "\""));
+    }
+  }
+  if (!c->instance.empty() && !IsNatsName(c->instance, 64)) {
+    return s.KeyError("instance", absl::StrCat("expected \"\" or 1..64 characters of "
+                                               "[A-Za-z0-9_-], got \"", c->instance, "\""));
+  }
+  for (const auto& [key, value] :
+       {std::pair<const char*, const std::string*>{"subject", &c->subject},
+        {"partition_subject", &c->partition_subject}}) {
+    if (!IsPlainSubject(*value)) {
+      return s.KeyError(key, absl::StrCat("expected a subject like \"ticks\" (tokens separated by "
+                                          "'.', no wildcards or spaces), got \"", *value, "\""));
+    }
+  }
+  if (c->subject == c->partition_subject ||
+      absl::StartsWith(c->partition_subject, c->subject + ".") ||
+      absl::StartsWith(c->subject, c->partition_subject + ".")) {
+    return s.KeyError("partition_subject",
+                      absl::StrCat("must not overlap subject \"", c->subject, "\""));
+  }
+  return absl::OkStatus();
 }
 
 absl::Status ParsePublish(const Section& s, PublishConfig* c) {
@@ -883,8 +958,8 @@ absl::Status ParseLog(const Section& s, LogConfig* c) {
 
 absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::string& source) {
   static constexpr absl::string_view kSections[] = {
-      "feed",  "publish",     "bars",   "model", "warmup",     "outputs", "limits",
-      "refit", "seasonality", "alerts", "http",  "checkpoint", "log"};
+      "feed",  "nats",        "publish", "bars", "model",      "warmup", "outputs",
+      "limits", "refit", "seasonality", "alerts", "http", "checkpoint", "log"};
   for (auto&& [k, v] : doc) {
     bool known = false;
     for (absl::string_view name : kSections) known = known || Sv(k.str()) == name;
@@ -912,6 +987,7 @@ absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::st
   };
   EngineConfig c;
   AS_RETURN_IF_ERROR(ParseFeed(section("feed"), &c.feed));
+  AS_RETURN_IF_ERROR(ParseNats(section("nats"), &c.nats));
   AS_RETURN_IF_ERROR(ParsePublish(section("publish"), &c.publish));
   AS_RETURN_IF_ERROR(ParseBars(&source, section("bars"), &c.bars));
   AS_RETURN_IF_ERROR(ParseModel(&source, section("model"), &c.model));
@@ -996,7 +1072,8 @@ absl::StatusOr<EngineConfig> LoadEngineConfigFile(const std::string& path) {
 std::string FormatEngineConfig(const EngineConfig& c) {
   std::string o;
   auto num = [](double v) { return FormatNumber(v); };
-  absl::StrAppend(&o, "[feed]\nendpoints = [");
+  absl::StrAppend(&o, "[feed]\nsource = ", Quote(FeedSourceName(c.feed.source)),
+                  "\nendpoints = [");
   for (size_t i = 0; i < c.feed.endpoints.size(); ++i) {
     absl::StrAppend(&o, i ? ", " : "", Quote(c.feed.endpoints[i]));
   }
@@ -1005,6 +1082,16 @@ std::string FormatEngineConfig(const EngineConfig& c) {
   if (!c.feed.curve_server_key.empty()) {
     absl::StrAppend(&o, "curve_server_key = ", Quote(c.feed.curve_server_key), "\n");
   }
+  absl::StrAppend(&o, "\n[nats]\nservers = [");
+  for (size_t i = 0; i < c.nats.servers.size(); ++i) {
+    absl::StrAppend(&o, i ? ", " : "", Quote(c.nats.servers[i]));
+  }
+  absl::StrAppend(&o, "]\nstream = ", Quote(c.nats.stream), "\nsubject = ", Quote(c.nats.subject),
+                  "\npartition_subject = ", Quote(c.nats.partition_subject),
+                  "\npartitions = ", c.nats.partitions,
+                  "\nlease_seconds = ", num(c.nats.lease_seconds),
+                  "\ninstance = ", Quote(c.nats.instance),
+                  "\nlease_bucket = ", Quote(c.nats.lease_bucket), "\n");
   absl::StrAppend(&o, "\n[publish]\nendpoint = ", Quote(c.publish.endpoint),
                   "\nencoding = ", Quote(WireEncodingName(c.publish.encoding)),
                   "\nhigh_water_mark = ", c.publish.high_water_mark, "\n");

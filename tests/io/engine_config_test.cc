@@ -620,5 +620,75 @@ TEST_CASE("[alerts] range errors name the key", "[config][alerts]") {
         "config.toml:2: [alerts] alert_during_warmup: expected true or false, got integer");
 }
 
+TEST_CASE("every [nats] key: parsed, in default.toml, in the README, formatted", "[config][nats]") {
+  const std::vector<std::string> parser = ParserKeys("[nats]");
+  CHECK(parser.size() == 8);
+  const std::set<std::string> known(parser.begin(), parser.end());
+  const std::string dflt =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
+  std::set<std::string> in_default;
+  for (const auto& [key, line] : SectionLines(dflt, "nats")) {
+    INFO(line);
+    in_default.insert(key);
+    CHECK(ErrorOf("[nats]\n" + line + "\n") == "ok");
+  }
+  CHECK(in_default == known);
+  std::set<std::string> formatted;
+  for (const auto& kv : SectionLines(FormatEngineConfig(EngineConfig()), "nats")) {
+    formatted.insert(kv.first);
+  }
+  CHECK(formatted == known);
+  // The README's Scale-out chapter documents every key.
+  const std::string readme =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/README.md");
+  const size_t begin = readme.find("\n## Scale-out");
+  REQUIRE(begin != std::string::npos);
+  const size_t end = readme.find("\n## ", begin + 1);
+  const std::set<std::string> named = BacktickedNames(readme.substr(begin, end - begin));
+  for (const std::string& k : known) {
+    INFO(k);
+    CHECK(named.count(k) == 1);
+  }
+}
+
+TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
+  auto c = ParseEngineConfig(
+      "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"nats://10.0.0.1:4222\", "
+      "\"tls://10.0.0.2:4222\"]\nstream = \"T_1\"\nsubject = \"md.ticks\"\n"
+      "partition_subject = \"md.part\"\npartitions = 3\nlease_seconds = 2.5\n"
+      "instance = \"eng-a\"\nlease_bucket = \"L\"\n",
+      "config.toml");
+  REQUIRE(c.ok());
+  CHECK(c->feed.source == FeedSource::kNats);
+  CHECK(c->nats.servers.size() == 2);
+  CHECK(c->nats.stream == "T_1");
+  CHECK(c->nats.subject == "md.ticks");
+  CHECK(c->nats.partition_subject == "md.part");
+  CHECK(c->nats.partitions == 3);
+  CHECK(c->nats.lease_seconds == 2.5);
+  CHECK(c->nats.instance == "eng-a");
+  CHECK(c->nats.lease_bucket == "L");
+  auto back = ParseEngineConfig(FormatEngineConfig(*c), "x");
+  REQUIRE(back.ok());
+  CHECK(FormatEngineConfig(*back) == FormatEngineConfig(*c));
+
+  CHECK(ErrorOf("[feed]\nsource = \"kafka\"\n").find("[feed] source") != std::string::npos);
+  CHECK(ErrorOf("[nats]\nservers = [\"127.0.0.1:4222\"]\n") ==
+        "config.toml:2: [nats] servers: expected a URL like \"nats://127.0.0.1:4222\", got "
+        "\"127.0.0.1:4222\"");
+  CHECK(ErrorOf("[nats]\nservers = []\n").find("at least one server") != std::string::npos);
+  CHECK(ErrorOf("[nats]\nstream = \"a.b\"\n").find("[nats] stream: expected 1..64") !=
+        std::string::npos);
+  CHECK(ErrorOf("[nats]\nsubject = \"t.*\"\n").find("[nats] subject: expected a subject") !=
+        std::string::npos);
+  CHECK(ErrorOf("[nats]\nsubject = \"t..x\"\n").find("[nats] subject") != std::string::npos);
+  CHECK(ErrorOf("[nats]\nsubject = \"ticks\"\npartition_subject = \"ticks.p\"\n")
+            .find("must not overlap") != std::string::npos);
+  CHECK(ErrorOf("[nats]\npartitions = 0\n").find("[nats] partitions") != std::string::npos);
+  CHECK(ErrorOf("[nats]\nlease_seconds = 0.5\n").find("[nats] lease_seconds") !=
+        std::string::npos);
+  CHECK(ErrorOf("[nats]\ninstance = \"a b\"\n").find("[nats] instance") != std::string::npos);
+}
+
 }  // namespace
 }  // namespace aftershock

@@ -1,0 +1,144 @@
+#include "support/nats_server.h"
+
+#include "support/test_support.h"
+
+#include <arpa/inet.h>
+#include <netinet/in.h>
+#include <signal.h>
+#include <sys/socket.h>
+#include <sys/stat.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <catch2/catch.hpp>
+#include <chrono>
+#include <cstdio>
+#include <cstdlib>
+#include <sstream>
+#include <thread>
+#include <vector>
+
+namespace aftershock::testing {
+namespace {
+
+bool IsExecutable(const std::string& p) { return access(p.c_str(), X_OK) == 0; }
+
+// A port the kernel considers free now (bound to port 0, then released).
+int FreeLoopbackPort() {
+  const int fd = socket(AF_INET, SOCK_STREAM, 0);
+  REQUIRE(fd >= 0);
+  sockaddr_in a{};
+  a.sin_family = AF_INET;
+  a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+  a.sin_port = 0;
+  REQUIRE(bind(fd, reinterpret_cast<sockaddr*>(&a), sizeof(a)) == 0);
+  socklen_t len = sizeof(a);
+  REQUIRE(getsockname(fd, reinterpret_cast<sockaddr*>(&a), &len) == 0);
+  close(fd);
+  return ntohs(a.sin_port);
+}
+
+bool Accepts(int port) {
+  const int fd = socket(AF_INET, SOCK_STREAM, 0);
+  if (fd < 0) return false;
+  sockaddr_in a{};
+  a.sin_family = AF_INET;
+  a.sin_addr.s_addr = htonl(INADDR_LOOPBACK);
+  a.sin_port = htons(static_cast<uint16_t>(port));
+  const bool ok = connect(fd, reinterpret_cast<sockaddr*>(&a), sizeof(a)) == 0;
+  close(fd);
+  return ok;
+}
+
+}  // namespace
+
+std::string NatsServerBinary() {
+  if (IsExecutable("/usr/sbin/nats-server")) return "/usr/sbin/nats-server";
+  if (const char* path = std::getenv("PATH")) {
+    std::stringstream ss(path);
+    std::string dir;
+    while (std::getline(ss, dir, ':')) {
+      const std::string p = dir + "/nats-server";
+      if (!dir.empty() && IsExecutable(p)) return p;
+    }
+  }
+  return "";
+}
+
+void SkipUnlessNatsServer() {
+  if (!NatsServerBinary().empty()) return;
+  std::printf("SKIP: nats-server not found (/usr/sbin or PATH); install Debian's nats-server "
+              "(tools/dev does) to run the JetStream tests\n");
+  std::fflush(stdout);
+  std::_Exit(77);
+}
+
+NatsServer::NatsServer(const std::string& dir, const std::string& config) {
+  const std::string bin = NatsServerBinary();
+  REQUIRE(!bin.empty());
+  const std::string store = dir + "/store";
+  mkdir(store.c_str(), 0755);
+  // The shipped file verbatim except its store_dir line (the server refuses
+  // -sd next to a configured store_dir), which points into `dir`.
+  std::string text = ReadFileOrDie(
+      config.empty() ? std::string(AFTERSHOCK_SOURCE_DIR) + "/config/nats-server.conf" : config);
+  std::string conf_text;
+  std::stringstream lines(text);
+  std::string line;
+  while (std::getline(lines, line)) {
+    if (line.find("store_dir:") != std::string::npos && line.find('#') == std::string::npos) {
+      line = "  store_dir: \"" + store + "\"";
+    }
+    conf_text += line + "\n";
+  }
+  const std::string conf = WriteFile(dir + "/nats-server.conf", conf_text);
+  const std::string log = dir + "/nats-server.log";
+  // A port taken between FreeLoopbackPort and the server's bind is retried.
+  for (int attempt = 0; attempt < 3 && pid_ < 0; ++attempt) {
+    port_ = FreeLoopbackPort();
+    const std::string port = std::to_string(port_);
+    std::vector<std::string> args = {bin, "-c", conf, "-a", "127.0.0.1", "-p", port,
+                                     "-js", "-l", log};
+    const pid_t pid = fork();
+    REQUIRE(pid >= 0);
+    if (pid == 0) {
+      std::vector<char*> argv;
+      for (std::string& a : args) argv.push_back(a.data());
+      argv.push_back(nullptr);
+      execv(argv[0], argv.data());
+      std::_Exit(127);
+    }
+    for (int i = 0; i < 200; ++i) {  // 200 x 50 ms = 10 s at most
+      if (Accepts(port_)) {
+        pid_ = pid;
+        break;
+      }
+      int status = 0;
+      if (waitpid(pid, &status, WNOHANG) == pid) break;  // exited: retry on another port
+      std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    }
+    if (pid_ < 0) {
+      kill(pid, SIGKILL);
+      waitpid(pid, nullptr, 0);
+    }
+  }
+  INFO("nats-server log: " << log);
+  REQUIRE(pid_ > 0);
+}
+
+NatsServer::~NatsServer() {
+  if (pid_ <= 0) return;
+  kill(pid_, SIGTERM);
+  waitpid(pid_, nullptr, 0);
+}
+
+void NatsServer::Kill() {
+  if (pid_ <= 0) return;
+  kill(pid_, SIGKILL);
+  waitpid(pid_, nullptr, 0);
+  pid_ = -1;
+}
+
+std::string NatsServer::url() const { return "nats://127.0.0.1:" + std::to_string(port_); }
+
+}  // namespace aftershock::testing
