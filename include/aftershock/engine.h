@@ -69,8 +69,9 @@ class Engine {
                                                         std::unique_ptr<UpdateSink> sink,
                                                         Clock* clock,
                                                         const EngineOptions& options = {});
-  // Live engine from the config alone: ZeroMQ SUB/PUB per [feed]/[publish],
-  // the system clock, signal handling on.
+  // Live engine from the config alone: ZeroMQ SUB per [feed] (or, with [feed]
+  // source = "nats", the NatsFeed of [nats], whose figures join /metrics and
+  // /health), ZeroMQ PUB per [publish], the system clock, signal handling on.
   static absl::StatusOr<std::unique_ptr<Engine>> CreateFromConfig(const EngineConfig& config);
   ~Engine();
 

@@ -21,9 +21,11 @@ constexpr Command kCommands[] = {
     {"models", "list, show or export the fitted models of a checkpoint or a model file",
      ModelsCommand},
     {"demo", "run the embedded default end to end (no input needed)", DemoCommand},
-    {"simulate", "synthetic market of invented instruments to a tick CSV or a ZeroMQ feed",
+    {"simulate", "synthetic market of invented instruments to a tick CSV, ZeroMQ or JetStream",
      SimulateCommand},
     {"watch", "live terminal table of the engine's update stream", WatchCommand},
+    {"cluster", "scale-out on NATS JetStream: `cluster status` prints the partition leases",
+     ClusterCommand},
 };
 
 void PrintUsage(FILE* out) {

@@ -16,6 +16,7 @@ int WatchCommand(int argc, char** argv);     // watch_command.cc
 int RunCommand(int argc, char** argv);       // run_command.cc
 int ReplayCommand(int argc, char** argv);    // replay_command.cc
 int ModelsCommand(int argc, char** argv);    // models_command.cc
+int ClusterCommand(int argc, char** argv);   // cluster_command.cc
 
 }  // namespace aftershock::app
 

@@ -28,7 +28,9 @@ int Fail(const absl::Status& s, int code) { return ReportFailure("run", s, code)
 int RunCommand(int argc, char** argv) {
   ArgParser args(
       "aftershock run",
-      "Run the streaming engine: subscribe to the tick feeds of [feed], aggregate bars per\n"
+      "Run the streaming engine: subscribe to the tick feeds of [feed] (or, with [feed]\n"
+      "source = \"nats\", pull the JetStream partitions this instance leases; README\n"
+      "\"Scale-out\"), aggregate bars per\n"
       "[bars], filter every symbol's conditional variance and publish one update per bar\n"
       "and symbol on topic u.<symbol> at the [publish] endpoint (see the README for the\n"
       "wire format). Bad input is counted by reason and dropped, never fatal.\n"
@@ -63,8 +65,16 @@ int RunCommand(int argc, char** argv) {
       config->model.has_params
           ? "fixed [model.params], version 1"
           : absl::StrCat("EWMA warm-up (lambda ", config->warmup.ewma_lambda, "), version 0");
+  const std::string feed_from =
+      config->feed.source == FeedSource::kNats
+          ? absl::StrCat("JetStream stream ", config->nats.stream, " at ",
+                         absl::StrJoin(config->nats.servers, ","), ", leased partitions of ",
+                         config->nats.partitions, " (instance ",
+                         config->nats.instance.empty() ? "hostname-pid" : config->nats.instance,
+                         ", lease ", config->nats.lease_seconds, " s)")
+          : absl::StrJoin(config->feed.endpoints, ",");
   const std::string plan = absl::StrCat(
-      "feed ", absl::StrJoin(config->feed.endpoints, ","), " (",
+      "feed ", feed_from, " (",
       WireEncodingName(config->feed.encoding), ") -> bars ",
       FormatDuration(config->bars.interval_ns), " (", config->outputs.periods_per_year, " a year",
       config->outputs.periods_per_year_auto ? ", auto" : "", ") -> ", model, " -> publish ",

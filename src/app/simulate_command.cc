@@ -9,6 +9,7 @@
 #include <cstdio>
 #include <fstream>
 #include <map>
+#include <optional>
 #include <string>
 #include <thread>
 #include <vector>
@@ -20,6 +21,7 @@
 #include "absl/strings/strip.h"
 #include "absl/time/time.h"
 #include "aftershock/engine_config.h"
+#include "aftershock/jetstream_publisher.h"
 #include "aftershock/market_sim.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/wire.h"
@@ -400,6 +402,54 @@ int Publish(MarketSim& sim, Tick::Kind field, const PublishOptions& o) {
   return stopped ? 130 : 0;
 }
 
+// Publishes every tick into the JetStream stream of the [nats] section of an
+// engine configuration, one message per tick on <subject>.<symbol token>.
+int PublishNats(MarketSim& sim, Tick::Kind field, const NatsConfig& nats,
+                const PublishOptions& o) {
+  JetStreamPublisherOptions jo;
+  jo.encoding = o.encoding;
+  auto pub = JetStreamTickPublisher::Connect(nats, jo);
+  if (!pub.ok()) return Fail(pub.status(), 1);
+  if (!o.quiet) {
+    std::fprintf(stderr,
+                 "aftershock simulate: publishing %lld ticks to JetStream stream %s at %s on "
+                 "%s.<symbol> (%s)\n",
+                 static_cast<long long>(sim.total_ticks()), nats.stream.c_str(),
+                 nats.servers.front().c_str(), nats.subject.c_str(),
+                 std::string(WireEncodingName(o.encoding)).c_str());
+  }
+  Progress progress(!o.quiet, sim.total_ticks());
+  Tick tick;
+  int64_t sent = 0;
+  const auto t0 = Clock::now();
+  bool stopped = StopRequested();
+  while (!stopped && sim.Next(field, &tick)) {
+    if (o.rate > 0) {
+      const auto due =
+          t0 + std::chrono::nanoseconds(std::llround(static_cast<double>(sent) * 1e9 / o.rate));
+      if (!SleepUntil(due)) {
+        stopped = true;
+        break;
+      }
+    }
+    if (absl::Status s = (*pub)->Publish(tick); !s.ok()) return Fail(s, 1);
+    ++sent;
+    progress.Update(sent);
+    stopped = StopRequested();
+  }
+  // Every tick acknowledged (stored) before the count is reported.
+  const absl::Status flushed = (*pub)->Flush(std::max(o.linger_ms, 1000));
+  const double secs = progress.Elapsed();
+  std::fprintf(stderr,
+               "aftershock simulate: %s %lld ticks (%zu symbols) to JetStream stream %s in "
+               "%.2f s (%.0f ticks/s)\n",
+               stopped ? "interrupted; published" : "published", static_cast<long long>(sent),
+               sim.instruments().size(), nats.stream.c_str(), secs,
+               secs > 0 ? static_cast<double>(sent) / secs : 0.0);
+  if (!flushed.ok()) return Fail(flushed, 1);
+  return stopped ? 130 : 0;
+}
+
 void PrintUniverse(const std::vector<MarketInstrument>& insts,
                    const std::vector<InstrumentProfile>& profiles, double ppy) {
   std::printf("%-14s %-10s %10s %8s %7s %5s  %s\n", "symbol", "model", "price", "vol_ann",
@@ -479,7 +529,10 @@ int SimulateCommand(int argc, char** argv) {
       "(each message leaves at t0 + k / rate), so there is no drift over long runs. ZeroMQ\n"
       "drops what a subscriber misses before it connects (slow joiner): --wait-subscribers MS\n"
       "holds the first message until a subscription arrives or MS ms pass. Ctrl-C stops\n"
-      "cleanly with the final count (exit code 130).\n\n"
+      "cleanly with the final count (exit code 130).\n"
+      "--nats CONFIG publishes into NATS JetStream instead: one tick a message on\n"
+      "<[nats] subject>.<symbol token>, the server's partition() mapping choosing the\n"
+      "partition; every tick is acknowledged by JetStream before the final count.\n\n"
       "Examples:\n"
       "  aftershock simulate --output ticks.csv --bars 390 --regime 200:4\n"
       "  aftershock simulate --publish tcp://127.0.0.1:7301 --rate 200 --bars 100000\n"
@@ -534,6 +587,10 @@ int SimulateCommand(int argc, char** argv) {
   args.AddOption("publish", "ENDPOINT",
                  "bind a ZeroMQ PUB socket here and publish the ticks "
                  "(e.g. tcp://127.0.0.1:7301)");
+  args.AddOption("nats", "CONFIG",
+                 "publish the ticks to NATS JetStream per the [nats] section of this engine "
+                 "configuration (one tick a message on <subject>.<symbol token>; README "
+                 "\"Scale-out\")");
   args.AddOption("rate", "TICKS_PER_S", "publishing rate in ticks per second; 0 = unpaced", "1000");
   args.AddOption("encoding", "ENC", "wire encoding: json | binary", "json");
   args.AddOption("batch", "N", "ticks per message; > 1 sends batches with topic '*'", "1");
@@ -712,14 +769,28 @@ int SimulateCommand(int argc, char** argv) {
   }
 
   // ---- Sink ------------------------------------------------------------------------
-  if (args.Has("output") == args.Has("publish")) {
-    return Fail(absl::InvalidArgumentError(
-                    "give exactly one of --output FILE and --publish ENDPOINT (or --list)"),
+  if (static_cast<int>(args.Has("output")) + static_cast<int>(args.Has("publish")) +
+          static_cast<int>(args.Has("nats")) !=
+      1) {
+    return Fail(absl::InvalidArgumentError("give exactly one of --output FILE, --publish "
+                                           "ENDPOINT and --nats CONFIG (or --list)"),
                 2);
   }
+  std::optional<NatsConfig> nats;
+  if (args.Has("nats")) {
+    auto engine_config = LoadEngineConfigFile(args.Get("nats"));
+    if (!engine_config.ok()) return Fail(engine_config.status(), 2);
+    nats = engine_config->nats;
+    if (args.Get("batch") != "1") {
+      return Fail(absl::InvalidArgumentError(
+                      "--nats sends one tick a message (the subject names the symbol); "
+                      "--batch is for --publish"),
+                  2);
+    }
+  }
   PublishOptions po;
-  if (args.Has("publish")) {
-    po.endpoint = args.Get("publish");
+  if (args.Has("publish") || args.Has("nats")) {
+    po.endpoint = args.Has("publish") ? args.Get("publish") : "";
     auto rate = args.GetDouble("rate");
     if (!rate.ok() || *rate < 0) {
       return Fail(absl::InvalidArgumentError("--rate must be a number >= 0 (ticks per second)"), 2);
@@ -772,6 +843,7 @@ int SimulateCommand(int argc, char** argv) {
   if (args.Has("output")) {
     return WriteCsv(**sim, args.Get("output"), field, time_format == "iso", args.Flag("quiet"));
   }
+  if (nats.has_value()) return PublishNats(**sim, field, *nats, po);
   return Publish(**sim, field, po);
 }
 

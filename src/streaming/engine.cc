@@ -14,6 +14,7 @@
 #include <utility>
 
 #include "aftershock/engine_metrics.h"
+#include "aftershock/nats_feed.h"
 #include "aftershock/zmq_transport.h"
 #include "streaming/metrics_http.h"
 
@@ -71,15 +72,29 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::Create(const EngineConfig& confi
 absl::StatusOr<std::unique_ptr<Engine>> Engine::CreateFromConfig(const EngineConfig& config) {
   auto transport = ZmqTransport::Create(1);
   if (!transport.ok()) return transport.status();
-  auto source = (*transport)->Subscribe(config.feed);
-  if (!source.ok()) return source.status();
+  // The sink first: a publish endpoint that cannot be bound fails before the
+  // NATS feed claims any partition.
   auto sink = (*transport)->Publish(config.publish);
   if (!sink.ok()) return sink.status();
+  absl::StatusOr<std::unique_ptr<TickSource>> source;
+  const MetricsSource* source_metrics = nullptr;
+  if (config.feed.source == FeedSource::kNats) {
+    auto feed = NatsFeed::Open(config);
+    if (!feed.ok()) return feed.status();
+    source_metrics = feed->get();
+    source = std::unique_ptr<TickSource>(*std::move(feed));
+  } else {
+    source = (*transport)->Subscribe(config.feed);
+  }
+  if (!source.ok()) return source.status();
   EngineOptions options;
   options.handle_signals = true;
   options.serve_http = true;
   auto engine = Create(config, *std::move(source), *std::move(sink), SystemClock(), options);
   if (!engine.ok()) return engine.status();
+  // The feed outlives the core's use of it: both belong to the engine, and
+  // the core (destroyed first) only reads it from the ingest thread.
+  if (source_metrics != nullptr) (*engine)->core()->AddMetricsSource(source_metrics);
   (*engine)->transport_ = std::shared_ptr<ZmqTransport>(std::move(*transport));
   return engine;
 }
