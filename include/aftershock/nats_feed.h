@@ -44,6 +44,9 @@ namespace aftershock {
 struct NatsFeedOptions {
   int fetch_batch = 512;     // messages per pull request; default 512
   int64_t fetch_wait_ms = 100;  // longest wait of one pull request, ms; default 100
+  // Release every lease on destruction (the clean shutdown). false leaves them
+  // to expire as after a crash (tests of the takeover path). Default true.
+  bool release_on_destroy = true;
 };
 
 struct NatsFeedStats {

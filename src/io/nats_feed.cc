@@ -83,7 +83,7 @@ class NatsFeedImpl : public NatsFeed {
     } else {
       StopAllReaders();
     }
-    if (leases_ != nullptr) {
+    if (leases_ != nullptr && options_.release_on_destroy) {
       if (absl::Status s = leases_->ReleaseAll(); !s.ok()) {
         std::fprintf(stderr, "aftershock: nats: releasing the leases failed: %s\n",
                      std::string(s.message()).c_str());
