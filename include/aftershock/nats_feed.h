@@ -6,10 +6,12 @@
 // subject_token.h). NATS types stay in src/io/nats_feed.cc.
 //
 // Threads: a coordinator runs a lease round every lease_seconds / 3 and starts
-// or stops one reader thread per held partition; a reader pulls its partition
-// with an ephemeral pull consumer (no acknowledgements: the position is ours)
-// in batches of `fetch_batch`, and queues the messages for the ingest thread,
-// signalling an eventfd (ReadinessFd). A reader starts at the stream's first
+// or stops one reader thread per held partition; a reader takes its partition
+// from an ordered consumer (ephemeral, in stream order, no acknowledgements:
+// the position is ours; not a pull consumer, see nats_feed.cc for the libnats
+// 3.4.1 defect that rules out natsSubscription_Fetch) in batches of up to
+// `fetch_batch`, and queues the messages for the ingest thread, signalling an
+// eventfd (ReadinessFd). A reader starts at the stream's first
 // message of the partition, or, when this instance held the partition before,
 // right after the last message it fetched then, so its symbols' state is
 // continued without a gap. If no lease round succeeds for lease_seconds (the
@@ -42,8 +44,8 @@
 namespace aftershock {
 
 struct NatsFeedOptions {
-  int fetch_batch = 512;     // messages per pull request; default 512
-  int64_t fetch_wait_ms = 100;  // longest wait of one pull request, ms; default 100
+  int fetch_batch = 512;        // messages a reader queues under one lock; default 512
+  int64_t fetch_wait_ms = 100;  // longest wait for a partition's next message, ms; default 100
   // Release every lease on destruction (the clean shutdown). false leaves them
   // to expire as after a crash (tests of the takeover path). Default true.
   bool release_on_destroy = true;

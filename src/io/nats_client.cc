@@ -62,6 +62,15 @@ absl::StatusOr<std::unique_ptr<NatsSession>> NatsSession::Connect(const NatsConf
                                     config.servers.size() > 1 ? " (and the other [nats] servers)"
                                                               : ""));
   }
+  // JetStream API calls (lease reads and writes, consumer creation) wait at
+  // most 2 s for the broker instead of the client's 5 s, so a lease round and
+  // a shutdown with the broker gone end in bounded time.
+  jsOptions defaults;
+  if (js_options == nullptr) {
+    jsOptions_Init(&defaults);
+    js_options = &defaults;
+  }
+  if (js_options->Wait == 0) js_options->Wait = 2000;
   jsCtx* js = nullptr;
   s = natsConnection_JetStream(&js, conn, js_options);
   if (s != NATS_OK) {

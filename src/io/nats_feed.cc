@@ -258,13 +258,16 @@ class NatsFeedImpl : public NatsFeed {
     }
     // Stop readers of partitions no longer wanted (lost or surplus), then
     // release the surplus: nobody else starts reading it while we still do.
-    for (auto it = readers_.begin(); it != readers_.end();) {
-      if (std::find(wanted.begin(), wanted.end(), it->first) == wanted.end()) {
-        StopReader(it->second.get());
-        it = readers_.erase(it);
-      } else {
-        ++it;
+    std::vector<int> unwanted;
+    for (auto& [p, reader] : readers_) {
+      if (std::find(wanted.begin(), wanted.end(), p) == wanted.end()) {
+        reader->stop.store(true);
+        unwanted.push_back(p);
       }
+    }
+    for (int p : unwanted) {
+      StopReader(readers_[p].get());
+      readers_.erase(p);
     }
     if (!r->surplus.empty()) {
       if (absl::Status s = leases_->Release(r->surplus); !s.ok()) {
@@ -293,6 +296,9 @@ class NatsFeedImpl : public NatsFeed {
   }
 
   void StopAllReaders() {
+    // All flags first, then the joins: the readers wind down in parallel
+    // (each may be inside a request bounded by the 2 s JetStream wait).
+    for (auto& [p, r] : readers_) r->stop.store(true);
     for (auto& [p, r] : readers_) StopReader(r.get());
     readers_.clear();
   }
@@ -317,18 +323,27 @@ class NatsFeedImpl : public NatsFeed {
     scratch->clear();
   }
 
+  // Reads one partition with an ordered consumer (ephemeral, no
+  // acknowledgements, in stream order; the client re-creates it after a gap
+  // from the next sequence). Why not a pull consumer and
+  // natsSubscription_Fetch: in libnats 3.4.1 a fetch whose wait ends while the
+  // server still answers an earlier request can collect more messages than
+  // its batch and writes past its array (seen under valgrind at 100,000
+  // queued ticks); an ordered push consumer has no pull requests.
   void ReadPartition(Reader* r) {
     const int p = r->partition;
     const std::string filter = nats_internal::PartitionFilter(config_, p);
     natsSubscription* sub = nullptr;
     std::vector<natsMsg*> scratch;
+    std::vector<natsMsg*> batch;
+    batch.reserve(static_cast<size_t>(options_.fetch_batch));
     int failures = 0;
     while (!r->stop.load()) {
       if (sub == nullptr) {
         jsSubOptions so;
         jsSubOptions_Init(&so);
         so.Stream = config_.stream.c_str();
-        so.Config.AckPolicy = js_AckNone;  // the position is ours, not the consumer's
+        so.Ordered = true;  // no acknowledgements: the position is ours
         const uint64_t last = last_fetched_[p].load();
         if (last > 0) {
           so.Config.DeliverPolicy = js_DeliverByStartSequence;
@@ -336,12 +351,9 @@ class NatsFeedImpl : public NatsFeed {
         } else {
           so.Config.DeliverPolicy = js_DeliverAll;
         }
-        // The broker deletes the ephemeral consumer this long after we stop.
-        so.Config.InactiveThreshold =
-            static_cast<int64_t>(std::max(5.0, config_.lease_seconds) * 1e9);
         jsErrCode jerr = static_cast<jsErrCode>(0);
         const natsStatus s =
-            js_PullSubscribe(&sub, session_->js(), filter.c_str(), nullptr, nullptr, &so, &jerr);
+            js_SubscribeSync(&sub, session_->js(), filter.c_str(), nullptr, &so, &jerr);
         if (s != NATS_OK) {
           sub = nullptr;
           if (++failures == 1 || failures % 50 == 0) {
@@ -353,49 +365,55 @@ class NatsFeedImpl : public NatsFeed {
           std::this_thread::sleep_for(std::chrono::milliseconds(200));
           continue;
         }
+        // The client may buffer many messages of a replay; no slow-consumer drops.
+        natsSubscription_SetPendingLimits(sub, -1, -1);
       }
-      natsMsgList list{nullptr, 0};
-      jsErrCode jerr = static_cast<jsErrCode>(0);
-      const natsStatus s = natsSubscription_Fetch(&list, sub, options_.fetch_batch,
-                                                  options_.fetch_wait_ms, &jerr);
-      if (s == NATS_TIMEOUT) {
-        pending_[p].store(0, std::memory_order_relaxed);
+      // The first message with a bounded wait, then whatever is already
+      // buffered, up to fetch_batch, under one lock.
+      batch.clear();
+      natsMsg* m = nullptr;
+      natsStatus s = natsSubscription_NextMsg(&m, sub, options_.fetch_wait_ms);
+      while (s == NATS_OK) {
+        batch.push_back(m);
+        if (static_cast<int>(batch.size()) >= options_.fetch_batch) break;
+        s = natsSubscription_NextMsg(&m, sub, 0);
+      }
+      if (batch.empty()) {
+        if (s != NATS_TIMEOUT) {
+          // Subscription unusable (connection closed, consumer gone): start
+          // again after the last message taken.
+          natsSubscription_Destroy(sub);
+          sub = nullptr;
+          std::this_thread::sleep_for(std::chrono::milliseconds(100));
+        } else {
+          pending_[p].store(0, std::memory_order_relaxed);
+        }
         FreeGraveyard(&scratch);
-        continue;
-      }
-      if (s != NATS_OK) {
-        // Consumer gone (server restart, node loss): subscribe again from the
-        // message after the last one fetched.
-        natsMsgList_Destroy(&list);
-        natsSubscription_Destroy(sub);
-        sub = nullptr;
-        std::this_thread::sleep_for(std::chrono::milliseconds(100));
         continue;
       }
       failures = 0;
       uint64_t last = last_fetched_[p].load();
       uint64_t pending = 0;
-      int queued = 0;
+      size_t queued = 0;
       {
         std::lock_guard<std::mutex> l(mu_);
-        for (int i = 0; i < list.Count; ++i) {
-          natsMsg* m = list.Msgs[i];
+        for (natsMsg*& msg : batch) {
           jsMsgMetaData* meta = nullptr;
-          if (natsMsg_GetMetaData(&meta, m) != NATS_OK) continue;  // destroyed with the list
+          if (natsMsg_GetMetaData(&meta, msg) != NATS_OK) continue;  // not a stream message
           const uint64_t seq = meta->Sequence.Stream;
           pending = meta->NumPending;
           jsMsgMetaData_Destroy(meta);
-          if (seq <= last) continue;  // already fetched before a re-subscribe
+          if (seq <= last) continue;  // already taken before a re-subscribe
           last = seq;
-          queue_.push_back(Item{m, p});
-          list.Msgs[i] = nullptr;  // now owned by the queue
+          queue_.push_back(Item{msg, p});
+          msg = nullptr;  // now owned by the queue
           ++queued;
         }
-        queued_.fetch_add(static_cast<size_t>(queued), std::memory_order_relaxed);
+        queued_.fetch_add(queued, std::memory_order_relaxed);
       }
+      for (natsMsg* msg : batch) natsMsg_Destroy(msg);  // the ones not queued
       last_fetched_[p].store(last);
       pending_[p].store(pending, std::memory_order_relaxed);
-      natsMsgList_Destroy(&list);
       if (queued > 0) {
         const uint64_t one = 1;
         if (write(efd_, &one, sizeof(one)) < 0) {

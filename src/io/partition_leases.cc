@@ -179,6 +179,13 @@ class LeasesImpl : public PartitionLeases {
 
   absl::Status Release(absl::Span<const int> partitions) override {
     absl::Status first;
+    if (natsConnection_Status(session_->conn()) != NATS_CONN_STATUS_CONNECTED) {
+      // Nothing can be written; the leases expire after lease_seconds.
+      for (int p : partitions) {
+        if (p >= 0 && p < config_.partitions) held_revision_[p] = 0;
+      }
+      return absl::UnavailableError("not connected to NATS: the leases expire instead");
+    }
     for (int p : partitions) {
       if (p < 0 || p >= config_.partitions || held_revision_[p] == 0) continue;
       uint64_t next = 0;
@@ -194,6 +201,12 @@ class LeasesImpl : public PartitionLeases {
         } else if (first.ok()) {
           first = st;
         }
+        if (absl::IsUnavailable(st)) {  // broker gone: the rest expire instead
+          for (int q : partitions) {
+            if (q >= 0 && q < config_.partitions) held_revision_[q] = 0;
+          }
+          break;
+        }
       }
     }
     return first;
@@ -205,6 +218,7 @@ class LeasesImpl : public PartitionLeases {
       if (held_revision_[p] != 0) held.push_back(p);
     }
     absl::Status st = Release(held);
+    if (absl::IsUnavailable(st)) return st;
     const natsStatus s = kvStore_Delete(kv_.get(), InstanceKey(instance_).c_str());
     if (s != NATS_OK && st.ok()) st = ToStatus(s, "cannot delete the instance heartbeat");
     return st;
