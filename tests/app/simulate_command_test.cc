@@ -192,8 +192,12 @@ TEST_CASE("simulate reports bad usage with a clear message") {
   auto both = RunCli({"simulate", "--output", "-", "--publish", "tcp://127.0.0.1:1"});
   CHECK(both.exit_code == 2);
   CHECK(both.err ==
-        "aftershock simulate: give exactly one of --output FILE and --publish ENDPOINT (or "
-        "--list)\n");
+        "aftershock simulate: give exactly one of --output FILE, --publish ENDPOINT and --nats "
+        "CONFIG (or --list)\n");
+  auto nats_batch = RunCli({"simulate", "--nats", std::string(AFTERSHOCK_SOURCE_DIR) +
+                            "/config/default.toml", "--batch", "4"});
+  CHECK(nats_batch.exit_code == 2);
+  CHECK(nats_batch.err.find("--nats sends one tick a message") != std::string::npos);
   auto regime = RunCli({"simulate", "--output", "-", "--regime", "200x4"});
   CHECK(regime.exit_code == 2);
   CHECK(regime.err.find("--regime: expected [SYMBOL@]BAR:MULT") != std::string::npos);
