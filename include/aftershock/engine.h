@@ -71,7 +71,8 @@ class Engine {
                                                         const EngineOptions& options = {});
   // Live engine from the config alone: ZeroMQ SUB per [feed] (or, with [feed]
   // source = "nats", the NatsFeed of [nats], whose figures join /metrics and
-  // /health), ZeroMQ PUB per [publish], the system clock, signal handling on.
+  // /health), ZeroMQ PUB per [publish] (plus a NATS copy of the updates with
+  // [nats] updates_subject), the system clock, signal handling on.
   static absl::StatusOr<std::unique_ptr<Engine>> CreateFromConfig(const EngineConfig& config);
   ~Engine();
 

@@ -79,6 +79,10 @@ struct NatsConfig {
   // Key-value bucket of the leases ([A-Za-z0-9_-]); created on first use with
   // a TTL of lease_seconds; default "aftershock_leases".
   std::string lease_bucket = "aftershock_leases";
+  // When set, every update is also published as a core NATS message on
+  // "<updates_subject>.<symbol token>" (same body as on ZeroMQ); "" (default) =
+  // ZeroMQ only.
+  std::string updates_subject;
 };
 
 // [bars]: aggregation of ticks into bars.

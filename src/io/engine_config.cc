@@ -501,7 +501,8 @@ bool IsPlainSubject(absl::string_view v) {
 
 absl::Status ParseNats(const Section& s, NatsConfig* c) {
   AS_RETURN_IF_ERROR(s.CheckKeys({"servers", "stream", "subject", "partition_subject",
-                                  "partitions", "lease_seconds", "instance", "lease_bucket"}));
+                                  "partitions", "lease_seconds", "instance", "lease_bucket",
+                                  "updates_subject"}));
   AS_RETURN_IF_ERROR(s.StringArray("servers", &c->servers));
   if (c->servers.empty()) return s.KeyError("servers", "at least one server URL is required");
   for (const std::string& url : c->servers) {
@@ -517,6 +518,7 @@ absl::Status ParseNats(const Section& s, NatsConfig* c) {
   AS_RETURN_IF_ERROR(s.Number("lease_seconds", &c->lease_seconds, 1, 3600, false, false));
   AS_RETURN_IF_ERROR(s.String("instance", &c->instance));
   AS_RETURN_IF_ERROR(s.String("lease_bucket", &c->lease_bucket));
+  AS_RETURN_IF_ERROR(s.String("updates_subject", &c->updates_subject));
   for (const auto& [key, value] : {std::pair<const char*, const std::string*>{"stream", &c->stream},
                                    {"lease_bucket", &c->lease_bucket}}) {
     if (!IsNatsName(*value, 64)) {
@@ -534,6 +536,22 @@ absl::Status ParseNats(const Section& s, NatsConfig* c) {
     if (!IsPlainSubject(*value)) {
       return s.KeyError(key, absl::StrCat("expected a subject like \"ticks\" (tokens separated by "
                                           "'.', no wildcards or spaces), got \"", *value, "\""));
+    }
+  }
+  if (!c->updates_subject.empty()) {
+    if (!IsPlainSubject(c->updates_subject)) {
+      return s.KeyError("updates_subject",
+                        absl::StrCat("expected \"\" or a subject like \"updates\" (tokens separated "
+                                     "by '.', no wildcards or spaces), got \"",
+                                     c->updates_subject, "\""));
+    }
+    for (const std::string* other : {&c->subject, &c->partition_subject}) {
+      if (c->updates_subject == *other ||
+          absl::StartsWith(c->updates_subject, *other + ".") ||
+          absl::StartsWith(*other, c->updates_subject + ".")) {
+        return s.KeyError("updates_subject",
+                          absl::StrCat("must not overlap the tick subject \"", *other, "\""));
+      }
     }
   }
   if (c->subject == c->partition_subject ||
@@ -1091,7 +1109,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
                   "\npartitions = ", c.nats.partitions,
                   "\nlease_seconds = ", num(c.nats.lease_seconds),
                   "\ninstance = ", Quote(c.nats.instance),
-                  "\nlease_bucket = ", Quote(c.nats.lease_bucket), "\n");
+                  "\nlease_bucket = ", Quote(c.nats.lease_bucket),
+                  "\nupdates_subject = ", Quote(c.nats.updates_subject), "\n");
   absl::StrAppend(&o, "\n[publish]\nendpoint = ", Quote(c.publish.endpoint),
                   "\nencoding = ", Quote(WireEncodingName(c.publish.encoding)),
                   "\nhigh_water_mark = ", c.publish.high_water_mark, "\n");

@@ -15,6 +15,7 @@
 
 #include "aftershock/engine_metrics.h"
 #include "aftershock/nats_feed.h"
+#include "aftershock/nats_update_sink.h"
 #include "aftershock/zmq_transport.h"
 #include "streaming/metrics_http.h"
 
@@ -76,6 +77,11 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::CreateFromConfig(const EngineCon
   // NATS feed claims any partition.
   auto sink = (*transport)->Publish(config.publish);
   if (!sink.ok()) return sink.status();
+  if (!config.nats.updates_subject.empty()) {  // a NATS copy of the updates
+    auto tee = NatsUpdateSink::Open(config.nats, *std::move(sink));
+    if (!tee.ok()) return tee.status();
+    sink = std::unique_ptr<UpdateSink>(*std::move(tee));
+  }
   absl::StatusOr<std::unique_ptr<TickSource>> source;
   const MetricsSource* source_metrics = nullptr;
   if (config.feed.source == FeedSource::kNats) {

@@ -622,7 +622,7 @@ TEST_CASE("[alerts] range errors name the key", "[config][alerts]") {
 
 TEST_CASE("every [nats] key: parsed, in default.toml, in the README, formatted", "[config][nats]") {
   const std::vector<std::string> parser = ParserKeys("[nats]");
-  CHECK(parser.size() == 8);
+  CHECK(parser.size() == 9);
   const std::set<std::string> known(parser.begin(), parser.end());
   const std::string dflt =
       testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
@@ -688,6 +688,11 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
   CHECK(ErrorOf("[nats]\nlease_seconds = 0.5\n").find("[nats] lease_seconds") !=
         std::string::npos);
   CHECK(ErrorOf("[nats]\ninstance = \"a b\"\n").find("[nats] instance") != std::string::npos);
+  CHECK(ErrorOf("[nats]\nupdates_subject = \"ticks.u\"\n").find("must not overlap") !=
+        std::string::npos);
+  CHECK(ErrorOf("[nats]\nupdates_subject = \"u.>\"\n").find("[nats] updates_subject") !=
+        std::string::npos);
+  CHECK(ErrorOf("[nats]\nupdates_subject = \"md.updates\"\n") == "ok");
 }
 
 }  // namespace
