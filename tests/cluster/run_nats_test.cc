@@ -88,15 +88,18 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   const std::string dir = testing::ScratchDir("run_nats");
   testing::NatsServer server(dir);
   const double lease = 2;
-  auto config = [&](const std::string& name) {
+  const int http_port = testing::FreeLoopbackPort();  // eng-a's /metrics and /health
+  auto config = [&](const std::string& name, const std::string& http) {
     return testing::WriteFile(
         dir + "/" + name + ".toml",
         "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"" + server.url() +
             "\"]\nlease_seconds = 2\ninstance = \"" + name +
-            "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n[http]\nenabled = false\n"
-            "[bars]\ninterval = \"1m\"\n[refit]\nevery_bars = 0\n");
+            "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n[http]\n" + http +
+            "\n[bars]\ninterval = \"1m\"\n[refit]\nevery_bars = 0\n");
   };
-  const std::string ca = config("eng-a"), cb = config("eng-b");
+  const std::string ca =
+      config("eng-a", "endpoint = \"127.0.0.1:" + std::to_string(http_port) + "\"");
+  const std::string cb = config("eng-b", "enabled = false");
 
   // 4 invented instruments x 50 one-minute bars, one tick a bar.
   const testing::CommandResult sim = testing::RunCli(
@@ -125,8 +128,20 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   auto s = Status(ca);
   CHECK(s["instances"] == nlohmann::json::array({"eng-a"}));
 
-  // Let A read the taken-over partitions, then stop it cleanly.
+  // Let A read the taken-over partitions; its figures show the takeover.
   std::this_thread::sleep_for(std::chrono::milliseconds(1500));
+  const std::string metrics = testing::HttpGet(http_port, "/metrics");
+  INFO(metrics);
+  CHECK(metrics.find("\naftershock_nats_partitions_owned 12\n") != std::string::npos);
+  CHECK(metrics.find("\naftershock_nats_takeovers_total 6\n") != std::string::npos);
+  CHECK(metrics.find("\naftershock_nats_replay_lag_messages 0\n") != std::string::npos);
+  CHECK(metrics.find("\naftershock_nats_messages_total 200\n") != std::string::npos);
+  CHECK(metrics.find("\naftershock_nats_lease_renewals_total 0\n") == std::string::npos);
+  const std::string health = testing::HttpGet(http_port, "/health");
+  INFO(health);
+  CHECK(health.find("\"nats\":{\"instance\":\"eng-a\",\"partitions\":[0,1,2,3,4,5,6,7,8,9,10,11]") !=
+        std::string::npos);
+  CHECK(health.find("\"takeovers\":6") != std::string::npos);
   CHECK(a.Signal(SIGTERM) == 0);
   const std::string err = testing::ReadFileOrDie(a.err_path);
   INFO(err);

@@ -23,7 +23,8 @@ namespace {
 
 bool IsExecutable(const std::string& p) { return access(p.c_str(), X_OK) == 0; }
 
-// A port the kernel considers free now (bound to port 0, then released).
+}  // namespace
+
 int FreeLoopbackPort() {
   const int fd = socket(AF_INET, SOCK_STREAM, 0);
   REQUIRE(fd >= 0);
@@ -37,6 +38,8 @@ int FreeLoopbackPort() {
   close(fd);
   return ntohs(a.sin_port);
 }
+
+namespace {
 
 bool Accepts(int port) {
   const int fd = socket(AF_INET, SOCK_STREAM, 0);

@@ -21,6 +21,10 @@ std::string NatsServerBinary();
 // binary is absent. Never returns in that case.
 void SkipUnlessNatsServer();
 
+// A loopback TCP port the kernel considers free now (bound to port 0, then
+// released; a later bind may still lose a race).
+int FreeLoopbackPort();
+
 class NatsServer {
  public:
   // Starts the server with `config` (default: the shipped config/nats-server.conf)
