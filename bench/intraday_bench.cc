@@ -464,11 +464,8 @@ int Main(int argc, char** argv) {
   std::vector<Variant> variants;
   variants.push_back({"defaults", base});
   variants.push_back({"no seasonality", SetKey(base, "seasonality", "enabled", "false")});
-  variants.push_back({"regime enter 7",
-                      SetKey(base, "alerts", "regime_enter_evidence", "7")});
-  variants.push_back({"regime scale 2, enter 8",
-                      SetKey(SetKey(base, "alerts", "regime_scale", "2"), "alerts",
-                             "regime_enter_evidence", "8")});
+  variants.push_back({"regime enter 7", SetKey(base, "alerts", "regime_enter_evidence", "7")});
+  variants.push_back({"regime enter 5", SetKey(base, "alerts", "regime_enter_evidence", "5")});
   if (only_tries) variants.clear();
   for (const std::string& t : tries) {
     std::vector<std::string> parts;

@@ -175,8 +175,8 @@ struct AlertOptions {
   // Evidence (nats, a log-likelihood ratio) that enters a regime. > 0. Default 10.
   double regime_enter_evidence = 10.0;
   // Evidence (nats) that the variance is back to the forecast that ends a
-  // regime. > 0. Default 3.
-  double regime_exit_evidence = 3.0;
+  // regime. > 0. Default 6.
+  double regime_exit_evidence = 6.0;
   // Degrees of freedom of the standardized Student t law the regime tests
   // assume for z; 0 = normal law. 0 or in (2, 1000]. Default 5.
   double regime_tail_nu = 5.0;

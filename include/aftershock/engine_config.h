@@ -204,7 +204,7 @@ struct AlertsConfig {
   double cooldown_seconds = 0.0;         // seconds of shock cool-down on bar time; 0 = off
   double regime_scale = 3.0;             // variance multiple the regime tests look for; > 1
   double regime_enter_evidence = 10.0;   // nats of evidence that enter a regime; > 0
-  double regime_exit_evidence = 3.0;     // nats of evidence that end a regime; > 0
+  double regime_exit_evidence = 6.0;     // nats of evidence that end a regime; > 0
   double regime_tail_nu = 5.0;           // t law of z the regime tests assume; 0 = normal, > 2
   int64_t regime_warmup_bars = 50;       // bars before the regime statistics start
   double persistence_threshold = 0.995;  // near-integrated persistence alert

@@ -64,7 +64,7 @@ TEST_CASE("an empty document gives the documented defaults", "[engine_config]") 
   CHECK(c->alerts.cooldown_bars == 20);
   CHECK(c->alerts.regime_scale == 3.0);
   CHECK(c->alerts.regime_enter_evidence == 10.0);
-  CHECK(c->alerts.regime_exit_evidence == 3.0);
+  CHECK(c->alerts.regime_exit_evidence == 6.0);
   CHECK(c->alerts.regime_tail_nu == 5.0);
   CHECK(c->alerts.persistence_threshold == 0.995);
   CHECK(c->alerts.stale_seconds == 60);

@@ -12,6 +12,7 @@
 #include "aftershock/alerts.h"
 #include "aftershock/online_filter.h"
 #include "aftershock/simulate.h"
+#include "aftershock/state_codec.h"
 #include "support/alloc_counter.h"
 
 namespace aftershock {
@@ -255,7 +256,7 @@ int BarsTo(double level, double increment) {
 }
 
 TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[alerts]") {
-  AlertOptions o;  // scale 3, enter 10, exit 3, t law with 5 degrees of freedom
+  AlertOptions o;  // scale 3, enter 10, exit 6, t law with 5 degrees of freedom
   o.regime_warmup_bars = 10;
   o.cooldown_bars = 40;
   auto e = Engine(o);
@@ -285,18 +286,18 @@ TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[aler
         "the model's variance forecast (evidence 11.2, enters at 10); expect wider ranges than "
         "forecast and review position sizes.");
   // Calm bars (z = 0.8) build the evidence that the regime is over.
-  const int n_back = BarsTo(3, -d.UpIncrement(0.8));
+  const int n_back = BarsTo(6, -d.UpIncrement(0.8));
   Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.8, n_back - 1);
   CHECK(sink.alerts.size() == 1);
   Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.8, 1);
   REQUIRE(sink.alerts.size() == 2);
   CHECK(sink.alerts[1].kind == AlertKind::kRegimeClear);
   CHECK(sink.alerts[1].severity == Severity::kInfo);
-  CHECK(sink.alerts[1].threshold == 3);
-  CHECK(sink.alerts[1].value >= 3);
+  CHECK(sink.alerts[1].threshold == 6);
+  CHECK(sink.alerts[1].value >= 6);
   CHECK(std::string(sink.alerts[1].message).rfind(
             "ALPHA.X: high-volatility regime ended, moves are back in line with the model's "
-            "variance forecast (evidence 3.",
+            "variance forecast (evidence 6.",
             0) == 0);
   // A re-entry within 40 bars of the clear is suppressed, and so is its clear.
   Drive(e.get(), &st, &sink, "ALPHA.X", &t, 2.5, n_up);
@@ -323,12 +324,67 @@ TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[aler
                 n_down, n_down * d.DownIncrement(0.2));
   CHECK(std::string(sink.alerts[2].message) == want);
   // Lively bars (z = 1.5) end it.
-  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 1.5, BarsTo(3, -d.DownIncrement(1.5)));
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 1.5, BarsTo(6, -d.DownIncrement(1.5)));
   REQUIRE(sink.alerts.size() == 4);
   CHECK(sink.alerts[3].kind == AlertKind::kRegimeClear);
   CHECK(sink.alerts[3].rule == AlertRule::kRegimeLow);
   CHECK(std::string(sink.alerts[3].message).rfind(
             "ALPHA.X: low-volatility regime ended, moves are back in line", 0) == 0);
+}
+
+TEST_CASE("regime state survives a save and restore mid-regime", "[alerts]") {
+  // Run A straight through; run B saves and restores its state inside a high
+  // regime (and again with a low run under way); both emit the same alerts.
+  AlertOptions o;
+  o.regime_warmup_bars = 5;
+  o.cooldown_bars = 0;
+  auto e = Engine(o);
+  std::mt19937_64 rng(21);
+  std::normal_distribution<double> normal;
+  std::vector<double> zs;
+  for (int i = 0; i < 3000; ++i) {
+    const double sd = i < 500 ? 1.0 : (i < 900 ? 2.0 : (i < 1500 ? 0.4 : 1.0));
+    zs.push_back(std::max(-3.9, std::min(3.9, sd * normal(rng))));  // shocks aside
+  }
+  VectorSink a_sink, b_sink;
+  SymbolAlertState a, b;
+  int restores = 0;
+  for (size_t i = 0; i < zs.size(); ++i) {
+    e->OnBar(Bar("ALPHA.X", static_cast<int64_t>(i), zs[i]), &a, &a_sink);
+    e->OnBar(Bar("ALPHA.X", static_cast<int64_t>(i), zs[i]), &b, &b_sink);
+    if (i == 700 || i == 1200 || i == 1499) {
+      StateWriter w;
+      SaveSymbolAlertState(b, &w);
+      const std::string bytes = w.Release();
+      StateReader r(bytes);
+      b = RestoreSymbolAlertState(&r, "ALPHA.X");
+      REQUIRE(r.Finish("ALPHA.X").ok());
+      ++restores;
+      if (i == 700) CHECK(b.regime.direction == RegimeDirection::kHigh);
+      CHECK(b.regime.up == a.regime.up);
+      CHECK(b.regime.down == a.regime.down);
+      CHECK(b.regime.back == a.regime.back);
+      CHECK(b.regime.up_sum_z2 == a.regime.up_sum_z2);
+      CHECK(b.regime.up_bars == a.regime.up_bars);
+      CHECK(b.regime.down_bars == a.regime.down_bars);
+      CHECK(b.regime.bars == a.regime.bars);
+    }
+  }
+  CHECK(restores == 3);
+  REQUIRE(a_sink.alerts.size() == b_sink.alerts.size());
+  REQUIRE(a_sink.alerts.size() >= 4);  // high and low regimes, entered and ended
+  for (size_t i = 0; i < a_sink.alerts.size(); ++i) {
+    CHECK(std::string(a_sink.alerts[i].message) == std::string(b_sink.alerts[i].message));
+  }
+  // A corrupt statistic is refused, not restored.
+  SymbolAlertState bad = a;
+  bad.regime.up = -1;
+  StateWriter w;
+  SaveSymbolAlertState(bad, &w);
+  const std::string bytes = w.Release();
+  StateReader r(bytes);
+  RestoreSymbolAlertState(&r, "ALPHA.X");
+  CHECK_FALSE(r.ok());
 }
 
 TEST_CASE("regime: the rule reads z, so a time-of-day shape is not a regime", "[alerts]") {
