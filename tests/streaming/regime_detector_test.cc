@@ -333,8 +333,8 @@ Delays MeasureDelays(const RegimeDetector& d, VarianceChangeShape shape) {
 
 TEST_CASE("delay after a tripled variance and false entries on GARCH-t", "[regime][measured]") {
   const RegimeDetector def{};  // the shipped defaults
-  const RegimeDetector e7 = Detector(3, 7, 3, 5, 50);
-  const RegimeDetector e5 = Detector(3, 5, 3, 5, 50);
+  const RegimeDetector e7 = Detector(3, 7, 6, 5, 50);  // the defaults but enter
+  const RegimeDetector e5 = Detector(3, 5, 6, 5, 50);
   const Delays step_def = MeasureDelays(def, VarianceChangeShape::kStep);
   const Delays step_e7 = MeasureDelays(e7, VarianceChangeShape::kStep);
   const Delays step_e5 = MeasureDelays(e5, VarianceChangeShape::kStep);
