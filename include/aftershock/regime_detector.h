@@ -97,7 +97,7 @@ struct RegimeState {
   float down_sum_z2 = 0;
   int32_t up_bars = 0;    // bars in up's run (0 when up is 0); saturates at INT32_MAX
   int32_t down_bars = 0;  // bars in down's run
-  int32_t bars = 0;  // bars absorbed since the state was started; saturates at INT32_MAX
+  int32_t bars = 0;       // bars absorbed since the state was started; saturates at INT32_MAX
   RegimeDirection direction = RegimeDirection::kNone;  // current regime
   bool in_regime() const { return direction != RegimeDirection::kNone; }
   // Mean z^2 over up's (down's) run: the variance multiple, relative to the

@@ -56,8 +56,8 @@ enum class VarianceChangeShape : uint8_t { kOmega, kStep };
 // multiplier times the base one. Multipliers are relative to the base process,
 // not cumulative; a change ends the previous one (of either shape).
 struct VarianceRegimeChange {
-  int64_t bar = 0;          // output bar index, 0 <= bar < n
-  double multiplier = 1.0;  // > 0, finite
+  int64_t bar = 0;                                          // output bar index, 0 <= bar < n
+  double multiplier = 1.0;                                  // > 0, finite
   VarianceChangeShape shape = VarianceChangeShape::kOmega;  // default: omega-shaped
 };
 

@@ -782,8 +782,9 @@ absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
                      ") must be 0 (off) or below shock_z (", FormatNumber(c->shock_z), ")"));
   }
   if (c->regime_tail_nu != 0 && !(c->regime_tail_nu > 2)) {
-    return s.KeyError("regime_tail_nu", absl::StrCat("must be 0 (normal law) or larger than 2, got ",
-                                                     FormatNumber(c->regime_tail_nu)));
+    return s.KeyError("regime_tail_nu",
+                      absl::StrCat("must be 0 (normal law) or larger than 2, got ",
+                                   FormatNumber(c->regime_tail_nu)));
   }
   // Backstop: the rules engine accepts everything the checks above accept.
   auto engine = AlertEngine::Create(c->ToAlertOptions());

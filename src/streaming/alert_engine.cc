@@ -280,7 +280,8 @@ void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* s
           a->threshold = options_.regime_enter_evidence;
           Format(a,
                  "%.*s: volatility regime up, over the last %lld bars squared moves averaged %.2f "
-                 "times the model's variance forecast (evidence %.1f, enters at %g); expect wider ranges than "
+                 "times the model's variance forecast (evidence %.1f, enters at %g); expect wider "
+                 "ranges than "
                  "forecast and review position sizes.",
                  len, name, static_cast<long long>(rs.up_bars), rs.up_ratio(), a->value,
                  a->threshold);
@@ -290,7 +291,8 @@ void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* s
           a->threshold = options_.regime_enter_evidence;
           Format(a,
                  "%.*s: volatility regime down, over the last %lld bars squared moves averaged "
-                 "%.2f times the model's variance forecast (evidence %.1f, enters at %g); limits set on the forecast may "
+                 "%.2f times the model's variance forecast (evidence %.1f, enters at %g); limits "
+                 "set on the forecast may "
                  "be loose, review them if it lasts.",
                  len, name, static_cast<long long>(rs.down_bars), rs.down_ratio(), a->value,
                  a->threshold);
@@ -302,8 +304,7 @@ void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* s
           Format(a,
                  "%.*s: %s-volatility regime ended, moves are back in line with the model's "
                  "variance forecast (evidence %.1f, clears at %g); no action needed.",
-                 len, name, ev == RegimeEvent::kClearHigh ? "high" : "low", a->value,
-                 a->threshold);
+                 len, name, ev == RegimeEvent::kClearHigh ? "high" : "low", a->value, a->threshold);
           break;
         case RegimeEvent::kNone:
           break;
@@ -660,7 +661,8 @@ SymbolAlertState RestoreSymbolAlertState(StateReader* r, absl::string_view what)
   if (!r->ok()) return s;
   if (dir < -1 || dir > 1 || sev >= kNumSeverities) {
     r->Fail(f, "unknown regime direction or severity");
-  } else if (!runs_ok || s.regime.bars < 0 || !(s.tick_gap_s >= 0) || !std::isfinite(s.tick_gap_s) || s.gate_failures < 0) {
+  } else if (!runs_ok || s.regime.bars < 0 || !(s.tick_gap_s >= 0) ||
+             !std::isfinite(s.tick_gap_s) || s.gate_failures < 0) {
     r->Fail(f, "a non-finite or negative statistic");
   }
   s.regime.direction = static_cast<RegimeDirection>(dir);

@@ -66,8 +66,8 @@ absl::StatusOr<RegimeDetector> RegimeDetector::Create(const RegimeOptions& o) {
         absl::StrCat("regime_exit_evidence must be in (0, 1e6] nats, got ", o.exit));
   }
   if (!std::isfinite(o.tail_nu) || (o.tail_nu != 0 && !(o.tail_nu > 2)) || o.tail_nu > 1000) {
-    return absl::InvalidArgumentError(absl::StrCat(
-        "regime_tail_nu must be 0 (normal law) or in (2, 1000], got ", o.tail_nu));
+    return absl::InvalidArgumentError(
+        absl::StrCat("regime_tail_nu must be 0 (normal law) or in (2, 1000], got ", o.tail_nu));
   }
   if (o.warmup_bars < 0 || o.warmup_bars > 1000000000) {
     return absl::InvalidArgumentError(

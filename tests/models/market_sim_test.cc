@@ -47,9 +47,8 @@ TEST_CASE("streaming returns equal the batch simulator bit for bit") {
   auto insts = Instruments(3);
   insts[0].regimes = {{10, 4.0}, {40, 0.5}};
   // Step-shaped changes, one after an omega-shaped one.
-  insts[1].regimes = {{15, 3.0, VarianceChangeShape::kStep},
-                      {30, 2.0},
-                      {45, 0.5, VarianceChangeShape::kStep}};
+  insts[1].regimes = {
+      {15, 3.0, VarianceChangeShape::kStep}, {30, 2.0}, {45, 0.5, VarianceChangeShape::kStep}};
   // An ARMA(1,1) mean exercises the full mean recursion as well.
   auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "t");
   REQUIRE(spec.ok());

@@ -247,12 +247,12 @@ TEST_CASE("a step-shaped change scales the process itself from its bar on", "[si
   // shocks, so with the same draws eps_t = sqrt(s) times the unchanged path's,
   // sigma2_t = s times it, z_t the same; the bars before are untouched.
   for (const char* law : {"normal", "t"}) {
-    const auto p = std::string(law) == "t"
-                       ? Make("constant", {}, "garch", {1, 1}, "t",
-                              {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.05},
-                               {"beta1", 0.9}, {"nu", 6.0}})
-                       : Make("zero", {}, "garch", {1, 1}, "normal",
-                              {{"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}});
+    const auto p =
+        std::string(law) == "t"
+            ? Make("constant", {}, "garch", {1, 1}, "t",
+                   {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}, {"nu", 6.0}})
+            : Make("zero", {}, "garch", {1, 1}, "normal",
+                   {{"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}});
     SimulationOptions o;
     o.n = 400;
     o.seed = 17;

@@ -295,10 +295,10 @@ TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[aler
   CHECK(sink.alerts[1].severity == Severity::kInfo);
   CHECK(sink.alerts[1].threshold == 6);
   CHECK(sink.alerts[1].value >= 6);
-  CHECK(std::string(sink.alerts[1].message).rfind(
-            "ALPHA.X: high-volatility regime ended, moves are back in line with the model's "
-            "variance forecast (evidence 6.",
-            0) == 0);
+  CHECK(std::string(sink.alerts[1].message)
+            .rfind("ALPHA.X: high-volatility regime ended, moves are back in line with the model's "
+                   "variance forecast (evidence 6.",
+                   0) == 0);
   // A re-entry within 40 bars of the clear is suppressed, and so is its clear.
   Drive(e.get(), &st, &sink, "ALPHA.X", &t, 2.5, n_up);
   CHECK(st.regime.in_regime());
@@ -328,8 +328,8 @@ TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[aler
   REQUIRE(sink.alerts.size() == 4);
   CHECK(sink.alerts[3].kind == AlertKind::kRegimeClear);
   CHECK(sink.alerts[3].rule == AlertRule::kRegimeLow);
-  CHECK(std::string(sink.alerts[3].message).rfind(
-            "ALPHA.X: low-volatility regime ended, moves are back in line", 0) == 0);
+  CHECK(std::string(sink.alerts[3].message)
+            .rfind("ALPHA.X: low-volatility regime ended, moves are back in line", 0) == 0);
 }
 
 TEST_CASE("regime state survives a save and restore mid-regime", "[alerts]") {

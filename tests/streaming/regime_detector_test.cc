@@ -231,9 +231,8 @@ TEST_CASE("false entries on iid z stay under the exp(-enter) bound per bar", "[r
     double assumed_nu, law_nu;
   };
   const Case cases[] = {
-      {"normal law on normal z", 0, 0},     {"t5 law on normal z", 5, 0},
-      {"t5 law on t8 z", 5, 8},             {"t5 law on t5 z", 5, 5},
-      {"t5 law on t4.5 z", 5, 4.5},
+      {"normal law on normal z", 0, 0}, {"t5 law on normal z", 5, 0}, {"t5 law on t8 z", 5, 8},
+      {"t5 law on t5 z", 5, 5},         {"t5 law on t4.5 z", 5, 4.5},
   };
   uint64_t seed = 300;
   for (const Case& c : cases) {
@@ -332,7 +331,7 @@ Delays MeasureDelays(const RegimeDetector& d, VarianceChangeShape shape) {
 }
 
 TEST_CASE("delay after a tripled variance and false entries on GARCH-t", "[regime][measured]") {
-  const RegimeDetector def{};  // the shipped defaults
+  const RegimeDetector def{};                          // the shipped defaults
   const RegimeDetector e7 = Detector(3, 7, 6, 5, 50);  // the defaults but enter
   const RegimeDetector e5 = Detector(3, 5, 6, 5, 50);
   const Delays step_def = MeasureDelays(def, VarianceChangeShape::kStep);
@@ -341,10 +340,10 @@ TEST_CASE("delay after a tripled variance and false entries on GARCH-t", "[regim
   const Delays omega_def = MeasureDelays(def, VarianceChangeShape::kOmega);
   const Delays omega_e5 = MeasureDelays(e5, VarianceChangeShape::kOmega);
   auto show = [](const char* name, const Delays& x) {
-    std::printf("%s: %d of %d runs entered the high regime within 60 bars, median delay %s\n",
-                name, x.within60, kRuns,
-                std::isinf(x.median) ? "not reached"
-                                     : std::to_string(static_cast<int>(x.median)).c_str());
+    std::printf(
+        "%s: %d of %d runs entered the high regime within 60 bars, median delay %s\n", name,
+        x.within60, kRuns,
+        std::isinf(x.median) ? "not reached" : std::to_string(static_cast<int>(x.median)).c_str());
   };
   show("step x3, defaults (enter 10)", step_def);
   show("step x3, enter 7", step_e7);
