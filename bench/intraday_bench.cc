@@ -7,7 +7,10 @@
 // about (1 + a) times midday's), T price ticks per instrument and bar at random
 // times, an overnight move of the size of `overnight_bars` bars, and, for
 // every fifth instrument, its variance multiplied by `jump` from a bar inside
-// one session (the jump session; the bar differs per instrument).
+// one session (the jump session; the bar differs per instrument). The jump is
+// step-shaped by default (every bar from the jump on has `jump` times the
+// variance it would have had); --jump-shape omega multiplies the model's omega
+// instead, so the variance ramps up over about 1 / (1 - persistence) bars.
 //
 // Each configuration variant replays the same ticks through the engine
 // (IngestCore + EngineServices, replay mode: deterministic) starting from
@@ -26,7 +29,8 @@
 //     QLIKE (Patton 2011: y/h - log(y/h) - 1, y the squared return, h the
 //     published variance) over the evaluated bars.
 //
-// Usage: intraday_bench [--instruments N] [--sessions S] [--seed K] [--quick]
+// Usage: intraday_bench [--instruments N] [--sessions S] [--seed K]
+//                       [--jump-shape step|omega] [--quick] [--try ...] [--only-tries]
 // Output: markdown tables on standard output (what README.md quotes).
 #include <algorithm>
 #include <chrono>
@@ -60,6 +64,10 @@ struct Scenario {
   int ticks_per_bar = 4;
   double overnight_bars = 30;
   double jump = 3.0;
+  // kStep: every bar from the jump on has `jump` times the variance it would
+  // have had (immediate); kOmega: omega times `jump`, so the conditional
+  // variance ramps up over about 1 / (1 - persistence) bars (simulate.h).
+  VarianceChangeShape jump_shape = VarianceChangeShape::kStep;
   int jump_session = 5;  // 0-based
   uint64_t seed = 20261202;
 };
@@ -114,6 +122,7 @@ struct Tally {
   int64_t shocks[kHalfHours] = {};
   int64_t false_regimes = 0;
   int64_t false_high = 0;  // of which high-volatility entries
+  int64_t false_by_half_hour[kHalfHours] = {};  // false entries by the bar's half hour
   int64_t instrument_sessions = 0;
   double qlike = 0;
   int64_t qlike_n = 0;
@@ -176,6 +185,7 @@ class Probe : public BarObserver, public ServiceListener {
       t.detected_bar = sim_bar;
     } else if (session >= sc_.settle) {
       ++tally_.false_regimes;
+      ++tally_.false_by_half_hour[std::min(kHalfHours - 1, k / 30)];
       if (a.rule == AlertRule::kRegimeHigh) ++tally_.false_high;
     }
   }
@@ -209,7 +219,7 @@ absl::StatusOr<std::vector<MarketInstrument>> Universe(const Scenario& sc, doubl
     MarketInstrument m{p.symbol, p.start_price, *params, {}};
     if (i % 5 == 4) {
       const int64_t bar = int64_t{sc.jump_session} * kBarsPerSession + 60 + (i * 37) % 380;
-      m.regimes.push_back(VarianceRegimeChange{bar, sc.jump});
+      m.regimes.push_back(VarianceRegimeChange{bar, sc.jump, sc.jump_shape});
     }
     out.push_back(std::move(m));
   }
@@ -317,20 +327,24 @@ void PrintCalibration(const std::vector<Result>& results) {
     }
     std::printf("\n");
   }
-  std::printf("\n### 99 %% VaR exceptions and shock alerts by half hour\n\n");
+  std::printf(
+      "\n### 99 %% VaR exceptions, shock alerts and false regime entries by half hour\n\n");
   std::printf("| half hour |");
-  for (const auto& r : results) std::printf(" %s exc. (rate) | shocks |", r.name.c_str());
+  for (const auto& r : results) {
+    std::printf(" %s exc. (rate) | shocks | false regimes |", r.name.c_str());
+  }
   std::printf("\n|---|");
-  for (size_t i = 0; i < results.size(); ++i) std::printf("---|---|");
+  for (size_t i = 0; i < results.size(); ++i) std::printf("---|---|---|");
   std::printf("\n");
   for (int h = 0; h < kHalfHours; ++h) {
     const int m0 = 8 * 60 + 30 * h;
     std::printf("| %02d:%02d |", m0 / 60, m0 % 60);
     for (const auto& r : results) {
       const Tally& t = r.tally;
-      std::printf(" %lld (%.2f %%) | %lld |", static_cast<long long>(t.exceptions[h]),
+      std::printf(" %lld (%.2f %%) | %lld | %lld |", static_cast<long long>(t.exceptions[h]),
                   t.var_bars[h] ? 100.0 * t.exceptions[h] / t.var_bars[h] : 0.0,
-                  static_cast<long long>(t.shocks[h]));
+                  static_cast<long long>(t.shocks[h]),
+                  static_cast<long long>(t.false_by_half_hour[h]));
     }
     std::printf("\n");
   }
@@ -409,6 +423,11 @@ int Main(int argc, char** argv) {
       sc.sessions = v;
     } else if (a == "--seed" && next(&v)) {
       sc.seed = static_cast<uint64_t>(v);
+    } else if (a == "--jump-shape" && i + 1 < argc &&
+               (std::strcmp(argv[i + 1], "step") == 0 ||
+                std::strcmp(argv[i + 1], "omega") == 0)) {
+      sc.jump_shape = std::strcmp(argv[++i], "step") == 0 ? VarianceChangeShape::kStep
+                                                          : VarianceChangeShape::kOmega;
     } else if (a == "--quick") {
       sc.instruments = 20;
     } else if (a == "--try" && i + 1 < argc) {
@@ -418,9 +437,14 @@ int Main(int argc, char** argv) {
     } else {
       std::fprintf(stderr,
                    "usage: intraday_bench [--instruments 5..1000] [--sessions 7..100] [--seed K] "
-                   "[--quick] [--try 'LABEL|TABLE.KEY=VALUE|...']... [--only-tries]\n"
+                   "[--jump-shape step|omega] [--quick] [--try 'LABEL|TABLE.KEY=VALUE|...']... "
+                   "[--only-tries]\n"
+                   "  --jump-shape: step (default) multiplies the variance of every bar from the "
+                   "jump on;\n"
+                   "  omega multiplies the model's omega, so the variance ramps up over tens of "
+                   "bars\n"
                    "  --try adds a variant: the defaults with the given keys replaced, e.g.\n"
-                   "  --try 'slow regime|alerts.regime_fast_halflife=30|alerts.regime_enter=2.5'\n");
+                   "  --try 'cautious|alerts.regime_scale=2|alerts.regime_enter_evidence=12'\n");
       return a == "--help" ? 0 : 2;
     }
   }
@@ -440,12 +464,8 @@ int Main(int argc, char** argv) {
   std::vector<Variant> variants;
   variants.push_back({"defaults", base});
   variants.push_back({"no seasonality", SetKey(base, "seasonality", "enabled", "false")});
-  variants.push_back({"regime fast 5, enter 2.5",
-                      SetKey(SetKey(base, "alerts", "regime_fast_halflife", "5"), "alerts",
-                             "regime_enter", "2.5")});
-  variants.push_back({"regime fast 20, enter 1.7",
-                      SetKey(SetKey(base, "alerts", "regime_fast_halflife", "20"), "alerts",
-                             "regime_enter", "1.7")});
+  variants.push_back({"regime enter 7", SetKey(base, "alerts", "regime_enter_evidence", "7")});
+  variants.push_back({"regime enter 5", SetKey(base, "alerts", "regime_enter_evidence", "5")});
   if (only_tries) variants.clear();
   for (const std::string& t : tries) {
     std::vector<std::string> parts;
@@ -470,9 +490,10 @@ int Main(int argc, char** argv) {
   }
   std::printf(
       "## Intraday calibration: %d instruments x %d sessions of 510 one-minute bars, %d price "
-      "ticks per bar,\nU-shape amplitude %.1f, overnight move of %.0f bars, variance x%.1f for "
-      "every fifth instrument in session %d; seed %llu\n",
+      "ticks per bar,\nU-shape amplitude %.1f, overnight move of %.0f bars, variance x%.1f "
+      "(%s) for every fifth instrument in session %d; seed %llu\n",
       sc.instruments, sc.sessions, sc.ticks_per_bar, sc.amplitude, sc.overnight_bars, sc.jump,
+      sc.jump_shape == VarianceChangeShape::kStep ? "step: at once" : "omega: ramping up",
       sc.jump_session + 1, static_cast<unsigned long long>(sc.seed));
   std::vector<Result> results;
   for (const Variant& v : variants) {

@@ -6,10 +6,14 @@
 //   shock        |z| >= shock_info_z / shock_z / shock_critical_z -> info / warn /
 //                critical (two-sided; value = z, threshold = the highest tier crossed).
 //   regime       the RegimeDetector (regime_detector.h) enters its high regime
-//                (warn) or low regime (info); value = the short/long variance ratio,
-//                threshold = regime_enter or 1 / regime_enter. With intraday
-//                seasonality the detector reads deseasonalized residuals (OnBar).
-//   regime_clear the regime ends (info); threshold = regime_exit or 1 / regime_exit.
+//                (warn) or low regime (info): its evidence (nats) that the variance
+//                is regime_scale (1 / regime_scale) times the model's forecast reached
+//                regime_enter_evidence; value = that evidence, threshold =
+//                regime_enter_evidence. The detector reads the standardized residual
+//                z, which with intraday seasonality is already deseasonalized.
+//   regime_clear the regime ends (info): the evidence that the variance is back to
+//                the forecast reached regime_exit_evidence; value = that evidence,
+//                threshold = regime_exit_evidence.
 //   persistence  a model swapped in has persistence >= persistence_threshold (warn).
 //   model        refit failed the quality gate refit_failures times in a row (warn);
 //                a passing refit after such a streak (info); EWMA fallback engaged
@@ -33,10 +37,10 @@
 //     swap, another failed refit in the same streak, fallback engaged again, a
 //     second reject burst within reject_window_seconds of the last alert) is
 //     suppressed and counted. A stale symbol is reported once until a tick arrives.
-//   * Bars flagged first-bar never alert and do not enter the regime averages.
+//   * Bars flagged first-bar never alert and do not enter the regime statistics.
 //     Bars flagged stale (their return spans whole silent bar intervals,
 //     bar_update.h) and bars closed by the clock are ordinary bars here. Bars
-//     flagged warm-up update the regime averages, but their shock and regime
+//     flagged warm-up update the regime statistics, but their shock and regime
 //     alerts are withheld unless alert_during_warmup.
 //   Every alert a rule produced but did not send (cool-down, repeat, warm-up) is
 //   counted as suppressed under the kind and severity it would have had. Repeated
@@ -164,21 +168,20 @@ struct AlertOptions {
   // Seconds of the same shock cool-down measured on bar time; 0 = off.
   // In [0, 1e9]. Default 0.
   double cooldown_seconds = 0.0;
-  // Short/long variance ratio that enters the high regime (1 / it: low).
-  // > regime_exit. Default 2.
-  double regime_enter = 2.0;
-  // Ratio below which the high regime ends (1 / it: the low regime ends).
-  // In [1, regime_enter). Default 1.3.
-  double regime_exit = 1.3;
-  // Half-life of the short-run variance average, bars. > 0. Default 10.
-  double regime_fast_halflife = 10.0;
-  // Half-life of the long-run variance average, bars. > regime_fast_halflife.
-  // Default 250.
-  double regime_slow_halflife = 250.0;
-  // Cap on one bar's squared residual in the regime averages, in units of the
-  // long-run standard deviation; 0 = no cap, else > 1. Default 4.
-  double regime_clip_z = 4.0;
-  // Bars the regime detector absorbs before it may enter a regime. >= 0. Default 50.
+  // Variance multiple the regime statistics test for: the high regime tests
+  // "variance regime_scale times the model's forecast", the low regime "1 /
+  // regime_scale times". > 1. Default 3.
+  double regime_scale = 3.0;
+  // Evidence (nats, a log-likelihood ratio) that enters a regime. > 0. Default 10.
+  double regime_enter_evidence = 10.0;
+  // Evidence (nats) that the variance is back to the forecast that ends a
+  // regime. > 0. Default 6.
+  double regime_exit_evidence = 6.0;
+  // Degrees of freedom of the standardized Student t law the regime tests
+  // assume for z; 0 = normal law. 0 or in (2, 1000]. Default 5.
+  double regime_tail_nu = 5.0;
+  // Bars the regime detector absorbs before its statistics start. In [0, 1e9].
+  // Default 50.
   int64_t regime_warmup_bars = 50;
   // Persistence of a swapped-in model at or above this is a warn alert. In (0, 1).
   // Default 0.995.
@@ -288,15 +291,10 @@ class AlertEngine {
   const AlertCounters& counters() const { return counters_; }
 
   // After FilterStep: the shock and regime rules for one bar of bar.symbol.
-  // REQUIRES: state is this symbol's; sink non-null.
-  // `deseasonalize` is the bar's 1 / s(k) when its update is seasonal
-  // (SeasonalInvScale, seasonal_profile.h), else 1: the regime detector reads
-  // eps * deseasonalize against var * deseasonalize^2, the residual and variance
-  // the filter itself works with, so the time-of-day shape of raw residuals
-  // (loud open and close, quiet midday) is not read as a regime. REQUIRES:
-  // deseasonalize > 0 and finite.
-  void OnBar(const BarUpdate& bar, SymbolAlertState* state, AlertSink* sink,
-             double deseasonalize = 1.0);
+  // Both read bar.z, the residual standardized by the variance the model
+  // forecast for the bar (with seasonality: the seasonal variance, so z is the
+  // deseasonalized filter's own). REQUIRES: state is this symbol's; sink non-null.
+  void OnBar(const BarUpdate& bar, SymbolAlertState* state, AlertSink* sink);
 
   // A new model version was swapped in for `symbol` at t_ns (persistence rule).
   // REQUIRES: an estimated model; the EWMA fallback (persistence 1 by

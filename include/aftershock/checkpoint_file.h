@@ -35,7 +35,10 @@
 
 namespace aftershock {
 
-inline constexpr uint32_t kCheckpointFormatVersion = 1;
+// The version also covers the layout of the engine's sections, so a checkpoint
+// of another layout is refused rather than misread. 2: the regime detector's
+// state became CUSUM statistics (regime_detector.h).
+inline constexpr uint32_t kCheckpointFormatVersion = 2;
 inline constexpr size_t kCheckpointHeaderBytes = 64;
 inline constexpr size_t kCheckpointTrailerBytes = 16;
 inline constexpr size_t kCheckpointSectionHeaderBytes = 16;

@@ -244,12 +244,11 @@ struct AlertsConfig {
   double shock_info_z = 0.0;             // info tier; 0 = off, else in (0, shock_z)
   int cooldown_bars = 20;                // bars of shock cool-down and regime re-entry cool-down
   double cooldown_seconds = 0.0;         // seconds of shock cool-down on bar time; 0 = off
-  double regime_enter = 2.0;             // fast/slow variance ratio that enters the high regime
-  double regime_exit = 1.3;              // ratio below which the regime is left; [1, enter)
-  double regime_fast_halflife = 10;      // bars, fast variance average
-  double regime_slow_halflife = 250;     // bars, slow variance average; > fast
-  double regime_clip_z = 4.0;            // cap of one bar in the regime averages; 0 = none, > 1
-  int64_t regime_warmup_bars = 50;       // bars before the detector may enter a regime
+  double regime_scale = 3.0;             // variance multiple the regime tests look for; > 1
+  double regime_enter_evidence = 10.0;   // nats of evidence that enter a regime; > 0
+  double regime_exit_evidence = 6.0;     // nats of evidence that end a regime; > 0
+  double regime_tail_nu = 5.0;           // t law of z the regime tests assume; 0 = normal, > 2
+  int64_t regime_warmup_bars = 50;       // bars before the regime statistics start
   double persistence_threshold = 0.995;  // near-integrated persistence alert
   int refit_failures = 3;                // failed gates in a row that raise a model alert
   double stale_seconds = 60;             // floor of the stale threshold, seconds in session
@@ -266,11 +265,10 @@ struct AlertsConfig {
     o.shock_info_z = shock_info_z;
     o.cooldown_bars = cooldown_bars;
     o.cooldown_seconds = cooldown_seconds;
-    o.regime_enter = regime_enter;
-    o.regime_exit = regime_exit;
-    o.regime_fast_halflife = regime_fast_halflife;
-    o.regime_slow_halflife = regime_slow_halflife;
-    o.regime_clip_z = regime_clip_z;
+    o.regime_scale = regime_scale;
+    o.regime_enter_evidence = regime_enter_evidence;
+    o.regime_exit_evidence = regime_exit_evidence;
+    o.regime_tail_nu = regime_tail_nu;
     o.regime_warmup_bars = regime_warmup_bars;
     o.persistence_threshold = persistence_threshold;
     o.refit_failures = refit_failures;

@@ -1,34 +1,52 @@
-// RegimeDetector: a per-symbol volatility regime detector with hysteresis
-// (PRODUCT.md C7), the statistic behind the `regime` and `regime_clear` alerts.
+// RegimeDetector: a per-symbol volatility regime detector (PRODUCT.md C7), the
+// statistic behind the `regime` and `regime_clear` alerts. It reads the model's
+// standardized residuals z and asks, bar by bar, whether the recent returns are
+// persistently more (or less) variable than the model forecasts.
 //
-// Definition. For every bar t with residual eps_t (r_t minus the mean forecast):
-//   x_t    = min(eps_t^2, c^2 * S_{t-1})          (c = clip_z; no clip when c = 0)
-//   F_t    = lf * F_{t-1} + (1 - lf) * x_t          lf = 2^(-1 / fast_halflife)
-//   S_t    = ls * S_{t-1} + (1 - ls) * x_t          ls = 2^(-1 / slow_halflife)
-//   R_t    = F_t / S_t
-// F is a short-run and S a long-run average of squared residuals, both in
-// variance units, so R is the short/long variance ratio: about 1 in a steady
-// state, about m shortly after the variance level is multiplied by m. The clip
-// keeps one isolated outlier (the shock rule's business) from entering a regime
-// on its own: a |z| = 8 bar moves F by at most (1 - lf) * c^2 instead of
-// (1 - lf) * 64. Both averages start at the model variance of the first bar
-// seen (BarUpdate::var), so no long presample is needed; the detector stays
-// silent for `warmup_bars` bars.
+// Why z and not raw squared residuals. A conditional-variance model already
+// explains volatility clusters: under the model z is close to iid with unit
+// variance, whereas a ratio of a fast and a slow average of squared returns
+// doubles during an ordinary GARCH cluster. A change of the variance level that
+// the model did not foresee shows up as z^2 above 1 until the filter has caught
+// up, which is what is tested here.
 //
-// The statistic needs only the data, not the model parameters, so a model swap
-// or the EWMA fallback does not disturb it. Once the new level is established
-// the slow average catches up and R returns towards 1: the regime ends when the
-// new variance has become the norm (after roughly one slow half-life or more),
-// not when the volatility falls back.
+// Definition. For every bar t after the warm-up, with k = scale (> 1) and f
+// the density of the standardized law assumed for z (Student t with tail_nu
+// degrees of freedom scaled to unit variance, or N(0, 1) when tail_nu = 0):
+//   g+_t   = ln(f(z_t / sqrt(k)) / sqrt(k)) - ln f(z_t)   log-likelihood ratio of
+//                                                  "variance k" against "variance 1"
+//   g-_t   = the same with 1/k for k                "variance 1/k" against "1"
+//   up_t   = max(0, up_{t-1} + g+_t)                one-sided CUSUM (Page 1954)
+//   down_t = max(0, down_{t-1} + g-_t)
+// For the t law, g(z) = -ln(k)/2 - (nu+1)/2 * [ln(1 + z^2/(k(nu-2))) -
+// ln(1 + z^2/(nu-2))], bounded by (nu/2) ln k, so one outlier (the shock
+// rule's business) adds a limited amount; for the normal law g+ = ((1 - 1/k)
+// z^2 - ln k) / 2. up and down are evidence in nats for "the variance is k
+// times (1/k times) the forecast since some recent bar" against "as
+// forecast". A high (low) regime is entered when up (down) reaches `enter`.
+// When z follows the assumed law, E[exp(g)] = 1, so the average run length
+// between false entries of one statistic is at least exp(enter) bars (Lorden
+// 1971). The t law keeps that roughly true for normal and heavier-tailed z
+// alike, which the normal law does not (under Student-t z, at enter = 8, the
+// normal law's low-regime test fires twice as often as its bound allows);
+// regime_detector_test measures both.
 //
-// States and thresholds (enter > exit >= 1):
-//   none -> high   when R >= enter              (event kEnterHigh)
-//   high -> none   when R <  exit               (event kClearHigh)
-//   none -> low    when R <= 1 / enter          (event kEnterLow)
-//   low  -> none   when R >  1 / exit           (event kClearLow)
-// The gap between enter and exit is the hysteresis: a ratio bouncing around the
-// enter threshold gives one entry, not a flapping sequence. At most one event
-// per bar; a clear and a new entry in the opposite direction need separate bars.
+// Clearing (hysteresis). Once in a regime the detector runs the opposite test,
+//   back_t = max(0, back_{t-1} - g+_t)   (high)   or   - g-_t   (low),
+// from 0 at the entry: evidence that z is back to unit variance against the
+// regime's k. The regime ends when back reaches `exit`; the ending clears up
+// and down, so a new entry needs fresh evidence (back keeps its value until the
+// next entry, for the clear's alert text). Because the model's
+// filter absorbs a lasting level change within about 1 / (1 - beta) bars, a
+// regime ends once the model forecasts the new level, not when the volatility
+// falls back.
+//
+// States: none -> high (kEnterHigh) -> none (kClearHigh); none -> low
+// (kEnterLow) -> none (kClearLow). At most one event per bar.
+//
+// up and down also keep the length and the sum of z^2 of their current run
+// (the bars since they were last 0): the run's mean z^2 estimates the variance
+// multiple behind the evidence, for the alert texts.
 //
 // Thread-safety: RegimeDetector is immutable after Create and may be shared; a
 // RegimeState belongs to the thread that updates it (the ingest thread).
@@ -43,21 +61,23 @@
 namespace aftershock {
 
 struct RegimeOptions {
-  // Ratio R at or above which the high-volatility regime is entered; its
-  // reciprocal enters the low regime. > exit. Default 2.
-  double enter = 2.0;
-  // Ratio below which the high regime ends; its reciprocal ends the low regime.
-  // In [1, enter). Default 1.3.
-  double exit = 1.3;
-  // Half-life of the short-run average F, in bars. > 0. Default 10.
-  double fast_halflife = 10.0;
-  // Half-life of the long-run average S, in bars. > fast_halflife. Default 250.
-  double slow_halflife = 250.0;
-  // Squared residuals are capped at clip_z^2 times the long-run average before
-  // they enter either average. 0 disables the cap; otherwise > 1. Default 4.
-  double clip_z = 4.0;
-  // The first warmup_bars bars absorbed enter no regime (the averages still
-  // update). >= 0. Default 50.
+  // Variance multiple k the tests are tuned to: the high regime tests
+  // "variance k times the forecast", the low regime "1/k times". > 1. Default 3.
+  double scale = 3.0;
+  // Evidence (nats) at which a regime is entered. > 0. Default 10: at least
+  // exp(10) ~ 22,000 bars between false entries of each statistic when z
+  // follows the assumed law.
+  double enter = 10.0;
+  // Evidence (nats) that the regime is over at which it ends. > 0. Default 6:
+  // while the variance stays k times the forecast, a false ending comes about
+  // once in 75,000 bars (normal z); back at the forecast, the regime ends
+  // after about 50 bars.
+  double exit = 6.0;
+  // Degrees of freedom of the standardized Student t law the tests assume for
+  // z; 0 = normal law. 0 or in (2, 1000]. Default 5.
+  double tail_nu = 5.0;
+  // Bars absorbed before the statistics start (the model's first forecasts are
+  // rough). In [0, 1e9]. Default 50.
   int64_t warmup_bars = 50;
 };
 
@@ -67,17 +87,26 @@ absl::string_view RegimeDirectionName(RegimeDirection d);
 
 enum class RegimeEvent : uint8_t { kNone, kEnterHigh, kClearHigh, kEnterLow, kClearLow };
 
-// Per-symbol detector state; plain fixed-size value (32 bytes + flags).
+// Per-symbol detector state; plain fixed-size value (48 bytes).
 struct RegimeState {
-  double fast = 0;   // F, short-run average of squared residuals (variance units)
-  double slow = 0;   // S, long-run average of squared residuals (variance units)
-  double ratio = 1;  // R = F / S after the last update
-  int64_t bars = 0;  // bars absorbed since the state was started
+  double up = 0;    // evidence (nats) for variance `scale` times the forecast
+  double down = 0;  // evidence (nats) for variance 1 / `scale` times the forecast
+  double back = 0;  // in a regime: evidence (nats) that it is over
+  // Sums of z^2 over up's and down's current runs; float: display only.
+  float up_sum_z2 = 0;
+  float down_sum_z2 = 0;
+  int32_t up_bars = 0;    // bars in up's run (0 when up is 0); saturates at INT32_MAX
+  int32_t down_bars = 0;  // bars in down's run
+  int32_t bars = 0;       // bars absorbed since the state was started; saturates at INT32_MAX
   RegimeDirection direction = RegimeDirection::kNone;  // current regime
   bool in_regime() const { return direction != RegimeDirection::kNone; }
+  // Mean z^2 over up's (down's) run: the variance multiple, relative to the
+  // forecast, that its evidence rests on; 1 for an empty run.
+  double up_ratio() const { return up_bars > 0 ? up_sum_z2 / up_bars : 1.0; }
+  double down_ratio() const { return down_bars > 0 ? down_sum_z2 / down_bars : 1.0; }
 };
 
-// Turns residuals into regime events. Cheap to copy (a few doubles).
+// Turns standardized residuals into regime events. Cheap to copy.
 class RegimeDetector {
  public:
   RegimeDetector() : RegimeDetector(RegimeOptions{}) {}  // the (valid) defaults
@@ -86,22 +115,31 @@ class RegimeDetector {
   static absl::StatusOr<RegimeDetector> Create(const RegimeOptions& options);
 
   const RegimeOptions& options() const { return options_; }
-  double enter_low() const { return 1.0 / options_.enter; }  // R at or below: enter low
-  double exit_low() const { return 1.0 / options_.exit; }    // R above: leave low
 
-  // Absorbs one bar with residual `eps` and model variance `var` (the variance
-  // used to standardize the bar; it only seeds the first update). Bars with a
-  // non-finite eps, or a first bar without a positive finite var, are ignored
-  // (kNone, state unchanged). Hot path: no allocation, no I/O.
-  RegimeEvent Update(double eps, double var, RegimeState* state) const;
+  // Absorbs one bar's standardized residual z (eps / sqrt(var) of the model in
+  // force). A non-finite z is ignored (kNone, state unchanged). Hot path: no
+  // allocation, no I/O.
+  RegimeEvent Update(double z, RegimeState* state) const;
+
+  // The log-likelihood-ratio increments g+ and g- for one z (definitions
+  // above); exposed for tests.
+  double UpIncrement(double z) const { return Increment(z, 1.0 / k_, a_up_); }
+  double DownIncrement(double z) const { return Increment(z, k_, a_down_); }
 
  private:
   explicit RegimeDetector(const RegimeOptions& options);
 
+  // ln of the density ratio of z under variance 1/inv_k against variance 1;
+  // a = (1 - inv_k) / 2 is the normal law's coefficient of z^2.
+  double Increment(double z, double inv_k, double a) const;
+
   RegimeOptions options_;
-  double lf_;     // 2^(-1 / fast_halflife)
-  double ls_;     // 2^(-1 / slow_halflife)
-  double clip2_;  // clip_z^2, or +inf when the cap is off
+  double k_;           // scale
+  double a_up_;        // (1 - 1/k) / 2
+  double a_down_;      // (1 - k) / 2
+  double half_log_k_;  // ln(k) / 2
+  double t_c_;         // 1 / (nu - 2) for the t law
+  double t_e_;         // (nu + 1) / 2 for the t law
 };
 
 }  // namespace aftershock

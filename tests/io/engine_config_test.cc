@@ -62,10 +62,10 @@ TEST_CASE("an empty document gives the documented defaults", "[engine_config]") 
   CHECK(c->alerts.shock_z == 4.0);
   CHECK(c->alerts.shock_critical_z == 6.0);
   CHECK(c->alerts.cooldown_bars == 20);
-  CHECK(c->alerts.regime_enter == 2.0);
-  CHECK(c->alerts.regime_exit == 1.3);
-  CHECK(c->alerts.regime_fast_halflife == 10);
-  CHECK(c->alerts.regime_slow_halflife == 250);
+  CHECK(c->alerts.regime_scale == 3.0);
+  CHECK(c->alerts.regime_enter_evidence == 10.0);
+  CHECK(c->alerts.regime_exit_evidence == 6.0);
+  CHECK(c->alerts.regime_tail_nu == 5.0);
   CHECK(c->alerts.persistence_threshold == 0.995);
   CHECK(c->alerts.stale_seconds == 60);
   CHECK(c->alerts.reject_burst == 100);
@@ -243,9 +243,6 @@ TEST_CASE("every error class names file, line, section and key", "[engine_config
   // Cross-field rules.
   CHECK(ErrorOf("[refit]\nwindow = 100\n") ==
         "config.toml:2: [refit] window: min_bars (200) must not exceed window (100)");
-  CHECK(ErrorOf("[alerts]\nregime_exit = 2.5\n") ==
-        "config.toml:2: [alerts] regime_exit: regime_exit (2.5) must be < regime_enter (2) for "
-        "hysteresis");
   CHECK(ErrorOf("[alerts]\nshock_z = 7\n") ==
         "config.toml:2: [alerts] shock_z: shock_critical_z (6) must be >= shock_z (7)");
 }
@@ -322,8 +319,8 @@ symbols = ["BRANDR*", "SKJOLD.GAS"]
 shock_z = 3.5
 [alerts.groups.fx]
 symbols = ["HALVARD.FX"]
-regime_enter = 3
-regime_exit = 1.5
+regime_enter_evidence = 12
+regime_exit_evidence = 4
 )",
                              "groups.toml");
   INFO(c.status().message());
@@ -338,7 +335,9 @@ regime_exit = 1.5
   CHECK(e.Matches("SKJOLD.GAS"));
   CHECK_FALSE(e.Matches("SKJOLD.GAS2"));
   CHECK_FALSE(e.Matches("VARDE.PWR"));
-  CHECK(c->alert_groups[1].alerts.regime_enter == 3);
+  CHECK(c->alert_groups[1].alerts.regime_enter_evidence == 12);
+  CHECK(c->alert_groups[1].alerts.regime_exit_evidence == 4);
+  CHECK(c->alert_groups[1].alerts.regime_scale == 3);  // the default
   CHECK(c->alert_groups[1].alerts.shock_z == 4.5);
   // The groups survive formatting.
   auto again = ParseEngineConfig(FormatEngineConfig(*c), "formatted.toml");
@@ -361,10 +360,11 @@ TEST_CASE("alert group errors name the group, key and line", "[config][alerts]")
   REQUIRE_FALSE(unknown.ok());
   CHECK(std::string(unknown.status().message()).rfind(
             "g.toml:3: [alerts.groups.g] unknown key 'shock'", 0) == 0);
-  auto hysteresis = ParseEngineConfig(
-      "[alerts.groups.g]\nsymbols = [\"A\"]\nregime_exit = 2.5\n", "g.toml");
-  REQUIRE_FALSE(hysteresis.ok());
-  CHECK(std::string(hysteresis.status().message()).find("for hysteresis") != std::string::npos);
+  auto scale = ParseEngineConfig(
+      "[alerts.groups.g]\nsymbols = [\"A\"]\nregime_scale = 1\n", "g.toml");
+  REQUIRE_FALSE(scale.ok());
+  CHECK(std::string(scale.status().message()) ==
+        "g.toml:3: [alerts.groups.g] regime_scale: must be in (1, 1e+06], got 1");
 }
 
 }  // namespace
@@ -431,7 +431,7 @@ TEST_CASE("every [alerts] key: parsed, in default.toml, in the README, formatted
   std::vector<std::string> parser = ParserKeys("[alerts]");
   // `groups` introduces the group tables; it is no threshold.
   parser.erase(std::remove(parser.begin(), parser.end(), "groups"), parser.end());
-  CHECK(parser.size() == 18);
+  CHECK(parser.size() == 17);
   const std::set<std::string> known(parser.begin(), parser.end());
 
   // config/default.toml lists every key the parser knows, and nothing else, and
@@ -515,11 +515,10 @@ TEST_CASE("[alerts] defaults equal AlertOptions' and every key reaches its optio
   CHECK(c.shock_info_z == d.shock_info_z);
   CHECK(c.cooldown_bars == d.cooldown_bars);
   CHECK(c.cooldown_seconds == d.cooldown_seconds);
-  CHECK(c.regime_enter == d.regime_enter);
-  CHECK(c.regime_exit == d.regime_exit);
-  CHECK(c.regime_fast_halflife == d.regime_fast_halflife);
-  CHECK(c.regime_slow_halflife == d.regime_slow_halflife);
-  CHECK(c.regime_clip_z == d.regime_clip_z);
+  CHECK(c.regime_scale == d.regime_scale);
+  CHECK(c.regime_enter_evidence == d.regime_enter_evidence);
+  CHECK(c.regime_exit_evidence == d.regime_exit_evidence);
+  CHECK(c.regime_tail_nu == d.regime_tail_nu);
   CHECK(c.regime_warmup_bars == d.regime_warmup_bars);
   CHECK(c.persistence_threshold == d.persistence_threshold);
   CHECK(c.refit_failures == d.refit_failures);
@@ -535,11 +534,10 @@ shock_critical_z = 6.5
 shock_info_z = 3.1
 cooldown_bars = 7
 cooldown_seconds = 90
-regime_enter = 2.4
-regime_exit = 1.2
-regime_fast_halflife = 12
-regime_slow_halflife = 300
-regime_clip_z = 5
+regime_scale = 2.5
+regime_enter_evidence = 8
+regime_exit_evidence = 2
+regime_tail_nu = 7
 regime_warmup_bars = 40
 persistence_threshold = 0.99
 refit_failures = 2
@@ -552,7 +550,7 @@ alert_during_warmup = true
 symbols = ["G*"]
 shock_info_z = 2.5
 cooldown_seconds = 10
-regime_clip_z = 0
+regime_tail_nu = 0
 regime_warmup_bars = 5
 refit_failures = 4
 stale_gap_multiple = 0
@@ -567,11 +565,10 @@ alert_during_warmup = false
   CHECK(o.shock_info_z == 3.1);
   CHECK(o.cooldown_bars == 7);
   CHECK(o.cooldown_seconds == 90);
-  CHECK(o.regime_enter == 2.4);
-  CHECK(o.regime_exit == 1.2);
-  CHECK(o.regime_fast_halflife == 12);
-  CHECK(o.regime_slow_halflife == 300);
-  CHECK(o.regime_clip_z == 5);
+  CHECK(o.regime_scale == 2.5);
+  CHECK(o.regime_enter_evidence == 8);
+  CHECK(o.regime_exit_evidence == 2);
+  CHECK(o.regime_tail_nu == 7);
   CHECK(o.regime_warmup_bars == 40);
   CHECK(o.persistence_threshold == 0.99);
   CHECK(o.refit_failures == 2);
@@ -584,7 +581,7 @@ alert_during_warmup = false
   const AlertOptions g = p->alert_groups[0].alerts.ToAlertOptions();
   CHECK(g.shock_info_z == 2.5);
   CHECK(g.cooldown_seconds == 10);
-  CHECK(g.regime_clip_z == 0);
+  CHECK(g.regime_tail_nu == 0);
   CHECK(g.regime_warmup_bars == 5);
   CHECK(g.refit_failures == 4);
   CHECK(g.stale_gap_multiple == 0);
@@ -601,10 +598,17 @@ TEST_CASE("[alerts] range errors name the key", "[config][alerts]") {
   CHECK(ErrorOf("[alerts]\nshock_info_z = 4\n") ==
         "config.toml:2: [alerts] shock_info_z: shock_info_z (4) must be 0 (off) or below shock_z "
         "(4)");
-  CHECK(ErrorOf("[alerts]\nregime_clip_z = 0.5\n") ==
-        "config.toml:2: [alerts] regime_clip_z: must be 0 (no cap) or larger than 1, got 0.5");
-  CHECK(ErrorOf("[alerts]\nregime_exit = 0.9\n") ==
-        "config.toml:2: [alerts] regime_exit: must be in [1, inf), got 0.9");
+  CHECK(ErrorOf("[alerts]\nregime_tail_nu = 1.5\n") ==
+        "config.toml:2: [alerts] regime_tail_nu: must be 0 (normal law) or larger than 2, got 1.5");
+  CHECK(ErrorOf("[alerts]\nregime_exit_evidence = 0\n") ==
+        "config.toml:2: [alerts] regime_exit_evidence: must be in (0, 1e+06], got 0");
+  CHECK(ErrorOf("[alerts]\nregime_enter_evidence = -1\n") ==
+        "config.toml:2: [alerts] regime_enter_evidence: must be in (0, 1e+06], got -1");
+  CHECK(ErrorOf("[alerts]\nregime_scale = 0.5\n") ==
+        "config.toml:2: [alerts] regime_scale: must be in (1, 1e+06], got 0.5");
+  // The removed ratio detector's keys are unknown now.
+  CHECK(ErrorOf("[alerts]\nregime_enter = 2\n").find("unknown key 'regime_enter'") !=
+        std::string::npos);
   CHECK(ErrorOf("[alerts]\nrefit_failures = 0\n") ==
         "config.toml:2: [alerts] refit_failures: must be in 1..1000000, got 0");
   CHECK(ErrorOf("[alerts]\nregime_warmup_bars = -1\n")

@@ -46,6 +46,9 @@ TEST_CASE("streaming returns equal the batch simulator bit for bit") {
   // Source: Simulate (simulate.h) with the per-instrument seed of market_sim.h.
   auto insts = Instruments(3);
   insts[0].regimes = {{10, 4.0}, {40, 0.5}};
+  // Step-shaped changes, one after an omega-shaped one.
+  insts[1].regimes = {
+      {15, 3.0, VarianceChangeShape::kStep}, {30, 2.0}, {45, 0.5, VarianceChangeShape::kStep}};
   // An ARMA(1,1) mean exercises the full mean recursion as well.
   auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "t");
   REQUIRE(spec.ok());
@@ -57,7 +60,7 @@ TEST_CASE("streaming returns equal the batch simulator bit for bit") {
                                              {"beta1", 0.9},
                                              {"nu", 6.0}});
   REQUIRE(arma.ok());
-  insts.push_back({"ARMA.TEST", 50.0, *arma, {{5, 2.0}}});
+  insts.push_back({"ARMA.TEST", 50.0, *arma, {{5, 2.0}, {20, 3.0, VarianceChangeShape::kStep}}});
   MarketSimOptions o;
   o.bars = 60;
   o.seed = 42;

@@ -242,6 +242,49 @@ TEST_CASE("a regime change scales the variance by its multiplier", "[simulate]")
   }
 }
 
+TEST_CASE("a step-shaped change scales the process itself from its bar on", "[simulate]") {
+  // simulate.h: under a step the variance recursion runs on the unscaled
+  // shocks, so with the same draws eps_t = sqrt(s) times the unchanged path's,
+  // sigma2_t = s times it, z_t the same; the bars before are untouched.
+  for (const char* law : {"normal", "t"}) {
+    const auto p =
+        std::string(law) == "t"
+            ? Make("constant", {}, "garch", {1, 1}, "t",
+                   {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}, {"nu", 6.0}})
+            : Make("zero", {}, "garch", {1, 1}, "normal",
+                   {{"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}});
+    SimulationOptions o;
+    o.n = 400;
+    o.seed = 17;
+    auto base = Simulate(p, o);
+    REQUIRE(base.ok());
+    o.regime_changes = {{100, 3.0, VarianceChangeShape::kStep},
+                        {250, 0.5, VarianceChangeShape::kStep}};
+    auto step = Simulate(p, o);
+    REQUIRE(step.ok());
+    for (int t = 0; t < 400; ++t) {
+      INFO(law << " bar " << t);
+      const double s = t < 100 ? 1.0 : (t < 250 ? 3.0 : 0.5);
+      CHECK(step->z[t] == base->z[t]);
+      CHECK(step->sigma2[t] == Approx(s * base->sigma2[t]).epsilon(1e-13));
+      CHECK(step->eps[t] == Approx(std::sqrt(s) * base->eps[t]).epsilon(1e-13));
+    }
+  }
+  // The omega shape, by contrast, only ramps: one bar after the change the
+  // GARCH variance has moved by (m - 1) omega, far from m times.
+  const auto g = Make("zero", {}, "garch", {1, 1}, "normal",
+                      {{"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}});
+  SimulationOptions o;
+  o.n = 200;
+  o.seed = 18;
+  auto base = Simulate(g, o);
+  o.regime_changes = {{100, 3.0}};
+  auto omega = Simulate(g, o);
+  REQUIRE(base.ok());
+  REQUIRE(omega.ok());
+  CHECK(omega->sigma2[100] == Approx(base->sigma2[100] + 2 * 0.05).epsilon(1e-12));
+}
+
 TEST_CASE("every variance kind and ARMA order simulates", "[simulate]") {
   const auto arch = Make("arma", {2, 0}, "arch", {3}, "normal",
                          {{"mu", 0.0},

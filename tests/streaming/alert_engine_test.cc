@@ -12,6 +12,7 @@
 #include "aftershock/alerts.h"
 #include "aftershock/online_filter.h"
 #include "aftershock/simulate.h"
+#include "aftershock/state_codec.h"
 #include "support/alloc_counter.h"
 
 namespace aftershock {
@@ -242,115 +243,181 @@ TEST_CASE("first-bar, stale and warm-up bars", "[alerts]") {
   CHECK(sink.alerts.size() == 1);
 }
 
-// Feeds residuals that put the detector's ratio on each target in turn (the
-// cap is off in these engines, see regime_detector_test.cc for the algebra).
-void DriveRatio(AlertEngine* e, SymbolAlertState* st, AlertSink* sink, const char* sym, int64_t* t,
-                const std::vector<double>& targets) {
-  const RegimeOptions& o = e->detector().options();
-  const double lf = std::exp2(-1.0 / o.fast_halflife);
-  const double ls = std::exp2(-1.0 / o.slow_halflife);
-  for (double target : targets) {
-    double eps = 1.0;
-    if (st->regime.bars > 0) {
-      const RegimeState& s = st->regime;
-      const double x = (target * ls * s.slow - lf * s.fast) / ((1 - lf) - target * (1 - ls));
-      REQUIRE(x >= 0);
-      eps = std::sqrt(x);
-    }
-    BarUpdate u = Bar(sym, (*t)++ * kSec, 0.0);
-    u.eps = eps;  // z = 0 keeps the shock rule out
-    e->OnBar(u, st, sink);
-  }
+// Feeds n bars of standardized residual z (the shock rule stays quiet below 4).
+void Drive(AlertEngine* e, SymbolAlertState* st, AlertSink* sink, const char* sym, int64_t* t,
+           double z, int n) {
+  for (int i = 0; i < n; ++i) e->OnBar(Bar(sym, (*t)++ * kSec, z), st, sink);
 }
 
-std::vector<double> Ramp(double from, double to, int n) {
-  std::vector<double> v;
-  for (int i = 1; i <= n; ++i) v.push_back(from + (to - from) * i / n);
-  return v;
+// Bars of a constant z until a statistic with that increment reaches `level`.
+int BarsTo(double level, double increment) {
+  REQUIRE(increment > 0);
+  return static_cast<int>(std::ceil(level / increment));
 }
 
 TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[alerts]") {
-  AlertOptions o;
-  o.regime_clip_z = 0;
+  AlertOptions o;  // scale 3, enter 10, exit 6, t law with 5 degrees of freedom
   o.regime_warmup_bars = 10;
   o.cooldown_bars = 40;
   auto e = Engine(o);
+  const RegimeDetector& d = e->detector();
   VectorSink sink;
   SymbolAlertState st;
   int64_t t = 0;
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, std::vector<double>(20, 1.0));
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(1.0, 2.3, 10));
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 1.0, 20);
+  CHECK(sink.alerts.empty());
+  // z = 2.5 (variance 6.25 times the forecast): g+ = 1.2432 a bar, so the
+  // ninth bar brings the evidence to 11.19 >= 10.
+  const int n_up = BarsTo(10, d.UpIncrement(2.5));
+  CHECK(n_up == 9);
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 2.5, n_up - 1);
+  CHECK(sink.alerts.empty());
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 2.5, 1);
   REQUIRE(sink.alerts.size() == 1);
-  CHECK(st.regime.in_regime());
   CHECK(st.regime.direction == RegimeDirection::kHigh);
   const Alert& in = sink.alerts[0];
   CHECK(in.kind == AlertKind::kRegime);
   CHECK(in.rule == AlertRule::kRegimeHigh);
   CHECK(in.severity == Severity::kWarn);
-  CHECK(in.threshold == 2);
+  CHECK(in.threshold == 10);
+  CHECK(in.value == Approx(9 * d.UpIncrement(2.5)));
   CHECK(std::string(in.message) ==
-        "ALPHA.X: volatility regime up, short-term variance is 2.04 times its long-run average "
-        "(enters at 2); expect wider ranges and review position sizes.");
-  // Down below the exit threshold: the clear.
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(2.3, 1.25, 20));
+        "ALPHA.X: volatility regime up, over the last 9 bars squared moves averaged 6.25 times "
+        "the model's variance forecast (evidence 11.2, enters at 10); expect wider ranges than "
+        "forecast and review position sizes.");
+  // Calm bars (z = 0.8) build the evidence that the regime is over.
+  const int n_back = BarsTo(6, -d.UpIncrement(0.8));
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.8, n_back - 1);
+  CHECK(sink.alerts.size() == 1);
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.8, 1);
   REQUIRE(sink.alerts.size() == 2);
   CHECK(sink.alerts[1].kind == AlertKind::kRegimeClear);
   CHECK(sink.alerts[1].severity == Severity::kInfo);
-  CHECK(sink.alerts[1].threshold == 1.3);
-  CHECK(std::string(sink.alerts[1].message) ==
-        "ALPHA.X: high-volatility regime ended, short-term variance is 1.25 times its long-run "
-        "average (clears below 1.3); no action needed.");
+  CHECK(sink.alerts[1].threshold == 6);
+  CHECK(sink.alerts[1].value >= 6);
+  CHECK(std::string(sink.alerts[1].message)
+            .rfind("ALPHA.X: high-volatility regime ended, moves are back in line with the model's "
+                   "variance forecast (evidence 6.",
+                   0) == 0);
   // A re-entry within 40 bars of the clear is suppressed, and so is its clear.
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(1.25, 2.1, 8));
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 2.5, n_up);
   CHECK(st.regime.in_regime());
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(2.1, 1.0, 25));
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.8, n_back);
   CHECK_FALSE(st.regime.in_regime());
   CHECK(sink.alerts.size() == 2);
   CHECK(e->counters().Suppressed(AlertKind::kRegime, Severity::kWarn) == 1);
   CHECK(e->counters().Suppressed(AlertKind::kRegimeClear, Severity::kInfo) == 1);
-  // Low regime after the cool-down: entry is info, its threshold 1 / enter.
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, std::vector<double>(40, 1.0));
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(1.0, 0.45, 25));
+  // Low regime after the cool-down (z = 0.8 adds nothing to either test): z =
+  // 0.2 is a variance 0.04 times the forecast; the entry is info.
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.8, 40);
+  const int n_down = BarsTo(10, d.DownIncrement(0.2));
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.2, n_down);
   REQUIRE(sink.alerts.size() == 3);
   CHECK(sink.alerts[2].rule == AlertRule::kRegimeLow);
   CHECK(sink.alerts[2].severity == Severity::kInfo);
-  CHECK(sink.alerts[2].threshold == 0.5);
-  CHECK(std::string(sink.alerts[2].message) ==
-        "ALPHA.X: volatility regime down, short-term variance is 0.49 times its long-run "
-        "average (enters at 0.5); limits set on the old level may be loose, review them if it "
-        "lasts.");
-  DriveRatio(e.get(), &st, &sink, "ALPHA.X", &t, Ramp(0.45, 0.9, 25));
+  CHECK(sink.alerts[2].threshold == 10);
+  char want[512];
+  std::snprintf(want, sizeof(want),
+                "ALPHA.X: volatility regime down, over the last %d bars squared moves averaged "
+                "0.04 times the model's variance forecast (evidence %.1f, enters at 10); limits "
+                "set on the forecast may be loose, review them if it lasts.",
+                n_down, n_down * d.DownIncrement(0.2));
+  CHECK(std::string(sink.alerts[2].message) == want);
+  // Lively bars (z = 1.5) end it.
+  Drive(e.get(), &st, &sink, "ALPHA.X", &t, 1.5, BarsTo(6, -d.DownIncrement(1.5)));
   REQUIRE(sink.alerts.size() == 4);
-  CHECK(std::string(sink.alerts[3].message) ==
-        "ALPHA.X: low-volatility regime ended, short-term variance is 0.77 times its long-run "
-        "average (clears above 0.769); no action needed.");
+  CHECK(sink.alerts[3].kind == AlertKind::kRegimeClear);
+  CHECK(sink.alerts[3].rule == AlertRule::kRegimeLow);
+  CHECK(std::string(sink.alerts[3].message)
+            .rfind("ALPHA.X: low-volatility regime ended, moves are back in line", 0) == 0);
 }
 
-TEST_CASE("regime: seasonal bars are read in deseasonalized units", "[alerts]") {
-  // A steady deseasonalized variance of 1 under a time-of-day shape whose
-  // variance is 4 times midday's for the first 60 bars of each 510-bar session:
-  // read raw, every open looks like a high regime; read with 1 / s(k), none.
+TEST_CASE("regime state survives a save and restore mid-regime", "[alerts]") {
+  // Run A straight through; run B saves and restores its state inside a high
+  // regime (and again with a low run under way); both emit the same alerts.
   AlertOptions o;
-  o.regime_clip_z = 0;
+  o.regime_warmup_bars = 5;
+  o.cooldown_bars = 0;
+  auto e = Engine(o);
+  std::mt19937_64 rng(21);
+  std::normal_distribution<double> normal;
+  std::vector<double> zs;
+  for (int i = 0; i < 3000; ++i) {
+    const double sd = i < 500 ? 1.0 : (i < 900 ? 2.0 : (i < 1500 ? 0.4 : 1.0));
+    zs.push_back(std::max(-3.9, std::min(3.9, sd * normal(rng))));  // shocks aside
+  }
+  VectorSink a_sink, b_sink;
+  SymbolAlertState a, b;
+  int restores = 0;
+  for (size_t i = 0; i < zs.size(); ++i) {
+    e->OnBar(Bar("ALPHA.X", static_cast<int64_t>(i), zs[i]), &a, &a_sink);
+    e->OnBar(Bar("ALPHA.X", static_cast<int64_t>(i), zs[i]), &b, &b_sink);
+    if (i == 700 || i == 1200 || i == 1499) {
+      StateWriter w;
+      SaveSymbolAlertState(b, &w);
+      const std::string bytes = w.Release();
+      StateReader r(bytes);
+      b = RestoreSymbolAlertState(&r, "ALPHA.X");
+      REQUIRE(r.Finish("ALPHA.X").ok());
+      ++restores;
+      if (i == 700) CHECK(b.regime.direction == RegimeDirection::kHigh);
+      CHECK(b.regime.up == a.regime.up);
+      CHECK(b.regime.down == a.regime.down);
+      CHECK(b.regime.back == a.regime.back);
+      CHECK(b.regime.up_sum_z2 == a.regime.up_sum_z2);
+      CHECK(b.regime.up_bars == a.regime.up_bars);
+      CHECK(b.regime.down_bars == a.regime.down_bars);
+      CHECK(b.regime.bars == a.regime.bars);
+    }
+  }
+  CHECK(restores == 3);
+  REQUIRE(a_sink.alerts.size() == b_sink.alerts.size());
+  REQUIRE(a_sink.alerts.size() >= 4);  // high and low regimes, entered and ended
+  for (size_t i = 0; i < a_sink.alerts.size(); ++i) {
+    CHECK(std::string(a_sink.alerts[i].message) == std::string(b_sink.alerts[i].message));
+  }
+  // A corrupt statistic is refused, not restored.
+  SymbolAlertState bad = a;
+  bad.regime.up = -1;
+  StateWriter w;
+  SaveSymbolAlertState(bad, &w);
+  const std::string bytes = w.Release();
+  StateReader r(bytes);
+  RestoreSymbolAlertState(&r, "ALPHA.X");
+  CHECK_FALSE(r.ok());
+}
+
+TEST_CASE("regime: the rule reads z, so a time-of-day shape is not a regime", "[alerts]") {
+  // Residuals with a steady deseasonalized variance of 1 under a time-of-day
+  // shape whose variance is 4 times midday's for the first 60 bars of each
+  // 510-bar session. Standardized by the seasonal variance (what the engine
+  // publishes as var, so z is the deseasonalized filter's), no regime; the same
+  // residuals against a flat variance read every open as a high regime.
+  AlertOptions o;
   o.regime_warmup_bars = 10;
   o.cooldown_bars = 0;
   auto e = Engine(o);
-  VectorSink raw_sink, adj_sink;
-  SymbolAlertState raw, adj;
+  VectorSink flat_sink, seasonal_sink;
+  SymbolAlertState flat, seasonal;
+  std::mt19937_64 rng(5);
+  std::normal_distribution<double> normal;
   for (int i = 0; i < 5 * 510; ++i) {
     const int k = i % 510;
-    const double s2 = k < 60 ? 4.0 : 0.5;  // s(k)^2
-    BarUpdate u = Bar("ALPHA.X", i, 1.0, kFlagSeasonal);
-    u.var = s2;             // published seasonal variance s^2 h, h = 1
-    u.eps = std::sqrt(s2);  // |z| = 1 on every bar
-    e->OnBar(u, &raw, &raw_sink);
-    e->OnBar(u, &adj, &adj_sink, 1.0 / std::sqrt(s2));
+    const double s2 = k < 60 ? 4.0 : 0.6;  // s(k)^2
+    const double x = normal(rng);
+    BarUpdate u = Bar("ALPHA.X", i, 0.0, kFlagSeasonal);
+    u.eps = std::sqrt(s2) * x;
+    u.var = s2;  // published seasonal variance s^2 h, h = 1
+    u.z = x;
+    if (std::fabs(u.z) < 4) e->OnBar(u, &seasonal, &seasonal_sink);  // shocks aside
+    u.var = 1.0;
+    u.z = u.eps;
+    if (std::fabs(u.z) < 4) e->OnBar(u, &flat, &flat_sink);
   }
-  int raw_regimes = 0;
-  for (const Alert& a : raw_sink.alerts) raw_regimes += a.kind == AlertKind::kRegime ? 1 : 0;
-  CHECK(raw_regimes >= 4);
-  CHECK(adj_sink.alerts.empty());
-  CHECK(adj.regime.ratio == Approx(1.0).epsilon(1e-9));
+  int flat_regimes = 0;
+  for (const Alert& a : flat_sink.alerts) flat_regimes += a.kind == AlertKind::kRegime ? 1 : 0;
+  CHECK(flat_regimes >= 4);
+  CHECK(seasonal_sink.alerts.empty());
 }
 
 TEST_CASE("persistence alert on a near-integrated swap, once per episode", "[alerts]") {
@@ -833,12 +900,11 @@ TEST_CASE("bad alert options are clear errors", "[alerts]") {
   REQUIRE_FALSE(c.ok());
   CHECK(std::string(c.status().message()) == "persistence_threshold must be in (0, 1), got 1");
   o = AlertOptions{};
-  o.regime_exit = 0.9;
+  o.regime_exit_evidence = 0;
   auto d = AlertEngine::Create(o);
   REQUIRE_FALSE(d.ok());
   CHECK(std::string(d.status().message()) ==
-        "regime thresholds need 1 <= regime_exit < regime_enter, got regime_exit = 0.9 and "
-        "regime_enter = 2");
+        "regime_exit_evidence must be in (0, 1e6] nats, got 0");
   o = AlertOptions{};
   o.reject_burst = 0;
   auto f = AlertEngine::Create(o);
