@@ -119,7 +119,7 @@ class EngineCapture {
   // Any one thread, never concurrently with Capture or another Serialize.
   absl::Status Serialize(const EngineConfig& config, std::string* file);
 
-  uint64_t symbols() const { return symbols_; }      // at the last Capture
+  uint64_t symbols() const { return symbols_; }       // at the last Capture
   int64_t created_ns() const { return created_ns_; }  // of the last Capture
 
  private:

@@ -38,8 +38,7 @@ std::string OsReason() { return std::error_code(errno, std::generic_category()).
 // checksummed on the writer thread of a live engine and at every restore.
 // Compiled for SSE 4.2 whatever the build's target, and only called where
 // the CPU has it (Crc32cState).
-__attribute__((target("sse4.2"))) uint32_t Crc32cHardware(uint32_t reg, const char* p,
-                                                          size_t n) {
+__attribute__((target("sse4.2"))) uint32_t Crc32cHardware(uint32_t reg, const char* p, size_t n) {
   uint64_t r = reg;
   for (; n >= 8; n -= 8, p += 8) {
     uint64_t v;

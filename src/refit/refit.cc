@@ -745,9 +745,9 @@ void RefitCoordinator::CaptureState(StateCapture* capture) const {
   RefitCapture& c = *static_cast<RefitCapture*>(capture);
   const Counters& k = counters_;
   int i = 0;
-  for (const std::atomic<uint64_t>* v : {&k.due, &k.submitted, &k.coalesced, &k.dropped,
-                                         &k.swapped, &k.rejected, &k.refit_errors, &k.fallbacks,
-                                         &k.replay_waits, &k.pooled}) {
+  for (const std::atomic<uint64_t>* v :
+       {&k.due, &k.submitted, &k.coalesced, &k.dropped, &k.swapped, &k.rejected, &k.refit_errors,
+        &k.fallbacks, &k.replay_waits, &k.pooled}) {
     c.counters[i++] = v->load(std::memory_order_relaxed);
   }
   if (options_.seasonal) {

@@ -37,9 +37,9 @@ void RollingWindow::CopyTo(std::vector<double>* out) const {
 
 void RollingWindow::SyncFrom(const RollingWindow& live) {
   const int64_t fresh = live.total_ - total_;
-  const bool follows =
-      capacity_ == live.capacity_ && has_tags() == live.has_tags() && fresh >= 0 &&
-      fresh <= capacity_ && std::min<int64_t>(capacity_, size_ + fresh) == live.size_;
+  const bool follows = capacity_ == live.capacity_ && has_tags() == live.has_tags() && fresh >= 0 &&
+                       fresh <= capacity_ &&
+                       std::min<int64_t>(capacity_, size_ + fresh) == live.size_;
   if (!follows) {
     if (capacity_ != live.capacity_ || tags_.size() != live.tags_.size()) {
       buf_.assign(live.buf_.size(), 0.0);

@@ -53,7 +53,7 @@ std::string JsonString(absl::string_view text) {
 // the lock/unlock pairs on mu).
 struct Checkpointer::Shared {
   refit_internal::Mutex mu;
-  std::condition_variable cv;  // signalled on queued and on busy -> false
+  std::condition_variable cv;               // signalled on queued and on busy -> false
   bool queued ABSL_GUARDED_BY(mu) = false;  // a refilled capture waits for the writer
   bool busy ABSL_GUARDED_BY(mu) = false;    // the capture is taken (see above)
   bool stop ABSL_GUARDED_BY(mu) = false;

@@ -97,7 +97,7 @@ class ServicesCapture : public StateCapture {
   const bool windows;
   // Switches, marks and the alert engines' state, as SaveState lays them out.
   StateWriter feed;
-  StateWriter pool;  // the seasonal pool's state (seasonality without refits)
+  StateWriter pool;                   // the seasonal pool's state (seasonality without refits)
   std::vector<SymbolRecord> symbols;  // by core index
   const std::unique_ptr<StateCapture> refit;  // the coordinator's; null without refits
 };

@@ -439,9 +439,9 @@ class CoreCapture : public StateCapture {
     // Per symbol: name, bar and filter state, model, flags, counters (about
     // 560 bytes without warm-up returns); reserved so the string rarely regrows.
     w->Reserve(256 + symbols.size() * 640);
-    for (uint64_t v : {c.messages_in, c.ticks_in, c.ticks_accepted, c.bars, c.bars_clock_closed,
-                       c.updates_out, c.drops, c.non_finite_output, c.extra_out, c.extra_drops,
-                       c.model_swaps}) {
+    for (uint64_t v :
+         {c.messages_in, c.ticks_in, c.ticks_accepted, c.bars, c.bars_clock_closed, c.updates_out,
+          c.drops, c.non_finite_output, c.extra_out, c.extra_drops, c.model_swaps}) {
       w->U64(v);
     }
     for (uint64_t v : c.rejects.by_reason) w->U64(v);
