@@ -12,7 +12,11 @@
 // Binary encoding carries the targets; JSON is reported beside it.
 //   * (--checkpoint-latency, alone) tick->update latency for 10,000 symbols
 //     with refit services, with and without checkpoints every second.
-// Usage: engine_bench [--quick] [--replay-only] [--latency-only] | --checkpoint-latency
+//   * (--checkpoint-cost, alone) the checkpoint's ingest-thread capture
+//     (live, refilled in place, against a whole capture), serialize and write
+//     times and size for 1,000 and 10,000 symbols, apart from the feed.
+// Usage: engine_bench [--quick] [--replay-only] [--latency-only]
+//        | --checkpoint-latency [symbols] | --checkpoint-cost
 #include <sys/prctl.h>
 #include <time.h>
 
@@ -21,6 +25,7 @@
 #include <charconv>
 #include <chrono>
 #include <cstdio>
+#include <cstdlib>
 #include <cstring>
 #include <filesystem>
 #include <future>
@@ -581,6 +586,68 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
               p99[0] > 0 ? static_cast<double>(p99[1]) / static_cast<double>(p99[0]) : -1.0);
 }
 
+// The checkpoint's cost apart from the feed (no sockets, a manual clock): a
+// core with refit services (as CheckpointLatency) holding `per_symbol`
+// returns per symbol; then `rounds` rounds of one tick per symbol, each
+// followed by a checkpoint as a live engine takes it (EngineCapture, refilled
+// in place: the ingest thread's pause) and, for comparison, by a whole
+// capture (CaptureEngineState, the encoding of everything). Prints the
+// median and max of both, the file size and the writer's serialize (encode +
+// checksums) and write (temp file, fsyncs, rename) times. The live and whole
+// files are compared byte for byte.
+void CheckpointCost(int symbols, int per_symbol, int rounds) {
+  LiveExtras x;
+  x.services = true;
+  x.max_symbols = symbols;
+  const EngineConfig c = LiveConfig(BenchConfig(WireEncoding::kBinary), x);
+  NullSink sink;
+  ManualClock clock(kT0);
+  auto core = *IngestCore::Create(c, &sink, &clock);
+  ServiceOptions so;
+  so.mode = RefitMode::kLive;
+  auto services = *EngineServices::Attach(core.get(), c, so);
+  int64_t t = kT0;
+  uint64_t i = 0;
+  auto round = [&] {
+    ++t;
+    for (int k = 0; k < symbols; ++k) core->OnTick(MakeTick(k, t, Ret(i++)));
+  };
+  for (int k = 0; k < per_symbol; ++k) round();
+  EngineCapture live(core.get(), services.get());
+  std::vector<double> live_ms, whole_ms, serialize_ms, write_ms;
+  size_t bytes = 0;
+  bool same = true;
+  std::string file;  // reused, as the checkpointer does
+  const std::string path =
+      (std::filesystem::temp_directory_path() / "aftershock_engine_bench_cost.ckpt").string();
+  for (int k = 0; k < rounds; ++k) {
+    round();
+    const auto a = std::chrono::steady_clock::now();
+    live.Capture(t);
+    const auto b = std::chrono::steady_clock::now();
+    (void)live.Serialize(c, &file);
+    const auto d = std::chrono::steady_clock::now();
+    (void)WriteFileAtomically(path, file);
+    const auto e = std::chrono::steady_clock::now();
+    const EngineSnapshot snap = CaptureEngineState(*core, services.get(), t);
+    const auto f = std::chrono::steady_clock::now();
+    same = same && *SerializeEngineSnapshot(snap, c) == file;
+    live_ms.push_back(Secs(a, b) * 1e3);
+    serialize_ms.push_back(Secs(b, d) * 1e3);
+    write_ms.push_back(Secs(d, e) * 1e3);
+    whole_ms.push_back(Secs(e, f) * 1e3);
+    bytes = file.size();
+  }
+  std::remove(path.c_str());
+  for (auto* v : {&live_ms, &whole_ms, &serialize_ms, &write_ms}) std::sort(v->begin(), v->end());
+  auto med = [](const std::vector<double>& v) { return v[v.size() / 2]; };
+  std::printf(
+      "%6d symbols x %3d returns: %9zu bytes; ingest-thread capture: live %6.2f ms (max %6.2f), "
+      "whole %6.2f ms (max %6.2f); writer: serialize %6.1f ms, write %6.1f ms; files %s\n",
+      symbols, per_symbol, bytes, med(live_ms), live_ms.back(), med(whole_ms), whole_ms.back(),
+      med(serialize_ms), med(write_ms), same ? "identical" : "DIFFER");
+}
+
 }  // namespace
 }  // namespace aftershock
 
@@ -589,11 +656,17 @@ int main(int argc, char** argv) {
   bool quick = false, replay_only = false, latency_only = false;
   for (int i = 1; i < argc; ++i) {
     if (std::strcmp(argv[i], "--checkpoint-latency") == 0) {
-      // Only the checkpoint scenario: 10,000 symbols, 50k ticks/s for 6 s
-      // (6 checkpoints), with and without.
+      // Only the checkpoint scenario: 10,000 symbols (or the count given
+      // next), 50k ticks/s for 6 s (6 checkpoints), with and without.
+      const int symbols = i + 1 < argc ? std::atoi(argv[i + 1]) : 10000;
       std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us",
                   "p99.9 us");
-      CheckpointLatency(10000, 50000, 6.0, 1.0);
+      CheckpointLatency(symbols > 0 ? symbols : 10000, 50000, 6.0, 1.0);
+      return 0;
+    }
+    if (std::strcmp(argv[i], "--checkpoint-cost") == 0) {
+      CheckpointCost(1000, 250, 9);
+      CheckpointCost(10000, 100, 9);
       return 0;
     }
     if (std::strcmp(argv[i], "--quick") == 0) quick = true;

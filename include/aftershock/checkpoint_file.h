@@ -94,6 +94,11 @@ class Checkpoint {
 absl::StatusOr<std::string> SerializeCheckpoint(
     const CheckpointHeader& header,
     const std::vector<std::pair<uint32_t, absl::string_view>>& sections);
+// The same file written into *out (its content replaced, its capacity kept, so
+// a periodic writer reuses one buffer). On error *out is unspecified.
+absl::Status SerializeCheckpointInto(
+    const CheckpointHeader& header,
+    const std::vector<std::pair<uint32_t, absl::string_view>>& sections, std::string* out);
 
 // Checks and splits a file's bytes. DataLoss naming the problem (truncated,
 // checksum of which section, trailing bytes...), FailedPrecondition for a
@@ -110,8 +115,11 @@ absl::StatusOr<Checkpoint> ReadCheckpointFile(const std::string& path);
 // Errors name the step and the OS reason.
 absl::Status WriteFileAtomically(const std::string& path, absl::string_view bytes);
 
-// CRC-32C of bytes (see above).
+// CRC-32C of bytes (see above): the CPU's crc32 instruction where it has one
+// (x86-64 with SSE 4.2), else the table-driven Crc32cPortable; the same value.
 uint32_t Crc32c(absl::string_view bytes);
+// CRC-32C of bytes, table-driven (Boost.CRC) on every CPU.
+uint32_t Crc32cPortable(absl::string_view bytes);
 // A stable 64-bit fingerprint (CRC-64/XZ: ECMA-182 polynomial, reflected, init
 // and final XOR all ones; check value 0x995DC9BBDF1939FA for "123456789"),
 // identical across builds and runs, for configuration text.

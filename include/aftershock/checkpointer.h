@@ -3,18 +3,22 @@
 //
 // On the ingest thread, at a clock tick (BarObserver::OnClock: between
 // batches, at a bar boundary), when `every_seconds` of wall clock have passed
-// since the last snapshot, the engine's state is captured
-// (CaptureEngineState: an encoding of the state into memory, the only part
-// that costs the ingest thread anything) and handed to a background writer
-// thread, which builds the file (checksums) and writes it crash-consistently
+// since the last snapshot, the engine's state is captured into the
+// checkpointer's EngineCapture (engine_checkpoint.h, state_capture.h: the
+// only part that costs the ingest thread anything; it copies the flat
+// per-symbol values and the returns pushed since the previous capture,
+// holds the models in force by pointer, and allocates only for symbols and
+// refit jobs new since then) and handed to a background writer thread, which
+// encodes it, builds the file (checksums) and writes it crash-consistently
 // (WriteFileAtomically). One write at a time: a snapshot due while a write is
 // in flight is skipped and counted. WriteNow() (shutdown) waits for the write
 // in flight, then captures and writes synchronously.
 //
 // Metrics (MetricsSource): aftershock_checkpoint_writes_total,
-// _failures_total, _skipped_total, _last_size_bytes, _last_write_seconds and
-// _age_seconds (since the last successful write's snapshot; -1 before one),
-// _last_capture_seconds (the pause the last snapshot cost the ingest thread).
+// _failures_total, _skipped_total, _last_size_bytes, _last_write_seconds
+// (encode, checksums and disk) and _age_seconds (since the last successful
+// write's snapshot; -1 before one), _last_capture_seconds (the pause the last
+// snapshot cost the ingest thread).
 // /health (MetricsSource::AppendHealthJson) adds
 //   "restored":{"symbols":N,"age_seconds":X,"file":"..."} (null: a fresh start)
 //   "checkpoint":{"file":"...","writes":N,"failures":N,"age_seconds":X}
@@ -24,17 +28,16 @@
 //
 // Thread-safety: OnClock, WriteNow, SetRestored, AppendPrometheus and
 // AppendHealthJson on the ingest thread (or before the engine runs / after it
-// stopped); stats() from any thread. The core and the
-// services must outlive the checkpointer; the destructor waits for the write
-// in flight and joins the writer.
+// stopped); stats() and last_error() from any thread. The capture is handed
+// between the ingest thread and the writer under a mutex with a "busy" token
+// (checkpointer.cc): whoever holds the token is the only thread touching the
+// capture. The core and the services must outlive the checkpointer; the
+// destructor waits for the write in flight and joins the writer.
 #ifndef AFTERSHOCK_CHECKPOINTER_H_
 #define AFTERSHOCK_CHECKPOINTER_H_
 
-#include <atomic>
-#include <condition_variable>
 #include <cstdint>
 #include <memory>
-#include <mutex>
 #include <optional>
 #include <string>
 #include <thread>
@@ -76,8 +79,11 @@ struct CheckpointStats {
 
 class Checkpointer : public BarObserver, public MetricsSource {
  public:
-  // Starts the writer thread. InvalidArgument for an empty path or a negative
-  // or non-finite period. REQUIRES: core, clock non-null; services may be null.
+  // Fills the capture once (the symbols known now, e.g. restored) and starts
+  // the writer thread (at niceness 10 on Linux: it yields the CPU to ingest).
+  // InvalidArgument for an empty path or a negative or non-finite period.
+  // REQUIRES: core, clock non-null; services may be null; called on the
+  // core's thread before the engine runs (or between batches).
   static absl::StatusOr<std::unique_ptr<Checkpointer>> Create(const CheckpointerOptions& options,
                                                               const EngineConfig& config,
                                                               const IngestCore* core,
@@ -109,30 +115,29 @@ class Checkpointer : public BarObserver, public MetricsSource {
   void AppendHealthJson(std::string* out) const override;
 
  private:
+  struct Shared;  // the state shared with the writer thread (checkpointer.cc)
+
   Checkpointer(const CheckpointerOptions& options, const EngineConfig& config,
                const IngestCore* core, const EngineServices* services, Clock* clock);
   void WriterLoop();
-  absl::Status Write(const EngineSnapshot& snapshot);  // any thread; updates the stats
+  // Encodes the capture and writes the file; updates the stats. Called by the
+  // holder of the busy token (the writer, or WriteNow).
+  absl::Status Write();
 
   // ---- constant after construction ----
   const CheckpointerOptions options_;
   const EngineConfig config_;
-  const IngestCore* const core_;
-  const EngineServices* const services_;
   Clock* const clock_;
   const int64_t period_ns_;
+  // The capture, refilled at each snapshot. Not guarded by a mutex: used only
+  // by the holder of Shared::busy (see checkpointer.cc).
+  const std::unique_ptr<EngineCapture> capture_;
+  std::string file_;  // the file's bytes, reused; likewise the token holder's only
+  const std::unique_ptr<Shared> shared_;
   // ---- ingest thread ----
   int64_t next_due_ns_ = 0;
   std::optional<CheckpointRestore> restored_;
-  // ---- guarded by mu_ ----
-  mutable std::mutex mu_;
-  std::condition_variable cv_;
-  std::optional<EngineSnapshot> queued_;  // handed to the writer
-  bool busy_ = false;                     // a snapshot is queued or being written
-  bool stop_ = false;
-  CheckpointStats stats_;
-  std::string last_error_;
-  // ---- the writer ----
+  // ---- the writer (last: started after everything above) ----
   std::thread writer_;
 };
 

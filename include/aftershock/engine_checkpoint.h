@@ -23,15 +23,27 @@
 // apply from the next bar.
 //
 // Writing is split so that a live engine never waits for the disk:
-// CaptureEngineState (ingest thread, between batches: encodes the state) and
-// SerializeEngineSnapshot + WriteFileAtomically (any thread).
+//   * replay and tools: CaptureEngineState (the core's thread: encodes the
+//     whole state) and SerializeEngineSnapshot + WriteFileAtomically (any
+//     thread);
+//   * a live engine (checkpointer.h): an EngineCapture kept from one
+//     checkpoint to the next. EngineCapture::Capture on the ingest thread
+//     copies only what the components' captures need (state_capture.h: flat
+//     per-symbol values, pointers to immutable models, the returns pushed
+//     since the previous capture); EngineCapture::Serialize encodes and
+//     builds the file on the writer thread. The file is byte for byte the one
+//     CaptureEngineState + SerializeEngineSnapshot would give at the same
+//     point (tests/streaming/engine_checkpoint_test.cc checks it).
 //
-// Thread-safety: CaptureEngineState and RestoreEngineState on the core's
-// thread; the others are pure functions of their arguments.
+// Thread-safety: CaptureEngineState, EngineCapture::Capture and
+// RestoreEngineState on the core's thread; EngineCapture::Serialize on any
+// one thread while no Capture into the same EngineCapture runs; the others
+// are pure functions of their arguments.
 #ifndef AFTERSHOCK_ENGINE_CHECKPOINT_H_
 #define AFTERSHOCK_ENGINE_CHECKPOINT_H_
 
 #include <cstdint>
+#include <memory>
 #include <string>
 #include <utility>
 #include <vector>
@@ -42,6 +54,7 @@
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
+#include "aftershock/state_capture.h"
 
 namespace aftershock {
 
@@ -80,6 +93,46 @@ EngineSnapshot CaptureEngineState(const IngestCore& core, const EngineServices* 
 // The checkpoint file's bytes for a snapshot under `config`.
 absl::StatusOr<std::string> SerializeEngineSnapshot(const EngineSnapshot& snapshot,
                                                     const EngineConfig& config);
+
+// A live engine's state captured for a checkpoint, refilled in place at each
+// checkpoint (state_capture.h), so that a capture costs the ingest thread a
+// copy of the flat per-symbol values and the returns pushed since the
+// previous capture, not an encoding of every window. Owns the components'
+// captures, which hold shared references to the immutable models and
+// profiles in force at the capture.
+class EngineCapture {
+ public:
+  // REQUIRES: core non-null; services may be null (no "SERV" section); both
+  // outlive the capture and are the ones it is always captured from.
+  EngineCapture(const IngestCore* core, const EngineServices* services);
+  EngineCapture(const EngineCapture&) = delete;
+  EngineCapture& operator=(const EngineCapture&) = delete;
+
+  // Brings the capture up to the engine's state now; `created_ns` is the wall
+  // clock stamped in the header. Ingest thread, between batches.
+  void Capture(int64_t created_ns);
+  // The checkpoint file's bytes of the last Capture under `config` (the same
+  // bytes SerializeEngineSnapshot(CaptureEngineState(...)) gives at that
+  // point), written into *file (content replaced, capacity kept). The
+  // sections are encoded into buffers the capture keeps, so a periodic
+  // writer that also keeps *file allocates nothing once the sizes settled.
+  // Any one thread, never concurrently with Capture or another Serialize.
+  absl::Status Serialize(const EngineConfig& config, std::string* file);
+
+  uint64_t symbols() const { return symbols_; }       // at the last Capture
+  int64_t created_ns() const { return created_ns_; }  // of the last Capture
+
+ private:
+  const IngestCore* const core_;
+  const EngineServices* const services_;
+  const std::unique_ptr<StateCapture> core_capture_;
+  const std::unique_ptr<StateCapture> services_capture_;  // null without services
+  uint64_t symbols_ = 0;
+  int64_t created_ns_ = 0;
+  // Serialize's section buffers (reused; capacity kept between checkpoints).
+  std::string core_bytes_;
+  std::string services_bytes_;
+};
 
 // OK when the checkpoint was written under a configuration with the same
 // state-relevant settings; FailedPrecondition naming each section that

@@ -52,6 +52,7 @@
 #include "aftershock/model_registry.h"
 #include "aftershock/model_store.h"
 #include "aftershock/refit.h"
+#include "aftershock/state_capture.h"
 #include "aftershock/state_codec.h"
 
 namespace aftershock {
@@ -115,8 +116,20 @@ class EngineServices {
   // alert engines' own state (counters, the feed-wide reject window); the
   // rejected-tick mark and the stale rule's session / first-tick marks; and
   // the refit coordinator's state (RefitCoordinator::SaveState) when refits
-  // are on. Ingest thread, between bars.
+  // are on. Ingest thread, between bars. Equivalent to CaptureState into a
+  // fresh NewStateCapture(), then its Encode.
   virtual void SaveState(StateWriter* w) const = 0;
+  // Live checkpoints (state_capture.h): an empty capture of the services'
+  // state (the coordinator's capture inside it).
+  virtual std::unique_ptr<StateCapture> NewStateCapture() const = 0;
+  // Brings `capture` up to the services' state now: per symbol the alert
+  // state and fallback are copied and a tagged window's mirror follows with
+  // the new returns; the alert engines' and the pool's small feed-wide
+  // state is encoded into the capture's reused buffers; then the
+  // coordinator's CaptureState. Allocates only for new symbols and new refit
+  // jobs. Ingest thread, between bars. REQUIRES: capture from these services'
+  // NewStateCapture, not being encoded concurrently.
+  virtual void CaptureState(StateCapture* capture) const = 0;
   // Restores what SaveState wrote. REQUIRES: fresh services attached to a
   // core whose state was just restored (IngestCore::RestoreState, which
   // registers the symbols here in order), nothing fed yet. Validates

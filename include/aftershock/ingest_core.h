@@ -87,6 +87,7 @@
 #include "aftershock/engine_config.h"
 #include "aftershock/online_filter.h"
 #include "aftershock/seasonal_profile.h"
+#include "aftershock/state_capture.h"
 #include "aftershock/state_codec.h"
 #include "aftershock/tick_source.h"
 #include "aftershock/update_sink.h"
@@ -244,8 +245,20 @@ class IngestCore : public TickConsumer {
   // state, the model in force (parameters and version; the output options
   // come from the configuration), seasonal profile, status and carried flags,
   // warm-up start buffer and counters. Observer extras are not included (their
-  // owners save them). Ingest thread, between bars.
+  // owners save them). Ingest thread, between bars. Equivalent to
+  // CaptureState into a fresh NewStateCapture(), then its Encode.
   void SaveState(StateWriter* w) const;
+  // Live checkpoints (state_capture.h): an empty capture of this core's state
+  // (storage reserved for the core's reserved symbol slots, address space only).
+  std::unique_ptr<StateCapture> NewStateCapture() const;
+  // Brings `capture` up to the core's state now; its Encode then writes what
+  // SaveState would write now. Per symbol it copies the flat values (bar
+  // builder, filter state, flags, warm-up returns held, counters) and
+  // re-points the model and profile only where they changed; the name is
+  // copied once. Allocates only for symbols new since the previous capture.
+  // Ingest thread, between bars. REQUIRES: capture from this core's
+  // NewStateCapture, not being encoded concurrently.
+  void CaptureState(StateCapture* capture) const;
   // Restores what SaveState wrote. REQUIRES: a freshly created core with no
   // symbols, built from a configuration with the same state-relevant settings
   // (the checkpoint's fingerprint checks that), observers already added. Every

@@ -97,6 +97,7 @@
 #include "aftershock/refit_scheduler.h"
 #include "aftershock/refitter.h"
 #include "aftershock/rolling_window.h"
+#include "aftershock/state_capture.h"
 #include "aftershock/state_codec.h"
 
 namespace aftershock {
@@ -222,8 +223,22 @@ class RefitCoordinator {
   // inputs (window and tags copy, pool snapshot, version in force and warm
   // start, reidentify decision, seed, fit index, scheduled and apply bars,
   // version number). Ingest thread; the workers may be running (only inputs
-  // they do not write are read).
+  // they do not write are read). Equivalent to CaptureState into a fresh
+  // NewStateCapture(), then its Encode.
   void SaveState(StateWriter* w) const;
+  // Live checkpoints (state_capture.h): an empty capture of this
+  // coordinator's state.
+  std::unique_ptr<StateCapture> NewStateCapture() const;
+  // Brings `capture` up to the coordinator's state now; its Encode then writes
+  // what SaveState would write now (the version table is built by Encode).
+  // Per symbol: the window mirror follows with the returns pushed since the
+  // previous capture (RollingWindow::SyncFrom), the schedule and counters are
+  // copied, versions are held by pointer (re-pointed only when changed), and
+  // a pending job's inputs are copied once per job (its fit index tells a new
+  // job). Allocates only for new symbols and new jobs. Ingest thread, the
+  // same as SaveState. REQUIRES: capture from this coordinator's
+  // NewStateCapture, not being encoded concurrently.
+  void CaptureState(StateCapture* capture) const;
   // Restores what SaveState wrote and re-submits the pending jobs with their
   // saved inputs, so each produces the same result as the saved one would
   // have (replay applies it at the same bar). REQUIRES: a fresh coordinator

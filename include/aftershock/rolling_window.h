@@ -62,7 +62,15 @@ class RollingWindow {
   // out->capacity() >= size().
   void CopyTo(std::vector<double>* out) const;
 
-  // Bytes owned by the window (its buffer).
+  // Makes this window equal to `live` (same capacity, tags, held returns and
+  // total), copying only the returns `live` pushed since this window last
+  // equalled it: a checkpoint capture's mirror (state_capture.h) follows its
+  // live window at a cost proportional to the new returns. Everything is
+  // copied (allocating when the capacity or tag setting differs) when this
+  // window never equalled `live` or the two diverged (a total that went
+  // back, or a held count that does not follow from the new returns).
+  void SyncFrom(const RollingWindow& live);
+
   // Checkpoint encoding: size, total, then the held returns (and tags) oldest
   // first.
   void SaveState(StateWriter* w) const;
@@ -72,6 +80,7 @@ class RollingWindow {
   // that differs set the reader's error naming `what`.
   void RestoreState(StateReader* r, absl::string_view what);
 
+  // Bytes owned by the window (its buffer).
   size_t MemoryBytes() const {
     return buf_.capacity() * sizeof(double) + tags_.capacity() * sizeof(int32_t);
   }

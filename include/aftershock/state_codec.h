@@ -15,6 +15,7 @@
 #include <cstdint>
 #include <cstring>
 #include <string>
+#include <utility>
 
 #include "absl/status/status.h"
 #include "absl/strings/string_view.h"
@@ -24,6 +25,11 @@ namespace aftershock {
 // Appends encoded values to a string it owns.
 class StateWriter {
  public:
+  StateWriter() = default;
+  // Writes into `buffer`'s storage: the content is dropped, the capacity kept
+  // (a buffer handed back by Release is reused without allocating again).
+  explicit StateWriter(std::string buffer) : out_(std::move(buffer)) { out_.clear(); }
+
   void U8(uint8_t v) { out_.push_back(static_cast<char>(v)); }
   void Bool(bool v) { U8(v ? 1 : 0); }
   void U32(uint32_t v) { Raw(&v, sizeof v); }
@@ -39,6 +45,13 @@ class StateWriter {
 
   // Raw bytes, no length prefix (the caller knows the length).
   void Append(absl::string_view raw) { out_.append(raw.data(), raw.size()); }
+  // Overwrites the 8 bytes at `offset`, written earlier (e.g. a length
+  // written as 0 before the bytes it counts), with v.
+  // REQUIRES: offset + 8 <= size().
+  void PatchU64(size_t offset, uint64_t v) { std::memcpy(&out_[offset], &v, sizeof v); }
+  // Empties the output, keeping its capacity (a writer reused from one
+  // checkpoint capture to the next does not allocate again).
+  void Clear() { out_.clear(); }
   // Reserves room for n more bytes.
   void Reserve(size_t n) { out_.reserve(out_.size() + n); }
 

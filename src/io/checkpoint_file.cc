@@ -13,6 +13,10 @@
 #include "aftershock/state_codec.h"
 #include "boost/crc.hpp"
 
+#if defined(__x86_64__)
+#include <nmmintrin.h>
+#endif
+
 namespace aftershock {
 namespace {
 
@@ -26,12 +30,65 @@ using Crc64Type =
 
 std::string OsReason() { return std::error_code(errno, std::generic_category()).message(); }
 
+#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
+#define AFTERSHOCK_CRC32C_HW 1
+// CRC-32C with the SSE 4.2 crc32 instruction (the same polynomial, reflected,
+// on the running register: init and final xor are the caller's), about 20
+// times the table-driven rate: checkpoints of 10,000 symbols are tens of MB,
+// checksummed on the writer thread of a live engine and at every restore.
+// Compiled for SSE 4.2 whatever the build's target, and only called where
+// the CPU has it (Crc32cState).
+__attribute__((target("sse4.2"))) uint32_t Crc32cHardware(uint32_t reg, const char* p, size_t n) {
+  uint64_t r = reg;
+  for (; n >= 8; n -= 8, p += 8) {
+    uint64_t v;
+    std::memcpy(&v, p, 8);
+    r = _mm_crc32_u64(r, v);
+  }
+  uint32_t r32 = static_cast<uint32_t>(r);
+  for (; n > 0; --n, ++p) r32 = _mm_crc32_u8(r32, static_cast<uint8_t>(*p));
+  return r32;
+}
+
+bool HasCrc32cHardware() {
+  static const bool has = __builtin_cpu_supports("sse4.2");
+  return has;
+}
+#endif
+
+// Incremental CRC-32C (Castagnoli: reflected polynomial 0x82F63B78, init and
+// final xor 0xFFFFFFFF): the hardware instruction where the CPU has it, else
+// Boost.CRC's table-driven implementation. Both give the same checksum
+// (checkpoint_file_test compares them).
+class Crc32cState {
+ public:
+  void Update(const void* data, size_t n) {
+#ifdef AFTERSHOCK_CRC32C_HW
+    if (HasCrc32cHardware()) {
+      reg_ = Crc32cHardware(reg_, static_cast<const char*>(data), n);
+      return;
+    }
+#endif
+    table_.process_bytes(data, n);
+  }
+  uint32_t Final() const {
+#ifdef AFTERSHOCK_CRC32C_HW
+    if (HasCrc32cHardware()) return reg_ ^ 0xFFFFFFFFu;
+#endif
+    return table_.checksum();
+  }
+
+ private:
+  uint32_t reg_ = 0xFFFFFFFFu;
+  Crc32cType table_;
+};
+
 uint32_t SectionCrc(uint32_t tag, uint64_t length, absl::string_view payload) {
-  Crc32cType crc;
-  crc.process_bytes(&tag, sizeof tag);
-  crc.process_bytes(&length, sizeof length);
-  crc.process_bytes(payload.data(), payload.size());
-  return crc.checksum();
+  Crc32cState crc;
+  crc.Update(&tag, sizeof tag);
+  crc.Update(&length, sizeof length);
+  crc.Update(payload.data(), payload.size());
+  return crc.Final();
 }
 
 // Closes a descriptor on every path out of WriteFileAtomically.
@@ -63,6 +120,12 @@ std::string SectionTagName(uint32_t tag) {
 }
 
 uint32_t Crc32c(absl::string_view bytes) {
+  Crc32cState crc;
+  crc.Update(bytes.data(), bytes.size());
+  return crc.Final();
+}
+
+uint32_t Crc32cPortable(absl::string_view bytes) {
   Crc32cType crc;
   crc.process_bytes(bytes.data(), bytes.size());
   return crc.checksum();
@@ -85,6 +148,14 @@ absl::StatusOr<absl::string_view> Checkpoint::Find(uint32_t tag) const {
 absl::StatusOr<std::string> SerializeCheckpoint(
     const CheckpointHeader& header,
     const std::vector<std::pair<uint32_t, absl::string_view>>& sections) {
+  std::string out;
+  if (absl::Status s = SerializeCheckpointInto(header, sections, &out); !s.ok()) return s;
+  return out;
+}
+
+absl::Status SerializeCheckpointInto(
+    const CheckpointHeader& header,
+    const std::vector<std::pair<uint32_t, absl::string_view>>& sections, std::string* out) {
   if (header.engine_version.size() > kMaxEngineVersionBytes) {
     return absl::InvalidArgumentError(absl::StrCat("engine version '", header.engine_version,
                                                    "' is longer than ", kMaxEngineVersionBytes,
@@ -94,7 +165,7 @@ absl::StatusOr<std::string> SerializeCheckpoint(
     return absl::InvalidArgumentError(
         absl::StrCat(sections.size(), " sections; at most ", kMaxCheckpointSections));
   }
-  StateWriter w;
+  StateWriter w(std::move(*out));
   for (int i = 0; i < 8; ++i) w.U8(static_cast<uint8_t>(kHeaderMagic[i]));
   w.U32(header.format_version);
   w.U32(static_cast<uint32_t>(sections.size()));
@@ -120,7 +191,8 @@ absl::StatusOr<std::string> SerializeCheckpoint(
   }
   for (int i = 0; i < 8; ++i) w.U8(static_cast<uint8_t>(kTrailerMagic[i]));
   w.U64(total);
-  return w.Release();
+  *out = w.Release();
+  return absl::OkStatus();
 }
 absl::StatusOr<Checkpoint> ParseCheckpoint(std::string bytes) {
   if (bytes.size() < kCheckpointHeaderBytes + kCheckpointTrailerBytes) {

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstddef>
 
 #include "absl/strings/str_cat.h"
 
@@ -292,16 +293,23 @@ std::vector<BarUpdate> FilterSeries(const FilterModel& model, double initial_var
 
 namespace aftershock {
 
+// The encoding is every field in declaration order, 8 bytes each, which is
+// exactly the struct's layout (checked here), so a state is written with one
+// copy (a live checkpoint writes 10,000 of them per period).
+static_assert(offsetof(FilterState, eps_hist) == 8 * kMaxArmaOrder &&
+                  offsetof(FilterState, var) == 16 * kMaxArmaOrder &&
+                  offsetof(VarianceState, eps2) == 8 &&
+                  offsetof(VarianceState, neg_eps2) == 8 + 8 * kMaxArchOrder &&
+                  offsetof(VarianceState, sigma2) == 8 + 8 * (kMaxArchOrder + kMaxGarchOrder) &&
+                  sizeof(VarianceState) == 8 * (1 + kMaxArchOrder + 2 * kMaxGarchOrder) &&
+                  offsetof(FilterState, sd_next) == 16 * kMaxArmaOrder + sizeof(VarianceState) &&
+                  offsetof(FilterState, mu_next) == offsetof(FilterState, sd_next) + 8 &&
+                  offsetof(FilterState, bars) == offsetof(FilterState, sd_next) + 16 &&
+                  sizeof(FilterState) == offsetof(FilterState, bars) + 8,
+              "FilterState is no longer laid out as its checkpoint encoding");
+
 void SaveFilterState(const FilterState& s, StateWriter* w) {
-  for (double v : s.r_hist) w->F64(v);
-  for (double v : s.eps_hist) w->F64(v);
-  w->F64(s.var.next_variance);
-  for (double v : s.var.eps2) w->F64(v);
-  for (double v : s.var.neg_eps2) w->F64(v);
-  for (double v : s.var.sigma2) w->F64(v);
-  w->F64(s.sd_next);
-  w->F64(s.mu_next);
-  w->I64(s.bars);
+  w->Append(absl::string_view(reinterpret_cast<const char*>(&s), sizeof s));
 }
 
 FilterState RestoreFilterState(StateReader* r, absl::string_view what) {

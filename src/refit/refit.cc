@@ -599,13 +599,59 @@ constexpr uint64_t kMaxSavedVersions = uint64_t{1} << 26;
 
 }  // namespace
 
-void RefitCoordinator::SaveState(StateWriter* w) const {
-  const Counters& c = counters_;
-  for (const std::atomic<uint64_t>* v : {&c.due, &c.submitted, &c.coalesced, &c.dropped,
-                                         &c.swapped, &c.rejected, &c.refit_errors, &c.fallbacks,
-                                         &c.replay_waits, &c.pooled}) {
-    w->U64(v->load(std::memory_order_relaxed));
-  }
+// The coordinator's captured state (state_capture.h).
+struct RefitSymbolCapture {
+  std::string name;  // copied when the record is created
+  uint32_t group = 0;
+  RollingWindow window;  // mirror of the live window (SyncFrom)
+  ScheduleState schedule;
+  ModelVersionPtr current, last_estimated;  // re-pointed only when changed
+  uint32_t last_version = 0;
+  int32_t failures = 0;
+  bool fallback = false;
+  int64_t fits = 0;
+  bool pooled = false;
+  uint64_t pooled_seq = 0;
+  int64_t pooled_bar = 0;
+  // The pending job's inputs (immutable while it is pending), copied when the
+  // job first appears (job_fit_index differs).
+  bool has_job = false;
+  int64_t apply_bar = 0;
+  std::vector<double> job_returns;
+  std::vector<int32_t> job_tags;
+  SeasonalProfilePtr job_prior;
+  ModelVersionPtr job_in_force, job_estimated;
+  bool job_reidentify = false;
+  uint64_t job_seed = 0;
+  int64_t job_fit_index = -1;
+  int64_t job_bar = 0;
+  uint32_t job_version = 0;
+};
+
+struct RefitGroupCapture {
+  ModelVersionPtr latest;
+  std::string donor;
+  uint64_t seq = 0;
+};
+
+class RefitCapture : public StateCapture {
+ public:
+  RefitCapture(bool seasonal, ModelVersionPtr ewma) : seasonal_(seasonal), ewma_(std::move(ewma)) {}
+
+  void Encode(StateWriter* w) const override;
+
+  uint64_t counters[10] = {};
+  StateWriter pool;  // the seasonal pool's SaveState (feed-wide, small)
+  std::vector<RefitGroupCapture> groups;
+  std::vector<RefitSymbolCapture> symbols;  // by id
+
+ private:
+  const bool seasonal_;
+  const ModelVersionPtr ewma_;
+};
+
+void RefitCapture::Encode(StateWriter* w) const {
+  for (uint64_t v : counters) w->U64(v);
   // The version table: each referenced version once; reference 0 is the
   // shared EWMA, 1.. the table's entries, kNullVersion none.
   std::vector<const ModelVersion*> table;
@@ -615,15 +661,15 @@ void RefitCoordinator::SaveState(StateWriter* w) const {
     table.push_back(v.get());
     ref.emplace(v.get(), static_cast<uint32_t>(table.size()));
   };
-  for (const SymbolSlot& s : symbols_) {
+  for (const RefitSymbolCapture& s : symbols) {
     add(s.current);
     add(s.last_estimated);
-    if (s.pending >= 0) {
-      add(jobs_[s.pending]->in_force);
-      add(jobs_[s.pending]->estimated);
+    if (s.has_job) {
+      add(s.job_in_force);
+      add(s.job_estimated);
     }
   }
-  for (const GroupState& g : groups_) add(g.latest);
+  for (const RefitGroupCapture& g : groups) add(g.latest);
   auto ref_of = [&](const ModelVersionPtr& v) {
     if (v == nullptr) return kNullVersion;
     if (v == ewma_) return kEwmaVersionRef;
@@ -637,17 +683,17 @@ void RefitCoordinator::SaveState(StateWriter* w) const {
     for (double e : v->std_errors) w->F64(e);
     w->F64(v->loglik);
     w->I64(v->fitted_bar);
-    if (options_.seasonal) SaveSeasonalProfile(v->profile.get(), w);
+    if (seasonal_) SaveSeasonalProfile(v->profile.get(), w);
   }
-  if (options_.seasonal) seasonal_pool_.SaveState(w);
-  w->U64(groups_.size());
-  for (const GroupState& g : groups_) {
+  if (seasonal_) w->Append(pool.data());
+  w->U64(groups.size());
+  for (const RefitGroupCapture& g : groups) {
     w->U32(ref_of(g.latest));
     w->Bytes(g.donor);
     w->U64(g.seq);
   }
-  w->U64(symbols_.size());
-  for (const SymbolSlot& s : symbols_) {
+  w->U64(symbols.size());
+  for (const RefitSymbolCapture& s : symbols) {
     w->Bytes(s.name);
     w->U32(s.group);
     s.window.SaveState(w);
@@ -665,25 +711,89 @@ void RefitCoordinator::SaveState(StateWriter* w) const {
     w->Bool(s.pooled);
     w->U64(s.pooled_seq);
     w->I64(s.pooled_bar);
-    w->Bool(s.pending >= 0);
-    if (s.pending < 0) continue;
+    w->Bool(s.has_job);
+    if (!s.has_job) continue;
+    w->I64(s.apply_bar);
+    w->U64(s.job_returns.size());
+    for (double r : s.job_returns) w->F64(r);
+    if (seasonal_) {
+      w->U64(s.job_tags.size());
+      for (int32_t t : s.job_tags) w->I32(t);
+      SaveSeasonalProfile(s.job_prior.get(), w);
+    }
+    w->U32(ref_of(s.job_in_force));
+    w->U32(ref_of(s.job_estimated));
+    w->Bool(s.job_reidentify);
+    w->U64(s.job_seed);
+    w->I64(s.job_fit_index);
+    w->I64(s.job_bar);
+    w->U32(s.job_version);
+  }
+}
+
+void RefitCoordinator::SaveState(StateWriter* w) const {
+  RefitCapture c(options_.seasonal, ewma_);
+  CaptureState(&c);
+  c.Encode(w);
+}
+
+std::unique_ptr<StateCapture> RefitCoordinator::NewStateCapture() const {
+  return std::make_unique<RefitCapture>(options_.seasonal, ewma_);
+}
+
+void RefitCoordinator::CaptureState(StateCapture* capture) const {
+  RefitCapture& c = *static_cast<RefitCapture*>(capture);
+  const Counters& k = counters_;
+  int i = 0;
+  for (const std::atomic<uint64_t>* v :
+       {&k.due, &k.submitted, &k.coalesced, &k.dropped, &k.swapped, &k.rejected, &k.refit_errors,
+        &k.fallbacks, &k.replay_waits, &k.pooled}) {
+    c.counters[i++] = v->load(std::memory_order_relaxed);
+  }
+  if (options_.seasonal) {
+    c.pool.Clear();
+    seasonal_pool_.SaveState(&c.pool);
+  }
+  c.groups.resize(groups_.size());
+  for (size_t g = 0; g < groups_.size(); ++g) {
+    if (c.groups[g].latest.get() != groups_[g].latest.get()) c.groups[g].latest = groups_[g].latest;
+    c.groups[g].donor = groups_[g].donor;  // keeps its capacity
+    c.groups[g].seq = groups_[g].seq;
+  }
+  const size_t old = c.symbols.size();
+  if (old != symbols_.size()) c.symbols.resize(symbols_.size());  // symbols only ever join
+  for (size_t id = 0; id < symbols_.size(); ++id) {
+    const SymbolSlot& s = symbols_[id];
+    RefitSymbolCapture& d = c.symbols[id];
+    if (id >= old) d.name = s.name;
+    d.group = s.group;
+    d.window.SyncFrom(s.window);
+    d.schedule = s.schedule;
+    if (d.current.get() != s.current.get()) d.current = s.current;
+    if (d.last_estimated.get() != s.last_estimated.get()) d.last_estimated = s.last_estimated;
+    d.last_version = s.last_version;
+    d.failures = s.failures;
+    d.fallback = s.fallback;
+    d.fits = s.fits;
+    d.pooled = s.pooled;
+    d.pooled_seq = s.pooled_seq;
+    d.pooled_bar = s.pooled_bar;
+    d.has_job = s.pending >= 0;
+    if (!d.has_job) continue;
     // Inputs only: the worker does not write them while the job runs.
     const JobSlot& j = *jobs_[s.pending];
-    w->I64(s.apply_bar);
-    w->U64(j.returns.size());
-    for (double r : j.returns) w->F64(r);
-    if (options_.seasonal) {
-      w->U64(j.tags.size());
-      for (int32_t t : j.tags) w->I32(t);
-      SaveSeasonalProfile(j.prior.get(), w);
-    }
-    w->U32(ref_of(j.in_force));
-    w->U32(ref_of(j.estimated));
-    w->Bool(j.reidentify);
-    w->U64(j.seed);
-    w->I64(j.fit_index);
-    w->I64(j.bar);
-    w->U32(j.version);
+    d.apply_bar = s.apply_bar;
+    if (d.job_fit_index == j.fit_index) continue;  // the same job as last time
+    d.job_returns.assign(j.returns.begin(), j.returns.end());
+    d.job_tags.assign(j.tags.begin(), j.tags.end());
+    d.job_prior = j.prior;
+    d.job_in_force = j.in_force;
+    d.job_estimated = j.estimated;
+    d.job_reidentify = j.reidentify;
+    d.job_seed = j.seed;
+    d.job_fit_index = j.fit_index;
+    d.job_bar = j.bar;
+    d.job_version = j.version;
   }
 }
 

@@ -35,6 +35,31 @@ void RollingWindow::CopyTo(std::vector<double>* out) const {
   std::copy(buf_.begin(), buf_.begin() + (size_ - first), out->begin() + first);
 }
 
+void RollingWindow::SyncFrom(const RollingWindow& live) {
+  const int64_t fresh = live.total_ - total_;
+  const bool follows = capacity_ == live.capacity_ && has_tags() == live.has_tags() && fresh >= 0 &&
+                       fresh <= capacity_ &&
+                       std::min<int64_t>(capacity_, size_ + fresh) == live.size_;
+  if (!follows) {
+    if (capacity_ != live.capacity_ || tags_.size() != live.tags_.size()) {
+      buf_.assign(live.buf_.size(), 0.0);
+      tags_.assign(live.tags_.size(), 0);
+      capacity_ = live.capacity_;
+    }
+    std::copy(live.buf_.begin(), live.buf_.end(), buf_.begin());
+    std::copy(live.tags_.begin(), live.tags_.end(), tags_.begin());
+    head_ = live.head_;
+    size_ = live.size_;
+    total_ = live.total_;
+    return;
+  }
+  // The `fresh` newest returns of `live`, oldest first.
+  for (int64_t i = fresh; i > 0; --i) {
+    const int k = static_cast<int>(i - 1);
+    Push(live.back(k), live.has_tags() ? live.tag_back(k) : 0);
+  }
+}
+
 }  // namespace aftershock
 
 namespace aftershock {

@@ -1,6 +1,7 @@
 #include "aftershock/bar_builder.h"
 
 #include <cmath>
+#include <cstddef>
 #include <cstdint>
 
 #include "absl/strings/str_cat.h"
@@ -202,25 +203,25 @@ bool CloseIfDue(BarState* st, int64_t now_ns, int64_t grace_ns, const BarOptions
 
 namespace aftershock {
 
+// The encoding is every field in declaration order at its own width (bools
+// as one byte 0/1), which is exactly the struct's layout up to open_gap
+// (checked here), so a state is written with one copy (a live checkpoint
+// writes 10,000 of them per period).
+static_assert(offsetof(BarState, open_end_ns) == 8 && offsetof(BarState, latest_t_ns) == 16 &&
+                  offsetof(BarState, closed_end_ns) == 24 &&
+                  offsetof(BarState, session_day) == 32 && offsetof(BarState, last_t_ns) == 40 &&
+                  offsetof(BarState, last_value) == 48 && offsetof(BarState, open_price) == 56 &&
+                  offsetof(BarState, prev_close) == 64 && offsetof(BarState, ret_sum) == 72 &&
+                  offsetof(BarState, n_ticks) == 80 && offsetof(BarState, open_index) == 84 &&
+                  offsetof(BarState, kind) == 88 && offsetof(BarState, has_tick) == 89 &&
+                  offsetof(BarState, open) == 90 && offsetof(BarState, has_prev_close) == 91 &&
+                  offsetof(BarState, any_bar) == 92 && offsetof(BarState, open_gap) == 93 &&
+                  sizeof(bool) == 1,
+              "BarState is no longer laid out as its checkpoint encoding");
+constexpr size_t kBarStateBytes = 94;
+
 void SaveBarState(const BarState& s, StateWriter* w) {
-  w->I64(s.open_start_ns);
-  w->I64(s.open_end_ns);
-  w->I64(s.latest_t_ns);
-  w->I64(s.closed_end_ns);
-  w->I64(s.session_day);
-  w->I64(s.last_t_ns);
-  w->F64(s.last_value);
-  w->F64(s.open_price);
-  w->F64(s.prev_close);
-  w->F64(s.ret_sum);
-  w->I32(s.n_ticks);
-  w->I32(s.open_index);
-  w->U8(s.kind);
-  w->Bool(s.has_tick);
-  w->Bool(s.open);
-  w->Bool(s.has_prev_close);
-  w->Bool(s.any_bar);
-  w->Bool(s.open_gap);
+  w->Append(absl::string_view(reinterpret_cast<const char*>(&s), kBarStateBytes));
 }
 
 BarState RestoreBarState(StateReader* r, absl::string_view what) {

@@ -37,6 +37,16 @@ std::string FirstDifference(absl::string_view was, absl::string_view now) {
   return "";
 }
 
+// The header of an engine checkpoint whose "CONF" payload is `conf`.
+CheckpointHeader SnapshotHeader(absl::string_view conf, uint64_t symbols, int64_t created_ns) {
+  CheckpointHeader h;
+  h.engine_version = kCheckpointEngineVersion;
+  h.config_fingerprint = Fingerprint64(conf);
+  h.symbol_count = symbols;
+  h.created_ns = created_ns;
+  return h;
+}
+
 }  // namespace
 
 std::vector<ConfigStateSection> StateRelevantConfig(const EngineConfig& c) {
@@ -139,17 +149,43 @@ EngineSnapshot CaptureEngineState(const IngestCore& core, const EngineServices* 
 absl::StatusOr<std::string> SerializeEngineSnapshot(const EngineSnapshot& snapshot,
                                                     const EngineConfig& config) {
   const std::string conf = EncodeConfigSections(StateRelevantConfig(config));
-  CheckpointHeader h;
-  h.engine_version = kCheckpointEngineVersion;
-  h.config_fingerprint = Fingerprint64(conf);
-  h.symbol_count = snapshot.symbols;
-  h.created_ns = snapshot.created_ns;
+  const CheckpointHeader h = SnapshotHeader(conf, snapshot.symbols, snapshot.created_ns);
   std::vector<std::pair<uint32_t, absl::string_view>> sections;
   sections.emplace_back(kConfigSectionTag, conf);
   sections.emplace_back(kCoreSectionTag, snapshot.core);
   if (snapshot.has_services) sections.emplace_back(kServicesSectionTag, snapshot.services);
   for (const auto& [tag, payload] : snapshot.extra) sections.emplace_back(tag, payload);
   return SerializeCheckpoint(h, sections);
+}
+
+EngineCapture::EngineCapture(const IngestCore* core, const EngineServices* services)
+    : core_(core),
+      services_(services),
+      core_capture_(core->NewStateCapture()),
+      services_capture_(services != nullptr ? services->NewStateCapture() : nullptr) {}
+
+void EngineCapture::Capture(int64_t created_ns) {
+  core_->CaptureState(core_capture_.get());
+  if (services_ != nullptr) services_->CaptureState(services_capture_.get());
+  symbols_ = static_cast<uint64_t>(core_->num_symbols());
+  created_ns_ = created_ns;
+}
+
+absl::Status EngineCapture::Serialize(const EngineConfig& config, std::string* file) {
+  StateWriter w(std::move(core_bytes_));
+  core_capture_->Encode(&w);
+  core_bytes_ = w.Release();
+  if (services_capture_ != nullptr) {
+    StateWriter sw(std::move(services_bytes_));
+    services_capture_->Encode(&sw);
+    services_bytes_ = sw.Release();
+  }
+  const std::string conf = EncodeConfigSections(StateRelevantConfig(config));
+  std::vector<std::pair<uint32_t, absl::string_view>> sections;
+  sections.emplace_back(kConfigSectionTag, conf);
+  sections.emplace_back(kCoreSectionTag, core_bytes_);
+  if (services_capture_ != nullptr) sections.emplace_back(kServicesSectionTag, services_bytes_);
+  return SerializeCheckpointInto(SnapshotHeader(conf, symbols_, created_ns_), sections, file);
 }
 
 absl::Status CheckCheckpointConfig(const Checkpoint& checkpoint, const EngineConfig& config) {

@@ -398,34 +398,129 @@ bool SameModel(const FilterModel& a, const FilterModel& b) {
 
 }  // namespace
 
-void IngestCore::SaveState(StateWriter* w) const {
-  const EngineCounters& c = counters_;
-  for (uint64_t v : {c.messages_in, c.ticks_in, c.ticks_accepted, c.bars, c.bars_clock_closed,
-                     c.updates_out, c.drops, c.non_finite_output, c.extra_out, c.extra_drops,
-                     c.model_swaps}) {
-    w->U64(v);
+// The core's captured state (state_capture.h): the values SaveState encodes,
+// per symbol in flat records.
+struct CoreSymbolCapture {
+  Symbol symbol;  // copied when the record is created (a slot's name never changes)
+  BarState bars_state;
+  FilterState filter;
+  // Immutable shared objects, re-pointed only when the core's pointer changed
+  // (the capture holds them, so an address cannot be reused meanwhile).
+  std::shared_ptr<const FilterModel> model;
+  std::shared_ptr<const SeasonalProfile> profile;
+  uint32_t status_flags = 0;
+  uint32_t pending_flags = 0;
+  bool filter_ready = false;
+  int num_start_returns = 0;
+  uint64_t bars = 0;
+  uint64_t filtered = 0;
+  uint64_t updates = 0;
+  uint64_t ticks = 0;
+  int64_t last_tick_ns = 0;
+  int64_t last_arrival_ns = 0;
+};
+
+class CoreCapture : public StateCapture {
+ public:
+  // `start_bars`: [warmup] start_bars, the most warm-up returns a symbol holds.
+  CoreCapture(bool seasonal, int start_bars)
+      : seasonal_(seasonal), stride_(static_cast<size_t>(start_bars)) {}
+
+  // Symbol i's held warm-up returns (the first num_start_returns are valid).
+  double* start_returns(size_t i) { return start_returns_.data() + i * stride_; }
+  const double* start_returns(size_t i) const { return start_returns_.data() + i * stride_; }
+  void Resize(size_t n) {
+    symbols.resize(n);
+    if (stride_ > 1) start_returns_.resize(n * stride_);
   }
-  for (uint64_t v : c.rejects.by_reason) w->U64(v);
-  w->I64(last_clock_ns_);
-  w->U64(slots_.size());
-  for (const Slot& s : slots_) {
-    w->Bytes(s.symbol.view());
-    SaveBarState(s.bars_state, w);
-    SaveFilterState(s.filter, w);
-    w->U32(s.model->version());
-    SaveModelParams(s.model->params(), w);
-    if (seasonal_) SaveSeasonalProfile(s.profile.get(), w);
-    w->U32(s.status_flags);
-    w->U32(s.pending_flags);
-    w->Bool(s.filter_ready);
-    w->U64(static_cast<uint64_t>(s.num_start_returns));
-    for (int i = 0; i < s.num_start_returns; ++i) w->F64(s.start_returns[i]);
-    w->U64(s.bars);
-    w->U64(s.filtered);
-    w->U64(s.updates);
-    w->U64(s.ticks);
-    w->I64(s.last_tick_ns);
-    w->I64(s.last_arrival_ns);
+
+  void Encode(StateWriter* w) const override {
+    const EngineCounters& c = counters;
+    // Per symbol: name, bar and filter state, model, flags, counters (about
+    // 560 bytes without warm-up returns); reserved so the string rarely regrows.
+    w->Reserve(256 + symbols.size() * 640);
+    for (uint64_t v :
+         {c.messages_in, c.ticks_in, c.ticks_accepted, c.bars, c.bars_clock_closed, c.updates_out,
+          c.drops, c.non_finite_output, c.extra_out, c.extra_drops, c.model_swaps}) {
+      w->U64(v);
+    }
+    for (uint64_t v : c.rejects.by_reason) w->U64(v);
+    w->I64(last_clock_ns);
+    w->U64(symbols.size());
+    for (size_t k = 0; k < symbols.size(); ++k) {
+      const CoreSymbolCapture& s = symbols[k];
+      w->Bytes(s.symbol.view());
+      SaveBarState(s.bars_state, w);
+      SaveFilterState(s.filter, w);
+      w->U32(s.model->version());
+      SaveModelParams(s.model->params(), w);
+      if (seasonal_) SaveSeasonalProfile(s.profile.get(), w);
+      w->U32(s.status_flags);
+      w->U32(s.pending_flags);
+      w->Bool(s.filter_ready);
+      w->U64(static_cast<uint64_t>(s.num_start_returns));
+      for (int i = 0; i < s.num_start_returns; ++i) w->F64(start_returns(k)[i]);
+      w->U64(s.bars);
+      w->U64(s.filtered);
+      w->U64(s.updates);
+      w->U64(s.ticks);
+      w->I64(s.last_tick_ns);
+      w->I64(s.last_arrival_ns);
+    }
+  }
+
+  EngineCounters counters;
+  int64_t last_clock_ns = 0;
+  std::vector<CoreSymbolCapture> symbols;  // by core index
+
+ private:
+  const bool seasonal_;
+  const size_t stride_;
+  std::vector<double> start_returns_;  // start_bars per symbol (none when it is 1)
+};
+
+void IngestCore::SaveState(StateWriter* w) const {
+  CoreCapture c(seasonal_, config_.warmup.start_bars);
+  CaptureState(&c);
+  c.Encode(w);
+}
+
+std::unique_ptr<StateCapture> IngestCore::NewStateCapture() const {
+  auto c = std::make_unique<CoreCapture>(seasonal_, config_.warmup.start_bars);
+  // As the core's own slots: address space for the reserved symbols, so that
+  // new symbols rarely move the records.
+  c->symbols.reserve(slots_.capacity());
+  return c;
+}
+
+void IngestCore::CaptureState(StateCapture* capture) const {
+  CoreCapture& c = *static_cast<CoreCapture*>(capture);
+  c.counters = counters_;
+  c.last_clock_ns = last_clock_ns_;
+  const size_t old = c.symbols.size();
+  if (old != slots_.size()) c.Resize(slots_.size());  // symbols only ever join
+  for (size_t i = 0; i < slots_.size(); ++i) {
+    const Slot& s = slots_[i];
+    CoreSymbolCapture& d = c.symbols[i];
+    if (i >= old) d.symbol = s.symbol;
+    d.bars_state = s.bars_state;
+    d.filter = s.filter;
+    if (d.model.get() != s.model.get()) d.model = s.model;
+    if (d.profile.get() != s.profile.get()) d.profile = s.profile;
+    d.status_flags = s.status_flags;
+    d.pending_flags = s.pending_flags;
+    d.filter_ready = s.filter_ready;
+    d.num_start_returns = s.num_start_returns;
+    if (s.num_start_returns > 0) {
+      std::memcpy(c.start_returns(i), s.start_returns.get(),
+                  static_cast<size_t>(s.num_start_returns) * sizeof(double));
+    }
+    d.bars = s.bars;
+    d.filtered = s.filtered;
+    d.updates = s.updates;
+    d.ticks = s.ticks;
+    d.last_tick_ns = s.last_tick_ns;
+    d.last_arrival_ns = s.last_arrival_ns;
   }
 }
 

@@ -1,6 +1,7 @@
 #include "aftershock/rolling_window.h"
 
 #include <catch2/catch.hpp>
+#include <string>
 
 #include "support/alloc_counter.h"
 
@@ -54,6 +55,59 @@ TEST_CASE("push and reserved copies allocate nothing", "[window]") {
   if (testing::AllocationCountingEnabled()) CHECK(testing::AllocationCount() == before);
   CHECK(out.front() == 3000);
   CHECK(w->MemoryBytes() == 16000);
+}
+
+// The encoding of a window (its checkpoint bytes): what a mirror must match.
+std::string Saved(const RollingWindow& w) {
+  StateWriter out;
+  w.SaveState(&out);
+  return out.Release();
+}
+
+TEST_CASE("a mirror follows its window with the new returns only", "[window]") {
+  for (bool tags : {false, true}) {
+    INFO("tags " << tags);
+    auto live = RollingWindow::Create(7, tags);
+    REQUIRE(live.ok());
+    RollingWindow mirror;  // never equalled it: the first sync copies everything
+    mirror.SyncFrom(*live);
+    CHECK(Saved(mirror) == Saved(*live));
+    int pushed = 0;
+    // Steps below, at and above the capacity, so the ring wraps at every
+    // position and a step longer than the window is copied afresh.
+    for (int step : {1, 2, 3, 6, 7, 8, 1, 15, 4, 5, 0, 9, 2}) {
+      for (int k = 0; k < step; ++k, ++pushed) live->Push(0.5 * pushed - 3, 100 + pushed);
+      const uint64_t before = testing::AllocationCount();
+      mirror.SyncFrom(*live);
+      // Once sized, following allocates nothing.
+      if (testing::AllocationCountingEnabled()) CHECK(testing::AllocationCount() == before);
+      INFO("after " << pushed << " pushes");
+      REQUIRE(mirror.total() == live->total());
+      REQUIRE(mirror.size() == live->size());
+      REQUIRE(Saved(mirror) == Saved(*live));
+    }
+  }
+}
+
+TEST_CASE("a mirror whose window changed shape or went back copies it whole", "[window]") {
+  // A mirror is only ever synced from its own window; another capacity,
+  // another tag setting or a total below the mirror's are detected and the
+  // window is copied whole.
+  auto a = RollingWindow::Create(5);
+  auto wide = RollingWindow::Create(9, /*with_tags=*/true);
+  REQUIRE((a.ok() && wide.ok()));
+  for (int i = 0; i < 3; ++i) a->Push(i);
+  for (int i = 0; i < 4; ++i) wide->Push(20 + i, i);
+  RollingWindow mirror;
+  mirror.SyncFrom(*a);
+  REQUIRE(Saved(mirror) == Saved(*a));
+  mirror.SyncFrom(*wide);
+  CHECK(mirror.capacity() == 9);
+  CHECK(mirror.has_tags());
+  CHECK(Saved(mirror) == Saved(*wide));
+  mirror.SyncFrom(*a);  // total 3 below 4, and capacity 5 again
+  CHECK(mirror.capacity() == 5);
+  CHECK(Saved(mirror) == Saved(*a));
 }
 
 TEST_CASE("a window needs a positive capacity", "[window]") {

@@ -288,3 +288,75 @@ TEST_CASE("the configuration check: what changes the state refuses, thresholds d
 
 }  // namespace
 }  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+// A live engine's checkpoints (EngineCapture, refilled in place at each
+// checkpoint: only what changed is copied) against the whole capture
+// (CaptureEngineState) at the same points: the files must be the same bytes.
+// `gaps` are the ticks between checkpoints, cycled; a gap of more bars than
+// the window makes the window mirrors copy everything again.
+void CheckLiveCaptureMatchesWhole(const EngineConfig& config, const std::vector<size_t>& gaps,
+                                  bool expect_jobs) {
+  const std::vector<Tick> ticks = Ticks();
+  Engine e(config);
+  EngineCapture live(e.core.get(), e.services.get());
+  live.Capture(1);  // as Checkpointer::Create: before any symbol
+  std::string file;
+  int compared = 0, with_jobs = 0;
+  size_t next = 0;
+  for (size_t i = 0, g = 0; i < ticks.size(); ++i) {
+    e.Feed(ticks[i]);
+    if (i != next) continue;
+    next += gaps[g++ % gaps.size()];
+    INFO("after tick " << i);
+    live.Capture(ticks[i].t_ns);
+    REQUIRE(live.Serialize(config, &file).ok());
+    const absl::StatusOr<std::string> whole = SerializeEngineSnapshot(
+        CaptureEngineState(*e.core, e.services.get(), ticks[i].t_ns), config);
+    REQUIRE(whole.ok());
+    REQUIRE(file.size() == whole->size());
+    REQUIRE(file == *whole);
+    ++compared;
+    if (e.services->refit_stats().in_flight > 0) ++with_jobs;
+  }
+  CHECK(compared >= 10);
+  if (expect_jobs) CHECK(with_jobs >= 1);
+  // And the live file restores into an engine that saves the same bytes.
+  absl::StatusOr<Checkpoint> cp = ParseCheckpoint(file);
+  REQUIRE(cp.ok());
+  Engine b(config);
+  REQUIRE(RestoreEngineState(*cp, config, b.core.get(), b.services.get()).ok());
+  const absl::StatusOr<std::string> again = SerializeEngineSnapshot(
+      CaptureEngineState(*b.core, b.services.get(), cp->header().created_ns), config);
+  REQUIRE(again.ok());
+  CHECK(*again == file);
+}
+
+TEST_CASE("a live capture refilled at each checkpoint writes the whole capture's bytes",
+          "[streaming][checkpoint]") {
+  SECTION("refits and seasonality on, jobs in flight, bars open at the checkpoints") {
+    CheckLiveCaptureMatchesWhole(ParseConfigOrDie(kToml), {1, 7, 40, 3, 101, 17}, true);
+  }
+  SECTION("a window shorter than the gaps: the mirrors wrap and copy afresh") {
+    EngineConfig c = ParseConfigOrDie(std::string(kToml) + R"(
+)");
+    c.refit.window = 60;
+    c.refit.min_bars = 40;
+    c.refit.every_bars = 15;
+    // 300 ticks between two checkpoints are about 150 bars a symbol.
+    CheckLiveCaptureMatchesWhole(c, {5, 300, 2, 61, 119, 9}, true);
+  }
+  SECTION("seasonality without refits: the services' own tagged windows") {
+    EngineConfig c = ParseConfigOrDie(kToml);
+    c.refit.every_bars = 0;
+    c.refit.every_seconds = 0;
+    c.refit.window = 50;
+    REQUIRE(c.SeasonalityActive());
+    CheckLiveCaptureMatchesWhole(c, {3, 77, 1, 130}, false);
+  }
+}
+
+}  // namespace
+}  // namespace aftershock
