@@ -482,7 +482,7 @@ TEST_CASE("every [alerts] key: parsed, in default.toml, in the README, formatted
   for (int k = 0; k < kNumAlertKinds; ++k) {
     other.insert(std::string(AlertKindName(static_cast<AlertKind>(k))));
   }
-  for (int r = 0; r <= static_cast<int>(AlertRule::kRejectBurst); ++r) {
+  for (int r = 0; r <= static_cast<int>(AlertRule::kInstability); ++r) {
     other.insert(std::string(AlertRuleName(static_cast<AlertRule>(r))));
   }
   for (int v = 0; v < kNumSeverities; ++v) {
