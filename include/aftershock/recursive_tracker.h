@@ -45,8 +45,10 @@
 // 1 / (1 - kappa) bars.
 //
 // Supported models: zero or constant mean with GARCH(1,1) or GJR(1,1,1),
-// Gaussian or Student-t innovations (Supports()). Cost: two 3x3/4x4 Cholesky
-// solves per bar; no allocation, no I/O.
+// Gaussian or Student-t innovations (Supports()). Cost per bar: two rank-one
+// updates and two triangular solves of 3x3/4x4 systems; the Cholesky factors
+// of R and J are refreshed every 8 bars (both move by a small fraction a bar).
+// No allocation, no I/O.
 //
 // Thread-safety: plain fixed-size value; one thread owns it.
 #ifndef AFTERSHOCK_RECURSIVE_TRACKER_H_
@@ -159,6 +161,16 @@ class RecursiveTracker {
  private:
   void ResetToAnchor();
   void Project(const TrackerOptions& o);
+  template <int K>
+  void StepK(double x, const TrackerOptions& o);  // Step for K coefficients
+  // d l / d sigma2 of one quasi-likelihood term (inv_v = 1 / sigma2).
+  double DlDv(double e2, double inv_v) const {
+    if (student_) {
+      const double u = e2 * inv_v * inv_nu2_;
+      return (-0.5 + 0.5 * (nu_ + 1.0) * u / (1.0 + u)) * inv_v;
+    }
+    return 0.5 * (e2 * inv_v - 1.0) * inv_v;
+  }
 
   // Model constants (set by Anchor).
   int k_ = 0;            // tracked coefficients, 0 = inactive
@@ -168,19 +180,28 @@ class RecursiveTracker {
   double mu_ = 0;        // mean (0 for the zero mean)
   double nu_ = 0;        // Student-t degrees of freedom
   double info_c_ = 0.5;  // expected information of log sigma2 per bar
+  double inv_nu2_ = 0;   // 1 / (nu - 2)
   double s0_ = 0;        // anchor's unconditional variance
   double wa_[kMaxTrackedParams] = {};  // anchor coefficients (omega as w)
   // Tracked recursion.
   double w_[kMaxTrackedParams] = {};
   double v_ = 0;                        // sigma2 of the next bar
   double psi_[kMaxTrackedParams] = {};  // d v_ / d theta
-  double r_[kMaxTrackedParams * kMaxTrackedParams] = {};  // information, row-major
+  double r_[kMaxTrackedParams * kMaxTrackedParams] = {};  // information, lower triangle
+  // Its Cholesky factor (with the ridge) and inverse pivots, refreshed every
+  // few bars; r_factor_ok_ false: refresh before the next step.
+  double rl_[kMaxTrackedParams * kMaxTrackedParams] = {};
+  double rinv_[kMaxTrackedParams] = {};
+  bool r_factor_ok_ = false;
   int64_t n_info_ = 0;                  // bars in r_ since the last reset
   // Anchor recursion and instability statistic.
   double va_ = 0;
   double psia_[kMaxTrackedParams] = {};
   double sum_[kMaxTrackedParams] = {};                    // S_t
-  double j_[kMaxTrackedParams * kMaxTrackedParams] = {};  // J_t
+  double j_[kMaxTrackedParams * kMaxTrackedParams] = {};  // J_t, lower triangle
+  double jl_[kMaxTrackedParams * kMaxTrackedParams] = {};  // its factor, as rl_
+  double jinv_[kMaxTrackedParams] = {};
+  bool j_factor_ok_ = false;
   int64_t n_j_ = 0;  // bars in j_
   double q_ = 0;
   int64_t bars_ = 0;

@@ -4,7 +4,9 @@
 // only past data:
 //   * refit-only: the rolling-window refit the engine does (FitModel on the
 //     last `window` returns every `refit_every` bars, warm-started, the new
-//     model's state re-run over the window), parameters frozen in between;
+//     model's state re-run over the window, fits at or above max_persistence
+//     refused; the engine's other gate tests are not applied), parameters
+//     frozen in between;
 //   * drive: the same refits as anchors, with the tracker's parameters used
 //     for every prediction between refits;
 //   * the true model (the simulated sigma2).
@@ -56,7 +58,12 @@ struct StudyOptions {
   int refit_every = 100;  // bars between refits (the engine's [refit] every_bars)
   int window = 2000;      // refit window, bars ([refit] window)
   int min_bars = 200;     // bars before the first fit ([refit] min_bars)
-  int score_from = 500;   // first bar scored (all methods have a fitted model by then)
+  // First bar scored: all methods have a fitted model by then, fitted on at
+  // least this many bars (fits on a few hundred bars can be degenerate).
+  int score_from = 1000;
+  // The engine's persistence gate ([refit] max_persistence): a fit at or above
+  // it is refused and the model in force stays.
+  double max_persistence = 0.9995;
   TrackerOptions tracker;
   double alert_threshold = 20;  // [tracking] alert_threshold  // the instability statistic's alarm level
 };

@@ -9,12 +9,14 @@ namespace aftershock {
 namespace {
 
 constexpr int kK = kMaxTrackedParams;
+// Bars between two factorizations of the information matrices.
+constexpr int64_t kRefactorBars = 8;
 
-// Solves (A + ridge * diag(A)) x = b for a k x k symmetric positive
-// semi-definite A (row-major, stride kK) by Cholesky; false when a pivot is not
-// positive (x untouched).
-bool SolveRidge(const double* a, double ridge, int k, const double* b, double* x) {
-  double l[kK * kK];
+// Lower Cholesky factor L of A + ridge * diag(A) for a k x k symmetric
+// positive semi-definite A (lower triangle read, row-major, stride kK) and the
+// inverse pivots 1 / L_ii; false when a pivot is not positive.
+template <int k>
+bool Factor(const double* a, double ridge, double* l, double* inv) {
   for (int i = 0; i < k; ++i) {
     for (int j = 0; j <= i; ++j) {
       double s = a[i * kK + j];
@@ -23,40 +25,38 @@ bool SolveRidge(const double* a, double ridge, int k, const double* b, double* x
       if (i == j) {
         if (!(s > 0) || !std::isfinite(s)) return false;
         l[i * kK + i] = std::sqrt(s);
+        inv[i] = 1.0 / l[i * kK + i];
       } else {
-        l[i * kK + j] = s / l[j * kK + j];
+        l[i * kK + j] = s * inv[j];
       }
     }
-  }
-  double y[kK];
-  for (int i = 0; i < k; ++i) {
-    double s = b[i];
-    for (int m = 0; m < i; ++m) s -= l[i * kK + m] * y[m];
-    y[i] = s / l[i * kK + i];
-  }
-  for (int i = k - 1; i >= 0; --i) {
-    double s = y[i];
-    for (int m = i + 1; m < k; ++m) s -= l[m * kK + i] * x[m];
-    x[i] = s / l[i * kK + i];
   }
   return true;
 }
 
-// a = decay * a + (1 - decay) * c g g' (lower and upper triangle).
-inline void RankOneAverage(double* a, double decay, double c, const double* g, int k) {
-  const double f = (1.0 - decay) * c;
+// Solves L L' x = b with a factor from Factor (multiplications only).
+template <int k>
+inline void SolveFactored(const double* l, const double* inv, const double* b, double* x) {
+  double y[kK];
   for (int i = 0; i < k; ++i) {
-    for (int j = 0; j < k; ++j) a[i * kK + j] = decay * a[i * kK + j] + f * g[i] * g[j];
+    double s = b[i];
+    for (int m = 0; m < i; ++m) s -= l[i * kK + m] * y[m];
+    y[i] = s * inv[i];
+  }
+  for (int i = k - 1; i >= 0; --i) {
+    double s = y[i];
+    for (int m = i + 1; m < k; ++m) s -= l[m * kK + i] * x[m];
+    x[i] = s * inv[i];
   }
 }
 
-// d l / d sigma2 of one quasi-likelihood term.
-inline double DlDv(bool student, double nu, double e2, double v) {
-  if (student) {
-    const double u = e2 / (v * (nu - 2.0));
-    return (-0.5 + 0.5 * (nu + 1.0) * u / (1.0 + u)) / v;
+// a = decay * a + (1 - decay) * c g g' (lower triangle only).
+template <int k>
+inline void RankOneAverage(double* a, double decay, double c, const double* g) {
+  const double f = (1.0 - decay) * c;
+  for (int i = 0; i < k; ++i) {
+    for (int j = 0; j <= i; ++j) a[i * kK + j] = decay * a[i * kK + j] + f * g[i] * g[j];
   }
-  return 0.5 * (e2 / v - 1.0) / v;
 }
 
 }  // namespace
@@ -120,6 +120,7 @@ void RecursiveTracker::Anchor(const ModelParams& p, double next_variance,
   mu_ = p.spec.mean == MeanKind::kZero ? 0.0 : p.mu();
   nu_ = student ? p.nu() : 0.0;
   info_c_ = student ? nu_ / (2.0 * (nu_ + 3.0)) : 0.5;
+  inv_nu2_ = student ? 1.0 / (nu_ - 2.0) : 0.0;
   s0_ = p.UnconditionalVariance();
   wa_[0] = 1.0;  // the level: omega = level * s0 * (1 - persistence)
   wa_[1] = p.alpha(0);
@@ -132,6 +133,7 @@ void RecursiveTracker::Anchor(const ModelParams& p, double next_variance,
     n_info_ = 0;
     n_j_ = 0;
     q_ = 0;
+    r_factor_ok_ = j_factor_ok_ = false;
   }
   ResetToAnchor();
   v_ = va_ = next_variance;
@@ -165,8 +167,17 @@ void RecursiveTracker::Project(const TrackerOptions& o) {
 }
 
 void RecursiveTracker::Step(double x, const TrackerOptions& o) {
-  if (k_ == 0) return;
-  const int k = k_;
+  // Compile-time sizes let the compiler unroll the 3x3 / 4x4 algebra.
+  if (k_ == 3) {
+    StepK<3>(x, o);
+  } else if (k_ == 4) {
+    StepK<4>(x, o);
+  }
+}
+
+template <int k>
+void RecursiveTracker::StepK(double x, const TrackerOptions& o) {
+  constexpr bool gjr = k == 4;
   const double e = x - mu_;
   const double e2 = e * e;
   const double ne2 = e < 0.0 ? e2 : 0.0;
@@ -179,13 +190,20 @@ void RecursiveTracker::Step(double x, const TrackerOptions& o) {
   for (int i = 0; i < k; ++i) g[i] = psi_[i] * inv_v;
   const double decay = n_info_ < burn_in_ ? 1.0 - 1.0 / static_cast<double>(n_info_ + 1)
                                           : o.forgetting;
-  RankOneAverage(r_, decay, info_c_, g, k);
+  RankOneAverage<k>(r_, decay, info_c_, g);
   ++n_info_;
   if (n_info_ > burn_in_) {
-    const double dl = DlDv(student_, nu_, e2, v);
+    // The factor of R is refreshed every kRefactorBars bars (R moves by a
+    // fraction 1 - lambda a bar; this keeps square roots and divisions off
+    // most bars).
+    if (!r_factor_ok_ || n_info_ % kRefactorBars == 0) {
+      r_factor_ok_ = Factor<k>(r_, o.ridge, rl_, rinv_);
+    }
+    const double dl = DlDv(e2, inv_v);
     double s[kK] = {}, d[kK] = {};
     for (int i = 0; i < k; ++i) s[i] = dl * psi_[i];
-    if (SolveRidge(r_, o.ridge, k, s, d)) {
+    if (r_factor_ok_) {
+      SolveFactored<k>(rl_, rinv_, s, d);
       const double gain = 1.0 - o.forgetting;
       const double cap = o.max_step;
       for (int i = 0; i < k; ++i) w_[i] += std::clamp(gain * d[i], -cap, cap);
@@ -199,12 +217,12 @@ void RecursiveTracker::Step(double x, const TrackerOptions& o) {
   const double ls0 = w_[0] * s0_;
   double vn = ls0 * (1.0 - pers);
   vn += w_[1] * e2;
-  if (gjr_) vn += w_[2] * ne2;
+  if (gjr) vn += w_[2] * ne2;
   vn += beta * v;
   // d omega / d theta = s0 (1 - p), -level s0, [-level s0 / 2,] -level s0.
   psi_[0] = s0_ * (1.0 - pers) + beta * psi_[0];
   psi_[1] = e2 - ls0 + beta * psi_[1];
-  if (gjr_) psi_[2] = ne2 - 0.5 * ls0 + beta * psi_[2];
+  if (gjr) psi_[2] = ne2 - 0.5 * ls0 + beta * psi_[2];
   psi_[k - 1] = v - ls0 + beta * psi_[k - 1];
   v_ = vn;
 
@@ -213,30 +231,35 @@ void RecursiveTracker::Step(double x, const TrackerOptions& o) {
   const double inv_va = 1.0 / va;
   for (int i = 0; i < k; ++i) g[i] = psia_[i] * inv_va;
   const double kappa = o.stability_decay;
-  const double jdecay = 1.0 / (1.0 - kappa);
-  const double dj = n_j_ < jdecay ? 1.0 - 1.0 / static_cast<double>(n_j_ + 1) : kappa;
-  RankOneAverage(j_, dj, info_c_, g, k);
+  // J averages its first 1 / (1 - kappa) bars equally, then decays by kappa.
+  const bool j_warm = static_cast<double>(n_j_) * (1.0 - kappa) >= 1.0;
+  const double dj = j_warm ? kappa : 1.0 - 1.0 / static_cast<double>(n_j_ + 1);
+  RankOneAverage<k>(j_, dj, info_c_, g);
   ++n_j_;
-  const double dla = DlDv(student_, nu_, e2, va);
+  const double dla = DlDv(e2, inv_va);
   for (int i = 0; i < k; ++i) sum_[i] = kappa * sum_[i] + dla * psia_[i];
   q_ = 0;
-  if (n_j_ >= jdecay) {
-    double y[kK];
-    if (SolveRidge(j_, o.ridge, k, sum_, y)) {
+  if (j_warm) {
+    if (!j_factor_ok_ || n_j_ % kRefactorBars == 0) {
+      j_factor_ok_ = Factor<k>(j_, o.ridge, jl_, jinv_);
+    }
+    if (j_factor_ok_) {
+      double y[kK];
+      SolveFactored<k>(jl_, jinv_, sum_, y);
       double qq = 0;
       for (int i = 0; i < k; ++i) qq += sum_[i] * y[i];
       q_ = (1.0 - kappa * kappa) * qq;
     }
   }
   const double ba = wa_[k - 1];
-  const double pa = wa_[1] + (gjr_ ? 0.5 * wa_[2] : 0.0) + ba;
+  const double pa = wa_[1] + (gjr ? 0.5 * wa_[2] : 0.0) + ba;
   double van = s0_ * (1.0 - pa);
   van += wa_[1] * e2;
-  if (gjr_) van += wa_[2] * ne2;
+  if (gjr) van += wa_[2] * ne2;
   van += ba * va;
   psia_[0] = s0_ * (1.0 - pa) + ba * psia_[0];
   psia_[1] = e2 - s0_ + ba * psia_[1];
-  if (gjr_) psia_[2] = ne2 - 0.5 * s0_ + ba * psia_[2];
+  if (gjr) psia_[2] = ne2 - 0.5 * s0_ + ba * psia_[2];
   psia_[k - 1] = va - s0_ + ba * psia_[k - 1];
   va_ = van;
 
@@ -256,6 +279,7 @@ void RecursiveTracker::Step(double x, const TrackerOptions& o) {
     ResetToAnchor();
     std::fill(std::begin(r_), std::end(r_), 0.0);
     n_info_ = 0;
+    r_factor_ok_ = false;
     ++resets_;
   }
 }
@@ -282,6 +306,14 @@ void RecursiveTracker::Save(StateWriter* w) const {
   }
   for (double x : r_) w->F64(x);
   for (double x : j_) w->F64(x);
+  w->Bool(r_factor_ok_);
+  w->Bool(j_factor_ok_);
+  for (const double* a : {rl_, jl_}) {
+    for (int i = 0; i < kK * kK; ++i) w->F64(a[i]);
+  }
+  for (const double* a : {rinv_, jinv_}) {
+    for (int i = 0; i < kK; ++i) w->F64(a[i]);
+  }
   w->I64(n_info_);
   w->I64(n_j_);
   w->I64(bars_);
@@ -313,11 +345,20 @@ RecursiveTracker RecursiveTracker::Restore(StateReader* r, absl::string_view wha
     finite = finite && std::isfinite(*v);
   };
   for (double* x : {&t.mu_, &t.nu_, &t.info_c_, &t.s0_, &t.v_, &t.va_, &t.q_}) read(x);
+  t.inv_nu2_ = t.student_ ? 1.0 / (t.nu_ - 2.0) : 0.0;
   for (double* a : {t.wa_, t.w_, t.psi_, t.psia_, t.sum_}) {
     for (int i = 0; i < kK; ++i) read(&a[i]);
   }
   for (double& x : t.r_) read(&x);
   for (double& x : t.j_) read(&x);
+  t.r_factor_ok_ = r->Bool(f);
+  t.j_factor_ok_ = r->Bool(f);
+  for (double* a : {t.rl_, t.jl_}) {
+    for (int i = 0; i < kK * kK; ++i) read(&a[i]);
+  }
+  for (double* a : {t.rinv_, t.jinv_}) {
+    for (int i = 0; i < kK; ++i) read(&a[i]);
+  }
   t.n_info_ = r->I64(f);
   t.n_j_ = r->I64(f);
   t.bars_ = r->I64(f);

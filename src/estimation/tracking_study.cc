@@ -146,7 +146,7 @@ absl::StatusOr<StudyResult> RunTrackingStudy(const DriftPath& path, const ModelS
       if (last_fit) fo.start = *last_fit;
       ++res.fits;
       auto fit = FitModel(spec, w, fo);
-      if (!fit.ok() || !fit->converged) {
+      if (!fit.ok() || !fit->converged || !(fit->params.Persistence() < o.max_persistence)) {
         ++res.failed_fits;
         continue;
       }
