@@ -46,8 +46,10 @@
 //
 // Supported models: zero or constant mean with GARCH(1,1) or GJR(1,1,1),
 // Gaussian or Student-t innovations (Supports()). Cost per bar: two rank-one
-// updates and two triangular solves of 3x3/4x4 systems; the Cholesky factors
-// of R and J are refreshed every 8 bars (both move by a small fraction a bar).
+// updates and a triangular solve of a 3x3/4x4 system; the Cholesky factor of
+// R is refreshed every 8 bars (R moves by 1 - lambda a bar), and Q is
+// evaluated every 8 bars with a fresh factor of J (held in between, so an
+// alarm comes at most 7 bars later).
 // No allocation, no I/O.
 //
 // Thread-safety: plain fixed-size value; one thread owns it.
@@ -142,7 +144,7 @@ class RecursiveTracker {
   double level_ratio() const { return w_[0]; }
   // Variance prediction for the next bar under the tracked parameters.
   double next_variance() const { return v_; }
-  // The instability statistic Q_t (0 during its warm-up).
+  // The instability statistic Q (0 during its warm-up; evaluated every 8 bars).
   double instability() const { return q_; }
   // Bars since the last Anchor().
   int64_t bars_since_anchor() const { return bars_; }

@@ -238,11 +238,14 @@ void RecursiveTracker::StepK(double x, const TrackerOptions& o) {
   ++n_j_;
   const double dla = DlDv(e2, inv_va);
   for (int i = 0; i < k; ++i) sum_[i] = kappa * sum_[i] + dla * psia_[i];
-  q_ = 0;
-  if (j_warm) {
-    if (!j_factor_ok_ || n_j_ % kRefactorBars == 0) {
-      j_factor_ok_ = Factor<k>(j_, o.ridge, jl_, jinv_);
-    }
+  // Q is evaluated every kRefactorBars bars with a fresh factor of J and held
+  // in between: with a factor older than J, one large shock enters S at once
+  // but J's factor only later, which inflated Q (more false alarms).
+  if (!j_warm) {
+    q_ = 0;
+  } else if (!j_factor_ok_ || n_j_ % kRefactorBars == 0) {
+    j_factor_ok_ = Factor<k>(j_, o.ridge, jl_, jinv_);
+    q_ = 0;
     if (j_factor_ok_) {
       double y[kK];
       SolveFactored<k>(jl_, jinv_, sum_, y);
