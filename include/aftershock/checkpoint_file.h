@@ -35,7 +35,7 @@
 
 namespace aftershock {
 
-inline constexpr uint32_t kCheckpointFormatVersion = 2;  // 2: per-symbol tracking state
+inline constexpr uint32_t kCheckpointFormatVersion = 1;
 inline constexpr size_t kCheckpointHeaderBytes = 64;
 inline constexpr size_t kCheckpointTrailerBytes = 16;
 inline constexpr size_t kCheckpointSectionHeaderBytes = 16;

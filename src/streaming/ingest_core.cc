@@ -480,8 +480,9 @@ void IngestCore::SaveState(StateWriter* w) const {
     w->U64(s.ticks);
     w->I64(s.last_tick_ns);
     w->I64(s.last_arrival_ns);
-    // Tracking (format 2): the mode comes from the configuration; the drive
-    // model is the model in force retuned to the tracked coefficients.
+    // Tracking: the mode comes from the configuration; the drive model is the
+    // model in force retuned to the tracked coefficients. (Checkpoints from
+    // before these fields fail the configuration check: no [tracking] section.)
     w->Bool(s.need_anchor);
     w->Bool(s.instability_armed);
     s.tracker.Save(w);
