@@ -11,9 +11,9 @@
 //
 // Every series is simulated with a fixed seed (case index * 1000 + series),
 // so the table is reproducible.
+#include <algorithm>
 #include <cstdio>
 #include <cstdlib>
-#include <algorithm>
 #include <cstring>
 #include <string>
 #include <vector>
@@ -81,18 +81,19 @@ int Main(int argc, char** argv) {
       DriftShape::kLinear);
   add("GARCH step a.05>.15 b.93>.80", Garch(0.02, 0.05, 0.93), Garch(0.05, 0.15, 0.80),
       DriftShape::kStep);
-  add("GJR stable", Gjr(0.03, 0.03, 0.08, 0.90), Gjr(0.03, 0.03, 0.08, 0.90),
-      DriftShape::kStable);
+  add("GJR stable", Gjr(0.03, 0.03, 0.08, 0.90), Gjr(0.03, 0.03, 0.08, 0.90), DriftShape::kStable);
   add("GJR drift g.02>.20 b.93>.82", Gjr(0.03, 0.03, 0.02, 0.93), Gjr(0.05, 0.03, 0.20, 0.82),
       DriftShape::kLinear);
 
-  std::printf("tracking study: %d series x %lld bars per case; refit every %d bars on %d, "
-              "forgetting %.4g, max_step %.4g, alarm Q >= %.3g\n",
-              seeds, static_cast<long long>(n), so.refit_every, so.window, so.tracker.forgetting,
-              so.tracker.max_step, so.alert_threshold);
-  std::printf("| case | QLIKE refit-only | QLIKE drive | QLIKE true | drive - refit | t | p (paired, "
-              "2-sided) | drive better | RMSE(a,b) refit | RMSE(a,b) drive | resets | alarms per "
-              "1000 bars | delay (bars, median) |\n");
+  std::printf(
+      "tracking study: %d series x %lld bars per case; refit every %d bars on %d, "
+      "forgetting %.4g, max_step %.4g, alarm Q >= %.3g\n",
+      seeds, static_cast<long long>(n), so.refit_every, so.window, so.tracker.forgetting,
+      so.tracker.max_step, so.alert_threshold);
+  std::printf(
+      "| case | QLIKE refit-only | QLIKE drive | QLIKE true | drive - refit | t | p (paired, "
+      "2-sided) | drive better | RMSE(a,b) refit | RMSE(a,b) drive | resets | alarms per "
+      "1000 bars | delay (bars, median) |\n");
   std::printf("|---|---|---|---|---|---|---|---|---|---|---|---|---|\n");
   for (size_t ci = 0; ci < cases.size(); ++ci) {
     const Case& cs = cases[ci];
@@ -147,13 +148,13 @@ int Main(int argc, char** argv) {
       delay = delays.empty() ? "none" : std::to_string(delays[delays.size() / 2]);
       delay += " (" + std::to_string(delays.size()) + "/" + std::to_string(seeds) + " detected)";
     }
-    std::printf("| %s | %.5f | %.5f | %.5f | %+.5f | %.2f | %.3g | %lld/%d | %.4f | %.4f | %llu | "
-                "%.3f | %s |\n",
-                cs.name, mr / seeds, md / seeds, qt / seeds, pt.mean_diff, pt.t, pt.p_value,
-                static_cast<long long>(better), seeds, rr / seeds, rd / seeds,
-                static_cast<unsigned long long>(resets),
-                1000.0 * static_cast<double>(alarms) / static_cast<double>(bars_watched),
-                delay.c_str());
+    std::printf(
+        "| %s | %.5f | %.5f | %.5f | %+.5f | %.2f | %.3g | %lld/%d | %.4f | %.4f | %llu | "
+        "%.3f | %s |\n",
+        cs.name, mr / seeds, md / seeds, qt / seeds, pt.mean_diff, pt.t, pt.p_value,
+        static_cast<long long>(better), seeds, rr / seeds, rd / seeds,
+        static_cast<unsigned long long>(resets),
+        1000.0 * static_cast<double>(alarms) / static_cast<double>(bars_watched), delay.c_str());
     std::fflush(stdout);
   }
   return 0;

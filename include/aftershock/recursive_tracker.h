@@ -111,8 +111,7 @@ class RecursiveTracker {
   // filter's variance prediction for the next bar. Keeps the information
   // matrix and the instability statistic's sums when the spec is unchanged.
   // An unsupported spec (or params outside the constraints) deactivates the
-  // tracker. Not on the per-bar path (reads
-  // the parameter vector; allocates nothing).
+  // tracker. Called on the ingest thread after a swap; allocates nothing.
   // REQUIRES: options validated; next_variance > 0.
   void Anchor(const ModelParams& params, double next_variance, const TrackerOptions& options);
   // Deactivates (active() false).
@@ -175,18 +174,18 @@ class RecursiveTracker {
   }
 
   // Model constants (set by Anchor).
-  int k_ = 0;            // tracked coefficients, 0 = inactive
+  int k_ = 0;  // tracked coefficients, 0 = inactive
   bool gjr_ = false;
   bool student_ = false;
   int burn_in_ = 0;
-  double mu_ = 0;        // mean (0 for the zero mean)
-  double nu_ = 0;        // Student-t degrees of freedom
-  double info_c_ = 0.5;  // expected information of log sigma2 per bar
-  double inv_nu2_ = 0;   // 1 / (nu - 2)
-  double s0_ = 0;        // anchor's unconditional variance
-  double wa_[kMaxTrackedParams] = {};  // anchor coefficients (omega as w)
+  double mu_ = 0;                      // mean (0 for the zero mean)
+  double nu_ = 0;                      // Student-t degrees of freedom
+  double info_c_ = 0.5;                // expected information of log sigma2 per bar
+  double inv_nu2_ = 0;                 // 1 / (nu - 2)
+  double s0_ = 0;                      // anchor's unconditional variance
+  double wa_[kMaxTrackedParams] = {};  // anchor theta: level 1, alpha_1, [gamma_1,] beta_1
   // Tracked recursion.
-  double w_[kMaxTrackedParams] = {};
+  double w_[kMaxTrackedParams] = {};    // tracked theta: level, alpha_1, [gamma_1,] beta_1
   double v_ = 0;                        // sigma2 of the next bar
   double psi_[kMaxTrackedParams] = {};  // d v_ / d theta
   double r_[kMaxTrackedParams * kMaxTrackedParams] = {};  // information, lower triangle
@@ -195,12 +194,12 @@ class RecursiveTracker {
   double rl_[kMaxTrackedParams * kMaxTrackedParams] = {};
   double rinv_[kMaxTrackedParams] = {};
   bool r_factor_ok_ = false;
-  int64_t n_info_ = 0;                  // bars in r_ since the last reset
+  int64_t n_info_ = 0;  // bars in r_ since the last reset
   // Anchor recursion and instability statistic.
   double va_ = 0;
   double psia_[kMaxTrackedParams] = {};
-  double sum_[kMaxTrackedParams] = {};                    // S_t
-  double j_[kMaxTrackedParams * kMaxTrackedParams] = {};  // J_t, lower triangle
+  double sum_[kMaxTrackedParams] = {};                     // S_t
+  double j_[kMaxTrackedParams * kMaxTrackedParams] = {};   // J_t, lower triangle
   double jl_[kMaxTrackedParams * kMaxTrackedParams] = {};  // its factor, as rl_
   double jinv_[kMaxTrackedParams] = {};
   bool j_factor_ok_ = false;

@@ -65,7 +65,8 @@ struct StudyOptions {
   // it is refused and the model in force stays.
   double max_persistence = 0.9995;
   TrackerOptions tracker;
-  double alert_threshold = 20;  // [tracking] alert_threshold  // the instability statistic's alarm level
+  double alert_threshold =
+      20;  // [tracking] alert_threshold  // the instability statistic's alarm level
 };
 
 struct StudyResult {

@@ -70,8 +70,7 @@ absl::Status ValidateTrackerOptions(const TrackerOptions& o) {
   if (o.burn_in_bars < 1) return bad("burn_in_bars", o.burn_in_bars, ">= 1");
   if (!(o.max_step > 0 && o.max_step <= 1)) return bad("max_step", o.max_step, "in (0, 1]");
   if (!(o.max_persistence > 0 && o.max_persistence <= kMaxPersistence)) {
-    return bad("max_persistence", o.max_persistence,
-               absl::StrCat("in (0, ", kMaxPersistence, "]"));
+    return bad("max_persistence", o.max_persistence, absl::StrCat("in (0, ", kMaxPersistence, "]"));
   }
   if (!(o.max_level_ratio > 1) || !std::isfinite(o.max_level_ratio)) {
     return bad("max_level_ratio", o.max_level_ratio, "> 1 and finite");
@@ -92,8 +91,7 @@ bool RecursiveTracker::Supports(const ModelSpec& s) {
   return false;
 }
 
-void RecursiveTracker::Anchor(const ModelParams& p, double next_variance,
-                              const TrackerOptions& o) {
+void RecursiveTracker::Anchor(const ModelParams& p, double next_variance, const TrackerOptions& o) {
   // Checks by hand (CheckConstraints builds name strings: this must not allocate).
   bool ok = Supports(p.spec) && p.values.size() == static_cast<size_t>(p.spec.NumParams()) &&
             next_variance > 0 && std::isfinite(next_variance);
@@ -188,8 +186,8 @@ void RecursiveTracker::StepK(double x, const TrackerOptions& o) {
   double g[kK];
   const double inv_v = 1.0 / v;
   for (int i = 0; i < k; ++i) g[i] = psi_[i] * inv_v;
-  const double decay = n_info_ < burn_in_ ? 1.0 - 1.0 / static_cast<double>(n_info_ + 1)
-                                          : o.forgetting;
+  const double decay =
+      n_info_ < burn_in_ ? 1.0 - 1.0 / static_cast<double>(n_info_ + 1) : o.forgetting;
   RankOneAverage<k>(r_, decay, info_c_, g);
   ++n_info_;
   if (n_info_ > burn_in_) {

@@ -1,13 +1,12 @@
 #include "aftershock/tracking_study.h"
 
 #include <algorithm>
-#include <cmath>
-#include <optional>
-
 #include <boost/math/distributions/students_t.hpp>
 #include <boost/random/mersenne_twister.hpp>
 #include <boost/random/normal_distribution.hpp>
 #include <boost/random/student_t_distribution.hpp>
+#include <cmath>
+#include <optional>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/estimator.h"
@@ -29,7 +28,8 @@ std::vector<double> ParamsAt(const DriftCase& c, int64_t t) {
   }
   const double f = c.n > 1 ? static_cast<double>(t) / static_cast<double>(c.n - 1) : 0.0;
   std::vector<double> v(c.from.values.size());
-  for (size_t i = 0; i < v.size(); ++i) v[i] = c.from.values[i] + f * (c.to.values[i] - c.from.values[i]);
+  for (size_t i = 0; i < v.size(); ++i)
+    v[i] = c.from.values[i] + f * (c.to.values[i] - c.from.values[i]);
   return v;
 }
 
@@ -140,7 +140,8 @@ absl::StatusOr<StudyResult> RunTrackingStudy(const DriftPath& path, const ModelS
     const int64_t seen = t + 1;
     if (seen >= o.min_bars && (seen - o.min_bars) % o.refit_every == 0) {
       const int64_t from = std::max<int64_t>(0, seen - o.window);
-      const absl::Span<const double> w(path.returns.data() + from, static_cast<size_t>(seen - from));
+      const absl::Span<const double> w(path.returns.data() + from,
+                                       static_cast<size_t>(seen - from));
       FitOptions fo;
       fo.std_errors = false;
       if (last_fit) fo.start = *last_fit;

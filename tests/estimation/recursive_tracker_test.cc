@@ -1,9 +1,8 @@
 #include "aftershock/recursive_tracker.h"
 
+#include <algorithm>
 #include <boost/math/distributions/binomial.hpp>
 #include <catch2/catch.hpp>
-
-#include <algorithm>
 #include <cmath>
 #include <cstdio>
 #include <string>
@@ -228,9 +227,10 @@ TEST_CASE("instability alarms: false-alarm rate and detection delay", "[tracker]
   }
   const double upper = boost::math::binomial_distribution<double>::find_upper_bound_on_p(
       static_cast<double>(bars), static_cast<double>(alarms), 0.0005);
-  std::printf("instability alarms on stable series: %lld in %lld bars (99.9 %% upper bound %.3g "
-              "per bar)\n",
-              static_cast<long long>(alarms), static_cast<long long>(bars), upper);
+  std::printf(
+      "instability alarms on stable series: %lld in %lld bars (99.9 %% upper bound %.3g "
+      "per bar)\n",
+      static_cast<long long>(alarms), static_cast<long long>(bars), upper);
   CHECK(upper < 1.0 / 5000);
   // Detection: alpha 0.07 -> 0.20, beta 0.90 -> 0.75 at bar 3000 (the level
   // stays 1), the old model in force. At least 8 of 10 series detected within

@@ -1,7 +1,6 @@
 #include "aftershock/tracking_study.h"
 
 #include <catch2/catch.hpp>
-
 #include <cmath>
 #include <cstdlib>
 #include <sstream>
@@ -61,9 +60,9 @@ TEST_CASE("PairedTTest equals scipy.stats.ttest_rel", "[tracking_study]") {
   const std::vector<double> b = {0.915, 0.889, 0.930, 0.911, 0.902, 0.925, 0.894};
   const PairedTest t = PairedTTest(a, b);
   // Reference: scipy.stats.ttest_rel, live (tests/python/scipy_tracking_ref.py).
-  const auto r = testing::RunPython("scipy_tracking_ref.py", {},
-                                    absl::StrCat("ttest ", absl::StrJoin(a, ","), " ",
-                                                 absl::StrJoin(b, ","), "\n"));
+  const auto r = testing::RunPython(
+      "scipy_tracking_ref.py", {},
+      absl::StrCat("ttest ", absl::StrJoin(a, ","), " ", absl::StrJoin(b, ","), "\n"));
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   std::istringstream in(r.out);
