@@ -8,11 +8,10 @@
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <map>
+#include <nlohmann/json.hpp>
 #include <random>
 #include <string>
 #include <vector>
-
-#include <nlohmann/json.hpp>
 
 #include "aftershock/clock.h"
 #include "aftershock/ingest_core.h"
@@ -332,7 +331,6 @@ TEST_CASE("without the learned rate the random-gap name would be a stale storm",
     CHECK(a.value < 600);              // measured from the last tick, never across a night
   }
 }
-
 
 TEST_CASE("track mode publishes tracking records on m.<symbol>", "[services][tracking]") {
   Run run(std::string(testing::kFixedModelToml) +
