@@ -605,8 +605,9 @@ TEST_CASE("tracking groups choose the mode per symbol", "[core][tracking]") {
 }
 
 TEST_CASE("tracking: the drive hot path allocates nothing", "[core][alloc][tracking]") {
-  EngineConfig config = ParseConfigOrDie(std::string(testing::kFixedModelToml) +
-                                         "[bars]\ninterval = \"1s\"\n[tracking]\nmode = \"drive\"\n");
+  EngineConfig config =
+      ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                       "[bars]\ninterval = \"1s\"\n[tracking]\nmode = \"drive\"\n");
   NullSink sink;
   ManualClock clock(kT0);
   auto core = IngestCore::Create(config, &sink, &clock);
