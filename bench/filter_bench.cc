@@ -11,6 +11,7 @@
 #include <vector>
 
 #include "aftershock/online_filter.h"
+#include "aftershock/recursive_tracker.h"
 #include "aftershock/simulate.h"
 
 namespace aftershock {
@@ -83,6 +84,93 @@ void BM_FilterStep(benchmark::State& st, bool per_symbol_models) {
 
 BENCHMARK_CAPTURE(BM_FilterStep, per_symbol_models_10k, true);
 BENCHMARK_CAPTURE(BM_FilterStep, shared_model_10k, false);
+
+// Recursive tracking ([tracking], recursive_tracker.h) over the same 10,000
+// symbols visited round-robin, each with its own tracker (about 0.6 KB) and,
+// in drive mode, its own model retuned each bar. `track` is the tracker's step
+// alone (its added cost per bar in track mode); `drive` is the whole drive-mode
+// bar: tracker step, RetuneVariance and the filter step with all outputs.
+// Constant mean, GARCH(1,1)-t or GJR(1,1,1)-t (nu = 6).
+ModelParams TrackedParams(bool gjr, double jitter) {
+  // Values in the layout of model_spec.h: mu, omega, alpha_1, [gamma_1,] beta_1, nu.
+  if (gjr) {
+    return ModelParams{*MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "t"),
+                       {0.0002, 2e-6, 0.03, 0.08, 0.9 - jitter, 6.0}};
+  }
+  return ModelParams{*MakeModelSpec("constant", {}, "garch", {1, 1}, "t"),
+                     {0.0002, 2e-6, 0.08, 0.9 - jitter, 6.0}};
+}
+
+struct TrackedUniverse {
+  std::vector<FilterModel> models;
+  std::vector<FilterState> states;
+  std::vector<RecursiveTracker> trackers;
+  std::vector<double> returns;  // kSymbols x kBarsPerSymbol, symbol-major
+  TrackerOptions options;
+};
+
+std::unique_ptr<TrackedUniverse> MakeTrackedUniverse(bool gjr) {
+  auto u = std::make_unique<TrackedUniverse>();
+  OutputOptions oo;
+  oo.horizons = {1, 5, 20};
+  oo.risk_levels = {0.99, 0.975};
+  u->options.burn_in_bars = 8;  // the timed loop is past the burn-in: full steps
+  for (int i = 0; i < kSymbols; ++i) {
+    u->models.push_back(*FilterModel::Create(TrackedParams(gjr, 1e-6 * (i % 100)), oo, 1));
+  }
+  u->states.resize(kSymbols);
+  u->trackers.resize(kSymbols);
+  SimulationOptions so;
+  so.n = kBarsPerSymbol * 16;
+  so.seed = 43;
+  auto sim = Simulate(TrackedParams(gjr, 0), so);
+  u->returns.resize(static_cast<size_t>(kSymbols) * kBarsPerSymbol);
+  for (size_t i = 0; i < u->returns.size(); ++i) {
+    u->returns[i] = sim->returns[(i * 7) % sim->returns.size()];
+  }
+  for (int s = 0; s < kSymbols; ++s) {
+    InitFilterState(u->models[s], 0, &u->states[s]);
+    u->trackers[s].Anchor(u->models[s].params(), u->states[s].var.next_variance, u->options);
+    // Past the burn-in before timing.
+    for (int b = 0; b < 16; ++b) {
+      u->trackers[s].Step(u->returns[static_cast<size_t>(s) * kBarsPerSymbol + b], u->options);
+    }
+  }
+  return u;
+}
+
+void BM_Tracking(benchmark::State& st, bool gjr, bool drive) {
+  auto u = MakeTrackedUniverse(gjr);
+  BarUpdate out;
+  int bar = 16, sym = 0;
+  for (auto _ : st) {
+    const double r = u->returns[static_cast<size_t>(sym) * kBarsPerSymbol + bar];
+    RecursiveTracker& t = u->trackers[sym];
+    t.Step(r, u->options);
+    if (drive) {
+      FilterModel& m = u->models[sym];
+      m.RetuneVariance(t.omega(), t.alpha(), t.gamma(), t.beta());
+      FilterStep(m, &u->states[sym], r, &out);
+      t.SetNextVariance(u->states[sym].var.next_variance);
+      benchmark::DoNotOptimize(out);
+    } else {
+      benchmark::DoNotOptimize(t);
+    }
+    if (++sym == kSymbols) {
+      sym = 0;
+      bar = bar + 1 == kBarsPerSymbol ? 16 : bar + 1;
+    }
+  }
+  st.SetItemsProcessed(st.iterations());
+  st.counters["ns_per_step"] =
+      benchmark::Counter(static_cast<double>(st.iterations()),
+                         benchmark::Counter::kIsRate | benchmark::Counter::kInvert);
+}
+
+BENCHMARK_CAPTURE(BM_Tracking, track_garch11_t_10k, false, false);
+BENCHMARK_CAPTURE(BM_Tracking, track_gjr111_t_10k, true, false);
+BENCHMARK_CAPTURE(BM_Tracking, drive_garch11_t_10k, false, true);
+BENCHMARK_CAPTURE(BM_Tracking, drive_gjr111_t_10k, true, true);
 
 }  // namespace
 }  // namespace aftershock

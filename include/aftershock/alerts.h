@@ -111,10 +111,11 @@ enum class AlertRule : uint8_t {
   kStale,            // kind feed: in-session silence reached the stale threshold
   kTicksResumed,     // kind feed: data arrived after a stale alert
   kRejectBurst,      // kind feed: many rejected ticks
+  kInstability,      // kind model: the instability statistic of [tracking] reached its threshold
 };
 // "shock", "regime_high", "regime_low", "near_integrated", "gate_failed",
 // "gate_recovered", "fallback_engaged", "fallback_cleared", "stale",
-// "ticks_resumed", "reject_burst".
+// "ticks_resumed", "reject_burst", "instability".
 absl::string_view AlertRuleName(AlertRule r);
 
 // Symbol of feed-wide alerts (reject bursts): '_' is not allowed in instrument
@@ -310,6 +311,12 @@ class AlertEngine {
   // `reason` is copied into the engaged message (cut to fit).
   void OnFallback(const Symbol& symbol, int64_t t_ns, bool engaged, uint32_t version,
                   absl::string_view reason, SymbolAlertState* state, AlertSink* sink);
+
+  // The parameter-instability statistic of recursive tracking
+  // (recursive_tracker.h) reached `threshold` for model `version` (the caller
+  // keeps the hysteresis): a warn model alert, rule instability.
+  void OnInstability(const Symbol& symbol, int64_t t_ns, uint32_t version, double statistic,
+                     double threshold, AlertSink* sink);
 
   // A tick was rejected at now_ns (any symbol, any reason): reject-burst rule.
   // REQUIRES: now_ns non-decreasing across calls.

@@ -21,6 +21,7 @@
 #include "aftershock/model_params.h"
 #include "aftershock/model_spec.h"
 #include "aftershock/online_filter.h"
+#include "aftershock/recursive_tracker.h"
 #include "aftershock/seasonal_profile.h"
 #include "aftershock/wire.h"
 
@@ -292,6 +293,43 @@ struct AlertGroupConfig {
   bool Matches(absl::string_view symbol) const;
 };
 
+// [tracking]: recursive parameter tracking between refits
+// (recursive_tracker.h). Applies to symbols whose model in force is a zero or
+// constant mean GARCH(1,1) or GJR(1,1,1); other models are not tracked.
+enum class TrackingMode {
+  kOff,    // no tracking (the refit model alone)
+  kTrack,  // track and publish the tracked parameters; the filter keeps the refit model
+  kDrive,  // the filter uses the tracked parameters between refits; each refit re-anchors
+};
+absl::string_view TrackingModeName(TrackingMode m);  // "off" | "track" | "drive"
+
+// [tracking.groups.<name>]: another mode for a group of symbols. A symbol uses
+// the first group (in file order) whose `symbols` list matches it (an exact
+// symbol, or a prefix ending in '*'); other symbols use [tracking] mode.
+struct TrackingGroupConfig {
+  std::string name;                  // the table name
+  std::vector<std::string> symbols;  // exact symbols or "PREFIX*"; at least one
+  TrackingMode mode = TrackingMode::kOff;
+  bool Matches(absl::string_view symbol) const;
+};
+
+struct TrackingConfig {
+  TrackingMode mode = TrackingMode::kOff;  // default "off"
+  TrackerOptions tracker;  // forgetting, burn_in_bars, max_step, ... (recursive_tracker.h)
+  // Instability statistic level that raises a `model` alert (the statistic is
+  // about chi-square with 3 (GARCH) or 4 (GJR) degrees of freedom while the
+  // model fits); 0 = no alerts. Default 20 (README "Parameter tracking": about
+  // 1 false alarm per 25,000 bars on stable simulated series).
+  double alert_threshold = 20;
+  // Bars between `m.` tracking records of a tracked symbol; 0 = none. Default 100.
+  int64_t report_every_bars = 100;
+  std::vector<TrackingGroupConfig> groups;  // [tracking.groups.*], file order
+  // The mode of `symbol` (its group's, else `mode`).
+  TrackingMode ModeFor(absl::string_view symbol) const;
+  // Whether any symbol can be tracked.
+  bool AnyOn() const;
+};
+
 // [http]: health and metrics endpoint.
 struct HttpConfig {
   std::string endpoint = "127.0.0.1:7310";  // host:port to bind; loopback by default
@@ -327,6 +365,7 @@ struct EngineConfig {
   SeasonalityConfig seasonality;
   AlertsConfig alerts;
   std::vector<AlertGroupConfig> alert_groups;  // [alerts.groups.*], file order
+  TrackingConfig tracking;
   HttpConfig http;
   CheckpointConfig checkpoint;
   LogConfig log;

@@ -113,6 +113,13 @@ class HorizonTable {
   static absl::StatusOr<HorizonTable> Create(const ModelParams& params,
                                              absl::Span<const int> horizons);
 
+  // Recomputes the closed-form coefficients for new persistence and
+  // unconditional variance (drive mode of recursive tracking); no allocation.
+  // Powers by repeated squaring and (1 - phi^h) / (1 - phi): equal to Create's
+  // coefficients to about 1e-12 relative, not bit for bit.
+  // REQUIRES: closed(), the table was created for a non-EWMA model, phi < 1.
+  void Retune(double phi, double sbar2);
+
   bool closed() const { return closed_; }
   int size() const { return size_; }
   int horizon(int i) const { return horizon_[i]; }
@@ -130,6 +137,8 @@ class HorizonTable {
   }
 
  private:
+  void SetClosed(int i, double phi, double sbar2);  // coefficients of horizon i
+
   bool closed_ = false;
   int size_ = 0;
   std::array<int, kMaxHorizons> horizon_{};

@@ -86,6 +86,7 @@
 #include "aftershock/clock.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/online_filter.h"
+#include "aftershock/recursive_tracker.h"
 #include "aftershock/seasonal_profile.h"
 #include "aftershock/state_capture.h"
 #include "aftershock/state_codec.h"
@@ -284,6 +285,15 @@ class IngestCore : public TickConsumer {
   const FilterModel& model(int index) const { return *slots_[index].model; }
   const SeasonalProfile* seasonal_profile(int index) const { return slots_[index].profile.get(); }
   const FilterState& filter_state(int index) const { return slots_[index].filter; }
+  // Recursive tracking of a symbol ([tracking]; inactive unless the mode is
+  // track or drive and the model in force is supported).
+  TrackingMode tracking_mode(int index) const { return slots_[index].tracking; }
+  const RecursiveTracker& tracker(int index) const { return slots_[index].tracker; }
+  // Instability-alert hysteresis of a symbol: an alert fires when the
+  // statistic reaches [tracking] alert_threshold while armed; it re-arms below
+  // half the threshold and on each re-anchor. Returns true when an alert is due
+  // now (and disarms). Ingest thread (EngineServices::OnBar).
+  bool TakeInstabilityAlert(int index);
   // For an observer that advances or replaces the state itself (the refit
   // coordinator re-runs it on a swap), then swaps the model with kKeepState.
   // Ingest thread, between bars only (OnBar/OnClock).
@@ -319,6 +329,14 @@ class IngestCore : public TickConsumer {
     int64_t last_tick_ns = 0;
     int64_t last_arrival_ns = 0;
     std::unique_ptr<SymbolExtra> extra[kMaxSymbolExtras];
+    // ---- Recursive tracking ([tracking], recursive_tracker.h) ----
+    TrackingMode tracking = TrackingMode::kOff;  // the symbol's mode (group or [tracking])
+    bool need_anchor = false;        // re-anchor the tracker on the model in force next bar
+    bool instability_armed = true;   // the instability alert may fire (hysteresis)
+    RecursiveTracker tracker;
+    // kDrive: the model in force with the tracked coefficients (allocated with
+    // the slot, parameter room reserved, so re-anchoring copies without allocating).
+    std::unique_ptr<FilterModel> driven;
   };
 
   IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* clock,
@@ -326,6 +344,11 @@ class IngestCore : public TickConsumer {
   int IndexFor(absl::string_view symbol);  // -1 at the symbol limit (counted)
   void HandleTick(const Tick& tick, int64_t arrival_ns);
   void HandleBar(int index, const ClosedBar& bar);
+  // Tracking on the bar's filter input x; returns the model the filter steps
+  // with (the slot's, or in drive mode the retuned copy).
+  const FilterModel* TrackBar(Slot* slot, double x);
+  // Sets up a slot's tracking mode (and its drive-mode model) for `symbol`.
+  void InitTracking(Slot* slot, absl::string_view symbol);
   bool SendOn(TopicKind kind, absl::string_view symbol, absl::string_view body);
 
   EngineConfig config_;

@@ -71,6 +71,17 @@ class FilterModel {
   // sigma2 the state starts from: the unconditional variance (not for EWMA).
   double unconditional_variance() const { return params_.UnconditionalVariance(); }
 
+  // Drive mode of recursive tracking (recursive_tracker.h): replaces the
+  // variance coefficients of a GARCH(1,1) or GJR(1,1,1) model in place: the
+  // compiled coefficients, params().values, persistence and horizon table
+  // (gamma is ignored for GARCH). Hot path: no allocation.
+  // REQUIRES: RecursiveTracker::Supports(params().spec); the new values
+  // satisfy CheckConstraints (the tracker's projection guarantees it).
+  void RetuneVariance(double omega, double alpha, double gamma, double beta);
+  // Makes room for n parameter values, so that copying a model of at most n
+  // parameters into this one later does not allocate.
+  void ReserveParams(size_t n) { params_.values.reserve(n); }
+
  private:
   friend void FilterStep(const FilterModel&, FilterState*, double, BarUpdate*);
   friend void InitFilterState(const FilterModel&, double, FilterState*);

@@ -40,6 +40,18 @@ absl::string_view LogLevelName(LogLevel l) {
   return "info";
 }
 
+absl::string_view TrackingModeName(TrackingMode m) {
+  switch (m) {
+    case TrackingMode::kTrack:
+      return "track";
+    case TrackingMode::kDrive:
+      return "drive";
+    case TrackingMode::kOff:
+      break;
+  }
+  return "off";
+}
+
 absl::string_view OpeningReturnName(OpeningReturn o) {
   return o == OpeningReturn::kScaled ? "scaled" : "skip";
 }
@@ -939,6 +951,60 @@ absl::Status ParseAlerts(const std::string* source, const Section& s, AlertsConf
   return absl::OkStatus();
 }
 
+absl::Status ParseTrackingMode(const Section& s, TrackingMode* mode) {
+  int m = static_cast<int>(*mode);
+  AS_RETURN_IF_ERROR(s.Word("mode", {"off", "track", "drive"}, &m));
+  *mode = static_cast<TrackingMode>(m);
+  return absl::OkStatus();
+}
+
+absl::Status ParseTracking(const std::string* source, const Section& s, TrackingConfig* c) {
+  AS_RETURN_IF_ERROR(s.CheckKeys({"mode", "forgetting", "burn_in_bars", "max_step",
+                                  "max_persistence", "max_level_ratio", "ridge",
+                                  "stability_decay", "alert_threshold", "report_every_bars",
+                                  "groups"}));
+  AS_RETURN_IF_ERROR(ParseTrackingMode(s, &c->mode));
+  TrackerOptions& t = c->tracker;
+  AS_RETURN_IF_ERROR(s.Number("forgetting", &t.forgetting, 0, 1, true, true));
+  AS_RETURN_IF_ERROR(s.Integer("burn_in_bars", &t.burn_in_bars, 1, 1000000));
+  AS_RETURN_IF_ERROR(s.Number("max_step", &t.max_step, 0, 1, true, false));
+  AS_RETURN_IF_ERROR(
+      s.Number("max_persistence", &t.max_persistence, 0, kMaxPersistence, true, false));
+  AS_RETURN_IF_ERROR(s.Number("max_level_ratio", &t.max_level_ratio, 1, 1e12, true, false));
+  AS_RETURN_IF_ERROR(s.Number("ridge", &t.ridge, 0, 1e6, false, false));
+  AS_RETURN_IF_ERROR(s.Number("stability_decay", &t.stability_decay, 0, 1, true, true));
+  AS_RETURN_IF_ERROR(s.Number("alert_threshold", &c->alert_threshold, 0, 1e12, false, false));
+  AS_RETURN_IF_ERROR(s.Integer("report_every_bars", &c->report_every_bars, 0, int64_t{1} << 40));
+  if (auto st = ValidateTrackerOptions(t); !st.ok()) return s.SectionError(st.message());
+  const toml::node* g = s.Node("groups");
+  if (g == nullptr) return absl::OkStatus();
+  if (!g->is_table()) {
+    return s.KeyError("groups", "expected tables [tracking.groups.<name>] with symbols = [...]");
+  }
+  const Section gs = SubSection(source, s, "groups", "tracking.groups");
+  for (auto&& [key, node] : *g->as_table()) {
+    const std::string name(key.str());
+    if (!node.is_table()) return gs.KeyError(name, "expected a table with symbols and mode");
+    const Section one = SubSection(source, gs, name, "tracking.groups." + name);
+    AS_RETURN_IF_ERROR(one.CheckKeys({"symbols", "mode"}));
+    TrackingGroupConfig group;
+    group.name = name;
+    group.mode = c->mode;
+    if (!one.Has("symbols")) return one.KeyError("symbols", "required: the symbols of the group");
+    AS_RETURN_IF_ERROR(one.StringArray("symbols", &group.symbols));
+    if (group.symbols.empty()) return one.KeyError("symbols", "at least one symbol or prefix*");
+    for (const std::string& p : group.symbols) {
+      if (!ValidSymbolPattern(p)) {
+        return one.KeyError("symbols",
+                            absl::StrCat("'", p, "' is not a symbol or a prefix ending in *"));
+      }
+    }
+    AS_RETURN_IF_ERROR(ParseTrackingMode(one, &group.mode));
+    c->groups.push_back(std::move(group));
+  }
+  return absl::OkStatus();
+}
+
 absl::Status ParseHttp(const Section& s, HttpConfig* c) {
   AS_RETURN_IF_ERROR(s.CheckKeys({"endpoint", "enabled"}));
   AS_RETURN_IF_ERROR(s.String("endpoint", &c->endpoint));
@@ -975,8 +1041,8 @@ absl::Status ParseLog(const Section& s, LogConfig* c) {
 
 absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::string& source) {
   static constexpr absl::string_view kSections[] = {
-      "feed",  "nats",        "publish", "bars", "model",      "warmup", "outputs",
-      "limits", "refit", "seasonality", "alerts", "http", "checkpoint", "log"};
+      "feed",  "nats",        "publish", "bars",     "model", "warmup",     "outputs",
+      "limits", "refit", "seasonality", "alerts", "tracking", "http", "checkpoint", "log"};
   for (auto&& [k, v] : doc) {
     bool known = false;
     for (absl::string_view name : kSections) known = known || Sv(k.str()) == name;
@@ -1018,6 +1084,7 @@ absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::st
   AS_RETURN_IF_ERROR(ParseRefit(section("refit"), &c.refit));
   AS_RETURN_IF_ERROR(ParseSeasonality(section("seasonality"), c.bars, c.outputs, &c.seasonality));
   AS_RETURN_IF_ERROR(ParseAlerts(&source, section("alerts"), &c.alerts, &c.alert_groups));
+  AS_RETURN_IF_ERROR(ParseTracking(&source, section("tracking"), &c.tracking));
   AS_RETURN_IF_ERROR(ParseHttp(section("http"), &c.http));
   AS_RETURN_IF_ERROR(ParseCheckpoint(section("checkpoint"), &c.checkpoint));
   AS_RETURN_IF_ERROR(ParseLog(section("log"), &c.log));
@@ -1051,6 +1118,40 @@ std::string Clock(int minutes) {
 }
 
 }  // namespace
+
+namespace {
+
+bool MatchesPatterns(const std::vector<std::string>& symbols, absl::string_view symbol) {
+  for (const std::string& p : symbols) {
+    if (!p.empty() && p.back() == '*') {
+      if (absl::StartsWith(symbol, absl::string_view(p).substr(0, p.size() - 1))) return true;
+    } else if (symbol == p) {
+      return true;
+    }
+  }
+  return false;
+}
+
+}  // namespace
+
+bool TrackingGroupConfig::Matches(absl::string_view symbol) const {
+  return MatchesPatterns(symbols, symbol);
+}
+
+TrackingMode TrackingConfig::ModeFor(absl::string_view symbol) const {
+  for (const TrackingGroupConfig& g : groups) {
+    if (g.Matches(symbol)) return g.mode;
+  }
+  return mode;
+}
+
+bool TrackingConfig::AnyOn() const {
+  if (mode != TrackingMode::kOff) return true;
+  for (const TrackingGroupConfig& g : groups) {
+    if (g.mode != TrackingMode::kOff) return true;
+  }
+  return false;
+}
 
 bool AlertGroupConfig::Matches(absl::string_view symbol) const {
   for (const std::string& p : symbols) {
@@ -1216,6 +1317,24 @@ std::string FormatEngineConfig(const EngineConfig& c) {
     }
     absl::StrAppend(&o, "]\n");
     alert_keys(g.alerts, false);
+  }
+  {
+    const TrackingConfig& t = c.tracking;
+    const TrackerOptions& k = t.tracker;
+    absl::StrAppend(&o, "\n[tracking]\nmode = ", Quote(TrackingModeName(t.mode)),
+                    "\nforgetting = ", num(k.forgetting), "\nburn_in_bars = ", k.burn_in_bars,
+                    "\nmax_step = ", num(k.max_step), "\nmax_persistence = ", num(k.max_persistence),
+                    "\nmax_level_ratio = ", num(k.max_level_ratio), "\nridge = ", num(k.ridge),
+                    "\nstability_decay = ", num(k.stability_decay),
+                    "\nalert_threshold = ", num(t.alert_threshold),
+                    "\nreport_every_bars = ", t.report_every_bars, "\n");
+    for (const TrackingGroupConfig& g : t.groups) {
+      absl::StrAppend(&o, "\n[tracking.groups.", Quote(g.name), "]\nsymbols = [");
+      for (size_t i = 0; i < g.symbols.size(); ++i) {
+        absl::StrAppend(&o, i ? ", " : "", Quote(g.symbols[i]));
+      }
+      absl::StrAppend(&o, "]\nmode = ", Quote(TrackingModeName(g.mode)), "\n");
+    }
   }
   absl::StrAppend(&o, "\n[http]\nendpoint = ", Quote(c.http.endpoint),
                   "\nenabled = ", c.http.enabled ? "true" : "false", "\n");

@@ -203,15 +203,39 @@ absl::StatusOr<HorizonTable> HorizonTable::Create(const ModelParams& params,
       t.sum_a_[i] = 0.0;
       t.sum_b_[i] = h;
     } else {
-      const double ph = PowN(phi, h - 1);
-      const double g = GeometricSum(phi, h);
-      t.point_a_[i] = sbar2 * (1.0 - ph);
-      t.point_b_[i] = ph;
-      t.sum_a_[i] = sbar2 * (h - g);
-      t.sum_b_[i] = g;
+      t.SetClosed(i, phi, sbar2);
     }
   }
   return t;
+}
+
+void HorizonTable::SetClosed(int i, double phi, double sbar2) {
+  const int h = horizon_[i];
+  const double ph = PowN(phi, h - 1);
+  const double g = GeometricSum(phi, h);
+  point_a_[i] = sbar2 * (1.0 - ph);
+  point_b_[i] = ph;
+  sum_a_[i] = sbar2 * (h - g);
+  sum_b_[i] = g;
+}
+
+void HorizonTable::Retune(double phi, double sbar2) {
+  // Per bar in drive mode: integer powers by squaring and the plain geometric
+  // sum instead of pow/expm1 (phi <= kMaxPersistence keeps 1 - phi^h away from
+  // cancellation for the horizons allowed).
+  for (int i = 0; i < size_; ++i) {
+    const int h = horizon_[i];
+    double ph = 1.0, b = phi;
+    for (int n = h - 1; n > 0; n >>= 1) {
+      if (n & 1) ph *= b;
+      b *= b;
+    }
+    const double g = (1.0 - ph * phi) / (1.0 - phi);
+    point_a_[i] = sbar2 * (1.0 - ph);
+    point_b_[i] = ph;
+    sum_a_[i] = sbar2 * (h - g);
+    sum_b_[i] = g;
+  }
 }
 
 }  // namespace aftershock

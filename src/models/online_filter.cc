@@ -99,6 +99,21 @@ absl::StatusOr<FilterModel> FilterModel::Ewma(double lambda, const OutputOptions
   return Create(ModelParams{spec, {lambda}}, outputs, version);
 }
 
+void FilterModel::RetuneVariance(double omega, double alpha, double gamma, double beta) {
+  omega_ = omega;
+  alpha_[0] = alpha;
+  if (no_ > 0) gamma_[0] = gamma;
+  beta_[0] = beta;
+  const int v0 = params_.spec.VarianceOffset();
+  params_.values[v0] = omega;
+  params_.values[v0 + 1] = alpha;
+  if (no_ > 0) params_.values[v0 + 2] = gamma;
+  params_.values[v0 + 1 + na_ + no_] = beta;
+  phi_ = alpha + (no_ > 0 ? 0.5 * gamma : 0.0) + beta;
+  sbar2_ = omega / (1.0 - phi_);
+  if (horizons_.closed()) horizons_.Retune(phi_, sbar2_);
+}
+
 void InitFilterState(const FilterModel& model, double variance, FilterState* state) {
   *state = FilterState{};
   double v = variance;

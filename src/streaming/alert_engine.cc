@@ -114,6 +114,8 @@ absl::string_view AlertRuleName(AlertRule r) {
       return "stale";
     case AlertRule::kTicksResumed:
       return "ticks_resumed";
+    case AlertRule::kInstability:
+      return "instability";
     case AlertRule::kRejectBurst:
       return "reject_burst";
   }
@@ -422,6 +424,25 @@ void AlertEngine::OnRefitOutcome(const Symbol& symbol, int64_t t_ns, const GateE
          "%.*s: refit failed the quality gate %d times in a row (last: %.*s); the current model "
          "stays in use, review the fit report.",
          SymLen(symbol), symbol.data, o.consecutive_failures, ReasonLen(reason), reason.data());
+  Send(a, sink);
+}
+
+void AlertEngine::OnInstability(const Symbol& symbol, int64_t t_ns, uint32_t version,
+                                double statistic, double threshold, AlertSink* sink) {
+  Alert* a = &scratch_;
+  a->symbol = symbol;
+  a->t_ns = t_ns;
+  a->kind = AlertKind::kModel;
+  a->rule = AlertRule::kInstability;
+  a->severity = Severity::kWarn;
+  a->ver = version;
+  a->value = statistic;
+  a->threshold = threshold;
+  Format(a,
+         "%.*s: parameter instability statistic %.1f reached %.1f: model v%u no longer fits the "
+         "recent bars (tracked parameters on m.%.*s); the next refit should replace it.",
+         SymLen(symbol), symbol.data, statistic, threshold, static_cast<unsigned>(version),
+         SymLen(symbol), symbol.data);
   Send(a, sink);
 }
 

@@ -122,6 +122,28 @@ std::vector<ConfigStateSection> StateRelevantConfig(const EngineConfig& c) {
     }
     out.push_back({"[seasonality]", std::move(t)});
   }
+  {
+    // The tracker's state evolves under these settings.
+    std::string t;
+    const TrackingConfig& k = c.tracking;
+    Line(&t, "mode", TrackingModeName(k.mode));
+    if (k.AnyOn()) {
+      const TrackerOptions& o = k.tracker;
+      Line(&t, "forgetting", Num(o.forgetting));
+      Line(&t, "burn_in_bars", absl::StrCat(o.burn_in_bars));
+      Line(&t, "max_step", Num(o.max_step));
+      Line(&t, "max_persistence", Num(o.max_persistence));
+      Line(&t, "max_level_ratio", Num(o.max_level_ratio));
+      Line(&t, "ridge", Num(o.ridge));
+      Line(&t, "stability_decay", Num(o.stability_decay));
+      Line(&t, "alert_threshold", Num(k.alert_threshold));
+      for (const TrackingGroupConfig& g : k.groups) {
+        Line(&t, absl::StrCat("groups.", g.name), absl::StrCat(absl::StrJoin(g.symbols, ","),
+                                                               " ", TrackingModeName(g.mode)));
+      }
+    }
+    out.push_back({"[tracking]", std::move(t)});
+  }
   return out;
 }
 

@@ -470,12 +470,59 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     }
   }
 
+  // Recursive tracking ([tracking]): the instability alert and, every
+  // report_every_bars bars after a re-anchor, a tracking record on m.<symbol>
+  // (outcome "tracking"): tracked coefficients, the refit model's, their drift.
+  void OnTracking(IngestCore* core, int index, const BarUpdate& u) {
+    const RecursiveTracker& t = core->tracker(index);
+    auto& p = symbols_[index];
+    if (!t.active()) return;
+    const TrackingConfig& tc = core->config().tracking;
+    const uint32_t version = core->model(index).version();
+    if (core->TakeInstabilityAlert(index)) {
+      sink_.index = index;
+      p.alerts_engine->OnInstability(p.symbol, u.t_ns, version, t.instability(),
+                                     tc.alert_threshold, &sink_);
+    }
+    if (tc.report_every_bars <= 0 || t.bars_since_anchor() % tc.report_every_bars != 0) return;
+    // Fixed-size formatting: no allocation once json_ has grown.
+    static constexpr const char* kNames[] = {"omega", "alpha_1", "gamma_1", "beta_1"};
+    char buf[1536];
+    int n = std::snprintf(
+        buf, sizeof(buf),
+        "{\"symbol\":\"%.*s\",\"outcome\":\"tracking\",\"mode\":\"%s\",\"version\":%u,"
+        "\"t_ns\":%lld,\"spec\":\"%s\",\"bars_since_refit\":%lld,\"stepping\":%s,\"params\":[",
+        static_cast<int>(p.symbol.view().size()), p.symbol.view().data(),
+        core->tracking_mode(index) == TrackingMode::kDrive ? "drive" : "track", version,
+        static_cast<long long>(u.t_ns), t.gjr() ? "GJR(1,1,1)" : "GARCH(1,1)",
+        static_cast<long long>(t.bars_since_anchor()), t.stepping() ? "true" : "false");
+    int name = 0;
+    for (int i = 0; i < t.num_params() && n > 0 && n < static_cast<int>(sizeof(buf)); ++i) {
+      if (!t.gjr() && name == 2) ++name;  // no gamma_1
+      const double v = t.coefficient(i), a = t.anchor_coefficient(i);
+      n += std::snprintf(buf + n, sizeof(buf) - n,
+                         "%s{\"name\":\"%s\",\"value\":%.17g,\"refit\":%.17g,\"drift\":%.17g}",
+                         i ? "," : "", kNames[name++], v, a, v - a);
+    }
+    if (n > 0 && n < static_cast<int>(sizeof(buf))) {
+      n += std::snprintf(buf + n, sizeof(buf) - n,
+                         "],\"persistence\":%.17g,\"level_ratio\":%.17g,\"instability\":%.17g,"
+                         "\"resets\":%llu}",
+                         t.persistence(), t.level_ratio(), t.instability(),
+                         static_cast<unsigned long long>(t.resets()));
+    }
+    if (n <= 0 || n >= static_cast<int>(sizeof(buf))) return;
+    json_.assign(buf, static_cast<size_t>(n));
+    core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
+  }
+
   void OnBar(IngestCore* core, int index, const ClosedBar& bar, BarUpdate* update) override {
     PerSymbol& p = symbols_[index];
     sink_.index = index;
     AlertEngine* alerts = p.alerts_engine;
     const int32_t tag = seasonal_ ? core->SeasonalTagOf(bar, update->flags) : 0;
     alerts->OnBar(*update, &p.alerts, &sink_);
+    if (core->tracking_mode(index) != TrackingMode::kOff) OnTracking(core, index, *update);
     if (seasonal_ && !refit_) RecordSeasonal(core, index, update->r, tag);
     if (!refit_ || p.refit_id < 0) return;
     const uint32_t id = static_cast<uint32_t>(p.refit_id);

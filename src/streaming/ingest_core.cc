@@ -107,6 +107,7 @@ int IngestCore::IndexFor(absl::string_view symbol) {
     InitFilterState(*initial_model_, 0.0, &slot.filter);
     slot.filter_ready = true;
   }
+  InitTracking(&slot, symbol);
   index_.emplace(std::string(symbol), index);
   counters_.symbols = slots_.size();
   for (BarObserver* o : observers_) o->OnNewSymbol(this, index, symbol);
@@ -225,7 +226,15 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
   const bool absurd = !(std::fabs(r) < 1e100);
   FilterState before;
   if (absurd) before = slot.filter;
-  FilterStep(model, &slot.filter, r, &u);
+  const FilterModel& step_model = *TrackBar(&slot, r);
+  FilterStep(step_model, &slot.filter, r, &u);
+  if (&step_model != &model) {
+    // Drive: the tracker's next prediction is the filter's (equal unless the
+    // tracker just reset to the model in force).
+    if (slot.filter.var.next_variance > 0 && std::isfinite(slot.filter.var.next_variance)) {
+      slot.tracker.SetNextVariance(slot.filter.var.next_variance);
+    }
+  }
   if (!std::isfinite(slot.filter.var.next_variance) || !std::isfinite(slot.filter.mu_next) ||
       !std::isfinite(u.z)) {
     ++counters_.non_finite_output;
@@ -236,6 +245,7 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
     } else {
       InitFilterState(model, 0.0, &slot.filter);
     }
+    slot.need_anchor = slot.tracking != TrackingMode::kOff;
     return;
   }
   if (adjust) {
@@ -243,7 +253,7 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
     const int kk = std::min(std::max(k_bar, 0), prof->buckets() - 1);
     const double s2_now =
         (tag & kSeasonalTagOvernight) ? prof->overnight_factor() : prof->factor(kk);
-    SeasonalizeUpdate(model, slot.filter, r_raw, s2_now, prof->ahead(kk), &u);
+    SeasonalizeUpdate(step_model, slot.filter, r_raw, s2_now, prof->ahead(kk), &u);
     u.flags |= kFlagSeasonal;
   }
   ++slot.filtered;
@@ -262,6 +272,49 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
   } else {
     ++counters_.drops;
   }
+}
+
+void IngestCore::InitTracking(Slot* slot, absl::string_view symbol) {
+  slot->tracking = config_.tracking.ModeFor(symbol);
+  slot->need_anchor = slot->tracking != TrackingMode::kOff;
+  if (slot->tracking == TrackingMode::kDrive) {
+    slot->driven = std::make_unique<FilterModel>();
+    // Room for the largest tracked model's vector (mean, 4 coefficients, nu).
+    slot->driven->ReserveParams(kMaxTrackedParams + 2);
+  }
+}
+
+const FilterModel* IngestCore::TrackBar(Slot* slot, double x) {
+  const FilterModel* model = slot->model.get();
+  if (slot->tracking == TrackingMode::kOff) return model;
+  const TrackerOptions& o = config_.tracking.tracker;
+  if (slot->need_anchor) {
+    slot->need_anchor = false;
+    slot->instability_armed = true;
+    // The model in force and the state's prediction for this bar; an
+    // unsupported model (EWMA warm-up, ARMA, higher orders) deactivates it.
+    slot->tracker.Anchor(model->params(), slot->filter.var.next_variance, o);
+    if (slot->tracker.active() && slot->driven) *slot->driven = *model;
+  }
+  if (!slot->tracker.active()) return model;
+  slot->tracker.Step(x, o);
+  if (slot->tracking != TrackingMode::kDrive) return model;
+  const RecursiveTracker& t = slot->tracker;
+  slot->driven->RetuneVariance(t.omega(), t.alpha(), t.gamma(), t.beta());
+  return slot->driven.get();
+}
+
+bool IngestCore::TakeInstabilityAlert(int index) {
+  Slot& slot = slots_[index];
+  const double threshold = config_.tracking.alert_threshold;
+  if (!(threshold > 0) || !slot.tracker.active()) return false;
+  const double q = slot.tracker.instability();
+  if (slot.instability_armed && q >= threshold) {
+    slot.instability_armed = false;
+    return true;
+  }
+  if (!slot.instability_armed && q < 0.5 * threshold) slot.instability_armed = true;
+  return false;
 }
 
 bool IngestCore::SendOn(TopicKind kind, absl::string_view symbol, absl::string_view body) {
@@ -378,6 +431,7 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
   slot.filter_ready = true;
   slot.num_start_returns = 0;
   slot.model = swap.model;
+  slot.need_anchor = slot.tracking != TrackingMode::kOff;
   slot.status_flags = swap.status_flags & (kFlagWarmup | kFlagFallback | kFlagPooled);
   ++counters_.model_swaps;
   return absl::OkStatus();
@@ -418,6 +472,11 @@ struct CoreSymbolCapture {
   uint64_t ticks = 0;
   int64_t last_tick_ns = 0;
   int64_t last_arrival_ns = 0;
+  // Tracking ([tracking]): copied only for symbols whose mode is not off (an
+  // inactive tracker otherwise, as the core's own slot holds).
+  bool need_anchor = false;
+  bool instability_armed = false;
+  RecursiveTracker tracker;
 };
 
 class CoreCapture : public StateCapture {
@@ -466,6 +525,12 @@ class CoreCapture : public StateCapture {
       w->U64(s.ticks);
       w->I64(s.last_tick_ns);
       w->I64(s.last_arrival_ns);
+      // Tracking: the mode comes from the configuration; the drive model is the
+      // model in force retuned to the tracked coefficients. (Checkpoints from
+      // before these fields fail the configuration check: no [tracking] section.)
+      w->Bool(s.need_anchor);
+      w->Bool(s.instability_armed);
+      s.tracker.Save(w);
     }
   }
 
@@ -521,6 +586,9 @@ void IngestCore::CaptureState(StateCapture* capture) const {
     d.ticks = s.ticks;
     d.last_tick_ns = s.last_tick_ns;
     d.last_arrival_ns = s.last_arrival_ns;
+    d.need_anchor = s.need_anchor;
+    d.instability_armed = s.instability_armed;
+    if (s.tracking != TrackingMode::kOff) d.tracker = s.tracker;
   }
 }
 
@@ -593,7 +661,27 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
     s.ticks = r.U64(what + " counters");
     s.last_tick_ns = r.I64(what + " last tick");
     s.last_arrival_ns = r.I64(what + " last arrival");
+    const bool need_anchor = r.Bool(what + " tracking");
+    const bool armed = r.Bool(what + " tracking");
+    s.tracker = RecursiveTracker::Restore(&r, what);
     if (!r.ok()) break;
+    InitTracking(&s, name);
+    if (s.tracking == TrackingMode::kOff && (s.tracker.active() || need_anchor)) {
+      r.Fail(what + " tracker", "tracking state while [tracking] is off for the symbol");
+      break;
+    }
+    s.need_anchor = need_anchor;
+    s.instability_armed = armed;
+    if (s.driven && s.tracker.active() && !need_anchor) {
+      if (!RecursiveTracker::Supports(s.model->params().spec) ||
+          (s.tracker.gjr() != (s.model->params().spec.variance == VarianceKind::kGjr))) {
+        r.Fail(what + " tracker", "does not match the model in force");
+        break;
+      }
+      *s.driven = *s.model;
+      s.driven->RetuneVariance(s.tracker.omega(), s.tracker.alpha(), s.tracker.gamma(),
+                               s.tracker.beta());
+    }
     index.emplace(std::string(name), static_cast<int>(k));
     slots.push_back(std::move(s));
   }

@@ -149,6 +149,54 @@ TEST_CASE("replay in two parts equals the whole replay (time bars, sessions, ref
   CHECK(resumed_with_jobs >= 2);
 }
 
+TEST_CASE("replay in two parts equals the whole replay with recursive tracking in drive mode",
+          "[app][replay][checkpoint][tracking]") {
+  const std::string dir = testing::ScratchDir("replay_checkpoint_tracking");
+  const std::vector<std::string> lines = TickLines();
+  // Starting parameters keep every symbol on a tracked GARCH(1,1)-t (refits
+  // re-estimate it); a low instability threshold so that model alerts of rule
+  // instability occur.
+  const std::string base = std::string(kConfig) +
+                           "[model.params]\nmu = 0.0\nomega = 2e-9\nalpha1 = 0.08\n"
+                           "beta1 = 0.9\nnu = 8.0\n";
+  const std::string cfg =
+      WriteFile(dir + "/c.toml", base + "[tracking]\nmode = \"drive\"\nburn_in_bars = 20\n"
+                                        "stability_decay = 0.95\nalert_threshold = 6\n");
+  const std::string plain = WriteFile(dir + "/plain.toml", base);
+  const std::string whole_csv = WriteFile(dir + "/whole.csv", Csv(lines, 0, lines.size()));
+  const auto whole = Replay(cfg, whole_csv, dir + "/whole", "1", {});
+  INFO(whole.err);
+  REQUIRE(whole.exit_code == 0);
+  const Outputs ref = Read(dir + "/whole");
+  REQUIRE(ref.models.find("\"swapped\"") != std::string::npos);
+  REQUIRE(ref.alerts.find("\"instability\"") != std::string::npos);
+  // Drive changes the published variances (the tracked parameters are in use).
+  const auto off = Replay(plain, whole_csv, dir + "/off", "1", {});
+  REQUIRE(off.exit_code == 0);
+  CHECK(Read(dir + "/off").updates != ref.updates);
+  for (size_t split : {size_t{1797}, size_t{3600 + 7}}) {
+    INFO("split after line " << split);
+    const std::string p1 = absl::StrCat(dir, "/p1_", split);
+    const std::string p2 = absl::StrCat(dir, "/p2_", split);
+    const std::string cp = absl::StrCat(dir, "/state_", split, ".ckpt");
+    WriteFile(p1 + ".csv", Csv(lines, 0, split));
+    WriteFile(p2 + ".csv", Csv(lines, split, lines.size()));
+    const auto r1 = Replay(cfg, p1 + ".csv", p1, "1", {"--checkpoint", cp});
+    INFO(r1.err);
+    REQUIRE(r1.exit_code == 0);
+    const auto r2 = Replay(cfg, p2 + ".csv", p2, "1", {"--resume", cp});
+    INFO(r2.err);
+    REQUIRE(r2.exit_code == 0);
+    const Outputs a = Read(p1), b = Read(p2);
+    CHECK(a.updates + b.updates == ref.updates);
+    CHECK(a.models + b.models == ref.models);
+    CHECK(a.alerts + b.alerts == ref.alerts);
+    // The tracking settings are part of the checkpoint's configuration check.
+    const auto foreign = Replay(plain, p2 + ".csv", p2 + "x", "1", {"--resume", cp});
+    CHECK(foreign.exit_code == 2);
+  }
+}
+
 TEST_CASE("replay --resume refuses a corrupt, truncated or foreign checkpoint (exit 2)",
           "[app][replay][checkpoint]") {
   const std::string dir = testing::ScratchDir("replay_checkpoint_bad");

@@ -482,7 +482,7 @@ TEST_CASE("every [alerts] key: parsed, in default.toml, in the README, formatted
   for (int k = 0; k < kNumAlertKinds; ++k) {
     other.insert(std::string(AlertKindName(static_cast<AlertKind>(k))));
   }
-  for (int r = 0; r <= static_cast<int>(AlertRule::kRejectBurst); ++r) {
+  for (int r = 0; r <= static_cast<int>(AlertRule::kInstability); ++r) {
     other.insert(std::string(AlertRuleName(static_cast<AlertRule>(r))));
   }
   for (int v = 0; v < kNumSeverities; ++v) {
@@ -697,6 +697,73 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
   CHECK(ErrorOf("[nats]\nupdates_subject = \"u.>\"\n").find("[nats] updates_subject") !=
         std::string::npos);
   CHECK(ErrorOf("[nats]\nupdates_subject = \"md.updates\"\n") == "ok");
+}
+
+}  // namespace
+}  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+TEST_CASE("every [tracking] key: parsed, in default.toml, in the README, formatted",
+          "[config][tracking]") {
+  std::vector<std::string> parser = ParserKeys("[tracking]");
+  parser.erase(std::remove(parser.begin(), parser.end(), "groups"), parser.end());
+  CHECK(parser.size() == 10);
+  const std::set<std::string> known(parser.begin(), parser.end());
+  const std::string dflt =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
+  std::set<std::string> in_default;
+  for (const auto& [key, line] : SectionLines(dflt, "tracking")) {
+    INFO(line);
+    in_default.insert(key);
+    CHECK(ErrorOf("[tracking]\n" + line + "\n") == "ok");
+  }
+  CHECK(in_default == known);
+  std::set<std::string> formatted;
+  for (const auto& kv : SectionLines(FormatEngineConfig(EngineConfig()), "tracking")) {
+    formatted.insert(kv.first);
+  }
+  CHECK(formatted == known);
+  // Every key is named in the README's chapter on tracking.
+  const std::string readme =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/README.md");
+  const size_t begin = readme.find("\n## Parameter tracking between refits\n");
+  REQUIRE(begin != std::string::npos);
+  const size_t end = readme.find("\n## ", begin + 1);
+  const std::set<std::string> named = BacktickedNames(readme.substr(begin, end - begin));
+  for (const std::string& k : known) {
+    INFO(k);
+    CHECK(named.count(k) == 1);
+  }
+}
+
+TEST_CASE("[tracking]: modes, groups, ranges; formatted back", "[config][tracking]") {
+  auto c = ParseEngineConfig(
+      "[tracking]\nmode = \"track\"\nforgetting = 0.995\nalert_threshold = 0\n"
+      "[tracking.groups.fast]\nsymbols = [\"PINE*\", \"FIR.A\"]\nmode = \"drive\"\n",
+      "config.toml");
+  REQUIRE(c.ok());
+  CHECK(c->tracking.mode == TrackingMode::kTrack);
+  CHECK(c->tracking.tracker.forgetting == 0.995);
+  CHECK(c->tracking.alert_threshold == 0);
+  REQUIRE(c->tracking.groups.size() == 1);
+  CHECK(c->tracking.ModeFor("PINE.B") == TrackingMode::kDrive);
+  CHECK(c->tracking.ModeFor("FIR.A") == TrackingMode::kDrive);
+  CHECK(c->tracking.ModeFor("FIR.B") == TrackingMode::kTrack);
+  CHECK(c->tracking.AnyOn());
+  CHECK_FALSE(EngineConfig().tracking.AnyOn());
+  auto again = ParseEngineConfig(FormatEngineConfig(*c), "again");
+  REQUIRE(again.ok());
+  CHECK(FormatEngineConfig(*again) == FormatEngineConfig(*c));
+  CHECK(ErrorOf("[tracking]\nmode = \"fast\"\n").find("[tracking] mode") != std::string::npos);
+  CHECK(ErrorOf("[tracking]\nforgetting = 1\n").find("[tracking] forgetting") !=
+        std::string::npos);
+  CHECK(ErrorOf("[tracking]\nmax_level_ratio = 1\n").find("max_level_ratio") !=
+        std::string::npos);
+  CHECK(ErrorOf("[tracking.groups.g]\nmode = \"drive\"\n").find("symbols") != std::string::npos);
+  CHECK(ErrorOf("[tracking.groups.g]\nsymbols = [\"A\"]\nforgetting = 0.9\n")
+            .find("unknown key 'forgetting'") != std::string::npos);
 }
 
 }  // namespace

@@ -8,6 +8,7 @@
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <map>
+#include <nlohmann/json.hpp>
 #include <random>
 #include <string>
 #include <vector>
@@ -374,6 +375,48 @@ TEST_CASE("without the learned rate the random-gap name would be a stale storm",
     CHECK(into_session >= 60 * kSec);  // the floor, counted from the open
     CHECK(a.value < 600);              // measured from the last tick, never across a night
   }
+}
+
+TEST_CASE("track mode publishes tracking records on m.<symbol>", "[services][tracking]") {
+  Run run(std::string(testing::kFixedModelToml) +
+          "[tracking]\nmode = \"track\"\nburn_in_bars = 20\nreport_every_bars = 50\n");
+  std::vector<Tick> ticks;
+  std::mt19937_64 rng(7);
+  std::normal_distribution<double> norm(0.0, 0.01);
+  for (int i = 0; i < 200; ++i) {  // the last record is at the last bar
+    Tick t;
+    t.symbol.assign("ASPEN.T");
+    t.t_ns = int64_t{1772443800000000000} + i * kSec;
+    t.kind = Tick::kReturn;
+    t.value = norm(rng);
+    ticks.push_back(t);
+  }
+  run.Feed(ticks);
+  std::vector<nlohmann::json> records;
+  for (const auto& m : run.sink.messages) {
+    if (m.topic != "m.ASPEN.T") continue;
+    records.push_back(nlohmann::json::parse(m.body));
+  }
+  // Bars 50, 100, 150 and 200 after the anchor (the first bar).
+  REQUIRE(records.size() == 4);
+  const nlohmann::json& j = records.back();
+  CHECK(j["outcome"] == "tracking");
+  CHECK(j["mode"] == "track");
+  CHECK(j["version"] == 1);
+  CHECK(j["bars_since_refit"] == 200);
+  CHECK(j["stepping"] == true);
+  REQUIRE(j["params"].size() == 3);
+  const char* names[] = {"omega", "alpha_1", "beta_1"};
+  const RecursiveTracker& t = run.core->tracker(0);
+  for (int i = 0; i < 3; ++i) {
+    const nlohmann::json& p = j["params"][i];
+    CHECK(p["name"] == names[i]);
+    CHECK(p["value"].get<double>() == t.coefficient(i));
+    CHECK(p["refit"].get<double>() == Approx(run.config.model.params.values[i + 1]).epsilon(1e-12));
+    CHECK(p["drift"].get<double>() == t.coefficient(i) - t.anchor_coefficient(i));
+  }
+  CHECK(j["resets"] == 0);
+  CHECK(j["level_ratio"].get<double>() == t.level_ratio());
 }
 
 }  // namespace

@@ -478,5 +478,153 @@ TEST_CASE("steady-state hot path allocates nothing (10,000 ticks)", "[core][allo
   }
 }
 
+// ---- Recursive tracking ([tracking], recursive_tracker.h) ----
+
+// Offline reference of the core's tracking: the tracker anchored on the model
+// in force at its unconditional variance, stepped on each return; in drive mode
+// the filter steps with the model retuned to the tracked coefficients.
+struct TrackingReference {
+  std::vector<BarUpdate> updates;
+  RecursiveTracker tracker;
+};
+
+TrackingReference RunTrackingReference(const EngineConfig& config, const std::vector<double>& r,
+                                       bool drive) {
+  auto model = FilterModel::Create(config.model.params, testing::OutputsOf(config), 1);
+  REQUIRE(model.ok());
+  TrackingReference ref;
+  FilterState st;
+  InitFilterState(*model, 0.0, &st);
+  FilterModel driven = *model;
+  ref.tracker.Anchor(model->params(), st.var.next_variance, config.tracking.tracker);
+  REQUIRE(ref.tracker.active());
+  for (double x : r) {
+    ref.tracker.Step(x, config.tracking.tracker);
+    BarUpdate u;
+    if (drive) {
+      const RecursiveTracker& t = ref.tracker;
+      driven.RetuneVariance(t.omega(), t.alpha(), t.gamma(), t.beta());
+      FilterStep(driven, &st, x, &u);
+      ref.tracker.SetNextVariance(st.var.next_variance);
+    } else {
+      FilterStep(*model, &st, x, &u);
+    }
+    ref.updates.push_back(u);
+  }
+  return ref;
+}
+
+TEST_CASE("tracking: track keeps the filter's outputs, drive filters with tracked parameters",
+          "[core][tracking]") {
+  const auto r = testing::TestReturns(1500, 21);
+  for (const char* mode : {"track", "drive"}) {
+    INFO(mode);
+    const bool drive = std::string(mode) == "drive";
+    Fixture f(std::string(testing::kFixedModelToml) + "[tracking]\nmode = \"" + mode +
+              "\"\nburn_in_bars = 50\n");
+    for (size_t i = 0; i < r.size(); ++i) {
+      SendJson(f.core.get(), ReturnTick("LARCH.T", kT0 + static_cast<int64_t>(i) * kSec, r[i]));
+    }
+    const TrackingReference ref = RunTrackingReference(f.config, r, drive);
+    const auto got = Decoded(f.sink, "u.LARCH.T");
+    REQUIRE(got.size() == ref.updates.size());
+    const auto off = FilterSeries(
+        *FilterModel::Create(f.config.model.params, testing::OutputsOf(f.config), 1), 0.0, r);
+    double max_rel_vs_off = 0;
+    for (size_t i = 0; i < got.size(); ++i) {
+      // Equal to the reference (up to the JSON wire's rounding).
+      CHECK(RelDiff(got[i].var_next, ref.updates[i].var_next) < 1e-12);
+      CHECK(RelDiff(got[i].var_h[2], ref.updates[i].var_h[2]) < 1e-12);
+      CHECK(got[i].ver == 1);
+      max_rel_vs_off = std::max(max_rel_vs_off, RelDiff(got[i].var_next, off[i].var_next));
+    }
+    const int index = f.core->FindSymbol("LARCH.T");
+    const RecursiveTracker& t = f.core->tracker(index);
+    REQUIRE(t.active());
+    CHECK(t.stepping());
+    StateWriter wa, wb;
+    t.Save(&wa);
+    ref.tracker.Save(&wb);
+    CHECK(wa.data() == wb.data());
+    if (drive) {
+      CHECK(max_rel_vs_off > 1e-3);  // the tracked parameters moved the variance
+      CHECK(f.core->model(index).params().values == f.config.model.params.values);
+    } else {
+      CHECK(max_rel_vs_off == 0);
+    }
+  }
+}
+
+TEST_CASE("tracking: a swap re-anchors the tracker on the new model", "[core][tracking]") {
+  Fixture f(std::string(testing::kFixedModelToml) + "[tracking]\nmode = \"drive\"\n");
+  const auto r = testing::TestReturns(400, 23);
+  for (int i = 0; i < 300; ++i) SendJson(f.core.get(), ReturnTick("ROWAN.S", kT0 + i * kSec, r[i]));
+  CHECK(f.core->tracker(0).bars_since_anchor() == 300);
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  REQUIRE(spec.ok());
+  const ModelParams p2{*spec, {0.0001, 4e-6, 0.1, 0.85}};  // mu, omega, alpha_1, beta_1
+  auto m2 = FilterModel::Create(p2, testing::OutputsOf(f.config), 2);
+  REQUIRE(m2.ok());
+  ModelSwap swap;
+  swap.model = std::make_shared<const FilterModel>(*m2);
+  swap.start = ModelSwap::Start::kRestart;
+  REQUIRE(f.core->SwapModel(0, swap).ok());
+  SendJson(f.core.get(), ReturnTick("ROWAN.S", kT0 + 300 * kSec, r[300]));
+  const RecursiveTracker& t = f.core->tracker(0);
+  CHECK(t.bars_since_anchor() == 1);
+  REQUIRE(t.num_params() == 3);
+  for (int i = 0; i < 3; ++i) {
+    CHECK(t.anchor_coefficient(i) == Approx(p2.values[i + 1]).epsilon(1e-12));
+  }
+  // An EWMA model (the fallback) is not tracked: the filter runs it as is.
+  auto ewma = FilterModel::Ewma(0.94, testing::OutputsOf(f.config), 0);
+  REQUIRE(ewma.ok());
+  swap.model = std::make_shared<const FilterModel>(*ewma);
+  swap.initial_variance = 1e-4;
+  REQUIRE(f.core->SwapModel(0, swap).ok());
+  SendJson(f.core.get(), ReturnTick("ROWAN.S", kT0 + 301 * kSec, r[301]));
+  CHECK_FALSE(f.core->tracker(0).active());
+  const auto got = Decoded(f.sink, "u.ROWAN.S");
+  REQUIRE(got.size() == 302);
+  CHECK(got.back().ver == 0);
+  CHECK(got.back().var_next == Approx(0.94 * 1e-4 + 0.06 * (r[301] - 0) * (r[301] - 0)));
+}
+
+TEST_CASE("tracking groups choose the mode per symbol", "[core][tracking]") {
+  Fixture f(std::string(testing::kFixedModelToml) +
+            "[tracking]\nmode = \"track\"\n[tracking.groups.fast]\nsymbols = [\"SPRUCE*\"]\n"
+            "mode = \"drive\"\n[tracking.groups.none]\nsymbols = [\"YEW.Q\"]\nmode = \"off\"\n");
+  for (const char* s : {"SPRUCE.A", "YEW.Q", "OAK.B"}) {
+    SendJson(f.core.get(), ReturnTick(s, kT0, 0.001));
+  }
+  CHECK(f.core->tracking_mode(f.core->FindSymbol("SPRUCE.A")) == TrackingMode::kDrive);
+  CHECK(f.core->tracking_mode(f.core->FindSymbol("YEW.Q")) == TrackingMode::kOff);
+  CHECK(f.core->tracking_mode(f.core->FindSymbol("OAK.B")) == TrackingMode::kTrack);
+  CHECK_FALSE(f.core->tracker(f.core->FindSymbol("YEW.Q")).active());
+  CHECK(f.core->tracker(f.core->FindSymbol("OAK.B")).active());
+}
+
+TEST_CASE("tracking: the drive hot path allocates nothing", "[core][alloc][tracking]") {
+  EngineConfig config =
+      ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                       "[bars]\ninterval = \"1s\"\n[tracking]\nmode = \"drive\"\n");
+  NullSink sink;
+  ManualClock clock(kT0);
+  auto core = IngestCore::Create(config, &sink, &clock);
+  REQUIRE(core.ok());
+  const std::vector<std::string> syms = {"THUJA.A", "THUJA.B"};
+  const auto r = testing::TestReturns(8000, 5);
+  std::vector<std::string> bodies(r.size());
+  for (size_t i = 0; i < r.size(); ++i) {
+    EncodeTickJson(ReturnTick(syms[i % 2], kT0 + static_cast<int64_t>(i) * 300000000, r[i]),
+                   &bodies[i]);
+  }
+  for (size_t i = 0; i < 1000; ++i) (*core)->OnMessage(syms[i % 2], bodies[i]);
+  const uint64_t a0 = testing::AllocationCount();
+  for (size_t i = 1000; i < r.size(); ++i) (*core)->OnMessage(syms[i % 2], bodies[i]);
+  CHECK(testing::AllocationCount() - a0 == 0);
+  CHECK((*core)->tracker(0).stepping());
+}
+
 }  // namespace
 }  // namespace aftershock
