@@ -67,9 +67,9 @@ EngineConfig BenchConfig(WireEncoding enc) {
   c.publish.encoding = enc;
   c.publish.high_water_mark = 1 << 30;  // no drops: throughput, not shedding, is measured
   c.publish.endpoint = "tcp://127.0.0.1:*";
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
   auto p = ModelParams::FromNamed(
-      *spec, {{"mu", 0.0002}, {"omega", 2e-6}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", 7}});
+      *spec, {{"mu", 0.0002}, {"omega", 2e-6}, {"alpha_1", 0.08}, {"beta_1", 0.9}, {"nu", 7}});
   c.model.spec = *spec;
   c.model.has_params = true;
   c.model.params = *p;

@@ -20,13 +20,13 @@ constexpr int kSymbols = 10000;
 constexpr int kBarsPerSymbol = 64;
 
 ModelParams BenchParams(double jitter) {
-  auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "student");
   auto p = ModelParams::FromNamed(*spec, {{"mu", 0.0002},
-                                          {"ar1", 0.05 + jitter},
-                                          {"ma1", -0.02},
+                                          {"ar_1", 0.05 + jitter},
+                                          {"ma_1", -0.02},
                                           {"omega", 2e-6},
-                                          {"alpha1", 0.08},
-                                          {"beta1", 0.9 - jitter},
+                                          {"alpha_1", 0.08},
+                                          {"beta_1", 0.9 - jitter},
                                           {"nu", 6.0}});
   return *p;
 }

@@ -35,7 +35,10 @@
 
 namespace aftershock {
 
-inline constexpr uint32_t kCheckpointFormatVersion = 1;
+// Version 2: the configuration section names models, parameters and the
+// presample rule in the renamed vocabulary (CHANGELOG.md); version 1 files are
+// refused as another format rather than as a configuration change.
+inline constexpr uint32_t kCheckpointFormatVersion = 2;
 inline constexpr size_t kCheckpointHeaderBytes = 64;
 inline constexpr size_t kCheckpointTrailerBytes = 16;
 inline constexpr size_t kCheckpointSectionHeaderBytes = 16;

@@ -14,9 +14,9 @@ namespace aftershock {
 namespace {
 
 ModelParams Garch(double omega, double alpha, double beta) {
-  auto spec = MakeModelSpec("zero", {}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("zero", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(spec.ok());
-  auto p = ModelParams::FromNamed(*spec, {{"omega", omega}, {"alpha1", alpha}, {"beta1", beta}});
+  auto p = ModelParams::FromNamed(*spec, {{"omega", omega}, {"alpha_1", alpha}, {"beta_1", beta}});
   REQUIRE(p.ok());
   return *p;
 }
@@ -293,7 +293,7 @@ TEST_CASE("detection delay and false alarms on simulated GARCH data", "[regime][
   MeasureFalseAlarms(Garch(0.02, 0.08, 0.90), 1000000, 78, quiet98);
 
   // Quiet series without clustering: iid normal returns (constant variance 1).
-  auto spec = MakeModelSpec("zero", {}, "constant", {}, "normal");
+  auto spec = MakeModelSpec("zero", {}, "flat", {}, "gaussian");
   REQUIRE(spec.ok());
   auto iid = ModelParams::FromNamed(*spec, {{"omega", 1.0}});
   REQUIRE(iid.ok());
