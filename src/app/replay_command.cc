@@ -66,16 +66,22 @@ int ReplayCommand(int argc, char** argv) {
       "usual ([model.params] or the warm-up). With --resume the checkpoint wins and the file\n"
       "is not read.\n\n"
       "--report writes a self-contained HTML evaluation (forecast losses, VaR backtests,\n"
-      "alerts, parameter history, charts); --summary-json the same statistics as JSON.\n\n"
+      "alerts, parameter history, charts); --summary-json the same statistics as JSON;\n"
+      "--exceptions every VaR exception as CSV. Without --output the updates are not written.\n\n"
       "Example:\n  aftershock replay --config config/default.toml --input ticks.csv "
       "--output updates.jsonl --report report.html");
   args.AddOption("config", "FILE", "engine configuration (TOML)", "", true);
   args.AddOption("input", "FILE", "tick CSV to replay", "", true);
-  args.AddOption("output", "FILE", "JSON Lines output ('-' = standard output)", "", true);
+  args.AddOption("output", "FILE",
+                 "JSON Lines output of the updates ('-' = standard output); may be left out "
+                 "when another output (--report, --summary-json, --exceptions, --models, "
+                 "--alerts, --checkpoint) is asked for");
   args.AddOption("alerts", "FILE", "write alerts as JSON Lines");
   args.AddOption("models", "FILE", "write model records (refit outcomes, swaps) as JSON Lines");
   args.AddOption("report", "FILE", "write the HTML evaluation report");
   args.AddOption("summary-json", "FILE", "write the evaluation statistics as JSON");
+  args.AddOption("exceptions", "FILE",
+                 "write every VaR exception (symbol, time, bar, return, limit, level) as CSV");
   args.AddOption("title", "TEXT", "report title", "Replay evaluation");
   args.AddOption("workers", "N", "refit worker threads (overrides [refit] workers)");
   args.AddOption("time-unit", "UNIT",
@@ -116,12 +122,26 @@ int ReplayCommand(int argc, char** argv) {
                  absl::StrJoin((*reader)->ignored_columns(), ", ").c_str(),
                  args.Get("input").c_str());
   }
-  auto sink = JsonLinesSink::Open(args.Get("output"));
+  if (!args.Has("output")) {
+    bool other = false;
+    for (const char* o :
+         {"report", "summary-json", "exceptions", "models", "alerts", "checkpoint"}) {
+      other = other || args.Has(o);
+    }
+    if (!other) {
+      return Fail(absl::InvalidArgumentError(
+                      "give --output for the updates, or at least one of --report, "
+                      "--summary-json, --exceptions, --models, --alerts, --checkpoint"),
+                  2);
+    }
+  }
+  // Without --output the updates are computed and dropped.
+  auto sink = JsonLinesSink::Open(args.Has("output") ? args.Get("output") : "/dev/null");
   if (!sink.ok()) return Fail(sink.status(), 2);
   ManualClock clock;
   auto core = IngestCore::Create(*config, sink->get(), &clock);
   if (!core.ok()) return Fail(core.status(), 2);
-  const bool evaluate = args.Has("report") || args.Has("summary-json");
+  const bool evaluate = args.Has("report") || args.Has("summary-json") || args.Has("exceptions");
   ReplayRecorder recorder(*config, evaluate);
   if (evaluate) (*core)->AddObserver(&recorder);
   if (args.Has("models")) {
@@ -253,10 +273,18 @@ int ReplayCommand(int argc, char** argv) {
         return Fail(absl::InternalError("cannot write '" + args.Get("summary-json") + "'"), 1);
       }
     }
+    if (args.Has("exceptions")) {
+      if (absl::Status s = recorder.WriteExceptionsCsv(args.Get("exceptions"), EvaluationOptions{});
+          !s.ok()) {
+        return Fail(s, 1);
+      }
+    }
     if (args.Has("report")) {
       ReportRunInfo run;
       run.title = args.Get("title");
       run.input_file = args.Get("input");
+      run.bar_interval = config->bars.interval_ns == 0 ? std::string("0s (one bar per tick)")
+                                                       : FormatDuration(config->bars.interval_ns);
       run.config_summary = FormatEngineConfig(*config);
       run.generated_at = absl::FormatTime("%Y-%m-%d %H:%M UTC", absl::Now(), absl::UTCTimeZone());
       run.engine_version = "aftershock 0.1.0";

@@ -1,8 +1,12 @@
 #include "app/replay_recorder.h"
 
+#include <cerrno>
 #include <cmath>
+#include <cstdio>
+#include <cstring>
 #include <limits>
 
+#include "absl/strings/str_cat.h"
 #include "app/fit_report.h"
 
 namespace aftershock::app {
@@ -119,6 +123,25 @@ nlohmann::json LossJson(const ForecastLoss& l) {
 }
 
 }  // namespace
+
+absl::Status ReplayRecorder::WriteExceptionsCsv(const std::string& path,
+                                                const EvaluationOptions& options) const {
+  std::string text = "symbol,time,bar,return,limit,level\n";
+  for (const SymbolHistory& h : histories_) {
+    auto ev = EvaluateSymbol(h, options);
+    if (!ev.ok()) continue;  // the summary and the report name the failure
+    absl::StrAppend(&text, VarExceptionsCsv(h, *ev, /*header=*/false));
+  }
+  std::FILE* f = std::fopen(path.c_str(), "w");
+  if (f == nullptr) {
+    return absl::NotFoundError(absl::StrCat("cannot create '", path, "': ", std::strerror(errno)));
+  }
+  const bool ok = std::fwrite(text.data(), 1, text.size(), f) == text.size();
+  if (std::fclose(f) != 0 || !ok) {
+    return absl::InternalError(absl::StrCat("cannot write '", path, "'"));
+  }
+  return absl::OkStatus();
+}
 
 nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) const {
   nlohmann::json out;
