@@ -5,6 +5,7 @@
 #include <algorithm>
 #include <chrono>
 #include <cstdio>
+#include <filesystem>
 #include <string>
 
 #include "absl/strings/str_cat.h"
@@ -199,9 +200,21 @@ int ReplayCommand(int argc, char** argv) {
   }
 
   const bool quiet = args.Flag("quiet");
-  const bool progress = !quiet && isatty(STDERR_FILENO);
+  // Progress: redrawn in place on a terminal (every 0.2 s), a line every 5 s
+  // when standard error is a pipe or a file, with the share of the input read
+  // and the time left at the rate so far when the input's size is known.
+  const bool tty = isatty(STDERR_FILENO);
+  const bool progress = !quiet;
+  const auto progress_every = std::chrono::milliseconds(tty ? 200 : 5000);
+  int64_t input_bytes = 0;
+  {
+    std::error_code ec;
+    const auto size = std::filesystem::file_size(args.Get("input"), ec);
+    if (!ec && size > 0) input_bytes = static_cast<int64_t>(size);
+  }
   const auto start = std::chrono::steady_clock::now();
   auto last_progress = start;
+  bool progress_shown = false;
   const int64_t interval = config->bars.interval_ns;
   const int64_t sweep = std::clamp<int64_t>(config->bars.grace_ns / 2, 1000000, 100000000);
   Tick tick;
@@ -220,19 +233,31 @@ int ReplayCommand(int argc, char** argv) {
       }
     }
     (*core)->OnTick(tick);
-    if (progress && (++n & 0xFFFF) == 0) {
+    if (progress && (++n & 0x3FFF) == 0) {
       const auto now = std::chrono::steady_clock::now();
-      if (now - last_progress > std::chrono::milliseconds(200)) {
+      if (now - last_progress > progress_every) {
         last_progress = now;
         const double s = std::chrono::duration<double>(now - start).count();
         const auto& c = (*core)->counters();
-        std::fprintf(stderr, "\rreplay: line %lld, %llu bars, %.1f s, %.0f bars/s   ",
+        std::string share;
+        if (input_bytes > 0) {
+          const double f =
+              std::min(1.0, static_cast<double>((*reader)->bytes_read()) / input_bytes);
+          share = absl::StrFormat("%.0f %% of the input, ", 100 * f);
+          if (f > 0) {
+            absl::StrAppend(&share, absl::StrFormat("about %.0f s left, ", s * (1 - f) / f));
+          }
+        }
+        std::fprintf(stderr, "%sreplay: %sline %lld, %llu bars, %.1f s, %.0f bars/s%s",
+                     tty ? "\r" : "", share.c_str(),
                      static_cast<long long>((*reader)->line_number()),
-                     static_cast<unsigned long long>(c.bars), s, c.bars / std::max(s, 1e-9));
+                     static_cast<unsigned long long>(c.bars), s, c.bars / std::max(s, 1e-9),
+                     tty ? "   " : "\n");
+        progress_shown = true;
       }
     }
   }
-  if (progress) std::fputs("\r\033[K", stderr);
+  if (progress_shown && tty) std::fputs("\r\033[K", stderr);
   const absl::Status read_status = (*reader)->status();
   if (!read_status.ok()) return Fail(read_status, 2);
   if (args.Has("checkpoint")) {
@@ -263,6 +288,8 @@ int ReplayCommand(int argc, char** argv) {
       j["input"] = args.Get("input");
       j["bars"] = (*core)->counters().bars;
       j["seconds"] = seconds;
+      j["bar_interval"] = config->bars.interval_ns == 0 ? std::string("0s (one bar per tick)")
+                                                        : FormatDuration(config->bars.interval_ns);
       FILE* f = std::fopen(args.Get("summary-json").c_str(), "w");
       if (f == nullptr) {
         return Fail(absl::NotFoundError("cannot create '" + args.Get("summary-json") + "'"), 1);

@@ -207,10 +207,20 @@ TEST_CASE("replay --exceptions lists every VaR exception the backtest counts; --
     CHECK(f[1].back() == 'Z');
     ++counted[{f[0], f[5]}];
   }
+  CHECK(summary.at("bar_interval") == "0s (one bar per tick)");
   int symbols = 0;
   for (const auto& s : summary.at("symbols")) {
     if (!s.contains("var_backtests")) continue;
     ++symbols;
+    // The figures of the report's overview are in the summary too.
+    CHECK(s.at("next_bar").at("0.99").at("value_at_risk").get<double>() > 0);
+    CHECK(s.at("next_bar").at("0.99").at("es").get<double>() >
+          s.at("next_bar").at("0.99").at("value_at_risk").get<double>());
+    CHECK(s.at("var_next").get<double>() > 0);
+    const std::string regime = s.at("regime_at_end").get<std::string>();
+    CHECK((regime == "none" || regime == "high" || regime == "low"));
+    CHECK(s.at("model_at_end").get<std::string>().find('/') != std::string::npos);
+    CHECK(s.at("last_bar_ns").get<int64_t>() > s.at("first_bar_ns").get<int64_t>());
     for (const auto& l : s.at("var_backtests")) {
       const std::string level = absl::StrFormat("%g", l.at("level").get<double>());
       INFO(s.at("symbol").get<std::string>() << " " << level);
