@@ -605,8 +605,10 @@ int main(int argc, char** argv) {
   const int batch = 256;
   const double lat_seconds = quick ? 1.0 : 3.0;
   const double rate = 100000;
-  std::printf("aftershock engine benchmark (%s); %d symbols, GARCH(1,1)-t with all outputs\n",
-              quick ? "quick" : "full", kSymbols);
+  std::printf(
+      "aftershock engine benchmark (%s); %d symbols, const/GARCH(1,1)/student with all "
+      "outputs\n",
+      quick ? "quick" : "full", kSymbols);
   std::printf("machine: %u hardware threads (shared with other work; numbers are noisy)\n\n",
               std::thread::hardware_concurrency());
   std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us", "p99.9 us");

@@ -1,4 +1,4 @@
-// P1: one filter step (ARMA(1,1) + GARCH(1,1)-t, all outputs: z, next-bar
+// P1: one filter step (ARMA(1,1)/GARCH(1,1)/student, all outputs: z, next-bar
 // variance, 3 horizon variances, VaR and ES at 2 levels, annualized vol, scale)
 // per bar per symbol, over 10,000 symbols visited round-robin.
 //
