@@ -72,9 +72,9 @@ EngineConfig BenchConfig(WireEncoding enc) {
   c.publish.encoding = enc;
   c.publish.high_water_mark = 1 << 30;  // no drops: throughput, not shedding, is measured
   c.publish.endpoint = "tcp://127.0.0.1:*";
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
   auto p = ModelParams::FromNamed(
-      *spec, {{"mu", 0.0002}, {"omega", 2e-6}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", 7}});
+      *spec, {{"mu", 0.0002}, {"omega", 2e-6}, {"alpha_1", 0.08}, {"beta_1", 0.9}, {"nu", 7}});
   c.model.spec = *spec;
   c.model.has_params = true;
   c.model.params = *p;
@@ -678,8 +678,10 @@ int main(int argc, char** argv) {
   const int batch = 256;
   const double lat_seconds = quick ? 1.0 : 3.0;
   const double rate = 100000;
-  std::printf("aftershock engine benchmark (%s); %d symbols, GARCH(1,1)-t with all outputs\n",
-              quick ? "quick" : "full", kSymbols);
+  std::printf(
+      "aftershock engine benchmark (%s); %d symbols, const/GARCH(1,1)/student with all "
+      "outputs\n",
+      quick ? "quick" : "full", kSymbols);
   std::printf("machine: %u hardware threads (shared with other work; numbers are noisy)\n\n",
               std::thread::hardware_concurrency());
   std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us", "p99.9 us");

@@ -1,4 +1,4 @@
-// P1: one filter step (ARMA(1,1) + GARCH(1,1)-t, all outputs: z, next-bar
+// P1: one filter step (ARMA(1,1)/GARCH(1,1)/student, all outputs: z, next-bar
 // variance, 3 horizon variances, VaR and ES at 2 levels, annualized vol, scale)
 // per bar per symbol, over 10,000 symbols visited round-robin.
 //
@@ -21,13 +21,13 @@ constexpr int kSymbols = 10000;
 constexpr int kBarsPerSymbol = 64;
 
 ModelParams BenchParams(double jitter) {
-  auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "student");
   auto p = ModelParams::FromNamed(*spec, {{"mu", 0.0002},
-                                          {"ar1", 0.05 + jitter},
-                                          {"ma1", -0.02},
+                                          {"ar_1", 0.05 + jitter},
+                                          {"ma_1", -0.02},
                                           {"omega", 2e-6},
-                                          {"alpha1", 0.08},
-                                          {"beta1", 0.9 - jitter},
+                                          {"alpha_1", 0.08},
+                                          {"beta_1", 0.9 - jitter},
                                           {"nu", 6.0}});
   return *p;
 }
@@ -94,10 +94,10 @@ BENCHMARK_CAPTURE(BM_FilterStep, shared_model_10k, false);
 ModelParams TrackedParams(bool gjr, double jitter) {
   // Values in the layout of model_spec.h: mu, omega, alpha_1, [gamma_1,] beta_1, nu.
   if (gjr) {
-    return ModelParams{*MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "t"),
+    return ModelParams{*MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "student"),
                        {0.0002, 2e-6, 0.03, 0.08, 0.9 - jitter, 6.0}};
   }
-  return ModelParams{*MakeModelSpec("constant", {}, "garch", {1, 1}, "t"),
+  return ModelParams{*MakeModelSpec("constant", {}, "garch", {1, 1}, "student"),
                      {0.0002, 2e-6, 0.08, 0.9 - jitter, 6.0}};
 }
 

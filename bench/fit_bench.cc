@@ -25,14 +25,14 @@ namespace {
 constexpr int kBars = 2000;
 
 const ModelSpec& Spec() {
-  static const ModelSpec spec = *MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  static const ModelSpec spec = *MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   return spec;
 }
 
 const std::vector<double>& Data() {
   static const std::vector<double> data = [] {
     auto p = ModelParams::FromNamed(
-        Spec(), {{"mu", 0.02}, {"omega", 0.03}, {"alpha1", 0.08}, {"beta1", 0.9}});
+        Spec(), {{"mu", 0.02}, {"omega", 0.03}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
     SimulationOptions so;
     so.n = kBars + 20;
     so.seed = 2026;

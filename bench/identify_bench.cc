@@ -10,13 +10,13 @@ namespace aftershock {
 namespace {
 
 std::vector<double> Data() {
-  auto spec = MakeModelSpec("arma", {1, 0}, "gjr", {1, 1, 1}, "t");
+  auto spec = MakeModelSpec("arma", {1, 0}, "gjr", {1, 1, 1}, "student");
   auto p = ModelParams::FromNamed(*spec, {{"mu", 0.01},
-                                          {"ar1", 0.1},
+                                          {"ar_1", 0.1},
                                           {"omega", 0.03},
-                                          {"alpha1", 0.04},
-                                          {"gamma1", 0.08},
-                                          {"beta1", 0.88},
+                                          {"alpha_1", 0.04},
+                                          {"gamma_1", 0.08},
+                                          {"beta_1", 0.88},
                                           {"nu", 7.0}});
   SimulationOptions so;
   so.n = 2000;

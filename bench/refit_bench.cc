@@ -23,7 +23,7 @@ namespace {
 ModelParams Truth() {
   ModelSpec spec;
   auto p = ModelParams::FromNamed(
-      spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
+      spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
   return *p;
 }
 

@@ -24,13 +24,13 @@ namespace aftershock {
 namespace {
 
 ModelParams Garch(double omega, double alpha, double beta) {
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
   // Values in the layout of model_spec.h: mu, omega, alpha_1, beta_1, nu.
   return ModelParams{*spec, {0.0, omega, alpha, beta, 6.0}};
 }
 
 ModelParams Gjr(double omega, double alpha, double gamma, double beta) {
-  auto spec = MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "student");
   // mu, omega, alpha_1, gamma_1, beta_1, nu.
   return ModelParams{*spec, {0.0, omega, alpha, gamma, beta, 6.0}};
 }

@@ -37,7 +37,9 @@ namespace aftershock {
 
 // The version also covers the layout of the engine's sections, so a checkpoint
 // of another layout is refused rather than misread. 2: the regime detector's
-// state became CUSUM statistics (regime_detector.h).
+// state became CUSUM statistics (regime_detector.h), the configuration section
+// names models, parameters and the presample rule in the renamed vocabulary
+// (CHANGELOG.md) and the core holds the recursive tracker's state.
 inline constexpr uint32_t kCheckpointFormatVersion = 2;
 inline constexpr size_t kCheckpointHeaderBytes = 64;
 inline constexpr size_t kCheckpointTrailerBytes = 16;

@@ -40,7 +40,7 @@ namespace aftershock {
 struct ModelSwapRecord {
   int64_t t_ns = 0;                      // bar end at which the swap (or rejection) happened
   uint32_t version = 0;                  // version number given to the parameters (if accepted)
-  std::string model;                     // ModelSpec::Label(), e.g. "constant-mean-GARCH(1,1)-t"
+  std::string model;                     // ModelSpec::Label(), e.g. "const/GARCH(1,1)/student"
   std::vector<std::string> param_names;  // in ModelSpec::ParamNames() order
   std::vector<double> values;            // same length as param_names
   std::vector<double> std_errors;        // same length, or empty; NaN where unknown
@@ -200,6 +200,9 @@ struct LevelBacktest {
   // the ES forecasts are right. NaN when there is no exception with ES > 0.
   double es_ratio = 0;
   int64_t es_n = 0;  // exception bars used in es_ratio
+  // Every exception counted in `tests`, in bar order: the history index of
+  // the bar whose loss -r exceeded the VaR limit forecast at the bar before.
+  std::vector<int64_t> exception_bars;
 };
 
 struct AlertCount {
@@ -244,6 +247,12 @@ struct SymbolEvaluation {
 };
 
 // ---- Functions ---------------------------------------------------------------
+
+// Every VaR exception of `eval` (computed from `hist`) as CSV with the header
+// "symbol,time,bar,return,limit,level": time ISO-8601 UTC, bar the index in
+// the history, limit the VaR (a positive loss) the bar was tested against.
+// With `header` false the header line is left out (to append symbols).
+std::string VarExceptionsCsv(const SymbolHistory& hist, const SymbolEvaluation& eval, bool header);
 
 // Kupiec/Christoffersen on exceptions[t] in {0, 1}. InvalidArgument when empty,
 // when an entry is not 0/1, or tail_prob is not in (0, 1).

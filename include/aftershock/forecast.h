@@ -14,7 +14,7 @@
 // E neg2_{T+k} = E sigma2_{T+k} / 2 (neg2 = 1{eps<0} eps^2; exact for any
 // innovation law symmetric about 0, i.e. both laws of innovations.h).
 //
-// "(1,1)-type" models: every lag is 1 (ARCH(1), GARCH(1,1), GARCH(1,0), GJR(1,1,1),
+// "(1,1)-type" models: every lag is 1 (ARCH(1), GARCH(1,1), GARCH(1,0), GJR-GARCH(1,1),
 // GJR(1,1,0)), plus constant variance (phi = 0) and EWMA (phi = 1). For them, with
 // phi = persistence and s2 = sigma2_{T+1}, sbar2 = omega / (1 - phi):
 //   E sigma2_{T+h}              = sbar2 + phi^(h-1) (s2 - sbar2),

@@ -37,6 +37,7 @@ struct ReportRunInfo {
                                             // so the output is reproducible
   std::string engine_version;               // e.g. "aftershock 0.1.0"
   double replay_speed = 0;                  // bars per second achieved; 0 = not shown
+  std::string bar_interval;                 // e.g. "1m" or "0s (one bar per tick)"
 };
 
 struct ReportOptions {

@@ -7,7 +7,7 @@
 //      and Ljung-Box on the squared residuals (McLeod-Li), with the PACF of the
 //      squared residuals as evidence;
 //   3. variance family and order by the criterion over ARCH(1..max_arch_order),
-//      GARCH(1,1), GARCH(1,2), GARCH(2,1), GJR(1,1,1), each with normal and t
+//      GARCH(1,1), GARCH(1,2), GARCH(2,1), GJR-GARCH(1,1), each with Gaussian and Student
 //      innovations, the mean held at the step-1 estimates (two-step MLE);
 //   4. without an ARCH effect: a constant-variance model, and the report says so;
 //      unless weak_evidence_aic: then GARCH(1,1) is fitted beside it and the

@@ -76,7 +76,7 @@ struct InstrumentProfile {
   double alpha = 0.05;         // ARCH loading (GARCH and GJR); >= 0
   double gamma = 0.0;          // asymmetry loading (GJR only); >= 0
   double nu = 6.0;             // Student-t degrees of freedom; > 2
-  VarianceKind family = VarianceKind::kGarch;  // kGarch, kGjr or kConstant
+  VarianceKind family = VarianceKind::kGarch;  // kGarch, kGjr or kConstant ("flat")
 };
 
 // The built-in universe: twelve invented instruments of the fictional
@@ -94,11 +94,11 @@ absl::StatusOr<std::vector<InstrumentProfile>> DefaultInstruments(int n);
 // Per-bar parameters of a profile for a variance family, with a constant mean
 // mu = drift_ann / periods_per_year and unconditional variance
 // vol_ann^2 / periods_per_year:
-//   garch:    GARCH(1,1)-t,   alpha1 = alpha, beta1 = persistence - alpha
-//   gjr:      GJR(1,1,1)-t,   alpha1 = alpha, gamma1 = gamma,
-//                             beta1 = persistence - alpha - gamma / 2
-//   constant: constant variance with t shocks (no clustering)
-// omega = unconditional variance * (1 - persistence) (constant: the variance).
+//   garch:    GARCH(1,1),     alpha_1 = alpha, beta_1 = persistence - alpha
+//   gjr:      GJR-GARCH(1,1), alpha_1 = alpha, gamma_1 = gamma,
+//                             beta_1 = persistence - alpha - gamma / 2
+//   flat:     constant variance with Student shocks (no clustering)
+// omega = unconditional variance * (1 - persistence) (flat: the variance).
 // InvalidArgument naming the field when the profile is inconsistent (e.g. a
 // negative beta) or the family is not one of the three.
 absl::StatusOr<ModelParams> InstrumentModel(const InstrumentProfile& profile, VarianceKind family,

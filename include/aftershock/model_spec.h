@@ -1,18 +1,20 @@
 // ModelSpec: which mean equation, variance equation and innovation law a model
 // uses, and the canonical order and names of its parameters.
 //
-// Order conventions (stated once, used everywhere):
-//   ARMA(p,q):        p autoregressive terms ar1..arp, q moving-average terms ma1..maq.
-//   ARCH(m):          m squared-residual terms alpha1..alpham.
-//   GARCH(p,q):       p ARCH terms alpha1..alphap, q lagged-variance terms beta1..betaq.
-//   GJR-GARCH(p,o,q): as GARCH(p,q) plus o asymmetric terms gamma1..gammao
-//                     (gamma_i multiplies 1{eps_{t-i} < 0} * eps_{t-i}^2).
-//   EWMA(lambda):     sigma2_t = lambda * sigma2_{t-1} + (1 - lambda) * eps_{t-1}^2;
-//                     lambda is fixed, never estimated.
-//   constant:         sigma2_t = omega (no ARCH effect).
+// Orders are named counts (the configuration's [model] shock_lags, asym_lags,
+// variance_lags), never positions:
+//   ARMA(p,q):  p autoregressive terms ar_1..ar_p, q moving-average terms ma_1..ma_q.
+//   ARCH(p):    p = shock lags, terms alpha_1..alpha_p on lagged squared shocks.
+//   GARCH(p,q): p shock lags alpha_1..alpha_p, q variance lags beta_1..beta_q.
+//   GJR-GARCH:  as GARCH(p,q) plus asym lags gamma_1..gamma_o (gamma_i multiplies
+//               1{eps_{t-i} < 0} * eps_{t-i}^2); o = p by default.
+//   EWMA:       sigma2_t = lambda * sigma2_{t-1} + (1 - lambda) * eps_{t-1}^2;
+//               lambda is fixed, never estimated.
+//   flat:       sigma2_t = omega (no volatility clustering).
 //
 // Parameter vector layout (ParamNames() returns the names in this order):
-//   [mu] [ar1..arp] [ma1..maq] | omega [alpha1..] [gamma1..] [beta1..] | lambda (EWMA) | [nu]
+//   [mu] [ar_1..ar_p] [ma_1..ma_q] | omega [alpha_1..] [gamma_1..] [beta_1..] | lambda (EWMA)
+//   | [nu]
 // `mu` is present for the constant and ARMA means, absent for the zero mean.
 //
 // Thread-safety: plain value type; safe to copy and share read-only.
@@ -34,17 +36,22 @@ inline constexpr int kMaxArchOrder = 20;
 inline constexpr int kMaxGarchOrder = 5;
 
 enum class MeanKind { kZero, kConstant, kArma };
-enum class VarianceKind { kConstant, kArch, kGarch, kGjr, kEwma };
-enum class Innovations { kNormal, kStudentT };
+// The numeric values are stored in checkpoints: append, never reorder.
+enum class VarianceKind { kConstant, kArch, kGarch, kGjr, kEwma };  // kConstant: "flat"
+enum class Innovations { kNormal, kStudentT };                      // "gaussian", "student"
 
 // Presample rule for the variance recursion (PRODUCT.md C2):
-//   kMeanSquare: every presample sigma2 and eps^2 equals the mean of the squared
-//                residuals of the sample (the published benchmark's rule);
-//   kBackcast:   both equal an exponentially weighted average of the first
-//                squared residuals, weight kBackcastDecay^j for j = 0..kBackcastSpan-1.
-enum class Presample { kMeanSquare, kBackcast };
-inline constexpr double kBackcastDecay = 0.94;
-inline constexpr int kBackcastSpan = 75;
+//   kMeanSquare:  every presample sigma2 and eps^2 equals the mean of the squared
+//                 residuals of the sample (the published benchmark's rule);
+//   kRobustStart: both equal (kRobustStartConsistency * m)^2, m the weighted median
+//                 of |eps_j| over the first kRobustStartSpan residuals with weights
+//                 2^(-j / kRobustStartHalfLife): a scale of the first bars that one
+//                 outlier cannot move (README "Models" gives the reasons).
+enum class Presample { kMeanSquare, kRobustStart };
+inline constexpr double kRobustStartHalfLife = 10.0;  // bars
+inline constexpr int kRobustStartSpan = 50;           // bars: five half-lives (3 % weight left)
+// 1 / Phi^-1(3/4): (1.4826 * median |e|)^2 estimates the variance of Gaussian e.
+inline constexpr double kRobustStartConsistency = 1.482602218505602;
 
 struct ModelSpec {
   MeanKind mean = MeanKind::kConstant;
@@ -52,9 +59,9 @@ struct ModelSpec {
   int ma_order = 0;  // q of ARMA(p,q); 0 unless mean == kArma.
 
   VarianceKind variance = VarianceKind::kGarch;
-  int arch_order = 1;   // alpha terms (m of ARCH(m), p of GARCH(p,q) and GJR(p,o,q)).
-  int asym_order = 0;   // gamma terms (o of GJR(p,o,q)); 0 unless variance == kGjr.
-  int garch_order = 1;  // beta terms (q of GARCH(p,q) and GJR(p,o,q)).
+  int arch_order = 1;   // shock lags: alpha terms (p of ARCH(p), GARCH(p,q), GJR-GARCH(p,q)).
+  int asym_order = 0;   // asym lags: gamma terms; 0 unless variance == kGjr.
+  int garch_order = 1;  // variance lags: beta terms (q of GARCH(p,q) and GJR-GARCH(p,q)).
 
   Innovations innovations = Innovations::kNormal;
 
@@ -72,10 +79,13 @@ struct ModelSpec {
   // the ARMA recursion conditions on the first p returns).
   int ConditioningObs() const { return ar_order; }
 
-  // Parameter names in vector order, e.g. {"mu","omega","alpha1","beta1"}.
+  // Parameter names in vector order, e.g. {"mu","omega","alpha_1","beta_1"}.
   std::vector<std::string> ParamNames() const;
 
-  // Short human label, e.g. "ARMA(1,1)-GJR(1,1,1)-t".
+  // Compact label "<mean>/<variance>/<law>" (README "Models"), e.g.
+  // "const/GARCH(1,1)/student", "ARMA(1,1)/GJR-GARCH(1,1)/gaussian",
+  // "zero/flat/gaussian"; GJR-GARCH(p,q;o) when the asym lags o differ from p.
+  // ParseSpecLabel (model_store.h) reads it back.
   std::string Label() const;
 
   // OK if the orders are consistent with the kinds and within the limits.
@@ -87,22 +97,31 @@ struct ModelSpec {
 
 // Names used by the CLI, the configuration and JSON output.
 absl::string_view MeanKindName(MeanKind k);          // "zero" | "constant" | "arma"
-absl::string_view VarianceKindName(VarianceKind k);  // "constant"|"arch"|"garch"|"gjr"|"ewma"
-absl::string_view InnovationsName(Innovations k);    // "normal" | "t"
-absl::string_view PresampleName(Presample p);        // "mean-square" | "backcast"
+absl::string_view VarianceKindName(VarianceKind k);  // "flat"|"arch"|"garch"|"gjr"|"ewma"
+absl::string_view InnovationsName(Innovations k);    // "gaussian" | "student"
+absl::string_view PresampleName(Presample p);        // "mean-square" | "robust-start"
 
+// InvalidArgument for an unknown word; a retired word (renames.h) names its
+// replacement.
 absl::StatusOr<MeanKind> ParseMeanKind(absl::string_view s);
 absl::StatusOr<VarianceKind> ParseVarianceKind(absl::string_view s);
 absl::StatusOr<Innovations> ParseInnovations(absl::string_view s);
 absl::StatusOr<Presample> ParsePresample(absl::string_view s);
 
+// The lag counts of the variance equation by name (the configuration's [model]
+// shock_lags, variance_lags, asym_lags); -1 = not given, the kind's default.
+struct VarianceLags {
+  int shock = -1;     // alpha terms on lagged squared shocks; default 1
+  int variance = -1;  // beta terms on lagged variances (garch, gjr); default 1
+  int asym = -1;      // gamma terms (gjr only); default: as many as shock lags
+};
+
 // Builds a spec from the CLI/config words. `mean_order` is {p,q} for ARMA
-// (ignored otherwise); `variance_order` is {m} for ARCH, {p,q} for GARCH,
-// {p,o,q} for GJR and ignored for constant/EWMA. Empty orders take the
-// defaults ARMA(1,1), ARCH(1), GARCH(1,1), GJR(1,1,1).
+// (empty: ARMA(1,1)); any other mean takes none. Lags given for a variance
+// kind that has no such terms (e.g. asym lags with garch, any with flat or
+// ewma) are an error naming the lag.
 absl::StatusOr<ModelSpec> MakeModelSpec(absl::string_view mean, const std::vector<int>& mean_order,
-                                        absl::string_view variance,
-                                        const std::vector<int>& variance_order,
+                                        absl::string_view variance, const VarianceLags& lags,
                                         absl::string_view innovations);
 
 }  // namespace aftershock

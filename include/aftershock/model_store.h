@@ -10,10 +10,12 @@
 // model of the symbol's own.
 //
 // The record names its specification ("spec", ModelSpec::Label) and its
-// parameters ("params": [{"name", "value", ...}]); the specification is parsed
+// parameters ("estimates": [{"name", "value", ...}]); the specification is parsed
 // from the label (ParseSpecLabel) and its parameter names must be the
 // record's, in order, so a record cannot silently start a symbol on another
-// model than the one it names.
+// model than the one it names. Records of the retired format ("params",
+// labels like "constant-mean-GARCH(1,1)-t") are refused with a message naming
+// the rename (CHANGELOG.md); re-export or refit to get records of this format.
 //
 // Thread-safety: free functions on values; safe from any thread.
 #ifndef AFTERSHOCK_MODEL_STORE_H_
@@ -48,9 +50,10 @@ struct StoredModel {
   int line = 0;                    // 1-based line of the record in its file; 0: not from a file
 };
 
-// The specification a ModelSpec::Label() names, e.g. "ARMA(1,1)-GJR(1,1,1)-t"
-// or "zero-mean-GARCH(1,1)-normal". InvalidArgument for anything else
-// (including orders ModelSpec::Validate refuses).
+// The specification a ModelSpec::Label() names, e.g.
+// "ARMA(1,1)/GJR-GARCH(1,1)/student", "ARMA(1,0)/GJR-GARCH(2,1;1)/gaussian" or
+// "zero/GARCH(1,1)/gaussian". InvalidArgument for anything else (including
+// orders ModelSpec::Validate refuses).
 absl::StatusOr<ModelSpec> ParseSpecLabel(absl::string_view label);
 
 // The stored models of a model file's text (see above), sorted by symbol.

@@ -44,7 +44,7 @@ struct RefitDiagnostics {
 struct RefitCandidate {
   FitResult fit;  // fit.params.spec is the candidate's spec
   RefitDiagnostics diagnostics;
-  std::string note;  // e.g. "reidentified: GJR(1,1,1)-t by BIC"
+  std::string note;  // e.g. "reidentified: const/GJR-GARCH(1,1)/student by BIC"
 };
 
 class Refitter {
@@ -60,7 +60,7 @@ struct EstimatorRefitterOptions {
   // Gaussian GARCH(1,1).
   ModelSpec initial_spec;
   // Variance families x laws tried when re-identifying (the mean of the current
-  // model, or of initial_spec, is kept). Default GARCH(1,1) and GJR(1,1,1), each
+  // model, or of initial_spec, is kept). Default GARCH(1,1) and GJR-GARCH(1,1), each
   // with normal and Student-t innovations.
   std::vector<ModelSpec> candidates;
   // Estimator settings; `start` is overwritten with the warm start. Default

@@ -97,6 +97,7 @@ class TickFileReader {
   const absl::Status& status() const { return status_; }
 
   int64_t line_number() const { return line_number_; }  // last line read (1-based)
+  int64_t bytes_read() const { return bytes_read_; }    // input consumed so far, bytes
   int64_t good_lines() const { return good_lines_; }
   int64_t bad_lines() const { return bad_lines_; }
   const std::vector<std::string>& errors() const { return errors_; }  // first kMaxKeptErrors
@@ -123,6 +124,7 @@ class TickFileReader {
   absl::Status status_;
   std::string line_;
   int64_t line_number_ = 0;
+  int64_t bytes_read_ = 0;
   int64_t good_lines_ = 0;
   int64_t bad_lines_ = 0;
   std::vector<std::string> errors_;

@@ -5,7 +5,7 @@
 // JSON (one object per message, keys always present and in this order):
 //   {"s":"ALDER.X","t":1772443800000000000,"r":-0.0012,"mu":0.0001,"eps":-0.0013,
 //    "var":1.1e-6,"z":-1.24,"var_next":1.2e-6,"vol_ann":0.0174,
-//    "var_h":{"1":1.2e-6,"5":6.1e-6},"var_risk":{"0.99":0.0025},"es":{"0.99":0.0029},
+//    "var_h":{"1":1.2e-6,"5":6.1e-6},"value_at_risk":{"0.99":0.0025},"es":{"0.99":0.0029},
 //    "scale":5.74,"ver":3,"flags":["warmup","gap"]}
 // Doubles are written with the shortest representation that parses back to
 // the same double (std::to_chars), so a consumer recovers every value exactly.
@@ -23,7 +23,7 @@
 //   ...     1      H, number of horizons 0..kMaxHorizons
 //   ...     H*12   H x { uint32 horizon bars, double var_h }
 //   ...     1      K, number of risk levels 0..kMaxRiskLevels
-//   ...     K*24   K x { double level, double var_risk, double es }
+//   ...     K*24   K x { double level, double value_at_risk, double es }
 //   ...     8      scale double
 //   ...     4      ver uint32
 //   ...     4      flags uint32 (UpdateFlag bits)

@@ -1,14 +1,15 @@
 #include "app/args.h"
 
 #include <cerrno>
-#include <cstdio>
 #include <cmath>
+#include <cstdio>
 #include <cstdlib>
 
 #include "absl/strings/numbers.h"
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_split.h"
 #include "absl/strings/strip.h"
+#include "aftershock/renames.h"
 
 namespace aftershock::app {
 
@@ -54,6 +55,8 @@ absl::Status ArgParser::Parse(int argc, char** argv, int first) {
     }
     auto it = specs_.find(name);
     if (it == specs_.end()) {
+      const std::string hint = RenameHint(RenameKind::kOption, "", absl::StrCat("--", name));
+      if (!hint.empty()) return absl::InvalidArgumentError(absl::StrCat("option ", hint));
       return absl::InvalidArgumentError(
           absl::StrCat("unknown option --", name, " (see ", command_, " --help)"));
     }

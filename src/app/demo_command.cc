@@ -86,12 +86,12 @@ void Write(const std::string& s) {
 // ---- --fit-only: the estimator against known truth ----------------------------------
 
 int FitOnlyDemo(long long bars, long long seed) {
-  auto spec = MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "student");
   auto truth = ModelParams::FromNamed(*spec, {{"mu", 0.03},
                                               {"omega", 0.02},
-                                              {"alpha1", 0.04},
-                                              {"gamma1", 0.08},
-                                              {"beta1", 0.9},
+                                              {"alpha_1", 0.04},
+                                              {"gamma_1", 0.08},
+                                              {"beta_1", 0.9},
                                               {"nu", 7.0}});
   SimulationOptions so;
   so.n = static_cast<int>(bars);
@@ -140,8 +140,9 @@ std::string DemoConfigToml(int refit_every, int min_bars) {
       "# until its first refit passes the gate.\n"
       "mean = \"constant\"\n"
       "variance = \"garch\"\n"
-      "variance_order = [1, 1]\n"
-      "innovations = \"t\"\n\n"
+      "shock_lags = 1\n"
+      "variance_lags = 1\n"
+      "innovations = \"student\"\n\n"
       "[warmup]\n"
       "ewma_lambda = 0.94\n\n"
       "[outputs]\n"
@@ -359,6 +360,14 @@ class LiveView {
       dirty_ = true;
     } else if (topic[0] == 'a') {
       ++alerts_;
+      const nlohmann::json a = nlohmann::json::parse(body.begin(), body.end(), nullptr,
+                                                     /*allow_exceptions=*/false);
+      if (a.is_object() && a.contains("kind") && a["kind"].is_string() && a.contains("rule") &&
+          a["rule"].is_string()) {
+        dirty_ = table_.ApplyAlert(std::string(topic.substr(2)), a["kind"].get<std::string>(),
+                                   a["rule"].get<std::string>()) ||
+                 dirty_;
+      }
       Event(AlertLine(topic.substr(2), body));
     } else if (topic[0] == 'm') {
       ++model_events_;
@@ -414,7 +423,7 @@ class LiveView {
     }
   }
 
-  // "model BRANDR.NRG swapped v2 constant-mean-GARCH(1,1)-t" (or rejected: reasons)
+  // "model BRANDR.NRG swapped v2 const/GARCH(1,1)/student" (or rejected: reasons)
   std::string ModelLine(absl::string_view symbol, absl::string_view body) {
     try {
       const nlohmann::json j = nlohmann::json::parse(body.begin(), body.end());
@@ -719,8 +728,8 @@ int DemoCommand(int argc, char** argv) {
       "Symbols start on the EWMA warm-up (model version 0); a refit that passes the quality\n"
       "gate swaps in an estimated version 1, 2, ... --print-config shows the configuration.\n\n"
       "--fit-only runs the estimator against known truth instead: a daily series simulated\n"
-      "from a GJR(1,1,1)-t model (--bars, --seed), fitted and reported next to the true\n"
-      "parameters.\n\n"
+      "from a GJR-GARCH(1,1) Student-t model (--bars, --seed), fitted and reported next to\n"
+      "the true parameters.\n\n"
       "Outputs are statistical estimates, not advice.");
   args.AddOption("duration", "SECONDS", "how long to run; 0 = until Ctrl-C", "30");
   args.AddOption("rate", "BARS_PER_S", "bars per second published for each instrument", "20");

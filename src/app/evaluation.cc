@@ -9,6 +9,7 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
+#include "absl/time/time.h"
 
 namespace aftershock {
 namespace {
@@ -438,6 +439,7 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
       const double loss = -hist.r[i];
       const bool hit = loss > v;
       hits.push_back(hit ? 1 : 0);
+      if (hit) lb.exception_bars.push_back(static_cast<int64_t>(i));
       const double es = hist.es_next[k][i - 1];
       if (hit && IsFinite(es) && es > 0.0) {
         es_sum += loss / es;
@@ -512,6 +514,24 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
         ev.swaps.rejected, ev.swaps.rejected == 1 ? " refit" : " refits", " rejected by the gate"));
   }
   return ev;
+}
+
+std::string VarExceptionsCsv(const SymbolHistory& hist, const SymbolEvaluation& eval, bool header) {
+  std::string out = header ? "symbol,time,bar,return,limit,level\n" : "";
+  for (size_t k = 0; k < eval.levels.size() && k < hist.var_risk_next.size(); ++k) {
+    const LevelBacktest& lb = eval.levels[k];
+    for (int64_t i : lb.exception_bars) {
+      const size_t b = static_cast<size_t>(i);
+      if (b == 0 || b >= hist.r.size() || b >= hist.t_ns.size()) continue;
+      absl::StrAppend(&out, hist.symbol, ",",
+                      absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(hist.t_ns[b]),
+                                       absl::UTCTimeZone()),
+                      ",", i, ",", absl::StrFormat("%.12g", hist.r[b]), ",",
+                      absl::StrFormat("%.12g", hist.var_risk_next[k][b - 1]), ",",
+                      absl::StrFormat("%g", lb.level), "\n");
+    }
+  }
+  return out;
 }
 
 }  // namespace aftershock

@@ -1,14 +1,15 @@
 // `aftershock fit`: estimate a volatility model on one return series.
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <string>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/engine_config.h"
-#include "aftershock/tick_file.h"
 #include "aftershock/estimator.h"
 #include "aftershock/identify.h"
 #include "aftershock/series_file.h"
+#include "aftershock/tick_file.h"
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/fit_report.h"
@@ -125,9 +126,9 @@ int RunIdentification(const ArgParser& args, const std::string& format) {
   if (!series.ok()) return Fail(series.status(), 2);
   auto rep = IdentifyModel(series->values, opt);
   if (!rep.ok()) return Fail(rep.status(), 2);
-  Print(format, args, *series, IdentificationJson(*rep), [&](const std::string& title) {
-    return IdentificationText(*rep, title);
-  });
+  const double ppy = std::strtod(args.Get("periods-per-year").c_str(), nullptr);
+  Print(format, args, *series, IdentificationJson(*rep),
+        [&](const std::string& title) { return IdentificationText(*rep, title, ppy); });
   return rep->final_fit.converged ? 0 : 1;
 }
 
@@ -146,10 +147,12 @@ int FitCommand(int argc, char** argv) {
       "A tick file (a header with a symbol column, as replay reads) needs --symbol: that\n"
       "instrument's ticks go through replay's bar builder (--interval) and its bar\n"
       "returns are fitted.\n\n"
-      "Orders: ARMA P,Q; ARCH M; GARCH P,Q (P alpha terms, Q beta terms); GJR P,O,Q\n"
-      "(O asymmetric gamma terms). Example:\n"
+      "Lags are named: --shock-lags (alpha_i terms on lagged squared shocks),\n"
+      "--variance-lags (beta_i terms on lagged variances, garch and gjr), --asym-lags\n"
+      "(gamma_i asymmetric terms, gjr only); the ARMA mean takes --mean-order P,Q.\n"
+      "Example:\n"
       "  aftershock fit --input returns.csv --mean constant --variance garch "
-      "--variance-order 1,1\n\n"
+      "--shock-lags 1 --variance-lags 1\n\n"
       "With --mean auto --variance auto the identification pipeline runs instead: mean\n"
       "order by the criterion, ARCH-effect tests, variance family and order by the\n"
       "criterion (mean fixed), diagnostics, joint re-estimation; the report explains\n"
@@ -167,19 +170,24 @@ int FitCommand(int argc, char** argv) {
                  "tick file: the file's names for our columns, e.g. time=ts,price=last");
   args.AddOption("mean", "KIND", "mean equation: zero | constant | arma | auto", "constant");
   args.AddOption("mean-order", "P,Q", "ARMA orders (with --mean arma)", "1,1");
-  args.AddOption("variance", "KIND",
-                 "variance equation: constant | arch | garch | gjr | ewma | auto", "garch");
-  args.AddOption("variance-order", "ORDERS",
-                 "ARCH: M; GARCH: P,Q; GJR: P,O,Q (defaults 1 / 1,1 / 1,1,1)");
-  args.AddOption("innovations", "LAW", "innovation law: normal | t (standardized Student-t)",
-                 "normal");
+  args.AddOption("variance", "KIND", "variance equation: flat | arch | garch | gjr | ewma | auto",
+                 "garch");
+  args.AddOption("shock-lags", "N", "alpha terms on lagged squared shocks (arch, garch, gjr)", "1");
+  args.AddOption("variance-lags", "N", "beta terms on lagged variances (garch, gjr)", "1");
+  args.AddOption("asym-lags", "N", "gamma asymmetric terms (gjr; default: the shock lags)");
+  args.AddOption("innovations", "LAW",
+                 "innovation law: gaussian | student (Student-t scaled to unit variance)",
+                 "gaussian");
   args.AddOption("presample", "RULE",
-                 "presample variance: mean-square (mean of squared residuals) | backcast "
-                 "(exponentially weighted, decay 0.94 over 75 bars)",
+                 "presample variance: mean-square (mean of all squared residuals) | "
+                 "robust-start (squared robust scale of the first bars, half-life 10)",
                  "mean-square");
   args.AddOption("ewma-lambda", "X", "decay of the EWMA variance (fixed, not estimated)",
                  "0.94");
   args.AddOption("format", "FMT", "output: text | json", "text");
+  args.AddOption("periods-per-year", "N",
+                 "bars per year for the text verdict's annual volatility (square root of time)",
+                 "252");
   args.AddOption("criterion", "IC", "auto: information criterion, aic | bic", "bic");
   args.AddOption("max-mean-order", "P,Q", "auto: largest ARMA orders tried", "2,2");
   args.AddOption("max-arch-order", "M", "auto: largest ARCH order tried", "5");
@@ -195,6 +203,11 @@ int FitCommand(int argc, char** argv) {
     return Fail(absl::InvalidArgumentError("--format must be text or json, got '" + format + "'"),
                 2);
   }
+  auto periods_per_year = args.GetDouble("periods-per-year");
+  if (!periods_per_year.ok()) return Fail(periods_per_year.status(), 2);
+  if (!(*periods_per_year > 0)) {
+    return Fail(absl::InvalidArgumentError("--periods-per-year must be > 0"), 2);
+  }
   const bool auto_mean = args.Get("mean") == "auto", auto_var = args.Get("variance") == "auto";
   if (auto_mean || auto_var) {
     if (!(auto_mean && auto_var)) {
@@ -206,11 +219,24 @@ int FitCommand(int argc, char** argv) {
   }
   auto mean_order = args.GetIntList("mean-order");
   if (!mean_order.ok()) return Fail(mean_order.status(), 2);
-  auto var_order = args.GetIntList("variance-order");
-  if (!var_order.ok()) return Fail(var_order.status(), 2);
+  // A lag given on the command line must fit the variance kind; the defaults
+  // (1) apply only where the kind has such terms.
+  VarianceLags lags;
+  const std::string variance = args.Get("variance");
+  for (auto [flag, out] : {std::pair<const char*, int*>{"shock-lags", &lags.shock},
+                           {"variance-lags", &lags.variance},
+                           {"asym-lags", &lags.asym}}) {
+    if (!args.Has(flag)) continue;
+    auto v = args.GetInt(flag);
+    if (!v.ok()) return Fail(v.status(), 2);
+    if (*v < 0 || *v > 1000) {
+      return Fail(absl::InvalidArgumentError(absl::StrCat("--", flag, " must be in 0..1000")), 2);
+    }
+    *out = static_cast<int>(*v);
+  }
   const std::string mean = args.Get("mean");
-  auto spec = MakeModelSpec(mean, mean == "arma" ? *mean_order : std::vector<int>{},
-                            args.Get("variance"), *var_order, args.Get("innovations"));
+  auto spec = MakeModelSpec(mean, mean == "arma" ? *mean_order : std::vector<int>{}, variance, lags,
+                            args.Get("innovations"));
   if (!spec.ok()) return Fail(spec.status(), 2);
   FitOptions options;
   auto presample = ParsePresample(args.Get("presample"));
@@ -225,11 +251,21 @@ int FitCommand(int argc, char** argv) {
 
   auto series = LoadSeries(args);
   if (!series.ok()) return Fail(series.status(), 2);
+  options.keep_series = true;  // for the residual diagnostics of the text report
   auto fit = FitModel(*spec, series->values, options);
   if (!fit.ok()) return Fail(fit.status(), 2);
+  std::string diagnostics;
+  if (format == "text" && !fit->residuals.empty() && fit->sigma2.size() == fit->residuals.size()) {
+    IdentifyOptions io;
+    auto tests = StandardizedResidualDiagnostics(fit->residuals, fit->sigma2,
+                                                 spec->ar_order + spec->ma_order, io);
+    diagnostics = absl::StrCat("\nDiagnostics of the standardized residuals (level ", io.level,
+                               ")\n", DiagnosticsText(tests));
+  }
 
-  Print(format, args, *series, FitResultJson(*fit),
-        [&](const std::string& title) { return FitResultText(*fit, title); });
+  Print(format, args, *series, FitResultJson(*fit), [&](const std::string& title) {
+    return FitResultText(*fit, title, *periods_per_year, diagnostics);
+  });
   return fit->converged ? 0 : 1;
 }
 

@@ -24,19 +24,10 @@ nlohmann::json ModelSpecJson(const ModelSpec& spec) {
                         ? nlohmann::json::array({spec.ar_order, spec.ma_order})
                         : nlohmann::json::array();
   m["variance"] = std::string(VarianceKindName(spec.variance));
-  switch (spec.variance) {
-    case VarianceKind::kArch:
-      m["variance_order"] = {spec.arch_order};
-      break;
-    case VarianceKind::kGarch:
-      m["variance_order"] = {spec.arch_order, spec.garch_order};
-      break;
-    case VarianceKind::kGjr:
-      m["variance_order"] = {spec.arch_order, spec.asym_order, spec.garch_order};
-      break;
-    default:
-      m["variance_order"] = nlohmann::json::array();
-  }
+  // Counts of alpha, gamma and beta terms (0 where the kind has none).
+  m["shock_lags"] = spec.arch_order;
+  m["asym_lags"] = spec.asym_order;
+  m["variance_lags"] = spec.garch_order;
   m["innovations"] = std::string(InnovationsName(spec.innovations));
   m["label"] = spec.Label();
   return m;
@@ -52,18 +43,18 @@ nlohmann::json FitResultJson(const FitResult& fit) {
     se[fit.names[i]] = JsonNumber(fit.std_errors[i]);
     rse[fit.names[i]] = JsonNumber(fit.robust_std_errors[i]);
   }
-  j["params"] = params;
-  j["std_errors"] = se;
-  j["robust_std_errors"] = rse;
+  j["estimates"] = params;
+  j["se_hessian"] = se;
+  j["se_robust"] = rse;
   nlohmann::json fixed = nlohmann::json::array();
   for (size_t i = 0; i < fit.names.size(); ++i) {
     if (fit.fixed[i]) fixed.push_back(fit.names[i]);
   }
   j["fixed"] = fixed;
-  j["loglik"] = JsonNumber(fit.loglik);
+  j["log_likelihood"] = JsonNumber(fit.loglik);
   j["aic"] = JsonNumber(fit.aic);
   j["bic"] = JsonNumber(fit.bic);
-  j["nobs"] = fit.nobs;
+  j["likelihood_terms"] = fit.nobs;
   j["converged"] = fit.converged;
   j["iterations"] = fit.iterations;
   j["seconds"] = fit.seconds;
@@ -79,48 +70,89 @@ nlohmann::json FitResultJson(const FitResult& fit) {
   return j;
 }
 
-std::string FitResultText(const FitResult& fit, const std::string& title) {
+namespace {
+
+// Two-sided p-value of estimate / se against the standard normal.
+double TwoSidedP(double z) { return std::erfc(std::fabs(z) / std::sqrt(2.0)); }
+
+std::string Num(double x) { return std::isfinite(x) ? absl::StrFormat("%.4g", x) : "n/a"; }
+
+}  // namespace
+
+std::string FitVerdict(const ModelParams& params, double periods_per_year) {
+  const ModelSpec& spec = params.spec;
+  const double ppy = periods_per_year > 0 ? periods_per_year : 252;
+  const auto long_run = [&](double var) {
+    const double sd = std::sqrt(var);
+    return absl::StrFormat("long-run volatility %s per bar, %s a year (%s bars)", Num(sd),
+                           Num(sd * std::sqrt(ppy)), absl::StrFormat("%g", ppy));
+  };
+  if (spec.variance == VarianceKind::kConstant) {
+    return absl::StrCat("no memory (flat variance): every bar has the same variance; ",
+                        long_run(params.UnconditionalVariance()));
+  }
+  const double m = params.Persistence();
+  if (spec.variance == VarianceKind::kEwma) {
+    return absl::StrFormat(
+        "memory %.3g (EWMA, fixed): a variance shock halves in %.1f bars; no long-run level", m,
+        std::log(0.5) / std::log(m));
+  }
+  if (!(m >= 0) || m >= 1) {
+    return absl::StrFormat("memory %s: variance shocks never fade; no long-run level", Num(m));
+  }
+  if (m == 0) {
+    return absl::StrCat("memory 0: shocks do not carry over; ",
+                        long_run(params.UnconditionalVariance()));
+  }
+  return absl::StrFormat("memory %.3g: a variance shock halves in %.1f bars; %s", m,
+                         std::log(0.5) / std::log(m), long_run(params.UnconditionalVariance()));
+}
+
+std::string FitResultText(const FitResult& fit, const std::string& title, double periods_per_year,
+                          const std::string& details) {
   std::string out;
-  absl::StrAppend(&out, "Model estimate: ", fit.params.spec.Label(), "\n");
-  if (!title.empty()) absl::StrAppend(&out, "Data:           ", title, "\n");
-  absl::StrAppend(&out, absl::StrFormat(
-      "Observations:   %d   presample: %s   start: %s\n", fit.nobs,
-      std::string(PresampleName(fit.presample)), fit.start_used));
-  absl::StrAppend(&out, absl::StrFormat("Converged:      %s (%s, %d evaluations, %.2f ms)\n\n",
+  absl::StrAppend(&out, fit.params.spec.Label(), title.empty() ? "" : " on ", title, "\n");
+  absl::StrAppend(&out, "  ", FitVerdict(fit.params, periods_per_year), "\n\n");
+  absl::StrAppend(&out, absl::StrFormat("Likelihood terms %d   presample %s   start %s\n", fit.nobs,
+                                        std::string(PresampleName(fit.presample)), fit.start_used));
+  absl::StrAppend(&out, absl::StrFormat("Converged        %s (%s, %d evaluations, %.2f ms)\n\n",
                                         fit.converged ? "yes" : "NO", fit.optimizer_message,
                                         fit.iterations, fit.seconds * 1e3));
-  absl::StrAppend(&out, absl::StrFormat("  %-10s %14s %12s %12s %9s\n", "parameter", "estimate",
-                                        "std.err", "robust s.e.", "t(robust)"));
+  absl::StrAppend(&out,
+                  absl::StrFormat("  %-10s %12s %11s %11s   %-25s %8s\n", "parameter", "estimate",
+                                  "se_hessian", "se_robust", "95 % interval (robust)", "p-value"));
   for (size_t i = 0; i < fit.names.size(); ++i) {
     const double v = fit.params.values[i];
     if (fit.fixed[i]) {
-      absl::StrAppend(&out, absl::StrFormat("  %-10s %14.6g %12s %12s %9s\n", fit.names[i], v,
-                                            "(fixed)", "", ""));
+      absl::StrAppend(&out, absl::StrFormat("  %-10s %12.6g %11s\n", fit.names[i], v, "(fixed)"));
       continue;
     }
     const double se = fit.std_errors[i], rse = fit.robust_std_errors[i];
-    auto fmt = [](double x) { return std::isfinite(x) ? absl::StrFormat("%.6g", x) : "n/a"; };
-    absl::StrAppend(&out, absl::StrFormat("  %-10s %14.6g %12s %12s %9s\n", fit.names[i], v,
-                                          fmt(se), fmt(rse),
-                                          std::isfinite(rse) && rse > 0
-                                              ? absl::StrFormat("%.2f", v / rse)
-                                              : "n/a"));
+    const bool ok = std::isfinite(rse) && rse > 0;
+    const std::string interval = ok ? absl::StrFormat("[%.4g, %.4g]", v - 1.959963984540054 * rse,
+                                                      v + 1.959963984540054 * rse)
+                                    : "n/a";
+    // nu = 0 is no hypothesis anyone holds (the Gaussian is nu -> infinity).
+    const bool testable = fit.names[i] != "nu";
+    absl::StrAppend(
+        &out, absl::StrFormat("  %-10s %12.6g %11s %11s   %-25s %8s\n", fit.names[i], v, Num(se),
+                              Num(rse), interval, ok && testable ? Num(TwoSidedP(v / rse)) : "-"));
   }
-  absl::StrAppend(&out, "\n");
-  absl::StrAppend(&out, absl::StrFormat("  log-likelihood %.4f   AIC %.4f   BIC %.4f\n",
-                                        fit.loglik, fit.aic, fit.bic));
-  const double pers = fit.params.Persistence();
+  absl::StrAppend(&out,
+                  "  (p-value: estimate = 0, robust s.e., normal approximation; for the variance\n"
+                  "  coefficients 0 is the edge of the allowed range, so it is conservative)\n\n");
+  absl::StrAppend(&out, absl::StrFormat("  log-likelihood %.4f   AIC %.4f   BIC %.4f\n", fit.loglik,
+                                        fit.aic, fit.bic));
   if (fit.params.spec.variance != VarianceKind::kConstant &&
       fit.params.spec.variance != VarianceKind::kEwma) {
-    absl::StrAppend(&out, absl::StrFormat(
-        "  persistence %.5f   unconditional variance %.6g   half-life %.1f bars\n", pers,
-        fit.params.UnconditionalVariance(), std::log(0.5) / std::log(pers)));
+    absl::StrAppend(&out, absl::StrFormat("  unconditional variance %.6g per bar\n",
+                                          fit.params.UnconditionalVariance()));
   }
   if (!fit.warnings.empty()) {
     absl::StrAppend(&out, "\nWarnings:\n");
     for (const auto& w : fit.warnings) absl::StrAppend(&out, "  - ", w, "\n");
   }
-  absl::StrAppend(&out, "\n", kEstimateCaution, "\n");
+  absl::StrAppend(&out, details, "\n", kEstimateCaution, "\n");
   return out;
 }
 

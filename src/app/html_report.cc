@@ -514,10 +514,37 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
   int charts = 0;
   int64_t total_bars = 0;
   json data = json::array();
-  std::string overview, sections;
+  std::string sections;
+  // Overview rows with their risk rank, sorted worst first below: zone, then
+  // the coverage test, then alert count.
+  struct OverviewRow {
+    int zone_rank = 0;
+    double p_pof = 1.0;
+    int64_t alerts = 0;
+    size_t index = 0;
+    std::string html;
+  };
+  std::vector<OverviewRow> rows;
+  int64_t first_bar = 0, last_bar = 0;
+  std::map<std::string, int> model_mix;  // final model label -> symbols
   for (size_t si = 0; si < in.symbols.size(); ++si) {
     const SymbolHistory& h = in.symbols[si];
     total_bars += static_cast<int64_t>(h.t_ns.size());
+    if (!h.t_ns.empty()) {
+      first_bar = first_bar == 0 ? h.t_ns.front() : std::min(first_bar, h.t_ns.front());
+      last_bar = std::max(last_bar, h.t_ns.back());
+    }
+    {
+      std::string label = "no fitted model";
+      for (auto it = h.swaps.rbegin(); it != h.swaps.rend(); ++it) {
+        if (it->accepted) {
+          label = it->model;
+          break;
+        }
+      }
+      ++model_mix[label];
+    }
+    std::string overview;
     const std::string sym = HtmlEscape(h.symbol);
     const std::string anchor = absl::StrCat("sym-", si);
     auto ev = EvaluateSymbol(h, opt.evaluation);
@@ -525,10 +552,11 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
       absl::StrAppend(
           &overview, "<tr>",
           Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
-          Td(absl::StrCat(h.t_ns.size()), std::to_string(h.t_ns.size())), "<td colspan=\"6\"></td>",
+          Td(absl::StrCat(h.t_ns.size()), std::to_string(h.t_ns.size())), "<td colspan=\"9\"></td>",
           Td(absl::StrCat("evaluation failed: ", HtmlEscape(std::string(ev.status().message()))),
              "9", false),
           "</tr>");
+      rows.push_back({4, 0.0, 0, si, overview});  // a failed evaluation first: look at it
       absl::StrAppend(&sections, "<section class=\"symbol\" id=\"", anchor, "\"><h2>", sym,
                       "</h2><p class=\"failed\">Evaluation failed: ",
                       HtmlEscape(std::string(ev.status().message())), "</p></section>");
@@ -542,17 +570,34 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     const TrafficLightZone zone = b ? b->traffic_light.zone : TrafficLightZone::kNotApplicable;
     std::string warn_text =
         ev->warnings.empty() ? std::string("none") : HtmlEscape(absl::StrJoin(ev->warnings, "; "));
+    // The limits in force for the next bar: VaR / ES at every level.
+    std::string limits;
+    for (size_t k = 0; k < h.risk_levels.size(); ++k) {
+      const bool have = k < h.var_risk_next.size() && !h.var_risk_next[k].empty() &&
+                        k < h.es_next.size() && !h.es_next[k].empty();
+      absl::StrAppend(&limits, k ? "<br>" : "", LevelLabel(h.risk_levels[k]), ": ",
+                      have ? Fmt(h.var_risk_next[k].back()) : "\xE2\x80\x93", " / ",
+                      have ? Fmt(h.es_next[k].back()) : "\xE2\x80\x93");
+    }
+    // Regime at the end: a regime period that reaches the last bar is open.
+    std::string regime = "none";
+    if (!h.regimes.empty() && !h.t_ns.empty() && h.regimes.back().end_ns >= h.t_ns.back()) {
+      regime = h.regimes.back().direction > 0 ? "high" : "low";
+    }
     absl::StrAppend(&overview, "<tr>",
                     Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
-                    Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
+                    Td(ZoneChip(zone), absl::StrCat(ZoneRank(zone)), false),
                     Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
                        b ? absl::StrCat(b->tests.exceptions) : ""),
                     Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
                     Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
-                    Td(ZoneChip(zone), absl::StrCat(ZoneRank(zone)), false),
+                    Td(absl::StrCat(ev->alerts_total), absl::StrCat(ev->alerts_total)),
+                    Td(regime, regime, false), Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
+                    Td(limits, "", false), Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
                     Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
-                    Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
                     Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
+    rows.push_back({ZoneRank(zone), b && std::isfinite(b->tests.p_pof) ? b->tests.p_pof : 1.0,
+                    ev->alerts_total, si, overview});
 
     const int before = charts;
     json d = ChartData(h, *ev, opt, &charts);
@@ -577,6 +622,13 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
                     SwapTable(h, *ev), "</div></section>");
   }
 
+  std::stable_sort(rows.begin(), rows.end(), [](const OverviewRow& a, const OverviewRow& b) {
+    if (a.zone_rank != b.zone_rank) return a.zone_rank > b.zone_rank;
+    if (a.p_pof != b.p_pof) return a.p_pof < b.p_pof;
+    return a.alerts > b.alerts;
+  });
+  std::string overview;
+  for (const OverviewRow& r : rows) overview += r.html;
   json meta = {{"vol_unit", vol_unit}};
   std::string page;
   page.reserve(1 << 16);
@@ -591,7 +643,19 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     }
   };
   run_item("input", in.run.input_file);
+  if (last_bar > 0) {
+    run_item("data period", absl::StrCat(UtcTime(first_bar), " to ", UtcTime(last_bar), " UTC"));
+  }
+  run_item("bar interval", in.run.bar_interval);
   run_item("symbols", std::to_string(in.symbols.size()));
+  {
+    std::vector<std::pair<std::string, int>> mix(model_mix.begin(), model_mix.end());
+    std::stable_sort(mix.begin(), mix.end(),
+                     [](const auto& a, const auto& b) { return a.second > b.second; });
+    std::vector<std::string> parts;
+    for (const auto& [label, n] : mix) parts.push_back(absl::StrCat(n, " ", label));
+    run_item("models at the end", absl::StrJoin(parts, ", "));
+  }
   run_item("bars", std::to_string(total_bars));
   if (in.run.replay_speed > 0) {
     run_item("replay speed", absl::StrFormat("%.4g bars/s", in.run.replay_speed));
@@ -606,20 +670,25 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
   }
   absl::StrAppend(
       &page, "</header><main><section class=\"overview\"><h2>Overview</h2>",
-      "<p class=\"hint\">Click a column header to sort. Exceptions, Kupiec and Christoffersen "
-      "at ",
+      "<p class=\"hint\">Worst first: traffic-light zone, then the coverage test (Kupiec p), "
+      "then alerts; click a column header to sort otherwise. Exceptions, Kupiec and "
+      "Christoffersen at ",
       LevelLabel(opt.var_level), "; zone over the last ", opt.evaluation.traffic_light_window,
-      " evaluated bars at ", LevelLabel(opt.evaluation.traffic_light_level), " (green 0&ndash;",
-      opt.evaluation.yellow_from - 1, ", yellow ", opt.evaluation.yellow_from, "&ndash;",
-      opt.evaluation.red_from - 1, ", red ", opt.evaluation.red_from, "+ exceptions).</p>",
+      " evaluated <em>bars</em> at ", LevelLabel(opt.evaluation.traffic_light_level),
+      " (green 0&ndash;", opt.evaluation.yellow_from - 1, ", yellow ", opt.evaluation.yellow_from,
+      "&ndash;", opt.evaluation.red_from - 1, ", red ", opt.evaluation.red_from,
+      "+ exceptions; the Basel zones are set for 250 trading days, so on intraday bars read "
+      "them as a count over the last bars, not as a regulatory zone). VaR / ES are the limits "
+      "in force for the next bar, as positive losses in return units.</p>",
       "<table class=\"grid sortable\" id=\"overview\"><thead><tr>",
-      "<th data-type=\"text\">symbol</th><th data-type=\"num\">bars</th>",
+      "<th data-type=\"text\">symbol</th><th data-type=\"num\">zone</th>",
       "<th data-type=\"num\">exceptions @", LevelLabel(opt.var_level), "</th>",
       "<th data-type=\"num\">Kupiec p</th><th data-type=\"num\">Christoffersen p</th>",
-      "<th data-type=\"num\">zone</th><th data-type=\"num\">QLIKE</th>",
-      "<th data-type=\"num\">last vol (", vol_unit, ")</th>",
-      "<th data-type=\"num\">warnings</th></tr></thead><tbody>", overview,
-      "</tbody></table></section>", sections, "</main>");
+      "<th data-type=\"num\">alerts</th><th data-type=\"text\">regime</th>",
+      "<th data-type=\"num\">vol now (", vol_unit, ")</th>",
+      "<th data-type=\"text\">VaR / ES next bar</th><th data-type=\"num\">bars</th>",
+      "<th data-type=\"num\">QLIKE</th>", "<th data-type=\"num\">warnings</th></tr></thead><tbody>",
+      overview, "</tbody></table></section>", sections, "</main>");
   absl::StrAppend(
       &page,
       "<footer><p><strong>Caution.</strong> Everything in this report is a statistical "

@@ -30,12 +30,62 @@ void AppendTests(std::string* out, const std::vector<TestOutcome>& tests) {
   }
 }
 
+// The residual diagnostics grouped by the question each answers, in the order
+// a desk asks them.
+void AppendDiagnostics(std::string* out, const std::vector<TestOutcome>& tests) {
+  struct Group {
+    const char* question;
+    bool (*member)(const std::string& name);
+  };
+  static const Group kGroups[] = {
+      {"Dynamics left in the mean?",
+       [](const std::string& n) {
+         return n.rfind("Ljung-Box", 0) == 0 && n.find("^2") == std::string::npos;
+       }},
+      {"Volatility clustering left?",
+       [](const std::string& n) {
+         return n.find("^2") != std::string::npos || n.rfind("ARCH-LM", 0) == 0;
+       }},
+      {"Asymmetry left?",
+       [](const std::string& n) { return n.find("sign bias") != std::string::npos; }},
+      {"Tails as the law assumes? (informative: fat tails are expected)",
+       [](const std::string& n) { return n.rfind("Jarque-Bera", 0) == 0; }},
+  };
+  std::vector<bool> shown(tests.size(), false);
+  for (const Group& g : kGroups) {
+    std::vector<TestOutcome> members;
+    for (size_t i = 0; i < tests.size(); ++i) {
+      if (!shown[i] && g.member(tests[i].name)) {
+        members.push_back(tests[i]);
+        shown[i] = true;
+      }
+    }
+    if (members.empty()) continue;
+    absl::StrAppend(out, "  ", g.question, "\n");
+    AppendTests(out, members);
+  }
+  std::vector<TestOutcome> rest;
+  for (size_t i = 0; i < tests.size(); ++i) {
+    if (!shown[i]) rest.push_back(tests[i]);
+  }
+  if (!rest.empty()) {
+    absl::StrAppend(out, "  Other checks\n");
+    AppendTests(out, rest);
+  }
+}
+
 }  // namespace
+
+std::string DiagnosticsText(const std::vector<TestOutcome>& tests) {
+  std::string out;
+  AppendDiagnostics(&out, tests);
+  return out;
+}
 
 nlohmann::json IdentificationJson(const IdentificationReport& rep) {
   const bool aic = rep.options.criterion == InfoCriterion::kAic;
   nlohmann::json j;
-  j["nobs"] = rep.nobs;
+  j["likelihood_terms"] = rep.nobs;
   j["criterion"] = aic ? "aic" : "bic";
   j["level"] = rep.options.level;
   nlohmann::json mean = nlohmann::json::array();
@@ -43,7 +93,7 @@ nlohmann::json IdentificationJson(const IdentificationReport& rep) {
     mean.push_back({{"p", c.p},
                     {"q", c.q},
                     {"ok", c.status.ok()},
-                    {"loglik", c.status.ok() ? JsonNumber(c.loglik) : nlohmann::json()},
+                    {"log_likelihood", c.status.ok() ? JsonNumber(c.loglik) : nlohmann::json()},
                     {"aic", c.status.ok() ? JsonNumber(c.aic) : nlohmann::json()},
                     {"bic", c.status.ok() ? JsonNumber(c.bic) : nlohmann::json()},
                     {"error", c.status.ok() ? "" : std::string(c.status.message())}});
@@ -60,10 +110,10 @@ nlohmann::json IdentificationJson(const IdentificationReport& rep) {
     var.push_back({{"model", ModelSpecJson(c.spec)},
                    {"ok", c.ok},
                    {"eligible", c.eligible},
-                   {"loglik", c.ok ? JsonNumber(c.loglik) : nlohmann::json()},
+                   {"log_likelihood", c.ok ? JsonNumber(c.loglik) : nlohmann::json()},
                    {"aic", c.ok ? JsonNumber(c.aic) : nlohmann::json()},
                    {"bic", c.ok ? JsonNumber(c.bic) : nlohmann::json()},
-                   {"params", c.num_params},
+                   {"num_params", c.num_params},
                    {"error", c.error}});
   }
   j["steps"]["variance"] = {{"candidates", var}, {"decision", rep.variance_decision}};
@@ -79,15 +129,18 @@ nlohmann::json IdentificationJson(const IdentificationReport& rep) {
   return j;
 }
 
-std::string IdentificationText(const IdentificationReport& rep, const std::string& title) {
+std::string IdentificationText(const IdentificationReport& rep, const std::string& title,
+                               double periods_per_year) {
   const bool aic = rep.options.criterion == InfoCriterion::kAic;
   std::string out;
+  absl::StrAppend(&out, "Chosen: ", rep.final_fit.params.spec.Label(), "\n  ",
+                  FitVerdict(rep.final_fit.params, periods_per_year), "\n\n");
   absl::StrAppend(&out, "Automatic identification", title.empty() ? "" : " of ", title, " (",
                   rep.nobs, " observations, criterion ", aic ? "AIC" : "BIC", ", level ",
                   rep.options.level, ")\n\n");
   absl::StrAppend(&out, "1. Mean order\n");
-  absl::StrAppend(&out, absl::StrFormat("    %-10s %14s %12s %12s\n", "ARMA", "loglik", "AIC",
-                                        "BIC"));
+  absl::StrAppend(&out,
+                  absl::StrFormat("    %-10s %14s %12s %12s\n", "ARMA", "log-lik", "AIC", "BIC"));
   for (const auto& c : rep.mean_candidates) {
     if (!c.status.ok()) {
       absl::StrAppend(&out, absl::StrFormat("    (%d,%d)      %s\n", c.p, c.q,
@@ -106,8 +159,8 @@ std::string IdentificationText(const IdentificationReport& rep, const std::strin
     absl::StrAppend(&out, absl::StrFormat(" %+.3f", rep.squared_residual_pacf[i]));
   }
   absl::StrAppend(&out, "\n    -> ", rep.arch_decision, "\n\n3. Variance model (mean fixed)\n");
-  absl::StrAppend(&out, absl::StrFormat("    %-34s %14s %12s %12s\n", "model", "loglik", "AIC",
-                                        "BIC"));
+  absl::StrAppend(&out,
+                  absl::StrFormat("    %-34s %14s %12s %12s\n", "model", "log-lik", "AIC", "BIC"));
   for (const auto& c : rep.variance_candidates) {
     if (!c.ok) {
       absl::StrAppend(&out, absl::StrFormat("    %-34s %s\n", c.spec.Label(), c.error));
@@ -119,17 +172,17 @@ std::string IdentificationText(const IdentificationReport& rep, const std::strin
                                           c.eligible ? "" : "  (" + c.error + ")"));
   }
   absl::StrAppend(&out, "    -> ", rep.variance_decision, "\n\n4. Diagnostics of the two-step model\n");
-  AppendTests(&out, rep.diagnostics_two_step);
+  AppendDiagnostics(&out, rep.diagnostics_two_step);
   absl::StrAppend(&out, "\n5. Joint estimation\n    -> ", rep.joint_decision, "\n\n");
   absl::StrAppend(&out, "6. Diagnostics of the final model\n");
-  AppendTests(&out, rep.diagnostics);
+  AppendDiagnostics(&out, rep.diagnostics);
   absl::StrAppend(&out, "    -> ", rep.diagnostics_pass
                                       ? "no dependence left in z or z^2 at this level"
                                       : "some diagnostics failed (see warnings)",
                   "\n\n");
   FitResult final_fit = rep.final_fit;
   final_fit.warnings = rep.warnings;
-  absl::StrAppend(&out, FitResultText(final_fit, title));
+  absl::StrAppend(&out, FitResultText(final_fit, title, periods_per_year));
   return out;
 }
 

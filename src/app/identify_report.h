@@ -12,7 +12,13 @@
 namespace aftershock::app {
 
 nlohmann::json IdentificationJson(const IdentificationReport& rep);
-std::string IdentificationText(const IdentificationReport& rep, const std::string& title);
+
+// Residual diagnostics as text, grouped by the question each answers: dynamics
+// left in the mean, volatility clustering left, asymmetry left, tails.
+std::string DiagnosticsText(const std::vector<TestOutcome>& tests);
+// `periods_per_year` annualizes the final model's verdict (FitVerdict).
+std::string IdentificationText(const IdentificationReport& rep, const std::string& title,
+                               double periods_per_year = 252);
 
 }  // namespace aftershock::app
 

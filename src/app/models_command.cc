@@ -133,15 +133,16 @@ nlohmann::json ModelJson(const StoredModel& m) {
   j["fitted_bar"] = m.scheduled_bar >= 0 ? nlohmann::json(m.scheduled_bar) : nlohmann::json();
   j["applied_bar"] = m.applied_bar >= 0 ? nlohmann::json(m.applied_bar) : nlohmann::json();
   j["t_ns"] = m.t_ns != 0 ? nlohmann::json(m.t_ns) : nlohmann::json();
-  j["loglik"] = Num(m.loglik);
+  j["log_likelihood"] = Num(m.loglik);
   nlohmann::json params = nlohmann::json::array();
   const std::vector<std::string> names = m.params.spec.ParamNames();
   for (size_t i = 0; i < names.size(); ++i) {
-    params.push_back({{"name", names[i]},
-                      {"value", Num(m.params.values[i])},
-                      {"se", i < m.std_errors.size() ? Num(m.std_errors[i]) : nlohmann::json()}});
+    params.push_back(
+        {{"name", names[i]},
+         {"value", Num(m.params.values[i])},
+         {"se_hessian", i < m.std_errors.size() ? Num(m.std_errors[i]) : nlohmann::json()}});
   }
-  j["params"] = std::move(params);
+  j["estimates"] = std::move(params);
   return j;
 }
 

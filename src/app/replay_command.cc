@@ -5,6 +5,7 @@
 #include <algorithm>
 #include <chrono>
 #include <cstdio>
+#include <filesystem>
 #include <string>
 
 #include "absl/strings/str_cat.h"
@@ -66,16 +67,22 @@ int ReplayCommand(int argc, char** argv) {
       "usual ([model.params] or the warm-up). With --resume the checkpoint wins and the file\n"
       "is not read.\n\n"
       "--report writes a self-contained HTML evaluation (forecast losses, VaR backtests,\n"
-      "alerts, parameter history, charts); --summary-json the same statistics as JSON.\n\n"
+      "alerts, parameter history, charts); --summary-json the same statistics as JSON;\n"
+      "--exceptions every VaR exception as CSV. Without --output the updates are not written.\n\n"
       "Example:\n  aftershock replay --config config/default.toml --input ticks.csv "
       "--output updates.jsonl --report report.html");
   args.AddOption("config", "FILE", "engine configuration (TOML)", "", true);
   args.AddOption("input", "FILE", "tick CSV to replay", "", true);
-  args.AddOption("output", "FILE", "JSON Lines output ('-' = standard output)", "", true);
+  args.AddOption("output", "FILE",
+                 "JSON Lines output of the updates ('-' = standard output); may be left out "
+                 "when another output (--report, --summary-json, --exceptions, --models, "
+                 "--alerts, --checkpoint) is asked for");
   args.AddOption("alerts", "FILE", "write alerts as JSON Lines");
   args.AddOption("models", "FILE", "write model records (refit outcomes, swaps) as JSON Lines");
   args.AddOption("report", "FILE", "write the HTML evaluation report");
   args.AddOption("summary-json", "FILE", "write the evaluation statistics as JSON");
+  args.AddOption("exceptions", "FILE",
+                 "write every VaR exception (symbol, time, bar, return, limit, level) as CSV");
   args.AddOption("title", "TEXT", "report title", "Replay evaluation");
   args.AddOption("workers", "N", "refit worker threads (overrides [refit] workers)");
   args.AddOption("time-unit", "UNIT",
@@ -116,12 +123,26 @@ int ReplayCommand(int argc, char** argv) {
                  absl::StrJoin((*reader)->ignored_columns(), ", ").c_str(),
                  args.Get("input").c_str());
   }
-  auto sink = JsonLinesSink::Open(args.Get("output"));
+  if (!args.Has("output")) {
+    bool other = false;
+    for (const char* o :
+         {"report", "summary-json", "exceptions", "models", "alerts", "checkpoint"}) {
+      other = other || args.Has(o);
+    }
+    if (!other) {
+      return Fail(absl::InvalidArgumentError(
+                      "give --output for the updates, or at least one of --report, "
+                      "--summary-json, --exceptions, --models, --alerts, --checkpoint"),
+                  2);
+    }
+  }
+  // Without --output the updates are computed and dropped.
+  auto sink = JsonLinesSink::Open(args.Has("output") ? args.Get("output") : "/dev/null");
   if (!sink.ok()) return Fail(sink.status(), 2);
   ManualClock clock;
   auto core = IngestCore::Create(*config, sink->get(), &clock);
   if (!core.ok()) return Fail(core.status(), 2);
-  const bool evaluate = args.Has("report") || args.Has("summary-json");
+  const bool evaluate = args.Has("report") || args.Has("summary-json") || args.Has("exceptions");
   ReplayRecorder recorder(*config, evaluate);
   if (evaluate) (*core)->AddObserver(&recorder);
   if (args.Has("models")) {
@@ -179,9 +200,21 @@ int ReplayCommand(int argc, char** argv) {
   }
 
   const bool quiet = args.Flag("quiet");
-  const bool progress = !quiet && isatty(STDERR_FILENO);
+  // Progress: redrawn in place on a terminal (every 0.2 s), a line every 5 s
+  // when standard error is a pipe or a file, with the share of the input read
+  // and the time left at the rate so far when the input's size is known.
+  const bool tty = isatty(STDERR_FILENO);
+  const bool progress = !quiet;
+  const auto progress_every = std::chrono::milliseconds(tty ? 200 : 5000);
+  int64_t input_bytes = 0;
+  {
+    std::error_code ec;
+    const auto size = std::filesystem::file_size(args.Get("input"), ec);
+    if (!ec && size > 0) input_bytes = static_cast<int64_t>(size);
+  }
   const auto start = std::chrono::steady_clock::now();
   auto last_progress = start;
+  bool progress_shown = false;
   const int64_t interval = config->bars.interval_ns;
   const int64_t sweep = std::clamp<int64_t>(config->bars.grace_ns / 2, 1000000, 100000000);
   Tick tick;
@@ -200,19 +233,31 @@ int ReplayCommand(int argc, char** argv) {
       }
     }
     (*core)->OnTick(tick);
-    if (progress && (++n & 0xFFFF) == 0) {
+    if (progress && (++n & 0x3FFF) == 0) {
       const auto now = std::chrono::steady_clock::now();
-      if (now - last_progress > std::chrono::milliseconds(200)) {
+      if (now - last_progress > progress_every) {
         last_progress = now;
         const double s = std::chrono::duration<double>(now - start).count();
         const auto& c = (*core)->counters();
-        std::fprintf(stderr, "\rreplay: line %lld, %llu bars, %.1f s, %.0f bars/s   ",
+        std::string share;
+        if (input_bytes > 0) {
+          const double f =
+              std::min(1.0, static_cast<double>((*reader)->bytes_read()) / input_bytes);
+          share = absl::StrFormat("%.0f %% of the input, ", 100 * f);
+          if (f > 0) {
+            absl::StrAppend(&share, absl::StrFormat("about %.0f s left, ", s * (1 - f) / f));
+          }
+        }
+        std::fprintf(stderr, "%sreplay: %sline %lld, %llu bars, %.1f s, %.0f bars/s%s",
+                     tty ? "\r" : "", share.c_str(),
                      static_cast<long long>((*reader)->line_number()),
-                     static_cast<unsigned long long>(c.bars), s, c.bars / std::max(s, 1e-9));
+                     static_cast<unsigned long long>(c.bars), s, c.bars / std::max(s, 1e-9),
+                     tty ? "   " : "\n");
+        progress_shown = true;
       }
     }
   }
-  if (progress) std::fputs("\r\033[K", stderr);
+  if (progress_shown && tty) std::fputs("\r\033[K", stderr);
   const absl::Status read_status = (*reader)->status();
   if (!read_status.ok()) return Fail(read_status, 2);
   if (args.Has("checkpoint")) {
@@ -243,6 +288,8 @@ int ReplayCommand(int argc, char** argv) {
       j["input"] = args.Get("input");
       j["bars"] = (*core)->counters().bars;
       j["seconds"] = seconds;
+      j["bar_interval"] = config->bars.interval_ns == 0 ? std::string("0s (one bar per tick)")
+                                                        : FormatDuration(config->bars.interval_ns);
       FILE* f = std::fopen(args.Get("summary-json").c_str(), "w");
       if (f == nullptr) {
         return Fail(absl::NotFoundError("cannot create '" + args.Get("summary-json") + "'"), 1);
@@ -253,10 +300,18 @@ int ReplayCommand(int argc, char** argv) {
         return Fail(absl::InternalError("cannot write '" + args.Get("summary-json") + "'"), 1);
       }
     }
+    if (args.Has("exceptions")) {
+      if (absl::Status s = recorder.WriteExceptionsCsv(args.Get("exceptions"), EvaluationOptions{});
+          !s.ok()) {
+        return Fail(s, 1);
+      }
+    }
     if (args.Has("report")) {
       ReportRunInfo run;
       run.title = args.Get("title");
       run.input_file = args.Get("input");
+      run.bar_interval = config->bars.interval_ns == 0 ? std::string("0s (one bar per tick)")
+                                                       : FormatDuration(config->bars.interval_ns);
       run.config_summary = FormatEngineConfig(*config);
       run.generated_at = absl::FormatTime("%Y-%m-%d %H:%M UTC", absl::Now(), absl::UTCTimeZone());
       run.engine_version = "aftershock 0.1.0";

@@ -1,8 +1,13 @@
 #include "app/replay_recorder.h"
 
+#include <cerrno>
 #include <cmath>
+#include <cstdio>
+#include <cstring>
 #include <limits>
 
+#include "absl/strings/str_cat.h"
+#include "absl/strings/str_format.h"
 #include "app/fit_report.h"
 
 namespace aftershock::app {
@@ -120,6 +125,25 @@ nlohmann::json LossJson(const ForecastLoss& l) {
 
 }  // namespace
 
+absl::Status ReplayRecorder::WriteExceptionsCsv(const std::string& path,
+                                                const EvaluationOptions& options) const {
+  std::string text = "symbol,time,bar,return,limit,level\n";
+  for (const SymbolHistory& h : histories_) {
+    auto ev = EvaluateSymbol(h, options);
+    if (!ev.ok()) continue;  // the summary and the report name the failure
+    absl::StrAppend(&text, VarExceptionsCsv(h, *ev, /*header=*/false));
+  }
+  std::FILE* f = std::fopen(path.c_str(), "w");
+  if (f == nullptr) {
+    return absl::NotFoundError(absl::StrCat("cannot create '", path, "': ", std::strerror(errno)));
+  }
+  const bool ok = std::fwrite(text.data(), 1, text.size(), f) == text.size();
+  if (std::fclose(f) != 0 || !ok) {
+    return absl::InternalError(absl::StrCat("cannot write '", path, "'"));
+  }
+  return absl::OkStatus();
+}
+
 nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) const {
   nlohmann::json out;
   nlohmann::json symbols = nlohmann::json::array();
@@ -174,6 +198,35 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
                                     {"last_version", ev->swaps.last_version}}},
                         {"warnings", ev->warnings}};
     if (ev->vs_rv) s["vs_rv"] = LossJson(*ev->vs_rv);
+    // The risk view of the report's overview: limits in force for the next
+    // bar, the variance forecast, the regime and the model at the end.
+    nlohmann::json next = nlohmann::json::object();
+    for (size_t k = 0; k < h.risk_levels.size(); ++k) {
+      const bool have = k < h.var_risk_next.size() && !h.var_risk_next[k].empty() &&
+                        k < h.es_next.size() && !h.es_next[k].empty();
+      next[absl::StrFormat("%g", h.risk_levels[k])] = {
+          {"value_at_risk", have ? JsonNumber(h.var_risk_next[k].back()) : nlohmann::json()},
+          {"es", have ? JsonNumber(h.es_next[k].back()) : nlohmann::json()}};
+    }
+    s["next_bar"] = next;
+    s["var_next"] = h.var_next.empty() ? nlohmann::json() : JsonNumber(h.var_next.back());
+    std::string regime = "none";
+    if (!h.regimes.empty() && !h.t_ns.empty() && h.regimes.back().end_ns >= h.t_ns.back()) {
+      regime = h.regimes.back().direction > 0 ? "high" : "low";
+    }
+    s["regime_at_end"] = regime;
+    std::string model = "no fitted model";
+    for (auto it = h.swaps.rbegin(); it != h.swaps.rend(); ++it) {
+      if (it->accepted) {
+        model = it->model;
+        break;
+      }
+    }
+    s["model_at_end"] = model;
+    if (!h.t_ns.empty()) {
+      s["first_bar_ns"] = h.t_ns.front();
+      s["last_bar_ns"] = h.t_ns.back();
+    }
     symbols.push_back(std::move(s));
   }
   out["symbols"] = std::move(symbols);

@@ -45,6 +45,9 @@ class ReplayRecorder : public BarObserver, public ServiceListener {
   // Per-symbol evaluations (order of first appearance) and the overall line.
   nlohmann::json SummaryJson(const EvaluationOptions& options) const;
   absl::Status WriteReport(const std::string& path, const ReportRunInfo& run) const;
+  // Every VaR exception of every symbol (VarExceptionsCsv) to `path`;
+  // NotFound/Internal naming the path when it cannot be written.
+  absl::Status WriteExceptionsCsv(const std::string& path, const EvaluationOptions& options) const;
 
  private:
   const EngineConfig config_;

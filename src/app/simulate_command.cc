@@ -23,6 +23,7 @@
 #include "aftershock/engine_config.h"
 #include "aftershock/jetstream_publisher.h"
 #include "aftershock/market_sim.h"
+#include "aftershock/renames.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/wire.h"
 #include "app/args.h"
@@ -123,11 +124,13 @@ absl::Status LoadUniverseFile(const std::string& path, std::vector<InstrumentPro
             p.family = VarianceKind::kGarch;
           } else if (*v == "gjr") {
             p.family = VarianceKind::kGjr;
-          } else if (*v == "constant") {
+          } else if (*v == "flat") {
             p.family = VarianceKind::kConstant;
           } else {
+            const std::string hint = RenameHint(RenameKind::kValue, "simulate --model", *v);
             return absl::InvalidArgumentError(
-                where("model: expected \"garch\", \"gjr\" or \"constant\", got \"" + *v + "\""));
+                where("model: expected \"garch\", \"gjr\" or \"flat\", got \"" + *v + "\"" +
+                      (hint.empty() ? "" : "; " + hint)));
           }
         }
       } else if (k == "price") {
@@ -475,7 +478,8 @@ int SimulateCommand(int argc, char** argv) {
       "Simulate a synthetic market of invented instruments (the Halvard Sound desk: energy,\n"
       "metals, crops, freight, carbon and currency) and write it as a tick CSV for\n"
       "`aftershock replay`, or publish it on a ZeroMQ socket for `aftershock run`.\n\n"
-      "Each instrument follows its own GARCH(1,1)-t or GJR(1,1,1)-t model with a constant\n"
+      "Each instrument follows its own GARCH(1,1) or GJR-GARCH(1,1) model with Student-t\n"
+      "shocks and a constant\n"
       "mean; its per-bar parameters come from an annualized volatility, a persistence and\n"
       "shock loadings (`--list` shows them). Prices are the start price times the exponential\n"
       "of the cumulated log returns; bar i is stamped start + i * interval, one tick per\n"
@@ -515,7 +519,7 @@ int SimulateCommand(int argc, char** argv) {
       "  [[instrument]]\n"
       "  symbol = \"OSTRA.NRG\"      # required\n"
       "  description = \"...\"       # optional\n"
-      "  model = \"gjr\"             # garch | gjr | constant            [garch]\n"
+      "  model = \"gjr\"             # garch | gjr | flat                [garch]\n"
       "  price = 80.0              # start price                         [100]\n"
       "  vol = 0.30                # annualized volatility, fraction     [0.20]\n"
       "  drift = 0.0               # annualized log drift, fraction      [0]\n"
@@ -545,7 +549,7 @@ int SimulateCommand(int argc, char** argv) {
   args.AddOption("universe", "FILE", "TOML file of instruments (replaces the built-in universe)");
   args.AddOption("model", "KIND",
                  "variance family for every instrument: mixed (each its own) | garch | gjr | "
-                 "constant (no clustering); gjr on a symmetric profile keeps the persistence "
+                 "flat (no clustering); gjr on a symmetric profile keeps the persistence "
                  "with alpha/2 and gamma = alpha",
                  "mixed");
   args.AddOption("bars", "N", "bars per instrument", "390");
@@ -700,9 +704,10 @@ int SimulateCommand(int argc, char** argv) {
     return Fail(absl::InvalidArgumentError("--time-format must be iso or ns"), 2);
   }
   const std::string model = args.Get("model");
-  if (model != "mixed" && model != "garch" && model != "gjr" && model != "constant") {
-    return Fail(absl::InvalidArgumentError("--model must be mixed, garch, gjr or constant, got '" +
-                                           model + "'"),
+  if (model != "mixed" && model != "garch" && model != "gjr" && model != "flat") {
+    const std::string hint = RenameHint(RenameKind::kValue, "simulate --model", model);
+    return Fail(absl::InvalidArgumentError("--model must be mixed, garch, gjr or flat, got '" +
+                                           model + "'" + (hint.empty() ? "" : "; " + hint)),
                 2);
   }
 
@@ -737,7 +742,7 @@ int SimulateCommand(int argc, char** argv) {
     VarianceKind family = p.family;
     if (model == "garch") family = VarianceKind::kGarch;
     if (model == "gjr") family = VarianceKind::kGjr;
-    if (model == "constant") family = VarianceKind::kConstant;
+    if (model == "flat") family = VarianceKind::kConstant;
     InstrumentProfile q = p;
     if (family == VarianceKind::kGjr && q.gamma == 0 && p.family != VarianceKind::kGjr) {
       // A symmetric profile forced to GJR: move half of alpha into the asymmetry.

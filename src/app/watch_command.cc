@@ -6,10 +6,12 @@
 #include <chrono>
 #include <cmath>
 #include <cstdio>
+#include <nlohmann/json.hpp>
 #include <string>
 #include <vector>
 #include <zmq.hpp>
 
+#include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_split.h"
 #include "aftershock/update_codec.h"
@@ -42,14 +44,16 @@ int WatchCommand(int argc, char** argv) {
       "Show the engine's per-bar updates live: subscribe to the `u.<symbol>` topics of a\n"
       "publisher (`aftershock run` binds tcp://127.0.0.1:7302 by default) and display, per\n"
       "symbol, the bar time, last return, standardized shock z, annualized volatility,\n"
-      "next-bar volatility sqrt(var_next), sizing scale, model version and flags. JSON and\n"
-      "binary bodies are recognized automatically.\n\n"
+      "next-bar volatility sqrt(var_next), next-bar VaR and ES at the first risk level,\n"
+      "sizing scale, model version, volatility regime and flags. JSON and binary bodies are\n"
+      "recognized automatically. The regime comes from the `a.<symbol>` regime alerts\n"
+      "(high / low until the regime's end is announced; '-' for none seen).\n\n"
       "On a terminal the table is redrawn in place (at most every --refresh-ms, rows sorted\n"
       "by symbol; |z| >= --z-alert is shown inverted (SGR 7) and marked '!'). When standard\n"
       "output is not a terminal (a pipe or file), or with --mode lines, it prints one line\n"
       "per update instead:\n"
       "  2026-03-02T09:31:00Z BRANDR.NRG r=-0.000412 z=-0.54 vol_ann=0.3012 "
-      "vol_next=0.000961 scale=0.332 ver=2 flags=-\n"
+      "vol_next=0.000961 var99=0.00231 es99=0.00265 scale=0.332 ver=2 flags=-\n"
       "with ' !' appended when |z| >= --z-alert.\n\n"
       "--once collects updates until --count of them arrived (or --timeout passed), prints\n"
       "the table once without terminal control codes and exits. Ctrl-C exits cleanly.\n"
@@ -110,8 +114,12 @@ int WatchCommand(int argc, char** argv) {
     sock.set(zmq::sockopt::linger, 0);
     if (wo.symbols.empty()) {
       sock.set(zmq::sockopt::subscribe, "u.");
+      sock.set(zmq::sockopt::subscribe, "a.");
     } else {
-      for (const auto& s : wo.symbols) sock.set(zmq::sockopt::subscribe, "u." + s);
+      for (const auto& s : wo.symbols) {
+        sock.set(zmq::sockopt::subscribe, "u." + s);
+        sock.set(zmq::sockopt::subscribe, "a." + s);
+      }
     }
     sock.connect(args.Get("endpoint"));
   } catch (const zmq::error_t& e) {
@@ -176,6 +184,19 @@ int WatchCommand(int argc, char** argv) {
         continue;
       }
       const absl::string_view body(static_cast<const char*>(frames[1].data()), frames[1].size());
+      const absl::string_view topic(static_cast<const char*>(frames[0].data()), frames[0].size());
+      if (absl::StartsWith(topic, "a.")) {
+        // An alert: only the regime state is shown; anything unreadable is skipped.
+        const nlohmann::json a = nlohmann::json::parse(body.begin(), body.end(), nullptr,
+                                                       /*allow_exceptions=*/false);
+        if (a.is_object() && a.contains("kind") && a["kind"].is_string() && a.contains("rule") &&
+            a["rule"].is_string() &&
+            table.ApplyAlert(std::string(topic.substr(2)), a["kind"].get<std::string>(),
+                             a["rule"].get<std::string>())) {
+          dirty = dirty || (table_mode && !once);
+        }
+        continue;
+      }
       const bool binary = !body.empty() && static_cast<uint8_t>(body[0]) == kUpdateMagic;
       const absl::Status s = binary ? DecodeUpdateBinary(body, &u) : DecodeUpdateJson(body, &u);
       if (!s.ok()) {

@@ -4,8 +4,10 @@
 // and logs. Kept apart from the socket loop so the exact text is testable.
 //
 // Columns: symbol, bar time (UTC), last return r, standardized shock z,
-// annualized volatility vol_ann, next-bar volatility sqrt(var_next), sizing
-// scale, model version and the flags of the latest update ('-' when none).
+// annualized volatility vol_ann, next-bar volatility sqrt(var_next), next-bar
+// VaR and ES at the first risk level of the update (positive losses), sizing
+// scale, model version, volatility regime (from the symbol's regime alerts:
+// "high", "low" or '-') and the flags of the latest update ('-' when none).
 // Values are shown in the feed's own units (fractions or per cent).
 //
 // Thread-safety: not thread-safe; one thread owns a table.
@@ -40,6 +42,9 @@ struct WatchRow {
   uint32_t ver = 0;
   uint32_t flags = 0;
   uint64_t updates = 0;  // updates seen for the symbol
+  double level = 0;      // first risk level of the latest update; 0 = none
+  double value_at_risk = 0, es = 0;  // at `level`, next bar, positive losses
+  std::string regime = "-";          // "high", "low" or "-" (none announced)
 };
 
 class WatchTable {
@@ -49,6 +54,11 @@ class WatchTable {
   // Records an update; false (and nothing recorded) when the filter drops it.
   bool Apply(const BarUpdate& u);
 
+  // Records an alert of `symbol` (alerts.h kinds and rules): "regime" with rule
+  // "regime_high" / "regime_low" sets the regime, "regime_clear" clears it;
+  // other alerts are ignored. False when the filter drops the symbol.
+  bool ApplyAlert(const std::string& symbol, const std::string& kind, const std::string& rule);
+
   // The table, rows sorted by symbol. With ansi: starts with cursor-home,
   // clears each line's tail and everything below, and shows marked z cells in
   // inverted (SGR 7), so rewriting it refreshes the screen in place.
@@ -56,12 +66,13 @@ class WatchTable {
 
   // One plain line for an update (no newline), e.g.
   //   2026-03-02T09:31:00Z BRANDR.NRG r=-0.000412 z=-0.54 vol_ann=0.3012
-  //   vol_next=0.000961 scale=0.332 ver=2 flags=- (on one line)
+  //   vol_next=0.000961 var99=0.00231 es99=0.00265 scale=0.332 ver=2 flags=- (on one line)
+  // (VaR and ES at the update's first risk level, left out when it has none)
   // followed by " !" when |z| >= z_alert.
   std::string FormatLine(const BarUpdate& u) const;
 
   uint64_t updates() const { return updates_; }  // accepted updates
-  size_t size() const { return rows_.size(); }   // symbols shown
+  size_t size() const;                           // symbols shown (with an update)
 
  private:
   WatchTableOptions options_;

@@ -52,7 +52,12 @@ LikelihoodKernel::LikelihoodKernel(const ModelSpec& spec, std::vector<double> re
       deps_(static_cast<size_t>(n_) * nm_),
       dsig2_(static_cast<size_t>(n_) * k_),
       ds2_(nm_),
-      work_(k_) {
+      work_(k_),
+      order_(std::min(std::max(n_, 0), kRobustStartSpan)),
+      weight_(order_.size()) {
+  for (size_t j = 0; j < weight_.size(); ++j) {
+    weight_[j] = std::exp2(-static_cast<double>(j) / kRobustStartHalfLife);
+  }
   // d eps_t / d mu = -1 for the constant mean, whatever the parameters.
   if (spec_.mean == MeanKind::kConstant) std::fill(deps_.begin(), deps_.end(), -1.0);
 }
@@ -95,24 +100,53 @@ void LikelihoodKernel::MeanPass(const double* theta, bool with_grad) {
 
 void LikelihoodKernel::Presample(bool with_grad) {
   std::fill(ds2_.begin(), ds2_.end(), 0.0);
-  int m = n_;
-  double decay = 1.0;
-  if (presample_ == Presample::kBackcast) {
-    m = std::min(n_, kBackcastSpan);
-    decay = kBackcastDecay;
+  if (presample_ == Presample::kRobustStart) {
+    // Weighted median of |eps_j| over the first span residuals, weights
+    // 2^(-j / half-life): the smallest |eps| whose cumulative weight (in
+    // ascending order of |eps|) reaches half the total. The value is one
+    // residual's |eps_k|, so its derivative is sign(eps_k) d eps_k.
+    const int m = std::min(n_, kRobustStartSpan);
+    for (int k = 0; k < m; ++k) order_[k] = k;
+    std::sort(order_.begin(), order_.begin() + m, [&](int a, int b) {
+      const double fa = std::fabs(eps_[a]), fb = std::fabs(eps_[b]);
+      return fa < fb || (fa == fb && a < b);
+    });
+    double half = 0.0;
+    for (int k = 0; k < m; ++k) half += weight_[k];
+    half *= 0.5;
+    int pick = order_[m - 1];
+    double cum = 0.0;
+    for (int i = 0; i < m; ++i) {
+      cum += weight_[order_[i]];
+      if (cum >= half) {
+        pick = order_[i];
+        break;
+      }
+    }
+    const double c = kRobustStartConsistency;
+    const double e = eps_[pick];
+    s2_ = c * c * e * e;
+    // A series whose first residuals are mostly zero would start at zero
+    // variance; fall back to their mean square then.
+    if (s2_ > 0.0) {
+      if (with_grad) {
+        const double* d = &deps_[static_cast<size_t>(pick) * nm_];
+        for (int c2 = 0; c2 < nm_; ++c2) ds2_[c2] = c * c * 2.0 * e * d[c2];
+      }
+      return;
+    }
   }
-  double wsum = 0, s = 0, w = 1.0;
+  const int m = n_;
+  double s = 0;
   for (int k = 0; k < m; ++k) {
-    wsum += w;
-    s += w * eps_[k] * eps_[k];
+    s += eps_[k] * eps_[k];
     if (with_grad) {
       const double* d = &deps_[static_cast<size_t>(k) * nm_];
-      for (int c = 0; c < nm_; ++c) ds2_[c] += w * 2.0 * eps_[k] * d[c];
+      for (int c = 0; c < nm_; ++c) ds2_[c] += 2.0 * eps_[k] * d[c];
     }
-    w *= decay;
   }
-  s2_ = s / wsum;
-  for (int c = 0; c < nm_; ++c) ds2_[c] /= wsum;
+  s2_ = s / m;
+  for (int c = 0; c < nm_; ++c) ds2_[c] /= m;
 }
 
 double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, double* scores) {

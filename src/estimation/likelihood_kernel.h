@@ -35,7 +35,7 @@ class LikelihoodKernel {
 
  private:
   void MeanPass(const double* theta, bool with_grad);
-  // Fast path for a zero/constant mean with GARCH(1,1) or GJR(1,1,1): scalar
+  // Fast path for a zero/constant mean with GARCH(1,1) or GJR-GARCH(1,1): scalar
   // derivative recursions and a log of products every few terms instead of a
   // log per term. Same recursion and summation order as the general path.
   double EvaluateOrderOne(const double* theta, double* grad, double* scores);
@@ -56,6 +56,8 @@ class LikelihoodKernel {
   std::vector<double> dsig2_;  // n x k: d sigma2_t / d params
   std::vector<double> ds2_;    // nm: d s2 / d mean params
   std::vector<double> work_;   // k
+  std::vector<int> order_;     // min(n, kRobustStartSpan): sort workspace of the presample
+  std::vector<double> weight_;  // min(n, kRobustStartSpan): presample weights 2^(-j / half-life)
   double s2_ = 0;
 };
 

@@ -15,6 +15,7 @@
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
 #include "absl/types/span.h"
+#include "aftershock/renames.h"
 
 namespace aftershock {
 
@@ -249,6 +250,12 @@ class Section {
       bool ok = false;
       for (absl::string_view name : known) ok = ok || Sv(k.str()) == name;
       if (!ok) {
+        const std::string hint =
+            RenameHint(RenameKind::kConfigKey, absl::StrCat("[", name_, "]"), Sv(k.str()));
+        if (!hint.empty()) {
+          return absl::InvalidArgumentError(
+              absl::StrCat(*source_, ":", k.source().begin.line, ": [", name_, "] ", hint));
+        }
         return absl::InvalidArgumentError(
             absl::StrCat(*source_, ":", k.source().begin.line, ": [", name_, "] unknown key '",
                          std::string(k.str()), "' (known: ", absl::StrJoin(known, ", "), ")"));
@@ -346,8 +353,9 @@ class Section {
     }
     std::vector<std::string> quoted;
     for (absl::string_view w : words) quoted.push_back(absl::StrCat("\"", w, "\""));
-    return KeyError(
-        key, absl::StrCat("expected one of ", absl::StrJoin(quoted, ", "), ", got \"", s, "\""));
+    const std::string hint = RenameHint(RenameKind::kValue, key, s);
+    return KeyError(key, absl::StrCat("expected one of ", absl::StrJoin(quoted, ", "), ", got \"",
+                                      s, "\"", hint.empty() ? "" : "; ", hint));
   }
 
   absl::Status IntArray(absl::string_view key, std::vector<int>* out, size_t max_size, int64_t lo,
@@ -630,8 +638,8 @@ absl::Status ParseBars(const std::string* source, const Section& s, BarsConfig* 
 }
 
 absl::Status ParseModel(const std::string* source, const Section& s, ModelConfig* c) {
-  AS_RETURN_IF_ERROR(s.CheckKeys(
-      {"mean", "mean_order", "variance", "variance_order", "innovations", "presample", "params"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"mean", "mean_order", "variance", "shock_lags", "asym_lags",
+                                  "variance_lags", "innovations", "presample", "params"}));
   std::string mean(MeanKindName(c->spec.mean));
   std::string variance(VarianceKindName(c->spec.variance));
   std::string innovations(InnovationsName(c->spec.innovations));
@@ -645,25 +653,27 @@ absl::Status ParseModel(const std::string* source, const Section& s, ModelConfig
   if (auto k = ParseInnovations(innovations); !k.ok()) {
     return s.KeyError("innovations", k.status().message());
   }
-  std::vector<int> mean_order, variance_order;
+  std::vector<int> mean_order;
   AS_RETURN_IF_ERROR(s.IntArray("mean_order", &mean_order, 2, 0, 1000));
-  AS_RETURN_IF_ERROR(s.IntArray("variance_order", &variance_order, 3, 0, 1000));
   if (s.Has("mean_order") && mean != "arma") {
     return s.KeyError("mean_order", "only used with mean = \"arma\"");
   }
-  if (s.Has("variance_order") && (variance == "constant" || variance == "ewma")) {
-    return s.KeyError("variance_order",
-                      absl::StrCat("not used with variance = \"", variance, "\""));
-  }
-  auto spec = MakeModelSpec(mean, mean_order, variance, variance_order, innovations);
+  VarianceLags lags;
+  AS_RETURN_IF_ERROR(s.Integer("shock_lags", &lags.shock, 0, 1000));
+  AS_RETURN_IF_ERROR(s.Integer("asym_lags", &lags.asym, 0, 1000));
+  AS_RETURN_IF_ERROR(s.Integer("variance_lags", &lags.variance, 0, 1000));
+  auto spec = MakeModelSpec(mean, mean_order, variance, lags, innovations);
   if (!spec.ok()) {
     const std::string msg(spec.status().message());
-    const char* key = msg.find("ARMA") != std::string::npos ? "mean_order" : "variance_order";
+    const char* key = msg.find("ARMA") != std::string::npos            ? "mean_order"
+                      : msg.find("asym_lags") != std::string::npos     ? "asym_lags"
+                      : msg.find("variance_lags") != std::string::npos ? "variance_lags"
+                                                                       : "shock_lags";
     return s.KeyError(key, msg);
   }
   c->spec = *spec;
   int presample = static_cast<int>(c->presample);
-  AS_RETURN_IF_ERROR(s.Word("presample", {"mean-square", "backcast"}, &presample));
+  AS_RETURN_IF_ERROR(s.Word("presample", {"mean-square", "robust-start"}, &presample));
   c->presample = static_cast<Presample>(presample);
 
   if (const toml::node* n = s.Node("params"); n != nullptr && !n->is_table()) {
@@ -680,8 +690,10 @@ absl::Status ParseModel(const std::string* source, const Section& s, ModelConfig
     bool known = false;
     for (const std::string& n : names) known = known || n == key;
     if (!known) {
-      return ps.KeyError(key, absl::StrCat("not a parameter of ", c->spec.Label(), " (expected ",
-                                           absl::StrJoin(names, ", "), ")"));
+      const std::string hint = RenameHint(RenameKind::kParameter, "", key);
+      return ps.KeyError(
+          key, absl::StrCat("not a parameter of ", c->spec.Label(), " (expected ",
+                            absl::StrJoin(names, ", "), ")", hint.empty() ? "" : "; ", hint));
     }
     double value;
     if (!Section::NumberOf(v, &value)) {
@@ -1231,19 +1243,10 @@ std::string FormatEngineConfig(const EngineConfig& c) {
     absl::StrAppend(&o, "mean_order = [", m.ar_order, ", ", m.ma_order, "]\n");
   }
   absl::StrAppend(&o, "variance = ", Quote(VarianceKindName(m.variance)), "\n");
-  switch (m.variance) {
-    case VarianceKind::kArch:
-      absl::StrAppend(&o, "variance_order = [", m.arch_order, "]\n");
-      break;
-    case VarianceKind::kGarch:
-      absl::StrAppend(&o, "variance_order = [", m.arch_order, ", ", m.garch_order, "]\n");
-      break;
-    case VarianceKind::kGjr:
-      absl::StrAppend(&o, "variance_order = [", m.arch_order, ", ", m.asym_order, ", ",
-                      m.garch_order, "]\n");
-      break;
-    default:
-      break;
+  if (m.arch_order > 0) absl::StrAppend(&o, "shock_lags = ", m.arch_order, "\n");
+  if (m.variance == VarianceKind::kGjr) absl::StrAppend(&o, "asym_lags = ", m.asym_order, "\n");
+  if (m.variance == VarianceKind::kGarch || m.variance == VarianceKind::kGjr) {
+    absl::StrAppend(&o, "variance_lags = ", m.garch_order, "\n");
   }
   absl::StrAppend(&o, "innovations = ", Quote(InnovationsName(m.innovations)),
                   "\npresample = ", Quote(PresampleName(c.model.presample)), "\n");

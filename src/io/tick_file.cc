@@ -297,6 +297,7 @@ absl::StatusOr<std::unique_ptr<TickFileReader>> TickFileReader::FromString(
 bool TickFileReader::ReadLine(std::string* line) {
   while (std::getline(*in_, *line)) {
     ++line_number_;
+    bytes_read_ += static_cast<int64_t>(line->size()) + 1;  // the '\n' getline dropped
     if (!line->empty() && line->back() == '\r') line->pop_back();
     const absl::string_view t = absl::StripAsciiWhitespace(*line);
     if (t.empty() || t[0] == '#') continue;

@@ -7,6 +7,7 @@
 #include <nlohmann/json.hpp>
 
 #include "absl/strings/str_cat.h"
+#include "aftershock/renames.h"
 #include "aftershock/wire.h"
 
 namespace aftershock {
@@ -54,7 +55,7 @@ absl::Status CheckUpdate(const BarUpdate& u) {
   for (int i = 0; i < u.n_levels; ++i) {
     if (!std::isfinite(u.levels[i]) || !std::isfinite(u.var_risk[i]) || !std::isfinite(u.es[i])) {
       return absl::InvalidArgumentError(absl::StrCat(
-          "update for ", u.symbol.view(), ": level, var_risk or es [", i, "] is not finite"));
+          "update for ", u.symbol.view(), ": level, value_at_risk or es [", i, "] is not finite"));
     }
   }
   return absl::OkStatus();
@@ -144,7 +145,7 @@ absl::Status EncodeUpdateJson(const BarUpdate& u, std::string* out) {
   }
   out->push_back('}');
   for (int which = 0; which < 2; ++which) {
-    Key(out, which == 0 ? "var_risk" : "es");
+    Key(out, which == 0 ? "value_at_risk" : "es");
     out->push_back('{');
     const double* values = which == 0 ? u.var_risk : u.es;
     for (int i = 0; i < u.n_levels; ++i) {
@@ -180,15 +181,18 @@ absl::Status DecodeUpdateJson(absl::string_view text, BarUpdate* u) {
   try {
     const json j = json::parse(text.begin(), text.end());
     if (!j.is_object()) return absl::InvalidArgumentError("update JSON: not an object");
-    static const char* const kKeys[] = {"s",        "t",  "r",        "mu",      "eps",
-                                        "var",      "z",  "var_next", "vol_ann", "var_h",
-                                        "var_risk", "es", "scale",    "ver",     "flags"};
+    static const char* const kKeys[] = {
+        "s",     "t",        "r",       "mu",    "eps",           "var",
+        "z",     "var_next", "vol_ann", "var_h", "value_at_risk", "es",
+        "scale", "ver",      "flags"};
     for (auto it = j.begin(); it != j.end(); ++it) {
       bool known = false;
       for (const char* k : kKeys) known = known || it.key() == k;
-      if (!known)
-        return absl::InvalidArgumentError(
-            absl::StrCat("update JSON: unknown key '", it.key(), "'"));
+      if (!known) {
+        const std::string hint = RenameHint(RenameKind::kJsonKey, "update", it.key());
+        return absl::InvalidArgumentError(absl::StrCat("update JSON: unknown key '", it.key(), "'",
+                                                       hint.empty() ? "" : ": ", hint));
+      }
     }
     for (const char* k : kKeys) {
       if (!j.contains(k))
@@ -223,11 +227,12 @@ absl::Status DecodeUpdateJson(absl::string_view text, BarUpdate* u) {
       v.horizons[pos] = h;
       v.var_h[pos] = it.value().get<double>();
     }
-    const json& vr = j.at("var_risk");
+    const json& vr = j.at("value_at_risk");
     const json& es = j.at("es");
     if (!vr.is_object() || !es.is_object() || vr.size() != es.size() ||
         vr.size() > static_cast<size_t>(kMaxRiskLevels)) {
-      return absl::InvalidArgumentError("update JSON: var_risk and es must be matching objects");
+      return absl::InvalidArgumentError(
+          "update JSON: value_at_risk and es must be matching objects");
     }
     for (auto it = vr.begin(); it != vr.end(); ++it) {
       const std::string& key = it.key();

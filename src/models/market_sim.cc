@@ -114,9 +114,8 @@ absl::StatusOr<ModelParams> InstrumentModel(const InstrumentProfile& p, Variance
   const double mu = p.drift_ann / periods_per_year;
   std::vector<std::pair<std::string, double>> named = {{"mu", mu}};
   const char* variance = nullptr;
-  std::vector<int> order;
   if (family == VarianceKind::kConstant) {
-    variance = "constant";
+    variance = "flat";
     named.push_back({"omega", uvar});
   } else if (family == VarianceKind::kGarch || family == VarianceKind::kGjr) {
     const bool gjr = family == VarianceKind::kGjr;
@@ -134,14 +133,14 @@ absl::StatusOr<ModelParams> InstrumentModel(const InstrumentProfile& p, Variance
     }
     variance = gjr ? "gjr" : "garch";
     named.push_back({"omega", uvar * (1.0 - p.persistence)});
-    named.push_back({"alpha1", p.alpha});
-    if (gjr) named.push_back({"gamma1", p.gamma});
-    named.push_back({"beta1", beta});
+    named.push_back({"alpha_1", p.alpha});
+    if (gjr) named.push_back({"gamma_1", p.gamma});
+    named.push_back({"beta_1", beta});
   } else {
-    return InstrumentError(p.symbol, "model family must be garch, gjr or constant");
+    return InstrumentError(p.symbol, "model family must be garch, gjr or flat");
   }
   named.push_back({"nu", p.nu});
-  auto spec = MakeModelSpec("constant", {}, variance, order, "t");
+  auto spec = MakeModelSpec("constant", {}, variance, {}, "student");
   if (!spec.ok()) return spec.status();
   auto params = ModelParams::FromNamed(*spec, named);
   if (!params.ok()) return params.status();

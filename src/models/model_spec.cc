@@ -2,6 +2,7 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
+#include "aftershock/renames.h"
 
 namespace aftershock {
 
@@ -38,16 +39,16 @@ int ModelSpec::NumDistParams() const { return innovations == Innovations::kStude
 std::vector<std::string> ModelSpec::ParamNames() const {
   std::vector<std::string> names;
   if (mean != MeanKind::kZero) names.push_back("mu");
-  for (int i = 1; i <= ar_order; ++i) names.push_back(absl::StrCat("ar", i));
-  for (int i = 1; i <= ma_order; ++i) names.push_back(absl::StrCat("ma", i));
+  for (int i = 1; i <= ar_order; ++i) names.push_back(absl::StrCat("ar_", i));
+  for (int i = 1; i <= ma_order; ++i) names.push_back(absl::StrCat("ma_", i));
   if (variance == VarianceKind::kEwma) {
     names.push_back("lambda");
   } else {
     names.push_back("omega");
     if (variance != VarianceKind::kConstant) {
-      for (int i = 1; i <= arch_order; ++i) names.push_back(absl::StrCat("alpha", i));
-      for (int i = 1; i <= asym_order; ++i) names.push_back(absl::StrCat("gamma", i));
-      for (int i = 1; i <= garch_order; ++i) names.push_back(absl::StrCat("beta", i));
+      for (int i = 1; i <= arch_order; ++i) names.push_back(absl::StrCat("alpha_", i));
+      for (int i = 1; i <= asym_order; ++i) names.push_back(absl::StrCat("gamma_", i));
+      for (int i = 1; i <= garch_order; ++i) names.push_back(absl::StrCat("beta_", i));
     }
   }
   if (innovations == Innovations::kStudentT) names.push_back("nu");
@@ -58,10 +59,10 @@ std::string ModelSpec::Label() const {
   std::string out;
   switch (mean) {
     case MeanKind::kZero:
-      out = "zero-mean";
+      out = "zero";
       break;
     case MeanKind::kConstant:
-      out = "constant-mean";
+      out = "const";
       break;
     case MeanKind::kArma:
       out = absl::StrCat("ARMA(", ar_order, ",", ma_order, ")");
@@ -69,22 +70,26 @@ std::string ModelSpec::Label() const {
   }
   switch (variance) {
     case VarianceKind::kConstant:
-      absl::StrAppend(&out, "-constant-variance");
+      absl::StrAppend(&out, "/flat");
       break;
     case VarianceKind::kArch:
-      absl::StrAppend(&out, "-ARCH(", arch_order, ")");
+      absl::StrAppend(&out, "/ARCH(", arch_order, ")");
       break;
     case VarianceKind::kGarch:
-      absl::StrAppend(&out, "-GARCH(", arch_order, ",", garch_order, ")");
+      absl::StrAppend(&out, "/GARCH(", arch_order, ",", garch_order, ")");
       break;
     case VarianceKind::kGjr:
-      absl::StrAppend(&out, "-GJR(", arch_order, ",", asym_order, ",", garch_order, ")");
+      // The GJR-GARCH(p,q) of the literature pairs every shock lag with an
+      // asymmetric term; other asym counts follow a semicolon.
+      absl::StrAppend(&out, "/GJR-GARCH(", arch_order, ",", garch_order);
+      if (asym_order != arch_order) absl::StrAppend(&out, ";", asym_order);
+      absl::StrAppend(&out, ")");
       break;
     case VarianceKind::kEwma:
-      absl::StrAppend(&out, "-EWMA");
+      absl::StrAppend(&out, "/EWMA");
       break;
   }
-  absl::StrAppend(&out, innovations == Innovations::kStudentT ? "-t" : "-normal");
+  absl::StrAppend(&out, "/", InnovationsName(innovations));
   return out;
 }
 
@@ -102,28 +107,31 @@ absl::Status ModelSpec::Validate() const {
     case VarianceKind::kEwma:
       if (arch_order != 0 || asym_order != 0 || garch_order != 0) {
         return absl::InvalidArgumentError(
-            absl::StrCat("variance '", VarianceKindName(variance), "' takes no order"));
+            absl::StrCat("variance '", VarianceKindName(variance), "' takes no lags"));
       }
       break;
     case VarianceKind::kArch:
       if (arch_order < 1 || arch_order > kMaxArchOrder || asym_order != 0 || garch_order != 0) {
         return absl::InvalidArgumentError(
-            absl::StrCat("ARCH order must be in 1..", kMaxArchOrder, ", got ", arch_order));
+            absl::StrCat("ARCH shock_lags must be in 1..", kMaxArchOrder, ", got ", arch_order));
       }
       break;
     case VarianceKind::kGarch:
     case VarianceKind::kGjr:
-      if (arch_order < 1 || arch_order > kMaxGarchOrder || garch_order < 0 ||
-          garch_order > kMaxGarchOrder) {
-        return absl::InvalidArgumentError(absl::StrCat(
-            "GARCH orders must be p in 1..", kMaxGarchOrder, " and q in 0..", kMaxGarchOrder));
+      if (arch_order < 1 || arch_order > kMaxGarchOrder) {
+        return absl::InvalidArgumentError(
+            absl::StrCat("GARCH shock_lags must be in 1..", kMaxGarchOrder, ", got ", arch_order));
+      }
+      if (garch_order < 0 || garch_order > kMaxGarchOrder) {
+        return absl::InvalidArgumentError(absl::StrCat("GARCH variance_lags must be in 0..",
+                                                       kMaxGarchOrder, ", got ", garch_order));
       }
       if (variance == VarianceKind::kGarch && asym_order != 0) {
-        return absl::InvalidArgumentError("asymmetric terms need variance 'gjr'");
+        return absl::InvalidArgumentError("asymmetric terms (asym_lags) need variance 'gjr'");
       }
       if (variance == VarianceKind::kGjr && (asym_order < 1 || asym_order > kMaxGarchOrder)) {
         return absl::InvalidArgumentError(
-            absl::StrCat("GJR asymmetric order must be in 1..", kMaxGarchOrder));
+            absl::StrCat("GJR-GARCH asym_lags must be in 1..", kMaxGarchOrder));
       }
       break;
   }
@@ -151,7 +159,7 @@ absl::string_view MeanKindName(MeanKind k) {
 absl::string_view VarianceKindName(VarianceKind k) {
   switch (k) {
     case VarianceKind::kConstant:
-      return "constant";
+      return "flat";
     case VarianceKind::kArch:
       return "arch";
     case VarianceKind::kGarch:
@@ -165,12 +173,22 @@ absl::string_view VarianceKindName(VarianceKind k) {
 }
 
 absl::string_view InnovationsName(Innovations k) {
-  return k == Innovations::kStudentT ? "t" : "normal";
+  return k == Innovations::kStudentT ? "student" : "gaussian";
 }
 
 absl::string_view PresampleName(Presample p) {
-  return p == Presample::kBackcast ? "backcast" : "mean-square";
+  return p == Presample::kRobustStart ? "robust-start" : "mean-square";
 }
+
+namespace {
+
+// " ('x' was renamed: use y ...)" for a retired word, else "".
+std::string ValueHint(absl::string_view what, absl::string_view s) {
+  const std::string hint = RenameHint(RenameKind::kValue, what, s);
+  return hint.empty() ? "" : absl::StrCat("; ", hint);
+}
+
+}  // namespace
 
 absl::StatusOr<MeanKind> ParseMeanKind(absl::string_view s) {
   if (s == "zero") return MeanKind::kZero;
@@ -181,32 +199,33 @@ absl::StatusOr<MeanKind> ParseMeanKind(absl::string_view s) {
 }
 
 absl::StatusOr<VarianceKind> ParseVarianceKind(absl::string_view s) {
-  if (s == "constant") return VarianceKind::kConstant;
+  if (s == "flat") return VarianceKind::kConstant;
   if (s == "arch") return VarianceKind::kArch;
   if (s == "garch") return VarianceKind::kGarch;
   if (s == "gjr") return VarianceKind::kGjr;
   if (s == "ewma") return VarianceKind::kEwma;
-  return absl::InvalidArgumentError(
-      absl::StrCat("unknown variance '", s, "' (expected constant, arch, garch, gjr or ewma)"));
+  return absl::InvalidArgumentError(absl::StrCat("unknown variance '", s,
+                                                 "' (expected flat, arch, garch, gjr or ewma)",
+                                                 ValueHint("variance", s)));
 }
 
 absl::StatusOr<Innovations> ParseInnovations(absl::string_view s) {
-  if (s == "normal") return Innovations::kNormal;
-  if (s == "t") return Innovations::kStudentT;
-  return absl::InvalidArgumentError(
-      absl::StrCat("unknown innovations '", s, "' (expected normal or t)"));
+  if (s == "gaussian") return Innovations::kNormal;
+  if (s == "student") return Innovations::kStudentT;
+  return absl::InvalidArgumentError(absl::StrCat(
+      "unknown innovations '", s, "' (expected gaussian or student)", ValueHint("innovations", s)));
 }
 
 absl::StatusOr<Presample> ParsePresample(absl::string_view s) {
   if (s == "mean-square") return Presample::kMeanSquare;
-  if (s == "backcast") return Presample::kBackcast;
-  return absl::InvalidArgumentError(
-      absl::StrCat("unknown presample rule '", s, "' (expected mean-square or backcast)"));
+  if (s == "robust-start") return Presample::kRobustStart;
+  return absl::InvalidArgumentError(absl::StrCat("unknown presample rule '", s,
+                                                 "' (expected mean-square or robust-start)",
+                                                 ValueHint("presample", s)));
 }
 
 absl::StatusOr<ModelSpec> MakeModelSpec(absl::string_view mean, const std::vector<int>& mean_order,
-                                        absl::string_view variance,
-                                        const std::vector<int>& variance_order,
+                                        absl::string_view variance, const VarianceLags& lags,
                                         absl::string_view innovations) {
   ModelSpec spec;
   auto m = ParseMeanKind(mean);
@@ -232,54 +251,23 @@ absl::StatusOr<ModelSpec> MakeModelSpec(absl::string_view mean, const std::vecto
     return absl::InvalidArgumentError(
         absl::StrCat("mean '", mean, "' takes no order; use --mean arma for ARMA(P,Q)"));
   }
-  spec.arch_order = spec.asym_order = spec.garch_order = 0;
-  const auto need = [&](size_t n, const char* what) -> absl::Status {
-    if (variance_order.size() != n) {
-      return absl::InvalidArgumentError(
-          absl::StrCat("variance order for '", variance, "' must be ", what, ", got ",
-                       variance_order.size(), " number(s)"));
-    }
-    return absl::OkStatus();
+  const auto unused = [&](const char* lag) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("variance '", variance, "' has no ", lag, " (", lag, " is for ",
+                     std::string(lag) == "asym_lags" ? "gjr" : "garch and gjr", ")"));
   };
-  switch (spec.variance) {
-    case VarianceKind::kConstant:
-    case VarianceKind::kEwma:
-      if (!variance_order.empty()) {
-        return absl::InvalidArgumentError(
-            absl::StrCat("variance '", variance, "' takes no order"));
-      }
-      break;
-    case VarianceKind::kArch:
-      if (variance_order.empty()) {
-        spec.arch_order = 1;
-      } else if (auto s = need(1, "one number M"); !s.ok()) {
-        return s;
-      } else {
-        spec.arch_order = variance_order[0];
-      }
-      break;
-    case VarianceKind::kGarch:
-      if (variance_order.empty()) {
-        spec.arch_order = spec.garch_order = 1;
-      } else if (auto s = need(2, "two numbers P,Q"); !s.ok()) {
-        return s;
-      } else {
-        spec.arch_order = variance_order[0];
-        spec.garch_order = variance_order[1];
-      }
-      break;
-    case VarianceKind::kGjr:
-      if (variance_order.empty()) {
-        spec.arch_order = spec.asym_order = spec.garch_order = 1;
-      } else if (auto s = need(3, "three numbers P,O,Q"); !s.ok()) {
-        return s;
-      } else {
-        spec.arch_order = variance_order[0];
-        spec.asym_order = variance_order[1];
-        spec.garch_order = variance_order[2];
-      }
-      break;
+  const bool has_asym = spec.variance == VarianceKind::kGjr;
+  const bool has_beta = spec.variance == VarianceKind::kGarch || has_asym;
+  const bool has_alpha = spec.variance == VarianceKind::kArch || has_beta;
+  if (lags.shock >= 0 && !has_alpha) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("variance '", variance, "' has no shock_lags (it takes no lags)"));
   }
+  if (lags.variance >= 0 && !has_beta) return unused("variance_lags");
+  if (lags.asym >= 0 && !has_asym) return unused("asym_lags");
+  spec.arch_order = has_alpha ? (lags.shock >= 0 ? lags.shock : 1) : 0;
+  spec.garch_order = has_beta ? (lags.variance >= 0 ? lags.variance : 1) : 0;
+  spec.asym_order = has_asym ? (lags.asym >= 0 ? lags.asym : spec.arch_order) : 0;
   if (auto s = spec.Validate(); !s.ok()) return s;
   return spec;
 }

@@ -39,15 +39,15 @@ std::string EncodeRefitRecordJson(const RefitRecord& r) {
       nlohmann::json p;
       p["name"] = r.names[i];
       p["value"] = i < r.values.size() ? Num(r.values[i]) : nlohmann::json();
-      p["se"] = i < r.std_errors.size() ? Num(r.std_errors[i]) : nlohmann::json();
-      p["robust_se"] =
+      p["se_hessian"] = i < r.std_errors.size() ? Num(r.std_errors[i]) : nlohmann::json();
+      p["se_robust"] =
           i < r.robust_std_errors.size() ? Num(r.robust_std_errors[i]) : nlohmann::json();
       params.push_back(std::move(p));
     }
-    j["params"] = std::move(params);
-    j["loglik"] = Num(r.loglik);
+    j["estimates"] = std::move(params);
+    j["log_likelihood"] = Num(r.loglik);
     j["bic"] = Num(r.bic);
-    j["nobs"] = r.nobs;
+    j["likelihood_terms"] = r.nobs;
     j["converged"] = r.converged;
     j["gate"] = {{"passed", r.outcome == RefitOutcome::kSwapped}, {"reasons", r.reasons}};
     j["note"] = r.note;

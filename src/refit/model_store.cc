@@ -7,11 +7,13 @@
 #include <nlohmann/json.hpp>
 #include <sstream>
 
+#include "absl/strings/match.h"
 #include "absl/strings/numbers.h"
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
 #include "absl/strings/str_split.h"
 #include "absl/strings/strip.h"
+#include "aftershock/renames.h"
 #include "aftershock/wire.h"
 
 namespace aftershock {
@@ -39,15 +41,21 @@ absl::Status LineError(absl::string_view name, int line, absl::string_view probl
 
 absl::StatusOr<ModelSpec> ParseSpecLabel(absl::string_view label) {
   const auto bad = [&] {
+    // Labels of the retired form ("constant-mean-GARCH(1,1)-t") name the change.
+    const bool retired = absl::EndsWith(label, "-t") || absl::EndsWith(label, "-normal");
     return absl::InvalidArgumentError(
-        absl::StrCat("'", label, "' is not a model label (e.g. ARMA(1,1)-GJR(1,1,1)-t)"));
+        absl::StrCat("'", label, "' is not a model label (e.g. const/GARCH(1,1)/student",
+                     retired ? "; labels were renamed, e.g. constant-mean-GARCH(1,1)-t is now "
+                               "const/GARCH(1,1)/student (CHANGELOG.md)"
+                             : "",
+                     ")"));
   };
   ModelSpec spec;
   absl::string_view s = label;
   int o[3] = {0, 0, 0};
-  if (absl::ConsumePrefix(&s, "zero-mean")) {
+  if (absl::ConsumePrefix(&s, "zero")) {
     spec.mean = MeanKind::kZero;
-  } else if (absl::ConsumePrefix(&s, "constant-mean")) {
+  } else if (absl::ConsumePrefix(&s, "const")) {
     spec.mean = MeanKind::kConstant;
   } else if (absl::ConsumePrefix(&s, "ARMA") && ConsumeOrders(&s, 2, o)) {
     spec.mean = MeanKind::kArma;
@@ -56,9 +64,9 @@ absl::StatusOr<ModelSpec> ParseSpecLabel(absl::string_view label) {
   } else {
     return bad();
   }
-  if (!absl::ConsumePrefix(&s, "-")) return bad();
+  if (!absl::ConsumePrefix(&s, "/")) return bad();
   spec.arch_order = spec.asym_order = spec.garch_order = 0;
-  if (absl::ConsumePrefix(&s, "constant-variance")) {
+  if (absl::ConsumePrefix(&s, "flat")) {
     spec.variance = VarianceKind::kConstant;
   } else if (absl::ConsumePrefix(&s, "EWMA")) {
     spec.variance = VarianceKind::kEwma;
@@ -69,17 +77,33 @@ absl::StatusOr<ModelSpec> ParseSpecLabel(absl::string_view label) {
     spec.variance = VarianceKind::kGarch;
     spec.arch_order = o[0];
     spec.garch_order = o[1];
-  } else if (absl::ConsumePrefix(&s, "GJR") && ConsumeOrders(&s, 3, o)) {
+  } else if (absl::ConsumePrefix(&s, "GJR-GARCH")) {
+    // "(p,q)" (asym lags = p) or "(p,q;o)".
     spec.variance = VarianceKind::kGjr;
+    const size_t semi = s.find(';');
+    const size_t close = s.find(')');
+    if (semi != absl::string_view::npos && semi < close) {
+      const std::string pq = absl::StrCat(s.substr(0, semi), ")");
+      absl::string_view pqv = pq;
+      absl::string_view ov = s.substr(semi + 1, close - semi - 1);
+      if (!ConsumeOrders(&pqv, 2, o) || !pqv.empty() || !absl::SimpleAtoi(ov, &o[2])) {
+        return bad();
+      }
+      s.remove_prefix(close + 1);
+    } else if (ConsumeOrders(&s, 2, o)) {
+      o[2] = o[0];
+    } else {
+      return bad();
+    }
     spec.arch_order = o[0];
-    spec.asym_order = o[1];
-    spec.garch_order = o[2];
+    spec.garch_order = o[1];
+    spec.asym_order = o[2];
   } else {
     return bad();
   }
-  if (s == "-t") {
+  if (s == "/student") {
     spec.innovations = Innovations::kStudentT;
-  } else if (s == "-normal") {
+  } else if (s == "/gaussian") {
     spec.innovations = Innovations::kNormal;
   } else {
     return bad();
@@ -131,9 +155,14 @@ absl::StatusOr<std::vector<StoredModel>> ParseModelRecords(absl::string_view tex
     if (spec->variance == VarianceKind::kEwma) {
       return LineError(name, line_no, who + "an EWMA record is not a fitted model");
     }
-    const auto params = j.find("params");
+    const auto params = j.find("estimates");
     if (params == j.end() || !params->is_array()) {
-      return LineError(name, line_no, who + "\"params\" must be an array");
+      if (j.contains("params")) {
+        return LineError(name, line_no,
+                         who + "a record of the retired format: " +
+                             RenameHint(RenameKind::kJsonKey, "model record", "params"));
+      }
+      return LineError(name, line_no, who + "\"estimates\" must be an array");
     }
     std::vector<std::pair<std::string, double>> named;
     std::vector<double> se;
@@ -145,8 +174,8 @@ absl::StatusOr<std::vector<StoredModel>> ParseModelRecords(absl::string_view tex
                          who + "each parameter needs a \"name\" string and a numeric \"value\"");
       }
       named.emplace_back(p["name"].get<std::string>(), p["value"].get<double>());
-      if (p.contains("se") && p["se"].is_number()) {
-        se.push_back(p["se"].get<double>());
+      if (p.contains("se_hessian") && p["se_hessian"].is_number()) {
+        se.push_back(p["se_hessian"].get<double>());
       } else {
         all_se = false;
       }
@@ -172,7 +201,9 @@ absl::StatusOr<std::vector<StoredModel>> ParseModelRecords(absl::string_view tex
         if (k < m.std_errors.size()) m.std_errors[k] = se[i];
       }
     }
-    if (j.contains("loglik") && j["loglik"].is_number()) m.loglik = j["loglik"].get<double>();
+    if (j.contains("log_likelihood") && j["log_likelihood"].is_number()) {
+      m.loglik = j["log_likelihood"].get<double>();
+    }
     if (j.contains("scheduled_bar") && j["scheduled_bar"].is_number_integer()) {
       m.scheduled_bar = j["scheduled_bar"].get<int64_t>();
     }

@@ -491,10 +491,10 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     int n = std::snprintf(
         buf, sizeof(buf),
         "{\"symbol\":\"%.*s\",\"outcome\":\"tracking\",\"mode\":\"%s\",\"version\":%u,"
-        "\"t_ns\":%lld,\"spec\":\"%s\",\"bars_since_refit\":%lld,\"stepping\":%s,\"params\":[",
+        "\"t_ns\":%lld,\"variance\":\"%s\",\"bars_since_refit\":%lld,\"stepping\":%s,\"estimates\":[",
         static_cast<int>(p.symbol.view().size()), p.symbol.view().data(),
         core->tracking_mode(index) == TrackingMode::kDrive ? "drive" : "track", version,
-        static_cast<long long>(u.t_ns), t.gjr() ? "GJR(1,1,1)" : "GARCH(1,1)",
+        static_cast<long long>(u.t_ns), t.gjr() ? "GJR-GARCH(1,1)" : "GARCH(1,1)",
         static_cast<long long>(t.bars_since_anchor()), t.stepping() ? "true" : "false");
     int name = 0;
     for (int i = 0; i < t.num_params() && n > 0 && n < static_cast<int>(sizeof(buf)); ++i) {

@@ -106,7 +106,8 @@ TEST_CASE("demo runs the live pipeline and prints updates, refits and the summar
   // Update lines (watch_table.h format) for the invented symbols.
   const std::set<std::string> universe = Instruments(12);
   const std::regex update(
-      R"(^\S+Z (\S+) r=\S+ z=\S+ vol_ann=\S+ vol_next=\S+ scale=\S+ ver=(\d+) flags=\S+( !)?$)");
+      R"(^\S+Z (\S+) r=\S+ z=\S+ vol_ann=\S+ vol_next=\S+ var99=\S+ es99=\S+ scale=\S+ ver=(\d+) )"
+      R"(flags=\S+( !)?$)");
   std::map<std::string, int> lines_per_symbol;
   int max_ver_on_wire = -1;
   long update_lines = 0;
@@ -227,9 +228,10 @@ TEST_CASE("demo --fit-only estimates the known model") {
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   CHECK(r.out.find("KESTREL.NRG") != std::string::npos);
-  const std::regex row(R"(^  (mu|omega|alpha1|gamma1|beta1|nu)\s+(\S+)\s+(\S+)\s+(\S+)$)");
-  const std::map<std::string, double> truth = {{"mu", 0.03},     {"omega", 0.02}, {"alpha1", 0.04},
-                                               {"gamma1", 0.08}, {"beta1", 0.9},  {"nu", 7.0}};
+  const std::regex row(R"(^  (mu|omega|alpha_1|gamma_1|beta_1|nu)\s+(\S+)\s+(\S+)\s+(\S+)$)");
+  const std::map<std::string, double> truth = {{"mu", 0.03},      {"omega", 0.02},
+                                               {"alpha_1", 0.04}, {"gamma_1", 0.08},
+                                               {"beta_1", 0.9},   {"nu", 7.0}};
   std::istringstream in(r.out);
   std::string line;
   std::set<std::string> seen;

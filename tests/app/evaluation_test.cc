@@ -201,7 +201,8 @@ TEST_CASE("QLIKE, MSE and Mincer-Zarnowitz on a hand-computed example", "[evalua
 }
 
 TEST_CASE("Mincer-Zarnowitz matches statsmodels OLS (classic and HC0)", "[evaluation]") {
-  const auto p = Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
+  const auto p =
+      Params("gaussian", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
   SimulationOptions so;
   so.n = 400;
   so.seed = 3;
@@ -258,9 +259,10 @@ TEST_CASE("true-model replay: coverage, zones and MZ are as a correct model pred
   const int64_t n = 100000;
   const std::vector<std::pair<const char*, ModelParams>> models = {
       {"gaussian garch(1,1)",
-       Params("normal", {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}})},
+       Params("gaussian", {{"mu", 0.01}, {"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", 0.9}})},
       {"t garch(1,1), nu = 6",
-       Params("t", {{"mu", 0.0}, {"omega", 0.02}, {"alpha1", 0.06}, {"beta1", 0.92}, {"nu", 6.0}})},
+       Params("student",
+              {{"mu", 0.0}, {"omega", 0.02}, {"alpha_1", 0.06}, {"beta_1", 0.92}, {"nu", 6.0}})},
   };
   // Under the true model P(r_t < -VaR_t | past) = p for every bar, so the
   // exception indicators are iid Bernoulli(p) (Christoffersen 1998): the count
@@ -365,7 +367,8 @@ TEST_CASE("the VaR backtest uses the forecast published one bar earlier", "[eval
 }
 
 TEST_CASE("forecasts are also judged against realized variance when present", "[evaluation]") {
-  const auto p = Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
+  const auto p =
+      Params("gaussian", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
   SymbolHistory h = Replay(p, 2000, 5);
   // A realized variance equal to the forecast on every other bar, absent on
   // the rest: the rv losses use the 1000 present bars and are exactly those of

@@ -85,22 +85,22 @@ TEST_CASE("fit on one instrument of a tick file equals the fit of its returns", 
   const auto from_series = FitJson({"--input", f.series});
   const auto from_prices = FitJson({"--input", f.prices, "--from-prices"});
   CHECK(from_ticks.at("column") == "ALDER.X");
-  CHECK(from_ticks.at("nobs") == 800);
+  CHECK(from_ticks.at("likelihood_terms") == 800);
   for (const auto* other : {&from_series, &from_prices}) {
-    CHECK(other->at("nobs") == 800);
-    for (const char* k : {"mu", "omega", "alpha1", "beta1"}) {
+    CHECK(other->at("likelihood_terms") == 800);
+    for (const char* k : {"mu", "omega", "alpha_1", "beta_1"}) {
       INFO(k);
-      CHECK(from_ticks.at("params").at(k).get<double>() ==
-            Approx(other->at("params").at(k).get<double>()).epsilon(1e-9));
+      CHECK(from_ticks.at("estimates").at(k).get<double>() ==
+            Approx(other->at("estimates").at(k).get<double>()).epsilon(1e-9));
     }
   }
   // Five-second bars of the same ticks: 801 one-second ticks give 160 or
   // 161 bars (depending on the alignment), one return fewer.
   auto coarse = RunCli({"fit", "--input", f.ticks, "--symbol", "ALDER.X", "--interval", "5s",
-                        "--variance", "constant", "--format", "json"});
+                        "--variance", "flat", "--format", "json"});
   INFO(coarse.err);
   REQUIRE(coarse.exit_code == 0);
-  const int nobs = nlohmann::json::parse(coarse.out).at("nobs").get<int>();
+  const int nobs = nlohmann::json::parse(coarse.out).at("likelihood_terms").get<int>();
   CHECK(nobs >= 159);
   CHECK(nobs <= 160);
 }
@@ -114,12 +114,78 @@ TEST_CASE("fit refuses a price column unless asked to take log returns", "[cli]"
   // is scale-equivariant for GARCH with omega scaled by 100^2).
   const auto pct = FitJson({"--input", f.series, "--scale", "100"});
   const auto frac = FitJson({"--input", f.series});
-  CHECK(pct.at("params").at("mu").get<double>() ==
-        Approx(100 * frac.at("params").at("mu").get<double>()).epsilon(1e-3));
+  CHECK(pct.at("estimates").at("mu").get<double>() ==
+        Approx(100 * frac.at("estimates").at("mu").get<double>()).epsilon(1e-3));
   out = RunCli({"fit", "--input", "/nonexistent/r.csv"});
   CHECK(out.exit_code == 2);
   CHECK(out.err.find("cannot open '/nonexistent/r.csv': No such file or directory") !=
         std::string::npos);
+}
+
+TEST_CASE("the text report opens with the verdict; diagnostics grouped by question", "[cli]") {
+  const Files f = Write(testing::ScratchDir("fit_command_text"));
+  auto out = RunCli({"fit", "--input", f.series, "--periods-per-year", "100"});
+  INFO(out.err);
+  REQUIRE(out.exit_code == 0);
+  const auto j = FitJson({"--input", f.series});
+  const double m = j.at("persistence").get<double>();
+  const double var = j.at("unconditional_variance").get<double>();
+  // First line: the label and the input; second: the verdict with the numbers
+  // of the JSON report (half-life ln 1/2 / ln m; volatility sqrt(var), x10 a year).
+  CHECK(out.out.rfind("const/GARCH(1,1)/gaussian on ", 0) == 0);
+  const std::string verdict = absl::StrFormat(
+      "  memory %.3g: a variance shock halves in %.1f bars; long-run volatility "
+      "%.4g per bar, %.4g a year (100 bars)\n",
+      m, std::log(0.5) / std::log(m), std::sqrt(var), 10 * std::sqrt(var));
+  CHECK(out.out.find(verdict) == out.out.find('\n') + 1);
+  CHECK(out.out.find("95 % interval (robust)") != std::string::npos);
+  const size_t mean_q = out.out.find("Dynamics left in the mean?");
+  const size_t clustering = out.out.find("Volatility clustering left?");
+  const size_t asym = out.out.find("Asymmetry left?");
+  const size_t tails = out.out.find("Tails as the law assumes?");
+  const size_t caution = out.out.find("not advice");
+  CHECK(mean_q < clustering);
+  CHECK(clustering < asym);
+  CHECK(asym < tails);
+  CHECK(tails < caution);
+  CHECK(caution != std::string::npos);
+}
+
+TEST_CASE("fit takes named lags and refuses the retired names with their replacement", "[cli]") {
+  const Files f = Write(testing::ScratchDir("fit_command_lags"));
+  const auto gjr =
+      FitJson({"--input", f.series, "--variance", "gjr", "--shock-lags", "1", "--variance-lags",
+               "1", "--asym-lags", "1", "--innovations", "student"});
+  CHECK(gjr.at("model").at("label") == "const/GJR-GARCH(1,1)/student");
+  CHECK(gjr.at("model").at("shock_lags") == 1);
+  CHECK(gjr.at("model").at("asym_lags") == 1);
+  CHECK(gjr.at("model").at("variance_lags") == 1);
+  for (const char* k : {"mu", "omega", "alpha_1", "gamma_1", "beta_1", "nu"}) {
+    INFO(k);
+    CHECK(gjr.at("estimates").contains(k));
+    CHECK(gjr.at("se_hessian").contains(k));
+    CHECK(gjr.at("se_robust").contains(k));
+  }
+  CHECK(gjr.at("log_likelihood").is_number());
+  // A lag the variance kind has no terms for.
+  auto out = RunCli({"fit", "--input", f.series, "--variance", "garch", "--asym-lags", "1"});
+  CHECK(out.exit_code == 2);
+  CHECK(out.err.find("variance 'garch' has no asym_lags (asym_lags is for gjr)") !=
+        std::string::npos);
+  // Retired names: each error names the new one.
+  out = RunCli({"fit", "--input", f.series, "--variance-order", "1,1"});
+  CHECK(out.exit_code == 2);
+  CHECK(out.err.find("option '--variance-order' was renamed: use --shock-lags, --asym-lags, "
+                     "--variance-lags (CHANGELOG.md)") != std::string::npos);
+  out = RunCli({"fit", "--input", f.series, "--innovations", "t"});
+  CHECK(out.exit_code == 2);
+  CHECK(out.err.find("'t' was renamed: use student") != std::string::npos);
+  out = RunCli({"fit", "--input", f.series, "--variance", "constant"});
+  CHECK(out.exit_code == 2);
+  CHECK(out.err.find("'constant' was renamed: use flat") != std::string::npos);
+  out = RunCli({"fit", "--input", f.series, "--presample", "backcast"});
+  CHECK(out.exit_code == 2);
+  CHECK(out.err.find("'backcast' was renamed: use robust-start") != std::string::npos);
 }
 
 }  // namespace

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <catch2/catch.hpp>
+#include <cmath>
 #include <cstdio>
 #include <regex>
 
@@ -20,6 +21,42 @@ bool Contains(const std::string& s, const std::string& what) {
 TEST_CASE("HtmlEscape escapes the five metacharacters", "[report]") {
   CHECK(HtmlEscape("a<b>&\"c'") == "a&lt;b&gt;&amp;&quot;c&#39;");
   CHECK(HtmlEscape("plain") == "plain");
+}
+
+TEST_CASE("the report opens with the risk view: period, models, worst symbol first", "[report]") {
+  const ReportInput in = FixtureReport(3000);
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  const std::string& html = *page;
+  CHECK(Contains(html, "<dt>data period</dt>"));
+  CHECK(Contains(html, "<dt>models at the end</dt>"));
+  CHECK(Contains(html, "VaR / ES next bar"));
+  CHECK(Contains(html, "evaluated <em>bars</em>"));
+  // Overview rows: zone rank never increases down the table, and within a
+  // zone the Kupiec p never decreases.
+  const size_t table = html.find("id=\"overview\"");
+  const size_t end = html.find("</table>", table);
+  REQUIRE(table != std::string::npos);
+  std::vector<std::pair<int, double>> order;
+  for (size_t i = 0; i < in.symbols.size(); ++i) {
+    auto ev = EvaluateSymbol(in.symbols[i], in.options.evaluation);
+    REQUIRE(ev.ok());
+    const LevelBacktest* b = nullptr;
+    for (const auto& l : ev->levels) {
+      if (std::fabs(l.level - in.options.var_level) < 1e-12) b = &l;
+    }
+    REQUIRE(b != nullptr);
+    const int zone = b->traffic_light.zone == TrafficLightZone::kRed      ? 2
+                     : b->traffic_light.zone == TrafficLightZone::kYellow ? 1
+                     : b->traffic_light.zone == TrafficLightZone::kGreen  ? 0
+                                                                          : -1;
+    const size_t at = html.find("href=\"#sym-" + std::to_string(i) + "\"", table);
+    REQUIRE(at < end);
+    order.emplace_back(static_cast<int>(at), 0);
+    order.back().second = zone * 10.0 - b->tests.p_pof;  // larger is worse
+  }
+  std::sort(order.begin(), order.end());  // by position in the table
+  for (size_t i = 1; i < order.size(); ++i) CHECK(order[i - 1].second >= order[i].second);
 }
 
 TEST_CASE("the report is one self-contained page", "[report]") {

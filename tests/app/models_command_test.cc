@@ -210,10 +210,10 @@ TEST_CASE("models list / show / export on a model file and a checkpoint", "[app]
         if (m["status"] != "fitted") continue;  // a checkpoint symbol may be in fallback
         CHECK(m["version"] == rec["version"]);
         CHECK(m["spec"] == rec["spec"]);
-        REQUIRE(m["params"].size() == rec["params"].size());
-        for (size_t i = 0; i < m["params"].size(); ++i) {
-          CHECK(m["params"][i]["name"] == rec["params"][i]["name"]);
-          CHECK(m["params"][i]["value"] == rec["params"][i]["value"]);
+        REQUIRE(m["estimates"].size() == rec["estimates"].size());
+        for (size_t i = 0; i < m["estimates"].size(); ++i) {
+          CHECK(m["estimates"][i]["name"] == rec["estimates"][i]["name"]);
+          CHECK(m["estimates"][i]["value"] == rec["estimates"][i]["value"]);
         }
         // A constant-variance model has persistence 0 and no half-life.
         const double p = m["persistence"].get<double>();
@@ -229,7 +229,7 @@ TEST_CASE("models list / show / export on a model file and a checkpoint", "[app]
     INFO(r.err);
     REQUIRE(r.exit_code == 0);
     const nlohmann::json& rec = f.last.at("MARTEN.B");
-    for (const auto& p : rec["params"]) {
+    for (const auto& p : rec["estimates"]) {
       CHECK(r.out.find(p["name"].get<std::string>()) != std::string::npos);
     }
     CHECK(r.out.find(absl::StrCat("version         ", rec["version"].get<uint32_t>())) !=
@@ -240,7 +240,7 @@ TEST_CASE("models list / show / export on a model file and a checkpoint", "[app]
     REQUIRE(js.exit_code == 0);
     const nlohmann::json j = nlohmann::json::parse(js.out);
     CHECK(j["symbol"] == "WREN.C");
-    CHECK(j["params"].size() >= 2);
+    CHECK(j["estimates"].size() >= 2);
   }
   SECTION("export -> --initial-models gives the same replay as the original file") {
     const auto base = Replay(f.cfg, f.day4, f.dir + "/rt_base", {"--initial-models", f.models});
@@ -281,8 +281,8 @@ TEST_CASE("model store errors exit 2 with the file, line and problem", "[app][mo
   }
   SECTION("parameters failing the constraints name the symbol") {
     nlohmann::json j = f.last.at("CRANE.A");
-    for (auto& p : j["params"]) {
-      if (p["name"] == "beta1") p["value"] = 1.2;
+    for (auto& p : j["estimates"]) {
+      if (p["name"] == "beta_1") p["value"] = 1.2;
     }
     const std::string bad = WriteFile(f.dir + "/bad2.jsonl", j.dump() + "\n");
     const auto r = Replay(f.cfg, f.day4, f.dir + "/e", {"--initial-models", bad});
@@ -292,16 +292,33 @@ TEST_CASE("model store errors exit 2 with the file, line and problem", "[app][mo
   }
   SECTION("a spec label that does not match the parameters") {
     nlohmann::json j = f.last.at("CRANE.A");
-    j["params"].erase(j["params"].size() - 1);
+    j["estimates"].erase(j["estimates"].size() - 1);
     const std::string bad = WriteFile(f.dir + "/bad3.jsonl", j.dump() + "\n");
     const auto r = Replay(f.cfg, f.day4, f.dir + "/e", {"--initial-models", bad});
     CHECK(r.exit_code == 2);
     CHECK(r.err.find(bad + ":1: symbol CRANE.A: parameters do not match") != std::string::npos);
   }
+  SECTION("a record of the retired format names the rename") {
+    nlohmann::json j = f.last.at("CRANE.A");
+    j["params"] = j["estimates"];
+    j.erase("estimates");
+    const std::string bad = WriteFile(f.dir + "/old.jsonl", j.dump() + "\n");
+    const auto r = Replay(f.cfg, f.day4, f.dir + "/e", {"--initial-models", bad});
+    CHECK(r.exit_code == 2);
+    CHECK(r.err.find(bad + ":1: symbol CRANE.A: a record of the retired format: 'params' was "
+                           "renamed: use estimates (CHANGELOG.md)") != std::string::npos);
+    nlohmann::json k = f.last.at("CRANE.A");
+    k["spec"] = "constant-mean-GARCH(1,1)-t";
+    const std::string old_label = WriteFile(f.dir + "/old_label.jsonl", k.dump() + "\n");
+    const auto l = RunCli({"models", "list", old_label});
+    CHECK(l.exit_code == 2);
+    CHECK(l.err.find("labels were renamed, e.g. constant-mean-GARCH(1,1)-t is now "
+                     "const/GARCH(1,1)/student") != std::string::npos);
+  }
   SECTION("records of other outcomes are ignored") {
     nlohmann::json j = f.last.at("CRANE.A");
     j["outcome"] = "rejected";
-    j["params"] = nlohmann::json::array();
+    j["estimates"] = nlohmann::json::array();
     const std::string file = WriteFile(f.dir + "/rej.jsonl", j.dump() + "\n");
     const auto r = RunCli({"models", "list", file, "--format", "json"});
     CHECK(r.exit_code == 0);
@@ -341,11 +358,11 @@ TEST_CASE("run --initial-models: a bad file is exit 2, a good one seeds the symb
       "[feed]\nendpoints = [\"tcp://127.0.0.1:1\"]\n[publish]\nendpoint = "
       "\"tcp://127.0.0.1:*\"\n[http]\nenabled = false\n");
   nlohmann::json j = f.last.at("WREN.C");
-  j["spec"] = "constant-mean-GARCH(1,x)-normal";
+  j["spec"] = "const/GARCH(1,x)/gaussian";
   const std::string bad = WriteFile(f.dir + "/bad_run.jsonl", j.dump() + "\n");
   const auto r = RunCli({"run", "--config", cfg, "--initial-models", bad});
   CHECK(r.exit_code == 2);
-  CHECK(r.err.find(bad + ":1: symbol WREN.C: 'constant-mean-GARCH(1,x)-normal' is not a model "
+  CHECK(r.err.find(bad + ":1: symbol WREN.C: 'const/GARCH(1,x)/gaussian' is not a model "
                          "label") != std::string::npos);
   // A good file: the run starts (stopped by SIGTERM from timeout(1) after 2 s).
   const auto ok = testing::RunCommand(

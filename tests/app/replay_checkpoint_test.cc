@@ -157,8 +157,8 @@ TEST_CASE("replay in two parts equals the whole replay with recursive tracking i
   // re-estimate it); a low instability threshold so that model alerts of rule
   // instability occur.
   const std::string base = std::string(kConfig) +
-                           "[model.params]\nmu = 0.0\nomega = 2e-9\nalpha1 = 0.08\n"
-                           "beta1 = 0.9\nnu = 8.0\n";
+                           "[model.params]\nmu = 0.0\nomega = 2e-9\nalpha_1 = 0.08\n"
+                           "beta_1 = 0.9\nnu = 8.0\n";
   const std::string cfg =
       WriteFile(dir + "/c.toml", base + "[tracking]\nmode = \"drive\"\nburn_in_bars = 20\n"
                                         "stability_decay = 0.95\nalert_threshold = 6\n");

@@ -17,6 +17,7 @@
 #include <thread>
 
 #include "absl/strings/str_cat.h"
+#include "absl/strings/str_format.h"
 #include "absl/strings/str_split.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/update_codec.h"
@@ -180,6 +181,58 @@ TEST_CASE("simulate output replays with config/example-intraday.toml: no rejects
   CHECK(shocks >= 1);
   REQUIRE(first_alert >= 0);
   CHECK(first_alert - jump <= 60 * 60 * kNanosPerSecond);
+}
+
+TEST_CASE("replay --exceptions lists every VaR exception the backtest counts; --output optional",
+          "[app][replay]") {
+  const std::string dir = testing::ScratchDir("replay_exceptions");
+  const auto sim = RunCli({"simulate", "--symbols", "3", "--bars", "1500", "--seed", "9", "--field",
+                           "return", "--output", dir + "/ticks.csv", "--quiet"});
+  REQUIRE(sim.exit_code == 0);
+  const std::string cfg = testing::WriteFile(dir + "/c.toml", "[refit]\nevery_bars = 250\n");
+  // Neither updates nor any other output: a usage error.
+  auto none = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv"});
+  CHECK(none.exit_code == 2);
+  CHECK(none.err.find("give --output for the updates, or at least one of --report") !=
+        std::string::npos);
+  const auto r = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv", "--summary-json",
+                         dir + "/s.json", "--exceptions", dir + "/x.csv", "--quiet"});
+  INFO(r.err);
+  REQUIRE(r.exit_code == 0);
+  const auto summary = nlohmann::json::parse(testing::ReadFileOrDie(dir + "/s.json"));
+  const std::vector<std::string> rows = Lines(testing::ReadFileOrDie(dir + "/x.csv"));
+  REQUIRE(!rows.empty());
+  CHECK(rows[0] == "symbol,time,bar,return,limit,level");
+  std::map<std::pair<std::string, std::string>, int> counted;
+  for (size_t i = 1; i < rows.size(); ++i) {
+    const std::vector<std::string> f = absl::StrSplit(rows[i], ',');
+    REQUIRE(f.size() == 6);
+    // The loss exceeds the limit it was tested against.
+    CHECK(-std::stod(f[3]) > std::stod(f[4]));
+    CHECK(f[1].back() == 'Z');
+    ++counted[{f[0], f[5]}];
+  }
+  CHECK(summary.at("bar_interval") == "0s (one bar per tick)");
+  int symbols = 0;
+  for (const auto& s : summary.at("symbols")) {
+    if (!s.contains("var_backtests")) continue;
+    ++symbols;
+    // The figures of the report's overview are in the summary too.
+    CHECK(s.at("next_bar").at("0.99").at("value_at_risk").get<double>() > 0);
+    CHECK(s.at("next_bar").at("0.99").at("es").get<double>() >
+          s.at("next_bar").at("0.99").at("value_at_risk").get<double>());
+    CHECK(s.at("var_next").get<double>() > 0);
+    const std::string regime = s.at("regime_at_end").get<std::string>();
+    CHECK((regime == "none" || regime == "high" || regime == "low"));
+    CHECK(s.at("model_at_end").get<std::string>().find('/') != std::string::npos);
+    CHECK(s.at("last_bar_ns").get<int64_t>() > s.at("first_bar_ns").get<int64_t>());
+    for (const auto& l : s.at("var_backtests")) {
+      const std::string level = absl::StrFormat("%g", l.at("level").get<double>());
+      INFO(s.at("symbol").get<std::string>() << " " << level);
+      CHECK(counted[{s.at("symbol").get<std::string>(), level}] == l.at("exceptions").get<int>());
+    }
+  }
+  CHECK(symbols == 3);
 }
 
 TEST_CASE("replay ends with warnings when the settings contradict the input", "[app][replay]") {

@@ -19,8 +19,9 @@ interval = "0s"
 [model]
 mean = "constant"
 variance = "garch"
-variance_order = [1, 1]
-innovations = "normal"
+shock_lags = 1
+variance_lags = 1
+innovations = "gaussian"
 [outputs]
 periods_per_year = 98280
 [refit]
@@ -111,7 +112,7 @@ interval = "0s"
 [model]
 mean = "zero"
 variance = "ewma"
-innovations = "normal"
+innovations = "gaussian"
 [model.params]
 lambda = 0.94
 [alerts]
@@ -162,7 +163,7 @@ interval = "0s"
 [model]
 mean = "constant"
 variance = "garch"
-innovations = "normal"
+innovations = "gaussian"
 [warmup]
 # The figures below (and in README.md) start the warm-up at the first return.
 start_bars = 1

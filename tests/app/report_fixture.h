@@ -15,7 +15,7 @@
 
 namespace aftershock::testing {
 
-inline ModelParams FixtureParams(const char* var, std::vector<int> order, const char* law,
+inline ModelParams FixtureParams(const char* var, VarianceLags order, const char* law,
                                  std::vector<std::pair<std::string, double>> named) {
   auto spec = MakeModelSpec("constant", {}, var, order, law);
   REQUIRE(spec.ok());
@@ -97,22 +97,22 @@ inline ReportInput FixtureReport(int64_t n) {
   in.options.periods_per_year = 252.0 * 390.0;  // one-minute bars, 390 a day
   in.symbols.push_back(FixtureSymbol(
       "KESTREL.X",
-      FixtureParams("garch", {1, 1}, "normal",
-                    {{"mu", 0.0}, {"omega", 2e-3}, {"alpha1", 0.06}, {"beta1", 0.92}}),
+      FixtureParams("garch", {1, 1}, "gaussian",
+                    {{"mu", 0.0}, {"omega", 2e-3}, {"alpha_1", 0.06}, {"beta_1", 0.92}}),
       n, 11, 0));
   in.symbols.push_back(FixtureSymbol(
       "OSPREY<&>\"'",
       FixtureParams(
-          "garch", {1, 1}, "t",
-          {{"mu", 0.001}, {"omega", 1e-3}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", 6.0}}),
+          "garch", {1, 1}, "student",
+          {{"mu", 0.001}, {"omega", 1e-3}, {"alpha_1", 0.08}, {"beta_1", 0.9}, {"nu", 6.0}}),
       n, 12, 120));
   in.symbols.push_back(FixtureSymbol("HARRIER-9",
-                                     FixtureParams("gjr", {1, 1, 1}, "t",
+                                     FixtureParams("gjr", {1, 1, 1}, "student",
                                                    {{"mu", 0.0},
                                                     {"omega", 1.5e-3},
-                                                    {"alpha1", 0.03},
-                                                    {"gamma1", 0.08},
-                                                    {"beta1", 0.91},
+                                                    {"alpha_1", 0.03},
+                                                    {"gamma_1", 0.08},
+                                                    {"beta_1", 0.91},
                                                     {"nu", 8.0}}),
                                      n, 13, 0));
   return in;

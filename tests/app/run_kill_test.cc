@@ -353,7 +353,7 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
                    "\"]\n[publish]\nendpoint = \"tcp://127.0.0.1:", pub_port,
                    "\"\n[http]\nendpoint = \"127.0.0.1:", http_port,
                    "\"\n[bars]\ninterval = \"1s\"\n"
-                   "[model]\nmean = \"zero\"\nvariance = \"garch\"\ninnovations = \"normal\"\n"
+                   "[model]\nmean = \"zero\"\nvariance = \"garch\"\ninnovations = \"gaussian\"\n"
                    "[warmup]\nstart_bars = 5\n"
                    "[refit]\nevery_bars = 25\nwindow = 300\nmin_bars = 100\nholdout_bars = 20\n"
                    "reidentify_every = 0\njitter_fraction = 0\n"

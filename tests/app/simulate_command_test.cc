@@ -373,14 +373,14 @@ std::map<std::string, ArchEffects> ArchEffectsOf(const std::string& csv) {
   return out;
 }
 
-TEST_CASE("simulated GARCH instruments show ARCH effects; --model constant does not") {
+TEST_CASE("simulated GARCH instruments show ARCH effects; --model flat does not") {
   // Source: statsmodels acorr_ljungbox (squares, lag 10) and het_arch (10 lags),
   // run live on the command's output; scipy.stats.kurtosis for the t tails.
   auto garch = RunCli({"simulate", "--symbols", "3", "--bars", "5000", "--seed", "4", "--field",
                        "return", "--output", "-", "--quiet"});
   REQUIRE(garch.exit_code == 0);
   auto flat = RunCli({"simulate", "--symbols", "3", "--bars", "5000", "--seed", "4", "--field",
-                      "return", "--model", "constant", "--output", "-", "--quiet"});
+                      "return", "--model", "flat", "--output", "-", "--quiet"});
   REQUIRE(flat.exit_code == 0);
   auto g = ArchEffectsOf(garch.out);
   auto f = ArchEffectsOf(flat.out);
@@ -391,7 +391,7 @@ TEST_CASE("simulated GARCH instruments show ARCH effects; --model constant does 
     CHECK(a.n == 5000);
     CHECK(a.lb_p < 1e-6);  // volatility clustering is unmistakable at 5000 bars
     CHECK(a.lm_p < 1e-6);
-    // No clustering in the constant-variance variant (fixed seed: deterministic).
+    // No clustering in the flat variant (fixed seed: deterministic).
     CHECK(f[sym].lb_p > 0.01);
     CHECK(f[sym].lm_p > 0.01);
     // Student-t shocks (nu 4.5..6): clearly positive excess kurtosis even without

@@ -48,6 +48,10 @@ class TestPublisher {
     }
     return true;
   }
+  void SendText(const std::string& topic, const std::string& body) {
+    sock_.send(zmq::buffer(topic), zmq::send_flags::sndmore);
+    sock_.send(zmq::buffer(body), zmq::send_flags::none);
+  }
   void Send(const BarUpdate& u, bool binary, const std::string& topic_prefix = "u.") {
     std::string body;
     REQUIRE((binary ? EncodeUpdateBinary(u, &body) : EncodeUpdateJson(u, &body)).ok());
@@ -71,8 +75,12 @@ TEST_CASE("watch --once prints the table of the first N updates (JSON and binary
     r = testing::RunCli(
         {"watch", "--endpoint", pub.endpoint(), "--once", "--count", "3", "--timeout", "10"});
   });
-  REQUIRE(pub.WaitSubscriptions(1));
+  REQUIRE(pub.WaitSubscriptions(2));  // u. and a.
   const auto a = Make("SKJOLD.GAS", k0931, 0.004, 3.2, 0.5, 1);
+  // A regime alert (alerts.h JSON) sets the symbol's regime column.
+  pub.SendText("a.SKJOLD.GAS",
+               R"({"s":"SKJOLD.GAS","t":1,"kind":"regime","rule":"regime_high",)"
+               R"("severity":"warn","value":2.4,"threshold":2,"ver":1,"message":"x"})");
   const auto b = Make("BRANDR.NRG", k0931, -0.001, -0.7, 0.45, 2);
   const auto c = Make("ASKE.CRB", k0931, 0.0, 0.1, 0.6, 0);
   pub.Send(Make("IGNORED.X", k0931, 0, 0, 1, 0), false, "alert.");  // other topic: not subscribed
@@ -83,10 +91,12 @@ TEST_CASE("watch --once prints the table of the first N updates (JSON and binary
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   app::WatchTable want;
+  want.ApplyAlert("SKJOLD.GAS", "regime", "regime_high");
   want.Apply(a);
   want.Apply(b);
   want.Apply(c);
   CHECK(r.out == want.Render(false));
+  CHECK(r.out.find(" high ") != std::string::npos);
   CHECK(r.err.find("3 updates, 3 symbols, 0 undecodable messages") != std::string::npos);
 }
 
@@ -97,7 +107,7 @@ TEST_CASE("watch prints one line per update when not on a terminal, with a symbo
     r = testing::RunCli({"watch", "--endpoint", pub.endpoint(), "--duration", "4", "--symbols",
                          "BRANDR.NRG,ASKE.CRB"});
   });
-  REQUIRE(pub.WaitSubscriptions(2));  // one prefix subscription per symbol
+  REQUIRE(pub.WaitSubscriptions(4));  // u. and a. prefix subscriptions per symbol
   const auto a = Make("BRANDR.NRG", k0931, -0.001, -0.7, 0.45, 2);
   const auto b = Make("BRANDR.NRGX", k0931, 0.001, 0.7, 0.45, 2);  // prefix match, filtered
   const auto c = Make("ASKE.CRB", k0931 + 60000000000, 0.002, 4.1, 0.6, 0);

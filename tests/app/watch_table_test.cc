@@ -56,16 +56,49 @@ TEST_CASE("table rendering, sorted by symbol, latest values win") {
   CHECK(table.updates() == 4);
   CHECK(table.size() == 3);
   const std::string want =
-      "symbol         bar time (UTC)           return       z    vol_ann   vol_next  scale  ver "
-      "flags\n"
-      "ASKE.CRB       2026-03-02T09:31:00Z   0.000000    0.00     0.2500   0.000500  0.400    0 "
-      "first_bar\n"
-      "BRANDR.NRG     2026-03-02T09:31:00Z  -0.000412   -0.54     0.3012   0.000961  0.332    2 "
-      "-\n"
-      "SKJOLD.GAS     2026-03-02T09:31:00Z   0.012300    3.50 !   0.6100   0.002000  0.164    0 "
-      "warmup+gap\n"
+      "symbol         bar time (UTC)           return       z    vol_ann   vol_next        VaR "
+      "        ES  scale  ver regime flags\n"
+      "ASKE.CRB       2026-03-02T09:31:00Z   0.000000    0.00     0.2500   0.000500          - "
+      "         -  0.400    0 -      first_bar\n"
+      "BRANDR.NRG     2026-03-02T09:31:00Z  -0.000412   -0.54     0.3012   0.000961          - "
+      "         -  0.332    2 -      -\n"
+      "SKJOLD.GAS     2026-03-02T09:31:00Z   0.012300    3.50 !   0.6100   0.002000          - "
+      "         -  0.164    0 -      warmup+gap\n"
       "3 symbols, 4 updates; marked: |z| >= 3\n";
   CHECK(table.Render(false) == want);
+}
+
+TEST_CASE("VaR and ES at the first level, and the regime from the regime alerts") {
+  WatchTable table;
+  BarUpdate u = Make("BRANDR.NRG", k0931, -0.000412, -0.54, 0.3012, 1e-6, 0.332, 2, 0);
+  u.n_levels = 2;
+  u.levels[0] = 0.99;
+  u.var_risk[0] = 0.00231;
+  u.es[0] = 0.00265;
+  u.levels[1] = 0.975;
+  u.var_risk[1] = 0.0019;
+  u.es[1] = 0.0023;
+  CHECK(table.FormatLine(u) ==
+        "2026-03-02T09:31:00Z BRANDR.NRG r=-0.000412 z=-0.54 vol_ann=0.3012 vol_next=0.001000 "
+        "var99=0.00231 es99=0.00265 scale=0.332 ver=2 flags=-");
+  REQUIRE(table.Apply(u));
+  // An alert of a symbol without an update yet is kept but not shown.
+  CHECK(table.ApplyAlert("SKJOLD.GAS", "regime", "regime_high"));
+  CHECK(table.size() == 1);
+  CHECK(table.ApplyAlert("BRANDR.NRG", "shock", "shock"));  // not a regime: no change
+  std::string s = table.Render(false);
+  INFO(s);
+  CHECK(s.find("   0.002310   0.002650  0.332    2 -      -\n") != std::string::npos);
+  CHECK(s.find("VaR, ES: next bar at 99 %, positive losses") != std::string::npos);
+  CHECK(table.ApplyAlert("BRANDR.NRG", "regime", "regime_high"));
+  CHECK(table.Render(false).find("  2 high   -\n") != std::string::npos);
+  table.ApplyAlert("BRANDR.NRG", "regime_clear", "regime_high");
+  CHECK(table.Render(false).find("  2 -      -\n") != std::string::npos);
+  table.ApplyAlert("BRANDR.NRG", "regime", "regime_low");
+  CHECK(table.Render(false).find("  2 low    -\n") != std::string::npos);
+  // SKJOLD.GAS shows its regime once it has an update.
+  REQUIRE(table.Apply(Make("SKJOLD.GAS", k0931, 0.01, 1.0, 0.6, 4e-6, 0.2, 1, 0)));
+  CHECK(table.Render(false).find("  1 high   -\n") != std::string::npos);
 }
 
 TEST_CASE("ANSI rendering refreshes in place and highlights large shocks") {

@@ -208,7 +208,7 @@ TEST_CASE("ARMA(1,1) parameters are recovered within 4 standard errors", "[arma]
   REQUIRE(se->size() == 4);
   const double est[4] = {fit->params.mu, fit->params.ar[0], fit->params.ma[0], fit->params.sigma2};
   const double tru[4] = {truth.mu, truth.ar[0], truth.ma[0], truth.sigma2};
-  const char* names[4] = {"mu", "ar1", "ma1", "sigma2"};
+  const char* names[4] = {"mu", "ar_1", "ma_1", "sigma2"};
   std::string report;
   for (int i = 0; i < 4; ++i) {
     INFO(names[i] << " estimate " << est[i] << " se " << (*se)[i]);

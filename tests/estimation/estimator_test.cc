@@ -43,7 +43,7 @@ TEST_CASE("DEM/GBP GARCH(1,1) benchmark (library)", "[estimator][benchmark]") {
   auto series = ReadSeriesFile(*path);
   REQUIRE(series.ok());
   REQUIRE(series->values.size() == 1974);
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(spec.ok());
   FitOptions o;
   o.presample = Presample::kMeanSquare;
@@ -67,24 +67,28 @@ TEST_CASE("DEM/GBP GARCH(1,1) benchmark (CLI JSON output)", "[estimator][benchma
     WARN(testing::SkipMessage("dem2gbp.csv"));
     return;
   }
-  auto out = testing::RunCli({"fit", "--input", *path, "--mean", "constant", "--variance",
-                              "garch", "--variance-order", "1,1", "--innovations", "normal",
-                              "--presample", "mean-square", "--format", "json"});
+  auto out = testing::RunCli({"fit", "--input", *path, "--mean", "constant", "--variance", "garch",
+                              "--shock-lags", "1", "--variance-lags", "1", "--innovations",
+                              "gaussian", "--presample", "mean-square", "--format", "json"});
   INFO(out.err);
   REQUIRE(out.exit_code == 0);
   const auto j = nlohmann::json::parse(out.out);
   CHECK(j.at("model").at("mean") == "constant");
   CHECK(j.at("model").at("variance") == "garch");
-  CHECK(j.at("model").at("variance_order") == nlohmann::json::array({1, 1}));
-  CHECK(j.at("model").at("innovations") == "normal");
-  CHECK(j.at("nobs") == 1974);
+  CHECK(j.at("model").at("shock_lags") == 1);
+  CHECK(j.at("model").at("asym_lags") == 0);
+  CHECK(j.at("model").at("variance_lags") == 1);
+  CHECK(j.at("model").at("innovations") == "gaussian");
+  CHECK(j.at("model").at("label") == "const/GARCH(1,1)/gaussian");
+  CHECK(j.at("likelihood_terms") == 1974);
   CHECK(j.at("converged") == true);
-  for (const char* key : {"std_errors", "robust_std_errors", "aic", "bic", "iterations",
-                          "seconds", "loglik"}) {
+  for (const char* key :
+       {"se_hessian", "se_robust", "aic", "bic", "iterations", "seconds", "log_likelihood"}) {
     CHECK(j.contains(key));
   }
-  const auto& p = j.at("params");
-  CheckBenchmark(p.at("mu"), p.at("omega"), p.at("alpha1"), p.at("beta1"), j.at("loglik"));
+  const auto& p = j.at("estimates");
+  CheckBenchmark(p.at("mu"), p.at("omega"), p.at("alpha_1"), p.at("beta_1"),
+                 j.at("log_likelihood"));
 }
 
 // Numerical Hessian of the log-likelihood from function values only.
@@ -122,8 +126,8 @@ Eigen::MatrixXd NumericalHessian(const ModelParams& p, const std::vector<double>
 
 TEST_CASE("standard errors agree with a numerical Hessian of the log-likelihood",
           "[estimator]") {
-  for (const char* law : {"normal", "t"}) {
-    const bool t = std::string(law) == "t";
+  for (const char* law : {"gaussian", "student"}) {
+    const bool t = std::string(law) == "student";
     const std::vector<double> r = testing::TestGarchSeries(3000, 21, t ? 6.0 : 0.0);
     auto spec = MakeModelSpec("arma", {1, 0}, "gjr", {1, 1, 1}, law);
     REQUIRE(spec.ok());
@@ -157,7 +161,7 @@ TEST_CASE("standard errors agree with a numerical Hessian of the log-likelihood"
 
 TEST_CASE("a warm start converges faster and to the same optimum", "[estimator]") {
   const std::vector<double> r = testing::TestGarchSeries(2000, 3);
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(spec.ok());
   auto cold = FitModel(*spec, r);
   REQUIRE(cold.ok());
@@ -179,7 +183,7 @@ TEST_CASE("a warm start converges faster and to the same optimum", "[estimator]"
 
 TEST_CASE("a hopeless warm start falls back to the cold grid", "[estimator]") {
   const std::vector<double> r = testing::TestGarchSeries(1000, 8);
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
   REQUIRE(spec.ok());
   auto cold = FitModel(*spec, r);
   REQUIRE(cold.ok());
@@ -193,7 +197,7 @@ TEST_CASE("a hopeless warm start falls back to the cold grid", "[estimator]") {
 }
 
 TEST_CASE("bad input classes give clear errors", "[estimator]") {
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(spec.ok());
   SECTION("too few observations") {
     auto fit = FitModel(*spec, std::vector<double>(12, 0.5));
@@ -218,7 +222,7 @@ TEST_CASE("bad input classes give clear errors", "[estimator]") {
     auto out = testing::RunCli({"fit", "--input", "-", "--variance", "figarch"}, "1\n2\n");
     CHECK(out.exit_code == 2);
     CHECK(out.err ==
-          "aftershock fit: unknown variance 'figarch' (expected constant, arch, garch, gjr or "
+          "aftershock fit: unknown variance 'figarch' (expected flat, arch, garch, gjr or "
           "ewma)\n");
   }
   SECTION("non-finite value in a file names the line") {

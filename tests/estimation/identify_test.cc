@@ -14,9 +14,9 @@
 namespace aftershock {
 namespace {
 
-std::vector<double> Sim(const char* mean, std::vector<int> mo, const char* var,
-                        std::vector<int> vo, const char* law,
-                        std::vector<std::pair<std::string, double>> named, int n, uint64_t seed) {
+std::vector<double> Sim(const char* mean, std::vector<int> mo, const char* var, VarianceLags vo,
+                        const char* law, std::vector<std::pair<std::string, double>> named, int n,
+                        uint64_t seed) {
   auto spec = MakeModelSpec(mean, mo, var, vo, law);
   REQUIRE(spec.ok());
   auto p = ModelParams::FromNamed(*spec, named);
@@ -63,7 +63,7 @@ TEST_CASE("DEM/GBP: ARCH effects are detected and GARCH(1,1) leaves none", "[ide
   CHECK_FALSE(Find(rep->diagnostics, "ARCH-LM(5) on z").rejected);
   CHECK_FALSE(Find(rep->diagnostics, "Ljung-Box(10) on z^2").rejected);
   // The same for the Gaussian benchmark model of the fit tests.
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   FitOptions fo;
   fo.keep_series = true;
   auto fit = FitModel(*spec, series->values, fo);
@@ -73,11 +73,16 @@ TEST_CASE("DEM/GBP: ARCH effects are detected and GARCH(1,1) leaves none", "[ide
   CHECK_FALSE(Find(diag, "ARCH-LM(5) on z").rejected);
 }
 
-TEST_CASE("an AR(1)-GJR(1,1,1)-t series is identified with an AR term and asymmetry",
+TEST_CASE("an ARMA(1,0)/GJR-GARCH(1,1)/student series is identified with an AR term and asymmetry",
           "[identify]") {
-  const auto r = Sim("arma", {1, 0}, "gjr", {1, 1, 1}, "t",
-                     {{"mu", 0.02}, {"ar1", 0.3}, {"omega", 0.03}, {"alpha1", 0.02},
-                      {"gamma1", 0.16}, {"beta1", 0.88}, {"nu", 6.0}},
+  const auto r = Sim("arma", {1, 0}, "gjr", {1, 1, 1}, "student",
+                     {{"mu", 0.02},
+                      {"ar_1", 0.3},
+                      {"omega", 0.03},
+                      {"alpha_1", 0.02},
+                      {"gamma_1", 0.16},
+                      {"beta_1", 0.88},
+                      {"nu", 6.0}},
                      4000, 31);
   auto rep = IdentifyModel(r);
   REQUIRE(rep.ok());
@@ -90,8 +95,8 @@ TEST_CASE("an AR(1)-GJR(1,1,1)-t series is identified with an AR term and asymme
 }
 
 TEST_CASE("white noise with constant variance yields no ARCH effect", "[identify]") {
-  const auto r = Sim("constant", {}, "constant", {}, "normal", {{"mu", 0.0}, {"omega", 1.0}},
-                     2000, 41);
+  const auto r =
+      Sim("constant", {}, "flat", {}, "gaussian", {{"mu", 0.0}, {"omega", 1.0}}, 2000, 41);
   auto rep = IdentifyModel(r);
   REQUIRE(rep.ok());
   INFO(rep->arch_decision);
@@ -103,10 +108,10 @@ TEST_CASE("white noise with constant variance yields no ARCH effect", "[identify
 
 TEST_CASE("a pure ARCH(3) series is identified as ARCH(3) or a GARCH that fits as well",
           "[identify]") {
-  const auto r = Sim("constant", {}, "arch", {3}, "normal",
-                     {{"mu", 0.0}, {"omega", 0.2}, {"alpha1", 0.3}, {"alpha2", 0.2},
-                      {"alpha3", 0.2}},
-                     4000, 51);
+  const auto r =
+      Sim("constant", {}, "arch", {3}, "gaussian",
+          {{"mu", 0.0}, {"omega", 0.2}, {"alpha_1", 0.3}, {"alpha_2", 0.2}, {"alpha_3", 0.2}}, 4000,
+          51);
   auto rep = IdentifyModel(r);
   REQUIRE(rep.ok());
   const ModelSpec& s = rep->final_fit.params.spec;
@@ -142,16 +147,16 @@ TEST_CASE("degenerate windows give clear errors or flagged reports", "[identify]
           "too few observations: 3 given, at least 100 needed");
   }
   SECTION("NaN") {
-    auto r = Sim("constant", {}, "garch", {1, 1}, "normal",
-                 {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}}, 500, 3);
+    auto r = Sim("constant", {}, "garch", {1, 1}, "gaussian",
+                 {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}}, 500, 3);
     r[200] = std::nan("");
     auto rep = IdentifyModel(r);
     REQUIRE_FALSE(rep.ok());
     CHECK(std::string(rep.status().message()) == "observation 201 is not a finite number (nan)");
   }
   SECTION("one huge outlier") {
-    auto r = Sim("constant", {}, "garch", {1, 1}, "normal",
-                 {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}}, 1500, 4);
+    auto r = Sim("constant", {}, "garch", {1, 1}, "gaussian",
+                 {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}}, 1500, 4);
     r[700] = 1e4;
     auto rep = IdentifyModel(r);
     REQUIRE(rep.ok());
@@ -233,10 +238,9 @@ TEST_CASE("short windows: the weak-evidence rule picks clustering, QLIKE improve
 }
 
 TEST_CASE("the CLI runs the pipeline and reports every step in JSON", "[identify][cli]") {
-  const auto r = Sim("constant", {}, "garch", {1, 1}, "t",
-                     {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85},
-                      {"nu", 6}},
-                     1500, 61);
+  const auto r =
+      Sim("constant", {}, "garch", {1, 1}, "student",
+          {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}, {"nu", 6}}, 1500, 61);
   std::string text = "ret\n";
   for (double x : r) text += std::to_string(x) + "\n";
   const std::string dir = testing::ScratchDir("identify_cli");
@@ -251,9 +255,13 @@ TEST_CASE("the CLI runs the pipeline and reports every step in JSON", "[identify
   CHECK(j.at("steps").at("mean_order").at("candidates").size() == 4);
   CHECK(j.at("steps").at("arch_effect").at("squared_residual_pacf").size() == 8);
   CHECK(j.at("steps").at("variance").at("candidates").size() == 12);  // (2 + 4) x 2 laws
-  for (const char* key : {"model", "params", "std_errors", "robust_std_errors", "loglik", "aic",
-                          "bic", "nobs", "converged", "diagnostics", "warnings"}) {
+  for (const char* key : {"model", "estimates", "se_hessian", "se_robust", "log_likelihood", "aic",
+                          "bic", "likelihood_terms", "converged", "diagnostics", "warnings"}) {
     CHECK(j.contains(key));
+  }
+  for (const auto& c : j.at("steps").at("variance").at("candidates")) {
+    CHECK(c.contains("log_likelihood"));
+    CHECK(c.contains("num_params"));
   }
   auto bad = testing::RunCli({"fit", "--input", path, "--mean", "auto"});
   CHECK(bad.exit_code == 2);

@@ -14,16 +14,16 @@ struct Case {
   const char* mean;
   std::vector<int> mean_order;
   const char* variance;
-  std::vector<int> variance_order;
+  VarianceLags variance_order;
 };
 
 // Every mean x variance family, small and higher orders.
 const std::vector<Case> kCases = {
-    {"constant", {}, "garch", {1, 1}}, {"zero", {}, "garch", {2, 1}},
-    {"arma", {1, 1}, "garch", {1, 1}}, {"arma", {2, 1}, "gjr", {1, 1, 1}},
-    {"constant", {}, "gjr", {2, 1, 2}}, {"zero", {}, "arch", {3}},
-    {"arma", {0, 2}, "arch", {1}},    {"constant", {}, "ewma", {}},
-    {"arma", {1, 0}, "constant", {}},
+    {"constant", {}, "garch", {1, 1}},  {"zero", {}, "garch", {2, 1}},
+    {"arma", {1, 1}, "garch", {1, 1}},  {"arma", {2, 1}, "gjr", {1, 1, 1}},
+    {"constant", {}, "gjr", {2, 2, 1}}, {"zero", {}, "arch", {3}},
+    {"arma", {0, 2}, "arch", {1}},      {"constant", {}, "ewma", {}},
+    {"arma", {1, 0}, "flat", {}},
 };
 
 // Plausible parameter values for a spec (inside the constraints).
@@ -59,8 +59,8 @@ double LogLik(const ModelParams& p, const std::vector<double>& r, Presample pre)
 TEST_CASE("analytic gradient matches central finite differences for every model", "[likelihood]") {
   const std::vector<double> r = testing::TestGarchSeries(600, 11);
   for (const auto& c : kCases) {
-    for (const char* law : {"normal", "t"}) {
-      for (Presample pre : {Presample::kMeanSquare, Presample::kBackcast}) {
+    for (const char* law : {"gaussian", "student"}) {
+      for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
         auto spec = MakeModelSpec(c.mean, c.mean_order, c.variance, c.variance_order, law);
         REQUIRE(spec.ok());
         const ModelParams p = ParamsFor(*spec);
@@ -106,13 +106,18 @@ nlohmann::json SpecJson(const ModelSpec& s) {
 TEST_CASE("log-likelihood equals an independent SciPy implementation", "[likelihood][scipy]") {
   const std::vector<double> r = testing::TestGarchSeries(1500, 5);
   const std::vector<std::pair<Case, const char*>> checks = {
-      {{"constant", {}, "garch", {1, 1}}, "normal"}, {{"constant", {}, "garch", {1, 1}}, "t"},
-      {{"constant", {}, "gjr", {1, 1, 1}}, "normal"}, {{"arma", {1, 1}, "gjr", {1, 1, 1}}, "t"},
-      {{"arma", {2, 1}, "garch", {2, 2}}, "t"},      {{"zero", {}, "arch", {3}}, "normal"},
-      {{"constant", {}, "ewma", {}}, "t"},
+      {{"constant", {}, "garch", {1, 1}}, "gaussian"},
+      {{"constant", {}, "garch", {1, 1}}, "student"},
+      {{"constant", {}, "gjr", {1, 1, 1}}, "gaussian"},
+      {{"arma", {1, 1}, "gjr", {1, 1, 1}}, "student"},
+      {{"constant", {}, "gjr", {2, 1, 1}}, "gaussian"},  // asym lags 1 < shock lags 2
+      {{"arma", {2, 1}, "garch", {2, 2}}, "student"},
+      {{"zero", {}, "arch", {3}}, "gaussian"},
+      {{"constant", {}, "ewma", {}}, "student"},
+      {{"arma", {1, 0}, "flat", {}}, "student"},
   };
   for (const auto& [c, law] : checks) {
-    for (Presample pre : {Presample::kMeanSquare, Presample::kBackcast}) {
+    for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
       auto spec = MakeModelSpec(c.mean, c.mean_order, c.variance, c.variance_order, law);
       REQUIRE(spec.ok());
       const ModelParams p = ParamsFor(*spec);
@@ -131,14 +136,53 @@ TEST_CASE("log-likelihood equals an independent SciPy implementation", "[likelih
   }
 }
 
+TEST_CASE("robust-start: a robust scale of the first bars, not moved by one outlier",
+          "[likelihood]") {
+  // Zero-mean flat model: the residuals are the returns, so the presample value
+  // can be checked by hand.
+  auto spec = MakeModelSpec("zero", {}, "flat", {}, "gaussian");
+  REQUIRE(spec.ok());
+  const ModelParams p{*spec, {1.0}};
+  // 60 returns: the first 50 alternate +-1 and +-3 (|e| = 1 on even j, 3 on
+  // odd j); bars 50.. are 100 and lie outside the span.
+  std::vector<double> r(60, 100.0);
+  for (int j = 0; j < 50; ++j) r[j] = (j % 2 == 0 ? 1.0 : -3.0);
+  LikelihoodOptions o;
+  o.presample = Presample::kRobustStart;
+  o.gradient = false;
+  auto res = EvaluateLikelihood(p, r, o);
+  REQUIRE(res.ok());
+  // Weights 2^(-j/10): the even bars carry more than half of the weight
+  // (sum over even j of 2^(-j/10) / total = 1 / (1 + 2^(-1/10)) = 0.517), so
+  // the weighted median of |e| is 1 and s2 = 1.4826^2.
+  CHECK(res->presample_variance == Approx(kRobustStartConsistency * kRobustStartConsistency));
+  // One huge first return moves the median only to the next value of |e| (3).
+  r[0] = 1e3;
+  auto outlier = EvaluateLikelihood(p, r, o);
+  REQUIRE(outlier.ok());
+  CHECK(outlier->presample_variance ==
+        Approx(9.0 * kRobustStartConsistency * kRobustStartConsistency));
+  o.presample = Presample::kMeanSquare;
+  auto ms = EvaluateLikelihood(p, r, o);
+  REQUIRE(ms.ok());
+  CHECK(ms->presample_variance > 1e4);  // the mean square follows the outlier and bars 50..
+  // All-zero residuals fall back to the mean square.
+  std::vector<double> zeros(60, 0.0);
+  zeros[55] = 2.0;
+  o.presample = Presample::kRobustStart;
+  auto z = EvaluateLikelihood(p, zeros, o);
+  REQUIRE(z.ok());
+  CHECK(z->presample_variance == Approx(4.0 / 60));
+}
+
 TEST_CASE("bad inputs to the likelihood are clear errors", "[likelihood]") {
-  auto spec = MakeModelSpec("arma", {2, 0}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("arma", {2, 0}, "garch", {1, 1}, "gaussian");
   REQUIRE(spec.ok());
   ModelParams p = ParamsFor(*spec);
   auto short_res = EvaluateLikelihood(p, std::vector<double>{0.1, 0.2});
   REQUIRE_FALSE(short_res.ok());
   CHECK(std::string(short_res.status().message()) ==
-        "too few observations: 2 for model ARMA(2,0)-GARCH(1,1)-normal");
+        "too few observations: 2 for model ARMA(2,0)/GARCH(1,1)/gaussian");
   std::vector<double> r = testing::TestGarchSeries(50, 1);
   r[9] = std::nan("");
   auto nan_res = EvaluateLikelihood(p, r);

@@ -9,7 +9,7 @@
 namespace aftershock {
 namespace {
 
-void CheckRecovery(const char* mean, std::vector<int> mo, const char* var, std::vector<int> vo,
+void CheckRecovery(const char* mean, std::vector<int> mo, const char* var, VarianceLags vo,
                    const char* law, const std::vector<std::pair<std::string, double>>& truth,
                    uint64_t seed) {
   auto spec = MakeModelSpec(mean, mo, var, vo, law);
@@ -34,22 +34,30 @@ void CheckRecovery(const char* mean, std::vector<int> mo, const char* var, std::
   }
 }
 
-TEST_CASE("GARCH(1,1)-normal parameters are recovered", "[estimator][recovery]") {
-  CheckRecovery("constant", {}, "garch", {1, 1}, "normal",
-                {{"mu", 0.03}, {"omega", 0.02}, {"alpha1", 0.07}, {"beta1", 0.91}}, 101);
+TEST_CASE("gaussian GARCH(1,1) parameters are recovered", "[estimator][recovery]") {
+  CheckRecovery("constant", {}, "garch", {1, 1}, "gaussian",
+                {{"mu", 0.03}, {"omega", 0.02}, {"alpha_1", 0.07}, {"beta_1", 0.91}}, 101);
 }
 
-TEST_CASE("GJR(1,1,1)-t parameters are recovered", "[estimator][recovery]") {
-  CheckRecovery("constant", {}, "gjr", {1, 1, 1}, "t",
-                {{"mu", 0.02}, {"omega", 0.03}, {"alpha1", 0.03}, {"gamma1", 0.09},
-                 {"beta1", 0.9}, {"nu", 6.0}},
+TEST_CASE("student GJR-GARCH(1,1) parameters are recovered", "[estimator][recovery]") {
+  CheckRecovery("constant", {}, "gjr", {1, 1, 1}, "student",
+                {{"mu", 0.02},
+                 {"omega", 0.03},
+                 {"alpha_1", 0.03},
+                 {"gamma_1", 0.09},
+                 {"beta_1", 0.9},
+                 {"nu", 6.0}},
                 202);
 }
 
 TEST_CASE("ARMA(1,1)-GARCH(1,1) parameters are recovered", "[estimator][recovery]") {
-  CheckRecovery("arma", {1, 1}, "garch", {1, 1}, "normal",
-                {{"mu", 0.01}, {"ar1", 0.5}, {"ma1", -0.3}, {"omega", 0.05}, {"alpha1", 0.1},
-                 {"beta1", 0.85}},
+  CheckRecovery("arma", {1, 1}, "garch", {1, 1}, "gaussian",
+                {{"mu", 0.01},
+                 {"ar_1", 0.5},
+                 {"ma_1", -0.3},
+                 {"omega", 0.05},
+                 {"alpha_1", 0.1},
+                 {"beta_1", 0.85}},
                 303);
 }
 

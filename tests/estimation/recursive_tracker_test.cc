@@ -19,7 +19,7 @@ namespace {
 // Parameter vectors in the layout of model_spec.h (names are not used, so the
 // tests do not depend on the spelling of parameter names).
 ModelParams Garch(double omega, double alpha, double beta, double nu = 6.0) {
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, nu > 0 ? "t" : "normal");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, nu > 0 ? "student" : "gaussian");
   REQUIRE(spec.ok());
   ModelParams p{*spec, {0.0, omega, alpha, beta}};
   if (nu > 0) p.values.push_back(nu);
@@ -28,7 +28,7 @@ ModelParams Garch(double omega, double alpha, double beta, double nu = 6.0) {
 }
 
 ModelParams Gjr(double omega, double alpha, double gamma, double beta) {
-  auto spec = MakeModelSpec("zero", {}, "gjr", {1, 1, 1}, "t");
+  auto spec = MakeModelSpec("zero", {}, "gjr", {1, 1, 1}, "student");
   REQUIRE(spec.ok());
   ModelParams p{*spec, {omega, alpha, gamma, beta, 7.0}};
   REQUIRE(p.CheckConstraints().ok());
@@ -56,11 +56,11 @@ void CheckFeasible(const RecursiveTracker& t, const ModelParams& anchor, double 
 TEST_CASE("supports order-one GARCH and GJR with a zero or constant mean", "[tracker]") {
   CHECK(RecursiveTracker::Supports(Garch(0.05, 0.05, 0.9).spec));
   CHECK(RecursiveTracker::Supports(Gjr(0.05, 0.03, 0.05, 0.9).spec));
-  CHECK_FALSE(RecursiveTracker::Supports(*MakeModelSpec("constant", {}, "garch", {2, 1}, "t")));
-  CHECK_FALSE(RecursiveTracker::Supports(*MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "t")));
-  CHECK_FALSE(RecursiveTracker::Supports(*MakeModelSpec("zero", {}, "ewma", {}, "normal")));
+  CHECK_FALSE(RecursiveTracker::Supports(*MakeModelSpec("constant", {}, "garch", {2, 1}, "student")));
+  CHECK_FALSE(RecursiveTracker::Supports(*MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "student")));
+  CHECK_FALSE(RecursiveTracker::Supports(*MakeModelSpec("zero", {}, "ewma", {}, "gaussian")));
   RecursiveTracker t;
-  auto ewma = MakeModelSpec("zero", {}, "ewma", {}, "normal");
+  auto ewma = MakeModelSpec("zero", {}, "ewma", {}, "gaussian");
   t.Anchor(ModelParams{*ewma, {0.94}}, 1.0, TrackerOptions{});
   CHECK_FALSE(t.active());
   t.Step(0.5, TrackerOptions{});  // inactive: no effect

@@ -15,7 +15,7 @@ namespace aftershock {
 namespace {
 
 ModelParams Garch(double omega, double alpha, double beta) {
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
   REQUIRE(spec.ok());
   return ModelParams{*spec, {0.0, omega, alpha, beta, 6.0}};  // mu, omega, alpha_1, beta_1, nu
 }
@@ -51,7 +51,7 @@ TEST_CASE("SimulateDrift: stable, linear and step paths", "[tracking_study]") {
   CHECK(st->sigma2[601] == Approx(p[1] + p[2] * e * e + p[3] * st->sigma2[600]).epsilon(1e-14));
   // Unsupported models are refused.
   DriftCase bad = c;
-  bad.from = ModelParams{*MakeModelSpec("zero", {}, "ewma", {}, "normal"), {0.94}};
+  bad.from = ModelParams{*MakeModelSpec("zero", {}, "ewma", {}, "gaussian"), {0.94}};
   CHECK_FALSE(SimulateDrift(bad).ok());
 }
 

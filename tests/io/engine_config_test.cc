@@ -32,7 +32,8 @@ TEST_CASE("an empty document gives the documented defaults", "[engine_config]") 
   CHECK(c->bars.grace_ns == 200000000);
   CHECK(c->bars.max_lateness_ns == 5000000000);
   CHECK_FALSE(c->bars.session.enabled);
-  CHECK(c->model.spec.Label() == MakeModelSpec("constant", {}, "garch", {1, 1}, "t")->Label());
+  CHECK(c->model.spec.Label() ==
+        MakeModelSpec("constant", {}, "garch", {1, 1}, "student")->Label());
   CHECK(c->model.presample == Presample::kMeanSquare);
   CHECK_FALSE(c->model.has_params);
   CHECK(c->warmup.ewma_lambda == 0.94);
@@ -90,9 +91,10 @@ TEST_CASE("both shipped configuration files parse", "[engine_config]") {
   CHECK(e->bars.session.start_minute == 480);
   CHECK(e->bars.session.end_minute == 990);
   CHECK(e->bars.session.tz_offset_minutes == 60);
-  CHECK(e->model.spec.Label() == "ARMA(1,1)-GJR(1,1,1)-t");
+  CHECK(e->model.spec.Label() == "ARMA(1,1)/GJR-GARCH(1,1)/student");
+  CHECK(e->model.presample == Presample::kRobustStart);
   REQUIRE(e->model.has_params);
-  CHECK(*e->model.params.Get("gamma1") == 0.05);
+  CHECK(*e->model.params.Get("gamma_1") == 0.05);
   CHECK(e->outputs.return_units == ReturnUnits::kPercent);
   // What `aftershock simulate --publish` sends by default.
   CHECK(e->feed.encoding == WireEncoding::kJson);
@@ -281,24 +283,55 @@ TEST_CASE("model and parameter errors name the key and line", "[engine_config]")
             .find("config.toml:3: [model] mean_order: ARMA orders must be in 0..5") == 0);
   CHECK(ErrorOf("[model]\nmean_order = [1, 1]\n") ==
         "config.toml:2: [model] mean_order: only used with mean = \"arma\"");
-  CHECK(
-      ErrorOf("[model]\nvariance_order = [1]\n").find("config.toml:2: [model] variance_order: ") ==
-      0);
-  const std::string head = "[model]\nvariance = \"garch\"\ninnovations = \"normal\"\n";
+  // Lags are named keys; the positional key of before is refused with its replacement.
+  CHECK(ErrorOf("[model]\nvariance_order = [1, 1]\n") ==
+        "config.toml:2: [model] 'variance_order' was renamed: use shock_lags, asym_lags, "
+        "variance_lags (CHANGELOG.md)");
+  CHECK(ErrorOf("[model]\nvariance = \"garch\"\nasym_lags = 1\n") ==
+        "config.toml:3: [model] asym_lags: variance 'garch' has no asym_lags (asym_lags is for "
+        "gjr)");
+  CHECK(ErrorOf("[model]\nvariance = \"gjr\"\nshock_lags = 9\n")
+            .find("config.toml:3: [model] shock_lags: GARCH shock_lags must be in 1..5, got 9") ==
+        0);
+  CHECK(ErrorOf("[model]\nvariance = \"garch\"\nvariance_lags = 6\n")
+            .find("config.toml:3: [model] variance_lags: GARCH variance_lags must be in 0..5") ==
+        0);
+  CHECK(ErrorOf("[model]\nvariance = \"constant\"\n") ==
+        "config.toml:2: [model] variance: unknown variance 'constant' (expected flat, arch, "
+        "garch, gjr or ewma); 'constant' was renamed: use flat (CHANGELOG.md)");
+  CHECK(ErrorOf("[model]\ninnovations = \"t\"\n").find("'t' was renamed: use student") !=
+        std::string::npos);
+  CHECK(ErrorOf("[model]\npresample = \"backcast\"\n")
+            .find("'backcast' was renamed: use robust-start") != std::string::npos);
+  {
+    auto gjr = ParseEngineConfig(
+        "[model]\nvariance = \"gjr\"\nshock_lags = 2\nasym_lags = 1\nvariance_lags = 1\n", "x");
+    REQUIRE(gjr.ok());
+    CHECK(gjr->model.spec.Label() == "const/GJR-GARCH(2,1;1)/student");
+    CHECK(gjr->model.spec.arch_order == 2);
+    CHECK(gjr->model.spec.asym_order == 1);
+    CHECK(gjr->model.spec.garch_order == 1);
+  }
+  const std::string head = "[model]\nvariance = \"garch\"\ninnovations = \"gaussian\"\n";
   const std::string nu_error =
-      ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = 0.1\nbeta1 = 0.8\nnu = 5\n");
+      ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha_1 = 0.1\nbeta_1 = 0.8\nnu = 5\n");
   CHECK(nu_error.find("config.toml:9: [model.params] nu: not a parameter of ") == 0);
-  CHECK(nu_error.find("(expected mu, omega, alpha1, beta1)") != std::string::npos);
-  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = \"x\"\nbeta1 = 0.8\n") ==
-        "config.toml:7: [model.params] alpha1: expected a number, got string");
-  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nbeta1 = 0.8\n")
+  CHECK(nu_error.find("(expected mu, omega, alpha_1, beta_1)") != std::string::npos);
+  // The retired parameter spelling names the new one.
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = 0.1\nbeta_1 = 0.8\n")
+            .find("[model.params] alpha1: not a parameter of const/GARCH(1,1)/gaussian "
+                  "(expected mu, omega, alpha_1, beta_1); 'alpha1' was renamed: use alpha_1") !=
+        std::string::npos);
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha_1 = \"x\"\nbeta_1 = 0.8\n") ==
+        "config.toml:7: [model.params] alpha_1: expected a number, got string");
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nbeta_1 = 0.8\n")
             .find("config.toml:4: [model.params] ") == 0);
-  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = -0.1\nalpha1 = 0.1\nbeta1 = 0.8\n")
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = -0.1\nalpha_1 = 0.1\nbeta_1 = 0.8\n")
             .find("config.toml:6: [model.params] omega: omega must be > 0") == 0);
-  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha1 = 0.3\nbeta1 = 0.8\n")
+  CHECK(ErrorOf(head + "[model.params]\nmu = 0\nomega = 0.1\nalpha_1 = 0.3\nbeta_1 = 0.8\n")
             .find("persistence must be < 1") != std::string::npos);
   auto ok = ParseEngineConfig(
-      head + "[model.params]\nmu = 0\nomega = 1\nalpha1 = 0.1\nbeta1 = 0.8\n", "x");
+      head + "[model.params]\nmu = 0\nomega = 1\nalpha_1 = 0.1\nbeta_1 = 0.8\n", "x");
   REQUIRE(ok.ok());
   CHECK(ok->model.has_params);
   CHECK(ok->model.params.values == std::vector<double>{0, 1, 0.1, 0.8});

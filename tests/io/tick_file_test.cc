@@ -50,11 +50,11 @@ TEST_CASE("ISO-8601 and integer times", "[tick_file]") {
 }
 
 TEST_CASE("price files with comments, CRLF and spaces", "[tick_file]") {
-  auto r = TickFileReader::FromString(
+  const std::string content =
       "# recorded by the simulator\nsymbol,time,price\r\n"
       "ALDER.X,2026-03-02T09:30:00Z,101.25\r\n\n"
-      " BIRCH.Y , 1772443800000000001 , 5e-3 \n",
-      "ticks.csv");
+      " BIRCH.Y , 1772443800000000001 , 5e-3 \n";
+  auto r = TickFileReader::FromString(content, "ticks.csv");
   REQUIRE(r.ok());
   CHECK((*r)->kind() == Tick::kPrice);
   CHECK_FALSE((*r)->has_rv());
@@ -69,6 +69,8 @@ TEST_CASE("price files with comments, CRLF and spaces", "[tick_file]") {
   CHECK(ticks[1].value == 5e-3);
   CHECK((*r)->good_lines() == 2);
   CHECK((*r)->bad_lines() == 0);
+  // Every byte is counted (the progress of `replay` divides it by the file size).
+  CHECK((*r)->bytes_read() == static_cast<int64_t>(content.size()));
 }
 
 TEST_CASE("return files with rv, columns in any order", "[tick_file]") {

@@ -83,9 +83,9 @@ TEST_CASE("JSON update has the documented keys and round-trips exactly", "[updat
   const auto j = nlohmann::ordered_json::parse(out);
   std::string keys;
   for (auto it = j.begin(); it != j.end(); ++it) keys += it.key() + " ";
-  CHECK(keys == "s t r mu eps var z var_next vol_ann var_h var_risk es scale ver flags ");
+  CHECK(keys == "s t r mu eps var z var_next vol_ann var_h value_at_risk es scale ver flags ");
   CHECK(j["var_h"].contains("5"));
-  CHECK(j["var_risk"].contains("0.99"));
+  CHECK(j["value_at_risk"].contains("0.99"));
   CHECK(j["es"].contains("0.975"));
   CHECK(j["flags"].dump() == R"(["warmup","gap"])");
   CHECK(j["t"].get<int64_t>() == 1772443800000000000);
@@ -93,6 +93,12 @@ TEST_CASE("JSON update has the documented keys and round-trips exactly", "[updat
   BarUpdate back;
   REQUIRE(DecodeUpdateJson(out, &back).ok());
   CheckSame(back, u);
+  // An update with the retired key name is refused naming the new one.
+  std::string old = out;
+  old.replace(old.find("\"value_at_risk\""), 15, "\"var_risk\"");
+  CHECK(std::string(DecodeUpdateJson(old, &back).message()) ==
+        "update JSON: unknown key 'var_risk': 'var_risk' was renamed: use value_at_risk "
+        "(CHANGELOG.md)");
 }
 
 TEST_CASE("binary update round-trips exactly and has the documented size", "[update_codec]") {

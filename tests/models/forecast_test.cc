@@ -14,9 +14,9 @@
 namespace aftershock {
 namespace {
 
-ModelParams Make(const std::string& variance, const std::vector<int>& order,
+ModelParams Make(const std::string& variance, const VarianceLags& order,
                  const std::vector<std::pair<std::string, double>>& named,
-                 const std::string& innovations = "normal") {
+                 const std::string& innovations = "gaussian") {
   auto spec = MakeModelSpec("zero", {}, variance, order, innovations);
   REQUIRE(spec.ok());
   auto p = ModelParams::FromNamed(*spec, named);
@@ -26,19 +26,19 @@ ModelParams Make(const std::string& variance, const std::vector<int>& order,
 }
 
 ModelParams Garch11() {
-  return Make("garch", {1, 1}, {{"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
+  return Make("garch", {1, 1}, {{"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
 }
 ModelParams Garch21() {
   return Make("garch", {2, 1},
-              {{"omega", 0.04}, {"alpha1", 0.05}, {"alpha2", 0.07}, {"beta1", 0.83}});
+              {{"omega", 0.04}, {"alpha_1", 0.05}, {"alpha_2", 0.07}, {"beta_1", 0.83}});
 }
 ModelParams Gjr111() {
   return Make("gjr", {1, 1, 1},
-              {{"omega", 0.03}, {"alpha1", 0.03}, {"gamma1", 0.1}, {"beta1", 0.88}, {"nu", 8.0}},
-              "t");
+              {{"omega", 0.03}, {"alpha_1", 0.03}, {"gamma_1", 0.1}, {"beta_1", 0.88}, {"nu", 8.0}},
+              "student");
 }
 ModelParams Arch3() {
-  return Make("arch", {3}, {{"omega", 0.2}, {"alpha1", 0.3}, {"alpha2", 0.2}, {"alpha3", 0.15}});
+  return Make("arch", {3}, {{"omega", 0.2}, {"alpha_1", 0.3}, {"alpha_2", 0.2}, {"alpha_3", 0.15}});
 }
 
 // An end-of-sample state away from the steady state, with a recent negative
@@ -68,7 +68,7 @@ TEST_CASE("state from history applies the recursion once", "[forecast]") {
       StateFromHistory(a3, std::vector<double>{1.0, 2.0}, std::vector<double>{1.0, 1.0});
   REQUIRE_FALSE(short_hist.ok());
   CHECK(std::string(short_hist.status().message()) ==
-        "model zero-mean-ARCH(3)-normal needs 3 observations of history, got 2");
+        "model zero/ARCH(3)/gaussian needs 3 observations of history, got 2");
   auto mismatch = StateFromHistory(a3, std::vector<double>{1, 2, 3}, std::vector<double>{1, 1});
   REQUIRE_FALSE(mismatch.ok());
   CHECK(std::string(mismatch.status().message()) ==
@@ -78,7 +78,7 @@ TEST_CASE("state from history applies the recursion once", "[forecast]") {
 TEST_CASE("closed forms equal brute-force iteration for (1,1)-type models", "[forecast]") {
   const auto garch = Garch11();
   const auto gjr = Gjr111();
-  const auto arch1 = Make("arch", {1}, {{"omega", 0.3}, {"alpha1", 0.6}});
+  const auto arch1 = Make("arch", {1}, {{"omega", 0.3}, {"alpha_1", 0.6}});
   for (const ModelParams* p : {&garch, &gjr, &arch1}) {
     INFO(p->spec.Label());
     REQUIRE(HasClosedFormForecast(p->spec));
@@ -127,7 +127,7 @@ TEST_CASE("EWMA is flat and constant variance is omega", "[forecast]") {
   CHECK(table->SummedVariance(1, st.next_variance) == Approx(10 * st.next_variance));
   CHECK(table->PointVariance(1, st.next_variance) == st.next_variance);
 
-  const auto cst = Make("constant", {}, {{"omega", 2.5}});
+  const auto cst = Make("flat", {}, {{"omega", 2.5}});
   VarianceState cs;
   cs.next_variance = NextVariance(cst, cs);
   CHECK(cs.next_variance == 2.5);

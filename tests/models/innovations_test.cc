@@ -253,10 +253,10 @@ TEST_CASE("invalid nu is a clear error", "[innovations]") {
   REQUIRE_FALSE(bad.ok());
   CHECK(std::string(bad.status().message()) == "standardized t needs nu in (2, 500], got 2");
   CHECK_FALSE(InnovationLaw::StudentT(std::nan("")).ok());
-  auto spec = MakeModelSpec("zero", {}, "garch", {}, "t");
+  auto spec = MakeModelSpec("zero", {}, "garch", {}, "student");
   REQUIRE(spec.ok());
-  auto p =
-      ModelParams::FromNamed(*spec, {{"omega", 0.1}, {"alpha1", 0.1}, {"beta1", 0.8}, {"nu", 7.0}});
+  auto p = ModelParams::FromNamed(*spec,
+                                  {{"omega", 0.1}, {"alpha_1", 0.1}, {"beta_1", 0.8}, {"nu", 7.0}});
   REQUIRE(p.ok());
   auto law = InnovationLaw::FromParams(*p);
   REQUIRE(law.ok());

@@ -50,14 +50,14 @@ TEST_CASE("streaming returns equal the batch simulator bit for bit") {
   insts[1].regimes = {
       {15, 3.0, VarianceChangeShape::kStep}, {30, 2.0}, {45, 0.5, VarianceChangeShape::kStep}};
   // An ARMA(1,1) mean exercises the full mean recursion as well.
-  auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("arma", {1, 1}, "garch", {1, 1}, "student");
   REQUIRE(spec.ok());
   auto arma = ModelParams::FromNamed(*spec, {{"mu", 1e-5},
-                                             {"ar1", 0.2},
-                                             {"ma1", -0.1},
+                                             {"ar_1", 0.2},
+                                             {"ma_1", -0.1},
                                              {"omega", 2e-7},
-                                             {"alpha1", 0.08},
-                                             {"beta1", 0.9},
+                                             {"alpha_1", 0.08},
+                                             {"beta_1", 0.9},
                                              {"nu", 6.0}});
   REQUIRE(arma.ok());
   insts.push_back({"ARMA.TEST", 50.0, *arma, {{5, 2.0}, {20, 3.0, VarianceChangeShape::kStep}}});
@@ -190,13 +190,13 @@ TEST_CASE("InstrumentModel maps desk terms to per-bar parameters") {
   const double ppy = 252;
   auto garch = InstrumentModel(p, VarianceKind::kGarch, ppy);
   REQUIRE(garch.ok());
-  CHECK(garch->spec.Label() == "constant-mean-GARCH(1,1)-t");
-  CHECK(*garch->Get("beta1") == Approx(0.90));
+  CHECK(garch->spec.Label() == "const/GARCH(1,1)/student");
+  CHECK(*garch->Get("beta_1") == Approx(0.90));
   CHECK(*garch->Get("mu") == Approx(0.05 / 252));
   CHECK(std::sqrt(garch->UnconditionalVariance() * ppy) == Approx(0.2));
   auto gjr = InstrumentModel(p, VarianceKind::kGjr, ppy);
   REQUIRE(gjr.ok());
-  CHECK(*gjr->Get("beta1") == Approx(0.95 - 0.05 - 0.02));
+  CHECK(*gjr->Get("beta_1") == Approx(0.95 - 0.05 - 0.02));
   CHECK(gjr->Persistence() == Approx(0.95));
   CHECK(std::sqrt(gjr->UnconditionalVariance() * ppy) == Approx(0.2));
   auto flat = InstrumentModel(p, VarianceKind::kConstant, ppy);

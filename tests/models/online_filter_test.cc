@@ -12,7 +12,7 @@
 namespace aftershock {
 namespace {
 
-ModelParams Params(const char* mean, std::vector<int> mo, const char* var, std::vector<int> vo,
+ModelParams Params(const char* mean, std::vector<int> mo, const char* var, VarianceLags vo,
                    const char* law, std::vector<std::pair<std::string, double>> named) {
   auto spec = MakeModelSpec(mean, mo, var, vo, law);
   REQUIRE(spec.ok());
@@ -27,14 +27,21 @@ std::vector<double> Sim(const ModelParams& p, int n, uint64_t seed) {
 
 TEST_CASE("filtered variances equal the likelihood recursion exactly", "[filter]") {
   const std::vector<ModelParams> models = {
-      Params("constant", {}, "garch", {1, 1}, "normal",
-             {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}}),
-      Params("constant", {}, "gjr", {1, 1, 1}, "t",
-             {{"mu", 0.0}, {"omega", 0.04}, {"alpha1", 0.03}, {"gamma1", 0.1},
-              {"beta1", 0.88}, {"nu", 6}}),
-      Params("zero", {}, "garch", {2, 2}, "normal",
-             {{"omega", 0.05}, {"alpha1", 0.05}, {"alpha2", 0.03}, {"beta1", 0.5},
-              {"beta2", 0.3}}),
+      Params("constant", {}, "garch", {1, 1}, "gaussian",
+             {{"mu", 0.01}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}}),
+      Params("constant", {}, "gjr", {1, 1, 1}, "student",
+             {{"mu", 0.0},
+              {"omega", 0.04},
+              {"alpha_1", 0.03},
+              {"gamma_1", 0.1},
+              {"beta_1", 0.88},
+              {"nu", 6}}),
+      Params("zero", {}, "garch", {2, 2}, "gaussian",
+             {{"omega", 0.05},
+              {"alpha_1", 0.05},
+              {"alpha_2", 0.03},
+              {"beta_1", 0.5},
+              {"beta_2", 0.3}}),
   };
   for (const auto& p : models) {
     const auto r = Sim(p, 3000, 17);
@@ -58,9 +65,13 @@ TEST_CASE("filtered variances equal the likelihood recursion exactly", "[filter]
 }
 
 TEST_CASE("ARMA mean forecasts follow the likelihood recursion", "[filter]") {
-  const ModelParams p = Params("arma", {1, 1}, "garch", {1, 1}, "normal",
-                               {{"mu", 0.02}, {"ar1", 0.3}, {"ma1", -0.1}, {"omega", 0.05},
-                                {"alpha1", 0.1}, {"beta1", 0.85}});
+  const ModelParams p = Params("arma", {1, 1}, "garch", {1, 1}, "gaussian",
+                               {{"mu", 0.02},
+                                {"ar_1", 0.3},
+                                {"ma_1", -0.1},
+                                {"omega", 0.05},
+                                {"alpha_1", 0.1},
+                                {"beta_1", 0.85}});
   const auto r = Sim(p, 2000, 5);
   LikelihoodOptions lo;
   lo.series = true;
@@ -84,9 +95,13 @@ TEST_CASE("ARMA mean forecasts follow the likelihood recursion", "[filter]") {
 }
 
 TEST_CASE("outputs: z, horizons, VaR, ES and scale", "[filter]") {
-  const ModelParams p = Params("constant", {}, "gjr", {1, 1, 1}, "t",
-                               {{"mu", 0.01}, {"omega", 0.02}, {"alpha1", 0.04},
-                                {"gamma1", 0.08}, {"beta1", 0.9}, {"nu", 5}});
+  const ModelParams p = Params("constant", {}, "gjr", {1, 1, 1}, "student",
+                               {{"mu", 0.01},
+                                {"omega", 0.02},
+                                {"alpha_1", 0.04},
+                                {"gamma_1", 0.08},
+                                {"beta_1", 0.9},
+                                {"nu", 5}});
   OutputOptions oo;
   oo.horizons = {1, 5, 20};
   oo.risk_levels = {0.99, 0.975};
@@ -123,9 +138,9 @@ TEST_CASE("outputs: z, horizons, VaR, ES and scale", "[filter]") {
 }
 
 TEST_CASE("higher-order models use the exact recursion for horizons", "[filter]") {
-  const ModelParams p = Params("zero", {}, "garch", {2, 1}, "normal",
-                               {{"omega", 0.05}, {"alpha1", 0.05}, {"alpha2", 0.05},
-                                {"beta1", 0.8}});
+  const ModelParams p =
+      Params("zero", {}, "garch", {2, 1}, "gaussian",
+             {{"omega", 0.05}, {"alpha_1", 0.05}, {"alpha_2", 0.05}, {"beta_1", 0.8}});
   OutputOptions oo;
   oo.horizons = {1, 3, 10};
   auto fm = FilterModel::Create(p, oo, 1);
@@ -142,9 +157,15 @@ TEST_CASE("higher-order models use the exact recursion for horizons", "[filter]"
 }
 
 TEST_CASE("the filter step allocates nothing", "[filter]") {
-  const ModelParams p = Params("arma", {1, 1}, "garch", {2, 1}, "t",
-                               {{"mu", 0.0}, {"ar1", 0.1}, {"ma1", 0.1}, {"omega", 0.05},
-                                {"alpha1", 0.05}, {"alpha2", 0.05}, {"beta1", 0.8}, {"nu", 7}});
+  const ModelParams p = Params("arma", {1, 1}, "garch", {2, 1}, "student",
+                               {{"mu", 0.0},
+                                {"ar_1", 0.1},
+                                {"ma_1", 0.1},
+                                {"omega", 0.05},
+                                {"alpha_1", 0.05},
+                                {"alpha_2", 0.05},
+                                {"beta_1", 0.8},
+                                {"nu", 7}});
   auto fm = FilterModel::Create(p, OutputOptions{}, 1);
   REQUIRE(fm.ok());
   const auto r = Sim(p, 1000, 1);
@@ -157,7 +178,7 @@ TEST_CASE("the filter step allocates nothing", "[filter]") {
 }
 
 TEST_CASE("bad output options are clear errors", "[filter]") {
-  const ModelParams p = Params("zero", {}, "ewma", {}, "normal", {{"lambda", 0.94}});
+  const ModelParams p = Params("zero", {}, "ewma", {}, "gaussian", {{"lambda", 0.94}});
   OutputOptions oo;
   oo.horizons = {5, 1};
   auto a = FilterModel::Create(p, oo, 0);

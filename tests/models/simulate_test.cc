@@ -12,7 +12,7 @@ namespace aftershock {
 namespace {
 
 ModelParams Make(const std::string& mean, const std::vector<int>& mean_order,
-                 const std::string& variance, const std::vector<int>& order,
+                 const std::string& variance, const VarianceLags& order,
                  const std::string& innovations,
                  const std::vector<std::pair<std::string, double>>& named) {
   auto spec = MakeModelSpec(mean, mean_order, variance, order, innovations);
@@ -23,8 +23,8 @@ ModelParams Make(const std::string& mean, const std::vector<int>& mean_order,
 }
 
 ModelParams Garch11() {
-  return Make("constant", {}, "garch", {1, 1}, "normal",
-              {{"mu", 0.02}, {"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}});
+  return Make("constant", {}, "garch", {1, 1}, "gaussian",
+              {{"mu", 0.02}, {"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", 0.9}});
 }
 
 double Mean(const std::vector<double>& x, size_t lo, size_t hi) {
@@ -60,14 +60,14 @@ VarEstimate SampleVariance(const std::vector<double>& x, size_t lo, size_t hi) {
 }
 
 TEST_CASE("the same seed gives the same series, another seed another one", "[simulate]") {
-  const auto p = Make("arma", {1, 1}, "gjr", {1, 1, 1}, "t",
+  const auto p = Make("arma", {1, 1}, "gjr", {1, 1, 1}, "student",
                       {{"mu", 0.01},
-                       {"ar1", 0.3},
-                       {"ma1", -0.1},
+                       {"ar_1", 0.3},
+                       {"ma_1", -0.1},
                        {"omega", 0.02},
-                       {"alpha1", 0.03},
-                       {"gamma1", 0.08},
-                       {"beta1", 0.9},
+                       {"alpha_1", 0.03},
+                       {"gamma_1", 0.08},
+                       {"beta_1", 0.9},
                        {"nu", 6.0}});
   SimulationOptions o;
   o.n = 5000;
@@ -95,9 +95,13 @@ TEST_CASE("the same seed gives the same series, another seed another one", "[sim
 }
 
 TEST_CASE("series follow the stated mean and variance recursions", "[simulate]") {
-  const auto p = Make(
-      "arma", {1, 1}, "garch", {1, 1}, "normal",
-      {{"mu", 0.05}, {"ar1", 0.4}, {"ma1", 0.2}, {"omega", 0.1}, {"alpha1", 0.1}, {"beta1", 0.8}});
+  const auto p = Make("arma", {1, 1}, "garch", {1, 1}, "gaussian",
+                      {{"mu", 0.05},
+                       {"ar_1", 0.4},
+                       {"ma_1", 0.2},
+                       {"omega", 0.1},
+                       {"alpha_1", 0.1},
+                       {"beta_1", 0.8}});
   SimulationOptions o;
   o.n = 300;
   auto s = Simulate(p, o);
@@ -113,7 +117,7 @@ TEST_CASE("series follow the stated mean and variance recursions", "[simulate]")
 
 TEST_CASE("long-run sample variance matches the unconditional variance", "[simulate]") {
   // Each check: |sample - theory| < 4 batch-means standard errors (n = 200,000).
-  SECTION("GARCH(1,1)-normal") {
+  SECTION("gaussian GARCH(1,1)") {
     const auto p = Garch11();
     SimulationOptions o;
     o.n = 200000;
@@ -126,15 +130,15 @@ TEST_CASE("long-run sample variance matches the unconditional variance", "[simul
     CHECK(v.se < 0.02 * p.UnconditionalVariance());  // the check has power
     CHECK(Mean(s->returns, 0, s->returns.size()) == Approx(0.02).margin(0.01));
   }
-  SECTION("ARMA(1,1)-GJR(1,1,1)-t returns") {
-    const auto p = Make("arma", {1, 1}, "gjr", {1, 1, 1}, "t",
+  SECTION("ARMA(1,1)/GJR-GARCH(1,1)/student returns") {
+    const auto p = Make("arma", {1, 1}, "gjr", {1, 1, 1}, "student",
                         {{"mu", 0.1},
-                         {"ar1", 0.5},
-                         {"ma1", 0.3},
+                         {"ar_1", 0.5},
+                         {"ma_1", 0.3},
                          {"omega", 0.04},
-                         {"alpha1", 0.04},
-                         {"gamma1", 0.08},
-                         {"beta1", 0.88},
+                         {"alpha_1", 0.04},
+                         {"gamma_1", 0.08},
+                         {"beta_1", 0.88},
                          {"nu", 8.0}});
     SimulationOptions o;
     o.n = 200000;
@@ -156,12 +160,12 @@ TEST_CASE("long-run sample variance matches the unconditional variance", "[simul
 }
 
 TEST_CASE("standardized shocks have mean 0, variance 1, t has fat tails", "[simulate]") {
-  for (const std::string law : {"normal", "t"}) {
-    const auto p = law == "t"
-                       ? Make("zero", {}, "garch", {1, 1}, "t",
-                              {{"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}, {"nu", 10.0}})
-                       : Make("zero", {}, "garch", {1, 1}, "normal",
-                              {{"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}});
+  for (const std::string law : {"gaussian", "student"}) {
+    const auto p = law == "student"
+                       ? Make("zero", {}, "garch", {1, 1}, "student",
+                              {{"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", 0.9}, {"nu", 10.0}})
+                       : Make("zero", {}, "garch", {1, 1}, "gaussian",
+                              {{"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", 0.9}});
     SimulationOptions o;
     o.n = 200000;
     o.seed = 99;
@@ -183,7 +187,7 @@ TEST_CASE("standardized shocks have mean 0, variance 1, t has fat tails", "[simu
     INFO(law << ": mean " << m1 << " var " << m2 << " kurtosis " << kurt);
     CHECK(std::abs(m1) < 4.0 / std::sqrt(n));
     CHECK(std::abs(m2 - 1.0) < 4.0 * std::sqrt((kurt - 1.0) / n));
-    if (law == "t") {
+    if (law == "student") {
       // Population kurtosis 3 + 6/(nu-4) = 4 for nu = 10; the normal's sample
       // kurtosis has se sqrt(24/n) = 0.011, so > 3.5 separates the two clearly.
       CHECK(kurt > 3.5);
@@ -214,7 +218,7 @@ TEST_CASE("a regime change scales the variance by its multiplier", "[simulate]")
     CHECK(std::abs(after.var - 4.0 * p.UnconditionalVariance()) < 4 * after.se);
   }
   SECTION("EWMA jumps by the multiplier at the change bar") {
-    const auto p = Make("zero", {}, "ewma", {}, "normal", {{"lambda", 0.94}});
+    const auto p = Make("zero", {}, "ewma", {}, "gaussian", {{"lambda", 0.94}});
     SimulationOptions o;
     o.n = 2000;
     o.initial_variance = 1.5;
@@ -230,7 +234,7 @@ TEST_CASE("a regime change scales the variance by its multiplier", "[simulate]")
     CHECK(s->sigma2[1500] == Approx(0.25 * rec(1500)));  // from x2 to x0.5
   }
   SECTION("constant variance steps exactly") {
-    const auto p = Make("zero", {}, "constant", {}, "normal", {{"omega", 0.3}});
+    const auto p = Make("zero", {}, "flat", {}, "gaussian", {{"omega", 0.3}});
     SimulationOptions o;
     o.n = 100;
     o.regime_changes = {{50, 3.0}};
@@ -246,13 +250,13 @@ TEST_CASE("a step-shaped change scales the process itself from its bar on", "[si
   // simulate.h: under a step the variance recursion runs on the unscaled
   // shocks, so with the same draws eps_t = sqrt(s) times the unchanged path's,
   // sigma2_t = s times it, z_t the same; the bars before are untouched.
-  for (const char* law : {"normal", "t"}) {
+  for (const char* law : {"gaussian", "student"}) {
     const auto p =
-        std::string(law) == "t"
-            ? Make("constant", {}, "garch", {1, 1}, "t",
-                   {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.05}, {"beta1", 0.9}, {"nu", 6.0}})
-            : Make("zero", {}, "garch", {1, 1}, "normal",
-                   {{"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}});
+        std::string(law) == "student"
+            ? Make("constant", {}, "garch", {1, 1}, "student",
+                   {{"mu", 0.01}, {"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", 0.9}, {"nu", 6.0}})
+            : Make("zero", {}, "garch", {1, 1}, "gaussian",
+                   {{"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}});
     SimulationOptions o;
     o.n = 400;
     o.seed = 17;
@@ -272,8 +276,8 @@ TEST_CASE("a step-shaped change scales the process itself from its bar on", "[si
   }
   // The omega shape, by contrast, only ramps: one bar after the change the
   // GARCH variance has moved by (m - 1) omega, far from m times.
-  const auto g = Make("zero", {}, "garch", {1, 1}, "normal",
-                      {{"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}});
+  const auto g = Make("zero", {}, "garch", {1, 1}, "gaussian",
+                      {{"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}});
   SimulationOptions o;
   o.n = 200;
   o.seed = 18;
@@ -286,20 +290,20 @@ TEST_CASE("a step-shaped change scales the process itself from its bar on", "[si
 }
 
 TEST_CASE("every variance kind and ARMA order simulates", "[simulate]") {
-  const auto arch = Make("arma", {2, 0}, "arch", {3}, "normal",
+  const auto arch = Make("arma", {2, 0}, "arch", {3}, "gaussian",
                          {{"mu", 0.0},
-                          {"ar1", 0.2},
-                          {"ar2", -0.1},
+                          {"ar_1", 0.2},
+                          {"ar_2", -0.1},
                           {"omega", 0.2},
-                          {"alpha1", 0.3},
-                          {"alpha2", 0.2},
-                          {"alpha3", 0.1}});
-  const auto g21 = Make("zero", {}, "garch", {2, 2}, "t",
+                          {"alpha_1", 0.3},
+                          {"alpha_2", 0.2},
+                          {"alpha_3", 0.1}});
+  const auto g21 = Make("zero", {}, "garch", {2, 2}, "student",
                         {{"omega", 0.02},
-                         {"alpha1", 0.03},
-                         {"alpha2", 0.04},
-                         {"beta1", 0.5},
-                         {"beta2", 0.4},
+                         {"alpha_1", 0.03},
+                         {"alpha_2", 0.04},
+                         {"beta_1", 0.5},
+                         {"beta_2", 0.4},
                          {"nu", 5.0}});
   for (const auto& p : {arch, g21}) {
     SimulationOptions o;
@@ -315,7 +319,7 @@ TEST_CASE("every variance kind and ARMA order simulates", "[simulate]") {
 
 TEST_CASE("bad parameters and options are clear errors", "[simulate]") {
   auto p = Garch11();
-  p.values[3] = 0.96;  // beta1: persistence 1.01
+  p.values[3] = 0.96;  // beta_1: persistence 1.01
   SimulationOptions o;
   auto bad = Simulate(p, o);
   REQUIRE_FALSE(bad.ok());
@@ -327,7 +331,7 @@ TEST_CASE("bad parameters and options are clear errors", "[simulate]") {
   REQUIRE_FALSE(bad.ok());
   CHECK(std::string(bad.status().message()) == "omega must be > 0, got -0.1");
 
-  const auto ewma = Make("zero", {}, "ewma", {}, "normal", {{"lambda", 0.94}});
+  const auto ewma = Make("zero", {}, "ewma", {}, "gaussian", {{"lambda", 0.94}});
   bad = Simulate(ewma, o);
   REQUIRE_FALSE(bad.ok());
   CHECK(std::string(bad.status().message()) ==

@@ -25,7 +25,7 @@ import zmq
 
 MU, OMEGA, ALPHA, BETA = 0.0002, 2e-6, 0.08, 0.9
 KEYS = ["s", "t", "r", "mu", "eps", "var", "z", "var_next", "vol_ann", "var_h",
-        "var_risk", "es", "scale", "ver", "flags"]
+        "value_at_risk", "es", "scale", "ver", "flags"]
 T0 = 1772443800000000000
 
 
@@ -61,13 +61,14 @@ endpoint = "tcp://127.0.0.1:{pub_port}"
 [model]
 mean = "constant"
 variance = "garch"
-variance_order = [1, 1]
-innovations = "normal"
+shock_lags = 1
+variance_lags = 1
+innovations = "gaussian"
 [model.params]
 mu = {MU!r}
 omega = {OMEGA!r}
-alpha1 = {ALPHA!r}
-beta1 = {BETA!r}
+alpha_1 = {ALPHA!r}
+beta_1 = {BETA!r}
 [http]
 enabled = false
 """)

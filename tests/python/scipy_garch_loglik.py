@@ -4,9 +4,14 @@ log-likelihood, written with numpy and scipy.stats (Debian python3-scipy), for
 the live cross-check in tests/estimation/likelihood_test.cc.
 
 Input (stdin, JSON): {"returns": [...], "spec": {"mean": "constant"|"zero"|"arma",
-"p": int, "q": int, "variance": "garch"|"gjr"|"arch"|"ewma"|"constant",
-"na": int, "no": int, "nb": int, "innovations": "normal"|"t"},
-"params": [...], "presample": "mean-square"|"backcast"}
+"p": int, "q": int, "variance": "garch"|"gjr"|"arch"|"ewma"|"flat",
+"na": int, "no": int, "nb": int, "innovations": "gaussian"|"student"},
+"params": [...], "presample": "mean-square"|"robust-start"}
+
+Presample rules (README "Models"): mean-square is the mean of all squared
+residuals; robust-start is (1.4826 * m)^2 with m the weighted median of |eps|
+over the first 50 residuals, weights 2^(-j/10), the median being the smallest
+|eps| whose cumulative weight in ascending order reaches half the total.
 Output (stdout, JSON): {"loglik": float, "scipy": version}
 
 The density comes from scipy.stats (norm.logpdf, t.logpdf with the scale that
@@ -48,15 +53,21 @@ def main():
                 m += ma[j] * eps[k - 1 - j]
         eps[k] = r[t] - m
     e2 = eps ** 2
-    if req["presample"] == "backcast":
-        m = min(n, 75)
-        w = 0.94 ** np.arange(m)
-        s2 = float(np.sum(w * e2[:m]) / np.sum(w))
-    else:
-        s2 = float(np.mean(e2))
+    s2 = float(np.mean(e2))
+    if req["presample"] == "robust-start":
+        m = min(n, 50)
+        a = np.abs(eps[:m])
+        w = np.power(2.0, -np.arange(m) / 10.0)
+        idx = np.argsort(a, kind="stable")
+        cum = np.cumsum(w[idx])
+        med = a[idx[np.searchsorted(cum, 0.5 * np.sum(w))]]
+        # 1 / Phi^-1(3/4) from scipy, not the constant of the C++ code.
+        c = 1.0 / stats.norm.ppf(0.75)
+        if med > 0:
+            s2 = float((c * med) ** 2)
     var = sp["variance"]
     sig2 = np.zeros(n)
-    if var == "constant":
+    if var == "flat":
         sig2[:] = th[pos]; pos += 1
     elif var == "ewma":
         lam = th[pos]; pos += 1
@@ -81,7 +92,7 @@ def main():
                 v += beta[j] * (sig2[k - 1 - j] if k - 1 - j >= 0 else s2)
             sig2[k] = v
     sd = np.sqrt(sig2)
-    if sp["innovations"] == "t":
+    if sp["innovations"] == "student":
         nu = th[pos]; pos += 1
         scale = sd * np.sqrt((nu - 2.0) / nu)
         ll = float(np.sum(stats.t.logpdf(eps, df=nu, loc=0.0, scale=scale)))

@@ -30,11 +30,15 @@ TEST_CASE("a refit record encodes as one JSON object", "[registry]") {
   CHECK(j["outcome"] == "swapped");
   CHECK(j["version"] == 3);
   CHECK(j["applied_bar"] == 901);
-  CHECK(j["params"].size() == 2);
-  CHECK(j["params"][1]["name"] == "omega");
-  CHECK(j["params"][1]["value"] == 0.05);
-  CHECK(j["params"][1]["se"].is_null());  // NaN is never written as a number
-  CHECK(j["params"][0]["robust_se"] == 0.003);
+  CHECK(j["estimates"].size() == 2);
+  CHECK(j["estimates"][1]["name"] == "omega");
+  CHECK(j["estimates"][1]["value"] == 0.05);
+  CHECK(j["estimates"][1]["se_hessian"].is_null());  // NaN is never written as a number
+  CHECK(j["estimates"][0]["se_hessian"] == 0.002);
+  CHECK(j["estimates"][0]["se_robust"] == 0.003);
+  CHECK(j["log_likelihood"] == -1234.5);
+  CHECK_FALSE(j.contains("params"));
+  CHECK_FALSE(j.contains("loglik"));
   CHECK(j["gate"]["passed"] == true);
   CHECK(j["gate"]["reasons"].empty());
   CHECK(j["fallback"] == false);
@@ -48,7 +52,7 @@ TEST_CASE("a refit record encodes as one JSON object", "[registry]") {
   CHECK(j["outcome"] == "fallback");
   CHECK(j["gate"]["passed"] == false);
   CHECK(j["gate"]["reasons"][0] == "fit did not converge");
-  CHECK(j["loglik"].is_null());
+  CHECK(j["log_likelihood"].is_null());
   CHECK(j["fallback"] == true);
   CHECK(std::string(RefitOutcomeName(RefitOutcome::kRejected)) == "rejected");
 }

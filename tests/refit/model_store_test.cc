@@ -16,7 +16,7 @@ namespace {
 ModelParams Garch(double mu, double omega, double alpha, double beta) {
   ModelSpec spec;  // constant mean, GARCH(1,1), normal
   auto p = ModelParams::FromNamed(
-      spec, {{"mu", mu}, {"omega", omega}, {"alpha1", alpha}, {"beta1", beta}});
+      spec, {{"mu", mu}, {"omega", omega}, {"alpha_1", alpha}, {"beta_1", beta}});
   REQUIRE(p.ok());
   return *p;
 }
@@ -51,7 +51,9 @@ TEST_CASE("ParseSpecLabel reads every label ModelSpec::Label writes", "[refit][m
         s.ma_order = mean == MeanKind::kArma ? 1 : 0;
         s.variance = var;
         s.arch_order = var == VarianceKind::kConstant || var == VarianceKind::kEwma ? 0 : 2;
-        s.asym_order = var == VarianceKind::kGjr ? 1 : 0;
+        // Asym lags 1 (label "GJR-GARCH(2,3;1)") and equal to the shock lags
+        // ("GJR-GARCH(2,3)").
+        s.asym_order = var == VarianceKind::kGjr ? (inn == Innovations::kNormal ? 1 : 2) : 0;
         s.garch_order = var == VarianceKind::kGarch || var == VarianceKind::kGjr ? 3 : 0;
         s.innovations = inn;
         REQUIRE(s.Validate().ok());
@@ -65,12 +67,21 @@ TEST_CASE("ParseSpecLabel reads every label ModelSpec::Label writes", "[refit][m
     REQUIRE(parsed.ok());
     CHECK(*parsed == s);
   }
-  for (const char* bad : {"", "GARCH(1,1)", "constant-mean-GARCH(1)-normal",
-                          "constant-mean-GARCH(1,1)-cauchy", "ARMA(9,9)-GARCH(1,1)-normal",
-                          "constant-mean-GARCH(1,1)-normal-extra"}) {
+  CHECK(ParseSpecLabel("const/GJR-GARCH(1,1)/student")->asym_order == 1);
+  for (const char* bad : {"", "GARCH(1,1)", "const/GARCH(1)/gaussian", "const/GARCH(1,1)/cauchy",
+                          "ARMA(9,9)/GARCH(1,1)/gaussian", "const/GARCH(1,1)/gaussian/extra",
+                          "const/GJR-GARCH(1,1;)/gaussian", "const/GJR-GARCH(1;1)/gaussian",
+                          "const/GJR-GARCH(1,1;x)/gaussian", "constant/GARCH(1,1)/gaussian"}) {
     INFO(bad);
     CHECK_FALSE(ParseSpecLabel(bad).ok());
   }
+  // The retired labels are refused with a pointer to the new form.
+  auto old = ParseSpecLabel("constant-mean-GARCH(1,1)-t");
+  REQUIRE_FALSE(old.ok());
+  CHECK(std::string(old.status().message()) ==
+        "'constant-mean-GARCH(1,1)-t' is not a model label (e.g. const/GARCH(1,1)/student; labels "
+        "were renamed, e.g. constant-mean-GARCH(1,1)-t is now const/GARCH(1,1)/student "
+        "(CHANGELOG.md))");
 }
 
 TEST_CASE("ParseModelRecords: the last swapped record of each symbol wins", "[refit][models]") {
@@ -122,7 +133,7 @@ TEST_CASE("ParseModelRecords names the file, line and problem", "[refit][models]
   s.replace(s.find("\"version\":1"), 11, "\"version\":0");
   CHECK(err(s).rfind("m.jsonl:2: symbol B.X: \"version\" must be an integer >= 1", 0) == 0);
   s = Record("B.X", "swapped", 1, 0.85);
-  s.replace(s.find("GARCH(1,1)"), 10, "GJR(1,1,1)");
+  s.replace(s.find("GARCH(1,1)"), 10, "GJR-GARCH(1,1)");
   CHECK(err(s).rfind("m.jsonl:2: symbol B.X: parameters do not match", 0) == 0);
   CHECK(ReadModelRecordsFile("/nonexistent/m.jsonl").status().code() ==
         absl::StatusCode::kNotFound);

@@ -9,7 +9,7 @@ namespace {
 ModelParams Good() {
   ModelSpec spec;  // constant mean, GARCH(1,1), normal
   auto p = ModelParams::FromNamed(
-      spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
+      spec, {{"mu", 0.01}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
   REQUIRE(p.ok());
   return *p;
 }
@@ -50,7 +50,7 @@ TEST_CASE("gate rule: finite values (later value rules skipped)", "[gate]") {
   in.holdout = HoldoutScore{100, -100.0, -100.0};
   const GateOutcome g = EvaluateQualityGate(in, RefitOptions{});
   CHECK_FALSE(g.passed);
-  CHECK(g.reasons == Reasons{"parameter omega is not finite", "parameter beta1 is not finite"});
+  CHECK(g.reasons == Reasons{"parameter omega is not finite", "parameter beta_1 is not finite"});
   p.values.pop_back();
   const GateOutcome h = EvaluateQualityGate(in, RefitOptions{});
   CHECK(h.reasons == Reasons{"parameter count 3 does not match the spec (4)"});

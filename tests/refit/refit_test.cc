@@ -21,7 +21,7 @@ namespace {
 ModelParams Garch(double mu, double omega, double alpha, double beta) {
   ModelSpec spec;  // constant mean, GARCH(1,1), normal
   auto p = ModelParams::FromNamed(
-      spec, {{"mu", mu}, {"omega", omega}, {"alpha1", alpha}, {"beta1", beta}});
+      spec, {{"mu", mu}, {"omega", omega}, {"alpha_1", alpha}, {"beta_1", beta}});
   REQUIRE(p.ok());
   return *p;
 }
@@ -242,8 +242,8 @@ TEST_CASE("a doubled volatility regime is followed by new versions and lower QLI
   REQUIRE(r1.version == 1);
   auto p1 = ModelParams::FromNamed(ModelSpec{}, {{"mu", r1.values[0]},
                                                  {"omega", r1.values[1]},
-                                                 {"alpha1", r1.values[2]},
-                                                 {"beta1", r1.values[3]}});
+                                                 {"alpha_1", r1.values[2]},
+                                                 {"beta_1", r1.values[3]}});
   REQUIRE(p1.ok());
   auto fm1 = FilterModel::Create(*p1, OutputOptions{}, 1);
   REQUIRE(fm1.ok());
@@ -330,7 +330,7 @@ TEST_CASE("faulty fits are never swapped in; repeated failures engage the fallba
   CHECK(rec[1].version == 1);
   CHECK(rec[1].consecutive_failures == 1);
   CHECK(rec[2].outcome == RefitOutcome::kRejected);
-  CHECK(rec[2].reasons == std::vector<std::string>{"parameter alpha1 is not finite"});
+  CHECK(rec[2].reasons == std::vector<std::string>{"parameter alpha_1 is not finite"});
   CHECK(rec[2].version == 1);
   // The third failure in a row engages the fallback (version 0, flag fallback).
   CHECK(rec[3].outcome == RefitOutcome::kFallback);
@@ -576,11 +576,11 @@ TEST_CASE("a group model keeps the donor's dynamics at the symbol's own level", 
   spec.asym_order = 1;
   spec.innovations = Innovations::kStudentT;
   auto donor = ModelParams::FromNamed(spec, {{"mu", 0.01},
-                                             {"ar1", 0.1},
+                                             {"ar_1", 0.1},
                                              {"omega", 0.02},
-                                             {"alpha1", 0.05},
-                                             {"gamma1", 0.06},
-                                             {"beta1", 0.9},
+                                             {"alpha_1", 0.05},
+                                             {"gamma_1", 0.06},
+                                             {"beta_1", 0.9},
                                              {"nu", 6.5}});
   REQUIRE(donor.ok());
   auto p = PooledParams(*donor, 4.0);

@@ -9,13 +9,13 @@ namespace aftershock {
 namespace {
 
 ModelParams Gjr() {
-  auto spec = MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "t");
+  auto spec = MakeModelSpec("constant", {}, "gjr", {1, 1, 1}, "student");
   REQUIRE(spec.ok());
   auto p = ModelParams::FromNamed(*spec, {{"mu", 0.02},
                                           {"omega", 0.03},
-                                          {"alpha1", 0.03},
-                                          {"gamma1", 0.12},
-                                          {"beta1", 0.88},
+                                          {"alpha_1", 0.03},
+                                          {"gamma_1", 0.12},
+                                          {"beta_1", 0.88},
                                           {"nu", 6}});
   REQUIRE(p.ok());
   return *p;

@@ -122,7 +122,7 @@ TEST_CASE("calibration: |z| >= 3 shocks occur at the tail probability of the law
                                   boost::math::normal_distribution<double>(), 3.0));
   CHECK(p_normal == Approx(2 * 0.0013499).epsilon(1e-4));
   const ModelParams gauss =
-      Params("normal", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}});
+      Params("gaussian", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
   CheckBinomial(CountShocks(gauss, kN, 2024), kN, p_normal, "Gaussian GARCH(1,1)");
 
   // Standardized t, nu = 5: z = T sqrt((nu-2)/nu), so
@@ -131,8 +131,8 @@ TEST_CASE("calibration: |z| >= 3 shocks occur at the tail probability of the law
   const double p_t =
       2 * boost::math::cdf(boost::math::complement(boost::math::students_t_distribution<double>(nu),
                                                    3.0 * std::sqrt(nu / (nu - 2))));
-  const ModelParams tgarch =
-      Params("t", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.08}, {"beta1", 0.9}, {"nu", nu}});
+  const ModelParams tgarch = Params(
+      "student", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}, {"nu", nu}});
   CheckBinomial(CountShocks(tgarch, kN, 2025), kN, p_t, "Student-t (nu = 5) GARCH(1,1)");
   // The two laws are far enough apart that the test can tell them apart.
   CHECK(p_t > 1.5 * p_normal);
@@ -826,8 +826,8 @@ TEST_CASE("JSON encoding", "[alerts]") {
 }
 
 TEST_CASE("OnBar and the JSON encoder allocate nothing", "[alerts]") {
-  const ModelParams p =
-      Params("t", {{"mu", 0.0}, {"omega", 0.05}, {"alpha1", 0.1}, {"beta1", 0.85}, {"nu", 5}});
+  const ModelParams p = Params(
+      "student", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}, {"nu", 5}});
   SimulationOptions so;
   so.n = 200000;
   so.seed = 9;

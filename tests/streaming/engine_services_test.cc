@@ -199,8 +199,8 @@ TEST_CASE("a regime alert fires when a name's variance triples (time bars, sessi
     const std::string toml = R"(
 [model]
 mean = "constant"
-variance = "constant"
-innovations = "normal"
+variance = "flat"
+innovations = "gaussian"
 [model.params]
 mu = 0.0002
 omega = 1e-4
@@ -405,11 +405,11 @@ TEST_CASE("track mode publishes tracking records on m.<symbol>", "[services][tra
   CHECK(j["version"] == 1);
   CHECK(j["bars_since_refit"] == 200);
   CHECK(j["stepping"] == true);
-  REQUIRE(j["params"].size() == 3);
+  REQUIRE(j["estimates"].size() == 3);
   const char* names[] = {"omega", "alpha_1", "beta_1"};
   const RecursiveTracker& t = run.core->tracker(0);
   for (int i = 0; i < 3; ++i) {
-    const nlohmann::json& p = j["params"][i];
+    const nlohmann::json& p = j["estimates"][i];
     CHECK(p["name"] == names[i]);
     CHECK(p["value"].get<double>() == t.coefficient(i));
     CHECK(p["refit"].get<double>() == Approx(run.config.model.params.values[i + 1]).epsilon(1e-12));

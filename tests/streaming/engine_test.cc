@@ -202,9 +202,10 @@ TEST_CASE("end to end over TCP loopback equals the offline filter", "[engine][e2
 
   auto model = FilterModel::Create(h.config_.model.params, testing::OutputsOf(h.config_), 1);
   REQUIRE(model.ok());
-  const std::vector<std::string> keys = {"s",        "t",  "r",        "mu",      "eps",
-                                         "var",      "z",  "var_next", "vol_ann", "var_h",
-                                         "var_risk", "es", "scale",    "ver",     "flags"};
+  const std::vector<std::string> keys = {
+      "s",     "t",        "r",       "mu",    "eps",           "var",
+      "z",     "var_next", "vol_ann", "var_h", "value_at_risk", "es",
+      "scale", "ver",      "flags"};
   for (size_t s = 0; s < syms.size(); ++s) {
     const auto& bodies = got["u." + syms[s]];
     REQUIRE(bodies.size() == static_cast<size_t>(n));

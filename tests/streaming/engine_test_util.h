@@ -20,13 +20,14 @@ inline constexpr const char* kFixedModelToml = R"(
 [model]
 mean = "constant"
 variance = "garch"
-variance_order = [1, 1]
-innovations = "normal"
+shock_lags = 1
+variance_lags = 1
+innovations = "gaussian"
 [model.params]
 mu = 0.0002
 omega = 2e-6
-alpha1 = 0.08
-beta1 = 0.9
+alpha_1 = 0.08
+beta_1 = 0.9
 [refit]
 every_bars = 0
 )";

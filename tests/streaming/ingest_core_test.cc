@@ -407,10 +407,10 @@ TEST_CASE("SwapModel at a bar boundary, with a re-run over recent returns", "[co
   Fixture f(testing::kFixedModelToml);
   const auto r = testing::TestReturns(120, 9);
   for (int i = 0; i < 100; ++i) SendJson(f.core.get(), ReturnTick("IVY.R", kT0 + i * kSec, r[i]));
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(spec.ok());
   auto p2 = ModelParams::FromNamed(
-      *spec, {{"mu", 0.0001}, {"omega", 4e-6}, {"alpha1", 0.1}, {"beta1", 0.85}});
+      *spec, {{"mu", 0.0001}, {"omega", 4e-6}, {"alpha_1", 0.1}, {"beta_1", 0.85}});
   REQUIRE(p2.ok());
   auto m2 = FilterModel::Create(*p2, testing::OutputsOf(f.config), 2);
   REQUIRE(m2.ok());
@@ -560,7 +560,7 @@ TEST_CASE("tracking: a swap re-anchors the tracker on the new model", "[core][tr
   const auto r = testing::TestReturns(400, 23);
   for (int i = 0; i < 300; ++i) SendJson(f.core.get(), ReturnTick("ROWAN.S", kT0 + i * kSec, r[i]));
   CHECK(f.core->tracker(0).bars_since_anchor() == 300);
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(spec.ok());
   const ModelParams p2{*spec, {0.0001, 4e-6, 0.1, 0.85}};  // mu, omega, alpha_1, beta_1
   auto m2 = FilterModel::Create(p2, testing::OutputsOf(f.config), 2);

@@ -273,10 +273,10 @@ TEST_CASE("false entries on iid z stay under the exp(-enter) bound per bar", "[r
 // ---- Measured on GARCH-t data filtered with the true model ---------------------
 
 ModelParams GarchT(double omega, double alpha, double beta, double nu) {
-  auto spec = MakeModelSpec("zero", {}, "garch", {1, 1}, "t");
+  auto spec = MakeModelSpec("zero", {}, "garch", {1, 1}, "student");
   REQUIRE(spec.ok());
   auto p = ModelParams::FromNamed(
-      *spec, {{"omega", omega}, {"alpha1", alpha}, {"beta1", beta}, {"nu", nu}});
+      *spec, {{"omega", omega}, {"alpha_1", alpha}, {"beta_1", beta}, {"nu", nu}});
   REQUIRE(p.ok());
   return *p;
 }

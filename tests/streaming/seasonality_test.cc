@@ -36,12 +36,13 @@ std::string ConfigToml(const std::string& seasonality, const std::string& refit 
 [model]
 mean = "zero"
 variance = "garch"
-variance_order = [1, 1]
-innovations = "normal"
+shock_lags = 1
+variance_lags = 1
+innovations = "gaussian"
 [model.params]
 omega = 5e-9
-alpha1 = 0.05
-beta1 = 0.93
+alpha_1 = 0.05
+beta_1 = 0.93
 [refit]
 window = 10200
 )";

@@ -5,10 +5,10 @@
 #include "aftershock/online_filter.h"
 
 int main() {
-  auto spec = aftershock::MakeModelSpec("constant", {}, "garch", {1, 1}, "normal");
+  auto spec = aftershock::MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
   if (!spec.ok()) return 1;
   auto params = aftershock::ModelParams::FromNamed(
-      *spec, {{"mu", 0.0}, {"omega", 0.1}, {"alpha1", 0.1}, {"beta1", 0.8}});
+      *spec, {{"mu", 0.0}, {"omega", 0.1}, {"alpha_1", 0.1}, {"beta_1", 0.8}});
   if (!params.ok()) return 1;
   auto model = aftershock::FilterModel::Create(*params, aftershock::OutputOptions{}, 1);
   if (!model.ok()) return 1;
