@@ -914,53 +914,73 @@ bool ValidSymbolPattern(absl::string_view p) {
   return IsValidSymbol(p);
 }
 
+// Calls `fn(name, section)` for each table [<table>.groups.<name>] under `s`
+// (in file order); `contents` says what such a table holds, for the errors.
+template <typename Fn>
+absl::Status ForEachGroup(const std::string* source, const Section& s, absl::string_view table,
+                          absl::string_view contents, Fn fn) {
+  const toml::node* g = s.Node("groups");
+  if (g == nullptr) return absl::OkStatus();
+  if (!g->is_table()) {
+    return s.KeyError(
+        "groups", absl::StrCat("expected tables [", table, ".groups.<name>] with symbols = [...]"));
+  }
+  const std::string prefix = absl::StrCat(table, ".groups");
+  const Section gs = SubSection(source, s, "groups", prefix);
+  for (auto&& [key, node] : *g->as_table()) {
+    const std::string name(key.str());
+    if (!node.is_table())
+      return gs.KeyError(name, absl::StrCat("expected a table with ", contents));
+    AS_RETURN_IF_ERROR(fn(name, SubSection(source, gs, name, prefix + "." + name)));
+  }
+  return absl::OkStatus();
+}
+
+// The required `symbols` of a group table: names or prefixes ending in *.
+absl::Status ParseGroupSymbols(const Section& one, std::vector<std::string>* symbols) {
+  if (!one.Has("symbols")) return one.KeyError("symbols", "required: the symbols of the group");
+  AS_RETURN_IF_ERROR(one.StringArray("symbols", symbols));
+  if (symbols->empty()) return one.KeyError("symbols", "at least one symbol or prefix*");
+  for (const std::string& p : *symbols) {
+    if (!ValidSymbolPattern(p)) {
+      return one.KeyError("symbols",
+                          absl::StrCat("'", p, "' is not a symbol or a prefix ending in *"));
+    }
+  }
+  return absl::OkStatus();
+}
+
 absl::Status ParseAlerts(const std::string* source, const Section& s, AlertsConfig* c,
                          std::vector<AlertGroupConfig>* groups) {
   std::vector<absl::string_view> keys(std::begin(kAlertKeys), std::end(kAlertKeys));
   keys.push_back("groups");
   AS_RETURN_IF_ERROR(s.CheckKeys(keys));
   AS_RETURN_IF_ERROR(ParseAlertValues(s, c));
-  const toml::node* g = s.Node("groups");
-  if (g == nullptr) return absl::OkStatus();
-  if (!g->is_table()) {
-    return s.KeyError("groups", "expected tables [alerts.groups.<name>] with symbols = [...]");
-  }
-  const Section gs = SubSection(source, s, "groups", "alerts.groups");
-  for (auto&& [key, node] : *g->as_table()) {
-    const std::string name(key.str());
-    if (!node.is_table()) {
-      return gs.KeyError(name, "expected a table with symbols = [...] and alert keys");
-    }
-    const Section one = SubSection(source, gs, name, "alerts.groups." + name);
-    // The reject-burst rule counts rejected ticks of the whole feed (a rejected
-    // tick may have no valid symbol), so its keys have no per-group meaning.
-    for (absl::string_view feed_wide : {"reject_burst", "reject_window_seconds"}) {
-      if (one.Has(feed_wide)) {
-        return one.KeyError(feed_wide, "the reject-burst rule is feed-wide: set it in [alerts]");
-      }
-    }
-    std::vector<absl::string_view> group_keys;
-    for (absl::string_view k : kAlertKeys) {
-      if (k != "reject_burst" && k != "reject_window_seconds") group_keys.push_back(k);
-    }
-    group_keys.push_back("symbols");
-    AS_RETURN_IF_ERROR(one.CheckKeys(group_keys));
-    AlertGroupConfig group;
-    group.name = name;
-    group.alerts = *c;
-    if (!one.Has("symbols")) return one.KeyError("symbols", "required: the symbols of the group");
-    AS_RETURN_IF_ERROR(one.StringArray("symbols", &group.symbols));
-    if (group.symbols.empty()) return one.KeyError("symbols", "at least one symbol or prefix*");
-    for (const std::string& p : group.symbols) {
-      if (!ValidSymbolPattern(p)) {
-        return one.KeyError("symbols", absl::StrCat("'", p,
-                                                    "' is not a symbol or a prefix ending in *"));
-      }
-    }
-    AS_RETURN_IF_ERROR(ParseAlertValues(one, &group.alerts));
-    groups->push_back(std::move(group));
-  }
-  return absl::OkStatus();
+  return ForEachGroup(
+      source, s, "alerts", "symbols = [...] and alert keys",
+      [&](const std::string& name, const Section& one) -> absl::Status {
+        // The reject-burst rule counts rejected ticks of the whole feed (a rejected
+        // tick may have no valid symbol), so its keys have no per-group meaning.
+        for (absl::string_view feed_wide : {"reject_burst", "reject_window_seconds"}) {
+          if (one.Has(feed_wide)) {
+            return one.KeyError(feed_wide,
+                                "the reject-burst rule is feed-wide: set it in [alerts]");
+          }
+        }
+        std::vector<absl::string_view> group_keys;
+        for (absl::string_view k : kAlertKeys) {
+          if (k != "reject_burst" && k != "reject_window_seconds") group_keys.push_back(k);
+        }
+        group_keys.push_back("symbols");
+        AS_RETURN_IF_ERROR(one.CheckKeys(group_keys));
+        AlertGroupConfig group;
+        group.name = name;
+        group.alerts = *c;
+        AS_RETURN_IF_ERROR(ParseGroupSymbols(one, &group.symbols));
+        AS_RETURN_IF_ERROR(ParseAlertValues(one, &group.alerts));
+        groups->push_back(std::move(group));
+        return absl::OkStatus();
+      });
 }
 
 absl::Status ParseTrackingMode(const Section& s, TrackingMode* mode) {
@@ -972,9 +992,8 @@ absl::Status ParseTrackingMode(const Section& s, TrackingMode* mode) {
 
 absl::Status ParseTracking(const std::string* source, const Section& s, TrackingConfig* c) {
   AS_RETURN_IF_ERROR(s.CheckKeys({"mode", "forgetting", "burn_in_bars", "max_step",
-                                  "max_persistence", "max_level_ratio", "ridge",
-                                  "stability_decay", "alert_threshold", "report_every_bars",
-                                  "groups"}));
+                                  "max_persistence", "max_level_ratio", "ridge", "stability_decay",
+                                  "alert_threshold", "report_every_bars", "groups"}));
   AS_RETURN_IF_ERROR(ParseTrackingMode(s, &c->mode));
   TrackerOptions& t = c->tracker;
   AS_RETURN_IF_ERROR(s.Number("forgetting", &t.forgetting, 0, 1, true, true));
@@ -988,33 +1007,17 @@ absl::Status ParseTracking(const std::string* source, const Section& s, Tracking
   AS_RETURN_IF_ERROR(s.Number("alert_threshold", &c->alert_threshold, 0, 1e12, false, false));
   AS_RETURN_IF_ERROR(s.Integer("report_every_bars", &c->report_every_bars, 0, int64_t{1} << 40));
   if (auto st = ValidateTrackerOptions(t); !st.ok()) return s.SectionError(st.message());
-  const toml::node* g = s.Node("groups");
-  if (g == nullptr) return absl::OkStatus();
-  if (!g->is_table()) {
-    return s.KeyError("groups", "expected tables [tracking.groups.<name>] with symbols = [...]");
-  }
-  const Section gs = SubSection(source, s, "groups", "tracking.groups");
-  for (auto&& [key, node] : *g->as_table()) {
-    const std::string name(key.str());
-    if (!node.is_table()) return gs.KeyError(name, "expected a table with symbols and mode");
-    const Section one = SubSection(source, gs, name, "tracking.groups." + name);
-    AS_RETURN_IF_ERROR(one.CheckKeys({"symbols", "mode"}));
-    TrackingGroupConfig group;
-    group.name = name;
-    group.mode = c->mode;
-    if (!one.Has("symbols")) return one.KeyError("symbols", "required: the symbols of the group");
-    AS_RETURN_IF_ERROR(one.StringArray("symbols", &group.symbols));
-    if (group.symbols.empty()) return one.KeyError("symbols", "at least one symbol or prefix*");
-    for (const std::string& p : group.symbols) {
-      if (!ValidSymbolPattern(p)) {
-        return one.KeyError("symbols",
-                            absl::StrCat("'", p, "' is not a symbol or a prefix ending in *"));
-      }
-    }
-    AS_RETURN_IF_ERROR(ParseTrackingMode(one, &group.mode));
-    c->groups.push_back(std::move(group));
-  }
-  return absl::OkStatus();
+  return ForEachGroup(source, s, "tracking", "symbols and mode",
+                      [&](const std::string& name, const Section& one) -> absl::Status {
+                        AS_RETURN_IF_ERROR(one.CheckKeys({"symbols", "mode"}));
+                        TrackingGroupConfig group;
+                        group.name = name;
+                        group.mode = c->mode;
+                        AS_RETURN_IF_ERROR(ParseGroupSymbols(one, &group.symbols));
+                        AS_RETURN_IF_ERROR(ParseTrackingMode(one, &group.mode));
+                        c->groups.push_back(std::move(group));
+                        return absl::OkStatus();
+                      });
 }
 
 absl::Status ParseHttp(const Section& s, HttpConfig* c) {
