@@ -597,6 +597,37 @@ constexpr uint32_t kNullVersion = 0xFFFFFFFFu;  // reference to no version
 constexpr uint32_t kEwmaVersionRef = 0;        // reference to the shared EWMA (version 0)
 constexpr uint64_t kMaxSavedVersions = uint64_t{1} << 26;
 
+// A pending refit job's inputs as a checkpoint holds them: filled from a job
+// slot by the capture, read back by the restore and handed to a job slot.
+struct SavedJob {
+  int64_t apply_bar = 0;  // the symbol's, not the slot's
+  std::vector<double> returns;
+  std::vector<int32_t> tags;
+  SeasonalProfilePtr prior;
+  ModelVersionPtr in_force, estimated;
+  bool reidentify = false;
+  uint64_t seed = 0;
+  int64_t fit_index = -1;
+  int64_t bar = 0;
+  uint32_t version = 0;
+};
+
+// Copies the inputs both a SavedJob and a job slot hold (the same names);
+// assign keeps a destination's reserved capacity.
+template <typename From, typename To>
+void CopyJobInputs(const From& from, To* to) {
+  to->returns.assign(from.returns.begin(), from.returns.end());
+  to->tags.assign(from.tags.begin(), from.tags.end());
+  to->prior = from.prior;
+  to->in_force = from.in_force;
+  to->estimated = from.estimated;
+  to->reidentify = from.reidentify;
+  to->seed = from.seed;
+  to->fit_index = from.fit_index;
+  to->bar = from.bar;
+  to->version = from.version;
+}
+
 }  // namespace
 
 // The coordinator's captured state (state_capture.h).
@@ -614,18 +645,9 @@ struct RefitSymbolCapture {
   uint64_t pooled_seq = 0;
   int64_t pooled_bar = 0;
   // The pending job's inputs (immutable while it is pending), copied when the
-  // job first appears (job_fit_index differs).
+  // job first appears (job.fit_index differs).
   bool has_job = false;
-  int64_t apply_bar = 0;
-  std::vector<double> job_returns;
-  std::vector<int32_t> job_tags;
-  SeasonalProfilePtr job_prior;
-  ModelVersionPtr job_in_force, job_estimated;
-  bool job_reidentify = false;
-  uint64_t job_seed = 0;
-  int64_t job_fit_index = -1;
-  int64_t job_bar = 0;
-  uint32_t job_version = 0;
+  SavedJob job;
 };
 
 struct RefitGroupCapture {
@@ -665,8 +687,8 @@ void RefitCapture::Encode(StateWriter* w) const {
     add(s.current);
     add(s.last_estimated);
     if (s.has_job) {
-      add(s.job_in_force);
-      add(s.job_estimated);
+      add(s.job.in_force);
+      add(s.job.estimated);
     }
   }
   for (const RefitGroupCapture& g : groups) add(g.latest);
@@ -713,21 +735,22 @@ void RefitCapture::Encode(StateWriter* w) const {
     w->I64(s.pooled_bar);
     w->Bool(s.has_job);
     if (!s.has_job) continue;
-    w->I64(s.apply_bar);
-    w->U64(s.job_returns.size());
-    for (double r : s.job_returns) w->F64(r);
+    const SavedJob& j = s.job;
+    w->I64(j.apply_bar);
+    w->U64(j.returns.size());
+    for (double r : j.returns) w->F64(r);
     if (seasonal_) {
-      w->U64(s.job_tags.size());
-      for (int32_t t : s.job_tags) w->I32(t);
-      SaveSeasonalProfile(s.job_prior.get(), w);
+      w->U64(j.tags.size());
+      for (int32_t t : j.tags) w->I32(t);
+      SaveSeasonalProfile(j.prior.get(), w);
     }
-    w->U32(ref_of(s.job_in_force));
-    w->U32(ref_of(s.job_estimated));
-    w->Bool(s.job_reidentify);
-    w->U64(s.job_seed);
-    w->I64(s.job_fit_index);
-    w->I64(s.job_bar);
-    w->U32(s.job_version);
+    w->U32(ref_of(j.in_force));
+    w->U32(ref_of(j.estimated));
+    w->Bool(j.reidentify);
+    w->U64(j.seed);
+    w->I64(j.fit_index);
+    w->I64(j.bar);
+    w->U32(j.version);
   }
 }
 
@@ -782,18 +805,9 @@ void RefitCoordinator::CaptureState(StateCapture* capture) const {
     if (!d.has_job) continue;
     // Inputs only: the worker does not write them while the job runs.
     const JobSlot& j = *jobs_[s.pending];
-    d.apply_bar = s.apply_bar;
-    if (d.job_fit_index == j.fit_index) continue;  // the same job as last time
-    d.job_returns.assign(j.returns.begin(), j.returns.end());
-    d.job_tags.assign(j.tags.begin(), j.tags.end());
-    d.job_prior = j.prior;
-    d.job_in_force = j.in_force;
-    d.job_estimated = j.estimated;
-    d.job_reidentify = j.reidentify;
-    d.job_seed = j.seed;
-    d.job_fit_index = j.fit_index;
-    d.job_bar = j.bar;
-    d.job_version = j.version;
+    d.job.apply_bar = s.apply_bar;
+    if (d.job.fit_index == j.fit_index) continue;  // the same job as last time
+    CopyJobInputs(j, &d.job);
   }
 }
 
@@ -861,16 +875,8 @@ absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
            absl::StrCat(ns, " saved, ", symbols_.size(), " symbols restored in the core"));
   }
   struct Pending {
-    uint32_t id = 0;
-    int64_t apply_bar = 0;
-    std::vector<double> returns;
-    std::vector<int32_t> tags;
-    SeasonalProfilePtr prior;
-    ModelVersionPtr in_force, estimated;
-    bool reidentify = false;
-    uint64_t seed = 0;
-    int64_t fit_index = 0, bar = 0;
-    uint32_t version = 0;
+    uint32_t id = 0;  // symbol
+    SavedJob job;
   };
   std::vector<SymbolSlot> slots(r.ok() ? ns : 0);
   std::vector<Pending> pending;
@@ -922,8 +928,9 @@ absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
       r.Fail(what + " pending job", "more pending jobs than [refit] queue_capacity");
       break;
     }
-    Pending j;
-    j.id = id;
+    Pending p;
+    p.id = id;
+    SavedJob& j = p.job;
     j.apply_bar = r.I64(what + " apply bar");
     const uint64_t nr = r.Count(what + " job window", static_cast<uint64_t>(options_.window));
     j.returns.resize(r.ok() ? nr : 0);
@@ -949,7 +956,7 @@ absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
       r.Fail(what + " job", "scheduled after the window's end or applied before it was scheduled");
     }
     if (!r.ok()) break;
-    pending.push_back(std::move(j));
+    pending.push_back(std::move(p));
   }
   if (absl::Status st = r.Finish("refit state"); !st.ok()) return st;
   for (const SymbolSlot& s : slots) {
@@ -968,26 +975,16 @@ absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
   if (options_.seasonal) seasonal_pool_ = std::move(pool);
   groups_ = std::move(groups);
   for (uint32_t id = 0; id < slots.size(); ++id) symbols_[id] = std::move(slots[id]);
-  for (Pending& p : pending) {
+  for (const Pending& p : pending) {
     SymbolSlot& sym = symbols_[p.id];
     const uint32_t slot = free_slots_.back();
     free_slots_.pop_back();
     JobSlot& j = *jobs_[slot];
     j.symbol_id = p.id;
     j.symbol.assign(sym.name);
-    // assign keeps the capacity reserved at construction.
-    j.returns.assign(p.returns.begin(), p.returns.end());
-    j.tags.assign(p.tags.begin(), p.tags.end());
-    j.prior = std::move(p.prior);
-    j.in_force = std::move(p.in_force);
-    j.estimated = std::move(p.estimated);
-    j.reidentify = p.reidentify;
-    j.seed = p.seed;
-    j.fit_index = p.fit_index;
-    j.bar = p.bar;
-    j.version = p.version;
+    CopyJobInputs(p.job, &j);  // keeps the capacity reserved at construction
     sym.pending = static_cast<int32_t>(slot);
-    sym.apply_bar = p.apply_bar;
+    sym.apply_bar = p.job.apply_bar;
     // As in Submit (none of these changes while a job is pending).
     const bool priority = !sym.last_estimated || sym.failures > 0 || sym.fallback;
     counters_.in_flight.fetch_add(1, std::memory_order_relaxed);
