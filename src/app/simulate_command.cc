@@ -37,7 +37,7 @@ using Clock = std::chrono::steady_clock;
 
 int Fail(const absl::Status& s, int code) { return ReportFailure("simulate", s, code); }
 
-// One --regime item: [SYMBOL@]BAR:MULT; an empty symbol means every instrument.
+// One --regime item: [SYMBOL@]BAR:MULT[:SHAPE]; an empty symbol means every instrument.
 struct RegimeItem {
   std::string symbol;
   VarianceRegimeChange change;
@@ -52,20 +52,33 @@ absl::Status ParseRegimeList(absl::string_view text, std::vector<RegimeItem>* ou
       item.symbol = std::string(rest.substr(0, at));
       rest = rest.substr(at + 1);
     }
-    const auto colon = rest.find(':');
+    // BAR:MULT[:SHAPE]; SHAPE is omega (default: the unconditional variance
+    // moves, the conditional one follows) or step (every bar from BAR on has
+    // MULT times its variance at once).
+    std::vector<absl::string_view> fields = absl::StrSplit(rest, ':');
     int64_t bar = 0;
     double mult = 0;
-    if (colon == absl::string_view::npos || !absl::SimpleAtoi(rest.substr(0, colon), &bar) ||
-        !absl::SimpleAtod(rest.substr(colon + 1), &mult)) {
+    if (fields.size() < 2 || fields.size() > 3 || !absl::SimpleAtoi(fields[0], &bar) ||
+        !absl::SimpleAtod(fields[1], &mult)) {
       return absl::InvalidArgumentError(absl::StrCat(
-          "--regime: expected [SYMBOL@]BAR:MULT such as 200:4 or BRANDR.NRG@200:4, got '", part,
-          "'"));
+          "--regime: expected [SYMBOL@]BAR:MULT[:omega|:step] such as 200:4, 200:3:step or "
+          "BRANDR.NRG@200:4, got '",
+          part, "'"));
     }
     if (bar < 0 || !(std::isfinite(mult) && mult > 0)) {
       return absl::InvalidArgumentError(
           absl::StrCat("--regime: BAR must be >= 0 and MULT a number > 0, got '", part, "'"));
     }
-    item.change = {bar, mult};
+    VarianceChangeShape shape = VarianceChangeShape::kOmega;
+    if (fields.size() == 3) {
+      if (fields[2] == "step") {
+        shape = VarianceChangeShape::kStep;
+      } else if (fields[2] != "omega") {
+        return absl::InvalidArgumentError(absl::StrCat(
+            "--regime: shape must be omega or step, got '", fields[2], "' in '", part, "'"));
+      }
+    }
+    item.change = {bar, mult, shape};
     out->push_back(std::move(item));
   }
   return absl::OkStatus();
@@ -150,12 +163,12 @@ absl::Status LoadUniverseFile(const std::string& path, std::vector<InstrumentPro
       } else if (k == "regimes") {
         const toml::array* a = value.as_array();
         if (a == nullptr) {
-          return absl::InvalidArgumentError(where("regimes: expected an array of \"BAR:MULT\""));
+          return absl::InvalidArgumentError(where("regimes: expected an array of \"BAR:MULT[:omega|:step]\""));
         }
         for (const toml::node& r : *a) {
           auto v = r.value<std::string>();
           if (!v || v->find('@') != std::string::npos) {
-            return absl::InvalidArgumentError(where("regimes: expected strings \"BAR:MULT\""));
+            return absl::InvalidArgumentError(where("regimes: expected strings \"BAR:MULT[:omega|:step]\""));
           }
           std::vector<RegimeItem> items;
           if (auto rs = ParseRegimeList(*v, &items); !rs.ok()) {
@@ -511,10 +524,12 @@ int SimulateCommand(int argc, char** argv) {
       "bar's last tick carries its close, so a [bars] interval equal to --interval recovers\n"
       "the simulated returns exactly. Ticks are written in time order. With N = 1 (default)\n"
       "the tick is stamped at the bar start.\n\n"
-      "Regimes: --regime [SYMBOL@]BAR:MULT multiplies the unconditional variance (omega) by\n"
-      "MULT from output bar BAR on (0-based; relative to the base level, not cumulative).\n"
+      "Regimes: --regime [SYMBOL@]BAR:MULT[:SHAPE] multiplies the variance by MULT from\n"
+      "output bar BAR on (0-based; relative to the base level, not cumulative). SHAPE omega\n"
+      "(default) multiplies the unconditional variance (omega), which the conditional variance\n"
+      "reaches gradually; step multiplies every bar's variance from BAR on at once (a jump).\n"
       "Without SYMBOL@ it applies to every instrument. Repeat the option or give a comma list:\n"
-      "  --regime 200:4,300:1   --regime BRANDR.NRG@120:9\n\n"
+      "  --regime 200:4,300:1   --regime BRANDR.NRG@120:3:step\n\n"
       "Universe file (--universe FILE, TOML), one table per instrument:\n"
       "  [[instrument]]\n"
       "  symbol = \"OSTRA.NRG\"      # required\n"
@@ -583,7 +598,7 @@ int SimulateCommand(int argc, char** argv) {
                  "the bar start)",
                  "1");
   args.AddOption("regime", "SPEC",
-                 "variance regime change(s) [SYMBOL@]BAR:MULT[,...]; "
+                 "variance regime change(s) [SYMBOL@]BAR:MULT[:omega|:step][,...]; "
                  "repeatable");
   args.AddOption("output", "FILE", "write a tick CSV (symbol,time,price|return); '-' = stdout");
   args.AddOption("field", "KIND", "CSV/feed value: price | return (log return)", "price");

@@ -150,6 +150,52 @@ TEST_CASE("simulate --regime raises the sample variance of the chosen symbol") {
   CHECK(var(b, 10200, 20000) / var(b, 0, 10000) == Approx(1.0).epsilon(0.25));
 }
 
+TEST_CASE("simulate --regime :step jumps at once, :omega moves gradually") {
+  const std::string dir = ScratchDir("simulate_regime_shape");
+  auto series = [&](const std::string& name, const std::string& regime) {
+    const std::string path = dir + "/" + name + ".csv";
+    std::vector<std::string> argv = {"simulate", "--symbols", "1", "--bars", "3000", "--seed",
+                                     "5",        "--field",   "return", "--output", path,
+                                     "--quiet"};
+    if (!regime.empty()) {
+      argv.push_back("--regime");
+      argv.push_back(regime);
+    }
+    auto r = RunCli(argv);
+    INFO(r.err);
+    REQUIRE(r.exit_code == 0);
+    std::vector<double> x;
+    for (const Tick& t : ReadTicks(path)) x.push_back(t.value);
+    REQUIRE(x.size() == 3000);
+    return x;
+  };
+  auto mean_square = [](const std::vector<double>& x, size_t a, size_t b) {
+    double s = 0;
+    for (size_t i = a; i < b; ++i) s += x[i] * x[i];
+    return s / static_cast<double>(b - a);
+  };
+  const auto base = series("base", "");
+  const auto step = series("step", "2000:3:step");
+  const auto omega = series("omega", "2000:3:omega");
+  // Same draws: before the change the three series agree exactly.
+  for (size_t i = 0; i < 2000; ++i) {
+    REQUIRE(step[i] == base[i]);
+    REQUIRE(omega[i] == base[i]);
+  }
+  // The step scales the process by sqrt(3) from bar 2000 on (simulate.h), so the
+  // first 30 bars after it already carry about 3 times the base's mean square
+  // (not exactly 3: the mean equation's intercept is not scaled); the omega shape
+  // has barely moved by then.
+  const double step_ratio = mean_square(step, 2000, 2030) / mean_square(base, 2000, 2030);
+  const double omega_ratio = mean_square(omega, 2000, 2030) / mean_square(base, 2000, 2030);
+  CHECK(step_ratio == Approx(3.0).epsilon(0.1));
+  CHECK(omega_ratio < 2.0);
+  CHECK(omega_ratio > 1.0);
+  auto bad = RunCli({"simulate", "--output", "-", "--regime", "200:3:ramp"});
+  CHECK(bad.exit_code == 2);
+  CHECK(bad.err.find("--regime: shape must be omega or step, got 'ramp'") != std::string::npos);
+}
+
 TEST_CASE("simulate reads a TOML universe file") {
   const std::string dir = ScratchDir("simulate_universe");
   const std::string spec = testing::WriteFile(dir + "/u.toml",
