@@ -62,8 +62,10 @@ class PartitionLanes : public PartitionConsumer, public BarObserver, public Metr
   // bars, ticks, symbols and refits (live lanes plus those dropped).
   void AppendPrometheus(std::string* out) const override;
 
-  // The counters of every lane since Create, dropped lanes included (their
-  // `symbols` counts each symbol once per lane it was in).
+  // What this instance's lanes did since Create, dropped lanes included: a
+  // restored lane counts from its restore (its checkpoint's counters are its
+  // predecessors'); `symbols` counts a symbol once per lane start that found
+  // it new.
   EngineCounters TotalCounters() const;
   // Inspection (tests): the lane of a partition, null when not held.
   const IngestCore* core(int partition) const;

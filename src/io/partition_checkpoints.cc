@@ -93,6 +93,11 @@ class StoreImpl : public PartitionCheckpointStore {
       kc.History = 1;
       kc.StorageType = js_FileStorage;
       s = js_CreateKeyValue(&kv, session_->js(), &kc);
+      if (s != NATS_OK) {
+        // Created by another instance at the same moment: open that one.
+        kv = nullptr;
+        s = js_KeyValue(&kv, session_->js(), config_.checkpoint_bucket.c_str());
+      }
     }
     if (s != NATS_OK) {
       return ToStatus(

@@ -9,6 +9,10 @@
 namespace aftershock {
 
 struct PartitionLanes::Lane {
+  // The counters the lane started with (a restored core brings its
+  // predecessor's); this instance's share is the difference.
+  EngineCounters base;
+  uint64_t base_swapped = 0;
   std::unique_ptr<IngestCore> core;
   std::unique_ptr<EngineServices> services;  // attached to core; destroyed first
   ~Lane() { services.reset(); }
@@ -59,6 +63,8 @@ absl::Status PartitionLanes::StartPartition(int partition, const Checkpoint* che
       // and may start the partition empty instead.
       return absl::Status(s.code(), absl::StrCat("partition ", partition, ": ", s.message()));
     }
+    (*lane)->base = (*lane)->core->counters();
+    (*lane)->base_swapped = (*lane)->services->refit_stats().swapped;
   }
   lanes_[partition] = *std::move(lane);
   return absl::OkStatus();
@@ -88,33 +94,36 @@ absl::Status PartitionLanes::CheckpointPartition(int partition, int64_t now_ns, 
 
 namespace {
 
-void AddCounters(const EngineCounters& c, EngineCounters* to) {
-  to->messages_in += c.messages_in;
-  to->ticks_in += c.ticks_in;
-  to->ticks_accepted += c.ticks_accepted;
-  to->bars += c.bars;
-  to->bars_clock_closed += c.bars_clock_closed;
-  to->updates_out += c.updates_out;
-  to->drops += c.drops;
-  to->non_finite_output += c.non_finite_output;
-  to->extra_out += c.extra_out;
-  to->extra_drops += c.extra_drops;
-  to->model_swaps += c.model_swaps;
-  to->symbols += c.symbols;
-  for (int r = 0; r < kNumRejectReasons; ++r) to->rejects.by_reason[r] += c.rejects.by_reason[r];
+// *to += c - base, field by field (unsigned: c >= base).
+void AddCounters(const EngineCounters& c, const EngineCounters& base, EngineCounters* to) {
+  to->messages_in += c.messages_in - base.messages_in;
+  to->ticks_in += c.ticks_in - base.ticks_in;
+  to->ticks_accepted += c.ticks_accepted - base.ticks_accepted;
+  to->bars += c.bars - base.bars;
+  to->bars_clock_closed += c.bars_clock_closed - base.bars_clock_closed;
+  to->updates_out += c.updates_out - base.updates_out;
+  to->drops += c.drops - base.drops;
+  to->non_finite_output += c.non_finite_output - base.non_finite_output;
+  to->extra_out += c.extra_out - base.extra_out;
+  to->extra_drops += c.extra_drops - base.extra_drops;
+  to->model_swaps += c.model_swaps - base.model_swaps;
+  to->symbols += c.symbols - base.symbols;
+  for (int r = 0; r < kNumRejectReasons; ++r) {
+    to->rejects.by_reason[r] += c.rejects.by_reason[r] - base.rejects.by_reason[r];
+  }
 }
 
 }  // namespace
 
 void PartitionLanes::Retire(Lane* lane) {
-  AddCounters(lane->core->counters(), &retired_);
-  retired_refits_ += lane->services->refit_stats().swapped;
+  AddCounters(lane->core->counters(), lane->base, &retired_);
+  retired_refits_ += lane->services->refit_stats().swapped - lane->base_swapped;
 }
 
 EngineCounters PartitionLanes::TotalCounters() const {
   EngineCounters sum = retired_;
   for (const auto& lane : lanes_) {
-    if (lane != nullptr) AddCounters(lane->core->counters(), &sum);
+    if (lane != nullptr) AddCounters(lane->core->counters(), lane->base, &sum);
   }
   return sum;
 }
@@ -150,7 +159,7 @@ void PartitionLanes::AppendPrometheus(std::string* o) const {
     if (lane == nullptr) continue;
     ++live;
     symbols += static_cast<uint64_t>(lane->core->num_symbols());
-    refits += lane->services->refit_stats().swapped;
+    refits += lane->services->refit_stats().swapped - lane->base_swapped;
   }
   auto metric = [o](const char* name, const char* type, const char* help, uint64_t v) {
     absl::StrAppend(o, "# HELP ", name, " ", help, "\n# TYPE ", name, " ", type, "\n", name, " ", v,

@@ -144,6 +144,9 @@ TEST_CASE("a partition's lane moves to another instance with its state, refit jo
     CHECK(second.lanes->services(kPartition)->refit_stats().in_flight == in_flight);
     second.next_sweep = first.next_sweep;
     for (size_t i = split; i < ticks.size(); ++i) second.Feed(ticks[i]);
+    // Each instance counts what it took (the restored counters are the first's).
+    CHECK(first.lanes->TotalCounters().messages_in == split);
+    CHECK(second.lanes->TotalCounters().messages_in == ticks.size() - split);
 
     std::vector<CollectingSink::Message> joined = first.sink.messages;
     joined.insert(joined.end(), second.sink.messages.begin(), second.sink.messages.end());
