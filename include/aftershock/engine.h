@@ -73,8 +73,8 @@ class Engine {
   // Live engine from the config alone: ZeroMQ SUB per [feed] (or, with [feed]
   // source = "nats", the NatsFeed of [nats] with one engine state per held
   // partition (partition_lanes.h; the engine's own core then takes no ticks),
-  // whose figures join /metrics and /health), ZeroMQ PUB per [publish] (plus a NATS copy of the updates with
-  // [nats] updates_subject), the system clock, signal handling on.
+  // whose figures join /metrics and /health), ZeroMQ PUB per [publish] (plus a NATS copy of the
+  // updates with [nats] updates_subject), the system clock, signal handling on.
   static absl::StatusOr<std::unique_ptr<Engine>> CreateFromConfig(const EngineConfig& config);
   ~Engine();
 

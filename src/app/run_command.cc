@@ -9,8 +9,8 @@
 #include "aftershock/checkpoint_file.h"
 #include "aftershock/checkpointer.h"
 #include "aftershock/config_check.h"
-#include "aftershock/engine_checkpoint.h"
 #include "aftershock/engine.h"
+#include "aftershock/engine_checkpoint.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
 #include "aftershock/model_store.h"
@@ -102,9 +102,10 @@ int RunCommand(int argc, char** argv) {
   // feed ([nats] checkpoint_bucket); the [checkpoint] file is not used.
   const bool nats = config->feed.source == FeedSource::kNats;
   if (nats && !config->checkpoint.path.empty()) {
-    std::fprintf(stderr, "aftershock run: note: with [feed] source = \"nats\" the partitions "
-                         "are checkpointed into the [nats] checkpoint_bucket; [checkpoint] path "
-                         "is not used\n");
+    std::fprintf(stderr,
+                 "aftershock run: note: with [feed] source = \"nats\" the partitions "
+                 "are checkpointed into the [nats] checkpoint_bucket; [checkpoint] path "
+                 "is not used\n");
   }
   const std::string cp_path = nats ? std::string() : config->checkpoint.path;
   // Read before the services are attached: a restore wins over --initial-models.
@@ -208,7 +209,7 @@ int RunCommand(int argc, char** argv) {
   }
   // With the NATS feed the ticks went to the partition lanes.
   const EngineCounters c = (*engine)->lanes() != nullptr ? (*engine)->lanes()->TotalCounters()
-                                                          : (*engine)->core()->counters();
+                                                         : (*engine)->core()->counters();
   std::fprintf(stderr,
                "aftershock run: stopped; %llu messages, %llu ticks, %llu bars, %llu updates, "
                "%llu drops, %s, %llu symbols; %s\n",

@@ -45,7 +45,7 @@ class NatsFeedImpl : public NatsFeed {
   struct Item {
     natsMsg* msg = nullptr;  // kMessage
     int partition = 0;
-    uint64_t seq = 0;        // kMessage: its stream sequence; kStart: the checkpoint's (0 none)
+    uint64_t seq = 0;  // kMessage: its stream sequence; kStart: the checkpoint's (0 none)
     ItemKind kind = ItemKind::kMessage;
     bool caught_up = false;  // kMessage: the first one after a start with nothing pending
     bool store = false;      // kStop: checkpoint before dropping (a hand-over)
@@ -67,6 +67,7 @@ class NatsFeedImpl : public NatsFeed {
     bool reported = false;   // the catch-up line was printed
     int64_t started_ns = 0;
   };
+
  public:
   NatsFeedImpl(const EngineConfig& config, const NatsFeedOptions& options)
       : engine_config_(config),
@@ -448,8 +449,7 @@ class NatsFeedImpl : public NatsFeed {
     metric("aftershock_nats_checkpoints_total", "counter",
            "Partition checkpoints stored in the checkpoint bucket.", s.checkpoints_written);
     metric("aftershock_nats_checkpoint_failures_total", "counter",
-           "Partition checkpoints that could not be serialized or stored.",
-           s.checkpoint_failures);
+           "Partition checkpoints that could not be serialized or stored.", s.checkpoint_failures);
     metric("aftershock_nats_restores_total", "counter",
            "Partitions started from a stored checkpoint.", s.restores);
     metric("aftershock_nats_fresh_starts_total", "counter",
@@ -855,7 +855,7 @@ class NatsFeedImpl : public NatsFeed {
   const EngineConfig engine_config_;  // for the checkpoints' configuration check
   const NatsConfig config_;
   const NatsFeedOptions options_;
-  PartitionConsumer* const lanes_;   // null: no lanes (ingest thread only)
+  PartitionConsumer* const lanes_;  // null: no lanes (ingest thread only)
   std::string instance_;
   int efd_ = -1;
   std::unique_ptr<NatsSession> session_;

@@ -5,11 +5,10 @@
 // SIGTERM releases the leases at once. `simulate --nats` publishes the ticks
 // and `cluster status --json` is the observer.
 #include <fcntl.h>
+#include <nats/nats.h>
 #include <signal.h>
 #include <sys/wait.h>
 #include <unistd.h>
-
-#include <nats/nats.h>
 
 #include <atomic>
 #include <catch2/catch.hpp>
@@ -175,7 +174,6 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   CHECK(Owners(s)[""] == 12);
 }
 
-
 // Every update published on "<subject>.>" (core NATS), collected on a thread.
 class UpdateCollector {
  public:
@@ -237,7 +235,8 @@ std::vector<std::string> CatchUpLines(const std::string& err) {
   std::vector<std::string> out;
   std::istringstream in(err);
   for (std::string line; std::getline(in, line);) {
-    if (line.find("caught up") != std::string::npos && line.find(" 0 messages") == std::string::npos) {
+    if (line.find("caught up") != std::string::npos &&
+        line.find(" 0 messages") == std::string::npos) {
       out.push_back(line);
     }
   }
@@ -251,7 +250,9 @@ std::string FaultConfig(const std::string& dir, const std::string& url, const st
       dir + "/" + name + ".toml",
       "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"" + url +
           "\"]\nlease_seconds = 2\ncheckpoint_seconds = 0.5\nupdates_subject = \"upd\"\n"
-          "instance = \"" + name + "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n"
+          "instance = \"" +
+          name +
+          "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n"
           "[http]\nenabled = false\n[bars]\ninterval = \"1m\"\n"
           "[refit]\nevery_bars = 100\nwindow = 300\nmin_bars = 120\nreidentify_every = 0\n"
           "holdout_bars = 20\napply_lag_bars = 5\nworkers = 1\n"
@@ -267,8 +268,8 @@ const std::vector<std::string> kMarket = {"--symbols", "24", "--bars", "500", "-
 
 // The single-process reference: `aftershock replay` of the same ticks.
 std::map<Key, std::string> ReplayReference(const std::string& dir, const std::string& config) {
-  std::vector<std::string> sim = {"simulate", "--output", dir + "/ticks.csv", "--time-format",
-                                  "ns", "--quiet"};
+  std::vector<std::string> sim = {"simulate",      "--output", dir + "/ticks.csv",
+                                  "--time-format", "ns",       "--quiet"};
   sim.insert(sim.end(), kMarket.begin(), kMarket.end());
   testing::CommandResult r = testing::RunCli(sim);
   INFO(r.err);
@@ -308,7 +309,8 @@ void CompareWithReplay(const std::map<Key, std::string>& got,
     if (it == got.end()) {
       ++missing;
     } else if (it->second != body) {
-      if (different < 3) std::printf("differs:\n  got  %s\n  want %s\n", it->second.c_str(), body.c_str());
+      if (different < 3)
+        std::printf("differs:\n  got  %s\n  want %s\n", it->second.c_str(), body.c_str());
       ++different;
     }
   }
@@ -352,8 +354,10 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
         return o["eng-a"] == 6 && o["eng-c"] == 6;
       },
       2 + 5 + 10);  // lease + 5 s, plus slack for `cluster status` on a loaded machine
-  std::printf("kill -9 mid-stream: partitions owned by the survivors %.2f s after the kill "
-              "(lease 2 s)\n", takeover);
+  std::printf(
+      "kill -9 mid-stream: partitions owned by the survivors %.2f s after the kill "
+      "(lease 2 s)\n",
+      takeover);
   CHECK(takeover >= 0);
   CHECK(feed.Wait() == 0);
 
