@@ -172,6 +172,21 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   s = Status(ca);
   CHECK(s["instances"].empty());
   CHECK(Owners(s)[""] == 12);
+  // A's final checkpoints: the partitions that had ticks have one covering
+  // their last sequence (200 ticks in the stream), the others none.
+  int with_checkpoint = 0;
+  for (const auto& p : s["partitions"]) {
+    const uint64_t seq = p["checkpoint_sequence"].get<uint64_t>();
+    const double age = p["checkpoint_age_s"].get<double>();
+    if (seq > 0) {
+      ++with_checkpoint;
+      CHECK(seq <= 200);
+      CHECK(age >= 0);
+    } else {
+      CHECK(age == -1);
+    }
+  }
+  CHECK(with_checkpoint >= 1);
 }
 
 // Every update published on "<subject>.>" (core NATS), collected on a thread.
