@@ -74,9 +74,7 @@ int ClusterCommand(int argc, char** argv) {
   } else if (!absl::IsNotFound(store.status())) {
     return Fail(store.status(), 1);
   }
-  auto age = [now](int64_t ns) {
-    return ns > 0 ? static_cast<double>(now - ns) / 1e9 : -1.0;
-  };
+  auto age = [now](int64_t ns) { return ns > 0 ? static_cast<double>(now - ns) / 1e9 : -1.0; };
   std::map<std::string, int> count;
   for (const PartitionAssignment& p : a->partitions) {
     if (!p.owner.empty()) ++count[p.owner];
