@@ -11,10 +11,10 @@
 // the position is ours; not a pull consumer, see nats_feed.cc for the libnats
 // 3.4.1 defect that rules out natsSubscription_Fetch) in batches of up to
 // `fetch_batch`, and queues the messages for the ingest thread, signalling an
-// eventfd (ReadinessFd). A reader starts at the stream's first
-// message of the partition, or, when this instance held the partition before,
-// right after the last message it fetched then, so its symbols' state is
-// continued without a gap. If no lease round succeeds for lease_seconds (the
+// eventfd (ReadinessFd). Without lanes (below) a reader starts at the
+// stream's first message of the partition, or, when this instance held the
+// partition before, right after the last message it fetched then, so its
+// symbols' state is continued without a gap. If no lease round succeeds for lease_seconds (the
 // broker is unreachable), every reader stops: the leases may have passed to
 // other instances, which then own those symbols.
 // Pump takes one lock per call (not per tick) to move up to max_messages
@@ -42,15 +42,15 @@
 //     every message already queued, is checkpointed at that last sequence and
 //     dropped WITHOUT closing its open bars (they are in the checkpoint; the
 //     next holder completes them, so no partial bar is published); the lease
-//     is released once the checkpoint is stored (or after lease_seconds);
+//     is released once the checkpoint is stored (or after lease_seconds / 3);
 //   * lost lease or fence: the lane is dropped without a checkpoint (the new
 //     holder continues from the last stored one);
 //   * OnStopped (clean shutdown, after the engine's loop ended): every lane is
 //     checkpointed and dropped, then every lease released.
 // A reader that catches up after a start logs the replay it did (messages,
 // seconds, messages per second).
-// Without lanes, every message goes to the engine's consumer and a
-// partition's new holder reads it from its first message.
+// Without lanes, every message goes to the engine's consumer, no checkpoint
+// is written, and a partition's new holder reads it from its first message.
 //
 // Destruction is the clean shutdown: readers stop and every lease is
 // released at once (no expiry wait for the survivors).
