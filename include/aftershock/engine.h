@@ -58,6 +58,7 @@ struct EngineOptions {
 };
 
 class MetricsHttpServer;
+class PartitionLanes;
 
 class Engine {
  public:
@@ -70,9 +71,10 @@ class Engine {
                                                         Clock* clock,
                                                         const EngineOptions& options = {});
   // Live engine from the config alone: ZeroMQ SUB per [feed] (or, with [feed]
-  // source = "nats", the NatsFeed of [nats], whose figures join /metrics and
-  // /health), ZeroMQ PUB per [publish] (plus a NATS copy of the updates with
-  // [nats] updates_subject), the system clock, signal handling on.
+  // source = "nats", the NatsFeed of [nats] with one engine state per held
+  // partition (partition_lanes.h; the engine's own core then takes no ticks),
+  // whose figures join /metrics and /health), ZeroMQ PUB per [publish] (plus a NATS copy of the
+  // updates with [nats] updates_subject), the system clock, signal handling on.
   static absl::StatusOr<std::unique_ptr<Engine>> CreateFromConfig(const EngineConfig& config);
   ~Engine();
 
@@ -88,6 +90,9 @@ class Engine {
 
   IngestCore* core() { return core_.get(); }
   UpdateSink* sink() { return sink_.get(); }
+  // The partition lanes of the NATS feed (CreateFromConfig with [feed]
+  // source = "nats"), else null.
+  const PartitionLanes* lanes() const { return lanes_.get(); }
   std::string BoundEndpoint() const { return sink_->BoundEndpoint(); }
   // True once Run() has entered its loop (tests wait on it).
   bool running() const;
@@ -106,6 +111,9 @@ class Engine {
   std::unique_ptr<TickSource> source_;
   std::unique_ptr<UpdateSink> sink_;
   std::unique_ptr<IngestCore> core_;
+  // [feed] source = "nats": the partition lanes (partition_lanes.h) the feed
+  // delivers to; destroyed before the core and the sink they use.
+  std::shared_ptr<PartitionLanes> lanes_;
   std::unique_ptr<Loop> loop_;
   std::unique_ptr<RejectWindow> reject_window_;  // ingest thread; before http_ (outlives it)
   std::unique_ptr<MetricsHttpServer> http_;      // after loop_: destroyed before it

@@ -84,6 +84,19 @@ struct NatsConfig {
   // "<updates_subject>.<symbol token>" (same body as on ZeroMQ); "" (default) =
   // ZeroMQ only.
   std::string updates_subject;
+  // Key-value bucket of the partitions' checkpoints (partition_checkpoints.h,
+  // [A-Za-z0-9_-]); created on first use; default "aftershock_checkpoints".
+  std::string checkpoint_bucket = "aftershock_checkpoints";
+  // Wall-clock seconds between checkpoints of each held partition (and one
+  // when a partition is handed over or the engine stops); 0 = only those.
+  // 0..86400; default 30.
+  double checkpoint_seconds = 30;
+  // true: each partition applies a passed refit exactly apply_lag_bars bars
+  // after it was scheduled (the replay hand-off; the ingest thread waits for
+  // a late fit), so a partition taken over continues on the models it would
+  // have had and its output equals a single-process replay. false: the live
+  // hand-off (never waits; the swap bar depends on timing). Default true.
+  bool exact_refits = true;
 };
 
 // [bars]: aggregation of ticks into bars.

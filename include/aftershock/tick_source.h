@@ -54,6 +54,12 @@ class TickSource {
   // waits on ReadinessFd(), which is what edge triggering requires.
   virtual bool MaybePending() { return false; }
 
+  // Called once on the ingest thread after the engine's loop ended, before
+  // the sink is flushed: a source may still hand state to its consumers (the
+  // NATS feed checkpoints its partitions and releases its leases). Default:
+  // nothing.
+  virtual void OnStopped() {}
+
   // OK, or why the source stopped (a read error of a file).
   virtual absl::Status status() const { return absl::OkStatus(); }
 };

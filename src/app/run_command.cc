@@ -9,11 +9,12 @@
 #include "aftershock/checkpoint_file.h"
 #include "aftershock/checkpointer.h"
 #include "aftershock/config_check.h"
-#include "aftershock/engine_checkpoint.h"
 #include "aftershock/engine.h"
+#include "aftershock/engine_checkpoint.h"
 #include "aftershock/engine_config.h"
 #include "aftershock/engine_services.h"
 #include "aftershock/model_store.h"
+#include "aftershock/partition_lanes.h"
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/engine_report.h"
@@ -97,7 +98,16 @@ int RunCommand(int argc, char** argv) {
   ServiceOptions so;
   so.mode = RefitMode::kLive;
   so.alerts_path = args.Get("alerts");
-  const std::string& cp_path = config->checkpoint.path;
+  // With the NATS feed every partition is checkpointed into JetStream by the
+  // feed ([nats] checkpoint_bucket); the [checkpoint] file is not used.
+  const bool nats = config->feed.source == FeedSource::kNats;
+  if (nats && !config->checkpoint.path.empty()) {
+    std::fprintf(stderr,
+                 "aftershock run: note: with [feed] source = \"nats\" the partitions "
+                 "are checkpointed into the [nats] checkpoint_bucket; [checkpoint] path "
+                 "is not used\n");
+  }
+  const std::string cp_path = nats ? std::string() : config->checkpoint.path;
   // Read before the services are attached: a restore wins over --initial-models.
   absl::StatusOr<Checkpoint> cp = absl::NotFoundError("no checkpoint");
   if (!cp_path.empty() && !args.Flag("fresh")) cp = ReadCheckpointFile(cp_path);
@@ -197,7 +207,9 @@ int RunCommand(int argc, char** argv) {
       st = cs;
     }
   }
-  const EngineCounters& c = (*engine)->core()->counters();
+  // With the NATS feed the ticks went to the partition lanes.
+  const EngineCounters c = (*engine)->lanes() != nullptr ? (*engine)->lanes()->TotalCounters()
+                                                         : (*engine)->core()->counters();
   std::fprintf(stderr,
                "aftershock run: stopped; %llu messages, %llu ticks, %llu bars, %llu updates, "
                "%llu drops, %s, %llu symbols; %s\n",

@@ -52,6 +52,16 @@ std::vector<std::string> ConfigWarnings(const EngineConfig& c, const RunFacts& f
   const int64_t interval = c.bars.interval_ns;
   const bool refits_on = c.refit.every_bars > 0 || c.refit.every_seconds > 0;
 
+  // ---- Scale-out: each partition has its own engine state, so what pools
+  // across symbols pools within a partition only.
+  if (c.feed.source == FeedSource::kNats && refits_on && c.refit.group_models &&
+      !c.model.has_params) {
+    out.push_back(
+        "[refit] group_models with [feed] source = \"nats\": a symbol's group model comes from "
+        "the symbols of its own partition, so `pooled` updates differ from a single-process "
+        "run; set group_models = false for output equal to `aftershock replay`");
+  }
+
   // ---- Annualization against the bar layout.
   const double auto_ppy = AutoPeriodsPerYear(c.bars);
   const double ppy = c.outputs.periods_per_year;

@@ -520,9 +520,9 @@ bool IsPlainSubject(absl::string_view v) {
 }
 
 absl::Status ParseNats(const Section& s, NatsConfig* c) {
-  AS_RETURN_IF_ERROR(s.CheckKeys({"servers", "stream", "subject", "partition_subject",
-                                  "partitions", "lease_seconds", "instance", "lease_bucket",
-                                  "updates_subject"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"servers", "stream", "subject", "partition_subject", "partitions",
+                                  "lease_seconds", "instance", "lease_bucket", "updates_subject",
+                                  "checkpoint_bucket", "checkpoint_seconds", "exact_refits"}));
   AS_RETURN_IF_ERROR(s.StringArray("servers", &c->servers));
   if (c->servers.empty()) return s.KeyError("servers", "at least one server URL is required");
   for (const std::string& url : c->servers) {
@@ -539,8 +539,13 @@ absl::Status ParseNats(const Section& s, NatsConfig* c) {
   AS_RETURN_IF_ERROR(s.String("instance", &c->instance));
   AS_RETURN_IF_ERROR(s.String("lease_bucket", &c->lease_bucket));
   AS_RETURN_IF_ERROR(s.String("updates_subject", &c->updates_subject));
+  AS_RETURN_IF_ERROR(s.String("checkpoint_bucket", &c->checkpoint_bucket));
+  AS_RETURN_IF_ERROR(
+      s.Number("checkpoint_seconds", &c->checkpoint_seconds, 0, 86400, false, false));
+  AS_RETURN_IF_ERROR(s.Bool("exact_refits", &c->exact_refits));
   for (const auto& [key, value] : {std::pair<const char*, const std::string*>{"stream", &c->stream},
-                                   {"lease_bucket", &c->lease_bucket}}) {
+                                   {"lease_bucket", &c->lease_bucket},
+                                   {"checkpoint_bucket", &c->checkpoint_bucket}}) {
     if (!IsNatsName(*value, 64)) {
       return s.KeyError(key, absl::StrCat("expected 1..64 characters of [A-Za-z0-9_-], got \"",
                                           *value, "\""));
@@ -1219,13 +1224,15 @@ std::string FormatEngineConfig(const EngineConfig& c) {
   for (size_t i = 0; i < c.nats.servers.size(); ++i) {
     absl::StrAppend(&o, i ? ", " : "", Quote(c.nats.servers[i]));
   }
-  absl::StrAppend(&o, "]\nstream = ", Quote(c.nats.stream), "\nsubject = ", Quote(c.nats.subject),
-                  "\npartition_subject = ", Quote(c.nats.partition_subject),
-                  "\npartitions = ", c.nats.partitions,
-                  "\nlease_seconds = ", num(c.nats.lease_seconds),
-                  "\ninstance = ", Quote(c.nats.instance),
-                  "\nlease_bucket = ", Quote(c.nats.lease_bucket),
-                  "\nupdates_subject = ", Quote(c.nats.updates_subject), "\n");
+  absl::StrAppend(
+      &o, "]\nstream = ", Quote(c.nats.stream), "\nsubject = ", Quote(c.nats.subject),
+      "\npartition_subject = ", Quote(c.nats.partition_subject),
+      "\npartitions = ", c.nats.partitions, "\nlease_seconds = ", num(c.nats.lease_seconds),
+      "\ninstance = ", Quote(c.nats.instance), "\nlease_bucket = ", Quote(c.nats.lease_bucket),
+      "\nupdates_subject = ", Quote(c.nats.updates_subject),
+      "\ncheckpoint_bucket = ", Quote(c.nats.checkpoint_bucket),
+      "\ncheckpoint_seconds = ", num(c.nats.checkpoint_seconds),
+      "\nexact_refits = ", c.nats.exact_refits ? "true" : "false", "\n");
   absl::StrAppend(&o, "\n[publish]\nendpoint = ", Quote(c.publish.endpoint),
                   "\nencoding = ", Quote(WireEncodingName(c.publish.encoding)),
                   "\nhigh_water_mark = ", c.publish.high_water_mark, "\n");

@@ -145,6 +145,12 @@ absl::StatusOr<KvStorePtr> OpenLeaseBucket(NatsSession* session, const NatsConfi
   kc.StorageType = js_FileStorage;
   s = js_CreateKeyValue(&kv, session->js(), &kc);
   if (s != NATS_OK) {
+    // Another engine may have created it at the same moment (the server then
+    // answers "subjects overlap with an existing stream"): open that one.
+    kv = nullptr;
+    if (js_KeyValue(&kv, session->js(), config.lease_bucket.c_str()) == NATS_OK) {
+      return KvStorePtr(kv);
+    }
     return ToStatus(s, absl::StrCat("cannot create key-value bucket '", config.lease_bucket, "'"));
   }
   return KvStorePtr(kv);

@@ -16,7 +16,10 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
+#include "aftershock/checkpoint_file.h"
 #include "aftershock/clock.h"
+#include "aftershock/engine_checkpoint.h"
+#include "aftershock/partition_checkpoints.h"
 #include "aftershock/subject_token.h"
 #include "io/nats_client.h"
 
@@ -36,15 +39,53 @@ int64_t WallNs() {
 constexpr size_t kMaxPumpBatch = 16384;
 
 class NatsFeedImpl : public NatsFeed {
+ private:
+  enum class ItemKind : uint8_t { kMessage, kStart, kStop };
+  // What the readers and the coordinator queue for the ingest thread.
+  struct Item {
+    natsMsg* msg = nullptr;  // kMessage
+    int partition = 0;
+    uint64_t seq = 0;  // kMessage: its stream sequence; kStart: the checkpoint's (0 none)
+    ItemKind kind = ItemKind::kMessage;
+    bool caught_up = false;  // kMessage: the first one after a start with nothing pending
+    bool store = false;      // kStop: checkpoint before dropping (a hand-over)
+    std::shared_ptr<const Checkpoint> checkpoint;  // kStart: the state to restore (null none)
+  };
+  // A checkpoint for the writer thread.
+  struct WriteJob {
+    int partition = 0;
+    uint64_t sequence = 0;
+    std::unique_ptr<std::string> bytes;
+    bool handover = false;  // the coordinator waits for it (HandOverDone)
+  };
+  // The ingest thread's view of a partition's lane.
+  struct LaneState {
+    bool active = false;
+    uint64_t delivered = 0;  // last sequence handed to the lane
+    uint64_t start_seq = 0;  // sequence the lane's state started from
+    uint64_t replayed = 0;   // messages since the start
+    bool reported = false;   // the catch-up line was printed
+    int64_t started_ns = 0;
+  };
+
  public:
   NatsFeedImpl(const EngineConfig& config, const NatsFeedOptions& options)
-      : config_(config.nats),
+      : engine_config_(config),
+        config_(config.nats),
         options_(options),
+        lanes_(options.partitions),
         last_fetched_(new std::atomic<uint64_t>[static_cast<size_t>(config_.partitions)]),
-        pending_(new std::atomic<uint64_t>[static_cast<size_t>(config_.partitions)]) {
+        pending_(new std::atomic<uint64_t>[static_cast<size_t>(config_.partitions)]),
+        stored_seq_(new std::atomic<uint64_t>[static_cast<size_t>(config_.partitions)]),
+        stored_ns_(new std::atomic<int64_t>[static_cast<size_t>(config_.partitions)]),
+        in_flight_(new std::atomic<bool>[static_cast<size_t>(config_.partitions)]),
+        lane_(static_cast<size_t>(config_.partitions)) {
     for (int p = 0; p < config_.partitions; ++p) {
       last_fetched_[p].store(0);
       pending_[p].store(0);
+      stored_seq_[p].store(0);
+      stored_ns_[p].store(0);
+      in_flight_[p].store(false);
     }
     staging_.reserve(kMaxPumpBatch);
     done_.reserve(kMaxPumpBatch);
@@ -60,6 +101,13 @@ class NatsFeedImpl : public NatsFeed {
     if (absl::Status s = nats_internal::EnsureTickStream(session_.get(), config_); !s.ok()) {
       return s;
     }
+    if (lanes_ != nullptr) {
+      auto store = PartitionCheckpointStore::Open(
+          config_, absl::StrCat("aftershock-checkpoints-", instance_), /*create=*/true);
+      if (!store.ok()) return store.status();
+      store_ = *std::move(store);
+      writer_ = std::thread([this] { WriteCheckpoints(); });
+    }
     auto leases = PartitionLeases::Open(config_, instance_);
     if (!leases.ok()) return leases.status();
     leases_ = *std::move(leases);
@@ -73,17 +121,9 @@ class NatsFeedImpl : public NatsFeed {
   }
 
   ~NatsFeedImpl() override {
-    if (coordinator_.joinable()) {
-      {
-        std::lock_guard<std::mutex> l(coord_mu_);
-        stopping_ = true;
-      }
-      coord_cv_.notify_all();
-      coordinator_.join();
-    } else {
-      StopAllReaders();
-    }
-    if (leases_ != nullptr && options_.release_on_destroy) {
+    StopCoordinator();
+    StopWriter();
+    if (leases_ != nullptr && options_.release_on_destroy && !released_) {
       if (absl::Status s = leases_->ReleaseAll(); !s.ok()) {
         std::fprintf(stderr, "aftershock: nats: releasing the leases failed: %s\n",
                      std::string(s.message()).c_str());
@@ -94,8 +134,98 @@ class NatsFeedImpl : public NatsFeed {
     for (natsMsg* m : graveyard_) natsMsg_Destroy(m);
     for (natsMsg* m : done_) natsMsg_Destroy(m);
     leases_.reset();
+    store_.reset();
     session_.reset();
     if (efd_ >= 0) close(efd_);
+  }
+
+  // Stops the coordinator (which stops the readers). Idempotent.
+  void StopCoordinator() {
+    if (coordinator_.joinable()) {
+      {
+        std::lock_guard<std::mutex> l(coord_mu_);
+        stopping_ = true;
+      }
+      coord_cv_.notify_all();
+      {
+        std::lock_guard<std::mutex> l(mu_);  // wakes a hand-over wait
+        handover_cv_.notify_all();
+      }
+      coordinator_.join();
+    } else {
+      StopAllReaders();
+    }
+  }
+
+  // Lets the writer store what is queued, then joins it. Idempotent.
+  void StopWriter() {
+    if (!writer_.joinable()) return;
+    {
+      std::lock_guard<std::mutex> l(write_mu_);
+      writer_stopping_ = true;
+    }
+    write_cv_.notify_all();
+    writer_.join();
+  }
+
+  // ---- TickSource::OnStopped (ingest thread, after the loop ended) ----
+  void OnStopped() override {
+    if (lanes_ == nullptr) return;
+    StopCoordinator();
+    if (!options_.release_on_destroy) return;  // as after a crash: no final checkpoints
+    const int64_t now = WallNs();
+    int stored = 0;
+    for (int p = 0; p < config_.partitions; ++p) {
+      if (!lane_[p].active) continue;
+      if (lane_[p].delivered > stored_seq_[p].load()) {
+        auto bytes = std::make_unique<std::string>();
+        if (absl::Status s = lanes_->CheckpointPartition(p, now, bytes.get()); s.ok()) {
+          QueueWrite(WriteJob{p, lane_[p].delivered, std::move(bytes), false});
+          ++stored;
+        } else {
+          checkpoint_failures_.fetch_add(1, std::memory_order_relaxed);
+          std::fprintf(stderr, "aftershock: nats: cannot checkpoint partition %d: %s\n", p,
+                       std::string(s.message()).c_str());
+        }
+      }
+      lanes_->StopPartition(p);
+      lane_[p].active = false;
+    }
+    StopWriter();  // stores the final checkpoints before the leases go
+    if (stored > 0) {
+      std::fprintf(stderr, "aftershock: nats: %d partition checkpoint(s) stored at shutdown\n",
+                   stored);
+    }
+    if (leases_ != nullptr && options_.release_on_destroy) {
+      if (absl::Status s = leases_->ReleaseAll(); !s.ok()) {
+        std::fprintf(stderr, "aftershock: nats: releasing the leases failed: %s\n",
+                     std::string(s.message()).c_str());
+      }
+      released_ = true;
+    }
+  }
+
+  // ---- BarObserver::OnClock (ingest thread): periodic checkpoints ----
+  void OnClock(IngestCore*, int64_t) override {
+    if (lanes_ == nullptr || config_.checkpoint_seconds <= 0) return;
+    const int64_t now = WallNs();
+    if (now < next_checkpoint_ns_) return;
+    next_checkpoint_ns_ = now + static_cast<int64_t>(config_.checkpoint_seconds * 1e9);
+    for (int p = 0; p < config_.partitions; ++p) {
+      if (!lane_[p].active || in_flight_[p].load()) continue;
+      if (lane_[p].delivered <= stored_seq_[p].load()) {
+        stored_ns_[p].store(now);  // nothing new: the stored state is current
+        continue;
+      }
+      auto bytes = std::make_unique<std::string>();
+      if (absl::Status s = lanes_->CheckpointPartition(p, now, bytes.get()); !s.ok()) {
+        checkpoint_failures_.fetch_add(1, std::memory_order_relaxed);
+        std::fprintf(stderr, "aftershock: nats: cannot checkpoint partition %d: %s\n", p,
+                     std::string(s.message()).c_str());
+        continue;
+      }
+      QueueWrite(WriteJob{p, lane_[p].delivered, std::move(bytes), false});
+    }
   }
 
   // ---- TickSource (ingest thread) ----
@@ -123,6 +253,7 @@ class NatsFeedImpl : public NatsFeed {
       }
     }
     done_.clear();
+    if (lanes_ != nullptr) return PumpLanes();
     char symbol[kMaxSymbolLength];
     for (const Item& it : staging_) {
       const absl::string_view subject = natsMsg_GetSubject(it.msg);
@@ -146,6 +277,142 @@ class NatsFeedImpl : public NatsFeed {
     staging_.clear();
     messages_.fetch_add(static_cast<uint64_t>(delivered), std::memory_order_relaxed);
     return delivered;
+  }
+
+  // Pump's lane path: control items start and stop lanes; messages go to
+  // their partition's lane in stream order.
+  int PumpLanes() {
+    char symbol[kMaxSymbolLength];
+    int delivered = 0;
+    for (Item& it : staging_) {
+      const int p = it.partition;
+      LaneState& lane = lane_[p];
+      if (it.kind == ItemKind::kStart) {
+        StartLane(p, it);
+        continue;
+      }
+      if (it.kind == ItemKind::kStop) {
+        StopLane(p, it.store);
+        continue;
+      }
+      done_.push_back(it.msg);
+      if (!lane.active) continue;  // cannot happen: a partition's messages follow its start
+      const absl::string_view subject = natsMsg_GetSubject(it.msg);
+      const size_t dot = subject.rfind('.');
+      const absl::string_view token =
+          dot == absl::string_view::npos ? subject : subject.substr(dot + 1);
+      const int n = DecodeSubjectTokenTo(token, symbol, sizeof(symbol));
+      const absl::string_view body(natsMsg_GetData(it.msg),
+                                   static_cast<size_t>(natsMsg_GetDataLength(it.msg)));
+      if (n > 0) {
+        lanes_->OnPartitionMessage(p, absl::string_view(symbol, static_cast<size_t>(n)), body);
+      } else {
+        bad_subjects_.fetch_add(1, std::memory_order_relaxed);
+        lanes_->OnPartitionMessage(p, token, body);
+      }
+      lane.delivered = it.seq;
+      ++lane.replayed;
+      ++delivered;
+      if (it.caught_up && !lane.reported) {
+        lane.reported = true;
+        const double secs = static_cast<double>(WallNs() - lane.started_ns) / 1e9;
+        std::fprintf(stderr,
+                     "aftershock: nats: partition %d caught up: %llu messages (sequence %llu to "
+                     "%llu) filtered in %.3f s (%.0f messages/s)\n",
+                     p, static_cast<unsigned long long>(lane.replayed),
+                     static_cast<unsigned long long>(lane.start_seq + 1),
+                     static_cast<unsigned long long>(it.seq), secs,
+                     secs > 0 ? static_cast<double>(lane.replayed) / secs : 0.0);
+      }
+    }
+    staging_.clear();
+    messages_.fetch_add(static_cast<uint64_t>(delivered), std::memory_order_relaxed);
+    return delivered;
+  }
+
+  void StartLane(int p, const Item& it) {
+    LaneState& lane = lane_[p];
+    if (lane.active) lanes_->StopPartition(p);  // not expected: a stop precedes a start
+    absl::Status s = lanes_->StartPartition(p, it.checkpoint.get());
+    if (!s.ok()) {
+      // The lane is empty now, but the reader starts after the checkpoint:
+      // its symbols restart from scratch. Loud, and counted as a fresh start.
+      std::fprintf(stderr,
+                   "aftershock: nats: partition %d: the checkpoint at sequence %llu could not be "
+                   "restored (%s); its symbols restart empty\n",
+                   p, static_cast<unsigned long long>(it.seq), std::string(s.message()).c_str());
+      (void)lanes_->StartPartition(p, nullptr);
+    }
+    lane.active = true;
+    lane.delivered = it.seq;
+    lane.start_seq = it.seq;
+    lane.replayed = 0;
+    lane.reported = false;
+    lane.started_ns = WallNs();
+  }
+
+  void StopLane(int p, bool store) {
+    LaneState& lane = lane_[p];
+    bool queued = false;
+    if (lane.active && store && lane.delivered > stored_seq_[p].load()) {
+      auto bytes = std::make_unique<std::string>();
+      if (absl::Status s = lanes_->CheckpointPartition(p, WallNs(), bytes.get()); s.ok()) {
+        QueueWrite(WriteJob{p, lane.delivered, std::move(bytes), true});
+        queued = true;
+      } else {
+        checkpoint_failures_.fetch_add(1, std::memory_order_relaxed);
+        std::fprintf(stderr, "aftershock: nats: cannot checkpoint partition %d: %s\n", p,
+                     std::string(s.message()).c_str());
+      }
+    }
+    if (lane.active) lanes_->StopPartition(p);
+    lane.active = false;
+    if (store && !queued) HandOverDone(p);
+  }
+
+  // The hand-over of p may proceed (its final checkpoint is stored, failed,
+  // or was not needed).
+  void HandOverDone(int p) {
+    std::lock_guard<std::mutex> l(mu_);
+    handed_over_.push_back(p);
+    handover_cv_.notify_all();
+  }
+
+  void QueueWrite(WriteJob job) {
+    in_flight_[job.partition].store(true);
+    {
+      std::lock_guard<std::mutex> l(write_mu_);
+      writes_.push_back(std::move(job));
+    }
+    write_cv_.notify_one();
+  }
+
+  // ---- writer thread: stores the partitions' checkpoints ----
+  void WriteCheckpoints() {
+    std::unique_lock<std::mutex> l(write_mu_);
+    while (true) {
+      write_cv_.wait(l, [this] { return writer_stopping_ || !writes_.empty(); });
+      if (writes_.empty()) return;  // stopping, nothing left
+      WriteJob job = std::move(writes_.front());
+      writes_.pop_front();
+      l.unlock();
+      auto put = store_->Put(job.partition, job.sequence, *job.bytes);
+      if (put.ok()) {
+        if (put->written) {
+          checkpoints_written_.fetch_add(1, std::memory_order_relaxed);
+          last_checkpoint_bytes_.store(job.bytes->size(), std::memory_order_relaxed);
+        }
+        stored_seq_[job.partition].store(put->stored_sequence);
+        stored_ns_[job.partition].store(WallNs());
+      } else {
+        checkpoint_failures_.fetch_add(1, std::memory_order_relaxed);
+        std::fprintf(stderr, "aftershock: nats: cannot store the checkpoint of partition %d: %s\n",
+                     job.partition, std::string(put.status().message()).c_str());
+      }
+      in_flight_[job.partition].store(false);
+      if (job.handover) HandOverDone(job.partition);
+      l.lock();
+    }
   }
 
   int ReadinessFd() const override { return efd_; }
@@ -178,6 +445,24 @@ class NatsFeedImpl : public NatsFeed {
            s.messages);
     metric("aftershock_nats_bad_subjects_total", "counter",
            "Messages whose subject token did not decode.", s.bad_subjects);
+    if (lanes_ == nullptr) return;
+    metric("aftershock_nats_checkpoints_total", "counter",
+           "Partition checkpoints stored in the checkpoint bucket.", s.checkpoints_written);
+    metric("aftershock_nats_checkpoint_failures_total", "counter",
+           "Partition checkpoints that could not be serialized or stored.", s.checkpoint_failures);
+    metric("aftershock_nats_restores_total", "counter",
+           "Partitions started from a stored checkpoint.", s.restores);
+    metric("aftershock_nats_fresh_starts_total", "counter",
+           "Partitions started empty (no usable checkpoint: replayed from the start).",
+           s.fresh_starts);
+    metric("aftershock_nats_checkpoint_last_bytes", "gauge",
+           "Size of the last partition checkpoint stored.", s.last_checkpoint_bytes);
+    absl::StrAppend(o,
+                    "# HELP aftershock_nats_checkpoint_age_seconds Age of the oldest held "
+                    "partition's last stored checkpoint (-1: one has none).\n"
+                    "# TYPE aftershock_nats_checkpoint_age_seconds gauge\n"
+                    "aftershock_nats_checkpoint_age_seconds ",
+                    s.checkpoint_age_seconds, "\n");
   }
 
   void AppendHealthJson(std::string* o) const override {
@@ -185,7 +470,19 @@ class NatsFeedImpl : public NatsFeed {
     absl::StrAppend(o, ",\"nats\":{\"instance\":\"", s.instance, "\",\"partitions\":[",
                     absl::StrJoin(s.partitions, ","), "],\"lease_renewals\":", s.leases.renewals,
                     ",\"takeovers\":", s.leases.takeovers, ",\"lease_errors\":", s.lease_errors,
-                    ",\"replay_lag\":", s.replay_lag, "}");
+                    ",\"replay_lag\":", s.replay_lag);
+    if (lanes_ != nullptr) {
+      absl::StrAppend(o, ",\"checkpoints\":", s.checkpoints_written,
+                      ",\"checkpoint_failures\":", s.checkpoint_failures,
+                      ",\"restores\":", s.restores, ",\"fresh_starts\":", s.fresh_starts,
+                      ",\"checkpoint_age_seconds\":");
+      if (s.checkpoint_age_seconds < 0) {
+        absl::StrAppend(o, "null");
+      } else {
+        absl::StrAppend(o, s.checkpoint_age_seconds);
+      }
+    }
+    absl::StrAppend(o, "}");
   }
 
   NatsFeedStats stats() const override {
@@ -199,14 +496,20 @@ class NatsFeedImpl : public NatsFeed {
     uint64_t lag = queued_.load(std::memory_order_relaxed);
     for (int p : s.partitions) lag += pending_[p].load(std::memory_order_relaxed);
     s.replay_lag = lag;
+    s.checkpoints_written = checkpoints_written_.load(std::memory_order_relaxed);
+    s.checkpoint_failures = checkpoint_failures_.load(std::memory_order_relaxed);
+    s.restores = restores_.load(std::memory_order_relaxed);
+    s.fresh_starts = fresh_starts_.load(std::memory_order_relaxed);
+    s.last_checkpoint_bytes = last_checkpoint_bytes_.load(std::memory_order_relaxed);
+    if (lanes_ != nullptr && !s.partitions.empty()) {
+      int64_t oldest = INT64_MAX;
+      for (int p : s.partitions) oldest = std::min(oldest, stored_ns_[p].load());
+      s.checkpoint_age_seconds = oldest <= 0 ? -1 : static_cast<double>(WallNs() - oldest) / 1e9;
+    }
     return s;
   }
 
  private:
-  struct Item {
-    natsMsg* msg;
-    int partition;
-  };
   struct Reader {
     int partition = 0;
     std::atomic<bool> stop{false};
@@ -243,7 +546,12 @@ class NatsFeedImpl : public NatsFeed {
       // belong to others by now; stop reading rather than filter twice.
       const int64_t lease_ns = static_cast<int64_t>(config_.lease_seconds * 1e9);
       if (!readers_.empty() && (last_round_ns_ == 0 || now - last_round_ns_ >= lease_ns)) {
+        std::vector<int> held;
+        for (const auto& [p, reader] : readers_) held.push_back(p);
         StopAllReaders();
+        if (lanes_ != nullptr) {
+          for (int p : held) QueueControl(p, ItemKind::kStop, false);
+        }
         ++fenced_;
       }
       PublishStats();
@@ -258,6 +566,8 @@ class NatsFeedImpl : public NatsFeed {
     }
     // Stop readers of partitions no longer wanted (lost or surplus), then
     // release the surplus: nobody else starts reading it while we still do.
+    // With lanes a surplus partition is handed over: its lane is checkpointed
+    // at the last message it took before the lease goes.
     std::vector<int> unwanted;
     for (auto& [p, reader] : readers_) {
       if (std::find(wanted.begin(), wanted.end(), p) == wanted.end()) {
@@ -265,10 +575,17 @@ class NatsFeedImpl : public NatsFeed {
         unwanted.push_back(p);
       }
     }
+    std::vector<int> handing_over;
     for (int p : unwanted) {
       StopReader(readers_[p].get());
       readers_.erase(p);
+      if (lanes_ != nullptr) {
+        const bool surplus = std::find(r->surplus.begin(), r->surplus.end(), p) != r->surplus.end();
+        QueueControl(p, ItemKind::kStop, surplus);
+        if (surplus) handing_over.push_back(p);
+      }
     }
+    if (!handing_over.empty()) WaitHandOver(handing_over);
     if (!r->surplus.empty()) {
       if (absl::Status s = leases_->Release(r->surplus); !s.ok()) {
         std::fprintf(stderr, "aftershock: nats: %s\n", std::string(s.message()).c_str());
@@ -276,6 +593,7 @@ class NatsFeedImpl : public NatsFeed {
     }
     for (int p : wanted) {
       if (readers_.count(p) != 0) continue;
+      if (lanes_ != nullptr) PrepareLane(p);
       auto reader = std::make_unique<Reader>();
       reader->partition = p;
       Reader* raw = reader.get();
@@ -287,6 +605,104 @@ class NatsFeedImpl : public NatsFeed {
                    instance_.c_str(), absl::StrJoin(r->taken_over, ",").c_str());
     }
     PublishStats();
+  }
+
+  // Queues a start or stop of partition p's lane for the ingest thread.
+  void QueueControl(int p, ItemKind kind, bool store,
+                    std::shared_ptr<const Checkpoint> checkpoint = nullptr, uint64_t seq = 0) {
+    Item it;
+    it.partition = p;
+    it.kind = kind;
+    it.store = store;
+    it.seq = seq;
+    it.checkpoint = std::move(checkpoint);
+    {
+      std::lock_guard<std::mutex> l(mu_);
+      queue_.push_back(std::move(it));
+      queued_.fetch_add(1, std::memory_order_relaxed);
+    }
+    const uint64_t one = 1;
+    if (write(efd_, &one, sizeof(one)) < 0) {
+      // Counter saturated: the ingest thread is signalled already.
+    }
+  }
+
+  // Before partition p's reader starts (coordinator): reads its checkpoint
+  // and queues the lane's start; the reader then begins after the
+  // checkpoint's sequence (or at the partition's first message).
+  void PrepareLane(int p) {
+    std::shared_ptr<const Checkpoint> cp;
+    uint64_t seq = 0;
+    int64_t written_ns = 0;
+    auto stored = store_->Get(p);
+    if (stored.ok()) {
+      const uint64_t at = stored->sequence;
+      const size_t size = stored->bytes.size();
+      written_ns = stored->written_ns;
+      auto parsed = ParseCheckpoint(std::move(stored->bytes));
+      absl::Status s = parsed.status();
+      if (parsed.ok()) s = CheckCheckpointConfig(*parsed, engine_config_);
+      if (s.ok()) {
+        std::fprintf(stderr,
+                     "aftershock: nats: partition %d: restoring its checkpoint (%llu symbols, "
+                     "%zu bytes, written %.1f s ago); reading from sequence %llu\n",
+                     p, static_cast<unsigned long long>(parsed->header().symbol_count), size,
+                     static_cast<double>(WallNs() - written_ns) / 1e9,
+                     static_cast<unsigned long long>(at + 1));
+        cp = std::make_shared<const Checkpoint>(*std::move(parsed));
+        seq = at;
+      } else {
+        std::fprintf(stderr,
+                     "aftershock: nats: partition %d: stored checkpoint not usable (%s); "
+                     "replaying the partition from its first message\n",
+                     p, std::string(s.message()).c_str());
+      }
+    } else if (!absl::IsNotFound(stored.status())) {
+      std::fprintf(stderr,
+                   "aftershock: nats: partition %d: cannot read its checkpoint (%s); replaying "
+                   "the partition from its first message\n",
+                   p, std::string(stored.status().message()).c_str());
+    }
+    if (cp != nullptr) {
+      restores_.fetch_add(1, std::memory_order_relaxed);
+    } else {
+      fresh_starts_.fetch_add(1, std::memory_order_relaxed);
+    }
+    last_fetched_[p].store(seq);
+    stored_seq_[p].store(seq);
+    stored_ns_[p].store(cp != nullptr ? written_ns : 0);
+    QueueControl(p, ItemKind::kStart, false, std::move(cp), seq);
+  }
+
+  // Waits (at most a third of the lease time) until the ingest thread has
+  // checkpointed each of `partitions` and the writer stored it.
+  void WaitHandOver(const std::vector<int>& partitions) {
+    const auto deadline =
+        std::chrono::steady_clock::now() +
+        std::chrono::milliseconds(static_cast<int64_t>(config_.lease_seconds * 1000 / 3));
+    std::unique_lock<std::mutex> l(mu_);
+    auto all_done = [&] {
+      for (int p : partitions) {
+        if (std::find(handed_over_.begin(), handed_over_.end(), p) == handed_over_.end()) {
+          return false;
+        }
+      }
+      return true;
+    };
+    const bool done = handover_cv_.wait_until(l, deadline, [&] {
+      std::lock_guard<std::mutex> c(coord_mu_);
+      return stopping_ || all_done();
+    });
+    if (!done) {
+      std::fprintf(stderr,
+                   "aftershock: nats: hand-over checkpoint of partition(s) %s not stored in time; "
+                   "releasing anyway (the next holder replays from the previous one)\n",
+                   absl::StrJoin(partitions, ",").c_str());
+    }
+    for (int p : partitions) {
+      handed_over_.erase(std::remove(handed_over_.begin(), handed_over_.end(), p),
+                         handed_over_.end());
+    }
   }
 
   void StopReader(Reader* r) {
@@ -338,6 +754,7 @@ class NatsFeedImpl : public NatsFeed {
     std::vector<natsMsg*> batch;
     batch.reserve(static_cast<size_t>(options_.fetch_batch));
     int failures = 0;
+    bool caught_up = false;  // a message with nothing pending after it was queued
     while (!r->stop.load()) {
       if (sub == nullptr) {
         jsSubOptions so;
@@ -405,7 +822,13 @@ class NatsFeedImpl : public NatsFeed {
           jsMsgMetaData_Destroy(meta);
           if (seq <= last) continue;  // already taken before a re-subscribe
           last = seq;
-          queue_.push_back(Item{msg, p});
+          Item it;
+          it.msg = msg;
+          it.partition = p;
+          it.seq = seq;
+          it.caught_up = !caught_up && pending == 0;
+          caught_up = caught_up || pending == 0;
+          queue_.push_back(std::move(it));
           msg = nullptr;  // now owned by the queue
           ++queued;
         }
@@ -429,8 +852,10 @@ class NatsFeedImpl : public NatsFeed {
     FreeGraveyard(&scratch);
   }
 
+  const EngineConfig engine_config_;  // for the checkpoints' configuration check
   const NatsConfig config_;
   const NatsFeedOptions options_;
+  PartitionConsumer* const lanes_;  // null: no lanes (ingest thread only)
   std::string instance_;
   int efd_ = -1;
   std::unique_ptr<NatsSession> session_;
@@ -440,6 +865,27 @@ class NatsFeedImpl : public NatsFeed {
   // across reader restarts) and the broker's pending count after it.
   std::unique_ptr<std::atomic<uint64_t>[]> last_fetched_;
   std::unique_ptr<std::atomic<uint64_t>[]> pending_;
+  // Per partition (lanes): the sequence of the last stored checkpoint (or the
+  // one restored), when it was stored (wall ns; 0 none), and whether a write
+  // of it is queued or running.
+  std::unique_ptr<std::atomic<uint64_t>[]> stored_seq_;
+  std::unique_ptr<std::atomic<int64_t>[]> stored_ns_;
+  std::unique_ptr<std::atomic<bool>[]> in_flight_;
+
+  // Lanes, ingest thread only.
+  std::vector<LaneState> lane_;
+  int64_t next_checkpoint_ns_ = 0;
+  bool released_ = false;  // OnStopped released the leases
+
+  // The checkpoint store and its writer thread.
+  std::unique_ptr<PartitionCheckpointStore> store_;
+  std::mutex write_mu_;
+  std::condition_variable write_cv_;
+  std::deque<WriteJob> writes_;   // guarded by write_mu_
+  bool writer_stopping_ = false;  // guarded by write_mu_
+  std::thread writer_;
+  std::condition_variable handover_cv_;  // with mu_
+  std::vector<int> handed_over_;         // guarded by mu_
 
   std::mutex mu_;                   // guards queue_ and graveyard_
   std::deque<Item> queue_;          // fetched, not yet handed to the engine
@@ -463,6 +909,11 @@ class NatsFeedImpl : public NatsFeed {
   NatsFeedStats stats_;  // guarded by stats_mu_ (partition list, lease counters)
   std::atomic<uint64_t> messages_{0};
   std::atomic<uint64_t> bad_subjects_{0};
+  std::atomic<uint64_t> checkpoints_written_{0};
+  std::atomic<uint64_t> checkpoint_failures_{0};
+  std::atomic<uint64_t> restores_{0};
+  std::atomic<uint64_t> fresh_starts_{0};
+  std::atomic<uint64_t> last_checkpoint_bytes_{0};
 };
 
 }  // namespace

@@ -16,6 +16,7 @@
 #include "aftershock/engine_metrics.h"
 #include "aftershock/nats_feed.h"
 #include "aftershock/nats_update_sink.h"
+#include "aftershock/partition_lanes.h"
 #include "aftershock/zmq_transport.h"
 #include "streaming/metrics_http.h"
 
@@ -84,10 +85,20 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::CreateFromConfig(const EngineCon
   }
   absl::StatusOr<std::unique_ptr<TickSource>> source;
   const MetricsSource* source_metrics = nullptr;
+  NatsFeed* nats_feed = nullptr;
+  std::shared_ptr<PartitionLanes> lanes;
   if (config.feed.source == FeedSource::kNats) {
-    auto feed = NatsFeed::Open(config);
+    // One engine state per held partition (partition_lanes.h), checkpointed
+    // into JetStream and handed over with its partition.
+    auto l = PartitionLanes::Create(config, sink->get(), SystemClock());
+    if (!l.ok()) return l.status();
+    lanes = *std::move(l);
+    NatsFeedOptions fo;
+    fo.partitions = lanes.get();
+    auto feed = NatsFeed::Open(config, fo);
     if (!feed.ok()) return feed.status();
     source_metrics = feed->get();
+    nats_feed = feed->get();
     source = std::unique_ptr<TickSource>(*std::move(feed));
   } else {
     source = (*transport)->Subscribe(config.feed);
@@ -101,6 +112,13 @@ absl::StatusOr<std::unique_ptr<Engine>> Engine::CreateFromConfig(const EngineCon
   // The feed outlives the core's use of it: both belong to the engine, and
   // the core (destroyed first) only reads it from the ingest thread.
   if (source_metrics != nullptr) (*engine)->core()->AddMetricsSource(source_metrics);
+  if (lanes != nullptr) {
+    // Lanes first: the clock closes their bars before the feed checkpoints.
+    (*engine)->core()->AddObserver(lanes.get());
+    (*engine)->core()->AddObserver(nats_feed);
+    (*engine)->core()->AddMetricsSource(lanes.get());
+    (*engine)->lanes_ = std::move(lanes);
+  }
   (*engine)->transport_ = std::shared_ptr<ZmqTransport>(std::move(*transport));
   return engine;
 }
@@ -204,6 +222,7 @@ absl::Status Engine::Run() {
   L.timer.reset();
 
   if (L.source_ended) core_->CloseAllOpenBars();
+  source_->OnStopped();
   absl::Status flushed = sink_->Flush();
   if (!flushed.ok()) return flushed;
   return source_->status();

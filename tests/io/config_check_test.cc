@@ -147,5 +147,14 @@ TEST_CASE("facts of a run: most inputs rejected, no fitted model, too few bars",
   CHECK(ConfigWarnings(Parse(kSession), half).empty());
 }
 
+TEST_CASE("group models in the NATS mode pool within a partition", "[config_check]") {
+  const auto ws = ConfigWarnings(Parse("[feed]\nsource = \"nats\"\n"));
+  REQUIRE(ws.size() == 1);
+  CHECK(ws[0].find("[refit] group_models with [feed] source = \"nats\"") == 0);
+  CHECK(
+      ConfigWarnings(Parse("[feed]\nsource = \"nats\"\n[refit]\ngroup_models = false\n")).empty());
+  CHECK(ConfigWarnings(Parse("[refit]\ngroup_models = true\n")).empty());  // one engine
+}
+
 }  // namespace
 }  // namespace aftershock

@@ -659,7 +659,7 @@ TEST_CASE("[alerts] range errors name the key", "[config][alerts]") {
 
 TEST_CASE("every [nats] key: parsed, in default.toml, in the README, formatted", "[config][nats]") {
   const std::vector<std::string> parser = ParserKeys("[nats]");
-  CHECK(parser.size() == 9);
+  CHECK(parser.size() == 12);
   const std::set<std::string> known(parser.begin(), parser.end());
   const std::string dflt =
       testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
@@ -693,7 +693,8 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
       "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"nats://10.0.0.1:4222\", "
       "\"tls://10.0.0.2:4222\"]\nstream = \"T_1\"\nsubject = \"md.ticks\"\n"
       "partition_subject = \"md.part\"\npartitions = 3\nlease_seconds = 2.5\n"
-      "instance = \"eng-a\"\nlease_bucket = \"L\"\n",
+      "instance = \"eng-a\"\nlease_bucket = \"L\"\ncheckpoint_bucket = \"C-1\"\n"
+      "checkpoint_seconds = 0\nexact_refits = false\n",
       "config.toml");
   REQUIRE(c.ok());
   CHECK(c->feed.source == FeedSource::kNats);
@@ -705,6 +706,9 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
   CHECK(c->nats.lease_seconds == 2.5);
   CHECK(c->nats.instance == "eng-a");
   CHECK(c->nats.lease_bucket == "L");
+  CHECK(c->nats.checkpoint_bucket == "C-1");
+  CHECK(c->nats.checkpoint_seconds == 0);
+  CHECK(!c->nats.exact_refits);
   auto back = ParseEngineConfig(FormatEngineConfig(*c), "x");
   REQUIRE(back.ok());
   CHECK(FormatEngineConfig(*back) == FormatEngineConfig(*c));
@@ -730,6 +734,11 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
   CHECK(ErrorOf("[nats]\nupdates_subject = \"u.>\"\n").find("[nats] updates_subject") !=
         std::string::npos);
   CHECK(ErrorOf("[nats]\nupdates_subject = \"md.updates\"\n") == "ok");
+  CHECK(ErrorOf("[nats]\ncheckpoint_bucket = \"a.b\"\n").find("[nats] checkpoint_bucket") !=
+        std::string::npos);
+  CHECK(ErrorOf("[nats]\ncheckpoint_seconds = -1\n").find("[nats] checkpoint_seconds") !=
+        std::string::npos);
+  CHECK(ErrorOf("[nats]\nexact_refits = 1\n").find("[nats] exact_refits") != std::string::npos);
 }
 
 }  // namespace
