@@ -32,6 +32,12 @@ class StateCapture {
   virtual ~StateCapture() = default;
   // Appends the captured state in its component's SaveState encoding.
   virtual void Encode(StateWriter* w) const = 0;
+  // A capture spread over gaps (IngestCore::CaptureSymbols) holds each
+  // symbol's state at its own gap. False when those states cannot be
+  // restored together (the refit coordinator's pending jobs, captured at
+  // different gaps, outnumber its job slots): the caller then captures
+  // everything again in one gap. Always true for a capture taken in one gap.
+  virtual bool Restorable() const { return true; }
 };
 
 }  // namespace aftershock
