@@ -154,13 +154,34 @@ TEST_CASE("periodic checkpoints in slices: one symbol a gap, restorable; shutdow
   REQUIRE(cp.ok());
   e.core->AddObserver(cp->get());
   Feed(&e, 80);
-  // The writer thread: wait (bounded) for a periodic file.
-  for (int k = 0; k < 500 && (*cp)->stats().writes == 0; ++k) {
+  // Starts a snapshot at a clock tick 61 s on: due, unless a write is still
+  // in flight (then skipped: wait and try again).
+  auto start_snapshot = [&] {
+    for (int k = 0; k < 500; ++k) {
+      const uint64_t before = (*cp)->stats().skipped;
+      const int64_t t = e.clock.NowNs() + 61 * kNanosPerSecond;
+      e.clock.Set(t);
+      e.core->OnClock(t);
+      if ((*cp)->stats().skipped == before) return true;
+      std::this_thread::sleep_for(std::chrono::milliseconds(10));
+    }
+    return false;
+  };
+  auto tick = [&](int seconds) {
+    const int64_t t = e.clock.NowNs() + seconds * kNanosPerSecond;
+    e.clock.Set(t);
+    e.core->OnClock(t);
+  };
+  REQUIRE(start_snapshot());  // the first slice: symbol 0
+  const uint64_t writes = (*cp)->stats().writes;  // no write in flight: the token is ours
+  tick(10);  // 10 s < the spacing: no slice
+  tick(10);  // the second slice: symbol 1; complete, handed to the writer
+  for (int k = 0; k < 500 && (*cp)->stats().writes == writes; ++k) {
     std::this_thread::sleep_for(std::chrono::milliseconds(10));
   }
   CheckpointStats s = (*cp)->stats();
-  REQUIRE(s.writes >= 1);
-  // Two symbols, one a slice: two pauses per snapshot.
+  REQUIRE(s.writes == writes + 1);
+  // Two symbols, one a slice: two pauses.
   CHECK(s.last_capture_slices == 2);
   CHECK(s.last_capture_seconds > 0);
   CHECK(s.last_capture_total_seconds >= s.last_capture_seconds);
@@ -169,7 +190,7 @@ TEST_CASE("periodic checkpoints in slices: one symbol a gap, restorable; shutdow
   (*cp)->AppendPrometheus(&metrics);
   CHECK(metrics.find("aftershock_checkpoint_last_capture_slices 2\n") != std::string::npos);
   {
-    // A periodic file in slices restores.
+    // The file in slices restores.
     auto file = ReadCheckpointFile(o.path);
     REQUIRE(file.ok());
     CHECK(file->header().symbol_count == 2);
@@ -179,16 +200,8 @@ TEST_CASE("periodic checkpoints in slices: one symbol a gap, restorable; shutdow
     INFO(st.ToString());
     CHECK(st.ok());
   }
-  // Start a snapshot (wait until no write is in flight: it is not skipped),
-  // then shut down in the middle of it: WriteNow captures at once.
-  for (int k = 0; k < 500; ++k) {
-    const uint64_t before = (*cp)->stats().skipped;
-    const int64_t t = e.clock.NowNs() + 61 * kNanosPerSecond;
-    e.clock.Set(t);
-    e.core->OnClock(t);  // due: the first slice, unless a write is in flight
-    if ((*cp)->stats().skipped == before) break;
-    std::this_thread::sleep_for(std::chrono::milliseconds(10));
-  }
+  // Shut down in the middle of a snapshot: WriteNow captures at once.
+  REQUIRE(start_snapshot());
   REQUIRE((*cp)->WriteNow().ok());
   s = (*cp)->stats();
   CHECK(s.last_capture_slices == 1);
