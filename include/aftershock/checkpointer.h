@@ -98,7 +98,8 @@ class Checkpointer : public BarObserver, public MetricsSource {
  public:
   // Fills the capture once (the symbols known now, e.g. restored) and starts
   // the writer thread (at niceness 10 on Linux: it yields the CPU to ingest).
-  // InvalidArgument for an empty path or a negative or non-finite period.
+  // InvalidArgument for an empty path, a negative or non-finite period, a
+  // negative slice_symbols or a negative or non-finite slice spacing.
   // REQUIRES: core, clock non-null; services may be null; called on the
   // core's thread before the engine runs (or between batches).
   static absl::StatusOr<std::unique_ptr<Checkpointer>> Create(const CheckpointerOptions& options,
