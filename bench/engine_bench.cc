@@ -16,7 +16,7 @@
 //     (live, refilled in place, against a whole capture), serialize and write
 //     times and size for 1,000 and 10,000 symbols, apart from the feed.
 // Usage: engine_bench [--quick] [--replay-only] [--latency-only]
-//        | --checkpoint-latency [symbols] | --checkpoint-cost
+//        | --checkpoint-latency [symbols [slice]] | --checkpoint-cost
 #include <sys/prctl.h>
 #include <time.h>
 
@@ -190,6 +190,7 @@ struct LiveExtras {
   bool services = false;
   std::string checkpoint_path;  // "" = no checkpoints
   double every_seconds = 1;
+  int slice_symbols = 0;  // CheckpointerOptions::slice_symbols (0: one pause)
   int64_t max_symbols = 10000;
 };
 
@@ -229,6 +230,7 @@ struct EngineMiddle : Middle {
       CheckpointerOptions co;
       co.path = x.checkpoint_path;
       co.every_seconds = x.every_seconds;
+      co.slice_symbols = x.slice_symbols;
       checkpointer = *Checkpointer::Create(co, c, engine->core(), services.get(), SystemClock());
       engine->core()->AddObserver(checkpointer.get());
     }
@@ -508,19 +510,23 @@ Rate ReplayCsvRate(int n) {
 // checkpoints every second for 10,000 symbols <= 1.5x without). The engine
 // runs with refit services (windows of 100 returns per symbol after a
 // pre-fill); the checkpointer captures on the ingest thread every
-// `every_seconds` and writes in the background. Prints both rows and the
-// p99 ratio.
-void CheckpointLatency(int symbols, double rate, double seconds, double every_seconds) {
+// `every_seconds` and writes in the background. Three runs under the same
+// load: without checkpoints, with each snapshot captured in one pause, and
+// with snapshots captured in slices of `slice_symbols` symbols; prints the
+// rows and both p99 ratios.
+void CheckpointLatency(int symbols, double rate, double seconds, double every_seconds,
+                       int slice_symbols) {
   const WireEncoding enc = WireEncoding::kBinary;
   const std::string path =
       (std::filesystem::temp_directory_path() / "aftershock_engine_bench.ckpt").string();
-  std::vector<int64_t> p99(2);
-  for (int with : {0, 1}) {
+  std::vector<int64_t> p99(3);
+  for (int with : {0, 1, 2}) {
     LiveExtras x;
     x.services = true;
     x.max_symbols = symbols + 1;  // the rig's probe symbol too
     if (with) x.checkpoint_path = path;
     x.every_seconds = every_seconds;
+    x.slice_symbols = with == 2 ? slice_symbols : 0;
     Rig rig(true, enc, x);
     // Pre-fill: 100 returns per symbol in batches (the warm-up's first 10 per
     // symbol publish nothing).
@@ -571,19 +577,24 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
       const CheckpointStats st = mid->checkpointer->stats();
       extra = absl::StrCat("checkpoints every ", every_seconds, " s: ", st.writes, " written, ",
                            st.skipped, " skipped, ", st.last_bytes, " bytes, capture ",
-                           st.last_capture_seconds * 1e3, " ms, write ",
-                           st.last_write_seconds * 1e3, " ms");
+                           st.last_capture_seconds * 1e3, " ms longest pause of ",
+                           st.last_capture_slices, " (", st.last_capture_total_seconds * 1e3,
+                           " ms in all), write ", st.last_write_seconds * 1e3, " ms");
     }
-    std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; %s)\n",
-                absl::StrCat("engine latency, ", symbols, " symbols, ",
-                             with ? "checkpoints" : "no checkpoints")
-                    .c_str(),
-                rate, Pct(lat, 0.5), Pct(lat, 0.99), Pct(lat, 0.999), lat.size(), extra.c_str());
+    const std::string mode = with == 0   ? "no checkpoints"
+                             : with == 1 ? "checkpoints, one pause"
+                                         : absl::StrCat("checkpoints, slices of ", slice_symbols);
+    std::printf("%-52s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; %s)\n",
+                absl::StrCat("engine latency, ", symbols, " symbols, ", mode).c_str(), rate,
+                Pct(lat, 0.5), Pct(lat, 0.99), Pct(lat, 0.999), lat.size(), extra.c_str());
     p99[with] = lat.empty() ? -1 : lat[std::min(lat.size() - 1, lat.size() * 99 / 100)];
   }
   std::remove(path.c_str());
-  std::printf("p99 with / without checkpoints: %.2f (target <= 1.5)\n",
-              p99[0] > 0 ? static_cast<double>(p99[1]) / static_cast<double>(p99[0]) : -1.0);
+  auto ratio = [&](int k) {
+    return p99[0] > 0 ? static_cast<double>(p99[k]) / static_cast<double>(p99[0]) : -1.0;
+  };
+  std::printf("p99 with / without checkpoints: one pause %.2f, slices %.2f (target <= 1.5)\n",
+              ratio(1), ratio(2));
 }
 
 // The checkpoint's cost apart from the feed (no sockets, a manual clock): a
@@ -614,7 +625,10 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
   };
   for (int k = 0; k < per_symbol; ++k) round();
   EngineCapture live(core.get(), services.get());
-  std::vector<double> live_ms, whole_ms, serialize_ms, write_ms;
+  EngineCapture sliced(core.get(), services.get());  // in slices of 500 symbols
+  std::string sliced_file;
+  std::vector<double> live_cpu_ms;  // the thread's CPU time (without preemptions)
+  std::vector<double> live_ms, whole_ms, serialize_ms, write_ms, slice_ms, slice_cpu_ms;
   size_t bytes = 0;
   bool same = true;
   std::string file;  // reused, as the checkpointer does
@@ -623,7 +637,9 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
   for (int k = 0; k < rounds; ++k) {
     round();
     const auto a = std::chrono::steady_clock::now();
+    const double cpu0 = CpuNow();
     live.Capture(t);
+    live_cpu_ms.push_back((CpuNow() - cpu0) * 1e3);
     const auto b = std::chrono::steady_clock::now();
     (void)live.Serialize(c, &file);
     const auto d = std::chrono::steady_clock::now();
@@ -632,6 +648,20 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
     const EngineSnapshot snap = CaptureEngineState(*core, services.get(), t);
     const auto f = std::chrono::steady_clock::now();
     same = same && *SerializeEngineSnapshot(snap, c) == file;
+    // The same state in slices (no input between them here): the longest pause.
+    sliced.BeginSlices(t);
+    double longest = 0, longest_cpu = 0;
+    for (bool done = false; !done;) {
+      const auto g = std::chrono::steady_clock::now();
+      const double cpu0 = CpuNow();
+      done = sliced.CaptureSlice(500);
+      longest_cpu = std::max(longest_cpu, (CpuNow() - cpu0) * 1e3);
+      longest = std::max(longest, Secs(g, std::chrono::steady_clock::now()) * 1e3);
+    }
+    slice_ms.push_back(longest);
+    slice_cpu_ms.push_back(longest_cpu);
+    (void)sliced.Serialize(c, &sliced_file);
+    same = same && sliced_file == file;
     live_ms.push_back(Secs(a, b) * 1e3);
     serialize_ms.push_back(Secs(b, d) * 1e3);
     write_ms.push_back(Secs(d, e) * 1e3);
@@ -639,13 +669,19 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
     bytes = file.size();
   }
   std::remove(path.c_str());
-  for (auto* v : {&live_ms, &whole_ms, &serialize_ms, &write_ms}) std::sort(v->begin(), v->end());
+  for (auto* v : {&live_ms, &whole_ms, &serialize_ms, &write_ms, &slice_ms, &live_cpu_ms,
+                  &slice_cpu_ms}) {
+    std::sort(v->begin(), v->end());
+  }
   auto med = [](const std::vector<double>& v) { return v[v.size() / 2]; };
   std::printf(
-      "%6d symbols x %3d returns: %9zu bytes; ingest-thread capture: live %6.2f ms (max %6.2f), "
-      "whole %6.2f ms (max %6.2f); writer: serialize %6.1f ms, write %6.1f ms; files %s\n",
-      symbols, per_symbol, bytes, med(live_ms), live_ms.back(), med(whole_ms), whole_ms.back(),
-      med(serialize_ms), med(write_ms), same ? "identical" : "DIFFER");
+      "%6d symbols x %3d returns: %9zu bytes; ingest-thread capture: live %6.2f ms (max %6.2f; "
+      "CPU %6.2f), longest slice of 500 %6.3f ms (max %6.3f; CPU %6.3f), whole %6.2f ms (max "
+      "%6.2f); writer: serialize %6.1f ms, write %6.1f ms; files %s\n",
+      symbols, per_symbol, bytes, med(live_ms), live_ms.back(), med(live_cpu_ms), med(slice_ms),
+      slice_ms.back(), med(slice_cpu_ms),
+      med(whole_ms), whole_ms.back(), med(serialize_ms), med(write_ms),
+      same ? "identical" : "DIFFER");
 }
 
 }  // namespace
@@ -658,10 +694,12 @@ int main(int argc, char** argv) {
     if (std::strcmp(argv[i], "--checkpoint-latency") == 0) {
       // Only the checkpoint scenario: 10,000 symbols (or the count given
       // next), 50k ticks/s for 6 s (6 checkpoints), with and without.
+      // Slices of 500 symbols (or the count given after the symbols).
       const int symbols = i + 1 < argc ? std::atoi(argv[i + 1]) : 10000;
-      std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us",
+      const int slice = i + 2 < argc ? std::atoi(argv[i + 2]) : 500;
+      std::printf("%-52s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us",
                   "p99.9 us");
-      CheckpointLatency(symbols > 0 ? symbols : 10000, 50000, 6.0, 1.0);
+      CheckpointLatency(symbols > 0 ? symbols : 10000, 50000, 6.0, 1.0, slice > 0 ? slice : 500);
       return 0;
     }
     if (std::strcmp(argv[i], "--checkpoint-cost") == 0) {

@@ -3,7 +3,10 @@
 //
 // On the ingest thread, at a clock tick (BarObserver::OnClock: between
 // batches, at a bar boundary), when `every_seconds` of wall clock have passed
-// since the last snapshot, the engine's state is captured into the
+// since the last snapshot, the engine's state is captured (in one pause, or
+// with `slice_symbols` in slices of that many symbols, one slice per gap
+// between batches, BarObserver::OnBatchEnd or OnClock, at least
+// `slice_spacing_seconds` apart) into the
 // checkpointer's EngineCapture (engine_checkpoint.h, state_capture.h: the
 // only part that costs the ingest thread anything; it copies the flat
 // per-symbol values and the returns pushed since the previous capture,
@@ -17,8 +20,9 @@
 // Metrics (MetricsSource): aftershock_checkpoint_writes_total,
 // _failures_total, _skipped_total, _last_size_bytes, _last_write_seconds
 // (encode, checksums and disk) and _age_seconds (since the last successful
-// write's snapshot; -1 before one), _last_capture_seconds (the pause the last
-// snapshot cost the ingest thread).
+// write's snapshot; -1 before one), _last_capture_seconds (the longest pause
+// the last snapshot cost the ingest thread) and _last_capture_slices (the
+// pauses it was taken in).
 // /health (MetricsSource::AppendHealthJson) adds
 //   "restored":{"symbols":N,"age_seconds":X,"file":"..."} (null: a fresh start)
 //   "checkpoint":{"file":"...","writes":N,"failures":N,"age_seconds":X}
@@ -57,6 +61,16 @@ struct CheckpointerOptions {
   std::string path;
   // Wall-clock seconds between snapshots; 0 = only WriteNow(). Default 60.
   double every_seconds = 60;
+  // Symbols captured per gap between batches: a periodic snapshot is taken
+  // in slices of this many symbols (EngineCapture::CaptureSlice), so the
+  // longest pause it costs the ingest thread is about one slice's copy, and
+  // the file holds each symbol at its own gap. 0 = the whole engine in one
+  // pause (a consistent cut across the symbols). WriteNow always captures
+  // in one pause. Default 0.
+  int slice_symbols = 0;
+  // Least wall-clock time between two slices of one snapshot, s, so that the
+  // input queued during a slice is handled before the next. Default 0.005.
+  double slice_spacing_seconds = 0.005;
 };
 
 // What the engine restored from at start (for /health). Plain value.
@@ -73,7 +87,10 @@ struct CheckpointStats {
   uint64_t skipped = 0;             // snapshots due while a write was in flight
   uint64_t last_bytes = 0;          // size of the last file written
   double last_write_seconds = 0;    // serialize + write time of the last file
-  double last_capture_seconds = 0;  // ingest-thread capture time of the last snapshot
+  double last_capture_seconds = 0;  // longest ingest-thread pause of the last snapshot, s
+  double last_capture_total_seconds = 0;  // all its pauses together, s
+  uint64_t last_capture_slices = 0;       // its pauses (1: captured at once)
+  uint64_t slice_fallbacks = 0;  // snapshots in slices that had to capture at once
   int64_t last_snapshot_ns = 0;     // clock time of the last written snapshot; 0 none
 };
 
@@ -81,7 +98,8 @@ class Checkpointer : public BarObserver, public MetricsSource {
  public:
   // Fills the capture once (the symbols known now, e.g. restored) and starts
   // the writer thread (at niceness 10 on Linux: it yields the CPU to ingest).
-  // InvalidArgument for an empty path or a negative or non-finite period.
+  // InvalidArgument for an empty path, a negative or non-finite period, a
+  // negative slice_symbols or a negative or non-finite slice spacing.
   // REQUIRES: core, clock non-null; services may be null; called on the
   // core's thread before the engine runs (or between batches).
   static absl::StatusOr<std::unique_ptr<Checkpointer>> Create(const CheckpointerOptions& options,
@@ -96,6 +114,7 @@ class Checkpointer : public BarObserver, public MetricsSource {
   // BarObserver.
   void OnBar(IngestCore*, int, const ClosedBar&, BarUpdate*) override {}
   void OnClock(IngestCore* core, int64_t now_ns) override;
+  void OnBatchEnd(IngestCore* core) override;
 
   // Waits for the write in flight, then snapshots and writes now (shutdown).
   // The write's error, if any.
@@ -129,13 +148,25 @@ class Checkpointer : public BarObserver, public MetricsSource {
   const EngineConfig config_;
   Clock* const clock_;
   const int64_t period_ns_;
+  const int64_t slice_spacing_ns_;
   // The capture, refilled at each snapshot. Not guarded by a mutex: used only
   // by the holder of Shared::busy (see checkpointer.cc).
   const std::unique_ptr<EngineCapture> capture_;
   std::string file_;  // the file's bytes, reused; likewise the token holder's only
   const std::unique_ptr<Shared> shared_;
+  // Captures the next slice of a snapshot in slices; hands the capture to
+  // the writer once it is complete. Ingest thread, holding the token.
+  void CaptureNextSlice();
+  // Hands the complete capture to the writer with its pause statistics.
+  void Queue();
+
   // ---- ingest thread ----
   int64_t next_due_ns_ = 0;
+  // The snapshot being captured in slices (capture_->slicing()).
+  int64_t last_slice_ns_ = 0;   // clock time of its last slice
+  double slice_max_seconds_ = 0;    // its longest pause so far
+  double slice_total_seconds_ = 0;  // its pauses so far
+  uint64_t slices_ = 0;             // its slices so far
   std::optional<CheckpointRestore> restored_;
   // ---- the writer (last: started after everything above) ----
   std::thread writer_;

@@ -108,12 +108,40 @@ class EngineCapture {
   EngineCapture(const EngineCapture&) = delete;
   EngineCapture& operator=(const EngineCapture&) = delete;
 
-  // Brings the capture up to the engine's state now; `created_ns` is the wall
-  // clock stamped in the header. Ingest thread, between batches.
+  // Brings the capture up to the engine's state now, in one pause: a
+  // consistent cut (every symbol and the feed-wide state at this gap), as
+  // replay's --checkpoint and a caller that needs one input position (e.g. a
+  // stream sequence) require. `created_ns` is the wall clock stamped in the
+  // header. Ingest thread, between batches. Abandons a capture in slices.
   void Capture(int64_t created_ns);
+
+  // A capture spread over several gaps between batches, so that the ingest
+  // thread pauses for a slice of the symbols at a time instead of all of
+  // them (a live engine's periodic checkpoint: checkpointer.h).
+  // BeginSlices plans the symbols known now (`created_ns`, the wall clock at
+  // the start, is stamped in the header: the state is at most that old).
+  // Each CaptureSlice (one per gap) captures the next `max_symbols` of them
+  // (at least 1), each symbol's whole state (core, services, refit
+  // coordinator) in that gap; the call that reaches the last one also
+  // captures the symbols that joined meanwhile and the feed-wide state
+  // (engine counters, alert engines, pools, refit counters and groups) and
+  // returns true: the capture is complete and Serialize may run. The file
+  // then holds each symbol exactly as it was at its own gap (its tick count
+  // and last tick time say how far its input goes), not one cut across the
+  // symbols. Should the parts not be restorable together
+  // (StateCapture::Restorable), the completing call captures everything
+  // again at once (one whole pause; rare). Ingest thread, between batches.
+  // REQUIRES (CaptureSlice): BeginSlices since the last completion.
+  void BeginSlices(int64_t created_ns);
+  bool CaptureSlice(int max_symbols);
+  // A capture in slices was begun and is not complete yet.
+  bool slicing() const { return slicing_; }
+  // The completing CaptureSlice had to capture everything at once (count).
+  uint64_t slice_fallbacks() const { return slice_fallbacks_; }
   // The checkpoint file's bytes of the last Capture under `config` (the same
   // bytes SerializeEngineSnapshot(CaptureEngineState(...)) gives at that
-  // point), written into *file (content replaced, capacity kept). The
+  // point), written into *file (content replaced, capacity kept);
+  // FailedPrecondition while a capture in slices is incomplete. The
   // sections are encoded into buffers the capture keeps, so a periodic
   // writer that also keeps *file allocates nothing once the sizes settled.
   // Any one thread, never concurrently with Capture or another Serialize.
@@ -129,6 +157,12 @@ class EngineCapture {
   const std::unique_ptr<StateCapture> services_capture_;  // null without services
   uint64_t symbols_ = 0;
   int64_t created_ns_ = 0;
+  // Capture in slices: the symbols [0, slice_end_) planned at BeginSlices,
+  // captured up to slice_next_.
+  bool slicing_ = false;
+  int slice_next_ = 0;
+  int slice_end_ = 0;
+  uint64_t slice_fallbacks_ = 0;
   // Serialize's section buffers (reused; capacity kept between checkpoints).
   std::string core_bytes_;
   std::string services_bytes_;

@@ -353,6 +353,9 @@ struct HttpConfig {
 struct CheckpointConfig {
   std::string path;           // checkpoint file; "" = no checkpoints
   double every_seconds = 60;  // period; 0 = only at shutdown
+  // Symbols captured per gap between input batches (CheckpointerOptions::
+  // slice_symbols); 0 = every symbol in one pause. Default 500.
+  int slice_symbols = 500;
 };
 
 enum class LogLevel { kDebug, kInfo, kWarn, kError };

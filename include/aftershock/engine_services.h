@@ -128,8 +128,19 @@ class EngineServices {
   // state is encoded into the capture's reused buffers; then the
   // coordinator's CaptureState. Allocates only for new symbols and new refit
   // jobs. Ingest thread, between bars. REQUIRES: capture from these services'
-  // NewStateCapture, not being encoded concurrently.
+  // NewStateCapture, not being encoded concurrently. Equivalent to
+  // CaptureSymbols(capture, 0, n) then CaptureFeedWide(capture), n the core's
+  // symbol count.
   virtual void CaptureState(StateCapture* capture) const = 0;
+  // The capture spread over gaps (IngestCore::CaptureSymbols): CaptureSymbols
+  // brings the per-symbol state of the core's symbols [begin, end) up to now
+  // (alert state, fallback, tagged window, and the coordinator's per-symbol
+  // state: window, schedule, versions, pending job); CaptureFeedWide the
+  // feed-wide state (alert engines, marks, pool, the coordinator's counters,
+  // pool and groups). Same thread and REQUIREs as CaptureState;
+  // 0 <= begin <= end <= the core's symbol count.
+  virtual void CaptureSymbols(StateCapture* capture, int begin, int end) const = 0;
+  virtual void CaptureFeedWide(StateCapture* capture) const = 0;
   // Restores what SaveState wrote. REQUIRES: fresh services attached to a
   // core whose state was just restored (IngestCore::RestoreState, which
   // registers the symbols here in order), nothing fed yet. Validates

@@ -153,6 +153,11 @@ class BarObserver {
                                double /*r*/) {}
   // On every clock tick, after idle bars were closed.
   virtual void OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {}
+  // After each inbound message (OnMessage: a batch of ticks; also a
+  // malformed one) was handled: between batches, as at OnClock, but at the
+  // message rate, so work here must be small or rare (e.g. a slice of a
+  // checkpoint capture, checkpointer.h). Not called for OnTick (files).
+  virtual void OnBatchEnd(IngestCore* /*core*/) {}
 };
 
 // A model replacement for one symbol (IngestCore::SwapModel).
@@ -258,8 +263,20 @@ class IngestCore : public TickConsumer {
   // re-points the model and profile only where they changed; the name is
   // copied once. Allocates only for symbols new since the previous capture.
   // Ingest thread, between bars. REQUIRES: capture from this core's
-  // NewStateCapture, not being encoded concurrently.
+  // NewStateCapture, not being encoded concurrently. Equivalent to
+  // CaptureSymbols(capture, 0, num_symbols()) then CaptureCoreWide(capture).
   void CaptureState(StateCapture* capture) const;
+  // A capture spread over several gaps between batches (state_capture.h):
+  // CaptureSymbols brings the records of symbols [begin, end) up to their
+  // state now (each symbol's record is then that symbol's whole state at this
+  // gap; records are created for symbols new since the last call, named but
+  // not filled); CaptureCoreWide copies the core-wide values (counters, last
+  // clock). A capture is complete, and its Encode meaningful, once every
+  // symbol's record was filled since the symbol joined and CaptureCoreWide
+  // ran after the last of them. Same thread and REQUIREs as CaptureState;
+  // 0 <= begin <= end <= num_symbols().
+  void CaptureSymbols(StateCapture* capture, int begin, int end) const;
+  void CaptureCoreWide(StateCapture* capture) const;
   // Restores what SaveState wrote. REQUIRES: a freshly created core with no
   // symbols, built from a configuration with the same state-relevant settings
   // (the checkpoint's fingerprint checks that), observers already added. Every

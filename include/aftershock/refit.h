@@ -237,8 +237,15 @@ class RefitCoordinator {
   // a pending job's inputs are copied once per job (its fit index tells a new
   // job). Allocates only for new symbols and new jobs. Ingest thread, the
   // same as SaveState. REQUIRES: capture from this coordinator's
-  // NewStateCapture, not being encoded concurrently.
+  // NewStateCapture, not being encoded concurrently. Equivalent to
+  // CaptureSymbol for every id, then CaptureFeedWide.
   void CaptureState(StateCapture* capture) const;
+  // The capture spread over gaps (EngineServices::CaptureSymbols): one
+  // symbol's state (window, schedule, versions, pending job) now, and the
+  // feed-wide state (counters, seasonal pool, groups) now. Same thread and
+  // REQUIREs as CaptureState; id registered.
+  void CaptureSymbol(StateCapture* capture, uint32_t id) const;
+  void CaptureFeedWide(StateCapture* capture) const;
   // Restores what SaveState wrote and re-submits the pending jobs with their
   // saved inputs, so each produces the same result as the saved one would
   // have (replay applies it at the same bar). REQUIRES: a fresh coordinator

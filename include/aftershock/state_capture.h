@@ -15,6 +15,12 @@
 // itself "capture into a fresh capture, then Encode"), so the file format
 // does not depend on how the state was captured.
 //
+// A capture may also be filled in slices (IngestCore::CaptureSymbols and its
+// peers; EngineCapture::BeginSlices): a range of symbols per gap between
+// batches, each symbol's state of every component in the same gap, the
+// feed-wide state with the last slice. Encode then writes each symbol as of
+// its own gap (Restorable says whether such parts can be restored together).
+//
 // Thread-safety: CaptureState (the owner's) on the owner's thread; Encode on
 // any one thread, never concurrently with a CaptureState into the same
 // capture (the caller hands the capture over, e.g. under a mutex:
@@ -32,6 +38,12 @@ class StateCapture {
   virtual ~StateCapture() = default;
   // Appends the captured state in its component's SaveState encoding.
   virtual void Encode(StateWriter* w) const = 0;
+  // A capture spread over gaps (IngestCore::CaptureSymbols) holds each
+  // symbol's state at its own gap. False when those states cannot be
+  // restored together (the refit coordinator's pending jobs, captured at
+  // different gaps, outnumber its job slots): the caller then captures
+  // everything again in one gap. Always true for a capture taken in one gap.
+  virtual bool Restorable() const { return true; }
 };
 
 }  // namespace aftershock

@@ -173,6 +173,7 @@ int RunCommand(int argc, char** argv) {
     CheckpointerOptions co;
     co.path = cp_path;
     co.every_seconds = config->checkpoint.every_seconds;
+    co.slice_symbols = config->checkpoint.slice_symbols;
     auto c = Checkpointer::Create(co, *config, (*engine)->core(), services->get(), SystemClock());
     if (!c.ok()) return Fail(c.status(), 2);
     checkpointer = *std::move(c);

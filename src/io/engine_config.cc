@@ -1046,8 +1046,9 @@ absl::Status ParseHttp(const Section& s, HttpConfig* c) {
 }
 
 absl::Status ParseCheckpoint(const Section& s, CheckpointConfig* c) {
-  AS_RETURN_IF_ERROR(s.CheckKeys({"path", "every_seconds"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"path", "every_seconds", "slice_symbols"}));
   AS_RETURN_IF_ERROR(s.String("path", &c->path));
+  AS_RETURN_IF_ERROR(s.Integer("slice_symbols", &c->slice_symbols, 0, 1 << 24));
   return s.Number("every_seconds", &c->every_seconds, 0, 1e9, false, false);
 }
 
@@ -1352,7 +1353,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
   absl::StrAppend(&o, "\n[http]\nendpoint = ", Quote(c.http.endpoint),
                   "\nenabled = ", c.http.enabled ? "true" : "false", "\n");
   absl::StrAppend(&o, "\n[checkpoint]\npath = ", Quote(c.checkpoint.path),
-                  "\nevery_seconds = ", num(c.checkpoint.every_seconds), "\n");
+                  "\nevery_seconds = ", num(c.checkpoint.every_seconds),
+                  "\nslice_symbols = ", c.checkpoint.slice_symbols, "\n");
   absl::StrAppend(&o, "\n[log]\nlevel = ", Quote(LogLevelName(c.log.level)), "\n");
   return o;
 }

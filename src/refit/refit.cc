@@ -658,10 +658,17 @@ struct RefitGroupCapture {
 
 class RefitCapture : public StateCapture {
  public:
-  RefitCapture(bool seasonal, ModelVersionPtr ewma) : seasonal_(seasonal), ewma_(std::move(ewma)) {}
+  // `job_slots`: the coordinator's job slots ([refit] queue_capacity).
+  RefitCapture(bool seasonal, ModelVersionPtr ewma, size_t job_slots)
+      : seasonal_(seasonal), ewma_(std::move(ewma)), job_slots_(job_slots) {}
 
   void Encode(StateWriter* w) const override;
+  // Pending jobs captured at different gaps can outnumber the slots a restore
+  // re-submits them into (one symbol's job captured before it completed,
+  // another's after it was submitted).
+  bool Restorable() const override { return pending_jobs <= job_slots_; }
 
+  size_t pending_jobs = 0;  // records with has_job (kept by CaptureSymbol)
   uint64_t counters[10] = {};
   StateWriter pool;  // the seasonal pool's SaveState (feed-wide, small)
   std::vector<RefitGroupCapture> groups;
@@ -670,6 +677,7 @@ class RefitCapture : public StateCapture {
  private:
   const bool seasonal_;
   const ModelVersionPtr ewma_;
+  const size_t job_slots_;
 };
 
 void RefitCapture::Encode(StateWriter* w) const {
@@ -755,16 +763,21 @@ void RefitCapture::Encode(StateWriter* w) const {
 }
 
 void RefitCoordinator::SaveState(StateWriter* w) const {
-  RefitCapture c(options_.seasonal, ewma_);
+  RefitCapture c(options_.seasonal, ewma_, jobs_.size());
   CaptureState(&c);
   c.Encode(w);
 }
 
 std::unique_ptr<StateCapture> RefitCoordinator::NewStateCapture() const {
-  return std::make_unique<RefitCapture>(options_.seasonal, ewma_);
+  return std::make_unique<RefitCapture>(options_.seasonal, ewma_, jobs_.size());
 }
 
 void RefitCoordinator::CaptureState(StateCapture* capture) const {
+  for (uint32_t id = 0; id < symbols_.size(); ++id) CaptureSymbol(capture, id);
+  CaptureFeedWide(capture);
+}
+
+void RefitCoordinator::CaptureFeedWide(StateCapture* capture) const {
   RefitCapture& c = *static_cast<RefitCapture*>(capture);
   const Counters& k = counters_;
   int i = 0;
@@ -783,32 +796,44 @@ void RefitCoordinator::CaptureState(StateCapture* capture) const {
     c.groups[g].donor = groups_[g].donor;  // keeps its capacity
     c.groups[g].seq = groups_[g].seq;
   }
+}
+
+void RefitCoordinator::CaptureSymbol(StateCapture* capture, uint32_t id) const {
+  RefitCapture& c = *static_cast<RefitCapture*>(capture);
   const size_t old = c.symbols.size();
-  if (old != symbols_.size()) c.symbols.resize(symbols_.size());  // symbols only ever join
-  for (size_t id = 0; id < symbols_.size(); ++id) {
-    const SymbolSlot& s = symbols_[id];
-    RefitSymbolCapture& d = c.symbols[id];
-    if (id >= old) d.name = s.name;
-    d.group = s.group;
-    d.window.SyncFrom(s.window);
-    d.schedule = s.schedule;
-    if (d.current.get() != s.current.get()) d.current = s.current;
-    if (d.last_estimated.get() != s.last_estimated.get()) d.last_estimated = s.last_estimated;
-    d.last_version = s.last_version;
-    d.failures = s.failures;
-    d.fallback = s.fallback;
-    d.fits = s.fits;
-    d.pooled = s.pooled;
-    d.pooled_seq = s.pooled_seq;
-    d.pooled_bar = s.pooled_bar;
-    d.has_job = s.pending >= 0;
-    if (!d.has_job) continue;
-    // Inputs only: the worker does not write them while the job runs.
-    const JobSlot& j = *jobs_[s.pending];
-    d.job.apply_bar = s.apply_bar;
-    if (d.job.fit_index == j.fit_index) continue;  // the same job as last time
-    CopyJobInputs(j, &d.job);
+  if (old < symbols_.size()) {
+    c.symbols.resize(symbols_.size());  // symbols only ever join
+    for (size_t k = old; k < symbols_.size(); ++k) c.symbols[k].name = symbols_[k].name;
   }
+  const SymbolSlot& s = symbols_[id];
+  RefitSymbolCapture& d = c.symbols[id];
+  d.group = s.group;
+  d.window.SyncFrom(s.window);
+  d.schedule = s.schedule;
+  if (d.current.get() != s.current.get()) d.current = s.current;
+  if (d.last_estimated.get() != s.last_estimated.get()) d.last_estimated = s.last_estimated;
+  d.last_version = s.last_version;
+  d.failures = s.failures;
+  d.fallback = s.fallback;
+  d.fits = s.fits;
+  d.pooled = s.pooled;
+  d.pooled_seq = s.pooled_seq;
+  d.pooled_bar = s.pooled_bar;
+  const bool has_job = s.pending >= 0;
+  if (has_job != d.has_job) {
+    if (has_job) {
+      ++c.pending_jobs;
+    } else {
+      --c.pending_jobs;
+    }
+  }
+  d.has_job = has_job;
+  if (!has_job) return;
+  // Inputs only: the worker does not write them while the job runs.
+  const JobSlot& j = *jobs_[s.pending];
+  d.job.apply_bar = s.apply_bar;
+  if (d.job.fit_index == j.fit_index) return;  // the same job as last time
+  CopyJobInputs(j, &d.job);
 }
 
 absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {

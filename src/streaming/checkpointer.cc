@@ -4,6 +4,7 @@
 #include <sys/syscall.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <chrono>
 #include <cmath>
 #include <condition_variable>
@@ -65,6 +66,12 @@ absl::StatusOr<std::unique_ptr<Checkpointer>> Checkpointer::Create(
     const CheckpointerOptions& options, const EngineConfig& config, const IngestCore* core,
     const EngineServices* services, Clock* clock) {
   if (options.path.empty()) return absl::InvalidArgumentError("[checkpoint] path is empty");
+  if (options.slice_symbols < 0 || !(options.slice_spacing_seconds >= 0) ||
+      !std::isfinite(options.slice_spacing_seconds)) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "checkpoint slices need slice_symbols >= 0 and a finite spacing >= 0, got ",
+        options.slice_symbols, " and ", options.slice_spacing_seconds));
+  }
   if (!(options.every_seconds >= 0) || !std::isfinite(options.every_seconds)) {
     return absl::InvalidArgumentError(absl::StrCat(
         "[checkpoint] every_seconds must be a finite number >= 0, got ", options.every_seconds));
@@ -79,6 +86,7 @@ Checkpointer::Checkpointer(const CheckpointerOptions& options, const EngineConfi
       config_(config),
       clock_(clock),
       period_ns_(static_cast<int64_t>(options.every_seconds * 1e9)),
+      slice_spacing_ns_(static_cast<int64_t>(options.slice_spacing_seconds * 1e9)),
       capture_(std::make_unique<EngineCapture>(core, services)),
       shared_(std::make_unique<Shared>()) {
   next_due_ns_ = period_ns_ > 0 ? clock_->NowNs() + period_ns_ : 0;
@@ -99,6 +107,10 @@ Checkpointer::~Checkpointer() {
 }
 
 void Checkpointer::OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {
+  if (capture_->slicing()) {
+    OnBatchEnd(nullptr);  // a clock tick is a gap as well (an idle feed)
+    return;
+  }
   if (period_ns_ <= 0) return;
   const int64_t now = clock_->NowNs();
   if (now < next_due_ns_) return;
@@ -114,14 +126,48 @@ void Checkpointer::OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {
   // The capture is the only cost on the ingest thread: it copies what changed
   // since the previous snapshot; the encoding, the checksums and the disk are
   // the writer's.
+  slice_max_seconds_ = 0;
+  slice_total_seconds_ = 0;
+  slices_ = 0;
+  if (options_.slice_symbols > 0) {
+    capture_->BeginSlices(now);
+    CaptureNextSlice();
+    return;
+  }
   const auto t0 = std::chrono::steady_clock::now();
   capture_->Capture(now);
-  const double capture =
+  slice_max_seconds_ = slice_total_seconds_ =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  slices_ = 1;
+  Queue();
+}
+
+void Checkpointer::OnBatchEnd(IngestCore* /*core*/) {
+  if (!capture_->slicing()) return;  // the common case: one load and a branch
+  if (clock_->NowNs() - last_slice_ns_ < slice_spacing_ns_) return;
+  CaptureNextSlice();
+}
+
+void Checkpointer::CaptureNextSlice() {
+  const auto t0 = std::chrono::steady_clock::now();
+  const bool done = capture_->CaptureSlice(options_.slice_symbols);
+  const double pause =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  last_slice_ns_ = clock_->NowNs();
+  slice_max_seconds_ = std::max(slice_max_seconds_, pause);
+  slice_total_seconds_ += pause;
+  ++slices_;
+  if (done) Queue();
+}
+
+void Checkpointer::Queue() {
   {
     refit_internal::MutexLock lock(&shared_->mu);
     shared_->queued = true;
-    shared_->stats.last_capture_seconds = capture;
+    shared_->stats.last_capture_seconds = slice_max_seconds_;
+    shared_->stats.last_capture_total_seconds = slice_total_seconds_;
+    shared_->stats.last_capture_slices = slices_;
+    shared_->stats.slice_fallbacks = capture_->slice_fallbacks();
   }
   shared_->cv.notify_all();
 }
@@ -173,10 +219,23 @@ absl::Status Checkpointer::Write() {
 absl::Status Checkpointer::WriteNow() {
   {
     refit_internal::MutexLock lock(&shared_->mu);
-    while (shared_->busy) shared_->mu.Wait(&shared_->cv);
-    shared_->busy = true;
+    // A snapshot being captured in slices holds the token already (this
+    // thread's): it is abandoned for the capture at once below.
+    if (!capture_->slicing()) {
+      while (shared_->busy) shared_->mu.Wait(&shared_->cv);
+      shared_->busy = true;
+    }
   }
+  const auto t0 = std::chrono::steady_clock::now();
   capture_->Capture(clock_->NowNs());
+  const double capture =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  {
+    refit_internal::MutexLock lock(&shared_->mu);
+    shared_->stats.last_capture_seconds = capture;
+    shared_->stats.last_capture_total_seconds = capture;
+    shared_->stats.last_capture_slices = 1;
+  }
   const absl::Status st = Write();
   {
     refit_internal::MutexLock lock(&shared_->mu);
@@ -216,10 +275,14 @@ void Checkpointer::AppendPrometheus(std::string* o) const {
       "checkpoint.\n# TYPE aftershock_checkpoint_last_write_seconds gauge\n"
       "aftershock_checkpoint_last_write_seconds ",
       s.last_write_seconds,
-      "\n# HELP aftershock_checkpoint_last_capture_seconds Ingest-thread time of the last "
-      "snapshot.\n# TYPE aftershock_checkpoint_last_capture_seconds gauge\n"
+      "\n# HELP aftershock_checkpoint_last_capture_seconds Longest ingest-thread pause of the "
+      "last snapshot.\n# TYPE aftershock_checkpoint_last_capture_seconds gauge\n"
       "aftershock_checkpoint_last_capture_seconds ",
       s.last_capture_seconds,
+      "\n# HELP aftershock_checkpoint_last_capture_slices Pauses the last snapshot was "
+      "captured in.\n# TYPE aftershock_checkpoint_last_capture_slices gauge\n"
+      "aftershock_checkpoint_last_capture_slices ",
+      s.last_capture_slices,
       "\n# HELP aftershock_checkpoint_age_seconds Age of the state in the last checkpoint "
       "written (-1: none yet).\n# TYPE aftershock_checkpoint_age_seconds gauge\n"
       "aftershock_checkpoint_age_seconds ",

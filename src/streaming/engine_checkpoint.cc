@@ -1,5 +1,7 @@
 #include "aftershock/engine_checkpoint.h"
 
+#include <algorithm>
+
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
 #include "absl/strings/str_join.h"
@@ -191,9 +193,42 @@ void EngineCapture::Capture(int64_t created_ns) {
   if (services_ != nullptr) services_->CaptureState(services_capture_.get());
   symbols_ = static_cast<uint64_t>(core_->num_symbols());
   created_ns_ = created_ns;
+  slicing_ = false;
+}
+
+void EngineCapture::BeginSlices(int64_t created_ns) {
+  slicing_ = true;
+  slice_next_ = 0;
+  slice_end_ = core_->num_symbols();
+  created_ns_ = created_ns;
+}
+
+bool EngineCapture::CaptureSlice(int max_symbols) {
+  if (!slicing_) return true;
+  const int n = core_->num_symbols();
+  const int step = std::max(max_symbols, 1);
+  // The last slice also takes the symbols that joined since BeginSlices.
+  const int end = slice_end_ - slice_next_ > step ? slice_next_ + step : n;
+  core_->CaptureSymbols(core_capture_.get(), slice_next_, end);
+  if (services_ != nullptr) services_->CaptureSymbols(services_capture_.get(), slice_next_, end);
+  slice_next_ = end;
+  if (end < n) return false;
+  core_->CaptureCoreWide(core_capture_.get());
+  if (services_ != nullptr) services_->CaptureFeedWide(services_capture_.get());
+  if (!core_capture_->Restorable() ||
+      (services_capture_ != nullptr && !services_capture_->Restorable())) {
+    ++slice_fallbacks_;
+    Capture(created_ns_);
+  }
+  symbols_ = static_cast<uint64_t>(n);
+  slicing_ = false;
+  return true;
 }
 
 absl::Status EngineCapture::Serialize(const EngineConfig& config, std::string* file) {
+  if (slicing_) {
+    return absl::FailedPreconditionError("the capture in slices is not complete");
+  }
   StateWriter w(std::move(core_bytes_));
   core_capture_->Encode(&w);
   core_bytes_ = w.Release();

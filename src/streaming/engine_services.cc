@@ -94,6 +94,8 @@ class ServicesCapture : public StateCapture {
     }
   }
 
+  bool Restorable() const override { return refit == nullptr || refit->Restorable(); }
+
   const bool windows;
   // Switches, marks and the alert engines' state, as SaveState lays them out.
   StateWriter feed;
@@ -215,6 +217,11 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   }
 
   void CaptureState(StateCapture* capture) const override {
+    CaptureSymbols(capture, 0, static_cast<int>(symbols_.size()));
+    CaptureFeedWide(capture);
+  }
+
+  void CaptureFeedWide(StateCapture* capture) const override {
     ServicesCapture& c = *static_cast<ServicesCapture*>(capture);
     // Feed-wide and small: encoded here into the capture's reused buffer.
     StateWriter& f = c.feed;
@@ -230,17 +237,27 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     for (const auto& g : group_alerts_) g->SaveState(&f);
     c.pool.Clear();
     if (pool_ != nullptr) pool_->SaveState(&c.pool);
+    if (refit_ != nullptr) refit_->CaptureFeedWide(c.refit.get());
+  }
+
+  void CaptureSymbols(StateCapture* capture, int begin, int end) const override {
+    ServicesCapture& c = *static_cast<ServicesCapture*>(capture);
     const size_t old = c.symbols.size();
-    if (old != symbols_.size()) c.symbols.resize(symbols_.size());  // symbols only ever join
-    for (size_t i = 0; i < symbols_.size(); ++i) {
+    if (old < symbols_.size()) {
+      c.symbols.resize(symbols_.size());  // symbols only ever join
+      for (size_t i = old; i < symbols_.size(); ++i) c.symbols[i].symbol = symbols_[i].symbol;
+    }
+    for (size_t i = static_cast<size_t>(begin); i < static_cast<size_t>(end); ++i) {
       const PerSymbol& p = symbols_[i];
       ServicesCapture::SymbolRecord& d = c.symbols[i];
-      if (i >= old) d.symbol = p.symbol;
       d.alerts = p.alerts;
       d.fallback = p.fallback;
       if (c.windows) d.seasonal_window.SyncFrom(p.seasonal_window);
+      // The symbol's refit state in the same gap as its alert and core state.
+      if (refit_ != nullptr && p.refit_id >= 0) {
+        refit_->CaptureSymbol(c.refit.get(), static_cast<uint32_t>(p.refit_id));
+      }
     }
-    if (refit_ != nullptr) refit_->CaptureState(c.refit.get());
   }
 
   absl::Status RestoreState(absl::string_view payload) override {

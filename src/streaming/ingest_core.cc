@@ -119,10 +119,12 @@ void IngestCore::OnMessage(absl::string_view topic, absl::string_view body) {
   const DecodeResult r =
       DecodeTicks(topic, body, config_.feed.encoding, config_.feed.max_message_bytes,
                   absl::MakeSpan(ticks_), &counters_.rejects);
-  if (r.n_ticks == 0) return;
-  const int64_t arrival = clock_->NowNs();
-  counters_.ticks_in += r.n_ticks;
-  for (int i = 0; i < r.n_ticks; ++i) HandleTick(ticks_[i], arrival);
+  if (r.n_ticks > 0) {
+    const int64_t arrival = clock_->NowNs();
+    counters_.ticks_in += r.n_ticks;
+    for (int i = 0; i < r.n_ticks; ++i) HandleTick(ticks_[i], arrival);
+  }
+  for (BarObserver* o : observers_) o->OnBatchEnd(this);
 }
 
 void IngestCore::OnMalformedMessage() {
@@ -130,6 +132,7 @@ void IngestCore::OnMalformedMessage() {
   counters_.rejects.Add(config_.feed.encoding == WireEncoding::kBinary
                             ? RejectReason::kMalformedBinary
                             : RejectReason::kMalformedJson);
+  for (BarObserver* o : observers_) o->OnBatchEnd(this);
 }
 
 void IngestCore::OnTick(const Tick& tick) {
@@ -472,12 +475,21 @@ struct CoreSymbolCapture {
   uint64_t ticks = 0;
   int64_t last_tick_ns = 0;
   int64_t last_arrival_ns = 0;
-  // Tracking ([tracking]): copied only for symbols whose mode is not off (an
-  // inactive tracker otherwise, as the core's own slot holds).
+  // Tracking ([tracking]): the tracker (about 1.1 KB) is held, and copied,
+  // only for symbols whose mode is not off; for the others it is the inactive
+  // tracker their slot holds (InitTracking never anchors it), encoded as such.
+  // Out of line so that the record stays a few cache lines: a capture walks
+  // every record.
   bool need_anchor = false;
   bool instability_armed = false;
-  RecursiveTracker tracker;
+  std::unique_ptr<RecursiveTracker> tracker;  // null: the symbol's mode is off
 };
+
+// The tracker of every symbol whose tracking is off (never anchored).
+const RecursiveTracker& InactiveTracker() {
+  static const RecursiveTracker* const t = new RecursiveTracker();
+  return *t;
+}
 
 class CoreCapture : public StateCapture {
  public:
@@ -530,7 +542,7 @@ class CoreCapture : public StateCapture {
       // before these fields fail the configuration check: no [tracking] section.)
       w->Bool(s.need_anchor);
       w->Bool(s.instability_armed);
-      s.tracker.Save(w);
+      (s.tracker != nullptr ? *s.tracker : InactiveTracker()).Save(w);
     }
   }
 
@@ -559,15 +571,33 @@ std::unique_ptr<StateCapture> IngestCore::NewStateCapture() const {
 }
 
 void IngestCore::CaptureState(StateCapture* capture) const {
+  CaptureSymbols(capture, 0, num_symbols());
+  CaptureCoreWide(capture);
+}
+
+void IngestCore::CaptureCoreWide(StateCapture* capture) const {
   CoreCapture& c = *static_cast<CoreCapture*>(capture);
   c.counters = counters_;
   c.last_clock_ns = last_clock_ns_;
+}
+
+void IngestCore::CaptureSymbols(StateCapture* capture, int begin, int end) const {
+  CoreCapture& c = *static_cast<CoreCapture*>(capture);
   const size_t old = c.symbols.size();
-  if (old != slots_.size()) c.Resize(slots_.size());  // symbols only ever join
-  for (size_t i = 0; i < slots_.size(); ++i) {
+  if (old < slots_.size()) {
+    // Symbols only ever join: a record per new symbol, named once (its name
+    // never changes), with a tracker only where tracking is on.
+    c.Resize(slots_.size());
+    for (size_t i = old; i < slots_.size(); ++i) {
+      c.symbols[i].symbol = slots_[i].symbol;
+      if (slots_[i].tracking != TrackingMode::kOff) {
+        c.symbols[i].tracker = std::make_unique<RecursiveTracker>();
+      }
+    }
+  }
+  for (size_t i = static_cast<size_t>(begin); i < static_cast<size_t>(end); ++i) {
     const Slot& s = slots_[i];
     CoreSymbolCapture& d = c.symbols[i];
-    if (i >= old) d.symbol = s.symbol;
     d.bars_state = s.bars_state;
     d.filter = s.filter;
     if (d.model.get() != s.model.get()) d.model = s.model;
@@ -588,7 +618,7 @@ void IngestCore::CaptureState(StateCapture* capture) const {
     d.last_arrival_ns = s.last_arrival_ns;
     d.need_anchor = s.need_anchor;
     d.instability_armed = s.instability_armed;
-    if (s.tracking != TrackingMode::kOff) d.tracker = s.tracker;
+    if (d.tracker != nullptr) *d.tracker = s.tracker;
   }
 }
 

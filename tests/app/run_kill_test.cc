@@ -1,6 +1,8 @@
 // `aftershock run` survives SIGKILL: a live engine fed price ticks over ZeroMQ,
 // aggregated to one-second bars, with refits on and [checkpoint] every_seconds
-// = 0.5, is killed with SIGKILL at pseudo-random moments (kKills times) and
+// = 0.5 (each snapshot in slices of one symbol: [checkpoint] slice_symbols =
+// 1, so a kill may also fall between two slices), is killed with SIGKILL at
+// pseudo-random moments (kKills times) and
 // restarted on the same checkpoint file each time. Checked:
 //   * every restart starts (the "running:" line) and the final SIGTERM stop
 //     exits 0;
@@ -308,14 +310,17 @@ std::map<std::string, Saved> Inspect(const Checkpoint& cp, const EngineConfig& c
   return out;
 }
 
-// aftershock_checkpoint_writes_total of the engine serving /metrics on
-// `http_port` (-1 when unreadable).
-int CheckpointWrites(int http_port) {
+// The integer metric `name` of the engine serving /metrics on `http_port`
+// (-1 when unreadable).
+int Metric(int http_port, const std::string& name) {
   const std::string m = testing::HttpGet(http_port, "/metrics");
-  const std::string key = "\naftershock_checkpoint_writes_total ";
+  const std::string key = "\n" + name + " ";
   const size_t at = m.find(key);
   if (at == std::string::npos) return -1;
   return std::atoi(m.c_str() + at + key.size());
+}
+int CheckpointWrites(int http_port) {
+  return Metric(http_port, "aftershock_checkpoint_writes_total");
 }
 
 // Waits (up to 20 s) for `pred`, sleeping 5 ms between tries.
@@ -358,7 +363,7 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
                    "[refit]\nevery_bars = 25\nwindow = 300\nmin_bars = 100\nholdout_bars = 20\n"
                    "reidentify_every = 0\njitter_fraction = 0\n"
                    "[checkpoint]\npath = \"",
-                   state, "\"\nevery_seconds = 0.5\n"));
+                   state, "\"\nevery_seconds = 0.5\nslice_symbols = 1\n"));
   absl::StatusOr<EngineConfig> config = LoadEngineConfigFile(cfg);
   REQUIRE(config.ok());
   std::remove(state.c_str());
@@ -374,6 +379,7 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
   std::map<std::string, Saved> saved;        // the checkpoint the next run restores
   std::map<std::string, Seen> last_before_kill;
   int messages = 0, updates = 0, bad_json = 0, non_finite = 0, slow_runs = 0;
+  int most_slices = 0;  // aftershock_checkpoint_last_capture_slices, the most seen
   int restarts_with_state = 0, restarts_on_fitted = 0, fitted_resumed = 0, exact_var = 0;
   double worst_ratio = 1.0;
 
@@ -500,6 +506,9 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
     if (!last) {
       const bool wrote = WaitFor([&] { return CheckpointWrites(http_port) >= 2; });
       slow_runs += !wrote;
+      // The snapshots were taken one symbol a slice.
+      most_slices =
+          std::max(most_slices, Metric(http_port, "aftershock_checkpoint_last_capture_slices"));
     }
     kill(pid, last ? SIGTERM : SIGKILL);
     waitpid(pid, &status, 0);
@@ -540,6 +549,7 @@ TEST_CASE("run survives SIGKILL: restarts resume fitted models, the variance con
                 << fitted_resumed << " fitted symbols resumed, " << exact_var
                 << " exact variance continuations, worst var ratio " << worst_ratio << ", "
                 << slow_runs << " runs without two checkpoint writes in 20 s");
+  CHECK(most_slices == kSymbols);
   CHECK(bad_json == 0);
   CHECK(non_finite == 0);
   // Not vacuous: most restarts had state, many on fitted models, and the
