@@ -341,8 +341,8 @@ const char kReportScript[] = R"JS(
   // their labels go to the first of LABEL_ROWS rows where they clear the label
   // before them; a label that fits no row joins the cluster before it, so no
   // mark or label is drawn over another.
-  var MERGE_PX = 5, LABEL_ROWS = 3, LABEL_GAP = 4, CHAR_PX = 6.6;
-  function swapClusters(swaps, sx) {
+  var MERGE_PX = 5, LABEL_ROWS = 3, LABEL_GAP = 4, CHAR_PX = 7.2;
+  function swapClusters(swaps, sx, measure) {
     var marks = swaps.map(function (w) { return { X: sx(w[0]), v: w[1], ok: w[2] }; })
       .sort(function (a, b) { return a.X - b.X; });
     var cl = [];
@@ -363,7 +363,7 @@ const char kReportScript[] = R"JS(
       for (var j = 0; j < cl.length; ++j) {
         var c = cl[j], X = (c.x0 + c.x1) / 2;
         c.text = label(c);
-        c.w = CHAR_PX * c.text.length;
+        c.w = measure(c.text);
         c.row = -1;
         for (var r = 0; r < LABEL_ROWS; ++r) {
           if (X + 3 >= ends[r] + LABEL_GAP) { c.row = r; ends[r] = X + 3 + c.w; break; }
@@ -395,7 +395,15 @@ const char kReportScript[] = R"JS(
       el('rect', { x: x0, y: f.top, width: Math.max(1, x1 - x0), height: f.bottom - f.top, fill: g[2] > 0 ? COLORS.hiReg : COLORS.loReg }, f.plot);
     });
     el('path', { d: rangePath(V.x, V.lo, V.hi, f.sx, f.sy), fill: 'none', stroke: COLORS.vol, 'stroke-width': 1.3 }, f.plot);
-    swapClusters(V.swaps, f.sx).forEach(function (c) {
+    // Label widths as drawn (the tick font), or an upper estimate when the
+    // page is not laid out.
+    var measure = function (t) {
+      var probe = txt(f.svg, 0, -50, t, 'tick'), w = 0;
+      try { w = probe.getComputedTextLength(); } catch (e) { w = 0; }
+      f.svg.removeChild(probe);
+      return w > 0 ? w : CHAR_PX * t.length;
+    };
+    swapClusters(V.swaps, f.sx, measure).forEach(function (c) {
       var X = (c.x0 + c.x1) / 2, any = c.marks.some(function (m) { return m.ok; });
       var g = el('g', { 'class': 'swap-mark', 'data-marks': c.marks.length }, f.plot);
       el('title', {}, g).textContent = c.marks.map(function (m) { return m.ok ? 'swap to v' + m.v : 'refit rejected'; }).join('; ');
