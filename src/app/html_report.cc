@@ -109,7 +109,6 @@ json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportO
     const size_t i = std::lower_bound(h.t_ns.begin(), h.t_ns.end(), t) - h.t_ns.begin();
     return static_cast<double>(std::min(i, n - 1));
   };
-  const std::vector<int64_t> used = UsableBars(h, opt.evaluation);
   const int lv = LevelIndex(h, opt.var_level);
   const double ppy = opt.periods_per_year;
   const double vol_scale = ppy > 0 ? std::sqrt(ppy) : 1.0;

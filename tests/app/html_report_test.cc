@@ -33,7 +33,7 @@ TEST_CASE("the report opens with the risk view: period, models, worst symbol fir
   CHECK(Contains(html, "VaR / ES next bar"));
   // One-minute bars over a few days: the zone is a count over the last 250
   // bars and says so; the overview states the published basis.
-  CHECK(Contains(html, "Basel Committee&#39;s 1996") || Contains(html, "Basel Committee's 1996"));
+  CHECK(Contains(html, "Basel Committee's 1996 backtesting framework"));
   CHECK(Contains(html, "in the last 250 bars; yellow from 5, red from 10</small>"));
   CHECK_FALSE(Contains(html, "trading days ("));
   // Overview rows: zone rank never increases down the table, and within a
