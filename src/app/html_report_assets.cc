@@ -410,8 +410,8 @@ const char kReportScript[] = R"JS(
       if (c.x1 - c.x0 >= 1) el('rect', { x: c.x0, y: f.top, width: c.x1 - c.x0, height: f.bottom - f.top, fill: any ? COLORS.swapFill : COLORS.rejFill }, g);
       el('line', { x1: X, x2: X, y1: f.top, y2: f.bottom, stroke: any ? COLORS.swap : COLORS.reject,
         'stroke-width': 1.3, 'stroke-dasharray': any ? '6 3' : '2 3' }, g);
-      var bg = el('rect', { x: X + 2, y: f.top + 3 + 13 * c.row, width: c.w + 2, height: 12, fill: 'rgba(255,255,255,0.85)' }, g);
-      txt(g, X + 3, f.top + 13 + 13 * c.row, c.text, 'tick swap-label', { fill: any ? COLORS.swap : COLORS.reject, 'data-row': c.row });
+      var bg = el('rect', { x: X + 2, y: f.top + 3 + 14 * c.row, width: c.w + 2, height: 13, fill: 'rgba(255,255,255,0.85)' }, g);
+      txt(g, X + 3, f.top + 13 + 14 * c.row, c.text, 'tick swap-label', { fill: any ? COLORS.swap : COLORS.reject, 'data-row': c.row });
       return bg;
     });
   }
