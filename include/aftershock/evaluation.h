@@ -93,7 +93,7 @@ struct SymbolHistory {
   // The intraday profile s(k)^2 in force at the end (seasonal_profile.h);
   // empty when the symbol had none.
   std::vector<double> seasonal_factors;
-  // Innovation law of the latest model (QQ-plot and density reference).
+  // Innovation law of the latest model (the PIT calibration test uses it).
   InnovationLaw law;
   std::vector<ModelSwapRecord> swaps;  // in time order
   std::vector<AlertRecord> alerts;     // in time order
@@ -135,7 +135,8 @@ struct EvaluationOptions {
   double zone_yellow_probability = 0.95;
   double zone_red_probability = 0.9999;
   // Bins of the probability-integral-transform histogram and its chi-square
-  // test (>= 2). Default 20.
+  // test (>= 2). Default 20. A failed PIT test becomes a warning only with at
+  // least 5 bars expected a bin.
   int pit_bins = 20;
   // Significance level below which a test p-value becomes a warning. Default 0.05.
   double warn_p_value = 0.05;

@@ -789,7 +789,10 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
                                             lv, lb.tests.p_ind));
     }
   }
-  if (ev.pit.chi2_p < options.warn_p_value || ev.pit.ks_p < options.warn_p_value) {
+  // Pearson's chi-square needs about 5 expected per bin to follow its law;
+  // below that the PIT figures are shown but raise no warning.
+  if (ev.pit.n >= 5 * static_cast<int64_t>(ev.pit.counts.size()) &&
+      (ev.pit.chi2_p < options.warn_p_value || ev.pit.ks_p < options.warn_p_value)) {
     ev.warnings.push_back(absl::StrFormat(
         "shocks not calibrated to the innovation law (PIT chi-square p = %.3g, KS p = %.3g)",
         ev.pit.chi2_p, ev.pit.ks_p));

@@ -238,8 +238,9 @@ int ZoneRank(TrafficLightZone z) {
   }
 }
 
-// What the zone counted, in words: "4 in the last 250 bars", "1012 in the
-// 97500 bars of the last 250 trading days (yellow from 1006, red from 1040)".
+// What the zone counted, in words: "4 in the last 250 bars; yellow from 5, red
+// from 10" or "1012 in the last 250 trading days (97500 bars); yellow from
+// 1026, red from 1093".
 std::string ZoneWindowText(const TrafficLight& tl) {
   std::string s = absl::StrCat(tl.window_exceptions, " in the last ");
   if (tl.basis == ZoneBasis::kTradingDays) {
@@ -420,7 +421,11 @@ std::string PitLine(const SymbolEvaluation& ev) {
       "<p class=\"meta pit\">Calibration of the shocks (probability integral transform, ",
       t.n, " bars, ", t.counts.size(), " bins): chi-square ", Fmt(t.chi2, "%.4g"), " on ",
       t.chi2_dof, " df, p = ", FmtP(t.chi2_p), "; Kolmogorov-Smirnov D = ", Fmt(t.ks_d, "%.4g"),
-      ", p = ", FmtP(t.ks_p), " (asymptotic).</p>");
+      ", p = ", FmtP(t.ks_p), " (asymptotic).",
+      t.n < 5 * static_cast<int64_t>(t.counts.size())
+          ? " Fewer than 5 bars expected a bin: too few for the chi-square law, read with care."
+          : "",
+      "</p>");
 }
 
 }  // namespace
