@@ -79,8 +79,8 @@ int ReplayCommand(int argc, char** argv) {
   args.AddOption("input", "FILE", "tick CSV to replay", "", true);
   args.AddOption("output", "FILE",
                  "JSON Lines output of the updates ('-' = standard output); may be left out "
-                 "when another output (--report, --summary-json, --exceptions, --models, "
-                 "--alerts, --checkpoint) is asked for");
+                 "when another output (--csv, --report, --summary-json, --exceptions, "
+                 "--models, --alerts, --checkpoint) is asked for");
   args.AddOption("csv", "FILE",
                  "write the updates as CSV too ('-' = standard output): symbol, time, r, mu, "
                  "eps, var, z, var_next, vol_ann, var_h_<h>, value_at_risk_<level>, "
