@@ -45,7 +45,7 @@ table.sortable th.desc::after { content:" \2193"; color:var(--ink); }
 .charts { display:flex; flex-wrap:wrap; gap:10px; }
 figure.chart { margin:0; background:#fff; }
 figure.chart.wide { flex:1 1 100%; }
-figure.chart.half { flex:1 1 calc(50% - 10px); min-width:420px; }
+figure.chart.half { flex:0 1 calc(50% - 10px); min-width:420px; }
 figure.chart svg { width:100%; height:auto; display:block; }
 .panels { display:flex; flex-wrap:wrap; gap:4px; }
 .panels > svg { flex:0 0 calc(25% - 4px); min-width:260px; max-width:420px; }
@@ -443,7 +443,7 @@ const char kReportScript[] = R"JS(
     G.forEach(function (g) { vals.push(g.mean_z2, g.ratio); });
     var ymax = Math.max(1.5, extent([vals])[1]) * 1.08;
     var f = frame(fig, { w: 640, h: 420, title: s.symbol + ': shocks and exceptions by time of day',
-      xlabel: 'bars of the session (' + T.session_bars + ' a session)', ylabel: 'ratio to what the model expects',
+      xlabel: 'first bar of each segment of the session (' + T.session_bars + ' bars a session)', ylabel: 'ratio to what the model expects',
       x: [0, G.length], y: [0, ymax], legend: [{ label: 'mean z\u00b2', color: COLORS.vol, type: 'box' },
         { label: 'exceptions \u00f7 expected @' + s.var_level, color: COLORS.vr, type: 'box' }], clip: 'clip-t' + idx, noXTicks: true });
     var w = (f.sx(1) - f.sx(0)) / 2 - 3;
@@ -455,7 +455,7 @@ const char kReportScript[] = R"JS(
         var r = el('rect', { x: x0 + k * (w + 1), y: f.sy(b[0]), width: Math.max(0.5, w), height: f.bottom - f.sy(b[0]), fill: b[1], 'class': 'tod-bar' }, f.plot);
         el('title', {}, r).textContent = 'bars ' + g.bars + ': ' + b[2];
       });
-      txt(f.svg, f.sx(i + 0.5), f.bottom + 15, g.bars, 'tick', { 'text-anchor': 'middle' });
+      txt(f.svg, f.sx(i + 0.5), f.bottom + 15, String(g.bars).split('\u2013')[0], 'tick', { 'text-anchor': 'middle' });
     });
     el('line', { x1: f.sx(0), x2: f.sx(G.length), y1: f.sy(1), y2: f.sy(1), stroke: COLORS.ink, 'stroke-width': 1.2, 'stroke-dasharray': '5 3' }, f.plot);
   }
