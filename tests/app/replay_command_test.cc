@@ -195,7 +195,7 @@ TEST_CASE("replay --exceptions lists every VaR exception the backtest counts; --
   // Neither updates nor any other output: a usage error.
   auto none = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv"});
   CHECK(none.exit_code == 2);
-  CHECK(none.err.find("give --output for the updates, or at least one of --report") !=
+  CHECK(none.err.find("give --output for the updates, or at least one of --csv, --report") !=
         std::string::npos);
   const auto r = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv", "--summary-json",
                          dir + "/s.json", "--exceptions", dir + "/x.csv", "--report",
