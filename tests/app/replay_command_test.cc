@@ -21,6 +21,7 @@
 #include "absl/strings/str_join.h"
 #include "absl/strings/str_split.h"
 #include "absl/time/time.h"
+#include "aftershock/evaluation.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/update_codec.h"
 #include "streaming/engine_test_util.h"
@@ -339,6 +340,67 @@ TEST_CASE("replay --csv: one row per update, the same numbers as the JSON Lines"
                            dir + "/no-such-dir/u.csv", "--quiet"});
   CHECK(bad.exit_code == 2);
   CHECK(bad.err.find("No such file or directory") != std::string::npos);
+}
+
+TEST_CASE("replay of 300 short sessions: zone over 250 trading days, time of day, summary = report",
+          "[app][replay]") {
+  const std::string dir = testing::ScratchDir("replay_trading_days");
+  // Two instruments, 300 sessions of 20 one-minute bars (09:00-09:20 UTC).
+  const auto sim = RunCli({"simulate", "--symbols", "2", "--session", "09:00-09:20", "--sessions",
+                           "300", "--field", "return", "--seed", "4", "--output",
+                           dir + "/ticks.csv", "--quiet"});
+  INFO(sim.err);
+  REQUIRE(sim.exit_code == 0);
+  const std::string cfg = testing::WriteFile(
+      dir + "/c.toml",
+      "[bars]\ninterval = \"1m\"\nsession = { start = \"09:00\", end = \"09:20\", "
+      "timezone_offset_minutes = 0 }\n[refit]\nevery_bars = 500\n");
+  const auto r = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv", "--summary-json",
+                         dir + "/s.json", "--report", dir + "/r.html", "--quiet"});
+  INFO(r.err);
+  REQUIRE(r.exit_code == 0);
+  const auto summary = nlohmann::json::parse(testing::ReadFileOrDie(dir + "/s.json"));
+  const std::string html = testing::ReadFileOrDie(dir + "/r.html");
+  REQUIRE(summary.at("symbols").size() == 2);
+  for (const auto& s : summary.at("symbols")) {
+    INFO(s.dump().substr(0, 400));
+    REQUIRE(s.contains("var_backtests"));
+    const auto& b99 = s.at("var_backtests").at(0);
+    REQUIRE(b99.at("level") == 0.99);
+    // Intraday bars over more than 250 sessions: every bar of the last 250.
+    CHECK(b99.at("zone_basis") == "trading_days");
+    CHECK(b99.at("zone_window_days") == 250);
+    CHECK(b99.at("zone_window_bars") == 250 * 20);
+    CHECK(b99.at("zone_windows").get<int>() >= 1);
+    const auto bounds = ZoneThresholds(5000, 0.01, EvaluationOptions{});
+    CHECK(b99.at("zone_yellow_from") == bounds.first);
+    CHECK(b99.at("zone_red_from") == bounds.second);
+    CHECK(bounds.first > 5);
+    CHECK(html.find(absl::StrCat(b99.at("zone_window_exceptions").get<int>(),
+                                 " in the last 250 trading days (5000 bars); yellow from ",
+                                 bounds.first, ", red from ", bounds.second)) != std::string::npos);
+    // The time-of-day figures of the summary are the report's table rows.
+    REQUIRE(s.contains("time_of_day"));
+    const auto& tod = s.at("time_of_day");
+    CHECK(tod.at("session_bars") == 20);
+    REQUIRE(tod.at("segments").size() == 12);
+    const std::string sym = s.at("symbol").get<std::string>();
+    size_t at = html.find("By time of day", html.find("<h2>" + sym + "</h2>"));
+    REQUIRE(at != std::string::npos);
+    int64_t bars = 0;
+    for (const auto& g : tod.at("segments")) {
+      const auto& e = g.at("by_level").at("0.99");
+      const std::string cell =
+          absl::StrFormat("<td class=\"num\">%d (%.1f)</td>", e.at("exceptions").get<int>(),
+                          e.at("expected").get<double>());
+      const size_t next = html.find(cell, at);
+      INFO(cell);
+      CHECK(next < html.find("</table>", at));
+      at = next == std::string::npos ? at : next;
+      bars += g.at("bars").get<int64_t>();
+    }
+    CHECK(bars == s.at("evaluated").get<int64_t>());
+  }
 }
 
 TEST_CASE("replay ends with warnings when the settings contradict the input", "[app][replay]") {
