@@ -203,9 +203,14 @@ const char kReportScript[] = R"JS(
     stretches.push([a, hi]);
     var out = [], last = -Infinity, minGap = 0.6 * U / n;
     stretches.forEach(function (s) {
+      var inside = false;
       for (var v = Math.ceil(s[0] / step) * step; v <= s[1]; v += step) {
+        inside = true;
         if (w.fwd(v) - last >= minGap) { out.push(v); last = w.fwd(v); }
       }
+      // A stretch shorter than the step (a short session on a long axis)
+      // offers its opening time instead, so such axes still get labels.
+      if (!inside && w.fwd(s[0]) - last >= minGap) { out.push(s[0]); last = w.fwd(s[0]); }
     });
     return { ticks: out, step: step, span: hi - lo };
   }
@@ -243,8 +248,13 @@ const char kReportScript[] = R"JS(
       txt(svg, m.l - 6, Y + 4, fmt(v), 'tick', { 'text-anchor': 'end' });
     });
     if (warp) {
+      // One dotted line per closed stretch, but none closer than 6 px to the
+      // last one drawn (hundreds of nights would grey the plot out).
+      var lastCut = -Infinity;
       warp.cuts.forEach(function (c) {
         var X = (sx(c[0]) + sx(c[1])) / 2;
+        if (X - lastCut < 6) return;
+        lastCut = X;
         el('line', { x1: X, x2: X, y1: m.t, y2: m.t + ph, 'class': 'closed' }, svg);
       });
     }
