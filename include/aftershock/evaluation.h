@@ -1,7 +1,8 @@
 // Replay evaluation (PRODUCT.md C8): forecast losses, Mincer-Zarnowitz
 // regressions, VaR exception backtests (Kupiec, Christoffersen, Basel traffic
-// light), an ES ratio check, and alert/refit statistics over the per-symbol
-// history a replay collects.
+// light over bars or trading days), an ES ratio check, the calibration of the
+// shocks by the probability integral transform, figures by time of day, and
+// alert/refit statistics over the per-symbol history a replay collects.
 //
 // Alignment convention (read this before filling a SymbolHistory):
 //   * var[t] and mu[t] are BarUpdate::var / BarUpdate::mu of bar t: they were
