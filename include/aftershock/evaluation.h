@@ -251,9 +251,9 @@ struct TimeOfDaySegment {
   std::vector<int64_t> eligible, exceptions;
 };
 struct TimeOfDay {
-  int session_bars = 0;   // K, bars a session
-  bool profile = false;   // a seasonal profile was in force at the end
-  bool deseasonalized_only = false;  // statistics over the deseasonalized bars only
+  int session_bars = 0;                    // K, bars a session
+  bool profile = false;                    // a seasonal profile was in force at the end
+  bool deseasonalized_only = false;        // statistics over the deseasonalized bars only
   std::vector<TimeOfDaySegment> segments;  // empty when not intraday
 };
 
@@ -306,8 +306,8 @@ struct SymbolEvaluation {
   std::optional<ForecastLoss> vs_rv;  // against realized variance (bars with rv), "rv"
   std::vector<LevelBacktest> levels;  // one per SymbolHistory::risk_levels entry
   ShockMoments z;
-  PitTest pit;            // under SymbolHistory::law (the latest model's law)
-  TimeOfDay time_of_day;  // segments empty without bar-of-session indices
+  PitTest pit;                     // under SymbolHistory::law (the latest model's law)
+  TimeOfDay time_of_day;           // segments empty without bar-of-session indices
   std::vector<AlertCount> alerts;  // sorted by kind, then severity
   int64_t alerts_total = 0;
   SwapSummary swaps;

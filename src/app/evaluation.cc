@@ -356,7 +356,8 @@ TimeOfDay ComputeTimeOfDay(const SymbolHistory& h, const EvaluationOptions& opti
   tod.profile = !h.seasonal_factors.empty();
   const int segs = std::min(K, 12);
   auto seg_of = [&](int k) { return static_cast<int>(static_cast<int64_t>(k) * segs / K); };
-  for (uint32_t f : h.flags) tod.deseasonalized_only = tod.deseasonalized_only || (f & kFlagSeasonal);
+  for (uint32_t f : h.flags)
+    tod.deseasonalized_only = tod.deseasonalized_only || (f & kFlagSeasonal);
   const size_t nl = h.risk_levels.size();
   tod.segments.resize(segs);
   std::vector<double> z2(segs, 0.0), s2(segs, 0.0);
@@ -772,13 +773,13 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
     if (lb.traffic_light.zone == TrafficLightZone::kRed ||
         lb.traffic_light.zone == TrafficLightZone::kYellow) {
       const TrafficLight& tl = lb.traffic_light;
-      ev.warnings.push_back(absl::StrCat(
-          ZoneName(tl.zone), " zone at ", lv, " (", tl.window_exceptions,
-          " exceptions in the last ",
-          tl.basis == ZoneBasis::kTradingDays
-              ? absl::StrCat(tl.window_days, " trading days, ", tl.window, " bars")
-              : absl::StrCat(tl.window, " bars"),
-          ")"));
+      ev.warnings.push_back(
+          absl::StrCat(ZoneName(tl.zone), " zone at ", lv, " (", tl.window_exceptions,
+                       " exceptions in the last ",
+                       tl.basis == ZoneBasis::kTradingDays
+                           ? absl::StrCat(tl.window_days, " trading days, ", tl.window, " bars")
+                           : absl::StrCat(tl.window, " bars"),
+                       ")"));
     }
     if (lb.tests.p_pof < options.warn_p_value) {
       ev.warnings.push_back(

@@ -165,8 +165,9 @@ json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportO
 
   // (c) calibration of the shocks: PIT histogram and its uniformity tests.
   const PitTest& pit = ev.pit;
-  d["pit"] = {{"counts", pit.counts},   {"n", pit.n},         {"chi2", Num(pit.chi2)},
-              {"dof", pit.chi2_dof},    {"chi2_p", Num(pit.chi2_p)}, {"ks_d", Num(pit.ks_d)},
+  d["pit"] = {{"counts", pit.counts},      {"n", pit.n},
+              {"chi2", Num(pit.chi2)},     {"dof", pit.chi2_dof},
+              {"chi2_p", Num(pit.chi2_p)}, {"ks_d", Num(pit.ks_d)},
               {"ks_p", Num(pit.ks_p)}};
   *charts += 1;
 
@@ -382,14 +383,14 @@ std::string TimeOfDayTable(const SymbolHistory& h, const SymbolEvaluation& ev,
   for (const auto& g : tod.segments) {
     if (std::isfinite(g.profile_s2)) s2_max = std::max(s2_max, g.profile_s2);
   }
-  std::string s = absl::StrCat(
-      "<table class=\"grid\"><caption>By time of day (", tod.session_bars, " bars a session in ",
-      tod.segments.size(), " segments; ",
-      tod.profile ? "profile s&sup2; in force at the end" : "no intraday profile",
-      tod.deseasonalized_only ? "; statistics over the deseasonalized bars" : "",
-      ")</caption><thead><tr><th>bars of the session</th><th>profile s&sup2;</th>"
-      "<th>bars</th><th>mean z&sup2;</th><th>exceptions @",
-      LevelLabel(opt.var_level), " (expected)</th></tr></thead><tbody>");
+  std::string s =
+      absl::StrCat("<table class=\"grid\"><caption>By time of day (", tod.session_bars,
+                   " bars a session in ", tod.segments.size(), " segments; ",
+                   tod.profile ? "profile s&sup2; in force at the end" : "no intraday profile",
+                   tod.deseasonalized_only ? "; statistics over the deseasonalized bars" : "",
+                   ")</caption><thead><tr><th>bars of the session</th><th>profile s&sup2;</th>"
+                   "<th>bars</th><th>mean z&sup2;</th><th>exceptions @",
+                   LevelLabel(opt.var_level), " (expected)</th></tr></thead><tbody>");
   for (const TimeOfDaySegment& g : tod.segments) {
     std::string bar_cell = "&ndash;";
     if (tod.profile && std::isfinite(g.profile_s2)) {
@@ -403,11 +404,11 @@ std::string TimeOfDayTable(const SymbolHistory& h, const SymbolEvaluation& ev,
         &s, "<tr>", Td(absl::StrCat(g.first_bar, "&ndash;", g.last_bar), "", false),
         Td(bar_cell, "", false), Td(absl::StrCat(g.bars)),
         Td(g.bars > 0 ? Fmt(g.mean_z2, "%.3f") : "&ndash;"),
-        Td(lv >= 0 ? absl::StrCat(g.exceptions[lv], " (",
-                                  Fmt((1 - opt.var_level) * static_cast<double>(g.eligible[lv]),
-                                      "%.1f"),
-                                  ")")
-                   : "&ndash;"),
+        Td(lv >= 0
+               ? absl::StrCat(
+                     g.exceptions[lv], " (",
+                     Fmt((1 - opt.var_level) * static_cast<double>(g.eligible[lv]), "%.1f"), ")")
+               : "&ndash;"),
         "</tr>");
   }
   s += "</tbody></table>";
@@ -418,9 +419,9 @@ std::string TimeOfDayTable(const SymbolHistory& h, const SymbolEvaluation& ev,
 std::string PitLine(const SymbolEvaluation& ev) {
   const PitTest& t = ev.pit;
   return absl::StrCat(
-      "<p class=\"meta pit\">Calibration of the shocks (probability integral transform, ",
-      t.n, " bars, ", t.counts.size(), " bins): chi-square ", Fmt(t.chi2, "%.4g"), " on ",
-      t.chi2_dof, " df, p = ", FmtP(t.chi2_p), "; Kolmogorov-Smirnov D = ", Fmt(t.ks_d, "%.4g"),
+      "<p class=\"meta pit\">Calibration of the shocks (probability integral transform, ", t.n,
+      " bars, ", t.counts.size(), " bins): chi-square ", Fmt(t.chi2, "%.4g"), " on ", t.chi2_dof,
+      " df, p = ", FmtP(t.chi2_p), "; Kolmogorov-Smirnov D = ", Fmt(t.ks_d, "%.4g"),
       ", p = ", FmtP(t.ks_p), " (asymptotic).",
       t.n < 5 * static_cast<int64_t>(t.counts.size())
           ? " Fewer than 5 bars expected a bin: too few for the chi-square law, read with care."
@@ -536,8 +537,8 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
       if (std::fabs(l.level - opt.evaluation.traffic_light_level) > 1e-9) continue;
       zone = l.traffic_light.zone;
       if (l.traffic_light.window > 0) {
-        zone_basis = absl::StrCat("<br><small class=\"basis\">",
-                                  ZoneWindowText(l.traffic_light), "</small>");
+        zone_basis = absl::StrCat("<br><small class=\"basis\">", ZoneWindowText(l.traffic_light),
+                                  "</small>");
       }
     }
     std::string warn_text =
@@ -556,19 +557,19 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     if (!h.regimes.empty() && !h.t_ns.empty() && h.regimes.back().end_ns >= h.t_ns.back()) {
       regime = h.regimes.back().direction > 0 ? "high" : "low";
     }
-    absl::StrAppend(&overview, "<tr>",
-                    Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
-                    Td(absl::StrCat(ZoneChip(zone), zone_basis), absl::StrCat(ZoneRank(zone)),
-                       false),
-                    Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
-                       b ? absl::StrCat(b->tests.exceptions) : ""),
-                    Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
-                    Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
-                    Td(absl::StrCat(ev->alerts_total), absl::StrCat(ev->alerts_total)),
-                    Td(regime, regime, false), Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
-                    Td(limits, "", false), Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
-                    Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
-                    Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
+    absl::StrAppend(
+        &overview, "<tr>",
+        Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
+        Td(absl::StrCat(ZoneChip(zone), zone_basis), absl::StrCat(ZoneRank(zone)), false),
+        Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
+           b ? absl::StrCat(b->tests.exceptions) : ""),
+        Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
+        Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
+        Td(absl::StrCat(ev->alerts_total), absl::StrCat(ev->alerts_total)),
+        Td(regime, regime, false), Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
+        Td(limits, "", false), Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
+        Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
+        Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
     rows.push_back({ZoneRank(zone), b && std::isfinite(b->tests.p_pof) ? b->tests.p_pof : 1.0,
                     ev->alerts_total, si, overview});
 
@@ -591,9 +592,8 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     absl::StrAppend(&sections, "<div class=\"charts\" data-symbol-index=\"", si,
                     "\" data-charts=\"", charts - before, "\"></div>");
     absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), PitLine(*ev),
-                    TimeOfDayTable(h, *ev, opt),
-                    ForecastTable(*ev), "<div class=\"pair\">", AlertTable(*ev), "</div>",
-                    SwapTable(h, *ev), "</div></section>");
+                    TimeOfDayTable(h, *ev, opt), ForecastTable(*ev), "<div class=\"pair\">",
+                    AlertTable(*ev), "</div>", SwapTable(h, *ev), "</div></section>");
   }
 
   std::stable_sort(rows.begin(), rows.end(), [](const OverviewRow& a, const OverviewRow& b) {
@@ -647,14 +647,17 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
       "<p class=\"hint\">Worst first: traffic-light zone, then the coverage test (Kupiec p), "
       "then alerts; click a column header to sort otherwise. Exceptions, Kupiec and "
       "Christoffersen at ",
-      LevelLabel(opt.var_level), ". Zone: the traffic light of the Basel Committee's 1996 "
+      LevelLabel(opt.var_level),
+      ". Zone: the traffic light of the Basel Committee's 1996 "
       "backtesting framework at ",
-      LevelLabel(opt.evaluation.traffic_light_level), ", on what each row says it counted: ",
-      "<em>daily bars</em>, the last ", opt.evaluation.traffic_light_window,
-      " bars (green 0&ndash;", opt.evaluation.yellow_from - 1, ", yellow ",
-      opt.evaluation.yellow_from, "&ndash;", opt.evaluation.red_from - 1, ", red ",
-      opt.evaluation.red_from, "+ exceptions); <em>trading days</em>, intraday bars: every "
-      "exception over the bars of the last ", opt.evaluation.zone_window_days,
+      LevelLabel(opt.evaluation.traffic_light_level),
+      ", on what each row says it counted: ", "<em>daily bars</em>, the last ",
+      opt.evaluation.traffic_light_window, " bars (green 0&ndash;", opt.evaluation.yellow_from - 1,
+      ", yellow ", opt.evaluation.yellow_from, "&ndash;", opt.evaluation.red_from - 1, ", red ",
+      opt.evaluation.red_from,
+      "+ exceptions); <em>trading days</em>, intraday bars: every "
+      "exception over the bars of the last ",
+      opt.evaluation.zone_window_days,
       " trading days, yellow from the first count k with P(X &le; k) &ge; ",
       Fmt(100 * opt.evaluation.zone_yellow_probability, "%.4g"), " % and red from ",
       Fmt(100 * opt.evaluation.zone_red_probability, "%.6g"),

@@ -146,9 +146,8 @@ int ReplayCommand(int argc, char** argv) {
   }
   if (args.Has("csv") && args.Has("output") && args.Get("csv") == "-" &&
       args.Get("output") == "-") {
-    return Fail(absl::InvalidArgumentError(
-                    "--output and --csv cannot both be standard output ('-')"),
-                2);
+    return Fail(
+        absl::InvalidArgumentError("--output and --csv cannot both be standard output ('-')"), 2);
   }
   // Without --output the updates are computed and dropped.
   std::unique_ptr<JsonLinesSink> json_sink;
@@ -163,8 +162,7 @@ int ReplayCommand(int argc, char** argv) {
   if (args.Has("csv")) {
     config->publish.encoding = WireEncoding::kBinary;
     auto sink = UpdateCsvSink::Open(
-        args.Get("csv"),
-        UpdateCsvHeader(config->outputs.horizons, config->outputs.risk_levels),
+        args.Get("csv"), UpdateCsvHeader(config->outputs.horizons, config->outputs.risk_levels),
         args.Has("output") ? json_sink.get() : nullptr);
     if (!sink.ok()) return Fail(sink.status(), 2);
     csv_sink = *std::move(sink);

@@ -180,9 +180,9 @@ nlohmann::json RefitsJson(const SymbolHistory& h, const SymbolEvaluation& ev) {
                        {"se_hessian", se},
                        {"gate", s.gate_reason}});
   }
-  return {{"records", ev.swaps.attempts},     {"swapped", ev.swaps.accepted},
-          {"rejected", ev.swaps.rejected},    {"last_version", ev.swaps.last_version},
-          {"reject_reasons", reasons},        {"history", records}};
+  return {{"records", ev.swaps.attempts},  {"swapped", ev.swaps.accepted},
+          {"rejected", ev.swaps.rejected}, {"last_version", ev.swaps.last_version},
+          {"reject_reasons", reasons},     {"history", records}};
 }
 
 }  // namespace
@@ -219,32 +219,32 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
     for (const LevelBacktest& b : ev->levels) {
       const ExceptionTests& t = b.tests;
       const TrafficLight& tl = b.traffic_light;
-      levels.push_back({{"level", b.level},
-                        {"bars", t.n},
-                        {"exceptions", t.exceptions},
-                        {"expected_exceptions", JsonNumber(t.tail_prob * static_cast<double>(t.n))},
-                        {"rate", JsonNumber(t.rate)},
-                        {"kupiec_lr", JsonNumber(t.lr_pof)},
-                        {"kupiec_p", JsonNumber(t.p_pof)},
-                        {"transitions", {{"n00", t.n00}, {"n01", t.n01}, {"n10", t.n10},
-                                         {"n11", t.n11}}},
-                        {"christoffersen_lr", JsonNumber(t.lr_ind)},
-                        {"christoffersen_p", JsonNumber(t.p_ind)},
-                        {"conditional_coverage_lr", JsonNumber(t.lr_cc)},
-                        {"conditional_coverage_p", JsonNumber(t.p_cc)},
-                        {"zone", ZoneName(tl.zone)},
-                        {"zone_basis", ZoneBasisName(tl.basis)},
-                        {"zone_window_bars", tl.window},
-                        {"zone_window_days", tl.window_days},
-                        {"zone_window_exceptions", tl.window_exceptions},
-                        {"zone_yellow_from", tl.yellow_from},
-                        {"zone_red_from", tl.red_from},
-                        {"zone_windows", tl.n_windows},
-                        {"share_green", JsonNumber(tl.share_green)},
-                        {"share_yellow", JsonNumber(tl.share_yellow)},
-                        {"share_red", JsonNumber(tl.share_red)},
-                        {"es_ratio", JsonNumber(b.es_ratio)},
-                        {"es_n", b.es_n}});
+      levels.push_back(
+          {{"level", b.level},
+           {"bars", t.n},
+           {"exceptions", t.exceptions},
+           {"expected_exceptions", JsonNumber(t.tail_prob * static_cast<double>(t.n))},
+           {"rate", JsonNumber(t.rate)},
+           {"kupiec_lr", JsonNumber(t.lr_pof)},
+           {"kupiec_p", JsonNumber(t.p_pof)},
+           {"transitions", {{"n00", t.n00}, {"n01", t.n01}, {"n10", t.n10}, {"n11", t.n11}}},
+           {"christoffersen_lr", JsonNumber(t.lr_ind)},
+           {"christoffersen_p", JsonNumber(t.p_ind)},
+           {"conditional_coverage_lr", JsonNumber(t.lr_cc)},
+           {"conditional_coverage_p", JsonNumber(t.p_cc)},
+           {"zone", ZoneName(tl.zone)},
+           {"zone_basis", ZoneBasisName(tl.basis)},
+           {"zone_window_bars", tl.window},
+           {"zone_window_days", tl.window_days},
+           {"zone_window_exceptions", tl.window_exceptions},
+           {"zone_yellow_from", tl.yellow_from},
+           {"zone_red_from", tl.red_from},
+           {"zone_windows", tl.n_windows},
+           {"share_green", JsonNumber(tl.share_green)},
+           {"share_yellow", JsonNumber(tl.share_yellow)},
+           {"share_red", JsonNumber(tl.share_red)},
+           {"es_ratio", JsonNumber(b.es_ratio)},
+           {"es_n", b.es_n}});
     }
     nlohmann::json alerts = nlohmann::json::array();
     for (const AlertCount& a : ev->alerts) {
@@ -257,11 +257,12 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
                         {"fallback_bars", ev->fallback_bars},
                         {"vs_r2", LossJson(ev->vs_r2)},
                         {"var_backtests", levels},
-                        {"z", {{"mean", JsonNumber(ev->z.mean)},
-                               {"variance", JsonNumber(ev->z.variance)},
-                               {"skewness", JsonNumber(ev->z.skewness)},
-                               {"excess_kurtosis", JsonNumber(ev->z.excess_kurtosis)},
-                               {"max_abs", JsonNumber(ev->z.max_abs)}}},
+                        {"z",
+                         {{"mean", JsonNumber(ev->z.mean)},
+                          {"variance", JsonNumber(ev->z.variance)},
+                          {"skewness", JsonNumber(ev->z.skewness)},
+                          {"excess_kurtosis", JsonNumber(ev->z.excess_kurtosis)},
+                          {"max_abs", JsonNumber(ev->z.max_abs)}}},
                         {"pit", PitJson(ev->pit)},
                         {"alerts", alerts},
                         {"alerts_total", ev->alerts_total},
@@ -303,6 +304,7 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
       }
     }
     s["model_at_end"] = model;
+    s["version_at_end"] = h.ver.empty() ? 0u : h.ver.back();  // the report's "last model version"
     if (!h.t_ns.empty()) {
       s["first_bar_ns"] = h.t_ns.front();
       s["last_bar_ns"] = h.t_ns.back();
@@ -331,16 +333,16 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
     out["last_bar_ns"] = last;
   }
   out["models_at_end"] = mix;
-  out["zone_rule"] = {
-      {"source", "Basel Committee on Banking Supervision (1996), supervisory framework for "
-                 "the use of backtesting in conjunction with the internal models approach"},
-      {"level", options.traffic_light_level},
-      {"window_bars", options.traffic_light_window},
-      {"window_days", options.zone_window_days},
-      {"yellow_from", options.yellow_from},
-      {"red_from", options.red_from},
-      {"yellow_probability", options.zone_yellow_probability},
-      {"red_probability", options.zone_red_probability}};
+  out["zone_rule"] = {{"source",
+                       "Basel Committee on Banking Supervision (1996), supervisory framework for "
+                       "the use of backtesting in conjunction with the internal models approach"},
+                      {"level", options.traffic_light_level},
+                      {"window_bars", options.traffic_light_window},
+                      {"window_days", options.zone_window_days},
+                      {"yellow_from", options.yellow_from},
+                      {"red_from", options.red_from},
+                      {"yellow_probability", options.zone_yellow_probability},
+                      {"red_probability", options.zone_red_probability}};
   out["symbols"] = std::move(symbols);
   out["caution"] =
       "Statistical estimates, not advice; follow your model-risk policy and applicable "

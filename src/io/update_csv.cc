@@ -63,8 +63,8 @@ absl::Status AppendUpdateCsvRow(const BarUpdate& u, std::string* out) {
   }
   AppendField(u.symbol.view(), out);
   out->push_back(',');
-  out->append(absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(u.t_ns),
-                               absl::UTCTimeZone()));
+  out->append(
+      absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(u.t_ns), absl::UTCTimeZone()));
   for (double v : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) {
     out->push_back(',');
     AppendDouble(v, out);

@@ -510,7 +510,8 @@ SymbolHistory IntradayHistory(int days, int per_day, bool sessions, uint64_t see
   for (int d = 0; d < days; ++d) {
     for (int k = 0; k < per_day; ++k) {
       // Box-Muller from two uniforms.
-      const double z = std::sqrt(-2 * std::log(uniform())) * std::cos(6.283185307179586 * uniform());
+      const double z =
+          std::sqrt(-2 * std::log(uniform())) * std::cos(6.283185307179586 * uniform());
       h.t_ns.push_back(t0 + d * day_ns + (k + 1) * min_ns);
       h.r.push_back(z);
       h.mu.push_back(0);
@@ -582,15 +583,14 @@ TEST_CASE("intraday bars: the zone counts the last 250 trading days", "[evaluati
   CHECK(t3.zone == TrafficLightZone::kRed);
   bool said = false;
   for (const auto& w : ev3->warnings) {
-    said = said || w.find("red zone at 99 % (" + std::to_string(t3.window_exceptions) +
-                          " exceptions in the last 250 trading days, 10000 bars)") !=
-                       std::string::npos;
+    said = said ||
+           w.find("red zone at 99 % (" + std::to_string(t3.window_exceptions) +
+                  " exceptions in the last 250 trading days, 10000 bars)") != std::string::npos;
   }
   CHECK(said);
 }
 
-TEST_CASE("intraday bars over fewer than 250 days: the zone is labelled as bars",
-          "[evaluation]") {
+TEST_CASE("intraday bars over fewer than 250 days: the zone is labelled as bars", "[evaluation]") {
   const EvaluationOptions o;
   // Four hours of minute bars: one day. The zone is the last 250 bars, read as bars.
   auto ev = EvaluateSymbol(IntradayHistory(1, 240, true, 9), o);
@@ -627,8 +627,8 @@ TEST_CASE("intraday bars over fewer than 250 days: the zone is labelled as bars"
 TEST_CASE("PIT histogram and uniformity tests match scipy", "[evaluation]") {
   // Shocks from a t(5) law standardized, tested under three laws: the right
   // one, a t with the wrong nu and the Gaussian (which misses the tails).
-  const auto t5 = Params("student", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.05},
-                                     {"beta_1", 0.9}, {"nu", 5.0}});
+  const auto t5 = Params(
+      "student", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", 0.9}, {"nu", 5.0}});
   const SymbolHistory h = Replay(t5, 4000, 77);
   std::vector<double> z(h.z.begin() + 1, h.z.end());
   struct Case {

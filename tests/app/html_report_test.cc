@@ -252,8 +252,8 @@ TEST_CASE("the charts answer the desk's questions: losses, calibration, swaps, t
   CHECK(g0.first_bar == 0);
   CHECK(g0.last_bar == 32);
   // JSON keys are sorted; the label is "0" EN DASH "32", escaped as \u2013.
-  CHECK(Contains(html, "{\"bars\":\"0\\u201332\",\"exceptions\":" +
-                           std::to_string(g0.exceptions[0]) + ","));
+  CHECK(Contains(
+      html, "{\"bars\":\"0\\u201332\",\"exceptions\":" + std::to_string(g0.exceptions[0]) + ","));
 }
 
 TEST_CASE("intraday bars over 250 trading days: the zone counts days and says so", "[report]") {
@@ -263,7 +263,8 @@ TEST_CASE("intraday bars over 250 trading days: the zone counts days and says so
   for (auto& h : in.symbols) {
     const int64_t t0 = h.t_ns.front() / day * day;
     for (size_t i = 0; i < h.t_ns.size(); ++i) {
-      h.t_ns[i] = t0 + static_cast<int64_t>(i / 25) * day + static_cast<int64_t>(i % 25 + 1) * minute;
+      h.t_ns[i] =
+          t0 + static_cast<int64_t>(i / 25) * day + static_cast<int64_t>(i % 25 + 1) * minute;
     }
     for (auto& s : h.swaps) s.t_ns = h.t_ns[h.t_ns.size() / 2];
     for (auto& a : h.alerts) a.t_ns = h.t_ns.back();

@@ -230,6 +230,9 @@ TEST_CASE("replay --exceptions lists every VaR exception the backtest counts; --
     const std::string regime = s.at("regime_at_end").get<std::string>();
     CHECK((regime == "none" || regime == "high" || regime == "low"));
     CHECK(s.at("model_at_end").get<std::string>().find('/') != std::string::npos);
+    // The report's "last model version" of the symbol is the summary's.
+    CHECK(html.find(absl::StrCat("last model version ", s.at("version_at_end").get<int>(), ".")) !=
+          std::string::npos);
     CHECK(s.at("last_bar_ns").get<int64_t>() > s.at("first_bar_ns").get<int64_t>());
     for (const auto& l : s.at("var_backtests")) {
       const std::string level = absl::StrFormat("%g", l.at("level").get<double>());
@@ -265,19 +268,18 @@ TEST_CASE("replay --exceptions lists every VaR exception the backtest counts; --
   CHECK(summary.at("models_at_end").size() >= 1);
 }
 
-TEST_CASE("replay --csv: one row per update, the same numbers as the JSON Lines",
-          "[app][replay]") {
+TEST_CASE("replay --csv: one row per update, the same numbers as the JSON Lines", "[app][replay]") {
   const std::string dir = testing::ScratchDir("replay_csv");
   const std::vector<std::string> syms = {"QUAIL.A", "RAVEN.B"};
   std::vector<std::vector<double>> rets;
   const std::string input = testing::WriteFile(dir + "/ticks.csv", ReturnCsv(syms, 300, &rets));
   const std::string cfg = testing::WriteFile(dir + "/c.toml", testing::kFixedModelToml);
-  const auto a = RunCli({"replay", "--config", cfg, "--input", input, "--output",
-                         dir + "/a.jsonl", "--quiet"});
-  const auto b = RunCli({"replay", "--config", cfg, "--input", input, "--output",
-                         dir + "/b.jsonl", "--csv", dir + "/b.csv", "--quiet"});
-  const auto c = RunCli({"replay", "--config", cfg, "--input", input, "--csv", dir + "/c.csv",
-                         "--quiet"});
+  const auto a = RunCli(
+      {"replay", "--config", cfg, "--input", input, "--output", dir + "/a.jsonl", "--quiet"});
+  const auto b = RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/b.jsonl",
+                         "--csv", dir + "/b.csv", "--quiet"});
+  const auto c =
+      RunCli({"replay", "--config", cfg, "--input", input, "--csv", dir + "/c.csv", "--quiet"});
   INFO(a.err << b.err << c.err);
   REQUIRE(a.exit_code == 0);
   REQUIRE(b.exit_code == 0);
@@ -318,7 +320,8 @@ TEST_CASE("replay --csv: one row per update, the same numbers as the JSON Lines"
     for (double v : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) {
       CHECK(std::strtod(f[k++].c_str(), nullptr) == v);
     }
-    for (int h = 0; h < u.n_horizons; ++h) CHECK(std::strtod(f[k++].c_str(), nullptr) == u.var_h[h]);
+    for (int h = 0; h < u.n_horizons; ++h)
+      CHECK(std::strtod(f[k++].c_str(), nullptr) == u.var_h[h]);
     for (int l = 0; l < u.n_levels; ++l) {
       CHECK(std::strtod(f[k++].c_str(), nullptr) == u.var_risk[l]);
       CHECK(std::strtod(f[k++].c_str(), nullptr) == u.es[l]);
@@ -332,8 +335,8 @@ TEST_CASE("replay --csv: one row per update, the same numbers as the JSON Lines"
     CHECK(f[k] == absl::StrJoin(names, "|"));
   }
   // Both outputs on standard output cannot be told apart: refused.
-  const auto both = RunCli({"replay", "--config", cfg, "--input", input, "--output", "-", "--csv",
-                            "-", "--quiet"});
+  const auto both = RunCli(
+      {"replay", "--config", cfg, "--input", input, "--output", "-", "--csv", "-", "--quiet"});
   CHECK(both.exit_code == 2);
   CHECK(both.err.find("cannot both be standard output") != std::string::npos);
   const auto bad = RunCli({"replay", "--config", cfg, "--input", input, "--csv",
@@ -346,9 +349,9 @@ TEST_CASE("replay of 300 short sessions: zone over 250 trading days, time of day
           "[app][replay]") {
   const std::string dir = testing::ScratchDir("replay_trading_days");
   // Two instruments, 300 sessions of 20 one-minute bars (09:00-09:20 UTC).
-  const auto sim = RunCli({"simulate", "--symbols", "2", "--session", "09:00-09:20", "--sessions",
-                           "300", "--field", "return", "--seed", "4", "--output",
-                           dir + "/ticks.csv", "--quiet"});
+  const auto sim =
+      RunCli({"simulate", "--symbols", "2", "--session", "09:00-09:20", "--sessions", "300",
+              "--field", "return", "--seed", "4", "--output", dir + "/ticks.csv", "--quiet"});
   INFO(sim.err);
   REQUIRE(sim.exit_code == 0);
   const std::string cfg = testing::WriteFile(

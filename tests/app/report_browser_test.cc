@@ -152,32 +152,38 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
     std::string html = testing::ReadFileOrDie(page);
     const size_t end = html.rfind("</body>");
     REQUIRE(end != std::string::npos);
-    html.insert(end,
-                "<script>document.querySelectorAll('#overview th')[10].click();</script>"
-                // Laid-out geometry: swap labels that intersect, swap lines
-                // closer than a pixel, and where the overview ends.
-                "<script>(function () {"
-                "  var L = document.querySelectorAll('text.swap-label'), B = [], o = 0, m = 0, n = 0;"
-                "  L.forEach(function (t) { var b = t.getBBox(); B.push([t.ownerSVGElement, b.x, b.x + b.width, b.y, b.y + b.height]); });"
-                "  for (var i = 0; i < B.length; ++i) for (var j = i + 1; j < B.length; ++j)"
-                "    if (B[i][0] === B[j][0] && B[i][1] < B[j][2] && B[j][1] < B[i][2] && B[i][3] < B[j][4] && B[j][3] < B[i][4]) ++o;"
-                "  var G = document.querySelectorAll('g.swap-mark'), X = [];"
-                "  G.forEach(function (g) { n += +g.getAttribute('data-marks'); var l = g.querySelector('line'); X.push([g.ownerSVGElement, +l.getAttribute('x1')]); });"
-                "  for (var a = 0; a < X.length; ++a) for (var c = a + 1; c < X.length; ++c)"
-                "    if (X[a][0] === X[c][0] && Math.abs(X[a][1] - X[c][1]) < 1) ++m;"
-                "  var r = document.getElementById('overview').getBoundingClientRect();"
-                "  document.body.setAttribute('data-geometry', [L.length, o, G.length, m, n, Math.round(r.top + window.scrollY), Math.round(r.bottom + window.scrollY)].join(' '));"
-                "})();</script>"
-                "<script>deliberatelyMissingFunction();</script>");
+    html.insert(
+        end,
+        "<script>document.querySelectorAll('#overview th')[10].click();</script>"
+        // Laid-out geometry: swap labels that intersect, swap lines
+        // closer than a pixel, and where the overview ends.
+        "<script>(function () {"
+        "  var L = document.querySelectorAll('text.swap-label'), B = [], o = 0, m = 0, n = 0;"
+        "  L.forEach(function (t) { var b = t.getBBox(); B.push([t.ownerSVGElement, b.x, b.x + "
+        "b.width, b.y, b.y + b.height]); });"
+        "  for (var i = 0; i < B.length; ++i) for (var j = i + 1; j < B.length; ++j)"
+        "    if (B[i][0] === B[j][0] && B[i][1] < B[j][2] && B[j][1] < B[i][2] && B[i][3] < "
+        "B[j][4] && B[j][3] < B[i][4]) ++o;"
+        "  var G = document.querySelectorAll('g.swap-mark'), X = [];"
+        "  G.forEach(function (g) { n += +g.getAttribute('data-marks'); var l = "
+        "g.querySelector('line'); X.push([g.ownerSVGElement, +l.getAttribute('x1')]); });"
+        "  for (var a = 0; a < X.length; ++a) for (var c = a + 1; c < X.length; ++c)"
+        "    if (X[a][0] === X[c][0] && Math.abs(X[a][1] - X[c][1]) < 1) ++m;"
+        "  var r = document.getElementById('overview').getBoundingClientRect();"
+        "  document.body.setAttribute('data-geometry', [L.length, o, G.length, m, n, "
+        "Math.round(r.top + window.scrollY), Math.round(r.bottom + window.scrollY)].join(' '));"
+        "})();</script>"
+        "<script>deliberatelyMissingFunction();</script>");
     const std::string sorted_page = testing::WriteFile(dir + "/sorted.html", html);
     const CommandResult sorted = Chromium(
         dir, "profile-sort", {"--window-size=1400,3000", "--dump-dom"}, "file://" + sorted_page);
     REQUIRE(sorted.exit_code == 0);
     {
       const std::string geo = Attr(sorted.out.substr(sorted.out.find("<body")), "data-geometry");
-      INFO("geometry: labels, label overlaps, marks, mark overlaps, swaps drawn, overview top "
-           "and bottom: "
-           << geo);
+      INFO(
+          "geometry: labels, label overlaps, marks, mark overlaps, swaps drawn, overview top "
+          "and bottom: "
+          << geo);
       std::istringstream g(geo);
       int labels = -1, overlaps = -1, marks = -1, mark_overlaps = -1, swaps = -1, top = -1,
           bottom = -1;
@@ -185,7 +191,7 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
       size_t all_swaps = 0;
       for (const auto& s : in.symbols) all_swaps += s.swaps.size();
       CHECK(swaps == static_cast<int>(all_swaps));  // every swap is in some mark
-      CHECK(marks < swaps);                          // the crowded ones were merged
+      CHECK(marks < swaps);                         // the crowded ones were merged
       CHECK(labels == marks);
       CHECK(overlaps == 0);
       CHECK(mark_overlaps == 0);

@@ -89,7 +89,7 @@ TEST_CASE("CSV sink decodes binary updates and passes JSON on", "[update_csv]") 
   REQUIRE(EncodeUpdateJson(Sample(), &want_json).ok());
   CHECK((*sink)->Send("u.ALDER.X", bin));
   CHECK((*sink)->Send("a.ALDER.X", "not an update"));  // other topics are skipped
-  CHECK_FALSE((*sink)->Send("u.ALDER.X", "garbage"));   // counted as a drop
+  CHECK_FALSE((*sink)->Send("u.ALDER.X", "garbage"));  // counted as a drop
   REQUIRE((*sink)->Flush().ok());
   CHECK(json.flushes == 1);
   CHECK(json.topics == "u.ALDER.X");
