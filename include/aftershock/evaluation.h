@@ -360,7 +360,7 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLightByDays(absl::Span<const uint8_t
 std::vector<int64_t> TradingDays(const SymbolHistory& history);
 
 // PIT histogram and uniformity tests of `z` under `law`. InvalidArgument when
-// z is empty or bins < 2. Non-finite z are skipped.
+// no z is finite or bins < 2. Non-finite z (and cdf values) are skipped.
 absl::StatusOr<PitTest> TestPit(absl::Span<const double> z, const InnovationLaw& law, int bins);
 
 // Upper tail of the limiting Kolmogorov distribution, P(K > x) =

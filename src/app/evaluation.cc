@@ -313,7 +313,9 @@ absl::StatusOr<PitTest> TestPit(absl::Span<const double> z, const InnovationLaw&
   std::vector<double> u;
   u.reserve(z.size());
   for (double v : z) {
-    if (IsFinite(v)) u.push_back(std::clamp(law.Cdf(v), 0.0, 1.0));
+    if (!IsFinite(v)) continue;
+    const double p = law.Cdf(v);
+    if (IsFinite(p)) u.push_back(std::clamp(p, 0.0, 1.0));
   }
   if (u.empty()) return absl::InvalidArgumentError("PIT test: no finite shock");
   PitTest t;
