@@ -1,7 +1,8 @@
 // Replay evaluation (PRODUCT.md C8): forecast losses, Mincer-Zarnowitz
 // regressions, VaR exception backtests (Kupiec, Christoffersen, Basel traffic
-// light), an ES ratio check, and alert/refit statistics over the per-symbol
-// history a replay collects.
+// light over bars or trading days), an ES ratio check, the calibration of the
+// shocks by the probability integral transform, figures by time of day, and
+// alert/refit statistics over the per-symbol history a replay collects.
 //
 // Alignment convention (read this before filling a SymbolHistory):
 //   * var[t] and mu[t] are BarUpdate::var / BarUpdate::mu of bar t: they were
@@ -25,6 +26,7 @@
 #include <cstdint>
 #include <optional>
 #include <string>
+#include <utility>
 #include <vector>
 
 #include "absl/status/statusor.h"
@@ -92,7 +94,7 @@ struct SymbolHistory {
   // The intraday profile s(k)^2 in force at the end (seasonal_profile.h);
   // empty when the symbol had none.
   std::vector<double> seasonal_factors;
-  // Innovation law of the latest model (QQ-plot and density reference).
+  // Innovation law of the latest model (the PIT calibration test uses it).
   InnovationLaw law;
   std::vector<ModelSwapRecord> swaps;  // in time order
   std::vector<AlertRecord> alerts;     // in time order
@@ -116,8 +118,27 @@ struct EvaluationOptions {
   int traffic_light_window = 250;
   // Exceptions in the window from which the zone is yellow / red. Defaults 5 and
   // 10 (Basel Committee 1996: green 0-4, yellow 5-9, red 10+ at 250 days, 99 %).
+  // Used for a window of traffic_light_window bars (daily bars, or intraday
+  // bars labelled as bars); see zone_window_days for intraday bars.
   int yellow_from = 5;
   int red_from = 10;
+  // Intraday bars: the zone counts every exception over the bars of the last
+  // zone_window_days trading days, with thresholds scaled to that bar count by
+  // the binomial rule of the published table (ZoneThresholds). A trading day is
+  // a session (bar-of-session indices restart) or, without session indices, a
+  // UTC calendar date. With fewer trading days than this, or 0, the zone is
+  // over the last traffic_light_window bars and labelled as bars. Default 250.
+  int zone_window_days = 250;
+  // Cumulative binomial probabilities at which the scaled zones turn yellow and
+  // red: the first count k with P(X <= k) >= the value. Defaults 0.95 and
+  // 0.9999 (Basel Committee 1996, Table 1; at 250 draws and 1 % they give
+  // exactly the 5 and 10 above).
+  double zone_yellow_probability = 0.95;
+  double zone_red_probability = 0.9999;
+  // Bins of the probability-integral-transform histogram and its chi-square
+  // test (>= 2). Default 20. A failed PIT test becomes a warning only with at
+  // least 5 bars expected a bin.
+  int pit_bins = 20;
   // Significance level below which a test p-value becomes a warning. Default 0.05.
   double warn_p_value = 0.05;
 };
@@ -179,14 +200,61 @@ enum class TrafficLightZone { kGreen, kYellow, kRed, kNotApplicable };
 // "green", "yellow", "red", "n/a".
 const char* ZoneName(TrafficLightZone zone);
 
+// What the traffic-light window counts.
+enum class ZoneBasis {
+  kDailyBars,    // at most one bar a trading day: the last N bars are N days
+  kTradingDays,  // intraday: all bars of the last N trading days, scaled thresholds
+  kBars,         // intraday with fewer than N trading days: the last N bars, read as bars
+};
+// "daily_bars", "trading_days", "bars".
+const char* ZoneBasisName(ZoneBasis basis);
+
 struct TrafficLight {
   TrafficLightZone zone = TrafficLightZone::kNotApplicable;  // of the last window
+  ZoneBasis basis = ZoneBasis::kDailyBars;
   int64_t window = 0;             // bars in the last window (<= the option's window)
+  int64_t window_days = 0;        // trading days in the last window (kTradingDays), else 0
   int64_t window_exceptions = 0;  // exceptions in the last window
-  // Over all full rolling windows (one per end bar): how many, and the share
-  // of windows in each zone (0 when there is no full window).
+  // Thresholds applied to the last window: yellow from, red from (exceptions).
+  int64_t yellow_from = 0, red_from = 0;
+  // Over all full rolling windows (one per end bar, or per end day for
+  // kTradingDays): how many, and the share of windows in each zone (0 when
+  // there is no full window).
   int64_t n_windows = 0;
   double share_green = 0, share_yellow = 0, share_red = 0;
+};
+
+// Calibration of the shocks by the probability integral transform (Diebold,
+// Gunther & Tay 1998): u_t = F(z_t) under the innovation law is i.i.d.
+// uniform on (0, 1) when the model is right.
+struct PitTest {
+  int64_t n = 0;                // bars
+  std::vector<int64_t> counts;  // histogram of u over equal bins of (0, 1)
+  // Pearson chi-square of the counts against n / bins each, bins - 1 degrees
+  // of freedom, and its upper-tail p-value.
+  double chi2 = 0, chi2_p = 1;
+  int chi2_dof = 0;
+  // Kolmogorov-Smirnov distance sup |F_n(u) - u| and its p-value from the
+  // limiting Kolmogorov distribution of sqrt(n) D (asymptotic; n >= 35 or so).
+  double ks_d = 0, ks_p = 1;
+};
+
+// The bars of the session in up to 12 equal segments (needs bar-of-session
+// indices): mean z^2 and the VaR exceptions by time of day.
+struct TimeOfDaySegment {
+  int first_bar = 0, last_bar = 0;  // bar-of-session indices covered
+  int64_t bars = 0;                 // bars with a finite z
+  double mean_z2 = 0;               // NaN when bars == 0
+  double profile_s2 = 0;            // mean intraday profile factor (NaN without a profile)
+  // Per risk level (SymbolHistory::risk_levels order): bars whose previous bar
+  // of the same session gave a VaR limit, and the exceptions among them.
+  std::vector<int64_t> eligible, exceptions;
+};
+struct TimeOfDay {
+  int session_bars = 0;                    // K, bars a session
+  bool profile = false;                    // a seasonal profile was in force at the end
+  bool deseasonalized_only = false;        // statistics over the deseasonalized bars only
+  std::vector<TimeOfDaySegment> segments;  // empty when not intraday
 };
 
 // Backtest of one confidence level.
@@ -238,6 +306,8 @@ struct SymbolEvaluation {
   std::optional<ForecastLoss> vs_rv;  // against realized variance (bars with rv), "rv"
   std::vector<LevelBacktest> levels;  // one per SymbolHistory::risk_levels entry
   ShockMoments z;
+  PitTest pit;                     // under SymbolHistory::law (the latest model's law)
+  TimeOfDay time_of_day;           // segments empty without bar-of-session indices
   std::vector<AlertCount> alerts;  // sorted by kind, then severity
   int64_t alerts_total = 0;
   SwapSummary swaps;
@@ -262,10 +332,40 @@ absl::StatusOr<ExceptionTests> TestExceptions(absl::Span<const uint8_t> exceptio
 // Zone of `exceptions` in one window under the options' thresholds.
 TrafficLightZone ZoneOf(int64_t exceptions, const EvaluationOptions& options);
 
-// Last-window zone and rolling-window shares of an exception sequence.
-// InvalidArgument on an empty sequence or a window < 1.
+// Last-window zone and rolling-window shares of an exception sequence, over
+// windows of options.traffic_light_window bars with the fixed thresholds
+// (basis kDailyBars). InvalidArgument on an empty sequence or a window < 1.
 absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exceptions,
                                                   const EvaluationOptions& options);
+
+// Zone thresholds for `bars` draws at tail probability `tail_prob`: yellow
+// from the first k with P(X <= k) >= options.zone_yellow_probability, red from
+// the first k with P(X <= k) >= options.zone_red_probability, X ~ Binomial(bars,
+// tail_prob). REQUIRES: bars >= 1, 0 < tail_prob < 1.
+std::pair<int64_t, int64_t> ZoneThresholds(int64_t bars, double tail_prob,
+                                           const EvaluationOptions& options);
+
+// The zone over the bars of the last options.zone_window_days trading days:
+// day[i] is the trading-day number of exceptions[i] (nondecreasing). Rolling
+// windows end at each day. Basis kTradingDays; zone n/a with fewer days.
+// InvalidArgument on empty or mismatched input or zone_window_days < 1.
+absl::StatusOr<TrafficLight> EvaluateTrafficLightByDays(absl::Span<const uint8_t> exceptions,
+                                                        absl::Span<const int64_t> day,
+                                                        double tail_prob,
+                                                        const EvaluationOptions& options);
+
+// Trading-day number of every bar of `history` (0 for the first bar): a new
+// day where the bar-of-session index restarts (both bars have one), else where
+// the UTC calendar date changes.
+std::vector<int64_t> TradingDays(const SymbolHistory& history);
+
+// PIT histogram and uniformity tests of `z` under `law`. InvalidArgument when
+// no z is finite or bins < 2. Non-finite z (and cdf values) are skipped.
+absl::StatusOr<PitTest> TestPit(absl::Span<const double> z, const InnovationLaw& law, int bins);
+
+// Upper tail of the limiting Kolmogorov distribution, P(K > x) =
+// 2 sum_{k>=1} (-1)^(k-1) exp(-2 k^2 x^2); 1 for x <= 0.
+double KolmogorovSurvival(double x);
 
 // OLS of y on h with both standard errors. InvalidArgument when the lengths
 // differ, n < 3, a value is not finite, or h has no spread.

@@ -46,10 +46,9 @@ struct ReportOptions {
   double periods_per_year = 0;
   // Most points drawn per series (>= 100). Default 2000.
   int max_points = 2000;
-  // Width of the return band, in conditional standard deviations. Default 2.
-  double band_sigmas = 2.0;
-  // Level of the -VaR band and of the overview's exception column; must be one
-  // of the histories' risk levels to be drawn. Default 0.99.
+  // Level of the VaR limit drawn against the losses, of the overview's
+  // exception column and of the time-of-day exceptions; must be one of the
+  // histories' risk levels to be drawn. Default 0.99.
   double var_level = 0.99;
   // Passed to EvaluateSymbol.
   EvaluationOptions evaluation;

@@ -1,10 +1,12 @@
 #include "aftershock/evaluation.h"
 
 #include <algorithm>
+#include <boost/math/distributions/binomial.hpp>
 #include <boost/math/distributions/chi_squared.hpp>
 #include <cmath>
 #include <limits>
 #include <map>
+#include <tuple>
 #include <utility>
 
 #include "absl/strings/str_cat.h"
@@ -38,6 +40,53 @@ const char* ZoneName(TrafficLightZone zone) {
       break;
   }
   return "n/a";
+}
+
+const char* ZoneBasisName(ZoneBasis basis) {
+  switch (basis) {
+    case ZoneBasis::kDailyBars:
+      return "daily_bars";
+    case ZoneBasis::kTradingDays:
+      return "trading_days";
+    case ZoneBasis::kBars:
+      break;
+  }
+  return "bars";
+}
+
+double KolmogorovSurvival(double x) {
+  if (!(x > 0.0)) return 1.0;
+  // For x < 0.18, P(K <= x) = sqrt(2 pi) / x sum exp(-(2k-1)^2 pi^2 / (8 x^2))
+  // is below 1e-15: the tail is 1 in double precision, and the alternating
+  // series below would converge slowly there.
+  if (x < 0.18) return 1.0;
+  double sum = 0.0;
+  for (int k = 1; k <= 200; ++k) {
+    const double term = std::exp(-2.0 * k * k * x * x);
+    sum += (k % 2 == 1 ? term : -term);
+    if (term < 1e-17) break;
+  }
+  return std::clamp(2.0 * sum, 0.0, 1.0);
+}
+
+std::pair<int64_t, int64_t> ZoneThresholds(int64_t bars, double tail_prob,
+                                           const EvaluationOptions& options) {
+  const boost::math::binomial_distribution<double> d(static_cast<double>(bars), tail_prob);
+  // Smallest k in [0, bars] with P(X <= k) >= q (the cdf is nondecreasing in k);
+  // bars + 1 when even P(X <= bars) = 1 falls short (q > 1).
+  auto first_at = [&](double q) -> int64_t {
+    int64_t lo = 0, hi = bars + 1;
+    while (lo < hi) {
+      const int64_t mid = lo + (hi - lo) / 2;
+      if (boost::math::cdf(d, static_cast<double>(mid)) >= q) {
+        hi = mid;
+      } else {
+        lo = mid + 1;
+      }
+    }
+    return lo;
+  };
+  return {first_at(options.zone_yellow_probability), first_at(options.zone_red_probability)};
 }
 
 double ChiSquaredSurvival(double x, double dof) {
@@ -123,6 +172,8 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exce
   const int64_t w = options.traffic_light_window;
   TrafficLight tl;
   tl.window = std::min(n, w);
+  tl.yellow_from = options.yellow_from;
+  tl.red_from = options.red_from;
   for (int64_t i = n - tl.window; i < n; ++i) tl.window_exceptions += exceptions[i];
   if (n < w) return tl;  // zone stays n/a: the framework needs a full window
   tl.zone = ZoneOf(tl.window_exceptions, options);
@@ -150,6 +201,207 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exce
   tl.share_red = red / nw;
   return tl;
 }
+
+absl::StatusOr<TrafficLight> EvaluateTrafficLightByDays(absl::Span<const uint8_t> exceptions,
+                                                        absl::Span<const int64_t> day,
+                                                        double tail_prob,
+                                                        const EvaluationOptions& options) {
+  if (exceptions.empty() || exceptions.size() != day.size()) {
+    return absl::InvalidArgumentError(absl::StrCat("traffic light by days: ", exceptions.size(),
+                                                   " exception entries and ", day.size(),
+                                                   " day numbers"));
+  }
+  if (options.zone_window_days < 1) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("traffic light by days: window ", options.zone_window_days, " is < 1"));
+  }
+  if (!(tail_prob > 0.0 && tail_prob < 1.0)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("traffic light by days: tail probability ", tail_prob, " is not in (0, 1)"));
+  }
+  // Per distinct day (in order): bars and exceptions.
+  std::vector<int64_t> bars_of, exc_of;
+  for (size_t i = 0; i < day.size(); ++i) {
+    if (i > 0 && day[i] < day[i - 1]) {
+      return absl::InvalidArgumentError(
+          absl::StrCat("traffic light by days: day numbers decrease at entry ", i));
+    }
+    if (i == 0 || day[i] != day[i - 1]) {
+      bars_of.push_back(0);
+      exc_of.push_back(0);
+    }
+    ++bars_of.back();
+    exc_of.back() += exceptions[i] ? 1 : 0;
+  }
+  const int64_t nd = static_cast<int64_t>(bars_of.size());
+  const int64_t w = options.zone_window_days;
+  TrafficLight tl;
+  tl.basis = ZoneBasis::kTradingDays;
+  tl.window_days = std::min(nd, w);
+  for (int64_t d = nd - tl.window_days; d < nd; ++d) {
+    tl.window += bars_of[d];
+    tl.window_exceptions += exc_of[d];
+  }
+  std::map<int64_t, std::pair<int64_t, int64_t>> cache;  // window bars -> thresholds
+  auto thresholds = [&](int64_t bars) {
+    auto it = cache.find(bars);
+    if (it == cache.end()) it = cache.emplace(bars, ZoneThresholds(bars, tail_prob, options)).first;
+    return it->second;
+  };
+  std::tie(tl.yellow_from, tl.red_from) = thresholds(tl.window);
+  if (nd < w) return tl;  // zone stays n/a: the framework needs a full window
+  auto zone_of = [&](int64_t x, int64_t bars) {
+    const auto [y, r] = thresholds(bars);
+    return x >= r ? TrafficLightZone::kRed
+                  : (x >= y ? TrafficLightZone::kYellow : TrafficLightZone::kGreen);
+  };
+  tl.zone = zone_of(tl.window_exceptions, tl.window);
+  int64_t in_bars = 0, in_exc = 0, green = 0, yellow = 0, red = 0;
+  for (int64_t d = 0; d < nd; ++d) {
+    in_bars += bars_of[d];
+    in_exc += exc_of[d];
+    if (d >= w) {
+      in_bars -= bars_of[d - w];
+      in_exc -= exc_of[d - w];
+    }
+    if (d + 1 < w) continue;
+    switch (zone_of(in_exc, in_bars)) {
+      case TrafficLightZone::kGreen:
+        ++green;
+        break;
+      case TrafficLightZone::kYellow:
+        ++yellow;
+        break;
+      default:
+        ++red;
+        break;
+    }
+  }
+  tl.n_windows = nd - w + 1;
+  const double nw = static_cast<double>(tl.n_windows);
+  tl.share_green = green / nw;
+  tl.share_yellow = yellow / nw;
+  tl.share_red = red / nw;
+  return tl;
+}
+
+std::vector<int64_t> TradingDays(const SymbolHistory& h) {
+  const size_t n = h.t_ns.size();
+  const bool sessions = h.session_bar.size() == n;
+  std::vector<int64_t> day(n, 0);
+  auto utc_day = [](int64_t t_ns) {
+    // Floor division: bars before 1970 still get distinct, ordered days.
+    constexpr int64_t kDayNs = 86400LL * 1000000000LL;
+    return t_ns >= 0 ? t_ns / kDayNs : -((-t_ns + kDayNs - 1) / kDayNs);
+  };
+  for (size_t i = 1; i < n; ++i) {
+    bool new_day;
+    if (sessions && h.session_bar[i] >= 0 && h.session_bar[i - 1] >= 0) {
+      new_day = h.session_bar[i] <= h.session_bar[i - 1];
+    } else {
+      new_day = utc_day(h.t_ns[i]) != utc_day(h.t_ns[i - 1]);
+    }
+    day[i] = day[i - 1] + (new_day ? 1 : 0);
+  }
+  return day;
+}
+
+absl::StatusOr<PitTest> TestPit(absl::Span<const double> z, const InnovationLaw& law, int bins) {
+  if (bins < 2) {
+    return absl::InvalidArgumentError(absl::StrCat("PIT test: ", bins, " bins, expected >= 2"));
+  }
+  std::vector<double> u;
+  u.reserve(z.size());
+  for (double v : z) {
+    if (!IsFinite(v)) continue;
+    const double p = law.Cdf(v);
+    if (IsFinite(p)) u.push_back(std::clamp(p, 0.0, 1.0));
+  }
+  if (u.empty()) return absl::InvalidArgumentError("PIT test: no finite shock");
+  PitTest t;
+  t.n = static_cast<int64_t>(u.size());
+  t.counts.assign(bins, 0);
+  for (double v : u) {
+    ++t.counts[std::min(bins - 1, static_cast<int>(std::floor(v * bins)))];
+  }
+  const double n = static_cast<double>(t.n);
+  const double expected = n / bins;
+  for (int64_t c : t.counts) t.chi2 += (c - expected) * (c - expected) / expected;
+  t.chi2_dof = bins - 1;
+  t.chi2_p = ChiSquaredSurvival(t.chi2, t.chi2_dof);
+  // D = max over the order statistics of max(i/n - u_(i), u_(i) - (i-1)/n).
+  std::sort(u.begin(), u.end());
+  for (size_t i = 0; i < u.size(); ++i) {
+    const double above = static_cast<double>(i + 1) / n - u[i];
+    const double below = u[i] - static_cast<double>(i) / n;
+    t.ks_d = std::max({t.ks_d, above, below});
+  }
+  t.ks_p = KolmogorovSurvival(std::sqrt(n) * t.ks_d);
+  return t;
+}
+
+namespace {
+
+// The bars of the session in up to 12 segments: mean z^2, the profile and the
+// exceptions at every level (the VaR of the previous bar of the same session).
+// Warm-up bars are left out under exclude_warmup; once the filter ran
+// deseasonalized, only those bars count (the table then shows how well the
+// profile in force calibrates each time of day).
+TimeOfDay ComputeTimeOfDay(const SymbolHistory& h, const EvaluationOptions& options) {
+  TimeOfDay tod;
+  const size_t n = h.t_ns.size();
+  if (h.session_bar.size() != n || n == 0) return tod;
+  int K = static_cast<int>(h.seasonal_factors.size());
+  for (int32_t k : h.session_bar) K = std::max(K, k + 1);
+  if (K < 2) return tod;
+  tod.session_bars = K;
+  tod.profile = !h.seasonal_factors.empty();
+  const int segs = std::min(K, 12);
+  auto seg_of = [&](int k) { return static_cast<int>(static_cast<int64_t>(k) * segs / K); };
+  for (uint32_t f : h.flags)
+    tod.deseasonalized_only = tod.deseasonalized_only || (f & kFlagSeasonal);
+  const size_t nl = h.risk_levels.size();
+  tod.segments.resize(segs);
+  std::vector<double> z2(segs, 0.0), s2(segs, 0.0);
+  std::vector<int64_t> ns2(segs, 0);
+  for (int g = 0; g < segs; ++g) {
+    TimeOfDaySegment& sg = tod.segments[g];
+    sg.first_bar = static_cast<int>((static_cast<int64_t>(g) * K + segs - 1) / segs);
+    sg.last_bar = static_cast<int>((static_cast<int64_t>(g + 1) * K + segs - 1) / segs) - 1;
+    sg.eligible.assign(nl, 0);
+    sg.exceptions.assign(nl, 0);
+  }
+  for (size_t i = 0; i < n; ++i) {
+    const int k = h.session_bar[i];
+    if (k < 0 || k >= K) continue;
+    if (options.exclude_warmup && (h.flags[i] & kFlagWarmup)) continue;
+    if (tod.deseasonalized_only && !(h.flags[i] & kFlagSeasonal)) continue;
+    TimeOfDaySegment& sg = tod.segments[seg_of(k)];
+    if (IsFinite(h.z[i])) {
+      z2[seg_of(k)] += h.z[i] * h.z[i];
+      ++sg.bars;
+    }
+    if (i == 0 || (h.flags[i] & kFlagGap)) continue;
+    for (size_t l = 0; l < nl; ++l) {
+      const double v = h.var_risk_next[l][i - 1];
+      if (!IsFinite(v)) continue;
+      ++sg.eligible[l];
+      if (h.r[i] < -v) ++sg.exceptions[l];
+    }
+  }
+  for (int k = 0; k < static_cast<int>(h.seasonal_factors.size()); ++k) {
+    s2[seg_of(k)] += h.seasonal_factors[k];
+    ++ns2[seg_of(k)];
+  }
+  for (int g = 0; g < segs; ++g) {
+    TimeOfDaySegment& sg = tod.segments[g];
+    sg.mean_z2 = sg.bars > 0 ? z2[g] / static_cast<double>(sg.bars) : kNaN;
+    sg.profile_s2 = ns2[g] > 0 ? s2[g] / static_cast<double>(ns2[g]) : kNaN;
+  }
+  return tod;
+}
+
+}  // namespace
 
 absl::StatusOr<MincerZarnowitz> MincerZarnowitzRegression(absl::Span<const double> y,
                                                           absl::Span<const double> h) {
@@ -333,6 +585,9 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
   if (!hist.rv.empty()) {
     if (auto s = check_len(hist.rv.size(), "rv"); !s.ok()) return s;
   }
+  if (!hist.session_bar.empty()) {
+    if (auto s = check_len(hist.session_bar.size(), "session_bar"); !s.ok()) return s;
+  }
   const size_t nl = hist.risk_levels.size();
   if (hist.var_risk_next.size() != nl || hist.es_next.size() != nl) {
     return absl::InvalidArgumentError(absl::StrCat(who, nl, " risk levels but ",
@@ -425,12 +680,26 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
     ev.z.excess_kurtosis = m2 > 0 ? m4 / (m2 * m2) - 3.0 : 0.0;
   }
 
+  // Calibration by the probability integral transform.
+  {
+    std::vector<double> z;
+    z.reserve(used.size());
+    for (size_t i : used) z.push_back(hist.z[i]);
+    auto pit = TestPit(z, hist.law, options.pit_bins);
+    if (!pit.ok()) return absl::InvalidArgumentError(who + std::string(pit.status().message()));
+    ev.pit = *pit;
+  }
+  ev.time_of_day = ComputeTimeOfDay(hist, options);
+
   // VaR backtests: the forecast for bar i is the one published at bar i-1.
+  const std::vector<int64_t> days = TradingDays(hist);
   for (size_t k = 0; k < nl; ++k) {
     LevelBacktest lb;
     lb.level = hist.risk_levels[k];
     std::vector<uint8_t> hits;
+    std::vector<int64_t> hit_day;
     hits.reserve(used.size());
+    hit_day.reserve(used.size());
     double es_sum = 0;
     for (size_t i : used) {
       if (i == 0) continue;
@@ -439,6 +708,7 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
       const double loss = -hist.r[i];
       const bool hit = loss > v;
       hits.push_back(hit ? 1 : 0);
+      hit_day.push_back(days[i]);
       if (hit) lb.exception_bars.push_back(static_cast<int64_t>(i));
       const double es = hist.es_next[k][i - 1];
       if (hit && IsFinite(es) && es > 0.0) {
@@ -452,7 +722,20 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
       if (!t.ok()) return t.status();
       lb.tests = *t;
       if (std::fabs(lb.level - options.traffic_light_level) < 1e-9) {
-        auto tl = EvaluateTrafficLight(hits, options);
+        // Intraday when some trading day holds two tested bars.
+        bool intraday = false;
+        int64_t n_days = 1;
+        for (size_t j = 1; j < hit_day.size(); ++j) {
+          intraday = intraday || hit_day[j] == hit_day[j - 1];
+          n_days += hit_day[j] != hit_day[j - 1] ? 1 : 0;
+        }
+        absl::StatusOr<TrafficLight> tl;
+        if (intraday && options.zone_window_days > 0 && n_days >= options.zone_window_days) {
+          tl = EvaluateTrafficLightByDays(hits, hit_day, 1.0 - lb.level, options);
+        } else {
+          tl = EvaluateTrafficLight(hits, options);
+          if (tl.ok() && intraday) tl->basis = ZoneBasis::kBars;
+        }
         if (!tl.ok()) return tl.status();
         lb.traffic_light = *tl;
       }
@@ -491,10 +774,14 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
     }
     if (lb.traffic_light.zone == TrafficLightZone::kRed ||
         lb.traffic_light.zone == TrafficLightZone::kYellow) {
-      ev.warnings.push_back(absl::StrCat(ZoneName(lb.traffic_light.zone), " zone at ", lv, " (",
-                                         lb.traffic_light.window_exceptions,
-                                         " exceptions in the last ", lb.traffic_light.window,
-                                         " bars)"));
+      const TrafficLight& tl = lb.traffic_light;
+      ev.warnings.push_back(
+          absl::StrCat(ZoneName(tl.zone), " zone at ", lv, " (", tl.window_exceptions,
+                       " exceptions in the last ",
+                       tl.basis == ZoneBasis::kTradingDays
+                           ? absl::StrCat(tl.window_days, " trading days, ", tl.window, " bars")
+                           : absl::StrCat(tl.window, " bars"),
+                       ")"));
     }
     if (lb.tests.p_pof < options.warn_p_value) {
       ev.warnings.push_back(
@@ -504,6 +791,14 @@ absl::StatusOr<SymbolEvaluation> EvaluateSymbol(const SymbolHistory& hist,
       ev.warnings.push_back(absl::StrFormat("exceptions cluster at %s (Christoffersen p = %.3g)",
                                             lv, lb.tests.p_ind));
     }
+  }
+  // Pearson's chi-square needs about 5 expected per bin to follow its law;
+  // below that the PIT figures are shown but raise no warning.
+  if (ev.pit.n >= 5 * static_cast<int64_t>(ev.pit.counts.size()) &&
+      (ev.pit.chi2_p < options.warn_p_value || ev.pit.ks_p < options.warn_p_value)) {
+    ev.warnings.push_back(absl::StrFormat(
+        "shocks not calibrated to the innovation law (PIT chi-square p = %.3g, KS p = %.3g)",
+        ev.pit.chi2_p, ev.pit.ks_p));
   }
   if (ev.fallback_bars > 0) {
     ev.warnings.push_back(absl::StrCat(ev.fallback_bars, ev.fallback_bars == 1 ? " bar" : " bars",

@@ -23,8 +23,6 @@ using nlohmann::json;
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 constexpr size_t kMaxExceptionMarks = 4000;  // markers drawn per chart
-constexpr size_t kQqTail = 100;              // ranks kept at each end of the QQ plot
-constexpr size_t kQqBody = 400;              // evenly spaced ranks in between
 
 json Num(double v) { return std::isfinite(v) ? json(v) : json(nullptr); }
 
@@ -111,7 +109,6 @@ json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportO
     const size_t i = std::lower_bound(h.t_ns.begin(), h.t_ns.end(), t) - h.t_ns.begin();
     return static_cast<double>(std::min(i, n - 1));
   };
-  const std::vector<int64_t> used = UsableBars(h, opt.evaluation);
   const int lv = LevelIndex(h, opt.var_level);
   const double ppy = opt.periods_per_year;
   const double vol_scale = ppy > 0 ? std::sqrt(ppy) : 1.0;
@@ -120,50 +117,44 @@ json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportO
   d["time_axis"] = time_axis;
   d["law"] = LawLabel(h.law);
   d["var_level"] = LevelLabel(opt.var_level);
-  d["band_sigmas"] = opt.band_sigmas;
   d["annualized"] = ppy > 0;
   d["ppy"] = ppy;
 
-  // (a) returns, bands and exceptions; (b) volatility.
+  // (a) losses against the previous bar's VaR limit; (b) volatility. Both
+  // min/max per bucket so single-bar spikes survive the downsampling.
   const auto buckets = Buckets(n, static_cast<size_t>(opt.max_points / 2));
-  json xs = json::array(), lo = json::array(), hi = json::array(), bu = json::array(),
-       bl = json::array(), nv = json::array(), vlo = json::array(), vhi = json::array();
+  json xs = json::array(), lo = json::array(), hi = json::array(), llo = json::array(),
+       lhi = json::array(), vlo = json::array(), vhi = json::array();
   for (const auto& [b, e] : buckets) {
-    MinMax r, up, dn, var, vol;
+    MinMax loss, limit, vol;
     for (size_t i = b; i < e; ++i) {
-      r.Add(h.r[i]);
-      if (h.var[i] > 0) {
-        const double sd = std::sqrt(h.var[i]);
-        up.Add(h.mu[i] + opt.band_sigmas * sd);
-        dn.Add(h.mu[i] - opt.band_sigmas * sd);
-        vol.Add(sd * vol_scale);
-      }
-      if (lv >= 0 && i > 0) var.Add(-h.var_risk_next[lv][i - 1]);
+      loss.Add(-h.r[i]);
+      if (h.var[i] > 0) vol.Add(std::sqrt(h.var[i]) * vol_scale);
+      if (lv >= 0 && i > 0) limit.Add(h.var_risk_next[lv][i - 1]);
     }
     xs.push_back(x_of(b));
-    lo.push_back(Num(r.lo));
-    hi.push_back(Num(r.hi));
-    bu.push_back(Num(up.hi));
-    bl.push_back(Num(dn.lo));
-    nv.push_back(Num(var.lo));
+    lo.push_back(Num(loss.lo));
+    hi.push_back(Num(loss.hi));
+    llo.push_back(Num(limit.lo));
+    lhi.push_back(Num(limit.hi));
     vlo.push_back(Num(vol.lo));
     vhi.push_back(Num(vol.hi));
   }
   json exc = json::array();
   int64_t n_exc = 0;
   if (lv >= 0) {
-    for (int64_t i : used) {
-      if (i == 0) continue;
-      const double v = h.var_risk_next[lv][i - 1];
-      if (std::isfinite(v) && -h.r[i] > v) {
-        ++n_exc;
-        if (exc.size() < kMaxExceptionMarks) exc.push_back({x_of(i), h.r[i]});
-      }
+    for (int64_t i : ev.levels[lv].exception_bars) {
+      ++n_exc;
+      if (exc.size() < kMaxExceptionMarks) exc.push_back({x_of(i), -h.r[i]});
     }
   }
-  d["returns"] = {{"x", xs},    {"lo", lo},      {"hi", hi},
-                  {"bu", bu},   {"bl", bl},      {"nv", lv >= 0 ? nv : json(nullptr)},
-                  {"exc", exc}, {"n_exc", n_exc}};
+  d["losses"] = {{"x", xs},
+                 {"lo", lo},
+                 {"hi", hi},
+                 {"limit_lo", lv >= 0 ? llo : json(nullptr)},
+                 {"limit_hi", lv >= 0 ? lhi : json(nullptr)},
+                 {"exc", exc},
+                 {"n_exc", n_exc}};
   json regimes = json::array();
   for (const auto& g : h.regimes)
     regimes.push_back({x_at(g.start_ns), x_at(g.end_ns), g.direction});
@@ -172,52 +163,34 @@ json ChartData(const SymbolHistory& h, const SymbolEvaluation& ev, const ReportO
   d["vol"] = {{"x", xs}, {"lo", vlo}, {"hi", vhi}, {"regimes", regimes}, {"swaps", swaps}};
   *charts += 2;
 
-  // (c) QQ plot and (d) histogram of z.
-  std::vector<double> z;
-  z.reserve(used.size());
-  for (int64_t i : used) z.push_back(h.z[i]);
-  std::sort(z.begin(), z.end());
-  const size_t m = z.size();
-  json qq = json::array();
-  auto add_rank = [&](size_t k) {
-    const double p = (static_cast<double>(k) + 0.5) / static_cast<double>(m);
-    const double q = h.law.Quantile(p);
-    if (std::isfinite(q)) qq.push_back({q, z[k]});
-  };
-  if (m <= 2 * kQqTail + kQqBody) {
-    for (size_t k = 0; k < m; ++k) add_rank(k);
+  // (c) calibration of the shocks: PIT histogram and its uniformity tests.
+  const PitTest& pit = ev.pit;
+  d["pit"] = {{"counts", pit.counts},      {"n", pit.n},
+              {"chi2", Num(pit.chi2)},     {"dof", pit.chi2_dof},
+              {"chi2_p", Num(pit.chi2_p)}, {"ks_d", Num(pit.ks_d)},
+              {"ks_p", Num(pit.ks_p)}};
+  *charts += 1;
+
+  // (d) exceptions and mean z^2 by time of day (intraday histories only).
+  const TimeOfDay& tod = ev.time_of_day;
+  if (!tod.segments.empty()) {
+    json segs = json::array();
+    for (const TimeOfDaySegment& g : tod.segments) {
+      const int64_t el = lv >= 0 ? g.eligible[lv] : 0;
+      const int64_t ex = lv >= 0 ? g.exceptions[lv] : 0;
+      const double expected = (1.0 - opt.var_level) * static_cast<double>(el);
+      segs.push_back({{"bars", absl::StrCat(g.first_bar, "\xE2\x80\x93", g.last_bar)},
+                      {"n", g.bars},
+                      {"mean_z2", Num(g.mean_z2)},
+                      {"exceptions", ex},
+                      {"expected", expected},
+                      {"ratio", expected > 0 ? Num(ex / expected) : json(nullptr)}});
+    }
+    d["tod"] = {{"session_bars", tod.session_bars}, {"segments", segs}};
+    *charts += 1;
   } else {
-    for (size_t k = 0; k < kQqTail; ++k) add_rank(k);
-    for (size_t j = 0; j < kQqBody; ++j) {
-      add_rank(kQqTail + j * (m - 2 * kQqTail) / kQqBody);
-    }
-    for (size_t k = m - kQqTail; k < m; ++k) add_rank(k);
+    d["tod"] = nullptr;
   }
-  d["qq"] = qq;
-  const double half = std::max(4.0, std::min(8.0, std::ceil(ev.z.max_abs)));
-  const int nbins = static_cast<int>(std::lround(half * 2 / 0.25));
-  const double width = 2 * half / nbins;
-  std::vector<int64_t> counts(nbins, 0);
-  int64_t outside = 0;
-  for (double v : z) {
-    const int b = static_cast<int>(std::floor((v + half) / width));
-    if (b >= 0 && b < nbins) {
-      ++counts[b];
-    } else {
-      ++outside;
-    }
-  }
-  json dens = json::array(), curve = json::array();
-  for (int b = 0; b < nbins; ++b) {
-    dens.push_back(m > 0 ? counts[b] / (static_cast<double>(m) * width) : 0.0);
-  }
-  for (int k = 0; k <= 240; ++k) {
-    const double x = -half + 2 * half * k / 240.0;
-    curve.push_back({x, Num(h.law.Density(x))});
-  }
-  d["hist"] = {{"lo", -half},    {"width", width},     {"density", dens},
-               {"curve", curve}, {"outside", outside}, {"n", m}};
-  *charts += 2;
 
   // (e) parameter history across accepted refits.
   std::vector<std::string> names;
@@ -266,6 +239,22 @@ int ZoneRank(TrafficLightZone z) {
   }
 }
 
+// What the zone counted, in words: "4 in the last 250 bars; yellow from 5, red
+// from 10" or "1012 in the last 250 trading days (97500 bars); yellow from
+// 1026, red from 1093".
+std::string ZoneWindowText(const TrafficLight& tl) {
+  std::string s = absl::StrCat(tl.window_exceptions, " in the last ");
+  if (tl.basis == ZoneBasis::kTradingDays) {
+    absl::StrAppend(&s, tl.window_days, " trading days (", tl.window, " bars)");
+  } else {
+    absl::StrAppend(&s, tl.window, tl.basis == ZoneBasis::kDailyBars ? " daily bars" : " bars");
+  }
+  if (tl.red_from > 0) {
+    absl::StrAppend(&s, "; yellow from ", tl.yellow_from, ", red from ", tl.red_from);
+  }
+  return s;
+}
+
 std::string Td(const std::string& text, const std::string& key = "", bool num = true) {
   return absl::StrCat("<td", num ? " class=\"num\"" : "",
                       key.empty() ? "" : absl::StrCat(" data-v=\"", HtmlEscape(key), "\""), ">",
@@ -289,10 +278,8 @@ std::string BacktestTable(const SymbolEvaluation& ev) {
         tl.n_windows > 0 ? absl::StrFormat("%.1f / %.1f / %.1f %% of %d", 100 * tl.share_green,
                                            100 * tl.share_yellow, 100 * tl.share_red, tl.n_windows)
                          : "\xE2\x80\x93";
-    std::string zone =
-        tl.zone == TrafficLightZone::kNotApplicable
-            ? ZoneChip(tl.zone)
-            : absl::StrCat(ZoneChip(tl.zone), " ", tl.window_exceptions, " in ", tl.window);
+    std::string zone = ZoneChip(tl.zone);
+    if (tl.window > 0) absl::StrAppend(&zone, " ", ZoneWindowText(tl));
     absl::StrAppend(&s, "<tr>", Td(LevelLabel(lb.level)), Td(absl::StrCat(t.n)),
                     Td(absl::StrCat(t.exceptions, " (",
                                     Fmt(t.tail_prob * static_cast<double>(t.n), "%.1f"), ")")),
@@ -383,84 +370,63 @@ std::string SwapTable(const SymbolHistory& h, const SymbolEvaluation& ev) {
   return s;
 }
 
-// Intraday view: the bars of the session in up to 12 equal segments, with the
-// symbol's final time-of-day profile (mean s^2 of the segment, drawn as a bar),
-// mean z^2 and the VaR exceptions at var_level against their expected count
-// (forecast made at the previous bar of the same session). Empty when the
+// Intraday view (EvaluateSymbol's TimeOfDay): per segment of the session the
+// profile s^2 in force at the end (drawn as a bar), mean z^2 and the VaR
+// exceptions at var_level against their expected count. Empty when the
 // history has no bar-of-session indices.
-std::string TimeOfDayTable(const SymbolHistory& h, const ReportOptions& opt) {
-  const size_t n = h.t_ns.size();
-  if (h.session_bar.size() != n || n == 0) return "";
-  int K = static_cast<int>(h.seasonal_factors.size());
-  for (int32_t k : h.session_bar) K = std::max(K, k + 1);
-  if (K < 2) return "";
-  const int segs = std::min(K, 12);
-  auto seg_of = [&](int k) { return static_cast<int>(static_cast<int64_t>(k) * segs / K); };
+std::string TimeOfDayTable(const SymbolHistory& h, const SymbolEvaluation& ev,
+                           const ReportOptions& opt) {
+  const TimeOfDay& tod = ev.time_of_day;
+  if (tod.segments.empty()) return "";
   const int lv = LevelIndex(h, opt.var_level);
-  // Once the filter was deseasonalized, only those bars: the table then shows
-  // how well the profile in force calibrates each time of day.
-  bool seasonal_only = false;
-  for (uint32_t f : h.flags) seasonal_only = seasonal_only || (f & kFlagSeasonal);
-  std::vector<double> z2(segs, 0.0), s2(segs, 0.0);
-  std::vector<int64_t> nz(segs, 0), nexc(segs, 0), nelig(segs, 0), ns2(segs, 0);
-  for (size_t i = 0; i < n; ++i) {
-    const int k = h.session_bar[i];
-    if (k < 0 || k >= K) continue;
-    if (opt.evaluation.exclude_warmup && (h.flags[i] & kFlagWarmup)) continue;
-    if (seasonal_only && !(h.flags[i] & kFlagSeasonal)) continue;
-    const int g = seg_of(k);
-    if (std::isfinite(h.z[i])) {
-      z2[g] += h.z[i] * h.z[i];
-      ++nz[g];
-    }
-    if (lv >= 0 && i > 0 && !(h.flags[i] & kFlagGap)) {
-      const double v = h.var_risk_next[lv][i - 1];
-      if (std::isfinite(v)) {
-        ++nelig[g];
-        if (h.r[i] < -v) ++nexc[g];
-      }
-    }
-  }
-  for (int k = 0; k < static_cast<int>(h.seasonal_factors.size()); ++k) {
-    s2[seg_of(k)] += h.seasonal_factors[k];
-    ++ns2[seg_of(k)];
-  }
   double s2_max = 0;
-  for (int g = 0; g < segs; ++g) {
-    if (ns2[g] > 0) s2[g] /= static_cast<double>(ns2[g]);
-    s2_max = std::max(s2_max, s2[g]);
+  for (const auto& g : tod.segments) {
+    if (std::isfinite(g.profile_s2)) s2_max = std::max(s2_max, g.profile_s2);
   }
-  const bool profile = !h.seasonal_factors.empty();
-  std::string s = absl::StrCat(
-      "<table class=\"grid\"><caption>By time of day (", K, " bars a session in ", segs,
-      " segments; ", profile ? "profile s&sup2; in force at the end" : "no intraday profile",
-      seasonal_only ? "; statistics over the deseasonalized bars" : "",
-      ")</caption><thead><tr><th>bars of the session</th><th>profile s&sup2;</th>"
-      "<th>bars</th><th>mean z&sup2;</th><th>exceptions @",
-      LevelLabel(opt.var_level), " (expected)</th></tr></thead><tbody>");
-  for (int g = 0; g < segs; ++g) {
-    const int first = static_cast<int>((static_cast<int64_t>(g) * K + segs - 1) / segs);
-    const int last = static_cast<int>((static_cast<int64_t>(g + 1) * K + segs - 1) / segs) - 1;
+  std::string s =
+      absl::StrCat("<table class=\"grid\"><caption>By time of day (", tod.session_bars,
+                   " bars a session in ", tod.segments.size(), " segments; ",
+                   tod.profile ? "profile s&sup2; in force at the end" : "no intraday profile",
+                   tod.deseasonalized_only ? "; statistics over the deseasonalized bars" : "",
+                   ")</caption><thead><tr><th>bars of the session</th><th>profile s&sup2;</th>"
+                   "<th>bars</th><th>mean z&sup2;</th><th>exceptions @",
+                   LevelLabel(opt.var_level), " (expected)</th></tr></thead><tbody>");
+  for (const TimeOfDaySegment& g : tod.segments) {
     std::string bar_cell = "&ndash;";
-    if (profile && ns2[g] > 0) {
-      const double width = s2_max > 0 ? 100.0 * s2[g] / s2_max : 0;
+    if (tod.profile && std::isfinite(g.profile_s2)) {
+      const double width = s2_max > 0 ? 100.0 * g.profile_s2 / s2_max : 0;
       bar_cell =
           absl::StrCat("<span class=\"tod-bar\" style=\"display:inline-block;height:0.7em;width:",
                        Fmt(0.6 * width, "%.1f"), "px;background:#6a8caf;margin-right:4px\"></span>",
-                       Fmt(s2[g], "%.3g"));
+                       Fmt(g.profile_s2, "%.3g"));
     }
     absl::StrAppend(
-        &s, "<tr>", Td(absl::StrCat(first, "&ndash;", last), "", false), Td(bar_cell, "", false),
-        Td(absl::StrCat(nz[g])),
-        Td(nz[g] > 0 ? Fmt(z2[g] / static_cast<double>(nz[g]), "%.3f") : "&ndash;"),
+        &s, "<tr>", Td(absl::StrCat(g.first_bar, "&ndash;", g.last_bar), "", false),
+        Td(bar_cell, "", false), Td(absl::StrCat(g.bars)),
+        Td(g.bars > 0 ? Fmt(g.mean_z2, "%.3f") : "&ndash;"),
         Td(lv >= 0
-               ? absl::StrCat(nexc[g], " (",
-                              Fmt((1 - opt.var_level) * static_cast<double>(nelig[g]), "%.1f"), ")")
+               ? absl::StrCat(
+                     g.exceptions[lv], " (",
+                     Fmt((1 - opt.var_level) * static_cast<double>(g.eligible[lv]), "%.1f"), ")")
                : "&ndash;"),
         "</tr>");
   }
   s += "</tbody></table>";
   return s;
+}
+
+// The calibration figures under the PIT chart, as text (the chart draws them too).
+std::string PitLine(const SymbolEvaluation& ev) {
+  const PitTest& t = ev.pit;
+  return absl::StrCat(
+      "<p class=\"meta pit\">Calibration of the shocks (probability integral transform, ", t.n,
+      " bars, ", t.counts.size(), " bins): chi-square ", Fmt(t.chi2, "%.4g"), " on ", t.chi2_dof,
+      " df, p = ", FmtP(t.chi2_p), "; Kolmogorov-Smirnov D = ", Fmt(t.ks_d, "%.4g"),
+      ", p = ", FmtP(t.ks_p), " (asymptotic).",
+      t.n < 5 * static_cast<int64_t>(t.counts.size())
+          ? " Fewer than 5 bars expected a bin: too few for the chi-square law, read with care."
+          : "",
+      "</p>");
 }
 
 }  // namespace
@@ -503,9 +469,6 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
   }
   if (!(opt.periods_per_year >= 0) || !std::isfinite(opt.periods_per_year)) {
     return absl::InvalidArgumentError("report: periods_per_year must be finite and >= 0");
-  }
-  if (!(opt.band_sigmas > 0) || !std::isfinite(opt.band_sigmas)) {
-    return absl::InvalidArgumentError("report: band_sigmas must be finite and > 0");
   }
   const std::string vol_unit =
       opt.periods_per_year > 0 ? absl::StrFormat("annualized, %g bars/year", opt.periods_per_year)
@@ -567,7 +530,17 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     const LevelBacktest* b = lv >= 0 ? &ev->levels[lv] : nullptr;
     const double last_vol = std::sqrt(ev->last_var_next) *
                             (opt.periods_per_year > 0 ? std::sqrt(opt.periods_per_year) : 1.0);
-    const TrafficLightZone zone = b ? b->traffic_light.zone : TrafficLightZone::kNotApplicable;
+    // The zone is the traffic-light level's (which may differ from var_level).
+    TrafficLightZone zone = TrafficLightZone::kNotApplicable;
+    std::string zone_basis;
+    for (const LevelBacktest& l : ev->levels) {
+      if (std::fabs(l.level - opt.evaluation.traffic_light_level) > 1e-9) continue;
+      zone = l.traffic_light.zone;
+      if (l.traffic_light.window > 0) {
+        zone_basis = absl::StrCat("<br><small class=\"basis\">", ZoneWindowText(l.traffic_light),
+                                  "</small>");
+      }
+    }
     std::string warn_text =
         ev->warnings.empty() ? std::string("none") : HtmlEscape(absl::StrJoin(ev->warnings, "; "));
     // The limits in force for the next bar: VaR / ES at every level.
@@ -584,18 +557,19 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     if (!h.regimes.empty() && !h.t_ns.empty() && h.regimes.back().end_ns >= h.t_ns.back()) {
       regime = h.regimes.back().direction > 0 ? "high" : "low";
     }
-    absl::StrAppend(&overview, "<tr>",
-                    Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
-                    Td(ZoneChip(zone), absl::StrCat(ZoneRank(zone)), false),
-                    Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
-                       b ? absl::StrCat(b->tests.exceptions) : ""),
-                    Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
-                    Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
-                    Td(absl::StrCat(ev->alerts_total), absl::StrCat(ev->alerts_total)),
-                    Td(regime, regime, false), Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
-                    Td(limits, "", false), Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
-                    Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
-                    Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
+    absl::StrAppend(
+        &overview, "<tr>",
+        Td(absl::StrCat("<a href=\"#", anchor, "\">", sym, "</a>"), h.symbol, false),
+        Td(absl::StrCat(ZoneChip(zone), zone_basis), absl::StrCat(ZoneRank(zone)), false),
+        Td(b ? absl::StrCat(b->tests.exceptions, " / ", b->tests.n) : "\xE2\x80\x93",
+           b ? absl::StrCat(b->tests.exceptions) : ""),
+        Td(b ? FmtP(b->tests.p_pof) : "\xE2\x80\x93", b ? SortKey(b->tests.p_pof) : ""),
+        Td(b ? FmtP(b->tests.p_ind) : "\xE2\x80\x93", b ? SortKey(b->tests.p_ind) : ""),
+        Td(absl::StrCat(ev->alerts_total), absl::StrCat(ev->alerts_total)),
+        Td(regime, regime, false), Td(Fmt(last_vol, "%.4g"), SortKey(last_vol)),
+        Td(limits, "", false), Td(absl::StrCat(ev->bars), absl::StrCat(ev->bars)),
+        Td(Fmt(ev->vs_r2.qlike, "%.5g"), SortKey(ev->vs_r2.qlike)),
+        Td(warn_text, absl::StrCat(ev->warnings.size()), false), "</tr>");
     rows.push_back({ZoneRank(zone), b && std::isfinite(b->tests.p_pof) ? b->tests.p_pof : 1.0,
                     ev->alerts_total, si, overview});
 
@@ -617,9 +591,9 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
     }
     absl::StrAppend(&sections, "<div class=\"charts\" data-symbol-index=\"", si,
                     "\" data-charts=\"", charts - before, "\"></div>");
-    absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), TimeOfDayTable(h, opt),
-                    ForecastTable(*ev), "<div class=\"pair\">", AlertTable(*ev), "</div>",
-                    SwapTable(h, *ev), "</div></section>");
+    absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), PitLine(*ev),
+                    TimeOfDayTable(h, *ev, opt), ForecastTable(*ev), "<div class=\"pair\">",
+                    AlertTable(*ev), "</div>", SwapTable(h, *ev), "</div></section>");
   }
 
   std::stable_sort(rows.begin(), rows.end(), [](const OverviewRow& a, const OverviewRow& b) {
@@ -673,12 +647,24 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
       "<p class=\"hint\">Worst first: traffic-light zone, then the coverage test (Kupiec p), "
       "then alerts; click a column header to sort otherwise. Exceptions, Kupiec and "
       "Christoffersen at ",
-      LevelLabel(opt.var_level), "; zone over the last ", opt.evaluation.traffic_light_window,
-      " evaluated <em>bars</em> at ", LevelLabel(opt.evaluation.traffic_light_level),
-      " (green 0&ndash;", opt.evaluation.yellow_from - 1, ", yellow ", opt.evaluation.yellow_from,
-      "&ndash;", opt.evaluation.red_from - 1, ", red ", opt.evaluation.red_from,
-      "+ exceptions; the Basel zones are set for 250 trading days, so on intraday bars read "
-      "them as a count over the last bars, not as a regulatory zone). VaR / ES are the limits "
+      LevelLabel(opt.var_level),
+      ". Zone: the traffic light of the Basel Committee's 1996 "
+      "backtesting framework at ",
+      LevelLabel(opt.evaluation.traffic_light_level),
+      ", on what each row says it counted: ", "<em>daily bars</em>, the last ",
+      opt.evaluation.traffic_light_window, " bars (green 0&ndash;", opt.evaluation.yellow_from - 1,
+      ", yellow ", opt.evaluation.yellow_from, "&ndash;", opt.evaluation.red_from - 1, ", red ",
+      opt.evaluation.red_from,
+      "+ exceptions); <em>trading days</em>, intraday bars: every "
+      "exception over the bars of the last ",
+      opt.evaluation.zone_window_days,
+      " trading days, yellow from the first count k with P(X &le; k) &ge; ",
+      Fmt(100 * opt.evaluation.zone_yellow_probability, "%.4g"), " % and red from ",
+      Fmt(100 * opt.evaluation.zone_red_probability, "%.6g"),
+      " %, X binomial over that many bars (the rule behind the published 4 / 9 bounds); "
+      "<em>bars</em>, intraday bars with fewer trading days: the last ",
+      opt.evaluation.traffic_light_window,
+      " bars, a count over bars and not a regulatory zone. VaR / ES are the limits "
       "in force for the next bar, as positive losses in return units.</p>",
       "<table class=\"grid sortable\" id=\"overview\"><thead><tr>",
       "<th data-type=\"text\">symbol</th><th data-type=\"num\">zone</th>",

@@ -2,8 +2,8 @@
 
 namespace aftershock {
 
-// Palette (ours): ink #1d2533 on paper #f7f5f0; returns slate #34506e; sigma
-// band ochre #c98a2b; VaR and exceptions plum #9b2f5c; volatility pine
+// Palette (ours): ink #1d2533 on paper #f7f5f0; losses slate #34506e; bands
+// ochre #c98a2b; VaR and exceptions plum #9b2f5c; volatility pine
 // #1f6f6a; swaps indigo #5147a3; zones moss #4a8c3f, saffron #e0a526,
 // brick #b33a2e.
 const char kReportCss[] = R"CSS(
@@ -45,7 +45,7 @@ table.sortable th.desc::after { content:" \2193"; color:var(--ink); }
 .charts { display:flex; flex-wrap:wrap; gap:10px; }
 figure.chart { margin:0; background:#fff; }
 figure.chart.wide { flex:1 1 100%; }
-figure.chart.half { flex:1 1 calc(50% - 10px); min-width:420px; }
+figure.chart.half { flex:0 1 calc(50% - 10px); min-width:420px; }
 figure.chart svg { width:100%; height:auto; display:block; }
 .panels { display:flex; flex-wrap:wrap; gap:4px; }
 .panels > svg { flex:0 0 calc(25% - 4px); min-width:260px; max-width:420px; }
@@ -96,9 +96,10 @@ const char kReportScript[] = R"JS(
   'use strict';
   var NS = 'http://www.w3.org/2000/svg';
   var COLORS = { ret: '#34506e', band: '#c98a2b', bandFill: 'rgba(201,138,43,0.16)',
-    vr: '#9b2f5c', vol: '#1f6f6a', swap: '#5147a3', reject: '#8f8a80',
-    hiReg: 'rgba(179,58,46,0.13)', loReg: 'rgba(31,111,106,0.12)', qq: '#34506e',
-    ref: '#9b2f5c', bar: 'rgba(52,80,110,0.55)', curve: '#c98a2b', param: '#5147a3' };
+    vr: '#9b2f5c', limFill: 'rgba(155,47,92,0.14)', vol: '#1f6f6a', swap: '#5147a3',
+    swapFill: 'rgba(81,71,163,0.12)', reject: '#8f8a80', rejFill: 'rgba(143,138,128,0.14)',
+    hiReg: 'rgba(179,58,46,0.13)', loReg: 'rgba(31,111,106,0.12)', ink: '#1d2533',
+    ref: '#9b2f5c', bar: 'rgba(52,80,110,0.55)', param: '#5147a3' };
   var data = JSON.parse(document.getElementById('report-data').textContent);
   var rendered = 0;
 
@@ -202,9 +203,14 @@ const char kReportScript[] = R"JS(
     stretches.push([a, hi]);
     var out = [], last = -Infinity, minGap = 0.6 * U / n;
     stretches.forEach(function (s) {
+      var inside = false;
       for (var v = Math.ceil(s[0] / step) * step; v <= s[1]; v += step) {
+        inside = true;
         if (w.fwd(v) - last >= minGap) { out.push(v); last = w.fwd(v); }
       }
+      // A stretch shorter than the step (a short session on a long axis)
+      // offers its opening time instead, so such axes still get labels.
+      if (!inside && w.fwd(s[0]) - last >= minGap) { out.push(s[0]); last = w.fwd(s[0]); }
     });
     return { ticks: out, step: step, span: hi - lo };
   }
@@ -230,6 +236,7 @@ const char kReportScript[] = R"JS(
     } else {
       xt = niceTicks(o.x[0], o.x[1], Math.max(3, Math.floor(pw / 90))).map(function (v) { return [v, fmt(v)]; });
     }
+    if (o.noXTicks) xt = [];
     xt.forEach(function (t) {
       var X = sx(t[0]);
       el('line', { x1: X, x2: X, y1: m.t, y2: m.t + ph, 'class': 'grid' }, svg);
@@ -241,8 +248,13 @@ const char kReportScript[] = R"JS(
       txt(svg, m.l - 6, Y + 4, fmt(v), 'tick', { 'text-anchor': 'end' });
     });
     if (warp) {
+      // One dotted line per closed stretch, but none closer than 6 px to the
+      // last one drawn (hundreds of nights would grey the plot out).
+      var lastCut = -Infinity;
       warp.cuts.forEach(function (c) {
         var X = (sx(c[0]) + sx(c[1])) / 2;
+        if (X - lastCut < 6) return;
+        lastCut = X;
         el('line', { x1: X, x2: X, y1: m.t, y2: m.t + ph, 'class': 'closed' }, svg);
       });
     }
@@ -315,23 +327,65 @@ const char kReportScript[] = R"JS(
     return f;
   }
 
-  function returnsChart(host, s, idx) {
-    var R = s.returns, sig = s.band_sigmas;
+  function lossChart(host, s, idx) {
+    var L = s.losses;
     var fig = figure(host, 'wide');
-    var legend = [{ label: 'return (min/max per bucket)', color: COLORS.ret },
-      { label: '\u03bc \u00b1 ' + sig + '\u03c3', color: COLORS.bandFill, type: 'box', stroke: COLORS.band }];
-    if (R.nv) legend.push({ label: '\u2212VaR ' + s.var_level + ' (previous-bar forecast)', color: COLORS.vr, dash: '5 3' });
-    legend.push({ label: 'exception (' + R.n_exc + ')', color: COLORS.vr, type: 'dot' });
-    var f = frame(fig, { w: 1300, h: 330, title: s.symbol + ': returns with bands and VaR exceptions',
-      xlabel: s.time_axis ? 'bar end time (UTC)' : 'bar index', ylabel: 'return per bar (feed units)',
-      xtime: s.time_axis, xs: R.x, x: xRange(R.x), y: pad(extent([R.lo, R.hi, R.bu, R.bl, R.nv]), 0.04),
-      legend: legend, clip: 'clip-r' + idx });
-    el('path', { d: bandPath(R.x, R.bu, R.bl, f.sx, f.sy), fill: COLORS.bandFill, stroke: COLORS.band, 'stroke-width': 0.6 }, f.plot);
-    el('path', { d: rangePath(R.x, R.lo, R.hi, f.sx, f.sy), fill: 'none', stroke: COLORS.ret, 'stroke-width': 1 }, f.plot);
-    if (R.nv) el('path', { d: pathOf(R.x, R.nv, f.sx, f.sy), fill: 'none', stroke: COLORS.vr, 'stroke-width': 1.2, 'stroke-dasharray': '5 3' }, f.plot);
-    R.exc.forEach(function (p) {
-      el('circle', { cx: f.sx(p[0]).toFixed(1), cy: f.sy(p[1]).toFixed(1), r: 3.2, fill: 'none', stroke: COLORS.vr, 'stroke-width': 1.4 }, f.plot);
+    var legend = [{ label: 'loss \u2212r (min/max per bucket)', color: COLORS.ret }];
+    if (L.limit_lo) legend.push({ label: 'VaR ' + s.var_level + ' limit set at the previous bar', color: COLORS.limFill, type: 'box', stroke: COLORS.vr });
+    legend.push({ label: 'exception: loss above the limit (' + L.n_exc + ')', color: COLORS.vr, type: 'dot' });
+    var f = frame(fig, { w: 1300, h: 330, title: s.symbol + ': losses against the previous bar\u2019s VaR limit',
+      xlabel: s.time_axis ? 'bar end time (UTC)' : 'bar index', ylabel: 'loss per bar, \u2212r (feed units)',
+      xtime: s.time_axis, xs: L.x, x: xRange(L.x), y: pad(extent([L.lo, L.hi, L.limit_lo, L.limit_hi]), 0.04),
+      legend: legend, clip: 'clip-l' + idx });
+    el('line', { x1: f.sx(xRange(L.x)[0]), x2: f.sx(xRange(L.x)[1]), y1: f.sy(0), y2: f.sy(0), 'class': 'axis' }, f.plot);
+    el('path', { d: rangePath(L.x, L.lo, L.hi, f.sx, f.sy), fill: 'none', stroke: COLORS.ret, 'stroke-width': 1 }, f.plot);
+    if (L.limit_lo) {
+      el('path', { d: bandPath(L.x, L.limit_hi, L.limit_lo, f.sx, f.sy), fill: COLORS.limFill, stroke: COLORS.vr, 'stroke-width': 1, 'class': 'limit' }, f.plot);
+    }
+    L.exc.forEach(function (p) {
+      el('circle', { cx: f.sx(p[0]).toFixed(1), cy: f.sy(p[1]).toFixed(1), r: 3.2, fill: 'none', stroke: COLORS.vr, 'stroke-width': 1.4, 'class': 'exception' }, f.plot);
     });
+  }
+
+  // Swap marks: marks closer than MERGE_PX share one line (drawn once), and
+  // their labels go to the first of LABEL_ROWS rows where they clear the label
+  // before them; a label that fits no row joins the cluster before it, so no
+  // mark or label is drawn over another.
+  var MERGE_PX = 5, LABEL_ROWS = 3, LABEL_GAP = 4, CHAR_PX = 7.2;
+  function swapClusters(swaps, sx, measure) {
+    var marks = swaps.map(function (w) { return { X: sx(w[0]), v: w[1], ok: w[2] }; })
+      .sort(function (a, b) { return a.X - b.X; });
+    var cl = [];
+    marks.forEach(function (m) {
+      var c = cl[cl.length - 1];
+      if (c && m.X - c.x1 < MERGE_PX) { c.x1 = m.X; c.marks.push(m); } else cl.push({ x0: m.X, x1: m.X, marks: [m] });
+    });
+    function label(c) {
+      var acc = c.marks.filter(function (m) { return m.ok; }).map(function (m) { return m.v; });
+      var rej = c.marks.length - acc.length, t = '';
+      if (acc.length) t = 'v' + Math.min.apply(null, acc) + (acc.length > 1 ? '\u2013v' + Math.max.apply(null, acc) : '');
+      if (rej) t += (t ? ' ' : '') + '\u2715' + rej;
+      return t;
+    }
+    for (;;) {
+      var ends = [], clash = -1;
+      for (var i = 0; i < LABEL_ROWS; ++i) ends.push(-Infinity);
+      for (var j = 0; j < cl.length; ++j) {
+        var c = cl[j], X = (c.x0 + c.x1) / 2;
+        c.text = label(c);
+        c.w = measure(c.text);
+        c.row = -1;
+        for (var r = 0; r < LABEL_ROWS; ++r) {
+          if (X + 3 >= ends[r] + LABEL_GAP) { c.row = r; ends[r] = X + 3 + c.w; break; }
+        }
+        if (c.row < 0) { clash = j; break; }
+      }
+      if (clash < 0) return cl;
+      var prev = cl[clash - 1];
+      prev.marks = prev.marks.concat(cl[clash].marks);
+      prev.x1 = cl[clash].x1;
+      cl.splice(clash, 1);
+    }
   }
 
   function volChart(host, s, idx) {
@@ -340,9 +394,9 @@ const char kReportScript[] = R"JS(
     var legend = [{ label: 'conditional volatility', color: COLORS.vol },
       { label: 'high-vol regime', color: COLORS.hiReg, type: 'box' },
       { label: 'low-vol regime', color: COLORS.loReg, type: 'box' },
-      { label: 'model swap (version)', color: COLORS.swap, dash: '6 3' },
-      { label: 'rejected refit', color: COLORS.reject, dash: '2 3' }];
-    var f = frame(fig, { w: 1300, h: 300, title: s.symbol + ': conditional volatility, regimes and model swaps',
+      { label: 'model swap (versions; \u2715n rejected refits)', color: COLORS.swap, dash: '6 3' },
+      { label: 'rejected refits only', color: COLORS.reject, dash: '2 3' }];
+    var f = frame(fig, { w: 1300, h: 320, title: s.symbol + ': conditional volatility, regimes and model swaps',
       xlabel: s.time_axis ? 'bar end time (UTC)' : 'bar index', ylabel: 'volatility (' + unit + ')',
       xtime: s.time_axis, xs: V.x, x: xRange(V.x), y: pad(extent([V.lo, V.hi]).map(function (v, i) { return i === 0 ? Math.min(0, v) : v; }), 0.04),
       legend: legend, clip: 'clip-v' + idx });
@@ -351,42 +405,69 @@ const char kReportScript[] = R"JS(
       el('rect', { x: x0, y: f.top, width: Math.max(1, x1 - x0), height: f.bottom - f.top, fill: g[2] > 0 ? COLORS.hiReg : COLORS.loReg }, f.plot);
     });
     el('path', { d: rangePath(V.x, V.lo, V.hi, f.sx, f.sy), fill: 'none', stroke: COLORS.vol, 'stroke-width': 1.3 }, f.plot);
-    V.swaps.forEach(function (w) {
-      var X = f.sx(w[0]);
-      el('line', { x1: X, x2: X, y1: f.top, y2: f.bottom, stroke: w[2] ? COLORS.swap : COLORS.reject,
-        'stroke-width': 1.3, 'stroke-dasharray': w[2] ? '6 3' : '2 3' }, f.plot);
-      if (w[2]) txt(f.plot, X + 3, f.top + 12, 'v' + w[1], 'tick', { fill: COLORS.swap });
+    // Label widths as drawn (the tick font), or an upper estimate when the
+    // page is not laid out.
+    var measure = function (t) {
+      var probe = txt(f.svg, 0, -50, t, 'tick'), w = 0;
+      try { w = probe.getComputedTextLength(); } catch (e) { w = 0; }
+      f.svg.removeChild(probe);
+      return w > 0 ? w : CHAR_PX * t.length;
+    };
+    swapClusters(V.swaps, f.sx, measure).forEach(function (c) {
+      var X = (c.x0 + c.x1) / 2, any = c.marks.some(function (m) { return m.ok; });
+      var g = el('g', { 'class': 'swap-mark', 'data-marks': c.marks.length }, f.plot);
+      el('title', {}, g).textContent = c.marks.map(function (m) { return m.ok ? 'swap to v' + m.v : 'refit rejected'; }).join('; ');
+      if (c.x1 - c.x0 >= 1) el('rect', { x: c.x0, y: f.top, width: c.x1 - c.x0, height: f.bottom - f.top, fill: any ? COLORS.swapFill : COLORS.rejFill }, g);
+      el('line', { x1: X, x2: X, y1: f.top, y2: f.bottom, stroke: any ? COLORS.swap : COLORS.reject,
+        'stroke-width': 1.3, 'stroke-dasharray': any ? '6 3' : '2 3' }, g);
+      var bg = el('rect', { x: X + 2, y: f.top + 3 + 14 * c.row, width: c.w + 2, height: 13, fill: 'rgba(255,255,255,0.85)' }, g);
+      txt(g, X + 3, f.top + 13 + 14 * c.row, c.text, 'tick swap-label', { fill: any ? COLORS.swap : COLORS.reject, 'data-row': c.row });
+      return bg;
     });
   }
 
-  function qqChart(host, s, idx) {
-    var Q = s.qq, fig = figure(host, 'half');
-    var xs = Q.map(function (p) { return p[0]; }), ys = Q.map(function (p) { return p[1]; });
-    var e = extent([xs, ys]);
-    var f = frame(fig, { w: 640, h: 420, title: s.symbol + ': QQ plot of z',
-      xlabel: 'theoretical quantile, ' + s.law + ' (\u03c3 units)', ylabel: 'sample quantile of z (\u03c3 units)',
-      x: pad(extent([xs]), 0.04), y: pad(e, 0.04), legend: [{ label: 'z quantiles', color: COLORS.qq, type: 'dot' },
-        { label: 'y = x', color: COLORS.ref, dash: '5 3' }], clip: 'clip-q' + idx });
-    el('line', { x1: f.sx(e[0]), y1: f.sy(e[0]), x2: f.sx(e[1]), y2: f.sy(e[1]), stroke: COLORS.ref, 'stroke-width': 1.3, 'stroke-dasharray': '5 3' }, f.plot);
-    Q.forEach(function (p) {
-      el('circle', { cx: f.sx(p[0]).toFixed(1), cy: f.sy(p[1]).toFixed(1), r: 2.2, fill: 'none', stroke: COLORS.qq, 'stroke-width': 1 }, f.plot);
+  function pitChart(host, s, idx) {
+    var P = s.pit, B = P.counts.length, fig = figure(host, 'half');
+    var e = P.n / B, rel = P.counts.map(function (c) { return c / e; });
+    // 95 % band of one bin's count under uniformity: n/B +- 1.96 sd, sd = sqrt(n (1/B)(1 - 1/B)).
+    var half = 1.96 * Math.sqrt(P.n * (1 / B) * (1 - 1 / B)) / e;
+    var ymax = Math.max(1 + half, Math.max.apply(null, rel)) * 1.2;
+    var f = frame(fig, { w: 640, h: 420, title: s.symbol + ': calibration of the shocks (PIT)',
+      xlabel: 'u = F(z) under the ' + s.law + ' law', ylabel: 'bin count \u00f7 expected',
+      x: [0, 1], y: [0, ymax], legend: [{ label: 'histogram of u (' + P.n + ' bars)', color: COLORS.bar, type: 'box' },
+        { label: 'uniform, 95 % band', color: COLORS.ref, dash: '5 3' }], clip: 'clip-u' + idx });
+    el('rect', { x: f.sx(0), y: f.sy(1 + half), width: f.sx(1) - f.sx(0), height: f.sy(Math.max(0, 1 - half)) - f.sy(1 + half), fill: COLORS.bandFill }, f.plot);
+    rel.forEach(function (v, i) {
+      var x0 = f.sx(i / B), x1 = f.sx((i + 1) / B);
+      var r = el('rect', { x: x0 + 0.5, y: f.sy(v), width: Math.max(0.5, x1 - x0 - 1), height: f.bottom - f.sy(v), fill: COLORS.bar, 'class': 'pit-bin' }, f.plot);
+      el('title', {}, r).textContent = 'u in [' + fmt(i / B) + ', ' + fmt((i + 1) / B) + '): ' + P.counts[i] + ' bars (' + fmt(e) + ' expected)';
     });
+    el('line', { x1: f.sx(0), x2: f.sx(1), y1: f.sy(1), y2: f.sy(1), stroke: COLORS.ref, 'stroke-width': 1.3, 'stroke-dasharray': '5 3' }, f.plot);
+    var t = 'chi-square ' + fmt(P.chi2) + ' (' + P.dof + ' df), p = ' + fmt(P.chi2_p) + '; KS D = ' + fmt(P.ks_d) + ', p = ' + fmt(P.ks_p);
+    txt(f.svg, f.sx(0) + 6, f.top + 14, t, 'label pit-test');
   }
 
-  function histChart(host, s, idx) {
-    var Hh = s.hist, fig = figure(host, 'half');
-    var hi = Hh.lo + Hh.width * Hh.density.length;
-    var dmax = extent([Hh.density, Hh.curve.map(function (p) { return p[1]; })])[1];
-    var f = frame(fig, { w: 640, h: 420, title: s.symbol + ': distribution of z' + (Hh.outside ? ' (' + Hh.outside + ' beyond the axis)' : ''),
-      xlabel: 'z, standardized shock (\u03c3 units)', ylabel: 'density (per \u03c3 unit)',
-      x: [Hh.lo, hi], y: [0, dmax * 1.06], legend: [{ label: 'histogram of z (' + Hh.n + ' bars)', color: COLORS.bar, type: 'box' },
-        { label: s.law + ' density', color: COLORS.curve }], clip: 'clip-h' + idx });
-    Hh.density.forEach(function (v, i) {
-      var x0 = f.sx(Hh.lo + i * Hh.width), x1 = f.sx(Hh.lo + (i + 1) * Hh.width);
-      el('rect', { x: x0 + 0.5, y: f.sy(v), width: Math.max(0.5, x1 - x0 - 1), height: f.bottom - f.sy(v), fill: COLORS.bar }, f.plot);
+  function todChart(host, s, idx) {
+    var T = s.tod, G = T.segments, fig = figure(host, 'half');
+    var vals = [];
+    G.forEach(function (g) { vals.push(g.mean_z2, g.ratio); });
+    var ymax = Math.max(1.5, extent([vals])[1]) * 1.08;
+    var f = frame(fig, { w: 640, h: 420, title: s.symbol + ': shocks and exceptions by time of day',
+      xlabel: 'first bar of each segment of the session (' + T.session_bars + ' bars a session)', ylabel: 'ratio to what the model expects',
+      x: [0, G.length], y: [0, ymax], legend: [{ label: 'mean z\u00b2', color: COLORS.vol, type: 'box' },
+        { label: 'exceptions \u00f7 expected @' + s.var_level, color: COLORS.vr, type: 'box' }], clip: 'clip-t' + idx, noXTicks: true });
+    var w = (f.sx(1) - f.sx(0)) / 2 - 3;
+    G.forEach(function (g, i) {
+      var x0 = f.sx(i) + 2;
+      [[g.mean_z2, COLORS.vol, 'mean z\u00b2 ' + fmt(g.mean_z2) + ' over ' + g.n + ' bars'],
+       [g.ratio, COLORS.vr, g.exceptions + ' exceptions, ' + fmt(g.expected) + ' expected']].forEach(function (b, k) {
+        if (b[0] === null || !isFinite(b[0])) return;
+        var r = el('rect', { x: x0 + k * (w + 1), y: f.sy(b[0]), width: Math.max(0.5, w), height: f.bottom - f.sy(b[0]), fill: b[1], 'class': 'tod-bar' }, f.plot);
+        el('title', {}, r).textContent = 'bars ' + g.bars + ': ' + b[2];
+      });
+      txt(f.svg, f.sx(i + 0.5), f.bottom + 15, String(g.bars).split('\u2013')[0], 'tick', { 'text-anchor': 'middle' });
     });
-    el('path', { d: pathOf(Hh.curve.map(function (p) { return p[0]; }), Hh.curve.map(function (p) { return p[1]; }), f.sx, f.sy),
-      fill: 'none', stroke: COLORS.curve, 'stroke-width': 2 }, f.plot);
+    el('line', { x1: f.sx(0), x2: f.sx(G.length), y1: f.sy(1), y2: f.sy(1), stroke: COLORS.ink, 'stroke-width': 1.2, 'stroke-dasharray': '5 3' }, f.plot);
   }
 
   function paramChart(host, s, idx) {
@@ -427,10 +508,10 @@ const char kReportScript[] = R"JS(
   for (var h = 0; h < hosts.length; ++h) {
     var host = hosts[h], idx = +host.getAttribute('data-symbol-index'), s = data.symbols[idx];
     if (!s) continue;
-    attempt(returnsChart, host, s, idx);
+    attempt(lossChart, host, s, idx);
     attempt(volChart, host, s, idx);
-    attempt(qqChart, host, s, idx);
-    attempt(histChart, host, s, idx);
+    attempt(pitChart, host, s, idx);
+    if (s.tod) attempt(todChart, host, s, idx);
     if (s.params) attempt(paramChart, host, s, idx);
   }
 

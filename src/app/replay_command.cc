@@ -6,6 +6,7 @@
 #include <chrono>
 #include <cstdio>
 #include <filesystem>
+#include <memory>
 #include <string>
 
 #include "absl/strings/str_cat.h"
@@ -21,6 +22,7 @@
 #include "aftershock/ingest_core.h"
 #include "aftershock/model_store.h"
 #include "aftershock/tick_file.h"
+#include "aftershock/update_csv.h"
 #include "aftershock/update_sink.h"
 #include "app/args.h"
 #include "app/cli.h"
@@ -47,7 +49,7 @@ int ReplayCommand(int argc, char** argv) {
       "one update JSON object a line. The run is deterministic: the clock is the ticks'\n"
       "event time, so idle time bars close exactly as they would live. With [bars]\n"
       "interval \"0s\" each CSV row is a bar. Open bars are closed at the end of the input.\n"
-      "[publish] encoding is ignored (the output is always JSON).\n\n"
+      "[publish] encoding is ignored (the output is always JSON, or CSV with --csv).\n\n"
       "--checkpoint FILE writes the engine's whole state at the end of the input (open bars\n"
       "stay open: the end-of-input close is skipped) and --resume FILE starts from such a\n"
       "file, so replaying a file in parts gives the same output as replaying it whole. A\n"
@@ -68,15 +70,21 @@ int ReplayCommand(int argc, char** argv) {
       "is not read.\n\n"
       "--report writes a self-contained HTML evaluation (forecast losses, VaR backtests,\n"
       "alerts, parameter history, charts); --summary-json the same statistics as JSON;\n"
-      "--exceptions every VaR exception as CSV. Without --output the updates are not written.\n\n"
+      "--exceptions every VaR exception as CSV. --csv FILE writes the updates as compact CSV\n"
+      "(one header line, one row per update; alone or beside --output). Without --output\n"
+      "and --csv the updates are not written.\n\n"
       "Example:\n  aftershock replay --config config/default.toml --input ticks.csv "
       "--output updates.jsonl --report report.html");
   args.AddOption("config", "FILE", "engine configuration (TOML)", "", true);
   args.AddOption("input", "FILE", "tick CSV to replay", "", true);
   args.AddOption("output", "FILE",
                  "JSON Lines output of the updates ('-' = standard output); may be left out "
-                 "when another output (--report, --summary-json, --exceptions, --models, "
-                 "--alerts, --checkpoint) is asked for");
+                 "when another output (--csv, --report, --summary-json, --exceptions, "
+                 "--models, --alerts, --checkpoint) is asked for");
+  args.AddOption("csv", "FILE",
+                 "write the updates as CSV too ('-' = standard output): symbol, time, r, mu, "
+                 "eps, var, z, var_next, vol_ann, var_h_<h>, value_at_risk_<level>, "
+                 "es_<level>, scale, ver, flags");
   args.AddOption("alerts", "FILE", "write alerts as JSON Lines");
   args.AddOption("models", "FILE", "write model records (refit outcomes, swaps) as JSON Lines");
   args.AddOption("report", "FILE", "write the HTML evaluation report");
@@ -126,21 +134,42 @@ int ReplayCommand(int argc, char** argv) {
   if (!args.Has("output")) {
     bool other = false;
     for (const char* o :
-         {"report", "summary-json", "exceptions", "models", "alerts", "checkpoint"}) {
+         {"csv", "report", "summary-json", "exceptions", "models", "alerts", "checkpoint"}) {
       other = other || args.Has(o);
     }
     if (!other) {
       return Fail(absl::InvalidArgumentError(
-                      "give --output for the updates, or at least one of --report, "
+                      "give --output for the updates, or at least one of --csv, --report, "
                       "--summary-json, --exceptions, --models, --alerts, --checkpoint"),
                   2);
     }
   }
+  if (args.Has("csv") && args.Has("output") && args.Get("csv") == "-" &&
+      args.Get("output") == "-") {
+    return Fail(
+        absl::InvalidArgumentError("--output and --csv cannot both be standard output ('-')"), 2);
+  }
   // Without --output the updates are computed and dropped.
-  auto sink = JsonLinesSink::Open(args.Has("output") ? args.Get("output") : "/dev/null");
-  if (!sink.ok()) return Fail(sink.status(), 2);
+  std::unique_ptr<JsonLinesSink> json_sink;
+  if (args.Has("output") || !args.Has("csv")) {
+    auto sink = JsonLinesSink::Open(args.Has("output") ? args.Get("output") : "/dev/null");
+    if (!sink.ok()) return Fail(sink.status(), 2);
+    json_sink = *std::move(sink);
+  }
+  // With --csv the core publishes the binary form, which the CSV sink decodes
+  // once and writes as a row and (for --output) as the same JSON line.
+  std::unique_ptr<UpdateCsvSink> csv_sink;
+  if (args.Has("csv")) {
+    config->publish.encoding = WireEncoding::kBinary;
+    auto sink = UpdateCsvSink::Open(
+        args.Get("csv"), UpdateCsvHeader(config->outputs.horizons, config->outputs.risk_levels),
+        args.Has("output") ? json_sink.get() : nullptr);
+    if (!sink.ok()) return Fail(sink.status(), 2);
+    csv_sink = *std::move(sink);
+  }
+  UpdateSink* sink = csv_sink ? static_cast<UpdateSink*>(csv_sink.get()) : json_sink.get();
   ManualClock clock;
-  auto core = IngestCore::Create(*config, sink->get(), &clock);
+  auto core = IngestCore::Create(*config, sink, &clock);
   if (!core.ok()) return Fail(core.status(), 2);
   const bool evaluate = args.Has("report") || args.Has("summary-json") || args.Has("exceptions");
   ReplayRecorder recorder(*config, evaluate);

@@ -1,10 +1,12 @@
 #include "app/replay_recorder.h"
 
+#include <algorithm>
 #include <cerrno>
 #include <cmath>
 #include <cstdio>
 #include <cstring>
 #include <limits>
+#include <map>
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
@@ -114,13 +116,73 @@ nlohmann::json LossJson(const ForecastLoss& l) {
           {"n", l.n},
           {"qlike", JsonNumber(l.qlike)},
           {"qlike_normalized", JsonNumber(l.qlike_normalized)},
+          {"qlike_normalized_bars", l.n_normalized},
           {"mse", JsonNumber(l.mse)},
           {"mincer_zarnowitz",
            {{"intercept", JsonNumber(l.mz.intercept)},
             {"slope", JsonNumber(l.mz.slope)},
             {"r_squared", JsonNumber(l.mz.r_squared)},
+            {"intercept_se", JsonNumber(l.mz.intercept_se)},
+            {"slope_se", JsonNumber(l.mz.slope_se)},
             {"intercept_se_robust", JsonNumber(l.mz.intercept_se_robust)},
             {"slope_se_robust", JsonNumber(l.mz.slope_se_robust)}}}};
+}
+
+nlohmann::json PitJson(const PitTest& t) {
+  return {{"bars", t.n},
+          {"counts", t.counts},
+          {"chi_square", JsonNumber(t.chi2)},
+          {"chi_square_dof", t.chi2_dof},
+          {"chi_square_p", JsonNumber(t.chi2_p)},
+          {"ks_distance", JsonNumber(t.ks_d)},
+          {"ks_p", JsonNumber(t.ks_p)}};
+}
+
+nlohmann::json TimeOfDayJson(const SymbolHistory& h, const TimeOfDay& tod) {
+  nlohmann::json segs = nlohmann::json::array();
+  for (const TimeOfDaySegment& g : tod.segments) {
+    nlohmann::json exc = nlohmann::json::object();
+    for (size_t k = 0; k < h.risk_levels.size() && k < g.exceptions.size(); ++k) {
+      exc[absl::StrFormat("%g", h.risk_levels[k])] = {
+          {"exceptions", g.exceptions[k]},
+          {"eligible", g.eligible[k]},
+          {"expected", JsonNumber((1.0 - h.risk_levels[k]) * static_cast<double>(g.eligible[k]))}};
+    }
+    segs.push_back({{"first_bar", g.first_bar},
+                    {"last_bar", g.last_bar},
+                    {"bars", g.bars},
+                    {"mean_z2", JsonNumber(g.mean_z2)},
+                    {"profile_s2", JsonNumber(g.profile_s2)},
+                    {"by_level", exc}});
+  }
+  return {{"session_bars", tod.session_bars},
+          {"profile", tod.profile},
+          {"deseasonalized_only", tod.deseasonalized_only},
+          {"segments", segs}};
+}
+
+nlohmann::json RefitsJson(const SymbolHistory& h, const SymbolEvaluation& ev) {
+  nlohmann::json reasons = nlohmann::json::object();
+  for (const auto& [reason, count] : ev.swaps.reject_reasons) reasons[reason] = count;
+  nlohmann::json records = nlohmann::json::array();
+  for (const ModelSwapRecord& s : h.swaps) {
+    nlohmann::json est = nlohmann::json::object(), se = nlohmann::json::object();  // se: Hessian
+    for (size_t k = 0; k < s.param_names.size() && k < s.values.size(); ++k) {
+      est[s.param_names[k]] = JsonNumber(s.values[k]);
+      if (k < s.std_errors.size()) se[s.param_names[k]] = JsonNumber(s.std_errors[k]);
+    }
+    records.push_back({{"t_ns", s.t_ns},
+                       {"model", s.model},
+                       {"swapped", s.accepted},
+                       {"version", s.version},
+                       {"log_likelihood", JsonNumber(s.loglik)},
+                       {"estimates", est},
+                       {"se_hessian", se},
+                       {"gate", s.gate_reason}});
+  }
+  return {{"records", ev.swaps.attempts},  {"swapped", ev.swaps.accepted},
+          {"rejected", ev.swaps.rejected}, {"last_version", ev.swaps.last_version},
+          {"reject_reasons", reasons},     {"history", records}};
 }
 
 }  // namespace
@@ -156,23 +218,33 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
     nlohmann::json levels = nlohmann::json::array();
     for (const LevelBacktest& b : ev->levels) {
       const ExceptionTests& t = b.tests;
-      levels.push_back({{"level", b.level},
-                        {"bars", t.n},
-                        {"exceptions", t.exceptions},
-                        {"rate", JsonNumber(t.rate)},
-                        {"kupiec_lr", JsonNumber(t.lr_pof)},
-                        {"kupiec_p", JsonNumber(t.p_pof)},
-                        {"christoffersen_lr", JsonNumber(t.lr_ind)},
-                        {"christoffersen_p", JsonNumber(t.p_ind)},
-                        {"conditional_coverage_lr", JsonNumber(t.lr_cc)},
-                        {"conditional_coverage_p", JsonNumber(t.p_cc)},
-                        {"zone", ZoneName(b.traffic_light.zone)},
-                        {"zone_window_exceptions", b.traffic_light.window_exceptions},
-                        {"share_green", JsonNumber(b.traffic_light.share_green)},
-                        {"share_yellow", JsonNumber(b.traffic_light.share_yellow)},
-                        {"share_red", JsonNumber(b.traffic_light.share_red)},
-                        {"es_ratio", JsonNumber(b.es_ratio)},
-                        {"es_n", b.es_n}});
+      const TrafficLight& tl = b.traffic_light;
+      levels.push_back(
+          {{"level", b.level},
+           {"bars", t.n},
+           {"exceptions", t.exceptions},
+           {"expected_exceptions", JsonNumber(t.tail_prob * static_cast<double>(t.n))},
+           {"rate", JsonNumber(t.rate)},
+           {"kupiec_lr", JsonNumber(t.lr_pof)},
+           {"kupiec_p", JsonNumber(t.p_pof)},
+           {"transitions", {{"n00", t.n00}, {"n01", t.n01}, {"n10", t.n10}, {"n11", t.n11}}},
+           {"christoffersen_lr", JsonNumber(t.lr_ind)},
+           {"christoffersen_p", JsonNumber(t.p_ind)},
+           {"conditional_coverage_lr", JsonNumber(t.lr_cc)},
+           {"conditional_coverage_p", JsonNumber(t.p_cc)},
+           {"zone", ZoneName(tl.zone)},
+           {"zone_basis", ZoneBasisName(tl.basis)},
+           {"zone_window_bars", tl.window},
+           {"zone_window_days", tl.window_days},
+           {"zone_window_exceptions", tl.window_exceptions},
+           {"zone_yellow_from", tl.yellow_from},
+           {"zone_red_from", tl.red_from},
+           {"zone_windows", tl.n_windows},
+           {"share_green", JsonNumber(tl.share_green)},
+           {"share_yellow", JsonNumber(tl.share_yellow)},
+           {"share_red", JsonNumber(tl.share_red)},
+           {"es_ratio", JsonNumber(b.es_ratio)},
+           {"es_n", b.es_n}});
     }
     nlohmann::json alerts = nlohmann::json::array();
     for (const AlertCount& a : ev->alerts) {
@@ -185,18 +257,18 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
                         {"fallback_bars", ev->fallback_bars},
                         {"vs_r2", LossJson(ev->vs_r2)},
                         {"var_backtests", levels},
-                        {"z", {{"mean", JsonNumber(ev->z.mean)},
-                               {"variance", JsonNumber(ev->z.variance)},
-                               {"skewness", JsonNumber(ev->z.skewness)},
-                               {"excess_kurtosis", JsonNumber(ev->z.excess_kurtosis)},
-                               {"max_abs", JsonNumber(ev->z.max_abs)}}},
+                        {"z",
+                         {{"mean", JsonNumber(ev->z.mean)},
+                          {"variance", JsonNumber(ev->z.variance)},
+                          {"skewness", JsonNumber(ev->z.skewness)},
+                          {"excess_kurtosis", JsonNumber(ev->z.excess_kurtosis)},
+                          {"max_abs", JsonNumber(ev->z.max_abs)}}},
+                        {"pit", PitJson(ev->pit)},
                         {"alerts", alerts},
                         {"alerts_total", ev->alerts_total},
-                        {"refits", {{"records", ev->swaps.attempts},
-                                    {"swapped", ev->swaps.accepted},
-                                    {"rejected", ev->swaps.rejected},
-                                    {"last_version", ev->swaps.last_version}}},
+                        {"refits", RefitsJson(h, *ev)},
                         {"warnings", ev->warnings}};
+    if (!ev->time_of_day.segments.empty()) s["time_of_day"] = TimeOfDayJson(h, ev->time_of_day);
     if (ev->vs_rv) s["vs_rv"] = LossJson(*ev->vs_rv);
     // The risk view of the report's overview: limits in force for the next
     // bar, the variance forecast, the regime and the model at the end.
@@ -210,6 +282,15 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
     }
     s["next_bar"] = next;
     s["var_next"] = h.var_next.empty() ? nlohmann::json() : JsonNumber(h.var_next.back());
+    // The overview's "vol now": per bar, and annualized when the report is.
+    const double vol = h.var_next.empty() ? NAN : std::sqrt(h.var_next.back());
+    s["vol_next_per_bar"] = JsonNumber(vol);
+    if (config_.outputs.periods_per_year > 0) {
+      s["vol_next_annualized"] = JsonNumber(vol * std::sqrt(config_.outputs.periods_per_year));
+    }
+    s["innovation_law"] = h.law.kind() == Innovations::kStudentT
+                              ? nlohmann::json{{"law", "student"}, {"nu", JsonNumber(h.law.nu())}}
+                              : nlohmann::json{{"law", "gaussian"}};
     std::string regime = "none";
     if (!h.regimes.empty() && !h.t_ns.empty() && h.regimes.back().end_ns >= h.t_ns.back()) {
       regime = h.regimes.back().direction > 0 ? "high" : "low";
@@ -223,12 +304,45 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
       }
     }
     s["model_at_end"] = model;
+    s["version_at_end"] = h.ver.empty() ? 0u : h.ver.back();  // the report's "last model version"
     if (!h.t_ns.empty()) {
       s["first_bar_ns"] = h.t_ns.front();
       s["last_bar_ns"] = h.t_ns.back();
     }
     symbols.push_back(std::move(s));
   }
+  // The report header: data period and the model mix at the end.
+  int64_t first = 0, last = 0;
+  std::map<std::string, int> mix;
+  for (const SymbolHistory& h : histories_) {
+    if (!h.t_ns.empty()) {
+      first = first == 0 ? h.t_ns.front() : std::min(first, h.t_ns.front());
+      last = std::max(last, h.t_ns.back());
+    }
+    std::string model = "no fitted model";
+    for (auto it = h.swaps.rbegin(); it != h.swaps.rend(); ++it) {
+      if (it->accepted) {
+        model = it->model;
+        break;
+      }
+    }
+    ++mix[model];
+  }
+  if (last > 0) {
+    out["first_bar_ns"] = first;
+    out["last_bar_ns"] = last;
+  }
+  out["models_at_end"] = mix;
+  out["zone_rule"] = {{"source",
+                       "Basel Committee on Banking Supervision (1996), supervisory framework for "
+                       "the use of backtesting in conjunction with the internal models approach"},
+                      {"level", options.traffic_light_level},
+                      {"window_bars", options.traffic_light_window},
+                      {"window_days", options.zone_window_days},
+                      {"yellow_from", options.yellow_from},
+                      {"red_from", options.red_from},
+                      {"yellow_probability", options.zone_yellow_probability},
+                      {"red_probability", options.zone_red_probability}};
   out["symbols"] = std::move(symbols);
   out["caution"] =
       "Statistical estimates, not advice; follow your model-risk policy and applicable "

@@ -460,3 +460,246 @@ TEST_CASE("symbol evaluation: exclusions, alerts, swaps and errors", "[evaluatio
 
 }  // namespace
 }  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+TEST_CASE("scaled zone thresholds follow the published rule and match scipy", "[evaluation]") {
+  const EvaluationOptions o;
+  // Basel Committee (1996), Table 1: 250 draws at 99 % give yellow from 5, red from 10.
+  CHECK(ZoneThresholds(250, 0.01, o) == std::make_pair<int64_t, int64_t>(5, 10));
+  // Intraday windows: the same cumulative probabilities (95 %, 99.99 %) over
+  // the bars of 250 trading days. Reference: scipy.stats.binom.ppf(q, n, p),
+  // run live by tests/python/scipy_backtest.py.
+  const std::vector<std::pair<int64_t, double>> cases = {
+      {250, 0.01}, {500, 0.01}, {97500, 0.01}, {19500, 0.01}, {6000, 0.025}, {1, 0.01}};
+  nlohmann::json req;
+  for (const auto& [n, p] : cases) {
+    req["zone_thresholds"].push_back({{"n", n}, {"p", p}, {"q", 0.95}});
+    req["zone_thresholds"].push_back({{"n", n}, {"p", p}, {"q", 0.9999}});
+  }
+  auto res = RunPython("scipy_backtest.py", {}, req.dump());
+  INFO(res.err);
+  REQUIRE(res.exit_code == 0);
+  const auto ref = nlohmann::json::parse(res.out)["zone_thresholds"];
+  REQUIRE(ref.size() == 2 * cases.size());
+  for (size_t i = 0; i < cases.size(); ++i) {
+    INFO("n = " << cases[i].first << ", p = " << cases[i].second);
+    const auto [y, r] = ZoneThresholds(cases[i].first, cases[i].second, o);
+    CHECK(y == ref[2 * i].get<int64_t>());
+    CHECK(r == ref[2 * i + 1].get<int64_t>());
+  }
+}
+
+// `days` trading days of `per_day` one-minute bars from 14:30 UTC, with
+// bar-of-session indices when `sessions`; z and returns from a fixed LCG, VaR
+// limit 2.326 (the 99 % normal quantile) at unit variance.
+SymbolHistory IntradayHistory(int days, int per_day, bool sessions, uint64_t seed) {
+  SymbolHistory h;
+  h.symbol = "WREN.X";
+  h.risk_levels = {0.99};
+  h.var_risk_next.assign(1, {});
+  h.es_next.assign(1, {});
+  const int64_t day_ns = 86400LL * 1000000000LL, min_ns = 60LL * 1000000000LL;
+  const int64_t t0 = 1'780'000'000LL * 1'000'000'000LL / day_ns * day_ns + 870 * min_ns;
+  uint64_t s = seed;
+  auto uniform = [&]() {
+    s = s * 6364136223846793005ULL + 1442695040888963407ULL;
+    return (static_cast<double>(s >> 11) + 0.5) / 9007199254740992.0;
+  };
+  for (int d = 0; d < days; ++d) {
+    for (int k = 0; k < per_day; ++k) {
+      // Box-Muller from two uniforms.
+      const double z =
+          std::sqrt(-2 * std::log(uniform())) * std::cos(6.283185307179586 * uniform());
+      h.t_ns.push_back(t0 + d * day_ns + (k + 1) * min_ns);
+      h.r.push_back(z);
+      h.mu.push_back(0);
+      h.var.push_back(1);
+      h.z.push_back(z);
+      h.var_next.push_back(1);
+      h.var_risk_next[0].push_back(2.326347874040841);
+      h.es_next[0].push_back(2.665214220345808);
+      h.ver.push_back(1);
+      h.flags.push_back(h.t_ns.size() == 1 ? kFlagFirstBar : (k == 0 ? kFlagGap : 0u));
+      if (sessions) h.session_bar.push_back(k);
+    }
+  }
+  return h;
+}
+
+TEST_CASE("intraday bars: the zone counts the last 250 trading days", "[evaluation]") {
+  const EvaluationOptions o;
+  // 260 days of 40 bars: the window is the last 250 days, 10,000 bars.
+  const SymbolHistory h = IntradayHistory(260, 40, true, 5);
+  const auto days = TradingDays(h);
+  CHECK(days.front() == 0);
+  CHECK(days.back() == 259);
+  CHECK(days[39] == 0);
+  CHECK(days[40] == 1);
+  auto ev = EvaluateSymbol(h, o);
+  REQUIRE(ev.ok());
+  const TrafficLight& tl = ev->levels[0].traffic_light;
+  CHECK(tl.basis == ZoneBasis::kTradingDays);
+  CHECK(std::string(ZoneBasisName(tl.basis)) == "trading_days");
+  CHECK(tl.window_days == 250);
+  CHECK(tl.window == 250 * 40);
+  // Independent count: exceptions among the bars of the last 250 days.
+  int64_t exc = 0;
+  for (size_t i = 10 * 40; i < h.t_ns.size(); ++i) exc += -h.r[i] > h.var_risk_next[0][i - 1];
+  CHECK(tl.window_exceptions == exc);
+  const auto [y, r] = ZoneThresholds(10000, 0.01, o);
+  CHECK(tl.yellow_from == y);
+  CHECK(tl.red_from == r);
+  CHECK(y > 100);  // far above the 5 of a 250-bar window
+  const TrafficLightZone want = exc >= r   ? TrafficLightZone::kRed
+                                : exc >= y ? TrafficLightZone::kYellow
+                                           : TrafficLightZone::kGreen;
+  CHECK(tl.zone == want);
+  CHECK(tl.n_windows == 11);  // windows ending at days 249 .. 259
+  CHECK(tl.share_green + tl.share_yellow + tl.share_red == Approx(1.0).epsilon(1e-12));
+  // The same days without session indices: UTC dates split them identically.
+  SymbolHistory plain = h;
+  plain.session_bar.clear();
+  CHECK(TradingDays(plain) == days);
+  auto ev2 = EvaluateSymbol(plain, o);
+  REQUIRE(ev2.ok());
+  CHECK(ev2->levels[0].traffic_light.window == tl.window);
+  CHECK(ev2->levels[0].traffic_light.window_exceptions == tl.window_exceptions);
+
+  // Every bar of the last five days an exception: 200 more, the zone is red
+  // and the warning names the trading days.
+  SymbolHistory bad = h;
+  int64_t added = 0;
+  for (size_t i = bad.r.size() - 200; i < bad.r.size(); ++i) {
+    added += -h.r[i] > h.var_risk_next[0][i - 1] ? 0 : 1;
+    bad.r[i] = -3.0;
+  }
+  auto ev3 = EvaluateSymbol(bad, o);
+  REQUIRE(ev3.ok());
+  const TrafficLight& t3 = ev3->levels[0].traffic_light;
+  INFO("exceptions " << t3.window_exceptions << ", red from " << t3.red_from);
+  CHECK(t3.window_exceptions == exc + added);
+  CHECK(t3.zone == TrafficLightZone::kRed);
+  bool said = false;
+  for (const auto& w : ev3->warnings) {
+    said = said ||
+           w.find("red zone at 99 % (" + std::to_string(t3.window_exceptions) +
+                  " exceptions in the last 250 trading days, 10000 bars)") != std::string::npos;
+  }
+  CHECK(said);
+}
+
+TEST_CASE("intraday bars over fewer than 250 days: the zone is labelled as bars", "[evaluation]") {
+  const EvaluationOptions o;
+  // Four hours of minute bars: one day. The zone is the last 250 bars, read as bars.
+  auto ev = EvaluateSymbol(IntradayHistory(1, 240, true, 9), o);
+  REQUIRE(ev.ok());
+  const TrafficLight& tl = ev->levels[0].traffic_light;
+  CHECK(tl.basis == ZoneBasis::kBars);
+  CHECK(tl.window_days == 0);
+  CHECK(tl.window == 239);  // 239 tested bars (bar 0 has no return), fewer than 250
+  CHECK(tl.zone == TrafficLightZone::kNotApplicable);
+  auto ev2 = EvaluateSymbol(IntradayHistory(3, 240, true, 9), o);
+  REQUIRE(ev2.ok());
+  CHECK(ev2->levels[0].traffic_light.basis == ZoneBasis::kBars);
+  CHECK(ev2->levels[0].traffic_light.window == 250);
+  CHECK(ev2->levels[0].traffic_light.yellow_from == 5);
+  CHECK(ev2->levels[0].traffic_light.red_from == 10);
+  // The warning says bars, never days.
+  SymbolHistory bad = IntradayHistory(3, 240, true, 9);
+  for (size_t i = bad.r.size() - 12; i < bad.r.size(); ++i) bad.r[i] = -3.0;
+  auto ev3 = EvaluateSymbol(bad, o);
+  REQUIRE(ev3.ok());
+  bool said = false;
+  for (const auto& w : ev3->warnings) {
+    said = said || w.find("red zone at 99 % (") != std::string::npos;
+    CHECK(w.find("day") == std::string::npos);
+  }
+  CHECK(said);
+  // Daily bars: one bar a day, 300 days.
+  auto ev4 = EvaluateSymbol(IntradayHistory(300, 1, false, 3), o);
+  REQUIRE(ev4.ok());
+  CHECK(ev4->levels[0].traffic_light.basis == ZoneBasis::kDailyBars);
+  CHECK(ev4->levels[0].traffic_light.window == 250);
+}
+
+TEST_CASE("PIT histogram and uniformity tests match scipy", "[evaluation]") {
+  // Shocks from a t(5) law standardized, tested under three laws: the right
+  // one, a t with the wrong nu and the Gaussian (which misses the tails).
+  const auto t5 = Params(
+      "student", {{"mu", 0.0}, {"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", 0.9}, {"nu", 5.0}});
+  const SymbolHistory h = Replay(t5, 4000, 77);
+  std::vector<double> z(h.z.begin() + 1, h.z.end());
+  struct Case {
+    const char* name;
+    InnovationLaw law;
+    int bins;
+  };
+  auto t_law = [](double nu) {
+    auto l = InnovationLaw::StudentT(nu);
+    REQUIRE(l.ok());
+    return *l;
+  };
+  const std::vector<Case> cases = {{"right law", t_law(5.0), 20},
+                                   {"t with nu 12", t_law(12.0), 10},
+                                   {"gaussian", InnovationLaw(), 20}};
+  nlohmann::json req;
+  for (const auto& c : cases) {
+    nlohmann::json one = {{"z", z}, {"bins", c.bins}};
+    if (c.law.kind() == Innovations::kStudentT) {
+      one["law"] = "student";
+      one["nu"] = c.law.nu();
+    } else {
+      one["law"] = "gaussian";
+    }
+    req["pit"].push_back(one);
+  }
+  // Reference: tests/python/scipy_backtest.py: scipy.stats.t.cdf / norm.cdf,
+  // numpy.histogram, scipy.stats.chisquare, scipy.stats.kstest(method="asymp").
+  auto res = RunPython("scipy_backtest.py", {}, req.dump());
+  INFO(res.err);
+  REQUIRE(res.exit_code == 0);
+  const auto ref = nlohmann::json::parse(res.out)["pit"];
+  REQUIRE(ref.size() == cases.size());
+  std::vector<PitTest> got;
+  for (size_t i = 0; i < cases.size(); ++i) {
+    INFO(cases[i].name);
+    auto t = TestPit(z, cases[i].law, cases[i].bins);
+    REQUIRE(t.ok());
+    CHECK(t->n == static_cast<int64_t>(z.size()));
+    CHECK(t->counts == ref[i]["counts"].get<std::vector<int64_t>>());
+    CHECK(t->chi2_dof == cases[i].bins - 1);
+    CHECK(RelDiff(t->chi2, ref[i]["chi2"].get<double>()) < 1e-10);
+    CHECK(RelDiff(t->chi2_p, ref[i]["chi2_p"].get<double>()) < 1e-8);
+    CHECK(RelDiff(t->ks_d, ref[i]["ks_d"].get<double>()) < 1e-8);
+    const double kp = ref[i]["ks_p"].get<double>();
+    INFO("KS p " << t->ks_p << " vs scipy " << kp);
+    CHECK((kp < 1e-300 ? t->ks_p < 1e-200 : RelDiff(t->ks_p, kp) < 1e-6));
+    got.push_back(*t);
+  }
+  // The right law passes, the Gaussian is rejected (the tests have power).
+  CHECK(got[0].chi2_p > 1e-3);
+  CHECK(got[0].ks_p > 1e-3);
+  CHECK(got[2].chi2_p < 1e-6);
+  // Bad input.
+  CHECK_FALSE(TestPit(z, InnovationLaw(), 1).ok());
+  CHECK_FALSE(TestPit({}, InnovationLaw(), 10).ok());
+}
+
+TEST_CASE("Kolmogorov tail in closed form at its limits", "[evaluation]") {
+  CHECK(KolmogorovSurvival(0.0) == 1.0);
+  CHECK(KolmogorovSurvival(0.1) == 1.0);
+  // One term dominates far out: 2 exp(-2 x^2).
+  CHECK(RelDiff(KolmogorovSurvival(3.0), 2 * std::exp(-18.0)) < 1e-12);
+  // Monotone decreasing in between.
+  double prev = 1.0;
+  for (double x = 0.2; x < 3.0; x += 0.05) {
+    const double v = KolmogorovSurvival(x);
+    CHECK(v <= prev);
+    prev = v;
+  }
+}
+
+}  // namespace
+}  // namespace aftershock

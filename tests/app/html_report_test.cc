@@ -31,7 +31,11 @@ TEST_CASE("the report opens with the risk view: period, models, worst symbol fir
   CHECK(Contains(html, "<dt>data period</dt>"));
   CHECK(Contains(html, "<dt>models at the end</dt>"));
   CHECK(Contains(html, "VaR / ES next bar"));
-  CHECK(Contains(html, "evaluated <em>bars</em>"));
+  // One-minute bars over a few days: the zone is a count over the last 250
+  // bars and says so; the overview states the published basis.
+  CHECK(Contains(html, "Basel Committee's 1996 backtesting framework"));
+  CHECK(Contains(html, "in the last 250 bars; yellow from 5, red from 10</small>"));
+  CHECK_FALSE(Contains(html, "trading days ("));
   // Overview rows: zone rank never increases down the table, and within a
   // zone the Kupiec p never decreases.
   const size_t table = html.find("id=\"overview\"");
@@ -94,7 +98,9 @@ TEST_CASE("the report is one self-contained page", "[report]") {
   CHECK(Contains(html, "id=\"overview\""));
   CHECK(Contains(html, "not advice"));
   CHECK(Contains(html, "model-risk policy"));
-  CHECK(Contains(html, "data-charts-expected=\"15\""));  // 3 x (4 + parameter history)
+  // 3 x (losses, volatility, PIT, parameter history); no time-of-day chart
+  // without bar-of-session indices.
+  CHECK(Contains(html, "data-charts-expected=\"12\""));
   // Strings from the input are escaped in HTML ...
   CHECK(Contains(html, "<h2>OSPREY&lt;&amp;&gt;&quot;&#39;</h2>"));
   CHECK_FALSE(Contains(html, "OSPREY<&>"));
@@ -117,7 +123,7 @@ TEST_CASE("a symbol that cannot be evaluated is listed with its error", "[report
   CHECK(Contains(*page,
                  "Evaluation failed: evaluation of &#39;OSPREY&lt;&amp;&gt;&quot;&#39;&#39;: "
                  "field &#39;z&#39; has 999 entries, t_ns has 1000"));
-  CHECK(Contains(*page, "data-charts-expected=\"10\""));
+  CHECK(Contains(*page, "data-charts-expected=\"8\""));
 }
 
 TEST_CASE("drawn series are downsampled, statistics are not", "[report]") {
@@ -125,19 +131,21 @@ TEST_CASE("drawn series are downsampled, statistics are not", "[report]") {
   in.options.max_points = 400;
   auto page = RenderHtmlReport(in);
   REQUIRE(page.ok());
-  // 200 buckets of min/max: the x array of the returns has 200 entries.
-  const size_t a = page->find("\"returns\":{\"bl\":[");
+  // 200 buckets of min/max: the lower loss array has 200 entries.
+  const size_t l = page->find("\"losses\":{");
+  REQUIRE(l != std::string::npos);
+  const size_t a = page->find("\"lo\":[", l);
   REQUIRE(a != std::string::npos);
   const size_t b = page->find(']', a);
-  const std::string bl = page->substr(a, b - a);
-  CHECK(std::count(bl.begin(), bl.end(), ',') == 199);
+  const std::string lo = page->substr(a, b - a);
+  CHECK(std::count(lo.begin(), lo.end(), ',') == 199);
   // The overview still counts every bar.
   CHECK(Contains(*page, "data-v=\"20000\""));
 }
 
 TEST_CASE("a long replay gives a page whose size does not grow with the bars", "[report]") {
-  // 3 x 100,000 bars: every drawn series is capped at max_points, the QQ plot
-  // at 600 points and the exception markers at 4,000 per symbol, so the page
+  // 3 x 100,000 bars: every drawn series is capped at max_points, the PIT
+  // histogram has 20 bins and the exception markers 4,000 per symbol, so the page
   // stays a few hundred kB (the returns alone would be several MB).
   auto page = RenderHtmlReport(FixtureReport(100000));
   REQUIRE(page.ok());
@@ -201,6 +209,82 @@ TEST_CASE("the time-of-day table shows the profile and exceptions by segment", "
   CHECK(page->find(want, row) < page->find("</tr>", row));
   CHECK(page->find("</span>2</td>", row) < page->find("</tr>", row));  // mean s^2 of bars 0-32
   CHECK(Contains(page->substr(row, page->find("</tr>", row) - row), "width:60.0px"));
+}
+
+TEST_CASE("the charts answer the desk's questions: losses, calibration, swaps, time of day",
+          "[report]") {
+  ReportInput in = FixtureReport(3000);
+  SymbolHistory& h = in.symbols[0];
+  for (size_t i = 0; i < h.t_ns.size(); ++i) h.session_bar.push_back(static_cast<int32_t>(i % 390));
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  const std::string& html = *page;
+  // No return band, no QQ/density pair.
+  CHECK_FALSE(Contains(html, "band_sigmas"));
+  CHECK_FALSE(Contains(html, "\"qq\""));
+  CHECK_FALSE(Contains(html, "\u00b1 ' + sig"));
+  // The drawing code for each chart is in the page.
+  CHECK(Contains(html, "function lossChart("));
+  CHECK(Contains(html, "function pitChart("));
+  CHECK(Contains(html, "function todChart("));
+  CHECK(Contains(html, "function swapClusters("));
+  // 3 x (losses, volatility, PIT, parameters) + one time-of-day chart.
+  CHECK(Contains(html, "data-charts-expected=\"13\""));
+  // The PIT figures in the page are EvaluateSymbol's, to the digits shown.
+  auto ev = EvaluateSymbol(h, in.options.evaluation);
+  REQUIRE(ev.ok());
+  char line[256];
+  std::snprintf(line, sizeof(line),
+                "chi-square %.4g on %d df, p = %.3g; Kolmogorov-Smirnov D = %.4g, p = %.3g",
+                ev->pit.chi2, ev->pit.chi2_dof, ev->pit.chi2_p, ev->pit.ks_d, ev->pit.ks_p);
+  INFO(line);
+  CHECK(Contains(html, line));
+  std::string counts = "\"counts\":[";
+  for (size_t k = 0; k < ev->pit.counts.size(); ++k) {
+    counts += (k ? "," : "") + std::to_string(ev->pit.counts[k]);
+  }
+  CHECK(Contains(html, counts + "]"));
+  // Exceptions drawn on the loss chart: the backtest's count at 99 %.
+  CHECK(Contains(html, "\"n_exc\":" + std::to_string(ev->levels[0].tests.exceptions)));
+  // The time-of-day data: 12 segments, the first one's exceptions as counted.
+  REQUIRE(ev->time_of_day.segments.size() == 12);
+  const auto& g0 = ev->time_of_day.segments[0];
+  CHECK(g0.first_bar == 0);
+  CHECK(g0.last_bar == 32);
+  // JSON keys are sorted; the label is "0" EN DASH "32", escaped as \u2013.
+  CHECK(Contains(
+      html, "{\"bars\":\"0\\u201332\",\"exceptions\":" + std::to_string(g0.exceptions[0]) + ","));
+}
+
+TEST_CASE("intraday bars over 250 trading days: the zone counts days and says so", "[report]") {
+  // 6,500 bars, 25 a day: 260 trading days.
+  ReportInput in = FixtureReport(6500);
+  const int64_t day = 86400LL * 1000000000LL, minute = 60LL * 1000000000LL;
+  for (auto& h : in.symbols) {
+    const int64_t t0 = h.t_ns.front() / day * day;
+    for (size_t i = 0; i < h.t_ns.size(); ++i) {
+      h.t_ns[i] =
+          t0 + static_cast<int64_t>(i / 25) * day + static_cast<int64_t>(i % 25 + 1) * minute;
+    }
+    for (auto& s : h.swaps) s.t_ns = h.t_ns[h.t_ns.size() / 2];
+    for (auto& a : h.alerts) a.t_ns = h.t_ns.back();
+    for (auto& g : h.regimes) g = {h.t_ns[3000], h.t_ns[3500], +1};
+  }
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  auto ev = EvaluateSymbol(in.symbols[0], in.options.evaluation);
+  REQUIRE(ev.ok());
+  const TrafficLight& tl = ev->levels[0].traffic_light;
+  REQUIRE(tl.basis == ZoneBasis::kTradingDays);
+  CHECK(tl.window_days == 250);
+  CHECK(tl.window == 250 * 25);
+  const std::string want = std::to_string(tl.window_exceptions) +
+                           " in the last 250 trading days (6250 bars); yellow from " +
+                           std::to_string(tl.yellow_from) + ", red from " +
+                           std::to_string(tl.red_from);
+  INFO(want);
+  CHECK(Contains(*page, want));
+  CHECK(tl.yellow_from > 5);  // scaled to 6,250 bars, not the 250-bar bounds
 }
 
 }  // namespace

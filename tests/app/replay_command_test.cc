@@ -18,7 +18,10 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
+#include "absl/strings/str_join.h"
 #include "absl/strings/str_split.h"
+#include "absl/time/time.h"
+#include "aftershock/evaluation.h"
 #include "aftershock/tick_file.h"
 #include "aftershock/update_codec.h"
 #include "streaming/engine_test_util.h"
@@ -193,13 +196,15 @@ TEST_CASE("replay --exceptions lists every VaR exception the backtest counts; --
   // Neither updates nor any other output: a usage error.
   auto none = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv"});
   CHECK(none.exit_code == 2);
-  CHECK(none.err.find("give --output for the updates, or at least one of --report") !=
+  CHECK(none.err.find("give --output for the updates, or at least one of --csv, --report") !=
         std::string::npos);
   const auto r = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv", "--summary-json",
-                         dir + "/s.json", "--exceptions", dir + "/x.csv", "--quiet"});
+                         dir + "/s.json", "--exceptions", dir + "/x.csv", "--report",
+                         dir + "/r.html", "--quiet"});
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   const auto summary = nlohmann::json::parse(testing::ReadFileOrDie(dir + "/s.json"));
+  const std::string html = testing::ReadFileOrDie(dir + "/r.html");
   const std::vector<std::string> rows = Lines(testing::ReadFileOrDie(dir + "/x.csv"));
   REQUIRE(!rows.empty());
   CHECK(rows[0] == "symbol,time,bar,return,limit,level");
@@ -225,14 +230,180 @@ TEST_CASE("replay --exceptions lists every VaR exception the backtest counts; --
     const std::string regime = s.at("regime_at_end").get<std::string>();
     CHECK((regime == "none" || regime == "high" || regime == "low"));
     CHECK(s.at("model_at_end").get<std::string>().find('/') != std::string::npos);
+    // The report's "last model version" of the symbol is the summary's.
+    CHECK(html.find(absl::StrCat("last model version ", s.at("version_at_end").get<int>(), ".")) !=
+          std::string::npos);
     CHECK(s.at("last_bar_ns").get<int64_t>() > s.at("first_bar_ns").get<int64_t>());
     for (const auto& l : s.at("var_backtests")) {
       const std::string level = absl::StrFormat("%g", l.at("level").get<double>());
       INFO(s.at("symbol").get<std::string>() << " " << level);
       CHECK(counted[{s.at("symbol").get<std::string>(), level}] == l.at("exceptions").get<int>());
+      if (level != "0.99") continue;
+      // One bar per tick, one second apart: intraday, 1500 bars on one day,
+      // so the zone is over bars and the report says so.
+      CHECK(l.at("zone_basis") == "bars");
+      CHECK(l.at("zone_window_days") == 0);
+      CHECK(l.at("zone_yellow_from") == 5);
+      CHECK(l.at("zone_red_from") == 10);
+      CHECK(html.find(absl::StrCat(l.at("zone_window_exceptions").get<int>(), " in the last ",
+                                   l.at("zone_window_bars").get<int>(),
+                                   " bars; yellow from 5, red from 10")) != std::string::npos);
     }
+    // The calibration figures the report prints are the summary's.
+    const auto& pit = s.at("pit");
+    int64_t total = 0;
+    for (const auto& c : pit.at("counts")) total += c.get<int64_t>();
+    CHECK(total == pit.at("bars").get<int64_t>());
+    CHECK(pit.at("chi_square_dof") == 19);
+    const std::string line =
+        absl::StrFormat("chi-square %.4g on 19 df, p = %.3g; Kolmogorov-Smirnov D = %.4g, p = %.3g",
+                        pit.at("chi_square").get<double>(), pit.at("chi_square_p").get<double>(),
+                        pit.at("ks_distance").get<double>(), pit.at("ks_p").get<double>());
+    INFO(line);
+    CHECK(html.find(line) != std::string::npos);
   }
   CHECK(symbols == 3);
+  CHECK(summary.at("zone_rule").at("source").get<std::string>().find("Basel Committee") == 0);
+  CHECK(summary.at("zone_rule").at("window_days") == 250);
+  CHECK(summary.at("models_at_end").size() >= 1);
+}
+
+TEST_CASE("replay --csv: one row per update, the same numbers as the JSON Lines", "[app][replay]") {
+  const std::string dir = testing::ScratchDir("replay_csv");
+  const std::vector<std::string> syms = {"QUAIL.A", "RAVEN.B"};
+  std::vector<std::vector<double>> rets;
+  const std::string input = testing::WriteFile(dir + "/ticks.csv", ReturnCsv(syms, 300, &rets));
+  const std::string cfg = testing::WriteFile(dir + "/c.toml", testing::kFixedModelToml);
+  const auto a = RunCli(
+      {"replay", "--config", cfg, "--input", input, "--output", dir + "/a.jsonl", "--quiet"});
+  const auto b = RunCli({"replay", "--config", cfg, "--input", input, "--output", dir + "/b.jsonl",
+                         "--csv", dir + "/b.csv", "--quiet"});
+  const auto c =
+      RunCli({"replay", "--config", cfg, "--input", input, "--csv", dir + "/c.csv", "--quiet"});
+  INFO(a.err << b.err << c.err);
+  REQUIRE(a.exit_code == 0);
+  REQUIRE(b.exit_code == 0);
+  REQUIRE(c.exit_code == 0);
+  // The JSON Lines beside the CSV are byte for byte those of a JSON-only run.
+  const std::string jsonl = testing::ReadFileOrDie(dir + "/a.jsonl");
+  CHECK(testing::ReadFileOrDie(dir + "/b.jsonl") == jsonl);
+  const std::string csv = testing::ReadFileOrDie(dir + "/b.csv");
+  CHECK(testing::ReadFileOrDie(dir + "/c.csv") == csv);
+  const auto json_lines = Lines(jsonl);
+  const auto rows = Lines(csv);
+  REQUIRE(json_lines.size() == 600);
+  REQUIRE(rows.size() == 601);
+  BarUpdate first;
+  REQUIRE(DecodeUpdateJson(json_lines[0], &first).ok());
+  std::string header = "symbol,time,r,mu,eps,var,z,var_next,vol_ann";
+  for (int i = 0; i < first.n_horizons; ++i) absl::StrAppend(&header, ",var_h_", first.horizons[i]);
+  for (int i = 0; i < first.n_levels; ++i) {
+    absl::StrAppend(&header, ",value_at_risk_", absl::StrFormat("%g", first.levels[i]), ",es_",
+                    absl::StrFormat("%g", first.levels[i]));
+  }
+  header += ",scale,ver,flags";
+  CHECK(rows[0] == header);
+  for (size_t i = 0; i < json_lines.size(); ++i) {
+    BarUpdate u;
+    REQUIRE(DecodeUpdateJson(json_lines[i], &u).ok());
+    std::string row = rows[i + 1];
+    INFO(row);
+    const std::string sym = row.substr(0, row.find(','));
+    row = row.substr(row.find(',') + 1);
+    CHECK(sym == std::string(u.symbol.view()));
+    const std::vector<std::string> f = absl::StrSplit(row, ',');
+    REQUIRE(f.size() == static_cast<size_t>(1 + 7 + u.n_horizons + 2 * u.n_levels + 3));
+    CHECK(f[0] == absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(u.t_ns),
+                                   absl::UTCTimeZone()));
+    // Every number parses back to the JSON's double exactly.
+    size_t k = 1;
+    for (double v : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) {
+      CHECK(std::strtod(f[k++].c_str(), nullptr) == v);
+    }
+    for (int h = 0; h < u.n_horizons; ++h)
+      CHECK(std::strtod(f[k++].c_str(), nullptr) == u.var_h[h]);
+    for (int l = 0; l < u.n_levels; ++l) {
+      CHECK(std::strtod(f[k++].c_str(), nullptr) == u.var_risk[l]);
+      CHECK(std::strtod(f[k++].c_str(), nullptr) == u.es[l]);
+    }
+    CHECK(std::strtod(f[k++].c_str(), nullptr) == u.scale);
+    CHECK(f[k++] == std::to_string(u.ver));
+    std::vector<std::string> names;
+    for (int bit = 0; bit < kNumUpdateFlags; ++bit) {
+      if (u.flags & (1u << bit)) names.emplace_back(FlagName(bit));
+    }
+    CHECK(f[k] == absl::StrJoin(names, "|"));
+  }
+  // Both outputs on standard output cannot be told apart: refused.
+  const auto both = RunCli(
+      {"replay", "--config", cfg, "--input", input, "--output", "-", "--csv", "-", "--quiet"});
+  CHECK(both.exit_code == 2);
+  CHECK(both.err.find("cannot both be standard output") != std::string::npos);
+  const auto bad = RunCli({"replay", "--config", cfg, "--input", input, "--csv",
+                           dir + "/no-such-dir/u.csv", "--quiet"});
+  CHECK(bad.exit_code == 2);
+  CHECK(bad.err.find("No such file or directory") != std::string::npos);
+}
+
+TEST_CASE("replay of 300 short sessions: zone over 250 trading days, time of day, summary = report",
+          "[app][replay]") {
+  const std::string dir = testing::ScratchDir("replay_trading_days");
+  // Two instruments, 300 sessions of 20 one-minute bars (09:00-09:20 UTC).
+  const auto sim =
+      RunCli({"simulate", "--symbols", "2", "--session", "09:00-09:20", "--sessions", "300",
+              "--field", "return", "--seed", "4", "--output", dir + "/ticks.csv", "--quiet"});
+  INFO(sim.err);
+  REQUIRE(sim.exit_code == 0);
+  const std::string cfg = testing::WriteFile(
+      dir + "/c.toml",
+      "[bars]\ninterval = \"1m\"\nsession = { start = \"09:00\", end = \"09:20\", "
+      "timezone_offset_minutes = 0 }\n[refit]\nevery_bars = 500\n");
+  const auto r = RunCli({"replay", "--config", cfg, "--input", dir + "/ticks.csv", "--summary-json",
+                         dir + "/s.json", "--report", dir + "/r.html", "--quiet"});
+  INFO(r.err);
+  REQUIRE(r.exit_code == 0);
+  const auto summary = nlohmann::json::parse(testing::ReadFileOrDie(dir + "/s.json"));
+  const std::string html = testing::ReadFileOrDie(dir + "/r.html");
+  REQUIRE(summary.at("symbols").size() == 2);
+  for (const auto& s : summary.at("symbols")) {
+    INFO(s.dump().substr(0, 400));
+    REQUIRE(s.contains("var_backtests"));
+    const auto& b99 = s.at("var_backtests").at(0);
+    REQUIRE(b99.at("level") == 0.99);
+    // Intraday bars over more than 250 sessions: every bar of the last 250.
+    CHECK(b99.at("zone_basis") == "trading_days");
+    CHECK(b99.at("zone_window_days") == 250);
+    CHECK(b99.at("zone_window_bars") == 250 * 20);
+    CHECK(b99.at("zone_windows").get<int>() >= 1);
+    const auto bounds = ZoneThresholds(5000, 0.01, EvaluationOptions{});
+    CHECK(b99.at("zone_yellow_from") == bounds.first);
+    CHECK(b99.at("zone_red_from") == bounds.second);
+    CHECK(bounds.first > 5);
+    CHECK(html.find(absl::StrCat(b99.at("zone_window_exceptions").get<int>(),
+                                 " in the last 250 trading days (5000 bars); yellow from ",
+                                 bounds.first, ", red from ", bounds.second)) != std::string::npos);
+    // The time-of-day figures of the summary are the report's table rows.
+    REQUIRE(s.contains("time_of_day"));
+    const auto& tod = s.at("time_of_day");
+    CHECK(tod.at("session_bars") == 20);
+    REQUIRE(tod.at("segments").size() == 12);
+    const std::string sym = s.at("symbol").get<std::string>();
+    size_t at = html.find("By time of day", html.find("<h2>" + sym + "</h2>"));
+    REQUIRE(at != std::string::npos);
+    int64_t bars = 0;
+    for (const auto& g : tod.at("segments")) {
+      const auto& e = g.at("by_level").at("0.99");
+      const std::string cell =
+          absl::StrFormat("<td class=\"num\">%d (%.1f)</td>", e.at("exceptions").get<int>(),
+                          e.at("expected").get<double>());
+      const size_t next = html.find(cell, at);
+      INFO(cell);
+      CHECK(next < html.find("</table>", at));
+      at = next == std::string::npos ? at : next;
+      bars += g.at("bars").get<int64_t>();
+    }
+    CHECK(bars == s.at("evaluated").get<int64_t>());
+  }
 }
 
 TEST_CASE("replay ends with warnings when the settings contradict the input", "[app][replay]") {

@@ -206,7 +206,17 @@ enabled = false
   CHECK(b99.at("kupiec_p").get<double>() < 0.05);
   CHECK(b99.at("christoffersen_p").get<double>() > 0.05);
   CHECK(b99.at("zone") == "green");
+  // One bar a day: the last 250 bars are 250 days, the published bounds apply.
+  CHECK(b99.at("zone_basis") == "daily_bars");
+  CHECK(b99.at("zone_window_bars") == 250);
+  CHECK(b99.at("zone_yellow_from") == 5);
+  CHECK(b99.at("zone_red_from") == 10);
+  CHECK(html.find(" in the last 250 daily bars; yellow from 5, red from 10") != std::string::npos);
   CHECK(sym.at("refits").at("swapped").get<int>() >= 10);
+  WARN("DEM/GBP PIT: chi-square " << sym.at("pit").at("chi_square") << " (p "
+                                  << sym.at("pit").at("chi_square_p") << "), KS D "
+                                  << sym.at("pit").at("ks_distance") << " (p "
+                                  << sym.at("pit").at("ks_p") << ")");
 }
 
 }  // namespace

@@ -7,6 +7,7 @@
 #include <catch2/catch.hpp>
 #include <filesystem>
 #include <regex>
+#include <sstream>
 #include <string>
 
 #include "aftershock/html_report.h"
@@ -65,19 +66,47 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
     return;
   }
   const std::string dir = testing::ScratchDir("report_browser");
-  const ReportInput in = testing::FixtureReport(6000);
+  ReportInput in = testing::FixtureReport(6000);
+  // Crowded model swaps on the first symbol: 40 on consecutive bars (a few
+  // pixels in all) and 15 every 60 bars (about 12 pixels apart): the marks
+  // must be merged or staggered so that no label is drawn over another.
+  {
+    SymbolHistory& h = in.symbols[0];
+    ModelSwapRecord base = h.swaps.front();
+    uint32_t version = 10;
+    for (int k = 0; k < 40; ++k) {
+      base.t_ns = h.t_ns[3000 + k];
+      base.accepted = k % 5 != 4;
+      base.version = base.accepted ? version++ : 0;
+      h.swaps.push_back(base);
+    }
+    for (int k = 0; k < 15; ++k) {
+      base.t_ns = h.t_ns[4000 + 60 * k];
+      base.accepted = true;
+      base.version = version++;
+      h.swaps.push_back(base);
+    }
+    std::stable_sort(h.swaps.begin(), h.swaps.end(),
+                     [](const auto& a, const auto& b) { return a.t_ns < b.t_ns; });
+  }
+  // Bar-of-session indices on the second symbol: its time-of-day chart.
+  for (size_t i = 0; i < in.symbols[1].t_ns.size(); ++i) {
+    in.symbols[1].session_bar.push_back(static_cast<int32_t>(i % 390));
+  }
   const std::string page = dir + "/report.html";
   REQUIRE(WriteHtmlReport(in, page).ok());
   const std::string url = "file://" + page;
-  // Expected charts, counted here from the input: returns, volatility, QQ and
-  // histogram per symbol, plus a parameter history for each symbol with at
-  // least two accepted refits.
+  // Expected charts, counted here from the input: losses, volatility and PIT
+  // per symbol, a time-of-day chart for each symbol with bar-of-session
+  // indices, and a parameter history for each symbol with at least two
+  // accepted refits.
   int expected = 0;
   for (const auto& s : in.symbols) {
     int accepted = 0;
     for (const auto& w : s.swaps) accepted += w.accepted ? 1 : 0;
-    expected += 4 + (accepted >= 2 ? 1 : 0);
+    expected += 3 + (s.session_bar.empty() ? 0 : 1) + (accepted >= 2 ? 1 : 0);
   }
+  REQUIRE(expected == 3 * 4 + 1);
 
   const CommandResult dom = Chromium(dir, "profile-dom", {"--dump-dom"}, url);
   INFO("chromium stderr (tail): " << dom.err.substr(dom.err.size() > 3000 ? dom.err.size() - 3000
@@ -123,13 +152,53 @@ TEST_CASE("the report renders in headless Chromium without errors", "[report][br
     std::string html = testing::ReadFileOrDie(page);
     const size_t end = html.rfind("</body>");
     REQUIRE(end != std::string::npos);
-    html.insert(end,
-                "<script>document.querySelectorAll('#overview th')[10].click();</script>"
-                "<script>deliberatelyMissingFunction();</script>");
+    html.insert(
+        end,
+        "<script>document.querySelectorAll('#overview th')[10].click();</script>"
+        // Laid-out geometry: swap labels that intersect, swap lines
+        // closer than a pixel, and where the overview ends.
+        "<script>(function () {"
+        "  var L = document.querySelectorAll('text.swap-label'), B = [], o = 0, m = 0, n = 0;"
+        "  L.forEach(function (t) { var b = t.getBBox(); B.push([t.ownerSVGElement, b.x, b.x + "
+        "b.width, b.y, b.y + b.height]); });"
+        "  for (var i = 0; i < B.length; ++i) for (var j = i + 1; j < B.length; ++j)"
+        "    if (B[i][0] === B[j][0] && B[i][1] < B[j][2] && B[j][1] < B[i][2] && B[i][3] < "
+        "B[j][4] && B[j][3] < B[i][4]) ++o;"
+        "  var G = document.querySelectorAll('g.swap-mark'), X = [];"
+        "  G.forEach(function (g) { n += +g.getAttribute('data-marks'); var l = "
+        "g.querySelector('line'); X.push([g.ownerSVGElement, +l.getAttribute('x1')]); });"
+        "  for (var a = 0; a < X.length; ++a) for (var c = a + 1; c < X.length; ++c)"
+        "    if (X[a][0] === X[c][0] && Math.abs(X[a][1] - X[c][1]) < 1) ++m;"
+        "  var r = document.getElementById('overview').getBoundingClientRect();"
+        "  document.body.setAttribute('data-geometry', [L.length, o, G.length, m, n, "
+        "Math.round(r.top + window.scrollY), Math.round(r.bottom + window.scrollY)].join(' '));"
+        "})();</script>"
+        "<script>deliberatelyMissingFunction();</script>");
     const std::string sorted_page = testing::WriteFile(dir + "/sorted.html", html);
-    const CommandResult sorted =
-        Chromium(dir, "profile-sort", {"--dump-dom"}, "file://" + sorted_page);
+    const CommandResult sorted = Chromium(
+        dir, "profile-sort", {"--window-size=1400,3000", "--dump-dom"}, "file://" + sorted_page);
     REQUIRE(sorted.exit_code == 0);
+    {
+      const std::string geo = Attr(sorted.out.substr(sorted.out.find("<body")), "data-geometry");
+      INFO(
+          "geometry: labels, label overlaps, marks, mark overlaps, swaps drawn, overview top "
+          "and bottom: "
+          << geo);
+      std::istringstream g(geo);
+      int labels = -1, overlaps = -1, marks = -1, mark_overlaps = -1, swaps = -1, top = -1,
+          bottom = -1;
+      g >> labels >> overlaps >> marks >> mark_overlaps >> swaps >> top >> bottom;
+      size_t all_swaps = 0;
+      for (const auto& s : in.symbols) all_swaps += s.swaps.size();
+      CHECK(swaps == static_cast<int>(all_swaps));  // every swap is in some mark
+      CHECK(marks < swaps);                         // the crowded ones were merged
+      CHECK(labels == marks);
+      CHECK(overlaps == 0);
+      CHECK(mark_overlaps == 0);
+      // The screenshot (1400 x 3000) shows the whole overview.
+      CHECK(top > 0);
+      CHECK(bottom < 3000);
+    }
     const size_t st = sorted.out.find("id=\"report-status\"");
     REQUIRE(st != std::string::npos);
     const size_t st_open = sorted.out.rfind('<', st);

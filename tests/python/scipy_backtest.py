@@ -12,6 +12,18 @@ Reads one JSON object on stdin and prints one JSON object on stdout.
   {"binom": [{"n": 250, "p": 0.01, "k": 4}, ...]}
       -> "binom": [P(X <= k), ...] from scipy.stats.binom.cdf.
 
+  {"zone_thresholds": [{"n": 97500, "p": 0.01, "q": 0.95}, ...]}
+      -> "zone_thresholds": [smallest k with P(X <= k) >= q, ...] from
+     scipy.stats.binom.ppf(q, n, p) (the scaled traffic-light bounds).
+
+  {"pit": [{"z": [...], "law": "gaussian" | "student", "nu": 6, "bins": 20}, ...]}
+      -> "pit": [{"counts", "chi2", "chi2_p", "ks_d", "ks_p"}, ...]
+     u = F(z) with scipy.stats.norm.cdf, or for the standardized Student t
+     scipy.stats.t.cdf(z * sqrt(nu / (nu - 2)), nu); counts from numpy.histogram
+     on equal bins of [0, 1]; chi-square and its p from scipy.stats.chisquare;
+     D and p from scipy.stats.kstest(u, "uniform", method="asymp") (two-sided,
+     the limiting Kolmogorov distribution, scipy.stats.kstwobign).
+
   {"ols": [{"y": [...], "x": [...]}, ...]}
       -> "ols": [{"params": [a, b], "bse": [...], "bse_hc0": [...], "rsquared"}]
      from statsmodels.api.OLS(y, add_constant(x)).fit() and .fit(cov_type="HC0").
@@ -66,6 +78,19 @@ def ols(y, x):
             "bse_hc0": robust.bse.tolist(), "rsquared": float(classic.rsquared)}
 
 
+def pit(z, law, nu, bins):
+    z = np.asarray(z, dtype=float)
+    if law == "student":
+        u = stats.t.cdf(z * np.sqrt(nu / (nu - 2.0)), nu)
+    else:
+        u = stats.norm.cdf(z)
+    counts, _ = np.histogram(u, bins=bins, range=(0.0, 1.0))
+    chi = stats.chisquare(counts)
+    ks = stats.kstest(u, "uniform", method="asymp")
+    return {"counts": counts.tolist(), "chi2": float(chi.statistic), "chi2_p": float(chi.pvalue),
+            "ks_d": float(ks.statistic), "ks_p": float(ks.pvalue)}
+
+
 def main():
     req = json.load(sys.stdin)
     out = {}
@@ -73,6 +98,11 @@ def main():
         out["exceptions"] = [exception_tests(c["hits"], c["p"]) for c in req["exceptions"]]
     if "binom" in req:
         out["binom"] = [float(stats.binom.cdf(c["k"], c["n"], c["p"])) for c in req["binom"]]
+    if "zone_thresholds" in req:
+        out["zone_thresholds"] = [int(stats.binom.ppf(c["q"], c["n"], c["p"]))
+                                  for c in req["zone_thresholds"]]
+    if "pit" in req:
+        out["pit"] = [pit(c["z"], c["law"], c.get("nu", 0.0), c["bins"]) for c in req["pit"]]
     if "ols" in req:
         out["ols"] = [ols(c["y"], c["x"]) for c in req["ols"]]
     json.dump(out, sys.stdout)

@@ -1,0 +1,149 @@
+#include "aftershock/update_csv.h"
+
+#include <cerrno>
+#include <charconv>
+#include <cstring>
+#include <utility>
+
+#include "absl/strings/match.h"
+#include "absl/strings/str_cat.h"
+#include "absl/time/time.h"
+#include "aftershock/update_codec.h"
+
+namespace aftershock {
+namespace {
+
+constexpr size_t kCsvBufferBytes = 1 << 20;
+
+// Shortest text that parses back to the same double.
+void AppendDouble(double v, std::string* out) {
+  char buf[32];
+  const auto r = std::to_chars(buf, buf + sizeof(buf), v);
+  out->append(buf, r.ptr);
+}
+
+// The level as a column-name suffix: the shortest form, e.g. 0.99 or 0.975.
+std::string LevelKey(double level) {
+  std::string s;
+  AppendDouble(level, &s);
+  return s;
+}
+
+void AppendField(absl::string_view s, std::string* out) {
+  if (s.find_first_of(",\"\r\n") == absl::string_view::npos) {
+    out->append(s.data(), s.size());
+    return;
+  }
+  out->push_back('"');
+  for (char c : s) {
+    if (c == '"') out->push_back('"');
+    out->push_back(c);
+  }
+  out->push_back('"');
+}
+
+}  // namespace
+
+std::string UpdateCsvHeader(absl::Span<const int> horizons, absl::Span<const double> levels) {
+  std::string h = "symbol,time,r,mu,eps,var,z,var_next,vol_ann";
+  for (int k : horizons) absl::StrAppend(&h, ",var_h_", k);
+  for (double l : levels) {
+    const std::string key = LevelKey(l);
+    absl::StrAppend(&h, ",value_at_risk_", key, ",es_", key);
+  }
+  h += ",scale,ver,flags\n";
+  return h;
+}
+
+absl::Status AppendUpdateCsvRow(const BarUpdate& u, std::string* out) {
+  if (u.n_horizons < 0 || u.n_horizons > kMaxHorizons || u.n_levels < 0 ||
+      u.n_levels > kMaxRiskLevels) {
+    return absl::InvalidArgumentError(
+        absl::StrCat("update for ", u.symbol.view(), ": horizon or level count out of range"));
+  }
+  AppendField(u.symbol.view(), out);
+  out->push_back(',');
+  out->append(
+      absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(u.t_ns), absl::UTCTimeZone()));
+  for (double v : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) {
+    out->push_back(',');
+    AppendDouble(v, out);
+  }
+  for (int i = 0; i < u.n_horizons; ++i) {
+    out->push_back(',');
+    AppendDouble(u.var_h[i], out);
+  }
+  for (int i = 0; i < u.n_levels; ++i) {
+    out->push_back(',');
+    AppendDouble(u.var_risk[i], out);
+    out->push_back(',');
+    AppendDouble(u.es[i], out);
+  }
+  out->push_back(',');
+  AppendDouble(u.scale, out);
+  absl::StrAppend(out, ",", u.ver, ",");
+  bool first = true;
+  for (int bit = 0; bit < kNumUpdateFlags; ++bit) {
+    if (!(u.flags & (1u << bit))) continue;
+    if (!first) out->push_back('|');
+    first = false;
+    const absl::string_view name = FlagName(bit);
+    out->append(name.data(), name.size());
+  }
+  out->push_back('\n');
+  return absl::OkStatus();
+}
+
+absl::StatusOr<std::unique_ptr<UpdateCsvSink>> UpdateCsvSink::Open(const std::string& path,
+                                                                   const std::string& header,
+                                                                   UpdateSink* json_lines) {
+  std::FILE* f = path == "-" ? stdout : std::fopen(path.c_str(), "wb");
+  if (f == nullptr) {
+    return absl::NotFoundError(
+        absl::StrCat("cannot open '", path, "' for writing: ", std::strerror(errno)));
+  }
+  std::unique_ptr<UpdateCsvSink> sink(
+      new UpdateCsvSink(f, path != "-", path == "-" ? "standard output" : path, json_lines));
+  sink->buffer_ = header;
+  return sink;
+}
+
+UpdateCsvSink::UpdateCsvSink(std::FILE* f, bool owned, std::string path, UpdateSink* json_lines)
+    : file_(f), owned_(owned), path_(std::move(path)), json_lines_(json_lines) {
+  buffer_.reserve(kCsvBufferBytes + 4096);
+}
+
+UpdateCsvSink::~UpdateCsvSink() {
+  Flush().IgnoreError();
+  if (owned_) std::fclose(file_);
+}
+
+bool UpdateCsvSink::Send(absl::string_view topic, absl::string_view body) {
+  if (!absl::StartsWith(topic, "u.")) return true;
+  BarUpdate u;
+  if (!DecodeUpdateBinary(body, &u).ok()) return false;
+  if (!AppendUpdateCsvRow(u, &buffer_).ok()) return false;
+  ++rows_;
+  if (json_lines_ != nullptr) {
+    if (!EncodeUpdateJson(u, &json_).ok()) return false;
+    if (!json_lines_->Send(topic, json_)) return false;
+  }
+  if (buffer_.size() >= kCsvBufferBytes) {
+    if (std::fwrite(buffer_.data(), 1, buffer_.size(), file_) != buffer_.size()) failed_ = true;
+    buffer_.clear();
+  }
+  return true;
+}
+
+absl::Status UpdateCsvSink::Flush() {
+  if (!buffer_.empty()) {
+    if (std::fwrite(buffer_.data(), 1, buffer_.size(), file_) != buffer_.size()) failed_ = true;
+    buffer_.clear();
+  }
+  if (std::fflush(file_) != 0) failed_ = true;
+  absl::Status js = json_lines_ != nullptr ? json_lines_->Flush() : absl::OkStatus();
+  if (failed_) return absl::DataLossError(absl::StrCat("write to '", path_, "' failed"));
+  return js;
+}
+
+}  // namespace aftershock
