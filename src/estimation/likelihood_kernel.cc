@@ -13,18 +13,19 @@ namespace {
 constexpr double kLogTwoPi = 1.8378770664093454836;
 
 // Partial derivatives of one likelihood term log f(e / sqrt(v)) - log(v) / 2 in
-// eps, sigma2 and (Student-t) nu; shared by the fast and the general path.
+// eps, sigma2 and (Student-t) nu, for the general path.
 struct TermDerivatives {
   double de, dv, dnu;
 };
 
 // Standardized t: u = e^2 / (v (nu - 2)), l1u = log1p(u), inv_v = 1 / v.
+// inv_nu2 = 1 / (nu - 2).
 inline TermDerivatives StudentTerm(double e, double inv_v, double u, double l1u, double nu,
-                                   double dconst_dnu) {
+                                   double inv_nu2, double dconst_dnu) {
   const double inv = 1.0 / (1.0 + u);
-  return {-(nu + 1.0) * e * inv_v / (nu - 2.0) * inv,
+  return {-(nu + 1.0) * e * inv_v * inv_nu2 * inv,
           (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v,
-          dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u / (nu - 2.0) * inv};
+          dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u * inv_nu2 * inv};
 }
 
 // d^2 LogNormalizerT / d nu^2 = 1/4 psi'((nu+1)/2) - 1/4 psi'(nu/2) + 1/(2 (nu-2)^2),
@@ -491,8 +492,17 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
   const double* beta = gamma + no;
   const double lambda = vk == VarianceKind::kEwma ? theta[v0] : 0.0;
   const double s2 = s2_;
+  const int dist = spec_.DistOffset();
+  const double inv_nu2 = student ? 1.0 / (nu - 2.0) : 0.0;
 
-  double ll = 0;
+  // Logs of products of 8 terms instead of a log per term (as on the
+  // order-one path); per-term log(1 + u) only where per-term scores need it.
+  double quad = 0;       // sum of e2/v (normal)
+  double log_sum = 0;    // sum of log v
+  double log_u_sum = 0;  // sum of log(1 + u) (Student-t)
+  double prod_v = 1.0, prod_u = 1.0;
+  constexpr int kChunk = 8;
+  int in_chunk = 0;
   for (int k = 0; k < n_; ++k) {
     // ---- conditional variance (same summation order as the online filter) ----
     double v;
@@ -583,18 +593,31 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
     const double e = eps_[k];
     const double e2 = e * e;
     const double inv_v = 1.0 / v;
+    prod_v *= v;
+    double u = 0, q = 0;
+    if (student) {
+      u = e2 * inv_v * inv_nu2;
+      prod_u *= 1.0 + u;
+    } else {
+      q = e2 * inv_v;
+      quad += q;
+    }
+    if (++in_chunk == kChunk) {
+      log_sum += std::log(prod_v);
+      prod_v = 1.0;
+      if (student) {
+        log_u_sum += std::log(prod_u);
+        prod_u = 1.0;
+      }
+      in_chunk = 0;
+    }
+    if (!with_grad) continue;
     TermDerivatives t;
     if (student) {
-      const double u = e2 * inv_v / (nu - 2.0);
-      const double l1u = std::log1p(u);
-      ll += const_term - 0.5 * std::log(v) - 0.5 * (nu + 1.0) * l1u;
-      if (!with_grad) continue;
-      t = StudentTerm(e, inv_v, u, l1u, nu, dconst_dnu);
-      work_[spec_.DistOffset()] = t.dnu;
+      // Without scores the -log(1 + u) / 2 part of d/dnu is added once at the end.
+      t = StudentTerm(e, inv_v, u, scores ? std::log1p(u) : 0.0, nu, inv_nu2, dconst_dnu);
+      work_[dist] = t.dnu;
     } else {
-      const double q = e2 * inv_v;
-      ll += const_term - 0.5 * (q + std::log(v));
-      if (!with_grad) continue;
       t = NormalTerm(e, inv_v, q);
     }
     const double dl_de = t.de, dl_dv = t.dv;
@@ -604,6 +627,15 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
     for (int c = 0; c < nm_; ++c) work_[c] += dl_de * d[c];
     for (int c = 0; c < k_; ++c) grad[c] += work_[c];
     if (scores) std::copy(work_.begin(), work_.end(), scores + static_cast<size_t>(k) * k_);
+  }
+  log_sum += std::log(prod_v);
+  double ll;
+  if (student) {
+    log_u_sum += std::log(prod_u);
+    ll = n_ * const_term - 0.5 * log_sum - 0.5 * (nu + 1.0) * log_u_sum;
+    if (with_grad && !scores) grad[dist] -= 0.5 * log_u_sum;
+  } else {
+    ll = n_ * const_term - 0.5 * (quad + log_sum);
   }
   return ll;
 }
