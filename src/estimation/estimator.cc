@@ -217,8 +217,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
                 : kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
       ++out.evals;
       // Round-off slack: near the optimum the rise is below the sum's precision.
-      if (std::isfinite(ll_try) &&
-          ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
+      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
         accepted = true;
         t_accepted = t;
         theta.swap(trial);
@@ -639,7 +638,8 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
     // Outer product of the scores (free columns of the nobs x K row-major matrix).
     Eigen::MatrixXd S(res.nobs, k_free);
     for (int t = 0; t < res.nobs; ++t) {
-      for (int a = 0; a < k_free; ++a) S(t, a) = scores[static_cast<size_t>(t) * K + prob.free_idx[a]];
+      for (int a = 0; a < k_free; ++a)
+        S(t, a) = scores[static_cast<size_t>(t) * K + prob.free_idx[a]];
     }
     const Eigen::MatrixXd J = S.transpose() * S;
     Eigen::LDLT<Eigen::MatrixXd> ldlt(-H);

@@ -244,9 +244,8 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
         order.push_back(i);
       }
     }
-    std::sort(arch.begin(), arch.end(), [&](size_t x, size_t y) {
-      return specs[x].arch_order > specs[y].arch_order;
-    });
+    std::sort(arch.begin(), arch.end(),
+              [&](size_t x, size_t y) { return specs[x].arch_order > specs[y].arch_order; });
     order.insert(order.end(), arch.begin(), arch.end());
   }
   auto nests = [](const ModelSpec& big, const ModelSpec& small) {
@@ -255,10 +254,14 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
     }
     const int m = small.arch_order;
     switch (big.variance) {
-      case VarianceKind::kArch: return big.arch_order >= m;
-      case VarianceKind::kGarch: return big.arch_order >= m;  // beta = 0
-      case VarianceKind::kGjr: return big.arch_order >= m;    // gamma = beta = 0
-      default: return false;
+      case VarianceKind::kArch:
+        return big.arch_order >= m;
+      case VarianceKind::kGarch:
+        return big.arch_order >= m;  // beta = 0
+      case VarianceKind::kGjr:
+        return big.arch_order >= m;  // gamma = beta = 0
+      default:
+        return false;
     }
   };
   const double log_n = std::log(static_cast<double>(mean_residuals.size()));
@@ -278,8 +281,8 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
           bound_from = static_cast<int>(j);
         }
       }
-      const int k = 1 + specs[i].arch_order +
-                    (specs[i].innovations == Innovations::kStudentT ? 1 : 0);
+      const int k =
+          1 + specs[i].arch_order + (specs[i].innovations == Innovations::kStudentT ? 1 : 0);
       const double crit_bound =
           Criterion(options.criterion, -2.0 * ll_bound + 2.0 * k, -2.0 * ll_bound + k * log_n);
       if (bound_from >= 0 && crit_bound > best_crit + kPruneMargin) {

@@ -23,8 +23,7 @@ struct TermDerivatives {
 inline TermDerivatives StudentTerm(double e, double inv_v, double u, double l1u, double nu,
                                    double inv_nu2, double dconst_dnu) {
   const double inv = 1.0 / (1.0 + u);
-  return {-(nu + 1.0) * e * inv_v * inv_nu2 * inv,
-          (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v,
+  return {-(nu + 1.0) * e * inv_v * inv_nu2 * inv, (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v,
           dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u * inv_nu2 * inv};
 }
 
@@ -178,8 +177,7 @@ void LikelihoodKernel::Presample(bool with_grad) {
 // these stay far inside the double range), also for the gradient's
 // sum of log(1 + u), so no log is taken per term unless per-term scores are asked.
 template <bool kMu, bool kGjr, bool kStudent, int kLevel>
-double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* scores,
-                                  double* hess) {
+double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* scores, double* hess) {
   constexpr bool kGrad = kLevel >= 1;
   constexpr bool kHess = kLevel >= 2;
   constexpr int kMuS = 0, kOm = 1, kAl = 2, kGa = 3, kBe = 4, kNu = 5;  // slots
@@ -257,8 +255,8 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
   // d sigma2_{k-1} / d slot (nu: 0), and the second derivatives that are not
   // identically zero (the others stay 0 from the presample on).
   double dv[5] = {ds2, 0, 0, 0, 0};
-  double h_mumu = d2s2, h_mual = 0, h_muga = 0, h_mube = 0, h_ombe = 0, h_albe = 0,
-         h_gabe = 0, h_bebe = 0;
+  double h_mumu = d2s2, h_mual = 0, h_muga = 0, h_mube = 0, h_ombe = 0, h_albe = 0, h_gabe = 0,
+         h_bebe = 0;
   double g[6] = {0, 0, 0, 0, 0, 0};
   double H[6][6] = {};
   double g_nu_rest = 0;  // the part of d ll / d nu other than the log sum
@@ -283,10 +281,10 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
            l_nunu = 0;
     if (kStudent) {
       const double s = e2 * inv_nu2;
-      const double vs = v + s;               // v (1 + u)
+      const double vs = v + s;  // v (1 + u)
       const double rr = 1.0 / (v * vs);
       const double inv_v = vs * rr;
-      const double iw = v * v * rr;          // 1 / (1 + u)
+      const double iw = v * v * rr;  // 1 / (1 + u)
       const double u = s * inv_v;
       prod_u *= 1.0 + u;
       if (kGrad) {
@@ -440,23 +438,42 @@ double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, dou
   const bool t = spec_.innovations == Innovations::kStudentT;
   const int level = hess ? 2 : grad ? 1 : 0;
   // 2 x 2 x 2 x 3 instantiations, chosen once per call.
-#define AFTERSHOCK_ORDER_ONE(M, G, T)                                     \
-  switch (level) {                                                        \
-    case 0: return OrderOne<M, G, T, 0>(theta, grad, scores, hess);       \
-    case 1: return OrderOne<M, G, T, 1>(theta, grad, scores, hess);       \
-    default: return OrderOne<M, G, T, 2>(theta, grad, scores, hess);      \
+#define AFTERSHOCK_ORDER_ONE(M, G, T)                         \
+  switch (level) {                                            \
+    case 0:                                                   \
+      return OrderOne<M, G, T, 0>(theta, grad, scores, hess); \
+    case 1:                                                   \
+      return OrderOne<M, G, T, 1>(theta, grad, scores, hess); \
+    default:                                                  \
+      return OrderOne<M, G, T, 2>(theta, grad, scores, hess); \
   }
   if (mu) {
     if (gjr) {
-      if (t) { AFTERSHOCK_ORDER_ONE(true, true, true) } else { AFTERSHOCK_ORDER_ONE(true, true, false) }
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(true, true, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(true, true, false)
+      }
     } else {
-      if (t) { AFTERSHOCK_ORDER_ONE(true, false, true) } else { AFTERSHOCK_ORDER_ONE(true, false, false) }
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(true, false, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(true, false, false)
+      }
     }
   } else {
     if (gjr) {
-      if (t) { AFTERSHOCK_ORDER_ONE(false, true, true) } else { AFTERSHOCK_ORDER_ONE(false, true, false) }
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(false, true, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(false, true, false)
+      }
     } else {
-      if (t) { AFTERSHOCK_ORDER_ONE(false, false, true) } else { AFTERSHOCK_ORDER_ONE(false, false, false) }
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(false, false, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(false, false, false)
+      }
     }
   }
 #undef AFTERSHOCK_ORDER_ONE
