@@ -12,6 +12,7 @@
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
 #include "aftershock/likelihood.h"
+#include "estimation/estimator_internal.h"
 #include "estimation/likelihood_kernel.h"
 
 namespace aftershock {
@@ -121,6 +122,139 @@ RunOutcome RunOptimizer(nlopt_algorithm algo, Problem* prob, const std::vector<d
   return out;
 }
 
+// Newton's method from a warm start on the order-one path (the kernel's
+// analytic Hessian), on the free parameters of the scaled problem:
+//   step = (-H_ff)^-1 g_f, halved until the point is strictly inside the
+//   bounds and the persistence cap and the log-likelihood rises by an Armijo
+//   fraction of the predicted gain; converged when the largest free gradient
+//   component per observation is <= gtol at an accepted point.
+// A pass with the Hessian costs about three with the gradient alone, so near
+// the optimum the Hessian is kept (a chord step: the gradient contracts
+// linearly at a rate set by how far the Hessian moved, tiny there): trial
+// points are evaluated with the gradient only while each full step shrinks the
+// gradient at least tenfold, and with the Hessian again otherwise.
+// Gives up (converged = false) when no damping makes -H_ff positive definite,
+// no step is accepted or the iterations run out.
+struct NewtonOutcome {
+  std::vector<double> theta;  // full scaled vector: the converged or best point
+  double loglik = -std::numeric_limits<double>::infinity();
+  bool converged = false;
+  int evals = 0;
+  int iterations = 0;
+};
+
+NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& prob,
+                             const std::vector<double>& lb, const std::vector<double>& ub,
+                             std::vector<double> theta, int max_iterations, double gtol) {
+  NewtonOutcome out;
+  const int K = kernel->num_params();
+  const int nf = static_cast<int>(prob.free_idx.size());
+  auto inside = [&](const std::vector<double>& th) {
+    for (int i = 0; i < nf; ++i) {
+      const double x = th[prob.free_idx[i]];
+      if (!(x > lb[i] && x < ub[i])) return false;
+    }
+    double pers = 0;
+    for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
+      pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
+    }
+    return pers <= kOptimizerMaxPersistence;
+  };
+  if (nf == 0 || !inside(theta)) return out;
+  std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
+      h_try(static_cast<size_t>(K) * K), trial;
+  double ll = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
+  ++out.evals;
+  if (!std::isfinite(ll)) return out;
+  bool h_current = true;  // h was evaluated at theta
+  bool chord = true;      // evaluate trial points without the Hessian
+  out.theta = theta;
+  out.loglik = ll;
+  const double inv_n = 1.0 / kernel->nobs();
+  auto gradient_max = [&](const std::vector<double>& grad) {
+    double m = 0;
+    for (int a = 0; a < nf; ++a) m = std::max(m, std::fabs(grad[prob.free_idx[a]]) * inv_n);
+    return m;
+  };
+  Eigen::VectorXd gf(nf), step(nf);
+  Eigen::MatrixXd neg_h(nf, nf);
+  double gmax = gradient_max(g);
+  for (int it = 0;; ++it) {
+    if (gmax <= gtol) {
+      out.converged = true;
+      return out;
+    }
+    if (it == max_iterations) return out;
+    for (int a = 0; a < nf; ++a) {
+      gf[a] = g[prob.free_idx[a]];
+      for (int b = 0; b < nf; ++b) {
+        neg_h(a, b) = -h[static_cast<size_t>(prob.free_idx[a]) * K + prob.free_idx[b]];
+      }
+    }
+    // Away from the maximum -H may be indefinite: damp its diagonal
+    // (Levenberg) until it is positive definite, which shortens the step and
+    // turns it towards the gradient.
+    Eigen::LLT<Eigen::MatrixXd> llt(neg_h);
+    for (double tau = 1e-4; llt.info() != Eigen::Success; tau *= 10) {
+      if (tau > 1e4) return out;
+      Eigen::MatrixXd damped = neg_h;
+      for (int a = 0; a < nf; ++a) {
+        damped(a, a) += tau * std::max(std::fabs(neg_h(a, a)), 1e-8 * kernel->nobs());
+      }
+      llt.compute(damped);
+    }
+    step = llt.solve(gf);
+    const double gain = gf.dot(step);  // predicted rise x 2, > 0
+    if (!(gain > 0) || !std::isfinite(gain)) return out;
+    bool accepted = false;
+    double t = 1.0, t_accepted = 0.0;
+    for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
+      trial = theta;
+      for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += t * step[a];
+      if (!inside(trial)) continue;
+      const double ll_try =
+          chord ? kernel->Evaluate(trial.data(), g_try.data(), nullptr)
+                : kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
+      ++out.evals;
+      // Round-off slack: near the optimum the rise is below the sum's precision.
+      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
+        accepted = true;
+        t_accepted = t;
+        theta.swap(trial);
+        g.swap(g_try);
+        if (!chord) h.swap(h_try);
+        h_current = !chord;
+        ll = ll_try;
+      }
+    }
+    if (!accepted && h_current) return out;
+    if (accepted) {
+      ++out.iterations;
+      out.theta = theta;
+      out.loglik = ll;
+      const double gmax_new = gradient_max(g);
+      const bool fast = t_accepted == 1.0 && gmax_new <= 0.1 * gmax;
+      gmax = gmax_new;
+      if (fast) {
+        chord = true;
+        continue;
+      }
+      if (gmax <= gtol) continue;  // converged: no Hessian needed
+    }
+    // Slow progress (or a stale Hessian that found no step): a fresh Hessian
+    // here, and trial points with the Hessian until progress is fast again.
+    chord = false;
+    if (!h_current) {
+      const double ll_h = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
+      ++out.evals;
+      if (!std::isfinite(ll_h)) return out;
+      ll = ll_h;
+      h_current = true;
+      gmax = gradient_max(g);
+    }
+  }
+}
+
 // Cold starting points on the unit-variance scale, one full vector each.
 std::vector<std::vector<double>> GridStarts(const ModelSpec& spec, double mean_y,
                                             double ewma_lambda) {
@@ -186,18 +320,12 @@ absl::Status ValidateReturns(absl::Span<const double> returns, int min_obs) {
 // data only through the residuals, so the variance part is fitted as a
 // zero-mean model of the residual series (same terms, same presample), which
 // is cheaper and takes the order-one fast path where it applies.
-absl::StatusOr<FitResult> FitWithFixedMean(const ModelSpec& spec, absl::Span<const double> returns,
-                                           const FitOptions& options,
-                                           std::chrono::steady_clock::time_point t0) {
+namespace {
+
+absl::StatusOr<FitResult> FitResiduals(const ModelSpec& spec, absl::Span<const double> eps,
+                                       const FitOptions& options,
+                                       std::chrono::steady_clock::time_point t0) {
   const int nm = spec.NumMeanParams();
-  LikelihoodOptions lo;
-  lo.gradient = false;
-  lo.series = true;
-  lo.presample = options.presample;
-  ModelParams probe = *options.start;
-  // Residuals do not depend on the variance block; make it valid anyway.
-  auto eps = EvaluateLikelihood(probe, returns, lo);
-  if (!eps.ok()) return eps.status();
   ModelSpec zero = spec;
   zero.mean = MeanKind::kZero;
   zero.ar_order = zero.ma_order = 0;
@@ -205,7 +333,7 @@ absl::StatusOr<FitResult> FitWithFixedMean(const ModelSpec& spec, absl::Span<con
   sub.fix_mean = false;
   sub.start = ModelParams{zero, std::vector<double>(options.start->values.begin() + nm,
                                                     options.start->values.end())};
-  auto fit = FitModel(zero, eps->residuals, sub);
+  auto fit = FitModel(zero, eps, sub);
   if (!fit.ok()) return fit.status();
   FitResult res = *std::move(fit);
   std::vector<double> values(options.start->values.begin(), options.start->values.begin() + nm);
@@ -218,10 +346,39 @@ absl::StatusOr<FitResult> FitWithFixedMean(const ModelSpec& spec, absl::Span<con
   const double nan = std::numeric_limits<double>::quiet_NaN();
   res.std_errors.insert(res.std_errors.begin(), nm, nan);
   res.robust_std_errors.insert(res.robust_std_errors.begin(), nm, nan);
-  if (options.keep_series) res.residuals = eps->residuals;
+  if (options.keep_series) res.residuals.assign(eps.begin(), eps.end());
   res.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   return res;
 }
+
+// Two-step estimation: with the mean held fixed the likelihood depends on the
+// data only through the residuals, so the variance part is fitted as a
+// zero-mean model of the residual series (same terms, same presample), which
+// is cheaper and takes the order-one fast path where it applies.
+absl::StatusOr<FitResult> FitWithFixedMean(const ModelSpec& spec, absl::Span<const double> returns,
+                                           const FitOptions& options,
+                                           std::chrono::steady_clock::time_point t0) {
+  LikelihoodOptions lo;
+  lo.gradient = false;
+  lo.series = true;
+  lo.presample = options.presample;
+  // Residuals do not depend on the variance block.
+  auto eps = EvaluateLikelihood(*options.start, returns, lo);
+  if (!eps.ok()) return eps.status();
+  return FitResiduals(spec, eps->residuals, options, t0);
+}
+
+}  // namespace
+
+namespace internal {
+
+absl::StatusOr<FitResult> FitOnFixedMeanResiduals(const ModelSpec& spec,
+                                                  absl::Span<const double> residuals,
+                                                  const FitOptions& options) {
+  return FitResiduals(spec, residuals, options, std::chrono::steady_clock::now());
+}
+
+}  // namespace internal
 
 absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const double> returns,
                                    const FitOptions& options) {
@@ -345,6 +502,28 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   std::string best_label;
   bool converged = false;
   std::string message;
+  // From a warm start (or the best grid point) the optimum is usually a few
+  // Newton steps away; SLSQP remains the fallback.
+  double newton_loglik = std::numeric_limits<double>::quiet_NaN();
+  if (k_free > 0 && options.newton_iterations > 0 && kernel.has_hessian()) {
+    NewtonOutcome nw = RefineByNewton(&kernel, prob, lb, ub, attempts[0].theta,
+                                      options.newton_iterations, options.newton_gradient_tol);
+    prob.evals += nw.evals;
+    if (nw.converged) {
+      best.x = to_free(nw.theta);
+      best.objective = -nw.loglik / kernel.nobs();
+      best.code = NLOPT_SUCCESS;
+      best_label = attempts[0].label;
+      converged = true;
+      message = absl::StrCat("Newton converged in ", nw.iterations, " steps");
+      newton_loglik = nw.loglik;
+      prob.full = nw.theta;
+      attempts.clear();
+    }
+    // Otherwise SLSQP starts from the same point as without Newton steps: on a
+    // flat likelihood with several maxima, Newton's last point may lie in the
+    // basin of a worse one.
+  }
   for (size_t a = 0; a < attempts.size(); ++a) {
     const Attempt att = attempts[a];
     prob.full = att.theta;
@@ -399,8 +578,20 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   res.num_estimated = k_free;
 
   std::vector<double> scores(options.std_errors ? static_cast<size_t>(kernel.nobs()) * K : 0);
-  const double ll_s = kernel.Evaluate(theta_s.data(), nullptr, nullptr);
-  if (options.std_errors) {
+  // With an analytic Hessian one pass gives the value, the scores and the
+  // Hessian for the standard errors; a converged Newton run already has the value.
+  const bool analytic_hessian = options.std_errors && k_free > 0 && kernel.has_hessian();
+  std::vector<double> hess_full(analytic_hessian ? static_cast<size_t>(K) * K : 0);
+  double ll_s;
+  if (analytic_hessian) {
+    std::vector<double> g0(K);
+    ll_s = kernel.EvaluateHessian(theta_s.data(), g0.data(), hess_full.data(), scores.data());
+  } else if (std::isfinite(newton_loglik)) {
+    ll_s = newton_loglik;
+  } else {
+    ll_s = kernel.Evaluate(theta_s.data(), nullptr, nullptr);
+  }
+  if (options.std_errors && !analytic_hessian) {
     std::vector<double> g0(K);
     kernel.Evaluate(theta_s.data(), g0.data(), scores.data());
   }
@@ -417,12 +608,19 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   res.std_errors.assign(K, std::numeric_limits<double>::quiet_NaN());
   res.robust_std_errors.assign(K, std::numeric_limits<double>::quiet_NaN());
   if (options.std_errors && k_free > 0 && std::isfinite(ll_s)) {
-    // Hessian of the scaled log-likelihood by central differences of the
-    // analytic gradient, restricted to the estimated parameters.
+    // Hessian of the scaled log-likelihood, restricted to the estimated
+    // parameters: analytic where the kernel has it, else by central
+    // differences of the analytic gradient.
     Eigen::MatrixXd H(k_free, k_free);
     std::vector<double> gp(K), gm(K), th(theta_s);
     bool finite = true;
-    for (int a = 0; a < k_free; ++a) {
+    for (int a = 0; a < k_free && analytic_hessian; ++a) {
+      for (int b = 0; b < k_free; ++b) {
+        H(b, a) = hess_full[static_cast<size_t>(prob.free_idx[b]) * K + prob.free_idx[a]];
+        finite = finite && std::isfinite(H(b, a));
+      }
+    }
+    for (int a = 0; a < k_free && !analytic_hessian; ++a) {
       const int ia = prob.free_idx[a];
       const double h = 1e-5 * std::max(std::fabs(theta_s[ia]), 1e-2);
       th[ia] = theta_s[ia] + h;
@@ -437,12 +635,13 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       }
     }
     H = 0.5 * (H + H.transpose()).eval();
-    Eigen::MatrixXd J = Eigen::MatrixXd::Zero(k_free, k_free);
+    // Outer product of the scores (free columns of the nobs x K row-major matrix).
+    Eigen::MatrixXd S(res.nobs, k_free);
     for (int t = 0; t < res.nobs; ++t) {
-      Eigen::VectorXd s(k_free);
-      for (int a = 0; a < k_free; ++a) s[a] = scores[static_cast<size_t>(t) * K + prob.free_idx[a]];
-      J.noalias() += s * s.transpose();
+      for (int a = 0; a < k_free; ++a)
+        S(t, a) = scores[static_cast<size_t>(t) * K + prob.free_idx[a]];
     }
+    const Eigen::MatrixXd J = S.transpose() * S;
     Eigen::LDLT<Eigen::MatrixXd> ldlt(-H);
     if (finite && ldlt.info() == Eigen::Success && ldlt.isPositive() &&
         (ldlt.vectorD().array() > 0).all()) {

@@ -6,7 +6,9 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
+#include "aftershock/likelihood.h"
 #include "aftershock/stats.h"
+#include "estimation/estimator_internal.h"
 
 namespace aftershock {
 namespace {
@@ -209,8 +211,88 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
   }
   int best = -1;
   std::vector<FitResult> fits(specs.size());
+  rep.variance_candidates.resize(specs.size());
   const size_t per_law = specs.size() / laws.size();  // specs are law-major
-  for (size_t i = 0; i < specs.size(); ++i) {
+  // The residuals of the step-1 mean are the same for every candidate (the
+  // mean is held fixed): computed once.
+  std::vector<double> mean_residuals;
+  {
+    LikelihoodOptions lo;
+    lo.gradient = false;
+    lo.series = true;
+    lo.presample = options.presample;
+    auto ev = EvaluateLikelihood(MeanStart(specs[0], sel->best.params), returns, lo);
+    if (!ev.ok()) return ev.status();
+    mean_residuals = std::move(ev->residuals);
+  }
+  // Fitting order within a law: every candidate that nests an ARCH(m) before
+  // it, the largest ARCH first. An ARCH(m) then has an upper bound on its
+  // log-likelihood, the smallest of the fitted models that nest it
+  // (ARCH(m') with m' > m; GARCH(1,1), GARCH(1,2) and GJR-GARCH(1,1) for m = 1;
+  // GARCH(2,1) for m = 2), hence a lower bound on its criterion; it is not
+  // fitted when that bound exceeds the best eligible criterion so far by more
+  // than kPruneMargin (slack for optimizer tolerance), since it cannot win.
+  constexpr double kPruneMargin = 10.0;
+  std::vector<size_t> order;
+  for (size_t l = 0; l < laws.size(); ++l) {
+    std::vector<size_t> arch;
+    for (size_t j = 0; j < per_law; ++j) {
+      const size_t i = l * per_law + j;
+      if (specs[i].variance == VarianceKind::kArch) {
+        arch.push_back(i);
+      } else {
+        order.push_back(i);
+      }
+    }
+    std::sort(arch.begin(), arch.end(),
+              [&](size_t x, size_t y) { return specs[x].arch_order > specs[y].arch_order; });
+    order.insert(order.end(), arch.begin(), arch.end());
+  }
+  auto nests = [](const ModelSpec& big, const ModelSpec& small) {
+    if (small.variance != VarianceKind::kArch || big.innovations != small.innovations) {
+      return false;
+    }
+    const int m = small.arch_order;
+    switch (big.variance) {
+      case VarianceKind::kArch:
+        return big.arch_order >= m;
+      case VarianceKind::kGarch:
+        return big.arch_order >= m;  // beta = 0
+      case VarianceKind::kGjr:
+        return big.arch_order >= m;  // gamma = beta = 0
+      default:
+        return false;
+    }
+  };
+  const double log_n = std::log(static_cast<double>(mean_residuals.size()));
+  for (size_t i : order) {
+    VarianceCandidateResult& c = rep.variance_candidates[i];
+    c.spec = specs[i];
+    if (specs[i].variance == VarianceKind::kArch && rep.arch_effect) {
+      double ll_bound = std::numeric_limits<double>::infinity();
+      int bound_from = -1;
+      double best_crit = std::numeric_limits<double>::infinity();
+      for (size_t j = 0; j < specs.size(); ++j) {
+        const VarianceCandidateResult& o = rep.variance_candidates[j];
+        if (!o.ok) continue;
+        if (o.eligible) best_crit = std::min(best_crit, o.criterion);
+        if (nests(specs[j], specs[i]) && o.loglik < ll_bound) {
+          ll_bound = o.loglik;
+          bound_from = static_cast<int>(j);
+        }
+      }
+      const int k =
+          1 + specs[i].arch_order + (specs[i].innovations == Innovations::kStudentT ? 1 : 0);
+      const double crit_bound =
+          Criterion(options.criterion, -2.0 * ll_bound + 2.0 * k, -2.0 * ll_bound + k * log_n);
+      if (bound_from >= 0 && crit_bound > best_crit + kPruneMargin) {
+        c.error = absl::StrFormat(
+            "not fitted: nested in %s (log-likelihood %.3f), so its %s is at least %.3f, "
+            "above the best %.3f",
+            specs[bound_from].Label(), ll_bound, crit, crit_bound, best_crit);
+        continue;
+      }
+    }
     FitOptions fo;
     fo.presample = options.presample;
     fo.start = MeanStart(specs[i], sel->best.params);
@@ -228,9 +310,7 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
     // here, full precision in the warm-started re-fit of the chosen model.
     fo.ftol_rel = 1e-8;
     fo.xtol_rel = 1e-6;
-    VarianceCandidateResult c;
-    c.spec = specs[i];
-    auto fit = FitModel(specs[i], returns, fo);
+    auto fit = internal::FitOnFixedMeanResiduals(specs[i], mean_residuals, fo);
     if (!fit.ok()) {
       c.error = std::string(fit.status().message());
     } else {
@@ -249,7 +329,6 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
       }
       fits[i] = *std::move(fit);
     }
-    rep.variance_candidates.push_back(std::move(c));
   }
   // The best eligible candidate; if none is eligible, the best converged one.
   for (int pass = 0; pass < 2 && best < 0; ++pass) {

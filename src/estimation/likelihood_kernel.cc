@@ -1,6 +1,7 @@
 #include "estimation/likelihood_kernel.h"
 
 #include <algorithm>
+#include <boost/math/special_functions/trigamma.hpp>
 #include <cmath>
 #include <limits>
 
@@ -12,18 +13,34 @@ namespace {
 constexpr double kLogTwoPi = 1.8378770664093454836;
 
 // Partial derivatives of one likelihood term log f(e / sqrt(v)) - log(v) / 2 in
-// eps, sigma2 and (Student-t) nu; shared by the fast and the general path.
+// eps, sigma2 and (Student-t) nu, for the general path.
 struct TermDerivatives {
   double de, dv, dnu;
 };
 
 // Standardized t: u = e^2 / (v (nu - 2)), l1u = log1p(u), inv_v = 1 / v.
+// inv_nu2 = 1 / (nu - 2).
 inline TermDerivatives StudentTerm(double e, double inv_v, double u, double l1u, double nu,
-                                   double dconst_dnu) {
+                                   double inv_nu2, double dconst_dnu) {
   const double inv = 1.0 / (1.0 + u);
-  return {-(nu + 1.0) * e * inv_v / (nu - 2.0) * inv,
-          (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v,
-          dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u / (nu - 2.0) * inv};
+  return {-(nu + 1.0) * e * inv_v * inv_nu2 * inv, (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v,
+          dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u * inv_nu2 * inv};
+}
+
+// d^2 LogNormalizerT / d nu^2 = 1/4 psi'((nu+1)/2) - 1/4 psi'(nu/2) + 1/(2 (nu-2)^2),
+// the derivative of DLogNormalizerTDnu (innovations.h); NaN outside (2, inf).
+double D2LogNormalizerTDnu2(double nu) {
+  if (!(nu > 2.0) || !std::isfinite(nu)) return std::numeric_limits<double>::quiet_NaN();
+  using Policy = boost::math::policies::policy<
+      boost::math::policies::domain_error<boost::math::policies::ignore_error>,
+      boost::math::policies::pole_error<boost::math::policies::ignore_error>,
+      boost::math::policies::overflow_error<boost::math::policies::ignore_error>,
+      boost::math::policies::underflow_error<boost::math::policies::ignore_error>,
+      boost::math::policies::evaluation_error<boost::math::policies::ignore_error>,
+      boost::math::policies::rounding_error<boost::math::policies::ignore_error>>;
+  const double nm2 = nu - 2.0;
+  return 0.25 * boost::math::trigamma(0.5 * (nu + 1.0), Policy()) -
+         0.25 * boost::math::trigamma(0.5 * nu, Policy()) + 0.5 / (nm2 * nm2);
 }
 
 // Normal: q = e^2 / v.
@@ -50,7 +67,7 @@ LikelihoodKernel::LikelihoodKernel(const ModelSpec& spec, std::vector<double> re
       eps_(n_),
       sig2_(n_),
       deps_(static_cast<size_t>(n_) * nm_),
-      dsig2_(static_cast<size_t>(n_) * k_),
+      dsig2_(order_one_ ? 0 : static_cast<size_t>(n_) * k_),  // the fast path keeps no rows
       ds2_(nm_),
       work_(k_),
       order_(std::min(std::max(n_, 0), kRobustStartSpan)),
@@ -133,6 +150,7 @@ void LikelihoodKernel::Presample(bool with_grad) {
         const double* d = &deps_[static_cast<size_t>(pick) * nm_];
         for (int c2 = 0; c2 < nm_; ++c2) ds2_[c2] = c * c * 2.0 * e * d[c2];
       }
+      d2s2_ = 2.0 * c * c;
       return;
     }
   }
@@ -147,109 +165,238 @@ void LikelihoodKernel::Presample(bool with_grad) {
   }
   s2_ = s / m;
   for (int c = 0; c < nm_; ++c) ds2_[c] /= m;
+  d2s2_ = 2.0;
 }
 
-double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, double* scores) {
-  const bool with_grad = grad != nullptr;
-  const bool has_mu = spec_.mean == MeanKind::kConstant;
-  const bool gjr = spec_.variance == VarianceKind::kGjr;
-  const bool student = spec_.innovations == Innovations::kStudentT;
+// The order-one recursion, by template so that the value-only, gradient and
+// Hessian passes each compile to straight-line code without the terms they do
+// not need. Parameter slots: mu, omega, alpha, gamma, beta, nu (absent ones are
+// compiled out). Per term only one division: with s = e^2 / (nu - 2) (Student)
+// or s = 0 (normal), R = 1 / (v (v + s)) gives 1/v = (v + s) R and
+// 1/(v + s) = v R. Logs are taken of products of 8 terms (on unit-scaled data
+// these stay far inside the double range), also for the gradient's
+// sum of log(1 + u), so no log is taken per term unless per-term scores are asked.
+template <bool kMu, bool kGjr, bool kStudent, int kLevel>
+double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* scores, double* hess) {
+  constexpr bool kGrad = kLevel >= 1;
+  constexpr bool kHess = kLevel >= 2;
+  constexpr int kMuS = 0, kOm = 1, kAl = 2, kGa = 3, kBe = 4, kNu = 5;  // slots
+  // Loops over slots are unrolled (pragmas) and skip absent slots at compile
+  // time, so that the accumulators live in registers.
+  constexpr bool kHas[6] = {kMu, true, true, kGjr, true, kStudent};
   const int v0 = spec_.VarianceOffset();
-  const double mu = has_mu ? theta[0] : 0.0;
+  const double mu = kMu ? theta[0] : 0.0;
   const double omega = theta[v0], alpha = theta[v0 + 1];
-  const double gamma = gjr ? theta[v0 + 2] : 0.0;
-  const double beta = theta[v0 + (gjr ? 3 : 2)];
-  const double nu = student ? theta[spec_.DistOffset()] : 0.0;
+  const double gamma = kGjr ? theta[v0 + 2] : 0.0;
+  const double beta = theta[v0 + (kGjr ? 3 : 2)];
+  const double nu = kStudent ? theta[spec_.DistOffset()] : 0.0;
+  // Full-vector index of each slot (-1: absent).
+  int index[6];
+  {
+    int c = 0;
+    index[kMuS] = kMu ? c++ : -1;
+    index[kOm] = c++;
+    index[kAl] = c++;
+    index[kGa] = kGjr ? c++ : -1;
+    index[kBe] = c++;
+    index[kNu] = kStudent ? c++ : -1;
+  }
+  auto fail = [&]() {
+    if (kGrad) std::fill(grad, grad + k_, 0.0);
+    if (kHess) std::fill(hess, hess + static_cast<size_t>(k_) * k_, 0.0);
+    return -std::numeric_limits<double>::infinity();
+  };
   const double* r = r_.data();
-  for (int k = 0; k < n_; ++k) eps_[k] = r[k] - mu;
-  Presample(has_mu && with_grad);
+  if (presample_ == Presample::kMeanSquare) {
+    // The mean-square presample in the same sweep (d eps / d mu = -1, so
+    // d s2 / d mu = -2 mean(eps) and d^2 s2 / d mu^2 = 2); two accumulators
+    // per sum break the dependency chain.
+    double sq0 = 0, sq1 = 0, sum0 = 0, sum1 = 0;
+    int k = 0;
+    for (; k + 1 < n_; k += 2) {
+      const double a = r[k] - mu, b = r[k + 1] - mu;
+      eps_[k] = a;
+      eps_[k + 1] = b;
+      sq0 += a * a;
+      sq1 += b * b;
+      sum0 += a;
+      sum1 += b;
+    }
+    for (; k < n_; ++k) {
+      const double a = r[k] - mu;
+      eps_[k] = a;
+      sq0 += a * a;
+      sum0 += a;
+    }
+    s2_ = (sq0 + sq1) / n_;
+    if (kMu) ds2_[0] = -2.0 * (sum0 + sum1) / n_;
+    d2s2_ = 2.0;
+  } else {
+    for (int k = 0; k < n_; ++k) eps_[k] = r[k] - mu;
+    Presample(kMu && kGrad);
+  }
   const double s2 = s2_;
-  const double ds2 = has_mu ? ds2_[0] : 0.0;  // d s2 / d mu
+  const double ds2 = kMu && kGrad ? ds2_[0] : 0.0;  // d s2 / d mu
+  const double d2s2 = kMu && kHess ? d2s2_ : 0.0;   // d^2 s2 / d mu^2
 
   // Density constants (innovations.h; NaN for an invalid nu, which makes the
   // log-likelihood NaN and the point infeasible for the optimizer).
-  const double const_term = student ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
-  const double dconst_dnu = student && with_grad ? DLogNormalizerTDnu(nu) : 0.0;
+  const double const_term = kStudent ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
+  const double dconst = kStudent && kGrad ? DLogNormalizerTDnu(nu) : 0.0;
+  const double d2const = kStudent && kHess ? D2LogNormalizerTDnu2(nu) : 0.0;
   const double nu2 = nu - 2.0;
+  const double inv_nu2 = kStudent ? 1.0 / nu2 : 0.0;
+  const double np1 = nu + 1.0;
 
-  // Previous-term state: eps2, negative-part eps2, sigma2 and their d/dmu.
+  // Previous-term state: eps2, negative-part eps2, sigma2 and their mu-derivatives.
   double e2p = s2, ne2p = 0.5 * s2, vp = s2;
   double de2p = ds2, dne2p = 0.5 * ds2;
-  // d sigma2_{k-1} / d (mu, omega, alpha, gamma, beta).
-  double dv_mu = ds2, dv_om = 0, dv_al = 0, dv_ga = 0, dv_be = 0;
-  double g_mu = 0, g_om = 0, g_al = 0, g_ga = 0, g_be = 0, g_nu = 0;
-  double quad = 0;           // sum of e2/v (normal) 
-  double log_sum = 0;        // sum of log v, accumulated through products
-  double log_u_sum = 0;      // sum of log(1+u) (Student-t)
+  double d2e2p = d2s2, d2ne2p = 0.5 * d2s2;
+  // d sigma2_{k-1} / d slot (nu: 0), and the second derivatives that are not
+  // identically zero (the others stay 0 from the presample on).
+  double dv[5] = {ds2, 0, 0, 0, 0};
+  double h_mumu = d2s2, h_mual = 0, h_muga = 0, h_mube = 0, h_ombe = 0, h_albe = 0, h_gabe = 0,
+         h_bebe = 0;
+  double g[6] = {0, 0, 0, 0, 0, 0};
+  double H[6][6] = {};
+  double g_nu_rest = 0;  // the part of d ll / d nu other than the log sum
+  double quad = 0;       // sum of e2/v (normal)
+  double log_sum = 0;    // sum of log v, accumulated through products
+  double log_u_sum = 0;  // sum of log(1+u) (Student-t)
   double prod_v = 1.0, prod_u = 1.0;
-  constexpr int kChunk = 8;  // on unit-scaled data 8 products stay far inside double range
+  constexpr int kChunk = 8;
   int in_chunk = 0;
   for (int k = 0; k < n_; ++k) {
     double v = omega;
     v += alpha * e2p;
-    if (gjr) v += gamma * ne2p;
+    if (kGjr) v += gamma * ne2p;
     v += beta * vp;
     sig2_[k] = v;
-    if (!(v > 0.0) || !std::isfinite(v)) {
-      if (with_grad) std::fill(grad, grad + k_, 0.0);
-      return -std::numeric_limits<double>::infinity();
-    }
+    if (!(v > 0.0) || !std::isfinite(v)) return fail();
     const double e = eps_[k];
     const double e2 = e * e;
     prod_v *= v;
-    double dl_de = 0, dl_dv = 0, dl_dnu = 0;
-    const double inv_v = 1.0 / v;
-    if (student) {
-      const double u = e2 * inv_v / nu2;
+    // Per-term derivatives in e, v and nu.
+    double l_e = 0, l_v = 0, l_nu = 0, l_ee = 0, l_ev = 0, l_vv = 0, l_enu = 0, l_vnu = 0,
+           l_nunu = 0;
+    if (kStudent) {
+      const double s = e2 * inv_nu2;
+      const double vs = v + s;  // v (1 + u)
+      const double rr = 1.0 / (v * vs);
+      const double inv_v = vs * rr;
+      const double iw = v * v * rr;  // 1 / (1 + u)
+      const double u = s * inv_v;
       prod_u *= 1.0 + u;
-      if (with_grad) {
-        const TermDerivatives t = StudentTerm(e, inv_v, u, std::log1p(u), nu, dconst_dnu);
-        dl_de = t.de;
-        dl_dv = t.dv;
-        dl_dnu = t.dnu;
+      if (kGrad) {
+        l_e = -np1 * e * inv_v * inv_nu2 * iw;
+        l_v = (-0.5 + 0.5 * np1 * u * iw) * inv_v;
+        g_nu_rest += 0.5 * np1 * u * inv_nu2 * iw;
+        if (scores) l_nu = dconst - 0.5 * std::log1p(u) + 0.5 * np1 * u * inv_nu2 * iw;
+      }
+      if (kHess) {
+        const double iw2 = iw * iw;
+        const double w = 1.0 + u;
+        l_ee = np1 * (u - 1.0) * inv_v * inv_nu2 * iw2;
+        l_ev = np1 * e * inv_v * inv_v * inv_nu2 * iw2;
+        l_vv = (0.5 - np1 * u * (1.0 + 0.5 * u) * iw2) * inv_v * inv_v;
+        l_enu = -e * inv_v * (nu2 * w - np1) * inv_nu2 * inv_nu2 * iw2;
+        l_vnu = 0.5 * inv_v * (u * iw - np1 * u * inv_nu2 * iw2);
+        l_nunu = u * inv_nu2 * iw - 0.5 * np1 * u * (w + 1.0) * inv_nu2 * inv_nu2 * iw2;
       }
     } else {
+      const double inv_v = 1.0 / v;
       const double q = e2 * inv_v;
       quad += q;
-      if (with_grad) {
-        const TermDerivatives t = NormalTerm(e, inv_v, q);
-        dl_de = t.de;
-        dl_dv = t.dv;
+      if (kGrad) {
+        l_e = -e * inv_v;
+        l_v = 0.5 * (q - 1.0) * inv_v;
+      }
+      if (kHess) {
+        l_ee = -inv_v;
+        l_ev = e * inv_v * inv_v;
+        l_vv = (0.5 - q) * inv_v * inv_v;
       }
     }
     if (++in_chunk == kChunk) {
       log_sum += std::log(prod_v);
       prod_v = 1.0;
-      if (student) {
+      if (kStudent) {
         log_u_sum += std::log(prod_u);
         prod_u = 1.0;
       }
       in_chunk = 0;
     }
-    if (with_grad) {
-      // d sigma2_k from the recursion (k = 0 uses the presample derivatives).
-      const double nmu = alpha * de2p + (gjr ? gamma * dne2p : 0.0) + beta * dv_mu;
-      const double nom = 1.0 + beta * dv_om;
-      const double nal = e2p + beta * dv_al;
-      const double nga = ne2p + beta * dv_ga;
-      const double nbe = vp + beta * dv_be;
-      dv_mu = nmu; dv_om = nom; dv_al = nal; dv_ga = nga; dv_be = nbe;
-      const double s_mu = dl_dv * dv_mu - dl_de;
-      const double s_om = dl_dv * dv_om, s_al = dl_dv * dv_al, s_ga = dl_dv * dv_ga,
-                   s_be = dl_dv * dv_be;
-      g_mu += s_mu; g_om += s_om; g_al += s_al; g_ga += s_ga; g_be += s_be; g_nu += dl_dnu;
+    if (kGrad) {
+      // Second derivatives of sigma2_k from the previous first derivatives.
+      if (kHess) {
+        if (kMu) {
+          h_mumu = alpha * d2e2p + (kGjr ? gamma * d2ne2p : 0.0) + beta * h_mumu;
+          h_mual = de2p + beta * h_mual;
+          if (kGjr) h_muga = dne2p + beta * h_muga;
+          h_mube = dv[kMuS] + beta * h_mube;
+        }
+        h_ombe = dv[kOm] + beta * h_ombe;
+        h_albe = dv[kAl] + beta * h_albe;
+        if (kGjr) h_gabe = dv[kGa] + beta * h_gabe;
+        h_bebe = 2.0 * dv[kBe] + beta * h_bebe;
+      }
+      // First derivatives of sigma2_k (k = 0 uses the presample derivatives).
+      if (kMu) dv[kMuS] = alpha * de2p + (kGjr ? gamma * dne2p : 0.0) + beta * dv[kMuS];
+      dv[kOm] = 1.0 + beta * dv[kOm];
+      dv[kAl] = e2p + beta * dv[kAl];
+      if (kGjr) dv[kGa] = ne2p + beta * dv[kGa];
+      dv[kBe] = vp + beta * dv[kBe];
+      double sc[5] = {0, 0, 0, 0, 0};
+#pragma GCC unroll 5
+      for (int i = 0; i < 5; ++i) {
+        if (!kHas[i]) continue;
+        sc[i] = l_v * dv[i];
+        if (i == kMuS) sc[i] -= l_e;
+        g[i] += sc[i];
+      }
       if (scores) {
         double* row = scores + static_cast<size_t>(k) * k_;
-        int c = 0;
-        if (has_mu) row[c++] = s_mu;
-        row[c++] = s_om;
-        row[c++] = s_al;
-        if (gjr) row[c++] = s_ga;
-        row[c++] = s_be;
-        if (student) row[c++] = dl_dnu;
+#pragma GCC unroll 5
+        for (int i = 0; i < 5; ++i) {
+          if (kHas[i]) row[index[i]] = sc[i];
+        }
+        if (kStudent) row[index[kNu]] = l_nu;
+      }
+      if (kHess) {
+        // l_vv dv dv' + l_v d2v, plus the e-terms of mu (d e / d mu = -1) and nu.
+#pragma GCC unroll 5
+        for (int i = 0; i < 5; ++i) {
+          if (!kHas[i]) continue;
+          const double a = l_vv * dv[i];
+#pragma GCC unroll 5
+          for (int j = 0; j <= i; ++j) {
+            if (kHas[j]) H[i][j] += a * dv[j];
+          }
+        }
+        if (kMu) {
+          H[kMuS][kMuS] += l_ee - 2.0 * l_ev * dv[kMuS] + l_v * h_mumu;
+          H[kAl][kMuS] += -l_ev * dv[kAl] + l_v * h_mual;
+          if (kGjr) H[kGa][kMuS] += -l_ev * dv[kGa] + l_v * h_muga;
+          H[kBe][kMuS] += -l_ev * dv[kBe] + l_v * h_mube;
+          H[kOm][kMuS] += -l_ev * dv[kOm];
+        }
+        H[kBe][kOm] += l_v * h_ombe;
+        H[kBe][kAl] += l_v * h_albe;
+        if (kGjr) H[kBe][kGa] += l_v * h_gabe;
+        H[kBe][kBe] += l_v * h_bebe;
+        if (kStudent) {
+#pragma GCC unroll 5
+          for (int i = 0; i < 5; ++i) {
+            if (kHas[i]) H[kNu][i] += l_vnu * dv[i];
+          }
+          if (kMu) H[kNu][kMuS] -= l_enu;
+          H[kNu][kNu] += l_nunu;
+        }
       }
       de2p = -2.0 * e;
       dne2p = e < 0.0 ? -2.0 * e : 0.0;
+      if (kHess) d2ne2p = e < 0.0 ? 2.0 : 0.0;
+      d2e2p = 2.0;
     }
     e2p = e2;
     ne2p = e < 0.0 ? e2 : 0.0;
@@ -257,26 +404,88 @@ double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, dou
   }
   log_sum += std::log(prod_v);
   double ll;
-  if (student) {
+  if (kStudent) {
     log_u_sum += std::log(prod_u);
-    ll = n_ * const_term - 0.5 * log_sum - 0.5 * (nu + 1.0) * log_u_sum;
+    ll = n_ * const_term - 0.5 * log_sum - 0.5 * np1 * log_u_sum;
   } else {
     ll = n_ * const_term - 0.5 * (quad + log_sum);
   }
-  if (with_grad) {
-    int c = 0;
-    if (has_mu) grad[c++] = g_mu;
-    grad[c++] = g_om;
-    grad[c++] = g_al;
-    if (gjr) grad[c++] = g_ga;
-    grad[c++] = g_be;
-    if (student) grad[c++] = g_nu;
+  if (!std::isfinite(ll)) return kGrad ? fail() : ll;
+  if (kGrad) {
+    g[kNu] = n_ * dconst - 0.5 * log_u_sum + g_nu_rest;
+    for (int i = 0; i < 6; ++i) {
+      if (index[i] >= 0) grad[index[i]] = g[i];
+    }
+  }
+  if (kHess) {
+    H[kNu][kNu] += n_ * d2const;
+    for (int i = 0; i < 6; ++i) {
+      if (index[i] < 0) continue;
+      for (int j = 0; j <= i; ++j) {
+        if (index[j] < 0) continue;
+        hess[static_cast<size_t>(index[i]) * k_ + index[j]] = H[i][j];
+        hess[static_cast<size_t>(index[j]) * k_ + index[i]] = H[i][j];
+      }
+    }
   }
   return ll;
 }
 
+double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, double* scores,
+                                          double* hess) {
+  const bool mu = spec_.mean == MeanKind::kConstant;
+  const bool gjr = spec_.variance == VarianceKind::kGjr;
+  const bool t = spec_.innovations == Innovations::kStudentT;
+  const int level = hess ? 2 : grad ? 1 : 0;
+  // 2 x 2 x 2 x 3 instantiations, chosen once per call.
+#define AFTERSHOCK_ORDER_ONE(M, G, T)                         \
+  switch (level) {                                            \
+    case 0:                                                   \
+      return OrderOne<M, G, T, 0>(theta, grad, scores, hess); \
+    case 1:                                                   \
+      return OrderOne<M, G, T, 1>(theta, grad, scores, hess); \
+    default:                                                  \
+      return OrderOne<M, G, T, 2>(theta, grad, scores, hess); \
+  }
+  if (mu) {
+    if (gjr) {
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(true, true, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(true, true, false)
+      }
+    } else {
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(true, false, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(true, false, false)
+      }
+    }
+  } else {
+    if (gjr) {
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(false, true, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(false, true, false)
+      }
+    } else {
+      if (t) {
+        AFTERSHOCK_ORDER_ONE(false, false, true)
+      } else {
+        AFTERSHOCK_ORDER_ONE(false, false, false)
+      }
+    }
+  }
+#undef AFTERSHOCK_ORDER_ONE
+}
+
+double LikelihoodKernel::EvaluateHessian(const double* theta, double* grad, double* hess,
+                                         double* scores) {
+  return EvaluateOrderOne(theta, grad, scores, hess);
+}
+
 double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* scores) {
-  if (order_one_) return EvaluateOrderOne(theta, grad, scores);
+  if (order_one_) return EvaluateOrderOne(theta, grad, scores, nullptr);
   const bool with_grad = grad != nullptr;
   MeanPass(theta, with_grad);
   Presample(with_grad);
@@ -300,8 +509,17 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
   const double* beta = gamma + no;
   const double lambda = vk == VarianceKind::kEwma ? theta[v0] : 0.0;
   const double s2 = s2_;
+  const int dist = spec_.DistOffset();
+  const double inv_nu2 = student ? 1.0 / (nu - 2.0) : 0.0;
 
-  double ll = 0;
+  // Logs of products of 8 terms instead of a log per term (as on the
+  // order-one path); per-term log(1 + u) only where per-term scores need it.
+  double quad = 0;       // sum of e2/v (normal)
+  double log_sum = 0;    // sum of log v
+  double log_u_sum = 0;  // sum of log(1 + u) (Student-t)
+  double prod_v = 1.0, prod_u = 1.0;
+  constexpr int kChunk = 8;
+  int in_chunk = 0;
   for (int k = 0; k < n_; ++k) {
     // ---- conditional variance (same summation order as the online filter) ----
     double v;
@@ -392,18 +610,31 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
     const double e = eps_[k];
     const double e2 = e * e;
     const double inv_v = 1.0 / v;
+    prod_v *= v;
+    double u = 0, q = 0;
+    if (student) {
+      u = e2 * inv_v * inv_nu2;
+      prod_u *= 1.0 + u;
+    } else {
+      q = e2 * inv_v;
+      quad += q;
+    }
+    if (++in_chunk == kChunk) {
+      log_sum += std::log(prod_v);
+      prod_v = 1.0;
+      if (student) {
+        log_u_sum += std::log(prod_u);
+        prod_u = 1.0;
+      }
+      in_chunk = 0;
+    }
+    if (!with_grad) continue;
     TermDerivatives t;
     if (student) {
-      const double u = e2 * inv_v / (nu - 2.0);
-      const double l1u = std::log1p(u);
-      ll += const_term - 0.5 * std::log(v) - 0.5 * (nu + 1.0) * l1u;
-      if (!with_grad) continue;
-      t = StudentTerm(e, inv_v, u, l1u, nu, dconst_dnu);
-      work_[spec_.DistOffset()] = t.dnu;
+      // Without scores the -log(1 + u) / 2 part of d/dnu is added once at the end.
+      t = StudentTerm(e, inv_v, u, scores ? std::log1p(u) : 0.0, nu, inv_nu2, dconst_dnu);
+      work_[dist] = t.dnu;
     } else {
-      const double q = e2 * inv_v;
-      ll += const_term - 0.5 * (q + std::log(v));
-      if (!with_grad) continue;
       t = NormalTerm(e, inv_v, q);
     }
     const double dl_de = t.de, dl_dv = t.dv;
@@ -413,6 +644,15 @@ double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* sco
     for (int c = 0; c < nm_; ++c) work_[c] += dl_de * d[c];
     for (int c = 0; c < k_; ++c) grad[c] += work_[c];
     if (scores) std::copy(work_.begin(), work_.end(), scores + static_cast<size_t>(k) * k_);
+  }
+  log_sum += std::log(prod_v);
+  double ll;
+  if (student) {
+    log_u_sum += std::log(prod_u);
+    ll = n_ * const_term - 0.5 * log_sum - 0.5 * (nu + 1.0) * log_u_sum;
+    if (with_grad && !scores) grad[dist] -= 0.5 * log_u_sum;
+  } else {
+    ll = n_ * const_term - 0.5 * (quad + log_sum);
   }
   return ll;
 }

@@ -24,6 +24,16 @@ class LikelihoodKernel {
   // conditional variance is not positive and finite (grad is then zeroed).
   double Evaluate(const double* theta, double* grad, double* scores);
 
+  // True when EvaluateHessian() applies: a zero or constant mean with
+  // GARCH(1,1) or GJR-GARCH(1,1) variance (the order-one fast path).
+  bool has_hessian() const { return order_one_; }
+
+  // Log-likelihood, gradient (K) and analytic Hessian (K x K, row-major) at
+  // theta, from second-derivative recursions of the variance; scores as in
+  // Evaluate() when not null. REQUIRES: has_hessian(), grad and hess not null.
+  // Returns -inf (grad and hess zeroed) where Evaluate() does.
+  double EvaluateHessian(const double* theta, double* grad, double* hess, double* scores);
+
   int nobs() const { return n_; }
   int num_params() const { return k_; }
   const ModelSpec& spec() const { return spec_; }
@@ -38,7 +48,10 @@ class LikelihoodKernel {
   // Fast path for a zero/constant mean with GARCH(1,1) or GJR-GARCH(1,1): scalar
   // derivative recursions and a log of products every few terms instead of a
   // log per term. Same recursion and summation order as the general path.
-  double EvaluateOrderOne(const double* theta, double* grad, double* scores);
+  // kLevel: 0 value, 1 value and gradient, 2 value, gradient and Hessian.
+  template <bool kMu, bool kGjr, bool kStudent, int kLevel>
+  double OrderOne(const double* theta, double* grad, double* scores, double* hess);
+  double EvaluateOrderOne(const double* theta, double* grad, double* scores, double* hess);
   void Presample(bool with_grad);
 
   const ModelSpec spec_;
@@ -59,6 +72,9 @@ class LikelihoodKernel {
   std::vector<int> order_;     // min(n, kRobustStartSpan): sort workspace of the presample
   std::vector<double> weight_;  // min(n, kRobustStartSpan): presample weights 2^(-j / half-life)
   double s2_ = 0;
+  // d^2 s2 / d mu^2 for a constant mean (d eps / d mu = -1): 2 for the mean
+  // square, 2 c^2 for the robust start. Set by Presample().
+  double d2s2_ = 0;
 };
 
 }  // namespace aftershock::internal

@@ -5,6 +5,9 @@
 #include <cmath>
 #include <nlohmann/json.hpp>
 
+#include <boost/random/mersenne_twister.hpp>
+#include <boost/random/normal_distribution.hpp>
+
 #include "aftershock/likelihood.h"
 #include "aftershock/series_file.h"
 #include "estimation/test_series.h"
@@ -179,6 +182,130 @@ TEST_CASE("a warm start converges faster and to the same optimum", "[estimator]"
   CHECK(warm->start_used == "warm");
   CHECK(warm->iterations < cold2->iterations);
   CHECK(warm->loglik == Approx(cold2->loglik).epsilon(1e-8));
+}
+
+// The same warm-started fit by Newton steps (the default) and by SLSQP alone.
+struct NewtonPair {
+  FitResult newton, slsqp;
+};
+
+NewtonPair FitBothWays(const ModelSpec& spec, const std::vector<double>& r,
+                       const ModelParams& start, Presample pre) {
+  FitOptions o;
+  o.presample = pre;
+  o.start = start;
+  auto a = FitModel(spec, r, o);
+  o.newton_iterations = 0;
+  auto b = FitModel(spec, r, o);
+  REQUIRE(a.ok());
+  REQUIRE(b.ok());
+  return {*std::move(a), *std::move(b)};
+}
+
+void CheckSameOptimum(const NewtonPair& p) {
+  INFO(p.newton.params.spec.Label() << ": " << p.newton.optimizer_message << " ("
+                                    << p.newton.iterations << " evaluations) vs "
+                                    << p.slsqp.optimizer_message << " ("
+                                    << p.slsqp.iterations << ")");
+  REQUIRE(p.newton.converged);
+  REQUIRE(p.slsqp.converged);
+  // The warm start was refined by Newton, not by the fallback.
+  CHECK(p.newton.optimizer_message.rfind("Newton converged", 0) == 0);
+  CHECK(p.slsqp.optimizer_message.rfind("Newton", 0) != 0);
+  CHECK(testing::RelDiff(p.newton.loglik, p.slsqp.loglik) <= 1e-6);
+  // Newton's point is at least as good (to round-off) as SLSQP's.
+  CHECK(p.newton.loglik >= p.slsqp.loglik - 1e-9 * std::fabs(p.slsqp.loglik));
+  for (size_t i = 0; i < p.newton.params.values.size(); ++i) {
+    const double a = p.newton.params.values[i], b = p.slsqp.params.values[i];
+    const double se = p.newton.std_errors[i];
+    INFO(p.newton.names[i] << " Newton " << a << " SLSQP " << b << " se " << se);
+    // Well inside the sampling error, and close in absolute terms.
+    CHECK(std::fabs(a - b) <= 1e-3 * se);
+    CHECK(std::fabs(a - b) <= 1e-4 * std::max(1.0, std::fabs(b)));
+    CHECK(testing::RelDiff(p.newton.std_errors[i], p.slsqp.std_errors[i]) <= 1e-3);
+    CHECK(testing::RelDiff(p.newton.robust_std_errors[i], p.slsqp.robust_std_errors[i]) <= 1e-3);
+  }
+}
+
+TEST_CASE("Newton steps from a warm start reach the SLSQP optimum", "[estimator][newton]") {
+  struct Case {
+    const char* mean;
+    const char* variance;
+    VarianceLags orders;
+    const char* law;
+    double nu;  // of the simulated shocks (0: Gaussian)
+    unsigned seed;
+    Presample pre;
+  };
+  const std::vector<Case> cases = {
+      {"constant", "garch", {1, 1}, "gaussian", 0, 3, Presample::kMeanSquare},
+      {"constant", "garch", {1, 1}, "gaussian", 0, 11, Presample::kRobustStart},
+      {"zero", "garch", {1, 1}, "student", 6, 5, Presample::kMeanSquare},
+      {"constant", "garch", {1, 1}, "student", 5, 6, Presample::kMeanSquare},
+      {"constant", "gjr", {1, 1, 1}, "gaussian", 0, 7, Presample::kMeanSquare},
+      {"constant", "gjr", {1, 1, 1}, "student", 7, 9, Presample::kRobustStart},
+  };
+  for (const Case& c : cases) {
+    auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+    REQUIRE(spec.ok());
+    const std::vector<double> r = testing::TestGarchSeries(2100, c.seed, c.nu);
+    // The model in force: the fit of the window 50 bars earlier; then refit the
+    // window shifted by 50 bars, as the refit worker does.
+    FitOptions o;
+    o.presample = c.pre;
+    auto prev = FitModel(*spec, std::vector<double>(r.begin(), r.begin() + 2000), o);
+    REQUIRE(prev.ok());
+    REQUIRE(prev->converged);
+    const std::vector<double> window(r.begin() + 50, r.begin() + 2050);
+    CheckSameOptimum(FitBothWays(*spec, window, prev->params, c.pre));
+  }
+}
+
+TEST_CASE("Newton steps reach the DEM/GBP benchmark from the previous year's estimates",
+          "[estimator][newton][benchmark]") {
+  const auto path = testing::ReferenceDataPath("dem2gbp.csv");
+  if (!path) {
+    WARN(testing::SkipMessage("dem2gbp.csv"));
+    return;
+  }
+  auto series = ReadSeriesFile(*path);
+  REQUIRE(series.ok());
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
+  REQUIRE(spec.ok());
+  const std::vector<double>& r = series->values;
+  // Start from the fit that stops about a year (250 days) short of the end.
+  auto prev = FitModel(*spec, std::vector<double>(r.begin(), r.end() - 250));
+  REQUIRE(prev.ok());
+  REQUIRE(prev->converged);
+  const NewtonPair p = FitBothWays(*spec, r, prev->params, Presample::kMeanSquare);
+  CheckSameOptimum(p);
+  CheckBenchmark(p.newton.params.values[0], p.newton.params.values[1], p.newton.params.values[2],
+                 p.newton.params.values[3], p.newton.loglik);
+}
+
+TEST_CASE("where Newton does not converge, the fit is SLSQP's from the same start",
+          "[estimator][newton]") {
+  // Independent Gaussian returns: no ARCH effect, a nearly flat likelihood
+  // with maxima at and near alpha's bound 0, where unconstrained Newton steps
+  // from this start end up against the bound.
+  boost::random::mt19937_64 gen(2);
+  boost::random::normal_distribution<double> normal;
+  std::vector<double> r(1500);
+  for (double& v : r) v = normal(gen);
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
+  REQUIRE(spec.ok());
+  const ModelParams start{*spec, {0.0, 0.2, 0.1, 0.7}};
+  const NewtonPair p = FitBothWays(*spec, r, start, Presample::kMeanSquare);
+  INFO("with Newton first: " << p.newton.optimizer_message << ", " << p.newton.iterations
+                             << " evaluations; SLSQP alone: " << p.slsqp.optimizer_message
+                             << ", " << p.slsqp.iterations);
+  REQUIRE(p.newton.converged);
+  CHECK(p.newton.optimizer_message.rfind("Newton converged", 0) != 0);
+  CHECK(p.newton.start_used == "warm");
+  // Same SLSQP run: same point, the Newton evaluations on top.
+  CHECK(p.newton.loglik == p.slsqp.loglik);
+  CHECK(p.newton.params.values == p.slsqp.params.values);
+  CHECK(p.newton.iterations > p.slsqp.iterations);
 }
 
 TEST_CASE("a hopeless warm start falls back to the cold grid", "[estimator]") {

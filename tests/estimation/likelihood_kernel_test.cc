@@ -1,0 +1,148 @@
+#include "estimation/likelihood_kernel.h"
+
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <string>
+#include <vector>
+
+#include "aftershock/likelihood.h"
+#include "estimation/test_series.h"
+
+namespace aftershock::internal {
+namespace {
+
+// Unit-scale data as the estimator sees them.
+std::vector<double> Scaled(std::vector<double> r) {
+  double m = 0, s = 0;
+  for (double v : r) m += v;
+  m /= r.size();
+  for (double v : r) s += (v - m) * (v - m);
+  s = std::sqrt(s / r.size());
+  for (double& v : r) v /= s;
+  return r;
+}
+
+struct Case {
+  const char* mean;
+  const char* variance;
+  VarianceLags orders;
+  const char* law;
+  std::vector<double> theta;  // a point inside the constraints, not the optimum
+};
+
+std::vector<Case> OrderOneCases() {
+  return {
+      {"zero", "garch", {1, 1}, "gaussian", {0.06, 0.09, 0.85}},
+      {"constant", "garch", {1, 1}, "gaussian", {0.02, 0.06, 0.09, 0.85}},
+      {"zero", "garch", {1, 1}, "student", {0.06, 0.09, 0.85, 7.0}},
+      {"constant", "garch", {1, 1}, "student", {0.03, 0.06, 0.09, 0.85, 7.0}},
+      {"zero", "gjr", {1, 1, 1}, "gaussian", {0.06, 0.05, 0.07, 0.84}},
+      {"constant", "gjr", {1, 1, 1}, "gaussian", {-0.01, 0.06, 0.05, 0.07, 0.84}},
+      {"zero", "gjr", {1, 1, 1}, "student", {0.06, 0.05, 0.07, 0.84, 6.5}},
+      {"constant", "gjr", {1, 1, 1}, "student", {0.04, 0.06, 0.05, 0.07, 0.84, 6.5}},
+  };
+}
+
+TEST_CASE("the analytic Hessian matches central differences of the gradient",
+          "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(1500, 17, 6.0));
+  for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
+    for (const Case& c : OrderOneCases()) {
+      auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+      REQUIRE(spec.ok());
+      LikelihoodKernel kernel(*spec, r, pre);
+      REQUIRE(kernel.has_hessian());
+      const int k = kernel.num_params();
+      REQUIRE(static_cast<int>(c.theta.size()) == k);
+      std::vector<double> g(k), h(static_cast<size_t>(k) * k), gp(k), gm(k), g_plain(k);
+      const double ll = kernel.EvaluateHessian(c.theta.data(), g.data(), h.data(), nullptr);
+      const double ll_plain = kernel.Evaluate(c.theta.data(), g_plain.data(), nullptr);
+      INFO(spec->Label() << " presample " << static_cast<int>(pre));
+      REQUIRE(std::isfinite(ll));
+      // The Hessian pass computes the same value and gradient as the gradient pass.
+      CHECK(ll == Approx(ll_plain).epsilon(1e-13));
+      for (int i = 0; i < k; ++i) CHECK(g[i] == Approx(g_plain[i]).epsilon(1e-10).margin(1e-9));
+      for (int a = 0; a < k; ++a) {
+        std::vector<double> th = c.theta;
+        const double step = 1e-6 * std::max(std::fabs(th[a]), 0.05);
+        th[a] = c.theta[a] + step;
+        kernel.Evaluate(th.data(), gp.data(), nullptr);
+        th[a] = c.theta[a] - step;
+        kernel.Evaluate(th.data(), gm.data(), nullptr);
+        for (int b = 0; b < k; ++b) {
+          const double fd = (gp[b] - gm[b]) / (2 * step);
+          const double an = h[static_cast<size_t>(b) * k + a];
+          INFO("d2/d" << spec->ParamNames()[a] << " d" << spec->ParamNames()[b] << " analytic "
+                      << an << " differences " << fd);
+          CHECK(an == Approx(fd).epsilon(2e-5).margin(1e-3));
+          CHECK(an == h[static_cast<size_t>(a) * k + b]);  // symmetric
+        }
+      }
+      // The gradient agrees with central differences of the value.
+      for (int a = 0; a < k; ++a) {
+        std::vector<double> th = c.theta;
+        const double step = 1e-6 * std::max(std::fabs(th[a]), 0.05);
+        th[a] = c.theta[a] + step;
+        const double lp = kernel.Evaluate(th.data(), nullptr, nullptr);
+        th[a] = c.theta[a] - step;
+        const double lm = kernel.Evaluate(th.data(), nullptr, nullptr);
+        INFO("d/d" << spec->ParamNames()[a]);
+        CHECK(g[a] == Approx((lp - lm) / (2 * step)).epsilon(1e-5).margin(1e-3));
+      }
+    }
+  }
+}
+
+TEST_CASE("the Hessian pass returns the per-observation scores of the gradient pass",
+          "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(800, 4, 5.0));
+  for (const Case& c : OrderOneCases()) {
+    auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+    REQUIRE(spec.ok());
+    LikelihoodKernel kernel(*spec, r, Presample::kMeanSquare);
+    const int k = kernel.num_params();
+    const size_t cells = static_cast<size_t>(kernel.nobs()) * k;
+    std::vector<double> g(k), h(static_cast<size_t>(k) * k), s1(cells), s2(cells);
+    kernel.EvaluateHessian(c.theta.data(), g.data(), h.data(), s1.data());
+    kernel.Evaluate(c.theta.data(), g.data(), s2.data());
+    INFO(spec->Label());
+    for (int a = 0; a < k; ++a) {
+      double sum = 0;
+      for (int t = 0; t < kernel.nobs(); ++t) sum += s1[static_cast<size_t>(t) * k + a];
+      CHECK(sum == Approx(g[a]).epsilon(1e-9).margin(1e-8));
+    }
+    for (size_t i = 0; i < cells; ++i) {
+      if (s1[i] != Approx(s2[i]).epsilon(1e-12).margin(1e-14)) {
+        FAIL("score " << i << ": " << s1[i] << " vs " << s2[i]);
+      }
+    }
+  }
+}
+
+TEST_CASE("the Hessian pass reports an infeasible point like the value pass",
+          "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(300, 2));
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
+  REQUIRE(spec.ok());
+  LikelihoodKernel kernel(*spec, r, Presample::kMeanSquare);
+  const std::vector<double> bad = {0.0, -5.0, 0.1, 0.8};  // negative variance
+  std::vector<double> g(4, 1.0), h(16, 1.0);
+  const double ll = kernel.EvaluateHessian(bad.data(), g.data(), h.data(), nullptr);
+  CHECK(std::isinf(ll));
+  CHECK(ll < 0);
+  for (double v : g) CHECK(v == 0.0);
+  for (double v : h) CHECK(v == 0.0);
+}
+
+TEST_CASE("only the order-one models have an analytic Hessian", "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(300, 3));
+  auto arma = MakeModelSpec("arma", {1, 0}, "garch", {1, 1}, "gaussian");
+  auto g21 = MakeModelSpec("constant", {}, "garch", {2, 1}, "gaussian");
+  REQUIRE(arma.ok());
+  REQUIRE(g21.ok());
+  CHECK_FALSE(LikelihoodKernel(*arma, r, Presample::kMeanSquare).has_hessian());
+  CHECK_FALSE(LikelihoodKernel(*g21, r, Presample::kMeanSquare).has_hessian());
+}
+
+}  // namespace
+}  // namespace aftershock::internal
