@@ -2,10 +2,9 @@
 #ifndef AFTERSHOCK_APP_ENGINE_REPORT_H_
 #define AFTERSHOCK_APP_ENGINE_REPORT_H_
 
+#include <nlohmann/json.hpp>
 #include <optional>
 #include <string>
-
-#include <nlohmann/json.hpp>
 
 #include "aftershock/engine_services.h"
 #include "aftershock/evaluation.h"

@@ -394,10 +394,9 @@ std::string TrackingTable(const SymbolHistory& h) {
       "<table class=\"grid tracking\"><caption>Parameter tracking (", HtmlEscape(t.mode), ", ",
       HtmlEscape(t.variance), "): ", t.bars_since_refit, " bars since the refit",
       t.stepping ? "" : " (burn-in: not moving yet)", "; instability ", Fmt(t.instability, "%.3g"),
-      t.instability_alerts >= 0
-          ? absl::StrCat(", ", t.instability_alerts, " instability alert",
-                         t.instability_alerts == 1 ? "" : "s")
-          : std::string(),
+      t.instability_alerts >= 0 ? absl::StrCat(", ", t.instability_alerts, " instability alert",
+                                               t.instability_alerts == 1 ? "" : "s")
+                                : std::string(),
       ", ", t.resets, t.resets == 1 ? " reset" : " resets",
       "</caption><thead><tr><th>parameter</th><th>refit (in force)</th><th>tracked</th>"
       "<th>drift</th><th>drift %</th></tr></thead><tbody>");

@@ -231,17 +231,19 @@ std::string ShowText(const StoredModel& m, const TrackedParameters* t) {
                         t->variance, t->bars_since_refit, t->stepping ? "" : " (burn-in)");
   absl::StrAppendFormat(&out, "persistence     %s tracked, %s refit\n",
                         OrDash(t->persistence, "%.6f"), OrDash(t->refit_persistence, "%.6f"));
-  absl::StrAppendFormat(&out, "level           x%s (tracked unconditional variance over the "
-                        "refit model's)\n", OrDash(t->level_ratio, "%.4f"));
+  absl::StrAppendFormat(&out,
+                        "level           x%s (tracked unconditional variance over the "
+                        "refit model's)\n",
+                        OrDash(t->level_ratio, "%.4f"));
   absl::StrAppendFormat(&out, "instability     %s (resets %u)\n", OrDash(t->instability, "%.3f"),
                         t->resets);
   absl::StrAppendFormat(&out, "\n%-10s %16s %16s %14s %9s\n", "TRACKED", "VALUE", "REFIT", "DRIFT",
                         "DRIFT %");
   for (size_t i = 0; i < t->names.size(); ++i) {
-    absl::StrAppendFormat(&out, "%-10s %16.9g %16.9g %+14.4g %9s\n", t->names[i], t->values[i],
-                          t->refit[i], t->drift(i),
-                          t->refit[i] > 0 ? OrDash(100.0 * t->drift(i) / t->refit[i], "%+.2f")
-                                          : std::string("-"));
+    absl::StrAppendFormat(
+        &out, "%-10s %16.9g %16.9g %+14.4g %9s\n", t->names[i], t->values[i], t->refit[i],
+        t->drift(i),
+        t->refit[i] > 0 ? OrDash(100.0 * t->drift(i) / t->refit[i], "%+.2f") : std::string("-"));
   }
   return out;
 }

@@ -190,13 +190,14 @@ workers = 1
 mode = "drive"
 burn_in_bars = 20
 [tracking.groups.watch]
-symbols = [")", symbols[2], R"("]
+symbols = [")",
+                                                                              symbols[2], R"("]
 mode = "track"
 [http]
 enabled = false
 )"));
-  auto r = testing::RunCli({"replay", "--config", config, "--input", ticks, "--output",
-                            dir + "/u.jsonl"});
+  auto r = testing::RunCli(
+      {"replay", "--config", config, "--input", ticks, "--output", dir + "/u.jsonl"});
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   CHECK(Contains(r.err, "tracking: 3 symbols tracked (2 drive, 1 track), "));
@@ -207,8 +208,8 @@ enabled = false
     CHECK(Contains(r.err, name));
   }
   // --quiet leaves the summary out.
-  auto q = testing::RunCli({"replay", "--config", config, "--input", ticks, "--output",
-                            dir + "/u2.jsonl", "--quiet"});
+  auto q = testing::RunCli(
+      {"replay", "--config", config, "--input", ticks, "--output", dir + "/u2.jsonl", "--quiet"});
   REQUIRE(q.exit_code == 0);
   CHECK_FALSE(Contains(q.err, "tracking:"));
 }

@@ -320,10 +320,9 @@ burn_in_bars = 10
   // handles (a zero or constant mean with GARCH(1,1) or GJR(1,1,1)).
   for (const nlohmann::json& m : list["models"]) {
     const std::string spec = m["spec"].get<std::string>();
-    const bool supported =
-        (spec.rfind("const/", 0) == 0 || spec.rfind("zero/", 0) == 0) &&
-        (spec.find("/GARCH(1,1)/") != std::string::npos ||
-         spec.find("/GJR-GARCH(1,1)/") != std::string::npos);
+    const bool supported = (spec.rfind("const/", 0) == 0 || spec.rfind("zero/", 0) == 0) &&
+                           (spec.find("/GARCH(1,1)/") != std::string::npos ||
+                            spec.find("/GJR-GARCH(1,1)/") != std::string::npos);
     INFO(m["symbol"] << " " << spec);
     CHECK(m.contains("tracking") == supported);
   }

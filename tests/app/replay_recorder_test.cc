@@ -148,16 +148,17 @@ TEST_CASE("a tracked replay: report and summary show the tracked parameters", "[
                               "--quiet"});
   REQUIRE(sim.exit_code == 0);
   // A low alert threshold (the chi-square(3) 95 % point is 7.8): alerts to count.
-  const std::string config = testing::WriteFile(dir + "/tracked.toml", std::string(kRefitConfig) + R"(
+  const std::string config =
+      testing::WriteFile(dir + "/tracked.toml", std::string(kRefitConfig) + R"(
 [tracking]
 mode = "track"
 burn_in_bars = 20
 alert_threshold = 8
 )");
-  auto r = testing::RunCli({"replay", "--config", config, "--input", ticks, "--output",
-                            dir + "/u.jsonl", "--alerts", dir + "/a.jsonl", "--report",
-                            dir + "/report.html", "--summary-json", dir + "/summary.json",
-                            "--quiet"});
+  auto r =
+      testing::RunCli({"replay", "--config", config, "--input", ticks, "--output", dir + "/u.jsonl",
+                       "--alerts", dir + "/a.jsonl", "--report", dir + "/report.html",
+                       "--summary-json", dir + "/summary.json", "--quiet"});
   INFO(r.err);
   REQUIRE(r.exit_code == 0);
   // Instability alerts per symbol in the alerts file.
@@ -179,10 +180,9 @@ alert_threshold = 8
     // zero or constant mean with GARCH(1,1) or GJR(1,1,1); identification may
     // give another model, e.g. an ARMA mean, which runs untracked).
     const std::string model = sym["model_at_end"].get<std::string>();
-    const bool supported =
-        (model.rfind("const/", 0) == 0 || model.rfind("zero/", 0) == 0) &&
-        (model.find("/GARCH(1,1)/") != std::string::npos ||
-         model.find("/GJR-GARCH(1,1)/") != std::string::npos);
+    const bool supported = (model.rfind("const/", 0) == 0 || model.rfind("zero/", 0) == 0) &&
+                           (model.find("/GARCH(1,1)/") != std::string::npos ||
+                            model.find("/GJR-GARCH(1,1)/") != std::string::npos);
     CHECK(sym.contains("tracking") == supported);
     if (!sym.contains("tracking")) continue;
     ++tracked;
