@@ -106,6 +106,10 @@ class EngineServices {
   // (fit details: std errors, log-likelihood, fitted bar), or null when refits
   // are off or the index is unknown. Ingest thread.
   virtual ModelVersionPtr model_version(int index) const = 0;
+  // Instability alerts ([tracking] alert_threshold) raised for the core's
+  // symbol `index` since these services were attached (not checkpointed); 0
+  // for an unknown index. Ingest thread (or after the engine stopped).
+  virtual uint64_t instability_alerts(int index) const = 0;
   // Flushes the alerts file. Ingest thread (or after the engine stopped).
   virtual absl::Status Flush() = 0;
 

@@ -67,6 +67,30 @@ struct RegimePeriod {
   int direction = 1;   // +1: high-volatility regime, -1: low-volatility regime
 };
 
+// The recursive tracker of one symbol at one moment (README "Parameter
+// tracking between refits"): its coefficients next to the refit model's, in
+// the vocabulary of the `m.` tracking records. Plain value type.
+struct TrackedParameters {
+  std::string mode;                // "track" or "drive" ([tracking] mode of the symbol)
+  std::string variance;            // "GARCH(1,1)" or "GJR-GARCH(1,1)"
+  std::vector<std::string> names;  // omega, alpha_1, [gamma_1,] beta_1
+  std::vector<double> values;      // tracked coefficients, in `names` order
+  std::vector<double> refit;       // the refit model's (the tracker's anchor), same order
+  double persistence = 0;          // tracked alpha_1 + gamma_1/2 + beta_1
+  double refit_persistence = 0;    // the refit model's
+  double level_ratio = 1;          // tracked unconditional variance over the refit model's
+  double instability = 0;          // instability statistic Q (0 during its warm-up)
+  int64_t bars_since_refit = 0;    // bars since the tracker was last anchored on a refit
+  bool stepping = false;           // past the burn-in: the coefficients move
+  uint64_t resets = 0;             // divergence resets to the refit model
+  // Instability alerts raised over the period reported on; -1 when not known
+  // (a checkpoint keeps the statistic, not the alert history).
+  int64_t instability_alerts = -1;
+
+  // values[i] - refit[i].
+  double drift(size_t i) const { return values[i] - refit[i]; }
+};
+
 // Everything a replay collected for one symbol. Per-bar vectors all have the
 // length of t_ns (rv may be empty). Ownership: plain value type.
 struct SymbolHistory {
@@ -99,6 +123,9 @@ struct SymbolHistory {
   std::vector<ModelSwapRecord> swaps;  // in time order
   std::vector<AlertRecord> alerts;     // in time order
   std::vector<RegimePeriod> regimes;   // in time order
+  // Recursive tracking at the end ([tracking] track or drive); absent when the
+  // symbol was not tracked (mode off, or a model the tracker does not handle).
+  std::optional<TrackedParameters> tracking;
 };
 
 // Appends one BarUpdate to *history (its risk levels must match the history's;

@@ -161,7 +161,11 @@ class RecursiveTracker {
 
  private:
   void ResetToAnchor();
-  void Project(const TrackerOptions& o);
+  // persistence() and the projection onto the constraints for K coefficients.
+  template <int K>
+  double PersistenceK() const;
+  template <int K>
+  void ProjectK(const TrackerOptions& o);
   template <int K>
   void StepK(double x, const TrackerOptions& o);  // Step for K coefficients
   // d l / d sigma2 of one quasi-likelihood term (inv_v = 1 / sigma2).
@@ -198,15 +202,18 @@ class RecursiveTracker {
   // Anchor recursion and instability statistic.
   double va_ = 0;
   double psia_[kMaxTrackedParams] = {};
-  double sum_[kMaxTrackedParams] = {};                     // S_t
-  double j_[kMaxTrackedParams * kMaxTrackedParams] = {};   // J_t, lower triangle
-  double jl_[kMaxTrackedParams * kMaxTrackedParams] = {};  // its factor, as rl_
-  double jinv_[kMaxTrackedParams] = {};
+  double sum_[kMaxTrackedParams] = {};                    // S_t
+  double j_[kMaxTrackedParams * kMaxTrackedParams] = {};  // J_t, lower triangle
   bool j_factor_ok_ = false;
   int64_t n_j_ = 0;  // bars in j_
   double q_ = 0;
   int64_t bars_ = 0;
   uint64_t resets_ = 0;
+  // J's factor, as rl_, read and written only every few bars: last, so that
+  // the other bars do not touch its cache lines (every field above is used on
+  // every bar; the step is memory-bound with many symbols).
+  double jl_[kMaxTrackedParams * kMaxTrackedParams] = {};
+  double jinv_[kMaxTrackedParams] = {};
 };
 
 }  // namespace aftershock

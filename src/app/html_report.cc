@@ -370,6 +370,39 @@ std::string SwapTable(const SymbolHistory& h, const SymbolEvaluation& ev) {
   return s;
 }
 
+// Recursive tracking at the end of the replay: the tracked coefficients beside
+// the refit model's (the model in force, which the tracker started from) and
+// their drift; the instability statistic and its alerts in the caption. Empty
+// for a symbol that was not tracked.
+std::string TrackingTable(const SymbolHistory& h) {
+  if (!h.tracking) return "";
+  const TrackedParameters& t = *h.tracking;
+  std::string s = absl::StrCat(
+      "<table class=\"grid tracking\"><caption>Parameter tracking (", HtmlEscape(t.mode), ", ",
+      HtmlEscape(t.variance), "): ", t.bars_since_refit, " bars since the refit",
+      t.stepping ? "" : " (burn-in: not moving yet)", "; instability ", Fmt(t.instability, "%.3g"),
+      t.instability_alerts >= 0 ? absl::StrCat(", ", t.instability_alerts, " instability alert",
+                                               t.instability_alerts == 1 ? "" : "s")
+                                : std::string(),
+      ", ", t.resets, t.resets == 1 ? " reset" : " resets",
+      "</caption><thead><tr><th>parameter</th><th>refit (in force)</th><th>tracked</th>"
+      "<th>drift</th><th>drift %</th></tr></thead><tbody>");
+  auto row = [&](const std::string& name, double refit, double value) {
+    const double d = value - refit;
+    absl::StrAppend(&s, "<tr>", Td(HtmlEscape(name), "", false), Td(Fmt(refit, "%.5g")),
+                    Td(Fmt(value, "%.5g")), Td(Fmt(d, "%+.3g")),
+                    Td(refit > 0 ? Fmt(100.0 * d / refit, "%+.1f") : "\xE2\x80\x93"), "</tr>");
+  };
+  for (size_t i = 0; i < t.names.size() && i < t.values.size() && i < t.refit.size(); ++i) {
+    row(t.names[i], t.refit[i], t.values[i]);
+  }
+  row("persistence", t.refit_persistence, t.persistence);
+  // The level: tracked unconditional variance over the refit model's (1 by definition).
+  row("level", 1.0, t.level_ratio);
+  s += "</tbody></table>";
+  return s;
+}
+
 // Intraday view (EvaluateSymbol's TimeOfDay): per segment of the session the
 // profile s^2 in force at the end (drawn as a bar), mean z^2 and the VaR
 // exceptions at var_level against their expected count. Empty when the
@@ -593,7 +626,7 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
                     "\" data-charts=\"", charts - before, "\"></div>");
     absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), PitLine(*ev),
                     TimeOfDayTable(h, *ev, opt), ForecastTable(*ev), "<div class=\"pair\">",
-                    AlertTable(*ev), "</div>", SwapTable(h, *ev), "</div></section>");
+                    AlertTable(*ev), "</div>", SwapTable(h, *ev), TrackingTable(h), "</div></section>");
   }
 
   std::stable_sort(rows.begin(), rows.end(), [](const OverviewRow& a, const OverviewRow& b) {

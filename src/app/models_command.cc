@@ -6,6 +6,7 @@
 #include <cstdio>
 #include <fstream>
 #include <limits>
+#include <map>
 #include <nlohmann/json.hpp>
 #include <string>
 #include <vector>
@@ -24,6 +25,7 @@
 #include "aftershock/update_sink.h"
 #include "app/args.h"
 #include "app/cli.h"
+#include "app/engine_report.h"
 
 namespace aftershock::app {
 namespace {
@@ -36,13 +38,17 @@ int Fail(const absl::Status& s) { return ReportFailure("models", s, 2); }
 struct Loaded {
   bool checkpoint = false;
   std::vector<StoredModel> models;
+  // A checkpoint's tracked symbols ([tracking] track or drive): the tracker
+  // state it holds, by symbol.
+  std::map<std::string, TrackedParameters> tracking;
 };
 
 // The models in force in a checkpoint: the engine state is restored (with
 // every check of a restore) into a core and services built from `config`,
-// then read symbol by symbol.
-absl::StatusOr<std::vector<StoredModel>> CheckpointModels(const std::string& path,
-                                                          const std::string& config_path) {
+// then read symbol by symbol (with the tracked parameters into *tracking).
+absl::StatusOr<std::vector<StoredModel>> CheckpointModels(
+    const std::string& path, const std::string& config_path,
+    std::map<std::string, TrackedParameters>* tracking) {
   if (config_path.empty()) {
     return absl::InvalidArgumentError(
         absl::StrCat("'", path, "' is a checkpoint: give --config, the configuration it was "
@@ -82,6 +88,9 @@ absl::StatusOr<std::vector<StoredModel>> CheckpointModels(const std::string& pat
       m.loglik = v->loglik;
       m.scheduled_bar = v->fitted_bar;
     }
+    if (std::optional<TrackedParameters> t = TrackedParametersOf(c, i)) {
+      (*tracking)[m.symbol] = *std::move(t);
+    }
     out.push_back(std::move(m));
   }
   std::sort(out.begin(), out.end(),
@@ -98,7 +107,7 @@ absl::StatusOr<Loaded> Load(const std::string& path, const std::string& config_p
   out.checkpoint = in.gcount() == 8 && std::string(magic, 8) == kCheckpointMagic;
   in.close();
   if (out.checkpoint) {
-    auto models = CheckpointModels(path, config_path);
+    auto models = CheckpointModels(path, config_path, &out.tracking);
     if (!models.ok()) return models.status();
     out.models = *std::move(models);
   } else {
@@ -121,7 +130,7 @@ std::string FormatTime(int64_t t_ns) {
   return absl::FormatTime("%Y-%m-%d %H:%M:%SZ", absl::FromUnixNanos(t_ns), absl::UTCTimeZone());
 }
 
-nlohmann::json ModelJson(const StoredModel& m) {
+nlohmann::json ModelJson(const StoredModel& m, const TrackedParameters* tracking) {
   nlohmann::json j;
   j["symbol"] = m.symbol;
   j["version"] = m.version;
@@ -143,6 +152,7 @@ nlohmann::json ModelJson(const StoredModel& m) {
          {"se_hessian", i < m.std_errors.size() ? Num(m.std_errors[i]) : nlohmann::json()}});
   }
   j["estimates"] = std::move(params);
+  if (tracking != nullptr) j["tracking"] = TrackedParametersJson(*tracking);
   return j;
 }
 
@@ -153,23 +163,51 @@ std::string OrDash(double x, const char* fmt) {
   return buf;
 }
 
-std::string ListText(const std::vector<StoredModel>& models) {
-  std::string out = absl::StrFormat("%-12s %7s %-8s %-38s %11s %11s %12s %10s %-20s\n", "SYMBOL",
+const TrackedParameters* TrackingOf(const Loaded& loaded, const std::string& symbol) {
+  auto it = loaded.tracking.find(symbol);
+  return it == loaded.tracking.end() ? nullptr : &it->second;
+}
+
+// With tracked symbols, four more columns: the tracking mode, the tracked
+// persistence, the tracked level (unconditional variance over the refit
+// model's) and the instability statistic.
+std::string ListText(const Loaded& loaded) {
+  const bool tracked = !loaded.tracking.empty();
+  std::string out = absl::StrFormat("%-12s %7s %-8s %-38s %11s %11s %12s %10s %-20s", "SYMBOL",
                                     "VERSION", "STATUS", "MODEL", "PERSISTENCE", "HALF-LIFE",
                                     "LONG-RUN VOL", "FITTED BAR", "IN FORCE SINCE");
-  for (const StoredModel& m : models) {
+  if (tracked) {
+    absl::StrAppendFormat(&out, " %-8s %12s %7s %11s", "TRACKING", "TRACKED PERS", "LEVEL",
+                          "INSTABILITY");
+  }
+  out += "\n";
+  for (const StoredModel& m : loaded.models) {
     absl::StrAppendFormat(
-        &out, "%-12s %7u %-8s %-38s %11s %11s %12s %10s %-20s\n", m.symbol, m.version, m.status,
+        &out, "%-12s %7u %-8s %-38s %11s %11s %12s %10s %-20s", m.symbol, m.version, m.status,
         m.params.spec.Label(), OrDash(m.params.Persistence(), "%.4f"),
         OrDash(VarianceHalfLifeBars(m.params), "%.1f"), OrDash(LongRunVolatility(m.params), "%.4g"),
         m.scheduled_bar >= 0 ? absl::StrCat(m.scheduled_bar) : "-", FormatTime(m.t_ns));
+    if (const TrackedParameters* t = TrackingOf(loaded, m.symbol)) {
+      absl::StrAppendFormat(&out, " %-8s %12s %7s %11s", t->mode, OrDash(t->persistence, "%.4f"),
+                            OrDash(t->level_ratio, "x%.3f"), OrDash(t->instability, "%.2f"));
+    } else if (tracked) {
+      absl::StrAppendFormat(&out, " %-8s %12s %7s %11s", "-", "-", "-", "-");
+    }
+    out += "\n";
   }
-  absl::StrAppend(&out, models.size(), " models. Half-life in bars; long-run volatility per bar, "
-                                       "in the units of the model's returns.\n");
+  absl::StrAppend(&out, loaded.models.size(),
+                  " models. Half-life in bars; long-run volatility per bar, in the units of the "
+                  "model's returns.");
+  if (tracked) {
+    absl::StrAppend(&out, " ", loaded.tracking.size(),
+                    " tracked ([tracking]): TRACKED PERS and LEVEL (unconditional variance over "
+                    "the refit model's) of the tracked parameters; `show` lists them.");
+  }
+  out += "\n";
   return out;
 }
 
-std::string ShowText(const StoredModel& m) {
+std::string ShowText(const StoredModel& m, const TrackedParameters* t) {
   std::string out;
   absl::StrAppendFormat(&out, "symbol          %s\nversion         %u\nstatus          %s\n",
                         m.symbol, m.version, m.status);
@@ -188,6 +226,25 @@ std::string ShowText(const StoredModel& m) {
     absl::StrAppendFormat(&out, "%-10s %16.9g %14s\n", names[i], m.params.values[i],
                           i < m.std_errors.size() ? OrDash(m.std_errors[i], "%.4g") : "-");
   }
+  if (t == nullptr) return out;
+  absl::StrAppendFormat(&out, "\ntracking        %s %s, %d bars since the refit%s\n", t->mode,
+                        t->variance, t->bars_since_refit, t->stepping ? "" : " (burn-in)");
+  absl::StrAppendFormat(&out, "persistence     %s tracked, %s refit\n",
+                        OrDash(t->persistence, "%.6f"), OrDash(t->refit_persistence, "%.6f"));
+  absl::StrAppendFormat(&out,
+                        "level           x%s (tracked unconditional variance over the "
+                        "refit model's)\n",
+                        OrDash(t->level_ratio, "%.4f"));
+  absl::StrAppendFormat(&out, "instability     %s (resets %u)\n", OrDash(t->instability, "%.3f"),
+                        t->resets);
+  absl::StrAppendFormat(&out, "\n%-10s %16s %16s %14s %9s\n", "TRACKED", "VALUE", "REFIT", "DRIFT",
+                        "DRIFT %");
+  for (size_t i = 0; i < t->names.size(); ++i) {
+    absl::StrAppendFormat(
+        &out, "%-10s %16.9g %16.9g %+14.4g %9s\n", t->names[i], t->values[i], t->refit[i],
+        t->drift(i),
+        t->refit[i] > 0 ? OrDash(100.0 * t->drift(i) / t->refit[i], "%+.2f") : std::string("-"));
+  }
   return out;
 }
 
@@ -205,7 +262,11 @@ constexpr char kSummary[] =
     "a variance shock in bars, long-run volatility per bar (square root of the\n"
     "unconditional variance, in the units of the model's returns), the bar count at which\n"
     "it was fitted and when it went into force (UTC; '-' where the file does not say).\n"
-    "`show` prints every parameter with its standard error. `export` writes one model\n"
+    "`show` prints every parameter with its standard error. With [tracking] on, a\n"
+    "checkpoint also holds each tracked symbol's recursive tracker: `list` adds its mode,\n"
+    "tracked persistence, level and instability statistic, `show` the tracked omega,\n"
+    "alpha_1, [gamma_1,] beta_1 beside the refit model's and their drift (JSON: the\n"
+    "\"tracking\" object, in the keys of the m. tracking records). `export` writes one model\n"
     "record a line for the symbols on a fitted model (warm-up, fallback and group models\n"
     "are skipped), the format `--initial-models` of `run` and `replay` reads.\n"
     "Errors (unreadable or corrupt file, unknown symbol) exit 2.\n\n"
@@ -257,10 +318,12 @@ int ModelsCommand(int argc, char** argv) {
       j["file"] = positional[1];
       j["kind"] = loaded->checkpoint ? "checkpoint" : "model file";
       j["models"] = nlohmann::json::array();
-      for (const StoredModel& m : models) j["models"].push_back(ModelJson(m));
+      for (const StoredModel& m : models) {
+        j["models"].push_back(ModelJson(m, TrackingOf(*loaded, m.symbol)));
+      }
       std::printf("%s\n", j.dump(2).c_str());
     } else {
-      std::fputs(ListText(models).c_str(), stdout);
+      std::fputs(ListText(*loaded).c_str(), stdout);
     }
     return 0;
   }
@@ -268,9 +331,9 @@ int ModelsCommand(int argc, char** argv) {
     for (const StoredModel& m : models) {
       if (m.symbol != positional[2]) continue;
       if (format == "json") {
-        std::printf("%s\n", ModelJson(m).dump(2).c_str());
+        std::printf("%s\n", ModelJson(m, TrackingOf(*loaded, m.symbol)).dump(2).c_str());
       } else {
-        std::fputs(ShowText(m).c_str(), stdout);
+        std::fputs(ShowText(m, TrackingOf(*loaded, m.symbol)).c_str(), stdout);
       }
       return 0;
     }

@@ -384,6 +384,7 @@ int ReplayCommand(int argc, char** argv) {
                  static_cast<unsigned long long>(c.symbols), seconds,
                  c.bars / std::max(seconds, 1e-9), bad.c_str(),
                  ServicesSummary(**services).c_str());
+    std::fputs(TrackingSummary(**core, **services).c_str(), stderr);
   }
   // Printed even with --quiet: a run that cannot have done its job must say so.
   for (const std::string& w : warnings) std::fprintf(stderr, "replay: warning: %s\n", w.c_str());

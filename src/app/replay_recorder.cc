@@ -10,6 +10,7 @@
 
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
+#include "app/engine_report.h"
 #include "app/fit_report.h"
 
 namespace aftershock::app {
@@ -38,6 +39,7 @@ void ReplayRecorder::OnNewSymbol(IngestCore* core, int index, absl::string_view 
     histories_.resize(index + 1);
     regime_start_.resize(index + 1, -1);
     regime_dir_.resize(index + 1, 0);
+    instability_alerts_.resize(index + 1, 0);
   }
   histories_[index].symbol = std::string(symbol);
 }
@@ -61,6 +63,7 @@ void ReplayRecorder::OnAlert(int index, const Alert& alert) {
   rec.value = alert.value;
   rec.message = std::string(alert.message_view());
   h.alerts.push_back(std::move(rec));
+  if (alert.rule == AlertRule::kInstability) ++instability_alerts_[index];
   const int dir = alert.rule == AlertRule::kRegimeLow ? -1 : 1;
   if (alert.kind == AlertKind::kRegime) {
     regime_start_[index] = alert.t_ns;
@@ -106,6 +109,8 @@ void ReplayRecorder::Finish(const IngestCore& core) {
     if (law.ok()) h.law = *law;
     const SeasonalProfile* prof = core.seasonal_profile(static_cast<int>(i));
     h.seasonal_factors = prof != nullptr ? prof->factors() : std::vector<double>{};
+    h.tracking = TrackedParametersOf(core, static_cast<int>(i));
+    if (h.tracking) h.tracking->instability_alerts = instability_alerts_[i];
   }
 }
 
@@ -305,6 +310,7 @@ nlohmann::json ReplayRecorder::SummaryJson(const EvaluationOptions& options) con
     }
     s["model_at_end"] = model;
     s["version_at_end"] = h.ver.empty() ? 0u : h.ver.back();  // the report's "last model version"
+    if (h.tracking) s["tracking"] = TrackedParametersJson(*h.tracking);
     if (!h.t_ns.empty()) {
       s["first_bar_ns"] = h.t_ns.front();
       s["last_bar_ns"] = h.t_ns.back();

@@ -37,7 +37,8 @@ class ReplayRecorder : public BarObserver, public ServiceListener {
   void OnRefitRecord(int index, const RefitRecord& record) override;
 
   // Closes open regime periods at each symbol's last bar and records the
-  // innovation law of each symbol's final model. Call once after the replay.
+  // innovation law of each symbol's final model and, for a tracked symbol, its
+  // tracked parameters (SymbolHistory::tracking). Call once after the replay.
   void Finish(const IngestCore& core);
 
   const std::vector<SymbolHistory>& histories() const { return histories_; }
@@ -57,6 +58,7 @@ class ReplayRecorder : public BarObserver, public ServiceListener {
   std::vector<SymbolHistory> histories_;
   std::vector<int64_t> regime_start_;  // per symbol: open regime start, -1 none
   std::vector<int> regime_dir_;
+  std::vector<int64_t> instability_alerts_;  // per symbol: instability alerts published
 };
 
 }  // namespace aftershock::app

@@ -219,6 +219,7 @@ int RunCommand(int argc, char** argv) {
                static_cast<unsigned long long>(c.updates_out),
                static_cast<unsigned long long>(c.drops), RejectSummary(c).c_str(),
                static_cast<unsigned long long>(c.symbols), ServicesSummary(**services).c_str());
+  std::fputs(TrackingSummary(*(*engine)->core(), **services).c_str(), stderr);
   if (!st.ok()) return Fail(st, 1);
   return 0;
 }

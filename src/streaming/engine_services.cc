@@ -181,6 +181,10 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     }
     return refit_->current(static_cast<uint32_t>(symbols_[index].refit_id));
   }
+  uint64_t instability_alerts(int index) const override {
+    if (index < 0 || index >= static_cast<int>(symbols_.size())) return 0;
+    return symbols_[index].instability_alerts;
+  }
   const AlertCounters& alert_counters() const override {
     combined_ = alerts_->counters();
     for (const auto& g : group_alerts_) {
@@ -497,6 +501,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     const TrackingConfig& tc = core->config().tracking;
     const uint32_t version = core->model(index).version();
     if (core->TakeInstabilityAlert(index)) {
+      ++p.instability_alerts;
       sink_.index = index;
       p.alerts_engine->OnInstability(p.symbol, u.t_ns, version, t.instability(),
                                      tc.alert_threshold, &sink_);
@@ -661,6 +666,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     int64_t refit_id = -1;
     bool fallback = false;
     RollingWindow seasonal_window;  // seasonality without refits: tagged returns
+    uint64_t instability_alerts = 0;  // raised since attach (instability_alerts())
   };
 
   IngestCore* const core_;

@@ -287,5 +287,55 @@ TEST_CASE("intraday bars over 250 trading days: the zone counts days and says so
   CHECK(tl.yellow_from > 5);  // scaled to 6,250 bars, not the 250-bar bounds
 }
 
+TEST_CASE("a tracked symbol shows its tracked parameters beside the refit model's",
+          "[report][tracking]") {
+  ReportInput in = FixtureReport(1500);
+  TrackedParameters t;
+  t.mode = "drive";
+  t.variance = "GJR-GARCH(1,1)";
+  t.names = {"omega", "alpha_1", "gamma_1", "beta_1"};
+  t.values = {1.65e-3, 0.035, 0.07, 0.905};
+  t.refit = {1.5e-3, 0.03, 0.08, 0.9};
+  t.persistence = 0.035 + 0.035 + 0.905;
+  t.refit_persistence = 0.97;
+  t.level_ratio = 1.1;
+  t.instability = 12.5;
+  t.bars_since_refit = 340;
+  t.stepping = true;
+  t.resets = 1;
+  t.instability_alerts = 2;
+  in.symbols[2].tracking = t;
+  auto page = RenderHtmlReport(in);
+  REQUIRE(page.ok());
+  const std::string& html = *page;
+  // Only the tracked symbol (HARRIER-9, the third section) has the table.
+  const size_t table = html.find(
+      "Parameter tracking (drive, GJR-GARCH(1,1)): 340 bars since the "
+      "refit; instability 12.5, 2 instability alerts, 1 reset");
+  REQUIRE(table != std::string::npos);
+  CHECK(html.find("Parameter tracking", table + 1) == std::string::npos);
+  CHECK(html.rfind("id=\"sym-2\"", table) > html.rfind("id=\"sym-1\"", table));
+  const std::string body = html.substr(table, html.find("</table>", table) - table);
+  INFO(body);
+  // One row per coefficient: refit (in force), tracked, drift, drift %.
+  CHECK(Contains(body,
+                 "<td>omega</td><td class=\"num\">0.0015</td><td class=\"num\">0.00165</td>"
+                 "<td class=\"num\">+0.00015</td><td class=\"num\">+10.0</td>"));
+  CHECK(Contains(body,
+                 "<td>gamma_1</td><td class=\"num\">0.08</td><td class=\"num\">0.07</td>"
+                 "<td class=\"num\">-0.01</td><td class=\"num\">-12.5</td>"));
+  CHECK(Contains(body, "<td>alpha_1</td>"));
+  CHECK(Contains(body, "<td>beta_1</td><td class=\"num\">0.9</td><td class=\"num\">0.905</td>"));
+  CHECK(Contains(body,
+                 "<td>persistence</td><td class=\"num\">0.97</td><td class=\"num\">0.975</td>"));
+  CHECK(Contains(body, "<td>level</td><td class=\"num\">1</td><td class=\"num\">1.1</td>"));
+
+  // Untracked: no table at all.
+  in.symbols[2].tracking.reset();
+  auto plain = RenderHtmlReport(in);
+  REQUIRE(plain.ok());
+  CHECK_FALSE(Contains(*plain, "Parameter tracking"));
+}
+
 }  // namespace
 }  // namespace aftershock

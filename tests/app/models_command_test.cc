@@ -3,6 +3,7 @@
 // on a checkpoint and on a model file, the export -> --initial-models round
 // trip, and the errors (exit 2). Price ticks in 1-minute bars over sessions
 // with overnight gaps, refits on.
+#include <algorithm>
 #include <catch2/catch.hpp>
 #include <cmath>
 #include <map>
@@ -195,6 +196,11 @@ TEST_CASE("models list / show / export on a model file and a checkpoint", "[app]
     CHECK(text.out.find("SYMBOL") != std::string::npos);
     CHECK(text.out.find("3 models.") != std::string::npos);
     for (const char* sym : kSymbols) CHECK(text.out.find(sym) != std::string::npos);
+    // No tracking: no tracking columns, in a model file or a checkpoint.
+    CHECK(text.out.find("TRACKING") == std::string::npos);
+    const auto ck = RunCli({"models", "list", f.ckpt, "--config", f.cfg});
+    REQUIRE(ck.exit_code == 0);
+    CHECK(ck.out.find("TRACKING") == std::string::npos);
     for (const std::vector<std::string>& argv :
          {std::vector<std::string>{"models", "list", f.models, "--format", "json"},
           std::vector<std::string>{"models", "list", f.ckpt, "--config", f.cfg, "--format",
@@ -262,6 +268,104 @@ TEST_CASE("models list / show / export on a model file and a checkpoint", "[app]
         CHECK(ReadFileOrDie(f.dir + "/rt.m") == ReadFileOrDie(f.dir + "/rt_base.m"));
       }
     }
+  }
+}
+
+// The same days replayed with [tracking] drive: the checkpoint holds each
+// symbol's tracker, and `models` shows it.
+TEST_CASE("models list / show: the tracked parameters a checkpoint holds", "[app][models]") {
+  const std::string dir = testing::ScratchDir("models_command_tracking");
+  const std::string cfg = WriteFile(dir + "/c.toml", absl::StrCat(kConfig, R"([tracking]
+mode = "drive"
+burn_in_bars = 10
+)"));
+  const std::string days = WriteFile(dir + "/days0_3.csv", TickCsv(0, 4));
+  const std::string ckpt = dir + "/end.ckpt";
+  const auto r = Replay(cfg, days, dir + "/first", {"--checkpoint", ckpt});
+  INFO(r.err);
+  REQUIRE(r.exit_code == 0);
+
+  const auto js = RunCli({"models", "list", ckpt, "--config", cfg, "--format", "json"});
+  INFO(js.err);
+  REQUIRE(js.exit_code == 0);
+  const nlohmann::json list = nlohmann::json::parse(js.out);
+  REQUIRE(list["models"].size() == 3);
+  std::vector<std::string> tracked;
+  for (const nlohmann::json& m : list["models"]) {
+    if (!m.contains("tracking")) continue;
+    tracked.push_back(m["symbol"].get<std::string>());
+    const nlohmann::json& t = m["tracking"];
+    INFO(m.dump());
+    CHECK(t["mode"] == "drive");
+    CHECK(t["variance"] == "GARCH(1,1)");
+    CHECK(t["bars_since_refit"].get<int64_t>() >= 0);
+    CHECK(t["instability"].get<double>() >= 0);
+    CHECK_FALSE(t.contains("instability_alerts"));  // not in a checkpoint
+    REQUIRE(t["estimates"].size() == 3);
+    const char* names[] = {"omega", "alpha_1", "beta_1"};
+    for (size_t i = 0; i < 3; ++i) {
+      const nlohmann::json& e = t["estimates"][i];
+      CHECK(e["name"] == names[i]);
+      CHECK(e["drift"].get<double>() == e["value"].get<double>() - e["refit"].get<double>());
+    }
+    // The refit column is the model in force the tracker was anchored on:
+    // its alpha_1 and beta_1 exactly (re-anchored at the first bar after a swap).
+    for (const nlohmann::json& p : m["estimates"]) {
+      for (size_t i = 1; i < 3; ++i) {
+        if (p["name"] == names[i]) CHECK(p["value"] == t["estimates"][i]["refit"]);
+      }
+    }
+  }
+  // A symbol is tracked exactly when its model in force is one the tracker
+  // handles (a zero or constant mean with GARCH(1,1) or GJR(1,1,1)).
+  for (const nlohmann::json& m : list["models"]) {
+    const std::string spec = m["spec"].get<std::string>();
+    const bool supported = (spec.rfind("const/", 0) == 0 || spec.rfind("zero/", 0) == 0) &&
+                           (spec.find("/GARCH(1,1)/") != std::string::npos ||
+                            spec.find("/GJR-GARCH(1,1)/") != std::string::npos);
+    INFO(m["symbol"] << " " << spec);
+    CHECK(m.contains("tracking") == supported);
+  }
+  CHECK(tracked.size() >= 1);
+
+  const auto text = RunCli({"models", "list", ckpt, "--config", cfg});
+  REQUIRE(text.exit_code == 0);
+  INFO(text.out);
+  CHECK(text.out.find("TRACKING") != std::string::npos);
+  CHECK(text.out.find("INSTABILITY") != std::string::npos);
+  CHECK(text.out.find(absl::StrCat(tracked.size(), " tracked ([tracking])")) != std::string::npos);
+  for (const char* sym : kSymbols) {
+    const size_t line = text.out.find(std::string(sym) + " ");
+    REQUIRE(line != std::string::npos);
+    const bool is_tracked = std::find(tracked.begin(), tracked.end(), sym) != tracked.end();
+    CHECK((text.out.substr(line, text.out.find('\n', line) - line).find(" drive ") !=
+           std::string::npos) == is_tracked);
+  }
+
+  REQUIRE_FALSE(tracked.empty());
+  const std::string shown = tracked.front();
+  const auto show = RunCli({"models", "show", ckpt, shown, "--config", cfg});
+  INFO(show.err);
+  REQUIRE(show.exit_code == 0);
+  INFO(show.out);
+  CHECK(show.out.find("tracking        drive GARCH(1,1), ") != std::string::npos);
+  CHECK(show.out.find("instability     ") != std::string::npos);
+  const size_t table = show.out.find("\nTRACKED ");
+  REQUIRE(table != std::string::npos);
+  const std::string header = show.out.substr(table, show.out.find('\n', table + 1) - table);
+  for (const char* col : {" VALUE", " REFIT", " DRIFT", " DRIFT %"}) {
+    CHECK(header.find(col) != std::string::npos);
+  }
+  for (const char* name : {"omega", "alpha_1", "beta_1"}) {
+    CHECK(show.out.find(std::string("\n") + name, table) != std::string::npos);
+  }
+  const auto show_json =
+      RunCli({"models", "show", ckpt, shown, "--config", cfg, "--format", "json"});
+  REQUIRE(show_json.exit_code == 0);
+  const nlohmann::json sj = nlohmann::json::parse(show_json.out);
+  CHECK(sj["tracking"]["mode"] == "drive");
+  for (const nlohmann::json& m : list["models"]) {
+    if (m["symbol"] == shown) CHECK(sj["tracking"] == m["tracking"]);
   }
 }
 
