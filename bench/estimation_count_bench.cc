@@ -20,35 +20,16 @@
 #include "aftershock/estimator.h"
 #include "aftershock/identify.h"
 #include "aftershock/simulate.h"
+#include "bench_series.h"
 
 namespace aftershock {
 namespace {
 
-ModelSpec FitSpec() { return *MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian"); }
+ModelSpec FitSpec() { return bench::FitBenchSpec(); }
 
-std::vector<double> FitData() {  // as fit_bench
-  auto p = ModelParams::FromNamed(
-      FitSpec(), {{"mu", 0.02}, {"omega", 0.03}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
-  SimulationOptions so;
-  so.n = 2020;
-  so.seed = 2026;
-  return Simulate(*p, so)->returns;
-}
+std::vector<double> FitData() { return bench::FitBenchSeries(2020); }  // as fit_bench
 
-std::vector<double> IdentifyData() {  // as identify_bench
-  auto spec = MakeModelSpec("arma", {1, 0}, "gjr", {1, 1, 1}, "student");
-  auto p = ModelParams::FromNamed(*spec, {{"mu", 0.01},
-                                          {"ar_1", 0.1},
-                                          {"omega", 0.03},
-                                          {"alpha_1", 0.04},
-                                          {"gamma_1", 0.08},
-                                          {"beta_1", 0.88},
-                                          {"nu", 7.0}});
-  SimulationOptions so;
-  so.n = 2000;
-  so.seed = 99;
-  return Simulate(*p, so)->returns;
-}
+std::vector<double> IdentifyData() { return bench::IdentifyBenchSeries(); }  // as identify_bench
 
 // The measured region: callgrind attributes its inclusive count to this name.
 __attribute__((noinline)) double RunWorkload(const std::string& what,

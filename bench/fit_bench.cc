@@ -18,6 +18,7 @@
 
 #include "aftershock/estimator.h"
 #include "aftershock/simulate.h"
+#include "bench_series.h"
 
 namespace aftershock {
 namespace {
@@ -25,19 +26,12 @@ namespace {
 constexpr int kBars = 2000;
 
 const ModelSpec& Spec() {
-  static const ModelSpec spec = *MakeModelSpec("constant", {}, "garch", {1, 1}, "gaussian");
+  static const ModelSpec spec = bench::FitBenchSpec();
   return spec;
 }
 
 const std::vector<double>& Data() {
-  static const std::vector<double> data = [] {
-    auto p = ModelParams::FromNamed(
-        Spec(), {{"mu", 0.02}, {"omega", 0.03}, {"alpha_1", 0.08}, {"beta_1", 0.9}});
-    SimulationOptions so;
-    so.n = kBars + 20;
-    so.seed = 2026;
-    return Simulate(*p, so)->returns;
-  }();
+  static const std::vector<double> data = bench::FitBenchSeries(kBars + 20);
   return data;
 }
 

@@ -5,24 +5,12 @@
 
 #include "aftershock/identify.h"
 #include "aftershock/simulate.h"
+#include "bench_series.h"
 
 namespace aftershock {
 namespace {
 
-std::vector<double> Data() {
-  auto spec = MakeModelSpec("arma", {1, 0}, "gjr", {1, 1, 1}, "student");
-  auto p = ModelParams::FromNamed(*spec, {{"mu", 0.01},
-                                          {"ar_1", 0.1},
-                                          {"omega", 0.03},
-                                          {"alpha_1", 0.04},
-                                          {"gamma_1", 0.08},
-                                          {"beta_1", 0.88},
-                                          {"nu", 7.0}});
-  SimulationOptions so;
-  so.n = 2000;
-  so.seed = 99;
-  return Simulate(*p, so)->returns;
-}
+std::vector<double> Data() { return bench::IdentifyBenchSeries(); }
 
 void BM_IdentifyPipeline(benchmark::State& st) {
   const auto r = Data();

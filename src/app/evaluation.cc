@@ -26,6 +26,29 @@ double BernoulliLogLik(double k, double m, double q) { return XLogY(m - k, 1.0 -
 
 bool IsFinite(double v) { return std::isfinite(v); }
 
+// Counts the zones of the rolling windows of a traffic light and stores their
+// shares; shared by the bar and the trading-day windows.
+struct ZoneTally {
+  int64_t green = 0, yellow = 0, red = 0;
+  void Add(TrafficLightZone z) {
+    if (z == TrafficLightZone::kGreen) {
+      ++green;
+    } else if (z == TrafficLightZone::kYellow) {
+      ++yellow;
+    } else {
+      ++red;
+    }
+  }
+  // REQUIRES: n_windows > 0 (the number of windows added).
+  void Store(int64_t n_windows, TrafficLight* tl) const {
+    tl->n_windows = n_windows;
+    const double nw = static_cast<double>(n_windows);
+    tl->share_green = green / nw;
+    tl->share_yellow = yellow / nw;
+    tl->share_red = red / nw;
+  }
+};
+
 }  // namespace
 
 const char* ZoneName(TrafficLightZone zone) {
@@ -177,28 +200,15 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLight(absl::Span<const uint8_t> exce
   for (int64_t i = n - tl.window; i < n; ++i) tl.window_exceptions += exceptions[i];
   if (n < w) return tl;  // zone stays n/a: the framework needs a full window
   tl.zone = ZoneOf(tl.window_exceptions, options);
-  int64_t in_window = 0, green = 0, yellow = 0, red = 0;
+  int64_t in_window = 0;
+  ZoneTally tally;
   for (int64_t i = 0; i < n; ++i) {
     in_window += exceptions[i];
     if (i >= w) in_window -= exceptions[i - w];
     if (i + 1 < w) continue;
-    switch (ZoneOf(in_window, options)) {
-      case TrafficLightZone::kGreen:
-        ++green;
-        break;
-      case TrafficLightZone::kYellow:
-        ++yellow;
-        break;
-      default:
-        ++red;
-        break;
-    }
+    tally.Add(ZoneOf(in_window, options));
   }
-  tl.n_windows = n - w + 1;
-  const double nw = static_cast<double>(tl.n_windows);
-  tl.share_green = green / nw;
-  tl.share_yellow = yellow / nw;
-  tl.share_red = red / nw;
+  tally.Store(n - w + 1, &tl);
   return tl;
 }
 
@@ -256,7 +266,8 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLightByDays(absl::Span<const uint8_t
                   : (x >= y ? TrafficLightZone::kYellow : TrafficLightZone::kGreen);
   };
   tl.zone = zone_of(tl.window_exceptions, tl.window);
-  int64_t in_bars = 0, in_exc = 0, green = 0, yellow = 0, red = 0;
+  int64_t in_bars = 0, in_exc = 0;
+  ZoneTally tally;
   for (int64_t d = 0; d < nd; ++d) {
     in_bars += bars_of[d];
     in_exc += exc_of[d];
@@ -265,23 +276,9 @@ absl::StatusOr<TrafficLight> EvaluateTrafficLightByDays(absl::Span<const uint8_t
       in_exc -= exc_of[d - w];
     }
     if (d + 1 < w) continue;
-    switch (zone_of(in_exc, in_bars)) {
-      case TrafficLightZone::kGreen:
-        ++green;
-        break;
-      case TrafficLightZone::kYellow:
-        ++yellow;
-        break;
-      default:
-        ++red;
-        break;
-    }
+    tally.Add(zone_of(in_exc, in_bars));
   }
-  tl.n_windows = nd - w + 1;
-  const double nw = static_cast<double>(tl.n_windows);
-  tl.share_green = green / nw;
-  tl.share_yellow = yellow / nw;
-  tl.share_red = red / nw;
+  tally.Store(nd - w + 1, &tl);
   return tl;
 }
 
