@@ -115,6 +115,7 @@ absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config) {
     sc.Subjects = subjects;
     sc.SubjectsLen = 1;
     sc.Storage = js_FileStorage;
+    sc.Replicas = config.replicas;
     s = js_AddStream(&si, session->js(), &sc, nullptr, &jerr);
     if (s == NATS_OK) {
       jsStreamInfo_Destroy(si);
@@ -143,6 +144,7 @@ absl::StatusOr<KvStorePtr> OpenLeaseBucket(NatsSession* session, const NatsConfi
   // which is what makes a lease of a dead instance expire.
   kc.TTL = static_cast<int64_t>(config.lease_seconds * 1e9);
   kc.StorageType = js_FileStorage;
+  kc.Replicas = config.replicas;
   s = js_CreateKeyValue(&kv, session->js(), &kc);
   if (s != NATS_OK) {
     // Another engine may have created it at the same moment (the server then

@@ -92,6 +92,7 @@ class StoreImpl : public PartitionCheckpointStore {
       kc.Bucket = config_.checkpoint_bucket.c_str();
       kc.History = 1;
       kc.StorageType = js_FileStorage;
+      kc.Replicas = config_.replicas;
       s = js_CreateKeyValue(&kv, session_->js(), &kc);
       if (s != NATS_OK) {
         // Created by another instance at the same moment: open that one.
