@@ -71,6 +71,13 @@ nlohmann::json Status(const std::string& config) {
   return nlohmann::json::parse(r.out);
 }
 
+bool TryStatus(const std::string& config, nlohmann::json* out) {
+  const CommandResult r = RunCli({"cluster", "status", "--config", config, "--json"});
+  if (r.exit_code != 0) return false;
+  *out = r.out.rfind("{", 0) == 0 ? nlohmann::json::parse(r.out) : nlohmann::json::object();
+  return true;
+}
+
 std::map<std::string, int> Owners(const nlohmann::json& s) {
   std::map<std::string, int> out;
   if (!s.contains("partitions")) return out;

@@ -45,16 +45,28 @@ struct RunProcess {
 // the lease bucket does not exist yet.
 nlohmann::json Status(const std::string& config);
 
+// The same without failing the test: false (and `out` untouched) when the
+// command fails, e.g. while a replicated bucket still elects its leader.
+bool TryStatus(const std::string& config, nlohmann::json* out);
+
 // Partitions per owner ("" = free) in a status object.
 std::map<std::string, int> Owners(const nlohmann::json& s);
 
 // Polls the status until `pred` holds; seconds it took, or -1 after `limit_s`.
+// `tolerate_errors`: a failing status command counts as "not yet" instead of
+// failing the test.
 template <typename Pred>
-double WaitFor(const std::string& config, Pred pred, double limit_s) {
+double WaitFor(const std::string& config, Pred pred, double limit_s, bool tolerate_errors = false) {
   const auto t0 = std::chrono::steady_clock::now();
   while (true) {
     const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-    if (pred(Status(config))) return s;
+    nlohmann::json status;
+    if (!tolerate_errors) {
+      status = Status(config);
+    } else if (!TryStatus(config, &status)) {
+      status = nlohmann::json::object();
+    }
+    if (pred(status)) return s;
     if (s > limit_s) return -1;
     std::this_thread::sleep_for(std::chrono::milliseconds(100));
   }
