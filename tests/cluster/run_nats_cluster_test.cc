@@ -45,7 +45,8 @@ StreamPlacement Placement(const std::string& url, const std::string& stream) {
     jsStreamInfo* si = nullptr;
     if (js_GetStreamInfo(&si, js, stream.c_str(), nullptr, nullptr) == NATS_OK) {
       out.replicas = static_cast<int>(si->Config->Replicas);
-      if (si->Cluster != nullptr && si->Cluster->Leader != nullptr) out.leader = si->Cluster->Leader;
+      if (si->Cluster != nullptr && si->Cluster->Leader != nullptr)
+        out.leader = si->Cluster->Leader;
       jsStreamInfo_Destroy(si);
     }
     jsCtx_Destroy(js);
@@ -69,27 +70,37 @@ TEST_CASE("a 3-node JetStream cluster loses a server mid-stream: the updates equ
   const std::string replicas = "replicas = 3\n";
   std::vector<std::string> names = {"eng-a", "eng-b", "eng-c"};
   std::vector<std::string> configs;
-  for (const std::string& n : names) configs.push_back(testing::FaultConfig(dir, urls, n, replicas));
-  // The producer, the observer and the collector use n3, the node that stays:
-  // the tick publisher does not resend a tick whose acknowledgement a stopped
-  // server never sent (simulate then fails), and the collector reads core
-  // NATS, which keeps nothing for a client while it reconnects.
+  for (const std::string& n : names)
+    configs.push_back(testing::FaultConfig(dir, urls, n, replicas));
+  // The producer and the observer use n3, a node that stays.
   const std::string producer = testing::FaultConfig(dir, {urls[2]}, "producer", replicas);
   const std::map<UpdateKey, std::string> want = testing::ReplayReference(dir, configs[0], kMarket);
   REQUIRE(want.size() > 8000);
 
-  testing::UpdateCollector collector(urls[2], "upd");
   std::vector<std::unique_ptr<RunProcess>> engines;
+  std::vector<std::string> endpoints;
   for (size_t i = 0; i < names.size(); ++i) {
     engines.push_back(std::make_unique<RunProcess>(configs[i], dir + "/" + names[i] + ".err"));
+    endpoints.push_back(testing::BoundEndpoint(engines.back()->err_path));
   }
+  // The updates are collected from the engines' ZeroMQ publishers: their copy
+  // on core NATS is at most once, and an update in flight through the killed
+  // server is lost (1 of 9,336 in one of 8 runs).
+  testing::UpdateCollector collector(endpoints);
   auto balanced = [](const nlohmann::json& s) {
     auto o = Owners(s);
     return o["eng-a"] == 4 && o["eng-b"] == 4 && o["eng-c"] == 4;
   };
   // The first status reads may time out while the replicated buckets elect
   // their leaders.
-  REQUIRE(testing::WaitFor(producer, balanced, 60, true) >= 0);
+  const double started = testing::WaitFor(producer, balanced, 60, true);
+  if (started < 0) {
+    for (const std::string& n : names) {
+      std::printf("--- %s:\n%s\n", n.c_str(),
+                  testing::ReadFileOrDie(dir + "/" + n + ".err").c_str());
+    }
+  }
+  REQUIRE(started >= 0);
   // The engines created the stream and both buckets, each with 3 replicas.
   const StreamPlacement ticks = Placement(urls[2], "TICKS");
   const StreamPlacement leases = Placement(urls[2], "KV_aftershock_leases");
@@ -120,29 +131,33 @@ TEST_CASE("a 3-node JetStream cluster loses a server mid-stream: the updates equ
   CHECK(conflicts == 0);  // every duplicate is byte-identical
   testing::CompareWithReplay(got, want);
 
-  // Figures: the longest pause between two updates after the stop, and per
-  // instrument the time from the stop to its first update after it (the
-  // largest is when every instrument's updates flow again).
+  // Figures: the longest pause between two updates (of any instrument) after
+  // the stop, and the longest pause of one instrument ending after the stop
+  // (from its last update before a pause to its next): the time until every
+  // instrument's updates flow again.
   const std::vector<std::string> bodies = collector.bodies();
   const std::vector<std::chrono::steady_clock::time_point> arrivals = collector.arrivals();
   auto secs = [](auto d) { return std::chrono::duration<double>(d).count(); };
-  double longest_pause = 0;
-  std::map<std::string, double> first_after;
+  double longest_pause = 0, instrument_pause = 0;
+  std::map<std::string, std::chrono::steady_clock::time_point> last;
+  std::map<std::string, int> after;  // updates after the stop per instrument
   auto previous = stopped;
   for (size_t i = 0; i < bodies.size(); ++i) {
-    if (arrivals[i] < stopped) continue;
-    longest_pause = std::max(longest_pause, secs(arrivals[i] - previous));
-    previous = arrivals[i];
     const std::string symbol = nlohmann::json::parse(bodies[i])["s"].get<std::string>();
-    first_after.emplace(symbol, secs(arrivals[i] - stopped));
+    if (arrivals[i] >= stopped) {
+      longest_pause = std::max(longest_pause, secs(arrivals[i] - previous));
+      previous = arrivals[i];
+      if (last.count(symbol))
+        instrument_pause = std::max(instrument_pause, secs(arrivals[i] - last[symbol]));
+      ++after[symbol];
+    }
+    last[symbol] = arrivals[i];
   }
-  double all_flowing = 0;
-  for (const auto& [symbol, s] : first_after) all_flowing = std::max(all_flowing, s);
   std::printf(
-      "server %s killed mid-stream: longest pause in updates after it %.2f s; every instrument "
-      "updated again %.2f s after it (%zu of 24 instruments updated after the stop)\n",
-      victim_name.c_str(), longest_pause, all_flowing, first_after.size());
-  CHECK(first_after.size() == 24);
+      "server %s killed mid-stream: longest pause in the updates after it %.2f s; longest pause "
+      "of one instrument's updates %.2f s (%zu of 24 instruments updated after the stop)\n",
+      victim_name.c_str(), longest_pause, instrument_pause, after.size());
+  CHECK(after.size() == 24);
 
   std::string logs;
   for (size_t i = 0; i < names.size(); ++i) {
@@ -150,8 +165,8 @@ TEST_CASE("a 3-node JetStream cluster loses a server mid-stream: the updates equ
     logs += testing::ReadFileOrDie(dir + "/" + names[i] + ".err");
   }
   for (const std::string& line : testing::CatchUpLines(logs)) std::printf("%s\n", line.c_str());
-  std::printf("updates: %zu published (with duplicates), %zu distinct, replay %zu\n",
-              bodies.size(), got.size(), want.size());
+  std::printf("updates: %zu published (with duplicates), %zu distinct, replay %zu\n", bodies.size(),
+              got.size(), want.size());
 }
 
 }  // namespace

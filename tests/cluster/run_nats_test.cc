@@ -44,12 +44,11 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   const double lease = 2;
   const int http_port = testing::FreeLoopbackPort();  // eng-a's /metrics and /health
   auto config = [&](const std::string& name, const std::string& http) {
-    return testing::WriteFile(
-        dir + "/" + name + ".toml",
-        "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"" + server.url() +
-            "\"]\nlease_seconds = 2\ninstance = \"" + name +
-            "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n[http]\n" + http +
-            "\n[bars]\ninterval = \"1m\"\n[refit]\nevery_bars = 0\n");
+    return testing::WriteFile(dir + "/" + name + ".toml",
+                              "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"" + server.url() +
+                                  "\"]\nlease_seconds = 2\ninstance = \"" + name +
+                                  "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n[http]\n" +
+                                  http + "\n[bars]\ninterval = \"1m\"\n[refit]\nevery_bars = 0\n");
   };
   const std::string ca =
       config("eng-a", "endpoint = \"127.0.0.1:" + std::to_string(http_port) + "\"");
@@ -63,7 +62,8 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   CHECK(sim.err.find("published 200 ticks") != std::string::npos);
 
   RunProcess a(ca, dir + "/a.err");
-  REQUIRE(WaitFor(ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, 10) >= 0);
+  REQUIRE(WaitFor(
+              ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, 10) >= 0);
   RunProcess b(cb, dir + "/b.err");
   REQUIRE(WaitFor(
               ca,
@@ -75,8 +75,8 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
 
   // kill -9: no release. The survivor holds all 12 within lease + 5 s.
   CHECK(b.Signal(SIGKILL) == 128 + SIGKILL);
-  const double takeover =
-      WaitFor(ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, lease + 5);
+  const double takeover = WaitFor(
+      ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, lease + 5);
   std::printf("takeover after kill -9 observed in %.2f s (lease %.0f s)\n", takeover, lease);
   REQUIRE(takeover >= 0);
   auto s = Status(ca);
@@ -93,8 +93,9 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   CHECK(metrics.find("\naftershock_nats_lease_renewals_total 0\n") == std::string::npos);
   const std::string health = testing::HttpGet(http_port, "/health");
   INFO(health);
-  CHECK(health.find("\"nats\":{\"instance\":\"eng-a\",\"partitions\":[0,1,2,3,4,5,6,7,8,9,10,11]") !=
-        std::string::npos);
+  CHECK(
+      health.find("\"nats\":{\"instance\":\"eng-a\",\"partitions\":[0,1,2,3,4,5,6,7,8,9,10,11]") !=
+      std::string::npos);
   CHECK(health.find("\"takeovers\":6") != std::string::npos);
   CHECK(a.Signal(SIGTERM) == 0);
   const std::string err = testing::ReadFileOrDie(a.err_path);
@@ -184,7 +185,8 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
   CHECK(feed.Wait() == 0);
 
   int conflicts = 0;
-  const std::map<UpdateKey, std::string> got = AwaitUpdates(&collector, want.size(), 240, &conflicts);
+  const std::map<UpdateKey, std::string> got =
+      AwaitUpdates(&collector, want.size(), 240, &conflicts);
   CHECK(conflicts == 0);  // every duplicate is byte-identical
   CompareWithReplay(got, want);
   CHECK(a.Signal(SIGTERM) == 0);
@@ -231,7 +233,8 @@ TEST_CASE("rolling restart of three instances: the updates equal a replay") {
   }
   CHECK(feed.Wait() == 0);
   int conflicts = 0;
-  const std::map<UpdateKey, std::string> got = AwaitUpdates(&collector, want.size(), 240, &conflicts);
+  const std::map<UpdateKey, std::string> got =
+      AwaitUpdates(&collector, want.size(), 240, &conflicts);
   CHECK(conflicts == 0);
   CompareWithReplay(got, want);
   CHECK(WaitFor(configs[0], balanced, 30) >= 0);

@@ -8,7 +8,9 @@
 #include <catch2/catch.hpp>
 #include <cstdio>
 #include <fstream>
+#include <iterator>
 #include <sstream>
+#include <zmq_addon.hpp>
 
 #include "support/test_support.h"
 
@@ -96,19 +98,58 @@ UpdateCollector::UpdateCollector(const std::string& urls, const std::string& sub
       if (natsSubscription_NextMsg(&m, sub_, 100) != NATS_OK) continue;
       std::string body(natsMsg_GetData(m), static_cast<size_t>(natsMsg_GetDataLength(m)));
       natsMsg_Destroy(m);
-      const auto now = std::chrono::steady_clock::now();
-      std::lock_guard<std::mutex> l(mu_);
-      bodies_.push_back(std::move(body));
-      arrivals_.push_back(now);
+      Add(std::move(body));
     }
   });
+}
+
+UpdateCollector::UpdateCollector(const std::vector<std::string>& endpoints)
+    : zmq_context_(std::make_unique<zmq::context_t>()) {
+  auto sock = std::make_shared<zmq::socket_t>(*zmq_context_, zmq::socket_type::sub);
+  sock->set(zmq::sockopt::linger, 0);
+  sock->set(zmq::sockopt::rcvtimeo, 100);
+  sock->set(zmq::sockopt::rcvhwm, 0);  // never drop: the test reads everything
+  sock->set(zmq::sockopt::subscribe, "u.");
+  for (const std::string& e : endpoints) sock->connect(e);
+  thread_ = std::thread([this, sock] {
+    while (!stop_) {
+      std::vector<zmq::message_t> parts;
+      if (!zmq::recv_multipart(*sock, std::back_inserter(parts))) continue;
+      if (parts.size() == 2) Add(parts[1].to_string());
+    }
+    sock->close();
+  });
+}
+
+void UpdateCollector::Add(std::string body) {
+  const auto now = std::chrono::steady_clock::now();
+  std::lock_guard<std::mutex> l(mu_);
+  bodies_.push_back(std::move(body));
+  arrivals_.push_back(now);
 }
 
 UpdateCollector::~UpdateCollector() {
   stop_ = true;
   thread_.join();
-  natsSubscription_Destroy(sub_);
-  natsConnection_Destroy(conn_);
+  if (sub_ != nullptr) natsSubscription_Destroy(sub_);
+  if (conn_ != nullptr) natsConnection_Destroy(conn_);
+}
+
+std::string BoundEndpoint(const std::string& err_path) {
+  for (int i = 0; i < 300; ++i) {  // 300 x 100 ms
+    std::ifstream in(err_path);
+    std::stringstream ss;
+    ss << in.rdbuf();
+    const std::string text = ss.str();
+    const size_t b = text.find("; bound ");
+    if (b != std::string::npos) {
+      const size_t e = text.find(';', b + 8);
+      if (e != std::string::npos) return text.substr(b + 8, e - b - 8);
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(100));
+  }
+  FAIL("no bound endpoint in " << err_path);
+  return "";
 }
 
 std::vector<std::string> UpdateCollector::bodies() {

@@ -15,12 +15,14 @@
 #include <chrono>
 #include <cstdint>
 #include <map>
+#include <memory>
 #include <mutex>
 #include <nlohmann/json.hpp>
 #include <string>
 #include <thread>
 #include <utility>
 #include <vector>
+#include <zmq.hpp>
 
 namespace aftershock::testing {
 
@@ -78,6 +80,10 @@ class UpdateCollector {
  public:
   // `urls`: comma-separated server URLs (the client fails over between them).
   UpdateCollector(const std::string& urls, const std::string& subject);
+  // The same from the engines' ZeroMQ publishers instead: one SUB socket
+  // connected to every endpoint in `endpoints`, keeping the bodies of the
+  // update topics ("u.<symbol>").
+  explicit UpdateCollector(const std::vector<std::string>& endpoints);
   ~UpdateCollector();
   UpdateCollector(const UpdateCollector&) = delete;
   UpdateCollector& operator=(const UpdateCollector&) = delete;
@@ -87,8 +93,11 @@ class UpdateCollector {
   std::vector<std::chrono::steady_clock::time_point> arrivals();
 
  private:
+  void Add(std::string body);
+
   natsConnection* conn_ = nullptr;
   natsSubscription* sub_ = nullptr;
+  std::unique_ptr<zmq::context_t> zmq_context_;  // ZeroMQ mode only
   std::atomic<bool> stop_{false};
   std::thread thread_;
   std::mutex mu_;
@@ -101,6 +110,11 @@ using UpdateKey = std::pair<std::string, int64_t>;  // (symbol, bar time)
 // Deduplicates update bodies by (symbol, bar time); counts keys whose copies
 // differ in `*conflicts`.
 std::map<UpdateKey, std::string> Dedup(const std::vector<std::string>& bodies, int* conflicts);
+
+// The endpoint an `aftershock run` bound for its updates, read from the
+// "bound <endpoint>;" part of its start line in `err_path` (waits at most 30 s
+// for it; fails the test without it).
+std::string BoundEndpoint(const std::string& err_path);
 
 // The "caught up" lines of an instance's log (replay speed after a start),
 // those with 0 messages left out.

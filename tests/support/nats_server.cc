@@ -1,8 +1,7 @@
 #include "support/nats_server.h"
 
-#include "support/test_support.h"
-
 #include <arpa/inet.h>
+#include <nats/nats.h>
 #include <netinet/in.h>
 #include <signal.h>
 #include <sys/socket.h>
@@ -11,13 +10,14 @@
 #include <unistd.h>
 
 #include <catch2/catch.hpp>
-#include <nats/nats.h>
 #include <chrono>
 #include <cstdio>
 #include <cstdlib>
 #include <sstream>
 #include <thread>
 #include <vector>
+
+#include "support/test_support.h"
 
 namespace aftershock::testing {
 namespace {
@@ -71,8 +71,9 @@ std::string NatsServerBinary() {
 
 void SkipUnlessNatsServer() {
   if (!NatsServerBinary().empty()) return;
-  std::printf("SKIP: nats-server not found (/usr/sbin or PATH); install Debian's nats-server "
-              "(tools/dev does) to run the JetStream tests\n");
+  std::printf(
+      "SKIP: nats-server not found (/usr/sbin or PATH); install Debian's nats-server "
+      "(tools/dev does) to run the JetStream tests\n");
   std::fflush(stdout);
   std::_Exit(77);
 }
@@ -85,8 +86,8 @@ NatsServer::NatsServer(const std::string& dir, const NatsClusterNode& node,
                        const std::string& config) {
   std::string routes;
   for (int p : node.route_ports) {
-    routes += (routes.empty() ? "" : ",") + std::string("nats-route://127.0.0.1:") +
-              std::to_string(p);
+    routes +=
+        (routes.empty() ? "" : ",") + std::string("nats-route://127.0.0.1:") + std::to_string(p);
   }
   Start(dir, config,
         {"--server_name", node.server_name, "--cluster_name", node.cluster_name, "--cluster",
@@ -120,8 +121,8 @@ void NatsServer::Start(const std::string& dir, const std::string& config,
   for (int attempt = 0; attempt < (fixed_port > 0 ? 1 : 3) && pid_ < 0; ++attempt) {
     port_ = fixed_port > 0 ? fixed_port : FreeLoopbackPort();
     const std::string port = std::to_string(port_);
-    std::vector<std::string> args = {bin, "-c", conf, "-a", "127.0.0.1", "-p", port,
-                                     "-js", "-l", log};
+    std::vector<std::string> args = {bin,  "-c", conf,  "-a", "127.0.0.1",
+                                     "-p", port, "-js", "-l", log};
     args.insert(args.end(), extra_args.begin(), extra_args.end());
     const pid_t pid = fork();
     REQUIRE(pid >= 0);
@@ -214,8 +215,7 @@ double NatsCluster::AwaitJetStream(double limit_s, int except) {
         natsConnection_Destroy(conn);
       }
       if (ready) break;
-      const double s =
-          std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+      const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
       if (s > limit_s) return -1;
       std::this_thread::sleep_for(std::chrono::milliseconds(200));
     }

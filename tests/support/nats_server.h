@@ -30,11 +30,11 @@ int FreeLoopbackPort();
 
 // Membership of one server in a cluster of nats-servers on loopback.
 struct NatsClusterNode {
-  std::string server_name;        // --server_name, unique in the cluster
-  std::string cluster_name;       // --cluster_name, equal on every node
-  int client_port = 0;            // -p: the client port (chosen by the caller)
-  int cluster_port = 0;           // --cluster nats://127.0.0.1:<cluster_port>
-  std::vector<int> route_ports;   // --routes: the other nodes' cluster ports
+  std::string server_name;       // --server_name, unique in the cluster
+  std::string cluster_name;      // --cluster_name, equal on every node
+  int client_port = 0;           // -p: the client port (chosen by the caller)
+  int cluster_port = 0;          // --cluster nats://127.0.0.1:<cluster_port>
+  std::vector<int> route_ports;  // --routes: the other nodes' cluster ports
 };
 
 class NatsServer {
