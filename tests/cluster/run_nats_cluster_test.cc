@@ -85,7 +85,7 @@ TEST_CASE("a 3-node JetStream cluster loses a server mid-stream: the updates equ
   }
   // The updates are collected from the engines' ZeroMQ publishers: their copy
   // on core NATS is at most once, and an update in flight through the killed
-  // server is lost (1 of 9,336 in one of 8 runs).
+  // server is lost (1 of 9,336 in one of 9 runs).
   testing::UpdateCollector collector(endpoints);
   auto balanced = [](const nlohmann::json& s) {
     auto o = Owners(s);
