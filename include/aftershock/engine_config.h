@@ -97,6 +97,11 @@ struct NatsConfig {
   // have had and its output equals a single-process replay. false: the live
   // hand-off (never waits; the swap bar depends on timing). Default true.
   bool exact_refits = true;
+  // Copies JetStream keeps of the tick stream (when an engine creates it) and
+  // of the lease and checkpoint buckets (when an engine creates them): 1 on a
+  // single server; 3 on a 3-node cluster lets the data survive the loss of a
+  // node. Fixed at creation, like the lease TTL. 1..5; default 1.
+  int replicas = 1;
 };
 
 // [bars]: aggregation of ticks into bars.

@@ -49,7 +49,8 @@ absl::StatusOr<std::unique_ptr<NatsSession>> NatsSession::Connect(const NatsConf
   natsStatus s = natsOptions_Create(&opts);
   std::vector<const char*> servers;
   for (const std::string& url : config.servers) servers.push_back(url.c_str());
-  if (s == NATS_OK) s = natsOptions_SetServers(opts, servers.data(), static_cast<int>(servers.size()));
+  if (s == NATS_OK)
+    s = natsOptions_SetServers(opts, servers.data(), static_cast<int>(servers.size()));
   if (s == NATS_OK) s = natsOptions_SetName(opts, name.c_str());
   if (s == NATS_OK) s = natsOptions_SetTimeout(opts, 2000);
   if (s == NATS_OK) s = natsOptions_SetMaxReconnect(opts, -1);  // forever
@@ -58,9 +59,9 @@ absl::StatusOr<std::unique_ptr<NatsSession>> NatsSession::Connect(const NatsConf
   if (s == NATS_OK) s = natsConnection_Connect(&conn, opts);
   natsOptions_Destroy(opts);
   if (s != NATS_OK) {
-    return ToStatus(s, absl::StrCat("cannot connect to NATS at ", config.servers.front(),
-                                    config.servers.size() > 1 ? " (and the other [nats] servers)"
-                                                              : ""));
+    return ToStatus(
+        s, absl::StrCat("cannot connect to NATS at ", config.servers.front(),
+                        config.servers.size() > 1 ? " (and the other [nats] servers)" : ""));
   }
   // JetStream API calls (lease reads and writes, consumer creation) wait at
   // most 2 s for the broker instead of the client's 5 s, so a lease round and
@@ -91,7 +92,9 @@ absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config) {
   for (int attempt = 0; attempt < 2; ++attempt) {
     jsStreamInfo* si = nullptr;
     jsErrCode jerr = static_cast<jsErrCode>(0);
-    natsStatus s = js_GetStreamInfo(&si, session->js(), config.stream.c_str(), nullptr, &jerr);
+    natsStatus s = RetryOnTimeout([&] {
+      return js_GetStreamInfo(&si, session->js(), config.stream.c_str(), nullptr, &jerr);
+    });
     if (s == NATS_OK) {
       bool has = false;
       for (int i = 0; i < si->Config->SubjectsLen; ++i) {
@@ -99,9 +102,9 @@ absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config) {
       }
       jsStreamInfo_Destroy(si);
       if (!has) {
-        return absl::FailedPreconditionError(
-            absl::StrCat("JetStream stream '", config.stream, "' exists but does not capture '",
-                         subject, "' ([nats] partition_subject)"));
+        return absl::FailedPreconditionError(absl::StrCat("JetStream stream '", config.stream,
+                                                          "' exists but does not capture '",
+                                                          subject, "' ([nats] partition_subject)"));
       }
       return absl::OkStatus();
     }
@@ -115,7 +118,8 @@ absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config) {
     sc.Subjects = subjects;
     sc.SubjectsLen = 1;
     sc.Storage = js_FileStorage;
-    s = js_AddStream(&si, session->js(), &sc, nullptr, &jerr);
+    sc.Replicas = config.replicas;
+    s = RetryOnTimeout([&] { return js_AddStream(&si, session->js(), &sc, nullptr, &jerr); });
     if (s == NATS_OK) {
       jsStreamInfo_Destroy(si);
       return absl::OkStatus();
@@ -130,7 +134,8 @@ absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config) {
 absl::StatusOr<KvStorePtr> OpenLeaseBucket(NatsSession* session, const NatsConfig& config,
                                            bool create) {
   kvStore* kv = nullptr;
-  natsStatus s = js_KeyValue(&kv, session->js(), config.lease_bucket.c_str());
+  natsStatus s =
+      RetryOnTimeout([&] { return js_KeyValue(&kv, session->js(), config.lease_bucket.c_str()); });
   if (s == NATS_OK) return KvStorePtr(kv);
   if (s != NATS_NOT_FOUND || !create) {
     return ToStatus(s, absl::StrCat("cannot open key-value bucket '", config.lease_bucket, "'"));
@@ -143,12 +148,15 @@ absl::StatusOr<KvStorePtr> OpenLeaseBucket(NatsSession* session, const NatsConfi
   // which is what makes a lease of a dead instance expire.
   kc.TTL = static_cast<int64_t>(config.lease_seconds * 1e9);
   kc.StorageType = js_FileStorage;
-  s = js_CreateKeyValue(&kv, session->js(), &kc);
+  kc.Replicas = config.replicas;
+  s = RetryOnTimeout([&] { return js_CreateKeyValue(&kv, session->js(), &kc); });
   if (s != NATS_OK) {
     // Another engine may have created it at the same moment (the server then
     // answers "subjects overlap with an existing stream"): open that one.
     kv = nullptr;
-    if (js_KeyValue(&kv, session->js(), config.lease_bucket.c_str()) == NATS_OK) {
+    if (RetryOnTimeout([&] {
+          return js_KeyValue(&kv, session->js(), config.lease_bucket.c_str());
+        }) == NATS_OK) {
       return KvStorePtr(kv);
     }
     return ToStatus(s, absl::StrCat("cannot create key-value bucket '", config.lease_bucket, "'"));

@@ -26,7 +26,8 @@ namespace aftershock::nats_internal {
 // Unavailable for connection problems and timeouts, NotFound for
 // NATS_NOT_FOUND, FailedPrecondition for a JetStream "wrong last sequence",
 // Internal otherwise.
-absl::Status ToStatus(natsStatus s, absl::string_view what, jsErrCode jerr = static_cast<jsErrCode>(0));
+absl::Status ToStatus(natsStatus s, absl::string_view what,
+                      jsErrCode jerr = static_cast<jsErrCode>(0));
 
 // One client connection with its JetStream context.
 class NatsSession {
@@ -50,6 +51,18 @@ class NatsSession {
   natsConnection* conn_;
   jsCtx* js_;
 };
+
+// Calls `api` (a JetStream API request returning natsStatus) again while it
+// times out, at most kApiAttempts times in all. A JetStream cluster answers
+// late while it elects the leader of a stream just created (a replicated
+// stream or bucket another engine is creating), which is no reason to fail.
+inline constexpr int kApiAttempts = 5;
+template <typename Api>
+natsStatus RetryOnTimeout(Api api) {
+  natsStatus s = api();
+  for (int attempt = 1; attempt < kApiAttempts && s == NATS_TIMEOUT; ++attempt) s = api();
+  return s;
+}
 
 // The stream of [nats] stream with subjects "<partition_subject>.>": looked up,
 // and created (file storage, one replica, limits retention) when absent.

@@ -16,6 +16,7 @@ namespace {
 
 using nats_internal::KvStorePtr;
 using nats_internal::NatsSession;
+using nats_internal::RetryOnTimeout;
 using nats_internal::ToStatus;
 
 // First line of a manifest; the format's name and version.
@@ -85,18 +86,21 @@ class StoreImpl : public PartitionCheckpointStore {
     if (!session.ok()) return session.status();
     session_ = *std::move(session);
     kvStore* kv = nullptr;
-    natsStatus s = js_KeyValue(&kv, session_->js(), config_.checkpoint_bucket.c_str());
+    natsStatus s = RetryOnTimeout(
+        [&] { return js_KeyValue(&kv, session_->js(), config_.checkpoint_bucket.c_str()); });
     if (s == NATS_NOT_FOUND && create) {
       kvConfig kc;
       kvConfig_Init(&kc);
       kc.Bucket = config_.checkpoint_bucket.c_str();
       kc.History = 1;
       kc.StorageType = js_FileStorage;
-      s = js_CreateKeyValue(&kv, session_->js(), &kc);
+      kc.Replicas = config_.replicas;
+      s = RetryOnTimeout([&] { return js_CreateKeyValue(&kv, session_->js(), &kc); });
       if (s != NATS_OK) {
         // Created by another instance at the same moment: open that one.
         kv = nullptr;
-        s = js_KeyValue(&kv, session_->js(), config_.checkpoint_bucket.c_str());
+        s = RetryOnTimeout(
+            [&] { return js_KeyValue(&kv, session_->js(), config_.checkpoint_bucket.c_str()); });
       }
     }
     if (s != NATS_OK) {

@@ -24,84 +24,18 @@
 #include <utility>
 #include <vector>
 
+#include "support/engine_cluster.h"
 #include "support/nats_server.h"
 #include "support/test_support.h"
 
 namespace aftershock {
 namespace {
 
-// A background `aftershock run` (or another command), stderr to a file
-// (appended, so a restarted instance keeps one log).
-struct RunProcess {
-  pid_t pid = -1;
-  std::string err_path;
-  RunProcess(const std::string& config, const std::string& err)
-      : RunProcess(std::vector<std::string>{"run", "--config", config}, err) {}
-  RunProcess(const std::vector<std::string>& args, const std::string& err) : err_path(err) {
-    pid = fork();
-    REQUIRE(pid >= 0);
-    if (pid == 0) {
-      const int fd = open(err.c_str(), O_WRONLY | O_CREAT | O_APPEND, 0644);
-      dup2(fd, 2);
-      const int null = open("/dev/null", O_WRONLY);
-      dup2(null, 1);
-      std::vector<char*> argv;
-      argv.push_back(const_cast<char*>(AFTERSHOCK_CLI));
-      for (const std::string& a : args) argv.push_back(const_cast<char*>(a.c_str()));
-      argv.push_back(nullptr);
-      execv(AFTERSHOCK_CLI, argv.data());
-      _exit(127);
-    }
-  }
-  // Waits for the exit; its status (or 128 + signal).
-  int Wait() {
-    int status = 0;
-    waitpid(pid, &status, 0);
-    pid = -1;
-    return WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
-  }
-  // Sends `sig` and returns the exit status (or 128 + signal).
-  int Signal(int sig) {
-    kill(pid, sig);
-    int status = 0;
-    waitpid(pid, &status, 0);
-    pid = -1;
-    return WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
-  }
-  ~RunProcess() {
-    if (pid > 0) Signal(SIGKILL);
-  }
-};
-
-nlohmann::json Status(const std::string& config) {
-  const testing::CommandResult r =
-      testing::RunCli({"cluster", "status", "--config", config, "--json"});
-  INFO(r.err);
-  REQUIRE(r.exit_code == 0);
-  if (r.out.rfind("{", 0) != 0) return nlohmann::json::object();  // no bucket yet
-  return nlohmann::json::parse(r.out);
-}
-
-// Partitions per owner ("" = free) in a status object.
-std::map<std::string, int> Owners(const nlohmann::json& s) {
-  std::map<std::string, int> out;
-  if (!s.contains("partitions")) return out;
-  for (const auto& p : s["partitions"]) out[p["owner"].get<std::string>()]++;
-  return out;
-}
-
-// Polls the status until `pred` holds; seconds it took, or -1 after `limit_s`.
-template <typename Pred>
-double WaitFor(const std::string& config, Pred pred, double limit_s) {
-  const auto t0 = std::chrono::steady_clock::now();
-  while (true) {
-    const double s =
-        std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-    if (pred(Status(config))) return s;
-    if (s > limit_s) return -1;
-    std::this_thread::sleep_for(std::chrono::milliseconds(100));
-  }
-}
+using testing::Owners;
+using testing::RunProcess;
+using testing::Status;
+using testing::UpdateKey;
+using testing::WaitFor;
 
 TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") {
   testing::SkipUnlessNatsServer();
@@ -110,12 +44,11 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   const double lease = 2;
   const int http_port = testing::FreeLoopbackPort();  // eng-a's /metrics and /health
   auto config = [&](const std::string& name, const std::string& http) {
-    return testing::WriteFile(
-        dir + "/" + name + ".toml",
-        "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"" + server.url() +
-            "\"]\nlease_seconds = 2\ninstance = \"" + name +
-            "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n[http]\n" + http +
-            "\n[bars]\ninterval = \"1m\"\n[refit]\nevery_bars = 0\n");
+    return testing::WriteFile(dir + "/" + name + ".toml",
+                              "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"" + server.url() +
+                                  "\"]\nlease_seconds = 2\ninstance = \"" + name +
+                                  "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n[http]\n" +
+                                  http + "\n[bars]\ninterval = \"1m\"\n[refit]\nevery_bars = 0\n");
   };
   const std::string ca =
       config("eng-a", "endpoint = \"127.0.0.1:" + std::to_string(http_port) + "\"");
@@ -129,7 +62,8 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   CHECK(sim.err.find("published 200 ticks") != std::string::npos);
 
   RunProcess a(ca, dir + "/a.err");
-  REQUIRE(WaitFor(ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, 10) >= 0);
+  REQUIRE(WaitFor(
+              ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, 10) >= 0);
   RunProcess b(cb, dir + "/b.err");
   REQUIRE(WaitFor(
               ca,
@@ -141,8 +75,8 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
 
   // kill -9: no release. The survivor holds all 12 within lease + 5 s.
   CHECK(b.Signal(SIGKILL) == 128 + SIGKILL);
-  const double takeover =
-      WaitFor(ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, lease + 5);
+  const double takeover = WaitFor(
+      ca, [](const nlohmann::json& s) { return Owners(s)["eng-a"] == 12; }, lease + 5);
   std::printf("takeover after kill -9 observed in %.2f s (lease %.0f s)\n", takeover, lease);
   REQUIRE(takeover >= 0);
   auto s = Status(ca);
@@ -159,8 +93,9 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   CHECK(metrics.find("\naftershock_nats_lease_renewals_total 0\n") == std::string::npos);
   const std::string health = testing::HttpGet(http_port, "/health");
   INFO(health);
-  CHECK(health.find("\"nats\":{\"instance\":\"eng-a\",\"partitions\":[0,1,2,3,4,5,6,7,8,9,10,11]") !=
-        std::string::npos);
+  CHECK(
+      health.find("\"nats\":{\"instance\":\"eng-a\",\"partitions\":[0,1,2,3,4,5,6,7,8,9,10,11]") !=
+      std::string::npos);
   CHECK(health.find("\"takeovers\":6") != std::string::npos);
   CHECK(a.Signal(SIGTERM) == 0);
   const std::string err = testing::ReadFileOrDie(a.err_path);
@@ -189,151 +124,24 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
   CHECK(with_checkpoint >= 1);
 }
 
-// Every update published on "<subject>.>" (core NATS), collected on a thread.
-class UpdateCollector {
- public:
-  UpdateCollector(const std::string& url, const std::string& subject) {
-    REQUIRE(natsConnection_ConnectTo(&conn_, url.c_str()) == NATS_OK);
-    REQUIRE(natsConnection_SubscribeSync(&sub_, conn_, (subject + ".>").c_str()) == NATS_OK);
-    natsSubscription_SetPendingLimits(sub_, -1, -1);  // never a slow consumer
-    REQUIRE(natsConnection_Flush(conn_) == NATS_OK);
-    thread_ = std::thread([this] {
-      while (!stop_) {
-        natsMsg* m = nullptr;
-        if (natsSubscription_NextMsg(&m, sub_, 100) != NATS_OK) continue;
-        std::string body(natsMsg_GetData(m), static_cast<size_t>(natsMsg_GetDataLength(m)));
-        natsMsg_Destroy(m);
-        std::lock_guard<std::mutex> l(mu_);
-        bodies_.push_back(std::move(body));
-      }
-    });
-  }
-  ~UpdateCollector() {
-    stop_ = true;
-    thread_.join();
-    natsSubscription_Destroy(sub_);
-    natsConnection_Destroy(conn_);
-  }
-  std::vector<std::string> bodies() {
-    std::lock_guard<std::mutex> l(mu_);
-    return bodies_;
-  }
-
- private:
-  natsConnection* conn_ = nullptr;
-  natsSubscription* sub_ = nullptr;
-  std::atomic<bool> stop_{false};
-  std::thread thread_;
-  std::mutex mu_;
-  std::vector<std::string> bodies_;
-};
-
-using Key = std::pair<std::string, int64_t>;  // (symbol, bar time)
-
-Key KeyOf(const std::string& body) {
-  const nlohmann::json j = nlohmann::json::parse(body);
-  return {j["s"].get<std::string>(), j["t"].get<int64_t>()};
-}
-
-// Deduplicates by (symbol, bar time); counts keys whose copies differ.
-std::map<Key, std::string> Dedup(const std::vector<std::string>& bodies, int* conflicts) {
-  std::map<Key, std::string> out;
-  for (const std::string& b : bodies) {
-    auto [it, inserted] = out.emplace(KeyOf(b), b);
-    if (!inserted && it->second != b) ++*conflicts;
-  }
-  return out;
-}
-
-// The "caught up" lines of an instance's log (replay speed after a start).
-std::vector<std::string> CatchUpLines(const std::string& err) {
-  std::vector<std::string> out;
-  std::istringstream in(err);
-  for (std::string line; std::getline(in, line);) {
-    if (line.find("caught up") != std::string::npos &&
-        line.find(" 0 messages") == std::string::npos) {
-      out.push_back(line);
-    }
-  }
-  return out;
-}
-
-// The engine configuration of the fault tests: refits on with the exact
-// hand-off, checkpoints every half second, updates also on NATS.
-std::string FaultConfig(const std::string& dir, const std::string& url, const std::string& name) {
-  return testing::WriteFile(
-      dir + "/" + name + ".toml",
-      "[feed]\nsource = \"nats\"\n[nats]\nservers = [\"" + url +
-          "\"]\nlease_seconds = 2\ncheckpoint_seconds = 0.5\nupdates_subject = \"upd\"\n"
-          "instance = \"" +
-          name +
-          "\"\n[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n"
-          "[http]\nenabled = false\n[bars]\ninterval = \"1m\"\n"
-          "[refit]\nevery_bars = 100\nwindow = 300\nmin_bars = 120\nreidentify_every = 0\n"
-          "holdout_bars = 20\napply_lag_bars = 5\nworkers = 1\n"
-          // Group models pool across symbols, and a partition's lane knows
-          // its own symbols only (a config warning says so).
-          "group_models = false\n");
-}
-
 // Simulated market shared by the fault tests: 24 invented instruments x 500
 // one-minute bars, one tick a bar (the wall clock closes each bar after its
 // tick, in the cluster and in the replay alike).
 const std::vector<std::string> kMarket = {"--symbols", "24", "--bars", "500", "--seed", "5"};
 
-// The single-process reference: `aftershock replay` of the same ticks.
-std::map<Key, std::string> ReplayReference(const std::string& dir, const std::string& config) {
-  std::vector<std::string> sim = {"simulate",      "--output", dir + "/ticks.csv",
-                                  "--time-format", "ns",       "--quiet"};
-  sim.insert(sim.end(), kMarket.begin(), kMarket.end());
-  testing::CommandResult r = testing::RunCli(sim);
-  INFO(r.err);
-  REQUIRE(r.exit_code == 0);
-  r = testing::RunCli({"replay", "--config", config, "--input", dir + "/ticks.csv", "--output",
-                       dir + "/replay.jsonl", "--quiet"});
-  INFO(r.err);
-  REQUIRE(r.exit_code == 0);
-  std::vector<std::string> lines;
-  std::ifstream in(dir + "/replay.jsonl");
-  for (std::string line; std::getline(in, line);) lines.push_back(line);
-  int conflicts = 0;
-  std::map<Key, std::string> want = Dedup(lines, &conflicts);
-  REQUIRE(conflicts == 0);
-  REQUIRE(want.size() == lines.size());
-  return want;
+std::map<UpdateKey, std::string> ReplayReference(const std::string& dir,
+                                                 const std::string& config) {
+  return testing::ReplayReference(dir, config, kMarket);
 }
 
-// Waits (at most `limit_s`) until the deduplicated updates number `n`.
-std::map<Key, std::string> AwaitUpdates(UpdateCollector* c, size_t n, double limit_s,
-                                        int* conflicts) {
-  const auto t0 = std::chrono::steady_clock::now();
-  while (true) {
-    *conflicts = 0;
-    std::map<Key, std::string> got = Dedup(c->bodies(), conflicts);
-    const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-    if (got.size() >= n || s > limit_s) return got;
-    std::this_thread::sleep_for(std::chrono::milliseconds(250));
-  }
+std::string FaultConfig(const std::string& dir, const std::string& url, const std::string& name) {
+  return testing::FaultConfig(dir, {url}, name);
 }
 
-void CompareWithReplay(const std::map<Key, std::string>& got,
-                       const std::map<Key, std::string>& want) {
-  int missing = 0, different = 0, extra = 0;
-  for (const auto& [k, body] : want) {
-    auto it = got.find(k);
-    if (it == got.end()) {
-      ++missing;
-    } else if (it->second != body) {
-      if (different < 3)
-        std::printf("differs:\n  got  %s\n  want %s\n", it->second.c_str(), body.c_str());
-      ++different;
-    }
-  }
-  for (const auto& [k, body] : got) extra += want.count(k) == 0;
-  CHECK(missing == 0);
-  CHECK(different == 0);
-  CHECK(extra == 0);
-}
+using testing::AwaitUpdates;
+using testing::CatchUpLines;
+using testing::CompareWithReplay;
+using testing::UpdateCollector;
 
 TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a replay") {
   testing::SkipUnlessNatsServer();
@@ -342,7 +150,7 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
   const std::string ca = FaultConfig(dir, server.url(), "eng-a");
   const std::string cb = FaultConfig(dir, server.url(), "eng-b");
   const std::string cc = FaultConfig(dir, server.url(), "eng-c");
-  const std::map<Key, std::string> want = ReplayReference(dir, ca);
+  const std::map<UpdateKey, std::string> want = ReplayReference(dir, ca);
   REQUIRE(want.size() > 10000);
 
   UpdateCollector collector(server.url(), "upd");
@@ -377,7 +185,8 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
   CHECK(feed.Wait() == 0);
 
   int conflicts = 0;
-  const std::map<Key, std::string> got = AwaitUpdates(&collector, want.size(), 240, &conflicts);
+  const std::map<UpdateKey, std::string> got =
+      AwaitUpdates(&collector, want.size(), 240, &conflicts);
   CHECK(conflicts == 0);  // every duplicate is byte-identical
   CompareWithReplay(got, want);
   CHECK(a.Signal(SIGTERM) == 0);
@@ -400,7 +209,7 @@ TEST_CASE("rolling restart of three instances: the updates equal a replay") {
   const std::vector<std::string> names = {"eng-a", "eng-b", "eng-c"};
   std::vector<std::string> configs;
   for (const std::string& n : names) configs.push_back(FaultConfig(dir, server.url(), n));
-  const std::map<Key, std::string> want = ReplayReference(dir, configs[0]);
+  const std::map<UpdateKey, std::string> want = ReplayReference(dir, configs[0]);
 
   UpdateCollector collector(server.url(), "upd");
   std::vector<std::unique_ptr<RunProcess>> engines;
@@ -424,7 +233,8 @@ TEST_CASE("rolling restart of three instances: the updates equal a replay") {
   }
   CHECK(feed.Wait() == 0);
   int conflicts = 0;
-  const std::map<Key, std::string> got = AwaitUpdates(&collector, want.size(), 240, &conflicts);
+  const std::map<UpdateKey, std::string> got =
+      AwaitUpdates(&collector, want.size(), 240, &conflicts);
   CHECK(conflicts == 0);
   CompareWithReplay(got, want);
   CHECK(WaitFor(configs[0], balanced, 30) >= 0);

@@ -1,8 +1,7 @@
 #include "support/nats_server.h"
 
-#include "support/test_support.h"
-
 #include <arpa/inet.h>
+#include <nats/nats.h>
 #include <netinet/in.h>
 #include <signal.h>
 #include <sys/socket.h>
@@ -17,6 +16,8 @@
 #include <sstream>
 #include <thread>
 #include <vector>
+
+#include "support/test_support.h"
 
 namespace aftershock::testing {
 namespace {
@@ -70,13 +71,32 @@ std::string NatsServerBinary() {
 
 void SkipUnlessNatsServer() {
   if (!NatsServerBinary().empty()) return;
-  std::printf("SKIP: nats-server not found (/usr/sbin or PATH); install Debian's nats-server "
-              "(tools/dev does) to run the JetStream tests\n");
+  std::printf(
+      "SKIP: nats-server not found (/usr/sbin or PATH); install Debian's nats-server "
+      "(tools/dev does) to run the JetStream tests\n");
   std::fflush(stdout);
   std::_Exit(77);
 }
 
 NatsServer::NatsServer(const std::string& dir, const std::string& config) {
+  Start(dir, config, {}, 0);
+}
+
+NatsServer::NatsServer(const std::string& dir, const NatsClusterNode& node,
+                       const std::string& config) {
+  std::string routes;
+  for (int p : node.route_ports) {
+    routes +=
+        (routes.empty() ? "" : ",") + std::string("nats-route://127.0.0.1:") + std::to_string(p);
+  }
+  Start(dir, config,
+        {"--server_name", node.server_name, "--cluster_name", node.cluster_name, "--cluster",
+         "nats://127.0.0.1:" + std::to_string(node.cluster_port), "--routes", routes},
+        node.client_port);
+}
+
+void NatsServer::Start(const std::string& dir, const std::string& config,
+                       const std::vector<std::string>& extra_args, int fixed_port) {
   const std::string bin = NatsServerBinary();
   REQUIRE(!bin.empty());
   const std::string store = dir + "/store";
@@ -97,11 +117,13 @@ NatsServer::NatsServer(const std::string& dir, const std::string& config) {
   const std::string conf = WriteFile(dir + "/nats-server.conf", conf_text);
   const std::string log = dir + "/nats-server.log";
   // A port taken between FreeLoopbackPort and the server's bind is retried.
-  for (int attempt = 0; attempt < 3 && pid_ < 0; ++attempt) {
-    port_ = FreeLoopbackPort();
+  // A fixed port (a cluster node's) is tried once.
+  for (int attempt = 0; attempt < (fixed_port > 0 ? 1 : 3) && pid_ < 0; ++attempt) {
+    port_ = fixed_port > 0 ? fixed_port : FreeLoopbackPort();
     const std::string port = std::to_string(port_);
-    std::vector<std::string> args = {bin, "-c", conf, "-a", "127.0.0.1", "-p", port,
-                                     "-js", "-l", log};
+    std::vector<std::string> args = {bin,  "-c", conf,  "-a", "127.0.0.1",
+                                     "-p", port, "-js", "-l", log};
+    args.insert(args.end(), extra_args.begin(), extra_args.end());
     const pid_t pid = fork();
     REQUIRE(pid >= 0);
     if (pid == 0) {
@@ -135,13 +157,70 @@ NatsServer::~NatsServer() {
   waitpid(pid_, nullptr, 0);
 }
 
-void NatsServer::Kill() {
+void NatsServer::Stop(int sig) {
   if (pid_ <= 0) return;
-  kill(pid_, SIGKILL);
+  kill(pid_, sig);
   waitpid(pid_, nullptr, 0);
   pid_ = -1;
 }
 
 std::string NatsServer::url() const { return "nats://127.0.0.1:" + std::to_string(port_); }
+
+NatsCluster::NatsCluster(const std::string& dir, int nodes) {
+  std::vector<int> client(static_cast<size_t>(nodes)), cluster(static_cast<size_t>(nodes));
+  for (int i = 0; i < nodes; ++i) {
+    client[static_cast<size_t>(i)] = FreeLoopbackPort();
+    cluster[static_cast<size_t>(i)] = FreeLoopbackPort();
+  }
+  for (int i = 0; i < nodes; ++i) {
+    NatsClusterNode n;
+    n.server_name = "n" + std::to_string(i + 1);
+    n.cluster_name = "aftershock-test";
+    n.client_port = client[static_cast<size_t>(i)];
+    n.cluster_port = cluster[static_cast<size_t>(i)];
+    for (int j = 0; j < nodes; ++j) {
+      if (j != i) n.route_ports.push_back(cluster[static_cast<size_t>(j)]);
+    }
+    const std::string node_dir = dir + "/" + n.server_name;
+    mkdir(node_dir.c_str(), 0755);
+    nodes_.push_back(std::make_unique<NatsServer>(node_dir, n));
+  }
+}
+
+std::vector<std::string> NatsCluster::urls() const {
+  std::vector<std::string> out;
+  for (const auto& n : nodes_) out.push_back(n->url());
+  return out;
+}
+
+double NatsCluster::AwaitJetStream(double limit_s, int except) {
+  const auto t0 = std::chrono::steady_clock::now();
+  for (int i = 0; i < static_cast<int>(nodes_.size()); ++i) {
+    if (i == except) continue;
+    while (true) {
+      natsConnection* conn = nullptr;
+      bool ready = false;
+      if (natsConnection_ConnectTo(&conn, nodes_[static_cast<size_t>(i)]->url().c_str()) ==
+          NATS_OK) {
+        jsCtx* js = nullptr;
+        jsOptions jo;
+        jsOptions_Init(&jo);
+        jo.Wait = 1000;
+        if (natsConnection_JetStream(&js, conn, &jo) == NATS_OK) {
+          jsAccountInfo* info = nullptr;
+          ready = js_GetAccountInfo(&info, js, nullptr, nullptr) == NATS_OK;
+          if (info != nullptr) jsAccountInfo_Destroy(info);
+          jsCtx_Destroy(js);
+        }
+        natsConnection_Destroy(conn);
+      }
+      if (ready) break;
+      const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+      if (s > limit_s) return -1;
+      std::this_thread::sleep_for(std::chrono::milliseconds(200));
+    }
+  }
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+}
 
 }  // namespace aftershock::testing
