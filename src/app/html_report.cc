@@ -626,7 +626,8 @@ absl::StatusOr<std::string> RenderHtmlReport(const ReportInput& in) {
                     "\" data-charts=\"", charts - before, "\"></div>");
     absl::StrAppend(&sections, "<div class=\"tables\">", BacktestTable(*ev), PitLine(*ev),
                     TimeOfDayTable(h, *ev, opt), ForecastTable(*ev), "<div class=\"pair\">",
-                    AlertTable(*ev), "</div>", SwapTable(h, *ev), TrackingTable(h), "</div></section>");
+                    AlertTable(*ev), "</div>", SwapTable(h, *ev), TrackingTable(h),
+                    "</div></section>");
   }
 
   std::stable_sort(rows.begin(), rows.end(), [](const OverviewRow& a, const OverviewRow& b) {

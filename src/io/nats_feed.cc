@@ -256,27 +256,33 @@ class NatsFeedImpl : public NatsFeed {
     if (lanes_ != nullptr) return PumpLanes();
     char symbol[kMaxSymbolLength];
     for (const Item& it : staging_) {
-      const absl::string_view subject = natsMsg_GetSubject(it.msg);
-      const size_t dot = subject.rfind('.');
-      const absl::string_view token =
-          dot == absl::string_view::npos ? subject : subject.substr(dot + 1);
-      const int n = DecodeSubjectTokenTo(token, symbol, sizeof(symbol));
-      const absl::string_view body(natsMsg_GetData(it.msg),
-                                   static_cast<size_t>(natsMsg_GetDataLength(it.msg)));
-      if (n > 0) {
-        consumer->OnMessage(absl::string_view(symbol, static_cast<size_t>(n)), body);
-      } else {
-        // The raw token is no valid symbol ('~' is outside the alphabet), so
-        // the consumer counts it as bad_symbol.
-        bad_subjects_.fetch_add(1, std::memory_order_relaxed);
-        consumer->OnMessage(token, body);
-      }
+      absl::string_view body;
+      const absl::string_view sym = SymbolAndBody(it.msg, symbol, &body);
+      consumer->OnMessage(sym, body);
       done_.push_back(it.msg);
     }
     const int delivered = static_cast<int>(staging_.size());
     staging_.clear();
     messages_.fetch_add(static_cast<uint64_t>(delivered), std::memory_order_relaxed);
     return delivered;
+  }
+
+  // The symbol of a tick message (its subject's last token, decoded into
+  // `buf`) and its body. A token that does not decode is returned raw and
+  // counted in bad_subjects_: it is no valid symbol ('~' is outside the
+  // alphabet), so the consumer counts it as bad_symbol.
+  // REQUIRES: buf has kMaxSymbolLength bytes.
+  absl::string_view SymbolAndBody(natsMsg* msg, char* buf, absl::string_view* body) {
+    const absl::string_view subject = natsMsg_GetSubject(msg);
+    const size_t dot = subject.rfind('.');
+    const absl::string_view token =
+        dot == absl::string_view::npos ? subject : subject.substr(dot + 1);
+    const int n = DecodeSubjectTokenTo(token, buf, kMaxSymbolLength);
+    *body =
+        absl::string_view(natsMsg_GetData(msg), static_cast<size_t>(natsMsg_GetDataLength(msg)));
+    if (n > 0) return absl::string_view(buf, static_cast<size_t>(n));
+    bad_subjects_.fetch_add(1, std::memory_order_relaxed);
+    return token;
   }
 
   // Pump's lane path: control items start and stop lanes; messages go to
@@ -297,19 +303,9 @@ class NatsFeedImpl : public NatsFeed {
       }
       done_.push_back(it.msg);
       if (!lane.active) continue;  // cannot happen: a partition's messages follow its start
-      const absl::string_view subject = natsMsg_GetSubject(it.msg);
-      const size_t dot = subject.rfind('.');
-      const absl::string_view token =
-          dot == absl::string_view::npos ? subject : subject.substr(dot + 1);
-      const int n = DecodeSubjectTokenTo(token, symbol, sizeof(symbol));
-      const absl::string_view body(natsMsg_GetData(it.msg),
-                                   static_cast<size_t>(natsMsg_GetDataLength(it.msg)));
-      if (n > 0) {
-        lanes_->OnPartitionMessage(p, absl::string_view(symbol, static_cast<size_t>(n)), body);
-      } else {
-        bad_subjects_.fetch_add(1, std::memory_order_relaxed);
-        lanes_->OnPartitionMessage(p, token, body);
-      }
+      absl::string_view body;
+      const absl::string_view sym = SymbolAndBody(it.msg, symbol, &body);
+      lanes_->OnPartitionMessage(p, sym, body);
       lane.delivered = it.seq;
       ++lane.replayed;
       ++delivered;
