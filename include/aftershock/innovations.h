@@ -60,6 +60,10 @@ double LogNormalizerT(double nu);
 //   1/2 psi((nu+1)/2) - 1/2 psi(nu/2) - 1/(2 (nu-2)).
 double DLogNormalizerTDnu(double nu);
 
+// Its derivative, for the analytic Hessian:
+//   1/4 psi'((nu+1)/2) - 1/4 psi'(nu/2) + 1/(2 (nu-2)^2).
+double D2LogNormalizerTDnu2(double nu);
+
 // ---- InnovationLaw -------------------------------------------------------------
 // Value type naming one standardized law (kind + nu) with its density, cdf,
 // quantile and expected shortfall. The nu-only constants are cached, so the

@@ -1,7 +1,6 @@
 #include "estimation/likelihood_kernel.h"
 
 #include <algorithm>
-#include <boost/math/special_functions/trigamma.hpp>
 #include <cmath>
 #include <limits>
 
@@ -25,22 +24,6 @@ inline TermDerivatives StudentTerm(double e, double inv_v, double u, double l1u,
   const double inv = 1.0 / (1.0 + u);
   return {-(nu + 1.0) * e * inv_v * inv_nu2 * inv, (-0.5 + 0.5 * (nu + 1.0) * u * inv) * inv_v,
           dconst_dnu - 0.5 * l1u + 0.5 * (nu + 1.0) * u * inv_nu2 * inv};
-}
-
-// d^2 LogNormalizerT / d nu^2 = 1/4 psi'((nu+1)/2) - 1/4 psi'(nu/2) + 1/(2 (nu-2)^2),
-// the derivative of DLogNormalizerTDnu (innovations.h); NaN outside (2, inf).
-double D2LogNormalizerTDnu2(double nu) {
-  if (!(nu > 2.0) || !std::isfinite(nu)) return std::numeric_limits<double>::quiet_NaN();
-  using Policy = boost::math::policies::policy<
-      boost::math::policies::domain_error<boost::math::policies::ignore_error>,
-      boost::math::policies::pole_error<boost::math::policies::ignore_error>,
-      boost::math::policies::overflow_error<boost::math::policies::ignore_error>,
-      boost::math::policies::underflow_error<boost::math::policies::ignore_error>,
-      boost::math::policies::evaluation_error<boost::math::policies::ignore_error>,
-      boost::math::policies::rounding_error<boost::math::policies::ignore_error>>;
-  const double nm2 = nu - 2.0;
-  return 0.25 * boost::math::trigamma(0.5 * (nu + 1.0), Policy()) -
-         0.25 * boost::math::trigamma(0.5 * nu, Policy()) + 0.5 / (nm2 * nm2);
 }
 
 // Normal: q = e^2 / v.

@@ -4,6 +4,7 @@
 #include <boost/math/distributions/students_t.hpp>
 #include <boost/math/special_functions/digamma.hpp>
 #include <boost/math/special_functions/gamma.hpp>
+#include <boost/math/special_functions/trigamma.hpp>
 #include <cmath>
 #include <limits>
 
@@ -48,6 +49,13 @@ double DLogNormalizerTDnu(double nu) {
   if (!ValidNu(nu)) return kNaN;
   return 0.5 * boost::math::digamma(0.5 * (nu + 1.0), NoThrowPolicy()) -
          0.5 * boost::math::digamma(0.5 * nu, NoThrowPolicy()) - 0.5 / (nu - 2.0);
+}
+
+double D2LogNormalizerTDnu2(double nu) {
+  if (!ValidNu(nu)) return kNaN;
+  const double nm2 = nu - 2.0;
+  return 0.25 * boost::math::trigamma(0.5 * (nu + 1.0), NoThrowPolicy()) -
+         0.25 * boost::math::trigamma(0.5 * nu, NoThrowPolicy()) + 0.5 / (nm2 * nm2);
 }
 
 double LogDensityT(double z, double nu) {
