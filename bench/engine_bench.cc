@@ -593,15 +593,14 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
         const CheckpointStats st = mid->checkpointer->stats();
         extra = absl::StrCat("every ", every_seconds, " s: ", st.writes, " written, ", st.skipped,
                              " skipped, ", st.last_bytes, " bytes, longest pause ",
-                             st.last_capture_seconds * 1e3, " ms of ", st.last_capture_slices,
-                             " (", st.last_capture_total_seconds * 1e3, " ms in all), write ",
+                             st.last_capture_seconds * 1e3, " ms of ", st.last_capture_slices, " (",
+                             st.last_capture_total_seconds * 1e3, " ms in all), write ",
                              st.last_write_seconds * 1e3, " ms");
       }
-      std::printf("%-60s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; %s)\n",
-                  absl::StrCat("round ", r + 1, ": ", symbols, " symbols, ", mode_name(with))
-                      .c_str(),
-                  rate, Pct(lat, 0.5), Pct(lat, 0.99), Pct(lat, 0.999), lat.size(),
-                  extra.c_str());
+      std::printf(
+          "%-60s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; %s)\n",
+          absl::StrCat("round ", r + 1, ": ", symbols, " symbols, ", mode_name(with)).c_str(), rate,
+          Pct(lat, 0.5), Pct(lat, 0.99), Pct(lat, 0.999), lat.size(), extra.c_str());
       std::fflush(stdout);
       p99[with] = p99_of(lat);
       pooled[with].insert(pooled[with].end(), lat.begin(), lat.end());
@@ -617,8 +616,8 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
   for (int with : {0, 1, 2}) {
     std::sort(pooled[with].begin(), pooled[with].end());
     std::printf("%-60s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples)\n",
-                absl::StrCat("all rounds: ", symbols, " symbols, ", mode_name(with)).c_str(),
-                rate, Pct(pooled[with], 0.5), Pct(pooled[with], 0.99), Pct(pooled[with], 0.999),
+                absl::StrCat("all rounds: ", symbols, " symbols, ", mode_name(with)).c_str(), rate,
+                Pct(pooled[with], 0.5), Pct(pooled[with], 0.99), Pct(pooled[with], 0.999),
                 pooled[with].size());
   }
   auto median = [](std::vector<double> v) {
@@ -712,8 +711,8 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
     bytes = file.size();
   }
   std::remove(path.c_str());
-  for (auto* v : {&live_ms, &whole_ms, &serialize_ms, &write_ms, &slice_ms, &live_cpu_ms,
-                  &slice_cpu_ms}) {
+  for (auto* v :
+       {&live_ms, &whole_ms, &serialize_ms, &write_ms, &slice_ms, &live_cpu_ms, &slice_cpu_ms}) {
     std::sort(v->begin(), v->end());
   }
   auto med = [](const std::vector<double>& v) { return v[v.size() / 2]; };
@@ -722,9 +721,8 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
       "CPU %6.2f), longest slice of 500 %6.3f ms (max %6.3f; CPU %6.3f), whole %6.2f ms (max "
       "%6.2f); writer: serialize %6.1f ms, write %6.1f ms; files %s\n",
       symbols, per_symbol, bytes, med(live_ms), live_ms.back(), med(live_cpu_ms), med(slice_ms),
-      slice_ms.back(), med(slice_cpu_ms),
-      med(whole_ms), whole_ms.back(), med(serialize_ms), med(write_ms),
-      same ? "identical" : "DIFFER");
+      slice_ms.back(), med(slice_cpu_ms), med(whole_ms), whole_ms.back(), med(serialize_ms),
+      med(write_ms), same ? "identical" : "DIFFER");
 }
 
 }  // namespace
