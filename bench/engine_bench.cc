@@ -190,7 +190,8 @@ struct LiveExtras {
   bool services = false;
   std::string checkpoint_path;  // "" = no checkpoints
   double every_seconds = 1;
-  int slice_symbols = 0;  // CheckpointerOptions::slice_symbols (0: one pause)
+  int slice_symbols = 0;    // CheckpointerOptions::slice_symbols (0: one pause)
+  bool writer_idle = true;  // CheckpointerOptions::writer_idle
   int64_t max_symbols = 10000;
 };
 
@@ -231,6 +232,7 @@ struct EngineMiddle : Middle {
       co.path = x.checkpoint_path;
       co.every_seconds = x.every_seconds;
       co.slice_symbols = x.slice_symbols;
+      co.writer_idle = x.writer_idle;
       checkpointer = *Checkpointer::Create(co, c, engine->core(), services.get(), SystemClock());
       engine->core()->AddObserver(checkpointer.get());
     }
@@ -510,9 +512,11 @@ Rate ReplayCsvRate(int n) {
 // checkpoints every second for 10,000 symbols <= 1.5x without). The engine
 // runs with refit services (windows of 100 returns per symbol after a
 // pre-fill); the checkpointer captures on the ingest thread every
-// `every_seconds` and writes in the background. Three settings: without
-// checkpoints, with each snapshot captured in one pause, and with snapshots
-// captured in slices of `slice_symbols` symbols. On a shared machine the p99
+// `every_seconds` and writes in the background. Four settings: without
+// checkpoints, with each snapshot captured in one pause, with snapshots
+// captured in slices of `slice_symbols` symbols (these two with the writer
+// in the idle scheduling class, the default), and in slices with the writer
+// at niceness 10 instead. On a shared machine the p99
 // of one run drifts with whatever else runs (on a 2-core VM it moved 6x
 // between back-to-back runs without checkpoints), so the settings run in
 // `rounds` rounds, each in a rotated order (a drift then hits every setting
@@ -523,26 +527,29 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
   const WireEncoding enc = WireEncoding::kBinary;
   const std::string path =
       (std::filesystem::temp_directory_path() / "aftershock_engine_bench.ckpt").string();
-  std::vector<int64_t> pooled[3];
-  std::vector<double> round_ratio[3];  // [1], [2]: per-round p99 ratio to [0]
+  constexpr int kSettings = 4;
+  std::vector<int64_t> pooled[kSettings];
+  std::vector<double> round_ratio[kSettings];  // [1..]: per-round p99 ratio to [0]
   auto p99_of = [](const std::vector<int64_t>& v) -> int64_t {
     return v.empty() ? -1 : v[std::min(v.size() - 1, v.size() * 99 / 100)];
   };
   auto mode_name = [&](int with) {
     return with == 0   ? std::string("no checkpoints")
            : with == 1 ? std::string("checkpoints, one pause")
-                       : absl::StrCat("checkpoints, slices of ", slice_symbols);
+           : with == 2 ? absl::StrCat("checkpoints, slices of ", slice_symbols)
+                       : absl::StrCat("checkpoints, slices of ", slice_symbols, ", writer nice 10");
   };
   for (int r = 0; r < rounds; ++r) {
-    int64_t p99[3] = {-1, -1, -1};
-    for (int k = 0; k < 3; ++k) {
-      const int with = (k + r) % 3;
+    int64_t p99[kSettings] = {-1, -1, -1, -1};
+    for (int k = 0; k < kSettings; ++k) {
+      const int with = (k + r) % kSettings;
       LiveExtras x;
       x.services = true;
       x.max_symbols = symbols + 1;  // the rig's probe symbol too
       if (with) x.checkpoint_path = path;
       x.every_seconds = every_seconds;
-      x.slice_symbols = with == 2 ? slice_symbols : 0;
+      x.slice_symbols = with >= 2 ? slice_symbols : 0;
+      x.writer_idle = with != 3;
       Rig rig(true, enc, x);
       // Pre-fill: 100 returns per symbol in batches (the warm-up's first 10
       // per symbol publish nothing).
@@ -605,15 +612,17 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
       p99[with] = p99_of(lat);
       pooled[with].insert(pooled[with].end(), lat.begin(), lat.end());
     }
-    for (int w : {1, 2}) {
+    for (int w = 1; w < kSettings; ++w) {
       const double q = p99[0] > 0 ? static_cast<double>(p99[w]) / p99[0] : -1.0;
       round_ratio[w].push_back(q);
     }
-    std::printf("round %d: p99 with / without checkpoints: one pause %.2f, slices %.2f\n", r + 1,
-                round_ratio[1].back(), round_ratio[2].back());
+    std::printf(
+        "round %d: p99 with / without checkpoints: one pause %.2f, slices %.2f, slices with "
+        "the writer at nice 10 %.2f\n",
+        r + 1, round_ratio[1].back(), round_ratio[2].back(), round_ratio[3].back());
   }
   std::remove(path.c_str());
-  for (int with : {0, 1, 2}) {
+  for (int with = 0; with < kSettings; ++with) {
     std::sort(pooled[with].begin(), pooled[with].end());
     std::printf("%-60s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples)\n",
                 absl::StrCat("all rounds: ", symbols, " symbols, ", mode_name(with)).c_str(), rate,
@@ -629,7 +638,7 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
     return std::count_if(v.begin(), v.end(), [](double q) { return q > 0 && q <= 1.5; });
   };
   const int64_t base = p99_of(pooled[0]);
-  for (int w : {1, 2}) {
+  for (int w = 1; w < kSettings; ++w) {
     std::printf(
         "p99 with / without checkpoints, %s: pooled %.2f, median of %d rounds %.2f, "
         "%ld of %d rounds <= 1.5\n",

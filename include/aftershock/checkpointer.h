@@ -71,6 +71,13 @@ struct CheckpointerOptions {
   // Least wall-clock time between two slices of one snapshot, s, so that the
   // input queued during a slice is handled before the next. Default 0.005.
   double slice_spacing_seconds = 0.005;
+  // Scheduling of the writer thread (Linux; elsewhere it has no effect).
+  // true: the idle class (SCHED_IDLE), which runs only on a core nothing
+  // else wants, so encoding and writing a checkpoint never delays ingest;
+  // on a host saturated for longer than a period, snapshots then wait and
+  // are counted as skipped. false: niceness 10 (about a tenth of a
+  // contended core). Default true.
+  bool writer_idle = true;
 };
 
 // What the engine restored from at start (for /health). Plain value.
@@ -82,22 +89,23 @@ struct CheckpointRestore {
 
 // Counters of the checkpoints written. Plain value.
 struct CheckpointStats {
-  uint64_t writes = 0;              // files written successfully
-  uint64_t failures = 0;            // writes that failed (the old file stays)
-  uint64_t skipped = 0;             // snapshots due while a write was in flight
-  uint64_t last_bytes = 0;          // size of the last file written
-  double last_write_seconds = 0;    // serialize + write time of the last file
-  double last_capture_seconds = 0;  // longest ingest-thread pause of the last snapshot, s
+  uint64_t writes = 0;                    // files written successfully
+  uint64_t failures = 0;                  // writes that failed (the old file stays)
+  uint64_t skipped = 0;                   // snapshots due while a write was in flight
+  uint64_t last_bytes = 0;                // size of the last file written
+  double last_write_seconds = 0;          // serialize + write time of the last file
+  double last_capture_seconds = 0;        // longest ingest-thread pause of the last snapshot, s
   double last_capture_total_seconds = 0;  // all its pauses together, s
   uint64_t last_capture_slices = 0;       // its pauses (1: captured at once)
-  uint64_t slice_fallbacks = 0;  // snapshots in slices that had to capture at once
-  int64_t last_snapshot_ns = 0;     // clock time of the last written snapshot; 0 none
+  uint64_t slice_fallbacks = 0;           // snapshots in slices that had to capture at once
+  int64_t last_snapshot_ns = 0;           // clock time of the last written snapshot; 0 none
 };
 
 class Checkpointer : public BarObserver, public MetricsSource {
  public:
   // Fills the capture once (the symbols known now, e.g. restored) and starts
-  // the writer thread (at niceness 10 on Linux: it yields the CPU to ingest).
+  // the writer thread (at a low priority on Linux, `writer_idle`: it yields
+  // the CPU to ingest).
   // InvalidArgument for an empty path, a negative or non-finite period, a
   // negative slice_symbols or a negative or non-finite slice spacing.
   // REQUIRES: core, clock non-null; services may be null; called on the
@@ -163,7 +171,7 @@ class Checkpointer : public BarObserver, public MetricsSource {
   // ---- ingest thread ----
   int64_t next_due_ns_ = 0;
   // The snapshot being captured in slices (capture_->slicing()).
-  int64_t last_slice_ns_ = 0;   // clock time of its last slice
+  int64_t last_slice_ns_ = 0;       // clock time of its last slice
   double slice_max_seconds_ = 0;    // its longest pause so far
   double slice_total_seconds_ = 0;  // its pauses so far
   uint64_t slices_ = 0;             // its slices so far

@@ -1,5 +1,6 @@
 #include "aftershock/checkpointer.h"
 
+#include <sched.h>
 #include <sys/resource.h>
 #include <sys/syscall.h>
 #include <unistd.h>
@@ -68,16 +69,15 @@ absl::StatusOr<std::unique_ptr<Checkpointer>> Checkpointer::Create(
   if (options.path.empty()) return absl::InvalidArgumentError("[checkpoint] path is empty");
   if (options.slice_symbols < 0 || !(options.slice_spacing_seconds >= 0) ||
       !std::isfinite(options.slice_spacing_seconds)) {
-    return absl::InvalidArgumentError(absl::StrCat(
-        "checkpoint slices need slice_symbols >= 0 and a finite spacing >= 0, got ",
-        options.slice_symbols, " and ", options.slice_spacing_seconds));
+    return absl::InvalidArgumentError(
+        absl::StrCat("checkpoint slices need slice_symbols >= 0 and a finite spacing >= 0, got ",
+                     options.slice_symbols, " and ", options.slice_spacing_seconds));
   }
   if (!(options.every_seconds >= 0) || !std::isfinite(options.every_seconds)) {
     return absl::InvalidArgumentError(absl::StrCat(
         "[checkpoint] every_seconds must be a finite number >= 0, got ", options.every_seconds));
   }
-  return std::unique_ptr<Checkpointer>(
-      new Checkpointer(options, config, core, services, clock));
+  return std::unique_ptr<Checkpointer>(new Checkpointer(options, config, core, services, clock));
 }
 
 Checkpointer::Checkpointer(const CheckpointerOptions& options, const EngineConfig& config,
@@ -151,8 +151,7 @@ void Checkpointer::OnBatchEnd(IngestCore* /*core*/) {
 void Checkpointer::CaptureNextSlice() {
   const auto t0 = std::chrono::steady_clock::now();
   const bool done = capture_->CaptureSlice(options_.slice_symbols);
-  const double pause =
-      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  const double pause = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   last_slice_ns_ = clock_->NowNs();
   slice_max_seconds_ = std::max(slice_max_seconds_, pause);
   slice_total_seconds_ += pause;
@@ -177,9 +176,16 @@ void Checkpointer::WriterLoop() {
   // The writer yields the CPU to the ingest thread: encoding and checksumming
   // a checkpoint of 10,000 symbols takes tens of ms of CPU each period, and on
   // a machine with few cores that time would otherwise be taken from ingest.
-  // Linux applies a niceness to the calling thread alone; raising it needs no
+  // Linux applies both settings to the calling thread alone; neither needs a
   // privilege. Failure only leaves the default priority.
-  (void)setpriority(PRIO_PROCESS, static_cast<id_t>(::syscall(SYS_gettid)), kWriterNice);
+  const auto tid = static_cast<pid_t>(::syscall(SYS_gettid));
+  bool idle = false;
+  if (options_.writer_idle) {
+    sched_param sp{};
+    sp.sched_priority = 0;
+    idle = sched_setscheduler(tid, SCHED_IDLE, &sp) == 0;
+  }
+  if (!idle) (void)setpriority(PRIO_PROCESS, static_cast<id_t>(tid), kWriterNice);
 #endif
   for (;;) {
     {
@@ -257,9 +263,9 @@ std::string Checkpointer::last_error() const {
 
 void Checkpointer::AppendPrometheus(std::string* o) const {
   const CheckpointStats s = stats();
-  const double age =
-      s.last_snapshot_ns > 0 ? static_cast<double>(clock_->NowNs() - s.last_snapshot_ns) / 1e9
-                             : -1.0;
+  const double age = s.last_snapshot_ns > 0
+                         ? static_cast<double>(clock_->NowNs() - s.last_snapshot_ns) / 1e9
+                         : -1.0;
   absl::StrAppend(
       o, "# HELP aftershock_checkpoint_writes_total Checkpoint files written.\n",
       "# TYPE aftershock_checkpoint_writes_total counter\naftershock_checkpoint_writes_total ",
