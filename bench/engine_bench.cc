@@ -488,7 +488,8 @@ double IngestOnlyRate(const std::vector<Msg>& msgs, uint64_t ticks, WireEncoding
 double ProcessCpuNow() {
   rusage ru;
   getrusage(RUSAGE_SELF, &ru);
-  return ru.ru_utime.tv_sec + ru.ru_stime.tv_sec + (ru.ru_utime.tv_usec + ru.ru_stime.tv_usec) * 1e-6;
+  return ru.ru_utime.tv_sec + ru.ru_stime.tv_sec +
+         (ru.ru_utime.tv_usec + ru.ru_stime.tv_usec) * 1e-6;
 }
 
 double CpuNow() {
@@ -871,12 +872,12 @@ int main(int argc, char** argv) {
         const double cpu0 = ProcessCpuNow();
         const auto w0 = std::chrono::steady_clock::now();
         const auto lat = rig.Latency(rate, lat_seconds, enc, engine);
-        const double cores =
-            (ProcessCpuNow() - cpu0) / Secs(w0, std::chrono::steady_clock::now());
+        const double cores = (ProcessCpuNow() - cpu0) / Secs(w0, std::chrono::steady_clock::now());
         p50[engine] = Pct(lat, 0.5);
         p99[engine] = Pct(lat, 0.99);
-        const char* what = engine ? (spin ? "engine latency, busy-poll" : "engine latency tick->update")
-                                  : (spin ? "raw latency, busy-poll forwarder" : "raw latency tick->tick");
+        const char* what =
+            engine ? (spin ? "engine latency, busy-poll" : "engine latency tick->update")
+                   : (spin ? "raw latency, busy-poll forwarder" : "raw latency tick->tick");
         std::printf("%-50s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; CPU %.2f cores)\n",
                     absl::StrCat(what, " (", en, ")").c_str(), rate, Pct(lat, 0.5), Pct(lat, 0.99),
                     Pct(lat, 0.999), lat.size(), cores);

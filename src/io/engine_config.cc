@@ -493,9 +493,8 @@ Section SubSection(const std::string* source, const Section& parent, absl::strin
 }
 
 absl::Status ParseFeed(const Section& s, FeedConfig* c) {
-  AS_RETURN_IF_ERROR(
-      s.CheckKeys({"source", "endpoints", "encoding", "max_message_bytes", "curve_server_key",
-                   "busy_poll_us"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"source", "endpoints", "encoding", "max_message_bytes",
+                                  "curve_server_key", "busy_poll_us"}));
   int source = static_cast<int>(c->source);
   AS_RETURN_IF_ERROR(s.Word("source", {"zmq", "nats"}, &source));
   c->source = static_cast<FeedSource>(source);

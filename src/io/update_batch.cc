@@ -89,8 +89,7 @@ void BatchingSink::SendBatch() {
     std::memcpy(p + kJsonHead.size() + nd, kJsonMid.data(), kJsonMid.size());
     buffer_.append(kJsonTail.data(), kJsonTail.size());
   }
-  const bool sent =
-      inner_->Send(kUpdateBatchTopic, absl::string_view(buffer_).substr(start));
+  const bool sent = inner_->Send(kUpdateBatchTopic, absl::string_view(buffer_).substr(start));
   if (sent) {
     ++stats_.batches;
     stats_.batched_updates += static_cast<uint64_t>(count_);
@@ -120,8 +119,8 @@ void BatchingSink::AppendPrometheus(std::string* o) const {
   metric("aftershock_update_batches_total", "Update batch messages sent on b.u.", stats_.batches);
   metric("aftershock_update_batch_drops_total",
          "Update batch messages dropped at a full subscriber queue.", stats_.batch_drops);
-  metric("aftershock_update_batch_dropped_updates_total",
-         "Updates inside dropped update batches.", stats_.dropped_updates);
+  metric("aftershock_update_batch_dropped_updates_total", "Updates inside dropped update batches.",
+         stats_.dropped_updates);
 }
 
 std::unique_ptr<UpdateSink> MaybeBatchUpdates(const PublishConfig& publish,
@@ -201,7 +200,8 @@ absl::Status SplitJson(absl::string_view b, std::vector<absl::string_view>* out)
     out->push_back(b.substr(at, end - at));
     at = end;
   }
-  if (b.substr(at) != kJsonTail) return Malformed("n differs from the records, or no ]} at the end");
+  if (b.substr(at) != kJsonTail)
+    return Malformed("n differs from the records, or no ]} at the end");
   return absl::OkStatus();
 }
 

@@ -210,8 +210,8 @@ absl::StatusOr<std::unique_ptr<UpdateSink>> ZmqTransport::Publish(
     bound.assign(buf, strnlen(buf, len));
   }
   // [publish] update_topics "batch"/"both": update batches on b.u (update_batch.h).
-  return MaybeBatchUpdates(
-      publish, std::unique_ptr<UpdateSink>(new ZmqPublisherSink(impl_, s, bound, options.linger_ms)));
+  return MaybeBatchUpdates(publish, std::unique_ptr<UpdateSink>(
+                                        new ZmqPublisherSink(impl_, s, bound, options.linger_ms)));
 }
 
 }  // namespace aftershock

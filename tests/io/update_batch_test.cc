@@ -62,8 +62,7 @@ BarUpdate MakeUpdate(int i) {
 
 std::string Encode(const BarUpdate& u, WireEncoding enc) {
   std::string body;
-  REQUIRE((enc == WireEncoding::kBinary ? EncodeUpdateBinary(u, &body)
-                                        : EncodeUpdateJson(u, &body))
+  REQUIRE((enc == WireEncoding::kBinary ? EncodeUpdateBinary(u, &body) : EncodeUpdateJson(u, &body))
               .ok());
   return body;
 }
@@ -181,8 +180,7 @@ TEST_CASE("the binary batch layout, byte by byte", "[update_batch]") {
 TEST_CASE("the JSON batch is {\"n\":count,\"u\":[updates]}", "[update_batch]") {
   auto rec = std::make_unique<Recorder>();
   Recorder* r = rec.get();
-  BatchingSink sink(Config(WireEncoding::kJson, UpdateTopics::kBatch, 65536, 1024),
-                    std::move(rec));
+  BatchingSink sink(Config(WireEncoding::kJson, UpdateTopics::kBatch, 65536, 1024), std::move(rec));
   std::vector<std::string> bodies;
   for (int i = 0; i < 12; ++i) {
     bodies.push_back(Encode(MakeUpdate(i), WireEncoding::kJson));
@@ -200,8 +198,7 @@ TEST_CASE("the JSON batch is {\"n\":count,\"u\":[updates]}", "[update_batch]") {
   for (int i = 0; i < 12; ++i) CHECK(j["u"][i] == nlohmann::json::parse(bodies[i]));
 }
 
-TEST_CASE("the byte cap: a batch is sent before it would pass batch_max_bytes",
-          "[update_batch]") {
+TEST_CASE("the byte cap: a batch is sent before it would pass batch_max_bytes", "[update_batch]") {
   const WireEncoding enc = GENERATE(WireEncoding::kBinary, WireEncoding::kJson);
   INFO(WireEncodingName(enc));
   auto rec = std::make_unique<Recorder>();
@@ -225,8 +222,9 @@ TEST_CASE("the byte cap: a batch is sent before it would pass batch_max_bytes",
   auto rec2 = std::make_unique<Recorder>();
   Recorder* r2 = rec2.get();
   BatchingSink small(Config(enc, UpdateTopics::kBatch, 1024, 65535), std::move(rec2));
-  const std::string big =
-      enc == WireEncoding::kBinary ? std::string(1500, 'x') : "{\"s\":\"" + std::string(1500, 'x') + "\"}";
+  const std::string big = enc == WireEncoding::kBinary
+                              ? std::string(1500, 'x')
+                              : "{\"s\":\"" + std::string(1500, 'x') + "\"}";
   CHECK(small.Send("u.A", one));
   CHECK(small.Send("u.B", big));
   CHECK(small.Send("u.C", one));
@@ -291,9 +289,9 @@ TEST_CASE("SplitUpdateBatch rejects malformed batches", "[update_batch]") {
     CHECK(!SplitUpdateBatch(b, enc, &recs).ok());
     CHECK(recs.empty());
   };
-  bad(good.substr(0, 3), WireEncoding::kBinary);                  // short header
-  bad(good.substr(0, good.size() - 1), WireEncoding::kBinary);    // truncated record
-  bad(good + "x", WireEncoding::kBinary);                         // trailing bytes
+  bad(good.substr(0, 3), WireEncoding::kBinary);                // short header
+  bad(good.substr(0, good.size() - 1), WireEncoding::kBinary);  // truncated record
+  bad(good + "x", WireEncoding::kBinary);                       // trailing bytes
   bad(std::string{static_cast<char>(0xA8)} + good.substr(1), WireEncoding::kBinary);  // magic
   bad(std::string{static_cast<char>(0xA9), 2} + good.substr(2), WireEncoding::kBinary);
   bad(std::string{static_cast<char>(0xA9), 1, 0, 0}, WireEncoding::kBinary);  // no records

@@ -511,7 +511,8 @@ TEST_CASE("update_topics = \"batch\": no per-symbol messages, every update batch
   }
   REQUIRE(live);
   const EngineCounters base = h.Settled();
-  for (int i = 0; i < 300; ++i) h.SendTick(ReturnTick("HAZEL.T", kT0 + i * kSec, 1e-3 * (i % 7 - 3)));
+  for (int i = 0; i < 300; ++i)
+    h.SendTick(ReturnTick("HAZEL.T", kT0 + i * kSec, 1e-3 * (i % 7 - 3)));
   size_t got = 0;
   const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(20);
   while (got < 300 && std::chrono::steady_clock::now() < deadline) {
