@@ -798,7 +798,7 @@ int main(int argc, char** argv) {
       quick ? "quick" : "full", kSymbols);
   std::printf("machine: %u hardware threads (shared with other work; numbers are noisy)\n\n",
               std::thread::hardware_concurrency());
-  std::printf("%-50s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us", "p99.9 us");
+  std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us", "p99.9 us");
   {
     double load[3] = {0, 0, 0};
     if (getloadavg(load, 3) == 3)
@@ -815,7 +815,7 @@ int main(int argc, char** argv) {
       uint64_t got = 0;
       const double s = rig.Throughput(single, single.size(), &got);
       raw_rate = got / s;
-      std::printf("%-50s %11.0f/s %10s %10s %10s%s\n",
+      std::printf("%-44s %11.0f/s %10s %10s %10s%s\n",
                   absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(), raw_rate,
                   "", "", "", got < single.size() ? "  (incomplete)" : "");
     }
@@ -823,7 +823,7 @@ int main(int argc, char** argv) {
       Rig rig(true, enc);
       uint64_t got = 0;
       const double s = rig.Throughput(single, single.size(), &got);
-      std::printf("%-50s %11.0f/s %10s %10s %10s  = %.0f %% of raw%s\n",
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw%s\n",
                   absl::StrCat("engine, 1 tick/msg (", en, ")").c_str(), got / s, "", "", "",
                   100.0 * (got / s) / raw_rate, got < single.size() ? "  (incomplete)" : "");
     }
@@ -834,7 +834,7 @@ int main(int argc, char** argv) {
       Rig rig(true, enc, x);
       uint64_t got = 0;
       const double s = rig.Throughput(single, single.size(), &got, /*batches=*/true, enc);
-      std::printf("%-50s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s)%s\n",
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s)%s\n",
                   absl::StrCat("engine, 1 tick/msg, batched updates (", en, ")").c_str(), got / s,
                   "", "", "", 100.0 * (got / s) / raw_rate,
                   got < single.size() ? "  (incomplete)" : "");
@@ -844,19 +844,19 @@ int main(int argc, char** argv) {
       Rig rig(true, enc);
       uint64_t got = 0;
       const double s = rig.Throughput(batches, n_batch_ticks, &got);
-      std::printf("%-50s %11.0f/s %10s %10s %10s%s\n",
+      std::printf("%-44s %11.0f/s %10s %10s %10s%s\n",
                   absl::StrCat("engine, batches of ", batch, " (", en, ") ticks").c_str(), got / s,
                   "", "", "", got < static_cast<uint64_t>(n_batch_ticks) ? "  (incomplete)" : "");
     }
     if (!latency_only) {
       uint64_t got = 0;
       const double r1 = IngestOnlyRate(single, single.size(), enc, &got);
-      std::printf("%-50s %11.0f/s%s\n",
+      std::printf("%-44s %11.0f/s%s\n",
                   absl::StrCat("engine ingest only, 1 tick/msg (", en, ")").c_str(), r1,
                   got < single.size() ? "  (incomplete)" : "");
       const auto batches = BatchMessages(n_batch_ticks, batch, enc);
       const double r2 = IngestOnlyRate(batches, n_batch_ticks, enc, &got);
-      std::printf("%-50s %11.0f/s%s\n",
+      std::printf("%-44s %11.0f/s%s\n",
                   absl::StrCat("engine ingest only, batches of ", batch, " (", en, ")").c_str(), r2,
                   got < static_cast<uint64_t>(n_batch_ticks) ? "  (incomplete)" : "");
     }
@@ -878,11 +878,11 @@ int main(int argc, char** argv) {
         const char* what =
             engine ? (spin ? "engine latency, busy-poll" : "engine latency tick->update")
                    : (spin ? "raw latency, busy-poll forwarder" : "raw latency tick->tick");
-        std::printf("%-50s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; CPU %.2f cores)\n",
+        std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; CPU %.2f cores)\n",
                     absl::StrCat(what, " (", en, ")").c_str(), rate, Pct(lat, 0.5), Pct(lat, 0.99),
                     Pct(lat, 0.999), lat.size(), cores);
       }
-      std::printf("%-50s %14s %+10.1f %+10.1f\n",
+      std::printf("%-44s %14s %+10.1f %+10.1f\n",
                   absl::StrCat("  engine over raw, ", spin ? "busy-poll" : "waiting", " (", en, ")")
                       .c_str(),
                   "", p50[1] - p50[0], p99[1] - p99[0]);
@@ -892,7 +892,7 @@ int main(int argc, char** argv) {
     uint64_t bars = 0;
     const int n = quick ? 1000000 : 5000000;
     auto row = [](const char* name, Rate r) {
-      std::printf("%-50s %11.0f/s %10s %10s %10s  (%.0f bars per CPU-second)\n", name, r.wall, "",
+      std::printf("%-44s %11.0f/s %10s %10s %10s  (%.0f bars per CPU-second)\n", name, r.wall, "",
                   "", "", r.cpu);
     };
     row("replay core, pre-parsed ticks, binary encode",
