@@ -10,14 +10,23 @@
 //   * replay speed: the ingest core alone on pre-parsed ticks, output encoded
 //     and handed to a discarding sink, one core; and the full CSV path.
 // Binary encoding carries the targets; JSON is reported beside it.
+//   * outbound update batches ([publish] update_topics = "batch",
+//     update_batch.h): the engine end to end with one tick per message, its
+//     updates counted inside the batches on b.u;
+//   * the low-latency mode ([feed] busy_poll_us): the latency rows again with
+//     the engine's ingest thread busy-polling its SUB socket, beside a raw
+//     forwarder that busy-polls too, with the process's CPU use (cores)
+//     during each latency run;
 //   * (--checkpoint-latency, alone) tick->update latency for 10,000 symbols
 //     with refit services, with and without checkpoints every second.
 //   * (--checkpoint-cost, alone) the checkpoint's ingest-thread capture
 //     (live, refilled in place, against a whole capture), serialize and write
 //     times and size for 1,000 and 10,000 symbols, apart from the feed.
 // Usage: engine_bench [--quick] [--replay-only] [--latency-only]
-//        | --checkpoint-latency [symbols [slice [rounds]]] | --checkpoint-cost
+//        | --checkpoint-latency [symbols [slice [rounds]]] | --checkpoint-cost | --help
+// (kUsage below; an unknown flag is an error).
 #include <sys/prctl.h>
+#include <sys/resource.h>
 #include <time.h>
 
 #include <algorithm>
@@ -40,6 +49,7 @@
 #include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
 #include "aftershock/tick_file.h"
+#include "aftershock/update_batch.h"
 #include "aftershock/update_codec.h"
 #include "aftershock/wire.h"
 #include "aftershock/zmq_transport.h"
@@ -148,8 +158,11 @@ struct Middle {
 
 // Its own context (one I/O thread), as the engine has: the same thread
 // topology, so the comparison isolates the engine's processing.
+// With `spin` it busy-polls its SUB socket (receives with ZMQ_DONTWAIT in a
+// loop, never sleeping), the raw counterpart of the engine's [feed]
+// busy_poll_us.
 struct Forwarder : Middle {
-  explicit Forwarder(const std::string& feed)
+  Forwarder(const std::string& feed, bool spin)
       : ctx(1), in(ctx, zmq::socket_type::sub), out(ctx, zmq::socket_type::pub) {
     in.set(zmq::sockopt::rcvhwm, 0);
     in.set(zmq::sockopt::subscribe, "");
@@ -157,11 +170,11 @@ struct Forwarder : Middle {
     out.set(zmq::sockopt::sndhwm, 0);
     out.bind("tcp://127.0.0.1:*");
     endpoint = out.get(zmq::sockopt::last_endpoint);
-    th = std::thread([this] {
+    th = std::thread([this, spin] {
       zmq::message_t a, b;
       while (!stop.load(std::memory_order_relaxed)) {
         zmq::pollitem_t it{in.handle(), 0, ZMQ_POLLIN, 0};
-        if (zmq::poll(&it, 1, std::chrono::milliseconds(20)) <= 0) continue;
+        if (!spin && zmq::poll(&it, 1, std::chrono::milliseconds(20)) <= 0) continue;
         while (in.recv(a, zmq::recv_flags::dontwait)) {
           if (!in.recv(b)) break;
           out.send(a, zmq::send_flags::sndmore);
@@ -193,11 +206,17 @@ struct LiveExtras {
   int slice_symbols = 0;    // CheckpointerOptions::slice_symbols (0: one pause)
   bool writer_idle = true;  // CheckpointerOptions::writer_idle
   int64_t max_symbols = 10000;
+  // [publish] update_topics of the engine (update batches).
+  UpdateTopics update_topics = UpdateTopics::kSymbol;
+  // [feed] busy_poll_us of the engine; > 0 also makes the raw forwarder spin.
+  int64_t busy_poll_us = 0;
 };
 
 EngineConfig LiveConfig(const EngineConfig& base, const LiveExtras& x) {
   EngineConfig c = base;
   c.limits.max_symbols = x.max_symbols;
+  c.publish.update_topics = x.update_topics;
+  c.feed.busy_poll_us = x.busy_poll_us;
   if (x.services) {
     // Refits on (windows and schedules held and checkpointed) but never due
     // during the run, so fits do not compete for the CPU being measured.
@@ -253,6 +272,18 @@ struct EngineMiddle : Middle {
   std::thread th;
 };
 
+// The update count in a batch's header: binary bytes 2..3, JSON {"n":<count>.
+uint64_t BatchCount(const zmq::message_t& m, WireEncoding enc) {
+  const char* p = static_cast<const char*>(m.data());
+  if (enc == WireEncoding::kBinary) {
+    if (m.size() < 4) return 0;
+    return static_cast<uint8_t>(p[2]) | (static_cast<uint64_t>(static_cast<uint8_t>(p[3])) << 8);
+  }
+  uint64_t n = 0;
+  if (m.size() > 5) std::from_chars(p + 5, p + m.size(), n);
+  return n;
+}
+
 struct Rig {
   zmq::context_t ctx{1};
   zmq::socket_t feed{ctx, zmq::socket_type::pub};
@@ -267,7 +298,7 @@ struct Rig {
     if (engine)
       mid = std::make_unique<EngineMiddle>(feed_ep, enc, extras);
     else
-      mid = std::make_unique<Forwarder>(feed_ep);
+      mid = std::make_unique<Forwarder>(feed_ep, extras.busy_poll_us > 0);
     sub.set(zmq::sockopt::rcvhwm, 0);
     sub.set(zmq::sockopt::subscribe, "");
     sub.connect(mid->OutEndpoint());
@@ -300,7 +331,10 @@ struct Rig {
 
   // Sends all messages as fast as possible; returns seconds until `expect`
   // messages (single frames pairs) arrived at the consumer, or -1 on timeout.
-  double Throughput(const std::vector<Msg>& msgs, uint64_t expect, uint64_t* received) {
+  // With `batches`, every message is an update batch (update_batch.h) and
+  // its updates are counted (the count in its header).
+  double Throughput(const std::vector<Msg>& msgs, uint64_t expect, uint64_t* received,
+                    bool batches = false, WireEncoding enc = WireEncoding::kBinary) {
     const auto start = std::chrono::steady_clock::now();
     std::thread producer([&] {
       for (const Msg& m : msgs) Send(feed, m);
@@ -313,7 +347,7 @@ struct Rig {
       if (zmq::poll(&it, 1, std::chrono::milliseconds(2000)) <= 0) break;  // stalled
       while (sub.recv(a, zmq::recv_flags::dontwait)) {
         (void)sub.recv(b);
-        ++got;
+        got += batches ? BatchCount(b, enc) : 1;
       }
       last = std::chrono::steady_clock::now();
     }
@@ -449,6 +483,15 @@ double IngestOnlyRate(const std::vector<Msg>& msgs, uint64_t ticks, WireEncoding
   th.join();
   *processed = got;
   return got / Secs(start, end);
+}
+
+// CPU seconds of the whole process (every thread: feed, engine, ZeroMQ I/O,
+// consumer), to show what a spinning thread costs.
+double ProcessCpuNow() {
+  rusage ru;
+  getrusage(RUSAGE_SELF, &ru);
+  return ru.ru_utime.tv_sec + ru.ru_stime.tv_sec +
+         (ru.ru_utime.tv_usec + ru.ru_stime.tv_usec) * 1e-6;
 }
 
 double CpuNow() {
@@ -737,10 +780,37 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
 }  // namespace
 }  // namespace aftershock
 
+namespace {
+
+constexpr const char* kUsage =
+    "usage: engine_bench [--quick] [--replay-only] [--latency-only]\n"
+    "       engine_bench --checkpoint-latency [symbols [slice [rounds]]]\n"
+    "       engine_bench --checkpoint-cost\n"
+    "       engine_bench --help\n"
+    "\n"
+    "Without flags: the whole table (raw ZeroMQ pass-through, the engine end to end with one\n"
+    "tick per message, with update batches and with batched ticks, its ingest alone, latency\n"
+    "at 100k ticks/s waiting and busy-polling, replay), binary and JSON.\n"
+    "  --quick               shorter runs (fewer messages, 1 s of latency per row)\n"
+    "  --replay-only         only the replay rows\n"
+    "  --latency-only        only the latency rows\n"
+    "  --checkpoint-latency  alone: latency for 10,000 symbols (or `symbols`) with refit\n"
+    "                        services, without and with checkpoints every second (whole\n"
+    "                        and in slices of 500 symbols, or `slice`), in 3 rotated\n"
+    "                        rounds (or `rounds`)\n"
+    "  --checkpoint-cost     alone: the checkpoint's capture, serialize and write times\n"
+    "  --help                this text\n";
+
+}  // namespace
+
 int main(int argc, char** argv) {
   using namespace aftershock;
   bool quick = false, replay_only = false, latency_only = false;
   for (int i = 1; i < argc; ++i) {
+    if (std::strcmp(argv[i], "--help") == 0 || std::strcmp(argv[i], "-h") == 0) {
+      std::fputs(kUsage, stdout);
+      return 0;
+    }
     if (std::strcmp(argv[i], "--checkpoint-latency") == 0) {
       // Only the checkpoint scenario: 10,000 symbols (or the count given
       // next), 50k ticks/s for 6 s (6 checkpoints), with and without.
@@ -760,9 +830,16 @@ int main(int argc, char** argv) {
       CheckpointCost(10000, 100, 9);
       return 0;
     }
-    if (std::strcmp(argv[i], "--quick") == 0) quick = true;
-    if (std::strcmp(argv[i], "--replay-only") == 0) replay_only = true;
-    if (std::strcmp(argv[i], "--latency-only") == 0) latency_only = true;
+    if (std::strcmp(argv[i], "--quick") == 0) {
+      quick = true;
+    } else if (std::strcmp(argv[i], "--replay-only") == 0) {
+      replay_only = true;
+    } else if (std::strcmp(argv[i], "--latency-only") == 0) {
+      latency_only = true;
+    } else {
+      std::fprintf(stderr, "engine_bench: unknown argument '%s'\n%s", argv[i], kUsage);
+      return 2;
+    }
   }
   const int n_single = quick ? 200000 : 1000000;
   const int n_batch_ticks = quick ? 500000 : 3000000;
@@ -776,6 +853,11 @@ int main(int argc, char** argv) {
   std::printf("machine: %u hardware threads (shared with other work; numbers are noisy)\n\n",
               std::thread::hardware_concurrency());
   std::printf("%-44s %14s %10s %10s %10s\n", "scenario", "rate", "p50 us", "p99 us", "p99.9 us");
+  {
+    double load[3] = {0, 0, 0};
+    if (getloadavg(load, 3) == 3)
+      std::printf("(load average at start %.2f %.2f %.2f)\n", load[0], load[1], load[2]);
+  }
 
   for (WireEncoding enc : {WireEncoding::kBinary, WireEncoding::kJson}) {
     if (replay_only) break;
@@ -800,6 +882,18 @@ int main(int argc, char** argv) {
                   100.0 * (got / s) / raw_rate, got < single.size() ? "  (incomplete)" : "");
     }
     if (!latency_only) {
+      // The same messages; updates leave in batches on b.u (update_batch.h).
+      LiveExtras x;
+      x.update_topics = UpdateTopics::kBatch;
+      Rig rig(true, enc, x);
+      uint64_t got = 0;
+      const double s = rig.Throughput(single, single.size(), &got, /*batches=*/true, enc);
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s)%s\n",
+                  absl::StrCat("engine, 1 tick/msg, batched updates (", en, ")").c_str(), got / s,
+                  "", "", "", 100.0 * (got / s) / raw_rate,
+                  got < single.size() ? "  (incomplete)" : "");
+    }
+    if (!latency_only) {
       const auto batches = BatchMessages(n_batch_ticks, batch, enc);
       Rig rig(true, enc);
       uint64_t got = 0;
@@ -820,14 +914,32 @@ int main(int argc, char** argv) {
                   absl::StrCat("engine ingest only, batches of ", batch, " (", en, ")").c_str(), r2,
                   got < static_cast<uint64_t>(n_batch_ticks) ? "  (incomplete)" : "");
     }
-    for (bool engine : {false, true}) {
-      Rig rig(engine, enc);
-      const auto lat = rig.Latency(rate, lat_seconds, enc, engine);
-      std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples)\n",
-                  absl::StrCat(engine ? "engine latency tick->update" : "raw latency tick->tick",
-                               " (", en, ")")
+    // Waiting on the descriptor, then busy-polling ([feed] busy_poll_us, and
+    // a raw forwarder that spins likewise): raw and engine side by side in
+    // each mode, with the process's CPU use (cores) over each run.
+    for (bool spin : {false, true}) {
+      double p50[2] = {0, 0}, p99[2] = {0, 0};
+      for (bool engine : {false, true}) {
+        LiveExtras x;
+        x.busy_poll_us = spin ? 1000000 : 0;
+        Rig rig(engine, enc, x);
+        const double cpu0 = ProcessCpuNow();
+        const auto w0 = std::chrono::steady_clock::now();
+        const auto lat = rig.Latency(rate, lat_seconds, enc, engine);
+        const double cores = (ProcessCpuNow() - cpu0) / Secs(w0, std::chrono::steady_clock::now());
+        p50[engine] = Pct(lat, 0.5);
+        p99[engine] = Pct(lat, 0.99);
+        const char* what =
+            engine ? (spin ? "engine latency, busy-poll" : "engine latency tick->update")
+                   : (spin ? "raw latency, busy-poll forwarder" : "raw latency tick->tick");
+        std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; CPU %.2f cores)\n",
+                    absl::StrCat(what, " (", en, ")").c_str(), rate, Pct(lat, 0.5), Pct(lat, 0.99),
+                    Pct(lat, 0.999), lat.size(), cores);
+      }
+      std::printf("%-44s %14s %+10.1f %+10.1f\n",
+                  absl::StrCat("  engine over raw, ", spin ? "busy-poll" : "waiting", " (", en, ")")
                       .c_str(),
-                  rate, Pct(lat, 0.5), Pct(lat, 0.99), Pct(lat, 0.999), lat.size());
+                  "", p50[1] - p50[0], p99[1] - p99[0]);
     }
   }
   {
@@ -842,6 +954,11 @@ int main(int argc, char** argv) {
     row("replay core, pre-parsed ticks, JSON encode",
         ReplayCoreRate(WireEncoding::kJson, n, &bars));
     row("replay CSV parse + core + JSON encode", ReplayCsvRate(quick ? 500000 : 2000000));
+  }
+  {
+    double load[3] = {0, 0, 0};
+    if (getloadavg(load, 3) == 3)
+      std::printf("(load average at end %.2f %.2f %.2f)\n", load[0], load[1], load[2]);
   }
   std::printf(
       "\ntargets: engine >= 80 %% of raw (binary, 1 tick/msg); batched >= 5,000,000 "

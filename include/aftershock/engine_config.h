@@ -34,6 +34,14 @@ enum class FeedSource : uint8_t {
 };
 absl::string_view FeedSourceName(FeedSource s);  // "zmq" | "nats"
 
+// [publish] update_topics: the outbound forms of updates (update_batch.h).
+enum class UpdateTopics : uint8_t {
+  kSymbol = 0,  // "symbol": one message per update on "u.<symbol>"
+  kBatch = 1,   // "batch": update batches on "b.u" only
+  kBoth = 2,    // "both": both of the above
+};
+absl::string_view UpdateTopicsName(UpdateTopics t);  // "symbol" | "batch" | "both"
+
 // [feed]: where ticks come from.
 struct FeedConfig {
   FeedSource source = FeedSource::kZmq;  // default "zmq"
@@ -42,6 +50,11 @@ struct FeedConfig {
   WireEncoding encoding = WireEncoding::kJson;         // body encoding; default json
   size_t max_message_bytes = kDefaultMaxMessageBytes;  // larger bodies are rejected; 65536
   std::string curve_server_key;  // publisher's CURVE public key (Z85, 40 chars); "" = no CURVE
+  // Low-latency mode (engine.h), microseconds: 0 (default) waits on the SUB
+  // socket's descriptor; N > 0 makes the ingest thread poll the socket without
+  // sleeping until N us pass without a message, then wait again. Costs one
+  // core at 100 % while ticks arrive at least every N us. 0..3,600,000,000.
+  int64_t busy_poll_us = 0;
 };
 
 // [publish]: where updates go.
@@ -50,6 +63,13 @@ struct PublishConfig {
   WireEncoding encoding = WireEncoding::kJson;    // update encoding; default json
   int64_t high_water_mark = 100000;  // messages queued per subscriber before drops; 100000
   std::string curve_secret_key;      // our CURVE secret key (Z85, 40 chars); "" = no CURVE
+  // Per-symbol messages, batches on "b.u", or both (update_batch.h); default symbol.
+  UpdateTopics update_topics = UpdateTopics::kSymbol;
+  // A batch is sent before its body would pass this many bytes (an update
+  // larger than that travels alone). 1024..16 MiB; default 65536.
+  int64_t batch_max_bytes = 65536;
+  // ... or hold more than this many updates. 1..65535; default 1024.
+  int batch_max_updates = 1024;
 };
 
 // [nats]: scale-out on NATS JetStream (README "Scale-out"; config/nats-server.conf

@@ -1,7 +1,7 @@
 // UpdateSink: where encoded outbound messages go (a ZeroMQ PUB socket, a JSON
 // Lines file, or a test double). Messages are two parts, [topic][body]:
 // topics "u.<symbol>" (updates), "a.<symbol>" (alerts), "m.<symbol>" (model
-// events).
+// events), "b.u" (update batches, update_batch.h).
 //
 // Thread-safety: a sink is used by one thread (the ingest thread).
 #ifndef AFTERSHOCK_UPDATE_SINK_H_
@@ -17,6 +17,8 @@
 
 namespace aftershock {
 
+class MetricsSource;  // ingest_core.h
+
 class UpdateSink {
  public:
   virtual ~UpdateSink() = default;
@@ -26,6 +28,13 @@ class UpdateSink {
   // Pushes buffered output out (files: fflush). Called at shutdown and at the
   // end of a replay.
   virtual absl::Status Flush() { return absl::OkStatus(); }
+  // The end of a round of input: the engine calls it after each drain of the
+  // feed and each clock tick. A sink that gathers messages (update_batch.h)
+  // sends them now; a sink that wraps another passes the call on. Never blocks.
+  virtual void EndRound() {}
+  // Metrics of the sink itself (served on /metrics by the engine that owns
+  // it), or null. A wrapping sink returns its inner sink's.
+  virtual const MetricsSource* metrics() const { return nullptr; }
   // The endpoint actually bound ("tcp://127.0.0.1:40123" after binding
   // "tcp://127.0.0.1:*"), or "" for sinks that are not sockets.
   virtual std::string BoundEndpoint() const { return ""; }

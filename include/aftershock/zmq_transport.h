@@ -56,7 +56,8 @@ class ZmqTransport {
   absl::StatusOr<std::unique_ptr<TickSource>> Subscribe(const FeedConfig& feed,
                                                         const ZmqSubscriberOptions& options = {});
   // PUB bound to publish.endpoint ("tcp://127.0.0.1:*" picks a free port; see
-  // UpdateSink::BoundEndpoint()).
+  // UpdateSink::BoundEndpoint()); with publish.update_topics "batch" or
+  // "both" wrapped in a BatchingSink (update_batch.h).
   absl::StatusOr<std::unique_ptr<UpdateSink>> Publish(const PublishConfig& publish,
                                                       const ZmqPublisherOptions& options = {});
 

@@ -75,11 +75,18 @@ int RunCommand(int argc, char** argv) {
                          ", lease ", config->nats.lease_seconds, " s)")
           : absl::StrJoin(config->feed.endpoints, ",");
   const std::string plan = absl::StrCat(
-      "feed ", feed_from, " (",
-      WireEncodingName(config->feed.encoding), ") -> bars ",
-      FormatDuration(config->bars.interval_ns), " (", config->outputs.periods_per_year, " a year",
+      "feed ", feed_from, " (", WireEncodingName(config->feed.encoding),
+      config->feed.busy_poll_us > 0 ? absl::StrCat(", busy-polling: one core at 100 % within ",
+                                                   config->feed.busy_poll_us, " us of a message")
+                                    : "",
+      ") -> bars ", FormatDuration(config->bars.interval_ns), " (",
+      config->outputs.periods_per_year, " a year",
       config->outputs.periods_per_year_auto ? ", auto" : "", ") -> ", model, " -> publish ",
-      config->publish.endpoint, " (", WireEncodingName(config->publish.encoding), ")",
+      config->publish.endpoint, " (", WireEncodingName(config->publish.encoding),
+      config->publish.update_topics == UpdateTopics::kBatch  ? ", update batches on b.u only"
+      : config->publish.update_topics == UpdateTopics::kBoth ? ", u.<symbol> and batches on b.u"
+                                                             : "",
+      ")",
       config->refit.every_bars > 0 || config->refit.every_seconds > 0
           ? absl::StrCat("; refits every ", config->refit.every_bars, " bars / ",
                          config->refit.every_seconds, " s on ", config->refit.workers, " worker(s)")

@@ -27,6 +27,18 @@ absl::string_view FeedSourceName(FeedSource s) {
   return s == FeedSource::kNats ? "nats" : "zmq";
 }
 
+absl::string_view UpdateTopicsName(UpdateTopics t) {
+  switch (t) {
+    case UpdateTopics::kBatch:
+      return "batch";
+    case UpdateTopics::kBoth:
+      return "both";
+    case UpdateTopics::kSymbol:
+      break;
+  }
+  return "symbol";
+}
+
 absl::string_view LogLevelName(LogLevel l) {
   switch (l) {
     case LogLevel::kDebug:
@@ -481,8 +493,8 @@ Section SubSection(const std::string* source, const Section& parent, absl::strin
 }
 
 absl::Status ParseFeed(const Section& s, FeedConfig* c) {
-  AS_RETURN_IF_ERROR(
-      s.CheckKeys({"source", "endpoints", "encoding", "max_message_bytes", "curve_server_key"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"source", "endpoints", "encoding", "max_message_bytes",
+                                  "curve_server_key", "busy_poll_us"}));
   int source = static_cast<int>(c->source);
   AS_RETURN_IF_ERROR(s.Word("source", {"zmq", "nats"}, &source));
   c->source = static_cast<FeedSource>(source);
@@ -494,6 +506,7 @@ absl::Status ParseFeed(const Section& s, FeedConfig* c) {
   c->encoding = static_cast<WireEncoding>(enc);
   AS_RETURN_IF_ERROR(s.Integer("max_message_bytes", &c->max_message_bytes, 64, 16 << 20));
   AS_RETURN_IF_ERROR(s.String("curve_server_key", &c->curve_server_key));
+  AS_RETURN_IF_ERROR(s.Integer("busy_poll_us", &c->busy_poll_us, 0, int64_t{3600} * 1000000));
   return CheckCurveKey(s, "curve_server_key", c->curve_server_key);
 }
 
@@ -591,7 +604,8 @@ absl::Status ParseNats(const Section& s, NatsConfig* c) {
 }
 
 absl::Status ParsePublish(const Section& s, PublishConfig* c) {
-  AS_RETURN_IF_ERROR(s.CheckKeys({"endpoint", "encoding", "high_water_mark", "curve_secret_key"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"endpoint", "encoding", "high_water_mark", "curve_secret_key",
+                                   "update_topics", "batch_max_bytes", "batch_max_updates"}));
   AS_RETURN_IF_ERROR(s.String("endpoint", &c->endpoint));
   AS_RETURN_IF_ERROR(CheckEndpoint(s, "endpoint", c->endpoint));
   int enc = static_cast<int>(c->encoding);
@@ -599,6 +613,11 @@ absl::Status ParsePublish(const Section& s, PublishConfig* c) {
   c->encoding = static_cast<WireEncoding>(enc);
   AS_RETURN_IF_ERROR(s.Integer("high_water_mark", &c->high_water_mark, 1, 1 << 30));
   AS_RETURN_IF_ERROR(s.String("curve_secret_key", &c->curve_secret_key));
+  int topics = static_cast<int>(c->update_topics);
+  AS_RETURN_IF_ERROR(s.Word("update_topics", {"symbol", "batch", "both"}, &topics));
+  c->update_topics = static_cast<UpdateTopics>(topics);
+  AS_RETURN_IF_ERROR(s.Integer("batch_max_bytes", &c->batch_max_bytes, 1024, 16 << 20));
+  AS_RETURN_IF_ERROR(s.Integer("batch_max_updates", &c->batch_max_updates, 1, 65535));
   return CheckCurveKey(s, "curve_secret_key", c->curve_secret_key);
 }
 
@@ -1219,7 +1238,8 @@ std::string FormatEngineConfig(const EngineConfig& c) {
     absl::StrAppend(&o, i ? ", " : "", Quote(c.feed.endpoints[i]));
   }
   absl::StrAppend(&o, "]\nencoding = ", Quote(WireEncodingName(c.feed.encoding)),
-                  "\nmax_message_bytes = ", c.feed.max_message_bytes, "\n");
+                  "\nmax_message_bytes = ", c.feed.max_message_bytes,
+                  "\nbusy_poll_us = ", c.feed.busy_poll_us, "\n");
   if (!c.feed.curve_server_key.empty()) {
     absl::StrAppend(&o, "curve_server_key = ", Quote(c.feed.curve_server_key), "\n");
   }
@@ -1239,7 +1259,10 @@ std::string FormatEngineConfig(const EngineConfig& c) {
       "\n");
   absl::StrAppend(&o, "\n[publish]\nendpoint = ", Quote(c.publish.endpoint),
                   "\nencoding = ", Quote(WireEncodingName(c.publish.encoding)),
-                  "\nhigh_water_mark = ", c.publish.high_water_mark, "\n");
+                  "\nhigh_water_mark = ", c.publish.high_water_mark,
+                  "\nupdate_topics = ", Quote(UpdateTopicsName(c.publish.update_topics)),
+                  "\nbatch_max_bytes = ", c.publish.batch_max_bytes,
+                  "\nbatch_max_updates = ", c.publish.batch_max_updates, "\n");
   if (!c.publish.curve_secret_key.empty()) {
     absl::StrAppend(&o, "curve_secret_key = ", Quote(c.publish.curve_secret_key), "\n");
   }

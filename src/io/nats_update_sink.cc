@@ -51,6 +51,8 @@ class SinkImpl : public NatsUpdateSink {
   }
 
   std::string BoundEndpoint() const override { return inner_->BoundEndpoint(); }
+  void EndRound() override { inner_->EndRound(); }
+  const MetricsSource* metrics() const override { return inner_->metrics(); }
   uint64_t nats_drops() const override { return drops_.load(std::memory_order_relaxed); }
 
  private:

@@ -8,6 +8,7 @@
 
 #include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
+#include "aftershock/update_batch.h"
 
 namespace aftershock {
 
@@ -208,7 +209,9 @@ absl::StatusOr<std::unique_ptr<UpdateSink>> ZmqTransport::Publish(
   if (zmq_getsockopt(s, ZMQ_LAST_ENDPOINT, buf, &len) == 0 && len > 0) {
     bound.assign(buf, strnlen(buf, len));
   }
-  return std::unique_ptr<UpdateSink>(new ZmqPublisherSink(impl_, s, bound, options.linger_ms));
+  // [publish] update_topics "batch"/"both": update batches on b.u (update_batch.h).
+  return MaybeBatchUpdates(publish, std::unique_ptr<UpdateSink>(
+                                        new ZmqPublisherSink(impl_, s, bound, options.linger_ms)));
 }
 
 }  // namespace aftershock

@@ -468,6 +468,19 @@ TEST_CASE("run --check prints warnings for contradicting settings", "[app][run]"
   CHECK(clean.out.find("warning") == std::string::npos);
 }
 
+TEST_CASE("run --check names update batches and the low-latency mode in the plan", "[app][run]") {
+  const std::string dir = testing::ScratchDir("run_check_batches");
+  const std::string cfg = testing::WriteFile(
+      dir + "/c.toml",
+      "[feed]\nbusy_poll_us = 500\n[publish]\nencoding = \"binary\"\nupdate_topics = \"both\"\n");
+  const auto r = RunCli({"run", "--config", cfg, "--check"});
+  INFO(r.out << r.err);
+  CHECK(r.exit_code == 0);
+  CHECK(r.out.find("(json, busy-polling: one core at 100 % within 500 us of a message) -> bars") !=
+        std::string::npos);
+  CHECK(r.out.find("(binary, u.<symbol> and batches on b.u)") != std::string::npos);
+}
+
 TEST_CASE("replay: an idle name runs on its group's model (1m bars of prices, sessions)",
           "[app][replay]") {
   const std::string dir = testing::ScratchDir("replay_group_models");

@@ -812,5 +812,85 @@ TEST_CASE("[tracking]: modes, groups, ranges; formatted back", "[config][trackin
             .find("unknown key 'forgetting'") != std::string::npos);
 }
 
+// Issue 13: update batches and the low-latency mode.
+TEST_CASE("every [feed] and [publish] key: parsed, in default.toml, in the README, formatted",
+          "[config][publish]") {
+  const std::string dflt =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
+  const std::string readme =
+      testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/README.md");
+  const size_t begin = readme.find("\n## Streaming engine");
+  REQUIRE(begin != std::string::npos);
+  const size_t end = readme.find("\n## ", begin + 1);
+  const std::set<std::string> named = BacktickedNames(readme.substr(begin, end - begin));
+  for (const std::string section : {"feed", "publish"}) {
+    INFO(section);
+    const std::vector<std::string> parser = ParserKeys("[" + section + "]");
+    const std::set<std::string> known(parser.begin(), parser.end());
+    CHECK(known.size() == (section == "feed" ? 6u : 7u));
+    std::set<std::string> in_default;
+    for (const auto& [key, line] : SectionLines(dflt, section)) {
+      INFO(line);
+      in_default.insert(key);
+      CHECK(ErrorOf("[" + section + "]\n" + line + "\n") == "ok");
+    }
+    // The CURVE keys are commented out in default.toml (no key is the default).
+    for (const char* curve : {"curve_server_key", "curve_secret_key"}) in_default.insert(curve);
+    for (const std::string& k : known) {
+      INFO(k);
+      CHECK(in_default.count(k) == 1);
+    }
+    std::set<std::string> formatted;
+    for (const auto& kv : SectionLines(FormatEngineConfig(EngineConfig()), section)) {
+      formatted.insert(kv.first);
+    }
+    for (const std::string& k : known) {
+      INFO(k);
+      if (k.rfind("curve_", 0) != 0) CHECK(formatted.count(k) == 1);  // curve keys only when set
+    }
+  }
+  for (const char* k : {"busy_poll_us", "update_topics", "batch_max_bytes", "batch_max_updates"}) {
+    INFO(k);
+    CHECK(named.count(k) == 1);
+  }
+}
+
+TEST_CASE("[publish] update batches and [feed] busy_poll_us: values and ranges",
+          "[config][publish]") {
+  const EngineConfig d;
+  CHECK(d.publish.update_topics == UpdateTopics::kSymbol);
+  CHECK(d.publish.batch_max_bytes == 65536);
+  CHECK(d.publish.batch_max_updates == 1024);
+  CHECK(d.feed.busy_poll_us == 0);
+  auto c = ParseEngineConfig(
+      "[feed]\nbusy_poll_us = 250\n[publish]\nupdate_topics = \"both\"\n"
+      "batch_max_bytes = 4096\nbatch_max_updates = 64\n",
+      "config.toml");
+  REQUIRE(c.ok());
+  CHECK(c->feed.busy_poll_us == 250);
+  CHECK(c->publish.update_topics == UpdateTopics::kBoth);
+  CHECK(c->publish.batch_max_bytes == 4096);
+  CHECK(c->publish.batch_max_updates == 64);
+  auto back = ParseEngineConfig(FormatEngineConfig(*c), "x");
+  REQUIRE(back.ok());
+  CHECK(FormatEngineConfig(*back) == FormatEngineConfig(*c));
+  CHECK(back->publish.update_topics == UpdateTopics::kBoth);
+  CHECK(back->feed.busy_poll_us == 250);
+  CHECK(ParseEngineConfig("[publish]\nupdate_topics = \"batch\"\n", "x")->publish.update_topics ==
+        UpdateTopics::kBatch);
+
+  CHECK(ErrorOf("[publish]\nupdate_topics = \"all\"\n").find("[publish] update_topics") !=
+        std::string::npos);
+  CHECK(ErrorOf("[publish]\nbatch_max_bytes = 1023\n") ==
+        "config.toml:2: [publish] batch_max_bytes: must be in 1024..16777216, got 1023");
+  CHECK(ErrorOf("[publish]\nbatch_max_updates = 0\n") ==
+        "config.toml:2: [publish] batch_max_updates: must be in 1..65535, got 0");
+  CHECK(ErrorOf("[publish]\nbatch_max_updates = 65536\n").find("batch_max_updates") !=
+        std::string::npos);
+  CHECK(ErrorOf("[feed]\nbusy_poll_us = -1\n") ==
+        "config.toml:2: [feed] busy_poll_us: must be in 0..3600000000, got -1");
+  CHECK(ErrorOf("[feed]\nbusy_poll_us = 1.5\n").find("[feed] busy_poll_us") != std::string::npos);
+}
+
 }  // namespace
 }  // namespace aftershock

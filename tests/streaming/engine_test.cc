@@ -11,7 +11,9 @@
 #include <zmq.hpp>
 
 #include "absl/strings/str_cat.h"
+#include "aftershock/engine_metrics.h"
 #include "aftershock/tick_file.h"
+#include "aftershock/update_batch.h"
 #include "aftershock/update_codec.h"
 #include "aftershock/wire.h"
 #include "aftershock/zmq_transport.h"
@@ -379,6 +381,188 @@ TEST_CASE("GET /health answers 503 degraded when most inputs are rejected", "[en
   CHECK(good.rfind("HTTP/1.1 200 OK", 0) == 0);
   CHECK(good.find("{\"status\":\"ok\",\"symbols\":1,\"updates\":50,\"rejects\":0,"
                   "\"recent_inputs\":50,\"recent_rejects\":0}") != std::string::npos);
+}
+
+// [publish] update_topics = "both": the batches on b.u carry exactly the
+// per-symbol updates (the same bytes, in the same order, none missing),
+// within batch_max_updates; "batch" alone sends no per-symbol message.
+TEST_CASE("update batches on b.u equal the per-symbol updates", "[engine][e2e][batch]") {
+  const bool binary = GENERATE(false, true);
+  const WireEncoding enc = binary ? WireEncoding::kBinary : WireEncoding::kJson;
+  INFO((binary ? "binary" : "json"));
+  std::string toml = testing::kFixedModelToml;
+  if (binary) toml += "[feed]\nencoding = \"binary\"\n";
+  toml += absl::StrCat("[publish]\nencoding = \"", binary ? "binary" : "json",
+                       "\"\nupdate_topics = \"both\"\nbatch_max_updates = 7\n");
+  Harness h(testing::ParseConfigOrDie(toml));
+  h.sub.set(zmq::sockopt::subscribe, std::string(kUpdateBatchTopic));
+  h.WaitUntilLive();
+  // Both subscriptions live: probe until a batch comes back too.
+  bool batch_live = false;
+  for (int i = 0; i < 2000 && !batch_live; ++i) {
+    h.SendTick(ReturnTick("PROBE", kT0 + 100000 + i, 0.001));
+    zmq::pollitem_t item{h.sub.handle(), 0, ZMQ_POLLIN, 0};
+    while (zmq::poll(&item, 1, Ms(5)) > 0) {
+      zmq::message_t topic, body;
+      REQUIRE(h.sub.recv(topic).has_value());
+      REQUIRE(h.sub.recv(body).has_value());
+      batch_live = batch_live || topic.to_string() == kUpdateBatchTopic;
+    }
+  }
+  REQUIRE(batch_live);
+  const EngineCounters base = h.Settled();
+
+  const std::vector<std::string> syms = {"ALDER.X", "BIRCH.Y", "CEDAR.Z", "DOGWOOD.W", "ELM.V"};
+  const int n = 200;
+  std::vector<std::vector<double>> rets;
+  for (size_t s = 0; s < syms.size(); ++s) rets.push_back(testing::TestReturns(n, 300 + s));
+  for (int i = 0; i < n; ++i) {
+    if (i % 2 == 1) {  // odd bars: all symbols in one "*" message (5 updates in one round)
+      std::vector<Tick> batch;
+      for (size_t s = 0; s < syms.size(); ++s)
+        batch.push_back(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
+      std::string body;
+      binary ? EncodeBatchBinary(batch, &body) : EncodeBatchJson(batch, &body);
+      h.feed.send(zmq::str_buffer("*"), zmq::send_flags::sndmore);
+      h.feed.send(zmq::buffer(body), zmq::send_flags::none);
+      continue;
+    }
+    for (size_t s = 0; s < syms.size(); ++s)
+      h.SendTick(ReturnTick(syms[s], kT0 + i * kSec, rets[s][i]));
+  }
+  const size_t want = syms.size() * n;
+  std::vector<std::string> singles, batched;
+  std::vector<size_t> batch_sizes;
+  const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(20);
+  while ((singles.size() < want || batched.size() < want) &&
+         std::chrono::steady_clock::now() < deadline) {
+    zmq::pollitem_t item{h.sub.handle(), 0, ZMQ_POLLIN, 0};
+    if (zmq::poll(&item, 1, Ms(50)) <= 0) continue;
+    zmq::message_t topic, body;
+    REQUIRE(h.sub.recv(topic).has_value());
+    REQUIRE(h.sub.recv(body).has_value());
+    const std::string t = topic.to_string();
+    if (t == kUpdateBatchTopic) {
+      std::vector<absl::string_view> recs;
+      const std::string b = body.to_string();
+      const absl::Status st = SplitUpdateBatch(b, enc, &recs);
+      INFO(st.ToString());
+      REQUIRE(st.ok());
+      batch_sizes.push_back(recs.size());
+      for (absl::string_view r : recs) {
+        BarUpdate u;
+        REQUIRE((binary ? DecodeUpdateBinary(r, &u) : DecodeUpdateJson(r, &u)).ok());
+        if (u.symbol.view() != "PROBE") batched.emplace_back(r);
+      }
+    } else if (t != "u.PROBE") {
+      singles.push_back(body.to_string());
+    }
+  }
+  REQUIRE(singles.size() == want);
+  REQUIRE(batched.size() == want);
+  CHECK(batched == singles);  // same values (bytes), same order, nothing missing
+  size_t largest = 0;
+  for (size_t k : batch_sizes) {
+    CHECK(k >= 1);
+    CHECK(k <= 7);
+    largest = std::max(largest, k);
+  }
+  CHECK(largest >= 3);  // a "*" message's 5 updates share a round: at most two batches
+  // Every symbol's updates in bar order.
+  std::map<std::string, int64_t> last_t;
+  for (const std::string& r : batched) {
+    BarUpdate u;
+    REQUIRE((binary ? DecodeUpdateBinary(r, &u) : DecodeUpdateJson(r, &u)).ok());
+    const std::string sym(u.symbol.view());
+    CHECK(u.t_ns > last_t[sym]);
+    last_t[sym] = u.t_ns;
+  }
+  CHECK(last_t.size() == syms.size());
+  std::promise<std::string> metrics;
+  auto f = metrics.get_future();
+  h.engine_->Post([&] { metrics.set_value(FormatPrometheusMetrics(*h.engine_->core())); });
+  const std::string m = f.get();
+  CHECK(m.find("aftershock_update_batches_total ") != std::string::npos);
+  CHECK(m.find("aftershock_update_batch_drops_total 0\n") != std::string::npos);
+  const EngineCounters c = Snapshot(h.engine_.get());
+  CHECK(c.updates_out - base.updates_out == want);
+  CHECK(c.drops == 0);
+  h.Stop();
+  CHECK(h.run_status_.ok());
+}
+
+TEST_CASE("update_topics = \"batch\": no per-symbol messages, every update batched",
+          "[engine][e2e][batch]") {
+  Harness h(testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                      "[publish]\nupdate_topics = \"batch\"\n"));
+  h.sub.set(zmq::sockopt::subscribe, std::string(kUpdateBatchTopic));
+  // Probes until a batch with a probe comes back (no u. topic exists now).
+  bool live = false;
+  for (int i = 0; i < 2000 && !live; ++i) {
+    h.SendTick(ReturnTick("PROBE", kT0 + i, 0.001));
+    zmq::pollitem_t item{h.sub.handle(), 0, ZMQ_POLLIN, 0};
+    while (zmq::poll(&item, 1, Ms(5)) > 0) {
+      zmq::message_t topic, body;
+      REQUIRE(h.sub.recv(topic).has_value());
+      REQUIRE(h.sub.recv(body).has_value());
+      REQUIRE(topic.to_string() == kUpdateBatchTopic);
+      live = true;
+    }
+  }
+  REQUIRE(live);
+  const EngineCounters base = h.Settled();
+  for (int i = 0; i < 300; ++i)
+    h.SendTick(ReturnTick("HAZEL.T", kT0 + i * kSec, 1e-3 * (i % 7 - 3)));
+  size_t got = 0;
+  const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(20);
+  while (got < 300 && std::chrono::steady_clock::now() < deadline) {
+    zmq::pollitem_t item{h.sub.handle(), 0, ZMQ_POLLIN, 0};
+    if (zmq::poll(&item, 1, Ms(50)) <= 0) continue;
+    zmq::message_t topic, body;
+    REQUIRE(h.sub.recv(topic).has_value());
+    REQUIRE(h.sub.recv(body).has_value());
+    REQUIRE(topic.to_string() == kUpdateBatchTopic);
+    std::vector<absl::string_view> recs;
+    const std::string b = body.to_string();
+    REQUIRE(SplitUpdateBatch(b, WireEncoding::kJson, &recs).ok());
+    for (absl::string_view r : recs) got += r.find("\"s\":\"HAZEL.T\"") != absl::string_view::npos;
+  }
+  CHECK(got == 300);
+  CHECK(Snapshot(h.engine_.get()).updates_out - base.updates_out == 300);
+}
+
+// [feed] busy_poll_us: the ingest thread polls without sleeping; the updates
+// are the offline filter's, posted work (Snapshot) and Stop() are served.
+TEST_CASE("low-latency mode: busy polling publishes the same updates", "[engine][e2e][spin]") {
+  Harness h(testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                      "[feed]\nbusy_poll_us = 200000\n"));
+  h.WaitUntilLive();
+  const EngineCounters base = h.Settled();
+  const std::vector<double> rets = testing::TestReturns(300, 77);
+  for (int i = 0; i < 300; ++i) {
+    h.SendTick(ReturnTick("ROWAN.S", kT0 + i * kSec, rets[i]));
+    // Gaps longer than busy_poll_us now and then: the loop falls back to
+    // waiting on the descriptor and is woken again.
+    if (i % 100 == 50) std::this_thread::sleep_for(Ms(300));
+  }
+  auto got = h.Receive(300);
+  const auto& bodies = got["u.ROWAN.S"];
+  REQUIRE(bodies.size() == 300);
+  auto model = FilterModel::Create(h.config_.model.params, testing::OutputsOf(h.config_), 1);
+  REQUIRE(model.ok());
+  const auto ref = FilterSeries(*model, 0.0, rets);
+  for (int i = 0; i < 300; ++i) {
+    BarUpdate u;
+    REQUIRE(DecodeUpdateJson(bodies[i], &u).ok());
+    CHECK(u.t_ns == kT0 + i * kSec);
+    CHECK(RelDiff(u.z, ref[i].z) < 1e-12);
+    CHECK(RelDiff(u.var_next, ref[i].var_next) < 1e-12);
+  }
+  CHECK(Snapshot(h.engine_.get()).updates_out - base.updates_out == 300);
+  const auto t0 = std::chrono::steady_clock::now();
+  h.Stop();
+  CHECK(h.run_status_.ok());
+  CHECK(std::chrono::steady_clock::now() - t0 < std::chrono::seconds(5));
 }
 
 }  // namespace
