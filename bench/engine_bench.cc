@@ -203,8 +203,8 @@ struct LiveExtras {
   bool services = false;
   std::string checkpoint_path;  // "" = no checkpoints
   double every_seconds = 1;
-  int slice_symbols = 0;    // CheckpointerOptions::slice_symbols (0: one pause)
-  bool writer_idle = true;  // CheckpointerOptions::writer_idle
+  int slice_symbols = 0;     // CheckpointerOptions::slice_symbols (0: one pause)
+  bool writer_idle = false;  // CheckpointerOptions::writer_idle
   int64_t max_symbols = 10000;
   // [publish] update_topics of the engine (update batches).
   UpdateTopics update_topics = UpdateTopics::kSymbol;
@@ -558,8 +558,8 @@ Rate ReplayCsvRate(int n) {
 // `every_seconds` and writes in the background. Four settings: without
 // checkpoints, with each snapshot captured in one pause, with snapshots
 // captured in slices of `slice_symbols` symbols (these two with the writer
-// in the idle scheduling class, the default), and in slices with the writer
-// at niceness 10 instead. On a shared machine the p99
+// at niceness 10, the default), and in slices with the writer in the idle
+// scheduling class (CheckpointerOptions::writer_idle) instead. On a shared machine the p99
 // of one run drifts with whatever else runs (on a 2-core VM it moved 6x
 // between back-to-back runs without checkpoints), so the settings run in
 // `rounds` rounds, each in a rotated order (a drift then hits every setting
@@ -580,7 +580,7 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
     return with == 0   ? std::string("no checkpoints")
            : with == 1 ? std::string("checkpoints, one pause")
            : with == 2 ? absl::StrCat("checkpoints, slices of ", slice_symbols)
-                       : absl::StrCat("checkpoints, slices of ", slice_symbols, ", writer nice 10");
+                       : absl::StrCat("checkpoints, slices of ", slice_symbols, ", idle writer");
   };
   for (int r = 0; r < rounds; ++r) {
     int64_t p99[kSettings] = {-1, -1, -1, -1};
@@ -592,7 +592,7 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
       if (with) x.checkpoint_path = path;
       x.every_seconds = every_seconds;
       x.slice_symbols = with >= 2 ? slice_symbols : 0;
-      x.writer_idle = with != 3;
+      x.writer_idle = with == 3;
       Rig rig(true, enc, x);
       // Pre-fill: 100 returns per symbol in batches (the warm-up's first 10
       // per symbol publish nothing).
@@ -661,7 +661,7 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
     }
     std::printf(
         "round %d: p99 with / without checkpoints: one pause %.2f, slices %.2f, slices with "
-        "the writer at nice 10 %.2f\n",
+        "an idle writer %.2f\n",
         r + 1, round_ratio[1].back(), round_ratio[2].back(), round_ratio[3].back());
   }
   std::remove(path.c_str());

@@ -72,12 +72,13 @@ struct CheckpointerOptions {
   // input queued during a slice is handled before the next. Default 0.005.
   double slice_spacing_seconds = 0.005;
   // Scheduling of the writer thread (Linux; elsewhere it has no effect).
-  // true: the idle class (SCHED_IDLE), which runs only on a core nothing
-  // else wants, so encoding and writing a checkpoint never delays ingest;
-  // on a host saturated for longer than a period, snapshots then wait and
-  // are counted as skipped. false: niceness 10 (about a tenth of a
-  // contended core). Default true.
-  bool writer_idle = true;
+  // false: niceness 10 (about a tenth of a contended core). true: the idle
+  // class (SCHED_IDLE), which runs only on a core nothing else wants; on a
+  // host saturated for longer than a period, snapshots then wait and are
+  // counted as skipped. Default false: side by side on the shared 2-core
+  // development host (engine_bench --checkpoint-latency) the idle class did
+  // not lower the ingest p99 (README, "Checkpoints").
+  bool writer_idle = false;
 };
 
 // What the engine restored from at start (for /health). Plain value.
