@@ -12,15 +12,18 @@
 // TickMessageId(tick, n), so the stream's duplicate window drops the copy of a
 // tick that was stored but whose acknowledgement was lost. Per-symbol order is
 // the call order, failures included: a symbol has at most one unacknowledged
-// tick, and Publish waits for its acknowledgement before sending the next
-// tick of that symbol (ticks of other symbols stay in flight meanwhile, up to
-// `max_pending`). A tick not acknowledged within `give_up_ms` of its first
-// send makes Publish and Flush fail with DeadlineExceeded; the give-up time
-// must be shorter than the stream's duplicate window (checked at Connect).
-// io/ack_window.h holds the bookkeeping.
+// tick; its later ticks wait in a queue and the next one is sent when the
+// previous one is acknowledged (ticks of other symbols are in flight
+// meanwhile, so throughput grows with the number of symbols). Publish waits
+// only while `max_pending` ticks are queued or unacknowledged. A tick not
+// acknowledged within `give_up_ms` of its first send makes Publish and Flush
+// fail with DeadlineExceeded; the give-up time plus the acknowledgement
+// timeout must fit in the stream's duplicate window (checked at Connect).
+// io/ack_window.h holds the bookkeeping; a thread of the publisher sends the
+// due resends.
 //
 // Thread-safety: not thread-safe; one thread publishes (the client's own
-// thread reports the acknowledgements).
+// thread reports the acknowledgements and sends queued ticks).
 #ifndef AFTERSHOCK_JETSTREAM_PUBLISHER_H_
 #define AFTERSHOCK_JETSTREAM_PUBLISHER_H_
 
@@ -38,7 +41,7 @@ namespace aftershock {
 
 struct JetStreamPublisherOptions {
   WireEncoding encoding = WireEncoding::kJson;  // body encoding; default json
-  int64_t max_pending = 4096;  // unacknowledged ticks in flight before Publish waits; 4096
+  int64_t max_pending = 4096;  // ticks queued or unacknowledged before Publish waits; 4096
   bool create_stream = true;   // create the [nats] stream when absent; default true
   // An attempt without an acknowledgement for this long counts as failed and
   // is resent, ms; default 2000.
@@ -80,16 +83,16 @@ class JetStreamTickPublisher {
       const NatsConfig& config, const JetStreamPublisherOptions& options = {});
   virtual ~JetStreamTickPublisher() = default;
 
-  // Sends one tick (after waiting for the acknowledgement of the symbol's
-  // previous tick, resending failed ticks meanwhile). DeadlineExceeded when
-  // some tick was not acknowledged within give_up_ms; Cancelled when
+  // Sends one tick, or queues it behind its symbol's unacknowledged tick
+  // (waiting first while max_pending ticks are pending). DeadlineExceeded
+  // when some tick was not acknowledged within give_up_ms; Cancelled when
   // stop_requested said so while it waited.
   // REQUIRES: IsValidSymbol(tick.symbol.view()) is not required: any symbol
   // is encoded, and the engine counts invalid ones as bad_symbol.
   virtual absl::Status Publish(const Tick& tick) = 0;
-  // Waits up to timeout_ms for all acknowledgements, resending failed ticks;
-  // DeadlineExceeded when some are missing then (or were given up),
-  // Cancelled as Publish.
+  // Waits up to timeout_ms for all acknowledgements (failed ticks are resent
+  // meanwhile); DeadlineExceeded when some are missing then (or were given
+  // up), Cancelled as Publish.
   virtual absl::Status Flush(int64_t timeout_ms) = 0;
   virtual JetStreamPublisherStats stats() const = 0;
 };

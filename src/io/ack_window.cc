@@ -8,104 +8,130 @@
 
 namespace aftershock {
 
-bool AckWindow::CanAdmit(absl::string_view key) const {
+bool AckWindow::HasRoom() const {
   absl::MutexLock lock(&mu_);
-  return static_cast<int64_t>(by_id_.size()) < options_.max_in_flight && !keys_.contains(key);
+  return static_cast<int64_t>(pending_) < options_.max_pending;
 }
 
-void AckWindow::Admit(absl::string_view key, absl::string_view id, absl::string_view subject,
-                      absl::string_view body, int64_t now_ns) {
-  absl::MutexLock lock(&mu_);
-  Entry e;
-  e.key = std::string(key);
-  e.subject = std::string(subject);
-  e.body = std::string(body);
-  e.order = next_order_++;
-  e.first_sent_ns = now_ns;
-  keys_.insert(e.key);
-  by_order_.emplace(e.order, std::string(id));
-  by_id_.insert_or_assign(std::string(id), std::move(e));
-  ++stats_.admitted;
+void AckWindow::StartLocked(const std::string& key, const Message& m, int64_t now_ns) {
+  Sent s;
+  s.key = key;
+  s.subject = m.subject;
+  s.body = m.body;
+  s.order = next_order_++;
+  s.first_sent_ns = now_ns;
+  by_order_.emplace(s.order, m.id);
+  sent_.insert_or_assign(m.id, std::move(s));
+  keys_[key].in_flight = m.id;
 }
 
-bool AckWindow::OnAck(absl::string_view id, bool duplicate) {
-  absl::MutexLock lock(&mu_);
-  auto it = by_id_.find(id);
-  if (it == by_id_.end()) return false;
-  keys_.erase(it->second.key);
-  by_order_.erase(it->second.order);
-  if (it->second.failed) --failed_;
-  by_id_.erase(it);
-  ++stats_.acked;
-  if (duplicate) ++stats_.duplicates;
-  ++version_;
+void AckWindow::Add(absl::string_view key, absl::string_view id, absl::string_view subject,
+                    absl::string_view body, int64_t now_ns) {
+  Message m{std::string(id), std::string(subject), std::string(body)};
+  {
+    absl::MutexLock lock(&mu_);
+    ++pending_;
+    ++stats_.added;
+    Key& k = keys_[key];
+    if (!k.in_flight.empty()) {
+      k.queue.push_back(std::move(m));  // behind the key's unacknowledged message
+      return;
+    }
+    StartLocked(std::string(key), m, now_ns);
+  }
+  send_(m.id, m.subject, m.body);
+}
+
+bool AckWindow::OnAck(absl::string_view id, bool duplicate, int64_t now_ns) {
+  Message next;
+  {
+    absl::MutexLock lock(&mu_);
+    auto it = sent_.find(id);
+    if (it == sent_.end()) return false;
+    const std::string key = std::move(it->second.key);
+    by_order_.erase(it->second.order);
+    if (it->second.failed) --failed_;
+    sent_.erase(it);
+    --pending_;
+    ++stats_.acked;
+    if (duplicate) ++stats_.duplicates;
+    auto k = keys_.find(key);
+    if (k->second.queue.empty()) {
+      keys_.erase(k);  // idle keys hold no memory
+      return true;
+    }
+    next = std::move(k->second.queue.front());
+    k->second.queue.pop_front();
+    StartLocked(key, next, now_ns);
+  }
+  send_(next.id, next.subject, next.body);
   return true;
 }
 
 bool AckWindow::OnFailure(absl::string_view id, absl::string_view error, int64_t now_ns) {
   absl::MutexLock lock(&mu_);
-  auto it = by_id_.find(id);
-  if (it == by_id_.end()) return false;
-  Entry& e = it->second;
-  if (!e.failed) ++failed_;
-  e.failed = true;
-  e.resend_ns = now_ns + options_.retry_delay_ms * 1000000;
-  e.last_error = std::string(error);
+  auto it = sent_.find(id);
+  if (it == sent_.end()) return false;
+  Sent& s = it->second;
+  if (!s.failed) ++failed_;
+  s.failed = true;
+  s.resend_ns = now_ns + options_.retry_delay_ms * 1000000;
+  s.last_error = std::string(error);
   ++stats_.failures;
-  ++version_;
   return true;
 }
 
-std::vector<AckWindowResend> AckWindow::TakeDue(int64_t now_ns) {
-  absl::MutexLock lock(&mu_);
-  std::vector<std::pair<uint64_t, AckWindowResend>> due;
-  if (failed_ == 0) return {};
-  for (auto& [id, e] : by_id_) {
-    if (!e.failed || e.resend_ns > now_ns) continue;
-    e.failed = false;
-    --failed_;
-    ++e.attempts;
-    ++stats_.resends;
-    due.push_back({e.order, AckWindowResend{id, e.subject, e.body, e.attempts}});
+size_t AckWindow::ResendDue(int64_t now_ns) {
+  std::vector<Message> due;
+  {
+    absl::MutexLock lock(&mu_);
+    if (failed_ == 0) return 0;
+    for (const auto& [order, id] : by_order_) {  // oldest first send first
+      Sent& s = sent_.find(id)->second;
+      if (!s.failed || s.resend_ns > now_ns) continue;
+      s.failed = false;
+      --failed_;
+      ++s.attempts;
+      ++stats_.resends;
+      due.push_back(Message{id, s.subject, s.body});
+    }
   }
-  std::sort(due.begin(), due.end(), [](const auto& a, const auto& b) { return a.first < b.first; });
-  std::vector<AckWindowResend> out;
-  out.reserve(due.size());
-  for (auto& d : due) out.push_back(std::move(d.second));
-  return out;
+  for (const Message& m : due) send_(m.id, m.subject, m.body);
+  return due.size();
 }
 
 absl::Status AckWindow::CheckGiveUp(int64_t now_ns) const {
   absl::MutexLock lock(&mu_);
   if (by_order_.empty()) return absl::OkStatus();
-  // Admission order is first-send order, so the oldest entry expires first.
-  const std::string* oldest_id = &by_order_.begin()->second;
-  const Entry* oldest = &by_id_.find(*oldest_id)->second;
-  if (now_ns - oldest->first_sent_ns < options_.give_up_ms * 1000000) return absl::OkStatus();
+  // The first send with the lowest send number is the oldest one.
+  const std::string& id = by_order_.begin()->second;
+  const Sent& s = sent_.find(id)->second;
+  if (now_ns - s.first_sent_ns < options_.give_up_ms * 1000000) return absl::OkStatus();
   return absl::DeadlineExceededError(absl::StrCat(
-      "tick of ", oldest->key, " (message id ", *oldest_id, ") not acknowledged by JetStream ",
-      options_.give_up_ms / 1000.0, " s after its first send (", oldest->attempts,
-      oldest->attempts == 1 ? " attempt" : " attempts",
-      "; last error: ", oldest->last_error.empty() ? "none reported" : oldest->last_error, "); ",
-      by_id_.size(), " tick(s) unacknowledged"));
+      "tick of ", s.key, " (message id ", id, ") not acknowledged by JetStream ",
+      options_.give_up_ms / 1000.0, " s after its first send (", s.attempts,
+      s.attempts == 1 ? " attempt" : " attempts", "; last error: ",
+      s.last_error.empty() ? "none reported" : s.last_error, "); ", pending_, " tick(s) pending"));
 }
 
-int64_t AckWindow::NextDeadline() const {
+int64_t AckWindow::NextResend() const {
   absl::MutexLock lock(&mu_);
   int64_t next = std::numeric_limits<int64_t>::max();
-  if (by_order_.empty()) return next;
-  next =
-      by_id_.find(by_order_.begin()->second)->second.first_sent_ns + options_.give_up_ms * 1000000;
   if (failed_ == 0) return next;
-  for (const auto& [id, e] : by_id_) {
-    if (e.failed) next = std::min(next, e.resend_ns);
+  for (const auto& [id, s] : sent_) {
+    if (s.failed) next = std::min(next, s.resend_ns);
   }
   return next;
 }
 
+size_t AckWindow::pending() const {
+  absl::MutexLock lock(&mu_);
+  return pending_;
+}
+
 size_t AckWindow::in_flight() const {
   absl::MutexLock lock(&mu_);
-  return by_id_.size();
+  return sent_.size();
 }
 
 AckWindowStats AckWindow::stats() const {
@@ -113,15 +139,19 @@ AckWindowStats AckWindow::stats() const {
   return stats_;
 }
 
-uint64_t AckWindow::version() const {
+bool AckWindow::AwaitRoom(absl::Duration timeout) const {
+  const int64_t low = options_.max_pending - std::max<int64_t>(1, options_.max_pending / 4);
   absl::MutexLock lock(&mu_);
-  return version_;
+  auto room = [this, low]() ABSL_EXCLUSIVE_LOCKS_REQUIRED(mu_) {
+    return static_cast<int64_t>(pending_) <= low;
+  };
+  return mu_.AwaitWithTimeout(absl::Condition(&room), timeout);
 }
 
-void AckWindow::AwaitChange(uint64_t seen, absl::Duration timeout) const {
+bool AckWindow::AwaitEmpty(absl::Duration timeout) const {
   absl::MutexLock lock(&mu_);
-  auto changed = [this, seen]() ABSL_EXCLUSIVE_LOCKS_REQUIRED(mu_) { return version_ != seen; };
-  mu_.AwaitWithTimeout(absl::Condition(&changed), timeout);
+  auto empty = [this]() ABSL_EXCLUSIVE_LOCKS_REQUIRED(mu_) { return pending_ == 0; };
+  return mu_.AwaitWithTimeout(absl::Condition(&empty), timeout);
 }
 
 }  // namespace aftershock

@@ -1,12 +1,15 @@
 #include "aftershock/jetstream_publisher.h"
 
 #include <algorithm>
+#include <atomic>
 #include <chrono>
 #include <cstring>
 #include <string>
+#include <thread>
 
 #include "absl/container/flat_hash_map.h"
 #include "absl/strings/str_cat.h"
+#include "absl/synchronization/notification.h"
 #include "aftershock/subject_token.h"
 #include "io/ack_window.h"
 #include "io/nats_client.h"
@@ -49,11 +52,18 @@ class PublisherImpl : public JetStreamTickPublisher {
       : config_(std::move(config)),
         options_(std::move(options)),
         window_(
-            AckWindowOptions{options_.max_pending, options_.retry_delay_ms, options_.give_up_ms}) {}
+            AckWindowOptions{options_.max_pending, options_.retry_delay_ms, options_.give_up_ms},
+            [this](const std::string& id, const std::string& subject, const std::string& body) {
+              Send(id, subject, body);
+            }) {}
 
   ~PublisherImpl() override {
-    // The client's thread may still report into window_: close the session
-    // (and with it that thread's use of `this`) first.
+    // The client's thread reports into window_ and sends from it until the
+    // session is closed: no more sends from here on, then close it before
+    // the other members go.
+    closing_.store(true, std::memory_order_release);
+    stop_.Notify();
+    if (resender_.joinable()) resender_.join();
     session_.reset();
   }
 
@@ -66,15 +76,17 @@ class PublisherImpl : public JetStreamTickPublisher {
     }
     jsOptions jo;
     jsOptions_Init(&jo);
-    // The client's own limit stays above ours: a resend is registered only
-    // after the client reported the failed attempt, so it never holds more
-    // than max_pending; the margin keeps its stall (and its error) out of play.
-    jo.PublishAsync.MaxPending = options_.max_pending * 2;
+    // The client's own limit stays above ours (a message is registered with
+    // the client only once its previous attempt was reported, and the window
+    // holds at most max_pending), so its stall never comes into play: the
+    // acknowledgement handler sends the symbol's next tick and must not wait.
+    jo.PublishAsync.MaxPending = options_.max_pending * 2 + 16;
     jo.PublishAsync.AckHandler = &PublisherImpl::OnAck;
     jo.PublishAsync.AckHandlerClosure = this;
     auto session = NatsSession::Connect(config_, "aftershock-publisher", &jo);
     if (!session.ok()) return session.status();
     session_ = *std::move(session);
+    js_ = session_->js();
     if (options_.create_stream) {
       if (absl::Status s = nats_internal::EnsureTickStream(session_.get(), config_); !s.ok()) {
         return s;
@@ -88,23 +100,23 @@ class PublisherImpl : public JetStreamTickPublisher {
     if (needed_ms * 1000000 > *window_ns) {
       return absl::FailedPreconditionError(absl::StrCat(
           "JetStream stream '", config_.stream, "' drops duplicate ticks for ", *window_ns / 1e9,
-          " s, less than the publisher's give-up time plus its acknowledgement "
-          "timeout (",
+          " s, less than the publisher's give-up time plus its acknowledgement timeout (",
           needed_ms / 1000.0,
           " s): a late resend could store a tick twice; lower the give-up time or create the "
           "stream with a longer duplicate window ([nats] duplicate_window_seconds)"));
     }
+    resender_ = std::thread([this] { ResendLoop(); });
     return absl::OkStatus();
   }
 
   absl::Status Publish(const Tick& tick) override {
-    std::string symbol(tick.symbol.view());
-    uint64_t& sequence = sequences_[symbol];
-    const std::string id = TickMessageId(tick, sequence + 1);
-    // Per-symbol order: the symbol's previous tick must be acknowledged first.
-    if (absl::Status s = WaitUntil([&] { return window_.CanAdmit(symbol); }, -1); !s.ok()) {
-      return s;
+    if (absl::Status s = window_.CheckGiveUp(NowNs()); !s.ok()) return s;
+    while (!window_.HasRoom()) {
+      if (absl::Status s = Waited(); !s.ok()) return s;
+      window_.AwaitRoom(absl::Milliseconds(50));
     }
+    const absl::string_view symbol = tick.symbol.view();
+    uint64_t& sequence = sequences_[symbol];
     ++sequence;
     subject_ = nats_internal::TickSubject(config_, symbol);
     if (options_.encoding == WireEncoding::kJson) {
@@ -112,22 +124,27 @@ class PublisherImpl : public JetStreamTickPublisher {
     } else {
       EncodeTickBinary(tick, &body_);
     }
-    window_.Admit(symbol, id, subject_, body_, NowNs());
-    Send(id, subject_, body_);
+    // Sent now, or after the symbol's previous tick is acknowledged (by the
+    // client's thread, OnAck).
+    window_.Add(symbol, TickMessageId(tick, sequence), subject_, body_, NowNs());
     ++published_;
     return absl::OkStatus();
   }
 
   absl::Status Flush(int64_t timeout_ms) override {
-    const int64_t deadline = NowNs() + std::max<int64_t>(timeout_ms, 0) * 1000000;
-    absl::Status s = WaitUntil([&] { return window_.in_flight() == 0; }, deadline);
-    if (absl::IsDeadlineExceeded(s) && window_.in_flight() > 0 &&
-        window_.CheckGiveUp(NowNs()).ok()) {
-      return absl::DeadlineExceededError(absl::StrCat(window_.in_flight(), " of ", published_,
-                                                      " ticks not acknowledged by JetStream after ",
-                                                      timeout_ms, " ms"));
+    const auto deadline =
+        Clock::now() + std::chrono::milliseconds(std::max<int64_t>(timeout_ms, 0));
+    while (window_.pending() > 0) {
+      if (absl::Status s = Waited(); !s.ok()) return s;
+      if (Clock::now() >= deadline) {
+        return absl::DeadlineExceededError(absl::StrCat(window_.pending(), " of ", published_,
+                                                        " ticks not acknowledged by JetStream "
+                                                        "after ",
+                                                        timeout_ms, " ms"));
+      }
+      window_.AwaitEmpty(absl::Milliseconds(50));
     }
-    return s;
+    return window_.CheckGiveUp(NowNs());
   }
 
   JetStreamPublisherStats stats() const override {
@@ -136,41 +153,41 @@ class PublisherImpl : public JetStreamTickPublisher {
   }
 
  private:
-  // Sends one attempt; a send the client refuses at once counts as a failed
-  // attempt (resent after the retry delay).
+  // Between two waits: the give-up and the stop request.
+  absl::Status Waited() {
+    if (absl::Status s = window_.CheckGiveUp(NowNs()); !s.ok()) return s;
+    if (options_.stop_requested && options_.stop_requested()) {
+      return absl::CancelledError(absl::StrCat("stopped with ", window_.pending(),
+                                               " tick(s) not acknowledged by JetStream"));
+    }
+    return absl::OkStatus();
+  }
+
+  // Sends one attempt (from the producer, the client's or the resend
+  // thread); a send the client refuses at once counts as a failed attempt.
   void Send(const std::string& id, const std::string& subject, const std::string& body) {
+    if (closing_.load(std::memory_order_acquire)) return;
     jsPubOptions po;
     jsPubOptions_Init(&po);
     po.MsgId = id.c_str();
     po.MaxWait = options_.ack_timeout_ms;  // the client reports NATS_TIMEOUT after it
-    const natsStatus s = js_PublishAsync(session_->js(), subject.c_str(), body.data(),
-                                         static_cast<int>(body.size()), &po);
+    const natsStatus s =
+        js_PublishAsync(js_, subject.c_str(), body.data(), static_cast<int>(body.size()), &po);
     if (s != NATS_OK) {
       window_.OnFailure(id, ToStatus(s, absl::StrCat("cannot publish to ", subject)).message(),
                         NowNs());
     }
   }
 
-  // Resends what is due and checks the give-up until `done()` holds, the
-  // deadline (ns of NowNs; -1 = none) passes or stop_requested says so.
-  template <typename Done>
-  absl::Status WaitUntil(Done done, int64_t deadline) {
-    while (true) {
-      const uint64_t seen = window_.version();
+  // Resends failed attempts when due, whatever the producer is doing (it may
+  // be pacing, or done and waiting in Flush).
+  void ResendLoop() {
+    while (!stop_.HasBeenNotified()) {
       const int64_t now = NowNs();
-      for (const AckWindowResend& r : window_.TakeDue(now)) Send(r.id, r.subject, r.body);
-      if (absl::Status s = window_.CheckGiveUp(now); !s.ok()) return s;
-      if (done()) return absl::OkStatus();
-      if (deadline >= 0 && now >= deadline) {
-        return absl::DeadlineExceededError("JetStream acknowledgements missing");
-      }
-      if (options_.stop_requested && options_.stop_requested()) {
-        return absl::CancelledError(absl::StrCat("stopped with ", window_.in_flight(),
-                                                 " tick(s) not acknowledged by JetStream"));
-      }
-      int64_t until = std::min(window_.NextDeadline(), now + 50000000);  // 50 ms slices
-      if (deadline >= 0) until = std::min(until, deadline);
-      window_.AwaitChange(seen, absl::Nanoseconds(std::max<int64_t>(until - now, 0)));
+      window_.ResendDue(now);
+      // A failure reported meanwhile is seen within 20 ms.
+      const int64_t wait = std::clamp<int64_t>(window_.NextResend() - now, 1000000, 20000000);
+      stop_.WaitForNotificationWithTimeout(absl::Nanoseconds(wait));
     }
   }
 
@@ -180,7 +197,7 @@ class PublisherImpl : public JetStreamTickPublisher {
     const char* id = nullptr;
     if (msg != nullptr && natsMsgHeader_Get(msg, "Nats-Msg-Id", &id) == NATS_OK && id != nullptr) {
       if (pa != nullptr) {
-        self->window_.OnAck(id, pa->Duplicate);
+        self->window_.OnAck(id, pa->Duplicate, NowNs());  // may send the symbol's next tick
       } else if (pae != nullptr) {
         std::string error = pae->ErrText != nullptr && pae->ErrText[0] != '\0'
                                 ? pae->ErrText
@@ -198,6 +215,10 @@ class PublisherImpl : public JetStreamTickPublisher {
   const JetStreamPublisherOptions options_;
   AckWindow window_;
   std::unique_ptr<NatsSession> session_;
+  jsCtx* js_ = nullptr;               // session_'s context, read by every thread that sends
+  std::atomic<bool> closing_{false};  // set by the destructor: sends stop
+  absl::Notification stop_;           // ends ResendLoop
+  std::thread resender_;
   absl::flat_hash_map<std::string, uint64_t> sequences_;  // ticks published per symbol
   std::string subject_, body_;                            // reused buffers
   uint64_t published_ = 0;

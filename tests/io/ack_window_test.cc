@@ -20,100 +20,128 @@ constexpr int64_t kMs = 1000000;
 
 AckWindowOptions Options() {
   AckWindowOptions o;
-  o.max_in_flight = 3;
+  o.max_pending = 4;
   o.retry_delay_ms = 100;
   o.give_up_ms = 5000;
   return o;
 }
 
-TEST_CASE("a key has at most one unacknowledged message; the window has a size") {
-  AckWindow w(Options());
-  CHECK(w.CanAdmit("A"));
-  w.Admit("A", "1.a.A", "ticks.A", "a1", 0);
-  CHECK(!w.CanAdmit("A"));  // its next tick waits for the acknowledgement
-  CHECK(w.CanAdmit("B"));
-  w.Admit("B", "1.b.B", "ticks.B", "b1", 0);
-  w.Admit("C", "1.c.C", "ticks.C", "c1", 0);
-  CHECK(w.in_flight() == 3);
-  CHECK(!w.CanAdmit("D"));  // max_in_flight
-  CHECK(w.OnAck("1.a.A", false));
-  CHECK(w.CanAdmit("A"));
-  CHECK(w.CanAdmit("D"));
-  CHECK(!w.OnAck("1.a.A", false));  // a second acknowledgement (of a resend) changes nothing
+// Records every attempt the window sends.
+struct Wire {
+  std::vector<std::string> ids, bodies;
+  AckWindow::SendFn Fn() {
+    return [this](const std::string& id, const std::string&, const std::string& body) {
+      ids.push_back(id);
+      bodies.push_back(body);
+    };
+  }
+};
+
+TEST_CASE("a key has at most one unacknowledged message; the next is sent on its ack") {
+  Wire wire;
+  AckWindow w(Options(), wire.Fn());
+  w.Add("A", "1.a.A", "ticks.A", "a1", 0);
+  w.Add("A", "2.a.A", "ticks.A", "a2", 0);  // queued behind 1.a.A
+  w.Add("B", "1.b.B", "ticks.B", "b1", 0);
+  CHECK(wire.ids == std::vector<std::string>{"1.a.A", "1.b.B"});
+  CHECK(w.pending() == 3);
+  CHECK(w.in_flight() == 2);
+  CHECK(w.HasRoom());
+  w.Add("A", "3.a.A", "ticks.A", "a3", 0);
+  CHECK(!w.HasRoom());  // max_pending
+  CHECK(w.OnAck("1.a.A", false, 10 * kMs));
+  CHECK(wire.ids.back() == "2.a.A");  // sent by the acknowledgement
+  CHECK(wire.bodies.back() == "a2");
+  CHECK(!w.OnAck("1.a.A", false, 10 * kMs));  // reported twice: nothing changes
+  CHECK(!w.OnAck("3.a.A", false, 10 * kMs));  // queued, not sent: no acknowledgement yet
   CHECK(!w.OnFailure("9.z.Z", "x", 0));
+  CHECK(w.OnAck("1.b.B", false, 11 * kMs));
+  CHECK(wire.ids.size() == 3);  // B had nothing queued
+  CHECK(w.OnAck("2.a.A", false, 12 * kMs));
+  CHECK(wire.ids.back() == "3.a.A");
+  CHECK(w.OnAck("3.a.A", false, 13 * kMs));
+  CHECK(w.pending() == 0);
   const AckWindowStats s = w.stats();
-  CHECK(s.admitted == 3);
-  CHECK(s.acked == 1);
+  CHECK(s.added == 4);
+  CHECK(s.acked == 4);
   CHECK(s.failures == 0);
+  CHECK(s.resends == 0);
 }
 
-TEST_CASE("failed attempts are resent after the retry delay, oldest admission first") {
-  AckWindow w(Options());
-  w.Admit("A", "1.a.A", "ticks.A", "a1", 0);
-  w.Admit("B", "1.b.B", "ticks.B", "b1", 1 * kMs);
-  w.Admit("C", "1.c.C", "ticks.C", "c1", 2 * kMs);
-  CHECK(w.NextDeadline() == 5000 * kMs);  // A's give-up
-  // C fails first, then A: the resends still go out in admission order.
+TEST_CASE("failed attempts are resent after the retry delay, oldest first send first") {
+  Wire wire;
+  AckWindow w(Options(), wire.Fn());
+  w.Add("A", "1.a.A", "ticks.A", "a1", 0);
+  w.Add("B", "1.b.B", "ticks.B", "b1", 1 * kMs);
+  w.Add("C", "1.c.C", "ticks.C", "c1", 2 * kMs);
+  w.Add("A", "2.a.A", "ticks.A", "a2", 3 * kMs);
+  CHECK(w.NextResend() == std::numeric_limits<int64_t>::max());
+  // C fails first, then A: the resends still go out in first-send order.
   CHECK(w.OnFailure("1.c.C", "No responders available for request", 10 * kMs));
   CHECK(w.OnFailure("1.a.A", "Timeout", 20 * kMs));
-  CHECK(w.NextDeadline() == 110 * kMs);  // C's resend
-  CHECK(w.TakeDue(109 * kMs).empty());
-  std::vector<AckWindowResend> due = w.TakeDue(200 * kMs);
-  REQUIRE(due.size() == 2);
-  CHECK(due[0].id == "1.a.A");
-  CHECK(due[0].subject == "ticks.A");
-  CHECK(due[0].body == "a1");
-  CHECK(due[0].attempt == 2);
-  CHECK(due[1].id == "1.c.C");
-  CHECK(w.TakeDue(1000 * kMs).empty());  // taken: not due again until it fails again
-  CHECK(!w.CanAdmit("A"));               // still unacknowledged during the resend
+  CHECK(w.NextResend() == 110 * kMs);  // C's
+  CHECK(w.ResendDue(109 * kMs) == 0);
+  wire.ids.clear();
+  CHECK(w.ResendDue(200 * kMs) == 2);
+  CHECK(wire.ids == std::vector<std::string>{"1.a.A", "1.c.C"});
+  CHECK(w.ResendDue(1000 * kMs) == 0);  // resent: not due again until it fails again
   CHECK(w.OnFailure("1.a.A", "Timeout", 2200 * kMs));
-  due = w.TakeDue(2300 * kMs);
-  REQUIRE(due.size() == 1);
-  CHECK(due[0].attempt == 3);
-  // The broker had stored the first copy: the resend's acknowledgement says duplicate.
-  CHECK(w.OnAck("1.a.A", true));
-  CHECK(w.OnAck("1.c.C", false));
-  CHECK(w.OnAck("1.b.B", false));
-  CHECK(w.in_flight() == 0);
-  CHECK(w.NextDeadline() == std::numeric_limits<int64_t>::max());
+  CHECK(w.ResendDue(2300 * kMs) == 1);
+  // A's second tick is still queued: nothing of A was sent but 1.a.A.
+  for (const std::string& id : wire.ids) CHECK(id != "2.a.A");
+  // The broker had stored the first copy: the resend's acknowledgement says
+  // duplicate, and A's next tick goes out.
+  CHECK(w.OnAck("1.a.A", true, 2400 * kMs));
+  CHECK(wire.ids.back() == "2.a.A");
+  CHECK(w.OnAck("1.c.C", false, 2400 * kMs));
+  CHECK(w.OnAck("1.b.B", false, 2400 * kMs));
+  CHECK(w.OnAck("2.a.A", false, 2500 * kMs));
+  CHECK(w.pending() == 0);
   const AckWindowStats s = w.stats();
-  CHECK(s.acked == 3);
+  CHECK(s.acked == 4);
   CHECK(s.duplicates == 1);
   CHECK(s.failures == 3);
   CHECK(s.resends == 3);
 }
 
 TEST_CASE("a message unacknowledged for the give-up time fails with what is known") {
-  AckWindow w(Options());
-  w.Admit("B", "1.b.B", "ticks.B", "b1", 1000 * kMs);
-  w.Admit("A", "7.a.A", "ticks.A", "a7", 1500 * kMs);
+  Wire wire;
+  AckWindow w(Options(), wire.Fn());
+  w.Add("B", "1.b.B", "ticks.B", "b1", 1000 * kMs);
+  w.Add("A", "7.a.A", "ticks.A", "a7", 1500 * kMs);
+  w.Add("A", "8.a.A", "ticks.A", "a8", 1600 * kMs);  // queued: its clock has not started
   CHECK(w.OnFailure("7.a.A", "No responders available for request", 1600 * kMs));
   CHECK(w.OnFailure("1.b.B", "Timeout", 3000 * kMs));
-  CHECK(w.TakeDue(3100 * kMs).size() == 2);
+  CHECK(w.ResendDue(3100 * kMs) == 2);
   CHECK(w.CheckGiveUp(5999 * kMs).ok());
   const absl::Status s = w.CheckGiveUp(6000 * kMs);  // B: 5 s after its first send
   CHECK(absl::IsDeadlineExceeded(s));
   CHECK(s.message() ==
         "tick of B (message id 1.b.B) not acknowledged by JetStream 5 s after its first send (2 "
-        "attempts; last error: Timeout); 2 tick(s) unacknowledged");
-  CHECK(w.OnAck("1.b.B", false));
+        "attempts; last error: Timeout); 3 tick(s) pending");
+  CHECK(w.OnAck("1.b.B", false, 6000 * kMs));
   CHECK(w.CheckGiveUp(6000 * kMs).ok());
-  CHECK(!w.CheckGiveUp(6500 * kMs).ok());  // A's turn
+  CHECK(!w.CheckGiveUp(6500 * kMs).ok());      // A's first
+  CHECK(w.OnAck("7.a.A", false, 6500 * kMs));  // 8.a.A sent now: its clock starts
+  CHECK(w.CheckGiveUp(11499 * kMs).ok());
+  CHECK(!w.CheckGiveUp(11500 * kMs).ok());
 }
 
 // A broker that loses some attempts (their failures are reported) and stores
-// the others: whatever it loses, each key's messages are stored in admission
-// order and exactly once (with the duplicate window dropping copies).
+// the others, answering in any order: whatever it loses, each key's messages
+// are stored exactly once (the duplicate window drops copies) and in the
+// order they were added.
 TEST_CASE("with lost attempts and resends, every key's messages are stored once, in order") {
   AckWindowOptions o;
-  o.max_in_flight = 4;
+  o.max_pending = 16;
   o.retry_delay_ms = 0;
   o.give_up_ms = 1000000;
-  AckWindow w(o);
+  std::vector<std::string> wire;  // attempts in flight at the "broker"
+  AckWindow w(o, [&wire](const std::string& id, const std::string&, const std::string&) {
+    wire.push_back(id);
+  });
   const std::vector<std::string> keys = {"A", "B", "C", "D", "E"};
-  std::map<std::string, int> next;                        // per key: next sequence to publish
-  std::vector<std::pair<std::string, std::string>> wire;  // (id, key) in flight at the "broker"
+  std::map<std::string, int> next;  // per key: next sequence to add
   std::set<std::string> stored_ids;
   std::map<std::string, std::vector<int>> stored;  // per key, sequences in stored order
   uint64_t rng = 12345;
@@ -122,39 +150,33 @@ TEST_CASE("with lost attempts and resends, every key's messages are stored once,
     return rng >> 33;
   };
   int64_t now = 0;
-  int published = 0;
-  const int total = 400;
-  auto deliver = [&](size_t i) {
-    const auto [id, key] = wire[i];
+  int added = 0;
+  const int total = 600;
+  while (added < total || w.pending() > 0) {
+    ++now;
+    w.ResendDue(now);
+    if (added < total && w.HasRoom()) {
+      const std::string& key = keys[rand() % keys.size()];
+      w.Add(key, std::to_string(next[key]++) + ".x." + key, "ticks." + key, "", now);
+      ++added;
+    }
+    if (wire.empty() || rand() % 2 != 0) continue;
+    // The broker answers a random attempt in flight.
+    const size_t i = rand() % wire.size();
+    const std::string id = wire[i];
     wire.erase(wire.begin() + static_cast<long>(i));
     const uint64_t r = rand() % 10;
     if (r < 2) {  // lost before it was stored: the client reports a timeout
       w.OnFailure(id, "Timeout", now);
-      return;
+      continue;
     }
     const bool dup = !stored_ids.insert(id).second;
-    if (!dup) stored[key].push_back(std::stoi(id.substr(0, id.find('.'))));
+    if (!dup) stored[id.substr(id.rfind('.') + 1)].push_back(std::stoi(id.substr(0, id.find('.'))));
     if (r < 4) {  // stored, acknowledgement lost
       w.OnFailure(id, "Timeout", now);
     } else {
-      w.OnAck(id, dup);
+      w.OnAck(id, dup, now);
     }
-  };
-  while (published < total || w.in_flight() > 0) {
-    ++now;
-    for (const AckWindowResend& r : w.TakeDue(now)) {
-      wire.push_back({r.id, r.id.substr(r.id.rfind('.') + 1)});
-    }
-    const std::string& key = keys[rand() % keys.size()];
-    if (published < total && w.CanAdmit(key)) {
-      const std::string id = std::to_string(next[key]++) + ".x." + key;
-      w.Admit(key, id, "ticks." + key, "", now);
-      wire.push_back({id, key});
-      ++published;
-    }
-    // The broker answers a random message in flight (acknowledgements of
-    // different keys come back in any order).
-    if (!wire.empty() && rand() % 2 == 0) deliver(rand() % wire.size());
   }
   int count = 0;
   for (const auto& [key, seqs] : stored) {
