@@ -122,6 +122,12 @@ struct NatsConfig {
   // single server; 3 on a 3-node cluster lets the data survive the loss of a
   // node. Fixed at creation, like the lease TTL. 1..5; default 1.
   int replicas = 1;
+  // How long the tick stream drops a message whose Nats-Msg-Id it stored
+  // before, seconds, set when an engine or publisher creates the stream. A
+  // producer resending a tick whose acknowledgement was lost (simulate
+  // --nats) relies on it and checks that its give-up time fits. Fixed at
+  // creation. 1..86400; default 120 (JetStream's own default).
+  double duplicate_window_seconds = 120;
 };
 
 // [bars]: aggregation of ticks into bars.

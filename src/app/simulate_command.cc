@@ -301,6 +301,8 @@ struct PublishOptions {
   int linger_ms = 2000;
   int high_water_mark = 100000;
   bool quiet = false;
+  int64_t ack_timeout_ms = 2000;  // --nats: an attempt unacknowledged this long is resent
+  int64_t give_up_ms = 60000;     // --nats: a tick unacknowledged this long fails the run
 };
 
 // Sleeps until `deadline` in slices so Ctrl-C is noticed; false when stopped.
@@ -420,10 +422,12 @@ int Publish(MarketSim& sim, Tick::Kind field, const PublishOptions& o) {
 
 // Publishes every tick into the JetStream stream of the [nats] section of an
 // engine configuration, one message per tick on <subject>.<symbol token>.
-int PublishNats(MarketSim& sim, Tick::Kind field, const NatsConfig& nats,
-                const PublishOptions& o) {
+int PublishNats(MarketSim& sim, Tick::Kind field, const NatsConfig& nats, const PublishOptions& o) {
   JetStreamPublisherOptions jo;
   jo.encoding = o.encoding;
+  jo.ack_timeout_ms = o.ack_timeout_ms;
+  jo.give_up_ms = o.give_up_ms;
+  jo.stop_requested = [] { return StopRequested(); };
   auto pub = JetStreamTickPublisher::Connect(nats, jo);
   if (!pub.ok()) return Fail(pub.status(), 1);
   if (!o.quiet) {
@@ -439,6 +443,7 @@ int PublishNats(MarketSim& sim, Tick::Kind field, const NatsConfig& nats,
   int64_t sent = 0;
   const auto t0 = Clock::now();
   bool stopped = StopRequested();
+  absl::Status failed;
   while (!stopped && sim.Next(field, &tick)) {
     if (o.rate > 0) {
       const auto due =
@@ -448,21 +453,31 @@ int PublishNats(MarketSim& sim, Tick::Kind field, const NatsConfig& nats,
         break;
       }
     }
-    if (absl::Status s = (*pub)->Publish(tick); !s.ok()) return Fail(s, 1);
+    if (failed = (*pub)->Publish(tick); !failed.ok()) {
+      stopped = absl::IsCancelled(failed);
+      break;
+    }
     ++sent;
     progress.Update(sent);
     stopped = StopRequested();
   }
-  // Every tick acknowledged (stored) before the count is reported.
-  const absl::Status flushed = (*pub)->Flush(std::max(o.linger_ms, 1000));
+  // Every tick acknowledged (stored) before the count is reported; failed
+  // ticks are resent until the give-up time.
+  if (failed.ok()) failed = (*pub)->Flush(o.give_up_ms + o.ack_timeout_ms);
+  if (absl::IsCancelled(failed)) stopped = true;
   const double secs = progress.Elapsed();
-  std::fprintf(stderr,
-               "aftershock simulate: %s %lld ticks (%zu symbols) to JetStream stream %s in "
-               "%.2f s (%.0f ticks/s)\n",
-               stopped ? "interrupted; published" : "published", static_cast<long long>(sent),
-               sim.instruments().size(), nats.stream.c_str(), secs,
-               secs > 0 ? static_cast<double>(sent) / secs : 0.0);
-  if (!flushed.ok()) return Fail(flushed, 1);
+  const JetStreamPublisherStats st = (*pub)->stats();
+  std::fprintf(
+      stderr,
+      "aftershock simulate: %s %lld ticks (%zu symbols) to JetStream stream %s in "
+      "%.2f s (%.0f ticks/s); %llu acknowledged, %llu failed attempts, %llu resent, "
+      "%llu already stored\n",
+      stopped ? "interrupted; published" : "published", static_cast<long long>(sent),
+      sim.instruments().size(), nats.stream.c_str(), secs,
+      secs > 0 ? static_cast<double>(sent) / secs : 0.0, static_cast<unsigned long long>(st.acked),
+      static_cast<unsigned long long>(st.failed), static_cast<unsigned long long>(st.resent),
+      static_cast<unsigned long long>(st.duplicates));
+  if (!failed.ok() && !absl::IsCancelled(failed)) return Fail(failed, 1);
   return stopped ? 130 : 0;
 }
 
@@ -551,7 +566,12 @@ int SimulateCommand(int argc, char** argv) {
       "cleanly with the final count (exit code 130).\n"
       "--nats CONFIG publishes into NATS JetStream instead: one tick a message on\n"
       "<[nats] subject>.<symbol token>, the server's partition() mapping choosing the\n"
-      "partition; every tick is acknowledged by JetStream before the final count.\n\n"
+      "partition; every tick is acknowledged by JetStream before the final count. A tick\n"
+      "whose attempt fails (e.g. the stream's leader died with the acknowledgement) is\n"
+      "resent with the same message id, which the stream's duplicate window deduplicates;\n"
+      "a symbol's next tick waits for the acknowledgement of its previous one, so the\n"
+      "order per symbol holds. A tick unacknowledged --give-up seconds after its first\n"
+      "send ends the run with an error (exit code 1).\n\n"
       "Examples:\n"
       "  aftershock simulate --output ticks.csv --bars 390 --regime 200:4\n"
       "  aftershock simulate --publish tcp://127.0.0.1:7301 --rate 200 --bars 100000\n"
@@ -610,6 +630,13 @@ int SimulateCommand(int argc, char** argv) {
                  "publish the ticks to NATS JetStream per the [nats] section of this engine "
                  "configuration (one tick a message on <subject>.<symbol token>; README "
                  "\"Scale-out\")");
+  args.AddOption("ack-timeout", "MS",
+                 "with --nats: an attempt not acknowledged by JetStream within MS ms is resent",
+                 "2000");
+  args.AddOption("give-up", "SECONDS",
+                 "with --nats: fail when a tick is still unacknowledged SECONDS after its first "
+                 "send (plus --ack-timeout, at most the stream's duplicate window)",
+                 "60");
   args.AddOption("rate", "TICKS_PER_S", "publishing rate in ticks per second; 0 = unpaced", "1000");
   args.AddOption("encoding", "ENC", "wire encoding: json | binary", "json");
   args.AddOption("batch", "N", "ticks per message; > 1 sends batches with topic '*'", "1");
@@ -843,6 +870,16 @@ int SimulateCommand(int argc, char** argv) {
     po.linger_ms = static_cast<int>(*linger);
     po.high_water_mark = static_cast<int>(*hwm);
     po.quiet = args.Flag("quiet");
+    auto ack_timeout = args.GetInt("ack-timeout");
+    auto give_up = args.GetDouble("give-up");
+    if (!ack_timeout.ok() || *ack_timeout < 1 || *ack_timeout > 600000 || !give_up.ok() ||
+        !(*give_up >= 0.001 && *give_up <= 86400)) {
+      return Fail(absl::InvalidArgumentError("--ack-timeout needs milliseconds in 1..600000, "
+                                             "--give-up seconds in 0.001..86400"),
+                  2);
+    }
+    po.ack_timeout_ms = *ack_timeout;
+    po.give_up_ms = std::llround(*give_up * 1000);
   }
 
   MarketSimOptions so;

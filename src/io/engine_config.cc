@@ -533,10 +533,10 @@ bool IsPlainSubject(absl::string_view v) {
 }
 
 absl::Status ParseNats(const Section& s, NatsConfig* c) {
-  AS_RETURN_IF_ERROR(
-      s.CheckKeys({"servers", "stream", "subject", "partition_subject", "partitions",
-                   "lease_seconds", "instance", "lease_bucket", "updates_subject",
-                   "checkpoint_bucket", "checkpoint_seconds", "exact_refits", "replicas"}));
+  AS_RETURN_IF_ERROR(s.CheckKeys({"servers", "stream", "subject", "partition_subject", "partitions",
+                                  "lease_seconds", "instance", "lease_bucket", "updates_subject",
+                                  "checkpoint_bucket", "checkpoint_seconds", "exact_refits",
+                                  "replicas", "duplicate_window_seconds"}));
   AS_RETURN_IF_ERROR(s.StringArray("servers", &c->servers));
   if (c->servers.empty()) return s.KeyError("servers", "at least one server URL is required");
   for (const std::string& url : c->servers) {
@@ -558,6 +558,8 @@ absl::Status ParseNats(const Section& s, NatsConfig* c) {
       s.Number("checkpoint_seconds", &c->checkpoint_seconds, 0, 86400, false, false));
   AS_RETURN_IF_ERROR(s.Bool("exact_refits", &c->exact_refits));
   AS_RETURN_IF_ERROR(s.Integer("replicas", &c->replicas, 1, 5));
+  AS_RETURN_IF_ERROR(
+      s.Number("duplicate_window_seconds", &c->duplicate_window_seconds, 1, 86400, false, false));
   for (const auto& [key, value] : {std::pair<const char*, const std::string*>{"stream", &c->stream},
                                    {"lease_bucket", &c->lease_bucket},
                                    {"checkpoint_bucket", &c->checkpoint_bucket}}) {
@@ -1256,7 +1258,7 @@ std::string FormatEngineConfig(const EngineConfig& c) {
       "\ncheckpoint_bucket = ", Quote(c.nats.checkpoint_bucket),
       "\ncheckpoint_seconds = ", num(c.nats.checkpoint_seconds),
       "\nexact_refits = ", c.nats.exact_refits ? "true" : "false", "\nreplicas = ", c.nats.replicas,
-      "\n");
+      "\nduplicate_window_seconds = ", num(c.nats.duplicate_window_seconds), "\n");
   absl::StrAppend(&o, "\n[publish]\nendpoint = ", Quote(c.publish.endpoint),
                   "\nencoding = ", Quote(WireEncodingName(c.publish.encoding)),
                   "\nhigh_water_mark = ", c.publish.high_water_mark,

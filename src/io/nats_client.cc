@@ -119,6 +119,10 @@ absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config) {
     sc.SubjectsLen = 1;
     sc.Storage = js_FileStorage;
     sc.Replicas = config.replicas;
+    // How long the stream remembers a message id (Nats-Msg-Id): a publisher
+    // resending a tick whose acknowledgement was lost relies on it to drop
+    // the copy (jetstream_publisher.h).
+    sc.Duplicates = static_cast<int64_t>(config.duplicate_window_seconds * 1e9);
     s = RetryOnTimeout([&] { return js_AddStream(&si, session->js(), &sc, nullptr, &jerr); });
     if (s == NATS_OK) {
       jsStreamInfo_Destroy(si);
@@ -129,6 +133,19 @@ absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config) {
     }
   }
   return absl::UnavailableError(absl::StrCat("stream '", config.stream, "' keeps changing"));
+}
+
+absl::StatusOr<int64_t> TickStreamDuplicateWindow(NatsSession* session, const NatsConfig& config) {
+  jsStreamInfo* si = nullptr;
+  jsErrCode jerr = static_cast<jsErrCode>(0);
+  const natsStatus s = RetryOnTimeout(
+      [&] { return js_GetStreamInfo(&si, session->js(), config.stream.c_str(), nullptr, &jerr); });
+  if (s != NATS_OK) {
+    return ToStatus(s, absl::StrCat("cannot look up stream '", config.stream, "'"), jerr);
+  }
+  const int64_t window = si->Config->Duplicates;
+  jsStreamInfo_Destroy(si);
+  return window;
 }
 
 absl::StatusOr<KvStorePtr> OpenLeaseBucket(NatsSession* session, const NatsConfig& config,

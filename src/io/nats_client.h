@@ -65,9 +65,14 @@ natsStatus RetryOnTimeout(Api api) {
 }
 
 // The stream of [nats] stream with subjects "<partition_subject>.>": looked up,
-// and created (file storage, one replica, limits retention) when absent.
-// FailedPrecondition when a stream of that name exists with other subjects.
+// and created (file storage, [nats] replicas, limits retention, a duplicate
+// window of [nats] duplicate_window_seconds) when absent. FailedPrecondition
+// when a stream of that name exists with other subjects.
 absl::Status EnsureTickStream(NatsSession* session, const NatsConfig& config);
+
+// The duplicate window of the existing tick stream, ns (how long JetStream
+// remembers a Nats-Msg-Id to drop a resent copy).
+absl::StatusOr<int64_t> TickStreamDuplicateWindow(NatsSession* session, const NatsConfig& config);
 
 // Owning handle of a kvStore.
 struct KvDeleter {

@@ -659,7 +659,7 @@ TEST_CASE("[alerts] range errors name the key", "[config][alerts]") {
 
 TEST_CASE("every [nats] key: parsed, in default.toml, in the README, formatted", "[config][nats]") {
   const std::vector<std::string> parser = ParserKeys("[nats]");
-  CHECK(parser.size() == 13);
+  CHECK(parser.size() == 14);
   const std::set<std::string> known(parser.begin(), parser.end());
   const std::string dflt =
       testing::ReadFileOrDie(std::string(AFTERSHOCK_SOURCE_DIR) + "/config/default.toml");
@@ -694,7 +694,8 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
       "\"tls://10.0.0.2:4222\"]\nstream = \"T_1\"\nsubject = \"md.ticks\"\n"
       "partition_subject = \"md.part\"\npartitions = 3\nlease_seconds = 2.5\n"
       "instance = \"eng-a\"\nlease_bucket = \"L\"\ncheckpoint_bucket = \"C-1\"\n"
-      "checkpoint_seconds = 0\nexact_refits = false\nreplicas = 3\n",
+      "checkpoint_seconds = 0\nexact_refits = false\nreplicas = 3\n"
+      "duplicate_window_seconds = 300\n",
       "config.toml");
   REQUIRE(c.ok());
   CHECK(c->feed.source == FeedSource::kNats);
@@ -710,6 +711,7 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
   CHECK(c->nats.checkpoint_seconds == 0);
   CHECK(!c->nats.exact_refits);
   CHECK(c->nats.replicas == 3);
+  CHECK(c->nats.duplicate_window_seconds == 300);
   auto back = ParseEngineConfig(FormatEngineConfig(*c), "x");
   REQUIRE(back.ok());
   CHECK(FormatEngineConfig(*back) == FormatEngineConfig(*c));
@@ -742,6 +744,11 @@ TEST_CASE("[feed] source and [nats] values are checked", "[config][nats]") {
   CHECK(ErrorOf("[nats]\nreplicas = 0\n").find("[nats] replicas") != std::string::npos);
   CHECK(ErrorOf("[nats]\nreplicas = 6\n").find("[nats] replicas") != std::string::npos);
   CHECK(ErrorOf("[nats]\nreplicas = 5\n") == "ok");
+  CHECK(
+      ErrorOf("[nats]\nduplicate_window_seconds = 0.5\n").find("[nats] duplicate_window_seconds") !=
+      std::string::npos);
+  CHECK(ErrorOf("[nats]\nduplicate_window_seconds = 86401\n")
+            .find("[nats] duplicate_window_seconds") != std::string::npos);
   CHECK(ErrorOf("[nats]\nexact_refits = 1\n").find("[nats] exact_refits") != std::string::npos);
 }
 

@@ -153,6 +153,7 @@ void NatsServer::Start(const std::string& dir, const std::string& config,
 
 NatsServer::~NatsServer() {
   if (pid_ <= 0) return;
+  kill(pid_, SIGCONT);  // a paused server handles no SIGTERM
   kill(pid_, SIGTERM);
   waitpid(pid_, nullptr, 0);
 }

@@ -57,6 +57,10 @@ class NatsServer {
   void Kill() { Stop(SIGKILL); }
   // Sends `sig` (SIGTERM: the server's clean shutdown) and waits for the exit.
   void Stop(int sig);
+  // SIGSTOPs the server: it keeps its connections but answers nothing (what a
+  // client sees of a hung or partitioned server) until Resume (SIGCONT).
+  void Pause() { kill(pid_, SIGSTOP); }
+  void Resume() { kill(pid_, SIGCONT); }
 
  private:
   void Start(const std::string& dir, const std::string& config,
