@@ -40,7 +40,12 @@ std::string Sym(int i) {
   return b;
 }
 
-Tick MakeTick(int i, std::mt19937_64* g) {
+// Two corpora: kMixed, half the ticks returns at full precision (about 17
+// significant digits) and half prices of two decimals with a size; kShort,
+// returns of 6 decimals (as engine_bench sends) and the same prices.
+enum CorpusKind { kMixed = 0, kShort = 1 };
+
+Tick MakeTick(int i, CorpusKind kind, std::mt19937_64* g) {
   std::normal_distribution<double> nd(0, 1e-3);
   Tick k;
   k.symbol.assign(Sym(i));
@@ -48,6 +53,7 @@ Tick MakeTick(int i, std::mt19937_64* g) {
   if (i % 2 == 0) {
     k.kind = Tick::kReturn;
     k.value = nd(*g);  // full-precision double, 17 significant digits
+    if (kind == kShort) k.value = std::round(k.value * 1e6) / 1e6;
   } else {
     k.kind = Tick::kPrice;
     k.value = 100.0 + std::round(nd(*g) * 1e5) / 100.0;  // two decimals
@@ -59,11 +65,11 @@ Tick MakeTick(int i, std::mt19937_64* g) {
 struct Corpus {
   std::vector<std::string> topics, singles;
   std::vector<std::string> batches;
-  Corpus() {
+  explicit Corpus(CorpusKind kind) {
     std::mt19937_64 g(42);
     std::vector<Tick> ticks;
     for (int i = 0; i < kMessages; ++i) {
-      const Tick t = MakeTick(i, &g);
+      const Tick t = MakeTick(i, kind, &g);
       topics.emplace_back(t.symbol.view());
       singles.emplace_back();
       EncodeTickJson(t, &singles.back());
@@ -77,9 +83,9 @@ struct Corpus {
   }
 };
 
-const Corpus& TheCorpus() {
-  static const Corpus* c = new Corpus();
-  return *c;
+const Corpus& TheCorpus(int kind) {
+  static const Corpus* c[2] = {new Corpus(kMixed), new Corpus(kShort)};
+  return *c[kind];
 }
 
 // ---- simdjson on-demand reference decoder ----------------------------------
@@ -216,9 +222,10 @@ class SimdjsonTickDecoder {
 };
 
 // ---- benchmarks -------------------------------------------------------------
+// The argument is the corpus: short:0 mixed, short:1 short decimals.
 
 void BM_DecodeSingle_Ours(benchmark::State& state) {
-  const Corpus& c = TheCorpus();
+  const Corpus& c = TheCorpus(static_cast<int>(state.range(0)));
   Tick out[1];
   RejectCounters counters;
   size_t i = 0;
@@ -234,10 +241,10 @@ void BM_DecodeSingle_Ours(benchmark::State& state) {
     state.SkipWithError("rejections");
   state.SetItemsProcessed(state.iterations());
 }
-BENCHMARK(BM_DecodeSingle_Ours);
+BENCHMARK(BM_DecodeSingle_Ours)->ArgName("short")->Arg(kMixed)->Arg(kShort);
 
 void BM_DecodeSingle_Simdjson(benchmark::State& state) {
-  const Corpus& c = TheCorpus();
+  const Corpus& c = TheCorpus(static_cast<int>(state.range(0)));
   SimdjsonTickDecoder d;
   Tick out[1];
   size_t i = 0;
@@ -253,10 +260,10 @@ void BM_DecodeSingle_Simdjson(benchmark::State& state) {
     state.SkipWithError("rejections");
   state.SetItemsProcessed(state.iterations());
 }
-BENCHMARK(BM_DecodeSingle_Simdjson);
+BENCHMARK(BM_DecodeSingle_Simdjson)->ArgName("short")->Arg(kMixed)->Arg(kShort);
 
 void BM_DecodeBatch256_Ours(benchmark::State& state) {
-  const Corpus& c = TheCorpus();
+  const Corpus& c = TheCorpus(static_cast<int>(state.range(0)));
   std::vector<Tick> out(kBatch);
   RejectCounters counters;
   size_t i = 0;
@@ -272,10 +279,10 @@ void BM_DecodeBatch256_Ours(benchmark::State& state) {
     state.SkipWithError("rejections");
   state.SetItemsProcessed(state.iterations() * kBatch);
 }
-BENCHMARK(BM_DecodeBatch256_Ours);
+BENCHMARK(BM_DecodeBatch256_Ours)->ArgName("short")->Arg(kMixed)->Arg(kShort);
 
 void BM_DecodeBatch256_Simdjson(benchmark::State& state) {
-  const Corpus& c = TheCorpus();
+  const Corpus& c = TheCorpus(static_cast<int>(state.range(0)));
   SimdjsonTickDecoder d;
   std::vector<Tick> out(kBatch);
   size_t i = 0;
@@ -291,7 +298,7 @@ void BM_DecodeBatch256_Simdjson(benchmark::State& state) {
     state.SkipWithError("rejections");
   state.SetItemsProcessed(state.iterations() * kBatch);
 }
-BENCHMARK(BM_DecodeBatch256_Simdjson);
+BENCHMARK(BM_DecodeBatch256_Simdjson)->ArgName("short")->Arg(kMixed)->Arg(kShort);
 
 // An update as the engine publishes it with the default configuration
 // (horizons 1, 5, 20; levels 0.99, 0.975), full-precision values.
