@@ -11,6 +11,7 @@
 #include <vector>
 
 #include "aftershock/update_codec.h"
+#include "aftershock/update_csv.h"
 
 // ---- Allocation counter ------------------------------------------------------
 // Replaces the global operator new for this test binary; allocations are
@@ -407,7 +408,7 @@ TEST_CASE("decoding 10,000 messages does not allocate", "[wire][alloc]") {
   CHECK(probe_count >= 1);
 }
 
-TEST_CASE("update encoding does not allocate once the buffer has capacity", "[wire][alloc]") {
+TEST_CASE("update encoding (JSON, binary, CSV row) does not allocate once the buffer has capacity", "[wire][alloc]") {
   BarUpdate u;
   u.symbol.assign("ALDER.X");
   u.t_ns = 123;
@@ -425,11 +426,16 @@ TEST_CASE("update encoding does not allocate once the buffer has capacity", "[wi
   out.reserve(1024);
   std::string bin;
   bin.reserve(1024);
+  std::string csv;
+  csv.reserve(1024);
   StartCounting();
   bool ok = true;
   for (int i = 0; i < 10000; ++i) {
     u.z = i * 0.001;
-    ok = ok && EncodeUpdateJson(u, &out).ok() && EncodeUpdateBinary(u, &bin).ok();
+    u.t_ns = 1772443860000000000 + i * 250000000LL;  // with and without fractional seconds
+    csv.clear();
+    ok = ok && EncodeUpdateJson(u, &out).ok() && EncodeUpdateBinary(u, &bin).ok() &&
+         AppendUpdateCsvRow(u, &csv).ok();
   }
   const long allocations = StopCounting();
   CHECK(ok);
