@@ -98,8 +98,7 @@ class SimdjsonTickDecoder {
 
   // Returns the good ticks written to out; *rejected counts the others (a
   // syntax error rejects the whole message as one).
-  int Decode(absl::string_view frame, absl::string_view body, absl::Span<Tick> out,
-             int* rejected) {
+  int Decode(absl::string_view frame, absl::string_view body, absl::Span<Tick> out, int* rejected) {
     *rejected = 0;
     if (body.size() + simdjson::SIMDJSON_PADDING > capacity_) return Reject(rejected);
     std::memcpy(buf_.get(), body.data(), body.size());
@@ -231,8 +230,9 @@ void BM_DecodeSingle_Ours(benchmark::State& state) {
   size_t i = 0;
   int64_t good = 0;
   for (auto _ : state) {
-    const DecodeResult r = DecodeTicks(c.topics[i], c.singles[i], WireEncoding::kJson,
-                                       kDefaultMaxMessageBytes, absl::Span<Tick>(out, 1), &counters);
+    const DecodeResult r =
+        DecodeTicks(c.topics[i], c.singles[i], WireEncoding::kJson, kDefaultMaxMessageBytes,
+                    absl::Span<Tick>(out, 1), &counters);
     good += r.n_ticks;
     benchmark::DoNotOptimize(out[0].value);
     if (++i == c.singles.size()) i = 0;

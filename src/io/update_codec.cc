@@ -78,9 +78,7 @@ inline char* Put(char* p, const char (&lit)[N]) {
   return p + N - 1;
 }
 
-inline char* PutDouble(char* p, double v) {
-  return std::to_chars(p, p + kMaxDoubleChars, v).ptr;
-}
+inline char* PutDouble(char* p, double v) { return std::to_chars(p, p + kMaxDoubleChars, v).ptr; }
 
 template <typename T>
 inline char* PutInt(char* p, T v) {

@@ -368,9 +368,9 @@ bool ParseTickObject(Scanner* sc, absl::string_view frame_symbol, Tick* tick,
       bool esc = false;
       if (!sc->OneByteKey(&key) && !sc->String(&key, &esc)) return false;
       if (!sc->Expect(':')) return false;
-      const bool known = !esc && key.size() == 1 &&
-                         (key[0] == 't' || key[0] == 'p' || key[0] == 'r' || key[0] == 'v' ||
-                          key[0] == 's');
+      const bool known =
+          !esc && key.size() == 1 &&
+          (key[0] == 't' || key[0] == 'p' || key[0] == 'r' || key[0] == 'v' || key[0] == 's');
       if (!known) {
         if (!sc->SkipValue(0)) return false;
         mark(RejectReason::kUnknownField);

@@ -236,11 +236,11 @@ std::string ReferenceJson(const BarUpdate& u) {
     char b[32];
     return std::string(b, std::to_chars(b, b + sizeof(b), v).ptr);
   };
-  std::string j = "{\"s\":\"" + std::string(u.symbol.view()) + "\",\"t\":" +
-                  std::to_string(u.t_ns) + ",\"r\":" + num(u.r) + ",\"mu\":" + num(u.mu) +
-                  ",\"eps\":" + num(u.eps) + ",\"var\":" + num(u.var) + ",\"z\":" + num(u.z) +
-                  ",\"var_next\":" + num(u.var_next) + ",\"vol_ann\":" + num(u.vol_ann) +
-                  ",\"var_h\":{";
+  std::string j = "{\"s\":\"" + std::string(u.symbol.view()) +
+                  "\",\"t\":" + std::to_string(u.t_ns) + ",\"r\":" + num(u.r) +
+                  ",\"mu\":" + num(u.mu) + ",\"eps\":" + num(u.eps) + ",\"var\":" + num(u.var) +
+                  ",\"z\":" + num(u.z) + ",\"var_next\":" + num(u.var_next) +
+                  ",\"vol_ann\":" + num(u.vol_ann) + ",\"var_h\":{";
   for (int i = 0; i < u.n_horizons; ++i) {
     j += (i ? ",\"" : "\"") + std::to_string(u.horizons[i]) + "\":" + num(u.var_h[i]);
   }

@@ -8,7 +8,6 @@
 #include <vector>
 
 #include "absl/time/time.h"
-
 #include "aftershock/update_codec.h"
 #include "support/test_support.h"
 

@@ -408,7 +408,8 @@ TEST_CASE("decoding 10,000 messages does not allocate", "[wire][alloc]") {
   CHECK(probe_count >= 1);
 }
 
-TEST_CASE("update encoding (JSON, binary, CSV row) does not allocate once the buffer has capacity", "[wire][alloc]") {
+TEST_CASE("update encoding (JSON, binary, CSV row) does not allocate once the buffer has capacity",
+          "[wire][alloc]") {
   BarUpdate u;
   u.symbol.assign("ALDER.X");
   u.t_ns = 123;
