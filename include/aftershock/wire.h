@@ -23,6 +23,8 @@
 //   * A repeated key, or both "p" and "r", is malformed_json for that record.
 //   * NaN / Infinity / -Infinity tokens, and numbers that overflow a double,
 //     are non_finite (not malformed_json), so a publisher bug is named.
+//   * Numbers decode to the correctly rounded double (as strtod); one that
+//     underflows is a zero of its sign.
 //   * A syntax error anywhere rejects the WHOLE message (malformed_json,
 //     counted once): after a syntax error record boundaries are not reliable.
 //   * Semantic errors (bad_symbol, non_finite, non_positive_price,

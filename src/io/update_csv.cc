@@ -7,7 +7,6 @@
 
 #include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
-#include "absl/time/time.h"
 #include "aftershock/update_codec.h"
 
 namespace aftershock {
@@ -27,6 +26,79 @@ std::string LevelKey(double level) {
   std::string s;
   AppendDouble(level, &s);
   return s;
+}
+
+// Days since 1970-01-01 to the proleptic Gregorian civil date: the
+// days-to-civil algorithm of H. Hinnant, "chrono-Compatible Low-Level Date
+// Algorithms" (eras of 400 years, March-based years).
+void CivilFromDays(int64_t z, int64_t* y, int* m, int* d) {
+  z += 719468;
+  const int64_t era = (z >= 0 ? z : z - 146096) / 146097;
+  const int64_t doe = z - era * 146097;                                       // [0, 146096]
+  const int64_t yoe = (doe - doe / 1460 + doe / 36524 - doe / 146096) / 365;  // [0, 399]
+  const int64_t doy = doe - (365 * yoe + yoe / 4 - yoe / 100);                // [0, 365]
+  const int64_t mp = (5 * doy + 2) / 153;                                     // [0, 11]
+  *d = static_cast<int>(doy - (153 * mp + 2) / 5 + 1);
+  *m = static_cast<int>(mp < 10 ? mp + 3 : mp - 9);
+  *y = yoe + era * 400 + (*m <= 2 ? 1 : 0);
+}
+
+char* TwoDigits(char* p, int v) {
+  p[0] = static_cast<char>('0' + v / 10);
+  p[1] = static_cast<char>('0' + v % 10);
+  return p + 2;
+}
+
+// t_ns as ISO-8601 UTC, YYYY-MM-DDTHH:MM:SS[.fraction]Z with the fraction's
+// trailing zeros dropped (absl's "%Y-%m-%dT%H:%M:%E*SZ", which this replaced
+// on the per-row path: it returns a new string per call). Every int64 time
+// falls in the years 1677..2262, so the year always has four digits.
+void AppendUtcTime(int64_t t_ns, std::string* out) {
+  constexpr int64_t kNs = 1000000000;
+  int64_t secs = t_ns / kNs;
+  int64_t nanos = t_ns % kNs;
+  if (nanos < 0) {  // floor, not truncation, before the epoch
+    nanos += kNs;
+    --secs;
+  }
+  int64_t days = secs / 86400;
+  int64_t sod = secs % 86400;
+  if (sod < 0) {
+    sod += 86400;
+    --days;
+  }
+  int64_t year;
+  int month, day;
+  CivilFromDays(days, &year, &month, &day);
+  char buf[40];
+  char* p = buf;
+  const int y = static_cast<int>(year);
+  p = TwoDigits(TwoDigits(p, y / 100), y % 100);
+  *p++ = '-';
+  p = TwoDigits(p, month);
+  *p++ = '-';
+  p = TwoDigits(p, day);
+  *p++ = 'T';
+  p = TwoDigits(p, static_cast<int>(sod / 3600));
+  *p++ = ':';
+  p = TwoDigits(p, static_cast<int>(sod / 60 % 60));
+  *p++ = ':';
+  p = TwoDigits(p, static_cast<int>(sod % 60));
+  if (nanos != 0) {
+    *p++ = '.';
+    int digits = 9;
+    while (nanos % 10 == 0) {
+      nanos /= 10;
+      --digits;
+    }
+    for (int i = digits - 1; i >= 0; --i) {
+      p[i] = static_cast<char>('0' + nanos % 10);
+      nanos /= 10;
+    }
+    p += digits;
+  }
+  *p++ = 'Z';
+  out->append(buf, static_cast<size_t>(p - buf));
 }
 
 void AppendField(absl::string_view s, std::string* out) {
@@ -63,8 +135,7 @@ absl::Status AppendUpdateCsvRow(const BarUpdate& u, std::string* out) {
   }
   AppendField(u.symbol.view(), out);
   out->push_back(',');
-  out->append(
-      absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(u.t_ns), absl::UTCTimeZone()));
+  AppendUtcTime(u.t_ns, out);
   for (double v : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) {
     out->push_back(',');
     AppendDouble(v, out);
@@ -81,7 +152,10 @@ absl::Status AppendUpdateCsvRow(const BarUpdate& u, std::string* out) {
   }
   out->push_back(',');
   AppendDouble(u.scale, out);
-  absl::StrAppend(out, ",", u.ver, ",");
+  out->push_back(',');
+  char ver[16];
+  out->append(ver, std::to_chars(ver, ver + sizeof(ver), u.ver).ptr);
+  out->push_back(',');
   bool first = true;
   for (int bit = 0; bit < kNumUpdateFlags; ++bit) {
     if (!(u.flags & (1u << bit))) continue;

@@ -10,10 +10,41 @@ namespace {
 
 constexpr int kMaxSkipDepth = 16;  // nesting allowed inside a skipped unknown value
 
-bool IsSymbolChar(char c) {
-  return (c >= 'A' && c <= 'Z') || (c >= 'a' && c <= 'z') || (c >= '0' && c <= '9') || c == '.' ||
-         c == '_' || c == ':' || c == '-';
+// Byte classes, one table lookup per byte on the per-tick path.
+enum : uint8_t {
+  kSymbolByte = 1,  // [A-Za-z0-9._:-]
+  kPlainByte = 2,   // inside a JSON string without special meaning: >= 0x20, not '"' or '\\'
+  kDigitByte = 4,   // [0-9]
+};
+struct ByteClasses {
+  uint8_t of[256] = {};
+  constexpr ByteClasses() {
+    for (int c = 0; c < 256; ++c) {
+      const bool symbol = (c >= 'A' && c <= 'Z') || (c >= 'a' && c <= 'z') ||
+                          (c >= '0' && c <= '9') || c == '.' || c == '_' || c == ':' || c == '-';
+      of[c] = static_cast<uint8_t>((symbol ? kSymbolByte : 0) |
+                                   (c >= 0x20 && c != '"' && c != '\\' ? kPlainByte : 0) |
+                                   (c >= '0' && c <= '9' ? kDigitByte : 0));
+    }
+  }
+};
+constexpr ByteClasses kByteClasses;
+
+inline bool Is(char c, uint8_t cls) {
+  return (kByteClasses.of[static_cast<unsigned char>(c)] & cls) != 0;
 }
+
+// A scanned JSON number: the token and its decimal value w * 10^q, exact
+// while digits <= 19 (w is meaningless past that).
+struct Number {
+  absl::string_view tok;
+  bool non_finite = false;  // NaN, Infinity or -Infinity (not JSON; named as non_finite)
+  bool is_integer = true;   // no fraction and no exponent
+  bool negative = false;    // a leading '-'
+  uint64_t w = 0;           // the significant digits, leading zeros included
+  int digits = 0;           // how many digits w holds
+  int q = 0;                // decimal exponent: fraction digits subtracted, exponent added
+};
 
 // ---- Strict JSON scanner for the fixed tick schema ---------------------------
 // The scanner works on [p, end) and never allocates. Any syntax error sets
@@ -57,6 +88,10 @@ class Scanner {
     const char* start = p_;
     *escaped = false;
     while (p_ < end_) {
+      if (Is(*p_, kPlainByte)) {  // the common case: one lookup per byte
+        ++p_;
+        continue;
+      }
       const unsigned char c = static_cast<unsigned char>(*p_);
       if (c == '"') {
         *raw = absl::string_view(start, static_cast<size_t>(p_ - start));
@@ -64,22 +99,21 @@ class Scanner {
         return true;
       }
       if (c < 0x20) break;
-      if (c == '\\') {
-        *escaped = true;
-        ++p_;
-        if (p_ == end_) break;
-        const char e = *p_;
-        if (e == 'u') {
-          for (int i = 0; i < 4; ++i) {
-            ++p_;
-            if (p_ == end_ || !std::isxdigit(static_cast<unsigned char>(*p_))) {
-              Fail();
-              return false;
-            }
+      // c == '\\'
+      *escaped = true;
+      ++p_;
+      if (p_ == end_) break;
+      const char e = *p_;
+      if (e == 'u') {
+        for (int i = 0; i < 4; ++i) {
+          ++p_;
+          if (p_ == end_ || !std::isxdigit(static_cast<unsigned char>(*p_))) {
+            Fail();
+            return false;
           }
-        } else if (std::strchr("\"\\/bfnrt", e) == nullptr || e == '\0') {
-          break;
         }
+      } else if (!IsEscapeLetter(e)) {
+        break;
       }
       ++p_;
     }
@@ -87,42 +121,80 @@ class Scanner {
     return false;
   }
 
-  // Number token per the JSON grammar. *is_integer is false when it has a
-  // fraction or an exponent. Also recognizes NaN/Infinity/-Infinity, which
-  // are not JSON but are reported as non-finite values (*non_finite).
-  bool NumberToken(absl::string_view* tok, bool* is_integer, bool* non_finite) {
+  // The schema's keys are one plain byte: "t", "p", ... Consumes such a
+  // string (after whitespace) and returns true; otherwise consumes nothing
+  // (String then reads the key, with the same result for these bytes).
+  bool OneByteKey(absl::string_view* key) {
     SkipWs();
-    *non_finite = false;
-    *is_integer = true;
-    const char* start = p_;
-    if (MatchWord("NaN") || MatchWord("Infinity") || MatchWord("-Infinity")) {
-      *non_finite = true;
-      *tok = absl::string_view(start, static_cast<size_t>(p_ - start));
+    if (end_ - p_ >= 3 && p_[0] == '"' && p_[2] == '"' && Is(p_[1], kPlainByte)) {
+      *key = absl::string_view(p_ + 1, 1);
+      p_ += 3;
       return true;
     }
-    if (p_ < end_ && *p_ == '-') ++p_;
+    return false;
+  }
+
+  // Number token per the JSON grammar, read once: the token and, for the
+  // exact fast path of ParseDouble and for integer times, its decimal
+  // significand and exponent. Also recognizes NaN/Infinity/-Infinity, which
+  // are not JSON but are reported as non-finite values.
+  bool NumberToken(Number* n) {
+    SkipWs();
+    n->non_finite = false;
+    n->is_integer = true;
+    n->negative = false;
+    n->w = 0;
+    n->digits = 0;
+    n->q = 0;
+    const char* start = p_;
+    if (p_ < end_ && (*p_ == 'N' || *p_ == 'I' || (*p_ == '-' && end_ - p_ > 1 && p_[1] == 'I')) &&
+        (MatchWord("NaN") || MatchWord("Infinity") || MatchWord("-Infinity"))) {
+      n->non_finite = true;
+      n->tok = absl::string_view(start, static_cast<size_t>(p_ - start));
+      return true;
+    }
+    if (p_ < end_ && *p_ == '-') {
+      n->negative = true;
+      ++p_;
+    }
     if (p_ == end_) return FailFalse();
+    // Digits accumulate into w; past 19 of them w may wrap, and `digits` says
+    // so (consumers check it before using w).
+    uint64_t w = 0;
+    int digits = 0;
     if (*p_ == '0') {
       ++p_;
+      digits = 1;
     } else if (*p_ >= '1' && *p_ <= '9') {
-      while (p_ < end_ && IsDigit(*p_)) ++p_;
+      digits = Digits(&w);
     } else {
       return FailFalse();
     }
+    int q = 0;
     if (p_ < end_ && *p_ == '.') {
-      *is_integer = false;
+      n->is_integer = false;
       ++p_;
       if (p_ == end_ || !IsDigit(*p_)) return FailFalse();
-      while (p_ < end_ && IsDigit(*p_)) ++p_;
+      const int fraction = Digits(&w);
+      digits += fraction;
+      q -= fraction;
     }
     if (p_ < end_ && (*p_ == 'e' || *p_ == 'E')) {
-      *is_integer = false;
+      n->is_integer = false;
       ++p_;
-      if (p_ < end_ && (*p_ == '+' || *p_ == '-')) ++p_;
+      bool neg_exp = false;
+      if (p_ < end_ && (*p_ == '+' || *p_ == '-')) neg_exp = *p_++ == '-';
       if (p_ == end_ || !IsDigit(*p_)) return FailFalse();
-      while (p_ < end_ && IsDigit(*p_)) ++p_;
+      int e = 0;
+      for (; p_ < end_ && IsDigit(*p_); ++p_) {
+        if (e < 100000) e = e * 10 + static_cast<int>(DigitValue(*p_));  // saturates
+      }
+      q += neg_exp ? -e : e;
     }
-    *tok = absl::string_view(start, static_cast<size_t>(p_ - start));
+    n->tok = absl::string_view(start, static_cast<size_t>(p_ - start));
+    n->w = w;
+    n->digits = digits;
+    n->q = q;
     return true;
   }
 
@@ -154,13 +226,68 @@ class Scanner {
       return Expect(']');
     }
     if (MatchWord("true") || MatchWord("false") || MatchWord("null")) return true;
-    absl::string_view tok;
-    bool is_int, nf;
-    return NumberToken(&tok, &is_int, &nf);
+    Number n;
+    return NumberToken(&n);
   }
 
  private:
-  static bool IsDigit(char c) { return c >= '0' && c <= '9'; }
+  static bool IsDigit(char c) { return Is(c, kDigitByte); }
+  static uint64_t DigitValue(char c) { return static_cast<uint64_t>(c - '0'); }
+
+  // Consumes a run of digits, appending them to *w (which wraps past 19
+  // digits in all; callers count), and returns how many there were. Eight at
+  // a time where eight bytes remain: a time stamp has 19 digits, and one
+  // multiply-add per digit is a chain of dependent multiplications.
+  int Digits(uint64_t* w) {
+    const char* start = p_;
+    uint64_t v = *w;
+    uint64_t eight;
+    while (end_ - p_ >= 8 && EightDigits(p_, &eight)) {
+      v = v * 100000000 + eight;
+      p_ += 8;
+    }
+    for (; p_ < end_ && IsDigit(*p_); ++p_) v = v * 10 + DigitValue(*p_);
+    *w = v;
+    return static_cast<int>(p_ - start);
+  }
+
+  // True when the 8 bytes at p are all ASCII digits; then *value is their
+  // decimal value. SWAR on one little-endian 64-bit load (the supported
+  // targets are little-endian): the digit test checks that every byte's high
+  // nibble is 3 and stays 3 after adding 6 (low nibble <= 9); the value
+  // combines neighbouring digits into 2-, 4- and then 8-digit groups.
+  static bool EightDigits(const char* p, uint64_t* value) {
+    uint64_t v;
+    std::memcpy(&v, p, 8);
+    constexpr uint64_t kHigh = 0xF0F0F0F0F0F0F0F0ull;
+    if (((v & kHigh) | (((v + 0x0606060606060606ull) & kHigh) >> 4)) != 0x3333333333333333ull) {
+      return false;
+    }
+    v -= 0x3030303030303030ull;  // bytes 0..9, first digit in the lowest byte
+    // Pairs: byte 2k+1 of the result = 10 * d[2k] + d[2k+1] (in 16-bit lanes).
+    v = (v * 10 + (v >> 8)) & 0x00FF00FF00FF00FFull;
+    // Quads: 100 * pair[0] + pair[1] in 32-bit lanes.
+    v = (v * 100 + (v >> 16)) & 0x0000FFFF0000FFFFull;
+    // The eight digits: 10000 * quad[0] + quad[1].
+    v = (v * 10000 + (v >> 32)) & 0xFFFFFFFFull;
+    *value = v;
+    return true;
+  }
+  static bool IsEscapeLetter(char e) {
+    switch (e) {
+      case '"':
+      case '\\':
+      case '/':
+      case 'b':
+      case 'f':
+      case 'n':
+      case 'r':
+      case 't':
+        return true;
+      default:
+        return false;
+    }
+  }
   bool FailFalse() {
     Fail();
     return false;
@@ -179,7 +306,30 @@ class Scanner {
   bool syntax_error_ = false;
 };
 
-bool ParseDouble(absl::string_view tok, double* out) {
+// Exact powers of ten: every 10^k with k <= 22 is a double without rounding.
+constexpr double kExactPow10[] = {1e0,  1e1,  1e2,  1e3,  1e4,  1e5,  1e6,  1e7,
+                                  1e8,  1e9,  1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
+                                  1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22};
+
+// The exact fast path of decimal-to-double conversion (Clinger, "How to read
+// floating point numbers accurately", PLDI 1990): when the decimal significand
+// w fits in 53 bits and the decimal exponent |q| <= 22, both w and 10^|q| are
+// doubles exactly and one IEEE multiplication or division, correctly rounded,
+// gives the correctly rounded value of w * 10^q: the same double from_chars
+// returns. Ticks are mostly short decimals (prices, returns of a few digits).
+// False when the path does not apply.
+bool ParseDoubleFast(const Number& n, double* out) {
+  if (n.digits > 19 || n.w > (uint64_t{1} << 53) || n.q < -22 || n.q > 22) return false;
+  const double m = static_cast<double>(n.w);
+  const double v = n.q < 0 ? m / kExactPow10[-n.q] : m * kExactPow10[n.q];
+  *out = n.negative ? -v : v;
+  return true;
+}
+
+// A finite double from a non-NaN/Infinity number token; false on overflow.
+bool ParseDouble(const Number& n, double* out) {
+  if (ParseDoubleFast(n, out)) return true;
+  const absl::string_view tok = n.tok;
   const auto res = std::from_chars(tok.data(), tok.data() + tok.size(), *out);
   if (res.ec == std::errc::result_out_of_range) {
     // Overflow is non-finite; underflow to a subnormal/zero is a finite value.
@@ -187,7 +337,7 @@ bool ParseDouble(absl::string_view tok, double* out) {
     const bool neg_exp =
         tok.find("e-") != absl::string_view::npos || tok.find("E-") != absl::string_view::npos;
     if (neg_exp) {
-      *out = 0.0;
+      *out = tok[0] == '-' ? -0.0 : 0.0;  // keeps the sign, as strtod does
       return true;
     }
     return false;
@@ -215,9 +365,12 @@ bool ParseTickObject(Scanner* sc, absl::string_view frame_symbol, Tick* tick,
   if (!sc->Consume('}')) {
     do {
       absl::string_view key;
-      bool esc;
-      if (!sc->String(&key, &esc) || !sc->Expect(':')) return false;
-      const bool known = !esc && key.size() == 1 && std::strchr("tprvs", key[0]) != nullptr;
+      bool esc = false;
+      if (!sc->OneByteKey(&key) && !sc->String(&key, &esc)) return false;
+      if (!sc->Expect(':')) return false;
+      const bool known =
+          !esc && key.size() == 1 &&
+          (key[0] == 't' || key[0] == 'p' || key[0] == 'r' || key[0] == 'v' || key[0] == 's');
       if (!known) {
         if (!sc->SkipValue(0)) return false;
         mark(RejectReason::kUnknownField);
@@ -255,25 +408,25 @@ bool ParseTickObject(Scanner* sc, absl::string_view frame_symbol, Tick* tick,
           have_value = true;
         continue;
       }
-      absl::string_view tok;
-      bool is_int, non_finite;
-      if (!sc->NumberToken(&tok, &is_int, &non_finite)) return false;
+      Number num;
+      if (!sc->NumberToken(&num)) return false;
+      const bool non_finite = num.non_finite;
       if (k == 't') {
         if (have_t) mark(RejectReason::kMalformedJson);
         have_t = true;
-        int64_t t = 0;
-        const auto res = std::from_chars(tok.data(), tok.data() + tok.size(), t);
-        if (non_finite || !is_int || res.ec != std::errc() || res.ptr != tok.data() + tok.size() ||
-            t < 0) {
+        // An integer in [0, 2^63): at most 19 digits (no wrap in w); "-0" is 0.
+        if (non_finite || !num.is_integer || num.digits > 19 ||
+            num.w > static_cast<uint64_t>(std::numeric_limits<int64_t>::max()) ||
+            (num.negative && num.w != 0)) {
           mark(RejectReason::kBadTime);
         } else {
-          tick->t_ns = t;
+          tick->t_ns = static_cast<int64_t>(num.w);
         }
       } else if (k == 'v') {
         if (have_v) mark(RejectReason::kMalformedJson);
         have_v = true;
         double v = 0;
-        if (non_finite || !ParseDouble(tok, &v)) {
+        if (non_finite || !ParseDouble(num, &v)) {
           mark(RejectReason::kNonFinite);
         } else if (v < 0) {
           mark(RejectReason::kBadSize);
@@ -284,7 +437,7 @@ bool ParseTickObject(Scanner* sc, absl::string_view frame_symbol, Tick* tick,
         if (have_value) mark(RejectReason::kMalformedJson);
         have_value = true;
         double v = 0;
-        if (non_finite || !ParseDouble(tok, &v)) {
+        if (non_finite || !ParseDouble(num, &v)) {
           mark(RejectReason::kNonFinite);
         } else if (k == 'p' && v <= 0) {
           mark(RejectReason::kNonPositivePrice);
@@ -505,7 +658,7 @@ uint64_t RejectCounters::Total() const {
 bool IsValidSymbol(absl::string_view s) {
   if (s.empty() || s.size() > static_cast<size_t>(kMaxSymbolLength)) return false;
   for (char c : s) {
-    if (!IsSymbolChar(c)) return false;
+    if (!Is(c, kSymbolByte)) return false;
   }
   return true;
 }

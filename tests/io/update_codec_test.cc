@@ -1,10 +1,16 @@
 #include "aftershock/update_codec.h"
 
 #include <catch2/catch.hpp>
+#include <charconv>
 #include <cmath>
+#include <cstdint>
+#include <cstdlib>
+#include <cstring>
 #include <limits>
 #include <nlohmann/json.hpp>
+#include <random>
 #include <string>
+#include <vector>
 
 namespace aftershock {
 namespace {
@@ -136,6 +142,192 @@ TEST_CASE("non-finite fields are never encoded", "[update_codec]") {
   u = Sample();
   u.es[1] = -std::numeric_limits<double>::infinity();
   CHECK(!EncodeUpdateBinary(u, &out).ok());
+}
+
+uint64_t Bits(double v) {
+  uint64_t b;
+  std::memcpy(&b, &v, sizeof(b));
+  return b;
+}
+
+double FromBits(uint64_t b) {
+  double v;
+  std::memcpy(&v, &b, sizeof(v));
+  return v;
+}
+
+// Finite doubles over the whole range: random bit patterns (every exponent,
+// both signs), subnormals, values near 0, 1 and the extremes, and the cases
+// that stress a shortest-form writer. Deterministic (fixed seed).
+std::vector<double> AwkwardDoubles(int n_random) {
+  std::vector<double> v = {0.0,
+                           -0.0,
+                           std::numeric_limits<double>::denorm_min(),
+                           -std::numeric_limits<double>::denorm_min(),
+                           FromBits(0x000FFFFFFFFFFFFFull),  // largest subnormal
+                           std::numeric_limits<double>::min(),
+                           std::numeric_limits<double>::max(),
+                           -std::numeric_limits<double>::max(),
+                           std::numeric_limits<double>::epsilon(),
+                           1.0,
+                           -1.0,
+                           0.1,
+                           0.2,
+                           0.3,
+                           1.0 / 3.0,
+                           2.0 / 3.0,
+                           1e21,
+                           1e22,
+                           1e23,
+                           123456789012345678.0,
+                           9007199254740993.0,  // 2^53 + 1 (rounds to 2^53)
+                           5e-324,
+                           1.7976931348623157e308,
+                           2.2250738585072011e-308,
+                           100000.0,
+                           0.99,
+                           0.975,
+                           1e-6,
+                           1.2e-6};
+  std::mt19937_64 g(20261203);
+  std::normal_distribution<double> nd(0, 1);
+  while (static_cast<int>(v.size()) < n_random) {
+    const int kind = static_cast<int>(g() % 4);
+    double d = 0;
+    if (kind == 0) {
+      d = FromBits(g());  // any exponent
+    } else if (kind == 1) {
+      d = FromBits(g() & 0x800FFFFFFFFFFFFFull);  // subnormal (or zero)
+    } else if (kind == 2) {
+      d = 1e-6 * std::exp(nd(g));  // variance-like
+    } else {
+      d = nd(g) * std::pow(10.0, static_cast<double>(static_cast<int>(g() % 41) - 20));
+    }
+    if (std::isfinite(d)) v.push_back(d);
+  }
+  return v;
+}
+
+// Every number in the encoded update, in text order, read back with strtod:
+// a number starts after ':' or after the quote that opens a key (the
+// horizon and level keys). Symbol and flag strings start with letters.
+std::vector<double> NumbersByStrtod(const std::string& json) {
+  std::vector<double> out;
+  const char* s = json.c_str();
+  for (size_t i = 1; i < json.size(); ++i) {
+    const char c = s[i];
+    const bool starts = c == '-' || (c >= '0' && c <= '9');
+    const bool after_colon = s[i - 1] == ':';
+    const bool key_open = s[i - 1] == '"' && i >= 2 && (s[i - 2] == '{' || s[i - 2] == ',');
+    if (!starts || !(after_colon || key_open)) continue;
+    char* end = nullptr;
+    out.push_back(std::strtod(s + i, &end));
+    REQUIRE(end > s + i);
+    REQUIRE((*end == ',' || *end == '}' || *end == '"'));
+    i = static_cast<size_t>(end - s) - 1;
+  }
+  return out;
+}
+
+// The text layout written out field by field with std::to_chars: the encoder
+// must produce these bytes exactly (the format is documented and published).
+std::string ReferenceJson(const BarUpdate& u) {
+  auto num = [](double v) {
+    char b[32];
+    return std::string(b, std::to_chars(b, b + sizeof(b), v).ptr);
+  };
+  std::string j = "{\"s\":\"" + std::string(u.symbol.view()) +
+                  "\",\"t\":" + std::to_string(u.t_ns) + ",\"r\":" + num(u.r) +
+                  ",\"mu\":" + num(u.mu) + ",\"eps\":" + num(u.eps) + ",\"var\":" + num(u.var) +
+                  ",\"z\":" + num(u.z) + ",\"var_next\":" + num(u.var_next) +
+                  ",\"vol_ann\":" + num(u.vol_ann) + ",\"var_h\":{";
+  for (int i = 0; i < u.n_horizons; ++i) {
+    j += (i ? ",\"" : "\"") + std::to_string(u.horizons[i]) + "\":" + num(u.var_h[i]);
+  }
+  j += "},\"value_at_risk\":{";
+  for (int i = 0; i < u.n_levels; ++i) {
+    j += (i ? ",\"" : "\"") + num(u.levels[i]) + "\":" + num(u.var_risk[i]);
+  }
+  j += "},\"es\":{";
+  for (int i = 0; i < u.n_levels; ++i) {
+    j += (i ? ",\"" : "\"") + num(u.levels[i]) + "\":" + num(u.es[i]);
+  }
+  j += "},\"scale\":" + num(u.scale) + ",\"ver\":" + std::to_string(u.ver) + ",\"flags\":[";
+  bool first = true;
+  for (int bit = 0; bit < kNumUpdateFlags; ++bit) {
+    if (!(u.flags & (1u << bit))) continue;
+    j += (first ? "\"" : ",\"") + std::string(FlagName(bit)) + "\"";
+    first = false;
+  }
+  return j + "]}";
+}
+
+TEST_CASE("JSON update doubles read back bit-equal with strtod", "[update_codec]") {
+  const std::vector<double> pool = AwkwardDoubles(60000);
+  BarUpdate u = Sample();
+  u.symbol.assign("ALDER.X");
+  u.t_ns = 1000;  // exactly representable, so strtod reads it back too
+  u.n_horizons = 3;
+  u.n_levels = 2;
+  u.flags = 0;
+  std::string out;
+  size_t k = 0;
+  auto next = [&] { return pool[k++ % pool.size()]; };
+  int checked = 0, level_reuse = 0, one_bar_same = 0;
+  for (int n = 0; n < 3500; ++n) {
+    for (double* d : {&u.r, &u.mu, &u.eps, &u.var, &u.z, &u.var_next, &u.vol_ann, &u.scale}) {
+      *d = next();
+    }
+    for (int i = 0; i < u.n_horizons; ++i) u.var_h[i] = next();
+    // The one-bar horizon often equals var_next exactly (the encoder reuses
+    // its text then); -0 against +0 must still be told apart.
+    if (n % 3 == 0) {
+      u.var_h[0] = u.var_next;
+      ++one_bar_same;
+    }
+    if (n % 7 == 1) {
+      u.var_next = -0.0;
+      u.var_h[0] = 0.0;
+    }
+    // Levels change now and then and otherwise repeat (the encoder keeps the
+    // last text of each); mu and scale likewise.
+    if (n % 4 == 0) {
+      for (int i = 0; i < u.n_levels; ++i) u.levels[i] = next();
+    } else {
+      ++level_reuse;
+    }
+    if (n % 5 == 0) u.mu = u.scale;
+    for (int i = 0; i < u.n_levels; ++i) {
+      u.var_risk[i] = next();
+      u.es[i] = next();
+    }
+    u.flags = static_cast<uint32_t>(n) & ((1u << kNumUpdateFlags) - 1);
+    REQUIRE(EncodeUpdateJson(u, &out).ok());
+    REQUIRE(out == ReferenceJson(u));
+    std::vector<double> want = {1000.0, u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann};
+    for (int i = 0; i < u.n_horizons; ++i) {
+      want.push_back(u.horizons[i]);
+      want.push_back(u.var_h[i]);
+    }
+    for (const double* values : {u.var_risk, u.es}) {
+      for (int i = 0; i < u.n_levels; ++i) {
+        want.push_back(u.levels[i]);
+        want.push_back(values[i]);
+      }
+    }
+    want.push_back(u.scale);
+    want.push_back(u.ver);
+    const std::vector<double> got = NumbersByStrtod(out);
+    REQUIRE(got.size() == want.size());
+    for (size_t i = 0; i < want.size(); ++i) {
+      INFO(out << " number " << i);
+      REQUIRE(Bits(got[i]) == Bits(want[i]));
+      ++checked;
+    }
+  }
+  CHECK(checked == 3500 * 24);
+  CHECK(level_reuse > 2000);
+  CHECK(one_bar_same > 1000);
 }
 
 TEST_CASE("update JSON decoder refuses unknown keys and flags", "[update_codec]") {

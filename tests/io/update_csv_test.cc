@@ -1,8 +1,13 @@
 #include "aftershock/update_csv.h"
 
 #include <catch2/catch.hpp>
+#include <cstdint>
+#include <limits>
+#include <random>
 #include <string>
+#include <vector>
 
+#include "absl/time/time.h"
 #include "aftershock/update_codec.h"
 #include "support/test_support.h"
 
@@ -65,6 +70,41 @@ TEST_CASE("CSV header and row: written out in full", "[update_csv]") {
   row = "kept";
   CHECK_FALSE(AppendUpdateCsvRow(bad, &row).ok());
   CHECK(row == "kept");
+}
+
+TEST_CASE("CSV time column: ISO-8601 UTC as absl formats it, over the whole int64 range",
+          "[update_csv]") {
+  // The writer formats the time itself (no string per row); absl::FormatTime
+  // with "%Y-%m-%dT%H:%M:%E*SZ" is the reference it must equal byte for byte.
+  std::mt19937_64 g(1303);
+  std::vector<int64_t> times = {0,
+                                1,
+                                -1,
+                                999999999,
+                                -1000000000,
+                                1772443860000000000,
+                                1772443860250000000,
+                                951782400000000000,   // 2000-02-29T00:00:00Z
+                                4107542399999999999,  // 2100-02-28T23:59:59.999999999Z
+                                std::numeric_limits<int64_t>::max(),
+                                std::numeric_limits<int64_t>::min()};
+  for (int i = 0; i < 20000; ++i) {
+    int64_t t = static_cast<int64_t>(g());
+    if (i % 3 == 0) t -= t % 1000000000;  // whole seconds
+    if (i % 3 == 1) t -= t % 1000;        // microseconds
+    times.push_back(t);
+  }
+  BarUpdate u = Sample();
+  std::string row;
+  for (int64_t t : times) {
+    u.t_ns = t;
+    row.clear();
+    REQUIRE(AppendUpdateCsvRow(u, &row).ok());
+    const std::string want =
+        absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(t), absl::UTCTimeZone());
+    INFO(t);
+    REQUIRE(row.substr(8, want.size() + 1) == want + ",");
+  }
 }
 
 TEST_CASE("CSV sink decodes binary updates and passes JSON on", "[update_csv]") {

@@ -6,10 +6,12 @@
 #include <cstring>
 #include <limits>
 #include <new>
+#include <random>
 #include <string>
 #include <vector>
 
 #include "aftershock/update_codec.h"
+#include "aftershock/update_csv.h"
 
 // ---- Allocation counter ------------------------------------------------------
 // Replaces the global operator new for this test binary; allocations are
@@ -126,6 +128,50 @@ TEST_CASE("JSON encoder round-trips every double exactly", "[wire]") {
     CHECK(out[0].t_ns == 42);
   }
   CHECK(c.Total() == 0);
+}
+
+TEST_CASE("JSON numbers decode to the double strtod gives, in every written form", "[wire]") {
+  // Decimal texts of every shape the grammar allows (sign, integer digits,
+  // fraction, exponent), short ones (the decoder's exact fast path) and long
+  // ones (its fallback), compared bit for bit with strtod of the same text.
+  std::mt19937_64 g(13);
+  auto digits = [&](int n, bool lead_nonzero) {
+    std::string d;
+    for (int i = 0; i < n; ++i) {
+      d.push_back(static_cast<char>('0' + (i == 0 && lead_nonzero ? 1 + g() % 9 : g() % 10)));
+    }
+    return d;
+  };
+  Tick out[1];
+  RejectCounters c;
+  int checked = 0, short_forms = 0;
+  for (int n = 0; n < 40000; ++n) {
+    const int int_digits = static_cast<int>(g() % 12);  // 0 = "0"
+    const int frac_digits = static_cast<int>(g() % 21);
+    std::string text = g() % 3 == 0 ? "-" : "";
+    text += int_digits == 0 ? "0" : digits(int_digits, true);
+    if (frac_digits > 0) text += "." + digits(frac_digits, false);
+    if (g() % 3 == 0) {
+      text += g() % 2 ? "e" : "E";
+      const int r = static_cast<int>(g() % 3);
+      text += r == 0 ? "" : r == 1 ? "+" : "-";
+      text += std::to_string(g() % (g() % 4 == 0 ? 330 : 25));
+    }
+    const double want = std::strtod(text.c_str(), nullptr);
+    if (!std::isfinite(want)) continue;  // overflow is non_finite, tested elsewhere
+    const std::string body = "{\"t\":7,\"r\":" + text + "}";
+    INFO(body);
+    REQUIRE(DecodeTicks("ASPEN.Q", body, WireEncoding::kJson, kLimit, out, &c).n_ticks == 1);
+    uint64_t a, b;
+    std::memcpy(&a, &out[0].value, 8);
+    std::memcpy(&b, &want, 8);
+    REQUIRE(a == b);
+    ++checked;
+    if (int_digits + frac_digits <= 15) ++short_forms;
+  }
+  CHECK(c.Total() == 0);
+  CHECK(checked > 39000);
+  CHECK(short_forms > 10000);
 }
 
 TEST_CASE("each JSON rejection class is named", "[wire]") {
@@ -362,7 +408,8 @@ TEST_CASE("decoding 10,000 messages does not allocate", "[wire][alloc]") {
   CHECK(probe_count >= 1);
 }
 
-TEST_CASE("update encoding does not allocate once the buffer has capacity", "[wire][alloc]") {
+TEST_CASE("update encoding (JSON, binary, CSV row) does not allocate once the buffer has capacity",
+          "[wire][alloc]") {
   BarUpdate u;
   u.symbol.assign("ALDER.X");
   u.t_ns = 123;
@@ -380,11 +427,16 @@ TEST_CASE("update encoding does not allocate once the buffer has capacity", "[wi
   out.reserve(1024);
   std::string bin;
   bin.reserve(1024);
+  std::string csv;
+  csv.reserve(1024);
   StartCounting();
   bool ok = true;
   for (int i = 0; i < 10000; ++i) {
     u.z = i * 0.001;
-    ok = ok && EncodeUpdateJson(u, &out).ok() && EncodeUpdateBinary(u, &bin).ok();
+    u.t_ns = 1772443860000000000 + i * 250000000LL;  // with and without fractional seconds
+    csv.clear();
+    ok = ok && EncodeUpdateJson(u, &out).ok() && EncodeUpdateBinary(u, &bin).ok() &&
+         AppendUpdateCsvRow(u, &csv).ok();
   }
   const long allocations = StopCounting();
   CHECK(ok);
