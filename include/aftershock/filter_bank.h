@@ -31,7 +31,9 @@
 #ifndef AFTERSHOCK_FILTER_BANK_H_
 #define AFTERSHOCK_FILTER_BANK_H_
 
+#include <cstddef>
 #include <cstdint>
+#include <utility>
 #include <vector>
 
 #include "absl/types/span.h"
@@ -110,6 +112,13 @@ class FilterBank {
   static constexpr int kColdS2 = kMaxGarchOrder - 1;
   static constexpr int kCold = kColdR + kColdEps + kColdE2 + kColdNeg + kColdS2;
 
+  // StepBatch on up to kChunk lanes, for NH horizons and NL risk levels (the
+  // bank's shape as compile-time counts: the output loops unroll).
+  template <int NH, int NL>
+  void StepChunk(const int* lanes, const double* r, int c, BarUpdate* out);
+  template <size_t... I>
+  static auto ChunkTable(std::index_sequence<I...>);
+
   // Lane state gathered into / scattered from a FilterState: only the hot
   // values (enough for a model with every order <= 1), or everything.
   void GatherHot(int lane, FilterState* s) const;
@@ -133,6 +142,10 @@ class FilterBank {
   std::vector<uint8_t> kind_;
   std::vector<uint32_t> version_;
   std::vector<double> coef_;
+  // Step/Advance of a model with every order <= 1 gather the hot values into
+  // it; its higher lags stay zero (such a step never reads or writes them),
+  // so it is never cleared.
+  FilterState scratch_;
 };
 
 }  // namespace aftershock

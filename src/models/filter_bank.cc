@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <array>
 #include <cstddef>
 
 #if defined(__SSE2__)
@@ -180,10 +181,9 @@ void FilterBank::Init(int lane, double variance) {
 void FilterBank::Advance(int lane, double r) {
   const FilterModel& m = *model_[lane];
   if (Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_)) {
-    FilterState s;
-    GatherHot(lane, &s);
-    AdvanceState(m, &s, r);
-    ScatterHot(lane, s);
+    GatherHot(lane, &scratch_);
+    AdvanceState(m, &scratch_, r);
+    ScatterHot(lane, scratch_);
   } else {
     FilterState s = Get(lane);
     AdvanceState(m, &s, r);
@@ -195,10 +195,9 @@ void FilterBank::Step(int lane, const FilterModel& m, double r, BarUpdate* out) 
   // Every order <= 1: the step (and a forecast recursion of a non-closed
   // table) reads and writes lag 0 only, so the hot values are the whole state.
   if (Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_)) {
-    FilterState s;
-    GatherHot(lane, &s);
-    FilterStep(m, &s, r, out);
-    ScatterHot(lane, s);
+    GatherHot(lane, &scratch_);
+    FilterStep(m, &scratch_, r, out);
+    ScatterHot(lane, scratch_);
   } else {
     FilterState s = Get(lane);
     FilterStep(m, &s, r, out);
@@ -206,121 +205,154 @@ void FilterBank::Step(int lane, const FilterModel& m, double r, BarUpdate* out) 
   }
 }
 
-void FilterBank::StepBatch(absl::Span<const int> lanes, absl::Span<const double> r,
-                           BarUpdate* out) {
-  const size_t n = lanes.size();
+template <int NH, int NL>
+void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* out) {
   // Per chunk: eps, the standardizing sd, next variance; then sd_next, z and
   // the unclamped scale from pass 2.
   alignas(16) double eps[kChunk], sd[kChunk], vn[kChunk], sdn[kChunk], z[kChunk], sc[kChunk];
+  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
+  // Column bases in registers (stores through them cannot move the vectors).
+  double* const r1 = r1_.data();
+  double* const eps1 = eps1_.data();
+  double* const nv = next_variance_.data();
+  double* const e21 = e2_1_.data();
+  double* const neg21 = neg2_1_.data();
+  double* const s21 = s2_1_.data();
+  double* const sdc = sd_next_.data();
+  double* const mn = mu_next_.data();
+  int64_t* const bars = bars_.data();
+  const uint8_t* const kinds = kind_.data();
+  const double* const coef = coef_.data();
+  bool fast[kChunk];
+  // Pass 1, per lane: Advance's recursions term by term (FilterModel::Advance:
+  // lag writes, then the variance and the mean forecast in its summation
+  // order), and the outputs that need no division or root.
+  for (int k = 0; k < c; ++k) {
+    const int l = lanes[k];
+    const uint8_t kind = kinds[l];
+    BarUpdate& o = out[k];
+    fast[k] = (kind & kFast) != 0;
+    if (!fast[k]) {
+      Step(l, *model_[l], r[k], &o);
+      eps[k] = 0.0;  // pass 2 computes on these harmlessly; pass 3 skips the lane
+      sd[k] = 1.0;
+      vn[k] = 1.0;
+      continue;
+    }
+    const double* row = coef + static_cast<size_t>(l) * kRow;
+    const double x = r[k];
+    const double mu = mn[l];
+    const double var = nv[l];
+    const double e = x - mu;
+    const double e2 = e * e;
+    if (kind & kAr) r1[l] = x;
+    if (kind & kMa) eps1[l] = e;
+    e21[l] = e2;
+    const double neg = e < 0.0 ? e2 : 0.0;
+    if (kind & kGamma) neg21[l] = neg;
+    s21[l] = var;
+    double v;
+    if (kind & kFlat) {
+      v = row[kOmega];
+    } else if (kind & kEwma) {
+      v = row[kLambda] * var + (1.0 - row[kLambda]) * e2;
+    } else {
+      v = row[kOmega];
+      if (kind & kAlpha) v += row[kAlphaC] * e2;
+      if (kind & kGamma) v += row[kGammaC] * neg;
+      if (kind & kBeta) v += row[kBetaC] * var;
+    }
+    nv[l] = v;
+    double m = row[kMu];
+    if (kind & kAr) m += row[kArC] * x;
+    if (kind & kMa) m += row[kMaC] * e;
+    mn[l] = m;
+    ++bars[l];
+    o.r = x;
+    o.mu = mu;
+    o.eps = e;
+    o.var = var;
+    o.var_next = v;
+    eps[k] = e;
+    sd[k] = sdc[l];
+    vn[k] = v;
+  }
+  // Pass 2, over the chunk: the root and the two divisions, two lanes per
+  // instruction where SSE2 is there (the divider is the step's bottleneck).
+#if defined(__SSE2__)
+  int cp = c;
+  if (cp & 1) {  // pad to pairs
+    eps[cp] = 0.0;
+    sd[cp] = 1.0;
+    vn[cp] = 1.0;
+    ++cp;
+  }
+  const __m128d num = _mm_set1_pd(scale_num_);
+  for (int k = 0; k < cp; k += 2) {
+    const __m128d s = _mm_sqrt_pd(_mm_load_pd(vn + k));
+    _mm_store_pd(sdn + k, s);
+    _mm_store_pd(z + k, _mm_div_pd(_mm_load_pd(eps + k), _mm_load_pd(sd + k)));
+    _mm_store_pd(sc + k, _mm_div_pd(num, s));
+  }
+#else
+  for (int k = 0; k < c; ++k) {
+    sdn[k] = std::sqrt(vn[k]);
+    z[k] = eps[k] / sd[k];
+    sc[k] = scale_num_ / sdn[k];
+  }
+#endif
+  // Pass 3, per lane: sd_next into the state, and the outputs from the
+  // next-bar forecasts (FilterStep's order: horizons, VaR/ES, scale).
+  for (int k = 0; k < c; ++k) {
+    if (!fast[k]) continue;
+    const int l = lanes[k];
+    const double* row = coef + static_cast<size_t>(l) * kRow;
+    const double s = sdn[k];
+    const double v = vn[k];
+    const double m = mn[l];
+    sdc[l] = s;
+    BarUpdate& o = out[k];
+    o.z = z[k];
+    o.vol_ann = s * sqrt_ppy_;
+    o.n_horizons = NH;
+    const double* sum_a = row + kRowHead;
+    const double* sum_b = sum_a + NH;
+#pragma GCC unroll 8
+    for (int i = 0; i < NH; ++i) {
+      o.horizons[i] = horizons_[i];
+      o.var_h[i] = sum_a[i] + sum_b[i] * v;
+    }
+    o.n_levels = NL;
+    const double* q = sum_b + NH;
+    const double* es = q + NL;
+#pragma GCC unroll 4
+    for (int i = 0; i < NL; ++i) {
+      o.levels[i] = levels_[i];
+      o.var_risk[i] = -(m + s * q[i]);
+      o.es[i] = s * es[i] - m;
+    }
+    o.scale = std::min(scale_cap_, sc[k]);
+    o.ver = version_[l];
+  }
+}
+
+template <size_t... I>
+auto FilterBank::ChunkTable(std::index_sequence<I...>) {
+  using Fn = void (FilterBank::*)(const int*, const double*, int, BarUpdate*);
+  return std::array<Fn, sizeof...(I)>{
+      &FilterBank::StepChunk<static_cast<int>(I / (kMaxRiskLevels + 1)),
+                             static_cast<int>(I % (kMaxRiskLevels + 1))>...};
+}
+
+void FilterBank::StepBatch(absl::Span<const int> lanes, absl::Span<const double> r,
+                           BarUpdate* out) {
+  static const auto table =
+      ChunkTable(std::make_index_sequence<(kMaxHorizons + 1) * (kMaxRiskLevels + 1)>());
+  const auto chunk = table[static_cast<size_t>(nh_ * (kMaxRiskLevels + 1) + nl_)];
+  const size_t n = lanes.size();
   for (size_t base = 0; base < n; base += kChunk) {
     const int c = static_cast<int>(std::min<size_t>(kChunk, n - base));
-    // Pass 1, per lane: Advance's recursions term by term (FilterModel::Advance:
-    // lag writes, then the variance and the mean forecast in its summation
-    // order), and the outputs that need no division or root.
-    for (int k = 0; k < c; ++k) {
-      const int l = lanes[base + k];
-      const uint8_t kind = kind_[l];
-      BarUpdate& o = out[base + k];
-      if (!(kind & kFast)) {
-        Step(l, *model_[l], r[base + k], &o);
-        eps[k] = 0.0;  // pass 2 computes on these harmlessly; pass 3 skips the lane
-        sd[k] = 1.0;
-        vn[k] = 1.0;
-        continue;
-      }
-      const double* row = &coef_[static_cast<size_t>(l) * row_];
-      const double x = r[base + k];
-      const double mu = mu_next_[l];
-      const double var = next_variance_[l];
-      const double e = x - mu;
-      const double e2 = e * e;
-      if (kind & kAr) r1_[l] = x;
-      if (kind & kMa) eps1_[l] = e;
-      e2_1_[l] = e2;
-      const double neg = e < 0.0 ? e2 : 0.0;
-      if (kind & kGamma) neg2_1_[l] = neg;
-      s2_1_[l] = var;
-      double v;
-      if (kind & kFlat) {
-        v = row[kOmega];
-      } else if (kind & kEwma) {
-        v = row[kLambda] * var + (1.0 - row[kLambda]) * e2;
-      } else {
-        v = row[kOmega];
-        if (kind & kAlpha) v += row[kAlphaC] * e2;
-        if (kind & kGamma) v += row[kGammaC] * neg;
-        if (kind & kBeta) v += row[kBetaC] * var;
-      }
-      next_variance_[l] = v;
-      double m = row[kMu];
-      if (kind & kAr) m += row[kArC] * x;
-      if (kind & kMa) m += row[kMaC] * e;
-      mu_next_[l] = m;
-      ++bars_[l];
-      o.r = x;
-      o.mu = mu;
-      o.eps = e;
-      o.var = var;
-      o.var_next = v;
-      eps[k] = e;
-      sd[k] = sd_next_[l];
-      vn[k] = v;
-    }
-    // Pass 2, over the chunk: the root and the two divisions, two lanes per
-    // instruction where SSE2 is there (the divider is the step's bottleneck).
-#if defined(__SSE2__)
-    int cp = c;
-    if (cp & 1) {  // pad to pairs
-      eps[cp] = 0.0;
-      sd[cp] = 1.0;
-      vn[cp] = 1.0;
-      ++cp;
-    }
-    const __m128d num = _mm_set1_pd(scale_num_);
-    for (int k = 0; k < cp; k += 2) {
-      const __m128d s = _mm_sqrt_pd(_mm_load_pd(vn + k));
-      _mm_store_pd(sdn + k, s);
-      _mm_store_pd(z + k, _mm_div_pd(_mm_load_pd(eps + k), _mm_load_pd(sd + k)));
-      _mm_store_pd(sc + k, _mm_div_pd(num, s));
-    }
-#else
-    for (int k = 0; k < c; ++k) {
-      sdn[k] = std::sqrt(vn[k]);
-      z[k] = eps[k] / sd[k];
-      sc[k] = scale_num_ / sdn[k];
-    }
-#endif
-    // Pass 3, per lane: sd_next into the state, and the outputs from the
-    // next-bar forecasts (FilterStep's order: horizons, VaR/ES, scale).
-    for (int k = 0; k < c; ++k) {
-      const int l = lanes[base + k];
-      if (!(kind_[l] & kFast)) continue;
-      const double* row = &coef_[static_cast<size_t>(l) * row_];
-      const double s = sdn[k];
-      const double v = vn[k];
-      const double m = mu_next_[l];
-      sd_next_[l] = s;
-      BarUpdate& o = out[base + k];
-      o.z = z[k];
-      o.vol_ann = s * sqrt_ppy_;
-      o.n_horizons = nh_;
-      const double* sum_a = row + kRowHead;
-      const double* sum_b = sum_a + nh_;
-      for (int i = 0; i < nh_; ++i) {
-        o.horizons[i] = horizons_[i];
-        o.var_h[i] = sum_a[i] + sum_b[i] * v;
-      }
-      o.n_levels = nl_;
-      const double* q = sum_b + nh_;
-      const double* es = q + nl_;
-      for (int i = 0; i < nl_; ++i) {
-        o.levels[i] = levels_[i];
-        o.var_risk[i] = -(m + s * q[i]);
-        o.es[i] = s * es[i] - m;
-      }
-      o.scale = std::min(scale_cap_, sc[k]);
-      o.ver = version_[l];
-    }
+    (this->*chunk)(lanes.data() + base, r.data() + base, c, out + base);
   }
 }
 
