@@ -79,7 +79,8 @@ class FilterBank {
 
   // One bar of one lane with `model` (the lane's own, or another one, e.g. the
   // drive-mode model of recursive tracking): exactly FilterStep(model, state,
-  // r, out) on the lane's state.
+  // r, out) on the lane's state. A fast lane with its own model runs the batch
+  // kernel on one lane (no gather); others run FilterStep on a gathered state.
   void Step(int lane, const FilterModel& model, double r, BarUpdate* out);
 
   // One bar of each lanes[k] with its own model and return r[k], written to
@@ -116,8 +117,26 @@ class FilterBank {
   // bank's shape as compile-time counts: the output loops unroll).
   template <int NH, int NL>
   void StepChunk(const int* lanes, const double* r, int c, BarUpdate* out);
-  template <size_t... I>
+  // Column bases for the kernels (loaded once per call).
+  struct Cols;
+  Cols columns();
+  // The kernel of one fast lane in two halves around the root and the two
+  // divisions (which StepChunk does two lanes at a time): Recurse advances the
+  // state and writes the outputs that need neither, returning the next
+  // variance, eps and the standardizing sd; Publish writes sd_next and the rest.
+  template <int NH, int NL>
+  double Recurse(const Cols& c, int lane, uint8_t kind, double r, BarUpdate* out, double* eps,
+                 double* sd);
+  template <int NH, int NL>
+  void Publish(const Cols& c, int lane, double sd_next, double v, double z, double scale,
+               BarUpdate* out) const;
+  template <int NH, int NL>
+  void StepLane(const int* lane, const double* r, int c, BarUpdate* out);
+  using ChunkFn = void (FilterBank::*)(const int*, const double*, int, BarUpdate*);
+  template <bool kOneLane, size_t... I>
   static auto ChunkTable(std::index_sequence<I...>);
+  // Step through FilterStep on a gathered state (any model).
+  void StepGathered(int lane, const FilterModel& model, double r, BarUpdate* out);
 
   // Lane state gathered into / scattered from a FilterState: only the hot
   // values (enough for a model with every order <= 1), or everything.
@@ -132,6 +151,8 @@ class FilterBank {
   double levels_[kMaxRiskLevels] = {};
   double sqrt_ppy_ = 0, scale_num_ = 0, scale_cap_ = 0;
   int row_ = kRowHead;  // doubles per coefficient row: head + 2 nh + 2 nl
+  ChunkFn chunk_ = nullptr;  // StepChunk<nh_, nl_>
+  ChunkFn lane_ = nullptr;   // StepLane<nh_, nl_>
 
   // Hot state columns.
   std::vector<double> r1_, eps1_, next_variance_, e2_1_, neg2_1_, s2_1_, sd_next_, mu_next_;

@@ -9,6 +9,8 @@
 #include <emmintrin.h>
 #endif
 
+#include "absl/base/attributes.h"
+
 // Bit-identity with FilterStep rests on both computing every value with the
 // same IEEE operations in the same order: this file and online_filter.cc are
 // compiled with -ffp-contract=off (CMakeLists.txt), so that no build fuses a
@@ -27,18 +29,6 @@ bool Lag1(int np, int nq, int na, int no, int nb) {
 constexpr int kChunk = 64;
 
 }  // namespace
-
-FilterBank::FilterBank(const OutputOptions& outputs) {
-  // As FilterModel::Create computes them, so that SameShape compares equal.
-  nh_ = std::min(static_cast<int>(outputs.horizons.size()), kMaxHorizons);
-  nl_ = std::min(static_cast<int>(outputs.risk_levels.size()), kMaxRiskLevels);
-  for (int i = 0; i < nh_; ++i) horizons_[i] = outputs.horizons[i];
-  for (int i = 0; i < nl_; ++i) levels_[i] = outputs.risk_levels[i];
-  sqrt_ppy_ = std::sqrt(outputs.periods_per_year);
-  scale_num_ = outputs.target_vol_ann / sqrt_ppy_;
-  scale_cap_ = outputs.scale_cap;
-  row_ = kRowHead + 2 * nh_ + 2 * nl_;
-}
 
 void FilterBank::Reserve(int n) {
   const size_t k = static_cast<size_t>(std::max(n, 0));
@@ -192,6 +182,14 @@ void FilterBank::Advance(int lane, double r) {
 }
 
 void FilterBank::Step(int lane, const FilterModel& m, double r, BarUpdate* out) {
+  if (&m == model_[lane] && (kind_[lane] & kFast)) {
+    (this->*lane_)(&lane, &r, 1, out);
+    return;
+  }
+  StepGathered(lane, m, r, out);
+}
+
+void FilterBank::StepGathered(int lane, const FilterModel& m, double r, BarUpdate* out) {
   // Every order <= 1: the step (and a forecast recursion of a non-closed
   // table) reads and writes lag 0 only, so the hot values are the whole state.
   if (Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_)) {
@@ -205,77 +203,134 @@ void FilterBank::Step(int lane, const FilterModel& m, double r, BarUpdate* out) 
   }
 }
 
+struct FilterBank::Cols {
+  double* r1;
+  double* eps1;
+  double* nv;
+  double* e21;
+  double* neg21;
+  double* s21;
+  double* sd;
+  double* mn;
+  int64_t* bars;
+  const uint8_t* kind;
+  const double* coef;
+  const uint32_t* version;
+};
+
+FilterBank::Cols FilterBank::columns() {
+  return Cols{r1_.data(),     eps1_.data(), next_variance_.data(), e2_1_.data(),
+              neg2_1_.data(), s2_1_.data(), sd_next_.data(),       mu_next_.data(),
+              bars_.data(),   kind_.data(), coef_.data(),          version_.data()};
+}
+
+template <int NH, int NL>
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, int l, uint8_t kind, double x, BarUpdate* o,
+                                  double* eps, double* sd) {
+  // FilterModel::Advance term by term: the lag writes, then the variance and
+  // the mean forecast in its summation order.
+  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
+  const double* row = c.coef + static_cast<size_t>(l) * kRow;
+  const double mu = c.mn[l];
+  const double var = c.nv[l];
+  const double e = x - mu;
+  const double e2 = e * e;
+  if (kind & kAr) c.r1[l] = x;
+  if (kind & kMa) c.eps1[l] = e;
+  c.e21[l] = e2;
+  const double neg = e < 0.0 ? e2 : 0.0;
+  if (kind & kGamma) c.neg21[l] = neg;
+  c.s21[l] = var;
+  double v;
+  if (kind & kFlat) {
+    v = row[kOmega];
+  } else if (kind & kEwma) {
+    v = row[kLambda] * var + (1.0 - row[kLambda]) * e2;
+  } else {
+    v = row[kOmega];
+    if (kind & kAlpha) v += row[kAlphaC] * e2;
+    if (kind & kGamma) v += row[kGammaC] * neg;
+    if (kind & kBeta) v += row[kBetaC] * var;
+  }
+  c.nv[l] = v;
+  double m = row[kMu];
+  if (kind & kAr) m += row[kArC] * x;
+  if (kind & kMa) m += row[kMaC] * e;
+  c.mn[l] = m;
+  ++c.bars[l];
+  o->r = x;
+  o->mu = mu;
+  o->eps = e;
+  o->var = var;
+  o->var_next = v;
+  *eps = e;
+  *sd = c.sd[l];
+  return v;
+}
+
+template <int NH, int NL>
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, int l, double s, double v, double z, double sc,
+                                BarUpdate* o) const {
+  // FilterStep's outputs from the next-bar forecasts, in its order.
+  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;
+  const double* row = c.coef + static_cast<size_t>(l) * kRow;
+  const double m = c.mn[l];
+  c.sd[l] = s;
+  o->z = z;
+  o->vol_ann = s * sqrt_ppy_;
+  o->n_horizons = NH;
+  const double* sum_a = row + kRowHead;
+  const double* sum_b = sum_a + NH;
+#pragma GCC unroll 8
+  for (int i = 0; i < NH; ++i) {
+    o->horizons[i] = horizons_[i];
+    o->var_h[i] = sum_a[i] + sum_b[i] * v;
+  }
+  o->n_levels = NL;
+  const double* q = sum_b + NH;
+  const double* es = q + NL;
+#pragma GCC unroll 4
+  for (int i = 0; i < NL; ++i) {
+    o->levels[i] = levels_[i];
+    o->var_risk[i] = -(m + s * q[i]);
+    o->es[i] = s * es[i] - m;
+  }
+  o->scale = std::min(scale_cap_, sc);
+  o->ver = c.version[l];
+}
+
+template <int NH, int NL>
+void FilterBank::StepLane(const int* lane, const double* r, int /*c*/, BarUpdate* out) {
+  // One fast lane (Step): the root and divisions one at a time; sqrtsd/divsd
+  // round as the chunk's sqrtpd/divpd do.
+  const Cols c = columns();
+  double e, sd;
+  const double v = Recurse<NH, NL>(c, *lane, c.kind[*lane], *r, out, &e, &sd);
+  const double s = std::sqrt(v);
+  Publish<NH, NL>(c, *lane, s, v, e / sd, scale_num_ / s, out);
+}
+
 template <int NH, int NL>
 void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* out) {
   // Per chunk: eps, the standardizing sd, next variance; then sd_next, z and
   // the unclamped scale from pass 2.
   alignas(16) double eps[kChunk], sd[kChunk], vn[kChunk], sdn[kChunk], z[kChunk], sc[kChunk];
-  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
-  // Column bases in registers (stores through them cannot move the vectors).
-  double* const r1 = r1_.data();
-  double* const eps1 = eps1_.data();
-  double* const nv = next_variance_.data();
-  double* const e21 = e2_1_.data();
-  double* const neg21 = neg2_1_.data();
-  double* const s21 = s2_1_.data();
-  double* const sdc = sd_next_.data();
-  double* const mn = mu_next_.data();
-  int64_t* const bars = bars_.data();
-  const uint8_t* const kinds = kind_.data();
-  const double* const coef = coef_.data();
   bool fast[kChunk];
-  // Pass 1, per lane: Advance's recursions term by term (FilterModel::Advance:
-  // lag writes, then the variance and the mean forecast in its summation
-  // order), and the outputs that need no division or root.
+  const Cols cols = columns();
+  // Pass 1, per lane: the recursions and the outputs that need no division or
+  // root; lanes that are not fast step whole through FilterStep.
   for (int k = 0; k < c; ++k) {
     const int l = lanes[k];
-    const uint8_t kind = kinds[l];
-    BarUpdate& o = out[k];
+    const uint8_t kind = cols.kind[l];
     fast[k] = (kind & kFast) != 0;
     if (!fast[k]) {
-      Step(l, *model_[l], r[k], &o);
+      StepGathered(l, *model_[l], r[k], &out[k]);
       eps[k] = 0.0;  // pass 2 computes on these harmlessly; pass 3 skips the lane
       sd[k] = 1.0;
       vn[k] = 1.0;
       continue;
     }
-    const double* row = coef + static_cast<size_t>(l) * kRow;
-    const double x = r[k];
-    const double mu = mn[l];
-    const double var = nv[l];
-    const double e = x - mu;
-    const double e2 = e * e;
-    if (kind & kAr) r1[l] = x;
-    if (kind & kMa) eps1[l] = e;
-    e21[l] = e2;
-    const double neg = e < 0.0 ? e2 : 0.0;
-    if (kind & kGamma) neg21[l] = neg;
-    s21[l] = var;
-    double v;
-    if (kind & kFlat) {
-      v = row[kOmega];
-    } else if (kind & kEwma) {
-      v = row[kLambda] * var + (1.0 - row[kLambda]) * e2;
-    } else {
-      v = row[kOmega];
-      if (kind & kAlpha) v += row[kAlphaC] * e2;
-      if (kind & kGamma) v += row[kGammaC] * neg;
-      if (kind & kBeta) v += row[kBetaC] * var;
-    }
-    nv[l] = v;
-    double m = row[kMu];
-    if (kind & kAr) m += row[kArC] * x;
-    if (kind & kMa) m += row[kMaC] * e;
-    mn[l] = m;
-    ++bars[l];
-    o.r = x;
-    o.mu = mu;
-    o.eps = e;
-    o.var = var;
-    o.var_next = v;
-    eps[k] = e;
-    sd[k] = sdc[l];
-    vn[k] = v;
+    vn[k] = Recurse<NH, NL>(cols, l, kind, r[k], &out[k], &eps[k], &sd[k]);
   }
   // Pass 2, over the chunk: the root and the two divisions, two lanes per
   // instruction where SSE2 is there (the divider is the step's bottleneck).
@@ -301,54 +356,47 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
     sc[k] = scale_num_ / sdn[k];
   }
 #endif
-  // Pass 3, per lane: sd_next into the state, and the outputs from the
-  // next-bar forecasts (FilterStep's order: horizons, VaR/ES, scale).
+  // Pass 3, per lane: sd_next into the state and the outputs from the
+  // next-bar forecasts.
   for (int k = 0; k < c; ++k) {
-    if (!fast[k]) continue;
-    const int l = lanes[k];
-    const double* row = coef + static_cast<size_t>(l) * kRow;
-    const double s = sdn[k];
-    const double v = vn[k];
-    const double m = mn[l];
-    sdc[l] = s;
-    BarUpdate& o = out[k];
-    o.z = z[k];
-    o.vol_ann = s * sqrt_ppy_;
-    o.n_horizons = NH;
-    const double* sum_a = row + kRowHead;
-    const double* sum_b = sum_a + NH;
-#pragma GCC unroll 8
-    for (int i = 0; i < NH; ++i) {
-      o.horizons[i] = horizons_[i];
-      o.var_h[i] = sum_a[i] + sum_b[i] * v;
-    }
-    o.n_levels = NL;
-    const double* q = sum_b + NH;
-    const double* es = q + NL;
-#pragma GCC unroll 4
-    for (int i = 0; i < NL; ++i) {
-      o.levels[i] = levels_[i];
-      o.var_risk[i] = -(m + s * q[i]);
-      o.es[i] = s * es[i] - m;
-    }
-    o.scale = std::min(scale_cap_, sc[k]);
-    o.ver = version_[l];
+    if (fast[k]) Publish<NH, NL>(cols, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
   }
 }
 
-template <size_t... I>
+template <bool kOneLane, size_t... I>
 auto FilterBank::ChunkTable(std::index_sequence<I...>) {
-  using Fn = void (FilterBank::*)(const int*, const double*, int, BarUpdate*);
-  return std::array<Fn, sizeof...(I)>{
-      &FilterBank::StepChunk<static_cast<int>(I / (kMaxRiskLevels + 1)),
-                             static_cast<int>(I % (kMaxRiskLevels + 1))>...};
+  constexpr int kL = kMaxRiskLevels + 1;
+  if constexpr (kOneLane) {
+    return std::array<ChunkFn, sizeof...(I)>{
+        &FilterBank::StepLane<static_cast<int>(I / kL), static_cast<int>(I % kL)>...};
+  } else {
+    return std::array<ChunkFn, sizeof...(I)>{
+        &FilterBank::StepChunk<static_cast<int>(I / kL), static_cast<int>(I % kL)>...};
+  }
+}
+
+// After ChunkTable: its return type is deduced from its definition.
+FilterBank::FilterBank(const OutputOptions& outputs) {
+  // As FilterModel::Create computes them, so that SameShape compares equal.
+  nh_ = std::min(static_cast<int>(outputs.horizons.size()), kMaxHorizons);
+  nl_ = std::min(static_cast<int>(outputs.risk_levels.size()), kMaxRiskLevels);
+  for (int i = 0; i < nh_; ++i) horizons_[i] = outputs.horizons[i];
+  for (int i = 0; i < nl_; ++i) levels_[i] = outputs.risk_levels[i];
+  sqrt_ppy_ = std::sqrt(outputs.periods_per_year);
+  scale_num_ = outputs.target_vol_ann / sqrt_ppy_;
+  scale_cap_ = outputs.scale_cap;
+  row_ = kRowHead + 2 * nh_ + 2 * nl_;
+  constexpr size_t kShapes = (kMaxHorizons + 1) * (kMaxRiskLevels + 1);
+  static const auto chunks = ChunkTable<false>(std::make_index_sequence<kShapes>());
+  static const auto lanes = ChunkTable<true>(std::make_index_sequence<kShapes>());
+  const size_t shape = static_cast<size_t>(nh_ * (kMaxRiskLevels + 1) + nl_);
+  chunk_ = chunks[shape];
+  lane_ = lanes[shape];
 }
 
 void FilterBank::StepBatch(absl::Span<const int> lanes, absl::Span<const double> r,
                            BarUpdate* out) {
-  static const auto table =
-      ChunkTable(std::make_index_sequence<(kMaxHorizons + 1) * (kMaxRiskLevels + 1)>());
-  const auto chunk = table[static_cast<size_t>(nh_ * (kMaxRiskLevels + 1) + nl_)];
+  const ChunkFn chunk = chunk_;
   const size_t n = lanes.size();
   for (size_t base = 0; base < n; base += kChunk) {
     const int c = static_cast<int>(std::min<size_t>(kChunk, n - base));
