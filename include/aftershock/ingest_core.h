@@ -53,7 +53,11 @@
 //   * BarObserver::OnNewSymbol / OnBar / OnClock: per-bar hook called after
 //     each update is computed and before it is published, with the symbol's
 //     index (stable for the core's lifetime); it may change update->flags.
-//     Observers run in the order they were added.
+//     Observers run in the order they were added. Bars closed by one clock
+//     tick are handled in chunks of 64: all are prepared and their filters
+//     stepped (one FilterBank::StepBatch, filter_bank.h), then OnBar and the
+//     publication run per bar in index order; so OnBar may change its own
+//     symbol's model or state, not another symbol's of the same clock tick.
 //   * SwapModel(index, ModelSwap): replaces a symbol's model between bars
 //     (call it from OnBar, OnClock or any other ingest-thread code: the core
 //     is always at a bar boundary then), optionally re-running the state over
