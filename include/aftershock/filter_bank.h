@@ -150,7 +150,7 @@ class FilterBank {
   int horizons_[kMaxHorizons] = {};
   double levels_[kMaxRiskLevels] = {};
   double sqrt_ppy_ = 0, scale_num_ = 0, scale_cap_ = 0;
-  int row_ = kRowHead;  // doubles per coefficient row: head + 2 nh + 2 nl
+  int row_ = kRowHead;       // doubles per coefficient row: head + 2 nh + 2 nl
   ChunkFn chunk_ = nullptr;  // StepChunk<nh_, nl_>
   ChunkFn lane_ = nullptr;   // StepLane<nh_, nl_>
 

@@ -339,9 +339,9 @@ class IngestCore : public TickConsumer {
     // The filter state is lane `index` of bank_; `model` is the lane's model.
     std::shared_ptr<const FilterModel> model;
     std::shared_ptr<const SeasonalProfile> profile;  // null: no seasonal adjustment
-    uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback / kFlagPooled
-    uint32_t pending_flags = 0;  // flags of unpublished bars, carried forward
-    bool filter_ready = false;   // filter state initialized
+    uint32_t status_flags = 0;                       // kFlagWarmup / kFlagFallback / kFlagPooled
+    uint32_t pending_flags = 0;                      // flags of unpublished bars, carried forward
+    bool filter_ready = false;                       // filter state initialized
     // Warm-up start: the first returns, [warmup] start_bars of them (null when
     // start_bars is 1; allocated with the slot), and how many are held.
     std::unique_ptr<double[]> start_returns;
@@ -355,8 +355,8 @@ class IngestCore : public TickConsumer {
     std::unique_ptr<SymbolExtra> extra[kMaxSymbolExtras];
     // ---- Recursive tracking ([tracking], recursive_tracker.h) ----
     TrackingMode tracking = TrackingMode::kOff;  // the symbol's mode (group or [tracking])
-    bool need_anchor = false;        // re-anchor the tracker on the model in force next bar
-    bool instability_armed = true;   // the instability alert may fire (hysteresis)
+    bool need_anchor = false;       // re-anchor the tracker on the model in force next bar
+    bool instability_armed = true;  // the instability alert may fire (hysteresis)
     RecursiveTracker tracker;
     // kDrive: the model in force with the tracked coefficients (allocated with
     // the slot, parameter room reserved, so re-anchoring copies without allocating).
@@ -371,13 +371,13 @@ class IngestCore : public TickConsumer {
     double r = 0;      // the filter's input (deseasonalized when `adjust`)
     double r_raw = 0;  // the return in the filter's units, before seasonality
     uint32_t flags = 0;
-    int32_t tag = 0;   // seasonal tag
-    bool adjust = false;  // seasonalize the update
-    bool absurd = false;  // |r| >= 1e100: the state was saved in before_[saved]
+    int32_t tag = 0;                          // seasonal tag
+    bool adjust = false;                      // seasonalize the update
+    bool absurd = false;                      // |r| >= 1e100: the state was saved in before_[saved]
     const FilterModel* model = nullptr;       // the symbol's model in force
     const FilterModel* step_model = nullptr;  // the model stepped (drive: retuned)
-    int saved = 0;  // entry of before_ (set before PrepareBar)
-    int out = 0;    // entry of updates_ (set before the step)
+    int saved = 0;                            // entry of before_ (set before PrepareBar)
+    int out = 0;                              // entry of updates_ (set before the step)
   };
   // Bars closed by one clock tick are handled in chunks of this many: every
   // bar of a chunk is prepared, then filtered (FilterBank::StepBatch), then
@@ -419,7 +419,7 @@ class IngestCore : public TickConsumer {
   std::vector<const MetricsSource*> metrics_sources_;
   absl::flat_hash_map<std::string, int> index_;
   std::vector<Slot> slots_;
-  FilterBank bank_;  // every symbol's filter state; lane = index
+  FilterBank bank_;          // every symbol's filter state; lane = index
   std::vector<Tick> ticks_;  // decode buffer, kMaxBatchTicks
   // Per chunk of bars (kBarChunk each): the bars, the updates, the state of an
   // absurd bar's symbol before its step, and the batch step's lanes/returns.

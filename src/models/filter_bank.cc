@@ -1,8 +1,8 @@
 #include "aftershock/filter_bank.h"
 
 #include <algorithm>
-#include <cmath>
 #include <array>
+#include <cmath>
 #include <cstddef>
 
 #if defined(__SSE2__)
@@ -225,8 +225,9 @@ FilterBank::Cols FilterBank::columns() {
 }
 
 template <int NH, int NL>
-ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, int l, uint8_t kind, double x, BarUpdate* o,
-                                  double* eps, double* sd) {
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, int l, uint8_t kind,
+                                                               double x, BarUpdate* o, double* eps,
+                                                               double* sd) {
   // FilterModel::Advance term by term: the lag writes, then the variance and
   // the mean forecast in its summation order.
   constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
@@ -269,8 +270,9 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, in
 }
 
 template <int NH, int NL>
-ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, int l, double s, double v, double z, double sc,
-                                BarUpdate* o) const {
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, int l, double s,
+                                                             double v, double z, double sc,
+                                                             BarUpdate* o) const {
   // FilterStep's outputs from the next-bar forecasts, in its order.
   constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;
   const double* row = c.coef + static_cast<size_t>(l) * kRow;

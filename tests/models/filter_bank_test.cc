@@ -1,7 +1,7 @@
 #include "aftershock/filter_bank.h"
 
-#include <catch2/catch.hpp>
 #include <algorithm>
+#include <catch2/catch.hpp>
 #include <cmath>
 #include <cstring>
 #include <memory>
@@ -164,7 +164,8 @@ TEST_CASE("batch step equals the scalar step bit for bit, every family and law",
       const double v0 = ewma || u(rng) < 0.3 ? 1e-4 * (0.1 + u(rng)) : 0.0;
       InitFilterState(*w.lane_model.back(), v0, &st);
       const int pre = static_cast<int>(rng() % 5);
-      for (int b = 0; b < pre; ++b) AdvanceState(*w.lane_model.back(), &st, RandomReturn(&rng, 0.01));
+      for (int b = 0; b < pre; ++b)
+        AdvanceState(*w.lane_model.back(), &st, RandomReturn(&rng, 0.01));
       w.ref.push_back(st);
       REQUIRE(w.bank.Add(w.lane_model.back(), st) == l);
     }

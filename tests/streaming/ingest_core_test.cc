@@ -315,7 +315,8 @@ bool SameBits(double a, double b) { return std::memcmp(&a, &b, sizeof a) == 0; }
 // fast and general models after swaps, silent symbols, one absurd return.
 TEST_CASE("bars closed by the clock are batch-stepped, bit-identical to tick-closed bars",
           "[core][batch]") {
-  const std::string toml = "[bars]\ninterval = \"1s\"\ngrace = \"200ms\"\n[refit]\nevery_bars = 0\n";
+  const std::string toml =
+      "[bars]\ninterval = \"1s\"\ngrace = \"200ms\"\n[refit]\nevery_bars = 0\n";
   Fixture clocked(toml), ticked(toml);
   SwappingRecorder rec_clocked(testing::OutputsOf(clocked.config));
   SwappingRecorder rec_ticked(testing::OutputsOf(ticked.config));
@@ -355,12 +356,12 @@ TEST_CASE("bars closed by the clock are batch-stepped, bit-identical to tick-clo
     REQUIRE(a.size() > 40);  // past the swap at 30
     for (size_t k = 0; k < a.size(); ++k) {
       INFO("update " << k);
-      const double fa[] = {a[k].r, a[k].mu, a[k].eps, a[k].var, a[k].z, a[k].var_next,
-                           a[k].vol_ann, a[k].scale, a[k].var_h[0], a[k].var_h[2],
-                           a[k].var_risk[0], a[k].es[1]};
-      const double fb[] = {b[k].r, b[k].mu, b[k].eps, b[k].var, b[k].z, b[k].var_next,
-                           b[k].vol_ann, b[k].scale, b[k].var_h[0], b[k].var_h[2],
-                           b[k].var_risk[0], b[k].es[1]};
+      const double fa[] = {a[k].r,        a[k].mu,       a[k].eps,         a[k].var,
+                           a[k].z,        a[k].var_next, a[k].vol_ann,     a[k].scale,
+                           a[k].var_h[0], a[k].var_h[2], a[k].var_risk[0], a[k].es[1]};
+      const double fb[] = {b[k].r,        b[k].mu,       b[k].eps,         b[k].var,
+                           b[k].z,        b[k].var_next, b[k].vol_ann,     b[k].scale,
+                           b[k].var_h[0], b[k].var_h[2], b[k].var_risk[0], b[k].es[1]};
       for (int f = 0; f < 12; ++f) REQUIRE(SameBits(fa[f], fb[f]));
       REQUIRE(a[k].t_ns == b[k].t_ns);
       REQUIRE(a[k].flags == b[k].flags);
