@@ -4,12 +4,15 @@
 //
 // Two layouts: every symbol has its own compiled model (what the engine holds:
 // one version per symbol) and all symbols share one model (the cache-friendly
-// lower bound).
+// lower bound). BM_FilterBank runs the same universe through FilterBank, the
+// engine's structure-of-arrays layout, scalar and batch, in the same run.
 #include <benchmark/benchmark.h>
 
+#include <algorithm>
 #include <memory>
 #include <vector>
 
+#include "aftershock/filter_bank.h"
 #include "aftershock/online_filter.h"
 #include "aftershock/recursive_tracker.h"
 #include "aftershock/simulate.h"
@@ -36,11 +39,12 @@ struct Universe {
   std::vector<FilterModel> models;
   std::vector<FilterState> states;
   std::vector<double> returns;  // kSymbols x kBarsPerSymbol, symbol-major
+  OutputOptions outputs;
 };
 
 std::unique_ptr<Universe> MakeUniverse(bool per_symbol_models) {
   auto u = std::make_unique<Universe>();
-  OutputOptions oo;
+  OutputOptions& oo = u->outputs;
   oo.horizons = {1, 5, 20};
   oo.risk_levels = {0.99, 0.975};
   const int n_models = per_symbol_models ? kSymbols : 1;
@@ -84,6 +88,55 @@ void BM_FilterStep(benchmark::State& st, bool per_symbol_models) {
 
 BENCHMARK_CAPTURE(BM_FilterStep, per_symbol_models_10k, true);
 BENCHMARK_CAPTURE(BM_FilterStep, shared_model_10k, false);
+
+// The same universe in a FilterBank (filter_bank.h, the engine's layout:
+// structure-of-arrays state, packed coefficient rows). `batch`: every symbol's
+// bar closes together and StepBatch runs over them in chunks of kBatchChunk
+// lanes into one reused output buffer, as IngestCore::OnClock does; `scalar`:
+// FilterBank::Step one symbol at a time (the engine's path for a bar closed by
+// a tick). The return of each step is read from the same symbol-major array as
+// BM_FilterStep reads it.
+constexpr int kBatchChunk = 64;
+
+void BM_FilterBank(benchmark::State& st, bool per_symbol_models, bool batch) {
+  auto u = MakeUniverse(per_symbol_models);
+  FilterBank bank(u->outputs);
+  bank.Reserve(kSymbols);
+  for (int s = 0; s < kSymbols; ++s) {
+    bank.Add(&u->models[per_symbol_models ? s : 0], u->states[s]);
+  }
+  if (!bank.fast(0)) st.SkipWithError("the benchmark model is not on the batch kernel");
+  std::vector<BarUpdate> out(kBatchChunk);
+  int lanes[kBatchChunk];
+  double r[kBatchChunk];
+  int bar = 0;
+  for (auto _ : st) {
+    // One iteration: one bar of every symbol.
+    for (int base = 0; base < kSymbols; base += kBatchChunk) {
+      const int n = std::min(kBatchChunk, kSymbols - base);
+      for (int k = 0; k < n; ++k) {
+        lanes[k] = base + k;
+        r[k] = u->returns[static_cast<size_t>(base + k) * kBarsPerSymbol + bar];
+      }
+      if (batch) {
+        bank.StepBatch(absl::MakeConstSpan(lanes, n), absl::MakeConstSpan(r, n), out.data());
+      } else {
+        for (int k = 0; k < n; ++k) bank.Step(lanes[k], bank.model(lanes[k]), r[k], &out[k]);
+      }
+      benchmark::DoNotOptimize(out.data());
+      benchmark::ClobberMemory();
+    }
+    bar = (bar + 1) % kBarsPerSymbol;
+  }
+  const double steps = static_cast<double>(st.iterations()) * kSymbols;
+  st.SetItemsProcessed(static_cast<int64_t>(steps));
+  st.counters["ns_per_step"] =
+      benchmark::Counter(steps, benchmark::Counter::kIsRate | benchmark::Counter::kInvert);
+}
+
+BENCHMARK_CAPTURE(BM_FilterBank, batch_per_symbol_models_10k, true, true);
+BENCHMARK_CAPTURE(BM_FilterBank, scalar_per_symbol_models_10k, true, false);
+BENCHMARK_CAPTURE(BM_FilterBank, batch_shared_model_10k, false, true);
 
 // Recursive tracking ([tracking], recursive_tracker.h) over the same 10,000
 // symbols visited round-robin, each with its own tracker (about 0.6 KB) and,

@@ -53,7 +53,11 @@
 //   * BarObserver::OnNewSymbol / OnBar / OnClock: per-bar hook called after
 //     each update is computed and before it is published, with the symbol's
 //     index (stable for the core's lifetime); it may change update->flags.
-//     Observers run in the order they were added.
+//     Observers run in the order they were added. Bars closed by one clock
+//     tick are handled in chunks of 64: all are prepared and their filters
+//     stepped (one FilterBank::StepBatch, filter_bank.h), then OnBar and the
+//     publication run per bar in index order; so OnBar may change its own
+//     symbol's model or state, not another symbol's of the same clock tick.
 //   * SwapModel(index, ModelSwap): replaces a symbol's model between bars
 //     (call it from OnBar, OnClock or any other ingest-thread code: the core
 //     is always at a bar boundary then), optionally re-running the state over
@@ -85,6 +89,7 @@
 #include "aftershock/bar_update.h"
 #include "aftershock/clock.h"
 #include "aftershock/engine_config.h"
+#include "aftershock/filter_bank.h"
 #include "aftershock/online_filter.h"
 #include "aftershock/recursive_tracker.h"
 #include "aftershock/seasonal_profile.h"
@@ -301,7 +306,9 @@ class IngestCore : public TickConsumer {
   absl::string_view symbol(int index) const { return slots_[index].symbol.view(); }
   const FilterModel& model(int index) const { return *slots_[index].model; }
   const SeasonalProfile* seasonal_profile(int index) const { return slots_[index].profile.get(); }
-  const FilterState& filter_state(int index) const { return slots_[index].filter; }
+  // The symbol's filter state, gathered from the core's FilterBank
+  // (filter_bank.h: structure-of-arrays columns).
+  FilterState filter_state(int index) const { return bank_.Get(index); }
   // Recursive tracking of a symbol ([tracking]; inactive unless the mode is
   // track or drive and the model in force is supported).
   TrackingMode tracking_mode(int index) const { return slots_[index].tracking; }
@@ -314,7 +321,7 @@ class IngestCore : public TickConsumer {
   // For an observer that advances or replaces the state itself (the refit
   // coordinator re-runs it on a swap), then swaps the model with kKeepState.
   // Ingest thread, between bars only (OnBar/OnClock).
-  FilterState* mutable_filter_state(int index) { return &slots_[index].filter; }
+  void set_filter_state(int index, const FilterState& state) { bank_.Set(index, state); }
   uint32_t status_flags(int index) const { return slots_[index].status_flags; }
   uint64_t symbol_bars(int index) const { return slots_[index].bars; }          // bars closed
   uint64_t symbol_updates(int index) const { return slots_[index].updates; }    // published
@@ -329,12 +336,12 @@ class IngestCore : public TickConsumer {
   struct Slot {
     Symbol symbol;
     BarState bars_state;
-    FilterState filter;
+    // The filter state is lane `index` of bank_; `model` is the lane's model.
     std::shared_ptr<const FilterModel> model;
     std::shared_ptr<const SeasonalProfile> profile;  // null: no seasonal adjustment
-    uint32_t status_flags = 0;   // kFlagWarmup / kFlagFallback / kFlagPooled
-    uint32_t pending_flags = 0;  // flags of unpublished bars, carried forward
-    bool filter_ready = false;   // filter state initialized
+    uint32_t status_flags = 0;                       // kFlagWarmup / kFlagFallback / kFlagPooled
+    uint32_t pending_flags = 0;                      // flags of unpublished bars, carried forward
+    bool filter_ready = false;                       // filter state initialized
     // Warm-up start: the first returns, [warmup] start_bars of them (null when
     // start_bars is 1; allocated with the slot), and how many are held.
     std::unique_ptr<double[]> start_returns;
@@ -348,22 +355,51 @@ class IngestCore : public TickConsumer {
     std::unique_ptr<SymbolExtra> extra[kMaxSymbolExtras];
     // ---- Recursive tracking ([tracking], recursive_tracker.h) ----
     TrackingMode tracking = TrackingMode::kOff;  // the symbol's mode (group or [tracking])
-    bool need_anchor = false;        // re-anchor the tracker on the model in force next bar
-    bool instability_armed = true;   // the instability alert may fire (hysteresis)
+    bool need_anchor = false;       // re-anchor the tracker on the model in force next bar
+    bool instability_armed = true;  // the instability alert may fire (hysteresis)
     RecursiveTracker tracker;
     // kDrive: the model in force with the tracked coefficients (allocated with
     // the slot, parameter room reserved, so re-anchoring copies without allocating).
     std::unique_ptr<FilterModel> driven;
   };
 
+  // A closed bar between its close and its publication: PrepareBar fills it,
+  // the filter steps it, FinishBar publishes it.
+  struct PendingBar {
+    int index = 0;
+    ClosedBar bar;
+    double r = 0;      // the filter's input (deseasonalized when `adjust`)
+    double r_raw = 0;  // the return in the filter's units, before seasonality
+    uint32_t flags = 0;
+    int32_t tag = 0;                          // seasonal tag
+    bool adjust = false;                      // seasonalize the update
+    bool absurd = false;                      // |r| >= 1e100: the state was saved in before_[saved]
+    const FilterModel* model = nullptr;       // the symbol's model in force
+    const FilterModel* step_model = nullptr;  // the model stepped (drive: retuned)
+    int saved = 0;                            // entry of before_ (set before PrepareBar)
+    int out = 0;                              // entry of updates_ (set before the step)
+  };
+  // Bars closed by one clock tick are handled in chunks of this many: every
+  // bar of a chunk is prepared, then filtered (FilterBank::StepBatch), then
+  // published in index order.
+  static constexpr int kBarChunk = 64;
+
   IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* clock,
              std::shared_ptr<const FilterModel> initial_model);
   int IndexFor(absl::string_view symbol);  // -1 at the symbol limit (counted)
   void HandleTick(const Tick& tick, int64_t arrival_ns);
+  // One bar closed by a tick: prepared, stepped and published.
   void HandleBar(int index, const ClosedBar& bar);
+  // pending_[0..n): bars closed together (a clock tick); batch-stepped.
+  void HandleBars(int n);
+  // HandleBar up to the filter step; false when the bar publishes nothing.
+  // REQUIRES: p->index, p->bar and p->saved set.
+  bool PrepareBar(PendingBar* p);
+  // After the step into updates_[p.out]: checks, seasonality, observers, send.
+  void FinishBar(const PendingBar& p);
   // Tracking on the bar's filter input x; returns the model the filter steps
   // with (the slot's, or in drive mode the retuned copy).
-  const FilterModel* TrackBar(Slot* slot, double x);
+  const FilterModel* TrackBar(int index, double x);
   // Sets up a slot's tracking mode (and its drive-mode model) for `symbol`.
   void InitTracking(Slot* slot, absl::string_view symbol);
   bool SendOn(TopicKind kind, absl::string_view symbol, absl::string_view body);
@@ -383,8 +419,15 @@ class IngestCore : public TickConsumer {
   std::vector<const MetricsSource*> metrics_sources_;
   absl::flat_hash_map<std::string, int> index_;
   std::vector<Slot> slots_;
+  FilterBank bank_;          // every symbol's filter state; lane = index
   std::vector<Tick> ticks_;  // decode buffer, kMaxBatchTicks
-  BarUpdate update_;
+  // Per chunk of bars (kBarChunk each): the bars, the updates, the state of an
+  // absurd bar's symbol before its step, and the batch step's lanes/returns.
+  std::vector<PendingBar> pending_;
+  std::vector<BarUpdate> updates_;
+  std::vector<FilterState> before_;
+  std::vector<int> batch_lanes_;
+  std::vector<double> batch_returns_;
   std::string body_;
   std::string topic_;
   EngineCounters counters_;

@@ -88,6 +88,7 @@ class FilterModel {
   friend void AdvanceState(const FilterModel&, FilterState*, double);
   friend void SeasonalizeUpdate(const FilterModel&, const FilterState&, double, double,
                                 const double*, BarUpdate*);
+  friend class FilterBank;  // copies the compiled coefficients (filter_bank.h)
 
   // Consumes r: shifts the lags, advances the variance and mean recursions and
   // returns eps. Leaves sd_next stale (callers set it).

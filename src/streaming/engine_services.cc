@@ -550,10 +550,13 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     const uint32_t id = static_cast<uint32_t>(p.refit_id);
     // A raw pointer: copying the shared_ptr would cost two atomic operations a bar.
     const ModelVersion* before = refit_->current(id).get();
-    // The coordinator re-runs the core's state in place when it swaps.
-    const RefitBarResult res =
-        refit_->OnBar(id, update->t_ns, update->r, core->mutable_filter_state(index), tag);
+    // The coordinator re-runs the state when it swaps (applied or pooled): a
+    // copy of the core's, written back then.
+    FilterState& state = state_scratch_;
+    state = core->filter_state(index);
+    const RefitBarResult res = refit_->OnBar(id, update->t_ns, update->r, &state, tag);
     if (!res.applied && !res.pooled) return;
+    core->set_filter_state(index, state);
     const RefitRecord* rec_ptr = &refit_->last_record();
     if (options_.mode == RefitMode::kReplay) {
       // Wall time is the one field a replay cannot reproduce: 0 keeps the
@@ -691,6 +694,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   std::vector<int32_t> seasonal_tags_;
   RefitRecord replay_record_;
   std::string json_, alert_json_, reason_;
+  FilterState state_scratch_;  // the refit coordinator's copy of a symbol's state
 };
 
 void PublishingSink::Emit(const Alert& alert) { services_->Publish(index, alert); }

@@ -64,7 +64,8 @@ IngestCore::IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* cloc
       bar_options_(config.ToBarOptions()),
       sink_(sink),
       clock_(clock),
-      initial_model_(std::move(initial_model)) {
+      initial_model_(std::move(initial_model)),
+      bank_(config.outputs.ToOutputOptions()) {
   initial_flags_ = config.model.has_params ? 0u : static_cast<uint32_t>(kFlagWarmup);
   price_return_scale_ = config.outputs.return_units == ReturnUnits::kPercent ? 100.0 : 1.0;
   encode_binary_ = config.publish.encoding == WireEncoding::kBinary;
@@ -76,7 +77,13 @@ IngestCore::IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* cloc
   }
   const int64_t reserve = std::min<int64_t>(config.limits.max_symbols, kMaxReservedSlots);
   slots_.reserve(static_cast<size_t>(reserve));
+  bank_.Reserve(static_cast<int>(reserve));
   index_.reserve(static_cast<size_t>(reserve));
+  pending_.resize(kBarChunk);
+  updates_.resize(kBarChunk);
+  before_.resize(kBarChunk);
+  batch_lanes_.resize(kBarChunk);
+  batch_returns_.resize(kBarChunk);
   ticks_.resize(kMaxBatchTicks);
   body_.reserve(4096);
   topic_.reserve(2 + kMaxSymbolLength);
@@ -103,10 +110,12 @@ int IngestCore::IndexFor(absl::string_view symbol) {
   if (config_.warmup.start_bars > 1) {
     slot.start_returns = std::make_unique<double[]>(static_cast<size_t>(config_.warmup.start_bars));
   }
+  FilterState filter;
   if (!initial_model_->is_ewma()) {
-    InitFilterState(*initial_model_, 0.0, &slot.filter);
+    InitFilterState(*initial_model_, 0.0, &filter);
     slot.filter_ready = true;
   }
+  bank_.Add(initial_model_.get(), filter);
   InitTracking(&slot, symbol);
   index_.emplace(std::string(symbol), index);
   counters_.symbols = slots_.size();
@@ -160,6 +169,55 @@ void IngestCore::HandleTick(const Tick& tick, int64_t arrival_ns) {
 }
 
 void IngestCore::HandleBar(int index, const ClosedBar& bar) {
+  PendingBar& p = pending_[0];
+  p.index = index;
+  p.bar = bar;
+  p.saved = 0;
+  p.out = 0;
+  if (!PrepareBar(&p)) return;
+  bank_.Step(index, *p.step_model, p.r, &updates_[0]);
+  FinishBar(p);
+}
+
+void IngestCore::HandleBars(int n) {
+  // Prepare every bar (in index order), then step the filters: the symbols
+  // stepping with their own model go through one FilterBank::StepBatch (its
+  // results are bit-identical to FilterStep), the others (drive-mode tracking,
+  // absurd returns) one by one; then publish in index order. The lanes are
+  // distinct: a symbol has one open bar.
+  int prepared[kBarChunk];
+  int m = 0, nb = 0, top = kBarChunk;
+  for (int k = 0; k < n; ++k) {
+    PendingBar& p = pending_[k];
+    p.saved = k;  // before_ entry, should the return be absurd
+    if (!PrepareBar(&p)) continue;
+    prepared[m++] = k;
+  }
+  for (int j = 0; j < m; ++j) {
+    PendingBar& p = pending_[prepared[j]];
+    if (p.step_model == p.model && !p.absurd) {
+      batch_lanes_[nb] = p.index;
+      batch_returns_[nb] = p.r;
+      p.out = nb++;
+    }
+  }
+  bank_.StepBatch(absl::MakeConstSpan(batch_lanes_.data(), static_cast<size_t>(nb)),
+                  absl::MakeConstSpan(batch_returns_.data(), static_cast<size_t>(nb)),
+                  updates_.data());
+  for (int j = 0; j < m; ++j) {
+    PendingBar& p = pending_[prepared[j]];
+    if (p.step_model == p.model && !p.absurd) continue;
+    // Entries from the top down never meet the batch's from the bottom up
+    // (nb + these <= m <= kBarChunk).
+    p.out = --top;
+    bank_.Step(p.index, *p.step_model, p.r, &updates_[p.out]);
+  }
+  for (int j = 0; j < m; ++j) FinishBar(pending_[prepared[j]]);
+}
+
+bool IngestCore::PrepareBar(PendingBar* p) {
+  const int index = p->index;
+  const ClosedBar& bar = p->bar;
   Slot& slot = slots_[index];
   ++counters_.bars;
   ++slot.bars;
@@ -170,7 +228,7 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
   flags &= ~static_cast<uint32_t>(kFlagFirstBar);  // the engine decides first_bar itself
   if (!bar.has_return) {
     slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
-    return;
+    return false;
   }
   double r = bar.ret;
   if (bar.last_price > 0) r *= price_return_scale_;
@@ -183,7 +241,7 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
     // An opening return without an overnight multiplier: not filtered.
     slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
     for (BarObserver* o : observers_) o->OnSkippedReturn(this, index, bar, r_raw);
-    return;
+    return false;
   }
   const int k_bar = bar.session_bar;
   const bool adjust =
@@ -198,70 +256,84 @@ void IngestCore::HandleBar(int index, const ClosedBar& bar) {
     const bool usable = m > 1 ? std::isfinite(r * r) : (r != 0.0 && std::isfinite(r * r));
     if (!usable) {
       slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
-      return;
+      return false;
     }
     if (m == 1) {
-      InitFilterState(model, r * r, &slot.filter);
+      bank_.Init(index, r * r);
     } else {
       slot.start_returns[slot.num_start_returns++] = r;
       slot.pending_flags = flags & ~static_cast<uint32_t>(kFlagStale);
-      if (slot.num_start_returns < m) return;
+      if (slot.num_start_returns < m) return false;
       const absl::Span<const double> first(slot.start_returns.get(), static_cast<size_t>(m));
       const double v0 = RobustStartVariance(first, start_scratch_);
       slot.num_start_returns = 0;
-      if (!(v0 > 0) || !std::isfinite(v0)) return;  // all zero: collect afresh
-      InitFilterState(model, v0, &slot.filter);
-      for (double x : first) AdvanceState(model, &slot.filter, x);
+      if (!(v0 > 0) || !std::isfinite(v0)) return false;  // all zero: collect afresh
+      bank_.Init(index, v0);
+      for (double x : first) bank_.Advance(index, x);
       slot.filter_ready = true;
-      return;  // the bar's return is in the state; the next bar publishes
+      return false;  // the bar's return is in the state; the next bar publishes
     }
     slot.filter_ready = true;
   }
   slot.pending_flags = 0;
-  BarUpdate& u = update_;
-  u.symbol = slot.symbol;
-  u.t_ns = bar.t_end_ns;
-  u.flags = flags | slot.status_flags;
   // A step producing a non-finite value must not poison the symbol: the bar is
   // dropped (non_finite_output) and the state restored. Only an absurd return
   // (|r| >= 1e100) can overflow a recursion with persistence < 1, so only then
   // is the state copied first; otherwise the symbol restarts its filter.
-  const bool absurd = !(std::fabs(r) < 1e100);
-  FilterState before;
-  if (absurd) before = slot.filter;
-  const FilterModel& step_model = *TrackBar(&slot, r);
-  FilterStep(step_model, &slot.filter, r, &u);
+  p->absurd = !(std::fabs(r) < 1e100);
+  if (p->absurd) before_[p->saved] = bank_.Get(index);
+  p->r = r;
+  p->r_raw = r_raw;
+  p->flags = flags;
+  p->tag = tag;
+  p->adjust = adjust;
+  p->model = &model;
+  p->step_model = TrackBar(index, r);
+  return true;
+}
+
+void IngestCore::FinishBar(const PendingBar& p) {
+  const int index = p.index;
+  Slot& slot = slots_[index];
+  const FilterModel& model = *p.model;
+  const FilterModel& step_model = *p.step_model;
+  BarUpdate& u = updates_[p.out];
+  u.symbol = slot.symbol;
+  u.t_ns = p.bar.t_end_ns;
+  u.flags = p.flags | slot.status_flags;
+  const double next_variance = bank_.next_variance(index);
   if (&step_model != &model) {
     // Drive: the tracker's next prediction is the filter's (equal unless the
     // tracker just reset to the model in force).
-    if (slot.filter.var.next_variance > 0 && std::isfinite(slot.filter.var.next_variance)) {
-      slot.tracker.SetNextVariance(slot.filter.var.next_variance);
+    if (next_variance > 0 && std::isfinite(next_variance)) {
+      slot.tracker.SetNextVariance(next_variance);
     }
   }
-  if (!std::isfinite(slot.filter.var.next_variance) || !std::isfinite(slot.filter.mu_next) ||
+  if (!std::isfinite(next_variance) || !std::isfinite(bank_.mu_next(index)) ||
       !std::isfinite(u.z)) {
     ++counters_.non_finite_output;
-    if (absurd) {
-      slot.filter = before;
+    if (p.absurd) {
+      bank_.Set(index, before_[p.saved]);
     } else if (model.is_ewma()) {
       slot.filter_ready = false;
     } else {
-      InitFilterState(model, 0.0, &slot.filter);
+      bank_.Init(index, 0.0);
     }
     slot.need_anchor = slot.tracking != TrackingMode::kOff;
     return;
   }
-  if (adjust) {
+  if (p.adjust) {
     // Back to return units with the factors of this bar and the bars ahead.
-    const int kk = std::min(std::max(k_bar, 0), prof->buckets() - 1);
+    const SeasonalProfile* prof = slot.profile.get();
+    const int kk = std::min(std::max(p.bar.session_bar, 0), prof->buckets() - 1);
     const double s2_now =
-        (tag & kSeasonalTagOvernight) ? prof->overnight_factor() : prof->factor(kk);
-    SeasonalizeUpdate(step_model, slot.filter, r_raw, s2_now, prof->ahead(kk), &u);
+        (p.tag & kSeasonalTagOvernight) ? prof->overnight_factor() : prof->factor(kk);
+    SeasonalizeUpdate(step_model, bank_.Get(index), p.r_raw, s2_now, prof->ahead(kk), &u);
     u.flags |= kFlagSeasonal;
   }
   ++slot.filtered;
   if (slot.filtered < static_cast<uint64_t>(config_.warmup.min_bars)) u.flags |= kFlagFirstBar;
-  for (BarObserver* o : observers_) o->OnBar(this, index, bar, &u);
+  for (BarObserver* o : observers_) o->OnBar(this, index, p.bar, &u);
 
   const absl::Status s =
       encode_binary_ ? EncodeUpdateBinary(u, &body_) : EncodeUpdateJson(u, &body_);
@@ -287,7 +359,8 @@ void IngestCore::InitTracking(Slot* slot, absl::string_view symbol) {
   }
 }
 
-const FilterModel* IngestCore::TrackBar(Slot* slot, double x) {
+const FilterModel* IngestCore::TrackBar(int index, double x) {
+  Slot* slot = &slots_[index];
   const FilterModel* model = slot->model.get();
   if (slot->tracking == TrackingMode::kOff) return model;
   const TrackerOptions& o = config_.tracking.tracker;
@@ -296,7 +369,7 @@ const FilterModel* IngestCore::TrackBar(Slot* slot, double x) {
     slot->instability_armed = true;
     // The model in force and the state's prediction for this bar; an
     // unsupported model (EWMA warm-up, ARMA, higher orders) deactivates it.
-    slot->tracker.Anchor(model->params(), slot->filter.var.next_variance, o);
+    slot->tracker.Anchor(model->params(), bank_.next_variance(index), o);
     if (slot->tracker.active() && slot->driven) *slot->driven = *model;
   }
   if (!slot->tracker.active()) return model;
@@ -346,30 +419,44 @@ bool IngestCore::PublishNamedMessage(TopicKind kind, absl::string_view name,
 void IngestCore::OnClock(int64_t now_ns) {
   last_clock_ns_ = now_ns;
   if (bar_options_.interval_ns > 0) {
-    ClosedBar bar;
+    // Time bars close on the clock for every symbol at once: handled in chunks
+    // (HandleBars), their filters stepped as a batch.
+    int n = 0;
     for (int i = 0; i < num_symbols(); ++i) {
       if (!slots_[i].bars_state.open) continue;
-      if (CloseIfDue(&slots_[i].bars_state, now_ns, config_.bars.grace_ns, bar_options_, &bar)) {
-        HandleBar(i, bar);
+      if (CloseIfDue(&slots_[i].bars_state, now_ns, config_.bars.grace_ns, bar_options_,
+                     &pending_[n].bar)) {
+        pending_[n].index = i;
+        if (++n == kBarChunk) {
+          HandleBars(n);
+          n = 0;
+        }
       }
     }
+    if (n > 0) HandleBars(n);
   }
   for (BarObserver* o : observers_) o->OnClock(this, now_ns);
 }
 
 void IngestCore::CloseAllOpenBars() {
   if (bar_options_.interval_ns <= 0) return;
-  ClosedBar bar;
+  int n = 0;
   for (int i = 0; i < num_symbols(); ++i) {
     BarState& st = slots_[i].bars_state;
     if (!st.open) continue;
     // A time far enough past the bar end closes it whatever the grace.
+    ClosedBar& bar = pending_[n].bar;
     if (CloseIfDue(&st, st.open_end_ns + config_.bars.grace_ns, config_.bars.grace_ns, bar_options_,
                    &bar)) {
       bar.closed_by_clock = false;  // the input ended: not counted as closed by the clock
-      HandleBar(i, bar);
+      pending_[n].index = i;
+      if (++n == kBarChunk) {
+        HandleBars(n);
+        n = 0;
+      }
     }
   }
+  if (n > 0) HandleBars(n);
 }
 
 int32_t IngestCore::SeasonalTagOf(const ClosedBar& bar, uint32_t update_flags) const {
@@ -412,21 +499,21 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
     return absl::InvalidArgumentError("SwapModel: the profile does not fit the session");
   }
   Slot& slot = slots_[index];
+  if (swap.start == ModelSwap::Start::kKeepState && !slot.filter_ready && swap.model->is_ewma()) {
+    return absl::FailedPreconditionError(
+        "SwapModel: kKeepState on a symbol without a filter state needs a non-EWMA model");
+  }
+  // The lane's model first: the bank's Init/Advance run the lane's model.
+  bank_.SetModel(index, swap.model.get());
   switch (swap.start) {
     case ModelSwap::Start::kKeepState:
-      if (!slot.filter_ready) {
-        if (swap.model->is_ewma()) {
-          return absl::FailedPreconditionError(
-              "SwapModel: kKeepState on a symbol without a filter state needs a non-EWMA model");
-        }
-        InitFilterState(*swap.model, swap.initial_variance, &slot.filter);
-      }
+      if (!slot.filter_ready) bank_.Init(index, swap.initial_variance);
       break;
     case ModelSwap::Start::kRestart:
     case ModelSwap::Start::kRerun:
-      InitFilterState(*swap.model, swap.initial_variance, &slot.filter);
+      bank_.Init(index, swap.initial_variance);
       if (swap.start == ModelSwap::Start::kRerun) {
-        for (double r : swap.rerun_returns) AdvanceState(*swap.model, &slot.filter, r);
+        for (double r : swap.rerun_returns) bank_.Advance(index, r);
       }
       break;
   }
@@ -599,7 +686,7 @@ void IngestCore::CaptureSymbols(StateCapture* capture, int begin, int end) const
     const Slot& s = slots_[i];
     CoreSymbolCapture& d = c.symbols[i];
     d.bars_state = s.bars_state;
-    d.filter = s.filter;
+    d.filter = bank_.Get(static_cast<int>(i));
     if (d.model.get() != s.model.get()) d.model = s.model;
     if (d.profile.get() != s.profile.get()) d.profile = s.profile;
     d.status_flags = s.status_flags;
@@ -641,6 +728,8 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
   const int m = config_.warmup.start_bars;
   std::vector<Slot> slots;
   slots.reserve(n);
+  std::vector<FilterState> filters;  // by index, into bank_ at the commit
+  filters.reserve(n);
   absl::flat_hash_map<std::string, int> index;
   for (uint64_t k = 0; k < n && r.ok(); ++k) {
     const absl::string_view name = r.Bytes("core symbol name", kMaxSymbolLength);
@@ -653,7 +742,8 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
     Slot s;
     s.symbol.assign(name);
     s.bars_state = RestoreBarState(&r, what);
-    s.filter = RestoreFilterState(&r, what);
+    filters.push_back(RestoreFilterState(&r, what));
+    const FilterState& filter = filters.back();
     const uint32_t version = r.U32(absl::StrCat(what, " model version"));
     const ModelParams params = RestoreModelParams(&r, absl::StrCat(what, " model"));
     if (!r.ok()) break;
@@ -676,7 +766,7 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
       r.Fail(what + " status flags", "unknown flags");
       break;
     }
-    if (s.filter_ready && !(s.filter.var.next_variance > 0)) {
+    if (s.filter_ready && !(filter.var.next_variance > 0)) {
       r.Fail(what + " filter state", "a ready filter needs a positive next variance");
       break;
     }
@@ -717,7 +807,10 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
   }
   if (absl::Status s = r.Finish("core state"); !s.ok()) return s;
   // Commit: nothing below can fail.
-  for (Slot& s : slots) slots_.push_back(std::move(s));
+  for (size_t k = 0; k < slots.size(); ++k) {
+    slots_.push_back(std::move(slots[k]));
+    bank_.Add(slots_.back().model.get(), filters[k]);
+  }
   index_ = std::move(index);
   counters_ = c;
   counters_.symbols = slots_.size();
@@ -739,6 +832,7 @@ absl::Status IngestCore::ShareModel(int index, std::shared_ptr<const FilterModel
                      " with the same parameters"));
   }
   slots_[index].model = std::move(model);
+  bank_.SetModel(index, slots_[index].model.get());  // same coefficients, the shared object
   return absl::OkStatus();
 }
 

@@ -3,6 +3,8 @@
 #include <algorithm>
 #include <catch2/catch.hpp>
 #include <cmath>
+#include <cstring>
+#include <memory>
 #include <string>
 #include <vector>
 
@@ -265,6 +267,113 @@ TEST_CASE("time bars: ticks aggregate; the clock closes bars; stale marks silent
   CHECK(got[2].t_ns == kT0 + 5 * kSec);
   CHECK((got[2].flags & kFlagStale) != 0);
   CHECK(f.core->counters().bars_clock_closed == 2);
+}
+
+// Records every update in memory (exact bits) and swaps models from OnBar as
+// the refit coordinator does: at its 30th update a symbol moves to a fast
+// GARCH(1,1) (kRerun over its last returns) or, for every third symbol, to a
+// GARCH(2,1) that the batch kernel hands to FilterStep.
+class SwappingRecorder : public BarObserver {
+ public:
+  explicit SwappingRecorder(const OutputOptions& oo) {
+    auto s11 = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
+    auto s21 = MakeModelSpec("constant", {}, "garch", {2, 1}, "gaussian");
+    REQUIRE((s11.ok() && s21.ok()));
+    auto m11 = FilterModel::Create(ModelParams{*s11, {1e-4, 3e-6, 0.07, 0.9, 7.0}}, oo, 5);
+    auto m21 = FilterModel::Create(ModelParams{*s21, {1e-4, 3e-6, 0.05, 0.03, 0.88}}, oo, 6);
+    REQUIRE((m11.ok() && m21.ok()));
+    fast_ = std::make_shared<const FilterModel>(*m11);
+    general_ = std::make_shared<const FilterModel>(*m21);
+  }
+  void OnNewSymbol(IngestCore*, int index, absl::string_view) override {
+    if (static_cast<int>(updates.size()) <= index) updates.resize(index + 1);
+    returns.resize(updates.size());
+  }
+  void OnBar(IngestCore* core, int index, const ClosedBar&, BarUpdate* u) override {
+    updates[index].push_back(*u);
+    returns[index].push_back(u->r);
+    if (updates[index].size() != 30) return;
+    ModelSwap swap;
+    swap.model = index % 3 == 0 ? general_ : fast_;
+    swap.start = ModelSwap::Start::kRerun;
+    swap.rerun_returns = absl::MakeConstSpan(returns[index].data() + 10, 20);
+    REQUIRE(core->SwapModel(index, swap).ok());
+  }
+  std::vector<std::vector<BarUpdate>> updates;
+  std::vector<std::vector<double>> returns;
+
+ private:
+  std::shared_ptr<const FilterModel> fast_, general_;
+};
+
+bool SameBits(double a, double b) { return std::memcmp(&a, &b, sizeof a) == 0; }
+
+// The batch step in the engine: time bars of 150 symbols closed by the clock
+// (OnClock: chunks of bars batch-stepped by FilterBank::StepBatch) publish
+// exactly what the same ticks give when each bar is closed by the symbol's
+// next tick (HandleBar: FilterBank::Step, i.e. FilterStep): EWMA warm-up,
+// fast and general models after swaps, silent symbols, one absurd return.
+TEST_CASE("bars closed by the clock are batch-stepped, bit-identical to tick-closed bars",
+          "[core][batch]") {
+  const std::string toml =
+      "[bars]\ninterval = \"1s\"\ngrace = \"200ms\"\n[refit]\nevery_bars = 0\n";
+  Fixture clocked(toml), ticked(toml);
+  SwappingRecorder rec_clocked(testing::OutputsOf(clocked.config));
+  SwappingRecorder rec_ticked(testing::OutputsOf(ticked.config));
+  clocked.core->AddObserver(&rec_clocked);
+  ticked.core->AddObserver(&rec_ticked);
+  constexpr int kSymbols = 150, kSeconds = 80;
+  std::vector<std::vector<double>> rets;
+  for (int s = 0; s < kSymbols; ++s) rets.push_back(testing::TestReturns(2 * kSeconds, 100 + s));
+  uint64_t bars_with_ticks = 0;
+  for (int i = 0; i < kSeconds; ++i) {
+    for (int s = 0; s < kSymbols; ++s) {
+      if ((s * 7 + i) % 11 == 0) continue;  // silent this second
+      for (int j = 0; j < 2; ++j) {
+        double r = rets[s][2 * i + j];
+        if (s == 42 && i == 50 && j == 0) r = 1e200;  // absurd: dropped, state kept
+        const Tick t = ReturnTick("SYM" + std::to_string(s), kT0 + i * kSec + (1 + j) * 1000, r);
+        clocked.core->OnTick(t);
+        ticked.core->OnTick(t);
+      }
+    }
+    // Every bar of second i is due: the clock closes them all at once.
+    clocked.core->OnClock(kT0 + (i + 1) * kSec + 200000000);
+    bars_with_ticks = clocked.core->counters().bars_clock_closed;
+  }
+  clocked.core->CloseAllOpenBars();
+  ticked.core->CloseAllOpenBars();
+  CHECK(bars_with_ticks == clocked.core->counters().bars);
+  CHECK(ticked.core->counters().bars_clock_closed == 0);
+  REQUIRE(rec_clocked.updates.size() == static_cast<size_t>(kSymbols));
+  REQUIRE(rec_ticked.updates.size() == static_cast<size_t>(kSymbols));
+  size_t compared = 0;
+  for (int s = 0; s < kSymbols; ++s) {
+    const auto& a = rec_clocked.updates[s];
+    const auto& b = rec_ticked.updates[s];
+    INFO("symbol " << s);
+    REQUIRE(a.size() == b.size());
+    REQUIRE(a.size() > 40);  // past the swap at 30
+    for (size_t k = 0; k < a.size(); ++k) {
+      INFO("update " << k);
+      const double fa[] = {a[k].r,        a[k].mu,       a[k].eps,         a[k].var,
+                           a[k].z,        a[k].var_next, a[k].vol_ann,     a[k].scale,
+                           a[k].var_h[0], a[k].var_h[2], a[k].var_risk[0], a[k].es[1]};
+      const double fb[] = {b[k].r,        b[k].mu,       b[k].eps,         b[k].var,
+                           b[k].z,        b[k].var_next, b[k].vol_ann,     b[k].scale,
+                           b[k].var_h[0], b[k].var_h[2], b[k].var_risk[0], b[k].es[1]};
+      for (int f = 0; f < 12; ++f) REQUIRE(SameBits(fa[f], fb[f]));
+      REQUIRE(a[k].t_ns == b[k].t_ns);
+      REQUIRE(a[k].flags == b[k].flags);
+      REQUIRE(a[k].ver == b[k].ver);
+      ++compared;
+    }
+    const FilterState fa = clocked.core->filter_state(s), fb = ticked.core->filter_state(s);
+    REQUIRE(std::memcmp(&fa, &fb, sizeof fa) == 0);
+  }
+  CHECK(compared == clocked.core->counters().updates_out);
+  CHECK(clocked.core->counters().non_finite_output == 1);
+  CHECK(clocked.core->counters().updates_out == ticked.core->counters().updates_out);
 }
 
 TEST_CASE("bad-input corpus: every class counted by reason, never fatal, no NaN", "[core]") {

@@ -1,0 +1,174 @@
+// FilterBank: the filter states of many symbols in structure-of-arrays form,
+// each beside a compact copy of its model's coefficients, and the batch step
+// that advances the symbols whose bars close together (time bars closed by the
+// clock: IngestCore::OnClock). The ingest core keeps every symbol's filter
+// state here; a symbol is a lane (its index).
+//
+// Layout (DEVELOPERS.md "Filter state layout"), for lane i:
+//   * hot state, one column per value (structure of arrays): r_hist[0],
+//     eps_hist[0], var.next_variance, var.eps2[0], var.neg_eps2[0],
+//     var.sigma2[0], sd_next, mu_next, bars. A step of a model whose orders
+//     are all <= 1 reads and writes only these, 8 bytes per column.
+//   * cold state, one row per lane: the higher lags (r_hist[1..], eps_hist[1..],
+//     eps2[1..], neg_eps2[1..], sigma2[1..]), touched only by steps of higher
+//     orders and by Get/Set.
+//   * coefficients, one packed row per lane: mu, ar_1, ma_1, omega, alpha_1,
+//     gamma_1, beta_1, lambda, then the horizon table's sum coefficients
+//     (a then b) and the risk quantiles and ES multipliers of the bank's output
+//     shape; the row is read once per step, front to back.
+//   * the model pointer, its version and a kind byte (which terms the model has).
+//
+// A lane is "fast" when its model has every order <= 1, closed-form horizons
+// (forecast.h) and the bank's output shape (horizons, risk levels,
+// annualization, scale: the OutputOptions the bank was made with, which in the
+// engine are every model's). StepBatch computes fast lanes with the
+// arithmetic of FilterStep term by term, in the same order, so the results
+// are bit-identical; other lanes go through FilterStep itself.
+//
+// Thread-safety: not thread-safe; one thread (the ingest thread) owns a bank.
+// The models are not owned: each must outlive its lane's use of it (until
+// SetModel replaces it or the bank is destroyed).
+#ifndef AFTERSHOCK_FILTER_BANK_H_
+#define AFTERSHOCK_FILTER_BANK_H_
+
+#include <cstddef>
+#include <cstdint>
+#include <utility>
+#include <vector>
+
+#include "absl/types/span.h"
+#include "aftershock/bar_update.h"
+#include "aftershock/online_filter.h"
+
+namespace aftershock {
+
+class FilterBank {
+ public:
+  // `outputs`: the output options of the models the batch kernel computes
+  // itself (a model created with others still steps, through FilterStep).
+  // REQUIRES: FilterModel::Create accepts `outputs`.
+  explicit FilterBank(const OutputOptions& outputs);
+  FilterBank(const FilterBank&) = delete;
+  FilterBank& operator=(const FilterBank&) = delete;
+
+  // Address space for n lanes, so that adding up to n lanes does not move the
+  // columns.
+  void Reserve(int n);
+  int size() const { return static_cast<int>(model_.size()); }
+
+  // Appends a lane running `model` (REQUIRES: created) from `state`; returns
+  // its index.
+  int Add(const FilterModel* model, const FilterState& state);
+  // Replaces a lane's model (the state is kept). REQUIRES: 0 <= lane < size().
+  void SetModel(int lane, const FilterModel* model);
+  const FilterModel& model(int lane) const { return *model_[lane]; }
+  // True when StepBatch computes the lane itself rather than through FilterStep.
+  bool fast(int lane) const { return (kind_[lane] & kFast) != 0; }
+
+  // The lane's whole state (every lag), as a FilterState value.
+  FilterState Get(int lane) const;
+  void Set(int lane, const FilterState& state);
+  // Hot values without a gather.
+  double next_variance(int lane) const { return next_variance_[lane]; }
+  double mu_next(int lane) const { return mu_next_[lane]; }
+  double sd_next(int lane) const { return sd_next_[lane]; }
+
+  // InitFilterState / AdvanceState on a lane with its own model.
+  void Init(int lane, double variance);
+  void Advance(int lane, double r);
+
+  // One bar of one lane with `model` (the lane's own, or another one, e.g. the
+  // drive-mode model of recursive tracking): exactly FilterStep(model, state,
+  // r, out) on the lane's state. A fast lane with its own model runs the batch
+  // kernel on one lane (no gather); others run FilterStep on a gathered state.
+  void Step(int lane, const FilterModel& model, double r, BarUpdate* out);
+
+  // One bar of each lanes[k] with its own model and return r[k], written to
+  // out[k]: every lane's state and out[k] end bit for bit as FilterStep leaves
+  // them (symbol, t_ns and flags of out[k] untouched). Hot path: no allocation.
+  // REQUIRES: lanes distinct and in [0, size()); r.size() == lanes.size();
+  // out has lanes.size() entries.
+  void StepBatch(absl::Span<const int> lanes, absl::Span<const double> r, BarUpdate* out);
+
+ private:
+  // kind_ bits: which terms the recursion has (the orders are 0 or 1 on a
+  // fast lane) and the variance kind.
+  enum : uint8_t {
+    kFast = 1 << 0,
+    kAr = 1 << 1,     // ar order 1
+    kMa = 1 << 2,     // ma order 1
+    kAlpha = 1 << 3,  // arch order 1 (not constant/EWMA)
+    kGamma = 1 << 4,  // asym order 1
+    kBeta = 1 << 5,   // garch order 1
+    kFlat = 1 << 6,   // constant variance: omega
+    kEwma = 1 << 7,   // lambda var + (1 - lambda) e2
+  };
+  // Offsets in a coefficient row.
+  enum { kMu, kArC, kMaC, kOmega, kAlphaC, kGammaC, kBetaC, kLambda, kRowHead };
+  // Higher lags per lane in the cold row.
+  static constexpr int kColdR = kMaxArmaOrder - 1;
+  static constexpr int kColdEps = kMaxArmaOrder - 1;
+  static constexpr int kColdE2 = kMaxArchOrder - 1;
+  static constexpr int kColdNeg = kMaxGarchOrder - 1;
+  static constexpr int kColdS2 = kMaxGarchOrder - 1;
+  static constexpr int kCold = kColdR + kColdEps + kColdE2 + kColdNeg + kColdS2;
+
+  // StepBatch on up to kChunk lanes, for NH horizons and NL risk levels (the
+  // bank's shape as compile-time counts: the output loops unroll).
+  template <int NH, int NL>
+  void StepChunk(const int* lanes, const double* r, int c, BarUpdate* out);
+  // Column bases for the kernels (loaded once per call).
+  struct Cols;
+  Cols columns();
+  // The kernel of one fast lane in two halves around the root and the two
+  // divisions (which StepChunk does two lanes at a time): Recurse advances the
+  // state and writes the outputs that need neither, returning the next
+  // variance, eps and the standardizing sd; Publish writes sd_next and the rest.
+  template <int NH, int NL>
+  double Recurse(const Cols& c, int lane, uint8_t kind, double r, BarUpdate* out, double* eps,
+                 double* sd);
+  template <int NH, int NL>
+  void Publish(const Cols& c, int lane, double sd_next, double v, double z, double scale,
+               BarUpdate* out) const;
+  template <int NH, int NL>
+  void StepLane(const int* lane, const double* r, int c, BarUpdate* out);
+  using ChunkFn = void (FilterBank::*)(const int*, const double*, int, BarUpdate*);
+  template <bool kOneLane, size_t... I>
+  static auto ChunkTable(std::index_sequence<I...>);
+  // Step through FilterStep on a gathered state (any model).
+  void StepGathered(int lane, const FilterModel& model, double r, BarUpdate* out);
+
+  // Lane state gathered into / scattered from a FilterState: only the hot
+  // values (enough for a model with every order <= 1), or everything.
+  void GatherHot(int lane, FilterState* s) const;
+  void ScatterHot(int lane, const FilterState& s);
+  void FillRow(int lane);
+  bool SameShape(const FilterModel& m) const;
+
+  // Output shape of the fast lanes.
+  int nh_ = 0, nl_ = 0;
+  int horizons_[kMaxHorizons] = {};
+  double levels_[kMaxRiskLevels] = {};
+  double sqrt_ppy_ = 0, scale_num_ = 0, scale_cap_ = 0;
+  int row_ = kRowHead;       // doubles per coefficient row: head + 2 nh + 2 nl
+  ChunkFn chunk_ = nullptr;  // StepChunk<nh_, nl_>
+  ChunkFn lane_ = nullptr;   // StepLane<nh_, nl_>
+
+  // Hot state columns.
+  std::vector<double> r1_, eps1_, next_variance_, e2_1_, neg2_1_, s2_1_, sd_next_, mu_next_;
+  std::vector<int64_t> bars_;
+  std::vector<double> cold_;  // kCold per lane
+  // Per lane: model, kind bits, version, coefficient row (row_ doubles).
+  std::vector<const FilterModel*> model_;
+  std::vector<uint8_t> kind_;
+  std::vector<uint32_t> version_;
+  std::vector<double> coef_;
+  // Step/Advance of a model with every order <= 1 gather the hot values into
+  // it; its higher lags stay zero (such a step never reads or writes them),
+  // so it is never cleared.
+  FilterState scratch_;
+};
+
+}  // namespace aftershock
+
+#endif  // AFTERSHOCK_FILTER_BANK_H_

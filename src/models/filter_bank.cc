@@ -1,0 +1,409 @@
+#include "aftershock/filter_bank.h"
+
+#include <algorithm>
+#include <array>
+#include <cmath>
+#include <cstddef>
+
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
+#include "absl/base/attributes.h"
+
+// Bit-identity with FilterStep rests on both computing every value with the
+// same IEEE operations in the same order: this file and online_filter.cc are
+// compiled with -ffp-contract=off (CMakeLists.txt), so that no build fuses a
+// multiply and an add in one of them only. SSE2 sqrtpd/divpd round exactly
+// as sqrtsd/divsd.
+
+namespace aftershock {
+namespace {
+
+// Every order <= 1: a step reads and writes lag 0 only (no shifts).
+bool Lag1(int np, int nq, int na, int no, int nb) {
+  return np <= 1 && nq <= 1 && na <= 1 && no <= 1 && nb <= 1;
+}
+
+// Lanes per pass of StepBatch: the chunk arrays (6 x 64 doubles) stay in L1.
+constexpr int kChunk = 64;
+
+}  // namespace
+
+void FilterBank::Reserve(int n) {
+  const size_t k = static_cast<size_t>(std::max(n, 0));
+  for (std::vector<double>* c :
+       {&r1_, &eps1_, &next_variance_, &e2_1_, &neg2_1_, &s2_1_, &sd_next_, &mu_next_}) {
+    c->reserve(k);
+  }
+  bars_.reserve(k);
+  cold_.reserve(k * kCold);
+  model_.reserve(k);
+  kind_.reserve(k);
+  version_.reserve(k);
+  coef_.reserve(k * static_cast<size_t>(row_));
+}
+
+int FilterBank::Add(const FilterModel* model, const FilterState& state) {
+  const int lane = size();
+  for (std::vector<double>* c :
+       {&r1_, &eps1_, &next_variance_, &e2_1_, &neg2_1_, &s2_1_, &sd_next_, &mu_next_}) {
+    c->push_back(0.0);
+  }
+  bars_.push_back(0);
+  cold_.resize(cold_.size() + kCold);
+  model_.push_back(model);
+  kind_.push_back(0);
+  version_.push_back(0);
+  coef_.resize(coef_.size() + static_cast<size_t>(row_));
+  FillRow(lane);
+  Set(lane, state);
+  return lane;
+}
+
+void FilterBank::SetModel(int lane, const FilterModel* model) {
+  model_[lane] = model;
+  FillRow(lane);
+}
+
+bool FilterBank::SameShape(const FilterModel& m) const {
+  if (m.horizons_.size() != nh_ || m.risk_.size() != nl_) return false;
+  for (int i = 0; i < nh_; ++i) {
+    if (m.horizons_.horizon(i) != horizons_[i]) return false;
+  }
+  for (int i = 0; i < nl_; ++i) {
+    if (m.risk_.level(i) != levels_[i]) return false;
+  }
+  return m.sqrt_ppy_ == sqrt_ppy_ && m.scale_num_ == scale_num_ && m.scale_cap_ == scale_cap_;
+}
+
+void FilterBank::FillRow(int lane) {
+  const FilterModel& m = *model_[lane];
+  version_[lane] = m.version_;
+  const bool lag1 = Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_);
+  const bool closed = m.horizons_.closed() || m.horizons_.size() == 0;
+  uint8_t kind = 0;
+  if (lag1 && closed && SameShape(m)) kind |= kFast;
+  if (m.np_ == 1) kind |= kAr;
+  if (m.nq_ == 1) kind |= kMa;
+  if (m.na_ == 1) kind |= kAlpha;
+  if (m.no_ == 1) kind |= kGamma;
+  if (m.nb_ == 1) kind |= kBeta;
+  if (m.variance_ == VarianceKind::kConstant) kind |= kFlat;
+  if (m.variance_ == VarianceKind::kEwma) kind |= kEwma;
+  kind_[lane] = kind;
+  double* row = &coef_[static_cast<size_t>(lane) * row_];
+  row[kMu] = m.mu_;
+  row[kArC] = m.ar_[0];
+  row[kMaC] = m.ma_[0];
+  row[kOmega] = m.omega_;
+  row[kAlphaC] = m.alpha_[0];
+  row[kGammaC] = m.gamma_[0];
+  row[kBetaC] = m.beta_[0];
+  row[kLambda] = m.lambda_;
+  if (!(kind & kFast)) return;  // the rest is read on fast lanes only
+  for (int i = 0; i < nh_; ++i) {
+    row[kRowHead + i] = m.horizons_.sum_a(i);
+    row[kRowHead + nh_ + i] = m.horizons_.sum_b(i);
+  }
+  for (int i = 0; i < nl_; ++i) {
+    row[kRowHead + 2 * nh_ + i] = m.risk_.quantile(i);
+    row[kRowHead + 2 * nh_ + nl_ + i] = m.risk_.es_multiplier(i);
+  }
+}
+
+void FilterBank::GatherHot(int lane, FilterState* s) const {
+  s->r_hist[0] = r1_[lane];
+  s->eps_hist[0] = eps1_[lane];
+  s->var.next_variance = next_variance_[lane];
+  s->var.eps2[0] = e2_1_[lane];
+  s->var.neg_eps2[0] = neg2_1_[lane];
+  s->var.sigma2[0] = s2_1_[lane];
+  s->sd_next = sd_next_[lane];
+  s->mu_next = mu_next_[lane];
+  s->bars = bars_[lane];
+}
+
+void FilterBank::ScatterHot(int lane, const FilterState& s) {
+  r1_[lane] = s.r_hist[0];
+  eps1_[lane] = s.eps_hist[0];
+  next_variance_[lane] = s.var.next_variance;
+  e2_1_[lane] = s.var.eps2[0];
+  neg2_1_[lane] = s.var.neg_eps2[0];
+  s2_1_[lane] = s.var.sigma2[0];
+  sd_next_[lane] = s.sd_next;
+  mu_next_[lane] = s.mu_next;
+  bars_[lane] = s.bars;
+}
+
+FilterState FilterBank::Get(int lane) const {
+  FilterState s;
+  GatherHot(lane, &s);
+  const double* c = &cold_[static_cast<size_t>(lane) * kCold];
+  std::copy(c, c + kColdR, s.r_hist + 1);
+  c += kColdR;
+  std::copy(c, c + kColdEps, s.eps_hist + 1);
+  c += kColdEps;
+  std::copy(c, c + kColdE2, s.var.eps2.begin() + 1);
+  c += kColdE2;
+  std::copy(c, c + kColdNeg, s.var.neg_eps2.begin() + 1);
+  c += kColdNeg;
+  std::copy(c, c + kColdS2, s.var.sigma2.begin() + 1);
+  return s;
+}
+
+void FilterBank::Set(int lane, const FilterState& s) {
+  ScatterHot(lane, s);
+  double* c = &cold_[static_cast<size_t>(lane) * kCold];
+  c = std::copy(s.r_hist + 1, s.r_hist + kMaxArmaOrder, c);
+  c = std::copy(s.eps_hist + 1, s.eps_hist + kMaxArmaOrder, c);
+  c = std::copy(s.var.eps2.begin() + 1, s.var.eps2.end(), c);
+  c = std::copy(s.var.neg_eps2.begin() + 1, s.var.neg_eps2.end(), c);
+  std::copy(s.var.sigma2.begin() + 1, s.var.sigma2.end(), c);
+}
+
+void FilterBank::Init(int lane, double variance) {
+  FilterState s;
+  InitFilterState(*model_[lane], variance, &s);
+  Set(lane, s);
+}
+
+void FilterBank::Advance(int lane, double r) {
+  const FilterModel& m = *model_[lane];
+  if (Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_)) {
+    GatherHot(lane, &scratch_);
+    AdvanceState(m, &scratch_, r);
+    ScatterHot(lane, scratch_);
+  } else {
+    FilterState s = Get(lane);
+    AdvanceState(m, &s, r);
+    Set(lane, s);
+  }
+}
+
+void FilterBank::Step(int lane, const FilterModel& m, double r, BarUpdate* out) {
+  if (&m == model_[lane] && (kind_[lane] & kFast)) {
+    (this->*lane_)(&lane, &r, 1, out);
+    return;
+  }
+  StepGathered(lane, m, r, out);
+}
+
+void FilterBank::StepGathered(int lane, const FilterModel& m, double r, BarUpdate* out) {
+  // Every order <= 1: the step (and a forecast recursion of a non-closed
+  // table) reads and writes lag 0 only, so the hot values are the whole state.
+  if (Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_)) {
+    GatherHot(lane, &scratch_);
+    FilterStep(m, &scratch_, r, out);
+    ScatterHot(lane, scratch_);
+  } else {
+    FilterState s = Get(lane);
+    FilterStep(m, &s, r, out);
+    Set(lane, s);
+  }
+}
+
+struct FilterBank::Cols {
+  double* r1;
+  double* eps1;
+  double* nv;
+  double* e21;
+  double* neg21;
+  double* s21;
+  double* sd;
+  double* mn;
+  int64_t* bars;
+  const uint8_t* kind;
+  const double* coef;
+  const uint32_t* version;
+};
+
+FilterBank::Cols FilterBank::columns() {
+  return Cols{r1_.data(),     eps1_.data(), next_variance_.data(), e2_1_.data(),
+              neg2_1_.data(), s2_1_.data(), sd_next_.data(),       mu_next_.data(),
+              bars_.data(),   kind_.data(), coef_.data(),          version_.data()};
+}
+
+template <int NH, int NL>
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, int l, uint8_t kind,
+                                                               double x, BarUpdate* o, double* eps,
+                                                               double* sd) {
+  // FilterModel::Advance term by term: the lag writes, then the variance and
+  // the mean forecast in its summation order.
+  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
+  const double* row = c.coef + static_cast<size_t>(l) * kRow;
+  const double mu = c.mn[l];
+  const double var = c.nv[l];
+  const double e = x - mu;
+  const double e2 = e * e;
+  if (kind & kAr) c.r1[l] = x;
+  if (kind & kMa) c.eps1[l] = e;
+  c.e21[l] = e2;
+  const double neg = e < 0.0 ? e2 : 0.0;
+  if (kind & kGamma) c.neg21[l] = neg;
+  c.s21[l] = var;
+  double v;
+  if (kind & kFlat) {
+    v = row[kOmega];
+  } else if (kind & kEwma) {
+    v = row[kLambda] * var + (1.0 - row[kLambda]) * e2;
+  } else {
+    v = row[kOmega];
+    if (kind & kAlpha) v += row[kAlphaC] * e2;
+    if (kind & kGamma) v += row[kGammaC] * neg;
+    if (kind & kBeta) v += row[kBetaC] * var;
+  }
+  c.nv[l] = v;
+  double m = row[kMu];
+  if (kind & kAr) m += row[kArC] * x;
+  if (kind & kMa) m += row[kMaC] * e;
+  c.mn[l] = m;
+  ++c.bars[l];
+  o->r = x;
+  o->mu = mu;
+  o->eps = e;
+  o->var = var;
+  o->var_next = v;
+  *eps = e;
+  *sd = c.sd[l];
+  return v;
+}
+
+template <int NH, int NL>
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, int l, double s,
+                                                             double v, double z, double sc,
+                                                             BarUpdate* o) const {
+  // FilterStep's outputs from the next-bar forecasts, in its order.
+  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;
+  const double* row = c.coef + static_cast<size_t>(l) * kRow;
+  const double m = c.mn[l];
+  c.sd[l] = s;
+  o->z = z;
+  o->vol_ann = s * sqrt_ppy_;
+  o->n_horizons = NH;
+  const double* sum_a = row + kRowHead;
+  const double* sum_b = sum_a + NH;
+#pragma GCC unroll 8
+  for (int i = 0; i < NH; ++i) {
+    o->horizons[i] = horizons_[i];
+    o->var_h[i] = sum_a[i] + sum_b[i] * v;
+  }
+  o->n_levels = NL;
+  const double* q = sum_b + NH;
+  const double* es = q + NL;
+#pragma GCC unroll 4
+  for (int i = 0; i < NL; ++i) {
+    o->levels[i] = levels_[i];
+    o->var_risk[i] = -(m + s * q[i]);
+    o->es[i] = s * es[i] - m;
+  }
+  o->scale = std::min(scale_cap_, sc);
+  o->ver = c.version[l];
+}
+
+template <int NH, int NL>
+void FilterBank::StepLane(const int* lane, const double* r, int /*c*/, BarUpdate* out) {
+  // One fast lane (Step): the root and divisions one at a time; sqrtsd/divsd
+  // round as the chunk's sqrtpd/divpd do.
+  const Cols c = columns();
+  double e, sd;
+  const double v = Recurse<NH, NL>(c, *lane, c.kind[*lane], *r, out, &e, &sd);
+  const double s = std::sqrt(v);
+  Publish<NH, NL>(c, *lane, s, v, e / sd, scale_num_ / s, out);
+}
+
+template <int NH, int NL>
+void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* out) {
+  // Per chunk: eps, the standardizing sd, next variance; then sd_next, z and
+  // the unclamped scale from pass 2.
+  alignas(16) double eps[kChunk], sd[kChunk], vn[kChunk], sdn[kChunk], z[kChunk], sc[kChunk];
+  bool fast[kChunk];
+  const Cols cols = columns();
+  // Pass 1, per lane: the recursions and the outputs that need no division or
+  // root; lanes that are not fast step whole through FilterStep.
+  for (int k = 0; k < c; ++k) {
+    const int l = lanes[k];
+    const uint8_t kind = cols.kind[l];
+    fast[k] = (kind & kFast) != 0;
+    if (!fast[k]) {
+      StepGathered(l, *model_[l], r[k], &out[k]);
+      eps[k] = 0.0;  // pass 2 computes on these harmlessly; pass 3 skips the lane
+      sd[k] = 1.0;
+      vn[k] = 1.0;
+      continue;
+    }
+    vn[k] = Recurse<NH, NL>(cols, l, kind, r[k], &out[k], &eps[k], &sd[k]);
+  }
+  // Pass 2, over the chunk: the root and the two divisions, two lanes per
+  // instruction where SSE2 is there (the divider is the step's bottleneck).
+#if defined(__SSE2__)
+  int cp = c;
+  if (cp & 1) {  // pad to pairs
+    eps[cp] = 0.0;
+    sd[cp] = 1.0;
+    vn[cp] = 1.0;
+    ++cp;
+  }
+  const __m128d num = _mm_set1_pd(scale_num_);
+  for (int k = 0; k < cp; k += 2) {
+    const __m128d s = _mm_sqrt_pd(_mm_load_pd(vn + k));
+    _mm_store_pd(sdn + k, s);
+    _mm_store_pd(z + k, _mm_div_pd(_mm_load_pd(eps + k), _mm_load_pd(sd + k)));
+    _mm_store_pd(sc + k, _mm_div_pd(num, s));
+  }
+#else
+  for (int k = 0; k < c; ++k) {
+    sdn[k] = std::sqrt(vn[k]);
+    z[k] = eps[k] / sd[k];
+    sc[k] = scale_num_ / sdn[k];
+  }
+#endif
+  // Pass 3, per lane: sd_next into the state and the outputs from the
+  // next-bar forecasts.
+  for (int k = 0; k < c; ++k) {
+    if (fast[k]) Publish<NH, NL>(cols, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
+  }
+}
+
+template <bool kOneLane, size_t... I>
+auto FilterBank::ChunkTable(std::index_sequence<I...>) {
+  constexpr int kL = kMaxRiskLevels + 1;
+  if constexpr (kOneLane) {
+    return std::array<ChunkFn, sizeof...(I)>{
+        &FilterBank::StepLane<static_cast<int>(I / kL), static_cast<int>(I % kL)>...};
+  } else {
+    return std::array<ChunkFn, sizeof...(I)>{
+        &FilterBank::StepChunk<static_cast<int>(I / kL), static_cast<int>(I % kL)>...};
+  }
+}
+
+// After ChunkTable: its return type is deduced from its definition.
+FilterBank::FilterBank(const OutputOptions& outputs) {
+  // As FilterModel::Create computes them, so that SameShape compares equal.
+  nh_ = std::min(static_cast<int>(outputs.horizons.size()), kMaxHorizons);
+  nl_ = std::min(static_cast<int>(outputs.risk_levels.size()), kMaxRiskLevels);
+  for (int i = 0; i < nh_; ++i) horizons_[i] = outputs.horizons[i];
+  for (int i = 0; i < nl_; ++i) levels_[i] = outputs.risk_levels[i];
+  sqrt_ppy_ = std::sqrt(outputs.periods_per_year);
+  scale_num_ = outputs.target_vol_ann / sqrt_ppy_;
+  scale_cap_ = outputs.scale_cap;
+  row_ = kRowHead + 2 * nh_ + 2 * nl_;
+  constexpr size_t kShapes = (kMaxHorizons + 1) * (kMaxRiskLevels + 1);
+  static const auto chunks = ChunkTable<false>(std::make_index_sequence<kShapes>());
+  static const auto lanes = ChunkTable<true>(std::make_index_sequence<kShapes>());
+  const size_t shape = static_cast<size_t>(nh_ * (kMaxRiskLevels + 1) + nl_);
+  chunk_ = chunks[shape];
+  lane_ = lanes[shape];
+}
+
+void FilterBank::StepBatch(absl::Span<const int> lanes, absl::Span<const double> r,
+                           BarUpdate* out) {
+  const ChunkFn chunk = chunk_;
+  const size_t n = lanes.size();
+  for (size_t base = 0; base < n; base += kChunk) {
+    const int c = static_cast<int>(std::min<size_t>(kChunk, n - base));
+    (this->*chunk)(lanes.data() + base, r.data() + base, c, out + base);
+  }
+}
+
+}  // namespace aftershock

@@ -1,0 +1,331 @@
+#include "aftershock/filter_bank.h"
+
+#include <algorithm>
+#include <catch2/catch.hpp>
+#include <cmath>
+#include <cstring>
+#include <memory>
+#include <random>
+#include <string>
+#include <vector>
+
+#include "aftershock/online_filter.h"
+#include "support/alloc_counter.h"
+
+namespace aftershock {
+namespace {
+
+bool SameBits(double a, double b) { return std::memcmp(&a, &b, sizeof a) == 0; }
+
+// Every field FilterStep writes, bit for bit (NaN payloads included).
+void RequireSameUpdate(const BarUpdate& a, const BarUpdate& b) {
+  const double fa[] = {a.r, a.mu, a.eps, a.var, a.z, a.var_next, a.vol_ann, a.scale};
+  const double fb[] = {b.r, b.mu, b.eps, b.var, b.z, b.var_next, b.vol_ann, b.scale};
+  for (int i = 0; i < 8; ++i) {
+    INFO("scalar field " << i << ": " << fa[i] << " vs " << fb[i]);
+    REQUIRE(SameBits(fa[i], fb[i]));
+  }
+  REQUIRE(a.n_horizons == b.n_horizons);
+  for (int i = 0; i < a.n_horizons; ++i) {
+    REQUIRE(a.horizons[i] == b.horizons[i]);
+    REQUIRE(SameBits(a.var_h[i], b.var_h[i]));
+  }
+  REQUIRE(a.n_levels == b.n_levels);
+  for (int i = 0; i < a.n_levels; ++i) {
+    REQUIRE(SameBits(a.levels[i], b.levels[i]));
+    REQUIRE(SameBits(a.var_risk[i], b.var_risk[i]));
+    REQUIRE(SameBits(a.es[i], b.es[i]));
+  }
+  REQUIRE(a.ver == b.ver);
+  REQUIRE(a.flags == b.flags);
+}
+
+// FilterState is 8-byte fields only (its layout is its checkpoint encoding,
+// online_filter.cc), so a byte comparison is a bit comparison of every lag.
+void RequireSameState(const FilterState& a, const FilterState& b) {
+  REQUIRE(std::memcmp(&a, &b, sizeof a) == 0);
+}
+
+// A random valid parameter vector for a spec: stationary, positive variance.
+ModelParams RandomParams(const ModelSpec& spec, std::mt19937_64* rng) {
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  for (;;) {
+    ModelParams p{spec, {}};
+    const std::vector<std::string> names = spec.ParamNames();
+    const double a_share = 0.02 + 0.15 * u(*rng), persistence = 0.5 + 0.49 * u(*rng);
+    for (const std::string& n : names) {
+      double v = 0;
+      if (n == "mu") {
+        v = 1e-3 * (2 * u(*rng) - 1);
+      } else if (n.rfind("ar_", 0) == 0) {
+        v = 0.4 * (2 * u(*rng) - 1) / spec.ar_order;
+      } else if (n.rfind("ma_", 0) == 0) {
+        v = 0.4 * (2 * u(*rng) - 1) / spec.ma_order;
+      } else if (n == "omega") {
+        v = 1e-6 + 1e-4 * u(*rng);
+      } else if (n.rfind("alpha_", 0) == 0) {
+        v = a_share / spec.arch_order;
+      } else if (n.rfind("gamma_", 0) == 0) {
+        v = 0.1 * u(*rng) / spec.asym_order;
+      } else if (n.rfind("beta_", 0) == 0) {
+        v = (persistence - a_share - 0.06) / spec.garch_order;
+      } else if (n == "lambda") {
+        v = 0.9 + 0.09 * u(*rng);
+      } else if (n == "nu") {
+        v = 3 + 20 * u(*rng);
+      }
+      p.values.push_back(v);
+    }
+    if (p.CheckConstraints().ok()) return p;
+  }
+}
+
+struct Family {
+  const char* mean;
+  std::vector<int> order;
+  const char* variance;
+  VarianceLags lags;
+};
+
+// Every mean kind, every variance kind, orders 1 and above (fast and general
+// lanes); each with both innovation laws.
+const std::vector<Family>& Families() {
+  static const auto* f = new std::vector<Family>{
+      {"zero", {}, "flat", {}},
+      {"constant", {}, "flat", {}},
+      {"constant", {}, "arch", {1, -1, -1}},
+      {"zero", {}, "arch", {2, -1, -1}},
+      {"constant", {}, "garch", {1, 1, -1}},
+      {"zero", {}, "garch", {1, 1, -1}},
+      {"arma", {1, 0}, "garch", {1, 1, -1}},
+      {"arma", {0, 1}, "garch", {1, 1, -1}},
+      {"arma", {1, 1}, "garch", {1, 1, -1}},
+      {"arma", {1, 1}, "gjr", {1, 1, 1}},
+      {"constant", {}, "gjr", {1, 1, 1}},
+      {"constant", {}, "garch", {2, 1, -1}},
+      {"constant", {}, "garch", {1, 2, -1}},
+      {"arma", {2, 1}, "garch", {1, 1, -1}},
+      {"arma", {1, 2}, "gjr", {1, 1, 1}},
+      {"zero", {}, "gjr", {2, 2, 2}},
+      {"zero", {}, "ewma", {}},
+      {"arma", {1, 1}, "ewma", {}},
+  };
+  return *f;
+}
+
+struct Universe {
+  std::vector<std::unique_ptr<FilterModel>> models;  // owned; lanes point here
+  std::vector<const FilterModel*> lane_model;
+  std::vector<FilterState> ref;  // the scalar reference of each lane
+  explicit Universe(const OutputOptions& oo) : bank(oo) {}
+  FilterBank bank;
+};
+
+// A return as a feed delivers them: mostly ordinary, some exact zeros, some
+// huge moves (a squared return overflows for the largest).
+double RandomReturn(std::mt19937_64* rng, double scale) {
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  std::normal_distribution<double> g(0.0, 1.0);
+  const double p = u(*rng);
+  if (p < 0.05) return 0.0;
+  if (p < 0.07) return (u(*rng) < 0.5 ? -1 : 1) * std::pow(10.0, 1 + 170 * u(*rng));
+  return scale * g(*rng);
+}
+
+TEST_CASE("batch step equals the scalar step bit for bit, every family and law", "[bank]") {
+  for (uint64_t seed : {1u, 2u, 3u, 4u}) {
+    INFO("seed " << seed);
+    std::mt19937_64 rng(seed);
+    std::uniform_real_distribution<double> u(0.0, 1.0);
+    OutputOptions engine_outputs;  // the engine's: every model shares them
+    OutputOptions other;           // a second shape: those lanes are not fast
+    other.horizons = {2, 9};
+    other.risk_levels = {0.95};
+    other.periods_per_year = 252 * 78;
+    Universe w(engine_outputs);
+    const int kLanes = 400;
+    w.bank.Reserve(kLanes);
+    std::shared_ptr<FilterModel> shared;
+    for (int l = 0; l < kLanes; ++l) {
+      const Family& f = Families()[rng() % Families().size()];
+      const char* law = (rng() & 1) ? "student" : "gaussian";
+      auto spec = MakeModelSpec(f.mean, f.order, f.variance, f.lags, law);
+      REQUIRE(spec.ok());
+      const bool ewma = spec->variance == VarianceKind::kEwma;
+      const uint32_t version = ewma ? 0 : 1 + static_cast<uint32_t>(rng() % 9);
+      const OutputOptions& oo = u(rng) < 0.1 ? other : engine_outputs;
+      auto m = FilterModel::Create(RandomParams(*spec, &rng), oo, version);
+      REQUIRE(m.ok());
+      w.models.push_back(std::make_unique<FilterModel>(*m));
+      w.lane_model.push_back(w.models.back().get());
+      FilterState st;
+      // Warm-up/fallback EWMA lanes start from a squared return; the others
+      // from their unconditional variance or a given one; some run a few bars.
+      const double v0 = ewma || u(rng) < 0.3 ? 1e-4 * (0.1 + u(rng)) : 0.0;
+      InitFilterState(*w.lane_model.back(), v0, &st);
+      const int pre = static_cast<int>(rng() % 5);
+      for (int b = 0; b < pre; ++b)
+        AdvanceState(*w.lane_model.back(), &st, RandomReturn(&rng, 0.01));
+      w.ref.push_back(st);
+      REQUIRE(w.bank.Add(w.lane_model.back(), st) == l);
+    }
+    int fast = 0;
+    for (int l = 0; l < kLanes; ++l) {
+      RequireSameState(w.bank.Get(l), w.ref[l]);
+      fast += w.bank.fast(l);
+    }
+    // Both kinds of lanes are present: the batch kernel itself is under test,
+    // not only its delegation to FilterStep.
+    REQUIRE(fast > kLanes / 3);
+    REQUIRE(fast < kLanes);
+
+    std::vector<int> lanes;
+    std::vector<double> r;
+    std::vector<BarUpdate> out, want;
+    for (int bar = 0; bar < 60; ++bar) {
+      // A random subset in random order (the engine's batches are ascending).
+      lanes.clear();
+      for (int l = 0; l < kLanes; ++l) {
+        if (u(rng) < 0.8) lanes.push_back(l);
+      }
+      std::shuffle(lanes.begin(), lanes.end(), rng);
+      r.clear();
+      for (size_t k = 0; k < lanes.size(); ++k) r.push_back(RandomReturn(&rng, 0.01));
+      out.assign(lanes.size(), BarUpdate{});
+      want.assign(lanes.size(), BarUpdate{});
+      w.bank.StepBatch(lanes, r, out.data());
+      for (size_t k = 0; k < lanes.size(); ++k) {
+        const int l = lanes[k];
+        FilterStep(*w.lane_model[l], &w.ref[l], r[k], &want[k]);
+        INFO("bar " << bar << " lane " << l << " " << w.lane_model[l]->params().spec.Label()
+                    << " fast " << w.bank.fast(l) << " r " << r[k]);
+        RequireSameUpdate(out[k], want[k]);
+        RequireSameState(w.bank.Get(l), w.ref[l]);
+      }
+      // Model swaps between bars, as the refit coordinator makes them: a new
+      // version kept on the state, or an EWMA fallback restarted.
+      for (int s = 0; s < 5; ++s) {
+        const int l = static_cast<int>(rng() % kLanes);
+        if (!std::isfinite(w.ref[l].var.next_variance) || !(w.ref[l].var.next_variance > 0)) {
+          // A huge return may overflow a lane: restart it as the engine does.
+          w.bank.Init(l, 0.0 + (w.lane_model[l]->is_ewma() ? 1e-4 : 0.0));
+          InitFilterState(*w.lane_model[l], w.lane_model[l]->is_ewma() ? 1e-4 : 0.0, &w.ref[l]);
+        }
+        if (rng() & 1) {
+          auto m = FilterModel::Ewma(0.94, engine_outputs, 0);
+          REQUIRE(m.ok());
+          w.models.push_back(std::make_unique<FilterModel>(*m));
+          w.lane_model[l] = w.models.back().get();
+          w.bank.SetModel(l, w.lane_model[l]);
+          const double v = 1e-4 * (0.5 + u(rng));
+          w.bank.Init(l, v);
+          InitFilterState(*w.lane_model[l], v, &w.ref[l]);
+        } else {
+          const Family& f = Families()[rng() % Families().size()];
+          auto spec = MakeModelSpec(f.mean, f.order, f.variance, f.lags, "student");
+          REQUIRE(spec.ok());
+          if (spec->variance == VarianceKind::kEwma) continue;
+          auto m = FilterModel::Create(RandomParams(*spec, &rng), engine_outputs, 100 + bar);
+          REQUIRE(m.ok());
+          w.models.push_back(std::make_unique<FilterModel>(*m));
+          w.lane_model[l] = w.models.back().get();
+          w.bank.SetModel(l, w.lane_model[l]);
+          // kKeepState: lags of the old model's orders stay.
+        }
+      }
+    }
+  }
+}
+
+TEST_CASE("scalar step, init and advance on a lane equal the FilterState functions", "[bank]") {
+  std::mt19937_64 rng(11);
+  OutputOptions oo;
+  FilterBank bank(oo);
+  std::vector<std::unique_ptr<FilterModel>> models;
+  std::vector<FilterState> ref;
+  for (const Family& f : Families()) {
+    auto spec = MakeModelSpec(f.mean, f.order, f.variance, f.lags, "student");
+    REQUIRE(spec.ok());
+    auto m = FilterModel::Create(RandomParams(*spec, &rng), oo, 3);
+    REQUIRE(m.ok());
+    models.push_back(std::make_unique<FilterModel>(*m));
+    FilterState st;
+    InitFilterState(*models.back(), 2e-4, &st);
+    ref.push_back(st);
+    bank.Add(models.back().get(), st);
+  }
+  // A drive-mode model: the lane's GARCH(1,1) retuned, stepped with Step.
+  auto drive_spec = MakeModelSpec("constant", {}, "garch", {1, 1, -1}, "student");
+  REQUIRE(drive_spec.ok());
+  auto driven = FilterModel::Create(RandomParams(*drive_spec, &rng), oo, 5);
+  REQUIRE(driven.ok());
+  driven->RetuneVariance(3e-6, 0.07, 0.0, 0.9);
+  FilterState drive_ref;
+  InitFilterState(*driven, 0, &drive_ref);
+  const int drive_lane = bank.Add(&*driven, drive_ref);
+  for (int bar = 0; bar < 200; ++bar) {
+    for (int l = 0; l < bank.size() - 1; ++l) {
+      const double x = RandomReturn(&rng, 0.01);
+      if (bar % 7 == 3) {
+        bank.Advance(l, x);
+        AdvanceState(*models[l], &ref[l], x);
+      } else {
+        BarUpdate a, b;
+        bank.Step(l, bank.model(l), x, &a);
+        FilterStep(*models[l], &ref[l], x, &b);
+        RequireSameUpdate(a, b);
+      }
+      RequireSameState(bank.Get(l), ref[l]);
+      if (!std::isfinite(ref[l].var.next_variance)) {
+        bank.Init(l, 1e-4);
+        InitFilterState(*models[l], 1e-4, &ref[l]);
+        RequireSameState(bank.Get(l), ref[l]);
+      }
+    }
+    const double x = RandomReturn(&rng, 0.01);
+    BarUpdate a, b;
+    bank.Step(drive_lane, *driven, x, &a);
+    FilterStep(*driven, &drive_ref, x, &b);
+    RequireSameUpdate(a, b);
+    RequireSameState(bank.Get(drive_lane), drive_ref);
+    if (!std::isfinite(drive_ref.var.next_variance)) {
+      bank.Init(drive_lane, 0);
+      InitFilterState(*driven, 0, &drive_ref);
+    }
+  }
+}
+
+TEST_CASE("Get and Set keep every lag; the batch step allocates nothing", "[bank]") {
+  std::mt19937_64 rng(5);
+  std::uniform_real_distribution<double> u(0.5, 2.0);
+  auto spec = MakeModelSpec("arma", {2, 2}, "gjr", {3, 2, 3}, "student");
+  REQUIRE(spec.ok());
+  auto m = FilterModel::Create(RandomParams(*spec, &rng), OutputOptions{}, 1);
+  REQUIRE(m.ok());
+  FilterBank bank{OutputOptions{}};
+  bank.Reserve(64);
+  for (int l = 0; l < 64; ++l) {
+    FilterState s;
+    for (double& v : s.r_hist) v = u(rng);
+    for (double& v : s.eps_hist) v = u(rng);
+    for (double& v : s.var.eps2) v = u(rng);
+    for (double& v : s.var.neg_eps2) v = u(rng);
+    for (double& v : s.var.sigma2) v = u(rng);
+    s.var.next_variance = u(rng);
+    s.sd_next = std::sqrt(s.var.next_variance);
+    s.mu_next = u(rng);
+    s.bars = l;
+    bank.Add(&*m, s);
+    RequireSameState(bank.Get(l), s);
+  }
+  std::vector<int> lanes(64);
+  for (int l = 0; l < 64; ++l) lanes[l] = l;
+  std::vector<double> r(64, 0.01);
+  std::vector<BarUpdate> out(64);
+  const uint64_t before = testing::AllocationCount();
+  bank.StepBatch(lanes, r, out.data());
+  if (testing::AllocationCountingEnabled()) CHECK(testing::AllocationCount() == before);
+}
+
+}  // namespace
+}  // namespace aftershock
