@@ -132,10 +132,15 @@ def main():
         rows.append((target, bench, why, "–"))
 
     if "filter" not in args.skip:
-        r = gbench(args.build, "filter_bench", ["--benchmark_filter=BM_FilterStep"], 900)
+        r = gbench(args.build, "filter_bench", ["--benchmark_filter=BM_Filter(Step|Bank)"], 900)
         runs.append(r)
-        for name, label in (("BM_FilterStep/per_symbol_models_10k", "a model per symbol"),
-                            ("BM_FilterStep/shared_model_10k", "one shared model")):
+        for name, label in (
+                ("BM_FilterStep/per_symbol_models_10k", "a model per symbol, `FilterStep`"),
+                ("BM_FilterBank/scalar_per_symbol_models_10k",
+                 "a model per symbol, the engine's one-symbol step (bars closed by a tick)"),
+                ("BM_FilterBank/batch_per_symbol_models_10k",
+                 "a model per symbol, the engine's batch step (bars closed by the clock)"),
+                ("BM_FilterStep/shared_model_10k", "one shared model, `FilterStep`")):
             tgt = ("P1 filter step ≤ 25 ns (issue 13: ≤ 10 ns), ARMA(1,1)/GARCH(1,1)/student, "
                    f"all outputs, 10,000 symbols, {label}")
             e = r.bench.get(name)
