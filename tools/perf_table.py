@@ -110,6 +110,45 @@ def tiered(value, strict, loose, loose_name, higher_is_better=False):
     return f"{loose_name} met; issue target missed" if meets(loose) else "missed"
 
 
+# What the parser looks for in each benchmark's source: engine_bench's row
+# labels (as written in its source, before the encoding is filled in) and the
+# Google Benchmark names. --check-labels fails when one has gone, so a renamed
+# row cannot silently turn into "not measured" (ctest runs it).
+EXPECTED = {
+    "engine_bench.cc": [
+        '"raw ZeroMQ pass-through, 1 tick/msg ("', '"engine, 1 tick/msg ("',
+        '"engine, 1 tick/msg, batched updates ("', '"engine, batches of "',
+        '"engine ingest only, batches of "', '"raw latency tick->tick"',
+        '"engine latency tick->update"', '"raw latency, busy-poll forwarder"',
+        '"engine latency, busy-poll"', '"replay core, pre-parsed ticks, JSON encode"',
+        '"replay core, pre-parsed ticks, binary encode"', 'bars per CPU-second',
+        'pooled %.2f, median of %d rounds %.2f', '"checkpoints, slices of "'],
+    "filter_bench.cc": ["BM_FilterStep, per_symbol_models_10k", "BM_FilterStep, shared_model_10k",
+                        "BM_FilterBank, batch_per_symbol_models_10k",
+                        "BM_FilterBank, scalar_per_symbol_models_10k"],
+    "fit_bench.cc": ["BM_ColdFit, no_std_errors", "BM_WarmFit, no_std_errors",
+                     "ratio SciPy / aftershock:", "aftershock cold fit (no std errors):"],
+    "identify_bench.cc": ["BM_IdentifyPipeline"],
+    "refit_bench.cc": ["BM_IngestLatency", '"p99_ratio"'],
+}
+
+
+def check_labels(source_dir):
+    bad = []
+    for name, needles in EXPECTED.items():
+        path = os.path.join(source_dir, "bench", name)
+        try:
+            text = open(path).read()
+        except OSError as e:
+            bad.append(f"{path}: {e}")
+            continue
+        bad += [f"{path}: no {n}" for n in needles if n not in text]
+    for b in bad:
+        print(b, file=sys.stderr)
+    print("perf_table labels: " + ("missing " + str(len(bad)) if bad else "all present"))
+    return 1 if bad else 0
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--build", default="build", help="build directory (default: build)")
@@ -118,7 +157,11 @@ def main():
     ap.add_argument("--readme", default="README.md", help="README to write (default: README.md)")
     ap.add_argument("--skip", action="append", default=[],
                     help="skip a benchmark (filter, fit, refit, identify, engine, checkpoint, scale)")
+    ap.add_argument("--check-labels", metavar="SOURCE_DIR",
+                    help="only check that the rows parsed here still exist in bench/ (ctest)")
     args = ap.parse_args()
+    if args.check_labels:
+        return check_labels(args.check_labels)
     rows = []  # (target, benchmark, measured, verdict)
     runs = []
 
