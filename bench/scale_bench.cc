@@ -135,7 +135,8 @@ void PrintHelp() {
       "  --quick               10000 instruments, 2 minutes (flags given after it win)\n"
       "  --help                this text\n\n"
       "Full run (about 25 minutes of wall time, 4 GB of memory):\n"
-      "  build/bench/scale_bench --instruments 100000 --minutes 10\n");
+      "  build/bench/scale_bench                 (the defaults: 100000 instruments, 5 minutes)\n"
+      "Quick run (about 8 minutes): build/bench/scale_bench --quick\n");
 }
 
 bool ParseFlags(int argc, char** argv, Flags* f) {
