@@ -100,6 +100,10 @@ class EngineServices {
   virtual bool refit_enabled() const = 0;
   // Refit counters (zero when disabled). Any thread.
   virtual RefitStats refit_stats() const = 0;
+  // The refit coordinator's own accounting of the bytes it holds per symbol
+  // (RefitCoordinator::MemoryBytesPerSymbol: window, bookkeeping, one
+  // version; job slots excluded); 0 when refits are off. Any thread.
+  virtual size_t refit_bytes_per_symbol() const = 0;
   // Alert counters by kind and severity. Ingest thread.
   virtual const AlertCounters& alert_counters() const = 0;
   // The refit coordinator's version in force for the core's symbol `index`

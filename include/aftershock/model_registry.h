@@ -62,6 +62,12 @@ struct RefitRecord {
   std::vector<std::string> reasons;  // gate reasons (empty when swapped)
   std::string note;                  // the refitter's note
   double fit_seconds = 0;            // wall time of the refitter call
+  // In-process timings of the job (not in the JSON record, so replay output
+  // stays byte-identical): wall seconds from its submission by the ingest
+  // thread until a worker took it, and from then until its result was ready
+  // (the refitter call plus gate, holdout scores and the variance re-run).
+  double queue_seconds = 0;
+  double job_seconds = 0;
   int consecutive_failures = 0;      // after this record
   bool fallback = false;             // fallback in force after this record
 };

@@ -8,10 +8,13 @@
 //      "Hand-off"): on a pass the new version is swapped in and *state is
 //      re-run under it; on a failure the model in force stays, the failure is
 //      counted, and max_failures in a row engage the EWMA fallback;
-//   3. asks the scheduler whether a refit is due and, if so, copies the window
-//      into a free preallocated job slot and queues it (at most one job per
-//      symbol; a due point meeting a pending job is coalesced into it; no free
-//      slot: dropped, counted, retried at the next due point).
+//   3. asks the scheduler whether a refit is due and, if so, takes a free
+//      preallocated job slot for it, copies the window into the slot and
+//      queues it (at most one job per symbol; a due point meeting a pending
+//      job is coalesced into it; no free slot: dropped, counted, retried at
+//      the next due point). In live mode the copy and the queueing wait for
+//      SubmitDeferred, called between input batches, or for the symbol's next
+//      OnBar, whichever comes first; the job's inputs are the same.
 // The next bar then uses the (possibly new) model(id).
 //
 // Hand-off (see src/refit/job_pool.h for the memory orders): the ingest thread
@@ -193,6 +196,17 @@ class RefitCoordinator {
   // REQUIRES: id registered.
   void RecordSkipped(uint32_t id, double r, int32_t tag);
 
+  // Live mode: a due refit takes its job slot and its other inputs at the bar
+  // close, but the copy of the window into the slot and the hand-off to the
+  // workers wait for this call (or for the symbol's next OnBar /
+  // RecordSkipped, which first copy the unchanged window), so a universe that
+  // falls due at one bar close does not copy every window inside that close.
+  // Copies and submits up to `max_jobs` waiting jobs, oldest first; returns how
+  // many. Call it between input batches (EngineServices does, after each
+  // inbound message and at each clock tick). Replay mode copies at the due
+  // point: nothing waits. Ingest thread; no allocation.
+  int SubmitDeferred(int max_jobs);
+
   // Starts symbol `id` on a stored model (model_store.h, --initial-models)
   // instead of the EWMA warm-up: `version` becomes the version in force (flags
   // 0) and the warm start and specification of the next refit; it counts as
@@ -294,6 +308,13 @@ class RefitCoordinator {
   void Process(uint32_t slot);  // worker side
   void Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state);
   void Submit(uint32_t id, SymbolSlot* sym);
+  // Copies the symbol's window into the pending job's slot and hands it to the
+  // pool (live mode's deferred half of Submit).
+  void CopyAndSubmit(const SymbolSlot* sym, uint32_t slot);
+  // Before the symbol's window changes: hands over its job if still uncopied.
+  void SubmitBeforePush(const SymbolSlot& sym);
+  void DeferredPushBack(uint32_t slot);
+  void DeferredUnlink(uint32_t slot);
   // Adopts the group model when due (see "Group models"); true if it did.
   bool MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, FilterState* state);
 
@@ -310,6 +331,11 @@ class RefitCoordinator {
   std::vector<GroupState> groups_;  // indexed by AddSymbol's group
   absl::flat_hash_map<std::string, uint32_t> index_;
   std::vector<uint32_t> free_slots_;  // free job slots (capacity preallocated)
+  // Live mode: the slots of jobs waiting for SubmitDeferred, oldest first, as
+  // a doubly linked list over the slot indices (-1 ends it), so OnBar can take
+  // one out of the middle in O(1). A slot is pending at most once.
+  std::vector<int32_t> deferred_next_, deferred_prev_;
+  int32_t deferred_head_ = -1, deferred_tail_ = -1;
   RefitRecord last_record_;
   // Job slots: owned by the ingest thread or by one worker at a time, following
   // the protocol of job_pool.h (never both).
@@ -321,6 +347,9 @@ class RefitCoordinator {
         refit_errors{0}, fallbacks{0}, replay_waits{0}, pooled{0};
     std::atomic<int> in_flight{0};
   };
+  // Jobs not yet handed to the workers (live mode), counted in stats().queued.
+  // Written by the ingest thread, read anywhere (relaxed).
+  std::atomic<int> deferred_count_{0};
   Counters counters_;
 
   // Last: destroyed first, so the workers stop before the slots go away.

@@ -174,6 +174,9 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   // ---- EngineServices ----
   bool refit_enabled() const override { return refit_ != nullptr; }
   RefitStats refit_stats() const override { return refit_ ? refit_->stats() : RefitStats{}; }
+  size_t refit_bytes_per_symbol() const override {
+    return refit_ ? refit_->MemoryBytesPerSymbol() : 0;
+  }
   ModelVersionPtr model_version(int index) const override {
     if (!refit_ || index < 0 || index >= static_cast<int>(symbols_.size()) ||
         symbols_[index].refit_id < 0) {
@@ -563,6 +566,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       // model records byte-identical across runs (refits are rare; a copy).
       replay_record_ = *rec_ptr;
       replay_record_.fit_seconds = 0;
+      replay_record_.queue_seconds = 0;
+      replay_record_.job_seconds = 0;
       rec_ptr = &replay_record_;
     }
     const RefitRecord& rec = *rec_ptr;
@@ -601,7 +606,18 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     }
   }
 
+  // Live refits: the jobs due at earlier bar closes get their window copies
+  // here, between input batches, a few per gap (about 4 µs each for a
+  // 2,000-bar window not in cache), so that ticks queued behind a bar close
+  // where a whole universe fell due do not wait for every copy.
+  static constexpr int kDeferredPerBatch = 8;
+  static constexpr int kDeferredPerClock = 256;
+  void OnBatchEnd(IngestCore*) override {
+    if (refit_) refit_->SubmitDeferred(kDeferredPerBatch);
+  }
+
   void OnClock(IngestCore* core, int64_t now_ns) override {
+    if (refit_) refit_->SubmitDeferred(kDeferredPerClock);
     FeedCheck feed;
     feed.now_ns = now_ns;
     feed.in_session = InSession(config_.bars.session, now_ns);

@@ -1,7 +1,13 @@
 #include "refit/job_pool.h"
 
 #include <catch2/catch.hpp>
+#include <cerrno>
 #include <condition_variable>
+#ifdef __linux__
+#include <sys/resource.h>
+#include <sys/syscall.h>
+#include <unistd.h>
+#endif
 #include <mutex>
 #include <vector>
 
@@ -26,6 +32,26 @@ TEST_CASE("every submitted slot completes and its results are visible", "[pool]"
   }
   CHECK(pool.queued() == 0);
 }
+
+#ifdef __linux__
+TEST_CASE("workers run at niceness 10 or lower priority, the ingest thread unchanged", "[pool]") {
+  errno = 0;
+  const int ingest_before = getpriority(PRIO_PROCESS, static_cast<id_t>(::syscall(SYS_gettid)));
+  REQUIRE(errno == 0);
+  std::vector<int> nice(2, -100);  // written by the job of each slot
+  {
+    JobPool pool(2, 2, [&](uint32_t s) {
+      nice[s] = getpriority(PRIO_PROCESS, static_cast<id_t>(::syscall(SYS_gettid)));
+    });
+    for (uint32_t s = 0; s < 2; ++s) pool.Submit(s, false);
+    for (uint32_t s = 0; s < 2; ++s) pool.WaitDone(s);
+  }
+  // 10, or the process's own niceness when it already runs above 10 (an
+  // unprivileged thread cannot lower it).
+  for (int n : nice) CHECK(n >= 10);
+  CHECK(getpriority(PRIO_PROCESS, static_cast<id_t>(::syscall(SYS_gettid))) == ingest_before);
+}
+#endif
 
 TEST_CASE("the priority lane is served first", "[pool]") {
   std::mutex mu;

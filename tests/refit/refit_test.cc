@@ -4,6 +4,7 @@
 #include "aftershock/refit.h"
 
 #include <catch2/catch.hpp>
+#include <chrono>
 #include <cmath>
 #include <condition_variable>
 #include <cstring>
@@ -51,6 +52,7 @@ struct Driver {
   std::vector<std::vector<BarUpdate>> updates;  // per symbol, per bar
   std::vector<RefitRecord> records;
   std::string bytes;  // var, z, ver of every update, in bar order
+  bool defer_until_next_bar = false;  // no SubmitDeferred: jobs wait for their next OnBar
 
   Driver(const RefitOptions& o, std::unique_ptr<Refitter> refitter) {
     auto c = RefitCoordinator::Create(o, OutputOptions{}, std::move(refitter));
@@ -79,6 +81,10 @@ struct Driver {
     updates[k].push_back(u);
     const RefitBarResult res = coord->OnBar(id, t_ns, r, &states[k]);
     if (res.applied || res.pooled) records.push_back(coord->last_record());
+    // The gap after the bar, as EngineServices gives it after each message:
+    // live mode copies the windows of the jobs due at this bar now.
+    if (defer_until_next_bar) return res;
+    coord->SubmitDeferred(1 << 20);
     return res;
   }
 };
@@ -453,6 +459,129 @@ TEST_CASE("full queue drops and counts; a pending job coalesces later due points
   CHECK(s.submitted == 4);
 }
 
+TEST_CASE("records carry the job's queue wait and the worker's time", "[refit]") {
+  const ModelParams p = Garch(0.0, 0.05, 0.08, 0.9);
+  RefitOptions o;
+  o.window = 400;
+  o.min_bars = 300;
+  o.every_bars = 1000;
+  o.jitter_fraction = 0;  // both due at bar 300
+  o.workers = 1;
+  o.mode = RefitMode::kLive;
+  o.group_models = false;
+  auto gated = std::make_unique<GatedRefitter>();
+  GatedRefitter* gate = gated.get();
+  Driver d(o, std::move(gated));
+  std::vector<std::vector<double>> r;
+  for (int k = 0; k < 2; ++k) {
+    d.Add("SYM" + std::to_string(k), 1.0);
+    r.push_back(Sim(p, 302, 60 + k));
+  }
+  for (int t = 0; t < 300; ++t) {
+    for (uint32_t k = 0; k < 2; ++k) d.Bar(k, t * kBarNs, r[k][t]);
+  }
+  // The first job is held inside the refitter, the second waits in the queue.
+  gate->WaitEntered(1);
+  constexpr double kHeld = 0.05;
+  std::this_thread::sleep_for(std::chrono::duration<double>(kHeld));
+  gate->Release();
+  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  for (uint32_t k = 0; k < 2; ++k) d.Bar(k, 300 * kBarNs, r[k][300]);
+  REQUIRE(d.records.size() == 2);
+  const RefitRecord& held = d.records[0].symbol == "SYM0" ? d.records[0] : d.records[1];
+  const RefitRecord& queued = d.records[0].symbol == "SYM0" ? d.records[1] : d.records[0];
+  // The held job spent kHeld in the refitter call; the worker's time includes it.
+  CHECK(held.fit_seconds >= kHeld);
+  CHECK(held.job_seconds >= held.fit_seconds);
+  CHECK(held.queue_seconds >= 0);
+  // The queued job waited for the held one before a worker took it.
+  CHECK(queued.queue_seconds >= kHeld);
+  CHECK(queued.job_seconds >= queued.fit_seconds);
+  CHECK(queued.fit_seconds > 0);
+}
+
+// Records what each job hands the refitter.
+class InputRefitter : public Refitter {
+ public:
+  struct Seen {
+    uint32_t symbol_id;
+    size_t n;
+    double last;
+    int64_t bar;
+  };
+  absl::StatusOr<RefitCandidate> Fit(const RefitRequest& req) override {
+    {
+      std::lock_guard<std::mutex> l(mu_);
+      seen_.push_back({req.symbol_id, req.returns.size(), req.returns.back(), req.bar});
+    }
+    return inner_->Fit(req);
+  }
+  std::vector<Seen> seen() {
+    std::lock_guard<std::mutex> l(mu_);
+    return seen_;
+  }
+
+ private:
+  std::mutex mu_;
+  std::vector<Seen> seen_;
+  std::unique_ptr<Refitter> inner_ = DefaultRefitter();
+};
+
+TEST_CASE("live jobs wait for the gap or the next bar, with their due point's window", "[refit]") {
+  const ModelParams p = Garch(0.0, 0.05, 0.08, 0.9);
+  RefitOptions o;
+  o.window = 400;
+  o.min_bars = 300;
+  o.every_bars = 1000;
+  o.jitter_fraction = 0;  // all three due at their 300th return
+  o.workers = 1;
+  o.mode = RefitMode::kLive;
+  o.group_models = false;
+  auto inputs = std::make_unique<InputRefitter>();
+  InputRefitter* seen = inputs.get();
+  Driver d(o, std::move(inputs));
+  d.defer_until_next_bar = true;  // SubmitDeferred only where called below
+  std::vector<std::vector<double>> r;
+  for (int k = 0; k < 3; ++k) {
+    d.Add("SYM" + std::to_string(k), 1.0);
+    r.push_back(Sim(p, 302, 80 + k));
+  }
+  for (int t = 0; t < 300; ++t) {
+    for (uint32_t k = 0; k < 3; ++k) d.Bar(k, t * kBarNs, r[k][t]);
+  }
+  RefitStats s = d.coord->stats();
+  CHECK(s.submitted == 3);
+  CHECK(s.in_flight == 3);
+  CHECK(s.queued == 3);  // slots taken, windows not copied, nothing handed to the workers
+  CHECK(s.running == 0);
+  // A gap hands over the oldest first: SYM0's job.
+  CHECK(d.coord->SubmitDeferred(1) == 1);
+  // SYM2's next bar hands its job over before the return enters the window.
+  d.Bar(2, 300 * kBarNs, r[2][300]);
+  CHECK(d.coord->stats().queued + d.coord->stats().running >= 1);
+  // The last one waits for the next gap.
+  CHECK(d.coord->SubmitDeferred(10) == 1);
+  CHECK(d.coord->SubmitDeferred(10) == 0);
+  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  const auto v = seen->seen();
+  REQUIRE(v.size() == 3);
+  CHECK(v[0].symbol_id == d.ids[0]);
+  CHECK(v[1].symbol_id == d.ids[2]);
+  CHECK(v[2].symbol_id == d.ids[1]);
+  for (const auto& x : v) {
+    // Every job saw the 300 returns up to its due bar, never the 301st.
+    const uint32_t k = x.symbol_id == d.ids[0] ? 0 : x.symbol_id == d.ids[1] ? 1 : 2;
+    CHECK(x.n == 300);
+    CHECK(x.last == r[k][299]);
+    CHECK(x.bar == 300);
+  }
+  // Completed jobs reach the stream at the symbols' next bars as before.
+  for (uint32_t k = 0; k < 2; ++k) d.Bar(k, 300 * kBarNs, r[k][300]);
+  d.Bar(2, 301 * kBarNs, r[2][301]);
+  REQUIRE(d.records.size() == 3);
+  for (const auto& rec : d.records) CHECK(rec.scheduled_bar == 300);
+}
+
 // Records the order in which jobs reach the refitter; holds them while `hold`.
 class OrderRefitter : public Refitter {
  public:
@@ -718,6 +847,8 @@ TEST_CASE("the ingest side allocates nothing per bar, storm included", "[refit]"
   // workers are held before they allocate anything.
   uint64_t before = testing::AllocationCount();
   for (uint32_t k = 0; k < 8; ++k) d.coord->OnBar(d.ids[k], 299 * kBarNs, r[k][299], &d.states[k]);
+  CHECK(d.coord->stats().queued == 8);  // live mode: the copies wait for the gap
+  CHECK(d.coord->SubmitDeferred(100) == 8);
   if (testing::AllocationCountingEnabled()) CHECK(testing::AllocationCount() == before);
   CHECK(d.coord->stats().submitted == 8);
   gate->WaitEntered(2);

@@ -151,6 +151,23 @@ void AddClockName(std::vector<Tick>* ticks, int first, int last) {
       [](int64_t) { return 0.01 / std::sqrt(30.0); });
 }
 
+TEST_CASE("the services report the coordinator's bytes per symbol, 0 without refits",
+          "[services]") {
+  Run off(Config());
+  CHECK(off.services->refit_bytes_per_symbol() == 0);
+  const auto with_window = [](int window) {
+    return "[bars]\ninterval = \"1m\"\n[refit]\nevery_bars = 100\nmin_bars = 200\nwindow = " +
+           std::to_string(window) + "\n";
+  };
+  Run small(with_window(500)), large(with_window(2000));
+  const size_t s = small.services->refit_bytes_per_symbol();
+  const size_t l = large.services->refit_bytes_per_symbol();
+  // The window's 8 bytes a bar is the difference; P5 bounds the whole.
+  CHECK(l - s == 1500 * sizeof(double));
+  CHECK(l > 2000 * sizeof(double));
+  CHECK(l <= 40 * 1024);
+}
+
 TEST_CASE("a large return on a clock-closed one-minute bar raises a shock alert",
           "[services][alerts]") {
   Run run(Config());
