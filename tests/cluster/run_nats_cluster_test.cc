@@ -283,11 +283,13 @@ TEST_CASE(
     read_failures += t.find("cannot read partition") != std::string::npos;
     if (t.find("caught up") != std::string::npos && t.find(" 0 messages") != std::string::npos)
       continue;
-    std::printf("  +%6.2f s %s: %s\n", secs(line.at - stopped), names[line.file].c_str(), t.c_str());
+    std::printf("  +%6.2f s %s: %s\n", secs(line.at - stopped), names[line.file].c_str(),
+                t.c_str());
   }
   std::printf(
       "after the kill (lease %g s): %d fence(s), %d lease-lost line(s), %d takeover line(s), %d "
-      "checkpoint restore(s), %d lease-round-failure line(s) (the first 3 of a run of failures and every 20th are logged), "
+      "checkpoint restore(s), %d lease-round-failure line(s) (the first 3 of a run of failures and "
+      "every 20th are logged), "
       "%d partition-read failure line(s)\n",
       lease, fences, lost, taken, restores, round_failures, read_failures);
 
