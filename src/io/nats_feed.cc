@@ -530,12 +530,17 @@ class NatsFeedImpl : public NatsFeed {
   }
 
   void RunRound() {
+    const int64_t began = WallNs();
     auto r = leases_->Round();
     const int64_t now = WallNs();
     if (!r.ok()) {
       ++lease_errors_;
-      if (lease_errors_ == 1 || lease_errors_ % 20 == 0) {
-        std::fprintf(stderr, "aftershock: nats: lease round failed: %s\n",
+      ++failed_streak_;
+      // The first rounds of a run of failures and then every 20th: enough to
+      // see what an outage is made of without flooding the log.
+      if (failed_streak_ <= 3 || failed_streak_ % 20 == 0) {
+        std::fprintf(stderr, "aftershock: nats: lease round failed (%d in a row, %.1f s): %s\n",
+                     failed_streak_, static_cast<double>(now - began) / 1e9,
                      std::string(r.status().message()).c_str());
       }
       // Fence: without a successful round for the lease time, the leases may
@@ -549,9 +554,25 @@ class NatsFeedImpl : public NatsFeed {
           for (int p : held) QueueControl(p, ItemKind::kStop, false);
         }
         ++fenced_;
+        // Logged because it is what turns a broker outage into a re-lease:
+        // every held partition is read again (from its checkpoint) only
+        // after a later round claims it.
+        std::fprintf(stderr,
+                     "aftershock: nats: no successful lease round for %.1f s (lease %.1f s): "
+                     "stopped reading partition(s) %s\n",
+                     last_round_ns_ == 0 ? 0.0 : static_cast<double>(now - last_round_ns_) / 1e9,
+                     config_.lease_seconds, absl::StrJoin(held, ",").c_str());
       }
       PublishStats();
       return;
+    }
+    if (failed_streak_ > 0) {
+      std::fprintf(stderr,
+                   "aftershock: nats: lease round succeeded after %d failed round(s), %.1f s "
+                   "since the last successful one\n",
+                   failed_streak_,
+                   last_round_ns_ == 0 ? 0.0 : static_cast<double>(now - last_round_ns_) / 1e9);
+      failed_streak_ = 0;
     }
     last_round_ns_ = now;
     std::vector<int> wanted;
@@ -599,6 +620,12 @@ class NatsFeedImpl : public NatsFeed {
     if (!r->taken_over.empty()) {
       std::fprintf(stderr, "aftershock: nats: %s took over partition(s) %s (lease expired)\n",
                    instance_.c_str(), absl::StrJoin(r->taken_over, ",").c_str());
+    }
+    if (!r->lost.empty()) {
+      std::fprintf(stderr,
+                   "aftershock: nats: %s lost the lease(s) of partition(s) %s (expired or "
+                   "written by another instance)\n",
+                   instance_.c_str(), absl::StrJoin(r->lost, ",").c_str());
     }
     PublishStats();
   }
@@ -894,6 +921,7 @@ class NatsFeedImpl : public NatsFeed {
   // Coordinator thread only.
   std::map<int, std::unique_ptr<Reader>> readers_;
   uint64_t lease_errors_ = 0;
+  int failed_streak_ = 0;  // lease rounds failed since the last successful one
   uint64_t fenced_ = 0;
   int64_t last_round_ns_ = 0;
   std::thread coordinator_;

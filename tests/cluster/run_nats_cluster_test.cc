@@ -7,19 +7,29 @@
 // acknowledgements died with the leader (the duplicate window drops the
 // copies), the engines fail over to the other servers, and the union of
 // their updates, deduplicated by (symbol, bar time), equals a single-process
-// replay byte for byte. Prints how long the updates paused after the kill.
+// replay byte for byte. Prints how long the updates paused after the kill
+// and the engines' log lines after it, stamped with their time since the kill.
+//
+// The engines' lease is 2 s; AFTERSHOCK_TEST_LEASE_SECONDS sets another (to
+// measure whether a lease outlasts the election, README "Scale-out").
 #include <nats/nats.h>
 #include <signal.h>
 
 #include <algorithm>
+#include <atomic>
 #include <catch2/catch.hpp>
 #include <chrono>
 #include <cstdint>
 #include <cstdio>
+#include <cstdlib>
+#include <fstream>
+#include <iterator>
 #include <map>
+#include <mutex>
 #include <nlohmann/json.hpp>
 #include <string>
 #include <thread>
+#include <utility>
 #include <vector>
 
 #include "support/engine_cluster.h"
@@ -61,6 +71,71 @@ StreamPlacement Placement(const std::string& url, const std::string& stream) {
   return out;
 }
 
+// Collects the lines appended to log files, each stamped with the time its
+// poll (every 50 ms) found it. Thread-safety: lines() may be called while the
+// polling thread runs.
+class LogTail {
+ public:
+  explicit LogTail(std::vector<std::string> paths)
+      : paths_(std::move(paths)), offsets_(paths_.size(), 0), thread_([this] { Poll(); }) {}
+  ~LogTail() {
+    stop_.store(true);
+    thread_.join();
+  }
+  LogTail(const LogTail&) = delete;
+  LogTail& operator=(const LogTail&) = delete;
+
+  struct Line {
+    std::chrono::steady_clock::time_point at;
+    size_t file = 0;  // index into the paths
+    std::string text;
+  };
+  std::vector<Line> lines() {
+    std::lock_guard<std::mutex> l(mu_);
+    return lines_;
+  }
+
+ private:
+  void Poll() {
+    std::vector<std::string> partial(paths_.size());
+    while (!stop_.load()) {
+      for (size_t i = 0; i < paths_.size(); ++i) {
+        std::ifstream in(paths_[i], std::ios::binary);
+        if (!in) continue;
+        in.seekg(static_cast<std::streamoff>(offsets_[i]));
+        std::string more((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+        offsets_[i] += more.size();
+        partial[i] += more;
+        const auto now = std::chrono::steady_clock::now();
+        for (size_t nl; (nl = partial[i].find('\n')) != std::string::npos;) {
+          std::lock_guard<std::mutex> l(mu_);
+          lines_.push_back({now, i, partial[i].substr(0, nl)});
+          partial[i].erase(0, nl + 1);
+        }
+      }
+      std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    }
+  }
+
+  const std::vector<std::string> paths_;
+  std::vector<size_t> offsets_;  // bytes read per file (polling thread only)
+  std::atomic<bool> stop_{false};
+  std::mutex mu_;
+  std::vector<Line> lines_;  // guarded by mu_
+  std::thread thread_;       // last: starts after the members above exist
+};
+
+// The engines' lease: 2 s, or AFTERSHOCK_TEST_LEASE_SECONDS when set.
+double LeaseSeconds() {
+  const char* v = std::getenv("AFTERSHOCK_TEST_LEASE_SECONDS");
+  if (v == nullptr || *v == '\0') return 2;
+  char* end = nullptr;
+  const double s = std::strtod(v, &end);
+  REQUIRE(*end == '\0');
+  REQUIRE(s > 0);
+  return s;
+}
+
 // 24 invented instruments x 400 one-minute bars, one tick a bar.
 const std::vector<std::string> kMarket = {"--symbols", "24", "--bars", "400", "--seed", "7"};
 
@@ -77,21 +152,26 @@ TEST_CASE(
   const std::vector<std::string> urls = cluster.urls();
   const std::string replicas = "replicas = 3\n";
   std::vector<std::string> names = {"eng-a", "eng-b", "eng-c"};
+  const double lease = LeaseSeconds();
+  std::printf("lease %g s\n", lease);
   std::vector<std::string> configs;
   for (const std::string& n : names)
-    configs.push_back(testing::FaultConfig(dir, urls, n, replicas));
+    configs.push_back(testing::FaultConfig(dir, urls, n, replicas, lease));
   // The producer knows all three servers (it may be connected to the one that
   // is killed, and then reconnects to another).
-  const std::string producer = testing::FaultConfig(dir, urls, "producer", replicas);
+  const std::string producer = testing::FaultConfig(dir, urls, "producer", replicas, lease);
   const std::map<UpdateKey, std::string> want = testing::ReplayReference(dir, configs[0], kMarket);
   REQUIRE(want.size() > 8000);
 
   std::vector<std::unique_ptr<RunProcess>> engines;
   std::vector<std::string> endpoints;
+  std::vector<std::string> logs_paths;
   for (size_t i = 0; i < names.size(); ++i) {
     engines.push_back(std::make_unique<RunProcess>(configs[i], dir + "/" + names[i] + ".err"));
     endpoints.push_back(testing::BoundEndpoint(engines.back()->err_path));
+    logs_paths.push_back(engines.back()->err_path);
   }
+  LogTail tail(logs_paths);
   // The updates are collected from the engines' ZeroMQ publishers: their copy
   // on core NATS is at most once, and an update in flight through the killed
   // server is lost (1 of 9,336 in one of 9 runs).
@@ -187,6 +267,31 @@ TEST_CASE(
       "of one instrument's updates %.2f s (%zu of 24 instruments updated after the stop)\n",
       victim_name.c_str(), longest_pause, instrument_pause, after.size());
   CHECK(after.size() == 24);
+
+  // What the engines did after the kill: every log line with its time, and
+  // the counts that tell a re-lease (a fence, a lease lost or taken over)
+  // from a plain reconnection.
+  int fences = 0, lost = 0, taken = 0, restores = 0, round_failures = 0, read_failures = 0;
+  for (const LogTail::Line& line : tail.lines()) {
+    if (line.at < stopped) continue;
+    const std::string& t = line.text;
+    fences += t.find("no successful lease round") != std::string::npos;
+    lost += t.find(" lost the lease") != std::string::npos;
+    taken += t.find(" took over partition") != std::string::npos;
+    restores += t.find("restoring its checkpoint") != std::string::npos;
+    round_failures += t.find("lease round failed") != std::string::npos;
+    read_failures += t.find("cannot read partition") != std::string::npos;
+    if (t.find("caught up") != std::string::npos && t.find(" 0 messages") != std::string::npos)
+      continue;
+    std::printf("  +%6.2f s %s: %s\n", secs(line.at - stopped), names[line.file].c_str(),
+                t.c_str());
+  }
+  std::printf(
+      "after the kill (lease %g s): %d fence(s), %d lease-lost line(s), %d takeover line(s), %d "
+      "checkpoint restore(s), %d lease-round-failure line(s) (the first 3 of a run of failures and "
+      "every 20th are logged), "
+      "%d partition-read failure line(s)\n",
+      lease, fences, lost, taken, restores, round_failures, read_failures);
 
   std::string logs;
   for (size_t i = 0; i < names.size(); ++i) {

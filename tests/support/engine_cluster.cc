@@ -184,13 +184,16 @@ std::vector<std::string> CatchUpLines(const std::string& err) {
 }
 
 std::string FaultConfig(const std::string& dir, const std::vector<std::string>& servers,
-                        const std::string& name, const std::string& nats_extra) {
+                        const std::string& name, const std::string& nats_extra,
+                        double lease_seconds) {
   std::string list;
   for (const std::string& url : servers) list += (list.empty() ? "\"" : ", \"") + url + "\"";
+  char lease[64];
+  std::snprintf(lease, sizeof(lease), "%g", lease_seconds);
   return WriteFile(
       dir + "/" + name + ".toml",
-      "[feed]\nsource = \"nats\"\n[nats]\nservers = [" + list +
-          "]\nlease_seconds = 2\ncheckpoint_seconds = 0.5\nupdates_subject = \"upd\"\n"
+      "[feed]\nsource = \"nats\"\n[nats]\nservers = [" + list + "]\nlease_seconds = " + lease +
+          "\ncheckpoint_seconds = 0.5\nupdates_subject = \"upd\"\n"
           "instance = \"" +
           name + "\"\n" + nats_extra +
           "[publish]\nendpoint = \"tcp://127.0.0.1:*\"\n"

@@ -121,11 +121,13 @@ std::string BoundEndpoint(const std::string& err_path);
 std::vector<std::string> CatchUpLines(const std::string& err);
 
 // Writes <dir>/<name>.toml, the engine configuration of the fault tests:
-// [feed] source = "nats" on `servers`, lease 2 s, refits on with the exact
-// hand-off, checkpoints every half second, updates also on NATS subject
-// "upd"; `nats_extra` is appended to the [nats] section. Returns the path.
+// [feed] source = "nats" on `servers`, lease `lease_seconds` (2 s unless
+// given), refits on with the exact hand-off, checkpoints every half second,
+// updates also on NATS subject "upd"; `nats_extra` is appended to the [nats]
+// section. Returns the path.
 std::string FaultConfig(const std::string& dir, const std::vector<std::string>& servers,
-                        const std::string& name, const std::string& nats_extra = "");
+                        const std::string& name, const std::string& nats_extra = "",
+                        double lease_seconds = 2);
 
 // The single-process reference: `aftershock simulate <market>` to a CSV, then
 // `aftershock replay --config <config>` of it; the updates by key.
