@@ -125,9 +125,10 @@ struct NatsFeedStats {
   uint64_t restores = 0;             // partitions started from a stored checkpoint
   uint64_t fresh_starts = 0;         // partitions started empty (no usable checkpoint)
   uint64_t last_checkpoint_bytes = 0;
-  // Age of the oldest held partition's stored state, s: since its last
-  // checkpoint was stored, or since the last checkpoint round found it
-  // current (no message since); -1 = a held partition has none yet.
+  // Age of the oldest held partition's stored state, s: since the snapshot
+  // of its last stored checkpoint was taken, or since the last checkpoint
+  // round found it current (no message since); -1 = a held partition has
+  // none yet.
   double checkpoint_age_seconds = -1;
 };
 

@@ -56,7 +56,8 @@ class NatsFeedImpl : public NatsFeed {
     int partition = 0;
     uint64_t sequence = 0;
     std::unique_ptr<std::string> bytes;
-    bool handover = false;  // the coordinator waits for it (HandOverDone)
+    bool handover = false;    // the coordinator waits for it (HandOverDone)
+    int64_t snapshot_ns = 0;  // wall time the state was captured (its age counts from here)
   };
   // The ingest thread's view of a partition's lane.
   struct LaneState {
@@ -180,7 +181,7 @@ class NatsFeedImpl : public NatsFeed {
       if (lane_[p].delivered > stored_seq_[p].load()) {
         auto bytes = std::make_unique<std::string>();
         if (absl::Status s = lanes_->CheckpointPartition(p, now, bytes.get()); s.ok()) {
-          QueueWrite(WriteJob{p, lane_[p].delivered, std::move(bytes), false});
+          QueueWrite(WriteJob{p, lane_[p].delivered, std::move(bytes), false, now});
           ++stored;
         } else {
           checkpoint_failures_.fetch_add(1, std::memory_order_relaxed);
@@ -224,7 +225,7 @@ class NatsFeedImpl : public NatsFeed {
                      std::string(s.message()).c_str());
         continue;
       }
-      QueueWrite(WriteJob{p, lane_[p].delivered, std::move(bytes), false});
+      QueueWrite(WriteJob{p, lane_[p].delivered, std::move(bytes), false, now});
     }
   }
 
@@ -352,8 +353,9 @@ class NatsFeedImpl : public NatsFeed {
     bool queued = false;
     if (lane.active && store && lane.delivered > stored_seq_[p].load()) {
       auto bytes = std::make_unique<std::string>();
-      if (absl::Status s = lanes_->CheckpointPartition(p, WallNs(), bytes.get()); s.ok()) {
-        QueueWrite(WriteJob{p, lane.delivered, std::move(bytes), true});
+      const int64_t now = WallNs();
+      if (absl::Status s = lanes_->CheckpointPartition(p, now, bytes.get()); s.ok()) {
+        QueueWrite(WriteJob{p, lane.delivered, std::move(bytes), true, now});
         queued = true;
       } else {
         checkpoint_failures_.fetch_add(1, std::memory_order_relaxed);
@@ -399,7 +401,9 @@ class NatsFeedImpl : public NatsFeed {
           last_checkpoint_bytes_.store(job.bytes->size(), std::memory_order_relaxed);
         }
         stored_seq_[job.partition].store(put->stored_sequence);
-        stored_ns_[job.partition].store(WallNs());
+        // The stored state is as old as its snapshot, not as its write: under
+        // load a write can finish while the lane has moved on well past it.
+        stored_ns_[job.partition].store(job.snapshot_ns);
       } else {
         checkpoint_failures_.fetch_add(1, std::memory_order_relaxed);
         std::fprintf(stderr, "aftershock: nats: cannot store the checkpoint of partition %d: %s\n",
@@ -797,10 +801,10 @@ class NatsFeedImpl : public NatsFeed {
         if (s != NATS_OK) {
           sub = nullptr;
           if (++failures == 1 || failures % 50 == 0) {
-            std::fprintf(stderr, "aftershock: nats: %s\n",
-                         std::string(ToStatus(s, absl::StrCat("cannot read partition ", p), jerr)
-                                         .message())
-                             .c_str());
+            std::fprintf(
+                stderr, "aftershock: nats: %s\n",
+                std::string(ToStatus(s, absl::StrCat("cannot read partition ", p), jerr).message())
+                    .c_str());
           }
           std::this_thread::sleep_for(std::chrono::milliseconds(200));
           continue;
@@ -910,10 +914,10 @@ class NatsFeedImpl : public NatsFeed {
   std::condition_variable handover_cv_;  // with mu_
   std::vector<int> handed_over_;         // guarded by mu_
 
-  std::mutex mu_;                   // guards queue_ and graveyard_
-  std::deque<Item> queue_;          // fetched, not yet handed to the engine
-  std::vector<natsMsg*> graveyard_; // consumed, to be freed by a reader
-  std::atomic<size_t> queued_{0};   // queue_.size(), readable without the lock
+  std::mutex mu_;                    // guards queue_ and graveyard_
+  std::deque<Item> queue_;           // fetched, not yet handed to the engine
+  std::vector<natsMsg*> graveyard_;  // consumed, to be freed by a reader
+  std::atomic<size_t> queued_{0};    // queue_.size(), readable without the lock
 
   std::vector<Item> staging_;   // ingest thread
   std::vector<natsMsg*> done_;  // ingest thread: consumed this round
