@@ -83,11 +83,15 @@ struct Universe {
       const auto t1 = std::chrono::steady_clock::now();
       if (lat) lat->push_back(std::chrono::duration<double, std::nano>(t1 - t0).count());
     }
+    // The gap after the bar's batch, as the engine's clock tick: live jobs
+    // deferred by OnBar copy their windows and go to the workers here.
+    coord->SubmitDeferred(256);
     ++bar;
   }
   void Drain() {
     while (coord->stats().in_flight > 0) {
       while (coord->stats().queued + coord->stats().running > 0) {
+        coord->SubmitDeferred(256);  // queued counts the deferred jobs too
         std::this_thread::sleep_for(std::chrono::milliseconds(1));
       }
       Bar(nullptr);
