@@ -304,30 +304,23 @@ def main():
                     per_cpu >= target)
             else:
                 missing(tgt, "`engine_bench --quick`", r)
-        raw, eng = g("raw latency tick->tick (binary)"), g("engine latency tick->update (binary)")
-        tgt = ("P4 latency at 100k ticks/s p50 ≤ 15 µs, p99 ≤ 60 µs (issue 13: overhead over raw "
-               "ZeroMQ ≤ +5 µs p50, ≤ +20 µs p99)")
-        if raw and eng and len(raw["nums"]) >= 2 and len(eng["nums"]) >= 2:
-            d50, d99 = eng["nums"][0] - raw["nums"][0], eng["nums"][1] - raw["nums"][1]
-            row(tgt, "`engine_bench --quick`",
-                f"engine p50 {eng['nums'][0]:.0f} µs, p99 {eng['nums'][1]:.0f} µs; raw ZeroMQ "
-                f"{raw['nums'][0]:.0f} / {raw['nums'][1]:.0f} µs; overhead {d50:+.0f} / {d99:+.0f} µs ({r.where()})",
-                eng["nums"][0] <= 15 and eng["nums"][1] <= 60 and d50 <= 5 and d99 <= 20)
-        else:
-            missing(tgt, "`engine_bench --quick`", r)
-
-        raw, eng = g("raw latency, busy-poll forwarder (binary)"), g(
-            "engine latency, busy-poll (binary)")
-        tgt = ("P4 latency in the low-latency mode (`[feed] busy_poll_us`), against a "
-               "busy-polling raw forwarder, same targets")
-        if raw and eng and len(raw["nums"]) >= 2 and len(eng["nums"]) >= 2:
-            d50, d99 = eng["nums"][0] - raw["nums"][0], eng["nums"][1] - raw["nums"][1]
-            row(tgt, "`engine_bench --quick`",
-                f"engine p50 {eng['nums'][0]:.0f} µs, p99 {eng['nums'][1]:.0f} µs; raw ZeroMQ "
-                f"{raw['nums'][0]:.0f} / {raw['nums'][1]:.0f} µs; overhead {d50:+.0f} / {d99:+.0f} µs ({r.where()})",
-                eng["nums"][0] <= 15 and eng["nums"][1] <= 60 and d50 <= 5 and d99 <= 20)
-        else:
-            missing(tgt, "`engine_bench --quick`", r)
+        latency_targets = "p50 ≤ 15 µs, p99 ≤ 60 µs (issue 13: overhead over raw ZeroMQ ≤ +5 µs p50, ≤ +20 µs p99)"
+        for raw_label, eng_label, tgt in (
+                ("raw latency tick->tick (binary)", "engine latency tick->update (binary)",
+                 f"P4 latency at 100k ticks/s {latency_targets}"),
+                ("raw latency, busy-poll forwarder (binary)", "engine latency, busy-poll (binary)",
+                 "P4 latency in the low-latency mode (`[feed] busy_poll_us`), against a "
+                 f"busy-polling raw forwarder, {latency_targets}")):
+            raw, eng = g(raw_label), g(eng_label)
+            if raw and eng and len(raw["nums"]) >= 2 and len(eng["nums"]) >= 2:
+                d50, d99 = eng["nums"][0] - raw["nums"][0], eng["nums"][1] - raw["nums"][1]
+                row(tgt, "`engine_bench --quick`",
+                    f"engine p50 {eng['nums'][0]:.0f} µs, p99 {eng['nums'][1]:.0f} µs; raw ZeroMQ "
+                    f"{raw['nums'][0]:.0f} / {raw['nums'][1]:.0f} µs; overhead {d50:+.0f} / "
+                    f"{d99:+.0f} µs ({r.where()})",
+                    eng["nums"][0] <= 15 and eng["nums"][1] <= 60 and d50 <= 5 and d99 <= 20)
+            else:
+                missing(tgt, "`engine_bench --quick`", r)
 
     if "checkpoint" not in args.skip:
         r = Run("engine_bench --checkpoint-latency",

@@ -8,28 +8,20 @@
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/update_codec.h"
+#include "streaming/engine_test_util.h"
 
 namespace aftershock {
 namespace {
 
-// Keeps every message it accepts; refuses while `refuse` is set.
-class Recorder : public UpdateSink {
+// Keeps every message it accepts (refuses while `refuse` is set) and counts
+// the rounds and flushes passed on to it.
+class Recorder : public testing::CollectingSink {
  public:
-  struct Message {
-    std::string topic, body;
-  };
-  bool Send(absl::string_view topic, absl::string_view body) override {
-    if (refuse) return false;
-    messages.push_back({std::string(topic), std::string(body)});
-    return true;
-  }
   void EndRound() override { ++rounds; }
   absl::Status Flush() override {
     ++flushes;
     return absl::OkStatus();
   }
-  std::vector<Message> messages;
-  bool refuse = false;
   int rounds = 0;
   int flushes = 0;
 };
