@@ -392,6 +392,9 @@ class IngestCore : public TickConsumer {
   void HandleBar(int index, const ClosedBar& bar);
   // pending_[0..n): bars closed together (a clock tick); batch-stepped.
   void HandleBars(int n);
+  // pending_[*n].bar was just closed for `index`: records it and handles the
+  // chunk when full (*n back to 0).
+  void QueueClosedBar(int index, int* n);
   // HandleBar up to the filter step; false when the bar publishes nothing.
   // REQUIRES: p->index, p->bar and p->saved set.
   bool PrepareBar(PendingBar* p);

@@ -169,26 +169,26 @@ absl::Status Engine::Run() {
   constexpr auto kSpinSlice = std::chrono::microseconds(20);
   SteadyClock::time_point last_input = SteadyClock::now();
   std::function<void()> arm;
+  // One drain of up to `round` messages; false at the end of the input (the
+  // loop is then stopped).
+  auto pump = [&](int* n) {
+    *n = source_->Pump(core_.get(), round);
+    if (*n != TickSource::kEndOfInput) return true;
+    L.source_ended = true;
+    L.io.stop();
+    return false;
+  };
   std::function<void()> drain = [&] {
     if (L.stop_requested.load()) return;
-    int n = source_->Pump(core_.get(), round);
-    if (n == TickSource::kEndOfInput) {
-      L.source_ended = true;
-      L.io.stop();
-      return;
-    }
+    int n = 0;
+    if (!pump(&n)) return;
     sink_->EndRound();
     if (spin) {
       auto now = SteadyClock::now();
       if (n > 0) last_input = now;
       const auto slice_end = now + kSpinSlice;
       while (n < round && now < slice_end && !L.stop_requested.load(std::memory_order_relaxed)) {
-        n = source_->Pump(core_.get(), round);
-        if (n == TickSource::kEndOfInput) {
-          L.source_ended = true;
-          L.io.stop();
-          return;
-        }
+        if (!pump(&n)) return;
         now = SteadyClock::now();
         if (n > 0) {
           sink_->EndRound();

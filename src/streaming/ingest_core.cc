@@ -215,6 +215,14 @@ void IngestCore::HandleBars(int n) {
   for (int j = 0; j < m; ++j) FinishBar(pending_[prepared[j]]);
 }
 
+void IngestCore::QueueClosedBar(int index, int* n) {
+  pending_[*n].index = index;
+  if (++*n == kBarChunk) {
+    HandleBars(*n);
+    *n = 0;
+  }
+}
+
 bool IngestCore::PrepareBar(PendingBar* p) {
   const int index = p->index;
   const ClosedBar& bar = p->bar;
@@ -426,11 +434,7 @@ void IngestCore::OnClock(int64_t now_ns) {
       if (!slots_[i].bars_state.open) continue;
       if (CloseIfDue(&slots_[i].bars_state, now_ns, config_.bars.grace_ns, bar_options_,
                      &pending_[n].bar)) {
-        pending_[n].index = i;
-        if (++n == kBarChunk) {
-          HandleBars(n);
-          n = 0;
-        }
+        QueueClosedBar(i, &n);
       }
     }
     if (n > 0) HandleBars(n);
@@ -449,11 +453,7 @@ void IngestCore::CloseAllOpenBars() {
     if (CloseIfDue(&st, st.open_end_ns + config_.bars.grace_ns, config_.bars.grace_ns, bar_options_,
                    &bar)) {
       bar.closed_by_clock = false;  // the input ended: not counted as closed by the clock
-      pending_[n].index = i;
-      if (++n == kBarChunk) {
-        HandleBars(n);
-        n = 0;
-      }
+      QueueClosedBar(i, &n);
     }
   }
   if (n > 0) HandleBars(n);
@@ -715,14 +715,15 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
   }
   StateReader r(payload);
   EngineCounters c;
-  for (uint64_t* v : {&c.messages_in, &c.ticks_in, &c.ticks_accepted, &c.bars,
-                      &c.bars_clock_closed, &c.updates_out, &c.drops, &c.non_finite_output,
-                      &c.extra_out, &c.extra_drops, &c.model_swaps}) {
+  for (uint64_t* v : {&c.messages_in, &c.ticks_in, &c.ticks_accepted, &c.bars, &c.bars_clock_closed,
+                      &c.updates_out, &c.drops, &c.non_finite_output, &c.extra_out, &c.extra_drops,
+                      &c.model_swaps}) {
     *v = r.U64("core counters");
   }
   for (uint64_t& v : c.rejects.by_reason) v = r.U64("core reject counters");
   const int64_t last_clock = r.I64("core last clock");
-  const uint64_t n = r.Count("core symbol count", static_cast<uint64_t>(config_.limits.max_symbols));
+  const uint64_t n =
+      r.Count("core symbol count", static_cast<uint64_t>(config_.limits.max_symbols));
   if (!r.ok()) return r.status();
   const OutputOptions outputs = config_.outputs.ToOutputOptions();
   const int m = config_.warmup.start_bars;
@@ -735,7 +736,8 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
     const absl::string_view name = r.Bytes("core symbol name", kMaxSymbolLength);
     if (!r.ok()) break;
     if (!IsValidSymbol(name) || index.contains(name)) {
-      r.Fail(absl::StrCat("core symbol ", k), absl::StrCat("invalid or repeated name '", name, "'"));
+      r.Fail(absl::StrCat("core symbol ", k),
+             absl::StrCat("invalid or repeated name '", name, "'"));
       break;
     }
     const std::string what = absl::StrCat("symbol ", name);
@@ -823,13 +825,13 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
 
 absl::Status IngestCore::ShareModel(int index, std::shared_ptr<const FilterModel> model) {
   if (index < 0 || index >= num_symbols() || model == nullptr) {
-    return absl::InvalidArgumentError(absl::StrCat("ShareModel: no symbol ", index, " or no model"));
+    return absl::InvalidArgumentError(
+        absl::StrCat("ShareModel: no symbol ", index, " or no model"));
   }
   if (!SameModel(*slots_[index].model, *model)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("ShareModel: symbol ", symbol(index), " runs version ",
-                     slots_[index].model->version(), ", not the given version ", model->version(),
-                     " with the same parameters"));
+    return absl::InvalidArgumentError(absl::StrCat(
+        "ShareModel: symbol ", symbol(index), " runs version ", slots_[index].model->version(),
+        ", not the given version ", model->version(), " with the same parameters"));
   }
   slots_[index].model = std::move(model);
   bank_.SetModel(index, slots_[index].model.get());  // same coefficients, the shared object
