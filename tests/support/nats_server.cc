@@ -13,6 +13,8 @@
 #include <chrono>
 #include <cstdio>
 #include <cstdlib>
+#include <filesystem>
+#include <fstream>
 #include <sstream>
 #include <thread>
 #include <vector>
@@ -156,6 +158,40 @@ NatsServer::~NatsServer() {
   kill(pid_, SIGCONT);  // a paused server handles no SIGTERM
   kill(pid_, SIGTERM);
   waitpid(pid_, nullptr, 0);
+}
+
+namespace {
+
+// True when every thread of `pid` is in the stopped state ('T', or 't' when
+// traced). The state is the field after the parenthesised command name.
+bool AllThreadsStopped(pid_t pid) {
+  std::error_code ec;
+  const std::filesystem::path tasks = "/proc/" + std::to_string(pid) + "/task";
+  bool any = false;
+  for (const auto& entry : std::filesystem::directory_iterator(tasks, ec)) {
+    std::ifstream in(entry.path() / "stat");
+    std::string line;
+    if (!std::getline(in, line)) continue;  // the thread ended meanwhile
+    const auto close = line.rfind(')');
+    if (close == std::string::npos || close + 2 >= line.size()) return false;
+    const char state = line[close + 2];
+    if (state != 'T' && state != 't') return false;
+    any = true;
+  }
+  return !ec && any;
+}
+
+}  // namespace
+
+void NatsServer::Pause() {
+  REQUIRE(kill(pid_, SIGSTOP) == 0);
+  const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(5);
+  while (!AllThreadsStopped(pid_)) {
+    if (std::chrono::steady_clock::now() > deadline) {
+      FAIL("nats-server " << pid_ << " did not stop within 5 s of SIGSTOP");
+    }
+    std::this_thread::sleep_for(std::chrono::milliseconds(1));
+  }
 }
 
 void NatsServer::Stop(int sig) {

@@ -59,7 +59,11 @@ class NatsServer {
   void Stop(int sig);
   // SIGSTOPs the server: it keeps its connections but answers nothing (what a
   // client sees of a hung or partitioned server) until Resume (SIGCONT).
-  void Pause() { kill(pid_, SIGSTOP); }
+  // Returns once every thread of the server is stopped (/proc/<pid>/task/*/stat
+  // in state T): kill() only queues the signal, and a thread running on the
+  // other core could still answer a request sent right after it. Fails the
+  // running test if the server is not stopped within 5 s.
+  void Pause();
   void Resume() { kill(pid_, SIGCONT); }
 
  private:
