@@ -289,6 +289,9 @@ class RefitCoordinator {
                                      // so quiet bars touch only this symbol's memory)
     int failures = 0;                // consecutive failed jobs
     bool fallback = false;
+    // Live mode: the pending job waits for its window copy (SubmitDeferred,
+    // or this symbol's next OnBar / RecordSkipped, copy it first).
+    bool uncopied = false;
     int64_t fits = 0;  // jobs submitted
     uint32_t group = 0;
     bool pooled = false;      // current is a group model
@@ -310,9 +313,9 @@ class RefitCoordinator {
   void Submit(uint32_t id, SymbolSlot* sym);
   // Copies the symbol's window into the pending job's slot and hands it to the
   // pool (live mode's deferred half of Submit).
-  void CopyAndSubmit(const SymbolSlot* sym, uint32_t slot);
+  void CopyAndSubmit(SymbolSlot* sym, uint32_t slot);
   // Before the symbol's window changes: hands over its job if still uncopied.
-  void SubmitBeforePush(const SymbolSlot& sym);
+  void SubmitBeforePush(SymbolSlot* sym);
   void DeferredPushBack(uint32_t slot);
   void DeferredUnlink(uint32_t slot);
   // Adopts the group model when due (see "Group models"); true if it did.

@@ -29,10 +29,6 @@ struct RefitCoordinator::JobSlot {
   int64_t bar = 0;       // returns seen when scheduled
   uint32_t version = 0;  // number the candidate gets if it passes
   std::chrono::steady_clock::time_point submitted;  // RefitRecord::queue_seconds
-  // Live mode: false from the due point until the window is copied into
-  // `returns` and the job handed to the workers (SubmitDeferred, or OnBar /
-  // RecordSkipped before the symbol's window changes). Ingest thread only.
-  bool copied = true;
   bool priority = false;  // lane of the pool
   // ---- output ----
   bool passed = false;
@@ -242,7 +238,7 @@ absl::Status RefitCoordinator::Seed(uint32_t id, ModelVersionPtr version) {
 }
 
 void RefitCoordinator::RecordSkipped(uint32_t id, double r, int32_t tag) {
-  SubmitBeforePush(symbols_[id]);
+  SubmitBeforePush(&symbols_[id]);
   symbols_[id].window.Push(r, tag);
 }
 
@@ -251,7 +247,7 @@ RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, Filt
   RefitBarResult res;
   SymbolSlot& sym = symbols_[id];
   // A job still waiting for its copy takes the window as it was at its due point.
-  SubmitBeforePush(sym);
+  SubmitBeforePush(&sym);
   sym.window.Push(r, tag);
   const int64_t bars = sym.window.total();
   if (sym.pending >= 0) {
@@ -393,18 +389,18 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
     // The copy of the window waits for a gap between input batches
     // (SubmitDeferred), so a universe falling due at one bar close does not
     // copy every window inside that close. Every slot is pending at most once.
-    j.copied = false;
+    sym->uncopied = true;
     DeferredPushBack(slot);
     return;
   }
   CopyAndSubmit(sym, slot);
 }
 
-void RefitCoordinator::CopyAndSubmit(const SymbolSlot* sym, uint32_t slot) {
+void RefitCoordinator::CopyAndSubmit(SymbolSlot* sym, uint32_t slot) {
   JobSlot& j = *jobs_[slot];
   sym->window.CopyTo(&j.returns);  // capacity reserved: no allocation
   if (options_.seasonal) sym->window.CopyTagsTo(&j.tags);
-  j.copied = true;
+  sym->uncopied = false;
   pool_->Submit(slot, j.priority);
 }
 
@@ -419,12 +415,15 @@ int RefitCoordinator::SubmitDeferred(int max_jobs) {
   return n;
 }
 
-void RefitCoordinator::SubmitBeforePush(const SymbolSlot& sym) {
-  if (sym.pending < 0) return;
-  const uint32_t slot = static_cast<uint32_t>(sym.pending);
-  if (jobs_[slot]->copied) return;
+void RefitCoordinator::SubmitBeforePush(SymbolSlot* sym) {
+  // The flag lives in the symbol's slot, which the bar touches anyway: a storm
+  // keeps every symbol pending, and reading the job slot here instead cost
+  // every bar a cache line (and a page) of its own (refit_bench
+  // BM_IngestLatency).
+  if (!sym->uncopied) return;
+  const uint32_t slot = static_cast<uint32_t>(sym->pending);
   DeferredUnlink(slot);
-  CopyAndSubmit(&sym, slot);
+  CopyAndSubmit(sym, slot);
 }
 
 void RefitCoordinator::DeferredPushBack(uint32_t slot) {
@@ -919,7 +918,7 @@ void RefitCoordinator::CaptureSymbol(StateCapture* capture, uint32_t id) const {
   d.job.apply_bar = s.apply_bar;
   if (d.job.fit_index == j.fit_index) return;  // the same job as last time
   CopyJobInputs(j, &d.job);
-  if (!j.copied) {
+  if (s.uncopied) {
     // Not copied yet: its window is the symbol's own, unchanged since the due
     // point (OnBar and RecordSkipped hand the job over before they push).
     s.window.CopyTo(&d.job.returns);
@@ -1103,7 +1102,7 @@ absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
     sym.apply_bar = p.job.apply_bar;
     // As in Submit (none of these changes while a job is pending).
     j.priority = !sym.last_estimated || sym.failures > 0 || sym.fallback;
-    j.copied = true;  // the saved inputs are the job's
+    sym.uncopied = false;  // the saved inputs are the job's
     counters_.in_flight.fetch_add(1, std::memory_order_relaxed);
     j.submitted = std::chrono::steady_clock::now();
     pool_->Submit(slot, j.priority);
