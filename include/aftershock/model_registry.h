@@ -72,9 +72,15 @@ struct RefitRecord {
   bool fallback = false;             // fallback in force after this record
 };
 
-// The record as one JSON object (not a per-bar path; allocates). Non-finite
-// numbers are written as null, never as NaN/Infinity.
+// The record as one JSON object: keys in byte order, numbers in their shortest
+// round-trip form (std::to_chars), non-finite numbers as null (never
+// NaN/Infinity). A string that is not valid UTF-8 makes the whole record
+// {"error":"record could not be encoded"}.
 std::string EncodeRefitRecordJson(const RefitRecord& record);
+// The same into *out (replaced), which keeps its capacity: the engine applies
+// refits on the ingest thread and reuses one buffer, so a record costs no
+// allocation once the buffer has grown.
+void EncodeRefitRecordJson(const RefitRecord& record, std::string* out);
 
 }  // namespace aftershock
 

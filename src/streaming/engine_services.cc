@@ -571,7 +571,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       rec_ptr = &replay_record_;
     }
     const RefitRecord& rec = *rec_ptr;
-    json_ = EncodeRefitRecordJson(rec);
+    EncodeRefitRecordJson(rec, &json_);  // reuses the buffer: no allocation
     core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
     if (options_.listener != nullptr) options_.listener->OnRefitRecord(index, rec);
     const ModelVersionPtr& now = refit_->current(id);
