@@ -457,6 +457,13 @@ class NatsFeedImpl : public NatsFeed {
            "Leases found expired or taken by another instance.", s.leases.lost);
     metric("aftershock_nats_lease_errors_total", "counter",
            "Lease rounds that failed (broker unreachable).", s.lease_errors);
+    metric("aftershock_nats_lease_retries_total", "counter",
+           "Lease requests tried again within a round (timeout, no responders).", s.leases.retries);
+    metric("aftershock_nats_fences_total", "counter",
+           "Times every reader stopped because a lease went unconfirmed too long.", s.fenced);
+    metric("aftershock_nats_consumer_restarts_total", "counter",
+           "Partition consumers found silent (not answering) and created again.",
+           s.consumer_restarts);
     metric("aftershock_nats_replay_lag_messages", "gauge",
            "Messages of the held partitions not yet handed to the engine.", s.replay_lag);
     metric("aftershock_nats_messages_total", "counter", "Messages taken from JetStream.",
@@ -517,6 +524,7 @@ class NatsFeedImpl : public NatsFeed {
     s.checkpoints_written = checkpoints_written_.load(std::memory_order_relaxed);
     s.checkpoint_failures = checkpoint_failures_.load(std::memory_order_relaxed);
     s.restores = restores_.load(std::memory_order_relaxed);
+    s.consumer_restarts = consumer_restarts_.load(std::memory_order_relaxed);
     s.fresh_starts = fresh_starts_.load(std::memory_order_relaxed);
     s.last_checkpoint_bytes = last_checkpoint_bytes_.load(std::memory_order_relaxed);
     if (lanes_ != nullptr && !s.partitions.empty()) {
@@ -895,6 +903,7 @@ class NatsFeedImpl : public NatsFeed {
             const double silent = std::chrono::duration<double>(now - last_activity).count();
             last_activity = now;
             if (!ConsumerAlive(sub, p, silent)) {
+              consumer_restarts_.fetch_add(1, std::memory_order_relaxed);
               natsSubscription_Destroy(sub);
               sub = nullptr;
             }
@@ -1040,6 +1049,7 @@ class NatsFeedImpl : public NatsFeed {
   std::atomic<uint64_t> checkpoints_written_{0};
   std::atomic<uint64_t> checkpoint_failures_{0};
   std::atomic<uint64_t> restores_{0};
+  std::atomic<uint64_t> consumer_restarts_{0};  // readers: ConsumerAlive said no
   std::atomic<uint64_t> fresh_starts_{0};
   std::atomic<uint64_t> last_checkpoint_bytes_{0};
 };
