@@ -108,17 +108,18 @@ struct NatsFeedOptions {
 };
 
 struct NatsFeedStats {
-  std::string instance;              // this instance's name in the lease bucket
-  std::vector<int> partitions;       // partitions being read now, ascending
-  LeaseStats leases;                 // lease round counters
-  uint64_t lease_errors = 0;         // rounds that failed (broker unreachable, ...)
-  uint64_t fenced = 0;               // times every reader stopped for want of a lease round
-  uint64_t messages = 0;             // messages handed to the engine
-  uint64_t bad_subjects = 0;         // messages whose subject token did not decode
+  std::string instance;            // this instance's name in the lease bucket
+  std::vector<int> partitions;     // partitions being read now, ascending
+  LeaseStats leases;               // lease round counters
+  uint64_t lease_errors = 0;       // rounds that failed (broker unreachable, ...)
+  uint64_t fenced = 0;             // times every reader stopped: a lease unconfirmed too long
+  uint64_t consumer_restarts = 0;  // readers' consumers found silent and created again
+  uint64_t messages = 0;           // messages handed to the engine
+  uint64_t bad_subjects = 0;       // messages whose subject token did not decode
   // Messages of the held partitions not yet handed to the engine: queued
   // here plus the broker's pending count after the last fetch.
   uint64_t replay_lag = 0;
-  int64_t last_round_ns = 0;         // wall time of the last successful round; 0 = none
+  int64_t last_round_ns = 0;  // wall time of the last successful round; 0 = none
   // Partition lanes only:
   uint64_t checkpoints_written = 0;  // partition checkpoints stored
   uint64_t checkpoint_failures = 0;  // serializations or stores that failed

@@ -35,6 +35,13 @@ int64_t WallNs() {
       .count();
 }
 
+// How long a reader waits for the broker to create its consumer, ms.
+constexpr int64_t kReaderWaitMs = 500;
+
+// A partition's consumer silent for this long is asked whether it is alive
+// (ConsumerAlive), and again after each further such interval, ms.
+constexpr int64_t kReaderProbeMs = 1000;
+
 // Largest batch Pump moves per call (the staging buffer is reserved once).
 constexpr size_t kMaxPumpBatch = 16384;
 
@@ -102,6 +109,16 @@ class NatsFeedImpl : public NatsFeed {
     if (absl::Status s = nats_internal::EnsureTickStream(session_.get(), config_); !s.ok()) {
       return s;
     }
+    {
+      // Readers create their consumers through a context that waits 0.5 s: a
+      // consumer placed on a server that just died never answers, and the
+      // reader tries again (200 ms later) instead of waiting the session's 2 s.
+      jsOptions o;
+      jsOptions_Init(&o);
+      o.Wait = kReaderWaitMs;
+      const natsStatus s = natsConnection_JetStream(&reader_js_, session_->conn(), &o);
+      if (s != NATS_OK) return ToStatus(s, "cannot create a JetStream context");
+    }
     if (lanes_ != nullptr) {
       auto store = PartitionCheckpointStore::Open(
           config_, absl::StrCat("aftershock-checkpoints-", instance_), /*create=*/true);
@@ -136,6 +153,7 @@ class NatsFeedImpl : public NatsFeed {
     for (natsMsg* m : done_) natsMsg_Destroy(m);
     leases_.reset();
     store_.reset();
+    if (reader_js_ != nullptr) jsCtx_Destroy(reader_js_);
     session_.reset();
     if (efd_ >= 0) close(efd_);
   }
@@ -439,6 +457,13 @@ class NatsFeedImpl : public NatsFeed {
            "Leases found expired or taken by another instance.", s.leases.lost);
     metric("aftershock_nats_lease_errors_total", "counter",
            "Lease rounds that failed (broker unreachable).", s.lease_errors);
+    metric("aftershock_nats_lease_retries_total", "counter",
+           "Lease requests tried again within a round (timeout, no responders).", s.leases.retries);
+    metric("aftershock_nats_fences_total", "counter",
+           "Times every reader stopped because a lease went unconfirmed too long.", s.fenced);
+    metric("aftershock_nats_consumer_restarts_total", "counter",
+           "Partition consumers found silent (not answering) and created again.",
+           s.consumer_restarts);
     metric("aftershock_nats_replay_lag_messages", "gauge",
            "Messages of the held partitions not yet handed to the engine.", s.replay_lag);
     metric("aftershock_nats_messages_total", "counter", "Messages taken from JetStream.",
@@ -499,6 +524,7 @@ class NatsFeedImpl : public NatsFeed {
     s.checkpoints_written = checkpoints_written_.load(std::memory_order_relaxed);
     s.checkpoint_failures = checkpoint_failures_.load(std::memory_order_relaxed);
     s.restores = restores_.load(std::memory_order_relaxed);
+    s.consumer_restarts = consumer_restarts_.load(std::memory_order_relaxed);
     s.fresh_starts = fresh_starts_.load(std::memory_order_relaxed);
     s.last_checkpoint_bytes = last_checkpoint_bytes_.load(std::memory_order_relaxed);
     if (lanes_ != nullptr && !s.partitions.empty()) {
@@ -518,24 +544,79 @@ class NatsFeedImpl : public NatsFeed {
 
   // ---- coordinator thread ----
   void Coordinate() {
-    const auto period = std::chrono::milliseconds(
-        std::max<int64_t>(100, static_cast<int64_t>(config_.lease_seconds * 1000 / 3)));
+    const LeaseTiming timing = LeaseTimingFor(config_.lease_seconds);
+    auto delay = std::chrono::milliseconds(timing.period_ms);
     std::unique_lock<std::mutex> l(coord_mu_);
     while (!stopping_) {
-      coord_cv_.wait_for(l, period, [this] { return stopping_; });
+      // Wake for the next round, or earlier when the fence is due.
+      auto wake = std::chrono::steady_clock::now() + delay;
+      wake = std::min(wake, FenceAt());
+      coord_cv_.wait_until(l, wake, [this] { return stopping_; });
       if (stopping_) break;
       l.unlock();
-      RunRound();
+      MaybeFence();
+      const bool ok = RunRound();
       l.lock();
+      // A failed round is tried again sooner: the leases are renewed as soon
+      // as the bucket answers again (after its leader's election, say).
+      delay = std::chrono::milliseconds(ok ? timing.period_ms : timing.retry_ms);
     }
     l.unlock();
     StopAllReaders();
     PublishStats();
   }
 
-  void RunRound() {
+  // When the readers must stop unless a renewal is confirmed first: the
+  // oldest held lease's confirmed write + lease_seconds - the fence margin
+  // (time_point::max() when nothing is read).
+  std::chrono::steady_clock::time_point FenceAt() const {
+    const auto since = leases_->confirmed_since();
+    if (readers_.empty() || since == std::chrono::steady_clock::time_point::max()) {
+      return std::chrono::steady_clock::time_point::max();
+    }
+    const LeaseTiming timing = LeaseTimingFor(config_.lease_seconds);
+    return since + std::chrono::milliseconds(static_cast<int64_t>(config_.lease_seconds * 1000) -
+                                             timing.fence_margin_ms);
+  }
+
+  // Fence: a held lease whose renewal was not confirmed for lease_seconds
+  // minus the margin may expire at the broker and be claimed by another
+  // instance; stop reading every partition rather than filter one twice.
+  void MaybeFence() {
+    const auto at = FenceAt();
+    const auto now = std::chrono::steady_clock::now();
+    if (now < at) return;
+    std::vector<int> held;
+    for (const auto& [p, reader] : readers_) held.push_back(p);
+    StopAllReaders();
+    if (lanes_ != nullptr) {
+      for (int p : held) QueueControl(p, ItemKind::kStop, false);
+    }
+    ++fenced_;
+    // Logged because it is what turns a broker outage into a re-lease:
+    // every held partition is read again (from its checkpoint) only after a
+    // later round claims it.
+    const LeaseTiming timing = LeaseTimingFor(config_.lease_seconds);
+    const double unconfirmed =
+        std::chrono::duration<double>(now - leases_->confirmed_since()).count();
+    std::fprintf(stderr,
+                 "aftershock: nats: a lease unconfirmed for %.1f s (lease %.1f s, fence %.1f s "
+                 "before it): stopped reading partition(s) %s\n",
+                 unconfirmed, config_.lease_seconds,
+                 static_cast<double>(timing.fence_margin_ms) / 1000,
+                 absl::StrJoin(held, ",").c_str());
+    PublishStats();
+  }
+
+  // One lease round and what follows from it; false when it failed.
+  bool RunRound() {
     const int64_t began = WallNs();
-    auto r = leases_->Round();
+    const LeaseTiming timing = LeaseTimingFor(config_.lease_seconds);
+    // The round's requests are tried again until the next round is due, or
+    // the fence, whichever is first.
+    auto deadline = std::chrono::steady_clock::now() + std::chrono::milliseconds(timing.period_ms);
+    deadline = std::min(deadline, FenceAt());
+    auto r = leases_->Round(deadline);
     const int64_t now = WallNs();
     if (!r.ok()) {
       ++lease_errors_;
@@ -547,28 +628,9 @@ class NatsFeedImpl : public NatsFeed {
                      failed_streak_, static_cast<double>(now - began) / 1e9,
                      std::string(r.status().message()).c_str());
       }
-      // Fence: without a successful round for the lease time, the leases may
-      // belong to others by now; stop reading rather than filter twice.
-      const int64_t lease_ns = static_cast<int64_t>(config_.lease_seconds * 1e9);
-      if (!readers_.empty() && (last_round_ns_ == 0 || now - last_round_ns_ >= lease_ns)) {
-        std::vector<int> held;
-        for (const auto& [p, reader] : readers_) held.push_back(p);
-        StopAllReaders();
-        if (lanes_ != nullptr) {
-          for (int p : held) QueueControl(p, ItemKind::kStop, false);
-        }
-        ++fenced_;
-        // Logged because it is what turns a broker outage into a re-lease:
-        // every held partition is read again (from its checkpoint) only
-        // after a later round claims it.
-        std::fprintf(stderr,
-                     "aftershock: nats: no successful lease round for %.1f s (lease %.1f s): "
-                     "stopped reading partition(s) %s\n",
-                     last_round_ns_ == 0 ? 0.0 : static_cast<double>(now - last_round_ns_) / 1e9,
-                     config_.lease_seconds, absl::StrJoin(held, ",").c_str());
-      }
+      MaybeFence();
       PublishStats();
-      return;
+      return false;
     }
     if (failed_streak_ > 0) {
       std::fprintf(stderr,
@@ -632,6 +694,7 @@ class NatsFeedImpl : public NatsFeed {
                    instance_.c_str(), absl::StrJoin(r->lost, ",").c_str());
     }
     PublishStats();
+    return true;
   }
 
   // Queues a start or stop of partition p's lane for the ingest thread.
@@ -782,6 +845,9 @@ class NatsFeedImpl : public NatsFeed {
     batch.reserve(static_cast<size_t>(options_.fetch_batch));
     int failures = 0;
     bool caught_up = false;  // a message with nothing pending after it was queued
+    // Last message or probe (or the consumer's creation): a consumer silent
+    // for kReaderProbeMs is asked whether it is alive.
+    auto last_activity = std::chrono::steady_clock::now();
     while (!r->stop.load()) {
       if (sub == nullptr) {
         jsSubOptions so;
@@ -797,7 +863,7 @@ class NatsFeedImpl : public NatsFeed {
         }
         jsErrCode jerr = static_cast<jsErrCode>(0);
         const natsStatus s =
-            js_SubscribeSync(&sub, session_->js(), filter.c_str(), nullptr, &so, &jerr);
+            js_SubscribeSync(&sub, reader_js_, filter.c_str(), nullptr, &so, &jerr);
         if (s != NATS_OK) {
           sub = nullptr;
           if (++failures == 1 || failures % 50 == 0) {
@@ -811,6 +877,7 @@ class NatsFeedImpl : public NatsFeed {
         }
         // The client may buffer many messages of a replay; no slow-consumer drops.
         natsSubscription_SetPendingLimits(sub, -1, -1);
+        last_activity = std::chrono::steady_clock::now();
       }
       // The first message with a bounded wait, then whatever is already
       // buffered, up to fetch_batch, under one lock.
@@ -831,10 +898,21 @@ class NatsFeedImpl : public NatsFeed {
           std::this_thread::sleep_for(std::chrono::milliseconds(100));
         } else {
           pending_[p].store(0, std::memory_order_relaxed);
+          const auto now = std::chrono::steady_clock::now();
+          if (now - last_activity >= std::chrono::milliseconds(kReaderProbeMs)) {
+            const double silent = std::chrono::duration<double>(now - last_activity).count();
+            last_activity = now;
+            if (!ConsumerAlive(sub, p, silent)) {
+              consumer_restarts_.fetch_add(1, std::memory_order_relaxed);
+              natsSubscription_Destroy(sub);
+              sub = nullptr;
+            }
+          }
         }
         FreeGraveyard(&scratch);
         continue;
       }
+      last_activity = std::chrono::steady_clock::now();
       failures = 0;
       uint64_t last = last_fetched_[p].load();
       uint64_t pending = 0;
@@ -879,6 +957,36 @@ class NatsFeedImpl : public NatsFeed {
     FreeGraveyard(&scratch);
   }
 
+  // Whether partition p's consumer, silent for `silent` seconds, still
+  // delivers. An ordered consumer lives on one server (the broker places it);
+  // when that server dies the subscription just stays silent (the client
+  // reports missed heartbeats only to an asynchronous error handler), so the
+  // reader asks the consumer: no answer within kReaderWaitMs, or messages
+  // pending that never arrived, and the reader creates a new consumer after
+  // the last message it took.
+  bool ConsumerAlive(natsSubscription* sub, int p, double silent) {
+    jsConsumerInfo* ci = nullptr;
+    jsErrCode jerr = static_cast<jsErrCode>(0);
+    const natsStatus s = natsSubscription_GetConsumerInfo(&ci, sub, nullptr, &jerr);
+    if (s != NATS_OK) {
+      std::fprintf(stderr,
+                   "aftershock: nats: partition %d: its consumer does not answer after %.1f s "
+                   "without messages (%s); reading again after sequence %llu\n",
+                   p, silent, std::string(ToStatus(s, "consumer info", jerr).message()).c_str(),
+                   static_cast<unsigned long long>(last_fetched_[p].load()));
+      return false;
+    }
+    const uint64_t pending = ci->NumPending;
+    jsConsumerInfo_Destroy(ci);
+    if (pending == 0) return true;
+    std::fprintf(stderr,
+                 "aftershock: nats: partition %d: its consumer holds %llu pending message(s) but "
+                 "delivered none for %.1f s; reading again after sequence %llu\n",
+                 p, static_cast<unsigned long long>(pending), silent,
+                 static_cast<unsigned long long>(last_fetched_[p].load()));
+    return false;
+  }
+
   const EngineConfig engine_config_;  // for the checkpoints' configuration check
   const NatsConfig config_;
   const NatsFeedOptions options_;
@@ -886,6 +994,7 @@ class NatsFeedImpl : public NatsFeed {
   std::string instance_;
   int efd_ = -1;
   std::unique_ptr<NatsSession> session_;
+  jsCtx* reader_js_ = nullptr;               // owned; on session_'s connection, waits kReaderWaitMs
   std::unique_ptr<PartitionLeases> leases_;  // coordinator thread (and Init / destructor)
 
   // Per partition, written by its reader: last stream sequence fetched (kept
@@ -940,6 +1049,7 @@ class NatsFeedImpl : public NatsFeed {
   std::atomic<uint64_t> checkpoints_written_{0};
   std::atomic<uint64_t> checkpoint_failures_{0};
   std::atomic<uint64_t> restores_{0};
+  std::atomic<uint64_t> consumer_restarts_{0};  // readers: ConsumerAlive said no
   std::atomic<uint64_t> fresh_starts_{0};
   std::atomic<uint64_t> last_checkpoint_bytes_{0};
 };

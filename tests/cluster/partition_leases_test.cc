@@ -141,6 +141,66 @@ TEST_CASE("leases balance, hand over on release and are taken over after expiry"
   CHECK(view->instances == std::vector<std::string>{"eng-b", "eng-c"});
 }
 
+TEST_CASE("after failed rounds the first successful one re-claims only the instance's own leases") {
+  testing::SkipUnlessNatsServer();
+  testing::NatsServer server(testing::ScratchDir("partition_leases_outage"));
+  NatsConfig nc;
+  nc.servers = {server.url()};
+  nc.partitions = 12;
+  nc.lease_seconds = 2;
+  nc.lease_bucket = "leases_outage";
+  auto a = PartitionLeases::Open(nc, "eng-a");
+  auto b = PartitionLeases::Open(nc, "eng-b");
+  auto c = PartitionLeases::Open(nc, "eng-c");
+  REQUIRE(a.ok());
+  REQUIRE(b.ok());
+  REQUIRE(c.ok());
+  std::vector<PartitionLeases*> abc = {a->get(), b->get(), c->get()};
+  const std::vector<std::set<int>> held = Settle(abc, 3);
+  REQUIRE(Partitioned(held, 12));
+  REQUIRE(held[0].size() == 4);
+  CHECK((*a)->confirmed_since() <= std::chrono::steady_clock::now());
+
+  // The broker stops answering for longer than the lease: A's round fails
+  // (each request waits 0.25 s and is tried again until the deadline).
+  server.Pause();
+  const auto before = std::chrono::steady_clock::now();
+  auto failed = (*a)->Round(before + std::chrono::milliseconds(600));
+  CHECK(!failed.ok());
+  CHECK(std::chrono::steady_clock::now() - before < std::chrono::seconds(2));
+  CHECK((*a)->stats().retries > 0);
+  std::this_thread::sleep_for(std::chrono::milliseconds(2500));
+  server.Resume();
+  // Every key expires (nothing was written for longer than the TTL).
+  const auto deadline = std::chrono::steady_clock::now() + std::chrono::seconds(15);
+  bool expired = false;
+  while (!expired && std::chrono::steady_clock::now() < deadline) {
+    auto view = ReadClusterAssignment(nc);
+    expired = view.ok() && view->instances.empty();
+    for (const PartitionAssignment& p :
+         view.ok() ? view->partitions : std::vector<PartitionAssignment>{}) {
+      expired = expired && p.owner.empty();
+    }
+    if (!expired) std::this_thread::sleep_for(std::chrono::milliseconds(100));
+  }
+  REQUIRE(expired);
+
+  // A alone sees no other live instance (share 12), but after its failed
+  // round it re-claims only the 4 it held: B and C, not seen yet, may be
+  // about to announce themselves again.
+  auto back = (*a)->Round();
+  REQUIRE(back.ok());
+  CHECK(back->live_instances == 1);
+  CHECK(back->share == 12);
+  CHECK(std::set<int>(back->owned.begin(), back->owned.end()) == held[0]);
+  CHECK(back->taken_over.empty());
+  // The next round is an ordinary one: A claims the rest.
+  auto next = (*a)->Round();
+  REQUIRE(next.ok());
+  CHECK(next->owned.size() == 12);
+  CHECK(next->taken_over.size() == 8);  // B's and C's leases expired
+}
+
 TEST_CASE("cluster assignment of a bucket that does not exist is NotFound") {
   testing::SkipUnlessNatsServer();
   testing::NatsServer server(testing::ScratchDir("partition_leases_none"));

@@ -169,6 +169,7 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
   sim.insert(sim.end(), kMarket.begin(), kMarket.end());
   RunProcess feed(sim, dir + "/sim.err");
   std::this_thread::sleep_for(std::chrono::milliseconds(2500));
+  const auto killed = std::chrono::steady_clock::now();
   CHECK(b.Signal(SIGKILL) == 128 + SIGKILL);
   const double takeover = WaitFor(
       ca,
@@ -189,6 +190,11 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
       AwaitUpdates(&collector, want.size(), 240, &conflicts);
   CHECK(conflicts == 0);  // every duplicate is byte-identical
   CompareWithReplay(got, want);
+  const testing::UpdatePauses pauses = testing::PausesAfter(&collector, killed);
+  std::printf(
+      "kill -9 mid-stream: longest pause in the updates after it %.2f s; longest pause of one "
+      "instrument's updates %.2f s (lease 2 s)\n",
+      pauses.longest, pauses.instrument);
   CHECK(a.Signal(SIGTERM) == 0);
   CHECK(c.Signal(SIGTERM) == 0);
   const std::string ea = testing::ReadFileOrDie(a.err_path);
@@ -226,6 +232,7 @@ TEST_CASE("rolling restart of three instances: the updates equal a replay") {
   std::vector<std::string> sim = {"simulate", "--nats", configs[0], "--rate", "1500", "--quiet"};
   sim.insert(sim.end(), kMarket.begin(), kMarket.end());
   RunProcess feed(sim, dir + "/sim.err");
+  const auto feeding = std::chrono::steady_clock::now();
   for (size_t i = 0; i < names.size(); ++i) {
     std::this_thread::sleep_for(std::chrono::milliseconds(1500));
     CHECK(engines[i]->Signal(SIGTERM) == 0);
@@ -237,6 +244,11 @@ TEST_CASE("rolling restart of three instances: the updates equal a replay") {
       AwaitUpdates(&collector, want.size(), 240, &conflicts);
   CHECK(conflicts == 0);
   CompareWithReplay(got, want);
+  const testing::UpdatePauses pauses = testing::PausesAfter(&collector, feeding);
+  std::printf(
+      "rolling restart: longest pause in the updates %.2f s; longest pause of one instrument's "
+      "updates %.2f s (lease 2 s)\n",
+      pauses.longest, pauses.instrument);
   CHECK(WaitFor(configs[0], balanced, 30) >= 0);
   std::string logs;
   for (size_t i = 0; i < names.size(); ++i) {

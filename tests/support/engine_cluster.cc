@@ -5,10 +5,14 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <catch2/catch.hpp>
+#include <chrono>
 #include <cstdio>
 #include <fstream>
 #include <iterator>
+#include <map>
+#include <nlohmann/json.hpp>
 #include <sstream>
 #include <zmq_addon.hpp>
 
@@ -203,6 +207,29 @@ std::string FaultConfig(const std::string& dir, const std::vector<std::string>& 
           // Group models pool across symbols, and a partition's lane knows
           // its own symbols only (a config warning says so).
           "group_models = false\n");
+}
+
+UpdatePauses PausesAfter(UpdateCollector* collector, std::chrono::steady_clock::time_point since) {
+  const std::vector<std::string> bodies = collector->bodies();
+  const std::vector<std::chrono::steady_clock::time_point> arrivals = collector->arrivals();
+  auto secs = [](auto d) { return std::chrono::duration<double>(d).count(); };
+  UpdatePauses out;
+  std::map<std::string, std::chrono::steady_clock::time_point> last;
+  std::map<std::string, int> after;  // updates after `since` per instrument
+  auto previous = since;
+  for (size_t i = 0; i < bodies.size() && i < arrivals.size(); ++i) {
+    const std::string symbol = nlohmann::json::parse(bodies[i])["s"].get<std::string>();
+    if (arrivals[i] >= since) {
+      out.longest = std::max(out.longest, secs(arrivals[i] - previous));
+      previous = arrivals[i];
+      if (last.count(symbol))
+        out.instrument = std::max(out.instrument, secs(arrivals[i] - last[symbol]));
+      ++after[symbol];
+    }
+    last[symbol] = arrivals[i];
+  }
+  out.instruments = after.size();
+  return out;
 }
 
 std::map<UpdateKey, std::string> ReplayReference(const std::string& dir, const std::string& config,

@@ -107,6 +107,18 @@ class UpdateCollector {
 
 using UpdateKey = std::pair<std::string, int64_t>;  // (symbol, bar time)
 
+// Gaps in the collected updates after `since`, seconds: the longest between
+// two consecutive updates of any instruments (the first gap counted from
+// `since`), and the longest of one instrument ending after `since` (from its
+// last update before it to its next: the time until every instrument's
+// updates flow again). `instruments` = instruments updated after `since`.
+struct UpdatePauses {
+  double longest = 0;
+  double instrument = 0;
+  size_t instruments = 0;
+};
+UpdatePauses PausesAfter(UpdateCollector* collector, std::chrono::steady_clock::time_point since);
+
 // Deduplicates update bodies by (symbol, bar time); counts keys whose copies
 // differ in `*conflicts`.
 std::map<UpdateKey, std::string> Dedup(const std::vector<std::string>& bodies, int* conflicts);
