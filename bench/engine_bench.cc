@@ -44,8 +44,10 @@
 #include <zmq.hpp>
 
 #include "absl/strings/str_cat.h"
+#include "aftershock/checkpoint_file.h"
 #include "aftershock/checkpointer.h"
 #include "aftershock/engine.h"
+#include "aftershock/engine_checkpoint.h"
 #include "aftershock/engine_services.h"
 #include "aftershock/ingest_core.h"
 #include "aftershock/tick_file.h"
@@ -572,6 +574,14 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
       (std::filesystem::temp_directory_path() / "aftershock_engine_bench.ckpt").string();
   constexpr int kSettings = 4;
   std::vector<int64_t> pooled[kSettings];
+  // Per setting, over the rounds: the checkpoint costs that do not depend on
+  // the host's load (CheckpointStats' CPU times and bytes).
+  struct Proxies {
+    uint64_t writes = 0, capture_bytes = 0, file_bytes = 0;
+    double capture_cpu = 0, writer_cpu = 0, max_slice_cpu = 0;
+    double encode_cpu_last = 0, write_cpu_last = 0, sync_last = 0;  // summed over runs
+    int runs = 0;
+  } proxies[kSettings];
   std::vector<double> round_ratio[kSettings];  // [1..]: per-round p99 ratio to [0]
   auto p99_of = [](const std::vector<int64_t>& v) -> int64_t {
     return v.empty() ? -1 : v[std::min(v.size() - 1, v.size() * 99 / 100)];
@@ -646,6 +656,18 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
                              st.last_capture_seconds * 1e3, " ms of ", st.last_capture_slices, " (",
                              st.last_capture_total_seconds * 1e3, " ms in all), write ",
                              st.last_write_seconds * 1e3, " ms");
+        // The host-independent proxies (CPU time, bytes), summed per setting.
+        Proxies& q = proxies[with];
+        q.writes += st.writes;
+        q.capture_cpu += st.capture_cpu_seconds_total;
+        q.capture_bytes += st.capture_bytes_total;
+        q.writer_cpu += st.writer_cpu_seconds_total;
+        q.max_slice_cpu = std::max(q.max_slice_cpu, st.last_capture_max_cpu_seconds);
+        q.encode_cpu_last += st.last_encode_cpu_seconds;
+        q.write_cpu_last += st.last_write_cpu_seconds;
+        q.sync_last += st.last_sync_seconds;
+        q.file_bytes = st.last_bytes;
+        ++q.runs;
       }
       std::printf(
           "%-60s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; %s)\n",
@@ -688,18 +710,37 @@ void CheckpointLatency(int symbols, double rate, double seconds, double every_se
         mode_name(w).c_str(), base > 0 ? static_cast<double>(p99_of(pooled[w])) / base : -1.0,
         rounds, median(round_ratio[w]), static_cast<long>(within(round_ratio[w])), rounds);
   }
+  for (int w = 1; w < kSettings; ++w) {
+    const Proxies& q = proxies[w];
+    if (q.writes == 0 || q.runs == 0) continue;
+    const double n = static_cast<double>(q.writes);
+    std::printf(
+        "per checkpoint, %s: ingest-thread CPU %.3f ms (longest slice %.3f ms CPU), copied on "
+        "the ingest thread %.2f MB; writer CPU %.2f ms (last files: encode %.2f ms, write + "
+        "syncs %.2f ms CPU, syncs %.2f ms wall); file %.2f MB; %llu checkpoints\n",
+        mode_name(w).c_str(), q.capture_cpu / n * 1e3, q.max_slice_cpu * 1e3,
+        static_cast<double>(q.capture_bytes) / n / 1e6, q.writer_cpu / n * 1e3,
+        q.encode_cpu_last / q.runs * 1e3, q.write_cpu_last / q.runs * 1e3,
+        q.sync_last / q.runs * 1e3, static_cast<double>(q.file_bytes) / 1e6,
+        static_cast<unsigned long long>(q.writes));
+  }
   std::printf("target: p99 with checkpoints every second <= 1.5x without\n");
 }
 
 // The checkpoint's cost apart from the feed (no sockets, a manual clock): a
 // core with refit services (as CheckpointLatency) holding `per_symbol`
-// returns per symbol; then `rounds` rounds of one tick per symbol, each
-// followed by a checkpoint as a live engine takes it (EngineCapture, refilled
-// in place: the ingest thread's pause) and, for comparison, by a whole
-// capture (CaptureEngineState, the encoding of everything). Prints the
-// median and max of both, the file size and the writer's serialize (encode +
-// checksums) and write (temp file, fsyncs, rename) times. The live and whole
-// files are compared byte for byte.
+// returns per symbol; then `rounds` rounds of one tick (one bar) per symbol,
+// each followed by a checkpoint as a live engine takes it (EngineCapture,
+// refilled in place: the ingest thread's pause) and, for comparison, by a
+// whole capture (CaptureEngineState, the encoding of everything). Prints
+// the medians (max) of: the ingest thread's capture time, its CPU time
+// (CLOCK_THREAD_CPUTIME_ID) and the bytes it copied (EngineCapture::
+// copied_bytes), the same in slices of 500 symbols (the longest slice), and
+// the writer's serialize (encode + checksums) and write (temp file, fsyncs,
+// rename) times, wall and CPU; then what the file's bytes are made of. The
+// live, sliced and whole files are compared byte for byte. CPU times and
+// bytes do not depend on what else the host runs: they are the figures to
+// compare designs by.
 void CheckpointCost(int symbols, int per_symbol, int rounds) {
   LiveExtras x;
   x.services = true;
@@ -720,9 +761,13 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
   for (int k = 0; k < per_symbol; ++k) round();
   EngineCapture live(core.get(), services.get());
   EngineCapture sliced(core.get(), services.get());  // in slices of 500 symbols
+  // Both filled once, as the checkpointer does when it starts.
+  live.Capture(t);
+  sliced.Capture(t);
   std::string sliced_file;
   std::vector<double> live_cpu_ms;  // the thread's CPU time (without preemptions)
   std::vector<double> live_ms, whole_ms, serialize_ms, write_ms, slice_ms, slice_cpu_ms;
+  std::vector<double> live_mb, slice_mb, serialize_cpu_ms, write_cpu_ms, sync_ms;
   size_t bytes = 0;
   bool same = true;
   std::string file;  // reused, as the checkpointer does
@@ -735,9 +780,15 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
     live.Capture(t);
     live_cpu_ms.push_back((CpuNow() - cpu0) * 1e3);
     const auto b = std::chrono::steady_clock::now();
+    live_mb.push_back(static_cast<double>(live.copied_bytes()) / 1e6);
+    const double cpu1 = CpuNow();
     (void)live.Serialize(c, &file);
+    serialize_cpu_ms.push_back((CpuNow() - cpu1) * 1e3);
     const auto d = std::chrono::steady_clock::now();
-    (void)WriteFileAtomically(path, file);
+    WriteTimings wt;
+    (void)WriteFileAtomically(path, file, &wt);
+    write_cpu_ms.push_back(wt.cpu_seconds * 1e3);
+    sync_ms.push_back(wt.sync_seconds * 1e3);
     const auto e = std::chrono::steady_clock::now();
     const EngineSnapshot snap = CaptureEngineState(*core, services.get(), t);
     const auto f = std::chrono::steady_clock::now();
@@ -754,6 +805,7 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
     }
     slice_ms.push_back(longest);
     slice_cpu_ms.push_back(longest_cpu);
+    slice_mb.push_back(static_cast<double>(sliced.copied_bytes()) / 1e6);
     (void)sliced.Serialize(c, &sliced_file);
     same = same && sliced_file == file;
     live_ms.push_back(Secs(a, b) * 1e3);
@@ -763,8 +815,8 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
     bytes = file.size();
   }
   std::remove(path.c_str());
-  for (auto* v :
-       {&live_ms, &whole_ms, &serialize_ms, &write_ms, &slice_ms, &live_cpu_ms, &slice_cpu_ms}) {
+  for (auto* v : {&live_ms, &whole_ms, &serialize_ms, &write_ms, &slice_ms, &live_cpu_ms,
+                  &slice_cpu_ms, &live_mb, &slice_mb, &serialize_cpu_ms, &write_cpu_ms, &sync_ms}) {
     std::sort(v->begin(), v->end());
   }
   auto med = [](const std::vector<double>& v) { return v[v.size() / 2]; };
@@ -775,6 +827,26 @@ void CheckpointCost(int symbols, int per_symbol, int rounds) {
       symbols, per_symbol, bytes, med(live_ms), live_ms.back(), med(live_cpu_ms), med(slice_ms),
       slice_ms.back(), med(slice_cpu_ms), med(whole_ms), whole_ms.back(), med(serialize_ms),
       med(write_ms), same ? "identical" : "DIFFER");
+  std::printf(
+      "%6d symbols, per checkpoint: ingest thread CPU %6.3f ms, copied %6.3f MB (in slices: %6.3f "
+      "MB); writer CPU: serialize %6.2f ms, write + syncs %6.2f ms (syncs %6.2f ms wall)\n",
+      symbols, med(live_cpu_ms), med(live_mb), med(slice_mb), med(serialize_cpu_ms),
+      med(write_cpu_ms), med(sync_ms));
+  // What the bytes are: the sections, and in the services' section the refit
+  // windows (each 17 bytes of size, total and tag flag, then 8 a held return).
+  auto cp = ParseCheckpoint(file);
+  if (cp.ok()) {
+    const double n = static_cast<double>(symbols);
+    const size_t core_bytes = cp->Find(kCoreSectionTag)->size();
+    const size_t serv_bytes = cp->Find(kServicesSectionTag)->size();
+    const int held = std::min(per_symbol + rounds, c.refit.window);
+    const double window_bytes = 17.0 + 8.0 * held;
+    std::printf(
+        "%6d symbols, bytes a symbol: %.0f in all; core %.0f (filter state %zu, bar state 94); "
+        "services %.0f (refit window of %d returns %.0f)\n",
+        symbols, static_cast<double>(bytes) / n, core_bytes / n, sizeof(FilterState),
+        serv_bytes / n, held, window_bytes);
+  }
 }
 
 }  // namespace

@@ -25,6 +25,7 @@
 #define AFTERSHOCK_CHECKPOINT_FILE_H_
 
 #include <cstdint>
+#include <functional>
 #include <string>
 #include <utility>
 #include <vector>
@@ -32,6 +33,7 @@
 #include "absl/status/status.h"
 #include "absl/status/statusor.h"
 #include "absl/strings/string_view.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 
@@ -102,6 +104,20 @@ absl::Status SerializeCheckpointInto(
     const CheckpointHeader& header,
     const std::vector<std::pair<uint32_t, absl::string_view>>& sections, std::string* out);
 
+// A section whose payload `encode` appends to the file's own buffer, so a
+// large payload is not encoded into a buffer of its own and then copied
+// (EngineCapture::Serialize).
+struct SectionEncoder {
+  uint32_t tag = 0;
+  std::function<void(StateWriter*)> encode;
+};
+// The file SerializeCheckpointInto gives for the payloads the encoders
+// append, byte for byte, written into *out (content replaced, capacity kept).
+// Same REQUIREs and errors as SerializeCheckpointInto.
+absl::Status SerializeCheckpointEncoded(const CheckpointHeader& header,
+                                        const std::vector<SectionEncoder>& sections,
+                                        std::string* out);
+
 // Checks and splits a file's bytes. DataLoss naming the problem (truncated,
 // checksum of which section, trailing bytes...), FailedPrecondition for a
 // well-formed file of another format version.
@@ -111,11 +127,26 @@ absl::StatusOr<Checkpoint> ParseCheckpoint(std::string bytes);
 // otherwise (each prefixed with the path).
 absl::StatusOr<Checkpoint> ReadCheckpointFile(const std::string& path);
 
+// Where the time of one WriteFileAtomically went (checkpointer metrics,
+// engine_bench). Plain value.
+struct WriteTimings {
+  double write_seconds = 0;  // wall time of creating and writing the temporary, s
+  double sync_seconds = 0;   // wall time of the fsyncs, close, rename (file and directory), s
+  double cpu_seconds = 0;    // the calling thread's CPU time over the whole call, s
+};
+
 // Crash-consistent replacement of `path` by `bytes`: writes "<path>.tmp",
 // fsyncs it, renames it over `path`, then fsyncs the directory, so after a
 // crash at any moment `path` holds either the old or the new file, whole.
-// Errors name the step and the OS reason.
-absl::Status WriteFileAtomically(const std::string& path, absl::string_view bytes);
+// Errors name the step and the OS reason. `timings` (may be null) receives
+// the split of the time, also on error (up to the failing step).
+absl::Status WriteFileAtomically(const std::string& path, absl::string_view bytes,
+                                 WriteTimings* timings = nullptr);
+
+// CPU time of the calling thread, s (CLOCK_THREAD_CPUTIME_ID; 0 where the
+// clock is missing): the checkpoint costs are reported in it, since unlike
+// wall time it does not grow with what else the host runs.
+double ThreadCpuSeconds();
 
 // CRC-32C of bytes (see above): the CPU's crc32 instruction where it has one
 // (x86-64 with SSE 4.2), else the table-driven Crc32cPortable; the same value.

@@ -21,8 +21,11 @@
 // _failures_total, _skipped_total, _last_size_bytes, _last_write_seconds
 // (encode, checksums and disk) and _age_seconds (since the last successful
 // write's snapshot; -1 before one), _last_capture_seconds (the longest pause
-// the last snapshot cost the ingest thread) and _last_capture_slices (the
-// pauses it was taken in).
+// the last snapshot cost the ingest thread), _last_capture_slices (the
+// pauses it was taken in), _last_capture_cpu_seconds and
+// _last_capture_bytes (the ingest thread's CPU time and bytes copied for it,
+// all slices) and _last_writer_cpu_seconds (the writer's CPU time for the
+// last file: encode, checksums, write, fsyncs).
 // /health (MetricsSource::AppendHealthJson) adds
 //   "restored":{"symbols":N,"age_seconds":X,"file":"..."} (null: a fresh start)
 //   "checkpoint":{"file":"...","writes":N,"failures":N,"age_seconds":X}
@@ -98,6 +101,21 @@ struct CheckpointStats {
   double last_capture_seconds = 0;        // longest ingest-thread pause of the last snapshot, s
   double last_capture_total_seconds = 0;  // all its pauses together, s
   uint64_t last_capture_slices = 0;       // its pauses (1: captured at once)
+  // The last snapshot's costs in CPU time and bytes (unlike the wall times
+  // above, they do not grow with the host's other load; the writer's are
+  // those of the last file written).
+  double last_capture_cpu_seconds = 0;      // ingest-thread CPU, all its slices, s
+  double last_capture_max_cpu_seconds = 0;  // ingest-thread CPU of its longest slice, s
+  uint64_t last_capture_bytes = 0;          // bytes it copied on the ingest thread
+  double last_encode_seconds = 0;           // writer: encode + checksums (wall), s
+  double last_encode_cpu_seconds = 0;       // writer: encode + checksums (CPU), s
+  double last_file_write_seconds = 0;       // writer: write() into the temporary (wall), s
+  double last_sync_seconds = 0;             // writer: fsyncs and rename (wall), s
+  double last_write_cpu_seconds = 0;        // writer: the file's write and syncs (CPU), s
+  // Sums over the snapshots written (their mean is the cost per checkpoint).
+  double capture_cpu_seconds_total = 0;   // ingest-thread CPU, s
+  uint64_t capture_bytes_total = 0;       // bytes copied on the ingest thread
+  double writer_cpu_seconds_total = 0;    // writer CPU: encode, checksums, write, syncs, s
   uint64_t slice_fallbacks = 0;           // snapshots in slices that had to capture at once
   int64_t last_snapshot_ns = 0;           // clock time of the last written snapshot; 0 none
 };
@@ -175,6 +193,8 @@ class Checkpointer : public BarObserver, public MetricsSource {
   int64_t last_slice_ns_ = 0;       // clock time of its last slice
   double slice_max_seconds_ = 0;    // its longest pause so far
   double slice_total_seconds_ = 0;  // its pauses so far
+  double slice_max_cpu_seconds_ = 0;    // its longest slice's thread CPU time so far
+  double slice_total_cpu_seconds_ = 0;  // its slices' thread CPU time so far
   uint64_t slices_ = 0;             // its slices so far
   std::optional<CheckpointRestore> restored_;
   // ---- the writer (last: started after everything above) ----

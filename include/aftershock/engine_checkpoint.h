@@ -142,10 +142,16 @@ class EngineCapture {
   // bytes SerializeEngineSnapshot(CaptureEngineState(...)) gives at that
   // point), written into *file (content replaced, capacity kept);
   // FailedPrecondition while a capture in slices is incomplete. The
-  // sections are encoded into buffers the capture keeps, so a periodic
-  // writer that also keeps *file allocates nothing once the sizes settled.
+  // sections are encoded straight into *file (SerializeCheckpointEncoded),
+  // so a periodic writer that keeps *file allocates nothing once the size
+  // settled and copies no payload twice.
   // Any one thread, never concurrently with Capture or another Serialize.
   absl::Status Serialize(const EngineConfig& config, std::string* file);
+
+  // Bytes copied out of the live state by the last Capture, or by the
+  // slices of the capture in slices so far (StateCapture::copied_bytes):
+  // the snapshot's memory traffic on the ingest thread.
+  uint64_t copied_bytes() const { return CopiedTotal() - copied_at_start_; }
 
   uint64_t symbols() const { return symbols_; }       // at the last Capture
   int64_t created_ns() const { return created_ns_; }  // of the last Capture
@@ -155,6 +161,10 @@ class EngineCapture {
   const EngineServices* const services_;
   const std::unique_ptr<StateCapture> core_capture_;
   const std::unique_ptr<StateCapture> services_capture_;  // null without services
+  // Capture without touching the snapshot's start (copied_at_start_).
+  void CaptureAll(int64_t created_ns);
+  uint64_t CopiedTotal() const;
+  uint64_t copied_at_start_ = 0;  // CopiedTotal() when the snapshot began
   uint64_t symbols_ = 0;
   int64_t created_ns_ = 0;
   // Capture in slices: the symbols [0, slice_end_) planned at BeginSlices,
@@ -163,9 +173,6 @@ class EngineCapture {
   int slice_next_ = 0;
   int slice_end_ = 0;
   uint64_t slice_fallbacks_ = 0;
-  // Serialize's section buffers (reused; capacity kept between checkpoints).
-  std::string core_bytes_;
-  std::string services_bytes_;
 };
 
 // OK when the checkpoint was written under a configuration with the same

@@ -68,6 +68,17 @@ class FilterBank {
   // The lane's whole state (every lag), as a FilterState value.
   FilterState Get(int lane) const;
   void Set(int lane, const FilterState& state);
+  // The lane's state in two parts, for a checkpoint capture that copies only
+  // what changed (IngestCore::CaptureSymbols): GetHot writes the lag-0
+  // values and the bar count into *s (every step changes them), GetCold the
+  // higher lags (written only by Set: Add, Init, a restore, and the step or
+  // advance of a lane with an order above 1). Get(lane) == GetHot + GetCold.
+  // cold_stamp(lane) takes a value the bank never gave before (any lane)
+  // each time the lane's higher lags are written, so a copy of GetCold taken
+  // when the stamp was x is current while cold_stamp(lane) == x.
+  void GetHot(int lane, FilterState* s) const { GatherHot(lane, s); }
+  void GetCold(int lane, FilterState* s) const;
+  uint64_t cold_stamp(int lane) const { return cold_stamp_[lane]; }
   // Hot values without a gather.
   double next_variance(int lane) const { return next_variance_[lane]; }
   double mu_next(int lane) const { return mu_next_[lane]; }
@@ -158,6 +169,10 @@ class FilterBank {
   std::vector<double> r1_, eps1_, next_variance_, e2_1_, neg2_1_, s2_1_, sd_next_, mu_next_;
   std::vector<int64_t> bars_;
   std::vector<double> cold_;  // kCold per lane
+  // Per lane: the stamp of the last write of its cold row (cold_stamp);
+  // stamps come from cold_clock_, which only grows.
+  std::vector<uint64_t> cold_stamp_;
+  uint64_t cold_clock_ = 0;
   // Per lane: model, kind bits, version, coefficient row (row_ doubles).
   std::vector<const FilterModel*> model_;
   std::vector<uint8_t> kind_;

@@ -69,7 +69,9 @@ class RollingWindow {
   // copied (allocating when the capacity or tag setting differs) when this
   // window never equalled `live` or the two diverged (a total that went
   // back, or a held count that does not follow from the new returns).
-  void SyncFrom(const RollingWindow& live);
+  // Returns the bytes copied (returns and tags; 0: the window was already
+  // equal to `live`).
+  size_t SyncFrom(const RollingWindow& live);
 
   // Checkpoint encoding: size, total, then the held returns (and tags) oldest
   // first.

@@ -29,6 +29,8 @@
 #ifndef AFTERSHOCK_STATE_CAPTURE_H_
 #define AFTERSHOCK_STATE_CAPTURE_H_
 
+#include <cstdint>
+
 #include "aftershock/state_codec.h"
 
 namespace aftershock {
@@ -44,6 +46,18 @@ class StateCapture {
   // different gaps, outnumber its job slots): the caller then captures
   // everything again in one gap. Always true for a capture taken in one gap.
   virtual bool Restorable() const { return true; }
+
+  // Bytes copied out of the live state into this capture (and the captures
+  // it holds) since it was made, a running total: what the fills cost the
+  // ingest thread in memory traffic (records, window returns, pending refit
+  // inputs), counted by the fills so that a benchmark can compare capture
+  // designs without a clock (EngineCapture::copied_bytes: per snapshot).
+  // Owner's thread, or the holder of the capture (the hand-off of Encode).
+  virtual uint64_t copied_bytes() const { return copied_bytes_; }
+  void AddCopied(uint64_t n) { copied_bytes_ += n; }
+
+ private:
+  uint64_t copied_bytes_ = 0;
 };
 
 }  // namespace aftershock

@@ -49,6 +49,8 @@ class StateWriter {
   // written as 0 before the bytes it counts), with v.
   // REQUIRES: offset + 8 <= size().
   void PatchU64(size_t offset, uint64_t v) { std::memcpy(&out_[offset], &v, sizeof v); }
+  // The same for the 4 bytes at `offset`. REQUIRES: offset + 4 <= size().
+  void PatchU32(size_t offset, uint32_t v) { std::memcpy(&out_[offset], &v, sizeof v); }
   // Empties the output, keeping its capacity (a writer reused from one
   // checkpoint capture to the next does not allocate again).
   void Clear() { out_.clear(); }

@@ -1,9 +1,11 @@
 #include "aftershock/checkpoint_file.h"
 
 #include <fcntl.h>
+#include <time.h>
 #include <unistd.h>
 
 #include <cerrno>
+#include <chrono>
 #include <cstring>
 #include <fstream>
 #include <sstream>
@@ -153,6 +155,64 @@ absl::StatusOr<std::string> SerializeCheckpoint(
   return out;
 }
 
+namespace {
+
+// The header's checks (SerializeCheckpointInto's REQUIREs).
+absl::Status CheckHeader(const CheckpointHeader& header, size_t sections) {
+  if (header.engine_version.size() > kMaxEngineVersionBytes) {
+    return absl::InvalidArgumentError(absl::StrCat("engine version '", header.engine_version,
+                                                   "' is longer than ", kMaxEngineVersionBytes,
+                                                   " bytes"));
+  }
+  if (sections > static_cast<size_t>(kMaxCheckpointSections)) {
+    return absl::InvalidArgumentError(
+        absl::StrCat(sections, " sections; at most ", kMaxCheckpointSections));
+  }
+  return absl::OkStatus();
+}
+
+// The 64-byte header, with its checksum. REQUIRES: w empty.
+void WriteHeader(const CheckpointHeader& header, size_t sections, StateWriter* w) {
+  for (int i = 0; i < 8; ++i) w->U8(static_cast<uint8_t>(kHeaderMagic[i]));
+  w->U32(header.format_version);
+  w->U32(static_cast<uint32_t>(sections));
+  w->U64(header.config_fingerprint);
+  w->U64(header.symbol_count);
+  w->I64(header.created_ns);
+  for (size_t i = 0; i < 16; ++i) {
+    w->U8(i < header.engine_version.size() ? static_cast<uint8_t>(header.engine_version[i]) : 0);
+  }
+  w->U32(0);
+  w->U32(Crc32c(w->data()));
+}
+
+}  // namespace
+
+absl::Status SerializeCheckpointEncoded(const CheckpointHeader& header,
+                                        const std::vector<SectionEncoder>& sections,
+                                        std::string* out) {
+  if (absl::Status s = CheckHeader(header, sections.size()); !s.ok()) return s;
+  StateWriter w(std::move(*out));
+  WriteHeader(header, sections.size(), &w);
+  for (const SectionEncoder& section : sections) {
+    // Length and checksum are patched in once the payload is written.
+    const size_t at = w.size();
+    w.U32(section.tag);
+    w.U64(0);
+    w.U32(0);
+    section.encode(&w);
+    const uint64_t length = w.size() - at - kCheckpointSectionHeaderBytes;
+    w.PatchU64(at + 4, length);
+    w.PatchU32(at + 12, SectionCrc(section.tag, length,
+                                   absl::string_view(w.data()).substr(
+                                       at + kCheckpointSectionHeaderBytes, length)));
+  }
+  for (int i = 0; i < 8; ++i) w.U8(static_cast<uint8_t>(kTrailerMagic[i]));
+  w.U64(w.size() + sizeof(uint64_t));
+  *out = w.Release();
+  return absl::OkStatus();
+}
+
 absl::Status SerializeCheckpointInto(
     const CheckpointHeader& header,
     const std::vector<std::pair<uint32_t, absl::string_view>>& sections, std::string* out) {
@@ -300,7 +360,50 @@ absl::StatusOr<Checkpoint> ReadCheckpointFile(const std::string& path) {
   return cp;
 }
 
-absl::Status WriteFileAtomically(const std::string& path, absl::string_view bytes) {
+double ThreadCpuSeconds() {
+  timespec ts{};
+  if (clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts) != 0) return 0;
+  return static_cast<double>(ts.tv_sec) + static_cast<double>(ts.tv_nsec) * 1e-9;
+}
+
+namespace {
+
+// Fills a WriteTimings on every path out of WriteFileAtomically: the write
+// phase ends at Synced(), the sync phase at destruction.
+class WriteTimer {
+ public:
+  explicit WriteTimer(WriteTimings* out)
+      : out_(out),
+        cpu0_(out != nullptr ? ThreadCpuSeconds() : 0),
+        t0_(std::chrono::steady_clock::now()),
+        t1_(t0_) {}
+  ~WriteTimer() {
+    if (out_ == nullptr) return;
+    const auto t2 = std::chrono::steady_clock::now();
+    if (!synced_) t1_ = t2;
+    out_->write_seconds = std::chrono::duration<double>(t1_ - t0_).count();
+    out_->sync_seconds = std::chrono::duration<double>(t2 - t1_).count();
+    out_->cpu_seconds = ThreadCpuSeconds() - cpu0_;
+  }
+  // The bytes are in the temporary; the fsyncs start.
+  void Synced() {
+    t1_ = std::chrono::steady_clock::now();
+    synced_ = true;
+  }
+
+ private:
+  WriteTimings* const out_;
+  const double cpu0_;
+  const std::chrono::steady_clock::time_point t0_;
+  std::chrono::steady_clock::time_point t1_;
+  bool synced_ = false;
+};
+
+}  // namespace
+
+absl::Status WriteFileAtomically(const std::string& path, absl::string_view bytes,
+                                 WriteTimings* timings) {
+  WriteTimer timer(timings);
   const std::string tmp = path + ".tmp";
   const int fd = ::open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644);
   if (fd < 0) {
@@ -318,6 +421,7 @@ absl::Status WriteFileAtomically(const std::string& path, absl::string_view byte
     }
     done += static_cast<size_t>(n);
   }
+  timer.Synced();
   if (::fsync(fd) != 0) {
     const std::string reason = OsReason();
     ::unlink(tmp.c_str());

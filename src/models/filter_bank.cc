@@ -38,6 +38,7 @@ void FilterBank::Reserve(int n) {
   }
   bars_.reserve(k);
   cold_.reserve(k * kCold);
+  cold_stamp_.reserve(k);
   model_.reserve(k);
   kind_.reserve(k);
   version_.reserve(k);
@@ -52,6 +53,7 @@ int FilterBank::Add(const FilterModel* model, const FilterState& state) {
   }
   bars_.push_back(0);
   cold_.resize(cold_.size() + kCold);
+  cold_stamp_.push_back(0);  // Set below stamps it
   model_.push_back(model);
   kind_.push_back(0);
   version_.push_back(0);
@@ -139,6 +141,12 @@ void FilterBank::ScatterHot(int lane, const FilterState& s) {
 FilterState FilterBank::Get(int lane) const {
   FilterState s;
   GatherHot(lane, &s);
+  GetCold(lane, &s);
+  return s;
+}
+
+void FilterBank::GetCold(int lane, FilterState* out) const {
+  FilterState& s = *out;
   const double* c = &cold_[static_cast<size_t>(lane) * kCold];
   std::copy(c, c + kColdR, s.r_hist + 1);
   c += kColdR;
@@ -149,11 +157,11 @@ FilterState FilterBank::Get(int lane) const {
   std::copy(c, c + kColdNeg, s.var.neg_eps2.begin() + 1);
   c += kColdNeg;
   std::copy(c, c + kColdS2, s.var.sigma2.begin() + 1);
-  return s;
 }
 
 void FilterBank::Set(int lane, const FilterState& s) {
   ScatterHot(lane, s);
+  cold_stamp_[lane] = ++cold_clock_;
   double* c = &cold_[static_cast<size_t>(lane) * kCold];
   c = std::copy(s.r_hist + 1, s.r_hist + kMaxArmaOrder, c);
   c = std::copy(s.eps_hist + 1, s.eps_hist + kMaxArmaOrder, c);

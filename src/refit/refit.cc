@@ -892,7 +892,7 @@ void RefitCoordinator::CaptureSymbol(StateCapture* capture, uint32_t id) const {
   const SymbolSlot& s = symbols_[id];
   RefitSymbolCapture& d = c.symbols[id];
   d.group = s.group;
-  d.window.SyncFrom(s.window);
+  c.AddCopied(d.window.SyncFrom(s.window));
   d.schedule = s.schedule;
   if (d.current.get() != s.current.get()) d.current = s.current;
   if (d.last_estimated.get() != s.last_estimated.get()) d.last_estimated = s.last_estimated;
@@ -903,6 +903,10 @@ void RefitCoordinator::CaptureSymbol(StateCapture* capture, uint32_t id) const {
   d.pooled = s.pooled;
   d.pooled_seq = s.pooled_seq;
   d.pooled_bar = s.pooled_bar;
+  // The flat values above (the version pointers compared, re-pointed rarely).
+  c.AddCopied(sizeof(d.group) + sizeof(d.schedule) + sizeof(d.last_version) + sizeof(d.failures) +
+              sizeof(d.fallback) + sizeof(d.fits) + sizeof(d.pooled) + sizeof(d.pooled_seq) +
+              sizeof(d.pooled_bar));
   const bool has_job = s.pending >= 0;
   if (has_job != d.has_job) {
     if (has_job) {
@@ -924,6 +928,8 @@ void RefitCoordinator::CaptureSymbol(StateCapture* capture, uint32_t id) const {
     s.window.CopyTo(&d.job.returns);
     if (options_.seasonal) s.window.CopyTagsTo(&d.job.tags);
   }
+  c.AddCopied(sizeof(SavedJob) + d.job.returns.size() * sizeof(double) +
+              d.job.tags.size() * sizeof(int32_t));
 }
 
 absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {

@@ -35,7 +35,7 @@ void RollingWindow::CopyTo(std::vector<double>* out) const {
   std::copy(buf_.begin(), buf_.begin() + (size_ - first), out->begin() + first);
 }
 
-void RollingWindow::SyncFrom(const RollingWindow& live) {
+size_t RollingWindow::SyncFrom(const RollingWindow& live) {
   const int64_t fresh = live.total_ - total_;
   const bool follows = capacity_ == live.capacity_ && has_tags() == live.has_tags() && fresh >= 0 &&
                        fresh <= capacity_ &&
@@ -51,13 +51,14 @@ void RollingWindow::SyncFrom(const RollingWindow& live) {
     head_ = live.head_;
     size_ = live.size_;
     total_ = live.total_;
-    return;
+    return buf_.size() * sizeof(double) + tags_.size() * sizeof(int32_t);
   }
   // The `fresh` newest returns of `live`, oldest first.
   for (int64_t i = fresh; i > 0; --i) {
     const int k = static_cast<int>(i - 1);
     Push(live.back(k), live.has_tags() ? live.tag_back(k) : 0);
   }
+  return static_cast<size_t>(fresh) * (sizeof(double) + (has_tags() ? sizeof(int32_t) : 0));
 }
 
 }  // namespace aftershock

@@ -128,16 +128,20 @@ void Checkpointer::OnClock(IngestCore* /*core*/, int64_t /*now_ns*/) {
   // the writer's.
   slice_max_seconds_ = 0;
   slice_total_seconds_ = 0;
+  slice_max_cpu_seconds_ = 0;
+  slice_total_cpu_seconds_ = 0;
   slices_ = 0;
   if (options_.slice_symbols > 0) {
     capture_->BeginSlices(now);
     CaptureNextSlice();
     return;
   }
+  const double cpu0 = ThreadCpuSeconds();
   const auto t0 = std::chrono::steady_clock::now();
   capture_->Capture(now);
   slice_max_seconds_ = slice_total_seconds_ =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  slice_max_cpu_seconds_ = slice_total_cpu_seconds_ = ThreadCpuSeconds() - cpu0;
   slices_ = 1;
   Queue();
 }
@@ -149,12 +153,16 @@ void Checkpointer::OnBatchEnd(IngestCore* /*core*/) {
 }
 
 void Checkpointer::CaptureNextSlice() {
+  const double cpu0 = ThreadCpuSeconds();
   const auto t0 = std::chrono::steady_clock::now();
   const bool done = capture_->CaptureSlice(options_.slice_symbols);
   const double pause = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  const double cpu = ThreadCpuSeconds() - cpu0;
   last_slice_ns_ = clock_->NowNs();
   slice_max_seconds_ = std::max(slice_max_seconds_, pause);
   slice_total_seconds_ += pause;
+  slice_max_cpu_seconds_ = std::max(slice_max_cpu_seconds_, cpu);
+  slice_total_cpu_seconds_ += cpu;
   ++slices_;
   if (done) Queue();
 }
@@ -166,6 +174,9 @@ void Checkpointer::Queue() {
     shared_->stats.last_capture_seconds = slice_max_seconds_;
     shared_->stats.last_capture_total_seconds = slice_total_seconds_;
     shared_->stats.last_capture_slices = slices_;
+    shared_->stats.last_capture_cpu_seconds = slice_total_cpu_seconds_;
+    shared_->stats.last_capture_max_cpu_seconds = slice_max_cpu_seconds_;
+    shared_->stats.last_capture_bytes = capture_->copied_bytes();
     shared_->stats.slice_fallbacks = capture_->slice_fallbacks();
   }
   shared_->cv.notify_all();
@@ -204,17 +215,31 @@ void Checkpointer::WriterLoop() {
 }
 
 absl::Status Checkpointer::Write() {
+  const double cpu0 = ThreadCpuSeconds();
   const auto t0 = std::chrono::steady_clock::now();
   absl::Status st = capture_->Serialize(config_, &file_);
-  if (st.ok()) st = WriteFileAtomically(options_.path, file_);
+  const double encode_cpu = ThreadCpuSeconds() - cpu0;
+  const double encode =
+      std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  WriteTimings wt;
+  if (st.ok()) st = WriteFileAtomically(options_.path, file_, &wt);
   const double seconds =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   refit_internal::MutexLock lock(&shared_->mu);
   if (st.ok()) {
-    ++shared_->stats.writes;
-    shared_->stats.last_bytes = file_.size();
-    shared_->stats.last_write_seconds = seconds;
-    shared_->stats.last_snapshot_ns = capture_->created_ns();
+    CheckpointStats& s = shared_->stats;
+    ++s.writes;
+    s.last_bytes = file_.size();
+    s.last_write_seconds = seconds;
+    s.last_encode_seconds = encode;
+    s.last_encode_cpu_seconds = encode_cpu;
+    s.last_file_write_seconds = wt.write_seconds;
+    s.last_sync_seconds = wt.sync_seconds;
+    s.last_write_cpu_seconds = wt.cpu_seconds;
+    s.capture_cpu_seconds_total += s.last_capture_cpu_seconds;
+    s.capture_bytes_total += s.last_capture_bytes;
+    s.writer_cpu_seconds_total += encode_cpu + wt.cpu_seconds;
+    s.last_snapshot_ns = capture_->created_ns();
   } else {
     ++shared_->stats.failures;
     shared_->last_error = std::string(st.message());
@@ -232,15 +257,20 @@ absl::Status Checkpointer::WriteNow() {
       shared_->busy = true;
     }
   }
+  const double cpu0 = ThreadCpuSeconds();
   const auto t0 = std::chrono::steady_clock::now();
   capture_->Capture(clock_->NowNs());
   const double capture =
       std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+  const double cpu = ThreadCpuSeconds() - cpu0;
   {
     refit_internal::MutexLock lock(&shared_->mu);
     shared_->stats.last_capture_seconds = capture;
     shared_->stats.last_capture_total_seconds = capture;
     shared_->stats.last_capture_slices = 1;
+    shared_->stats.last_capture_cpu_seconds = cpu;
+    shared_->stats.last_capture_max_cpu_seconds = cpu;
+    shared_->stats.last_capture_bytes = capture_->copied_bytes();
   }
   const absl::Status st = Write();
   {
@@ -289,6 +319,19 @@ void Checkpointer::AppendPrometheus(std::string* o) const {
       "captured in.\n# TYPE aftershock_checkpoint_last_capture_slices gauge\n"
       "aftershock_checkpoint_last_capture_slices ",
       s.last_capture_slices,
+      "\n# HELP aftershock_checkpoint_last_capture_cpu_seconds Ingest-thread CPU time of the "
+      "last snapshot, all its slices.\n# TYPE aftershock_checkpoint_last_capture_cpu_seconds "
+      "gauge\naftershock_checkpoint_last_capture_cpu_seconds ",
+      s.last_capture_cpu_seconds,
+      "\n# HELP aftershock_checkpoint_last_capture_bytes Bytes the last snapshot copied on the "
+      "ingest thread.\n# TYPE aftershock_checkpoint_last_capture_bytes gauge\n"
+      "aftershock_checkpoint_last_capture_bytes ",
+      s.last_capture_bytes,
+      "\n# HELP aftershock_checkpoint_last_writer_cpu_seconds Writer CPU time of the last "
+      "checkpoint (encode, checksums, write, fsyncs).\n# TYPE "
+      "aftershock_checkpoint_last_writer_cpu_seconds gauge\n"
+      "aftershock_checkpoint_last_writer_cpu_seconds ",
+      s.last_encode_cpu_seconds + s.last_write_cpu_seconds,
       "\n# HELP aftershock_checkpoint_age_seconds Age of the state in the last checkpoint "
       "written (-1: none yet).\n# TYPE aftershock_checkpoint_age_seconds gauge\n"
       "aftershock_checkpoint_age_seconds ",

@@ -188,7 +188,17 @@ EngineCapture::EngineCapture(const IngestCore* core, const EngineServices* servi
       core_capture_(core->NewStateCapture()),
       services_capture_(services != nullptr ? services->NewStateCapture() : nullptr) {}
 
+uint64_t EngineCapture::CopiedTotal() const {
+  return core_capture_->copied_bytes() +
+         (services_capture_ != nullptr ? services_capture_->copied_bytes() : 0);
+}
+
 void EngineCapture::Capture(int64_t created_ns) {
+  copied_at_start_ = CopiedTotal();
+  CaptureAll(created_ns);
+}
+
+void EngineCapture::CaptureAll(int64_t created_ns) {
   core_->CaptureState(core_capture_.get());
   if (services_ != nullptr) services_->CaptureState(services_capture_.get());
   symbols_ = static_cast<uint64_t>(core_->num_symbols());
@@ -197,6 +207,7 @@ void EngineCapture::Capture(int64_t created_ns) {
 }
 
 void EngineCapture::BeginSlices(int64_t created_ns) {
+  copied_at_start_ = CopiedTotal();
   slicing_ = true;
   slice_next_ = 0;
   slice_end_ = core_->num_symbols();
@@ -218,7 +229,7 @@ bool EngineCapture::CaptureSlice(int max_symbols) {
   if (!core_capture_->Restorable() ||
       (services_capture_ != nullptr && !services_capture_->Restorable())) {
     ++slice_fallbacks_;
-    Capture(created_ns_);
+    CaptureAll(created_ns_);  // the slices' copies count as well
   }
   symbols_ = static_cast<uint64_t>(n);
   slicing_ = false;
@@ -229,20 +240,17 @@ absl::Status EngineCapture::Serialize(const EngineConfig& config, std::string* f
   if (slicing_) {
     return absl::FailedPreconditionError("the capture in slices is not complete");
   }
-  StateWriter w(std::move(core_bytes_));
-  core_capture_->Encode(&w);
-  core_bytes_ = w.Release();
-  if (services_capture_ != nullptr) {
-    StateWriter sw(std::move(services_bytes_));
-    services_capture_->Encode(&sw);
-    services_bytes_ = sw.Release();
-  }
+  // The sections are encoded straight into the file's buffer: no payload
+  // buffer of their own, no second copy of the ~1.7 KB a symbol.
   const std::string conf = EncodeConfigSections(StateRelevantConfig(config));
-  std::vector<std::pair<uint32_t, absl::string_view>> sections;
-  sections.emplace_back(kConfigSectionTag, conf);
-  sections.emplace_back(kCoreSectionTag, core_bytes_);
-  if (services_capture_ != nullptr) sections.emplace_back(kServicesSectionTag, services_bytes_);
-  return SerializeCheckpointInto(SnapshotHeader(conf, symbols_, created_ns_), sections, file);
+  std::vector<SectionEncoder> sections;
+  sections.push_back({kConfigSectionTag, [&conf](StateWriter* w) { w->Append(conf); }});
+  sections.push_back({kCoreSectionTag, [this](StateWriter* w) { core_capture_->Encode(w); }});
+  if (services_capture_ != nullptr) {
+    sections.push_back(
+        {kServicesSectionTag, [this](StateWriter* w) { services_capture_->Encode(w); }});
+  }
+  return SerializeCheckpointEncoded(SnapshotHeader(conf, symbols_, created_ns_), sections, file);
 }
 
 absl::Status CheckCheckpointConfig(const Checkpoint& checkpoint, const EngineConfig& config) {

@@ -95,6 +95,9 @@ class ServicesCapture : public StateCapture {
   }
 
   bool Restorable() const override { return refit == nullptr || refit->Restorable(); }
+  uint64_t copied_bytes() const override {
+    return StateCapture::copied_bytes() + (refit != nullptr ? refit->copied_bytes() : 0);
+  }
 
   const bool windows;
   // Switches, marks and the alert engines' state, as SaveState lays them out.
@@ -259,7 +262,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       ServicesCapture::SymbolRecord& d = c.symbols[i];
       d.alerts = p.alerts;
       d.fallback = p.fallback;
-      if (c.windows) d.seasonal_window.SyncFrom(p.seasonal_window);
+      c.AddCopied(sizeof(d.alerts) + sizeof(d.fallback));
+      if (c.windows) c.AddCopied(d.seasonal_window.SyncFrom(p.seasonal_window));
       // The symbol's refit state in the same gap as its alert and core state.
       if (refit_ != nullptr && p.refit_id >= 0) {
         refit_->CaptureSymbol(c.refit.get(), static_cast<uint32_t>(p.refit_id));

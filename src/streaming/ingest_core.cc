@@ -548,6 +548,9 @@ struct CoreSymbolCapture {
   Symbol symbol;  // copied when the record is created (a slot's name never changes)
   BarState bars_state;
   FilterState filter;
+  // FilterBank::cold_stamp of the lane when filter's higher lags were copied
+  // (0: never): they are copied again only when the bank wrote them since.
+  uint64_t filter_cold_stamp = 0;
   // Immutable shared objects, re-pointed only when the core's pointer changed
   // (the capture holds them, so an address cannot be reused meanwhile).
   std::shared_ptr<const FilterModel> model;
@@ -668,6 +671,15 @@ void IngestCore::CaptureCoreWide(StateCapture* capture) const {
   c.last_clock_ns = last_clock_ns_;
 }
 
+// The bytes CaptureSymbols copies for every symbol apart from the filter's
+// higher lags, the warm-up returns and the tracker (StateCapture::
+// copied_bytes): the bar state, the filter's lag-0 values (FilterBank::
+// GetHot: eight doubles and the bar count), the flags and the counters.
+constexpr uint64_t kFilterHotBytes = 8 * sizeof(double) + sizeof(int64_t);
+constexpr uint64_t kFlatRecordBytes = sizeof(BarState) + kFilterHotBytes + 2 * sizeof(uint32_t) +
+                                      sizeof(bool) + sizeof(int) + 4 * sizeof(uint64_t) +
+                                      2 * sizeof(int64_t) + 2 * sizeof(bool);
+
 void IngestCore::CaptureSymbols(StateCapture* capture, int begin, int end) const {
   CoreCapture& c = *static_cast<CoreCapture*>(capture);
   const size_t old = c.symbols.size();
@@ -686,7 +698,16 @@ void IngestCore::CaptureSymbols(StateCapture* capture, int begin, int end) const
     const Slot& s = slots_[i];
     CoreSymbolCapture& d = c.symbols[i];
     d.bars_state = s.bars_state;
-    d.filter = bank_.Get(static_cast<int>(i));
+    // The filter's higher lags only when the bank wrote them since the last
+    // copy (never, for a lane whose orders are all 1, after its warm-up):
+    // they are most of the filter state's bytes.
+    const int lane = static_cast<int>(i);
+    bank_.GetHot(lane, &d.filter);
+    if (d.filter_cold_stamp != bank_.cold_stamp(lane)) {
+      bank_.GetCold(lane, &d.filter);
+      d.filter_cold_stamp = bank_.cold_stamp(lane);
+      c.AddCopied(sizeof(FilterState) - kFilterHotBytes);
+    }
     if (d.model.get() != s.model.get()) d.model = s.model;
     if (d.profile.get() != s.profile.get()) d.profile = s.profile;
     d.status_flags = s.status_flags;
@@ -706,6 +727,9 @@ void IngestCore::CaptureSymbols(StateCapture* capture, int begin, int end) const
     d.need_anchor = s.need_anchor;
     d.instability_armed = s.instability_armed;
     if (d.tracker != nullptr) *d.tracker = s.tracker;
+    c.AddCopied(kFlatRecordBytes +
+                static_cast<uint64_t>(std::max(s.num_start_returns, 0)) * sizeof(double) +
+                (d.tracker != nullptr ? sizeof(RecursiveTracker) : 0));
   }
 }
 

@@ -327,5 +327,92 @@ TEST_CASE("Get and Set keep every lag; the batch step allocates nothing", "[bank
   if (testing::AllocationCountingEnabled()) CHECK(testing::AllocationCount() == before);
 }
 
+// The checkpoint capture's reuse (IngestCore::CaptureSymbols): a copy of a
+// lane's higher lags taken at cold_stamp x must equal the lane's higher lags
+// whenever cold_stamp is still x, whatever ran meanwhile (batch and single
+// steps with the lane's or another model, advances, inits, sets, model
+// changes), for every family; and a lane whose orders are all 1 keeps its
+// stamp through its steps (else nothing would be reused).
+TEST_CASE("cold_stamp: a copy of the higher lags is current while the stamp is unchanged",
+          "[bank]") {
+  std::mt19937_64 rng(17);
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  OutputOptions oo;
+  FilterBank bank(oo);
+  std::vector<std::unique_ptr<FilterModel>> models;
+  for (const Family& f : Families()) {
+    auto spec = MakeModelSpec(f.mean, f.order, f.variance, f.lags, "student");
+    REQUIRE(spec.ok());
+    auto m = FilterModel::Create(RandomParams(*spec, &rng), oo, 3);
+    REQUIRE(m.ok());
+    models.push_back(std::make_unique<FilterModel>(*m));
+    FilterState st;
+    InitFilterState(*models.back(), 2e-4, &st);
+    bank.Add(models.back().get(), st);
+  }
+  const int n = bank.size();
+  // Per lane: the state assembled as the capture does (hot every time, cold
+  // only when the stamp moved) and the stamp of its cold part.
+  std::vector<FilterState> copy(n);
+  std::vector<uint64_t> stamp(n, 0);
+  int reused = 0, recopied = 0;
+  auto capture_and_check = [&] {
+    for (int l = 0; l < n; ++l) {
+      bank.GetHot(l, &copy[l]);
+      if (stamp[l] != bank.cold_stamp(l)) {
+        bank.GetCold(l, &copy[l]);
+        stamp[l] = bank.cold_stamp(l);
+        ++recopied;
+      } else {
+        ++reused;
+      }
+      INFO("lane " << l);
+      RequireSameState(copy[l], bank.Get(l));
+    }
+  };
+  capture_and_check();
+  std::vector<int> lanes(n);
+  for (int l = 0; l < n; ++l) lanes[l] = l;
+  std::vector<double> r(n);
+  std::vector<BarUpdate> out(n);
+  for (int round = 0; round < 300; ++round) {
+    const int op = round % 6;
+    if (op == 0 || op == 3) {
+      for (double& x : r) x = RandomReturn(&rng, 0.01);
+      bank.StepBatch(lanes, r, out.data());
+    } else if (op == 1) {
+      for (int l = 0; l < n; ++l) bank.Step(l, bank.model(l), RandomReturn(&rng, 0.01), &out[l]);
+    } else if (op == 2) {
+      const int l = static_cast<int>(u(rng) * n);
+      bank.Advance(l, RandomReturn(&rng, 0.01));
+    } else if (op == 4 && round % 24 == 4) {
+      const int l = static_cast<int>(u(rng) * n);
+      bank.Init(l, 1e-4);
+    } else if (op == 5 && round % 30 == 5) {
+      // Another lane's model on this lane (a swap keeps the state).
+      const int l = static_cast<int>(u(rng) * n);
+      bank.SetModel(l, models[static_cast<size_t>(u(rng) * n)].get());
+    }
+    for (int l = 0; l < n; ++l) {
+      if (!std::isfinite(bank.next_variance(l))) bank.Init(l, 1e-4);
+    }
+    capture_and_check();
+  }
+  // Most lanes have orders of at most 1: their higher lags are not rewritten.
+  CHECK(reused > recopied);
+  // A lane of order 1 stepped alone keeps its stamp; one of order 2 moves it.
+  const int fast = 4;   // constant / garch(1,1)
+  const int slow = 11;  // constant / garch(2,1)
+  REQUIRE(models[fast]->params().spec.arch_order == 1);
+  REQUIRE(models[slow]->params().spec.arch_order == 2);
+  bank.SetModel(fast, models[fast].get());
+  bank.SetModel(slow, models[slow].get());
+  const uint64_t fast_stamp = bank.cold_stamp(fast), slow_stamp = bank.cold_stamp(slow);
+  bank.Step(fast, bank.model(fast), 0.003, &out[0]);
+  bank.Step(slow, bank.model(slow), 0.003, &out[1]);
+  CHECK(bank.cold_stamp(fast) == fast_stamp);
+  CHECK(bank.cold_stamp(slow) != slow_stamp);
+}
+
 }  // namespace
 }  // namespace aftershock
