@@ -4,15 +4,25 @@
 // and replays them (every published tick is taken once by the survivor);
 // SIGTERM releases the leases at once. `simulate --nats` publishes the ticks
 // and `cluster status --json` is the observer.
+//
+// The two fault tests (kill -9 mid-stream, rolling restart) use 24 invented
+// instruments x 500 one-minute bars (12,000 ticks) published at 2,000 and
+// 1,500 ticks/s; AFTERSHOCK_TEST_SYMBOLS, AFTERSHOCK_TEST_BARS and
+// AFTERSHOCK_TEST_RATE (ticks/s, both tests) override the sizes, e.g. 50 x
+// 5,000 for the scale-out issue's full size (README "Scale-out"). The faults'
+// moments keep their place in the feed and the wait for the last updates
+// grows with the tick count. The ctest runs the default size only.
 #include <fcntl.h>
 #include <nats/nats.h>
 #include <signal.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <atomic>
 #include <catch2/catch.hpp>
 #include <chrono>
+#include <cmath>
 #include <cstdio>
 #include <fstream>
 #include <map>
@@ -126,12 +136,36 @@ TEST_CASE("run on JetStream: kill -9 of one instance, takeover, clean release") 
 
 // Simulated market shared by the fault tests: 24 invented instruments x 500
 // one-minute bars, one tick a bar (the wall clock closes each bar after its
-// tick, in the cluster and in the replay alike).
-const std::vector<std::string> kMarket = {"--symbols", "24", "--bars", "500", "--seed", "5"};
+// tick, in the cluster and in the replay alike), published at `rate` ticks/s,
+// unless the environment overrides them (see the top).
+testing::TestMarket Market(double rate) { return testing::MarketFromEnv(24, 500, rate); }
+constexpr int kSeed = 5;
 
-std::map<UpdateKey, std::string> ReplayReference(const std::string& dir,
-                                                 const std::string& config) {
-  return testing::ReplayReference(dir, config, kMarket);
+std::map<UpdateKey, std::string> ReplayReference(const std::string& dir, const std::string& config,
+                                                 const testing::TestMarket& market) {
+  return testing::ReplayReference(dir, config, market.args(kSeed));
+}
+
+// The `simulate --nats` command publishing `market` with `config`.
+std::vector<std::string> FeedCommand(const std::string& config, const testing::TestMarket& market) {
+  std::vector<std::string> sim = {"simulate", "--nats", config, "--quiet"};
+  for (const std::vector<std::string>& more : {market.rate_args(), market.args(kSeed)})
+    sim.insert(sim.end(), more.begin(), more.end());
+  std::printf("%d instruments x %d bars = %lld ticks at %g ticks/s, about %.1f s of feed\n",
+              market.symbols, market.bars, static_cast<long long>(market.ticks()), market.rate,
+              market.feed_seconds());
+  return sim;
+}
+
+// 240 s for the last updates at the default size; 1 s per 500 ticks when that
+// is more.
+double UpdatesLimit(const testing::TestMarket& market) {
+  return std::max(240.0, static_cast<double>(market.ticks()) / 500);
+}
+
+// `fraction` of the feed's duration.
+std::chrono::milliseconds IntoFeed(const testing::TestMarket& market, double fraction) {
+  return std::chrono::milliseconds(std::llround(market.feed_seconds() * fraction * 1000));
 }
 
 std::string FaultConfig(const std::string& dir, const std::string& url, const std::string& name) {
@@ -150,8 +184,10 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
   const std::string ca = FaultConfig(dir, server.url(), "eng-a");
   const std::string cb = FaultConfig(dir, server.url(), "eng-b");
   const std::string cc = FaultConfig(dir, server.url(), "eng-c");
-  const std::map<UpdateKey, std::string> want = ReplayReference(dir, ca);
-  REQUIRE(want.size() > 10000);
+  const testing::TestMarket market = Market(2000);
+  const std::map<UpdateKey, std::string> want = ReplayReference(dir, ca, market);
+  // A bar's update needs its tick and a fitted model: over 10,000 of 12,000 by default.
+  REQUIRE(want.size() * 6 > static_cast<size_t>(market.ticks()) * 5);
 
   UpdateCollector collector(server.url(), "upd");
   RunProcess a(ca, dir + "/a.err");
@@ -164,11 +200,10 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
                 return o["eng-a"] == 4 && o["eng-b"] == 4 && o["eng-c"] == 4;
               },
               30) >= 0);
-  // 12,000 ticks at 2,000 a second: about 6 s of feed; B dies after 2.5 s.
-  std::vector<std::string> sim = {"simulate", "--nats", ca, "--rate", "2000", "--quiet"};
-  sim.insert(sim.end(), kMarket.begin(), kMarket.end());
-  RunProcess feed(sim, dir + "/sim.err");
-  std::this_thread::sleep_for(std::chrono::milliseconds(2500));
+  // By default 12,000 ticks at 2,000 a second: about 6 s of feed; B dies 5/12
+  // into it (2.5 s).
+  RunProcess feed(FeedCommand(ca, market), dir + "/sim.err");
+  std::this_thread::sleep_for(IntoFeed(market, 5.0 / 12));
   const auto killed = std::chrono::steady_clock::now();
   CHECK(b.Signal(SIGKILL) == 128 + SIGKILL);
   const double takeover = WaitFor(
@@ -187,7 +222,7 @@ TEST_CASE("kill -9 of one of three instances mid-stream: the updates equal a rep
 
   int conflicts = 0;
   const std::map<UpdateKey, std::string> got =
-      AwaitUpdates(&collector, want.size(), 240, &conflicts);
+      AwaitUpdates(&collector, want.size(), UpdatesLimit(market), &conflicts);
   CHECK(conflicts == 0);  // every duplicate is byte-identical
   CompareWithReplay(got, want);
   const testing::UpdatePauses pauses = testing::PausesAfter(&collector, killed);
@@ -215,7 +250,8 @@ TEST_CASE("rolling restart of three instances: the updates equal a replay") {
   const std::vector<std::string> names = {"eng-a", "eng-b", "eng-c"};
   std::vector<std::string> configs;
   for (const std::string& n : names) configs.push_back(FaultConfig(dir, server.url(), n));
-  const std::map<UpdateKey, std::string> want = ReplayReference(dir, configs[0]);
+  const testing::TestMarket market = Market(1500);
+  const std::map<UpdateKey, std::string> want = ReplayReference(dir, configs[0], market);
 
   UpdateCollector collector(server.url(), "upd");
   std::vector<std::unique_ptr<RunProcess>> engines;
@@ -227,21 +263,20 @@ TEST_CASE("rolling restart of three instances: the updates equal a replay") {
     return o["eng-a"] == 4 && o["eng-b"] == 4 && o["eng-c"] == 4;
   };
   REQUIRE(WaitFor(configs[0], balanced, 30) >= 0);
-  // About 8 s of feed; each instance in turn stops (SIGTERM: final checkpoints,
-  // leases released) and starts again while ticks flow.
-  std::vector<std::string> sim = {"simulate", "--nats", configs[0], "--rate", "1500", "--quiet"};
-  sim.insert(sim.end(), kMarket.begin(), kMarket.end());
-  RunProcess feed(sim, dir + "/sim.err");
+  // By default about 8 s of feed; each instance in turn stops (SIGTERM: final
+  // checkpoints, leases released) and starts again while ticks flow, one every
+  // 3/16 of the feed (1.5 s).
+  RunProcess feed(FeedCommand(configs[0], market), dir + "/sim.err");
   const auto feeding = std::chrono::steady_clock::now();
   for (size_t i = 0; i < names.size(); ++i) {
-    std::this_thread::sleep_for(std::chrono::milliseconds(1500));
+    std::this_thread::sleep_for(IntoFeed(market, 3.0 / 16));
     CHECK(engines[i]->Signal(SIGTERM) == 0);
     engines[i] = std::make_unique<RunProcess>(configs[i], dir + "/" + names[i] + ".err");
   }
   CHECK(feed.Wait() == 0);
   int conflicts = 0;
   const std::map<UpdateKey, std::string> got =
-      AwaitUpdates(&collector, want.size(), 240, &conflicts);
+      AwaitUpdates(&collector, want.size(), UpdatesLimit(market), &conflicts);
   CHECK(conflicts == 0);
   CompareWithReplay(got, want);
   const testing::UpdatePauses pauses = testing::PausesAfter(&collector, feeding);

@@ -8,7 +8,9 @@
 #include <algorithm>
 #include <catch2/catch.hpp>
 #include <chrono>
+#include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <fstream>
 #include <iterator>
 #include <map>
@@ -231,6 +233,46 @@ UpdatePauses PausesAfter(UpdateCollector* collector, std::chrono::steady_clock::
   out.instruments = after.size();
   return out;
 }
+
+namespace {
+
+// A positive number from environment variable `name`, or `fallback` when it
+// is unset or empty; a malformed or non-positive value fails the test.
+double PositiveFromEnv(const char* name, double fallback, bool integer) {
+  const char* v = std::getenv(name);
+  if (v == nullptr || *v == '\0') return fallback;
+  char* end = nullptr;
+  const double x = std::strtod(v, &end);
+  INFO(name << "=" << v);
+  REQUIRE(*end == '\0');
+  REQUIRE(x > 0);
+  if (integer) REQUIRE(x == std::floor(x));
+  return x;
+}
+
+std::string Number(double x) {
+  std::ostringstream o;
+  o.precision(17);
+  o << x;
+  return o.str();
+}
+
+}  // namespace
+
+TestMarket MarketFromEnv(int symbols, int bars, double rate) {
+  TestMarket m;
+  m.symbols = static_cast<int>(PositiveFromEnv("AFTERSHOCK_TEST_SYMBOLS", symbols, true));
+  m.bars = static_cast<int>(PositiveFromEnv("AFTERSHOCK_TEST_BARS", bars, true));
+  m.rate = PositiveFromEnv("AFTERSHOCK_TEST_RATE", rate, false);
+  return m;
+}
+
+std::vector<std::string> TestMarket::args(int seed) const {
+  return {"--symbols", std::to_string(symbols), "--bars", std::to_string(bars),
+          "--seed",    std::to_string(seed)};
+}
+
+std::vector<std::string> TestMarket::rate_args() const { return {"--rate", Number(rate)}; }
 
 std::map<UpdateKey, std::string> ReplayReference(const std::string& dir, const std::string& config,
                                                  const std::vector<std::string>& market) {

@@ -141,6 +141,27 @@ std::string FaultConfig(const std::string& dir, const std::vector<std::string>& 
                         const std::string& name, const std::string& nats_extra = "",
                         double lease_seconds = 2);
 
+// The simulated market and feed of a fault test: `symbols` invented
+// instruments x `bars` one-minute bars, one tick a bar, published at `rate`
+// ticks/s. MarketFromEnv takes the test's defaults unless the environment
+// overrides them: AFTERSHOCK_TEST_SYMBOLS, AFTERSHOCK_TEST_BARS (positive
+// integers) and AFTERSHOCK_TEST_RATE (ticks/s, > 0), e.g. 50 x 5,000 for the
+// scale-out issue's full size (README "Scale-out"); a malformed value fails
+// the test.
+struct TestMarket {
+  int symbols = 0;
+  int bars = 0;
+  double rate = 0;  // ticks per second, > 0
+  int64_t ticks() const { return static_cast<int64_t>(symbols) * bars; }
+  // Seconds the paced feed takes.
+  double feed_seconds() const { return static_cast<double>(ticks()) / rate; }
+  // `--symbols N --bars N --seed seed` for `aftershock simulate`.
+  std::vector<std::string> args(int seed) const;
+  // `--rate R` for `aftershock simulate`.
+  std::vector<std::string> rate_args() const;
+};
+TestMarket MarketFromEnv(int symbols, int bars, double rate);
+
 // The single-process reference: `aftershock simulate <market>` to a CSV, then
 // `aftershock replay --config <config>` of it; the updates by key.
 std::map<UpdateKey, std::string> ReplayReference(const std::string& dir, const std::string& config,
