@@ -255,6 +255,118 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   }
 }
 
+// Newton's method for the general orders (the kernel's analytic Hessian of a
+// zero-mean ARCH/GARCH/GJR model, the variance part of a two-step fit), where
+// the maximum often lies on a bound (an extra lag whose coefficient is 0): a
+// projected Newton method with an active set.
+//   A free parameter at a bound whose gradient points out of the box is held
+//   there (active); the Newton step (-H_II)^-1 g_I on the others is taken with
+//   the trial point projected onto the box and halved until the log-likelihood
+//   rises by an Armijo fraction of the first-order gain of the projected move
+//   and the persistence cap holds. Converged when every inactive free gradient
+//   component per observation is <= gtol (the active ones point out of the box:
+//   the Karush-Kuhn-Tucker conditions of the bounds). A Hessian with every step
+//   (the general pass costs little more with it).
+// Gives up (converged = false) when no damping makes -H_II positive definite,
+// no step is accepted, the iterations run out, or the persistence cap would be
+// needed: SLSQP then runs from the original start.
+NewtonOutcome RefineWithActiveBounds(internal::LikelihoodKernel* kernel, const Problem& prob,
+                                     const std::vector<double>& lb,
+                                     const std::vector<double>& ub, std::vector<double> theta,
+                                     int max_iterations, double gtol) {
+  NewtonOutcome out;
+  const int K = kernel->num_params();
+  const int nf = static_cast<int>(prob.free_idx.size());
+  auto persistence_ok = [&](const std::vector<double>& th) {
+    double pers = 0;
+    for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
+      pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
+    }
+    return pers <= kOptimizerMaxPersistence;
+  };
+  if (nf == 0) return out;
+  for (int a = 0; a < nf; ++a) {
+    const double x = theta[prob.free_idx[a]];
+    if (!(x >= lb[a] && x <= ub[a])) return out;
+  }
+  if (!persistence_ok(theta)) return out;
+  std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
+      h_try(static_cast<size_t>(K) * K), trial;
+  double ll = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
+  ++out.evals;
+  if (!std::isfinite(ll)) return out;
+  out.theta = theta;
+  out.loglik = ll;
+  const double inv_n = 1.0 / kernel->nobs();
+  std::vector<int> inactive;  // positions in free_idx
+  for (int it = 0;; ++it) {
+    // Active set and convergence test at the current point.
+    inactive.clear();
+    double gmax = 0;
+    for (int a = 0; a < nf; ++a) {
+      const int i = prob.free_idx[a];
+      const double x = theta[i];
+      if ((x <= lb[a] && g[i] <= 0) || (x >= ub[a] && g[i] >= 0)) continue;
+      inactive.push_back(a);
+      gmax = std::max(gmax, std::fabs(g[i]) * inv_n);
+    }
+    if (gmax <= gtol) {
+      out.converged = true;
+      return out;
+    }
+    if (it == max_iterations) return out;
+    const int ni = static_cast<int>(inactive.size());
+    Eigen::VectorXd gi(ni), step(ni);
+    Eigen::MatrixXd neg_h(ni, ni);
+    for (int a = 0; a < ni; ++a) {
+      const int ia = prob.free_idx[inactive[a]];
+      gi[a] = g[ia];
+      for (int b = 0; b < ni; ++b) {
+        neg_h(a, b) = -h[static_cast<size_t>(ia) * K + prob.free_idx[inactive[b]]];
+      }
+    }
+    Eigen::LLT<Eigen::MatrixXd> llt(neg_h);
+    for (double tau = 1e-4; llt.info() != Eigen::Success; tau *= 10) {
+      if (tau > 1e4) return out;
+      Eigen::MatrixXd damped = neg_h;
+      for (int a = 0; a < ni; ++a) {
+        damped(a, a) += tau * std::max(std::fabs(neg_h(a, a)), 1e-8 * kernel->nobs());
+      }
+      llt.compute(damped);
+    }
+    step = llt.solve(gi);
+    if (!step.allFinite() || !(gi.dot(step) > 0)) return out;
+    bool accepted = false;
+    double t = 1.0;
+    for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
+      trial = theta;
+      double rise = 0;  // first-order gain of the projected move
+      for (int a = 0; a < ni; ++a) {
+        const int pos = inactive[a];
+        const int i = prob.free_idx[pos];
+        trial[i] = std::clamp(theta[i] + t * step[a], lb[pos], ub[pos]);
+        rise += g[i] * (trial[i] - theta[i]);
+      }
+      if (!(rise > 0) || !persistence_ok(trial)) continue;
+      const double ll_try =
+          kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
+      ++out.evals;
+      // Round-off slack: near the optimum the rise is below the sum's precision.
+      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * rise - 1e-13 * std::fabs(ll)) {
+        accepted = true;
+        theta.swap(trial);
+        g.swap(g_try);
+        h.swap(h_try);
+        ll = ll_try;
+      }
+    }
+    if (!accepted) return out;
+    ++out.iterations;
+    out.theta = theta;
+    out.loglik = ll;
+  }
+}
+
 // Cold starting points on the unit-variance scale, one full vector each.
 std::vector<std::vector<double>> GridStarts(const ModelSpec& spec, double mean_y,
                                             double ewma_lambda) {
@@ -506,8 +618,12 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   // Newton steps away; SLSQP remains the fallback.
   double newton_loglik = std::numeric_limits<double>::quiet_NaN();
   if (k_free > 0 && options.newton_iterations > 0 && kernel.has_hessian()) {
-    NewtonOutcome nw = RefineByNewton(&kernel, prob, lb, ub, attempts[0].theta,
-                                      options.newton_iterations, options.newton_gradient_tol);
+    NewtonOutcome nw =
+        kernel.is_order_one()
+            ? RefineByNewton(&kernel, prob, lb, ub, attempts[0].theta, options.newton_iterations,
+                             options.newton_gradient_tol)
+            : RefineWithActiveBounds(&kernel, prob, lb, ub, attempts[0].theta,
+                                     options.newton_iterations, options.newton_gradient_tol);
     prob.evals += nw.evals;
     if (nw.converged) {
       best.x = to_free(nw.theta);
