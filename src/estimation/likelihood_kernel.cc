@@ -486,12 +486,13 @@ double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, dou
 #undef AFTERSHOCK_ORDER_ONE
 }
 
-template <bool kStudent, int KV>
+template <bool kStudent, int KV, int NB>
 double LikelihoodKernel::ZeroMeanGeneral(const double* theta, double* grad, double* scores,
                                          double* hess) {
   // The residuals are the returns and s2 does not depend on the parameters:
   // eps, the padded squares and s2 were set up once by the constructor.
-  const int na = spec_.arch_order, no = spec_.asym_order, nb = spec_.garch_order;
+  const int na = spec_.arch_order, no = spec_.asym_order;
+  const int nb = NB >= 0 ? NB : spec_.garch_order;
   const int kv = KV > 0 ? KV : 1 + na + no + nb;  // variance parameters; nu is slot kv
   const int hk = kStudent ? kv + 1 : kv;
   const int slots = nb + 1;
@@ -569,10 +570,12 @@ double LikelihoodKernel::ZeroMeanGeneral(const double* theta, double* grad, doub
       for (int c = 0; c < kv; ++c) dv[c] += b * dp[c];
       if (dd) {
         const double* dpp = &zd2v_[static_cast<size_t>(slot) * nb * kv];
+#pragma GCC unroll 8
         for (int c = 0; c < nb * kv; ++c) dd[c] += b * dpp[c];
         double* row = dd + static_cast<size_t>(j) * kv;
 #pragma GCC unroll 8
         for (int c = 0; c < kv; ++c) row[c] += dp[c];
+#pragma GCC unroll 4
         for (int r = 0; r < nb; ++r) dd[static_cast<size_t>(r) * kv + b0 + j] += dp[b0 + r];
       }
     }
@@ -636,6 +639,7 @@ double LikelihoodKernel::ZeroMeanGeneral(const double* theta, double* grad, doub
         hrow[kv] += l_nunu;
       }
       if (dd) {
+#pragma GCC unroll 8
         for (int c = 0; c < nb * kv; ++c) hb[c] += l_v * dd[c];
       }
     }
@@ -675,22 +679,24 @@ double LikelihoodKernel::ZeroMeanGeneral(const double* theta, double* grad, doub
 double LikelihoodKernel::EvaluateZeroMeanGeneral(const double* theta, double* grad,
                                                  double* scores, double* hess) {
   const bool t = spec_.innovations == Innovations::kStudentT;
-  // Compile-time parameter counts for the identification's candidates (ARCH(1)
-  // to ARCH(5), GARCH(1,2), GARCH(2,1)) so the small loops unroll.
-#define AFTERSHOCK_ZERO_MEAN(KV)                                                      \
-  case KV:                                                                            \
-    return t ? ZeroMeanGeneral<true, KV>(theta, grad, scores, hess)                   \
-             : ZeroMeanGeneral<false, KV>(theta, grad, scores, hess);
-  switch (spec_.NumVarianceParams()) {
-    AFTERSHOCK_ZERO_MEAN(2)
-    AFTERSHOCK_ZERO_MEAN(3)
-    AFTERSHOCK_ZERO_MEAN(4)
-    AFTERSHOCK_ZERO_MEAN(5)
-    AFTERSHOCK_ZERO_MEAN(6)
-    default:
-      return t ? ZeroMeanGeneral<true, 0>(theta, grad, scores, hess)
-               : ZeroMeanGeneral<false, 0>(theta, grad, scores, hess);
+  // Compile-time parameter and beta-lag counts for the identification's
+  // candidates (ARCH(1) to ARCH(5), GARCH(1,2), GARCH(2,1)) so the small loops
+  // unroll; other orders at run time.
+  const int kv = spec_.NumVarianceParams(), nb = spec_.garch_order;
+#define AFTERSHOCK_ZERO_MEAN(KV, NB)                                 \
+  if (kv == KV && nb == NB) {                                        \
+    return t ? ZeroMeanGeneral<true, KV, NB>(theta, grad, scores, hess) \
+             : ZeroMeanGeneral<false, KV, NB>(theta, grad, scores, hess); \
   }
+  AFTERSHOCK_ZERO_MEAN(2, 0)
+  AFTERSHOCK_ZERO_MEAN(3, 0)
+  AFTERSHOCK_ZERO_MEAN(4, 0)
+  AFTERSHOCK_ZERO_MEAN(5, 0)
+  AFTERSHOCK_ZERO_MEAN(6, 0)
+  AFTERSHOCK_ZERO_MEAN(4, 1)
+  AFTERSHOCK_ZERO_MEAN(4, 2)
+  return t ? ZeroMeanGeneral<true, 0, -1>(theta, grad, scores, hess)
+           : ZeroMeanGeneral<false, 0, -1>(theta, grad, scores, hess);
 #undef AFTERSHOCK_ZERO_MEAN
 }
 

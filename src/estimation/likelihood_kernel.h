@@ -60,8 +60,9 @@ class LikelihoodKernel {
   // returns, so the first and second derivatives of sigma2 follow from the
   // variance recursion alone (second derivatives are non-zero only through the
   // beta terms). Gradient (and Hessian when hess != nullptr); grad not null.
-  // KV > 0: the number of variance parameters at compile time (0: at run time).
-  template <bool kStudent, int KV>
+  // KV > 0: the number of variance parameters at compile time (0: at run
+  // time); NB >= 0 likewise the number of beta lags.
+  template <bool kStudent, int KV, int NB>
   double ZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
   double EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores,
                                  double* hess);
