@@ -65,6 +65,11 @@ struct ArmaFitOptions {
   // Relative tolerance on the objective (log-likelihood per observation);
   // default 1e-12.
   double ftol_rel = 1e-12;
+  // Levenberg-Marquardt iterations on the exact likelihood written as a sum of
+  // squares, tried before the derivative-free search (which then starts from
+  // their best point if they do not converge); each costs p + q + 2 or more
+  // filter passes. 0 = derivative-free search only. Default 30.
+  int gauss_newton_iterations = 30;
 };
 
 struct ArmaFit {

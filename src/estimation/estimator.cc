@@ -256,24 +256,22 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
 }
 
 // Newton's method for the general orders (the kernel's analytic Hessian of a
-// zero-mean ARCH/GARCH/GJR model, the variance part of a two-step fit), where
-// the maximum often lies on a bound (an extra lag whose coefficient is 0): a
-// projected Newton method with an active set.
-//   A free parameter at a bound whose gradient points out of the box is held
-//   there (active); the Newton step (-H_II)^-1 g_I on the others is taken with
-//   the trial point projected onto the box and halved until the log-likelihood
-//   rises by an Armijo fraction of the first-order gain of the projected move
-//   and the persistence cap holds. Converged when every inactive free gradient
-//   component per observation is <= gtol (the active ones point out of the box:
-//   the Karush-Kuhn-Tucker conditions of the bounds). A Hessian with every step
-//   (the general pass costs little more with it).
-// Gives up (converged = false) when no damping makes -H_II positive definite,
-// no step is accepted, the iterations run out, or the persistence cap would be
-// needed: SLSQP then runs from the original start.
-NewtonOutcome RefineWithActiveBounds(internal::LikelihoodKernel* kernel, const Problem& prob,
-                                     const std::vector<double>& lb,
-                                     const std::vector<double>& ub, std::vector<double> theta,
-                                     int max_iterations, double gtol) {
+// zero-mean ARCH/GARCH/GJR model, the variance part of a two-step fit), kept
+// strictly inside the bounds. The maximum of such a model often lies on a bound
+// (an extra lag whose coefficient is 0), and there the likelihood can have a
+// second local maximum inside the box in the basin of the start: a step that
+// meets a bound ends the run (converged = false) and SLSQP runs from the same
+// start, so a fit whose maximum is on a bound is SLSQP's, as before.
+//   Step (-H_ff)^-1 g_f (Levenberg-damped until -H_ff is positive definite),
+//   halved until the log-likelihood rises by an Armijo fraction of the
+//   predicted gain and the persistence cap holds; converged when the largest
+//   free gradient component per observation is <= gtol. A Hessian with every
+//   step: the general pass costs little more with it than without.
+// Gives up when two full steps running would cross a bound, no damping makes -H_ff
+// positive definite, no step is accepted or the iterations run out.
+NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Problem& prob,
+                                 const std::vector<double>& lb, const std::vector<double>& ub,
+                                 std::vector<double> theta, int max_iterations, double gtol) {
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
@@ -287,7 +285,7 @@ NewtonOutcome RefineWithActiveBounds(internal::LikelihoodKernel* kernel, const P
   if (nf == 0) return out;
   for (int a = 0; a < nf; ++a) {
     const double x = theta[prob.free_idx[a]];
-    if (!(x >= lb[a] && x <= ub[a])) return out;
+    if (!(x > lb[a] && x < ub[a])) return out;
   }
   if (!persistence_ok(theta)) return out;
   std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
@@ -298,61 +296,62 @@ NewtonOutcome RefineWithActiveBounds(internal::LikelihoodKernel* kernel, const P
   out.theta = theta;
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
-  std::vector<int> inactive;  // positions in free_idx
+  Eigen::VectorXd gf(nf), step(nf);
+  Eigen::MatrixXd neg_h(nf, nf);
+  bool crossed = false;  // the previous step crossed a bound
   for (int it = 0;; ++it) {
-    // Active set and convergence test at the current point.
-    inactive.clear();
     double gmax = 0;
-    for (int a = 0; a < nf; ++a) {
-      const int i = prob.free_idx[a];
-      const double x = theta[i];
-      if ((x <= lb[a] && g[i] <= 0) || (x >= ub[a] && g[i] >= 0)) continue;
-      inactive.push_back(a);
-      gmax = std::max(gmax, std::fabs(g[i]) * inv_n);
-    }
+    for (int a = 0; a < nf; ++a) gmax = std::max(gmax, std::fabs(g[prob.free_idx[a]]) * inv_n);
     if (gmax <= gtol) {
       out.converged = true;
       return out;
     }
     if (it == max_iterations) return out;
-    const int ni = static_cast<int>(inactive.size());
-    Eigen::VectorXd gi(ni), step(ni);
-    Eigen::MatrixXd neg_h(ni, ni);
-    for (int a = 0; a < ni; ++a) {
-      const int ia = prob.free_idx[inactive[a]];
-      gi[a] = g[ia];
-      for (int b = 0; b < ni; ++b) {
-        neg_h(a, b) = -h[static_cast<size_t>(ia) * K + prob.free_idx[inactive[b]]];
+    for (int a = 0; a < nf; ++a) {
+      gf[a] = g[prob.free_idx[a]];
+      for (int b = 0; b < nf; ++b) {
+        neg_h(a, b) = -h[static_cast<size_t>(prob.free_idx[a]) * K + prob.free_idx[b]];
       }
     }
     Eigen::LLT<Eigen::MatrixXd> llt(neg_h);
+    bool damped_step = false;
     for (double tau = 1e-4; llt.info() != Eigen::Success; tau *= 10) {
       if (tau > 1e4) return out;
+      damped_step = true;
       Eigen::MatrixXd damped = neg_h;
-      for (int a = 0; a < ni; ++a) {
+      for (int a = 0; a < nf; ++a) {
         damped(a, a) += tau * std::max(std::fabs(neg_h(a, a)), 1e-8 * kernel->nobs());
       }
       llt.compute(damped);
     }
-    step = llt.solve(gi);
-    if (!step.allFinite() || !(gi.dot(step) > 0)) return out;
+    step = llt.solve(gf);
+    const double gain = gf.dot(step);  // predicted rise x 2, > 0
+    if (!(gain > 0) || !std::isfinite(gain)) return out;
+    // Undamped steps that cross a bound twice running: the maximum is
+    // probably on it.
+    bool crosses = false;
+    for (int a = 0; a < nf && !damped_step; ++a) {
+      const double x = theta[prob.free_idx[a]] + step[a];
+      crosses = crosses || !(x > lb[a] && x < ub[a]);
+    }
+    if (crosses && crossed) return out;
+    crossed = crosses;
     bool accepted = false;
     double t = 1.0;
     for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
       trial = theta;
-      double rise = 0;  // first-order gain of the projected move
-      for (int a = 0; a < ni; ++a) {
-        const int pos = inactive[a];
-        const int i = prob.free_idx[pos];
-        trial[i] = std::clamp(theta[i] + t * step[a], lb[pos], ub[pos]);
-        rise += g[i] * (trial[i] - theta[i]);
+      bool inside = true;
+      for (int a = 0; a < nf; ++a) {
+        const double x = theta[prob.free_idx[a]] + t * step[a];
+        inside = inside && x > lb[a] && x < ub[a];
+        trial[prob.free_idx[a]] = x;
       }
-      if (!(rise > 0) || !persistence_ok(trial)) continue;
+      if (!inside || !persistence_ok(trial)) continue;
       const double ll_try =
           kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
       ++out.evals;
       // Round-off slack: near the optimum the rise is below the sum's precision.
-      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * rise - 1e-13 * std::fabs(ll)) {
+      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
         accepted = true;
         theta.swap(trial);
         g.swap(g_try);
@@ -622,8 +621,8 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
         kernel.is_order_one()
             ? RefineByNewton(&kernel, prob, lb, ub, attempts[0].theta, options.newton_iterations,
                              options.newton_gradient_tol)
-            : RefineWithActiveBounds(&kernel, prob, lb, ub, attempts[0].theta,
-                                     options.newton_iterations, options.newton_gradient_tol);
+            : RefineInsideBounds(&kernel, prob, lb, ub, attempts[0].theta,
+                                 options.newton_iterations, options.newton_gradient_tol);
     prob.evals += nw.evals;
     if (nw.converged) {
       best.x = to_free(nw.theta);
