@@ -433,13 +433,16 @@ bool WeightedErrors(const Problem& pr, const double* x, std::vector<double>* w,
 // filter passes per iteration): near the optimum the Gauss-Newton steps
 // converge in a few iterations where a derivative-free search needs hundreds
 // of evaluations on a flat ridge. x is updated to the best point found.
-// Converged when a step below 1e-6 in every coordinate lowers sum w^2 by no
-// more than 1e-13 relative, or finds no lower point (the forward-difference
-// Jacobian leaves steps of about 1e-7 at the minimum; the objective is
-// quadratic there, so the log-likelihood is then within about 1e-9 of it). Returns false (x still the best point)
-// when the iterations or the evaluation budget run out or no step is accepted.
+// Converged when two accepted steps running lower the objective per
+// observation by no more than ftol_rel relative, or a step below 1e-6 in every
+// coordinate lowers sum w^2 by no more than 1e-13 relative or finds no lower
+// point (the forward-difference Jacobian leaves steps of about 1e-7 at the
+// minimum; the objective is quadratic there, so the log-likelihood is then
+// within about 1e-9 of it). Returns false (x still the best point) when the
+// iterations or the evaluation budget run out or no step is accepted.
 bool RefineByLevenbergMarquardt(Problem* pr, std::vector<double>* x, const double* lb,
-                                const double* ub, int max_iterations, int max_evaluations) {
+                                const double* ub, int max_iterations, int max_evaluations,
+                                double ftol_rel) {
   const int n = static_cast<int>(pr->y.size());
   const int dim = static_cast<int>(x->size());
   std::vector<double> w(n), ratio(n), wt(n), ws(n), xt(dim);
@@ -448,6 +451,7 @@ bool RefineByLevenbergMarquardt(Problem* pr, std::vector<double>* x, const doubl
   if (!WeightedErrors(*pr, x->data(), &w, &ratio, &ss)) return false;
   Eigen::MatrixXd jac(n, dim);
   double lambda = 1e-3;
+  int ftol_run = 0;  // accepted steps running within the objective tolerance
   for (int it = 0; it < max_iterations; ++it) {
     // An iteration needs at least dim + 1 passes: stop within the budget.
     if (pr->evaluations + dim + 1 > max_evaluations) return false;
@@ -501,11 +505,20 @@ bool RefineByLevenbergMarquardt(Problem* pr, std::vector<double>* x, const doubl
       if (ok && ss_t <= ss) {
         accepted = true;
         const bool flat = ss - ss_t <= 1e-13 * ss;
+        // The objective per observation, 0.5 (log(2 pi) + 1 + log(ss / n)),
+        // fell by at most ftol_rel relative (the derivative-free search's
+        // objective tolerance).
+        const double f = 0.5 * (kLog2Pi + 1.0 + std::log(ss_t / n));
+        const bool within_ftol = 0.5 * std::log(ss / ss_t) <= ftol_rel * std::fabs(f);
+        ftol_run = within_ftol ? ftol_run + 1 : 0;
         *x = xt;
         w.swap(wt);
         ss = ss_t;
         lambda = std::max(lambda * 0.1, 1e-12);
-        if (flat && small) return true;
+        // Converged: a small step that gains nothing, or two steps running
+        // within the objective tolerance (the remaining gain of the linearly
+        // converging steps is then of the same order).
+        if ((flat && small) || ftol_run >= 2) return true;
       } else {
         if (small) return true;  // no lower point within round-off of x
         lambda *= 10.0;
@@ -610,10 +623,10 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
     // not converge.
     nlopt::result res = nlopt::FAILURE;
     const int evals_before = pr.evaluations;
-    const bool lm = options.gauss_newton_iterations > 0 &&
-                    RefineByLevenbergMarquardt(&pr, &x, lb.data(), ub.data(),
-                                               options.gauss_newton_iterations,
-                                               options.max_evaluations);
+    const bool lm =
+        options.gauss_newton_iterations > 0 &&
+        RefineByLevenbergMarquardt(&pr, &x, lb.data(), ub.data(), options.gauss_newton_iterations,
+                                   options.max_evaluations, options.ftol_rel);
     const int lm_evals = pr.evaluations - evals_before;
     if (lm) {
       res = nlopt::SUCCESS;

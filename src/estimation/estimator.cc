@@ -379,10 +379,8 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
 // a bound (the maximum is probably on it), -H_ff is not positive definite, no
 // step is accepted or the iterations run out: SLSQP then runs from the start.
 NewtonOutcome RefineByDifferenceNewton(internal::LikelihoodKernel* kernel, const Problem& prob,
-                                       const std::vector<double>& lb,
-                                       const std::vector<double>& ub,
-                                       std::vector<double> theta, int max_iterations,
-                                       double gtol) {
+                                       const std::vector<double>& lb, const std::vector<double>& ub,
+                                       std::vector<double> theta, int max_iterations, double gtol) {
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
@@ -750,11 +748,11 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   }
   // Without an analytic Hessian (an ARMA mean), Newton steps with a Hessian by
   // differences from a warm start, SLSQP again the fallback.
-  if (k_free > 0 && options.newton_iterations > 0 && !kernel.has_hessian() && warm &&
-      !converged && spec.variance != VarianceKind::kEwma) {
-    NewtonOutcome nw = RefineByDifferenceNewton(&kernel, prob, lb, ub, attempts[0].theta,
-                                                options.newton_iterations,
-                                                options.newton_gradient_tol);
+  if (k_free > 0 && options.newton_iterations > 0 && !kernel.has_hessian() && warm && !converged &&
+      spec.variance != VarianceKind::kEwma) {
+    NewtonOutcome nw =
+        RefineByDifferenceNewton(&kernel, prob, lb, ub, attempts[0].theta,
+                                 options.newton_iterations, options.newton_gradient_tol);
     prob.evals += nw.evals;
     if (nw.converged) {
       best.x = to_free(nw.theta);
@@ -762,8 +760,8 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       best.code = NLOPT_SUCCESS;
       best_label = attempts[0].label;
       converged = true;
-      message = absl::StrCat("Newton converged in ", nw.iterations,
-                             " steps (Hessian by differences)");
+      message =
+          absl::StrCat("Newton converged in ", nw.iterations, " steps (Hessian by differences)");
       newton_loglik = nw.loglik;
       prob.full = nw.theta;
       attempts.clear();

@@ -525,7 +525,7 @@ double LikelihoodKernel::ZeroMeanGeneral(const double* theta, double* grad, doub
   double* g = work_.data();
   std::fill(g, g + k_, 0.0);
   double* hacc = zh_.data();
-  double* hb = zhb_.data();  // nb x kv: sum of l_v d2 sigma2 in the beta rows
+  double* hb = zhb_.data();    // nb x kv: sum of l_v d2 sigma2 in the beta rows
   const int b0 = 1 + na + no;  // slot of beta_1
   double g_nu_rest = 0, quad = 0, log_sum = 0, log_u_sum = 0, prod_v = 1.0, prod_u = 1.0;
   constexpr int kChunk = 8;
@@ -676,16 +676,16 @@ double LikelihoodKernel::ZeroMeanGeneral(const double* theta, double* grad, doub
   return ll;
 }
 
-double LikelihoodKernel::EvaluateZeroMeanGeneral(const double* theta, double* grad,
-                                                 double* scores, double* hess) {
+double LikelihoodKernel::EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores,
+                                                 double* hess) {
   const bool t = spec_.innovations == Innovations::kStudentT;
   // Compile-time parameter and beta-lag counts for the identification's
   // candidates (ARCH(1) to ARCH(5), GARCH(1,2), GARCH(2,1)) so the small loops
   // unroll; other orders at run time.
   const int kv = spec_.NumVarianceParams(), nb = spec_.garch_order;
-#define AFTERSHOCK_ZERO_MEAN(KV, NB)                                 \
-  if (kv == KV && nb == NB) {                                        \
-    return t ? ZeroMeanGeneral<true, KV, NB>(theta, grad, scores, hess) \
+#define AFTERSHOCK_ZERO_MEAN(KV, NB)                                      \
+  if (kv == KV && nb == NB) {                                             \
+    return t ? ZeroMeanGeneral<true, KV, NB>(theta, grad, scores, hess)   \
              : ZeroMeanGeneral<false, KV, NB>(theta, grad, scores, hess); \
   }
   AFTERSHOCK_ZERO_MEAN(2, 0)

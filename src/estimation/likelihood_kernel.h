@@ -64,8 +64,7 @@ class LikelihoodKernel {
   // time); NB >= 0 likewise the number of beta lags.
   template <bool kStudent, int KV, int NB>
   double ZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
-  double EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores,
-                                 double* hess);
+  double EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
   void Presample(bool with_grad);
 
   const ModelSpec spec_;
@@ -86,13 +85,13 @@ class LikelihoodKernel {
   std::vector<double> work_;   // k
   // ZeroMeanGeneral workspaces (kv = variance parameters, nb = beta lags,
   // pad = largest lag):
-  std::vector<double> zdv_;    // (nb + 1) x kv: d sigma2 of this and the nb previous terms
-  std::vector<double> zd2v_;   // (nb + 1) x nb x kv: their second derivatives, beta rows
-  std::vector<double> zhb_;    // nb x kv: Hessian accumulator of the beta rows' l_v d2 sigma2
-  std::vector<double> zh_;     // (kv + 1) x (kv + 1): Hessian accumulator
-  std::vector<double> ze2_;    // pad + n: s2 (presample), then eps_k^2
-  std::vector<double> zne2_;   // pad + n: s2 / 2, then eps_k^2 where eps_k < 0, else 0
-  std::vector<double> zv_;     // pad + n: s2, then sigma2_k
+  std::vector<double> zdv_;   // (nb + 1) x kv: d sigma2 of this and the nb previous terms
+  std::vector<double> zd2v_;  // (nb + 1) x nb x kv: their second derivatives, beta rows
+  std::vector<double> zhb_;   // nb x kv: Hessian accumulator of the beta rows' l_v d2 sigma2
+  std::vector<double> zh_;    // (kv + 1) x (kv + 1): Hessian accumulator
+  std::vector<double> ze2_;   // pad + n: s2 (presample), then eps_k^2
+  std::vector<double> zne2_;  // pad + n: s2 / 2, then eps_k^2 where eps_k < 0, else 0
+  std::vector<double> zv_;    // pad + n: s2, then sigma2_k
   int zpad_ = 0;
   std::vector<int> order_;     // min(n, kRobustStartSpan): sort workspace of the presample
   std::vector<double> weight_;  // min(n, kRobustStartSpan): presample weights 2^(-j / half-life)

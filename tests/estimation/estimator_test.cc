@@ -300,14 +300,19 @@ TEST_CASE("Newton steps on the general orders and with an ARMA mean reach the SL
     std::vector<std::pair<std::string, double>> values;
   };
   const std::vector<Simulated> simulated = {
-      {VarianceKind::kGarch, {{"omega", 0.05}, {"alpha_1", 0.05}, {"alpha_2", 0.1}, {"beta_1", 0.8}}},
+      {VarianceKind::kGarch,
+       {{"omega", 0.05}, {"alpha_1", 0.05}, {"alpha_2", 0.1}, {"beta_1", 0.8}}},
       {VarianceKind::kGjr,
-       {{"omega", 0.05}, {"alpha_1", 0.04}, {"alpha_2", 0.05}, {"gamma_1", 0.06},
-        {"gamma_2", 0.04}, {"beta_1", 0.8}}},
+       {{"omega", 0.05},
+        {"alpha_1", 0.04},
+        {"alpha_2", 0.05},
+        {"gamma_1", 0.06},
+        {"gamma_2", 0.04},
+        {"beta_1", 0.8}}},
   };
   for (const Simulated& c : simulated) {
-    auto spec = MakeModelSpec("zero", {}, c.kind == VarianceKind::kGarch ? "garch" : "gjr",
-                              {2, 1}, "gaussian");
+    auto spec = MakeModelSpec("zero", {}, c.kind == VarianceKind::kGarch ? "garch" : "gjr", {2, 1},
+                              "gaussian");
     REQUIRE(spec.ok());
     auto truth = ModelParams::FromNamed(*spec, c.values);
     REQUIRE(truth.ok());
@@ -336,8 +341,8 @@ TEST_CASE("a general-order fit whose maximum is on a bound is SLSQP's from the s
   const ModelParams start{*spec, {0.05, 0.08, 0.45, 0.45}};
   const NewtonPair p = FitBothWays(*spec, r, start, Presample::kMeanSquare);
   INFO("with Newton first: " << p.newton.optimizer_message << ", " << p.newton.iterations
-                             << " evaluations; SLSQP alone: " << p.slsqp.optimizer_message
-                             << ", " << p.slsqp.iterations);
+                             << " evaluations; SLSQP alone: " << p.slsqp.optimizer_message << ", "
+                             << p.slsqp.iterations);
   REQUIRE(p.newton.converged);
   CHECK(p.newton.params.values[3] < 1e-6);  // beta_2 at its bound
   CHECK(p.newton.optimizer_message.rfind("Newton converged", 0) != 0);

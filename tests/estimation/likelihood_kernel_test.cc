@@ -177,9 +177,10 @@ TEST_CASE("the order-one models and zero-mean models of any order have an analyt
   CHECK(LikelihoodKernel(*zero11, r, Presample::kMeanSquare).is_order_one());
 }
 
-TEST_CASE("the general-order gradient pass agrees with the value pass and reports infeasible "
-          "points",
-          "[likelihood_kernel]") {
+TEST_CASE(
+    "the general-order gradient pass agrees with the value pass and reports infeasible "
+    "points",
+    "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(600, 12, 6.0));
   for (const Case& c : GeneralOrderCases()) {
     auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
