@@ -47,6 +47,10 @@ LikelihoodKernel::LikelihoodKernel(const ModelSpec& spec, std::vector<double> re
                    spec.garch_order == 1) ||
                   (spec.variance == VarianceKind::kGjr && spec.arch_order == 1 &&
                    spec.asym_order == 1 && spec.garch_order == 1))),
+      zero_mean_general_(!order_one_ && spec.mean == MeanKind::kZero &&
+                         (spec.variance == VarianceKind::kArch ||
+                          spec.variance == VarianceKind::kGarch ||
+                          spec.variance == VarianceKind::kGjr)),
       eps_(n_),
       sig2_(n_),
       deps_(static_cast<size_t>(n_) * nm_),
@@ -57,6 +61,26 @@ LikelihoodKernel::LikelihoodKernel(const ModelSpec& spec, std::vector<double> re
       weight_(order_.size()) {
   for (size_t j = 0; j < weight_.size(); ++j) {
     weight_[j] = std::exp2(-static_cast<double>(j) / kRobustStartHalfLife);
+  }
+  if (zero_mean_general_) {
+    const int kv = spec.NumVarianceParams(), nb = spec.garch_order, slots = nb + 1;
+    zdv_.assign(static_cast<size_t>(slots) * kv, 0.0);
+    zd2v_.assign(static_cast<size_t>(slots) * nb * kv, 0.0);
+    zhb_.assign(static_cast<size_t>(nb) * kv, 0.0);
+    zh_.assign(static_cast<size_t>(kv + 1) * (kv + 1), 0.0);
+    // The residuals (the returns) and s2 do not depend on the parameters:
+    // squares padded in front with the presample values, once.
+    MeanPass(nullptr, false);
+    Presample(false);
+    zpad_ = std::max({spec.arch_order, spec.asym_order, nb});
+    ze2_.assign(static_cast<size_t>(zpad_) + n_, s2_);
+    zne2_.assign(static_cast<size_t>(zpad_) + n_, 0.5 * s2_);
+    zv_.assign(static_cast<size_t>(zpad_) + n_, s2_);
+    for (int k = 0; k < n_; ++k) {
+      const double e = eps_[k];
+      ze2_[zpad_ + k] = e * e;
+      zne2_[zpad_ + k] = e < 0.0 ? e * e : 0.0;
+    }
   }
   // d eps_t / d mu = -1 for the constant mean, whatever the parameters.
   if (spec_.mean == MeanKind::kConstant) std::fill(deps_.begin(), deps_.end(), -1.0);
@@ -462,13 +486,231 @@ double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, dou
 #undef AFTERSHOCK_ORDER_ONE
 }
 
+template <bool kStudent, int KV, int NB>
+double LikelihoodKernel::ZeroMeanGeneral(const double* theta, double* grad, double* scores,
+                                         double* hess) {
+  // The residuals are the returns and s2 does not depend on the parameters:
+  // eps, the padded squares and s2 were set up once by the constructor.
+  const int na = spec_.arch_order, no = spec_.asym_order;
+  const int nb = NB >= 0 ? NB : spec_.garch_order;
+  const int kv = KV > 0 ? KV : 1 + na + no + nb;  // variance parameters; nu is slot kv
+  const int hk = kStudent ? kv + 1 : kv;
+  const int slots = nb + 1;
+  const int pad = zpad_;
+  const bool with_hess = hess != nullptr;
+  const bool d2 = with_hess && nb > 0;  // second derivatives of sigma2 are not all zero
+  const double omega = theta[0];
+  const double* alpha = theta + 1;
+  const double* gamma = alpha + na;
+  const double* beta = gamma + no;
+  const double nu = kStudent ? theta[kv] : 0.0;
+  const double const_term = kStudent ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
+  const double dconst = kStudent ? DLogNormalizerTDnu(nu) : 0.0;
+  const double d2const = kStudent && with_hess ? D2LogNormalizerTDnu2(nu) : 0.0;
+  const double nu2 = nu - 2.0;
+  const double inv_nu2 = kStudent ? 1.0 / nu2 : 0.0;
+  const double np1 = nu + 1.0;
+  auto fail = [&]() {
+    std::fill(grad, grad + k_, 0.0);
+    if (with_hess) std::fill(hess, hess + static_cast<size_t>(k_) * k_, 0.0);
+    return -std::numeric_limits<double>::infinity();
+  };
+  // Terms before the sample use the presample s2, constant here, so their
+  // derivatives are zero: lags before the sample are skipped.
+  const double* e2p = ze2_.data() + pad;    // e2p[k] = eps_k^2, s2 before the sample
+  const double* ne2p = zne2_.data() + pad;  // negative part; s2 / 2 before the sample
+  double* vpad = zv_.data() + pad;          // sigma2_k; s2 before the sample
+  if (with_hess) std::fill(zh_.begin(), zh_.end(), 0.0);
+  if (d2) std::fill(zhb_.begin(), zhb_.end(), 0.0);
+  double* g = work_.data();
+  std::fill(g, g + k_, 0.0);
+  double* hacc = zh_.data();
+  double* hb = zhb_.data();    // nb x kv: sum of l_v d2 sigma2 in the beta rows
+  const int b0 = 1 + na + no;  // slot of beta_1
+  double g_nu_rest = 0, quad = 0, log_sum = 0, log_u_sum = 0, prod_v = 1.0, prod_u = 1.0;
+  constexpr int kChunk = 8;
+  int in_chunk = 0;
+  int head = 0;  // ring slot of term k
+  for (int k = 0; k < n_; ++k) {
+    double* dv = &zdv_[static_cast<size_t>(head) * kv];
+    // Value and the direct part of d sigma2 (same summation order as the
+    // general path).
+    double v = omega;
+    dv[0] = 1.0;
+    for (int i = 0; i < na; ++i) {
+      const double e2 = e2p[k - 1 - i];
+      v += alpha[i] * e2;
+      dv[1 + i] = e2;
+    }
+    for (int i = 0; i < no; ++i) {
+      const double ne2 = ne2p[k - 1 - i];
+      v += gamma[i] * ne2;
+      dv[1 + na + i] = ne2;
+    }
+    for (int j = 0; j < nb; ++j) {
+      const double sv = vpad[k - 1 - j];
+      v += beta[j] * sv;
+      dv[b0 + j] = sv;
+    }
+    vpad[k] = v;
+    sig2_[k] = v;
+    if (!(v > 0.0) || !std::isfinite(v)) return fail();
+    // d sigma2_k = x_k + sum_j beta_j d sigma2_{k-1-j}. Second derivatives are
+    // non-zero only in the beta rows and columns: row r of D_k (d2 sigma2_k /
+    // d beta_r d .) = sum_l beta_l D_{k-1-l}[r] + d sigma2_{k-1-r}
+    //                 + (column beta_l: d sigma2_{k-1-l} / d beta_r).
+    double* dd = d2 ? &zd2v_[static_cast<size_t>(head) * nb * kv] : nullptr;
+    if (dd) std::fill(dd, dd + static_cast<size_t>(nb) * kv, 0.0);
+    for (int j = 0; j < nb && j < k; ++j) {
+      int slot = head - 1 - j;
+      if (slot < 0) slot += slots;
+      const double* dp = &zdv_[static_cast<size_t>(slot) * kv];
+      const double b = beta[j];
+#pragma GCC unroll 8
+      for (int c = 0; c < kv; ++c) dv[c] += b * dp[c];
+      if (dd) {
+        const double* dpp = &zd2v_[static_cast<size_t>(slot) * nb * kv];
+#pragma GCC unroll 8
+        for (int c = 0; c < nb * kv; ++c) dd[c] += b * dpp[c];
+        double* row = dd + static_cast<size_t>(j) * kv;
+#pragma GCC unroll 8
+        for (int c = 0; c < kv; ++c) row[c] += dp[c];
+#pragma GCC unroll 4
+        for (int r = 0; r < nb; ++r) dd[static_cast<size_t>(r) * kv + b0 + j] += dp[b0 + r];
+      }
+    }
+    // Per-term derivatives in v and nu (as on the order-one path).
+    const double e2 = e2p[k];
+    prod_v *= v;
+    double l_v, l_vv = 0, l_nu = 0, l_vnu = 0, l_nunu = 0;
+    if (kStudent) {
+      const double sq = e2 * inv_nu2;
+      const double vs = v + sq;
+      const double rr = 1.0 / (v * vs);
+      const double inv_v = vs * rr;
+      const double iw = v * v * rr;  // 1 / (1 + u)
+      const double u = sq * inv_v;
+      prod_u *= 1.0 + u;
+      l_v = (-0.5 + 0.5 * np1 * u * iw) * inv_v;
+      g_nu_rest += 0.5 * np1 * u * inv_nu2 * iw;
+      if (scores) l_nu = dconst - 0.5 * std::log1p(u) + 0.5 * np1 * u * inv_nu2 * iw;
+      if (with_hess) {
+        const double iw2 = iw * iw;
+        l_vv = (0.5 - np1 * u * (1.0 + 0.5 * u) * iw2) * inv_v * inv_v;
+        l_vnu = 0.5 * inv_v * (u * iw - np1 * u * inv_nu2 * iw2);
+        l_nunu = u * inv_nu2 * iw - 0.5 * np1 * u * (2.0 + u) * inv_nu2 * inv_nu2 * iw2;
+      }
+    } else {
+      const double inv_v = 1.0 / v;
+      const double q = e2 * inv_v;
+      quad += q;
+      l_v = 0.5 * (q - 1.0) * inv_v;
+      if (with_hess) l_vv = (0.5 - q) * inv_v * inv_v;
+    }
+    if (++in_chunk == kChunk) {
+      log_sum += std::log(prod_v);
+      prod_v = 1.0;
+      if (kStudent) {
+        log_u_sum += std::log(prod_u);
+        prod_u = 1.0;
+      }
+      in_chunk = 0;
+    }
+#pragma GCC unroll 8
+    for (int c = 0; c < kv; ++c) g[c] += l_v * dv[c];
+    if (scores) {
+      double* row = scores + static_cast<size_t>(k) * k_;
+      for (int c = 0; c < kv; ++c) row[c] = l_v * dv[c];
+      if (kStudent) row[kv] = l_nu;
+    }
+    if (with_hess) {
+      // Lower triangle of l_vv dv dv', the nu row, and l_v D in the beta rows.
+#pragma GCC unroll 8
+      for (int a = 0; a < kv; ++a) {
+        const double la = l_vv * dv[a];
+        double* hrow = hacc + static_cast<size_t>(a) * hk;
+#pragma GCC unroll 8
+        for (int b = 0; b <= a; ++b) hrow[b] += la * dv[b];
+      }
+      if (kStudent) {
+        double* hrow = hacc + static_cast<size_t>(kv) * hk;
+#pragma GCC unroll 8
+        for (int b = 0; b < kv; ++b) hrow[b] += l_vnu * dv[b];
+        hrow[kv] += l_nunu;
+      }
+      if (dd) {
+#pragma GCC unroll 8
+        for (int c = 0; c < nb * kv; ++c) hb[c] += l_v * dd[c];
+      }
+    }
+    head = head + 1 == slots ? 0 : head + 1;
+  }
+  log_sum += std::log(prod_v);
+  double ll;
+  if (kStudent) {
+    log_u_sum += std::log(prod_u);
+    ll = n_ * const_term - 0.5 * log_sum - 0.5 * np1 * log_u_sum;
+    g[kv] = n_ * dconst - 0.5 * log_u_sum + g_nu_rest;
+  } else {
+    ll = n_ * const_term - 0.5 * (quad + log_sum);
+  }
+  if (!std::isfinite(ll)) return fail();
+  std::copy(g, g + k_, grad);
+  if (with_hess) {
+    if (kStudent) hacc[static_cast<size_t>(kv) * hk + kv] += n_ * d2const;
+    // Beta rows: every column up to the diagonal (the beta slots are last
+    // among the variance parameters, so this is the whole lower triangle).
+    for (int r = 0; r < nb && d2; ++r) {
+      for (int c = 0; c <= b0 + r; ++c) {
+        hacc[static_cast<size_t>(b0 + r) * hk + c] += hb[static_cast<size_t>(r) * kv + c];
+      }
+    }
+    for (int a = 0; a < hk; ++a) {
+      for (int b = 0; b <= a; ++b) {
+        const double x = hacc[static_cast<size_t>(a) * hk + b];
+        hess[static_cast<size_t>(a) * k_ + b] = x;
+        hess[static_cast<size_t>(b) * k_ + a] = x;
+      }
+    }
+  }
+  return ll;
+}
+
+double LikelihoodKernel::EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores,
+                                                 double* hess) {
+  const bool t = spec_.innovations == Innovations::kStudentT;
+  // Compile-time parameter and beta-lag counts for the identification's
+  // candidates (ARCH(1) to ARCH(5), GARCH(1,2), GARCH(2,1)) so the small loops
+  // unroll; other orders at run time.
+  const int kv = spec_.NumVarianceParams(), nb = spec_.garch_order;
+#define AFTERSHOCK_ZERO_MEAN(KV, NB)                                      \
+  if (kv == KV && nb == NB) {                                             \
+    return t ? ZeroMeanGeneral<true, KV, NB>(theta, grad, scores, hess)   \
+             : ZeroMeanGeneral<false, KV, NB>(theta, grad, scores, hess); \
+  }
+  AFTERSHOCK_ZERO_MEAN(2, 0)
+  AFTERSHOCK_ZERO_MEAN(3, 0)
+  AFTERSHOCK_ZERO_MEAN(4, 0)
+  AFTERSHOCK_ZERO_MEAN(5, 0)
+  AFTERSHOCK_ZERO_MEAN(6, 0)
+  AFTERSHOCK_ZERO_MEAN(4, 1)
+  AFTERSHOCK_ZERO_MEAN(4, 2)
+  return t ? ZeroMeanGeneral<true, 0, -1>(theta, grad, scores, hess)
+           : ZeroMeanGeneral<false, 0, -1>(theta, grad, scores, hess);
+#undef AFTERSHOCK_ZERO_MEAN
+}
+
 double LikelihoodKernel::EvaluateHessian(const double* theta, double* grad, double* hess,
                                          double* scores) {
+  if (zero_mean_general_) return EvaluateZeroMeanGeneral(theta, grad, scores, hess);
   return EvaluateOrderOne(theta, grad, scores, hess);
 }
 
 double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* scores) {
   if (order_one_) return EvaluateOrderOne(theta, grad, scores, nullptr);
+  if (zero_mean_general_ && grad != nullptr) {
+    return EvaluateZeroMeanGeneral(theta, grad, scores, nullptr);
+  }
   const bool with_grad = grad != nullptr;
   MeanPass(theta, with_grad);
   Presample(with_grad);

@@ -25,8 +25,12 @@ class LikelihoodKernel {
   double Evaluate(const double* theta, double* grad, double* scores);
 
   // True when EvaluateHessian() applies: a zero or constant mean with
-  // GARCH(1,1) or GJR-GARCH(1,1) variance (the order-one fast path).
-  bool has_hessian() const { return order_one_; }
+  // GARCH(1,1) or GJR-GARCH(1,1) variance (the order-one fast path), or a zero
+  // mean with ARCH, GARCH or GJR-GARCH variance of any order (the variance part
+  // of a two-step fit).
+  bool has_hessian() const { return order_one_ || zero_mean_general_; }
+  // True for the order-one fast path (has_hessian() without the general orders).
+  bool is_order_one() const { return order_one_; }
 
   // Log-likelihood, gradient (K) and analytic Hessian (K x K, row-major) at
   // theta, from second-derivative recursions of the variance; scores as in
@@ -52,6 +56,15 @@ class LikelihoodKernel {
   template <bool kMu, bool kGjr, bool kStudent, int kLevel>
   double OrderOne(const double* theta, double* grad, double* scores, double* hess);
   double EvaluateOrderOne(const double* theta, double* grad, double* scores, double* hess);
+  // Zero mean with ARCH/GARCH/GJR variance of any order: the residuals are the
+  // returns, so the first and second derivatives of sigma2 follow from the
+  // variance recursion alone (second derivatives are non-zero only through the
+  // beta terms). Gradient (and Hessian when hess != nullptr); grad not null.
+  // KV > 0: the number of variance parameters at compile time (0: at run
+  // time); NB >= 0 likewise the number of beta lags.
+  template <bool kStudent, int KV, int NB>
+  double ZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
+  double EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
   void Presample(bool with_grad);
 
   const ModelSpec spec_;
@@ -62,6 +75,7 @@ class LikelihoodKernel {
   const int k_;   // parameters
   const int nm_;  // mean parameters
   const bool order_one_;  // EvaluateOrderOne applies
+  const bool zero_mean_general_;  // ZeroMeanGeneral applies (and order_one_ does not)
 
   std::vector<double> eps_;    // n
   std::vector<double> sig2_;   // n
@@ -69,6 +83,16 @@ class LikelihoodKernel {
   std::vector<double> dsig2_;  // n x k: d sigma2_t / d params
   std::vector<double> ds2_;    // nm: d s2 / d mean params
   std::vector<double> work_;   // k
+  // ZeroMeanGeneral workspaces (kv = variance parameters, nb = beta lags,
+  // pad = largest lag):
+  std::vector<double> zdv_;   // (nb + 1) x kv: d sigma2 of this and the nb previous terms
+  std::vector<double> zd2v_;  // (nb + 1) x nb x kv: their second derivatives, beta rows
+  std::vector<double> zhb_;   // nb x kv: Hessian accumulator of the beta rows' l_v d2 sigma2
+  std::vector<double> zh_;    // (kv + 1) x (kv + 1): Hessian accumulator
+  std::vector<double> ze2_;   // pad + n: s2 (presample), then eps_k^2
+  std::vector<double> zne2_;  // pad + n: s2 / 2, then eps_k^2 where eps_k < 0, else 0
+  std::vector<double> zv_;    // pad + n: s2, then sigma2_k
+  int zpad_ = 0;
   std::vector<int> order_;     // min(n, kRobustStartSpan): sort workspace of the presample
   std::vector<double> weight_;  // min(n, kRobustStartSpan): presample weights 2^(-j / half-life)
   double s2_ = 0;

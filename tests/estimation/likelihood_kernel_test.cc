@@ -43,11 +43,32 @@ std::vector<Case> OrderOneCases() {
   };
 }
 
+// Zero-mean models of general order: the variance part of a two-step fit.
+std::vector<Case> GeneralOrderCases() {
+  return {
+      {"zero", "arch", {1}, "gaussian", {0.5, 0.3}},
+      {"zero", "arch", {3}, "student", {0.4, 0.2, 0.1, 0.1, 6.0}},
+      {"zero", "arch", {5}, "gaussian", {0.3, 0.15, 0.1, 0.1, 0.05, 0.05}},
+      {"zero", "garch", {1, 2}, "gaussian", {0.06, 0.09, 0.5, 0.35}},
+      {"zero", "garch", {1, 2}, "student", {0.06, 0.09, 0.5, 0.35, 7.5}},
+      {"zero", "garch", {2, 1}, "gaussian", {0.06, 0.05, 0.04, 0.85}},
+      {"zero", "garch", {2, 3}, "student", {0.05, 0.05, 0.03, 0.4, 0.25, 0.2, 8.0}},
+      {"zero", "gjr", {2, 2, 1}, "gaussian", {0.05, 0.04, 0.02, 0.06, 0.5, 0.33}},
+      {"zero", "gjr", {1, 2, 2}, "student", {0.05, 0.04, 0.05, 0.02, 0.5, 0.35, 6.5}},
+  };
+}
+
+std::vector<Case> HessianCases() {
+  std::vector<Case> all = OrderOneCases();
+  for (Case& c : GeneralOrderCases()) all.push_back(std::move(c));
+  return all;
+}
+
 TEST_CASE("the analytic Hessian matches central differences of the gradient",
           "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(1500, 17, 6.0));
   for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
-    for (const Case& c : OrderOneCases()) {
+    for (const Case& c : HessianCases()) {
       auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
       REQUIRE(spec.ok());
       LikelihoodKernel kernel(*spec, r, pre);
@@ -96,7 +117,7 @@ TEST_CASE("the analytic Hessian matches central differences of the gradient",
 TEST_CASE("the Hessian pass returns the per-observation scores of the gradient pass",
           "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(800, 4, 5.0));
-  for (const Case& c : OrderOneCases()) {
+  for (const Case& c : HessianCases()) {
     auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
     REQUIRE(spec.ok());
     LikelihoodKernel kernel(*spec, r, Presample::kMeanSquare);
@@ -134,14 +155,53 @@ TEST_CASE("the Hessian pass reports an infeasible point like the value pass",
   for (double v : h) CHECK(v == 0.0);
 }
 
-TEST_CASE("only the order-one models have an analytic Hessian", "[likelihood_kernel]") {
+TEST_CASE("the order-one models and zero-mean models of any order have an analytic Hessian",
+          "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(300, 3));
   auto arma = MakeModelSpec("arma", {1, 0}, "garch", {1, 1}, "gaussian");
   auto g21 = MakeModelSpec("constant", {}, "garch", {2, 1}, "gaussian");
+  auto ewma = MakeModelSpec("zero", {}, "ewma", {}, "gaussian");
+  auto zero21 = MakeModelSpec("zero", {}, "garch", {2, 1}, "gaussian");
+  auto zero11 = MakeModelSpec("zero", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(arma.ok());
   REQUIRE(g21.ok());
+  REQUIRE(ewma.ok());
+  REQUIRE(zero21.ok());
+  REQUIRE(zero11.ok());
   CHECK_FALSE(LikelihoodKernel(*arma, r, Presample::kMeanSquare).has_hessian());
   CHECK_FALSE(LikelihoodKernel(*g21, r, Presample::kMeanSquare).has_hessian());
+  CHECK_FALSE(LikelihoodKernel(*ewma, r, Presample::kMeanSquare).has_hessian());
+  const LikelihoodKernel general(*zero21, r, Presample::kMeanSquare);
+  CHECK(general.has_hessian());
+  CHECK_FALSE(general.is_order_one());
+  CHECK(LikelihoodKernel(*zero11, r, Presample::kMeanSquare).is_order_one());
+}
+
+TEST_CASE(
+    "the general-order gradient pass agrees with the value pass and reports infeasible "
+    "points",
+    "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(600, 12, 6.0));
+  for (const Case& c : GeneralOrderCases()) {
+    auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+    REQUIRE(spec.ok());
+    INFO(spec->Label());
+    LikelihoodKernel kernel(*spec, r, Presample::kRobustStart);
+    const int k = kernel.num_params();
+    std::vector<double> g(k, 1.0), h(static_cast<size_t>(k) * k, 1.0);
+    const double ll_value = kernel.Evaluate(c.theta.data(), nullptr, nullptr);
+    const std::vector<double> sig_value = kernel.sigma2();
+    const double ll_grad = kernel.Evaluate(c.theta.data(), g.data(), nullptr);
+    CHECK(ll_grad == Approx(ll_value).epsilon(1e-14));
+    CHECK(kernel.sigma2() == sig_value);
+    std::vector<double> bad = c.theta;
+    bad[0] = -50.0;  // omega far below zero: a negative variance
+    const double ll_bad = kernel.EvaluateHessian(bad.data(), g.data(), h.data(), nullptr);
+    CHECK(std::isinf(ll_bad));
+    CHECK(ll_bad < 0);
+    for (double v : g) CHECK(v == 0.0);
+    for (double v : h) CHECK(v == 0.0);
+  }
 }
 
 }  // namespace
