@@ -420,7 +420,7 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   if (spec.mean != MeanKind::kZero) d[0] = c;
   if (spec.variance != VarianceKind::kEwma) d[v0] = c * c;
 
-  internal::LikelihoodKernel kernel(spec, y, options.presample);
+  internal::LikelihoodKernel kernel(spec, std::move(y), options.presample);
   Problem prob;
   prob.kernel = &kernel;
   prob.full.assign(K, 0.0);
@@ -467,8 +467,24 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   struct Attempt { std::vector<double> theta; std::string label; };
   auto grid_attempts = [&]() {
     std::vector<std::pair<double, int>> ranked;
+    // The grid points share the mean parameters: on the order-one path their
+    // value passes run interleaved over one residual sweep.
+    std::vector<double> lls(grid.size());
+    bool shared_mean = kernel.has_hessian();
+    for (const auto& g : grid) {
+      for (int i = 0; i < v0 && shared_mean; ++i) shared_mean = g[i] == grid[0][i];
+    }
+    if (shared_mean) {
+      std::vector<const double*> points;
+      for (const auto& g : grid) points.push_back(g.data());
+      kernel.EvaluateBatch(points.data(), static_cast<int>(points.size()), lls.data());
+    } else {
+      for (size_t s = 0; s < grid.size(); ++s) {
+        lls[s] = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+      }
+    }
     for (size_t s = 0; s < grid.size(); ++s) {
-      const double ll = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+      const double ll = lls[s];
       ++prob.evals;
       ranked.push_back({std::isfinite(ll) ? -ll : std::numeric_limits<double>::infinity(),
                         static_cast<int>(s)});
