@@ -132,7 +132,11 @@ RunOutcome RunOptimizer(nlopt_algorithm algo, Problem* prob, const std::vector<d
 // the optimum the Hessian is kept (a chord step: the gradient contracts
 // linearly at a rate set by how far the Hessian moved, tiny there): trial
 // points are evaluated with the gradient only while each full step shrinks the
-// gradient at least tenfold, and with the Hessian again otherwise.
+// gradient at least tenfold, and with the Hessian again otherwise. After a
+// slow chord step the Hessian is renewed at that point; when the last step
+// taken from a fresh Hessian was fast, the renewed one's step is again
+// evaluated with the gradient only (a Newton step there usually contracts
+// fast, and a gradient pass costs about a third of a Hessian pass).
 // Gives up (converged = false) when no damping makes -H_ff positive definite,
 // no step is accepted or the iterations run out.
 struct NewtonOutcome {
@@ -168,6 +172,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   if (!std::isfinite(ll)) return out;
   bool h_current = true;  // h was evaluated at theta
   bool chord = true;      // evaluate trial points without the Hessian
+  bool fresh_fast = true;  // the last step from a Hessian evaluated at its point was fast
   out.theta = theta;
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
@@ -206,6 +211,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
     step = llt.solve(gf);
     const double gain = gf.dot(step);  // predicted rise x 2, > 0
     if (!(gain > 0) || !std::isfinite(gain)) return out;
+    const bool fresh = h_current;
     bool accepted = false;
     double t = 1.0, t_accepted = 0.0;
     for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
@@ -234,6 +240,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
       out.loglik = ll;
       const double gmax_new = gradient_max(g);
       const bool fast = t_accepted == 1.0 && gmax_new <= 0.1 * gmax;
+      if (fresh) fresh_fast = fast;
       gmax = gmax_new;
       if (fast) {
         chord = true;
@@ -251,6 +258,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
       ll = ll_h;
       h_current = true;
       gmax = gradient_max(g);
+      chord = fresh_fast;
     }
   }
 }

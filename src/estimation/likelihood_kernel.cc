@@ -492,8 +492,8 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
   const double* eps = eps_.data();
   double* sig2 = sig2_.data();
   // Per-bar columns in the thread's scratch: l_v, then for the Hessian the
-  // derivative columns of sigma2 (one per slot but nu) and l_vv, l_ev, l_vnu.
-  double* lv = OrderOneScratch(static_cast<size_t>(n_) * (kHess ? k_ + 4 : 1));
+  // derivative columns of sigma2 (one per slot but nu).
+  double* lv = OrderOneScratch(static_cast<size_t>(n_) * (kHess ? k_ + 1 : 1));
 
   // ---- forward sweep ----
   double e2p = s2, ne2p = 0.5 * s2, vp = s2;
@@ -501,9 +501,8 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
   // d sigma2_{k-1} / d slot: only the Hessian's outer products need them.
   double dv[5] = {ds2, 0, 0, 0, 0};
   double H[6][6] = {};
-  // Hessian columns (n each): d sigma2_k / d slot, l_vv, l_ev and l_vnu.
+  // Hessian columns (n each): d sigma2_k / d slot.
   double* col_dv[5] = {};
-  double *col_vv = nullptr, *col_ev = nullptr, *col_vnu = nullptr;
   if (kHess) {
     double* c = lv + n_;
     for (int i = 0; i < 5; ++i) {
@@ -512,11 +511,7 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
         c += n_;
       }
     }
-    col_vv = c;
-    col_ev = c + n_;
-    col_vnu = c + 2 * n_;
   }
-  double l_ee_sum = 0, l_enu_sum = 0, l_nunu_sum = 0;
   double g_nu_rest = 0;
   double e_sum = 0;  // sum of -d l_k / d eps_k (= d l / d mu through eps)
   double quad = 0, log_sum = 0, log_u_sum = 0;
@@ -535,7 +530,7 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
     const double e = eps[k];
     const double e2 = e * e;
     prod_v *= v;
-    double l_v = 0, l_ee = 0, l_ev = 0, l_vv = 0, l_enu = 0, l_vnu = 0, l_nunu = 0;
+    double l_v = 0;
     if (kStudent) {
       const double s = e2 * inv_nu2;
       const double vs = v + s;
@@ -549,16 +544,6 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
         l_v = (-0.5 + 0.5 * np1 * u * iw) * inv_v;
         g_nu_rest += 0.5 * np1 * u * inv_nu2 * iw;
       }
-      if (kHess) {
-        const double iw2 = iw * iw;
-        const double w = 1.0 + u;
-        l_ee = np1 * (u - 1.0) * inv_v * inv_nu2 * iw2;
-        l_ev = np1 * e * inv_v * inv_v * inv_nu2 * iw2;
-        l_vv = (0.5 - np1 * u * (1.0 + 0.5 * u) * iw2) * inv_v * inv_v;
-        l_enu = -e * inv_v * (nu2 * w - np1) * inv_nu2 * inv_nu2 * iw2;
-        l_vnu = 0.5 * inv_v * (u * iw - np1 * u * inv_nu2 * iw2);
-        l_nunu = u * inv_nu2 * iw - 0.5 * np1 * u * (w + 1.0) * inv_nu2 * inv_nu2 * iw2;
-      }
     } else {
       const double inv_v = 1.0 / v;
       const double q = e2 * inv_v;
@@ -567,17 +552,12 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
         if (kMu) e_sum += e * inv_v;
         l_v = 0.5 * (q - 1.0) * inv_v;
       }
-      if (kHess) {
-        l_ee = -inv_v;
-        l_ev = e * inv_v * inv_v;
-        l_vv = (0.5 - q) * inv_v * inv_v;
-      }
     }
     if (kGrad) lv[k] = l_v;
     if (kHess) {
-      // The derivatives of sigma2_k (k = 0 from the presample's) and the
-      // per-term second derivatives go to columns; the outer products are
-      // summed below in a loop over bars that the compiler vectorizes.
+      // The derivatives of sigma2_k (k = 0 from the presample's) go to
+      // columns; the per-term second derivatives and the outer products come
+      // below in a loop over pairs of bars.
       if (kMu) dv[kMuS] = alpha * de2p + (kGjr ? gamma * dne2p : 0.0) + beta * dv[kMuS];
       dv[kOm] = 1.0 + beta * dv[kOm];
       dv[kAl] = e2p + beta * dv[kAl];
@@ -586,16 +566,6 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
 #pragma GCC unroll 5
       for (int i = 0; i < 5; ++i) {
         if (kHas[i]) col_dv[i][k] = dv[i];
-      }
-      col_vv[k] = l_vv;
-      if (kMu) {
-        col_ev[k] = l_ev;
-        l_ee_sum += l_ee;
-      }
-      if (kStudent) {
-        col_vnu[k] = l_vnu;
-        if (kMu) l_enu_sum += l_enu;
-        l_nunu_sum += l_nunu;
       }
       if (kMu) {
         de2p = -2.0 * e;
@@ -639,9 +609,7 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
   double w = 0, z = 0;
   double sw = 0, swa = 0, swna = 0, swv = 0, swe = 0, swne = 0, wn1 = 0;
   double sz = 0, sza = 0, szna = 0, szv = 0, sze = 0, szne = 0;
-  for (int k = n_ - 1; k >= 1; --k) {
-    if (kHess) z = w + beta * z;
-    w = lv[k] + beta * w;
+  auto add = [&](int k, double w, double z) __attribute__((always_inline)) {
     const double ep = eps[k - 1];
     const double a = ep * ep;
     const double vprev = sig2[k - 1];
@@ -661,6 +629,33 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
       if (kMu && kGjr) szne += neg ? z * ep : 0.0;
       if (kMu && kGjr) wn1 += neg ? w : 0.0;
     }
+  };
+  // Two bars a step, both from w_{k+1} (and z_{k+1}), so that the chain
+  // carries one multiply-add per two bars:
+  //   w_k = l_k + beta w_{k+1},  w_{k-1} = (l_{k-1} + beta l_k) + beta^2 w_{k+1},
+  //   z_k = w_{k+1} + beta z_{k+1},  z_{k-1} = (l_k + 2 beta w_{k+1}) + beta^2 z_{k+1}
+  // (l = l_v). The sums differ from the one-bar recursion in round-off only.
+  const double beta2 = beta * beta;
+  int k = n_ - 1;
+  for (; k >= 2; k -= 2) {
+    const double w1 = w;  // w_{k+1}
+    const double z1 = z;  // z_{k+1}
+    const double wk = lv[k] + beta * w1;
+    const double wk1 = (lv[k - 1] + beta * lv[k]) + beta2 * w1;
+    double zk = 0, zk1 = 0;
+    if (kHess) {
+      zk = w1 + beta * z1;
+      zk1 = (lv[k] + 2.0 * beta * w1) + beta2 * z1;
+    }
+    add(k, wk, zk);
+    add(k - 1, wk1, zk1);
+    w = wk1;
+    z = zk1;
+  }
+  for (; k >= 1; --k) {
+    if (kHess) z = w + beta * z;
+    w = lv[k] + beta * w;
+    add(k, w, z);
   }
   // Bar 0: inputs from the presample (a = s2, na = s2 / 2, vp = s2; their
   // mu-derivatives ds2 and ds2 / 2; second ones d2s2 and d2s2 / 2).
@@ -687,7 +682,9 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
   }
   if (!kHess) return ll;
 
-  // Outer products l_vv dsigma2 dsigma2' and the e- and nu-terms, two bars a
+  // The per-term second derivatives in eps, sigma2 and nu (from sigma2_k and
+  // eps_k again, the same formulas for a double and a pair of them), the
+  // outer products l_vv dsigma2 dsigma2' and the e- and nu-terms, two bars a
   // step (SSE2 lanes; the lanes are added at the end, so the sum does not
   // depend on the instruction set).
   {
@@ -697,61 +694,97 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
       __builtin_memcpy(&x, p, sizeof x);
       return x;
     };
+    auto terms = [&](auto v, auto e, auto* l_ee, auto* l_ev, auto* l_vv, auto* l_enu,
+                     auto* l_vnu, auto* l_nunu) __attribute__((always_inline)) {
+      const auto e2 = e * e;
+      if (kStudent) {
+        const auto s = e2 * inv_nu2;
+        const auto vs = v + s;
+        const auto rr = 1.0 / (v * vs);
+        const auto inv_v = vs * rr;
+        const auto iw = v * v * rr;
+        const auto u = s * inv_v;
+        const auto iw2 = iw * iw;
+        const auto w = 1.0 + u;
+        *l_ee = np1 * (u - 1.0) * inv_v * inv_nu2 * iw2;
+        *l_ev = np1 * e * inv_v * inv_v * inv_nu2 * iw2;
+        *l_vv = (0.5 - np1 * u * (1.0 + 0.5 * u) * iw2) * inv_v * inv_v;
+        *l_enu = -e * inv_v * (nu2 * w - np1) * inv_nu2 * inv_nu2 * iw2;
+        *l_vnu = 0.5 * inv_v * (u * iw - np1 * u * inv_nu2 * iw2);
+        *l_nunu = u * inv_nu2 * iw - 0.5 * np1 * u * (w + 1.0) * inv_nu2 * inv_nu2 * iw2;
+      } else {
+        const auto inv_v = 1.0 / v;
+        const auto q = e2 * inv_v;
+        *l_ee = -inv_v;
+        *l_ev = e * inv_v * inv_v;
+        *l_vv = (0.5 - q) * inv_v * inv_v;
+      }
+    };
     V2 acc[6][6] = {};
+    V2 ee2 = {0, 0}, enu2 = {0, 0}, nunu2 = {0, 0};
     int k = 0;
     for (; k + 2 <= n_; k += 2) {
+      V2 l_ee, l_ev, l_vv, l_enu, l_vnu, l_nunu;
+      terms(load(sig2 + k), load(eps + k), &l_ee, &l_ev, &l_vv, &l_enu, &l_vnu, &l_nunu);
       V2 d[5];
 #pragma GCC unroll 5
       for (int i = 0; i < 5; ++i) {
         if (kHas[i]) d[i] = load(col_dv[i] + k);
       }
-      const V2 lvv2 = load(col_vv + k);
 #pragma GCC unroll 5
       for (int i = 0; i < 5; ++i) {
         if (!kHas[i]) continue;
-        const V2 a = lvv2 * d[i];
+        const V2 a = l_vv * d[i];
 #pragma GCC unroll 5
         for (int j = 0; j <= i; ++j) {
           if (kHas[j]) acc[i][j] += a * d[j];
         }
       }
       if (kMu) {
-        const V2 lev2 = load(col_ev + k);
-        acc[kMuS][kMuS] -= 2.0 * lev2 * d[kMuS];
+        ee2 += l_ee;
+        acc[kMuS][kMuS] -= 2.0 * l_ev * d[kMuS];
 #pragma GCC unroll 5
         for (int i = 1; i < 5; ++i) {
-          if (kHas[i]) acc[i][kMuS] -= lev2 * d[i];
+          if (kHas[i]) acc[i][kMuS] -= l_ev * d[i];
         }
       }
       if (kStudent) {
-        const V2 lvnu2 = load(col_vnu + k);
 #pragma GCC unroll 5
         for (int i = 0; i < 5; ++i) {
-          if (kHas[i]) acc[kNu][i] += lvnu2 * d[i];
+          if (kHas[i]) acc[kNu][i] += l_vnu * d[i];
         }
+        if (kMu) enu2 += l_enu;
+        nunu2 += l_nunu;
       }
     }
     for (int i = 0; i < 6; ++i) {
       for (int j = 0; j <= i; ++j) H[i][j] = acc[i][j][0] + acc[i][j][1];
     }
+    double l_ee_sum = ee2[0] + ee2[1], l_enu_sum = enu2[0] + enu2[1],
+           l_nunu_sum = nunu2[0] + nunu2[1];
     for (; k < n_; ++k) {  // an odd last bar
+      double l_ee = 0, l_ev = 0, l_vv = 0, l_enu = 0, l_vnu = 0, l_nunu = 0;
+      terms(sig2[k], eps[k], &l_ee, &l_ev, &l_vv, &l_enu, &l_vnu, &l_nunu);
       for (int i = 0; i < 5; ++i) {
         if (!kHas[i]) continue;
-        const double a = col_vv[k] * col_dv[i][k];
+        const double a = l_vv * col_dv[i][k];
         for (int j = 0; j <= i; ++j) {
           if (kHas[j]) H[i][j] += a * col_dv[j][k];
         }
       }
       if (kMu) {
-        H[kMuS][kMuS] -= 2.0 * col_ev[k] * col_dv[kMuS][k];
+        l_ee_sum += l_ee;
+        H[kMuS][kMuS] -= 2.0 * l_ev * col_dv[kMuS][k];
         for (int i = 1; i < 5; ++i) {
-          if (kHas[i]) H[i][kMuS] -= col_ev[k] * col_dv[i][k];
+          if (kHas[i]) H[i][kMuS] -= l_ev * col_dv[i][k];
         }
       }
       if (kStudent) {
         for (int i = 0; i < 5; ++i) {
-          if (kHas[i]) H[kNu][i] += col_vnu[k] * col_dv[i][k];
+          if (kHas[i]) H[kNu][i] += l_vnu * col_dv[i][k];
         }
+        if (kMu) l_enu_sum += l_enu;
+        l_nunu_sum += l_nunu;
       }
     }
     if (kMu) H[kMuS][kMuS] += l_ee_sum;
