@@ -305,20 +305,30 @@ std::vector<std::vector<double>> GridStarts(const ModelSpec& spec, double mean_y
 }  // namespace
 
 absl::Status ValidateReturns(absl::Span<const double> returns, int min_obs) {
-  for (size_t i = 0; i < returns.size(); ++i) {
-    if (!std::isfinite(returns[i])) {
-      return absl::InvalidArgumentError(
-          absl::StrCat("observation ", i + 1, " is not a finite number (", returns[i], ")"));
+  // One sweep without early exits for the common case (every value finite;
+  // x - x is 0 exactly for finite x, NaN otherwise); the first bad index is
+  // searched only when there is one.
+  double lo = std::numeric_limits<double>::infinity(), hi = -lo, bad = 0.0;
+  for (double x : returns) {
+    bad += x - x;
+    lo = x < lo ? x : lo;
+    hi = x > hi ? x : hi;
+  }
+  if (bad != 0.0) {
+    for (size_t i = 0; i < returns.size(); ++i) {
+      if (!std::isfinite(returns[i])) {
+        return absl::InvalidArgumentError(
+            absl::StrCat("observation ", i + 1, " is not a finite number (", returns[i], ")"));
+      }
     }
   }
   if (static_cast<int>(returns.size()) < min_obs) {
     return absl::InvalidArgumentError(absl::StrCat("too few observations: ", returns.size(),
                                                    " given, at least ", min_obs, " needed"));
   }
-  const auto [lo, hi] = std::minmax_element(returns.begin(), returns.end());
-  if (*lo == *hi) {
+  if (lo == hi) {
     return absl::InvalidArgumentError(
-        absl::StrCat("the series is constant (all ", returns.size(), " values equal ", *lo,
+        absl::StrCat("the series is constant (all ", returns.size(), " values equal ", lo,
                      "): its variance cannot be modelled"));
   }
   return absl::OkStatus();

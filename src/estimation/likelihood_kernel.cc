@@ -172,17 +172,19 @@ void LikelihoodKernel::OrderOneResiduals(double mu, bool mu_grad) {
     // The mean-square presample in the same sweep (d eps / d mu = -1, so
     // d s2 / d mu = -2 mean(eps) and d^2 s2 / d mu^2 = 2); two accumulators
     // per sum break the dependency chain.
-    double sq0 = 0, sq1 = 0, sum0 = 0, sum1 = 0;
+    // The pair of accumulators is one SSE2 register (even and odd bars).
+    typedef double V2 __attribute__((vector_size(16)));
+    V2 sq = {0, 0}, sum = {0, 0};
     int k = 0;
     for (; k + 1 < n_; k += 2) {
-      const double a = r[k] - mu, b = r[k + 1] - mu;
-      eps_[k] = a;
-      eps_[k + 1] = b;
-      sq0 += a * a;
-      sq1 += b * b;
-      sum0 += a;
-      sum1 += b;
+      V2 a;
+      __builtin_memcpy(&a, r + k, sizeof a);
+      a -= mu;
+      __builtin_memcpy(&eps_[k], &a, sizeof a);
+      sq += a * a;
+      sum += a;
     }
+    double sq0 = sq[0], sq1 = sq[1], sum0 = sum[0], sum1 = sum[1];
     for (; k < n_; ++k) {
       const double a = r[k] - mu;
       eps_[k] = a;
