@@ -132,7 +132,11 @@ RunOutcome RunOptimizer(nlopt_algorithm algo, Problem* prob, const std::vector<d
 // the optimum the Hessian is kept (a chord step: the gradient contracts
 // linearly at a rate set by how far the Hessian moved, tiny there): trial
 // points are evaluated with the gradient only while each full step shrinks the
-// gradient at least tenfold, and with the Hessian again otherwise.
+// gradient at least tenfold, and with the Hessian again otherwise. After a
+// slow chord step the Hessian is renewed at that point; when the last step
+// taken from a fresh Hessian was fast, the renewed one's step is again
+// evaluated with the gradient only (a Newton step there usually contracts
+// fast, and a gradient pass costs about a third of a Hessian pass).
 // Gives up (converged = false) when no damping makes -H_ff positive definite,
 // no step is accepted or the iterations run out.
 struct NewtonOutcome {
@@ -168,6 +172,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   if (!std::isfinite(ll)) return out;
   bool h_current = true;  // h was evaluated at theta
   bool chord = true;      // evaluate trial points without the Hessian
+  bool fresh_fast = true;  // the last step from a Hessian evaluated at its point was fast
   out.theta = theta;
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
@@ -206,6 +211,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
     step = llt.solve(gf);
     const double gain = gf.dot(step);  // predicted rise x 2, > 0
     if (!(gain > 0) || !std::isfinite(gain)) return out;
+    const bool fresh = h_current;
     bool accepted = false;
     double t = 1.0, t_accepted = 0.0;
     for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
@@ -234,6 +240,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
       out.loglik = ll;
       const double gmax_new = gradient_max(g);
       const bool fast = t_accepted == 1.0 && gmax_new <= 0.1 * gmax;
+      if (fresh) fresh_fast = fast;
       gmax = gmax_new;
       if (fast) {
         chord = true;
@@ -251,6 +258,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
       ll = ll_h;
       h_current = true;
       gmax = gradient_max(g);
+      chord = fresh_fast;
     }
   }
 }
@@ -515,20 +523,30 @@ std::vector<std::vector<double>> GridStarts(const ModelSpec& spec, double mean_y
 }  // namespace
 
 absl::Status ValidateReturns(absl::Span<const double> returns, int min_obs) {
-  for (size_t i = 0; i < returns.size(); ++i) {
-    if (!std::isfinite(returns[i])) {
-      return absl::InvalidArgumentError(
-          absl::StrCat("observation ", i + 1, " is not a finite number (", returns[i], ")"));
+  // One sweep without early exits for the common case (every value finite;
+  // x - x is 0 exactly for finite x, NaN otherwise); the first bad index is
+  // searched only when there is one.
+  double lo = std::numeric_limits<double>::infinity(), hi = -lo, bad = 0.0;
+  for (double x : returns) {
+    bad += x - x;
+    lo = x < lo ? x : lo;
+    hi = x > hi ? x : hi;
+  }
+  if (bad != 0.0) {
+    for (size_t i = 0; i < returns.size(); ++i) {
+      if (!std::isfinite(returns[i])) {
+        return absl::InvalidArgumentError(
+            absl::StrCat("observation ", i + 1, " is not a finite number (", returns[i], ")"));
+      }
     }
   }
   if (static_cast<int>(returns.size()) < min_obs) {
     return absl::InvalidArgumentError(absl::StrCat("too few observations: ", returns.size(),
                                                    " given, at least ", min_obs, " needed"));
   }
-  const auto [lo, hi] = std::minmax_element(returns.begin(), returns.end());
-  if (*lo == *hi) {
+  if (lo == hi) {
     return absl::InvalidArgumentError(
-        absl::StrCat("the series is constant (all ", returns.size(), " values equal ", *lo,
+        absl::StrCat("the series is constant (all ", returns.size(), " values equal ", lo,
                      "): its variance cannot be modelled"));
   }
   return absl::OkStatus();
@@ -638,7 +656,7 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   if (spec.mean != MeanKind::kZero) d[0] = c;
   if (spec.variance != VarianceKind::kEwma) d[v0] = c * c;
 
-  internal::LikelihoodKernel kernel(spec, y, options.presample);
+  internal::LikelihoodKernel kernel(spec, std::move(y), options.presample);
   Problem prob;
   prob.kernel = &kernel;
   prob.full.assign(K, 0.0);
@@ -685,8 +703,24 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   struct Attempt { std::vector<double> theta; std::string label; };
   auto grid_attempts = [&]() {
     std::vector<std::pair<double, int>> ranked;
+    // The grid points share the mean parameters: on the order-one path their
+    // value passes run interleaved over one residual sweep.
+    std::vector<double> lls(grid.size());
+    bool shared_mean = kernel.has_hessian();
+    for (const auto& g : grid) {
+      for (int i = 0; i < v0 && shared_mean; ++i) shared_mean = g[i] == grid[0][i];
+    }
+    if (shared_mean) {
+      std::vector<const double*> points;
+      for (const auto& g : grid) points.push_back(g.data());
+      kernel.EvaluateBatch(points.data(), static_cast<int>(points.size()), lls.data());
+    } else {
+      for (size_t s = 0; s < grid.size(); ++s) {
+        lls[s] = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+      }
+    }
     for (size_t s = 0; s < grid.size(); ++s) {
-      const double ll = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+      const double ll = lls[s];
       ++prob.evals;
       ranked.push_back({std::isfinite(ll) ? -ll : std::numeric_limits<double>::infinity(),
                         static_cast<int>(s)});

@@ -38,6 +38,15 @@ class LikelihoodKernel {
   // Returns -inf (grad and hess zeroed) where Evaluate() does.
   double EvaluateHessian(const double* theta, double* grad, double* hess, double* scores);
 
+  // Log-likelihoods of m points that share the mean parameters (equal values
+  // before spec().VarianceOffset()): out[j] is Evaluate(thetas[j], nullptr,
+  // nullptr) to the bit, -inf where a variance is not positive and finite.
+  // The residuals are computed once and the points' recursions run
+  // interleaved, kBatch at a time. REQUIRES: has_hessian(); sigma2() is not
+  // updated.
+  static constexpr int kBatch = 5;
+  void EvaluateBatch(const double* const* thetas, int m, double* out);
+
   int nobs() const { return n_; }
   int num_params() const { return k_; }
   const ModelSpec& spec() const { return spec_; }
@@ -55,6 +64,16 @@ class LikelihoodKernel {
   // kLevel: 0 value, 1 value and gradient, 2 value, gradient and Hessian.
   template <bool kMu, bool kGjr, bool kStudent, int kLevel>
   double OrderOne(const double* theta, double* grad, double* scores, double* hess);
+  // The same without per-term scores, by reverse accumulation (forward sweep
+  // for sigma2 and the per-term derivatives, backward sweep for the sums):
+  // the value to the bit of OrderOne(), gradient and Hessian to round-off.
+  template <bool kMu, bool kGjr, bool kStudent, int kLevel>
+  double OrderOneAdjoint(const double* theta, double* grad, double* hess);
+  template <bool kMu, bool kGjr, bool kStudent>
+  void OrderOneBatch(const double* const* thetas, double* out);
+  // Residuals r - mu and the presample variance of the order-one passes;
+  // mu_grad: also d s2 / d mu.
+  void OrderOneResiduals(double mu, bool mu_grad);
   double EvaluateOrderOne(const double* theta, double* grad, double* scores, double* hess);
   // Zero mean with ARCH/GARCH/GJR variance of any order: the residuals are the
   // returns, so the first and second derivatives of sigma2 follow from the
@@ -66,6 +85,10 @@ class LikelihoodKernel {
   double ZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
   double EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
   void Presample(bool with_grad);
+  // d eps_k / d (mean parameter c): -1 on the order-one path (no rows kept).
+  double MeanDerivative(int k, int c) const {
+    return deps_.empty() ? -1.0 : deps_[static_cast<size_t>(k) * nm_ + c];
+  }
 
   const ModelSpec spec_;
   const std::vector<double> r_;

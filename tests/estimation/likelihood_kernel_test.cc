@@ -1,7 +1,9 @@
 #include "estimation/likelihood_kernel.h"
 
 #include <catch2/catch.hpp>
+#include <algorithm>
 #include <cmath>
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -140,6 +142,82 @@ TEST_CASE("the Hessian pass returns the per-observation scores of the gradient p
   }
 }
 
+// Without per-term scores the passes sum the derivatives by reverse
+// accumulation (a backward sweep); with scores they run the forward
+// derivative recursions. Both give the same value, gradient and Hessian up to
+// the order of the sums.
+TEST_CASE("the reverse-accumulation passes agree with the forward recursions",
+          "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(1201, 23, 5.0));
+  for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
+    for (const Case& c : OrderOneCases()) {
+      auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+      REQUIRE(spec.ok());
+      LikelihoodKernel kernel(*spec, r, pre);
+      const int k = kernel.num_params();
+      const size_t cells = static_cast<size_t>(kernel.nobs()) * k;
+      std::vector<double> g(k), h(static_cast<size_t>(k) * k), gf(k), hf(h.size()), scores(cells);
+      INFO(spec->Label() << " presample " << static_cast<int>(pre));
+      const double ll = kernel.EvaluateHessian(c.theta.data(), g.data(), h.data(), nullptr);
+      const double llf = kernel.EvaluateHessian(c.theta.data(), gf.data(), hf.data(), scores.data());
+      CHECK(ll == Approx(llf).epsilon(1e-14));
+      for (int a = 0; a < k; ++a) {
+        INFO("d/d" << spec->ParamNames()[a]);
+        CHECK(g[a] == Approx(gf[a]).epsilon(1e-11).margin(1e-9));
+      }
+      for (size_t i = 0; i < h.size(); ++i) {
+        INFO("Hessian cell " << i);
+        CHECK(h[i] == Approx(hf[i]).epsilon(1e-11).margin(1e-8));
+      }
+      // The gradient pass: same value to the bit as the Hessian pass, and the
+      // same gradient (both sum it in the backward sweep).
+      std::vector<double> g1(k), g1f(k);
+      CHECK(kernel.Evaluate(c.theta.data(), g1.data(), nullptr) == ll);
+      CHECK(kernel.Evaluate(c.theta.data(), nullptr, nullptr) == ll);
+      for (int a = 0; a < k; ++a) CHECK(g1[a] == g[a]);
+      const double ll1f = kernel.Evaluate(c.theta.data(), g1f.data(), scores.data());
+      CHECK(ll1f == Approx(ll).epsilon(1e-14));
+      for (int a = 0; a < k; ++a) CHECK(g1f[a] == Approx(g1[a]).epsilon(1e-11).margin(1e-9));
+    }
+  }
+}
+
+TEST_CASE("a batch of points gives each point's value pass to the bit", "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(999, 31, 6.0));
+  for (const Case& c : OrderOneCases()) {
+    auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+    REQUIRE(spec.ok());
+    INFO(spec->Label());
+    LikelihoodKernel kernel(*spec, r, Presample::kRobustStart);
+    const int v0 = spec->VarianceOffset();
+    // Seven points (a full group and a short one) sharing the mean; the
+    // fourth has a negative omega and alpha, so its variance turns negative.
+    std::vector<std::vector<double>> points;
+    for (int j = 0; j < 7; ++j) {
+      std::vector<double> th = c.theta;
+      th[v0] *= 1.0 + 0.2 * j;
+      th[v0 + 1] *= 1.0 - 0.1 * j;
+      if (j == 3) th[v0] = th[v0 + 1] = -0.5;
+      points.push_back(th);
+    }
+    std::vector<const double*> ptr;
+    for (const auto& th : points) ptr.push_back(th.data());
+    std::vector<double> out(points.size());
+    kernel.EvaluateBatch(ptr.data(), static_cast<int>(ptr.size()), out.data());
+    for (size_t j = 0; j < points.size(); ++j) {
+      INFO("point " << j);
+      const double single = kernel.Evaluate(points[j].data(), nullptr, nullptr);
+      CHECK(out[j] == single);
+      if (j == 3) {
+        CHECK(std::isinf(out[j]));
+        CHECK(out[j] < 0);
+      } else {
+        CHECK(std::isfinite(out[j]));
+      }
+    }
+  }
+}
+
 TEST_CASE("the Hessian pass reports an infeasible point like the value pass",
           "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(300, 2));
@@ -153,6 +231,14 @@ TEST_CASE("the Hessian pass reports an infeasible point like the value pass",
   CHECK(ll < 0);
   for (double v : g) CHECK(v == 0.0);
   for (double v : h) CHECK(v == 0.0);
+  // Variances so large that a product of them overflows: infeasible too.
+  const std::vector<double> huge = {0.0, 1e200, 0.1, 0.8};
+  std::fill(g.begin(), g.end(), 1.0);
+  CHECK(kernel.Evaluate(huge.data(), nullptr, nullptr) ==
+        -std::numeric_limits<double>::infinity());
+  CHECK(kernel.Evaluate(huge.data(), g.data(), nullptr) ==
+        -std::numeric_limits<double>::infinity());
+  for (double v : g) CHECK(v == 0.0);
 }
 
 TEST_CASE("the order-one models and zero-mean models of any order have an analytic Hessian",
