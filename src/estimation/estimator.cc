@@ -704,9 +704,10 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   auto grid_attempts = [&]() {
     std::vector<std::pair<double, int>> ranked;
     // The grid points share the mean parameters: on the order-one path their
-    // value passes run interleaved over one residual sweep.
+    // value passes run interleaved over one residual sweep (not on the
+    // general orders, which have a Hessian but no batched pass).
     std::vector<double> lls(grid.size());
-    bool shared_mean = kernel.has_hessian();
+    bool shared_mean = kernel.is_order_one();
     for (const auto& g : grid) {
       for (int i = 0; i < v0 && shared_mean; ++i) shared_mean = g[i] == grid[0][i];
     }

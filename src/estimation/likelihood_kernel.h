@@ -42,7 +42,7 @@ class LikelihoodKernel {
   // before spec().VarianceOffset()): out[j] is Evaluate(thetas[j], nullptr,
   // nullptr) to the bit, -inf where a variance is not positive and finite.
   // The residuals are computed once and the points' recursions run
-  // interleaved, kBatch at a time. REQUIRES: has_hessian(); sigma2() is not
+  // interleaved, kBatch at a time. REQUIRES: is_order_one(); sigma2() is not
   // updated.
   static constexpr int kBatch = 5;
   void EvaluateBatch(const double* const* thetas, int m, double* out);
