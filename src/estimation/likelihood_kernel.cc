@@ -948,6 +948,12 @@ void LikelihoodKernel::OrderOneBatch(const double* const* thetas, double* out) {
 }
 
 void LikelihoodKernel::EvaluateBatch(const double* const* thetas, int m, double* out) {
+  // Only the order-one passes are batched; other kernels (the general orders
+  // also have a Hessian) evaluate the points one by one.
+  if (!order_one_) {
+    for (int j = 0; j < m; ++j) out[j] = Evaluate(thetas[j], nullptr, nullptr);
+    return;
+  }
   const bool mu = spec_.mean == MeanKind::kConstant;
   const bool gjr = spec_.variance == VarianceKind::kGjr;
   const bool t = spec_.innovations == Innovations::kStudentT;

@@ -42,8 +42,9 @@ class LikelihoodKernel {
   // before spec().VarianceOffset()): out[j] is Evaluate(thetas[j], nullptr,
   // nullptr) to the bit, -inf where a variance is not positive and finite.
   // The residuals are computed once and the points' recursions run
-  // interleaved, kBatch at a time. REQUIRES: is_order_one(); sigma2() is not
-  // updated.
+  // interleaved, kBatch at a time where is_order_one(); other kernels evaluate
+  // the points one by one (sigma2() then holds the last point's). Where
+  // is_order_one(), sigma2() is not updated.
   static constexpr int kBatch = 5;
   void EvaluateBatch(const double* const* thetas, int m, double* out);
 

@@ -218,6 +218,44 @@ TEST_CASE("a batch of points gives each point's value pass to the bit", "[likeli
   }
 }
 
+TEST_CASE("a batch on the general orders gives each point's value pass", "[likelihood_kernel]") {
+  // Zero-mean general orders have a Hessian but no batched pass: the points
+  // must not go through the order-one batch (whose parameter layout differs).
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(700, 5, 6.0));
+  struct General {
+    const char* variance;
+    VarianceLags orders;
+    std::vector<double> theta;
+  };
+  const std::vector<General> cases = {
+      {"arch", {1}, {0.6, 0.3}},
+      {"garch", {2, 1}, {0.06, 0.05, 0.04, 0.85}},
+      {"gjr", {2, 2, 1}, {0.05, 0.04, 0.02, 0.06, 0.5, 0.33}},
+  };
+  for (const General& c : cases) {
+    auto spec = MakeModelSpec("zero", {}, c.variance, c.orders, "gaussian");
+    REQUIRE(spec.ok());
+    INFO(spec->Label());
+    LikelihoodKernel kernel(*spec, r, Presample::kMeanSquare);
+    REQUIRE_FALSE(kernel.is_order_one());
+    std::vector<std::vector<double>> points;
+    for (int j = 0; j < 6; ++j) {
+      std::vector<double> th = c.theta;
+      th[0] *= 1.0 + 0.25 * j;
+      points.push_back(th);
+    }
+    std::vector<const double*> ptr;
+    for (const auto& th : points) ptr.push_back(th.data());
+    std::vector<double> out(points.size());
+    kernel.EvaluateBatch(ptr.data(), static_cast<int>(ptr.size()), out.data());
+    for (size_t j = 0; j < points.size(); ++j) {
+      INFO("point " << j);
+      CHECK(std::isfinite(out[j]));
+      CHECK(out[j] == kernel.Evaluate(points[j].data(), nullptr, nullptr));
+    }
+  }
+}
+
 TEST_CASE("the Hessian pass reports an infeasible point like the value pass",
           "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(300, 2));
