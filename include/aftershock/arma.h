@@ -62,9 +62,15 @@ struct ArmaFitOptions {
   int max_evaluations = 3000;
   // Relative tolerance on the optimizer coordinates; default 1e-8.
   double xtol_rel = 1e-8;
-  // Relative tolerance on the objective (log-likelihood per observation);
-  // default 1e-12.
+  // Relative tolerance on the objective (log-likelihood per observation),
+  // for the derivative-free search and the Levenberg-Marquardt iterations
+  // (converged after two accepted steps running within it); default 1e-12.
   double ftol_rel = 1e-12;
+  // Levenberg-Marquardt iterations on the exact likelihood written as a sum of
+  // squares, tried before the derivative-free search (which then starts from
+  // their best point if they do not converge); each costs p + q + 2 or more
+  // filter passes. 0 = derivative-free search only. Default 30.
+  int gauss_newton_iterations = 30;
 };
 
 struct ArmaFit {

@@ -48,8 +48,11 @@ struct FitOptions {
   double xtol_rel = 1e-9;
   // Newton iterations allowed from the first start (the warm start, else the
   // best point of the cold grid) where the likelihood has an analytic Hessian
-  // (zero or constant mean, GARCH(1,1) or GJR-GARCH(1,1)); when they do not
-  // converge SLSQP runs from the same start. 0 = SLSQP only. Default 12.
+  // (zero or constant mean, GARCH(1,1) or GJR-GARCH(1,1); zero mean with
+  // ARCH/GARCH/GJR variance of any order, steps kept inside the bounds), and
+  // from a warm start elsewhere (not EWMA) with a Hessian by differences of the
+  // gradient; when they do not converge SLSQP runs from the same start.
+  // 0 = SLSQP only. Default 12.
   int newton_iterations = 12;
   // Newton's convergence test: largest gradient component of the mean
   // log-likelihood per observation, on the unit-variance scale of the fit.

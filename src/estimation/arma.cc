@@ -403,6 +403,166 @@ std::vector<double> Encode(const Problem& pr, const ArmaParams& a) {
   return x;
 }
 
+// The exact concentrated likelihood as a sum of squares: with v_t, F_t the
+// filter's errors and variance ratios and g = exp(sum log F_t / (2 n)),
+// w_t = g v_t / sqrt(F_t) gives sum w_t^2 = (sum v_t^2 / F_t) prod F_t^(1/n),
+// and the concentrated log-likelihood is -n/2 (log(2 pi) + 1 + log(sum w^2 / n)):
+// maximizing it is minimizing sum w^2. False where the filter fails.
+bool WeightedErrors(const Problem& pr, const double* x, std::vector<double>* w,
+                    std::vector<double>* ratio, double* ss) {
+  double mu, ar[kMaxArmaOrder], ma[kMaxArmaOrder];
+  Decode(pr, x, &mu, ar, ma);
+  FilterSums sums;
+  if (!RunFilter(pr.y, mu, ar, pr.p, ma, pr.q, &sums, w, ratio) || !(sums.sum_sq > 0.0)) {
+    return false;
+  }
+  const int n = static_cast<int>(pr.y.size());
+  const double g = std::exp(sums.sum_log_f / (2.0 * n));
+  double acc = 0.0;
+  for (int t = 0; t < n; ++t) {
+    const double f = (*ratio)[t];
+    (*w)[t] *= f == 1.0 ? g : g / std::sqrt(f);
+    acc += (*w)[t] * (*w)[t];
+  }
+  *ss = acc;
+  return std::isfinite(acc);
+}
+
+// Levenberg-Marquardt on the sum of squares above, in the optimizer's
+// unconstrained coordinates, with a forward-difference Jacobian (dim + 1
+// filter passes per iteration): near the optimum the Gauss-Newton steps
+// converge in a few iterations where a derivative-free search needs hundreds
+// of evaluations on a flat ridge. x is updated to the best point found.
+// Converged when two accepted steps running lower the objective per
+// observation by no more than ftol_rel relative, or a step below 1e-6 in every
+// coordinate lowers sum w^2 by no more than 1e-13 relative or finds no lower
+// point (the forward-difference Jacobian leaves steps of about 1e-7 at the
+// minimum; the objective is quadratic there, so the log-likelihood is then
+// within about 1e-9 of it). Returns false (x still the best point) when the
+// iterations or the evaluation budget run out or no step is accepted.
+bool RefineByLevenbergMarquardt(Problem* pr, std::vector<double>* x, const double* lb,
+                                const double* ub, int max_iterations, int max_evaluations,
+                                double ftol_rel) {
+  const int n = static_cast<int>(pr->y.size());
+  const int dim = static_cast<int>(x->size());
+  std::vector<double> w(n), ratio(n), wt(n), ws(n), xt(dim);
+  double ss = 0.0;
+  ++pr->evaluations;
+  if (!WeightedErrors(*pr, x->data(), &w, &ratio, &ss)) return false;
+  Eigen::MatrixXd jac(n, dim);
+  double lambda = 1e-3;
+  int ftol_run = 0;  // accepted steps running within the objective tolerance
+  for (int it = 0; it < max_iterations; ++it) {
+    // An iteration needs at least dim + 1 passes: stop within the budget.
+    if (pr->evaluations + dim + 1 > max_evaluations) return false;
+    for (int i = 0; i < dim; ++i) {
+      xt = *x;
+      const double h = 1e-7 * std::max(1.0, std::fabs(xt[i]));
+      xt[i] += h;
+      double ss_h = 0.0;
+      ++pr->evaluations;
+      if (!WeightedErrors(*pr, xt.data(), &wt, &ratio, &ss_h)) return false;
+      for (int t = 0; t < n; ++t) jac(t, i) = (wt[t] - w[t]) / h;
+    }
+    const Eigen::Map<const Eigen::VectorXd> wv(w.data(), n);
+    const Eigen::MatrixXd a = jac.transpose() * jac;
+    const Eigen::VectorXd g = jac.transpose() * wv;
+    bool accepted = false;
+    for (int tries = 0; tries < 12 && !accepted; ++tries) {
+      Eigen::MatrixXd damped = a;
+      for (int i = 0; i < dim; ++i) damped(i, i) += lambda * std::max(a(i, i), 1e-12);
+      const Eigen::VectorXd step = damped.ldlt().solve(-g);
+      if (!step.allFinite()) return false;
+      bool small = true;
+      for (int i = 0; i < dim; ++i) {
+        xt[i] = std::clamp((*x)[i] + step[i], lb[i], ub[i]);
+        small = small && std::fabs(xt[i] - (*x)[i]) <= 1e-6 * std::max(1.0, std::fabs((*x)[i]));
+      }
+      double ss_t = 0.0;
+      ++pr->evaluations;
+      bool ok = WeightedErrors(*pr, xt.data(), &wt, &ratio, &ss_t);
+      // Gauss-Newton ignores the curvature of w itself, which matters along a
+      // flat ridge (near-cancelling AR and MA roots): the steps overshoot and
+      // alternate. The minimum of the quadratic through ss(0), its slope
+      // 2 g'step and ss(1) corrects the length (one more pass).
+      if (ok && !small) {
+        double slope = 0.0;
+        for (int i = 0; i < dim; ++i) slope += 2.0 * g[i] * (xt[i] - (*x)[i]);
+        const double curv = ss_t - ss - slope;
+        const double t_min = curv > 0 ? -slope / (2.0 * curv) : 1.0;
+        if (t_min > 0.05 && t_min < 0.9) {
+          std::vector<double> xs(dim);
+          for (int i = 0; i < dim; ++i) xs[i] = (*x)[i] + t_min * (xt[i] - (*x)[i]);
+          double ss_s = 0.0;
+          ++pr->evaluations;
+          if (WeightedErrors(*pr, xs.data(), &ws, &ratio, &ss_s) && ss_s < ss_t) {
+            xt.swap(xs);
+            wt.swap(ws);
+            ss_t = ss_s;
+          }
+        }
+      }
+      if (ok && ss_t <= ss) {
+        accepted = true;
+        const bool flat = ss - ss_t <= 1e-13 * ss;
+        // The objective per observation, 0.5 (log(2 pi) + 1 + log(ss / n)),
+        // fell by at most ftol_rel relative (the derivative-free search's
+        // objective tolerance).
+        const double f = 0.5 * (kLog2Pi + 1.0 + std::log(ss_t / n));
+        const bool within_ftol = 0.5 * std::log(ss / ss_t) <= ftol_rel * std::fabs(f);
+        ftol_run = within_ftol ? ftol_run + 1 : 0;
+        *x = xt;
+        w.swap(wt);
+        ss = ss_t;
+        lambda = std::max(lambda * 0.1, 1e-12);
+        // Converged: a small step that gains nothing, or two steps running
+        // within the objective tolerance (the remaining gain of the linearly
+        // converging steps is then of the same order).
+        if ((flat && small) || ftol_run >= 2) return true;
+      } else {
+        if (small) return true;  // no lower point within round-off of x
+        lambda *= 10.0;
+      }
+    }
+    if (!accepted) return false;
+  }
+  return false;
+}
+
+// BOBYQA from x (updated to the best point found) with the given budget.
+nlopt::result SearchByBobyqa(Problem* pr, std::vector<double>* x, const std::vector<double>& lb,
+                             const std::vector<double>& ub, const ArmaFitOptions& options,
+                             int max_evaluations, std::string* message) {
+  const unsigned dim = static_cast<unsigned>(x->size());
+  nlopt::opt opt(nlopt::LN_BOBYQA, dim);
+  opt.set_lower_bounds(lb);
+  opt.set_upper_bounds(ub);
+  opt.set_min_objective(&Objective, pr);
+  opt.set_xtol_rel(options.xtol_rel);
+  opt.set_ftol_rel(options.ftol_rel);
+  opt.set_maxeval(max_evaluations);
+  std::vector<double> step(dim, 0.1);
+  opt.set_initial_step(step);
+  double fval = 0.0;
+  nlopt::result res = nlopt::FAILURE;
+  try {
+    res = opt.optimize(*x, fval);
+    *message = absl::StrCat("nlopt result code ", static_cast<int>(res));
+  } catch (const nlopt::roundoff_limited& e) {
+    // Round-off limited stops arrive as exceptions; x then holds the best
+    // point found, which is still a valid parameter vector, at the optimum
+    // to machine precision.
+    *message = absl::StrCat("optimizer stopped (round-off limited): ", e.what());
+    res = nlopt::ROUNDOFF_LIMITED;
+  } catch (const std::exception& e) {
+    // Any other failure: x holds the best point found (or the start); the fit
+    // is reported as not converged.
+    *message = absl::StrCat("optimizer failed: ", e.what());
+    res = nlopt::FAILURE;
+  }
+  return res;
+}
+
 // Fits ARMA(p,q) from the better (by likelihood) of the Hannan-Rissanen values
 // and the `warm` parameter sets, which are zero-padded to the orders (a smaller
 // model's optimum is a point of the larger model with the same likelihood).
@@ -456,34 +616,24 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
         x = std::move(xw);
       }
     }
-    nlopt::opt opt(nlopt::LN_BOBYQA, dim);
     std::vector<double> lb(dim, -kMaxUnconstrained), ub(dim, kMaxUnconstrained);
     lb[0] = -10.0;  // mu within 10 sample standard deviations of the mean
     ub[0] = 10.0;
-    opt.set_lower_bounds(lb);
-    opt.set_upper_bounds(ub);
-    opt.set_min_objective(&Objective, &pr);
-    opt.set_xtol_rel(options.xtol_rel);
-    opt.set_ftol_rel(options.ftol_rel);
-    opt.set_maxeval(options.max_evaluations);
-    std::vector<double> step(dim, 0.1);
-    opt.set_initial_step(step);
-    double fval = 0.0;
+    // Gauss-Newton steps first; BOBYQA from their best point where they do
+    // not converge.
     nlopt::result res = nlopt::FAILURE;
-    try {
-      res = opt.optimize(x, fval);
-      message = absl::StrCat("nlopt result code ", static_cast<int>(res));
-    } catch (const nlopt::roundoff_limited& e) {
-      // Round-off limited stops arrive as exceptions; x then holds the best
-      // point found, which is still a valid parameter vector, at the optimum
-      // to machine precision.
-      message = absl::StrCat("optimizer stopped (round-off limited): ", e.what());
-      res = nlopt::ROUNDOFF_LIMITED;
-    } catch (const std::exception& e) {
-      // Any other failure: x holds the best point found (or the start); the fit
-      // is reported as not converged.
-      message = absl::StrCat("optimizer failed: ", e.what());
-      res = nlopt::FAILURE;
+    const int evals_before = pr.evaluations;
+    const bool lm =
+        options.gauss_newton_iterations > 0 &&
+        RefineByLevenbergMarquardt(&pr, &x, lb.data(), ub.data(), options.gauss_newton_iterations,
+                                   options.max_evaluations, options.ftol_rel);
+    const int lm_evals = pr.evaluations - evals_before;
+    if (lm) {
+      res = nlopt::SUCCESS;
+      message = "Levenberg-Marquardt converged";
+    } else {
+      res = SearchByBobyqa(&pr, &x, lb, ub, options,
+                           std::max(1, options.max_evaluations - lm_evals), &message);
     }
     converged = res == nlopt::SUCCESS || res == nlopt::FTOL_REACHED || res == nlopt::XTOL_REACHED ||
                 res == nlopt::ROUNDOFF_LIMITED;

@@ -132,7 +132,11 @@ RunOutcome RunOptimizer(nlopt_algorithm algo, Problem* prob, const std::vector<d
 // the optimum the Hessian is kept (a chord step: the gradient contracts
 // linearly at a rate set by how far the Hessian moved, tiny there): trial
 // points are evaluated with the gradient only while each full step shrinks the
-// gradient at least tenfold, and with the Hessian again otherwise.
+// gradient at least tenfold, and with the Hessian again otherwise. After a
+// slow chord step the Hessian is renewed at that point; when the last step
+// taken from a fresh Hessian was fast, the renewed one's step is again
+// evaluated with the gradient only (a Newton step there usually contracts
+// fast, and a gradient pass costs about a third of a Hessian pass).
 // Gives up (converged = false) when no damping makes -H_ff positive definite,
 // no step is accepted or the iterations run out.
 struct NewtonOutcome {
@@ -168,6 +172,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   if (!std::isfinite(ll)) return out;
   bool h_current = true;  // h was evaluated at theta
   bool chord = true;      // evaluate trial points without the Hessian
+  bool fresh_fast = true;  // the last step from a Hessian evaluated at its point was fast
   out.theta = theta;
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
@@ -206,6 +211,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
     step = llt.solve(gf);
     const double gain = gf.dot(step);  // predicted rise x 2, > 0
     if (!(gain > 0) || !std::isfinite(gain)) return out;
+    const bool fresh = h_current;
     bool accepted = false;
     double t = 1.0, t_accepted = 0.0;
     for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
@@ -234,6 +240,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
       out.loglik = ll;
       const double gmax_new = gradient_max(g);
       const bool fast = t_accepted == 1.0 && gmax_new <= 0.1 * gmax;
+      if (fresh) fresh_fast = fast;
       gmax = gmax_new;
       if (fast) {
         chord = true;
@@ -251,6 +258,225 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
       ll = ll_h;
       h_current = true;
       gmax = gradient_max(g);
+      chord = fresh_fast;
+    }
+  }
+}
+
+// Newton's method for the general orders (the kernel's analytic Hessian of a
+// zero-mean ARCH/GARCH/GJR model, the variance part of a two-step fit), kept
+// strictly inside the bounds. The maximum of such a model often lies on a bound
+// (an extra lag whose coefficient is 0), and there the likelihood can have a
+// second local maximum inside the box in the basin of the start: a step that
+// meets a bound ends the run (converged = false) and SLSQP runs from the same
+// start, so a fit whose maximum is on a bound is SLSQP's, as before.
+//   Step (-H_ff)^-1 g_f (Levenberg-damped until -H_ff is positive definite),
+//   halved until the log-likelihood rises by an Armijo fraction of the
+//   predicted gain and the persistence cap holds; converged when the largest
+//   free gradient component per observation is <= gtol. A Hessian with every
+//   step: the general pass costs little more with it than without.
+// Gives up when two full steps running would cross a bound, no damping makes -H_ff
+// positive definite, no step is accepted or the iterations run out.
+NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Problem& prob,
+                                 const std::vector<double>& lb, const std::vector<double>& ub,
+                                 std::vector<double> theta, int max_iterations, double gtol) {
+  NewtonOutcome out;
+  const int K = kernel->num_params();
+  const int nf = static_cast<int>(prob.free_idx.size());
+  auto persistence_ok = [&](const std::vector<double>& th) {
+    double pers = 0;
+    for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
+      pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
+    }
+    return pers <= kOptimizerMaxPersistence;
+  };
+  if (nf == 0) return out;
+  for (int a = 0; a < nf; ++a) {
+    const double x = theta[prob.free_idx[a]];
+    if (!(x > lb[a] && x < ub[a])) return out;
+  }
+  if (!persistence_ok(theta)) return out;
+  std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
+      h_try(static_cast<size_t>(K) * K), trial;
+  double ll = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
+  ++out.evals;
+  if (!std::isfinite(ll)) return out;
+  out.theta = theta;
+  out.loglik = ll;
+  const double inv_n = 1.0 / kernel->nobs();
+  Eigen::VectorXd gf(nf), step(nf);
+  Eigen::MatrixXd neg_h(nf, nf);
+  bool crossed = false;  // the previous step crossed a bound
+  for (int it = 0;; ++it) {
+    double gmax = 0;
+    for (int a = 0; a < nf; ++a) gmax = std::max(gmax, std::fabs(g[prob.free_idx[a]]) * inv_n);
+    if (gmax <= gtol) {
+      out.converged = true;
+      return out;
+    }
+    if (it == max_iterations) return out;
+    for (int a = 0; a < nf; ++a) {
+      gf[a] = g[prob.free_idx[a]];
+      for (int b = 0; b < nf; ++b) {
+        neg_h(a, b) = -h[static_cast<size_t>(prob.free_idx[a]) * K + prob.free_idx[b]];
+      }
+    }
+    Eigen::LLT<Eigen::MatrixXd> llt(neg_h);
+    bool damped_step = false;
+    for (double tau = 1e-4; llt.info() != Eigen::Success; tau *= 10) {
+      if (tau > 1e4) return out;
+      damped_step = true;
+      Eigen::MatrixXd damped = neg_h;
+      for (int a = 0; a < nf; ++a) {
+        damped(a, a) += tau * std::max(std::fabs(neg_h(a, a)), 1e-8 * kernel->nobs());
+      }
+      llt.compute(damped);
+    }
+    step = llt.solve(gf);
+    const double gain = gf.dot(step);  // predicted rise x 2, > 0
+    if (!(gain > 0) || !std::isfinite(gain)) return out;
+    // Undamped steps that cross a bound twice running: the maximum is
+    // probably on it.
+    bool crosses = false;
+    for (int a = 0; a < nf && !damped_step; ++a) {
+      const double x = theta[prob.free_idx[a]] + step[a];
+      crosses = crosses || !(x > lb[a] && x < ub[a]);
+    }
+    if (crosses && crossed) return out;
+    crossed = crosses;
+    bool accepted = false;
+    double t = 1.0;
+    for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
+      trial = theta;
+      bool inside = true;
+      for (int a = 0; a < nf; ++a) {
+        const double x = theta[prob.free_idx[a]] + t * step[a];
+        inside = inside && x > lb[a] && x < ub[a];
+        trial[prob.free_idx[a]] = x;
+      }
+      if (!inside || !persistence_ok(trial)) continue;
+      const double ll_try =
+          kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
+      ++out.evals;
+      // Round-off slack: near the optimum the rise is below the sum's precision.
+      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
+        accepted = true;
+        theta.swap(trial);
+        g.swap(g_try);
+        h.swap(h_try);
+        ll = ll_try;
+      }
+    }
+    if (!accepted) return out;
+    ++out.iterations;
+    out.theta = theta;
+    out.loglik = ll;
+  }
+}
+
+// Newton's method from a warm start where the kernel has no analytic Hessian
+// (an ARMA mean with its variance, the joint fit after a two-step one): the
+// Hessian by forward differences of the analytic gradient (one gradient pass
+// per free parameter), kept while the steps converge fast (a chord method:
+// from a start near the optimum the gradient then shrinks by orders of
+// magnitude per step) and computed again, at most twice, where they do not.
+// Steps are halved until the point is strictly inside the bounds and the
+// persistence cap and the log-likelihood rises by an Armijo fraction of the
+// predicted gain; converged when the largest free gradient component per
+// observation is <= gtol. Gives up (converged = false) when a full step crosses
+// a bound (the maximum is probably on it), -H_ff is not positive definite, no
+// step is accepted or the iterations run out: SLSQP then runs from the start.
+NewtonOutcome RefineByDifferenceNewton(internal::LikelihoodKernel* kernel, const Problem& prob,
+                                       const std::vector<double>& lb, const std::vector<double>& ub,
+                                       std::vector<double> theta, int max_iterations, double gtol) {
+  NewtonOutcome out;
+  const int K = kernel->num_params();
+  const int nf = static_cast<int>(prob.free_idx.size());
+  auto inside = [&](const std::vector<double>& th) {
+    for (int a = 0; a < nf; ++a) {
+      const double x = th[prob.free_idx[a]];
+      if (!(x > lb[a] && x < ub[a])) return false;
+    }
+    double pers = 0;
+    for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
+      pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
+    }
+    return pers <= kOptimizerMaxPersistence;
+  };
+  if (nf == 0 || !inside(theta)) return out;
+  std::vector<double> g(K), g_try(K), g_h(K), trial;
+  double ll = kernel->Evaluate(theta.data(), g.data(), nullptr);
+  ++out.evals;
+  if (!std::isfinite(ll)) return out;
+  out.theta = theta;
+  out.loglik = ll;
+  const double inv_n = 1.0 / kernel->nobs();
+  auto gradient_max = [&](const std::vector<double>& grad) {
+    double m = 0;
+    for (int a = 0; a < nf; ++a) m = std::max(m, std::fabs(grad[prob.free_idx[a]]) * inv_n);
+    return m;
+  };
+  Eigen::MatrixXd neg_h(nf, nf);
+  Eigen::LLT<Eigen::MatrixXd> llt;
+  Eigen::VectorXd gf(nf), step(nf);
+  // -H_ff at theta by forward differences of the gradient; false where a
+  // shifted point is infeasible or -H_ff is not positive definite.
+  auto difference_hessian = [&]() {
+    for (int b = 0; b < nf; ++b) {
+      const int ib = prob.free_idx[b];
+      trial = theta;
+      const double h = 1e-6 * std::max(std::fabs(theta[ib]), 0.05);
+      trial[ib] += h;
+      const double lh = kernel->Evaluate(trial.data(), g_h.data(), nullptr);
+      ++out.evals;
+      if (!std::isfinite(lh)) return false;
+      for (int a = 0; a < nf; ++a) neg_h(a, b) = -(g_h[prob.free_idx[a]] - g[prob.free_idx[a]]) / h;
+    }
+    neg_h = 0.5 * (neg_h + neg_h.transpose()).eval();
+    llt.compute(neg_h);
+    return llt.info() == Eigen::Success;
+  };
+  if (!difference_hessian()) return out;
+  int hessians_left = 2;
+  double gmax = gradient_max(g);
+  for (int it = 0;; ++it) {
+    if (gmax <= gtol) {
+      out.converged = true;
+      return out;
+    }
+    if (it == max_iterations) return out;
+    for (int a = 0; a < nf; ++a) gf[a] = g[prob.free_idx[a]];
+    step = llt.solve(gf);
+    const double gain = gf.dot(step);
+    if (!(gain > 0) || !std::isfinite(gain)) return out;
+    trial = theta;
+    for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += step[a];
+    if (!inside(trial)) return out;
+    bool accepted = false;
+    double t = 1.0, t_accepted = 0.0;
+    for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
+      trial = theta;
+      for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += t * step[a];
+      if (!inside(trial)) continue;
+      const double ll_try = kernel->Evaluate(trial.data(), g_try.data(), nullptr);
+      ++out.evals;
+      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
+        accepted = true;
+        t_accepted = t;
+        theta.swap(trial);
+        g.swap(g_try);
+        ll = ll_try;
+      }
+    }
+    if (!accepted) return out;
+    ++out.iterations;
+    out.theta = theta;
+    out.loglik = ll;
+    const double gmax_new = gradient_max(g);
+    const bool fast = t_accepted == 1.0 && gmax_new <= 0.1 * gmax;
+    gmax = gmax_new;
+    if (!fast && gmax > gtol) {
+      if (hessians_left-- == 0 || !difference_hessian()) return out;
     }
   }
 }
@@ -297,20 +523,30 @@ std::vector<std::vector<double>> GridStarts(const ModelSpec& spec, double mean_y
 }  // namespace
 
 absl::Status ValidateReturns(absl::Span<const double> returns, int min_obs) {
-  for (size_t i = 0; i < returns.size(); ++i) {
-    if (!std::isfinite(returns[i])) {
-      return absl::InvalidArgumentError(
-          absl::StrCat("observation ", i + 1, " is not a finite number (", returns[i], ")"));
+  // One sweep without early exits for the common case (every value finite;
+  // x - x is 0 exactly for finite x, NaN otherwise); the first bad index is
+  // searched only when there is one.
+  double lo = std::numeric_limits<double>::infinity(), hi = -lo, bad = 0.0;
+  for (double x : returns) {
+    bad += x - x;
+    lo = x < lo ? x : lo;
+    hi = x > hi ? x : hi;
+  }
+  if (bad != 0.0) {
+    for (size_t i = 0; i < returns.size(); ++i) {
+      if (!std::isfinite(returns[i])) {
+        return absl::InvalidArgumentError(
+            absl::StrCat("observation ", i + 1, " is not a finite number (", returns[i], ")"));
+      }
     }
   }
   if (static_cast<int>(returns.size()) < min_obs) {
     return absl::InvalidArgumentError(absl::StrCat("too few observations: ", returns.size(),
                                                    " given, at least ", min_obs, " needed"));
   }
-  const auto [lo, hi] = std::minmax_element(returns.begin(), returns.end());
-  if (*lo == *hi) {
+  if (lo == hi) {
     return absl::InvalidArgumentError(
-        absl::StrCat("the series is constant (all ", returns.size(), " values equal ", *lo,
+        absl::StrCat("the series is constant (all ", returns.size(), " values equal ", lo,
                      "): its variance cannot be modelled"));
   }
   return absl::OkStatus();
@@ -420,7 +656,7 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   if (spec.mean != MeanKind::kZero) d[0] = c;
   if (spec.variance != VarianceKind::kEwma) d[v0] = c * c;
 
-  internal::LikelihoodKernel kernel(spec, y, options.presample);
+  internal::LikelihoodKernel kernel(spec, std::move(y), options.presample);
   Problem prob;
   prob.kernel = &kernel;
   prob.full.assign(K, 0.0);
@@ -467,8 +703,25 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   struct Attempt { std::vector<double> theta; std::string label; };
   auto grid_attempts = [&]() {
     std::vector<std::pair<double, int>> ranked;
+    // The grid points share the mean parameters: on the order-one path their
+    // value passes run interleaved over one residual sweep (not on the
+    // general orders, which have a Hessian but no batched pass).
+    std::vector<double> lls(grid.size());
+    bool shared_mean = kernel.is_order_one();
+    for (const auto& g : grid) {
+      for (int i = 0; i < v0 && shared_mean; ++i) shared_mean = g[i] == grid[0][i];
+    }
+    if (shared_mean) {
+      std::vector<const double*> points;
+      for (const auto& g : grid) points.push_back(g.data());
+      kernel.EvaluateBatch(points.data(), static_cast<int>(points.size()), lls.data());
+    } else {
+      for (size_t s = 0; s < grid.size(); ++s) {
+        lls[s] = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+      }
+    }
     for (size_t s = 0; s < grid.size(); ++s) {
-      const double ll = kernel.Evaluate(grid[s].data(), nullptr, nullptr);
+      const double ll = lls[s];
       ++prob.evals;
       ranked.push_back({std::isfinite(ll) ? -ll : std::numeric_limits<double>::infinity(),
                         static_cast<int>(s)});
@@ -506,8 +759,12 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   // Newton steps away; SLSQP remains the fallback.
   double newton_loglik = std::numeric_limits<double>::quiet_NaN();
   if (k_free > 0 && options.newton_iterations > 0 && kernel.has_hessian()) {
-    NewtonOutcome nw = RefineByNewton(&kernel, prob, lb, ub, attempts[0].theta,
-                                      options.newton_iterations, options.newton_gradient_tol);
+    NewtonOutcome nw =
+        kernel.is_order_one()
+            ? RefineByNewton(&kernel, prob, lb, ub, attempts[0].theta, options.newton_iterations,
+                             options.newton_gradient_tol)
+            : RefineInsideBounds(&kernel, prob, lb, ub, attempts[0].theta,
+                                 options.newton_iterations, options.newton_gradient_tol);
     prob.evals += nw.evals;
     if (nw.converged) {
       best.x = to_free(nw.theta);
@@ -523,6 +780,27 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
     // Otherwise SLSQP starts from the same point as without Newton steps: on a
     // flat likelihood with several maxima, Newton's last point may lie in the
     // basin of a worse one.
+  }
+  // Without an analytic Hessian (an ARMA mean), Newton steps with a Hessian by
+  // differences from a warm start, SLSQP again the fallback.
+  if (k_free > 0 && options.newton_iterations > 0 && !kernel.has_hessian() && warm && !converged &&
+      spec.variance != VarianceKind::kEwma) {
+    NewtonOutcome nw =
+        RefineByDifferenceNewton(&kernel, prob, lb, ub, attempts[0].theta,
+                                 options.newton_iterations, options.newton_gradient_tol);
+    prob.evals += nw.evals;
+    if (nw.converged) {
+      best.x = to_free(nw.theta);
+      best.objective = -nw.loglik / kernel.nobs();
+      best.code = NLOPT_SUCCESS;
+      best_label = attempts[0].label;
+      converged = true;
+      message =
+          absl::StrCat("Newton converged in ", nw.iterations, " steps (Hessian by differences)");
+      newton_loglik = nw.loglik;
+      prob.full = nw.theta;
+      attempts.clear();
+    }
   }
   for (size_t a = 0; a < attempts.size(); ++a) {
     const Attempt att = attempts[a];

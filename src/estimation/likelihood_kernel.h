@@ -25,14 +25,28 @@ class LikelihoodKernel {
   double Evaluate(const double* theta, double* grad, double* scores);
 
   // True when EvaluateHessian() applies: a zero or constant mean with
-  // GARCH(1,1) or GJR-GARCH(1,1) variance (the order-one fast path).
-  bool has_hessian() const { return order_one_; }
+  // GARCH(1,1) or GJR-GARCH(1,1) variance (the order-one fast path), or a zero
+  // mean with ARCH, GARCH or GJR-GARCH variance of any order (the variance part
+  // of a two-step fit).
+  bool has_hessian() const { return order_one_ || zero_mean_general_; }
+  // True for the order-one fast path (has_hessian() without the general orders).
+  bool is_order_one() const { return order_one_; }
 
   // Log-likelihood, gradient (K) and analytic Hessian (K x K, row-major) at
   // theta, from second-derivative recursions of the variance; scores as in
   // Evaluate() when not null. REQUIRES: has_hessian(), grad and hess not null.
   // Returns -inf (grad and hess zeroed) where Evaluate() does.
   double EvaluateHessian(const double* theta, double* grad, double* hess, double* scores);
+
+  // Log-likelihoods of m points that share the mean parameters (equal values
+  // before spec().VarianceOffset()): out[j] is Evaluate(thetas[j], nullptr,
+  // nullptr) to the bit, -inf where a variance is not positive and finite.
+  // The residuals are computed once and the points' recursions run
+  // interleaved, kBatch at a time where is_order_one(); other kernels evaluate
+  // the points one by one (sigma2() then holds the last point's). Where
+  // is_order_one(), sigma2() is not updated.
+  static constexpr int kBatch = 5;
+  void EvaluateBatch(const double* const* thetas, int m, double* out);
 
   int nobs() const { return n_; }
   int num_params() const { return k_; }
@@ -51,8 +65,31 @@ class LikelihoodKernel {
   // kLevel: 0 value, 1 value and gradient, 2 value, gradient and Hessian.
   template <bool kMu, bool kGjr, bool kStudent, int kLevel>
   double OrderOne(const double* theta, double* grad, double* scores, double* hess);
+  // The same without per-term scores, by reverse accumulation (forward sweep
+  // for sigma2 and the per-term derivatives, backward sweep for the sums):
+  // the value to the bit of OrderOne(), gradient and Hessian to round-off.
+  template <bool kMu, bool kGjr, bool kStudent, int kLevel>
+  double OrderOneAdjoint(const double* theta, double* grad, double* hess);
+  template <bool kMu, bool kGjr, bool kStudent>
+  void OrderOneBatch(const double* const* thetas, double* out);
+  // Residuals r - mu and the presample variance of the order-one passes;
+  // mu_grad: also d s2 / d mu.
+  void OrderOneResiduals(double mu, bool mu_grad);
   double EvaluateOrderOne(const double* theta, double* grad, double* scores, double* hess);
+  // Zero mean with ARCH/GARCH/GJR variance of any order: the residuals are the
+  // returns, so the first and second derivatives of sigma2 follow from the
+  // variance recursion alone (second derivatives are non-zero only through the
+  // beta terms). Gradient (and Hessian when hess != nullptr); grad not null.
+  // KV > 0: the number of variance parameters at compile time (0: at run
+  // time); NB >= 0 likewise the number of beta lags.
+  template <bool kStudent, int KV, int NB>
+  double ZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
+  double EvaluateZeroMeanGeneral(const double* theta, double* grad, double* scores, double* hess);
   void Presample(bool with_grad);
+  // d eps_k / d (mean parameter c): -1 on the order-one path (no rows kept).
+  double MeanDerivative(int k, int c) const {
+    return deps_.empty() ? -1.0 : deps_[static_cast<size_t>(k) * nm_ + c];
+  }
 
   const ModelSpec spec_;
   const std::vector<double> r_;
@@ -62,6 +99,7 @@ class LikelihoodKernel {
   const int k_;   // parameters
   const int nm_;  // mean parameters
   const bool order_one_;  // EvaluateOrderOne applies
+  const bool zero_mean_general_;  // ZeroMeanGeneral applies (and order_one_ does not)
 
   std::vector<double> eps_;    // n
   std::vector<double> sig2_;   // n
@@ -69,6 +107,16 @@ class LikelihoodKernel {
   std::vector<double> dsig2_;  // n x k: d sigma2_t / d params
   std::vector<double> ds2_;    // nm: d s2 / d mean params
   std::vector<double> work_;   // k
+  // ZeroMeanGeneral workspaces (kv = variance parameters, nb = beta lags,
+  // pad = largest lag):
+  std::vector<double> zdv_;   // (nb + 1) x kv: d sigma2 of this and the nb previous terms
+  std::vector<double> zd2v_;  // (nb + 1) x nb x kv: their second derivatives, beta rows
+  std::vector<double> zhb_;   // nb x kv: Hessian accumulator of the beta rows' l_v d2 sigma2
+  std::vector<double> zh_;    // (kv + 1) x (kv + 1): Hessian accumulator
+  std::vector<double> ze2_;   // pad + n: s2 (presample), then eps_k^2
+  std::vector<double> zne2_;  // pad + n: s2 / 2, then eps_k^2 where eps_k < 0, else 0
+  std::vector<double> zv_;    // pad + n: s2, then sigma2_k
+  int zpad_ = 0;
   std::vector<int> order_;     // min(n, kRobustStartSpan): sort workspace of the presample
   std::vector<double> weight_;  // min(n, kRobustStartSpan): presample weights 2^(-j / half-life)
   double s2_ = 0;

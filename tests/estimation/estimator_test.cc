@@ -10,6 +10,7 @@
 
 #include "aftershock/likelihood.h"
 #include "aftershock/series_file.h"
+#include "aftershock/simulate.h"
 #include "estimation/test_series.h"
 #include "support/test_support.h"
 
@@ -259,6 +260,94 @@ TEST_CASE("Newton steps from a warm start reach the SLSQP optimum", "[estimator]
     const std::vector<double> window(r.begin() + 50, r.begin() + 2050);
     CheckSameOptimum(FitBothWays(*spec, window, prev->params, c.pre));
   }
+}
+
+TEST_CASE("Newton steps on the general orders and with an ARMA mean reach the SLSQP optimum",
+          "[estimator][newton]") {
+  // Zero-mean ARCH/GARCH of orders above one (the variance part of a two-step
+  // fit: analytic Hessian), and ARMA means or a constant variance (Hessian by
+  // differences of the gradient), refitted from the fit 50 bars earlier.
+  struct Case {
+    const char* mean;
+    std::vector<int> mean_order;
+    const char* variance;
+    VarianceLags orders;
+    const char* law;
+    double nu;
+    unsigned seed;
+  };
+  const std::vector<Case> cases = {
+      {"zero", {}, "arch", {3}, "gaussian", 0, 21},
+      {"zero", {}, "arch", {5}, "student", 6, 22},
+      {"arma", {1, 0}, "garch", {1, 1}, "gaussian", 0, 24},
+      {"arma", {1, 1}, "gjr", {1, 1, 1}, "student", 7, 25},
+      {"constant", {}, "flat", {}, "student", 5, 26},
+  };
+  for (const Case& c : cases) {
+    auto spec = MakeModelSpec(c.mean, c.mean_order, c.variance, c.orders, c.law);
+    REQUIRE(spec.ok());
+    const std::vector<double> r = testing::TestGarchSeries(2100, c.seed, c.nu);
+    FitOptions o;
+    auto prev = FitModel(*spec, std::vector<double>(r.begin(), r.begin() + 2000), o);
+    REQUIRE(prev.ok());
+    REQUIRE(prev->converged);
+    const std::vector<double> window(r.begin() + 50, r.begin() + 2050);
+    CheckSameOptimum(FitBothWays(*spec, window, prev->params, Presample::kMeanSquare));
+  }
+  // GARCH(2,1) and GJR-GARCH(2,2,1) on data simulated from them: maxima inside the box.
+  struct Simulated {
+    VarianceKind kind;
+    std::vector<std::pair<std::string, double>> values;
+  };
+  const std::vector<Simulated> simulated = {
+      {VarianceKind::kGarch,
+       {{"omega", 0.05}, {"alpha_1", 0.05}, {"alpha_2", 0.1}, {"beta_1", 0.8}}},
+      {VarianceKind::kGjr,
+       {{"omega", 0.05},
+        {"alpha_1", 0.04},
+        {"alpha_2", 0.05},
+        {"gamma_1", 0.06},
+        {"gamma_2", 0.04},
+        {"beta_1", 0.8}}},
+  };
+  for (const Simulated& c : simulated) {
+    auto spec = MakeModelSpec("zero", {}, c.kind == VarianceKind::kGarch ? "garch" : "gjr", {2, 1},
+                              "gaussian");
+    REQUIRE(spec.ok());
+    auto truth = ModelParams::FromNamed(*spec, c.values);
+    REQUIRE(truth.ok());
+    SimulationOptions so;
+    so.n = 2100;
+    so.seed = 27;
+    auto sim = Simulate(*truth, so);
+    REQUIRE(sim.ok());
+    const std::vector<double>& r = sim->returns;
+    auto prev = FitModel(*spec, std::vector<double>(r.begin(), r.begin() + 2000));
+    REQUIRE(prev.ok());
+    REQUIRE(prev->converged);
+    const std::vector<double> window(r.begin() + 50, r.begin() + 2050);
+    CheckSameOptimum(FitBothWays(*spec, window, prev->params, Presample::kMeanSquare));
+  }
+}
+
+TEST_CASE("a general-order fit whose maximum is on a bound is SLSQP's from the same start",
+          "[estimator][newton]") {
+  // GARCH(1,2) on GARCH(1,1) data: the second beta's maximum is at its bound 0,
+  // where the Newton steps stop (a likelihood with a bound active can have a
+  // second maximum inside the box; SLSQP's search decides as before).
+  const std::vector<double> r = testing::TestGarchSeries(2000, 3);
+  auto spec = MakeModelSpec("zero", {}, "garch", {1, 2}, "gaussian");
+  REQUIRE(spec.ok());
+  const ModelParams start{*spec, {0.05, 0.08, 0.45, 0.45}};
+  const NewtonPair p = FitBothWays(*spec, r, start, Presample::kMeanSquare);
+  INFO("with Newton first: " << p.newton.optimizer_message << ", " << p.newton.iterations
+                             << " evaluations; SLSQP alone: " << p.slsqp.optimizer_message << ", "
+                             << p.slsqp.iterations);
+  REQUIRE(p.newton.converged);
+  CHECK(p.newton.params.values[3] < 1e-6);  // beta_2 at its bound
+  CHECK(p.newton.optimizer_message.rfind("Newton converged", 0) != 0);
+  CHECK(p.newton.loglik == p.slsqp.loglik);
+  CHECK(p.newton.params.values == p.slsqp.params.values);
 }
 
 TEST_CASE("Newton steps reach the DEM/GBP benchmark from the previous year's estimates",

@@ -1,7 +1,9 @@
 #include "estimation/likelihood_kernel.h"
 
 #include <catch2/catch.hpp>
+#include <algorithm>
 #include <cmath>
+#include <limits>
 #include <string>
 #include <vector>
 
@@ -43,11 +45,32 @@ std::vector<Case> OrderOneCases() {
   };
 }
 
+// Zero-mean models of general order: the variance part of a two-step fit.
+std::vector<Case> GeneralOrderCases() {
+  return {
+      {"zero", "arch", {1}, "gaussian", {0.5, 0.3}},
+      {"zero", "arch", {3}, "student", {0.4, 0.2, 0.1, 0.1, 6.0}},
+      {"zero", "arch", {5}, "gaussian", {0.3, 0.15, 0.1, 0.1, 0.05, 0.05}},
+      {"zero", "garch", {1, 2}, "gaussian", {0.06, 0.09, 0.5, 0.35}},
+      {"zero", "garch", {1, 2}, "student", {0.06, 0.09, 0.5, 0.35, 7.5}},
+      {"zero", "garch", {2, 1}, "gaussian", {0.06, 0.05, 0.04, 0.85}},
+      {"zero", "garch", {2, 3}, "student", {0.05, 0.05, 0.03, 0.4, 0.25, 0.2, 8.0}},
+      {"zero", "gjr", {2, 2, 1}, "gaussian", {0.05, 0.04, 0.02, 0.06, 0.5, 0.33}},
+      {"zero", "gjr", {1, 2, 2}, "student", {0.05, 0.04, 0.05, 0.02, 0.5, 0.35, 6.5}},
+  };
+}
+
+std::vector<Case> HessianCases() {
+  std::vector<Case> all = OrderOneCases();
+  for (Case& c : GeneralOrderCases()) all.push_back(std::move(c));
+  return all;
+}
+
 TEST_CASE("the analytic Hessian matches central differences of the gradient",
           "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(1500, 17, 6.0));
   for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
-    for (const Case& c : OrderOneCases()) {
+    for (const Case& c : HessianCases()) {
       auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
       REQUIRE(spec.ok());
       LikelihoodKernel kernel(*spec, r, pre);
@@ -96,7 +119,7 @@ TEST_CASE("the analytic Hessian matches central differences of the gradient",
 TEST_CASE("the Hessian pass returns the per-observation scores of the gradient pass",
           "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(800, 4, 5.0));
-  for (const Case& c : OrderOneCases()) {
+  for (const Case& c : HessianCases()) {
     auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
     REQUIRE(spec.ok());
     LikelihoodKernel kernel(*spec, r, Presample::kMeanSquare);
@@ -119,6 +142,120 @@ TEST_CASE("the Hessian pass returns the per-observation scores of the gradient p
   }
 }
 
+// Without per-term scores the passes sum the derivatives by reverse
+// accumulation (a backward sweep); with scores they run the forward
+// derivative recursions. Both give the same value, gradient and Hessian up to
+// the order of the sums.
+TEST_CASE("the reverse-accumulation passes agree with the forward recursions",
+          "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(1201, 23, 5.0));
+  for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
+    for (const Case& c : OrderOneCases()) {
+      auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+      REQUIRE(spec.ok());
+      LikelihoodKernel kernel(*spec, r, pre);
+      const int k = kernel.num_params();
+      const size_t cells = static_cast<size_t>(kernel.nobs()) * k;
+      std::vector<double> g(k), h(static_cast<size_t>(k) * k), gf(k), hf(h.size()), scores(cells);
+      INFO(spec->Label() << " presample " << static_cast<int>(pre));
+      const double ll = kernel.EvaluateHessian(c.theta.data(), g.data(), h.data(), nullptr);
+      const double llf = kernel.EvaluateHessian(c.theta.data(), gf.data(), hf.data(), scores.data());
+      CHECK(ll == Approx(llf).epsilon(1e-14));
+      for (int a = 0; a < k; ++a) {
+        INFO("d/d" << spec->ParamNames()[a]);
+        CHECK(g[a] == Approx(gf[a]).epsilon(1e-11).margin(1e-9));
+      }
+      for (size_t i = 0; i < h.size(); ++i) {
+        INFO("Hessian cell " << i);
+        CHECK(h[i] == Approx(hf[i]).epsilon(1e-11).margin(1e-8));
+      }
+      // The gradient pass: same value to the bit as the Hessian pass, and the
+      // same gradient (both sum it in the backward sweep).
+      std::vector<double> g1(k), g1f(k);
+      CHECK(kernel.Evaluate(c.theta.data(), g1.data(), nullptr) == ll);
+      CHECK(kernel.Evaluate(c.theta.data(), nullptr, nullptr) == ll);
+      for (int a = 0; a < k; ++a) CHECK(g1[a] == g[a]);
+      const double ll1f = kernel.Evaluate(c.theta.data(), g1f.data(), scores.data());
+      CHECK(ll1f == Approx(ll).epsilon(1e-14));
+      for (int a = 0; a < k; ++a) CHECK(g1f[a] == Approx(g1[a]).epsilon(1e-11).margin(1e-9));
+    }
+  }
+}
+
+TEST_CASE("a batch of points gives each point's value pass to the bit", "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(999, 31, 6.0));
+  for (const Case& c : OrderOneCases()) {
+    auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+    REQUIRE(spec.ok());
+    INFO(spec->Label());
+    LikelihoodKernel kernel(*spec, r, Presample::kRobustStart);
+    const int v0 = spec->VarianceOffset();
+    // Seven points (a full group and a short one) sharing the mean; the
+    // fourth has a negative omega and alpha, so its variance turns negative.
+    std::vector<std::vector<double>> points;
+    for (int j = 0; j < 7; ++j) {
+      std::vector<double> th = c.theta;
+      th[v0] *= 1.0 + 0.2 * j;
+      th[v0 + 1] *= 1.0 - 0.1 * j;
+      if (j == 3) th[v0] = th[v0 + 1] = -0.5;
+      points.push_back(th);
+    }
+    std::vector<const double*> ptr;
+    for (const auto& th : points) ptr.push_back(th.data());
+    std::vector<double> out(points.size());
+    kernel.EvaluateBatch(ptr.data(), static_cast<int>(ptr.size()), out.data());
+    for (size_t j = 0; j < points.size(); ++j) {
+      INFO("point " << j);
+      const double single = kernel.Evaluate(points[j].data(), nullptr, nullptr);
+      CHECK(out[j] == single);
+      if (j == 3) {
+        CHECK(std::isinf(out[j]));
+        CHECK(out[j] < 0);
+      } else {
+        CHECK(std::isfinite(out[j]));
+      }
+    }
+  }
+}
+
+TEST_CASE("a batch on the general orders gives each point's value pass", "[likelihood_kernel]") {
+  // Zero-mean general orders have a Hessian but no batched pass: the points
+  // must not go through the order-one batch (whose parameter layout differs).
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(700, 5, 6.0));
+  struct General {
+    const char* variance;
+    VarianceLags orders;
+    std::vector<double> theta;
+  };
+  const std::vector<General> cases = {
+      {"arch", {1}, {0.6, 0.3}},
+      {"garch", {2, 1}, {0.06, 0.05, 0.04, 0.85}},
+      {"gjr", {2, 2, 1}, {0.05, 0.04, 0.02, 0.06, 0.5, 0.33}},
+  };
+  for (const General& c : cases) {
+    auto spec = MakeModelSpec("zero", {}, c.variance, c.orders, "gaussian");
+    REQUIRE(spec.ok());
+    INFO(spec->Label());
+    LikelihoodKernel kernel(*spec, r, Presample::kMeanSquare);
+    REQUIRE_FALSE(kernel.is_order_one());
+    std::vector<std::vector<double>> points;
+    for (int j = 0; j < 6; ++j) {
+      std::vector<double> th = c.theta;
+      th[0] *= 1.0 + 0.25 * j;
+      points.push_back(th);
+    }
+    std::vector<const double*> ptr;
+    for (const auto& th : points) ptr.push_back(th.data());
+    std::vector<double> out(points.size());
+    kernel.EvaluateBatch(ptr.data(), static_cast<int>(ptr.size()), out.data());
+    for (size_t j = 0; j < points.size(); ++j) {
+      INFO("point " << j);
+      CHECK(std::isfinite(out[j]));
+      CHECK(out[j] == kernel.Evaluate(points[j].data(), nullptr, nullptr));
+    }
+  }
+}
+
 TEST_CASE("the Hessian pass reports an infeasible point like the value pass",
           "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(300, 2));
@@ -132,16 +269,63 @@ TEST_CASE("the Hessian pass reports an infeasible point like the value pass",
   CHECK(ll < 0);
   for (double v : g) CHECK(v == 0.0);
   for (double v : h) CHECK(v == 0.0);
+  // Variances so large that a product of them overflows: infeasible too.
+  const std::vector<double> huge = {0.0, 1e200, 0.1, 0.8};
+  std::fill(g.begin(), g.end(), 1.0);
+  CHECK(kernel.Evaluate(huge.data(), nullptr, nullptr) ==
+        -std::numeric_limits<double>::infinity());
+  CHECK(kernel.Evaluate(huge.data(), g.data(), nullptr) ==
+        -std::numeric_limits<double>::infinity());
+  for (double v : g) CHECK(v == 0.0);
 }
 
-TEST_CASE("only the order-one models have an analytic Hessian", "[likelihood_kernel]") {
+TEST_CASE("the order-one models and zero-mean models of any order have an analytic Hessian",
+          "[likelihood_kernel]") {
   const std::vector<double> r = Scaled(testing::TestGarchSeries(300, 3));
   auto arma = MakeModelSpec("arma", {1, 0}, "garch", {1, 1}, "gaussian");
   auto g21 = MakeModelSpec("constant", {}, "garch", {2, 1}, "gaussian");
+  auto ewma = MakeModelSpec("zero", {}, "ewma", {}, "gaussian");
+  auto zero21 = MakeModelSpec("zero", {}, "garch", {2, 1}, "gaussian");
+  auto zero11 = MakeModelSpec("zero", {}, "garch", {1, 1}, "gaussian");
   REQUIRE(arma.ok());
   REQUIRE(g21.ok());
+  REQUIRE(ewma.ok());
+  REQUIRE(zero21.ok());
+  REQUIRE(zero11.ok());
   CHECK_FALSE(LikelihoodKernel(*arma, r, Presample::kMeanSquare).has_hessian());
   CHECK_FALSE(LikelihoodKernel(*g21, r, Presample::kMeanSquare).has_hessian());
+  CHECK_FALSE(LikelihoodKernel(*ewma, r, Presample::kMeanSquare).has_hessian());
+  const LikelihoodKernel general(*zero21, r, Presample::kMeanSquare);
+  CHECK(general.has_hessian());
+  CHECK_FALSE(general.is_order_one());
+  CHECK(LikelihoodKernel(*zero11, r, Presample::kMeanSquare).is_order_one());
+}
+
+TEST_CASE(
+    "the general-order gradient pass agrees with the value pass and reports infeasible "
+    "points",
+    "[likelihood_kernel]") {
+  const std::vector<double> r = Scaled(testing::TestGarchSeries(600, 12, 6.0));
+  for (const Case& c : GeneralOrderCases()) {
+    auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+    REQUIRE(spec.ok());
+    INFO(spec->Label());
+    LikelihoodKernel kernel(*spec, r, Presample::kRobustStart);
+    const int k = kernel.num_params();
+    std::vector<double> g(k, 1.0), h(static_cast<size_t>(k) * k, 1.0);
+    const double ll_value = kernel.Evaluate(c.theta.data(), nullptr, nullptr);
+    const std::vector<double> sig_value = kernel.sigma2();
+    const double ll_grad = kernel.Evaluate(c.theta.data(), g.data(), nullptr);
+    CHECK(ll_grad == Approx(ll_value).epsilon(1e-14));
+    CHECK(kernel.sigma2() == sig_value);
+    std::vector<double> bad = c.theta;
+    bad[0] = -50.0;  // omega far below zero: a negative variance
+    const double ll_bad = kernel.EvaluateHessian(bad.data(), g.data(), h.data(), nullptr);
+    CHECK(std::isinf(ll_bad));
+    CHECK(ll_bad < 0);
+    for (double v : g) CHECK(v == 0.0);
+    for (double v : h) CHECK(v == 0.0);
+  }
 }
 
 }  // namespace
