@@ -122,6 +122,95 @@ RunOutcome RunOptimizer(nlopt_algorithm algo, Problem* prob, const std::vector<d
   return out;
 }
 
+// Shared pieces of the Newton refinements below (same arithmetic, in the same
+// order, as when each routine had its own copy).
+
+// True when every free parameter of th lies strictly inside its bounds and the
+// persistence cap holds.
+bool StrictlyFeasible(const Problem& prob, const std::vector<double>& lb,
+                      const std::vector<double>& ub, const std::vector<double>& th) {
+  const int nf = static_cast<int>(prob.free_idx.size());
+  for (int a = 0; a < nf; ++a) {
+    const double x = th[prob.free_idx[a]];
+    if (!(x > lb[a] && x < ub[a])) return false;
+  }
+  double pers = 0;
+  for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
+    pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
+  }
+  return pers <= kOptimizerMaxPersistence;
+}
+
+// The largest free gradient component, times inv_n (per observation).
+double FreeGradientMax(const Problem& prob, const std::vector<double>& grad, double inv_n) {
+  double m = 0;
+  for (size_t a = 0; a < prob.free_idx.size(); ++a) {
+    m = std::max(m, std::fabs(grad[prob.free_idx[a]]) * inv_n);
+  }
+  return m;
+}
+
+// Gathers the free gradient g_f and -H_ff from the full K-vector g and the
+// row-major K x K Hessian h.
+void GatherFree(const Problem& prob, int K, const std::vector<double>& g,
+                const std::vector<double>& h, Eigen::VectorXd& gf, Eigen::MatrixXd& neg_h) {
+  const int nf = static_cast<int>(prob.free_idx.size());
+  for (int a = 0; a < nf; ++a) {
+    gf[a] = g[prob.free_idx[a]];
+    for (int b = 0; b < nf; ++b) {
+      neg_h(a, b) = -h[static_cast<size_t>(prob.free_idx[a]) * K + prob.free_idx[b]];
+    }
+  }
+}
+
+// Cholesky factor of neg_h, its diagonal damped (Levenberg) in tenfold steps
+// from 1e-4 until it is positive definite. False when no damping up to 1e4
+// does it; *damped tells whether any was needed.
+bool DampedCholesky(const Eigen::MatrixXd& neg_h, double nobs, Eigen::LLT<Eigen::MatrixXd>& llt,
+                    bool* damped) {
+  const int nf = static_cast<int>(neg_h.rows());
+  llt.compute(neg_h);
+  *damped = false;
+  for (double tau = 1e-4; llt.info() != Eigen::Success; tau *= 10) {
+    if (tau > 1e4) return false;
+    *damped = true;
+    Eigen::MatrixXd m = neg_h;
+    for (int a = 0; a < nf; ++a) {
+      m(a, a) += tau * std::max(std::fabs(neg_h(a, a)), 1e-8 * nobs);
+    }
+    llt.compute(m);
+  }
+  return true;
+}
+
+// Armijo backtracking along step from theta: t = 1, 1/2, ... (30 tries),
+// skipping points that are not strictly feasible, until evaluate(trial), the
+// log-likelihood at trial, rises above ll by 1e-4 t gain (less a round-off
+// slack: near the optimum the rise is below the sum's precision). Returns the
+// accepted t (trial then holds the point, *ll_accepted its value), or 0 when
+// no step is accepted. Counts the evaluations in *evals.
+template <typename Evaluate>
+double ArmijoSearch(const Problem& prob, const std::vector<double>& lb,
+                    const std::vector<double>& ub, const std::vector<double>& theta,
+                    const Eigen::VectorXd& step, double gain, double ll,
+                    std::vector<double>& trial, int* evals, double* ll_accepted,
+                    Evaluate&& evaluate) {
+  const int nf = static_cast<int>(prob.free_idx.size());
+  double t = 1.0;
+  for (int ls = 0; ls < 30; ++ls, t *= 0.5) {
+    trial = theta;
+    for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += t * step[a];
+    if (!StrictlyFeasible(prob, lb, ub, trial)) continue;
+    const double ll_try = evaluate(trial);
+    ++*evals;
+    if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
+      *ll_accepted = ll_try;
+      return t;
+    }
+  }
+  return 0.0;
+}
+
 // Newton's method from a warm start on the order-one path (the kernel's
 // analytic Hessian), on the free parameters of the scaled problem:
 //   step = (-H_ff)^-1 g_f, halved until the point is strictly inside the
@@ -153,18 +242,7 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
-  auto inside = [&](const std::vector<double>& th) {
-    for (int i = 0; i < nf; ++i) {
-      const double x = th[prob.free_idx[i]];
-      if (!(x > lb[i] && x < ub[i])) return false;
-    }
-    double pers = 0;
-    for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
-      pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
-    }
-    return pers <= kOptimizerMaxPersistence;
-  };
-  if (nf == 0 || !inside(theta)) return out;
+  if (nf == 0 || !StrictlyFeasible(prob, lb, ub, theta)) return out;
   std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
       h_try(static_cast<size_t>(K) * K), trial;
   double ll = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
@@ -177,12 +255,11 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
   auto gradient_max = [&](const std::vector<double>& grad) {
-    double m = 0;
-    for (int a = 0; a < nf; ++a) m = std::max(m, std::fabs(grad[prob.free_idx[a]]) * inv_n);
-    return m;
+    return FreeGradientMax(prob, grad, inv_n);
   };
   Eigen::VectorXd gf(nf), step(nf);
   Eigen::MatrixXd neg_h(nf, nf);
+  Eigen::LLT<Eigen::MatrixXd> llt(nf);
   double gmax = gradient_max(g);
   for (int it = 0;; ++it) {
     if (gmax <= gtol) {
@@ -190,48 +267,31 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
       return out;
     }
     if (it == max_iterations) return out;
-    for (int a = 0; a < nf; ++a) {
-      gf[a] = g[prob.free_idx[a]];
-      for (int b = 0; b < nf; ++b) {
-        neg_h(a, b) = -h[static_cast<size_t>(prob.free_idx[a]) * K + prob.free_idx[b]];
-      }
-    }
+    GatherFree(prob, K, g, h, gf, neg_h);
     // Away from the maximum -H may be indefinite: damp its diagonal
     // (Levenberg) until it is positive definite, which shortens the step and
     // turns it towards the gradient.
-    Eigen::LLT<Eigen::MatrixXd> llt(neg_h);
-    for (double tau = 1e-4; llt.info() != Eigen::Success; tau *= 10) {
-      if (tau > 1e4) return out;
-      Eigen::MatrixXd damped = neg_h;
-      for (int a = 0; a < nf; ++a) {
-        damped(a, a) += tau * std::max(std::fabs(neg_h(a, a)), 1e-8 * kernel->nobs());
-      }
-      llt.compute(damped);
-    }
+    bool damped_step = false;
+    if (!DampedCholesky(neg_h, kernel->nobs(), llt, &damped_step)) return out;
     step = llt.solve(gf);
     const double gain = gf.dot(step);  // predicted rise x 2, > 0
     if (!(gain > 0) || !std::isfinite(gain)) return out;
     const bool fresh = h_current;
-    bool accepted = false;
-    double t = 1.0, t_accepted = 0.0;
-    for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
-      trial = theta;
-      for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += t * step[a];
-      if (!inside(trial)) continue;
-      const double ll_try =
-          chord ? kernel->Evaluate(trial.data(), g_try.data(), nullptr)
-                : kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
-      ++out.evals;
-      // Round-off slack: near the optimum the rise is below the sum's precision.
-      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
-        accepted = true;
-        t_accepted = t;
-        theta.swap(trial);
-        g.swap(g_try);
-        if (!chord) h.swap(h_try);
-        h_current = !chord;
-        ll = ll_try;
-      }
+    double ll_try = 0;
+    const double t_accepted =
+        ArmijoSearch(prob, lb, ub, theta, step, gain, ll, trial, &out.evals, &ll_try,
+                     [&](const std::vector<double>& x) {
+                       return chord ? kernel->Evaluate(x.data(), g_try.data(), nullptr)
+                                    : kernel->EvaluateHessian(x.data(), g_try.data(),
+                                                              h_try.data(), nullptr);
+                     });
+    const bool accepted = t_accepted > 0;
+    if (accepted) {
+      theta.swap(trial);
+      g.swap(g_try);
+      if (!chord) h.swap(h_try);
+      h_current = !chord;
+      ll = ll_try;
     }
     if (!accepted && h_current) return out;
     if (accepted) {
@@ -283,19 +343,7 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
-  auto persistence_ok = [&](const std::vector<double>& th) {
-    double pers = 0;
-    for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
-      pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
-    }
-    return pers <= kOptimizerMaxPersistence;
-  };
-  if (nf == 0) return out;
-  for (int a = 0; a < nf; ++a) {
-    const double x = theta[prob.free_idx[a]];
-    if (!(x > lb[a] && x < ub[a])) return out;
-  }
-  if (!persistence_ok(theta)) return out;
+  if (nf == 0 || !StrictlyFeasible(prob, lb, ub, theta)) return out;
   std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
       h_try(static_cast<size_t>(K) * K), trial;
   double ll = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
@@ -306,32 +354,18 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
   const double inv_n = 1.0 / kernel->nobs();
   Eigen::VectorXd gf(nf), step(nf);
   Eigen::MatrixXd neg_h(nf, nf);
+  Eigen::LLT<Eigen::MatrixXd> llt(nf);
   bool crossed = false;  // the previous step crossed a bound
   for (int it = 0;; ++it) {
-    double gmax = 0;
-    for (int a = 0; a < nf; ++a) gmax = std::max(gmax, std::fabs(g[prob.free_idx[a]]) * inv_n);
+    const double gmax = FreeGradientMax(prob, g, inv_n);
     if (gmax <= gtol) {
       out.converged = true;
       return out;
     }
     if (it == max_iterations) return out;
-    for (int a = 0; a < nf; ++a) {
-      gf[a] = g[prob.free_idx[a]];
-      for (int b = 0; b < nf; ++b) {
-        neg_h(a, b) = -h[static_cast<size_t>(prob.free_idx[a]) * K + prob.free_idx[b]];
-      }
-    }
-    Eigen::LLT<Eigen::MatrixXd> llt(neg_h);
+    GatherFree(prob, K, g, h, gf, neg_h);
     bool damped_step = false;
-    for (double tau = 1e-4; llt.info() != Eigen::Success; tau *= 10) {
-      if (tau > 1e4) return out;
-      damped_step = true;
-      Eigen::MatrixXd damped = neg_h;
-      for (int a = 0; a < nf; ++a) {
-        damped(a, a) += tau * std::max(std::fabs(neg_h(a, a)), 1e-8 * kernel->nobs());
-      }
-      llt.compute(damped);
-    }
+    if (!DampedCholesky(neg_h, kernel->nobs(), llt, &damped_step)) return out;
     step = llt.solve(gf);
     const double gain = gf.dot(step);  // predicted rise x 2, > 0
     if (!(gain > 0) || !std::isfinite(gain)) return out;
@@ -344,30 +378,18 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
     }
     if (crosses && crossed) return out;
     crossed = crosses;
-    bool accepted = false;
-    double t = 1.0;
-    for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
-      trial = theta;
-      bool inside = true;
-      for (int a = 0; a < nf; ++a) {
-        const double x = theta[prob.free_idx[a]] + t * step[a];
-        inside = inside && x > lb[a] && x < ub[a];
-        trial[prob.free_idx[a]] = x;
-      }
-      if (!inside || !persistence_ok(trial)) continue;
-      const double ll_try =
-          kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
-      ++out.evals;
-      // Round-off slack: near the optimum the rise is below the sum's precision.
-      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
-        accepted = true;
-        theta.swap(trial);
-        g.swap(g_try);
-        h.swap(h_try);
-        ll = ll_try;
-      }
-    }
-    if (!accepted) return out;
+    double ll_try = 0;
+    const double t_accepted =
+        ArmijoSearch(prob, lb, ub, theta, step, gain, ll, trial, &out.evals, &ll_try,
+                     [&](const std::vector<double>& x) {
+                       return kernel->EvaluateHessian(x.data(), g_try.data(), h_try.data(),
+                                                      nullptr);
+                     });
+    if (!(t_accepted > 0)) return out;
+    theta.swap(trial);
+    g.swap(g_try);
+    h.swap(h_try);
+    ll = ll_try;
     ++out.iterations;
     out.theta = theta;
     out.loglik = ll;
@@ -392,18 +414,7 @@ NewtonOutcome RefineByDifferenceNewton(internal::LikelihoodKernel* kernel, const
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
-  auto inside = [&](const std::vector<double>& th) {
-    for (int a = 0; a < nf; ++a) {
-      const double x = th[prob.free_idx[a]];
-      if (!(x > lb[a] && x < ub[a])) return false;
-    }
-    double pers = 0;
-    for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
-      pers += prob.persist_coef[j] * th[prob.persist_idx[j]];
-    }
-    return pers <= kOptimizerMaxPersistence;
-  };
-  if (nf == 0 || !inside(theta)) return out;
+  if (nf == 0 || !StrictlyFeasible(prob, lb, ub, theta)) return out;
   std::vector<double> g(K), g_try(K), g_h(K), trial;
   double ll = kernel->Evaluate(theta.data(), g.data(), nullptr);
   ++out.evals;
@@ -412,9 +423,7 @@ NewtonOutcome RefineByDifferenceNewton(internal::LikelihoodKernel* kernel, const
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
   auto gradient_max = [&](const std::vector<double>& grad) {
-    double m = 0;
-    for (int a = 0; a < nf; ++a) m = std::max(m, std::fabs(grad[prob.free_idx[a]]) * inv_n);
-    return m;
+    return FreeGradientMax(prob, grad, inv_n);
   };
   Eigen::MatrixXd neg_h(nf, nf);
   Eigen::LLT<Eigen::MatrixXd> llt;
@@ -451,24 +460,17 @@ NewtonOutcome RefineByDifferenceNewton(internal::LikelihoodKernel* kernel, const
     if (!(gain > 0) || !std::isfinite(gain)) return out;
     trial = theta;
     for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += step[a];
-    if (!inside(trial)) return out;
-    bool accepted = false;
-    double t = 1.0, t_accepted = 0.0;
-    for (int ls = 0; ls < 30 && !accepted; ++ls, t *= 0.5) {
-      trial = theta;
-      for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += t * step[a];
-      if (!inside(trial)) continue;
-      const double ll_try = kernel->Evaluate(trial.data(), g_try.data(), nullptr);
-      ++out.evals;
-      if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
-        accepted = true;
-        t_accepted = t;
-        theta.swap(trial);
-        g.swap(g_try);
-        ll = ll_try;
-      }
-    }
-    if (!accepted) return out;
+    if (!StrictlyFeasible(prob, lb, ub, trial)) return out;
+    double ll_try = 0;
+    const double t_accepted =
+        ArmijoSearch(prob, lb, ub, theta, step, gain, ll, trial, &out.evals, &ll_try,
+                     [&](const std::vector<double>& x) {
+                       return kernel->Evaluate(x.data(), g_try.data(), nullptr);
+                     });
+    if (!(t_accepted > 0)) return out;
+    theta.swap(trial);
+    g.swap(g_try);
+    ll = ll_try;
     ++out.iterations;
     out.theta = theta;
     out.loglik = ll;

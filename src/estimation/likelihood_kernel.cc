@@ -224,6 +224,59 @@ void LikelihoodKernel::OrderOneResiduals(double mu, bool mu_grad) {
   }
 }
 
+// The start both order-one passes share: the parameters unpacked from theta,
+// the slots' full-vector indices, the residuals and presample variance (with
+// their mu-derivatives as kLevel asks) and the density constants. Always
+// inlined, so every field stays a compile-time-shaped local of the caller.
+template <bool kMu, bool kGjr, bool kStudent, int kLevel>
+__attribute__((always_inline)) inline LikelihoodKernel::OrderOneStart
+LikelihoodKernel::OrderOneBegin(const double* theta) {
+  constexpr bool kGrad = kLevel >= 1;
+  constexpr bool kHess = kLevel >= 2;
+  constexpr int kMuS = 0, kOm = 1, kAl = 2, kGa = 3, kBe = 4, kNu = 5;  // slots
+  OrderOneStart st;
+  const int v0 = spec_.VarianceOffset();
+  st.mu = kMu ? theta[0] : 0.0;
+  st.omega = theta[v0];
+  st.alpha = theta[v0 + 1];
+  st.gamma = kGjr ? theta[v0 + 2] : 0.0;
+  st.beta = theta[v0 + (kGjr ? 3 : 2)];
+  st.nu = kStudent ? theta[spec_.DistOffset()] : 0.0;
+  {
+    int c = 0;
+    st.index[kMuS] = kMu ? c++ : -1;
+    st.index[kOm] = c++;
+    st.index[kAl] = c++;
+    st.index[kGa] = kGjr ? c++ : -1;
+    st.index[kBe] = c++;
+    st.index[kNu] = kStudent ? c++ : -1;
+  }
+  OrderOneResiduals(st.mu, kMu && kGrad);
+  st.s2 = s2_;
+  st.ds2 = kMu && kGrad ? ds2_[0] : 0.0;  // d s2 / d mu
+  st.d2s2 = kMu && kHess ? d2s2_ : 0.0;   // d^2 s2 / d mu^2
+  // Density constants (innovations.h; NaN for an invalid nu, which makes the
+  // log-likelihood NaN and the point infeasible for the optimizer).
+  const double nu = st.nu;
+  st.const_term = kStudent ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
+  st.dconst = kStudent && kGrad ? DLogNormalizerTDnu(nu) : 0.0;
+  st.d2const = kStudent && kHess ? D2LogNormalizerTDnu2(nu) : 0.0;
+  st.nu2 = nu - 2.0;
+  st.inv_nu2 = kStudent ? 1.0 / st.nu2 : 0.0;
+  st.np1 = nu + 1.0;
+  return st;
+}
+
+// An infeasible point: zero gradient and Hessian (those kGrad/kHess ask for),
+// -inf log-likelihood.
+template <bool kGrad, bool kHess>
+__attribute__((always_inline)) inline double LikelihoodKernel::OrderOneFail(double* grad,
+                                                                            double* hess) {
+  if (kGrad) std::fill(grad, grad + k_, 0.0);
+  if (kHess) std::fill(hess, hess + static_cast<size_t>(k_) * k_, 0.0);
+  return -std::numeric_limits<double>::infinity();
+}
+
 // The order-one recursion, by template so that the value-only, gradient and
 // Hessian passes each compile to straight-line code without the terms they do
 // not need. Parameter slots: mu, omega, alpha, gamma, beta, nu (absent ones are
@@ -240,41 +293,13 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
   // Loops over slots are unrolled (pragmas) and skip absent slots at compile
   // time, so that the accumulators live in registers.
   constexpr bool kHas[6] = {kMu, true, true, kGjr, true, kStudent};
-  const int v0 = spec_.VarianceOffset();
-  const double mu = kMu ? theta[0] : 0.0;
-  const double omega = theta[v0], alpha = theta[v0 + 1];
-  const double gamma = kGjr ? theta[v0 + 2] : 0.0;
-  const double beta = theta[v0 + (kGjr ? 3 : 2)];
-  const double nu = kStudent ? theta[spec_.DistOffset()] : 0.0;
-  // Full-vector index of each slot (-1: absent).
-  int index[6];
-  {
-    int c = 0;
-    index[kMuS] = kMu ? c++ : -1;
-    index[kOm] = c++;
-    index[kAl] = c++;
-    index[kGa] = kGjr ? c++ : -1;
-    index[kBe] = c++;
-    index[kNu] = kStudent ? c++ : -1;
-  }
-  auto fail = [&]() {
-    if (kGrad) std::fill(grad, grad + k_, 0.0);
-    if (kHess) std::fill(hess, hess + static_cast<size_t>(k_) * k_, 0.0);
-    return -std::numeric_limits<double>::infinity();
-  };
-  OrderOneResiduals(mu, kMu && kGrad);
-  const double s2 = s2_;
-  const double ds2 = kMu && kGrad ? ds2_[0] : 0.0;  // d s2 / d mu
-  const double d2s2 = kMu && kHess ? d2s2_ : 0.0;   // d^2 s2 / d mu^2
-
-  // Density constants (innovations.h; NaN for an invalid nu, which makes the
-  // log-likelihood NaN and the point infeasible for the optimizer).
-  const double const_term = kStudent ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
-  const double dconst = kStudent && kGrad ? DLogNormalizerTDnu(nu) : 0.0;
-  const double d2const = kStudent && kHess ? D2LogNormalizerTDnu2(nu) : 0.0;
-  const double nu2 = nu - 2.0;
-  const double inv_nu2 = kStudent ? 1.0 / nu2 : 0.0;
-  const double np1 = nu + 1.0;
+  const OrderOneStart start = OrderOneBegin<kMu, kGjr, kStudent, kLevel>(theta);
+  const double omega = start.omega, alpha = start.alpha, gamma = start.gamma, beta = start.beta;
+  const int* const index = start.index;  // full-vector index of each slot (-1: absent)
+  const double s2 = start.s2, ds2 = start.ds2, d2s2 = start.d2s2;
+  const double const_term = start.const_term, dconst = start.dconst, d2const = start.d2const,
+               nu2 = start.nu2, inv_nu2 = start.inv_nu2, np1 = start.np1;
+  auto fail = [&]() { return OrderOneFail<kGrad, kHess>(grad, hess); };
 
   // Previous-term state: eps2, negative-part eps2, sigma2 and their mu-derivatives.
   double e2p = s2, ne2p = 0.5 * s2, vp = s2;
@@ -482,38 +507,13 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
   constexpr bool kHess = kLevel >= 2;
   constexpr int kMuS = 0, kOm = 1, kAl = 2, kGa = 3, kBe = 4, kNu = 5;  // slots
   constexpr bool kHas[6] = {kMu, true, true, kGjr, true, kStudent};
-  const int v0 = spec_.VarianceOffset();
-  const double mu = kMu ? theta[0] : 0.0;
-  const double omega = theta[v0], alpha = theta[v0 + 1];
-  const double gamma = kGjr ? theta[v0 + 2] : 0.0;
-  const double beta = theta[v0 + (kGjr ? 3 : 2)];
-  const double nu = kStudent ? theta[spec_.DistOffset()] : 0.0;
-  int index[6];
-  {
-    int c = 0;
-    index[kMuS] = kMu ? c++ : -1;
-    index[kOm] = c++;
-    index[kAl] = c++;
-    index[kGa] = kGjr ? c++ : -1;
-    index[kBe] = c++;
-    index[kNu] = kStudent ? c++ : -1;
-  }
-  auto fail = [&]() {
-    if (kGrad) std::fill(grad, grad + k_, 0.0);
-    if (kHess) std::fill(hess, hess + static_cast<size_t>(k_) * k_, 0.0);
-    return -std::numeric_limits<double>::infinity();
-  };
-  OrderOneResiduals(mu, kMu && kGrad);
-  const double s2 = s2_;
-  const double ds2 = kMu && kGrad ? ds2_[0] : 0.0;  // d s2 / d mu
-  const double d2s2 = kMu && kHess ? d2s2_ : 0.0;   // d^2 s2 / d mu^2
-
-  const double const_term = kStudent ? LogNormalizerT(nu) : -0.5 * kLogTwoPi;
-  const double dconst = kStudent && kGrad ? DLogNormalizerTDnu(nu) : 0.0;
-  const double d2const = kStudent && kHess ? D2LogNormalizerTDnu2(nu) : 0.0;
-  const double nu2 = nu - 2.0;
-  const double inv_nu2 = kStudent ? 1.0 / nu2 : 0.0;
-  const double np1 = nu + 1.0;
+  const OrderOneStart start = OrderOneBegin<kMu, kGjr, kStudent, kLevel>(theta);
+  const double omega = start.omega, alpha = start.alpha, gamma = start.gamma, beta = start.beta;
+  const int* const index = start.index;  // full-vector index of each slot (-1: absent)
+  const double s2 = start.s2, ds2 = start.ds2, d2s2 = start.d2s2;
+  const double const_term = start.const_term, dconst = start.dconst, d2const = start.d2const,
+               nu2 = start.nu2, inv_nu2 = start.inv_nu2, np1 = start.np1;
+  auto fail = [&]() { return OrderOneFail<kGrad, kHess>(grad, hess); };
 
   const double* eps = eps_.data();
   double* sig2 = sig2_.data();

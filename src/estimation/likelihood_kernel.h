@@ -70,6 +70,20 @@ class LikelihoodKernel {
   // the value to the bit of OrderOne(), gradient and Hessian to round-off.
   template <bool kMu, bool kGjr, bool kStudent, int kLevel>
   double OrderOneAdjoint(const double* theta, double* grad, double* hess);
+  // What OrderOne() and OrderOneAdjoint() start from (OrderOneBegin()).
+  struct OrderOneStart {
+    double mu, omega, alpha, gamma, beta, nu;  // absent parameters: 0
+    int index[6];  // full-vector index of slots mu, omega, alpha, gamma, beta, nu (-1: absent)
+    double s2, ds2, d2s2;  // presample variance and its first/second mu-derivatives
+    double const_term, dconst, d2const, nu2, inv_nu2, np1;  // density constants
+  };
+  // Unpacks theta, computes the residuals (OrderOneResiduals) and the density
+  // constants for the pass given by the template arguments (see OrderOne()).
+  template <bool kMu, bool kGjr, bool kStudent, int kLevel>
+  OrderOneStart OrderOneBegin(const double* theta);
+  // Zeroes grad (kGrad) and hess (kHess); returns -inf.
+  template <bool kGrad, bool kHess>
+  double OrderOneFail(double* grad, double* hess);
   template <bool kMu, bool kGjr, bool kStudent>
   void OrderOneBatch(const double* const* thetas, double* out);
   // Residuals r - mu and the presample variance of the order-one passes;
