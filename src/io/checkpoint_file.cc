@@ -157,7 +157,7 @@ absl::StatusOr<std::string> SerializeCheckpoint(
 
 namespace {
 
-// The header's checks (SerializeCheckpointInto's REQUIREs).
+// The header's checks (the serializers' REQUIREs).
 absl::Status CheckHeader(const CheckpointHeader& header, size_t sections) {
   if (header.engine_version.size() > kMaxEngineVersionBytes) {
     return absl::InvalidArgumentError(absl::StrCat("engine version '", header.engine_version,
@@ -186,6 +186,12 @@ void WriteHeader(const CheckpointHeader& header, size_t sections, StateWriter* w
   w->U32(Crc32c(w->data()));
 }
 
+// The trailer: magic and the file's whole length (the trailer included).
+void WriteTrailer(StateWriter* w) {
+  for (int i = 0; i < 8; ++i) w->U8(static_cast<uint8_t>(kTrailerMagic[i]));
+  w->U64(w->size() + sizeof(uint64_t));
+}
+
 }  // namespace
 
 absl::Status SerializeCheckpointEncoded(const CheckpointHeader& header,
@@ -207,8 +213,7 @@ absl::Status SerializeCheckpointEncoded(const CheckpointHeader& header,
                                    absl::string_view(w.data()).substr(
                                        at + kCheckpointSectionHeaderBytes, length)));
   }
-  for (int i = 0; i < 8; ++i) w.U8(static_cast<uint8_t>(kTrailerMagic[i]));
-  w.U64(w.size() + sizeof(uint64_t));
+  WriteTrailer(&w);
   *out = w.Release();
   return absl::OkStatus();
 }
@@ -216,27 +221,9 @@ absl::Status SerializeCheckpointEncoded(const CheckpointHeader& header,
 absl::Status SerializeCheckpointInto(
     const CheckpointHeader& header,
     const std::vector<std::pair<uint32_t, absl::string_view>>& sections, std::string* out) {
-  if (header.engine_version.size() > kMaxEngineVersionBytes) {
-    return absl::InvalidArgumentError(absl::StrCat("engine version '", header.engine_version,
-                                                   "' is longer than ", kMaxEngineVersionBytes,
-                                                   " bytes"));
-  }
-  if (sections.size() > static_cast<size_t>(kMaxCheckpointSections)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat(sections.size(), " sections; at most ", kMaxCheckpointSections));
-  }
+  if (absl::Status s = CheckHeader(header, sections.size()); !s.ok()) return s;
   StateWriter w(std::move(*out));
-  for (int i = 0; i < 8; ++i) w.U8(static_cast<uint8_t>(kHeaderMagic[i]));
-  w.U32(header.format_version);
-  w.U32(static_cast<uint32_t>(sections.size()));
-  w.U64(header.config_fingerprint);
-  w.U64(header.symbol_count);
-  w.I64(header.created_ns);
-  for (size_t i = 0; i < 16; ++i) {
-    w.U8(i < header.engine_version.size() ? static_cast<uint8_t>(header.engine_version[i]) : 0);
-  }
-  w.U32(0);
-  w.U32(Crc32c(w.data()));
+  WriteHeader(header, sections.size(), &w);
   size_t total = kCheckpointHeaderBytes + kCheckpointTrailerBytes;
   for (const auto& section : sections) {
     total += kCheckpointSectionHeaderBytes + section.second.size();
@@ -249,11 +236,11 @@ absl::Status SerializeCheckpointInto(
     w.U32(SectionCrc(tag, length, payload));
     w.Append(payload);
   }
-  for (int i = 0; i < 8; ++i) w.U8(static_cast<uint8_t>(kTrailerMagic[i]));
-  w.U64(total);
+  WriteTrailer(&w);
   *out = w.Release();
   return absl::OkStatus();
 }
+
 absl::StatusOr<Checkpoint> ParseCheckpoint(std::string bytes) {
   if (bytes.size() < kCheckpointHeaderBytes + kCheckpointTrailerBytes) {
     return absl::DataLossError(absl::StrCat("truncated checkpoint: ", bytes.size(),
