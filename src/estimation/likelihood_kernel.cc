@@ -286,7 +286,8 @@ __attribute__((always_inline)) inline double LikelihoodKernel::OrderOneFail(doub
 // these stay far inside the double range), also for the gradient's
 // sum of log(1 + u), so no log is taken per term unless per-term scores are asked.
 template <bool kMu, bool kGjr, bool kStudent, int kLevel>
-double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* scores, double* hess) {
+double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* scores, double* hess,
+                                  double* opg) {
   constexpr bool kGrad = kLevel >= 1;
   constexpr bool kHess = kLevel >= 2;
   constexpr int kMuS = 0, kOm = 1, kAl = 2, kGa = 3, kBe = 4, kNu = 5;  // slots
@@ -312,6 +313,8 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
          h_bebe = 0;
   double g[6] = {0, 0, 0, 0, 0, 0};
   double H[6][6] = {};
+  double J[6][6] = {};   // sum of the scores' outer products (lower triangle; opg)
+  const bool per_term = scores != nullptr || opg != nullptr;
   double g_nu_rest = 0;  // the part of d ll / d nu other than the log sum
   double quad = 0;       // sum of e2/v (normal)
   double log_sum = 0;    // sum of log v, accumulated through products
@@ -344,7 +347,7 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
         l_e = -np1 * e * inv_v * inv_nu2 * iw;
         l_v = (-0.5 + 0.5 * np1 * u * iw) * inv_v;
         g_nu_rest += 0.5 * np1 * u * inv_nu2 * iw;
-        if (scores) l_nu = dconst - 0.5 * std::log1p(u) + 0.5 * np1 * u * inv_nu2 * iw;
+        if (per_term) l_nu = dconst - 0.5 * std::log1p(u) + 0.5 * np1 * u * inv_nu2 * iw;
       }
       if (kHess) {
         const double iw2 = iw * iw;
@@ -415,6 +418,17 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
         }
         if (kStudent) row[index[kNu]] = l_nu;
       }
+      if (opg) {
+        const double s[6] = {sc[0], sc[1], sc[2], sc[3], sc[4], l_nu};
+#pragma GCC unroll 6
+        for (int i = 0; i < 6; ++i) {
+          if (!kHas[i]) continue;
+#pragma GCC unroll 6
+          for (int j = 0; j <= i; ++j) {
+            if (kHas[j]) J[i][j] += s[i] * s[j];
+          }
+        }
+      }
       if (kHess) {
         // l_vv dv dv' + l_v d2v, plus the e-terms of mu (d e / d mu = -1) and nu.
 #pragma GCC unroll 5
@@ -478,6 +492,16 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
         if (index[j] < 0) continue;
         hess[static_cast<size_t>(index[i]) * k_ + index[j]] = H[i][j];
         hess[static_cast<size_t>(index[j]) * k_ + index[i]] = H[i][j];
+      }
+    }
+  }
+  if (kGrad && opg) {
+    for (int i = 0; i < 6; ++i) {
+      if (index[i] < 0) continue;
+      for (int j = 0; j <= i; ++j) {
+        if (index[j] < 0) continue;
+        opg[static_cast<size_t>(index[i]) * k_ + index[j]] = J[i][j];
+        opg[static_cast<size_t>(index[j]) * k_ + index[i]] = J[i][j];
       }
     }
   }
@@ -984,23 +1008,25 @@ void LikelihoodKernel::EvaluateBatch(const double* const* thetas, int m, double*
 }
 
 double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, double* scores,
-                                          double* hess) {
+                                          double* hess, double* opg) {
   const bool mu = spec_.mean == MeanKind::kConstant;
   const bool gjr = spec_.variance == VarianceKind::kGjr;
   const bool t = spec_.innovations == Innovations::kStudentT;
   const int level = hess ? 2 : grad ? 1 : 0;
   // 2 x 2 x 2 x 3 instantiations of each pass, chosen once per call; the
-  // forward recursions of OrderOne() only where per-term scores are asked.
-#define AFTERSHOCK_ORDER_ONE(M, G, T)                                          \
-  switch (level) {                                                             \
-    case 0:                                                                    \
-      return OrderOneAdjoint<M, G, T, 0>(theta, grad, hess);                   \
-    case 1:                                                                    \
-      return scores ? OrderOne<M, G, T, 1>(theta, grad, scores, hess)          \
-                    : OrderOneAdjoint<M, G, T, 1>(theta, grad, hess);          \
-    default:                                                                   \
-      return scores ? OrderOne<M, G, T, 2>(theta, grad, scores, hess)          \
-                    : OrderOneAdjoint<M, G, T, 2>(theta, grad, hess);          \
+  // forward recursions of OrderOne() only where per-term scores (or their
+  // outer products) are asked.
+  const bool per_term = scores != nullptr || opg != nullptr;
+#define AFTERSHOCK_ORDER_ONE(M, G, T)                                            \
+  switch (level) {                                                               \
+    case 0:                                                                      \
+      return OrderOneAdjoint<M, G, T, 0>(theta, grad, hess);                     \
+    case 1:                                                                      \
+      return per_term ? OrderOne<M, G, T, 1>(theta, grad, scores, hess, opg)     \
+                      : OrderOneAdjoint<M, G, T, 1>(theta, grad, hess);          \
+    default:                                                                     \
+      return per_term ? OrderOne<M, G, T, 2>(theta, grad, scores, hess, opg)     \
+                      : OrderOneAdjoint<M, G, T, 2>(theta, grad, hess);          \
   }
   if (mu) {
     if (gjr) {
@@ -1252,6 +1278,27 @@ double LikelihoodKernel::EvaluateHessian(const double* theta, double* grad, doub
                                          double* scores) {
   if (zero_mean_general_) return EvaluateZeroMeanGeneral(theta, grad, scores, hess);
   return EvaluateOrderOne(theta, grad, scores, hess);
+}
+
+double LikelihoodKernel::EvaluateHessianOpg(const double* theta, double* grad, double* hess,
+                                            double* opg) {
+  if (order_one_) return EvaluateOrderOne(theta, grad, nullptr, hess, opg);
+  // The general orders: the scores into a scratch matrix, then their products.
+  std::vector<double> scores(static_cast<size_t>(n_) * k_);
+  const double ll = EvaluateZeroMeanGeneral(theta, grad, scores.data(), hess);
+  std::fill(opg, opg + static_cast<size_t>(k_) * k_, 0.0);
+  for (int t = 0; t < n_; ++t) {
+    const double* row = &scores[static_cast<size_t>(t) * k_];
+    for (int a = 0; a < k_; ++a) {
+      for (int b = 0; b <= a; ++b) opg[static_cast<size_t>(a) * k_ + b] += row[a] * row[b];
+    }
+  }
+  for (int a = 0; a < k_; ++a) {
+    for (int b = 0; b < a; ++b) {
+      opg[static_cast<size_t>(b) * k_ + a] = opg[static_cast<size_t>(a) * k_ + b];
+    }
+  }
+  return ll;
 }
 
 double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* scores) {
