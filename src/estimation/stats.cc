@@ -43,21 +43,32 @@ absl::Status CheckLags(int lags, int n, const char* what = "lags") {
   return absl::OkStatus();
 }
 
+// sum_i x[i] x[i + k], i = 0..n-1-k, with four partial sums (the products
+// pipeline instead of waiting on one running sum).
+double LaggedProductSum(const double* x, int n, int k) {
+  double s0 = 0.0, s1 = 0.0, s2 = 0.0, s3 = 0.0;
+  const int m = n - k;
+  int i = 0;
+  for (; i + 4 <= m; i += 4) {
+    s0 += x[i] * x[i + k];
+    s1 += x[i + 1] * x[i + 1 + k];
+    s2 += x[i + 2] * x[i + 2 + k];
+    s3 += x[i + 3] * x[i + 3 + k];
+  }
+  for (; i < m; ++i) s0 += x[i] * x[i + k];
+  return (s0 + s1) + (s2 + s3);
+}
+
 // Biased autocorrelations of a validated series (lags 0..max_lag).
 std::vector<double> Acf(absl::Span<const double> x, int max_lag) {
   const size_t n = x.size();
   const double mean = Mean(x);
   std::vector<double> d(n);
   for (size_t t = 0; t < n; ++t) d[t] = x[t] - mean;
-  double c0 = 0.0;
-  for (double v : d) c0 += v * v;
+  const double c0 = LaggedProductSum(d.data(), static_cast<int>(n), 0);
   std::vector<double> r(max_lag + 1);
   r[0] = 1.0;
-  for (int k = 1; k <= max_lag; ++k) {
-    double c = 0.0;
-    for (size_t t = k; t < n; ++t) c += d[t] * d[t - k];
-    r[k] = c / c0;
-  }
+  for (int k = 1; k <= max_lag; ++k) r[k] = LaggedProductSum(d.data(), static_cast<int>(n), k) / c0;
   return r;
 }
 
@@ -81,22 +92,6 @@ absl::Status CheckPortmanteauArgs(int n, int lags, int model_dof) {
                                                    " with ", lags, " lags)"));
   }
   return absl::OkStatus();
-}
-
-// sum_i x[i] x[i + k], i = 0..n-1-k, with four partial sums (the products
-// pipeline instead of waiting on one running sum).
-double LaggedProductSum(const double* x, int n, int k) {
-  double s0 = 0.0, s1 = 0.0, s2 = 0.0, s3 = 0.0;
-  const int m = n - k;
-  int i = 0;
-  for (; i + 4 <= m; i += 4) {
-    s0 += x[i] * x[i + k];
-    s1 += x[i + 1] * x[i + 1 + k];
-    s2 += x[i + 2] * x[i + 2 + k];
-    s3 += x[i + 3] * x[i + 3 + k];
-  }
-  for (; i < m; ++i) s0 += x[i] * x[i + k];
-  return (s0 + s1) + (s2 + s3);
 }
 
 // R^2 of the ARCH-LM regression of sq[t] on 1, sq[t-1], ..., sq[t-lags]
