@@ -861,9 +861,8 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   // outer product of the scores for the standard errors; a converged Newton
   // run already has the value.
   const bool analytic_hessian = options.std_errors && k_free > 0 && kernel.has_hessian();
-  std::vector<double> scores(options.std_errors && !analytic_hessian
-                                 ? static_cast<size_t>(kernel.nobs()) * K
-                                 : 0);
+  std::vector<double> scores(
+      options.std_errors && !analytic_hessian ? static_cast<size_t>(kernel.nobs()) * K : 0);
   std::vector<double> hess_full(analytic_hessian ? static_cast<size_t>(K) * K : 0);
   std::vector<double> opg_full(analytic_hessian ? static_cast<size_t>(K) * K : 0);
   double ll_s;

@@ -41,7 +41,7 @@ class LikelihoodKernel {
   // EvaluateHessian() plus opg (K x K, row-major) = sum over the observations
   // of s_t s_t', the outer product of the per-observation scores s_t (the
   // rows Evaluate() writes to `scores`). On the order-one path it is summed
-  // during the pass, without storing the nobs x K scores. REQUIRES:
+  // in the reverse-accumulation Hessian pass, without storing the scores. REQUIRES:
   // has_hessian(), grad, hess and opg not null. Returns -inf (grad and hess
   // zeroed, opg unspecified) where Evaluate() does.
   double EvaluateHessianOpg(const double* theta, double* grad, double* hess, double* opg);
@@ -71,15 +71,15 @@ class LikelihoodKernel {
   // derivative recursions and a log of products every few terms instead of a
   // log per term. Same recursion and summation order as the general path.
   // kLevel: 0 value, 1 value and gradient, 2 value, gradient and Hessian.
-  // scores (nobs x K) and opg (K x K, the sum of the scores' outer products)
-  // are written when not null.
   template <bool kMu, bool kGjr, bool kStudent, int kLevel>
-  double OrderOne(const double* theta, double* grad, double* scores, double* hess, double* opg);
+  double OrderOne(const double* theta, double* grad, double* scores, double* hess);
   // The same without per-term scores, by reverse accumulation (forward sweep
   // for sigma2 and the per-term derivatives, backward sweep for the sums):
   // the value to the bit of OrderOne(), gradient and Hessian to round-off.
+  // kLevel 3: level 2 plus opg (K x K), the sum of the per-term scores' outer
+  // products, from the Hessian's per-term loop over the stored derivatives.
   template <bool kMu, bool kGjr, bool kStudent, int kLevel>
-  double OrderOneAdjoint(const double* theta, double* grad, double* hess);
+  double OrderOneAdjoint(const double* theta, double* grad, double* hess, double* opg = nullptr);
   // What OrderOne() and OrderOneAdjoint() start from (OrderOneBegin()).
   struct OrderOneStart {
     double mu, omega, alpha, gamma, beta, nu;  // absent parameters: 0

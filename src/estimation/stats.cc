@@ -1,10 +1,10 @@
 #include "aftershock/stats.h"
 
+#include <algorithm>
 #include <boost/math/distributions/chi_squared.hpp>
 #include <boost/math/distributions/fisher_f.hpp>
 #include <boost/math/distributions/normal.hpp>
 #include <boost/math/distributions/students_t.hpp>
-#include <algorithm>
 #include <cmath>
 #include <exception>
 #include <limits>
@@ -141,8 +141,9 @@ std::optional<double> ArchLmRSquaredByGram(const std::vector<double>& sq, int la
       g[static_cast<size_t>(a) * m1 + b] = full[k] - edge - rows * delta[a] * delta[b];
     }
   }
-  auto at = [&](int a, int b) { return a >= b ? g[static_cast<size_t>(a) * m1 + b]
-                                              : g[static_cast<size_t>(b) * m1 + a]; };
+  auto at = [&](int a, int b) {
+    return a >= b ? g[static_cast<size_t>(a) * m1 + b] : g[static_cast<size_t>(b) * m1 + a];
+  };
   std::vector<double> scale(m1);
   for (int a = 0; a < m1; ++a) {
     const double v = at(a, a);
