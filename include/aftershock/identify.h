@@ -128,6 +128,14 @@ std::vector<TestOutcome> StandardizedResidualDiagnostics(absl::Span<const double
                                                          int mean_dof,
                                                          const IdentifyOptions& options);
 
+// The three of those diagnostics the refit quality gate reads, in the same
+// order with the same names and values: Ljung-Box on z, Ljung-Box on z^2 and
+// ARCH-LM on z (no sign-bias and Jarque-Bera tests). For warm refits, whose
+// candidates carry only the gate's p-values.
+std::vector<TestOutcome> GateResidualDiagnostics(absl::Span<const double> residuals,
+                                                 absl::Span<const double> sigma2, int mean_dof,
+                                                 const IdentifyOptions& options);
+
 // Smallest sample IdentifyModel accepts.
 inline constexpr int kMinIdentifyObservations = 100;
 

@@ -857,15 +857,18 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   res.iterations = prob.evals;
   res.num_estimated = k_free;
 
-  std::vector<double> scores(options.std_errors ? static_cast<size_t>(kernel.nobs()) * K : 0);
-  // With an analytic Hessian one pass gives the value, the scores and the
-  // Hessian for the standard errors; a converged Newton run already has the value.
+  // With an analytic Hessian one pass gives the value, the Hessian and the
+  // outer product of the scores for the standard errors; a converged Newton
+  // run already has the value.
   const bool analytic_hessian = options.std_errors && k_free > 0 && kernel.has_hessian();
+  std::vector<double> scores(
+      options.std_errors && !analytic_hessian ? static_cast<size_t>(kernel.nobs()) * K : 0);
   std::vector<double> hess_full(analytic_hessian ? static_cast<size_t>(K) * K : 0);
+  std::vector<double> opg_full(analytic_hessian ? static_cast<size_t>(K) * K : 0);
   double ll_s;
   if (analytic_hessian) {
     std::vector<double> g0(K);
-    ll_s = kernel.EvaluateHessian(theta_s.data(), g0.data(), hess_full.data(), scores.data());
+    ll_s = kernel.EvaluateHessianOpg(theta_s.data(), g0.data(), hess_full.data(), opg_full.data());
   } else if (std::isfinite(newton_loglik)) {
     ll_s = newton_loglik;
   } else {
@@ -915,13 +918,23 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       }
     }
     H = 0.5 * (H + H.transpose()).eval();
-    // Outer product of the scores (free columns of the nobs x K row-major matrix).
-    Eigen::MatrixXd S(res.nobs, k_free);
-    for (int t = 0; t < res.nobs; ++t) {
-      for (int a = 0; a < k_free; ++a)
-        S(t, a) = scores[static_cast<size_t>(t) * K + prob.free_idx[a]];
+    // Outer product of the scores on the free parameters: from the Hessian
+    // pass, else from the free columns of the nobs x K row-major scores.
+    Eigen::MatrixXd J(k_free, k_free);
+    if (analytic_hessian) {
+      for (int a = 0; a < k_free; ++a) {
+        for (int b = 0; b < k_free; ++b) {
+          J(b, a) = opg_full[static_cast<size_t>(prob.free_idx[b]) * K + prob.free_idx[a]];
+        }
+      }
+    } else {
+      Eigen::MatrixXd S(res.nobs, k_free);
+      for (int t = 0; t < res.nobs; ++t) {
+        for (int a = 0; a < k_free; ++a)
+          S(t, a) = scores[static_cast<size_t>(t) * K + prob.free_idx[a]];
+      }
+      J = S.transpose() * S;
     }
-    const Eigen::MatrixXd J = S.transpose() * S;
     Eigen::LDLT<Eigen::MatrixXd> ldlt(-H);
     if (finite && ldlt.info() == Eigen::Success && ldlt.isPositive() &&
         (ldlt.vectorD().array() > 0).all()) {
@@ -960,7 +973,11 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
     res.warnings.push_back(absl::StrCat("the optimizer did not converge (", message, ")"));
   }
   if (options.keep_series) {
-    kernel.Evaluate(theta_s.data(), nullptr, nullptr);  // the Hessian moved the workspace
+    // The order-one Hessian pass at theta_s left theta_s's residuals and
+    // variances in the workspace (the value pass's, to the bit); otherwise
+    // the last pass may have been at another point.
+    const bool at_estimate = analytic_hessian && kernel.is_order_one() && std::isfinite(ll_s);
+    if (!at_estimate) kernel.Evaluate(theta_s.data(), nullptr, nullptr);
     res.residuals = kernel.residuals();
     res.sigma2 = kernel.sigma2();
     for (double& e : res.residuals) e *= c;

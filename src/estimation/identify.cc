@@ -72,15 +72,17 @@ ModelParams MeanStart(const ModelSpec& spec, const ArmaParams& arma) {
   return p;
 }
 
-}  // namespace
-
-std::vector<TestOutcome> StandardizedResidualDiagnostics(absl::Span<const double> residuals,
-                                                         absl::Span<const double> sigma2,
-                                                         int mean_dof,
-                                                         const IdentifyOptions& options) {
-  std::vector<TestOutcome> out;
+std::vector<double> Standardized(absl::Span<const double> residuals,
+                                 absl::Span<const double> sigma2) {
   std::vector<double> z(residuals.size());
   for (size_t i = 0; i < z.size(); ++i) z[i] = residuals[i] / std::sqrt(sigma2[i]);
+  return z;
+}
+
+// Ljung-Box on z and z^2 and ARCH-LM on z, appended to *out_tests.
+void AddGateTests(const std::vector<double>& z, int mean_dof, const IdentifyOptions& options,
+                  std::vector<TestOutcome>* out_tests) {
+  std::vector<TestOutcome>& out = *out_tests;
   const double lvl = options.level;
   const int lags = options.lags;
   if (auto lb = LjungBox(z, lags, std::min(mean_dof, lags - 1)); lb.ok()) {
@@ -99,6 +101,26 @@ std::vector<TestOutcome> StandardizedResidualDiagnostics(absl::Span<const double
                           lm->lm_statistic, lm->lags, lm->lm_p_value, lvl,
                           "remaining ARCH effect in z"));
   }
+}
+
+}  // namespace
+
+std::vector<TestOutcome> GateResidualDiagnostics(absl::Span<const double> residuals,
+                                                 absl::Span<const double> sigma2, int mean_dof,
+                                                 const IdentifyOptions& options) {
+  std::vector<TestOutcome> out;
+  AddGateTests(Standardized(residuals, sigma2), mean_dof, options, &out);
+  return out;
+}
+
+std::vector<TestOutcome> StandardizedResidualDiagnostics(absl::Span<const double> residuals,
+                                                         absl::Span<const double> sigma2,
+                                                         int mean_dof,
+                                                         const IdentifyOptions& options) {
+  std::vector<TestOutcome> out;
+  const std::vector<double> z = Standardized(residuals, sigma2);
+  AddGateTests(z, mean_dof, options, &out);
+  const double lvl = options.level;
   if (auto sb = SignBias(z); sb.ok()) {
     out.push_back(Outcome("Engle-Ng sign bias (joint)", sb->joint_statistic, 3,
                           sb->joint_p_value, lvl,

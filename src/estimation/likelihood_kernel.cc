@@ -502,9 +502,11 @@ double LikelihoodKernel::OrderOne(const double* theta, double* grad, double* sco
 // the order of the value's terms are those of OrderOne(), so the value is the
 // same to the last bit; the gradient and the Hessian sum in another order.
 template <bool kMu, bool kGjr, bool kStudent, int kLevel>
-double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, double* hess) {
+double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, double* hess,
+                                         double* opg) {
   constexpr bool kGrad = kLevel >= 1;
   constexpr bool kHess = kLevel >= 2;
+  constexpr bool kOpg = kLevel >= 3;
   constexpr int kMuS = 0, kOm = 1, kAl = 2, kGa = 3, kBe = 4, kNu = 5;  // slots
   constexpr bool kHas[6] = {kMu, true, true, kGjr, true, kStudent};
   const OrderOneStart start = OrderOneBegin<kMu, kGjr, kStudent, kLevel>(theta);
@@ -527,6 +529,7 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
   // d sigma2_{k-1} / d slot: only the Hessian's outer products need them.
   double dv[5] = {ds2, 0, 0, 0, 0};
   double H[6][6] = {};
+  double J[6][6] = {};  // kOpg: the scores' outer products
   // Hessian columns (n each): d sigma2_k / d slot.
   double* col_dv[5] = {};
   if (kHess) {
@@ -720,8 +723,12 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
       __builtin_memcpy(&x, p, sizeof x);
       return x;
     };
-    auto terms = [&](auto v, auto e, auto* l_ee, auto* l_ev, auto* l_vv, auto* l_enu,
-                     auto* l_vnu, auto* l_nunu) __attribute__((always_inline)) {
+    // With kOpg also l_e = d l / d eps and (Student-t) u and nu_rest, the
+    // part of d l / d nu other than dconst - log(1 + u) / 2, as OrderOne()
+    // computes them for the scores.
+    auto terms = [&](auto v, auto e, auto* l_ee, auto* l_ev, auto* l_vv, auto* l_enu, auto* l_vnu,
+                     auto* l_nunu, auto* l_e, auto* u_out, auto* nu_rest)
+        __attribute__((always_inline)) {
       const auto e2 = e * e;
       if (kStudent) {
         const auto s = e2 * inv_nu2;
@@ -738,24 +745,55 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
         *l_enu = -e * inv_v * (nu2 * w - np1) * inv_nu2 * inv_nu2 * iw2;
         *l_vnu = 0.5 * inv_v * (u * iw - np1 * u * inv_nu2 * iw2);
         *l_nunu = u * inv_nu2 * iw - 0.5 * np1 * u * (w + 1.0) * inv_nu2 * inv_nu2 * iw2;
+        if (kOpg) {
+          *l_e = -np1 * e * inv_v * inv_nu2 * iw;
+          *u_out = u;
+          *nu_rest = 0.5 * np1 * u * inv_nu2 * iw;
+        }
       } else {
         const auto inv_v = 1.0 / v;
         const auto q = e2 * inv_v;
         *l_ee = -inv_v;
         *l_ev = e * inv_v * inv_v;
         *l_vv = (0.5 - q) * inv_v * inv_v;
+        if (kOpg) *l_e = -e * inv_v;
       }
     };
+    // The scores' outer products (kOpg): s_i = l_v d sigma2 / d p_i, less
+    // l_e for mu; s_nu = dconst - log(1 + u) / 2 + nu_rest.
+    V2 jacc[6][6] = {};
     V2 acc[6][6] = {};
     V2 ee2 = {0, 0}, enu2 = {0, 0}, nunu2 = {0, 0};
     int k = 0;
     for (; k + 2 <= n_; k += 2) {
-      V2 l_ee, l_ev, l_vv, l_enu, l_vnu, l_nunu;
-      terms(load(sig2 + k), load(eps + k), &l_ee, &l_ev, &l_vv, &l_enu, &l_vnu, &l_nunu);
+      V2 l_ee, l_ev, l_vv, l_enu, l_vnu, l_nunu, l_e, u, nu_rest;
+      terms(load(sig2 + k), load(eps + k), &l_ee, &l_ev, &l_vv, &l_enu, &l_vnu, &l_nunu, &l_e, &u,
+            &nu_rest);
       V2 d[5];
 #pragma GCC unroll 5
       for (int i = 0; i < 5; ++i) {
         if (kHas[i]) d[i] = load(col_dv[i] + k);
+      }
+      if (kOpg) {
+        const V2 l_v = load(lv + k);
+        V2 sc[6];
+#pragma GCC unroll 5
+        for (int i = 0; i < 5; ++i) {
+          if (kHas[i]) sc[i] = l_v * d[i];
+        }
+        if (kMu) sc[kMuS] -= l_e;
+        if (kStudent) {
+          const V2 log_w = {std::log1p(u[0]), std::log1p(u[1])};
+          sc[kNu] = dconst - 0.5 * log_w + nu_rest;
+        }
+#pragma GCC unroll 6
+        for (int i = 0; i < 6; ++i) {
+          if (!kHas[i]) continue;
+#pragma GCC unroll 6
+          for (int j = 0; j <= i; ++j) {
+            if (kHas[j]) jacc[i][j] += sc[i] * sc[j];
+          }
+        }
       }
 #pragma GCC unroll 5
       for (int i = 0; i < 5; ++i) {
@@ -784,13 +822,31 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
       }
     }
     for (int i = 0; i < 6; ++i) {
-      for (int j = 0; j <= i; ++j) H[i][j] = acc[i][j][0] + acc[i][j][1];
+      for (int j = 0; j <= i; ++j) {
+        H[i][j] = acc[i][j][0] + acc[i][j][1];
+        if (kOpg) J[i][j] = jacc[i][j][0] + jacc[i][j][1];
+      }
     }
     double l_ee_sum = ee2[0] + ee2[1], l_enu_sum = enu2[0] + enu2[1],
            l_nunu_sum = nunu2[0] + nunu2[1];
     for (; k < n_; ++k) {  // an odd last bar
-      double l_ee = 0, l_ev = 0, l_vv = 0, l_enu = 0, l_vnu = 0, l_nunu = 0;
-      terms(sig2[k], eps[k], &l_ee, &l_ev, &l_vv, &l_enu, &l_vnu, &l_nunu);
+      double l_ee = 0, l_ev = 0, l_vv = 0, l_enu = 0, l_vnu = 0, l_nunu = 0, l_e = 0, u = 0,
+             nu_rest = 0;
+      terms(sig2[k], eps[k], &l_ee, &l_ev, &l_vv, &l_enu, &l_vnu, &l_nunu, &l_e, &u, &nu_rest);
+      if (kOpg) {
+        double sc[6] = {0, 0, 0, 0, 0, 0};
+        for (int i = 0; i < 5; ++i) {
+          if (kHas[i]) sc[i] = lv[k] * col_dv[i][k];
+        }
+        if (kMu) sc[kMuS] -= l_e;
+        if (kStudent) sc[kNu] = dconst - 0.5 * std::log1p(u) + nu_rest;
+        for (int i = 0; i < 6; ++i) {
+          if (!kHas[i]) continue;
+          for (int j = 0; j <= i; ++j) {
+            if (kHas[j]) J[i][j] += sc[i] * sc[j];
+          }
+        }
+      }
       for (int i = 0; i < 5; ++i) {
         if (!kHas[i]) continue;
         const double a = l_vv * col_dv[i][k];
@@ -850,6 +906,10 @@ double LikelihoodKernel::OrderOneAdjoint(const double* theta, double* grad, doub
       if (index[j] < 0) continue;
       hess[static_cast<size_t>(index[i]) * k_ + index[j]] = H[i][j];
       hess[static_cast<size_t>(index[j]) * k_ + index[i]] = H[i][j];
+      if (kOpg) {
+        opg[static_cast<size_t>(index[i]) * k_ + index[j]] = J[i][j];
+        opg[static_cast<size_t>(index[j]) * k_ + index[i]] = J[i][j];
+      }
     }
   }
   return ll;
@@ -984,23 +1044,25 @@ void LikelihoodKernel::EvaluateBatch(const double* const* thetas, int m, double*
 }
 
 double LikelihoodKernel::EvaluateOrderOne(const double* theta, double* grad, double* scores,
-                                          double* hess) {
+                                          double* hess, double* opg) {
   const bool mu = spec_.mean == MeanKind::kConstant;
   const bool gjr = spec_.variance == VarianceKind::kGjr;
   const bool t = spec_.innovations == Innovations::kStudentT;
-  const int level = hess ? 2 : grad ? 1 : 0;
-  // 2 x 2 x 2 x 3 instantiations of each pass, chosen once per call; the
+  const int level = hess ? (opg ? 3 : 2) : grad ? 1 : 0;
+  // 2 x 2 x 2 x 4 instantiations of each pass, chosen once per call; the
   // forward recursions of OrderOne() only where per-term scores are asked.
-#define AFTERSHOCK_ORDER_ONE(M, G, T)                                          \
-  switch (level) {                                                             \
-    case 0:                                                                    \
-      return OrderOneAdjoint<M, G, T, 0>(theta, grad, hess);                   \
-    case 1:                                                                    \
-      return scores ? OrderOne<M, G, T, 1>(theta, grad, scores, hess)          \
-                    : OrderOneAdjoint<M, G, T, 1>(theta, grad, hess);          \
-    default:                                                                   \
-      return scores ? OrderOne<M, G, T, 2>(theta, grad, scores, hess)          \
-                    : OrderOneAdjoint<M, G, T, 2>(theta, grad, hess);          \
+#define AFTERSHOCK_ORDER_ONE(M, G, T)                                 \
+  switch (level) {                                                    \
+    case 0:                                                           \
+      return OrderOneAdjoint<M, G, T, 0>(theta, grad, hess);          \
+    case 1:                                                           \
+      return scores ? OrderOne<M, G, T, 1>(theta, grad, scores, hess) \
+                    : OrderOneAdjoint<M, G, T, 1>(theta, grad, hess); \
+    case 2:                                                           \
+      return scores ? OrderOne<M, G, T, 2>(theta, grad, scores, hess) \
+                    : OrderOneAdjoint<M, G, T, 2>(theta, grad, hess); \
+    default:                                                          \
+      return OrderOneAdjoint<M, G, T, 3>(theta, grad, hess, opg);     \
   }
   if (mu) {
     if (gjr) {
@@ -1252,6 +1314,27 @@ double LikelihoodKernel::EvaluateHessian(const double* theta, double* grad, doub
                                          double* scores) {
   if (zero_mean_general_) return EvaluateZeroMeanGeneral(theta, grad, scores, hess);
   return EvaluateOrderOne(theta, grad, scores, hess);
+}
+
+double LikelihoodKernel::EvaluateHessianOpg(const double* theta, double* grad, double* hess,
+                                            double* opg) {
+  if (order_one_) return EvaluateOrderOne(theta, grad, nullptr, hess, opg);
+  // The general orders: the scores into a scratch matrix, then their products.
+  std::vector<double> scores(static_cast<size_t>(n_) * k_);
+  const double ll = EvaluateZeroMeanGeneral(theta, grad, scores.data(), hess);
+  std::fill(opg, opg + static_cast<size_t>(k_) * k_, 0.0);
+  for (int t = 0; t < n_; ++t) {
+    const double* row = &scores[static_cast<size_t>(t) * k_];
+    for (int a = 0; a < k_; ++a) {
+      for (int b = 0; b <= a; ++b) opg[static_cast<size_t>(a) * k_ + b] += row[a] * row[b];
+    }
+  }
+  for (int a = 0; a < k_; ++a) {
+    for (int b = 0; b < a; ++b) {
+      opg[static_cast<size_t>(b) * k_ + a] = opg[static_cast<size_t>(a) * k_ + b];
+    }
+  }
+  return ll;
 }
 
 double LikelihoodKernel::Evaluate(const double* theta, double* grad, double* scores) {

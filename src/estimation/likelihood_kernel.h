@@ -38,6 +38,14 @@ class LikelihoodKernel {
   // Returns -inf (grad and hess zeroed) where Evaluate() does.
   double EvaluateHessian(const double* theta, double* grad, double* hess, double* scores);
 
+  // EvaluateHessian() plus opg (K x K, row-major) = sum over the observations
+  // of s_t s_t', the outer product of the per-observation scores s_t (the
+  // rows Evaluate() writes to `scores`). On the order-one path it is summed
+  // in the reverse-accumulation Hessian pass, without storing the scores. REQUIRES:
+  // has_hessian(), grad, hess and opg not null. Returns -inf (grad and hess
+  // zeroed, opg unspecified) where Evaluate() does.
+  double EvaluateHessianOpg(const double* theta, double* grad, double* hess, double* opg);
+
   // Log-likelihoods of m points that share the mean parameters (equal values
   // before spec().VarianceOffset()): out[j] is Evaluate(thetas[j], nullptr,
   // nullptr) to the bit, -inf where a variance is not positive and finite.
@@ -68,8 +76,10 @@ class LikelihoodKernel {
   // The same without per-term scores, by reverse accumulation (forward sweep
   // for sigma2 and the per-term derivatives, backward sweep for the sums):
   // the value to the bit of OrderOne(), gradient and Hessian to round-off.
+  // kLevel 3: level 2 plus opg (K x K), the sum of the per-term scores' outer
+  // products, from the Hessian's per-term loop over the stored derivatives.
   template <bool kMu, bool kGjr, bool kStudent, int kLevel>
-  double OrderOneAdjoint(const double* theta, double* grad, double* hess);
+  double OrderOneAdjoint(const double* theta, double* grad, double* hess, double* opg = nullptr);
   // What OrderOne() and OrderOneAdjoint() start from (OrderOneBegin()).
   struct OrderOneStart {
     double mu, omega, alpha, gamma, beta, nu;  // absent parameters: 0
@@ -89,7 +99,8 @@ class LikelihoodKernel {
   // Residuals r - mu and the presample variance of the order-one passes;
   // mu_grad: also d s2 / d mu.
   void OrderOneResiduals(double mu, bool mu_grad);
-  double EvaluateOrderOne(const double* theta, double* grad, double* scores, double* hess);
+  double EvaluateOrderOne(const double* theta, double* grad, double* scores, double* hess,
+                          double* opg = nullptr);
   // Zero mean with ARCH/GARCH/GJR variance of any order: the residuals are the
   // returns, so the first and second derivatives of sigma2 follow from the
   // variance recursion alone (second derivatives are non-zero only through the

@@ -1,5 +1,6 @@
 #include "aftershock/stats.h"
 
+#include <algorithm>
 #include <boost/math/distributions/chi_squared.hpp>
 #include <boost/math/distributions/fisher_f.hpp>
 #include <boost/math/distributions/normal.hpp>
@@ -7,6 +8,7 @@
 #include <cmath>
 #include <exception>
 #include <limits>
+#include <optional>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/least_squares.h"
@@ -41,21 +43,32 @@ absl::Status CheckLags(int lags, int n, const char* what = "lags") {
   return absl::OkStatus();
 }
 
+// sum_i x[i] x[i + k], i = 0..n-1-k, with four partial sums (the products
+// pipeline instead of waiting on one running sum).
+double LaggedProductSum(const double* x, int n, int k) {
+  double s0 = 0.0, s1 = 0.0, s2 = 0.0, s3 = 0.0;
+  const int m = n - k;
+  int i = 0;
+  for (; i + 4 <= m; i += 4) {
+    s0 += x[i] * x[i + k];
+    s1 += x[i + 1] * x[i + 1 + k];
+    s2 += x[i + 2] * x[i + 2 + k];
+    s3 += x[i + 3] * x[i + 3 + k];
+  }
+  for (; i < m; ++i) s0 += x[i] * x[i + k];
+  return (s0 + s1) + (s2 + s3);
+}
+
 // Biased autocorrelations of a validated series (lags 0..max_lag).
 std::vector<double> Acf(absl::Span<const double> x, int max_lag) {
   const size_t n = x.size();
   const double mean = Mean(x);
   std::vector<double> d(n);
   for (size_t t = 0; t < n; ++t) d[t] = x[t] - mean;
-  double c0 = 0.0;
-  for (double v : d) c0 += v * v;
+  const double c0 = LaggedProductSum(d.data(), static_cast<int>(n), 0);
   std::vector<double> r(max_lag + 1);
   r[0] = 1.0;
-  for (int k = 1; k <= max_lag; ++k) {
-    double c = 0.0;
-    for (size_t t = k; t < n; ++t) c += d[t] * d[t - k];
-    r[k] = c / c0;
-  }
+  for (int k = 1; k <= max_lag; ++k) r[k] = LaggedProductSum(d.data(), static_cast<int>(n), k) / c0;
   return r;
 }
 
@@ -79,6 +92,90 @@ absl::Status CheckPortmanteauArgs(int n, int lags, int model_dof) {
                                                    " with ", lags, " lags)"));
   }
   return absl::OkStatus();
+}
+
+// R^2 of the ARCH-LM regression of sq[t] on 1, sq[t-1], ..., sq[t-lags]
+// (t = lags..n-1) from the centred cross-products of the regressand and the
+// lag columns, scaled to unit diagonal, and the Cholesky factor of that small
+// (lags+1) x (lags+1) matrix with the regressand last: its last pivot is
+// RSS / TSS (the Schur complement of the lag block). The cross-product of
+// columns a >= b (lags a and b, column 0 the regressand) is a lag-(a-b)
+// product sum of the whole series less the few terms outside the rows, so
+// the series is read lags + 1 times, never copied into a design matrix.
+// The same R^2 as the QR of the centred design to round-off wherever the lag
+// columns are well conditioned; nullopt where a column has no variance or a
+// lag pivot falls below kGramPivotFloor (nearly collinear lags), and the
+// caller then takes the QR, which also says why a design is rank deficient.
+constexpr double kGramPivotFloor = 1e-4;
+
+std::optional<double> ArchLmRSquaredByGram(const std::vector<double>& sq, int lags) {
+  const int n = static_cast<int>(sq.size());
+  const int rows = n - lags;
+  const int m1 = lags + 1;  // column 0: regressand sq[t]; column a: lag a
+  // Deviations from the overall mean; column a (entries d[t - a], t = lags..n-1)
+  // has mean delta[a], and sum_t (d_a - delta_a)(d_b - delta_b) =
+  // sum_t d_a d_b - rows delta_a delta_b.
+  double mean = 0.0;
+  for (double v : sq) mean += v;
+  mean /= n;
+  std::vector<double> d(n);
+  for (int i = 0; i < n; ++i) d[i] = sq[i] - mean;
+  std::vector<double> delta(m1);
+  double col_sum = 0.0;  // column 0: d[lags..n-1]
+  for (int i = lags; i < n; ++i) col_sum += d[i];
+  delta[0] = col_sum / rows;
+  for (int a = 1; a < m1; ++a) {
+    col_sum += d[lags - a] - d[n - a];  // column a: d[lags-a..n-1-a]
+    delta[a] = col_sum / rows;
+  }
+  std::vector<double> full(m1);  // lag-k product sums over the whole series
+  for (int k = 0; k < m1; ++k) full[k] = LaggedProductSum(d.data(), n, k);
+  // g[a * m1 + b], a >= b: sum over i = lags-a .. n-1-a of d[i] d[i + a - b].
+  std::vector<double> g(static_cast<size_t>(m1) * m1);
+  for (int a = 0; a < m1; ++a) {
+    for (int b = 0; b <= a; ++b) {
+      const int k = a - b;
+      double edge = 0.0;
+      for (int i = 0; i < lags - a; ++i) edge += d[i] * d[i + k];
+      for (int i = n - a; i < n - k; ++i) edge += d[i] * d[i + k];
+      g[static_cast<size_t>(a) * m1 + b] = full[k] - edge - rows * delta[a] * delta[b];
+    }
+  }
+  auto at = [&](int a, int b) {
+    return a >= b ? g[static_cast<size_t>(a) * m1 + b] : g[static_cast<size_t>(b) * m1 + a];
+  };
+  std::vector<double> scale(m1);
+  for (int a = 0; a < m1; ++a) {
+    const double v = at(a, a);
+    if (!(v > 0.0) || !std::isfinite(v)) return std::nullopt;
+    scale[a] = 1.0 / std::sqrt(v);
+  }
+  // Correlation matrix with the regressand moved last (position m1 - 1), then
+  // an in-place Cholesky factorisation of its lower triangle.
+  std::vector<double> c(static_cast<size_t>(m1) * m1);
+  auto col = [&](int i) { return i == m1 - 1 ? 0 : i + 1; };  // position -> Gram column
+  for (int i = 0; i < m1; ++i) {
+    for (int j = 0; j <= i; ++j) {
+      const int a = col(i), b = col(j);
+      c[static_cast<size_t>(i) * m1 + j] = i == j ? 1.0 : at(a, b) * scale[a] * scale[b];
+    }
+  }
+  for (int j = 0; j < m1; ++j) {
+    double* rj = &c[static_cast<size_t>(j) * m1];
+    double pivot = rj[j];
+    for (int k = 0; k < j; ++k) pivot -= rj[k] * rj[k];
+    if (j == m1 - 1) return 1.0 - std::max(pivot, 0.0);  // RSS / TSS: the regressand's pivot
+    if (!(pivot >= kGramPivotFloor)) return std::nullopt;
+    const double l = std::sqrt(pivot);
+    rj[j] = l;
+    for (int i = j + 1; i < m1; ++i) {
+      double* ri = &c[static_cast<size_t>(i) * m1];
+      double sum = ri[j];
+      for (int k = 0; k < j; ++k) sum -= ri[k] * rj[k];
+      ri[j] = sum / l;
+    }
+  }
+  return std::nullopt;  // not reached: the loop returns at the last column
 }
 
 }  // namespace
@@ -212,25 +309,32 @@ absl::StatusOr<ArchLmResult> ArchLm(absl::Span<const double> e, int lags, int dd
   std::vector<double> sq(n);
   for (int i = 0; i < n; ++i) sq[i] = e[i] * e[i];
   if (absl::Status s = ValidateSeries(sq, 4, true, "squared residual series"); !s.ok()) return s;
-  std::vector<double> y(rows), x(static_cast<size_t>(rows) * lags);
-  for (int t = 0; t < rows; ++t) {
-    y[t] = sq[t + lags];
-    for (int j = 1; j <= lags; ++j) x[static_cast<size_t>(t) * lags + (j - 1)] = sq[t + lags - j];
-  }
-  absl::StatusOr<OlsResult> ols = OrdinaryLeastSquares(y, x, lags);
-  if (!ols.ok()) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("ARCH-LM regression failed: ", ols.status().message()));
+  std::optional<double> r2 = ArchLmRSquaredByGram(sq, lags);
+  if (!r2.has_value()) {
+    // Nearly collinear lags: the column-pivoted QR of the whole design.
+    std::vector<double> y(rows), x(static_cast<size_t>(rows) * lags);
+    for (int t = 0; t < rows; ++t) {
+      y[t] = sq[t + lags];
+      for (int j = 1; j <= lags; ++j) {
+        x[static_cast<size_t>(t) * lags + (j - 1)] = sq[t + lags - j];
+      }
+    }
+    absl::StatusOr<OlsResult> ols = OrdinaryLeastSquares(y, x, lags);
+    if (!ols.ok()) {
+      return absl::InvalidArgumentError(
+          absl::StrCat("ARCH-LM regression failed: ", ols.status().message()));
+    }
+    r2 = ols->r_squared;
   }
   ArchLmResult out;
   out.lags = lags;
   out.nobs = rows;
-  out.r_squared = ols->r_squared;
-  out.lm_statistic = (rows - ddof) * ols->r_squared;
+  out.r_squared = *r2;
+  out.lm_statistic = (rows - ddof) * out.r_squared;
   out.lm_p_value = ChiSquareSurvival(out.lm_statistic, lags);
   out.f_df1 = lags;
   out.f_df2 = rows - lags - 1;
-  out.f_statistic = (ols->r_squared / lags) / ((1.0 - ols->r_squared) / out.f_df2);
+  out.f_statistic = (out.r_squared / lags) / ((1.0 - out.r_squared) / out.f_df2);
   out.f_p_value = FSurvival(out.f_statistic, out.f_df1, out.f_df2);
   return out;
 }

@@ -43,7 +43,7 @@ absl::StatusOr<RefitCandidate> PipelineRefitter::Fit(const RefitRequest& request
   auto fit = FitModel(request.current->spec, request.returns, fo);
   if (!fit.ok()) return fit.status();
   const ModelSpec& spec = fit->params.spec;
-  out.diagnostics = FromTests(StandardizedResidualDiagnostics(
+  out.diagnostics = FromTests(GateResidualDiagnostics(
       fit->residuals, fit->sigma2, spec.ar_order + spec.ma_order, options_.identify));
   fit->residuals.clear();
   fit->sigma2.clear();

@@ -130,35 +130,84 @@ Eigen::MatrixXd NumericalHessian(const ModelParams& p, const std::vector<double>
 
 TEST_CASE("standard errors agree with a numerical Hessian of the log-likelihood",
           "[estimator]") {
-  for (const char* law : {"gaussian", "student"}) {
-    const bool t = std::string(law) == "student";
-    const std::vector<double> r = testing::TestGarchSeries(3000, 21, t ? 6.0 : 0.0);
-    auto spec = MakeModelSpec("arma", {1, 0}, "gjr", {1, 1, 1}, law);
-    REQUIRE(spec.ok());
-    auto fit = FitModel(*spec, r);
-    REQUIRE(fit.ok());
-    REQUIRE(fit->converged);
-    const Eigen::MatrixXd H = NumericalHessian(fit->params, r, Presample::kMeanSquare);
-    const Eigen::MatrixXd inv = (-H).inverse();
-    LikelihoodOptions o;
-    o.scores = true;
-    auto lr = EvaluateLikelihood(fit->params, r, o);
-    REQUIRE(lr.ok());
-    const int k = spec->NumParams();
-    Eigen::MatrixXd J = Eigen::MatrixXd::Zero(k, k);
-    for (int t = 0; t < lr->nobs; ++t) {
-      Eigen::Map<const Eigen::VectorXd> s(&lr->scores[t * k], k);
-      J += s * s.transpose();
+  // An ARMA mean (Hessian by differences of the gradient) and the order-one
+  // kernels (analytic Hessian, the scores' outer products summed in its pass).
+  struct Shape {
+    const char* mean;
+    std::vector<int> arma;
+    const char* variance;
+    VarianceLags lags;
+  };
+  const Shape shapes[] = {{"arma", {1, 0}, "gjr", {1, 1, 1}},
+                          {"constant", {}, "garch", {1, 1}},
+                          {"constant", {}, "gjr", {1, 1, 1}}};
+  for (const Shape& shape : shapes) {
+    for (const char* law : {"gaussian", "student"}) {
+      const bool t = std::string(law) == "student";
+      const std::vector<double> r = testing::TestGarchSeries(3000, 21, t ? 6.0 : 0.0);
+      auto spec = MakeModelSpec(shape.mean, shape.arma, shape.variance, shape.lags, law);
+      REQUIRE(spec.ok());
+      auto fit = FitModel(*spec, r);
+      REQUIRE(fit.ok());
+      REQUIRE(fit->converged);
+      const Eigen::MatrixXd H = NumericalHessian(fit->params, r, Presample::kMeanSquare);
+      const Eigen::MatrixXd inv = (-H).inverse();
+      LikelihoodOptions o;
+      o.scores = true;
+      auto lr = EvaluateLikelihood(fit->params, r, o);
+      REQUIRE(lr.ok());
+      const int k = spec->NumParams();
+      Eigen::MatrixXd J = Eigen::MatrixXd::Zero(k, k);
+      for (int t = 0; t < lr->nobs; ++t) {
+        Eigen::Map<const Eigen::VectorXd> s(&lr->scores[t * k], k);
+        J += s * s.transpose();
+      }
+      const Eigen::MatrixXd sandwich = inv * J * inv;
+      for (int i = 0; i < k; ++i) {
+        INFO(spec->Label() << " " << fit->names[i] << " se " << fit->std_errors[i] << " numeric "
+                           << std::sqrt(inv(i, i)) << " robust " << fit->robust_std_errors[i]
+                           << " numeric " << std::sqrt(sandwich(i, i)));
+        // The function-value Hessian is itself only good to about 1e-3 (truncation
+        // vs round-off at these steps), hence the tolerance.
+        CHECK(testing::RelDiff(fit->std_errors[i], std::sqrt(inv(i, i))) <= 5e-3);
+        CHECK(testing::RelDiff(fit->robust_std_errors[i], std::sqrt(sandwich(i, i))) <= 5e-3);
+      }
     }
-    const Eigen::MatrixXd sandwich = inv * J * inv;
-    for (int i = 0; i < k; ++i) {
-      INFO(spec->Label() << " " << fit->names[i] << " se " << fit->std_errors[i] << " numeric "
-                         << std::sqrt(inv(i, i)) << " robust " << fit->robust_std_errors[i]
-                         << " numeric " << std::sqrt(sandwich(i, i)));
-      // The function-value Hessian is itself only good to about 1e-3 (truncation
-      // vs round-off at these steps), hence the tolerance.
-      CHECK(testing::RelDiff(fit->std_errors[i], std::sqrt(inv(i, i))) <= 5e-3);
-      CHECK(testing::RelDiff(fit->robust_std_errors[i], std::sqrt(sandwich(i, i))) <= 5e-3);
+  }
+}
+
+TEST_CASE("kept series are the estimate's with and without standard errors", "[estimator]") {
+  // With standard errors the order-one fits keep the residuals and variances
+  // of their Hessian pass at the estimate; without, of a value pass there.
+  // Both are the series of the estimate, to the bit.
+  for (const char* variance : {"garch", "gjr"}) {
+    for (const char* law : {"gaussian", "student"}) {
+      const std::vector<double> r = testing::TestGarchSeries(1500, 8, 6.0);
+      auto spec = MakeModelSpec("constant", {}, variance, {}, law);
+      REQUIRE(spec.ok());
+      INFO(spec->Label());
+      FitOptions with;
+      with.keep_series = true;
+      FitOptions without = with;
+      without.std_errors = false;
+      auto a = FitModel(*spec, r, with);
+      auto b = FitModel(*spec, r, without);
+      REQUIRE(a.ok());
+      REQUIRE(b.ok());
+      REQUIRE(a->params.values == b->params.values);
+      CHECK(std::isfinite(a->std_errors[1]));
+      CHECK(a->residuals == b->residuals);
+      CHECK(a->sigma2 == b->sigma2);
+      LikelihoodOptions o;
+      o.series = true;
+      auto lr = EvaluateLikelihood(a->params, r, o);
+      REQUIRE(lr.ok());
+      REQUIRE(lr->sigma2.size() == a->sigma2.size());
+      for (size_t i = 0; i < a->sigma2.size(); ++i) {
+        if (testing::RelDiff(a->sigma2[i], lr->sigma2[i]) > 1e-10) {
+          FAIL("sigma2 " << i << ": " << a->sigma2[i] << " vs " << lr->sigma2[i]);
+        }
+      }
     }
   }
 }

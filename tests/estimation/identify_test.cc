@@ -73,6 +73,22 @@ TEST_CASE("DEM/GBP: ARCH effects are detected and GARCH(1,1) leaves none", "[ide
   const auto diag = StandardizedResidualDiagnostics(fit->residuals, fit->sigma2, 0, {});
   INFO("normal GARCH(1,1): ARCH-LM(5) on z p " << Find(diag, "ARCH-LM(5) on z").p_value);
   CHECK_FALSE(Find(diag, "ARCH-LM(5) on z").rejected);
+  // The warm refits' subset: the same three gate tests, bit for bit, nothing else.
+  const auto gate = GateResidualDiagnostics(fit->residuals, fit->sigma2, 0, {});
+  REQUIRE(gate.size() == 3);
+  REQUIRE(diag.size() == 5);
+  for (size_t i = 0; i < gate.size(); ++i) {
+    INFO(diag[i].name);
+    CHECK(gate[i].name == diag[i].name);
+    CHECK(gate[i].statistic == diag[i].statistic);
+    CHECK(gate[i].df == diag[i].df);
+    CHECK(gate[i].p_value == diag[i].p_value);
+    CHECK(gate[i].rejected == diag[i].rejected);
+    CHECK(gate[i].meaning == diag[i].meaning);
+  }
+  CHECK(gate[0].name == "Ljung-Box(10) on z");
+  CHECK(gate[1].name == "Ljung-Box(10) on z^2");
+  CHECK(gate[2].name == "ARCH-LM(5) on z");
 }
 
 TEST_CASE("an ARMA(1,0)/GJR-GARCH(1,1)/student series is identified with an AR term and asymmetry",

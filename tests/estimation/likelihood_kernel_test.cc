@@ -142,6 +142,59 @@ TEST_CASE("the Hessian pass returns the per-observation scores of the gradient p
   }
 }
 
+TEST_CASE("the Hessian pass sums the outer products of the per-observation scores",
+          "[likelihood_kernel]") {
+  // opg of EvaluateHessianOpg against sum_t s_t s_t' formed from the scores
+  // matrix of EvaluateHessian (the forward recursions: the estimator's former
+  // route to the robust standard errors), for every kernel with a Hessian and
+  // both presamples.
+  // An even and an odd number of bars (the pass sums two bars a step).
+  for (int bars : {1300, 1301}) {
+    for (Presample pre : {Presample::kMeanSquare, Presample::kRobustStart}) {
+      const std::vector<double> r = Scaled(testing::TestGarchSeries(bars, 9, 5.0));
+      for (const Case& c : HessianCases()) {
+        auto spec = MakeModelSpec(c.mean, {}, c.variance, c.orders, c.law);
+        REQUIRE(spec.ok());
+        LikelihoodKernel kernel(*spec, r, pre);
+        const int k = kernel.num_params();
+        const int n = kernel.nobs();
+        const size_t kk = static_cast<size_t>(k) * k;
+        std::vector<double> g(k), h(kk), scores(static_cast<size_t>(n) * k);
+        std::vector<double> go(k), ho(kk), opg(kk, -1.0), gs(k), hs(kk);
+        INFO(spec->Label() << " presample " << static_cast<int>(pre) << ", " << bars << " bars");
+        // The scores of the forward pass; value, gradient and Hessian of the
+        // pass without scores, which the one with opg must repeat to the bit.
+        kernel.EvaluateHessian(c.theta.data(), gs.data(), hs.data(), scores.data());
+        const double ll = kernel.EvaluateHessian(c.theta.data(), g.data(), h.data(), nullptr);
+        const double llo =
+            kernel.EvaluateHessianOpg(c.theta.data(), go.data(), ho.data(), opg.data());
+        CHECK(llo == ll);
+        for (int a = 0; a < k; ++a) CHECK(go[a] == g[a]);
+        for (size_t i = 0; i < h.size(); ++i) CHECK(ho[i] == h[i]);
+        for (int a = 0; a < k; ++a) {
+          for (int b = 0; b < k; ++b) {
+            double ref = 0;
+            for (int t = 0; t < n; ++t) {
+              const double* row = &scores[static_cast<size_t>(t) * k];
+              ref += row[a] * row[b];
+            }
+            INFO("cell " << spec->ParamNames()[a] << ", " << spec->ParamNames()[b]);
+            const double got = opg[static_cast<size_t>(a) * k + b];
+            CHECK(got == Approx(ref).epsilon(1e-12).margin(1e-300));
+          }
+        }
+      }
+    }
+  }
+  // An infeasible point is -inf as for the other passes.
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
+  LikelihoodKernel kernel(*spec, Scaled(testing::TestGarchSeries(500, 9, 5.0)),
+                          Presample::kMeanSquare);
+  std::vector<double> bad = {0.0, -1.0, -0.5, 0.9, 7.0}, g(5), h(25), opg(25);
+  CHECK(kernel.EvaluateHessianOpg(bad.data(), g.data(), h.data(), opg.data()) ==
+        -std::numeric_limits<double>::infinity());
+}
+
 // Without per-term scores the passes sum the derivatives by reverse
 // accumulation (a backward sweep); with scores they run the forward
 // derivative recursions. Both give the same value, gradient and Hessian up to

@@ -8,6 +8,7 @@
 #include <string>
 #include <vector>
 
+#include "aftershock/least_squares.h"
 #include "support/test_support.h"
 
 namespace aftershock {
@@ -298,6 +299,78 @@ TEST_CASE("bad input is a clear error", "[stats]") {
   for (int i = 0; i < 30; ++i) pos[i] = 1.0 + 0.1 * (i % 7);
   CHECK(Message(SignBias(pos).status()) ==
         "sign-bias test needs both negative and non-negative lagged residuals");
+}
+
+// R^2 of e_t^2 on 1, e_{t-1}^2, ..., e_{t-lags}^2 by the QR regression
+// (OrdinaryLeastSquares on the full design), the reference for ArchLm's
+// cross-product computation.
+double ArchLmRSquaredByQr(const std::vector<double>& e, int lags) {
+  const int rows = static_cast<int>(e.size()) - lags;
+  std::vector<double> y(rows), x(static_cast<size_t>(rows) * lags);
+  for (int t = 0; t < rows; ++t) {
+    y[t] = e[t + lags] * e[t + lags];
+    for (int j = 1; j <= lags; ++j) {
+      x[static_cast<size_t>(t) * lags + j - 1] = e[t + lags - j] * e[t + lags - j];
+    }
+  }
+  absl::StatusOr<OlsResult> ols = OrdinaryLeastSquares(y, x, lags);
+  REQUIRE(ols.ok());
+  return ols->r_squared;
+}
+
+TEST_CASE("ARCH-LM R^2 equals the QR regression's on varied series", "[stats]") {
+  // White noise, GARCH errors, heavy tails (t with 3 df), data on a tiny scale
+  // (returns of 1e-4) and on a large one with an offset, for several lag counts.
+  boost::random::mt19937_64 rng(4242);
+  boost::random::normal_distribution<double> normal(0.0, 1.0);
+  std::vector<std::pair<std::string, std::vector<double>>> series;
+  series.push_back({"white noise", WhiteNoise(2000, 11)});
+  series.push_back({"GARCH errors", SimulateArGarch(2000, 12).e});
+  std::vector<double> heavy(2000), tiny(2000), offset(1500);
+  for (double& v : heavy) {
+    double c = 0;
+    for (int k = 0; k < 3; ++k) {
+      const double g = normal(rng);
+      c += g * g;
+    }
+    v = normal(rng) / std::sqrt(c / 3.0);
+  }
+  for (double& v : tiny) v = 1e-4 * normal(rng);
+  for (double& v : offset) v = 1e3 + normal(rng);
+  series.push_back({"Student-t(3)", heavy});
+  series.push_back({"scale 1e-4", tiny});
+  series.push_back({"offset 1e3", offset});
+  for (const auto& [name, e] : series) {
+    for (int lags : {1, 2, 5, 10, 20}) {
+      INFO(name << ", " << lags << " lags");
+      absl::StatusOr<ArchLmResult> r = ArchLm(e, lags);
+      REQUIRE(r.ok());
+      const double qr = ArchLmRSquaredByQr(e, lags);
+      CHECK(std::fabs(r->r_squared - qr) <= 1e-12 + 1e-10 * std::fabs(qr));
+      CHECK(RelDiff(r->lm_statistic, (e.size() - lags) * qr) <= 1e-9);
+    }
+  }
+}
+
+TEST_CASE("ARCH-LM with nearly collinear or collinear lags", "[stats]") {
+  // Squares of period 2 (1, 4, 1, 4, ...) make the centred lag columns one
+  // column up to sign (rank 2 with the intercept):
+  // the QR regression reports the rank deficiency.
+  std::vector<double> periodic(200);
+  for (int i = 0; i < 200; ++i) periodic[i] = i % 2 ? 2.0 : -1.0;
+  CHECK(Message(ArchLm(periodic, 3).status()) ==
+        "ARCH-LM regression failed: design matrix is rank deficient: rank 2 of 4 columns");
+  // A small perturbation of it: nearly collinear lags, still of full rank;
+  // the statistic is the QR regression's.
+  boost::random::mt19937_64 rng(77);
+  boost::random::normal_distribution<double> normal(0.0, 1.0);
+  std::vector<double> near = periodic;
+  for (double& v : near) v += 1e-4 * normal(rng);
+  absl::StatusOr<ArchLmResult> r = ArchLm(near, 3);
+  REQUIRE(r.ok());
+  const double qr = ArchLmRSquaredByQr(near, 3);
+  CHECK(std::fabs(r->r_squared - qr) <= 1e-12 + 1e-10 * std::fabs(qr));
+  CHECK(r->r_squared > 0.99);  // the period explains the squares
 }
 
 TEST_CASE("ARCH-LM size on white noise is close to the nominal 5%", "[stats][property]") {
