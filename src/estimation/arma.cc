@@ -588,6 +588,27 @@ bool WeightErrors(const FilterSums& sums, int n, double* w, const double* ratio,
   return std::isfinite(acc);
 }
 
+// WeightErrors for B lanes whose sums v^2 / F are positive, their loops
+// interleaved; each lane's operations are those of WeightErrors alone.
+template <int B>
+void WeightLanes(const FilterSums* sums, int n, double* const* w, const double* const* ratio,
+                 double* ss) {
+  double g[B], acc[B];
+  for (int b = 0; b < B; ++b) {
+    g[b] = std::exp(sums[b].sum_log_f / (2.0 * n));
+    acc[b] = 0.0;
+  }
+  for (int t = 0; t < n; ++t) {
+#pragma GCC unroll 4
+    for (int b = 0; b < B; ++b) {
+      const double f = ratio[b][t];
+      w[b][t] *= f == 1.0 ? g[b] : g[b] / std::sqrt(f);
+      acc[b] += w[b][t] * w[b][t];
+    }
+  }
+  for (int b = 0; b < B; ++b) ss[b] = acc[b];
+}
+
 bool WeightedErrors(const Problem& pr, const double* x, std::vector<double>* w,
                     std::vector<double>* ratio, double* ss) {
   double mu, ar[kMaxArmaOrder], ma[kMaxArmaOrder];
@@ -616,10 +637,32 @@ int WeightedErrorsBatch(const Problem& pr, int count, const double* const* xs, d
   }
   const int filtered = RunFilterBatch(pr.y, count, sp.data(), sums.data(), w, ratio);
   const int n = static_cast<int>(pr.y.size());
-  for (int k = 0; k < filtered; ++k) {
-    if (!WeightErrors(sums[k], n, w[k], ratio[k], &ss[k])) return k;
+  // The points up to the first whose sum v^2 / F is not positive are weighted,
+  // up to four at a time with their sums of squares interleaved.
+  int weighted = 0;
+  while (weighted < filtered && sums[weighted].sum_sq > 0.0) ++weighted;
+  for (int k = 0; k < weighted;) {
+    const int b = std::min(4, weighted - k);
+    switch (b) {
+      case 1:
+        WeightLanes<1>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+      case 2:
+        WeightLanes<2>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+      case 3:
+        WeightLanes<3>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+      default:
+        WeightLanes<4>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+    }
+    k += b;
   }
-  return filtered;
+  for (int k = 0; k < weighted; ++k) {
+    if (!std::isfinite(ss[k])) return k;
+  }
+  return weighted;
 }
 
 // Levenberg-Marquardt on the sum of squares above, in the optimizer's
@@ -673,7 +716,13 @@ bool RefineByLevenbergMarquardt(Problem* pr, std::vector<double>* x, const doubl
       for (int t = 0; t < n; ++t) col[t] = (col[t] - w[t]) / h;
     }
     const Eigen::Map<const Eigen::VectorXd> wv(w.data(), n);
-    const Eigen::MatrixXd a = jac.transpose() * jac;
+    // J'J entry by entry (vectorized dot products of the columns): a general
+    // matrix product packs both n x dim operands first, which costs more than
+    // the products at these sizes.
+    Eigen::MatrixXd a(dim, dim);
+    for (int i = 0; i < dim; ++i) {
+      for (int j = 0; j <= i; ++j) a(i, j) = a(j, i) = jac.col(i).dot(jac.col(j));
+    }
     const Eigen::VectorXd g = jac.transpose() * wv;
     bool accepted = false;
     for (int tries = 0; tries < 12 && !accepted; ++tries) {
