@@ -342,14 +342,17 @@ bool RunFilter(absl::Span<const double> y, double mu, const double* ar, int p, c
 }
 
 // RunFilter for `count` parameter sets of the same orders (setups s[0..count-1])
-// in groups of up to four interleaved lanes; each lane's values are those of
-// RunFilter alone. Returns the number of parameter sets filtered before the
-// first failure (count when none failed).
+// in groups of up to four interleaved lanes, as even as possible; each lane's
+// values are those of RunFilter alone. Returns the number of parameter sets
+// filtered before the first failure (count when none failed).
 int RunFilterBatch(absl::Span<const double> y, int count, const FilterSetup* const* s,
                    FilterSums* sums, double* const* resid, double* const* ratio) {
   int done = 0;
   while (done < count) {
-    const int b = std::min(4, count - done);
+    // Groups as even as possible (5 = 3 + 2, not 4 + 1: a lone lane runs at
+    // the latency of its chain, as long as a group of three or four).
+    const int groups = (count - done + 3) / 4;
+    const int b = (count - done + groups - 1) / groups;
     const int r = s[done]->r;
     int ok = 0;
     switch (b) {
