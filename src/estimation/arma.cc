@@ -902,12 +902,25 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
     Decode(pr, x.data(), &est.mu, ar, ma);
     est.ar.assign(ar, ar + p);
     est.ma.assign(ma, ma + q);
+    // One pass at the optimum gives sigma2 (concentrated out) and the errors
+    // ArmaFilter(y, est) would give: the errors do not depend on sigma2.
+    ArmaFilterOutput f;
+    f.residuals.resize(n);
+    f.variance_ratio.resize(n);
     FilterSums sums;
-    if (!RunFilter(y, est.mu, ar, p, ma, q, &sums, nullptr, nullptr)) {
+    if (!RunFilter(y, est.mu, ar, p, ma, q, &sums, &f.residuals, &f.variance_ratio)) {
       return absl::InternalError(
           absl::StrCat("ARMA(", p, ",", q, ") likelihood failed at the optimum"));
     }
     est.sigma2 = sums.sum_sq / n;
+    if (absl::Status s = ValidateParams(est); !s.ok()) return s;
+    f.loglik = -0.5 * (n * kLog2Pi + n * std::log(est.sigma2) + sums.sum_log_f +
+                       sums.sum_sq / est.sigma2);
+    ArmaFit fit = FinishFit(y, est, *start, f);
+    fit.converged = converged;
+    fit.evaluations = evaluations;
+    fit.optimizer_message = message;
+    return fit;
   }
   absl::StatusOr<ArmaFilterOutput> f = ArmaFilter(y, est);
   if (!f.ok()) return f.status();
