@@ -15,6 +15,7 @@
 #include "aftershock/least_squares.h"
 #include "aftershock/model_spec.h"
 #include "aftershock/stats.h"
+#include "estimation/arma_internal.h"
 
 namespace aftershock {
 namespace {
@@ -1031,6 +1032,55 @@ absl::StatusOr<std::vector<double>> ArmaStandardErrors(absl::Span<const double> 
   for (int i = 0; i < k; ++i) se[i] = std::sqrt(cov(i, i));
   return se;
 }
+
+namespace internal {
+
+absl::Status ArmaFilterLanesForTest(absl::Span<const double> y,
+                                    const std::vector<ArmaParams>& sets, bool batch,
+                                    std::vector<ArmaLaneOutput>* out) {
+  const int count = static_cast<int>(sets.size());
+  if (count == 0 || count > 4 * kMaxState) {
+    return absl::InvalidArgumentError("1 to 24 parameter sets");
+  }
+  const int n = static_cast<int>(y.size());
+  std::vector<FilterSetup> setups(count);
+  std::vector<const FilterSetup*> sp(count);
+  std::vector<FilterSums> sums(count);
+  out->assign(count, ArmaLaneOutput());
+  std::vector<double*> resid(count), ratio(count);
+  for (int k = 0; k < count; ++k) {
+    const ArmaParams& a = sets[k];
+    if (absl::Status s = ValidateParams(a); !s.ok()) return s;
+    if (a.p() != sets[0].p() || a.q() != sets[0].q()) {
+      return absl::InvalidArgumentError("the parameter sets must share p and q");
+    }
+    SetupFilter(a.mu, a.ar.data(), a.p(), a.ma.data(), a.q(), &setups[k]);
+    sp[k] = &setups[k];
+    (*out)[k].residuals.assign(n, 0.0);
+    (*out)[k].variance_ratio.assign(n, 0.0);
+    resid[k] = (*out)[k].residuals.data();
+    ratio[k] = (*out)[k].variance_ratio.data();
+  }
+  int done = 0;
+  if (batch) {
+    done = RunFilterBatch(y, count, sp.data(), sums.data(), resid.data(), ratio.data());
+  } else {
+    while (done < count &&
+           RunFilter(y, sets[done].mu, sets[done].ar.data(), sets[done].p(), sets[done].ma.data(),
+                     sets[done].q(), &sums[done], &(*out)[done].residuals,
+                     &(*out)[done].variance_ratio)) {
+      ++done;
+    }
+  }
+  if (done < count) return absl::InternalError("a filter failed");
+  for (int k = 0; k < count; ++k) {
+    (*out)[k].sum_log_f = sums[k].sum_log_f;
+    (*out)[k].sum_sq = sums[k].sum_sq;
+  }
+  return absl::OkStatus();
+}
+
+}  // namespace internal
 
 absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int max_p, int max_q,
                                               InfoCriterion criterion,
