@@ -172,7 +172,7 @@ bool FilterTransient(absl::Span<const double> y, const FilterSetup& s, FilterLan
   const double mu = s.mu;
   const std::array<double, kMaxState>& phi = s.phi;
   const std::array<double, kMaxState>& rv = s.rv;
-  std::array<double, kMaxState * kMaxState> pm = s.pm;
+  std::array<double, kMaxState* kMaxState> pm = s.pm;
   double st[R] = {}, tp0[R] = {}, m[R * R];
   double sum_log_f = 0.0, sum_sq = 0.0;
   double* resid = lane->resid;
@@ -298,7 +298,8 @@ int FilterLanes(absl::Span<const double> y, const FilterSetup* const* s, FilterS
   };
   if (B > 1) {
     for (int b = 0; b < B; ++b) {
-      if (lane[b].t < latest) steady(&s[b], &ptr[b], lane[b].t, latest, std::integral_constant<int, 1>());
+      if (lane[b].t < latest)
+        steady(&s[b], &ptr[b], lane[b].t, latest, std::integral_constant<int, 1>());
     }
   }
   if (latest < n) steady(s, ptr, latest, n, std::integral_constant<int, B>());
@@ -915,8 +916,8 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
     }
     est.sigma2 = sums.sum_sq / n;
     if (absl::Status s = ValidateParams(est); !s.ok()) return s;
-    f.loglik = -0.5 * (n * kLog2Pi + n * std::log(est.sigma2) + sums.sum_log_f +
-                       sums.sum_sq / est.sigma2);
+    f.loglik =
+        -0.5 * (n * kLog2Pi + n * std::log(est.sigma2) + sums.sum_log_f + sums.sum_sq / est.sigma2);
     ArmaFit fit = FinishFit(y, est, *start, f);
     fit.converged = converged;
     fit.evaluations = evaluations;
@@ -1035,9 +1036,8 @@ absl::StatusOr<std::vector<double>> ArmaStandardErrors(absl::Span<const double> 
 
 namespace internal {
 
-absl::Status ArmaFilterLanesForTest(absl::Span<const double> y,
-                                    const std::vector<ArmaParams>& sets, bool batch,
-                                    std::vector<ArmaLaneOutput>* out) {
+absl::Status ArmaFilterLanesForTest(absl::Span<const double> y, const std::vector<ArmaParams>& sets,
+                                    bool batch, std::vector<ArmaLaneOutput>* out) {
   const int count = static_cast<int>(sets.size());
   if (count == 0 || count > 4 * kMaxState) {
     return absl::InvalidArgumentError("1 to 24 parameter sets");
@@ -1065,10 +1065,9 @@ absl::Status ArmaFilterLanesForTest(absl::Span<const double> y,
   if (batch) {
     done = RunFilterBatch(y, count, sp.data(), sums.data(), resid.data(), ratio.data());
   } else {
-    while (done < count &&
-           RunFilter(y, sets[done].mu, sets[done].ar.data(), sets[done].p(), sets[done].ma.data(),
-                     sets[done].q(), &sums[done], &(*out)[done].residuals,
-                     &(*out)[done].variance_ratio)) {
+    while (done < count && RunFilter(y, sets[done].mu, sets[done].ar.data(), sets[done].p(),
+                                     sets[done].ma.data(), sets[done].q(), &sums[done],
+                                     &(*out)[done].residuals, &(*out)[done].variance_ratio)) {
       ++done;
     }
   }

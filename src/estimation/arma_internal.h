@@ -17,9 +17,9 @@ namespace aftershock::internal {
 
 // One parameter set's filter output at sigma2 = 1.
 struct ArmaLaneOutput {
-  double sum_log_f = 0.0;            // sum of log F_t
-  double sum_sq = 0.0;               // sum of v_t^2 / F_t
-  std::vector<double> residuals;     // v_t
+  double sum_log_f = 0.0;              // sum of log F_t
+  double sum_sq = 0.0;                 // sum of v_t^2 / F_t
+  std::vector<double> residuals;       // v_t
   std::vector<double> variance_ratio;  // F_t
 };
 
@@ -27,9 +27,8 @@ struct ArmaLaneOutput {
 // (batch = true) or one at a time (false). REQUIRES: the sets share p and q
 // and are valid (stationary AR, invertible MA). InvalidArgument otherwise,
 // Internal when a filter fails.
-absl::Status ArmaFilterLanesForTest(absl::Span<const double> y,
-                                    const std::vector<ArmaParams>& sets, bool batch,
-                                    std::vector<ArmaLaneOutput>* out);
+absl::Status ArmaFilterLanesForTest(absl::Span<const double> y, const std::vector<ArmaParams>& sets,
+                                    bool batch, std::vector<ArmaLaneOutput>* out);
 
 }  // namespace aftershock::internal
 

@@ -277,8 +277,7 @@ absl::StatusOr<IdentificationReport> IdentifyModelWithSearch(absl::Span<const do
   for (size_t i : order) {
     VarianceCandidateResult& c = rep.variance_candidates[i];
     c.spec = specs[i];
-    if (search.prune_nested_arch && specs[i].variance == VarianceKind::kArch &&
-        rep.arch_effect) {
+    if (search.prune_nested_arch && specs[i].variance == VarianceKind::kArch && rep.arch_effect) {
       double ll_bound = std::numeric_limits<double>::infinity();
       int bound_from = -1;
       double best_crit = std::numeric_limits<double>::infinity();

@@ -170,8 +170,7 @@ void CompareWithStatsmodels(const ArimaJob& job, const nlohmann::json& ref) {
   WARN(msg.str());
 }
 
-TEST_CASE("the interleaved filter lanes give each parameter set's values to the bit",
-          "[arma]") {
+TEST_CASE("the interleaved filter lanes give each parameter set's values to the bit", "[arma]") {
   // The Levenberg-Marquardt Jacobian runs its passes as interleaved lanes; a
   // lane's values must be those of the same pass run alone, for every state
   // dimension, batch size (groups of up to four) and switch to the steady
@@ -181,9 +180,12 @@ TEST_CASE("the interleaved filter lanes give each parameter set's values to the 
   struct Orders {
     std::vector<double> ar, ma;
   };
-  const std::vector<Orders> bases = {{{0.5}, {}},           {{}, {0.4}},
-                                     {{0.6}, {-0.3}},       {{0.5, -0.2}, {0.3, 0.1}},
-                                     {{}, {1.8, 0.81}},   {{0.3, 0.1, -0.1}, {0.9}},
+  const std::vector<Orders> bases = {{{0.5}, {}},
+                                     {{}, {0.4}},
+                                     {{0.6}, {-0.3}},
+                                     {{0.5, -0.2}, {0.3, 0.1}},
+                                     {{}, {1.8, 0.81}},
+                                     {{0.3, 0.1, -0.1}, {0.9}},
                                      {{0.2, 0.1, 0.05, 0.02, 0.01}, {0.5, 0.2, 0.1, 0.05, 0.02}}};
   int compared = 0;
   for (const Orders& base : bases) {
@@ -201,8 +203,8 @@ TEST_CASE("the interleaved filter lanes give each parameter set's values to the 
       std::vector<internal::ArmaLaneOutput> one, many;
       const absl::Status s1 = internal::ArmaFilterLanesForTest(y, sets, false, &one);
       const absl::Status s2 = internal::ArmaFilterLanesForTest(y, sets, true, &many);
-      INFO("p " << base.ar.size() << ", q " << base.ma.size() << ", " << count << " sets: "
-                << s1.message() << " / " << s2.message());
+      INFO("p " << base.ar.size() << ", q " << base.ma.size() << ", " << count
+                << " sets: " << s1.message() << " / " << s2.message());
       REQUIRE(s1.ok());
       REQUIRE(s2.ok());
       for (int k = 0; k < count; ++k) {

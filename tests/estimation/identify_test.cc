@@ -144,8 +144,7 @@ TEST_CASE("an ARCH candidate skipped by its criterion bound could not have won",
   CHECK(skipped > 0);  // the premise: the bound did cut candidates here
 }
 
-TEST_CASE("pruning never changes the choice: pruned and exhaustive searches agree",
-          "[identify]") {
+TEST_CASE("pruning never changes the choice: pruned and exhaustive searches agree", "[identify]") {
   // Series of different true orders and laws, short and long windows: the
   // search with the nested-ARCH bound and the one that fits every candidate
   // (internal::IdentifySearch, a test hook) must choose the same model, and
@@ -159,19 +158,47 @@ TEST_CASE("pruning never changes the choice: pruned and exhaustive searches agre
     std::vector<std::pair<std::string, double>> named;
   };
   const std::vector<Case> cases = {
-      {"constant", {}, "arch", {1}, "student", {{"mu", 0.0}, {"omega", 0.5}, {"alpha_1", 0.5},
-                                                {"nu", 5.0}}},
-      {"arma", {1, 0}, "arch", {2}, "gaussian", {{"mu", 0.0}, {"ar_1", 0.3}, {"omega", 0.4},
-                                                 {"alpha_1", 0.3}, {"alpha_2", 0.25}}},
-      {"constant", {}, "arch", {3}, "gaussian", {{"mu", 0.0}, {"omega", 0.2}, {"alpha_1", 0.3},
-                                                 {"alpha_2", 0.2}, {"alpha_3", 0.2}}},
-      {"arma", {0, 1}, "garch", {1, 1}, "student", {{"mu", 0.0}, {"ma_1", 0.3}, {"omega", 0.02},
-                                                    {"alpha_1", 0.1}, {"beta_1", 0.85},
-                                                    {"nu", 6.0}}},
-      {"arma", {1, 0}, "gjr", {1, 1, 1}, "student", {{"mu", 0.01}, {"ar_1", 0.1},
-                                                     {"omega", 0.03}, {"alpha_1", 0.04},
-                                                     {"gamma_1", 0.08}, {"beta_1", 0.88},
-                                                     {"nu", 7.0}}},
+      {"constant",
+       {},
+       "arch",
+       {1},
+       "student",
+       {{"mu", 0.0}, {"omega", 0.5}, {"alpha_1", 0.5}, {"nu", 5.0}}},
+      {"arma",
+       {1, 0},
+       "arch",
+       {2},
+       "gaussian",
+       {{"mu", 0.0}, {"ar_1", 0.3}, {"omega", 0.4}, {"alpha_1", 0.3}, {"alpha_2", 0.25}}},
+      {"constant",
+       {},
+       "arch",
+       {3},
+       "gaussian",
+       {{"mu", 0.0}, {"omega", 0.2}, {"alpha_1", 0.3}, {"alpha_2", 0.2}, {"alpha_3", 0.2}}},
+      {"arma",
+       {0, 1},
+       "garch",
+       {1, 1},
+       "student",
+       {{"mu", 0.0},
+        {"ma_1", 0.3},
+        {"omega", 0.02},
+        {"alpha_1", 0.1},
+        {"beta_1", 0.85},
+        {"nu", 6.0}}},
+      {"arma",
+       {1, 0},
+       "gjr",
+       {1, 1, 1},
+       "student",
+       {{"mu", 0.01},
+        {"ar_1", 0.1},
+        {"omega", 0.03},
+        {"alpha_1", 0.04},
+        {"gamma_1", 0.08},
+        {"beta_1", 0.88},
+        {"nu", 7.0}}},
   };
   internal::IdentifySearch exhaustive;
   exhaustive.prune_nested_arch = false;
