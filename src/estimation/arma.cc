@@ -8,12 +8,14 @@
 #include <limits>
 #include <map>
 #include <nlopt.hpp>
+#include <type_traits>
 #include <utility>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/least_squares.h"
 #include "aftershock/model_spec.h"
 #include "aftershock/stats.h"
+#include "estimation/arma_internal.h"
 
 namespace aftershock {
 namespace {
@@ -97,16 +99,84 @@ struct FilterSums {
   double sum_sq = 0.0;
 };
 
-// The filter proper for state dimension R (a compile-time constant so the
-// small loops unroll). pm holds the stationary P_0 (row-major R x R).
+// The state-space form of one parameter set: the mean, the first column phi of
+// the transition (the AR coefficients), R = (1, ma_1, .., ma_q)' and the
+// stationary state covariance P_0 (row-major r x r), r = max(p, q + 1).
+struct FilterSetup {
+  int r = 1;
+  double mu = 0.0;
+  std::array<double, kMaxState> phi{}, rv{};
+  std::array<double, kMaxState * kMaxState> pm{};
+};
+
+// Fills `s` for validated parameters (stationary AR, invertible MA).
+void SetupFilter(double mu, const double* ar, int p, const double* ma, int q, FilterSetup* s) {
+  const int r = std::max(p, q + 1);
+  s->r = r;
+  s->mu = mu;
+  s->phi.fill(0.0);
+  s->rv.fill(0.0);
+  s->pm.fill(0.0);
+  std::array<double, kMaxState>& phi = s->phi;
+  std::array<double, kMaxState>& rv = s->rv;
+  for (int i = 0; i < p; ++i) phi[i] = ar[i];
+  rv[0] = 1.0;
+  for (int j = 0; j < q; ++j) rv[j + 1] = ma[j];
+
+  // Stationary state covariance: (I - T (x) T) vec(P) = vec(R R').
+  if (r == 1) {
+    s->pm[0] = 1.0 / (1.0 - phi[0] * phi[0]);
+  } else {
+    using Mat = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, 0, kMaxState * kMaxState,
+                              kMaxState * kMaxState>;
+    using Vec = Eigen::Matrix<double, Eigen::Dynamic, 1, 0, kMaxState * kMaxState, 1>;
+    const auto tm = [&](int i, int k) { return k == 0 ? phi[i] : (k == i + 1 ? 1.0 : 0.0); };
+    const int r2 = r * r;
+    Mat a = Mat::Identity(r2, r2);
+    Vec b(r2);
+    for (int i = 0; i < r; ++i) {
+      for (int j = 0; j < r; ++j) {
+        b(i * r + j) = rv[i] * rv[j];
+        for (int k = 0; k < r; ++k) {
+          const double tik = tm(i, k);
+          if (tik == 0.0) continue;
+          for (int l = 0; l < r; ++l) a(i * r + j, k * r + l) -= tik * tm(j, l);
+        }
+      }
+    }
+    Vec sol = a.partialPivLu().solve(b);
+    for (int i = 0; i < r2; ++i) s->pm[i] = sol(i);
+  }
+}
+
+// One parameter set's filter in progress: the state, the running sums, the
+// next observation and where the errors and variance ratios go (null: not kept).
 template <int R>
-bool FilterLoop(absl::Span<const double> y, double mu, const std::array<double, kMaxState>& phi,
-                const std::array<double, kMaxState>& rv,
-                std::array<double, kMaxState * kMaxState> pm, FilterSums* sums,
-                std::vector<double>* resid, std::vector<double>* ratio) {
-  const int n = static_cast<int>(y.size());
-  double st[R] = {}, gain[R] = {}, tp0[R] = {}, m[R * R];
+struct FilterLane {
+  double st[R] = {};
+  double gain[R] = {};  // steady-state gain T R
   double sum_log_f = 0.0, sum_sq = 0.0;
+  int t = 0;
+  double* resid = nullptr;
+  double* ratio = nullptr;
+};
+
+// The time-varying phase of the filter for state dimension R (a compile-time
+// constant so the small loops unroll), from P_0 until trace(P_t - R R') falls
+// below kSteadyTolerance (P_t - R R' is positive semi-definite, so every entry
+// is then bounded) or the sample ends; lane->t is then the first observation of
+// the steady state. False when some F_t is not positive and finite.
+template <int R>
+bool FilterTransient(absl::Span<const double> y, const FilterSetup& s, FilterLane<R>* lane) {
+  const int n = static_cast<int>(y.size());
+  const double mu = s.mu;
+  const std::array<double, kMaxState>& phi = s.phi;
+  const std::array<double, kMaxState>& rv = s.rv;
+  std::array<double, kMaxState* kMaxState> pm = s.pm;
+  double st[R] = {}, tp0[R] = {}, m[R * R];
+  double sum_log_f = 0.0, sum_sq = 0.0;
+  double* resid = lane->resid;
+  double* ratio = lane->ratio;
   int t = 0;
   for (; t < n; ++t) {
     const double v = y[t] - mu - st[0];
@@ -114,8 +184,8 @@ bool FilterLoop(absl::Span<const double> y, double mu, const std::array<double, 
     if (!(f > 0.0) || !std::isfinite(f)) return false;
     sum_log_f += std::log(f);
     sum_sq += v * v / f;
-    if (resid) (*resid)[t] = v;
-    if (ratio) (*ratio)[t] = f;
+    if (resid) resid[t] = v;
+    if (ratio) ratio[t] = f;
     // M = T P; (T P)_{i.} = phi_i P_{0.} + P_{i+1,.}.
     for (int i = 0; i < R; ++i) {
       for (int j = 0; j < R; ++j) {
@@ -141,70 +211,170 @@ bool FilterLoop(absl::Span<const double> y, double mu, const std::array<double, 
       break;
     }
   }
+  for (int i = 0; i < R; ++i) lane->st[i] = st[i];
   // Steady state: F = 1 and the gain is T R, so a_{t+1} = T a_t + T R v_t.
-  for (int i = 0; i < R; ++i) gain[i] = phi[i] + (i + 1 < R ? rv[i + 1] : 0.0);
-  for (; t < n; ++t) {
-    const double v = y[t] - mu - st[0];
-    sum_sq += v * v;
-    if (resid) (*resid)[t] = v;
-    if (ratio) (*ratio)[t] = 1.0;
-    const double s0 = st[0];
-    for (int i = 0; i < R; ++i) st[i] = phi[i] * s0 + (i + 1 < R ? st[i + 1] : 0.0) + gain[i] * v;
+  for (int i = 0; i < R; ++i) lane->gain[i] = phi[i] + (i + 1 < R ? rv[i + 1] : 0.0);
+  lane->sum_log_f = sum_log_f;
+  lane->sum_sq = sum_sq;
+  lane->t = t;
+  return true;
+}
+
+// The steady state of B lanes over observations [lane->t, end), the lanes'
+// recursions interleaved so that their dependency chains (a subtraction, a
+// multiplication and an addition per observation) overlap. Each lane's
+// operations are those of a lane run alone, in the same order, so the values
+// do not depend on B or on the other lanes. REQUIRES: every lane->t == from.
+template <int R, int B, bool kKeep>
+void FilterSteady(absl::Span<const double> y, const FilterSetup* const* s,
+                  FilterLane<R>* const* lanes, int from, int end) {
+  double st[B][R], gain[B][R], phi[B][R], mu[B], sum_sq[B];
+  double* resid[B];
+  double* ratio[B];
+  for (int b = 0; b < B; ++b) {
+    for (int i = 0; i < R; ++i) {
+      st[b][i] = lanes[b]->st[i];
+      gain[b][i] = lanes[b]->gain[i];
+      phi[b][i] = s[b]->phi[i];
+    }
+    mu[b] = s[b]->mu;
+    sum_sq[b] = lanes[b]->sum_sq;
+    resid[b] = lanes[b]->resid;
+    ratio[b] = lanes[b]->ratio;
   }
-  sums->sum_log_f = sum_log_f;
-  sums->sum_sq = sum_sq;
-  return std::isfinite(sum_sq) && std::isfinite(sum_log_f);
+  for (int t = from; t < end; ++t) {
+    const double yt = y[t];
+#pragma GCC unroll 8
+    for (int b = 0; b < B; ++b) {
+      const double v = yt - mu[b] - st[b][0];
+      sum_sq[b] += v * v;
+      if (kKeep) {
+        resid[b][t] = v;
+        ratio[b][t] = 1.0;
+      }
+      const double s0 = st[b][0];
+#pragma GCC unroll 8
+      for (int i = 0; i < R; ++i) {
+        st[b][i] = phi[b][i] * s0 + (i + 1 < R ? st[b][i + 1] : 0.0) + gain[b][i] * v;
+      }
+    }
+  }
+  for (int b = 0; b < B; ++b) {
+    for (int i = 0; i < R; ++i) lanes[b]->st[i] = st[b][i];
+    lanes[b]->sum_sq = sum_sq[b];
+    lanes[b]->t = end;
+  }
+}
+
+// Filters B parameter sets of state dimension R (their setups s[0..B-1]) over
+// y: each lane's time-varying phase alone, then the steady states, each alone
+// up to the latest switch and interleaved from there. Lane b's outputs go to
+// sums[b], resid[b] and ratio[b] (all null or all non-null). Returns the number of lanes
+// that succeeded before the first failure (B when all did).
+template <int R, int B>
+int FilterLanes(absl::Span<const double> y, const FilterSetup* const* s, FilterSums* sums,
+                double* const* resid, double* const* ratio) {
+  const int n = static_cast<int>(y.size());
+  FilterLane<R> lane[B];
+  FilterLane<R>* ptr[B];
+  int latest = 0;
+  for (int b = 0; b < B; ++b) {
+    lane[b].resid = resid[b];
+    lane[b].ratio = ratio[b];
+    if (!FilterTransient<R>(y, *s[b], &lane[b])) return b;
+    latest = std::max(latest, lane[b].t);
+    ptr[b] = &lane[b];
+  }
+  // REQUIRES (callers): errors and ratios kept for every lane or for none.
+  const bool keep = resid[0] != nullptr;
+  const auto steady = [&](const FilterSetup* const* ls, FilterLane<R>* const* ll, int from, int end,
+                          auto lanes_tag) {
+    constexpr int kLanes = decltype(lanes_tag)::value;
+    if (keep) {
+      FilterSteady<R, kLanes, true>(y, ls, ll, from, end);
+    } else {
+      FilterSteady<R, kLanes, false>(y, ls, ll, from, end);
+    }
+  };
+  if (B > 1) {
+    for (int b = 0; b < B; ++b) {
+      if (lane[b].t < latest)
+        steady(&s[b], &ptr[b], lane[b].t, latest, std::integral_constant<int, 1>());
+    }
+  }
+  if (latest < n) steady(s, ptr, latest, n, std::integral_constant<int, B>());
+  for (int b = 0; b < B; ++b) {
+    sums[b].sum_log_f = lane[b].sum_log_f;
+    sums[b].sum_sq = lane[b].sum_sq;
+    if (!(std::isfinite(sums[b].sum_sq) && std::isfinite(sums[b].sum_log_f))) return b;
+  }
+  return B;
+}
+
+template <int B>
+int FilterLanesOfOrder(int r, absl::Span<const double> y, const FilterSetup* const* s,
+                       FilterSums* sums, double* const* resid, double* const* ratio) {
+  switch (r) {
+    case 1:
+      return FilterLanes<1, B>(y, s, sums, resid, ratio);
+    case 2:
+      return FilterLanes<2, B>(y, s, sums, resid, ratio);
+    case 3:
+      return FilterLanes<3, B>(y, s, sums, resid, ratio);
+    case 4:
+      return FilterLanes<4, B>(y, s, sums, resid, ratio);
+    case 5:
+      return FilterLanes<5, B>(y, s, sums, resid, ratio);
+    default:
+      return FilterLanes<6, B>(y, s, sums, resid, ratio);
+  }
 }
 
 // Exact filter at sigma2 = 1 for validated parameters (stationary AR,
-// invertible MA). Fills the sums and optionally the errors and variance ratios.
+// invertible MA). Fills the sums and optionally (both or neither) the errors
+// and variance ratios.
 bool RunFilter(absl::Span<const double> y, double mu, const double* ar, int p, const double* ma,
                int q, FilterSums* sums, std::vector<double>* resid, std::vector<double>* ratio) {
-  const int r = std::max(p, q + 1);
-  std::array<double, kMaxState> phi{}, rv{};
-  for (int i = 0; i < p; ++i) phi[i] = ar[i];
-  rv[0] = 1.0;
-  for (int j = 0; j < q; ++j) rv[j + 1] = ma[j];
+  FilterSetup setup;
+  SetupFilter(mu, ar, p, ma, q, &setup);
+  const FilterSetup* s = &setup;
+  double* e = resid ? resid->data() : nullptr;
+  double* f = ratio ? ratio->data() : nullptr;
+  return FilterLanesOfOrder<1>(setup.r, y, &s, sums, &e, &f) == 1;
+}
 
-  // Stationary state covariance: (I - T (x) T) vec(P) = vec(R R').
-  std::array<double, kMaxState * kMaxState> pm{};
-  if (r == 1) {
-    pm[0] = 1.0 / (1.0 - phi[0] * phi[0]);
-  } else {
-    using Mat = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, 0, kMaxState * kMaxState,
-                              kMaxState * kMaxState>;
-    using Vec = Eigen::Matrix<double, Eigen::Dynamic, 1, 0, kMaxState * kMaxState, 1>;
-    const auto tm = [&](int i, int k) { return k == 0 ? phi[i] : (k == i + 1 ? 1.0 : 0.0); };
-    const int r2 = r * r;
-    Mat a = Mat::Identity(r2, r2);
-    Vec b(r2);
-    for (int i = 0; i < r; ++i) {
-      for (int j = 0; j < r; ++j) {
-        b(i * r + j) = rv[i] * rv[j];
-        for (int k = 0; k < r; ++k) {
-          const double tik = tm(i, k);
-          if (tik == 0.0) continue;
-          for (int l = 0; l < r; ++l) a(i * r + j, k * r + l) -= tik * tm(j, l);
-        }
-      }
+// RunFilter for `count` parameter sets of the same orders (setups s[0..count-1])
+// in groups of up to four interleaved lanes, as even as possible; each lane's
+// values are those of RunFilter alone. Returns the number of parameter sets
+// filtered before the first failure (count when none failed).
+int RunFilterBatch(absl::Span<const double> y, int count, const FilterSetup* const* s,
+                   FilterSums* sums, double* const* resid, double* const* ratio) {
+  int done = 0;
+  while (done < count) {
+    // Groups as even as possible (5 = 3 + 2, not 4 + 1: a lone lane runs at
+    // the latency of its chain, as long as a group of three or four).
+    const int groups = (count - done + 3) / 4;
+    const int b = (count - done + groups - 1) / groups;
+    const int r = s[done]->r;
+    int ok = 0;
+    switch (b) {
+      case 1:
+        ok = FilterLanesOfOrder<1>(r, y, s + done, sums + done, resid + done, ratio + done);
+        break;
+      case 2:
+        ok = FilterLanesOfOrder<2>(r, y, s + done, sums + done, resid + done, ratio + done);
+        break;
+      case 3:
+        ok = FilterLanesOfOrder<3>(r, y, s + done, sums + done, resid + done, ratio + done);
+        break;
+      default:
+        ok = FilterLanesOfOrder<4>(r, y, s + done, sums + done, resid + done, ratio + done);
+        break;
     }
-    Vec sol = a.partialPivLu().solve(b);
-    for (int i = 0; i < r2; ++i) pm[i] = sol(i);
+    done += ok;
+    if (ok < b) return done;
   }
-  switch (r) {
-    case 1:
-      return FilterLoop<1>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 2:
-      return FilterLoop<2>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 3:
-      return FilterLoop<3>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 4:
-      return FilterLoop<4>(y, mu, phi, rv, pm, sums, resid, ratio);
-    case 5:
-      return FilterLoop<5>(y, mu, phi, rv, pm, sums, resid, ratio);
-    default:
-      return FilterLoop<6>(y, mu, phi, rv, pm, sums, resid, ratio);
-  }
+  return done;
 }
 
 absl::Status ValidateParams(const ArmaParams& params) {
@@ -408,24 +578,96 @@ std::vector<double> Encode(const Problem& pr, const ArmaParams& a) {
 // w_t = g v_t / sqrt(F_t) gives sum w_t^2 = (sum v_t^2 / F_t) prod F_t^(1/n),
 // and the concentrated log-likelihood is -n/2 (log(2 pi) + 1 + log(sum w^2 / n)):
 // maximizing it is minimizing sum w^2. False where the filter fails.
+// Weights the filter's errors w (in place) by g / sqrt(F_t) and sums their
+// squares; false when that sum is not finite or sum v^2 / F is not positive.
+bool WeightErrors(const FilterSums& sums, int n, double* w, const double* ratio, double* ss) {
+  if (!(sums.sum_sq > 0.0)) return false;
+  const double g = std::exp(sums.sum_log_f / (2.0 * n));
+  double acc = 0.0;
+  for (int t = 0; t < n; ++t) {
+    const double f = ratio[t];
+    w[t] *= f == 1.0 ? g : g / std::sqrt(f);
+    acc += w[t] * w[t];
+  }
+  *ss = acc;
+  return std::isfinite(acc);
+}
+
+// WeightErrors for B lanes whose sums v^2 / F are positive, their loops
+// interleaved; each lane's operations are those of WeightErrors alone.
+template <int B>
+void WeightLanes(const FilterSums* sums, int n, double* const* w, const double* const* ratio,
+                 double* ss) {
+  double g[B], acc[B];
+  for (int b = 0; b < B; ++b) {
+    g[b] = std::exp(sums[b].sum_log_f / (2.0 * n));
+    acc[b] = 0.0;
+  }
+  for (int t = 0; t < n; ++t) {
+#pragma GCC unroll 4
+    for (int b = 0; b < B; ++b) {
+      const double f = ratio[b][t];
+      w[b][t] *= f == 1.0 ? g[b] : g[b] / std::sqrt(f);
+      acc[b] += w[b][t] * w[b][t];
+    }
+  }
+  for (int b = 0; b < B; ++b) ss[b] = acc[b];
+}
+
 bool WeightedErrors(const Problem& pr, const double* x, std::vector<double>* w,
                     std::vector<double>* ratio, double* ss) {
   double mu, ar[kMaxArmaOrder], ma[kMaxArmaOrder];
   Decode(pr, x, &mu, ar, ma);
   FilterSums sums;
-  if (!RunFilter(pr.y, mu, ar, pr.p, ma, pr.q, &sums, w, ratio) || !(sums.sum_sq > 0.0)) {
-    return false;
+  if (!RunFilter(pr.y, mu, ar, pr.p, ma, pr.q, &sums, w, ratio)) return false;
+  return WeightErrors(sums, static_cast<int>(pr.y.size()), w->data(), ratio->data(), ss);
+}
+
+// WeightedErrors at `count` points xs[0..count-1] (the filters interleaved by
+// RunFilterBatch; each point's values are those of WeightedErrors alone): the
+// errors of point k go to w[k] and the variance ratios to ratio[k] (n entries
+// each). Returns the number of points before the first failure (count when
+// none failed).
+int WeightedErrorsBatch(const Problem& pr, int count, const double* const* xs, double* const* w,
+                        double* const* ratio, double* ss) {
+  constexpr int kMaxBatch = 1 + 2 * kMaxArmaOrder;
+  std::array<FilterSetup, kMaxBatch> setups;
+  std::array<const FilterSetup*, kMaxBatch> sp;
+  std::array<FilterSums, kMaxBatch> sums;
+  for (int k = 0; k < count; ++k) {
+    double mu, ar[kMaxArmaOrder], ma[kMaxArmaOrder];
+    Decode(pr, xs[k], &mu, ar, ma);
+    SetupFilter(mu, ar, pr.p, ma, pr.q, &setups[k]);
+    sp[k] = &setups[k];
   }
+  const int filtered = RunFilterBatch(pr.y, count, sp.data(), sums.data(), w, ratio);
   const int n = static_cast<int>(pr.y.size());
-  const double g = std::exp(sums.sum_log_f / (2.0 * n));
-  double acc = 0.0;
-  for (int t = 0; t < n; ++t) {
-    const double f = (*ratio)[t];
-    (*w)[t] *= f == 1.0 ? g : g / std::sqrt(f);
-    acc += (*w)[t] * (*w)[t];
+  // The points up to the first whose sum v^2 / F is not positive are weighted,
+  // up to four at a time with their sums of squares interleaved.
+  int weighted = 0;
+  while (weighted < filtered && sums[weighted].sum_sq > 0.0) ++weighted;
+  for (int k = 0; k < weighted;) {
+    const int b = std::min(4, weighted - k);
+    switch (b) {
+      case 1:
+        WeightLanes<1>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+      case 2:
+        WeightLanes<2>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+      case 3:
+        WeightLanes<3>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+      default:
+        WeightLanes<4>(sums.data() + k, n, w + k, ratio + k, ss + k);
+        break;
+    }
+    k += b;
   }
-  *ss = acc;
-  return std::isfinite(acc);
+  for (int k = 0; k < weighted; ++k) {
+    if (!std::isfinite(ss[k])) return k;
+  }
+  return weighted;
 }
 
 // Levenberg-Marquardt on the sum of squares above, in the optimizer's
@@ -450,22 +692,42 @@ bool RefineByLevenbergMarquardt(Problem* pr, std::vector<double>* x, const doubl
   ++pr->evaluations;
   if (!WeightedErrors(*pr, x->data(), &w, &ratio, &ss)) return false;
   Eigen::MatrixXd jac(n, dim);
+  std::vector<double> ratios(static_cast<size_t>(n) * dim), steps(dim), ss_cols(dim);
+  std::vector<std::vector<double>> xs(dim);
+  std::vector<const double*> xp(dim);
+  std::vector<double*> wp(dim), rp(dim);
   double lambda = 1e-3;
   int ftol_run = 0;  // accepted steps running within the objective tolerance
   for (int it = 0; it < max_iterations; ++it) {
     // An iteration needs at least dim + 1 passes: stop within the budget.
     if (pr->evaluations + dim + 1 > max_evaluations) return false;
+    // The dim shifted points' filters run interleaved, their weighted errors
+    // straight into the Jacobian's columns.
     for (int i = 0; i < dim; ++i) {
-      xt = *x;
-      const double h = 1e-7 * std::max(1.0, std::fabs(xt[i]));
-      xt[i] += h;
-      double ss_h = 0.0;
-      ++pr->evaluations;
-      if (!WeightedErrors(*pr, xt.data(), &wt, &ratio, &ss_h)) return false;
-      for (int t = 0; t < n; ++t) jac(t, i) = (wt[t] - w[t]) / h;
+      xs[i] = *x;
+      steps[i] = 1e-7 * std::max(1.0, std::fabs(xs[i][i]));
+      xs[i][i] += steps[i];
+      xp[i] = xs[i].data();
+      wp[i] = jac.col(i).data();
+      rp[i] = &ratios[static_cast<size_t>(i) * n];
+    }
+    const int done = WeightedErrorsBatch(*pr, dim, xp.data(), wp.data(), rp.data(), ss_cols.data());
+    // As many evaluations as one point at a time up to the first failure.
+    pr->evaluations += std::min(done + 1, dim);
+    if (done < dim) return false;
+    for (int i = 0; i < dim; ++i) {
+      const double h = steps[i];
+      double* col = jac.col(i).data();
+      for (int t = 0; t < n; ++t) col[t] = (col[t] - w[t]) / h;
     }
     const Eigen::Map<const Eigen::VectorXd> wv(w.data(), n);
-    const Eigen::MatrixXd a = jac.transpose() * jac;
+    // J'J entry by entry (vectorized dot products of the columns): a general
+    // matrix product packs both n x dim operands first, which costs more than
+    // the products at these sizes.
+    Eigen::MatrixXd a(dim, dim);
+    for (int i = 0; i < dim; ++i) {
+      for (int j = 0; j <= i; ++j) a(i, j) = a(j, i) = jac.col(i).dot(jac.col(j));
+    }
     const Eigen::VectorXd g = jac.transpose() * wv;
     bool accepted = false;
     for (int tries = 0; tries < 12 && !accepted; ++tries) {
@@ -642,12 +904,25 @@ absl::StatusOr<ArmaFit> FitArmaImpl(absl::Span<const double> y, int p, int q,
     Decode(pr, x.data(), &est.mu, ar, ma);
     est.ar.assign(ar, ar + p);
     est.ma.assign(ma, ma + q);
+    // One pass at the optimum gives sigma2 (concentrated out) and the errors
+    // ArmaFilter(y, est) would give: the errors do not depend on sigma2.
+    ArmaFilterOutput f;
+    f.residuals.resize(n);
+    f.variance_ratio.resize(n);
     FilterSums sums;
-    if (!RunFilter(y, est.mu, ar, p, ma, q, &sums, nullptr, nullptr)) {
+    if (!RunFilter(y, est.mu, ar, p, ma, q, &sums, &f.residuals, &f.variance_ratio)) {
       return absl::InternalError(
           absl::StrCat("ARMA(", p, ",", q, ") likelihood failed at the optimum"));
     }
     est.sigma2 = sums.sum_sq / n;
+    if (absl::Status s = ValidateParams(est); !s.ok()) return s;
+    f.loglik =
+        -0.5 * (n * kLog2Pi + n * std::log(est.sigma2) + sums.sum_log_f + sums.sum_sq / est.sigma2);
+    ArmaFit fit = FinishFit(y, est, *start, f);
+    fit.converged = converged;
+    fit.evaluations = evaluations;
+    fit.optimizer_message = message;
+    return fit;
   }
   absl::StatusOr<ArmaFilterOutput> f = ArmaFilter(y, est);
   if (!f.ok()) return f.status();
@@ -758,6 +1033,53 @@ absl::StatusOr<std::vector<double>> ArmaStandardErrors(absl::Span<const double> 
   for (int i = 0; i < k; ++i) se[i] = std::sqrt(cov(i, i));
   return se;
 }
+
+namespace internal {
+
+absl::Status ArmaFilterLanesForTest(absl::Span<const double> y, const std::vector<ArmaParams>& sets,
+                                    bool batch, std::vector<ArmaLaneOutput>* out) {
+  const int count = static_cast<int>(sets.size());
+  if (count == 0 || count > 4 * kMaxState) {
+    return absl::InvalidArgumentError("1 to 24 parameter sets");
+  }
+  const int n = static_cast<int>(y.size());
+  std::vector<FilterSetup> setups(count);
+  std::vector<const FilterSetup*> sp(count);
+  std::vector<FilterSums> sums(count);
+  out->assign(count, ArmaLaneOutput());
+  std::vector<double*> resid(count), ratio(count);
+  for (int k = 0; k < count; ++k) {
+    const ArmaParams& a = sets[k];
+    if (absl::Status s = ValidateParams(a); !s.ok()) return s;
+    if (a.p() != sets[0].p() || a.q() != sets[0].q()) {
+      return absl::InvalidArgumentError("the parameter sets must share p and q");
+    }
+    SetupFilter(a.mu, a.ar.data(), a.p(), a.ma.data(), a.q(), &setups[k]);
+    sp[k] = &setups[k];
+    (*out)[k].residuals.assign(n, 0.0);
+    (*out)[k].variance_ratio.assign(n, 0.0);
+    resid[k] = (*out)[k].residuals.data();
+    ratio[k] = (*out)[k].variance_ratio.data();
+  }
+  int done = 0;
+  if (batch) {
+    done = RunFilterBatch(y, count, sp.data(), sums.data(), resid.data(), ratio.data());
+  } else {
+    while (done < count && RunFilter(y, sets[done].mu, sets[done].ar.data(), sets[done].p(),
+                                     sets[done].ma.data(), sets[done].q(), &sums[done],
+                                     &(*out)[done].residuals, &(*out)[done].variance_ratio)) {
+      ++done;
+    }
+  }
+  if (done < count) return absl::InternalError("a filter failed");
+  for (int k = 0; k < count; ++k) {
+    (*out)[k].sum_log_f = sums[k].sum_log_f;
+    (*out)[k].sum_sq = sums[k].sum_sq;
+  }
+  return absl::OkStatus();
+}
+
+}  // namespace internal
 
 absl::StatusOr<ArmaSelection> SelectArmaOrder(absl::Span<const double> y, int max_p, int max_q,
                                               InfoCriterion criterion,

@@ -9,6 +9,7 @@
 #include "aftershock/likelihood.h"
 #include "aftershock/stats.h"
 #include "estimation/estimator_internal.h"
+#include "estimation/identify_internal.h"
 
 namespace aftershock {
 namespace {
@@ -137,6 +138,14 @@ std::vector<TestOutcome> StandardizedResidualDiagnostics(absl::Span<const double
 
 absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> returns,
                                                    const IdentifyOptions& options) {
+  return internal::IdentifyModelWithSearch(returns, options, internal::IdentifySearch());
+}
+
+namespace internal {
+
+absl::StatusOr<IdentificationReport> IdentifyModelWithSearch(absl::Span<const double> returns,
+                                                             const IdentifyOptions& options,
+                                                             const IdentifySearch& search) {
   if (auto s = ValidateReturns(returns, kMinIdentifyObservations); !s.ok()) return s;
   if (options.max_ar < 0 || options.max_ar > kMaxArmaOrder || options.max_ma < 0 ||
       options.max_ma > kMaxArmaOrder) {
@@ -290,7 +299,7 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
   for (size_t i : order) {
     VarianceCandidateResult& c = rep.variance_candidates[i];
     c.spec = specs[i];
-    if (specs[i].variance == VarianceKind::kArch && rep.arch_effect) {
+    if (search.prune_nested_arch && specs[i].variance == VarianceKind::kArch && rep.arch_effect) {
       double ll_bound = std::numeric_limits<double>::infinity();
       int bound_from = -1;
       double best_crit = std::numeric_limits<double>::infinity();
@@ -435,4 +444,5 @@ absl::StatusOr<IdentificationReport> IdentifyModel(absl::Span<const double> retu
   return rep;
 }
 
+}  // namespace internal
 }  // namespace aftershock

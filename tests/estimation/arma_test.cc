@@ -12,6 +12,7 @@
 #include <string>
 #include <vector>
 
+#include "estimation/arma_internal.h"
 #include "support/test_support.h"
 
 namespace aftershock {
@@ -167,6 +168,61 @@ void CompareWithStatsmodels(const ArimaJob& job, const nlohmann::json& ref) {
   msg << " sigma2=" << fit->params.sigma2 << " | theirs " << sp.dump() << " (" << fit->evaluations
       << " evaluations)";
   WARN(msg.str());
+}
+
+TEST_CASE("the interleaved filter lanes give each parameter set's values to the bit", "[arma]") {
+  // The Levenberg-Marquardt Jacobian runs its passes as interleaved lanes; a
+  // lane's values must be those of the same pass run alone, for every state
+  // dimension, batch size (groups of up to four) and switch to the steady
+  // state at different bars (an MA root near the unit circle makes the
+  // time-varying phase long).
+  const std::vector<double> y = SimulateArma(Params(0.3, {0.6}, {0.3}, 1.0), 700, 2024);
+  struct Orders {
+    std::vector<double> ar, ma;
+  };
+  const std::vector<Orders> bases = {{{0.5}, {}},
+                                     {{}, {0.4}},
+                                     {{0.6}, {-0.3}},
+                                     {{0.5, -0.2}, {0.3, 0.1}},
+                                     {{}, {1.8, 0.81}},
+                                     {{0.3, 0.1, -0.1}, {0.9}},
+                                     {{0.2, 0.1, 0.05, 0.02, 0.01}, {0.5, 0.2, 0.1, 0.05, 0.02}}};
+  int compared = 0;
+  for (const Orders& base : bases) {
+    for (int count = 1; count <= 9; ++count) {
+      std::vector<ArmaParams> sets;
+      for (int k = 0; k < count; ++k) {
+        // Shifts of a few per cent, larger for later lanes: different gains
+        // and different switches to the steady state.
+        const double f = 1.0 - 0.02 * k;
+        ArmaParams a = Params(0.3 + 0.01 * k, base.ar, base.ma, 1.0);
+        for (double& v : a.ar) v *= f;
+        for (double& v : a.ma) v *= f;
+        sets.push_back(a);
+      }
+      std::vector<internal::ArmaLaneOutput> one, many;
+      const absl::Status s1 = internal::ArmaFilterLanesForTest(y, sets, false, &one);
+      const absl::Status s2 = internal::ArmaFilterLanesForTest(y, sets, true, &many);
+      INFO("p " << base.ar.size() << ", q " << base.ma.size() << ", " << count
+                << " sets: " << s1.message() << " / " << s2.message());
+      REQUIRE(s1.ok());
+      REQUIRE(s2.ok());
+      for (int k = 0; k < count; ++k) {
+        INFO("p " << base.ar.size() << ", q " << base.ma.size() << ", lane " << k << " of "
+                  << count);
+        CHECK(many[k].sum_log_f == one[k].sum_log_f);
+        CHECK(many[k].sum_sq == one[k].sum_sq);
+        CHECK(many[k].residuals == one[k].residuals);
+        CHECK(many[k].variance_ratio == one[k].variance_ratio);
+        ++compared;
+      }
+      // And the single pass agrees with the public filter.
+      auto f = ArmaFilter(y, sets[0]);
+      REQUIRE(f.ok());
+      CHECK(f->residuals == one[0].residuals);
+    }
+  }
+  CHECK(compared == 7 * 45);
 }
 
 TEST_CASE("ARMA with constant vs statsmodels ARIMA", "[arma][statsmodels]") {

@@ -11,6 +11,7 @@
 #include "aftershock/pipeline_refitter.h"
 #include "aftershock/series_file.h"
 #include "aftershock/simulate.h"
+#include "estimation/identify_internal.h"
 #include "support/test_support.h"
 
 namespace aftershock {
@@ -157,6 +158,98 @@ TEST_CASE("an ARCH candidate skipped by its criterion bound could not have won",
     CHECK(fit->bic > best);
   }
   CHECK(skipped > 0);  // the premise: the bound did cut candidates here
+}
+
+TEST_CASE("pruning never changes the choice: pruned and exhaustive searches agree", "[identify]") {
+  // Series of different true orders and laws, short and long windows: the
+  // search with the nested-ARCH bound and the one that fits every candidate
+  // (internal::IdentifySearch, a test hook) must choose the same model, and
+  // every candidate the bound skipped must lose when fitted.
+  struct Case {
+    const char* mean;
+    std::vector<int> mo;
+    const char* var;
+    VarianceLags vo;
+    const char* law;
+    std::vector<std::pair<std::string, double>> named;
+  };
+  const std::vector<Case> cases = {
+      {"constant",
+       {},
+       "arch",
+       {1},
+       "student",
+       {{"mu", 0.0}, {"omega", 0.5}, {"alpha_1", 0.5}, {"nu", 5.0}}},
+      {"arma",
+       {1, 0},
+       "arch",
+       {2},
+       "gaussian",
+       {{"mu", 0.0}, {"ar_1", 0.3}, {"omega", 0.4}, {"alpha_1", 0.3}, {"alpha_2", 0.25}}},
+      {"constant",
+       {},
+       "arch",
+       {3},
+       "gaussian",
+       {{"mu", 0.0}, {"omega", 0.2}, {"alpha_1", 0.3}, {"alpha_2", 0.2}, {"alpha_3", 0.2}}},
+      {"arma",
+       {0, 1},
+       "garch",
+       {1, 1},
+       "student",
+       {{"mu", 0.0},
+        {"ma_1", 0.3},
+        {"omega", 0.02},
+        {"alpha_1", 0.1},
+        {"beta_1", 0.85},
+        {"nu", 6.0}}},
+      {"arma",
+       {1, 0},
+       "gjr",
+       {1, 1, 1},
+       "student",
+       {{"mu", 0.01},
+        {"ar_1", 0.1},
+        {"omega", 0.03},
+        {"alpha_1", 0.04},
+        {"gamma_1", 0.08},
+        {"beta_1", 0.88},
+        {"nu", 7.0}}},
+  };
+  internal::IdentifySearch exhaustive;
+  exhaustive.prune_nested_arch = false;
+  int skipped = 0, compared = 0;
+  for (size_t k = 0; k < cases.size(); ++k) {
+    for (int n : {600, 2000}) {
+      const Case& c = cases[k];
+      const auto r = Sim(c.mean, c.mo, c.var, c.vo, c.law, c.named, n, 700 + 10 * k + n);
+      auto pruned = IdentifyModel(r);
+      auto full = internal::IdentifyModelWithSearch(r, {}, exhaustive);
+      REQUIRE(pruned.ok());
+      REQUIRE(full.ok());
+      INFO("case " << k << ", n " << n << ": pruned " << pruned->variance_decision
+                   << "; exhaustive " << full->variance_decision);
+      ++compared;
+      CHECK(pruned->final_fit.params.spec == full->final_fit.params.spec);
+      CHECK(pruned->variance_decision == full->variance_decision);
+      REQUIRE(pruned->variance_candidates.size() == full->variance_candidates.size());
+      double best = std::numeric_limits<double>::infinity();
+      for (const auto& v : pruned->variance_candidates) {
+        if (v.eligible) best = std::min(best, v.criterion);
+      }
+      for (size_t i = 0; i < pruned->variance_candidates.size(); ++i) {
+        const auto& p = pruned->variance_candidates[i];
+        const auto& f = full->variance_candidates[i];
+        CHECK(p.spec == f.spec);
+        if (p.error.rfind("not fitted: nested in", 0) != 0) continue;
+        ++skipped;
+        INFO(p.spec.Label() << ": " << p.error << "; fitted " << f.criterion);
+        CHECK(f.criterion > best);
+      }
+    }
+  }
+  CHECK(compared == 10);
+  CHECK(skipped > 0);  // the premise: the bound cut candidates on this panel
 }
 
 TEST_CASE("white noise with constant variance yields no ARCH effect", "[identify]") {
