@@ -1,7 +1,8 @@
 // JSON wire micro-benchmark (issue 13): the inbound tick decoder in
 // src/io/wire.cc against a simdjson on-demand decoder of the same schema,
 // side by side in one process, on the same pre-encoded messages; and the
-// outbound update encoders (JSON and binary) on the same updates.
+// outbound update encoders (JSON and binary) on the same updates, and the
+// one std::to_chars call per double that dominates the JSON encoder.
 //
 // The simdjson decoder is a benchmark-only reference: it reuses one parser and
 // one padded buffer (the message is copied in, as a ZeroMQ frame is not
@@ -15,6 +16,7 @@
 // DEVELOPERS.md). Run: build/bench/json_wire_bench [--benchmark_min_time=0.2]
 #include <benchmark/benchmark.h>
 
+#include <charconv>
 #include <cmath>
 #include <cstdint>
 #include <cstring>
@@ -350,6 +352,45 @@ void BM_EncodeUpdateJson(benchmark::State& state) { EncodeUpdates(state, true); 
 void BM_EncodeUpdateBinary(benchmark::State& state) { EncodeUpdates(state, false); }
 BENCHMARK(BM_EncodeUpdateJson);
 BENCHMARK(BM_EncodeUpdateBinary);
+
+// One std::to_chars shortest round-trip call, the JSON update encoder's
+// per-double cost (it formats 12 of them per update with the default
+// configuration; mu, scale and the level keys are memoized), on values of the
+// magnitudes an update carries. Arg: 0 variances (~1e-6, exponent form),
+// 1 z-scores, 2 value-at-risk / es (~2e-3), 3 returns (~1e-3).
+void BM_FormatDouble(benchmark::State& state) {
+  std::mt19937_64 g(7);
+  std::normal_distribution<double> nd(0, 1);
+  std::vector<double> values;
+  for (int i = 0; i < 4096; ++i) {
+    const double z = nd(g);
+    switch (state.range(0)) {
+      case 0:
+        values.push_back(1e-6 * std::exp(z));
+        break;
+      case 1:
+        values.push_back(z);
+        break;
+      case 2:
+        values.push_back(2.3e-3 * (1 + 0.01 * z));
+        break;
+      default:
+        values.push_back(1e-3 * z);
+        break;
+    }
+  }
+  char buf[32];
+  size_t i = 0, bytes = 0;
+  for (auto _ : state) {
+    const auto res = std::to_chars(buf, buf + sizeof(buf), values[i]);
+    benchmark::DoNotOptimize(buf);
+    bytes += static_cast<size_t>(res.ptr - buf);
+    if (++i == values.size()) i = 0;
+  }
+  state.SetItemsProcessed(state.iterations());
+  state.SetBytesProcessed(static_cast<int64_t>(bytes));
+}
+BENCHMARK(BM_FormatDouble)->ArgName("kind")->DenseRange(0, 3);
 
 }  // namespace
 }  // namespace aftershock
