@@ -29,7 +29,13 @@
 // all computed by the worker (the holdout compares the candidate with the
 // model in force when the job was scheduled, the EWMA included during warm-up
 // and fallback), so applying costs the ingest thread a pointer
-// swap, a state copy and apply_lag_bars AdvanceState calls.
+// swap, a state copy and apply_lag_bars AdvanceState calls. The worker also
+// encodes the job's model message (PreencodeRefitRecordJson) but for the values
+// only the application knows (applied bar, time, version, outcome, failures,
+// fallback), which the ingest thread fills in (last_preencoded). In a
+// universe-wide bar close every symbol applies a job: what the ingest thread
+// touches per application is cold memory, so each line of it counts
+// (bench/scale_bench's longest burst; DEVELOPERS.md "Applying refits").
 //
 // Variance state after a swap: the worker starts a FilterState at the new
 // model's unconditional variance and runs AdvanceState over the last
@@ -149,6 +155,9 @@ struct RefitBarResult {
   bool swapped = false;    // ... and its version is now in force
   bool scheduled = false;  // a new job was queued at this bar
   bool pooled = false;     // the group model was adopted: last_record() is new (kPooled)
+  // *state was rewritten (a swap, the fallback engaging, a group model): the
+  // caller writes it back. Otherwise OnBar left *state as it was.
+  bool state_replaced = false;
 };
 
 class RefitCoordinator {
@@ -186,7 +195,12 @@ class RefitCoordinator {
   const RollingWindow& window(uint32_t id) const { return symbols_[id].window; }
 
   // Per closed bar, after the FilterStep of this bar with model(id) on *state.
-  // May replace *state (on a swap or when the fallback engages).
+  // May replace *state (on a swap or when the fallback engages; then
+  // state_replaced is set and every field of *state is written). Of the state
+  // given, only state->var.next_variance is ever read, so a caller may fill
+  // just that field and write *state back only when state_replaced
+  // (EngineServices does: gathering the whole state cost every bar cache
+  // misses in a universe-wide close).
   // REQUIRES: id registered; r finite; *state belongs to this symbol.
   // tag: the return's bar-of-session tag (read only with options.seasonal).
   RefitBarResult OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state, int32_t tag = 0);
@@ -223,6 +237,13 @@ class RefitCoordinator {
   // The record of the latest applied job (valid until the next OnBar that
   // applies one).
   const RefitRecord& last_record() const { return last_record_; }
+  // Its model message as the worker encoded it (CompleteRefitRecordJson with
+  // last_record() gives the bytes of EncodeRefitRecordJson, with fit_seconds
+  // 0 in replay mode), or null when last_record() was built on the ingest
+  // thread (a group model). Same validity as last_record().
+  const PreencodedRefitRecord* last_preencoded() const {
+    return last_encoded_valid_ ? &last_encoded_ : nullptr;
+  }
 
   RefitStats stats() const;
 
@@ -309,6 +330,8 @@ class RefitCoordinator {
   RefitCoordinator(const RefitOptions& options, const OutputOptions& outputs,
                    std::unique_ptr<Refitter> refitter, ModelVersionPtr ewma);
   void Process(uint32_t slot);  // worker side
+  // Worker side: encodes the job's record (last_preencoded) and stores it.
+  void Finish(JobSlot* j, RefitRecord&& rec);
   void Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state);
   void Submit(uint32_t id, SymbolSlot* sym);
   // Copies the symbol's window into the pending job's slot and hands it to the
@@ -340,6 +363,8 @@ class RefitCoordinator {
   std::vector<int32_t> deferred_next_, deferred_prev_;
   int32_t deferred_head_ = -1, deferred_tail_ = -1;
   RefitRecord last_record_;
+  PreencodedRefitRecord last_encoded_;  // last_record_'s message (when valid)
+  bool last_encoded_valid_ = false;
   // Job slots: owned by the ingest thread or by one worker at a time, following
   // the protocol of job_pool.h (never both).
   std::vector<std::unique_ptr<JobSlot>> jobs_;

@@ -37,6 +37,10 @@ struct RefitCoordinator::JobSlot {
   SeasonalEstimate estimate;  // seasonal: the profile estimated from `returns`
   FilterState tail_state;     // candidate's state at the end of `returns`
   RefitRecord record;
+  // The record's model message, encoded by the worker but for the values the
+  // application decides; its buffer is swapped with the coordinator's at Apply,
+  // so both keep their capacity (no allocation once grown).
+  PreencodedRefitRecord encoded;
 };
 
 namespace {
@@ -263,11 +267,13 @@ RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, Filt
         Apply(&sym, slot, t_ns, state);
         res.applied = true;
         res.swapped = last_record_.outcome == RefitOutcome::kSwapped;
+        res.state_replaced = last_record_.outcome != RefitOutcome::kRejected;
       }
     }
   }
   if (!res.applied && options_.group_models && !sym.last_estimated && !sym.fallback) {
     res.pooled = MaybeAdoptGroupModel(&sym, t_ns, state);
+    res.state_replaced = res.pooled;
   }
   if (scheduler_.OnBar(&sym.schedule, bars, t_ns)) {
     counters_.due.fetch_add(1, std::memory_order_relaxed);
@@ -354,6 +360,7 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
                           n >= kPooledLevelBars ? "its window" : "its current forecast", ")");
   rec.consecutive_failures = sym->failures;
   last_record_ = std::move(rec);
+  last_encoded_valid_ = false;  // built here: no worker encoded it
   counters_.pooled.fetch_add(1, std::memory_order_relaxed);
   return true;
 }
@@ -362,8 +369,13 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
   const uint32_t slot = free_slots_.back();
   free_slots_.pop_back();
   JobSlot& j = *jobs_[slot];
-  j.symbol_id = id;
-  j.symbol.assign(sym->name);
+  // The slot freed by this bar's Apply is the one taken here (free_slots_ is
+  // last in, first out): it has the name already, and copying it again cost a
+  // cache miss on the name's buffer per due symbol in a universe-wide close.
+  if (j.symbol.empty() || j.symbol_id != id) {
+    j.symbol_id = id;
+    j.symbol.assign(sym->name);
+  }
   if (options_.seasonal) {
     // Rebuilt (allocating) only when a job was applied since the last snapshot.
     j.prior = options_.seasonal_options.prior_sessions > 0 ? seasonal_pool_.Snapshot() : nullptr;
@@ -496,7 +508,7 @@ void RefitCoordinator::Process(uint32_t slot) {
     j.refit_error = true;
     rec.reasons.push_back(absl::StrCat("refit error: ", cand.status().message()));
     rec.job_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-    j.record = std::move(rec);
+    Finish(&j, std::move(rec));
     return;
   }
   const FitResult& fit = cand->fit;
@@ -556,7 +568,27 @@ void RefitCoordinator::Process(uint32_t slot) {
     j.passed = true;
   }
   rec.job_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-  j.record = std::move(rec);
+  Finish(&j, std::move(rec));
+}
+
+void RefitCoordinator::Finish(JobSlot* j, RefitRecord&& rec) {
+  // The model message as the ingest thread will publish it, but for the values
+  // Apply decides (CompleteRefitRecordJson): formatting the numbers was most of
+  // an application's cost on the ingest thread. A replay publishes fit_seconds
+  // as 0 (EngineServices), so it is encoded as 0 there.
+  if (options_.mode == RefitMode::kReplay) {
+    const double fit_seconds = rec.fit_seconds;
+    rec.fit_seconds = 0;
+    PreencodeRefitRecordJson(rec, &j->encoded);
+    rec.fit_seconds = fit_seconds;
+  } else {
+    PreencodeRefitRecordJson(rec, &j->encoded);
+  }
+  // Held until the job is applied, by every symbol with a finished job: no
+  // more than the text (appending doubles the capacity).
+  std::string& text = j->encoded.text;
+  if (text.capacity() > text.size() + 64) text.shrink_to_fit();
+  j->record = std::move(rec);
 }
 
 void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state) {
@@ -624,6 +656,9 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   j.record.consecutive_failures = sym->failures;
   j.record.fallback = sym->fallback;
   last_record_ = std::move(j.record);
+  using std::swap;
+  swap(last_encoded_, j.encoded);
+  last_encoded_valid_ = true;
   j.in_force.reset();
   j.estimated.reset();
   j.candidate.reset();
