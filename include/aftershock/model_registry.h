@@ -82,26 +82,6 @@ std::string EncodeRefitRecordJson(const RefitRecord& record);
 // allocation once the buffer has grown.
 void EncodeRefitRecordJson(const RefitRecord& record, std::string* out);
 
-// A record encoded ahead of its application: every field but the seven the
-// application decides (applied_bar, consecutive_failures, fallback, the gate's
-// passed, outcome, t_ns, version). The refit worker encodes its job's record
-// so that applying it costs the ingest thread only the completion: copying the
-// text around those seven values (refit.h, "Applying").
-struct PreencodedRefitRecord {
-  std::string text;      // the JSON without those values (or the error object)
-  size_t cuts[7] = {};   // where each of them goes, in the text's order
-  bool ok = false;       // false: a string was not valid UTF-8 (text is the error)
-};
-// Fills *out from `record` (its apply-time fields are not read); out->text
-// keeps its capacity.
-void PreencodeRefitRecordJson(const RefitRecord& record, PreencodedRefitRecord* out);
-// Writes into *out (replaced, capacity kept) exactly what
-// EncodeRefitRecordJson(record) writes. REQUIRES: `pre` was made by
-// PreencodeRefitRecordJson from a record equal to `record` in every field but
-// the seven above (model_registry_test checks the equality).
-void CompleteRefitRecordJson(const PreencodedRefitRecord& pre, const RefitRecord& record,
-                             std::string* out);
-
 }  // namespace aftershock
 
 #endif  // AFTERSHOCK_MODEL_REGISTRY_H_

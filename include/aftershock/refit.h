@@ -29,13 +29,11 @@
 // all computed by the worker (the holdout compares the candidate with the
 // model in force when the job was scheduled, the EWMA included during warm-up
 // and fallback), so applying costs the ingest thread a pointer
-// swap, a state copy and apply_lag_bars AdvanceState calls. The worker also
-// encodes the job's model message (PreencodeRefitRecordJson) but for the values
-// only the application knows (applied bar, time, version, outcome, failures,
-// fallback), which the ingest thread fills in (last_preencoded). In a
+// swap, a state copy and apply_lag_bars AdvanceState calls. In a
 // universe-wide bar close every symbol applies a job: what the ingest thread
 // touches per application is cold memory, so each line of it counts
-// (bench/scale_bench's longest burst; DEVELOPERS.md "Applying refits").
+// (bench/scale_bench's longest burst; DEVELOPERS.md "Applying refits in a
+// universe-wide bar close").
 //
 // Variance state after a swap: the worker starts a FilterState at the new
 // model's unconditional variance and runs AdvanceState over the last
@@ -237,13 +235,6 @@ class RefitCoordinator {
   // The record of the latest applied job (valid until the next OnBar that
   // applies one).
   const RefitRecord& last_record() const { return last_record_; }
-  // Its model message as the worker encoded it (CompleteRefitRecordJson with
-  // last_record() gives the bytes of EncodeRefitRecordJson, with fit_seconds
-  // 0 in replay mode), or null when last_record() was built on the ingest
-  // thread (a group model). Same validity as last_record().
-  const PreencodedRefitRecord* last_preencoded() const {
-    return last_encoded_valid_ ? &last_encoded_ : nullptr;
-  }
 
   RefitStats stats() const;
 
@@ -330,8 +321,6 @@ class RefitCoordinator {
   RefitCoordinator(const RefitOptions& options, const OutputOptions& outputs,
                    std::unique_ptr<Refitter> refitter, ModelVersionPtr ewma);
   void Process(uint32_t slot);  // worker side
-  // Worker side: encodes the job's record (last_preencoded) and stores it.
-  void Finish(JobSlot* j, RefitRecord&& rec);
   void Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state);
   void Submit(uint32_t id, SymbolSlot* sym);
   // Copies the symbol's window into the pending job's slot and hands it to the
@@ -363,8 +352,6 @@ class RefitCoordinator {
   std::vector<int32_t> deferred_next_, deferred_prev_;
   int32_t deferred_head_ = -1, deferred_tail_ = -1;
   RefitRecord last_record_;
-  PreencodedRefitRecord last_encoded_;  // last_record_'s message (when valid)
-  bool last_encoded_valid_ = false;
   // Job slots: owned by the ingest thread or by one worker at a time, following
   // the protocol of job_pool.h (never both).
   std::vector<std::unique_ptr<JobSlot>> jobs_;

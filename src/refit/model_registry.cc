@@ -87,34 +87,19 @@ void PutNth(std::string* out, const std::vector<double>& v, size_t i) {
 
 }  // namespace
 
-namespace {
-
-// The record's JSON. With `cuts` null, whole. Otherwise the seven values the
-// application decides (applied_bar, consecutive_failures, fallback, gate
-// passed, outcome, t_ns, version, in that order of the text) are left out and
-// cuts[k] is where value k goes. False: a string was not valid UTF-8.
-bool WriteRecord(const RefitRecord& r, std::string* out, size_t* cuts) {
+void EncodeRefitRecordJson(const RefitRecord& r, std::string* out) {
   // Written directly (the ingest thread encodes every applied refit): the
   // JSON library's document tree cost about 6 µs a record in allocations
   // (refit_bench BM_EngineApply). Keys in byte order, as the library writes
   // an object; model_registry_test checks the two agree.
   out->clear();
   bool ok = true;
-  int hole = 0;
-  // Value of the application, or the place it goes.
-  auto apply_value = [&](auto write) {
-    if (cuts != nullptr) {
-      cuts[hole++] = out->size();
-    } else {
-      write();
-    }
-  };
   PutRaw(out, "{\"applied_bar\":");
-  apply_value([&] { PutInt(out, r.applied_bar); });
+  PutInt(out, r.applied_bar);
   PutRaw(out, ",\"bic\":");
   PutDouble(out, r.bic);
   PutRaw(out, ",\"consecutive_failures\":");
-  apply_value([&] { PutInt(out, r.consecutive_failures); });
+  PutInt(out, r.consecutive_failures);
   PutRaw(out, ",\"converged\":");
   PutBool(out, r.converged);
   PutRaw(out, ",\"estimates\":[");
@@ -131,11 +116,11 @@ bool WriteRecord(const RefitRecord& r, std::string* out, size_t* cuts) {
     out->push_back('}');
   }
   PutRaw(out, "],\"fallback\":");
-  apply_value([&] { PutBool(out, r.fallback); });
+  PutBool(out, r.fallback);
   PutRaw(out, ",\"fit_seconds\":");
   PutDouble(out, r.fit_seconds);
   PutRaw(out, ",\"gate\":{\"passed\":");
-  apply_value([&] { PutBool(out, r.outcome == RefitOutcome::kSwapped); });
+  PutBool(out, r.outcome == RefitOutcome::kSwapped);
   PutRaw(out, ",\"reasons\":[");
   for (size_t i = 0; i < r.reasons.size(); ++i) {
     if (i > 0) out->push_back(',');
@@ -148,8 +133,7 @@ bool WriteRecord(const RefitRecord& r, std::string* out, size_t* cuts) {
   PutRaw(out, ",\"note\":");
   ok &= PutString(out, r.note);
   PutRaw(out, ",\"outcome\":");
-  // The outcome names are plain ASCII: never a failure.
-  apply_value([&] { PutString(out, RefitOutcomeName(r.outcome)); });
+  ok &= PutString(out, RefitOutcomeName(r.outcome));
   PutRaw(out, ",\"scheduled_bar\":");
   PutInt(out, r.scheduled_bar);
   PutRaw(out, ",\"spec\":");
@@ -157,54 +141,11 @@ bool WriteRecord(const RefitRecord& r, std::string* out, size_t* cuts) {
   PutRaw(out, ",\"symbol\":");
   ok &= PutString(out, r.symbol);
   PutRaw(out, ",\"t_ns\":");
-  apply_value([&] { PutInt(out, r.t_ns); });
-  PutRaw(out, ",\"version\":");
-  apply_value([&] { PutInt(out, r.version); });
-  out->push_back('}');
-  return ok;
-}
-
-constexpr absl::string_view kRecordError = "{\"error\":\"record could not be encoded\"}";
-
-}  // namespace
-
-void EncodeRefitRecordJson(const RefitRecord& r, std::string* out) {
-  if (!WriteRecord(r, out, nullptr)) out->assign(kRecordError.data(), kRecordError.size());
-}
-
-void PreencodeRefitRecordJson(const RefitRecord& r, PreencodedRefitRecord* out) {
-  out->ok = WriteRecord(r, &out->text, out->cuts);
-  if (!out->ok) out->text.assign(kRecordError.data(), kRecordError.size());
-}
-
-void CompleteRefitRecordJson(const PreencodedRefitRecord& p, const RefitRecord& r,
-                             std::string* out) {
-  if (!p.ok) {
-    out->assign(p.text);
-    return;
-  }
-  out->clear();
-  const absl::string_view t = p.text;
-  size_t at = 0;
-  auto piece = [&](int k) {
-    out->append(t.data() + at, p.cuts[k] - at);
-    at = p.cuts[k];
-  };
-  piece(0);
-  PutInt(out, r.applied_bar);
-  piece(1);
-  PutInt(out, r.consecutive_failures);
-  piece(2);
-  PutBool(out, r.fallback);
-  piece(3);
-  PutBool(out, r.outcome == RefitOutcome::kSwapped);
-  piece(4);
-  PutString(out, RefitOutcomeName(r.outcome));
-  piece(5);
   PutInt(out, r.t_ns);
-  piece(6);
+  PutRaw(out, ",\"version\":");
   PutInt(out, r.version);
-  out->append(t.data() + at, t.size() - at);
+  out->push_back('}');
+  if (!ok) out->assign("{\"error\":\"record could not be encoded\"}");
 }
 
 std::string EncodeRefitRecordJson(const RefitRecord& r) {

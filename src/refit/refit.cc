@@ -37,10 +37,6 @@ struct RefitCoordinator::JobSlot {
   SeasonalEstimate estimate;  // seasonal: the profile estimated from `returns`
   FilterState tail_state;     // candidate's state at the end of `returns`
   RefitRecord record;
-  // The record's model message, encoded by the worker but for the values the
-  // application decides; its buffer is swapped with the coordinator's at Apply,
-  // so both keep their capacity (no allocation once grown).
-  PreencodedRefitRecord encoded;
 };
 
 namespace {
@@ -360,7 +356,6 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
                           n >= kPooledLevelBars ? "its window" : "its current forecast", ")");
   rec.consecutive_failures = sym->failures;
   last_record_ = std::move(rec);
-  last_encoded_valid_ = false;  // built here: no worker encoded it
   counters_.pooled.fetch_add(1, std::memory_order_relaxed);
   return true;
 }
@@ -508,7 +503,7 @@ void RefitCoordinator::Process(uint32_t slot) {
     j.refit_error = true;
     rec.reasons.push_back(absl::StrCat("refit error: ", cand.status().message()));
     rec.job_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-    Finish(&j, std::move(rec));
+    j.record = std::move(rec);
     return;
   }
   const FitResult& fit = cand->fit;
@@ -568,27 +563,7 @@ void RefitCoordinator::Process(uint32_t slot) {
     j.passed = true;
   }
   rec.job_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-  Finish(&j, std::move(rec));
-}
-
-void RefitCoordinator::Finish(JobSlot* j, RefitRecord&& rec) {
-  // The model message as the ingest thread will publish it, but for the values
-  // Apply decides (CompleteRefitRecordJson): formatting the numbers was most of
-  // an application's cost on the ingest thread. A replay publishes fit_seconds
-  // as 0 (EngineServices), so it is encoded as 0 there.
-  if (options_.mode == RefitMode::kReplay) {
-    const double fit_seconds = rec.fit_seconds;
-    rec.fit_seconds = 0;
-    PreencodeRefitRecordJson(rec, &j->encoded);
-    rec.fit_seconds = fit_seconds;
-  } else {
-    PreencodeRefitRecordJson(rec, &j->encoded);
-  }
-  // Held until the job is applied, by every symbol with a finished job: no
-  // more than the text (appending doubles the capacity).
-  std::string& text = j->encoded.text;
-  if (text.capacity() > text.size() + 64) text.shrink_to_fit();
-  j->record = std::move(rec);
+  j.record = std::move(rec);
 }
 
 void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state) {
@@ -656,9 +631,6 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   j.record.consecutive_failures = sym->failures;
   j.record.fallback = sym->fallback;
   last_record_ = std::move(j.record);
-  using std::swap;
-  swap(last_encoded_, j.encoded);
-  last_encoded_valid_ = true;
   j.in_force.reset();
   j.estimated.reset();
   j.candidate.reset();

@@ -577,14 +577,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       rec_ptr = &replay_record_;
     }
     const RefitRecord& rec = *rec_ptr;
-    // The worker encoded the record but for the values the application set
-    // (with fit_seconds 0 in replay); a group model's record is encoded here.
-    // Either reuses the buffer: no allocation.
-    if (const PreencodedRefitRecord* pre = refit_->last_preencoded(); pre != nullptr) {
-      CompleteRefitRecordJson(*pre, rec, &json_);
-    } else {
-      EncodeRefitRecordJson(rec, &json_);
-    }
+    EncodeRefitRecordJson(rec, &json_);  // reuses the buffer: no allocation
     core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
     if (options_.listener != nullptr) options_.listener->OnRefitRecord(index, rec);
     const ModelVersionPtr& now = refit_->current(id);

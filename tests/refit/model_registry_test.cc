@@ -173,25 +173,6 @@ TEST_CASE("the direct record writer agrees with the JSON library", "[registry]")
     std::string reused = "old contents";
     EncodeRefitRecordJson(r, &reused);
     CHECK(reused == s);
-    // Encoded ahead from the worker's record (other apply-time values), then
-    // completed with the applied record's: the same bytes.
-    RefitRecord ahead = r;
-    ahead.applied_bar = 0;
-    ahead.t_ns = 0;
-    ahead.version = 0;
-    ahead.consecutive_failures = 0;
-    ahead.fallback = !r.fallback;
-    ahead.outcome = static_cast<RefitOutcome>((trial + 1) % 4);
-    PreencodedRefitRecord pre;
-    pre.text = "old contents";
-    PreencodeRefitRecordJson(ahead, &pre);
-    std::string completed = "old contents";
-    CompleteRefitRecordJson(pre, r, &completed);
-    CHECK(completed == s);
-    // Reused for another record: nothing of the first one is left.
-    PreencodeRefitRecordJson(r, &pre);
-    CompleteRefitRecordJson(pre, r, &completed);
-    CHECK(completed == s);
   }
 }
 
@@ -223,18 +204,8 @@ TEST_CASE("the record writer's numbers and escapes, byte for byte", "[registry]"
         R"("likelihood_terms":1999,"log_likelihood":-0,"note":"warm","outcome":"rejected",)"
         R"("scheduled_bar":100,"spec":"const/GARCH(1,1)/t","symbol":"WREN","t_ns":6000000000,)"
         R"("version":2})");
-  PreencodedRefitRecord pre;
-  PreencodeRefitRecordJson(r, &pre);
-  CHECK(pre.ok);
-  std::string completed;
-  CompleteRefitRecordJson(pre, r, &completed);
-  CHECK(completed == EncodeRefitRecordJson(r));
   r.note = "bad \xff byte";
   CHECK(EncodeRefitRecordJson(r) == R"({"error":"record could not be encoded"})");
-  PreencodeRefitRecordJson(r, &pre);
-  CHECK_FALSE(pre.ok);
-  CompleteRefitRecordJson(pre, r, &completed);
-  CHECK(completed == R"({"error":"record could not be encoded"})");
 }
 
 }  // namespace
