@@ -19,6 +19,7 @@
 #include <chrono>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <thread>
 #include <vector>
 
@@ -365,6 +366,20 @@ queue_capacity = )",
       static_cast<unsigned long long>(swapped));
 }
 BENCHMARK(BM_EngineApply)->Arg(1000)->Iterations(5)->Unit(benchmark::kMillisecond);
+// AFTERSHOCK_APPLY_SYMBOLS=N adds BM_EngineApply/N: a universe-wide close at
+// scale_bench's sizes, where what an application touches is out of cache (the
+// workers' fits run between the closes). About 1 minute at N = 20,000.
+const bool kApplyAtScale = [] {
+  const char* e = std::getenv("AFTERSHOCK_APPLY_SYMBOLS");
+  const int n = e != nullptr ? std::atoi(e) : 0;
+  if (n > 0) {
+    benchmark::RegisterBenchmark("BM_EngineApply", BM_EngineApply)
+        ->Arg(n)
+        ->Iterations(3)
+        ->Unit(benchmark::kMillisecond);
+  }
+  return true;
+}();
 
 }  // namespace
 }  // namespace aftershock

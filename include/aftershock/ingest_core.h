@@ -309,6 +309,9 @@ class IngestCore : public TickConsumer {
   // The symbol's filter state, gathered from the core's FilterBank
   // (filter_bank.h: structure-of-arrays columns).
   FilterState filter_state(int index) const { return bank_.Get(index); }
+  // Its next variance alone (filter_state(index).var.next_variance, without
+  // gathering the rest).
+  double next_variance(int index) const { return bank_.next_variance(index); }
   // Recursive tracking of a symbol ([tracking]; inactive unless the mode is
   // track or drive and the model in force is supported).
   TrackingMode tracking_mode(int index) const { return slots_[index].tracking; }

@@ -29,7 +29,11 @@
 // all computed by the worker (the holdout compares the candidate with the
 // model in force when the job was scheduled, the EWMA included during warm-up
 // and fallback), so applying costs the ingest thread a pointer
-// swap, a state copy and apply_lag_bars AdvanceState calls.
+// swap, a state copy and apply_lag_bars AdvanceState calls. In a
+// universe-wide bar close every symbol applies a job: what the ingest thread
+// touches per application is cold memory, so each line of it counts
+// (bench/scale_bench's longest burst; DEVELOPERS.md "Applying refits in a
+// universe-wide bar close").
 //
 // Variance state after a swap: the worker starts a FilterState at the new
 // model's unconditional variance and runs AdvanceState over the last
@@ -149,6 +153,9 @@ struct RefitBarResult {
   bool swapped = false;    // ... and its version is now in force
   bool scheduled = false;  // a new job was queued at this bar
   bool pooled = false;     // the group model was adopted: last_record() is new (kPooled)
+  // *state was rewritten (a swap, the fallback engaging, a group model): the
+  // caller writes it back. Otherwise OnBar left *state as it was.
+  bool state_replaced = false;
 };
 
 class RefitCoordinator {
@@ -186,7 +193,12 @@ class RefitCoordinator {
   const RollingWindow& window(uint32_t id) const { return symbols_[id].window; }
 
   // Per closed bar, after the FilterStep of this bar with model(id) on *state.
-  // May replace *state (on a swap or when the fallback engages).
+  // May replace *state (on a swap or when the fallback engages; then
+  // state_replaced is set and every field of *state is written). Of the state
+  // given, only state->var.next_variance is ever read, so a caller may fill
+  // just that field and write *state back only when state_replaced
+  // (EngineServices does: gathering the whole state cost every bar cache
+  // misses in a universe-wide close).
   // REQUIRES: id registered; r finite; *state belongs to this symbol.
   // tag: the return's bar-of-session tag (read only with options.seasonal).
   RefitBarResult OnBar(uint32_t id, int64_t t_ns, double r, FilterState* state, int32_t tag = 0);

@@ -263,11 +263,13 @@ RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, Filt
         Apply(&sym, slot, t_ns, state);
         res.applied = true;
         res.swapped = last_record_.outcome == RefitOutcome::kSwapped;
+        res.state_replaced = last_record_.outcome != RefitOutcome::kRejected;
       }
     }
   }
   if (!res.applied && options_.group_models && !sym.last_estimated && !sym.fallback) {
     res.pooled = MaybeAdoptGroupModel(&sym, t_ns, state);
+    res.state_replaced = res.pooled;
   }
   if (scheduler_.OnBar(&sym.schedule, bars, t_ns)) {
     counters_.due.fetch_add(1, std::memory_order_relaxed);
@@ -362,8 +364,13 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
   const uint32_t slot = free_slots_.back();
   free_slots_.pop_back();
   JobSlot& j = *jobs_[slot];
-  j.symbol_id = id;
-  j.symbol.assign(sym->name);
+  // The slot freed by this bar's Apply is the one taken here (free_slots_ is
+  // last in, first out): it has the name already, and copying it again cost a
+  // cache miss on the name's buffer per due symbol in a universe-wide close.
+  if (j.symbol.empty() || j.symbol_id != id) {
+    j.symbol_id = id;
+    j.symbol.assign(sym->name);
+  }
   if (options_.seasonal) {
     // Rebuilt (allocating) only when a job was applied since the last snapshot.
     j.prior = options_.seasonal_options.prior_sessions > 0 ? seasonal_pool_.Snapshot() : nullptr;

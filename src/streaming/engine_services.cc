@@ -557,13 +557,15 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     const uint32_t id = static_cast<uint32_t>(p.refit_id);
     // A raw pointer: copying the shared_ptr would cost two atomic operations a bar.
     const ModelVersion* before = refit_->current(id).get();
-    // The coordinator re-runs the state when it swaps (applied or pooled): a
-    // copy of the core's, written back then.
+    // The coordinator re-runs the state when it swaps (applied or pooled),
+    // written back then. It reads only the next variance of the state given
+    // (refit.h), so only that is fetched: gathering the whole state from the
+    // bank cost every bar of a universe-wide close its cold lines.
     FilterState& state = state_scratch_;
-    state = core->filter_state(index);
+    state.var.next_variance = core->next_variance(index);
     const RefitBarResult res = refit_->OnBar(id, update->t_ns, update->r, &state, tag);
     if (!res.applied && !res.pooled) return;
-    core->set_filter_state(index, state);
+    if (res.state_replaced) core->set_filter_state(index, state);
     const RefitRecord* rec_ptr = &refit_->last_record();
     if (options_.mode == RefitMode::kReplay) {
       // Wall time is the one field a replay cannot reproduce: 0 keeps the

@@ -53,6 +53,23 @@ struct Driver {
   std::vector<RefitRecord> records;
   std::string bytes;  // var, z, ver of every update, in bar order
   bool defer_until_next_bar = false;  // no SubmitDeferred: jobs wait for their next OnBar
+  // OnBar gets a state with only its next variance (EngineServices' way).
+  bool partial_state = false;
+
+  static FilterState Poisoned() {
+    FilterState s;
+    const double nan = std::numeric_limits<double>::quiet_NaN();
+    for (double& x : s.r_hist) x = nan;
+    for (double& x : s.eps_hist) x = nan;
+    s.var.eps2.fill(nan);
+    s.var.neg_eps2.fill(nan);
+    s.var.sigma2.fill(nan);
+    s.var.next_variance = nan;
+    s.sd_next = nan;
+    s.mu_next = nan;
+    s.bars = -12345;
+    return s;
+  }
 
   Driver(const RefitOptions& o, std::unique_ptr<Refitter> refitter) {
     auto c = RefitCoordinator::Create(o, OutputOptions{}, std::move(refitter));
@@ -79,7 +96,20 @@ struct Driver {
     bytes.append(reinterpret_cast<const char*>(&u.ver), sizeof(u.ver));
     bytes.append(reinterpret_cast<const char*>(&u.flags), sizeof(u.flags));
     updates[k].push_back(u);
-    const RefitBarResult res = coord->OnBar(id, t_ns, r, &states[k]);
+    RefitBarResult res;
+    if (partial_state) {
+      // As EngineServices calls it: only the next variance is given (the rest
+      // poisoned), and the state is written back only when OnBar says so.
+      FilterState given = Poisoned();
+      given.var.next_variance = states[k].var.next_variance;
+      res = coord->OnBar(id, t_ns, r, &given);
+      if (res.state_replaced) states[k] = given;
+    } else {
+      const FilterState before = states[k];
+      res = coord->OnBar(id, t_ns, r, &states[k]);
+      // A state not reported replaced is the state given, bit for bit.
+      if (!res.state_replaced) CHECK(std::memcmp(&before, &states[k], sizeof(before)) == 0);
+    }
     if (res.applied || res.pooled) records.push_back(coord->last_record());
     // The gap after the bar, as EngineServices gives it after each message:
     // live mode copies the windows of the jobs due at this bar now.
@@ -733,7 +763,8 @@ TEST_CASE("a group model keeps the donor's dynamics at the symbol's own level", 
 // One group of an active name and an idle one (a tick every 10th bar, three
 // times the volatility), and an idle name alone in its own group.
 std::string RunGroups(int workers, std::vector<RefitRecord>* records,
-                      std::vector<std::vector<BarUpdate>>* updates, bool group_models = true) {
+                      std::vector<std::vector<BarUpdate>>* updates, bool group_models = true,
+                      bool partial_state = false) {
   const auto active = Sim(Garch(0.0, 0.05, 0.08, 0.9), 1300, 71);
   const auto idle = Sim(Garch(0.0, 0.45, 0.08, 0.9), 600, 72);
   const auto alone = Sim(Garch(0.0, 0.05, 0.08, 0.9), 200, 73);
@@ -746,6 +777,7 @@ std::string RunGroups(int workers, std::vector<RefitRecord>* records,
   o.mode = RefitMode::kReplay;
   o.group_models = group_models;
   Driver d(o, DefaultRefitter());
+  d.partial_state = partial_state;
   d.Add("ALDER", 0.5, 1);
   d.Add("BRACKEN", 4.5, 1);
   d.Add("CALLUNA", 0.5, 2);
@@ -815,6 +847,56 @@ TEST_CASE("an idle name runs on its group's model until its own fit passes", "[r
   RunGroups(1, nullptr, &off, false);
   CHECK(off[1][31].ver == 0);
   CHECK((off[1][31].flags & kFlagWarmup) != 0);
+}
+
+// The faulty-fit script's run (swaps, rejections, the fallback engaging).
+std::string RunFaulty(bool partial_state, std::vector<RefitRecord>* records) {
+  const auto r = Sim(Garch(0.0, 0.05, 0.08, 0.9), 1100, 31);
+  RefitOptions o;
+  o.window = 600;
+  o.min_bars = 300;
+  o.every_bars = 100;
+  o.jitter_fraction = 0;
+  o.max_failures = 3;
+  o.mode = RefitMode::kReplay;
+  Driver d(o,
+           std::make_unique<ScriptedRefitter>(std::vector<std::string>{
+               "good", "error", "nan", "negative", "good", "persistent", "diag", "unconverged"}));
+  d.partial_state = partial_state;
+  d.Add("ORBWEAVER", 1.0);
+  for (int t = 0; t < 1100; ++t) d.Bar(0, t * kBarNs, r[t]);
+  *records = d.records;
+  return d.bytes;
+}
+
+TEST_CASE("OnBar reads only the next variance of the state it is given", "[refit]") {
+  // EngineServices hands OnBar a state with only its next variance and writes
+  // it back only when state_replaced: the same updates and records as with
+  // the whole state, through swaps, rejections, the fallback and group models.
+  std::vector<RefitRecord> full_records, partial_records;
+  const std::string full = RunFaulty(false, &full_records);
+  CHECK(RunFaulty(true, &partial_records) == full);
+  REQUIRE(full_records.size() == 8);
+  bool fallback = false, rejected = false;
+  for (const RefitRecord& r : full_records) {
+    fallback |= r.outcome == RefitOutcome::kFallback;
+    rejected |= r.outcome == RefitOutcome::kRejected;
+  }
+  CHECK(fallback);
+  CHECK(rejected);
+  REQUIRE(partial_records.size() == full_records.size());
+  for (size_t i = 0; i < full_records.size(); ++i) {
+    // fit_seconds is the one wall time in a record.
+    partial_records[i].fit_seconds = full_records[i].fit_seconds = 0;
+    CHECK(EncodeRefitRecordJson(partial_records[i]) == EncodeRefitRecordJson(full_records[i]));
+  }
+  std::vector<RefitRecord> groups_full, groups_partial;
+  const std::string g = RunGroups(1, &groups_full, nullptr);
+  CHECK(RunGroups(1, &groups_partial, nullptr, true, /*partial_state=*/true) == g);
+  bool pooled = false;
+  for (const RefitRecord& r : groups_full) pooled |= r.outcome == RefitOutcome::kPooled;
+  CHECK(pooled);
+  CHECK(groups_partial.size() == groups_full.size());
 }
 
 TEST_CASE("the ingest side allocates nothing per bar, storm included", "[refit]") {
