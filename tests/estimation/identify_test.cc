@@ -32,6 +32,13 @@ std::vector<double> Sim(const char* mean, std::vector<int> mo, const char* var, 
   return s->returns;
 }
 
+// The identify_bench series' ARMA(1,0)/GJR-GARCH(1,1)/student parameters:
+// strongly persistent clustering.
+std::vector<std::pair<std::string, double>> BenchParams() {
+  return {{"mu", 0.01},      {"ar_1", 0.1},    {"omega", 0.03}, {"alpha_1", 0.04},
+          {"gamma_1", 0.08}, {"beta_1", 0.88}, {"nu", 7.0}};
+}
+
 const TestOutcome& Find(const std::vector<TestOutcome>& tests, const std::string& prefix) {
   for (const auto& t : tests) {
     if (t.name.rfind(prefix, 0) == 0) return t;
@@ -116,15 +123,7 @@ TEST_CASE("an ARMA(1,0)/GJR-GARCH(1,1)/student series is identified with an AR t
 TEST_CASE("an ARCH candidate skipped by its criterion bound could not have won", "[identify]") {
   // The identify_bench series: strongly persistent clustering, where GARCH-type
   // candidates beat small ARCH models by far.
-  const auto r = Sim("arma", {1, 0}, "gjr", {1, 1, 1}, "student",
-                     {{"mu", 0.01},
-                      {"ar_1", 0.1},
-                      {"omega", 0.03},
-                      {"alpha_1", 0.04},
-                      {"gamma_1", 0.08},
-                      {"beta_1", 0.88},
-                      {"nu", 7.0}},
-                     2000, 99);
+  const auto r = Sim("arma", {1, 0}, "gjr", {1, 1, 1}, "student", BenchParams(), 2000, 99);
   auto rep = IdentifyModel(r);
   REQUIRE(rep.ok());
   REQUIRE(rep->arch_effect);
@@ -203,18 +202,7 @@ TEST_CASE("pruning never changes the choice: pruned and exhaustive searches agre
         {"alpha_1", 0.1},
         {"beta_1", 0.85},
         {"nu", 6.0}}},
-      {"arma",
-       {1, 0},
-       "gjr",
-       {1, 1, 1},
-       "student",
-       {{"mu", 0.01},
-        {"ar_1", 0.1},
-        {"omega", 0.03},
-        {"alpha_1", 0.04},
-        {"gamma_1", 0.08},
-        {"beta_1", 0.88},
-        {"nu", 7.0}}},
+      {"arma", {1, 0}, "gjr", {1, 1, 1}, "student", BenchParams()},
   };
   internal::IdentifySearch exhaustive;
   exhaustive.prune_nested_arch = false;
@@ -345,8 +333,7 @@ double MeanQlike(const ModelParams& params, const std::vector<double>& all, size
 // identification window (the demo's [refit] window) with the engine's
 // identification settings, scored on the 600 bars that follow. Three master
 // seeds; the target is per seed.
-TEST_CASE("short windows: the weak-evidence rule picks clustering, QLIKE improves",
-          "[identify]") {
+TEST_CASE("short windows: the weak-evidence rule picks clustering, QLIKE improves", "[identify]") {
   constexpr int kWindow = 600, kFollow = 600;
   const double ppy = PeriodsPerYearForInterval(60LL * 1000 * 1000 * 1000);
   IdentifyOptions after = PipelineRefitterOptions().identify;
@@ -378,8 +365,8 @@ TEST_CASE("short windows: the weak-evidence rule picks clustering, QLIKE improve
       q_after += MeanQlike(pa, sim->returns, kWindow);
       ++windows;
     }
-    INFO("master seed " << master << ": conditional variance " << cv_before << " -> "
-                        << cv_after << " of 12");
+    INFO("master seed " << master << ": conditional variance " << cv_before << " -> " << cv_after
+                        << " of 12");
     CHECK(cv_after >= 10);
     total_before += cv_before;
     total_after += cv_after;
@@ -404,8 +391,8 @@ TEST_CASE("the CLI runs the pipeline and reports every step in JSON", "[identify
   const std::string dir = testing::ScratchDir("identify_cli");
   const std::string path = testing::WriteFile(dir + "/r.csv", text);
   auto out = testing::RunCli({"fit", "--input", path, "--mean", "auto", "--variance", "auto",
-                              "--criterion", "aic", "--max-mean-order", "1,1",
-                              "--max-arch-order", "2", "--lags", "8", "--format", "json"});
+                              "--criterion", "aic", "--max-mean-order", "1,1", "--max-arch-order",
+                              "2", "--lags", "8", "--format", "json"});
   INFO(out.err);
   REQUIRE(out.exit_code == 0);
   const auto j = nlohmann::json::parse(out.out);

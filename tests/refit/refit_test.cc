@@ -51,7 +51,7 @@ struct Driver {
   std::vector<FilterState> states;
   std::vector<std::vector<BarUpdate>> updates;  // per symbol, per bar
   std::vector<RefitRecord> records;
-  std::string bytes;  // var, z, ver of every update, in bar order
+  std::string bytes;                  // var, z, ver of every update, in bar order
   bool defer_until_next_bar = false;  // no SubmitDeferred: jobs wait for their next OnBar
   // OnBar gets a state with only its next variance (EngineServices' way).
   bool partial_state = false;
@@ -341,7 +341,9 @@ class ScriptedRefitter : public Refitter {
   std::unique_ptr<Refitter> inner_;
 };
 
-TEST_CASE("faulty fits are never swapped in; repeated failures engage the fallback", "[refit]") {
+// The faulty-fit script's run (swaps, rejections, the fallback engaging),
+// driven to its end. partial_state: OnBar gets only the next variance.
+std::unique_ptr<Driver> RunFaultyScript(bool partial_state) {
   const auto r = Sim(Garch(0.0, 0.05, 0.08, 0.9), 1100, 31);
   RefitOptions o;
   o.window = 600;
@@ -350,11 +352,18 @@ TEST_CASE("faulty fits are never swapped in; repeated failures engage the fallba
   o.jitter_fraction = 0;
   o.max_failures = 3;
   o.mode = RefitMode::kReplay;
-  Driver d(o,
-           std::make_unique<ScriptedRefitter>(std::vector<std::string>{
-               "good", "error", "nan", "negative", "good", "persistent", "diag", "unconverged"}));
-  d.Add("ORBWEAVER", 1.0);
-  for (int t = 0; t < 1100; ++t) d.Bar(0, t * kBarNs, r[t]);
+  auto d = std::make_unique<Driver>(
+      o, std::make_unique<ScriptedRefitter>(std::vector<std::string>{
+             "good", "error", "nan", "negative", "good", "persistent", "diag", "unconverged"}));
+  d->partial_state = partial_state;
+  d->Add("ORBWEAVER", 1.0);
+  for (int t = 0; t < 1100; ++t) d->Bar(0, t * kBarNs, r[t]);
+  return d;
+}
+
+TEST_CASE("faulty fits are never swapped in; repeated failures engage the fallback", "[refit]") {
+  const std::unique_ptr<Driver> driver = RunFaultyScript(false);
+  Driver& d = *driver;
   REQUIRE(d.records.size() == 8);
   const auto& rec = d.records;
   CHECK(rec[0].outcome == RefitOutcome::kSwapped);
@@ -849,24 +858,11 @@ TEST_CASE("an idle name runs on its group's model until its own fit passes", "[r
   CHECK((off[1][31].flags & kFlagWarmup) != 0);
 }
 
-// The faulty-fit script's run (swaps, rejections, the fallback engaging).
+// The faulty-fit script's published bytes and records.
 std::string RunFaulty(bool partial_state, std::vector<RefitRecord>* records) {
-  const auto r = Sim(Garch(0.0, 0.05, 0.08, 0.9), 1100, 31);
-  RefitOptions o;
-  o.window = 600;
-  o.min_bars = 300;
-  o.every_bars = 100;
-  o.jitter_fraction = 0;
-  o.max_failures = 3;
-  o.mode = RefitMode::kReplay;
-  Driver d(o,
-           std::make_unique<ScriptedRefitter>(std::vector<std::string>{
-               "good", "error", "nan", "negative", "good", "persistent", "diag", "unconverged"}));
-  d.partial_state = partial_state;
-  d.Add("ORBWEAVER", 1.0);
-  for (int t = 0; t < 1100; ++t) d.Bar(0, t * kBarNs, r[t]);
-  *records = d.records;
-  return d.bytes;
+  const std::unique_ptr<Driver> d = RunFaultyScript(partial_state);
+  *records = d->records;
+  return d->bytes;
 }
 
 TEST_CASE("OnBar reads only the next variance of the state it is given", "[refit]") {
