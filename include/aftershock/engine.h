@@ -7,7 +7,12 @@
 //     ZMQ_EVENTS before it waits again (ZMQ_FD is edge-triggered, so waiting
 //     while a message is queued would stall);
 //   * a steady_timer ticking every `clock_tick` for the clock close of idle
-//     bars ([bars] grace) and the observers' OnClock (stale-feed checks);
+//     bars ([bars] grace) and the observers' OnClock (stale-feed checks); a
+//     tick's bar closes run in slices of `clock_slice_bars`, re-posted as
+//     loop work so that input rounds run between them (a universe of
+//     one-minute bars closing at once, each applying a refit, is close to a
+//     second of work); a timer expiring while a tick is still under way
+//     starts the next tick when that one ends;
 //   * SIGINT/SIGTERM (optional): the handler runs between rounds, so the
 //     current batch is finished; then the sink is flushed and Run() returns OK;
 //   * the HTTP health/metrics endpoint (optional, Boost.Beast), whose handlers
@@ -57,6 +62,15 @@ struct EngineOptions {
   int64_t clock_tick_ns = 0;
   // Messages handled per readiness round before timers and signals get a turn.
   int max_messages_per_round = 4096;
+  // A clock tick's bar closes are spread over turns of the event loop
+  // (IngestCore::StartClock/ContinueClock), input rounds in between: each
+  // turn closes at most this many bars (about 8 µs each with a refit applied
+  // at the close, 0.5 µs without) and visits at most clock_slice_symbols
+  // symbols. 0 = the whole tick in one turn. Default 64 (one filter batch).
+  int clock_slice_bars = 64;
+  // Symbols visited per turn of a clock tick (see clock_slice_bars); >= 1.
+  // Default 4096.
+  int clock_slice_symbols = 4096;
   // Handle SIGINT and SIGTERM (stop gracefully). Off for engines inside tests.
   bool handle_signals = false;
   // Serve GET /health and GET /metrics (Prometheus text) at [http] endpoint

@@ -210,9 +210,32 @@ class IngestCore : public TickConsumer {
   void OnTick(const Tick& tick) override;
 
   // Clock tick: closes every open bar whose end + grace <= now_ns, then calls
-  // the observers' OnClock. Replay calls it with event time.
+  // the observers' OnClock. Replay calls it with event time. Equivalent to
+  // StartClock(now_ns) and ContinueClock until it returns false.
   void OnClock(int64_t now_ns);
-  // Closes every open bar regardless of time (end of a replay).
+  // A clock tick spread over gaps between input batches, so that a bar close
+  // where a whole universe falls due (one-minute bars, refits applied at the
+  // close) does not hold back the ticks queued behind it. StartClock(now_ns)
+  // begins a tick (finishing one still under way first, at its own time);
+  // each ContinueClock(max_bars, max_symbols) visits the next symbols in index
+  // order, closing their due bars, until max_bars bars were closed or
+  // max_symbols symbols visited; after the last symbol it calls the
+  // observers' OnClock and returns false (true: the tick is still under way).
+  // Meanwhile a tick of a symbol the clock has not reached yet first closes
+  // that symbol's due bar at now_ns (HandleTick), and symbols that join are
+  // not the tick's; so every symbol's bars, updates and observer calls are
+  // exactly those of OnClock(now_ns) followed by the same input, and only the
+  // interleaving of different symbols' messages differs. The observers'
+  // OnClock (stale-feed checks, checkpoints) sees the input handled during
+  // the tick. REQUIRES: max_bars >= 1, max_symbols >= 1.
+  void StartClock(int64_t now_ns);
+  bool ContinueClock(int max_bars, int max_symbols);
+  // Runs a clock tick under way to its end (no-op when none is).
+  void FinishClock();
+  // True between StartClock and the ContinueClock that returned false.
+  bool clock_under_way() const { return sweep_.active; }
+  // Closes every open bar regardless of time (end of a replay); a clock tick
+  // under way is finished first.
   void CloseAllOpenBars();
   // Flushes the sink.
   absl::Status Flush() { return sink_->Flush(); }
@@ -339,6 +362,9 @@ class IngestCore : public TickConsumer {
   struct Slot {
     Symbol symbol;
     BarState bars_state;
+    // The clock tick (ClockSweep::id) that last visited the symbol: a symbol
+    // is visited once per tick, by the sweep or by its own tick first.
+    uint64_t clock_sweep = 0;
     // The filter state is lane `index` of bank_; `model` is the lane's model.
     std::shared_ptr<const FilterModel> model;
     std::shared_ptr<const SeasonalProfile> profile;  // null: no seasonal adjustment
@@ -398,6 +424,10 @@ class IngestCore : public TickConsumer {
   // pending_[*n].bar was just closed for `index`: records it and handles the
   // chunk when full (*n back to 0).
   void QueueClosedBar(int index, int* n);
+  // The clock tick under way reaches `index` first from its tick: closes the
+  // symbol's bar if due at the tick's time. REQUIRES: sweep_.active,
+  // index < sweep_.end, not yet visited.
+  void SweepSymbol(int index);
   // HandleBar up to the filter step; false when the bar publishes nothing.
   // REQUIRES: p->index, p->bar and p->saved set.
   bool PrepareBar(PendingBar* p);
@@ -438,6 +468,16 @@ class IngestCore : public TickConsumer {
   std::string topic_;
   EngineCounters counters_;
   int64_t last_clock_ns_ = 0;
+  // The clock tick under way (StartClock/ContinueClock): its time, the next
+  // symbol to visit and the end of its symbols, and its number (Slot::clock_sweep).
+  struct ClockSweep {
+    bool active = false;
+    int64_t now_ns = 0;
+    int next = 0;
+    int end = 0;
+    uint64_t id = 0;
+  };
+  ClockSweep sweep_;
   double start_scratch_[kMaxWarmupStartBars];  // median of the warm-up start returns
 };
 

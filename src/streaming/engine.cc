@@ -223,13 +223,40 @@ absl::Status Engine::Run() {
 
   L.timer = std::make_unique<asio::steady_timer>(L.io);
   const auto period = std::chrono::nanoseconds(options_.clock_tick_ns);
+  // A clock tick's bar closes, a slice per turn of the loop (posted work runs
+  // in order with the drains, so queued input gets a round between slices).
+  // A timer that expires during a tick is remembered, not stacked: the next
+  // tick starts when this one ends, at the time it starts.
+  const bool sliced = options_.clock_slice_bars > 0;
+  const int slice_bars = sliced ? options_.clock_slice_bars : 1;
+  const int slice_symbols = std::max(1, options_.clock_slice_symbols);
+  bool tick_missed = false;
+  std::function<void()> sweep = [&] {
+    if (L.stop_requested.load()) return;
+    const bool more = core_->ContinueClock(slice_bars, slice_symbols);
+    sink_->EndRound();  // the updates of bars the clock closed
+    if (more) {
+      asio::post(L.io, sweep);
+    } else if (tick_missed) {
+      tick_missed = false;
+      core_->StartClock(clock_->NowNs());
+      asio::post(L.io, sweep);
+    }
+  };
   std::function<void()> schedule = [&] {
     L.timer->expires_after(period);
     L.timer->async_wait([&](const boost::system::error_code& ec) {
       if (ec) return;
       const int64_t now = clock_->NowNs();
-      core_->OnClock(now);
-      sink_->EndRound();  // the updates of bars the clock closed
+      if (!sliced) {
+        core_->OnClock(now);
+        sink_->EndRound();  // the updates of bars the clock closed
+      } else if (core_->clock_under_way()) {
+        tick_missed = true;
+      } else {
+        core_->StartClock(now);
+        sweep();
+      }
       reject_window_->Sample(core_->counters(), now);
       schedule();
     });
@@ -261,6 +288,9 @@ absl::Status Engine::Run() {
   L.signals.reset();
   L.timer.reset();
 
+  // A clock tick the loop left under way ends here (its observers' OnClock
+  // included), as if it had run whole.
+  core_->FinishClock();
   if (L.source_ended) core_->CloseAllOpenBars();
   source_->OnStopped();
   absl::Status flushed = sink_->Flush();

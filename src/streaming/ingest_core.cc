@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 #include <cstring>
+#include <limits>
 #include <utility>
 
 #include "absl/strings/str_cat.h"
@@ -155,6 +156,9 @@ void IngestCore::HandleTick(const Tick& tick, int64_t arrival_ns) {
   const int index = IndexFor(tick.symbol.view());
   if (index < 0) return;
   Slot& slot = slots_[index];
+  // A clock tick under way that has not reached this symbol closes its due
+  // bar first, at the tick's time, exactly as OnClock would have.
+  if (sweep_.active && index < sweep_.end && slot.clock_sweep != sweep_.id) SweepSymbol(index);
   slot.last_arrival_ns = arrival_ns;
   const FeedResult fr = FeedTick(&slot.bars_state, tick, bar_options_);
   if (fr.status != TickStatus::kAccepted) {
@@ -425,24 +429,69 @@ bool IngestCore::PublishNamedMessage(TopicKind kind, absl::string_view name,
 }
 
 void IngestCore::OnClock(int64_t now_ns) {
+  StartClock(now_ns);
+  ContinueClock(std::numeric_limits<int>::max(), std::numeric_limits<int>::max());
+}
+
+void IngestCore::StartClock(int64_t now_ns) {
+  // Ticks never overlap: one still under way ends first, at its own time.
+  FinishClock();
   last_clock_ns_ = now_ns;
+  sweep_.active = true;
+  sweep_.now_ns = now_ns;
+  sweep_.next = 0;
+  // Symbols that join during the tick are not its: with OnClock they did not
+  // exist yet.
+  sweep_.end = num_symbols();
+  ++sweep_.id;
+}
+
+bool IngestCore::ContinueClock(int max_bars, int max_symbols) {
+  if (!sweep_.active) return false;
   if (bar_options_.interval_ns > 0) {
     // Time bars close on the clock for every symbol at once: handled in chunks
-    // (HandleBars), their filters stepped as a batch.
-    int n = 0;
-    for (int i = 0; i < num_symbols(); ++i) {
-      if (!slots_[i].bars_state.open) continue;
-      if (CloseIfDue(&slots_[i].bars_state, now_ns, config_.bars.grace_ns, bar_options_,
+    // (HandleBars), their filters stepped as a batch. A symbol a tick reached
+    // first (HandleTick: SweepSymbol) is skipped; its due bar is closed.
+    int n = 0, closed = 0, scanned = 0;
+    while (sweep_.next < sweep_.end && closed < max_bars && scanned < max_symbols) {
+      const int i = sweep_.next++;
+      ++scanned;
+      Slot& slot = slots_[i];
+      if (slot.clock_sweep == sweep_.id) continue;
+      slot.clock_sweep = sweep_.id;
+      if (!slot.bars_state.open) continue;
+      if (CloseIfDue(&slot.bars_state, sweep_.now_ns, config_.bars.grace_ns, bar_options_,
                      &pending_[n].bar)) {
         QueueClosedBar(i, &n);
+        ++closed;
       }
     }
+    // The chunk is handled before returning: pending_ is free between calls.
     if (n > 0) HandleBars(n);
+    if (sweep_.next < sweep_.end) return true;
   }
-  for (BarObserver* o : observers_) o->OnClock(this, now_ns);
+  sweep_.active = false;
+  for (BarObserver* o : observers_) o->OnClock(this, sweep_.now_ns);
+  return false;
+}
+
+void IngestCore::FinishClock() {
+  while (ContinueClock(std::numeric_limits<int>::max(), std::numeric_limits<int>::max())) {
+  }
+}
+
+void IngestCore::SweepSymbol(int index) {
+  Slot& slot = slots_[index];
+  slot.clock_sweep = sweep_.id;
+  if (!slot.bars_state.open) return;
+  ClosedBar bar;
+  if (CloseIfDue(&slot.bars_state, sweep_.now_ns, config_.bars.grace_ns, bar_options_, &bar)) {
+    HandleBar(index, bar);
+  }
 }
 
 void IngestCore::CloseAllOpenBars() {
+  FinishClock();
   if (bar_options_.interval_ns <= 0) return;
   int n = 0;
   for (int i = 0; i < num_symbols(); ++i) {
@@ -841,6 +890,7 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
   counters_ = c;
   counters_.symbols = slots_.size();
   last_clock_ns_ = last_clock;
+  sweep_.active = false;  // a restored state is at a clock boundary
   for (int i = 0; i < num_symbols(); ++i) {
     for (BarObserver* o : observers_) o->OnNewSymbol(this, i, slots_[i].symbol.view());
   }

@@ -337,6 +337,91 @@ class ScriptedSource : public TickSource {
   size_t next_ = 0;
 };
 
+// Ticks of many symbols in two rounds: one return each in second 0, then,
+// once the engine's clock tick (at second 2.5, all bars due) has begun, one
+// message per Pump in reverse symbol order, so input arrives between the
+// tick's slices. Notes how many messages it handed over during a tick.
+class TwoRoundSource : public TickSource {
+ public:
+  TwoRoundSource(int symbols, ManualClock* clock) : symbols_(symbols), clock_(clock) {}
+  void set_core(const IngestCore* core) { core_ = core; }
+  int Pump(TickConsumer* consumer, int max_messages) override {
+    std::string body;
+    if (first_ < symbols_) {
+      int n = 0;
+      for (; n < max_messages && first_ < symbols_; ++n, ++first_)
+        Send(consumer, first_, kT0 + 1000);
+      if (first_ == symbols_) clock_->Set(kT0 + int64_t{2500} * 1000 * 1000);
+      return n;
+    }
+    if (core_->counters().bars_clock_closed == 0) {  // the timer's tick has not begun
+      std::this_thread::sleep_for(Ms(1));
+      return 0;
+    }
+    if (second_ == symbols_) return kEndOfInput;
+    during_tick += core_->clock_under_way();
+    Send(consumer, symbols_ - 1 - second_++, kT0 + 2 * kNanosPerSecond + 1000);
+    return 1;
+  }
+  int during_tick = 0;
+
+ private:
+  void Send(TickConsumer* consumer, int s, int64_t t) {
+    Tick k;
+    k.symbol.assign(absl::StrCat("WREN", s, ".K"));
+    k.t_ns = t;
+    k.kind = Tick::kReturn;
+    k.value = 0.001 * (1 + s % 7);
+    body_.clear();
+    EncodeTickJson(k, &body_);
+    consumer->OnMessage(k.symbol.view(), body_);
+  }
+  const int symbols_;
+  ManualClock* clock_;
+  const IngestCore* core_ = nullptr;
+  int first_ = 0, second_ = 0;
+  std::string body_;
+};
+
+TEST_CASE("a clock tick in slices: input between slices, every symbol's updates unchanged",
+          "[engine][clock]") {
+  EngineConfig config = testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +
+                                                  "[bars]\ninterval = \"1s\"\n");
+  constexpr int kSymbols = 2000;
+  const auto run = [&](int slice_bars, int* during_tick) {
+    ManualClock clock(kT0);
+    auto source = std::make_unique<TwoRoundSource>(kSymbols, &clock);
+    TwoRoundSource* src = source.get();
+    auto sink = std::make_unique<testing::CollectingSink>();
+    testing::CollectingSink* raw = sink.get();
+    EngineOptions eo;
+    eo.clock_tick_ns = 1000 * 1000;
+    eo.clock_slice_bars = slice_bars;
+    eo.clock_slice_symbols = 64;
+    auto engine = Engine::Create(config, std::move(source), std::move(sink), &clock, eo);
+    REQUIRE(engine.ok());
+    src->set_core((*engine)->core());
+    REQUIRE((*engine)->Run().ok());
+    CHECK_FALSE((*engine)->core()->clock_under_way());
+    // Second 0's bars closed by the clock; second 2's at the end of input.
+    CHECK((*engine)->core()->counters().bars_clock_closed == kSymbols);
+    CHECK((*engine)->core()->counters().bars == 2 * kSymbols);
+    *during_tick = src->during_tick;
+    std::map<std::string, std::vector<std::string>> by_topic;
+    for (const auto& m : raw->messages) by_topic[m.topic].push_back(m.body);
+    return by_topic;
+  };
+  int whole_during = -1, sliced_during = -1;
+  const auto whole = run(0, &whole_during);
+  const auto sliced = run(8, &sliced_during);
+  CHECK(whole_during == 0);
+  // 2,000 bars in slices of 8: the tick spans many Pump calls.
+  CHECK(sliced_during > 50);
+  REQUIRE(whole.size() == static_cast<size_t>(kSymbols));
+  CHECK(whole == sliced);
+  for (const auto& [topic, bodies] : whole) REQUIRE(bodies.size() == 2);
+}
+
 TEST_CASE("GET /health answers 503 degraded when most inputs are rejected", "[engine][http]") {
   // A producer of JSON ticks against a feed configured for binary frames.
   EngineConfig config = testing::ParseConfigOrDie(std::string(testing::kFixedModelToml) +

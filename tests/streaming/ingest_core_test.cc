@@ -376,6 +376,77 @@ TEST_CASE("bars closed by the clock are batch-stepped, bit-identical to tick-clo
   CHECK(clocked.core->counters().updates_out == ticked.core->counters().updates_out);
 }
 
+// Counts bars and clock ticks as an observer sees them.
+struct ClockCounter : BarObserver {
+  void OnBar(IngestCore*, int index, const ClosedBar& bar, BarUpdate*) override {
+    closed_by.push_back({index, bar.closed_by_clock});
+  }
+  void OnClock(IngestCore* core, int64_t now) override {
+    ticks.push_back(now);
+    under_way_at_tick += core->clock_under_way();
+  }
+  std::vector<std::pair<int, bool>> closed_by;
+  std::vector<int64_t> ticks;
+  int under_way_at_tick = 0;
+};
+
+// The mechanics of a clock tick in slices (the bytes on the path users run:
+// engine_services_test "a clock tick spread over input ...").
+TEST_CASE("a clock tick in slices: bars per call, the observers' OnClock once at the end",
+          "[core][clock]") {
+  Fixture f(std::string(testing::kFixedModelToml) +
+            "[bars]\ninterval = \"1s\"\ngrace = \"200ms\"\n");
+  ClockCounter seen;
+  f.core->AddObserver(&seen);
+  // 10 symbols with an open bar in second 0; symbol 4 has none open.
+  for (int s = 0; s < 10; ++s) {
+    f.core->OnTick(ReturnTick("S" + std::to_string(s), kT0 + 100, 0.001));
+    f.core->OnTick(ReturnTick("S" + std::to_string(s), kT0 + kSec + 100, 0.002));
+  }
+  f.core->OnTick(ReturnTick("S4", kT0 + 2 * kSec + 100, 0.001));  // bar of second 2
+  const int64_t now = kT0 + 2 * kSec + 300000000;                 // second 1 due, 2 not
+  seen.closed_by.clear();
+  f.core->StartClock(now);
+  CHECK(f.core->clock_under_way());
+  CHECK(f.core->last_clock_ns() == now);
+  // 3 bars per call: symbols 0-2, then 3 and 5-6 (4's bar is not due).
+  CHECK(f.core->ContinueClock(3, 100));
+  REQUIRE(seen.closed_by.size() == 3);
+  CHECK(seen.ticks.empty());
+  // A tick of symbol 8 (not reached) closes its due bar first, then opens second 2.
+  f.core->OnTick(ReturnTick("S8", kT0 + 2 * kSec + 200, 0.003));
+  REQUIRE(seen.closed_by.size() == 4);
+  CHECK(seen.closed_by[3] == std::make_pair(8, true));
+  // A symbol joining during the tick is not the tick's: its late bar stays open.
+  f.core->OnTick(ReturnTick("NEW", kT0 + 100, 0.001));
+  // At most 2 symbols visited: 3 and 4 (4 not due).
+  CHECK(f.core->ContinueClock(100, 2));
+  REQUIRE(seen.closed_by.size() == 5);
+  CHECK(seen.closed_by[4].first == 3);
+  CHECK(f.core->ContinueClock(2, 100));          // 5, 6
+  CHECK_FALSE(f.core->ContinueClock(100, 100));  // 7, 9 (8 done), then OnClock
+  CHECK_FALSE(f.core->clock_under_way());
+  std::vector<int> order;
+  for (const auto& [i, by_clock] : seen.closed_by) {
+    order.push_back(i);
+    CHECK(by_clock);
+  }
+  CHECK(order == std::vector<int>{0, 1, 2, 8, 3, 5, 6, 7, 9});
+  REQUIRE(seen.ticks == std::vector<int64_t>{now});
+  CHECK(seen.under_way_at_tick == 0);
+  CHECK_FALSE(f.core->ContinueClock(1, 1));  // nothing under way: no second OnClock
+  CHECK(seen.ticks.size() == 1);
+  // A new tick while one is under way finishes that one first, at its time;
+  // that one closes the newcomer's bar and the second-2 bars of 4 and 8.
+  f.core->StartClock(now + kSec);
+  f.core->StartClock(now + 2 * kSec);
+  CHECK(seen.ticks == std::vector<int64_t>{now, now + kSec});
+  f.core->FinishClock();
+  CHECK(seen.ticks == std::vector<int64_t>{now, now + kSec, now + 2 * kSec});
+  CHECK(f.core->symbol_bars(f.core->num_symbols() - 1) == 1);
+  CHECK(f.core->counters().bars_clock_closed == 9 + 3);
+}
+
 TEST_CASE("bad-input corpus: every class counted by reason, never fatal, no NaN", "[core]") {
   const std::string toml = std::string(testing::kFixedModelToml) +
                            "[limits]\nmax_symbols = 3\n"
