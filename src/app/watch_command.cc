@@ -105,6 +105,9 @@ int WatchCommand(int argc, char** argv) {
   }
   WatchTable table(wo);
 
+  // Installed before the socket connects: a caller that saw the subscription
+  // arrive may interrupt at once.
+  ScopedStopHandler stop_handler;
   zmq::context_t ctx(1);
   zmq::socket_t sock(ctx, zmq::socket_type::sub);
   if (absl::Status c = CheckEndpoint(args.Get("endpoint")); !c.ok()) {
@@ -128,7 +131,6 @@ int WatchCommand(int argc, char** argv) {
                 2);
   }
 
-  ScopedStopHandler stop_handler;
   const auto start = Clock::now();
   const double limit_s = once ? *timeout : *duration;
   const auto deadline =

@@ -4,6 +4,7 @@
 // output must be exactly what the table model renders for them.
 #include <catch2/catch.hpp>
 #include <chrono>
+#include <cstdio>
 #include <string>
 #include <thread>
 #include <zmq.hpp>
@@ -155,9 +156,23 @@ TEST_CASE("watch --mode table redraws in place at most ten times a second") {
 
 TEST_CASE("watch exits cleanly on SIGINT") {
   TestPublisher pub;
-  // 5 s so that even a slow start on a loaded machine has installed the handler.
-  auto r = testing::RunCommand({"/usr/bin/timeout", "--preserve-status", "-s", "INT", "5",
-                                AFTERSHOCK_CLI, "watch", "--endpoint", pub.endpoint()});
+  // watch installs its handler before it connects, so once its subscriptions
+  // reached the publisher the interrupt is handled (a fixed delay failed once
+  // on a loaded machine). The shell starts it, waits for the test's go file,
+  // interrupts it and exits with its status.
+  const std::string go = testing::ScratchDir("watch_sigint") + "/subscribed";
+  std::remove(go.c_str());
+  testing::CommandResult r;
+  std::thread shell([&] {
+    r = testing::RunCommand({"/bin/sh", "-c",
+                             "\"$0\" watch --endpoint \"$1\" & p=$!; "
+                             "while [ ! -e \"$2\" ]; do sleep 0.05; done; kill -INT $p; wait $p",
+                             AFTERSHOCK_CLI, pub.endpoint(), go});
+  });
+  const bool subscribed = pub.WaitSubscriptions(1);
+  testing::WriteFile(go, "");
+  shell.join();
+  REQUIRE(subscribed);
   CHECK(r.exit_code == 0);
   CHECK(r.err == "aftershock watch: 0 updates, 0 symbols, 0 undecodable messages\n");
 }
