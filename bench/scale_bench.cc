@@ -350,7 +350,7 @@ class PacedFeed : public TickSource {
   }
 
   uint64_t ticks() const { return k_; }
-  const bool* ended() const { return &ended_; }
+  bool ended() const { return ended_; }  // kEndOfInput was returned
 
  private:
   int64_t DueSteady(uint64_t k) const {
@@ -425,7 +425,7 @@ class CloseTimes : public BarObserver {
   void OnClock(IngestCore*, int64_t) override { EndBurst(); }
   void EndBurst() {
     // After the input ended the engine closes what is left with no tick waiting.
-    if (live && burst_bars_ > 0 && !(input_ended != nullptr && *input_ended)) {
+    if (live && burst_bars_ > 0 && !(feed != nullptr && feed->ended())) {
       const double ms = static_cast<double>(SteadyNs() - burst_start_) / 1e6;
       const double cpu_ms = static_cast<double>(ThreadCpuNs() - burst_cpu_start_) / 1e6;
       if (verbose && ms > 5) {
@@ -451,7 +451,7 @@ class CloseTimes : public BarObserver {
   }
   bool live = false;
   bool verbose = false;
-  const bool* input_ended = nullptr;  // the feed's flag: set when it returned kEndOfInput
+  const PacedFeed* feed = nullptr;  // its end of input ends the measured bursts
 
  private:
   std::vector<int64_t> ring_;
@@ -676,7 +676,7 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
   feed->Start();
   closes.live = true;
   closes.verbose = f.verbose;
-  closes.input_ended = feed->ended();
+  closes.feed = feed;
   const auto w0 = std::chrono::steady_clock::now();
   const double cpu0 = ProcessCpuSeconds();
   const double ingest0 = ThreadCpuSeconds();

@@ -424,10 +424,11 @@ class IngestCore : public TickConsumer {
   // pending_[*n].bar was just closed for `index`: records it and handles the
   // chunk when full (*n back to 0).
   void QueueClosedBar(int index, int* n);
-  // The clock tick under way reaches `index` first from its tick: closes the
-  // symbol's bar if due at the tick's time. REQUIRES: sweep_.active,
-  // index < sweep_.end, not yet visited.
-  void SweepSymbol(int index);
+  // The clock tick under way visits `index` (from the sweep, or first from the
+  // symbol's own tick): marks it visited and closes its bar into *bar when due
+  // at the tick's time (true). REQUIRES: sweep_.active, index < sweep_.end,
+  // not yet visited.
+  bool VisitForClock(int index, ClosedBar* bar);
   // HandleBar up to the filter step; false when the bar publishes nothing.
   // REQUIRES: p->index, p->bar and p->saved set.
   bool PrepareBar(PendingBar* p);

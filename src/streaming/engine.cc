@@ -11,6 +11,7 @@
 #include <boost/asio/steady_timer.hpp>
 #include <chrono>
 #include <csignal>
+#include <limits>
 #include <utility>
 
 #include "aftershock/engine_metrics.h"
@@ -224,12 +225,14 @@ absl::Status Engine::Run() {
   L.timer = std::make_unique<asio::steady_timer>(L.io);
   const auto period = std::chrono::nanoseconds(options_.clock_tick_ns);
   // A clock tick's bar closes, a slice per turn of the loop (posted work runs
-  // in order with the drains, so queued input gets a round between slices).
-  // A timer that expires during a tick is remembered, not stacked: the next
-  // tick starts when this one ends, at the time it starts.
+  // in order with the drains, so queued input gets a round between slices;
+  // clock_slice_bars = 0: one unbounded slice, the whole tick). A timer that
+  // expires during a tick is remembered, not stacked: the next tick starts
+  // when this one ends, at the time it starts.
+  constexpr int kWhole = std::numeric_limits<int>::max();
   const bool sliced = options_.clock_slice_bars > 0;
-  const int slice_bars = sliced ? options_.clock_slice_bars : 1;
-  const int slice_symbols = std::max(1, options_.clock_slice_symbols);
+  const int slice_bars = sliced ? options_.clock_slice_bars : kWhole;
+  const int slice_symbols = sliced ? std::max(1, options_.clock_slice_symbols) : kWhole;
   bool tick_missed = false;
   std::function<void()> sweep = [&] {
     if (L.stop_requested.load()) return;
@@ -248,10 +251,7 @@ absl::Status Engine::Run() {
     L.timer->async_wait([&](const boost::system::error_code& ec) {
       if (ec) return;
       const int64_t now = clock_->NowNs();
-      if (!sliced) {
-        core_->OnClock(now);
-        sink_->EndRound();  // the updates of bars the clock closed
-      } else if (core_->clock_under_way()) {
+      if (core_->clock_under_way()) {
         tick_missed = true;
       } else {
         core_->StartClock(now);

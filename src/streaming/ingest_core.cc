@@ -158,7 +158,10 @@ void IngestCore::HandleTick(const Tick& tick, int64_t arrival_ns) {
   Slot& slot = slots_[index];
   // A clock tick under way that has not reached this symbol closes its due
   // bar first, at the tick's time, exactly as OnClock would have.
-  if (sweep_.active && index < sweep_.end && slot.clock_sweep != sweep_.id) SweepSymbol(index);
+  if (sweep_.active && index < sweep_.end && slot.clock_sweep != sweep_.id) {
+    ClosedBar due;
+    if (VisitForClock(index, &due)) HandleBar(index, due);
+  }
   slot.last_arrival_ns = arrival_ns;
   const FeedResult fr = FeedTick(&slot.bars_state, tick, bar_options_);
   if (fr.status != TickStatus::kAccepted) {
@@ -430,7 +433,7 @@ bool IngestCore::PublishNamedMessage(TopicKind kind, absl::string_view name,
 
 void IngestCore::OnClock(int64_t now_ns) {
   StartClock(now_ns);
-  ContinueClock(std::numeric_limits<int>::max(), std::numeric_limits<int>::max());
+  FinishClock();
 }
 
 void IngestCore::StartClock(int64_t now_ns) {
@@ -451,17 +454,13 @@ bool IngestCore::ContinueClock(int max_bars, int max_symbols) {
   if (bar_options_.interval_ns > 0) {
     // Time bars close on the clock for every symbol at once: handled in chunks
     // (HandleBars), their filters stepped as a batch. A symbol a tick reached
-    // first (HandleTick: SweepSymbol) is skipped; its due bar is closed.
+    // first (HandleTick: VisitForClock) is skipped; its due bar is closed.
     int n = 0, closed = 0, scanned = 0;
     while (sweep_.next < sweep_.end && closed < max_bars && scanned < max_symbols) {
       const int i = sweep_.next++;
       ++scanned;
-      Slot& slot = slots_[i];
-      if (slot.clock_sweep == sweep_.id) continue;
-      slot.clock_sweep = sweep_.id;
-      if (!slot.bars_state.open) continue;
-      if (CloseIfDue(&slot.bars_state, sweep_.now_ns, config_.bars.grace_ns, bar_options_,
-                     &pending_[n].bar)) {
+      if (slots_[i].clock_sweep == sweep_.id) continue;
+      if (VisitForClock(i, &pending_[n].bar)) {
         QueueClosedBar(i, &n);
         ++closed;
       }
@@ -480,14 +479,11 @@ void IngestCore::FinishClock() {
   }
 }
 
-void IngestCore::SweepSymbol(int index) {
+bool IngestCore::VisitForClock(int index, ClosedBar* bar) {
   Slot& slot = slots_[index];
   slot.clock_sweep = sweep_.id;
-  if (!slot.bars_state.open) return;
-  ClosedBar bar;
-  if (CloseIfDue(&slot.bars_state, sweep_.now_ns, config_.bars.grace_ns, bar_options_, &bar)) {
-    HandleBar(index, bar);
-  }
+  return slot.bars_state.open &&
+         CloseIfDue(&slot.bars_state, sweep_.now_ns, config_.bars.grace_ns, bar_options_, bar);
 }
 
 void IngestCore::CloseAllOpenBars() {

@@ -346,7 +346,6 @@ class TwoRoundSource : public TickSource {
   TwoRoundSource(int symbols, ManualClock* clock) : symbols_(symbols), clock_(clock) {}
   void set_core(const IngestCore* core) { core_ = core; }
   int Pump(TickConsumer* consumer, int max_messages) override {
-    std::string body;
     if (first_ < symbols_) {
       int n = 0;
       for (; n < max_messages && first_ < symbols_; ++n, ++first_)
