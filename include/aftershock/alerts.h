@@ -331,6 +331,14 @@ class AlertEngine {
                   AlertSink* sink);
   // The stale threshold of a symbol in its current state, seconds.
   double StaleThresholdSeconds(const SymbolAlertState& state) const;
+  // What lets a caller skip checks that cannot do anything: a CheckStale of
+  // `state` whose feed.last_tick_ns is 0 or equals state.last_tick_ns (no new
+  // data), with feed.count_from_ns >= `count_from_ns`, neither changes the
+  // state nor sends anything when feed.now_ns is earlier than the returned
+  // clock time, ns (or when feed.in_session is false). Earlier than the exact
+  // instant by at most a few microseconds, never later; INT64_MAX when no
+  // silence can raise an alert (no tick seen yet, or the episode was alerted).
+  int64_t StaleDueNs(const SymbolAlertState& state, int64_t count_from_ns) const;
 
   // Checkpoint encoding of the engine's own state: its counters and the
   // feed-wide reject window (buckets, burst and alert marks).

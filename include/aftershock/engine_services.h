@@ -84,6 +84,13 @@ struct ServiceOptions {
   // into the coordinator (RefitCoordinator::Seed). Leave empty when the state
   // is restored from a checkpoint (a restore wins). Default: none.
   std::vector<StoredModel> initial_models;
+  // The stale-feed check on each clock tick calls AlertEngine::CheckStale
+  // for every symbol when true. When false (default) it calls it only for the
+  // symbols that got a message since their last check or whose earliest
+  // possible stale time (AlertEngine::StaleDueNs) has come: the same alerts
+  // and state, reading 24 bytes a symbol instead of the symbols' alert state.
+  // True is for tests and benchmarks that compare the two.
+  bool stale_check_every_symbol = false;
 };
 
 class EngineServices {

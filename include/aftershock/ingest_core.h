@@ -77,6 +77,7 @@
 #define AFTERSHOCK_INGEST_CORE_H_
 
 #include <cstdint>
+#include <limits>
 #include <memory>
 #include <string>
 #include <vector>
@@ -354,7 +355,11 @@ class IngestCore : public TickConsumer {
   uint64_t symbol_ticks(int index) const { return slots_[index].ticks; }        // accepted
   int64_t last_tick_ns(int index) const { return slots_[index].last_tick_ns; }  // event time
   // Wall clock (Clock::NowNs) of the last message carrying this symbol.
-  int64_t last_arrival_ns(int index) const { return slots_[index].last_arrival_ns; }
+  int64_t last_arrival_ns(int index) const { return arrivals_[index]; }
+  // last_arrival_ns of every symbol, by index, contiguous (a clock-driven
+  // check of a whole universe reads it without touching the symbols' slots).
+  // Valid until the next call that adds a symbol. Ingest thread.
+  absl::Span<const int64_t> last_arrivals() const { return arrivals_; }
   const EngineConfig& config() const { return config_; }
   int64_t last_clock_ns() const { return last_clock_ns_; }
 
@@ -380,7 +385,6 @@ class IngestCore : public TickConsumer {
     uint64_t updates = 0;
     uint64_t ticks = 0;
     int64_t last_tick_ns = 0;
-    int64_t last_arrival_ns = 0;
     std::unique_ptr<SymbolExtra> extra[kMaxSymbolExtras];
     // ---- Recursive tracking ([tracking], recursive_tracker.h) ----
     TrackingMode tracking = TrackingMode::kOff;  // the symbol's mode (group or [tracking])
@@ -412,6 +416,8 @@ class IngestCore : public TickConsumer {
   // bar of a chunk is prepared, then filtered (FilterBank::StepBatch), then
   // published in index order.
   static constexpr int kBarChunk = 64;
+  // close_at_ of a symbol with no open bar.
+  static constexpr int64_t kNoBarToClose = std::numeric_limits<int64_t>::max();
 
   IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* clock,
              std::shared_ptr<const FilterModel> initial_model);
@@ -437,6 +443,8 @@ class IngestCore : public TickConsumer {
   // Tracking on the bar's filter input x; returns the model the filter steps
   // with (the slot's, or in drive mode the retuned copy).
   const FilterModel* TrackBar(int index, double x);
+  // Refreshes close_at_[index] from the slot's bar state (after any change).
+  void NoteBarState(int index);
   // Sets up a slot's tracking mode (and its drive-mode model) for `symbol`.
   void InitTracking(Slot* slot, absl::string_view symbol);
   bool SendOn(TopicKind kind, absl::string_view symbol, absl::string_view body);
@@ -456,6 +464,14 @@ class IngestCore : public TickConsumer {
   std::vector<const MetricsSource*> metrics_sources_;
   absl::flat_hash_map<std::string, int> index_;
   std::vector<Slot> slots_;
+  // Each slot's last arrival (last_arrival_ns), kept apart from the slots so
+  // that a check of every symbol reads 8 bytes a symbol; same indices.
+  std::vector<int64_t> arrivals_;
+  // Each slot's earliest clock time at which CloseIfDue closes its open bar
+  // (bar end + grace), kNoBarToClose when no bar is open; same indices. Kept
+  // with every change of a bar state (NoteBarState) so that a clock tick
+  // passes over the symbols with nothing due without reading their slots.
+  std::vector<int64_t> close_at_;
   FilterBank bank_;          // every symbol's filter state; lane = index
   std::vector<Tick> ticks_;  // decode buffer, kMaxBatchTicks
   // Per chunk of bars (kBarChunk each): the bars, the updates, the state of an

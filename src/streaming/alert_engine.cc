@@ -482,6 +482,21 @@ double AlertEngine::StaleThresholdSeconds(const SymbolAlertState& st) const {
   return std::max(options_.stale_seconds, options_.stale_gap_multiple * st.tick_gap_s);
 }
 
+int64_t AlertEngine::StaleDueNs(const SymbolAlertState& st, int64_t count_from_ns) const {
+  constexpr int64_t kNever = std::numeric_limits<int64_t>::max();
+  if (st.last_tick_ns == 0 || st.stale_alerted) return kNever;
+  const int64_t since = std::max(st.last_tick_ns, count_from_ns);
+  // CheckStale fires when double(now - since) / 1e9 >= threshold. The
+  // roundings here and there stay below 2 us for any int64 clock (half an ulp
+  // of 2^63 ns is 1 us), inside the margin, so no earlier time passes the test.
+  constexpr double kMarginNs = 4000;
+  const double after_ns = StaleThresholdSeconds(st) * kNsPerSecond - kMarginNs;
+  if (!(after_ns > 0)) return since;
+  const double due = static_cast<double>(since) + after_ns;
+  if (due >= 9223372036854775808.0) return kNever;  // 2^63: no int64 clock gets there
+  return static_cast<int64_t>(due);
+}
+
 void AlertEngine::CheckStale(const Symbol& symbol, const FeedCheck& f, SymbolAlertState* st,
                              AlertSink* sink) {
   if (f.last_tick_ns != 0 && f.last_tick_ns != st->last_tick_ns) {

@@ -5,9 +5,10 @@
 #include <limits>
 #include <vector>
 
+#include "absl/container/flat_hash_map.h"
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_join.h"
-#include "absl/container/flat_hash_map.h"
+#include "absl/types/span.h"
 #include "aftershock/pipeline_refitter.h"
 
 namespace aftershock {
@@ -43,7 +44,6 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   }
   return o;
 }
-
 
 class Services;
 
@@ -135,9 +135,9 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       // Candidates the gate would refuse for their persistence are not chosen.
       ro.identify.max_persistence = config_.refit.max_persistence;
       ro.fit.presample = config_.model.presample;
-      auto coord = RefitCoordinator::Create(ToRefitOptions(config_, options_),
-                                            config_.outputs.ToOutputOptions(),
-                                            PipelineRefitter::Create(ro));
+      auto coord =
+          RefitCoordinator::Create(ToRefitOptions(config_, options_),
+                                   config_.outputs.ToOutputOptions(), PipelineRefitter::Create(ro));
       if (!coord.ok()) {
         return absl::InvalidArgumentError(absl::StrCat("[refit] ", coord.status().message()));
       }
@@ -159,9 +159,10 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     for (const StoredModel& m : options_.initial_models) {
       auto model = FilterModel::Create(m.params, outputs, m.version);
       if (!model.ok()) {
-        return absl::InvalidArgumentError(absl::StrCat("initial model of symbol ", m.symbol,
-                                                       m.line > 0 ? absl::StrCat(" (line ", m.line, ")") : "",
-                                                       ": ", model.status().message()));
+        return absl::InvalidArgumentError(
+            absl::StrCat("initial model of symbol ", m.symbol,
+                         m.line > 0 ? absl::StrCat(" (line ", m.line, ")") : "", ": ",
+                         model.status().message()));
       }
       auto v = std::make_shared<ModelVersion>();
       v->version = m.version;
@@ -206,8 +207,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   }
   absl::Status Flush() override {
     if (alerts_file_ != nullptr && std::fflush(alerts_file_) != 0) {
-      return absl::InternalError(absl::StrCat("cannot write the alerts file '",
-                                              options_.alerts_path, "'"));
+      return absl::InternalError(
+          absl::StrCat("cannot write the alerts file '", options_.alerts_path, "'"));
     }
     return absl::OkStatus();
   }
@@ -278,9 +279,9 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     if (!r.ok()) return r.status();
     if (had_refit != (refit_ != nullptr) || had_seasonal != seasonal_) {
       return absl::FailedPreconditionError(absl::StrCat(
-          "the checkpoint was written with refits ", had_refit ? "on" : "off",
-          " and seasonality ", had_seasonal ? "on" : "off", "; the configuration has refits ",
-          refit_ ? "on" : "off", " and seasonality ", seasonal_ ? "on" : "off"));
+          "the checkpoint was written with refits ", had_refit ? "on" : "off", " and seasonality ",
+          had_seasonal ? "on" : "off", "; the configuration has refits ", refit_ ? "on" : "off",
+          " and seasonality ", seasonal_ ? "on" : "off"));
     }
     const uint64_t rejects_seen = r.U64("services rejects seen");
     const int64_t session_open = r.I64("services stale-rule session");
@@ -350,6 +351,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     session_open_ns_ = session_open;
     feed_first_ns_ = feed_first;
     swap_errors_ = swap_errors;
+    stale_count_from_ = kMustCheck;
     // The main engine keeps its place (symbols point at it): copy the state.
     {
       StateWriter tmp;
@@ -366,6 +368,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       }
     }
     for (size_t i = 0; i < saved.size(); ++i) {
+      stale_[i] = StaleWatch{};  // restored alert states: check each next tick
       symbols_[i].alerts = saved[i].alerts;
       symbols_[i].fallback = saved[i].fallback;
       if (seasonal_ && !refit_) symbols_[i].seasonal_window = std::move(saved[i].window);
@@ -378,8 +381,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
         const ModelVersionPtr& now = refit_->current(static_cast<uint32_t>(symbols_[i].refit_id));
         const int index = static_cast<int>(i);
         if (core_->model(index).version() != now->version) continue;  // e.g. [model.params] v1
-        if (absl::Status s = core_->ShareModel(
-                index, std::shared_ptr<const FilterModel>(now, &now->model));
+        if (absl::Status s =
+                core_->ShareModel(index, std::shared_ptr<const FilterModel>(now, &now->model));
             !s.ok()) {
           return absl::DataLossError(absl::StrCat(
               "the core's and the refit coordinator's states disagree: ", s.message()));
@@ -408,10 +411,15 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     }
     if (!refit_) return;
     const RefitStats r = refit_->stats();
-    const std::pair<const char*, uint64_t> counters[] = {
-        {"due", r.due},           {"submitted", r.submitted}, {"coalesced", r.coalesced},
-        {"dropped", r.dropped},   {"swapped", r.swapped},     {"rejected", r.rejected},
-        {"errors", r.refit_errors}, {"fallbacks", r.fallbacks}, {"pooled", r.pooled}};
+    const std::pair<const char*, uint64_t> counters[] = {{"due", r.due},
+                                                         {"submitted", r.submitted},
+                                                         {"coalesced", r.coalesced},
+                                                         {"dropped", r.dropped},
+                                                         {"swapped", r.swapped},
+                                                         {"rejected", r.rejected},
+                                                         {"errors", r.refit_errors},
+                                                         {"fallbacks", r.fallbacks},
+                                                         {"pooled", r.pooled}};
     absl::StrAppend(o, "# HELP aftershock_refits_total Refit jobs by outcome.\n",
                     "# TYPE aftershock_refits_total counter\n");
     for (const auto& [what, v] : counters) {
@@ -427,6 +435,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   // ---- BarObserver ----
   void OnNewSymbol(IngestCore* core, int index, absl::string_view symbol) override {
     if (static_cast<int>(symbols_.size()) <= index) symbols_.resize(index + 1);
+    if (static_cast<int>(stale_.size()) <= index) stale_.resize(index + 1);
+    stale_[index] = StaleWatch{};
     PerSymbol& p = symbols_[index];
     p.symbol.assign(symbol);
     p.alerts_engine = alerts_.get();
@@ -451,8 +461,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     auto it = initial_.find(symbol);
     if (it == initial_.end()) return;
     const ModelVersionPtr& v = it->second;
-    if (refit_ && p.refit_id >= 0 &&
-        !refit_->Seed(static_cast<uint32_t>(p.refit_id), v).ok()) {
+    if (refit_ && p.refit_id >= 0 && !refit_->Seed(static_cast<uint32_t>(p.refit_id), v).ok()) {
       ++swap_errors_;
       return;
     }
@@ -510,8 +519,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     if (core->TakeInstabilityAlert(index)) {
       ++p.instability_alerts;
       sink_.index = index;
-      p.alerts_engine->OnInstability(p.symbol, u.t_ns, version, t.instability(),
-                                     tc.alert_threshold, &sink_);
+      p.alerts_engine->OnInstability(p.symbol, u.t_ns, version, t.instability(), tc.alert_threshold,
+                                     &sink_);
     }
     if (tc.report_every_bars <= 0 || t.bars_since_anchor() % tc.report_every_bars != 0) return;
     // Fixed-size formatting: no allocation once json_ has grown.
@@ -520,7 +529,8 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     int n = std::snprintf(
         buf, sizeof(buf),
         "{\"symbol\":\"%.*s\",\"outcome\":\"tracking\",\"mode\":\"%s\",\"version\":%u,"
-        "\"t_ns\":%lld,\"variance\":\"%s\",\"bars_since_refit\":%lld,\"stepping\":%s,\"estimates\":[",
+        "\"t_ns\":%lld,\"variance\":\"%s\",\"bars_since_refit\":%lld,\"stepping\":%s,\"estimates\":"
+        "[",
         static_cast<int>(p.symbol.view().size()), p.symbol.view().data(),
         core->tracking_mode(index) == TrackingMode::kDrive ? "drive" : "track", version,
         static_cast<long long>(u.t_ns), t.gjr() ? "GJR-GARCH(1,1)" : "GARCH(1,1)",
@@ -603,12 +613,12 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     alerts->OnRefitOutcome(p.symbol, update->t_ns, ev, &p.alerts, &sink_);
     if (rec.fallback != p.fallback) {
       alerts->OnFallback(p.symbol, update->t_ns, rec.fallback, rec.version, reason_, &p.alerts,
-                          &sink_);
+                         &sink_);
       p.fallback = rec.fallback;
     }
     if (rec.outcome == RefitOutcome::kSwapped && now.get() != before) {
-      alerts->OnModelSwap(p.symbol, update->t_ns, rec.version,
-                           now->model.params().Persistence(), &p.alerts, &sink_);
+      alerts->OnModelSwap(p.symbol, update->t_ns, rec.version, now->model.params().Persistence(),
+                          &p.alerts, &sink_);
     }
   }
 
@@ -628,12 +638,24 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     feed.now_ns = now_ns;
     feed.in_session = InSession(config_.bars.session, now_ns);
     feed.count_from_ns = StaleCountFrom(core, now_ns, feed.in_session);
+    // A symbol's check can only do something when a message arrived since its
+    // last check or its due time came (StaleDueNs, valid while count_from
+    // does not fall); the others are skipped without touching their lines.
+    const bool every = options_.stale_check_every_symbol || feed.count_from_ns < stale_count_from_;
+    stale_count_from_ = feed.count_from_ns;
+    const absl::Span<const int64_t> arrivals = core->last_arrivals();
     for (size_t i = 0; i < symbols_.size(); ++i) {
-      const int index = static_cast<int>(i);
-      sink_.index = index;
-      feed.last_tick_ns = core->last_arrival_ns(index);
-      feed.ticks = core->symbol_ticks(index);
-      symbols_[i].alerts_engine->CheckStale(symbols_[i].symbol, feed, &symbols_[i].alerts, &sink_);
+      StaleWatch& w = stale_[i];
+      if (!every && arrivals[i] == w.seen_arrival_ns && !(feed.in_session && now_ns >= w.due_ns)) {
+        continue;
+      }
+      PerSymbol& p = symbols_[i];
+      sink_.index = static_cast<int>(i);
+      feed.last_tick_ns = arrivals[i];
+      feed.ticks = core->symbol_ticks(static_cast<int>(i));
+      p.alerts_engine->CheckStale(p.symbol, feed, &p.alerts, &sink_);
+      w.seen_arrival_ns = p.alerts.last_tick_ns;
+      w.due_ns = p.alerts_engine->StaleDueNs(p.alerts, feed.count_from_ns);
     }
     // Rejected ticks since the last tick of the clock feed the burst rule.
     const uint64_t total = core->counters().RejectTotal();
@@ -661,8 +683,7 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       feed_first_ns_ = -1;
     }
     if (feed_first_ns_ < 0) {
-      for (int i = 0; i < core->num_symbols(); ++i) {
-        const int64_t t = core->last_arrival_ns(i);
+      for (const int64_t t : core->last_arrivals()) {
         if (t >= open && (feed_first_ns_ < 0 || t < feed_first_ns_)) feed_first_ns_ = t;
       }
     }
@@ -690,20 +711,31 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
     AlertEngine* alerts_engine = nullptr;  // [alerts] or the symbol's group
     int64_t refit_id = -1;
     bool fallback = false;
-    RollingWindow seasonal_window;  // seasonality without refits: tagged returns
+    RollingWindow seasonal_window;    // seasonality without refits: tagged returns
     uint64_t instability_alerts = 0;  // raised since attach (instability_alerts())
   };
 
   IngestCore* const core_;
   const EngineConfig config_;
   const ServiceOptions options_;
-  std::unique_ptr<AlertEngine> alerts_;  // [alerts]; also the feed-wide rules
+  std::unique_ptr<AlertEngine> alerts_;                     // [alerts]; also the feed-wide rules
   std::vector<std::unique_ptr<AlertEngine>> group_alerts_;  // per [alerts.groups.*]
   mutable AlertCounters combined_;
   std::unique_ptr<RefitCoordinator> refit_;
   PublishingSink sink_;
   std::FILE* alerts_file_ = nullptr;
   std::vector<PerSymbol> symbols_;  // by core index
+  // The stale check's skip test per symbol (OnClock), by core index: the
+  // latest arrival its last check saw (SymbolAlertState::last_tick_ns) and
+  // the earliest time a check without new data could alert (StaleDueNs with
+  // the count_from of that check). kMustCheck: check at the next tick.
+  static constexpr int64_t kMustCheck = std::numeric_limits<int64_t>::min();
+  struct StaleWatch {
+    int64_t seen_arrival_ns = kMustCheck;
+    int64_t due_ns = kMustCheck;
+  };
+  std::vector<StaleWatch> stale_;
+  int64_t stale_count_from_ = kMustCheck;  // FeedCheck::count_from_ns of the last check
   uint64_t rejects_seen_ = 0;
   int64_t session_open_ns_ = std::numeric_limits<int64_t>::min();  // of the last check
   int64_t feed_first_ns_ = -1;  // first tick of any symbol in that session; -1 none yet

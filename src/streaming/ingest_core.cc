@@ -78,6 +78,8 @@ IngestCore::IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* cloc
   }
   const int64_t reserve = std::min<int64_t>(config.limits.max_symbols, kMaxReservedSlots);
   slots_.reserve(static_cast<size_t>(reserve));
+  arrivals_.reserve(static_cast<size_t>(reserve));
+  close_at_.reserve(static_cast<size_t>(reserve));
   bank_.Reserve(static_cast<int>(reserve));
   index_.reserve(static_cast<size_t>(reserve));
   pending_.resize(kBarChunk);
@@ -104,6 +106,8 @@ int IngestCore::IndexFor(absl::string_view symbol) {
   }
   const int index = static_cast<int>(slots_.size());
   slots_.emplace_back();
+  arrivals_.push_back(0);
+  close_at_.push_back(kNoBarToClose);
   Slot& slot = slots_.back();
   slot.symbol.assign(symbol);
   slot.model = initial_model_;
@@ -162,8 +166,9 @@ void IngestCore::HandleTick(const Tick& tick, int64_t arrival_ns) {
     ClosedBar due;
     if (VisitForClock(index, &due)) HandleBar(index, due);
   }
-  slot.last_arrival_ns = arrival_ns;
+  arrivals_[index] = arrival_ns;
   const FeedResult fr = FeedTick(&slot.bars_state, tick, bar_options_);
+  NoteBarState(index);
   if (fr.status != TickStatus::kAccepted) {
     counters_.rejects.Add(fr.reason);
     return;
@@ -459,6 +464,10 @@ bool IngestCore::ContinueClock(int max_bars, int max_symbols) {
     while (sweep_.next < sweep_.end && closed < max_bars && scanned < max_symbols) {
       const int i = sweep_.next++;
       ++scanned;
+      // Nothing due: left unvisited. Should a tick of the symbol come before
+      // the sweep ends, its VisitForClock finds nothing due either (only a
+      // tick changes an open bar).
+      if (close_at_[i] > sweep_.now_ns) continue;
       if (slots_[i].clock_sweep == sweep_.id) continue;
       if (VisitForClock(i, &pending_[n].bar)) {
         QueueClosedBar(i, &n);
@@ -482,8 +491,21 @@ void IngestCore::FinishClock() {
 bool IngestCore::VisitForClock(int index, ClosedBar* bar) {
   Slot& slot = slots_[index];
   slot.clock_sweep = sweep_.id;
-  return slot.bars_state.open &&
-         CloseIfDue(&slot.bars_state, sweep_.now_ns, config_.bars.grace_ns, bar_options_, bar);
+  if (!slot.bars_state.open ||
+      !CloseIfDue(&slot.bars_state, sweep_.now_ns, config_.bars.grace_ns, bar_options_, bar)) {
+    return false;
+  }
+  NoteBarState(index);
+  return true;
+}
+
+void IngestCore::NoteBarState(int index) {
+  const BarState& st = slots_[index].bars_state;
+  // CloseIfDue's test, now >= end && now - end >= grace, is now >= end + grace
+  // (grace >= 0; bar times and durations are bounded far below overflow).
+  close_at_[index] = st.open && bar_options_.interval_ns > 0
+                         ? st.open_end_ns + config_.bars.grace_ns
+                         : kNoBarToClose;
 }
 
 void IngestCore::CloseAllOpenBars() {
@@ -498,6 +520,7 @@ void IngestCore::CloseAllOpenBars() {
     if (CloseIfDue(&st, st.open_end_ns + config_.bars.grace_ns, config_.bars.grace_ns, bar_options_,
                    &bar)) {
       bar.closed_by_clock = false;  // the input ended: not counted as closed by the clock
+      NoteBarState(i);
       QueueClosedBar(i, &n);
     }
   }
@@ -768,7 +791,7 @@ void IngestCore::CaptureSymbols(StateCapture* capture, int begin, int end) const
     d.updates = s.updates;
     d.ticks = s.ticks;
     d.last_tick_ns = s.last_tick_ns;
-    d.last_arrival_ns = s.last_arrival_ns;
+    d.last_arrival_ns = arrivals_[i];
     d.need_anchor = s.need_anchor;
     d.instability_armed = s.instability_armed;
     if (d.tracker != nullptr) *d.tracker = s.tracker;
@@ -798,6 +821,8 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
   const int m = config_.warmup.start_bars;
   std::vector<Slot> slots;
   slots.reserve(n);
+  std::vector<int64_t> arrivals;
+  arrivals.reserve(n);
   std::vector<FilterState> filters;  // by index, into bank_ at the commit
   filters.reserve(n);
   absl::flat_hash_map<std::string, int> index;
@@ -851,7 +876,7 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
     s.updates = r.U64(what + " counters");
     s.ticks = r.U64(what + " counters");
     s.last_tick_ns = r.I64(what + " last tick");
-    s.last_arrival_ns = r.I64(what + " last arrival");
+    arrivals.push_back(r.I64(what + " last arrival"));
     const bool need_anchor = r.Bool(what + " tracking");
     const bool armed = r.Bool(what + " tracking");
     s.tracker = RecursiveTracker::Restore(&r, what);
@@ -880,6 +905,9 @@ absl::Status IngestCore::RestoreState(absl::string_view payload) {
   // Commit: nothing below can fail.
   for (size_t k = 0; k < slots.size(); ++k) {
     slots_.push_back(std::move(slots[k]));
+    arrivals_.push_back(arrivals[k]);
+    close_at_.push_back(kNoBarToClose);
+    NoteBarState(static_cast<int>(slots_.size()) - 1);
     bank_.Add(slots_.back().model.get(), filters[k]);
   }
   index_ = std::move(index);

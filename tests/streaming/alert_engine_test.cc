@@ -753,6 +753,78 @@ TEST_CASE("feed: false stale alerts on exponential gaps occur at about e^-k per 
   }
 }
 
+// StaleDueNs lets the engine skip checks of symbols with no new data; the
+// skip is exact only if no check before the due time does anything. Random
+// rates, thresholds and count_from instants: a check just before the due time
+// (and at a random earlier one) leaves the state and the sink untouched, one
+// 5 us after it raises the alert (the due time is at most a few us early).
+TEST_CASE("feed: StaleDueNs is never late and at most microseconds early", "[alerts]") {
+  std::mt19937_64 rng(29);
+  std::uniform_real_distribution<double> u01(0, 1);
+  auto same = [](const SymbolAlertState& a, const SymbolAlertState& b) {
+    return a.last_tick_ns == b.last_tick_ns && a.ticks_seen == b.ticks_seen &&
+           a.tick_gap_s == b.tick_gap_s && a.gap_samples == b.gap_samples &&
+           a.stale_alerted == b.stale_alerted && a.stale_since_ns == b.stale_since_ns;
+  };
+  int fired = 0;
+  for (int trial = 0; trial < 2000; ++trial) {
+    AlertOptions o;
+    o.stale_seconds = 0.5 + 600 * u01(rng);
+    const double multiples[] = {0, 3, 10, 1e6};
+    o.stale_gap_multiple = multiples[trial % 4];
+    auto e = Engine(o);
+    VectorSink sink;
+    SymbolAlertState st;
+    const Symbol s = Sym("RIVET.Q");
+    // A few ticks at random gaps (0.01 s to 100 s) teach the symbol its rate.
+    int64_t t = int64_t{1790000000} * kSec + static_cast<int64_t>(u01(rng) * 1e12);
+    const int n = 1 + trial % 7;
+    for (int k = 1; k <= n; ++k) {
+      t += static_cast<int64_t>(std::exp(std::log(0.01) + u01(rng) * std::log(1e4)) * kSec);
+      FeedCheck f;
+      f.now_ns = f.last_tick_ns = t;
+      f.ticks = static_cast<uint64_t>(k);
+      e->CheckStale(s, f, &st, &sink);
+    }
+    REQUIRE(sink.alerts.empty());
+    // Silence counted from the last tick, or from a later instant (an open).
+    const int64_t count_from = trial % 3 == 0 ? std::numeric_limits<int64_t>::min()
+                                              : t + static_cast<int64_t>(u01(rng) * 3600 * kSec);
+    const int64_t due = e->StaleDueNs(st, count_from);
+    FeedCheck quiet;
+    quiet.last_tick_ns = t;
+    quiet.ticks = static_cast<uint64_t>(n);
+    quiet.count_from_ns = count_from;
+    const double threshold = e->StaleThresholdSeconds(st);
+    INFO("trial " << trial << ": threshold " << threshold << " s, due " << due);
+    if (threshold * kSec > 1e18) {  // beyond any clock of this century
+      CHECK(due > t + int64_t{1000000000} * kSec);
+      continue;
+    }
+    const int64_t since = std::max(t, count_from);
+    CHECK(due <= since + static_cast<int64_t>(threshold * kSec));
+    CHECK(due >= since + static_cast<int64_t>(threshold * kSec) - 5000);
+    for (const int64_t before : {due - 1, since + static_cast<int64_t>(u01(rng) * (due - since))}) {
+      SymbolAlertState copy = st;
+      quiet.now_ns = before;
+      e->CheckStale(s, quiet, &copy, &sink);
+      CHECK(sink.alerts.empty());
+      CHECK(same(copy, st));
+    }
+    quiet.now_ns = due + 5000;
+    e->CheckStale(s, quiet, &st, &sink);
+    REQUIRE(sink.alerts.size() == 1);
+    CHECK(sink.alerts[0].rule == AlertRule::kStale);
+    ++fired;
+    // Alerted: no silence raises another until data arrives.
+    CHECK(e->StaleDueNs(st, count_from) == std::numeric_limits<int64_t>::max());
+  }
+  CHECK(fired > 1000);
+  // Never ticked: never due.
+  auto e = Engine(AlertOptions{});
+  CHECK(e->StaleDueNs(SymbolAlertState{}, 0) == std::numeric_limits<int64_t>::max());
+}
+
 TEST_CASE("feed: burst of rejected ticks", "[alerts]") {
   AlertOptions o;
   o.reject_burst = 3;
