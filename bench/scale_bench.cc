@@ -129,7 +129,7 @@ void PrintHelp() {
       "  --window B            [refit] window in bars (default 2000); min_bars = B\n"
       "  --tick-rate R         ticks per wall second, all instruments (default 20000)\n"
       "  --clock-slice-bars N  bars a clock tick closes per turn of the event loop (the\n"
-      "                        engine's default 64); 0 = the whole tick in one turn\n"
+      "                        engine's default 16); 0 = the whole tick in one turn\n"
       "  --speed X             simulated seconds per wall second (default 1, the honest\n"
       "                        setting; X > 1 is ACCELERATED: the refits get 1/X of a wall\n"
       "                        minute per simulated minute)\n"
