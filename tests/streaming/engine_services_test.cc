@@ -301,6 +301,19 @@ std::vector<Tick> StaleUniverse() {
   return ticks;
 }
 
+// The Monday after the stale universe's week (day 7): every name but WREN.P.
+std::vector<Tick> MondayWithoutWren() {
+  std::vector<Tick> monday;
+  AddClockName(&monday, 7, 7);
+  AddPath(
+      &monday, "TERN.P", 7, 7, 5, [](int d) { return Every(d, 30 * kSec, 20 * kSec); },
+      [](int64_t) { return 0.01 / std::sqrt(2.0); });
+  AddPath(
+      &monday, "CEDAR.P", 7, 7, 6, [](int d) { return Every(d, 10 * kSec, 4 * kSec); },
+      [](int64_t) { return 0.01 / std::sqrt(6.0); });
+  return monday;
+}
+
 TEST_CASE(
     "stale feed on time bars over sessions: no storm, no alert at the open, one real "
     "silence alerted once",
@@ -356,14 +369,7 @@ TEST_CASE(
   // Monday: every name but WREN.P ticks. None warns at the open; WREN.P, silent
   // while the feed is live, is stale once its in-session silence reaches its
   // threshold, the weekend and the night not counted.
-  std::vector<Tick> monday;
-  AddClockName(&monday, 7, 7);
-  AddPath(
-      &monday, "TERN.P", 7, 7, 5, [](int d) { return Every(d, 30 * kSec, 20 * kSec); },
-      [](int64_t) { return 0.01 / std::sqrt(2.0); });
-  AddPath(
-      &monday, "CEDAR.P", 7, 7, 6, [](int d) { return Every(d, 10 * kSec, 4 * kSec); },
-      [](int64_t) { return 0.01 / std::sqrt(6.0); });
+  std::vector<Tick> monday = MondayWithoutWren();
   run.Feed(monday);
   REQUIRE(run.rec.FeedAlerts() == before_weekend + 1);
   Alert silent;
@@ -405,14 +411,7 @@ TEST_CASE("without the learned rate the random-gap name would be a stale storm",
 // joins on Monday and falls silent.
 TEST_CASE("the stale check that skips quiet symbols sends the alerts of a check of all",
           "[services][alerts]") {
-  std::vector<Tick> monday;
-  AddClockName(&monday, 7, 7);
-  AddPath(
-      &monday, "TERN.P", 7, 7, 5, [](int d) { return Every(d, 30 * kSec, 20 * kSec); },
-      [](int64_t) { return 0.01 / std::sqrt(2.0); });
-  AddPath(
-      &monday, "CEDAR.P", 7, 7, 6, [](int d) { return Every(d, 10 * kSec, 4 * kSec); },
-      [](int64_t) { return 0.01 / std::sqrt(6.0); });
+  std::vector<Tick> monday = MondayWithoutWren();
   AddPath(
       &monday, "NEWT.P", 7, 7, 7,
       [](int d) {
