@@ -48,8 +48,9 @@ struct FitOptions {
   double xtol_rel = 1e-9;
   // Newton iterations allowed from the first start (the warm start, else the
   // best point of the cold grid) where the likelihood has an analytic Hessian
-  // (zero or constant mean, GARCH(1,1) or GJR-GARCH(1,1); zero mean with
-  // ARCH/GARCH/GJR variance of any order, steps kept inside the bounds), and
+  // (zero or constant mean, GARCH(1,1) or GJR-GARCH(1,1), steps kept inside
+  // the bounds; zero mean with ARCH/GARCH/GJR variance of any order, a bound
+  // held once reached, converged at a Karush-Kuhn-Tucker point), and
   // from a warm start elsewhere (not EWMA) with a Hessian by differences of the
   // gradient; when they do not converge SLSQP runs from the same start.
   // 0 = SLSQP only. Default 12.

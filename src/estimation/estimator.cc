@@ -126,13 +126,17 @@ RunOutcome RunOptimizer(nlopt_algorithm algo, Problem* prob, const std::vector<d
 // order, as when each routine had its own copy).
 
 // True when every free parameter of th lies strictly inside its bounds and the
-// persistence cap holds.
+// persistence cap holds. With `held` (one entry per free parameter: 0 moving,
+// -1 held at its lower bound, +1 at its upper bound), a held parameter must be
+// exactly at its bound instead.
 bool StrictlyFeasible(const Problem& prob, const std::vector<double>& lb,
-                      const std::vector<double>& ub, const std::vector<double>& th) {
+                      const std::vector<double>& ub, const std::vector<double>& th,
+                      const std::vector<int>* held = nullptr) {
   const int nf = static_cast<int>(prob.free_idx.size());
   for (int a = 0; a < nf; ++a) {
     const double x = th[prob.free_idx[a]];
-    if (!(x > lb[a] && x < ub[a])) return false;
+    const int h = held == nullptr ? 0 : (*held)[a];
+    if (h == 0 ? !(x > lb[a] && x < ub[a]) : x != (h < 0 ? lb[a] : ub[a])) return false;
   }
   double pers = 0;
   for (size_t j = 0; j < prob.persist_idx.size(); ++j) {
@@ -183,8 +187,9 @@ bool DampedCholesky(const Eigen::MatrixXd& neg_h, double nobs, Eigen::LLT<Eigen:
   return true;
 }
 
-// Armijo backtracking along step from theta: t = 1, 1/2, ... (30 tries),
-// skipping points that are not strictly feasible, until evaluate(trial), the
+// Armijo backtracking along step from theta: t = t0, t0/2, ... (30 tries),
+// skipping points that are not strictly feasible (held parameters, see
+// StrictlyFeasible, have a zero step), until evaluate(trial), the
 // log-likelihood at trial, rises above ll by 1e-4 t gain (less a round-off
 // slack: near the optimum the rise is below the sum's precision). Returns the
 // accepted t (trial then holds the point, *ll_accepted its value), or 0 when
@@ -192,15 +197,15 @@ bool DampedCholesky(const Eigen::MatrixXd& neg_h, double nobs, Eigen::LLT<Eigen:
 template <typename Evaluate>
 double ArmijoSearch(const Problem& prob, const std::vector<double>& lb,
                     const std::vector<double>& ub, const std::vector<double>& theta,
-                    const Eigen::VectorXd& step, double gain, double ll,
-                    std::vector<double>& trial, int* evals, double* ll_accepted,
-                    Evaluate&& evaluate) {
+                    const Eigen::VectorXd& step, double gain, double ll, std::vector<double>& trial,
+                    int* evals, double* ll_accepted, Evaluate&& evaluate, double t0 = 1.0,
+                    const std::vector<int>* held = nullptr) {
   const int nf = static_cast<int>(prob.free_idx.size());
-  double t = 1.0;
+  double t = t0;
   for (int ls = 0; ls < 30; ++ls, t *= 0.5) {
     trial = theta;
     for (int a = 0; a < nf; ++a) trial[prob.free_idx[a]] += t * step[a];
-    if (!StrictlyFeasible(prob, lb, ub, trial)) continue;
+    if (!StrictlyFeasible(prob, lb, ub, trial, held)) continue;
     const double ll_try = evaluate(trial);
     ++*evals;
     if (std::isfinite(ll_try) && ll_try >= ll + 1e-4 * t * gain - 1e-13 * std::fabs(ll)) {
@@ -234,6 +239,7 @@ struct NewtonOutcome {
   bool converged = false;
   int evals = 0;
   int iterations = 0;
+  int held = 0;  // parameters at a bound at convergence (RefineInsideBounds)
 };
 
 NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& prob,
@@ -324,26 +330,38 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
 }
 
 // Newton's method for the general orders (the kernel's analytic Hessian of a
-// zero-mean ARCH/GARCH/GJR model, the variance part of a two-step fit), kept
-// strictly inside the bounds. The maximum of such a model often lies on a bound
-// (an extra lag whose coefficient is 0), and there the likelihood can have a
-// second local maximum inside the box in the basin of the start: a step that
-// meets a bound ends the run (converged = false) and SLSQP runs from the same
-// start, so a fit whose maximum is on a bound is SLSQP's, as before.
-//   Step (-H_ff)^-1 g_f (Levenberg-damped until -H_ff is positive definite),
-//   halved until the log-likelihood rises by an Armijo fraction of the
-//   predicted gain and the persistence cap holds; converged when the largest
-//   free gradient component per observation is <= gtol. A Hessian with every
-//   step: the general pass costs little more with it than without.
-// Gives up when two full steps running would cross a bound, no damping makes -H_ff
-// positive definite, no step is accepted or the iterations run out.
+// zero-mean ARCH/GARCH/GJR model, the variance part of a two-step fit) with
+// bounds held: the maximum of such a model often lies on a bound (an extra lag
+// whose coefficient is 0), which unconstrained steps never reach.
+//   Step (-H_mm)^-1 g_m on the moving (not held) parameters, Levenberg-damped
+//   until -H_mm is positive definite. A step that meets a bound goes to the
+//   first bound it meets and holds that parameter there, if the
+//   log-likelihood rises by an Armijo fraction of the gain predicted to that
+//   point; otherwise (and for steps inside the box) halved from there until
+//   it does, strictly inside the bounds and the persistence cap.
+//   Converged at a Karush-Kuhn-Tucker point: every moving gradient component
+//   per observation <= gtol, and no held parameter's component pointing into
+//   the box by more than gtol. Before that, the held parameter whose component
+//   points inward most is released once the moving ones are small.
+//   A Hessian with every step: the general pass costs little more with it than
+//   without.
+// Gives up (converged = false; SLSQP then runs from the same start) when no
+// damping makes -H_mm positive definite, a released parameter's step leaves
+// the box at once, no step is accepted or the iterations run out.
 NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Problem& prob,
                                  const std::vector<double>& lb, const std::vector<double>& ub,
                                  std::vector<double> theta, int max_iterations, double gtol) {
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
-  if (nf == 0 || !StrictlyFeasible(prob, lb, ub, theta)) return out;
+  // 0 moving, -1 held at lb, +1 held at ub (free positions). A start with a
+  // parameter exactly on a bound (a warm start from such a fit) holds it.
+  std::vector<int> held(nf, 0);
+  for (int a = 0; a < nf; ++a) {
+    const double x = theta[prob.free_idx[a]];
+    held[a] = x == lb[a] ? -1 : x == ub[a] ? 1 : 0;
+  }
+  if (nf == 0 || !StrictlyFeasible(prob, lb, ub, theta, &held)) return out;
   std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
       h_try(static_cast<size_t>(K) * K), trial;
   double ll = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
@@ -352,39 +370,110 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
   out.theta = theta;
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
-  Eigen::VectorXd gf(nf), step(nf);
-  Eigen::MatrixXd neg_h(nf, nf);
-  Eigen::LLT<Eigen::MatrixXd> llt(nf);
-  bool crossed = false;  // the previous step crossed a bound
+  std::vector<int> moving;  // free positions not held
+  Eigen::VectorXd step_free(nf);
+  Eigen::LLT<Eigen::MatrixXd> llt;
   for (int it = 0;; ++it) {
-    const double gmax = FreeGradientMax(prob, g, inv_n);
+    double gmax = 0;
+    for (int a = 0; a < nf; ++a) {
+      if (held[a] == 0) gmax = std::max(gmax, std::fabs(g[prob.free_idx[a]]) * inv_n);
+    }
     if (gmax <= gtol) {
-      out.converged = true;
-      return out;
+      // A held parameter whose gradient points into the box by more than the
+      // tolerance is not at its maximum: release the largest such one.
+      int release = -1;
+      double worst = gtol;
+      for (int a = 0; a < nf; ++a) {
+        if (held[a] == 0) continue;
+        const double inward = (held[a] < 0 ? 1.0 : -1.0) * g[prob.free_idx[a]] * inv_n;
+        if (inward > worst) {
+          worst = inward;
+          release = a;
+        }
+      }
+      if (release < 0) {
+        out.converged = true;
+        out.held = static_cast<int>(nf - std::count(held.begin(), held.end(), 0));
+        return out;
+      }
+      held[release] = 0;
     }
     if (it == max_iterations) return out;
-    GatherFree(prob, K, g, h, gf, neg_h);
-    bool damped_step = false;
-    if (!DampedCholesky(neg_h, kernel->nobs(), llt, &damped_step)) return out;
-    step = llt.solve(gf);
-    const double gain = gf.dot(step);  // predicted rise x 2, > 0
-    if (!(gain > 0) || !std::isfinite(gain)) return out;
-    // Undamped steps that cross a bound twice running: the maximum is
-    // probably on it.
-    bool crosses = false;
-    for (int a = 0; a < nf && !damped_step; ++a) {
-      const double x = theta[prob.free_idx[a]] + step[a];
-      crosses = crosses || !(x > lb[a] && x < ub[a]);
+    moving.clear();
+    for (int a = 0; a < nf; ++a) {
+      if (held[a] == 0) moving.push_back(a);
     }
-    if (crosses && crossed) return out;
-    crossed = crosses;
+    const int nm = static_cast<int>(moving.size());
+    Eigen::VectorXd gm(nm);
+    Eigen::MatrixXd neg_h(nm, nm);
+    for (int i = 0; i < nm; ++i) {
+      const int fi = prob.free_idx[moving[i]];
+      gm[i] = g[fi];
+      for (int j = 0; j < nm; ++j) {
+        neg_h(i, j) = -h[static_cast<size_t>(fi) * K + prob.free_idx[moving[j]]];
+      }
+    }
+    bool damped = false;
+    if (!DampedCholesky(neg_h, kernel->nobs(), llt, &damped)) return out;
+    const Eigen::VectorXd step = llt.solve(gm);
+    const double gain = gm.dot(step);  // predicted rise x 2, > 0
+    if (!(gain > 0) || !std::isfinite(gain)) return out;
+    step_free.setZero();
+    for (int i = 0; i < nm; ++i) step_free[moving[i]] = step[i];
+    // The first bound the full step meets, as a fraction of the step.
+    double t_hit = 1.0;
+    int blocking = -1;  // moving index of the first bound met
+    for (int i = 0; i < nm; ++i) {
+      const int a = moving[i];
+      const double x = theta[prob.free_idx[a]], s = step[i];
+      const double t = s < 0 && x + s <= lb[a]   ? (lb[a] - x) / s
+                       : s > 0 && x + s >= ub[a] ? (ub[a] - x) / s
+                                                 : 2.0;
+      if (t <= t_hit) {
+        t_hit = t;
+        blocking = i;
+      }
+    }
+    if (!(t_hit > 0)) return out;  // a parameter just released leaves the box
     double ll_try = 0;
-    const double t_accepted =
-        ArmijoSearch(prob, lb, ub, theta, step, gain, ll, trial, &out.evals, &ll_try,
-                     [&](const std::vector<double>& x) {
-                       return kernel->EvaluateHessian(x.data(), g_try.data(), h_try.data(),
-                                                      nullptr);
-                     });
+    double t_accepted = 0;
+    if (blocking >= 0) {
+      // To the first bound met; the blocking parameter, and any other at or
+      // past its bound there to round-off, is held at it.
+      std::vector<int> held_try = held;
+      trial = theta;
+      for (int i = 0; i < nm; ++i) {
+        const int a = moving[i];
+        double& x = trial[prob.free_idx[a]];
+        x += t_hit * step[i];
+        if (i == blocking) x = step[i] < 0 ? lb[a] : ub[a];
+        if (x <= lb[a]) {
+          x = lb[a];
+          held_try[a] = -1;
+        } else if (x >= ub[a]) {
+          x = ub[a];
+          held_try[a] = 1;
+        }
+      }
+      if (StrictlyFeasible(prob, lb, ub, trial, &held_try)) {
+        ll_try = kernel->EvaluateHessian(trial.data(), g_try.data(), h_try.data(), nullptr);
+        ++out.evals;
+        // The quadratic model's rise to t is (t - t^2 / 2) gain.
+        if (std::isfinite(ll_try) &&
+            ll_try >= ll + 1e-4 * (t_hit - 0.5 * t_hit * t_hit) * gain - 1e-13 * std::fabs(ll)) {
+          t_accepted = t_hit;
+          held.swap(held_try);
+        }
+      }
+    }
+    if (!(t_accepted > 0)) {
+      t_accepted = ArmijoSearch(
+          prob, lb, ub, theta, step_free, gain, ll, trial, &out.evals, &ll_try,
+          [&](const std::vector<double>& x) {
+            return kernel->EvaluateHessian(x.data(), g_try.data(), h_try.data(), nullptr);
+          },
+          blocking >= 0 ? 0.5 * t_hit : 1.0, &held);
+    }
     if (!(t_accepted > 0)) return out;
     theta.swap(trial);
     g.swap(g_try);
@@ -774,7 +863,8 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       best.code = NLOPT_SUCCESS;
       best_label = attempts[0].label;
       converged = true;
-      message = absl::StrCat("Newton converged in ", nw.iterations, " steps");
+      message = absl::StrCat("Newton converged in ", nw.iterations, " steps",
+                             nw.held > 0 ? absl::StrCat(" (", nw.held, " at a bound)") : "");
       newton_loglik = nw.loglik;
       prob.full = nw.theta;
       attempts.clear();

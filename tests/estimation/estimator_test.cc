@@ -379,11 +379,12 @@ TEST_CASE("Newton steps on the general orders and with an ARMA mean reach the SL
   }
 }
 
-TEST_CASE("a general-order fit whose maximum is on a bound is SLSQP's from the same start",
+TEST_CASE("a general-order fit whose maximum is on a bound: Newton holds the bound",
           "[estimator][newton]") {
-  // GARCH(1,2) on GARCH(1,1) data: the second beta's maximum is at its bound 0,
-  // where the Newton steps stop (a likelihood with a bound active can have a
-  // second maximum inside the box; SLSQP's search decides as before).
+  // GARCH(1,2) on GARCH(1,1) data: the second beta's maximum is at its bound 0.
+  // Newton steps go to the bound, hold beta_2 there and converge at a
+  // Karush-Kuhn-Tucker point, SLSQP's optimum from the same start in a third
+  // of the evaluations.
   const std::vector<double> r = testing::TestGarchSeries(2000, 3);
   auto spec = MakeModelSpec("zero", {}, "garch", {1, 2}, "gaussian");
   REQUIRE(spec.ok());
@@ -393,10 +394,126 @@ TEST_CASE("a general-order fit whose maximum is on a bound is SLSQP's from the s
                              << " evaluations; SLSQP alone: " << p.slsqp.optimizer_message << ", "
                              << p.slsqp.iterations);
   REQUIRE(p.newton.converged);
-  CHECK(p.newton.params.values[3] < 1e-6);  // beta_2 at its bound
-  CHECK(p.newton.optimizer_message.rfind("Newton converged", 0) != 0);
-  CHECK(p.newton.loglik == p.slsqp.loglik);
-  CHECK(p.newton.params.values == p.slsqp.params.values);
+  CHECK(p.newton.optimizer_message.rfind("Newton converged", 0) == 0);
+  CHECK(p.newton.optimizer_message.find("(1 at a bound)") != std::string::npos);
+  CHECK(p.newton.params.values[3] == 0.0);  // beta_2 held at its bound
+  CHECK(p.newton.loglik >= p.slsqp.loglik - 1e-9 * std::fabs(p.slsqp.loglik));
+  for (size_t i = 0; i < 3; ++i) {
+    CHECK(std::fabs(p.newton.params.values[i] - p.slsqp.params.values[i]) <=
+          1e-4 * std::max(1.0, std::fabs(p.slsqp.params.values[i])));
+  }
+  CHECK(p.newton.iterations * 2 < p.slsqp.iterations);
+}
+
+TEST_CASE("Newton with bounds held against SLSQP alone on a panel of bound maxima",
+          "[estimator][newton]") {
+  // Larger orders than the data need, as the identification's candidates are
+  // (4 true models x 3 seeds x 5 fitted orders x 2 laws x 2 starts): fitted
+  // from the identification's start (persistence 0.98 shared evenly) and from
+  // the fit of the window 50 bars earlier, with Newton steps first and by
+  // SLSQP alone from the same start. Many maxima lie on a bound; where the
+  // likelihood has several, the two may end at different ones.
+  struct Truth {
+    VarianceKind kind;
+    VarianceLags orders;
+    std::vector<std::pair<std::string, double>> values;
+  };
+  const std::vector<Truth> truths = {
+      {VarianceKind::kGarch, {1, 1}, {{"omega", 0.02}, {"alpha_1", 0.06}, {"beta_1", 0.92}}},
+      {VarianceKind::kGarch, {1, 1}, {{"omega", 0.2}, {"alpha_1", 0.15}, {"beta_1", 0.65}}},
+      {VarianceKind::kArch, {2}, {{"omega", 0.5}, {"alpha_1", 0.3}, {"alpha_2", 0.15}}},
+      {VarianceKind::kGjr,
+       {1, 1, 1},
+       {{"omega", 0.05}, {"alpha_1", 0.03}, {"gamma_1", 0.1}, {"beta_1", 0.88}}},
+  };
+  struct Fitted {
+    const char* variance;
+    VarianceLags orders;
+  };
+  const std::vector<Fitted> fitted = {
+      {"garch", {1, 2}}, {"garch", {2, 1}}, {"garch", {2, 2}}, {"gjr", {1, 1, 1}}, {"arch", {5}}};
+  int cases = 0, by_newton = 0, held_at_bound = 0, newton_higher = 0, newton_lower = 0;
+  for (size_t ti = 0; ti < truths.size(); ++ti) {
+    const Truth& t = truths[ti];
+    auto truth_spec = MakeModelSpec("zero", {},
+                                    t.kind == VarianceKind::kGarch ? "garch"
+                                    : t.kind == VarianceKind::kGjr ? "gjr"
+                                                                   : "arch",
+                                    t.orders, "gaussian");
+    REQUIRE(truth_spec.ok());
+    auto truth = ModelParams::FromNamed(*truth_spec, t.values);
+    REQUIRE(truth.ok());
+    for (unsigned seed = 1; seed <= 3; ++seed) {
+      SimulationOptions so;
+      so.n = 2050;
+      so.seed = 100 * (ti + 1) + seed;
+      auto sim = Simulate(*truth, so);
+      REQUIRE(sim.ok());
+      const std::vector<double>& r = sim->returns;
+      const std::vector<double> window(r.begin() + 50, r.end());
+      double var = 0;
+      for (double x : window) var += x * x;
+      var /= window.size();
+      for (const Fitted& f : fitted) {
+        for (const char* law : {"gaussian", "student"}) {
+          auto spec = MakeModelSpec("zero", {}, f.variance, f.orders, law);
+          REQUIRE(spec.ok());
+          // The identification's start: persistence 0.98 (0.3 for a pure ARCH).
+          const int na = spec->arch_order, no = spec->asym_order, nb = spec->garch_order;
+          const double a_total = nb > 0 ? 0.08 : 0.3, b_total = nb > 0 ? 0.9 : 0.0;
+          ModelParams cold{*spec, std::vector<double>(spec->NumParams(), 0.0)};
+          cold.values[0] = var * (1.0 - a_total - b_total);
+          for (int i = 0; i < na; ++i) cold.values[1 + i] = (no > 0 ? 0.5 : 1.0) * a_total / na;
+          for (int i = 0; i < no; ++i) cold.values[1 + na + i] = a_total / no;
+          for (int j = 0; j < nb; ++j) cold.values[1 + na + no + j] = b_total / nb;
+          if (spec->innovations == Innovations::kStudentT) cold.values.back() = 8.0;
+          auto prev = FitModel(*spec, std::vector<double>(r.begin(), r.begin() + 2000));
+          REQUIRE(prev.ok());
+          for (int which = 0; which < 2; ++which) {
+            const ModelParams& start = which == 0 ? cold : prev->params;
+            const NewtonPair p = FitBothWays(*spec, window, start, Presample::kMeanSquare);
+            INFO(spec->Label() << ", truth " << ti << ", seed " << so.seed << ", "
+                               << (which == 0 ? "cold" : "warm") << " start: Newton first "
+                               << p.newton.optimizer_message << " (" << p.newton.iterations
+                               << " evaluations, log-likelihood " << p.newton.loglik
+                               << "); SLSQP alone " << p.slsqp.optimizer_message << " ("
+                               << p.slsqp.iterations << ", " << p.slsqp.loglik << ")");
+            ++cases;
+            REQUIRE(p.newton.converged);
+            REQUIRE(p.slsqp.converged);
+            if (p.newton.optimizer_message.rfind("Newton converged", 0) != 0) continue;
+            ++by_newton;
+            const bool held = p.newton.optimizer_message.find("at a bound)") != std::string::npos;
+            held_at_bound += held;
+            const double tol = 1e-9 * std::fabs(p.slsqp.loglik);
+            if (p.newton.loglik > p.slsqp.loglik + tol) ++newton_higher;
+            if (p.newton.loglik >= p.slsqp.loglik - tol) continue;
+            // A lower point than SLSQP's: it must be another local maximum,
+            // on a bound, that SLSQP started there cannot improve.
+            ++newton_lower;
+            CHECK(held);
+            FitOptions o;
+            o.presample = Presample::kMeanSquare;
+            o.start = p.newton.params;
+            o.newton_iterations = 0;
+            auto from_newton = FitModel(*spec, window, o);
+            REQUIRE(from_newton.ok());
+            CHECK(from_newton->loglik <= p.newton.loglik + tol);
+          }
+        }
+      }
+    }
+  }
+  INFO(cases << " fits: " << by_newton << " by Newton, " << held_at_bound
+             << " of them with a bound "
+             << "held; Newton higher than SLSQP in " << newton_higher << ", lower in "
+             << newton_lower);
+  // Most of the panel is Newton's, with a bound held in many fits.
+  CHECK(by_newton >= cases * 2 / 3);
+  CHECK(held_at_bound >= cases / 3);
+  // Neither optimizer finds the global maximum of a likelihood with several:
+  // Newton's point is the higher one far more often than the lower one.
+  CHECK(newton_lower * 5 <= newton_higher);
 }
 
 TEST_CASE("Newton steps reach the DEM/GBP benchmark from the previous year's estimates",
@@ -435,8 +552,8 @@ TEST_CASE("where Newton does not converge, the fit is SLSQP's from the same star
   const ModelParams start{*spec, {0.0, 0.2, 0.1, 0.7}};
   const NewtonPair p = FitBothWays(*spec, r, start, Presample::kMeanSquare);
   INFO("with Newton first: " << p.newton.optimizer_message << ", " << p.newton.iterations
-                             << " evaluations; SLSQP alone: " << p.slsqp.optimizer_message
-                             << ", " << p.slsqp.iterations);
+                             << " evaluations; SLSQP alone: " << p.slsqp.optimizer_message << ", "
+                             << p.slsqp.iterations);
   REQUIRE(p.newton.converged);
   CHECK(p.newton.optimizer_message.rfind("Newton converged", 0) != 0);
   CHECK(p.newton.start_used == "warm");
@@ -496,7 +613,8 @@ TEST_CASE("bad input classes give clear errors", "[estimator]") {
         testing::WriteFile(dir + "/r.csv", "date,ret\n2026-01-02,0.1\n2026-01-03,nan\n");
     auto out = testing::RunCli({"fit", "--input", path});
     CHECK(out.exit_code == 2);
-    CHECK(out.err == "aftershock fit: " + path + ":3: column 'ret': 'nan' is not a finite number\n");
+    CHECK(out.err ==
+          "aftershock fit: " + path + ":3: column 'ret': 'nan' is not a finite number\n");
   }
 }
 
