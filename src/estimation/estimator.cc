@@ -154,17 +154,62 @@ double FreeGradientMax(const Problem& prob, const std::vector<double>& grad, dou
   return m;
 }
 
-// Gathers the free gradient g_f and -H_ff from the full K-vector g and the
-// row-major K x K Hessian h.
-void GatherFree(const Problem& prob, int K, const std::vector<double>& g,
-                const std::vector<double>& h, Eigen::VectorXd& gf, Eigen::MatrixXd& neg_h) {
-  const int nf = static_cast<int>(prob.free_idx.size());
-  for (int a = 0; a < nf; ++a) {
-    gf[a] = g[prob.free_idx[a]];
-    for (int b = 0; b < nf; ++b) {
-      neg_h(a, b) = -h[static_cast<size_t>(prob.free_idx[a]) * K + prob.free_idx[b]];
+// Gathers the gradient g_m and -H_mm of the moving free parameters (free
+// positions in `moving`) from the full K-vector g and the row-major K x K
+// Hessian h.
+void GatherMoving(const Problem& prob, int K, const std::vector<int>& moving,
+                  const std::vector<double>& g, const std::vector<double>& h, Eigen::VectorXd& gm,
+                  Eigen::MatrixXd& neg_h) {
+  const int nm = static_cast<int>(moving.size());
+  for (int i = 0; i < nm; ++i) {
+    const int fi = prob.free_idx[moving[i]];
+    gm[i] = g[fi];
+    for (int j = 0; j < nm; ++j) {
+      neg_h(i, j) = -h[static_cast<size_t>(fi) * K + prob.free_idx[moving[j]]];
     }
   }
+}
+
+// The bounds a start sits on: per free position 0 (inside), -1 (on lb) or +1
+// (on ub). A value within 1e-12 (relative) of a bound counts as on it and is
+// set to it exactly: a previous fit that ended on a bound may carry the
+// bound's value to round-off only (SLSQP's 499.99999999999994 for nu = 500).
+std::vector<int> HeldAtStart(const Problem& prob, const std::vector<double>& lb,
+                             const std::vector<double>& ub, std::vector<double>& theta) {
+  const int nf = static_cast<int>(prob.free_idx.size());
+  std::vector<int> held(nf, 0);
+  for (int a = 0; a < nf; ++a) {
+    double& x = theta[prob.free_idx[a]];
+    if (std::fabs(x - lb[a]) <= 1e-12 * std::max(1.0, std::fabs(lb[a]))) {
+      x = lb[a];
+      held[a] = -1;
+    } else if (std::fabs(x - ub[a]) <= 1e-12 * std::max(1.0, std::fabs(ub[a]))) {
+      x = ub[a];
+      held[a] = 1;
+    }
+  }
+  return held;
+}
+
+// The largest gradient component per observation of the moving free
+// parameters (held[a] == 0), and in *inward the largest by which a held
+// one's points back into the bounds (0 if none does).
+double MovingGradientMax(const Problem& prob, const std::vector<int>& held,
+                         const std::vector<double>& grad, double inv_n, double* inward,
+                         int* inward_at) {
+  double m = 0;
+  *inward = 0;
+  *inward_at = -1;
+  for (size_t a = 0; a < held.size(); ++a) {
+    const double ga = grad[prob.free_idx[a]] * inv_n;
+    if (held[a] == 0) {
+      m = std::max(m, std::fabs(ga));
+    } else if ((held[a] < 0 ? ga : -ga) > *inward) {
+      *inward = held[a] < 0 ? ga : -ga;
+      *inward_at = static_cast<int>(a);
+    }
+  }
+  return m;
 }
 
 // Cholesky factor of neg_h, its diagonal damped (Levenberg) in tenfold steps
@@ -231,15 +276,19 @@ double ArmijoSearch(const Problem& prob, const std::vector<double>& lb,
 // taken from a fresh Hessian was fast, the renewed one's step is again
 // evaluated with the gradient only (a Newton step there usually contracts
 // fast, and a gradient pass costs about a third of a Hessian pass).
+// A start on a bound (a warm start from a fit that ended there, e.g. nu at its
+// upper bound on nearly Gaussian data) holds that parameter there: the steps
+// move the others, and the point converged to counts only if the held
+// parameter's gradient does not point back into the bounds by more than gtol.
 // Gives up (converged = false) when no damping makes -H_ff positive definite,
-// no step is accepted or the iterations run out.
+// no step is accepted, the iterations run out or a held parameter would move.
 struct NewtonOutcome {
   std::vector<double> theta;  // full scaled vector: the converged or best point
   double loglik = -std::numeric_limits<double>::infinity();
   bool converged = false;
   int evals = 0;
   int iterations = 0;
-  int held = 0;  // parameters at a bound at convergence (RefineInsideBounds)
+  int held = 0;  // parameters on a bound at convergence
 };
 
 NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& prob,
@@ -248,7 +297,14 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
-  if (nf == 0 || !StrictlyFeasible(prob, lb, ub, theta)) return out;
+  // A start on a bound (a warm start from a fit that ended there) holds it.
+  const std::vector<int> held = HeldAtStart(prob, lb, ub, theta);
+  std::vector<int> moving;
+  for (int a = 0; a < nf; ++a) {
+    if (held[a] == 0) moving.push_back(a);
+  }
+  const int nm = static_cast<int>(moving.size());
+  if (nm == 0 || !StrictlyFeasible(prob, lb, ub, theta, &held)) return out;
   std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
       h_try(static_cast<size_t>(K) * K), trial;
   double ll = kernel->EvaluateHessian(theta.data(), g.data(), h.data(), nullptr);
@@ -260,20 +316,25 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
   out.theta = theta;
   out.loglik = ll;
   const double inv_n = 1.0 / kernel->nobs();
+  double inward = 0;
+  int inward_at = -1;
   auto gradient_max = [&](const std::vector<double>& grad) {
-    return FreeGradientMax(prob, grad, inv_n);
+    return MovingGradientMax(prob, held, grad, inv_n, &inward, &inward_at);
   };
-  Eigen::VectorXd gf(nf), step(nf);
-  Eigen::MatrixXd neg_h(nf, nf);
-  Eigen::LLT<Eigen::MatrixXd> llt(nf);
+  Eigen::VectorXd gf(nm), step(nm), step_free = Eigen::VectorXd::Zero(nf);
+  Eigen::MatrixXd neg_h(nm, nm);
+  Eigen::LLT<Eigen::MatrixXd> llt(nm);
   double gmax = gradient_max(g);
   for (int it = 0;; ++it) {
     if (gmax <= gtol) {
-      out.converged = true;
+      // At a Karush-Kuhn-Tucker point only if no held parameter's gradient
+      // points back into the bounds; if one does, SLSQP decides.
+      out.converged = inward <= gtol;
+      out.held = nf - nm;
       return out;
     }
     if (it == max_iterations) return out;
-    GatherFree(prob, K, g, h, gf, neg_h);
+    GatherMoving(prob, K, moving, g, h, gf, neg_h);
     // Away from the maximum -H may be indefinite: damp its diagonal
     // (Levenberg) until it is positive definite, which shortens the step and
     // turns it towards the gradient.
@@ -282,15 +343,16 @@ NewtonOutcome RefineByNewton(internal::LikelihoodKernel* kernel, const Problem& 
     step = llt.solve(gf);
     const double gain = gf.dot(step);  // predicted rise x 2, > 0
     if (!(gain > 0) || !std::isfinite(gain)) return out;
+    for (int i = 0; i < nm; ++i) step_free[moving[i]] = step[i];
     const bool fresh = h_current;
     double ll_try = 0;
-    const double t_accepted =
-        ArmijoSearch(prob, lb, ub, theta, step, gain, ll, trial, &out.evals, &ll_try,
-                     [&](const std::vector<double>& x) {
-                       return chord ? kernel->Evaluate(x.data(), g_try.data(), nullptr)
-                                    : kernel->EvaluateHessian(x.data(), g_try.data(),
-                                                              h_try.data(), nullptr);
-                     });
+    const double t_accepted = ArmijoSearch(
+        prob, lb, ub, theta, step_free, gain, ll, trial, &out.evals, &ll_try,
+        [&](const std::vector<double>& x) {
+          return chord ? kernel->Evaluate(x.data(), g_try.data(), nullptr)
+                       : kernel->EvaluateHessian(x.data(), g_try.data(), h_try.data(), nullptr);
+        },
+        1.0, &held);
     const bool accepted = t_accepted > 0;
     if (accepted) {
       theta.swap(trial);
@@ -354,13 +416,9 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
   NewtonOutcome out;
   const int K = kernel->num_params();
   const int nf = static_cast<int>(prob.free_idx.size());
-  // 0 moving, -1 held at lb, +1 held at ub (free positions). A start with a
-  // parameter exactly on a bound (a warm start from such a fit) holds it.
-  std::vector<int> held(nf, 0);
-  for (int a = 0; a < nf; ++a) {
-    const double x = theta[prob.free_idx[a]];
-    held[a] = x == lb[a] ? -1 : x == ub[a] ? 1 : 0;
-  }
+  // 0 moving, -1 held at lb, +1 held at ub (free positions). A start on a
+  // bound (a warm start from a fit that ended there) holds it.
+  std::vector<int> held = HeldAtStart(prob, lb, ub, theta);
   if (nf == 0 || !StrictlyFeasible(prob, lb, ub, theta, &held)) return out;
   std::vector<double> g(K), h(static_cast<size_t>(K) * K), g_try(K),
       h_try(static_cast<size_t>(K) * K), trial;
@@ -374,29 +432,18 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
   Eigen::VectorXd step_free(nf);
   Eigen::LLT<Eigen::MatrixXd> llt;
   for (int it = 0;; ++it) {
-    double gmax = 0;
-    for (int a = 0; a < nf; ++a) {
-      if (held[a] == 0) gmax = std::max(gmax, std::fabs(g[prob.free_idx[a]]) * inv_n);
-    }
+    double inward = 0;
+    int inward_at = -1;
+    const double gmax = MovingGradientMax(prob, held, g, inv_n, &inward, &inward_at);
     if (gmax <= gtol) {
       // A held parameter whose gradient points into the box by more than the
       // tolerance is not at its maximum: release the largest such one.
-      int release = -1;
-      double worst = gtol;
-      for (int a = 0; a < nf; ++a) {
-        if (held[a] == 0) continue;
-        const double inward = (held[a] < 0 ? 1.0 : -1.0) * g[prob.free_idx[a]] * inv_n;
-        if (inward > worst) {
-          worst = inward;
-          release = a;
-        }
-      }
-      if (release < 0) {
+      if (inward <= gtol) {
         out.converged = true;
         out.held = static_cast<int>(nf - std::count(held.begin(), held.end(), 0));
         return out;
       }
-      held[release] = 0;
+      held[inward_at] = 0;
     }
     if (it == max_iterations) return out;
     moving.clear();
@@ -406,13 +453,7 @@ NewtonOutcome RefineInsideBounds(internal::LikelihoodKernel* kernel, const Probl
     const int nm = static_cast<int>(moving.size());
     Eigen::VectorXd gm(nm);
     Eigen::MatrixXd neg_h(nm, nm);
-    for (int i = 0; i < nm; ++i) {
-      const int fi = prob.free_idx[moving[i]];
-      gm[i] = g[fi];
-      for (int j = 0; j < nm; ++j) {
-        neg_h(i, j) = -h[static_cast<size_t>(fi) * K + prob.free_idx[moving[j]]];
-      }
-    }
+    GatherMoving(prob, K, moving, g, h, gm, neg_h);
     bool damped = false;
     if (!DampedCholesky(neg_h, kernel->nobs(), llt, &damped)) return out;
     const Eigen::VectorXd step = llt.solve(gm);
