@@ -126,6 +126,88 @@ TEST_CASE("binary update round-trips exactly and has the documented size", "[upd
         "binary update: unsupported version 9");
 }
 
+// The header's layout, written field by field with explicit little-endian
+// byte order (independent of the encoder's stores and of the host's order).
+std::string LayoutBytes(const BarUpdate& u) {
+  std::string b;
+  auto le = [&b](uint64_t bits, int n) {
+    for (int i = 0; i < n; ++i) b.push_back(static_cast<char>((bits >> (8 * i)) & 0xff));
+  };
+  auto dbl = [&le](double d) {
+    uint64_t bits = 0;
+    std::memcpy(&bits, &d, 8);
+    le(bits, 8);
+  };
+  le(kUpdateMagic, 1);
+  le(kUpdateWireVersion, 1);
+  le(u.symbol.size, 1);
+  b.append(u.symbol.data, u.symbol.size);
+  le(static_cast<uint64_t>(u.t_ns), 8);
+  for (double d : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) dbl(d);
+  le(static_cast<uint64_t>(u.n_horizons), 1);
+  for (int i = 0; i < u.n_horizons; ++i) {
+    le(static_cast<uint32_t>(u.horizons[i]), 4);
+    dbl(u.var_h[i]);
+  }
+  le(static_cast<uint64_t>(u.n_levels), 1);
+  for (int i = 0; i < u.n_levels; ++i) {
+    dbl(u.levels[i]);
+    dbl(u.var_risk[i]);
+    dbl(u.es[i]);
+  }
+  dbl(u.scale);
+  le(u.ver, 4);
+  le(u.flags, 4);
+  return b;
+}
+
+TEST_CASE("binary update bytes follow the header's layout for every shape", "[update_codec]") {
+  // Random updates of every symbol length, horizon and level count, encoded
+  // into one reused string (long messages before short ones, and back).
+  std::mt19937_64 rng(7);
+  std::uniform_real_distribution<double> unit(-1.0, 1.0);
+  std::string out;
+  int checked = 0;
+  for (int round = 0; round < 400; ++round) {
+    BarUpdate u = Sample();
+    const int len = 1 + static_cast<int>(rng() % kMaxSymbolLength);
+    std::string sym(static_cast<size_t>(len), 'A');
+    for (char& c : sym) c = static_cast<char>('A' + rng() % 26);
+    u.symbol.assign(sym);
+    u.t_ns = static_cast<int64_t>(rng() >> 1);
+    u.r = unit(rng);
+    u.mu = unit(rng) * 1e-3;
+    u.eps = u.r - u.mu;
+    u.var = 1e-6 * (1 + unit(rng));
+    u.z = unit(rng) * 3;
+    u.var_next = 2e-6 * (1 + unit(rng));
+    u.vol_ann = 0.2 * (1 + unit(rng));
+    u.n_horizons = static_cast<int>(rng() % (kMaxHorizons + 1));
+    for (int i = 0; i < u.n_horizons; ++i) {
+      u.horizons[i] = 1 + static_cast<int>(rng() % 100000);
+      u.var_h[i] = 1e-5 * (1 + unit(rng));
+    }
+    u.n_levels = static_cast<int>(rng() % (kMaxRiskLevels + 1));
+    for (int i = 0; i < u.n_levels; ++i) {
+      u.levels[i] = 0.95 + 0.04 * (1 + unit(rng)) / 2;
+      u.var_risk[i] = 1e-3 * (1 + unit(rng));
+      u.es[i] = 2e-3 * (1 + unit(rng));
+    }
+    u.scale = 10 * (1 + unit(rng));
+    u.ver = static_cast<uint32_t>(rng());
+    u.flags = static_cast<uint32_t>(rng() & 0xff);
+    REQUIRE(EncodeUpdateBinary(u, &out).ok());
+    const std::string expected = LayoutBytes(u);
+    INFO("round " << round << ": symbol length " << len << ", " << u.n_horizons << " horizons, "
+                  << u.n_levels << " levels");
+    REQUIRE(out.size() == 3 + static_cast<size_t>(len) + 8 + 56 + 1 + 12 * u.n_horizons + 1 +
+                              24 * u.n_levels + 16);
+    CHECK(out == expected);
+    ++checked;
+  }
+  CHECK(checked == 400);
+}
+
 TEST_CASE("non-finite fields are never encoded", "[update_codec]") {
   BarUpdate u = Sample();
   u.var_next = std::numeric_limits<double>::infinity();
