@@ -1,6 +1,7 @@
 #include "aftershock/refitter.h"
 
 #include <catch2/catch.hpp>
+#include <cmath>
 
 #include "aftershock/simulate.h"
 #include "support/test_support.h"
@@ -59,6 +60,48 @@ TEST_CASE("a refit warm-starts from the current parameters", "[refitter]") {
   REQUIRE(direct.ok());
   CHECK(c->fit.params.values == direct->params.values);
   CHECK(c->fit.converged);
+}
+
+TEST_CASE("a refit after a nearly Gaussian window finds the next window's heavy tails",
+          "[refitter]") {
+  // The path every instrument takes each refit: a Student-t model whose
+  // window was nearly Gaussian has nu on its bound (500); when the tails
+  // fatten, the warm refit from it must leave the bound (it used to stay,
+  // the likelihood being flat in nu there) and agree with a cold fit.
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
+  REQUIRE(spec.ok());
+  auto params = [&](double nu) {
+    auto p = ModelParams::FromNamed(
+        *spec, {{"mu", 0.02}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.88}, {"nu", nu}});
+    REQUIRE(p.ok());
+    return *p;
+  };
+  auto rf = EstimatorRefitter::Create();
+  REQUIRE(rf.ok());
+  int checked = 0;
+  for (uint64_t seed = 1; seed <= 12 && checked < 3; ++seed) {
+    const std::vector<double> calm = Sim(params(kMaxNu), 2000, seed);
+    auto first = FitModel(*spec, calm);
+    REQUIRE(first.ok());
+    INFO("seed " << seed << ": nu on the calm window " << first->params.values.back());
+    if (first->params.values.back() < 0.9 * kMaxNu) continue;  // this window's maximum is inside
+    const std::vector<double> heavy = Sim(params(5.0), 2000, 100 + seed);
+    RefitRequest req;
+    req.returns = heavy;
+    req.current = &first->params;
+    auto c = (*rf)->Fit(req);
+    REQUIRE(c.ok());
+    auto cold = FitModel(*spec, heavy);
+    REQUIRE(cold.ok());
+    INFO("warm refit " << c->fit.optimizer_message << ", nu " << c->fit.params.values.back()
+                       << "; cold fit nu " << cold->params.values.back());
+    CHECK(c->fit.start_used == "warm");
+    CHECK(c->fit.converged);
+    CHECK(c->fit.params.values.back() < 10.0);
+    CHECK(c->fit.loglik >= cold->loglik - 1e-7 * std::fabs(cold->loglik));
+    ++checked;
+  }
+  REQUIRE(checked == 3);  // three calm windows of the twelve end on the bound
 }
 
 TEST_CASE("re-identification picks the candidate of smallest BIC", "[refitter]") {
