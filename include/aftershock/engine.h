@@ -66,11 +66,14 @@ struct EngineOptions {
   // (IngestCore::StartClock/ContinueClock), input rounds in between: each
   // turn closes at most this many bars (about 8 µs each with a refit applied
   // at the close, 0.5 µs without) and visits at most clock_slice_symbols
-  // symbols. 0 = the whole tick in one turn. Default 16: a slice of closes
-  // that each apply a refit takes about 0.13 ms, the most it adds to a tick
-  // arriving meanwhile (scale_bench, 100,000 instruments, one worker: ingest
-  // p99 245 us with 16, 489 us with 64; 143-152 us without refits).
-  int clock_slice_bars = 16;
+  // symbols. 0 = the whole tick in one turn. Default 4: a slice of closes
+  // that each apply a refit takes about 0.03 ms, the most it adds to a tick
+  // arriving meanwhile. scale_bench, 100,000 instruments, one worker: ingest
+  // p99 489 us with 64, 149-205 us with 16 (371 us for the ticks due in a
+  // minute's first 2 s, where the closes apply the refits), 82-113 us with 4
+  // (217 us in the first 2 s; with 2 window copies per input batch instead
+  // of 8); 62-81 us without refits.
+  int clock_slice_bars = 4;
   // Symbols visited per turn of a clock tick (see clock_slice_bars); >= 1.
   // Passing a symbol with nothing due reads 8 bytes (about 1 ns). Default 4096.
   int clock_slice_symbols = 4096;
