@@ -82,6 +82,12 @@ bool Succeeded(nlopt_result r) {
          r == NLOPT_STOPVAL_REACHED;
 }
 
+// A run that ended on a success code at a finite, feasible objective.
+bool Usable(const RunOutcome& run) {
+  return Succeeded(run.code) && std::isfinite(run.objective) &&
+         run.objective < kInfeasibleObjective;
+}
+
 const char* ResultName(nlopt_result r) {
   switch (r) {
     case NLOPT_SUCCESS: return "success";
@@ -896,13 +902,17 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   // From a warm start (or the best grid point) the optimum is usually a few
   // Newton steps away; SLSQP remains the fallback.
   double newton_loglik = std::numeric_limits<double>::quiet_NaN();
+  // Newton steps with the kernel's analytic Hessian from a start (full,
+  // scaled): the order-one passes or the general orders' bound-holding steps.
+  auto analytic_newton = [&](const std::vector<double>& start) {
+    return kernel.is_order_one()
+               ? RefineByNewton(&kernel, prob, lb, ub, start, options.newton_iterations,
+                                options.newton_gradient_tol)
+               : RefineInsideBounds(&kernel, prob, lb, ub, start, options.newton_iterations,
+                                    options.newton_gradient_tol);
+  };
   if (k_free > 0 && options.newton_iterations > 0 && kernel.has_hessian()) {
-    NewtonOutcome nw =
-        kernel.is_order_one()
-            ? RefineByNewton(&kernel, prob, lb, ub, attempts[0].theta, options.newton_iterations,
-                             options.newton_gradient_tol)
-            : RefineInsideBounds(&kernel, prob, lb, ub, attempts[0].theta,
-                                 options.newton_iterations, options.newton_gradient_tol);
+    NewtonOutcome nw = analytic_newton(attempts[0].theta);
     prob.evals += nw.evals;
     if (nw.converged) {
       best.x = to_free(nw.theta);
@@ -961,8 +971,7 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       RunOutcome polish = RunOptimizer(NLOPT_LN_COBYLA, &prob, lb, ub, run.x, options);
       if (Succeeded(polish.code) && polish.objective <= run.objective + 1e-12) run = polish;
     }
-    const bool ok = Succeeded(run.code) && std::isfinite(run.objective) &&
-                    run.objective < kInfeasibleObjective;
+    const bool ok = Usable(run);
     if (!best.x.size() || run.objective < best.objective) {
       best = run;
       best_label = att.label;
@@ -988,10 +997,11 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
   // units below the cold fit). Try nu well inside with the other parameters as
   // they are; if one is higher, fit again from the highest.
   const int nu_full = static_cast<int>(std::find(names.begin(), names.end(), "nu") - names.begin());
-  if (converged && k_free > 0 && nu_full < K && !fixed[nu_full] &&
-      feasible_full(best.x)[nu_full] >= kNearMaxNu) {
+  std::vector<double> probe;  // the fit (full, scaled), then nu moved inside
+  if (converged && k_free > 0 && nu_full < K && !fixed[nu_full]) probe = feasible_full(best.x);
+  if (!probe.empty() && probe[nu_full] >= kNearMaxNu) {
     const double ll_bound = -best.objective * kernel.nobs();
-    std::vector<double> probe = feasible_full(best.x), from;
+    std::vector<double> from;
     double ll_from = ll_bound + 1e-9 * std::fabs(ll_bound);
     for (double nu : kInteriorNuProbes) {
       probe[nu_full] = nu;
@@ -1007,12 +1017,7 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       std::vector<double> theta_new;
       std::string how;
       if (options.newton_iterations > 0 && kernel.has_hessian()) {
-        NewtonOutcome nw =
-            kernel.is_order_one()
-                ? RefineByNewton(&kernel, prob, lb, ub, from, options.newton_iterations,
-                                 options.newton_gradient_tol)
-                : RefineInsideBounds(&kernel, prob, lb, ub, from, options.newton_iterations,
-                                     options.newton_gradient_tol);
+        NewtonOutcome nw = analytic_newton(from);
         prob.evals += nw.evals;
         if (nw.converged) {
           ll_new = nw.loglik;
@@ -1023,8 +1028,7 @@ absl::StatusOr<FitResult> FitModel(const ModelSpec& spec, absl::Span<const doubl
       if (theta_new.empty()) {
         prob.full = from;
         const RunOutcome run = RunOptimizer(NLOPT_LD_SLSQP, &prob, lb, ub, to_free(from), options);
-        if (Succeeded(run.code) && std::isfinite(run.objective) &&
-            run.objective < kInfeasibleObjective) {
+        if (Usable(run)) {
           ll_new = -run.objective * kernel.nobs();
           theta_new = feasible_full(run.x);
           how = ResultName(run.code);
