@@ -231,7 +231,8 @@ int64_t ThreadCpuNs() {
   return int64_t{ts.tv_sec} * 1'000'000'000 + ts.tv_nsec;
 }
 
-// Arg: symbols. Every symbol starts on a stored GARCH(1,1) model (the law of
+// Args: symbols, and the updates' encoding (0 JSON, 1 binary: what
+// scale_bench publishes). Every symbol starts on a stored GARCH(1,1) model (the law of
 // its simulated returns), so each job is a warm re-estimation, and falls due
 // every 3 bars; between the due bar and the next one the jobs are handed to the
 // workers (clock ticks, SubmitDeferred) and the bench waits for all of them,
@@ -240,6 +241,7 @@ int64_t ThreadCpuNs() {
 // one's (same bars closed, nothing applied), per applied job.
 void BM_EngineApply(benchmark::State& state) {
   const int n = static_cast<int>(state.range(0));
+  const bool binary = state.range(1) != 0;
   constexpr int kWindow = 2000;
   constexpr int64_t kMin = 60'000'000'000;
   constexpr int64_t kGrace = 300'000'000;  // clock tick after a minute's end
@@ -258,6 +260,9 @@ beta_1 = 0.9
 [bars]
 interval = "1m"
 grace = "200ms"
+[publish]
+encoding = ")",
+                                        binary ? "binary" : "json", R"("
 [limits]
 max_symbols = )",
                                         n, R"(
@@ -359,22 +364,28 @@ queue_capacity = )",
   state.counters["applied"] = static_cast<double>(applied);
   state.counters["swapped"] = static_cast<double>(swapped);
   std::printf(
-      "engine apply, %d symbols, %llu closes: ingest CPU per applied job %.2f us (wall %.2f us); "
-      "a bar close without one %.2f us CPU per symbol; %llu applied, %llu swapped\n",
-      n, static_cast<unsigned long long>(closes), per_apply_cpu / 1e3, per_apply_wall / 1e3,
-      quiet_cpu / static_cast<double>(closes * n) / 1e3, static_cast<unsigned long long>(applied),
-      static_cast<unsigned long long>(swapped));
+      "engine apply, %d symbols, %s updates, %llu closes: ingest CPU per applied job %.2f us "
+      "(wall %.2f us); a bar close without one %.2f us CPU per symbol; %llu applied, %llu "
+      "swapped\n",
+      n, binary ? "binary" : "JSON", static_cast<unsigned long long>(closes), per_apply_cpu / 1e3,
+      per_apply_wall / 1e3, quiet_cpu / static_cast<double>(closes * n) / 1e3,
+      static_cast<unsigned long long>(applied), static_cast<unsigned long long>(swapped));
 }
-BENCHMARK(BM_EngineApply)->Arg(1000)->Iterations(5)->Unit(benchmark::kMillisecond);
-// AFTERSHOCK_APPLY_SYMBOLS=N adds BM_EngineApply/N: a universe-wide close at
-// scale_bench's sizes, where what an application touches is out of cache (the
+// 30 closes that apply a job per symbol: 30,000 applications a run.
+BENCHMARK(BM_EngineApply)
+    ->Args({1000, 0})
+    ->Args({1000, 1})
+    ->Iterations(30)
+    ->Unit(benchmark::kMillisecond);
+// AFTERSHOCK_APPLY_SYMBOLS=N adds BM_EngineApply/N/1: a universe-wide close at
+// scale_bench's sizes (binary updates), where what an application touches is out of cache (the
 // workers' fits run between the closes). About 1 minute at N = 20,000.
 const bool kApplyAtScale = [] {
   const char* e = std::getenv("AFTERSHOCK_APPLY_SYMBOLS");
   const int n = e != nullptr ? std::atoi(e) : 0;
   if (n > 0) {
     benchmark::RegisterBenchmark("BM_EngineApply", BM_EngineApply)
-        ->Arg(n)
+        ->Args({n, 1})
         ->Iterations(3)
         ->Unit(benchmark::kMillisecond);
   }

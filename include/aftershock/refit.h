@@ -78,8 +78,9 @@
 // (or on a worker still holding its job's copy) by shared_ptr.
 //
 // Allocation: none per bar. Per applied refit the ingest thread moves the
-// worker-built record into last_record() and may free the replaced version;
-// workers allocate freely (fits, records).
+// worker-built record and its formatted numbers into last_record() /
+// last_record_json() and may free the replaced version; workers allocate
+// freely (fits, records).
 //
 // Thread-safety: every method except stats() is for the ingest thread only;
 // stats() may be called from any thread (relaxed counters). The Refitter is
@@ -235,6 +236,11 @@ class RefitCoordinator {
   // The record of the latest applied job (valid until the next OnBar that
   // applies one).
   const RefitRecord& last_record() const { return last_record_; }
+  // Its numbers, formatted by the worker that made it (a group model's by
+  // the ingest thread): last_record_json().Finish(last_record(), &out) writes
+  // EncodeRefitRecordJson(last_record()) formatting no estimate (a copy of
+  // the record with its timings zeroed may be given instead). Same validity.
+  const RefitRecordJson& last_record_json() const { return last_record_json_; }
 
   RefitStats stats() const;
 
@@ -352,6 +358,7 @@ class RefitCoordinator {
   std::vector<int32_t> deferred_next_, deferred_prev_;
   int32_t deferred_head_ = -1, deferred_tail_ = -1;
   RefitRecord last_record_;
+  RefitRecordJson last_record_json_;
   // Job slots: owned by the ingest thread or by one worker at a time, following
   // the protocol of job_pool.h (never both).
   std::vector<std::unique_ptr<JobSlot>> jobs_;

@@ -2,6 +2,7 @@
 
 #include <charconv>
 #include <cmath>
+#include <limits>
 #include <nlohmann/json.hpp>
 
 #include "absl/strings/string_view.h"
@@ -76,28 +77,23 @@ bool PutString(std::string* out, absl::string_view s) {
   return true;
 }
 
-// Element i of v, or null when v is shorter.
-void PutNth(std::string* out, const std::vector<double>& v, size_t i) {
-  if (i < v.size()) {
-    PutDouble(out, v[i]);
-  } else {
-    PutRaw(out, "null");
-  }
-}
+constexpr absl::string_view kEncodeError = "{\"error\":\"record could not be encoded\"}";
 
-}  // namespace
-
-void EncodeRefitRecordJson(const RefitRecord& r, std::string* out) {
-  // Written directly (the ingest thread encodes every applied refit): the
-  // JSON library's document tree cost about 6 µs a record in allocations
-  // (refit_bench BM_EngineApply). Keys in byte order, as the library writes
-  // an object; model_registry_test checks the two agree.
+// Writes the record, keys in byte order (as the JSON library writes an
+// object; model_registry_test checks the two agree). number(x, out) writes
+// the record's doubles other than fit_seconds, in the order met: bic, each
+// estimate's se_hessian, se_robust and value (an element missing from its
+// vector as NaN, written null), then log_likelihood.
+template <typename Number>
+void WriteRecord(const RefitRecord& r, const Number& number, std::string* out) {
+  constexpr double kMissing = std::numeric_limits<double>::quiet_NaN();
+  auto nth = [](const std::vector<double>& v, size_t i) { return i < v.size() ? v[i] : kMissing; };
   out->clear();
   bool ok = true;
   PutRaw(out, "{\"applied_bar\":");
   PutInt(out, r.applied_bar);
   PutRaw(out, ",\"bic\":");
-  PutDouble(out, r.bic);
+  number(r.bic, out);
   PutRaw(out, ",\"consecutive_failures\":");
   PutInt(out, r.consecutive_failures);
   PutRaw(out, ",\"converged\":");
@@ -108,11 +104,11 @@ void EncodeRefitRecordJson(const RefitRecord& r, std::string* out) {
     PutRaw(out, "{\"name\":");
     ok &= PutString(out, r.names[i]);
     PutRaw(out, ",\"se_hessian\":");
-    PutNth(out, r.std_errors, i);
+    number(nth(r.std_errors, i), out);
     PutRaw(out, ",\"se_robust\":");
-    PutNth(out, r.robust_std_errors, i);
+    number(nth(r.robust_std_errors, i), out);
     PutRaw(out, ",\"value\":");
-    PutNth(out, r.values, i);
+    number(nth(r.values, i), out);
     out->push_back('}');
   }
   PutRaw(out, "],\"fallback\":");
@@ -129,7 +125,7 @@ void EncodeRefitRecordJson(const RefitRecord& r, std::string* out) {
   PutRaw(out, "]},\"likelihood_terms\":");
   PutInt(out, r.nobs);
   PutRaw(out, ",\"log_likelihood\":");
-  PutDouble(out, r.loglik);
+  number(r.loglik, out);
   PutRaw(out, ",\"note\":");
   ok &= PutString(out, r.note);
   PutRaw(out, ",\"outcome\":");
@@ -145,7 +141,53 @@ void EncodeRefitRecordJson(const RefitRecord& r, std::string* out) {
   PutRaw(out, ",\"version\":");
   PutInt(out, r.version);
   out->push_back('}');
-  if (!ok) out->assign("{\"error\":\"record could not be encoded\"}");
+  if (!ok) out->assign(kEncodeError.data(), kEncodeError.size());
+}
+
+// The doubles WriteRecord formats, for a record with `estimates` names.
+size_t NumbersOf(size_t estimates) { return 3 * estimates + 2; }
+
+}  // namespace
+
+void EncodeRefitRecordJson(const RefitRecord& r, std::string* out) {
+  // Written directly (the engine encodes every applied refit): the JSON
+  // library's document tree cost about 6 µs a record in allocations
+  // (refit_bench BM_EngineApply).
+  WriteRecord(
+      r, [](double x, std::string* o) { PutDouble(o, x); }, out);
+}
+
+void RefitRecordJson::Prepare(const RefitRecord& record) {
+  // The numbers go to a buffer of the thread first and are then assigned, so
+  // that what a waiting job holds is their length (the buffer, and the record
+  // written alongside to walk it in order, stay with the thread for reuse).
+  thread_local std::string numbers, scratch;
+  numbers.clear();
+  WriteRecord(
+      record,
+      [](double x, std::string*) {
+        PutDouble(&numbers, x);
+        numbers.push_back(';');  // never part of a number or null
+      },
+      &scratch);
+  numbers_.assign(numbers);
+  count_ = NumbersOf(record.names.size());
+}
+
+void RefitRecordJson::Finish(const RefitRecord& record, std::string* out) const {
+  if (count_ == 0 || NumbersOf(record.names.size()) != count_) {
+    EncodeRefitRecordJson(record, out);
+    return;
+  }
+  size_t at = 0;
+  WriteRecord(
+      record,
+      [this, &at](double, std::string* o) {
+        const size_t end = numbers_.find(';', at);
+        o->append(numbers_, at, end - at);
+        at = end + 1;
+      },
+      out);
 }
 
 std::string EncodeRefitRecordJson(const RefitRecord& r) {

@@ -587,7 +587,9 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       rec_ptr = &replay_record_;
     }
     const RefitRecord& rec = *rec_ptr;
-    EncodeRefitRecordJson(rec, &json_);  // reuses the buffer: no allocation
+    // The worker formatted the record's numbers; the rest is written here
+    // (reusing the buffer: no allocation).
+    refit_->last_record_json().Finish(rec, &json_);
     core->PublishSymbolMessage(IngestCore::TopicKind::kModel, index, json_);
     if (options_.listener != nullptr) options_.listener->OnRefitRecord(index, rec);
     const ModelVersionPtr& now = refit_->current(id);

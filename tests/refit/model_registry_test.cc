@@ -108,20 +108,49 @@ std::vector<std::string> KeysInOrder(const std::string& text) {
   return keys;
 }
 
-TEST_CASE("the direct record writer agrees with the JSON library", "[registry]") {
-  std::mt19937_64 rng(20261203);
-  std::uniform_real_distribution<double> u(-1, 1);
-  std::uniform_int_distribution<int> pick(0, 9);
-  // Doubles of every shape the library and std::to_chars write differently or
-  // alike: whole numbers, tiny and huge magnitudes, negative zero, non-finite.
-  auto value = [&]() -> double {
-    switch (pick(rng)) {
+// Random records: doubles of every shape the library and std::to_chars write
+// differently or alike (whole numbers, tiny and huge magnitudes, negative
+// zero, non-finite), strings with escapes and UTF-8.
+class RecordMaker {
+ public:
+  explicit RecordMaker(uint64_t seed) : rng_(seed) {}
+
+  RefitRecord Make(int trial) {
+    RefitRecord r;
+    r.symbol = "SYM" + std::to_string(trial);
+    r.outcome = static_cast<RefitOutcome>(trial % 4);
+    r.version = static_cast<uint32_t>(trial * 7919u);
+    r.scheduled_bar = trial * 1000003LL - 5;
+    r.applied_bar = -trial;
+    r.t_ns = static_cast<int64_t>(rng_() >> 1);
+    r.spec = Text(trial);
+    const int k = pick_(rng_) % 6;
+    for (int i = 0; i < k; ++i) {
+      r.names.push_back("p" + std::to_string(i));
+      if (pick_(rng_) > 0) r.values.push_back(Value());
+      if (pick_(rng_) > 2) r.std_errors.push_back(Value());
+      if (pick_(rng_) > 4) r.robust_std_errors.push_back(Value());
+    }
+    r.loglik = Value();
+    r.bic = Value();
+    r.nobs = trial;
+    r.converged = trial % 3 == 0;
+    for (int i = 0; i < pick_(rng_) % 3; ++i) r.reasons.push_back(Text(pick_(rng_)));
+    r.note = Text(trial / 3);
+    r.fit_seconds = Value();
+    r.consecutive_failures = trial % 5;
+    r.fallback = trial % 2 == 1;
+    return r;
+  }
+
+  double Value() {
+    switch (pick_(rng_)) {
       case 0:
-        return std::round(u(rng) * 1e6);
+        return std::round(u_(rng_) * 1e6);
       case 1:
-        return u(rng) * 1e-7;
+        return u_(rng_) * 1e-7;
       case 2:
-        return u(rng) * 1e22;
+        return u_(rng_) * 1e22;
       case 3:
         return -0.0;
       case 4:
@@ -131,39 +160,32 @@ TEST_CASE("the direct record writer agrees with the JSON library", "[registry]")
       case 6:
         return 1e-4;
       default:
-        return u(rng);
+        return u_(rng_);
     }
-  };
-  const std::vector<std::string> texts = {
-      "", "plain", "quote \" and backslash \\", "tab\there", "line\nbreak", "\x01\x1f",
-      "caf\xc3\xa9", "del\x7f", "slash /"};
+  }
+  std::mt19937_64& rng() { return rng_; }
+
+ private:
+  const std::string& Text(int i) { return texts_[static_cast<size_t>(i) % texts_.size()]; }
+
+  std::mt19937_64 rng_;
+  std::uniform_real_distribution<double> u_{-1, 1};
+  std::uniform_int_distribution<int> pick_{0, 9};
+  const std::vector<std::string> texts_ = {"",
+                                           "plain",
+                                           "quote \" and backslash \\",
+                                           "tab\there",
+                                           "line\nbreak",
+                                           "\x01\x1f",
+                                           "caf\xc3\xa9",
+                                           "del\x7f",
+                                           "slash /"};
+};
+
+TEST_CASE("the direct record writer agrees with the JSON library", "[registry]") {
+  RecordMaker maker(20261203);
   for (int trial = 0; trial < 500; ++trial) {
-    RefitRecord r;
-    r.symbol = "SYM" + std::to_string(trial);
-    r.outcome = static_cast<RefitOutcome>(trial % 4);
-    r.version = static_cast<uint32_t>(trial * 7919u);
-    r.scheduled_bar = trial * 1000003LL - 5;
-    r.applied_bar = -trial;
-    r.t_ns = static_cast<int64_t>(rng() >> 1);
-    r.spec = texts[static_cast<size_t>(trial) % texts.size()];
-    const int k = pick(rng) % 6;
-    for (int i = 0; i < k; ++i) {
-      r.names.push_back("p" + std::to_string(i));
-      if (pick(rng) > 0) r.values.push_back(value());
-      if (pick(rng) > 2) r.std_errors.push_back(value());
-      if (pick(rng) > 4) r.robust_std_errors.push_back(value());
-    }
-    r.loglik = value();
-    r.bic = value();
-    r.nobs = trial;
-    r.converged = trial % 3 == 0;
-    for (int i = 0; i < pick(rng) % 3; ++i) {
-      r.reasons.push_back(texts[static_cast<size_t>(pick(rng)) % texts.size()]);
-    }
-    r.note = texts[static_cast<size_t>(trial / 3) % texts.size()];
-    r.fit_seconds = value();
-    r.consecutive_failures = trial % 5;
-    r.fallback = trial % 2 == 1;
+    const RefitRecord r = maker.Make(trial);
     const std::string s = EncodeRefitRecordJson(r);
     const nlohmann::json lib = LibraryRecord(r);
     INFO(s);
@@ -174,6 +196,70 @@ TEST_CASE("the direct record writer agrees with the JSON library", "[registry]")
     EncodeRefitRecordJson(r, &reused);
     CHECK(reused == s);
   }
+}
+
+TEST_CASE("a record's numbers formatted where it is made and finished where it is applied",
+          "[registry]") {
+  RecordMaker maker(20261204);
+  // Finish must take the doubles Prepare formatted and everything else from
+  // the record it is given; `given` differs from the prepared record in every
+  // field (the number of estimates aside), so reading a wrong one, or keeping
+  // a number of an earlier record (`json` is reused), shows.
+  RefitRecordJson json;
+  std::string out = "old contents";
+  int errors = 0;
+  for (int trial = 0; trial < 500; ++trial) {
+    const RefitRecord made = maker.Make(trial);
+    RefitRecord given = maker.Make(trial + 1000);
+    given.names.resize(made.names.size());
+    for (size_t i = 0; i < given.names.size(); ++i) given.names[i] = "q" + std::to_string(i * 7);
+    given.outcome = static_cast<RefitOutcome>(maker.rng()() % 4);
+    given.version = static_cast<uint32_t>(maker.rng()());
+    given.applied_bar = static_cast<int64_t>(maker.rng()() >> 2) - (int64_t{1} << 60);
+    given.consecutive_failures = static_cast<int>(maker.rng()() % 7);
+    given.fallback = !made.fallback;
+    given.converged = !made.converged;
+    given.fit_seconds = maker.Value();
+    // Invalid UTF-8 in the given strings now and then: the error object.
+    if (trial % 40 == 7) given.spec += "\xff";
+    if (trial % 40 == 17 && !given.names.empty()) given.names.back() += "\xc3";
+    if (trial % 40 == 27) given.reasons.push_back("bad \xfe");
+    if (trial % 40 == 37) given.note += "\xe2\x82";
+    RefitRecord expected = given;
+    expected.bic = made.bic;
+    expected.loglik = made.loglik;
+    expected.values = made.values;
+    expected.std_errors = made.std_errors;
+    expected.robust_std_errors = made.robust_std_errors;
+    const std::string want = EncodeRefitRecordJson(expected);
+    errors += want.rfind("{\"error\"", 0) == 0 ? 1 : 0;
+
+    json.Prepare(made);
+    CHECK(json.prepared());
+    json.Finish(given, &out);
+    INFO(want);
+    CHECK(out == want);
+    // Moved or swapped (how the engine hands it from the job to the stream).
+    RefitRecordJson moved = std::move(json);
+    RefitRecordJson other;
+    using std::swap;
+    swap(moved, other);
+    other.Finish(given, &out);
+    CHECK(out == want);
+    // A record with another number of estimates is written whole.
+    RefitRecord longer = given;
+    longer.names.push_back("extra");
+    other.Finish(longer, &out);
+    CHECK(out == EncodeRefitRecordJson(longer));
+    json = std::move(other);
+  }
+  CHECK(errors > 10);
+  // Never prepared: the whole record from the one given.
+  RefitRecordJson fresh;
+  CHECK_FALSE(fresh.prepared());
+  const RefitRecord r = maker.Make(7);
+  fresh.Finish(r, &out);
+  CHECK(out == EncodeRefitRecordJson(r));
 }
 
 TEST_CASE("the record writer's numbers and escapes, byte for byte", "[registry]") {
