@@ -78,15 +78,17 @@ bool PutString(std::string* out, absl::string_view s) {
 }
 
 constexpr absl::string_view kEncodeError = "{\"error\":\"record could not be encoded\"}";
+// An estimate's number missing from its vector (written null).
+constexpr double kMissing = std::numeric_limits<double>::quiet_NaN();
 
 // Writes the record, keys in byte order (as the JSON library writes an
 // object; model_registry_test checks the two agree). number(x, out) writes
 // the record's doubles other than fit_seconds, in the order met: bic, each
-// estimate's se_hessian, se_robust and value (an element missing from its
-// vector as NaN, written null), then log_likelihood.
+// estimate's se_hessian, se_robust and value (kMissing where the vector is
+// short), then log_likelihood.
+
 template <typename Number>
 void WriteRecord(const RefitRecord& r, const Number& number, std::string* out) {
-  constexpr double kMissing = std::numeric_limits<double>::quiet_NaN();
   auto nth = [](const std::vector<double>& v, size_t i) { return i < v.size() ? v[i] : kMissing; };
   out->clear();
   bool ok = true;
