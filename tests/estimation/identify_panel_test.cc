@@ -25,73 +25,57 @@
 #include "absl/strings/str_format.h"
 #include "absl/strings/str_split.h"
 #include "aftershock/identify.h"
-#include "aftershock/simulate.h"
+#include "estimation/simulated_law.h"
 
 namespace aftershock {
 namespace {
 
+// A law of the panel and the prefix of its windows' names.
 struct Truth {
-  std::string name;  // the window's label prefix
-  const char* mean;
-  std::vector<int> mean_orders;
-  const char* variance;
-  VarianceLags variance_orders;
-  const char* law;
-  std::vector<std::pair<std::string, double>> values;
+  std::string name;
+  testing::SimulatedLaw law;
 };
 
 // Nine laws: Gaussian and Student-t GARCH(1,1) from near-Gaussian to heavy
 // tails, ARCH(2), GARCH(1,2) and an AR(1) mean with asymmetric variance.
 std::vector<Truth> Truths() {
-  const std::vector<std::pair<std::string, double>> g11 = {
-      {"mu", 0.03}, {"omega", 0.02}, {"alpha_1", 0.06}, {"beta_1", 0.92}};
-  auto with_nu = [](std::vector<std::pair<std::string, double>> v, double nu) {
+  using Named = std::vector<std::pair<std::string, double>>;
+  const Named g11 = {{"mu", 0.03}, {"omega", 0.02}, {"alpha_1", 0.06}, {"beta_1", 0.92}};
+  const Named g11b = {{"mu", 0.03}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}};
+  const Named a2 = {{"mu", 0.03}, {"omega", 0.5}, {"alpha_1", 0.3}, {"alpha_2", 0.15}};
+  auto with_nu = [](Named v, double nu) {
     v.emplace_back("nu", nu);
     return v;
   };
-  const std::vector<std::pair<std::string, double>> g11b = {
-      {"mu", 0.03}, {"omega", 0.05}, {"alpha_1", 0.08}, {"beta_1", 0.9}};
-  const std::vector<std::pair<std::string, double>> a2 = {
-      {"mu", 0.03}, {"omega", 0.5}, {"alpha_1", 0.3}, {"alpha_2", 0.15}};
+  auto garch11 = [](const char* law, Named v) {
+    return testing::SimulatedLaw{"constant", {}, "garch", {1, 1}, law, std::move(v)};
+  };
+  auto arch2 = [](const char* law, Named v) {
+    return testing::SimulatedLaw{"constant", {}, "arch", {2}, law, std::move(v)};
+  };
   return {
-      {"g11n", "constant", {}, "garch", {1, 1}, "gaussian", g11},
-      {"g11t5", "constant", {}, "garch", {1, 1}, "student", with_nu(g11, 5)},
+      {"g11n", garch11("gaussian", g11)},
+      {"g11t5", garch11("student", with_nu(g11, 5))},
       {"g11t8",
-       "constant",
-       {},
-       "garch",
-       {1, 1},
-       "student",
-       {{"mu", 0.03}, {"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}, {"nu", 8}}},
-      {"g11t20", "constant", {}, "garch", {1, 1}, "student", with_nu(g11b, 20)},
-      {"g11t40", "constant", {}, "garch", {1, 1}, "student", with_nu(g11b, 40)},
-      {"a2n", "constant", {}, "arch", {2}, "gaussian", a2},
-      {"a2t12", "constant", {}, "arch", {2}, "student", with_nu(a2, 12)},
+       garch11("student",
+               {{"mu", 0.03}, {"omega", 0.05}, {"alpha_1", 0.1}, {"beta_1", 0.85}, {"nu", 8}})},
+      {"g11t20", garch11("student", with_nu(g11b, 20))},
+      {"g11t40", garch11("student", with_nu(g11b, 40))},
+      {"a2n", arch2("gaussian", a2)},
+      {"a2t12", arch2("student", with_nu(a2, 12))},
       {"g12t15",
-       "constant",
-       {},
-       "garch",
-       {1, 2},
-       "student",
-       {{"mu", 0.03},
-        {"omega", 0.03},
-        {"alpha_1", 0.05},
-        {"beta_1", 0.5},
-        {"beta_2", 0.4},
-        {"nu", 15}}},
-      {"ar1gjrt6",
-       "arma",
-       {1, 0},
-       "gjr",
-       {1, 1, 1},
-       "student",
-       {{"mu", 0.02},
-        {"ar_1", 0.3},
-        {"omega", 0.03},
-        {"alpha_1", 0.02},
-        {"gamma_1", 0.16},
-        {"beta_1", 0.88},
-        {"nu", 6}}},
+       {"constant",
+        {},
+        "garch",
+        {1, 2},
+        "student",
+        {{"mu", 0.03},
+         {"omega", 0.03},
+         {"alpha_1", 0.05},
+         {"beta_1", 0.5},
+         {"beta_2", 0.4},
+         {"nu", 15}}}},
+      {"ar1gjrt6", testing::ArAsymmetricStudentLaw()},
   };
 }
 
@@ -127,19 +111,11 @@ std::map<std::string, Decision> ReadRecord() {
 TEST_CASE("the identification's decisions on the recorded panel are unchanged", "[identify]") {
   std::map<std::string, Decision> now;
   for (const Truth& t : Truths()) {
-    auto spec = MakeModelSpec(t.mean, t.mean_orders, t.variance, t.variance_orders, t.law);
-    REQUIRE(spec.ok());
-    auto params = ModelParams::FromNamed(*spec, t.values);
     INFO(t.name);
-    REQUIRE(params.ok());
     for (int n : {500, 1000, 2000}) {
       for (uint64_t seed : {1, 2, 3}) {
-        SimulationOptions so;
-        so.n = n;
-        so.seed = 7000 + seed;
-        auto sim = Simulate(*params, so);
-        REQUIRE(sim.ok());
-        auto rep = IdentifyModel(sim->returns);
+        const std::vector<double> r = testing::SimulateLaw(t.law, n, 7000 + seed);
+        auto rep = IdentifyModel(r);
         REQUIRE(rep.ok());
         Decision d;
         d.model = rep->final_fit.params.spec.Label();

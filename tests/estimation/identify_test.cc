@@ -12,6 +12,7 @@
 #include "aftershock/series_file.h"
 #include "aftershock/simulate.h"
 #include "estimation/identify_internal.h"
+#include "estimation/simulated_law.h"
 #include "support/test_support.h"
 
 namespace aftershock {
@@ -20,16 +21,7 @@ namespace {
 std::vector<double> Sim(const char* mean, std::vector<int> mo, const char* var, VarianceLags vo,
                         const char* law, std::vector<std::pair<std::string, double>> named, int n,
                         uint64_t seed) {
-  auto spec = MakeModelSpec(mean, mo, var, vo, law);
-  REQUIRE(spec.ok());
-  auto p = ModelParams::FromNamed(*spec, named);
-  REQUIRE(p.ok());
-  SimulationOptions o;
-  o.n = n;
-  o.seed = seed;
-  auto s = Simulate(*p, o);
-  REQUIRE(s.ok());
-  return s->returns;
+  return testing::SimulateLaw({mean, std::move(mo), var, vo, law, std::move(named)}, n, seed);
 }
 
 // The identify_bench series' ARMA(1,0)/GJR-GARCH(1,1)/student parameters:
@@ -101,15 +93,7 @@ TEST_CASE("DEM/GBP: ARCH effects are detected and GARCH(1,1) leaves none", "[ide
 
 TEST_CASE("an ARMA(1,0)/GJR-GARCH(1,1)/student series is identified with an AR term and asymmetry",
           "[identify]") {
-  const auto r = Sim("arma", {1, 0}, "gjr", {1, 1, 1}, "student",
-                     {{"mu", 0.02},
-                      {"ar_1", 0.3},
-                      {"omega", 0.03},
-                      {"alpha_1", 0.02},
-                      {"gamma_1", 0.16},
-                      {"beta_1", 0.88},
-                      {"nu", 6.0}},
-                     4000, 31);
+  const auto r = testing::SimulateLaw(testing::ArAsymmetricStudentLaw(), 4000, 31);
   auto rep = IdentifyModel(r);
   REQUIRE(rep.ok());
   const ModelSpec& s = rep->final_fit.params.spec;
@@ -164,15 +148,7 @@ TEST_CASE("pruning never changes the choice: pruned and exhaustive searches agre
   // search with the nested-ARCH bound and the one that fits every candidate
   // (internal::IdentifySearch, a test hook) must choose the same model, and
   // every candidate the bound skipped must lose when fitted.
-  struct Case {
-    const char* mean;
-    std::vector<int> mo;
-    const char* var;
-    VarianceLags vo;
-    const char* law;
-    std::vector<std::pair<std::string, double>> named;
-  };
-  const std::vector<Case> cases = {
+  const std::vector<testing::SimulatedLaw> cases = {
       {"constant",
        {},
        "arch",
@@ -209,8 +185,7 @@ TEST_CASE("pruning never changes the choice: pruned and exhaustive searches agre
   int skipped = 0, compared = 0;
   for (size_t k = 0; k < cases.size(); ++k) {
     for (int n : {600, 2000}) {
-      const Case& c = cases[k];
-      const auto r = Sim(c.mean, c.mo, c.var, c.vo, c.law, c.named, n, 700 + 10 * k + n);
+      const auto r = testing::SimulateLaw(cases[k], n, 700 + 10 * k + n);
       auto pruned = IdentifyModel(r);
       auto full = internal::IdentifyModelWithSearch(r, {}, exhaustive);
       REQUIRE(pruned.ok());
