@@ -86,7 +86,6 @@ constexpr double kMissing = std::numeric_limits<double>::quiet_NaN();
 // the record's doubles other than fit_seconds, in the order met: bic, each
 // estimate's se_hessian, se_robust and value (kMissing where the vector is
 // short), then log_likelihood.
-
 template <typename Number>
 void WriteRecord(const RefitRecord& r, const Number& number, std::string* out) {
   auto nth = [](const std::vector<double>& v, size_t i) { return i < v.size() ? v[i] : kMissing; };

@@ -448,6 +448,14 @@ TEST_CASE("a warm refit from a fit with nu on its bound takes Newton steps with 
   }
 }
 
+// A constant-mean Student-t GARCH(1,1) start with nu on its upper bound (what
+// a warm refit after a nearly Gaussian window starts from).
+ModelParams GarchStudentStartOnNuBound() {
+  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
+  REQUIRE(spec.ok());
+  return ModelParams{*spec, {0.0, 0.05, 0.08, 0.9, kMaxNu}};
+}
+
 TEST_CASE("a refit starting with nu on its upper bound finds heavier tails",
           "[estimator][newton]") {
   // The likelihood is so flat in nu near 500 that a start there stayed there,
@@ -455,9 +463,8 @@ TEST_CASE("a refit starting with nu on its upper bound finds heavier tails",
   // of the new window: 22-35 log-likelihood units below the cold fit on t(8)
   // data, 85 on t(5). A fit ending near the bound now tries nu inside and
   // fits again from there. Both optimizers must reach the cold fit's maximum.
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
-  REQUIRE(spec.ok());
-  const ModelParams start{*spec, {0.0, 0.05, 0.08, 0.9, kMaxNu}};
+  const ModelParams start = GarchStudentStartOnNuBound();
+  const ModelSpec* spec = &start.spec;
   int fits = 0, restarted = 0;
   for (double nu : {5.0, 8.0, 20.0}) {
     for (unsigned seed = 1; seed <= 4; ++seed) {
@@ -498,9 +505,8 @@ TEST_CASE("a refit starting with nu on its upper bound finds a light-tailed maxi
   // probe at 150 finds them. Windows whose cold fit itself ends on the bound
   // are skipped. SLSQP alone is not held to this: on the flat likelihood it
   // stops near the probe it starts from (up to 0.04 units short).
-  auto spec = MakeModelSpec("constant", {}, "garch", {1, 1}, "student");
-  REQUIRE(spec.ok());
-  const ModelParams start{*spec, {0.0, 0.05, 0.08, 0.9, kMaxNu}};
+  const ModelParams start = GarchStudentStartOnNuBound();
+  const ModelSpec* spec = &start.spec;
   int fits = 0;
   for (double nu : {50.0, 100.0, 200.0}) {
     for (unsigned seed = 1; seed <= 6; ++seed) {
