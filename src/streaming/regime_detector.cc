@@ -85,13 +85,29 @@ double RegimeDetector::Increment(double z, double inv_k, double a) const {
   return half_log_inv_k - t_e_ * (std::log1p(x * inv_k) - std::log1p(x));
 }
 
+void RegimeDetector::Increments(double z, double* g_up, double* g_down) const {
+  // UpIncrement and DownIncrement term by term (the same values to the bit),
+  // with log1p(x), which both subtract, computed once: the alert rules run
+  // this at every bar of every symbol.
+  const double z2 = z * z;
+  if (t_e_ == 0) {
+    *g_up = -half_log_k_ + a_up_ * z2;
+    *g_down = half_log_k_ + a_down_ * z2;
+    return;
+  }
+  const double x = t_c_ * z2;
+  const double l = std::log1p(x);
+  *g_up = -half_log_k_ - t_e_ * (std::log1p(x * (1.0 / k_)) - l);
+  *g_down = half_log_k_ - t_e_ * (std::log1p(x * k_) - l);
+}
+
 RegimeEvent RegimeDetector::Update(double z, RegimeState* s) const {
   if (!std::isfinite(z)) return RegimeEvent::kNone;
   if (s->bars < std::numeric_limits<int32_t>::max()) ++s->bars;
   if (s->bars <= options_.warmup_bars) return RegimeEvent::kNone;
   const double z2 = z * z;
-  const double g_up = UpIncrement(z);
-  const double g_down = DownIncrement(z);
+  double g_up, g_down;
+  Increments(z, &g_up, &g_down);
   Advance(g_up, z2, &s->up, &s->up_sum_z2, &s->up_bars);
   Advance(g_down, z2, &s->down, &s->down_sum_z2, &s->down_bars);
   switch (s->direction) {
