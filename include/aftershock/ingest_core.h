@@ -189,6 +189,15 @@ struct ModelSwap {
   std::shared_ptr<const SeasonalProfile> profile;
 };
 
+// What a SwapModel replaced, handed back instead of released in the call, so
+// the caller chooses the thread that drops it (EngineServices passes a refit's
+// to RefitCoordinator::Retire: the model was allocated by a refit worker).
+struct ReplacedModel {
+  std::shared_ptr<const FilterModel> model;  // the symbol's model before the swap
+  // Its profile before the swap, when the swap replaced the profile.
+  std::shared_ptr<const SeasonalProfile> profile;
+};
+
 class IngestCore : public TickConsumer {
  public:
   enum class TopicKind : char { kUpdate = 'u', kAlert = 'a', kModel = 'm' };
@@ -243,8 +252,10 @@ class IngestCore : public TickConsumer {
 
   // ---- Integration points (ingest thread only) ----
   // REQUIRES: 0 <= index < num_symbols(); swap.model created. InvalidArgument
-  // otherwise (the symbol keeps its model).
-  absl::Status SwapModel(int index, const ModelSwap& swap);
+  // otherwise (the symbol keeps its model). With `replaced`, the model (and a
+  // replaced profile) the symbol had are moved into *replaced (which is
+  // overwritten) rather than released here.
+  absl::Status SwapModel(int index, const ModelSwap& swap, ReplacedModel* replaced = nullptr);
   // Replaces the symbol's seasonal profile (null = none) from the next bar on;
   // the filter state is kept (profiles are normalized to mean s^2 = 1, so the
   // deseasonalized variance level stays comparable). Ignored (OK) while

@@ -74,13 +74,14 @@
 // Versions: immutable ModelVersion objects shared by std::shared_ptr<const>;
 // version 0 is the EWMA warm-up/fallback model (shared by all symbols);
 // estimated versions count 1, 2, ... per symbol. Only the ingest thread reads
-// or replaces a symbol's current pointer; a replaced version is released there
-// (or on a worker still holding its job's copy) by shared_ptr.
+// or replaces a symbol's current pointer; a replaced version is handed to the
+// workers (Retire) and released by shared_ptr on a worker.
 //
 // Allocation: none per bar. Per applied refit the ingest thread moves the
 // worker-built record and its formatted numbers into last_record() /
-// last_record_json() and may free the replaced version; workers allocate
-// freely (fits, records).
+// last_record_json(); the record, numbers and versions they replace are
+// released by a worker at its next job (Retire), not on the ingest thread.
+// Workers allocate freely (fits, records).
 //
 // Thread-safety: every method except stats() is for the ingest thread only;
 // stats() may be called from any thread (relaxed counters). The Refitter is
@@ -112,6 +113,7 @@ namespace aftershock {
 
 namespace refit_internal {
 class JobPool;
+class RetireQueue;
 }
 
 // Returns over which a swapped-in model's variance state is re-run.
@@ -241,6 +243,17 @@ class RefitCoordinator {
   // EncodeRefitRecordJson(last_record()) formatting no estimate (a copy of
   // the record with its timings zeroed may be given instead). Same validity.
   const RefitRecordJson& last_record_json() const { return last_record_json_; }
+
+  // Hands `object` to the workers to release (the next job a worker takes
+  // does) instead of dropping it here: EngineServices gives the model a swap
+  // replaced in the core. Apply does the same with the record and versions it
+  // replaces. The reason is the allocator: releasing a block a worker
+  // allocated took the worker's malloc arena lock on this thread
+  // (src/refit/retire_queue.h). A null pointer is ignored. Ingest thread; no
+  // allocation once the queue has grown.
+  void Retire(std::shared_ptr<const void> object);
+  // Objects retired on this thread and not yet handed to the workers (tests).
+  size_t retired_pending() const;
 
   RefitStats stats() const;
 
@@ -373,6 +386,10 @@ class RefitCoordinator {
   // Written by the ingest thread, read anywhere (relaxed).
   std::atomic<int> deferred_count_{0};
   Counters counters_;
+
+  // What the ingest thread replaced, for the workers to release (Retire).
+  // Declared before pool_: the workers (which take from it) stop first.
+  std::unique_ptr<refit_internal::RetireQueue> retire_;
 
   // Last: destroyed first, so the workers stop before the slots go away.
   std::unique_ptr<refit_internal::JobPool> pool_;

@@ -10,6 +10,7 @@
 #include "aftershock/bar_update.h"
 #include "aftershock/innovations.h"
 #include "refit/job_pool.h"
+#include "refit/retire_queue.h"
 
 namespace aftershock {
 
@@ -171,6 +172,11 @@ RefitCoordinator::RefitCoordinator(const RefitOptions& options, const OutputOpti
   deferred_prev_.assign(static_cast<size_t>(cap), -1);
   // Slot 0 is handed out first.
   for (int i = cap - 1; i >= 0; --i) free_slots_.push_back(static_cast<uint32_t>(i));
+  // Room for what about 200 applications replace (up to five shared objects
+  // and one record each) between two hand-overs; a worker takes a batch at
+  // each job it starts (about 0.4 ms), during which a universe-wide close
+  // applies about 40. More grows a bin once.
+  retire_ = std::make_unique<refit_internal::RetireQueue>(1024, 256);
   pool_ = std::make_unique<refit_internal::JobPool>(options_.workers, cap,
                                                     [this](uint32_t s) { Process(s); });
 }
@@ -329,6 +335,7 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
   v->model = *std::move(fm);
   v->fitted_bar = bars;
   v->profile = profile;
+  retire_->Retire(std::move(sym->current));
   sym->current = std::move(v);
   sym->last_version = version;
   sym->pooled = true;
@@ -357,8 +364,10 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
                           " at this symbol's variance ", level, " (",
                           n >= kPooledLevelBars ? "its window" : "its current forecast", ")");
   rec.consecutive_failures = sym->failures;
+  retire_->Retire(std::move(last_record_));
   last_record_ = std::move(rec);
   last_record_json_.Prepare(last_record_);
+  retire_->HandOver();
   counters_.pooled.fetch_add(1, std::memory_order_relaxed);
   return true;
 }
@@ -465,6 +474,8 @@ void RefitCoordinator::DeferredUnlink(uint32_t slot) {
 }
 
 void RefitCoordinator::Process(uint32_t slot) {
+  // First what the ingest thread retired since a worker last took it.
+  retire_->Release();
   JobSlot& j = *jobs_[slot];
   const auto t0 = std::chrono::steady_clock::now();
   // Seasonality: estimate the profile, then fit on what the filter consumes.
@@ -578,7 +589,11 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   JobSlot& j = *jobs_[slot];
   const int64_t bars = sym->window.total();
   if (options_.seasonal) seasonal_pool_.Add(j.estimate);
+  // What this replaces goes to the workers to release (RetireQueue): the
+  // versions, the record and its numbers were allocated by a worker.
   if (j.passed) {
+    retire_->Retire(std::move(sym->current));
+    retire_->Retire(std::move(sym->last_estimated));
     sym->current = std::move(j.candidate);
     sym->last_estimated = sym->current;
     sym->last_version = sym->current->version;
@@ -586,6 +601,7 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
     sym->fallback = false;
     sym->pooled = false;
     GroupState& g = groups_[sym->group];
+    retire_->Retire(std::move(g.latest));
     g.latest = sym->current;
     g.donor = sym->name;
     ++g.seq;
@@ -620,6 +636,7 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
     if (sym->failures >= options_.max_failures && !sym->fallback) {
       sym->fallback = true;
       sym->pooled = false;
+      retire_->Retire(std::move(sym->current));
       sym->current = ewma_;
       // Continue from the variance in force, so the stream does not jump.
       double v = state->var.next_variance;
@@ -640,18 +657,29 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   j.record.fallback = sym->fallback;
   // Moved, not swapped: a swap would leave the replaced record's buffers in
   // the slot, held by every queued job until a worker takes it (scale_bench,
-  // 10,000 instruments: 0.5 KiB more per symbol at the end).
+  // 10,000 instruments: 0.5 KiB more per symbol at the end). The replaced
+  // ones are moved out first, so these moves free nothing here.
+  retire_->Retire(std::move(last_record_));
+  retire_->Retire(std::move(last_record_json_));
   last_record_ = std::move(j.record);
   last_record_json_ = std::move(j.record_json);
-  j.in_force.reset();
-  j.estimated.reset();
-  j.candidate.reset();
-  j.prior.reset();
+  retire_->Retire(std::move(j.in_force));
+  retire_->Retire(std::move(j.estimated));
+  retire_->Retire(std::move(j.candidate));
+  retire_->Retire(std::move(j.prior));
+  retire_->HandOver();
   pool_->Recycle(slot);
   free_slots_.push_back(slot);
   sym->pending = -1;
   counters_.in_flight.fetch_sub(1, std::memory_order_relaxed);
 }
+
+void RefitCoordinator::Retire(std::shared_ptr<const void> object) {
+  retire_->Retire(std::move(object));
+  retire_->HandOver();
+}
+
+size_t RefitCoordinator::retired_pending() const { return retire_->pending(); }
 
 RefitStats RefitCoordinator::stats() const {
   RefitStats s;

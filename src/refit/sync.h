@@ -20,6 +20,8 @@ class ABSL_LOCKABLE Mutex {
  public:
   void Lock() ABSL_EXCLUSIVE_LOCK_FUNCTION() { mu_.lock(); }
   void Unlock() ABSL_UNLOCK_FUNCTION() { mu_.unlock(); }
+  // True when the lock was free and is now held; never blocks.
+  bool TryLock() ABSL_EXCLUSIVE_TRYLOCK_FUNCTION(true) { return mu_.try_lock(); }
   // Blocks on cv until woken (spurious wake-ups possible: callers loop on their
   // predicate). The lock is released while waiting and held again on return.
   void Wait(std::condition_variable* cv) ABSL_EXCLUSIVE_LOCKS_REQUIRED(this) {

@@ -551,7 +551,7 @@ absl::Status IngestCore::SetSeasonalProfile(int index, std::shared_ptr<const Sea
   return absl::OkStatus();
 }
 
-absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
+absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap, ReplacedModel* replaced) {
   if (index < 0 || index >= num_symbols()) {
     return absl::InvalidArgumentError(absl::StrCat("SwapModel: no symbol with index ", index));
   }
@@ -584,6 +584,10 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap) {
         for (double r : swap.rerun_returns) bank_.Advance(index, r);
       }
       break;
+  }
+  if (replaced != nullptr) {
+    replaced->model = std::move(slot.model);
+    replaced->profile = swap.replace_profile ? std::move(slot.profile) : nullptr;
   }
   if (swap.replace_profile) slot.profile = seasonal_ ? swap.profile : nullptr;
   slot.filter_ready = true;

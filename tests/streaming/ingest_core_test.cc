@@ -712,6 +712,24 @@ TEST_CASE("SwapModel at a bar boundary, with a re-run over recent returns", "[co
     CHECK(RelDiff(got[i].var_next, ref[i - 50].var_next) < 1e-12);
   }
   CHECK(f.core->counters().model_swaps == 1);
+  // With `replaced`, the model the symbol had comes back instead of being
+  // released in the call (a profile only when the swap replaces it).
+  auto m3 = FilterModel::Create(*p2, testing::OutputsOf(f.config), 3);
+  REQUIRE(m3.ok());
+  ModelSwap third;
+  third.model = std::make_shared<const FilterModel>(*m3);
+  third.start = ModelSwap::Start::kKeepState;
+  ReplacedModel replaced;
+  const FilterModel* second = shared.get();
+  shared.reset();  // the core's reference is now the only one
+  swap.model.reset();
+  REQUIRE(f.core->SwapModel(0, third, &replaced).ok());
+  CHECK(replaced.model.get() == second);
+  CHECK(replaced.model.use_count() == 1);
+  CHECK(replaced.model->version() == 2);
+  CHECK(replaced.profile == nullptr);
+  CHECK(f.core->counters().model_swaps == 2);
+  swap.model = third.model;
   // Errors are values.
   ModelSwap bad;
   CHECK(f.core->SwapModel(0, bad).message() == "SwapModel: model is null");

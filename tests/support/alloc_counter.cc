@@ -18,10 +18,12 @@
 
 namespace {
 std::atomic<uint64_t> g_allocations{0};
+thread_local uint64_t t_releases = 0;  // trivially destructible: usable until thread exit
 }  // namespace
 
 namespace aftershock::testing {
 uint64_t AllocationCount() { return g_allocations.load(std::memory_order_relaxed); }
+uint64_t ThreadReleaseCount() { return t_releases; }
 #ifdef AFTERSHOCK_ALLOC_COUNTER_OFF
 bool AllocationCountingEnabled() { return false; }
 #else
@@ -49,10 +51,16 @@ void* operator new[](std::size_t n, const std::nothrow_t&) noexcept {
   g_allocations.fetch_add(1, std::memory_order_relaxed);
   return std::malloc(n ? n : 1);
 }
-void operator delete(void* p, const std::nothrow_t&) noexcept { std::free(p); }
-void operator delete[](void* p, const std::nothrow_t&) noexcept { std::free(p); }
-void operator delete(void* p) noexcept { std::free(p); }
-void operator delete[](void* p) noexcept { std::free(p); }
-void operator delete(void* p, std::size_t) noexcept { std::free(p); }
-void operator delete[](void* p, std::size_t) noexcept { std::free(p); }
+namespace {
+void Release(void* p) noexcept {
+  if (p != nullptr) ++t_releases;
+  std::free(p);
+}
+}  // namespace
+void operator delete(void* p, const std::nothrow_t&) noexcept { Release(p); }
+void operator delete[](void* p, const std::nothrow_t&) noexcept { Release(p); }
+void operator delete(void* p) noexcept { Release(p); }
+void operator delete[](void* p) noexcept { Release(p); }
+void operator delete(void* p, std::size_t) noexcept { Release(p); }
+void operator delete[](void* p, std::size_t) noexcept { Release(p); }
 #endif  // AFTERSHOCK_ALLOC_COUNTER_OFF

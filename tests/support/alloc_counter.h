@@ -11,6 +11,10 @@ namespace aftershock::testing {
 // Number of global operator new calls so far in this process (all threads).
 uint64_t AllocationCount();
 
+// Number of global operator delete calls with a non-null pointer made so far
+// by the calling thread (0 in ThreadSanitizer builds, see below).
+uint64_t ThreadReleaseCount();
+
 // False in ThreadSanitizer builds, whose runtime owns operator new: there the
 // count stays 0 and allocation checks should be skipped.
 bool AllocationCountingEnabled();
