@@ -123,17 +123,23 @@ class RegimeDetector {
 
   // The log-likelihood-ratio increments g+ and g- for one z (definitions
   // above); exposed for tests.
-  double UpIncrement(double z) const { return Increment(z, 1.0 / k_, a_up_); }
-  double DownIncrement(double z) const { return Increment(z, k_, a_down_); }
+  double UpIncrement(double z) const {
+    double up, down;
+    Increments(z, &up, &down);
+    return up;
+  }
+  double DownIncrement(double z) const {
+    double up, down;
+    Increments(z, &up, &down);
+    return down;
+  }
 
  private:
   explicit RegimeDetector(const RegimeOptions& options);
 
-  // ln of the density ratio of z under variance 1/inv_k against variance 1;
-  // a = (1 - inv_k) / 2 is the normal law's coefficient of z^2.
-  double Increment(double z, double inv_k, double a) const;
-  // Both increments of one z, equal to the bit to UpIncrement(z) and
-  // DownIncrement(z) (Update's path: one log1p fewer).
+  // Both increments of one z: the ln of the density ratio of z under variance
+  // k (up) and 1/k (down) against variance 1, sharing the log1p of the t law's
+  // variance-1 term (Update runs this at every bar of every symbol).
   void Increments(double z, double* g_up, double* g_down) const;
 
   RegimeOptions options_;

@@ -605,9 +605,10 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
       // Cannot fail: the model is created and the state given; counted if it did.
       // What it replaces was a worker's (or the shared EWMA): a worker
       // releases it (RefitCoordinator::Retire).
-      if (!core->SwapModel(index, swap, &replaced_).ok()) ++swap_errors_;
-      refit_->Retire(std::move(replaced_.model));
-      refit_->Retire(std::move(replaced_.profile));
+      ReplacedModel replaced;
+      if (!core->SwapModel(index, swap, &replaced).ok()) ++swap_errors_;
+      refit_->Retire(std::move(replaced.model));
+      refit_->Retire(std::move(replaced.profile));
     }
     if (res.pooled) return;  // a group model stands in: no gate event
     // Model-health and persistence alerts.
@@ -760,7 +761,6 @@ class Services : public EngineServices, public BarObserver, public MetricsSource
   RefitRecord replay_record_;
   std::string json_, alert_json_, reason_;
   FilterState state_scratch_;  // the refit coordinator's copy of a symbol's state
-  ReplacedModel replaced_;     // what a refit's swap replaced, passed on to Retire
 };
 
 void PublishingSink::Emit(const Alert& alert) { services_->Publish(index, alert); }

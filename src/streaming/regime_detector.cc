@@ -76,19 +76,9 @@ absl::StatusOr<RegimeDetector> RegimeDetector::Create(const RegimeOptions& o) {
   return RegimeDetector(o);
 }
 
-double RegimeDetector::Increment(double z, double inv_k, double a) const {
-  const double z2 = z * z;
-  // 0.5 ln(inv_k) = -half_log_k_ for the up test (inv_k = 1/k), +half_log_k_ down.
-  const double half_log_inv_k = inv_k < 1 ? -half_log_k_ : half_log_k_;
-  if (t_e_ == 0) return half_log_inv_k + a * z2;
-  const double x = t_c_ * z2;
-  return half_log_inv_k - t_e_ * (std::log1p(x * inv_k) - std::log1p(x));
-}
-
 void RegimeDetector::Increments(double z, double* g_up, double* g_down) const {
-  // UpIncrement and DownIncrement term by term (the same values to the bit),
-  // with log1p(x), which both subtract, computed once: the alert rules run
-  // this at every bar of every symbol.
+  // 0.5 ln(inv_k) with inv_k = 1/k (up) and k (down): -half_log_k_ and
+  // +half_log_k_; a_up_ and a_down_ are the normal law's coefficients of z^2.
   const double z2 = z * z;
   if (t_e_ == 0) {
     *g_up = -half_log_k_ + a_up_ * z2;

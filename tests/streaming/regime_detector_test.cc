@@ -64,8 +64,7 @@ TEST_CASE("the increments are the log-likelihood ratios of the assumed law", "[r
 
 TEST_CASE("the detector follows its stated recursion", "[regime]") {
   // The t law and the normal law. The evidence is compared exactly: Update
-  // computes the two increments together (sharing a log1p), and must give
-  // what UpIncrement and DownIncrement give, to the bit.
+  // must add the increments UpIncrement and DownIncrement report, to the bit.
   const double nu = GENERATE(5.0, 0.0);
   INFO("nu " << nu);
   const RegimeDetector d = Detector(3, 4, 2, nu, /*warmup=*/3);
