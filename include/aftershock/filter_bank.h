@@ -164,6 +164,10 @@ class FilterBank {
   int row_ = kRowHead;       // doubles per coefficient row: head + 2 nh + 2 nl
   ChunkFn chunk_ = nullptr;  // StepChunk<nh_, nl_>
   ChunkFn lane_ = nullptr;   // StepLane<nh_, nl_>
+  // StepChunk takes the roots and divisions four lanes at a time (the CPU has
+  // AVX); otherwise two (SSE2) or one. The results are the same to the bit.
+  bool avx_ = false;
+  friend class FilterBankTestPeer;  // sets avx_, so that tests cover both paths
 
   // Hot state columns.
   std::vector<double> r1_, eps1_, next_variance_, e2_1_, neg2_1_, s2_1_, sd_next_, mu_next_;
