@@ -111,7 +111,27 @@ struct Flags {
   bool skip_idle = false;
   bool quick = false;
   bool verbose = false;
+  // --session: a daily trading session in UTC, minutes since midnight, so
+  // that seasonality is on as in the intraday configuration; -1 = none.
+  int session_start_min = -1, session_end_min = -1;
 };
+
+// Minutes since midnight (UTC) of the first live bar: 2026-03-02 09:30.
+constexpr int kLiveMinuteOfDay = 9 * 60 + 30;
+
+// Parses "HH:MM-HH:MM" into minutes since midnight; false when malformed.
+bool ParseSession(const std::string& text, int* start, int* end) {
+  int h0 = 0, m0 = 0, h1 = 0, m1 = 0;
+  char tail = 0;
+  if (std::sscanf(text.c_str(), "%d:%d-%d:%d%c", &h0, &m0, &h1, &m1, &tail) != 4) return false;
+  if (h0 < 0 || h0 > 23 || m0 < 0 || m0 > 59 || h1 < 0 || h1 > 24 || m1 < 0 || m1 > 59 ||
+      (h1 == 24 && m1 != 0)) {
+    return false;
+  }
+  *start = h0 * 60 + m0;
+  *end = h1 * 60 + m1;
+  return true;
+}
 
 void PrintHelp() {
   std::printf(
@@ -138,6 +158,12 @@ void PrintHelp() {
       "  --speed X             simulated seconds per wall second (default 1, the honest\n"
       "                        setting; X > 1 is ACCELERATED: the refits get 1/X of a wall\n"
       "                        minute per simulated minute)\n"
+      "  --session HH:MM-HH:MM a daily session in UTC (e.g. 08:00-16:30): the intraday\n"
+      "                        configuration, seasonality on (windows keep bar-of-session\n"
+      "                        tags, every refit re-estimates the symbol's profile); the\n"
+      "                        windows are filled over past sessions, the live minutes run\n"
+      "                        from 09:30 UTC, which the session must contain with the\n"
+      "                        measured minutes (default: none, one endless session)\n"
       "  --skip-idle           only the run with refits\n"
       "  --verbose             print every burst of bar closes (no message in between)\n"
       "                        over 5 ms\n"
@@ -187,13 +213,33 @@ bool ParseFlags(int argc, char** argv, Flags* f) {
       f->clock_slice_bars = static_cast<int>(v);
     } else if (a == "--speed" && next(&v) && v >= 1) {
       f->speed = v;
+    } else if (a == "--session" && i + 1 < argc &&
+               ParseSession(argv[++i], &f->session_start_min, &f->session_end_min)) {
     } else {
       std::fprintf(stderr, "scale_bench: bad argument '%s' (see --help)\n", a.c_str());
       return false;
     }
   }
   if (f->queue_capacity == 0) f->queue_capacity = f->instruments;
+  if (f->session_start_min >= 0 &&
+      (f->session_start_min >= f->session_end_min || f->session_start_min > kLiveMinuteOfDay ||
+       f->session_end_min < kLiveMinuteOfDay + f->minutes + 2)) {
+    std::fprintf(stderr,
+                 "scale_bench: --session must run from at most 09:30 to at least %d minutes "
+                 "after it, within one day (the live minutes start at 09:30 UTC)\n",
+                 f->minutes + 2);
+    return false;
+  }
   return true;
+}
+
+std::string SessionNote(const Flags& f) {
+  if (f.session_start_min < 0) return "no session (seasonality off)";
+  return absl::StrFormat(
+      "session %02d:%02d-%02d:%02d UTC (seasonality on: bar-of-session tags, a profile per "
+      "symbol)",
+      f.session_start_min / 60, f.session_start_min % 60, f.session_end_min / 60,
+      f.session_end_min % 60);
 }
 
 // Simulated time: set by hand while the windows are filled, then
@@ -525,14 +571,47 @@ std::string ConfigToml(const Flags& f, bool refits) {
   return absl::StrCat(
       "[feed]\nencoding = \"binary\"\n"
       "[publish]\nencoding = \"binary\"\n"
-      "[bars]\ninterval = \"1m\"\ngrace = \"200ms\"\n"
-      "[limits]\nmax_symbols = ",
-      f.instruments, "\n",
+      "[bars]\ninterval = \"1m\"\ngrace = \"200ms\"\n",
+      f.session_start_min < 0
+          ? std::string()
+          : absl::StrFormat("session = { start = \"%02d:%02d\", end = \"%02d:%02d\" }\n",
+                            f.session_start_min / 60, f.session_start_min % 60,
+                            f.session_end_min / 60, f.session_end_min % 60),
+      "[limits]\nmax_symbols = ", f.instruments, "\n",
       "[http]\nenabled = false\n"
       "[refit]\nevery_bars = ",
       refits ? 1 : 0, "\nevery_seconds = 0\nwindow = ", f.window, "\nmin_bars = ", f.window,
       "\nworkers = ", f.workers, "\nreidentify_every = ", f.reidentify_every,
       "\njitter_fraction = 0\nqueue_capacity = ", f.queue_capacity, "\n");
+}
+
+// Minute of the day (UTC) of a time, ns since the epoch.
+int MinuteOfDay(int64_t t_ns) {
+  const int64_t minutes = t_ns / kMinuteNs;
+  return static_cast<int>(((minutes % 1440) + 1440) % 1440);
+}
+
+// Start times (ns, ascending) of the bars that fill the windows before the
+// live phase: consecutive minutes before 09:30, over past days' sessions with
+// --session. A price symbol's first bar and each session's first bar have no
+// return (bar_builder.h), so there are as many bars as give `returns`
+// returns: the windows then hold what they hold without sessions.
+std::vector<int64_t> PrefillBarStarts(const Flags& f, int returns) {
+  const bool sessions = f.session_start_min >= 0;
+  std::vector<int64_t> starts;  // built backwards
+  int got = 0;
+  for (int64_t t = kLiveStartNs - kMinuteNs; got < returns; t -= kMinuteNs) {
+    const int m = MinuteOfDay(t);
+    if (sessions && (m < f.session_start_min || m >= f.session_end_min)) continue;
+    // The bar added before this one is no longer the symbol's first: it has
+    // a return unless it opens its session.
+    if (!starts.empty() && !(sessions && MinuteOfDay(starts.back()) == f.session_start_min)) {
+      ++got;
+    }
+    starts.push_back(t);
+  }
+  std::reverse(starts.begin(), starts.end());
+  return starts;
 }
 
 struct RunResult {
@@ -643,14 +722,16 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
   so.initial_models.shrink_to_fit();
   core->AddObserver(&closes);
 
-  // Fill the windows: one tick per instrument per simulated minute, in event
-  // time, then close the last bar with the clock (as replay does).
+  // Fill the windows: one tick per instrument per simulated minute of a
+  // session, in event time, then close the last bar with the clock (as replay
+  // does). prefill_bars - 1 returns, whatever the sessions.
+  const std::vector<int64_t> bar_starts = PrefillBarStarts(f, prefill_bars - 1);
   const auto p0 = std::chrono::steady_clock::now();
   StudentT z;
   Tick t;
   t.kind = Tick::kPrice;
-  for (int m = 0; m < prefill_bars; ++m) {
-    const int64_t ts = kLiveStartNs - (prefill_bars - m) * kMinuteNs + 30 * kNsPerSec;
+  for (size_t m = 0; m < bar_starts.size(); ++m) {
+    const int64_t ts = bar_starts[m] + 30 * kNsPerSec;
     clock.SetManual(ts);
     for (int i = 0; i < n; ++i) {
       Instrument& in = inst[static_cast<size_t>(i)];
@@ -682,8 +763,10 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
   }
   out->rss_per_symbol = (static_cast<double>(RssBytes()) - static_cast<double>(rss0)) / n;
   out->engine_bytes_per_symbol = (*services)->refit_bytes_per_symbol();
-  std::fprintf(stderr, "scale_bench: %s: %d instruments, windows filled (%d bars each) in %.1f s\n",
-               refits ? "refits" : "idle", n, prefill_bars, out->prefill_s);
+  std::fprintf(stderr,
+               "scale_bench: %s: %d instruments, windows filled (%d returns each, %zu bars) in "
+               "%.1f s\n",
+               refits ? "refits" : "idle", n, prefill_bars - 1, bar_starts.size(), out->prefill_s);
 
   // Live: simulated time starts 0.5 s into the first live minute.
   const uint64_t updates0 = sink->updates;
@@ -744,10 +827,10 @@ int main(int argc, char** argv) {
   std::fprintf(stderr,
                "scale_bench: %d instruments, %d measured minutes, speed %g%s, %d worker(s), "
                "re-identification every %d refits, %g ticks/s, window %d, queue capacity %d, "
-               "clock slices of %d bars\n",
+               "clock slices of %d bars, %s\n",
                f.instruments, f.minutes, f.speed, f.speed > 1 ? " (ACCELERATED)" : " (real time)",
                f.workers, f.reidentify_every, f.tick_rate, f.window, f.queue_capacity,
-               f.clock_slice_bars);
+               f.clock_slice_bars, SessionNote(f).c_str());
   RunResult load, idle;
   if (!RunOnce(f, true, &load)) return 1;
   const bool have_idle = !f.skip_idle && RunOnce(f, false, &idle);
@@ -765,10 +848,11 @@ int main(int argc, char** argv) {
   std::printf(
       "Speed %g (%s); %d refit worker(s) + the ingest thread; re-identification every %d "
       "refits; %g ticks/s (single-tick binary messages); window %d bars; queue capacity "
-      "%d; clock ticks in slices of %d bars%s; load average %.2f before, %.2f after (1 min).\n\n",
+      "%d; clock ticks in slices of %d bars%s; %s; load average %.2f before, %.2f after (1 "
+      "min).\n\n",
       f.speed, speed_note.c_str(), f.workers, f.reidentify_every, f.tick_rate, f.window,
       f.queue_capacity, f.clock_slice_bars, f.clock_slice_bars == 0 ? " (0: whole)" : "",
-      load.load_before, load.load_after);
+      SessionNote(f).c_str(), load.load_before, load.load_after);
   std::printf("| figure | measured | target |\n|---|---|---|\n");
   std::printf(
       "| refits applied (due points of the measured minutes) | %llu of %llu (%.1f %%); "
