@@ -41,8 +41,10 @@ namespace aftershock {
 // of another layout is refused rather than misread. 2: the regime detector's
 // state became CUSUM statistics (regime_detector.h), the configuration section
 // names models, parameters and the presample rule in the renamed vocabulary
-// (CHANGELOG.md) and the core holds the recursive tracker's state.
-inline constexpr uint32_t kCheckpointFormatVersion = 2;
+// (CHANGELOG.md) and the core holds the recursive tracker's state. 3: the
+// refit coordinator's seasonal pool holds its snapshot and the estimates added
+// since it was built (SeasonalPool::SaveState).
+inline constexpr uint32_t kCheckpointFormatVersion = 3;
 inline constexpr size_t kCheckpointHeaderBytes = 64;
 inline constexpr size_t kCheckpointTrailerBytes = 16;
 inline constexpr size_t kCheckpointSectionHeaderBytes = 16;

@@ -381,12 +381,13 @@ void SeasonalPool::Add(const SeasonalEstimate& e) {
     overnight_sum_ = kPoolDecay * overnight_sum_ + w * e.own_overnight;
     overnight_weight_ = kPoolDecay * overnight_weight_ + w;
   }
-  stale_ = true;
+  ++adds_since_;
 }
 
-SeasonalProfilePtr SeasonalPool::Snapshot() {
-  if (!stale_) return snapshot_;
-  stale_ = false;
+SeasonalProfilePtr SeasonalPool::Snapshot(uint64_t refresh_adds) {
+  if (adds_since_ == 0) return snapshot_;
+  if (snapshot_ != nullptr && adds_since_ < refresh_adds) return snapshot_;
+  adds_since_ = 0;
   std::vector<double> f(sum_.size());
   for (size_t k = 0; k < f.size(); ++k) f[k] = sum_[k] / weight_;
   const double div = Normalize(&f, nullptr);
@@ -406,6 +407,8 @@ void SeasonalPool::SaveState(StateWriter* w) const {
   w->F64(weight_);
   w->F64(overnight_sum_);
   w->F64(overnight_weight_);
+  w->U64(adds_since_);
+  SaveSeasonalProfile(snapshot_.get(), w);
 }
 
 void SeasonalPool::RestoreState(StateReader* r) {
@@ -428,8 +431,8 @@ void SeasonalPool::RestoreState(StateReader* r) {
     r->Fail("seasonal pool", "non-finite or negative sums");
     return;
   }
-  snapshot_ = nullptr;
-  stale_ = weight_ > 0;
+  adds_since_ = r->U64("seasonal pool estimates since the snapshot");
+  snapshot_ = RestoreSeasonalProfile(r, options_, "seasonal pool snapshot");
 }
 
 void SaveSeasonalProfile(const SeasonalProfile* p, StateWriter* w) {

@@ -108,7 +108,8 @@ TEST_CASE("A checkpoint round-trips its header and sections") {
 TEST_CASE("A checkpoint written by an independent writer from the layout in the header parses") {
   // tests/fuzz/corpus/checkpoint_fuzz/two_sections.ckpt was written by a few
   // lines of Python following checkpoint_file.h's layout (bit-by-bit CRC-32C);
-  // its format version field was later set to 2 and the header CRC recomputed.
+  // its format version field was later set to 2, then 3, and the header CRC
+  // recomputed (bit-by-bit CRC-32C in Python).
   auto cp = ReadCheckpointFile(std::string(AFTERSHOCK_SOURCE_DIR) +
                                "/tests/fuzz/corpus/checkpoint_fuzz/two_sections.ckpt");
   REQUIRE(cp.ok());

@@ -4,10 +4,14 @@
 #include <boost/random/normal_distribution.hpp>
 #include <catch2/catch.hpp>
 #include <cmath>
+#include <cstring>
+#include <memory>
+#include <random>
 #include <vector>
 
 #include "aftershock/forecast.h"
 #include "aftershock/online_filter.h"
+#include "aftershock/state_codec.h"
 
 namespace aftershock {
 namespace {
@@ -308,6 +312,94 @@ TEST_CASE("SeasonalizeUpdate weights the h-step forecasts by the factors ahead",
     }
     const double sd_next = std::sqrt(u.var_next);
     CHECK(u.var_risk[0] == Approx(2.3263478740408408 * sd_next).epsilon(1e-9));
+  }
+}
+
+}  // namespace
+}  // namespace aftershock
+
+namespace aftershock {
+namespace {
+
+// An estimate as a job's would be, with a random own profile.
+SeasonalEstimate RandomEstimate(int buckets, std::mt19937_64* rng) {
+  std::uniform_real_distribution<double> u(0.5, 2.0);
+  SeasonalEstimate e;
+  e.sessions = 3 + static_cast<int>((*rng)() % 5);
+  e.own.resize(static_cast<size_t>(buckets));
+  for (double& v : e.own) v = u(*rng);
+  e.own_overnight = ((*rng)() & 1) ? u(*rng) : 0.0;
+  return e;
+}
+
+bool SameProfile(const SeasonalProfile* a, const SeasonalProfile* b) {
+  if (a == nullptr || b == nullptr) return a == b;
+  if (a->buckets() != b->buckets()) return false;
+  for (int k = 0; k < a->buckets(); ++k) {
+    const double x = a->factor(k), y = b->factor(k);
+    if (std::memcmp(&x, &y, sizeof x) != 0) return false;
+  }
+  const double x = a->overnight_factor(), y = b->overnight_factor();
+  return std::memcmp(&x, &y, sizeof x) == 0;
+}
+
+TEST_CASE(
+    "the pool shares a snapshot for refresh_adds estimates; a restored pool hands out the same",
+    "[seasonal]") {
+  SeasonalOptions o;
+  o.buckets = 17;
+  o.max_ahead = 20;
+  std::mt19937_64 rng(11);
+  SeasonalPool pool(o);
+  CHECK(pool.Snapshot(4) == nullptr);  // nothing added yet
+  pool.Add(RandomEstimate(o.buckets, &rng));
+  const SeasonalProfilePtr first = pool.Snapshot(4);
+  REQUIRE(first != nullptr);  // the first one is built at once
+  // Three more estimates: still shared; the fourth since the build rebuilds.
+  for (int i = 0; i < 3; ++i) {
+    pool.Add(RandomEstimate(o.buckets, &rng));
+    CHECK(pool.Snapshot(4) == first);
+  }
+  pool.Add(RandomEstimate(o.buckets, &rng));
+  const SeasonalProfilePtr second = pool.Snapshot(4);
+  REQUIRE(second != nullptr);
+  CHECK(second != first);
+  CHECK(pool.Snapshot(4) == second);  // nothing added since
+  // With refresh_adds 1 every Add makes the next snapshot a new one, as a
+  // snapshot built from the pool's current sums.
+  SeasonalPool each(o);
+  for (int i = 0; i < 3; ++i) {
+    each.Add(RandomEstimate(o.buckets, &rng));
+    const SeasonalProfilePtr a = each.Snapshot(1);
+    each.Add(RandomEstimate(o.buckets, &rng));
+    CHECK(each.Snapshot(1) != a);
+  }
+
+  // Saved at every point of a run, restored, and continued alongside the
+  // original: every later snapshot is the same to the bit (replay in parts).
+  for (int cut = 0; cut < 12; ++cut) {
+    INFO("saved after step " << cut);
+    std::mt19937_64 a_rng(29), b_rng(0);
+    SeasonalPool a(o);
+    std::unique_ptr<SeasonalPool> b;
+    for (int step = 0; step < 24; ++step) {
+      if (step == cut) {
+        StateWriter w;
+        a.SaveState(&w);
+        b = std::make_unique<SeasonalPool>(o);
+        StateReader r(w.data());
+        b->RestoreState(&r);
+        REQUIRE(r.Finish("pool").ok());
+        b_rng = a_rng;
+      }
+      const SeasonalEstimate e = RandomEstimate(o.buckets, &a_rng);
+      a.Add(e);
+      const SeasonalProfilePtr pa = a.Snapshot(5);
+      if (b != nullptr) {
+        b->Add(RandomEstimate(o.buckets, &b_rng));
+        CHECK(SameProfile(b->Snapshot(5).get(), pa.get()));
+      }
+    }
   }
 }
 
