@@ -273,6 +273,9 @@ void AlertEngine::OnBar(const BarUpdate& bar, SymbolAlertState* st, AlertSink* s
       a->kind = kind;
       a->rule = high ? AlertRule::kRegimeHigh : AlertRule::kRegimeLow;
       a->severity = sev;
+      // The version of the model whose forecasts the evidence compares against
+      // (the alert is reused: a field not set here would be the last alert's).
+      a->ver = bar.ver;
       const RegimeState& rs = st->regime;
       const char* name = bar.symbol.data;
       const int len = SymLen(bar.symbol);

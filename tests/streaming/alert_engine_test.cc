@@ -280,6 +280,7 @@ TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[aler
   CHECK(in.rule == AlertRule::kRegimeHigh);
   CHECK(in.severity == Severity::kWarn);
   CHECK(in.threshold == 10);
+  CHECK(in.ver == 3);  // the bar's model version (Bar), not a previous alert's
   CHECK(in.value == Approx(9 * d.UpIncrement(2.5)));
   CHECK(std::string(in.message) ==
         "ALPHA.X: volatility regime up, over the last 9 bars squared moves averaged 6.25 times "
@@ -292,6 +293,7 @@ TEST_CASE("regime alerts: entry, clear, messages and re-entry cool-down", "[aler
   Drive(e.get(), &st, &sink, "ALPHA.X", &t, 0.8, 1);
   REQUIRE(sink.alerts.size() == 2);
   CHECK(sink.alerts[1].kind == AlertKind::kRegimeClear);
+  CHECK(sink.alerts[1].ver == 3);
   CHECK(sink.alerts[1].severity == Severity::kInfo);
   CHECK(sink.alerts[1].threshold == 6);
   CHECK(sink.alerts[1].value >= 6);
