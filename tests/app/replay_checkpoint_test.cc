@@ -109,6 +109,48 @@ testing::CommandResult Replay(const std::string& cfg, const std::string& input,
   return RunCli(argv);
 }
 
+// The whole replay (the reference), which must have swapped refits.
+Outputs ReplayWhole(const std::string& dir, const std::string& cfg, const std::string& csv,
+                    const std::string& workers) {
+  const auto whole = Replay(cfg, csv, dir + "/whole" + workers, workers, {});
+  INFO(whole.err);
+  REQUIRE(whole.exit_code == 0);
+  Outputs ref = Read(dir + "/whole" + workers);
+  REQUIRE(ref.models.find("\"swapped\"") != std::string::npos);
+  return ref;
+}
+
+// Replays lines [0, split) with --checkpoint, then the rest with --resume,
+// and checks the two parts' outputs, concatenated, against `ref` (the whole
+// replay's). Returns what further checks need.
+struct SplitRun {
+  std::string p2;  // the second part's prefix (its CSV is p2 + ".csv")
+  std::string cp;  // the checkpoint between the parts
+  std::string resume_err;
+};
+SplitRun CheckSplit(const std::string& dir, const std::string& cfg,
+                    const std::vector<std::string>& lines, size_t split, const std::string& workers,
+                    const Outputs& ref) {
+  SplitRun run;
+  const std::string p1 = absl::StrCat(dir, "/p1_", workers, "_", split);
+  run.p2 = absl::StrCat(dir, "/p2_", workers, "_", split);
+  run.cp = absl::StrCat(dir, "/state_", workers, "_", split, ".ckpt");
+  WriteFile(p1 + ".csv", Csv(lines, 0, split));
+  WriteFile(run.p2 + ".csv", Csv(lines, split, lines.size()));
+  const auto r1 = Replay(cfg, p1 + ".csv", p1, workers, {"--checkpoint", run.cp});
+  INFO(r1.err);
+  REQUIRE(r1.exit_code == 0);
+  const auto r2 = Replay(cfg, run.p2 + ".csv", run.p2, workers, {"--resume", run.cp});
+  INFO(r2.err);
+  REQUIRE(r2.exit_code == 0);
+  run.resume_err = r2.err;
+  const Outputs a = Read(p1), b = Read(run.p2);
+  CHECK(a.updates + b.updates == ref.updates);
+  CHECK(a.models + b.models == ref.models);
+  CHECK(a.alerts + b.alerts == ref.alerts);
+  return run;
+}
+
 TEST_CASE("replay in two parts equals the whole replay (time bars, sessions, refits, seasonality)",
           "[app][replay][checkpoint]") {
   const std::string dir = testing::ScratchDir("replay_checkpoint_split");
@@ -121,33 +163,17 @@ TEST_CASE("replay in two parts equals the whole replay (time bars, sessions, ref
   const std::vector<size_t> splits = {1000, 3 * 360 + 4, 1797, 2161, 3600 + 7, 4004};
   int resumed_with_jobs = 0;
   for (const std::string workers : {"1", "2"}) {
-    const auto whole = Replay(cfg, whole_csv, dir + "/whole" + workers, workers, {});
-    INFO(whole.err);
-    REQUIRE(whole.exit_code == 0);
-    const Outputs ref = Read(dir + "/whole" + workers);
     // The run does what the test is about: refits swapped, alerts raised.
-    REQUIRE(ref.models.find("\"swapped\"") != std::string::npos);
+    const Outputs ref = ReplayWhole(dir, cfg, whole_csv, workers);
     REQUIRE(!ref.alerts.empty());
     REQUIRE(ref.updates.find("seasonal") != std::string::npos);
     for (size_t split : splits) {
       INFO("workers " << workers << ", split after line " << split);
-      const std::string p1 = absl::StrCat(dir, "/p1_", workers, "_", split);
-      const std::string p2 = absl::StrCat(dir, "/p2_", workers, "_", split);
-      const std::string cp = absl::StrCat(dir, "/state_", workers, "_", split, ".ckpt");
-      WriteFile(p1 + ".csv", Csv(lines, 0, split));
-      WriteFile(p2 + ".csv", Csv(lines, split, lines.size()));
-      const auto r1 = Replay(cfg, p1 + ".csv", p1, workers, {"--checkpoint", cp});
-      INFO(r1.err);
-      REQUIRE(r1.exit_code == 0);
-      const auto r2 = Replay(cfg, p2 + ".csv", p2, workers, {"--resume", cp});
-      INFO(r2.err);
-      REQUIRE(r2.exit_code == 0);
-      REQUIRE(r2.err.find("replay: resumed 3 symbols from") != std::string::npos);
-      if (r2.err.find("(0 refit jobs re-submitted)") == std::string::npos) ++resumed_with_jobs;
-      const Outputs a = Read(p1), b = Read(p2);
-      CHECK(a.updates + b.updates == ref.updates);
-      CHECK(a.models + b.models == ref.models);
-      CHECK(a.alerts + b.alerts == ref.alerts);
+      const SplitRun run = CheckSplit(dir, cfg, lines, split, workers, ref);
+      CHECK(run.resume_err.find("replay: resumed 3 symbols from") != std::string::npos);
+      if (run.resume_err.find("(0 refit jobs re-submitted)") == std::string::npos) {
+        ++resumed_with_jobs;
+      }
     }
   }
   // Some of the splits fell while a refit job was in flight.
@@ -167,11 +193,7 @@ TEST_CASE("replay in two parts equals the whole replay with 130 symbols (shared 
   const std::vector<std::string> lines = TickLines(130);
   const std::string cfg = WriteFile(dir + "/c.toml", kConfig);
   const std::string whole_csv = WriteFile(dir + "/whole.csv", Csv(lines, 0, lines.size()));
-  const auto whole = Replay(cfg, whole_csv, dir + "/whole", "1", {});
-  INFO(whole.err);
-  REQUIRE(whole.exit_code == 0);
-  const Outputs ref = Read(dir + "/whole");
-  REQUIRE(ref.models.find("\"swapped\"") != std::string::npos);
+  const Outputs ref = ReplayWhole(dir, cfg, whole_csv, "1");
   REQUIRE(ref.updates.find("seasonal") != std::string::npos);
   // In the second to fourth sessions (profiles pooled and in force), inside
   // a minute and between minutes.
@@ -183,22 +205,8 @@ TEST_CASE("replay in two parts equals the whole replay with 130 symbols (shared 
   }
   for (size_t split : splits) {
     INFO("split after line " << split);
-    const std::string p1 = absl::StrCat(dir, "/p1_", split);
-    const std::string p2 = absl::StrCat(dir, "/p2_", split);
-    const std::string cp = absl::StrCat(dir, "/state_", split, ".ckpt");
-    WriteFile(p1 + ".csv", Csv(lines, 0, split));
-    WriteFile(p2 + ".csv", Csv(lines, split, lines.size()));
-    const auto r1 = Replay(cfg, p1 + ".csv", p1, "1", {"--checkpoint", cp});
-    INFO(r1.err);
-    REQUIRE(r1.exit_code == 0);
-    const auto r2 = Replay(cfg, p2 + ".csv", p2, "1", {"--resume", cp});
-    INFO(r2.err);
-    REQUIRE(r2.exit_code == 0);
-    REQUIRE(r2.err.find("replay: resumed 130 symbols from") != std::string::npos);
-    const Outputs a = Read(p1), b = Read(p2);
-    CHECK(a.updates + b.updates == ref.updates);
-    CHECK(a.models + b.models == ref.models);
-    CHECK(a.alerts + b.alerts == ref.alerts);
+    const SplitRun run = CheckSplit(dir, cfg, lines, split, "1", ref);
+    CHECK(run.resume_err.find("replay: resumed 130 symbols from") != std::string::npos);
   }
 }
 
@@ -217,11 +225,7 @@ TEST_CASE("replay in two parts equals the whole replay with recursive tracking i
                                         "stability_decay = 0.95\nalert_threshold = 6\n");
   const std::string plain = WriteFile(dir + "/plain.toml", base);
   const std::string whole_csv = WriteFile(dir + "/whole.csv", Csv(lines, 0, lines.size()));
-  const auto whole = Replay(cfg, whole_csv, dir + "/whole", "1", {});
-  INFO(whole.err);
-  REQUIRE(whole.exit_code == 0);
-  const Outputs ref = Read(dir + "/whole");
-  REQUIRE(ref.models.find("\"swapped\"") != std::string::npos);
+  const Outputs ref = ReplayWhole(dir, cfg, whole_csv, "1");
   REQUIRE(ref.alerts.find("\"instability\"") != std::string::npos);
   // Drive changes the published variances (the tracked parameters are in use).
   const auto off = Replay(plain, whole_csv, dir + "/off", "1", {});
@@ -229,23 +233,9 @@ TEST_CASE("replay in two parts equals the whole replay with recursive tracking i
   CHECK(Read(dir + "/off").updates != ref.updates);
   for (size_t split : {size_t{1797}, size_t{3600 + 7}}) {
     INFO("split after line " << split);
-    const std::string p1 = absl::StrCat(dir, "/p1_", split);
-    const std::string p2 = absl::StrCat(dir, "/p2_", split);
-    const std::string cp = absl::StrCat(dir, "/state_", split, ".ckpt");
-    WriteFile(p1 + ".csv", Csv(lines, 0, split));
-    WriteFile(p2 + ".csv", Csv(lines, split, lines.size()));
-    const auto r1 = Replay(cfg, p1 + ".csv", p1, "1", {"--checkpoint", cp});
-    INFO(r1.err);
-    REQUIRE(r1.exit_code == 0);
-    const auto r2 = Replay(cfg, p2 + ".csv", p2, "1", {"--resume", cp});
-    INFO(r2.err);
-    REQUIRE(r2.exit_code == 0);
-    const Outputs a = Read(p1), b = Read(p2);
-    CHECK(a.updates + b.updates == ref.updates);
-    CHECK(a.models + b.models == ref.models);
-    CHECK(a.alerts + b.alerts == ref.alerts);
+    const SplitRun run = CheckSplit(dir, cfg, lines, split, "1", ref);
     // The tracking settings are part of the checkpoint's configuration check.
-    const auto foreign = Replay(plain, p2 + ".csv", p2 + "x", "1", {"--resume", cp});
+    const auto foreign = Replay(plain, run.p2 + ".csv", run.p2 + "x", "1", {"--resume", run.cp});
     CHECK(foreign.exit_code == 2);
   }
 }
