@@ -18,11 +18,15 @@
 
 namespace {
 std::atomic<uint64_t> g_allocations{0};
-thread_local uint64_t t_releases = 0;  // trivially destructible: usable until thread exit
+// Trivially constructed and destructible: usable from operator new and delete
+// at any point of a thread's life.
+thread_local uint64_t t_allocations = 0;
+thread_local uint64_t t_releases = 0;
 }  // namespace
 
 namespace aftershock::testing {
 uint64_t AllocationCount() { return g_allocations.load(std::memory_order_relaxed); }
+uint64_t ThreadAllocationCount() { return t_allocations; }
 uint64_t ThreadReleaseCount() { return t_releases; }
 #ifdef AFTERSHOCK_ALLOC_COUNTER_OFF
 bool AllocationCountingEnabled() { return false; }
@@ -35,20 +39,24 @@ bool AllocationCountingEnabled() { return true; }
 
 void* operator new(std::size_t n) {
   g_allocations.fetch_add(1, std::memory_order_relaxed);
+  ++t_allocations;
   if (void* p = std::malloc(n ? n : 1)) return p;
   throw std::bad_alloc();
 }
 void* operator new[](std::size_t n) {
   g_allocations.fetch_add(1, std::memory_order_relaxed);
+  ++t_allocations;
   if (void* p = std::malloc(n ? n : 1)) return p;
   throw std::bad_alloc();
 }
 void* operator new(std::size_t n, const std::nothrow_t&) noexcept {
   g_allocations.fetch_add(1, std::memory_order_relaxed);
+  ++t_allocations;
   return std::malloc(n ? n : 1);
 }
 void* operator new[](std::size_t n, const std::nothrow_t&) noexcept {
   g_allocations.fetch_add(1, std::memory_order_relaxed);
+  ++t_allocations;
   return std::malloc(n ? n : 1);
 }
 namespace {

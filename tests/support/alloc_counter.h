@@ -11,6 +11,11 @@ namespace aftershock::testing {
 // Number of global operator new calls so far in this process (all threads).
 uint64_t AllocationCount();
 
+// Number of global operator new calls made so far by the calling thread (0 in
+// ThreadSanitizer builds): for a check of one thread's path while other
+// threads (refit workers) may allocate.
+uint64_t ThreadAllocationCount();
+
 // Number of global operator delete calls with a non-null pointer made so far
 // by the calling thread (0 in ThreadSanitizer builds, see below).
 uint64_t ThreadReleaseCount();
