@@ -233,13 +233,13 @@ bool ParseFlags(int argc, char** argv, Flags* f) {
   return true;
 }
 
+// "HH:MM" of minutes since midnight.
+std::string HhMm(int minutes) { return absl::StrFormat("%02d:%02d", minutes / 60, minutes % 60); }
+
 std::string SessionNote(const Flags& f) {
   if (f.session_start_min < 0) return "no session (seasonality off)";
-  return absl::StrFormat(
-      "session %02d:%02d-%02d:%02d UTC (seasonality on: bar-of-session tags, a profile per "
-      "symbol)",
-      f.session_start_min / 60, f.session_start_min % 60, f.session_end_min / 60,
-      f.session_end_min % 60);
+  return absl::StrCat("session ", HhMm(f.session_start_min), "-", HhMm(f.session_end_min),
+                      " UTC (seasonality on: bar-of-session tags, a profile per symbol)");
 }
 
 // Simulated time: set by hand while the windows are filled, then
@@ -572,11 +572,9 @@ std::string ConfigToml(const Flags& f, bool refits) {
       "[feed]\nencoding = \"binary\"\n"
       "[publish]\nencoding = \"binary\"\n"
       "[bars]\ninterval = \"1m\"\ngrace = \"200ms\"\n",
-      f.session_start_min < 0
-          ? std::string()
-          : absl::StrFormat("session = { start = \"%02d:%02d\", end = \"%02d:%02d\" }\n",
-                            f.session_start_min / 60, f.session_start_min % 60,
-                            f.session_end_min / 60, f.session_end_min % 60),
+      f.session_start_min < 0 ? std::string()
+                              : absl::StrCat("session = { start = \"", HhMm(f.session_start_min),
+                                             "\", end = \"", HhMm(f.session_end_min), "\" }\n"),
       "[limits]\nmax_symbols = ", f.instruments, "\n",
       "[http]\nenabled = false\n"
       "[refit]\nevery_bars = ",

@@ -30,9 +30,9 @@ bool Lag1(int np, int nq, int na, int no, int nb) {
 }
 
 // Lanes per pass of StepBatch: the chunk arrays (6 x 64 doubles) stay in L1.
+// Pass 2 pads a chunk to whole groups of four lanes within these arrays.
 constexpr int kChunk = 64;
-// The chunk arrays' length: kChunk rounded up to whole groups of four lanes.
-constexpr int kChunkPadded = (kChunk + 3) & ~3;
+static_assert(kChunk % 4 == 0, "pass 2 pads a chunk to a multiple of 4 lanes");
 
 #if defined(AFTERSHOCK_BANK_AVX)
 // StepChunk's pass 2 four lanes per instruction: the divider is the step's
@@ -357,8 +357,7 @@ template <int NH, int NL>
 void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* out) {
   // Per chunk: eps, the standardizing sd, next variance; then sd_next, z and
   // the unclamped scale from pass 2.
-  alignas(32) double eps[kChunkPadded], sd[kChunkPadded], vn[kChunkPadded], sdn[kChunkPadded],
-      z[kChunkPadded], sc[kChunkPadded];
+  alignas(32) double eps[kChunk], sd[kChunk], vn[kChunk], sdn[kChunk], z[kChunk], sc[kChunk];
   bool fast[kChunk];
   const Cols cols = columns();
   // Pass 1, per lane: the recursions and the outputs that need no division or
