@@ -7,6 +7,10 @@
 //                       apply check, scheduler), quiet vs during a refit storm
 //                       (every symbol due at once, all workers busy), same run;
 //                       and the calls that applied a job;
+//   BM_SeasonalEstimate a symbol's intraday profile estimated from a 2,000-bar
+//                       window of one-minute bars over sessions of 510 (the
+//                       worker's first step of every seasonal refit), with a
+//                       pooled prior as the coordinator hands it;
 //   BM_EngineApply      the ingest thread's cost of applying a refit on the
 //                       engine's path (IngestCore + EngineServices: coordinator,
 //                       model record, swap into the core, gate alerts): a clock
@@ -20,6 +24,7 @@
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
+#include <random>
 #include <thread>
 #include <vector>
 
@@ -30,6 +35,7 @@
 #include "aftershock/ingest_core.h"
 #include "aftershock/model_store.h"
 #include "aftershock/refit.h"
+#include "aftershock/seasonal_profile.h"
 #include "aftershock/simulate.h"
 #include "aftershock/update_sink.h"
 
@@ -230,6 +236,56 @@ int64_t ThreadCpuNs() {
   clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts);
   return int64_t{ts.tv_sec} * 1'000'000'000 + ts.tv_nsec;
 }
+
+// Tagged returns of `sessions` sessions of `buckets` one-minute bars (the
+// last `bars` of them), variance U-shaped over the session (the first and
+// last bars about three times midday's), each session's level drawn anew.
+void SeasonalSample(int buckets, int bars, uint64_t seed, std::vector<double>* r,
+                    std::vector<int32_t>* tags) {
+  std::mt19937_64 rng(seed);
+  std::normal_distribution<double> z(0, 1);
+  std::lognormal_distribution<double> level(0, 0.3);
+  r->clear();
+  tags->clear();
+  const int sessions = (bars + buckets - 1) / buckets + 1;
+  for (int d = 0; d < sessions; ++d) {
+    const double l = level(rng);
+    for (int k = 0; k < buckets; ++k) {
+      const double x = (k + 0.5) / buckets - 0.5;
+      r->push_back(l * std::sqrt(1 + 8 * x * x) * z(rng));
+      tags->push_back(SeasonalTag(k, k == 0, false));
+    }
+  }
+  r->erase(r->begin(), r->end() - bars);
+  tags->erase(tags->begin(), tags->end() - bars);
+}
+
+void BM_SeasonalEstimate(benchmark::State& state) {
+  SeasonalOptions o;
+  o.buckets = 510;
+  std::vector<double> r;
+  std::vector<int32_t> tags;
+  SeasonalSample(o.buckets, 4000, 7, &r, &tags);
+  // The prior: another symbol's estimate, as the pool would hold it.
+  auto first = EstimateSeasonalProfile(absl::MakeConstSpan(r).first(2000),
+                                       absl::MakeConstSpan(tags).first(2000), o, nullptr);
+  const SeasonalProfilePtr prior = first.ok() ? first->profile : nullptr;
+  if (prior == nullptr) {
+    state.SkipWithError("no prior profile");
+    return;
+  }
+  const auto window = absl::MakeConstSpan(r).last(2000);
+  const auto window_tags = absl::MakeConstSpan(tags).last(2000);
+  for (auto _ : state) {
+    auto est = EstimateSeasonalProfile(window, window_tags, o, prior.get());
+    if (!est.ok() || est->profile == nullptr) {
+      state.SkipWithError("estimate failed");
+      return;
+    }
+    benchmark::DoNotOptimize(est);
+  }
+}
+BENCHMARK(BM_SeasonalEstimate)->Unit(benchmark::kMicrosecond);
 
 // Args: symbols, and the updates' encoding (0 JSON, 1 binary: what
 // scale_bench publishes). Every symbol starts on a stored GARCH(1,1) model (the law of

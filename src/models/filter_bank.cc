@@ -8,12 +8,12 @@
 #if defined(__SSE2__)
 #include <emmintrin.h>
 #endif
-#if defined(__x86_64__) && (defined(__GNUC__) || defined(__clang__))
-#include <immintrin.h>
-#define AFTERSHOCK_BANK_AVX 1
-#endif
-
 #include "absl/base/attributes.h"
+#include "models/cpu_features.h"
+
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
+#include <immintrin.h>
+#endif
 
 // Bit-identity with FilterStep rests on both computing every value with the
 // same IEEE operations in the same order: this file and online_filter.cc are
@@ -34,7 +34,7 @@ bool Lag1(int np, int nq, int na, int no, int nb) {
 constexpr int kChunk = 64;
 static_assert(kChunk % 4 == 0, "pass 2 pads a chunk to a multiple of 4 lanes");
 
-#if defined(AFTERSHOCK_BANK_AVX)
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
 // StepChunk's pass 2 four lanes per instruction: the divider is the step's
 // bottleneck, and a 256-bit vsqrtpd/vdivpd costs about what a 128-bit one
 // does (filter_bench, alternated builds: the batch step 15.2-18.0 -> 13.7-14.6
@@ -52,13 +52,6 @@ __attribute__((target("avx"))) void RootsAndQuotientsAvx(int n, const double* vn
     _mm256_store_pd(sc + k, _mm256_div_pd(vnum, s));
   }
 }
-
-bool CpuHasAvx() {
-  __builtin_cpu_init();  // FilterBank may be built before libgcc's constructor ran
-  return __builtin_cpu_supports("avx");
-}
-#else
-bool CpuHasAvx() { return false; }
 #endif
 
 }  // namespace
@@ -385,7 +378,7 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
     sd[k] = 1.0;
     vn[k] = 1.0;
   }
-#if defined(AFTERSHOCK_BANK_AVX)
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
   if (avx_) {
     RootsAndQuotientsAvx(cp, vn, eps, sd, scale_num_, sdn, z, sc);
   } else
@@ -426,7 +419,7 @@ auto FilterBank::ChunkTable(std::index_sequence<I...>) {
 }
 
 // After ChunkTable: its return type is deduced from its definition.
-FilterBank::FilterBank(const OutputOptions& outputs) : avx_(CpuHasAvx()) {
+FilterBank::FilterBank(const OutputOptions& outputs) : avx_(internal::CpuHasAvx()) {
   // As FilterModel::Create computes them, so that SameShape compares equal.
   nh_ = std::min(static_cast<int>(outputs.horizons.size()), kMaxHorizons);
   nl_ = std::min(static_cast<int>(outputs.risk_levels.size()), kMaxRiskLevels);

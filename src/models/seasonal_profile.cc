@@ -3,10 +3,12 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdlib>
+#include <optional>
 #include <utility>
 
 #include "absl/strings/str_cat.h"
 #include "aftershock/least_squares.h"
+#include "models/local_linear_smoother.h"
 
 namespace aftershock {
 namespace {
@@ -22,59 +24,6 @@ double Bandwidth(const SeasonalOptions& o) {
 int FourierOrder(const SeasonalOptions& o) {
   if (o.smoothing > 0) return static_cast<int>(o.smoothing);
   return std::max(1, std::min(4, o.buckets / 4));
-}
-
-// Local linear regression of y on the bucket index with Gaussian kernel
-// weights times counts. Buckets with no data within 4 bandwidths take the
-// nearest estimate.
-std::vector<double> SmoothLocalLinear(const std::vector<double>& y, const std::vector<int>& cnt,
-                                      double h) {
-  const int n = static_cast<int>(y.size());
-  const int reach = static_cast<int>(std::ceil(4 * h));
-  // The kernel by distance, once: it depends on |j - k| only, and (-x)(-x) is
-  // x x exactly, so g[|d|] is the weight computed at d to the bit. (Computed
-  // per pair, the exp calls were most of a seasonal refit's worker time:
-  // about 100 per bucket for 510 buckets, in each pass of the estimate.)
-  const int span = std::min(reach, n - 1);
-  std::vector<double> g(static_cast<size_t>(span) + 1);
-  for (int d = 0; d <= span; ++d) {
-    const double x = static_cast<double>(d) / h;
-    g[static_cast<size_t>(d)] = std::exp(-0.5 * x * x);
-  }
-  std::vector<double> out(n, 0.0);
-  std::vector<bool> have(n, false);
-  for (int k = 0; k < n; ++k) {
-    double s0 = 0, s1 = 0, s2 = 0, t0 = 0, t1 = 0;
-    for (int j = std::max(0, k - reach); j <= std::min(n - 1, k + reach); ++j) {
-      if (cnt[j] == 0) continue;
-      const double d = j - k;
-      const double w = g[static_cast<size_t>(std::abs(j - k))] * cnt[j];
-      s0 += w;
-      s1 += w * d;
-      s2 += w * d * d;
-      t0 += w * y[j];
-      t1 += w * d * y[j];
-    }
-    if (!(s0 > 0)) continue;
-    const double det = s0 * s2 - s1 * s1;
-    out[k] = det > 1e-9 * s0 * s0 ? (s2 * t0 - s1 * t1) / det : t0 / s0;
-    have[k] = true;
-  }
-  // Fill holes from the nearest estimated bucket (left first).
-  for (int k = 0; k < n; ++k) {
-    if (have[k]) continue;
-    for (int d = 1; d < n; ++d) {
-      if (k - d >= 0 && have[k - d]) {
-        out[k] = out[k - d];
-        break;
-      }
-      if (k + d < n && have[k + d]) {
-        out[k] = out[k + d];
-        break;
-      }
-    }
-  }
-  return out;
 }
 
 // Flexible Fourier form (Andersen & Bollerslev 1997, eq. (8) without the
@@ -255,6 +204,8 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
   double on_sum = 0;
   int on_cnt = 0;
   bool any = false;
+  std::optional<internal::LocalLinearSmoother> smoother;
+  if (o.method == SeasonalMethod::kLocalLinear) smoother.emplace(K, Bandwidth(o));
   for (int pass = 0; pass < kPasses; ++pass) {
     // Winsorized |r| (no cap in the first pass: nothing fitted yet).
     auto w = [&](size_t i, double fitted) {
@@ -300,7 +251,7 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
     if (!any) break;
     std::vector<double> sm = o.method == SeasonalMethod::kFourier
                                  ? SmoothFourier(raw, cnt, FourierOrder(o))
-                                 : SmoothLocalLinear(raw, cnt, Bandwidth(o));
+                                 : smoother->Smooth(raw, cnt);
     for (int k = 0; k < K; ++k) sm[k] = sm[k] > 0 ? sm[k] * sm[k] : 0.0;  // s^2, floored below
     const double div = Normalize(&sm, &cnt);
     for (int k = 0; k < K; ++k) m[k] = std::sqrt(sm[k]);
