@@ -9,12 +9,26 @@
 //      re-run under it; on a failure the model in force stays, the failure is
 //      counted, and max_failures in a row engage the EWMA fallback;
 //   3. asks the scheduler whether a refit is due and, if so, takes a free
-//      preallocated job slot for it, copies the window into the slot and
+//      preallocated job slot for it, copies the window into a job buffer and
 //      queues it (at most one job per symbol; a due point meeting a pending
 //      job is coalesced into it; no free slot: dropped, counted, retried at
 //      the next due point). In live mode the copy and the queueing wait for
 //      SubmitDeferred, called between input batches, or for the symbol's next
 //      OnBar, whichever comes first; the job's inputs are the same.
+//
+// Job buffers (the window copies). A job needs its copy of the window from
+// the hand-off to the end of the worker's run, not until it is applied (at
+// the symbol's next bar, a minute later on one-minute bars). In live mode
+// SubmitDeferred copies only into a free buffer (256 per worker, at most
+// queue_capacity, allocated and touched by Create), so the copies keep a
+// little ahead of the workers instead of all at once; and it takes back the
+// buffer of a job the workers finished while its symbol's window is still
+// the one copied: until it is applied, the window is the job's inputs, as it
+// was before the copy. A job still waiting for its copy, or holding it in the
+// window, when its symbol's window is about to change gets a buffer first
+// (a new one when none is free: allocated on the ingest thread, then kept).
+// So slots cost a few hundred bytes each and buffers 8 * window bytes (12
+// with seasonality) each, however many slots there are.
 // The next bar then uses the (possibly new) model(id).
 //
 // Hand-off (see src/refit/job_pool.h for the memory orders): the ingest thread
@@ -148,6 +162,7 @@ struct RefitStats {
   int in_flight = 0;          // jobs holding a slot (queued, running or awaiting apply)
   int queued = 0;             // jobs not yet picked up by a worker
   int running = 0;            // jobs a worker is running
+  int job_buffers = 0;        // job buffers allocated (see "Job buffers"): only grows
 };
 
 // What OnBar did.
@@ -165,7 +180,8 @@ class RefitCoordinator {
  public:
   // InvalidArgument for bad options (Validate's message), bad output options
   // or a null refitter. Starts options.workers threads and preallocates
-  // queue_capacity job slots of `window` doubles each.
+  // queue_capacity job slots and min(queue_capacity, 256 * workers) job
+  // buffers of `window` doubles (and tags) each (see "Job buffers").
   static absl::StatusOr<std::unique_ptr<RefitCoordinator>> Create(
       const RefitOptions& options, const OutputOptions& outputs,
       std::unique_ptr<Refitter> refitter);
@@ -216,10 +232,12 @@ class RefitCoordinator {
   // workers wait for this call (or for the symbol's next OnBar /
   // RecordSkipped, which first copy the unchanged window), so a universe that
   // falls due at one bar close does not copy every window inside that close.
-  // Copies and submits up to `max_jobs` waiting jobs, oldest first; returns how
-  // many. Call it between input batches (EngineServices does, after each
-  // inbound message and at each clock tick). Replay mode copies at the due
-  // point: nothing waits. Ingest thread; no allocation.
+  // Copies and submits up to `max_jobs` waiting jobs, oldest first, as long as
+  // a job buffer is free (after taking back those of finished jobs, see "Job
+  // buffers"); returns how many. Call it between input batches
+  // (EngineServices does, after each inbound message and at each clock
+  // tick). Replay mode copies at the due point: nothing waits. Ingest thread;
+  // no allocation.
   int SubmitDeferred(int max_jobs);
 
   // Starts symbol `id` on a stored model (model_store.h, --initial-models)
@@ -308,6 +326,12 @@ class RefitCoordinator {
   size_t MemoryBytesPerSymbol() const;
 
  private:
+  // Where a pending job's window copy is.
+  enum class JobInputs : uint8_t {
+    kInBuffer,  // in its job buffer (or no job pending)
+    kDeferred,  // live mode: not copied or handed to the workers yet
+    kInWindow,  // finished, buffer taken back: the window, unchanged since the due point
+  };
   struct SymbolSlot {
     std::string name;
     RollingWindow window;
@@ -320,9 +344,8 @@ class RefitCoordinator {
                                      // so quiet bars touch only this symbol's memory)
     int failures = 0;                // consecutive failed jobs
     bool fallback = false;
-    // Live mode: the pending job waits for its window copy (SubmitDeferred,
-    // or this symbol's next OnBar / RecordSkipped, copy it first).
-    bool uncopied = false;
+    // Where the pending job's inputs are (see "Job buffers").
+    JobInputs inputs = JobInputs::kInBuffer;
     int64_t fits = 0;  // jobs submitted
     uint32_t group = 0;
     bool pooled = false;      // current is a group model
@@ -336,17 +359,29 @@ class RefitCoordinator {
     uint64_t seq = 0;        // passes so far
   };
   struct JobSlot;
+  struct JobBuffer;
 
   RefitCoordinator(const RefitOptions& options, const OutputOptions& outputs,
                    std::unique_ptr<Refitter> refitter, ModelVersionPtr ewma);
   void Process(uint32_t slot);  // worker side
   void Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state);
   void Submit(uint32_t id, SymbolSlot* sym);
-  // Copies the symbol's window into the pending job's slot and hands it to the
-  // pool (live mode's deferred half of Submit).
+  // Copies the symbol's window into a buffer for the pending job's slot and
+  // hands it to the pool (live mode's deferred half of Submit).
   void CopyAndSubmit(SymbolSlot* sym, uint32_t slot);
-  // Before the symbol's window changes: hands over its job if still uncopied.
-  void SubmitBeforePush(SymbolSlot* sym);
+  // Before the symbol's window changes: hands over its job if still deferred;
+  // gives a finished job whose inputs are the window its copy back, unless
+  // `applies_next` (OnBar: the job applies right after the push when due by
+  // then).
+  void SubmitBeforePush(SymbolSlot* sym, bool applies_next);
+  // A free job buffer; a new one (NewBuffer) when none is.
+  JobBuffer* TakeBuffer();
+  // Allocates a job buffer, touching its pages (so that a first copy into it
+  // takes no page faults), and keeps it in buffers_.
+  JobBuffer* NewBuffer();
+  // Takes back the buffers of finished jobs whose windows are unchanged, in
+  // the order they were handed out (stops at the first unfinished one).
+  void ReclaimBuffers();
   void DeferredPushBack(uint32_t slot);
   void DeferredUnlink(uint32_t slot);
   // Adopts the group model when due (see "Group models"); true if it did.
@@ -365,6 +400,16 @@ class RefitCoordinator {
   std::vector<GroupState> groups_;  // indexed by AddSymbol's group
   absl::flat_hash_map<std::string, uint32_t> index_;
   std::vector<uint32_t> free_slots_;  // free job slots (capacity preallocated)
+  // Job buffers: all of them (stable addresses, handed to slots), and the free
+  // ones.
+  std::vector<std::unique_ptr<JobBuffer>> buffers_;
+  std::vector<JobBuffer*> free_buffers_;
+  // The slots given a buffer by CopyAndSubmit, in that order, with the slot's
+  // generation then (a slot reused since is skipped): where ReclaimBuffers
+  // looks. A ring of queue_capacity entries; full, its oldest is dropped (that
+  // job keeps its buffer until it is applied).
+  std::vector<std::pair<uint32_t, uint32_t>> handed_;
+  size_t handed_head_ = 0, handed_size_ = 0;
   // Live mode: the slots of jobs waiting for SubmitDeferred, oldest first, as
   // a doubly linked list over the slot indices (-1 ends it), so OnBar can take
   // one out of the middle in O(1). A slot is pending at most once.
@@ -385,6 +430,8 @@ class RefitCoordinator {
   // Jobs not yet handed to the workers (live mode), counted in stats().queued.
   // Written by the ingest thread, read anywhere (relaxed).
   std::atomic<int> deferred_count_{0};
+  // buffers_.size(), for stats(). Written by the ingest thread (relaxed).
+  std::atomic<int> buffer_count_{0};
   Counters counters_;
 
   // What the ingest thread replaced, for the workers to release (Retire).

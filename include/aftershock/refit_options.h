@@ -27,7 +27,8 @@ struct RefitOptions {
   // restarts both. Default 0.
   double every_seconds = 0;
   // Capacity of the rolling window of closed-bar returns, bars. Default 2000.
-  // Cost: 8 bytes per bar per symbol, plus 8 bytes per bar per job slot.
+  // Cost: 8 bytes per bar per symbol, plus 8 bytes per bar per job buffer
+  // (refit.h, "Job buffers"; 12 and 12 with seasonality's tags).
   int window = 2000;
   // Bars a symbol must have before its first fit. Must exceed holdout_bars.
   // Default 250.
@@ -59,9 +60,11 @@ struct RefitOptions {
   double jitter_fraction = 1.0;
   // Refit jobs in flight at once (queued, running or completed but not yet
   // applied). A due refit finding no free slot is dropped, counted, and retried
-  // at the next due point. Default 256. Cost: 8 * window bytes per slot,
-  // preallocated (4 MB for 256 slots of 2000 bars). A slot is freed when its
-  // job is applied, so in replay mode drops depend on the bar sequence only.
+  // at the next due point. Default 256. Cost: a few hundred bytes per slot,
+  // plus the job buffers (window copies) preallocated for min(queue_capacity,
+  // 256 * workers) of them (4 MB for 256 buffers of 2000 bars; refit.h, "Job
+  // buffers"). A slot is freed when its job is applied, so in replay mode
+  // drops depend on the bar sequence only.
   int queue_capacity = 256;
   // The gate rejects a candidate whose diagnostics p-values (when it carries
   // them) are below this level. 0 disables the rule. Default 0.01.

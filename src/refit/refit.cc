@@ -14,14 +14,22 @@
 
 namespace aftershock {
 
+// A job's copy of the window (see refit.h, "Job buffers"): capacity reserved
+// for `window` returns (and tags with seasonality) and touched when made.
+// Owned like the slot it is handed to (job_pool.h), else by the ingest thread.
+struct RefitCoordinator::JobBuffer {
+  std::vector<double> returns;
+  std::vector<int32_t> tags;  // seasonal: the returns' tags
+};
+
 // One preallocated job. Input fields are written by the ingest thread before
 // Submit; output fields by the worker before its done flag (job_pool.h).
 struct RefitCoordinator::JobSlot {
   // ---- input ----
   uint32_t symbol_id = 0;
   std::string symbol;           // capacity reserved for kMaxSymbolLength
-  std::vector<double> returns;  // capacity reserved for `window` doubles
-  std::vector<int32_t> tags;    // seasonal: the returns' tags (capacity reserved)
+  JobBuffer* buffer = nullptr;  // the window copy, from the hand-off (see JobInputs)
+  uint32_t generation = 0;      // jobs this slot has taken (ReclaimBuffers)
   SeasonalProfilePtr prior;     // seasonal: the pool's snapshot (may be null)
   ModelVersionPtr in_force;     // scored on the holdout
   ModelVersionPtr estimated;    // warm start (may be null)
@@ -36,7 +44,10 @@ struct RefitCoordinator::JobSlot {
   bool passed = false;
   bool refit_error = false;
   ModelVersionPtr candidate;  // set when passed
-  SeasonalEstimate estimate;  // seasonal: the profile estimated from `returns`
+  // Seasonal: the profile estimated from the returns; the worker allocates it
+  // and the ingest thread retires it when it is applied (a slot keeping it
+  // held about 6 KB per slot ever used).
+  std::shared_ptr<const SeasonalEstimate> estimate;
   FilterState tail_state;     // candidate's state at the end of `returns`
   RefitRecord record;
   RefitRecordJson record_json;  // `record`'s numbers (Prepare), on the worker
@@ -47,6 +58,9 @@ namespace {
 // Rebuilds of the pooled seasonal prior a universe-wide close makes at most
 // (Submit; SeasonalPool::Snapshot).
 constexpr uint64_t kPriorRebuildsPerSweep = 64;
+
+// Job buffers made by Create per worker (see refit.h, "Job buffers").
+constexpr int kJobBuffersPerWorker = 256;
 
 double MeanSquare(absl::Span<const double> x) {
   if (x.empty()) return 0;
@@ -166,20 +180,17 @@ RefitCoordinator::RefitCoordinator(const RefitOptions& options, const OutputOpti
   free_slots_.reserve(static_cast<size_t>(cap));
   for (int i = 0; i < cap; ++i) {
     auto j = std::make_unique<JobSlot>();
-    // Written once here (resize, then clear: the capacity stays) so that the
-    // pages are resident before the first job: otherwise the first Submit into
-    // each slot takes its page faults on the ingest thread, about 20 µs per
-    // 2,000-bar slot, all at one bar close when a universe falls due together
-    // (measured with bench/scale_bench: 185 ms for 9,500 first submissions).
-    j->returns.resize(static_cast<size_t>(options_.window));
-    j->returns.clear();
-    if (options_.seasonal) {
-      j->tags.resize(static_cast<size_t>(options_.window));
-      j->tags.clear();
-    }
     j->symbol.reserve(kMaxSymbolLength);
     jobs_.push_back(std::move(j));
   }
+  handed_.resize(static_cast<size_t>(cap));
+  // The buffers the copies may run ahead of the workers by: a quiet feed's
+  // clock tick (at most 100 ms apart) copies up to 256 (EngineServices), about
+  // what one worker runs in that time.
+  const int buffers = std::min(cap, kJobBuffersPerWorker * options_.workers);
+  buffers_.reserve(static_cast<size_t>(buffers));
+  free_buffers_.reserve(static_cast<size_t>(buffers));
+  for (int i = 0; i < buffers; ++i) free_buffers_.push_back(NewBuffer());
   deferred_next_.assign(static_cast<size_t>(cap), -1);
   deferred_prev_.assign(static_cast<size_t>(cap), -1);
   // Slot 0 is handed out first.
@@ -258,7 +269,7 @@ absl::Status RefitCoordinator::Seed(uint32_t id, ModelVersionPtr version) {
 }
 
 void RefitCoordinator::RecordSkipped(uint32_t id, double r, int32_t tag) {
-  SubmitBeforePush(&symbols_[id]);
+  SubmitBeforePush(&symbols_[id], /*applies_next=*/false);
   symbols_[id].window.Push(r, tag);
 }
 
@@ -267,7 +278,7 @@ RefitBarResult RefitCoordinator::OnBar(uint32_t id, int64_t t_ns, double r, Filt
   RefitBarResult res;
   SymbolSlot& sym = symbols_[id];
   // A job still waiting for its copy takes the window as it was at its due point.
-  SubmitBeforePush(&sym);
+  SubmitBeforePush(&sym, /*applies_next=*/true);
   sym.window.Push(r, tag);
   const int64_t bars = sym.window.total();
   if (sym.pending >= 0) {
@@ -416,6 +427,7 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
                  (options_.reidentify_every > 0 && j.fit_index % options_.reidentify_every == 0);
   j.seed =
       StableSymbolHash(sym->name) ^ (static_cast<uint64_t>(j.fit_index) * 0x9E3779B97F4A7C15ull);
+  ++j.generation;
   j.bar = sym->window.total();
   j.version = sym->last_version + 1;
   sym->pending = static_cast<int32_t>(slot);
@@ -428,7 +440,7 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
     // The copy of the window waits for a gap between input batches
     // (SubmitDeferred), so a universe falling due at one bar close does not
     // copy every window inside that close. Every slot is pending at most once.
-    sym->uncopied = true;
+    sym->inputs = JobInputs::kDeferred;
     DeferredPushBack(slot);
     return;
   }
@@ -437,15 +449,77 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
 
 void RefitCoordinator::CopyAndSubmit(SymbolSlot* sym, uint32_t slot) {
   JobSlot& j = *jobs_[slot];
-  sym->window.CopyTo(&j.returns);  // capacity reserved: no allocation
-  if (options_.seasonal) sym->window.CopyTagsTo(&j.tags);
-  sym->uncopied = false;
+  j.buffer = TakeBuffer();
+  sym->window.CopyTo(&j.buffer->returns);  // capacity reserved: no allocation
+  if (options_.seasonal) sym->window.CopyTagsTo(&j.buffer->tags);
+  sym->inputs = JobInputs::kInBuffer;
+  // Where ReclaimBuffers looks; a full ring forgets its oldest entry (that
+  // job keeps its buffer until it is applied).
+  const size_t cap = handed_.size();
+  if (handed_size_ == cap) {
+    handed_head_ = handed_head_ + 1 == cap ? 0 : handed_head_ + 1;
+    --handed_size_;
+  }
+  size_t tail = handed_head_ + handed_size_;
+  if (tail >= cap) tail -= cap;
+  handed_[tail] = {slot, j.generation};
+  ++handed_size_;
   pool_->Submit(slot, j.priority);
 }
 
+RefitCoordinator::JobBuffer* RefitCoordinator::NewBuffer() {
+  auto b = std::make_unique<JobBuffer>();
+  // Written once (resize, then clear: the capacity stays) so that the pages
+  // are resident before the first copy: otherwise a first copy takes its page
+  // faults on the ingest thread, about 20 µs per 2,000-bar buffer (measured
+  // with bench/scale_bench when every slot had its own: 185 ms for 9,500
+  // first submissions at one bar close).
+  b->returns.resize(static_cast<size_t>(options_.window));
+  b->returns.clear();
+  if (options_.seasonal) {
+    b->tags.resize(static_cast<size_t>(options_.window));
+    b->tags.clear();
+  }
+  buffers_.push_back(std::move(b));
+  buffer_count_.store(static_cast<int>(buffers_.size()), std::memory_order_relaxed);
+  return buffers_.back().get();
+}
+
+RefitCoordinator::JobBuffer* RefitCoordinator::TakeBuffer() {
+  if (free_buffers_.empty()) return NewBuffer();
+  JobBuffer* b = free_buffers_.back();
+  free_buffers_.pop_back();
+  return b;
+}
+
+void RefitCoordinator::ReclaimBuffers() {
+  while (handed_size_ > 0) {
+    const auto [slot, generation] = handed_[handed_head_];
+    JobSlot& j = *jobs_[slot];
+    // Skip what no longer holds this job's buffer: the slot was applied (and
+    // maybe reused), or the job got its buffer back since.
+    const bool current = j.generation == generation && j.buffer != nullptr;
+    if (current && !pool_->IsDone(slot)) break;  // finished in order, mostly
+    if (current) {
+      // Done: the worker's reads of the buffer happened before (acquire).
+      SymbolSlot& sym = symbols_[j.symbol_id];
+      if (sym.pending == static_cast<int32_t>(slot) && sym.window.total() == j.bar) {
+        // The window is still the copy's: it holds the inputs until the job is
+        // applied or the window is about to change (SubmitBeforePush).
+        free_buffers_.push_back(j.buffer);
+        j.buffer = nullptr;
+        sym.inputs = JobInputs::kInWindow;
+      }
+    }
+    handed_head_ = handed_head_ + 1 == handed_.size() ? 0 : handed_head_ + 1;
+    --handed_size_;
+  }
+}
+
 int RefitCoordinator::SubmitDeferred(int max_jobs) {
+  ReclaimBuffers();
   int n = 0;
-  while (n < max_jobs && deferred_head_ >= 0) {
+  while (n < max_jobs && deferred_head_ >= 0 && !free_buffers_.empty()) {
     const uint32_t slot = static_cast<uint32_t>(deferred_head_);
     DeferredUnlink(slot);
     CopyAndSubmit(&symbols_[jobs_[slot]->symbol_id], slot);
@@ -454,15 +528,27 @@ int RefitCoordinator::SubmitDeferred(int max_jobs) {
   return n;
 }
 
-void RefitCoordinator::SubmitBeforePush(SymbolSlot* sym) {
-  // The flag lives in the symbol's slot, which the bar touches anyway: a storm
-  // keeps every symbol pending, and reading the job slot here instead cost
-  // every bar a cache line (and a page) of its own (refit_bench
+void RefitCoordinator::SubmitBeforePush(SymbolSlot* sym, bool applies_next) {
+  // The state lives in the symbol's slot, which the bar touches anyway: a
+  // storm keeps every symbol pending, and reading the job slot here instead
+  // cost every bar a cache line (and a page) of its own (refit_bench
   // BM_IngestLatency).
-  if (!sym->uncopied) return;
+  if (sym->inputs == JobInputs::kInBuffer) return;
   const uint32_t slot = static_cast<uint32_t>(sym->pending);
-  DeferredUnlink(slot);
-  CopyAndSubmit(sym, slot);
+  if (sym->inputs == JobInputs::kDeferred) {
+    DeferredUnlink(slot);
+    CopyAndSubmit(sym, slot);
+    return;
+  }
+  // kInWindow: the job is done. OnBar applies it right after this push when
+  // it is due by then, and nothing reads its inputs after that; otherwise
+  // they go back into a buffer before the window moves.
+  if (applies_next && sym->window.total() + 1 >= sym->apply_bar) return;
+  JobSlot& j = *jobs_[slot];
+  j.buffer = TakeBuffer();
+  sym->window.CopyTo(&j.buffer->returns);
+  if (options_.seasonal) sym->window.CopyTagsTo(&j.buffer->tags);
+  sym->inputs = JobInputs::kInBuffer;
 }
 
 void RefitCoordinator::DeferredPushBack(uint32_t slot) {
@@ -498,19 +584,21 @@ void RefitCoordinator::Process(uint32_t slot) {
   retire_->Release();
   JobSlot& j = *jobs_[slot];
   const auto t0 = std::chrono::steady_clock::now();
+  const std::vector<double>& returns = j.buffer->returns;
+  const std::vector<int32_t>& tags = j.buffer->tags;
   // Seasonality: estimate the profile, then fit on what the filter consumes.
   std::vector<double> x, x_old;
   SeasonalProfilePtr profile;
-  absl::Span<const double> series = j.returns;
-  j.estimate = SeasonalEstimate{};
+  absl::Span<const double> series = returns;
+  j.estimate.reset();
   if (options_.seasonal) {
-    auto est = EstimateSeasonalProfile(j.returns, j.tags, options_.seasonal_options, j.prior.get());
+    auto est = EstimateSeasonalProfile(returns, tags, options_.seasonal_options, j.prior.get());
     if (est.ok()) {
-      j.estimate = *std::move(est);
-      profile = j.estimate.profile;
+      profile = est->profile;
+      j.estimate = std::make_shared<const SeasonalEstimate>(*std::move(est));
     }
-    SeasonalSeries(profile.get(), j.returns, j.tags, &x);
-    SeasonalSeries(j.in_force->profile.get(), j.returns, j.tags, &x_old);
+    SeasonalSeries(profile.get(), returns, tags, &x);
+    SeasonalSeries(j.in_force->profile.get(), returns, tags, &x_old);
     series = x;
   }
   RefitRequest req;
@@ -571,12 +659,12 @@ void RefitCoordinator::Process(uint32_t slot) {
     hs.bars = hb;
     if (options_.seasonal) {
       // Raw-return units: density of r = s x is f(x) / s.
-      hs.candidate_loglik = ScoreHoldout(*fm, x, hb) - TailLogScale(profile.get(), j.tags, hb);
+      hs.candidate_loglik = ScoreHoldout(*fm, x, hb) - TailLogScale(profile.get(), tags, hb);
       hs.current_loglik = ScoreHoldout(j.in_force->model, x_old, hb) -
-                          TailLogScale(j.in_force->profile.get(), j.tags, hb);
+                          TailLogScale(j.in_force->profile.get(), tags, hb);
     } else {
-      hs.candidate_loglik = ScoreHoldout(*fm, j.returns, hb);
-      hs.current_loglik = ScoreHoldout(j.in_force->model, j.returns, hb);
+      hs.candidate_loglik = ScoreHoldout(*fm, returns, hb);
+      hs.current_loglik = ScoreHoldout(j.in_force->model, returns, hb);
     }
     gi.holdout = hs;
   }
@@ -609,7 +697,7 @@ void RefitCoordinator::Process(uint32_t slot) {
 void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state) {
   JobSlot& j = *jobs_[slot];
   const int64_t bars = sym->window.total();
-  if (options_.seasonal) seasonal_pool_.Add(j.estimate);
+  if (options_.seasonal && j.estimate != nullptr) seasonal_pool_.Add(*j.estimate);
   // What this replaces goes to the workers to release (RetireQueue): the
   // versions, the record and its numbers were allocated by a worker.
   if (j.passed) {
@@ -688,7 +776,13 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   retire_->Retire(std::move(j.estimated));
   retire_->Retire(std::move(j.candidate));
   retire_->Retire(std::move(j.prior));
+  retire_->Retire(std::move(j.estimate));
   retire_->HandOver();
+  if (j.buffer != nullptr) {
+    free_buffers_.push_back(j.buffer);
+    j.buffer = nullptr;
+  }
+  sym->inputs = JobInputs::kInBuffer;
   pool_->Recycle(slot);
   free_slots_.push_back(slot);
   sym->pending = -1;
@@ -717,6 +811,7 @@ RefitStats RefitCoordinator::stats() const {
   s.in_flight = counters_.in_flight.load(std::memory_order_relaxed);
   s.queued = pool_->queued() + deferred_count_.load(std::memory_order_relaxed);
   s.running = pool_->running();
+  s.job_buffers = buffer_count_.load(std::memory_order_relaxed);
   return s;
 }
 
@@ -764,12 +859,10 @@ struct SavedJob {
   uint32_t version = 0;
 };
 
-// Copies the inputs both a SavedJob and a job slot hold (the same names);
-// assign keeps a destination's reserved capacity.
+// Copies the inputs both a SavedJob and a job slot hold (the same names), the
+// window copy aside.
 template <typename From, typename To>
 void CopyJobInputs(const From& from, To* to) {
-  to->returns.assign(from.returns.begin(), from.returns.end());
-  to->tags.assign(from.tags.begin(), from.tags.end());
   to->prior = from.prior;
   to->in_force = from.in_force;
   to->estimated = from.estimated;
@@ -990,11 +1083,16 @@ void RefitCoordinator::CaptureSymbol(StateCapture* capture, uint32_t id) const {
   d.job.apply_bar = s.apply_bar;
   if (d.job.fit_index == j.fit_index) return;  // the same job as last time
   CopyJobInputs(j, &d.job);
-  if (s.uncopied) {
-    // Not copied yet: its window is the symbol's own, unchanged since the due
-    // point (OnBar and RecordSkipped hand the job over before they push).
+  if (s.inputs != JobInputs::kInBuffer) {
+    // Not copied yet, or finished with its buffer taken back: its window is
+    // the symbol's own, unchanged since the due point (OnBar and
+    // RecordSkipped copy it first when it is about to change).
     s.window.CopyTo(&d.job.returns);
     if (options_.seasonal) s.window.CopyTagsTo(&d.job.tags);
+  } else {
+    // assign keeps the capture's capacity from an earlier job.
+    d.job.returns.assign(j.buffer->returns.begin(), j.buffer->returns.end());
+    d.job.tags.assign(j.buffer->tags.begin(), j.buffer->tags.end());
   }
   c.AddCopied(sizeof(SavedJob) + d.job.returns.size() * sizeof(double) +
               d.job.tags.size() * sizeof(int32_t));
@@ -1171,12 +1269,18 @@ absl::Status RefitCoordinator::RestoreState(absl::string_view payload) {
     JobSlot& j = *jobs_[slot];
     j.symbol_id = p.id;
     j.symbol.assign(sym.name);
-    CopyJobInputs(p.job, &j);  // keeps the capacity reserved at construction
+    CopyJobInputs(p.job, &j);
+    ++j.generation;
+    // The saved inputs are the job's: in a buffer (the window may have moved
+    // on since the due point).
+    j.buffer = TakeBuffer();
+    j.buffer->returns.assign(p.job.returns.begin(), p.job.returns.end());  // capacity reserved
+    j.buffer->tags.assign(p.job.tags.begin(), p.job.tags.end());
     sym.pending = static_cast<int32_t>(slot);
     sym.apply_bar = p.job.apply_bar;
     // As in Submit (none of these changes while a job is pending).
     j.priority = !sym.last_estimated || sym.failures > 0 || sym.fallback;
-    sym.uncopied = false;  // the saved inputs are the job's
+    sym.inputs = JobInputs::kInBuffer;
     counters_.in_flight.fetch_add(1, std::memory_order_relaxed);
     j.submitted = std::chrono::steady_clock::now();
     pool_->Submit(slot, j.priority);

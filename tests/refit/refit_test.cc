@@ -15,6 +15,7 @@
 
 #include "aftershock/model_registry.h"
 #include "aftershock/simulate.h"
+#include "aftershock/state_codec.h"
 #include "support/alloc_counter.h"
 
 namespace aftershock {
@@ -628,6 +629,157 @@ TEST_CASE("live jobs wait for the gap or the next bar, with their due point's wi
   d.Bar(2, 301 * kBarNs, r[2][301]);
   REQUIRE(d.records.size() == 3);
   for (const auto& rec : d.records) CHECK(rec.scheduled_bar == 300);
+}
+
+// Waits until the workers hold no job; `deferred` jobs wait for their copy
+// (they count in stats().queued without being the pool's).
+void WaitWorkers(const RefitCoordinator& c, int deferred) {
+  while (c.stats().running + c.stats().queued > deferred) std::this_thread::yield();
+}
+
+// Symbols all due at their 300th return (270: more than the 256 job buffers
+// one worker gets).
+struct BufferPanel {
+  int symbols;
+  std::vector<std::vector<double>> r;
+  BufferPanel(int n, int bars) : symbols(n) {
+    const ModelParams p = Garch(0.0, 0.05, 0.08, 0.9);
+    for (int k = 0; k < n; ++k) r.push_back(Sim(p, bars, 500 + k));
+  }
+  RefitOptions Options() const {
+    RefitOptions o;
+    o.window = 400;
+    o.min_bars = 300;
+    o.every_bars = 1000;
+    o.jitter_fraction = 0;
+    o.workers = 1;
+    o.queue_capacity = symbols;
+    o.mode = RefitMode::kLive;
+    o.group_models = false;
+    return o;
+  }
+  void AddAll(Driver* d) const {
+    for (int k = 0; k < symbols; ++k) d->Add("SYM" + std::to_string(k), 1.0);
+  }
+  // Bars [from, to) of every symbol.
+  void Bars(Driver* d, int from, int to) const {
+    for (int t = from; t < to; ++t) {
+      for (int k = 0; k < symbols; ++k) d->Bar(static_cast<uint32_t>(k), t * kBarNs, r[k][t]);
+    }
+  }
+};
+
+TEST_CASE("live copies run a few buffers ahead of the workers; a finished job needs none",
+          "[refit]") {
+  const BufferPanel panel(270, 302);
+  auto inputs = std::make_unique<InputRefitter>();
+  InputRefitter* seen = inputs.get();
+  Driver d(panel.Options(), std::move(inputs));
+  d.defer_until_next_bar = true;  // SubmitDeferred only where called below
+  const int n = panel.symbols;
+  panel.AddAll(&d);
+  panel.Bars(&d, 0, 300);
+  RefitCoordinator& c = *d.coord;
+  CHECK(c.stats().job_buffers == 256);  // min(queue_capacity, 256 per worker)
+  CHECK(c.stats().queued == n);         // all due, none copied
+  // A gap copies only into free buffers: 256 of the 270.
+  CHECK(c.SubmitDeferred(1 << 20) == 256);
+  WaitWorkers(c, n - 256);
+  // The next gap takes the finished jobs' buffers back (their windows have
+  // not moved) and copies the rest.
+  CHECK(c.SubmitDeferred(1 << 20) == n - 256);
+  WaitWorkers(c, 0);
+  CHECK(c.SubmitDeferred(1 << 20) == 0);
+  CHECK(c.stats().job_buffers == 256);  // none allocated on the way
+  // Every job saw its due point's 300 returns.
+  const auto v = seen->seen();
+  REQUIRE(v.size() == static_cast<size_t>(n));
+  int wrong = 0;
+  for (const auto& x : v) {
+    const uint32_t k = x.symbol_id;  // ids are 0..n-1 in order
+    wrong += x.n != 300 || x.last != panel.r[k][299] || x.bar != 300;
+  }
+  CHECK(wrong == 0);
+  // Applied at the next bar, finished jobs with no buffer included.
+  panel.Bars(&d, 300, 301);
+  CHECK(d.records.size() == static_cast<size_t>(n));
+  CHECK(c.stats().in_flight == 0);
+  CHECK(c.stats().job_buffers == 256);
+}
+
+TEST_CASE("a symbol's next bar copies its waiting job even with no buffer free", "[refit]") {
+  const BufferPanel panel(270, 302);
+  Driver d(panel.Options(), DefaultRefitter());
+  d.defer_until_next_bar = true;
+  panel.AddAll(&d);
+  panel.Bars(&d, 0, 300);
+  RefitCoordinator& c = *d.coord;
+  CHECK(c.SubmitDeferred(1 << 20) == 256);  // every buffer in use, 14 jobs wait
+  // The last symbol's job waits; its next bar copies the window first, into
+  // a new buffer.
+  const uint32_t last = static_cast<uint32_t>(panel.symbols - 1);
+  d.Bar(last, 300 * kBarNs, panel.r[last][300]);
+  CHECK(c.stats().job_buffers == 257);
+  WaitWorkers(c, 13);
+  CHECK(c.SubmitDeferred(1 << 20) == 13);
+  WaitWorkers(c, 0);
+  // Every job reaches the stream with its due point's window.
+  panel.Bars(&d, 300, 302);
+  CHECK(d.records.size() == static_cast<size_t>(panel.symbols));
+  for (const auto& rec : d.records) CHECK(rec.scheduled_bar == 300);
+}
+
+TEST_CASE("jobs whose buffers were taken back checkpoint and restore as before", "[refit]") {
+  // A takes finished jobs' buffers back at every gap; B has no gap after the
+  // copies, so its jobs keep them. Their checkpoints must be the same bytes
+  // (the capture reads a taken-back job's inputs from the window), and C,
+  // restored from A's, must continue as B does. With apply_lag_bars = 2 the
+  // bar after the due point does not apply the jobs:
+  //   "finished, then a bar": A's windows still hold the inputs when the
+  //     buffers are taken back; the next bar must copy them back first;
+  //   "a bar, then finished": the windows moved before the jobs finished;
+  //     their buffers must not be taken back.
+  const bool bar_first = GENERATE(false, true);
+  INFO((bar_first ? "a bar, then finished" : "finished, then a bar"));
+  const BufferPanel panel(200, 340);
+  RefitOptions o = panel.Options();
+  o.apply_lag_bars = 2;
+  auto run_to_checkpoint = [&](Driver* d, bool gaps) {
+    d->defer_until_next_bar = true;
+    panel.AddAll(d);
+    panel.Bars(d, 0, 300);
+    REQUIRE(d->coord->SubmitDeferred(1 << 20) == panel.symbols);
+    if (bar_first) panel.Bars(d, 300, 301);
+    WaitWorkers(*d->coord, 0);
+    if (gaps) d->coord->SubmitDeferred(0);  // takes buffers back, copies nothing
+    if (!bar_first) panel.Bars(d, 300, 301);
+    if (gaps) d->coord->SubmitDeferred(0);
+    StateWriter w;
+    d->coord->SaveState(&w);
+    return w.data();
+  };
+  Driver a(o, DefaultRefitter());
+  Driver b(o, DefaultRefitter());
+  const std::string saved_a = run_to_checkpoint(&a, true);
+  const std::string saved_b = run_to_checkpoint(&b, false);
+  CHECK(a.records.empty());  // nothing applied yet: every job is in the checkpoints
+  // The pending jobs' windows are in it.
+  CHECK(saved_a.size() > static_cast<size_t>(panel.symbols) * 300 * sizeof(double));
+  CHECK(saved_a == saved_b);
+
+  Driver c(o, DefaultRefitter());
+  panel.AddAll(&c);
+  REQUIRE(c.coord->RestoreState(saved_a).ok());
+  WaitWorkers(*c.coord, 0);  // the restored jobs run again; done before their bar
+  c.states = b.states;       // the filter states are the core's, not the coordinator's
+  b.bytes.clear();
+  for (Driver* d : {&b, &c}) {
+    d->defer_until_next_bar = false;
+    panel.Bars(d, 301, 340);
+  }
+  CHECK(b.records.size() == static_cast<size_t>(panel.symbols));
+  CHECK(c.records.size() == b.records.size());
+  CHECK(c.bytes == b.bytes);
 }
 
 // Records the order in which jobs reach the refitter; holds them while `hold`.
