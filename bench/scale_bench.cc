@@ -33,6 +33,7 @@
 //     engine was built, over the instruments; the coordinator's own accounting;
 //   * refits applied per second of wall time.
 // Usage: scale_bench --help
+#include <malloc.h>
 #include <sys/timerfd.h>
 #include <unistd.h>
 
@@ -91,6 +92,16 @@ size_t RssBytes() {
   size_t pages = 0, resident = 0;
   f >> pages >> resident;
   return resident * static_cast<size_t>(sysconf(_SC_PAGESIZE));
+}
+
+// The heap as glibc's allocator sees it (all arenas): bytes allocated and
+// not freed, and bytes it holds from the system (in use or free).
+struct HeapBytes {
+  double in_use = 0, held = 0;
+};
+HeapBytes Heap() {
+  const struct mallinfo2 m = mallinfo2();
+  return {static_cast<double>(m.uordblks + m.hblkhd), static_cast<double>(m.arena + m.hblkhd)};
 }
 
 double LoadAverage() {
@@ -623,6 +634,8 @@ struct RunResult {
   double ready_p50 = 0, ready_p99 = 0, applied_p50 = 0, applied_p99 = 0, queue_p99 = 0;
   double wall_s = 0, job_cpu_s = 0, prefill_s = 0, cpu_s = 0, ingest_cpu_s = 0;
   double rss_per_symbol = 0, rss_end_per_symbol = 0;
+  // At the end: heap bytes in use, and held by the allocator (in use or free).
+  double heap_in_use_end_per_symbol = 0, heap_held_end_per_symbol = 0;
   double longest_burst_ms = 0, longest_burst_cpu_ms = 0;
   int64_t longest_burst_bars = 0;
   size_t engine_bytes_per_symbol = 0;
@@ -643,6 +656,7 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
   out->refits = refits;
   out->load_before = LoadAverage();
   const size_t rss0 = RssBytes();
+  const HeapBytes heap0 = Heap();
   auto config = ParseEngineConfig(ConfigToml(f, refits), "scale_bench");
   if (!config.ok()) {
     std::fprintf(stderr, "config: %s\n", std::string(config.status().message()).c_str());
@@ -785,6 +799,9 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
     return false;
   }
   out->rss_end_per_symbol = (static_cast<double>(RssBytes()) - static_cast<double>(rss0)) / n;
+  const HeapBytes heap1 = Heap();
+  out->heap_in_use_end_per_symbol = (heap1.in_use - heap0.in_use) / n;
+  out->heap_held_end_per_symbol = (heap1.held - heap0.held) / n;
   out->longest_burst_ms = closes.longest_burst_ms;
   out->longest_burst_bars = closes.longest_burst_bars;
   out->longest_burst_cpu_ms = closes.longest_burst_cpu_ms;
@@ -937,6 +954,10 @@ int main(int argc, char** argv) {
       load.rss_per_symbol / 1024);
   std::printf("| memory per symbol at the end (job slots in use) | %.1f KiB | ≤ 40 KiB |\n",
               load.rss_end_per_symbol / 1024);
+  std::printf(
+      "| heap per symbol at the end: in use / held by the allocator (glibc mallinfo2, all "
+      "arenas) | %.1f / %.1f KiB | |\n",
+      load.heap_in_use_end_per_symbol / 1024, load.heap_held_end_per_symbol / 1024);
   std::printf(
       "| longest bar-close burst on the ingest thread (bars closed with no message handled "
       "in between), with refits%s: "

@@ -277,7 +277,7 @@ struct SeasonalityConfig {
   // REQUIRES: bars.interval_ns > 0.
   static int64_t BarsPerSession(const BarsConfig& bars);
   // The estimator's options. REQUIRES: Active(bars).
-  SeasonalOptions ToOptions(const BarsConfig& bars, int max_horizon) const;
+  SeasonalOptions ToOptions(const BarsConfig& bars) const;
 };
 
 // [alerts]: alert rule thresholds (PRODUCT.md C7), one key per AlertOptions

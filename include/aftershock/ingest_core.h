@@ -260,8 +260,7 @@ class IngestCore : public TickConsumer {
   // the filter state is kept (profiles are normalized to mean s^2 = 1, so the
   // deseasonalized variance level stays comparable). Ignored (OK) while
   // seasonality is off. REQUIRES: 0 <= index < num_symbols(); the profile's
-  // buckets equal the bars per session and max_ahead covers the largest
-  // horizon (InvalidArgument otherwise).
+  // buckets equal the bars per session (InvalidArgument otherwise).
   absl::Status SetSeasonalProfile(int index, std::shared_ptr<const SeasonalProfile> profile);
   // The tag (seasonal_profile.h) of a closed bar with a return: its
   // session_bar, the session-start mark from `update_flags` (kFlagGap) and the

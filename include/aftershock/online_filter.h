@@ -26,6 +26,7 @@
 #include "aftershock/forecast.h"
 #include "aftershock/innovations.h"
 #include "aftershock/model_params.h"
+#include "aftershock/seasonal_profile.h"
 #include "aftershock/state_codec.h"
 
 namespace aftershock {
@@ -87,7 +88,7 @@ class FilterModel {
   friend void InitFilterState(const FilterModel&, double, FilterState*);
   friend void AdvanceState(const FilterModel&, FilterState*, double);
   friend void SeasonalizeUpdate(const FilterModel&, const FilterState&, double, double,
-                                const double*, BarUpdate*);
+                                const SeasonalAhead&, BarUpdate*);
   friend class FilterBank;  // copies the compiled coefficients (filter_bank.h)
 
   // Consumes r: shifts the lags, advances the variance and mean recursions and
@@ -155,11 +156,11 @@ void AdvanceState(const FilterModel& model, FilterState* state, double r);
 // var = s(k)^2 h (z unchanged, = eps / sqrt(var)), var_next = s(k+1)^2 h_next,
 // var_h = sum_{j=1..H} s(k+j)^2 E h_{T+j} (the h-step forecasts weighted by the
 // factors of the bars ahead), VaR/ES/vol_ann/scale from s(k+1)^2 h_next.
-// s2_now = s(k)^2; s2_ahead[j - 1] = s(k+j)^2 for j = 1..largest horizon
-// (SeasonalProfile::ahead). *state is the state after the step. Hot path: no
-// allocation; cost one multiply-add per bar of the largest horizon.
+// s2_now = s(k)^2; ahead.at(j - 1) = s(k+j)^2 (SeasonalProfile::ahead(k)).
+// *state is the state after the step. Hot path: no allocation; cost one
+// multiply-add per bar of the largest horizon.
 void SeasonalizeUpdate(const FilterModel& model, const FilterState& state, double r, double s2_now,
-                       const double* s2_ahead, BarUpdate* out);
+                       const SeasonalAhead& ahead, BarUpdate* out);
 
 // Offline run: InitFilterState(model, initial_variance) then FilterStep over
 // `returns`. Used by tests and replay tooling as the reference of the stream.

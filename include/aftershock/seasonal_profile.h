@@ -96,49 +96,71 @@ struct SeasonalOptions {
   int min_sessions = 3;
   // Weight of the prior (pooled) profile, in sessions; default 5.
   double prior_sessions = 5;
-  // Bars ahead the profile must serve (ahead(), at most the largest forecast
-  // horizon); default 512 (kMaxHorizonBars).
-  int max_ahead = 512;
 };
 
 // Checks the options. InvalidArgument naming the field otherwise.
 absl::Status ValidateSeasonalOptions(const SeasonalOptions& options);
 
-// A compiled profile: s(k)^2 and 1/s(k) per bucket, the overnight multiplier
-// (when estimated) and the cyclic look-ahead used by horizon sums. Immutable.
+// The variance factors s^2 of the bars after a bar, in session order: a view
+// into a profile's cycle of factors, valid while the profile lives. The
+// factor j + 1 bars ahead is cycle()[(start() + j) % period()]: past the
+// session's last bar the sequence wraps to the next session's bar 0, whose
+// factor is the overnight multiplier when the profile has one (its return
+// spans the night), else s(0)^2. Any number of bars ahead.
+class SeasonalAhead {
+ public:
+  SeasonalAhead(const double* cycle, int period, int start)
+      : cycle_(cycle), period_(period), start_(start) {}
+  // The factor j + 1 bars ahead. REQUIRES: j >= 0.
+  double at(int j) const { return cycle_[(start_ + j) % period_]; }
+  const double* cycle() const { return cycle_; }
+  int period() const { return period_; }
+  int start() const { return start_; }  // index of the next bar's factor
+
+ private:
+  const double* cycle_;
+  int period_;
+  int start_;
+};
+
+// A compiled profile: s(k)^2 and 1/s(k) per bucket and the overnight
+// multiplier (when estimated), in two tables of K doubles. Immutable.
 class SeasonalProfile {
  public:
   // factors: s(k)^2 for k = 0..K-1 (K = factors.size() in 2..kMaxSeasonalBuckets),
   // each finite and > 0; overnight_factor: the overnight return's variance
-  // multiplier, or 0 for none; sessions: history it rests on (information);
-  // max_ahead >= 1. InvalidArgument otherwise.
+  // multiplier, or 0 for none; sessions: history it rests on (information).
+  // InvalidArgument otherwise.
   static absl::StatusOr<SeasonalProfile> Create(std::vector<double> factors,
-                                                double overnight_factor, int sessions,
-                                                int max_ahead);
+                                                double overnight_factor, int sessions);
 
-  int buckets() const { return static_cast<int>(factor_.size()); }
+  int buckets() const { return static_cast<int>(cycle_.size()); }
   int sessions() const { return sessions_; }
   // s(k)^2, 1/s(k). REQUIRES: 0 <= k < buckets().
-  double factor(int k) const { return factor_[k]; }
+  double factor(int k) const { return k == 0 ? factor0_ : cycle_[k]; }
   double inv_scale(int k) const { return inv_scale_[k]; }
   bool has_overnight() const { return overnight_ > 0; }
   double overnight_factor() const { return overnight_; }  // 0 when none
-  // s^2 of the bars after bar k in session order: ahead(k)[j - 1] is the j-th
-  // bar after k, for j = 1..max_ahead. Past the session's last bar the
-  // sequence wraps to the next session's bar 0, whose factor is the overnight
-  // multiplier when the profile has one (its return spans the night), else s(0)^2.
-  // REQUIRES: 0 <= k < buckets().
-  const double* ahead(int k) const { return ahead_.data() + k + 1; }
-  int max_ahead() const { return max_ahead_; }
-  const std::vector<double>& factors() const { return factor_; }
+  // s^2 of the bars after bar k (SeasonalAhead). REQUIRES: 0 <= k < buckets().
+  SeasonalAhead ahead(int k) const {
+    return SeasonalAhead(cycle_.data(), buckets(), k + 1 == buckets() ? 0 : k + 1);
+  }
+  // s(k)^2 for k = 0..K-1 (a copy).
+  std::vector<double> factors() const;
 
  private:
-  std::vector<double> factor_;
+  // The factors in session order as bars follow each other: cycle_[k] =
+  // s(k)^2 for k >= 1, cycle_[0] = the overnight multiplier when there is one
+  // (the first bar of a session follows the night), else s(0)^2. One table
+  // serves factor() and every horizon of ahead() (it was three: the factors,
+  // and a look-ahead of K + largest horizon + 1 doubles, 16 KB a profile for
+  // 510 buckets and horizons to 512 bars; two profiles a symbol are alive
+  // while a refit waits to be applied).
+  std::vector<double> cycle_;
   std::vector<double> inv_scale_;
-  std::vector<double> ahead_;  // factor of position p, p mod K (overnight at 0), K + max_ahead + 1
+  double factor0_ = 0;  // s(0)^2
   double overnight_ = 0;
   int sessions_ = 0;
-  int max_ahead_ = 0;
 };
 
 using SeasonalProfilePtr = std::shared_ptr<const SeasonalProfile>;
@@ -204,7 +226,7 @@ double SeasonalLogScale(const SeasonalProfile* profile, int32_t tag);
 // multiplier and sessions; the derived tables are rebuilt by Create.
 void SaveSeasonalProfile(const SeasonalProfile* profile, StateWriter* w);
 // Reads what SaveSeasonalProfile wrote and rebuilds it with Create for
-// `options` (buckets must equal options.buckets; max_ahead from options).
+// `options` (buckets must equal options.buckets).
 // Anything invalid sets the reader's error naming `what`; the result is then
 // null. Check r->ok() after the record.
 SeasonalProfilePtr RestoreSeasonalProfile(StateReader* r, const SeasonalOptions& options,

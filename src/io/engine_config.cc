@@ -80,14 +80,13 @@ int64_t SeasonalityConfig::BarsPerSession(const BarsConfig& bars) {
   return (length + bars.interval_ns - 1) / bars.interval_ns;
 }
 
-SeasonalOptions SeasonalityConfig::ToOptions(const BarsConfig& bars, int max_horizon) const {
+SeasonalOptions SeasonalityConfig::ToOptions(const BarsConfig& bars) const {
   SeasonalOptions o;
   o.buckets = static_cast<int>(std::min<int64_t>(BarsPerSession(bars), kMaxSeasonalBuckets + 1));
   o.method = method;
   o.smoothing = smoothing;
   o.min_sessions = min_sessions;
   o.prior_sessions = prior_sessions;
-  o.max_ahead = std::max(1, max_horizon);
   return o;
 }
 
@@ -820,8 +819,7 @@ absl::Status ParseRefit(const Section& s, RefitConfig* c) {
   return absl::OkStatus();
 }
 
-absl::Status ParseSeasonality(const Section& s, const BarsConfig& bars, const OutputsConfig& out,
-                              SeasonalityConfig* c) {
+absl::Status ParseSeasonality(const Section& s, const BarsConfig& bars, SeasonalityConfig* c) {
   AS_RETURN_IF_ERROR(s.CheckKeys(
       {"enabled", "method", "min_sessions", "smoothing", "prior_sessions", "opening_return"}));
   if (const toml::node* n = s.Node("enabled"); n != nullptr) {
@@ -864,8 +862,7 @@ absl::Status ParseSeasonality(const Section& s, const BarsConfig& bars, const Ou
     }
   }
   if (c->Active(bars)) {
-    const int hmax = out.horizons.empty() ? 1 : out.horizons.back();
-    if (auto st = ValidateSeasonalOptions(c->ToOptions(bars, hmax)); !st.ok()) {
+    if (auto st = ValidateSeasonalOptions(c->ToOptions(bars)); !st.ok()) {
       return s.KeyError("smoothing", st.message());
     }
   }
@@ -1126,7 +1123,7 @@ absl::StatusOr<EngineConfig> ParseDocument(const toml::table& doc, const std::st
     AS_RETURN_IF_ERROR(s.Integer("max_symbols", &c.limits.max_symbols, 1, 100000000));
   }
   AS_RETURN_IF_ERROR(ParseRefit(section("refit"), &c.refit));
-  AS_RETURN_IF_ERROR(ParseSeasonality(section("seasonality"), c.bars, c.outputs, &c.seasonality));
+  AS_RETURN_IF_ERROR(ParseSeasonality(section("seasonality"), c.bars, &c.seasonality));
   AS_RETURN_IF_ERROR(ParseAlerts(&source, section("alerts"), &c.alerts, &c.alert_groups));
   AS_RETURN_IF_ERROR(ParseTracking(&source, section("tracking"), &c.tracking));
   AS_RETURN_IF_ERROR(ParseHttp(section("http"), &c.http));

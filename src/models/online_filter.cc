@@ -252,14 +252,16 @@ void FilterStep(const FilterModel& m, FilterState* state, double r, BarUpdate* o
 }
 
 void SeasonalizeUpdate(const FilterModel& m, const FilterState& state, double r, double s2_now,
-                       const double* s2_ahead, BarUpdate* out) {
+                       const SeasonalAhead& ahead, BarUpdate* out) {
   const double s_now = std::sqrt(s2_now);
   out->r = r;
   out->mu *= s_now;
   out->eps *= s_now;
   out->var *= s2_now;
   const double h_next = state.var.next_variance;
-  const double f_next = s2_ahead[0];
+  const double* cycle = ahead.cycle();
+  const int period = ahead.period();
+  const double f_next = cycle[ahead.start()];
   const double v_next = f_next * h_next;
   const double sd_next = std::sqrt(v_next);
   out->var_next = v_next;
@@ -281,8 +283,10 @@ void SeasonalizeUpdate(const FilterModel& m, const FilterState& state, double r,
     }
     double cum = 0;
     int next = 0;
+    int q = ahead.start();  // the cycle index of bar h ahead, h = 1 first
     for (int h = 1; h <= hmax && next < nh; ++h) {
-      cum += s2_ahead[h - 1] * path[h - 1];
+      cum += cycle[q] * path[h - 1];
+      if (++q == period) q = 0;
       while (next < nh && m.horizons_.horizon(next) == h) out->var_h[next++] = cum;
     }
   }

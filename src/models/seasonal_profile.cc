@@ -125,15 +125,11 @@ absl::Status ValidateSeasonalOptions(const SeasonalOptions& o) {
   if (!(o.prior_sessions >= 0) || !std::isfinite(o.prior_sessions)) {
     return absl::InvalidArgumentError("prior_sessions must be a finite number >= 0");
   }
-  if (o.max_ahead < 1 || o.max_ahead > 100000) {
-    return absl::InvalidArgumentError("max_ahead must be in 1..100000");
-  }
   return absl::OkStatus();
 }
 
 absl::StatusOr<SeasonalProfile> SeasonalProfile::Create(std::vector<double> factors,
-                                                        double overnight_factor, int sessions,
-                                                        int max_ahead) {
+                                                        double overnight_factor, int sessions) {
   const int k = static_cast<int>(factors.size());
   if (k < 2 || k > kMaxSeasonalBuckets) {
     return absl::InvalidArgumentError(
@@ -147,20 +143,21 @@ absl::StatusOr<SeasonalProfile> SeasonalProfile::Create(std::vector<double> fact
   if (!(overnight_factor >= 0) || !std::isfinite(overnight_factor)) {
     return absl::InvalidArgumentError("the overnight factor must be finite and >= 0");
   }
-  if (max_ahead < 1) return absl::InvalidArgumentError("max_ahead must be >= 1");
   SeasonalProfile p;
-  p.factor_ = std::move(factors);
   p.inv_scale_.resize(k);
-  for (int i = 0; i < k; ++i) p.inv_scale_[i] = 1.0 / std::sqrt(p.factor_[i]);
+  for (int i = 0; i < k; ++i) p.inv_scale_[i] = 1.0 / std::sqrt(factors[i]);
+  p.factor0_ = factors[0];
   p.overnight_ = overnight_factor;
   p.sessions_ = sessions;
-  p.max_ahead_ = max_ahead;
-  p.ahead_.resize(static_cast<size_t>(k + max_ahead + 1));
-  for (size_t i = 0; i < p.ahead_.size(); ++i) {
-    const int q = static_cast<int>(i % static_cast<size_t>(k));
-    p.ahead_[i] = q == 0 && p.overnight_ > 0 ? p.overnight_ : p.factor_[q];
-  }
+  p.cycle_ = std::move(factors);
+  if (p.overnight_ > 0) p.cycle_[0] = p.overnight_;
   return p;
+}
+
+std::vector<double> SeasonalProfile::factors() const {
+  std::vector<double> f = cycle_;
+  f[0] = factor0_;
+  return f;
 }
 
 absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double> returns,
@@ -305,7 +302,7 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
   } else {
     return est;
   }
-  auto prof = SeasonalProfile::Create(std::move(f), on, est.sessions, o.max_ahead);
+  auto prof = SeasonalProfile::Create(std::move(f), on, est.sessions);
   if (!prof.ok()) return prof.status();
   est.profile = std::make_shared<const SeasonalProfile>(*std::move(prof));
   return est;
@@ -343,7 +340,7 @@ SeasonalProfilePtr SeasonalPool::Snapshot(uint64_t refresh_adds) {
   for (size_t k = 0; k < f.size(); ++k) f[k] = sum_[k] / weight_;
   const double div = Normalize(&f, nullptr);
   const double on = overnight_weight_ > 0 ? overnight_sum_ / overnight_weight_ / div : 0.0;
-  auto p = SeasonalProfile::Create(std::move(f), on, 0, options_.max_ahead);
+  auto p = SeasonalProfile::Create(std::move(f), on, 0);
   snapshot_ = p.ok() ? std::make_shared<const SeasonalProfile>(*std::move(p)) : nullptr;
   return snapshot_;
 }
@@ -390,7 +387,7 @@ void SaveSeasonalProfile(const SeasonalProfile* p, StateWriter* w) {
   w->Bool(p != nullptr);
   if (p == nullptr) return;
   w->U64(static_cast<uint64_t>(p->buckets()));
-  for (double v : p->factors()) w->F64(v);
+  for (int k = 0; k < p->buckets(); ++k) w->F64(p->factor(k));
   w->F64(p->overnight_factor());
   w->I32(p->sessions());
 }
@@ -410,7 +407,7 @@ SeasonalProfilePtr RestoreSeasonalProfile(StateReader* r, const SeasonalOptions&
   const double overnight = r->F64(what);
   const int32_t sessions = r->I32(what);
   if (!r->ok()) return nullptr;
-  auto p = SeasonalProfile::Create(std::move(f), overnight, sessions, options.max_ahead);
+  auto p = SeasonalProfile::Create(std::move(f), overnight, sessions);
   if (!p.ok()) {
     r->Fail(what, p.status().message());
     return nullptr;

@@ -595,6 +595,10 @@ void RefitCoordinator::Process(uint32_t slot) {
     auto est = EstimateSeasonalProfile(returns, tags, options_.seasonal_options, j.prior.get());
     if (est.ok()) {
       profile = est->profile;
+      // Kept until applied, for the pool (SeasonalPool::Add reads own,
+      // own_overnight and sessions): the bucket counts go now (2 KB for 510
+      // buckets, per job awaiting its bar).
+      std::vector<int>().swap(est->counts);
       j.estimate = std::make_shared<const SeasonalEstimate>(*std::move(est));
     }
     SeasonalSeries(profile.get(), returns, tags, &x);
@@ -820,15 +824,12 @@ size_t RefitCoordinator::MemoryBytesPerSymbol() const {
   // (at most 2 * 32 doubles for the largest spec in practice), and the
   // shared_ptr control block.
   const size_t version = sizeof(ModelVersion) + 2 * 32 * sizeof(double) + 32;
-  // Seasonal: the window's tags and one profile (about 3 doubles a bucket plus
-  // the look-ahead).
-  const size_t seasonal = options_.seasonal
-                              ? static_cast<size_t>(options_.window) * sizeof(int32_t) +
-                                    sizeof(SeasonalProfile) +
-                                    static_cast<size_t>(3 * options_.seasonal_options.buckets +
-                                                        options_.seasonal_options.max_ahead + 1) *
-                                        sizeof(double)
-                              : 0;
+  // Seasonal: the window's tags and one profile (2 doubles a bucket).
+  const size_t seasonal =
+      options_.seasonal
+          ? static_cast<size_t>(options_.window) * sizeof(int32_t) + sizeof(SeasonalProfile) +
+                static_cast<size_t>(2 * options_.seasonal_options.buckets) * sizeof(double)
+          : 0;
   return sizeof(SymbolSlot) + static_cast<size_t>(options_.window) * sizeof(double) + version +
          seasonal +
          // hash-map entry: key string, id and control byte

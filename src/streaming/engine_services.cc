@@ -39,8 +39,7 @@ RefitOptions ToRefitOptions(const EngineConfig& config, const ServiceOptions& so
   o.group_models = c.group_models && !config.model.has_params;
   if (config.SeasonalityActive()) {
     o.seasonal = true;
-    const std::vector<int>& hz = config.outputs.horizons;
-    o.seasonal_options = config.seasonality.ToOptions(config.bars, hz.empty() ? 1 : hz.back());
+    o.seasonal_options = config.seasonality.ToOptions(config.bars);
   }
   return o;
 }

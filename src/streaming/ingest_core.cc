@@ -72,10 +72,7 @@ IngestCore::IngestCore(const EngineConfig& config, UpdateSink* sink, Clock* cloc
   encode_binary_ = config.publish.encoding == WireEncoding::kBinary;
   seasonal_ = config.SeasonalityActive();
   opening_scaled_ = seasonal_ && config.seasonality.opening_return == OpeningReturn::kScaled;
-  if (seasonal_) {
-    const std::vector<int>& hz = config.outputs.horizons;
-    seasonal_options_ = config.seasonality.ToOptions(config.bars, hz.empty() ? 1 : hz.back());
-  }
+  if (seasonal_) seasonal_options_ = config.seasonality.ToOptions(config.bars);
   const int64_t reserve = std::min<int64_t>(config.limits.max_symbols, kMaxReservedSlots);
   slots_.reserve(static_cast<size_t>(reserve));
   arrivals_.reserve(static_cast<size_t>(reserve));
@@ -540,12 +537,10 @@ absl::Status IngestCore::SetSeasonalProfile(int index, std::shared_ptr<const Sea
         absl::StrCat("SetSeasonalProfile: no symbol with index ", index));
   }
   if (!seasonal_) return absl::OkStatus();
-  if (p != nullptr &&
-      (p->buckets() != seasonal_options_.buckets || p->max_ahead() < seasonal_options_.max_ahead)) {
-    return absl::InvalidArgumentError(
-        absl::StrCat("SetSeasonalProfile: the profile has ", p->buckets(), " buckets and ",
-                     p->max_ahead(), " bars ahead; the session needs ", seasonal_options_.buckets,
-                     " and ", seasonal_options_.max_ahead));
+  if (p != nullptr && p->buckets() != seasonal_options_.buckets) {
+    return absl::InvalidArgumentError(absl::StrCat("SetSeasonalProfile: the profile has ",
+                                                   p->buckets(), " buckets; the session needs ",
+                                                   seasonal_options_.buckets));
   }
   slots_[index].profile = std::move(p);
   return absl::OkStatus();
@@ -563,7 +558,7 @@ absl::Status IngestCore::SwapModel(int index, const ModelSwap& swap, ReplacedMod
   }
   const SeasonalProfile* p = swap.profile.get();
   if (swap.replace_profile && seasonal_ && p != nullptr &&
-      (p->buckets() != seasonal_options_.buckets || p->max_ahead() < seasonal_options_.max_ahead)) {
+      p->buckets() != seasonal_options_.buckets) {
     return absl::InvalidArgumentError("SwapModel: the profile does not fit the session");
   }
   Slot& slot = slots_[index];

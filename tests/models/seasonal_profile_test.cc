@@ -80,21 +80,24 @@ double RmsRelError(const std::vector<double>& est, const std::vector<double>& tr
 }
 
 TEST_CASE("profile look-ahead wraps to the next session", "[seasonal]") {
-  auto p = SeasonalProfile::Create({2.0, 1.0, 0.5, 0.5}, 0.0, 3, 6);
+  auto p = SeasonalProfile::Create({2.0, 1.0, 0.5, 0.5}, 0.0, 3);
   REQUIRE(p.ok());
   CHECK(p->factor(2) == 0.5);
   CHECK(p->inv_scale(0) == Approx(1 / std::sqrt(2.0)));
   // After bar 2: bar 3, then bar 0 of the next session (s(0)^2 without an
-  // overnight multiplier), 1, 2, 3, 0.
-  const double* a = p->ahead(2);
-  const double expect[] = {0.5, 2.0, 1.0, 0.5, 0.5, 2.0};
-  for (int j = 0; j < 6; ++j) CHECK(a[j] == expect[j]);
-  auto q = SeasonalProfile::Create({2.0, 1.0, 0.5, 0.5}, 7.0, 3, 2);
+  // overnight multiplier), 1, 2, 3, 0, and on, any number of bars ahead.
+  const SeasonalAhead a = p->ahead(2);
+  const double expect[] = {0.5, 2.0, 1.0, 0.5, 0.5, 2.0, 1.0, 0.5, 0.5, 2.0};
+  for (int j = 0; j < 10; ++j) CHECK(a.at(j) == expect[j]);
+  auto q = SeasonalProfile::Create({2.0, 1.0, 0.5, 0.5}, 7.0, 3);
   REQUIRE(q.ok());
-  CHECK(q->ahead(3)[0] == 7.0);  // the opening return's multiplier
-  CHECK(!SeasonalProfile::Create({1.0}, 0, 1, 1).ok());
-  CHECK(!SeasonalProfile::Create({1.0, -1.0}, 0, 1, 1).ok());
-  CHECK(!SeasonalProfile::Create({1.0, 1.0}, 0, 1, 0).ok());
+  CHECK(q->ahead(3).at(0) == 7.0);  // the opening return's multiplier
+  CHECK(q->ahead(3).at(4) == 7.0);  // and the next night's
+  CHECK(q->ahead(0).at(3) == 7.0);
+  CHECK(q->factor(0) == 2.0);  // the bar's own factor is not the night's
+  CHECK(q->factors() == std::vector<double>{2.0, 1.0, 0.5, 0.5});
+  CHECK(!SeasonalProfile::Create({1.0}, 0, 1).ok());
+  CHECK(!SeasonalProfile::Create({1.0, -1.0}, 0, 1).ok());
 }
 
 TEST_CASE("options are validated", "[seasonal]") {
@@ -131,7 +134,6 @@ TEST_CASE("a U-shaped profile is recovered", "[seasonal]") {
     SeasonalOptions o;
     o.buckets = K;
     o.method = m;
-    o.max_ahead = 20;
     auto est = EstimateSeasonalProfile(s.r, s.tags, o, nullptr);
     REQUIRE(est.ok());
     REQUIRE(est->profile != nullptr);
@@ -228,7 +230,7 @@ TEST_CASE("a short history is shrunk toward the prior", "[seasonal]") {
   const int K = 100;
   const std::vector<double> truth = TrueProfile(K, 3.0);
   std::vector<double> flat(K, 1.0);
-  auto prior = SeasonalProfile::Create(flat, 0, 0, 20);
+  auto prior = SeasonalProfile::Create(flat, 0, 0);
   REQUIRE(prior.ok());
   SeasonalOptions o;
   o.buckets = K;
@@ -271,7 +273,7 @@ TEST_CASE("a short history is shrunk toward the prior", "[seasonal]") {
 // model (GARCH(1,1)) and a higher-order one (GARCH(2,1)).
 TEST_CASE("SeasonalizeUpdate weights the h-step forecasts by the factors ahead", "[seasonal]") {
   const std::vector<double> f = {2.0, 1.2, 0.6, 0.5, 0.7, 1.4};
-  auto prof = SeasonalProfile::Create(f, 4.0, 5, 20);
+  auto prof = SeasonalProfile::Create(f, 4.0, 5);
   REQUIRE(prof.ok());
   OutputOptions out;
   out.horizons = {1, 5, 20};
@@ -301,13 +303,13 @@ TEST_CASE("SeasonalizeUpdate weights the h-step forecasts by the factors ahead",
     CHECK(u.eps / std::sqrt(u.var) == Approx(z).epsilon(1e-12));
     const std::vector<double> path = ForecastVariances(p, st.var, 20);
     // Bars after k = 4: 5, then the next session's bar 0 (overnight 4.0), 1, 2, ...
-    const double* a = prof->ahead(k);
-    CHECK(a[0] == 1.4);
-    CHECK(a[1] == 4.0);
+    const SeasonalAhead a = prof->ahead(k);
+    CHECK(a.at(0) == 1.4);
+    CHECK(a.at(1) == 4.0);
     CHECK(u.var_next == Approx(1.4 * st.var.next_variance).epsilon(1e-12));
     for (int i = 0; i < 3; ++i) {
       double want = 0;
-      for (int j = 0; j < u.horizons[i]; ++j) want += a[j] * path[j];
+      for (int j = 0; j < u.horizons[i]; ++j) want += a.at(j) * path[j];
       CHECK(u.var_h[i] == Approx(want).epsilon(1e-10));
     }
     const double sd_next = std::sqrt(u.var_next);
@@ -348,7 +350,6 @@ TEST_CASE(
     "[seasonal]") {
   SeasonalOptions o;
   o.buckets = 17;
-  o.max_ahead = 20;
   std::mt19937_64 rng(11);
   SeasonalPool pool(o);
   CHECK(pool.Snapshot(4) == nullptr);  // nothing added yet

@@ -233,13 +233,12 @@ TEST_CASE("restored values are validated, the error names the symbol and field",
           std::string::npos);
   }
   SECTION("a profile of another session length") {
-    auto prof = SeasonalProfile::Create(std::vector<double>(90, 1.0), 0, 3, 20);
+    auto prof = SeasonalProfile::Create(std::vector<double>(90, 1.0), 0, 3);
     REQUIRE(prof.ok());
     StateWriter w;
     SaveSeasonalProfile(&*prof, &w);
     SeasonalOptions o;
     o.buckets = 120;
-    o.max_ahead = 20;
     StateReader r(w.data());
     CHECK(RestoreSeasonalProfile(&r, o, "symbol KESTREL.C profile") == nullptr);
     REQUIRE(!r.ok());
