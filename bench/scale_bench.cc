@@ -59,6 +59,7 @@
 #include "aftershock/ingest_core.h"
 #include "aftershock/model_spec.h"
 #include "aftershock/model_store.h"
+#include "aftershock/refit.h"
 #include "aftershock/tick_source.h"
 #include "aftershock/update_sink.h"
 #include "aftershock/wire.h"
@@ -882,6 +883,12 @@ int main(int argc, char** argv) {
       "%llu / %llu of %llu | 0 |\n",
       static_cast<unsigned long long>(s.dropped), static_cast<unsigned long long>(s.coalesced),
       static_cast<unsigned long long>(s.due));
+  std::printf(
+      "| job buffers (window copies) at the end / made at start (more are made while symbols' "
+      "next bars find their jobs waiting for a copy and none free, and freed when back) | "
+      "%d / %d | |\n",
+      s.job_buffers,
+      std::min(f.queue_capacity, RefitCoordinator::kJobBuffersPerWorker * f.workers));
   std::printf(
       "| share of refits that met their minute (ready before the next bar closed) | "
       "%.1f %% of the due points | 100 %% |\n",

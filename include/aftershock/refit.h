@@ -26,7 +26,8 @@
 // the one copied: until it is applied, the window is the job's inputs, as it
 // was before the copy. A job still waiting for its copy, or holding it in the
 // window, when its symbol's window is about to change gets a buffer first
-// (a new one when none is free: allocated on the ingest thread, then kept).
+// (a new one when none is free, allocated on the ingest thread; a buffer that
+// comes back while more than the base number exist is freed there).
 // So slots cost a few hundred bytes each and buffers 8 * window bytes (12
 // with seasonality) each, however many slots there are.
 // The next bar then uses the (possibly new) model(id).
@@ -162,7 +163,7 @@ struct RefitStats {
   int in_flight = 0;          // jobs holding a slot (queued, running or awaiting apply)
   int queued = 0;             // jobs not yet picked up by a worker
   int running = 0;            // jobs a worker is running
-  int job_buffers = 0;        // job buffers allocated (see "Job buffers"): only grows
+  int job_buffers = 0;        // job buffers that exist now (see "Job buffers")
 };
 
 // What OnBar did.
@@ -178,10 +179,13 @@ struct RefitBarResult {
 
 class RefitCoordinator {
  public:
+  // Job buffers Create makes per worker (see "Job buffers").
+  static constexpr int kJobBuffersPerWorker = 256;
   // InvalidArgument for bad options (Validate's message), bad output options
   // or a null refitter. Starts options.workers threads and preallocates
-  // queue_capacity job slots and min(queue_capacity, 256 * workers) job
-  // buffers of `window` doubles (and tags) each (see "Job buffers").
+  // queue_capacity job slots and min(queue_capacity, kJobBuffersPerWorker *
+  // workers) job buffers of `window` doubles (and tags) each (see "Job
+  // buffers").
   static absl::StatusOr<std::unique_ptr<RefitCoordinator>> Create(
       const RefitOptions& options, const OutputOptions& outputs,
       std::unique_ptr<Refitter> refitter);
@@ -375,10 +379,13 @@ class RefitCoordinator {
   // then).
   void SubmitBeforePush(SymbolSlot* sym, bool applies_next);
   // A free job buffer; a new one (NewBuffer) when none is.
-  JobBuffer* TakeBuffer();
+  std::unique_ptr<JobBuffer> TakeBuffer();
   // Allocates a job buffer, touching its pages (so that a first copy into it
-  // takes no page faults), and keeps it in buffers_.
-  JobBuffer* NewBuffer();
+  // takes no page faults).
+  std::unique_ptr<JobBuffer> NewBuffer();
+  // Keeps a buffer no job needs any more among the free ones, or frees it
+  // when more than base_buffers_ exist.
+  void ReleaseBuffer(std::unique_ptr<JobBuffer> b);
   // Takes back the buffers of finished jobs whose windows are unchanged, in
   // the order they were handed out (stops at the first unfinished one).
   void ReclaimBuffers();
@@ -393,6 +400,9 @@ class RefitCoordinator {
   const RefitScheduler scheduler_;
   const std::unique_ptr<Refitter> refitter_;  // called from workers only
   const ModelVersionPtr ewma_;                // version 0, shared
+  // Job buffers made at start and kept free at most: min(queue_capacity,
+  // kJobBuffersPerWorker * workers).
+  const int base_buffers_;
 
   // ---- ingest thread only ----
   SeasonalPool seasonal_pool_;  // pooled prior of the profiles (options.seasonal)
@@ -400,10 +410,8 @@ class RefitCoordinator {
   std::vector<GroupState> groups_;  // indexed by AddSymbol's group
   absl::flat_hash_map<std::string, uint32_t> index_;
   std::vector<uint32_t> free_slots_;  // free job slots (capacity preallocated)
-  // Job buffers: all of them (stable addresses, handed to slots), and the free
-  // ones.
-  std::vector<std::unique_ptr<JobBuffer>> buffers_;
-  std::vector<JobBuffer*> free_buffers_;
+  // The free job buffers (the others belong to jobs), at most base_buffers_.
+  std::vector<std::unique_ptr<JobBuffer>> free_buffers_;
   // The slots given a buffer by CopyAndSubmit, in that order, with the slot's
   // generation then (a slot reused since is skipped): where ReclaimBuffers
   // looks. A ring of queue_capacity entries; full, its oldest is dropped (that
@@ -430,7 +438,8 @@ class RefitCoordinator {
   // Jobs not yet handed to the workers (live mode), counted in stats().queued.
   // Written by the ingest thread, read anywhere (relaxed).
   std::atomic<int> deferred_count_{0};
-  // buffers_.size(), for stats(). Written by the ingest thread (relaxed).
+  // Job buffers that exist (free or a job's), for stats(). Written by the
+  // ingest thread (relaxed).
   std::atomic<int> buffer_count_{0};
   Counters counters_;
 

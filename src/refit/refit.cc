@@ -28,7 +28,7 @@ struct RefitCoordinator::JobSlot {
   // ---- input ----
   uint32_t symbol_id = 0;
   std::string symbol;           // capacity reserved for kMaxSymbolLength
-  JobBuffer* buffer = nullptr;  // the window copy, from the hand-off (see JobInputs)
+  std::unique_ptr<JobBuffer> buffer;  // the window copy, from the hand-off (see JobInputs)
   uint32_t generation = 0;      // jobs this slot has taken (ReclaimBuffers)
   SeasonalProfilePtr prior;     // seasonal: the pool's snapshot (may be null)
   ModelVersionPtr in_force;     // scored on the holdout
@@ -58,9 +58,6 @@ namespace {
 // Rebuilds of the pooled seasonal prior a universe-wide close makes at most
 // (Submit; SeasonalPool::Snapshot).
 constexpr uint64_t kPriorRebuildsPerSweep = 64;
-
-// Job buffers made by Create per worker (see refit.h, "Job buffers").
-constexpr int kJobBuffersPerWorker = 256;
 
 double MeanSquare(absl::Span<const double> x) {
   if (x.empty()) return 0;
@@ -174,6 +171,7 @@ RefitCoordinator::RefitCoordinator(const RefitOptions& options, const OutputOpti
       scheduler_(options),
       refitter_(std::move(refitter)),
       ewma_(std::move(ewma)),
+      base_buffers_(std::min(options.queue_capacity, kJobBuffersPerWorker * options.workers)),
       seasonal_pool_(options.seasonal_options) {
   const int cap = options_.queue_capacity;
   jobs_.reserve(static_cast<size_t>(cap));
@@ -187,10 +185,8 @@ RefitCoordinator::RefitCoordinator(const RefitOptions& options, const OutputOpti
   // The buffers the copies may run ahead of the workers by: a quiet feed's
   // clock tick (at most 100 ms apart) copies up to 256 (EngineServices), about
   // what one worker runs in that time.
-  const int buffers = std::min(cap, kJobBuffersPerWorker * options_.workers);
-  buffers_.reserve(static_cast<size_t>(buffers));
-  free_buffers_.reserve(static_cast<size_t>(buffers));
-  for (int i = 0; i < buffers; ++i) free_buffers_.push_back(NewBuffer());
+  free_buffers_.reserve(static_cast<size_t>(base_buffers_));
+  for (int i = 0; i < base_buffers_; ++i) free_buffers_.push_back(NewBuffer());
   deferred_next_.assign(static_cast<size_t>(cap), -1);
   deferred_prev_.assign(static_cast<size_t>(cap), -1);
   // Slot 0 is handed out first.
@@ -467,7 +463,7 @@ void RefitCoordinator::CopyAndSubmit(SymbolSlot* sym, uint32_t slot) {
   pool_->Submit(slot, j.priority);
 }
 
-RefitCoordinator::JobBuffer* RefitCoordinator::NewBuffer() {
+std::unique_ptr<RefitCoordinator::JobBuffer> RefitCoordinator::NewBuffer() {
   auto b = std::make_unique<JobBuffer>();
   // Written once (resize, then clear: the capacity stays) so that the pages
   // are resident before the first copy: otherwise a first copy takes its page
@@ -480,16 +476,31 @@ RefitCoordinator::JobBuffer* RefitCoordinator::NewBuffer() {
     b->tags.resize(static_cast<size_t>(options_.window));
     b->tags.clear();
   }
-  buffers_.push_back(std::move(b));
-  buffer_count_.store(static_cast<int>(buffers_.size()), std::memory_order_relaxed);
-  return buffers_.back().get();
+  buffer_count_.store(buffer_count_.load(std::memory_order_relaxed) + 1, std::memory_order_relaxed);
+  return b;
 }
 
-RefitCoordinator::JobBuffer* RefitCoordinator::TakeBuffer() {
+std::unique_ptr<RefitCoordinator::JobBuffer> RefitCoordinator::TakeBuffer() {
   if (free_buffers_.empty()) return NewBuffer();
-  JobBuffer* b = free_buffers_.back();
+  std::unique_ptr<JobBuffer> b = std::move(free_buffers_.back());
   free_buffers_.pop_back();
   return b;
+}
+
+void RefitCoordinator::ReleaseBuffer(std::unique_ptr<JobBuffer> b) {
+  const int count = buffer_count_.load(std::memory_order_relaxed);
+  if (count <= base_buffers_) {
+    free_buffers_.push_back(std::move(b));  // capacity reserved: no allocation
+    return;
+  }
+  // More exist than the base (made by NewBuffer on this thread, so freed into
+  // its own arena): a burst of forced copies (a universe whose next bars came
+  // before its jobs were copied) does not keep a buffer per symbol for good.
+  // (Freeing only when base_buffers_ were free already kept them: the gaps
+  // take free buffers as fast as they come back, so the free list is rarely
+  // full while jobs wait.)
+  b.reset();
+  buffer_count_.store(buffer_count_.load(std::memory_order_relaxed) - 1, std::memory_order_relaxed);
 }
 
 void RefitCoordinator::ReclaimBuffers() {
@@ -506,8 +517,7 @@ void RefitCoordinator::ReclaimBuffers() {
       if (sym.pending == static_cast<int32_t>(slot) && sym.window.total() == j.bar) {
         // The window is still the copy's: it holds the inputs until the job is
         // applied or the window is about to change (SubmitBeforePush).
-        free_buffers_.push_back(j.buffer);
-        j.buffer = nullptr;
+        ReleaseBuffer(std::move(j.buffer));
         sym.inputs = JobInputs::kInWindow;
       }
     }
@@ -782,10 +792,7 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   retire_->Retire(std::move(j.prior));
   retire_->Retire(std::move(j.estimate));
   retire_->HandOver();
-  if (j.buffer != nullptr) {
-    free_buffers_.push_back(j.buffer);
-    j.buffer = nullptr;
-  }
+  if (j.buffer != nullptr) ReleaseBuffer(std::move(j.buffer));
   sym->inputs = JobInputs::kInBuffer;
   pool_->Recycle(slot);
   free_slots_.push_back(slot);

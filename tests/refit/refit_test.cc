@@ -727,6 +727,8 @@ TEST_CASE("a symbol's next bar copies its waiting job even with no buffer free",
   panel.Bars(&d, 300, 302);
   CHECK(d.records.size() == static_cast<size_t>(panel.symbols));
   for (const auto& rec : d.records) CHECK(rec.scheduled_bar == 300);
+  // Back to the 256: the one made beyond them is freed when it comes back.
+  CHECK(c.stats().job_buffers == 256);
 }
 
 TEST_CASE("jobs whose buffers were taken back checkpoint and restore as before", "[refit]") {
