@@ -378,6 +378,9 @@ class RefitCoordinator {
   // `applies_next` (OnBar: the job applies right after the push when due by
   // then).
   void SubmitBeforePush(SymbolSlot* sym, bool applies_next);
+  // Copies the symbol's window (unchanged since its pending job's due point)
+  // into a buffer for that job, j.
+  void CopyInputs(SymbolSlot* sym, JobSlot* j);
   // A free job buffer; a new one (NewBuffer) when none is.
   std::unique_ptr<JobBuffer> TakeBuffer();
   // Allocates a job buffer, touching its pages (so that a first copy into it

@@ -445,10 +445,7 @@ void RefitCoordinator::Submit(uint32_t id, SymbolSlot* sym) {
 
 void RefitCoordinator::CopyAndSubmit(SymbolSlot* sym, uint32_t slot) {
   JobSlot& j = *jobs_[slot];
-  j.buffer = TakeBuffer();
-  sym->window.CopyTo(&j.buffer->returns);  // capacity reserved: no allocation
-  if (options_.seasonal) sym->window.CopyTagsTo(&j.buffer->tags);
-  sym->inputs = JobInputs::kInBuffer;
+  CopyInputs(sym, &j);
   // Where ReclaimBuffers looks; a full ring forgets its oldest entry (that
   // job keeps its buffer until it is applied).
   const size_t cap = handed_.size();
@@ -554,10 +551,13 @@ void RefitCoordinator::SubmitBeforePush(SymbolSlot* sym, bool applies_next) {
   // it is due by then, and nothing reads its inputs after that; otherwise
   // they go back into a buffer before the window moves.
   if (applies_next && sym->window.total() + 1 >= sym->apply_bar) return;
-  JobSlot& j = *jobs_[slot];
-  j.buffer = TakeBuffer();
-  sym->window.CopyTo(&j.buffer->returns);
-  if (options_.seasonal) sym->window.CopyTagsTo(&j.buffer->tags);
+  CopyInputs(sym, jobs_[slot].get());
+}
+
+void RefitCoordinator::CopyInputs(SymbolSlot* sym, JobSlot* j) {
+  j->buffer = TakeBuffer();
+  sym->window.CopyTo(&j->buffer->returns);  // capacity reserved: no allocation
+  if (options_.seasonal) sym->window.CopyTagsTo(&j->buffer->tags);
   sym->inputs = JobInputs::kInBuffer;
 }
 
