@@ -84,7 +84,8 @@
 // whatever their profiles) and runs the swap tail on the same series. The
 // profile travels in the ModelVersion and is swapped with it; the catch-up
 // over the returns since the job applies SeasonalInput with it too. Each
-// applied job's own estimate is added to the pool (ingest thread).
+// applied job's own estimate (its factors in single precision,
+// SeasonalContribution) is added to the pool (ingest thread).
 //
 // Versions: immutable ModelVersion objects shared by std::shared_ptr<const>;
 // version 0 is the EWMA warm-up/fallback model (shared by all symbols);
@@ -409,6 +410,7 @@ class RefitCoordinator {
 
   // ---- ingest thread only ----
   SeasonalPool seasonal_pool_;  // pooled prior of the profiles (options.seasonal)
+  std::vector<double> inv_scales_;  // scratch: a profile's 1/s(k) (MaybeAdoptGroupModel)
   std::vector<SymbolSlot> symbols_;
   std::vector<GroupState> groups_;  // indexed by AddSymbol's group
   absl::flat_hash_map<std::string, uint32_t> index_;

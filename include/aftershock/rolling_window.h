@@ -1,7 +1,8 @@
 // RollingWindow: fixed-capacity ring buffer of a symbol's most recent
-// closed-bar returns (PRODUCT.md C5), optionally each with an int32 tag (the
-// bar-of-session tag of seasonal_profile.h). All storage is allocated by
-// Create; Push never allocates.
+// closed-bar returns (PRODUCT.md C5), optionally each with a bar-of-session
+// tag (seasonal_profile.h), read and written as int32 and held in 16 bits
+// (CompactSeasonalTag). All storage is allocated by Create; Push never
+// allocates.
 //
 // Thread-safety: not thread-safe; owned by the ingest thread. Copies taken with
 // CopyTo are independent of the window.
@@ -13,6 +14,7 @@
 
 #include "absl/status/statusor.h"
 #include "absl/strings/string_view.h"
+#include "aftershock/seasonal_profile.h"
 #include "aftershock/state_codec.h"
 
 namespace aftershock {
@@ -22,13 +24,14 @@ class RollingWindow {
   RollingWindow() = default;  // capacity 0: REQUIRES Create before use
 
   // InvalidArgument unless capacity >= 1. Cost: capacity doubles (and
-  // capacity int32 tags when with_tags).
+  // capacity 16-bit tags when with_tags).
   static absl::StatusOr<RollingWindow> Create(int capacity, bool with_tags = false);
 
-  // Appends r (and its tag, kept only when the window has tags), overwriting
-  // the oldest return once full. No allocation.
+  // Appends r (and its tag, kept only when the window has tags, as
+  // CompactSeasonalTag holds it), overwriting the oldest return once full. No
+  // allocation.
   void Push(double r, int32_t tag = 0) {
-    if (!tags_.empty()) tags_[head_] = tag;
+    if (!tags_.empty()) tags_[head_] = CompactSeasonalTag(tag);
     buf_[head_] = r;
     head_ = head_ + 1 == capacity_ ? 0 : head_ + 1;
     if (size_ < capacity_) ++size_;
@@ -48,11 +51,13 @@ class RollingWindow {
   // i-th most recent return (0 = latest). REQUIRES: 0 <= i < size().
   double back(int i) const { return at(size_ - 1 - i); }
   bool has_tags() const { return !tags_.empty(); }
-  // Tags, indexed like at() / back(). REQUIRES: has_tags(), index in range.
+  // Tags, indexed like at() / back(): what Push got, but a bucket above
+  // kSeasonalTagCompactBucketMax reads as that. REQUIRES: has_tags(), index
+  // in range.
   int32_t tag_at(int i) const {
     int k = head_ - size_ + i;
     if (k < 0) k += capacity_;
-    return tags_[k];
+    return ExpandSeasonalTag(tags_[k]);
   }
   int32_t tag_back(int i) const { return tag_at(size_ - 1 - i); }
   // Replaces *out with the held tags, oldest first (empty without tags).
@@ -73,8 +78,8 @@ class RollingWindow {
   // equal to `live`).
   size_t SyncFrom(const RollingWindow& live);
 
-  // Checkpoint encoding: size, total, then the held returns (and tags) oldest
-  // first.
+  // Checkpoint encoding: size, total, then the held returns (and tags, as
+  // int32) oldest first.
   void SaveState(StateWriter* w) const;
   // Restores what SaveState wrote into a window created with the same capacity
   // and tag setting (REQUIRES: Create'd, nothing pushed). More values than the
@@ -84,12 +89,13 @@ class RollingWindow {
 
   // Bytes owned by the window (its buffer).
   size_t MemoryBytes() const {
-    return buf_.capacity() * sizeof(double) + tags_.capacity() * sizeof(int32_t);
+    return buf_.capacity() * sizeof(double) + tags_.capacity() * sizeof(uint16_t);
   }
 
  private:
   std::vector<double> buf_;
-  std::vector<int32_t> tags_;  // empty, or capacity entries parallel to buf_
+  // Empty, or capacity entries parallel to buf_ (CompactSeasonalTag).
+  std::vector<uint16_t> tags_;
   int capacity_ = 0;
   int head_ = 0;  // next write position
   int size_ = 0;

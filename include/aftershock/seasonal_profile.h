@@ -48,6 +48,7 @@
 #ifndef AFTERSHOCK_SEASONAL_PROFILE_H_
 #define AFTERSHOCK_SEASONAL_PROFILE_H_
 
+#include <algorithm>
 #include <cmath>
 #include <cstdint>
 #include <memory>
@@ -61,7 +62,7 @@
 namespace aftershock {
 
 // Most bars per session a profile supports (e.g. 1-minute bars over 24 h are
-// 1440, 5-second bars over 5.7 h are 4096). Memory: about 3 doubles a bucket.
+// 1440, 5-second bars over 5.7 h are 4096). Memory: a double a bucket a profile.
 inline constexpr int kMaxSeasonalBuckets = 4096;
 // Winsorization of |r| at this multiple of its fitted mean (step 2 above).
 inline constexpr double kSeasonalWinsor = 5.0;
@@ -79,6 +80,25 @@ inline int32_t SeasonalTag(int k, bool session_start, bool overnight) {
          (overnight ? kSeasonalTagOvernight : 0);
 }
 inline int SeasonalTagBucket(int32_t tag) { return tag & kSeasonalTagBucketMask; }
+
+// A tag in 16 bits, as rolling windows hold them (rolling_window.h): the
+// bucket in bits 0-13 and the session-start and overnight flags in bits 14 and
+// 15. A bucket of kSeasonalTagCompactBucketMax or more (only a session of that
+// many bars or more has one) is held as kSeasonalTagCompactBucketMax, which is
+// above kMaxSeasonalBuckets: no profile covers either, so both are treated
+// alike. Half the bytes of an int32 tag (4 KB a symbol for a 2,000-bar window,
+// P5).
+inline constexpr int32_t kSeasonalTagCompactBucketMax = (1 << 14) - 1;
+static_assert(kSeasonalTagCompactBucketMax >= kMaxSeasonalBuckets,
+              "a clamped bucket must lie beyond every profile");
+inline uint16_t CompactSeasonalTag(int32_t tag) {
+  const int32_t k = std::min(SeasonalTagBucket(tag), kSeasonalTagCompactBucketMax);
+  return static_cast<uint16_t>(k | ((tag & kSeasonalTagSessionStart) ? 1 << 14 : 0) |
+                               ((tag & kSeasonalTagOvernight) ? 1 << 15 : 0));
+}
+inline int32_t ExpandSeasonalTag(uint16_t c) {
+  return SeasonalTag(c & kSeasonalTagCompactBucketMax, (c & (1 << 14)) != 0, (c & (1 << 15)) != 0);
+}
 
 enum class SeasonalMethod : uint8_t { kLocalLinear, kFourier };
 absl::string_view SeasonalMethodName(SeasonalMethod m);  // "local-linear" | "fourier"
@@ -123,8 +143,8 @@ class SeasonalAhead {
   int start_;
 };
 
-// A compiled profile: s(k)^2 and 1/s(k) per bucket and the overnight
-// multiplier (when estimated), in two tables of K doubles. Immutable.
+// A compiled profile: s(k)^2 per bucket and the overnight multiplier (when
+// estimated), in one table of K doubles; 1/s(k) is computed from it. Immutable.
 class SeasonalProfile {
  public:
   // factors: s(k)^2 for k = 0..K-1 (K = factors.size() in 2..kMaxSeasonalBuckets),
@@ -136,9 +156,14 @@ class SeasonalProfile {
 
   int buckets() const { return static_cast<int>(cycle_.size()); }
   int sessions() const { return sessions_; }
-  // s(k)^2, 1/s(k). REQUIRES: 0 <= k < buckets().
+  // s(k)^2, 1/s(k). REQUIRES: 0 <= k < buckets(). inv_scale computes
+  // 1 / sqrt(factor(k)) each call (a square root and a division, the same bits
+  // as a stored table; no table is kept, see cycle_); loops over many returns
+  // take InvScales once instead.
   double factor(int k) const { return k == 0 ? factor0_ : cycle_[k]; }
-  double inv_scale(int k) const { return inv_scale_[k]; }
+  double inv_scale(int k) const { return 1.0 / std::sqrt(factor(k)); }
+  // Replaces *out with inv_scale(k) for k = 0..K-1.
+  void InvScales(std::vector<double>* out) const;
   bool has_overnight() const { return overnight_ > 0; }
   double overnight_factor() const { return overnight_; }  // 0 when none
   // s^2 of the bars after bar k (SeasonalAhead). REQUIRES: 0 <= k < buckets().
@@ -153,11 +178,11 @@ class SeasonalProfile {
   // s(k)^2 for k >= 1, cycle_[0] = the overnight multiplier when there is one
   // (the first bar of a session follows the night), else s(0)^2. One table
   // serves factor() and every horizon of ahead() (it was three: the factors,
-  // and a look-ahead of K + largest horizon + 1 doubles, 16 KB a profile for
-  // 510 buckets and horizons to 512 bars; two profiles a symbol are alive
-  // while a refit waits to be applied).
+  // 1/s(k), and a look-ahead of K + largest horizon + 1 doubles, 20 KB a
+  // profile for 510 buckets and horizons to 512 bars; two profiles a symbol
+  // are alive while a refit waits to be applied, P5). The per-bar cost of
+  // computing 1/s(k) is one square root and one division.
   std::vector<double> cycle_;
-  std::vector<double> inv_scale_;
   double factor0_ = 0;  // s(0)^2
   double overnight_ = 0;
   int sessions_ = 0;
@@ -179,6 +204,20 @@ struct SeasonalEstimate {
   SeasonalProfilePtr profile;
 };
 
+// What SeasonalPool::Add takes from an estimate: its sessions, its own factors
+// rounded to single precision, and its own overnight multiplier. The pool
+// averages the rounded factors whichever form it is given, so the two agree
+// to the bit. A refit job keeps this, not the estimate, until it is applied
+// (half the bytes of the own factors: 2 KB for 510 buckets a waiting job,
+// P5); the rounding, a relative 6e-8 at most, is far below a bucket
+// estimate's sampling error.
+struct SeasonalContribution {
+  int sessions = 0;
+  std::vector<float> own;  // empty: no own estimate
+  double own_overnight = 0;
+};
+SeasonalContribution PoolContribution(const SeasonalEstimate& estimate);
+
 // Estimates a profile from returns and their tags (same length; oldest
 // first). Tags with a bucket >= options.buckets are ignored. prior may be
 // null. InvalidArgument for bad options or mismatched lengths.
@@ -193,14 +232,21 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
 // consume it: an overnight return without an estimated multiplier.
 // The one definition used by the ingest core, the refit worker and the swap
 // re-run, so the three agree.
-inline bool SeasonalInput(const SeasonalProfile* profile, double r, int32_t tag, double* x) {
+// inv_scales: null, or the profile's InvScales() (K entries), read instead of
+// computing 1/s(k): the same bits either way.
+inline bool SeasonalInput(const SeasonalProfile* profile, double r, int32_t tag, double* x,
+                          const double* inv_scales = nullptr) {
   if (tag & kSeasonalTagOvernight) {
     if (profile == nullptr || !profile->has_overnight()) return false;
     *x = r / std::sqrt(profile->overnight_factor());
     return true;
   }
   const int k = SeasonalTagBucket(tag);
-  *x = profile != nullptr && k < profile->buckets() ? r * profile->inv_scale(k) : r;
+  if (profile == nullptr || k >= profile->buckets()) {
+    *x = r;
+  } else {
+    *x = r * (inv_scales != nullptr ? inv_scales[k] : profile->inv_scale(k));
+  }
   return true;
 }
 
@@ -241,11 +287,13 @@ class SeasonalPool {
   static constexpr double kPoolDecay = 0.99;
   // REQUIRES: options valid.
   explicit SeasonalPool(const SeasonalOptions& options);
-  // Adds an estimate's own profile (ignored when it has none or fewer than
-  // min_sessions sessions). Marks the snapshot stale.
+  // Adds an estimate's own profile, its factors rounded to single precision
+  // (SeasonalContribution; ignored when it has none or fewer than
+  // min_sessions sessions). Marks the snapshot stale. Both forms add the same.
   void Add(const SeasonalEstimate& estimate);
+  void Add(const SeasonalContribution& contribution);
   // The pooled profile (null before any contribution). Rebuilt (allocating
-  // about 3 doubles a bucket) when stale and at least `refresh_adds`
+  // a double a bucket) when stale and at least `refresh_adds`
   // estimates were added since the last rebuild, or when there is none yet;
   // otherwise the last one is shared. refresh_adds <= 1: rebuilt after every
   // Add. (The refit coordinator asks once per submitted job: in a
@@ -263,6 +311,11 @@ class SeasonalPool {
   void RestoreState(StateReader* r);
 
  private:
+  // The one definition of a contribution: own(k) is the k-th own factor as
+  // a float.
+  template <typename Own>
+  void Accumulate(int sessions, size_t buckets, Own own, double own_overnight);
+
   SeasonalOptions options_;
   std::vector<double> sum_;  // decayed weighted sums of s^2 per bucket
   double weight_ = 0;

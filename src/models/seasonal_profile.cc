@@ -144,14 +144,17 @@ absl::StatusOr<SeasonalProfile> SeasonalProfile::Create(std::vector<double> fact
     return absl::InvalidArgumentError("the overnight factor must be finite and >= 0");
   }
   SeasonalProfile p;
-  p.inv_scale_.resize(k);
-  for (int i = 0; i < k; ++i) p.inv_scale_[i] = 1.0 / std::sqrt(factors[i]);
   p.factor0_ = factors[0];
   p.overnight_ = overnight_factor;
   p.sessions_ = sessions;
   p.cycle_ = std::move(factors);
   if (p.overnight_ > 0) p.cycle_[0] = p.overnight_;
   return p;
+}
+
+void SeasonalProfile::InvScales(std::vector<double>* out) const {
+  out->resize(cycle_.size());
+  for (int k = 0; k < buckets(); ++k) (*out)[static_cast<size_t>(k)] = inv_scale(k);
 }
 
 std::vector<double> SeasonalProfile::factors() const {
@@ -320,16 +323,38 @@ double SeasonalLogScale(const SeasonalProfile* p, int32_t tag) {
 SeasonalPool::SeasonalPool(const SeasonalOptions& options)
     : options_(options), sum_(static_cast<size_t>(std::max(0, options.buckets)), 0.0) {}
 
-void SeasonalPool::Add(const SeasonalEstimate& e) {
-  if (e.own.size() != sum_.size() || e.sessions < options_.min_sessions) return;
-  const double w = e.sessions;
-  for (size_t k = 0; k < sum_.size(); ++k) sum_[k] = kPoolDecay * sum_[k] + w * e.own[k];
+SeasonalContribution PoolContribution(const SeasonalEstimate& e) {
+  SeasonalContribution c;
+  c.sessions = e.sessions;
+  c.own.assign(e.own.begin(), e.own.end());  // rounded to nearest float
+  c.own_overnight = e.own_overnight;
+  return c;
+}
+
+template <typename Own>
+void SeasonalPool::Accumulate(int sessions, size_t buckets, Own own, double own_overnight) {
+  if (buckets != sum_.size() || sessions < options_.min_sessions) return;
+  const double w = sessions;
+  for (size_t k = 0; k < sum_.size(); ++k) {
+    sum_[k] = kPoolDecay * sum_[k] + w * static_cast<double>(own(k));
+  }
   weight_ = kPoolDecay * weight_ + w;
-  if (e.own_overnight > 0) {
-    overnight_sum_ = kPoolDecay * overnight_sum_ + w * e.own_overnight;
+  if (own_overnight > 0) {
+    overnight_sum_ = kPoolDecay * overnight_sum_ + w * own_overnight;
     overnight_weight_ = kPoolDecay * overnight_weight_ + w;
   }
   ++adds_since_;
+}
+
+void SeasonalPool::Add(const SeasonalEstimate& e) {
+  Accumulate(
+      e.sessions, e.own.size(), [&](size_t k) { return static_cast<float>(e.own[k]); },
+      e.own_overnight);
+}
+
+void SeasonalPool::Add(const SeasonalContribution& c) {
+  Accumulate(
+      c.sessions, c.own.size(), [&](size_t k) { return c.own[k]; }, c.own_overnight);
 }
 
 SeasonalProfilePtr SeasonalPool::Snapshot(uint64_t refresh_adds) {

@@ -44,10 +44,11 @@ struct RefitCoordinator::JobSlot {
   bool passed = false;
   bool refit_error = false;
   ModelVersionPtr candidate;  // set when passed
-  // Seasonal: the profile estimated from the returns; the worker allocates it
-  // and the ingest thread retires it when it is applied (a slot keeping it
-  // held about 6 KB per slot ever used).
-  std::shared_ptr<const SeasonalEstimate> estimate;
+  // Seasonal: what the estimate adds to the pool when the job is applied
+  // (SeasonalPool::Add); the worker allocates it and the ingest thread retires
+  // it then (a slot keeping the whole estimate held about 6 KB per slot ever
+  // used; the job keeps 2 KB of single-precision factors for 510 buckets).
+  std::shared_ptr<const SeasonalContribution> contribution;
   FilterState tail_state;     // candidate's state at the end of `returns`
   RefitRecord record;
   RefitRecordJson record_json;  // `record`'s numbers (Prepare), on the worker
@@ -77,13 +78,17 @@ void RunTail(const FilterModel& model, absl::Span<const double> w, int tail, Fil
   for (size_t i = start; i < n; ++i) AdvanceState(model, st, w[i]);
 }
 
-// The series the filter consumes under `profile` (SeasonalInput).
+// The series the filter consumes under `profile` (SeasonalInput). The
+// profile's 1/s(k) are computed once into *inv (scratch), not per return.
 void SeasonalSeries(const SeasonalProfile* profile, absl::Span<const double> r,
-                    absl::Span<const int32_t> tags, std::vector<double>* x) {
+                    absl::Span<const int32_t> tags, std::vector<double>* x,
+                    std::vector<double>* inv) {
+  if (profile != nullptr) profile->InvScales(inv);
+  const double* table = profile != nullptr ? inv->data() : nullptr;
   x->clear();
   for (size_t i = 0; i < r.size(); ++i) {
     double v;
-    if (SeasonalInput(profile, r[i], tags[i], &v)) x->push_back(v);
+    if (SeasonalInput(profile, r[i], tags[i], &v, table)) x->push_back(v);
   }
 }
 
@@ -322,9 +327,11 @@ bool RefitCoordinator::MaybeAdoptGroupModel(SymbolSlot* sym, int64_t t_ns, Filte
   // its own yet), and the level and the re-run use the returns as the filter
   // consumes them under it (SeasonalInput).
   const SeasonalProfilePtr& profile = g.latest->profile;
+  if (options_.seasonal && profile != nullptr) profile->InvScales(&inv_scales_);
+  const double* inv = options_.seasonal && profile != nullptr ? inv_scales_.data() : nullptr;
   const auto input = [&](int i, double* x) {
     *x = sym->window.at(i);
-    return !options_.seasonal || SeasonalInput(profile.get(), *x, sym->window.tag_at(i), x);
+    return !options_.seasonal || SeasonalInput(profile.get(), *x, sym->window.tag_at(i), x, inv);
   };
   // The symbol's own level: its window's variance, or its current forecast.
   const int n = sym->window.size();
@@ -597,22 +604,20 @@ void RefitCoordinator::Process(uint32_t slot) {
   const std::vector<double>& returns = j.buffer->returns;
   const std::vector<int32_t>& tags = j.buffer->tags;
   // Seasonality: estimate the profile, then fit on what the filter consumes.
-  std::vector<double> x, x_old;
+  std::vector<double> x, x_old, inv;
   SeasonalProfilePtr profile;
   absl::Span<const double> series = returns;
-  j.estimate.reset();
+  j.contribution.reset();
   if (options_.seasonal) {
     auto est = EstimateSeasonalProfile(returns, tags, options_.seasonal_options, j.prior.get());
     if (est.ok()) {
       profile = est->profile;
-      // Kept until applied, for the pool (SeasonalPool::Add reads own,
-      // own_overnight and sessions): the bucket counts go now (2 KB for 510
-      // buckets, per job awaiting its bar).
-      std::vector<int>().swap(est->counts);
-      j.estimate = std::make_shared<const SeasonalEstimate>(*std::move(est));
+      // Kept until applied, for the pool; the rest of the estimate (its
+      // counts and double-precision own factors) is freed here.
+      j.contribution = std::make_shared<const SeasonalContribution>(PoolContribution(*est));
     }
-    SeasonalSeries(profile.get(), returns, tags, &x);
-    SeasonalSeries(j.in_force->profile.get(), returns, tags, &x_old);
+    SeasonalSeries(profile.get(), returns, tags, &x, &inv);
+    SeasonalSeries(j.in_force->profile.get(), returns, tags, &x_old, &inv);
     series = x;
   }
   RefitRequest req;
@@ -711,7 +716,7 @@ void RefitCoordinator::Process(uint32_t slot) {
 void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, FilterState* state) {
   JobSlot& j = *jobs_[slot];
   const int64_t bars = sym->window.total();
-  if (options_.seasonal && j.estimate != nullptr) seasonal_pool_.Add(*j.estimate);
+  if (options_.seasonal && j.contribution != nullptr) seasonal_pool_.Add(*j.contribution);
   // What this replaces goes to the workers to release (RetireQueue): the
   // versions, the record and its numbers were allocated by a worker.
   if (j.passed) {
@@ -790,7 +795,7 @@ void RefitCoordinator::Apply(SymbolSlot* sym, uint32_t slot, int64_t t_ns, Filte
   retire_->Retire(std::move(j.estimated));
   retire_->Retire(std::move(j.candidate));
   retire_->Retire(std::move(j.prior));
-  retire_->Retire(std::move(j.estimate));
+  retire_->Retire(std::move(j.contribution));
   retire_->HandOver();
   if (j.buffer != nullptr) ReleaseBuffer(std::move(j.buffer));
   sym->inputs = JobInputs::kInBuffer;
@@ -831,11 +836,11 @@ size_t RefitCoordinator::MemoryBytesPerSymbol() const {
   // (at most 2 * 32 doubles for the largest spec in practice), and the
   // shared_ptr control block.
   const size_t version = sizeof(ModelVersion) + 2 * 32 * sizeof(double) + 32;
-  // Seasonal: the window's tags and one profile (2 doubles a bucket).
+  // Seasonal: the window's 16-bit tags and one profile (a double a bucket).
   const size_t seasonal =
       options_.seasonal
-          ? static_cast<size_t>(options_.window) * sizeof(int32_t) + sizeof(SeasonalProfile) +
-                static_cast<size_t>(2 * options_.seasonal_options.buckets) * sizeof(double)
+          ? static_cast<size_t>(options_.window) * sizeof(uint16_t) + sizeof(SeasonalProfile) +
+                static_cast<size_t>(options_.seasonal_options.buckets) * sizeof(double)
           : 0;
   return sizeof(SymbolSlot) + static_cast<size_t>(options_.window) * sizeof(double) + version +
          seasonal +

@@ -2,7 +2,6 @@
 
 #include <algorithm>
 #include <cmath>
-#include <type_traits>
 
 #include "absl/strings/str_cat.h"
 
@@ -51,14 +50,14 @@ size_t RollingWindow::SyncFrom(const RollingWindow& live) {
     head_ = live.head_;
     size_ = live.size_;
     total_ = live.total_;
-    return buf_.size() * sizeof(double) + tags_.size() * sizeof(int32_t);
+    return buf_.size() * sizeof(double) + tags_.size() * sizeof(uint16_t);
   }
   // The `fresh` newest returns of `live`, oldest first.
   for (int64_t i = fresh; i > 0; --i) {
     const int k = static_cast<int>(i - 1);
     Push(live.back(k), live.has_tags() ? live.tag_back(k) : 0);
   }
-  return static_cast<size_t>(fresh) * (sizeof(double) + (has_tags() ? sizeof(int32_t) : 0));
+  return static_cast<size_t>(fresh) * (sizeof(double) + (has_tags() ? sizeof(uint16_t) : 0));
 }
 
 }  // namespace aftershock
@@ -74,13 +73,19 @@ void RollingWindow::SaveState(StateWriter* w) const {
   int start = head_ - size_;
   if (start < 0) start += capacity_;
   const int first = std::min(size_, capacity_ - start);
-  auto runs = [&](const auto* data) {
-    using T = std::remove_const_t<std::remove_pointer_t<decltype(data)>>;
-    w->Append(absl::string_view(reinterpret_cast<const char*>(data + start), first * sizeof(T)));
-    w->Append(absl::string_view(reinterpret_cast<const char*>(data), (size_ - first) * sizeof(T)));
-  };
-  runs(buf_.data());
-  if (has_tags()) runs(tags_.data());
+  const char* data = reinterpret_cast<const char*>(buf_.data());
+  w->Append(absl::string_view(data + start * sizeof(double), first * sizeof(double)));
+  w->Append(absl::string_view(data, (size_ - first) * sizeof(double)));
+  if (!has_tags()) return;
+  // Tags as int32 (the encoding before windows held them in 16 bits), in
+  // blocks expanded on the stack.
+  constexpr int kBlock = 256;
+  int32_t block[kBlock];
+  for (int i = 0; i < size_; i += kBlock) {
+    const int m = std::min(kBlock, size_ - i);
+    for (int j = 0; j < m; ++j) block[j] = tag_at(i + j);
+    w->Append(absl::string_view(reinterpret_cast<const char*>(block), m * sizeof(int32_t)));
+  }
 }
 
 void RollingWindow::RestoreState(StateReader* r, absl::string_view what) {
@@ -102,7 +107,7 @@ void RollingWindow::RestoreState(StateReader* r, absl::string_view what) {
     buf_[i] = r->FiniteF64(field);
     if (!r->ok()) return;
   }
-  for (uint64_t i = 0; tags && i < n; ++i) tags_[i] = r->I32(field);
+  for (uint64_t i = 0; tags && i < n; ++i) tags_[i] = CompactSeasonalTag(r->I32(field));
   size_ = static_cast<int>(n);
   head_ = size_ == capacity_ ? 0 : size_;
   total_ = total;

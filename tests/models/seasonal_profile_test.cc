@@ -79,6 +79,36 @@ double RmsRelError(const std::vector<double>& est, const std::vector<double>& tr
   return std::sqrt(s / (truth.size() - from));
 }
 
+TEST_CASE("1/s(k) from the factors, one at a time or as a table, to the bit", "[seasonal]") {
+  // The profile keeps only s(k)^2; every caller of SeasonalInput (the ingest
+  // core per bar, the refit worker with a table over its window) must see the
+  // same 1/s(k), the correctly rounded 1 / sqrt(s(k)^2).
+  std::mt19937_64 rng(11);
+  std::uniform_real_distribution<double> u(0.01, 9.0);
+  std::vector<double> f(37);
+  for (double& v : f) v = u(rng);
+  auto p = SeasonalProfile::Create(f, 2.5, 4);
+  REQUIRE(p.ok());
+  std::vector<double> inv;
+  p->InvScales(&inv);
+  REQUIRE(inv.size() == f.size());
+  for (int k = 0; k < 37; ++k) {
+    const double want = 1.0 / std::sqrt(f[static_cast<size_t>(k)]);
+    CHECK(std::memcmp(&inv[static_cast<size_t>(k)], &want, sizeof want) == 0);
+    const double one = p->inv_scale(k);
+    CHECK(std::memcmp(&one, &want, sizeof want) == 0);
+  }
+  // SeasonalInput with and without the table, for every kind of tag.
+  for (int32_t tag : {SeasonalTag(0, true, false), SeasonalTag(36, false, false),
+                      SeasonalTag(37, false, false), SeasonalTag(0, true, true)}) {
+    double a = 0, b = 0;
+    const bool ta = SeasonalInput(&*p, -0.0031, tag, &a);
+    const bool tb = SeasonalInput(&*p, -0.0031, tag, &b, inv.data());
+    CHECK(ta == tb);
+    CHECK(std::memcmp(&a, &b, sizeof a) == 0);
+  }
+}
+
 TEST_CASE("profile look-ahead wraps to the next session", "[seasonal]") {
   auto p = SeasonalProfile::Create({2.0, 1.0, 0.5, 0.5}, 0.0, 3);
   REQUIRE(p.ok());
@@ -401,6 +431,32 @@ TEST_CASE(
         CHECK(SameProfile(b->Snapshot(5).get(), pa.get()));
       }
     }
+  }
+}
+
+TEST_CASE("the pool adds an estimate and its contribution alike, in single precision",
+          "[seasonal]") {
+  SeasonalOptions o;
+  o.buckets = 23;
+  std::mt19937_64 rng(5);
+  // A pool that averaged the double-precision factors would differ from
+  // by_hand in the last bits of every snapshot.
+  SeasonalPool from_estimates(o), from_contributions(o), by_hand(o);
+  // By hand: estimates whose own factors were rounded to float beforehand.
+  for (int i = 0; i < 9; ++i) {
+    const SeasonalEstimate e = RandomEstimate(o.buckets, &rng);
+    from_estimates.Add(e);
+    const SeasonalContribution c = PoolContribution(e);
+    REQUIRE(c.own.size() == e.own.size());
+    CHECK(c.sessions == e.sessions);
+    CHECK(c.own_overnight == e.own_overnight);
+    from_contributions.Add(c);
+    SeasonalEstimate rounded = e;
+    for (double& v : rounded.own) v = static_cast<double>(static_cast<float>(v));
+    by_hand.Add(rounded);
+    const SeasonalProfilePtr a = from_estimates.Snapshot();
+    CHECK(SameProfile(a.get(), from_contributions.Snapshot().get()));
+    CHECK(SameProfile(a.get(), by_hand.Snapshot().get()));
   }
 }
 

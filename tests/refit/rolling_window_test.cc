@@ -2,6 +2,7 @@
 
 #include <catch2/catch.hpp>
 #include <string>
+#include <vector>
 
 #include "support/alloc_counter.h"
 
@@ -108,6 +109,65 @@ TEST_CASE("a mirror whose window changed shape or went back copies it whole", "[
   mirror.SyncFrom(*a);  // total 3 below 4, and capacity 5 again
   CHECK(mirror.capacity() == 5);
   CHECK(Saved(mirror) == Saved(*a));
+}
+
+TEST_CASE("tags are held in 16 bits and read back as pushed", "[window]") {
+  auto w = RollingWindow::Create(6, /*with_tags=*/true);
+  REQUIRE(w.ok());
+  // Every flag combination, buckets at the edges of the 14 bits, and two
+  // beyond them (a session of more bars than any profile covers).
+  const std::vector<int32_t> pushed = {
+      SeasonalTag(0, false, false),    SeasonalTag(4095, true, false),
+      SeasonalTag(16382, false, true), SeasonalTag(7, true, true),
+      SeasonalTag(16383, true, false), SeasonalTag(200000, false, true)};
+  const std::vector<int32_t> read = {
+      pushed[0], pushed[1], pushed[2],
+      pushed[3], pushed[4], SeasonalTag(kSeasonalTagCompactBucketMax, false, true)};
+  for (size_t i = 0; i < pushed.size(); ++i) w->Push(0.5 * static_cast<double>(i), pushed[i]);
+  for (int i = 0; i < 6; ++i) CHECK(w->tag_at(i) == read[static_cast<size_t>(i)]);
+  CHECK(SeasonalTagBucket(w->tag_back(0)) >= kMaxSeasonalBuckets);
+  std::vector<int32_t> tags;
+  w->CopyTagsTo(&tags);
+  CHECK(tags == read);
+  CHECK(w->MemoryBytes() == 6 * (sizeof(double) + sizeof(uint16_t)));
+}
+
+TEST_CASE("a tagged window's checkpoint holds its tags as int32, whatever the wrap", "[window]") {
+  // The encoding written before windows held their tags in 16 bits: size,
+  // total, a tag flag, the returns, then one little-endian int32 per tag,
+  // oldest first. Built here field by field, for a window that wrapped and
+  // one longer than the 256-tag blocks the encoder expands at a time.
+  for (const int capacity : {5, 600}) {
+    INFO("capacity " << capacity);
+    auto w = RollingWindow::Create(capacity, /*with_tags=*/true);
+    REQUIRE(w.ok());
+    std::vector<double> r;
+    std::vector<int32_t> t;
+    const int pushes = capacity + 3;
+    for (int i = 0; i < pushes; ++i) {
+      const int32_t tag = SeasonalTag(i % 510, i % 510 == 0, i % 1020 == 0);
+      w->Push(0.25 * i, tag);
+      r.push_back(0.25 * i);
+      t.push_back(tag);
+    }
+    StateWriter expected;
+    expected.U64(static_cast<uint64_t>(capacity));
+    expected.I64(pushes);
+    expected.Bool(true);
+    for (int i = pushes - capacity; i < pushes; ++i) expected.F64(r[static_cast<size_t>(i)]);
+    for (int i = pushes - capacity; i < pushes; ++i) expected.I32(t[static_cast<size_t>(i)]);
+    CHECK(Saved(*w) == expected.data());
+
+    // Restored, it reads the same and saves the same bytes.
+    auto back = RollingWindow::Create(capacity, /*with_tags=*/true);
+    REQUIRE(back.ok());
+    StateReader in(expected.data());
+    back->RestoreState(&in, "test");
+    REQUIRE(in.ok());
+    CHECK(back->tag_back(0) == t.back());
+    CHECK(back->tag_at(0) == t[static_cast<size_t>(pushes - capacity)]);
+    CHECK(Saved(*back) == expected.data());
+  }
 }
 
 TEST_CASE("a window needs a positive capacity", "[window]") {
