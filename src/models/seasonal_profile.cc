@@ -3,11 +3,17 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdlib>
+#include <cstring>
 #include <optional>
 #include <utility>
 
+#if defined(__x86_64__)
+#include <immintrin.h>
+#endif
+
 #include "absl/strings/str_cat.h"
 #include "aftershock/least_squares.h"
+#include "models/cpu_features.h"
 #include "models/local_linear_smoother.h"
 
 namespace aftershock {
@@ -74,9 +80,107 @@ std::vector<double> SmoothFourier(const std::vector<double>& y, const std::vecto
   return out;
 }
 
+// out[j] = a[j] / b[j]. IEEE division is correctly rounded at any vector
+// width, so both paths give the bits of one division at a time; the AVX one
+// (four lanes) only where internal::CpuHasAvx().
+using V2 = double __attribute__((vector_size(16)));
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
+using V4 = double __attribute__((vector_size(32)));
+__attribute__((target("avx"))) void DivideAvx(const double* a, const double* b, double* out,
+                                              size_t n) {
+  size_t j = 0;
+  for (; j + 4 <= n; j += 4) {
+    V4 x, y;
+    std::memcpy(&x, a + j, sizeof x);
+    std::memcpy(&y, b + j, sizeof y);
+    const V4 z = x / y;
+    std::memcpy(out + j, &z, sizeof z);
+  }
+  for (; j < n; ++j) out[j] = a[j] / b[j];
+}
+#endif
+void DivideBase(const double* a, const double* b, double* out, size_t n) {
+  size_t j = 0;
+  for (; j + 2 <= n; j += 2) {
+    V2 x, y;
+    std::memcpy(&x, a + j, sizeof x);
+    std::memcpy(&y, b + j, sizeof y);
+    const V2 z = x / y;
+    std::memcpy(out + j, &z, sizeof z);
+  }
+  for (; j < n; ++j) out[j] = a[j] / b[j];
+}
+// REQUIRES: a, b and *out the same size.
+void Divide(const std::vector<double>& a, const std::vector<double>& b, std::vector<double>* out,
+            bool avx) {
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
+  if (avx) {
+    DivideAvx(a.data(), b.data(), out->data(), a.size());
+    return;
+  }
+#endif
+  (void)avx;
+  DivideBase(a.data(), b.data(), out->data(), a.size());
+}
+
+// (*v)[k] /= d for every k, and (*out)[k] = sqrt(a[k]) (REQUIRES: out the size
+// of a, every a[k] >= 0): correctly rounded at any width too.
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
+__attribute__((target("avx"))) void DivideByAvx(double* v, size_t n, double d) {
+  size_t j = 0;
+  const V4 dv = {d, d, d, d};
+  for (; j + 4 <= n; j += 4) {
+    V4 x;
+    std::memcpy(&x, v + j, sizeof x);
+    x = x / dv;
+    std::memcpy(v + j, &x, sizeof x);
+  }
+  for (; j < n; ++j) v[j] /= d;
+}
+__attribute__((target("avx"))) void SqrtAvx(const double* a, double* out, size_t n) {
+  size_t j = 0;
+  for (; j + 4 <= n; j += 4) _mm256_storeu_pd(out + j, _mm256_sqrt_pd(_mm256_loadu_pd(a + j)));
+  for (; j < n; ++j) out[j] = std::sqrt(a[j]);
+}
+#endif
+void DivideBy(std::vector<double>* v, double d, bool avx) {
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
+  if (avx) {
+    DivideByAvx(v->data(), v->size(), d);
+    return;
+  }
+#endif
+  (void)avx;
+  size_t j = 0;
+  const V2 dv = {d, d};
+  for (; j + 2 <= v->size(); j += 2) {
+    V2 x;
+    std::memcpy(&x, v->data() + j, sizeof x);
+    x = x / dv;
+    std::memcpy(v->data() + j, &x, sizeof x);
+  }
+  for (; j < v->size(); ++j) (*v)[j] /= d;
+}
+void Sqrt(const std::vector<double>& a, std::vector<double>* out, bool avx) {
+#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
+  if (avx) {
+    SqrtAvx(a.data(), out->data(), a.size());
+    return;
+  }
+#endif
+  (void)avx;
+  size_t j = 0;
+#if defined(__SSE2__)
+  for (; j + 2 <= a.size(); j += 2) {
+    _mm_storeu_pd(out->data() + j, _mm_sqrt_pd(_mm_loadu_pd(a.data() + j)));
+  }
+#endif
+  for (; j < a.size(); ++j) (*out)[j] = std::sqrt(a[j]);
+}
+
 // Floors s at kSeasonalFloor and scales s^2 to mean 1 over the buckets with
 // counts (all buckets when none has). Returns the normalizing divisor of s^2.
-double Normalize(std::vector<double>* s2, const std::vector<int>* cnt) {
+double Normalize(std::vector<double>* s2, const std::vector<int>* cnt, bool avx) {
   const double floor2 = kSeasonalFloor * kSeasonalFloor;
   double total = 1;
   for (int pass = 0; pass < 2; ++pass) {
@@ -95,7 +199,7 @@ double Normalize(std::vector<double>* s2, const std::vector<int>* cnt) {
       n = static_cast<int>(s2->size());
     }
     const double mean = sum / n;
-    for (double& v : *s2) v /= mean;
+    DivideBy(s2, mean, avx);
     total *= mean;
   }
   return total;
@@ -193,6 +297,30 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
     return SeasonalTagBucket(tags[i]) < K && std::isfinite(returns[i]);
   };
 
+  // What the passes read of each usable observation, in window order:
+  // intraday ones (bucket, session, |r|) and overnight ones (session, |r|).
+  std::vector<int> ik, is, os;
+  std::vector<double> ia, oa;
+  ik.reserve(n);
+  is.reserve(n);
+  ia.reserve(n);
+  for (size_t i = 0; i < n; ++i) {
+    if (!usable(i)) continue;
+    if (tags[i] & kSeasonalTagOvernight) {
+      os.push_back(session[i]);
+      oa.push_back(std::fabs(returns[i]));
+    } else {
+      ik.push_back(SeasonalTagBucket(tags[i]));
+      is.push_back(session[i]);
+      ia.push_back(std::fabs(returns[i]));
+    }
+  }
+  const size_t ni = ik.size();
+  // Per pass: m(k) of each intraday observation, its winsorized |r|, and a
+  // quotient (the divisions run over whole arrays, several lanes at once).
+  std::vector<double> mk(ni), wv(ni), q(ni), lv(ni);
+  const bool avx = internal::CpuHasAvx();
+
   SeasonalEstimate est;
   est.counts.assign(K, 0);
   std::vector<double> m(K, 1.0), level(num_sessions, 0.0), prev_level(num_sessions, 0.0);
@@ -207,38 +335,48 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
   std::optional<internal::LocalLinearSmoother> smoother;
   if (o.method == SeasonalMethod::kLocalLinear) smoother.emplace(K, Bandwidth(o));
   for (int pass = 0; pass < kPasses; ++pass) {
-    // Winsorized |r| (no cap in the first pass: nothing fitted yet).
-    auto w = [&](size_t i, double fitted) {
-      const double a = std::fabs(returns[i]);
+    // Winsorized |r| at kSeasonalWinsor times its fitted mean, level times
+    // m(k) (no cap in the first pass: nothing fitted yet).
+    auto w = [&](double a, double fitted) {
       return pass == 0 ? a : std::min(a, kSeasonalWinsor * fitted);
     };
-    // Session levels.
+    for (size_t j = 0; j < ni; ++j) {
+      mk[j] = m[ik[j]];
+      wv[j] = w(ia[j], prev_level[is[j]] * mk[j]);
+    }
+    // Session levels: the mean of |r| / m(k) over the session. A session's
+    // observations are consecutive, so each sum runs in a register, adding in
+    // window order.
+    Divide(wv, mk, &q, avx);
     std::fill(lsum.begin(), lsum.end(), 0.0);
     std::fill(lcnt.begin(), lcnt.end(), 0);
-    for (size_t i = 0; i < n; ++i) {
-      if (!usable(i) || (tags[i] & kSeasonalTagOvernight)) continue;
-      const int k = SeasonalTagBucket(tags[i]);
-      lsum[session[i]] += w(i, prev_level[session[i]] * m[k]) / m[k];
-      ++lcnt[session[i]];
+    for (size_t j = 0; j < ni;) {
+      const int s = is[j];
+      double acc = lsum[s];
+      int c = 0;
+      for (; j < ni && is[j] == s; ++j, ++c) acc += q[j];
+      lsum[s] = acc;
+      lcnt[s] += c;
     }
     for (int s = 0; s < num_sessions; ++s) level[s] = lcnt[s] > 0 ? lsum[s] / lcnt[s] : 0.0;
-    // Raw bucket profile.
+    // Raw bucket profile: |r| over its session's level, averaged per bucket
+    // (sessions without a level left out).
     std::fill(sum.begin(), sum.end(), 0.0);
     std::fill(cnt.begin(), cnt.end(), 0);
     on_sum = 0;
     on_cnt = 0;
-    for (size_t i = 0; i < n; ++i) {
-      if (!usable(i)) continue;
-      const double l = level[session[i]];
+    for (size_t j = 0; j < ni; ++j) lv[j] = level[is[j]];
+    Divide(wv, lv, &q, avx);  // inf or NaN where the level is 0: not used
+    for (size_t j = 0; j < ni; ++j) {
+      if (!(lv[j] > 0)) continue;
+      sum[ik[j]] += q[j];
+      ++cnt[ik[j]];
+    }
+    for (size_t j = 0; j < os.size(); ++j) {
+      const double l = level[os[j]];
       if (!(l > 0)) continue;
-      if (tags[i] & kSeasonalTagOvernight) {
-        on_sum += w(i, prev_level[session[i]] * m_on) / l;
-        ++on_cnt;
-      } else {
-        const int k = SeasonalTagBucket(tags[i]);
-        sum[k] += w(i, prev_level[session[i]] * m[k]) / l;
-        ++cnt[k];
-      }
+      on_sum += w(oa[j], prev_level[os[j]] * m_on) / l;
+      ++on_cnt;
     }
     any = false;
     std::vector<double> raw(K, 0.0);
@@ -253,23 +391,17 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
                                  ? SmoothFourier(raw, cnt, FourierOrder(o))
                                  : smoother->Smooth(raw, cnt);
     for (int k = 0; k < K; ++k) sm[k] = sm[k] > 0 ? sm[k] * sm[k] : 0.0;  // s^2, floored below
-    const double div = Normalize(&sm, &cnt);
-    for (int k = 0; k < K; ++k) m[k] = std::sqrt(sm[k]);
+    const double div = Normalize(&sm, &cnt, avx);
+    Sqrt(sm, &m, avx);  // m(k) = sqrt(s(k)^2), every s(k)^2 floored above 0
     m_on = on_cnt > 0 ? (on_sum / on_cnt) / std::sqrt(div) : 1.0;
     if (!(m_on > 0)) m_on = kSeasonalFloor;
     // Levels are in the units of the normalized m.
     for (int s = 0; s < num_sessions; ++s) prev_level[s] = level[s] * std::sqrt(div);
   }
+  // Sessions with a usable intraday return: the runs of `is` (a session's
+  // observations are consecutive).
   int sessions_used = 0;
-  {
-    std::vector<bool> seen(num_sessions, false);
-    for (size_t i = 0; i < n; ++i) {
-      if (usable(i) && !(tags[i] & kSeasonalTagOvernight) && !seen[session[i]]) {
-        seen[session[i]] = true;
-        ++sessions_used;
-      }
-    }
-  }
+  for (size_t j = 0; j < ni; ++j) sessions_used += j == 0 || is[j] != is[j - 1];
   est.sessions = sessions_used;
   est.counts = cnt;
   est.overnight_count = on_cnt;
@@ -297,7 +429,7 @@ absl::StatusOr<SeasonalEstimate> EstimateSeasonalProfile(absl::Span<const double
     } else if (prior_ok) {
       on = prior->overnight_factor();
     }
-    const double div = Normalize(&f, &est.counts);
+    const double div = Normalize(&f, &est.counts, avx);
     on /= div;
   } else if (prior_ok) {
     f = prior->factors();
@@ -363,7 +495,7 @@ SeasonalProfilePtr SeasonalPool::Snapshot(uint64_t refresh_adds) {
   adds_since_ = 0;
   std::vector<double> f(sum_.size());
   for (size_t k = 0; k < f.size(); ++k) f[k] = sum_[k] / weight_;
-  const double div = Normalize(&f, nullptr);
+  const double div = Normalize(&f, nullptr, internal::CpuHasAvx());
   const double on = overnight_weight_ > 0 ? overnight_sum_ / overnight_weight_ / div : 0.0;
   auto p = SeasonalProfile::Create(std::move(f), on, 0);
   snapshot_ = p.ok() ? std::make_shared<const SeasonalProfile>(*std::move(p)) : nullptr;

@@ -12,6 +12,7 @@
 #include "aftershock/forecast.h"
 #include "aftershock/online_filter.h"
 #include "aftershock/state_codec.h"
+#include "models/cpu_features.h"
 
 namespace aftershock {
 namespace {
@@ -458,6 +459,34 @@ TEST_CASE("the pool adds an estimate and its contribution alike, in single preci
     CHECK(SameProfile(a.get(), from_contributions.Snapshot().get()));
     CHECK(SameProfile(a.get(), by_hand.Snapshot().get()));
   }
+}
+
+TEST_CASE("an estimate is the same to the bit on the four-lane and two-lane paths", "[seasonal]") {
+  // The passes divide whole arrays four lanes per AVX instruction where the
+  // CPU has it (two with SSE2), and so does the smoother; IEEE division,
+  // multiplication and addition round alike at any width.
+  const int K = 97;
+  const std::vector<double> truth = TrueProfile(K, 3.0);
+  const Sample sample = Simulate(9, K, truth, 0.4, 17);
+  SeasonalOptions o;
+  o.buckets = K;
+  auto prior = SeasonalProfile::Create(std::vector<double>(K, 1.0), 1.5, 0);
+  REQUIRE(prior.ok());
+  auto run = [&](bool disable_avx) {
+    internal::AvxDisabledForTesting().store(disable_avx);
+    auto e = EstimateSeasonalProfile(sample.r, sample.tags, o, &*prior);
+    internal::AvxDisabledForTesting().store(false);
+    return e;
+  };
+  const auto wide = run(false);
+  const auto narrow = run(true);
+  REQUIRE(wide.ok());
+  REQUIRE(narrow.ok());
+  REQUIRE(wide->own.size() == static_cast<size_t>(K));
+  CHECK(std::memcmp(wide->own.data(), narrow->own.data(), K * sizeof(double)) == 0);
+  CHECK(wide->own_overnight == narrow->own_overnight);
+  CHECK(wide->counts == narrow->counts);
+  CHECK(SameProfile(wide->profile.get(), narrow->profile.get()));
 }
 
 }  // namespace
