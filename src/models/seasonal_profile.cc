@@ -11,6 +11,7 @@
 #include <immintrin.h>
 #endif
 
+#include "absl/base/attributes.h"
 #include "absl/strings/str_cat.h"
 #include "aftershock/least_squares.h"
 #include "models/cpu_features.h"
@@ -80,62 +81,35 @@ std::vector<double> SmoothFourier(const std::vector<double>& y, const std::vecto
   return out;
 }
 
-// out[j] = a[j] / b[j]. IEEE division is correctly rounded at any vector
-// width, so both paths give the bits of one division at a time; the AVX one
-// (four lanes) only where internal::CpuHasAvx().
+// Element-wise divisions and square roots over whole arrays, L lanes per
+// instruction: V is a vector of L doubles (two with SSE2, four where
+// internal::CpuHasAvx()). IEEE division and square root are correctly
+// rounded at any width, so every path gives the bits of one at a time.
 using V2 = double __attribute__((vector_size(16)));
-#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
-using V4 = double __attribute__((vector_size(32)));
-__attribute__((target("avx"))) void DivideAvx(const double* a, const double* b, double* out,
-                                              size_t n) {
+
+// out[j] = a[j] / b[j] (b == nullptr: a[j] / d).
+template <typename V>
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline void DivideLanes(const double* a, const double* b, double d,
+                                                     double* out, size_t n) {
+  constexpr size_t kL = sizeof(V) / sizeof(double);
+  V dv;
+  for (size_t l = 0; l < kL; ++l) dv[l] = d;
   size_t j = 0;
-  for (; j + 4 <= n; j += 4) {
-    V4 x, y;
+  for (; j + kL <= n; j += kL) {
+    V x, y = dv;
     std::memcpy(&x, a + j, sizeof x);
-    std::memcpy(&y, b + j, sizeof y);
-    const V4 z = x / y;
+    if (b != nullptr) std::memcpy(&y, b + j, sizeof y);
+    const V z = x / y;
     std::memcpy(out + j, &z, sizeof z);
   }
-  for (; j < n; ++j) out[j] = a[j] / b[j];
-}
-#endif
-void DivideBase(const double* a, const double* b, double* out, size_t n) {
-  size_t j = 0;
-  for (; j + 2 <= n; j += 2) {
-    V2 x, y;
-    std::memcpy(&x, a + j, sizeof x);
-    std::memcpy(&y, b + j, sizeof y);
-    const V2 z = x / y;
-    std::memcpy(out + j, &z, sizeof z);
-  }
-  for (; j < n; ++j) out[j] = a[j] / b[j];
-}
-// REQUIRES: a, b and *out the same size.
-void Divide(const std::vector<double>& a, const std::vector<double>& b, std::vector<double>* out,
-            bool avx) {
-#if defined(AFTERSHOCK_HAVE_AVX_TARGET)
-  if (avx) {
-    DivideAvx(a.data(), b.data(), out->data(), a.size());
-    return;
-  }
-#endif
-  (void)avx;
-  DivideBase(a.data(), b.data(), out->data(), a.size());
+  for (; j < n; ++j) out[j] = a[j] / (b != nullptr ? b[j] : d);
 }
 
-// (*v)[k] /= d for every k, and (*out)[k] = sqrt(a[k]) (REQUIRES: out the size
-// of a, every a[k] >= 0): correctly rounded at any width too.
 #if defined(AFTERSHOCK_HAVE_AVX_TARGET)
-__attribute__((target("avx"))) void DivideByAvx(double* v, size_t n, double d) {
-  size_t j = 0;
-  const V4 dv = {d, d, d, d};
-  for (; j + 4 <= n; j += 4) {
-    V4 x;
-    std::memcpy(&x, v + j, sizeof x);
-    x = x / dv;
-    std::memcpy(v + j, &x, sizeof x);
-  }
-  for (; j < n; ++j) v[j] /= d;
+using V4 = double __attribute__((vector_size(32)));
+__attribute__((target("avx"))) void DivideAvx(const double* a, const double* b, double d,
+                                              double* out, size_t n) {
+  DivideLanes<V4>(a, b, d, out, n);
 }
 __attribute__((target("avx"))) void SqrtAvx(const double* a, double* out, size_t n) {
   size_t j = 0;
@@ -143,24 +117,27 @@ __attribute__((target("avx"))) void SqrtAvx(const double* a, double* out, size_t
   for (; j < n; ++j) out[j] = std::sqrt(a[j]);
 }
 #endif
-void DivideBy(std::vector<double>* v, double d, bool avx) {
+
+void DivideAny(const double* a, const double* b, double d, double* out, size_t n, bool avx) {
 #if defined(AFTERSHOCK_HAVE_AVX_TARGET)
   if (avx) {
-    DivideByAvx(v->data(), v->size(), d);
+    DivideAvx(a, b, d, out, n);
     return;
   }
 #endif
   (void)avx;
-  size_t j = 0;
-  const V2 dv = {d, d};
-  for (; j + 2 <= v->size(); j += 2) {
-    V2 x;
-    std::memcpy(&x, v->data() + j, sizeof x);
-    x = x / dv;
-    std::memcpy(v->data() + j, &x, sizeof x);
-  }
-  for (; j < v->size(); ++j) (*v)[j] /= d;
+  DivideLanes<V2>(a, b, d, out, n);
 }
+// (*out)[j] = a[j] / b[j]. REQUIRES: a, b and *out the same size.
+void Divide(const std::vector<double>& a, const std::vector<double>& b, std::vector<double>* out,
+            bool avx) {
+  DivideAny(a.data(), b.data(), 0.0, out->data(), a.size(), avx);
+}
+// (*v)[j] /= d.
+void DivideBy(std::vector<double>* v, double d, bool avx) {
+  DivideAny(v->data(), nullptr, d, v->data(), v->size(), avx);
+}
+// (*out)[j] = sqrt(a[j]). REQUIRES: *out the size of a, every a[j] >= 0.
 void Sqrt(const std::vector<double>& a, std::vector<double>* out, bool avx) {
 #if defined(AFTERSHOCK_HAVE_AVX_TARGET)
   if (avx) {
