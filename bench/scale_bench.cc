@@ -41,6 +41,7 @@
 #include <atomic>
 #include <chrono>
 #include <cmath>
+#include <cstddef>
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
@@ -540,6 +541,16 @@ class CloseTimes : public BarObserver {
   int64_t burst_cpu_start_ = 0;
 };
 
+// The q-quantile of *v (the value of rank ceil(q n), as Histogram::Quantile
+// counts ranks); 0 when empty. Reorders *v.
+double ExactQuantile(std::vector<double>* v, double q) {
+  if (v->empty()) return 0;
+  const size_t rank = static_cast<size_t>(std::ceil(q * static_cast<double>(v->size())));
+  const size_t i = std::min(v->size() - 1, rank > 0 ? rank - 1 : 0);
+  std::nth_element(v->begin(), v->begin() + static_cast<std::ptrdiff_t>(i), v->end());
+  return (*v)[i];
+}
+
 // Collects the applied refits of the measured minutes.
 class RefitTimes : public ServiceListener {
  public:
@@ -568,12 +579,16 @@ class RefitTimes : public ServiceListener {
     const double ready =
         static_cast<double>(closed - due_end) + (r.queue_seconds + r.job_seconds) * 1e9 * speed;
     ready_lag.Add(ready);
+    ready_exact.push_back(ready);
     applied_lag.Add(static_cast<double>(clock_->NowNs() - due_end));
     if (r.applied_bar == r.scheduled_bar + 1) ++met;
     job_cpu_s += r.job_seconds;
     queue_wait.Add(r.queue_seconds * 1e9);
   }
   Histogram ready_lag, applied_lag, queue_wait;
+  // The ready lags themselves (ns): the histogram's 2 % buckets cannot tell a
+  // p99 just under the 60 s target from one just over it.
+  std::vector<double> ready_exact;
   uint64_t applied = 0, swapped = 0, identified = 0, met = 0;
   uint64_t all_applied = 0;  // measured minutes or not (worker CPU per job)
   uint64_t rejected = 0;     // failed the gate (the next refit identifies)
@@ -639,6 +654,7 @@ struct RunResult {
   uint64_t applied = 0, swapped = 0, identified = 0, met = 0, expected = 0, all_applied = 0;
   uint64_t rejected = 0;
   double identify_s = 0, warm_s = 0;
+  double ready_exact_p50 = 0, ready_exact_p99 = 0;  // from every lag, not the buckets
   double ready_p50 = 0, ready_p99 = 0, applied_p50 = 0, applied_p99 = 0, queue_p99 = 0;
   double wall_s = 0, job_cpu_s = 0, prefill_s = 0, cpu_s = 0, ingest_cpu_s = 0;
   double rss_per_symbol = 0, rss_end_per_symbol = 0;
@@ -836,6 +852,8 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
   out->expected = refits ? static_cast<uint64_t>(n) * static_cast<uint64_t>(f.minutes) : 0;
   out->ready_p50 = times.ready_lag.Quantile(0.5) / 1e9;
   out->ready_p99 = times.ready_lag.Quantile(0.99) / 1e9;
+  out->ready_exact_p50 = ExactQuantile(&times.ready_exact, 0.5) / 1e9;
+  out->ready_exact_p99 = ExactQuantile(&times.ready_exact, 0.99) / 1e9;
   out->applied_p50 = times.applied_lag.Quantile(0.5) / 1e9;
   out->applied_p99 = times.applied_lag.Quantile(0.99) / 1e9;
   out->queue_p99 = times.queue_wait.Quantile(0.99) / 1e9;
@@ -913,9 +931,10 @@ int main(int argc, char** argv) {
       load.expected ? 100.0 * static_cast<double>(load.met) / static_cast<double>(load.expected)
                     : 0.0);
   std::printf(
-      "| refit lag, due bar end -> result ready, p50 / p99 (simulated s) | %.1f / %.1f s "
+      "| refit lag, due bar end -> result ready, p50 / p99 (simulated s): from every lag; "
+      "the histogram's bucket upper edges (2 %% wide) | %.2f / %.2f s; %.1f / %.1f s "
       "| p99 ≤ 60 s |\n",
-      load.ready_p50, load.ready_p99);
+      load.ready_exact_p50, load.ready_exact_p99, load.ready_p50, load.ready_p99);
   std::printf(
       "| refit lag, due bar end -> applied (next bar close), p50 / p99 (simulated s) | "
       "%.1f / %.1f s | (≥ 60 s by design) |\n",
