@@ -135,12 +135,21 @@ class FilterBank {
   // divisions (which StepChunk does two lanes at a time): Recurse advances the
   // state and writes the outputs that need neither, returning the next
   // variance, eps and the standardizing sd; Publish writes sd_next and the rest.
+  double Recurse(const Cols& c, size_t row_size, int lane, uint8_t kind, double r, BarUpdate* out,
+                 double* eps, double* sd);
+  // Recurse on c lanes that are all of kind K (K has kFast; row_size ==
+  // row_), for StepChunk's pass 1; UniformTable(0..127) lists them by K >> 1.
+  template <uint8_t K>
+  void RecurseUniform(const Cols& c, size_t row_size, const int* lanes, const double* r, int n,
+                      BarUpdate* out, double* chunk_buf);
+  using UniformFn = void (FilterBank::*)(const Cols&, size_t, const int*, const double*, int,
+                                         BarUpdate*, double*);
+  template <size_t... I>
+  static auto UniformTable(std::index_sequence<I...>);
+  struct Shape;
   template <int NH, int NL>
-  double Recurse(const Cols& c, int lane, uint8_t kind, double r, BarUpdate* out, double* eps,
-                 double* sd);
-  template <int NH, int NL>
-  void Publish(const Cols& c, int lane, double sd_next, double v, double z, double scale,
-               BarUpdate* out) const;
+  void Publish(const Cols& c, const Shape& shape, int lane, double sd_next, double v, double z,
+               double scale, BarUpdate* out) const;
   template <int NH, int NL>
   void StepLane(const int* lane, const double* r, int c, BarUpdate* out);
   using ChunkFn = void (FilterBank::*)(const int*, const double*, int, BarUpdate*);
@@ -158,9 +167,14 @@ class FilterBank {
 
   // Output shape of the fast lanes.
   int nh_ = 0, nl_ = 0;
-  int horizons_[kMaxHorizons] = {};
-  double levels_[kMaxRiskLevels] = {};
-  double sqrt_ppy_ = 0, scale_num_ = 0, scale_cap_ = 0;
+  struct Shape {
+    int horizons[kMaxHorizons] = {};
+    double levels[kMaxRiskLevels] = {};
+    double sqrt_ppy = 0;   // sqrt(periods per year)
+    double scale_num = 0;  // target annual vol / sqrt_ppy
+    double scale_cap = 0;
+  };
+  Shape shape_;
   int row_ = kRowHead;       // doubles per coefficient row: head + 2 nh + 2 nl
   ChunkFn chunk_ = nullptr;  // StepChunk<nh_, nl_>
   ChunkFn lane_ = nullptr;   // StepLane<nh_, nl_>

@@ -97,12 +97,13 @@ void FilterBank::SetModel(int lane, const FilterModel* model) {
 bool FilterBank::SameShape(const FilterModel& m) const {
   if (m.horizons_.size() != nh_ || m.risk_.size() != nl_) return false;
   for (int i = 0; i < nh_; ++i) {
-    if (m.horizons_.horizon(i) != horizons_[i]) return false;
+    if (m.horizons_.horizon(i) != shape_.horizons[i]) return false;
   }
   for (int i = 0; i < nl_; ++i) {
-    if (m.risk_.level(i) != levels_[i]) return false;
+    if (m.risk_.level(i) != shape_.levels[i]) return false;
   }
-  return m.sqrt_ppy_ == sqrt_ppy_ && m.scale_num_ == scale_num_ && m.scale_cap_ == scale_cap_;
+  return m.sqrt_ppy_ == shape_.sqrt_ppy && m.scale_num_ == shape_.scale_num &&
+         m.scale_cap_ == shape_.scale_cap;
 }
 
 void FilterBank::FillRow(int lane) {
@@ -252,20 +253,20 @@ struct FilterBank::Cols {
   const uint32_t* version;
 };
 
-FilterBank::Cols FilterBank::columns() {
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline FilterBank::Cols FilterBank::columns() {
   return Cols{r1_.data(),     eps1_.data(), next_variance_.data(), e2_1_.data(),
               neg2_1_.data(), s2_1_.data(), sd_next_.data(),       mu_next_.data(),
               bars_.data(),   kind_.data(), coef_.data(),          version_.data()};
 }
 
-template <int NH, int NL>
-ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, int l, uint8_t kind,
-                                                               double x, BarUpdate* o, double* eps,
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, size_t row_size,
+                                                               int l, uint8_t kind, double x,
+                                                               BarUpdate* o, double* eps,
                                                                double* sd) {
   // FilterModel::Advance term by term: the lag writes, then the variance and
-  // the mean forecast in its summation order.
-  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
-  const double* row = c.coef + static_cast<size_t>(l) * kRow;
+  // the mean forecast in its summation order. Inlined where kind is a
+  // compile-time constant (RecurseUniform), the kind tests fold away.
+  const double* row = c.coef + static_cast<size_t>(l) * row_size;
   const double mu = c.mn[l];
   const double var = c.nv[l];
   const double e = x - mu;
@@ -304,22 +305,22 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, in
 }
 
 template <int NH, int NL>
-ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, int l, double s,
-                                                             double v, double z, double sc,
-                                                             BarUpdate* o) const {
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, const Shape& sh, int l,
+                                                             double s, double v, double z,
+                                                             double sc, BarUpdate* o) const {
   // FilterStep's outputs from the next-bar forecasts, in its order.
   constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;
   const double* row = c.coef + static_cast<size_t>(l) * kRow;
   const double m = c.mn[l];
   c.sd[l] = s;
   o->z = z;
-  o->vol_ann = s * sqrt_ppy_;
+  o->vol_ann = s * sh.sqrt_ppy;
   o->n_horizons = NH;
   const double* sum_a = row + kRowHead;
   const double* sum_b = sum_a + NH;
 #pragma GCC unroll 8
   for (int i = 0; i < NH; ++i) {
-    o->horizons[i] = horizons_[i];
+    o->horizons[i] = sh.horizons[i];
     o->var_h[i] = sum_a[i] + sum_b[i] * v;
   }
   o->n_levels = NL;
@@ -327,11 +328,11 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, int 
   const double* es = q + NL;
 #pragma GCC unroll 4
   for (int i = 0; i < NL; ++i) {
-    o->levels[i] = levels_[i];
+    o->levels[i] = sh.levels[i];
     o->var_risk[i] = -(m + s * q[i]);
     o->es[i] = s * es[i] - m;
   }
-  o->scale = std::min(scale_cap_, sc);
+  o->scale = std::min(sh.scale_cap, sc);
   o->ver = c.version[l];
 }
 
@@ -341,32 +342,75 @@ void FilterBank::StepLane(const int* lane, const double* r, int /*c*/, BarUpdate
   // round as the chunk's sqrtpd/divpd do.
   const Cols c = columns();
   double e, sd;
-  const double v = Recurse<NH, NL>(c, *lane, c.kind[*lane], *r, out, &e, &sd);
+  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
+  const double v = Recurse(c, kRow, *lane, c.kind[*lane], *r, out, &e, &sd);
   const double s = std::sqrt(v);
-  Publish<NH, NL>(c, *lane, s, v, e / sd, scale_num_ / s, out);
+  Publish<NH, NL>(c, shape_, *lane, s, v, e / sd, shape_.scale_num / s, out);
+}
+
+template <uint8_t K>
+void FilterBank::RecurseUniform(const Cols& cols, size_t row_size, const int* lanes,
+                                const double* r, int c, BarUpdate* __restrict out,
+                                double* __restrict buf) {
+  // One base for the three chunk arrays: the loop is short of registers.
+  double* eps = buf;
+  double* sd = buf + kChunk;
+  double* vn = buf + 2 * kChunk;
+  for (int k = 0; k < c; ++k) {
+    vn[k] = Recurse(cols, row_size, lanes[k], K, r[k], &out[k], &eps[k], &sd[k]);
+  }
+}
+
+template <size_t... I>
+auto FilterBank::UniformTable(std::index_sequence<I...>) {
+  // Entry i: the kind (i << 1) | kFast.
+  return std::array<UniformFn, sizeof...(I)>{
+      &FilterBank::RecurseUniform<static_cast<uint8_t>((I << 1) | kFast)>...};
 }
 
 template <int NH, int NL>
 void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* out) {
   // Per chunk: eps, the standardizing sd, next variance; then sd_next, z and
   // the unclamped scale from pass 2.
-  alignas(32) double eps[kChunk], sd[kChunk], vn[kChunk], sdn[kChunk], z[kChunk], sc[kChunk];
+  alignas(32) double buf[6 * kChunk];
+  double* const eps = buf;
+  double* const sd = buf + kChunk;
+  double* const vn = buf + 2 * kChunk;
+  double* const sdn = buf + 3 * kChunk;
+  double* const z = buf + 4 * kChunk;
+  double* const sc = buf + 5 * kChunk;
   bool fast[kChunk];
+  constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
   const Cols cols = columns();
+  // A copy: stores through BarUpdate* cannot alias a local, so the output
+  // loops keep the shape in registers instead of reloading the member after
+  // every store.
+  const Shape sh = shape_;
   // Pass 1, per lane: the recursions and the outputs that need no division or
-  // root; lanes that are not fast step whole through FilterStep.
-  for (int k = 0; k < c; ++k) {
-    const int l = lanes[k];
-    const uint8_t kind = cols.kind[l];
-    fast[k] = (kind & kFast) != 0;
-    if (!fast[k]) {
-      StepGathered(l, *model_[l], r[k], &out[k]);
-      eps[k] = 0.0;  // pass 2 computes on these harmlessly; pass 3 skips the lane
-      sd[k] = 1.0;
-      vn[k] = 1.0;
-      continue;
+  // root; lanes that are not fast step whole through FilterStep. A chunk
+  // whose lanes are all fast with one kind (the usual case: one model family
+  // across a universe) runs a loop compiled for that kind, without the
+  // per-term branches (filter_bench: 13.9 -> 13.2 ns a step).
+  const uint8_t k0 = cols.kind[lanes[0]];
+  bool uniform = (k0 & kFast) != 0;
+  for (int k = 1; k < c; ++k) uniform &= cols.kind[lanes[k]] == k0;
+  if (uniform) {
+    static const auto table = UniformTable(std::make_index_sequence<128>());
+    (this->*table[k0 >> 1])(cols, kRow, lanes, r, c, out, buf);
+  } else {
+    for (int k = 0; k < c; ++k) {
+      const int l = lanes[k];
+      const uint8_t kind = cols.kind[l];
+      fast[k] = (kind & kFast) != 0;
+      if (!fast[k]) {
+        StepGathered(l, *model_[l], r[k], &out[k]);
+        eps[k] = 0.0;  // pass 2 computes on these harmlessly; pass 3 skips the lane
+        sd[k] = 1.0;
+        vn[k] = 1.0;
+        continue;
+      }
+      vn[k] = Recurse(cols, kRow, l, kind, r[k], &out[k], &eps[k], &sd[k]);
     }
-    vn[k] = Recurse<NH, NL>(cols, l, kind, r[k], &out[k], &eps[k], &sd[k]);
   }
   // Pass 2, over the chunk: the root and the two divisions, four lanes per
   // instruction with AVX, two with SSE2 (the divider is the step's
@@ -380,11 +424,11 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
   }
 #if defined(AFTERSHOCK_HAVE_AVX_TARGET)
   if (avx_) {
-    RootsAndQuotientsAvx(cp, vn, eps, sd, scale_num_, sdn, z, sc);
+    RootsAndQuotientsAvx(cp, vn, eps, sd, sh.scale_num, sdn, z, sc);
   } else
 #endif
   {
-    const __m128d num = _mm_set1_pd(scale_num_);
+    const __m128d num = _mm_set1_pd(sh.scale_num);
     for (int k = 0; k < cp; k += 2) {
       const __m128d s = _mm_sqrt_pd(_mm_load_pd(vn + k));
       _mm_store_pd(sdn + k, s);
@@ -396,13 +440,18 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
   for (int k = 0; k < c; ++k) {
     sdn[k] = std::sqrt(vn[k]);
     z[k] = eps[k] / sd[k];
-    sc[k] = scale_num_ / sdn[k];
+    sc[k] = sh.scale_num / sdn[k];
   }
 #endif
   // Pass 3, per lane: sd_next into the state and the outputs from the
   // next-bar forecasts.
-  for (int k = 0; k < c; ++k) {
-    if (fast[k]) Publish<NH, NL>(cols, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
+  if (uniform) {
+    for (int k = 0; k < c; ++k)
+      Publish<NH, NL>(cols, sh, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
+  } else {
+    for (int k = 0; k < c; ++k) {
+      if (fast[k]) Publish<NH, NL>(cols, sh, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
+    }
   }
 }
 
@@ -423,11 +472,11 @@ FilterBank::FilterBank(const OutputOptions& outputs) : avx_(internal::CpuHasAvx(
   // As FilterModel::Create computes them, so that SameShape compares equal.
   nh_ = std::min(static_cast<int>(outputs.horizons.size()), kMaxHorizons);
   nl_ = std::min(static_cast<int>(outputs.risk_levels.size()), kMaxRiskLevels);
-  for (int i = 0; i < nh_; ++i) horizons_[i] = outputs.horizons[i];
-  for (int i = 0; i < nl_; ++i) levels_[i] = outputs.risk_levels[i];
-  sqrt_ppy_ = std::sqrt(outputs.periods_per_year);
-  scale_num_ = outputs.target_vol_ann / sqrt_ppy_;
-  scale_cap_ = outputs.scale_cap;
+  for (int i = 0; i < nh_; ++i) shape_.horizons[i] = outputs.horizons[i];
+  for (int i = 0; i < nl_; ++i) shape_.levels[i] = outputs.risk_levels[i];
+  shape_.sqrt_ppy = std::sqrt(outputs.periods_per_year);
+  shape_.scale_num = outputs.target_vol_ann / shape_.sqrt_ppy;
+  shape_.scale_cap = outputs.scale_cap;
   row_ = kRowHead + 2 * nh_ + 2 * nl_;
   constexpr size_t kShapes = (kMaxHorizons + 1) * (kMaxRiskLevels + 1);
   static const auto chunks = ChunkTable<false>(std::make_index_sequence<kShapes>());
