@@ -583,6 +583,13 @@ class RefitTimes : public ServiceListener {
     applied_lag.Add(static_cast<double>(clock_->NowNs() - due_end));
     if (r.applied_bar == r.scheduled_bar + 1) ++met;
     job_cpu_s += r.job_seconds;
+    const size_t minute = static_cast<size_t>(r.scheduled_bar - first_bar_);
+    if (minute_jobs.size() <= minute) {
+      minute_jobs.resize(minute + 1, 0);
+      minute_job_s.resize(minute + 1, 0.0);
+    }
+    ++minute_jobs[minute];
+    minute_job_s[minute] += r.job_seconds;
     queue_wait.Add(r.queue_seconds * 1e9);
   }
   Histogram ready_lag, applied_lag, queue_wait;
@@ -594,6 +601,11 @@ class RefitTimes : public ServiceListener {
   uint64_t rejected = 0;     // failed the gate (the next refit identifies)
   double job_cpu_s = 0;
   double identify_s = 0, warm_s = 0;  // worker wall time by kind
+  // By measured minute (0 = the first): jobs and their worker wall time. The
+  // first minute's warm refits start from the stored models, later ones from
+  // the previous minute's fit, a bar's data away (fewer Newton steps).
+  std::vector<uint64_t> minute_jobs;
+  std::vector<double> minute_job_s;
 
  private:
   const CloseTimes* closes_;
@@ -657,6 +669,7 @@ struct RunResult {
   double ready_exact_p50 = 0, ready_exact_p99 = 0;  // from every lag, not the buckets
   double ready_p50 = 0, ready_p99 = 0, applied_p50 = 0, applied_p99 = 0, queue_p99 = 0;
   double wall_s = 0, job_cpu_s = 0, prefill_s = 0, cpu_s = 0, ingest_cpu_s = 0;
+  std::vector<double> minute_ms_per_job;  // worker wall time per job by measured minute
   double rss_per_symbol = 0, rss_end_per_symbol = 0;
   // At the end: heap bytes in use, and held by the allocator (in use or free).
   double heap_in_use_end_per_symbol = 0, heap_held_end_per_symbol = 0;
@@ -858,6 +871,12 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
   out->applied_p99 = times.applied_lag.Quantile(0.99) / 1e9;
   out->queue_p99 = times.queue_wait.Quantile(0.99) / 1e9;
   out->job_cpu_s = times.job_cpu_s;
+  for (size_t m = 0; m < times.minute_jobs.size(); ++m) {
+    out->minute_ms_per_job.push_back(times.minute_jobs[m]
+                                         ? 1e3 * times.minute_job_s[m] /
+                                               static_cast<double>(times.minute_jobs[m])
+                                         : 0.0);
+  }
   out->ticks = feed->ticks();
   out->updates = sink->updates - updates0;
   out->models = sink->models;
@@ -961,6 +980,15 @@ int main(int argc, char** argv) {
         static_cast<unsigned long long>(load.identified),
         load.identify_s + load.warm_s > 0 ? 100 * load.identify_s / (load.identify_s + load.warm_s)
                                           : 0.0);
+    std::string by_minute;
+    for (size_t m = 0; m < load.minute_ms_per_job.size(); ++m) {
+      absl::StrAppend(&by_minute, m ? " / " : "",
+                      absl::StrFormat("%.3f", load.minute_ms_per_job[m]));
+    }
+    std::printf(
+        "| worker wall time per job by measured minute (the first re-estimates from the stored "
+        "models, the later ones from the previous minute's fit) | %s ms | |\n",
+        by_minute.c_str());
     std::printf("| refits that failed the gate (the next one identifies) | %llu (%.1f %%) | |\n",
                 static_cast<unsigned long long>(load.rejected),
                 load.applied
