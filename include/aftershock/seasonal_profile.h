@@ -250,20 +250,6 @@ inline bool SeasonalInput(const SeasonalProfile* profile, double r, int32_t tag,
   return true;
 }
 
-// The factor SeasonalInput applies to a tagged return: 1 / s(k), or one over
-// the square root of the overnight multiplier for an overnight tag; 1 without a
-// profile, for a bucket the profile does not cover, or for an overnight tag
-// without a multiplier. Residuals times it are in the filter's deseasonalized
-// units (the regime detector reads them so, alerts.h).
-inline double SeasonalInvScale(const SeasonalProfile* profile, int32_t tag) {
-  if (profile == nullptr) return 1.0;
-  if (tag & kSeasonalTagOvernight) {
-    return profile->has_overnight() ? 1.0 / std::sqrt(profile->overnight_factor()) : 1.0;
-  }
-  const int k = SeasonalTagBucket(tag);
-  return k < profile->buckets() ? profile->inv_scale(k) : 1.0;
-}
-
 // Log of s for a tagged return (0 without a profile): the Jacobian term that
 // turns a log-likelihood of deseasonalized returns into one of raw returns.
 double SeasonalLogScale(const SeasonalProfile* profile, int32_t tag);
