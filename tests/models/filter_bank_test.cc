@@ -141,6 +141,30 @@ double RandomReturn(std::mt19937_64* rng, double scale) {
   return scale * g(*rng);
 }
 
+// One bar through StepBatch on a random share of the lanes in random order
+// (the engine's batches are ascending), each lane compared bit for bit with
+// FilterStep on its reference state.
+void StepRandomSubset(Universe* w, double share, int bar, std::mt19937_64* rng) {
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  std::vector<int> lanes;
+  for (int l = 0; l < w->bank.size(); ++l) {
+    if (u(*rng) < share) lanes.push_back(l);
+  }
+  std::shuffle(lanes.begin(), lanes.end(), *rng);
+  std::vector<double> r;
+  for (size_t k = 0; k < lanes.size(); ++k) r.push_back(RandomReturn(rng, 0.01));
+  std::vector<BarUpdate> out(lanes.size()), want(lanes.size());
+  w->bank.StepBatch(lanes, r, out.data());
+  for (size_t k = 0; k < lanes.size(); ++k) {
+    const int l = lanes[k];
+    FilterStep(*w->lane_model[l], &w->ref[l], r[k], &want[k]);
+    INFO("bar " << bar << " lane " << l << " " << w->lane_model[l]->params().spec.Label()
+                << " fast " << w->bank.fast(l) << " r " << r[k]);
+    RequireSameUpdate(out[k], want[k]);
+    RequireSameState(w->bank.Get(l), w->ref[l]);
+  }
+}
+
 TEST_CASE("batch step equals the scalar step bit for bit, every family and law", "[bank]") {
   // The bank's own choice (AVX where the CPU has it), then two lanes at a time.
   const bool wide = GENERATE(true, false);
@@ -192,29 +216,8 @@ TEST_CASE("batch step equals the scalar step bit for bit, every family and law",
     REQUIRE(fast > kLanes / 3);
     REQUIRE(fast < kLanes);
 
-    std::vector<int> lanes;
-    std::vector<double> r;
-    std::vector<BarUpdate> out, want;
     for (int bar = 0; bar < 60; ++bar) {
-      // A random subset in random order (the engine's batches are ascending).
-      lanes.clear();
-      for (int l = 0; l < kLanes; ++l) {
-        if (u(rng) < 0.8) lanes.push_back(l);
-      }
-      std::shuffle(lanes.begin(), lanes.end(), rng);
-      r.clear();
-      for (size_t k = 0; k < lanes.size(); ++k) r.push_back(RandomReturn(&rng, 0.01));
-      out.assign(lanes.size(), BarUpdate{});
-      want.assign(lanes.size(), BarUpdate{});
-      w.bank.StepBatch(lanes, r, out.data());
-      for (size_t k = 0; k < lanes.size(); ++k) {
-        const int l = lanes[k];
-        FilterStep(*w.lane_model[l], &w.ref[l], r[k], &want[k]);
-        INFO("bar " << bar << " lane " << l << " " << w.lane_model[l]->params().spec.Label()
-                    << " fast " << w.bank.fast(l) << " r " << r[k]);
-        RequireSameUpdate(out[k], want[k]);
-        RequireSameState(w.bank.Get(l), w.ref[l]);
-      }
+      StepRandomSubset(&w, 0.8, bar, &rng);
       // Model swaps between bars, as the refit coordinator makes them: a new
       // version kept on the state, or an EWMA fallback restarted.
       for (int s = 0; s < 5; ++s) {
@@ -282,26 +285,9 @@ TEST_CASE("a chunk of one kind equals the scalar step bit for bit, every fast fa
       if (!w.bank.fast(0)) continue;  // higher orders: FilterStep, tested above
       ++families_run;
       INFO(spec->Label() << (wide ? ", the CPU's widest roots" : ", two lanes per root"));
-      std::vector<int> lanes;
-      std::vector<double> r;
-      std::vector<BarUpdate> out, want;
       for (int bar = 0; bar < 40; ++bar) {
-        lanes.clear();
+        StepRandomSubset(&w, 0.85, bar, &rng);
         for (int l = 0; l < kLanes; ++l) {
-          if (u(rng) < 0.85) lanes.push_back(l);
-        }
-        std::shuffle(lanes.begin(), lanes.end(), rng);
-        r.clear();
-        for (size_t k = 0; k < lanes.size(); ++k) r.push_back(RandomReturn(&rng, 0.01));
-        out.assign(lanes.size(), BarUpdate{});
-        want.assign(lanes.size(), BarUpdate{});
-        w.bank.StepBatch(lanes, r, out.data());
-        for (size_t k = 0; k < lanes.size(); ++k) {
-          const int l = lanes[k];
-          FilterStep(*w.lane_model[l], &w.ref[l], r[k], &want[k]);
-          INFO("bar " << bar << " lane " << l << " r " << r[k]);
-          RequireSameUpdate(out[k], want[k]);
-          RequireSameState(w.bank.Get(l), w.ref[l]);
           if (!std::isfinite(w.ref[l].var.next_variance) || !(w.ref[l].var.next_variance > 0)) {
             w.bank.Init(l, ewma ? 1e-4 : 0.0);  // an overflowed lane restarts, as in the engine
             InitFilterState(*w.lane_model[l], ewma ? 1e-4 : 0.0, &w.ref[l]);
