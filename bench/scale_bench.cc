@@ -586,9 +586,11 @@ class RefitTimes : public ServiceListener {
     const size_t minute = static_cast<size_t>(r.scheduled_bar - first_bar_);
     if (minute_jobs.size() <= minute) {
       minute_jobs.resize(minute + 1, 0);
+      minute_idents.resize(minute + 1, 0);
       minute_job_s.resize(minute + 1, 0.0);
     }
     ++minute_jobs[minute];
+    if (ident) ++minute_idents[minute];
     minute_job_s[minute] += r.job_seconds;
     queue_wait.Add(r.queue_seconds * 1e9);
   }
@@ -604,7 +606,7 @@ class RefitTimes : public ServiceListener {
   // By measured minute (0 = the first): jobs and their worker wall time. The
   // first minute's warm refits start from the stored models, later ones from
   // the previous minute's fit, a bar's data away (fewer Newton steps).
-  std::vector<uint64_t> minute_jobs;
+  std::vector<uint64_t> minute_jobs, minute_idents;
   std::vector<double> minute_job_s;
 
  private:
@@ -670,6 +672,7 @@ struct RunResult {
   double ready_p50 = 0, ready_p99 = 0, applied_p50 = 0, applied_p99 = 0, queue_p99 = 0;
   double wall_s = 0, job_cpu_s = 0, prefill_s = 0, cpu_s = 0, ingest_cpu_s = 0;
   std::vector<double> minute_ms_per_job;  // worker wall time per job by measured minute
+  std::vector<uint64_t> minute_idents;    // identifications by measured minute
   double rss_per_symbol = 0, rss_end_per_symbol = 0;
   // At the end: heap bytes in use, and held by the allocator (in use or free).
   double heap_in_use_end_per_symbol = 0, heap_held_end_per_symbol = 0;
@@ -877,6 +880,7 @@ bool RunOnce(const Flags& f, bool refits, RunResult* out) {
                                                static_cast<double>(times.minute_jobs[m])
                                          : 0.0);
   }
+  out->minute_idents = times.minute_idents;
   out->ticks = feed->ticks();
   out->updates = sink->updates - updates0;
   out->models = sink->models;
@@ -983,11 +987,13 @@ int main(int argc, char** argv) {
     std::string by_minute;
     for (size_t m = 0; m < load.minute_ms_per_job.size(); ++m) {
       absl::StrAppend(&by_minute, m ? " / " : "",
-                      absl::StrFormat("%.3f", load.minute_ms_per_job[m]));
+                      absl::StrFormat("%.3f (%llu)", load.minute_ms_per_job[m],
+                                      static_cast<unsigned long long>(load.minute_idents[m])));
     }
     std::printf(
         "| worker wall time per job by measured minute (the first re-estimates from the stored "
-        "models, the later ones from the previous minute's fit) | %s ms | |\n",
+        "models, the later ones from the previous minute's fit), in brackets the identifications | "
+        "%s ms | |\n",
         by_minute.c_str());
     std::printf("| refits that failed the gate (the next one identifies) | %llu (%.1f %%) | |\n",
                 static_cast<unsigned long long>(load.rejected),
