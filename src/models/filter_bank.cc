@@ -390,7 +390,8 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
   // root; lanes that are not fast step whole through FilterStep. A chunk
   // whose lanes are all fast with one kind (the usual case: one model family
   // across a universe) runs a loop compiled for that kind, without the
-  // per-term branches (filter_bench: 13.9 -> 13.2 ns a step).
+  // per-term branches (with the shape copy above, filter_bench: the batch step
+  // 13.5 -> 12.9 ns).
   const uint8_t k0 = cols.kind[lanes[0]];
   bool uniform = (k0 & kFast) != 0;
   for (int k = 1; k < c; ++k) uniform &= cols.kind[lanes[k]] == k0;
