@@ -132,7 +132,7 @@ class FilterBank {
   struct Cols;
   Cols columns();
   // The kernel of one fast lane in two halves around the root and the two
-  // divisions (which StepChunk does two lanes at a time): Recurse advances the
+  // divisions (which StepChunk does for several lanes per instruction): Recurse advances the
   // state and writes the outputs that need neither, returning the next
   // variance, eps and the standardizing sd; Publish writes sd_next and the rest.
   double Recurse(const Cols& c, size_t row_size, int lane, uint8_t kind, double r, BarUpdate* out,
@@ -146,7 +146,15 @@ class FilterBank {
                                          BarUpdate*, double*);
   template <size_t... I>
   static auto UniformTable(std::index_sequence<I...>);
-  struct Shape;
+  // Output shape of the fast lanes (Publish reads a copy of shape_: stores
+  // through BarUpdate* cannot alias a local).
+  struct Shape {
+    int horizons[kMaxHorizons] = {};
+    double levels[kMaxRiskLevels] = {};
+    double sqrt_ppy = 0;   // sqrt(periods per year)
+    double scale_num = 0;  // target annual vol / sqrt_ppy
+    double scale_cap = 0;
+  };
   template <int NH, int NL>
   void Publish(const Cols& c, const Shape& shape, int lane, double sd_next, double v, double z,
                double scale, BarUpdate* out) const;
@@ -167,13 +175,6 @@ class FilterBank {
 
   // Output shape of the fast lanes.
   int nh_ = 0, nl_ = 0;
-  struct Shape {
-    int horizons[kMaxHorizons] = {};
-    double levels[kMaxRiskLevels] = {};
-    double sqrt_ppy = 0;   // sqrt(periods per year)
-    double scale_num = 0;  // target annual vol / sqrt_ppy
-    double scale_cap = 0;
-  };
   Shape shape_;
   int row_ = kRowHead;       // doubles per coefficient row: head + 2 nh + 2 nl
   ChunkFn chunk_ = nullptr;  // StepChunk<nh_, nl_>
