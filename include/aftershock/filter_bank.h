@@ -31,6 +31,7 @@
 #ifndef AFTERSHOCK_FILTER_BANK_H_
 #define AFTERSHOCK_FILTER_BANK_H_
 
+#include <array>
 #include <cstddef>
 #include <cstdint>
 #include <utility>
@@ -195,6 +196,9 @@ class FilterBank {
   // Per lane: model, kind bits, version, coefficient row (row_ doubles).
   std::vector<const FilterModel*> model_;
   std::vector<uint8_t> kind_;
+  // Lanes of each kind (indexed by the kind byte): StepChunk skips its
+  // per-lane uniformity check when one kind holds every lane.
+  std::array<int, 256> kind_lanes_{};
   std::vector<uint32_t> version_;
   std::vector<double> coef_;
   // Step/Advance of a model with every order <= 1 gather the hot values into

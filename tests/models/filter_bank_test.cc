@@ -285,7 +285,22 @@ TEST_CASE("a chunk of one kind equals the scalar step bit for bit, every fast fa
       if (!w.bank.fast(0)) continue;  // higher orders: FilterStep, tested above
       ++families_run;
       INFO(spec->Label() << (wide ? ", the CPU's widest roots" : ", two lanes per root"));
+      // Bars 20-29: one lane runs a family of another kind (its chunk is
+      // mixed, the others still uniform); at bar 30 it gets its own back.
+      const int odd = static_cast<int>(rng() % kLanes);
+      const FilterModel* own = w.lane_model[odd];
+      const bool flat = std::string(f.variance) == "flat";
+      auto other_spec = flat ? MakeModelSpec("constant", {}, "garch", {1, 1, -1}, law)
+                             : MakeModelSpec("zero", {}, "flat", {}, law);
+      REQUIRE(other_spec.ok());
+      auto other = FilterModel::Create(RandomParams(*other_spec, &rng), oo, 50);
+      REQUIRE(other.ok());
       for (int bar = 0; bar < 40; ++bar) {
+        if (bar == 20 || bar == 30) {
+          w.lane_model[odd] = bar == 20 ? &*other : own;
+          w.bank.SetModel(odd, w.lane_model[odd]);
+          REQUIRE(w.bank.fast(odd));
+        }
         StepRandomSubset(&w, 0.85, bar, &rng);
         for (int l = 0; l < kLanes; ++l) {
           if (!std::isfinite(w.ref[l].var.next_variance) || !(w.ref[l].var.next_variance > 0)) {
