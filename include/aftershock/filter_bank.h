@@ -1,22 +1,22 @@
-// FilterBank: the filter states of many symbols in structure-of-arrays form,
-// each beside a compact copy of its model's coefficients, and the batch step
-// that advances the symbols whose bars close together (time bars closed by the
-// clock: IngestCore::OnClock). The ingest core keeps every symbol's filter
-// state here; a symbol is a lane (its index).
+// FilterBank: the filter states of many symbols, one packed row per symbol
+// holding its hot state beside a compact copy of its model's coefficients,
+// and the batch step that advances the symbols whose bars close together
+// (time bars closed by the clock: IngestCore::OnClock). The ingest core keeps
+// every symbol's filter state here; a symbol is a lane (its index).
 //
 // Layout (DEVELOPERS.md "Filter state layout"), for lane i:
-//   * hot state, one column per value (structure of arrays): r_hist[0],
-//     eps_hist[0], var.next_variance, var.eps2[0], var.neg_eps2[0],
-//     var.sigma2[0], sd_next, mu_next, bars. A step of a model whose orders
-//     are all <= 1 reads and writes only these, 8 bytes per column.
+//   * one row of doubles: the hot state (r_hist[0], eps_hist[0],
+//     var.next_variance, var.eps2[0], var.neg_eps2[0], var.sigma2[0],
+//     sd_next, mu_next, the bits of bars and of the model version), then the
+//     coefficients: mu, ar_1, ma_1, omega, alpha_1, gamma_1, beta_1, lambda,
+//     the horizon table's sum coefficients (a then b) and the risk quantiles
+//     and ES multipliers of the bank's output shape. A step of a model whose
+//     orders are all <= 1 reads and writes only its row, front to back, from
+//     one base address.
 //   * cold state, one row per lane: the higher lags (r_hist[1..], eps_hist[1..],
 //     eps2[1..], neg_eps2[1..], sigma2[1..]), touched only by steps of higher
 //     orders and by Get/Set.
-//   * coefficients, one packed row per lane: mu, ar_1, ma_1, omega, alpha_1,
-//     gamma_1, beta_1, lambda, then the horizon table's sum coefficients
-//     (a then b) and the risk quantiles and ES multipliers of the bank's output
-//     shape; the row is read once per step, front to back.
-//   * the model pointer, its version and a kind byte (which terms the model has).
+//   * the model pointer and a kind byte (which terms the model has).
 //
 // A lane is "fast" when its model has every order <= 1, closed-form horizons
 // (forecast.h) and the bank's output shape (horizons, risk levels,
@@ -34,6 +34,7 @@
 #include <array>
 #include <cstddef>
 #include <cstdint>
+#include <cstring>
 #include <utility>
 #include <vector>
 
@@ -53,7 +54,7 @@ class FilterBank {
   FilterBank& operator=(const FilterBank&) = delete;
 
   // Address space for n lanes, so that adding up to n lanes does not move the
-  // columns.
+  // rows.
   void Reserve(int n);
   int size() const { return static_cast<int>(model_.size()); }
 
@@ -81,9 +82,9 @@ class FilterBank {
   void GetCold(int lane, FilterState* s) const;
   uint64_t cold_stamp(int lane) const { return cold_stamp_[lane]; }
   // Hot values without a gather.
-  double next_variance(int lane) const { return next_variance_[lane]; }
-  double mu_next(int lane) const { return mu_next_[lane]; }
-  double sd_next(int lane) const { return sd_next_[lane]; }
+  double next_variance(int lane) const { return Row(lane)[kNv]; }
+  double mu_next(int lane) const { return Row(lane)[kMn]; }
+  double sd_next(int lane) const { return Row(lane)[kSd]; }
 
   // InitFilterState / AdvanceState on a lane with its own model.
   void Init(int lane, double variance);
@@ -116,7 +117,43 @@ class FilterBank {
     kEwma = 1 << 7,   // lambda var + (1 - lambda) e2
   };
   // Offsets in a coefficient row.
-  enum { kMu, kArC, kMaC, kOmega, kAlphaC, kGammaC, kBetaC, kLambda, kRowHead };
+  // Offsets in a lane's row: the hot state (lag-0 values, sd_next,
+  // mu_next, the bar count's and the version's bits), then the coefficients
+  // (head, then the tables from kRowHead on).
+  enum {
+    kR1,     // r_hist[0]
+    kEps1,   // eps_hist[0]
+    kNv,     // var.next_variance
+    kE21,    // var.eps2[0]
+    kNeg21,  // var.neg_eps2[0]
+    kS21,    // var.sigma2[0]
+    kSd,     // sd_next
+    kMn,     // mu_next
+    kBars,   // bars: the int64's bits (LoadBars/StoreBars)
+    kVer,    // model version: a uint32's bits in the low bytes
+    kMu,
+    kArC,
+    kMaC,
+    kOmega,
+    kAlphaC,
+    kGammaC,
+    kBetaC,
+    kLambda,
+    kRowHead
+  };
+  const double* Row(int lane) const { return &rows_[static_cast<size_t>(lane) * row_]; }
+  static int64_t LoadBars(const double* row) {
+    int64_t b;
+    std::memcpy(&b, row + kBars, sizeof(b));
+    return b;
+  }
+  static void StoreBars(double* row, int64_t b) { std::memcpy(row + kBars, &b, sizeof(b)); }
+  static uint32_t LoadVersion(const double* row) {
+    uint32_t v;
+    std::memcpy(&v, row + kVer, sizeof(v));
+    return v;
+  }
+  static void StoreVersion(double* row, uint32_t v) { std::memcpy(row + kVer, &v, sizeof(v)); }
   // Higher lags per lane in the cold row.
   static constexpr int kColdR = kMaxArmaOrder - 1;
   static constexpr int kColdEps = kMaxArmaOrder - 1;
@@ -129,7 +166,7 @@ class FilterBank {
   // bank's shape as compile-time counts: the output loops unroll).
   template <int NH, int NL>
   void StepChunk(const int* lanes, const double* r, int c, BarUpdate* out);
-  // Column bases for the kernels (loaded once per call).
+  // The rows' and kind bytes' bases for the kernels (loaded once per call).
   struct Cols;
   Cols columns();
   // The kernel of one fast lane in two halves around the root and the two
@@ -177,7 +214,7 @@ class FilterBank {
   // Output shape of the fast lanes.
   int nh_ = 0, nl_ = 0;
   Shape shape_;
-  int row_ = kRowHead;       // doubles per coefficient row: head + 2 nh + 2 nl
+  int row_ = kRowHead;       // doubles per lane row: state, head, 2 nh + 2 nl
   ChunkFn chunk_ = nullptr;  // StepChunk<nh_, nl_>
   ChunkFn lane_ = nullptr;   // StepLane<nh_, nl_>
   // StepChunk takes the roots and divisions four lanes at a time (the CPU has
@@ -185,22 +222,19 @@ class FilterBank {
   bool avx_ = false;
   friend class FilterBankTestPeer;  // sets avx_, so that tests cover both paths
 
-  // Hot state columns.
-  std::vector<double> r1_, eps1_, next_variance_, e2_1_, neg2_1_, s2_1_, sd_next_, mu_next_;
-  std::vector<int64_t> bars_;
+  // One row per lane (row_ doubles): hot state, version and coefficients.
+  std::vector<double> rows_;
   std::vector<double> cold_;  // kCold per lane
   // Per lane: the stamp of the last write of its cold row (cold_stamp);
   // stamps come from cold_clock_, which only grows.
   std::vector<uint64_t> cold_stamp_;
   uint64_t cold_clock_ = 0;
-  // Per lane: model, kind bits, version, coefficient row (row_ doubles).
+  // Per lane: model and kind bits.
   std::vector<const FilterModel*> model_;
   std::vector<uint8_t> kind_;
   // Lanes of each kind (indexed by the kind byte): StepChunk skips its
   // per-lane uniformity check when one kind holds every lane.
   std::array<int, 256> kind_lanes_{};
-  std::vector<uint32_t> version_;
-  std::vector<double> coef_;
   // Step/Advance of a model with every order <= 1 gather the hot values into
   // it; its higher lags stay zero (such a step never reads or writes them),
   // so it is never cleared.

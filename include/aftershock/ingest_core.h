@@ -341,7 +341,7 @@ class IngestCore : public TickConsumer {
   const FilterModel& model(int index) const { return *slots_[index].model; }
   const SeasonalProfile* seasonal_profile(int index) const { return slots_[index].profile.get(); }
   // The symbol's filter state, gathered from the core's FilterBank
-  // (filter_bank.h: structure-of-arrays columns).
+  // (filter_bank.h: one packed row per symbol).
   FilterState filter_state(int index) const { return bank_.Get(index); }
   // Its next variance alone (filter_state(index).var.next_variance, without
   // gathering the rest).

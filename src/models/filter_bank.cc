@@ -58,33 +58,21 @@ __attribute__((target("avx"))) void RootsAndQuotientsAvx(int n, const double* vn
 
 void FilterBank::Reserve(int n) {
   const size_t k = static_cast<size_t>(std::max(n, 0));
-  for (std::vector<double>* c :
-       {&r1_, &eps1_, &next_variance_, &e2_1_, &neg2_1_, &s2_1_, &sd_next_, &mu_next_}) {
-    c->reserve(k);
-  }
-  bars_.reserve(k);
+  rows_.reserve(k * static_cast<size_t>(row_));
   cold_.reserve(k * kCold);
   cold_stamp_.reserve(k);
   model_.reserve(k);
   kind_.reserve(k);
-  version_.reserve(k);
-  coef_.reserve(k * static_cast<size_t>(row_));
 }
 
 int FilterBank::Add(const FilterModel* model, const FilterState& state) {
   const int lane = size();
-  for (std::vector<double>* c :
-       {&r1_, &eps1_, &next_variance_, &e2_1_, &neg2_1_, &s2_1_, &sd_next_, &mu_next_}) {
-    c->push_back(0.0);
-  }
-  bars_.push_back(0);
+  rows_.resize(rows_.size() + static_cast<size_t>(row_), 0.0);
   cold_.resize(cold_.size() + kCold);
   cold_stamp_.push_back(0);  // Set below stamps it
   model_.push_back(model);
   kind_.push_back(0);
   ++kind_lanes_[0];  // FillRow moves the lane to its kind
-  version_.push_back(0);
-  coef_.resize(coef_.size() + static_cast<size_t>(row_));
   FillRow(lane);
   Set(lane, state);
   return lane;
@@ -109,7 +97,8 @@ bool FilterBank::SameShape(const FilterModel& m) const {
 
 void FilterBank::FillRow(int lane) {
   const FilterModel& m = *model_[lane];
-  version_[lane] = m.version_;
+  double* row = &rows_[static_cast<size_t>(lane) * row_];
+  StoreVersion(row, m.version_);
   const bool lag1 = Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_);
   const bool closed = m.horizons_.closed() || m.horizons_.size() == 0;
   uint8_t kind = 0;
@@ -124,7 +113,6 @@ void FilterBank::FillRow(int lane) {
   --kind_lanes_[kind_[lane]];
   ++kind_lanes_[kind];
   kind_[lane] = kind;
-  double* row = &coef_[static_cast<size_t>(lane) * row_];
   row[kMu] = m.mu_;
   row[kArC] = m.ar_[0];
   row[kMaC] = m.ma_[0];
@@ -145,27 +133,29 @@ void FilterBank::FillRow(int lane) {
 }
 
 void FilterBank::GatherHot(int lane, FilterState* s) const {
-  s->r_hist[0] = r1_[lane];
-  s->eps_hist[0] = eps1_[lane];
-  s->var.next_variance = next_variance_[lane];
-  s->var.eps2[0] = e2_1_[lane];
-  s->var.neg_eps2[0] = neg2_1_[lane];
-  s->var.sigma2[0] = s2_1_[lane];
-  s->sd_next = sd_next_[lane];
-  s->mu_next = mu_next_[lane];
-  s->bars = bars_[lane];
+  const double* row = Row(lane);
+  s->r_hist[0] = row[kR1];
+  s->eps_hist[0] = row[kEps1];
+  s->var.next_variance = row[kNv];
+  s->var.eps2[0] = row[kE21];
+  s->var.neg_eps2[0] = row[kNeg21];
+  s->var.sigma2[0] = row[kS21];
+  s->sd_next = row[kSd];
+  s->mu_next = row[kMn];
+  s->bars = LoadBars(row);
 }
 
 void FilterBank::ScatterHot(int lane, const FilterState& s) {
-  r1_[lane] = s.r_hist[0];
-  eps1_[lane] = s.eps_hist[0];
-  next_variance_[lane] = s.var.next_variance;
-  e2_1_[lane] = s.var.eps2[0];
-  neg2_1_[lane] = s.var.neg_eps2[0];
-  s2_1_[lane] = s.var.sigma2[0];
-  sd_next_[lane] = s.sd_next;
-  mu_next_[lane] = s.mu_next;
-  bars_[lane] = s.bars;
+  double* row = &rows_[static_cast<size_t>(lane) * row_];
+  row[kR1] = s.r_hist[0];
+  row[kEps1] = s.eps_hist[0];
+  row[kNv] = s.var.next_variance;
+  row[kE21] = s.var.eps2[0];
+  row[kNeg21] = s.var.neg_eps2[0];
+  row[kS21] = s.var.sigma2[0];
+  row[kSd] = s.sd_next;
+  row[kMn] = s.mu_next;
+  StoreBars(row, s.bars);
 }
 
 FilterState FilterBank::Get(int lane) const {
@@ -242,24 +232,12 @@ void FilterBank::StepGathered(int lane, const FilterModel& m, double r, BarUpdat
 }
 
 struct FilterBank::Cols {
-  double* r1;
-  double* eps1;
-  double* nv;
-  double* e21;
-  double* neg21;
-  double* s21;
-  double* sd;
-  double* mn;
-  int64_t* bars;
+  double* rows;
   const uint8_t* kind;
-  const double* coef;
-  const uint32_t* version;
 };
 
 ABSL_ATTRIBUTE_ALWAYS_INLINE inline FilterBank::Cols FilterBank::columns() {
-  return Cols{r1_.data(),     eps1_.data(), next_variance_.data(), e2_1_.data(),
-              neg2_1_.data(), s2_1_.data(), sd_next_.data(),       mu_next_.data(),
-              bars_.data(),   kind_.data(), coef_.data(),          version_.data()};
+  return Cols{rows_.data(), kind_.data()};
 }
 
 ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, size_t row_size,
@@ -269,17 +247,17 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, si
   // FilterModel::Advance term by term: the lag writes, then the variance and
   // the mean forecast in its summation order. Inlined where kind is a
   // compile-time constant (RecurseUniform), the kind tests fold away.
-  const double* row = c.coef + static_cast<size_t>(l) * row_size;
-  const double mu = c.mn[l];
-  const double var = c.nv[l];
+  double* row = c.rows + static_cast<size_t>(l) * row_size;
+  const double mu = row[kMn];
+  const double var = row[kNv];
   const double e = x - mu;
   const double e2 = e * e;
-  if (kind & kAr) c.r1[l] = x;
-  if (kind & kMa) c.eps1[l] = e;
-  c.e21[l] = e2;
+  if (kind & kAr) row[kR1] = x;
+  if (kind & kMa) row[kEps1] = e;
+  row[kE21] = e2;
   const double neg = e < 0.0 ? e2 : 0.0;
-  if (kind & kGamma) c.neg21[l] = neg;
-  c.s21[l] = var;
+  if (kind & kGamma) row[kNeg21] = neg;
+  row[kS21] = var;
   double v;
   if (kind & kFlat) {
     v = row[kOmega];
@@ -291,19 +269,19 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, si
     if (kind & kGamma) v += row[kGammaC] * neg;
     if (kind & kBeta) v += row[kBetaC] * var;
   }
-  c.nv[l] = v;
+  row[kNv] = v;
   double m = row[kMu];
   if (kind & kAr) m += row[kArC] * x;
   if (kind & kMa) m += row[kMaC] * e;
-  c.mn[l] = m;
-  ++c.bars[l];
+  row[kMn] = m;
+  StoreBars(row, LoadBars(row) + 1);
   o->r = x;
   o->mu = mu;
   o->eps = e;
   o->var = var;
   o->var_next = v;
   *eps = e;
-  *sd = c.sd[l];
+  *sd = row[kSd];
   return v;
 }
 
@@ -313,9 +291,9 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, cons
                                                              double sc, BarUpdate* o) const {
   // FilterStep's outputs from the next-bar forecasts, in its order.
   constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;
-  const double* row = c.coef + static_cast<size_t>(l) * kRow;
-  const double m = c.mn[l];
-  c.sd[l] = s;
+  double* row = c.rows + static_cast<size_t>(l) * kRow;
+  const double m = row[kMn];
+  row[kSd] = s;
   o->z = z;
   o->vol_ann = s * sh.sqrt_ppy;
   o->n_horizons = NH;
@@ -360,7 +338,7 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, cons
     o->es[k] = s * es[k] - m;
   }
   o->scale = std::min(sh.scale_cap, sc);
-  o->ver = c.version[l];
+  o->ver = LoadVersion(row);
 }
 
 template <int NH, int NL>
