@@ -167,20 +167,20 @@ class FilterBank {
   template <int NH, int NL>
   void StepChunk(const int* lanes, const double* r, int c, BarUpdate* out);
   // The rows' and kind bytes' bases for the kernels (loaded once per call).
-  struct Cols;
-  Cols columns();
+  struct Bases;
+  Bases bases();
   // The kernel of one fast lane in two halves around the root and the two
   // divisions (which StepChunk does for several lanes per instruction): Recurse advances the
   // state and writes the outputs that need neither, returning the next
   // variance, eps and the standardizing sd; Publish writes sd_next and the rest.
-  double Recurse(const Cols& c, size_t row_size, int lane, uint8_t kind, double r, BarUpdate* out,
+  double Recurse(const Bases& c, size_t row_size, int lane, uint8_t kind, double r, BarUpdate* out,
                  double* eps, double* sd);
   // Recurse on c lanes that are all of kind K (K has kFast; row_size ==
   // row_), for StepChunk's pass 1; UniformTable(0..127) lists them by K >> 1.
   template <uint8_t K>
-  void RecurseUniform(const Cols& c, size_t row_size, const int* lanes, const double* r, int n,
+  void RecurseUniform(const Bases& c, size_t row_size, const int* lanes, const double* r, int n,
                       BarUpdate* out, double* chunk_buf);
-  using UniformFn = void (FilterBank::*)(const Cols&, size_t, const int*, const double*, int,
+  using UniformFn = void (FilterBank::*)(const Bases&, size_t, const int*, const double*, int,
                                          BarUpdate*, double*);
   template <size_t... I>
   static auto UniformTable(std::index_sequence<I...>);
@@ -194,7 +194,7 @@ class FilterBank {
     double scale_cap = 0;
   };
   template <int NH, int NL>
-  void Publish(const Cols& c, const Shape& shape, int lane, double sd_next, double v, double z,
+  void Publish(const Bases& c, const Shape& shape, int lane, double sd_next, double v, double z,
                double scale, BarUpdate* out) const;
   template <int NH, int NL>
   void StepLane(const int* lane, const double* r, int c, BarUpdate* out);

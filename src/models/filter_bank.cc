@@ -231,16 +231,16 @@ void FilterBank::StepGathered(int lane, const FilterModel& m, double r, BarUpdat
   }
 }
 
-struct FilterBank::Cols {
+struct FilterBank::Bases {
   double* rows;
   const uint8_t* kind;
 };
 
-ABSL_ATTRIBUTE_ALWAYS_INLINE inline FilterBank::Cols FilterBank::columns() {
-  return Cols{rows_.data(), kind_.data()};
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline FilterBank::Bases FilterBank::bases() {
+  return Bases{rows_.data(), kind_.data()};
 }
 
-ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, size_t row_size,
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Bases& c, size_t row_size,
                                                                int l, uint8_t kind, double x,
                                                                BarUpdate* o, double* eps,
                                                                double* sd) {
@@ -286,7 +286,7 @@ ABSL_ATTRIBUTE_ALWAYS_INLINE inline double FilterBank::Recurse(const Cols& c, si
 }
 
 template <int NH, int NL>
-ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Cols& c, const Shape& sh, int l,
+ABSL_ATTRIBUTE_ALWAYS_INLINE inline void FilterBank::Publish(const Bases& c, const Shape& sh, int l,
                                                              double s, double v, double z,
                                                              double sc, BarUpdate* o) const {
   // FilterStep's outputs from the next-bar forecasts, in its order.
@@ -345,7 +345,7 @@ template <int NH, int NL>
 void FilterBank::StepLane(const int* lane, const double* r, int /*c*/, BarUpdate* out) {
   // One fast lane (Step): the root and divisions one at a time; sqrtsd/divsd
   // round as the chunk's sqrtpd/divpd do.
-  const Cols c = columns();
+  const Bases c = bases();
   double e, sd;
   constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
   const double v = Recurse(c, kRow, *lane, c.kind[*lane], *r, out, &e, &sd);
@@ -354,15 +354,14 @@ void FilterBank::StepLane(const int* lane, const double* r, int /*c*/, BarUpdate
 }
 
 template <uint8_t K>
-void FilterBank::RecurseUniform(const Cols& cols, size_t row_size, const int* lanes,
-                                const double* r, int c, BarUpdate* __restrict out,
-                                double* __restrict buf) {
+void FilterBank::RecurseUniform(const Bases& b, size_t row_size, const int* lanes, const double* r,
+                                int c, BarUpdate* __restrict out, double* __restrict buf) {
   // One base for the three chunk arrays: the loop is short of registers.
   double* eps = buf;
   double* sd = buf + kChunk;
   double* vn = buf + 2 * kChunk;
   for (int k = 0; k < c; ++k) {
-    vn[k] = Recurse(cols, row_size, lanes[k], K, r[k], &out[k], &eps[k], &sd[k]);
+    vn[k] = Recurse(b, row_size, lanes[k], K, r[k], &out[k], &eps[k], &sd[k]);
   }
 }
 
@@ -386,7 +385,7 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
   double* const sc = buf + 5 * kChunk;
   bool fast[kChunk];
   constexpr size_t kRow = kRowHead + 2 * NH + 2 * NL;  // == row_
-  const Cols cols = columns();
+  const Bases base = bases();
   // A copy: stores through BarUpdate* cannot alias a local, so the output
   // loops keep the shape in registers instead of reloading the member after
   // every store.
@@ -399,18 +398,18 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
   // 13.5 -> 12.9 ns).
   // Every lane of the bank of one kind (kind_lanes_) spares the check per
   // lane (7 instructions a lane under callgrind).
-  const uint8_t k0 = cols.kind[lanes[0]];
+  const uint8_t k0 = base.kind[lanes[0]];
   bool uniform = (k0 & kFast) != 0;
   if (uniform && kind_lanes_[k0] != size()) {
-    for (int k = 1; k < c; ++k) uniform &= cols.kind[lanes[k]] == k0;
+    for (int k = 1; k < c; ++k) uniform &= base.kind[lanes[k]] == k0;
   }
   if (uniform) {
     static const auto table = UniformTable(std::make_index_sequence<128>());
-    (this->*table[k0 >> 1])(cols, kRow, lanes, r, c, out, buf);
+    (this->*table[k0 >> 1])(base, kRow, lanes, r, c, out, buf);
   } else {
     for (int k = 0; k < c; ++k) {
       const int l = lanes[k];
-      const uint8_t kind = cols.kind[l];
+      const uint8_t kind = base.kind[l];
       fast[k] = (kind & kFast) != 0;
       if (!fast[k]) {
         StepGathered(l, *model_[l], r[k], &out[k]);
@@ -419,7 +418,7 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
         vn[k] = 1.0;
         continue;
       }
-      vn[k] = Recurse(cols, kRow, l, kind, r[k], &out[k], &eps[k], &sd[k]);
+      vn[k] = Recurse(base, kRow, l, kind, r[k], &out[k], &eps[k], &sd[k]);
     }
   }
   // Pass 2, over the chunk: the root and the two divisions, four lanes per
@@ -457,10 +456,10 @@ void FilterBank::StepChunk(const int* lanes, const double* r, int c, BarUpdate* 
   // next-bar forecasts.
   if (uniform) {
     for (int k = 0; k < c; ++k)
-      Publish<NH, NL>(cols, sh, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
+      Publish<NH, NL>(base, sh, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
   } else {
     for (int k = 0; k < c; ++k) {
-      if (fast[k]) Publish<NH, NL>(cols, sh, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
+      if (fast[k]) Publish<NH, NL>(base, sh, lanes[k], sdn[k], vn[k], z[k], sc[k], &out[k]);
     }
   }
 }
