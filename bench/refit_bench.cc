@@ -115,7 +115,7 @@ struct Universe {
   }
   void Drain() {
     while (coord->stats().in_flight > 0) {
-      while (coord->stats().queued + coord->stats().running > 0) {
+      for (RefitStats w = coord->stats(); w.queued + w.running > 0; w = coord->stats()) {
         coord->SubmitDeferred(256);  // queued counts the deferred jobs too
         std::this_thread::sleep_for(std::chrono::milliseconds(1));
       }
@@ -390,7 +390,10 @@ queue_capacity = )",
   uint64_t applied = 0, swapped = 0, closes = 0;
   for (auto _ : state) {
     // The due bar just closed: hand every job to the workers, wait for them.
-    while (services->refit_stats().queued + services->refit_stats().running > 0) {
+    // One snapshot per check: two stats reads can both miss a job a worker
+    // picks up between them.
+    for (RefitStats w = services->refit_stats(); w.queued + w.running > 0;
+         w = services->refit_stats()) {
       core->OnClock(clock.now);  // SubmitDeferred
       std::this_thread::sleep_for(std::chrono::milliseconds(1));
     }

@@ -47,6 +47,17 @@ std::unique_ptr<Refitter> DefaultRefitter() {
 }
 
 // Plays the ingest thread over a panel of symbols.
+// Waits until the workers hold no job; `deferred` jobs wait for their copy
+// (they count in stats().queued without being the pool's). One snapshot per
+// test: running and queued read from two stats() calls can both miss a job
+// that a worker picks up between them (queued drops after the first read,
+// running was read before it rose), and a test then saw a result missing.
+void WaitWorkers(const RefitCoordinator& c, int deferred = 0) {
+  for (RefitStats s = c.stats(); s.running + s.queued > deferred; s = c.stats()) {
+    std::this_thread::yield();
+  }
+}
+
 struct Driver {
   std::unique_ptr<RefitCoordinator> coord;
   std::vector<uint32_t> ids;
@@ -496,7 +507,7 @@ TEST_CASE("full queue drops and counts; a pending job coalesces later due points
   CHECK(d.records.empty());  // live mode never waits: nothing applied yet
   gate->Release();
   // Completion reaches the stream at the symbols' next bars.
-  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  WaitWorkers(*d.coord);
   for (uint32_t k = 0; k < 5; ++k) d.Bar(k, 320 * kBarNs, r[k][320]);
   CHECK(d.records.size() == 2);
   CHECK(d.coord->stats().in_flight == 0);
@@ -534,7 +545,7 @@ TEST_CASE("records carry the job's queue wait and the worker's time", "[refit]")
   constexpr double kHeld = 0.05;
   std::this_thread::sleep_for(std::chrono::duration<double>(kHeld));
   gate->Release();
-  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  WaitWorkers(*d.coord);
   for (uint32_t k = 0; k < 2; ++k) d.Bar(k, 300 * kBarNs, r[k][300]);
   REQUIRE(d.records.size() == 2);
   const RefitRecord& held = d.records[0].symbol == "SYM0" ? d.records[0] : d.records[1];
@@ -611,7 +622,7 @@ TEST_CASE("live jobs wait for the gap or the next bar, with their due point's wi
   // The last one waits for the next gap.
   CHECK(d.coord->SubmitDeferred(10) == 1);
   CHECK(d.coord->SubmitDeferred(10) == 0);
-  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  WaitWorkers(*d.coord);
   const auto v = seen->seen();
   REQUIRE(v.size() == 3);
   CHECK(v[0].symbol_id == d.ids[0]);
@@ -629,12 +640,6 @@ TEST_CASE("live jobs wait for the gap or the next bar, with their due point's wi
   d.Bar(2, 301 * kBarNs, r[2][301]);
   REQUIRE(d.records.size() == 3);
   for (const auto& rec : d.records) CHECK(rec.scheduled_bar == 300);
-}
-
-// Waits until the workers hold no job; `deferred` jobs wait for their copy
-// (they count in stats().queued without being the pool's).
-void WaitWorkers(const RefitCoordinator& c, int deferred) {
-  while (c.stats().running + c.stats().queued > deferred) std::this_thread::yield();
 }
 
 // Symbols all due at their 300th return (270: more than the 256 job buffers
@@ -843,7 +848,7 @@ TEST_CASE("symbols without a model are served before routine refits", "[refit]")
     step(t);
   }
   ord->WaitCalls(1);
-  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  WaitWorkers(*d.coord);
   ord->Hold(true);
   for (int t = 300; t < 346; ++t) step(t);
   REQUIRE(d.coord->current(d.ids[0])->version == 1);  // ALDER has a model now
@@ -1096,7 +1101,7 @@ TEST_CASE("the ingest side allocates nothing per bar, storm included", "[refit]"
   CHECK(d.coord->stats().submitted == 8);
   gate->WaitEntered(2);
   gate->Release();
-  while (d.coord->stats().running + d.coord->stats().queued > 0) std::this_thread::yield();
+  WaitWorkers(*d.coord);
   // Applying the completed jobs (pointer swaps, state copies) and finishing
   // each record's prepared JSON into a grown buffer allocate nothing, and
   // free nothing either: the records and versions they replace were made on
