@@ -116,7 +116,6 @@ class FilterBank {
     kFlat = 1 << 6,   // constant variance: omega
     kEwma = 1 << 7,   // lambda var + (1 - lambda) e2
   };
-  // Offsets in a coefficient row.
   // Offsets in a lane's row: the hot state (lag-0 values, sd_next,
   // mu_next, the bar count's and the version's bits), then the coefficients
   // (head, then the tables from kRowHead on).
@@ -130,7 +129,7 @@ class FilterBank {
     kSd,     // sd_next
     kMn,     // mu_next
     kBars,   // bars: the int64's bits (LoadBars/StoreBars)
-    kVer,    // model version: a uint32's bits in the low bytes
+    kVer,    // model version: a uint32's bits in the slot's first 4 bytes
     kMu,
     kArC,
     kMaC,
