@@ -1,6 +1,8 @@
 // End-to-end engine benchmark (PRODUCT.md P3, P4, P6), one run, one table:
 //   * raw ZeroMQ pass-through: feed PUB -> forwarder (SUB->PUB, no processing)
-//     -> consumer SUB, the same single-tick messages the engine gets;
+//     -> consumer SUB, the same single-tick messages the engine gets; raw and
+//     the engine's one-tick-a-message rows run in 3 alternated rounds, and a
+//     share of raw is the median of the rounds' ratios;
 //   * engine throughput: feed PUB -> Engine (SUB, ingest core, PUB) -> consumer
 //     SUB, one tick per message and batched frames (updates are always one
 //     message each), and its ingest alone (updates encoded, then discarded);
@@ -33,6 +35,7 @@
 #include <atomic>
 #include <charconv>
 #include <chrono>
+#include <cmath>
 #include <cstdio>
 #include <cstdlib>
 #include <cstring>
@@ -502,6 +505,18 @@ double CpuNow() {
   return ts.tv_sec + ts.tv_nsec * 1e-9;
 }
 
+// Alternated rounds of the one-tick-a-message rows (raw, engine, engine with
+// update batches), for the shares of raw ZeroMQ.
+constexpr int kShareRounds = 3;
+
+// The median of v (the mean of the middle two for an even count). REQUIRES:
+// v not empty.
+double Median(std::vector<double> v) {
+  std::sort(v.begin(), v.end());
+  const size_t n = v.size();
+  return n % 2 ? v[n / 2] : 0.5 * (v[n / 2 - 1] + v[n / 2]);
+}
+
 double Pct(const std::vector<int64_t>& v, double q) {
   if (v.empty()) return -1;
   return v[std::min(v.size() - 1, static_cast<size_t>(q * v.size()))] / 1000.0;
@@ -862,7 +877,9 @@ constexpr const char* kUsage =
     "\n"
     "Without flags: the whole table (raw ZeroMQ pass-through, the engine end to end with one\n"
     "tick per message, with update batches and with batched ticks, its ingest alone, latency\n"
-    "at 100k ticks/s waiting and busy-polling, replay), binary and JSON.\n"
+    "at 100k ticks/s waiting and busy-polling, replay), binary and JSON. Raw and the\n"
+    "one-tick-a-message engine rows run in 3 alternated rounds (medians; the shares of raw\n"
+    "are the median of the rounds' ratios, each round's in brackets).\n"
     "  --quick               shorter runs (fewer messages, 1 s of latency per row)\n"
     "  --replay-only         only the replay rows\n"
     "  --latency-only        only the latency rows\n"
@@ -935,35 +952,57 @@ int main(int argc, char** argv) {
     if (replay_only) break;
     const char* en = enc == WireEncoding::kBinary ? "binary" : "json";
     const auto single = SingleMessages(n_single, enc);
-    double raw_rate = 0;
     if (!latency_only) {
-      Rig rig(false, enc);
-      uint64_t got = 0;
-      const double s = rig.Throughput(single, single.size(), &got);
-      raw_rate = got / s;
-      std::printf("%-44s %11.0f/s %10s %10s %10s%s\n",
-                  absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(), raw_rate,
-                  "", "", "", got < single.size() ? "  (incomplete)" : "");
-    }
-    if (!latency_only) {
-      Rig rig(true, enc);
-      uint64_t got = 0;
-      const double s = rig.Throughput(single, single.size(), &got);
-      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw%s\n",
-                  absl::StrCat("engine, 1 tick/msg (", en, ")").c_str(), got / s, "", "", "",
-                  100.0 * (got / s) / raw_rate, got < single.size() ? "  (incomplete)" : "");
-    }
-    if (!latency_only) {
-      // The same messages; updates leave in batches on b.u (update_batch.h).
-      LiveExtras x;
-      x.update_topics = UpdateTopics::kBatch;
-      Rig rig(true, enc, x);
-      uint64_t got = 0;
-      const double s = rig.Throughput(single, single.size(), &got, /*batches=*/true, enc);
-      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s)%s\n",
-                  absl::StrCat("engine, 1 tick/msg, batched updates (", en, ")").c_str(), got / s,
-                  "", "", "", 100.0 * (got / s) / raw_rate,
-                  got < single.size() ? "  (incomplete)" : "");
+      // Raw pass-through, the engine, and the engine with update batches, in
+      // kShareRounds alternated rounds: on a shared machine the load drifts
+      // within seconds, and one raw run against one engine run taken moments
+      // later swung the share by tens of points between invocations. Each row
+      // prints the median of its rates; a share is the median of the rounds'
+      // own ratios (each round's runs back to back), with every round's share
+      // in brackets.
+      std::vector<double> raw, eng, bat, eng_share, bat_share;
+      bool short_raw = false, short_eng = false, short_bat = false;
+      for (int k = 0; k < kShareRounds; ++k) {
+        uint64_t got = 0;
+        {
+          Rig rig(false, enc);
+          const double s = rig.Throughput(single, single.size(), &got);
+          raw.push_back(got / s);
+          short_raw |= got < single.size();
+        }
+        {
+          Rig rig(true, enc);
+          const double s = rig.Throughput(single, single.size(), &got);
+          eng.push_back(got / s);
+          short_eng |= got < single.size();
+        }
+        {
+          // The same messages; updates leave in batches on b.u (update_batch.h).
+          LiveExtras x;
+          x.update_topics = UpdateTopics::kBatch;
+          Rig rig(true, enc, x);
+          const double s = rig.Throughput(single, single.size(), &got, /*batches=*/true, enc);
+          bat.push_back(got / s);
+          short_bat |= got < single.size();
+        }
+        eng_share.push_back(100.0 * eng.back() / raw.back());
+        bat_share.push_back(100.0 * bat.back() / raw.back());
+      }
+      const auto rounds = [](const std::vector<double>& v) {
+        std::string out;
+        for (double x : v) absl::StrAppend(&out, out.empty() ? "" : " / ", std::lround(x));
+        return out;
+      };
+      std::printf("%-44s %11.0f/s %10s %10s %10s  (median of %d rounds)%s\n",
+                  absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(),
+                  Median(raw), "", "", "", kShareRounds, short_raw ? "  (incomplete)" : "");
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (rounds %s %%)%s\n",
+                  absl::StrCat("engine, 1 tick/msg (", en, ")").c_str(), Median(eng), "", "", "",
+                  Median(eng_share), rounds(eng_share).c_str(), short_eng ? "  (incomplete)" : "");
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s; rounds %s %%)%s\n",
+                  absl::StrCat("engine, 1 tick/msg, batched updates (", en, ")").c_str(),
+                  Median(bat), "", "", "", Median(bat_share), rounds(bat_share).c_str(),
+                  short_bat ? "  (incomplete)" : "");
     }
     if (!latency_only) {
       const auto batches = BatchMessages(n_batch_ticks, batch, enc);
