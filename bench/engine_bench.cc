@@ -2,7 +2,8 @@
 //   * raw ZeroMQ pass-through: feed PUB -> forwarder (SUB->PUB, no processing)
 //     -> consumer SUB, the same single-tick messages the engine gets; raw and
 //     the engine's one-tick-a-message rows run in 3 alternated rounds, and a
-//     share of raw is the median of the rounds' ratios;
+//     share of raw is the median of the rounds' ratios (the latency rows
+//     likewise, with the overhead over raw a median of differences);
 //   * engine throughput: feed PUB -> Engine (SUB, ingest core, PUB) -> consumer
 //     SUB, one tick per message and batched frames (updates are always one
 //     message each), and its ingest alone (updates encoded, then discarded);
@@ -878,8 +879,9 @@ constexpr const char* kUsage =
     "Without flags: the whole table (raw ZeroMQ pass-through, the engine end to end with one\n"
     "tick per message, with update batches and with batched ticks, its ingest alone, latency\n"
     "at 100k ticks/s waiting and busy-polling, replay), binary and JSON. Raw and the\n"
-    "one-tick-a-message engine rows run in 3 alternated rounds (medians; the shares of raw\n"
-    "are the median of the rounds' ratios, each round's in brackets).\n"
+    "one-tick-a-message engine rows, and raw and engine latency in each mode, run in 3\n"
+    "alternated rounds (medians; a share of raw or an overhead over raw is the median of the\n"
+    "rounds' own ratios or differences, each round's in brackets).\n"
     "  --quick               shorter runs (fewer messages, 1 s of latency per row)\n"
     "  --replay-only         only the replay rows\n"
     "  --latency-only        only the latency rows\n"
@@ -1042,30 +1044,49 @@ int main(int argc, char** argv) {
     }
     // Waiting on the descriptor, then busy-polling ([feed] busy_poll_us, and
     // a raw forwarder that spins likewise): raw and engine side by side in
-    // each mode, with the process's CPU use (cores) over each run.
+    // each mode, in kShareRounds alternated rounds (as the shares above: one
+    // pair of runs had the p99 overhead swing by 120 us between invocations).
+    // The raw and engine rows print the median over the rounds of each
+    // percentile and of the process's CPU use (cores); the overhead row the
+    // median of the rounds' own differences, with every round's p99 one.
     for (bool spin : {false, true}) {
-      double p50[2] = {0, 0}, p99[2] = {0, 0};
+      std::vector<double> p50[2], p99[2], p999[2], cores[2], d50, d99;
+      size_t samples[2] = {0, 0};
+      for (int k = 0; k < kShareRounds; ++k) {
+        for (bool engine : {false, true}) {
+          LiveExtras x;
+          x.busy_poll_us = spin ? 1000000 : 0;
+          Rig rig(engine, enc, x);
+          const double cpu0 = ProcessCpuNow();
+          const auto w0 = std::chrono::steady_clock::now();
+          const auto lat = rig.Latency(rate, lat_seconds, enc, engine);
+          cores[engine].push_back((ProcessCpuNow() - cpu0) /
+                                  Secs(w0, std::chrono::steady_clock::now()));
+          p50[engine].push_back(Pct(lat, 0.5));
+          p99[engine].push_back(Pct(lat, 0.99));
+          p999[engine].push_back(Pct(lat, 0.999));
+          samples[engine] += lat.size();
+        }
+        d50.push_back(p50[1].back() - p50[0].back());
+        d99.push_back(p99[1].back() - p99[0].back());
+      }
       for (bool engine : {false, true}) {
-        LiveExtras x;
-        x.busy_poll_us = spin ? 1000000 : 0;
-        Rig rig(engine, enc, x);
-        const double cpu0 = ProcessCpuNow();
-        const auto w0 = std::chrono::steady_clock::now();
-        const auto lat = rig.Latency(rate, lat_seconds, enc, engine);
-        const double cores = (ProcessCpuNow() - cpu0) / Secs(w0, std::chrono::steady_clock::now());
-        p50[engine] = Pct(lat, 0.5);
-        p99[engine] = Pct(lat, 0.99);
         const char* what =
             engine ? (spin ? "engine latency, busy-poll" : "engine latency tick->update")
                    : (spin ? "raw latency, busy-poll forwarder" : "raw latency tick->tick");
-        std::printf("%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples; CPU %.2f cores)\n",
-                    absl::StrCat(what, " (", en, ")").c_str(), rate, Pct(lat, 0.5), Pct(lat, 0.99),
-                    Pct(lat, 0.999), lat.size(), cores);
+        std::printf(
+            "%-44s %11.0f/s %10.1f %10.1f %10.1f  (%zu samples in %d rounds, medians; CPU %.2f "
+            "cores)\n",
+            absl::StrCat(what, " (", en, ")").c_str(), rate, Median(p50[engine]),
+            Median(p99[engine]), Median(p999[engine]), samples[engine], kShareRounds,
+            Median(cores[engine]));
       }
-      std::printf("%-44s %14s %+10.1f %+10.1f\n",
+      std::string rounds;
+      for (double d : d99) absl::StrAppend(&rounds, rounds.empty() ? "" : " / ", std::lround(d));
+      std::printf("%-44s %14s %+10.1f %+10.1f  (rounds' p99: %s us)\n",
                   absl::StrCat("  engine over raw, ", spin ? "busy-poll" : "waiting", " (", en, ")")
                       .c_str(),
-                  "", p50[1] - p50[0], p99[1] - p99[0]);
+                  "", Median(d50), Median(d99), rounds.c_str());
     }
   }
   {
