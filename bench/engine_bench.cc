@@ -506,8 +506,9 @@ double CpuNow() {
   return ts.tv_sec + ts.tv_nsec * 1e-9;
 }
 
-// Alternated rounds of the one-tick-a-message rows (raw, engine, engine with
-// update batches), for the shares of raw ZeroMQ.
+// Alternated rounds of the rows compared with raw ZeroMQ: the one-tick-a-
+// message rows (raw, engine, engine with update batches) and the latency rows
+// of each mode (raw, engine).
 constexpr int kShareRounds = 3;
 
 // The median of v (the mean of the middle two for an even count). REQUIRES:
@@ -516,6 +517,13 @@ double Median(std::vector<double> v) {
   std::sort(v.begin(), v.end());
   const size_t n = v.size();
   return n % 2 ? v[n / 2] : 0.5 * (v[n / 2 - 1] + v[n / 2]);
+}
+
+// Each round's value rounded to an integer, joined by " / " (a row's brackets).
+std::string Rounds(const std::vector<double>& v) {
+  std::string out;
+  for (double x : v) absl::StrAppend(&out, out.empty() ? "" : " / ", std::lround(x));
+  return out;
 }
 
 double Pct(const std::vector<int64_t>& v, double q) {
@@ -990,20 +998,15 @@ int main(int argc, char** argv) {
         eng_share.push_back(100.0 * eng.back() / raw.back());
         bat_share.push_back(100.0 * bat.back() / raw.back());
       }
-      const auto rounds = [](const std::vector<double>& v) {
-        std::string out;
-        for (double x : v) absl::StrAppend(&out, out.empty() ? "" : " / ", std::lround(x));
-        return out;
-      };
       std::printf("%-44s %11.0f/s %10s %10s %10s  (median of %d rounds)%s\n",
                   absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(),
                   Median(raw), "", "", "", kShareRounds, short_raw ? "  (incomplete)" : "");
       std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (rounds %s %%)%s\n",
                   absl::StrCat("engine, 1 tick/msg (", en, ")").c_str(), Median(eng), "", "", "",
-                  Median(eng_share), rounds(eng_share).c_str(), short_eng ? "  (incomplete)" : "");
+                  Median(eng_share), Rounds(eng_share).c_str(), short_eng ? "  (incomplete)" : "");
       std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s; rounds %s %%)%s\n",
                   absl::StrCat("engine, 1 tick/msg, batched updates (", en, ")").c_str(),
-                  Median(bat), "", "", "", Median(bat_share), rounds(bat_share).c_str(),
+                  Median(bat), "", "", "", Median(bat_share), Rounds(bat_share).c_str(),
                   short_bat ? "  (incomplete)" : "");
     }
     if (!latency_only) {
@@ -1081,12 +1084,10 @@ int main(int argc, char** argv) {
             Median(p99[engine]), Median(p999[engine]), samples[engine], kShareRounds,
             Median(cores[engine]));
       }
-      std::string rounds;
-      for (double d : d99) absl::StrAppend(&rounds, rounds.empty() ? "" : " / ", std::lround(d));
       std::printf("%-44s %14s %+10.1f %+10.1f  (rounds' p99: %s us)\n",
                   absl::StrCat("  engine over raw, ", spin ? "busy-poll" : "waiting", " (", en, ")")
                       .c_str(),
-                  "", Median(d50), Median(d99), rounds.c_str());
+                  "", Median(d50), Median(d99), Rounds(d99).c_str());
     }
   }
   {

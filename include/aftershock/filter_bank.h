@@ -141,6 +141,7 @@ class FilterBank {
     kRowHead
   };
   const double* Row(int lane) const { return &rows_[static_cast<size_t>(lane) * row_]; }
+  double* Row(int lane) { return &rows_[static_cast<size_t>(lane) * row_]; }
   static int64_t LoadBars(const double* row) {
     int64_t b;
     std::memcpy(&b, row + kBars, sizeof(b));

@@ -118,7 +118,7 @@ bool FilterBank::SameShape(const FilterModel& m) const {
 
 void FilterBank::FillRow(int lane) {
   const FilterModel& m = *model_[lane];
-  double* row = &rows_[static_cast<size_t>(lane) * row_];
+  double* row = Row(lane);
   StoreVersion(row, m.version_);
   const bool lag1 = Lag1(m.np_, m.nq_, m.na_, m.no_, m.nb_);
   const bool closed = m.horizons_.closed() || m.horizons_.size() == 0;
@@ -167,7 +167,7 @@ void FilterBank::GatherHot(int lane, FilterState* s) const {
 }
 
 void FilterBank::ScatterHot(int lane, const FilterState& s) {
-  double* row = &rows_[static_cast<size_t>(lane) * row_];
+  double* row = Row(lane);
   row[kR1] = s.r_hist[0];
   row[kEps1] = s.eps_hist[0];
   row[kNv] = s.var.next_variance;
