@@ -27,6 +27,7 @@
 
 #include "aftershock/update_codec.h"
 #include "aftershock/wire.h"
+#include "io/shortest_double.h"
 #include "simdjson.h"
 
 namespace aftershock {
@@ -353,11 +354,12 @@ void BM_EncodeUpdateBinary(benchmark::State& state) { EncodeUpdates(state, false
 BENCHMARK(BM_EncodeUpdateJson);
 BENCHMARK(BM_EncodeUpdateBinary);
 
-// One std::to_chars shortest round-trip call, the JSON update encoder's
+// One shortest round-trip formatting of a double, the JSON update encoder's
 // per-double cost (it formats 12 of them per update with the default
 // configuration; mu, scale and the level keys are memoized), on values of the
-// magnitudes an update carries. Arg: 0 variances (~1e-6, exponent form),
-// 1 z-scores, 2 value-at-risk / es (~2e-3), 3 returns (~1e-3).
+// magnitudes an update carries. Arg kind: 0 variances (~1e-6, exponent form),
+// 1 z-scores, 2 value-at-risk / es (~2e-3), 3 returns (~1e-3). Arg writer:
+// 0 std::to_chars, 1 the encoder's WriteShortestDouble (same bytes).
 void BM_FormatDouble(benchmark::State& state) {
   std::mt19937_64 g(7);
   std::normal_distribution<double> nd(0, 1);
@@ -379,18 +381,23 @@ void BM_FormatDouble(benchmark::State& state) {
         break;
     }
   }
+  const int64_t writer = state.range(1);
+  if (writer == 1 && !internal::ShortestDoubleHasFastDigits()) {
+    state.SetLabel("built without fmt's digits: std::to_chars");
+  }
   char buf[32];
   size_t i = 0, bytes = 0;
   for (auto _ : state) {
-    const auto res = std::to_chars(buf, buf + sizeof(buf), values[i]);
+    const char* end = writer == 0 ? std::to_chars(buf, buf + sizeof(buf), values[i]).ptr
+                                  : internal::WriteShortestDouble(buf, values[i]);
     benchmark::DoNotOptimize(buf);
-    bytes += static_cast<size_t>(res.ptr - buf);
+    bytes += static_cast<size_t>(end - buf);
     if (++i == values.size()) i = 0;
   }
   state.SetItemsProcessed(state.iterations());
   state.SetBytesProcessed(static_cast<int64_t>(bytes));
 }
-BENCHMARK(BM_FormatDouble)->ArgName("kind")->DenseRange(0, 3);
+BENCHMARK(BM_FormatDouble)->ArgNames({"kind", "writer"})->ArgsProduct({{0, 1, 2, 3}, {0, 1}});
 
 }  // namespace
 }  // namespace aftershock

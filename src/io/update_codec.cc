@@ -10,6 +10,7 @@
 #include "absl/strings/str_cat.h"
 #include "aftershock/renames.h"
 #include "aftershock/wire.h"
+#include "io/shortest_double.h"
 
 namespace aftershock {
 
@@ -69,9 +70,9 @@ absl::Status CheckUpdate(const BarUpdate& u) {
 // CheckUpdate admit (worst case 1,178 bytes: 32 doubles of at most 24
 // characters, 8 horizon keys, a 32-byte symbol, every flag and the key text).
 constexpr size_t kMaxUpdateJsonBytes = 2048;
-// std::to_chars' shortest form of a double is at most 24 characters
+// The shortest form of a double is at most 24 characters
 // ("-2.2250738585072014e-308").
-constexpr int kMaxDoubleChars = 24;
+constexpr int kMaxDoubleChars = internal::kShortestDoubleMaxChars;
 
 template <size_t N>
 inline char* Put(char* p, const char (&lit)[N]) {
@@ -79,7 +80,8 @@ inline char* Put(char* p, const char (&lit)[N]) {
   return p + N - 1;
 }
 
-inline char* PutDouble(char* p, double v) { return std::to_chars(p, p + kMaxDoubleChars, v).ptr; }
+// std::to_chars's bytes, faster (io/shortest_double.h).
+inline char* PutDouble(char* p, double v) { return internal::WriteShortestDouble(p, v); }
 
 template <typename T>
 inline char* PutInt(char* p, T v) {
@@ -95,8 +97,9 @@ inline uint64_t Bits(double v) {
 // The last text written for a few fields that rarely change between updates
 // (the configured confidence levels, which also key value_at_risk and es; the
 // mean of a constant-mean model; the capped scale). Formatting a double costs
-// ~50 ns, a hit a compare and a 24-byte copy. Keyed by the bit pattern, so a
-// hit writes exactly what std::to_chars would. One per thread: no sharing.
+// ~30 ns (json_wire_bench BM_FormatDouble), a hit a compare and a 24-byte
+// copy. Keyed by the bit pattern, so a hit writes exactly what std::to_chars
+// would. One per thread: no sharing.
 class TextMemo {
  public:
   enum Slot { kMu = 0, kScale = 1, kLevel0 = 2 };
@@ -117,18 +120,12 @@ class TextMemo {
   struct Entry {
     uint64_t bits = 0;
     uint8_t len = 0;  // 0 = empty
-    char text[kMaxDoubleChars] = {};
+    char text[internal::kShortestDoubleBufferBytes] = {};  // PutDouble's scratch too
   };
   Entry entries_[kSlots];
 };
 
 thread_local TextMemo tls_memo;
-
-// ,"k":v  (the key literal includes its quotes and colon)
-template <size_t N>
-inline char* Field(char* p, const char (&key)[N], double v) {
-  return PutDouble(Put(p, key), v);
-}
 
 // Stores v at p (REQUIRES: sizeof(T) bytes there); returns the next position.
 template <typename T>
@@ -166,23 +163,23 @@ class Reader {
 absl::Status EncodeUpdateJson(const BarUpdate& u, std::string* out) {
   out->clear();
   if (absl::Status s = CheckUpdate(u); !s.ok()) return s;
-  // + kMaxDoubleChars: TextMemo::Put copies a whole entry past the text it keeps.
-  char buf[kMaxUpdateJsonBytes + kMaxDoubleChars];
+  // The slack: PutDouble and TextMemo::Put write past the text they leave.
+  char buf[kMaxUpdateJsonBytes + internal::kShortestDoubleBufferBytes];
   TextMemo& memo = tls_memo;
   char* p = Put(buf, "{\"s\":\"");
   std::memcpy(p, u.symbol.data, u.symbol.size);
   p += u.symbol.size;
   p = PutInt(Put(p, "\",\"t\":"), u.t_ns);
-  p = Field(p, ",\"r\":", u.r);
+  p = PutDouble(Put(p, ",\"r\":"), u.r);
   p = memo.Put(TextMemo::kMu, u.mu, Put(p, ",\"mu\":"));
-  p = Field(p, ",\"eps\":", u.eps);
-  p = Field(p, ",\"var\":", u.var);
-  p = Field(p, ",\"z\":", u.z);
+  p = PutDouble(Put(p, ",\"eps\":"), u.eps);
+  p = PutDouble(Put(p, ",\"var\":"), u.var);
+  p = PutDouble(Put(p, ",\"z\":"), u.z);
   p = Put(p, ",\"var_next\":");
   const char* var_next_text = p;
   p = PutDouble(p, u.var_next);
   const size_t var_next_len = static_cast<size_t>(p - var_next_text);
-  p = Field(p, ",\"vol_ann\":", u.vol_ann);
+  p = PutDouble(Put(p, ",\"vol_ann\":"), u.vol_ann);
   p = Put(p, ",\"var_h\":{");
   for (int i = 0; i < u.n_horizons; ++i) {
     if (i > 0) *p++ = ',';
