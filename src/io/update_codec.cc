@@ -7,6 +7,12 @@
 #include <exception>
 #include <nlohmann/json.hpp>
 
+#if defined(__SSE2__)
+#include <emmintrin.h>
+#endif
+
+#include "absl/base/attributes.h"
+#include "absl/base/optimization.h"
 #include "absl/strings/str_cat.h"
 #include "aftershock/renames.h"
 #include "aftershock/wire.h"
@@ -22,7 +28,59 @@ absl::string_view FlagName(int bit) {
 
 namespace {
 
-absl::Status CheckUpdate(const BarUpdate& u) {
+// Bit 63 set when some value of v is not finite: a double's exponent field
+// is all ones exactly for inf and NaN, and adding one unit to the field
+// carries into bit 63 only then. Integer operations on independent values
+// over the whole array, two per SSE2 instruction: no branch and no chain of
+// floating-point compares.
+#if defined(__SSE2__)
+template <size_t N>
+inline __m128i NonFiniteBits(__m128i acc, const double (&v)[N]) {
+  static_assert(N % 2 == 0, "pairs of doubles");
+  const __m128i exponent = _mm_set1_epi64x(0x7FF0000000000000LL);
+  const __m128i one = _mm_set1_epi64x(0x0010000000000000LL);
+#pragma GCC unroll 8
+  for (size_t i = 0; i < N; i += 2) {
+    const __m128i b = _mm_loadu_si128(reinterpret_cast<const __m128i*>(v + i));
+    acc = _mm_or_si128(acc, _mm_add_epi64(_mm_and_si128(b, exponent), one));
+  }
+  return acc;
+}
+#else
+template <size_t N>
+inline uint64_t NonFiniteBits(uint64_t acc, const double (&v)[N]) {
+  for (size_t i = 0; i < N; ++i) {
+    uint64_t b;
+    std::memcpy(&b, &v[i], sizeof(b));
+    acc |= (b & 0x7FF0000000000000ULL) + 0x0010000000000000ULL;
+  }
+  return acc;
+}
+#endif
+
+// True when every value of u is finite, the arrays read whole: entries past
+// the counts are zero in an update the engine fills (BarUpdate's
+// initializers); where they are not finite, the caller's search decides.
+inline bool AllFinite(const BarUpdate& u) {
+  const double scalars[] = {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann, u.scale};
+#if defined(__SSE2__)
+  __m128i acc = NonFiniteBits(_mm_setzero_si128(), scalars);
+  acc = NonFiniteBits(acc, u.var_h);
+  acc = NonFiniteBits(acc, u.levels);
+  acc = NonFiniteBits(acc, u.var_risk);
+  acc = NonFiniteBits(acc, u.es);
+  return _mm_movemask_pd(_mm_castsi128_pd(acc)) == 0;  // the two bits 63
+#else
+  const uint64_t acc = NonFiniteBits(
+      NonFiniteBits(NonFiniteBits(NonFiniteBits(NonFiniteBits(0, scalars), u.var_h), u.levels),
+                    u.var_risk),
+      u.es);
+  return (acc >> 63) == 0;
+#endif
+}
+
+// The field-by-field checks, naming what failed.
+ABSL_ATTRIBUTE_NOINLINE absl::Status CheckUpdateFields(const BarUpdate& u) {
   if (u.symbol.size == 0 || u.symbol.size > kMaxSymbolLength) {
     return absl::InvalidArgumentError("update: symbol length out of range");
   }
@@ -61,6 +119,20 @@ absl::Status CheckUpdate(const BarUpdate& u) {
     }
   }
   return absl::OkStatus();
+}
+
+// Every update the engine publishes passes: one test of the sizes and of all
+// values (178 -> 77 instructions an update under callgrind, when every value
+// was tested in turn by the code that names it); CheckUpdateFields only to
+// name what failed.
+inline absl::Status CheckUpdate(const BarUpdate& u) {
+  if (u.symbol.size - 1u < static_cast<unsigned>(kMaxSymbolLength) &&
+      static_cast<unsigned>(u.n_horizons) <= static_cast<unsigned>(kMaxHorizons) &&
+      static_cast<unsigned>(u.n_levels) <= static_cast<unsigned>(kMaxRiskLevels) &&
+      ABSL_PREDICT_TRUE(AllFinite(u))) {
+    return absl::OkStatus();
+  }
+  return CheckUpdateFields(u);
 }
 
 // ---- JSON writer -------------------------------------------------------------
@@ -315,7 +387,7 @@ absl::Status EncodeUpdateBinary(const BarUpdate& u, std::string* out) {
   if (absl::Status s = CheckUpdate(u); !s.ok()) return s;
   // One resize, then fixed-size stores through a cursor. Appending field by
   // field cost a library call per field: 1,643 instructions an update under
-  // callgrind, the replay core's largest item, against 437 now (178 of them
+  // callgrind, the replay core's largest item, against 335 now (77 of them
   // the checks above).
   const size_t size = 3 + u.symbol.size + sizeof(int64_t) + 7 * sizeof(double) + 1 +
                       static_cast<size_t>(u.n_horizons) * (sizeof(uint32_t) + sizeof(double)) + 1 +

@@ -226,6 +226,92 @@ TEST_CASE("non-finite fields are never encoded", "[update_codec]") {
   CHECK(!EncodeUpdateBinary(u, &out).ok());
 }
 
+TEST_CASE("every non-finite value is caught, and only those", "[update_codec]") {
+  // The encoders test all values at once before naming a field: each place a
+  // value can sit, each non-finite kind, both encoders.
+  const double bad[] = {std::numeric_limits<double>::infinity(),
+                        -std::numeric_limits<double>::infinity(), std::nan(""), -std::nan("")};
+  std::string out;
+  int rejected = 0;
+  auto expect_rejected = [&](const BarUpdate& u, const std::string& what) {
+    INFO(what);
+    CHECK(!EncodeUpdateJson(u, &out).ok());
+    CHECK(!EncodeUpdateBinary(u, &out).ok());
+    ++rejected;
+  };
+  for (double b : bad) {
+    double BarUpdate::*scalars[] = {&BarUpdate::r,       &BarUpdate::mu,   &BarUpdate::eps,
+                                    &BarUpdate::var,     &BarUpdate::z,    &BarUpdate::var_next,
+                                    &BarUpdate::vol_ann, &BarUpdate::scale};
+    for (int f = 0; f < 8; ++f) {
+      BarUpdate u = Sample();
+      u.*scalars[f] = b;
+      expect_rejected(u, "scalar " + std::to_string(f));
+    }
+    const BarUpdate sample = Sample();
+    for (int i = 0; i < sample.n_horizons; ++i) {
+      BarUpdate u = sample;
+      u.var_h[i] = b;
+      expect_rejected(u, "var_h " + std::to_string(i));
+    }
+    for (int i = 0; i < sample.n_levels; ++i) {
+      BarUpdate u = sample;
+      u.levels[i] = b;
+      expect_rejected(u, "level " + std::to_string(i));
+      u = sample;
+      u.var_risk[i] = b;
+      expect_rejected(u, "value_at_risk " + std::to_string(i));
+      u = sample;
+      u.es[i] = b;
+      expect_rejected(u, "es " + std::to_string(i));
+    }
+  }
+  CHECK(rejected == 4 * (8 + Sample().n_horizons + 3 * Sample().n_levels));
+  // Entries past the counts are not part of the update: not finite there is
+  // no error.
+  BarUpdate u = Sample();
+  for (int i = u.n_horizons; i < kMaxHorizons; ++i) u.var_h[i] = std::nan("");
+  for (int i = u.n_levels; i < kMaxRiskLevels; ++i) {
+    u.levels[i] = std::numeric_limits<double>::infinity();
+    u.var_risk[i] = std::nan("");
+    u.es[i] = -std::numeric_limits<double>::infinity();
+  }
+  std::string with_garbage, clean;
+  REQUIRE(EncodeUpdateJson(u, &with_garbage).ok());
+  REQUIRE(EncodeUpdateJson(Sample(), &clean).ok());
+  CHECK(with_garbage == clean);
+  REQUIRE(EncodeUpdateBinary(u, &with_garbage).ok());
+  REQUIRE(EncodeUpdateBinary(Sample(), &clean).ok());
+  CHECK(with_garbage == clean);
+  // The extremes of the finite range pass.
+  u = Sample();
+  u.var = std::numeric_limits<double>::max();
+  u.z = -std::numeric_limits<double>::max();
+  u.r = std::numeric_limits<double>::denorm_min();
+  CHECK(EncodeUpdateJson(u, &out).ok());
+  CHECK(EncodeUpdateBinary(u, &out).ok());
+  // Sizes.
+  u = Sample();
+  u.symbol.size = 0;
+  CHECK(std::string(EncodeUpdateBinary(u, &out).message()) == "update: symbol length out of range");
+  u.symbol.size = kMaxSymbolLength + 1;
+  CHECK(!EncodeUpdateJson(u, &out).ok());
+  u = Sample();
+  u.n_horizons = kMaxHorizons + 1;
+  CHECK(!EncodeUpdateJson(u, &out).ok());
+  u.n_horizons = -1;
+  CHECK(!EncodeUpdateBinary(u, &out).ok());
+  u = Sample();
+  u.n_levels = -1;
+  CHECK(!EncodeUpdateBinary(u, &out).ok());
+  u.n_levels = kMaxRiskLevels + 1;
+  CHECK(!EncodeUpdateJson(u, &out).ok());
+  CHECK(!EncodeUpdateBinary(u, &out).ok());
+  u = Sample();
+  u.symbol.size = kMaxSymbolLength;  // the longest allowed
+  CHECK(EncodeUpdateBinary(u, &out).ok());
+}
+
 uint64_t Bits(double v) {
   uint64_t b;
   std::memcpy(&b, &v, sizeof(b));
