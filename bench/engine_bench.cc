@@ -3,7 +3,10 @@
 //     -> consumer SUB, the same single-tick messages the engine gets; raw and
 //     the engine's one-tick-a-message rows run in 3 alternated rounds, and a
 //     share of raw is the median of the rounds' ratios (the latency rows
-//     likewise, with the overhead over raw a median of differences);
+//     likewise, with the overhead over raw a median of differences); in each
+//     round also a raw forwarder that sends bodies of the engine's update
+//     size (what the larger message alone costs ZeroMQ), and every such row
+//     prints the process's CPU time and context switches per tick;
 //   * engine throughput: feed PUB -> Engine (SUB, ingest core, PUB) -> consumer
 //     SUB, one tick per message and batched frames (updates are always one
 //     message each), and its ingest alone (updates encoded, then discarded);
@@ -166,9 +169,11 @@ struct Middle {
 // topology, so the comparison isolates the engine's processing.
 // With `spin` it busy-polls its SUB socket (receives with ZMQ_DONTWAIT in a
 // loop, never sleeping), the raw counterpart of the engine's [feed]
-// busy_poll_us.
+// busy_poll_us. With `out_bytes` > 0 it sends a body of that many bytes
+// instead of the one received: the size of the engine's update, to show what
+// the larger outbound message alone costs ZeroMQ.
 struct Forwarder : Middle {
-  Forwarder(const std::string& feed, bool spin)
+  Forwarder(const std::string& feed, bool spin, size_t out_bytes = 0)
       : ctx(1), in(ctx, zmq::socket_type::sub), out(ctx, zmq::socket_type::pub) {
     in.set(zmq::sockopt::rcvhwm, 0);
     in.set(zmq::sockopt::subscribe, "");
@@ -176,15 +181,20 @@ struct Forwarder : Middle {
     out.set(zmq::sockopt::sndhwm, 0);
     out.bind("tcp://127.0.0.1:*");
     endpoint = out.get(zmq::sockopt::last_endpoint);
-    th = std::thread([this, spin] {
+    th = std::thread([this, spin, out_bytes] {
       zmq::message_t a, b;
+      const std::string sized(out_bytes, 'u');
       while (!stop.load(std::memory_order_relaxed)) {
         zmq::pollitem_t it{in.handle(), 0, ZMQ_POLLIN, 0};
         if (!spin && zmq::poll(&it, 1, std::chrono::milliseconds(20)) <= 0) continue;
         while (in.recv(a, zmq::recv_flags::dontwait)) {
           if (!in.recv(b)) break;
           out.send(a, zmq::send_flags::sndmore);
-          out.send(b, zmq::send_flags::none);
+          if (out_bytes > 0) {
+            out.send(zmq::buffer(sized), zmq::send_flags::none);
+          } else {
+            out.send(b, zmq::send_flags::none);
+          }
         }
       }
     });
@@ -297,14 +307,15 @@ struct Rig {
   std::string feed_ep;
   std::unique_ptr<Middle> mid;
 
-  Rig(bool engine, WireEncoding enc, const LiveExtras& extras = {}) {
+  // out_bytes: the raw forwarder's outbound body size (0: the tick as received).
+  Rig(bool engine, WireEncoding enc, const LiveExtras& extras = {}, size_t out_bytes = 0) {
     feed.set(zmq::sockopt::sndhwm, 0);
     feed.bind("tcp://127.0.0.1:*");
     feed_ep = feed.get(zmq::sockopt::last_endpoint);
     if (engine)
       mid = std::make_unique<EngineMiddle>(feed_ep, enc, extras);
     else
-      mid = std::make_unique<Forwarder>(feed_ep, extras.busy_poll_us > 0);
+      mid = std::make_unique<Forwarder>(feed_ep, extras.busy_poll_us > 0, out_bytes);
     sub.set(zmq::sockopt::rcvhwm, 0);
     sub.set(zmq::sockopt::subscribe, "");
     sub.connect(mid->OutEndpoint());
@@ -500,6 +511,23 @@ double ProcessCpuNow() {
          (ru.ru_utime.tv_usec + ru.ru_stime.tv_usec) * 1e-6;
 }
 
+// Context switches of the whole process so far (voluntary: a thread waited;
+// involuntary: the scheduler took its core).
+double ProcessSwitchesNow() {
+  rusage ru;
+  getrusage(RUSAGE_SELF, &ru);
+  return static_cast<double>(ru.ru_nvcsw + ru.ru_nivcsw);
+}
+
+// What a throughput run cost the process per message delivered: CPU time of
+// every thread (producer, middle, consumer, ZeroMQ I/O threads) and context
+// switches. On this 2-core VM the rows are bound by these, not by the
+// engine's own work (DEVELOPERS.md, "Benchmarks").
+struct RunCost {
+  double cpu_us = 0;    // process CPU microseconds per message
+  double switches = 0;  // context switches per message
+};
+
 double CpuNow() {
   timespec ts;
   clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts);
@@ -536,6 +564,31 @@ double Pct(const std::vector<int64_t>& v, double q) {
 struct Rate {
   double wall = 0, cpu = 0;
 };
+
+// Counts the update bodies an ingest core hands it.
+class SizeSink : public UpdateSink {
+ public:
+  bool Send(absl::string_view topic, absl::string_view body) override {
+    bytes_ += body.size();
+    ++messages_;
+    return true;
+  }
+  size_t MeanBytes() const { return messages_ == 0 ? 0 : bytes_ / messages_; }
+
+ private:
+  size_t bytes_ = 0;
+  size_t messages_ = 0;
+};
+
+// The mean size of the update the engine publishes for the benchmark's ticks
+// (one per tick; the rows' configuration), in bytes.
+size_t UpdateBytes(WireEncoding enc) {
+  SizeSink sink;
+  ManualClock clock;
+  auto core = *IngestCore::Create(BenchConfig(enc), &sink, &clock);
+  for (int i = 0; i < 5000; ++i) core->OnTick(MakeTick(i % kSymbols, kT0 + i, Ret(i)));
+  return sink.MeanBytes();
+}
 
 Rate ReplayCoreRate(WireEncoding enc, int n, uint64_t* bars) {
   EngineConfig c = BenchConfig(enc);
@@ -889,7 +942,9 @@ constexpr const char* kUsage =
     "at 100k ticks/s waiting and busy-polling, replay), binary and JSON. Raw and the\n"
     "one-tick-a-message engine rows, and raw and engine latency in each mode, run in 3\n"
     "alternated rounds (medians; a share of raw or an overhead over raw is the median of the\n"
-    "rounds' own ratios or differences, each round's in brackets).\n"
+    "rounds' own ratios or differences, each round's in brackets), with a raw forwarder that\n"
+    "sends bodies of the update's size, and each such row's process CPU time and context\n"
+    "switches per tick.\n"
     "  --quick               shorter runs (fewer messages, 1 s of latency per row)\n"
     "  --replay-only         only the replay rows\n"
     "  --latency-only        only the latency rows\n"
@@ -970,44 +1025,81 @@ int main(int argc, char** argv) {
       // prints the median of its rates; a share is the median of the rounds'
       // own ratios (each round's runs back to back), with every round's share
       // in brackets.
-      std::vector<double> raw, eng, bat, eng_share, bat_share;
+      std::vector<double> raw, eng, bat, eng_share, bat_share, sized, eng_sized_share;
+      // Per row: process CPU us and context switches per tick, one per round
+      // (raw, engine, engine with update batches, raw with update-sized out).
+      std::vector<double> cpu[4], sw[4];
+      const size_t update_bytes = UpdateBytes(enc);
       bool short_raw = false, short_eng = false, short_bat = false;
-      for (int k = 0; k < kShareRounds; ++k) {
+      // Runs one throughput row and records its cost per tick offered.
+      auto run = [&](int row, Rig& rig, bool batches) {
         uint64_t got = 0;
+        const double c0 = ProcessCpuNow(), w0 = ProcessSwitchesNow();
+        const double s = rig.Throughput(single, single.size(), &got, batches, enc);
+        const double n = static_cast<double>(single.size());
+        cpu[row].push_back((ProcessCpuNow() - c0) * 1e6 / n);
+        sw[row].push_back((ProcessSwitchesNow() - w0) / n);
+        return std::make_pair(got / s, got < single.size());
+      };
+      for (int k = 0; k < kShareRounds; ++k) {
         {
           Rig rig(false, enc);
-          const double s = rig.Throughput(single, single.size(), &got);
-          raw.push_back(got / s);
-          short_raw |= got < single.size();
+          const auto [rate, incomplete] = run(0, rig, false);
+          raw.push_back(rate);
+          short_raw |= incomplete;
         }
         {
           Rig rig(true, enc);
-          const double s = rig.Throughput(single, single.size(), &got);
-          eng.push_back(got / s);
-          short_eng |= got < single.size();
+          const auto [rate, incomplete] = run(1, rig, false);
+          eng.push_back(rate);
+          short_eng |= incomplete;
         }
         {
           // The same messages; updates leave in batches on b.u (update_batch.h).
           LiveExtras x;
           x.update_topics = UpdateTopics::kBatch;
           Rig rig(true, enc, x);
-          const double s = rig.Throughput(single, single.size(), &got, /*batches=*/true, enc);
-          bat.push_back(got / s);
-          short_bat |= got < single.size();
+          const auto [rate, incomplete] = run(2, rig, true);
+          bat.push_back(rate);
+          short_bat |= incomplete;
+        }
+        {
+          // Raw again, sending bodies of the engine's update size: ZeroMQ
+          // stores a larger message in a buffer it allocates (a small one
+          // inside its message structure), so the size alone costs throughput.
+          Rig rig(false, enc, {}, update_bytes);
+          const auto [rate, incomplete] = run(3, rig, false);
+          sized.push_back(rate);
+          short_raw |= incomplete;
         }
         eng_share.push_back(100.0 * eng.back() / raw.back());
         bat_share.push_back(100.0 * bat.back() / raw.back());
+        eng_sized_share.push_back(100.0 * eng.back() / sized.back());
       }
-      std::printf("%-44s %11.0f/s %10s %10s %10s  (median of %d rounds)%s\n",
+      auto cost = [&](int row) {
+        char text[96];
+        std::snprintf(text, sizeof(text), "  [process CPU %.2f us, %.2f context switches a tick]",
+                      Median(cpu[row]), Median(sw[row]));
+        return std::string(text);
+      };
+      std::printf("%-44s %11.0f/s %10s %10s %10s  (median of %d rounds)%s%s\n",
                   absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(),
-                  Median(raw), "", "", "", kShareRounds, short_raw ? "  (incomplete)" : "");
-      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (rounds %s %%)%s\n",
+                  Median(raw), "", "", "", kShareRounds, cost(0).c_str(),
+                  short_raw ? "  (incomplete)" : "");
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (rounds %s %%)%s%s\n",
                   absl::StrCat("engine, 1 tick/msg (", en, ")").c_str(), Median(eng), "", "", "",
-                  Median(eng_share), Rounds(eng_share).c_str(), short_eng ? "  (incomplete)" : "");
-      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s; rounds %s %%)%s\n",
+                  Median(eng_share), Rounds(eng_share).c_str(), cost(1).c_str(),
+                  short_eng ? "  (incomplete)" : "");
+      std::printf("%-44s %11.0f/s %10s %10s %10s  = %.0f %% of raw (updates/s; rounds %s %%)%s%s\n",
                   absl::StrCat("engine, 1 tick/msg, batched updates (", en, ")").c_str(),
                   Median(bat), "", "", "", Median(bat_share), Rounds(bat_share).c_str(),
-                  short_bat ? "  (incomplete)" : "");
+                  cost(2).c_str(), short_bat ? "  (incomplete)" : "");
+      std::printf(
+          "%-44s %11.0f/s %10s %10s %10s  (%zu-byte bodies out; the engine is %.0f %% of it, "
+          "rounds %s %%)%s\n",
+          absl::StrCat("raw ZeroMQ, update-sized out (", en, ")").c_str(), Median(sized), "", "",
+          "", update_bytes, Median(eng_sized_share), Rounds(eng_sized_share).c_str(),
+          cost(3).c_str());
     }
     if (!latency_only) {
       const auto batches = BatchMessages(n_batch_ticks, batch, enc);
@@ -1035,9 +1127,12 @@ int main(int argc, char** argv) {
     }
     if (!latency_only) {
       uint64_t got = 0;
+      const double c0 = ProcessCpuNow(), w0 = ProcessSwitchesNow();
       const double r1 = IngestOnlyRate(single, single.size(), enc, &got);
-      std::printf("%-44s %11.0f/s%s\n",
+      const double n = static_cast<double>(single.size());
+      std::printf("%-44s %11.0f/s  [process CPU %.2f us, %.2f context switches a tick]%s\n",
                   absl::StrCat("engine ingest only, 1 tick/msg (", en, ")").c_str(), r1,
+                  (ProcessCpuNow() - c0) * 1e6 / n, (ProcessSwitchesNow() - w0) / n,
                   got < single.size() ? "  (incomplete)" : "");
       const auto batches = BatchMessages(n_batch_ticks, batch, enc);
       const double r2 = IngestOnlyRate(batches, n_batch_ticks, enc, &got);

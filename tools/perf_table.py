@@ -105,6 +105,20 @@ def share_of_raw(row, raw):
     return 100 * row["rate"] / raw["rate"], ""
 
 
+def sized_note(row):
+    """The engine's share of a raw forwarder that sends bodies of the update's
+    size (engine_bench's "update-sized out" row), which isolates what the
+    larger outbound message costs ZeroMQ; "" when the row is absent."""
+    if not row:
+        return ""
+    m = re.search(r"\((\d+)-byte bodies out; the engine is (\d+) % of it, rounds ([\d / ]+) %\)",
+                  row["rest"])
+    if not m:
+        return ""
+    return (f"; against a raw forwarder sending {m.group(1)}-byte bodies, the update's size: "
+            f"{m.group(2)} % (rounds {m.group(3).strip()} %)")
+
+
 def fmt_rate(x):
     return f"{x / 1e6:.2f} M/s" if x >= 1e6 else f"{x / 1e3:.0f} k/s"
 
@@ -128,7 +142,8 @@ def tiered(value, strict, loose, loose_name, higher_is_better=False):
 EXPECTED = {
     "engine_bench.cc": [
         '"raw ZeroMQ pass-through, 1 tick/msg ("', '"engine, 1 tick/msg ("',
-        '"engine, 1 tick/msg, batched updates ("', '"engine, batches of "',
+        '"engine, 1 tick/msg, batched updates ("', '"raw ZeroMQ, update-sized out ("',
+        '"engine, batches of "',
         '"engine ingest only, batches of "', '"), batched updates"', '"raw latency tick->tick"',
         '"engine latency tick->update"', '"raw latency, busy-poll forwarder"',
         '"engine latency, busy-poll"', '"replay core, pre-parsed ticks, JSON encode"',
@@ -276,7 +291,7 @@ def main():
                 pct, rounds = share_of_raw(eng, raw)
                 row(tgt, "`engine_bench --quick`",
                     f"{pct:.0f} % (engine {fmt_rate(eng['rate'])}, raw {fmt_rate(raw['rate'])}{rounds}; "
-                    f"{r.where()})",
+                    f"{r.where()}){sized_note(g(f'raw ZeroMQ, update-sized out ({enc})'))}",
                     pct >= share_target)
             else:
                 missing(tgt, "`engine_bench --quick`", r)
