@@ -7,9 +7,10 @@
 // instructions a double, and the JSON update writer makes 12 or 13 of them an
 // update (86 % of its instructions under callgrind). Where the build finds
 // Debian's fmt 9 with its shortest-digits routine (CMakeLists.txt,
-// AFTERSHOCK_HAVE_FMT_DRAGONBOX) the digits come from there (about 160
-// instructions) and this file lays them out with std::to_chars's notation
-// rule; without it every call is std::to_chars. Either way the bytes are
+// AFTERSHOCK_HAVE_FMT_DRAGONBOX; header-only, with its full table of powers
+// of ten) the digits come from there (about 85 instructions) and this file
+// lays them out with std::to_chars's notation rule (about 140); without it
+// every call is std::to_chars. Either way the bytes are
 // std::to_chars's (shortest_double_test compares them on millions of values).
 //
 // Thread-safety: thread-compatible (no state).
