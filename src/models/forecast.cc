@@ -14,9 +14,11 @@ constexpr double kInf = std::numeric_limits<double>::infinity();
 // phi^n for n >= 0, phi >= 0 (0^0 = 1).
 double PowN(double phi, int n) { return n == 0 ? 1.0 : std::pow(phi, n); }
 
-// (1 - phi^h) / (1 - phi) for 0 <= phi < 1, accurate near phi = 1.
+// (1 - phi^h) / (1 - phi) for 0 <= phi < 1, accurate near phi = 1. Exactly 1
+// for h = 1, so that the one-bar summed variance is the one-step forecast to
+// the bit (expm1(log(phi)) / (1 - phi) may round a unit away from 1).
 double GeometricSum(double phi, int h) {
-  if (phi <= 0.0) return 1.0;
+  if (phi <= 0.0 || h == 1) return 1.0;
   return -std::expm1(h * std::log(phi)) / (1.0 - phi);
 }
 

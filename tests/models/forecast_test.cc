@@ -114,6 +114,48 @@ TEST_CASE("closed forms equal brute-force iteration for (1,1)-type models", "[fo
   }
 }
 
+TEST_CASE("the one-bar summed variance is the one-step forecast to the bit", "[forecast]") {
+  // Its coefficients are exactly 0 and 1, from Create and from Retune, so the
+  // published var_h for 1 bar equals var_next bit for bit (the JSON writer
+  // then copies var_next's text instead of formatting the number again).
+  const auto garch = Garch11();
+  const auto gjr = Gjr111();
+  const auto arch1 = Make("arch", {1}, {{"omega", 0.3}, {"alpha_1", 0.6}});
+  for (const ModelParams* p : {&garch, &gjr, &arch1}) {
+    INFO(p->spec.Label());
+    auto table = HorizonTable::Create(*p, std::vector<int>{1, 5});
+    REQUIRE(table.ok());
+    REQUIRE(table->closed());
+    CHECK(table->sum_a(0) == 0.0);
+    CHECK(table->sum_b(0) == 1.0);
+    for (double s2 : {1e-6, 2.345678901234567e-4, 0.3, 7.0}) {
+      CHECK(table->SummedVariance(0, s2) == s2);
+    }
+    for (double phi : {0.5, 0.9, 0.97, 0.99, 0.999, 0.123456789}) {
+      table->Retune(phi, 1e-4);
+      CHECK(table->sum_a(0) == 0.0);
+      CHECK(table->sum_b(0) == 1.0);
+    }
+  }
+  // GARCH(1,1) models whose persistence makes the closed-form geometric sum
+  // expm1(log(phi)) / (1 - phi) round a unit away from 1 (about 6 % of
+  // persistences): the table still holds exactly 0 and 1.
+  int rounded_away = 0;
+  for (int k = 0; k < 1400; ++k) {
+    const double beta = 0.80 + 1e-4 * k;
+    const auto p = Make("garch", {1, 1}, {{"omega", 0.05}, {"alpha_1", 0.05}, {"beta_1", beta}});
+    const double phi = p.Persistence();
+    if (-std::expm1(std::log(phi)) / (1.0 - phi) == 1.0) continue;
+    ++rounded_away;
+    auto table = HorizonTable::Create(p, std::vector<int>{1, 5});
+    REQUIRE(table.ok());
+    CHECK(table->sum_a(0) == 0.0);
+    CHECK(table->sum_b(0) == 1.0);
+    CHECK(table->SummedVariance(0, 2.345678901234567e-4) == 2.345678901234567e-4);
+  }
+  CHECK(rounded_away > 10);
+}
+
 TEST_CASE("EWMA is flat and constant variance is omega", "[forecast]") {
   const auto ewma = Make("ewma", {}, {{"lambda", 0.94}});
   VarianceState st;
