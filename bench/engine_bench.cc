@@ -1064,9 +1064,9 @@ int main(int argc, char** argv) {
           short_bat |= incomplete;
         }
         {
-          // Raw again, sending bodies of the engine's update size: ZeroMQ
-          // stores a larger message in a buffer it allocates (a small one
-          // inside its message structure), so the size alone costs throughput.
+          // Raw again, sending bodies of the engine's update size: a larger
+          // message costs ZeroMQ and the loopback TCP stack more per message,
+          // so the size alone costs throughput.
           Rig rig(false, enc, {}, update_bytes);
           const auto [rate, incomplete] = run(3, rig, false);
           sized.push_back(rate);
