@@ -75,11 +75,15 @@ TEST_CASE("state from history applies the recursion once", "[forecast]") {
         "residuals (3) and variances (2) differ in length");
 }
 
+// The (1,1)-type models with a closed-form forecast table.
+std::vector<ModelParams> ClosedFormModels() {
+  return {Garch11(), Gjr111(), Make("arch", {1}, {{"omega", 0.3}, {"alpha_1", 0.6}})};
+}
+
 TEST_CASE("closed forms equal brute-force iteration for (1,1)-type models", "[forecast]") {
-  const auto garch = Garch11();
-  const auto gjr = Gjr111();
-  const auto arch1 = Make("arch", {1}, {{"omega", 0.3}, {"alpha_1", 0.6}});
-  for (const ModelParams* p : {&garch, &gjr, &arch1}) {
+  const std::vector<ModelParams> models = ClosedFormModels();
+  for (const ModelParams& model : models) {
+    const ModelParams* p = &model;
     INFO(p->spec.Label());
     REQUIRE(HasClosedFormForecast(p->spec));
     const auto st = StateFor(*p);
@@ -118,12 +122,9 @@ TEST_CASE("the one-bar summed variance is the one-step forecast to the bit", "[f
   // Its coefficients are exactly 0 and 1, from Create and from Retune, so the
   // published var_h for 1 bar equals var_next bit for bit (the JSON writer
   // then copies var_next's text instead of formatting the number again).
-  const auto garch = Garch11();
-  const auto gjr = Gjr111();
-  const auto arch1 = Make("arch", {1}, {{"omega", 0.3}, {"alpha_1", 0.6}});
-  for (const ModelParams* p : {&garch, &gjr, &arch1}) {
-    INFO(p->spec.Label());
-    auto table = HorizonTable::Create(*p, std::vector<int>{1, 5});
+  for (const ModelParams& p : ClosedFormModels()) {
+    INFO(p.spec.Label());
+    auto table = HorizonTable::Create(p, std::vector<int>{1, 5});
     REQUIRE(table.ok());
     REQUIRE(table->closed());
     CHECK(table->sum_a(0) == 0.0);
