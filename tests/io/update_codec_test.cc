@@ -12,6 +12,8 @@
 #include <string>
 #include <vector>
 
+#include "absl/strings/str_cat.h"
+
 namespace aftershock {
 namespace {
 
@@ -224,6 +226,25 @@ TEST_CASE("non-finite fields are never encoded", "[update_codec]") {
   u = Sample();
   u.es[1] = -std::numeric_limits<double>::infinity();
   CHECK(!EncodeUpdateBinary(u, &out).ok());
+}
+
+TEST_CASE("integers in the JSON update are written as std::to_chars writes them",
+          "[update_codec]") {
+  std::string out;
+  for (int64_t t : {int64_t{0}, int64_t{-1}, int64_t{1772443860000000000},
+                    std::numeric_limits<int64_t>::min(), std::numeric_limits<int64_t>::max(),
+                    int64_t{-9999999999999999}, int64_t{10000000000000000}}) {
+    BarUpdate u = Sample();
+    u.t_ns = t;
+    u.ver = std::numeric_limits<uint32_t>::max();
+    REQUIRE(EncodeUpdateJson(u, &out).ok());
+    INFO(out);
+    CHECK(out.find(absl::StrCat("\"t\":", t, ",")) != std::string::npos);
+    CHECK(out.find(",\"ver\":4294967295,") != std::string::npos);
+    BarUpdate back;
+    REQUIRE(DecodeUpdateJson(out, &back).ok());
+    CHECK(back.t_ns == t);
+  }
 }
 
 TEST_CASE("every non-finite value is caught, and only those", "[update_codec]") {
