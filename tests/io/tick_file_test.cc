@@ -235,6 +235,38 @@ TEST_CASE("millisecond ticks are read as milliseconds, not as 1970 nanoseconds",
         0);
 }
 
+TEST_CASE("once the unit is known, times near the plausible edges are checked in full",
+          "[tick_file]") {
+  // Lines after the first skip the unit's detection when they are well inside
+  // the plausible dates; at the edges and beyond, the full check decides as
+  // before. (The reader's own limit, 2^62 ns, about 2116, comes before 2200.)
+  auto r = TickFileReader::FromString(
+      "symbol,time,price\n"
+      "A,1772443800,1\n"
+      "A,31536000,1\n"       // 1971-01-01T00:00:00Z: the first plausible second
+      "A,4611686018.25,1\n"  // just below 2^62 ns
+      "A,4611686019,1\n"     // beyond it
+      "A,7258118400,1\n"     // 2200-01-01: not plausible
+      "A,31535999,1\n"       // a second before 1971
+      "A,1772443800000,1\n"  // milliseconds in a file of seconds
+      "A,1772443801.25,1\n",
+      "edges.csv");
+  REQUIRE(r.ok());
+  const auto ticks = ReadAll(r->get());
+  REQUIRE(ticks.size() == 4);
+  CHECK((*r)->time_unit() == TimeUnit::kSeconds);
+  CHECK(ticks[1].t_ns == 31536000LL * 1000000000);
+  CHECK(ticks[2].t_ns == 4611686018LL * 1000000000 + 250000000);
+  CHECK(ticks[3].t_ns == 1772443801LL * 1000000000 + 250000000);
+  REQUIRE((*r)->errors().size() == 4);
+  CHECK((*r)->errors()[0] ==
+        "edges.csv:5: time: cannot parse '4611686019' as s since the epoch (out of range)");
+  CHECK((*r)->errors()[1].find("edges.csv:6: time: '7258118400' is not a date between 1971") == 0);
+  CHECK((*r)->errors()[2].find("edges.csv:7: time: '31535999' is not a date between 1971") == 0);
+  CHECK((*r)->errors()[3] ==
+        "edges.csv:8: time: '1772443800000' reads as ms but the file's times are in s");
+}
+
 TEST_CASE("extra columns are ignored, others mapped, quotes give the mid", "[tick_file]") {
   TickFileOptions o;
   o.column_names = *ParseColumnNames("symbol=ric, time=ts");
