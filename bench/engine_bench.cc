@@ -528,6 +528,28 @@ struct RunCost {
   double switches = 0;  // context switches per message
 };
 
+// Takes the process's counters at construction; Per(n) is the cost since
+// then, per message of n.
+class CostMeter {
+ public:
+  CostMeter() : cpu0_(ProcessCpuNow()), switches0_(ProcessSwitchesNow()) {}
+  RunCost Per(double messages) const {
+    return {(ProcessCpuNow() - cpu0_) * 1e6 / messages,
+            (ProcessSwitchesNow() - switches0_) / messages};
+  }
+
+ private:
+  double cpu0_, switches0_;
+};
+
+// The cost as the rows print it, after the rate.
+std::string CostText(const RunCost& c) {
+  char text[96];
+  std::snprintf(text, sizeof(text), "  [process CPU %.2f us, %.2f context switches a tick]",
+                c.cpu_us, c.switches);
+  return text;
+}
+
 double CpuNow() {
   timespec ts;
   clock_gettime(CLOCK_THREAD_CPUTIME_ID, &ts);
@@ -1034,11 +1056,11 @@ int main(int argc, char** argv) {
       // Runs one throughput row and records its cost per tick offered.
       auto run = [&](int row, Rig& rig, bool batches) {
         uint64_t got = 0;
-        const double c0 = ProcessCpuNow(), w0 = ProcessSwitchesNow();
+        const CostMeter meter;
         const double s = rig.Throughput(single, single.size(), &got, batches, enc);
-        const double n = static_cast<double>(single.size());
-        cpu[row].push_back((ProcessCpuNow() - c0) * 1e6 / n);
-        sw[row].push_back((ProcessSwitchesNow() - w0) / n);
+        const RunCost c = meter.Per(static_cast<double>(single.size()));
+        cpu[row].push_back(c.cpu_us);
+        sw[row].push_back(c.switches);
         return std::make_pair(got / s, got < single.size());
       };
       for (int k = 0; k < kShareRounds; ++k) {
@@ -1076,12 +1098,7 @@ int main(int argc, char** argv) {
         bat_share.push_back(100.0 * bat.back() / raw.back());
         eng_sized_share.push_back(100.0 * eng.back() / sized.back());
       }
-      auto cost = [&](int row) {
-        char text[96];
-        std::snprintf(text, sizeof(text), "  [process CPU %.2f us, %.2f context switches a tick]",
-                      Median(cpu[row]), Median(sw[row]));
-        return std::string(text);
-      };
+      auto cost = [&](int row) { return CostText({Median(cpu[row]), Median(sw[row])}); };
       std::printf("%-44s %11.0f/s %10s %10s %10s  (median of %d rounds)%s%s\n",
                   absl::StrCat("raw ZeroMQ pass-through, 1 tick/msg (", en, ")").c_str(),
                   Median(raw), "", "", "", kShareRounds, cost(0).c_str(),
@@ -1127,12 +1144,11 @@ int main(int argc, char** argv) {
     }
     if (!latency_only) {
       uint64_t got = 0;
-      const double c0 = ProcessCpuNow(), w0 = ProcessSwitchesNow();
+      const CostMeter meter;
       const double r1 = IngestOnlyRate(single, single.size(), enc, &got);
-      const double n = static_cast<double>(single.size());
-      std::printf("%-44s %11.0f/s  [process CPU %.2f us, %.2f context switches a tick]%s\n",
+      std::printf("%-44s %11.0f/s%s%s\n",
                   absl::StrCat("engine ingest only, 1 tick/msg (", en, ")").c_str(), r1,
-                  (ProcessCpuNow() - c0) * 1e6 / n, (ProcessSwitchesNow() - w0) / n,
+                  CostText(meter.Per(static_cast<double>(single.size()))).c_str(),
                   got < single.size() ? "  (incomplete)" : "");
       const auto batches = BatchMessages(n_batch_ticks, batch, enc);
       const double r2 = IngestOnlyRate(batches, n_batch_ticks, enc, &got);

@@ -3,7 +3,6 @@
 // given rate for the live engine.
 #include <toml++/toml.h>
 
-#include <charconv>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
@@ -29,6 +28,7 @@
 #include "app/args.h"
 #include "app/cli.h"
 #include "app/stop_signal.h"
+#include "io/shortest_double.h"
 
 namespace aftershock::app {
 namespace {
@@ -212,12 +212,6 @@ absl::Status ParseSessionOption(absl::string_view text, SessionWindow* w) {
   return absl::OkStatus();
 }
 
-void AppendDouble(double v, std::string* out) {
-  char buf[32];
-  auto res = std::to_chars(buf, buf + sizeof buf, v);
-  out->append(buf, res.ptr);
-}
-
 std::string FormatTime(int64_t t_ns, bool iso) {
   if (!iso) return absl::StrCat(t_ns);
   return absl::FormatTime("%Y-%m-%dT%H:%M:%E*SZ", absl::FromUnixNanos(t_ns), absl::UTCTimeZone());
@@ -268,7 +262,7 @@ int WriteCsv(MarketSim& sim, const std::string& path, Tick::Kind field, bool iso
   };
   while (sim.Next(field, &tick)) {
     absl::StrAppend(&buf, tick.symbol.view(), ",", FormatTime(tick.t_ns, iso), ",");
-    AppendDouble(tick.value, &buf);
+    internal::AppendShortestDouble(&buf, tick.value);
     buf.push_back('\n');
     if (buf.size() > (1 << 16)) {
       flush();

@@ -87,12 +87,12 @@ inline __m128i Ascii8x2(uint32_t a, uint32_t b) {
 // left-aligned by a shift and stored whole: no copy of a variable size, and
 // no stored byte is read back.
 inline char PutDigits(char* p, uint64_t x, int n) {
-  const uint64_t hi = x / 100000000;  // < 10^9
   if (n <= 8) {
     const uint64_t s = Ascii8(static_cast<uint32_t>(x)) >> (8 * (8 - n));  // x < 10^8 here
     std::memcpy(p, &s, 8);
     return static_cast<char>(s);
   }
+  const uint64_t hi = x / 100000000;    // < 10^9
   const uint64_t top = hi / 100000000;  // < 10
 #if defined(__SSE2__)
   const __m128i both = Ascii8x2(static_cast<uint32_t>(hi - top * 100000000),
@@ -209,6 +209,11 @@ char* WriteShortestDouble(char* p, double v) {
   }
 #endif
   return std::to_chars(p, p + kShortestDoubleMaxChars, v).ptr;
+}
+
+void AppendShortestDouble(std::string* out, double v) {
+  char buf[kShortestDoubleBufferBytes];
+  out->append(buf, WriteShortestDouble(buf, v));
 }
 
 }  // namespace aftershock::internal

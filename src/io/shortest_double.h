@@ -17,6 +17,8 @@
 #ifndef AFTERSHOCK_SRC_IO_SHORTEST_DOUBLE_H_
 #define AFTERSHOCK_SRC_IO_SHORTEST_DOUBLE_H_
 
+#include <string>
+
 namespace aftershock::internal {
 
 // The longest text WriteShortestDouble writes: "-2.2250738585072014e-308".
@@ -31,6 +33,9 @@ constexpr int kShortestDoubleBufferBytes = 40;
 // std::to_chars; "inf", "-inf", "nan" and "-0" as std::to_chars.
 // REQUIRES: kShortestDoubleBufferBytes writable bytes at p.
 char* WriteShortestDouble(char* p, double v);
+
+// Appends WriteShortestDouble's text of v to *out.
+void AppendShortestDouble(std::string* out, double v);
 
 // True when the build uses fmt's shortest-digits routine (false: every call
 // is std::to_chars). For benchmarks and the contributor guide.

@@ -15,17 +15,10 @@ namespace {
 
 constexpr size_t kCsvBufferBytes = 1 << 20;
 
-// Shortest text that parses back to the same double.
-// std::to_chars's bytes, faster (io/shortest_double.h).
-void AppendDouble(double v, std::string* out) {
-  char buf[internal::kShortestDoubleBufferBytes];
-  out->append(buf, internal::WriteShortestDouble(buf, v));
-}
-
 // The level as a column-name suffix: the shortest form, e.g. 0.99 or 0.975.
 std::string LevelKey(double level) {
   std::string s;
-  AppendDouble(level, &s);
+  internal::AppendShortestDouble(&s, level);
   return s;
 }
 
@@ -139,20 +132,20 @@ absl::Status AppendUpdateCsvRow(const BarUpdate& u, std::string* out) {
   AppendUtcTime(u.t_ns, out);
   for (double v : {u.r, u.mu, u.eps, u.var, u.z, u.var_next, u.vol_ann}) {
     out->push_back(',');
-    AppendDouble(v, out);
+    internal::AppendShortestDouble(out, v);
   }
   for (int i = 0; i < u.n_horizons; ++i) {
     out->push_back(',');
-    AppendDouble(u.var_h[i], out);
+    internal::AppendShortestDouble(out, u.var_h[i]);
   }
   for (int i = 0; i < u.n_levels; ++i) {
     out->push_back(',');
-    AppendDouble(u.var_risk[i], out);
+    internal::AppendShortestDouble(out, u.var_risk[i]);
     out->push_back(',');
-    AppendDouble(u.es[i], out);
+    internal::AppendShortestDouble(out, u.es[i]);
   }
   out->push_back(',');
-  AppendDouble(u.scale, out);
+  internal::AppendShortestDouble(out, u.scale);
   out->push_back(',');
   char ver[16];
   out->append(ver, std::to_chars(ver, ver + sizeof(ver), u.ver).ptr);

@@ -603,12 +603,6 @@ DecodeResult DecodeBinary(absl::string_view symbol_frame, absl::string_view body
   return result;
 }
 
-// std::to_chars's bytes, faster (io/shortest_double.h).
-void AppendDouble(std::string* out, double v) {
-  char buf[internal::kShortestDoubleBufferBytes];
-  out->append(buf, internal::WriteShortestDouble(buf, v));
-}
-
 void AppendInt(std::string* out, int64_t v) {
   char buf[24];
   const auto res = std::to_chars(buf, buf + sizeof(buf), v);
@@ -619,10 +613,10 @@ void AppendTickJsonFields(const Tick& tick, std::string* out) {
   out->append("\"t\":");
   AppendInt(out, tick.t_ns);
   out->append(tick.kind == Tick::kReturn ? ",\"r\":" : ",\"p\":");
-  AppendDouble(out, tick.value);
+  internal::AppendShortestDouble(out, tick.value);
   if (tick.size != 0) {
     out->append(",\"v\":");
-    AppendDouble(out, tick.size);
+    internal::AppendShortestDouble(out, tick.size);
   }
 }
 
